@@ -1,0 +1,457 @@
+"""YAML configuration -> validated, frozen config objects.
+
+Every problem raises :class:`~scaling.errors.ConfigError` with one line that
+names the config file and the key path, e.g.
+``run.yaml: model.methods[1]: 'smaa' is not a method; did you mean 'sma'?``.
+Paths in the config are resolved against the folder of the config file.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Callable
+
+import yaml
+
+from .errors import ConfigError
+
+__all__ = [
+    "Config", "DataConfig", "ModelConfig", "GroupsConfig", "PredictionConfig",
+    "FiguresConfig", "OutputConfig", "load_config", "config_from_dict",
+    "METHOD_NAMES", "CORRECTIONS", "FIGURE_KINDS",
+]
+
+# Methods a config may name.  Kept here (not imported from lines) so that the
+# config layer can be validated without the numeric core; a test checks the
+# two lists agree.
+METHOD_NAMES = ("ols", "sma", "ma")
+CORRECTIONS = ("smearing", "parametric", "ratio", "none")
+INTERVALS = ("prediction", "confidence")
+FIGURE_KINDS = ("scaling", "natural", "exponents", "residuals")
+FIGURE_FORMATS = ("png", "pdf", "svg")
+FIGURE_SIZES = ("single", "double")
+LOG_BASES = ("10", "e", "2")
+
+_REQUIRED = object()
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DataConfig:
+    file: Path
+    x: str
+    y: str
+    sheet: int | str = 0
+    skip_rows: int = 0
+    units_row: bool = False
+    delimiter: str = "auto"
+    decimal: str = "."
+    encoding: str = "utf-8"
+    group: str | None = None
+    average_within: str | None = None
+    exclude: dict = field(default_factory=dict)   # column -> tuple of values
+    units: dict = field(default_factory=dict)     # {"x": "g", "y": "mW"}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ModelConfig:
+    log_base: str = "10"
+    methods: tuple = ("ols", "sma", "ma")
+    confidence: float = 0.95
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GroupsConfig:
+    compare: bool = True
+    fit_group_means: bool = True
+    weight_means: bool = False
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PredictionConfig:
+    x: tuple = ()
+    y: tuple = ()            # inverse prediction: x from these y values
+    correction: str = "smearing"
+    interval: str = "prediction"
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FiguresConfig:
+    formats: tuple = ("png",)
+    kinds: tuple = FIGURE_KINDS
+    size: str = "single"
+    dpi: int = 300
+    labels: dict = field(default_factory=dict)    # {"x": "Body mass", "y": "..."}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class OutputConfig:
+    dir: Path
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Config:
+    """A whole validated configuration (see INTERFACE.md for every key)."""
+
+    title: str
+    data: DataConfig
+    model: ModelConfig
+    exponents: dict            # name -> float, in the order given
+    groups: GroupsConfig
+    prediction: PredictionConfig
+    figures: FiguresConfig
+    output: OutputConfig
+    source: Path | None = None     # the config file, if read from one
+    raw: dict = field(default_factory=dict)   # the mapping as read, for the manifest
+
+    def with_output_dir(self, path: Path) -> "Config":
+        return replace(self, output=OutputConfig(dir=Path(path)))
+
+
+# --------------------------------------------------------------------------
+# small typed readers; each takes (value, path) and raises _Bad on failure
+
+
+class _Bad(Exception):
+    def __init__(self, path: str, message: str):
+        super().__init__(f"{path}: {message}")
+
+
+def _describe(value) -> str:
+    if value is None:
+        return "nothing (null)"
+    return f"{value!r} ({type(value).__name__})"
+
+
+def _suggest(word, options) -> str:
+    close = difflib.get_close_matches(str(word), [str(o) for o in options], n=1, cutoff=0.5)
+    return f"; did you mean '{close[0]}'?" if close else \
+        f"; choose from {', '.join(map(str, options))}"
+
+
+def _string(value, path, *, allow_empty=False) -> str:
+    if isinstance(value, bool) or not isinstance(value, (str, int, float)):
+        raise _Bad(path, f"expected text, got {_describe(value)}")
+    text = str(value)
+    if not allow_empty and not text.strip():
+        raise _Bad(path, "must not be empty")
+    return text
+
+
+def _optional_string(value, path):
+    return None if value is None else _string(value, path)
+
+
+def _boolean(value, path) -> bool:
+    if not isinstance(value, bool):
+        raise _Bad(path, f"expected true or false, got {_describe(value)}")
+    return value
+
+
+def _int(value, path, *, minimum=None) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise _Bad(path, f"expected a whole number, got {_describe(value)}")
+    if minimum is not None and value < minimum:
+        raise _Bad(path, f"must be at least {minimum}, got {value}")
+    return value
+
+
+def _number(value, path) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise _Bad(path, f"expected a number, got {_describe(value)}")
+    if not math.isfinite(value):
+        raise _Bad(path, f"must be finite, got {value}")
+    return float(value)
+
+
+def _choice(options):
+    def read(value, path):
+        text = _string(value, path).strip().lower()
+        if text not in options:
+            raise _Bad(path, f"{value!r} is not one of {', '.join(options)}{_suggest(text, options)}")
+        return text
+    return read
+
+
+def _list_of(reader, *, unique=True, non_empty=False, noun="value"):
+    def read(value, path):
+        if not isinstance(value, (list, tuple)):
+            value = [value]
+        if non_empty and not value:
+            raise _Bad(path, f"needs at least one {noun}")
+        out = []
+        for i, item in enumerate(value):
+            item = reader(item, f"{path}[{i}]")
+            if unique and item in out:
+                raise _Bad(f"{path}[{i}]", f"{item!r} is listed twice")
+            out.append(item)
+        return tuple(out)
+    return read
+
+
+def _method(value, path):
+    text = _string(value, path).strip().lower()
+    if text not in METHOD_NAMES:
+        raise _Bad(path, f"'{value}' is not a method{_suggest(text, METHOD_NAMES)}")
+    return text
+
+
+def _log_base(value, path):
+    if isinstance(value, bool):
+        raise _Bad(path, f"expected 10, e or 2, got {_describe(value)}")
+    if isinstance(value, (int, float)):
+        for label, number in (("10", 10.0), ("2", 2.0), ("e", math.e)):
+            if math.isclose(value, number):
+                return label
+        raise _Bad(path, f"expected 10, e or 2, got {value!r}")
+    return _choice(LOG_BASES)(value, path)
+
+
+def _confidence(value, path):
+    v = _number(value, path)
+    if not 0 < v < 1:
+        raise _Bad(path, f"must lie between 0 and 1 (e.g. 0.95), got {value!r}")
+    return v
+
+
+def _positive_numbers(value, path):
+    numbers = _list_of(_number, unique=False)(value, path)
+    for i, v in enumerate(numbers):
+        if v <= 0:
+            raise _Bad(f"{path}[{i}]", f"must be positive (natural units), got {v:g}")
+    return numbers
+
+
+def _single_char(value, path, *, options=None):
+    text = _string(value, path, allow_empty=False)
+    if text.lower() == "auto" and options is None:
+        return "auto"
+    if text in ("\\t", "tab"):
+        return "\t"
+    if len(text) != 1:
+        raise _Bad(path, f"expected 'auto' or one character, got {value!r}")
+    if options and text not in options:
+        raise _Bad(path, f"expected one of {' '.join(repr(o) for o in options)}, got {value!r}")
+    return text
+
+
+def _sheet(value, path):
+    if isinstance(value, bool):
+        raise _Bad(path, f"expected a sheet index or name, got {_describe(value)}")
+    if isinstance(value, int):
+        return _int(value, path, minimum=0)
+    return _string(value, path)
+
+
+def _exclude(value, path):
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise _Bad(path, "expected a mapping of column: [values to drop], "
+                         "e.g. {clade: [outgroup]}")
+    out = {}
+    for column, values in value.items():
+        key = f"{path}.{column}"
+        _string(column, key)
+        if not isinstance(values, (list, tuple)):
+            values = [values]
+        for i, v in enumerate(values):
+            if isinstance(v, (dict, list)) or v is None:
+                raise _Bad(f"{key}[{i}]", f"expected a value to drop, got {_describe(v)}")
+        out[str(column)] = tuple(values)
+    return out
+
+
+def _xy_labels(value, path):
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise _Bad(path, "expected a mapping like {x: g, y: mW}")
+    out = {}
+    for key, text in value.items():
+        if key not in ("x", "y"):
+            raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, ('x', 'y'))}")
+        out[key] = _string(text, f"{path}.{key}", allow_empty=True)
+    return out
+
+
+def _exponents(value, path):
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise _Bad(path, "expected a mapping of name: exponent, e.g. {three_quarters: 0.75}")
+    out = {}
+    for name, exponent in value.items():
+        _string(name, f"{path}.{name}")
+        if isinstance(exponent, str) and "/" in exponent:
+            # "3/4" reads as a fraction, which is how people write exponents.
+            num, _, den = exponent.partition("/")
+            try:
+                exponent = float(num) / float(den)
+            except (ValueError, ZeroDivisionError):
+                raise _Bad(f"{path}.{name}", f"cannot read {exponent!r} as a fraction") from None
+        out[str(name)] = _number(exponent, f"{path}.{name}")
+    return out
+
+
+# --------------------------------------------------------------------------
+# the schema: section -> key -> (reader, default)
+
+_SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
+    "data": {
+        "file": (_string, _REQUIRED),
+        "x": (_string, _REQUIRED),
+        "y": (_string, _REQUIRED),
+        "sheet": (_sheet, 0),
+        "skip_rows": (lambda v, p: _int(v, p, minimum=0), 0),
+        "units_row": (_boolean, False),
+        "delimiter": (_single_char, "auto"),
+        "decimal": (lambda v, p: _single_char(v, p, options=(".", ",")), "."),
+        "encoding": (_string, "utf-8"),
+        "group": (_optional_string, None),
+        "average_within": (_optional_string, None),
+        "exclude": (_exclude, {}),
+        "units": (_xy_labels, {}),
+    },
+    "model": {
+        "log_base": (_log_base, "10"),
+        "methods": (_list_of(_method, non_empty=True, noun="method"), ("ols", "sma", "ma")),
+        "confidence": (_confidence, 0.95),
+    },
+    "groups": {
+        "compare": (_boolean, True),
+        "fit_group_means": (_boolean, True),
+        "weight_means": (_boolean, False),
+    },
+    "prediction": {
+        "x": (_positive_numbers, ()),
+        "y": (_positive_numbers, ()),
+        "correction": (_choice(CORRECTIONS), "smearing"),
+        "interval": (_choice(INTERVALS), "prediction"),
+    },
+    "figures": {
+        "formats": (_list_of(_choice(FIGURE_FORMATS)), ("png",)),
+        "kinds": (_list_of(_choice(FIGURE_KINDS)), FIGURE_KINDS),
+        "size": (_choice(FIGURE_SIZES), "single"),
+        "dpi": (lambda v, p: _int(v, p, minimum=50), 300),
+        "labels": (_xy_labels, {}),
+    },
+    "output": {
+        "dir": (_string, None),
+    },
+}
+_TOP_LEVEL = ("title", "data", "model", "exponents", "groups", "prediction",
+              "figures", "output")
+
+
+def _read_section(raw, name) -> dict:
+    spec = _SCHEMA[name]
+    if raw is None:
+        raw = {}
+    if not isinstance(raw, dict):
+        raise _Bad(name, f"expected a mapping of keys, got {_describe(raw)}")
+    for key in raw:
+        if key not in spec:
+            raise _Bad(f"{name}.{key}", f"unknown key{_suggest(key, spec)}")
+    out = {}
+    for key, (reader, default) in spec.items():
+        path = f"{name}.{key}"
+        if key in raw:
+            out[key] = reader(raw[key], path)
+        elif default is _REQUIRED:
+            raise _Bad(path, "is required")
+        else:
+            out[key] = default
+    return out
+
+
+def config_from_dict(raw: dict, *, base_dir: Path | str = ".",
+                     source: Path | None = None) -> Config:
+    """Validate a configuration mapping (as loaded from YAML).
+
+    Parameters
+    ----------
+    raw : dict
+        The mapping.
+    base_dir : path
+        Folder against which ``data.file`` and ``output.dir`` are resolved.
+    source : path, optional
+        The config file, for messages and the manifest.
+    """
+    label = source.name if source is not None else "config"
+    try:
+        return _build(raw, Path(base_dir), source)
+    except _Bad as exc:
+        raise ConfigError(f"{label}: {exc}") from None
+
+
+def _build(raw, base_dir: Path, source) -> Config:
+    if not isinstance(raw, dict):
+        raise _Bad("(top level)", f"expected a mapping of sections, got {_describe(raw)}")
+    for key in raw:
+        if key not in _TOP_LEVEL:
+            raise _Bad(str(key), f"unknown key{_suggest(key, _TOP_LEVEL)}")
+    if "data" not in raw:
+        raise _Bad("data", "is required (data.file, data.x and data.y at least)")
+    sections = {name: _read_section(raw.get(name), name) for name in _SCHEMA}
+    data = sections["data"]
+    data["file"] = (base_dir / Path(data["file"]).expanduser()).resolve() \
+        if not Path(data["file"]).is_absolute() else Path(data["file"])
+    if data["x"] == data["y"]:
+        raise _Bad("data.y", f"is the same column as data.x ({data['x']!r})")
+    for key in ("group", "average_within"):
+        if data[key] is not None and data[key] in (data["x"], data["y"]):
+            raise _Bad(f"data.{key}", f"{data[key]!r} is also the x or y column")
+    out_dir = sections["output"]["dir"]
+    if out_dir is None:
+        stem = source.stem if source is not None else "scaling"
+        out_dir = f"results/{stem}"
+    out_path = Path(out_dir).expanduser()
+    if not out_path.is_absolute():
+        out_path = (base_dir / out_path).resolve()
+    title = raw.get("title", None)
+    title = "Allometric scaling" if title is None else _string(title, "title")
+    return Config(
+        title=title,
+        data=DataConfig(**data),
+        model=ModelConfig(**sections["model"]),
+        exponents=_exponents(raw.get("exponents"), "exponents"),
+        groups=GroupsConfig(**sections["groups"]),
+        prediction=PredictionConfig(**sections["prediction"]),
+        figures=FiguresConfig(**sections["figures"]),
+        output=OutputConfig(dir=out_path),
+        source=source,
+        raw=raw,
+    )
+
+
+def load_config(path: str | Path) -> Config:
+    """Read and validate a YAML config file.
+
+    Raises
+    ------
+    ConfigError
+        If the file is missing, is not valid YAML, or any key is wrong; the
+        message names the file and the key path.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise ConfigError(f"{path}: config file not found")
+    if path.is_dir():
+        raise ConfigError(f"{path}: is a folder, not a config file")
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{path}: config file is not UTF-8 text ({exc.reason})") from None
+    try:
+        raw = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f"line {mark.line + 1}, column {mark.column + 1}: " if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        raise ConfigError(f"{path}: YAML syntax error at {where}{problem}") from None
+    if raw is None:
+        raise ConfigError(f"{path}: config file is empty; 'scaling init' writes a starter")
+    return config_from_dict(raw, base_dir=path.resolve().parent, source=path)

@@ -1,0 +1,165 @@
+"""Sufficient statistics of a bivariate sample, per group, in one vectorised pass.
+
+Every line estimator in :mod:`scaling.lines` reads these moments rather than
+raw rows: ``n``, the means of X and Y, and the centred sums of squares and
+products ``sxx``, ``syy``, ``sxy``.  A set of moments is a small frozen
+dataclass of equally shaped arrays, so one call serves one group, ten
+thousand groups, or a ``(B, groups)`` stack of bootstrap resamples.
+
+Centred sums are accumulated with a two-pass algorithm (means first, then
+sums of centred products), which keeps full precision when the logs have a
+large offset.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["Moments", "moments", "group_moments", "weighted_moments"]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Moments:
+    """Sample size, means and centred sums of one or many bivariate samples.
+
+    All attributes are numpy arrays of one shape (a 0-d array for one sample).
+
+    Attributes
+    ----------
+    n : ndarray
+        Number of observations (or total weight).
+    mean_x, mean_y : ndarray
+        Means of X and Y.
+    sxx, syy, sxy : ndarray
+        Centred sums: sum (X - mean_x)^2, sum (Y - mean_y)^2,
+        sum (X - mean_x)(Y - mean_y).
+    """
+
+    n: np.ndarray
+    mean_x: np.ndarray
+    mean_y: np.ndarray
+    sxx: np.ndarray
+    syy: np.ndarray
+    sxy: np.ndarray
+
+    @property
+    def r(self) -> np.ndarray:
+        """Pearson correlation; NaN where either variance is zero."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return self.sxy / np.sqrt(self.sxx * self.syy)
+
+    def __getitem__(self, index) -> "Moments":
+        return Moments(
+            n=self.n[index],
+            mean_x=self.mean_x[index],
+            mean_y=self.mean_y[index],
+            sxx=self.sxx[index],
+            syy=self.syy[index],
+            sxy=self.sxy[index],
+        )
+
+    def swapped(self) -> "Moments":
+        """The moments with the roles of X and Y exchanged."""
+        return Moments(
+            n=self.n, mean_x=self.mean_y, mean_y=self.mean_x,
+            sxx=self.syy, syy=self.sxx, sxy=self.sxy,
+        )
+
+    def to_dict(self) -> dict:
+        """Plain floats (or lists of floats) for JSON."""
+        return {
+            name: np.asarray(getattr(self, name)).tolist()
+            for name in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "Moments":
+        return cls(**{k: np.asarray(d[k], dtype=float)
+                      for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
+
+
+def moments(x, y) -> Moments:
+    """Moments of one sample (0-d arrays).
+
+    Parameters
+    ----------
+    x, y : array_like
+        Equal-length 1-d arrays (already on the log scale).
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    labels = np.zeros(x.shape, dtype=np.intp)
+    return group_moments(x, y, labels, n_groups=1)[0]
+
+
+def group_moments(x, y, labels, *, n_groups: int | None = None) -> Moments:
+    """Moments of every group at once.
+
+    Parameters
+    ----------
+    x, y : array_like
+        1-d arrays of equal length.
+    labels : array_like of int
+        Group index 0..G-1 of each row.
+    n_groups : int, optional
+        G; defaults to ``labels.max() + 1``.
+
+    Returns
+    -------
+    Moments
+        Arrays of shape (G,).  Empty groups have n = 0 and NaN means.
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    labels = np.asarray(labels, dtype=np.intp)
+    if n_groups is None:
+        n_groups = int(labels.max()) + 1 if labels.size else 0
+    n = np.bincount(labels, minlength=n_groups).astype(float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mx = np.bincount(labels, weights=x, minlength=n_groups) / n
+        my = np.bincount(labels, weights=y, minlength=n_groups) / n
+    dx = x - mx[labels]
+    dy = y - my[labels]
+    return Moments(
+        n=n,
+        mean_x=mx,
+        mean_y=my,
+        sxx=np.bincount(labels, weights=dx * dx, minlength=n_groups),
+        syy=np.bincount(labels, weights=dy * dy, minlength=n_groups),
+        sxy=np.bincount(labels, weights=dx * dy, minlength=n_groups),
+    )
+
+
+def weighted_moments(x, y, weights) -> Moments:
+    """Moments under row weights, vectorised over leading axes of ``weights``.
+
+    With integer weights (counts of how often each row is drawn) this gives
+    the moments of a resample without building it, so ``B`` bootstrap
+    resamples are one ``(B, n) @ (n,)`` product per sum.
+
+    Parameters
+    ----------
+    x, y : array_like, shape (n,)
+    weights : array_like, shape (..., n)
+
+    Returns
+    -------
+    Moments
+        Arrays of shape ``weights.shape[:-1]``.
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    w = np.asarray(weights, dtype=float)
+    n = w.sum(axis=-1)
+    # Centre on the unweighted means first so the weighted sums stay precise.
+    cx, cy = x - x.mean(), y - y.mean()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mx = (w @ cx) / n
+        my = (w @ cy) / n
+        sxx = w @ (cx * cx) - n * mx * mx
+        syy = w @ (cy * cy) - n * my * my
+        sxy = w @ (cx * cy) - n * mx * my
+    return Moments(n=n, mean_x=mx + x.mean(), mean_y=my + y.mean(),
+                   sxx=sxx, syy=syy, sxy=sxy)
