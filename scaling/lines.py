@@ -52,7 +52,7 @@ from typing import Callable
 import numpy as np
 from scipy import stats
 
-from .errors import DataError, DegenerateDataWarning
+from .errors import ConfigError, DataError, DegenerateDataWarning
 from .moments import Moments, moments as _moments
 
 __all__ = [
@@ -81,7 +81,7 @@ def parse_log_base(log_base) -> float | None:
 
     Raises
     ------
-    ValueError
+    ConfigError
         If the base is not one of 10, e, 2 or None.
     """
     if log_base is None:
@@ -95,7 +95,7 @@ def parse_log_base(log_base) -> float | None:
         for value in (10.0, math.e, 2.0):
             if math.isclose(float(log_base), value):
                 return value
-    raise ValueError(f"log_base must be 10, 'e', 2 or None, not {log_base!r}")
+    raise ConfigError(f"log_base must be 10, 'e', 2 or None, not {log_base!r}")
 
 
 def base_label(base: float | None) -> str:
@@ -185,7 +185,9 @@ def _sma_bounds(m: Moments, tcrit: np.ndarray):
 def _eigen(m: Moments):
     half_trace = (m.sxx + m.syy) / 2
     disc = np.sqrt(((m.sxx - m.syy) / 2) ** 2 + m.sxy ** 2)
-    return half_trace + disc, half_trace - disc
+    # The covariance matrix is positive semi-definite: l2 < 0 is rounding
+    # (collinear data) and would turn the interval and SE into NaN.
+    return half_trace + disc, np.maximum(half_trace - disc, 0.0)
 
 
 def _ma_slope(m: Moments) -> np.ndarray:
@@ -254,7 +256,7 @@ def _get_method(method: str) -> LineMethod:
     try:
         return METHODS[method]
     except (KeyError, TypeError):
-        raise ValueError(
+        raise ConfigError(
             f"method must be one of {', '.join(METHODS)}, not {method!r}"
         ) from None
 
@@ -262,7 +264,7 @@ def _get_method(method: str) -> LineMethod:
 def _check_confidence(confidence) -> float:
     if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) \
             or not 0 < confidence < 1:
-        raise ValueError(f"confidence must be a number between 0 and 1, not {confidence!r}")
+        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
     return float(confidence)
 
 
@@ -413,13 +415,22 @@ def describe_test(test: SlopeTest, *, alpha: float = 0.05) -> str:
     """Plain-language reading of a slope test."""
     if not np.isfinite(test.p_value):
         return f"The {test.method.upper()} slope could not be tested against {test.exponent:g}."
+    b0 = f"{test.exponent:.4g}"
+    if test.hypothesis and test.hypothesis != f"{test.exponent:g}":
+        b0 = f"{b0} ({test.hypothesis})"
     if test.p_value < alpha:
         side = "above" if test.estimate > test.exponent else "below"
-        verdict = f"is {side} {test.exponent:g}"
+        verdict = f"is {side} {b0}"
     else:
-        verdict = f"does not differ detectably from {test.exponent:g}"
+        verdict = f"does not differ detectably from {b0}"
     return (f"The {test.method.upper()} exponent {test.estimate:.3g} {verdict} "
-            f"(t = {test.statistic:.2f}, df = {test.df:g}, p = {format_p(test.p_value)}).")
+            f"(t = {test.statistic:.2f}, df = {test.df:g}, {p_text(test.p_value)}).")
+
+
+def p_text(p: float) -> str:
+    """'p = 0.031' or 'p < 0.0001'."""
+    text = format_p(p)
+    return f"p {text}" if text.startswith("<") else f"p = {text}"
 
 
 def format_p(p: float) -> str:
@@ -487,7 +498,7 @@ class LineFit:
     def test_slope(self, exponent: float, *, hypothesis: str = "") -> SlopeTest:
         """Test slope = ``exponent`` (two-sided); see :func:`slope_test_statistic`."""
         if isinstance(exponent, bool) or not isinstance(exponent, (int, float, np.floating)):
-            raise ValueError(f"exponent must be a number, not {exponent!r}")
+            raise ConfigError(f"exponent must be a number, not {exponent!r}")
         if self.estimable:
             t, df, p = slope_test_statistic(self.moments, self.method, float(exponent))
             t, df, p = float(t), float(df), float(p)
@@ -531,6 +542,13 @@ class LineFit:
         if self.note:
             lines.append(f"  note: {self.note}")
         return "\n".join(lines)
+
+    def predict(self, x, *, correction="smearing", interval="prediction",
+                confidence=None, residuals=None):
+        """Predictions of y at ``x`` as a DataFrame; see :func:`scaling.predict.predict`."""
+        from .predict import predict
+        return predict(self, x, correction=correction, interval=interval,
+                       confidence=confidence, residuals=residuals).to_frame()
 
 
 def line_fit_from_moments(m: Moments, method: str, *, confidence: float = 0.95,

@@ -1,0 +1,201 @@
+"""The ``scaling`` command.  No statistics here: parse, call, print.
+
+Every :class:`~scaling.errors.ScalingError` becomes one line on stderr
+beginning ``error:`` and exit code 2; anything else is an internal error
+(exit 1; the traceback is shown with ``--debug`` or ``SCALING_DEBUG=1``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import traceback
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .errors import ScalingError
+
+__all__ = ["main", "entry_point"]
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # usage line, then one 'error:' line, exit 2
+        self.print_usage(sys.stderr)
+        self.exit(2, f"error: {message}\n")
+
+
+def _build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="scaling", description="Fit allometric power laws y = a·x^b "
+                "on log-log scales from a YAML config.")
+    p.add_argument("--version", action="version", version=f"scaling {__version__}")
+    p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    run = sub.add_parser("run", help="run a config and write the output folder")
+    run.add_argument("config", metavar="CONFIG.yaml")
+    run.add_argument("--out", metavar="DIR", help="output folder (relative to the current "
+                     "folder); default: output.dir of the config")
+    run.add_argument("--force", action="store_true",
+                     help="replace scaling's files in a non-empty output folder")
+    run.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    check = sub.add_parser("check", help="validate config and data; fit nothing")
+    check.add_argument("config", metavar="CONFIG.yaml")
+
+    init = sub.add_parser("init", help="write a commented starter config")
+    init.add_argument("path", metavar="PATH")
+    init.add_argument("--example", default="basic", metavar="NAME",
+                      help="starter to write: " + ", ".join(_examples()))
+    init.add_argument("--force", action="store_true", help="overwrite PATH if it exists")
+
+    pred = sub.add_parser("predict", help="predict from a saved results folder")
+    pred.add_argument("results", metavar="RESULTS_DIR")
+    src = pred.add_mutually_exclusive_group(required=True)
+    src.add_argument("--x", nargs="+", metavar="V", help="values in natural units "
+                     "(of x; of y with --inverse)")
+    src.add_argument("--from", dest="from_file", metavar="FILE.csv",
+                     help="a table with a column named as data.x (data.y with --inverse)")
+    pred.add_argument("--group", metavar="G", help="use the fit of this group")
+    pred.add_argument("--method", metavar="M", help="line method (default: first of the run)")
+    pred.add_argument("--inverse", action="store_true", help="predict x from y values")
+    pred.add_argument("--correction", metavar="C", help="smearing | parametric | ratio | none")
+    pred.add_argument("--interval", metavar="I", help="prediction | confidence")
+    pred.add_argument("--out", metavar="FILE.csv", help="where to write the table "
+                      "(default: RESULTS_DIR/predictions_cli.csv)")
+    pred.add_argument("--force", action="store_true", help="overwrite the output file")
+    return p
+
+
+def _examples() -> list[str]:
+    from .starter import EXAMPLES
+    return sorted(EXAMPLES)
+
+
+# --------------------------------------------------------------------------
+# commands
+
+
+def _fmt(v, digits=3) -> str:
+    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+        return ""
+    return f"{v:.{digits}f}"
+
+
+def _summary_table(result) -> str:
+    fits = result.fits
+    pct = f"{100 * result.config.model.confidence:g}% CI"
+    head = f"{'scope':<12} {'group':<14} {'method':<6} {'n':>5} {'slope':>7}  {pct:<17} {'r2':>6}"
+    lines = [head, "-" * len(head)]
+    for r in fits.itertuples(index=False):
+        ci = f"{_fmt(r.slope_low)} to {_fmt(r.slope_high)}" if np.isfinite(r.slope) else r.note
+        lines.append(f"{r.scope:<12} {str(r.group)[:14]:<14} {r.method:<6} {r.n:>5} "
+                     f"{_fmt(r.slope):>7}  {ci:<17} {_fmt(r.r2):>6}")
+    return "\n".join(lines)
+
+
+def _cmd_run(args) -> int:
+    from .pipeline import run_config
+    out = Path(args.out) if args.out else None
+    result = run_config(args.config, out=out, force=args.force)
+    if not args.quiet:
+        print(f"scaling {__version__}: {result.config.title}")
+        for line in result.messages:
+            print(line)
+        print()
+        print(_summary_table(result))
+        for w in result.warnings:
+            print(f"note: {w}")
+        print()
+        print(f"wrote {len(result.files)} files to {result.out_dir}")
+        for f in result.files:
+            if f.suffix in (".html",) or f.parent.name == "figures":
+                print(f"  {f}")
+    return 0
+
+
+def _cmd_check(args) -> int:
+    from .config import load_config
+    from .data import load_data
+    from .lines import MIN_N, parse_log_base
+    cfg = load_config(args.config)
+    data = load_data(cfg.data, log_base=parse_log_base(cfg.model.log_base))
+    pts = data.points
+    print(f"config OK: {args.config}")
+    print(f"data OK: {cfg.data.file}")
+    print(f"  {data.n_read} data rows read, {len(data.dropped)} dropped, {len(pts)} points to fit"
+          + (f" ({cfg.data.average_within} means)" if data.averaged_within else ""))
+    if len(data.dropped):
+        reasons = data.dropped["reason"].value_counts()
+        for reason, count in reasons.head(8).items():
+            print(f"    {count:>4} × {reason}")
+    if data.has_groups:
+        counts = pts["group"].value_counts().sort_index()
+        print(f"  {len(counts)} groups: " + ", ".join(f"{g} (n = {n})" for g, n in counts.items()))
+        small = [g for g, n in counts.items() if n < MIN_N]
+        if small:
+            print(f"  note: group fits will be skipped for n < {MIN_N}: {', '.join(small)}")
+    print(f"  x range {pts['x'].min():.4g} to {pts['x'].max():.4g}"
+          f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
+    print(f"  output folder: {cfg.output.dir}")
+    return 0
+
+
+def _cmd_init(args) -> int:
+    from .errors import ConfigError, OutputError
+    from .starter import EXAMPLES
+    if args.example not in EXAMPLES:
+        import difflib
+        close = difflib.get_close_matches(args.example, EXAMPLES, n=1)
+        hint = f"; did you mean '{close[0]}'?" if close else ""
+        raise ConfigError(f"--example: no starter named '{args.example}'{hint} "
+                          f"(choose from {', '.join(sorted(EXAMPLES))})")
+    path = Path(args.path)
+    if path.exists() and not args.force:
+        raise OutputError(f"{path}: already exists; use --force to overwrite it")
+    if path.parent and not path.parent.exists():
+        raise OutputError(f"{path.parent}: folder does not exist")
+    path.write_text(EXAMPLES[args.example], encoding="utf-8")
+    print(f"wrote {path}: edit data.file, data.x and data.y, then run 'scaling check {path}'")
+    return 0
+
+
+def _cmd_predict(args) -> int:
+    from .saved import predict_command
+    return predict_command(args)
+
+
+_COMMANDS = {"run": _cmd_run, "check": _cmd_check, "init": _cmd_init, "predict": _cmd_predict}
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; return the exit code (0, 1 or 2)."""
+    parser = _build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # --help, --version, or a syntax error (already printed)
+        return int(exc.code or 0)
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return 2
+    debug = args.debug or os.environ.get("SCALING_DEBUG") == "1"
+    try:
+        return _COMMANDS[args.command](args)
+    except ScalingError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("error: interrupted", file=sys.stderr)
+        return 2
+    except Exception as exc:  # a bug: say so plainly
+        if debug:
+            traceback.print_exc()
+        print(f"internal error: {type(exc).__name__}: {exc} (this is a bug in scaling; "
+              "rerun with --debug for the traceback)", file=sys.stderr)
+        return 1
+
+
+def entry_point() -> None:
+    sys.exit(main())

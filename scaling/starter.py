@@ -1,0 +1,103 @@
+"""Commented starter configs written by ``scaling init``."""
+
+from __future__ import annotations
+
+__all__ = ["EXAMPLES"]
+
+_BASIC = """\
+# scaling config: fit y = a * x^b on log-log scales.
+# Run:   scaling check THIS.yaml   (validate, fit nothing)
+#        scaling run THIS.yaml     (fit and write the output folder)
+title: My allometry                 # free text, shown in the report
+
+data:
+  file: measurements.csv            # csv, tsv, xlsx or parquet; relative to this file
+  x: body_mass                      # predictor column (natural units, > 0)
+  y: metabolic_rate                 # response column (natural units, > 0)
+  # group: clade                    # fit and compare groups
+  # average_within: species         # average log values within each species first
+  # exclude: {clade: [outgroup]}    # drop rows whose column has one of these values
+  units: {x: g, y: mW}              # labels for axes and tables
+  # skip_rows: 0                    # lines above the header line to skip
+  # units_row: false                # true: the line under the header holds units
+  # delimiter: auto                 # auto, or the character (e.g. ";")
+  # decimal: "."                    # "," for decimal commas
+
+model:
+  log_base: 10                      # 10, e or 2
+  methods: [ols, sma, ma]           # OLS predicts y from x; SMA/MA describe the line
+  confidence: 0.95
+
+exponents:                          # each fit is tested against each of these
+  three_quarters: 0.75
+  two_thirds: 2/3
+
+prediction:
+  x: [10, 100, 1000]                # natural units of x
+  correction: smearing              # smearing | parametric | ratio | none
+  interval: prediction              # prediction | confidence
+
+figures:
+  formats: [png, pdf]               # png, pdf, svg
+  size: single                      # single (85 mm) or double (180 mm) column
+
+output:
+  dir: results                      # relative to this file; --out overrides
+"""
+
+_GROUPS = """\
+# scaling config: species means compared across orders (a comparative design).
+title: Metabolic scaling across orders
+
+data:
+  file: measurements.csv
+  x: body_mass
+  y: metabolic_rate
+  group: order                      # compare these groups
+  average_within: species           # one point per species: mean of log values
+  units: {x: g, y: mW}
+
+model:
+  log_base: 10
+  methods: [sma, ols]
+  confidence: 0.95
+
+exponents:
+  three_quarters: 3/4
+  two_thirds: 2/3
+
+groups:
+  compare: true                     # common slope? shift in elevation? shift along the axis?
+  fit_group_means: true             # also fit one line through the order means
+
+output:
+  dir: results
+"""
+
+_LENGTH_WEIGHT = """\
+# scaling config: fish length-weight, isometry test per stock (b = 3).
+title: Length-weight by stock
+
+data:
+  file: catch.csv
+  x: total_length
+  y: weight
+  group: stock
+  units: {x: mm, y: g}
+
+model:
+  log_base: 10
+  methods: [ols, sma]
+
+exponents:
+  isometric: 3
+
+prediction:
+  x: [200, 300, 400]
+  correction: smearing
+
+output:
+  dir: results
+"""
+
+EXAMPLES = {"basic": _BASIC, "groups": _GROUPS, "length_weight": _LENGTH_WEIGHT}

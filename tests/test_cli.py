@@ -1,0 +1,215 @@
+"""The command line, end to end: files, columns, exit codes, clean errors."""
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from scaling import __version__
+from scaling.cli import main
+
+from conftest import DEMO_CONFIG, DEMO_DATA, ROOT
+
+FITS_COLUMNS = ["scope", "group", "method", "n", "slope", "slope_low", "slope_high",
+                "intercept", "intercept_low", "intercept_high", "r", "r2", "log_base",
+                "confidence", "note"]
+SLOPE_TEST_COLUMNS = ["scope", "group", "method", "hypothesis", "exponent", "statistic",
+                      "df", "p_value"]
+
+
+def _run(argv, capsys):
+    code = main([str(a) for a in argv])
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "out"
+    before = DEMO_DATA.read_bytes()
+    code = main(["run", str(DEMO_CONFIG), "--out", str(out), "--quiet"])
+    assert DEMO_DATA.read_bytes() == before   # input never modified
+    return code, out
+
+
+class TestRun:
+    def test_demo_exit_and_files(self, demo_run):
+        code, out = demo_run
+        assert code == 0
+        for name in ("fits.csv", "slope_tests.csv", "dropped_rows.csv", "results.json"):
+            assert (out / name).is_file(), name
+        assert (out / "figures" / "scaling.png").is_file()
+        assert (out / "figures" / "scaling.pdf").is_file()
+
+    def test_demo_columns(self, demo_run):
+        _, out = demo_run
+        fits = pd.read_csv(out / "fits.csv")
+        assert list(fits.columns[:len(FITS_COLUMNS)]) == FITS_COLUMNS
+        assert set(fits["scope"]) >= {"pooled", "group"}
+        tests = pd.read_csv(out / "slope_tests.csv")
+        assert set(SLOPE_TEST_COLUMNS) <= set(tests.columns)
+        dropped = pd.read_csv(out / "dropped_rows.csv")
+        assert list(dropped.columns) == ["row", "reason"]
+        # the demo plants 6 bad rows and 5 outgroup rows (demo_data/make_demo.py)
+        assert len(dropped) == 11
+
+    def test_manifest(self, demo_run):
+        import hashlib
+        _, out = demo_run
+        doc = json.loads((out / "results.json").read_text())
+        man = doc["manifest"]
+        # exact: the SHA-256 of the input file as hashlib computes it
+        assert man["input_sha256"] == hashlib.sha256(DEMO_DATA.read_bytes()).hexdigest()
+        assert man["versions"]["scaling"] == __version__
+        assert man["config"]["data"]["x"] == "body_mass"
+        assert "created_utc" in man
+
+    def test_refuses_non_empty_output(self, demo_run, capsys):
+        _, out = demo_run
+        before = sorted(p.name for p in out.iterdir())
+        code, _, err = _run(["run", DEMO_CONFIG, "--out", out], capsys)
+        assert code == 2
+        assert err.startswith("error: ") and "not empty" in err and "--force" in err
+        assert err.count("\n") == 1
+        assert sorted(p.name for p in out.iterdir()) == before
+
+    def test_force_keeps_other_files(self, tmp_path, capsys):
+        out = tmp_path / "out"
+        out.mkdir()
+        (out / "my_notes.txt").write_text("keep me")
+        code, stdout, _ = _run(["run", DEMO_CONFIG, "--out", out, "--force"], capsys)
+        assert code == 0
+        assert (out / "my_notes.txt").read_text() == "keep me"
+        assert "wrote" in stdout and "fits.csv" not in stdout.splitlines()[0]
+        assert not list(tmp_path.glob(".scaling-tmp-*"))
+
+    def test_failed_run_leaves_output_alone(self, tmp_path, write_config, capsys):
+        out = tmp_path / "out"
+        out.mkdir()
+        (out / "fits.csv").write_text("old")
+        cfg = write_config("data: {file: missing.csv, x: a, y: b}\n")
+        code, _, err = _run(["run", cfg, "--out", out, "--force"], capsys)
+        assert code == 2 and "data file not found" in err
+        assert (out / "fits.csv").read_text() == "old"
+
+    def test_summary_printed(self, tmp_path, capsys):
+        code, stdout, _ = _run(["run", DEMO_CONFIG, "--out", tmp_path / "o"], capsys)
+        assert code == 0
+        assert "Pooled SMA exponent" in stdout
+        assert "scaling.png" in stdout
+
+    def test_small_group_skipped_not_error(self, tmp_path, write_config, capsys):
+        (tmp_path / "d.csv").write_text("g,m,r\n" + "".join(
+            f"a,{m},{2 * m ** 0.75:.4f}\n" for m in (1, 2, 4, 8, 16)) + "b,3,5\nb,6,9\n")
+        cfg = write_config("data: {file: d.csv, x: m, y: r, group: g}\n")
+        code, stdout, _ = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 0
+        fits = pd.read_csv(tmp_path / "o" / "fits.csv")
+        row = fits[(fits["group"] == "b") & (fits["method"] == "sma")].iloc[0]
+        assert "n = 2 < 3" in row["note"] and pd.isna(row["slope"])
+        assert "skipped" in stdout
+
+
+class TestErrors:
+    @pytest.mark.parametrize("text, pattern", [
+        ("data: {file: d.csv, x: m, y: r\n", r"YAML syntax error at line"),
+        ("data: {file: d.csv, x: m, y: r}\nmodel: {methds: [ols]}\n",
+         r"model.methds: unknown key; did you mean 'methods'\?"),
+        ("data: {file: d.csv, x: m, y: r}\nmodel: {confidence: [1]}\n",
+         r"model.confidence: expected a number"),
+        ("data: {file: d.csv, x: mass, y: r}\n", r"column 'mass' \(data.x\) not found"),
+        ("data: {file: nothere.csv, x: m, y: r}\n", r"nothere.csv: data file not found"),
+        ("data: {file: zeros.csv, x: m, y: r}\n", r"no usable rows"),
+    ])
+    def test_bad_input_exit_2(self, tmp_path, write_config, capsys, text, pattern):
+        (tmp_path / "d.csv").write_text("m,r\n1,2\n2,3\n3,5\n")
+        (tmp_path / "zeros.csv").write_text("m,r\n0,2\n0,3\n")
+        cfg = write_config(text)
+        code, _, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 2
+        assert err.startswith("error: ")
+        assert len(err.strip().splitlines()) == 1
+        import re
+        assert re.search(pattern, err), err
+        assert not (tmp_path / "o").exists()
+
+    def test_missing_config(self, tmp_path, capsys):
+        code, _, err = _run(["run", tmp_path / "none.yaml"], capsys)
+        assert code == 2 and "config file not found" in err
+
+    def test_usage_error(self, capsys):
+        code, _, err = _run(["run"], capsys)
+        assert code == 2 and "error:" in err
+
+    def test_no_command(self, capsys):
+        code, _, _ = _run([], capsys)
+        assert code == 2
+
+
+class TestCheck:
+    def test_check_demo(self, capsys):
+        code, out, _ = _run(["check", DEMO_CONFIG], capsys)
+        assert code == 0
+        assert "298 data rows read, 11 dropped, 40 points" in out
+        assert "5 groups" in out
+
+    def test_check_bad(self, write_config, capsys):
+        code, _, err = _run(["check", write_config("data: {x: m, y: r}\n")], capsys)
+        assert code == 2 and "data.file: is required" in err
+
+
+class TestInit:
+    @pytest.mark.parametrize("example", ["basic", "groups", "length_weight"])
+    def test_init_writes_valid_config(self, tmp_path, capsys, example):
+        from scaling.config import load_config
+        path = tmp_path / f"{example}.yaml"
+        code, out, _ = _run(["init", "--example", example, path], capsys)
+        assert code == 0 and path.exists()
+        load_config(path)  # the starter itself validates
+
+    def test_init_refuses_existing(self, tmp_path, capsys):
+        path = tmp_path / "c.yaml"
+        path.write_text("mine")
+        code, _, err = _run(["init", path], capsys)
+        assert code == 2 and "already exists" in err
+        assert path.read_text() == "mine"
+
+    def test_init_unknown_example(self, tmp_path, capsys):
+        code, _, err = _run(["init", "--example", "grups", tmp_path / "c.yaml"], capsys)
+        assert code == 2 and "did you mean 'groups'" in err
+
+
+class TestInstalledCommand:
+    def test_version(self):
+        exe = shutil.which("scaling", path=str(Path(sys.executable).parent))
+        if exe is None:
+            pytest.skip("the scaling console script is not installed beside this Python")
+        proc = subprocess.run([exe, "--version"], capture_output=True, text=True)
+        assert proc.returncode == 0 and proc.stdout.strip() == f"scaling {__version__}"
+
+    def test_error_through_real_command(self, tmp_path):
+        exe = shutil.which("scaling", path=str(Path(sys.executable).parent))
+        if exe is None:
+            pytest.skip("the scaling console script is not installed beside this Python")
+        proc = subprocess.run([exe, "check", str(tmp_path / "x.yaml")],
+                              capture_output=True, text=True)
+        assert proc.returncode == 2
+        assert proc.stderr.startswith("error: ") and "Traceback" not in proc.stderr
+
+
+class TestReadme:
+    def test_quick_start_has_two_commands_and_ci_runs_the_second(self):
+        import re
+        text = (ROOT / "README.md").read_text()
+        section = text.split("## Quick start", 1)[1].split("\n## ", 1)[0]
+        blocks = re.findall(r"```(?:bash|sh|console)?\n(.*?)```", section, re.S)
+        assert len(blocks) == 2
+        assert "scaling run configs/demo.yaml" in blocks[0]
+        assert "pytest" in blocks[1]
+        ci = (ROOT / ".ci" / "run").read_text()
+        assert "blocks[1]" in ci  # .ci/run executes the README's second block verbatim

@@ -1,0 +1,128 @@
+"""Config validation: defaults, key paths in messages, suggestions, paths."""
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import pytest
+
+from scaling.config import METHOD_NAMES, config_from_dict, load_config
+from scaling.errors import ConfigError
+from scaling.lines import METHODS
+
+MINIMAL = "data: {file: d.csv, x: mass, y: rate}\n"
+
+
+class TestLoadConfig:
+    def test_defaults(self, write_config):
+        cfg = load_config(write_config(MINIMAL))
+        assert cfg.model.methods == ("ols", "sma", "ma")
+        assert cfg.model.confidence == 0.95
+        assert cfg.model.log_base == "10"
+        assert cfg.prediction.correction == "smearing"
+        assert cfg.exponents == {}
+        assert cfg.data.group is None
+
+    def test_paths_are_relative_to_config(self, write_config, tmp_path):
+        cfg = load_config(write_config(MINIMAL + "output: {dir: out/here}\n"))
+        assert cfg.data.file == (tmp_path / "d.csv").resolve()
+        assert cfg.output.dir == (tmp_path / "out" / "here").resolve()
+
+    def test_fraction_exponents(self, write_config):
+        cfg = load_config(write_config(MINIMAL + "exponents: {a: 3/4, b: 2/3, c: 1}\n"))
+        assert cfg.exponents["a"] == 0.75
+        assert math.isclose(cfg.exponents["b"], 2 / 3)  # exact law: 2/3
+
+    def test_log_base_forms(self, write_config):
+        for text, label in (("10", "10"), ("e", "e"), ("2", "2"), ('"10"', "10")):
+            cfg = load_config(write_config(MINIMAL + f"model: {{log_base: {text}}}\n"))
+            assert cfg.model.log_base == label
+
+    def test_method_names_agree_with_registry(self):
+        assert set(METHOD_NAMES) <= set(METHODS)
+
+    def test_missing_file(self, tmp_path):
+        with pytest.raises(ConfigError, match="config file not found"):
+            load_config(tmp_path / "nope.yaml")
+
+    def test_yaml_syntax_error_names_line(self, write_config):
+        with pytest.raises(ConfigError, match=r"YAML syntax error at line 2, column 6: mapping values"):
+            load_config(write_config("data:\n  x: : bad\n"))
+
+    def test_empty_file(self, write_config):
+        with pytest.raises(ConfigError, match="config file is empty"):
+            load_config(write_config(""))
+
+    def test_unknown_top_key_suggests(self, write_config):
+        with pytest.raises(ConfigError, match=r"run.yaml: modle: unknown key; did you mean 'model'\?"):
+            load_config(write_config(MINIMAL + "modle: {}\n"))
+
+    def test_unknown_nested_key_suggests(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.methds: unknown key; did you mean 'methods'\?"):
+            load_config(write_config(MINIMAL + "model: {methds: [ols]}\n"))
+
+    def test_bad_method_names_index(self, write_config):
+        with pytest.raises(ConfigError,
+                           match=r"model.methods\[1\]: 'smaa' is not a method; did you mean 'sma'\?"):
+            load_config(write_config(MINIMAL + "model: {methods: [ols, smaa]}\n"))
+
+    def test_wrong_type(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.confidence: expected a number, got 'high'"):
+            load_config(write_config(MINIMAL + "model: {confidence: high}\n"))
+
+    def test_confidence_range(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.confidence: must lie between 0 and 1"):
+            load_config(write_config(MINIMAL + "model: {confidence: 95}\n"))
+
+    def test_required_key(self, write_config):
+        with pytest.raises(ConfigError, match=r"data.y: is required"):
+            load_config(write_config("data: {file: d.csv, x: mass}\n"))
+
+    def test_data_section_required(self, write_config):
+        with pytest.raises(ConfigError, match=r"data: is required"):
+            load_config(write_config("title: nothing\n"))
+
+    def test_same_x_and_y(self, write_config):
+        with pytest.raises(ConfigError, match=r"data.y: is the same column as data.x"):
+            load_config(write_config("data: {file: d.csv, x: m, y: m}\n"))
+
+    def test_boolean_type(self, write_config):
+        with pytest.raises(ConfigError, match=r"groups.compare: expected true or false"):
+            load_config(write_config(MINIMAL + "groups: {compare: maybe}\n"))
+
+    def test_prediction_must_be_positive(self, write_config):
+        with pytest.raises(ConfigError, match=r"prediction.x\[1\]: must be positive"):
+            load_config(write_config(MINIMAL + "prediction: {x: [1, -2]}\n"))
+
+    def test_bad_choice(self, write_config):
+        with pytest.raises(ConfigError, match=r"prediction.correction: 'smear' is not one of .*did you mean 'smearing'"):
+            load_config(write_config(MINIMAL + "prediction: {correction: smear}\n"))
+
+    def test_bad_log_base(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.log_base: expected 10, e or 2, got 3"):
+            load_config(write_config(MINIMAL + "model: {log_base: 3}\n"))
+
+    def test_duplicate_method(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.methods\[1\]: 'ols' is listed twice"):
+            load_config(write_config(MINIMAL + "model: {methods: [ols, ols]}\n"))
+
+    def test_section_not_mapping(self, write_config):
+        with pytest.raises(ConfigError, match=r"model: expected a mapping of keys"):
+            load_config(write_config(MINIMAL + "model: [ols]\n"))
+
+    def test_bad_exponent(self, write_config):
+        with pytest.raises(ConfigError, match=r"exponents.k: cannot read '3/x' as a fraction"):
+            load_config(write_config(MINIMAL + "exponents: {k: 3/x}\n"))
+
+    def test_exclude_shape(self, write_config):
+        with pytest.raises(ConfigError, match=r"data.exclude: expected a mapping"):
+            load_config(write_config("data: {file: d.csv, x: m, y: r, exclude: [a]}\n"))
+
+    def test_from_dict_label(self):
+        with pytest.raises(ConfigError, match=r"^config: data: is required"):
+            config_from_dict({}, base_dir=Path("."))
+
+    def test_config_is_frozen(self, write_config):
+        cfg = load_config(write_config(MINIMAL))
+        with pytest.raises(AttributeError):
+            cfg.title = "x"

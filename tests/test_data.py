@@ -1,0 +1,138 @@
+"""Reading and cleaning tables: row numbers, reasons, formats, averaging."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from scaling.config import config_from_dict
+from scaling.data import load_data
+from scaling.errors import DataError
+
+
+def _cfg(tmp_path, **data):
+    base = {"file": "t.csv", "x": "mass", "y": "rate"}
+    base.update(data)
+    return config_from_dict({"data": base}, base_dir=tmp_path).data
+
+
+def _write(tmp_path, text, name="t.csv", encoding="utf-8"):
+    (tmp_path / name).write_text(text, encoding=encoding)
+
+
+class TestLoadData:
+    def test_reasons_and_row_numbers(self, tmp_path):
+        # Each bad row and its expected reason; row = file line - header line.
+        _write(tmp_path, "mass,rate,clade\n"
+               "1,2,a\n"          # row 1 ok
+               "0,2,a\n"          # row 2 zero
+               "\n"               # row 3 blank line
+               "abc,2,a\n"        # row 4 non-numeric
+               "2,,a\n"           # row 5 missing
+               "3,<0.1,a\n"       # row 6 censored
+               "-4,2,a\n"         # row 7 negative
+               "inf,2,a\n"        # row 8 infinite
+               "5,6,\n"           # row 9 missing group
+               "7,8,out\n"        # row 10 excluded
+               "9,10,b\n")        # row 11 ok
+        data = load_data(_cfg(tmp_path, group="clade", exclude={"clade": ["out"]}))
+        d = dict(zip(data.dropped["row"], data.dropped["reason"]))
+        assert sorted(d) == [2, 3, 4, 5, 6, 7, 8, 9, 10]
+        assert d[2] == "x (mass) is zero: no logarithm"
+        assert d[3] == "blank line"
+        assert d[4] == "x (mass) is not a number: 'abc'"
+        assert d[5] == "y (rate) is missing"
+        assert d[6] == "y (rate) is censored: '<0.1'"
+        assert d[7] == "x (mass) is negative: no logarithm"
+        assert d[8] == "x (mass) is infinite"
+        assert d[9] == "group (clade) is missing"
+        assert d[10] == "excluded: clade is 'out'"
+        assert list(data.points["row"]) == [1, 11]
+        assert data.n_read == 11
+
+    def test_logs(self, tmp_path):
+        _write(tmp_path, "mass,rate\n10,100\n1000,10\n")
+        data = load_data(_cfg(tmp_path))
+        # exact law: log10(10) = 1, log10(100) = 2
+        np.testing.assert_allclose(data.points["log_x"], [1, 3], rtol=1e-12)
+        np.testing.assert_allclose(data.points["log_y"], [2, 1], rtol=1e-12)
+
+    def test_skip_rows_units_row_semicolon_decimal_comma(self, tmp_path):
+        _write(tmp_path, "# exported from the lab sheet\n"
+               "mass;rate\n"
+               "g;mW\n"
+               "1,5;2,5\n"
+               "10;20\n")
+        cfg = _cfg(tmp_path, skip_rows=1, units_row=True, decimal=",")
+        data = load_data(cfg)
+        assert data.units == {"x": "g", "y": "mW"}
+        np.testing.assert_allclose(data.points["x"], [1.5, 10.0], rtol=0)
+        assert list(data.points["row"]) == [2, 3]   # the units row is row 1
+
+    def test_bom_and_tab(self, tmp_path):
+        _write(tmp_path, "\ufeffmass\trate\n1\t2\n3\t4\n", encoding="utf-8")
+        data = load_data(_cfg(tmp_path))
+        assert len(data.points) == 2
+
+    def test_latin1_needs_encoding(self, tmp_path):
+        (tmp_path / "t.csv").write_bytes("mass,rate,note\n1,2,caf\xe9\n".encode("latin-1"))
+        with pytest.raises(DataError, match=r"cannot decode as utf-8.*data.encoding"):
+            load_data(_cfg(tmp_path))
+        assert len(load_data(_cfg(tmp_path, encoding="latin-1")).points) == 1
+
+    def test_excel_and_parquet(self, tmp_path):
+        table = pd.DataFrame({"mass": [1.0, 2.0, 0.0], "rate": [2.0, 3.0, 4.0]})
+        table.to_excel(tmp_path / "t.xlsx", index=False)
+        table.to_parquet(tmp_path / "t.parquet")
+        for name in ("t.xlsx", "t.parquet"):
+            data = load_data(_cfg(tmp_path, file=name))
+            assert list(data.points["row"]) == [1, 2]
+            assert list(data.dropped["row"]) == [3]
+
+    def test_average_within(self, tmp_path):
+        _write(tmp_path, "sp,clade,mass,rate\n"
+               "a,X,10,100\n" "a,X,1000,1\n" "b,X,5,5\n" "c,Y,2,4\n")
+        data = load_data(_cfg(tmp_path, average_within="sp", group="clade"))
+        pts = data.points.set_index("unit")
+        # exact law: geometric mean of 10 and 1000 is 100; of 100 and 1 is 10
+        assert math.isclose(pts.loc["a", "x"], 100.0, rel_tol=1e-12)
+        assert math.isclose(pts.loc["a", "y"], 10.0, rel_tol=1e-12)
+        assert pts.loc["a", "n_rows"] == 2 and pts.loc["a", "group"] == "X"
+        assert data.n_rows_used == 4
+
+    def test_unit_in_two_groups(self, tmp_path):
+        _write(tmp_path, "sp,clade,mass,rate\na,X,1,2\na,Y,3,4\nb,Y,5,6\n")
+        with pytest.raises(DataError, match=r"sp 'a' appears in more than one group \(clade: X, Y\)"):
+            load_data(_cfg(tmp_path, average_within="sp", group="clade"))
+
+    def test_missing_column_suggests(self, tmp_path):
+        _write(tmp_path, "body_mass,rate\n1,2\n")
+        with pytest.raises(DataError, match=r"column 'mass' \(data.x\) not found; did you mean 'body_mass'\?"):
+            load_data(_cfg(tmp_path))
+
+    def test_missing_exclude_column(self, tmp_path):
+        _write(tmp_path, "mass,rate\n1,2\n")
+        with pytest.raises(DataError, match=r"column 'site' \(data.exclude.site\) not found"):
+            load_data(_cfg(tmp_path, exclude={"site": ["a"]}))
+
+    def test_file_not_found(self, tmp_path):
+        with pytest.raises(DataError, match=r"t.csv: data file not found \(data.file\)"):
+            load_data(_cfg(tmp_path))
+
+    def test_all_rows_dropped(self, tmp_path):
+        _write(tmp_path, "mass,rate\n0,1\n-1,2\n")
+        with pytest.raises(DataError, match=r"no usable rows: all 2 data rows were dropped"):
+            load_data(_cfg(tmp_path))
+
+    def test_delimiter_equals_decimal(self, tmp_path):
+        _write(tmp_path, "mass,rate\n1,2\n")
+        with pytest.raises(DataError, match=r"data.delimiter and data.decimal are both ','"):
+            load_data(_cfg(tmp_path, delimiter=",", decimal=","))
+
+    def test_input_not_modified(self, tmp_path):
+        text = "mass,rate\n1,2\n0,3\n4,5\n"
+        _write(tmp_path, text)
+        load_data(_cfg(tmp_path))
+        assert (tmp_path / "t.csv").read_text() == text
