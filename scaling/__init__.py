@@ -4,12 +4,16 @@ from .errors import (ConfigError, DataError, DegenerateDataWarning,
                      ScalingWarning)
 from .lines import ConfidenceInterval, LineFit, SlopeTest, fit_line
 from .moments import Moments
+from .pipeline import RunResult, run_config
+from .predict import accuracy, inverse_predict, predict
+from .saved import load_results
 
-__version__ = "0.1.0"
+from ._version import __version__  # noqa: E402
 
 __all__ = [
     "__version__",
-    "fit_line", "LineFit", "SlopeTest", "ConfidenceInterval", "Moments",
+    "fit_line", "run_config", "RunResult", "load_results", "predict",
+    "inverse_predict", "accuracy", "LineFit", "SlopeTest", "ConfidenceInterval", "Moments",
     "ScalingError", "ConfigError", "DataError", "OutputError",
     "ScalingWarning", "DegenerateDataWarning", "ExtrapolationWarning",
 ]

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
+from ._version import __version__
 from .errors import ScalingError
 
 __all__ = ["main", "entry_point"]
@@ -33,8 +33,12 @@ def _build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"scaling {__version__}")
     p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    # --debug is accepted after the command too (scaling run X.yaml --debug).
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                        help=argparse.SUPPRESS)
 
-    run = sub.add_parser("run", help="run a config and write the output folder")
+    run = sub.add_parser("run", parents=[common], help="run a config and write the output folder")
     run.add_argument("config", metavar="CONFIG.yaml")
     run.add_argument("--out", metavar="DIR", help="output folder (relative to the current "
                      "folder); default: output.dir of the config")
@@ -42,16 +46,16 @@ def _build_parser() -> argparse.ArgumentParser:
                      help="replace scaling's files in a non-empty output folder")
     run.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
-    check = sub.add_parser("check", help="validate config and data; fit nothing")
+    check = sub.add_parser("check", parents=[common], help="validate config and data; fit nothing")
     check.add_argument("config", metavar="CONFIG.yaml")
 
-    init = sub.add_parser("init", help="write a commented starter config")
+    init = sub.add_parser("init", parents=[common], help="write a commented starter config")
     init.add_argument("path", metavar="PATH")
     init.add_argument("--example", default="basic", metavar="NAME",
                       help="starter to write: " + ", ".join(_examples()))
     init.add_argument("--force", action="store_true", help="overwrite PATH if it exists")
 
-    pred = sub.add_parser("predict", help="predict from a saved results folder")
+    pred = sub.add_parser("predict", parents=[common], help="predict from a saved results folder")
     pred.add_argument("results", metavar="RESULTS_DIR")
     src = pred.add_mutually_exclusive_group(required=True)
     src.add_argument("--x", nargs="+", metavar="V", help="values in natural units "

@@ -46,9 +46,13 @@ class Moments:
 
     @property
     def r(self) -> np.ndarray:
-        """Pearson correlation; NaN where either variance is zero."""
+        """Pearson correlation; NaN where either variance is zero.
+
+        Clipped to [-1, 1]: for collinear data rounding can give
+        |Sxy| / sqrt(Sxx Syy) = 1 + 2e-16, which would make 1 - r^2 < 0.
+        """
         with np.errstate(divide="ignore", invalid="ignore"):
-            return self.sxy / np.sqrt(self.sxx * self.syy)
+            return np.clip(self.sxy / np.sqrt(self.sxx * self.syy), -1.0, 1.0)
 
     def __getitem__(self, index) -> "Moments":
         return Moments(

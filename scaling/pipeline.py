@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import __version__
+from ._version import __version__
 from .config import Config, config_from_dict, load_config
 from .data import CleanData, load_data
 from .errors import DataError, OutputError, ScalingError
@@ -222,6 +222,19 @@ def analyse(config: Config) -> RunResult:
             x_range=(r.x_min, r.x_max), y_range=(r.y_min, r.y_max))
 
     slope_tests = _slope_tests(line_fits, cfg)
+    tables: dict = {}
+    point_sets = {("pooled", ""): pts}
+    for g in group_names:
+        point_sets[("group", g)] = pts[pts["group"] == g]
+
+    # Prediction stage: accuracy and correction factors per fit, then predictions.
+    saved, extra_cols = _accuracy_and_factors(line_fits, point_sets)
+    fits = _add_columns(fits, extra_cols)
+    pred_tables, pred_notes = _predictions(line_fits, saved, cfg)
+    tables.update(pred_tables)
+    notes += pred_notes
+    tables["_saved_fits"] = saved
+
     for (scope, group, method), fit in line_fits.items():
         if scope == "pooled":
             pct = f"{100 * cfg.model.confidence:g}%"
@@ -243,8 +256,99 @@ def analyse(config: Config) -> RunResult:
     }
     return RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                      dropped=data.dropped[DROPPED_COLUMNS], line_fits=line_fits,
-                     tables={}, messages=tuple(messages), warnings=tuple(notes),
+                     tables=tables, messages=tuple(messages), warnings=tuple(notes),
                      manifest=manifest)
+
+
+def _accuracy_and_factors(line_fits: dict, point_sets: dict):
+    """Saved-fit dicts (with smearing and ratio factors) and accuracy columns per fit."""
+    from .predict import accuracy, data_factors, fit_to_dict
+    saved, extra = {}, {}
+    for key, fit in line_fits.items():
+        scope, group, _ = key
+        sel = point_sets.get((scope, group))
+        if sel is None or len(sel) < 3:
+            continue
+        x, y = sel["x"].to_numpy(), sel["y"].to_numpy()
+        factors = data_factors(fit, x, y)
+        acc = accuracy(fit, x, y)
+        d = fit_to_dict(fit, smearing_factor=float(factors["smearing"]),
+                        ratio_factor=float(factors["ratio"]))
+        d.update({"scope": scope, "group": group})
+        saved[key] = d
+        extra[key] = {"see": acc.see, "percent_see": acc.percent_see,
+                      "percent_pe": acc.percent_pe,
+                      "smearing_factor": float(factors["smearing"]),
+                      "parametric_factor": float(factors["parametric"]),
+                      "ratio_factor": float(factors["ratio"])}
+    return saved, extra
+
+
+def _add_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:
+    cols = ["see", "percent_see", "percent_pe", "smearing_factor", "parametric_factor",
+            "ratio_factor"]
+    values = {c: [] for c in cols}
+    for r in fits.itertuples(index=False):
+        row = extra.get((r.scope, r.group, r.method), {})
+        for c in cols:
+            values[c].append(row.get(c, np.nan))
+    out = fits.copy()
+    for c in cols:
+        out[c] = values[c]
+    return out
+
+
+PREDICTION_COLUMNS = ["scope", "group", "method", "x", "y", "y_low", "y_high", "interval",
+                      "correction", "extrapolated", "confidence"]
+INVERSE_COLUMNS = ["scope", "group", "method", "y", "x", "x_low", "x_high", "interval",
+                   "extrapolated", "confidence"]
+
+
+def _predictions(line_fits: dict, saved: dict, cfg: Config):
+    """predictions.csv (and inverse_predictions.csv) for the config's values."""
+    from .predict import fit_from_dict, inverse_predict, predict_from_dict
+    pc = cfg.prediction
+    rows, inv_rows, notes = [], [], []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for key, d in saved.items():
+            scope, group, method = key
+            if pc.x:
+                p = predict_from_dict(d, list(pc.x), correction=pc.correction,
+                                      interval=pc.interval)
+                f = p.to_frame()
+                f.insert(0, "scope", scope)
+                f.insert(1, "group", group)
+                f["method"] = method
+                f["confidence"] = p.confidence
+                rows.append(f)
+            if pc.y:
+                q = inverse_predict(fit_from_dict(d), list(pc.y), interval=pc.interval)
+                f = q.to_frame()
+                f.insert(0, "scope", scope)
+                f.insert(1, "group", group)
+                f["method"] = method
+                f["confidence"] = q.confidence
+                inv_rows.append(f)
+    tables = {}
+    if pc.x:
+        table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS] if rows else \
+            pd.DataFrame(columns=PREDICTION_COLUMNS)
+        tables["predictions"] = table
+        n_ext = int(table["extrapolated"].sum()) if len(table) else 0
+        if n_ext:
+            xs = sorted(set(table.loc[table["extrapolated"], "x"]))
+            notes.append(f"{n_ext} predictions are extrapolations outside the fitted x range "
+                         f"(x = {', '.join(f'{v:g}' for v in xs)}); treat them with caution.")
+    if pc.y:
+        table = pd.concat(inv_rows, ignore_index=True)[INVERSE_COLUMNS] if inv_rows else \
+            pd.DataFrame(columns=INVERSE_COLUMNS)
+        tables["inverse_predictions"] = table
+        n_ext = int(table["extrapolated"].sum()) if len(table) else 0
+        if n_ext:
+            notes.append(f"{n_ext} inverse predictions use y outside the fitted y range "
+                         "(extrapolations).")
+    return tables, notes
 
 
 def _slope_tests(line_fits: dict, cfg: Config) -> pd.DataFrame:
@@ -298,7 +402,7 @@ def results_document(result: RunResult) -> dict:
         "messages": list(result.messages),
         "warnings": list(result.warnings),
         "caution": CAUTION,
-        "saved_fits": [_saved_fit(key, fit, result) for key, fit in result.line_fits.items()],
+        "saved_fits": list(result.tables.get("_saved_fits", {}).values()),
         "data_summary": {
             "rows_read": result.data.n_read, "rows_dropped": len(result.dropped),
             "points_fitted": len(result.data.points),
@@ -309,22 +413,9 @@ def results_document(result: RunResult) -> dict:
         "manifest": result.manifest,
     }
     for name, table in result.tables.items():
-        if isinstance(table, pd.DataFrame):
+        if isinstance(table, pd.DataFrame) and not name.startswith("_"):
             doc[name] = _records(table)
     return _json_safe(doc)
-
-
-def _saved_fit(key, fit, result: RunResult) -> dict:
-    scope, group, method = key
-    extra = result.tables.get("_saved_fit_extras", {}).get(key, {}) \
-        if isinstance(result.tables.get("_saved_fit_extras"), dict) else {}
-    return {"scope": scope, "group": group, "method": method, "n": fit.n,
-            "slope": fit.slope, "intercept": fit.intercept, "slope_se": fit.slope_se,
-            "intercept_se": fit.intercept_se, "resid_sd": fit.resid_sd, "df": fit.df,
-            "r": fit.r, "log_base": base_label(fit.log_base), "confidence": fit.confidence,
-            "x_range": list(fit.x_range) if fit.x_range else None,
-            "y_range": list(fit.y_range) if fit.y_range else None,
-            "moments": fit.moments.to_dict(), **extra}
 
 
 def _check_out_dir(out_dir: Path, force: bool) -> None:

@@ -1,0 +1,208 @@
+"""Saved fits: read a results folder back and predict without the data.
+
+``results.json`` holds, for every estimable fit, the coefficients, moments,
+residual SD, correction factors and fitted ranges (see
+:func:`scaling.predict.fit_to_dict`).  :func:`load_results` turns a results
+folder into a :class:`SavedResults`; ``scaling predict`` is
+:func:`predict_command`.
+"""
+
+from __future__ import annotations
+
+import difflib
+import json
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .errors import ConfigError, DataError, ExtrapolationWarning, OutputError
+from .lines import LineFit
+
+__all__ = ["SavedResults", "load_results", "predict_command"]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SavedResults:
+    """The fits of a finished run, usable for prediction.
+
+    Attributes
+    ----------
+    folder : Path
+    fits : tuple of dict
+        Saved fit dictionaries (with ``scope``, ``group`` and ``method``).
+    methods : tuple of str
+        Methods of the run, in the config's order.
+    groups : tuple of str
+        Group names ("" only when the run had no groups).
+    x_name, y_name : str
+        Column names of x and y in the original data.
+    correction, interval : str
+        The run's prediction settings (defaults for new predictions).
+    """
+
+    folder: Path
+    fits: tuple
+    methods: tuple
+    groups: tuple
+    x_name: str
+    y_name: str
+    correction: str = "smearing"
+    interval: str = "prediction"
+    document: dict = field(default_factory=dict, repr=False)
+
+    def saved_fit(self, *, method: str | None = None, group: str | None = None) -> dict:
+        """The saved dict of one fit (pooled unless ``group`` is given)."""
+        method = method or self.methods[0]
+        if method not in self.methods:
+            raise ConfigError(f"--method: '{method}' was not fitted in {self.folder}"
+                              f"{_hint(method, self.methods)}")
+        if group is not None:
+            if not self.groups:
+                raise ConfigError(f"--group: the run in {self.folder} was fitted without "
+                                  "groups (no data.group); leave --group out")
+            if group not in self.groups:
+                raise ConfigError(f"--group: no group '{group}' in {self.folder}"
+                                  f"{_hint(group, self.groups)}")
+        scope, name = ("pooled", "") if group is None else ("group", group)
+        for d in self.fits:
+            if d.get("scope") == scope and d.get("group", "") == name and d["method"] == method:
+                return d
+        where = "the pooled data" if group is None else f"group '{group}'"
+        raise DataError(f"{self.folder}: no estimable {method.upper()} fit for {where} "
+                        "(see the note in fits.csv)")
+
+    def fit(self, *, method: str | None = None, group: str | None = None) -> LineFit:
+        """The :class:`LineFit` of one saved fit."""
+        from .predict import fit_from_dict
+        return fit_from_dict(self.saved_fit(method=method, group=group))
+
+    def predict(self, x, *, method=None, group=None, correction=None, interval=None,
+                inverse: bool = False) -> pd.DataFrame:
+        """Predict y at ``x`` (or x at ``y`` with ``inverse``) in natural units."""
+        from .predict import fit_from_dict, inverse_predict, predict_from_dict
+        d = self.saved_fit(method=method, group=group)
+        interval = interval or self.interval
+        if inverse:
+            frame = inverse_predict(fit_from_dict(d), x, interval=interval).to_frame()
+        else:
+            frame = predict_from_dict(d, x, correction=correction or self.correction,
+                                      interval=interval).to_frame()
+        frame.insert(0, "group", "" if group is None else group)
+        return frame
+
+
+def _hint(word, options) -> str:
+    close = difflib.get_close_matches(str(word), [str(o) for o in options], n=1)
+    if close:
+        return f"; did you mean '{close[0]}'?"
+    return f"; available: {', '.join(map(str, options))}"
+
+
+def load_results(folder) -> SavedResults:
+    """Read a results folder written by ``scaling run``.
+
+    Raises
+    ------
+    DataError
+        If the folder or its ``results.json`` is missing or unreadable.
+    """
+    folder = Path(folder)
+    path = folder / "results.json"
+    if not folder.is_dir():
+        raise DataError(f"{folder}: results folder not found")
+    if not path.is_file():
+        raise DataError(f"{folder}: no results.json here; is this a folder written by "
+                        "'scaling run'?")
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise DataError(f"{path}: not valid JSON ({exc})") from None
+    if not isinstance(doc, dict) or "saved_fits" not in doc:
+        raise DataError(f"{path}: has no saved fits (written by another tool or version?)")
+    config = (doc.get("manifest") or {}).get("config") or {}
+    model = config.get("model") or {}
+    methods = model.get("methods") or sorted({d["method"] for d in doc["saved_fits"]})
+    if isinstance(methods, str):
+        methods = [methods]
+    summary = doc.get("data_summary") or {}
+    groups = sorted({d.get("group", "") for d in doc["saved_fits"] if d.get("scope") == "group"})
+    pred = config.get("prediction") or {}
+    return SavedResults(folder=folder, fits=tuple(doc["saved_fits"]),
+                        methods=tuple(str(m).lower() for m in methods),
+                        groups=tuple(groups),
+                        x_name=summary.get("x") or "x", y_name=summary.get("y") or "y",
+                        correction=str(pred.get("correction", "smearing")).lower(),
+                        interval=str(pred.get("interval", "prediction")).lower(),
+                        document=doc)
+
+
+def _numbers(values, label: str) -> np.ndarray:
+    out = []
+    for i, v in enumerate(values):
+        try:
+            number = float(str(v).replace(",", "")) if isinstance(v, str) else float(v)
+        except ValueError:
+            raise DataError(f"{label}: '{v}' is not a number") from None
+        if not np.isfinite(number) or number <= 0:
+            raise DataError(f"{label}: {v} is not a positive number (natural units)")
+        out.append(number)
+    return np.asarray(out, dtype=float)
+
+
+def _values_from_file(path: Path, column: str, flag: str) -> np.ndarray:
+    if not path.is_file():
+        raise DataError(f"{path}: file not found ({flag})")
+    try:
+        table = pd.read_csv(path, sep=None, engine="python", dtype=str,
+                            keep_default_na=False, encoding="utf-8-sig")
+    except Exception as exc:
+        raise DataError(f"{path}: cannot read table: {str(exc).splitlines()[0]}") from None
+    table.columns = [str(c).strip() for c in table.columns]
+    if column not in table.columns:
+        raise DataError(f"{path}: no column '{column}'{_hint(column, list(table.columns))}")
+    values = []
+    for i, v in enumerate(table[column]):
+        values.append(v)
+        try:
+            _numbers([v], "")
+        except DataError:
+            raise DataError(f"{path}: row {i + 1}, column '{column}': '{v}' is not a positive "
+                            "number") from None
+    return _numbers(values, str(path))
+
+
+def predict_command(args) -> int:
+    """``scaling predict``: print a table and write it to a CSV file."""
+    saved = load_results(args.results)
+    if args.x:
+        values = _numbers(args.x, "--x")
+    else:
+        column = saved.y_name if args.inverse else saved.x_name
+        values = _values_from_file(Path(args.from_file), column, "--from")
+    for option, allowed in (("correction", ("smearing", "parametric", "ratio", "none")),
+                            ("interval", ("prediction", "confidence"))):
+        value = getattr(args, option)
+        if value is not None and value not in allowed:
+            raise ConfigError(f"--{option}: '{value}' is not one of {', '.join(allowed)}"
+                              f"{_hint(value, allowed)}")
+    out = Path(args.out) if args.out else Path("predictions.csv")
+    if out.exists() and not args.force:
+        raise OutputError(f"{out}: already exists; use --force to overwrite it or --out to "
+                          "choose another file")
+    method = args.method.lower() if args.method else None
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ExtrapolationWarning)
+        frame = saved.predict(values, method=method, group=args.group,
+                              correction=args.correction, interval=args.interval,
+                              inverse=args.inverse)
+    frame.to_csv(out, index=False, lineterminator="\n")
+    shown = frame.copy()
+    print(shown.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+    if any(issubclass(w.category, ExtrapolationWarning) for w in caught):
+        print("warning: some values lie outside the fitted range (extrapolated = True); "
+              "treat those predictions with caution")
+    print(f"wrote {out}")
+    return 0

@@ -1,0 +1,104 @@
+"""Saved fits: `scaling predict` and `scaling.load_results` reproduce the run."""
+from __future__ import annotations
+
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+import scaling
+from scaling.cli import main
+
+from conftest import DEMO_CONFIG
+
+
+@pytest.fixture(scope="module")
+def demo_out(tmp_path_factory):
+    out = tmp_path_factory.mktemp("saved") / "out"
+    assert main(["run", str(DEMO_CONFIG), "--out", str(out), "--quiet"]) == 0
+    return out
+
+
+@pytest.fixture(scope="module")
+def nogroup_out(tmp_path_factory):
+    import numpy as np
+    folder = tmp_path_factory.mktemp("nogroup")
+    rng = np.random.default_rng(3)
+    x = 10 ** rng.uniform(0, 2, 25)
+    y = 2 * x ** 0.7 * 10 ** rng.normal(0, 0.05, 25)
+    pd.DataFrame({"m": x, "r": y}).to_csv(folder / "d.csv", index=False)
+    (folder / "c.yaml").write_text("data: {file: d.csv, x: m, y: r}\nprediction: {x: [3]}\n")
+    assert main(["run", str(folder / "c.yaml"), "--out", str(folder / "out"), "--quiet"]) == 0
+    return folder / "out"
+
+
+class TestPredictCommand:
+    def test_same_numbers_as_run(self, demo_out, tmp_path, monkeypatch, capsys):
+        # The run's predictions.csv is the reference: predicting later from the
+        # saved fits must reproduce it exactly (same formulas, saved factors).
+        run = pd.read_csv(demo_out / "predictions.csv")
+        monkeypatch.chdir(tmp_path)
+        for method in ("ols", "sma", "ma"):
+            xs = run.loc[(run["scope"] == "pooled") & (run["method"] == method), "x"]
+            code = main(["predict", str(demo_out), "--x", *map(str, xs), "--method", method,
+                         "--out", f"p_{method}.csv"])
+            assert code == 0
+            new = pd.read_csv(tmp_path / f"p_{method}.csv")
+            ref = run[(run["scope"] == "pooled") & (run["method"] == method)]
+            assert_allclose(new["y"], ref["y"], rtol=1e-12)
+            assert_allclose(new["y_low"], ref["y_low"], rtol=1e-12)
+            assert_allclose(new["y_high"], ref["y_high"], rtol=1e-12)
+        assert "wrote p_ma.csv" in capsys.readouterr().out
+
+    def test_group_and_from_file(self, demo_out, tmp_path, monkeypatch):
+        run = pd.read_csv(demo_out / "predictions.csv")
+        ref = run[(run["group"] == "Canopy") & (run["method"] == "ols")]
+        (tmp_path / "new.csv").write_text("body_mass\n" + "\n".join(map(str, ref["x"])) + "\n")
+        monkeypatch.chdir(tmp_path)
+        assert main(["predict", str(demo_out), "--from", "new.csv", "--group", "Canopy"]) == 0
+        new = pd.read_csv(tmp_path / "predictions.csv")
+        assert_allclose(new["y"], ref["y"], rtol=1e-12)  # reference: the run itself
+
+    def test_inverse_round_trip(self, demo_out):
+        saved = scaling.load_results(demo_out)
+        fwd = saved.predict([40.0], method="sma", correction="none")
+        back = saved.predict(fwd["y"].to_numpy(), method="sma", inverse=True)
+        # exact law: SMA inverse prediction solves the same line for x
+        assert_allclose(back["x"], [40.0], rtol=1e-10)
+
+    def test_refuses_group_without_groups(self, nogroup_out, capsys):
+        code = main(["predict", str(nogroup_out), "--x", "5", "--group", "a"])
+        err = capsys.readouterr().err
+        assert code == 2 and "fitted without groups" in err
+
+    def test_unknown_group_suggests(self, demo_out, capsys):
+        code = main(["predict", str(demo_out), "--x", "5", "--group", "Canopi"])
+        assert code == 2 and "did you mean 'Canopy'" in capsys.readouterr().err
+
+    @pytest.mark.parametrize("value, pattern", [("-3", "not a positive number"),
+                                                ("0", "not a positive number"),
+                                                ("abc", "'abc' is not a number")])
+    def test_bad_x(self, demo_out, capsys, value, pattern):
+        code = main(["predict", str(demo_out), "--x", value])
+        err = capsys.readouterr().err
+        assert code == 2 and pattern in err and err.startswith("error: --x")
+
+    def test_bad_method(self, demo_out, capsys):
+        code = main(["predict", str(demo_out), "--x", "5", "--method", "smaa"])
+        assert code == 2 and "did you mean 'sma'" in capsys.readouterr().err
+
+    def test_refuses_overwrite(self, demo_out, tmp_path, capsys):
+        out = tmp_path / "p.csv"
+        out.write_text("mine")
+        code = main(["predict", str(demo_out), "--x", "5", "--out", str(out)])
+        assert code == 2 and "--force" in capsys.readouterr().err
+        assert out.read_text() == "mine"
+
+    def test_not_a_results_folder(self, tmp_path, capsys):
+        code = main(["predict", str(tmp_path), "--x", "5"])
+        assert code == 2 and "no results.json" in capsys.readouterr().err
+
+    def test_extrapolation_warned(self, demo_out, tmp_path, capsys):
+        code = main(["predict", str(demo_out), "--x", "1e7", "--out", str(tmp_path / "p.csv")])
+        out = capsys.readouterr().out
+        assert code == 0 and "outside the fitted range" in out
+        assert pd.read_csv(tmp_path / "p.csv")["extrapolated"].all()
