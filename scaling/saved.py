@@ -156,8 +156,12 @@ def _values_from_file(path: Path, column: str, flag: str) -> np.ndarray:
     if not path.is_file():
         raise DataError(f"{path}: file not found ({flag})")
     try:
-        table = pd.read_csv(path, sep=None, engine="python", dtype=str,
-                            keep_default_na=False, encoding="utf-8-sig")
+        with open(path, encoding="utf-8-sig", errors="replace") as fh:
+            header = fh.readline()
+        counts = {d: header.count(d) for d in (",", "\t", ";")}
+        sep = max(counts, key=counts.get) if max(counts.values()) else ","
+        table = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False,
+                            encoding="utf-8-sig")
     except Exception as exc:
         raise DataError(f"{path}: cannot read table: {str(exc).splitlines()[0]}") from None
     table.columns = [str(c).strip() for c in table.columns]
