@@ -3,6 +3,7 @@ from .errors import (ConfigError, DataError, DegenerateDataWarning,
                      ExtrapolationWarning, OutputError, ScalingError,
                      ScalingWarning)
 from .lines import ConfidenceInterval, LineFit, SlopeTest, fit_line
+from .groups import GroupComparison, compare_groups, fit_group_means, group_means
 from .moments import Moments
 from .pipeline import RunResult, run_config
 from .predict import accuracy, inverse_predict, predict
@@ -12,7 +13,8 @@ from ._version import __version__  # noqa: E402
 
 __all__ = [
     "__version__",
-    "fit_line", "run_config", "RunResult", "load_results", "predict",
+    "fit_line", "compare_groups", "group_means", "fit_group_means", "GroupComparison",
+    "run_config", "RunResult", "load_results", "predict",
     "inverse_predict", "accuracy", "LineFit", "SlopeTest", "ConfidenceInterval", "Moments",
     "ScalingError", "ConfigError", "DataError", "OutputError",
     "ScalingWarning", "DegenerateDataWarning", "ExtrapolationWarning",

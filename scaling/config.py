@@ -404,6 +404,14 @@ def _build(raw, base_dir: Path, source) -> Config:
     for key in ("group", "average_within"):
         if data[key] is not None and data[key] in (data["x"], data["y"]):
             raise _Bad(f"data.{key}", f"{data[key]!r} is also the x or y column")
+    if sections["groups"]["weight_means"]:
+        unweightable = [m for m in sections["model"]["methods"] if m != "ols"]
+        if unweightable:
+            raise _Bad("groups.weight_means", "weighting group means is available for OLS only "
+                       "(weighted least squares); no weighted "
+                       f"{'/'.join(m.upper() for m in unweightable)} estimator with valid "
+                       "intervals is implemented. Set model.methods: [ols] or "
+                       "weight_means: false")
     out_dir = sections["output"]["dir"]
     if out_dir is None:
         stem = source.stem if source is not None else "scaling"

@@ -206,26 +206,34 @@ def analyse(config: Config) -> RunResult:
         if small:
             notes.append(f"Group fits skipped for n < {MIN_N}: {', '.join(small)}.")
 
-    fits = pd.DataFrame([_blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
-
     # LineFit objects for every estimable row (used by tests, predictions, figures).
     line_fits = {}
-    for r in fits.itertuples(index=False):
-        if not np.isfinite(r.slope):
+    for r in rows:
+        if not np.isfinite(r["slope"]) or r["note"] and "unbounded" not in r["note"]:
             continue
-        if r.scope == "pooled":
-            m = pooled_m[0]
-        else:
-            m = gm[group_names.index(r.group)]
-        line_fits[(r.scope, r.group, r.method)] = line_fit_from_moments(
-            m, r.method, confidence=cfg.model.confidence, log_base=base,
-            x_range=(r.x_min, r.x_max), y_range=(r.y_min, r.y_max))
+        m = pooled_m[0] if r["scope"] == "pooled" else gm[group_names.index(r["group"])]
+        line_fits[(r["scope"], r["group"], r["method"])] = line_fit_from_moments(
+            m, r["method"], confidence=cfg.model.confidence, log_base=base,
+            x_range=(r["x_min"], r["x_max"]), y_range=(r["y_min"], r["y_max"]))
 
-    slope_tests = _slope_tests(line_fits, cfg)
     tables: dict = {}
     point_sets = {("pooled", ""): pts}
     for g in group_names:
         point_sets[("group", g)] = pts[pts["group"] == g]
+
+    g_messages: list[str] = []
+    if data.has_groups:
+        group_rows, group_fits, means_points, g_tables, g_messages, g_notes = \
+            _group_stage(pts, cfg, base)
+        rows += group_rows
+        line_fits.update(group_fits)
+        tables.update(g_tables)
+        notes += g_notes
+        if means_points is not None:
+            point_sets[("group_means", "")] = means_points
+
+    fits = pd.DataFrame([_blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
+    slope_tests = _slope_tests(line_fits, cfg)
 
     # Prediction stage: accuracy and correction factors per fit, then predictions.
     saved, extra_cols = _accuracy_and_factors(line_fits, point_sets)
@@ -245,6 +253,7 @@ def analyse(config: Config) -> RunResult:
                 test = fit.test_slope(b0, hypothesis=name)
                 messages.append("  " + describe_test(test, alpha=1 - cfg.model.confidence))
 
+    messages += g_messages
     manifest = {
         "scaling_version": __version__,
         "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
@@ -258,6 +267,76 @@ def analyse(config: Config) -> RunResult:
                      dropped=data.dropped[DROPPED_COLUMNS], line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
                      manifest=manifest)
+
+
+def _fit_row(scope: str, group: str, fit, ranges) -> dict:
+    (x_lo, x_hi), (y_lo, y_hi) = ranges
+    rec = fit.to_record()
+    rec.update({"scope": scope, "group": group, "n": fit.n,
+                "x_min": x_lo, "x_max": x_hi, "y_min": y_lo, "y_max": y_hi})
+    return rec
+
+
+def _group_stage(pts: pd.DataFrame, cfg: Config, base):
+    """Group means, lines through the means, and comparisons of groups."""
+    from .groups import compare_groups, fit_group_means, group_means
+    rows, fits, g_tables, messages, notes = [], {}, {}, [], []
+    X, Y, labels = pts["log_x"].to_numpy(), pts["log_y"].to_numpy(), pts["group"].to_numpy()
+    means = group_means(X, Y, labels, n_rows=pts["n_rows"].to_numpy())
+    frame = means.to_frame()
+    g_tables["group_means"] = frame
+    means_points = None
+    if cfg.groups.fit_group_means:
+        mx, my = frame["mean_log_x"].to_numpy(), frame["mean_log_y"].to_numpy()
+        means_points = pd.DataFrame({"group": frame["group"], "log_x": mx, "log_y": my,
+                                     "x": np.power(base, mx), "y": np.power(base, my)})
+        ranges = (_range(means_points["x"].to_numpy()), _range(means_points["y"].to_numpy()))
+        for method in cfg.model.methods:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                fit = fit_group_means(X, Y, labels, method=method,
+                                      confidence=cfg.model.confidence, log_base=base,
+                                      weighted=cfg.groups.weight_means)
+            fit = _with_ranges(fit, ranges)
+            if fit.note and len(frame) < MIN_N:
+                fit = _with_note(fit, f"{len(frame)} groups < {MIN_N}: no line through "
+                                      "the group means")
+            rows.append(_fit_row("group_means", "", fit, ranges))
+            if fit.estimable:
+                fits[("group_means", "", method)] = fit
+    if cfg.groups.compare:
+        test_frames, pair_frames = [], []
+        data = pts[["x", "y", "group"]] if base is not None else \
+            pts.assign(x=pts["log_x"], y=pts["log_y"])[["x", "y", "group"]]
+        for method in cfg.model.methods:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                comp = compare_groups(data, "x", "y", "group", method=method,
+                                      confidence=cfg.model.confidence, log_base=base)
+            summary = comp.summary().replace(f"{len(comp.groups)} group groups",
+                                             f"{len(comp.groups)} {cfg.data.group} groups")
+            summary = summary.replace(" group groups", f" {cfg.data.group} groups")
+            messages.append(summary)
+            if comp.compared:
+                test_frames.append(comp.to_frame())
+                pair_frames.append(comp.pairwise_frame())
+        from .groups import _PAIR_COLUMNS, _TEST_COLUMNS
+        g_tables["group_tests"] = pd.concat(test_frames, ignore_index=True) if test_frames \
+            else pd.DataFrame(columns=list(_TEST_COLUMNS))
+        pairs = [f for f in pair_frames if len(f)]
+        g_tables["pairwise_tests"] = pd.concat(pairs, ignore_index=True) if pairs \
+            else pd.DataFrame(columns=list(_PAIR_COLUMNS))
+    return rows, fits, means_points, g_tables, messages, notes
+
+
+def _with_ranges(fit, ranges):
+    from dataclasses import replace
+    return replace(fit, x_range=ranges[0], y_range=ranges[1])
+
+
+def _with_note(fit, note):
+    from dataclasses import replace
+    return replace(fit, note=note)
 
 
 def _accuracy_and_factors(line_fits: dict, point_sets: dict):

@@ -58,6 +58,40 @@ class TestRun:
         # the demo plants 6 bad rows and 5 outgroup rows (demo_data/make_demo.py)
         assert len(dropped) == 11
 
+    def test_group_files(self, demo_run):
+        _, out = demo_run
+        means = pd.read_csv(out / "group_means.csv")
+        assert list(means.columns[:6]) == ["group", "n", "mean_log_x", "mean_log_y",
+                                           "se_log_x", "se_log_y"]
+        # the demo has 8 species in each of 5 clades (demo_data/make_demo.py)
+        assert list(means["n"]) == [8] * 5
+        tests = pd.read_csv(out / "group_tests.csv")
+        assert {"method", "test", "statistic", "df", "p_value", "common_slope",
+                "p_method"} <= set(tests.columns)
+        assert set(tests["test"]) == {"slopes_equal", "intercepts_equal", "shift_along_axis"}
+        assert set(tests["method"]) == {"ols", "sma", "ma"}
+        pairs = pd.read_csv(out / "pairwise_tests.csv")
+        assert list(pairs.columns) == ["method", "test", "group_a", "group_b", "statistic",
+                                       "df", "p_value", "p_adjusted"]
+        fits = pd.read_csv(out / "fits.csv")
+        assert set(fits.loc[fits["scope"] == "group_means", "n"]) == {5}
+
+    def test_demo_answers_the_comparative_question(self, demo_run):
+        _, out = demo_run
+        doc = json.loads((out / "results.json").read_text())
+        text = " ".join(doc["messages"])
+        # the demo's truth: one common exponent 0.72, clades shifted in elevation
+        # and along the axis (demo_data/make_demo.py docstring)
+        assert "Slopes do not differ among the 5 clade groups (SMA" in text
+        assert "elevations (intercepts) differ" in text
+        tests = pd.read_csv(out / "group_tests.csv").set_index(["method", "test"])
+        for method in ("ols", "sma", "ma"):
+            assert tests.loc[(method, "slopes_equal"), "p_value"] > 0.05
+            assert tests.loc[(method, "intercepts_equal"), "p_value"] < 0.01
+            # common slope near the true 0.72 (simulation truth; wide tolerance
+            # because of species effects and weighing error in the demo)
+            assert abs(tests.loc[(method, "slopes_equal"), "common_slope"] - 0.72) < 0.06
+
     def test_manifest(self, demo_run):
         import hashlib
         _, out = demo_run

@@ -122,6 +122,14 @@ class TestLoadConfig:
         with pytest.raises(ConfigError, match=r"^config: data: is required"):
             config_from_dict({}, base_dir=Path("."))
 
+    def test_weight_means_refused_for_sma(self, write_config):
+        with pytest.raises(ConfigError, match=r"groups.weight_means: weighting group means is "
+                                               r"available for OLS only"):
+            load_config(write_config(MINIMAL + "groups: {weight_means: true}\n"))
+        cfg = load_config(write_config(MINIMAL + "groups: {weight_means: true}\n"
+                                       "model: {methods: [ols]}\n"))
+        assert cfg.groups.weight_means
+
     def test_config_is_frozen(self, write_config):
         cfg = load_config(write_config(MINIMAL))
         with pytest.raises(AttributeError):

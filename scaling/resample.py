@@ -1,0 +1,669 @@
+"""Bootstrap intervals and permutation tests for the moment-based lines.
+
+Every moment-based line (OLS, SMA, MA and the Deming line) is a function of
+the sufficient statistics of :mod:`scaling.moments`.  A bootstrap resample
+is therefore a vector of counts (how often each row is drawn), and ``B``
+resamples are a ``B x n`` count matrix: their moments are one matrix
+product per sum (:func:`scaling.moments.weighted_moments`) and their lines
+one vectorised call of the estimator registry in :mod:`scaling.lines`.
+There is no Python loop over resamples; the ``B`` resamples are processed
+in chunks so that memory stays bounded.
+
+Intervals
+    Percentile: the ``alpha/2`` and ``1 - alpha/2`` quantiles (linear
+    interpolation, ``numpy.quantile`` default) of the bootstrap
+    distribution.  BCa (bias-corrected and accelerated): Efron & Tibshirani
+    (1993) *An Introduction to the Bootstrap*, eq. 14.9-14.15, with the
+    bias correction z0 from the share of replicates below the estimate
+    (ties counted half) and the acceleration from the leave-one-out
+    jackknife; these are the same conventions as ``scipy.stats.bootstrap``,
+    so both give the same interval on the same resamples.
+Resampling
+    Rows are drawn with replacement, ``n`` per resample; with ``groups``
+    the rows of each group are resampled within that group (a stratified
+    bootstrap), so every resample has the original group sizes.  Without
+    groups the draws are ``rng.integers(0, n, size=(chunk, n))``, the draws
+    ``scipy.stats.bootstrap(..., paired=True)`` makes.
+Permutation tests of slope = b0
+    Under H0 two derived variables are uncorrelated (Warton, Wright,
+    Falster & Westoby 2006, *Biol. Rev.* 81:259): for OLS the residual
+    ``U = Y - b0 X`` and ``V = X``; for SMA ``U = Y - b0 X`` and
+    ``V = Y + b0 X``; for MA ``U = Y - b0 X`` and ``V = X + b0 Y``; for the
+    Deming line the MA pair after dividing Y by sqrt(lambda).  The scheme
+    permutes ``U`` against ``V`` (which breaks any association between
+    them while keeping both margins) and compares the absolute correlation
+    with the observed one.  This is exact when U and V are independent
+    under H0 (e.g. bivariate normal data, where uncorrelated means
+    independent) and approximate otherwise.  p = (1 + #{|r*| >= |r|}) /
+    (1 + n_perm) (Phipson & Smyth 2010, *Stat. Appl. Genet. Mol. Biol.*
+    9:39).
+The common-slope test across groups is not here yet (it waits for
+``scaling.groups``).
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import special
+
+from .errors import ConfigError, DataError, DegenerateDataWarning
+from .lines import METHODS, ConfidenceInterval
+from .moments import Moments, weighted_moments
+
+__all__ = [
+    "MOMENT_METHODS",
+    "BootstrapInterval",
+    "BootstrapResult",
+    "PermutationTest",
+    "bootstrap_lines",
+    "permutation_slope_test",
+    "draw_counts",
+    "line_from_moments",
+    "bca_interval",
+]
+
+MOMENT_METHODS = ("ols", "sma", "ma", "deming")
+
+#: Budget of float64 cells per chunk of resamples (2 MB per float64 array: small chunks stay in cache and measured faster than large ones).
+_CELLS_PER_CHUNK = 250_000
+
+
+# --------------------------------------------------------------------------
+# input checks
+
+
+def _check_xy(log_x, log_y) -> tuple[np.ndarray, np.ndarray]:
+    X = np.asarray(log_x, dtype=float)
+    Y = np.asarray(log_y, dtype=float)
+    if X.ndim != 1 or Y.ndim != 1:
+        raise DataError("log_x and log_y must be one-dimensional")
+    if X.shape != Y.shape:
+        raise DataError(f"log_x and log_y must have the same length, not {X.size} and {Y.size}")
+    if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
+        raise DataError("log_x and log_y must be finite numbers (no NaN or inf)")
+    if X.size < 3:
+        raise DataError(f"log_x and log_y need at least 3 rows to resample a line, not {X.size}")
+    return X, Y
+
+
+def _check_count(value, name: str, minimum: int = 1) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
+        raise ConfigError(f"{name} must be an integer >= {minimum}, not {value!r}")
+    return int(value)
+
+
+def _check_confidence(confidence) -> float:
+    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) \
+            or not 0 < confidence < 1:
+        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
+    return float(confidence)
+
+
+def _check_lam(lam) -> float:
+    if isinstance(lam, bool) or not isinstance(lam, (int, float, np.floating)) \
+            or not (math.isfinite(lam) and lam > 0):
+        raise ConfigError(f"lam (error-variance ratio) must be a positive finite number, not {lam!r}")
+    return float(lam)
+
+
+def _check_methods(methods) -> tuple[str, ...]:
+    if isinstance(methods, str):
+        methods = (methods,)
+    methods = tuple(methods)
+    bad = [m for m in methods if m not in MOMENT_METHODS]
+    if bad or not methods:
+        raise ConfigError(f"methods must be among {', '.join(MOMENT_METHODS)}, not {bad or methods!r}")
+    return methods
+
+
+def _rng(seed) -> np.random.Generator:
+    if isinstance(seed, np.random.Generator):
+        return seed
+    if seed is None or (isinstance(seed, (int, np.integer)) and not isinstance(seed, bool)):
+        return np.random.default_rng(seed)
+    raise ConfigError(f"seed must be an integer, a numpy Generator or None, not {seed!r}")
+
+
+def _labels(groups, n: int):
+    """Group names and integer labels 0..G-1 (None, None without groups)."""
+    if groups is None:
+        return None, None
+    g = np.asarray(groups)
+    if g.ndim != 1 or g.size != n:
+        raise DataError(f"groups must be one label per row ({n}), not shape {g.shape}")
+    names, labels = np.unique(g, return_inverse=True)
+    sizes = np.bincount(labels)
+    if np.any(sizes < 3):
+        small = names[sizes < 3][0]
+        raise DataError(f"groups: group {small!r} has fewer than 3 rows; drop it before resampling")
+    return names, labels
+
+
+# --------------------------------------------------------------------------
+# progress
+
+
+def _progress(total: int, quiet: bool, desc: str):
+    """A tqdm bar when tqdm is installed, not quiet and stderr is a terminal; else None."""
+    if quiet or not getattr(sys.stderr, "isatty", lambda: False)():
+        return None
+    try:
+        from tqdm import tqdm
+    except ImportError:  # optional dependency
+        return None
+    return tqdm(total=total, desc=desc, unit="resample", leave=False)
+
+
+# --------------------------------------------------------------------------
+# building blocks
+
+
+def draw_counts(rng: np.random.Generator, n: int, size: int, labels=None) -> np.ndarray:
+    """``size x n`` matrix of bootstrap counts (how often each row is drawn).
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator
+    n : int
+        Number of rows.
+    size : int
+        Number of resamples.
+    labels : array_like of int, optional
+        Group of each row; rows are then drawn within their group.
+
+    Returns
+    -------
+    ndarray of int64, shape (size, n)
+        Each row sums to ``n`` (and, with labels, to each group's size
+        within that group).
+
+    Notes
+    -----
+    Without labels the draws are ``rng.integers(0, n, (size, n))``, the
+    index matrix ``scipy.stats.bootstrap`` draws, turned into counts by one
+    ``np.bincount`` over offset indices.
+    """
+    if labels is None:
+        idx = rng.integers(0, n, (size, n))
+    else:
+        labels = np.asarray(labels)
+        idx = np.empty((size, n), dtype=np.int64)
+        start = 0
+        for g in range(int(labels.max()) + 1):
+            rows = np.flatnonzero(labels == g)
+            draws = rng.integers(0, rows.size, (size, rows.size))
+            idx[:, start:start + rows.size] = rows[draws]
+            start += rows.size
+    idx += (np.arange(size, dtype=idx.dtype) * n)[:, None]  # row b -> cells b*n ... b*n+n-1
+    return np.bincount(idx.ravel(), minlength=size * n).reshape(size, n)
+
+
+def line_from_moments(m: Moments, method: str, *, lam: float = 1.0):
+    """Slope and intercept of ``method`` for every set of moments in ``m``.
+
+    Uses the slope functions of the :data:`scaling.lines.METHODS` registry
+    (the same code as :func:`scaling.lines.fit_moments`, without intervals).
+    The Deming line with error-variance ratio ``lam`` is the MA line of
+    (X, Y / sqrt(lam)) with its slope and intercept multiplied by
+    sqrt(lam) (exact rescaling; see :func:`scaling.robust.deming`).
+
+    Returns
+    -------
+    slope, intercept : ndarray
+    """
+    if method == "deming":
+        k = math.sqrt(lam)
+        mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
+                     syy=m.syy / lam, sxy=m.sxy / k)
+        b = METHODS["ma"].slope(mr) * k
+    else:
+        b = METHODS[method].slope(m)
+    with np.errstate(invalid="ignore"):
+        a = m.mean_y - b * m.mean_x
+    return b, a
+
+
+def _row_quantile(sorted_values: np.ndarray, m: np.ndarray, level: np.ndarray) -> np.ndarray:
+    """Linear-interpolation quantile (numpy's default) of the first ``m`` sorted values per row."""
+    h = (m - 1) * level
+    lo = np.clip(np.floor(h).astype(np.int64), 0, None)
+    hi = np.minimum(lo + 1, np.maximum(m - 1, 0))
+    frac = h - lo
+    a = np.take_along_axis(sorted_values, lo[..., None], axis=-1)[..., 0]
+    b = np.take_along_axis(sorted_values, hi[..., None], axis=-1)[..., 0]
+    return a + frac * (b - a)
+
+
+def bca_interval(replicates, estimate, jackknife, confidence: float):
+    """BCa bounds from bootstrap distributions and jackknife values.
+
+    Vectorised over leading axes, so the intervals of many lines (or of
+    every replicate of a simulation) come from one call.
+
+    Parameters
+    ----------
+    replicates : array_like, shape (..., B)
+        Bootstrap values (non-finite ones are ignored).
+    estimate : array_like, shape (...)
+        The statistic on the original data.
+    jackknife : array_like, shape (..., n)
+        Leave-one-out values.
+    confidence : float
+
+    Returns
+    -------
+    low, high, z0, acceleration : ndarray, shape (...)
+        NaN where the interval cannot be formed.
+
+    Notes
+    -----
+    z0 = Phi^-1(share of replicates below the estimate, ties counted half);
+    a = sum U^3 / (6 (sum U^2)^(3/2)) with U_i = mean(jackknife) - jackknife_i;
+    bounds are the quantiles (linear interpolation) at
+    Phi(z0 + (z0 + z)/(1 - a (z0 + z))) for z = Phi^-1(alpha/2) and
+    Phi^-1(1 - alpha/2).  Efron & Tibshirani (1993), eq. 14.10, 14.14,
+    14.15; the same conventions as ``scipy.stats.bootstrap``.
+    """
+    t = np.asarray(replicates, dtype=float)
+    est = np.asarray(estimate, dtype=float)
+    jack = np.asarray(jackknife, dtype=float)
+    finite = np.isfinite(t)
+    m = finite.sum(axis=-1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        below = np.sum(finite & (t < est[..., None]), axis=-1)
+        at_or_below = np.sum(finite & (t <= est[..., None]), axis=-1)
+        z0 = special.ndtri((below + at_or_below) / (2.0 * m))
+        u = jack.mean(axis=-1, keepdims=True) - jack
+        den = np.sum(u * u, axis=-1)
+        acc = np.where(den > 0, np.sum(u ** 3, axis=-1) / (6 * den ** 1.5), 0.0)
+        alpha = (1 - confidence) / 2
+        ts = np.sort(np.where(finite, t, np.inf), axis=-1)
+        bounds = []
+        for z in (special.ndtri(alpha), special.ndtri(1 - alpha)):
+            level = special.ndtr(z0 + (z0 + z) / (1 - acc * (z0 + z)))
+            ok = np.isfinite(level) & (m > 0) & np.isfinite(est)
+            level = np.where(ok, level, 0.5)
+            q = _row_quantile(ts, m, level)
+            bounds.append(np.where(ok & np.all(np.isfinite(jack), axis=-1), q, np.nan))
+    return bounds[0], bounds[1], z0, acc
+
+
+def _percentile(replicates, confidence: float) -> ConfidenceInterval:
+    t = np.asarray(replicates, dtype=float)
+    t = t[np.isfinite(t)]
+    if t.size == 0:
+        return ConfidenceInterval(math.nan, math.nan)
+    alpha = (1 - confidence) / 2
+    lo, hi = np.quantile(t, [alpha, 1 - alpha])
+    return ConfidenceInterval(float(lo), float(hi))
+
+
+# --------------------------------------------------------------------------
+# results
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class BootstrapInterval:
+    """Bootstrap summary of one parameter of one line.
+
+    Attributes
+    ----------
+    scope : str
+        ``"pooled"`` (all rows) or ``"group"``.
+    group : object
+        Group name, or None for the pooled line.
+    method : str
+    parameter : str
+        ``"slope"`` or ``"intercept"`` (log scale).
+    estimate : float
+        The value on the original data.
+    se : float
+        Standard deviation of the bootstrap replicates.
+    bias : float
+        Mean of the replicates minus the estimate.
+    percentile, bca : ConfidenceInterval
+    z0, acceleration : float
+        The BCa bias correction and acceleration.
+    n_valid : int
+        Replicates with a finite value (degenerate resamples are dropped).
+    """
+
+    scope: str
+    group: object
+    method: str
+    parameter: str
+    estimate: float
+    se: float
+    bias: float
+    percentile: ConfidenceInterval
+    bca: ConfidenceInterval
+    z0: float
+    acceleration: float
+    n_valid: int
+
+    def to_record(self) -> dict:
+        return {
+            "scope": self.scope, "group": self.group, "method": self.method,
+            "parameter": self.parameter, "estimate": self.estimate,
+            "boot_se": self.se, "boot_bias": self.bias,
+            "percentile_low": self.percentile.low, "percentile_high": self.percentile.high,
+            "bca_low": self.bca.low, "bca_high": self.bca.high,
+            "n_valid": self.n_valid,
+        }
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class BootstrapResult:
+    """Bootstrap intervals for every requested line and parameter.
+
+    Attributes
+    ----------
+    n_boot : int
+    confidence : float
+    stratified : bool
+        True when rows were resampled within groups.
+    lam : float
+        Error-variance ratio used for the Deming line.
+    intervals : tuple of BootstrapInterval
+    replicates : dict
+        ``(group, method) -> ndarray (n_boot, 2)`` of slope and intercept
+        replicates (``group`` None for the pooled line).
+    """
+
+    n_boot: int
+    confidence: float
+    stratified: bool
+    lam: float
+    intervals: tuple
+    replicates: dict = field(repr=False)
+
+    def get(self, method: str, parameter: str = "slope", group=None) -> BootstrapInterval:
+        """The interval of one parameter of one line."""
+        for item in self.intervals:
+            if item.method == method and item.parameter == parameter and item.group == group:
+                return item
+        raise ConfigError(f"no bootstrap result for method={method!r}, "
+                          f"parameter={parameter!r}, group={group!r}")
+
+    def to_frame(self):
+        """One row per line and parameter."""
+        import pandas as pd
+        frame = pd.DataFrame([i.to_record() for i in self.intervals])
+        frame["confidence"] = self.confidence
+        frame["n_boot"] = self.n_boot
+        return frame
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PermutationTest:
+    """Permutation test of slope = ``exponent``.
+
+    Attributes
+    ----------
+    method : str
+    exponent : float
+    statistic : float
+        Observed correlation of the two derived variables (see module notes).
+    p_value : float
+        Two-sided, (1 + exceedances) / (1 + n_perm).
+    n_perm : int
+    lam : float
+        Error-variance ratio (Deming line only; 1 otherwise).
+    scheme : str
+        Plain description of what was permuted.
+    """
+
+    method: str
+    exponent: float
+    statistic: float
+    p_value: float
+    n_perm: int
+    lam: float
+    scheme: str
+
+    def to_frame(self):
+        import pandas as pd
+        return pd.DataFrame([{
+            "method": self.method, "exponent": self.exponent,
+            "statistic": self.statistic, "p_value": self.p_value,
+            "n_perm": self.n_perm, "scheme": self.scheme,
+        }])
+
+
+# --------------------------------------------------------------------------
+# bootstrap
+
+
+def _chunk(chunk_size, n: int, total: int) -> int:
+    if chunk_size is None:
+        return max(1, min(total, _CELLS_PER_CHUNK // max(n, 1)))
+    return min(_check_count(chunk_size, "chunk_size"), total)
+
+
+def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
+                    n_boot: int = 9999, confidence: float = 0.95, lam: float = 1.0,
+                    seed=None, chunk_size: int | None = None,
+                    quiet: bool = True) -> BootstrapResult:
+    """Percentile and BCa bootstrap intervals for slopes and intercepts.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (n,)
+        Data on the log scale.
+    methods : sequence of {"ols", "sma", "ma", "deming"}
+    groups : array_like, optional
+        Group of each row.  Rows are resampled within groups, and each
+        group's line is reported as well as the pooled line.
+    n_boot : int
+        Number of resamples.
+    confidence : float
+    lam : float
+        Error-variance ratio var(error in Y) / var(error in X) of the
+        Deming line.
+    seed : int, numpy.random.Generator or None
+    chunk_size : int, optional
+        Resamples processed at once (default: as many as fit in about
+        250 000 cells of the count matrix).
+    quiet : bool
+        No progress bar when True (the default); otherwise a tqdm bar is
+        shown if tqdm is installed and stderr is a terminal.
+
+    Returns
+    -------
+    BootstrapResult
+
+    Notes
+    -----
+    See the module docstring for the resampling scheme and the interval
+    formulas.  The jackknife for the BCa acceleration leaves out one row
+    of the scope at a time (all rows for the pooled line).  Resamples in
+    which a line is not defined (e.g. every draw the same row) give NaN and
+    are left out of the intervals, with a DegenerateDataWarning.
+    """
+    X, Y = _check_xy(log_x, log_y)
+    methods = _check_methods(methods)
+    n_boot = _check_count(n_boot, "n_boot", 2)
+    confidence = _check_confidence(confidence)
+    lam = _check_lam(lam)
+    rng = _rng(seed)
+    n = X.size
+    names, labels = _labels(groups, n)
+    chunk = _chunk(chunk_size, n, n_boot)
+
+    # scopes: (scope, group name, row index array or None for all rows)
+    scopes = [("pooled", None, None)]
+    if labels is not None:
+        scopes += [("group", names[g].item() if hasattr(names[g], "item") else names[g],
+                    np.flatnonzero(labels == g)) for g in range(names.size)]
+
+    reps = {(s[1], m): np.empty((n_boot, 2)) for s in scopes for m in methods}
+    bar = _progress(n_boot, quiet, "bootstrap")
+    done = 0
+    while done < n_boot:
+        size = min(chunk, n_boot - done)
+        counts = draw_counts(rng, n, size, labels)
+        for scope, name, rows in scopes:
+            if rows is None:
+                mom = weighted_moments(X, Y, counts)
+            else:
+                mom = weighted_moments(X[rows], Y[rows], counts[:, rows])
+            for method in methods:
+                b, a = line_from_moments(mom, method, lam=lam)
+                out = reps[(name, method)]
+                out[done:done + size, 0] = b
+                out[done:done + size, 1] = a
+        done += size
+        if bar is not None:
+            bar.update(size)
+    if bar is not None:
+        bar.close()
+
+    intervals = []
+    for scope, name, rows in scopes:
+        xs, ys = (X, Y) if rows is None else (X[rows], Y[rows])
+        m0 = weighted_moments(xs, ys, np.ones(xs.size))
+        jack = _jackknife_moments(xs, ys, chunk)
+        for method in methods:
+            b0, a0 = (float(v) for v in line_from_moments(m0, method, lam=lam))
+            jb, ja = line_from_moments(jack, method, lam=lam)
+            rep = reps[(name, method)]
+            bad = int((~np.all(np.isfinite(rep), axis=1)).sum())
+            if bad:
+                where = "" if name is None else f" of group {name!r}"
+                warnings.warn(f"{bad} of {n_boot} resamples give no {method.upper()} "
+                              f"line{where}; they are left out", DegenerateDataWarning,
+                              stacklevel=2)
+            for j, (parameter, est, jk) in enumerate((("slope", b0, jb), ("intercept", a0, ja))):
+                values = rep[:, j]
+                ok = np.isfinite(values)
+                lo, hi, z0, acc = (float(v) for v in bca_interval(values, est, jk, confidence))
+                finite = values[ok]
+                intervals.append(BootstrapInterval(
+                    scope=scope, group=name, method=method, parameter=parameter,
+                    estimate=est,
+                    se=float(np.std(finite, ddof=1)) if finite.size > 1 else math.nan,
+                    bias=float(finite.mean() - est) if finite.size else math.nan,
+                    percentile=_percentile(values, confidence),
+                    bca=ConfidenceInterval(lo, hi), z0=z0, acceleration=acc,
+                    n_valid=int(ok.sum()),
+                ))
+    return BootstrapResult(n_boot=n_boot, confidence=confidence,
+                           stratified=labels is not None, lam=lam,
+                           intervals=tuple(intervals), replicates=reps)
+
+
+def _jackknife_moments(X, Y, chunk: int) -> Moments:
+    """Moments of the n leave-one-out samples, in chunks of rows."""
+    n = X.size
+    parts = []
+    step = max(1, min(n, chunk))
+    for start in range(0, n, step):
+        stop = min(n, start + step)
+        w = np.ones((stop - start, n))
+        w[np.arange(stop - start), np.arange(start, stop)] = 0.0
+        parts.append(weighted_moments(X, Y, w))
+    return Moments(**{k: np.concatenate([getattr(p, k) for p in parts])
+                      for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
+
+
+# --------------------------------------------------------------------------
+# permutation test
+
+
+_SCHEMES = {
+    "ols": "permute Y - b0 X against X",
+    "sma": "permute Y - b0 X against Y + b0 X",
+    "ma": "permute Y - b0 X against X + b0 Y",
+    "deming": "permute Y' - b0' X against X + b0' Y' with Y' = Y/sqrt(lam), b0' = b0/sqrt(lam)",
+}
+
+
+def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma",
+                           n_perm: int = 9999, lam: float = 1.0, seed=None,
+                           chunk_size: int | None = None,
+                           quiet: bool = True) -> PermutationTest:
+    """Permutation p-value of the test slope = ``exponent``.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (n,)
+        Data on the log scale.
+    exponent : float
+        Hypothesised slope b0.
+    method : {"ols", "sma", "ma", "deming"}
+    n_perm : int
+    lam : float
+        Error-variance ratio for the Deming line.
+    seed : int, numpy.random.Generator or None
+    chunk_size : int, optional
+    quiet : bool
+
+    Returns
+    -------
+    PermutationTest
+
+    Notes
+    -----
+    The derived variables and the permutation scheme are in the module
+    docstring (Warton et al. 2006 for the pairs; Phipson & Smyth 2010 for
+    the p-value).  A permutation leaves the sums and sums of squares of U
+    and V unchanged, so only the cross-product has to be recomputed:
+    ``U[perm] @ V`` for a whole chunk of permutations at once.
+    """
+    X, Y = _check_xy(log_x, log_y)
+    if isinstance(exponent, bool) or not isinstance(exponent, (int, float, np.floating)) \
+            or not math.isfinite(exponent):
+        raise ConfigError(f"exponent must be a finite number, not {exponent!r}")
+    if method not in MOMENT_METHODS:
+        raise ConfigError(f"method must be one of {', '.join(MOMENT_METHODS)}, not {method!r}")
+    n_perm = _check_count(n_perm, "n_perm")
+    lam = _check_lam(lam)
+    rng = _rng(seed)
+    b0 = float(exponent)
+    if method == "deming":
+        k = math.sqrt(lam)
+        Yd, bd = Y / k, b0 / k
+        U, V = Yd - bd * X, X + bd * Yd
+    elif method == "ols":
+        U, V = Y - b0 * X, X
+    elif method == "sma":
+        U, V = Y - b0 * X, Y + b0 * X
+    else:
+        U, V = Y - b0 * X, X + b0 * Y
+    U = U - U.mean()
+    V = V - V.mean()
+    scale = math.sqrt(float(U @ U) * float(V @ V))
+    if scale == 0:
+        warnings.warn("permutation_slope_test: a derived variable does not vary; "
+                      "the p-value is not defined", DegenerateDataWarning, stacklevel=2)
+        return PermutationTest(method=method, exponent=b0, statistic=math.nan,
+                               p_value=math.nan, n_perm=n_perm,
+                               lam=lam if method == "deming" else 1.0,
+                               scheme=_SCHEMES[method])
+    r_obs = float(U @ V) / scale
+    n = X.size
+    chunk = _chunk(chunk_size, n, n_perm)
+    # Guard against ties from rounding: exceedance if |r*| >= |r| (1 - 1e-12).
+    threshold = abs(r_obs) * (1 - 1e-12)
+    exceed = 0
+    done = 0
+    bar = _progress(n_perm, quiet, "permutations")
+    while done < n_perm:
+        size = min(chunk, n_perm - done)
+        perm = rng.permuted(np.broadcast_to(np.arange(n), (size, n)), axis=1)
+        r = (U[perm] @ V) / scale
+        exceed += int(np.count_nonzero(np.abs(r) >= threshold))
+        done += size
+        if bar is not None:
+            bar.update(size)
+    if bar is not None:
+        bar.close()
+    return PermutationTest(method=method, exponent=b0, statistic=r_obs,
+                           p_value=(1 + exceed) / (1 + n_perm), n_perm=n_perm,
+                           lam=lam if method == "deming" else 1.0,
+                           scheme=_SCHEMES[method])

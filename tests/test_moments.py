@@ -1,0 +1,159 @@
+"""Tests of scaling.moments: sufficient statistics per group, weighted, single.
+
+Expected values come from plain numpy computations of the same sums (a
+reference library computing the same thing another way) or from exact
+identities; each check says which beside it.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import assume, given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+from numpy.testing import assert_allclose, assert_array_equal
+
+from scaling.moments import Moments, group_moments, moments, weighted_moments
+
+
+def _numpy_moments(x: np.ndarray, y: np.ndarray) -> dict:
+    """Reference: the centred sums written directly with numpy."""
+    dx, dy = x - np.mean(x), y - np.mean(y)
+    return {"n": float(x.size), "mean_x": np.mean(x), "mean_y": np.mean(y),
+            "sxx": np.sum(dx * dx), "syy": np.sum(dy * dy), "sxy": np.sum(dx * dy)}
+
+
+def _assert_moments_close(m: Moments, ref: dict, rtol: float, atol: float = 0.0) -> None:
+    for key, value in ref.items():
+        assert_allclose(getattr(m, key), value, rtol=rtol, atol=atol, err_msg=key)
+
+
+class TestMoments:
+    def test_matches_numpy_sums(self):
+        rng = np.random.default_rng(11)
+        x = rng.normal(2.0, 0.7, 57)
+        y = 0.8 * x + rng.normal(0.0, 0.3, 57)
+        m = moments(x, y)
+        assert np.shape(m.n) == ()
+        # reference library: numpy mean / sum of centred products
+        _assert_moments_close(m, _numpy_moments(x, y), rtol=1e-12)
+        # reference library: numpy.cov with ddof=0 times n gives the centred sums
+        c = np.cov(x, y, ddof=0) * x.size
+        assert_allclose([m.sxx, m.syy, m.sxy], [c[0, 0], c[1, 1], c[0, 1]], rtol=1e-12)
+
+    def test_large_offset_keeps_precision(self):
+        # exact law: adding a constant to x and y leaves the centred sums
+        # unchanged (the two-pass algorithm must not lose them to cancellation)
+        rng = np.random.default_rng(12)
+        x = rng.normal(0.0, 1.0, 200)
+        y = rng.normal(0.0, 1.0, 200)
+        base = moments(x, y)
+        shifted = moments(x + 1e6, y - 1e6)
+        assert_allclose([shifted.sxx, shifted.syy, shifted.sxy],
+                        [base.sxx, base.syy, base.sxy], rtol=1e-8)  # exact law (translation invariance)
+
+    def test_r_is_nan_without_variance(self):
+        m = moments([1.0, 1.0, 1.0], [1.0, 2.0, 3.0])
+        assert np.isnan(m.r)  # definition: r = Sxy / sqrt(Sxx Syy) is 0/0 here
+
+    def test_swapped_exchanges_roles(self):
+        rng = np.random.default_rng(13)
+        x, y = rng.normal(size=20), rng.normal(size=20)
+        # exact law: moments of (y, x) are those of (x, y) with roles exchanged
+        _assert_moments_close(moments(x, y).swapped(),
+                              _numpy_moments(y, x), rtol=1e-12)
+
+    def test_dict_round_trip(self):
+        rng = np.random.default_rng(14)
+        labels = np.repeat(np.arange(3), 5)
+        m = group_moments(rng.normal(size=15), rng.normal(size=15), labels)
+        back = Moments.from_dict(m.to_dict())
+        for key in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy"):
+            assert_array_equal(getattr(back, key), getattr(m, key))  # exact: JSON floats round-trip
+
+
+class TestGroupMoments:
+    def test_equals_per_group_numpy(self):
+        rng = np.random.default_rng(21)
+        sizes = [3, 8, 1, 25, 12]
+        labels = rng.permutation(np.repeat(np.arange(len(sizes)), sizes))
+        x = rng.normal(1.0, 2.0, labels.size)
+        y = -0.5 * x + rng.normal(3.0, 1.0, labels.size)
+        m = group_moments(x, y, labels)
+        assert m.n.shape == (len(sizes),)
+        for g in range(len(sizes)):
+            sel = labels == g
+            # reference library: numpy on the rows of group g alone
+            _assert_moments_close(m[g], _numpy_moments(x[sel], y[sel]), rtol=1e-12, atol=1e-13)
+
+    def test_empty_group_and_n_groups(self):
+        labels = np.array([0, 0, 0, 2, 2, 2])
+        x = np.array([1.0, 2.0, 3.0, 4.0, 5.0, 7.0])
+        y = np.array([2.0, 1.0, 5.0, 0.0, 1.0, 1.5])
+        m = group_moments(x, y, labels, n_groups=4)
+        assert m.n.shape == (4,)
+        assert_array_equal(m.n, [3.0, 0.0, 3.0, 0.0])  # exact: counts of labels
+        assert np.all(np.isnan(m.mean_x[[1, 3]]))  # documented: empty groups have NaN means
+        # reference library: numpy on group 2
+        _assert_moments_close(m[2], _numpy_moments(x[3:], y[3:]), rtol=1e-12)
+
+    def test_stacked_replicates_one_pass(self):
+        # replicates stacked as groups give the moments of each replicate
+        rng = np.random.default_rng(22)
+        z = rng.normal(size=(500, 20, 2))
+        labels = np.repeat(np.arange(500), 20)
+        m = group_moments(z[..., 0].ravel(), z[..., 1].ravel(), labels, n_groups=500)
+        xc = z[..., 0] - z[..., 0].mean(axis=1, keepdims=True)
+        yc = z[..., 1] - z[..., 1].mean(axis=1, keepdims=True)
+        # reference library: numpy sums along the replicate axis
+        assert_allclose(m.sxy, (xc * yc).sum(axis=1), rtol=1e-10, atol=1e-12)
+        assert_allclose(m.sxx, (xc * xc).sum(axis=1), rtol=1e-12)
+
+
+class TestWeightedMoments:
+    def test_integer_weights_equal_repeated_sample(self):
+        rng = np.random.default_rng(31)
+        x = rng.normal(5.0, 1.5, 30)
+        y = 0.7 * x + rng.normal(0.0, 0.4, 30)
+        w = rng.integers(0, 4, 30)
+        m = weighted_moments(x, y, w)
+        # exact identity: integer weights = moments of the explicitly repeated sample
+        _assert_moments_close(m, _numpy_moments(np.repeat(x, w), np.repeat(y, w)),
+                              rtol=1e-10)
+
+    def test_vectorised_over_leading_axes(self):
+        rng = np.random.default_rng(32)
+        x = rng.normal(size=15)
+        y = x + rng.normal(size=15)
+        counts = rng.multinomial(15, np.full(15, 1 / 15), size=(4, 6))
+        m = weighted_moments(x, y, counts)
+        assert m.n.shape == (4, 6)
+        for i in range(4):
+            for j in range(6):
+                xs, ys = np.repeat(x, counts[i, j]), np.repeat(y, counts[i, j])
+                # exact identity: bootstrap counts = moments of the resample
+                _assert_moments_close(m[i, j], _numpy_moments(xs, ys), rtol=1e-10, atol=1e-12)
+
+    def test_unit_weights_equal_moments(self):
+        rng = np.random.default_rng(33)
+        x, y = rng.normal(size=40), rng.normal(size=40)
+        a, b = weighted_moments(x, y, np.ones(40)), moments(x, y)
+        for key in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy"):
+            # exact identity: weights of one are the plain sample
+            assert_allclose(getattr(a, key), getattr(b, key), rtol=1e-12, atol=1e-14, err_msg=key)
+
+
+_finite = st.floats(min_value=-1e3, max_value=1e3, allow_nan=False, allow_infinity=False)
+
+
+class TestCorrelationProperty:
+    @settings(max_examples=200, deadline=None)
+    @given(data=arrays(np.float64, st.tuples(st.integers(3, 40), st.just(2)), elements=_finite))
+    def test_r_equals_corrcoef(self, data):
+        x, y = data[:, 0], data[:, 1]
+        # keep away from (near-)constant columns, where r is 0/0 or pure rounding noise
+        assume(np.std(x) > 1e-6 * (1 + np.max(np.abs(x))))
+        assume(np.std(y) > 1e-6 * (1 + np.max(np.abs(y))))
+        # reference library: numpy.corrcoef
+        assert_allclose(moments(x, y).r, np.corrcoef(x, y)[0, 1], rtol=1e-9, atol=1e-9)
