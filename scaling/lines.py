@@ -29,7 +29,9 @@ MA (major axis)
     theta + d is zero-centred and r*^2 = u/(l1 l2 + u) with
     u = (l1 - l2)^2 sin^2(2d)/4, so the bounds are tan(theta -+ d) with
     sin^2(2d) = 4 F l1 l2 / ((n - 2)(l1 - l2)^2); if that exceeds 1, or
-    theta + d passes the vertical, the interval is unbounded.
+    theta + d passes the vertical, the interval is unbounded (that end is
+    reported as -inf or +inf; beyond the vertical it would continue into
+    slopes of the other sign).
     (Same test as Warton et al. 2006; the closed form is our derivation,
     checked in the tests by the p-value at the bounds.)
 
@@ -218,10 +220,14 @@ def _ma_bounds(m: Moments, tcrit: np.ndarray):
     with np.errstate(divide="ignore", invalid="ignore"):
         s2 = 4 * tcrit ** 2 * l1 * l2 / ((m.n - 2) * (l1 - l2) ** 2)
         delta = 0.5 * np.arcsin(np.sqrt(np.where(s2 <= 1, s2, np.nan)))
+    # The acceptance region is an arc of directions.  When it passes the
+    # vertical, slopes beyond it are accepted without limit: report that end
+    # as -inf/+inf (the arc then continues into slopes of the other sign,
+    # which a single interval cannot show).  With s2 > 1 every slope is accepted.
     lo_angle, hi_angle = theta - delta, theta + delta
-    unbounded = (lo_angle <= -np.pi / 2) | (hi_angle >= np.pi / 2)
-    lo = np.where(unbounded, np.nan, np.tan(lo_angle))
-    hi = np.where(unbounded, np.nan, np.tan(hi_angle))
+    everything = np.isfinite(theta) & (s2 > 1)
+    lo = np.where((lo_angle <= -np.pi / 2) | everything, -np.inf, np.tan(lo_angle))
+    hi = np.where((hi_angle >= np.pi / 2) | everything, np.inf, np.tan(hi_angle))
     return lo, hi
 
 
@@ -350,7 +356,7 @@ def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
             out[key] = np.where(bad, np.nan, np.asarray(out[key], dtype=float))
     out["note"] = notes
     # A bounded estimate with an unbounded MA interval is estimable; say so.
-    unbounded = ~bad & np.isnan(out["slope_low"])
+    unbounded = ~bad & ~(np.isfinite(out["slope_low"]) & np.isfinite(out["slope_high"]))
     if np.any(unbounded):
         notes = notes.copy()
         notes[unbounded] = "slope interval unbounded (correlation too weak)"

@@ -271,10 +271,10 @@ class TestFitMoments:
         b = _true_slopes(cov)[method]
         a = muy - b * mux
         f = fit_moments(m, method, confidence=0.95)
-        assert np.all(f["note"][~np.isnan(f["slope_low"])] == "")
-        unbounded = np.isnan(f["slope_low"])
-        # an unbounded (NaN) MA interval is counted as not covering; keep it rare
-        assert unbounded.mean() < 0.01
+        bounded = np.isfinite(f["slope_low"]) & np.isfinite(f["slope_high"])
+        assert np.all(f["note"][bounded] == "")
+        # an unbounded MA interval (an infinite end) must stay rare here
+        assert (~bounded).mean() < 0.01
         slope_cover = np.mean((f["slope_low"] <= b) & (b <= f["slope_high"]))
         icpt_cover = np.mean((f["intercept_low"] <= a) & (a <= f["intercept_high"]))
         # simulation with a known truth: nominal 0.95 coverage, tolerance 0.015
@@ -314,11 +314,9 @@ class TestFitMoments:
                           "resid_sd", "df", "note"}
         assert all(np.shape(v) == (3,) for v in f.values())
 
-    @pytest.mark.xfail(strict=True, reason=(
-        "known limitation: for a steep MA slope with moderate correlation at n = 20, "
-        "about 4% of intervals wrap past the vertical and are reported as NaN "
-        "(unbounded), so nominal coverage is not reached (observed 0.914)"))
     def test_ma_coverage_steep_slope_weak_correlation(self):
+        # About 4% of these intervals pass the vertical; they are reported
+        # with an infinite end, so they still cover the truth.
         m, cov = _simulate(7, 0.3, 0.6, -0.7, 2.0, -1.0)
         b = _true_slopes(cov)["ma"]
         f = fit_moments(m, "ma", confidence=0.95)
@@ -573,7 +571,9 @@ class TestDegenerate:
         y = 0.2 * x + rng.normal(size=8)
         with pytest.warns(DegenerateDataWarning, match=r"slope interval unbounded"):
             fit = fit_line(x, y, method="ma", log_base=None)
-        assert np.isfinite(fit.slope) and np.isnan(fit.slope_ci.low)
+        # with this weak correlation the test accepts every direction
+        assert np.isfinite(fit.slope)
+        assert fit.slope_ci.low == -np.inf and fit.slope_ci.high == np.inf
 
     def test_bad_method(self):
         with pytest.raises(ConfigError, match=r"method must be one of ols, sma, ma, not 'wls'"):
