@@ -1,125 +1,965 @@
-"""Figures on log-log axes labelled in natural units.
+"""Publication figures of a run: scaling plot, natural-scale plot, exponents, residuals.
 
-Each ``plot_*`` function draws on a given Axes (or a new
-:class:`matplotlib.figure.Figure`) and returns the Axes; nothing here uses
-pyplot state or calls ``show()``.  :func:`write_figures` saves the figures a
-run asks for and returns their paths relative to the output folder.
+Every ``plot_*`` function draws on a given Axes (or on a new
+:class:`matplotlib.figure.Figure` it makes) and returns the Axes; every
+``make_*`` function returns the whole Figure.  Nothing here uses pyplot
+state or calls ``show()``; :func:`write_figures` saves the figures a run
+asks for and returns their paths relative to the output folder.
+
+Look (our own): open axes with outward ticks, log axes labelled in natural
+units (1, 10, 100, 1 000 ...; powers of ten written 10^k once the axis
+spans values outside 0.001 to 100 000), groups told apart by colour *and*
+marker from the Okabe & Ito (2008) colour-blind-safe palette, fitted lines
+drawn only over the range of x they were fitted to.
+
+Sizes follow common journal column widths: ``single`` 85 mm, ``double``
+180 mm (common practice, no source).  Text is 7 pt (tick labels 6.5 pt) at
+print size.  PDF and SVG keep text as text (TrueType fonts embedded in PDF;
+SVG text left as ``<text>``).
 """
 
 from __future__ import annotations
 
+import functools
 import math
+import textwrap
+from fractions import Fraction
 from pathlib import Path
 
 import matplotlib
 import numpy as np
 from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+from matplotlib.lines import Line2D
+from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter,
+                               FuncFormatter)
+from scipy import stats
 
-__all__ = ["plot_scaling", "natural_log_axis", "format_natural", "write_figures",
-           "PALETTE", "MARKERS"]
+__all__ = ["plot_scaling", "plot_natural", "plot_exponents", "plot_residuals",
+           "make_scaling", "make_natural", "make_exponents", "make_residuals",
+           "make_figure", "figure_png", "write_figures", "natural_log_axis",
+           "format_natural", "NaturalLogFormatter", "STYLE", "PALETTE", "MARKERS",
+           "SIZES", "KINDS"]
 
-# Okabe & Ito (2008) colour-blind-safe palette, ordered for contrast on white.
+# Okabe & Ito (2008) colour-blind-safe palette (yellow last: weak on white).
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
            "#000000", "#F0E442"]
 MARKERS = ["o", "s", "^", "D", "v", "P", "X", "h"]
-METHOD_STYLES = {"ols": "-", "sma": "--", "ma": ":"}
+# Methods are told apart by dash pattern (lines) and by a neutral shade.
+METHOD_DASHES = {"ols": "-", "sma": (0, (5, 2)), "ma": (0, (1.2, 1.6))}
+METHOD_SHADES = {"ols": "#1a1a1a", "sma": "#4d4d4d", "ma": "#7a7a7a"}
+METHOD_MARKERS = {"ols": "o", "sma": "s", "ma": "D"}
 MM = 1 / 25.4
 SIZES = {"single": 85 * MM, "double": 180 * MM}
+KINDS = ("scaling", "natural", "exponents", "residuals")
+THIN = "\u2009"   # thin space between digit groups: 1 000, 10 000
+
+STYLE = {
+    "font.family": "DejaVu Sans",
+    "font.size": 7,
+    "axes.labelsize": 7,
+    "axes.titlesize": 7,
+    "axes.linewidth": 0.6,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "xtick.labelsize": 6.5,
+    "ytick.labelsize": 6.5,
+    "xtick.direction": "out",
+    "ytick.direction": "out",
+    "xtick.major.width": 0.6,
+    "ytick.major.width": 0.6,
+    "xtick.minor.width": 0.4,
+    "ytick.minor.width": 0.4,
+    "xtick.major.size": 3.0,
+    "ytick.major.size": 3.0,
+    "xtick.minor.size": 1.6,
+    "ytick.minor.size": 1.6,
+    "legend.fontsize": 6.5,
+    "legend.frameon": False,
+    "lines.linewidth": 1.0,
+    "mathtext.default": "regular",
+    "pdf.fonttype": 42,
+    "ps.fonttype": 42,
+    "svg.fonttype": "none",
+    "svg.hashsalt": "scaling",
+    "figure.dpi": 100,
+}
+
+
+def _styled(func):
+    """Run ``func`` inside :data:`STYLE` (text sizes are fixed when artists are made)."""
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(STYLE):
+            return func(*args, **kwargs)
+    return wrapper
+
+
+# --------------------------------------------------------------------------
+# numbers and ticks in natural units
+
+
+def _group_digits(text: str) -> str:
+    """Insert thin spaces every three digits left of the decimal point (5 digits up)."""
+    sign = "-" if text.startswith("-") else ""
+    text = text.lstrip("-")
+    whole, _, frac = text.partition(".")
+    if len(whole) >= 4:
+        groups = []
+        while whole:
+            groups.insert(0, whole[-3:])
+            whole = whole[:-3]
+        whole = THIN.join(groups)
+    return sign + whole + ("." + frac if frac else "")
+
+
+def _plain_number(value: float, digits: int = 3) -> str:
+    """``value`` with ``digits`` significant digits, never in e-notation, digits grouped."""
+    if value == 0 or not math.isfinite(value):
+        return "0" if value == 0 else str(value)
+    k = math.floor(math.log10(abs(value)))
+    decimals = max(digits - 1 - k, 0)
+    text = f"{round(value, decimals):.{decimals}f}"
+    return _group_digits(text)
 
 
 def format_natural(value: float, _pos=None) -> str:
-    """Tick text for a power of ten: 0.01, 0.1, 1, 10, 1 000, 10 000 (thin-space grouping)."""
-    if value <= 0 or not math.isfinite(value):
+    """Tick text for a positive value on a log axis: 0.01, 0.1, 1, 2, 10, 1 000, 10 000.
+
+    Values from 0.001 to 100 000 are written out (digits grouped by thin
+    spaces); others as powers of ten in mathtext (``$10^{6}$``).
+    """
+    if not (value > 0 and math.isfinite(value)):
         return ""
-    exponent = math.log10(value)
-    if abs(exponent - round(exponent)) > 1e-9:
-        return ""
-    k = int(round(exponent))
-    if -3 <= k <= 5:
-        if k < 0:
-            return f"{value:.{-k}f}"
-        return f"{int(round(value)):,}".replace(",", "\u2009")
-    return f"$10^{{{k}}}$"
+    k = math.log10(value)
+    if abs(k - round(k)) < 1e-9 and not -3 <= round(k) <= 5:
+        return f"$10^{{{int(round(k))}}}$"
+    text = _plain_number(value, 3)
+    return text.rstrip("0").rstrip(".") if "." in text else text
+
+
+class NaturalLogFormatter(Formatter):
+    """Major tick labels of a log axis in natural units, one style per axis.
+
+    If every labelled tick lies in [0.001, 100 000] the numbers are written
+    out (``0.1``, ``1``, ``1 000``); otherwise every tick is written as a
+    power of ten, so one axis never mixes the two styles.
+    """
+
+    def __init__(self):
+        self._powers = False
+
+    def set_locs(self, locs):
+        super().set_locs(locs)
+        lo, hi = self.axis.get_view_interval() if self.axis is not None else (1, 1)
+        lo, hi = min(lo, hi), max(lo, hi)
+        shown = [v for v in locs if v > 0 and lo * (1 - 1e-9) <= v <= hi * (1 + 1e-9)]
+        self._powers = any(v < 1e-3 * (1 - 1e-9) or v > 1e5 * (1 + 1e-9) for v in shown)
+
+    def __call__(self, value, pos=None):
+        if not (value > 0 and math.isfinite(value)):
+            return ""
+        if self._powers:
+            k = math.log10(value)
+            if abs(k - round(k)) < 1e-6:
+                return f"$10^{{{int(round(k))}}}$"
+            mant = value / 10 ** math.floor(k)
+            return f"${mant:.2g}\\times10^{{{int(math.floor(k))}}}$"
+        return format_natural(value)
 
 
 def natural_log_axis(ax, which: str = "both") -> None:
-    """Put log scale on ``ax`` with major ticks at powers of ten written as numbers."""
-    for name in ("x", "y") if which == "both" else (which,):
+    """Log scale on ``ax`` with natural-unit major tick labels and minor ticks.
+
+    Spans under about 1.5 decades get majors at 1, 2, 5 x 10^k so that at
+    least three ticks are labelled; wide spans get every decade (or every
+    2nd, 3rd ... decade when more than ~8 decades are shown).
+    """
+    names = ("x", "y") if which == "both" else (which,)
+    for name in names:
         axis = ax.xaxis if name == "x" else ax.yaxis
         getattr(ax, f"set_{name}scale")("log")
-        axis.set_major_locator(LogLocator(base=10, numticks=12))
-        axis.set_major_formatter(FuncFormatter(format_natural))
-        axis.set_minor_locator(LogLocator(base=10, subs=np.arange(2, 10), numticks=12))
+        lo, hi = sorted(getattr(ax, f"get_{name}lim")())
+        decades = math.log10(hi / lo) if lo > 0 and hi > 0 else 1.0
+        if decades < 1.5:
+            axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0), numticks=12))
+            axis.set_minor_locator(LogLocator(base=10, subs=np.arange(1, 10) * 1.0,
+                                              numticks=40))
+        else:
+            axis.set_major_locator(LogLocator(base=10, numticks=9))
+            axis.set_minor_locator(LogLocator(base=10, subs=np.arange(2, 10) * 1.0,
+                                              numticks=40 if decades <= 8 else 2))
+        axis.set_major_formatter(NaturalLogFormatter())
         axis.set_minor_formatter(NullFormatter())
 
 
+def _arith_formatter(value, _pos=None) -> str:
+    if not math.isfinite(value):
+        return ""
+    if value == 0:
+        return "0"
+    text = f"{value:.6g}"
+    if "e" in text:
+        return f"{value:.1e}"
+    return _group_digits(text)
+
+
+# --------------------------------------------------------------------------
+# small helpers reading the result
+
+
+def _base(result) -> float:
+    for fit in result.line_fits.values():
+        if fit.log_base is not None:
+            return float(fit.log_base)
+    from .lines import parse_log_base
+    return parse_log_base(result.config.model.log_base) or 10.0
+
+
 def _label(result, role: str) -> str:
+    """Axis label "name (unit)" from figures.labels, else the column name."""
     cfg = result.config
-    labels = cfg.figures.labels
+    labels = cfg.figures.labels or {}
     name = labels.get(role) or (cfg.data.x if role == "x" else cfg.data.y)
-    unit = result.data.units.get(role)
-    return f"{name} ({unit})" if unit else name
+    unit = (result.data.units or {}).get(role)
+    return f"{name} ({unit})" if unit else str(name)
 
 
-def _new_axes(size: str = "single", aspect: float = 0.85):
+def _groups(result) -> list:
+    pts = result.data.points
+    if "group" not in pts.columns:
+        return []
+    return sorted(str(g) for g in pts["group"].unique())
+
+
+def _group_style(i: int) -> tuple:
+    return PALETTE[i % len(PALETTE)], MARKERS[i % len(MARKERS)]
+
+
+def _methods(result, methods) -> list:
+    return list(methods) if methods else list(result.config.model.methods)
+
+
+def _primary_method(methods: list) -> str:
+    """The method whose per-group lines are drawn: SMA if present, else the first."""
+    return "sma" if "sma" in methods else methods[0]
+
+
+def _new_figure(size: str, aspect: float) -> Figure:
     width = SIZES.get(size, SIZES["single"])
-    fig = Figure(figsize=(width, width * aspect), layout="constrained")
-    return fig.add_subplot()
+    return Figure(figsize=(width, width * aspect), layout="constrained")
 
 
-def plot_scaling(result, *, methods=None, ax=None, size: str = "single"):
-    """Data on log-log axes with the pooled (or per-group) fitted lines.
+def _figure_legend(fig: Figure, handles: list, ncol: int, **kwargs):
+    """Legend below the axes; fewer columns while it is wider than the figure."""
+    ncol = max(1, min(ncol, len(handles)))
+    while True:
+        legend = fig.legend(handles=handles, loc="outside lower center", ncol=ncol, **kwargs)
+        if ncol == 1:
+            return legend
+        fig.draw_without_rendering()
+        if legend.get_window_extent().width <= fig.bbox.width * 0.98:
+            return legend
+        legend.remove()
+        ncol -= 1
+
+
+def _group_means_table(result):
+    """Group means on the log scale: the run's table, else computed from the points.
+
+    Returns a DataFrame ``group, n, mean_log_x, mean_log_y, se_log_x, se_log_y``
+    or None without groups.  SE = SD / sqrt(n) (textbook; common practice).
+    """
+    import pandas as pd
+    table = (result.tables or {}).get("group_means")
+    if isinstance(table, pd.DataFrame) and len(table):
+        return table
+    pts = result.data.points
+    if "group" not in pts.columns:
+        return None
+    rows = []
+    for g, sub in pts.groupby("group", sort=True):
+        n = len(sub)
+        sd_x = sub["log_x"].std(ddof=1) if n > 1 else math.nan
+        sd_y = sub["log_y"].std(ddof=1) if n > 1 else math.nan
+        rows.append({"group": str(g), "n": n, "mean_log_x": sub["log_x"].mean(),
+                     "mean_log_y": sub["log_y"].mean(),
+                     "se_log_x": sd_x / math.sqrt(n), "se_log_y": sd_y / math.sqrt(n)})
+    return pd.DataFrame(rows)
+
+
+def _fit_band(fit, xs: np.ndarray, *, interval: str = "confidence"):
+    """Fitted line and band on the log scale at natural ``xs``: (fit, low, high).
+
+    Notes
+    -----
+    var = s_r^2/n + (X0 - mean_x)^2 var(b) (+ s_r^2 for a prediction band),
+    bounds at the t quantile on ``fit.df``; see :func:`scaling.predict.log_interval`
+    (exact for OLS; Warton et al. 2006, Biol. Rev. 81:259 for SMA/MA).
+    """
+    from .lines import to_log
+    from .predict import log_interval
+    X0 = to_log(xs, fit.log_base)
+    fitted, _se, lo, hi = log_interval(
+        X0, intercept=fit.intercept, slope=fit.slope, slope_se=fit.slope_se,
+        resid_sd=fit.resid_sd, n=float(fit.n),
+        mean_x=float(np.asarray(fit.moments.mean_x)), df=float(fit.df),
+        confidence=fit.confidence, interval=interval)
+    return fitted, lo, hi
+
+
+def _unlog(values, base):
+    return np.power(base, values)
+
+
+def _fit_xrange(fit, result):
+    if fit.x_range is not None:
+        return fit.x_range
+    x = result.data.points["x"].to_numpy()
+    return float(x.min()), float(x.max())
+
+
+def _exponent_label(value: float) -> str:
+    """A hypothesised exponent as a small fraction where it is one (0.75 -> 3/4)."""
+    frac = Fraction(value).limit_denominator(12)
+    if frac.denominator > 1 and abs(float(frac) - value) < 5e-4:
+        return f"{frac.numerator}/{frac.denominator}"
+    return f"{value:g}"
+
+
+def equation_text(fit, *, digits: int = 3) -> str:
+    """The fitted line in natural units: ``y = a·x^b`` with b's interval (mathtext)."""
+    a = fit.a
+    pct = f"{100 * fit.confidence:g}%"
+    lo, hi = fit.slope_ci.low, fit.slope_ci.high
+    ci = (f"{pct} CI {lo:.{digits}f}–{hi:.{digits}f}" if np.isfinite(lo) and np.isfinite(hi)
+          else f"{pct} CI unbounded")
+    a_text = _plain_number(a, digits) if 1e-3 <= abs(a) < 1e6 else \
+        f"{a / 10 ** math.floor(math.log10(a)):.{digits - 1}f}" \
+        f"\\times10^{{{math.floor(math.log10(a))}}}"
+    a_text = a_text.replace(THIN, r"\,")
+    return (f"{fit.method.upper()}: $y = {a_text}\\,x^{{{fit.slope:.{digits}f}}}$ "
+            f"({ci})")
+
+
+# --------------------------------------------------------------------------
+# scaling plot
+
+
+@_styled
+def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
+                 group_lines: str | bool | None = "auto", band: bool = True,
+                 equation: bool = True, means: bool = True, legend: bool = True,
+                 size: str = "single"):
+    """Data on log-log axes in natural units, with fitted lines and bands.
 
     Parameters
     ----------
     result : RunResult
-    methods : sequence of str, optional
-        Methods to draw; defaults to the run's methods.
     ax : matplotlib Axes, optional
+        Draw here; by default a new Figure of width ``size`` is made.
+    methods : sequence of str, optional
+        Methods whose ``scope`` lines are drawn; defaults to the run's methods.
+    scope : {"pooled", "group_means"}
+        Which fit's lines carry the band and the equation.
+    group_lines : "auto", method name, or False
+        Per-group lines (thin, in the group colour, no band) for one method;
+        "auto" draws them for SMA (else the first method) when there are groups.
+    band : bool
+        Shade the confidence band of each line.
+    equation : bool
+        Write y = a·x^b with the interval of b in the emptiest corner.
+    means : bool
+        Draw group means (larger symbols, ± 1 SE bars back-transformed).
+    legend : bool
+    size : {"single", "double"}
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+
+    Notes
+    -----
+    Bands: var(fitted at X0) = s_r^2/n + (X0 - mean_x)^2 var(b), t quantile on
+    n - 2 df (exact for OLS; Warton et al. 2006, Biol. Rev. 81:259 for SMA
+    and MA).  Lines and bands span the fitted range of x only.
+    """
+    own = ax is None
+    if own:
+        ax = _new_figure(size, 0.92).add_subplot()
+    pts = result.data.points
+    base = _base(result)
+    methods = _methods(result, methods)
+    groups = _groups(result)
+    handles: list = []
+    gm = None
+    xs_all, ys_all = [pts["x"].to_numpy()], [pts["y"].to_numpy()]
+
+    # data
+    if groups:
+        gm = _group_means_table(result)
+        for i, g in enumerate(groups):
+            colour, marker = _group_style(i)
+            sel = pts[pts["group"].astype(str) == g]
+            ax.scatter(sel["x"], sel["y"], s=12, marker=marker, facecolor=colour,
+                       edgecolor="white", linewidth=0.3, alpha=0.75, zorder=2)
+            n = len(sel)
+            handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
+                                  markeredgecolor="white", markeredgewidth=0.3,
+                                  markersize=4.5, label=f"{g} (n = {n})"))
+        if means and gm is not None:
+            for i, g in enumerate(groups):
+                row = gm[gm["group"].astype(str) == g]
+                if not len(row):
+                    continue
+                row = row.iloc[0]
+                colour, marker = _group_style(i)
+                mx, my = _unlog(row["mean_log_x"], base), _unlog(row["mean_log_y"], base)
+                sx = row["se_log_x"] if np.isfinite(row["se_log_x"]) else 0.0
+                sy = row["se_log_y"] if np.isfinite(row["se_log_y"]) else 0.0
+                xerr = [[mx - _unlog(row["mean_log_x"] - sx, base)],
+                        [_unlog(row["mean_log_x"] + sx, base) - mx]]
+                yerr = [[my - _unlog(row["mean_log_y"] - sy, base)],
+                        [_unlog(row["mean_log_y"] + sy, base) - my]]
+                ax.errorbar([mx], [my], xerr=xerr, yerr=yerr, fmt="none", ecolor="black",
+                            elinewidth=0.7, capsize=1.5, capthick=0.6, zorder=5)
+                ax.scatter([mx], [my], s=42, marker=marker, facecolor=colour,
+                           edgecolor="black", linewidth=0.8, zorder=6)
+            handles.append(Line2D([], [], ls="none", marker="o", markerfacecolor="white",
+                                  markeredgecolor="black", markersize=6,
+                                  label="group mean ± 1 SE"))
+    else:
+        ax.scatter(pts["x"], pts["y"], s=12, marker="o", facecolor=PALETTE[0],
+                   edgecolor="white", linewidth=0.3, alpha=0.8, zorder=2)
+        handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
+                              markersize=4.5, label=f"data (n = {len(pts)})"))
+
+    # per-group lines
+    if len(groups) > 1 and group_lines:
+        gmethod = _primary_method(methods) if group_lines == "auto" else str(group_lines)
+        drawn = False
+        for i, g in enumerate(groups):
+            fit = result.line_fits.get(("group", g, gmethod))
+            if fit is None:
+                continue
+            lo, hi = _fit_xrange(fit, result)
+            xs = np.geomspace(lo, hi, 40)
+            fitted, _, _ = _fit_band(fit, xs)
+            ax.plot(xs, _unlog(fitted, base), color=_group_style(i)[0], lw=0.9,
+                    ls=METHOD_DASHES.get(gmethod, "-"), zorder=3)
+            drawn = True
+        if drawn:
+            handles.append(Line2D([], [], color="#888888", lw=0.9,
+                                  ls=METHOD_DASHES.get(gmethod, "-"),
+                                  label=f"{gmethod.upper()} line per group"))
+
+    # main lines with bands
+    eq_lines = []
+    for method in methods:
+        fit = result.line_fits.get((scope, "", method))
+        if fit is None:
+            continue
+        lo, hi = _fit_xrange(fit, result)
+        if scope == "group_means" and gm is not None:
+            mxs = _unlog(gm["mean_log_x"].to_numpy(dtype=float), base)
+            lo, hi = float(np.min(mxs)), float(np.max(mxs))
+        xs = np.geomspace(lo, hi, 80)
+        fitted, blo, bhi = _fit_band(fit, xs)
+        shade = METHOD_SHADES.get(method, "#333333")
+        if band:
+            ax.fill_between(xs, _unlog(blo, base), _unlog(bhi, base), color=shade,
+                            alpha=0.14, linewidth=0, zorder=1)
+        ax.plot(xs, _unlog(fitted, base), color=shade, lw=1.3,
+                ls=METHOD_DASHES.get(method, "-"), zorder=4)
+        xs_all.append(xs)
+        ys_all.append(_unlog(fitted, base))
+        where = "group means" if scope == "group_means" else (
+            "all groups" if groups else "")
+        label = f"{method.upper()}" + (f" ({where})" if where else "")
+        handles.append(Line2D([], [], color=shade, lw=1.3, ls=METHOD_DASHES.get(method, "-"),
+                              label=label))
+        eq_lines.append(equation_text(fit))
+    if band and eq_lines:
+        handles.append(matplotlib.patches.Patch(color="#4d4d4d", alpha=0.25, lw=0,
+                                                label=f"{100 * result.config.model.confidence:g}% "
+                                                      "confidence band"))
+
+    natural_log_axis(ax)
+    ax.margins(0.05)
+    ax.autoscale_view()
+    natural_log_axis(ax)   # again: locators depend on the final span
+    ax.set_xlabel(_label(result, "x"))
+    ax.set_ylabel(_label(result, "y"))
+
+    if legend and handles:
+        if own:
+            ncol = 3 if size == "double" else 2
+            _figure_legend(ax.figure, handles, ncol, handlelength=2.6, columnspacing=1.2,
+                           handletextpad=0.5)
+        else:
+            ax.legend(handles=handles, loc="best", handlelength=2.6)
+    if equation and eq_lines:
+        text = ax.text(0.02, 0.98, "\n".join(eq_lines), transform=ax.transAxes,
+                       ha="left", va="top", fontsize=STYLE["font.size"] - 0.5,
+                       linespacing=1.35, zorder=8,
+                       bbox=dict(boxstyle="round,pad=0.25", facecolor="white",
+                                 edgecolor="none", alpha=0.85))
+        text.set_gid("equation")
+        _place_in_emptiest_corner(ax, text, np.concatenate(xs_all), np.concatenate(ys_all))
+    return ax
+
+
+_CORNERS = {"upper left": (0.02, 0.98, "left", "top"),
+            "lower right": (0.98, 0.02, "right", "bottom"),
+            "upper right": (0.98, 0.98, "right", "top"),
+            "lower left": (0.02, 0.02, "left", "bottom")}
+
+
+def _covered(ax, text, xs, ys) -> int:
+    """Number of data points / line samples under ``text`` once laid out."""
+    ax.figure.draw_without_rendering()
+    box = text.get_window_extent().padded(2.0)
+    disp = ax.transData.transform(np.column_stack([xs, ys]))
+    inside = ((disp[:, 0] >= box.x0) & (disp[:, 0] <= box.x1)
+              & (disp[:, 1] >= box.y0) & (disp[:, 1] <= box.y1))
+    return int(np.sum(inside))
+
+
+def _place_in_emptiest_corner(ax, text, xs, ys) -> str:
+    """Move ``text`` to the axes corner that covers fewest points (after layout).
+
+    Tries the corners in the order of :data:`_CORNERS`, stops at the first
+    that covers nothing; if every corner covers something, raises the top of
+    the y-axis until the upper-left corner is clear.  Returns the corner.
+    """
+    counts = {}
+    for name, (x, y, ha, va) in _CORNERS.items():
+        text.set_position((x, y))
+        text.set_ha(ha)
+        text.set_va(va)
+        counts[name] = _covered(ax, text, xs, ys)
+        if counts[name] == 0:
+            return name
+    name = "upper left"
+    x, y, ha, va = _CORNERS[name]
+    text.set_position((x, y))
+    text.set_ha(ha)
+    text.set_va(va)
+    log_scale = ax.get_yscale() == "log"
+    fwd = (np.log10 if log_scale else (lambda v: v))
+    inv = ((lambda v: 10 ** v) if log_scale else (lambda v: v))
+    for _ in range(6):
+        ax.figure.draw_without_rendering()
+        box = text.get_window_extent().padded(2.0)
+        axbox = ax.get_window_extent()
+        frac = (box.y0 - axbox.y0) / axbox.height      # text bottom, axes fraction
+        lo, hi = (fwd(v) for v in ax.get_ylim())
+        top = fwd(float(np.max(ys)))
+        if frac <= 0.05:
+            break
+        new_hi = lo + (top - lo) / (frac - 0.02)
+        ax.set_ylim(inv(lo), inv(max(new_hi, hi)))
+        if log_scale:
+            natural_log_axis(ax, "y")
+        if _covered(ax, text, xs, ys) == 0:
+            break
+    return name
+
+
+# --------------------------------------------------------------------------
+# natural-scale plot
+
+
+def _smearing_data(result):
+    pts = result.data.points
+    return pts["x"].to_numpy(dtype=float), pts["y"].to_numpy(dtype=float)
+
+
+@_styled
+def plot_natural(result, *, ax=None, methods=None, correction: str | None = None,
+                 interval: str = "prediction", size: str = "single"):
+    """Back-transformed pooled curves with their prediction bands, on arithmetic axes.
+
+    Parameters
+    ----------
+    result : RunResult
+    ax : Axes, optional
+    methods : sequence of str, optional
+    correction : {"smearing", "parametric", "ratio", "none"}, optional
+        Back-transformation correction; defaults to ``prediction.correction``
+        of the config.
+    interval : {"prediction", "confidence"}
+    size : {"single", "double"}
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+
+    Notes
+    -----
+    Curves and bands from :func:`scaling.predict.predict` (corrected mean,
+    prediction bounds as quantiles; Duan 1983 for smearing), over the fitted
+    range of x only.
+    """
+    from .predict import predict
+    own = ax is None
+    if own:
+        ax = _new_figure(size, 0.85).add_subplot()
+    pts = result.data.points
+    methods = _methods(result, methods)
+    groups = _groups(result)
+    correction = correction or result.config.prediction.correction
+    handles = []
+    if groups:
+        for i, g in enumerate(groups):
+            colour, marker = _group_style(i)
+            sel = pts[pts["group"].astype(str) == g]
+            ax.scatter(sel["x"], sel["y"], s=10, marker=marker, facecolor=colour,
+                       edgecolor="white", linewidth=0.3, alpha=0.75, zorder=2)
+            handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
+                                  markersize=4, label=g))
+    else:
+        ax.scatter(pts["x"], pts["y"], s=10, facecolor=PALETTE[0], edgecolor="white",
+                   linewidth=0.3, alpha=0.8, zorder=2)
+        handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
+                              markersize=4, label="data"))
+    for method in methods:
+        fit = result.line_fits.get(("pooled", "", method))
+        if fit is None:
+            continue
+        lo, hi = _fit_xrange(fit, result)
+        xs = np.linspace(lo, hi, 120)
+        xs[0], xs[-1] = lo, hi
+        pred = predict(fit, xs, correction=correction, interval=interval,
+                       data=_smearing_data(result) if correction in ("smearing", "ratio")
+                       else None)
+        shade = METHOD_SHADES.get(method, "#333333")
+        ax.fill_between(xs, pred.y_low, pred.y_high, color=shade, alpha=0.10, lw=0, zorder=1)
+        ax.plot(xs, pred.y, color=shade, lw=1.2, ls=METHOD_DASHES.get(method, "-"), zorder=4)
+        handles.append(Line2D([], [], color=shade, lw=1.2, ls=METHOD_DASHES.get(method, "-"),
+                              label=method.upper()))
+    if len(handles) > len(groups):
+        what = "mean" if correction != "none" else "median"
+        handles.append(matplotlib.patches.Patch(
+            color="#4d4d4d", alpha=0.2, lw=0,
+            label=f"{100 * result.config.model.confidence:g}% {interval} band"))
+        ax.set_title(f"Back-transformed fits ({what} of y; {correction} correction)",
+                     loc="left")
+    ax.set_xlim(left=0)
+    ax.set_ylim(bottom=0)
+    for axis in (ax.xaxis, ax.yaxis):
+        axis.set_major_locator(MaxNLocator(5, steps=[1, 2, 2.5, 5, 10], min_n_ticks=3))
+        axis.set_major_formatter(FuncFormatter(_arith_formatter))
+    ax.set_xlabel(_label(result, "x"))
+    ax.set_ylabel(_label(result, "y"))
+    if own:
+        _figure_legend(ax.figure, handles, 3 if len(handles) > 4 else 2, handlelength=2.6)
+    else:
+        ax.legend(handles=handles, loc="best")
+    return ax
+
+
+# --------------------------------------------------------------------------
+# exponent plot
+
+
+def _exponent_rows(result, methods) -> list:
+    """(label, scope, group) for every fit scope present, pooled first."""
+    rows = []
+    keys = result.line_fits.keys()
+    if any(k[0] == "pooled" for k in keys):
+        rows.append(("Pooled" if not _groups(result) else "Pooled (all groups)", "pooled", ""))
+    for g in _groups(result):
+        if any(k[0] == "group" and k[1] == g for k in keys):
+            rows.append((g, "group", g))
+    if any(k[0] == "group_means" for k in keys):
+        rows.append(("Through group means", "group_means", ""))
+    return rows
+
+
+@_styled
+def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
+    """Every fitted exponent with its interval, and the hypothesised exponents.
+
+    One row per fit scope (pooled, each group, the line through the group
+    means); within a row one dot-and-whisker per method.  Vertical lines mark
+    each hypothesised exponent of ``config.exponents``, labelled on top.
 
     Returns
     -------
     matplotlib.axes.Axes
     """
-    if ax is None:
-        ax = _new_axes(size)
-    pts = result.data.points
-    methods = list(methods or result.config.model.methods)
-    base = result.line_fits and next(iter(result.line_fits.values())).log_base
-    groups = sorted(pts["group"].unique()) if "group" in pts.columns else [None]
-    for i, g in enumerate(groups):
-        sel = pts if g is None else pts[pts["group"] == g]
-        ax.scatter(sel["x"], sel["y"], s=14, marker=MARKERS[i % len(MARKERS)],
-                   facecolor=PALETTE[i % len(PALETTE)] + "99",
-                   edgecolor=PALETTE[i % len(PALETTE)], linewidth=0.5,
-                   label=str(g) if g is not None else "data", zorder=2)
-    for method in methods:
-        fit = result.line_fits.get(("pooled", "", method))
-        if fit is None or fit.x_range is None:
-            continue
-        xs = np.geomspace(*fit.x_range, 50)
-        ys = np.power(base, fit.intercept + fit.slope * np.log(xs) / math.log(base))
-        ax.plot(xs, ys, METHOD_STYLES.get(method, "-"), color="#222222", linewidth=1.2,
-                label=f"{method.upper()}: b = {fit.slope:.3f}", zorder=3)
-    natural_log_axis(ax)
-    ax.set_xlabel(_label(result, "x"))
-    ax.set_ylabel(_label(result, "y"))
-    ax.legend(fontsize=6, frameon=False, loc="upper left")
+    methods = _methods(result, methods)
+    rows = _exponent_rows(result, methods)
+    own = ax is None
+    if own:
+        width = SIZES.get(size, SIZES["single"])
+        height = (0.75 + 0.22 * max(len(rows), 1) * max(1.0, len(methods) / 3)) + 0.45
+        ax = Figure(figsize=(width, max(height, 1.8)), layout="constrained").add_subplot()
+    k = len(methods)
+    offsets = (np.arange(k) - (k - 1) / 2) * (0.6 / max(k, 1))
+    handles = []
+    lows, highs = [], []
+    for j, method in enumerate(methods):
+        shade = METHOD_SHADES.get(method, "#333333")
+        marker = METHOD_MARKERS.get(method, MARKERS[j % len(MARKERS)])
+        any_drawn = False
+        for i, (_label_text, scope, group) in enumerate(rows):
+            fit = result.line_fits.get((scope, group, method))
+            if fit is None:
+                continue
+            y = i + offsets[j]
+            lo, hi = fit.slope_ci.low, fit.slope_ci.high
+            if np.isfinite(lo) and np.isfinite(hi):
+                ax.plot([lo, hi], [y, y], color=shade, lw=1.0, solid_capstyle="butt", zorder=2)
+                lows.append(lo)
+                highs.append(hi)
+            else:
+                ax.annotate("CI unbounded", (fit.slope, y), xytext=(6, 0),
+                            textcoords="offset points", va="center", fontsize=6,
+                            color=shade)
+            ax.plot([fit.slope], [y], ls="none", marker=marker, markersize=3.6,
+                    markerfacecolor=shade, markeredgecolor="white",
+                    markeredgewidth=0.4, zorder=3)
+            lows.append(fit.slope)
+            highs.append(fit.slope)
+            any_drawn = True
+        if any_drawn:
+            handles.append(Line2D([], [], color=shade, lw=1.0, marker=marker, markersize=3.6,
+                                  markeredgecolor="white", markeredgewidth=0.4,
+                                  label=method.upper()))
+    # reference exponents
+    refs = list(result.config.exponents.items())
+    values = [v for _, v in refs]
+    if lows:
+        lo_all = min(lows + values)
+        hi_all = max(highs + values)
+        pad = 0.08 * (hi_all - lo_all or 0.1)
+        ax.set_xlim(lo_all - pad, hi_all + pad)
+    ax.set_ylim(len(rows) - 0.5, -0.5 - (0.55 if refs else 0))   # first row on top
+    span = np.diff(ax.get_xlim())[0]
+    placed: list = []
+    for name, value in sorted(refs, key=lambda kv: kv[1]):
+        ax.axvline(value, color="#9a9a9a", lw=0.7, ls=(0, (3, 2)), zorder=0)
+        level = 0
+        while any(abs(value - v) < 0.12 * span and lvl == level for v, lvl in placed):
+            level += 1
+        placed.append((value, level))
+        text = _exponent_label(value)
+        ax.text(value, -0.5 - 0.05 - 0.25 * level, text, ha="center", va="bottom",
+                fontsize=6.5, color="#4d4d4d", zorder=4,
+                bbox=dict(boxstyle="square,pad=0.1", facecolor="white", edgecolor="none"))
+    ax.set_yticks(range(len(rows)))
+    ax.set_yticklabels([textwrap.fill(r[0], 22) for r in rows])
+    ax.tick_params(axis="y", length=0)
+    ax.spines["left"].set_visible(False)
+    pct = f"{100 * result.config.model.confidence:g}%"
+    ax.set_xlabel(f"Exponent b with {pct} CI")
+    ax.xaxis.set_major_locator(MaxNLocator(6))
+    for i in range(len(rows)):
+        if i % 2 == 1:
+            ax.axhspan(i - 0.5, i + 0.5, color="#f2f2f2", lw=0, zorder=-1)
+    if handles:
+        if own:
+            _figure_legend(ax.figure, handles, len(handles))
+        else:
+            ax.legend(handles=handles, loc="best")
     return ax
 
 
+# --------------------------------------------------------------------------
+# residual panels
+
+
+def _residuals(fit, X: np.ndarray, Y: np.ndarray) -> tuple:
+    """(position along the line, residual) on the log scale for one fit.
+
+    OLS: fitted value a + bX against the vertical residual Y - a - bX.
+    SMA: Y + bX against Y - bX - a; MA: X + bY against Y - bX - a (the
+    residual and the axis score are uncorrelated for these lines; Warton,
+    Wright, Falster & Westoby 2006, Biol. Rev. 81:259, section on
+    checking assumptions).
+    """
+    b, a = fit.slope, fit.intercept
+    resid = Y - a - b * X
+    if fit.method == "sma":
+        return Y + b * X, resid
+    if fit.method == "ma":
+        return X + b * Y, resid
+    return a + b * X, resid
+
+
+_FITTED_LABEL = {"ols": "fitted log y", "sma": "axis score log y + b log x",
+                 "ma": "axis score log x + b log y"}
+
+
+def _normal_quantiles(n: int) -> np.ndarray:
+    """Blom (1958) plotting positions (i - 3/8)/(n + 1/4) as standard normal quantiles."""
+    i = np.arange(1, n + 1)
+    return stats.norm.ppf((i - 0.375) / (n + 0.25))
+
+
+@_styled
+def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "fitted",
+                   scope: str = "pooled", size: str = "single"):
+    """One residual panel for one fit: against fitted position, or normal quantiles.
+
+    Parameters
+    ----------
+    result : RunResult
+    ax : Axes, optional
+    method : str, optional
+        Defaults to the run's first method.
+    kind : {"fitted", "normal"}
+        ``fitted``: residuals against position along the line;
+        ``normal``: ordered residuals against normal quantiles, with the line
+        through the quartiles.
+    scope : {"pooled"}
+        Residuals are drawn for the pooled fit (the one fitted to the points).
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+    """
+    method = method or result.config.model.methods[0]
+    if ax is None:
+        ax = _new_figure(size, 0.8).add_subplot()
+    fit = result.line_fits.get((scope, "", method))
+    pts = result.data.points
+    if fit is None:
+        ax.text(0.5, 0.5, f"{method.upper()}: no estimable fit", ha="center",
+                va="center", transform=ax.transAxes)
+        return ax
+    from .lines import base_label
+    X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
+    pos, resid = _residuals(fit, X, Y)
+    groups = _groups(result)
+    codes = (np.searchsorted(groups, pts["group"].astype(str).to_numpy())
+             if groups else np.zeros(len(pts), dtype=int))
+    blabel = base_label(fit.log_base)
+    if kind == "normal":
+        order = np.argsort(resid)
+        q = _normal_quantiles(resid.size)
+        sorted_codes = codes[order]
+        for c in np.unique(sorted_codes):
+            colour, marker = _group_style(int(c))
+            sel = sorted_codes == c
+            ax.scatter(q[sel], resid[order][sel], s=9, marker=marker, facecolor=colour,
+                       edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
+        if resid.size >= 4:
+            q1, q3 = np.percentile(resid, [25, 75])
+            z1, z3 = stats.norm.ppf([0.25, 0.75])
+            slope = (q3 - q1) / (z3 - z1)
+            zz = np.array([q.min(), q.max()])
+            ax.plot(zz, q1 + slope * (zz - z1), color="#4d4d4d", lw=0.8, zorder=1)
+        ax.set_xlabel("normal quantile")
+        ax.set_ylabel(f"residual (log{blabel})")
+        ax.set_title(f"{method.upper()}: normal quantiles", loc="left")
+    else:
+        for c in np.unique(codes):
+            colour, marker = _group_style(int(c))
+            sel = codes == c
+            ax.scatter(pos[sel], resid[sel], s=9, marker=marker, facecolor=colour,
+                       edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
+        ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
+        ax.set_xlabel(_FITTED_LABEL.get(method, "fitted").replace("log", f"log{blabel}"))
+        ax.set_ylabel(f"residual (log{blabel})")
+        ax.set_title(f"{method.upper()}: residuals", loc="left")
+    lim = float(np.max(np.abs(resid))) * 1.15 if resid.size else 1.0
+    ax.set_ylim(-lim, lim)
+    ax.xaxis.set_major_locator(MaxNLocator(5))
+    ax.yaxis.set_major_locator(MaxNLocator(5, symmetric=True))
+    return ax
+
+
+# --------------------------------------------------------------------------
+# whole figures and saving
+
+
+@_styled
+def make_scaling(result, *, size: str = "single", **kwargs) -> Figure:
+    """The scaling plot as a Figure (see :func:`plot_scaling`)."""
+    return plot_scaling(result, size=size, **kwargs).figure
+
+
+@_styled
+def make_natural(result, *, size: str = "single", **kwargs) -> Figure:
+    """The natural-scale plot as a Figure (see :func:`plot_natural`)."""
+    return plot_natural(result, size=size, **kwargs).figure
+
+
+@_styled
+def make_exponents(result, *, size: str = "single", **kwargs) -> Figure:
+    """The exponent plot as a Figure (see :func:`plot_exponents`)."""
+    return plot_exponents(result, size=size, **kwargs).figure
+
+
+@_styled
+def make_residuals(result, *, size: str = "single", methods=None) -> Figure:
+    """Residual panels: one row per method, residuals vs position and normal quantiles."""
+    methods = _methods(result, methods)
+    width = SIZES.get(size, SIZES["single"])
+    row_h = width * (0.42 if size == "single" else 0.26)
+    fig = Figure(figsize=(width, row_h * len(methods) + 0.35), layout="constrained")
+    axes = fig.subplots(len(methods), 2, squeeze=False)
+    for i, method in enumerate(methods):
+        plot_residuals(result, ax=axes[i, 0], method=method, kind="fitted")
+        plot_residuals(result, ax=axes[i, 1], method=method, kind="normal")
+    groups = _groups(result)
+    if groups:
+        handles = [Line2D([], [], ls="none", marker=_group_style(i)[1],
+                          color=_group_style(i)[0], markersize=4, label=g)
+                   for i, g in enumerate(groups)]
+        _figure_legend(fig, handles, min(len(groups), 3 if size == "single" else 6))
+    return fig
+
+
+_MAKERS = {"scaling": make_scaling, "natural": make_natural,
+           "exponents": make_exponents, "residuals": make_residuals}
+
+
+def make_figure(result, kind: str, *, size: str | None = None) -> Figure:
+    """One figure of ``kind`` (``scaling``, ``natural``, ``exponents``, ``residuals``)."""
+    from .errors import ConfigError
+    if kind not in _MAKERS:
+        raise ConfigError(f"figure kind must be one of {', '.join(KINDS)}, not {kind!r}")
+    return _MAKERS[kind](result, size=size or result.config.figures.size)
+
+
+def _save(fig: Figure, target, fmt: str, dpi: int) -> None:
+    # No creation dates in the files, so reruns give identical figures.
+    meta = {"png": {"Software": None}, "pdf": {"CreationDate": None, "Producer": None},
+            "svg": {"Date": None}}.get(fmt, {})
+    with matplotlib.rc_context(STYLE):
+        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+
+
+def figure_png(result, kind: str, *, dpi: int = 150, size: str | None = None) -> bytes:
+    """PNG bytes of one figure (used by the report when no PNG was written)."""
+    import io
+    fig = make_figure(result, kind, size=size)
+    buf = io.BytesIO()
+    _save(fig, buf, "png", dpi)
+    return buf.getvalue()
+
+
 def write_figures(result, folder: Path) -> list[Path]:
-    """Save the run's figures under ``folder/figures``; return relative paths."""
+    """Save the run's figures under ``folder/figures``; return paths relative to ``folder``.
+
+    ``config.figures.kinds`` selects the figures, ``.formats`` the files
+    (``png`` at ``.dpi``; ``pdf`` and ``svg`` as vector with text kept as
+    text), ``.size`` the width.  Files are ``figures/<kind>.<format>``.
+    """
     cfg = result.config.figures
-    out = []
-    (folder / "figures").mkdir(exist_ok=True)
-    with matplotlib.rc_context({"font.size": 7, "axes.titlesize": 7,
-                                "axes.labelsize": 7, "pdf.fonttype": 42,
-                                "svg.fonttype": "none"}):
-        ax = plot_scaling(result, size=cfg.size)
-        for fmt in cfg.formats:
-            rel = Path("figures") / f"scaling.{fmt}"
-            ax.figure.savefig(folder / rel, dpi=cfg.dpi)
+    folder = Path(folder)
+    (folder / "figures").mkdir(parents=True, exist_ok=True)
+    out: list[Path] = []
+    for kind in cfg.kinds:
+        fig = make_figure(result, kind, size=cfg.size)
+        for i, fmt in enumerate(cfg.formats):
+            rel = Path("figures") / f"{kind}.{fmt}"
+            _save(fig, folder / rel, fmt, cfg.dpi)
             out.append(rel)
+            if i == 0:
+                # Same size in every format: keep the layout found for the first.
+                fig.set_layout_engine("none")
     return out

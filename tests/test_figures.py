@@ -1,0 +1,252 @@
+"""Figures: every kind and format, natural-unit ticks, equation, bands, residuals."""
+from __future__ import annotations
+
+import io
+import math
+import re
+import warnings
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+from numpy.testing import assert_allclose
+from PIL import Image
+
+from scaling import figures
+from scaling.errors import ConfigError
+from scaling.figures import (format_natural, make_figure, plot_exponents, plot_natural,
+                             plot_residuals, plot_scaling, write_figures)
+
+from helpers_figures import demo, simulated, with_figures
+
+THIN = "\u2009"
+
+
+@pytest.fixture(scope="module")
+def grouped():
+    return demo(grouped=True)
+
+
+@pytest.fixture(scope="module")
+def pooled_only():
+    return demo(grouped=False)
+
+
+def _visible_major_labels(ax, axis: str) -> list:
+    ax.figure.draw_without_rendering()
+    lo, hi = sorted(getattr(ax, f"get_{axis}lim")())
+    ticks = getattr(ax, f"get_{axis}ticks")()
+    labels = getattr(ax, f"get_{axis}ticklabels")()
+    return [lab.get_text() for t, lab in zip(ticks, labels) if lo <= t <= hi]
+
+
+class TestFormatNatural:
+    def test_powers_of_ten_written_out_with_thin_space_groups(self):
+        # Expected: SI digit grouping in threes by a thin space (BIPM SI Brochure,
+        # 9th ed. 2019, sec. 5.4.4); exact strings.
+        assert format_natural(0.01) == "0.01"
+        assert format_natural(1) == "1"
+        assert format_natural(10) == "10"
+        assert format_natural(1000) == f"1{THIN}000"
+        assert format_natural(100000) == f"100{THIN}000"
+        assert format_natural(2) == "2"
+
+    def test_outside_the_written_range_uses_powers(self):
+        # exact: 10^6 and 10^-4 are outside [0.001, 100 000]
+        assert format_natural(1e6) == "$10^{6}$"
+        assert format_natural(1e-4) == "$10^{-4}$"
+        assert format_natural(0) == ""
+
+
+class TestWriteFigures:
+    @pytest.mark.parametrize("grouped_run", [True, False], ids=["groups", "no-groups"])
+    def test_every_kind_in_every_format(self, grouped_run, grouped, pooled_only, tmp_path):
+        base = grouped if grouped_run else pooled_only
+        result = with_figures(base, formats=("png", "pdf", "svg"), dpi=72)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            paths = write_figures(result, tmp_path)
+        expected = {f"figures/{k}.{f}" for k in figures.KINDS for f in ("png", "pdf", "svg")}
+        assert {p.as_posix() for p in paths} == expected
+        for kind in figures.KINDS:
+            assert (tmp_path / f"figures/{kind}.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+            pdf = (tmp_path / f"figures/{kind}.pdf").read_bytes()
+            assert pdf[:5] == b"%PDF-"
+            # pdf.fonttype 42: TrueType fonts embedded, text kept as text
+            assert b"/FontFile2" in pdf
+            svg = (tmp_path / f"figures/{kind}.svg").read_text(encoding="utf-8")
+            assert "<text" in svg          # svg.fonttype none: text is text
+
+    def test_png_width_and_dpi_follow_the_config(self, pooled_only, tmp_path):
+        result = with_figures(pooled_only, formats=("png",), kinds=("scaling",), dpi=120,
+                              size="double")
+        write_figures(result, tmp_path)
+        with Image.open(tmp_path / "figures/scaling.png") as im:
+            # exact law: 180 mm = 180/25.4 in, times dpi pixels
+            assert abs(im.size[0] - 180 / 25.4 * 120) <= 1
+            assert_allclose(im.info["dpi"], (120, 120), rtol=1e-3)  # exact: config dpi
+
+    def test_kinds_select_figures(self, pooled_only, tmp_path):
+        result = with_figures(pooled_only, formats=("svg",), kinds=("exponents",))
+        assert [p.as_posix() for p in write_figures(result, tmp_path)] == \
+            ["figures/exponents.svg"]
+
+
+class TestMakeFigure:
+    def test_unknown_kind(self, pooled_only):
+        with pytest.raises(ConfigError, match="figure kind must be one of"):
+            make_figure(pooled_only, "pie")
+
+
+class TestPlotScaling:
+    def test_major_ticks_are_natural_powers_of_ten(self, grouped):
+        ax = plot_scaling(grouped)
+        for axis in ("x", "y"):
+            lo, hi = sorted(getattr(ax, f"get_{axis}lim")())
+            # exact: the powers of ten inside the axis limits, written out
+            expected = [format_natural(10.0 ** k)
+                        for k in range(math.ceil(math.log10(lo)), math.floor(math.log10(hi)) + 1)]
+            assert _visible_major_labels(ax, axis) == expected
+        assert f"1{THIN}000" in _visible_major_labels(ax, "x")
+        assert "10" in _visible_major_labels(ax, "y")
+
+    def test_equation_matches_the_fits(self, grouped):
+        ax = plot_scaling(grouped)
+        (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
+        pattern = re.compile(r"(OLS|SMA|MA): \$y = ([\d.]+)\\,x\^\{([\d.]+)\}\$ "
+                             r"\(95% CI ([\d.]+)–([\d.]+)\)")
+        found = pattern.findall(text.get_text())
+        assert [f[0] for f in found] == ["OLS", "SMA", "MA"]
+        for method, a, b, lo, hi in found:
+            fit = grouped.fit(method.lower())
+            # expected: the fit itself (a = 10^intercept), rounded to the digits shown
+            assert_allclose(float(a), fit.a, rtol=5e-3)
+            assert_allclose([float(b), float(lo), float(hi)],
+                            [fit.slope, fit.slope_ci.low, fit.slope_ci.high], rtol=0, atol=5e-4)
+
+    def test_equation_covers_no_data(self, grouped):
+        ax = plot_scaling(grouped)
+        (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
+        ax.figure.draw_without_rendering()
+        box = text.get_window_extent()
+        pts = grouped.data.points
+        disp = ax.transData.transform(np.column_stack([pts["x"], pts["y"]]))
+        inside = ((disp[:, 0] >= box.x0) & (disp[:, 0] <= box.x1)
+                  & (disp[:, 1] >= box.y0) & (disp[:, 1] <= box.y1))
+        assert not inside.any()     # exact: no data point under the text
+
+    def test_lines_span_the_fitted_range_only(self, pooled_only):
+        ax = plot_scaling(pooled_only, band=False)
+        fit = pooled_only.fit("ols")
+        lines = [ln for ln in ax.lines if len(ln.get_xdata()) > 2]
+        assert len(lines) == 3
+        for ln in lines:
+            # exact: the fitted range is the data range of x
+            assert_allclose([min(ln.get_xdata()), max(ln.get_xdata())], fit.x_range, rtol=1e-12)
+        ols = lines[0]
+        # exact law: y = a x^b on the line
+        assert_allclose(ols.get_ydata(), fit.a * np.asarray(ols.get_xdata()) ** fit.slope,
+                        rtol=1e-10)
+
+    def test_ols_band_matches_statsmodels(self, pooled_only):
+        fit = pooled_only.fit("ols")
+        pts = pooled_only.data.points
+        xs = np.geomspace(*fit.x_range, 7)
+        _, lo, hi = figures._fit_band(fit, xs)
+        model = sm.OLS(pts["log_y"].to_numpy(), sm.add_constant(pts["log_x"].to_numpy())).fit()
+        ref = model.get_prediction(sm.add_constant(np.log10(xs))).conf_int(alpha=0.05)
+        # reference library: statsmodels OLS get_prediction, mean confidence interval
+        assert_allclose(np.column_stack([lo, hi]), ref, rtol=1e-9)
+
+    def test_group_means_with_se_bars(self, grouped):
+        ax = plot_scaling(grouped)
+        bars = [c for c in ax.containers if c.__class__.__name__ == "ErrorbarContainer"]
+        pts = grouped.data.points
+        ref = pts.groupby("group")["log_y"].agg(["mean", "sem"])
+        assert len(bars) == len(ref)
+        for bar, (_g, row) in zip(bars, ref.iterrows()):
+            segs = bar.lines[2][1].get_segments()       # the y error bar
+            y_lo, y_hi = segs[0][0][1], segs[0][1][1]
+            # reference: pandas mean and SEM of log y, back-transformed (10^(mean -+ SE))
+            assert_allclose([y_lo, y_hi], [10 ** (row["mean"] - row["sem"]),
+                                           10 ** (row["mean"] + row["sem"])], rtol=1e-9)
+
+    def test_twelve_decades_render_without_warnings(self, tmp_path):
+        result = simulated(tmp_path, groups=["a", "b"], decades=(-6, 6))
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            for kind in figures.KINDS:
+                buf = io.BytesIO()
+                make_figure(result, kind).savefig(buf, format="png", dpi=60)
+            ax = plot_scaling(result)
+            labels = _visible_major_labels(ax, "x")
+        assert labels and all(re.fullmatch(r"\$10\^\{-?\d+\}\$", s) for s in labels)
+        # exact: every label is a power of ten; at least 10^-6 ... 10^6 in view
+        assert "$10^{0}$" in labels
+
+    def test_single_group_renders_without_warnings(self, tmp_path):
+        result = simulated(tmp_path, groups=["only"], decades=(1, 2.2), n=12)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            for kind in figures.KINDS:
+                buf = io.BytesIO()
+                make_figure(result, kind).savefig(buf, format="png", dpi=60)
+            ax = plot_scaling(result)
+        # span ~1.2 decades: majors at 1-2-5 steps, still plain numbers
+        assert all(re.fullmatch(r"[\d\u2009.]+", s) for s in _visible_major_labels(ax, "x"))
+        assert len(_visible_major_labels(ax, "x")) >= 3
+
+    def test_draws_on_a_given_axes(self, pooled_only):
+        from matplotlib.figure import Figure
+        ax = Figure().add_subplot()
+        assert plot_scaling(pooled_only, ax=ax) is ax
+
+
+class TestPlotNatural:
+    def test_uncorrected_curve_is_the_power_law(self, pooled_only):
+        ax = plot_natural(pooled_only, methods=["sma"], correction="none")
+        fit = pooled_only.fit("sma")
+        (line,) = [ln for ln in ax.lines if len(ln.get_xdata()) > 2]
+        x = np.asarray(line.get_xdata())
+        # exact law: median curve y = a x^b
+        assert_allclose(line.get_ydata(), fit.a * x ** fit.slope, rtol=1e-10)
+        assert ax.get_xscale() == "linear"
+
+
+class TestPlotExponents:
+    def test_whiskers_and_reference_lines(self, grouped):
+        ax = plot_exponents(grouped)
+        whiskers = [ln for ln in ax.lines if len(ln.get_xdata()) == 2
+                    and ln.get_ydata()[0] == ln.get_ydata()[1]]
+        expected = sorted((f.slope_ci.low, f.slope_ci.high) for f in grouped.line_fits.values())
+        got = sorted((float(ln.get_xdata()[0]), float(ln.get_xdata()[1])) for ln in whiskers)
+        # expected: the fits' own intervals, one whisker per fit
+        assert_allclose(got, expected, rtol=1e-12)
+        refs = sorted(float(ln.get_xdata()[0]) for ln in ax.lines
+                      if len(ln.get_xdata()) == 2 and ln.get_xdata()[0] == ln.get_xdata()[1])
+        assert_allclose(refs, [2 / 3, 0.75], rtol=1e-12)   # exact: the config's exponents
+        texts = {t.get_text() for t in ax.texts}
+        assert {"2/3", "3/4"} <= texts
+        labels = [t.get_text() for t in ax.get_yticklabels()]
+        assert labels[0].startswith("Pooled") and "Canopy" in labels
+
+
+class TestPlotResiduals:
+    def test_ols_residuals_match_statsmodels(self, grouped):
+        ax = plot_residuals(grouped, method="ols", kind="fitted")
+        pts = grouped.data.points
+        model = sm.OLS(pts["log_y"].to_numpy(), sm.add_constant(pts["log_x"].to_numpy())).fit()
+        got = np.concatenate([c.get_offsets()[:, 1] for c in ax.collections])
+        # reference library: statsmodels OLS residuals
+        assert_allclose(np.sort(got), np.sort(model.resid), rtol=1e-9, atol=1e-12)
+
+    def test_normal_panel_orders_residuals(self, pooled_only):
+        ax = plot_residuals(pooled_only, method="sma", kind="normal")
+        off = np.concatenate([c.get_offsets() for c in ax.collections])
+        off = off[np.argsort(off[:, 0])]
+        assert np.all(np.diff(off[:, 1]) >= 0)    # exact: a quantile plot is monotone
+        n = len(off)
+        # Blom (1958) positions; compare with scipy.stats.norm at (i - 3/8)/(n + 1/4)
+        from scipy import stats
+        assert_allclose(off[:, 0], stats.norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25)),
+                        rtol=1e-12)
