@@ -91,11 +91,12 @@ def _fmt(v, digits=3) -> str:
 def _summary_table(result) -> str:
     fits = result.fits
     pct = f"{100 * result.config.model.confidence:g}% CI"
-    head = f"{'scope':<12} {'group':<14} {'method':<6} {'n':>5} {'slope':>7}  {pct:<17} {'r2':>6}"
+    mw = max([6] + [len(str(m)) for m in fits["method"]])
+    head = f"{'scope':<12} {'group':<14} {'method':<{mw}} {'n':>5} {'slope':>7}  {pct:<17} {'r2':>6}"
     lines = [head, "-" * len(head)]
     for r in fits.itertuples(index=False):
         ci = f"{_fmt(r.slope_low)} to {_fmt(r.slope_high)}" if np.isfinite(r.slope) else r.note
-        lines.append(f"{r.scope:<12} {str(r.group)[:14]:<14} {r.method:<6} {r.n:>5} "
+        lines.append(f"{r.scope:<12} {str(r.group)[:14]:<14} {r.method:<{mw}} {r.n:>5} "
                      f"{_fmt(r.slope):>7}  {ci:<17} {_fmt(r.r2):>6}")
     return "\n".join(lines)
 
@@ -103,7 +104,7 @@ def _summary_table(result) -> str:
 def _cmd_run(args) -> int:
     from .pipeline import run_config
     out = Path(args.out) if args.out else None
-    result = run_config(args.config, out=out, force=args.force)
+    result = run_config(args.config, out=out, force=args.force, quiet=args.quiet)
     if not args.quiet:
         print(f"scaling {__version__}: {result.config.title}")
         for line in result.messages:

@@ -20,14 +20,19 @@ from .errors import ConfigError
 
 __all__ = [
     "Config", "DataConfig", "ModelConfig", "GroupsConfig", "PredictionConfig",
-    "FiguresConfig", "OutputConfig", "load_config", "config_from_dict",
+    "FiguresConfig", "OutputConfig", "DiagnosticsConfig", "ResamplingConfig",
+    "load_config", "config_from_dict", "MOMENT_METHOD_NAMES", "BOOT_INTERVALS",
     "METHOD_NAMES", "CORRECTIONS", "FIGURE_KINDS",
 ]
 
 # Methods a config may name.  Kept here (not imported from lines) so that the
-# config layer can be validated without the numeric core; a test checks the
-# two lists agree.
-METHOD_NAMES = ("ols", "sma", "ma")
+# config layer can be validated without the numeric core; a test checks that
+# they are exactly the moment methods of lines.METHODS, the Deming line and
+# the row-based methods of robust.ROW_METHODS.
+METHOD_NAMES = ("ols", "sma", "ma", "deming", "theil_sen", "siegel", "sma_robust", "ma_robust")
+# Lines computed from moments alone (bootstrapped by resample.bootstrap_lines).
+MOMENT_METHOD_NAMES = ("ols", "sma", "ma", "deming")
+BOOT_INTERVALS = ("percentile", "bca")
 CORRECTIONS = ("smearing", "parametric", "ratio", "none")
 INTERVALS = ("prediction", "confidence")
 FIGURE_KINDS = ("scaling", "natural", "exponents", "residuals")
@@ -60,6 +65,8 @@ class ModelConfig:
     log_base: str = "10"
     methods: tuple = ("ols", "sma", "ma")
     confidence: float = 0.95
+    deming_lambda: float = 1.0          # var(error in log y) / var(error in log x)
+    error_variances: dict = field(default_factory=dict)   # {"x": .., "y": ..} as given
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -92,6 +99,22 @@ class OutputConfig:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class DiagnosticsConfig:
+    enabled: bool = True
+    alpha: float = 0.05
+    error_structure: bool = True
+    exponent_at: tuple = ()       # local-exponent targets; () = the exponents' values
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ResamplingConfig:
+    bootstrap: int = 0            # resamples; 0 = off
+    interval: str = "bca"         # percentile | bca
+    permutations: int = 0         # permutations per slope test; 0 = off
+    seed: int = 1
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Config:
     """A whole validated configuration (see INTERFACE.md for every key)."""
 
@@ -103,6 +126,8 @@ class Config:
     prediction: PredictionConfig
     figures: FiguresConfig
     output: OutputConfig
+    diagnostics: DiagnosticsConfig = field(default_factory=DiagnosticsConfig)
+    resampling: ResamplingConfig = field(default_factory=ResamplingConfig)
     source: Path | None = None     # the config file, if read from one
     raw: dict = field(default_factory=dict)   # the mapping as read, for the manifest
 
@@ -285,15 +310,62 @@ def _exponents(value, path):
     out = {}
     for name, exponent in value.items():
         _string(name, f"{path}.{name}")
-        if isinstance(exponent, str) and "/" in exponent:
-            # "3/4" reads as a fraction, which is how people write exponents.
-            num, _, den = exponent.partition("/")
-            try:
-                exponent = float(num) / float(den)
-            except (ValueError, ZeroDivisionError):
-                raise _Bad(f"{path}.{name}", f"cannot read {exponent!r} as a fraction") from None
-        out[str(name)] = _number(exponent, f"{path}.{name}")
+        # "3/4" reads as a fraction, which is how people write exponents.
+        out[str(name)] = _exponent_value(exponent, f"{path}.{name}")
     return out
+
+
+def _exponent_value(value, path) -> float:
+    if isinstance(value, str) and "/" in value:
+        num, _, den = value.partition("/")
+        try:
+            value = float(num) / float(den)
+        except (ValueError, ZeroDivisionError):
+            raise _Bad(path, f"cannot read {value!r} as a fraction") from None
+    return _number(value, path)
+
+
+def _positive(value, path) -> float:
+    v = _number(value, path)
+    if v <= 0:
+        raise _Bad(path, f"must be a positive number, got {value!r}")
+    return v
+
+
+def _error_variances(value, path):
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise _Bad(path, "expected a mapping like {x: 0.0004, y: 0.0025} (error variances "
+                         "of log x and log y)")
+    for key in value:
+        if key not in ("x", "y"):
+            raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, ('x', 'y'))}")
+    out = {}
+    for key in ("x", "y"):
+        if key not in value:
+            raise _Bad(f"{path}.{key}", "is required (give both x and y)")
+        out[key] = _positive(value[key], f"{path}.{key}")
+    return out
+
+
+def _alpha(value, path):
+    v = _number(value, path)
+    if not 0 < v < 0.5:
+        raise _Bad(path, f"must lie between 0 and 0.5 (e.g. 0.05), got {value!r}")
+    return v
+
+
+def _n_boot(value, path):
+    v = _int(value, path, minimum=0)
+    if 0 < v < 99:
+        raise _Bad(path, f"must be 0 (off) or at least 99 resamples (999 or more for "
+                         f"reported intervals), got {v}")
+    return v
+
+
+def _seed(value, path):
+    return _int(value, path, minimum=0)
 
 
 # --------------------------------------------------------------------------
@@ -319,6 +391,20 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "log_base": (_log_base, "10"),
         "methods": (_list_of(_method, non_empty=True, noun="method"), ("ols", "sma", "ma")),
         "confidence": (_confidence, 0.95),
+        "deming_lambda": (_positive, None),
+        "error_variances": (_error_variances, {}),
+    },
+    "diagnostics": {
+        "enabled": (_boolean, True),
+        "alpha": (_alpha, 0.05),
+        "error_structure": (_boolean, True),
+        "exponent_at": (_list_of(_exponent_value), ()),
+    },
+    "resampling": {
+        "bootstrap": (_n_boot, 0),
+        "interval": (_choice(BOOT_INTERVALS), "bca"),
+        "permutations": (lambda v, p: _int(v, p, minimum=0), 0),
+        "seed": (_seed, 1),
     },
     "groups": {
         "compare": (_boolean, True),
@@ -343,7 +429,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
     },
 }
 _TOP_LEVEL = ("title", "data", "model", "exponents", "groups", "prediction",
-              "figures", "output")
+              "figures", "output", "diagnostics", "resampling")
 
 
 def _read_section(raw, name) -> dict:
@@ -412,6 +498,14 @@ def _build(raw, base_dir: Path, source) -> Config:
                        f"{'/'.join(m.upper() for m in unweightable)} estimator with valid "
                        "intervals is implemented. Set model.methods: [ols] or "
                        "weight_means: false")
+    model = sections["model"]
+    if model["error_variances"] and model["deming_lambda"] is not None:
+        raise _Bad("model.error_variances", "give either model.deming_lambda or "
+                   "model.error_variances (which sets lambda = y / x), not both")
+    if model["error_variances"]:
+        model["deming_lambda"] = model["error_variances"]["y"] / model["error_variances"]["x"]
+    elif model["deming_lambda"] is None:
+        model["deming_lambda"] = 1.0
     out_dir = sections["output"]["dir"]
     if out_dir is None:
         stem = source.stem if source is not None else "scaling"
@@ -430,6 +524,8 @@ def _build(raw, base_dir: Path, source) -> Config:
         prediction=PredictionConfig(**sections["prediction"]),
         figures=FiguresConfig(**sections["figures"]),
         output=OutputConfig(dir=out_path),
+        diagnostics=DiagnosticsConfig(**sections["diagnostics"]),
+        resampling=ResamplingConfig(**sections["resampling"]),
         source=source,
         raw=raw,
     )

@@ -42,6 +42,13 @@ sample covariance for bivariate normal data).  var(b) is the large-sample
 variance consistent with the slope test: b^2 (1 - r^2)/(n - 2) for SMA,
 (1 + b^2)^2 l1 l2 / ((n - 2)(l1 - l2)^2) for MA (delta method on theta).
 Intervals are a +- t_{1-alpha/2}(n-2) sqrt(var(a)).
+
+Other methods (fitted in :mod:`scaling.robust`, listed in
+:data:`METHOD_INFO`) return the same :class:`LineFit`;
+:meth:`LineFit.test_slope` then uses the test whose inversion is the
+reported interval (see its docstring): Deming, the MA test after rescaling
+by lambda; Theil-Sen, Kendall's S of (X, Y - b0 X) as in Sen (1968);
+Siegel and robust SMA/MA, the percentile-bootstrap p-value.
 """
 
 from __future__ import annotations
@@ -63,6 +70,9 @@ __all__ = [
     "SlopeTest",
     "LineMethod",
     "METHODS",
+    "METHOD_INFO",
+    "method_label",
+    "is_symmetric",
     "fit_line",
     "fit_moments",
     "slope_test_statistic",
@@ -258,6 +268,35 @@ METHODS: dict[str, LineMethod] = {
 }
 
 
+#: Every method name a fit may carry -> (label, symmetric).  The moment methods
+#: are those of :data:`METHODS`; the others are fitted by :mod:`scaling.robust`
+#: (``deming`` from moments with an error-variance ratio, the robust lines from
+#: the rows).  ``symmetric``: swapping x and y gives the same line (slope 1/b).
+METHOD_INFO: dict[str, tuple[str, bool]] = {
+    "ols": ("OLS", False),
+    "sma": ("SMA", True),
+    "ma": ("MA", True),
+    "deming": ("Deming", True),
+    "theil_sen": ("Theil-Sen", False),
+    "siegel": ("Siegel", False),
+    "sma_robust": ("robust SMA", True),
+    "ma_robust": ("robust MA", True),
+}
+
+
+def method_label(method: str) -> str:
+    """How a method is written in sentences ("OLS", "Deming", "robust SMA", ...)."""
+    return METHOD_INFO.get(method, (str(method).upper(), False))[0]
+
+
+def is_symmetric(method: str) -> bool:
+    """True if swapping x and y gives the same line (SMA, MA, Deming, robust SMA/MA)."""
+    try:
+        return METHOD_INFO[method][1]
+    except KeyError:
+        raise ConfigError(f"method must be one of {', '.join(METHOD_INFO)}, not {method!r}") from None
+
+
 def _get_method(method: str) -> LineMethod:
     try:
         return METHODS[method]
@@ -390,10 +429,15 @@ class SlopeTest:
     estimate : float
         The fitted slope.
     statistic : float
-        t on ``df`` degrees of freedom; positive when the slope is above b0.
+        ``statistic_type`` ``"t"``: t on ``df`` degrees of freedom;
+        ``"z"``: standard normal (Theil-Sen, Kendall's S / its SD);
+        ``"boot_share_above"``: the share of bootstrap slopes above b0.
+        Positive t or z (share above 0.5) when the slope is above b0.
     df : float
+        NaN for ``z`` and bootstrap tests.
     p_value : float
         Two-sided.
+    statistic_type : str
     """
 
     method: str
@@ -403,13 +447,15 @@ class SlopeTest:
     statistic: float
     df: float
     p_value: float
+    statistic_type: str = "t"
 
     def to_frame(self):
         import pandas as pd
         return pd.DataFrame([{
             "method": self.method, "hypothesis": self.hypothesis,
             "exponent": self.exponent, "estimate": self.estimate,
-            "statistic": self.statistic, "df": self.df, "p_value": self.p_value,
+            "statistic": self.statistic, "statistic_type": self.statistic_type,
+            "df": self.df, "p_value": self.p_value,
         }])
 
     def summary(self, confidence: float = 0.95) -> str:
@@ -419,8 +465,9 @@ class SlopeTest:
 
 def describe_test(test: SlopeTest, *, alpha: float = 0.05) -> str:
     """Plain-language reading of a slope test."""
+    label = method_label(test.method)
     if not np.isfinite(test.p_value):
-        return f"The {test.method.upper()} slope could not be tested against {test.exponent:g}."
+        return f"The {label} slope could not be tested against {test.exponent:g}."
     b0 = f"{test.exponent:.4g}"
     if test.hypothesis and test.hypothesis != f"{test.exponent:g}":
         b0 = f"{b0} ({test.hypothesis})"
@@ -429,8 +476,13 @@ def describe_test(test: SlopeTest, *, alpha: float = 0.05) -> str:
         verdict = f"is {side} {b0}"
     else:
         verdict = f"does not differ detectably from {b0}"
-    return (f"The {test.method.upper()} exponent {test.estimate:.3g} {verdict} "
-            f"(t = {test.statistic:.2f}, df = {test.df:g}, {p_text(test.p_value)}).")
+    if test.statistic_type == "t":
+        stat = f"t = {test.statistic:.2f}, df = {test.df:g}, "
+    elif test.statistic_type == "z":
+        stat = f"z = {test.statistic:.2f}, "
+    else:
+        stat = "bootstrap, "
+    return f"The {label} exponent {test.estimate:.3g} {verdict} ({stat}{p_text(test.p_value)})."
 
 
 def p_text(p: float) -> str:
@@ -446,6 +498,52 @@ def format_p(p: float) -> str:
     if p < 1e-4:
         return "< 0.0001"
     return f"{p:.2g}" if p < 0.01 else f"{p:.3f}"
+
+
+def _deming_test(m: Moments, lam, b0: float) -> tuple:
+    """t, df, p of the Deming slope test: the MA test on (X, Y/sqrt(lam))."""
+    if lam is None:
+        raise ConfigError("a Deming fit needs its error-variance ratio (lam) to be tested")
+    k = math.sqrt(lam)
+    mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
+                 syy=m.syy / lam, sxy=m.sxy / k)
+    t, df, p = slope_test_statistic(mr, "ma", b0 / k)
+    return float(t), float(df), float(p)
+
+
+def _tie_term(values: np.ndarray) -> float:
+    _, counts = np.unique(values, return_counts=True)
+    counts = counts[counts > 1].astype(float)
+    return float(np.sum(counts * (counts - 1) * (2 * counts + 5)))
+
+
+def _kendall_slope_test(X, Y, b0: float) -> tuple:
+    """z and p of Sen's (1968) Kendall test of slope = b0 (see LineFit.test_slope)."""
+    X = np.asarray(X, dtype=float)
+    Y = np.asarray(Y, dtype=float)
+    n = X.size
+    i, j = np.triu_indices(n, k=1)
+    dx = X[j] - X[i]
+    keep = dx != 0
+    slopes = (Y[j] - Y[i])[keep] / dx[keep]
+    s = float(np.count_nonzero(slopes > b0) - np.count_nonzero(slopes < b0))
+    var = (n * (n - 1) * (2 * n + 5) - _tie_term(X) - _tie_term(Y)) / 18.0
+    if var <= 0:
+        return math.nan, math.nan
+    z = s / math.sqrt(var)
+    return z, float(2 * stats.norm.sf(abs(z)))
+
+
+def _bootstrap_slope_test(replicates, b0: float) -> tuple:
+    """Share of replicates above b0 and the percentile-bootstrap p (LineFit.test_slope)."""
+    r = np.asarray(replicates, dtype=float)
+    r = r[np.isfinite(r)]
+    if r.size == 0:
+        return math.nan, math.nan
+    below = np.count_nonzero(r <= b0)
+    above = np.count_nonzero(r >= b0)
+    p = min(1.0, 2.0 * (1 + min(below, above)) / (r.size + 1))
+    return float(np.count_nonzero(r > b0) / r.size), float(p)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -464,6 +562,18 @@ class LineFit:
         scale (n - 2 df); ``x_range`` and ``y_range`` are the natural-unit
         extremes of the data (``None`` when fitted from moments alone);
         ``note`` is empty or says why the fit is not estimable.
+    lam : float or None
+        Error-variance ratio var(error in log y)/var(error in log x) of a
+        Deming fit (None for other methods).
+    interval_method : str
+        How the intervals were made: ``"analytic"`` (formulas above),
+        ``"kendall_slope_bootstrap_intercept"`` (Theil-Sen: Sen's interval
+        for the slope, percentile bootstrap for the intercept) or
+        ``"bootstrap_percentile"`` (Siegel, robust SMA/MA).
+    slope_replicates : ndarray or None
+        Bootstrap slopes behind a bootstrap interval (used by the test).
+    log_data : (ndarray, ndarray) or None
+        Log x and log y, kept by Theil-Sen for its rank test.
     """
 
     method: str
@@ -484,6 +594,10 @@ class LineFit:
     x_range: tuple | None = None
     y_range: tuple | None = None
     note: str = ""
+    lam: float | None = None
+    interval_method: str = "analytic"
+    slope_replicates: np.ndarray | None = field(default=None, repr=False, compare=False)
+    log_data: tuple | None = field(default=None, repr=False, compare=False)
 
     @property
     def b(self) -> float:
@@ -502,17 +616,55 @@ class LineFit:
         return np.isfinite(self.slope)
 
     def test_slope(self, exponent: float, *, hypothesis: str = "") -> SlopeTest:
-        """Test slope = ``exponent`` (two-sided); see :func:`slope_test_statistic`."""
+        """Test slope = ``exponent`` (two-sided) with the test behind the interval.
+
+        OLS, SMA, MA
+            :func:`slope_test_statistic` (t on n - 2 df); the intervals are
+            its inversion.
+        Deming (``lam`` set)
+            The MA test of :func:`slope_test_statistic` on (X, Y/sqrt(lam))
+            against b0/sqrt(lam): the interval of
+            :func:`scaling.robust.deming` is its inversion.
+        Theil-Sen
+            Kendall's S = #(pairwise slopes > b0) - #(pairwise slopes < b0)
+            over pairs with distinct x (the S of X against Y - b0 X), with
+            Sen's (1968, *JASA* 63:1379, eq. 2.6) variance as in
+            ``scipy.stats.theilslopes`` (ties in x and in y); z = S/sd and
+            p = 2 Phi(-|z|).  Sen's slope interval is the set of b0 this
+            test does not reject (up to the rounding of the order
+            statistics).
+        Siegel, robust SMA, robust MA
+            Percentile-bootstrap p-value from the stored slope replicates:
+            p = min(1, 2 (1 + min(#{b* <= b0}, #{b* >= b0})) / (B + 1)),
+            B the finite replicates (the +1 keeps p above 0, as for
+            permutation p-values).  b0 outside the percentile interval gives
+            p < 1 - confidence, up to 2/(B + 1) and the quantile
+            interpolation.  The statistic is the share of b* above b0.
+        """
         if isinstance(exponent, bool) or not isinstance(exponent, (int, float, np.floating)):
             raise ConfigError(f"exponent must be a number, not {exponent!r}")
-        if self.estimable:
-            t, df, p = slope_test_statistic(self.moments, self.method, float(exponent))
-            t, df, p = float(t), float(df), float(p)
+        b0 = float(exponent)
+        kind, df = "t", float(self.df)
+        if not self.estimable:
+            t, p = math.nan, math.nan
+            if self.method not in METHODS and self.method != "deming":
+                kind, df = ("z" if self.method == "theil_sen" else "boot_share_above"), math.nan
+        elif self.method in METHODS:
+            t, df, p = (float(v) for v in slope_test_statistic(self.moments, self.method, b0))
+        elif self.method == "deming":
+            t, df, p = _deming_test(self.moments, self.lam, b0)
+        elif self.method == "theil_sen" and self.log_data is not None:
+            t, p = _kendall_slope_test(self.log_data[0], self.log_data[1], b0)
+            kind, df = "z", math.nan
+        elif self.slope_replicates is not None:
+            t, p = _bootstrap_slope_test(self.slope_replicates, b0)
+            kind, df = "boot_share_above", math.nan
         else:
-            t, df, p = math.nan, float(self.df), math.nan
+            raise ConfigError(f"the {method_label(self.method)} fit carries neither data nor "
+                              "bootstrap replicates, so its slope cannot be tested")
         return SlopeTest(method=self.method, hypothesis=hypothesis or f"{exponent:g}",
-                         exponent=float(exponent), estimate=self.slope,
-                         statistic=t, df=df, p_value=p)
+                         exponent=b0, estimate=self.slope, statistic=t, df=df,
+                         p_value=p, statistic_type=kind)
 
     def to_frame(self):
         """One tidy row with the column names of ``fits.csv``."""
@@ -529,16 +681,19 @@ class LineFit:
             "r": self.r, "r2": self.r2, "slope_se": self.slope_se,
             "intercept_se": self.intercept_se, "resid_sd": self.resid_sd,
             "log_base": base_label(self.log_base), "confidence": self.confidence,
-            "note": self.note,
+            "note": self.note, "interval_method": self.interval_method,
+            "deming_lambda": None if self.lam is None else float(self.lam),
         }
 
     def summary(self) -> str:
         """A few lines of text describing the fit."""
+        label = method_label(self.method)
         if not self.estimable:
-            return f"{self.method.upper()} fit, n = {self.n}: {self.note}"
+            return f"{label} fit, n = {self.n}: {self.note}"
         pct = f"{100 * self.confidence:g}%"
         lines = [
-            f"{self.method.upper()} line on log{base_label(self.log_base)} scales, n = {self.n}",
+            f"{label} line on log{base_label(self.log_base)} scales, n = {self.n}"
+            + (f" (lambda = {self.lam:g})" if self.lam is not None else ""),
             f"  exponent b = {self.slope:.4g}  ({pct} CI {self.slope_ci.low:.4g} to {self.slope_ci.high:.4g})",
             f"  intercept log a = {self.intercept:.4g}  ({pct} CI {self.intercept_ci.low:.4g} to {self.intercept_ci.high:.4g})",
             f"  r = {self.r:.4f}, r^2 = {self.r2:.4f}, residual SD (log scale) = {self.resid_sd:.4g}",

@@ -102,7 +102,7 @@ from scipy import stats
 
 from .errors import (ConfigError, DataError, DegenerateDataWarning,
                      ExtrapolationWarning)
-from .lines import (ConfidenceInterval, LineFit, METHODS, base_label,
+from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, base_label, is_symmetric,
                     parse_log_base, to_log)
 from .moments import Moments
 
@@ -732,7 +732,7 @@ def inverse_predict(fit: LineFit, y, *, interval: str = "prediction",
         warnings.warn(f"{fit.method.upper()} fit not estimable ({fit.note}): estimates are NaN",
                       DegenerateDataWarning, stacklevel=2)
     Y0 = to_log(y, base)
-    if METHODS[fit.method].symmetric:
+    if is_symmetric(fit.method):
         fitted, _, lo, hi = log_interval(Y0, confidence=confidence, interval=interval,
                                          **_swapped_params(fit))
     else:
@@ -860,7 +860,7 @@ def fit_to_dict(fit: LineFit, *, smearing_factor: float | None = None,
         "moments": fit.moments.to_dict(),
         "x_range": None if fit.x_range is None else [float(v) for v in fit.x_range],
         "y_range": None if fit.y_range is None else [float(v) for v in fit.y_range],
-        "note": fit.note,
+        "note": fit.note, "lam": fit.lam, "interval_method": fit.interval_method,
         "smearing_factor": smearing_factor, "ratio_factor": ratio_factor,
     }
     return _json_clean(d)
@@ -885,7 +885,7 @@ def fit_from_dict(d: dict) -> LineFit:
     missing = [k for k in _REQUIRED if k not in d]
     if missing:
         raise DataError(f"saved fit lacks key(s): {', '.join(missing)}")
-    if d["method"] not in METHODS:
+    if d["method"] not in METHOD_INFO:
         raise DataError(f"saved fit has unknown method {d['method']!r}")
     try:
         base = parse_log_base(d["log_base"])
@@ -903,7 +903,8 @@ def fit_from_dict(d: dict) -> LineFit:
         resid_sd=_float(d["resid_sd"]), df=_float(d["df"]), log_base=base,
         confidence=float(d["confidence"]), moments=Moments.from_dict(mom),
         x_range=rng(d.get("x_range")), y_range=rng(d.get("y_range")),
-        note=str(d.get("note", "")),
+        note=str(d.get("note", "")), lam=d.get("lam"),
+        interval_method=str(d.get("interval_method", "analytic")),
     )
 
 

@@ -37,6 +37,11 @@ Permutation tests of slope = b0
     independent) and approximate otherwise.  p = (1 + #{|r*| >= |r|}) /
     (1 + n_perm) (Phipson & Smyth 2010, *Stat. Appl. Genet. Mol. Biol.*
     9:39).
+    For the robust lines the same pairs are permuted but the statistic is
+    Kendall's S of U against V (a rank correlation, insensitive to outlying
+    values like the lines themselves): Theil-Sen and Siegel use the OLS pair
+    (for Theil-Sen this is the permutation version of Sen's 1968 test behind
+    its interval), robust SMA the SMA pair, robust MA the MA pair.
 The common-slope test across groups is not here yet (it waits for
 ``scaling.groups``).
 """
@@ -68,6 +73,8 @@ __all__ = [
 ]
 
 MOMENT_METHODS = ("ols", "sma", "ma", "deming")
+#: Robust lines -> the moment method whose derived pair their permutation test uses.
+RANK_PAIRS = {"theil_sen": "ols", "siegel": "ols", "sma_robust": "sma", "ma_robust": "ma"}
 
 #: Budget of float64 cells per chunk of resamples (2 MB per float64 array: small chunks stay in cache and measured faster than large ones).
 _CELLS_PER_CHUNK = 250_000
@@ -408,7 +415,8 @@ class PermutationTest:
     method : str
     exponent : float
     statistic : float
-        Observed correlation of the two derived variables (see module notes).
+        Observed correlation of the two derived variables (see module notes);
+        for the robust lines Kendall's tau-a, S / (n (n - 1) / 2).
     p_value : float
         Two-sided, (1 + exceedances) / (1 + n_perm).
     n_perm : int
@@ -581,6 +589,8 @@ _SCHEMES = {
     "ma": "permute Y - b0 X against X + b0 Y",
     "deming": "permute Y' - b0' X against X + b0' Y' with Y' = Y/sqrt(lam), b0' = b0/sqrt(lam)",
 }
+for _name, _pair in RANK_PAIRS.items():
+    _SCHEMES[_name] = _SCHEMES[_pair] + " (Kendall's S)"
 
 
 def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma",
@@ -595,7 +605,8 @@ def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma"
         Data on the log scale.
     exponent : float
         Hypothesised slope b0.
-    method : {"ols", "sma", "ma", "deming"}
+    method : {"ols", "sma", "ma", "deming", "theil_sen", "siegel", "sma_robust", "ma_robust"}
+        The robust lines use Kendall's S of their pair (module docstring).
     n_perm : int
     lam : float
         Error-variance ratio for the Deming line.
@@ -619,22 +630,27 @@ def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma"
     if isinstance(exponent, bool) or not isinstance(exponent, (int, float, np.floating)) \
             or not math.isfinite(exponent):
         raise ConfigError(f"exponent must be a finite number, not {exponent!r}")
-    if method not in MOMENT_METHODS:
-        raise ConfigError(f"method must be one of {', '.join(MOMENT_METHODS)}, not {method!r}")
+    if method not in MOMENT_METHODS and method not in RANK_PAIRS:
+        raise ConfigError(f"method must be one of {', '.join(MOMENT_METHODS + tuple(RANK_PAIRS))}"
+                          f", not {method!r}")
     n_perm = _check_count(n_perm, "n_perm")
     lam = _check_lam(lam)
     rng = _rng(seed)
     b0 = float(exponent)
+    pair = RANK_PAIRS.get(method, method)
     if method == "deming":
         k = math.sqrt(lam)
         Yd, bd = Y / k, b0 / k
         U, V = Yd - bd * X, X + bd * Yd
-    elif method == "ols":
+    elif pair == "ols":
         U, V = Y - b0 * X, X
-    elif method == "sma":
+    elif pair == "sma":
         U, V = Y - b0 * X, Y + b0 * X
     else:
         U, V = Y - b0 * X, X + b0 * Y
+    if method in RANK_PAIRS:
+        return _kendall_permutation(U, V, method=method, b0=b0, n_perm=n_perm, rng=rng,
+                                    chunk_size=chunk_size, quiet=quiet)
     U = U - U.mean()
     V = V - V.mean()
     scale = math.sqrt(float(U @ U) * float(V @ V))
@@ -666,4 +682,40 @@ def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma"
     return PermutationTest(method=method, exponent=b0, statistic=r_obs,
                            p_value=(1 + exceed) / (1 + n_perm), n_perm=n_perm,
                            lam=lam if method == "deming" else 1.0,
+                           scheme=_SCHEMES[method])
+
+
+def _kendall_permutation(U, V, *, method, b0, n_perm, rng, chunk_size, quiet) -> PermutationTest:
+    """Permutation test of no association between U and V by Kendall's S."""
+    n = U.size
+    i, j = np.triu_indices(n, k=1)
+    sv = np.sign(V[j] - V[i])
+    s_obs = float(np.sign(U[j] - U[i]) @ sv)
+    pairs = i.size
+    if not np.any(sv) or not np.any(U != U[0]):
+        warnings.warn("permutation_slope_test: a derived variable does not vary; "
+                      "the p-value is not defined", DegenerateDataWarning, stacklevel=3)
+        return PermutationTest(method=method, exponent=b0, statistic=math.nan,
+                               p_value=math.nan, n_perm=n_perm, lam=1.0,
+                               scheme=_SCHEMES[method])
+    if chunk_size is None:
+        chunk = max(1, min(n_perm, (8 * _CELLS_PER_CHUNK) // max(pairs, 1)))
+    else:
+        chunk = _chunk(chunk_size, n, n_perm)
+    threshold = abs(s_obs) - 0.5   # S is an integer: |S*| >= |S| exactly
+    exceed = 0
+    done = 0
+    bar = _progress(n_perm, quiet, "permutations")
+    while done < n_perm:
+        size = min(chunk, n_perm - done)
+        up = U[rng.permuted(np.broadcast_to(np.arange(n), (size, n)), axis=1)]
+        s_perm = np.sign(up[:, j] - up[:, i]) @ sv
+        exceed += int(np.count_nonzero(np.abs(s_perm) > threshold))
+        done += size
+        if bar is not None:
+            bar.update(size)
+    if bar is not None:
+        bar.close()
+    return PermutationTest(method=method, exponent=b0, statistic=s_obs / pairs,
+                           p_value=(1 + exceed) / (1 + n_perm), n_perm=n_perm, lam=1.0,
                            scheme=_SCHEMES[method])

@@ -75,7 +75,9 @@ __all__ = [
     "ma_robust",
     "deming",
     "deming_moments",
+    "deming_from_moments",
     "huber_scatter",
+    "ROW_METHODS",
 ]
 
 MIN_N = 3
@@ -124,7 +126,8 @@ def _check_boot(n_boot) -> int:
 
 
 def _package(method, X, Y, *, slope, intercept, slope_ci, intercept_ci, slope_se,
-             intercept_se, r, base, confidence, ranges) -> LineFit:
+             intercept_se, r, base, confidence, ranges, boot_slopes=None,
+             interval_method="bootstrap_percentile") -> LineFit:
     n = X.size
     resid = Y - intercept - slope * X
     return LineFit(
@@ -135,6 +138,9 @@ def _package(method, X, Y, *, slope, intercept, slope_ci, intercept_ci, slope_se
         resid_sd=float(math.sqrt(np.sum(resid ** 2) / (n - 2))),
         df=float(n - 2), log_base=base, confidence=confidence,
         moments=_moments(X, Y), x_range=ranges[0], y_range=ranges[1],
+        interval_method=interval_method,
+        slope_replicates=None if boot_slopes is None else np.asarray(boot_slopes, dtype=float),
+        log_data=(X, Y) if method == "theil_sen" else None,
     )
 
 
@@ -238,7 +244,8 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
         slope_ci=ConfidenceInterval(float(res.low_slope), float(res.high_slope)),
         intercept_ci=_percentile(boot_a, confidence),
         slope_se=_sd(boot_b), intercept_se=_sd(boot_a),
-        r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges)
+        r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
+        boot_slopes=boot_b, interval_method="kendall_slope_bootstrap_intercept")
 
 
 def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
@@ -281,7 +288,8 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
         slope_ci=_percentile(boot[:, 0], confidence),
         intercept_ci=_percentile(boot[:, 1], confidence),
         slope_se=_sd(boot[:, 0]), intercept_se=_sd(boot[:, 1]),
-        r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges)
+        r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
+        boot_slopes=boot[:, 0])
 
 
 # --------------------------------------------------------------------------
@@ -290,6 +298,16 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
 
 def _huber_tau(c2: float) -> float:
     return float(stats.chi2.cdf(c2, 4) + c2 / 2 * stats.chi2.sf(c2, 2))
+
+
+def _weighted_scatter(w: np.ndarray, D: np.ndarray) -> np.ndarray:
+    """sum_n w[b, n] D[b, n, i] D[b, n, j] for each b (the 2 x 2 case of an einsum, faster)."""
+    d0, d1 = D[..., 0], D[..., 1]
+    wd0 = w * d0
+    v00 = np.sum(wd0 * d0, axis=1)
+    v01 = np.sum(wd0 * d1, axis=1)
+    v11 = np.sum(w * d1 * d1, axis=1)
+    return np.stack([np.stack([v00, v01], -1), np.stack([v01, v11], -1)], -2)
 
 
 def huber_scatter(X, Y, *, weights=None, q: float = 0.9, tol: float = 1e-9,
@@ -339,25 +357,30 @@ def huber_scatter(X, Y, *, weights=None, q: float = 0.9, tol: float = 1e-9,
     total = w.sum(axis=1)
     mu = (w @ Zc) / total[:, None]
     D = Zc[None, :, :] - mu[:, None, :]
-    V = np.einsum("bn,bni,bnj->bij", w, D, D) / total[:, None, None]
+    V = _weighted_scatter(w, D) / total[:, None, None]
     converged = np.zeros(w.shape[0], dtype=bool)
+    # Iterate only the estimates still moving (each row of w is its own problem).
+    active = np.arange(w.shape[0])
     for _ in range(max_iter):
-        det = V[:, 0, 0] * V[:, 1, 1] - V[:, 0, 1] ** 2
+        Va, Da, wa = V[active], D[active], w[active]
+        det = Va[:, 0, 0] * Va[:, 1, 1] - Va[:, 0, 1] ** 2
         with np.errstate(divide="ignore", invalid="ignore"):
-            inv00, inv11, inv01 = V[:, 1, 1] / det, V[:, 0, 0] / det, -V[:, 0, 1] / det
-            d2 = (D[..., 0] ** 2 * inv00[:, None] + D[..., 1] ** 2 * inv11[:, None]
-                  + 2 * D[..., 0] * D[..., 1] * inv01[:, None])
+            inv00, inv11, inv01 = Va[:, 1, 1] / det, Va[:, 0, 0] / det, -Va[:, 0, 1] / det
+            d2 = (Da[..., 0] ** 2 * inv00[:, None] + Da[..., 1] ** 2 * inv11[:, None]
+                  + 2 * Da[..., 0] * Da[..., 1] * inv01[:, None])
             u2 = np.minimum(1.0, c2 / d2)
         u2 = np.where(np.isfinite(u2), u2, 1.0)
-        u1 = np.sqrt(u2) * w
+        u1 = np.sqrt(u2) * wa
         mu_new = (u1 @ Zc) / u1.sum(axis=1)[:, None]
-        D = Zc[None, :, :] - mu_new[:, None, :]
-        V_new = np.einsum("bn,bni,bnj->bij", u2 * w, D, D) / (tau * total[:, None, None])
-        change = np.maximum(np.abs(mu_new - mu).max(axis=1),
-                            np.abs(V_new - V).reshape(V.shape[0], -1).max(axis=1))
-        mu, V = mu_new, V_new
-        converged = change < tol
-        if np.all(converged | ~np.isfinite(change)):
+        D_new = Zc[None, :, :] - mu_new[:, None, :]
+        V_new = _weighted_scatter(u2 * wa, D_new) / (tau * total[active, None, None])
+        change = np.maximum(np.abs(mu_new - mu[active]).max(axis=1),
+                            np.abs(V_new - Va).reshape(Va.shape[0], -1).max(axis=1))
+        mu[active], V[active], D[active] = mu_new, V_new, D_new
+        done = change < tol
+        converged[active[done]] = True
+        active = active[~(done | ~np.isfinite(change))]
+        if active.size == 0:
             break
     mu = mu * scale + centre
     V = V * scale ** 2
@@ -399,7 +422,7 @@ def _robust_axis(kind, x, y, *, confidence, log_base, n_boot, seed, q) -> LineFi
         slope_ci=_percentile(boot_b, confidence),
         intercept_ci=_percentile(boot_a, confidence),
         slope_se=_sd(boot_b), intercept_se=_sd(boot_a), r=r, base=base,
-        confidence=confidence, ranges=ranges)
+        confidence=confidence, ranges=ranges, boot_slopes=boot_b)
 
 
 def sma_robust(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
@@ -488,6 +511,51 @@ def deming_moments(m: Moments, lam: float, *, confidence: float = 0.95) -> dict:
     return out
 
 
+def deming_from_moments(m: Moments, lam: float, *, confidence: float = 0.95,
+                        log_base: float | None = 10.0, x_range=None,
+                        y_range=None) -> LineFit:
+    """The Deming line of one set of (0-d) log-scale moments, as a :class:`LineFit`.
+
+    Parameters
+    ----------
+    m : Moments
+    lam : float
+        var(error in Y) / var(error in X), > 0.
+    confidence : float
+    log_base : float or None
+        The numeric base the logs were taken in (labels the result).
+    x_range, y_range : tuple, optional
+        Natural-unit extremes of the data.
+
+    Returns
+    -------
+    LineFit
+        ``method="deming"``, ``lam`` set; estimates NaN with a ``note`` when
+        the line cannot be fitted (no warning: the caller decides).
+
+    Notes
+    -----
+    The MA fit of (X, Y/sqrt(lam)) scaled back by sqrt(lam); see the module
+    docstring.
+    """
+    lam = _check_lam(lam)
+    confidence = _confidence(confidence)
+    k = math.sqrt(lam)
+    mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
+                 syy=m.syy / lam, sxy=m.sxy / k)
+    fit = line_fit_from_moments(mr, "ma", confidence=confidence, log_base=log_base,
+                                x_range=x_range, y_range=y_range)
+    note = fit.note.replace("MA slope", "Deming slope")
+    return replace(
+        fit, method="deming", moments=m, note=note,
+        slope=fit.slope * k, slope_se=fit.slope_se * k,
+        slope_ci=ConfidenceInterval(fit.slope_ci.low * k, fit.slope_ci.high * k),
+        intercept=fit.intercept * k, intercept_se=fit.intercept_se * k,
+        intercept_ci=ConfidenceInterval(fit.intercept_ci.low * k, fit.intercept_ci.high * k),
+        resid_sd=fit.resid_sd * k, lam=lam,
+    )
+
+
 def deming(x, y, *, lam: float = 1.0, confidence: float = 0.95, log_base=10) -> LineFit:
     """Deming (errors-in-variables) line of log y and log x.
 
@@ -517,21 +585,16 @@ def deming(x, y, *, lam: float = 1.0, confidence: float = 0.95, log_base=10) -> 
     lam = _check_lam(lam)
     confidence = _confidence(confidence)
     base, X, Y, ranges = _prepare(x, y, log_base, need_spread=False)
-    m = _moments(X, Y)
-    k = math.sqrt(lam)
-    mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
-                 syy=m.syy / lam, sxy=m.sxy / k)
-    fit = line_fit_from_moments(mr, "ma", confidence=confidence, log_base=base,
-                                x_range=ranges[0], y_range=ranges[1])
-    note = fit.note.replace("MA slope", "Deming slope")
-    fit = replace(
-        fit, method="deming", moments=m, note=note,
-        slope=fit.slope * k, slope_se=fit.slope_se * k,
-        slope_ci=ConfidenceInterval(fit.slope_ci.low * k, fit.slope_ci.high * k),
-        intercept=fit.intercept * k, intercept_se=fit.intercept_se * k,
-        intercept_ci=ConfidenceInterval(fit.intercept_ci.low * k, fit.intercept_ci.high * k),
-        resid_sd=fit.resid_sd * k,
-    )
+    fit = deming_from_moments(_moments(X, Y), lam, confidence=confidence, log_base=base,
+                              x_range=ranges[0], y_range=ranges[1])
+    note = fit.note
     if note and not np.isfinite(fit.slope):
         warnings.warn(note, DegenerateDataWarning, stacklevel=2)
     return fit
+
+
+#: Methods fitted from the rows (not from moments): name -> function with the
+#: signature ``f(x, y, *, confidence, log_base, n_boot, seed) -> LineFit``.
+#: Their intervals are bootstrap (Theil-Sen's slope: Sen's interval).
+ROW_METHODS = {"theil_sen": theil_sen, "siegel": siegel, "sma_robust": sma_robust,
+               "ma_robust": ma_robust}

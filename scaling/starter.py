@@ -25,12 +25,26 @@ data:
 
 model:
   log_base: 10                      # 10, e or 2
-  methods: [ols, sma, ma]           # OLS predicts y from x; SMA/MA describe the line
+  methods: [ols, sma, ma]           # OLS predicts y from x; SMA/MA describe the line;
+                                    # also deming, theil_sen, siegel, sma_robust, ma_robust
   confidence: 0.95
+  # deming_lambda: 1.0              # Deming: var(error in log y) / var(error in log x)
+  # error_variances: {x: 0.0004, y: 0.0025}   # ...or the two variances (lambda = y/x)
 
 exponents:                          # each fit is tested against each of these
   three_quarters: 0.75
   two_thirds: 2/3
+
+diagnostics:
+  enabled: true                     # curvature, residuals, influence, error structure
+  # alpha: 0.05                     # level at which a check is flagged
+  # exponent_at: [0.75]             # where the local exponent reaches these (default: exponents)
+
+resampling:
+  bootstrap: 0                      # bootstrap resamples for every interval (0 = off; >= 99)
+  # interval: bca                   # bca | percentile
+  permutations: 0                   # permutation p-value for every slope test (0 = off)
+  # seed: 1
 
 prediction:
   x: [10, 100, 1000]                # natural units of x

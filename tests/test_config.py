@@ -39,7 +39,17 @@ class TestLoadConfig:
             assert cfg.model.log_base == label
 
     def test_method_names_agree_with_registry(self):
-        assert set(METHOD_NAMES) <= set(METHODS)
+        # The config's names are exactly: the moment methods of lines.METHODS, the
+        # Deming line (moments plus lambda) and the row-based robust.ROW_METHODS;
+        # every one has a label in lines.METHOD_INFO; the moment names are the
+        # methods resample.bootstrap_lines can resample.
+        from scaling.config import MOMENT_METHOD_NAMES
+        from scaling.lines import METHOD_INFO
+        from scaling.resample import MOMENT_METHODS
+        from scaling.robust import ROW_METHODS
+        assert set(METHOD_NAMES) == set(METHODS) | {"deming"} | set(ROW_METHODS)
+        assert set(METHOD_NAMES) == set(METHOD_INFO)
+        assert set(MOMENT_METHOD_NAMES) == set(MOMENT_METHODS)
 
     def test_missing_file(self, tmp_path):
         with pytest.raises(ConfigError, match="config file not found"):
@@ -134,3 +144,75 @@ class TestLoadConfig:
         cfg = load_config(write_config(MINIMAL))
         with pytest.raises(AttributeError):
             cfg.title = "x"
+
+
+class TestIssue6Keys:
+    """model.deming_lambda / error_variances, diagnostics:, resampling:."""
+
+    def test_defaults(self, write_config):
+        cfg = load_config(write_config(MINIMAL))
+        assert cfg.model.deming_lambda == 1.0 and cfg.model.error_variances == {}
+        assert cfg.diagnostics.enabled and cfg.diagnostics.alpha == 0.05
+        assert cfg.diagnostics.error_structure and cfg.diagnostics.exponent_at == ()
+        assert (cfg.resampling.bootstrap, cfg.resampling.interval,
+                cfg.resampling.permutations, cfg.resampling.seed) == (0, "bca", 0, 1)
+
+    def test_new_methods_accepted(self, write_config):
+        cfg = load_config(write_config(MINIMAL + "model: {methods: [deming, theil_sen, siegel, "
+                                       "sma_robust, ma_robust]}\n"))
+        assert cfg.model.methods == ("deming", "theil_sen", "siegel", "sma_robust", "ma_robust")
+
+    def test_lambda_from_error_variances(self, write_config):
+        cfg = load_config(write_config(MINIMAL + "model: {error_variances: {x: 0.0004, y: 0.002}}\n"))
+        assert math.isclose(cfg.model.deming_lambda, 0.002 / 0.0004)  # exact law: lambda = y/x
+
+    def test_lambda_direct(self, write_config):
+        cfg = load_config(write_config(MINIMAL + "model: {deming_lambda: 2.5}\n"))
+        assert cfg.model.deming_lambda == 2.5
+
+    def test_both_lambda_keys_refused(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.error_variances: give either "
+                                               r"model.deming_lambda or model.error_variances"):
+            load_config(write_config(MINIMAL + "model: {deming_lambda: 2, error_variances: "
+                                     "{x: 1, y: 2}}\n"))
+
+    def test_lambda_positive(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.deming_lambda: must be a positive number"):
+            load_config(write_config(MINIMAL + "model: {deming_lambda: 0}\n"))
+
+    def test_error_variances_shape(self, write_config):
+        with pytest.raises(ConfigError, match=r"model.error_variances: expected a mapping like"):
+            load_config(write_config(MINIMAL + "model: {error_variances: 0.3}\n"))
+        with pytest.raises(ConfigError, match=r"model.error_variances.y: is required"):
+            load_config(write_config(MINIMAL + "model: {error_variances: {x: 0.3}}\n"))
+        with pytest.raises(ConfigError, match=r"model.error_variances.z: unknown key; did you "
+                                               r"mean 'x'|model.error_variances.z: unknown key"):
+            load_config(write_config(MINIMAL + "model: {error_variances: {x: 1, z: 2}}\n"))
+
+    def test_alpha_range(self, write_config):
+        with pytest.raises(ConfigError, match=r"diagnostics.alpha: must lie between 0 and 0.5"):
+            load_config(write_config(MINIMAL + "diagnostics: {alpha: 0.9}\n"))
+
+    def test_exponent_at_fractions(self, write_config):
+        cfg = load_config(write_config(MINIMAL + "diagnostics: {exponent_at: [3/4, 1]}\n"))
+        assert cfg.diagnostics.exponent_at == (0.75, 1.0)  # exact law: 3/4 = 0.75
+
+    def test_bootstrap_range(self, write_config):
+        with pytest.raises(ConfigError, match=r"resampling.bootstrap: must be 0 \(off\) or at "
+                                               r"least 99 resamples"):
+            load_config(write_config(MINIMAL + "resampling: {bootstrap: 50}\n"))
+        with pytest.raises(ConfigError, match=r"resampling.permutations: must be at least 0"):
+            load_config(write_config(MINIMAL + "resampling: {permutations: -1}\n"))
+
+    def test_interval_choice(self, write_config):
+        with pytest.raises(ConfigError, match=r"resampling.interval: 'bcaa' is not one of "
+                                               r"percentile, bca; did you mean 'bca'\?"):
+            load_config(write_config(MINIMAL + "resampling: {interval: bcaa}\n"))
+
+    def test_mistyped_keys_suggest(self, write_config):
+        with pytest.raises(ConfigError, match=r"resampling.bootstrp: unknown key; did you mean "
+                                               r"'bootstrap'\?"):
+            load_config(write_config(MINIMAL + "resampling: {bootstrp: 999}\n"))
+        with pytest.raises(ConfigError, match=r"diagnosticks: unknown key; did you mean "
+                                               r"'diagnostics'\?"):
+            load_config(write_config(MINIMAL + "diagnosticks: {}\n"))

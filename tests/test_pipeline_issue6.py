@@ -1,0 +1,433 @@
+"""Issue 6 wired into the run: diagnostics, robust and Deming lines, bootstrap, permutations."""
+from __future__ import annotations
+
+import json
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+from scipy import stats
+
+from scaling.cli import main
+from scaling.config import config_from_dict, load_config
+from scaling.data import load_data
+from scaling.errors import ConfigError, DegenerateDataWarning
+from scaling.lines import fit_line, is_symmetric, slope_test_statistic
+from scaling.moments import moments
+from scaling.pipeline import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,
+                              ERROR_STRUCTURE_COLUMNS, INFLUENCE_COLUMNS, analyse)
+from scaling.resample import bootstrap_lines
+from scaling.robust import deming, sma_robust, siegel, theil_sen
+
+from conftest import DEMO_CONFIG
+
+N_BOOT, N_PERM, SEED = 1999, 999, 1       # configs/demo.yaml resampling section
+DEMO_LAMBDA = 0.0021 / 0.000125           # configs/demo.yaml model.error_variances, y / x
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    out = tmp_path_factory.mktemp("issue6") / "out"
+    code = main(["run", str(DEMO_CONFIG), "--out", str(out), "--quiet"])
+    assert code == 0
+    return out
+
+
+@pytest.fixture(scope="module")
+def demo_points():
+    cfg = load_config(DEMO_CONFIG)
+    return cfg, load_data(cfg.data, log_base=10).points
+
+
+@pytest.fixture(scope="module")
+def extended(demo_points):
+    """The demo with every kind of method (resampling off: robust lines use 999 resamples)."""
+    import dataclasses
+    cfg, _ = demo_points
+    quick = dataclasses.replace(cfg, resampling=dataclasses.replace(
+        cfg.resampling, bootstrap=0, permutations=0))
+    classic = dataclasses.replace(quick, model=dataclasses.replace(
+        quick.model, methods=("ols", "sma", "ma")))
+    wide = dataclasses.replace(quick, model=dataclasses.replace(
+        quick.model, methods=("ols", "theil_sen", "sma", "deming", "ma", "sma_robust")))
+    return analyse(classic), analyse(wide)
+
+
+def _read(path) -> pd.DataFrame:
+    """A CSV of the run with blank group/label cells as "" (numbers stay numbers)."""
+    frame = pd.read_csv(path)
+    for col in ("group", "label"):
+        if col in frame:
+            frame[col] = frame[col].fillna("").astype(str)
+    return frame
+
+
+def _sma(x, y, axis=-1):
+    # SMA slope written out for scipy.stats.bootstrap (independent of scaling's code).
+    xc = x - x.mean(axis=axis, keepdims=True)
+    yc = y - y.mean(axis=axis, keepdims=True)
+    return np.sign(np.sum(xc * yc, axis=axis)) * np.sqrt(
+        np.sum(yc * yc, axis=axis) / np.sum(xc * xc, axis=axis))
+
+
+class TestRunFiles:
+    def test_new_files_and_columns(self, demo):
+        assert list(pd.read_csv(demo / "diagnostics.csv").columns) == DIAGNOSTIC_COLUMNS
+        assert list(pd.read_csv(demo / "influential_rows.csv").columns) == INFLUENCE_COLUMNS
+        assert list(pd.read_csv(demo / "error_structure.csv").columns) == \
+            ERROR_STRUCTURE_COLUMNS
+        assert list(pd.read_csv(demo / "curvature.csv").columns) == CURVATURE_COLUMNS
+        assert list(pd.read_csv(demo / "bootstrap.csv").columns) == BOOTSTRAP_COLUMNS
+        tests = pd.read_csv(demo / "slope_tests.csv")
+        assert {"p_permutation", "n_perm", "statistic_type"} <= set(tests.columns)
+        assert set(tests["n_perm"]) == {N_PERM}
+        fits = pd.read_csv(demo / "fits.csv")
+        assert {"interval_method", "deming_lambda"} <= set(fits.columns)
+
+    def test_diagnostics_cover_every_fit(self, demo):
+        diag = _read(demo / "diagnostics.csv")
+        fits = _read(demo / "fits.csv")
+        keys = {tuple(k) for k in fits[["scope", "group", "method"]].to_numpy()}
+        assert {tuple(k) for k in diag[["scope", "group", "method"]].to_numpy()} == keys
+        assert set(diag["check"]) == {"normality", "constant_variance", "curvature", "influence"}
+
+    def test_curvature_against_statsmodels(self, demo, demo_points):
+        # Reference library: statsmodels OLS of log y on (1, log x, log x^2); the
+        # quadratic term's two-sided p-value (Kolokotrones et al. 2010 curvature test).
+        import statsmodels.api as sm
+        _, pts = demo_points
+        X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
+        ref = sm.OLS(Y, np.column_stack([np.ones_like(X), X, X * X])).fit()
+        diag = _read(demo / "diagnostics.csv")
+        row = diag[(diag["scope"] == "pooled") & (diag["method"] == "ols")
+                   & (diag["check"] == "curvature")].iloc[0]
+        assert_allclose(row["p_value"], ref.pvalues[2], rtol=1e-8)
+        assert_allclose(row["estimate"], ref.params[2], rtol=1e-8)
+
+    def test_influential_rows_against_statsmodels(self, demo, demo_points):
+        # Reference library: statsmodels OLSInfluence Cook's distances, rule D > 4/n.
+        import statsmodels.api as sm
+        from statsmodels.stats.outliers_influence import OLSInfluence
+        _, pts = demo_points
+        X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
+        cooks = OLSInfluence(sm.OLS(Y, sm.add_constant(X)).fit()).cooks_distance[0]
+        expected = set(pts["row"].to_numpy()[cooks > 4 / len(X)].tolist())
+        infl = _read(demo / "influential_rows.csv")
+        got = infl[(infl["scope"] == "pooled") & (infl["method"] == "ols")]
+        assert set(got["row"].astype(int)) == expected and expected
+
+    def test_error_structure(self, demo, demo_points):
+        _, pts = demo_points
+        es = _read(demo / "error_structure.csv")
+        pooled = es[es["scope"] == "pooled"].set_index("model")
+        # Exact law: the multiplicative model is OLS on logs, whose slope does not depend
+        # on the base of the logs, so it equals the pooled OLS exponent on log10 scales.
+        ols = fit_line(pts["x"], pts["y"], method="ols")
+        assert_allclose(pooled.loc["multiplicative", "b"], ols.slope, rtol=1e-10)
+        # Exact law: delta_aicc = AICc(additive) - AICc(multiplicative).
+        assert_allclose(pooled.loc["additive", "delta_aicc"],
+                        pooled.loc["additive", "aicc"] - pooled.loc["multiplicative", "aicc"],
+                        rtol=1e-12)
+        assert set(es["group"]) == {"", "Burrower", "Canopy", "Dunefoot", "Marshrunner",
+                                    "Ridgeback"}
+
+    def test_verdicts_in_results_json(self, demo):
+        doc = json.loads((demo / "results.json").read_text())
+        text = "\n".join(doc["messages"])
+        for start in ("Power law: ", "Residuals of the pooled OLS line: ", "Influence: ",
+                      "Error structure: ", "Line method: ", "Bootstrap (", "Permutation tests ("):
+            assert any(m.lstrip().startswith(start) for m in doc["messages"]), start
+        # The demo's truth is lognormal scatter about one power law
+        # (demo_data/make_demo.py): no curvature, multiplicative error.
+        assert "Power law: no detectable curvature" in text
+        assert "multiplicative (lognormal) error is supported over additive" in text
+        assert "Group comparisons are available for OLS, SMA and MA; none was made for " \
+               "Deming." in text
+
+    def test_manifest_records_resampling(self, demo):
+        man = json.loads((demo / "results.json").read_text())["manifest"]
+        rs = man["resampling"]
+        assert (rs["bootstrap"], rs["interval"], rs["permutations"], rs["seed"]) == \
+            (N_BOOT, "bca", N_PERM, SEED)
+        assert rs["stratified_by_group"] is True
+        assert_allclose(man["deming_lambda"], DEMO_LAMBDA, rtol=1e-12)  # exact law: y / x
+
+    def test_predict_from_saved_robust_fit(self, extended):
+        # Reference: predict() on the LineFit itself (the saved dict must rebuild it).
+        from scaling.predict import predict, predict_from_dict
+        _, wide = extended
+        saved = wide.tables["_saved_fits"][("pooled", "", "sma_robust")]
+        fit = wide.line_fits[("pooled", "", "sma_robust")]
+        got = predict_from_dict(saved, [10.0, 100.0], correction="parametric")
+        ref = predict(fit, [10.0, 100.0], correction="parametric")
+        assert_allclose(got.y_low, ref.y_low, rtol=1e-12)
+        assert_allclose(got.y_high, ref.y_high, rtol=1e-12)
+
+
+class TestBootstrapTable:
+    def test_equals_bootstrap_lines_called_directly(self, demo, demo_points):
+        # Reference: our own core, resample.bootstrap_lines, with the run's seed and
+        # settings (rows resampled within clades); the run must not alter the draws.
+        cfg, pts = demo_points
+        X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
+        res = bootstrap_lines(X, Y, methods=("ols", "sma", "ma", "deming"),
+                              groups=pts["group"].astype(str).to_numpy(), n_boot=N_BOOT,
+                              confidence=0.95, lam=DEMO_LAMBDA, seed=SEED)
+        table = _read(demo / "bootstrap.csv")
+        assert set(table["interval"]) == {"bca"} and set(table["seed"]) == {SEED}
+        checked = 0
+        for item in res.intervals:
+            group = "" if item.group is None else item.group
+            row = table[(table["scope"] == item.scope) & (table["group"] == group)
+                        & (table["method"] == item.method)
+                        & (table["parameter"] == item.parameter)]
+            assert len(row) == 1
+            # CSV text round-trips doubles (repr), so equality to rounding
+            assert_allclose([row["low"].iloc[0], row["high"].iloc[0]],
+                            [item.bca.low, item.bca.high], rtol=1e-12)
+            checked += 1
+        assert checked == 6 * 4 * 2   # pooled + 5 clades, 4 methods, slope and intercept
+        # Lines through the 5 clade means: the groups themselves are resampled.
+        means = pts.groupby("group")[["log_x", "log_y"]].mean()
+        with warnings.catch_warnings():   # a few resamples of 5 means repeat one group
+            warnings.simplefilter("ignore", DegenerateDataWarning)
+            gm = bootstrap_lines(means["log_x"].to_numpy(), means["log_y"].to_numpy(),
+                                 methods=("sma",), n_boot=N_BOOT, lam=DEMO_LAMBDA, seed=SEED)
+        row = table[(table["scope"] == "group_means") & (table["method"] == "sma")
+                    & (table["parameter"] == "slope")].iloc[0]
+        assert_allclose([row["low"], row["high"]], [gm.get("sma").bca.low,
+                                                    gm.get("sma").bca.high], rtol=1e-12)
+
+    def test_pooled_sma_equals_scipy_bootstrap(self, small_csv):
+        # Reference library: scipy.stats.bootstrap(paired=True, method="BCa") draws the
+        # same index matrix from the same seed (unstratified: no group in this config).
+        raw = {"data": {"file": str(small_csv), "x": "mass", "y": "rate"},
+               "model": {"methods": ["sma"]}, "diagnostics": {"enabled": False},
+               "resampling": {"bootstrap": 999, "interval": "bca", "seed": 3}}
+        result = analyse(config_from_dict(raw))
+        pts = result.data.points
+        X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
+        ref = stats.bootstrap((X, Y), _sma, paired=True, vectorized=True, n_resamples=999,
+                              method="BCa", rng=np.random.default_rng(3))
+        row = result.tables["bootstrap"].query("parameter == 'slope'").iloc[0]
+        assert_allclose([row["low"], row["high"]], [ref.confidence_interval.low,
+                                                    ref.confidence_interval.high], rtol=1e-9)
+
+    def test_percentile_interval_option(self, small_csv):
+        # Reference: resample.bootstrap_lines' percentile interval (our core).
+        raw = {"data": {"file": str(small_csv), "x": "mass", "y": "rate"},
+               "model": {"methods": ["ols"]}, "diagnostics": {"enabled": False},
+               "resampling": {"bootstrap": 199, "interval": "percentile", "seed": 4}}
+        result = analyse(config_from_dict(raw))
+        pts = result.data.points
+        ref = bootstrap_lines(pts["log_x"], pts["log_y"], methods=("ols",), n_boot=199,
+                              seed=4).get("ols")
+        row = result.tables["bootstrap"].query("parameter == 'slope'").iloc[0]
+        assert row["interval"] == "percentile"
+        assert_allclose([row["low"], row["high"]], [ref.percentile.low, ref.percentile.high],
+                        rtol=1e-12)
+
+
+class TestPermutationColumn:
+    def test_agrees_with_t_tests_on_the_demo(self, demo):
+        # Reference: the t-test p-values of the same slope tests (Warton et al. 2006).
+        # Tolerance: 4 Monte Carlo SEs sqrt(p(1-p)/n_perm) plus the floor 1/(n_perm+1)
+        # of a permutation p-value for the pooled line (n = 40); for the clade lines
+        # (n = 8) a further 0.05, because the permutation and t reference distributions
+        # agree only asymptotically (observed largest gap 0.06 at 4.8 SE; common
+        # practice, no source for the allowance).
+        tests = _read(demo / "slope_tests.csv")
+        t = tests[(tests["statistic_type"] == "t") & tests["scope"].isin(["pooled", "group"])]
+        assert len(t) == 6 * 4 * 2
+        p, pp = t["p_value"].to_numpy(float), t["p_permutation"].to_numpy(float)
+        mc = 4 * np.sqrt(p * (1 - p) / N_PERM) + 1 / (N_PERM + 1)
+        extra = np.where(t["scope"] == "pooled", 0.0, 0.05)
+        assert np.all(np.abs(pp - p) <= mc + extra), np.abs(pp - p) - mc
+        # every slope test has a permutation p-value, robust lines included
+        assert tests["p_permutation"].astype(float).notna().all()
+
+
+class TestRobustAndDeming:
+    def test_robust_rows_have_intervals(self, extended, demo_points):
+        _, wide = extended
+        fits = wide.fits
+        for method, kind in (("sma_robust", "bootstrap_percentile"),
+                             ("theil_sen", "kendall_slope_bootstrap_intercept")):
+            rob = fits[fits["method"] == method]
+            assert len(rob) == 7   # pooled, 5 clades, group means
+            assert set(rob["interval_method"]) == {kind}
+            assert np.all(rob["slope_low"] < rob["slope"]) and np.all(rob["slope"] <
+                                                                       rob["slope_high"])
+            assert np.all(rob["intercept_low"] < rob["intercept_high"])
+        # Reference: our own core, robust.sma_robust with n_boot 999 (resampling.bootstrap
+        # is 0 here) and the run's seed.
+        _, pts = demo_points
+        ref = sma_robust(pts["x"], pts["y"], n_boot=999, seed=SEED)
+        pooled = fits[(fits["method"] == "sma_robust") & (fits["scope"] == "pooled")].iloc[0]
+        assert_allclose([pooled["slope"], pooled["slope_low"], pooled["slope_high"]],
+                        [ref.slope, ref.slope_ci.low, ref.slope_ci.high], rtol=1e-12)
+        # robust fits have slope tests too (bootstrap / Kendall)
+        kinds = set(wide.slope_tests.loc[wide.slope_tests["method"] == "theil_sen",
+                                         "statistic_type"])
+        assert kinds == {"z"}
+
+    def test_deming_rows(self, demo, demo_points):
+        fits = _read(demo / "fits.csv")
+        dem = fits[fits["method"] == "deming"]
+        assert len(dem) == 7
+        assert_allclose(dem["deming_lambda"].astype(float), DEMO_LAMBDA, rtol=1e-12)
+        # Reference: robust.deming on the same points with the same lambda.
+        _, pts = demo_points
+        ref = deming(pts["x"], pts["y"], lam=DEMO_LAMBDA)
+        row = dem[dem["scope"] == "pooled"].iloc[0]
+        assert_allclose([row["slope"], row["slope_low"], row["slope_high"]],
+                        [ref.slope, ref.slope_ci.low, ref.slope_ci.high], rtol=1e-12)
+
+    def test_lambda_from_error_variances_equals_direct(self, small_csv):
+        # Exact law: error_variances {x: vx, y: vy} means lambda = vy / vx.
+        base = {"data": {"file": str(small_csv), "x": "mass", "y": "rate", "group": "grp"},
+                "diagnostics": {"enabled": False}}
+        a = analyse(config_from_dict({**base, "model": {
+            "methods": ["deming"], "error_variances": {"x": 0.002, "y": 0.005}}}))
+        b = analyse(config_from_dict({**base, "model": {"methods": ["deming"],
+                                                        "deming_lambda": 2.5}}))
+        cols = ["slope", "slope_low", "slope_high", "intercept", "intercept_low",
+                "intercept_high"]
+        assert_allclose(a.fits[cols].to_numpy(float), b.fits[cols].to_numpy(float),
+                        rtol=1e-12)
+        assert_allclose(a.fits["deming_lambda"].astype(float), 2.5, rtol=1e-12)
+        # and lambda matters: the default 1 (the MA line) gives another slope
+        c = analyse(config_from_dict({**base, "model": {"methods": ["deming"]}}))
+        assert not np.allclose(c.fits["slope"].to_numpy(float), a.fits["slope"].to_numpy(float))
+
+    def test_group_tests_unaffected_by_extra_methods(self, extended):
+        a, b = extended
+        pd.testing.assert_frame_equal(a.tables["group_tests"], b.tables["group_tests"])
+        pd.testing.assert_frame_equal(a.tables["pairwise_tests"], b.tables["pairwise_tests"])
+        assert "Group comparisons are available for OLS, SMA and MA; none was made for " \
+               "Theil-Sen or Deming or robust SMA." in b.messages
+        assert any(m.strip().startswith("Robust check: robust SMA exponent") for m in b.messages)
+
+    def test_all_methods_run_without_groups(self, small_csv):
+        raw = {"data": {"file": str(small_csv), "x": "mass", "y": "rate"},
+               "model": {"methods": ["ols", "deming", "theil_sen", "siegel", "sma_robust",
+                                     "ma_robust"]},
+               "resampling": {"bootstrap": 199, "permutations": 99, "seed": 2}}
+        result = analyse(config_from_dict(raw))
+        assert result.fits["slope"].notna().all()
+        assert result.slope_tests.empty   # no exponents configured
+        # The conftest simulation has exponent 0.75 (tests/conftest.py small_csv).
+        assert np.all(np.abs(result.fits["slope"] - 0.75) < 0.05)
+
+
+class TestLineFitTestSlope:
+    """LineFit.test_slope for every method: the test whose inversion is the interval."""
+
+    def _xy(self, n=30, seed=11):
+        rng = np.random.default_rng(seed)  # simulation with a known truth (b = 0.8)
+        x = 10 ** rng.uniform(0, 2, n)
+        return x, 2.0 * x ** 0.8 * 10 ** rng.normal(0, 0.08, n)
+
+    def test_deming_p_at_bounds_is_alpha(self):
+        # Exact law: the Deming interval is the inversion of its slope test, so the
+        # p-value at each bound is 1 - confidence.
+        x, y = self._xy()
+        fit = deming(x, y, lam=3.0, confidence=0.9)
+        for bound in (fit.slope_ci.low, fit.slope_ci.high):
+            test = fit.test_slope(bound)
+            assert_allclose(test.p_value, 0.1, rtol=1e-6)
+            assert test.statistic_type == "t" and test.df == len(x) - 2
+
+    def test_deming_lambda_one_is_ma_test(self):
+        # Exact law: lambda = 1 makes the Deming line the major axis (Deming 1943).
+        x, y = self._xy()
+        t_dem = deming(x, y, lam=1.0).test_slope(0.75)
+        t, df, p = slope_test_statistic(moments(np.log10(x), np.log10(y)), "ma", 0.75)
+        assert_allclose([t_dem.statistic, t_dem.p_value], [float(t), float(p)], rtol=1e-12)
+
+    def test_theil_sen_inverts_sen_interval(self):
+        # Reference: Sen (1968) interval from scipy.stats.theilslopes; the Kendall test
+        # rejects just outside it and accepts one order statistic inside (rounding of
+        # the order-statistic ranks makes the match exact only to one pairwise slope).
+        x, y = self._xy()
+        fit = theil_sen(x, y, n_boot=99, seed=1)
+        X, Y = np.log10(x), np.log10(y)
+        i, j = np.triu_indices(X.size, 1)
+        slopes = np.sort((Y[j] - Y[i]) / (X[j] - X[i]))
+        lo = int(np.searchsorted(slopes, fit.slope_ci.low))
+        hi = int(np.searchsorted(slopes, fit.slope_ci.high))
+        assert fit.test_slope((slopes[lo - 1] + slopes[lo]) / 2).p_value < 0.05
+        assert fit.test_slope((slopes[lo + 1] + slopes[lo + 2]) / 2).p_value > 0.05
+        assert fit.test_slope((slopes[hi] + slopes[hi + 1]) / 2).p_value < 0.05
+        assert fit.test_slope((slopes[hi - 2] + slopes[hi - 1]) / 2).p_value > 0.05
+        assert fit.test_slope(0.8).statistic_type == "z"
+
+    def test_theil_sen_against_kendall_tau(self):
+        # Reference library: scipy.stats.kendalltau of X against Y - b0 X gives the same
+        # concordance count S; its tau-b variance differs only by ties (none here).
+        x, y = self._xy()
+        fit = theil_sen(x, y, n_boot=99, seed=1)
+        X, Y = np.log10(x), np.log10(y)
+        ref = stats.kendalltau(X, Y - 0.7 * X, method="asymptotic")
+        test = fit.test_slope(0.7)
+        assert_allclose(test.p_value, ref.pvalue, rtol=1e-6)
+
+    @pytest.mark.parametrize("robust", [siegel, sma_robust])
+    def test_bootstrap_p_at_percentile_bounds(self, robust):
+        # Exact law (from the definitions): at the percentile bound q(alpha/2) about
+        # B alpha/2 replicates lie beyond, so p = 2 (1 + #) / (B + 1) is within
+        # 3 / (B + 1) of alpha.
+        x, y = self._xy()
+        B = 399
+        fit = robust(x, y, n_boot=B, seed=5)
+        for bound in (fit.slope_ci.low, fit.slope_ci.high):
+            assert abs(fit.test_slope(bound).p_value - 0.05) <= 3 / (B + 1)
+        assert fit.test_slope(fit.slope_ci.low - 0.05).p_value < 0.05
+        assert fit.test_slope(fit.slope).p_value > 0.5
+        assert fit.test_slope(0.8).statistic_type == "boot_share_above"
+
+    def test_fit_without_data_or_replicates_refused(self):
+        import dataclasses
+        x, y = self._xy()
+        fit = dataclasses.replace(sma_robust(x, y, n_boot=99, seed=1), slope_replicates=None)
+        with pytest.raises(ConfigError, match="carries neither data nor bootstrap replicates"):
+            fit.test_slope(0.75)
+
+    def test_deming_without_lambda_refused(self):
+        import dataclasses
+        x, y = self._xy()
+        fit = dataclasses.replace(deming(x, y, lam=2.0), lam=None)
+        with pytest.raises(ConfigError, match="needs its error-variance ratio"):
+            fit.test_slope(0.75)
+
+    def test_symmetry_table(self):
+        assert is_symmetric("deming") and is_symmetric("sma_robust")
+        assert not is_symmetric("theil_sen")
+        with pytest.raises(ConfigError, match="method must be one of"):
+            is_symmetric("loess")
+
+
+class TestCliIssue6:
+    def test_mistyped_key_exit_2(self, tmp_path, write_config, capsys):
+        (tmp_path / "d.csv").write_text("m,r\n1,2\n2,3\n3,5\n4,6\n")
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\nresampling: {permutatons: 99}\n")
+        code = main(["run", str(cfg), "--out", str(tmp_path / "o")])
+        err = capsys.readouterr().err
+        assert code == 2
+        assert err.startswith("error: ") and len(err.strip().splitlines()) == 1
+        assert "resampling.permutatons: unknown key; did you mean 'permutations'?" in err
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\ndiagnostics: {enabld: false}\n")
+        code = main(["run", str(cfg), "--out", str(tmp_path / "o")])
+        assert code == 2 and "did you mean 'enabled'?" in capsys.readouterr().err
+
+    def test_progress_silent_when_not_a_terminal(self, small_csv, write_config, capsys):
+        # Under pytest stderr is not a terminal: no progress bar even without --quiet.
+        cfg = write_config(f"data: {{file: {small_csv}, x: mass, y: rate, group: grp}}\n"
+                           "model: {methods: [sma]}\nresampling: {bootstrap: 199, "
+                           "permutations: 99}\nfigures: {formats: [png], kinds: [scaling]}\n")
+        code = main(["run", str(cfg), "--out", str(small_csv.parent / "o")])
+        out = capsys.readouterr()
+        assert code == 0 and out.err == ""
+        assert "Bootstrap (199 resamples within grp groups, BCa, seed 1)" in out.out
