@@ -33,6 +33,7 @@ from matplotlib.lines import Line2D
 from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter,
                                FuncFormatter)
 from scipy import stats
+from .lines import method_label
 
 __all__ = ["plot_scaling", "plot_natural", "plot_exponents", "plot_residuals",
            "make_scaling", "make_natural", "make_exponents", "make_residuals",
@@ -45,9 +46,18 @@ PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
            "#000000", "#F0E442"]
 MARKERS = ["o", "s", "^", "D", "v", "P", "X", "h"]
 # Methods are told apart by dash pattern (lines) and by a neutral shade.
-METHOD_DASHES = {"ols": "-", "sma": (0, (5, 2)), "ma": (0, (1.2, 1.6))}
-METHOD_SHADES = {"ols": "#1a1a1a", "sma": "#4d4d4d", "ma": "#7a7a7a"}
-METHOD_MARKERS = {"ols": "o", "sma": "s", "ma": "D"}
+METHOD_DASHES = {"ols": "-", "sma": (0, (5, 2)), "ma": (0, (1.2, 1.6)),
+                 "deming": (0, (6, 1.5, 1.2, 1.5)), "theil_sen": (0, (3, 1.2)),
+                 "siegel": (0, (3, 1.2, 1, 1.2, 1, 1.2)), "sma_robust": (0, (8, 2.5)),
+                 "ma_robust": (0, (2, 2.5))}
+METHOD_SHADES = {"ols": "#1a1a1a", "sma": "#4d4d4d", "ma": "#7a7a7a", "deming": "#333333",
+                 "theil_sen": "#5e5e5e", "siegel": "#6b6b6b", "sma_robust": "#404040",
+                 "ma_robust": "#8a8a8a"}
+METHOD_MARKERS = {"ols": "o", "sma": "s", "ma": "D", "deming": "^", "theil_sen": "v",
+                  "siegel": "<", "sma_robust": "P", "ma_robust": "X"}
+# At most this many fitted equations are written on the scaling plot; the
+# legend names every line (more would crowd the data off the axes).
+MAX_EQUATIONS = 3
 MM = 1 / 25.4
 SIZES = {"single": 85 * MM, "double": 180 * MM}
 KINDS = ("scaling", "natural", "exponents", "residuals")
@@ -337,7 +347,7 @@ def equation_text(fit, *, digits: int = 3) -> str:
         f"{a / 10 ** math.floor(math.log10(a)):.{digits - 1}f}" \
         f"\\times10^{{{math.floor(math.log10(a))}}}"
     a_text = a_text.replace(THIN, r"\,")
-    return (f"{fit.method.upper()}: $y = {a_text}\\,x^{{{fit.slope:.{digits}f}}}$ "
+    return (f"{method_label(fit.method)}: $y = {a_text}\\,x^{{{fit.slope:.{digits}f}}}$ "
             f"({ci})")
 
 
@@ -450,7 +460,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         if drawn:
             handles.append(Line2D([], [], color="#888888", lw=0.9,
                                   ls=METHOD_DASHES.get(gmethod, "-"),
-                                  label=f"{gmethod.upper()} line per group"))
+                                  label=f"{method_label(gmethod)} line per group"))
 
     # main lines with bands
     eq_lines = []
@@ -474,10 +484,11 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         ys_all.append(_unlog(fitted, base))
         where = "group means" if scope == "group_means" else (
             "all groups" if groups else "")
-        label = f"{method.upper()}" + (f" ({where})" if where else "")
+        label = method_label(method) + (f" ({where})" if where else "")
         handles.append(Line2D([], [], color=shade, lw=1.3, ls=METHOD_DASHES.get(method, "-"),
                               label=label))
-        eq_lines.append(equation_text(fit))
+        if len(eq_lines) < MAX_EQUATIONS:
+            eq_lines.append(equation_text(fit))
     if band and eq_lines:
         handles.append(matplotlib.patches.Patch(color="#4d4d4d", alpha=0.25, lw=0,
                                                 label=f"{100 * result.config.model.confidence:g}% "
@@ -636,7 +647,7 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
         ax.fill_between(xs, pred.y_low, pred.y_high, color=shade, alpha=0.10, lw=0, zorder=1)
         ax.plot(xs, pred.y, color=shade, lw=1.2, ls=METHOD_DASHES.get(method, "-"), zorder=4)
         handles.append(Line2D([], [], color=shade, lw=1.2, ls=METHOD_DASHES.get(method, "-"),
-                              label=method.upper()))
+                              label=method_label(method)))
     if len(handles) > len(groups):
         what = "mean" if correction != "none" else "median"
         handles.append(matplotlib.patches.Patch(
@@ -726,7 +737,7 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         if any_drawn:
             handles.append(Line2D([], [], color=shade, lw=1.0, marker=marker, markersize=3.6,
                                   markeredgecolor="white", markeredgewidth=0.4,
-                                  label=method.upper()))
+                                  label=method_label(method)))
     # reference exponents
     refs = list(result.config.exponents.items())
     values = [v for _, v in refs]
@@ -826,7 +837,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     fit = result.line_fits.get((scope, "", method))
     pts = result.data.points
     if fit is None:
-        ax.text(0.5, 0.5, f"{method.upper()}: no estimable fit", ha="center",
+        ax.text(0.5, 0.5, f"{method_label(method)}: no estimable fit", ha="center",
                 va="center", transform=ax.transAxes)
         return ax
     from .lines import base_label
@@ -853,7 +864,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
             ax.plot(zz, q1 + slope * (zz - z1), color="#4d4d4d", lw=0.8, zorder=1)
         ax.set_xlabel("normal quantile")
         ax.set_ylabel(f"residual (log{blabel})")
-        ax.set_title(f"{method.upper()}: normal quantiles", loc="left")
+        ax.set_title(f"{method_label(method)}: normal quantiles", loc="left")
     else:
         for c in np.unique(codes):
             colour, marker = _group_style(int(c))
@@ -863,7 +874,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
         ax.set_xlabel(_FITTED_LABEL.get(method, "fitted").replace("log", f"log{blabel}"))
         ax.set_ylabel(f"residual (log{blabel})")
-        ax.set_title(f"{method.upper()}: residuals", loc="left")
+        ax.set_title(f"{method_label(method)}: residuals", loc="left")
     lim = float(np.max(np.abs(resid))) * 1.15 if resid.size else 1.0
     ax.set_ylim(-lim, lim)
     ax.xaxis.set_major_locator(MaxNLocator(5))
