@@ -568,9 +568,16 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
         tables["predictions"] = table
         n_ext = int(table["extrapolated"].sum()) if len(table) else 0
         if n_ext:
-            xs = sorted(set(table.loc[table["extrapolated"], "x"]))
-            notes.append(f"{n_ext} predictions are extrapolations outside the fitted x range "
-                         f"(x = {', '.join(f'{v:g}' for v in xs)}); treat them with caution.")
+            ext = table[table["extrapolated"]]
+            by_scope = ext.groupby("scope", sort=False)["x"].agg(lambda v: sorted(set(v)))
+            parts = []
+            for scope, xs in by_scope.items():
+                what = {"pooled": "pooled fits", "group": "group fits",
+                        "group_means": "lines through group means"}.get(scope, scope)
+                parts.append(f"{what}: x = {', '.join(f'{v:g}' for v in xs)}")
+            notes.append(f"{n_ext} of {len(table)} predictions lie outside the x range of the "
+                         f"fit that made them ({'; '.join(parts)}); they are extrapolations, "
+                         "flagged in predictions.csv; treat them with caution.")
     if pc.y:
         table = pd.concat(inv_rows, ignore_index=True)[INVERSE_COLUMNS] if inv_rows else \
             pd.DataFrame(columns=INVERSE_COLUMNS)

@@ -102,7 +102,7 @@ from scipy import stats
 
 from .errors import (ConfigError, DataError, DegenerateDataWarning,
                      ExtrapolationWarning)
-from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, base_label, is_symmetric,
+from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, base_label, method_label, is_symmetric,
                     parse_log_base, to_log)
 from .moments import Moments
 
@@ -469,7 +469,7 @@ class Prediction:
         """A few lines of text, one per x."""
         pct = f"{100 * self.confidence:g}%"
         what = "mean" if self.correction != "none" else "median"
-        lines = [f"{self.method.upper()} predictions of y ({what}, correction "
+        lines = [f"{method_label(self.method)} predictions of y ({what}, correction "
                  f"{self.correction}, {pct} {self.interval} interval)"]
         for i in range(self.x.size):
             flag = "  [extrapolated]" if self.extrapolated[i] else ""
@@ -535,7 +535,7 @@ class InversePrediction:
     def summary(self) -> str:
         """A few lines of text, one per y."""
         pct = f"{100 * self.confidence:g}%"
-        lines = [f"{self.method.upper()} estimates of x from y ({pct} {self.interval} interval)"]
+        lines = [f"{method_label(self.method)} estimates of x from y ({pct} {self.interval} interval)"]
         for i in range(self.y.size):
             flag = "  [extrapolated]" if self.extrapolated[i] else ""
             span = (f"{self.x_low[i]:.4g} to {self.x_high[i]:.4g}" if self.bounded[i]
@@ -586,7 +586,7 @@ class Accuracy:
         }])
 
     def summary(self) -> str:
-        return (f"{self.method.upper()}: SEE = {self.see:.4g} (log{base_label(self.log_base)}), "
+        return (f"{method_label(self.method)}: SEE = {self.see:.4g} (log{base_label(self.log_base)}), "
                 f"%SEE = +{self.percent_see:.3g}% / -{self.percent_see_minus:.3g}%, "
                 f"%PE = {self.percent_pe:.3g}% (n = {self.n}, correction {self.correction})")
 
@@ -673,7 +673,7 @@ def predict(fit: LineFit, x, *, correction: str = "smearing",
     extrapolated = _outside(x, fit.x_range)
     _warn_outside(extrapolated, fit.x_range, "x")
     if not fit.estimable:
-        warnings.warn(f"{fit.method.upper()} fit not estimable ({fit.note}): predictions are NaN",
+        warnings.warn(f"{method_label(fit.method)} fit not estimable ({fit.note}): predictions are NaN",
                       DegenerateDataWarning, stacklevel=2)
     fitted, se, lo, hi = log_interval(to_log(x, base), confidence=confidence,
                                       interval=interval, **_line_params(fit))
@@ -729,7 +729,7 @@ def inverse_predict(fit: LineFit, y, *, interval: str = "prediction",
     extrapolated = _outside(y, fit.y_range)
     _warn_outside(extrapolated, fit.y_range, "y")
     if not fit.estimable:
-        warnings.warn(f"{fit.method.upper()} fit not estimable ({fit.note}): estimates are NaN",
+        warnings.warn(f"{method_label(fit.method)} fit not estimable ({fit.note}): estimates are NaN",
                       DegenerateDataWarning, stacklevel=2)
     Y0 = to_log(y, base)
     if is_symmetric(fit.method):
@@ -741,7 +741,7 @@ def inverse_predict(fit: LineFit, y, *, interval: str = "prediction",
     bounded = np.isfinite(lo) & np.isfinite(hi)
     if fit.estimable and not np.all(bounded):
         warnings.warn(f"the {100 * confidence:g}% inverse interval is unbounded: the "
-                      f"{fit.method.upper()} slope does not differ from 0 at this level",
+                      f"{method_label(fit.method)} slope does not differ from 0 at this level",
                       DegenerateDataWarning, stacklevel=2)
     return InversePrediction(
         method=fit.method, y=_frozen(y), x=_frozen(_unlog(fitted, base)),

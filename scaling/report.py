@@ -25,6 +25,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .lines import method_label
+
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
            "format_value"]
@@ -188,7 +190,7 @@ def _slope_sentences(result) -> list:
             verdict = f"is {side} {target}, {p_text(r.p_value)}."
         else:
             verdict = f"does not differ detectably from {target}, {p_text(r.p_value)}."
-        out.append((r.scope, f"{_scope_words(r.scope, r.group)}: the {str(r.method).upper()} exponent "
+        out.append((r.scope, f"{_scope_words(r.scope, r.group)}: the {method_label(str(r.method))} exponent "
                    f"{_num(r.estimate)}{ci} {verdict}"))
     return out
 
@@ -198,7 +200,7 @@ def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
     out = []
     for _, r in table.iterrows():
         test = str(r.get("test", ""))
-        method = str(r.get("method", "")).upper()
+        method = method_label(str(r.get("method", "")))
         p = r.get("p_value", np.nan)
         null, alt = GROUP_TEST_WORDS.get(test, (f"the null hypothesis of {test}",
                                                 f"{test} is rejected"))
@@ -239,7 +241,7 @@ def _data_section(result) -> Section:
         f"x: {cfg.data.x}" + (f" ({units['x']})" if units.get("x") else ""),
         f"y: {cfg.data.y}" + (f" ({units['y']})" if units.get("y") else ""),
         f"Log base: {cfg.model.log_base}; methods: "
-        f"{', '.join(m.upper() for m in cfg.model.methods)}; confidence "
+        f"{', '.join(method_label(m) for m in cfg.model.methods)}; confidence "
         f"{100 * cfg.model.confidence:g}%",
     ]
     if getattr(data, "averaged_within", None):
@@ -299,7 +301,7 @@ def _fits_display(result) -> pd.DataFrame:
         eq = (f"{_num(fit.a)}·x^{_num(fit.slope)}"
               if fit is not None and fit.log_base is not None and np.isfinite(fit.slope)
               else "–")
-        row = {"scope": r["scope"], "group": r["group"], "method": str(r["method"]).upper(),
+        row = {"scope": r["scope"], "group": r["group"], "method": method_label(str(r["method"])),
                "n": r["n"], "b": r["slope"], "b interval": _interval_text(
                    r["slope_low"], r["slope_high"]),
                "log a": r["intercept"], "log a interval": _interval_text(
@@ -698,7 +700,7 @@ def render_fits_tex(result) -> str:
                 if np.isfinite(r.slope_low) and np.isfinite(r.slope_high) else "--")
         ci_a = (f"{_tex_num(r.intercept_low, 'x')}--{_tex_num(r.intercept_high, 'x')}"
                 if np.isfinite(r.intercept_low) and np.isfinite(r.intercept_high) else "--")
-        cells = [latex_escape(r.scope), latex_escape(r.group), latex_escape(r.method.upper()),
+        cells = [latex_escape(r.scope), latex_escape(r.group), latex_escape(method_label(r.method)),
                  _tex_num(r.n, "n"), _tex_num(r.slope, "slope"), ci_b,
                  _tex_num(r.intercept, "intercept"), ci_a, _tex_num(r.r2, "r2")]
         lines.append(" & ".join(cells) + " \\\\")
