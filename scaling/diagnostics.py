@@ -52,7 +52,7 @@ import numpy as np
 from scipy import optimize, stats
 
 from .errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import LineFit, format_p, p_text
+from .lines import LineFit, p_text
 
 __all__ = [
     "Check",

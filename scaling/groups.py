@@ -118,7 +118,7 @@ import pandas as pd
 from scipy import optimize, stats
 
 from .errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import (METHODS, ConfidenceInterval, LineFit, fit_notes, format_p, p_text,
+from .lines import (METHODS, ConfidenceInterval, LineFit, fit_notes, p_text,
                     line_fit_from_moments, parse_log_base, to_log)
 from .moments import Moments, group_moments, moments, weighted_moments
 

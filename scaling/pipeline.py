@@ -27,7 +27,7 @@ from .config import Config, config_from_dict, load_config
 from .data import CleanData, load_data
 from .errors import DataError, OutputError, ScalingError
 from .lines import (MIN_N, METHODS, base_label, describe_test, fit_moments,
-                    line_fit_from_moments, method_label, parse_log_base, slope_test_statistic)
+                    line_fit_from_moments, method_label, parse_log_base)
 from .moments import group_moments, moments
 
 __all__ = ["RunResult", "analyse", "write_outputs", "run_config", "FIT_COLUMNS",

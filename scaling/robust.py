@@ -64,7 +64,8 @@ from scipy import stats
 
 from .errors import ConfigError, DataError, DegenerateDataWarning
 from .lines import (ConfidenceInterval, LineFit, _check_confidence as _lines_confidence,
-                    fit_moments, line_fit_from_moments, parse_log_base, to_log)
+                    fit_moments, line_fit_from_moments, parse_log_base, to_log,
+                    _validate_xy)
 from .moments import Moments, moments as _moments
 from .resample import _percentile, _rng, draw_counts
 
@@ -95,21 +96,8 @@ def _confidence(confidence) -> float:
 
 
 def _prepare(x, y, log_base, *, need_spread: bool = True):
-    try:
-        base = parse_log_base(log_base)
-    except ValueError as exc:
-        raise ConfigError(str(exc)) from None
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    if x.ndim != 1 or y.ndim != 1:
-        raise DataError("x and y must be one-dimensional")
-    if x.shape != y.shape:
-        raise DataError(f"x and y must have the same length, not {x.size} and {y.size}")
-    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
-        raise DataError("x and y must be finite numbers (no NaN or inf); clean them first")
-    if base is not None and (np.any(x <= 0) or np.any(y <= 0)):
-        raise DataError("x and y must be positive to take logarithms; "
-                        "pass log_base=None if they are logs already")
+    base = parse_log_base(log_base)
+    x, y = _validate_xy(x, y, base)
     if x.size < MIN_N:
         raise DataError(f"x and y need at least {MIN_N} rows, not {x.size}")
     X, Y = to_log(x, base), to_log(y, base)
