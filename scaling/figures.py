@@ -741,12 +741,16 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
     # reference exponents
     refs = list(result.config.exponents.items())
     values = [v for _, v in refs]
+    if not rows:
+        ax.text(0.5, 0.5, "no estimable fit to show (see the note column of fits.csv)",
+                transform=ax.transAxes, ha="center", va="center", color="#4d4d4d")
     if lows:
         lo_all = min(lows + values)
         hi_all = max(highs + values)
         pad = 0.08 * (hi_all - lo_all or 0.1)
         ax.set_xlim(lo_all - pad, hi_all + pad)
-    ax.set_ylim(len(rows) - 0.5, -0.5 - (0.55 if refs else 0))   # first row on top
+    # first row on top; at least one row's height when no fit is estimable
+    ax.set_ylim(max(len(rows), 1) - 0.5, -0.5 - (0.55 if refs else 0))
     span = np.diff(ax.get_xlim())[0]
     placed: list = []
     for name, value in sorted(refs, key=lambda kv: kv[1]):
@@ -876,6 +880,8 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ax.set_ylabel(f"residual (log{blabel})")
         ax.set_title(f"{method_label(method)}: residuals", loc="left")
     lim = float(np.max(np.abs(resid))) * 1.15 if resid.size else 1.0
+    if not lim > 0:   # perfect fit: all residuals zero
+        lim = 1.0
     ax.set_ylim(-lim, lim)
     ax.xaxis.set_major_locator(MaxNLocator(5))
     ax.yaxis.set_major_locator(MaxNLocator(5, symmetric=True))

@@ -908,7 +908,8 @@ def _bootstrap_stage(line_fits: dict, point_sets: dict, cfg: Config, moment_meth
                                "n_valid": item.n_valid, "confidence": res.confidence})
     table = pd.DataFrame(frame_rows, columns=BOOTSTRAP_COLUMNS)
     # keep only lines that were fitted (estimable) and order like the fits
-    keep = [(r.scope, r.group, r.method) in line_fits for r in table.itertuples()]
+    keep = np.array([(r.scope, r.group, r.method) in line_fits for r in table.itertuples()],
+                    dtype=bool)   # a boolean array, also when empty (a [] selects columns)
     table = table[keep].reset_index(drop=True)
 
     pooled = table[(table["scope"] == "pooled") & (table["parameter"] == "slope")]

@@ -149,6 +149,29 @@ class TestRun:
         assert "skipped" in stdout
 
 
+class TestEdgeCases:
+    @pytest.mark.parametrize("rows", [
+        "m,r\n1,2\n2,3\n",                                # n = 2: nothing estimable
+        "m,r\n1,2\n2,4\n4,8\n8,16\n16,32\n",              # perfect power law, b = 1
+        "m,r\n1,2\n1,3\n1,5\n1,6\n",                     # x does not vary
+    ])
+    def test_degenerate_data_runs_cleanly(self, tmp_path, write_config, capsys, rows):
+        import warnings
+        (tmp_path / "d.csv").write_text(rows)
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\nexponents: {iso: 1}\n"
+                           "prediction: {x: [3]}\n"
+                           "resampling: {bootstrap: 199, permutations: 99}\n")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            code, _, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 0, err
+        assert err == ""
+        leaked = [w for w in caught if "matplotlib" in str(w.filename)
+                  or "scaling" in str(w.filename)]
+        assert not leaked, [str(w.message) for w in leaked]
+        assert (tmp_path / "o" / "report.html").is_file()
+
+
 class TestErrors:
     @pytest.mark.parametrize("text, pattern", [
         ("data: {file: d.csv, x: m, y: r\n", r"YAML syntax error at line"),
