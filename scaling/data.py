@@ -239,7 +239,7 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         for i in np.flatnonzero(hit & active):
             reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
 
-    excluded = np.array([bool(r) for r in reasons]) & active
+    excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
     active = active & ~excluded
 
     if g_col is not None:
@@ -263,6 +263,8 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         "reason": ["; ".join(reasons[i]) for i in np.flatnonzero(dropped_mask)],
     })
     use = keep & ~dropped_mask
+    if n_read == 0:
+        raise DataError(f"{path}: has no data rows under the header line")
     if not use.any():
         common = dropped["reason"].value_counts().index[0] if len(dropped) else "the table is empty"
         raise DataError(f"{path}: no usable rows: all {n_read} data rows were dropped "

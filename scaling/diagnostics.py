@@ -148,7 +148,7 @@ class Curvature:
         if self.log_base is None:
             return float(log_x)
         with np.errstate(over="ignore"):
-            return float(self.log_base ** log_x)
+            return float(np.power(np.float64(self.log_base), log_x))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -396,7 +396,8 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
             continue
         lx = (target - qv["linear"]) / (2 * qv["quadratic"])
         with np.errstate(over="ignore"):
-            xs = float(lx) if base is None else float(base ** lx)
+            # numpy power: a crossing far outside the data gives inf, not OverflowError
+            xs = float(lx) if base is None else float(np.power(np.float64(base), lx))
         crossings.append((target, xs, bool(lo <= lx <= hi)))
     curv = Curvature(intercept=qv["intercept"], linear=qv["linear"],
                      quadratic=qv["quadratic"], quadratic_se=qv["quadratic_se"],

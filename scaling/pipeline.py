@@ -328,7 +328,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         "scaling_version": __version__,
         "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         "config_file": str(cfg.source) if cfg.source else None,
-        "config": cfg.raw,
+        "config": _json_safe(cfg.raw),
         "input_file": str(cfg.data.file),
         "input_sha256": _file_sha256(Path(cfg.data.file)),
         "versions": _versions(),
@@ -991,6 +991,8 @@ def _json_safe(obj):
         return {str(k): _json_safe(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
         return [_json_safe(v) for v in obj]
+    if isinstance(obj, str):
+        return str(obj)   # also numpy str_, which YAML/JSON writers refuse
     if isinstance(obj, (np.integer,)):
         return int(obj)
     if isinstance(obj, (float, np.floating)):

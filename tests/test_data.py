@@ -126,6 +126,11 @@ class TestLoadData:
         with pytest.raises(DataError, match=r"no usable rows: all 2 data rows were dropped"):
             load_data(_cfg(tmp_path))
 
+    def test_header_only(self, tmp_path):
+        _write(tmp_path, "mass,rate,clade\n")
+        with pytest.raises(DataError, match=r"has no data rows under the header line"):
+            load_data(_cfg(tmp_path, group="clade"))
+
     def test_delimiter_equals_decimal(self, tmp_path):
         _write(tmp_path, "mass,rate\n1,2\n")
         with pytest.raises(DataError, match=r"data.delimiter and data.decimal are both ','"):
