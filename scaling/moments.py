@@ -141,7 +141,7 @@ def weighted_moments(x, y, weights) -> Moments:
 
     With integer weights (counts of how often each row is drawn) this gives
     the moments of a resample without building it, so ``B`` bootstrap
-    resamples are one ``(B, n) @ (n,)`` product per sum.
+    resamples are one ``(B, n) @ (n, 6)`` matrix product.
 
     Parameters
     ----------
@@ -152,18 +152,52 @@ def weighted_moments(x, y, weights) -> Moments:
     -------
     Moments
         Arrays of shape ``weights.shape[:-1]``.
+
+    Notes
+    -----
+    With X and Y first centred on their unweighted means (cx, cy), one
+    product of the weights with the columns (1, cx, cy, cx^2, cy^2, cx cy)
+    gives the total weight W and the weighted sums; then mean = sum / W and
+    Sxx = sum w cx^2 - W mean_cx^2 (and likewise Syy, Sxy), the textbook
+    identity for centred sums, exact up to rounding because the data are
+    already centred.  Integer weights are converted to float64, in which
+    the total weight and every count are exact.  A float64 weight array is
+    used as it is (no copy), which matters for large bootstrap chunks.
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     w = np.asarray(weights, dtype=float)
-    n = w.sum(axis=-1)
+    design, xbar, ybar = _weight_design(x, y)
+    return _moments_from_sums(w @ design, xbar, ybar)   # one pass over the weights
+
+
+def _weight_design(x: np.ndarray, y: np.ndarray):
+    """Columns (1, cx, cy, cx^2, cy^2, cx cy) of :func:`weighted_moments` and the means.
+
+    Split out so that a caller with many weight matrices for the same rows
+    (the bootstrap chunks of :mod:`scaling.resample`) builds them once.
+    """
     # Centre on the unweighted means first so the weighted sums stay precise.
-    cx, cy = x - x.mean(), y - y.mean()
+    xbar, ybar = x.mean(), y.mean()
+    cx, cy = x - xbar, y - ybar
+    design = np.empty((x.size, 6))
+    design[:, 0] = 1.0
+    design[:, 1] = cx
+    design[:, 2] = cy
+    design[:, 3] = cx * cx
+    design[:, 4] = cy * cy
+    design[:, 5] = cx * cy
+    return design, xbar, ybar
+
+
+def _moments_from_sums(sums: np.ndarray, xbar, ybar) -> Moments:
+    """Moments from ``weights @ design`` (last axis: the six sums of :func:`_weight_design`)."""
+    n, sx, sy, sxx, syy, sxy = np.moveaxis(sums, -1, 0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        mx = (w @ cx) / n
-        my = (w @ cy) / n
-        sxx = w @ (cx * cx) - n * mx * mx
-        syy = w @ (cy * cy) - n * my * my
-        sxy = w @ (cx * cy) - n * mx * my
-    return Moments(n=n, mean_x=mx + x.mean(), mean_y=my + y.mean(),
+        mx = sx / n
+        my = sy / n
+        sxx = sxx - n * mx * mx
+        syy = syy - n * my * my
+        sxy = sxy - n * mx * my
+    return Moments(n=n, mean_x=mx + xbar, mean_y=my + ybar,
                    sxx=sxx, syy=syy, sxy=sxy)

@@ -13,6 +13,7 @@ from scipy import stats
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
 from scaling.lines import fit_line, slope_test_statistic
 from scaling.moments import Moments, moments
+import scaling.resample as resample
 from scaling.resample import (bca_interval, bootstrap_lines, draw_counts,
                               line_from_moments, permutation_slope_test)
 
@@ -62,6 +63,34 @@ class TestDrawCounts:
         expected = np.stack([np.bincount(row, minlength=7) for row in idx])
         assert_allclose(counts, expected, rtol=0)
 
+    def test_fast_counts_are_16_and_32_bit_draws(self):
+        # Exact law: draws="fast" counts are the bincount of rng.integers(..., dtype=uint16)
+        # (uint32 above 65 536 rows); for n = 65 537 the blocks hold one resample each,
+        # and block-wise 32-bit draws consume the stream like one call.
+        counts = draw_counts(np.random.default_rng(3), 7, 5, draws="fast")
+        idx = np.random.default_rng(3).integers(0, 7, (5, 7), dtype=np.uint16)
+        assert_allclose(counts, [np.bincount(row, minlength=7) for row in idx], rtol=0)
+        n = 65_537
+        counts = draw_counts(np.random.default_rng(4), n, 2, draws="fast")
+        idx = np.random.default_rng(4).integers(0, n, (2, n), dtype=np.uint32)
+        assert_allclose(counts, [np.bincount(row, minlength=n) for row in idx], rtol=0)
+
+    def test_fast_counts_are_multinomial(self):
+        # Exact law: each row sums to n; each count is Binomial(n, 1/n), variance
+        # (n - 1)/n; the column totals are Multinomial(B n, 1/n) (chi-square, n - 1 df).
+        n, B = 50, 4000
+        counts = draw_counts(np.random.default_rng(8), n, B, draws="fast")
+        assert_allclose(counts.sum(axis=1), n, rtol=0)  # exact law
+        v = (n - 1) / n
+        # SE of the sample variance of B n cells: sqrt((mu4 - v^2) / (B n)) with the
+        # binomial fourth central moment mu4 ~ v (1 + 3 v), i.e. about 0.0038 (cells of
+        # one row are slightly negatively correlated, which only lowers it); tolerance 4 SE.
+        assert abs(counts.var(ddof=1) - v) <= 4 * math.sqrt((v + 2 * v * v) / (B * n))
+        totals = counts.sum(axis=0)
+        chi2 = np.sum((totals - B) ** 2 / B)
+        # scipy.stats.chi2: a uniform draw fails this 1 time in 10 000.
+        assert stats.chi2.sf(chi2, n - 1) > 1e-4, chi2
+
     def test_within_groups(self):
         # Exact law: a stratified resample keeps every group's size.
         labels = np.array([0, 0, 0, 1, 1, 1, 1, 2, 2, 2])
@@ -90,10 +119,11 @@ class TestLineFromMoments:
 class TestBootstrapLines:
     @pytest.mark.parametrize("method, stat", [("sma", _sma), ("ols", _ols), ("ma", _ma)])
     def test_equals_scipy_bootstrap_on_same_resamples(self, method, stat):
-        # Reference library: scipy.stats.bootstrap(paired=True) draws the same index
-        # matrix from the same seed, so percentile and BCa intervals agree to rounding.
+        # Reference library: with draws="scipy" (the default) scipy.stats.bootstrap
+        # (paired=True) draws the same index matrix from the same seed, so percentile and
+        # BCa intervals agree to rounding.
         X, Y = _data()
-        res = bootstrap_lines(X, Y, methods=(method,), n_boot=2000, seed=5)
+        res = bootstrap_lines(X, Y, methods=(method,), n_boot=2000, seed=5, draws="scipy")
         ours = res.get(method)
         for kind in ("percentile", "BCa"):
             ref = stats.bootstrap((X, Y), stat, paired=True, vectorized=True, n_resamples=2000,
@@ -103,10 +133,96 @@ class TestBootstrapLines:
                                                   ref.confidence_interval.high], rtol=1e-9)
             assert_allclose(ours.se, ref.standard_error, rtol=1e-9)  # scipy.stats.bootstrap
 
+    @pytest.mark.parametrize("method, stat", [("sma", _sma), ("ols", _ols), ("ma", _ma)])
+    def test_fast_draws_agree_with_scipy_within_monte_carlo_error(self, method, stat):
+        # Reference library: scipy.stats.bootstrap(paired=True) on its own resamples;
+        # draws="fast" uses other (independent) resamples of the same data, so the two
+        # agree within Monte Carlo error.  B = 20 000 each.  A 2.5 % quantile estimate
+        # has SD sqrt(p (1 - p) / B) / phi(1.96) = 0.019 SE (normal approximation), the
+        # difference of two 0.027 SE; tolerance 0.15 SE (>= 5 SD; observed <= 0.04 SE,
+        # seeds 5/5).  The bootstrap SE itself: relative SD of the difference
+        # sqrt((kurtosis - 1) / (2 B)) <= 0.012 for kurtosis <= 7; tolerance rtol 0.05
+        # (observed <= 0.018).
+        X, Y = _data()
+        ours = bootstrap_lines(X, Y, methods=(method,), n_boot=20000, seed=5,
+                               draws="fast").get(method)
+        for kind in ("percentile", "BCa"):
+            ref = stats.bootstrap((X, Y), stat, paired=True, vectorized=True, n_resamples=20000,
+                                  method=kind, rng=np.random.default_rng(5))
+            got = ours.percentile if kind == "percentile" else ours.bca
+            se = ref.standard_error
+            assert_allclose([got.low, got.high], [ref.confidence_interval.low,
+                                                  ref.confidence_interval.high],
+                            rtol=0, atol=0.15 * se)  # scipy.stats.bootstrap, MC tolerance
+            assert_allclose(ours.se, se, rtol=0.05)  # scipy.stats.bootstrap, MC tolerance
+
+    def test_fast_draws_same_with_and_without_threads(self, monkeypatch):
+        # Exact law: the two streams of draws="fast" are fixed per block of resamples,
+        # so working on them in two threads gives the one-thread result (rtol 1e-12:
+        # BLAS rounding only).
+        X, Y = _data(n=300, seed=6)
+        groups = np.repeat(["a", "b", "c"], 100)
+        monkeypatch.setattr(resample, "_cpus", lambda: 2)
+        monkeypatch.setattr(resample, "_THREAD_CELLS", 1)
+        two = bootstrap_lines(X, Y, methods=("sma", "ols"), groups=groups, n_boot=5000,
+                              seed=1, draws="fast")
+        monkeypatch.setattr(resample, "_THREAD_CELLS", math.inf)
+        one = bootstrap_lines(X, Y, methods=("sma", "ols"), groups=groups, n_boot=5000,
+                              seed=1, draws="fast")
+        for key in one.replicates:
+            assert_allclose(two.replicates[key], one.replicates[key], rtol=1e-12)
+        for a, b in zip(two.intervals, one.intervals):
+            assert_allclose([a.percentile.low, a.bca.high], [b.percentile.low, b.bca.high],
+                            rtol=1e-12)  # same replicates -> same intervals
+
+    def test_fast_draws_chunking_and_seed(self):
+        # Exact law: blocks of draws are fixed by n, so chunk_size does not change the
+        # replicates (rtol 1e-12: BLAS rounding only), with or without groups; the same
+        # seed gives the same result, another seed another one.
+        X, Y = _data(n=60, seed=7)
+        groups = np.repeat([0, 1], 30)
+        for g in (None, groups):
+            a = bootstrap_lines(X, Y, methods="sma", groups=g, n_boot=5000, seed=2,
+                                draws="fast")
+            b = bootstrap_lines(X, Y, methods="sma", groups=g, n_boot=5000, seed=2,
+                                draws="fast", chunk_size=37)
+            for key in a.replicates:
+                assert_allclose(a.replicates[key], b.replicates[key], rtol=1e-12)
+        c = bootstrap_lines(X, Y, methods="sma", n_boot=5000, seed=3, draws="fast")
+        assert not np.allclose(c.replicates[(None, "sma")], a.replicates[(None, "sma")])
+
+    def test_fast_draws_from_a_generator_that_cannot_spawn(self):
+        # Exact law: a legacy-seeded MT19937 cannot spawn; its two streams are then
+        # seeded from its own draws, still reproducibly.
+        def gen():
+            bits = np.random.MT19937()
+            bits._legacy_seeding(5)
+            return np.random.Generator(bits)
+
+        X, Y = _data()
+        a = bootstrap_lines(X, Y, methods="sma", n_boot=200, seed=gen(), draws="fast")
+        b = bootstrap_lines(X, Y, methods="sma", n_boot=200, seed=gen(), draws="fast")
+        assert_allclose(a.replicates[(None, "sma")], b.replicates[(None, "sma")], rtol=0)
+
+    def test_jackknife_downdating_equals_deleting_rows(self):
+        # Exact identity: the downdated leave-one-out moments equal the moments of the
+        # sample without row i (numpy, two-pass), to rounding.
+        X, Y = _data(n=25, seed=3)
+        X = X + 100.0  # a large offset, where naive sums of squares lose digits
+        jack = resample._jackknife_moments(moments(X, Y), X, Y)
+        for i in (0, 7, 24):
+            xs, ys = np.delete(X, i), np.delete(Y, i)
+            xc, yc = xs - xs.mean(), ys - ys.mean()
+            assert_allclose([jack.n[i], jack.mean_x[i], jack.mean_y[i], jack.sxx[i],
+                             jack.syy[i], jack.sxy[i]],
+                            [24, xs.mean(), ys.mean(), xc @ xc, yc @ yc, xc @ yc],
+                            rtol=1e-10)  # numpy on the shortened sample
+
     def test_intercept_equals_scipy(self):
         # Reference library: scipy.stats.bootstrap on the SMA intercept mean_y - b mean_x.
         X, Y = _data(seed=2)
-        ours = bootstrap_lines(X, Y, methods="sma", n_boot=1500, seed=9).get("sma", "intercept")
+        ours = bootstrap_lines(X, Y, methods="sma", n_boot=1500, seed=9,
+                               draws="scipy").get("sma", "intercept")
         ref = stats.bootstrap((X, Y), _sma_intercept, paired=True, vectorized=True,
                               n_resamples=1500, method="BCa", rng=np.random.default_rng(9))
         assert_allclose([ours.bca.low, ours.bca.high],
@@ -246,6 +362,8 @@ class TestBootstrapLines:
             bootstrap_lines(X, Y, seed="abc")
         with pytest.raises(ConfigError, match="chunk_size must be an integer"):
             bootstrap_lines(X, Y, chunk_size=0)
+        with pytest.raises(ConfigError, match="draws must be one of fast, scipy"):
+            bootstrap_lines(X, Y, draws="quick")
         with pytest.raises(DataError, match="groups must be one label per row"):
             bootstrap_lines(X, Y, groups=np.zeros(3))
         with pytest.raises(DataError, match="has fewer than 3 rows"):
