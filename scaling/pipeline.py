@@ -535,6 +535,16 @@ INVERSE_COLUMNS = ["scope", "group", "method", "y", "x", "x_low", "x_high", "int
                    "extrapolated", "confidence"]
 
 
+def _tagged(prediction, scope: str, group: str, method: str) -> pd.DataFrame:
+    """A prediction's table with the columns that say which fit made it."""
+    f = prediction.to_frame()
+    f.insert(0, "scope", scope)
+    f.insert(1, "group", group)
+    f["method"] = method
+    f["confidence"] = prediction.confidence
+    return f
+
+
 def _predictions(line_fits: dict, saved: dict, cfg: Config):
     """predictions.csv (and inverse_predictions.csv) for the config's values."""
     from .predict import fit_from_dict, inverse_predict, predict_from_dict
@@ -547,20 +557,10 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
             if pc.x:
                 p = predict_from_dict(d, list(pc.x), correction=pc.correction,
                                       interval=pc.interval)
-                f = p.to_frame()
-                f.insert(0, "scope", scope)
-                f.insert(1, "group", group)
-                f["method"] = method
-                f["confidence"] = p.confidence
-                rows.append(f)
+                rows.append(_tagged(p, scope, group, method))
             if pc.y:
                 q = inverse_predict(fit_from_dict(d), list(pc.y), interval=pc.interval)
-                f = q.to_frame()
-                f.insert(0, "scope", scope)
-                f.insert(1, "group", group)
-                f["method"] = method
-                f["confidence"] = q.confidence
-                inv_rows.append(f)
+                inv_rows.append(_tagged(q, scope, group, method))
     tables = {}
     if pc.x:
         table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS] if rows else \
