@@ -31,6 +31,9 @@ __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
            "format_value"]
 
+# Tables longer than this are folded (<details>) in the HTML report.
+FOLD_ROWS = 30
+
 FIGURE_CAPTIONS = {
     "scaling": "Data on log–log axes in natural units; fitted lines over the fitted range "
                "with their confidence bands; group means ± 1 SE (back-transformed).",
@@ -551,7 +554,13 @@ def _html_block(block: Block) -> str:
     if block.kind == "ul":
         return "<ul>" + "".join(f"<li>{_esc(t)}</li>" for t in block.items) + "</ul>"
     if block.kind == "table":
-        return _html_table(block)
+        table = _html_table(block)
+        if block.frame is not None and len(block.frame) > FOLD_ROWS and not any(block.highlight):
+            # Long tables stay in the file but folded, so the report reads top-down;
+            # tables with flagged rows (extrapolations) always stay open.
+            return (f"<details class=\"table\"><summary>{_esc(block.name)}: "
+                    f"{len(block.frame)} rows (click to show)</summary>{table}</details>")
+        return table
     if block.kind == "img":
         data = base64.b64encode(block.png).decode("ascii")
         wide = " class=\"wide\"" if block.name == "residuals" else ""

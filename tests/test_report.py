@@ -202,6 +202,16 @@ class TestWriteReport:
         assert "excluded: clade is 'outgroup'" in body
         assert "Ridgeback (n = 8)" in body
 
+    def test_long_tables_folded_but_predictions_open(self, demo_run):
+        import re
+        from scaling.report import FOLD_ROWS
+        text = (demo_run.out_dir / "report.html").read_text(encoding="utf-8")
+        folded = re.findall(r'<details class="table"><summary>([a-z_]+): (\d+) rows', text)
+        assert folded and all(int(n) > FOLD_ROWS for _, n in folded)
+        # predictions carry the extrapolation flags: never hidden, however long
+        assert "predictions" not in {name for name, _ in folded}
+        assert len(demo_run.tables["predictions"]) > FOLD_ROWS
+
 
 class TestBuildReport:
     def test_sections_in_order(self, script_run):
