@@ -463,6 +463,16 @@ class SlopeTest:
         return describe_test(self, alpha=1 - confidence)
 
 
+def verdict_phrase(estimate: float, exponent: float, p_value: float, *, alpha: float,
+                 target: str) -> str:
+    """The verb phrase of a slope test: "is above 3/4", "does not differ detectably from 3/4"."""
+    if not np.isfinite(p_value):
+        return f"could not be tested against {target}"
+    if p_value < alpha:
+        return f"is {'above' if estimate > exponent else 'below'} {target}"
+    return f"does not differ detectably from {target}"
+
+
 def describe_test(test: SlopeTest, *, alpha: float = 0.05) -> str:
     """Plain-language reading of a slope test."""
     label = method_label(test.method)
@@ -471,11 +481,7 @@ def describe_test(test: SlopeTest, *, alpha: float = 0.05) -> str:
     b0 = f"{test.exponent:.4g}"
     if test.hypothesis and test.hypothesis != f"{test.exponent:g}":
         b0 = f"{b0} ({test.hypothesis})"
-    if test.p_value < alpha:
-        side = "above" if test.estimate > test.exponent else "below"
-        verdict = f"is {side} {b0}"
-    else:
-        verdict = f"does not differ detectably from {b0}"
+    verdict = verdict_phrase(test.estimate, test.exponent, test.p_value, alpha=alpha, target=b0)
     if test.statistic_type == "t":
         stat = f"t = {test.statistic:.2f}, df = {test.df:g}, "
     elif test.statistic_type == "z":

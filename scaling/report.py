@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .lines import method_label
+from .lines import method_label, verdict_phrase
 
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
@@ -186,13 +186,8 @@ def _slope_sentences(result) -> list:
             ci = (f" ({pct} CI {_num(lo)}–{_num(hi)})" if np.isfinite(lo) and np.isfinite(hi)
                   else f" ({pct} CI unbounded)")
         target = _exponent_words(str(r.hypothesis), float(r.exponent))
-        if not np.isfinite(r.p_value):
-            verdict = f"could not be tested against {target}."
-        elif r.p_value < alpha:
-            side = "above" if r.estimate > r.exponent else "below"
-            verdict = f"is {side} {target}, {p_text(r.p_value)}."
-        else:
-            verdict = f"does not differ detectably from {target}, {p_text(r.p_value)}."
+        verdict = verdict_phrase(r.estimate, r.exponent, r.p_value, alpha=alpha, target=target)
+        verdict += f", {p_text(r.p_value)}." if np.isfinite(r.p_value) else "."
         out.append((r.scope, f"{_scope_words(r.scope, r.group)}: the {method_label(str(r.method))} exponent "
                    f"{_num(r.estimate)}{ci} {verdict}"))
     return out
