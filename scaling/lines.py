@@ -78,6 +78,11 @@ __all__ = [
     "slope_test_statistic",
     "parse_log_base",
     "base_label",
+    "log_word",
+    "exponent_value",
+    "exact_fit",
+    "EXACT_NOTE",
+    "BOTH_SIGNS_NOTE",
     "to_log",
 ]
 
@@ -86,6 +91,38 @@ MIN_N = 3
 
 # --------------------------------------------------------------------------
 # log bases
+
+
+def exponent_value(exponent) -> float:
+    """A hypothesised exponent as a float: a number, or a fraction written "3/4".
+
+    Accepts what the configuration accepts for an exponent.
+
+    Raises
+    ------
+    ConfigError
+        If ``exponent`` is neither a finite number nor such a fraction.
+    """
+    value = exponent
+    if isinstance(value, str) and "/" in value:
+        num, _, den = value.partition("/")
+        try:
+            value = float(num) / float(den)
+        except (ValueError, ZeroDivisionError):
+            raise ConfigError(f"cannot read exponent {exponent!r} as a fraction") from None
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)) \
+            or not math.isfinite(value):
+        raise ConfigError(f"exponent must be a number or a fraction like '3/4', not {exponent!r}")
+    return float(value)
+
+
+def log_word(base: float | None) -> str:
+    """How a logarithm in ``base`` is written in labels: "log10", "ln", "log2" ("log" for None)."""
+    if base is None:
+        return "log"
+    if math.isclose(base, math.e):
+        return "ln"
+    return f"log{int(base)}"
 
 
 def parse_log_base(log_base) -> float | None:
@@ -176,13 +213,26 @@ def _corr_to_t(c, va, vb, n) -> np.ndarray:
         return rho * np.sqrt((n - 2) / (1.0 - rho * rho))
 
 
+def _corr_t(m: Moments) -> np.ndarray:
+    """t of the test of zero correlation between X and Y (n - 2 df)."""
+    return _corr_to_t(m.sxy, m.sxx, m.syy, m.n)
+
+
 def _sma_test(m: Moments, b0) -> np.ndarray:
     b0 = np.asarray(b0, dtype=float)
     c = m.syy - b0 * b0 * m.sxx
     va = m.syy - 2 * b0 * m.sxy + b0 * b0 * m.sxx
     vb = m.syy + 2 * b0 * m.sxy + b0 * b0 * m.sxx
     # Oriented so that t > 0 means the fitted slope lies above b0, as for OLS.
-    return _sign(m) * _corr_to_t(c, va, vb, m.n)
+    t_ratio = _sign(m) * _corr_to_t(c, va, vb, m.n)
+    # The ratio test sees only |b0|.  A slope of the other sign than the fit
+    # also needs the sign of the correlation to be undetermined: it is
+    # rejected when either test rejects (t is the larger of the two).
+    opposite = (b0 * _sign(m)) < 0
+    t_corr = np.abs(_corr_t(m)) * _sign(m)
+    with np.errstate(invalid="ignore"):
+        use_corr = opposite & (np.abs(t_corr) > np.abs(t_ratio))
+    return np.where(use_corr, t_corr, t_ratio)
 
 
 def _sma_bounds(m: Moments, tcrit: np.ndarray):
@@ -191,7 +241,13 @@ def _sma_bounds(m: Moments, tcrit: np.ndarray):
         big_b = (1.0 - m.r ** 2) * tcrit ** 2 / (m.n - 2)
     lo = b * (np.sqrt(big_b + 1) - np.sqrt(big_b))
     hi = b * (np.sqrt(big_b + 1) + np.sqrt(big_b))
-    return np.minimum(lo, hi), np.maximum(lo, hi)
+    lo, hi = np.minimum(lo, hi), np.maximum(lo, hi)
+    # Correlation not significant: slopes of the other sign are accepted too
+    # (the mirror image of the interval); report the hull -top .. top.
+    with np.errstate(invalid="ignore"):
+        both = np.abs(_corr_t(m)) < tcrit
+    top = np.maximum(np.abs(lo), np.abs(hi))
+    return np.where(both, -top, lo), np.where(both, top, hi)
 
 
 def _eigen(m: Moments):
@@ -204,8 +260,11 @@ def _eigen(m: Moments):
 
 def _ma_slope(m: Moments) -> np.ndarray:
     d = m.syy - m.sxx
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return (d + np.sqrt(d * d + 4 * m.sxy * m.sxy)) / (2 * m.sxy)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        root = np.hypot(d, 2 * m.sxy)
+        # Two algebraically equal forms; each avoids cancellation on its side
+        # of d = 0 (for d < 0, d + root loses every digit when Sxy is tiny).
+        return np.where(d >= 0, (d + root) / (2 * m.sxy), 2 * m.sxy / (root - d))
 
 
 def _ma_slope_var(m: Moments, b: np.ndarray) -> np.ndarray:
@@ -220,7 +279,18 @@ def _ma_test(m: Moments, b0) -> np.ndarray:
     c = m.sxy * (1 - b0 * b0) + b0 * (m.syy - m.sxx)
     va = m.syy - 2 * b0 * m.sxy + b0 * b0 * m.sxx
     vb = m.sxx + 2 * b0 * m.sxy + b0 * b0 * m.syy
-    return _corr_to_t(c, va, vb, m.n)
+    t = _corr_to_t(c, va, vb, m.n)
+    # The correlation is zero along the minor axis too.  A b0 whose direction
+    # has less spread than its perpendicular (va > vb) lies on the minor-axis
+    # side: give it the largest statistic of the major side (45 degrees off
+    # the fitted axis), r = (l1 - l2)/(l1 + l2), i.e. reject it exactly when
+    # the two axes differ significantly.  The arc interval stays the inversion.
+    l1, l2 = _eigen(m)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t_max = _corr_to_t(l1 - l2, l1 + l2, l1 + l2, m.n)
+        minor = va > vb
+        side = np.sign(_ma_slope(m) - b0)
+    return np.where(minor, side * np.abs(t_max), t)
 
 
 def _ma_bounds(m: Moments, tcrit: np.ndarray):
@@ -318,9 +388,11 @@ def fit_notes(m: Moments, method: str) -> np.ndarray:
     n = np.atleast_1d(m.n)
     sxx, syy, sxy = (np.atleast_1d(a) for a in (m.sxx, m.syy, m.sxy))
     notes = np.full(n.shape, "", dtype=object)
-    scale = np.abs(np.atleast_1d(m.mean_x)) + 1.0
-    tiny_x = sxx <= (n * (1e-12 * scale) ** 2)
-    notes[(syy <= 0) & ~tiny_x] = "y does not vary: no line can be fitted"
+    # No variation relative to the scale of the values: logs of one repeated
+    # value (y = 0.3 in every row) differ by rounding only.
+    tiny_x = sxx <= (n * (1e-12 * (np.abs(np.atleast_1d(m.mean_x)) + 1.0)) ** 2)
+    tiny_y = syy <= (n * (1e-12 * (np.abs(np.atleast_1d(m.mean_y)) + 1.0)) ** 2)
+    notes[tiny_y & ~tiny_x] = "y does not vary: no line can be fitted"
     notes[tiny_x] = "x does not vary: no line can be fitted"
     if method != "ols":
         notes[(sxy == 0) & (notes == "")] = (
@@ -329,6 +401,28 @@ def fit_notes(m: Moments, method: str) -> np.ndarray:
     for i in np.flatnonzero(n < MIN_N):
         notes[i] = notes[i].format(n=int(n[i]))
     return notes
+
+
+#: Note of a fit whose points lie on the line up to rounding.
+EXACT_NOTE = "no residual scatter: an exact power law"
+#: Note of an SMA fit whose correlation is not significant.
+BOTH_SIGNS_NOTE = "correlation not significant: slopes of either sign are accepted"
+
+
+def exact_fit(m: Moments) -> np.ndarray:
+    """True where the points lie on a straight line up to rounding (r = +-1).
+
+    The residual share 1 - r^2 is compared with what rounding the logs to
+    double precision leaves: about n (eps |X|)^2 / Sxx + n (eps |Y|)^2 / Syy,
+    with a generous factor (1e4) and a floor of 1e-12.
+    """
+    eps = np.finfo(float).eps
+    with np.errstate(divide="ignore", invalid="ignore"):
+        one_minus = 1.0 - (m.sxy * m.sxy) / (m.sxx * m.syy)
+        sx = np.abs(m.mean_x) + np.sqrt(m.sxx / m.n)
+        sy = np.abs(m.mean_y) + np.sqrt(m.syy / m.n)
+        tol = 1e-12 + 1e4 * eps * eps * m.n * (sx * sx / m.sxx + sy * sy / m.syy)
+        return np.asarray((m.sxx > 0) & (m.syy > 0) & (one_minus <= tol))
 
 
 def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
@@ -340,6 +434,14 @@ def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
     """
     spec = _get_method(method)
     t = spec.test(m, b0)
+    # Exact fit (no residual scatter): the slope is known; b0 equal to it up
+    # to rounding is accepted (t = 0, p = 1), any other value rejected.
+    exact = exact_fit(m)
+    if np.any(exact):
+        b = spec.slope(m)
+        with np.errstate(invalid="ignore"):
+            same = np.abs(b - b0) <= 1e-9 * np.maximum(1.0, np.abs(b))
+        t = np.where(exact, np.where(same, 0.0, np.sign(b - b0) * np.inf), t)
     df = m.n - 2
     with np.errstate(invalid="ignore"):
         p = 2 * stats.t.sf(np.abs(t), df)
@@ -364,6 +466,11 @@ def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
     b = spec.slope(m)
     lo, hi = spec.bounds(m, tcrit)
     var_b = spec.slope_var(m, b)
+    exact = exact_fit(m) & np.isfinite(b)
+    if np.any(exact):
+        # Zero-width intervals at the exact slope (rounding aside).
+        lo, hi = np.where(exact, b, lo), np.where(exact, b, hi)
+        var_b = np.where(exact, 0.0, var_b)
     with np.errstate(divide="ignore", invalid="ignore"):
         a = m.mean_y - b * m.mean_x
         resid_ss = np.maximum(m.syy - 2 * b * m.sxy + b * b * m.sxx, 0.0)
@@ -373,6 +480,8 @@ def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
         else:
             var_a = resid_var / m.n + m.mean_x ** 2 * var_b
         se_a = np.sqrt(var_a)
+    if np.any(exact):
+        se_a = np.where(exact, 0.0, se_a)
     r = m.r
     out = {
         "slope": b,
@@ -399,6 +508,28 @@ def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
     if np.any(unbounded):
         notes = notes.copy()
         notes[unbounded] = "slope interval unbounded (correlation too weak)"
+        out["note"] = notes
+    both = ~bad & (out["slope_low"] < 0) & (out["slope_high"] > 0) & (out["note"] == "")
+    if method == "sma" and np.any(both):
+        # The accepted set is two ranges, -top..-inner and inner..top; the
+        # interval reports their hull, the note the gap (both ends have
+        # p = 1 - confidence).
+        with np.errstate(divide="ignore", invalid="ignore"):
+            big_b = (1.0 - m.r ** 2) * tcrit ** 2 / (m.n - 2)
+            inner = np.broadcast_to(np.abs(b) * (np.sqrt(big_b + 1) - np.sqrt(big_b)),
+                                    np.shape(both))
+        shape = np.shape(both)
+        notes = np.asarray(out["note"], dtype=object).reshape(-1).copy()
+        top = np.broadcast_to(out["slope_high"], shape).reshape(-1)
+        inner = inner.reshape(-1)
+        for i in np.flatnonzero(both):
+            notes[i] = (f"{BOTH_SIGNS_NOTE}: the accepted slopes are {-top[i]:.4g} to "
+                        f"{-inner[i]:.4g} and {inner[i]:.4g} to {top[i]:.4g} (the interval "
+                        "reported is their hull)")
+        out["note"] = notes.reshape(shape)
+    if np.any(exact & ~bad):
+        notes = np.asarray(out["note"], dtype=object).copy()
+        notes[exact & ~bad] = EXACT_NOTE
         out["note"] = notes
     return out
 
@@ -438,6 +569,9 @@ class SlopeTest:
     p_value : float
         Two-sided.
     statistic_type : str
+    note : str
+        ``EXACT_NOTE`` when the points have no residual scatter (then p is 1
+        if b0 equals the slope up to rounding and 0 otherwise).
     """
 
     method: str
@@ -448,6 +582,7 @@ class SlopeTest:
     df: float
     p_value: float
     statistic_type: str = "t"
+    note: str = ""
 
     def to_frame(self):
         import pandas as pd
@@ -455,7 +590,7 @@ class SlopeTest:
             "method": self.method, "hypothesis": self.hypothesis,
             "exponent": self.exponent, "estimate": self.estimate,
             "statistic": self.statistic, "statistic_type": self.statistic_type,
-            "df": self.df, "p_value": self.p_value,
+            "df": self.df, "p_value": self.p_value, "note": self.note,
         }])
 
     def summary(self, confidence: float = 0.95) -> str:
@@ -481,6 +616,10 @@ def describe_test(test: SlopeTest, *, alpha: float = 0.05) -> str:
     b0 = f"{test.exponent:.4g}"
     if test.hypothesis and test.hypothesis != f"{test.exponent:g}":
         b0 = f"{b0} ({test.hypothesis})"
+    if test.note == EXACT_NOTE:
+        relation = "equals" if test.p_value >= alpha else (
+            "is above" if test.estimate > test.exponent else "is below")
+        return f"The {label} exponent {test.estimate:.6g} {relation} {b0} ({test.note})."
     verdict = verdict_phrase(test.estimate, test.exponent, test.p_value, alpha=alpha, target=b0)
     if test.statistic_type == "t":
         stat = f"t = {test.statistic:.2f}, df = {test.df:g}, "
@@ -647,9 +786,7 @@ class LineFit:
             p < 1 - confidence, up to 2/(B + 1) and the quantile
             interpolation.  The statistic is the share of b* above b0.
         """
-        if isinstance(exponent, bool) or not isinstance(exponent, (int, float, np.floating)):
-            raise ConfigError(f"exponent must be a number, not {exponent!r}")
-        b0 = float(exponent)
+        b0 = exponent_value(exponent)
         kind, df = "t", float(self.df)
         if not self.estimable:
             t, p = math.nan, math.nan
@@ -668,9 +805,13 @@ class LineFit:
         else:
             raise ConfigError(f"the {method_label(self.method)} fit carries neither data nor "
                               "bootstrap replicates, so its slope cannot be tested")
-        return SlopeTest(method=self.method, hypothesis=hypothesis or f"{exponent:g}",
+        note = ""
+        if self.estimable and self.method in METHODS and bool(exact_fit(self.moments)):
+            note = EXACT_NOTE
+        label = exponent.strip() if isinstance(exponent, str) else f"{b0:g}"
+        return SlopeTest(method=self.method, hypothesis=hypothesis or label,
                          exponent=b0, estimate=self.slope, statistic=t, df=df,
-                         p_value=p, statistic_type=kind)
+                         p_value=p, statistic_type=kind, note=note)
 
     def to_frame(self):
         """One tidy row with the column names of ``fits.csv``."""
@@ -698,7 +839,7 @@ class LineFit:
             return f"{label} fit, n = {self.n}: {self.note}"
         pct = f"{100 * self.confidence:g}%"
         lines = [
-            f"{label} line on log{base_label(self.log_base)} scales, n = {self.n}"
+            f"{label} line on {log_word(self.log_base)} scales, n = {self.n}"
             + (f" (lambda = {self.lam:g})" if self.lam is not None else ""),
             f"  exponent b = {self.slope:.4g}  ({pct} CI {self.slope_ci.low:.4g} to {self.slope_ci.high:.4g})",
             f"  intercept log a = {self.intercept:.4g}  ({pct} CI {self.intercept_ci.low:.4g} to {self.intercept_ci.high:.4g})",

@@ -102,7 +102,7 @@ from scipy import stats
 
 from .errors import (ConfigError, DataError, DegenerateDataWarning,
                      ExtrapolationWarning)
-from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, base_label, method_label, is_symmetric,
+from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, base_label, log_word, method_label, is_symmetric,
                     parse_log_base, to_log)
 from .moments import Moments
 
@@ -586,7 +586,7 @@ class Accuracy:
         }])
 
     def summary(self) -> str:
-        return (f"{method_label(self.method)}: SEE = {self.see:.4g} (log{base_label(self.log_base)}), "
+        return (f"{method_label(self.method)}: SEE = {self.see:.4g} ({log_word(self.log_base)}), "
                 f"%SEE = +{self.percent_see:.3g}% / -{self.percent_see_minus:.3g}%, "
                 f"%PE = {self.percent_pe:.3g}% (n = {self.n}, correction {self.correction})")
 
