@@ -672,7 +672,12 @@ def _kendall_slope_test(X, Y, b0: float) -> tuple:
     keep = dx != 0
     slopes = (Y[j] - Y[i])[keep] / dx[keep]
     s = float(np.count_nonzero(slopes > b0) - np.count_nonzero(slopes < b0))
-    var = (n * (n - 1) * (2 * n + 5) - _tie_term(X) - _tie_term(Y)) / 18.0
+    # Kendall's S of X against R = Y - b0 X: its null variance counts ties
+    # in X and in R (Sen 1968, JASA 63:1379, eq. 2.6), not ties in Y.  Two
+    # rows tie in R when their pairwise slope equals b0 (up to rounding).
+    R = Y - b0 * X
+    tol = 1e-10 * (np.max(np.abs(Y)) + abs(b0) * np.max(np.abs(X)) + 1e-300)
+    var = (n * (n - 1) * (2 * n + 5) - _tie_term(X) - _tie_term(np.round(R / tol))) / 18.0
     if var <= 0:
         return math.nan, math.nan
     z = s / math.sqrt(var)
@@ -773,11 +778,11 @@ class LineFit:
         Theil-Sen
             Kendall's S = #(pairwise slopes > b0) - #(pairwise slopes < b0)
             over pairs with distinct x (the S of X against Y - b0 X), with
-            Sen's (1968, *JASA* 63:1379, eq. 2.6) variance as in
-            ``scipy.stats.theilslopes`` (ties in x and in y); z = S/sd and
-            p = 2 Phi(-|z|).  Sen's slope interval is the set of b0 this
-            test does not reject (up to the rounding of the order
-            statistics).
+            Sen's (1968, *JASA* 63:1379, eq. 2.6) variance counting ties in
+            x and in Y - b0 X; z = S/sd and p = 2 Phi(-|z|).  Sen's slope
+            interval (:func:`scaling.robust.theil_sen`, ties in x) is the set
+            of b0 this test does not reject, up to one step of S at the
+            order statistics.
         Siegel, robust SMA, robust MA
             Percentile-bootstrap p-value from the stored slope replicates:
             p = min(1, 2 (1 + min(#{b* <= b0}, #{b* >= b0})) / (B + 1)),

@@ -871,74 +871,102 @@ def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma"
         U, V = Y - b0 * X, Y + b0 * X
     else:
         U, V = Y - b0 * X, X + b0 * Y
+    # Sign and branch: the pairs above are uncorrelated at b0 and also at -b0
+    # (SMA) or at the perpendicular -1/b0 (MA, Deming).  A b0 of the other
+    # sign than the association of X and Y (SMA) or on the minor-axis side
+    # (its direction spreads less than its perpendicular: var U > var V; MA)
+    # is also tested by a second pair -- X against Y (is the sign of the
+    # association certain?) or U + V against U - V (do the two axes differ?,
+    # the Pitman-Morgan pair) -- on the same permutations; p is the smaller
+    # of the two, as for LineFit.test_slope.
+    extra = None
+    Uc, Vc = U - U.mean(), V - V.mean()
+    if pair == "sma" and b0 * float((X - X.mean()) @ (Y - Y.mean())) < 0:
+        extra = (Y, X, "; b0 of the other sign than the association: also Y against X, "
+                       "p the smaller")
+    elif pair == "ma" and float(Uc @ Uc) > float(Vc @ Vc):
+        extra = (U + V, U - V, "; b0 on the minor-axis side: also U + V against U - V, "
+                              "p the smaller")
+    pairs = [(U, V)] + ([extra[:2]] if extra else [])
+    scheme = _SCHEMES[method] + (extra[2] if extra else "")
+    lam_out = lam if method == "deming" else 1.0
     if method in RANK_PAIRS:
-        return _kendall_permutation(U, V, method=method, b0=b0, n_perm=n_perm, rng=rng,
-                                    chunk_size=chunk_size, quiet=quiet)
-    U = U - U.mean()
-    V = V - V.mean()
-    scale = math.sqrt(float(U @ U) * float(V @ V))
-    if scale == 0:
+        stat, p = _kendall_permutation(pairs, n_perm=n_perm, rng=rng,
+                                       chunk_size=chunk_size, quiet=quiet)
+    else:
+        stat, p = _pearson_permutation(pairs, n_perm=n_perm, rng=rng,
+                                       chunk_size=chunk_size, quiet=quiet)
+    if not math.isfinite(stat):
         warnings.warn("permutation_slope_test: a derived variable does not vary; "
                       "the p-value is not defined", DegenerateDataWarning, stacklevel=2)
-        return PermutationTest(method=method, exponent=b0, statistic=math.nan,
-                               p_value=math.nan, n_perm=n_perm,
-                               lam=lam if method == "deming" else 1.0,
-                               scheme=_SCHEMES[method])
-    r_obs = float(U @ V) / scale
-    n = X.size
+    return PermutationTest(method=method, exponent=b0, statistic=stat, p_value=p,
+                           n_perm=n_perm, lam=lam_out, scheme=scheme)
+
+
+def _pearson_permutation(pairs, *, n_perm, rng, chunk_size, quiet) -> tuple:
+    """Observed r of the first pair and the smallest permutation p over the pairs.
+
+    Every pair is evaluated on the same permutations; each p is
+    (1 + #{|r*| >= |r|}) / (1 + n_perm).
+    """
+    cent = []
+    for U, V in pairs:
+        U, V = U - U.mean(), V - V.mean()
+        scale = math.sqrt(float(U @ U) * float(V @ V))
+        if scale == 0:
+            return math.nan, math.nan
+        r_obs = float(U @ V) / scale
+        # Guard against ties from rounding: exceedance if |r*| >= |r| (1 - 1e-12).
+        cent.append((U, V, scale, r_obs, abs(r_obs) * (1 - 1e-12)))
+    n = cent[0][0].size
     chunk = _chunk(chunk_size, n, n_perm)
-    # Guard against ties from rounding: exceedance if |r*| >= |r| (1 - 1e-12).
-    threshold = abs(r_obs) * (1 - 1e-12)
-    exceed = 0
+    exceed = [0] * len(cent)
     done = 0
     bar = _progress(n_perm, quiet, "permutations")
     while done < n_perm:
         size = min(chunk, n_perm - done)
         perm = rng.permuted(np.broadcast_to(np.arange(n), (size, n)), axis=1)
-        r = (U[perm] @ V) / scale
-        exceed += int(np.count_nonzero(np.abs(r) >= threshold))
+        for k, (U, V, scale, _, threshold) in enumerate(cent):
+            r = (U[perm] @ V) / scale
+            exceed[k] += int(np.count_nonzero(np.abs(r) >= threshold))
         done += size
         if bar is not None:
             bar.update(size)
     if bar is not None:
         bar.close()
-    return PermutationTest(method=method, exponent=b0, statistic=r_obs,
-                           p_value=(1 + exceed) / (1 + n_perm), n_perm=n_perm,
-                           lam=lam if method == "deming" else 1.0,
-                           scheme=_SCHEMES[method])
+    return cent[0][3], min((1 + e) / (1 + n_perm) for e in exceed)
 
 
-def _kendall_permutation(U, V, *, method, b0, n_perm, rng, chunk_size, quiet) -> PermutationTest:
-    """Permutation test of no association between U and V by Kendall's S."""
-    n = U.size
+def _kendall_permutation(pairs, *, n_perm, rng, chunk_size, quiet) -> tuple:
+    """Kendall's tau-a of the first pair and the smallest permutation p over the pairs."""
+    n = pairs[0][0].size
     i, j = np.triu_indices(n, k=1)
-    sv = np.sign(V[j] - V[i])
-    s_obs = float(np.sign(U[j] - U[i]) @ sv)
-    pairs = i.size
-    if not np.any(sv) or not np.any(U != U[0]):
-        warnings.warn("permutation_slope_test: a derived variable does not vary; "
-                      "the p-value is not defined", DegenerateDataWarning, stacklevel=3)
-        return PermutationTest(method=method, exponent=b0, statistic=math.nan,
-                               p_value=math.nan, n_perm=n_perm, lam=1.0,
-                               scheme=_SCHEMES[method])
+    n_pairs = i.size
+    prepared = []
+    for U, V in pairs:
+        sv = np.sign(V[j] - V[i])
+        if not np.any(sv) or not np.any(U != U[0]):
+            return math.nan, math.nan
+        s_obs = float(np.sign(U[j] - U[i]) @ sv)
+        # S is an integer: |S*| >= |S| exactly
+        prepared.append((U, sv, s_obs, abs(s_obs) - 0.5))
     if chunk_size is None:
-        chunk = max(1, min(n_perm, (8 * _CELLS_PER_CHUNK) // max(pairs, 1)))
+        chunk = max(1, min(n_perm, (8 * _CELLS_PER_CHUNK) // max(n_pairs, 1)))
     else:
         chunk = _chunk(chunk_size, n, n_perm)
-    threshold = abs(s_obs) - 0.5   # S is an integer: |S*| >= |S| exactly
-    exceed = 0
+    exceed = [0] * len(prepared)
     done = 0
     bar = _progress(n_perm, quiet, "permutations")
     while done < n_perm:
         size = min(chunk, n_perm - done)
-        up = U[rng.permuted(np.broadcast_to(np.arange(n), (size, n)), axis=1)]
-        s_perm = np.sign(up[:, j] - up[:, i]) @ sv
-        exceed += int(np.count_nonzero(np.abs(s_perm) > threshold))
+        perm = rng.permuted(np.broadcast_to(np.arange(n), (size, n)), axis=1)
+        for k, (U, sv, _, threshold) in enumerate(prepared):
+            up = U[perm]
+            s_perm = np.sign(up[:, j] - up[:, i]) @ sv
+            exceed[k] += int(np.count_nonzero(np.abs(s_perm) > threshold))
         done += size
         if bar is not None:
             bar.update(size)
     if bar is not None:
         bar.close()
-    return PermutationTest(method=method, exponent=b0, statistic=s_obs / pairs,
-                           p_value=(1 + exceed) / (1 + n_perm), n_perm=n_perm, lam=1.0,
-                           scheme=_SCHEMES[method])
+    return prepared[0][2] / n_pairs, min((1 + e) / (1 + n_perm) for e in exceed)

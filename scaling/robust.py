@@ -194,6 +194,33 @@ def _count_chunks(rng, n, n_boot, cells_per_row):
 # Theil-Sen and Siegel
 
 
+def _sen_interval(X, Y, confidence: float) -> tuple:
+    """Sen's (1968) slope interval: order statistics of the pairwise slopes.
+
+    With N pairwise slopes (pairs of distinct x) sorted, C = z_{1-alpha/2} sd(S)
+    and the bounds are the slopes of rank round((N - C)/2) - 1 and
+    round((N + C)/2) (0-based), as in ``scipy.stats.theilslopes``; sd(S)
+    counts ties in x only -- ties in y do not matter to the test of a slope,
+    ties in Y - b0 X do (see :meth:`scaling.lines.LineFit.test_slope`), and
+    away from the pairwise slopes there are none.  Equal to
+    ``theilslopes`` when y has no ties.
+    """
+    from .lines import _tie_term
+    n = X.size
+    i, j = np.triu_indices(n, k=1)
+    dx = X[j] - X[i]
+    keep = dx != 0
+    slopes = np.sort((Y[j] - Y[i])[keep] / dx[keep])
+    nt = slopes.size
+    if nt == 0:
+        return math.nan, math.nan
+    z = stats.norm.ppf(0.5 + confidence / 2)
+    sd = math.sqrt(max((n * (n - 1) * (2 * n + 5) - _tie_term(X)) / 18.0, 0.0))
+    upper = min(int(np.round((nt + z * sd) / 2.0)), nt - 1)
+    lower = max(int(np.round((nt - z * sd) / 2.0)) - 1, 0)
+    return float(slopes[lower]), float(slopes[upper])
+
+
 def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
               seed=None) -> LineFit:
     """Theil-Sen line of log y on log x.
@@ -225,11 +252,12 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     base, X, Y, ranges = _prepare(x, y, log_base)
     rng = _rng(seed)
     res = stats.theilslopes(Y, X, alpha=confidence)
+    low, high = _sen_interval(X, Y, confidence)
     pairs = X.size * (X.size - 1) // 2
     boot_b, boot_a = _theil_sen_boot(X, Y, _count_chunks(rng, X.size, n_boot, 3 * pairs))
     return _package(
         "theil_sen", X, Y, slope=res.slope, intercept=res.intercept,
-        slope_ci=ConfidenceInterval(float(res.low_slope), float(res.high_slope)),
+        slope_ci=ConfidenceInterval(low, high),
         intercept_ci=_percentile(boot_a, confidence),
         slope_se=_sd(boot_b), intercept_se=_sd(boot_a),
         r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,

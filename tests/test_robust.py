@@ -88,6 +88,40 @@ class TestTheilSen:
             theil_sen(X, Y, log_base=None, seed=1.5)
 
 
+class TestKendallSlopeTest:
+    def test_variance_is_the_permutation_variance_with_ties_in_y(self):
+        # Exact law: under H0 Kendall's S of X against R = Y - b0 X has, over all
+        # n! permutations of R, mean 0 and variance n(n-1)(2n+5)/18 less the tie
+        # terms of X and of R (Kendall 1970, Rank Correlation Methods, ch. 4;
+        # Sen 1968, JASA 63:1379, eq. 2.6).  Here y has ties but R has none, so
+        # no tie term applies: counting ties in y (as before) understated it.
+        import itertools
+        from scaling.lines import _kendall_slope_test
+        X = np.array([0.1, 0.5, 0.9, 1.3, 1.6, 2.2, 2.9])
+        Y = np.array([0.3, 0.3, 0.8, 0.8, 0.8, 1.4, 1.9])   # ties in y
+        b0 = 0.37
+        R = Y - b0 * X
+        perms = np.array(list(itertools.permutations(range(X.size))))
+        i, j = np.triu_indices(X.size, k=1)
+        sx = np.sign(X[j] - X[i])
+        s_all = np.sign(R[perms][:, j] - R[perms][:, i]) @ sx
+        s_obs = float(np.sign(R[j] - R[i]) @ sx)
+        z, _ = _kendall_slope_test(X, Y, b0)
+        assert_allclose(z, s_obs / math.sqrt(np.mean(s_all ** 2)), rtol=1e-12)
+
+    def test_reported_bounds_have_nominal_p_up_to_one_step(self):
+        # Exact law: Sen's interval is the set of b0 the Kendall test accepts; at
+        # a bound |S| is within one step (2) of C = z sd(S) however y is rounded.
+        rng = np.random.default_rng(12)
+        X = rng.normal(0, 1, 25)
+        Y = np.round(0.8 * X + rng.normal(0, 0.5, 25), 1)   # many ties in y
+        fit = theil_sen(X, Y, log_base=None, n_boot=20, seed=0)
+        sd = math.sqrt(25 * 24 * 55 / 18)
+        for bound in (fit.slope_ci.low, fit.slope_ci.high):
+            z = fit.test_slope(bound).statistic
+            assert abs(abs(z) * sd - 1.959964 * sd) <= 2.0 + 1e-9
+
+
 class TestSiegel:
     def test_equals_scipy_siegelslopes(self):
         # Reference library: scipy.stats.siegelslopes (Siegel 1982, hierarchical).
@@ -163,7 +197,7 @@ class TestHuberScatter:
 
 class TestSmaRobust:
     def test_close_to_sma_on_clean_data(self):
-        # Reference: the classical SMA (scaling.lines, Warton et al. 2006).  On clean
+        # Internal consistency: the classical SMA (scaling.lines, Warton et al. 2006).  On clean
         # bivariate normal data the robust slope differs only by its lower efficiency:
         # tolerance 0.04 (about 2 SE of the SMA slope, SE ~ 0.019 here).
         rng = np.random.default_rng(0)
@@ -214,7 +248,7 @@ class TestMaRobust:
         assert_allclose(fit.slope, vec[1] / vec[0], rtol=1e-10)
 
     def test_close_to_ma_on_clean_data(self):
-        # Reference: classical MA (scaling.lines); tolerance 0.04 as for SMA.
+        # Internal consistency: classical MA (scaling.lines); tolerance 0.04 as for SMA.
         rng = np.random.default_rng(1)
         X = rng.normal(2, 0.6, 200)
         Y = 0.75 * X + 0.15 * rng.normal(size=200)
@@ -242,6 +276,17 @@ class TestDeming:
         ols = sm.OLS(Y, sm.add_constant(X)).fit()
         dem = deming(X, Y, lam=1e8, log_base=None)
         assert_allclose([dem.intercept, dem.slope], ols.params, rtol=1e-6)
+
+    @pytest.mark.parametrize("lam", [1e12, 1e16])
+    def test_huge_lambda_equals_ols(self, lam):
+        # Reference library: statsmodels OLS; Deming -> OLS with error O(1/lambda),
+        # so 1e-9 relative at lambda >= 1e12 -- only with a cancellation-free
+        # closed form of the slope (the naive one loses every digit here).
+        import statsmodels.api as sm
+        X, Y = _data()
+        ols = sm.OLS(Y, sm.add_constant(X)).fit()
+        dem = deming(X, Y, lam=lam, log_base=None)
+        assert_allclose([dem.intercept, dem.slope], ols.params, rtol=1e-9)
 
     def test_equals_orthogonal_distance_regression(self):
         # Reference library: scipy.odr with sx = 1, sy = sqrt(lambda) minimises
