@@ -816,3 +816,88 @@ class TestLogWord:
         x, y = _line_data(38, 20, 0.7, 0.1)
         fit = fit_line(np.exp(x), np.exp(y), method="ols", log_base="e")
         assert "on ln scales" in fit.summary() and "loge" not in fit.summary()
+
+
+# --------------------------------------------------------------------------
+# properties (hypothesis)
+
+from hypothesis import HealthCheck, given, settings, strategies as st  # noqa: E402
+
+
+@st.composite
+def _samples(draw):
+    """Log-scale samples with a clear relationship (|r| well away from 0 and 1)."""
+    n = draw(st.integers(min_value=4, max_value=25))
+    seed = draw(st.integers(min_value=0, max_value=2 ** 32 - 1))
+    slope = draw(st.floats(min_value=-3.0, max_value=3.0).filter(lambda b: abs(b) > 0.05))
+    noise = draw(st.floats(min_value=0.01, max_value=1.0))
+    rng = np.random.default_rng(seed)
+    X = rng.normal(draw(st.floats(-3.0, 3.0)), draw(st.floats(0.1, 2.0)), n)
+    Y = slope * X + rng.normal(0.0, noise * abs(slope) * X.std() + 1e-3, n)
+    return X, Y
+
+
+def _quiet_fit(X, Y, method, **kw):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return fit_line(X, Y, method=method, log_base=kw.pop("log_base", None), **kw)
+
+
+_PROP = settings(max_examples=30, deadline=None,
+                 suppress_health_check=[HealthCheck.too_slow])
+
+
+class TestFitLineProperties:
+    @_PROP
+    @given(_samples())
+    def test_swapping_x_and_y_inverts_symmetric_slopes(self, xy):
+        X, Y = xy
+        for method in ("sma", "ma"):
+            f, g = _quiet_fit(X, Y, method), _quiet_fit(Y, X, method)
+            if f.estimable:
+                # exact law: SMA and MA are symmetric in x and y, b(y|x) = 1/b(x|y)
+                assert_allclose(f.slope * g.slope, 1.0, rtol=1e-12)
+
+    @_PROP
+    @given(_samples(), st.sampled_from([1e-3, 0.0254, 1000.0, 4.1868]),
+           st.sampled_from(["x", "y"]))
+    def test_unit_factor_changes_only_the_intercept(self, xy, factor, which):
+        X, Y = xy
+        x, y = 10.0 ** X, 10.0 ** Y
+        for method in METHOD_NAMES:
+            f = _quiet_fit(x, y, method, log_base=10)
+            g = _quiet_fit(x * factor if which == "x" else x,
+                           y * factor if which == "y" else y, method, log_base=10)
+            # exact law: a unit factor shifts log x or log y by a constant
+            assert_allclose([g.slope, g.r, g.slope_ci.low, g.slope_ci.high],
+                            [f.slope, f.r, f.slope_ci.low, f.slope_ci.high],
+                            rtol=1e-7, atol=1e-9)
+            shift = math.log10(factor)
+            expected = f.intercept + shift if which == "y" else f.intercept - f.slope * shift
+            assert_allclose(g.intercept, expected, rtol=1e-7, atol=1e-9)
+
+    @_PROP
+    @given(_samples(), st.integers(0, 2 ** 32 - 1))
+    def test_row_order_changes_nothing(self, xy, seed):
+        X, Y = xy
+        order = np.random.default_rng(seed).permutation(X.size)
+        for method in METHOD_NAMES:
+            f, g = _quiet_fit(X, Y, method), _quiet_fit(X[order], Y[order], method)
+            # exact law: the estimators are functions of sums over rows
+            assert_allclose([g.slope, g.intercept, g.slope_ci.low, g.slope_ci.high],
+                            [f.slope, f.intercept, f.slope_ci.low, f.slope_ci.high],
+                            rtol=1e-9, atol=1e-12)
+
+    @_PROP
+    @given(_samples(), st.floats(-4.0, 4.0), st.sampled_from([0.8, 0.95, 0.99]))
+    def test_intervals_contain_estimates_and_p_values_are_probabilities(self, xy, b0, level):
+        X, Y = xy
+        for method in METHOD_NAMES:
+            f = _quiet_fit(X, Y, method, confidence=level)
+            if not f.estimable:
+                continue
+            # exact law: an interval contains its estimate; p lies in [0, 1]
+            assert f.slope_ci.low <= f.slope <= f.slope_ci.high
+            assert f.intercept_ci.low <= f.intercept <= f.intercept_ci.high
+            p = f.test_slope(b0).p_value
+            assert 0.0 <= p <= 1.0
