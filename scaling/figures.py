@@ -808,7 +808,11 @@ _FITTED_LABEL = {"ols": "fitted log y", "sma": "axis score log y + b log x",
 
 
 def _normal_quantiles(n: int) -> np.ndarray:
-    """Blom (1958) plotting positions (i - 3/8)/(n + 1/4) as standard normal quantiles."""
+    """Blom (1958) plotting positions (i - 3/8)/(n + 1/4) as standard normal quantiles.
+
+    Blom, G. (1958) *Statistical Estimates and Transformed Beta-Variables*.
+    Wiley, New York (citation from memory).
+    """
     i = np.arange(1, n + 1)
     return stats.norm.ppf((i - 0.375) / (n + 0.25))
 

@@ -890,7 +890,8 @@ def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma"
     # (its direction spreads less than its perpendicular: var U > var V; MA)
     # is also tested by a second pair -- X against Y (is the sign of the
     # association certain?) or U + V against U - V (do the two axes differ?,
-    # the Pitman-Morgan pair) -- on the same permutations; p is the smaller
+    # the Pitman-Morgan pair: Pitman 1939, Biometrika 31:9-12; Morgan 1939,
+    # Biometrika 31:13-19; citations from memory) -- on the same permutations; p is the smaller
     # of the two, as for LineFit.test_slope.
     extra = None
     Uc, Vc = U - U.mean(), V - V.mean()

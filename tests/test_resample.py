@@ -101,7 +101,7 @@ class TestDrawCounts:
 
 class TestLineFromMoments:
     def test_matches_fit_line(self):
-        # Reference: scaling.lines.fit_line (same estimators through fit_moments).
+        # Internal consistency: scaling.lines.fit_line (same estimators through fit_moments).
         X, Y = _data()
         m = moments(X, Y)
         for method in ("ols", "sma", "ma"):
@@ -237,7 +237,7 @@ class TestBootstrapLines:
         assert_allclose(a.replicates[(None, "sma")], b.replicates[(None, "sma")], rtol=1e-12)
 
     def test_groups_resampled_within(self):
-        # Reference: each group's estimate equals fit_line on that group's rows;
+        # Internal consistency: each group's estimate equals fit_line on that group's rows;
         # its percentile interval equals scipy.stats.bootstrap's when the group's
         # rows are drawn from the same stream (single group -> identical draws).
         X, Y = _data(n=30)
@@ -376,10 +376,12 @@ class TestBootstrapLines:
 class TestPermutationSlopeTest:
     @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
     def test_agrees_with_parametric_test(self, method):
-        # Reference: the t-form correlation tests of scaling.lines (OLS t test;
+        # Internal consistency with the t-form correlation tests of scaling.lines (OLS t test;
         # Warton et al. 2006 for SMA/MA) are exact for bivariate normal data, and the
         # permutation distribution of a correlation is close to that null for
-        # n = 60 (Pitman 1937).  Tolerance: 4 Monte Carlo SE of p plus 0.01.
+        # n = 60 (Pitman, E. J. G. 1937, Significance tests which may be applied to
+        # samples from any populations. II. The correlation coefficient test,
+        # Suppl. J. R. Stat. Soc. 4:225-232; citation from memory).  Tolerance: 4 Monte Carlo SE of p plus 0.01.
         X, Y = _data(n=60, seed=11, slope=0.8, noise=0.4)
         b0 = 0.9
         res = permutation_slope_test(X, Y, b0, method=method, n_perm=20000, seed=3)
@@ -504,7 +506,7 @@ class TestSignAndBranchAwarePermutation:
         X, Y = _data(n=25, seed=6)
         res = permutation_slope_test(X, Y, 0.9, method="sma", n_perm=999, seed=3)
         t, df, p = slope_test_statistic(moments(X, Y), "sma", 0.9)
-        # reference: the exact t-form test (bivariate normal data); Monte Carlo
+        # internal consistency with the exact t-form test (bivariate normal data); Monte Carlo
         # error of a permutation p with 999 permutations, about 0.03 at most
         assert abs(res.p_value - float(p)) < 0.05
         assert "other sign" not in res.scheme
