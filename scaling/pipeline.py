@@ -252,7 +252,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     for r in rows:
         if r["method"] not in moment_methods:
             continue
-        if not np.isfinite(r["slope"]) or r["note"] and "unbounded" not in r["note"]:
+        # Notes on estimable fits (unbounded interval, SMA of either sign,
+        # exact power law) keep the fit.
+        if not np.isfinite(r["slope"]):
             continue
         m = pooled_m[0] if r["scope"] == "pooled" else gm[group_names.index(r["group"])]
         line_fits[(r["scope"], r["group"], r["method"])] = _moment_line_fit(
