@@ -435,6 +435,13 @@ class TestInversePredict:
 
 
 class TestAccuracy:
+    def test_natural_log_summary_reads_ln(self, trees):
+        x, y = trees
+        fit = scaling.fit_line(x, y, method="ols", log_base="e")
+        text = accuracy(fit, x, y).summary()
+        # common practice, no source: natural logs are written "ln"
+        assert "(ln)" in text and "loge" not in text
+
     def test_trees_against_statsmodels(self, trees):
         x, y = trees
         fit = scaling.fit_line(x, y, method="ols", log_base=10)
