@@ -414,7 +414,8 @@ def _fit_row(scope: str, group: str, fit, ranges) -> dict:
 
 def _group_stage(pts: pd.DataFrame, cfg: Config, base):
     """Group means, lines through the means, and comparisons of groups."""
-    from .groups import compare_groups, fit_group_means, group_means
+    from .groups import (compare_groups, compared_groups, excluded_text, fit_group_means,
+                         group_means)
     rows, fits, g_tables, messages, notes = [], {}, {}, [], []
     X, Y, labels = pts["log_x"].to_numpy(), pts["log_y"].to_numpy(), pts["group"].to_numpy()
     means = group_means(X, Y, labels, n_rows=pts["n_rows"].to_numpy())
@@ -422,6 +423,16 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
     g_tables["group_means"] = frame
     means_points = None
     if cfg.groups.fit_group_means:
+        # The line through the means uses the groups the comparisons use (OLS rule for
+        # the methods compare_groups does not cover; fit_group_means applies each
+        # method's own rule and names the groups it leaves out in its note).
+        keep, left_out = compared_groups(X, Y, labels, method="ols", min_n=MIN_N)
+        frame = frame[frame["group"].isin(keep)].reset_index(drop=True)
+        left_note = (f"groups left out of the line through the means: "
+                     f"{excluded_text(left_out)}") if left_out else ""
+        if left_out:
+            notes.append(f"Line through the group means: {len(left_out)} group(s) left out, "
+                         f"as in the comparisons: {excluded_text(left_out)}.")
         mx, my = frame["mean_log_x"].to_numpy(), frame["mean_log_y"].to_numpy()
         means_points = pd.DataFrame({"group": frame["group"], "log_x": mx, "log_y": my,
                                      "x": np.power(base, mx), "y": np.power(base, my)})
@@ -429,6 +440,9 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
         for method in cfg.model.methods:
             if method not in METHODS and method != "deming":
                 row, fit = _row_method_fit("group_means", "", method, means_points, cfg, base)
+                if fit is not None and left_note:
+                    fit = _with_note(fit, left_note)
+                    row["note"] = left_note
                 rows.append(row)
                 if fit is not None:
                     fits[("group_means", "", method)] = fit
@@ -438,6 +452,9 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
                 if method == "deming":
                     fit = _moment_line_fit(moments(mx, my), method, cfg, base,
                                            x_range=None, y_range=None)
+                    if left_note and fit.estimable:
+                        fit = _with_note(fit, f"{fit.note}; {left_note}" if fit.note
+                                         else left_note)
                 else:
                     fit = fit_group_means(X, Y, labels, method=method,
                                           confidence=cfg.model.confidence, log_base=base,
@@ -445,7 +462,8 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
             fit = _with_ranges(fit, ranges)
             if fit.note and len(frame) < MIN_N:
                 fit = _with_note(fit, f"{len(frame)} groups < {MIN_N}: no line through "
-                                      "the group means")
+                                      "the group means"
+                                      + (f"; {left_note}" if left_note else ""))
             rows.append(_fit_row("group_means", "", fit, ranges))
             if fit.estimable:
                 fits[("group_means", "", method)] = fit
@@ -460,11 +478,17 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 comp = compare_groups(data, "x", "y", "group", method=method,
-                                      confidence=cfg.model.confidence, log_base=base)
+                                      confidence=cfg.model.confidence, log_base=base,
+                                      pairwise_max=cfg.groups.pairwise_max)
             summary = comp.summary().replace(f"{len(comp.groups)} group groups",
                                              f"{len(comp.groups)} {cfg.data.group} groups")
             summary = summary.replace(" group groups", f" {cfg.data.group} groups")
+            summary = summary.replace("exceed pairwise_max", "exceed groups.pairwise_max")
             messages.append(summary)
+            if comp.pairwise_skipped:
+                notes.append(f"{method_label(method)}: pairwise comparisons skipped: "
+                             f"{len(comp.groups)} groups exceed groups.pairwise_max = "
+                             f"{comp.pairwise_max}.")
             if comp.compared:
                 test_frames.append(comp.to_frame())
                 pair_frames.append(comp.pairwise_frame())
