@@ -556,11 +556,31 @@ def _golden(method, loc, q, nu, lo, hi, *, iters: int = 80):
     return 0.5 * (a + b)
 
 
+def _grid_values(method, grid, loc, q, nu, *, block: int = 2_000_000):
+    """F at every point of ``grid`` (M, P): blocks of grid points in one array pass.
+
+    Each block holds at most about ``block`` (row, point, group) terms, so
+    memory stays bounded for any number of groups.
+    """
+    M, P = grid.shape
+    per = max(1, block // max(M * loc.shape[-1], 1))
+    out = np.empty((M, P))
+    for j0 in range(0, P, per):
+        g = grid[:, j0:j0 + per, None]
+        if method == "sma":
+            sh = np.sinh(np.clip(g - loc[:, None, :], -100.0, 100.0))
+            d = q[:, None, :] + sh * sh
+        else:
+            s = np.sin(g - loc[:, None, :])
+            d = q[:, None, :] + (1.0 - q[:, None, :]) * s * s
+        out[:, j0:j0 + per] = np.sum(nu[:, None, :] * np.log(d), axis=-1)
+    return out
+
+
 def _grid_minimum(method, loc, q, nu, lo, hi, *, points: int = 361):
     """Global minimum of F on [lo, hi] by a grid, then golden section nearby."""
     grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, points)
-    values = np.stack([_profile_terms(method, grid[:, j], loc, q, nu, order=0)[0]
-                       for j in range(points)], axis=1)
+    values = _grid_values(method, grid, loc, q, nu)
     j = np.argmin(values, axis=1)
     step = (hi - lo) / (points - 1)
     centre = grid[np.arange(grid.shape[0]), j]
