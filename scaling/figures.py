@@ -746,11 +746,12 @@ def _exponent_rows(result, methods) -> list:
     """(label, scope, group) for every fit scope present, pooled first."""
     rows = []
     keys = result.line_fits.keys()
+    groups = _groups(result)
     if any(k[0] == "pooled" for k in keys):
-        rows.append(("Pooled" if not _groups(result) else "Pooled (all groups)", "pooled", ""))
-    for g in _groups(result):
-        if any(k[0] == "group" and k[1] == g for k in keys):
-            rows.append((g, "group", g))
+        rows.append(("Pooled" if not groups else "Pooled (all groups)", "pooled", ""))
+    if len(groups) <= LEGEND_MAX_GROUPS:   # above: no row per group (see plot_exponents)
+        fitted = {k[1] for k in keys if k[0] == "group"}
+        rows += [(g, "group", g) for g in groups if g in fitted]
     if any(k[0] == "group_means" for k in keys):
         rows.append(("Through group means", "group_means", ""))
     return rows
@@ -763,6 +764,8 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
     One row per fit scope (pooled, each group, the line through the group
     means); within a row one dot-and-whisker per method.  Vertical lines mark
     each hypothesised exponent of ``config.exponents``, labelled on top.
+    Above :data:`LEGEND_MAX_GROUPS` groups there is no row per group (the
+    figure would grow without bound); a note in the figure says so.
 
     Returns
     -------
@@ -776,6 +779,10 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         height = (0.75 + 0.22 * max(len(rows), 1) * max(1.0, len(methods) / 3)) + 0.45
         ax = Figure(figsize=(width, max(height, 1.8)), layout="constrained").add_subplot()
     k = len(methods)
+    n_groups = len(_groups(result))
+    if n_groups > LEGEND_MAX_GROUPS:
+        ax.set_title(f"{n_groups} groups: per-group exponents not drawn "
+                     "(see fits.csv)", loc="left", fontsize=STYLE["font.size"] - 1)
     offsets = (np.arange(k) - (k - 1) / 2) * (0.6 / max(k, 1))
     handles = []
     lows, highs = [], []

@@ -131,7 +131,8 @@ class TestFitGroupMeans:
         for method in ("ols", "sma", "ma"):
             got = sg.fit_group_means(lx, ly, g, method=method, log_base=10)
             ref = fit_line(means["x"], means["y"], method=method, log_base=None)
-            # reference: scaling.fit_line on pandas groupby means (same estimator, other path)
+            # internal consistency: scaling.fit_line on pandas groupby means (same estimator,
+            # other path)
             assert_allclose([got.slope, got.intercept, got.slope_ci.low, got.slope_ci.high],
                             [ref.slope, ref.intercept, ref.slope_ci.low, ref.slope_ci.high],
                             rtol=1e-10)
@@ -172,7 +173,8 @@ class TestCommonSlope:
         lx, ly = np.log10(d["mass"]), np.log10(d["rate"])
         got = sg.common_slope(lx, ly, d["clade"], method=method)
         ref = fit_line(d["mass"], d["rate"], method=method)
-        # exact law: with one group the likelihood/ANCOVA estimate and interval reduce to
+        # internal consistency (against scaling.fit_line), by an exact law: with one group the
+        # likelihood/ANCOVA estimate and interval reduce to
         # the one-sample estimator and the inverted one-sample test (Warton et al. 2006)
         assert_allclose(got.slope, ref.slope, rtol=1e-10)
         assert_allclose([got.slope_ci.low, got.slope_ci.high],
@@ -232,7 +234,8 @@ class TestCommonSlope:
             a = sg.compare_groups(d, "mass", "rate", "clade", method=method, calibration="chi2")
             b = sg.compare_groups(shuffled, "mass", "rate", "clade", method=method,
                                   calibration="chi2")
-            # exact law: the estimators are functions of per-group moments, which do not
+            # internal consistency, by an exact law: the estimators are functions of
+            # per-group moments, which do not
             # depend on row order or on what the groups are called
             assert_allclose(a.common_slope, b.common_slope, rtol=1e-10)
             assert_allclose(a.to_frame()["statistic"], b.to_frame()["statistic"], rtol=1e-8)
@@ -308,7 +311,8 @@ class TestCompareGroups:
                                     "df", "p_value", "p_adjusted"]
         slopes = pw[pw.test == "slopes_equal"]
         assert len(slopes) == 6
-        # reference: statsmodels multipletests Holm on the pairwise p-values
+        # internal consistency: statsmodels multipletests Holm (the function the package
+        # calls) on the pairwise p-values
         from statsmodels.stats.multitest import multipletests
         assert_allclose(slopes["p_adjusted"], multipletests(slopes["p_value"], method="holm")[1],
                         rtol=1e-12)
@@ -550,5 +554,54 @@ class TestGroupsUsedByMeansLine:
         keep = g != "c4"
         means = pd.DataFrame({"x": lx[keep], "y": ly[keep], "g": g[keep]}).groupby("g").mean()
         ref = fit_line(means["x"], means["y"], method="sma", log_base=None)
-        # reference: scaling.fit_line on pandas groupby means of the compared groups
+        # internal consistency: scaling.fit_line on pandas groupby means of the compared groups
         assert_allclose([got.slope, got.intercept], [ref.slope, ref.intercept], rtol=1e-10)
+
+
+@pytest.mark.slow
+class TestCompareGroupsSizeMixedGroups:
+    """Size of the public compare_groups on mixed groups (known truth, seeded).
+
+    Three groups share slope 0.75 and elevation but differ in size
+    (n = 100, 130, 170), residual spread (sd 0.08, 0.25, 0.15 on the residual
+    axis), spread along the axis (sd 1.0, 0.5, 1.6) -- hence correlation
+    (about 0.99, 0.83, 0.99) -- and position along the axis (0, 1, 2.5).  The
+    slope and elevation nulls hold; the axis-shift null does not.  All
+    replicates are drawn in one array pass; compare_groups takes one table and
+    compares all its groups, so it cannot be vectorised over replicates and
+    is called once per replicate: R = 120 replicates per method (a few
+    seconds each on 2 cores).  Tolerance: |size - 0.05| <= 0.055, about 2.8
+    binomial SEs at R = 120 (sqrt(0.05 * 0.95 / 120) = 0.0199) -- coarse,
+    because replicates cannot be vectorised through this API; the vectorised
+    check of the same tests at 2000 replicates is TestCompareGroupsMonteCarlo.
+    Groups of >= 100
+    points make calibration="auto" use chi-square (AUTO_BOOTSTRAP_BELOW).
+    """
+
+    R = 120
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_size_of_slope_and_elevation_tests(self, method):
+        rng = np.random.default_rng(4242 + (method == "ma"))
+        ns = np.array([100, 130, 170])
+        sr, sf, pos = np.array([0.08, 0.25, 0.15]), np.array([1.0, 0.5, 1.6]), \
+            np.array([0.0, 1.0, 2.5])
+        grp = np.repeat(np.arange(3), ns)
+        b = 0.75
+        r = rng.standard_normal((self.R, grp.size)) * sr[grp]
+        f = rng.standard_normal((self.R, grp.size)) * sf[grp] + pos[grp]
+        if method == "sma":
+            X, Y = (f - r) / (2 * b), (r + f) / 2
+        else:
+            X, Y = (f - b * r) / (1 + b * b), (r + b * f) / (1 + b * b)
+        labels = np.array(["a", "b", "c"])[grp]
+        p = np.empty((self.R, 3))
+        for k in range(self.R):
+            d = pd.DataFrame({"lx": X[k], "ly": Y[k], "g": labels})
+            res = sg.compare_groups(d, "lx", "ly", "g", method=method, log_base=None)
+            p[k] = res.to_frame()["p_value"].to_numpy()
+        size = (p <= 0.05).mean(axis=0)
+        # known truth: common slope and elevation -> rejection rate 0.05 (tolerance above);
+        assert_allclose(size[:2], 0.05, atol=0.055, rtol=0)
+        # known truth: positions along the axis differ by 1 and 2.5 sd -> always rejected
+        assert size[2] == 1.0
