@@ -249,12 +249,16 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
             notes.append(f"Group fits skipped for n < {MIN_N}: {', '.join(small)}.")
 
     # LineFit objects for every estimable moment-method row (tests, predictions, figures).
+    group_index = {g: i for i, g in enumerate(group_names)}
+    # rows of each group, split in one pass (not one scan of the table per group)
+    group_rows = ({str(g): sub for g, sub in pts.groupby("group", sort=True)}
+                  if group_names else {})
     for r in rows:
         if r["method"] not in moment_methods:
             continue
         if not np.isfinite(r["slope"]) or r["note"] and "unbounded" not in r["note"]:
             continue
-        m = pooled_m[0] if r["scope"] == "pooled" else gm[group_names.index(r["group"])]
+        m = pooled_m[0] if r["scope"] == "pooled" else gm[group_index[r["group"]]]
         line_fits[(r["scope"], r["group"], r["method"])] = _moment_line_fit(
             m, r["method"], cfg, base, x_range=(r["x_min"], r["x_max"]),
             y_range=(r["y_min"], r["y_max"]))
@@ -262,7 +266,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     tables: dict = {}
     point_sets = {("pooled", ""): pts}
     for g in group_names:
-        point_sets[("group", g)] = pts[pts["group"] == g]
+        point_sets[("group", g)] = group_rows[g]
 
     g_messages: list[str] = []
     if data.has_groups:
@@ -436,7 +440,8 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
         mx, my = frame["mean_log_x"].to_numpy(), frame["mean_log_y"].to_numpy()
         means_points = pd.DataFrame({"group": frame["group"], "log_x": mx, "log_y": my,
                                      "x": np.power(base, mx), "y": np.power(base, my)})
-        ranges = (_range(means_points["x"].to_numpy()), _range(means_points["y"].to_numpy()))
+        ranges = ((_range(means_points["x"].to_numpy()), _range(means_points["y"].to_numpy()))
+                  if len(means_points) else ((np.nan, np.nan), (np.nan, np.nan)))
         for method in cfg.model.methods:
             if method not in METHODS and method != "deming":
                 row, fit = _row_method_fit("group_means", "", method, means_points, cfg, base)
