@@ -74,6 +74,7 @@ class GroupsConfig:
     compare: bool = True
     fit_group_means: bool = True
     weight_means: bool = False
+    pairwise_max: int = 20
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -410,6 +411,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "compare": (_boolean, True),
         "fit_group_means": (_boolean, True),
         "weight_means": (_boolean, False),
+        "pairwise_max": (lambda v, p: _int(v, p, minimum=2), 20),
     },
     "prediction": {
         "x": (_positive_numbers, ()),

@@ -58,6 +58,9 @@ METHOD_MARKERS = {"ols": "o", "sma": "s", "ma": "D", "deming": "^", "theil_sen":
 # At most this many fitted equations are written on the scaling plot; the
 # legend names every line (more would crowd the data off the axes).
 MAX_EQUATIONS = 3
+#: Above this many groups figures list no group in the legend (one entry says
+#: so) and draw the groups in a few batched artists instead of one per group.
+LEGEND_MAX_GROUPS = 12
 MM = 1 / 25.4
 SIZES = {"single": 85 * MM, "double": 180 * MM}
 KINDS = ("scaling", "natural", "exponents", "residuals")
@@ -245,6 +248,41 @@ def _group_style(i: int) -> tuple:
     return PALETTE[i % len(PALETTE)], MARKERS[i % len(MARKERS)]
 
 
+def _group_codes(pts, groups: list) -> np.ndarray:
+    """Index into the sorted ``groups`` of every point (one pass, not one per group)."""
+    return np.searchsorted(np.asarray(groups, dtype=object),
+                           pts["group"].astype(str).to_numpy(dtype=object))
+
+
+def _scatter_groups(ax, pts, groups: list, **kwargs) -> None:
+    """Points in their group's colour and marker (see :func:`_scatter_coded`)."""
+    _scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(), _group_codes(pts, groups),
+                   len(groups), **kwargs)
+
+
+def _scatter_coded(ax, x, y, codes, n_groups: int, **kwargs) -> None:
+    """Scatter with group ``codes``: one artist per group present, or, above
+    :data:`LEGEND_MAX_GROUPS` groups, one per marker with colours per point
+    (a few artists instead of thousands)."""
+    if n_groups <= LEGEND_MAX_GROUPS:
+        for c in np.unique(codes):
+            colour, marker = _group_style(int(c))
+            sel = codes == c
+            ax.scatter(x[sel], y[sel], marker=marker, facecolor=colour, **kwargs)
+        return
+    colours = np.asarray(PALETTE, dtype=object)[codes % len(PALETTE)]
+    for k, marker in enumerate(MARKERS):
+        sel = codes % len(MARKERS) == k
+        if np.any(sel):
+            ax.scatter(x[sel], y[sel], marker=marker, facecolor=list(colours[sel]), **kwargs)
+
+
+def _many_groups_handle(n_groups: int):
+    """The one legend entry standing for groups too many to list."""
+    return Line2D([], [], ls="none", marker="o", color="#888888", markersize=4,
+                  label=f"{n_groups} groups (colours cycle; too many to list)")
+
+
 def _methods(result, methods) -> list:
     return list(methods) if methods else list(result.config.model.methods)
 
@@ -407,33 +445,48 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     # data
     if groups:
         gm = _group_means_table(result)
-        for i, g in enumerate(groups):
-            colour, marker = _group_style(i)
-            sel = pts[pts["group"].astype(str) == g]
-            ax.scatter(sel["x"], sel["y"], s=12, marker=marker, facecolor=colour,
-                       edgecolor="white", linewidth=0.3, alpha=0.75, zorder=2)
-            n = len(sel)
-            handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
-                                  markeredgecolor="white", markeredgewidth=0.3,
-                                  markersize=4.5, label=f"{g} (n = {n})"))
-        if means and gm is not None:
+        _scatter_groups(ax, pts, groups, s=12, edgecolor="white", linewidth=0.3, alpha=0.75,
+                        zorder=2)
+        if len(groups) <= LEGEND_MAX_GROUPS:
+            sizes = np.bincount(_group_codes(pts, groups), minlength=len(groups))
             for i, g in enumerate(groups):
-                row = gm[gm["group"].astype(str) == g]
-                if not len(row):
-                    continue
-                row = row.iloc[0]
                 colour, marker = _group_style(i)
-                mx, my = _unlog(row["mean_log_x"], base), _unlog(row["mean_log_y"], base)
-                sx = row["se_log_x"] if np.isfinite(row["se_log_x"]) else 0.0
-                sy = row["se_log_y"] if np.isfinite(row["se_log_y"]) else 0.0
-                xerr = [[mx - _unlog(row["mean_log_x"] - sx, base)],
-                        [_unlog(row["mean_log_x"] + sx, base) - mx]]
-                yerr = [[my - _unlog(row["mean_log_y"] - sy, base)],
-                        [_unlog(row["mean_log_y"] + sy, base) - my]]
-                ax.errorbar([mx], [my], xerr=xerr, yerr=yerr, fmt="none", ecolor="black",
+                handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
+                                      markeredgecolor="white", markeredgewidth=0.3,
+                                      markersize=4.5, label=f"{g} (n = {sizes[i]})"))
+        else:
+            handles.append(_many_groups_handle(len(groups)))
+        if means and gm is not None:
+            # all means at once: index of each table row among the drawn groups
+            where = {g: i for i, g in enumerate(groups)}
+            idx = np.array([where.get(str(g), -1) for g in gm["group"]], dtype=int)
+            keep = idx >= 0
+            lx = gm["mean_log_x"].to_numpy(float)[keep]
+            ly = gm["mean_log_y"].to_numpy(float)[keep]
+            sx = np.nan_to_num(gm["se_log_x"].to_numpy(float)[keep], nan=0.0)
+            sy = np.nan_to_num(gm["se_log_y"].to_numpy(float)[keep], nan=0.0)
+            idx = idx[keep]
+            mx, my = _unlog(lx, base), _unlog(ly, base)
+            xerr = np.vstack([mx - _unlog(lx - sx, base), _unlog(lx + sx, base) - mx])
+            yerr = np.vstack([my - _unlog(ly - sy, base), _unlog(ly + sy, base) - my])
+            if len(groups) <= LEGEND_MAX_GROUPS:
+                for j, i in enumerate(idx):
+                    colour, marker = _group_style(int(i))
+                    ax.errorbar(mx[j:j + 1], my[j:j + 1], xerr=xerr[:, j:j + 1],
+                                yerr=yerr[:, j:j + 1], fmt="none", ecolor="black",
+                                elinewidth=0.7, capsize=1.5, capthick=0.6, zorder=5)
+                    ax.scatter(mx[j:j + 1], my[j:j + 1], s=42, marker=marker,
+                               facecolor=colour, edgecolor="black", linewidth=0.8, zorder=6)
+            elif idx.size:
+                ax.errorbar(mx, my, xerr=xerr, yerr=yerr, fmt="none", ecolor="black",
                             elinewidth=0.7, capsize=1.5, capthick=0.6, zorder=5)
-                ax.scatter([mx], [my], s=42, marker=marker, facecolor=colour,
-                           edgecolor="black", linewidth=0.8, zorder=6)
+                colours = np.asarray(PALETTE, dtype=object)[idx % len(PALETTE)]
+                for k, marker in enumerate(MARKERS):
+                    sel = idx % len(MARKERS) == k
+                    if np.any(sel):
+                        ax.scatter(mx[sel], my[sel], s=42, marker=marker,
+                                   facecolor=list(colours[sel]), edgecolor="black",
+                                   linewidth=0.8, zorder=6)
             handles.append(Line2D([], [], ls="none", marker="o", markerfacecolor="white",
                                   markeredgecolor="black", markersize=6,
                                   label="group mean ± 1 SE"))
@@ -447,16 +500,30 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     if len(groups) > 1 and group_lines:
         gmethod = _primary_method(methods) if group_lines == "auto" else str(group_lines)
         drawn = False
+        segments, seg_colours = [], []
         for i, g in enumerate(groups):
             fit = result.line_fits.get(("group", g, gmethod))
             if fit is None:
                 continue
             lo, hi = _fit_xrange(fit, result)
+            if len(groups) > LEGEND_MAX_GROUPS:
+                # a straight line on log-log axes: its two ends suffice
+                xs = np.array([lo, hi])
+                fitted, _, _ = _fit_band(fit, xs)
+                segments.append(np.column_stack([xs, _unlog(fitted, base)]))
+                seg_colours.append(_group_style(i)[0])
+                drawn = True
+                continue
             xs = np.geomspace(lo, hi, 40)
             fitted, _, _ = _fit_band(fit, xs)
             ax.plot(xs, _unlog(fitted, base), color=_group_style(i)[0], lw=0.9,
                     ls=METHOD_DASHES.get(gmethod, "-"), zorder=3)
             drawn = True
+        if segments:
+            from matplotlib.collections import LineCollection
+            ax.add_collection(LineCollection(segments, colors=seg_colours, linewidths=0.9,
+                                             linestyles=METHOD_DASHES.get(gmethod, "-"),
+                                             zorder=3))
         if drawn:
             handles.append(Line2D([], [], color="#888888", lw=0.9,
                                   ls=METHOD_DASHES.get(gmethod, "-"),
@@ -621,13 +688,15 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     correction = correction or result.config.prediction.correction
     handles = []
     if groups:
-        for i, g in enumerate(groups):
-            colour, marker = _group_style(i)
-            sel = pts[pts["group"].astype(str) == g]
-            ax.scatter(sel["x"], sel["y"], s=10, marker=marker, facecolor=colour,
-                       edgecolor="white", linewidth=0.3, alpha=0.75, zorder=2)
-            handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
-                                  markersize=4, label=g))
+        _scatter_groups(ax, pts, groups, s=10, edgecolor="white", linewidth=0.3, alpha=0.75,
+                        zorder=2)
+        if len(groups) <= LEGEND_MAX_GROUPS:
+            for i, g in enumerate(groups):
+                colour, marker = _group_style(i)
+                handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
+                                      markersize=4, label=g))
+        else:
+            handles.append(_many_groups_handle(len(groups)))
     else:
         ax.scatter(pts["x"], pts["y"], s=10, facecolor=PALETTE[0], edgecolor="white",
                    linewidth=0.3, alpha=0.8, zorder=2)
@@ -677,11 +746,12 @@ def _exponent_rows(result, methods) -> list:
     """(label, scope, group) for every fit scope present, pooled first."""
     rows = []
     keys = result.line_fits.keys()
+    groups = _groups(result)
     if any(k[0] == "pooled" for k in keys):
-        rows.append(("Pooled" if not _groups(result) else "Pooled (all groups)", "pooled", ""))
-    for g in _groups(result):
-        if any(k[0] == "group" and k[1] == g for k in keys):
-            rows.append((g, "group", g))
+        rows.append(("Pooled" if not groups else "Pooled (all groups)", "pooled", ""))
+    if len(groups) <= LEGEND_MAX_GROUPS:   # above: no row per group (see plot_exponents)
+        fitted = {k[1] for k in keys if k[0] == "group"}
+        rows += [(g, "group", g) for g in groups if g in fitted]
     if any(k[0] == "group_means" for k in keys):
         rows.append(("Through group means", "group_means", ""))
     return rows
@@ -694,6 +764,8 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
     One row per fit scope (pooled, each group, the line through the group
     means); within a row one dot-and-whisker per method.  Vertical lines mark
     each hypothesised exponent of ``config.exponents``, labelled on top.
+    Above :data:`LEGEND_MAX_GROUPS` groups there is no row per group (the
+    figure would grow without bound); a note in the figure says so.
 
     Returns
     -------
@@ -707,6 +779,10 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         height = (0.75 + 0.22 * max(len(rows), 1) * max(1.0, len(methods) / 3)) + 0.45
         ax = Figure(figsize=(width, max(height, 1.8)), layout="constrained").add_subplot()
     k = len(methods)
+    n_groups = len(_groups(result))
+    if n_groups > LEGEND_MAX_GROUPS:
+        ax.set_title(f"{n_groups} groups: per-group exponents not drawn "
+                     "(see fits.csv)", loc="left", fontsize=STYLE["font.size"] - 1)
     offsets = (np.arange(k) - (k - 1) / 2) * (0.6 / max(k, 1))
     handles = []
     lows, highs = [], []
@@ -858,11 +934,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     if kind == "normal":
         order = np.argsort(resid)
         q = _normal_quantiles(resid.size)
-        sorted_codes = codes[order]
-        for c in np.unique(sorted_codes):
-            colour, marker = _group_style(int(c))
-            sel = sorted_codes == c
-            ax.scatter(q[sel], resid[order][sel], s=9, marker=marker, facecolor=colour,
+        _scatter_coded(ax, q, resid[order], codes[order], len(groups), s=9,
                        edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
         if resid.size >= 4:
             q1, q3 = np.percentile(resid, [25, 75])
@@ -874,11 +946,8 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ax.set_ylabel(f"residual (log{blabel})")
         ax.set_title(f"{method_label(method)}: normal quantiles", loc="left")
     else:
-        for c in np.unique(codes):
-            colour, marker = _group_style(int(c))
-            sel = codes == c
-            ax.scatter(pos[sel], resid[sel], s=9, marker=marker, facecolor=colour,
-                       edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
+        _scatter_coded(ax, pos, resid, codes, len(groups), s=9, edgecolor="white",
+                       linewidth=0.3, alpha=0.85, zorder=2)
         ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
         ax.set_xlabel(_FITTED_LABEL.get(method, "fitted").replace("log", f"log{blabel}"))
         ax.set_ylabel(f"residual (log{blabel})")
@@ -926,7 +995,9 @@ def make_residuals(result, *, size: str = "single", methods=None) -> Figure:
         plot_residuals(result, ax=axes[i, 0], method=method, kind="fitted")
         plot_residuals(result, ax=axes[i, 1], method=method, kind="normal")
     groups = _groups(result)
-    if groups:
+    if len(groups) > LEGEND_MAX_GROUPS:
+        _figure_legend(fig, [_many_groups_handle(len(groups))], 1)
+    elif groups:
         handles = [Line2D([], [], ls="none", marker=_group_style(i)[1],
                           color=_group_style(i)[0], markersize=4, label=g)
                    for i, g in enumerate(groups)]

@@ -128,6 +128,8 @@ __all__ = [
     "GroupMeansResult",
     "group_means",
     "fit_group_means",
+    "compared_groups",
+    "excluded_text",
     "CommonSlope",
     "common_slope",
     "GroupTest",
@@ -203,6 +205,91 @@ def _check_logs(log_x, log_y):
     if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
         raise DataError("log_x and log_y must be finite numbers (no NaN or inf)")
     return X, Y
+
+
+#: Relative spread below which a group's log x or log y counts as constant:
+#: S <= (eps * scale)^2 n with scale the root mean square of the values (see
+#: :func:`_no_variation`).  Two-pass centred sums of equal values carry
+#: rounding of about n * 1e-16 * |value| in the mean, far below this.
+NO_VARIATION_EPS = 1e-9
+
+#: Within-group residual share 1 - r^2 below which the data count as an exact
+#: power law (no residual scatter), for the whole comparison (OLS) or a group
+#: (SMA, MA).
+EXACT_FIT_TOL = 2e-12
+
+#: ``pairwise_max`` default: pairwise tests are made for at most this many groups.
+PAIRWISE_MAX = 20
+
+_EXACT_NOTE = "no residual scatter: an exact power law"
+
+
+def _no_variation(n, mean, ss):
+    """True where a group's values do not vary relative to their scale.
+
+    Notes
+    -----
+    With S the centred sum of squares and scale^2 = mean^2 + S/n (the mean
+    square of the values), flags S <= (eps * scale)^2 * n, eps =
+    :data:`NO_VARIATION_EPS`: the spread is below eps times the size of the
+    values, which for logs of equal numbers is pure rounding (y = 0.3 in
+    every row gives S of about 1e-32, not 0).  Rearranged without division:
+    S (1 - eps^2) <= eps^2 n mean^2.
+    """
+    n, mean, ss = (np.asarray(a, dtype=float) for a in (n, mean, ss))
+    eps2 = NO_VARIATION_EPS ** 2
+    with np.errstate(invalid="ignore"):
+        return ~(ss * (1.0 - eps2) > eps2 * n * mean * mean)
+
+
+def _exclusion_reasons(m: Moments, labels, method: str, min_n: int) -> list:
+    """Why each group is left out of comparisons ("" if it is used).
+
+    The same rule decides the groups of :func:`compare_groups` and of
+    :func:`fit_group_means`, so the line through the means and the comparisons
+    use exactly the same groups.
+    """
+    notes = fit_notes(m, method)
+    flat_x = _no_variation(m.n, m.mean_x, m.sxx)
+    flat_y = _no_variation(m.n, m.mean_y, m.syy)
+    reasons = []
+    for i in range(len(labels)):
+        if m.n[i] < min_n:
+            reasons.append(f"n = {int(m.n[i])} < {min_n}")
+        elif flat_x[i]:
+            reasons.append("x does not vary (log x constant up to rounding): "
+                           "no line to compare")
+        elif flat_y[i]:
+            reasons.append("y does not vary (log y constant up to rounding): "
+                           "no line to compare")
+        elif notes[i]:
+            reasons.append(str(notes[i]))
+        elif method != "ols" and 1.0 - float(m.r[i]) ** 2 <= EXACT_FIT_TOL:
+            reasons.append(_EXACT_LINE)
+        else:
+            reasons.append("")
+    return reasons
+
+
+_EXACT_LINE = "points lie exactly on a line: no scatter to compare"
+
+
+def _compared_groups(m: Moments, labels, method: str, min_n: int):
+    """Indices of the groups compared, (label, reason) of those left out, all-exact flag.
+
+    SMA/MA leave out a group lying exactly on a line when others have
+    scatter; when every usable group is an exact line they are all kept and
+    compared as exact data (``all_exact``).
+    """
+    reasons = _exclusion_reasons(m, labels, method, min_n)
+    used = [i for i, why in enumerate(reasons) if not why]
+    exact_only = [i for i, why in enumerate(reasons) if why == _EXACT_LINE]
+    all_exact = not used and len(exact_only) >= 2
+    if all_exact:
+        used = exact_only
+        reasons = ["" if i in used else why for i, why in enumerate(reasons)]
+    excluded = tuple((labels[i], reasons[i]) for i in range(len(labels)) if reasons[i])
+    return used, excluded, all_exact
 
 
 # --------------------------------------------------------------------------
@@ -292,8 +379,8 @@ def group_means(log_x, log_y, groups, *, n_rows=None) -> GroupMeansResult:
 
 
 def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.95,
-                    log_base=10, weighted: bool = False) -> LineFit:
-    """Fit one line through the group means (one point per group).
+                    log_base=10, weighted: bool = False, min_n: int = 3) -> LineFit:
+    """Fit one line through the means of the groups that :func:`compare_groups` compares.
 
     Parameters
     ----------
@@ -308,14 +395,25 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
     weighted : bool
         Weight each group mean by its number of points.  Available for OLS
         only (weighted least squares).
+    min_n : int
+        As in :func:`compare_groups`: groups with fewer points are left out.
 
     Returns
     -------
     LineFit
-        ``n`` is the number of groups; intervals use n - 2 df.
+        ``n`` is the number of groups used; intervals use n - 2 df.  Groups
+        left out are named with their reasons in ``note`` ("groups left out
+        of the line through the means: ...") and in a
+        :class:`~scaling.errors.DegenerateDataWarning`.
 
     Notes
     -----
+    The groups used are exactly those :func:`compare_groups` compares with
+    the same ``method`` and ``min_n``: a group with fewer than ``min_n``
+    points (a one-point group has a mean but no line), with no variation in
+    log x or log y (relative to their size), or (SMA, MA) lying exactly on a
+    line while others scatter, is left out of both, with the same reason.
+
     Unweighted: the fit of :func:`scaling.lines.line_fit_from_moments` to the
     moments of the G means.  Weighted OLS: the weighted moments with weights
     w_i = G n_i / sum n_i (normalised to sum to G), so that the usual formulas
@@ -328,14 +426,19 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
     method = _check_method(method)
     confidence = _check_confidence(confidence)
     base = _check_base(log_base)
+    min_n = _check_int(min_n, "min_n", 3)
     if weighted and method != "ols":
         raise ConfigError(f"weighted=True is available only for method='ols' (weighted least "
                           f"squares), not {method!r}: no weighted {method.upper()} estimator "
                           "with valid intervals is implemented")
-    means = group_means(log_x, log_y, groups)
-    mx, my = means.mean_log_x, means.mean_log_y
+    X, Y = _check_logs(log_x, log_y)
+    codes, labels = _factorize(groups, X.size)
+    gm = group_moments(X, Y, codes, n_groups=len(labels))
+    used, excluded, _ = _compared_groups(gm, labels, method, min_n)
+    idx = np.asarray(used, dtype=np.intp)
+    mx, my, counts = gm.mean_x[idx], gm.mean_y[idx], gm.n[idx]
     if weighted:
-        w = means.n * (len(mx) / means.n.sum())
+        w = counts * (len(mx) / counts.sum()) if len(mx) else counts
         m = weighted_moments(mx, my, w)
     else:
         m = moments(mx, my)
@@ -343,7 +446,46 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
     if fit.note:
         warnings.warn(f"line through group means: {fit.note}", DegenerateDataWarning,
                       stacklevel=2)
+    if excluded:
+        left = excluded_text(excluded)
+        warnings.warn(f"groups left out of the line through the means: {left}",
+                      DegenerateDataWarning, stacklevel=2)
+        from dataclasses import replace
+        text = f"groups left out of the line through the means: {left}"
+        fit = replace(fit, note=f"{fit.note}; {text}" if fit.note else text)
     return fit
+
+
+def compared_groups(log_x, log_y, groups, *, method: str = "sma", min_n: int = 3):
+    """Labels of the groups :func:`compare_groups` compares, and those it leaves out.
+
+    Returns
+    -------
+    used : tuple
+        Labels (sorted) of the groups compared.
+    excluded : tuple of (label, reason)
+
+    Notes
+    -----
+    The rule of :func:`compare_groups` and :func:`fit_group_means`: fewer than
+    ``min_n`` points; log x or log y not varying relative to its size (S <=
+    (1e-9 scale)^2 n, scale^2 = mean^2 + S/n); a line that cannot be
+    estimated; (SMA, MA) an exact line while other groups scatter.
+    """
+    method = _check_method(method)
+    min_n = _check_int(min_n, "min_n", 3)
+    X, Y = _check_logs(log_x, log_y)
+    codes, labels = _factorize(groups, X.size)
+    gm = group_moments(X, Y, codes, n_groups=len(labels))
+    used, excluded, _ = _compared_groups(gm, labels, method, min_n)
+    return tuple(labels[i] for i in used), excluded
+
+
+def excluded_text(excluded, limit: int = 12) -> str:
+    """'a (n = 1 < 3), b (...)' for (label, reason) pairs, at most ``limit`` named."""
+    shown = ", ".join(f"{g} ({why})" for g, why in excluded[:limit])
+    more = f" and {len(excluded) - limit} more" if len(excluded) > limit else ""
+    return shown + more
 
 
 # --------------------------------------------------------------------------
@@ -414,11 +556,31 @@ def _golden(method, loc, q, nu, lo, hi, *, iters: int = 80):
     return 0.5 * (a + b)
 
 
+def _grid_values(method, grid, loc, q, nu, *, block: int = 2_000_000):
+    """F at every point of ``grid`` (M, P): blocks of grid points in one array pass.
+
+    Each block holds at most about ``block`` (row, point, group) terms, so
+    memory stays bounded for any number of groups.
+    """
+    M, P = grid.shape
+    per = max(1, block // max(M * loc.shape[-1], 1))
+    out = np.empty((M, P))
+    for j0 in range(0, P, per):
+        g = grid[:, j0:j0 + per, None]
+        if method == "sma":
+            sh = np.sinh(np.clip(g - loc[:, None, :], -100.0, 100.0))
+            d = q[:, None, :] + sh * sh
+        else:
+            s = np.sin(g - loc[:, None, :])
+            d = q[:, None, :] + (1.0 - q[:, None, :]) * s * s
+        out[:, j0:j0 + per] = np.sum(nu[:, None, :] * np.log(d), axis=-1)
+    return out
+
+
 def _grid_minimum(method, loc, q, nu, lo, hi, *, points: int = 361):
     """Global minimum of F on [lo, hi] by a grid, then golden section nearby."""
     grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, points)
-    values = np.stack([_profile_terms(method, grid[:, j], loc, q, nu, order=0)[0]
-                       for j in range(points)], axis=1)
+    values = _grid_values(method, grid, loc, q, nu)
     j = np.argmin(values, axis=1)
     step = (hi - lo) / (points - 1)
     centre = grid[np.arange(grid.shape[0]), j]
@@ -688,30 +850,44 @@ def _profile_interval(method: str, fit: dict, confidence: float,
 
 
 def _ols_tests(n, mx, my, sxx, syy, sxy) -> dict:
-    """ANCOVA F tests for one dataset of G groups (1-d arrays); see module notes."""
+    """ANCOVA F tests for one dataset of G groups (1-d arrays); see module notes.
+
+    Exact data (within-group residual sum RSS_sep <= :data:`EXACT_FIT_TOL`
+    times sum Syy_i: no residual scatter) give NaN slope and intercept tests
+    (their F would be 0/0 or x/0, i.e. rounding noise or inf) and, when the
+    parallel-lines residuals vanish too, a standard error of exactly 0 for the
+    common slope; ``exact`` is then True.
+    """
     G = n.size
     N = float(n.sum())
-    rss_sep = float(np.sum(syy - sxy * sxy / sxx))
+    tol = EXACT_FIT_TOL * float(np.sum(syy))
+    rss_sep = np.float64(np.sum(syy - sxy * sxy / sxx))
     b_w = float(np.sum(sxy) / np.sum(sxx))
-    rss_par = float(np.sum(syy) - np.sum(sxy) ** 2 / np.sum(sxx))
+    rss_par = np.float64(np.sum(syy) - np.sum(sxy) ** 2 / np.sum(sxx))
     pooled = _pool(n, mx, my, sxx, syy, sxy)
-    rss_one = float(pooled.syy - pooled.sxy ** 2 / pooled.sxx)
+    rss_one = np.float64(pooled.syy - pooled.sxy ** 2 / pooled.sxx)
+    exact_sep, exact_par = bool(rss_sep <= tol), bool(rss_par <= tol)
     df_sep, df_par = N - 2 * G, N - G - 1
-    out = {"b": b_w, "rows": []}
+    out = {"b": b_w, "rows": [], "exact": exact_sep}
     f_slope = f_int = f_axis = math.nan
     with np.errstate(divide="ignore", invalid="ignore"):
-        if G > 1 and df_sep > 0:
-            f_slope = ((rss_par - rss_sep) / (G - 1)) / (rss_sep / df_sep)
-        if G > 1 and df_par > 0:
-            f_int = ((rss_one - rss_par) / (G - 1)) / (rss_par / df_par)
-        if G > 1 and N > G:
+        if G > 1 and df_sep > 0 and not exact_sep:
+            f_slope = float(((rss_par - rss_sep) / (G - 1)) / (rss_sep / df_sep))
+        if G > 1 and df_par > 0 and not exact_par:
+            f_int = float(((rss_one - rss_par) / (G - 1)) / (rss_par / df_par))
+        if G > 1 and N > G and float(np.sum(sxx)) > 0:
             ss_between = float(np.sum(n * (mx - pooled.mean_x) ** 2))
             f_axis = (ss_between / (G - 1)) / (float(np.sum(sxx)) / (N - G))
     for stat, d1, d2 in ((f_slope, G - 1, df_sep), (f_int, G - 1, df_par),
                          (f_axis, G - 1, N - G)):
         p = float(stats.f.sf(stat, d1, d2)) if np.isfinite(stat) else math.nan
         out["rows"].append((float(stat), float(d1), float(d2), p))
-    out["se"] = math.sqrt(max(rss_par, 0.0) / df_par / np.sum(sxx)) if df_par > 0 else math.nan
+    if df_par <= 0:
+        out["se"] = math.nan
+    elif exact_par:
+        out["se"] = 0.0
+    else:
+        out["se"] = math.sqrt(max(float(rss_par), 0.0) / df_par / float(np.sum(sxx)))
     out["df_par"] = df_par
     return out
 
@@ -877,7 +1053,15 @@ class GroupComparison:
         As requested ("auto", "chi2" or "bootstrap").
     n_boot, seed : int
     note : str
-        Empty, or why no comparison was made.
+        Empty, or why no comparison was made, or what was not made: tests
+        left NaN for exact data ("no residual scatter: an exact power law
+        ..."), pairwise comparisons skipped for too many groups.  Several
+        notes are joined by "; ".
+    pairwise_max : int
+        Pairwise comparisons are made only for at most this many groups.
+    pairwise_skipped : bool
+        True if a test rejected but pairwise comparisons were skipped because
+        more than ``pairwise_max`` groups were compared.
     """
 
     method: str
@@ -896,6 +1080,8 @@ class GroupComparison:
     n_boot: int
     seed: int | None
     note: str = ""
+    pairwise_max: int = PAIRWISE_MAX
+    pairwise_skipped: bool = False
 
     @property
     def compared(self) -> bool:
@@ -943,9 +1129,16 @@ class GroupComparison:
         ci = (f"({pct} CI {lo:.3g}\u2013{hi:.3g})" if np.isfinite(lo) and np.isfinite(hi)
               else f"({pct} CI unbounded)")
         slopes = self.test("slopes_equal")
+        if not any(np.isfinite(t.p_value) for t in self.tests):
+            slope = (f"common slope {self.common_slope:.3g} {ci}"
+                     if np.isfinite(lo) and np.isfinite(hi) else "no common slope")
+            return f"No {label} tests among the {what}: {self.note}; {slope}."
         stat = "F" if self.method == "ols" else "LR"
         out = []
-        if slopes.p_value <= alpha:
+        if not np.isfinite(slopes.p_value):
+            out.append(f"Slopes of the {what} not compared ({label}): {self.note}; "
+                       f"common slope {self.common_slope:.3g} {ci}.")
+        elif slopes.p_value <= alpha:
             out.append(f"Slopes differ among the {what} ({label}, {numbers(slopes, stat)}); "
                        f"a common slope of {self.common_slope:.3g} {ci} only summarises "
                        f"differing slopes.{differing('slopes_equal')}")
@@ -956,8 +1149,11 @@ class GroupComparison:
         inter = self.test("intercepts_equal")
         stat = "F" if self.method == "ols" else "Wald"
         verb = "differ" if inter.p_value <= alpha else "do not differ"
-        out.append(f"Given a common slope, elevations (intercepts) {verb}{caveat} "
-                   f"({numbers(inter, stat)}).{differing('intercepts_equal')}")
+        if np.isfinite(inter.p_value):
+            out.append(f"Given a common slope, elevations (intercepts) {verb}{caveat} "
+                       f"({numbers(inter, stat)}).{differing('intercepts_equal')}")
+        else:
+            out.append("Elevations not compared (no residual scatter).")
         axis = self.test("shift_along_axis")
         if self.method == "ols":
             verb = "differs" if axis.p_value <= alpha else "does not differ"
@@ -967,9 +1163,11 @@ class GroupComparison:
             verb = "are" if axis.p_value <= alpha else "are not detectably"
             out.append(f"Groups {verb} shifted along the common axis{caveat} "
                        f"({numbers(axis, 'Wald')}).{differing('shift_along_axis')}")
+        if self.pairwise_skipped:
+            out.append("Pairwise comparisons skipped: "
+                       f"{len(self.groups)} groups exceed pairwise_max = {self.pairwise_max}.")
         if self.excluded:
-            left = ", ".join(f"{g} ({why})" for g, why in self.excluded)
-            out.append(f"Left out: {left}.")
+            out.append(f"Left out: {excluded_text(self.excluded)}.")
         return " ".join(out)
 
 
@@ -1013,7 +1211,7 @@ def _p_method(method: str, calibration: str, min_group_n: float, n_boot: int) ->
 def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
                    confidence: float = 0.95, log_base=10, min_n: int = 3,
                    calibration: str = "auto", n_boot: int = 999,
-                   seed: int | None = 0) -> GroupComparison:
+                   seed: int | None = 0, pairwise_max: int = PAIRWISE_MAX) -> GroupComparison:
     """Test whether groups share a slope, an elevation and a position along the axis.
 
     Parameters
@@ -1073,28 +1271,19 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
         raise ConfigError(f"calibration must be one of {', '.join(_CALIBRATIONS)}, "
                           f"not {calibration!r}")
     n_boot = _check_int(n_boot, "n_boot", 19)
+    pairwise_max = _check_int(pairwise_max, "pairwise_max", 2)
     if seed is not None:
         seed = _check_int(seed, "seed", 0)
     X, Y, labels_raw = _xy_columns(df, x, y, group, base)
     codes, labels = _factorize(labels_raw, X.size)
     m = group_moments(X, Y, codes, n_groups=len(labels))
 
-    notes = fit_notes(m, method)
-    reasons = []
-    for i, label in enumerate(labels):
-        if m.n[i] < min_n:
-            reasons.append(f"n = {int(m.n[i])} < {min_n}")
-        elif notes[i]:
-            reasons.append(str(notes[i]))
-        elif method != "ols" and abs(float(m.r[i])) >= 1 - 1e-12:
-            reasons.append("points lie exactly on a line: no scatter to compare")
-        else:
-            reasons.append("")
-    used = [i for i, why in enumerate(reasons) if not why]
-    excluded = tuple((labels[i], reasons[i]) for i in range(len(labels)) if reasons[i])
+    used, excluded, all_exact = _compared_groups(m, labels, method, min_n)
     if excluded:
-        warnings.warn("groups left out of the comparison: " + "; ".join(
-            f"{g}: {why}" for g, why in excluded), DegenerateDataWarning, stacklevel=2)
+        shown = "; ".join(f"{g}: {why}" for g, why in excluded[:10])
+        more = f"; and {len(excluded) - 10} more" if len(excluded) > 10 else ""
+        warnings.warn("groups left out of the comparison: " + shown + more,
+                      DegenerateDataWarning, stacklevel=2)
     common = dict(method=method, group_column=str(group), confidence=confidence,
                   log_base=base, calibration=calibration, n_boot=n_boot, seed=seed,
                   excluded=excluded, groups=tuple(labels[i] for i in used),
@@ -1114,20 +1303,35 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     rng = np.random.default_rng(seed)
     p_method = _p_method(method, calibration, float(n.min()), n_boot)
     boot = n_boot if p_method.startswith("parametric") else None
+    notes = []
 
-    if method == "ols":
-        b, ci, se = _common_from_arrays(method, *arrays, confidence)
-        axis_res = None
+    if all_exact:
+        b, ci, se, agree = _exact_common(method, *arrays[3:])
+        tests = [GroupTest(method=method, test=name, statistic=math.nan, df=float(len(used) - 1),
+                           df_resid=math.nan, p_value=math.nan, p_method="none",
+                           common_slope=b) for name in TESTS]
+        notes.append(f"{_EXACT_NOTE} in every group: the tests need residual scatter "
+                     "and are not made"
+                     + ("" if agree else "; the groups' exact slopes differ, so there is "
+                                         "no common slope"))
     else:
-        axis_res = _axis_tests(method, *(a[None] for a in arrays), bootstrap=boot, rng=rng,
-                               exact=True)
-        crit = None
-        if boot:
-            # parametric-bootstrap quantile of the profile statistic at the fitted slope
-            crit = float(np.quantile(axis_res["boot_profile"][:, 0], confidence))
-        lo, hi = _profile_interval(method, axis_res["fit"], confidence, crit)
-        b, ci = float(axis_res["b"][0]), ConfidenceInterval(lo, hi)
-        se = float(np.sqrt(axis_res["var_b"][0]))
+        if method == "ols":
+            b, ci, se = _common_from_arrays(method, *arrays, confidence)
+            axis_res = None
+        else:
+            axis_res = _axis_tests(method, *(a[None] for a in arrays), bootstrap=boot,
+                                   rng=rng, exact=True)
+            crit = None
+            if boot:
+                # parametric-bootstrap quantile of the profile statistic at the fitted slope
+                crit = float(np.quantile(axis_res["boot_profile"][:, 0], confidence))
+            lo, hi = _profile_interval(method, axis_res["fit"], confidence, crit)
+            b, ci = float(axis_res["b"][0]), ConfidenceInterval(lo, hi)
+            se = float(np.sqrt(axis_res["var_b"][0]))
+        tests = _run_tests(method, arrays, axis_res, p_method, b)
+        if method == "ols" and _ols_tests(*arrays)["exact"]:
+            notes.append(f"{_EXACT_NOTE} in every group: the slope and elevation tests "
+                         "need residual scatter and are not made (NaN)")
     if method == "sma":
         sign = np.sign(np.sum(arrays[5]))
         other = [labels[i] for i in used if np.sign(m.sxy[i]) not in (0, sign)]
@@ -1135,11 +1339,14 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
             warnings.warn(f"the SMA comparison uses slope magnitudes; group(s) "
                           f"{', '.join(map(str, other))} have a correlation of the opposite "
                           f"sign to the common slope", DegenerateDataWarning, stacklevel=2)
-    tests = _run_tests(method, arrays, axis_res, p_method, b)
     alpha = 1 - confidence
     pairwise = []
     rejected = [t.test for t in tests if t.p_value <= alpha]
-    if rejected and len(used) > 2:
+    pairwise_skipped = bool(rejected) and len(used) > pairwise_max
+    if pairwise_skipped:
+        notes.append(f"pairwise comparisons skipped: {len(used)} groups exceed "
+                     f"pairwise_max = {pairwise_max}")
+    elif rejected and len(used) > 2:
         pairs = list(itertools.combinations(range(len(used)), 2))
         pair_idx = np.array(pairs)
         pair_arrays = tuple(a[pair_idx] for a in arrays)   # each (P, 2)
@@ -1164,7 +1371,30 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
                     p_value=t.p_value, p_adjusted=t.p_value))
     return GroupComparison(**common, common_slope=b, common_slope_ci=ci,
                            common_slope_se=se, tests=tuple(tests),
-                           pairwise=tuple(pairwise))
+                           pairwise=tuple(pairwise), pairwise_max=pairwise_max,
+                           pairwise_skipped=pairwise_skipped, note="; ".join(notes))
+
+
+def _exact_common(method, sxx, syy, sxy):
+    """Common slope of groups that each lie exactly on a line (no residual scatter).
+
+    Each group's slope is then known without error (SMA: sign(Sxy) sqrt(Syy/Sxx);
+    MA: tan of half atan2(2 Sxy, Sxx - Syy), the major-axis angle).  If they
+    agree to 1e-9 relative, that slope is the common slope with an interval
+    of zero width and standard error 0; otherwise the (Sxx-weighted) mean is
+    returned with NaN interval and ``agree`` False.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if method == "sma":
+            slopes = np.sign(sxy) * np.sqrt(syy / sxx)
+        else:
+            slopes = np.tan(0.5 * np.arctan2(2 * sxy, sxx - syy))
+    spread = float(np.max(slopes) - np.min(slopes))
+    agree = spread <= 1e-9 * max(float(np.max(np.abs(slopes))), 1e-300)
+    b = float(np.sum(sxx * slopes) / np.sum(sxx))
+    if agree:
+        return b, ConfidenceInterval(b, b), 0.0, True
+    return b, ConfidenceInterval(math.nan, math.nan), math.nan, False
 
 
 def _holm(p: np.ndarray) -> np.ndarray:

@@ -249,6 +249,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
             notes.append(f"Group fits skipped for n < {MIN_N}: {', '.join(small)}.")
 
     # LineFit objects for every estimable moment-method row (tests, predictions, figures).
+    group_index = {g: i for i, g in enumerate(group_names)}
+    # rows of each group, split in one pass (not one scan of the table per group)
+    group_rows = ({str(g): sub for g, sub in pts.groupby("group", sort=True)}
+                  if group_names else {})
     for r in rows:
         if r["method"] not in moment_methods:
             continue
@@ -256,7 +260,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         # exact power law) keep the fit.
         if not np.isfinite(r["slope"]):
             continue
-        m = pooled_m[0] if r["scope"] == "pooled" else gm[group_names.index(r["group"])]
+        m = pooled_m[0] if r["scope"] == "pooled" else gm[group_index[r["group"]]]
         line_fits[(r["scope"], r["group"], r["method"])] = _moment_line_fit(
             m, r["method"], cfg, base, x_range=(r["x_min"], r["x_max"]),
             y_range=(r["y_min"], r["y_max"]))
@@ -264,7 +268,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     tables: dict = {}
     point_sets = {("pooled", ""): pts}
     for g in group_names:
-        point_sets[("group", g)] = pts[pts["group"] == g]
+        point_sets[("group", g)] = group_rows[g]
 
     g_messages: list[str] = []
     if data.has_groups:
@@ -416,7 +420,8 @@ def _fit_row(scope: str, group: str, fit, ranges) -> dict:
 
 def _group_stage(pts: pd.DataFrame, cfg: Config, base):
     """Group means, lines through the means, and comparisons of groups."""
-    from .groups import compare_groups, fit_group_means, group_means
+    from .groups import (compare_groups, compared_groups, excluded_text, fit_group_means,
+                         group_means)
     rows, fits, g_tables, messages, notes = [], {}, {}, [], []
     X, Y, labels = pts["log_x"].to_numpy(), pts["log_y"].to_numpy(), pts["group"].to_numpy()
     means = group_means(X, Y, labels, n_rows=pts["n_rows"].to_numpy())
@@ -424,13 +429,27 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
     g_tables["group_means"] = frame
     means_points = None
     if cfg.groups.fit_group_means:
+        # The line through the means uses the groups the comparisons use (OLS rule for
+        # the methods compare_groups does not cover; fit_group_means applies each
+        # method's own rule and names the groups it leaves out in its note).
+        keep, left_out = compared_groups(X, Y, labels, method="ols", min_n=MIN_N)
+        frame = frame[frame["group"].isin(keep)].reset_index(drop=True)
+        left_note = (f"groups left out of the line through the means: "
+                     f"{excluded_text(left_out)}") if left_out else ""
+        if left_out:
+            notes.append(f"Line through the group means: {len(left_out)} group(s) left out, "
+                         f"as in the comparisons: {excluded_text(left_out)}.")
         mx, my = frame["mean_log_x"].to_numpy(), frame["mean_log_y"].to_numpy()
         means_points = pd.DataFrame({"group": frame["group"], "log_x": mx, "log_y": my,
                                      "x": np.power(base, mx), "y": np.power(base, my)})
-        ranges = (_range(means_points["x"].to_numpy()), _range(means_points["y"].to_numpy()))
+        ranges = ((_range(means_points["x"].to_numpy()), _range(means_points["y"].to_numpy()))
+                  if len(means_points) else ((np.nan, np.nan), (np.nan, np.nan)))
         for method in cfg.model.methods:
             if method not in METHODS and method != "deming":
                 row, fit = _row_method_fit("group_means", "", method, means_points, cfg, base)
+                if fit is not None and left_note:
+                    fit = _with_note(fit, left_note)
+                    row["note"] = left_note
                 rows.append(row)
                 if fit is not None:
                     fits[("group_means", "", method)] = fit
@@ -440,6 +459,9 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
                 if method == "deming":
                     fit = _moment_line_fit(moments(mx, my), method, cfg, base,
                                            x_range=None, y_range=None)
+                    if left_note and fit.estimable:
+                        fit = _with_note(fit, f"{fit.note}; {left_note}" if fit.note
+                                         else left_note)
                 else:
                     fit = fit_group_means(X, Y, labels, method=method,
                                           confidence=cfg.model.confidence, log_base=base,
@@ -447,7 +469,8 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
             fit = _with_ranges(fit, ranges)
             if fit.note and len(frame) < MIN_N:
                 fit = _with_note(fit, f"{len(frame)} groups < {MIN_N}: no line through "
-                                      "the group means")
+                                      "the group means"
+                                      + (f"; {left_note}" if left_note else ""))
             rows.append(_fit_row("group_means", "", fit, ranges))
             if fit.estimable:
                 fits[("group_means", "", method)] = fit
@@ -462,11 +485,17 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 comp = compare_groups(data, "x", "y", "group", method=method,
-                                      confidence=cfg.model.confidence, log_base=base)
+                                      confidence=cfg.model.confidence, log_base=base,
+                                      pairwise_max=cfg.groups.pairwise_max)
             summary = comp.summary().replace(f"{len(comp.groups)} group groups",
                                              f"{len(comp.groups)} {cfg.data.group} groups")
             summary = summary.replace(" group groups", f" {cfg.data.group} groups")
+            summary = summary.replace("exceed pairwise_max", "exceed groups.pairwise_max")
             messages.append(summary)
+            if comp.pairwise_skipped:
+                notes.append(f"{method_label(method)}: pairwise comparisons skipped: "
+                             f"{len(comp.groups)} groups exceed groups.pairwise_max = "
+                             f"{comp.pairwise_max}.")
             if comp.compared:
                 test_frames.append(comp.to_frame())
                 pair_frames.append(comp.pairwise_frame())

@@ -83,6 +83,7 @@ exponents:
 groups:
   compare: true                     # common slope? shift in elevation? shift along the axis?
   fit_group_means: true             # also fit one line through the order means
+  # pairwise_max: 20                # pairwise order tests only up to this many orders
 
 output:
   dir: results

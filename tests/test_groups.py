@@ -9,6 +9,8 @@ compare_groups calls (scaling.groups._axis_tests).
 from __future__ import annotations
 
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -129,7 +131,8 @@ class TestFitGroupMeans:
         for method in ("ols", "sma", "ma"):
             got = sg.fit_group_means(lx, ly, g, method=method, log_base=10)
             ref = fit_line(means["x"], means["y"], method=method, log_base=None)
-            # reference: scaling.fit_line on pandas groupby means (same estimator, other path)
+            # internal consistency: scaling.fit_line on pandas groupby means (same estimator,
+            # other path)
             assert_allclose([got.slope, got.intercept, got.slope_ci.low, got.slope_ci.high],
                             [ref.slope, ref.intercept, ref.slope_ci.low, ref.slope_ci.high],
                             rtol=1e-10)
@@ -170,7 +173,8 @@ class TestCommonSlope:
         lx, ly = np.log10(d["mass"]), np.log10(d["rate"])
         got = sg.common_slope(lx, ly, d["clade"], method=method)
         ref = fit_line(d["mass"], d["rate"], method=method)
-        # exact law: with one group the likelihood/ANCOVA estimate and interval reduce to
+        # internal consistency (against scaling.fit_line), by an exact law: with one group the
+        # likelihood/ANCOVA estimate and interval reduce to
         # the one-sample estimator and the inverted one-sample test (Warton et al. 2006)
         assert_allclose(got.slope, ref.slope, rtol=1e-10)
         assert_allclose([got.slope_ci.low, got.slope_ci.high],
@@ -230,7 +234,8 @@ class TestCommonSlope:
             a = sg.compare_groups(d, "mass", "rate", "clade", method=method, calibration="chi2")
             b = sg.compare_groups(shuffled, "mass", "rate", "clade", method=method,
                                   calibration="chi2")
-            # exact law: the estimators are functions of per-group moments, which do not
+            # internal consistency, by an exact law: the estimators are functions of
+            # per-group moments, which do not
             # depend on row order or on what the groups are called
             assert_allclose(a.common_slope, b.common_slope, rtol=1e-10)
             assert_allclose(a.to_frame()["statistic"], b.to_frame()["statistic"], rtol=1e-8)
@@ -306,7 +311,8 @@ class TestCompareGroups:
                                     "df", "p_value", "p_adjusted"]
         slopes = pw[pw.test == "slopes_equal"]
         assert len(slopes) == 6
-        # reference: statsmodels multipletests Holm on the pairwise p-values
+        # internal consistency: statsmodels multipletests Holm (the function the package
+        # calls) on the pairwise p-values
         from statsmodels.stats.multitest import multipletests
         assert_allclose(slopes["p_adjusted"], multipletests(slopes["p_value"], method="holm")[1],
                         rtol=1e-12)
@@ -420,3 +426,183 @@ class TestCompareGroupsMonteCarlo:
         # known truth: each alternative holds; observed (seeded) power, slopes/elevation/
         # axis: SMA 0.87/0.89/0.94, MA 0.82/0.93/0.92 (docs/group_tests.md); asserted > 0.75
         assert min(power) > 0.75, power
+
+
+# --------------------------------------------------------------------------
+# exact and degenerate data; groups left out; bounded cost in the number of groups
+
+
+def _exact_frame(seed=3, n=10):
+    """y = 3 x^0.75 exactly, two groups (an exact power law)."""
+    rng = np.random.default_rng(seed)
+    x = rng.uniform(1, 1000, 2 * n)
+    return pd.DataFrame({"mass": x, "rate": 3 * x ** 0.75, "clade": np.repeat(["a", "b"], n)})
+
+
+class TestCompareGroupsExactAndConstantData:
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    @pytest.mark.parametrize("seed", [3, 4, 7])
+    def test_exact_power_law_gives_exact_slope_and_no_tests(self, method, seed):
+        d = _exact_frame(seed)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DegenerateDataWarning)
+            res = sg.compare_groups(d, "mass", "rate", "clade", method=method)
+        # exact law: every point lies on y = 3 x^0.75, so the common slope is 0.75 and the
+        # interval has zero width (rounding only)
+        assert_allclose(res.common_slope, 0.75, rtol=1e-12)
+        assert_allclose([res.common_slope_ci.low, res.common_slope_ci.high], 0.75, rtol=1e-12)
+        assert res.common_slope_ci.high - res.common_slope_ci.low == 0
+        frame = res.to_frame()
+        assert not np.isinf(frame["statistic"]).any()
+        # no residual scatter: the slope and elevation tests are not made (NaN), never F = inf
+        # or a rounding-noise F with a tiny p-value
+        assert np.isnan(res.test("slopes_equal").statistic)
+        assert np.isnan(res.test("intercepts_equal").p_value)
+        assert "no residual scatter: an exact power law" in res.note
+        assert "no residual scatter: an exact power law" in res.summary()
+        assert res.pairwise == ()
+
+    def test_exact_lines_with_different_slopes_have_no_common_slope(self):
+        x = np.tile([1.0, 3.0, 10.0, 30.0, 100.0], 2)
+        d = pd.DataFrame({"mass": x, "rate": np.r_[x[:5] ** 0.7, x[5:] ** 0.9],
+                          "clade": list("aaaaabbbbb")})
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DegenerateDataWarning)
+            res = sg.compare_groups(d, "mass", "rate", "clade", method="sma")
+        # exact law: slopes 0.7 and 0.9 exactly; no common slope, so no interval
+        assert np.isnan(res.common_slope_ci.low) and np.isnan(res.test("slopes_equal").statistic)
+        assert "exact slopes differ" in res.note
+        assert "no common slope" in res.summary()
+
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    def test_constant_y_group_left_out_with_reason(self, method):
+        rng = np.random.default_rng(1)
+        d = pd.DataFrame({"mass": rng.uniform(1, 100, 30), "clade": np.repeat(list("abc"), 10)})
+        d["rate"] = d["mass"] ** 0.75 * np.exp(rng.normal(0, 0.1, 30))
+        d.loc[d["clade"] == "c", "rate"] = 0.3   # log y differs only by rounding
+        with pytest.warns(DegenerateDataWarning, match="c: y does not vary"):
+            res = sg.compare_groups(d, "mass", "rate", "clade", method=method,
+                                    calibration="chi2")
+        assert res.groups == ("a", "b")
+        assert res.excluded == (("c", "y does not vary (log y constant up to rounding): "
+                                       "no line to compare"),)
+        ref = sg.compare_groups(d[d["clade"] != "c"], "mass", "rate", "clade", method=method,
+                                calibration="chi2")
+        # internal consistency: leaving the group out equals comparing the other two
+        assert_allclose(res.to_frame()["statistic"], ref.to_frame()["statistic"], rtol=1e-12)
+
+    def test_no_variation_is_relative_to_the_scale(self):
+        n = np.array([10.0, 10.0, 10.0, 10.0])
+        mean = np.array([-0.5229, 300.0, 1e-6, 0.0])
+        ss = np.array([1e-31, 1e-24, 1e-13, 0.0])
+        # common practice, no source: spread below 1e-9 of the values' size is rounding;
+        # a spread of 1e-7 around a mean of 1e-6 is real variation
+        assert sg._no_variation(n, mean, ss).tolist() == [True, True, False, True]
+
+
+class TestPairwiseLimit:
+    @staticmethod
+    def _many(G, n=4, seed=5):
+        rng = np.random.default_rng(seed)
+        g = np.repeat(np.arange(G), n)
+        lx = rng.uniform(0, 2, g.size)
+        ly = 0.75 * lx + 0.05 * g + rng.normal(0, 0.02, g.size)   # elevations differ
+        return pd.DataFrame({"lx": lx, "ly": ly, "g": [f"g{k:03d}" for k in g]})
+
+    def test_pairwise_skipped_above_pairwise_max(self):
+        d = self._many(25)
+        res = sg.compare_groups(d, "lx", "ly", "g", method="ols", log_base=None)
+        # known truth: elevations differ by 0.05 per group with noise sd 0.02
+        assert res.test("intercepts_equal").p_value < 1e-6
+        assert res.pairwise == () and res.pairwise_skipped and res.pairwise_max == 20
+        assert res.pairwise_frame().empty
+        assert "pairwise comparisons skipped: 25 groups exceed pairwise_max = 20" in res.note
+        assert "Pairwise comparisons skipped: 25 groups exceed pairwise_max = 20" \
+            in res.summary()
+        more = sg.compare_groups(d, "lx", "ly", "g", method="ols", log_base=None,
+                                 pairwise_max=25)
+        assert not more.pairwise_skipped
+        assert len(more.pairwise_frame().query("test == 'intercepts_equal'")) == 25 * 24 // 2
+
+    def test_many_groups_sma_bounded(self):
+        d = self._many(300, n=5)
+        res = sg.compare_groups(d, "lx", "ly", "g", method="sma", n_boot=99)
+        assert res.compared and len(res.groups) == 300 and res.pairwise_skipped
+        assert res.to_frame()["p_method"].iloc[0] == "parametric_bootstrap(99)"
+
+    def test_error(self):
+        d = self._many(3)
+        with pytest.raises(ConfigError, match="pairwise_max must be an integer >= 2"):
+            sg.compare_groups(d, "lx", "ly", "g", log_base=None, pairwise_max=1)
+
+
+class TestGroupsUsedByMeansLine:
+    def test_means_line_uses_the_compared_groups(self):
+        rng = np.random.default_rng(11)
+        d = _frame(rng, [12, 15, 20, 9, 1], [0.75] * 5, fshift=[0, 0.5, 1.0, 1.6, 2.0])
+        lx, ly, g = np.log10(d["mass"]), np.log10(d["rate"]), d["clade"]
+        with pytest.warns(DegenerateDataWarning, match="c4 \\(n = 1 < 3\\)"):
+            got = sg.fit_group_means(lx, ly, g, method="sma")
+        with pytest.warns(DegenerateDataWarning):
+            comp = sg.compare_groups(d, "mass", "rate", "clade", method="sma",
+                                     calibration="chi2")
+        used, excluded = sg.compared_groups(lx, ly, g, method="sma")
+        assert used == comp.groups == ("c0", "c1", "c2", "c3")
+        assert excluded == comp.excluded == (("c4", "n = 1 < 3"),)
+        assert got.n == 4
+        assert "groups left out of the line through the means: c4 (n = 1 < 3)" in got.note
+        keep = g != "c4"
+        means = pd.DataFrame({"x": lx[keep], "y": ly[keep], "g": g[keep]}).groupby("g").mean()
+        ref = fit_line(means["x"], means["y"], method="sma", log_base=None)
+        # internal consistency: scaling.fit_line on pandas groupby means of the compared groups
+        assert_allclose([got.slope, got.intercept], [ref.slope, ref.intercept], rtol=1e-10)
+
+
+@pytest.mark.slow
+class TestCompareGroupsSizeMixedGroups:
+    """Size of the public compare_groups on mixed groups (known truth, seeded).
+
+    Three groups share slope 0.75 and elevation but differ in size
+    (n = 100, 130, 170), residual spread (sd 0.08, 0.25, 0.15 on the residual
+    axis), spread along the axis (sd 1.0, 0.5, 1.6) -- hence correlation
+    (about 0.99, 0.83, 0.99) -- and position along the axis (0, 1, 2.5).  The
+    slope and elevation nulls hold; the axis-shift null does not.  All
+    replicates are drawn in one array pass; compare_groups takes one table and
+    compares all its groups, so it cannot be vectorised over replicates and
+    is called once per replicate: R = 120 replicates per method (a few
+    seconds each on 2 cores).  Tolerance: |size - 0.05| <= 0.055, about 2.8
+    binomial SEs at R = 120 (sqrt(0.05 * 0.95 / 120) = 0.0199) -- coarse,
+    because replicates cannot be vectorised through this API; the vectorised
+    check of the same tests at 2000 replicates is TestCompareGroupsMonteCarlo.
+    Groups of >= 100
+    points make calibration="auto" use chi-square (AUTO_BOOTSTRAP_BELOW).
+    """
+
+    R = 120
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_size_of_slope_and_elevation_tests(self, method):
+        rng = np.random.default_rng(4242 + (method == "ma"))
+        ns = np.array([100, 130, 170])
+        sr, sf, pos = np.array([0.08, 0.25, 0.15]), np.array([1.0, 0.5, 1.6]), \
+            np.array([0.0, 1.0, 2.5])
+        grp = np.repeat(np.arange(3), ns)
+        b = 0.75
+        r = rng.standard_normal((self.R, grp.size)) * sr[grp]
+        f = rng.standard_normal((self.R, grp.size)) * sf[grp] + pos[grp]
+        if method == "sma":
+            X, Y = (f - r) / (2 * b), (r + f) / 2
+        else:
+            X, Y = (f - b * r) / (1 + b * b), (r + b * f) / (1 + b * b)
+        labels = np.array(["a", "b", "c"])[grp]
+        p = np.empty((self.R, 3))
+        for k in range(self.R):
+            d = pd.DataFrame({"lx": X[k], "ly": Y[k], "g": labels})
+            res = sg.compare_groups(d, "lx", "ly", "g", method=method, log_base=None)
+            p[k] = res.to_frame()["p_value"].to_numpy()
+        size = (p <= 0.05).mean(axis=0)
+        # known truth: common slope and elevation -> rejection rate 0.05 (tolerance above);
+        # observed (seeded) slopes/elevation: SMA 0.067/0.042, MA 0.058/0.058
+        assert_allclose(size[:2], 0.05, atol=0.055, rtol=0)
+        # known truth: positions along the axis differ by 1 and 2.5 sd -> always rejected
+        assert size[2] == 1.0

@@ -1,0 +1,87 @@
+"""The group stage of a run: many groups, exact data, groups left out of the means line.
+
+Invented tables with a known truth (simulation use only, RULES.md 2).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+from scaling.config import config_from_dict
+from scaling.pipeline import analyse
+
+
+def _config(tmp_path, table: pd.DataFrame, **sections):
+    path = tmp_path / "groups.csv"
+    table.to_csv(path, index=False)
+    raw = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "taxon"},
+           "output": {"dir": str(tmp_path / "out")}}
+    raw.update(sections)
+    return config_from_dict(raw, base_dir=tmp_path)
+
+
+def _many_groups(G: int, per: int, seed: int = 3) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    g = np.repeat(np.arange(G), per)
+    lx = rng.uniform(0.5, 3.0, G)[g] + 0.4 * rng.standard_normal(g.size)
+    ly = rng.normal(0.5, 0.2, G)[g] + 0.75 * lx + rng.normal(0, 0.05, g.size)
+    return pd.DataFrame({"taxon": [f"g{k:03d}" for k in g], "mass": 10 ** lx,
+                         "rate": 10 ** ly})
+
+
+class TestAnalyseManyGroups:
+    def test_pairwise_skipped_and_no_pair_table(self, tmp_path):
+        G = 40
+        cfg = _config(tmp_path, _many_groups(G, 6), diagnostics={"enabled": False})
+        res = analyse(cfg)
+        # known truth: elevations differ among groups (sd 0.2 against noise 0.05)
+        tests = res.tables["group_tests"]
+        assert set(tests["method"]) == {"ols", "sma", "ma"} and len(tests) == 9
+        # (p <= 0.001: the parametric bootstrap floor with B = 999)
+        assert (tests.query("test == 'intercepts_equal'")["p_value"] <= 0.001).all()
+        # no G x G table: pairwise tests are skipped above groups.pairwise_max (default 20)
+        assert len(res.tables["pairwise_tests"]) == 0
+        text = " ".join(res.messages)
+        assert f"Pairwise comparisons skipped: {G} groups exceed groups.pairwise_max = 20" \
+            in text
+        assert any(f"pairwise comparisons skipped: {G} groups exceed groups.pairwise_max = 20"
+                   in w for w in res.warnings)
+        assert len(res.tables["group_means"]) == G
+        assert (res.fits["scope"] == "group").sum() == 3 * G
+
+    def test_pairwise_max_from_config(self, tmp_path):
+        cfg = _config(tmp_path, _many_groups(6, 6), groups={"pairwise_max": 5},
+                      model={"methods": ["ols"]}, diagnostics={"enabled": False})
+        res = analyse(cfg)
+        assert len(res.tables["pairwise_tests"]) == 0
+        assert "exceed groups.pairwise_max = 5" in " ".join(res.messages)
+        cfg = _config(tmp_path, _many_groups(6, 6), groups={"pairwise_max": 6},
+                      model={"methods": ["ols"]}, diagnostics={"enabled": False})
+        assert len(analyse(cfg).tables["pairwise_tests"]) > 0
+
+
+class TestAnalyseExactAndOnePointGroups:
+    def test_exact_power_law_with_groups_runs(self, tmp_path):
+        rng = np.random.default_rng(3)
+        x = rng.uniform(1, 1000, 20)
+        table = pd.DataFrame({"taxon": np.repeat(["a", "b"], 10), "mass": x,
+                              "rate": 3 * x ** 0.75})
+        res = analyse(_config(tmp_path, table))   # raised ZeroDivisionError before
+        tests = res.tables["group_tests"]
+        assert not np.isinf(tests["statistic"]).any()
+        # exact law: y = 3 x^0.75, so every common slope is 0.75
+        assert_allclose(tests["common_slope"], 0.75, rtol=1e-12)
+        assert "no residual scatter: an exact power law" in " ".join(res.messages)
+
+    def test_means_line_leaves_out_one_point_group(self, tmp_path):
+        table = _many_groups(5, 8)
+        table = pd.concat([table, pd.DataFrame({"taxon": ["solo"], "mass": [30.0],
+                                                "rate": [40.0]})], ignore_index=True)
+        res = analyse(_config(tmp_path, table, diagnostics={"enabled": False}))
+        means = res.fits[res.fits["scope"] == "group_means"]
+        assert (means["n"] == 5).all()   # the five compared groups, not six
+        assert means["note"].str.contains("solo \\(n = 1 < 3\\)").all()
+        assert "solo (n = 1 < 3)" in " ".join(res.messages)   # left out of comparisons too
+        assert len(res.tables["group_means"]) == 6   # the means table lists every group
