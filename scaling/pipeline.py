@@ -25,7 +25,7 @@ import pandas as pd
 from ._version import __version__
 from .config import Config, config_from_dict, load_config
 from .data import CleanData, load_data
-from .errors import DataError, OutputError, ScalingError
+from .errors import DataError, OutputError, ScalingError, ScalingWarning
 from .lines import (MIN_N, METHODS, base_label, describe_test, fit_moments,
                     line_fit_from_moments, method_label, parse_log_base)
 from .moments import group_moments, moments
@@ -193,11 +193,17 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     """
     cfg = config
     base = parse_log_base(cfg.model.log_base)
-    data = load_data(cfg.data, log_base=base)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ScalingWarning)
+        data = load_data(cfg.data, log_base=base)
     pts = data.points
     X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
     messages: list[str] = []
     notes: list[str] = []
+    for w in caught:   # e.g. an exclude value matching nothing: a note of the run, and re-warned
+        if issubclass(w.category, ScalingWarning):
+            notes.append(str(w.message))
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
     n_dropped = len(data.dropped)
     unit_word = f" ({cfg.data.average_within} means of {data.n_rows_used} rows)" \
@@ -275,6 +281,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         if means_points is not None:
             point_sets[("group_means", "")] = means_points
 
+    if not line_fits:
+        raise DataError(_nothing_estimable(cfg, pts, rows, n_dropped))
+
     # Keep line_fits in the order of the fits table.
     order = {(r["scope"], r["group"], r["method"]): i for i, r in enumerate(rows)}
     line_fits = dict(sorted(line_fits.items(), key=lambda kv: order.get(kv[0], len(order))))
@@ -342,6 +351,26 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                      dropped=data.dropped[DROPPED_COLUMNS], line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
                      manifest=manifest)
+
+
+def _nothing_estimable(cfg: Config, pts: pd.DataFrame, rows: list, n_dropped: int) -> str:
+    """Why no line at all could be fitted, in one line naming the file and columns."""
+    n = len(pts)
+    where = f"{cfg.data.file}: no line can be fitted"
+    if n < MIN_N:
+        dropped = ""
+        if n_dropped:
+            dropped = f"; {n_dropped} rows were dropped ('scaling check' lists why)"
+        return (f"{where}: only {n} usable point{'s' if n != 1 else ''} "
+                f"(a line needs at least {MIN_N}){dropped}")
+    for role, column in (("x", cfg.data.x), ("y", cfg.data.y)):
+        logs = pts[f"log_{role}"].to_numpy()
+        if np.ptp(logs) <= 1e-12 * (np.abs(logs).max() + 1.0):
+            value = float(pts[role].iloc[0])
+            return (f"{where}: {role} ({column}) has the same value ({value:g}) in all "
+                    f"{n} points, so there is no slope to estimate")
+    notes = sorted({str(r["note"]) for r in rows if r["scope"] == "pooled" and r["note"]})
+    return f"{where}: " + ("; ".join(notes) if notes else "no fit was estimable")
 
 
 def _robust_n_boot(cfg: Config) -> int:
@@ -549,7 +578,7 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
     """predictions.csv (and inverse_predictions.csv) for the config's values."""
     from .predict import fit_from_dict, inverse_predict, predict_from_dict
     pc = cfg.prediction
-    rows, inv_rows, notes = [], [], []
+    rows, inv_rows, notes, unbounded = [], [], [], []
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for key, d in saved.items():
@@ -561,6 +590,8 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
             if pc.y:
                 q = inverse_predict(fit_from_dict(d), list(pc.y), interval=pc.interval)
                 inv_rows.append(_tagged(q, scope, group, method))
+                if not np.all(q.bounded):
+                    unbounded.append(_scope_words(scope, group) + " " + method_label(method))
     tables = {}
     if pc.x:
         table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS] if rows else \
@@ -586,7 +617,17 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
         if n_ext:
             notes.append(f"{n_ext} inverse predictions use y outside the fitted y range "
                          "(extrapolations).")
+        if unbounded:
+            notes.append(_unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
     return tables, notes
+
+
+def _unbounded_inverse_note(fits: list, interval: str, confidence: float) -> str:
+    """The note for inverse predictions whose interval has no finite bounds."""
+    return (f"Inverse predictions ({', '.join(fits)}): the {100 * confidence:g}% {interval} "
+            "interval for x is unbounded, because the slope does not differ from 0 at this "
+            "level; x_low and x_high are blank in inverse_predictions.csv, and y says little "
+            "about x here.")
 
 
 def _slope_tests(line_fits: dict, cfg: Config) -> pd.DataFrame:

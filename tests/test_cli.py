@@ -151,9 +151,7 @@ class TestRun:
 
 class TestEdgeCases:
     @pytest.mark.parametrize("rows", [
-        "m,r\n1,2\n2,3\n",                                # n = 2: nothing estimable
         "m,r\n1,2\n2,4\n4,8\n8,16\n16,32\n",              # perfect power law, b = 1
-        "m,r\n1,2\n1,3\n1,5\n1,6\n",                     # x does not vary
     ])
     def test_degenerate_data_runs_cleanly(self, tmp_path, write_config, capsys, rows):
         import warnings
@@ -170,6 +168,90 @@ class TestEdgeCases:
                   or "scaling" in str(w.filename)]
         assert not leaked, [str(w.message) for w in leaked]
         assert (tmp_path / "o" / "report.html").is_file()
+
+    @pytest.mark.parametrize("rows, reason", [
+        ("m,r\n1,2\n2,3\n", r"only 2 usable points \(a line needs at least 3\)"),
+        ("m,r\n1,2\n1,3\n1,5\n1,6\n",
+         r"x \(m\) has the same value \(1\) in all 4 points, so there is no slope"),
+        ("m,r\n1,2\n2,3\n0,5\n",
+         r"only 2 usable points \(a line needs at least 3\); 1 rows were dropped"),
+    ])
+    def test_nothing_estimable_is_one_error_line(self, tmp_path, write_config, capsys,
+                                                 rows, reason):
+        # No line can be fitted at all: exit 2 and one line saying why, no folder of
+        # empty tables (before: exit 0 and blank fits.csv).
+        import re
+        (tmp_path / "d.csv").write_text(rows)
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\nexponents: {iso: 1}\n"
+                           "prediction: {x: [3]}\n"
+                           "resampling: {bootstrap: 199, permutations: 99}\n")
+        code, out, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 2
+        assert err.startswith("error: ") and err.count("\n") == 1, err
+        assert "no line can be fitted" in err and re.search(reason, err), err
+        assert "fewer than 4" not in err + out
+        assert not (tmp_path / "o").exists()
+
+
+class TestNothingSilent:
+    """What the run ignores or cannot bound is said in the terminal and the files."""
+
+    def test_unmatched_exclude_is_a_note_of_the_run(self, tmp_path, write_config, capsys):
+        (tmp_path / "d.csv").write_text("m,r,g\n1,2,Saltoria\n2,3.1,Saltoria\n4,5.2,Ensifera\n"
+                                        "8,9,Ensifera\n16,15,Ensifera\n")
+        cfg = write_config("data: {file: d.csv, x: m, y: r, exclude: {g: [Saltoriaa]}}\n")
+        code, out, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 0, err
+        note = [line for line in out.splitlines() if "Saltoriaa" in line]
+        assert note and note[0].startswith("note: ") and "closest values: 'Saltoria'" in note[0]
+        assert "Saltoriaa" in (tmp_path / "o" / "summary.md").read_text()
+        doc = json.loads((tmp_path / "o" / "results.json").read_text())
+        assert any("Saltoriaa" in w for w in doc["warnings"])
+        code, out, _ = _run(["check", cfg], capsys)
+        assert code == 0 and "note: " in out and "Saltoriaa" in out
+
+    def test_unbounded_inverse_interval_is_warned_everywhere(self, tmp_path, write_config,
+                                                             capsys, monkeypatch):
+        # y does not depend on x (invented, shuffled values): OLS slope p > 0.05, so
+        # the Fieller-type interval for x from y is unbounded (Draper & Smith 1998).
+        (tmp_path / "d.csv").write_text("m,r\n1,5\n2,3\n3,7\n4,2\n5,6\n6,4\n")
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\nmodel: {methods: [ols]}\n"
+                           "prediction: {y: [4]}\n")
+        code, out, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 0, err
+        inv = pd.read_csv(tmp_path / "o" / "inverse_predictions.csv")
+        assert inv["x_low"].isna().all() and inv["x_high"].isna().all()
+        assert any(line.startswith("note: Inverse predictions") and "unbounded" in line
+                   for line in out.splitlines())
+        assert "interval for x is unbounded" in (tmp_path / "o" / "summary.md").read_text()
+        doc = json.loads((tmp_path / "o" / "results.json").read_text())
+        assert any("interval for x is unbounded" in w for w in doc["warnings"])
+        code, out, err = _run(["predict", tmp_path / "o", "--x", "4", "--inverse",
+                               "--out", tmp_path / "p.csv"], capsys)
+        assert code == 0, err
+        assert any(line.startswith("warning: ") and "unbounded" in line
+                   for line in out.splitlines())
+        # the default output file is the one --help names
+        monkeypatch.chdir(tmp_path)
+        assert _run(["predict", tmp_path / "o", "--x", "4", "--inverse"], capsys)[0] == 0
+        assert (tmp_path / "predictions.csv").is_file()
+
+    def test_check_lists_every_drop_reason(self, tmp_path, write_config, capsys):
+        # Twelve distinct reasons (before: only the first eight were printed).
+        bad = [f"w{i}" for i in range(12)]
+        (tmp_path / "d.csv").write_text("m,r\n" + "".join(f"{b},2\n" for b in bad)
+                                        + "1,2\n2,3\n4,5\n")
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\n")
+        code, out, _ = _run(["check", cfg], capsys)
+        assert code == 0
+        for i, b in enumerate(bad):
+            assert f"1 × x (m) is not a number: '{b}' (row {i + 1})" in out
+
+    def test_predict_help_states_the_default_output_file(self, capsys):
+        code, out, _ = _run(["predict", "--help"], capsys)
+        assert code == 0
+        assert "default: predictions.csv in the current folder" in " ".join(out.split())
+        assert "predictions_cli" not in out
 
 
 class TestErrors:
