@@ -1104,7 +1104,7 @@ def write_outputs(result: RunResult, out_dir: Path | str, *, force: bool = False
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
     try:
-        written = _write_all(result, tmp, writers or [])
+        written, result = _write_all(result, tmp, writers or [])
         # Never overwrite an input, even with --force.
         protected = {p.resolve() for p in inputs}
         for rel in written:
@@ -1130,7 +1130,8 @@ def _write_csv(frame: pd.DataFrame, path: Path) -> None:
     frame.to_csv(path, index=False, lineterminator="\n")
 
 
-def _write_all(result: RunResult, folder: Path, writers: list) -> list[Path]:
+def _write_all(result: RunResult, folder: Path, writers: list) -> tuple:
+    """Write every file into ``folder``; return (relative paths, result with figure notes)."""
     written: list[Path] = []
 
     def csv(name, frame):
@@ -1145,8 +1146,14 @@ def _write_all(result: RunResult, folder: Path, writers: list) -> list[Path]:
             csv(f"{name}.csv", table)
     # Figures and report are optional stages; each returns relative paths.
     from . import figures as _figures
+    from .errors import FigureWarning
     (folder / "figures").mkdir(exist_ok=True)
-    written += _figures.write_figures(result, folder)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", FigureWarning)
+        written += _figures.write_figures(result, folder)
+    skipped = [str(w.message) for w in caught if issubclass(w.category, FigureWarning)]
+    if skipped:   # a skipped figure is a note of the run: terminal, report and results.json
+        result = _replace(result, warnings=tuple(result.warnings) + tuple(skipped))
     try:
         from . import report as _report
     except ImportError:  # report stage not present
@@ -1160,7 +1167,7 @@ def _write_all(result: RunResult, folder: Path, writers: list) -> list[Path]:
     with open(folder / "results.json", "w", encoding="utf-8") as fh:
         json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
     written.append(Path("results.json"))
-    return written
+    return written, result
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,

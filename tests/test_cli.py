@@ -254,6 +254,55 @@ class TestNothingSilent:
         assert "predictions_cli" not in out
 
 
+class TestExtremeMagnitudes:
+    """Values near 1e±300: the numbers are fine, and figures must not fail the run."""
+
+    @pytest.mark.parametrize("low, high", [(-300, -298), (298, 300), (-300, 300)],
+                             ids=["1e-300", "1e300", "1e-300_to_1e300"])
+    def test_run_succeeds_with_numeric_outputs(self, tmp_path, write_config, capsys, low,
+                                               high):
+        import numpy as np
+        import statsmodels.api as sm
+        # Simulation with a known truth: y = x^1 * lognormal scatter, x and y both
+        # spanning 10^low .. 10^high (before: exit 1 from an underflow in the
+        # error-structure check near 1e-300, and from the scaling figure's axis
+        # margins overflowing to inf for 1e-300 .. 1e300).
+        rng = np.random.default_rng(3)
+        lx = np.linspace(low, high, 20)
+        ly = np.clip(lx + rng.normal(0, 0.05, 20), low, high)
+        pd.DataFrame({"x": [f"{v:.6e}" for v in 10.0 ** lx],
+                      "y": [f"{v:.6e}" for v in 10.0 ** ly]}).to_csv(tmp_path / "d.csv",
+                                                                      index=False)
+        cfg = write_config("data: {file: d.csv, x: x, y: y}\nfigures: {dpi: 60}\n")
+        code, out, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 0, err
+        fits = pd.read_csv(tmp_path / "o" / "fits.csv").set_index("method")
+        X, Y = np.log10(pd.read_csv(tmp_path / "d.csv")[["x", "y"]].to_numpy()).T
+        ref = sm.OLS(Y, sm.add_constant(X)).fit()
+        # reference library: statsmodels OLS on the log10 values
+        assert fits.loc["ols", "slope"] == pytest.approx(ref.params[1], rel=1e-9)
+        assert (tmp_path / "o" / "figures" / "scaling.png").is_file()
+
+    def test_a_figure_failure_is_a_note_not_a_failed_run(self, tmp_path, write_config,
+                                                          capsys, monkeypatch):
+        from scaling import figures
+
+        def broken(result, *, size="single", **kwargs):
+            raise OverflowError("int too large to convert to float")
+
+        monkeypatch.setitem(figures._MAKERS, "exponents", broken)
+        (tmp_path / "d.csv").write_text("m,r\n1,2\n2,3.1\n4,5.2\n8,9\n16,15\n")
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\nfigures: {dpi: 60}\n")
+        code, out, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        assert code == 0, err
+        assert "note: Figure 'exponents' was not drawn (OverflowError" in out
+        assert "Figure 'exponents' was not drawn" in (tmp_path / "o" / "summary.md").read_text()
+        doc = json.loads((tmp_path / "o" / "results.json").read_text())
+        assert any("Figure 'exponents' was not drawn" in w for w in doc["warnings"])
+        assert not (tmp_path / "o" / "figures" / "exponents.png").exists()
+        assert (tmp_path / "o" / "figures" / "scaling.png").is_file()
+
+
 class TestErrors:
     @pytest.mark.parametrize("text, pattern", [
         ("data: {file: d.csv, x: m, y: r\n", r"YAML syntax error at line"),
