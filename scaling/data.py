@@ -2,9 +2,10 @@
 
 The result is a :class:`CleanData`: the points to fit (natural and log
 values, group, and input row numbers) and an audit table ``dropped`` with
-one row per input row removed and the reason.  Row numbers follow
-INTERFACE.md: row 1 is the first line after the header line, counting every
-line (blank lines and a units row too), so header line + row = file line.
+one row per input row removed and the reason.  Row numbers: row 1
+is the first line after the header line, counting every line (blank lines and
+a units row too), so header line + row = file line, which lets a user find a
+dropped row in any editor.
 """
 
 from __future__ import annotations
@@ -86,7 +87,7 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
     """Read the raw table as given, every cell as text (csv/tsv) or as stored.
 
     The returned frame has a default index 0..N-1 where index i is row i + 1
-    of INTERFACE.md's numbering.
+    of the module's row numbering.
     """
     path = Path(cfg.file)
     if not path.exists():

@@ -4,7 +4,7 @@ No expected values here: the check is that every outcome is either a written
 results folder or a ScalingError (exit 2 at the command line): a traceback
 reaching a user is a bug, because a user cannot tell a crash in the tool from
 a fault in the data.  A degenerate table on which no line at all can be fitted
-(n < 3 after cleaning, x constant) ends in one-line DataError saying why, not
+(n < 3 after cleaning, x constant) ends in a one-line DataError saying why, not
 in a folder of empty tables.  Random cases like these
 found three real crashes (an empty table with groups, an empty boolean filter
 in the bootstrap stage, and a float overflow for a curvature crossing far
