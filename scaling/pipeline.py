@@ -367,8 +367,9 @@ def _nothing_estimable(cfg: Config, pts: pd.DataFrame, rows: list, n_dropped: in
         logs = pts[f"log_{role}"].to_numpy()
         if np.ptp(logs) <= 1e-12 * (np.abs(logs).max() + 1.0):
             value = float(pts[role].iloc[0])
+            why = "no slope to estimate" if role == "x" else "no relationship to fit"
             return (f"{where}: {role} ({column}) has the same value ({value:g}) in all "
-                    f"{n} points, so there is no slope to estimate")
+                    f"{n} points, so there is {why}")
     notes = sorted({str(r["note"]) for r in rows if r["scope"] == "pooled" and r["note"]})
     return f"{where}: " + ("; ".join(notes) if notes else "no fit was estimable")
 

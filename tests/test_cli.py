@@ -190,6 +190,8 @@ class TestEdgeCases:
         ("m,r\n1,2\n2,3\n", r"only 2 usable points \(a line needs at least 3\)"),
         ("m,r\n1,2\n1,3\n1,5\n1,6\n",
          r"x \(m\) has the same value \(1\) in all 4 points, so there is no slope"),
+        ("m,r\n1,4\n2,4\n3,4\n4,4\n",
+         r"y \(r\) has the same value \(4\) in all 4 points, so there is no relationship"),
         ("m,r\n1,2\n2,3\n0,5\n",
          r"only 2 usable points \(a line needs at least 3\); 1 rows were dropped"),
     ])
