@@ -1,6 +1,6 @@
 """scaling: allometric power laws y = a x^b, fitted on log-log scales."""
-from .errors import (ConfigError, DataError, DegenerateDataWarning,
-                     ExtrapolationWarning, OutputError, ScalingError,
+from .errors import (ConfigError, DataError, DataWarning, DegenerateDataWarning,
+                     ExtrapolationWarning, FigureWarning, OutputError, ScalingError,
                      ScalingWarning)
 from .lines import ConfidenceInterval, LineFit, SlopeTest, fit_line
 from .groups import GroupComparison, compare_groups, fit_group_means, group_means
@@ -18,4 +18,5 @@ __all__ = [
     "inverse_predict", "accuracy", "LineFit", "SlopeTest", "ConfidenceInterval", "Moments",
     "ScalingError", "ConfigError", "DataError", "OutputError",
     "ScalingWarning", "DegenerateDataWarning", "ExtrapolationWarning",
+    "DataWarning", "FigureWarning",
 ]

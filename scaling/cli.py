@@ -68,7 +68,7 @@ def _build_parser() -> argparse.ArgumentParser:
     pred.add_argument("--correction", metavar="C", help="smearing | parametric | ratio | none")
     pred.add_argument("--interval", metavar="I", help="prediction | confidence")
     pred.add_argument("--out", metavar="FILE.csv", help="where to write the table "
-                      "(default: RESULTS_DIR/predictions_cli.csv)")
+                      "(default: predictions.csv in the current folder)")
     pred.add_argument("--force", action="store_true", help="overwrite the output file")
     return p
 
@@ -125,17 +125,25 @@ def _cmd_check(args) -> int:
     from .config import load_config
     from .data import load_data
     from .lines import MIN_N, parse_log_base
+    import warnings
+    from .errors import ScalingWarning
     cfg = load_config(args.config)
-    data = load_data(cfg.data, log_base=parse_log_base(cfg.model.log_base))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ScalingWarning)
+        data = load_data(cfg.data, log_base=parse_log_base(cfg.model.log_base))
     pts = data.points
     print(f"config OK: {args.config}")
     print(f"data OK: {cfg.data.file}")
     print(f"  {data.n_read} data rows read, {len(data.dropped)} dropped, {len(pts)} points to fit"
           + (f" ({cfg.data.average_within} means)" if data.averaged_within else ""))
     if len(data.dropped):
-        reasons = data.dropped["reason"].value_counts()
-        for reason, count in reasons.head(8).items():
-            print(f"    {count:>4} × {reason}")
+        # Every reason, most frequent first, with the rows it removed (INTERFACE numbering).
+        by_reason = data.dropped.groupby("reason", sort=False)["row"].agg(list)
+        by_reason = by_reason.loc[data.dropped["reason"].value_counts().index]
+        for reason, rows in by_reason.items():
+            shown = ", ".join(str(r) for r in rows[:5]) + (", ..." if len(rows) > 5 else "")
+            word = "row" if len(rows) == 1 else "rows"
+            print(f"    {len(rows):>4} × {reason} ({word} {shown})")
     if data.has_groups:
         counts = pts["group"].value_counts().sort_index()
         print(f"  {len(counts)} groups: " + ", ".join(f"{g} (n = {n})" for g, n in counts.items()))
@@ -144,6 +152,9 @@ def _cmd_check(args) -> int:
             print(f"  note: group fits will be skipped for n < {MIN_N}: {', '.join(small)}")
     print(f"  x range {pts['x'].min():.4g} to {pts['x'].max():.4g}"
           f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
+    for w in caught:
+        if issubclass(w.category, ScalingWarning):
+            print(f"  note: {w.message}")
     print(f"  output folder: {cfg.output.dir}")
     return 0
 

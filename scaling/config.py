@@ -117,7 +117,7 @@ class ResamplingConfig:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Config:
-    """A whole validated configuration (see INTERFACE.md for every key)."""
+    """A whole validated configuration (every key is listed in the README)."""
 
     title: str
     data: DataConfig

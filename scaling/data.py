@@ -2,15 +2,18 @@
 
 The result is a :class:`CleanData`: the points to fit (natural and log
 values, group, and input row numbers) and an audit table ``dropped`` with
-one row per input row removed and the reason.  Row numbers follow
-INTERFACE.md: row 1 is the first line after the header line, counting every
-line (blank lines and a units row too), so header line + row = file line.
+one row per input row removed and the reason.  Row numbers: row 1
+is the first line after the header line, counting every line (blank lines and
+a units row too), so header line + row = file line, which lets a user find a
+dropped row in any editor.
 """
 
 from __future__ import annotations
 
 import difflib
 import math
+import re
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -18,10 +21,14 @@ import numpy as np
 import pandas as pd
 
 from .config import DataConfig
-from .errors import DataError
+from .errors import DataError, DataWarning
 from .lines import to_log
 
 __all__ = ["CleanData", "load_data", "read_table", "clean_table"]
+
+# "3,5" or "-0,25" or "1,5e3": a number written with a decimal comma.
+_DECIMAL_COMMA = re.compile(r"^[-+]?\d*,\d+(?:[eE][-+]?\d+)?$")
+_DECIMAL_HINT = 'if "," is the decimal mark, set data.decimal: ","'
 
 _MISSING_TOKENS = {"", "na", "n/a", "nan", "null", "none", "missing", "-", "--", "?", ".", "#n/a"}
 
@@ -80,7 +87,7 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
     """Read the raw table as given, every cell as text (csv/tsv) or as stored.
 
     The returned frame has a default index 0..N-1 where index i is row i + 1
-    of INTERFACE.md's numbering.
+    of the module's row numbering.
     """
     path = Path(cfg.file)
     if not path.exists():
@@ -172,11 +179,13 @@ def _parse_numbers(series: pd.Series, decimal: str):
     return values, problem, raw.to_numpy()
 
 
-def _reason(role: str, column: str, problem: str, raw: str) -> str:
+def _reason(role: str, column: str, problem: str, raw: str, decimal: str = ".") -> str:
     what = f"{role} ({column})"
     if problem == "missing":
         return f"{what} is missing"
     if problem == "non-numeric":
+        if decimal != "," and _DECIMAL_COMMA.match(raw):
+            return f"{what} is not a number: {raw!r} ({_DECIMAL_HINT})"
         return f"{what} is not a number: {raw!r}"
     if problem == "censored":
         return f"{what} is censored: {raw!r}"
@@ -207,6 +216,7 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         if len(table) == 0:
             raise DataError(f"{path}: data.units_row is true but there is no line under the header")
         first = table.iloc[0]
+        _check_units_row(first, cfg, path)
         for role, name in (("x", cfg.x), ("y", cfg.y)):
             if name in table.columns and role not in units:
                 unit = str(first[name]).strip()
@@ -235,9 +245,11 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     active = keep & ~blank
 
     for column, values in cfg.exclude.items():
-        hit = _matches(_as_text(table[column]), values)
+        text = _as_text(table[column])
+        hit = _matches(text, values)
         for i in np.flatnonzero(hit & active):
             reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
+        _warn_unmatched(column, values, text[keep & ~blank], path)
 
     excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
     active = active & ~excluded
@@ -254,8 +266,9 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal)
     y_val, y_prob, y_raw = _parse_numbers(y_col, cfg.decimal)
     for role, column, prob, raw in (("x", cfg.x, x_prob, x_raw), ("y", cfg.y, y_prob, y_raw)):
+        _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
         for i in np.flatnonzero((prob != "") & active):
-            reasons[i].append(_reason(role, column, prob[i], str(raw[i])))
+            reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
 
     dropped_mask = np.array([bool(r) for r in reasons], dtype=bool) & keep
     dropped = pd.DataFrame({
@@ -287,6 +300,57 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         pts = _average_within(pts, cfg, path, base)
     return CleanData(points=pts.reset_index(drop=True), dropped=dropped, n_read=n_read,
                      units=units, averaged_within=cfg.average_within, n_rows_used=n_used)
+
+
+def _check_units_row(first: pd.Series, cfg: DataConfig, path: Path) -> None:
+    """Refuse a 'units row' whose x and y cells are numbers: it is a data row."""
+    cells = {}
+    for name in (cfg.x, cfg.y):
+        if name not in first.index:
+            return   # the missing column is reported by _column, with its hint
+        raw = first[name]
+        raw = raw.iloc[0] if isinstance(raw, pd.Series) else raw
+        values, problem, _ = _parse_numbers(pd.Series([raw], dtype=object), cfg.decimal)
+        if problem[0] not in ("", "zero", "negative"):
+            return   # text (a unit), empty or censored: not a plain number
+        cells[name] = str(raw).strip()
+    shown = ", ".join(f"{k} = {v}" for k, v in cells.items())
+    raise DataError(f"{path}: data.units_row is true, but row 1 (the line under the header) "
+                    f"holds numbers ({shown}), not units; it would be lost as data. Set "
+                    "data.units_row: false, or add the units line to the file")
+
+
+def _warn_unmatched(column: str, values, text: pd.Series, path: Path) -> None:
+    """Warn for each exclude value that matches no row of ``column`` (a typo?)."""
+    present = sorted(set(text) - {""})
+    for value in values:
+        if _matches(text, [value]).any():
+            continue
+        close = difflib.get_close_matches(str(value).strip(), present, n=3, cutoff=0.6)
+        if close:
+            hint = "closest values: " + ", ".join(repr(c) for c in close)
+        else:
+            hint = ("values there include: " + ", ".join(repr(c) for c in present[:5])
+                    + (", ..." if len(present) > 5 else "")) if present else "the column is empty"
+        warnings.warn(f"{path}: data.exclude.{column}: {str(value)!r} matches no row of "
+                      f"column '{column}', so nothing was excluded for it ({hint})",
+                      DataWarning, stacklevel=3)
+
+
+def _check_decimal_comma(role: str, column: str, problem: np.ndarray, raw: np.ndarray,
+                         cfg: DataConfig, path: Path) -> None:
+    """A whole column unreadable because of decimal commas: one error with the fix."""
+    if cfg.decimal == "," or not len(problem):
+        return
+    present = problem != "missing"
+    if not present.any() or not (problem[present] == "non-numeric").all():
+        return
+    commas = [str(v) for v in raw[present] if _DECIMAL_COMMA.match(str(v))]
+    if not commas:
+        return
+    shown = ", ".join(repr(v) for v in commas[:3])
+    raise DataError(f"{path}: column '{column}' (data.{role}) holds no number read with "
+                    f"data.decimal \".\" (values like {shown}); {_DECIMAL_HINT}")
 
 
 def _average_within(pts: pd.DataFrame, cfg: DataConfig, path: Path, base) -> pd.DataFrame:

@@ -560,7 +560,15 @@ def compare_error_structure(x, y) -> ErrorStructure:
     mult = ErrorModel(name="multiplicative", a=float(math.exp(ln_a)), b=float(b_log),
                       sigma=math.sqrt(s2_log), log_likelihood=ll_log, aicc=_aicc(ll_log, k, n))
 
-    # additive: nonlinear least squares on the arithmetic scale
+    # additive: nonlinear least squares on the arithmetic scale.  It is fitted to
+    # x/cx and y/cy (cx, cy the geometric means), so values near 1e-300 or 1e300 do
+    # not underflow or overflow when squared; y = a x^b becomes y/cy = a' (x/cx)^b
+    # with a = a' cy / cx^b, and every log-likelihood of y/cy is that of y plus
+    # n ln cy (the Jacobian), the same shift for both models, so AICc differences
+    # are unchanged (exact law of a change of scale).
+    ln_cx, ln_cy = float(np.mean(lx)), float(np.mean(ly))
+    xs, ys = np.exp(lx - ln_cx), np.exp(ly - ln_cy)
+
     def power(xv, a, b):
         return a * np.power(xv, b)
 
@@ -569,20 +577,23 @@ def compare_error_structure(x, y) -> ErrorStructure:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", optimize.OptimizeWarning)
             with np.errstate(over="ignore", invalid="ignore"):
-                (a_nl, b_nl), _ = optimize.curve_fit(power, x, y, p0=(math.exp(ln_a), b_log),
-                                                     maxfev=5000)
-        rss = float(np.sum((y - power(x, a_nl, b_nl)) ** 2))
-        if not np.isfinite(rss):
+                (a_s, b_nl), _ = optimize.curve_fit(
+                    power, xs, ys, p0=(math.exp(ln_a + b_log * ln_cx - ln_cy), b_log),
+                    maxfev=5000)
+        rss_s = float(np.sum((ys - power(xs, a_s, b_nl)) ** 2))
+        if not np.isfinite(rss_s) or rss_s <= 0 or a_s == 0:
             raise RuntimeError("non-finite residuals")
     except RuntimeError:
         converged = False
-        a_nl = b_nl = rss = math.nan
+        a_nl = b_nl = math.nan
         warnings.warn("compare_error_structure: the nonlinear (additive-error) fit did not "
                       "converge", DegenerateDataWarning, stacklevel=2)
     if converged:
-        s2_nl = rss / n
-        ll_nl = -n / 2 * (math.log(2 * math.pi * s2_nl) + 1)
-        add = ErrorModel(name="additive", a=float(a_nl), b=float(b_nl), sigma=math.sqrt(s2_nl),
+        with np.errstate(over="ignore"):
+            a_nl = math.copysign(float(np.exp(math.log(abs(a_s)) + ln_cy - b_nl * ln_cx)), a_s)
+            sigma_nl = float(np.exp(0.5 * math.log(rss_s / n) + ln_cy))
+        ll_nl = -n / 2 * (math.log(2 * math.pi * rss_s / n) + 1) - n * ln_cy
+        add = ErrorModel(name="additive", a=float(a_nl), b=float(b_nl), sigma=sigma_nl,
                          log_likelihood=ll_nl, aicc=_aicc(ll_nl, k, n))
         delta = add.aicc - mult.aicc
         w_mult = 1.0 / (1.0 + math.exp(-delta / 2)) if delta > -1400 else 0.0

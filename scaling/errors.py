@@ -14,6 +14,8 @@ __all__ = [
     "ScalingWarning",
     "DegenerateDataWarning",
     "ExtrapolationWarning",
+    "DataWarning",
+    "FigureWarning",
 ]
 
 
@@ -43,3 +45,14 @@ class DegenerateDataWarning(ScalingWarning):
 
 class ExtrapolationWarning(ScalingWarning):
     """A prediction was asked for outside the fitted range of x (or y)."""
+
+
+class DataWarning(ScalingWarning):
+    """The data were read, but something the config asks for looks unintended.
+
+    For example an ``exclude`` value that matches no row (often a typo).
+    """
+
+
+class FigureWarning(ScalingWarning):
+    """A figure could not be drawn and was skipped; the numeric results are unaffected."""

@@ -192,7 +192,8 @@ def natural_log_axis(ax, which: str = "both") -> None:
         axis = ax.xaxis if name == "x" else ax.yaxis
         getattr(ax, f"set_{name}scale")("log")
         lo, hi = sorted(getattr(ax, f"get_{name}lim")())
-        decades = math.log10(hi / lo) if lo > 0 and hi > 0 else 1.0
+        # difference of logs, not log of the ratio: hi / lo overflows for 1e-300..1e300
+        decades = math.log10(hi) - math.log10(lo) if lo > 0 and hi > 0 else 1.0
         if decades < 1.5:
             axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0), numticks=12))
             axis.set_minor_locator(LogLocator(base=10, subs=np.arange(1, 10) * 1.0,
@@ -203,6 +204,22 @@ def natural_log_axis(ax, which: str = "both") -> None:
                                               numticks=40 if decades <= 8 else 2))
         axis.set_major_formatter(NaturalLogFormatter())
         axis.set_minor_formatter(NullFormatter())
+
+
+def _log_margins(ax, margin: float) -> None:
+    """Autoscale log axes with ``margin``, or with none where a margin would leave the
+    floating-point range (data spanning 1e-300 to 1e300: 5% of 600 decades is 1e330)."""
+    ax.margins(margin)
+    try:
+        with np.errstate(over="ignore", invalid="ignore"):
+            ax.autoscale_view()
+        limits = np.array([*ax.get_xlim(), *ax.get_ylim()], dtype=float)
+        ok = bool(np.all(np.isfinite(limits)) and np.all(limits > 0))
+    except ValueError:
+        ok = False
+    if not ok:
+        ax.margins(0)
+        ax.autoscale_view()
 
 
 def _arith_formatter(value, _pos=None) -> str:
@@ -562,8 +579,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                                                       "confidence band"))
 
     natural_log_axis(ax)
-    ax.margins(0.05)
-    ax.autoscale_view()
+    _log_margins(ax, 0.05)
     natural_log_axis(ax)   # again: locators depend on the final span
     ax.set_xlabel(_label(result, "x"))
     ax.set_ylabel(_label(result, "y"))
@@ -1040,18 +1056,37 @@ def write_figures(result, folder: Path) -> list[Path]:
     ``config.figures.kinds`` selects the figures, ``.formats`` the files
     (``png`` at ``.dpi``; ``pdf`` and ``svg`` as vector with text kept as
     text), ``.size`` the width.  Files are ``figures/<kind>.<format>``.
+
+    A figure that cannot be drawn or saved (e.g. axis limits beyond the
+    floating-point range for values near 1e±300) is skipped, with a
+    :class:`~scaling.errors.FigureWarning` naming it and the reason: a figure
+    never turns a good fit into a failed run.
     """
+    import warnings
+
+    from .errors import FigureWarning
     cfg = result.config.figures
     folder = Path(folder)
     (folder / "figures").mkdir(parents=True, exist_ok=True)
     out: list[Path] = []
     for kind in cfg.kinds:
-        fig = make_figure(result, kind, size=cfg.size)
-        for i, fmt in enumerate(cfg.formats):
-            rel = Path("figures") / f"{kind}.{fmt}"
-            _save(fig, folder / rel, fmt, cfg.dpi)
-            out.append(rel)
-            if i == 0:
-                # Same size in every format: keep the layout found for the first.
-                fig.set_layout_engine("none")
+        done: list[Path] = []
+        try:
+            fig = make_figure(result, kind, size=cfg.size)
+            for i, fmt in enumerate(cfg.formats):
+                rel = Path("figures") / f"{kind}.{fmt}"
+                _save(fig, folder / rel, fmt, cfg.dpi)
+                done.append(rel)
+                if i == 0:
+                    # Same size in every format: keep the layout found for the first.
+                    fig.set_layout_engine("none")
+        except Exception as exc:  # noqa: BLE001 -- any drawing failure skips this figure only
+            for rel in done:
+                (folder / rel).unlink(missing_ok=True)
+            reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            warnings.warn(f"Figure '{kind}' was not drawn ({type(exc).__name__}: {reason}); "
+                          "the numeric results are complete in the tables.",
+                          FigureWarning, stacklevel=2)
+            continue
+        out += done
     return out

@@ -25,7 +25,7 @@ import pandas as pd
 from ._version import __version__
 from .config import Config, config_from_dict, load_config
 from .data import CleanData, load_data
-from .errors import DataError, OutputError, ScalingError
+from .errors import DataError, OutputError, ScalingError, ScalingWarning
 from .lines import (MIN_N, METHODS, base_label, describe_test, fit_moments,
                     line_fit_from_moments, method_label, parse_log_base)
 from .moments import group_moments, moments
@@ -193,11 +193,17 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     """
     cfg = config
     base = parse_log_base(cfg.model.log_base)
-    data = load_data(cfg.data, log_base=base)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ScalingWarning)
+        data = load_data(cfg.data, log_base=base)
     pts = data.points
     X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
     messages: list[str] = []
     notes: list[str] = []
+    for w in caught:   # e.g. an exclude value matching nothing: a note of the run, and re-warned
+        if issubclass(w.category, ScalingWarning):
+            notes.append(str(w.message))
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
     n_dropped = len(data.dropped)
     unit_word = f" ({cfg.data.average_within} means of {data.n_rows_used} rows)" \
@@ -281,6 +287,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         if means_points is not None:
             point_sets[("group_means", "")] = means_points
 
+    if not line_fits:
+        raise DataError(_nothing_estimable(cfg, pts, rows, n_dropped))
+
     # Keep line_fits in the order of the fits table.
     order = {(r["scope"], r["group"], r["method"]): i for i, r in enumerate(rows)}
     line_fits = dict(sorted(line_fits.items(), key=lambda kv: order.get(kv[0], len(order))))
@@ -348,6 +357,27 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                      dropped=data.dropped[DROPPED_COLUMNS], line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
                      manifest=manifest)
+
+
+def _nothing_estimable(cfg: Config, pts: pd.DataFrame, rows: list, n_dropped: int) -> str:
+    """Why no line at all could be fitted, in one line naming the file and columns."""
+    n = len(pts)
+    where = f"{cfg.data.file}: no line can be fitted"
+    if n < MIN_N:
+        dropped = ""
+        if n_dropped:
+            dropped = f"; {n_dropped} rows were dropped ('scaling check' lists why)"
+        return (f"{where}: only {n} usable point{'s' if n != 1 else ''} "
+                f"(a line needs at least {MIN_N}){dropped}")
+    for role, column in (("x", cfg.data.x), ("y", cfg.data.y)):
+        logs = pts[f"log_{role}"].to_numpy()
+        if np.ptp(logs) <= 1e-12 * (np.abs(logs).max() + 1.0):
+            value = float(pts[role].iloc[0])
+            why = "no slope to estimate" if role == "x" else "no relationship to fit"
+            return (f"{where}: {role} ({column}) has the same value ({value:g}) in all "
+                    f"{n} points, so there is {why}")
+    notes = sorted({str(r["note"]) for r in rows if r["scope"] == "pooled" and r["note"]})
+    return f"{where}: " + ("; ".join(notes) if notes else "no fit was estimable")
 
 
 def _robust_n_boot(cfg: Config) -> int:
@@ -580,7 +610,7 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
     """predictions.csv (and inverse_predictions.csv) for the config's values."""
     from .predict import fit_from_dict, inverse_predict, predict_from_dict
     pc = cfg.prediction
-    rows, inv_rows, notes = [], [], []
+    rows, inv_rows, notes, unbounded = [], [], [], []
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for key, d in saved.items():
@@ -592,6 +622,8 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
             if pc.y:
                 q = inverse_predict(fit_from_dict(d), list(pc.y), interval=pc.interval)
                 inv_rows.append(_tagged(q, scope, group, method))
+                if not np.all(q.bounded):
+                    unbounded.append(_scope_words(scope, group) + " " + method_label(method))
     tables = {}
     if pc.x:
         table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS] if rows else \
@@ -617,7 +649,17 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
         if n_ext:
             notes.append(f"{n_ext} inverse predictions use y outside the fitted y range "
                          "(extrapolations).")
+        if unbounded:
+            notes.append(_unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
     return tables, notes
+
+
+def _unbounded_inverse_note(fits: list, interval: str, confidence: float) -> str:
+    """The note for inverse predictions whose interval has no finite bounds."""
+    return (f"Inverse predictions ({', '.join(fits)}): the {100 * confidence:g}% {interval} "
+            "interval for x is unbounded, because the slope does not differ from 0 at this "
+            "level; x_low and x_high are blank in inverse_predictions.csv, and y says little "
+            "about x here.")
 
 
 def _slope_tests(line_fits: dict, cfg: Config) -> pd.DataFrame:
@@ -1094,7 +1136,7 @@ def write_outputs(result: RunResult, out_dir: Path | str, *, force: bool = False
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
     try:
-        written = _write_all(result, tmp, writers or [])
+        written, result = _write_all(result, tmp, writers or [])
         # Never overwrite an input, even with --force.
         protected = {p.resolve() for p in inputs}
         for rel in written:
@@ -1120,7 +1162,8 @@ def _write_csv(frame: pd.DataFrame, path: Path) -> None:
     frame.to_csv(path, index=False, lineterminator="\n")
 
 
-def _write_all(result: RunResult, folder: Path, writers: list) -> list[Path]:
+def _write_all(result: RunResult, folder: Path, writers: list) -> tuple:
+    """Write every file into ``folder``; return (relative paths, result with figure notes)."""
     written: list[Path] = []
 
     def csv(name, frame):
@@ -1135,8 +1178,14 @@ def _write_all(result: RunResult, folder: Path, writers: list) -> list[Path]:
             csv(f"{name}.csv", table)
     # Figures and report are optional stages; each returns relative paths.
     from . import figures as _figures
+    from .errors import FigureWarning
     (folder / "figures").mkdir(exist_ok=True)
-    written += _figures.write_figures(result, folder)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", FigureWarning)
+        written += _figures.write_figures(result, folder)
+    skipped = [str(w.message) for w in caught if issubclass(w.category, FigureWarning)]
+    if skipped:   # a skipped figure is a note of the run: terminal, report and results.json
+        result = _replace(result, warnings=tuple(result.warnings) + tuple(skipped))
     try:
         from . import report as _report
     except ImportError:  # report stage not present
@@ -1150,7 +1199,7 @@ def _write_all(result: RunResult, folder: Path, writers: list) -> list[Path]:
     with open(folder / "results.json", "w", encoding="utf-8") as fh:
         json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
     written.append(Path("results.json"))
-    return written
+    return written, result
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,

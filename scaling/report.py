@@ -277,7 +277,10 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
             png = (folder / rel).read_bytes()
             path = rel
         else:
-            png = _figures.figure_png(result, kind, dpi=150)
+            try:
+                png = _figures.figure_png(result, kind, dpi=150)
+            except Exception:  # noqa: BLE001 -- a figure that cannot be drawn is left out;
+                continue       # write_figures has already put a note in the run's warnings
             path = ""
         blocks.append(Block(kind="img", png=png, path=path, name=kind,
                             text=FIGURE_CAPTIONS.get(kind, kind)))

@@ -18,7 +18,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import ConfigError, DataError, ExtrapolationWarning, OutputError
+from .errors import (ConfigError, DataError, DegenerateDataWarning, ExtrapolationWarning,
+                     OutputError)
 from .lines import LineFit
 
 __all__ = ["SavedResults", "load_results", "predict_command"]
@@ -199,6 +200,7 @@ def predict_command(args) -> int:
     method = args.method.lower() if args.method else None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ExtrapolationWarning)
+        warnings.simplefilter("always", DegenerateDataWarning)
         frame = saved.predict(values, method=method, group=args.group,
                               correction=args.correction, interval=args.interval,
                               inverse=args.inverse)
@@ -208,5 +210,9 @@ def predict_command(args) -> int:
     if any(issubclass(w.category, ExtrapolationWarning) for w in caught):
         print("warning: some values lie outside the fitted range (extrapolated = True); "
               "treat those predictions with caution")
+    for w in caught:
+        if issubclass(w.category, DegenerateDataWarning):
+            print(f"warning: {w.message}" + ("; x_low and x_high are blank"
+                                             if "unbounded" in str(w.message) else ""))
     print(f"wrote {out}")
     return 0

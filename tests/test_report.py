@@ -85,6 +85,8 @@ def script_run(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory):
+    # The demo run is a smoke test of rendering: facts of the file (rows read, the
+    # planted exclusions), never its statistical verdicts.
     out = tmp_path_factory.mktemp("demo") / "out"
     return write_outputs(with_figures(demo(), dpi=72), out)
 

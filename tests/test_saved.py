@@ -33,7 +33,7 @@ def nogroup_out(tmp_path_factory):
 
 class TestPredictCommand:
     def test_same_numbers_as_run(self, demo_out, tmp_path, monkeypatch, capsys):
-        # The run's predictions.csv is the reference: predicting later from the
+        # Internal consistency: the run's predictions.csv against predicting later from the
         # saved fits must reproduce it exactly (same formulas, saved factors).
         run = pd.read_csv(demo_out / "predictions.csv")
         monkeypatch.chdir(tmp_path)
@@ -56,7 +56,7 @@ class TestPredictCommand:
         monkeypatch.chdir(tmp_path)
         assert main(["predict", str(demo_out), "--from", "new.csv", "--group", "Canopy"]) == 0
         new = pd.read_csv(tmp_path / "predictions.csv")
-        assert_allclose(new["y"], ref["y"], rtol=1e-12)  # reference: the run itself
+        assert_allclose(new["y"], ref["y"], rtol=1e-12)  # internal consistency: the run itself
 
     def test_inverse_round_trip(self, demo_out):
         saved = scaling.load_results(demo_out)
