@@ -381,25 +381,36 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
     Parameters
     ----------
     plan : PhyloPlan
-    values : array_like, shape (n, k)
-        Trait values of the tips, in ``plan.tips`` order.
+    values : array_like, shape (n, k) or (n, B, k)
+        Trait values of the tips, in ``plan.tips`` order; an optional middle
+        axis holds B data sets on the same tree (e.g. simulation replicates).
     lams : array_like, shape (L,)
+
+    Returns
+    -------
+    PassResult
+        ``logdet`` and ``sum_w`` of shape (L,); ``mean`` (L, k) or (L, B, k);
+        ``css`` (L, k, k) or (L, B, k, k).
 
     Notes
     -----
-    The pruning recursion of the module docstring; cost O(n k L), memory
-    O(n k L), one numpy step per tree level.
+    The pruning recursion of the module docstring; cost and memory
+    O(n L B k), one numpy step per tree level.
     """
     z_tips = np.asarray(values, dtype=float)
+    batched = z_tips.ndim == 3
+    if not batched:
+        z_tips = z_tips[:, None, :]
     lams = np.atleast_1d(np.asarray(lams, dtype=float))
-    L, k = lams.size, z_tips.shape[1]
+    L = lams.size
+    _, B, k = z_tips.shape
     tip_branch = ~np.isnan(plan.tip_height)
     base = plan.length[:, None] * lams[None, :]
     blen = np.where(tip_branch[:, None],
                     base + np.nan_to_num(plan.tip_height)[:, None] * (1 - lams)[None, :], base)
     p = np.zeros((plan.n_nodes, L))
-    z = np.zeros((plan.n_nodes, L, k))
-    z[plan.tips] = z_tips[:, None, :]
+    z = np.zeros((plan.n_nodes, L, B, k))
+    z[plan.tips] = z_tips[:, None, :, :]
     e_all = np.empty_like(blen)
     child = plan.child
     for sl, starts, parents in plan.levels:
@@ -408,21 +419,27 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
         e_all[sl] = e
         w = 1.0 / e
         big_w = np.add.reduceat(w, starts, axis=0)
-        wz = np.add.reduceat(w[:, :, None] * z[c], starts, axis=0)
-        z[parents] = wz / big_w[:, :, None]
+        wz = np.add.reduceat(w[:, :, None, None] * z[c], starts, axis=0)
+        z[parents] = wz / big_w[:, :, None, None]
         p[parents] = 1.0 / big_w
     logdet = np.log(e_all).sum(axis=0) - np.log(p[plan.internal_nonroot]).sum(axis=0)
     d = z[child] - z[plan.parent_of_child]
-    css = np.einsum("el,eli,elj->lij", 1.0 / e_all, d, d)
-    return PassResult(logdet=logdet, sum_w=1.0 / p[0], mean=z[0], css=css)
+    css = np.einsum("el,elbi,elbj->lbij", 1.0 / e_all, d, d, optimize=True)
+    mean = z[0]
+    if not batched:
+        mean, css = mean[:, 0], css[:, 0]
+    return PassResult(logdet=logdet, sum_w=1.0 / p[0], mean=mean, css=css)
 
 
-def _dense_pass(tree: Tree, tips, values, lam: float) -> PassResult:
-    """The same quantities from the n x n covariance and its Cholesky factor."""
+def _dense_pass(v1: np.ndarray, values, lam: float) -> PassResult:
+    """The same quantities from the n x n covariance and its Cholesky factor.
+
+    ``v1`` is the Brownian covariance (lambda = 1) with rows in data order;
+    V_lambda = lambda V + (1 - lambda) diag(V) (Pagel 1999).
+    """
     from scipy.linalg import cho_factor, cho_solve
-    v = tree_covariance(tree, lam)
-    pos = np.searchsorted(tree.tips, np.asarray(tips))   # rows of v are tips in pre-order
-    v = v[np.ix_(pos, pos)]
+    v = lam * v1
+    v[np.diag_indices_from(v)] = np.diag(v1)
     z = np.asarray(values, dtype=float)
     cf = cho_factor(v, lower=True)
     logdet = 2.0 * np.sum(np.log(np.diag(cf[0])))
@@ -436,16 +453,24 @@ def _dense_pass(tree: Tree, tips, values, lam: float) -> PassResult:
                       mean=mean[None, :], css=css[None])
 
 
+def _dense_cov(tree: Tree, tips) -> np.ndarray:
+    pos = np.searchsorted(tree.tips, np.asarray(tips))   # rows of V are tips in pre-order
+    return tree_covariance(tree)[np.ix_(pos, pos)]
+
+
 # --------------------------------------------------------------------------
 # moments and likelihoods
 
 
-def _moments_from_pass(res: PassResult, n: int, i: int = 0) -> Moments:
-    scale = n / res.sum_w[i]      # V scaled so that 1'V^-1 1 = n
-    s = res.css[i] * scale
-    return Moments(n=np.asarray(float(n)), mean_x=np.asarray(res.mean[i, 0]),
-                   mean_y=np.asarray(res.mean[i, 1]), sxx=np.asarray(s[0, 0]),
-                   syy=np.asarray(s[1, 1]), sxy=np.asarray(s[0, 1]))
+def _moments_from_pass(res: PassResult, n: int, i=0) -> Moments:
+    """Moments of pass entry ``i`` (an index into the lambda axis, or a tuple
+    (lambda index, replicate index) arrays for batched passes)."""
+    scale = n / np.asarray(res.sum_w)[np.asarray(i if not isinstance(i, tuple) else i[0])]
+    s = res.css[i]                 # V scaled so that 1'V^-1 1 = n
+    mean = res.mean[i]
+    return Moments(n=np.full(np.shape(scale), float(n)), mean_x=np.asarray(mean[..., 0]),
+                   mean_y=np.asarray(mean[..., 1]), sxx=np.asarray(s[..., 0, 0] * scale),
+                   syy=np.asarray(s[..., 1, 1] * scale), sxy=np.asarray(s[..., 0, 1] * scale))
 
 
 def phylo_loglik(res: PassResult, n: int, *, model: str, reml: bool = False) -> np.ndarray:
@@ -455,7 +480,10 @@ def phylo_loglik(res: PassResult, n: int, *, model: str, reml: bool = False) -> 
     ``"bivariate"`` (joint Brownian motion of X and Y).
     """
     two_pi = math.log(2 * math.pi)
-    sxx, syy, sxy = res.css[:, 0, 0], res.css[:, 1, 1], res.css[:, 0, 1]
+    sxx, syy, sxy = res.css[..., 0, 0], res.css[..., 1, 1], res.css[..., 0, 1]
+    extra = (1,) * (sxx.ndim - 1)      # broadcast (L,) over a replicate axis
+    res = PassResult(logdet=res.logdet.reshape(-1, *extra), sum_w=res.sum_w.reshape(-1, *extra),
+                     mean=res.mean, css=res.css)
     with np.errstate(divide="ignore", invalid="ignore"):
         if model == "regression":
             rss = syy - sxy * sxy / sxx
@@ -492,7 +520,7 @@ def phylo_moments(tree: Tree, X, Y, lam: float, *, tips=None) -> Moments:
 def dense_phylo_moments(tree: Tree, X, Y, lam: float, *, tips=None) -> Moments:
     """Reference for :func:`phylo_moments`: n x n covariance and Cholesky (tests only)."""
     tips = tree.tips if tips is None else tips
-    res = _dense_pass(tree, tips, np.column_stack([X, Y]), lam)
+    res = _dense_pass(_dense_cov(tree, tips), np.column_stack([X, Y]), lam)
     return _moments_from_pass(res, len(tips))
 
 
@@ -500,19 +528,48 @@ def dense_phylo_moments(tree: Tree, X, Y, lam: float, *, tips=None) -> Moments:
 # lambda estimation
 
 
-def _maximise(loglik: Callable, grid_values: np.ndarray) -> tuple[float, float]:
-    """Maximise loglik(lam) on [0, 1]: best grid point, then bounded Brent around it."""
+def _maximise(loglik: Callable, grid_values: np.ndarray,
+              ll_many: Callable | None = None) -> tuple[float, float]:
+    """Maximise loglik(lam) on [0, 1]: best grid point, bounded Brent around it,
+    then (inside (0, 1)) the root of the central-difference derivative.
+
+    Brent on the function value stops where the likelihood is flat to
+    rounding, which leaves lambda uncertain to about sqrt(machine epsilon);
+    the zero of the derivative (both differences in one pass via
+    ``ll_many``) is determined to about machine epsilon / curvature.
+    """
     g = int(np.nanargmax(grid_values))
     lo = _GRID[max(g - 1, 0)]
     hi = _GRID[min(g + 1, _GRID.size - 1)]
     r = optimize.minimize_scalar(lambda t: -loglik(t), bounds=(lo, hi), method="bounded",
                                  options={"xatol": 1e-10, "maxiter": 200})
     best_lam, best_ll = float(r.x), float(-r.fun)
+    if ll_many is not None:
+        best_lam, best_ll = _polish(loglik, ll_many, best_lam, best_ll)
     for edge in {lo, hi}:              # bounded Brent never evaluates the ends
         ll = float(grid_values[int(round(edge * 20))])
         if ll > best_ll:
             best_lam, best_ll = float(edge), ll
     return best_lam, best_ll
+
+
+def _polish(loglik, ll_many, lam: float, ll: float) -> tuple[float, float]:
+    h = 1e-6
+
+    def grad(t):
+        a, b = ll_many([t - h, t + h])
+        return (b - a) / (2 * h)
+
+    width = 1e-4
+    lo, hi = lam - width, lam + width
+    if lo - h <= 0 or hi + h >= 1:
+        return lam, ll
+    g_lo, g_hi = grad(lo), grad(hi)
+    if not (np.isfinite(g_lo) and np.isfinite(g_hi)) or g_lo < 0 or g_hi > 0:
+        return lam, ll
+    t = optimize.brentq(grad, lo, hi, xtol=1e-13)
+    ll_t = loglik(t)
+    return (t, ll_t) if ll_t >= ll - 1e-9 * max(1.0, abs(ll)) else (lam, ll)
 
 
 def _profile_interval(loglik: Callable, lam_hat: float, ll_hat: float,
@@ -743,10 +800,12 @@ def fit_phylo(x, y, tree, species, *, method: str = "ols", lam="ml", reml: bool 
     values = np.column_stack([X, Y])
     model = _model_of(method)
 
+    v1 = _dense_cov(pruned, tips_new) if reference else None
+
     def run(lams) -> PassResult:
         if not reference:
             return phylo_pass(plan, values, lams)
-        parts = [_dense_pass(pruned, tips_new, values, t) for t in np.atleast_1d(lams)]
+        parts = [_dense_pass(v1, values, t) for t in np.atleast_1d(lams)]
         return PassResult(**{key: np.concatenate([getattr(r, key) for r in parts])
                              for key in ("logdet", "sum_w", "mean", "css")})
 
@@ -757,7 +816,7 @@ def fit_phylo(x, y, tree, species, *, method: str = "ols", lam="ml", reml: bool 
         return float(ll_of([t])[0])
 
     if lam_opt == "ml":
-        lam_hat, ll_hat = _maximise(loglik, ll_of(_GRID))
+        lam_hat, ll_hat = _maximise(loglik, ll_of(_GRID), ll_of)
         lam_ci = _profile_interval(loglik, lam_hat, ll_hat, confidence)
         estimate = "reml" if reml else "ml"
     else:
