@@ -71,8 +71,9 @@ The REML forms omit the constant log|X'X| term (as several packages do),
 so REML log-likelihoods compare only between fits with the same design.
 AIC = -2 l + 2 k, k counting lambda when it is estimated.
 
-lambda is estimated on [0, 1] by evaluating a grid of 21 values in one pass
-and refining the best one with bounded Brent search.  Its profile-likelihood
+lambda is estimated on [0, 1] by evaluating a grid of 11 values in one pass
+and refining the best one with bounded Brent search, then the zero of the
+(central-difference) derivative.  Its profile-likelihood
 interval is {lambda : 2 (l_max - l(lambda)) <= chi2_1(confidence)} (Wilks),
 found by root search on each side and clipped to [0, 1].
 """
@@ -112,7 +113,7 @@ __all__ = [
     "fit_phylo",
 ]
 
-_GRID = np.linspace(0.0, 1.0, 21)
+_GRID = np.linspace(0.0, 1.0, 11)
 
 
 # --------------------------------------------------------------------------
@@ -305,7 +306,7 @@ class PhyloPlan:
     child: np.ndarray            # branches (child node) sorted by (level of parent, parent)
     parent_of_child: np.ndarray
     length: np.ndarray           # branch length of each sorted child
-    tip_height: np.ndarray       # height of the child if it is a tip, else NaN
+    tip_height: np.ndarray       # height of the child if it is a tip, else 0
     levels: tuple                # per level: (slice of sorted children, reduceat starts, parents)
     internal_nonroot: np.ndarray
 
@@ -357,7 +358,7 @@ class PhyloPlan:
         internal[0] = False
         return cls(n=int(tips.size), n_nodes=n_nodes, tips=tips, child=child,
                    parent_of_child=pc, length=tree.length[child],
-                   tip_height=np.where(tree.is_tip[child], h[child], np.nan),
+                   tip_height=np.where(tree.is_tip[child], h[child], 0.0),
                    levels=tuple(levels), internal_nonroot=np.flatnonzero(internal))
 
 
@@ -403,14 +404,14 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
         z_tips = z_tips[:, None, :]
     lams = np.atleast_1d(np.asarray(lams, dtype=float))
     L = lams.size
-    _, B, k = z_tips.shape
-    tip_branch = ~np.isnan(plan.tip_height)
-    base = plan.length[:, None] * lams[None, :]
-    blen = np.where(tip_branch[:, None],
-                    base + np.nan_to_num(plan.tip_height)[:, None] * (1 - lams)[None, :], base)
+    n, B, k = z_tips.shape
+    # branch lengths under each lambda: internal b -> lambda b, tip b -> lambda b + (1 - lambda) h
+    blen = plan.length[:, None] * lams[None, :] + plan.tip_height[:, None] * (1 - lams)[None, :]
+    # one column per (lambda, data set, trait); column -> lambda index
+    cols = np.repeat(np.arange(L), B * k)
     p = np.zeros((plan.n_nodes, L))
-    z = np.zeros((plan.n_nodes, L, B, k))
-    z[plan.tips] = z_tips[:, None, :, :]
+    z = np.zeros((plan.n_nodes, L * B * k))
+    z[plan.tips] = np.broadcast_to(z_tips.reshape(n, 1, B * k), (n, L, B * k)).reshape(n, -1)
     e_all = np.empty_like(blen)
     child = plan.child
     for sl, starts, parents in plan.levels:
@@ -419,13 +420,18 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
         e_all[sl] = e
         w = 1.0 / e
         big_w = np.add.reduceat(w, starts, axis=0)
-        wz = np.add.reduceat(w[:, :, None, None] * z[c], starts, axis=0)
-        z[parents] = wz / big_w[:, :, None, None]
+        wz = np.add.reduceat((w if L == 1 else w[:, cols]) * z[c], starts, axis=0)
+        wz /= big_w if L == 1 else big_w[:, cols]
+        z[parents] = wz
         p[parents] = 1.0 / big_w
     logdet = np.log(e_all).sum(axis=0) - np.log(p[plan.internal_nonroot]).sum(axis=0)
-    d = z[child] - z[plan.parent_of_child]
-    css = np.einsum("el,elbi,elbj->lbij", 1.0 / e_all, d, d, optimize=True)
-    mean = z[0]
+    d = (z[child] - z[plan.parent_of_child]).reshape(-1, L, B, k)
+    dw = d / e_all[:, :, None, None]
+    css = np.empty((L, B, k, k))
+    for i in range(k):
+        for j in range(i, k):
+            css[:, :, i, j] = css[:, :, j, i] = np.einsum("elb,elb->lb", dw[..., i], d[..., j])
+    mean = z[0].reshape(L, B, k)
     if not batched:
         mean, css = mean[:, 0], css[:, 0]
     return PassResult(logdet=logdet, sum_w=1.0 / p[0], mean=mean, css=css)
@@ -542,12 +548,13 @@ def _maximise(loglik: Callable, grid_values: np.ndarray,
     lo = _GRID[max(g - 1, 0)]
     hi = _GRID[min(g + 1, _GRID.size - 1)]
     r = optimize.minimize_scalar(lambda t: -loglik(t), bounds=(lo, hi), method="bounded",
-                                 options={"xatol": 1e-10, "maxiter": 200})
+                                 options={"xatol": 1e-6 if ll_many is not None else 1e-10,
+                                          "maxiter": 200})
     best_lam, best_ll = float(r.x), float(-r.fun)
     if ll_many is not None:
         best_lam, best_ll = _polish(loglik, ll_many, best_lam, best_ll)
     for edge in {lo, hi}:              # bounded Brent never evaluates the ends
-        ll = float(grid_values[int(round(edge * 20))])
+        ll = float(grid_values[int(round(edge * (_GRID.size - 1)))])
         if ll > best_ll:
             best_lam, best_ll = float(edge), ll
     return best_lam, best_ll
