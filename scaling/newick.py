@@ -161,10 +161,8 @@ def parse_newick(text: str, *, source: str = "<string>") -> Tree:
         if done:
             fail(at, "text after the closing ';'")
         if kind == _OPEN:
-            if prev != -1:
+            if prev != -1:      # also catches a second tree after the root closed
                 fail(at, "'(' where ',' or ')' was expected")
-            if not stack and parent:
-                fail(at, "a second root")
             stack.append(new_node(at, False))
             prev, has_label = -1, False
         elif kind == _COMMA or kind == _CLOSE:
@@ -179,8 +177,6 @@ def parse_newick(text: str, *, source: str = "<string>") -> Tree:
         elif kind == _QUOTED or kind == _WORD:
             label = _unquote(m.group(kind)) if kind == _QUOTED else m.group(kind)
             if prev == -1:
-                if not stack and parent:
-                    fail(at, f"unexpected label {label!r}")
                 prev, has_label = new_node(at, True, label), True
             elif has_label or length[prev] is not None:
                 fail(at, f"unexpected label {label!r}")
@@ -188,8 +184,6 @@ def parse_newick(text: str, *, source: str = "<string>") -> Tree:
                 names[prev], has_label = label, True
         elif kind == _COLON:
             if prev == -1:
-                if not stack and parent:
-                    fail(at, "':' in an unexpected place")
                 prev = new_node(at, True)
             if length[prev] is not None:
                 fail(at, "a second branch length")

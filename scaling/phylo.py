@@ -72,10 +72,12 @@ so REML log-likelihoods compare only between fits with the same design.
 AIC = -2 l + 2 k, k counting lambda when it is estimated.
 
 lambda is estimated on [0, 1] by evaluating a grid of 11 values in one pass
-and refining the best one with bounded Brent search, then the zero of the
-(central-difference) derivative.  Its profile-likelihood
+and refining the best one by Brent's root search on the central-difference
+derivative between its grid neighbours (bounded Brent search on the value
+when the maximum is at or next to 0 or 1).  Its profile-likelihood
 interval is {lambda : 2 (l_max - l(lambda)) <= chi2_1(confidence)} (Wilks),
-found by root search on each side and clipped to [0, 1].
+found by root search on each side between the grid values that bracket the
+cut, and clipped to [0, 1].
 """
 
 from __future__ import annotations
@@ -534,25 +536,38 @@ def dense_phylo_moments(tree: Tree, X, Y, lam: float, *, tips=None) -> Moments:
 # lambda estimation
 
 
-def _maximise(loglik: Callable, grid_values: np.ndarray,
-              ll_many: Callable | None = None) -> tuple[float, float]:
-    """Maximise loglik(lam) on [0, 1]: best grid point, bounded Brent around it,
-    then (inside (0, 1)) the root of the central-difference derivative.
+_H = 1e-6   # step of the central-difference derivative of the log-likelihood in lambda
 
-    Brent on the function value stops where the likelihood is flat to
-    rounding, which leaves lambda uncertain to about sqrt(machine epsilon);
-    the zero of the derivative (both differences in one pass via
-    ``ll_many``) is determined to about machine epsilon / curvature.
+
+def _maximise(loglik: Callable, grid_values: np.ndarray,
+              ll_many: Callable) -> tuple[float, float]:
+    """Maximise loglik(lam) on [0, 1], starting from its values on ``_GRID``.
+
+    Inside (0, 1) the maximum is the zero of the derivative, found by
+    Brent's root search on the central difference (both points in one
+    pass via ``ll_many``) between the grid neighbours of the best grid
+    point.  The zero of the derivative is determined to about machine
+    epsilon / curvature, whereas searching on the function value stops where
+    the likelihood is flat to rounding (about sqrt(epsilon)).  When the
+    derivative does not change sign there (maximum at or next to 0 or 1),
+    bounded Brent search on the value is used and the ends are checked.
     """
     g = int(np.nanargmax(grid_values))
-    lo = _GRID[max(g - 1, 0)]
-    hi = _GRID[min(g + 1, _GRID.size - 1)]
+    lo = float(_GRID[max(g - 1, 0)])
+    hi = float(_GRID[min(g + 1, _GRID.size - 1)])
+
+    def grad(t):
+        a, b = ll_many([t - _H, t + _H])
+        return (b - a) / (2 * _H)
+
+    if lo - _H >= 0 and hi + _H <= 1:
+        g_lo, g_hi = grad(lo), grad(hi)
+        if np.isfinite(g_lo) and np.isfinite(g_hi) and g_lo > 0 > g_hi:
+            t = optimize.brentq(grad, lo, hi, xtol=1e-13)
+            return float(t), loglik(t)
     r = optimize.minimize_scalar(lambda t: -loglik(t), bounds=(lo, hi), method="bounded",
-                                 options={"xatol": 1e-6 if ll_many is not None else 1e-10,
-                                          "maxiter": 200})
+                                 options={"xatol": 1e-10, "maxiter": 200})
     best_lam, best_ll = float(r.x), float(-r.fun)
-    if ll_many is not None:
-        best_lam, best_ll = _polish(loglik, ll_many, best_lam, best_ll)
     for edge in {lo, hi}:              # bounded Brent never evaluates the ends
         ll = float(grid_values[int(round(edge * (_GRID.size - 1)))])
         if ll > best_ll:
@@ -560,35 +575,31 @@ def _maximise(loglik: Callable, grid_values: np.ndarray,
     return best_lam, best_ll
 
 
-def _polish(loglik, ll_many, lam: float, ll: float) -> tuple[float, float]:
-    h = 1e-6
-
-    def grad(t):
-        a, b = ll_many([t - h, t + h])
-        return (b - a) / (2 * h)
-
-    width = 1e-4
-    lo, hi = lam - width, lam + width
-    if lo - h <= 0 or hi + h >= 1:
-        return lam, ll
-    g_lo, g_hi = grad(lo), grad(hi)
-    if not (np.isfinite(g_lo) and np.isfinite(g_hi)) or g_lo < 0 or g_hi > 0:
-        return lam, ll
-    t = optimize.brentq(grad, lo, hi, xtol=1e-13)
-    ll_t = loglik(t)
-    return (t, ll_t) if ll_t >= ll - 1e-9 * max(1.0, abs(ll)) else (lam, ll)
-
-
 def _profile_interval(loglik: Callable, lam_hat: float, ll_hat: float,
-                      confidence: float) -> ConfidenceInterval:
-    """{lambda in [0, 1]: 2 (l_max - l(lambda)) <= chi2_1(confidence)} (Wilks)."""
+                      confidence: float, grid_values: np.ndarray) -> ConfidenceInterval:
+    """{lambda in [0, 1]: 2 (l_max - l(lambda)) <= chi2_1(confidence)} (Wilks).
+
+    The grid values bracket each crossing of the cut; Brent's root search
+    finds it.  A side where the grid never falls below the cut ends at 0 or 1.
+    """
     cut = ll_hat - stats.chi2.ppf(confidence, 1) / 2
 
     def f(t):
         return loglik(t) - cut
 
-    low = 0.0 if lam_hat <= 0 or f(0.0) >= 0 else optimize.brentq(f, 0.0, lam_hat, xtol=1e-10)
-    high = 1.0 if lam_hat >= 1 or f(1.0) >= 0 else optimize.brentq(f, lam_hat, 1.0, xtol=1e-10)
+    below = grid_values < cut
+    left = np.flatnonzero(below & (_GRID < lam_hat))
+    right = np.flatnonzero(below & (_GRID > lam_hat))
+    if left.size:
+        i = int(left[-1])
+        low = optimize.brentq(f, _GRID[i], min(_GRID[i + 1], lam_hat), xtol=1e-12)
+    else:
+        low = 0.0
+    if right.size:
+        i = int(right[0])
+        high = optimize.brentq(f, max(_GRID[i - 1], lam_hat), _GRID[i], xtol=1e-12)
+    else:
+        high = 1.0
     return ConfidenceInterval(float(low), float(high))
 
 
@@ -823,8 +834,9 @@ def fit_phylo(x, y, tree, species, *, method: str = "ols", lam="ml", reml: bool 
         return float(ll_of([t])[0])
 
     if lam_opt == "ml":
-        lam_hat, ll_hat = _maximise(loglik, ll_of(_GRID), ll_of)
-        lam_ci = _profile_interval(loglik, lam_hat, ll_hat, confidence)
+        grid_values = ll_of(_GRID)
+        lam_hat, ll_hat = _maximise(loglik, grid_values, ll_of)
+        lam_ci = _profile_interval(loglik, lam_hat, ll_hat, confidence, grid_values)
         estimate = "reml" if reml else "ml"
     else:
         lam_hat = lam_opt

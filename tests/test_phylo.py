@@ -116,6 +116,7 @@ class TestParseNewick:
         (";", r"empty tree at character 0"),
         ("A;", r"single node"),
         ("(A:1,B:1)", r"does not end with ';' at character 9"),
+        ("(A:1,'B:1);", r"cannot read \"'B:1\);\" at character 5"),
     ])
     def test_bad_trees_name_the_position(self, text, match):
         with pytest.raises(DataError, match=match):
