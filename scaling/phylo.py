@@ -536,7 +536,7 @@ def dense_phylo_moments(tree: Tree, X, Y, lam: float, *, tips=None) -> Moments:
 # lambda estimation
 
 
-_H = 1e-6   # step of the central-difference derivative of the log-likelihood in lambda
+_H = 1e-4   # step of the central-difference derivative of the log-likelihood in lambda
 
 
 def _maximise(loglik: Callable, grid_values: np.ndarray,
@@ -563,7 +563,7 @@ def _maximise(loglik: Callable, grid_values: np.ndarray,
     if lo - _H >= 0 and hi + _H <= 1:
         g_lo, g_hi = grad(lo), grad(hi)
         if np.isfinite(g_lo) and np.isfinite(g_hi) and g_lo > 0 > g_hi:
-            t = optimize.brentq(grad, lo, hi, xtol=1e-13)
+            t = optimize.brentq(grad, lo, hi, xtol=1e-10)
             return float(t), loglik(t)
     r = optimize.minimize_scalar(lambda t: -loglik(t), bounds=(lo, hi), method="bounded",
                                  options={"xatol": 1e-10, "maxiter": 200})
@@ -592,12 +592,12 @@ def _profile_interval(loglik: Callable, lam_hat: float, ll_hat: float,
     right = np.flatnonzero(below & (_GRID > lam_hat))
     if left.size:
         i = int(left[-1])
-        low = optimize.brentq(f, _GRID[i], min(_GRID[i + 1], lam_hat), xtol=1e-12)
+        low = optimize.brentq(f, _GRID[i], min(_GRID[i + 1], lam_hat), xtol=1e-9)
     else:
         low = 0.0
     if right.size:
         i = int(right[0])
-        high = optimize.brentq(f, max(_GRID[i - 1], lam_hat), _GRID[i], xtol=1e-12)
+        high = optimize.brentq(f, max(_GRID[i - 1], lam_hat), _GRID[i], xtol=1e-9)
     else:
         high = 1.0
     return ConfidenceInterval(float(low), float(high))
