@@ -409,8 +409,7 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
     n, B, k = z_tips.shape
     # branch lengths under each lambda: internal b -> lambda b, tip b -> lambda b + (1 - lambda) h
     blen = plan.length[:, None] * lams[None, :] + plan.tip_height[:, None] * (1 - lams)[None, :]
-    # one column per (lambda, data set, trait); column -> lambda index
-    cols = np.repeat(np.arange(L), B * k)
+    # one column per (lambda, data set, trait), lambda slowest
     p = np.zeros((plan.n_nodes, L))
     z = np.zeros((plan.n_nodes, L * B * k))
     z[plan.tips] = np.broadcast_to(z_tips.reshape(n, 1, B * k), (n, L, B * k)).reshape(n, -1)
@@ -422,9 +421,9 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
         e_all[sl] = e
         w = 1.0 / e
         big_w = np.add.reduceat(w, starts, axis=0)
-        wz = np.add.reduceat((w if L == 1 else w[:, cols]) * z[c], starts, axis=0)
-        wz /= big_w if L == 1 else big_w[:, cols]
-        z[parents] = wz
+        wz = np.add.reduceat(w[:, :, None] * z[c].reshape(c.size, L, -1), starts, axis=0)
+        wz /= big_w[:, :, None]
+        z[parents] = wz.reshape(parents.size, -1)
         p[parents] = 1.0 / big_w
     logdet = np.log(e_all).sum(axis=0) - np.log(p[plan.internal_nonroot]).sum(axis=0)
     d = (z[child] - z[plan.parent_of_child]).reshape(-1, L, B, k)
