@@ -96,7 +96,7 @@ def _unquote(text: str) -> str:
     return text[1:-1].replace("''", "'")
 
 
-def parse_newick(text: str, *, source: str = "<string>") -> Tree:
+def parse_newick(text: str, *, source: str = "<string>", first_only: bool = False) -> Tree:
     """Parse one Newick tree.
 
     Parameters
@@ -105,6 +105,9 @@ def parse_newick(text: str, *, source: str = "<string>") -> Tree:
         The Newick string (one tree ending in ``;``).
     source : str
         Name used in error messages (e.g. the file path).
+    first_only : bool
+        Stop after the first tree's ';' (a file of several trees); otherwise
+        text after it is an error.
 
     Returns
     -------
@@ -210,6 +213,8 @@ def parse_newick(text: str, *, source: str = "<string>") -> Tree:
             if not parent:
                 fail(at, "empty tree")
             done = True
+            if first_only:
+                break
     if not done:
         if not parent:
             raise DataError(f"tree {source}: no tree found (empty text)")
@@ -234,7 +239,7 @@ def parse_newick(text: str, *, source: str = "<string>") -> Tree:
 
 
 def read_newick(path) -> Tree:
-    """Read the first tree of a Newick file (see :func:`parse_newick`).
+    """Read the first tree of a Newick file (see :func:`parse_newick`; later trees are ignored).
 
     Raises
     ------
@@ -246,8 +251,4 @@ def read_newick(path) -> Tree:
         text = path.read_text(encoding="utf-8-sig")
     except (OSError, UnicodeDecodeError) as exc:
         raise DataError(f"tree {path}: cannot be read ({exc})") from None
-    semi = text.find(";")
-    # Only the first tree: cut after its ';' unless that ';' is inside a quote/comment
-    # (rare; then the whole text is parsed and a second tree is reported).
-    return parse_newick(text if semi < 0 else text[: semi + 1] if "'" not in text
-                        and "[" not in text else text, source=str(path))
+    return parse_newick(text, source=str(path), first_only=True)

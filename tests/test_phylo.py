@@ -96,8 +96,9 @@ class TestParseNewick:
 
     def test_read_newick_file(self, tmp_path):
         path = tmp_path / "t.nwk"
-        path.write_text("(A:1,B:2);\n(C:1,D:1);\n")
-        assert read_newick(path).tip_names == ("A", "B")
+        path.write_text("('A;a':1,B:2)[x;y];\n(C:1,D:1);\n")
+        # the first tree only; ';' inside quotes and comments does not end it
+        assert read_newick(path).tip_names == ("A;a", "B")
 
     @pytest.mark.parametrize("text, match", [
         ("((A:1,B:2):1,C);", r"no branch length for tip 'C' at character 13"),
