@@ -1,0 +1,124 @@
+"""Speed and memory of the phylogenetic lambda fit (scaling.phylo).
+
+Random trees (random joins of lineages, exponential branch lengths, so
+not ultrametric) of 1 000, 10 000 and 100 000 tips with traits simulated
+by Brownian motion under lambda = 0.5.  For each size it times, in the same
+run: parsing the Newick text, the whole ML lambda fit by the O(n) pass
+(``fit_phylo``, PGLS and SMA), and, up to 2 000 tips, the dense n x n
+Cholesky reference (``reference=True``), printing the ratio.  It also times
+the registry Newick readers on the largest tree as the baseline for our own
+reader (``--readers``).  Peak memory is the process's peak resident set
+(``ru_maxrss``, which only grows), printed after each fit.
+
+Targets (2 cores): 10 000 tips < 2 s, 100 000 tips < 20 s, growth close to
+linear, peak memory < 1 GB at 100 000 tips.
+
+Run:  .venv/bin/python benchmarks/bench_phylo.py [--sizes 1000 10000 100000]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import resource
+import time
+
+# One BLAS thread: on a shared 2-core machine threaded BLAS oversubscribes and
+# makes the dense reference several times slower than it is.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+
+import numpy as np  # noqa: E402
+
+from scaling.newick import parse_newick  # noqa: E402
+from scaling.phylo import fit_phylo  # noqa: E402
+
+
+def random_tree_newick(n: int, rng) -> str:
+    """Random topology by joining random pairs; exponential branch lengths."""
+    items = [f"sp{i}:{rng.exponential():.6g}" for i in range(n)]
+    while len(items) > 1:
+        i, j = rng.choice(len(items), 2, replace=False)
+        a, b = items[i], items[j]
+        for k in sorted((i, j), reverse=True):
+            items[k] = items[-1]
+            items.pop()
+        items.append(f"({a},{b}):{rng.exponential():.6g}")
+    return items[0] + ";"
+
+
+def simulate(tree, lam: float, rng):
+    """Brownian X and Y (correlation 0.6, slope 0.75) under Pagel's lambda, one pass."""
+    from scaling.phylo import pagel_lambda
+    t = pagel_lambda(tree, lam)
+    n = t.n_nodes
+    sd = np.sqrt(t.length)
+    dx = rng.normal(size=n) * sd
+    de = rng.normal(size=n) * sd
+    gx, ge = dx.copy(), de.copy()
+    par = t.parent.tolist()
+    for i in range(1, n):               # pre-order: parents first
+        gx[i] += gx[par[i]]
+        ge[i] += ge[par[i]]
+    tips = t.tips
+    return 10 ** gx[tips], 10 ** (0.75 * gx[tips] + 0.5 * ge[tips]), [t.names[i] for i in tips]
+
+
+def timed(fn):
+    """Result, wall time, and the process's peak resident memory so far (bytes)."""
+    t0 = time.perf_counter()
+    out = fn()
+    dt = time.perf_counter() - t0
+    return out, dt, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000, 100000])
+    ap.add_argument("--dense-max", type=int, default=2000)
+    ap.add_argument("--readers", action="store_true", help="also time registry Newick readers")
+    args = ap.parse_args(argv)
+    rng = np.random.default_rng(2026)
+    rows = []
+    for n in args.sizes:
+        text = random_tree_newick(n, rng)
+        tree, t_parse, _ = timed(lambda: parse_newick(text))
+        x, y, sp = simulate(tree, 0.5, rng)
+        for method in ("ols", "sma"):
+            fit, t_fit, peak = timed(lambda: fit_phylo(x, y, text, sp, method=method))
+            line = (f"n={n:>7} {method:>3}: parse {t_parse:6.2f} s, whole fit (parse+match+lambda ML"
+                    f"+profile CI) {t_fit:6.2f} s, peak RSS {peak / 2**20:7.1f} MiB, "
+                    f"lambda={fit.lam:.3f} [{fit.lam_ci.low:.3f}, {fit.lam_ci.high:.3f}], "
+                    f"slope={fit.slope:.4f}")
+            if n <= args.dense_max:
+                ref, t_ref, peak_ref = timed(
+                    lambda: fit_phylo(x, y, text, sp, method=method, reference=True))
+                line += (f"\n             dense reference {t_ref:6.2f} s (x{t_ref / t_fit:.1f} slower),"
+                         f" peak RSS {peak_ref / 2**20:7.1f} MiB, |d lambda|={abs(ref.lam - fit.lam):.1e},"
+                         f" |d slope|={abs(ref.slope - fit.slope):.1e}")
+            print(line, flush=True)
+            rows.append((n, method, t_fit))
+    for method in ("ols", "sma"):
+        ts = [(n, t) for n, m, t in rows if m == method]
+        for (n0, t0), (n1, t1) in zip(ts, ts[1:]):
+            print(f"{method}: time ratio {n1}/{n0} tips = {t1 / t0:.1f} "
+                  f"(linear would be {n1 / n0:.0f})")
+    if args.readers:
+        big = max(args.sizes)
+        text = random_tree_newick(big, np.random.default_rng(1))
+        _, t_own, _ = timed(lambda: parse_newick(text))
+        print(f"readers on {big} tips: scaling.newick {t_own:.2f} s")
+        for name, load in (("treeswift", lambda: __import__("treeswift").read_tree_newick(text)),
+                           ("dendropy", lambda: __import__("dendropy").Tree.get(
+                               data=text, schema="newick")),
+                           ("newick", lambda: __import__("newick").loads(text))):
+            try:
+                _, t, _ = timed(load)
+            except ImportError:
+                print(f"  {name}: not installed")
+                continue
+            print(f"  {name}: {t:.2f} s (x{t / t_own:.1f}; object tree only, no arrays)")
+
+
+if __name__ == "__main__":
+    main()
