@@ -47,6 +47,7 @@ __all__ = [
     "read_moments",
     "fit_groups_from_moments",
     "fit_frame",
+    "pooled_view",
     "ENGINES",
     "READERS",
     "FIT_TABLE_COLUMNS",
@@ -472,11 +473,27 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
                                scheduler, sep, decimal)
     else:
         acc = _Accumulator()
-        for part in _chunks(path, kind, columns, chunk_size, reader, sep, decimal):
-            _feed(acc, part, x, y, group, base, decimal)
+        for file in _files(path, kind):
+            for part in _chunks(file, kind, columns, chunk_size, reader, sep, decimal):
+                _feed(acc, part, x, y, group, base, decimal)
         result = acc.result(base)
     _no_rows(str(path), result)
     return result
+
+
+def _files(path: Path, kind: str) -> list:
+    """The files behind a path: itself, the files of a folder, or a glob's matches."""
+    if any(ch in str(path) for ch in "*?["):
+        files = sorted(Path(path.anchor or ".").glob(str(path.relative_to(path.anchor)))
+                       if path.is_absolute() else Path(".").glob(str(path)))
+    elif path.is_dir():
+        suffix = ".parquet" if kind == "parquet" else ".csv"
+        files = sorted(p for p in path.iterdir() if p.suffix.lower() == suffix)
+    else:
+        return [path]
+    if not files:
+        raise DataError(f"{path}: no {kind} files found (data.file)")
+    return files
 
 
 def _chunks(path: Path, kind: str, columns: list, chunk_size: int, reader: str, sep: str,
@@ -636,9 +653,21 @@ def _check_exponents(exponents) -> dict:
     return out
 
 
+def pooled_view(gm: GroupedMoments) -> GroupedMoments:
+    """The pooled moments of ``gm`` as a one-group :class:`GroupedMoments` (label "")."""
+    with np.errstate(invalid="ignore"):
+        ranges = [np.atleast_1d(f(r)) if r.size else np.array([np.nan]) for f, r in
+                  ((np.nanmin, gm.x_min), (np.nanmax, gm.x_max),
+                   (np.nanmin, gm.y_min), (np.nanmax, gm.y_max))]
+    return GroupedMoments(labels=np.array([""]), moments=gm.pooled, pooled=gm.pooled,
+                          x_min=ranges[0], x_max=ranges[1], y_min=ranges[2],
+                          y_max=ranges[3], n_read=gm.n_read, dropped=dict(gm.dropped),
+                          n_dropped=gm.n_dropped, log_base=gm.log_base)
+
+
 def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
                             confidence: float = 0.95, exponents=None,
-                            scope: str = "group") -> GroupFits:
+                            scope: str = "group", pooled: bool = False) -> GroupFits:
     """Fit every method to every group at once; the ``fits`` and ``slope_tests`` tables.
 
     Parameters
@@ -650,8 +679,10 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
         Hypothesised exponents ``{name: value}`` (a sequence is named by its
         values); each is tested for every estimable fit.
     scope : str
-        Written in the ``scope`` column (``"group"``; ``"pooled"`` for
-        ``gm.pooled`` fits built by the caller).
+        Written in the ``scope`` column of the group rows.
+    pooled : bool
+        Also fit all rows together: rows with scope ``"pooled"`` and group
+        "" come first (as in a run).
 
     Returns
     -------
@@ -672,6 +703,14 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
     methods = _check_methods(methods)
     confidence = _check_confidence(confidence)
     exps = _check_exponents(exponents)
+    if pooled:
+        head = fit_groups_from_moments(pooled_view(gm), methods=methods,
+                                       confidence=confidence, exponents=exps, scope="pooled")
+        body = fit_groups_from_moments(gm, methods=methods, confidence=confidence,
+                                       exponents=exps, scope=scope)
+        return GroupFits(fits=pd.concat([head.fits, body.fits], ignore_index=True),
+                         slope_tests=pd.concat([head.slope_tests, body.slope_tests],
+                                               ignore_index=True), moments=gm)
     m = gm.moments
     g = m.n.size
     frames, tests = [], []
@@ -713,11 +752,11 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
 
 def fit_frame(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
               methods=("ols", "sma", "ma"), confidence: float = 0.95, exponents=None,
-              log_base=10, chunk_size: int | None = None) -> GroupFits:
+              log_base=10, chunk_size: int | None = None, pooled: bool = False) -> GroupFits:
     """:func:`frame_moments` then :func:`fit_groups_from_moments` (one call, any table size).
 
     The engine intended behind the public ``scaling.fit_groups``.
     """
     gm = frame_moments(df, x=x, y=y, group=group, log_base=log_base, chunk_size=chunk_size)
     return fit_groups_from_moments(gm, methods=methods, confidence=confidence,
-                                   exponents=exponents)
+                                   exponents=exponents, pooled=pooled)

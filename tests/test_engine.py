@@ -251,3 +251,37 @@ class TestFitGroupsFromMoments:
         gm = frame_moments(_table(n=50), x="mass", y="rate", group="clade")
         with pytest.raises(ConfigError, match="exponents.q must be a finite number"):
             fit_groups_from_moments(gm, exponents={"q": "3/4"})
+
+
+class TestFilesAndPooled:
+    def test_a_folder_of_parquet_files_equals_the_table(self, tmp_path):
+        df = _table(n=3000, groups=11)
+        folder = tmp_path / "parts"
+        folder.mkdir()
+        for i in range(3):
+            df.iloc[i * 1000:(i + 1) * 1000].to_parquet(folder / f"part{i}.parquet")
+        whole = frame_moments(df, x="mass", y="rate", group="clade")
+        kw = dict(x="mass", y="rate", group="clade")
+        _assert_same(read_moments(folder, chunk_size=400, **kw), whole)
+        _assert_same(read_moments(tmp_path / "parts" / "*.parquet", chunk_size=400, **kw),
+                     whole)
+        pytest.importorskip("dask.dataframe")
+        _assert_same(read_moments(folder, engine="dask", **kw), whole)
+
+    def test_empty_folder(self, tmp_path):
+        (tmp_path / "none.parquet").mkdir()
+        with pytest.raises(DataError, match="no parquet files found"):
+            read_moments(tmp_path / "none.parquet", x="a", y="b")
+
+    def test_pooled_rows_equal_fit_line_on_all_rows(self):
+        df = _table(n=500, groups=4)
+        res = fit_frame(df, x="mass", y="rate", group="clade", methods=["ma"], pooled=True,
+                        exponents={"q": 0.75})
+        row = res.fits.iloc[0]
+        assert row.scope == "pooled" and row.group == ""
+        fit = scaling.fit_line(df["mass"], df["rate"], method="ma")
+        # internal consistency: pooled from merged group moments vs all rows at once
+        assert_allclose([row.slope, row.intercept, row.x_min, row.y_max],
+                        [fit.slope, fit.intercept, df["mass"].min(), df["rate"].max()],
+                        rtol=1e-12)
+        assert res.slope_tests.iloc[0].scope == "pooled"
