@@ -183,88 +183,93 @@ _WORDS = {"missing": "is missing", "non-numeric": "is not a number",
           "zero": "is zero: no logarithm", "negative": "is negative: no logarithm"}
 
 
-def _clean_chunk(frame: pd.DataFrame, x: str, y: str, group: str | None, base,
-                 decimal: str):
-    """(log_x, log_y, (codes, labels), drop counts, n_dropped) of one chunk.
-
-    ``codes`` index ``labels`` (both None without a group column).
-    """
-    counts: dict[str, int] = {}
-    bad = np.zeros(len(frame), dtype=bool)
-    logs = []
-    for role, name in (("x", x), ("y", y)):
-        v, problem = _numbers(frame[name], decimal)
-        if problem is not None:
-            hit = problem != ""
-            bad |= hit
-            kinds, n = np.unique(problem[hit], return_counts=True)
-            for kind, k in zip(kinds, n):
-                reason = f"{role} ({name}) {_WORDS[kind]}"
-                counts[reason] = counts.get(reason, 0) + int(k)
-        logs.append(v)
-    codes, labels = None, None
-    if group is not None:
-        # Factorize first and clean the (few) distinct names, not every row.
-        codes, uniques = pd.factorize(frame[group], sort=False)
-        labels = _labels_of(uniques)
-        labels = pd.Index(labels.astype(str).str.strip(), dtype=object)
-        if labels.has_duplicates:      # e.g. "a" and " a", or 3 and "3"
-            codes, labels = _dedupe(codes, labels)
-        empty = np.asarray(labels == "", dtype=bool)
-        missing = codes < 0
-        if empty.any():
-            missing |= empty[codes]
-        if missing.any():
-            counts[f"group ({group}) is missing"] = int(missing.sum())
-            bad |= missing
-    n_dropped = int(bad.sum())
-    lx, ly = logs
-    if n_dropped:
-        keep = ~bad
-        lx, ly = lx[keep], ly[keep]
-        if codes is not None:
-            codes = codes[keep]
-    with np.errstate(divide="ignore"):
-        if base is not None:
-            scale = 1.0 / math.log(base)
-            lx = np.log(lx) * scale if base != math.e else np.log(lx)
-            ly = np.log(ly) * scale if base != math.e else np.log(ly)
-    return lx, ly, (codes, labels), counts, n_dropped
-
-
 def _labels_of(uniques) -> pd.Index:
     """Group names as text (as :mod:`scaling.data` writes them)."""
     idx = pd.Index(uniques)
-    if idx.dtype == object or pd.api.types.is_string_dtype(idx.dtype):
-        return idx.astype(str)
     if pd.api.types.is_float_dtype(idx.dtype):
         # 3.0 -> "3", as a csv read as text would show it when written as "3"
         return pd.Index([f"{v:g}" for v in idx.to_numpy()], dtype=object)
     return idx.astype(str)
 
 
-def _chunk_summary(lx, ly, grouping):
-    """Per-group moments and log ranges of one cleaned chunk, as (labels, moments, ranges).
+def _group_codes(col: pd.Series):
+    """Codes, cleaned names and the missing mask of a group column (names cleaned once)."""
+    codes, uniques = pd.factorize(col, sort=False)
+    labels = pd.Index(_labels_of(uniques).astype(str).str.strip(), dtype=object)
+    if labels.has_duplicates:      # e.g. "a" and " a", or 3 and "3"
+        codes, labels = _dedupe(codes, labels)
+    missing = codes < 0
+    empty = np.asarray(labels == "", dtype=bool)
+    if empty.any():
+        missing |= empty[codes]
+    return codes, labels, missing
 
-    Only groups with rows in this chunk are returned.
+
+#: Rows per slice of the numeric work: temporaries stay in cache.
+_SLICE = 1 << 16
+
+
+def _to_log(v: np.ndarray, base) -> np.ndarray:
+    # the formula of scaling.lines.to_log, so that results match a run bit for bit
+    return v if base is None else np.log(v) / math.log(base)
+
+
+def _summarise(part: pd.DataFrame, x: str, y: str, group: str | None, base, decimal: str):
+    """Clean one chunk and reduce it to per-group moments.
+
+    Returns ``(labels, moments, ranges, counts, n_rows, n_dropped)`` for the
+    groups with rows in the chunk; ``ranges`` are the log minima and maxima
+    of x and y.  The numeric work runs over slices of :data:`_SLICE` rows
+    merged exactly, so temporaries are small whatever the chunk size.
     """
-    codes, labels = grouping
-    if codes is None:
-        codes = np.zeros(lx.size, dtype=np.intp)
-        labels = pd.Index([""], dtype=object)
+    n = len(part)
+    counts: dict[str, int] = {}
+    bad = None
+    values = []
+    for role, name in (("x", x), ("y", y)):
+        v, problem = _numbers(part[name], decimal)
+        if problem is not None:
+            hit = problem != ""
+            bad = hit if bad is None else (bad | hit)
+            kinds, k = np.unique(problem[hit], return_counts=True)
+            for kind, c in zip(kinds, k):
+                reason = f"{role} ({name}) {_WORDS[kind]}"
+                counts[reason] = counts.get(reason, 0) + int(c)
+        values.append(v)
+    if group is not None:
+        codes, labels, missing = _group_codes(part[group])
+        if missing.any():
+            counts[f"group ({group}) is missing"] = int(missing.sum())
+            bad = missing if bad is None else (bad | missing)
+    else:
+        codes, labels = None, pd.Index([""], dtype=object)
+    n_dropped = 0 if bad is None else int(bad.sum())
     g = len(labels)
-    m = group_moments(lx, ly, codes, n_groups=g)
-    ranges = []
-    for v in (lx, ly):
-        lo = np.full(g, np.inf)
-        hi = np.full(g, -np.inf)
-        np.minimum.at(lo, codes, v)
-        np.maximum.at(hi, codes, v)
-        ranges += [lo, hi]
-    used = m.n > 0
+    total = Moments(n=np.zeros(g), mean_x=np.full(g, np.nan), mean_y=np.full(g, np.nan),
+                    sxx=np.zeros(g), syy=np.zeros(g), sxy=np.zeros(g))
+    ranges = [np.full(g, np.inf), np.full(g, -np.inf), np.full(g, np.inf),
+              np.full(g, -np.inf)]
+    step = max(_SLICE, 8 * g)      # keeps the O(G) merges small against the rows
+    vx, vy = values
+    for start in range(0, n, step):
+        sl = slice(start, start + step)
+        lx, ly = vx[sl], vy[sl]
+        c = codes[sl] if codes is not None else np.zeros(lx.size, dtype=np.intp)
+        if bad is not None:
+            keep = ~bad[sl]
+            lx, ly, c = lx[keep], ly[keep], c[keep]
+        if not lx.size:
+            continue
+        lx, ly = _to_log(lx, base), _to_log(ly, base)
+        total = merge_moments(total, group_moments(lx, ly, c, n_groups=g))
+        np.minimum.at(ranges[0], c, lx)
+        np.maximum.at(ranges[1], c, lx)
+        np.minimum.at(ranges[2], c, ly)
+        np.maximum.at(ranges[3], c, ly)
+    used = total.n > 0
     if not used.all():
-        labels, m, ranges = labels[used], m[used], [r[used] for r in ranges]
-    return labels, m, ranges
+        labels, total, ranges = labels[used], total[used], [r[used] for r in ranges]
+    return labels, total, ranges, counts, n, n_dropped
 
 
 def _dedupe(codes, labels: pd.Index):
@@ -398,10 +403,10 @@ def frame_moments(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
 
 
 def _feed(acc: _Accumulator, part: pd.DataFrame, x, y, group, base, decimal) -> None:
-    lx, ly, grouping, counts, n_dropped = _clean_chunk(part, x, y, group, base, decimal)
-    acc.add_counts(counts, len(part), n_dropped)
-    if lx.size:
-        labels, m, ranges = _chunk_summary(lx, ly, grouping)
+    labels, m, ranges, counts, n_rows, n_dropped = _summarise(part, x, y, group, base,
+                                                              decimal)
+    acc.add_counts(counts, n_rows, n_dropped)
+    if len(labels):
         acc.add(labels, m, ranges)
 
 
@@ -548,9 +553,9 @@ def _chunks(path: Path, kind: str, columns: list, chunk_size: int, reader: str, 
 def _partition_summary(pdf: pd.DataFrame, x, y, group, base, decimal):
     """Per-group moments of one partition (a small frame) and its drop counts."""
     pdf.columns = [str(c).strip() for c in pdf.columns]
-    lx, ly, grouping, counts, n_dropped = _clean_chunk(pdf, x, y, group, base, decimal)
-    if lx.size:
-        labels, m, ranges = _chunk_summary(lx, ly, grouping)
+    labels, m, ranges, counts, n_rows, n_dropped = _summarise(pdf, x, y, group, base,
+                                                              decimal)
+    if len(labels):
         frame = pd.DataFrame({"label": np.asarray(labels, dtype=object),
                               **{k: getattr(m, k) for k in _MOMENT_KEYS},
                               "lx_min": ranges[0], "lx_max": ranges[1],
