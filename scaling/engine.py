@@ -510,10 +510,12 @@ def _chunks(path: Path, kind: str, columns: list, chunk_size: int, reader: str, 
         except ImportError:
             raise DataError(f"{path}: reading Parquet files needs the 'parquet' extra: "
                             "pip install 'scaling[parquet]'") from None
-        pf = pq.ParquetFile(path)
-        names = pf.schema_arrow.names
+        names = pq.ParquetFile(path).schema_arrow.names
         for c in columns:
             _check_column(names, c, keys[c], str(path))
+        # the group column as a dictionary (categorical): names are factorized once per
+        # batch from the dictionary, not row by row
+        pf = pq.ParquetFile(path, read_dictionary=columns[2:])
         for batch in pf.iter_batches(batch_size=chunk_size, columns=columns):
             yield batch.to_pandas()
         return
