@@ -513,9 +513,11 @@ def _chunks(path: Path, kind: str, columns: list, chunk_size: int, reader: str, 
         names = pq.ParquetFile(path).schema_arrow.names
         for c in columns:
             _check_column(names, c, keys[c], str(path))
-        # the group column as a dictionary (categorical): names are factorized once per
-        # batch from the dictionary, not row by row
-        pf = pq.ParquetFile(path, read_dictionary=columns[2:])
+        # The group column as a dictionary (categorical): names are factorized once per
+        # batch from the dictionary, not row by row.  pre_buffer=False and a read buffer:
+        # pyarrow's default pre-buffering holds the whole file's column chunks in memory.
+        pf = pq.ParquetFile(path, read_dictionary=columns[2:], pre_buffer=False,
+                            buffer_size=1 << 20)
         for batch in pf.iter_batches(batch_size=chunk_size, columns=columns):
             yield batch.to_pandas()
         return
