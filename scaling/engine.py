@@ -579,7 +579,10 @@ def _dask_moments(path, kind, columns, x, y, group, base, chunk_size, scheduler,
                           "pip install 'scaling[dask]'") from None
     keys = dict(zip(columns, ("data.x", "data.y", "data.group")))
     if kind == "parquet":
-        ddf = dd.read_parquet(str(path))
+        names = [str(c).strip() for c in dd.read_parquet(str(path)).columns]
+        for c in columns:
+            _check_column(names, c, keys[c], str(path))
+        ddf = dd.read_parquet(str(path), columns=columns)     # reads only these columns
     else:
         ddf = dd.read_csv(str(path), sep=sep, decimal=decimal, skipinitialspace=True,
                           blocksize=max(1 << 16, chunk_size * 24), dtype="object")
