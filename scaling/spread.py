@@ -47,7 +47,8 @@ from scipy import stats
 from .errors import ConfigError, DataError
 from .lines import ConfidenceInterval, format_p
 
-__all__ = ["ExponentSpread", "exponent_spread", "spread_from_fits", "TAU2_METHODS",
+__all__ = ["ExponentSpread", "exponent_spread", "spread_from_fits", "tau2_dl", "tau2_reml",
+           "tau2_q_profile", "TAU2_METHODS",
            "MEAN_INTERVALS", "SPREAD_COLUMNS", "SPREAD_TEST_COLUMNS"]
 
 TAU2_METHODS = ("reml", "dl")
