@@ -1,0 +1,211 @@
+"""Benchmark: one line per group for many groups and many rows.
+
+In one run, on the same synthetic table (rows in natural units, a string
+group column, groups of equal size, rows in random order), it measures
+
+(a) floor  -- one pandas ``groupby(group).sum()`` of the five moment columns
+              X, Y, X^2, Y^2, XY (precomputed outside the timing);
+(b) ours   -- ``scaling.engine.fit_frame``: cleaning, logs, per-group
+              moments, OLS, SMA and MA with slope and intercept intervals,
+              and the tests of every fit against two exponents;
+(c) loop   -- a straightforward per-group loop: statsmodels OLS (estimate and
+              interval) and scipy.odr (orthogonal regression, the MA line)
+              for each group, timed on a subset of groups and scaled to all;
+(d) chunked -- ``scaling.engine.read_moments`` on a parquet file of the same
+              table (chunks of ``--chunk`` rows), in a child process whose
+              peak resident memory is reported against a child that only
+              imports the same modules.
+
+Ratios printed: (b)/(a), (c)/(b); peak memory of (b) under tracemalloc
+(numpy reports its allocations) against the in-memory size of the three
+input columns (``memory_usage(deep=True)``); rows per second.  (a) and (b)
+take turns ``--repeats`` times and the best time counts.
+
+Targets (issue 13): (b) within 2.5x of (a); (c)/(b) >= 10 at 1e4 groups of
+1e3 rows; peak memory of (b) < 3x the three input columns.
+
+Run:   python benchmarks/bench_scale.py                      # 1e6 rows, 1e3 groups
+       python benchmarks/bench_scale.py --rows 1e7 --groups 1e4
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import statsmodels.api as sm
+from scipy import odr, stats
+
+from scaling.engine import fit_frame
+
+SEED = 20261202
+EXPONENTS = {"three_quarters": 0.75, "two_thirds": 2 / 3}
+
+
+def make_table(rows: int, groups: int) -> pd.DataFrame:
+    """Synthetic data with a known truth: slopes around 0.75 (SD 0.05) per group."""
+    rng = np.random.default_rng(SEED)
+    g = rng.integers(0, groups, rows)
+    slope = 0.75 + rng.normal(0, 0.05, groups)
+    lx = rng.normal(1.5, 0.6, rows)
+    ly = 0.3 + slope[g] * lx + rng.normal(0, 0.1, rows)
+    names = np.array([f"sp{i:05d}" for i in range(groups)], dtype=object)
+    return pd.DataFrame({"mass": 10 ** lx, "rate": 10 ** ly, "species": names[g]})
+
+
+def floor_frame(df: pd.DataFrame) -> pd.DataFrame:
+    lx = np.log10(df["mass"].to_numpy())
+    ly = np.log10(df["rate"].to_numpy())
+    return pd.DataFrame({"species": df["species"], "X": lx, "Y": ly, "XX": lx * lx,
+                         "YY": ly * ly, "XY": lx * ly})
+
+
+def run_floor(ff: pd.DataFrame):
+    return ff.groupby("species", sort=False).sum()
+
+
+def run_ours(df: pd.DataFrame):
+    return fit_frame(df, x="mass", y="rate", group="species", methods=("ols", "sma", "ma"),
+                     exponents=EXPONENTS)
+
+
+def group_index(df: pd.DataFrame) -> dict:
+    """Row positions of every group (one groupby; the loop's set-up, timed apart)."""
+    return df.groupby("species", sort=False).indices
+
+
+def run_loop(df: pd.DataFrame, index: dict, names) -> None:
+    mass, rate = df["mass"].to_numpy(), df["rate"].to_numpy()
+    for name in names:
+        rows = index[name]
+        X = np.log10(mass[rows])
+        Y = np.log10(rate[rows])
+        fit = sm.OLS(Y, sm.add_constant(X)).fit()
+        fit.conf_int()
+        for b0 in EXPONENTS.values():           # t test of the slope against b0
+            t = (fit.params[1] - b0) / fit.bse[1]
+            2 * stats.t.sf(abs(t), fit.df_resid)
+        out = odr.ODR(odr.RealData(X, Y), odr.unilinear, beta0=fit.params[::-1]).run()
+        out.sd_beta
+
+
+def best_of(fns: dict, repeats: int) -> dict:
+    best = {k: np.inf for k in fns}
+    for _ in range(repeats):
+        for k, fn in fns.items():          # round-robin
+            t = time.perf_counter()
+            fn()
+            best[k] = min(best[k], time.perf_counter() - t)
+    return best
+
+
+def peak_of(fn) -> int:
+    tracemalloc.start()
+    tracemalloc.reset_peak()
+    fn()
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    return peak
+
+
+_CHILD = """
+import sys, time
+from scaling.engine import read_moments
+import pyarrow.parquet
+if sys.argv[1] == "read":
+    t = time.perf_counter()
+    gm = read_moments(sys.argv[2], x="mass", y="rate", group="species",
+                      chunk_size=int(sys.argv[3]))
+    print(time.perf_counter() - t, gm.n_groups, int(gm.pooled.n[0]))
+else:
+    print(0, 0, 0)
+# VmHWM: this process's peak resident memory (ru_maxrss would carry the parent's
+# peak across fork/exec)
+print([l.split()[1] for l in open("/proc/self/status") if l.startswith("VmHWM")][0])
+"""
+
+
+def child(*args) -> tuple:
+    out = subprocess.run([sys.executable, "-c", _CHILD, *map(str, args)], check=True,
+                         capture_output=True, text=True).stdout.split()
+    return float(out[0]), int(out[1]), int(out[2]), int(out[3]) * 1024   # ru_maxrss: kB
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rows", type=float, default=1e6)
+    ap.add_argument("--groups", type=float, default=1e3)
+    ap.add_argument("--loop-groups", type=int, default=40,
+                    help="groups timed in the per-group loop (scaled to all)")
+    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--chunk", type=float, default=1e6, help="rows per chunk for (d)")
+    ap.add_argument("--no-parquet", action="store_true")
+    a = ap.parse_args(argv)
+    rows, groups = int(a.rows), int(a.groups)
+
+    print(f"{rows:,} rows in {groups:,} groups ({rows // groups:,} rows each); "
+          f"{os.cpu_count()} CPUs; numpy {np.__version__}, pandas {pd.__version__}")
+    df = make_table(rows, groups)
+    ff = floor_frame(df)
+    input_bytes = int(df.memory_usage(deep=True, index=False).sum())
+
+    res = run_ours(df)
+    # sanity: the fitted exponents centre on the truth (mean slope about 0.75)
+    ols = res.fits[res.fits["method"] == "ols"]
+    print(f"check: {len(res.fits):,} fit rows, {len(res.slope_tests):,} test rows; "
+          f"mean OLS exponent {ols['slope'].mean():.4f} (truth about 0.75)")
+
+    t = best_of({"floor": lambda: run_floor(ff), "ours": lambda: run_ours(df)}, a.repeats)
+    names = df["species"].drop_duplicates().to_numpy()[:a.loop_groups]
+    run_loop(df, group_index(df), names[:2])     # warm-up (first-call overheads)
+    t0 = time.perf_counter()
+    index = group_index(df)
+    t_setup = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    run_loop(df, index, names)
+    t_loop_sub = time.perf_counter() - t0
+    # per-group work scaled to all groups, plus the one-off grouping
+    t_loop = t_loop_sub / len(names) * groups + t_setup
+    peak = peak_of(lambda: run_ours(df))
+
+    print(f"(a) floor, groupby-sum of 5 columns : {t['floor']:8.3f} s  "
+          f"({rows / t['floor'] / 1e6:6.1f} M rows/s)")
+    print(f"(b) ours, OLS+SMA+MA, CIs, tests    : {t['ours']:8.3f} s  "
+          f"({rows / t['ours'] / 1e6:6.1f} M rows/s)")
+    print(f"(c) loop statsmodels OLS + scipy.odr: {t_loop:8.3f} s  "
+          f"(measured {t_loop_sub:.2f} s on {len(names)} groups, scaled to "
+          f"{groups}, + {t_setup:.2f} s grouping)")
+    r_ba = t["ours"] / t["floor"]
+    r_cb = t_loop / t["ours"]
+    print(f"ratio (b)/(a) = {r_ba:6.2f}   target <= 2.5 : {'met' if r_ba <= 2.5 else 'NOT met'}")
+    tgt = "met" if r_cb >= 10 else "NOT met"
+    print(f"ratio (c)/(b) = {r_cb:6.1f}   target >= 10 (at 1e4 groups of 1e3 rows): {tgt}")
+    print(f"peak memory of (b): {peak / 1e6:.0f} MB = {peak / input_bytes:.2f}x the three "
+          f"input columns ({input_bytes / 1e6:.0f} MB)   target < 3x : "
+          f"{'met' if peak < 3 * input_bytes else 'NOT met'}")
+
+    if not a.no_parquet:
+        with tempfile.TemporaryDirectory() as tmp:
+            path = Path(tmp) / "table.parquet"
+            df.to_parquet(path, row_group_size=min(rows, 1_000_000))
+            size = path.stat().st_size
+            del ff
+            _, _, _, base_rss = child("baseline")
+            secs, g, n, rss = child("read", path, int(a.chunk))
+        print(f"(d) chunked parquet read ({size / 1e6:.0f} MB file, chunks of "
+              f"{int(a.chunk):,} rows): {secs:.2f} s ({n / secs / 1e6:.1f} M rows/s), "
+              f"{g:,} groups; peak RSS {rss / 1e6:.0f} MB, {(rss - base_rss) / 1e6:.0f} MB "
+              f"above a process that only imports ({base_rss / 1e6:.0f} MB)")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
