@@ -13,8 +13,10 @@ species.  The analysis averages individuals within species first.
 The truth behind the numbers (log10 scale, mass in g, rate in mW):
 
 * Every clade shares the exponent **b = 0.75**; clade elevations (log10 mW at
-  1 g): Saltatores 0.65, Fossores 0.55, Arborei 0.70, Cursores 0.65.  So
-  b = 2/3 is false and b = 3/4 is true.
+  1 g): Saltatores 0.65, Fossores 0.65, Arborei 0.55, Cursores 0.65 -- the
+  Arborei run about 20% lower at a given mass; the low clade sits in the middle
+  of the mass range, so the pooled line is not tilted by it.  So b = 2/3 is
+  false and b = 3/4 is true.
 * Species mean log10 mass: clade mean (Saltatores 1.6, Fossores 2.0,
   Arborei 2.4, Cursores 3.6) plus Brownian motion on the tree (centred within
   each clade, so the clade mean stays as stated) with variance
@@ -45,8 +47,8 @@ ROOT_AGE = 80.0
 CLADES = {
     # name: (elevation, mean log10 mass)
     "Saltatores": (0.65, 1.6),
-    "Fossores": (0.55, 2.0),
-    "Arborei": (0.70, 2.4),
+    "Fossores": (0.65, 2.0),
+    "Arborei": (0.55, 2.4),
     "Cursores": (0.65, 3.6),
 }
 SPECIES_PER_CLADE = 12
