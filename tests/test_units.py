@@ -72,6 +72,10 @@ class TestConversionFactor:
     def test_offset_units_raise(self):
         with pytest.raises(ConfigError, match="has an offset"):
             conversion_factor("degC", "K")
+        # same dimension (temperature) but pint refuses a difference-to-absolute conversion
+        with pytest.raises(ConfigError, match=r"cannot convert 'delta_degC' to 'degC' "
+                                              r"\(DimensionalityError\)"):
+            conversion_factor("delta_degC", "degC")
 
 
 class TestConvertIntercept:
