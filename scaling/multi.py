@@ -881,6 +881,15 @@ class MultiFit:
         resid_sd, log_base, confidence, x_min, x_max, note``.  ``r`` is blank
         (a partial exponent has no single correlation); the intercept columns
         repeat on every row (one intercept per model).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> d = np.array([10., 20, 30, 40, 50, 15, 25, 35])
+        >>> h = np.array([8., 15, 12, 20, 18, 9, 22, 14])
+        >>> frame = fit_multi({"d": d, "h": h}, 0.05 * d**2 * h).to_frame()
+        >>> frame[["term", "slope", "x_min", "x_max"]].round(6).values.tolist()
+        [['d', 2.0, 10.0, 50.0], ['h', 1.0, 8.0, 22.0]]
         """
         import pandas as pd
         rows = []
