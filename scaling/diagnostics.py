@@ -52,7 +52,8 @@ import numpy as np
 from scipy import optimize, stats
 
 from .errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import LineFit, p_text
+from .lines import EXACT_NOTE, LineFit, exact_fit, p_text
+from .moments import moments
 
 __all__ = [
     "Check",
@@ -343,6 +344,9 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     if np.ptp(X) == 0:
         raise DataError("log_x does not vary: nothing to diagnose")
 
+    if bool(exact_fit(moments(X, Y))):
+        return _exact_diagnostics(fit, X, Y, rows, alpha)
+
     from statsmodels.regression.linear_model import OLS
     from statsmodels.stats.diagnostic import het_breuschpagan
     from statsmodels.stats.outliers_influence import OLSInfluence
@@ -438,6 +442,32 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
                        curvature=curv, residuals=resid, cooks_distance=cooks,
                        influence_threshold=threshold, influential_rows=influential,
                        rows=rows)
+
+
+def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
+    """Diagnostics of points on an exact power law: no check applies.
+
+    With no residual scatter (r = +-1 up to rounding) the residuals are
+    rounding noise, so normality, constant-variance, curvature and influence
+    statistics would read noise as signal (a curvature t of 1e3 is common).
+    Every check is reported unflagged with NaN statistics and says why.
+    """
+    n = X.size
+    why = f"{EXACT_NOTE}; residual checks do not apply"
+    checks = tuple(
+        Check(check=name, test=test, statistic=math.nan, df=math.nan, p_value=math.nan,
+              estimate=math.nan, flagged=False, verdict=why)
+        for name, test in (("normality", "Shapiro-Wilk"),
+                           ("constant_variance", "Breusch-Pagan"),
+                           ("curvature", "quadratic term t"),
+                           ("influence", "Cook's distance")))
+    curv = Curvature(intercept=fit.intercept, linear=fit.slope, quadratic=0.0,
+                     quadratic_se=math.nan, statistic=math.nan, df=float(n - 3),
+                     p_value=math.nan, log_base=fit.log_base, crossings=())
+    return Diagnostics(method=fit.method, n=n, alpha=alpha, checks=checks, curvature=curv,
+                       residuals=Y - fit.intercept - fit.slope * X,
+                       cooks_distance=np.zeros(n), influence_threshold=4.0 / n,
+                       influential_rows=(), rows=rows)
 
 
 # --------------------------------------------------------------------------

@@ -269,3 +269,30 @@ class TestCompareErrorStructure:
             compare_error_structure([2.0] * 6, [1.0, 2, 3, 4, 5, 6])
         with pytest.raises(DataError, match="lie exactly on a power law"):
             compare_error_structure([1.0, 2, 3, 4, 5], [2.0, 4, 6, 8, 10])
+
+
+class TestDiagnoseExactPowerLaw:
+    """Points on an exact power law have no residual scatter to diagnose."""
+
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    def test_no_check_flags_rounding_noise(self, method):
+        # Exact law: y = 3 x^0.75 has no scatter, so no check may fire; before
+        # this rule the curvature t of the rounding noise was huge ("NOT straight").
+        x = np.geomspace(1.0, 1e4, 30)
+        y = 3.0 * x ** 0.75
+        with pytest.warns(Warning):
+            fit = fit_line(x, y, method=method)
+        d = diagnose(fit, np.log10(x), np.log10(y), exponent_targets=(0.75,))
+        assert not any(c.flagged for c in d.checks)
+        assert all(math.isnan(c.p_value) for c in d.checks)
+        assert all("exact power law" in c.verdict for c in d.checks)
+        assert d.influential_rows == ()
+
+    def test_scattered_data_still_diagnosed(self):
+        # Counter-check on simulated data with scatter (seeded): statistics are finite.
+        rng = np.random.default_rng(3)
+        x = np.geomspace(1.0, 1e4, 30)
+        y = 3.0 * x ** 0.75 * 10 ** rng.normal(0, 0.05, 30)
+        fit = fit_line(x, y, method="ols")
+        d = diagnose(fit, np.log10(x), np.log10(y))
+        assert np.isfinite(d.check("curvature").p_value)
