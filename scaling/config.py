@@ -10,12 +10,14 @@ from __future__ import annotations
 
 import difflib
 import math
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
 import yaml
 
+from .schema import (BOOT_INTERVALS, CORRECTIONS, FIGURE_FORMATS, FIGURE_KINDS,
+                     FIGURE_SIZES, INTERVALS, LOG_BASES, METHOD_NAMES, MOMENT_METHODS)
 from .errors import ConfigError
 
 __all__ = [
@@ -25,20 +27,9 @@ __all__ = [
     "METHOD_NAMES", "CORRECTIONS", "FIGURE_KINDS",
 ]
 
-# Methods a config may name.  Kept here (not imported from lines) so that the
-# config layer can be validated without the numeric core; a test checks that
-# they are exactly the moment methods of lines.METHODS, the Deming line and
-# the row-based methods of robust.ROW_METHODS.
-METHOD_NAMES = ("ols", "sma", "ma", "deming", "theil_sen", "siegel", "sma_robust", "ma_robust")
-# Lines computed from moments alone (bootstrapped by resample.bootstrap_lines).
-MOMENT_METHOD_NAMES = ("ols", "sma", "ma", "deming")
-BOOT_INTERVALS = ("percentile", "bca")
-CORRECTIONS = ("smearing", "parametric", "ratio", "none")
-INTERVALS = ("prediction", "confidence")
-FIGURE_KINDS = ("scaling", "natural", "exponents", "residuals")
-FIGURE_FORMATS = ("png", "pdf", "svg")
-FIGURE_SIZES = ("single", "double")
-LOG_BASES = ("10", "e", "2")
+# The allowed values of every enumerated key come from scaling.schema (the one
+# home of the vocabulary; it imports nothing of the numeric core).
+MOMENT_METHOD_NAMES = MOMENT_METHODS
 
 _REQUIRED = object()
 
@@ -131,9 +122,6 @@ class Config:
     resampling: ResamplingConfig = field(default_factory=ResamplingConfig)
     source: Path | None = None     # the config file, if read from one
     raw: dict = field(default_factory=dict)   # the mapping as read, for the manifest
-
-    def with_output_dir(self, path: Path) -> "Config":
-        return replace(self, output=OutputConfig(dir=Path(path)))
 
 
 # --------------------------------------------------------------------------

@@ -179,6 +179,10 @@ def _parse_numbers(series: pd.Series, decimal: str):
     return values, problem, raw.to_numpy()
 
 
+#: Public name: the engine parses chunks with the same text rules.
+parse_numbers = _parse_numbers
+
+
 def _reason(role: str, column: str, problem: str, raw: str, decimal: str = ".") -> str:
     what = f"{role} ({column})"
     if problem == "missing":

@@ -35,10 +35,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .data import parse_numbers
 from .errors import ConfigError, DataError
 from .lines import (METHODS, _check_confidence, _get_method, base_label, fit_moments,
                     parse_log_base, slope_test_statistic)
 from .moments import Moments, combine_moments, group_moments, merge_moments
+from .schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS
 
 __all__ = [
     "GroupedMoments",
@@ -57,14 +59,9 @@ __all__ = [
 ENGINES = ("pandas", "dask")
 READERS = ("pandas", "pyarrow")
 
-#: Columns of the fits table (the same as ``pipeline.FIT_COLUMNS``; a test checks).
-FIT_TABLE_COLUMNS = ["scope", "group", "method", "n", "slope", "slope_low", "slope_high",
-                     "intercept", "intercept_low", "intercept_high", "r", "r2", "log_base",
-                     "confidence", "note", "slope_se", "intercept_se", "resid_sd",
-                     "x_min", "x_max", "y_min", "y_max", "interval_method", "deming_lambda"]
-#: Columns of the slope-test table (the same as ``pipeline.SLOPE_TEST_COLUMNS``).
-SLOPE_TEST_TABLE_COLUMNS = ["scope", "group", "method", "hypothesis", "exponent", "estimate",
-                            "statistic", "statistic_type", "df", "p_value"]
+#: Columns of the fits table and of the slope-test table (from scaling.schema).
+FIT_TABLE_COLUMNS = FIT_COLUMNS
+SLOPE_TEST_TABLE_COLUMNS = SLOPE_TEST_COLUMNS
 
 _SUMMARY_COLUMNS = ["label", "n", "mean_x", "mean_y", "sxx", "syy", "sxy",
                     "lx_min", "lx_max", "ly_min", "ly_max"]
@@ -173,8 +170,8 @@ def _numbers(col: pd.Series, decimal: str):
         problem[v == 0] = "zero"
         problem[v < 0] = "negative"
         return v, problem
-    from .data import _parse_numbers  # the text rules of data.py, unchanged
-    v, problem, _ = _parse_numbers(col.reset_index(drop=True), decimal)
+    v, problem, _ = parse_numbers(   # the text rules of data.py, unchanged
+        col.reset_index(drop=True), decimal)
     return v, (problem if (problem != "").any() else None)
 
 

@@ -21,8 +21,10 @@ SVG text left as ``<text>``).
 from __future__ import annotations
 
 import functools
+import io
 import math
 import textwrap
+import warnings
 from fractions import Fraction
 from pathlib import Path
 
@@ -33,7 +35,10 @@ from matplotlib.lines import Line2D
 from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter,
                                FuncFormatter)
 from scipy import stats
-from .lines import method_label
+from .errors import ConfigError, FigureWarning
+from .lines import base_label, parse_log_base, to_log
+from .predict import log_interval, predict, saved_factor
+from .schema import CATALOGUE, FIGURE_KINDS, method_label
 
 __all__ = ["plot_scaling", "plot_natural", "plot_exponents", "plot_residuals",
            "make_scaling", "make_natural", "make_exponents", "make_residuals",
@@ -46,15 +51,9 @@ PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
            "#000000", "#F0E442"]
 MARKERS = ["o", "s", "^", "D", "v", "P", "X", "h"]
 # Methods are told apart by dash pattern (lines) and by a neutral shade.
-METHOD_DASHES = {"ols": "-", "sma": (0, (5, 2)), "ma": (0, (1.2, 1.6)),
-                 "deming": (0, (6, 1.5, 1.2, 1.5)), "theil_sen": (0, (3, 1.2)),
-                 "siegel": (0, (3, 1.2, 1, 1.2, 1, 1.2)), "sma_robust": (0, (8, 2.5)),
-                 "ma_robust": (0, (2, 2.5))}
-METHOD_SHADES = {"ols": "#1a1a1a", "sma": "#4d4d4d", "ma": "#7a7a7a", "deming": "#333333",
-                 "theil_sen": "#5e5e5e", "siegel": "#6b6b6b", "sma_robust": "#404040",
-                 "ma_robust": "#8a8a8a"}
-METHOD_MARKERS = {"ols": "o", "sma": "s", "ma": "D", "deming": "^", "theil_sen": "v",
-                  "siegel": "<", "sma_robust": "P", "ma_robust": "X"}
+METHOD_DASHES = {name: m.dash for name, m in CATALOGUE.items()}
+METHOD_SHADES = {name: m.shade for name, m in CATALOGUE.items()}
+METHOD_MARKERS = {name: m.marker for name, m in CATALOGUE.items()}
 # At most this many fitted equations are written on the scaling plot; the
 # legend names every line (more would crowd the data off the axes).
 MAX_EQUATIONS = 3
@@ -63,7 +62,7 @@ MAX_EQUATIONS = 3
 LEGEND_MAX_GROUPS = 12
 MM = 1 / 25.4
 SIZES = {"single": 85 * MM, "double": 180 * MM}
-KINDS = ("scaling", "natural", "exponents", "residuals")
+KINDS = FIGURE_KINDS
 THIN = "\u2009"   # thin space between digit groups: 1 000, 10 000
 
 STYLE = {
@@ -241,7 +240,6 @@ def _base(result) -> float:
     for fit in result.line_fits.values():
         if fit.log_base is not None:
             return float(fit.log_base)
-    from .lines import parse_log_base
     return parse_log_base(result.config.model.log_base) or 10.0
 
 
@@ -361,8 +359,6 @@ def _fit_band(fit, xs: np.ndarray, *, interval: str = "confidence"):
     bounds at the t quantile on ``fit.df``; see :func:`scaling.predict.log_interval`
     (exact for OLS; Warton et al. 2006, Biol. Rev. 81:259 for SMA/MA).
     """
-    from .lines import to_log
-    from .predict import log_interval
     X0 = to_log(xs, fit.log_base)
     fitted, _se, lo, hi = log_interval(
         X0, intercept=fit.intercept, slope=fit.slope, slope_se=fit.slope_se,
@@ -389,6 +385,10 @@ def _exponent_label(value: float) -> str:
     if frac.denominator > 1 and abs(float(frac) - value) < 5e-4:
         return f"{frac.numerator}/{frac.denominator}"
     return f"{value:g}"
+
+
+#: Public name (the report writes exponents the way figures do).
+exponent_label = _exponent_label
 
 
 def equation_text(fit, *, digits: int = 3) -> str:
@@ -694,7 +694,6 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     prediction bounds as quantiles; Duan 1983 for smearing), over the fitted
     range of x only.
     """
-    from .predict import predict
     own = ax is None
     if own:
         ax = _new_figure(size, 0.85).add_subplot()
@@ -725,9 +724,14 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
         lo, hi = _fit_xrange(fit, result)
         xs = np.linspace(lo, hi, 120)
         xs[0], xs[-1] = lo, hi
-        pred = predict(fit, xs, correction=correction, interval=interval,
-                       data=_smearing_data(result) if correction in ("smearing", "ratio")
-                       else None)
+        saved = result.tables.get("_saved_fits", {}).get(("pooled", "", method))
+        if saved is not None:   # the run's factors, computed once by the prediction stage
+            pred = predict(fit, xs, correction=correction, interval=interval,
+                           factor=saved_factor(saved, correction))
+        else:
+            pred = predict(fit, xs, correction=correction, interval=interval,
+                           data=_smearing_data(result) if correction in ("smearing", "ratio")
+                           else None)
         shade = METHOD_SHADES.get(method, "#333333")
         ax.fill_between(xs, pred.y_low, pred.y_high, color=shade, alpha=0.10, lw=0, zorder=1)
         ax.plot(xs, pred.y, color=shade, lw=1.2, ls=METHOD_DASHES.get(method, "-"), zorder=4)
@@ -940,7 +944,6 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ax.text(0.5, 0.5, f"{method_label(method)}: no estimable fit", ha="center",
                 va="center", transform=ax.transAxes)
         return ax
-    from .lines import base_label
     X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
     pos, resid = _residuals(fit, X, Y)
     groups = _groups(result)
@@ -1027,7 +1030,6 @@ _MAKERS = {"scaling": make_scaling, "natural": make_natural,
 
 def make_figure(result, kind: str, *, size: str | None = None) -> Figure:
     """One figure of ``kind`` (``scaling``, ``natural``, ``exponents``, ``residuals``)."""
-    from .errors import ConfigError
     if kind not in _MAKERS:
         raise ConfigError(f"figure kind must be one of {', '.join(KINDS)}, not {kind!r}")
     return _MAKERS[kind](result, size=size or result.config.figures.size)
@@ -1043,7 +1045,6 @@ def _save(fig: Figure, target, fmt: str, dpi: int) -> None:
 
 def figure_png(result, kind: str, *, dpi: int = 150, size: str | None = None) -> bytes:
     """PNG bytes of one figure (used by the report when no PNG was written)."""
-    import io
     fig = make_figure(result, kind, size=size)
     buf = io.BytesIO()
     _save(fig, buf, "png", dpi)
@@ -1062,9 +1063,7 @@ def write_figures(result, folder: Path) -> list[Path]:
     :class:`~scaling.errors.FigureWarning` naming it and the reason: a figure
     never turns a good fit into a failed run.
     """
-    import warnings
 
-    from .errors import FigureWarning
     cfg = result.config.figures
     folder = Path(folder)
     (folder / "figures").mkdir(parents=True, exist_ok=True)

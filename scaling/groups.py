@@ -121,6 +121,8 @@ from .errors import ConfigError, DataError, DegenerateDataWarning
 from .lines import (METHODS, ConfidenceInterval, LineFit, fit_notes, p_text,
                     line_fit_from_moments, parse_log_base, to_log)
 from .moments import Moments, group_moments, moments, weighted_moments
+from .schema import GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS
+from .wording import EXACT_NOTE
 
 __all__ = [
     "TESTS",
@@ -147,11 +149,8 @@ TESTS = ("slopes_equal", "intercepts_equal", "shift_along_axis")
 AUTO_BOOTSTRAP_BELOW = 100
 
 _CALIBRATIONS = ("auto", "chi2", "bootstrap")
-_GROUP_COLUMNS = ("group", "n", "mean_log_x", "mean_log_y", "se_log_x", "se_log_y")
-_TEST_COLUMNS = ("method", "test", "statistic", "df", "df_resid", "p_value",
-                 "p_method", "common_slope")
-_PAIR_COLUMNS = ("method", "test", "group_a", "group_b", "statistic", "df",
-                 "p_value", "p_adjusted")
+_TEST_COLUMNS = tuple(GROUP_TEST_COLUMNS)
+_PAIR_COLUMNS = tuple(PAIRWISE_COLUMNS)
 
 
 # --------------------------------------------------------------------------
@@ -221,7 +220,6 @@ EXACT_FIT_TOL = 2e-12
 #: ``pairwise_max`` default: pairwise tests are made for at most this many groups.
 PAIRWISE_MAX = 20
 
-_EXACT_NOTE = "no residual scatter: an exact power law"
 
 
 def _no_variation(n, mean, ss):
@@ -1310,7 +1308,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
         tests = [GroupTest(method=method, test=name, statistic=math.nan, df=float(len(used) - 1),
                            df_resid=math.nan, p_value=math.nan, p_method="none",
                            common_slope=b) for name in TESTS]
-        notes.append(f"{_EXACT_NOTE} in every group: the tests need residual scatter "
+        notes.append(f"{EXACT_NOTE} in every group: the tests need residual scatter "
                      "and are not made"
                      + ("" if agree else "; the groups' exact slopes differ, so there is "
                                          "no common slope"))
@@ -1330,7 +1328,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
             se = float(np.sqrt(axis_res["var_b"][0]))
         tests = _run_tests(method, arrays, axis_res, p_method, b)
         if method == "ols" and _ols_tests(*arrays)["exact"]:
-            notes.append(f"{_EXACT_NOTE} in every group: the slope and elevation tests "
+            notes.append(f"{EXACT_NOTE} in every group: the slope and elevation tests "
                          "need residual scatter and are not made (NaN)")
     if method == "sma":
         sign = np.sign(np.sum(arrays[5]))

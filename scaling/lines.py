@@ -85,6 +85,10 @@ from scipy import stats
 
 from .errors import ConfigError, DataError, DegenerateDataWarning
 from .moments import Moments, moments as _moments
+from .schema import CATALOGUE, is_symmetric, method_label
+# Sentences live in wording; these names stay importable from lines (aliases).
+from .wording import (BOTH_SIGNS_NOTE, EXACT_NOTE, describe_test, format_p,  # noqa: F401
+                      p_text, verdict_phrase)
 
 __all__ = [
     "ConfidenceInterval",
@@ -360,33 +364,10 @@ METHODS: dict[str, LineMethod] = {
 }
 
 
-#: Every method name a fit may carry -> (label, symmetric).  The moment methods
-#: are those of :data:`METHODS`; the others are fitted by :mod:`scaling.robust`
-#: (``deming`` from moments with an error-variance ratio, the robust lines from
-#: the rows).  ``symmetric``: swapping x and y gives the same line (slope 1/b).
+#: Every method name a fit may carry -> (label, symmetric): an alias kept for
+#: old imports, read from the one catalogue in :mod:`scaling.schema`.
 METHOD_INFO: dict[str, tuple[str, bool]] = {
-    "ols": ("OLS", False),
-    "sma": ("SMA", True),
-    "ma": ("MA", True),
-    "deming": ("Deming", True),
-    "theil_sen": ("Theil-Sen", False),
-    "siegel": ("Siegel", False),
-    "sma_robust": ("robust SMA", True),
-    "ma_robust": ("robust MA", True),
-}
-
-
-def method_label(method: str) -> str:
-    """How a method is written in sentences ("OLS", "Deming", "robust SMA", ...)."""
-    return METHOD_INFO.get(method, (str(method).upper(), False))[0]
-
-
-def is_symmetric(method: str) -> bool:
-    """True if swapping x and y gives the same line (SMA, MA, Deming, robust SMA/MA)."""
-    try:
-        return METHOD_INFO[method][1]
-    except KeyError:
-        raise ConfigError(f"method must be one of {', '.join(METHOD_INFO)}, not {method!r}") from None
+    name: (info.label, info.symmetric) for name, info in CATALOGUE.items()}
 
 
 def _get_method(method: str) -> LineMethod:
@@ -423,12 +404,6 @@ def fit_notes(m: Moments, method: str) -> np.ndarray:
     for i in np.flatnonzero(n < MIN_N):
         notes[i] = notes[i].format(n=int(n[i]))
     return notes
-
-
-#: Note of a fit whose points lie on the line up to rounding.
-EXACT_NOTE = "no residual scatter: an exact power law"
-#: Note of an SMA fit whose correlation is not significant.
-BOTH_SIGNS_NOTE = "correlation not significant: slopes of either sign are accepted"
 
 
 def exact_fit(m: Moments) -> np.ndarray:
@@ -620,53 +595,6 @@ class SlopeTest:
         return describe_test(self, alpha=1 - confidence)
 
 
-def verdict_phrase(estimate: float, exponent: float, p_value: float, *, alpha: float,
-                 target: str) -> str:
-    """The verb phrase of a slope test: "is above 3/4", "does not differ detectably from 3/4"."""
-    if not np.isfinite(p_value):
-        return f"could not be tested against {target}"
-    if p_value < alpha:
-        return f"is {'above' if estimate > exponent else 'below'} {target}"
-    return f"does not differ detectably from {target}"
-
-
-def describe_test(test: SlopeTest, *, alpha: float = 0.05) -> str:
-    """Plain-language reading of a slope test."""
-    label = method_label(test.method)
-    if not np.isfinite(test.p_value):
-        return f"The {label} slope could not be tested against {test.exponent:g}."
-    b0 = f"{test.exponent:.4g}"
-    if test.hypothesis and test.hypothesis != f"{test.exponent:g}":
-        b0 = f"{b0} ({test.hypothesis})"
-    if test.note == EXACT_NOTE:
-        relation = "equals" if test.p_value >= alpha else (
-            "is above" if test.estimate > test.exponent else "is below")
-        return f"The {label} exponent {test.estimate:.6g} {relation} {b0} ({test.note})."
-    verdict = verdict_phrase(test.estimate, test.exponent, test.p_value, alpha=alpha, target=b0)
-    if test.statistic_type == "t":
-        stat = f"t = {test.statistic:.2f}, df = {test.df:g}, "
-    elif test.statistic_type == "z":
-        stat = f"z = {test.statistic:.2f}, "
-    else:
-        stat = "bootstrap, "
-    return f"The {label} exponent {test.estimate:.3g} {verdict} ({stat}{p_text(test.p_value)})."
-
-
-def p_text(p: float) -> str:
-    """'p = 0.031' or 'p < 0.0001'."""
-    text = format_p(p)
-    return f"p {text}" if text.startswith("<") else f"p = {text}"
-
-
-def format_p(p: float) -> str:
-    """p-values as people write them: 3 significant digits, '< 0.0001' below."""
-    if not np.isfinite(p):
-        return "n/a"
-    if p < 1e-4:
-        return "< 0.0001"
-    return f"{p:.2g}" if p < 0.01 else f"{p:.3f}"
-
-
 def _deming_test(m: Moments, lam, b0: float) -> tuple:
     """t, df, p of the Deming slope test: the MA test on (X, Y/sqrt(lam))."""
     if lam is None:
@@ -682,6 +610,12 @@ def _tie_term(values: np.ndarray) -> float:
     _, counts = np.unique(values, return_counts=True)
     counts = counts[counts > 1].astype(float)
     return float(np.sum(counts * (counts - 1) * (2 * counts + 5)))
+
+
+#: Public name for the tie correction used by robust.theil_sen.
+def tie_term(values: np.ndarray) -> float:
+    """The tie term of Kendall's variance (see :func:`_kendall_slope_test`)."""
+    return _tie_term(values)
 
 
 def _kendall_slope_test(X, Y, b0: float) -> tuple:
@@ -880,10 +814,25 @@ class LineFit:
 
     def predict(self, x, *, correction="smearing", interval="prediction",
                 confidence=None, residuals=None):
-        """Predictions of y at ``x`` as a DataFrame; see :func:`scaling.predict.predict`."""
-        from .predict import predict
-        return predict(self, x, correction=correction, interval=interval,
-                       confidence=confidence, residuals=residuals).to_frame()
+        """Predictions of y at ``x`` as a DataFrame; see :func:`scaling.predict.predict`.
+
+        A late-bound delegation: :mod:`scaling.lines` sits below
+        :mod:`scaling.predict` and does not import it (no import circle);
+        :mod:`scaling.predict` registers its ``predict`` with
+        :func:`register_delegate` when imported, which ``import scaling`` does.
+        """
+        return _DELEGATES["predict"](self, x, correction=correction, interval=interval,
+                                     confidence=confidence, residuals=residuals).to_frame()
+
+
+#: Functions of higher modules that LineFit methods delegate to (see
+#: :meth:`LineFit.predict`); filled by :func:`register_delegate`.
+_DELEGATES: dict = {}
+
+
+def register_delegate(name: str, func) -> None:
+    """Let a higher module provide a LineFit method's work (``"predict"``)."""
+    _DELEGATES[name] = func
 
 
 def line_fit_from_moments(m: Moments, method: str, *, confidence: float = 0.95,
@@ -891,7 +840,23 @@ def line_fit_from_moments(m: Moments, method: str, *, confidence: float = 0.95,
                           y_range=None) -> LineFit:
     """Package the fit of one set of (0-d) moments as a :class:`LineFit`."""
     res = fit_moments(m, method, confidence=confidence)
-    f = {k: (v.item() if isinstance(v, np.ndarray) else v) for k, v in res.items()}
+    return line_fit_from_result(res, None, m, method, confidence=confidence,
+                                log_base=log_base, x_range=x_range, y_range=y_range)
+
+
+def line_fit_from_result(res: dict, i, m: Moments, method: str, *, confidence: float,
+                         log_base: float | None, x_range=None, y_range=None,
+                         lam: float | None = None) -> LineFit:
+    """The :class:`LineFit` of entry ``i`` of a vectorised :func:`fit_moments` result.
+
+    ``i`` None reads 0-d results; ``m`` are that entry's moments.  Lets a run
+    fit every group in one pass and package each fit without computing it again.
+    """
+    def pick(v):
+        if isinstance(v, np.ndarray):
+            return v.item() if i is None else v[i]
+        return v
+    f = {k: pick(v) for k, v in res.items()}
     note = f["note"]
     if isinstance(note, np.ndarray):
         note = str(note.reshape(-1)[0])
@@ -905,7 +870,7 @@ def line_fit_from_moments(m: Moments, method: str, *, confidence: float = 0.95,
         intercept_se=float(f["intercept_se"]),
         r=float(f["r"]), r2=float(f["r2"]), resid_sd=float(f["resid_sd"]),
         df=float(f["df"]), log_base=log_base, confidence=confidence, moments=m,
-        x_range=x_range, y_range=y_range, note=str(note),
+        x_range=x_range, y_range=y_range, note=str(note), lam=lam,
     )
 
 

@@ -102,9 +102,10 @@ from scipy import stats
 
 from .errors import (ConfigError, DataError, DegenerateDataWarning,
                      ExtrapolationWarning)
-from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, base_label, log_word, method_label, is_symmetric,
+from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, register_delegate, base_label, log_word, method_label, is_symmetric,
                     parse_log_base, to_log)
 from .moments import Moments
+from .schema import CORRECTIONS, INTERVALS, check_choice as _check_choice
 
 __all__ = [
     "CORRECTIONS",
@@ -120,24 +121,17 @@ __all__ = [
     "predict",
     "inverse_predict",
     "predict_from_dict",
+    "saved_factor",
     "accuracy",
     "fit_to_dict",
     "fit_from_dict",
 ]
 
-CORRECTIONS = ("smearing", "parametric", "ratio", "none")
-INTERVALS = ("prediction", "confidence")
 DICT_FORMAT = "scaling.linefit/1"
 
 
 # --------------------------------------------------------------------------
 # input checks
-
-
-def _check_choice(value, allowed, name: str) -> str:
-    if not isinstance(value, str) or value not in allowed:
-        raise ConfigError(f"{name} must be one of {', '.join(allowed)}, not {value!r}")
-    return value
 
 
 def _check_confidence(confidence, fit: LineFit) -> float:
@@ -908,6 +902,26 @@ def fit_from_dict(d: dict) -> LineFit:
     )
 
 
+def saved_factor(d: dict, correction: str):
+    """The correction factor stored with a saved fit (:func:`fit_to_dict`).
+
+    None for ``parametric`` and ``none`` (computed from the fit itself); the
+    stored ``smearing_factor`` / ``ratio_factor`` otherwise.
+
+    Raises
+    ------
+    ConfigError
+        If the needed factor was not saved.
+    """
+    if correction not in ("smearing", "ratio"):
+        return None
+    factor = d.get(f"{correction}_factor")
+    if factor is None:
+        raise ConfigError(f"the saved fit has no {correction}_factor; "
+                          "use correction='parametric' or 'none'")
+    return factor
+
+
 def predict_from_dict(d: dict, x, *, correction: str = "smearing",
                       interval: str = "prediction",
                       confidence: float | None = None) -> Prediction:
@@ -918,11 +932,10 @@ def predict_from_dict(d: dict, x, *, correction: str = "smearing",
     """
     fit = fit_from_dict(d)
     correction = _check_choice(correction, CORRECTIONS, "correction")
-    factor = None
-    if correction in ("smearing", "ratio"):
-        factor = d.get(f"{correction}_factor")
-        if factor is None:
-            raise ConfigError(f"the saved fit has no {correction}_factor; "
-                              "use correction='parametric' or 'none'")
+    factor = saved_factor(d, correction)
     return predict(fit, x, correction=correction, interval=interval,
                    confidence=confidence, factor=factor)
+
+
+# LineFit.predict delegates here (lines does not import predict).
+register_delegate("predict", predict)

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .lines import method_label, verdict_phrase
+from .wording import CAUTION, format_p, method_label, p_text, verdict_phrase
 
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
@@ -101,7 +101,6 @@ def format_value(value, column: str = "") -> str:
     Integer columns (n, row, df) as integers; booleans yes/no; missing as "–".
     Large numbers keep all their integer digits (never e-notation below 10^9).
     """
-    from .lines import format_p
     if value is None or value is pd.NA:
         return "–"
     if isinstance(value, (bool, np.bool_)):
@@ -144,8 +143,8 @@ def _num(v: float, digits: int = 3) -> str:
 
 
 def _exponent_words(name: str, value: float) -> str:
-    from .figures import _exponent_label
-    label = _exponent_label(value)
+    from .figures import exponent_label   # matplotlib: imported only when needed
+    label = exponent_label(value)
     if name and name not in (label, f"{value:g}"):
         return f"{label} ({name})"
     return label
@@ -167,7 +166,6 @@ def _scope_words(scope: str, group: str) -> str:
 
 def _slope_sentences(result) -> list:
     """(scope, sentence) per fit and hypothesised exponent, from the tables."""
-    from .lines import p_text
     tests = result.slope_tests
     if tests is None or not len(tests):
         return []
@@ -194,7 +192,6 @@ def _slope_sentences(result) -> list:
 
 
 def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
-    from .lines import p_text
     out = []
     for _, r in table.iterrows():
         test = str(r.get("test", ""))
@@ -317,7 +314,6 @@ def _fits_display(result) -> pd.DataFrame:
 
 def build_report(result, folder: Path | None = None, written=()) -> list:
     """The report's content as a list of :class:`Section` (no escaping, no rounding)."""
-    from .pipeline import CAUTION
     folder = Path(folder) if folder is not None else Path(".")
     written = list(written or ())
     cfg = result.config

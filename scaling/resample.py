@@ -75,6 +75,7 @@ from scipy import special
 from .errors import ConfigError, DataError, DegenerateDataWarning, ScalingWarning
 from .lines import METHODS, ConfidenceInterval
 from .moments import Moments, _moments_from_sums, _weight_design, weighted_moments
+from .schema import CATALOGUE, MOMENT_METHODS
 
 __all__ = [
     "MOMENT_METHODS",
@@ -88,13 +89,13 @@ __all__ = [
     "bca_interval",
 ]
 
-MOMENT_METHODS = ("ols", "sma", "ma", "deming")
 #: Fewest resamples for a BCa interval without a warning.  BCa needs the tails
 #: of the bootstrap distribution; with B = 99 its SMA slope coverage at n = 20
 #: was 0.90 (issue record), 0.92 with B = 999 (README, "Resampling").
 MIN_BCA_BOOT = 999
 #: Robust lines -> the moment method whose derived pair their permutation test uses.
-RANK_PAIRS = {"theil_sen": "ols", "siegel": "ols", "sma_robust": "sma", "ma_robust": "ma"}
+RANK_PAIRS = {m.name: m.permutation_pair for m in CATALOGUE.values()
+              if m.permutation_pair is not None}
 
 #: Budget of float64 cells per chunk of resamples (2 MB per float64 array: small chunks stay in cache and measured faster than large ones).
 _CELLS_PER_CHUNK = 250_000

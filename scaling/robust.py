@@ -63,7 +63,8 @@ import numpy as np
 from scipy import stats
 
 from .errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import (ConfidenceInterval, LineFit, _check_confidence as _lines_confidence,
+from .lines import (METHODS, ConfidenceInterval, LineFit, _check_confidence as _lines_confidence,
+                    tie_term as _tie_term,
                     fit_moments, line_fit_from_moments, parse_log_base, to_log,
                     _validate_xy)
 from .moments import Moments, moments as _moments
@@ -205,7 +206,6 @@ def _sen_interval(X, Y, confidence: float) -> tuple:
     away from the pairwise slopes there are none.  Equal to
     ``theilslopes`` when y has no ties.
     """
-    from .lines import _tie_term
     n = X.size
     i, j = np.triu_indices(n, k=1)
     dx = X[j] - X[i]
@@ -411,7 +411,6 @@ def _scatter_moments(mu, V, n) -> Moments:
 
 
 def _robust_axis(kind, x, y, *, confidence, log_base, n_boot, seed, q) -> LineFit:
-    from .lines import METHODS
     confidence = _confidence(confidence)
     n_boot = _check_boot(n_boot)
     base, X, Y, ranges = _prepare(x, y, log_base)

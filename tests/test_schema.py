@@ -1,0 +1,81 @@
+"""The vocabulary of scaling.schema: the tables a run writes and the method catalogue."""
+from __future__ import annotations
+
+import csv
+import warnings
+
+import pytest
+import yaml
+
+from scaling import schema
+from scaling.config import config_from_dict
+from scaling.errors import ConfigError
+from scaling.pipeline import run_config
+
+from conftest import DEMO_CONFIG
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    """The demo config, plus inverse predictions and permutations, one figure."""
+    raw = yaml.safe_load(DEMO_CONFIG.read_text(encoding="utf-8"))
+    raw["prediction"]["y"] = [100, 1000]
+    raw.setdefault("resampling", {})["permutations"] = 99
+    raw["figures"] = {"kinds": ["scaling"], "formats": ["png"]}
+    cfg = config_from_dict(raw, base_dir=DEMO_CONFIG.parent)
+    out = tmp_path_factory.mktemp("schema") / "out"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return run_config(cfg, out=out, quiet=True)
+
+
+def _header(path):
+    with open(path, newline="", encoding="utf-8") as fh:
+        return next(csv.reader(fh))
+
+
+class TestTableColumns:
+    def test_every_csv_of_a_demo_run_has_the_schema_columns(self, demo_run):
+        written = sorted(p for p in demo_run.files if p.suffix == ".csv")
+        stems = {p.stem for p in written}
+        # the demo with inverse predictions and permutations writes every table
+        assert stems == set(schema.TABLE_COLUMNS)
+        for path in written:
+            expected = schema.TABLE_COLUMNS[path.stem] + [
+                c for c in schema.OPTIONAL_COLUMNS.get(path.stem, [])
+                if c in _header(path)]
+            assert _header(path) == expected, path.name   # internal consistency
+
+    def test_fits_table_has_thirty_columns(self, demo_run):
+        assert list(demo_run.fits.columns) == schema.FIT_ALL_COLUMNS
+        assert len(schema.FIT_ALL_COLUMNS) == 30
+
+
+class TestCatalogue:
+    def test_every_method_has_one_entry_read_by_config_lines_and_figures(self):
+        from scaling import config, figures, lines, resample, robust
+        assert config.METHOD_NAMES == tuple(schema.CATALOGUE)
+        assert set(schema.MOMENT_METHODS) == set(lines.METHODS) | {"deming"}
+        assert set(schema.ROW_METHOD_NAMES) == set(robust.ROW_METHODS)
+        assert resample.MOMENT_METHODS == schema.MOMENT_METHODS
+        assert set(resample.RANK_PAIRS) == set(schema.ROW_METHOD_NAMES)
+        assert set(figures.METHOD_DASHES) == set(schema.CATALOGUE)
+        assert lines.METHOD_INFO["sma_robust"] == ("robust SMA", True)
+
+    def test_labels_and_symmetry(self):
+        assert schema.method_label("theil_sen") == "Theil-Sen"
+        assert schema.method_label("other") == "OTHER"
+        assert schema.is_symmetric("deming") and not schema.is_symmetric("ols")
+        assert schema.is_moment_method("deming") and not schema.is_moment_method("siegel")
+        assert schema.GROUP_COMPARISON_METHODS == ("ols", "sma", "ma")
+
+    def test_unknown_method_is_refused(self):
+        with pytest.raises(ConfigError, match="method must be one of ols, sma"):
+            schema.method_info("lasso")
+
+
+class TestChoices:
+    def test_check_choice_names_the_options(self):
+        assert schema.check_choice("ratio", schema.CORRECTIONS, "correction") == "ratio"
+        with pytest.raises(ConfigError, match="interval must be one of prediction, confidence"):
+            schema.check_choice("wide", schema.INTERVALS, "interval")
