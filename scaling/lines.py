@@ -1037,7 +1037,11 @@ def _validate_xy(x, y, base):
 
 def fit_line(x, y, *, method: str = "sma", confidence: float = 0.95,
              log_base=10) -> LineFit:
-    """Fit y = a x^b as a straight line on log-log scales.
+    """Fit y = a x^b as a straight line on log-log scales (the moment methods).
+
+    The public :func:`scaling.fit_line` (in :mod:`scaling.api`) takes every
+    configured method and returns a fit carrying its correction factors;
+    this one fits OLS, SMA and MA from moments and carries none.
 
     Parameters
     ----------
