@@ -117,6 +117,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
+from .display import frame_html, short_repr
 from .errors import ConfigError, DataError, DegenerateDataWarning
 from .lines import (METHODS, ConfidenceInterval, LineFit, fit_notes, p_text,
                     line_fit_from_moments, parse_log_base, to_log)
@@ -1099,6 +1100,22 @@ class GroupComparison:
         """One row per test with the columns of ``group_tests.csv``."""
         return pd.DataFrame([t.to_record() for t in self.tests], columns=list(_TEST_COLUMNS))
 
+    def __repr__(self) -> str:
+        shown = self.groups if len(self.groups) <= 6 else f"{len(self.groups)} groups"
+        fields = {"method": self.method, "group_column": self.group_column, "groups": shown,
+                  "common_slope": self.common_slope,
+                  "common_slope_ci": (float(self.common_slope_ci.low),
+                                      float(self.common_slope_ci.high))}
+        fields.update({f"p_{t.test}": float(t.p_value) for t in self.tests})
+        if self.note:
+            fields["note"] = self.note
+        return short_repr(self, fields)
+
+    def _repr_html_(self) -> str:
+        compared = ", ".join(f"{g} (n = {n})" for g, n in zip(self.groups, self.group_n))
+        return frame_html(self.to_frame(), notes=[self.summary(), f"groups: {compared}"],
+                          title=f"{self.method.upper()} comparison of {self.group_column} groups")
+
     def pairwise_frame(self) -> pd.DataFrame:
         """One row per pair and test."""
         return pd.DataFrame([t.to_record() for t in self.pairwise],
@@ -1197,6 +1214,34 @@ def _xy_columns(df, x, y, group, base):
     return values[0], values[1], df[group].to_numpy(dtype=object)
 
 
+def _average_units(X, Y, labels, df, unit: str, group: str):
+    """Per-unit means of the log values (one point per unit), as ``data.average_within``.
+
+    A unit whose rows carry two group labels is a DataError naming it.
+    """
+    if unit not in df.columns:
+        raise DataError(f"average_within column {unit!r} not found; columns are "
+                        f"{', '.join(map(str, df.columns))}")
+    if unit == group:
+        raise ConfigError(f"average_within {unit!r} is the group column")
+    units = df[unit]
+    if units.isna().any():
+        raise DataError(f"average_within column {unit!r} has missing labels (first at row "
+                        f"index {df.index[np.argmax(units.isna().to_numpy())]!r})")
+    pts = pd.DataFrame({"unit": units.to_numpy(dtype=object), "log_x": X, "log_y": Y,
+                        "group": labels})
+    spans = pts.groupby("unit", sort=False)["group"].nunique()
+    if (spans > 1).any():
+        bad = spans.index[np.argmax(spans.to_numpy() > 1)]
+        groups_of = sorted(map(str, pts.loc[pts["unit"] == bad, "group"].unique()))
+        raise DataError(f"{unit} {bad!r} appears in more than one group ({group}: "
+                        f"{', '.join(groups_of)}); each unit must belong to one group")
+    out = pts.groupby("unit", sort=False).agg(log_x=("log_x", "mean"), log_y=("log_y", "mean"),
+                                               group=("group", "first"))
+    return (out["log_x"].to_numpy(), out["log_y"].to_numpy(),
+            out["group"].to_numpy(dtype=object))
+
+
 def _p_method(method: str, calibration: str, min_group_n: float, n_boot: int) -> str:
     if method == "ols":
         return "F"
@@ -1209,7 +1254,8 @@ def _p_method(method: str, calibration: str, min_group_n: float, n_boot: int) ->
 def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
                    confidence: float = 0.95, log_base=10, min_n: int = 3,
                    calibration: str = "auto", n_boot: int = 999,
-                   seed: int | None = 0, pairwise_max: int = PAIRWISE_MAX) -> GroupComparison:
+                   seed: int | None = 0, pairwise_max: int = PAIRWISE_MAX,
+                   average_within: str | None = None) -> GroupComparison:
     """Test whether groups share a slope, an elevation and a position along the axis.
 
     Parameters
@@ -1235,6 +1281,12 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
         Bootstrap replicates.
     seed : int or None
         Seed of ``np.random.default_rng`` for the bootstrap.
+    average_within : str, optional
+        Column of units (e.g. species) whose rows are collapsed to one point
+        first: the means of log x and log y over the unit's rows, as the
+        config's ``data.average_within`` does.  Compare orders on species
+        means, not on individuals (pseudoreplication).  A unit found in two
+        groups is a DataError naming it.
 
     Returns
     -------
@@ -1260,6 +1312,14 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     >>> res = sg.compare_groups(d, "m", "r", "g", method="ols")
     >>> res.to_frame()["test"].tolist()
     ['slopes_equal', 'intercepts_equal', 'shift_along_axis']
+
+    Two individuals per species, species averaged first:
+
+    >>> e = pd.DataFrame({"m": [1, 1.2, 2, 2.4, 4, 5, 1, 1.3, 2, 2.2, 4, 4.4],
+    ...                   "r": [1, 1.3, 2, 2.3, 3.9, 4.6, 2, 2.5, 4.1, 4.4, 8, 8.6],
+    ...                   "g": list("aaaaaabbbbbb"), "sp": [f"s{i // 2}" for i in range(12)]})
+    >>> sg.compare_groups(e, "m", "r", "g", method="ols", average_within="sp").group_n
+    (3, 3)
     """
     method = _check_method(method)
     confidence = _check_confidence(confidence)
@@ -1273,6 +1333,8 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     if seed is not None:
         seed = _check_int(seed, "seed", 0)
     X, Y, labels_raw = _xy_columns(df, x, y, group, base)
+    if average_within is not None:
+        X, Y, labels_raw = _average_units(X, Y, labels_raw, df, average_within, group)
     codes, labels = _factorize(labels_raw, X.size)
     m = group_moments(X, Y, codes, n_groups=len(labels))
 

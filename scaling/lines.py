@@ -83,6 +83,7 @@ from typing import Callable
 import numpy as np
 from scipy import stats
 
+from .display import frame_html, short_repr
 from .errors import ConfigError, DataError, DegenerateDataWarning
 from .moments import Moments, moments as _moments
 from .schema import CATALOGUE, is_symmetric, method_label
@@ -594,6 +595,15 @@ class SlopeTest:
         """One plain sentence."""
         return describe_test(self, alpha=1 - confidence)
 
+    def __repr__(self) -> str:
+        return short_repr(self, {"method": self.method, "hypothesis": self.hypothesis,
+                                 "exponent": self.exponent, "estimate": self.estimate,
+                                 "statistic": self.statistic, "p_value": self.p_value})
+
+    def _repr_html_(self) -> str:
+        return frame_html(self.to_frame(), title=f"{method_label(self.method)} slope test",
+                          notes=[self.summary()])
+
 
 def _deming_test(m: Moments, lam, b0: float) -> tuple:
     """t, df, p of the Deming slope test: the MA test on (X, Y/sqrt(lam))."""
@@ -680,6 +690,12 @@ class LineFit:
         Bootstrap slopes behind a bootstrap interval (used by the test).
     log_data : (ndarray, ndarray) or None
         Log x and log y, kept by Theil-Sen for its rank test.
+    smearing_factor, ratio_factor : float or None
+        Correction factors computed from the fit's own residuals on its
+        fitting data (Duan 1983 smearing; Snowdon 1991 ratio), set by
+        :func:`scaling.fit_line`; :meth:`predict` uses them by default.
+        None for fits made from moments alone (pass ``residuals`` or a
+        saved factor to :func:`scaling.predict.predict` then).
     """
 
     method: str
@@ -704,6 +720,8 @@ class LineFit:
     interval_method: str = "analytic"
     slope_replicates: np.ndarray | None = field(default=None, repr=False, compare=False)
     log_data: tuple | None = field(default=None, repr=False, compare=False)
+    smearing_factor: float | None = field(default=None, repr=False, compare=False)
+    ratio_factor: float | None = field(default=None, repr=False, compare=False)
 
     @property
     def b(self) -> float:
@@ -812,17 +830,106 @@ class LineFit:
             lines.append(f"  note: {self.note}")
         return "\n".join(lines)
 
+    def __repr__(self) -> str:
+        fields = {"method": self.method, "n": self.n, "slope": self.slope,
+                  "slope_ci": (float(self.slope_ci.low), float(self.slope_ci.high)),
+                  "intercept": self.intercept, "r2": self.r2,
+                  "log_base": base_label(self.log_base), "confidence": self.confidence}
+        if self.lam is not None:
+            fields["lam"] = self.lam
+        if self.note:
+            fields["note"] = self.note
+        return short_repr(self, fields)
+
+    def _repr_html_(self) -> str:
+        return frame_html(self.to_frame(), title=f"{method_label(self.method)} line",
+                          notes=[self.summary()])
+
+    # predict and inverse_predict are late-bound delegations to scaling.predict,
+    # which registers them with register_delegate when imported (``import
+    # scaling`` does); lines sits below predict and does not import it.
+
     def predict(self, x, *, correction="smearing", interval="prediction",
                 confidence=None, residuals=None):
-        """Predictions of y at ``x`` as a DataFrame; see :func:`scaling.predict.predict`.
+        """Predictions of y at ``x`` in natural units, as a DataFrame.
 
-        A late-bound delegation: :mod:`scaling.lines` sits below
-        :mod:`scaling.predict` and does not import it (no import circle);
-        :mod:`scaling.predict` registers its ``predict`` with
-        :func:`register_delegate` when imported, which ``import scaling`` does.
+        Parameters
+        ----------
+        x : float or array_like
+            Positive x in natural units (logs when ``log_base`` is None).
+        correction : {"smearing", "parametric", "ratio", "none"}
+            Back-transformation correction.  A fit made by
+            :func:`scaling.fit_line` carries its smearing and ratio factors,
+            so the default works on a fresh fit; a fit made from moments
+            alone needs ``residuals`` for smearing (or use ``"parametric"``).
+        interval : {"prediction", "confidence"}
+        confidence : float, optional
+            Defaults to the fit's level.
+        residuals : array_like, optional
+            Log-scale residuals of the fitting data (override the carried
+            smearing factor).
+
+        Returns
+        -------
+        DataFrame
+            ``x, y, y_low, y_high, interval, correction, extrapolated, method``.
+
+        Notes
+        -----
+        See :func:`scaling.predict.predict` (smearing: Duan 1983, *JASA*
+        78:605; intervals and how the correction meets the bounds are in
+        :mod:`scaling.predict`).
+
+        Examples
+        --------
+        >>> import scaling
+        >>> fit = scaling.fit_line([1, 2, 4, 8, 16], [3.1, 11.8, 49, 190, 770], method="ols")
+        >>> table = fit.predict([3, 10])
+        >>> table[["x", "extrapolated"]].values.tolist()
+        [[3.0, False], [10.0, False]]
+        >>> bool(table["y_low"].lt(table["y"]).all())
+        True
         """
+        # Late-bound delegation: scaling.predict registers its predict with
+        # register_delegate when imported (lines does not import predict).
         return _DELEGATES["predict"](self, x, correction=correction, interval=interval,
                                      confidence=confidence, residuals=residuals).to_frame()
+
+    def inverse_predict(self, y, *, interval="prediction", confidence=None):
+        """Estimates of x from observed ``y`` (e.g. body mass from a bone size), as a DataFrame.
+
+        Parameters
+        ----------
+        y : float or array_like
+            Positive observed y in natural units (logs when ``log_base`` is None).
+        interval : {"prediction", "confidence"}
+            For the x of the individual whose y was observed, or for the x at
+            which the line equals y.
+        confidence : float, optional
+            Defaults to the fit's level.
+
+        Returns
+        -------
+        DataFrame
+            ``y, x, x_low, x_high, interval, correction, extrapolated, method``
+            (``x_low``/``x_high`` NaN where the interval is unbounded).
+
+        Notes
+        -----
+        See :func:`scaling.predict.inverse_predict`: OLS uses the Fieller-type
+        calibration interval (Draper & Smith 1998, sec. 3.2); symmetric lines
+        swap the roles of x and y.
+
+        Examples
+        --------
+        >>> import scaling
+        >>> fit = scaling.fit_line([1, 2, 4, 8, 16], [3.1, 11.8, 49, 190, 770], method="sma")
+        >>> table = fit.inverse_predict(100)
+        >>> bool(table["x_low"][0] < table["x"][0] < table["x_high"][0])
+        True
+        """
+        return _DELEGATES["inverse_predict"](self, y, interval=interval,
+                                             confidence=confidence).to_frame()
 
 
 #: Functions of higher modules that LineFit methods delegate to (see
@@ -891,7 +998,11 @@ def _validate_xy(x, y, base):
 
 def fit_line(x, y, *, method: str = "sma", confidence: float = 0.95,
              log_base=10) -> LineFit:
-    """Fit y = a x^b as a straight line on log-log scales.
+    """Fit y = a x^b as a straight line on log-log scales (the moment methods).
+
+    The public :func:`scaling.fit_line` (in :mod:`scaling.api`) takes every
+    configured method and returns a fit carrying its correction factors;
+    this one fits OLS, SMA and MA from moments and carries none.
 
     Parameters
     ----------

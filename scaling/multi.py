@@ -81,6 +81,7 @@ from typing import Mapping, Sequence
 import numpy as np
 from scipy import stats
 
+from .display import frame_html, short_repr
 from .errors import ConfigError, DataError, ExtrapolationWarning
 from .lines import ConfidenceInterval, base_label, parse_log_base
 from .predict import CORRECTIONS, INTERVALS, correction_factor
@@ -905,6 +906,17 @@ class MultiFit:
                 "x_min": self.x_ranges[j][0], "x_max": self.x_ranges[j][1], "note": "",
             })
         return pd.DataFrame(rows)
+
+    def __repr__(self) -> str:
+        return short_repr(self, {"names": self.names, "n": self.n,
+                                 "slopes": tuple(float(b) for b in self.slopes),
+                                 "intercept": self.intercept, "r2": self.r2,
+                                 "log_base": base_label(self.log_base),
+                                 "confidence": self.confidence})
+
+    def _repr_html_(self) -> str:
+        return frame_html(self.to_frame(), title="OLS fit on several predictors",
+                          notes=[self.summary()])
 
     def summary(self) -> str:
         """A few lines of text describing the fit.

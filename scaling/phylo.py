@@ -89,6 +89,7 @@ from typing import Callable
 import numpy as np
 from scipy import optimize, stats
 
+from .display import frame_html, short_repr
 from .errors import ConfigError, DataError
 from .lines import (ConfidenceInterval, LineFit, METHODS, SlopeTest, _check_confidence,
                     _validate_xy, base_label, fit_moments, line_fit_from_moments,
@@ -701,6 +702,19 @@ class PhyloFit:
     def to_frame(self):
         import pandas as pd
         return pd.DataFrame([self.to_record()])
+
+    def __repr__(self) -> str:
+        fields = {"method": self.method, "n": self.n, "slope": self.slope,
+                  "slope_ci": (float(self.slope_ci.low), float(self.slope_ci.high)),
+                  "intercept": self.intercept, "lam": self.lam,
+                  "lam_estimate": self.lam_estimate, "log_base": base_label(self.log_base)}
+        if self.note:
+            fields["note"] = self.note
+        return short_repr(self, fields)
+
+    def _repr_html_(self) -> str:
+        return frame_html(self.to_frame(), notes=[self.summary()],
+                          title=f"phylogenetic {method_label(self.method)} line")
 
     def summary(self) -> str:
         label = f"phylogenetic {method_label(self.method)}"

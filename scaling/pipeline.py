@@ -24,6 +24,7 @@ import pandas as pd
 from ._version import __version__
 from .config import Config, config_from_dict, load_config
 from .data import CleanData, load_data
+from .display import frame_html, short_repr
 from .errors import DataError, ScalingWarning
 from .lines import MIN_N, parse_log_base
 from .moments import group_moments, moments
@@ -98,6 +99,14 @@ class RunResult:
     @property
     def predictions(self) -> pd.DataFrame | None:
         return self.tables.get("predictions")
+
+    def __repr__(self) -> str:
+        return short_repr(self, {"title": self.config.title, "fits": len(self.fits),
+                                 "tables": tuple(k for k in self.tables if not k.startswith("_")),
+                                 "out_dir": None if self.out_dir is None else str(self.out_dir)})
+
+    def _repr_html_(self) -> str:
+        return frame_html(self.fits, title=self.config.title, notes=["\n".join(self.messages)])
 
     def fit(self, method: str, *, scope: str = "pooled", group: str = ""):
         """The :class:`~scaling.lines.LineFit` for one row of ``fits``."""

@@ -299,6 +299,9 @@ def _factor_for(fit: LineFit, correction: str, *, residuals, data, factor) -> fl
         return 1.0
     if not fit.estimable:
         return math.nan
+    carried = getattr(fit, f"{correction}_factor", None)   # set by scaling.fit_line
+    if residuals is None and data is None and carried is not None:
+        return float(carried)
     if data is not None:
         if not (isinstance(data, (tuple, list)) and len(data) == 2):
             raise ConfigError("data must be a pair (x, y) of the fitting data")
@@ -830,13 +833,18 @@ def fit_to_dict(fit: LineFit, *, smearing_factor: float | None = None,
     smearing_factor, ratio_factor : float, optional
         Correction factors computed on the fitting data (see
         :func:`data_factors`); stored so that ``smearing`` and ``ratio``
-        predictions work from the dictionary alone.
+        predictions work from the dictionary alone.  Default: the factors
+        the fit carries (set by :func:`scaling.fit_line`), if any.
 
     Returns
     -------
     dict
         Plain str, int, float, list and None (NaN is written as None).
     """
+    if smearing_factor is None:
+        smearing_factor = fit.smearing_factor
+    if ratio_factor is None:
+        ratio_factor = fit.ratio_factor
     for name, value in (("smearing_factor", smearing_factor), ("ratio_factor", ratio_factor)):
         if value is not None and not (isinstance(value, (int, float, np.floating))
                                       and not isinstance(value, bool)):
@@ -899,6 +907,7 @@ def fit_from_dict(d: dict) -> LineFit:
         x_range=rng(d.get("x_range")), y_range=rng(d.get("y_range")),
         note=str(d.get("note", "")), lam=d.get("lam"),
         interval_method=str(d.get("interval_method", "analytic")),
+        smearing_factor=d.get("smearing_factor"), ratio_factor=d.get("ratio_factor"),
     )
 
 
@@ -939,3 +948,4 @@ def predict_from_dict(d: dict, x, *, correction: str = "smearing",
 
 # LineFit.predict delegates here (lines does not import predict).
 register_delegate("predict", predict)
+register_delegate("inverse_predict", inverse_predict)

@@ -44,6 +44,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .display import frame_html, short_repr
 from .errors import ConfigError, DataError
 from .lines import ConfidenceInterval, format_p
 
@@ -218,6 +219,15 @@ class ExponentSpread:
         return pd.DataFrame([{"method": self.method, **t, "estimate": self.mean,
                               "statistic_type": kind} for t in self.tests],
                             columns=SPREAD_TEST_COLUMNS)
+
+    def __repr__(self) -> str:
+        return short_repr(self, {"method": self.method, "k": self.k, "mean": self.mean,
+                                 "mean_ci": (float(self.mean_ci.low), float(self.mean_ci.high)),
+                                 "tau": self.tau, "i2": self.i2, "q_p_value": self.q_p_value})
+
+    def _repr_html_(self) -> str:
+        return frame_html(self.to_frame(), title="Spread of exponents among groups",
+                          notes=[self.summary()])
 
     def summary(self) -> str:
         pct = f"{100 * self.confidence:g}%"

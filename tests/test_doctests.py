@@ -5,10 +5,13 @@ import doctest
 
 import pytest
 
+import scaling.api
+import scaling.groups
+import scaling.lines
 import scaling.multi
 import scaling.units
 
-MODULES = [scaling.multi, scaling.units]
+MODULES = [scaling.api, scaling.groups, scaling.lines, scaling.multi, scaling.units]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)

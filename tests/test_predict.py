@@ -290,10 +290,13 @@ class TestPredict:
             predict(fit, [10.0], correction="none", interval="credible")
         with pytest.raises(ConfigError, match="confidence must be a number between 0 and 1"):
             predict(fit, [10.0], correction="none", confidence=95)
+        # scaling.lines.fit_line (moments only) carries no correction factors,
+        # unlike scaling.fit_line, so smearing and ratio need the data.
+        bare = scaling.lines.fit_line(x, y, method="ols")
         with pytest.raises(ConfigError, match="correction 'smearing' needs"):
-            predict(fit, [10.0])
+            predict(bare, [10.0])
         with pytest.raises(ConfigError, match="correction 'ratio' needs"):
-            predict(fit, [10.0], correction="ratio")
+            predict(bare, [10.0], correction="ratio")
         with pytest.raises(ConfigError, match="data must be a pair"):
             predict(fit, [10.0], data=x)
         with pytest.raises(ConfigError, match="factor cannot be given"):
@@ -536,7 +539,8 @@ class TestFitFromDict:
 class TestPredictFromDict:
     def test_parametric_needs_no_factor_and_missing_factor_errors(self, trees):
         x, y = trees
-        fit = scaling.fit_line(x, y, method="ols")
+        # moments-only fit: carries no smearing/ratio factor to save
+        fit = scaling.lines.fit_line(x, y, method="ols")
         d = fit_to_dict(fit)
         p = predict_from_dict(d, [12.0], correction="parametric")
         # same numbers as predicting from the fit itself (exact law)
