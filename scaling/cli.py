@@ -13,8 +13,8 @@ import sys
 import traceback
 from pathlib import Path
 
-import numpy as np
-
+# numpy, pandas and the pipeline are imported inside the commands, so that
+# `scaling --version`, `--help` and argument errors start in a fraction of a second.
 from ._version import __version__
 from .errors import ScalingError
 
@@ -83,12 +83,14 @@ def _examples() -> list[str]:
 
 
 def _fmt(v, digits=3) -> str:
-    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+    import math
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
         return ""
     return f"{v:.{digits}f}"
 
 
 def _summary_table(result) -> str:
+    import numpy as np
     fits = result.fits
     pct = f"{100 * result.config.model.confidence:g}% CI"
     mw = max([6] + [len(str(m)) for m in fits["method"]])

@@ -319,7 +319,9 @@ def _figure_legend(fig: Figure, handles: list, ncol: int, **kwargs):
         legend = fig.legend(handles=handles, loc="outside lower center", ncol=ncol, **kwargs)
         if ncol == 1:
             return legend
-        fig.draw_without_rendering()
+        # The legend's width depends only on its entries and fonts, not on where the
+        # layout puts it: measured with the figure's renderer, no draw of the figure
+        # (a draw_without_rendering here ran constrained layout once per try).
         if legend.get_window_extent().width <= fig.bbox.width * 0.98:
             return legend
         legend.remove()

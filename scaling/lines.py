@@ -75,6 +75,7 @@ Siegel and robust SMA/MA, the percentile-bootstrap p-value.
 
 from __future__ import annotations
 
+import importlib
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -892,7 +893,7 @@ class LineFit:
         """
         # Late-bound delegation: scaling.predict registers its predict with
         # register_delegate when imported (lines does not import predict).
-        return _DELEGATES["predict"](self, x, correction=correction, interval=interval,
+        return _delegate("predict")(self, x, correction=correction, interval=interval,
                                      confidence=confidence, residuals=residuals).to_frame()
 
     def inverse_predict(self, y, *, interval="prediction", confidence=None):
@@ -928,7 +929,7 @@ class LineFit:
         >>> bool(table["x_low"][0] < table["x"][0] < table["x_high"][0])
         True
         """
-        return _DELEGATES["inverse_predict"](self, y, interval=interval,
+        return _delegate("inverse_predict")(self, y, interval=interval,
                                              confidence=confidence).to_frame()
 
 
@@ -940,6 +941,15 @@ _DELEGATES: dict = {}
 def register_delegate(name: str, func) -> None:
     """Let a higher module provide a LineFit method's work (``"predict"``)."""
     _DELEGATES[name] = func
+
+
+def _delegate(name: str):
+    # scaling.predict registers its functions when first imported; the package
+    # imports lazily, so load it by name here (no import statement: lines stays
+    # below predict in the import graph).
+    if name not in _DELEGATES:
+        importlib.import_module("scaling.predict")
+    return _DELEGATES[name]
 
 
 def line_fit_from_moments(m: Moments, method: str, *, confidence: float = 0.95,

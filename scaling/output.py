@@ -170,11 +170,10 @@ def file_sha256(path: Path) -> str:
 
 
 def versions() -> dict:
-    import matplotlib
-    import scipy
-    import statsmodels
-    import yaml
+    # Installed versions from package metadata: importing statsmodels and matplotlib
+    # only to read __version__ cost about a second in runs that use neither.
+    from importlib.metadata import version
     return {"python": platform.python_version(), "scaling": __version__,
-            "numpy": np.__version__, "scipy": scipy.__version__, "pandas": pd.__version__,
-            "statsmodels": statsmodels.__version__, "matplotlib": matplotlib.__version__,
-            "pyyaml": yaml.__version__}
+            "numpy": np.__version__, "scipy": version("scipy"), "pandas": pd.__version__,
+            "statsmodels": version("statsmodels"), "matplotlib": version("matplotlib"),
+            "pyyaml": version("PyYAML")}

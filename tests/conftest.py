@@ -1,6 +1,9 @@
-"""Shared fixtures: paths to the demo, small tables written to tmp_path."""
+"""Shared fixtures: paths to the demo, one demo run per session, small tables in tmp_path."""
 from __future__ import annotations
 
+import contextlib
+import io
+from dataclasses import dataclass
 from pathlib import Path
 
 import matplotlib
@@ -36,3 +39,28 @@ def small_csv(tmp_path):
     path = tmp_path / "small.csv"
     table.to_csv(path, index=False)
     return path
+
+
+@dataclass(frozen=True)
+class DemoRun:
+    """The demo's ``scaling run`` (exit code, output folder, what it printed)."""
+
+    code: int
+    out: Path
+    stdout: str
+
+
+@pytest.fixture(scope="session")
+def demo_run_shared(tmp_path_factory) -> DemoRun:
+    """``scaling run configs/demo.yaml`` once per session, for tests that only READ its
+    output folder (never write into ``out``: other tests share it).  Run without
+    ``--quiet`` so the printed summary can be checked too; the input file must be
+    left unchanged."""
+    from scaling.cli import main
+    out = tmp_path_factory.mktemp("demo") / "out"
+    before = DEMO_DATA.read_bytes()
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        code = main(["run", str(DEMO_CONFIG), "--out", str(out)])
+    assert DEMO_DATA.read_bytes() == before   # input never modified
+    return DemoRun(code=code, out=out, stdout=printed.getvalue())

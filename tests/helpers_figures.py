@@ -1,6 +1,7 @@
 """Small runs shared by the figure, report and browser tests (invented data: rendering only)."""
 from __future__ import annotations
 
+import functools
 from dataclasses import replace
 from pathlib import Path
 
@@ -21,8 +22,13 @@ def with_figures(result, **changes):
     return replace(result, config=replace(cfg, figures=replace(cfg.figures, **changes)))
 
 
+@functools.lru_cache(maxsize=None)
 def demo(grouped: bool = True):
-    """The demo run, with its clade groups or pooled only."""
+    """The demo run, with its clade groups or pooled only.
+
+    Computed once per test session and shared by the figure and report tests:
+    read it, change it only through ``dataclasses.replace`` (``with_figures``).
+    """
     if grouped:
         return run_config(DEMO_CONFIG, write=False)
     return run_config({

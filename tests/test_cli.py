@@ -28,13 +28,10 @@ def _run(argv, capsys):
     return code, out.out, out.err
 
 
-@pytest.fixture(scope="module")
-def demo_run(tmp_path_factory):
-    out = tmp_path_factory.mktemp("demo") / "out"
-    before = DEMO_DATA.read_bytes()
-    code = main(["run", str(DEMO_CONFIG), "--out", str(out), "--quiet"])
-    assert DEMO_DATA.read_bytes() == before   # input never modified
-    return code, out
+@pytest.fixture
+def demo_run(demo_run_shared):
+    # The session's one demo run (tests/conftest.py); it checks the input is unchanged.
+    return demo_run_shared.code, demo_run_shared.out
 
 
 class TestRun:
@@ -148,8 +145,8 @@ class TestRun:
         assert code == 2 and "data file not found" in err
         assert (out / "fits.csv").read_text() == "old"
 
-    def test_summary_printed(self, tmp_path, capsys):
-        code, stdout, _ = _run(["run", DEMO_CONFIG, "--out", tmp_path / "o"], capsys)
+    def test_summary_printed(self, demo_run_shared):
+        code, stdout = demo_run_shared.code, demo_run_shared.stdout
         assert code == 0
         assert "Pooled SMA exponent" in stdout
         assert "scaling.png" in stdout
@@ -420,3 +417,27 @@ class TestReadme:
         assert "pytest" in blocks[1]
         ci = (ROOT / ".ci" / "run").read_text()
         assert "blocks[1]" in ci  # .ci/run executes the README's second block verbatim
+
+
+class TestCliStages:
+    def test_mistyped_key_exit_2(self, tmp_path, write_config, capsys):
+        (tmp_path / "d.csv").write_text("m,r\n1,2\n2,3\n3,5\n4,6\n")
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\nresampling: {permutatons: 99}\n")
+        code = main(["run", str(cfg), "--out", str(tmp_path / "o")])
+        err = capsys.readouterr().err
+        assert code == 2
+        assert err.startswith("error: ") and len(err.strip().splitlines()) == 1
+        assert "resampling.permutatons: unknown key; did you mean 'permutations'?" in err
+        cfg = write_config("data: {file: d.csv, x: m, y: r}\ndiagnostics: {enabld: false}\n")
+        code = main(["run", str(cfg), "--out", str(tmp_path / "o")])
+        assert code == 2 and "did you mean 'enabled'?" in capsys.readouterr().err
+
+    def test_progress_silent_when_not_a_terminal(self, small_csv, write_config, capsys):
+        # Under pytest stderr is not a terminal: no progress bar even without --quiet.
+        cfg = write_config(f"data: {{file: {small_csv}, x: mass, y: rate, group: grp}}\n"
+                           "model: {methods: [sma]}\nresampling: {bootstrap: 199, "
+                           "permutations: 99}\nfigures: {formats: [png], kinds: [scaling]}\n")
+        code = main(["run", str(cfg), "--out", str(small_csv.parent / "o")])
+        out = capsys.readouterr()
+        assert code == 0 and out.err == ""
+        assert "Bootstrap (199 resamples within grp groups, BCa, seed 1)" in out.out

@@ -35,9 +35,10 @@ from scipy import stats
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning, ScalingError
 from scaling.lines import (BOTH_SIGNS_NOTE, EXACT_NOTE, METHODS, base_label, describe_test,
                            exponent_value, fit_line, fit_moments, format_p,
-                           line_fit_from_moments, log_word, parse_log_base,
+                           is_symmetric, line_fit_from_moments, log_word, parse_log_base,
                            slope_test_statistic, to_log)
 from scaling.moments import group_moments, moments
+from scaling.robust import deming, siegel, sma_robust, theil_sen
 
 with warnings.catch_warnings():
     # scipy.odr is deprecated from SciPy 1.17 on; it is still the reference
@@ -902,3 +903,90 @@ class TestFitLineProperties:
             assert f.intercept_ci.low <= f.intercept <= f.intercept_ci.high
             p = f.test_slope(b0).p_value
             assert 0.0 <= p <= 1.0
+
+
+class TestLineFitTestSlope:
+    """LineFit.test_slope for every method: the test whose inversion is the interval."""
+
+    def _xy(self, n=30, seed=11):
+        rng = np.random.default_rng(seed)  # simulation with a known truth (b = 0.8)
+        x = 10 ** rng.uniform(0, 2, n)
+        return x, 2.0 * x ** 0.8 * 10 ** rng.normal(0, 0.08, n)
+
+    def test_deming_p_at_bounds_is_alpha(self):
+        # Exact law: the Deming interval is the inversion of its slope test, so the
+        # p-value at each bound is 1 - confidence.
+        x, y = self._xy()
+        fit = deming(x, y, lam=3.0, confidence=0.9)
+        for bound in (fit.slope_ci.low, fit.slope_ci.high):
+            test = fit.test_slope(bound)
+            assert_allclose(test.p_value, 0.1, rtol=1e-6)
+            assert test.statistic_type == "t" and test.df == len(x) - 2
+
+    def test_deming_lambda_one_is_ma_test(self):
+        # Exact law: lambda = 1 makes the Deming line the major axis (Deming 1943).
+        x, y = self._xy()
+        t_dem = deming(x, y, lam=1.0).test_slope(0.75)
+        t, df, p = slope_test_statistic(moments(np.log10(x), np.log10(y)), "ma", 0.75)
+        assert_allclose([t_dem.statistic, t_dem.p_value], [float(t), float(p)], rtol=1e-12)
+
+    def test_theil_sen_inverts_sen_interval(self):
+        # Reference: Sen (1968) interval from scipy.stats.theilslopes; the Kendall test
+        # rejects just outside it and accepts one order statistic inside (rounding of
+        # the order-statistic ranks makes the match exact only to one pairwise slope).
+        x, y = self._xy()
+        fit = theil_sen(x, y, n_boot=99, seed=1)
+        X, Y = np.log10(x), np.log10(y)
+        i, j = np.triu_indices(X.size, 1)
+        slopes = np.sort((Y[j] - Y[i]) / (X[j] - X[i]))
+        lo = int(np.searchsorted(slopes, fit.slope_ci.low))
+        hi = int(np.searchsorted(slopes, fit.slope_ci.high))
+        assert fit.test_slope((slopes[lo - 1] + slopes[lo]) / 2).p_value < 0.05
+        assert fit.test_slope((slopes[lo + 1] + slopes[lo + 2]) / 2).p_value > 0.05
+        assert fit.test_slope((slopes[hi] + slopes[hi + 1]) / 2).p_value < 0.05
+        assert fit.test_slope((slopes[hi - 2] + slopes[hi - 1]) / 2).p_value > 0.05
+        assert fit.test_slope(0.8).statistic_type == "z"
+
+    def test_theil_sen_against_kendall_tau(self):
+        # Reference library: scipy.stats.kendalltau of X against Y - b0 X gives the same
+        # concordance count S; its tau-b variance differs only by ties (none here).
+        x, y = self._xy()
+        fit = theil_sen(x, y, n_boot=99, seed=1)
+        X, Y = np.log10(x), np.log10(y)
+        ref = stats.kendalltau(X, Y - 0.7 * X, method="asymptotic")
+        test = fit.test_slope(0.7)
+        assert_allclose(test.p_value, ref.pvalue, rtol=1e-6)
+
+    @pytest.mark.parametrize("robust", [siegel, sma_robust])
+    def test_bootstrap_p_at_percentile_bounds(self, robust):
+        # Exact law (from the definitions): at the percentile bound q(alpha/2) about
+        # B alpha/2 replicates lie beyond, so p = 2 (1 + #) / (B + 1) is within
+        # 3 / (B + 1) of alpha.
+        x, y = self._xy()
+        B = 399
+        fit = robust(x, y, n_boot=B, seed=5)
+        for bound in (fit.slope_ci.low, fit.slope_ci.high):
+            assert abs(fit.test_slope(bound).p_value - 0.05) <= 3 / (B + 1)
+        assert fit.test_slope(fit.slope_ci.low - 0.05).p_value < 0.05
+        assert fit.test_slope(fit.slope).p_value > 0.5
+        assert fit.test_slope(0.8).statistic_type == "boot_share_above"
+
+    def test_fit_without_data_or_replicates_refused(self):
+        import dataclasses
+        x, y = self._xy()
+        fit = dataclasses.replace(sma_robust(x, y, n_boot=99, seed=1), slope_replicates=None)
+        with pytest.raises(ConfigError, match="carries neither data nor bootstrap replicates"):
+            fit.test_slope(0.75)
+
+    def test_deming_without_lambda_refused(self):
+        import dataclasses
+        x, y = self._xy()
+        fit = dataclasses.replace(deming(x, y, lam=2.0), lam=None)
+        with pytest.raises(ConfigError, match="needs its error-variance ratio"):
+            fit.test_slope(0.75)
+
+    def test_symmetry_table(self):
+        assert is_symmetric("deming") and is_symmetric("sma_robust")
+        assert not is_symmetric("theil_sen")
+        with pytest.raises(ConfigError, match="method must be one of"):
+            is_symmetric("loess")

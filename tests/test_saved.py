@@ -8,14 +8,13 @@ from numpy.testing import assert_allclose
 import scaling
 from scaling.cli import main
 
-from conftest import DEMO_CONFIG
 
 
-@pytest.fixture(scope="module")
-def demo_out(tmp_path_factory):
-    out = tmp_path_factory.mktemp("saved") / "out"
-    assert main(["run", str(DEMO_CONFIG), "--out", str(out), "--quiet"]) == 0
-    return out
+@pytest.fixture
+def demo_out(demo_run_shared):
+    # The session's one demo run (tests/conftest.py): read only, never written into.
+    assert demo_run_shared.code == 0
+    return demo_run_shared.out
 
 
 @pytest.fixture(scope="module")
