@@ -32,6 +32,8 @@ __all__ = [
 METHOD_NAMES = ("ols", "sma", "ma", "deming", "theil_sen", "siegel", "sma_robust", "ma_robust")
 # Lines computed from moments alone (bootstrapped by resample.bootstrap_lines).
 MOMENT_METHOD_NAMES = ("ols", "sma", "ma", "deming")
+# Symmetric lines (swapping x and y gives slope 1/b), in the order model.primary prefers.
+SYMMETRIC_METHOD_NAMES = ("sma", "ma", "deming", "sma_robust", "ma_robust")
 BOOT_INTERVALS = ("percentile", "bca")
 CORRECTIONS = ("smearing", "parametric", "ratio", "none")
 INTERVALS = ("prediction", "confidence")
@@ -67,6 +69,9 @@ class ModelConfig:
     confidence: float = 0.95
     deming_lambda: float = 1.0          # var(error in log y) / var(error in log x)
     error_variances: dict = field(default_factory=dict)   # {"x": .., "y": ..} as given
+    # the method whose line leads the headline: given, else the first symmetric method
+    # requested, else OLS (else the first method)
+    primary: str = "sma"
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -394,6 +399,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "confidence": (_confidence, 0.95),
         "deming_lambda": (_positive, None),
         "error_variances": (_error_variances, {}),
+        "primary": (lambda v, p: None if v is None else _method(v, p), None),
     },
     "diagnostics": {
         "enabled": (_boolean, True),
@@ -501,6 +507,12 @@ def _build(raw, base_dir: Path, source) -> Config:
                        "intervals is implemented. Set model.methods: [ols] or "
                        "weight_means: false")
     model = sections["model"]
+    if model["primary"] is None:
+        model["primary"] = next((m for m in model["methods"] if m in SYMMETRIC_METHOD_NAMES),
+                                "ols" if "ols" in model["methods"] else model["methods"][0])
+    elif model["primary"] not in model["methods"]:
+        raise _Bad("model.primary", f"'{model['primary']}' is not one of model.methods "
+                   f"({', '.join(model['methods'])})")
     if model["error_variances"] and model["deming_lambda"] is not None:
         raise _Bad("model.error_variances", "give either model.deming_lambda or "
                    "model.error_variances (which sets lambda = y / x), not both")

@@ -1280,8 +1280,12 @@ class GroupComparison:
         return pd.DataFrame([t.to_record() for t in self.pairwise],
                             columns=list(_PAIR_COLUMNS))
 
-    def summary(self) -> str:
-        """Plain-language sentences on slopes, elevations and axis shifts."""
+    def summary(self, *, list_pairs: bool = True) -> str:
+        """Plain-language sentences on slopes, elevations and axis shifts.
+
+        ``list_pairs=False`` gives the number of differing pairs instead of
+        naming them (the pairs are then read from a matrix).
+        """
         label = self.method.upper()
         what = f"{len(self.groups)} {self.group_column} groups"
         if not self.compared:
@@ -1297,6 +1301,9 @@ class GroupComparison:
         def differing(test: str) -> str:
             pairs = [f"{p.group_a} vs {p.group_b}" for p in self.pairwise
                      if p.test == test and p.p_adjusted <= alpha]
+            if pairs and not list_pairs:
+                total = sum(p.test == test for p in self.pairwise)
+                return f" {len(pairs)} of {total} pairs differ (Holm-adjusted)."
             return f" Pairs that differ (Holm-adjusted): {', '.join(pairs)}." if pairs else ""
 
         lo, hi = self.common_slope_ci.low, self.common_slope_ci.high

@@ -283,6 +283,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         rows += group_rows
         line_fits.update(group_fits)
         tables.update(g_tables)
+        from .groups import common_slope_rows   # scope "common": fits and slope tests
+        common_fit_rows, common_test_rows = common_slope_rows(
+            tables.get("_common_slopes", {}), cfg.exponents, log_base=base_label(base))
+        rows += common_fit_rows
         notes += g_notes
         if means_points is not None:
             point_sets[("group_means", "")] = means_points
@@ -296,6 +300,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
 
     fits = pd.DataFrame([_blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
     slope_tests = _slope_tests(line_fits, cfg)
+    if data.has_groups and common_test_rows:
+        slope_tests = pd.concat([slope_tests, pd.DataFrame(common_test_rows,
+                                 columns=SLOPE_TEST_COLUMNS)], ignore_index=True)
 
     # Prediction stage: accuracy and correction factors per fit, then predictions.
     saved, extra_cols = _accuracy_and_factors(line_fits, point_sets)
@@ -517,7 +524,7 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
                 comp = compare_groups(data, "x", "y", "group", method=method,
                                       confidence=cfg.model.confidence, log_base=base,
                                       pairwise_max=cfg.groups.pairwise_max)
-            summary = comp.summary().replace(f"{len(comp.groups)} group groups",
+            summary = comp.summary(list_pairs=False).replace(f"{len(comp.groups)} group groups",
                                              f"{len(comp.groups)} {cfg.data.group} groups")
             summary = summary.replace(" group groups", f" {cfg.data.group} groups")
             summary = summary.replace("exceed pairwise_max", "exceed groups.pairwise_max")
@@ -529,6 +536,7 @@ def _group_stage(pts: pd.DataFrame, cfg: Config, base):
             if comp.compared:
                 test_frames.append(comp.to_frame())
                 pair_frames.append(comp.pairwise_frame())
+                g_tables.setdefault("_common_slopes", {})[method] = comp.common
         if uncompared:
             messages.append(
                 "Group comparisons are available for OLS, SMA and MA; none was made for "
