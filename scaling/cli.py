@@ -109,6 +109,13 @@ def _cmd_run(args) -> int:
     result = run_config(args.config, out=out, force=args.force, quiet=args.quiet)
     if not args.quiet:
         print(f"scaling {__version__}: {result.config.title}")
+        from .headline import headline_of
+        head = headline_of(result)
+        for line in head.sentences:    # the answer first
+            print(line)
+        if head.group_table is not None and len(head.group_table):
+            print(head.group_table.to_string(index=False, float_format="%.3f"))
+        print()
         for line in result.messages:
             print(line)
         print()

@@ -16,7 +16,7 @@ from typing import Any, Callable
 
 import yaml
 
-from .schema import (BOOT_INTERVALS, CORRECTIONS, FIGURE_FORMATS, FIGURE_KINDS,
+from .schema import (BOOT_INTERVALS, CATALOGUE, CORRECTIONS, FIGURE_FORMATS, FIGURE_KINDS,
                      FIGURE_SIZES, INTERVALS, LOG_BASES, METHOD_NAMES, MOMENT_METHODS)
 from .errors import ConfigError
 
@@ -30,6 +30,8 @@ __all__ = [
 # The allowed values of every enumerated key come from scaling.schema (the one
 # home of the vocabulary; it imports nothing of the numeric core).
 MOMENT_METHOD_NAMES = MOMENT_METHODS
+# Symmetric lines, in the order model.primary prefers (from the catalogue).
+SYMMETRIC_METHOD_NAMES = tuple(m.name for m in CATALOGUE.values() if m.symmetric)
 
 _REQUIRED = object()
 
@@ -58,6 +60,9 @@ class ModelConfig:
     confidence: float = 0.95
     deming_lambda: float = 1.0          # var(error in log y) / var(error in log x)
     error_variances: dict = field(default_factory=dict)   # {"x": .., "y": ..} as given
+    # the method whose line leads the headline: given, else the first symmetric method
+    # requested, else OLS (else the first method)
+    primary: str = "sma"
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -382,6 +387,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "confidence": (_confidence, 0.95),
         "deming_lambda": (_positive, None),
         "error_variances": (_error_variances, {}),
+        "primary": (lambda v, p: None if v is None else _method(v, p), None),
     },
     "diagnostics": {
         "enabled": (_boolean, True),
@@ -489,6 +495,12 @@ def _build(raw, base_dir: Path, source) -> Config:
                        "intervals is implemented. Set model.methods: [ols] or "
                        "weight_means: false")
     model = sections["model"]
+    if model["primary"] is None:
+        model["primary"] = next((m for m in model["methods"] if m in SYMMETRIC_METHOD_NAMES),
+                                "ols" if "ols" in model["methods"] else model["methods"][0])
+    elif model["primary"] not in model["methods"]:
+        raise _Bad("model.primary", f"'{model['primary']}' is not one of model.methods "
+                   f"({', '.join(model['methods'])})")
     if model["error_variances"] and model["deming_lambda"] is not None:
         raise _Bad("model.error_variances", "give either model.deming_lambda or "
                    "model.error_variances (which sets lambda = y / x), not both")

@@ -111,7 +111,7 @@ from __future__ import annotations
 import itertools
 import math
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -119,8 +119,9 @@ from scipy import optimize, stats
 
 from .display import frame_html, short_repr
 from .errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import (METHODS, ConfidenceInterval, LineFit, fit_notes, p_text,
-                    line_fit_from_moments, parse_log_base, to_log)
+from .lines import (EXACT_NOTE, METHODS, ConfidenceInterval, LineFit, SlopeTest,
+                    exponent_value, fit_notes, p_text, line_fit_from_moments,
+                    parse_log_base, to_log)
 from .moments import Moments, group_moments, moments, weighted_moments
 from .schema import GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS
 from .wording import EXACT_NOTE
@@ -139,6 +140,7 @@ __all__ = [
     "PairwiseTest",
     "GroupComparison",
     "compare_groups",
+    "common_slope_rows",
 ]
 
 #: Names of the three comparisons, in the order they are reported.
@@ -844,6 +846,103 @@ def _profile_interval(method: str, fit: dict, confidence: float,
     return math.tan(lo_x / 2), math.tan(hi_x / 2)
 
 
+def _profile_test(method: str, fit: dict, b0, sums) -> dict:
+    """Test of common slope = b0 that inverts :func:`_profile_interval`, rows in parallel.
+
+    Parameters
+    ----------
+    fit : dict
+        :func:`_fit_common` output for M datasets.
+    b0 : float or ndarray (M,)
+    sums : tuple of ndarray (M,)
+        Pooled within-group sums (sum Sxx_i, sum Syy_i, sum Sxy_i), for the
+        SMA test of a slope of the other sign.
+
+    Returns
+    -------
+    dict
+        ``excess`` D = F(b0) - F(b_hat) (the profile likelihood-ratio
+        statistic), ``t``, ``df`` and the t-referred ``p`` (M,).
+
+    Notes
+    -----
+    With nu = sum nu_i the interval of :func:`_profile_interval` is
+    {b : D(b) <= nu log(1 + F_conf(1, nu - 1)/(nu - 1))}.  Solving for the F
+    quantile gives the statistic
+
+        Fstat = (nu - 1) (exp(D/nu) - 1)  on (1, nu - 1) df,   t = +-sqrt(Fstat),
+
+    so p = P(F(1, nu - 1) >= Fstat) equals 1 - confidence exactly at either
+    bound of the interval.  For one group D = -nu log(1 - r_rf^2(b0)) and
+    Fstat = (n - 2) r^2/(1 - r^2): the square of the correlation t of
+    Warton et al. (2006, Biol. Rev. 81:259, Table 4) used by
+    :func:`scaling.lines.slope_test_statistic`.  The sign of t is that of
+    b_hat - b0 (SMA: of |b_hat| - |b0|, times the sign of b_hat).  SMA: b0 of the other sign than the common slope gets, when
+    larger, the t of the pooled within-group correlation (as the one-group
+    test does).  MA: a b0 more than 45 degrees from the common axis (the
+    minor-axis side) gets the statistic at 45 degrees, as in the one-group
+    test.
+    """
+    b0 = np.broadcast_to(np.asarray(b0, dtype=float), fit["b"].shape)
+    loc, q, nu = fit["loc"], fit["q"], fit["nu"]
+    nu_tot = np.sum(nu, axis=-1)
+    df2 = nu_tot - 1.0
+    b_hat = fit["b"]
+    opposite = np.zeros(b_hat.shape, dtype=bool)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if method == "sma":
+            x0 = np.log(np.abs(b0))
+            opposite = b0 * fit["sign"] < 0
+        else:
+            d = np.mod(2 * np.arctan(b0) - fit["x"] + np.pi, 2 * np.pi) - np.pi
+            x0 = fit["x"] + np.clip(d, -np.pi / 2, np.pi / 2)
+        f0 = np.where(np.isfinite(x0),
+                      _profile_terms(method, np.where(np.isfinite(x0), x0, 0.0), loc, q, nu,
+                                     order=0)[0], np.inf)
+        excess = np.maximum(f0 - fit["fval"], 0.0)
+        fstat = df2 * np.expm1(excess / nu_tot)
+        if method == "sma":   # sign as in the one-group test: |b_hat| against |b0|
+            t = fit["sign"] * np.sign(fit["x"] - x0) * np.sqrt(fstat)
+        else:
+            t = np.sign(b_hat - b0) * np.sqrt(fstat)
+        if method == "sma":
+            sxx, syy, sxy = sums
+            r_w = sxy / np.sqrt(sxx * syy)
+            t_corr = np.abs(r_w) * np.sqrt(df2 / (1 - r_w * r_w)) * fit["sign"]
+            use_corr = opposite & (np.abs(t_corr) > np.abs(t))
+            t = np.where(use_corr, t_corr, t)
+        else:
+            use_corr = opposite
+        p = 2 * stats.t.sf(np.abs(t), df2)
+    return {"excess": excess, "t": t, "df": df2, "p": p, "use_corr": use_corr}
+
+
+def _common_test_arrays(method: str, n, mx, my, sxx, syy, sxy, b0) -> dict:
+    """Common slope and its test against b0 for M datasets of G groups (M, G) at once.
+
+    OLS: t = (b_w - b0)/se on N - G - 1 df, b_w = sum Sxy_i/sum Sxx_i and
+    se^2 = RSS_par/(N - G - 1)/sum Sxx_i (the parallel-lines model; the
+    coefficient t test of ``logy ~ C(group) + logx``).  SMA/MA:
+    :func:`_profile_test`.  Returns ``b``, ``t``, ``df``, ``p`` (M,).
+    """
+    n, mx, my, sxx, syy, sxy = (np.atleast_2d(np.asarray(a, dtype=float))
+                                for a in (n, mx, my, sxx, syy, sxy))
+    sums = (np.sum(sxx, -1), np.sum(syy, -1), np.sum(sxy, -1))
+    if method == "ols":
+        G = n.shape[-1]
+        df = np.sum(n, -1) - G - 1.0
+        b = sums[2] / sums[0]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            rss = np.maximum(sums[1] - sums[2] ** 2 / sums[0], 0.0)
+            se = np.sqrt(rss / df / sums[0])
+            t = (b - b0) / se
+        return {"b": b, "t": t, "df": df, "p": 2 * stats.t.sf(np.abs(t), df), "se": se}
+    fit = _fit_common(method, n, sxx, syy, sxy)
+    out = _profile_test(method, fit, b0, sums)
+    out["b"] = fit["b"]
+    return out
+
+
 # --------------------------------------------------------------------------
 # OLS: analysis of covariance from moments
 
@@ -929,17 +1028,83 @@ class CommonSlope:
     n_groups: int
     n: int
     confidence: float
+    groups: tuple = ()
+    df_resid: float = math.nan
+    profile: dict | None = field(default=None, repr=False, compare=False)
+    boot_profile: np.ndarray | None = field(default=None, repr=False, compare=False)
+
+    def test_slope(self, exponent, *, hypothesis: str = "") -> SlopeTest:
+        """Test common slope = ``exponent`` (two-sided): the inversion of ``slope_ci``.
+
+        Parameters
+        ----------
+        exponent : float or str
+            b0, e.g. ``0.75`` or ``"3/4"``.
+        hypothesis : str
+            Name recorded in the result.
+
+        Returns
+        -------
+        SlopeTest
+            ``statistic_type`` "t" on ``df_resid`` = N - G - 1 df; positive
+            when the common slope is above b0.
+
+        Notes
+        -----
+        OLS: t = (b_w - b0)/se(b_w) of the parallel-lines model (the
+        coefficient test of ``logy ~ C(group) + logx``); the interval is
+        b_w +- t_conf se.  SMA/MA: the profile likelihood-ratio statistic
+        D = F(b0) - F(b_hat) (group means free) as
+        t^2 = (nu - 1)(exp(D/nu) - 1) on nu - 1 df, nu = N - G, which is
+        exactly the rule of the profile interval (see :func:`_profile_test`);
+        p = 1 - confidence at the interval's bounds.  When the interval was
+        calibrated by the parametric bootstrap (``boot_profile`` set),
+        p = (1 + #{D* >= D})/(B + 1) over the same bootstrap profile
+        statistics D* (Davison & Hinkley 1997, eq. 4.11), so p is about
+        1 - confidence at the bounds, up to Monte Carlo discreteness.  With
+        one group this is the test of :meth:`scaling.lines.LineFit.test_slope`.
+        """
+        b0 = exponent_value(exponent)
+        label = exponent.strip() if isinstance(exponent, str) else f"{b0:g}"
+        common = dict(method=self.method, hypothesis=hypothesis or label, exponent=b0,
+                      estimate=self.slope, df=self.df_resid, statistic_type="t")
+        if not np.isfinite(self.slope) or not np.isfinite(self.slope_se):
+            return SlopeTest(**common, statistic=math.nan, p_value=math.nan)
+        if self.slope_se == 0:
+            same = abs(b0 - self.slope) <= 1e-9 * max(abs(self.slope), 1e-300)
+            return SlopeTest(**common, statistic=0.0 if same else math.copysign(
+                math.inf, self.slope - b0), p_value=1.0 if same else 0.0, note=EXACT_NOTE)
+        if self.method == "ols" or self.profile is None:
+            t = (self.slope - b0) / self.slope_se
+            return SlopeTest(**common, statistic=float(t),
+                             p_value=float(2 * stats.t.sf(abs(t), self.df_resid)))
+        res = _profile_test(self.method, self.profile, b0, self.profile["sums"])
+        t, p = float(res["t"][0]), float(res["p"][0])
+        if self.boot_profile is not None and not bool(res["use_corr"][0]):
+            d = float(res["excess"][0])
+            boot = self.boot_profile
+            p = float((1 + np.sum(boot >= d - 1e-9 * (1 + abs(d)))) / (boot.size + 1))
+        return SlopeTest(**common, statistic=t, p_value=p)
 
 
-def _common_from_arrays(method, n, mx, my, sxx, syy, sxy, confidence):
+def _common_from_arrays(method, n, mx, my, sxx, syy, sxy, confidence, *, full=False):
     if method == "ols":
         res = _ols_tests(n, mx, my, sxx, syy, sxy)
         t = stats.t.ppf(0.5 + confidence / 2, res["df_par"]) if res["df_par"] > 0 else math.nan
         ci = ConfidenceInterval(float(res["b"] - t * res["se"]), float(res["b"] + t * res["se"]))
-        return res["b"], ci, res["se"]
+        return (res["b"], ci, res["se"], None) if full else (res["b"], ci, res["se"])
     fit = _fit_common(method, n[None], sxx[None], syy[None], sxy[None], exact=True)
     lo, hi = _profile_interval(method, fit, confidence)
-    return float(fit["b"][0]), ConfidenceInterval(lo, hi), float(np.sqrt(fit["var_b"][0]))
+    out = float(fit["b"][0]), ConfidenceInterval(lo, hi), float(np.sqrt(fit["var_b"][0]))
+    return out + (_profile_state(fit, sxx, syy, sxy),) if full else out
+
+
+def _profile_state(fit: dict, sxx, syy, sxy) -> dict:
+    """The first dataset of a :func:`_fit_common` result, kept for slope tests."""
+    keep = {k: (None if fit[k] is None else np.asarray(fit[k])[:1])
+            for k in ("x", "b", "fval", "loc", "q", "nu", "sign")}
+    keep["sums"] = tuple(np.atleast_1d(float(np.sum(a))) for a in (sxx, syy, sxy))
+    return keep
 
 
 def common_slope(log_x, log_y, groups, *, method: str = "sma",
@@ -977,10 +1142,12 @@ def common_slope(log_x, log_y, groups, *, method: str = "sma",
     bad = [f"{labels[i]!r}: {notes[i]}" for i in range(len(labels)) if notes[i]]
     if bad:
         raise DataError("groups cannot share a slope estimate: " + "; ".join(bad))
-    b, ci, se = _common_from_arrays(method, m.n, m.mean_x, m.mean_y, m.sxx, m.syy, m.sxy,
-                                    confidence)
+    b, ci, se, state = _common_from_arrays(method, m.n, m.mean_x, m.mean_y, m.sxx, m.syy,
+                                           m.sxy, confidence, full=True)
     return CommonSlope(method=method, slope=b, slope_ci=ci, slope_se=se,
-                       n_groups=len(labels), n=int(m.n.sum()), confidence=confidence)
+                       n_groups=len(labels), n=int(m.n.sum()), confidence=confidence,
+                       groups=tuple(labels), df_resid=float(m.n.sum() - len(labels) - 1),
+                       profile=state)
 
 
 # --------------------------------------------------------------------------
@@ -1004,6 +1171,8 @@ class GroupTest:
     p_value: float
     p_method: str
     common_slope: float
+    common_slope_low: float = math.nan
+    common_slope_high: float = math.nan
 
     def to_record(self) -> dict:
         return {name: getattr(self, name) for name in _TEST_COLUMNS}
@@ -1061,6 +1230,10 @@ class GroupComparison:
     pairwise_skipped : bool
         True if a test rejected but pairwise comparisons were skipped because
         more than ``pairwise_max`` groups were compared.
+    common : CommonSlope or None
+        The common slope of the compared groups with its interval, whose
+        :meth:`CommonSlope.test_slope` tests it against an exponent (None
+        when fewer than two groups were compared).
     """
 
     method: str
@@ -1081,6 +1254,7 @@ class GroupComparison:
     note: str = ""
     pairwise_max: int = PAIRWISE_MAX
     pairwise_skipped: bool = False
+    common: CommonSlope | None = None
 
     @property
     def compared(self) -> bool:
@@ -1121,8 +1295,12 @@ class GroupComparison:
         return pd.DataFrame([t.to_record() for t in self.pairwise],
                             columns=list(_PAIR_COLUMNS))
 
-    def summary(self) -> str:
-        """Plain-language sentences on slopes, elevations and axis shifts."""
+    def summary(self, *, list_pairs: bool = True) -> str:
+        """Plain-language sentences on slopes, elevations and axis shifts.
+
+        ``list_pairs=False`` gives the number of differing pairs instead of
+        naming them (the pairs are then read from a matrix).
+        """
         label = self.method.upper()
         what = f"{len(self.groups)} {self.group_column} groups"
         if not self.compared:
@@ -1138,6 +1316,9 @@ class GroupComparison:
         def differing(test: str) -> str:
             pairs = [f"{p.group_a} vs {p.group_b}" for p in self.pairwise
                      if p.test == test and p.p_adjusted <= alpha]
+            if pairs and not list_pairs:
+                total = sum(p.test == test for p in self.pairwise)
+                return f" {len(pairs)} of {total} pairs differ (Holm-adjusted)."
             return f" Pairs that differ (Holm-adjusted): {', '.join(pairs)}." if pairs else ""
 
         lo, hi = self.common_slope_ci.low, self.common_slope_ci.high
@@ -1365,6 +1546,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     boot = n_boot if p_method.startswith("parametric") else None
     notes = []
 
+    state, boot_profile = None, None
     if all_exact:
         b, ci, se, agree = _exact_common(method, *arrays[3:])
         tests = [GroupTest(method=method, test=name, statistic=math.nan, df=float(len(used) - 1),
@@ -1388,10 +1570,18 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
             lo, hi = _profile_interval(method, axis_res["fit"], confidence, crit)
             b, ci = float(axis_res["b"][0]), ConfidenceInterval(lo, hi)
             se = float(np.sqrt(axis_res["var_b"][0]))
+            state = _profile_state(axis_res["fit"], *arrays[3:])
+            if boot:
+                boot_profile = np.asarray(axis_res["boot_profile"][:, 0], dtype=float)
         tests = _run_tests(method, arrays, axis_res, p_method, b)
         if method == "ols" and _ols_tests(*arrays)["exact"]:
             notes.append(f"{EXACT_NOTE} in every group: the slope and elevation tests "
                          "need residual scatter and are not made (NaN)")
+    tests = [replace(t, common_slope_low=ci.low, common_slope_high=ci.high) for t in tests]
+    common_fit = CommonSlope(method=method, slope=b, slope_ci=ci, slope_se=se,
+                             n_groups=len(used), n=int(np.sum(n)), confidence=confidence,
+                             groups=common["groups"], df_resid=float(np.sum(n) - len(used) - 1),
+                             profile=state, boot_profile=boot_profile)
     if method == "sma":
         sign = np.sign(np.sum(arrays[5]))
         other = [labels[i] for i in used if np.sign(m.sxy[i]) not in (0, sign)]
@@ -1432,7 +1622,8 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     return GroupComparison(**common, common_slope=b, common_slope_ci=ci,
                            common_slope_se=se, tests=tuple(tests),
                            pairwise=tuple(pairwise), pairwise_max=pairwise_max,
-                           pairwise_skipped=pairwise_skipped, note="; ".join(notes))
+                           pairwise_skipped=pairwise_skipped, note="; ".join(notes),
+                           common=common_fit)
 
 
 def _exact_common(method, sxx, syy, sxy):
@@ -1497,3 +1688,49 @@ def _pair_tests(method, pair_arrays, boot, rng) -> np.ndarray:
     out[:, :, 1] = res["df"]
     out[:, :, 2] = res["p_value"]
     return out
+
+
+def common_slope_rows(commons: dict, exponents: dict, *, log_base: str) -> tuple[list, list]:
+    """Rows of ``fits.csv`` and ``slope_tests.csv`` (scope ``common``) for common slopes.
+
+    Parameters
+    ----------
+    commons : dict
+        method -> :class:`CommonSlope` (from :attr:`GroupComparison.common`).
+    exponents : dict
+        Hypothesis name -> exponent.
+    log_base : str
+        The ``log_base`` label written in ``fits.csv``.
+
+    Returns
+    -------
+    fit_rows, test_rows : list of dict
+        ``n`` is the total number of points; the intercept columns are left
+        out (each group has its own elevation); ``note`` names the groups.
+    """
+    fit_rows, test_rows = [], []
+    for method, c in commons.items():
+        if c is None:
+            continue
+        names = ", ".join(map(str, c.groups))
+        if c.method == "ols":
+            how = "t"
+        elif c.boot_profile is not None:
+            how = f"profile_likelihood_bootstrap({c.boot_profile.size})"
+        else:
+            how = "profile_likelihood"
+        fit_rows.append({
+            "scope": "common", "group": "", "method": method, "n": c.n, "slope": c.slope,
+            "slope_low": c.slope_ci.low, "slope_high": c.slope_ci.high,
+            "log_base": log_base, "confidence": c.confidence, "slope_se": c.slope_se,
+            "note": f"common within-group slope of {c.n_groups} groups ({names}); "
+                    "each group keeps its own elevation",
+            "interval_method": how})
+        for name, b0 in exponents.items():
+            t = c.test_slope(b0, hypothesis=name)
+            test_rows.append({"scope": "common", "group": "", "method": method,
+                              "hypothesis": name, "exponent": t.exponent,
+                              "estimate": t.estimate, "statistic": t.statistic,
+                              "statistic_type": t.statistic_type, "df": t.df,
+                              "p_value": t.p_value})
+    return fit_rows, test_rows

@@ -26,7 +26,8 @@ from .config import Config, config_from_dict, load_config
 from .data import CleanData, load_data
 from .display import frame_html, short_repr
 from .errors import DataError, ScalingWarning
-from .lines import MIN_N, parse_log_base
+from .groups import common_slope_rows
+from .lines import MIN_N, base_label, parse_log_base
 from .moments import group_moments, moments
 from .output import check_out_dir, file_sha256, json_safe, results_document, versions, \
     write_outputs
@@ -212,12 +213,17 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         point_sets[("group", g)] = group_rows[g]
 
     g_messages: list[str] = []
+    common_test_rows: list = []
     if data.has_groups:
         group_rows, group_fits, means_points, g_tables, g_messages, g_notes = \
             group_stage(pts, cfg, base)
         rows += group_rows
         line_fits.update(group_fits)
         tables.update(g_tables)
+        # scope "common": the common within-group slope of each compared method
+        common_fit_rows, common_test_rows = common_slope_rows(
+            tables.get("_common_slopes", {}), cfg.exponents, log_base=base_label(base))
+        rows += common_fit_rows
         notes += g_notes
         if means_points is not None:
             point_sets[("group_means", "")] = means_points
@@ -231,6 +237,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
 
     fits = pd.DataFrame([blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
     slope_tests = make_slope_tests(line_fits, cfg)
+    if common_test_rows:
+        slope_tests = pd.concat([slope_tests, pd.DataFrame(common_test_rows,
+                                 columns=SLOPE_TEST_COLUMNS)], ignore_index=True)
 
     # Prediction stage: accuracy and correction factors per fit, then predictions.
     saved, extra_cols = accuracy_and_factors(line_fits, point_sets)

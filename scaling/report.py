@@ -312,6 +312,15 @@ def _fits_display(result) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def _headline_section(head) -> Section:
+    """The answer first: at most three sentences, then the per-group verdicts."""
+    blocks = [Block(kind="p", text=" ".join(head.sentences))]
+    if head.group_table is not None and len(head.group_table):
+        blocks.append(Block(kind="table", frame=head.group_table,
+                            name=f"{method_label(head.primary)} exponent of each group"))
+    return Section(title="Answer", blocks=blocks, anchor="answer")
+
+
 def build_report(result, folder: Path | None = None, written=()) -> list:
     """The report's content as a list of :class:`Section` (no escaping, no rounding)."""
     folder = Path(folder) if folder is not None else Path(".")
@@ -322,8 +331,12 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
               if not str(k).startswith("_") and isinstance(v, pd.DataFrame)}
     sections = []
 
-    summary = [Block(kind="ul", items=tuple(m.strip() for m in result.messages))] \
-        if result.messages else []
+    from .headline import headline_of
+    head = headline_of(result)
+    sections.append(_headline_section(head))
+    # the per-method exponent-test bullets are replaced by the one exponent table
+    messages = tuple(m.strip() for m in result.messages if not m.startswith("  The "))
+    summary = [Block(kind="ul", items=messages)] if messages else []
     if result.warnings:
         summary.append(Block(kind="p", text="Points to check:"))
         summary.append(Block(kind="ul", items=tuple(result.warnings)))
@@ -341,14 +354,10 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
     sections.append(Section(title="Fits", blocks=fit_blocks, anchor="fits"))
 
     sentences = _slope_sentences(result)
-    main = tuple(t for scope, t in sentences if scope != "group")
-    per_group = tuple(t for scope, t in sentences if scope == "group")
     test_blocks = []
-    if main:
-        test_blocks.append(Block(kind="ul", items=main))
-    if per_group:
-        test_blocks.append(Block(kind="details", items=per_group,
-                                 text=f"Tests of each group's exponent ({len(per_group)})"))
+    if sentences:   # one table of exponent tests (fit x hypothesis) instead of bullets
+        test_blocks.append(Block(kind="table", frame=head.exponent_table,
+                                 name="exponent tests (every fit in slope_tests.csv)"))
     if not sentences:
         test_blocks.append(Block(kind="p", text="No hypothesised exponents were given."))
     if result.slope_tests is not None and len(result.slope_tests):
@@ -361,7 +370,14 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
             _group_test_sentences(tables["group_tests"], 1 - conf))))
         group_blocks.append(Block(kind="table", frame=tables["group_tests"],
                                   name="group_tests"))
-    for name, intro in (("pairwise_tests", "Pairwise comparisons:"),
+    for test, matrix in head.matrices.items():
+        group_blocks.append(Block(kind="p", text=(
+            f"Pairwise {test.replace('_', ' ')} ({method_label(head.primary)}): "
+            f"Holm-adjusted p, * where p <= {1 - conf:g}; every pair and method in "
+            "pairwise_tests.csv.")))
+        group_blocks.append(Block(kind="table", frame=matrix.reset_index(),
+                                  name=f"pairwise {test}"))
+    for name, intro in (("pairwise_tests", "Every pair, test and method:"),
                         ("group_means", "Group means on the log scale:")):
         if name in tables:
             group_blocks.append(Block(kind="p", text=intro))
@@ -612,8 +628,18 @@ def markdown_escape(text) -> str:
     return _MD_SPECIAL.sub(r"\\\1", text)
 
 
+#: summary.md shows tables up to this many rows; longer ones are linked to their CSV
+#: (report.html shows them all, folded).
+MD_MAX_ROWS = 20
+
+
 def _md_table(block: Block) -> str:
     frame = block.frame
+    if len(frame) > MD_MAX_ROWS:
+        where = (f"[{block.name}.csv]({block.name}.csv)" if re.fullmatch(r"\w+", block.name)
+                 else "report.html")
+        return (f"*{markdown_escape(block.name)}*: {len(frame)} rows, in {where} "
+                "(and in report.html).")
     cols = [str(c) for c in frame.columns]
     lines = ["| " + " | ".join(markdown_escape(c) for c in cols) + " |",
              "|" + "|".join("---:" if _is_num_column(frame[c]) else "---"

@@ -161,7 +161,7 @@ DROPPED_COLUMNS = ["row", "reason"]
 #: group_means.csv; ``n_rows`` is added when rows were averaged within units.
 GROUP_MEANS_COLUMNS = ["group", "n", "mean_log_x", "mean_log_y", "se_log_x", "se_log_y"]
 GROUP_TEST_COLUMNS = ["method", "test", "statistic", "df", "df_resid", "p_value",
-                      "p_method", "common_slope"]
+                      "p_method", "common_slope", "common_slope_low", "common_slope_high"]
 PAIRWISE_COLUMNS = ["method", "test", "group_a", "group_b", "statistic", "df",
                     "p_value", "p_adjusted"]
 PREDICTION_COLUMNS = ["scope", "group", "method", "x", "y", "y_low", "y_high", "interval",

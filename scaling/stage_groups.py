@@ -86,7 +86,7 @@ def group_stage(pts: pd.DataFrame, cfg, base):
                 comp = compare_groups(data, "x", "y", "group", method=method,
                                       confidence=cfg.model.confidence, log_base=base,
                                       pairwise_max=cfg.groups.pairwise_max)
-            summary = comp.summary().replace(f"{len(comp.groups)} group groups",
+            summary = comp.summary(list_pairs=False).replace(f"{len(comp.groups)} group groups",
                                              f"{len(comp.groups)} {cfg.data.group} groups")
             summary = summary.replace(" group groups", f" {cfg.data.group} groups")
             summary = summary.replace("exceed pairwise_max", "exceed groups.pairwise_max")
@@ -96,6 +96,7 @@ def group_stage(pts: pd.DataFrame, cfg, base):
             if comp.compared:
                 test_frames.append(comp.to_frame())
                 pair_frames.append(comp.pairwise_frame())
+                g_tables.setdefault("_common_slopes", {})[method] = comp.common
         if uncompared:
             messages.append(uncompared_message(uncompared))
         g_tables["group_tests"] = pd.concat(test_frames, ignore_index=True) if test_frames \

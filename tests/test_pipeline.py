@@ -131,6 +131,7 @@ class TestRunFiles:
     def test_diagnostics_cover_every_fit(self, demo):
         diag = _read(demo / "diagnostics.csv")
         fits = _read(demo / "fits.csv")
+        fits = fits[fits["scope"] != "common"]   # the common slope has no residual checks
         keys = {tuple(k) for k in fits[["scope", "group", "method"]].to_numpy()}
         assert {tuple(k) for k in diag[["scope", "group", "method"]].to_numpy()} == keys
         assert set(diag["check"]) == {"normality", "constant_variance", "curvature", "influence"}
@@ -351,7 +352,9 @@ class TestPermutationColumn:
     def test_every_slope_test_has_a_permutation_p_value(self, demo):
         # Smoke test on the demo run: robust lines included.
         tests = _read(demo / "slope_tests.csv")
-        assert tests["p_permutation"].astype(float).notna().all()
+        common = tests["scope"] == "common"      # no permutation test of the common slope
+        assert tests.loc[~common, "p_permutation"].astype(float).notna().all()
+        assert tests.loc[common, "p_permutation"].astype(float).isna().all()
 
 
 class TestRobustAndDeming:

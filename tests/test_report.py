@@ -183,11 +183,17 @@ class TestWriteReport:
         fit = script_run.fit("sma")
         t = fit.test_slope(2 / 3)
         side = "above" if fit.slope > 2 / 3 else "below"
-        expected = (f"Pooled: the SMA exponent {fit.slope:.3f} (95% CI "
-                    f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}) ")
-        assert html.escape(expected) in text
-        if t.p_value < 0.05:
-            assert f"is {side} 2/3 (two_thirds)" in text
+        # the exponent tests are one table (fit x hypothesis), not one bullet per test
+        from scaling.headline import headline_of
+        head = headline_of(script_run)
+        row = head.exponent_table.query("line == 'pooled' and method == 'SMA'").iloc[0]
+        assert row["exponent"] == fit.slope          # internal consistency
+        assert html.escape(row["vs 2/3"]) in text
+        assert row["vs 2/3"].startswith(side if t.p_value < 0.05 else "not different")
+        assert "Pooled: the SMA exponent" not in text
+        # the answer opens the report, before the summary
+        assert 0 <= text.index('<section id="answer">') < text.index('<section id="summary">')
+        assert html.escape(head.sentences[0]) in text
         assert script_run.manifest["input_sha256"] in text
         assert "three_quarters: 0.75" in text                   # config as YAML
         assert "SMA slopes equal: consistent with a common slope" in text
@@ -220,7 +226,7 @@ class TestBuildReport:
         titles = [s.title for s in build_report(script_run, script_run.out_dir,
                                                 list(p.relative_to(script_run.out_dir)
                                                      for p in script_run.files))]
-        assert titles[:4] == ["Summary", "Data", "Figures", "Fits"]
+        assert titles[:5] == ["Answer", "Summary", "Data", "Figures", "Fits"]
         assert titles[-3:] == ["Cautions", "Files", "Manifest"]
         assert "Group comparisons" in titles and "Predictions" in titles
 

@@ -1,0 +1,161 @@
+"""The headline: which line answers the question, in at most three sentences.
+
+Seeded simulations with a known truth (RULES.md 2) and the demo (its truth is
+stated in demo_data/make_demo.py: common within-clade exponent 0.72, clades at
+different elevations).
+"""
+from __future__ import annotations
+
+import re
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from scaling.config import config_from_dict, load_config
+from scaling.errors import ConfigError
+from scaling.headline import build_headline, exponent_words, headline_of, primary_method
+from scaling.pipeline import analyse, write_outputs
+
+ROOT = Path(__file__).resolve().parents[1]
+VERDICT = r"(is above|is below|does not differ detectably from)"
+
+
+def _run(tmp_path, table: pd.DataFrame, group: bool = True, **model):
+    path = tmp_path / "sim.csv"
+    table.to_csv(path, index=False)
+    data = {"file": str(path), "x": "mass", "y": "rate"}
+    if group:
+        data["group"] = "taxon"
+    cfg = config_from_dict({"data": data, "model": {"methods": ["ols", "sma"], **model},
+                            "exponents": {"three_quarters": "3/4", "two_thirds": "2/3"},
+                            "diagnostics": {"enabled": False},
+                            "output": {"dir": str(tmp_path / "out")}}, base_dir=tmp_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return analyse(cfg)
+
+
+def _groups(seed, slopes, x_centres, elevations, n=30, sd=0.05):
+    """Groups on y = 10^e_i x^b_i with log-normal scatter (known truth)."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for i, (b, c, e) in enumerate(zip(slopes, x_centres, elevations)):
+        lx = c + rng.uniform(-0.6, 0.6, n)
+        ly = e + b * lx + rng.normal(0, sd, n)
+        rows.append(pd.DataFrame({"taxon": f"t{i}", "mass": 10 ** lx, "rate": 10 ** ly}))
+    return pd.concat(rows, ignore_index=True)
+
+
+class TestPrimaryMethod:
+    def test_first_symmetric_else_ols(self):
+        assert primary_method(["ols", "ma", "sma"]) == "ma"      # first symmetric requested
+        assert primary_method(["ols", "theil_sen"]) == "ols"
+        assert primary_method(["theil_sen", "siegel"]) == "theil_sen"
+        assert primary_method(["ols", "sma"], "ols") == "ols"    # config wins
+
+    def test_config_key(self, tmp_path):
+        raw = {"data": {"file": "d.csv", "x": "a", "y": "b"},
+               "model": {"methods": ["ols", "ma", "sma"]}}
+        assert config_from_dict(raw, base_dir=tmp_path).model.primary == "ma"
+        raw["model"]["primary"] = "ols"
+        assert config_from_dict(raw, base_dir=tmp_path).model.primary == "ols"
+        raw["model"]["primary"] = "deming"
+        with pytest.raises(ConfigError, match=r"model\.primary: 'deming' is not one of "
+                                              r"model\.methods \(ols, ma, sma\)"):
+            config_from_dict(raw, base_dir=tmp_path)
+
+
+class TestExponentWords:
+    def test_fractions(self):
+        assert exponent_words("three_quarters", 0.75) == "3/4"
+        assert exponent_words("x", 2 / 3) == "2/3"
+        assert exponent_words("x", 0.8) == "0.8"
+
+
+class TestBuildHeadline:
+    def test_one_group_gives_the_exponent_and_its_tests(self, tmp_path):
+        table = _groups(1, [0.75], [1.0], [0.3], n=40).drop(columns="taxon")
+        head = headline_of(_run(tmp_path, table, group=False))
+        assert head.line == "pooled" and head.primary == "sma"
+        assert len(head.sentences) == 2
+        assert head.sentences[0].startswith("The SMA exponent is 0.7")   # known truth 0.75
+        assert re.search(VERDICT + r" 3/4 \(p", head.sentences[1])
+        assert re.search(VERDICT + r" 2/3 \(p", head.sentences[1])
+        assert head.group_table is None and head.matrices == {}
+
+    def test_common_slope_with_elevation_shifts_names_the_biased_pooled_line(self, tmp_path):
+        # known truth: slope 0.75 in every group; groups further right sit lower, so the
+        # pooled line through all points is flatter than the within-group slope
+        table = _groups(2, [0.75] * 4, [0.0, 1.0, 2.0, 3.0], [0.0, -0.3, -0.6, -0.9])
+        res = _run(tmp_path, table)
+        head = headline_of(res)
+        assert head.line == "common" and len(head.sentences) == 3
+        common = res.fits.query("scope == 'common' and method == 'sma'").iloc[0]
+        pooled = res.fits.query("scope == 'pooled' and method == 'sma'").iloc[0]
+        assert common["slope_low"] <= 0.75 <= common["slope_high"]   # known truth 0.75
+        assert pooled["slope"] < common["slope_low"]                 # the pooled line is biased
+        s1, s2, s3 = head.sentences
+        assert s1.startswith(f"Within taxons, the common SMA exponent is {common['slope']:.3f} "
+                             f"(95% CI {common['slope_low']:.3f}–{common['slope_high']:.3f}")
+        assert re.search(VERDICT + r" 3/4", s2) and re.search(VERDICT + r" 2/3", s2)
+        assert "differ in elevation" in s3
+        assert "mixes taxons and understates the within-taxon exponent" in s3
+
+    def test_slopes_that_differ_give_a_per_group_table(self, tmp_path):
+        # known truth: slopes 0.5, 0.75 and 1.0
+        table = _groups(3, [0.5, 0.75, 1.0], [1.0, 1.0, 1.0], [0.0, 0.0, 0.0])
+        head = headline_of(_run(tmp_path, table))
+        assert head.line == "groups"
+        assert head.sentences[0].startswith("The taxons do not share one exponent")
+        assert len(head.sentences) <= 3
+        g = head.group_table
+        assert list(g["taxon"]) == ["t0", "t1", "t2"]
+        np.testing.assert_allclose(g["exponent"], [0.5, 0.75, 1.0], atol=0.05)  # known truth
+        assert {"vs 3/4", "vs 2/3"} <= set(g.columns)
+        assert "slopes_equal" in head.matrices                   # the pairs, as a matrix
+        assert head.matrices["slopes_equal"].shape == (2, 2)
+
+    def test_invented_tables_without_group_tests(self):
+        fits = pd.DataFrame({"scope": ["pooled"], "group": [""], "method": ["ols"], "n": [10],
+                             "slope": [0.7], "slope_low": [0.6], "slope_high": [0.8]})
+        tests = pd.DataFrame({"scope": ["pooled"], "group": [""], "method": ["ols"],
+                              "hypothesis": ["k"], "exponent": [0.75], "estimate": [0.7],
+                              "p_value": [0.3]})
+        head = build_headline(fits, tests, methods=["ols"])
+        assert head.sentences == ("The OLS exponent is 0.700 (95% CI 0.600–0.800, n = 10).",
+                                  "It does not differ detectably from 3/4 (p = 0.300).")
+        assert head.exponent_table.loc[0, "vs 3/4"] == "not different (p = 0.300)"
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    """The demo run, written without figures (figures are not part of these checks)."""
+    from dataclasses import replace
+    cfg = load_config(ROOT / "configs" / "demo.yaml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = analyse(cfg)
+        res = replace(res, config=replace(cfg, figures=replace(cfg.figures, formats=())))
+        return write_outputs(res, tmp_path_factory.mktemp("demo") / "out")
+
+
+class TestDemoHeadline:
+    def test_first_sentences_give_the_common_exponent_and_the_pooled_bias(self, demo):
+        head = headline_of(demo)
+        s1, s2, s3 = head.sentences
+        m = re.search(r"common SMA exponent is (\d\.\d+) \(95% CI (\d\.\d+)–(\d\.\d+)", s1)
+        assert m and s1.startswith("Within clades")
+        low, high = float(m.group(2)), float(m.group(3))
+        assert low <= 0.72 <= high          # known truth of the demo (make_demo.py): 0.72
+        assert re.search(VERDICT + r" 3/4 \(p", s2) and re.search(VERDICT + r" 2/3 \(p", s2)
+        assert "pooled line" in s3 and "understates the within-clade exponent" in s3
+
+    def test_summary_opens_with_the_answer_and_is_small(self, demo):
+        md = (demo.out_dir / "summary.md").read_text(encoding="utf-8")
+        assert len(md.encode()) < 20_000
+        assert md.index("## Answer") < md.index("## Summary")
+        assert "Within clades, the common SMA exponent" in md
+        assert "Pairs that differ (Holm-adjusted):" not in md    # matrices instead
