@@ -326,6 +326,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         tables.update(d_tables)
         messages += d_messages
     messages += _line_method_messages(line_fits, cfg)
+    from .checking import check_run   # graded points to check: strong warnings first
+    tables["points_to_check"], check_notes = check_run(cfg, line_fits, point_sets, fits, tables)
+    notes = check_notes + notes
 
     # Resampling stage: bootstrap intervals and permutation p-values.
     resampling_manifest = _resampling_manifest(cfg, row_methods, data)
