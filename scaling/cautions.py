@@ -69,12 +69,14 @@ def range_words(ratio: float) -> str:
 
 
 def range_warning(n_out: int, n_all: int, lo: float, hi: float, worst: float,
-                  what: str = "predictions") -> str:
+                  what: str = "predictions", role: str = "x") -> str:
     """The extrapolation warning, stating the fitted range."""
-    strong = (" Beyond about 2× the range, treat them as guesses: the power law may not "
-              "hold there." if worst > 2 else "")
-    return (f"{n_out} of {n_all} {what} lie outside the fitted x range {_g(lo)}–{_g(hi)} "
-            f"(up to {worst:.3g}× beyond it; range_ratio in the table).{strong}")
+    strong = (f" Beyond about 2× the range they are guesses, not estimates: the power law "
+              "may not hold there." if worst > 2 else "")
+    return (f"{n_out} of {n_all} {what} lie outside the fitted {role} range "
+            f"({_g(lo)}–{_g(hi)}{' for the widest fit' if what else ''}; each fit's own "
+            f"range applies), up to {worst:.3g}× beyond it: extrapolations, flagged with "
+            f"range_ratio > 1.{strong}")
 
 
 def medians_vs_means() -> str:

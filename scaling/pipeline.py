@@ -300,7 +300,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     # Prediction stage: accuracy and correction factors per fit, then predictions.
     saved, extra_cols = _accuracy_and_factors(line_fits, point_sets)
     fits = _add_columns(fits, extra_cols)
-    pred_tables, pred_notes = _predictions(line_fits, saved, cfg)
+    from .predicting import prediction_fits   # which lines predict (default OLS)
+    predicting, pred_notes0 = prediction_fits(saved, cfg)
+    pred_tables, pred_notes = _predictions(line_fits, predicting, cfg)
+    pred_notes = pred_notes0 + pred_notes
     tables.update(pred_tables)
     notes += pred_notes
     tables["_saved_fits"] = saved
@@ -632,26 +635,18 @@ def _predictions(line_fits: dict, saved: dict, cfg: Config):
         table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS] if rows else \
             pd.DataFrame(columns=PREDICTION_COLUMNS)
         tables["predictions"] = table
-        n_ext = int(table["extrapolated"].sum()) if len(table) else 0
-        if n_ext:
-            ext = table[table["extrapolated"]]
-            by_scope = ext.groupby("scope", sort=False)["x"].agg(lambda v: sorted(set(v)))
-            parts = []
-            for scope, xs in by_scope.items():
-                what = {"pooled": "pooled fits", "group": "group fits",
-                        "group_means": "lines through group means"}.get(scope, scope)
-                parts.append(f"{what}: x = {', '.join(f'{v:g}' for v in xs)}")
-            notes.append(f"{n_ext} of {len(table)} predictions lie outside the x range of the "
-                         f"fit that made them ({'; '.join(parts)}); they are extrapolations, "
-                         "flagged in predictions.csv; treat them with caution.")
+        from .predicting import add_range_ratio
+        table, range_notes = add_range_ratio(table, saved, "x")
+        tables["predictions"] = table
+        notes += range_notes
     if pc.y:
         table = pd.concat(inv_rows, ignore_index=True)[INVERSE_COLUMNS] if inv_rows else \
             pd.DataFrame(columns=INVERSE_COLUMNS)
         tables["inverse_predictions"] = table
-        n_ext = int(table["extrapolated"].sum()) if len(table) else 0
-        if n_ext:
-            notes.append(f"{n_ext} inverse predictions use y outside the fitted y range "
-                         "(extrapolations).")
+        from .predicting import add_range_ratio
+        table, range_notes = add_range_ratio(table, saved, "y")
+        tables["inverse_predictions"] = table
+        notes += range_notes
         if unbounded:
             notes.append(_unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
     return tables, notes
