@@ -787,7 +787,8 @@ def _diagnostics_stage(line_fits: dict, point_sets: dict, cfg: Config, base, dat
                         f"{where}. One exponent summarises these data only roughly; see "
                         "curvature.csv.")
     else:
-        messages.append(f"Power law: {curv.verdict}, so a single exponent describes the data.")
+        from .cautions import curvature_ok
+        messages.append(curvature_ok(curv.verdict))
     g_curved = [(g, d.check("curvature").p_value) for (s, g, m), d in results.items()
                 if s == "group" and m == pooled.method and d.check("curvature").flagged]
     n_groups = sum(1 for (s, g, m) in results if s == "group" and m == pooled.method)

@@ -204,6 +204,15 @@ class TestWriteReport:
         assert "excluded: clade is 'outgroup'" in body
         assert "Ridgeback (n = 8)" in body
 
+    def test_cautions_where_numbers_are_used(self, demo_run):
+        text = (demo_run.out_dir / "report.html").read_text(encoding="utf-8")
+        assert "an allometric fit is not a dose" in text
+        assert "median y at a given x" in text
+        assert "does not by itself confirm a mechanism" in text
+        assert "phylogenetic correction" in text            # the demo has groups
+        assert "a new species mean" in text                 # average_within: species
+        assert "+00:00" not in text and " UTC" in text
+
     def test_long_tables_folded_but_predictions_open(self, demo_run):
         import re
         from scaling.report import FOLD_ROWS
