@@ -23,6 +23,7 @@ from __future__ import annotations
 import functools
 import math
 import textwrap
+import warnings
 from fractions import Fraction
 from pathlib import Path
 
@@ -418,6 +419,41 @@ def _factor_of(result, scope: str, group: str, method: str) -> dict:
     return {"factor": float(row[col].iloc[0]), "correction": kind}
 
 
+def _common_slope_fit(result, method: str):
+    """The common within-group slope of ``method`` (object with ``slope``, ``slope_ci``),
+    or None: from the run's fits (scope ``common``) when present, else estimated from
+    the points when groups are compared (OLS, SMA, MA)."""
+    fit = result.line_fits.get(("common", "", method))
+    if fit is not None:
+        return fit
+    cfg = result.config
+    pts = result.data.points
+    if not (cfg.groups.compare and "group" in pts.columns) or method not in ("ols", "sma", "ma"):
+        return None
+    from .errors import ScalingError
+    from .groups import common_slope
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fit = common_slope(pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float),
+                               pts["group"].astype(str).to_numpy(), method=method,
+                               confidence=cfg.model.confidence)
+    except ScalingError:
+        return None
+    return fit if np.isfinite(fit.slope) else None
+
+
+def _group_line(fit, xs, common, means) -> np.ndarray:
+    """Log-scale fitted values of one group's line at ``xs``: through the group's own
+    mean with the common slope when ``common`` is given, else the group's own line."""
+    if common is None or means is None:
+        return _fit_band(fit, xs)[0]
+    mx, my = means
+    base = fit.log_base
+    X = np.asarray(xs, dtype=float) if base is None else np.log(xs) / np.log(base)
+    return my + common.slope * (X - mx)
+
+
 def _exponent_label(value: float) -> str:
     """A hypothesised exponent as a small fraction where it is one (0.75 -> 3/4)."""
     frac = Fraction(value).limit_denominator(12)
@@ -565,6 +601,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         gmethod = _primary_method(methods, result) if group_lines == "auto" else str(group_lines)
         drawn = False
         segments, seg_colours = [], []
+        common = _common_slope_fit(result, gmethod)
+        means_of = {} if common is None or gm is None else {
+            str(r.group): (r.mean_log_x, r.mean_log_y) for r in gm.itertuples(index=False)}
         for i, g in enumerate(groups):
             fit = result.line_fits.get(("group", g, gmethod))
             if fit is None:
@@ -573,13 +612,13 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
             if len(groups) > LEGEND_MAX_GROUPS:
                 # a straight line on log-log axes: its two ends suffice
                 xs = np.array([lo, hi])
-                fitted, _, _ = _fit_band(fit, xs)
+                fitted = _group_line(fit, xs, common, means_of.get(g))
                 segments.append(np.column_stack([xs, _unlog(fitted, base)]))
                 seg_colours.append(_group_style(i)[0])
                 drawn = True
                 continue
             xs = np.geomspace(lo, hi, 40)
-            fitted, _, _ = _fit_band(fit, xs)
+            fitted = _group_line(fit, xs, common, means_of.get(g))
             ax.plot(xs, _unlog(fitted, base), color=_group_style(i)[0], lw=0.9,
                     ls=METHOD_DASHES.get(gmethod, "-"), zorder=3)
             drawn = True
@@ -591,7 +630,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         if drawn:
             handles.append(Line2D([], [], color="#888888", lw=0.9,
                                   ls=METHOD_DASHES.get(gmethod, "-"),
-                                  label=f"{method_label(gmethod)} line per group"))
+                                  label=(f"{method_label(gmethod)} common slope in each group"
+                                         if common is not None else
+                                         f"{method_label(gmethod)} line per group")))
 
     # main lines with bands
     eq_lines = []
@@ -815,6 +856,9 @@ def _exponent_rows(result, methods) -> list:
     if len(groups) <= LEGEND_MAX_GROUPS:   # above: no row per group (see plot_exponents)
         fitted = {k[1] for k in keys if k[0] == "group"}
         rows += [(g, "group", g) for g in groups if g in fitted]
+    if len(groups) > 1 and any(_common_slope_fit(result, m) is not None
+                               for m in (methods or ())):
+        rows.append(("Common slope within groups", "common", ""))
     if any(k[0] == "group_means" for k in keys):
         rows.append(("Through group means", "group_means", ""))
     return rows
@@ -854,7 +898,8 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         marker = METHOD_MARKERS.get(method, MARKERS[j % len(MARKERS)])
         any_drawn = False
         for i, (_label_text, scope, group) in enumerate(rows):
-            fit = result.line_fits.get((scope, group, method))
+            fit = (_common_slope_fit(result, method) if scope == "common"
+                   else result.line_fits.get((scope, group, method)))
             if fit is None:
                 continue
             y = i + offsets[j]

@@ -262,9 +262,12 @@ class TestPlotExponents:
         ax = plot_exponents(grouped)
         whiskers = [ln for ln in ax.lines if len(ln.get_xdata()) == 2
                     and ln.get_ydata()[0] == ln.get_ydata()[1]]
-        expected = sorted((f.slope_ci.low, f.slope_ci.high) for f in grouped.line_fits.values())
+        from scaling.figures import _common_slope_fit
+        common = [_common_slope_fit(grouped, m) for m in ("ols", "sma", "ma")]
+        expected = sorted([(f.slope_ci.low, f.slope_ci.high) for f in grouped.line_fits.values()]
+                          + [(c.slope_ci.low, c.slope_ci.high) for c in common])
         got = sorted((float(ln.get_xdata()[0]), float(ln.get_xdata()[1])) for ln in whiskers)
-        # expected: the fits' own intervals, one whisker per fit
+        # expected: the fits' own intervals, one whisker per fit, and the common-slope row
         assert_allclose(got, expected, rtol=1e-12)
         refs = sorted(float(ln.get_xdata()[0]) for ln in ax.lines
                       if len(ln.get_xdata()) == 2 and ln.get_xdata()[0] == ln.get_xdata()[1])
@@ -365,3 +368,20 @@ class TestReadableFigures:
                                           figures=replace(cfg.figures, labels={})))
         assert _label(res, "x") == "mass (kg)"
         assert _label(res, "y") == "rate (W)"
+
+    def test_common_slope_row_and_lines(self, grouped):
+        from scaling.groups import common_slope
+        ax = plot_exponents(grouped)
+        labels = [t.get_text().replace("\n", " ") for t in ax.get_yticklabels()]
+        assert "Common slope within groups" in labels
+        pts = grouped.data.points
+        ref = common_slope(pts["log_x"], pts["log_y"], pts["group"].astype(str),
+                           method="sma")
+        row = labels.index("Common slope within groups")
+        dots = [ln for ln in ax.lines if len(ln.get_xdata()) == 1
+                and abs(ln.get_ydata()[0] - row) < 0.4]
+        # internal consistency: the row shows groups.common_slope's SMA estimate
+        assert any(abs(d.get_xdata()[0] - ref.slope) < 1e-12 for d in dots)
+        ax = plot_scaling(grouped)
+        texts = [t.get_text() for lg in ax.figure.legends for t in lg.get_texts()]
+        assert "SMA common slope in each group" in texts
