@@ -836,7 +836,9 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     ax.set_xlabel(_label(result, "x"))
     ax.set_ylabel(_label(result, "y"))
     if own:
-        _figure_legend(ax.figure, handles, 3 if len(handles) > 4 else 2, handlelength=2.6)
+        _figure_legend(ax.figure, handles, 3 if len(handles) > 4 else 2, handlelength=2.0,
+                       columnspacing=0.8, handletextpad=0.4,
+                       fontsize=STYLE["font.size"] - 1)   # about a quarter of the height
     else:
         ax.legend(handles=handles, loc="best")
     return ax
