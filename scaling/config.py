@@ -79,6 +79,7 @@ class PredictionConfig:
     y: tuple = ()            # inverse prediction: x from these y values
     correction: str = "smearing"
     interval: str = "prediction"
+    methods: tuple = ()      # lines that predict; () = OLS (else the first method fitted)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -412,6 +413,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "y": (_positive_numbers, ()),
         "correction": (_choice(CORRECTIONS), "smearing"),
         "interval": (_choice(INTERVALS), "prediction"),
+        "methods": (_list_of(_method, noun="method"), ()),
     },
     "figures": {
         "formats": (_list_of(_choice(FIGURE_FORMATS)), ("png",)),

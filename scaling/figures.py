@@ -60,6 +60,7 @@ MAX_EQUATIONS = 3
 #: Above this many groups figures list no group in the legend (one entry says
 #: so) and draw the groups in a few batched artists instead of one per group.
 LEGEND_MAX_GROUPS = 12
+PAGE_HEIGHT = 9.0        # inches: an A4 or letter page less its margins
 MM = 1 / 25.4
 SIZES = {"single": 85 * MM, "double": 180 * MM}
 KINDS = FIGURE_KINDS
@@ -182,8 +183,8 @@ class NaturalLogFormatter(Formatter):
 def natural_log_axis(ax, which: str = "both") -> None:
     """Log scale on ``ax`` with natural-unit major tick labels and minor ticks.
 
-    Spans under about 1.5 decades get majors at 1, 2, 5 x 10^k so that at
-    least three ticks are labelled; wide spans get every decade (or every
+    Spans under two decades get majors at 1, 2, 5 x 10^k (2, 5, 20, 50 ...)
+    so that intermediate values are labelled; wide spans get every decade (or every
     2nd, 3rd ... decade when more than ~8 decades are shown).
     """
     names = ("x", "y") if which == "both" else (which,)
@@ -193,7 +194,7 @@ def natural_log_axis(ax, which: str = "both") -> None:
         lo, hi = sorted(getattr(ax, f"get_{name}lim")())
         # difference of logs, not log of the ratio: hi / lo overflows for 1e-300..1e300
         decades = math.log10(hi) - math.log10(lo) if lo > 0 and hi > 0 else 1.0
-        if decades < 1.5:
+        if decades < 2.0:
             axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0), numticks=12))
             axis.set_minor_locator(LogLocator(base=10, subs=np.arange(1, 10) * 1.0,
                                               numticks=40))
@@ -244,11 +245,25 @@ def _base(result) -> float:
 
 
 def _label(result, role: str) -> str:
-    """Axis label "name (unit)" from figures.labels, else the column name."""
+    """Axis label: figures.labels, else the column name in words; "(unit)" once.
+
+    Without ``figures.labels`` a unit already in the column name is not
+    repeated: ``mass_g`` with unit g reads "mass (g)", not "mass_g (g)".
+    """
     cfg = result.config
     labels = cfg.figures.labels or {}
-    name = labels.get(role) or (cfg.data.x if role == "x" else cfg.data.y)
     unit = (result.data.units or {}).get(role)
+    name = labels.get(role)
+    if not name:
+        name = str(cfg.data.x if role == "x" else cfg.data.y)
+        if unit:
+            for tail in (f"_{unit}", f" {unit}", f"({unit})", f"[{unit}]", f"_({unit})"):
+                if name.lower().endswith(tail.lower()) and len(name) > len(tail):
+                    name = name[: -len(tail)]
+                    break
+        name = name.replace("_", " ").strip()
+    if unit and f"({unit})" in str(name):
+        return str(name)
     return f"{name} ({unit})" if unit else str(name)
 
 
@@ -302,8 +317,15 @@ def _methods(result, methods) -> list:
     return list(methods) if methods else list(result.config.model.methods)
 
 
-def _primary_method(methods: list) -> str:
-    """The method whose per-group lines are drawn: SMA if present, else the first."""
+def _primary_method(methods: list, result=None) -> str:
+    """The method whose per-group lines are drawn: the run's primary method
+    (``model.primary``, else the first symmetric method, else OLS) when drawn,
+    else SMA if present, else the first."""
+    if result is not None:
+        from .checking import primary_method
+        chosen = primary_method(result.config)
+        if chosen in methods:
+            return chosen
     return "sma" if "sma" in methods else methods[0]
 
 
@@ -381,6 +403,54 @@ def _fit_xrange(fit, result):
     return float(x.min()), float(x.max())
 
 
+def _factor_of(result, scope: str, group: str, method: str) -> dict:
+    """The run's correction factor of one fit, for the equation box."""
+    kind = result.config.prediction.correction
+    col = f"{kind}_factor"
+    fits = result.fits
+    if kind == "none" or col not in fits:
+        return {}
+    row = fits[(fits["scope"] == scope) & (fits["group"] == group) & (fits["method"] == method)]
+    if not len(row):
+        return {}
+    return {"factor": float(row[col].iloc[0]), "correction": kind}
+
+
+def _common_slope_fit(result, method: str):
+    """The common within-group slope of ``method`` (object with ``slope``, ``slope_ci``),
+    or None: from the run's fits (scope ``common``) when present, else estimated from
+    the points when groups are compared (OLS, SMA, MA)."""
+    fit = result.line_fits.get(("common", "", method))
+    if fit is not None:
+        return fit
+    cfg = result.config
+    pts = result.data.points
+    if not (cfg.groups.compare and "group" in pts.columns) or method not in ("ols", "sma", "ma"):
+        return None
+    from .errors import ScalingError
+    from .groups import common_slope
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fit = common_slope(pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float),
+                               pts["group"].astype(str).to_numpy(), method=method,
+                               confidence=cfg.model.confidence)
+    except ScalingError:
+        return None
+    return fit if np.isfinite(fit.slope) else None
+
+
+def _group_line(fit, xs, common, means) -> np.ndarray:
+    """Log-scale fitted values of one group's line at ``xs``: through the group's own
+    mean with the common slope when ``common`` is given, else the group's own line."""
+    if common is None or means is None:
+        return _fit_band(fit, xs)[0]
+    mx, my = means
+    base = fit.log_base
+    X = np.asarray(xs, dtype=float) if base is None else np.log(xs) / np.log(base)
+    return my + common.slope * (X - mx)
+
+
 def _exponent_label(value: float) -> str:
     """A hypothesised exponent as a small fraction where it is one (0.75 -> 3/4)."""
     frac = Fraction(value).limit_denominator(12)
@@ -393,8 +463,13 @@ def _exponent_label(value: float) -> str:
 exponent_label = _exponent_label
 
 
-def equation_text(fit, *, digits: int = 3) -> str:
-    """The fitted line in natural units: ``y = a·x^b`` with b's interval (mathtext)."""
+def equation_text(fit, *, digits: int = 3, factor: float | None = None,
+                  correction: str = "") -> str:
+    """The fitted line in natural units: ``median y = a·x^b`` with b's interval (mathtext).
+
+    The back-transformed line gives the median of y; with ``factor`` (the
+    correction factor of ``correction``) the box also says mean = median × factor.
+    """
     a = fit.a
     pct = f"{100 * fit.confidence:g}%"
     lo, hi = fit.slope_ci.low, fit.slope_ci.high
@@ -404,8 +479,11 @@ def equation_text(fit, *, digits: int = 3) -> str:
         f"{a / 10 ** math.floor(math.log10(a)):.{digits - 1}f}" \
         f"\\times10^{{{math.floor(math.log10(a))}}}"
     a_text = a_text.replace(THIN, r"\,")
+    factor_text = ""
+    if factor is not None and np.isfinite(factor):
+        factor_text = f"\nline = median; mean = median × {factor:.3g}"
     return (f"{method_label(fit.method)}: $y = {a_text}\\,x^{{{fit.slope:.{digits}f}}}$ "
-            f"({ci})")
+            f"({ci}){factor_text}")
 
 
 # --------------------------------------------------------------------------
@@ -425,7 +503,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     ax : matplotlib Axes, optional
         Draw here; by default a new Figure of width ``size`` is made.
     methods : sequence of str, optional
-        Methods whose ``scope`` lines are drawn; defaults to the run's methods.
+        Methods whose ``scope`` lines are drawn; defaults to the run's primary
+        method (``model.primary``, else the first symmetric method, else OLS).
     scope : {"pooled", "group_means"}
         Which fit's lines carry the band and the equation.
     group_lines : "auto", method name, or False
@@ -455,6 +534,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         ax = _new_figure(size, 0.92).add_subplot()
     pts = result.data.points
     base = _base(result)
+    if methods is None:   # the primary method's line; other methods only when asked
+        drawn = list(result.config.model.methods)
+        methods = [_primary_method(drawn, result)] if drawn else drawn
     methods = _methods(result, methods)
     groups = _groups(result)
     handles: list = []
@@ -517,9 +599,12 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
 
     # per-group lines
     if len(groups) > 1 and group_lines:
-        gmethod = _primary_method(methods) if group_lines == "auto" else str(group_lines)
+        gmethod = _primary_method(methods, result) if group_lines == "auto" else str(group_lines)
         drawn = False
         segments, seg_colours = [], []
+        common = _common_slope_fit(result, gmethod)
+        means_of = {} if common is None or gm is None else {
+            str(r.group): (r.mean_log_x, r.mean_log_y) for r in gm.itertuples(index=False)}
         for i, g in enumerate(groups):
             fit = result.line_fits.get(("group", g, gmethod))
             if fit is None:
@@ -528,13 +613,13 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
             if len(groups) > LEGEND_MAX_GROUPS:
                 # a straight line on log-log axes: its two ends suffice
                 xs = np.array([lo, hi])
-                fitted, _, _ = _fit_band(fit, xs)
+                fitted = _group_line(fit, xs, common, means_of.get(g))
                 segments.append(np.column_stack([xs, _unlog(fitted, base)]))
                 seg_colours.append(_group_style(i)[0])
                 drawn = True
                 continue
             xs = np.geomspace(lo, hi, 40)
-            fitted, _, _ = _fit_band(fit, xs)
+            fitted = _group_line(fit, xs, common, means_of.get(g))
             ax.plot(xs, _unlog(fitted, base), color=_group_style(i)[0], lw=0.9,
                     ls=METHOD_DASHES.get(gmethod, "-"), zorder=3)
             drawn = True
@@ -546,7 +631,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         if drawn:
             handles.append(Line2D([], [], color="#888888", lw=0.9,
                                   ls=METHOD_DASHES.get(gmethod, "-"),
-                                  label=f"{method_label(gmethod)} line per group"))
+                                  label=(f"{method_label(gmethod)} common slope in each group"
+                                         if common is not None else
+                                         f"{method_label(gmethod)} line per group")))
 
     # main lines with bands
     eq_lines = []
@@ -574,7 +661,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         handles.append(Line2D([], [], color=shade, lw=1.3, ls=METHOD_DASHES.get(method, "-"),
                               label=label))
         if len(eq_lines) < MAX_EQUATIONS:
-            eq_lines.append(equation_text(fit))
+            eq_lines.append(equation_text(fit, **_factor_of(result, scope, "", method)))
     if band and eq_lines:
         handles.append(matplotlib.patches.Patch(color="#4d4d4d", alpha=0.25, lw=0,
                                                 label=f"{100 * result.config.model.confidence:g}% "
@@ -588,9 +675,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
 
     if legend and handles:
         if own:
-            ncol = 3 if size == "double" else 2
-            _figure_legend(ax.figure, handles, ncol, handlelength=2.6, columnspacing=1.2,
-                           handletextpad=0.5)
+            ncol = 4 if size == "double" else 3   # the legend keeps to about a quarter
+            _figure_legend(ax.figure, handles, ncol, handlelength=2.0, columnspacing=0.8,
+                           handletextpad=0.4, fontsize=STYLE["font.size"] - 1)
         else:
             ax.legend(handles=handles, loc="best", handlelength=2.6)
     if equation and eq_lines:
@@ -744,8 +831,8 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
         handles.append(matplotlib.patches.Patch(
             color="#4d4d4d", alpha=0.2, lw=0,
             label=f"{100 * result.config.model.confidence:g}% {interval} band"))
-        ax.set_title(f"Back-transformed fits ({what} of y; {correction} correction)",
-                     loc="left")
+        ax.set_title(f"{what.capitalize()} of y ({correction} correction)", loc="left",
+                     fontsize=STYLE["font.size"] - 0.5)
     ax.set_xlim(left=0)
     ax.set_ylim(bottom=0)
     for axis in (ax.xaxis, ax.yaxis):
@@ -754,7 +841,9 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     ax.set_xlabel(_label(result, "x"))
     ax.set_ylabel(_label(result, "y"))
     if own:
-        _figure_legend(ax.figure, handles, 3 if len(handles) > 4 else 2, handlelength=2.6)
+        _figure_legend(ax.figure, handles, 3 if len(handles) > 4 else 2, handlelength=2.0,
+                       columnspacing=0.8, handletextpad=0.4,
+                       fontsize=STYLE["font.size"] - 1)   # about a quarter of the height
     else:
         ax.legend(handles=handles, loc="best")
     return ax
@@ -774,6 +863,9 @@ def _exponent_rows(result, methods) -> list:
     if len(groups) <= LEGEND_MAX_GROUPS:   # above: no row per group (see plot_exponents)
         fitted = {k[1] for k in keys if k[0] == "group"}
         rows += [(g, "group", g) for g in groups if g in fitted]
+    if len(groups) > 1 and any(_common_slope_fit(result, m) is not None
+                               for m in (methods or ())):
+        rows.append(("Common slope within groups", "common", ""))
     if any(k[0] == "group_means" for k in keys):
         rows.append(("Through group means", "group_means", ""))
     return rows
@@ -813,7 +905,8 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         marker = METHOD_MARKERS.get(method, MARKERS[j % len(MARKERS)])
         any_drawn = False
         for i, (_label_text, scope, group) in enumerate(rows):
-            fit = result.line_fits.get((scope, group, method))
+            fit = (_common_slope_fit(result, method) if scope == "common"
+                   else result.line_fits.get((scope, group, method)))
             if fit is None:
                 continue
             y = i + offsets[j]
@@ -901,8 +994,8 @@ def _residuals(fit, X: np.ndarray, Y: np.ndarray) -> tuple:
     return a + b * X, resid
 
 
-_FITTED_LABEL = {"ols": "fitted log y", "sma": "axis score log y + b log x",
-                 "ma": "axis score log x + b log y"}
+_FITTED_LABEL = {"ols": "Fitted value (log scale)"}
+_POSITION_LABEL = "Position along the line (log scale)"
 
 
 def _normal_quantiles(n: int) -> np.ndarray:
@@ -951,7 +1044,6 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     groups = _groups(result)
     codes = (np.searchsorted(groups, pts["group"].astype(str).to_numpy())
              if groups else np.zeros(len(pts), dtype=int))
-    blabel = base_label(fit.log_base)
     if kind == "normal":
         order = np.argsort(resid)
         q = _normal_quantiles(resid.size)
@@ -963,16 +1055,18 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
             slope = (q3 - q1) / (z3 - z1)
             zz = np.array([q.min(), q.max()])
             ax.plot(zz, q1 + slope * (zz - z1), color="#4d4d4d", lw=0.8, zorder=1)
-        ax.set_xlabel("normal quantile")
-        ax.set_ylabel(f"residual (log{blabel})")
-        ax.set_title(f"{method_label(method)}: normal quantiles", loc="left")
+        ax.set_xlabel("Expected if normal")
+        ax.set_ylabel("Residual (log scale)")
+        ax.set_title(f"{method_label(method)}: normality", loc="left",
+                     fontsize=STYLE["font.size"] - 0.5)
     else:
         _scatter_coded(ax, pos, resid, codes, len(groups), s=9, edgecolor="white",
                        linewidth=0.3, alpha=0.85, zorder=2)
         ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
-        ax.set_xlabel(_FITTED_LABEL.get(method, "fitted").replace("log", f"log{blabel}"))
-        ax.set_ylabel(f"residual (log{blabel})")
-        ax.set_title(f"{method_label(method)}: residuals", loc="left")
+        ax.set_xlabel(_FITTED_LABEL.get(method, _POSITION_LABEL))
+        ax.set_ylabel("Residual (log scale)")
+        ax.set_title(f"{method_label(method)}: residuals", loc="left",
+                     fontsize=STYLE["font.size"] - 0.5)
     lim = float(np.max(np.abs(resid))) * 1.15 if resid.size else 1.0
     if not lim > 0:   # perfect fit: all residuals zero
         lim = 1.0
@@ -1010,6 +1104,7 @@ def make_residuals(result, *, size: str = "single", methods=None) -> Figure:
     methods = _methods(result, methods)
     width = SIZES.get(size, SIZES["single"])
     row_h = width * (0.42 if size == "single" else 0.26)
+    row_h = min(row_h, PAGE_HEIGHT / len(methods))   # the whole figure fits a page
     fig = Figure(figsize=(width, row_h * len(methods) + 0.35), layout="constrained")
     axes = fig.subplots(len(methods), 2, squeeze=False)
     for i, method in enumerate(methods):

@@ -38,6 +38,8 @@ from .schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  
 from .stage_diagnostics import diagnostics_stage, exponent_targets
 from .stage_fits import (blank_numbers, fit_moment_rows, nothing_estimable, row_method_fit,
                          slope_tests as make_slope_tests, value_range)
+from .checking import check_run
+from .predicting import prediction_fits
 from .stage_groups import group_stage
 from .stage_predict import accuracy_and_factors, add_accuracy_columns, prediction_stage
 from .stage_resample import bootstrap_stage, permutation_stage, resampling_manifest
@@ -244,7 +246,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     # Prediction stage: accuracy and correction factors per fit, then predictions.
     saved, extra_cols = accuracy_and_factors(line_fits, point_sets)
     fits = add_accuracy_columns(fits, extra_cols)
-    pred_tables, pred_notes = prediction_stage(line_fits, saved, cfg)
+    predicting, pred_notes0 = prediction_fits(saved, cfg)   # which lines predict (default OLS)
+    pred_tables, pred_notes = prediction_stage(line_fits, predicting, cfg)
+    pred_notes = pred_notes0 + pred_notes
     tables.update(pred_tables)
     notes += pred_notes
     tables["_saved_fits"] = saved
@@ -258,6 +262,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         tables.update(d_tables)
         messages += d_messages
     messages += line_method_messages(line_fits, cfg)
+    # graded points to check: strong warnings first
+    tables["points_to_check"], check_notes = check_run(cfg, line_fits, point_sets, fits, tables)
+    notes = check_notes + notes
 
     # Resampling stage: bootstrap intervals and permutation p-values.
     resampling = resampling_manifest(cfg, row_methods, data)

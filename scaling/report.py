@@ -362,6 +362,11 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         test_blocks.append(Block(kind="p", text="No hypothesised exponents were given."))
     if result.slope_tests is not None and len(result.slope_tests):
         test_blocks.append(Block(kind="table", frame=result.slope_tests, name="slope_tests"))
+    from .wording import ancestry_caution, mechanism_caution
+    if sentences:
+        test_blocks.append(Block(kind="p", text=mechanism_caution()))
+    if cfg.data.group or cfg.data.average_within:
+        test_blocks.append(Block(kind="p", text=ancestry_caution()))
     sections.append(Section(title="Exponent tests", blocks=test_blocks, anchor="tests"))
 
     group_blocks = []
@@ -398,6 +403,10 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
             pred_blocks.append(Block(kind="p", text=intro + "." + note))
             pred_blocks.append(Block(kind="table", frame=t, name=name, highlight=flags))
     if pred_blocks:
+        from .wording import dose_caution, medians_vs_means, predicted_unit
+        pred_blocks += [Block(kind="p", text=t) for t in (
+            predicted_unit(cfg.data.average_within, cfg.data.y), medians_vs_means(),
+            dose_caution())]
         sections.append(Section(title="Predictions", blocks=pred_blocks,
                                 anchor="predictions"))
 
@@ -431,7 +440,9 @@ def _manifest_section(result) -> Section:
                        ("config_file", "Config file"), ("input_file", "Input file"),
                        ("input_sha256", "Input SHA-256")):
         if man.get(key):
-            facts.append(f"{label}: {man[key]}")
+            from .wording import clean_timestamp   # '... 04:40 UTC', not '+00:00 UTC'
+            value = clean_timestamp(man[key]) if key == "created_utc" else man[key]
+            facts.append(f"{label}: {value}")
     if facts:
         blocks.append(Block(kind="ul", items=tuple(facts)))
     versions = man.get("versions") or {}
@@ -592,13 +603,19 @@ def _html_block(block: Block) -> str:
     raise ValueError(f"unknown block kind {block.kind!r}")
 
 
+def _clean_stamp(iso) -> str:
+    from .wording import clean_timestamp
+    return clean_timestamp(iso)
+
+
 def render_html(result, sections: list) -> str:
     """The whole report as one HTML document (every string escaped here)."""
     title = result.config.title or "Scaling analysis"
     man = result.manifest or {}
     stamp = " · ".join(s for s in (
         f"scaling {man.get('scaling_version', '')}".strip(),
-        f"created {man['created_utc']} UTC" if man.get("created_utc") else "") if s)
+        f"created {_clean_stamp(man['created_utc'])}" if man.get("created_utc") else "")
+        if s)
     nav = "".join(f"<a href=\"#{_esc(s.anchor)}\">{_esc(s.title)}</a>"
                   for s in sections if s.anchor)
     body = []

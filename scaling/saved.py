@@ -56,7 +56,8 @@ class SavedResults:
 
     def saved_fit(self, *, method: str | None = None, group: str | None = None) -> dict:
         """The saved dict of one fit (pooled unless ``group`` is given)."""
-        method = method or self.methods[0]
+        # default: OLS, the line that estimates y from x (else the first fitted)
+        method = method or ("ols" if "ols" in self.methods else self.methods[0])
         if method not in self.methods:
             raise ConfigError(f"--method: '{method}' was not fitted in {self.folder}"
                               f"{_hint(method, self.methods)}")
@@ -154,6 +155,11 @@ def _numbers(values, label: str) -> np.ndarray:
 
 
 def _values_from_file(path: Path, column: str, flag: str) -> np.ndarray:
+    return _table_from_file(path, column, flag)[0]
+
+
+def _table_from_file(path: Path, column: str, flag: str) -> tuple:
+    """(values of ``column``, the file's other columns as text: IDs to carry through)."""
     if not path.is_file():
         raise DataError(f"{path}: file not found ({flag})")
     try:
@@ -176,17 +182,18 @@ def _values_from_file(path: Path, column: str, flag: str) -> np.ndarray:
         except DataError:
             raise DataError(f"{path}: row {i + 1}, column '{column}': '{v}' is not a positive "
                             "number") from None
-    return _numbers(values, str(path))
+    return _numbers(values, str(path)), table.drop(columns=[column]).reset_index(drop=True)
 
 
 def predict_command(args) -> int:
     """``scaling predict``: print a table and write it to a CSV file."""
     saved = load_results(args.results)
+    ids = None
     if args.x:
         values = _numbers(args.x, "--x")
     else:
         column = saved.y_name if args.inverse else saved.x_name
-        values = _values_from_file(Path(args.from_file), column, "--from")
+        values, ids = _table_from_file(Path(args.from_file), column, "--from")
     for option, allowed in (("correction", ("smearing", "parametric", "ratio", "none")),
                             ("interval", ("prediction", "confidence"))):
         value = getattr(args, option)
@@ -204,6 +211,8 @@ def predict_command(args) -> int:
         frame = saved.predict(values, method=method, group=args.group,
                               correction=args.correction, interval=args.interval,
                               inverse=args.inverse)
+    frame = _with_names(frame, saved, ids, inverse=args.inverse,
+                        method=method, group=args.group)
     frame.to_csv(out, index=False, lineterminator="\n")
     shown = frame.copy()
     print(shown.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
@@ -214,5 +223,28 @@ def predict_command(args) -> int:
         if issubclass(w.category, DegenerateDataWarning):
             print(f"warning: {w.message}" + ("; x_low and x_high are blank"
                                              if "unbounded" in str(w.message) else ""))
+    from .wording import dose_caution, medians_vs_means
+    print(medians_vs_means())
+    print(dose_caution())
     print(f"wrote {out}")
     return 0
+
+
+def _with_names(frame: pd.DataFrame, saved: "SavedResults", ids, *, inverse: bool,
+                method, group) -> pd.DataFrame:
+    """ID columns of the --from file first; copies of x and y named after the variables;
+    range_ratio (how far outside the fitted range each given value lies)."""
+    from .predicting import range_ratio
+    out = frame.copy()
+    d = saved.saved_fit(method=method, group=group)
+    role = "y" if inverse else "x"
+    rng = d.get(f"{role}_range") or (np.nan, np.nan)
+    out["range_ratio"] = range_ratio(out[role].to_numpy(float), rng[0], rng[1],
+                                     logs=d.get("log_base") in (None, "none"))
+    for role, name in (("x", saved.x_name), ("y", saved.y_name)):
+        if name and name not in out.columns:
+            out[name] = out[role]
+    if ids is not None and len(ids.columns) and len(ids) == len(out):
+        keep = ids[[c for c in ids.columns if c not in out.columns]]
+        out = pd.concat([keep, out], axis=1)
+    return out

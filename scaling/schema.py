@@ -25,7 +25,7 @@ __all__ = [
     "PERMUTATION_COLUMNS", "SLOPE_TEST_ALL_COLUMNS", "DROPPED_COLUMNS",
     "GROUP_MEANS_COLUMNS", "GROUP_TEST_COLUMNS", "PAIRWISE_COLUMNS",
     "PREDICTION_COLUMNS", "INVERSE_COLUMNS", "DIAGNOSTIC_COLUMNS", "INFLUENCE_COLUMNS",
-    "ERROR_STRUCTURE_COLUMNS", "CURVATURE_COLUMNS", "BOOTSTRAP_COLUMNS", "TABLE_COLUMNS",
+    "ERROR_STRUCTURE_COLUMNS", "CURVATURE_COLUMNS", "BOOTSTRAP_COLUMNS", "POINTS_TO_CHECK_COLUMNS", "TABLE_COLUMNS",
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
     "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice",
 ]
@@ -165,9 +165,9 @@ GROUP_TEST_COLUMNS = ["method", "test", "statistic", "df", "df_resid", "p_value"
 PAIRWISE_COLUMNS = ["method", "test", "group_a", "group_b", "statistic", "df",
                     "p_value", "p_adjusted"]
 PREDICTION_COLUMNS = ["scope", "group", "method", "x", "y", "y_low", "y_high", "interval",
-                      "correction", "extrapolated", "confidence"]
+                      "correction", "extrapolated", "confidence", "range_ratio"]
 INVERSE_COLUMNS = ["scope", "group", "method", "y", "x", "x_low", "x_high", "interval",
-                   "extrapolated", "confidence"]
+                   "extrapolated", "confidence", "range_ratio"]
 DIAGNOSTIC_COLUMNS = ["scope", "group", "method", "check", "test", "statistic", "df",
                       "p_value", "estimate", "flagged", "verdict"]
 INFLUENCE_COLUMNS = ["scope", "group", "method", "row", "label", "cooks_distance"]
@@ -182,7 +182,12 @@ BOOTSTRAP_COLUMNS = ["scope", "group", "method", "parameter", "estimate", "low",
 #: Every CSV a run writes (file stem -> columns).  ``slope_tests`` gains
 #: :data:`PERMUTATION_COLUMNS` and ``group_means`` gains ``n_rows`` when those
 #: stages apply; tables added by later stages are listed as they come.
+# points_to_check.csv: graded warnings about single points and whole fits
+POINTS_TO_CHECK_COLUMNS = ["scope", "group", "method", "severity", "kind", "row", "label",
+                           "value", "reason"]
+
 TABLE_COLUMNS: dict[str, list] = {
+    "points_to_check": POINTS_TO_CHECK_COLUMNS,
     "fits": FIT_ALL_COLUMNS,
     "slope_tests": SLOPE_TEST_COLUMNS,
     "dropped_rows": DROPPED_COLUMNS,

@@ -16,7 +16,8 @@ import pandas as pd
 from .predict import (accuracy, data_factors, fit_to_dict, inverse_predict, predict,
                       saved_factor)
 from .schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
-from .wording import (extrapolation_note, inverse_extrapolation_note, scope_words,
+from .predicting import add_range_ratio
+from .wording import (scope_words,
                       unbounded_inverse_note)
 
 __all__ = ["accuracy_and_factors", "add_accuracy_columns", "prediction_stage"]
@@ -88,19 +89,17 @@ def prediction_stage(line_fits: dict, saved: dict, cfg):
                     unbounded.append(scope_words(scope, group) + " " + method_label(method))
     tables = {}
     if pc.x:
-        table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS] if rows else \
-            pd.DataFrame(columns=PREDICTION_COLUMNS)
+        table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS[:-1]] if rows else \
+            pd.DataFrame(columns=PREDICTION_COLUMNS[:-1])   # range_ratio added below
+        table, range_notes = add_range_ratio(table, saved, "x")
         tables["predictions"] = table
-        note = extrapolation_note(table)
-        if note:
-            notes.append(note)
+        notes += range_notes
     if pc.y:
-        table = pd.concat(inv_rows, ignore_index=True)[INVERSE_COLUMNS] if inv_rows else \
-            pd.DataFrame(columns=INVERSE_COLUMNS)
+        table = pd.concat(inv_rows, ignore_index=True)[INVERSE_COLUMNS[:-1]] if inv_rows else \
+            pd.DataFrame(columns=INVERSE_COLUMNS[:-1])   # range_ratio added below
+        table, range_notes = add_range_ratio(table, saved, "y")
         tables["inverse_predictions"] = table
-        note = inverse_extrapolation_note(table)
-        if note:
-            notes.append(note)
+        notes += range_notes
         if unbounded:
             notes.append(unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
     return tables, notes

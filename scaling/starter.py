@@ -54,6 +54,7 @@ prediction:
 figures:
   formats: [png, pdf]               # png, pdf, svg
   size: single                      # single (85 mm) or double (180 mm) column
+  labels: {x: Body mass, y: Metabolic rate}   # axis labels in words; units are added
 
 output:
   dir: results                      # relative to this file; --out overrides
@@ -85,6 +86,9 @@ groups:
   fit_group_means: true             # also fit one line through the order means
   # pairwise_max: 20                # pairwise order tests only up to this many orders
 
+figures:
+  labels: {x: Body mass, y: Metabolic rate}   # axis labels in words; units are added
+
 output:
   dir: results
 """
@@ -110,6 +114,9 @@ exponents:
 prediction:
   x: [200, 300, 400]
   correction: smearing
+
+figures:
+  labels: {x: Total length, y: Weight}        # axis labels in words; units are added
 
 output:
   dir: results

@@ -129,8 +129,19 @@ class TestPlotScaling:
         assert f"1{THIN}000" in _visible_major_labels(ax, "x")
         assert "10" in _visible_major_labels(ax, "y")
 
-    def test_equation_matches_the_fits(self, grouped):
+    def test_default_draws_the_primary_method_with_median_and_factor(self, grouped):
         ax = plot_scaling(grouped)
+        (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
+        body = text.get_text()
+        # primary: first symmetric method of [ols, sma, ma, deming] is SMA
+        assert body.startswith("SMA: ") and "OLS:" not in body
+        factor = grouped.fits.query("scope == 'pooled' and method == 'sma'")[
+            "smearing_factor"].iloc[0]
+        # internal consistency: the factor shown is the run's smearing factor
+        assert f"line = median; mean = median × {factor:.3g}" in body
+
+    def test_equation_matches_the_fits(self, grouped):
+        ax = plot_scaling(grouped, methods=["ols", "sma", "ma"])
         (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
         pattern = re.compile(r"(OLS|SMA|MA): \$y = ([\d.]+)\\,x\^\{([\d.]+)\}\$ "
                              r"\(95% CI ([\d.]+)–([\d.]+)\)")
@@ -155,7 +166,7 @@ class TestPlotScaling:
         assert not inside.any()     # exact: no data point under the text
 
     def test_lines_span_the_fitted_range_only(self, pooled_only):
-        ax = plot_scaling(pooled_only, band=False)
+        ax = plot_scaling(pooled_only, band=False, methods=["ols", "sma", "ma"])
         fit = pooled_only.fit("ols")
         lines = [ln for ln in ax.lines if len(ln.get_xdata()) > 2]
         assert len(lines) == 3
@@ -251,9 +262,12 @@ class TestPlotExponents:
         ax = plot_exponents(grouped)
         whiskers = [ln for ln in ax.lines if len(ln.get_xdata()) == 2
                     and ln.get_ydata()[0] == ln.get_ydata()[1]]
-        expected = sorted((f.slope_ci.low, f.slope_ci.high) for f in grouped.line_fits.values())
+        from scaling.figures import _common_slope_fit
+        common = [_common_slope_fit(grouped, m) for m in ("ols", "sma", "ma")]
+        expected = sorted([(f.slope_ci.low, f.slope_ci.high) for f in grouped.line_fits.values()]
+                          + [(c.slope_ci.low, c.slope_ci.high) for c in common])
         got = sorted((float(ln.get_xdata()[0]), float(ln.get_xdata()[1])) for ln in whiskers)
-        # expected: the fits' own intervals, one whisker per fit
+        # expected: the fits' own intervals, one whisker per fit, and the common-slope row
         assert_allclose(got, expected, rtol=1e-12)
         refs = sorted(float(ln.get_xdata()[0]) for ln in ax.lines
                       if len(ln.get_xdata()) == 2 and ln.get_xdata()[0] == ln.get_xdata()[1])
@@ -283,3 +297,91 @@ class TestPlotResiduals:
         from scipy import stats
         assert_allclose(off[:, 0], stats.norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25)),
                         rtol=1e-12)
+
+
+class TestReadableFigures:
+    """Text inside the canvas, legend share, intermediate ticks, plain labels."""
+
+    @staticmethod
+    def _drawn_texts(fig):
+        out = []
+        for ax in fig.axes:
+            for axis in (ax.xaxis, ax.yaxis):
+                lo, hi = sorted(axis.get_view_interval())
+                out += [t.label1 for t in axis.get_major_ticks()
+                        if lo * (1 - 1e-9) <= t.get_loc() <= hi * (1 + 1e-9)
+                        and t.label1.get_visible()]
+            out += list(ax.texts) + [ax.title, ax._left_title, ax.xaxis.label, ax.yaxis.label]
+        for legend in fig.legends:
+            out += legend.get_texts()
+        return [t for t in out if t.get_visible() and t.get_text()]
+
+    @pytest.mark.parametrize("kind", ["scaling", "residuals", "natural", "exponents"])
+    def test_no_text_outside_the_canvas(self, grouped, kind):
+        from scaling.figures import make_figure
+        fig = make_figure(grouped, kind)
+        fig.draw_without_rendering()
+        w, h = fig.bbox.width, fig.bbox.height
+        clipped = [t.get_text() for t in self._drawn_texts(fig)
+                   if (e := t.get_window_extent()).x0 < -1 or e.y0 < -1
+                   or e.x1 > w + 1 or e.y1 > h + 1]
+        assert clipped == []   # exact geometry of the drawn figure
+
+    def test_scaling_legend_at_most_about_a_quarter(self, grouped):
+        from scaling.figures import make_figure
+        fig = make_figure(grouped, "scaling")
+        fig.draw_without_rendering()
+        share = sum(lg.get_window_extent().height for lg in fig.legends) / fig.bbox.height
+        assert share <= 0.26   # the issue's target, about a quarter
+
+    def test_thirty_groups_legend_is_a_note(self, tmp_path):
+        from helpers_figures import simulated
+        from scaling.figures import make_figure
+        res = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(30)], n=6)
+        fig = make_figure(res, "scaling")
+        fig.draw_without_rendering()
+        texts = [t.get_text() for lg in fig.legends for t in lg.get_texts()]
+        assert not any(t.startswith("g0") for t in texts)
+        share = sum(lg.get_window_extent().height for lg in fig.legends) / fig.bbox.height
+        assert share <= 0.26
+
+    def test_narrow_span_labels_two_and_five(self):
+        from matplotlib.figure import Figure
+        from scaling.figures import natural_log_axis
+        ax = Figure().add_subplot()
+        ax.plot([12, 80], [12, 80])
+        ax.set_xlim(12, 80)
+        natural_log_axis(ax)
+        fig = ax.figure
+        fig.draw_without_rendering()
+        shown = {t.get_text() for t in ax.xaxis.get_ticklabels() if t.get_text()}
+        # under two decades the 2 and 5 ticks are labelled (common practice, no source)
+        assert {"20", "50"} <= shown
+
+    def test_default_labels_do_not_repeat_units(self, tmp_path):
+        from dataclasses import replace
+        from scaling.figures import _label
+        from helpers_figures import simulated
+        res = simulated(tmp_path, groups=["a"], n=8)
+        cfg = res.config
+        res = replace(res, config=replace(cfg, data=replace(cfg.data, x="mass_kg"),
+                                          figures=replace(cfg.figures, labels={})))
+        assert _label(res, "x") == "mass (kg)"
+        assert _label(res, "y") == "rate (W)"
+
+    def test_common_slope_row_and_lines(self, grouped):
+        from scaling.groups import common_slope
+        ax = plot_exponents(grouped)
+        labels = [t.get_text().replace("\n", " ") for t in ax.get_yticklabels()]
+        assert "Common slope within groups" in labels
+        pts = grouped.data.points
+        ref = common_slope(pts["log_x"], pts["log_y"], pts["group"].astype(str),
+                           method="sma")
+        row = labels.index("Common slope within groups")
+        dots = [ln for ln in ax.lines if len(ln.get_xdata()) == 1
+                and abs(ln.get_ydata()[0] - row) < 0.4]
+        # internal consistency: the row shows groups.common_slope's SMA estimate
+        assert any(abs(d.get_xdata()[0] - ref.slope) < 1e-12 for d in dots)
+        ax = plot_scaling(grouped)
+        texts = [t.get_text() for lg in ax.figure.legends for t in lg.get_texts()]
+        assert "SMA common slope in each group" in texts

@@ -428,3 +428,40 @@ class TestRobustAndDeming:
         assert result.slope_tests.empty   # no exponents configured
         # The conftest simulation has exponent 0.75 (tests/conftest.py small_csv).
         assert np.all(np.abs(result.fits["slope"] - 0.75) < 0.05)
+
+
+def _bones_run(tmp_path, planted: bool):
+    """Invented femur length (mm) and body mass (g) of 30 species (truth b = 2.8)."""
+    rng = np.random.default_rng(11)
+    lx = rng.uniform(1.3, 2.6, 30)
+    ly = -1.5 + 2.8 * lx + rng.normal(0.0, 0.1, 30)
+    length = 10 ** lx
+    if planted:
+        length[7] /= 10          # one femur entered in cm among mm
+    path = tmp_path / "bones.csv"
+    pd.DataFrame({"species": [f"sp{i}" for i in range(30)], "femur": length,
+                  "mass": 10 ** ly}).to_csv(path, index=False)
+    raw = {"data": {"file": str(path), "x": "femur", "y": "mass",
+                    "average_within": "species"},
+           "model": {"methods": ["ols", "sma"]}, "prediction": {"x": [100]},
+           "exponents": {"cube": 3}}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return analyse(config_from_dict(raw))
+
+
+class TestPointsToCheckInTheRun:
+    def test_planted_unit_error_warns_strongly_with_row_and_label(self, tmp_path):
+        res = _bones_run(tmp_path, planted=True)
+        strong = [w for w in res.warnings if w.startswith("STRONG")]
+        # planted error (simulation with known truth): row 8 of the file is sp7
+        assert any("row 8 (sp7)" in w for w in strong)
+        table = res.tables["points_to_check"]
+        assert {"influence"} <= set(table["kind"])
+        assert res.warnings[0].startswith("STRONG")   # strong warnings come first
+
+    def test_clean_data_no_strong_warning(self, tmp_path):
+        res = _bones_run(tmp_path, planted=False)
+        # simulation with known truth, no planted error
+        assert not [w for w in res.warnings if w.startswith("STRONG")]
+        assert len(res.tables["points_to_check"]) == 0

@@ -210,6 +210,15 @@ class TestWriteReport:
         assert "excluded: clade is 'outgroup'" in body
         assert "Ridgeback (n = 8)" in body
 
+    def test_cautions_where_numbers_are_used(self, demo_run):
+        text = (demo_run.out_dir / "report.html").read_text(encoding="utf-8")
+        assert "an allometric fit is not a dose" in text
+        assert "median y at a given x" in text
+        assert "does not by itself confirm a mechanism" in text
+        assert "phylogenetic correction" in text            # the demo has groups
+        assert "a new species mean" in text                 # average_within: species
+        assert "+00:00" not in text and " UTC" in text
+
     def test_long_tables_folded_but_predictions_open(self, demo_run):
         import re
         from scaling.report import FOLD_ROWS
@@ -217,8 +226,15 @@ class TestWriteReport:
         folded = re.findall(r'<details class="table"><summary>([a-z_]+): (\d+) rows', text)
         assert folded and all(int(n) > FOLD_ROWS for _, n in folded)
         # predictions carry the extrapolation flags: never hidden, however long
+        # (the demo predicts from OLS only, so its table is doubled to be long)
+        from dataclasses import replace
+        from scaling.report import build_report, render_html
+        long = pd.concat([demo_run.tables["predictions"]] * 2, ignore_index=True)
+        assert len(long) > FOLD_ROWS
+        run = replace(demo_run, tables={**demo_run.tables, "predictions": long})
+        html = render_html(run, build_report(run, demo_run.out_dir, demo_run.files))
+        folded = re.findall(r'<details class="table"><summary>([a-z_]+): (\d+) rows', html)
         assert "predictions" not in {name for name, _ in folded}
-        assert len(demo_run.tables["predictions"]) > FOLD_ROWS
 
 
 class TestBuildReport:

@@ -34,9 +34,11 @@ class TestPredictCommand:
     def test_same_numbers_as_run(self, demo_out, tmp_path, monkeypatch, capsys):
         # Internal consistency: the run's predictions.csv against predicting later from the
         # saved fits must reproduce it exactly (same formulas, saved factors).
+        # The run predicts from OLS only (prediction.methods not set).
         run = pd.read_csv(demo_out / "predictions.csv")
+        assert set(run["method"]) == {"ols"}
         monkeypatch.chdir(tmp_path)
-        for method in ("ols", "sma", "ma"):
+        for method in ("ols",):
             xs = run.loc[(run["scope"] == "pooled") & (run["method"] == method), "x"]
             code = main(["predict", str(demo_out), "--x", *map(str, xs), "--method", method,
                          "--out", f"p_{method}.csv"])
@@ -46,7 +48,9 @@ class TestPredictCommand:
             assert_allclose(new["y"], ref["y"], rtol=1e-12)
             assert_allclose(new["y_low"], ref["y_low"], rtol=1e-12)
             assert_allclose(new["y_high"], ref["y_high"], rtol=1e-12)
-        assert "wrote p_ma.csv" in capsys.readouterr().out
+        printed = capsys.readouterr().out
+        assert "wrote p_ols.csv" in printed
+        assert "an allometric fit is not a dose" in printed and "median" in printed
 
     def test_group_and_from_file(self, demo_out, tmp_path, monkeypatch):
         run = pd.read_csv(demo_out / "predictions.csv")
@@ -56,6 +60,20 @@ class TestPredictCommand:
         assert main(["predict", str(demo_out), "--from", "new.csv", "--group", "Canopy"]) == 0
         new = pd.read_csv(tmp_path / "predictions.csv")
         assert_allclose(new["y"], ref["y"], rtol=1e-12)  # internal consistency: the run itself
+
+    def test_from_file_carries_ids_and_names_columns(self, demo_out, tmp_path, monkeypatch):
+        (tmp_path / "new.csv").write_text("species,body_mass,site\nA,40,north\nB,2e5,south\n")
+        monkeypatch.chdir(tmp_path)
+        assert main(["predict", str(demo_out), "--from", "new.csv"]) == 0
+        new = pd.read_csv(tmp_path / "predictions.csv")
+        assert list(new.columns[:2]) == ["species", "site"]
+        assert list(new["species"]) == ["A", "B"]
+        assert_allclose(new["body_mass"], new["x"], rtol=0)        # named copy
+        assert_allclose(new["resting_rate"], new["y"], rtol=0)
+        fits = pd.read_csv(demo_out / "fits.csv")
+        hi = fits.loc[(fits["scope"] == "pooled") & (fits["method"] == "ols"), "x_max"].iloc[0]
+        # definition of range_ratio: 1 inside, x / x_max above the fitted range
+        assert_allclose(new["range_ratio"], [1.0, 2e5 / hi], rtol=1e-6)
 
     def test_inverse_round_trip(self, demo_out):
         saved = scaling.load_results(demo_out)
