@@ -50,6 +50,7 @@ METHOD_DASHES = {"ols": "-", "sma": (0, (5, 2)), "ma": (0, (1.2, 1.6)),
                  "deming": (0, (6, 1.5, 1.2, 1.5)), "theil_sen": (0, (3, 1.2)),
                  "siegel": (0, (3, 1.2, 1, 1.2, 1, 1.2)), "sma_robust": (0, (8, 2.5)),
                  "ma_robust": (0, (2, 2.5))}
+PHYLO_COLOUR = "#b2182b"   # phylogenetic lines in the scaling plot (one colour, method dashes)
 METHOD_SHADES = {"ols": "#1a1a1a", "sma": "#4d4d4d", "ma": "#7a7a7a", "deming": "#333333",
                  "theil_sen": "#5e5e5e", "siegel": "#6b6b6b", "sma_robust": "#404040",
                  "ma_robust": "#8a8a8a"}
@@ -573,6 +574,20 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                               label=label))
         if len(eq_lines) < MAX_EQUATIONS:
             eq_lines.append(equation_text(fit))
+    if scope == "pooled":   # phylogenetic lines (scaling/phylo_stage.py), no band
+        for method in methods:
+            fit = result.line_fits.get(("phylo", "", method))
+            if fit is None:
+                continue
+            xs = np.geomspace(*_fit_xrange(fit, result), 80)
+            fitted, _, _ = _fit_band(fit, xs)
+            ax.plot(xs, _unlog(fitted, base), color=PHYLO_COLOUR, lw=0.9,
+                    ls=METHOD_DASHES.get(method, "-"), zorder=4.5)
+            handles.append(Line2D([], [], color=PHYLO_COLOUR, lw=0.9,
+                                  ls=METHOD_DASHES.get(method, "-"),
+                                  label=f"phylogenetic {method_label(method)}"))
+            if len(eq_lines) < MAX_EQUATIONS + 2:   # room for the phylogenetic pair
+                eq_lines.append("phylo. " + equation_text(fit))
     if band and eq_lines:
         handles.append(matplotlib.patches.Patch(color="#4d4d4d", alpha=0.25, lw=0,
                                                 label=f"{100 * result.config.model.confidence:g}% "

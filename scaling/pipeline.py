@@ -287,6 +287,14 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         if means_points is not None:
             point_sets[("group_means", "")] = means_points
 
+    phylo = None
+    if cfg.data.tree is not None:   # phylogenetic lines: scaling/phylo_stage.py
+        from .phylo_stage import add_phylo_columns, phylo_messages, phylo_stage
+        phylo = phylo_stage(pts, cfg, base)
+        rows += phylo.rows
+        line_fits.update(phylo.line_fits)
+        notes += phylo.notes
+
     if not line_fits:
         raise DataError(_nothing_estimable(cfg, pts, rows, n_dropped))
 
@@ -295,10 +303,13 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     line_fits = dict(sorted(line_fits.items(), key=lambda kv: order.get(kv[0], len(order))))
 
     fits = pd.DataFrame([_blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
+    if phylo is not None:
+        fits = add_phylo_columns(fits, phylo)
     slope_tests = _slope_tests(line_fits, cfg)
 
     # Prediction stage: accuracy and correction factors per fit, then predictions.
-    saved, extra_cols = _accuracy_and_factors(line_fits, point_sets)
+    saved, extra_cols = _accuracy_and_factors(
+        line_fits, point_sets if phylo is None else {**point_sets, ("phylo", ""): phylo.points})
     fits = _add_columns(fits, extra_cols)
     pred_tables, pred_notes = _predictions(line_fits, saved, cfg)
     tables.update(pred_tables)
@@ -318,6 +329,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                 test = fit.test_slope(b0, hypothesis=name)
                 messages.append("  " + describe_test(test, alpha=1 - cfg.model.confidence))
 
+    if phylo is not None:
+        messages += phylo_messages(phylo, {m: f for (s, g, m), f in line_fits.items()
+                                           if s == "pooled"}, cfg, has_groups=data.has_groups)
     messages += g_messages
 
     # Diagnostics stage: is the power law, its error structure and its line right?
@@ -354,7 +368,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         "deming_lambda": cfg.model.deming_lambda if "deming" in cfg.model.methods else None,
     }
     return RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
-                     dropped=data.dropped[DROPPED_COLUMNS], line_fits=line_fits,
+                     dropped=data.dropped[DROPPED_COLUMNS] if phylo is None else pd.concat(
+                         [data.dropped[DROPPED_COLUMNS], phylo.dropped], ignore_index=True),
+                     line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
                      manifest=manifest)
 
