@@ -52,7 +52,8 @@ class PhyloStage:
         method -> :class:`~scaling.phylo.PhyloFit`.
     line_fits : dict
         ``("phylo", "", method) -> LineFit`` (the same lines, for slope tests,
-        figures and predictions).
+        figures; not used for predictions, whose interval for a new species is not
+        defined here yet).
     points : DataFrame
         The species points with a tip (what the phylogenetic lines were fitted to).
     dropped : DataFrame
@@ -113,6 +114,10 @@ def phylo_stage(pts: pd.DataFrame, cfg, base) -> PhyloStage:
                 x_range=ranges[0], y_range=ranges[1])
     dropped = _dropped(pts, match, dc.species, name)
     notes = []
+    if cfg.prediction.x or cfg.prediction.y:
+        notes.append("Predictions come from the ordinary lines only: phylogenetic lines make "
+                     "no predictions yet (an interval for a new species needs its place in "
+                     "the tree).")
     if len(dropped):
         notes.append(_drop_note(match, name))
     return PhyloStage(rows=rows, fits=fits, line_fits=line_fits, points=used, dropped=dropped,

@@ -308,8 +308,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     slope_tests = _slope_tests(line_fits, cfg)
 
     # Prediction stage: accuracy and correction factors per fit, then predictions.
-    saved, extra_cols = _accuracy_and_factors(
-        line_fits, point_sets if phylo is None else {**point_sets, ("phylo", ""): phylo.points})
+    saved, extra_cols = _accuracy_and_factors(line_fits, point_sets)
     fits = _add_columns(fits, extra_cols)
     pred_tables, pred_notes = _predictions(line_fits, saved, cfg)
     tables.update(pred_tables)

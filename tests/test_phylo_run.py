@@ -109,11 +109,12 @@ class TestPhylogeneticRows:
             assert_allclose(f.loc[("phylo", method), cols].to_numpy(float),
                             f.loc[("pooled", method), cols].to_numpy(float), rtol=1e-9)
 
-    def test_phylo_lines_reach_predictions_and_figure(self, tmp_path):
+    def test_phylo_lines_reach_the_figure_not_predictions(self, tmp_path):
         names, x, y = _invented(12)
         res = _analyse(config_from_dict(_write(tmp_path, names, x, y, _caterpillar(names)),
                                         base_dir=tmp_path))
-        assert set(res.predictions["scope"]) >= {"pooled", "phylo"}
+        # prediction intervals of phylogenetic lines are not defined yet: none are made
+        assert set(res.predictions["scope"]) == {"pooled"}
         from scaling.figures import plot_scaling
         ax = plot_scaling(res)
         labels = [h.get_label() for h in ax.figure.legends[0].legend_handles] \
