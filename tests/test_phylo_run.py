@@ -68,12 +68,12 @@ class TestPhylogeneticRows:
     def test_rows_equal_fit_phylo_called_directly(self):
         cfg = load_config(PHYSIOLOGY)
         res = _analyse(cfg)
-        raw = pd.read_csv(cfg.data.file)
+        pts = res.data.points      # the species means the run fitted
         tree = read_newick(cfg.data.tree)
         phylo = res.fits[res.fits["scope"] == "phylo"].set_index("method")
         assert list(phylo.index) == ["ols", "sma"]
         for method in ("ols", "sma"):
-            direct = fit_phylo(raw["body_mass_g"], raw["bmr_mW"], tree, raw["species"],
+            direct = fit_phylo(pts["x"], pts["y"], tree, pts["unit"],
                                method=method, confidence=0.95, log_base=10)
             row = phylo.loc[method]
             # internal consistency: the run's row is fit_phylo on the raw rows
@@ -82,17 +82,15 @@ class TestPhylogeneticRows:
                              row["lambda_high"], row["loglik"], row["aic"]],
                             [direct.slope, direct.slope_ci.low, direct.slope_ci.high,
                              direct.intercept, direct.lam, direct.lam_ci.low,
-                             direct.lam_ci.high, direct.loglik, direct.aic], rtol=1e-7)
+                             direct.lam_ci.high, direct.loglik, direct.aic], rtol=1e-12)
             assert row["lambda_estimate"] == "ml" and row["n"] == direct.n
             tests = res.slope_tests[(res.slope_tests["scope"] == "phylo")
                                     & (res.slope_tests["method"] == method)]
             for t in tests.itertuples():
                 ref = direct.test_slope(t.exponent)
                 # internal consistency: slope_tests.csv holds PhyloFit.test_slope
-                # (species means pass through 10**mean and back: p-values agree to
-                # 1e-12 absolute; tiny p-values differ in the 7th digit)
                 assert_allclose([t.statistic, t.p_value], [ref.statistic, ref.p_value],
-                                rtol=1e-7, atol=1e-12)
+                                rtol=1e-12)
         # ordinary rows carry blank lambda columns
         assert res.fits.loc[res.fits["scope"] != "phylo", "lambda"].isna().all()
 
