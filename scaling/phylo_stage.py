@@ -119,7 +119,7 @@ def phylo_stage(pts: pd.DataFrame, cfg, base) -> PhyloStage:
                      "no predictions yet (an interval for a new species needs its place in "
                      "the tree).")
     if len(dropped):
-        notes.append(_drop_note(match, name))
+        notes.append(_drop_note(match, name, {_key(u): str(u) for u in pts["unit"]}))
     return PhyloStage(rows=rows, fits=fits, line_fits=line_fits, points=used, dropped=dropped,
                       notes=notes)
 
@@ -141,8 +141,9 @@ def _dropped(pts: pd.DataFrame, match, column: str, tree_name: str) -> pd.DataFr
     """Species without a tip (their first input row) and tips without data (row blank)."""
     first_row = {_key(u): int(r) for u, r in zip(pts["unit"], pts["row"])}
     n_rows = {_key(u): int(k) for u, k in zip(pts["unit"], pts["n_rows"])}
+    shown = {_key(u): str(u) for u in pts["unit"]}
     rows = [{"row": first_row[s],
-             "reason": f"{column} {s!r} has no tip in tree {tree_name}: left out of the "
+             "reason": f"{column} {shown[s]!r} has no tip in tree {tree_name}: left out of the "
                        f"phylogenetic fits only ({n_rows[s]} row(s) of this species, "
                        "first shown)"}
             for s in match.missing_species]
@@ -155,11 +156,12 @@ def _dropped(pts: pd.DataFrame, match, column: str, tree_name: str) -> pd.DataFr
     return out
 
 
-def _drop_note(match, tree_name: str) -> str:
+def _drop_note(match, tree_name: str, shown: dict) -> str:
+    missing = [shown.get(s, s) for s in match.missing_species]
     parts = []
     if match.missing_species:
         parts.append(f"{len(match.missing_species)} species have no tip in {tree_name} and "
-                     f"are left out of the phylogenetic fits ({_listed(match.missing_species)})")
+                     f"are left out of the phylogenetic fits ({_listed(missing)})")
     if match.pruned_tips:
         parts.append(f"{len(match.pruned_tips)} tips of {tree_name} have no data and were "
                      f"pruned ({_listed(match.pruned_tips)})")

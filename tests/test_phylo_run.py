@@ -136,11 +136,24 @@ class TestMismatchedNames:
         res = _analyse(config_from_dict(_write(tmp_path, names, x, y, _star(tree_names)),
                                         base_dir=tmp_path))
         reasons = " | ".join(res.dropped["reason"])
-        assert "'sp 08' has no tip" in reasons and "'sp 09' has no tip" in reasons
+        assert "'sp_08' has no tip" in reasons and "'sp_09' has no tip" in reasons
         assert "'sp_lonely' has no data" in reasons and "pruned" in reasons
         assert int(res.fits.loc[res.fits["scope"] == "phylo", "n"].iloc[0]) == 8
         assert int(res.fits.loc[res.fits["scope"] == "pooled", "n"].iloc[0]) == 10
         assert any("no tip in t.nwk" in w for w in res.warnings)
+
+    def test_drops_are_written_to_dropped_rows_csv(self, tmp_path):
+        names, x, y = _invented(10)
+        raw = _write(tmp_path, names, x, y, _star(names[:8] + ["sp_lonely"]),
+                     methods=("sma",))
+        import yaml
+        (tmp_path / "c.yaml").write_text(yaml.safe_dump(raw), encoding="utf-8")
+        assert main(["run", str(tmp_path / "c.yaml"), "--out", str(tmp_path / "out"),
+                     "--quiet"]) == 0
+        dropped = pd.read_csv(tmp_path / "out" / "dropped_rows.csv", dtype=str,
+                              keep_default_na=False)
+        assert list(dropped["row"]) == ["9", "10", ""]   # data rows of sp_08, sp_09; a tip
+        assert dropped["reason"].str.contains("pruned").sum() == 1
 
 
 class TestBadTrees:
