@@ -51,6 +51,8 @@ class DataConfig:
     average_within: str | None = None
     exclude: dict = field(default_factory=dict)   # column -> tuple of values
     units: dict = field(default_factory=dict)     # {"x": "g", "y": "mW"}
+    tree: Path | None = None        # Newick file: phylogenetic fits (scaling/phylo_stage.py)
+    species: str | None = None      # column naming the tips of the tree
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -63,6 +65,7 @@ class ModelConfig:
     # the method whose line leads the headline: given, else the first symmetric method
     # requested, else OLS (else the first method)
     primary: str = "sma"
+    phylogeny: dict = field(default_factory=lambda: {"lambda": "ml"})   # used with data.tree
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -344,6 +347,29 @@ def _error_variances(value, path):
     return out
 
 
+def _phylogeny(value, path):
+    """model.phylogeny: {lambda: ml | reml | a number in [0, 1]}."""
+    if value is None:
+        return {"lambda": "ml"}
+    if not isinstance(value, dict):
+        raise _Bad(path, "expected a mapping like {lambda: ml}")
+    for key in value:
+        if key != "lambda":
+            raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, ('lambda',))}")
+    lam = value.get("lambda", "ml")
+    where = f"{path}.lambda"
+    if isinstance(lam, str):
+        text = lam.strip().lower()
+        if text in ("ml", "reml"):
+            return {"lambda": text}
+        raise _Bad(where, f"{lam!r} is not ml, reml or a number between 0 and 1"
+                   f"{_suggest(text, ('ml', 'reml'))}")
+    v = _number(lam, where)
+    if not 0 <= v <= 1:
+        raise _Bad(where, f"Pagel's lambda must lie between 0 and 1, got {lam!r}")
+    return {"lambda": v}
+
+
 def _alpha(value, path):
     v = _number(value, path)
     if not 0 < v < 0.5:
@@ -381,6 +407,8 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "average_within": (_optional_string, None),
         "exclude": (_exclude, {}),
         "units": (_xy_labels, {}),
+        "tree": (_optional_string, None),
+        "species": (_optional_string, None),
     },
     "model": {
         "log_base": (_log_base, "10"),
@@ -389,6 +417,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "deming_lambda": (_positive, None),
         "error_variances": (_error_variances, {}),
         "primary": (lambda v, p: None if v is None else _method(v, p), None),
+        "phylogeny": (_phylogeny, {"lambda": "ml"}),
     },
     "diagnostics": {
         "enabled": (_boolean, True),
@@ -451,6 +480,29 @@ def _read_section(raw, name) -> dict:
     return out
 
 
+def _phylo_keys(data: dict, base_dir: Path) -> None:
+    """data.tree and data.species go together; with a tree, rows are averaged
+    within species (data.average_within defaults to data.species)."""
+    if data["tree"] is None:
+        if data["species"] is not None:
+            raise _Bad("data.species", "is used only with data.tree (a Newick file); "
+                       "add data.tree or remove data.species")
+        return
+    if data["species"] is None:
+        raise _Bad("data.species", "is required with data.tree: name the column whose "
+                   "values are the tip names of the tree")
+    if data["species"] in (data["x"], data["y"]):
+        raise _Bad("data.species", f"{data['species']!r} is also the x or y column")
+    if data["average_within"] is None:
+        data["average_within"] = data["species"]
+    elif data["average_within"] != data["species"]:
+        raise _Bad("data.average_within", f"must be the species column "
+                   f"({data['species']!r}) when data.tree is given (the phylogenetic fits "
+                   "use one point per species), not " + repr(data["average_within"]))
+    tree = Path(data["tree"]).expanduser()
+    data["tree"] = tree if tree.is_absolute() else (base_dir / tree).resolve()
+
+
 def config_from_dict(raw: dict, *, base_dir: Path | str = ".",
                      source: Path | None = None) -> Config:
     """Validate a configuration mapping (as loaded from YAML).
@@ -488,6 +540,7 @@ def _build(raw, base_dir: Path, source) -> Config:
     for key in ("group", "average_within"):
         if data[key] is not None and data[key] in (data["x"], data["y"]):
             raise _Bad(f"data.{key}", f"{data[key]!r} is also the x or y column")
+    _phylo_keys(data, base_dir)
     if sections["groups"]["weight_means"]:
         unweightable = [m for m in sections["model"]["methods"] if m != "ols"]
         if unweightable:

@@ -232,8 +232,9 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     x_col = _column(table, cfg.x, "data.x", path)
     y_col = _column(table, cfg.y, "data.y", path)
     g_col = _column(table, cfg.group, "data.group", path) if cfg.group else None
-    u_col = _column(table, cfg.average_within, "data.average_within", path) \
-        if cfg.average_within else None
+    u_key = "data.species" if cfg.tree is not None and cfg.average_within == cfg.species \
+        else "data.average_within"
+    u_col = _column(table, cfg.average_within, u_key, path) if cfg.average_within else None
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
 

@@ -54,6 +54,7 @@ MARKERS = ["o", "s", "^", "D", "v", "P", "X", "h"]
 METHOD_DASHES = {name: m.dash for name, m in CATALOGUE.items()}
 METHOD_SHADES = {name: m.shade for name, m in CATALOGUE.items()}
 METHOD_MARKERS = {name: m.marker for name, m in CATALOGUE.items()}
+PHYLO_COLOUR = "#b2182b"   # phylogenetic lines in the scaling plot (one colour, method dashes)
 # At most this many fitted equations are written on the scaling plot; the
 # legend names every line (more would crowd the data off the axes).
 MAX_EQUATIONS = 3
@@ -662,6 +663,20 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                               label=label))
         if len(eq_lines) < MAX_EQUATIONS:
             eq_lines.append(equation_text(fit, **_factor_of(result, scope, "", method)))
+    if scope == "pooled":   # phylogenetic lines (scaling/phylo_stage.py), no band
+        for method in methods:
+            fit = result.line_fits.get(("phylo", "", method))
+            if fit is None:
+                continue
+            xs = np.geomspace(*_fit_xrange(fit, result), 80)
+            fitted, _, _ = _fit_band(fit, xs)
+            ax.plot(xs, _unlog(fitted, base), color=PHYLO_COLOUR, lw=0.9,
+                    ls=METHOD_DASHES.get(method, "-"), zorder=4.5)
+            handles.append(Line2D([], [], color=PHYLO_COLOUR, lw=0.9,
+                                  ls=METHOD_DASHES.get(method, "-"),
+                                  label=f"phylogenetic {method_label(method)}"))
+            if len(eq_lines) < MAX_EQUATIONS + 2:   # room for the phylogenetic pair
+                eq_lines.append("phylo. " + equation_text(fit))
     if band and eq_lines:
         handles.append(matplotlib.patches.Patch(color="#4d4d4d", alpha=0.25, lw=0,
                                                 label=f"{100 * result.config.model.confidence:g}% "

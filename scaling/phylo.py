@@ -300,13 +300,16 @@ class PhyloPlan:
     """A tree prepared for repeated O(n) passes (levels of children sorted by parent).
 
     Build it with :meth:`from_tree`; ``tips`` are node indices in the order
-    of the data rows the pass will receive.
+    of the data rows the pass will receive.  Node ids inside the plan are
+    renumbered (root 0; the children of one level are consecutive ids), so
+    ``tips`` and ``internal_nonroot`` are plan ids, not the tree's.
     """
 
     n: int
     n_nodes: int
     tips: np.ndarray
-    child: np.ndarray            # branches (child node) sorted by (level of parent, parent)
+    child: np.ndarray            # child node of each branch: 1..N-1 (nodes renumbered so that
+                                 # branches are ordered by (level of parent, parent))
     parent_of_child: np.ndarray
     length: np.ndarray           # branch length of each sorted child
     tip_height: np.ndarray       # height of the child if it is a tip, else 0
@@ -343,26 +346,43 @@ class PhyloPlan:
             if level[i] + 1 > level[p]:
                 level[p] = level[i] + 1
         level = np.asarray(level)
+        # Renumber the nodes so that the children handled at one level are one
+        # contiguous run of ids, ordered by their parent's (new) id: each level
+        # of the pass then reads a slice and writes its parents in increasing
+        # order, instead of gathering from all over the arrays (cache misses
+        # above ~10 000 tips).  New id = 1 + position of the branch in the
+        # (level of parent, new id of parent) order; assigned from the top level
+        # down, so a parent's id is known before its children are placed.
         children = np.arange(1, n_nodes)
-        parents = par[1:]
-        order = np.lexsort((parents, level[parents]))
-        child = children[order]
-        pc = parents[order]
-        plevel = level[pc]
+        plevel_old = level[par[1:]]
+        by_level = np.argsort(plevel_old, kind="stable")
+        top = int(level[0])
+        bounds = np.searchsorted(plevel_old[by_level], np.arange(1, top + 2))
+        new_id = np.empty(n_nodes, dtype=np.intp)
+        new_id[0] = 0
+        for lv in range(top, 0, -1):
+            lo, hi = int(bounds[lv - 1]), int(bounds[lv])
+            members = children[by_level[lo:hi]]
+            key = new_id[par[members]]
+            new_id[members[np.argsort(key, kind="stable")]] = np.arange(lo + 1, hi + 1)
         h = _heights(par, tree.length)
+        old_of_new = np.empty(n_nodes, dtype=np.intp)
+        old_of_new[new_id] = np.arange(n_nodes)
+        pc = new_id[par[old_of_new[1:]]]          # parent of new node 1..N-1
+        child = np.arange(1, n_nodes)
         levels = []
-        bounds = np.searchsorted(plevel, np.arange(1, int(level[0]) + 2))
-        for lv in range(1, int(level[0]) + 1):
+        for lv in range(1, top + 1):
             lo, hi = int(bounds[lv - 1]), int(bounds[lv])
             seg = pc[lo:hi]
             starts = np.flatnonzero(np.r_[True, seg[1:] != seg[:-1]])
             levels.append((slice(lo, hi), starts, seg[starts]))
         internal = ~tree.is_tip
         internal[0] = False
-        return cls(n=int(tips.size), n_nodes=n_nodes, tips=tips, child=child,
-                   parent_of_child=pc, length=tree.length[child],
-                   tip_height=np.where(tree.is_tip[child], h[child], 0.0),
-                   levels=tuple(levels), internal_nonroot=np.flatnonzero(internal))
+        old_child = old_of_new[1:]
+        return cls(n=int(tips.size), n_nodes=n_nodes, tips=new_id[tips], child=child,
+                   parent_of_child=pc, length=tree.length[old_child],
+                   tip_height=np.where(tree.is_tip[old_child], h[old_child], 0.0),
+                   levels=tuple(levels), internal_nonroot=new_id[np.flatnonzero(internal)])
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -415,19 +435,19 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
     z = np.zeros((plan.n_nodes, L * B * k))
     z[plan.tips] = np.broadcast_to(z_tips.reshape(n, 1, B * k), (n, L, B * k)).reshape(n, -1)
     e_all = np.empty_like(blen)
-    child = plan.child
     for sl, starts, parents in plan.levels:
-        c = child[sl]
+        c = slice(sl.start + 1, sl.stop + 1)    # child ids are 1 + branch positions
         e = blen[sl] + p[c]
         e_all[sl] = e
         w = 1.0 / e
         big_w = np.add.reduceat(w, starts, axis=0)
-        wz = np.add.reduceat(w[:, :, None] * z[c].reshape(c.size, L, -1), starts, axis=0)
+        wz = np.add.reduceat(w[:, :, None] * z[c].reshape(sl.stop - sl.start, L, -1), starts,
+                             axis=0)
         wz /= big_w[:, :, None]
         z[parents] = wz.reshape(parents.size, -1)
         p[parents] = 1.0 / big_w
     logdet = np.log(e_all).sum(axis=0) - np.log(p[plan.internal_nonroot]).sum(axis=0)
-    d = (z[child] - z[plan.parent_of_child]).reshape(-1, L, B, k)
+    d = (z[1:] - z[plan.parent_of_child]).reshape(-1, L, B, k)   # child ids are 1..N-1
     dw = d / e_all[:, :, None, None]
     css = np.empty((L, B, k, k))
     for i in range(k):

@@ -39,6 +39,7 @@ from .stage_diagnostics import diagnostics_stage, exponent_targets
 from .stage_fits import (blank_numbers, fit_moment_rows, nothing_estimable, row_method_fit,
                          slope_tests as make_slope_tests, value_range)
 from .checking import check_run
+from .phylo_stage import add_phylo_columns, phylo_messages, phylo_stage
 from .predicting import prediction_fits
 from .stage_groups import group_stage
 from .stage_predict import accuracy_and_factors, add_accuracy_columns, prediction_stage
@@ -230,6 +231,13 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         if means_points is not None:
             point_sets[("group_means", "")] = means_points
 
+    phylo = None
+    if cfg.data.tree is not None:   # phylogenetic lines: scaling/phylo_stage.py
+        phylo = phylo_stage(pts, cfg, base)
+        rows += phylo.rows
+        line_fits.update(phylo.line_fits)
+        notes += phylo.notes
+
     if not line_fits:
         raise DataError(nothing_estimable(cfg, pts, rows, n_dropped))
 
@@ -238,6 +246,8 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     line_fits = dict(sorted(line_fits.items(), key=lambda kv: order.get(kv[0], len(order))))
 
     fits = pd.DataFrame([blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
+    if phylo is not None:
+        fits = add_phylo_columns(fits, phylo)
     slope_tests = make_slope_tests(line_fits, cfg)
     if common_test_rows:
         slope_tests = pd.concat([slope_tests, pd.DataFrame(common_test_rows,
@@ -254,6 +264,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     tables["_saved_fits"] = saved
 
     messages += pooled_fit_messages(line_fits, cfg)
+
+    if phylo is not None:
+        messages += phylo_messages(phylo, {m: f for (s, g, m), f in line_fits.items()
+                                           if s == "pooled"}, cfg, has_groups=data.has_groups)
     messages += g_messages
 
     # Diagnostics stage: is the power law, its error structure and its line right?
@@ -293,7 +307,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         "deming_lambda": cfg.model.deming_lambda if "deming" in cfg.model.methods else None,
     }
     return RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
-                     dropped=data.dropped[DROPPED_COLUMNS], line_fits=line_fits,
+                     dropped=data.dropped[DROPPED_COLUMNS] if phylo is None else pd.concat(
+                         [data.dropped[DROPPED_COLUMNS], phylo.dropped], ignore_index=True),
+                     line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
                      manifest=manifest)
 

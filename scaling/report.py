@@ -250,7 +250,8 @@ def _data_section(result) -> Section:
     dropped = result.dropped
     if dropped is not None and len(dropped):
         summary = (dropped.groupby("reason", sort=False)["row"]
-                   .agg(lambda rows: ", ".join(str(int(v)) for v in list(rows)[:12])
+                   .agg(lambda rows: ", ".join(str(int(v)) for v in list(rows)[:12]
+                                               if pd.notna(v))   # tree tips: no row
                         + (" …" if len(rows) > 12 else ""))
                    .reset_index())
         summary.insert(1, "rows", dropped.groupby("reason", sort=False).size().to_numpy())

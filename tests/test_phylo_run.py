@@ -1,0 +1,240 @@
+"""Tests of the phylogenetic stage of a run (scaling/phylo_stage.py via pipeline.analyse)."""
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+from scaling.cli import main
+from scaling.config import config_from_dict, load_config
+from scaling.errors import ConfigError, DataError
+from scaling.phylo import fit_phylo, read_newick
+from scaling.pipeline import analyse
+
+ROOT = Path(__file__).resolve().parents[1]
+PHYSIOLOGY = ROOT / "configs" / "physiology.yaml"
+
+
+def _analyse(cfg):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return analyse(cfg)
+
+
+def _write(tmp_path, species, x, y, newick, *, extra_data=None, phylogeny=None,
+           methods=("ols", "sma", "ma")):
+    """A small invented table and tree in tmp_path; returns the raw config mapping."""
+    table = pd.DataFrame({"sp": species, "mass": x, "rate": y})
+    table.to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "t.nwk").write_text(newick, encoding="utf-8")
+    raw = {"data": {"file": "d.csv", "x": "mass", "y": "rate", "species": "sp",
+                    "tree": "t.nwk", **(extra_data or {})},
+           "model": {"methods": list(methods)}, "diagnostics": {"enabled": False},
+           "exponents": {"three_quarters": "3/4"}, "prediction": {"x": [10.0]}}
+    if phylogeny is not None:
+        raw["model"]["phylogeny"] = phylogeny
+    return raw
+
+
+def _invented(n, seed=5):
+    """Invented species with a log-linear relation (simulation data, not a reference)."""
+    rng = np.random.default_rng(seed)
+    X = rng.normal(1.5, 0.6, n)
+    Y = 0.2 + 0.7 * X + rng.normal(0.0, 0.1, n)
+    names = [f"sp_{i:02d}" for i in range(n)]
+    return names, 10 ** X, 10 ** Y
+
+
+def _star(names, length=1.0):
+    return "(" + ",".join(f"{s}:{length}" for s in names) + ");"
+
+
+def _caterpillar(names):
+    """A non-star, ultrametric tree (tip i splits off at depth i)."""
+    n = len(names)
+    text = f"{names[-1]}:1.0,{names[-2]}:1.0"
+    for i in range(n - 3, -1, -1):
+        depth = n - 1 - i          # height of the inner clade
+        text = f"({text}):1.0,{names[i]}:{depth + 0.0}"
+        text = text
+    return f"({text});"
+
+
+class TestPhylogeneticRows:
+    def test_rows_equal_fit_phylo_called_directly(self):
+        cfg = load_config(PHYSIOLOGY)
+        res = _analyse(cfg)
+        pts = res.data.points      # the species means the run fitted
+        tree = read_newick(cfg.data.tree)
+        phylo = res.fits[res.fits["scope"] == "phylo"].set_index("method")
+        assert list(phylo.index) == ["ols", "sma"]
+        for method in ("ols", "sma"):
+            direct = fit_phylo(pts["x"], pts["y"], tree, pts["unit"],
+                               method=method, confidence=0.95, log_base=10)
+            row = phylo.loc[method]
+            # internal consistency: the run's row is fit_phylo on the raw rows
+            assert_allclose([row["slope"], row["slope_low"], row["slope_high"],
+                             row["intercept"], row["lambda"], row["lambda_low"],
+                             row["lambda_high"], row["loglik"], row["aic"]],
+                            [direct.slope, direct.slope_ci.low, direct.slope_ci.high,
+                             direct.intercept, direct.lam, direct.lam_ci.low,
+                             direct.lam_ci.high, direct.loglik, direct.aic], rtol=1e-12)
+            assert row["lambda_estimate"] == "ml" and row["n"] == direct.n
+            tests = res.slope_tests[(res.slope_tests["scope"] == "phylo")
+                                    & (res.slope_tests["method"] == method)]
+            for t in tests.itertuples():
+                ref = direct.test_slope(t.exponent)
+                # internal consistency: slope_tests.csv holds PhyloFit.test_slope
+                assert_allclose([t.statistic, t.p_value], [ref.statistic, ref.p_value],
+                                rtol=1e-12)
+        # ordinary rows carry blank lambda columns
+        assert res.fits.loc[res.fits["scope"] != "phylo", "lambda"].isna().all()
+
+    def test_star_tree_reproduces_ordinary_fits(self, tmp_path):
+        names, x, y = _invented(15)
+        res = _analyse(config_from_dict(_write(tmp_path, names, x, y, _star(names)),
+                                        base_dir=tmp_path))
+        f = res.fits.set_index(["scope", "method"])
+        cols = ["slope", "slope_low", "slope_high", "intercept", "intercept_low",
+                "intercept_high", "r2"]
+        for method in ("ols", "sma", "ma"):
+            # exact law: a star tree with equal tip heights has V = c I, so GLS is the
+            # ordinary fit (Grafen 1989, Phil. Trans. R. Soc. B 326:119)
+            assert_allclose(f.loc[("phylo", method), cols].to_numpy(float),
+                            f.loc[("pooled", method), cols].to_numpy(float), rtol=1e-9)
+
+    def test_phylo_lines_reach_the_figure_not_predictions(self, tmp_path):
+        names, x, y = _invented(12)
+        res = _analyse(config_from_dict(_write(tmp_path, names, x, y, _caterpillar(names)),
+                                        base_dir=tmp_path))
+        # prediction intervals of phylogenetic lines are not defined yet: none are made
+        assert set(res.predictions["scope"]) == {"pooled"}
+        from scaling.figures import plot_scaling
+        def labels(ax):
+            return [h.get_label() for h in ax.figure.legends[0].legend_handles] \
+                if ax.figure.legends else [t.get_text() for t in ax.get_legend().get_texts()]
+        # by default the plot draws the primary method (SMA here) and its phylogenetic twin
+        assert "phylogenetic SMA" in labels(plot_scaling(res))
+        both = labels(plot_scaling(res, methods=["ols", "sma"]))
+        assert "phylogenetic SMA" in both and "phylogenetic OLS" in both
+
+    def test_fixed_lambda_is_recorded(self, tmp_path):
+        names, x, y = _invented(10)
+        raw = _write(tmp_path, names, x, y, _caterpillar(names), phylogeny={"lambda": 0.5},
+                     methods=("ols",))
+        res = _analyse(config_from_dict(raw, base_dir=tmp_path))
+        row = res.fits[res.fits["scope"] == "phylo"].iloc[0]
+        assert row["lambda"] == 0.5 and row["lambda_estimate"] == "fixed"
+        assert np.isnan(row["lambda_low"])
+
+
+class TestMismatchedNames:
+    def test_species_without_tip_and_tips_without_data_are_listed(self, tmp_path):
+        names, x, y = _invented(10)
+        tree_names = names[:8] + ["sp_lonely", "sp_other"]
+        res = _analyse(config_from_dict(_write(tmp_path, names, x, y, _star(tree_names)),
+                                        base_dir=tmp_path))
+        reasons = " | ".join(res.dropped["reason"])
+        assert "'sp_08' has no tip" in reasons and "'sp_09' has no tip" in reasons
+        assert "'sp_lonely' has no data" in reasons and "pruned" in reasons
+        assert int(res.fits.loc[res.fits["scope"] == "phylo", "n"].iloc[0]) == 8
+        assert int(res.fits.loc[res.fits["scope"] == "pooled", "n"].iloc[0]) == 10
+        assert any("no tip in t.nwk" in w for w in res.warnings)
+
+    def test_drops_are_written_to_dropped_rows_csv(self, tmp_path):
+        names, x, y = _invented(10)
+        raw = _write(tmp_path, names, x, y, _star(names[:8] + ["sp_lonely"]),
+                     methods=("sma",))
+        import yaml
+        (tmp_path / "c.yaml").write_text(yaml.safe_dump(raw), encoding="utf-8")
+        assert main(["run", str(tmp_path / "c.yaml"), "--out", str(tmp_path / "out"),
+                     "--quiet"]) == 0
+        dropped = pd.read_csv(tmp_path / "out" / "dropped_rows.csv", dtype=str,
+                              keep_default_na=False)
+        assert list(dropped["row"]) == ["9", "10", ""]   # data rows of sp_08, sp_09; a tip
+        assert dropped["reason"].str.contains("pruned").sum() == 1
+
+
+class TestBadTrees:
+    @pytest.mark.parametrize("newick, what", [
+        ("((a:1,b:-2):1,c:3);", "negative"),
+        ("((a:1,b:2):1,c:3;", "character"),
+    ])
+    def test_bad_tree_exits_2_with_one_line_naming_the_file(self, tmp_path, capsys,
+                                                            newick, what):
+        names, x, y = _invented(3)
+        raw = _write(tmp_path, ["a", "b", "c"], x, y, newick)
+        import yaml
+        (tmp_path / "c.yaml").write_text(yaml.safe_dump(raw), encoding="utf-8")
+        code = main(["run", str(tmp_path / "c.yaml"), "--out", str(tmp_path / "out")])
+        err = capsys.readouterr().err.strip().splitlines()
+        assert code == 2 and len(err) == 1
+        assert err[0].startswith("error: tree ") and "t.nwk" in err[0] and "character" in err[0]
+        assert what in err[0]
+
+
+class TestPhyloConfig:
+    def test_species_column_missing_is_a_clear_error(self, tmp_path):
+        names, x, y = _invented(5)
+        raw = _write(tmp_path, names, x, y, _star(names))
+        raw["data"]["species"] = "taxon"
+        with pytest.raises(DataError, match=r"column 'taxon' \(data.species\) not found"):
+            _analyse(config_from_dict(raw, base_dir=tmp_path))
+
+    def test_tree_needs_species(self, tmp_path):
+        raw = _write(tmp_path, ["a"], [1.0], [1.0], "(a:1);")
+        del raw["data"]["species"]
+        with pytest.raises(ConfigError, match=r"data.species: is required with data.tree"):
+            config_from_dict(raw, base_dir=tmp_path)
+
+    def test_species_needs_tree(self, tmp_path):
+        raw = _write(tmp_path, ["a"], [1.0], [1.0], "(a:1);")
+        del raw["data"]["tree"]
+        with pytest.raises(ConfigError, match=r"data.species: is used only with data.tree"):
+            config_from_dict(raw, base_dir=tmp_path)
+
+    def test_average_within_must_be_the_species(self, tmp_path):
+        raw = _write(tmp_path, ["a"], [1.0], [1.0], "(a:1);",
+                     extra_data={"average_within": "site"})
+        with pytest.raises(ConfigError, match=r"data.average_within: must be the species"):
+            config_from_dict(raw, base_dir=tmp_path)
+
+    def test_species_cannot_be_x(self, tmp_path):
+        raw = _write(tmp_path, ["a"], [1.0], [1.0], "(a:1);", extra_data={"species": "mass"})
+        with pytest.raises(ConfigError, match=r"data.species: 'mass' is also the x or y"):
+            config_from_dict(raw, base_dir=tmp_path)
+
+    @pytest.mark.parametrize("value, message", [
+        ({"lambda": "mle"}, r"model.phylogeny.lambda: 'mle' is not ml, reml"),
+        ({"lambda": 1.5}, r"model.phylogeny.lambda: Pagel's lambda must lie between 0 and 1"),
+        ({"lamda": "ml"}, r"model.phylogeny.lamda: unknown key"),
+        ("ml", r"model.phylogeny: expected a mapping"),
+    ])
+    def test_bad_phylogeny_settings(self, tmp_path, value, message):
+        raw = _write(tmp_path, ["a"], [1.0], [1.0], "(a:1);", phylogeny=value)
+        with pytest.raises(ConfigError, match=message):
+            config_from_dict(raw, base_dir=tmp_path)
+
+    def test_reml_is_passed_through(self, tmp_path):
+        names, x, y = _invented(10)
+        raw = _write(tmp_path, names, x, y, _caterpillar(names), phylogeny={"lambda": "reml"},
+                     methods=("ols",))
+        res = _analyse(config_from_dict(raw, base_dir=tmp_path))
+        assert res.fits.loc[res.fits["scope"] == "phylo", "lambda_estimate"].iloc[0] == "reml"
+
+
+class TestPhysiologyExample:
+    def test_recovers_the_stated_exponent(self):
+        res = _analyse(load_config(PHYSIOLOGY))
+        phylo = res.fits[res.fits["scope"] == "phylo"]
+        assert len(phylo) == 2
+        for row in phylo.itertuples():
+            # simulation truth: demo_data/make_physiology.py draws b = 0.75 in every clade
+            assert row.slope_low <= 0.75 <= row.slope_high
+        text = " ".join(res.messages)
+        assert "Phylogenetic SMA over tree species_tree.nwk" in text
+        assert "Not yet phylogenetic" in text
