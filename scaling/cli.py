@@ -92,11 +92,14 @@ def _summary_table(result) -> str:
     fits = result.fits
     pct = f"{100 * result.config.model.confidence:g}% CI"
     mw = max([6] + [len(str(m)) for m in fits["method"]])
-    head = f"{'scope':<12} {'group':<14} {'method':<{mw}} {'n':>5} {'slope':>7}  {pct:<17} {'r2':>6}"
+    several = "term" in fits.columns and (fits["term"].astype(str) != "").any()
+    head = f"{'scope':<12} {'term' if several else 'group':<14} {'method':<{mw}} {'n':>5} {'slope':>7}  {pct:<17} {'r2':>6}"
     lines = [head, "-" * len(head)]
     for r in fits.itertuples(index=False):
         ci = f"{_fmt(r.slope_low)} to {_fmt(r.slope_high)}" if np.isfinite(r.slope) else r.note
-        lines.append(f"{r.scope:<12} {str(r.group)[:14]:<14} {r.method:<{mw}} {r.n:>5} "
+        label = getattr(r, "term", "") if isinstance(getattr(r, "term", ""), str) else ""
+        label = label or str(r.group)   # several predictors: the term in the group column
+        lines.append(f"{r.scope:<12} {label[:14]:<14} {r.method:<{mw}} {r.n:>5} "
                      f"{_fmt(r.slope):>7}  {ci:<17} {_fmt(r.r2):>6}")
     return "\n".join(lines)
 

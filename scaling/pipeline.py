@@ -29,6 +29,7 @@ from .errors import DataError, OutputError, ScalingError, ScalingWarning
 from .lines import (MIN_N, METHODS, base_label, describe_test, fit_moments,
                     line_fit_from_moments, method_label, parse_log_base)
 from .moments import group_moments, moments
+from . import multi_stage
 
 __all__ = ["RunResult", "analyse", "write_outputs", "run_config", "FIT_COLUMNS",
            "SLOPE_TEST_COLUMNS", "DROPPED_COLUMNS", "CAUTION"]
@@ -196,6 +197,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ScalingWarning)
         data = load_data(cfg.data, log_base=base)
+    data, units_message = multi_stage.apply_model_units(data, cfg, base)   # model.units
     pts = data.points
     X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
     messages: list[str] = []
@@ -212,6 +214,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                     f"fitting {len(pts)} points{unit_word}.")
     if n_dropped:
         notes.append(f"{n_dropped} rows were dropped; see dropped_rows.csv for each reason.")
+    if units_message:
+        messages.append(units_message)
+    if isinstance(cfg.data.x, tuple):   # several predictors: OLS stage of its own
+        return multi_stage.analyse_several(cfg, data, base, messages, notes)
 
     moment_methods = [m for m in cfg.model.methods if m in METHODS or m == "deming"]
     row_methods = [m for m in cfg.model.methods if m not in moment_methods]
@@ -300,6 +306,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     # Prediction stage: accuracy and correction factors per fit, then predictions.
     saved, extra_cols = _accuracy_and_factors(line_fits, point_sets)
     fits = _add_columns(fits, extra_cols)
+    fits = multi_stage.constant_columns(fits, data.units, base)   # term, a, a_low, a_high, a_unit
     pred_tables, pred_notes = _predictions(line_fits, saved, cfg)
     tables.update(pred_tables)
     notes += pred_notes
@@ -317,6 +324,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
             for name, b0 in cfg.exponents.items():
                 test = fit.test_slope(b0, hypothesis=name)
                 messages.append("  " + describe_test(test, alpha=1 - cfg.model.confidence))
+            a_line = multi_stage.constant_sentence(fit, data.units, base, cfg.model.confidence)
+            if a_line:
+                messages.append(a_line)
 
     messages += g_messages
 
