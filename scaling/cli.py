@@ -49,8 +49,10 @@ def _build_parser() -> argparse.ArgumentParser:
     check = sub.add_parser("check", parents=[common], help="validate config and data; fit nothing")
     check.add_argument("config", metavar="CONFIG.yaml")
 
-    init = sub.add_parser("init", parents=[common], help="write a commented starter config")
-    init.add_argument("path", metavar="PATH")
+    init = sub.add_parser("init", parents=[common], help="write a commented starter config, "
+                          "or a worked example (config and data) into a folder")
+    init.add_argument("path", metavar="PATH", help="the config file to write; for the worked "
+                      "examples (fisheries, forestry, palaeo, physiology) the folder")
     init.add_argument("--example", default="basic", metavar="NAME",
                       help="starter to write: " + ", ".join(_examples()))
     init.add_argument("--force", action="store_true", help="overwrite PATH if it exists")
@@ -74,8 +76,8 @@ def _build_parser() -> argparse.ArgumentParser:
 
 
 def _examples() -> list[str]:
-    from .starter import EXAMPLES
-    return sorted(EXAMPLES)
+    from .starter import EXAMPLE_FOLDERS, EXAMPLES
+    return sorted(EXAMPLES) + sorted(EXAMPLE_FOLDERS)
 
 
 # --------------------------------------------------------------------------
@@ -164,13 +166,15 @@ def _cmd_check(args) -> int:
 
 def _cmd_init(args) -> int:
     from .errors import ConfigError, OutputError
-    from .starter import EXAMPLES
+    from .starter import EXAMPLE_FOLDERS, EXAMPLES
+    if args.example in EXAMPLE_FOLDERS:   # a worked example: config(s) and data into a folder
+        return _init_example(args)
     if args.example not in EXAMPLES:
         import difflib
-        close = difflib.get_close_matches(args.example, EXAMPLES, n=1)
+        close = difflib.get_close_matches(args.example, _examples(), n=1)
         hint = f"; did you mean '{close[0]}'?" if close else ""
         raise ConfigError(f"--example: no starter named '{args.example}'{hint} "
-                          f"(choose from {', '.join(sorted(EXAMPLES))})")
+                          f"(choose from {', '.join(_examples())})")
     path = Path(args.path)
     if path.exists() and not args.force:
         raise OutputError(f"{path}: already exists; use --force to overwrite it")
@@ -178,6 +182,29 @@ def _cmd_init(args) -> int:
         raise OutputError(f"{path.parent}: folder does not exist")
     path.write_text(EXAMPLES[args.example], encoding="utf-8")
     print(f"wrote {path}: edit data.file, data.x and data.y, then run 'scaling check {path}'")
+    return 0
+
+
+def _init_example(args) -> int:
+    from .errors import OutputError
+    from .starter import EXAMPLE_FOLDERS, example_files
+    folder = Path(args.path)
+    if folder.exists() and not folder.is_dir():
+        raise OutputError(f"{folder}: exists and is not a folder (--example {args.example} "
+                          "writes a folder: its config and data)")
+    files = example_files(args.example)
+    clash = [n for n in files if (folder / n).exists()]
+    if clash and not args.force:
+        raise OutputError(f"{folder / clash[0]}: already exists; use --force to overwrite it")
+    if not folder.parent.exists():
+        raise OutputError(f"{folder.parent}: folder does not exist")
+    folder.mkdir(exist_ok=True)
+    for name, content in files.items():
+        (folder / name).write_bytes(content)
+    configs = EXAMPLE_FOLDERS[args.example]
+    print(f"wrote the {args.example} example to {folder}: " + ", ".join(sorted(files)))
+    for c in configs:
+        print(f"  run it with: scaling run {folder / c}")
     return 0
 
 
