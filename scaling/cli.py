@@ -155,8 +155,13 @@ def _cmd_check(args) -> int:
         small = [g for g, n in counts.items() if n < MIN_N]
         if small:
             print(f"  note: group fits will be skipped for n < {MIN_N}: {', '.join(small)}")
-    print(f"  x range {pts['x'].min():.4g} to {pts['x'].max():.4g}"
-          f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
+    if isinstance(cfg.data.x, tuple):   # several predictors: each one's range
+        print("  " + "; ".join(f"{name} range {pts[f'x{j}'].min():.4g} to "
+                               f"{pts[f'x{j}'].max():.4g}" for j, name in enumerate(cfg.data.x))
+              + f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
+    else:
+        print(f"  x range {pts['x'].min():.4g} to {pts['x'].max():.4g}"
+              f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
     for w in caught:
         if issubclass(w.category, ScalingWarning):
             print(f"  note: {w.message}")

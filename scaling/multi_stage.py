@@ -191,7 +191,7 @@ def _new_rows(cfg, names) -> pd.DataFrame | None:
             bad = np.flatnonzero(~(values > 0).to_numpy())
             if bad.size:
                 raise DataError(f"{path}: prediction.from row {bad[0] + 1}, column '{n}': "
-                                f"{table[n].iloc[bad[0]]!r} is not a positive number")
+                                f"'{table[n].iloc[bad[0]]}' is not a positive number")
         keep = [c for c in table.columns if c not in names]
         frame = table[list(names)].astype(float)
         for c in keep:   # identifiers (tree, plot) travel with the predictions
@@ -346,3 +346,37 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
                          dropped=data.dropped[_pl.DROPPED_COLUMNS], line_fits={},
                          tables=tables, messages=tuple(messages), warnings=tuple(notes),
                          manifest=manifest)
+
+
+def prediction_sentences(tables: dict, cfg, units: dict, *, most: int = 6) -> list:
+    """One line with the pooled predictions of the first method (at most ``most`` values).
+
+    E.g. for a fossil: 'Predicted y (pooled OLS, smearing): at x = 118 mm,
+    153.9 kg (95% prediction interval 97.41 to 232.7)'.  Longer lists stay in
+    predictions.csv / inverse_predictions.csv.
+    """
+    out = []
+    method = cfg.model.methods[0]
+    ux, uy = units.get("x", ""), units.get("y", "")
+    ux = "" if isinstance(ux, tuple) else ux
+    for name, given, got, gu, pu in (("predictions", "x", "y", ux, uy),
+                                     ("inverse_predictions", "y", "x", uy, ux)):
+        table = tables.get(name)
+        if not isinstance(table, pd.DataFrame) or "scope" not in table.columns:
+            continue
+        rows = table[(table["scope"] == "pooled") & (table["method"] == method)]
+        if not len(rows) or len(rows) > most:
+            continue
+        r0 = rows.iloc[0]
+        how = f", {r0['correction']}" if "correction" in rows.columns else ""
+        parts = []
+        for r in rows.itertuples(index=False):
+            r = r._asdict()
+            flag = " — extrapolated" if r.get("extrapolated") else ""
+            parts.append(f"at {given} = {r[given]:.4g}{' ' + gu if gu else ''}, "
+                         f"{r[got]:.4g}{' ' + pu if pu else ''} ({100 * r['confidence']:g}% "
+                         f"{r['interval']} interval {r[got + '_low']:.4g} to "
+                         f"{r[got + '_high']:.4g}){flag}")
+        word = "Predicted" if name == "predictions" else "Inverse prediction of"
+        out.append(f"{word} {got} (pooled {method.upper()}{how}): " + "; ".join(parts) + ".")
+    return out

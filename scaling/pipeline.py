@@ -328,6 +328,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
             if a_line:
                 messages.append(a_line)
 
+    messages += multi_stage.prediction_sentences(tables, cfg, data.units)
     messages += g_messages
 
     # Diagnostics stage: is the power law, its error structure and its line right?

@@ -6,9 +6,10 @@ import doctest
 import pytest
 
 import scaling.multi
+import scaling.starter
 import scaling.units
 
-MODULES = [scaling.multi, scaling.units]
+MODULES = [scaling.multi, scaling.starter, scaling.units]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)

@@ -266,3 +266,62 @@ class TestSeveralPredictorConfigErrors:
         raw = {"data": {"file": "x.csv", "x": "a", "y": "b", "units": {"x": "g", "y": "wats"}}}
         with pytest.raises(ConfigError, match=r"data.units.y: unknown unit 'wats'"):
             config_from_dict(raw)
+
+
+class TestMoreConfigErrors:
+    @pytest.mark.parametrize("raw,match", [
+        ({"data": {"x": "a", "units": {"x": ["g", "g"]}}}, r"data.units.x: is a list, but"),
+        ({"data": {"x": "a"}, "model": {"units": {"x": "kg"}}},
+         r"model.units.x: needs data.units.x"),
+        ({"data": {"x": ["a", "c"]}, "model": {"units": {"y": "kg"}}},
+         r"model.units.y: needs data.units.y"),
+        ({"data": {"x": "a"}, "model": {"combined": {"weights": {"a": 1}}}},
+         r"model.combined: needs several predictors"),
+        ({"data": {"x": "a"}, "prediction": {"x": {"a": [1]}}},
+         r"prediction.x: a mapping of columns needs several"),
+        ({"data": {"x": "a"}, "prediction": {"from": "new.csv"}},
+         r"prediction.from: is available with several predictors"),
+        ({"data": {"x": ["a", "c"]}, "prediction": {"y": [1]}},
+         r"prediction.y: inverse prediction needs a single predictor"),
+        ({"data": {"x": ["a", "c"]}, "prediction": {"from": "n.csv", "total": True,
+                                                     "correction": "none"}},
+         r"prediction.total: a total needs means"),
+        ({"data": {"x": ["a", "c"]}, "model": {"combined": {"weights": {"a": 1}, "power": 1}}},
+         r"model.combined.power: unknown key"),
+        ({"data": {"x": ["a", "c"]}, "model": {"combined": {"exponent": 1}}},
+         r"model.combined.weights: is required"),
+        ({"data": {"x": "a"}, "exponents": {"cyl": [2, 1]}},
+         r"exponents.cyl: must be one number with a single predictor"),
+        ({"data": {"x": ["a", "a"]}}, r"data.x\[1\]: 'a' is listed twice"),
+        ({"data": {"x": ["a", "c"]}, "prediction": {"x": {"a": [1], "c": [1, 2]}}},
+         r"prediction.x: every column must list the same number of values"),
+    ])
+    def test_message_names_the_key(self, raw, match):
+        full = {"data": {"file": "t.csv", "y": "b", "units": {}}, "model": {"methods": ["ols"]}}
+        for section, values in raw.items():
+            full.setdefault(section, {}).update(values)
+        if not full["data"]["units"]:
+            del full["data"]["units"]
+        with pytest.raises(ConfigError, match=match):
+            config_from_dict(full)
+
+    def test_prediction_file_problems_are_data_errors(self, tmp_path):
+        from scaling.errors import DataError
+        cfg, _ = _trees_config(tmp_path)
+        raw = dict(cfg.raw)
+        raw["prediction"] = {"from": str(tmp_path / "nope.csv")}
+        with pytest.raises(DataError, match="prediction.from file not found"):
+            scaling.run_config(config_from_dict(raw), write=False)
+        (tmp_path / "new.csv").write_text("Girth,Height\n10,70\n-1,80\n")
+        raw["prediction"] = {"from": str(tmp_path / "new.csv")}
+        with pytest.raises(DataError, match=r"row 2, column 'Girth': '-1' is not a positive"):
+            scaling.run_config(config_from_dict(raw), write=False)
+        (tmp_path / "new.csv").write_text("Girth\n10\n")
+        with pytest.raises(DataError, match="lacks the column 'Height'"):
+            scaling.run_config(config_from_dict(raw), write=False)
+
+    def test_init_example_into_a_file_is_refused(self, tmp_path, capsys):
+        target = tmp_path / "file.txt"
+        target.write_text("x")
+        assert main(["init", "--example", "forestry", str(target)]) == 2
+        assert "is not a folder" in capsys.readouterr().err
