@@ -49,8 +49,10 @@ def _build_parser() -> argparse.ArgumentParser:
     check = sub.add_parser("check", parents=[common], help="validate config and data; fit nothing")
     check.add_argument("config", metavar="CONFIG.yaml")
 
-    init = sub.add_parser("init", parents=[common], help="write a commented starter config")
-    init.add_argument("path", metavar="PATH")
+    init = sub.add_parser("init", parents=[common], help="write a commented starter config, "
+                          "or a worked example (config and data) into a folder")
+    init.add_argument("path", metavar="PATH", help="the config file to write; for the worked "
+                      "examples (fisheries, forestry, palaeo, physiology) the folder")
     init.add_argument("--example", default="basic", metavar="NAME",
                       help="starter to write: " + ", ".join(_examples()))
     init.add_argument("--force", action="store_true", help="overwrite PATH if it exists")
@@ -74,8 +76,8 @@ def _build_parser() -> argparse.ArgumentParser:
 
 
 def _examples() -> list[str]:
-    from .starter import EXAMPLES
-    return sorted(EXAMPLES)
+    from .starter import EXAMPLE_FOLDERS, EXAMPLES
+    return sorted(EXAMPLES) + sorted(EXAMPLE_FOLDERS)
 
 
 # --------------------------------------------------------------------------
@@ -94,11 +96,14 @@ def _summary_table(result) -> str:
     fits = result.fits
     pct = f"{100 * result.config.model.confidence:g}% CI"
     mw = max([6] + [len(str(m)) for m in fits["method"]])
-    head = f"{'scope':<12} {'group':<14} {'method':<{mw}} {'n':>5} {'slope':>7}  {pct:<17} {'r2':>6}"
+    several = "term" in fits.columns and (fits["term"].astype(str) != "").any()
+    head = f"{'scope':<12} {'term' if several else 'group':<14} {'method':<{mw}} {'n':>5} {'slope':>7}  {pct:<17} {'r2':>6}"
     lines = [head, "-" * len(head)]
     for r in fits.itertuples(index=False):
         ci = f"{_fmt(r.slope_low)} to {_fmt(r.slope_high)}" if np.isfinite(r.slope) else r.note
-        lines.append(f"{r.scope:<12} {str(r.group)[:14]:<14} {r.method:<{mw}} {r.n:>5} "
+        label = getattr(r, "term", "") if isinstance(getattr(r, "term", ""), str) else ""
+        label = label or str(r.group)   # several predictors: the term in the group column
+        lines.append(f"{r.scope:<12} {label[:14]:<14} {r.method:<{mw}} {r.n:>5} "
                      f"{_fmt(r.slope):>7}  {ci:<17} {_fmt(r.r2):>6}")
     return "\n".join(lines)
 
@@ -159,8 +164,13 @@ def _cmd_check(args) -> int:
         small = [g for g, n in counts.items() if n < MIN_N]
         if small:
             print(f"  note: group fits will be skipped for n < {MIN_N}: {', '.join(small)}")
-    print(f"  x range {pts['x'].min():.4g} to {pts['x'].max():.4g}"
-          f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
+    if isinstance(cfg.data.x, tuple):   # several predictors: each one's range
+        print("  " + "; ".join(f"{name} range {pts[f'x{j}'].min():.4g} to "
+                               f"{pts[f'x{j}'].max():.4g}" for j, name in enumerate(cfg.data.x))
+              + f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
+    else:
+        print(f"  x range {pts['x'].min():.4g} to {pts['x'].max():.4g}"
+              f"; y range {pts['y'].min():.4g} to {pts['y'].max():.4g}")
     for w in caught:
         if issubclass(w.category, ScalingWarning):
             print(f"  note: {w.message}")
@@ -170,13 +180,15 @@ def _cmd_check(args) -> int:
 
 def _cmd_init(args) -> int:
     from .errors import ConfigError, OutputError
-    from .starter import EXAMPLES
+    from .starter import EXAMPLE_FOLDERS, EXAMPLES
+    if args.example in EXAMPLE_FOLDERS:   # a worked example: config(s) and data into a folder
+        return _init_example(args)
     if args.example not in EXAMPLES:
         import difflib
-        close = difflib.get_close_matches(args.example, EXAMPLES, n=1)
+        close = difflib.get_close_matches(args.example, _examples(), n=1)
         hint = f"; did you mean '{close[0]}'?" if close else ""
         raise ConfigError(f"--example: no starter named '{args.example}'{hint} "
-                          f"(choose from {', '.join(sorted(EXAMPLES))})")
+                          f"(choose from {', '.join(_examples())})")
     path = Path(args.path)
     if path.exists() and not args.force:
         raise OutputError(f"{path}: already exists; use --force to overwrite it")
@@ -184,6 +196,29 @@ def _cmd_init(args) -> int:
         raise OutputError(f"{path.parent}: folder does not exist")
     path.write_text(EXAMPLES[args.example], encoding="utf-8")
     print(f"wrote {path}: edit data.file, data.x and data.y, then run 'scaling check {path}'")
+    return 0
+
+
+def _init_example(args) -> int:
+    from .errors import OutputError
+    from .starter import EXAMPLE_FOLDERS, example_files
+    folder = Path(args.path)
+    if folder.exists() and not folder.is_dir():
+        raise OutputError(f"{folder}: exists and is not a folder (--example {args.example} "
+                          "writes a folder: its config and data)")
+    files = example_files(args.example)
+    clash = [n for n in files if (folder / n).exists()]
+    if clash and not args.force:
+        raise OutputError(f"{folder / clash[0]}: already exists; use --force to overwrite it")
+    if not folder.parent.exists():
+        raise OutputError(f"{folder.parent}: folder does not exist")
+    folder.mkdir(exist_ok=True)
+    for name, content in files.items():
+        (folder / name).write_bytes(content)
+    configs = EXAMPLE_FOLDERS[args.example]
+    print(f"wrote the {args.example} example to {folder}: " + ", ".join(sorted(files)))
+    for c in configs:
+        print(f"  run it with: scaling run {folder / c}")
     return 0
 
 

@@ -39,7 +39,7 @@ _REQUIRED = object()
 @dataclass(frozen=True, slots=True, kw_only=True)
 class DataConfig:
     file: Path
-    x: str
+    x: str | tuple       # one column, or a tuple of columns (several predictors, OLS)
     y: str
     sheet: int | str = 0
     skip_rows: int = 0
@@ -50,9 +50,14 @@ class DataConfig:
     group: str | None = None
     average_within: str | None = None
     exclude: dict = field(default_factory=dict)   # column -> tuple of values
-    units: dict = field(default_factory=dict)     # {"x": "g", "y": "mW"}
+    units: dict = field(default_factory=dict)     # {"x": "g", "y": "mW"}; x a tuple with several x
     tree: Path | None = None        # Newick file: phylogenetic fits (scaling/phylo_stage.py)
     species: str | None = None      # column naming the tips of the tree
+
+    @property
+    def x_columns(self) -> tuple:
+        """The predictor column(s) as a tuple (one name for a single predictor)."""
+        return self.x if isinstance(self.x, tuple) else (self.x,)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -66,6 +71,8 @@ class ModelConfig:
     # requested, else OLS (else the first method)
     primary: str = "sma"
     phylogeny: dict = field(default_factory=lambda: {"lambda": "ml"})   # used with data.tree
+    units: dict = field(default_factory=dict)     # fit in these units: {"x": "kg", "y": "W"}
+    combined: dict | None = None  # {"weights": {col: w}, "exponent": 1.0} (several x)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -83,6 +90,9 @@ class PredictionConfig:
     correction: str = "smearing"
     interval: str = "prediction"
     methods: tuple = ()      # lines that predict; () = OLS (else the first method fitted)
+    x_table: dict = field(default_factory=dict)   # several x: column -> tuple of values
+    from_file: Path | None = None   # prediction.from: a CSV of new rows (several x)
+    total: bool = False             # several x: also the total over the new rows
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -309,7 +319,15 @@ def _exponents(value, path):
     for name, exponent in value.items():
         _string(name, f"{path}.{name}")
         # "3/4" reads as a fraction, which is how people write exponents.
-        out[str(name)] = _exponent_value(exponent, f"{path}.{name}")
+        where = f"{path}.{name}"
+        if isinstance(exponent, (list, tuple)):     # one per predictor (data.x a list)
+            out[str(name)] = tuple(_exponent_value(e, f"{where}[{i}]")
+                                   for i, e in enumerate(exponent))
+        elif isinstance(exponent, dict):            # column: exponent (data.x a list)
+            out[str(name)] = {str(c): _exponent_value(e, f"{where}.{c}")
+                              for c, e in exponent.items()}
+        else:
+            out[str(name)] = _exponent_value(exponent, where)
     return out
 
 
@@ -389,13 +407,182 @@ def _seed(value, path):
     return _int(value, path, minimum=0)
 
 
+
+# ---- several predictors and units (issue: multi-predictor power laws, units)
+
+def _x_columns(value, path):
+    """One column name, or a list of distinct names (several predictors)."""
+    if isinstance(value, (list, tuple)):
+        names = _list_of(_string, non_empty=True, noun="column")(value, path)
+        return names[0] if len(names) == 1 else names
+    return _string(value, path)
+
+
+def _unit(value, path) -> str:
+    from .units import parse_unit   # pint, loaded only when units are given
+    text = _string(value, path)
+    try:
+        parse_unit(text, key=path)
+    except ConfigError as exc:
+        raise _Bad(path, str(exc).split(": ", 1)[1]) from None
+    return text
+
+
+def _unit_mapping(value, path, example):
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise _Bad(path, f"expected a mapping like {example}")
+    out = {}
+    for key, text in value.items():
+        if key not in ("x", "y"):
+            raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, ('x', 'y'))}")
+        if key == "x" and isinstance(text, (list, tuple)):
+            out[key] = tuple(_unit(t, f"{path}.x[{i}]") for i, t in enumerate(text))
+        else:
+            out[key] = _unit(text, f"{path}.{key}")
+    return out
+
+
+def _data_units(value, path):
+    return _unit_mapping(value, path, "{x: g, y: mW} (units pint understands)")
+
+
+def _model_units(value, path):
+    return _unit_mapping(value, path, "{x: kg, y: W} (the units to fit in)")
+
+
+def _combined(value, path):
+    if value is None:
+        return None
+    if not isinstance(value, dict):
+        raise _Bad(path, "expected a mapping like {weights: {diameter: 2, height: 1}, exponent: 1}")
+    for key in value:
+        if key not in ("weights", "exponent", "label"):
+            raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, ('weights', 'exponent', 'label'))}")
+    weights = value.get("weights")
+    if not isinstance(weights, dict) or not weights:
+        raise _Bad(f"{path}.weights", "is required: a mapping of predictor column: weight, "
+                   "e.g. {diameter: 2, height: 1} for D^2 H")
+    out = {"weights": {str(k): _exponent_value(w, f"{path}.weights.{k}")
+                       for k, w in weights.items()},
+           "exponent": _exponent_value(value.get("exponent", 1), f"{path}.exponent")}
+    if "label" in value:
+        out["label"] = _string(value["label"], f"{path}.label")
+    return out
+
+
+def _prediction_x(value, path):
+    """A list of values (one predictor) or a mapping column -> list (several)."""
+    if isinstance(value, dict):
+        out = {}
+        for key, values in value.items():
+            out[str(key)] = _positive_numbers(values, f"{path}.{key}")
+        lengths = {len(v) for v in out.values()}
+        if len(lengths) > 1:
+            raise _Bad(path, "every column must list the same number of values "
+                       f"(got {', '.join(f'{k}: {len(v)}' for k, v in out.items())})")
+        return out
+    return _positive_numbers(value, path)
+
+
+def _check_several_x(sections, exponents) -> None:
+    """Cross-checks when data.x lists several predictor columns."""
+    data, model, pred = sections["data"], sections["model"], sections["prediction"]
+    xs = data["x"]
+    k = len(xs)
+    from .multi import check_methods
+    try:
+        check_methods(model["methods"], k, key="model.methods")
+    except ConfigError as exc:
+        raise _Bad("model.methods", str(exc).split(": ", 1)[1]) from None
+    for key in ("group", "average_within"):
+        if data[key] is not None:
+            raise _Bad(f"data.{key}", "is not available with several predictors (data.x is a "
+                       "list); fit one predictor per group, or remove it")
+    for section, units in (("data.units", data["units"]), ("model.units", model["units"])):
+        ux = units.get("x")
+        if ux is not None and (not isinstance(ux, tuple) or len(ux) != k):
+            raise _Bad(f"{section}.x", f"needs a list of {k} units, one per column of data.x "
+                       f"({', '.join(xs)})")
+    if model["units"].get("x") is not None and data["units"].get("x") is None:
+        raise _Bad("model.units.x", "needs data.units.x (the units of the data) to convert from")
+    if model["units"].get("y") is not None and data["units"].get("y") is None:
+        raise _Bad("model.units.y", "needs data.units.y (the units of the data) to convert from")
+    for name, value in exponents.items():
+        where = f"exponents.{name}"
+        if isinstance(value, tuple):
+            if len(value) != k:
+                raise _Bad(where, f"needs {k} exponents, one per column of data.x "
+                           f"({', '.join(xs)}), got {len(value)}")
+        elif isinstance(value, dict):
+            for col in value:
+                if col not in xs:
+                    raise _Bad(f"{where}.{col}", f"is not a column of data.x{_suggest(col, xs)}")
+        else:
+            raise _Bad(where, f"with several predictors give a list of {k} exponents "
+                       f"(e.g. [2, 1]) or a mapping of column: exponent")
+    comb = model["combined"]
+    if comb is not None:
+        for col in comb["weights"]:
+            if col not in xs:
+                raise _Bad(f"model.combined.weights.{col}",
+                           f"is not a column of data.x{_suggest(col, xs)}")
+        missing = [c for c in xs if c not in comb["weights"]]
+        if missing:
+            raise _Bad("model.combined.weights", f"must give a weight for every column of "
+                       f"data.x (missing {', '.join(missing)}; weight 0 leaves one out)")
+    px = pred["x"]
+    if px and not isinstance(px, dict):
+        raise _Bad("prediction.x", "with several predictors give a mapping of column: values, "
+                   f"e.g. {{{xs[0]}: [10, 20], {xs[1]}: [5, 8]}}, or prediction.from: a CSV")
+    if isinstance(px, dict):
+        for col in px:
+            if col not in xs:
+                raise _Bad(f"prediction.x.{col}", f"is not a column of data.x{_suggest(col, xs)}")
+        missing = [c for c in xs if c not in px]
+        if missing:
+            raise _Bad("prediction.x", f"needs values for every column of data.x "
+                       f"(missing {', '.join(missing)})")
+    if pred["y"]:
+        raise _Bad("prediction.y", "inverse prediction needs a single predictor")
+    if pred["total"] and not (px or pred["from"]):
+        raise _Bad("prediction.total", "needs new rows: prediction.x or prediction.from")
+    if pred["total"] and pred["correction"] == "none":
+        raise _Bad("prediction.total", "a total needs means: set prediction.correction to "
+                   "smearing, parametric or ratio")
+
+
+def _check_single_x(sections, exponents) -> None:
+    data, model, pred = sections["data"], sections["model"], sections["prediction"]
+    for section, units in (("data.units", data["units"]), ("model.units", model["units"])):
+        if isinstance(units.get("x"), tuple):
+            raise _Bad(f"{section}.x", "is a list, but data.x names one column")
+    for key in ("x", "y"):
+        if model["units"].get(key) is not None and data["units"].get(key) is None:
+            raise _Bad(f"model.units.{key}", f"needs data.units.{key} (the units of the data) "
+                       "to convert from")
+    for name, value in exponents.items():
+        if not isinstance(value, float):
+            raise _Bad(f"exponents.{name}", "must be one number with a single predictor")
+    if model["combined"] is not None:
+        raise _Bad("model.combined", "needs several predictors (data.x as a list)")
+    if isinstance(pred["x"], dict):
+        raise _Bad("prediction.x", "a mapping of columns needs several predictors; give a "
+                   "list of values of data.x")
+    for key in ("from", "total"):
+        if pred[key]:
+            raise _Bad(f"prediction.{key}", "is available with several predictors (data.x as "
+                       "a list); with one, use 'scaling predict RESULTS --from FILE.csv'")
+
+
 # --------------------------------------------------------------------------
 # the schema: section -> key -> (reader, default)
 
 _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
     "data": {
         "file": (_string, _REQUIRED),
-        "x": (_string, _REQUIRED),
+        "x": (_x_columns, _REQUIRED),
         "y": (_string, _REQUIRED),
         "sheet": (_sheet, 0),
         "skip_rows": (lambda v, p: _int(v, p, minimum=0), 0),
@@ -406,7 +593,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "group": (_optional_string, None),
         "average_within": (_optional_string, None),
         "exclude": (_exclude, {}),
-        "units": (_xy_labels, {}),
+        "units": (_data_units, {}),
         "tree": (_optional_string, None),
         "species": (_optional_string, None),
     },
@@ -418,6 +605,8 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "error_variances": (_error_variances, {}),
         "primary": (lambda v, p: None if v is None else _method(v, p), None),
         "phylogeny": (_phylogeny, {"lambda": "ml"}),
+        "units": (_model_units, {}),
+        "combined": (_combined, None),
     },
     "diagnostics": {
         "enabled": (_boolean, True),
@@ -438,8 +627,10 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "pairwise_max": (lambda v, p: _int(v, p, minimum=2), 20),
     },
     "prediction": {
-        "x": (_positive_numbers, ()),
+        "x": (_prediction_x, ()),
         "y": (_positive_numbers, ()),
+        "from": (_string, None),
+        "total": (_boolean, False),
         "correction": (_choice(CORRECTIONS), "smearing"),
         "interval": (_choice(INTERVALS), "prediction"),
         "methods": (_list_of(_method, noun="method"), ()),
@@ -535,12 +726,25 @@ def _build(raw, base_dir: Path, source) -> Config:
     data = sections["data"]
     data["file"] = (base_dir / Path(data["file"]).expanduser()).resolve() \
         if not Path(data["file"]).is_absolute() else Path(data["file"])
-    if data["x"] == data["y"]:
-        raise _Bad("data.y", f"is the same column as data.x ({data['x']!r})")
+    xs = data["x"] if isinstance(data["x"], tuple) else (data["x"],)
+    if data["y"] in xs:
+        raise _Bad("data.y", f"is the same column as data.x ({data['y']!r})")
     for key in ("group", "average_within"):
-        if data[key] is not None and data[key] in (data["x"], data["y"]):
+        if data[key] is not None and data[key] in (*xs, data["y"]):
             raise _Bad(f"data.{key}", f"{data[key]!r} is also the x or y column")
     _phylo_keys(data, base_dir)
+    exponents = _exponents(raw.get("exponents"), "exponents")
+    if isinstance(data["x"], tuple):
+        _check_several_x(sections, exponents)
+    else:
+        _check_single_x(sections, exponents)
+    pred = sections["prediction"]
+    if isinstance(pred["x"], dict):
+        pred["x_table"], pred["x"] = pred["x"], ()
+    src = pred.pop("from")
+    pred["from_file"] = None if src is None else (
+        Path(src) if Path(src).expanduser().is_absolute()
+        else (base_dir / Path(src).expanduser()).resolve())
     if sections["groups"]["weight_means"]:
         unweightable = [m for m in sections["model"]["methods"] if m != "ols"]
         if unweightable:
@@ -576,7 +780,7 @@ def _build(raw, base_dir: Path, source) -> Config:
         title=title,
         data=DataConfig(**data),
         model=ModelConfig(**sections["model"]),
-        exponents=_exponents(raw.get("exponents"), "exponents"),
+        exponents=exponents,
         groups=GroupsConfig(**sections["groups"]),
         prediction=PredictionConfig(**sections["prediction"]),
         figures=FiguresConfig(**sections["figures"]),

@@ -384,6 +384,75 @@ def _average_within(pts: pd.DataFrame, cfg: DataConfig, path: Path, base) -> pd.
     return out[cols].sort_values("row", kind="stable")
 
 
+def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> CleanData:
+    """:func:`clean_table` for several predictor columns (``data.x`` a list).
+
+    The same drop reasons as for one predictor, per column (``x (height_m)
+    is missing``).  ``points`` holds ``row, y, log_y, n_rows`` and, for the
+    j-th predictor (from 0), ``x{j}`` and ``log_x{j}``; ``x`` and ``log_x``
+    repeat the first predictor.  Groups and averaging are not available here
+    (refused by the config).
+    """
+    path = Path(cfg.file)
+    units = dict(cfg.units)
+    xs = cfg.x_columns
+    rows = np.arange(1, len(table) + 1)
+    keep = np.ones(len(table), dtype=bool)
+    if cfg.units_row:
+        if len(table) == 0:
+            raise DataError(f"{path}: data.units_row is true but there is no line under the header")
+        keep[0] = False
+    n_read = int(keep.sum())
+    x_cols = [_column(table, name, f"data.x[{j}]", path) for j, name in enumerate(xs)]
+    y_col = _column(table, cfg.y, "data.y", path)
+    for column in cfg.exclude:
+        _column(table, column, f"data.exclude.{column}", path)
+    reasons = [[] for _ in range(len(table))]
+    all_text = table.apply(_as_text) if len(table.columns) else table
+    blank = (all_text == "").all(axis=1).to_numpy() if len(table) else np.zeros(0, bool)
+    for i in np.flatnonzero(blank & keep):
+        reasons[i].append("blank line")
+    active = keep & ~blank
+    for column, values in cfg.exclude.items():
+        text = _as_text(table[column])
+        hit = _matches(text, values)
+        for i in np.flatnonzero(hit & active):
+            reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
+        _warn_unmatched(column, values, text[keep & ~blank], path)
+    excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
+    active = active & ~excluded
+    parsed = [("x", name, *_parse_numbers(col, cfg.decimal)) for name, col in zip(xs, x_cols)]
+    parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal)))
+    for role, column, _, prob, raw in parsed:
+        _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
+        for i in np.flatnonzero((prob != "") & active):
+            reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
+    dropped_mask = np.array([bool(r) for r in reasons], dtype=bool) & keep
+    dropped = pd.DataFrame({
+        "row": rows[dropped_mask].astype(int),
+        "reason": ["; ".join(reasons[i]) for i in np.flatnonzero(dropped_mask)],
+    })
+    use = keep & ~dropped_mask
+    if n_read == 0:
+        raise DataError(f"{path}: has no data rows under the header line")
+    if not use.any():
+        common = dropped["reason"].value_counts().index[0] if len(dropped) else "the table is empty"
+        raise DataError(f"{path}: no usable rows: all {n_read} data rows were dropped "
+                        f"(most common reason: {common})")
+    pts = pd.DataFrame({"row": rows[use].astype(int)})
+    for j, (_, _, values, _, _) in enumerate(parsed[:-1]):
+        pts[f"x{j}"] = values[use]
+        pts[f"log_x{j}"] = to_log(values[use], log_base)
+    pts["y"] = parsed[-1][2][use]
+    pts["log_y"] = to_log(pts["y"].to_numpy(), log_base)
+    pts["x"], pts["log_x"] = pts["x0"], pts["log_x0"]
+    pts["n_rows"] = 1
+    return CleanData(points=pts.reset_index(drop=True), dropped=dropped, n_read=n_read,
+                     units=units, averaged_within=None, n_rows_used=int(use.sum()))
+
+
 def load_data(cfg: DataConfig, *, log_base=10.0) -> CleanData:
     """Read and clean the table named by ``cfg`` (see :func:`clean_table`)."""
+    if isinstance(cfg.x, tuple):   # several predictors
+        return clean_table_several(read_table(cfg), cfg, log_base=log_base)
     return clean_table(read_table(cfg), cfg, log_base=log_base)

@@ -1180,6 +1180,8 @@ def write_figures(result, folder: Path) -> list[Path]:
     folder = Path(folder)
     (folder / "figures").mkdir(parents=True, exist_ok=True)
     out: list[Path] = []
+    if "_multi_fit" in (result.tables or {}):   # several predictors: partial relationships
+        return _write_partial_figures(result, folder)
     for kind in cfg.kinds:
         done: list[Path] = []
         try:
@@ -1200,4 +1202,82 @@ def write_figures(result, folder: Path) -> list[Path]:
                           FigureWarning, stacklevel=2)
             continue
         out += done
+    return out
+
+
+# --------------------------------------------------------------------------
+# several predictors: partial relationships
+
+
+def plot_partial(result, term: str, *, ax=None, size: str = "single"):
+    """Partial relationship of y with one predictor, others held at their geometric means.
+
+    Parameters
+    ----------
+    result : RunResult
+        A run with several predictors (``data.x`` a list).
+    term : str
+        The predictor column to show.
+    ax : matplotlib Axes, optional
+    size : {"single", "double"}
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+
+    Notes
+    -----
+    Partial residuals on the log scale (e.g. Draper & Smith 1998, sec. 8.3,
+    from memory): log y_j* = log y - sum_{i != j} b_i (log x_i - mean log x_i),
+    plotted against x_j on natural-unit log axes, with the fitted line
+    a + b_j log x_j + sum_{i != j} b_i mean log x_i over the fitted range of x_j.
+    The slope of the points about the line is the partial exponent b_j.
+    """
+    fit = result.tables["_multi_fit"]
+    j = fit.names.index(term)
+    own = ax is None
+    if own:
+        ax = _new_figure(size, 0.92).add_subplot()
+    base = fit.log_base
+    lx, ly = np.asarray(fit.log_x), np.asarray(fit.log_y)
+    means = lx.mean(axis=0)
+    others = [i for i in range(fit.k) if i != j]
+    adj = ly - sum(fit.slopes[i] * (lx[:, i] - means[i]) for i in others)
+    ax.scatter(base ** lx[:, j], base ** adj, s=12, color=PALETTE[0], edgecolor="white",
+               linewidth=0.3, alpha=0.8, zorder=2)
+    grid = np.linspace(lx[:, j].min(), lx[:, j].max(), 50)
+    line = fit.intercept + fit.slopes[j] * grid + sum(fit.slopes[i] * means[i] for i in others)
+    ax.plot(base ** grid, base ** line, color="black", lw=1.2, zorder=3,
+            label=f"exponent {fit.slopes[j]:.3f} ({fit.slope_low[j]:.3f}–{fit.slope_high[j]:.3f})")
+    _log_margins(ax, 0.05)
+    natural_log_axis(ax)
+    units = result.data.units or {}
+    ux = units.get("x")
+    unit = ux[j] if isinstance(ux, tuple) else None
+    ax.set_xlabel(f"{term} ({unit})" if unit else term)
+    held = ", ".join(f"{fit.names[i]} = {base ** means[i]:.3g}" for i in others)
+    ax.set_ylabel(_label(result, "y") + f"\nat {held}")
+    ax.legend(loc="upper left", fontsize="small", frameon=False)
+    return ax
+
+
+def _write_partial_figures(result, folder: Path) -> list[Path]:
+    """One ``figures/partial_<term>.<format>`` per predictor (several-predictor runs)."""
+    import warnings
+
+    from .errors import FigureWarning
+    cfg = result.config.figures
+    out: list[Path] = []
+    for term in result.tables["_multi_fit"].names:
+        safe = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in term)
+        try:
+            ax = plot_partial(result, term, size=cfg.size)
+            for fmt in cfg.formats:
+                rel = Path("figures") / f"partial_{safe}.{fmt}"
+                _save(ax.figure, folder / rel, fmt, cfg.dpi)
+                out.append(rel)
+        except Exception as exc:  # noqa: BLE001 -- a figure never fails the run
+            warnings.warn(f"Figure 'partial_{safe}' was not drawn ({type(exc).__name__}: "
+                          f"{exc}); the numeric results are complete in the tables.",
+                          FigureWarning, stacklevel=2)
     return out

@@ -29,6 +29,7 @@ from .errors import DataError, ScalingWarning
 from .groups import common_slope_rows
 from .lines import MIN_N, base_label, parse_log_base
 from .moments import group_moments, moments
+from . import multi_stage
 from .output import check_out_dir, file_sha256, json_safe, results_document, versions, \
     write_outputs
 from .schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  # noqa: F401 (aliases)
@@ -145,6 +146,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ScalingWarning)
         data = load_data(cfg.data, log_base=base)
+    data, units_message = multi_stage.apply_model_units(data, cfg, base)   # model.units
     pts = data.points
     X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
     messages: list[str] = []
@@ -158,6 +160,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     messages.append(read_message(data, cfg))
     if n_dropped:
         notes.append(dropped_note(n_dropped))
+    if units_message:
+        messages.append(units_message)
+    if isinstance(cfg.data.x, tuple):   # several predictors: OLS stage of its own
+        return RunResult(**multi_stage.analyse_several(cfg, data, base, messages, notes))
 
     moment_methods = [m for m in cfg.model.methods if is_moment_method(m)]
     row_methods = [m for m in cfg.model.methods if m not in moment_methods]
@@ -256,6 +262,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     # Prediction stage: accuracy and correction factors per fit, then predictions.
     saved, extra_cols = accuracy_and_factors(line_fits, point_sets)
     fits = add_accuracy_columns(fits, extra_cols)
+    fits = multi_stage.constant_columns(fits, data.units, base)   # term, a, a_low, a_high, a_unit
     predicting, pred_notes0 = prediction_fits(saved, cfg)   # which lines predict (default OLS)
     pred_tables, pred_notes = prediction_stage(line_fits, predicting, cfg)
     pred_notes = pred_notes0 + pred_notes
@@ -264,6 +271,12 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     tables["_saved_fits"] = saved
 
     messages += pooled_fit_messages(line_fits, cfg)
+    for (scope, group, method), fit in line_fits.items():
+        if scope == "pooled":   # the normalisation constant a with its units
+            a_line = multi_stage.constant_sentence(fit, data.units, base, cfg.model.confidence)
+            if a_line:
+                messages.append(a_line)
+    messages += multi_stage.prediction_sentences(tables, cfg, data.units)
 
     if phylo is not None:
         messages += phylo_messages(phylo, {m: f for (s, g, m), f in line_fits.items()

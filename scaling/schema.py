@@ -21,7 +21,7 @@ __all__ = [
     "MethodInfo", "CATALOGUE", "METHOD_NAMES", "MOMENT_METHODS", "CLASSIC_METHODS",
     "ROW_METHOD_NAMES", "GROUP_COMPARISON_METHODS", "method_info", "method_label",
     "is_symmetric", "is_moment_method",
-    "FIT_COLUMNS", "FIT_ACCURACY_COLUMNS", "FIT_ALL_COLUMNS", "SLOPE_TEST_COLUMNS",
+    "FIT_COLUMNS", "FIT_ACCURACY_COLUMNS", "FIT_CONSTANT_COLUMNS", "FIT_ALL_COLUMNS", "SLOPE_TEST_COLUMNS",
     "PERMUTATION_COLUMNS", "SLOPE_TEST_ALL_COLUMNS", "DROPPED_COLUMNS",
     "GROUP_MEANS_COLUMNS", "GROUP_TEST_COLUMNS", "PAIRWISE_COLUMNS",
     "PREDICTION_COLUMNS", "INVERSE_COLUMNS", "DIAGNOSTIC_COLUMNS", "INFLUENCE_COLUMNS",
@@ -150,8 +150,11 @@ FIT_COLUMNS = ["scope", "group", "method", "n", "slope", "slope_low", "slope_hig
 #: ... and the accuracy and back-transformation columns of the prediction stage.
 FIT_ACCURACY_COLUMNS = ["see", "percent_see", "percent_pe", "smearing_factor",
                         "parametric_factor", "ratio_factor"]
-#: All 30 columns of fits.csv.
-FIT_ALL_COLUMNS = FIT_COLUMNS + FIT_ACCURACY_COLUMNS
+#: The normalisation constant a of y = a x^b in natural units (and its units), and
+#: the predictor a row belongs to (blank with one predictor).
+FIT_CONSTANT_COLUMNS = ["term", "a", "a_low", "a_high", "a_unit"]
+#: All 35 columns of fits.csv (a run with data.tree adds PHYLO columns).
+FIT_ALL_COLUMNS = FIT_COLUMNS + FIT_ACCURACY_COLUMNS + FIT_CONSTANT_COLUMNS
 SLOPE_TEST_COLUMNS = ["scope", "group", "method", "hypothesis", "exponent", "estimate",
                       "statistic", "statistic_type", "df", "p_value"]
 #: Added to slope_tests.csv when resampling.permutations is set.

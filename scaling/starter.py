@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-__all__ = ["EXAMPLES"]
+import re
+
+__all__ = ["EXAMPLES", "EXAMPLE_FOLDERS", "example_files"]
 
 _BASIC = """\
 # scaling config: fit y = a * x^b on log-log scales.
@@ -123,3 +125,46 @@ output:
 """
 
 EXAMPLES = {"basic": _BASIC, "groups": _GROUPS, "length_weight": _LENGTH_WEIGHT}
+
+
+# --------------------------------------------------------------------------
+# worked examples: a config and its data, written into a folder
+
+
+#: Worked examples written by ``scaling init --example NAME FOLDER``: the
+#: config files of each (in scaling/examples/, copies of configs/*.yaml; the
+#: data files they name are copied from scaling/examples/ too).
+EXAMPLE_FOLDERS = {
+    "fisheries": ("fisheries.yaml",),
+    "forestry": ("forestry.yaml",),
+    "palaeo": ("palaeo.yaml", "palaeo_forward.yaml"),
+    "physiology": ("physiology.yaml",),
+}
+
+_DATA_REF = re.compile(r"\.\./demo_data/([A-Za-z0-9_.-]+)")
+
+
+def example_files(name: str) -> dict:
+    """The files of a worked example as ``{file name: bytes}``, ready to write.
+
+    The configs' ``../demo_data/`` paths become paths beside the config and
+    ``../results/`` becomes ``results/``, so ``scaling run FOLDER/NAME.yaml``
+    works from anywhere.  The files are read from the installed package
+    (``scaling/examples``).
+
+    Examples
+    --------
+    >>> sorted(example_files("fisheries"))
+    ['fish_length_weight.csv', 'fisheries.yaml']
+    """
+    from importlib import resources
+    root = resources.files("scaling") / "examples"
+    out: dict = {}
+    for config in EXAMPLE_FOLDERS[name]:
+        text = (root / config).read_text(encoding="utf-8")
+        for ref in _DATA_REF.findall(text):
+            if (root / ref).is_file() and ref not in out:
+                out[ref] = (root / ref).read_bytes()
+        text = text.replace("../demo_data/", "").replace("../results/", "results/")
+        out[config] = text.encode("utf-8")
+    return out

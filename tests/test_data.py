@@ -194,3 +194,21 @@ class TestNothingSilent:
         data = load_data(_cfg(tmp_path, decimal=","))
         # exact: 1,5 with a decimal comma is 1.5
         np.testing.assert_allclose(data.points["x"], [1.5, 2.5, 4.25], rtol=0)
+
+
+class TestCleanTableSeveral:
+    def test_each_predictor_column_gets_the_single_column_drop_reasons(self, tmp_path):
+        from scaling.config import config_from_dict
+        from scaling.data import load_data
+        path = tmp_path / "trees.csv"
+        path.write_text("d,h,m\n10,8,4\n20,,9\n0,5,3\n30,12,<1\n15,9,6\n25,11,8\n")
+        cfg = config_from_dict({"data": {"file": str(path), "x": ["d", "h"], "y": "m"},
+                                "model": {"methods": ["ols"]}})
+        data = load_data(cfg.data)
+        # common practice, no source: row numbers count lines under the header
+        assert data.dropped["row"].tolist() == [2, 3, 4]
+        assert data.dropped["reason"].tolist() == [
+            "x (h) is missing", "x (d) is zero: no logarithm", "y (m) is censored: '<1'"]
+        assert data.points[["x0", "x1", "y"]].to_numpy().tolist() == [
+            [10, 8, 4], [15, 9, 6], [25, 11, 8]]
+        np.testing.assert_allclose(data.points["log_x1"], np.log10([8, 9, 11]), rtol=1e-12)

@@ -124,9 +124,16 @@ class TestFisheriesExample:
 
 
 class TestForestryExample:
-    def test_diameter_only_config_recovers_the_marginal_exponent(self):
+    def test_diameter_only_fit_recovers_the_marginal_exponent(self):
         # truth: b = 2 + 1 x 0.55 with diameter alone (make_forestry.py's height curve)
-        fit = _run("forestry").fits.iloc[0]
+        import yaml
+        raw = yaml.safe_load((CONFIGS / "forestry.yaml").read_text(encoding="utf-8"))
+        raw["data"].update(x="diameter_cm", units={"x": "cm", "y": "kg"})
+        raw["model"] = {"methods": ["ols"]}
+        raw["exponents"] = {"diameter_only": 2.55}
+        raw["prediction"] = {}
+        cfg = scaling.config.config_from_dict(raw, base_dir=CONFIGS)
+        fit = scaling.run_config(cfg, write=False, quiet=True).fits.iloc[0]
         assert fit.slope_low < 2.55 < fit.slope_high
 
     def test_two_predictor_fit_and_plot_total_recover_the_truth(self):

@@ -9,9 +9,11 @@ import scaling.api
 import scaling.groups
 import scaling.lines
 import scaling.multi
+import scaling.starter
 import scaling.units
 
-MODULES = [scaling.api, scaling.groups, scaling.lines, scaling.multi, scaling.units]
+MODULES = [scaling.api, scaling.groups, scaling.lines, scaling.multi, scaling.starter,
+           scaling.units]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)
