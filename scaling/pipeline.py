@@ -192,6 +192,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         For bad data (the message names file, column or row).
     """
     cfg = config
+    from . import large as _large   # large-data path and the summary across groups
+    reason = _large.use_moments_path(cfg)
+    if reason:
+        return _large.finish(_large.analyse_moments(cfg, reason))
     base = parse_log_base(cfg.model.log_base)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ScalingWarning)
@@ -322,7 +326,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
 
     # Diagnostics stage: is the power law, its error structure and its line right?
     if cfg.diagnostics.enabled:
-        d_tables, d_messages = _diagnostics_stage(line_fits, point_sets, cfg, base, data)
+        d_fits, d_sets, d_note = _large.bounded_diagnostics(line_fits, point_sets, cfg)
+        notes += d_note
+        d_tables, d_messages = _diagnostics_stage(d_fits, d_sets, cfg, base, data)
         tables.update(d_tables)
         messages += d_messages
     messages += _line_method_messages(line_fits, cfg)
@@ -353,10 +359,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                         "exponent_at": list(_exponent_targets(cfg))},
         "deming_lambda": cfg.model.deming_lambda if "deming" in cfg.model.methods else None,
     }
-    return RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
+    return _large.finish(RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                      dropped=data.dropped[DROPPED_COLUMNS], line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
-                     manifest=manifest)
+                     manifest=manifest))
 
 
 def _nothing_estimable(cfg: Config, pts: pd.DataFrame, rows: list, n_dropped: int) -> str:
