@@ -10,7 +10,8 @@ Two stages used by :func:`scaling.pipeline.analyse`:
   test follows from them (:func:`scaling.engine.fit_groups_from_moments`).
   Stages that need the rows (residual diagnostics, smearing and the other
   accuracy figures, influence, row-based robust lines, bootstrap,
-  permutations, the group comparison tests) are skipped with a note; rows
+  permutations, the line through the group means and the group comparison
+  tests) are skipped with a note; rows
   dropped while cleaning are counted per reason (``dropped_counts``), not
   listed one by one.
 * :func:`spread_stage` -- with more groups than ``groups.spread_min``, the
@@ -256,7 +257,7 @@ def analyse_moments(cfg, reason: str):
         notes.append(f"Row-based methods not fitted on the large-data path: "
                      f"{', '.join(others)}.")
     notes.append(f"Stages that need the rows were skipped on the large-data path: "
-                 f"{_ROW_STAGES}, and the group comparison tests.")
+                 f"{_ROW_STAGES}, the line through the group means and the group comparison tests.")
     if cfg.prediction.x or cfg.prediction.y:
         notes.append("Predictions were not made on the large-data path (they need the "
                      "residuals for the back-transformation).")
