@@ -59,7 +59,7 @@ class DataConfig:
     exclude: dict = field(default_factory=dict)   # column -> tuple of values
     units: dict = field(default_factory=dict)     # {"x": "g", "y": "mW"}
     chunk_size: int = 1_000_000       # rows per chunk on the large-data (moments) path
-    moments_above_mb: float = 500.0   # files larger than this take the moments path
+    moments_above_mb: float = 100.0   # files larger than this take the moments path
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -396,7 +396,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "exclude": (_exclude, {}),
         "units": (_xy_labels, {}),
         "chunk_size": (lambda v, p: _int(v, p, minimum=1), 1_000_000),
-        "moments_above_mb": (_positive, 500.0),
+        "moments_above_mb": (_positive, 100.0),
     },
     "model": {
         "log_base": (_log_base, "10"),

@@ -610,7 +610,11 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                        bbox=dict(boxstyle="round,pad=0.25", facecolor="white",
                                  edgecolor="none", alpha=0.85))
         text.set_gid("equation")
-        _place_in_emptiest_corner(ax, text, np.concatenate(xs_all), np.concatenate(ys_all))
+        if len(groups) <= LEGEND_MAX_GROUPS:
+            # the corner search redraws the figure up to 11 times: too slow with many
+            # groups, where the equation stays upper left
+            _place_in_emptiest_corner(ax, text, np.concatenate(xs_all),
+                                      np.concatenate(ys_all))
     return ax
 
 
