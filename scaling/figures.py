@@ -1169,16 +1169,22 @@ def plot_group_exponents(result, *, method: str | None = None, ax=None,
         order = np.argsort(-np.where(flagged, far, -np.inf))[:min(SPREAD_LABEL_MAX,
                                                                   int(flagged.sum()))]
         names = rows["group"].astype(str).to_numpy()
+        seen = {True: 0, False: 0}   # stagger the names on each side so they do not overlap
         for i in order:
-            ax.annotate(names[i], (rank[i], b[i]), xytext=(3, 3 if b[i] > s["mean"] else -8),
-                        textcoords="offset points", fontsize=6, color="#333333")
+            up = bool(b[i] > s["mean"])
+            j = seen[up]
+            seen[up] += 1
+            ax.annotate(names[i], (rank[i], b[i]), xytext=(-4, (-8 - 7 * j) if up else 3 + 7 * j),
+                        textcoords="offset points", fontsize=5.5, color="#333333",
+                        ha="right" if up else "left",
+                        arrowprops=dict(arrowstyle="-", lw=0.3, color="#999999"))
     for name, value in result.config.exponents.items():
         ax.axhline(value, color="#555555", ls=":", lw=0.9)
         ax.annotate(f"{name} ({value:g})", (1, value), xycoords=("axes fraction", "data"),
                     xytext=(-2, 2), textcoords="offset points", ha="right", fontsize=6)
     ax.set_xlim(0, k + 1)
-    ax.set_xlabel(f"{_thousands_plain(k)} groups, ordered by exponent "
-                  f"({int(flagged.sum())} flagged: interval excludes the mean)")
+    ax.set_xlabel(f"{_thousands_plain(k)} groups, ordered by exponent\n"
+                  f"{_thousands_plain(int(flagged.sum()))} flagged: interval excludes the mean")
     ax.set_ylabel(f"{method.upper()} exponent")
     ax.legend(loc="upper left", fontsize=6, frameon=False)
     return ax
