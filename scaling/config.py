@@ -53,6 +53,8 @@ class DataConfig:
     units: dict = field(default_factory=dict)     # {"x": "g", "y": "mW"}; x a tuple with several x
     tree: Path | None = None        # Newick file: phylogenetic fits (scaling/phylo_stage.py)
     species: str | None = None      # column naming the tips of the tree
+    chunk_size: int = 1_000_000       # rows per chunk on the large-data (moments) path
+    moments_above_mb: float = 100.0   # files larger than this take the moments path
 
     @property
     def x_columns(self) -> tuple:
@@ -81,6 +83,10 @@ class GroupsConfig:
     fit_group_means: bool = True
     weight_means: bool = False
     pairwise_max: int = 20
+    spread_min: int = 20              # more groups than this: summary across groups
+    spread_tau2: str = "reml"         # reml | dl
+    spread_interval: str = "z"        # z | knapp_hartung
+    diagnostics_max: int = 200        # more groups than this: no per-group diagnostics
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -139,6 +145,8 @@ class Config:
     output: OutputConfig
     diagnostics: DiagnosticsConfig = field(default_factory=DiagnosticsConfig)
     resampling: ResamplingConfig = field(default_factory=ResamplingConfig)
+    engine: str = "pandas"         # pandas | dask (dask: the moments path)
+    scheduler: str | None = None   # dask only: None (local) or a scheduler address
     source: Path | None = None     # the config file, if read from one
     raw: dict = field(default_factory=dict)   # the mapping as read, for the manifest
 
@@ -596,6 +604,8 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "units": (_data_units, {}),
         "tree": (_optional_string, None),
         "species": (_optional_string, None),
+        "chunk_size": (lambda v, p: _int(v, p, minimum=1), 1_000_000),
+        "moments_above_mb": (_positive, 100.0),
     },
     "model": {
         "log_base": (_log_base, "10"),
@@ -625,6 +635,10 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "fit_group_means": (_boolean, True),
         "weight_means": (_boolean, False),
         "pairwise_max": (lambda v, p: _int(v, p, minimum=2), 20),
+        "spread_min": (lambda v, p: _int(v, p, minimum=2), 20),
+        "spread_tau2": (_choice(("reml", "dl")), "reml"),
+        "spread_interval": (_choice(("z", "knapp_hartung")), "z"),
+        "diagnostics_max": (lambda v, p: _int(v, p, minimum=0), 200),
     },
     "prediction": {
         "x": (_prediction_x, ()),
@@ -647,7 +661,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
     },
 }
 _TOP_LEVEL = ("title", "data", "model", "exponents", "groups", "prediction",
-              "figures", "output", "diagnostics", "resampling")
+              "figures", "output", "diagnostics", "resampling", "engine", "scheduler")
 
 
 def _read_section(raw, name) -> dict:
@@ -776,6 +790,10 @@ def _build(raw, base_dir: Path, source) -> Config:
         out_path = (base_dir / out_path).resolve()
     title = raw.get("title", None)
     title = "Allometric scaling" if title is None else _string(title, "title")
+    engine = _choice(("pandas", "dask"))(raw.get("engine", "pandas"), "engine")
+    scheduler = _optional_string(raw.get("scheduler"), "scheduler")
+    if scheduler is not None and engine != "dask":
+        raise _Bad("scheduler", "is used only with engine: dask")
     return Config(
         title=title,
         data=DataConfig(**data),
@@ -787,6 +805,8 @@ def _build(raw, base_dir: Path, source) -> Config:
         output=OutputConfig(dir=out_path),
         diagnostics=DiagnosticsConfig(**sections["diagnostics"]),
         resampling=ResamplingConfig(**sections["resampling"]),
+        engine=engine,
+        scheduler=scheduler,
         source=source,
         raw=raw,
     )

@@ -62,6 +62,8 @@ MAX_EQUATIONS = 3
 #: so) and draw the groups in a few batched artists instead of one per group.
 LEGEND_MAX_GROUPS = 12
 PAGE_HEIGHT = 9.0        # inches: an A4 or letter page less its margins
+#: Scatter plots draw a seeded random subset of this many points above it (stated on the axes).
+MAX_DRAWN_POINTS = 5_000
 MM = 1 / 25.4
 SIZES = {"single": 85 * MM, "double": 180 * MM}
 KINDS = FIGURE_KINDS
@@ -295,6 +297,15 @@ def _scatter_coded(ax, x, y, codes, n_groups: int, **kwargs) -> None:
     """Scatter with group ``codes``: one artist per group present, or, above
     :data:`LEGEND_MAX_GROUPS` groups, one per marker with colours per point
     (a few artists instead of thousands)."""
+    n_all = len(x)
+    if n_all > MAX_DRAWN_POINTS:   # drawing cost grows with points: a stated subsample
+        keep = np.sort(np.random.default_rng(0).choice(n_all, MAX_DRAWN_POINTS,
+                                                       replace=False))
+        x, y, codes = np.asarray(x)[keep], np.asarray(y)[keep], np.asarray(codes)[keep]
+        ax.text(0.99, 0.01, f"{_group_digits(str(MAX_DRAWN_POINTS))} of "
+                f"{_group_digits(str(n_all))} points drawn (random subset); all are fitted",
+                transform=ax.transAxes, ha="right", va="bottom", fontsize=5.5,
+                color="#555555", zorder=9)
     if n_groups <= LEGEND_MAX_GROUPS:
         for c in np.unique(codes):
             colour, marker = _group_style(int(c))
@@ -593,8 +604,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                                   markeredgecolor="black", markersize=6,
                                   label="group mean ± 1 SE"))
     else:
-        ax.scatter(pts["x"], pts["y"], s=12, marker="o", facecolor=PALETTE[0],
-                   edgecolor="white", linewidth=0.3, alpha=0.8, zorder=2)
+        _scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(),
+                       np.zeros(len(pts), dtype=int), 1, s=12, edgecolor="white",
+                       linewidth=0.3, alpha=0.8, zorder=2)   # same look; thinned above a size
         handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
                               markersize=4.5, label=f"data (n = {len(pts)})"))
 
@@ -702,7 +714,11 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                        bbox=dict(boxstyle="round,pad=0.25", facecolor="white",
                                  edgecolor="none", alpha=0.85))
         text.set_gid("equation")
-        _place_in_emptiest_corner(ax, text, np.concatenate(xs_all), np.concatenate(ys_all))
+        if len(groups) <= LEGEND_MAX_GROUPS:
+            # the corner search redraws the figure up to 11 times: too slow with many
+            # groups, where the equation stays upper left
+            _place_in_emptiest_corner(ax, text, np.concatenate(xs_all),
+                                      np.concatenate(ys_all))
     return ax
 
 
@@ -1202,6 +1218,107 @@ def write_figures(result, folder: Path) -> list[Path]:
                           FigureWarning, stacklevel=2)
             continue
         out += done
+    try:   # the summary across many groups (scaling.large), when the run has one
+        out += write_group_exponents(result, folder)
+    except Exception as exc:  # noqa: BLE001 -- as above: skip the figure with a note
+        warnings.warn(f"Figure 'group_exponents' was not drawn ({type(exc).__name__}: "
+                      f"{str(exc).splitlines()[0] if str(exc) else ''}); the numeric results "
+                      "are complete in exponent_spread.csv.", FigureWarning, stacklevel=2)
+    return out
+
+
+# --------------------------------------------------------------------------
+# exponents of many groups, ordered (the summary across groups)
+
+#: At most this many flagged groups are named in the group-exponent figure.
+SPREAD_LABEL_MAX = 8
+#: Above this many groups the intervals are drawn as one band, not one bar each.
+SPREAD_BARS_MAX = 150
+
+
+@_styled
+def plot_group_exponents(result, *, method: str | None = None, ax=None,
+                         size: str = "single"):
+    """Per-group exponents with their intervals, ordered, and the mean across groups.
+
+    Groups are placed by rank of their exponent; intervals are bars (up to
+    :data:`SPREAD_BARS_MAX` groups) or a shaded band.  The random-effects
+    mean and its interval (``result.tables["exponent_spread"]``) are a line
+    and a band; hypothesised exponents are dotted lines.  Only groups whose
+    interval excludes the mean are "flagged"; the most extreme
+    :data:`SPREAD_LABEL_MAX` of them are named, so the figure stays readable
+    with 10 000 groups.
+    """
+    spread = result.tables.get("exponent_spread")
+    if method is None:
+        method = str(spread["method"].iloc[0]) if spread is not None and len(spread) \
+            else _primary_method(list(result.config.model.methods))
+    f = result.fits
+    rows = f[(f["scope"] == "group") & (f["method"] == method) & np.isfinite(f["slope"])]
+    rows = rows.sort_values("slope", kind="stable")
+    k = len(rows)
+    if ax is None:
+        ax = _new_figure(size, 0.7).subplots()
+    rank = np.arange(1, k + 1)
+    b = rows["slope"].to_numpy(float)
+    lo, hi = rows["slope_low"].to_numpy(float), rows["slope_high"].to_numpy(float)
+    finite = np.isfinite(lo) & np.isfinite(hi)
+    if k <= SPREAD_BARS_MAX:
+        ax.vlines(rank[finite], lo[finite], hi[finite], color="#9a9a9a", lw=0.8)
+    else:
+        ax.fill_between(rank, np.where(finite, lo, b), np.where(finite, hi, b),
+                        color="#c8c8c8", lw=0, step="mid",
+                        label=f"{100 * result.config.model.confidence:g}% intervals")
+    ax.plot(rank, b, ls="none", marker="o", ms=3 if k <= SPREAD_BARS_MAX else 1,
+            color=PALETTE[0], label=f"{method.upper()} exponent per group")
+    flagged = np.zeros(k, dtype=bool)
+    if spread is not None and (spread["method"] == method).any():
+        s = spread[spread["method"] == method].iloc[0]
+        ax.axhspan(s["mean_low"], s["mean_high"], color=PALETTE[1], alpha=0.2, lw=0)
+        ax.axhline(s["mean"], color=PALETTE[1], lw=1.2,
+                   label=f"mean {s['mean']:.3g}, between-group SD {s['tau']:.2g}")
+        flagged = finite & ((lo > s["mean"]) | (hi < s["mean"]))
+        far = np.abs(b - s["mean"])
+        order = np.argsort(-np.where(flagged, far, -np.inf))[:min(SPREAD_LABEL_MAX,
+                                                                  int(flagged.sum()))]
+        names = rows["group"].astype(str).to_numpy()
+        seen = {True: 0, False: 0}   # stagger the names on each side so they do not overlap
+        for i in order:
+            up = bool(b[i] > s["mean"])
+            j = seen[up]
+            seen[up] += 1
+            ax.annotate(names[i], (rank[i], b[i]), xytext=(-4, (-8 - 7 * j) if up else 3 + 7 * j),
+                        textcoords="offset points", fontsize=5.5, color="#333333",
+                        ha="right" if up else "left",
+                        arrowprops=dict(arrowstyle="-", lw=0.3, color="#999999"))
+    for name, value in result.config.exponents.items():
+        ax.axhline(value, color="#555555", ls=":", lw=0.9)
+        ax.annotate(f"{name} ({value:g})", (1, value), xycoords=("axes fraction", "data"),
+                    xytext=(-2, 2), textcoords="offset points", ha="right", fontsize=6)
+    ax.set_xlim(0, k + 1)
+    ax.set_xlabel(f"{_thousands_plain(k)} groups, ordered by exponent\n"
+                  f"{_thousands_plain(int(flagged.sum()))} flagged: interval excludes the mean")
+    ax.set_ylabel(f"{method.upper()} exponent")
+    ax.legend(loc="upper left", fontsize=6, frameon=False)
+    return ax
+
+
+def _thousands_plain(n: int) -> str:
+    return _group_digits(str(int(n)))
+
+
+def write_group_exponents(result, folder: Path) -> list[Path]:
+    """``figures/group_exponents.<format>`` when the run has a summary across groups."""
+    spread = result.tables.get("exponent_spread")
+    if spread is None or not len(spread):
+        return []
+    cfg = result.config.figures
+    fig = plot_group_exponents(result, size=cfg.size).figure
+    out = []
+    for fmt in cfg.formats:
+        rel = Path("figures") / f"group_exponents.{fmt}"
+        _save(fig, Path(folder) / rel, fmt, cfg.dpi)
+        out.append(rel)
     return out
 
 

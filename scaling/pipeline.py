@@ -40,6 +40,7 @@ from .stage_diagnostics import diagnostics_stage, exponent_targets
 from .stage_fits import (blank_numbers, fit_moment_rows, nothing_estimable, row_method_fit,
                          slope_tests as make_slope_tests, value_range)
 from .checking import check_run
+from .large import analyse_moments, bounded_diagnostics, finish, use_moments_path
 from .phylo_stage import add_phylo_columns, phylo_messages, phylo_stage
 from .predicting import prediction_fits
 from .stage_groups import group_stage
@@ -142,6 +143,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         For bad data (the message names file, column or row).
     """
     cfg = config
+    reason = use_moments_path(cfg)   # large data: the run reads per-group moments only
+    if reason:
+        return finish(RunResult(**analyse_moments(cfg, reason)))
     base = parse_log_base(cfg.model.log_base)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ScalingWarning)
@@ -285,7 +289,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
 
     # Diagnostics stage: is the power law, its error structure and its line right?
     if cfg.diagnostics.enabled:
-        d_tables, d_messages = diagnostics_stage(line_fits, point_sets, cfg)
+        d_fits, d_sets, d_note = bounded_diagnostics(line_fits, point_sets, cfg)
+        notes += d_note
+        d_tables, d_messages = diagnostics_stage(d_fits, d_sets, cfg)
         tables.update(d_tables)
         messages += d_messages
     messages += line_method_messages(line_fits, cfg)
@@ -319,12 +325,12 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                         "exponent_at": list(exponent_targets(cfg))},
         "deming_lambda": cfg.model.deming_lambda if "deming" in cfg.model.methods else None,
     }
-    return RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
+    return finish(RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                      dropped=data.dropped[DROPPED_COLUMNS] if phylo is None else pd.concat(
                          [data.dropped[DROPPED_COLUMNS], phylo.dropped], ignore_index=True),
                      line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
-                     manifest=manifest)
+                     manifest=manifest))
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,

@@ -43,6 +43,9 @@ FIGURE_CAPTIONS = {
     "residuals": "Residuals on the log scale against position along each line, and against "
                  "normal quantiles.",
 }
+SPREAD_CAPTION = ("Per-group exponents ordered by size with their confidence intervals; the "
+                  "random-effects mean and its interval (line and band); dotted lines mark "
+                  "the hypothesised exponents; only flagged groups are named.")
 GROUP_TEST_WORDS = {
     "slopes_equal": ("a common slope (exponent) for all groups",
                      "the groups' slopes differ"),
@@ -174,7 +177,13 @@ def _slope_sentences(result) -> list:
     pct = f"{100 * conf:g}%"
     fits = result.fits.set_index(["scope", "group", "method"]) if len(result.fits) else None
     out = []
+    n_group, skipped = 0, 0
     for r in tests.itertuples(index=False):
+        if r.scope == "group":   # bounded: at most ITEMS_MAX group sentences are written
+            n_group += 1
+            if n_group > ITEMS_MAX:
+                skipped += 1
+                continue
         ci = ""
         if fits is not None and (r.scope, r.group, r.method) in fits.index:
             row = fits.loc[(r.scope, r.group, r.method)]
@@ -188,6 +197,9 @@ def _slope_sentences(result) -> list:
         verdict += f", {p_text(r.p_value)}." if np.isfinite(r.p_value) else "."
         out.append((r.scope, f"{_scope_words(r.scope, r.group)}: the {method_label(str(r.method))} exponent "
                    f"{_num(r.estimate)}{ci} {verdict}"))
+    if skipped:
+        out.append(("group", f"... and {skipped:,} more group tests; every test is in "
+                             "slope_tests.csv."))
     return out
 
 
@@ -282,6 +294,10 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
             path = ""
         blocks.append(Block(kind="img", png=png, path=path, name=kind,
                             text=FIGURE_CAPTIONS.get(kind, kind)))
+    rel = "figures/group_exponents.png"   # summary across many groups (scaling.large)
+    if rel in written_set and (folder / rel).exists():
+        blocks.append(Block(kind="img", png=(folder / rel).read_bytes(), path=rel,
+                            name="group_exponents", text=SPREAD_CAPTION))
     return blocks
 
 
@@ -293,7 +309,7 @@ def _interval_text(lo, hi) -> str:
 
 def _fits_display(result) -> pd.DataFrame:
     """The fits table as shown: intervals as one text cell, the line in natural units."""
-    fits = result.fits
+    fits = result.fits.head(TABLE_MAX_ROWS)   # bounded; build_report notes the rest
     rows = []
     for r in fits.to_dict(orient="records"):
         fit = result.line_fits.get((r["scope"], r["group"], r["method"]))
@@ -352,6 +368,10 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         "x = 1; resid_sd is the SD of the residuals on the log scale. Every column, unrounded, "
         "is in fits.csv."))]
     fit_blocks.append(Block(kind="table", frame=_fits_display(result), name="fits"))
+    if len(result.fits) > TABLE_MAX_ROWS:
+        fit_blocks.append(Block(kind="p", text=(
+            f"First {TABLE_MAX_ROWS} of {len(result.fits):,} fits shown; every fit is in "
+            "fits.csv.")))
     sections.append(Section(title="Fits", blocks=fit_blocks, anchor="fits"))
 
     sentences = _slope_sentences(result)
@@ -429,7 +449,38 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
     sections.append(Section(title="Files", anchor="files",
                             blocks=[Block(kind="links", items=tuple(files))]))
     sections.append(_manifest_section(result))
-    return sections
+    return _bounded(sections)
+
+
+#: Tables longer than this show their first rows and a note (the CSV has every row).
+TABLE_MAX_ROWS = 60
+#: Folded lists (e.g. per-group test sentences) longer than this are cut likewise.
+ITEMS_MAX = 200
+
+
+def _bounded(sections: list) -> list:
+    """Cut long tables and folded lists so the report stays bounded with 10 000 groups.
+
+    Only the rows shown are ever formatted; the full tables are the CSV files.
+    """
+    from dataclasses import replace as _rep
+    out = []
+    for section in sections:
+        blocks = []
+        for b in section.blocks:
+            if b.kind == "table" and b.frame is not None and len(b.frame) > TABLE_MAX_ROWS:
+                blocks.append(_rep(b, frame=b.frame.head(TABLE_MAX_ROWS),
+                                   highlight=tuple(b.highlight[:TABLE_MAX_ROWS])))
+                blocks.append(Block(kind="p", text=(
+                    f"First {TABLE_MAX_ROWS} of {len(b.frame):,} rows shown; every row is in "
+                    f"{b.name or 'the'}.csv.")))
+            elif b.kind == "details" and len(b.items) > ITEMS_MAX:
+                blocks.append(_rep(b, items=tuple(b.items[:ITEMS_MAX]) + (
+                    f"... {len(b.items) - ITEMS_MAX:,} more; see slope_tests.csv.",)))
+            else:
+                blocks.append(b)
+        out.append(_rep(section, blocks=blocks))
+    return out
 
 
 def _manifest_section(result) -> Section:

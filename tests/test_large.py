@@ -1,0 +1,214 @@
+"""The large-data path of a run and the summary across many groups (scaling.large)."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from scaling.config import config_from_dict
+from scaling.errors import ConfigError, DataError
+from scaling.large import bounded_diagnostics, spread_stage, use_moments_path
+from scaling.pipeline import analyse, write_outputs
+from scaling.spread import spread_from_fits
+
+NUMERIC = ["n", "slope", "slope_low", "slope_high", "intercept", "intercept_low",
+           "intercept_high", "r", "r2", "slope_se", "intercept_se", "resid_sd",
+           "x_min", "x_max", "y_min", "y_max"]
+
+
+def _table(groups: int, per_group: int, seed: int = 3) -> pd.DataFrame:
+    """Invented: y = a_g x^0.75 with lognormal scatter; rows shuffled so every
+    group is split across chunks and partitions."""
+    rng = np.random.default_rng(seed)
+    g = np.repeat(np.arange(groups), per_group)
+    log_x = rng.uniform(0.5, 3.0, groups)[g] + 0.4 * rng.standard_normal(g.size)
+    log_y = rng.normal(0.3, 0.2, groups)[g] + 0.75 * log_x + rng.normal(0, 0.1, g.size)
+    df = pd.DataFrame({"taxon": [f"g{k:04d}" for k in g], "mass": 10 ** log_x,
+                       "rate": 10 ** log_y})
+    return df.iloc[rng.permutation(len(df))].reset_index(drop=True)
+
+
+def _cfg(path, tmp_path, **top):
+    raw = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "taxon",
+                    **top.pop("data", {})},
+           "exponents": {"three_quarters": 0.75}, "output": {"dir": str(tmp_path / "out")},
+           "figures": {"kinds": ["scaling"], "dpi": 60}, **top}
+    return config_from_dict(raw, base_dir=tmp_path)
+
+
+def _run(cfg):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return analyse(cfg)
+
+
+@pytest.fixture(scope="module")
+def data_files(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("large")
+    df = _table(25, 40)
+    csv = tmp / "t.csv"
+    df.to_csv(csv, index=False)
+    pq = tmp / "t.parquet"
+    df.to_parquet(pq, row_group_size=150)   # groups split across row groups / partitions
+    ordinary = _run(_cfg(csv, tmp))
+    return tmp, csv, pq, ordinary
+
+
+def _same_fits(a: pd.DataFrame, b: pd.DataFrame) -> None:
+    assert list(a[["scope", "group", "method"]].itertuples(index=False)) == \
+        list(b[["scope", "group", "method"]].itertuples(index=False))
+    for col in NUMERIC:
+        x, y = a[col].to_numpy(float), b[col].to_numpy(float)
+        # internal consistency: the same estimators from merged moments vs from the rows
+        np.testing.assert_allclose(x, y, rtol=1e-12, atol=1e-12, err_msg=col)
+
+
+class TestAnalyseMoments:
+    @pytest.mark.parametrize("kind,extra", [
+        ("csv", {"data": {"moments_above_mb": 1e-6, "chunk_size": 97}}),
+        ("parquet", {"data": {"moments_above_mb": 1e-6, "chunk_size": 97}}),
+        ("csv", {"engine": "dask", "data": {"chunk_size": 300}}),
+        ("parquet", {"engine": "dask"}),
+    ])
+    def test_fits_and_tests_equal_the_ordinary_run(self, data_files, kind, extra):
+        tmp, csv, pq, ordinary = data_files
+        res = _run(_cfg(csv if kind == "csv" else pq, tmp, **extra))
+        assert res.manifest["large_data"]["rows_read"] == 1000
+        ref = ordinary.fits[ordinary.fits["scope"].isin(["pooled", "group"])]
+        _same_fits(res.fits, ref[res.fits.columns].reset_index(drop=True))
+        keys = ["scope", "group", "method", "hypothesis"]
+        a = res.slope_tests
+        b = ordinary.slope_tests[ordinary.slope_tests["scope"].isin(["pooled", "group"])]
+        both = a.merge(b[a.columns], on=keys, how="outer", indicator=True)
+        assert (both["_merge"] == "both").all() and len(both) == len(a) == len(b)
+        # internal consistency: slope tests from merged moments vs from the rows
+        for col in ("statistic", "p_value"):
+            np.testing.assert_allclose(both[f"{col}_x"].to_numpy(float),
+                                       both[f"{col}_y"].to_numpy(float), rtol=1e-10, atol=1e-14)
+
+    def test_dropped_rows_are_counted_per_reason(self, tmp_path):
+        df = _table(3, 30)
+        df["mass"] = df["mass"].astype(object)
+        df.loc[0:3, "mass"] = np.nan           # 4 missing x
+        df.loc[4:5, "rate"] = -1.0              # 2 negative y
+        df.loc[6, "mass"] = "heavy"             # 1 non-numeric x
+        df.loc[7:9, "rate"] = 0.0               # 3 zero y
+        path = tmp_path / "d.csv"
+        df.to_csv(path, index=False)
+        res = _run(_cfg(path, tmp_path, data={"moments_above_mb": 1e-6, "chunk_size": 7}))
+        counts = res.tables["dropped_counts"].set_index("reason")["rows"].to_dict()
+        # exact by construction of the table above
+        assert sum(counts.values()) == 10
+        assert res.manifest["large_data"]["rows_dropped"] == 10
+        assert len(counts) == 4 and sorted(counts.values()) == [1, 2, 3, 4]
+        assert int(res.fits.loc[res.fits["scope"] == "pooled", "n"].iloc[0]) == 80
+        listed = _run(_cfg(path, tmp_path)).dropped["reason"].value_counts()
+        # internal consistency: the ordinary run lists the same rows one by one
+        assert sorted(listed.to_numpy().tolist()) == [1, 2, 3, 4]
+        written = write_outputs(res, tmp_path / "out")
+        on_disk = pd.read_csv(written.out_dir / "dropped_counts.csv")
+        assert list(on_disk.columns) == ["reason", "rows"] and on_disk["rows"].sum() == 10
+
+    def test_row_stages_are_skipped_with_a_note(self, data_files):
+        tmp, csv, _, _ = data_files
+        res = _run(_cfg(csv, tmp, data={"moments_above_mb": 1e-6}))
+        assert "diagnostics" not in res.tables
+        assert any("Stages that need the rows were skipped" in w for w in res.warnings)
+
+    def test_only_row_methods_is_an_error(self, data_files):
+        tmp, csv, _, _ = data_files
+        cfg = _cfg(csv, tmp, model={"methods": ["theil_sen"]}, data={"moments_above_mb": 1e-6})
+        with pytest.raises(DataError, match="fits OLS, SMA and MA from moments"):
+            _run(cfg)
+
+    def test_no_pooled_line_is_an_error(self, tmp_path):
+        path = tmp_path / "c.csv"
+        pd.DataFrame({"taxon": ["a"] * 4 + ["b"] * 4, "mass": [2.0] * 8,
+                      "rate": [1.0, 2, 3, 4, 5, 6, 7, 8]}).to_csv(path, index=False)
+        with pytest.raises(DataError, match="no line could be fitted to the pooled rows"):
+            _run(_cfg(path, tmp_path, data={"moments_above_mb": 1e-6}))
+
+
+class TestUseMomentsPath:
+    def test_small_file_takes_the_ordinary_path(self, data_files):
+        tmp, csv, _, _ = data_files
+        assert use_moments_path(_cfg(csv, tmp)) is None
+
+    def test_large_file_or_dask_takes_the_moments_path(self, data_files):
+        tmp, csv, _, _ = data_files
+        assert "moments_above_mb" in use_moments_path(
+            _cfg(csv, tmp, data={"moments_above_mb": 1e-6}))
+        assert use_moments_path(_cfg(csv, tmp, engine="dask")) == "engine: dask"
+
+    def test_dask_with_a_row_key_is_an_error(self, data_files):
+        tmp, csv, _, _ = data_files
+        with pytest.raises(ConfigError, match="engine: dask reads x, y and group only"):
+            use_moments_path(_cfg(csv, tmp, engine="dask", data={"average_within": "taxon"}))
+
+    def test_scheduler_without_dask_is_an_error(self, data_files):
+        tmp, csv, _, _ = data_files
+        with pytest.raises(ConfigError, match="scheduler: is used only with engine: dask"):
+            _cfg(csv, tmp, scheduler="tcp://localhost:8786")
+
+
+class TestSpreadStage:
+    def test_appears_above_spread_min_and_matches_spread_from_fits(self, data_files):
+        tmp, csv, _, ordinary = data_files
+        assert "exponent_spread" in ordinary.tables        # 25 groups > default 20
+        s = ordinary.tables["exponent_spread"].set_index("method")
+        ref = spread_from_fits(ordinary.fits, "sma", exponents={"three_quarters": 0.75})
+        # internal consistency: the stage is spread_from_fits on the run's fits
+        assert s.loc["sma", "mean"] == pytest.approx(ref.mean, rel=1e-12)
+        assert s.loc["sma", "tau"] == pytest.approx(ref.tau, rel=1e-12, abs=1e-15)
+        tests = ordinary.tables["exponent_spread_tests"]
+        assert set(tests["method"]) == {"ols", "sma", "ma"}
+        assert any(m.startswith("Across 25 groups (taxon) the mean SMA exponent")
+                   for m in ordinary.messages)
+
+    def test_recovers_the_seeded_mean_exponent(self, data_files):
+        _, _, _, ordinary = data_files
+        s = ordinary.tables["exponent_spread"].set_index("method")
+        # simulation truth: exponent 0.75 in every group (OLS is unbiased for it)
+        assert s.loc["ols", "mean_low"] < 0.75 < s.loc["ols", "mean_high"]
+
+    def test_absent_at_or_below_spread_min(self, data_files):
+        tmp, csv, _, ordinary = data_files
+        cfg = _cfg(csv, tmp, groups={"spread_min": 25})
+        tables, messages, notes = spread_stage(ordinary.fits, cfg)
+        assert tables == {} and messages == [] and notes == []
+
+
+class TestBoundedDiagnostics:
+    def test_group_checks_dropped_above_the_limit(self, data_files):
+        tmp, csv, _, _ = data_files
+        cfg = _cfg(csv, tmp, groups={"diagnostics_max": 3})
+        fits = {("pooled", "", "ols"): 1, ("group", "a", "ols"): 2}
+        sets = {("pooled", ""): 1, ("group", "a"): 2, ("group", "b"): 3, ("group", "c"): 4,
+                ("group", "d"): 5}
+        f, s, note = bounded_diagnostics(fits, sets, cfg)
+        assert list(f) == [("pooled", "", "ols")] and list(s) == [("pooled", "")]
+        assert "Per-group diagnostics skipped" in note[0]
+        assert bounded_diagnostics(fits, dict(list(sets.items())[:3]), cfg)[2] == []
+
+
+class TestManyGroupsRun:
+    def test_two_thousand_groups_write_a_bounded_report(self, tmp_path):
+        df = _table(2000, 4, seed=11)
+        path = tmp_path / "many.csv"
+        df.to_csv(path, index=False)
+        cfg = _cfg(path, tmp_path, groups={"compare": False},
+                   figures={"kinds": ["scaling"], "dpi": 50})
+        res = write_outputs(_run(cfg), tmp_path / "out")
+        html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+        md = (tmp_path / "out" / "summary.md").read_text(encoding="utf-8")
+        # bounded: 6 000 group fits would make a table of megabytes
+        assert len(md) < 200_000, len(md)
+        assert len(html) < 1_500_000, len(html)
+        assert "every fit is in fits.csv" in md
+        assert len(pd.read_csv(tmp_path / "out" / "fits.csv")) == 3 * (1 + 2000 + 1)   # pooled, groups, group means
+        assert (tmp_path / "out" / "figures" / "group_exponents.png").exists()
+        assert (tmp_path / "out" / "exponent_spread.csv").exists()
+        assert any("Per-group diagnostics skipped" in w for w in res.warnings)
