@@ -28,7 +28,7 @@ import pandas as pd
 
 from ._version import __version__
 from .errors import DataError, ExtrapolationWarning
-from .lines import base_label
+from .lines import base_label, method_label
 from .output import file_sha256, json_safe, versions
 from .schema import DROPPED_COLUMNS
 
@@ -154,8 +154,9 @@ def constant_sentence(fit, units: dict, base, confidence: float) -> str:
                          (fit.intercept_ci.low, fit.intercept_ci.high))
     except Exception:  # noqa: BLE001 -- a label pint cannot read: no sentence
         return ""
-    return (f"  Normalisation constant a = {c.value:.4g} {c.unit} ({100 * confidence:g}% CI "
-            f"{c.low:.4g} to {c.high:.4g}): y at x = 1 {ux}.")
+    return (f"Normalisation constant of the pooled {method_label(fit.method)} line: "
+            f"a = {c.value:.4g} {c.unit} ({100 * confidence:g}% CI "
+            f"{c.low:.4g} to {c.high:.4g}), the median y at x = 1 {ux}.")
 
 
 # --------------------------------------------------------------------------

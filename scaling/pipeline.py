@@ -275,11 +275,11 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     tables["_saved_fits"] = saved
 
     messages += pooled_fit_messages(line_fits, cfg)
-    for (scope, group, method), fit in line_fits.items():
-        if scope == "pooled":   # the normalisation constant a with its units
-            a_line = multi_stage.constant_sentence(fit, data.units, base, cfg.model.confidence)
-            if a_line:
-                messages.append(a_line)
+    lead = line_fits.get(("pooled", "", cfg.model.primary))
+    if lead is not None:   # the normalisation constant a of the primary line, with its units
+        a_line = multi_stage.constant_sentence(lead, data.units, base, cfg.model.confidence)
+        if a_line:
+            messages.append(a_line)
     messages += multi_stage.prediction_sentences(tables, cfg, data.units)
 
     if phylo is not None:

@@ -699,7 +699,7 @@ def markdown_escape(text) -> str:
 
 #: summary.md shows tables up to this many rows; longer ones are linked to their CSV
 #: (report.html shows them all, folded).
-MD_MAX_ROWS = 20
+MD_MAX_ROWS = 12
 
 
 def _md_table(block: Block) -> str:
