@@ -433,7 +433,6 @@ def _who(row: int | None, label: str) -> str:
 def influence_reason(row: int, label: str, *, cook: float, slope: float,
                      slope_without: float, se: float, method: str) -> str:
     """Why one point gets a strong warning."""
-    from .lines import method_label
     return (f"{_who(row, label)} drives the fit: Cook's distance {cook:.2g}"
             f"{' (> 1)' if cook > 1 else ''}; without it the {method_label(method)} exponent is "
             f"{slope_without:.3f} instead of {slope:.3f}, a change of "
@@ -457,7 +456,6 @@ def estimate_outside_reason(label: str, estimate: float, low: float, high: float
 
 def group_residuals_reason(f: float, df1: int, df2: int, p: float) -> str:
     """Pooled residuals cluster by group."""
-    from .lines import p_text
     return (f"pooled residuals differ between groups (one-way ANOVA F = {f:.3g} on {df1} "
             f"and {df2} df, {p_text(p)}): the groups sit at different elevations, so the "
             "pooled line mixes them; prefer the within-group (common-slope) exponent.")
@@ -519,7 +517,6 @@ def curvature_ok(verdict: str) -> str:
 
 def symmetric_prediction_note(methods: list) -> str:
     """Predictions from SMA/MA lines overestimate means at the edges."""
-    from .lines import method_label
     names = ", ".join(method_label(m) for m in methods)
     return (f"Predictions from {names} were made because prediction.methods asks for them. "
             "Symmetric lines describe how y scales with x; they do not predict y from x. "
