@@ -29,7 +29,7 @@ Verdicts use :func:`scaling.lines.verdict_phrase` at alpha = 1 - confidence.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -238,6 +238,11 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
         (m for m in ("sma", "ma", "ols") if m in compared), None)
     plural = f"{group_word}s" if not group_word.endswith("s") else group_word
 
+    if read is None and "term" in fits.columns and \
+            fits["term"].fillna("").astype(str).ne("").any():
+        return Headline(primary=lead, line="pooled",
+                        sentences=_several_predictors(fits, slope_tests, lead, alpha, pct),
+                        exponent_table=table)
     if read is None:
         fit = _row(fits, "pooled", lead)
         if fit is None or not np.isfinite(fit["slope"]):
@@ -325,12 +330,45 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
                     exponent_table=table, matrices=matrices)
 
 
+def _several_predictors(fits, slope_tests, lead, alpha, pct) -> tuple:
+    """Exponents of a power law in several predictors, then their tests per hypothesis."""
+    rows = fits[(fits["scope"] == "pooled") & (fits["method"] == lead)]
+    parts = [f"{r.slope:.3f} for {r.term} ({_ci(r.slope_low, r.slope_high, pct)})"
+             for r in rows.itertuples(index=False)]
+    n = int(rows["n"].iloc[0]) if len(rows) else 0
+    s1 = (f"The {method_label(lead)} exponents are " + "; ".join(parts) + f" (n = {n}).")
+    tests = slope_tests[(slope_tests["scope"] == "pooled") & (slope_tests["method"] == lead)]
+    said = []
+    if "term" in tests.columns:
+        for name, t in tests.groupby("hypothesis", sort=False):
+            each = ", ".join(f"{r.term} vs {r.exponent:g} "
+                             f"{_short_verdict(r.estimate, r.exponent, r.p_value, alpha)}"
+                             for r in t.itertuples(index=False))
+            said.append(f"against {name}: {each}")
+    return (s1,) + ((("Tested " + "; ".join(said) + "."),) if said else ())
+
+
+_ANSWER_LINES = ("Predicted ", "Inverse prediction of ", "Total over ")
+
+
 def headline_of(result) -> Headline:
-    """:func:`build_headline` for a :class:`scaling.pipeline.RunResult`."""
+    """:func:`build_headline` for a :class:`scaling.pipeline.RunResult`.
+
+    When the headline has room (fewer than three sentences) and the run made a
+    few predictions (a fossil's mass, a plot's total biomass), the prediction
+    sentence of the run becomes the last sentence: for those users it is the
+    answer.
+    """
     cfg = result.config
     tables = result.tables or {}
-    return build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
+    head = build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
                           tables.get("pairwise_tests"), methods=cfg.model.methods,
                           primary=getattr(cfg.model, "primary", None),
                           confidence=cfg.model.confidence,
                           group_word=str(cfg.data.group or "group"))
+    if len(head.sentences) < 3:
+        answer = next((m.strip() for prefix in _ANSWER_LINES for m in result.messages
+                       if m.strip().startswith(prefix)), None)
+        if answer:
+            head = replace(head, sentences=tuple(head.sentences) + (answer,))
+    return head

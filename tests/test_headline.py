@@ -159,3 +159,30 @@ class TestDemoHeadline:
         assert md.index("## Answer") < md.index("## Summary")
         assert "Within clades, the common SMA exponent" in md
         assert "Pairs that differ (Holm-adjusted):" not in md    # matrices instead
+
+
+class TestHeadlineOfWorkedExamples:
+    """The answer of the forestry and palaeobiology users is on the first lines."""
+
+    def _run(self, tmp_path, name):
+        from scaling.cli import main
+        assert main(["init", "--example", name, str(tmp_path / name)]) == 0
+        from scaling.pipeline import run_config
+        return run_config(tmp_path / name / f"{name}.yaml", write=False, quiet=True)
+
+    def test_several_predictors_name_each_exponent_and_its_test(self, tmp_path):
+        from scaling.headline import headline_of
+        head = headline_of(self._run(tmp_path, "forestry"))
+        # demo_data/make_forestry.py (invented, stated truth): exponents 2 (diameter)
+        # and 1 (height) of a cylinder; the headline names both terms and both tests
+        assert "diameter_cm" in head.sentences[0] and "height_m" in head.sentences[0]
+        assert "vs 2" in head.sentences[1] and "vs 1" in head.sentences[1]
+        assert head.sentences[2].startswith("Total over")   # the plot total is the answer
+
+    def test_inverse_prediction_of_a_fossil_is_the_last_sentence(self, tmp_path):
+        from scaling.headline import headline_of
+        head = headline_of(self._run(tmp_path, "palaeo"))
+        # demo_data/make_palaeo.py: fossil F1's femur circumference is 118 mm
+        assert len(head.sentences) <= 3
+        assert head.sentences[-1].startswith("Inverse prediction of")
+        assert "118 mm" in head.sentences[-1]
