@@ -331,6 +331,14 @@ class TestPlotNatural:
                         or e.x1 > w + 1 or e.y1 > h + 1)]
         assert outside == []   # exact geometry of the drawn figure
 
+    def test_under_two_decades_one_panel_over_all_the_data(self, tmp_path):
+        res = simulated(tmp_path, groups=["a"], decades=(0, 1.5), n=40, seed=7)
+        fig = make_figure(res, "natural")
+        (ax,) = fig.axes
+        # one arithmetic panel reaches every point (common practice, no source)
+        assert ax.get_xlim()[1] >= res.data.points["x"].max()
+        assert ax.child_axes == []
+
     def test_on_a_given_axes_the_full_range_is_an_inset(self, grouped):
         from matplotlib.figure import Figure
         ax = Figure(figsize=(5, 4)).add_subplot()
