@@ -255,6 +255,97 @@ class TestPlotNatural:
         # exact law: median curve y = a x^b
         assert_allclose(line.get_ydata(), fit.a * x ** fit.slope, rtol=1e-10)
         assert ax.get_xscale() == "linear"
+        assert ax.get_yscale() == "linear"   # y stays in natural units
+
+    @staticmethod
+    def _markers(fig, gid):
+        return [ln for ax in fig.axes for ln in ax.lines if ln.get_gid() == gid]
+
+    def test_requested_predictions_are_marked_with_their_intervals(self, grouped):
+        ax = plot_natural(grouped)
+        table = grouped.tables["predictions"]
+        rows = table[(table["scope"] == "pooled")
+                     & table["method"].isin(grouped.config.model.methods)]
+        main = [ln for ln in ax.lines if ln.get_gid() == "prediction"]
+        # internal consistency: one marker per pooled row of the run's predictions table
+        assert len(rows) == 4 and len(main) == len(rows)
+        got = sorted((float(ln.get_xdata()[0]), float(ln.get_ydata()[0])) for ln in main)
+        assert_allclose(got, sorted(zip(rows["x"], rows["y"])), rtol=1e-12)
+        # error bars: caps at y_low and y_high of each row (internal consistency)
+        caps = sorted(round(float(c.get_ydata()[0]), 9) for cont in ax.containers
+                      for c in cont.lines[1])
+        assert_allclose(caps, sorted(np.r_[rows["y_low"], rows["y_high"]]), rtol=1e-8)
+        labels = [t.get_text() for lg in ax.figure.legends for t in lg.get_texts()]
+        assert "prediction ± 95% prediction interval" in labels
+        # the demo's pooled predictions all lie inside the data: no extrapolated entry
+        assert not any("extrapolated" in t for t in labels)
+
+    def test_extrapolated_predictions_are_styled_apart(self, pooled_only):
+        from matplotlib.colors import to_rgba
+        fig = plot_natural(pooled_only).figure
+        table = pooled_only.tables["predictions"]
+        extra = table[table["extrapolated"].astype(bool)]
+        inside = table[~table["extrapolated"].astype(bool)]
+        assert len(extra) == 1 and len(inside) == 2   # x = 50 000 lies beyond 15 669 g
+        main = fig.axes[0]
+        ex = [ln for ln in main.lines if ln.get_gid() == "prediction-extrapolated"]
+        ok = [ln for ln in main.lines if ln.get_gid() == "prediction"]
+        assert [float(ln.get_xdata()[0]) for ln in ex] == list(extra["x"])
+        assert len(ok) == len(inside)
+        # open marker for extrapolated, filled for the others (common practice, no source)
+        assert all(to_rgba(ln.get_markerfacecolor()) == to_rgba("white") for ln in ex)
+        assert all(to_rgba(ln.get_markerfacecolor()) != to_rgba("white") for ln in ok)
+        bars = [cont.lines[2][0] for cont in main.containers]
+        styles = {tuple(np.round(b.get_linestyle()[0][1] or (), 3))
+                  if b.get_linestyle()[0][1] else "solid" for b in bars}
+        assert len(styles) == 2   # dashed bars apart from solid ones
+        labels = [t.get_text() for lg in fig.legends for t in lg.get_texts()]
+        assert "extrapolated prediction (beyond fitted x)" in labels
+        assert "prediction ± 95% prediction interval" in labels
+
+    def test_four_decades_spread_the_bulk_of_the_points(self, tmp_path):
+        res = simulated(tmp_path, groups=["a"], decades=(0, 4), n=200, seed=5)
+        fig = make_figure(res, "natural")
+        fig.draw_without_rendering()
+        main = fig.axes[0]
+        off = np.concatenate([c.get_offsets() for c in main.collections
+                              if hasattr(c, "get_offsets") and len(c.get_offsets()) > 10])
+        x = off[:, 0]
+        lo, hi = np.percentile(res.data.points["x"], [10, 90])
+        bulk = np.column_stack([[lo, hi], [1.0, 1.0]])
+        disp = main.transData.transform(bulk)[:, 0]
+        box = main.get_window_extent()
+        share = (disp[1] - disp[0]) / box.width
+        # the 10th-90th percentile of x spans at least 60% of the main axes width
+        # (display coordinates; common practice, no source). One arithmetic axis over
+        # all four decades puts them in 10^3.6 / 10^4 = 40% of it.
+        assert share >= 0.6
+        assert len(x) == 200 and main.get_xscale() == "linear"
+        # the full range is in the second panel: every point inside its x limits
+        over = fig.axes[1]
+        assert over.get_xlim()[1] >= res.data.points["x"].max()
+        w, h = fig.bbox.width, fig.bbox.height
+        texts = TestReadableFigures._drawn_texts(fig)
+        outside = [t.get_text() for t in texts
+                   if ((e := t.get_window_extent()).x0 < -1 or e.y0 < -1
+                        or e.x1 > w + 1 or e.y1 > h + 1)]
+        assert outside == []   # exact geometry of the drawn figure
+
+    def test_under_two_decades_one_panel_over_all_the_data(self, tmp_path):
+        res = simulated(tmp_path, groups=["a"], decades=(0, 1.5), n=40, seed=7)
+        fig = make_figure(res, "natural")
+        (ax,) = fig.axes
+        # one arithmetic panel reaches every point (common practice, no source)
+        assert ax.get_xlim()[1] >= res.data.points["x"].max()
+        assert ax.child_axes == []
+
+    def test_on_a_given_axes_the_full_range_is_an_inset(self, grouped):
+        from matplotlib.figure import Figure
+        ax = Figure(figsize=(5, 4)).add_subplot()
+        assert plot_natural(grouped, ax=ax) is ax
+        (inset,) = ax.child_axes
+        assert inset.get_xlim()[1] >= grouped.data.points["x"].max()
+        assert ax.get_xlim()[1] < grouped.data.points["x"].max()
 
 
 class TestPlotExponents:
