@@ -126,11 +126,13 @@ class TestRun:
         assert err.count("\n") == 1
         assert sorted(p.name for p in out.iterdir()) == before
 
-    def test_force_keeps_other_files(self, tmp_path, capsys):
+    def test_force_keeps_other_files(self, tmp_path, small_csv, write_config, capsys):
+        # a small two-group table: --force's behaviour does not depend on the data
         out = tmp_path / "out"
         out.mkdir()
         (out / "my_notes.txt").write_text("keep me")
-        code, stdout, _ = _run(["run", DEMO_CONFIG, "--out", out, "--force"], capsys)
+        cfg = write_config(f"data: {{file: {small_csv.name}, x: mass, y: rate, group: grp}}\n")
+        code, stdout, _ = _run(["run", cfg, "--out", out, "--force"], capsys)
         assert code == 0
         assert (out / "my_notes.txt").read_text() == "keep me"
         assert "wrote" in stdout and "fits.csv" not in stdout.splitlines()[0]

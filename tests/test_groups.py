@@ -388,22 +388,26 @@ class TestCompareGroups:
 class TestCompareGroupsMonteCarlo:
     """Seeded simulations, 3 groups of n = 30, all replicates vectorised.
 
-    The p-values are those compare_groups reports for this design
-    (calibration="auto" -> parametric bootstrap with B = 999, since n < 100):
-    2000 replicates x 999 bootstrap datasets in array passes take about 10 s
-    per method on 2 cores.  Tolerance 0.05 +- 0.015 is about 4.9
-    binomial SEs at 2000 replicates (sqrt(0.05 * 0.95 / 2000) = 0.0049).
+    The p-values are those compare_groups reports for this design with
+    n_boot=499 (calibration="auto" -> parametric bootstrap, since n < 100;
+    the default is 999): B = 499 keeps alpha (B + 1) = 25 an integer, so the
+    bootstrap test's size is still alpha, and halves the cost of the earlier
+    B = 999.  2000 replicates x 499 bootstrap datasets in array passes.
+    Tolerance 0.05 +- 0.015 is about 3.1 binomial SEs at 2000 replicates
+    (sqrt(0.05 * 0.95 / 2000) = 0.0049).
     """
+
+    B = 499
 
     @pytest.mark.parametrize("method", ["sma", "ma"])
     def test_size_at_five_percent(self, method):
         rng = np.random.default_rng(20240601 + (method == "ma"))
         arrays = _simulate(rng, 2000, [30, 30, 30], [0.75] * 3, method)
-        res = sg._axis_tests(method, *arrays, bootstrap=999, rng=rng)
+        res = sg._axis_tests(method, *arrays, bootstrap=self.B, rng=rng)
         size = (res["p_value"] <= 0.05).mean(axis=0)
         # known truth: common slope, equal elevation, no axis shift -> rejection rate alpha;
-        # observed (seeded), slopes/elevation/axis: SMA 0.052/0.047/0.046,
-        # MA 0.045/0.039/0.048 (plain chi2 on the same data: SMA 0.059/0.056/0.060)
+        # observed (seeded, B = 499), slopes/elevation/axis: SMA 0.054/0.046/0.048,
+        # MA 0.042/0.041/0.052 (plain chi2 on the same data: SMA 0.059/0.056/0.060)
         assert_allclose(size, 0.05, atol=0.015, rtol=0)
         # the plain chi-square reference is liberal here (measured, docs/group_tests.md);
         # recorded, not asserted beyond sanity
@@ -421,11 +425,12 @@ class TestCompareGroupsMonteCarlo:
             _simulate(rng, R, [30] * 3, [0.75] * 3, method, fshift=[0, 0.5, 1.0]),
         ]
         arrays = tuple(np.concatenate([p[k] for p in parts]) for k in range(6))
-        res = sg._axis_tests(method, *arrays, bootstrap=999, rng=rng)
+        res = sg._axis_tests(method, *arrays, bootstrap=self.B, rng=rng)
         reject = res["p_value"] <= 0.05
         power = [reject[k * R:(k + 1) * R, k].mean() for k in range(3)]
-        # known truth: each alternative holds; observed (seeded) power, slopes/elevation/
-        # axis: SMA 0.87/0.89/0.94, MA 0.82/0.93/0.92 (docs/group_tests.md); asserted > 0.75
+        # known truth: each alternative holds; observed (seeded, B = 499) power, slopes/
+        # elevation/axis: SMA 0.87/0.90/0.94, MA 0.82/0.93/0.92 (B = 999: SMA 0.87/0.89/0.94,
+        # MA 0.82/0.93/0.92, docs/group_tests.md); asserted > 0.75
         assert min(power) > 0.75, power
 
 
@@ -561,52 +566,72 @@ class TestGroupsUsedByMeansLine:
 
 @pytest.mark.slow
 class TestCompareGroupsSizeMixedGroups:
-    """Size of the public compare_groups on mixed groups (known truth, seeded).
+    """Size of compare_groups' tests on mixed groups (known truth, seeded).
 
     Three groups share slope 0.75 and elevation but differ in size
     (n = 100, 130, 170), residual spread (sd 0.08, 0.25, 0.15 on the residual
     axis), spread along the axis (sd 1.0, 0.5, 1.6) -- hence correlation
     (about 0.99, 0.83, 0.99) -- and position along the axis (0, 1, 2.5).  The
-    slope and elevation nulls hold; the axis-shift null does not.  All
-    replicates are drawn in one array pass; compare_groups takes one table and
-    compares all its groups, so it cannot be vectorised over replicates and
-    is called once per replicate: R = 120 replicates per method (a few
-    seconds each on 2 cores).  Tolerance: |size - 0.05| <= 0.055, about 2.8
-    binomial SEs at R = 120 (sqrt(0.05 * 0.95 / 120) = 0.0199) -- coarse,
-    because replicates cannot be vectorised through this API; the vectorised
-    check of the same tests at 2000 replicates is TestCompareGroupsMonteCarlo.
-    Groups of >= 100
-    points make calibration="auto" use chi-square (AUTO_BOOTSTRAP_BELOW).
+    slope and elevation nulls hold; the axis-shift null does not.  Groups of
+    >= 100 points make calibration="auto" use chi-square (AUTO_BOOTSTRAP_BELOW),
+    so compare_groups computes its p-values with
+    ``_axis_tests(..., bootstrap=None, exact=True)`` on the groups' moments.
+    All R = 2000 replicates are drawn in one array pass, their moments taken
+    in one group_moments pass and tested in one _axis_tests pass; one public
+    compare_groups call on the first replicate checks that it reports the
+    same p-values (internal consistency).  Tolerance: |size - 0.05| <= 0.015,
+    about 3.1 binomial SEs at R = 2000 (sqrt(0.05 * 0.95 / 2000) = 0.0049).
     """
 
-    R = 120
+    R = 2000
+    NS = np.array([100, 130, 170])
+    SR, SF, POS = np.array([0.08, 0.25, 0.15]), np.array([1.0, 0.5, 1.6]), \
+        np.array([0.0, 1.0, 2.5])
 
-    @pytest.mark.parametrize("method", ["sma", "ma"])
-    def test_size_of_slope_and_elevation_tests(self, method):
+    def _replicates(self, method):
+        """X, Y of shape (R, N) and the group index of each column (known truth)."""
         rng = np.random.default_rng(4242 + (method == "ma"))
-        ns = np.array([100, 130, 170])
-        sr, sf, pos = np.array([0.08, 0.25, 0.15]), np.array([1.0, 0.5, 1.6]), \
-            np.array([0.0, 1.0, 2.5])
-        grp = np.repeat(np.arange(3), ns)
+        grp = np.repeat(np.arange(3), self.NS)
         b = 0.75
-        r = rng.standard_normal((self.R, grp.size)) * sr[grp]
-        f = rng.standard_normal((self.R, grp.size)) * sf[grp] + pos[grp]
+        r = rng.standard_normal((self.R, grp.size)) * self.SR[grp]
+        f = rng.standard_normal((self.R, grp.size)) * self.SF[grp] + self.POS[grp]
         if method == "sma":
             X, Y = (f - r) / (2 * b), (r + f) / 2
         else:
             X, Y = (f - b * r) / (1 + b * b), (r + b * f) / (1 + b * b)
-        labels = np.array(["a", "b", "c"])[grp]
-        p = np.empty((self.R, 3))
-        for k in range(self.R):
-            d = pd.DataFrame({"lx": X[k], "ly": Y[k], "g": labels})
-            res = sg.compare_groups(d, "lx", "ly", "g", method=method, log_base=None)
-            p[k] = res.to_frame()["p_value"].to_numpy()
+        return X, Y, grp
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_size_of_slope_and_elevation_tests(self, method):
+        X, Y, grp = self._replicates(method)
+        labels = (np.arange(self.R)[:, None] * 3 + grp).ravel()
+        m = group_moments(X.ravel(), Y.ravel(), labels, n_groups=self.R * 3)
+        arrays = tuple(np.asarray(getattr(m, k)).reshape(self.R, 3)
+                       for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy"))
+        res = sg._axis_tests(method, *arrays, bootstrap=None, rng=None, exact=True)
+        p = res["p_value"]                                   # (R, 3), TESTS order
         size = (p <= 0.05).mean(axis=0)
-        # known truth: common slope and elevation -> rejection rate 0.05 (tolerance above);
-        # observed (seeded) slopes/elevation: SMA 0.067/0.042, MA 0.058/0.058
-        assert_allclose(size[:2], 0.05, atol=0.055, rtol=0)
+        # known truth: common slope and elevation -> rejection rate 0.05, |size - 0.05| <=
+        # 0.015 (3.1 binomial SEs at R = 2000, class docstring); observed (seeded)
+        # slopes/elevation: SMA 0.050/0.046, MA 0.048/0.043
+        assert_allclose(size[:2], 0.05, atol=0.015, rtol=0)
         # known truth: positions along the axis differ by 1 and 2.5 sd -> always rejected
         assert size[2] == 1.0
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_public_call_reports_the_vectorised_p_values(self, method):
+        X, Y, grp = self._replicates(method)
+        d = pd.DataFrame({"lx": X[0], "ly": Y[0], "g": np.array(["a", "b", "c"])[grp]})
+        res = sg.compare_groups(d, "lx", "ly", "g", method=method, log_base=None)
+        frame = res.to_frame()
+        assert set(frame["p_method"]) == {"chi2"}           # the path the size test checks
+        m = group_moments(X[0], Y[0], grp, n_groups=3)
+        arrays = tuple(np.asarray(getattr(m, k))[None]
+                       for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy"))
+        ref = sg._axis_tests(method, *arrays, bootstrap=None, rng=None, exact=True)
+        # internal consistency: the public function's p-values are the array function's
+        assert_allclose(frame["p_value"].to_numpy(float), ref["p_value"][0], rtol=1e-9,
+                        atol=1e-300)
 
 
 # --------------------------------------------------------------------------

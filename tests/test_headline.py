@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from scaling.config import config_from_dict, load_config
+from scaling.config import config_from_dict
 from scaling.errors import ConfigError
 from scaling.headline import build_headline, exponent_words, headline_of, primary_method
 from scaling.pipeline import analyse, write_outputs
@@ -132,14 +132,15 @@ class TestBuildHeadline:
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
-    """The demo run, written without figures (figures are not part of these checks)."""
-    from dataclasses import replace
-    cfg = load_config(ROOT / "configs" / "demo.yaml")
+    """The demo run, written without figures (figures are not part of these checks).
+
+    The analysis is the session's one cached ``analyse`` of configs/demo.yaml
+    (helpers_figures.demo, shared with the figure and report tests)."""
+    from helpers_figures import demo as demo_result, with_figures
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        res = analyse(cfg)
-        res = replace(res, config=replace(cfg, figures=replace(cfg.figures, formats=())))
-        return write_outputs(res, tmp_path_factory.mktemp("demo") / "out")
+        return write_outputs(with_figures(demo_result(), formats=()),
+                             tmp_path_factory.mktemp("demo") / "out")
 
 
 class TestDemoHeadline:
