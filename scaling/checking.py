@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import ScalingError
+from .headline import primary_method as primary_method_of
 from .lines import is_symmetric, method_label
 
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "primary_method", "check_run"]
@@ -23,17 +24,9 @@ MAX_LISTED = 5
 
 
 def primary_method(cfg) -> str:
-    """``model.primary`` if set, else the first symmetric method requested, else OLS."""
-    chosen = getattr(cfg.model, "primary", None)
-    if chosen:
-        return chosen
-    for m in cfg.model.methods:
-        try:
-            if is_symmetric(m):
-                return m
-        except ScalingError:
-            continue
-    return "ols"
+    """``model.primary`` (resolved by the config: given, else the first symmetric method
+    requested, else OLS); the rule itself lives in :func:`scaling.headline.primary_method`."""
+    return primary_method_of(cfg.model.methods, getattr(cfg.model, "primary", None))
 
 
 def _scope_words(scope: str, group: str) -> str:
