@@ -15,7 +15,7 @@ import pandas as pd
 
 from .errors import ScalingError
 from .headline import primary_method as primary_method_of
-from .lines import is_symmetric, method_label
+from .lines import method_label
 
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "primary_method", "check_run"]
 
