@@ -150,6 +150,23 @@ def _tests(slope_tests: pd.DataFrame, scope: str, method: str, group: str = ""):
                        & (slope_tests["group"].fillna("").astype(str) == group)]
 
 
+def _test_index(slope_tests: pd.DataFrame | None) -> dict:
+    """Rows of ``slope_tests`` (as dicts, in table order) by (scope, method, group).
+
+    One pass over the table, so that looking up the tests of each of many
+    groups does not filter the whole table once per group.  ``group`` is the
+    group label as text ("" for none), as :func:`_tests` compares it.
+    """
+    out: dict = {}
+    if slope_tests is None or not len(slope_tests):
+        return out
+    keys = zip(slope_tests["scope"], slope_tests["method"],
+               slope_tests["group"].fillna("").astype(str))
+    for key, rec in zip(keys, slope_tests.to_dict(orient="records")):
+        out.setdefault(key, []).append(rec)
+    return out
+
+
 def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
     """Fit x hypothesis: every pooled, common and group-means fit, and the
     primary method's per-group fits."""
@@ -163,18 +180,21 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
     keep = keep.assign(_o=keep["scope"].map(order).fillna(9),
                        _p=(keep["method"] != primary).astype(int))
     keep = keep.sort_values(["_o", "_p"], kind="stable")
+    index = _test_index(slope_tests)
     for r in keep.itertuples(index=False):
         group = "" if pd.isna(r.group) else str(r.group)
         line = _LINE_WORDS.get(r.scope, r.scope) + (f" {group}" if group else "")
         rec = {"line": line, "method": method_label(str(r.method)),
                "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
-        tests = _tests(slope_tests, r.scope, r.method, group)
+        first: dict = {}   # the first test of each hypothesis for this line
+        for t in index.get((r.scope, r.method, group), ()):
+            first.setdefault(t["hypothesis"], t)
         for name, b0 in hyps:
-            t = tests[tests["hypothesis"] == name]
+            t = first.get(name)
             label = f"vs {exponent_words(str(name), float(b0))}"
-            rec[label] = (_short_verdict(float(t["estimate"].iloc[0]), float(b0),
-                                         float(t["p_value"].iloc[0]), alpha)
-                          if len(t) else "")
+            rec[label] = (_short_verdict(float(t["estimate"]), float(b0),
+                                         float(t["p_value"]), alpha)
+                          if t is not None else "")
         rows.append(rec)
     return pd.DataFrame(rows)
 
@@ -273,13 +293,13 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     if np.isfinite(p_slope) and p_slope <= alpha:
         gfits = fits[(fits["scope"] == "group") & (fits["method"] == lead)]
         rows = []
+        index = _test_index(slope_tests)
         for r in gfits.itertuples(index=False):
             rec = {plural[:-1] if plural.endswith("s") else group_word: r.group,
                    "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
-            tests = _tests(slope_tests, "group", lead, str(r.group))
-            for t in tests.itertuples(index=False):
-                rec[f"vs {exponent_words(str(t.hypothesis), float(t.exponent))}"] = \
-                    _short_verdict(t.estimate, t.exponent, t.p_value, alpha)
+            for t in index.get(("group", lead, str(r.group)), ()):
+                rec[f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"] = \
+                    _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha)
             rows.append(rec)
         s1 = (f"The {plural} do not share one exponent: their {label} slopes differ "
               f"({_p(p_slope)}), so each {group_word} has its own; the table below gives each "

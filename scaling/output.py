@@ -54,8 +54,31 @@ def json_safe(obj):
     return obj
 
 
+def _column_values(column: pd.Series) -> list:
+    """One column as JSON-ready Python values (NaN/inf -> None), cleaned column-wise."""
+    dtype = column.dtype
+    if isinstance(dtype, np.dtype) and dtype.kind == "f":
+        v = column.to_numpy()
+        out = v.tolist()
+        for i in np.flatnonzero(~np.isfinite(v)).tolist():
+            out[i] = None
+        return out
+    if isinstance(dtype, np.dtype) and dtype.kind in "iub":
+        return column.to_numpy().tolist()
+    return [json_safe(v) for v in column.astype(object).where(column.notna(), None)]
+
+
 def records(frame: pd.DataFrame) -> list:
-    return json_safe(frame.astype(object).where(frame.notna(), None).to_dict(orient="records"))
+    """Rows of ``frame`` as JSON-ready dicts (what :func:`json_safe` makes of them).
+
+    Numeric columns are cleaned as whole arrays; only object columns go value
+    by value through :func:`json_safe`.
+    """
+    keys = [str(k) for k in frame.columns]
+    if not keys:
+        return [{} for _ in range(len(frame))]
+    columns = [_column_values(frame.iloc[:, j]) for j in range(len(keys))]
+    return [dict(zip(keys, row)) for row in zip(*columns)]
 
 
 def results_document(result) -> dict:
@@ -79,10 +102,12 @@ def results_document(result) -> dict:
         },
         "manifest": result.manifest,
     }
+    clean = {"fits", "slope_tests", "dropped_rows"}   # records() are JSON-ready already
     for name, table in result.tables.items():
         if isinstance(table, pd.DataFrame) and not name.startswith("_"):
             doc[name] = records(table)
-    return json_safe(doc)
+            clean.add(name)
+    return {str(k): v if k in clean else json_safe(v) for k, v in doc.items()}
 
 
 def check_out_dir(out_dir: Path, force: bool) -> None:
