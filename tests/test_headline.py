@@ -1,8 +1,10 @@
 """The headline: which line answers the question, in at most three sentences.
 
-Seeded simulations with a known truth (RULES.md 2) and the demo (its truth is
-stated in demo_data/make_demo.py: common within-clade exponent 0.72, clades at
-different elevations).
+Where expected values come from: seeded simulations with a known truth (stated
+beside each check), the demo (its truth is stated in demo_data/make_demo.py:
+common within-clade exponent 0.72, clades at different elevations), the worked
+examples' seeded scripts in demo_data/, and invented tables whose numbers are
+copied into the expected sentences (exact by construction: formatting only).
 """
 from __future__ import annotations
 
@@ -70,6 +72,7 @@ class TestPrimaryMethod:
 
 class TestExponentWords:
     def test_fractions(self):
+        # exact laws of writing fractions: 0.75 = 3/4, 2/3 = 0.666...
         assert exponent_words("three_quarters", 0.75) == "3/4"
         assert exponent_words("x", 2 / 3) == "2/3"
         assert exponent_words("x", 0.8) == "0.8"
@@ -125,6 +128,7 @@ class TestBuildHeadline:
                               "hypothesis": ["k"], "exponent": [0.75], "estimate": [0.7],
                               "p_value": [0.3]})
         head = build_headline(fits, tests, methods=["ols"])
+        # exact by construction: the numbers of the invented tables above, formatted
         assert head.sentences == ("The OLS exponent is 0.700 (95% CI 0.600–0.800, n = 10).",
                                   "It does not differ detectably from 3/4 (p = 0.300).")
         assert head.exponent_table.loc[0, "vs 3/4"] == "not different (p = 0.300)"
@@ -156,7 +160,7 @@ class TestDemoHeadline:
 
     def test_summary_opens_with_the_answer_and_is_small(self, demo):
         md = (demo.out_dir / "summary.md").read_text(encoding="utf-8")
-        assert len(md.encode()) < 20_000
+        assert len(md.encode()) < 20_000    # the issue's size limit (common practice, no source)
         assert md.index("## Answer") < md.index("## Summary")
         assert "Within clades, the common SMA exponent" in md
         assert "Pairs that differ (Holm-adjusted):" not in md    # matrices instead
