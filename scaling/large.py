@@ -26,7 +26,6 @@ The plain-language sentences are small functions here (to move into
 
 from __future__ import annotations
 
-import datetime as _dt
 from dataclasses import replace
 from pathlib import Path
 
@@ -193,10 +192,8 @@ def analyse_moments(cfg, reason: str):
     from .data import CleanData
     from .engine import fit_groups_from_moments, read_moments
     from .lines import METHODS, line_fit_from_moments, parse_log_base
-    from .output import file_sha256 as _file_sha256, json_safe as _json_safe, \
-        versions as _versions
+    from .output import manifest_header
     from .schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
-    from ._version import __version__
 
     base = parse_log_base(cfg.model.log_base)
     d = cfg.data
@@ -278,13 +275,7 @@ def analyse_moments(cfg, reason: str):
                      n_read=int(gm.n_read), units=dict(d.units), averaged_within=None,
                      n_rows_used=int(gm.moments.n.sum()))
     manifest = {
-        "scaling_version": __version__,
-        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
-        "config_file": str(cfg.source) if cfg.source else None,
-        "config": _json_safe(cfg.raw),
-        "input_file": str(d.file),
-        "input_sha256": _file_sha256(Path(d.file)) if Path(d.file).is_file() else None,
-        "versions": _versions(),
+        **manifest_header(cfg),
         "large_data": {"reason": reason, "engine": cfg.engine, "scheduler": cfg.scheduler,
                        "chunk_size": d.chunk_size, "rows_read": int(gm.n_read),
                        "rows_dropped": int(gm.n_dropped), "groups": gm.n_groups},

@@ -17,7 +17,6 @@ Sentences for the report are small functions here (to move to wording.py).
 
 from __future__ import annotations
 
-import datetime as _dt
 
 import math
 import warnings
@@ -26,10 +25,9 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from ._version import __version__
 from .errors import DataError, ExtrapolationWarning
 from .lines import base_label, method_label
-from .output import file_sha256, json_safe, versions
+from .output import manifest_header
 from .schema import DROPPED_COLUMNS
 
 __all__ = ["apply_model_units", "constant_columns", "analyse_several", "exponent_hypotheses",
@@ -339,13 +337,7 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
     messages.append(f"  Residual SD (log{base_label(base)}) {fit.resid_sd:.4f}; "
                     f"adjusted r² {fit.adj_r2:.3f}; smearing factor {fit.factors['smearing']:.4f}.")
     manifest = {
-        "scaling_version": __version__,
-        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
-        "config_file": str(cfg.source) if cfg.source else None,
-        "config": json_safe(cfg.raw),
-        "input_file": str(cfg.data.file),
-        "input_sha256": file_sha256(cfg.data.file),
-        "versions": versions(),
+        **manifest_header(cfg),
         "predictors": list(names),
     }
     # the fields of a pipeline.RunResult (built there: this module sits below pipeline)

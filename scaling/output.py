@@ -9,6 +9,7 @@ statistics.
 
 from __future__ import annotations
 
+import datetime as _dt
 import hashlib
 import json
 import math
@@ -192,6 +193,20 @@ def file_sha256(path: Path) -> str:
         for chunk in iter(lambda: fh.read(1 << 20), b""):
             h.update(chunk)
     return h.hexdigest()
+
+
+def manifest_header(cfg) -> dict:
+    """The first entries of every run's manifest: version, time, config, input hash."""
+    path = Path(cfg.data.file)
+    return {
+        "scaling_version": __version__,
+        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "config_file": str(cfg.source) if cfg.source else None,
+        "config": json_safe(cfg.raw),
+        "input_file": str(cfg.data.file),
+        "input_sha256": file_sha256(path) if path.is_file() else None,
+        "versions": versions(),
+    }
 
 
 def versions() -> dict:

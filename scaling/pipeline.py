@@ -13,7 +13,6 @@ the sentences in :mod:`scaling.wording` and the file writing in
 
 from __future__ import annotations
 
-import datetime as _dt
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -21,7 +20,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ._version import __version__
 from .config import Config, config_from_dict, load_config
 from .data import CleanData, load_data
 from .display import frame_html, short_repr
@@ -30,8 +28,7 @@ from .groups import common_slope_rows
 from .lines import MIN_N, base_label, parse_log_base
 from .moments import group_moments, moments
 from . import multi_stage
-from .output import check_out_dir, file_sha256, json_safe, results_document, versions, \
-    write_outputs
+from .output import check_out_dir, manifest_header, results_document, write_outputs  # noqa: F401
 from .schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  # noqa: F401 (aliases)
                      DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
                      INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
@@ -312,13 +309,7 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
         messages += p_messages
 
     manifest = {
-        "scaling_version": __version__,
-        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
-        "config_file": str(cfg.source) if cfg.source else None,
-        "config": json_safe(cfg.raw),
-        "input_file": str(cfg.data.file),
-        "input_sha256": file_sha256(Path(cfg.data.file)),
-        "versions": versions(),
+        **manifest_header(cfg),
         "resampling": resampling,
         "diagnostics": {"enabled": cfg.diagnostics.enabled, "alpha": cfg.diagnostics.alpha,
                         "error_structure": cfg.diagnostics.error_structure,
