@@ -427,10 +427,10 @@ def _x_columns(value, path):
 
 
 def _unit(value, path) -> str:
-    from .units import parse_unit   # pint, loaded only when units are given
+    from .units import check_unit   # pint, loaded only for units beyond the common SI ones
     text = _string(value, path)
     try:
-        parse_unit(text, key=path)
+        check_unit(text, key=path)
     except ConfigError as exc:
         raise _Bad(path, str(exc).split(": ", 1)[1]) from None
     return text

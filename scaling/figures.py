@@ -25,7 +25,6 @@ import io
 import math
 import textwrap
 import warnings
-from fractions import Fraction
 from pathlib import Path
 
 import matplotlib
@@ -36,9 +35,10 @@ from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter
                                FuncFormatter)
 from scipy import stats
 from .errors import ConfigError, FigureWarning
-from .lines import base_label, parse_log_base, to_log
+from .lines import parse_log_base, to_log
 from .predict import log_interval, predict, saved_factor
 from .schema import CATALOGUE, FIGURE_KINDS, method_label
+from .wording import exponent_label
 
 __all__ = ["plot_scaling", "plot_natural", "plot_exponents", "plot_residuals",
            "make_scaling", "make_natural", "make_exponents", "make_residuals",
@@ -461,18 +461,6 @@ def _group_line(fit, xs, common, means) -> np.ndarray:
     base = fit.log_base
     X = np.asarray(xs, dtype=float) if base is None else np.log(xs) / np.log(base)
     return my + common.slope * (X - mx)
-
-
-def _exponent_label(value: float) -> str:
-    """A hypothesised exponent as a small fraction where it is one (0.75 -> 3/4)."""
-    frac = Fraction(value).limit_denominator(12)
-    if frac.denominator > 1 and abs(float(frac) - value) < 5e-4:
-        return f"{frac.numerator}/{frac.denominator}"
-    return f"{value:g}"
-
-
-#: Public name (the report writes exponents the way figures do).
-exponent_label = _exponent_label
 
 
 def equation_text(fit, *, digits: int = 3, factor: float | None = None,
@@ -1128,7 +1116,7 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         while any(abs(value - v) < 0.12 * span and lvl == level for v, lvl in placed):
             level += 1
         placed.append((value, level))
-        text = _exponent_label(value)
+        text = exponent_label(value)
         ax.text(value, -0.5 - 0.05 - 0.25 * level, text, ha="center", va="bottom",
                 fontsize=6.5, color="#4d4d4d", zorder=4,
                 bbox=dict(boxstyle="square,pad=0.1", facecolor="white", edgecolor="none"))
@@ -1326,7 +1314,43 @@ def figure_png(result, kind: str, *, dpi: int = 150, size: str | None = None) ->
     return buf.getvalue()
 
 
-def write_figures(result, folder: Path) -> list[Path]:
+def _draw_and_save(result, kinds, folder: Path) -> list:
+    """Draw each figure of ``kinds`` once and save it in every format.
+
+    Returns ``[(kind, (relative paths, note)), ...]``; the note is empty, or
+    says why the figure was skipped (its files are then removed).
+    """
+    cfg = result.config.figures
+    drawn = []
+    for kind in kinds:
+        done: list[str] = []
+        try:
+            fig = make_figure(result, kind, size=cfg.size)
+            for i, fmt in enumerate(cfg.formats):
+                rel = Path("figures") / f"{kind}.{fmt}"
+                _save(fig, folder / rel, fmt, cfg.dpi)
+                done.append(str(rel))
+                if i == 0:
+                    # Same size in every format: keep the layout found for the first.
+                    fig.set_layout_engine("none")
+        except Exception as exc:  # noqa: BLE001 -- any drawing failure skips this figure only
+            for rel in done:
+                (folder / rel).unlink(missing_ok=True)
+            reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            drawn.append((kind, ([], f"Figure '{kind}' was not drawn ({type(exc).__name__}: "
+                                     f"{reason}); the numeric results are complete in the "
+                                     "tables.")))
+            continue
+        drawn.append((kind, (done, "")))
+    return drawn
+
+
+#: Rough relative cost of drawing and saving each figure (measured on the demo):
+#: how :mod:`scaling.figure_worker` splits a run's figures between two processes.
+DRAWING_COST = {"scaling": 3, "natural": 2, "exponents": 1, "residuals": 4}
+
+
+def write_figures(result, folder: Path, *, kinds=None, extras: bool = True) -> list[Path]:
     """Save the run's figures under ``folder/figures``; return paths relative to ``folder``.
 
     ``config.figures.kinds`` selects the figures, ``.formats`` the files
@@ -1337,34 +1361,25 @@ def write_figures(result, folder: Path) -> list[Path]:
     floating-point range for values near 1e±300) is skipped, with a
     :class:`~scaling.errors.FigureWarning` naming it and the reason: a figure
     never turns a good fit into a failed run.
-    """
 
+    ``kinds`` draws only these of ``config.figures.kinds``; ``extras=False``
+    leaves out the figures beyond them (of many groups; of several
+    predictors): :mod:`scaling.figure_worker` splits a run's figures between
+    processes this way.
+    """
     cfg = result.config.figures
     folder = Path(folder)
     (folder / "figures").mkdir(parents=True, exist_ok=True)
-    out: list[Path] = []
     if "_multi_fit" in (result.tables or {}):   # several predictors: partial relationships
-        return _write_partial_figures(result, folder)
-    for kind in cfg.kinds:
-        done: list[Path] = []
-        try:
-            fig = make_figure(result, kind, size=cfg.size)
-            for i, fmt in enumerate(cfg.formats):
-                rel = Path("figures") / f"{kind}.{fmt}"
-                _save(fig, folder / rel, fmt, cfg.dpi)
-                done.append(rel)
-                if i == 0:
-                    # Same size in every format: keep the layout found for the first.
-                    fig.set_layout_engine("none")
-        except Exception as exc:  # noqa: BLE001 -- any drawing failure skips this figure only
-            for rel in done:
-                (folder / rel).unlink(missing_ok=True)
-            reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-            warnings.warn(f"Figure '{kind}' was not drawn ({type(exc).__name__}: {reason}); "
-                          "the numeric results are complete in the tables.",
-                          FigureWarning, stacklevel=2)
-            continue
-        out += done
+        return _write_partial_figures(result, folder) if extras else []
+    chosen = [k for k in cfg.kinds if kinds is None or k in kinds]
+    out: list[Path] = []
+    for kind, (done, note) in _draw_and_save(result, chosen, folder):
+        if note:
+            warnings.warn(note, FigureWarning, stacklevel=2)
+        out += [Path(rel) for rel in done]
+    if not extras:
+        return out
     try:   # the summary across many groups (scaling.large), when the run has one
         out += write_group_exponents(result, folder)
     except Exception as exc:  # noqa: BLE001 -- as above: skip the figure with a note

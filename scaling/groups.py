@@ -138,6 +138,7 @@ __all__ = [
     "common_slope",
     "GroupTest",
     "PairwiseTest",
+    "holm_adjust",
     "GroupComparison",
     "compare_groups",
     "common_slope_rows",
@@ -1483,7 +1484,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     tests; the axis shift is the one-way ANOVA of log x.  Formulas in the
     module docstring of :mod:`scaling.groups`.  Pairwise tests repeat the
     test on each pair of groups (same calibration) and adjust by Holm (1979,
-    Scand. J. Statist. 6:65) via statsmodels ``multipletests``.
+    Scand. J. Statist. 6:65), :func:`holm_adjust`.
 
     Examples
     --------
@@ -1605,7 +1606,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
             if name not in rejected:
                 continue
             stat, df1, p = results[:, k, 0], results[:, k, 1], results[:, k, 2]
-            p_adj = _holm(p)
+            p_adj = holm_adjust(p)
             for j, (a, c) in enumerate(pairs):
                 pairwise.append(PairwiseTest(
                     method=method, test=name, group_a=labels[used[a]],
@@ -1648,12 +1649,41 @@ def _exact_common(method, sxx, syy, sxy):
     return b, ConfidenceInterval(math.nan, math.nan), math.nan, False
 
 
-def _holm(p: np.ndarray) -> np.ndarray:
-    from statsmodels.stats.multitest import multipletests
+def holm_adjust(p) -> np.ndarray:
+    """Holm (1979, Scand. J. Statist. 6:65) step-down adjusted p-values.
+
+    The i-th smallest of m finite p-values becomes
+    ``max_{j <= i} min(1, (m - j + 1) p_(j))``; non-finite p-values stay NaN
+    and do not count in m.
+
+    Parameters
+    ----------
+    p : array_like
+        Unadjusted p-values, in any order.
+
+    Returns
+    -------
+    ndarray
+        Adjusted p-values in the order given.
+
+    Examples
+    --------
+    >>> holm_adjust([0.01, 0.04, 0.03]).round(3).tolist()
+    [0.03, 0.06, 0.06]
+    """
+    # Written here rather than calling statsmodels' multipletests, which runs a
+    # full garbage collection on every call (about 0.09 s each in a demo run).
+    p = np.asarray(p, dtype=float)
     out = np.full(p.shape, np.nan)
     ok = np.isfinite(p)
-    if ok.any():
-        out[ok] = multipletests(p[ok], method="holm")[1]
+    q = p[ok]
+    if q.size:
+        order = np.argsort(q)
+        adjusted = np.maximum.accumulate(q[order] * np.arange(q.size, 0, -1))
+        adjusted[adjusted > 1] = 1
+        values = np.empty_like(adjusted)
+        values[order] = adjusted
+        out[ok] = values
     return out
 
 

@@ -17,7 +17,6 @@ import os
 import platform
 import shutil
 import tempfile
-import warnings
 from dataclasses import replace
 from pathlib import Path
 
@@ -26,7 +25,8 @@ import pandas as pd
 
 from . import report as _report
 from ._version import __version__
-from .errors import FigureWarning, OutputError
+from .errors import OutputError
+from .figure_worker import draw_figures
 from .wording import CAUTION
 
 __all__ = ["json_safe", "records", "results_document", "check_out_dir", "write_outputs",
@@ -119,13 +119,15 @@ def check_out_dir(out_dir: Path, force: bool) -> None:
                           "the files scaling writes there (other files are left alone)")
 
 
-def write_outputs(result, out_dir: Path | str, *, force: bool = False):
+def write_outputs(result, out_dir: Path | str, *, force: bool = False, worker=None):
     """Write the output folder atomically and return the result with ``files`` set.
 
     Files are built in a temporary folder beside ``out_dir`` and moved into
     place only when all of them were written, so a failure leaves
     ``out_dir`` as it was.  A non-empty ``out_dir`` is refused unless
     ``force``; with ``force`` only the files written here are replaced.
+    ``worker`` is a :class:`~scaling.figure_worker.FigureWorker` started with
+    the run, to draw the figures; without one they are drawn here.
     """
     out_dir = Path(out_dir)
     inputs = [Path(result.config.data.file)] + \
@@ -134,7 +136,7 @@ def write_outputs(result, out_dir: Path | str, *, force: bool = False):
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
     try:
-        written, result = _write_all(result, tmp)
+        written, result = _write_all(result, tmp, worker)
         # Never overwrite an input, even with --force.
         protected = {p.resolve() for p in inputs}
         for rel in written:
@@ -155,7 +157,7 @@ def write_csv(frame: pd.DataFrame, path: Path) -> None:
     frame.to_csv(path, index=False, lineterminator="\n")
 
 
-def _write_all(result, folder: Path) -> tuple:
+def _write_all(result, folder: Path, worker=None) -> tuple:
     """Write every file into ``folder``; return (relative paths, result with figure notes)."""
     written: list[Path] = []
 
@@ -170,12 +172,10 @@ def _write_all(result, folder: Path) -> tuple:
         if isinstance(table, pd.DataFrame) and not name.startswith("_"):
             csv(f"{name}.csv", table)
     # Figures and report are optional stages; each returns relative paths.
-    from . import figures as _figures   # matplotlib: imported only when files are written
     (folder / "figures").mkdir(exist_ok=True)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", FigureWarning)
-        written += _figures.write_figures(result, folder)
-    skipped = [str(w.message) for w in caught if issubclass(w.category, FigureWarning)]
+    drawn = worker.draw(result, folder) if worker is not None else None
+    paths, skipped = drawn if drawn is not None else draw_figures(result, folder)
+    written += [Path(p) for p in paths]
     if skipped:   # a skipped figure is a note of the run: terminal, report and results.json
         result = replace(result, warnings=tuple(result.warnings) + tuple(skipped))
     written += _report.write_report(result, folder, written)

@@ -29,6 +29,7 @@ from .lines import MIN_N, base_label, parse_log_base
 from .moments import group_moments, moments
 from . import multi_stage
 from .output import check_out_dir, manifest_header, results_document, write_outputs  # noqa: F401
+from .figure_worker import start_worker
 from .schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  # noqa: F401 (aliases)
                      DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
                      INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
@@ -355,9 +356,16 @@ def run_config(config, *, out: Path | str | None = None, force: bool = False,
     if write:
         # Refuse early, before any work, if the folder is not usable.
         check_out_dir(out_dir, force)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        result = analyse(config, quiet=quiet)
-    if not write:
-        return result
-    return write_outputs(result, out_dir, force=force)
+    # Drawing the figures needs matplotlib, which a forked worker imports while
+    # the numbers are computed (scaling.figure_worker); None: drawn here later.
+    worker = start_worker(config) if write else None
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            result = analyse(config, quiet=quiet)
+        if not write:
+            return result
+        return write_outputs(result, out_dir, force=force, worker=worker)
+    finally:
+        if worker is not None:
+            worker.close()

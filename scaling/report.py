@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .wording import CAUTION, format_p, method_label, p_text, verdict_phrase
+from .wording import CAUTION, exponent_label, format_p, method_label, p_text, verdict_phrase
 
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
@@ -146,7 +146,6 @@ def _num(v: float, digits: int = 3) -> str:
 
 
 def _exponent_words(name: str, value: float) -> str:
-    from .figures import exponent_label   # matplotlib: imported only when needed
     label = exponent_label(value)
     if name and name not in (label, f"{value:g}"):
         return f"{label} ({name})"
@@ -278,7 +277,6 @@ def _data_section(result) -> Section:
 
 
 def _figure_blocks(result, folder: Path, written: list) -> list:
-    from . import figures as _figures
     blocks = []
     written_set = {Path(p).as_posix() for p in written}
     for kind in result.config.figures.kinds:
@@ -288,7 +286,8 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
             path = rel
         else:
             try:
-                png = _figures.figure_png(result, kind, dpi=150)
+                from .figures import figure_png   # matplotlib: only for a figure not on disk
+                png = figure_png(result, kind, dpi=150)
             except Exception:  # noqa: BLE001 -- a figure that cannot be drawn is left out;
                 continue       # write_figures has already put a note in the run's warnings
             path = ""

@@ -10,6 +10,7 @@ the numeric core may use it (``SlopeTest.summary``).
 from __future__ import annotations
 
 import math
+from fractions import Fraction
 
 import numpy as np
 
@@ -19,13 +20,28 @@ __all__ = [
     "influence_reason", "smearing_reason", "estimate_outside_reason",
     "group_residuals_reason", "range_words", "range_warning", "medians_vs_means",
     "dose_caution", "mechanism_caution", "ancestry_caution", "curvature_ok",
-    "symmetric_prediction_note", "predicted_unit", "clean_timestamp","CAUTION", "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test",
-           "p_text", "format_p", "scope_words", "read_message", "dropped_note", "pooled_fit_messages",
-           "uncompared_message", "pairwise_skipped_note", "means_left_out_note",
-           "extrapolation_note", "inverse_extrapolation_note", "unbounded_inverse_note",
-           "diag_method", "diagnostics_messages", "error_structure_words",
-           "line_method_messages", "bootstrap_message", "bootstrap_means_note",
-           "bootstrap_unstratified_note", "permutation_message"]
+    "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "CAUTION",
+    "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
+    "p_text", "format_p", "scope_words", "read_message", "dropped_note",
+    "pooled_fit_messages", "uncompared_message", "pairwise_skipped_note",
+    "means_left_out_note", "extrapolation_note", "inverse_extrapolation_note",
+    "unbounded_inverse_note", "diag_method", "diagnostics_messages",
+    "error_structure_words", "line_method_messages", "bootstrap_message",
+    "bootstrap_means_note", "bootstrap_unstratified_note", "permutation_message"]
+
+def exponent_label(value: float) -> str:
+    """A hypothesised exponent as a small fraction where it is one (0.75 -> 3/4).
+
+    Examples
+    --------
+    >>> exponent_label(0.75), exponent_label(2 / 3), exponent_label(0.7)
+    ('3/4', '2/3', '7/10')
+    """
+    frac = Fraction(value).limit_denominator(12)
+    if frac.denominator > 1 and abs(float(frac) - value) < 5e-4:
+        return f"{frac.numerator}/{frac.denominator}"
+    return f"{value:g}"
+
 
 #: Shown in every report and results.json.
 CAUTION = ("Results are statistical estimates from the data supplied, not clinical, "
@@ -474,7 +490,7 @@ def range_words(ratio: float) -> str:
 def range_warning(n_out: int, n_all: int, lo: float, hi: float, worst: float,
                   what: str = "predictions", role: str = "x") -> str:
     """The extrapolation warning, stating the fitted range."""
-    strong = (f" Beyond about 2× the range they are guesses, not estimates: the power law "
+    strong = (" Beyond about 2× the range they are guesses, not estimates: the power law "
               "may not hold there." if worst > 2 else "")
     return (f"{n_out} of {n_all} {what} lie outside the fitted {role} range "
             f"({_g(lo)}–{_g(hi)}{' for the widest fit' if what else ''}; each fit's own "

@@ -20,7 +20,8 @@ from scaling.errors import ConfigError
 from scaling.lines import fit_line
 from scaling.multi import fit_multi
 from scaling.units import (NormalisationConstant, conversion_factor, convert_intercept,
-                           normalisation_constant, parse_unit, unit_symbol)
+                           normalisation_constant, parse_unit, unit_symbol,
+                           PLAIN_SYMBOLS, PLAIN_UNITS, check_unit)
 
 
 @pytest.fixture(scope="module")
@@ -44,6 +45,47 @@ class TestParseUnit:
             parse_unit("kg/)(", key="data.units.x")
         with pytest.raises(ConfigError, match=r"data\.units: a unit must be a non-empty string"):
             parse_unit(3)
+
+
+class TestCheckUnit:
+    def test_every_plain_unit_is_read_by_pint_as_prefix_times_symbol(self):
+        # reference library: pint reads each symbol accepted without it; exact law: the
+        # SI prefix factor (BIPM SI Brochure, 9th ed., 2019, Table 7)
+        factor = {"": 1, "n": 1e-9, "u": 1e-6, "m": 1e-3, "c": 1e-2, "d": 1e-1,
+                  "k": 1e3, "M": 1e6, "G": 1e9}
+        symbols = ("mol", "Pa", "g", "m", "L", "s", "W", "J")
+        seen = set()
+        for text in sorted(PLAIN_UNITS):
+            prefix, symbol = next((text[:-len(s)], s) for s in symbols
+                                  if text.endswith(s) and text[:-len(s)] in factor)
+            seen.add(text)
+            assert conversion_factor(text, symbol) == pytest.approx(factor[prefix],
+                                                                    rel=1e-12), text
+        assert len(seen) == 9 * 8
+
+    def test_plain_symbols_are_the_ones_pint_writes(self):
+        # reference library: pint's short format of each unit ("uL" -> "µl")
+        for text, symbol in PLAIN_SYMBOLS.items():
+            assert f"{parse_unit(text):~}" == symbol, text
+            assert unit_symbol(text) == symbol
+
+    def test_plain_units_skip_pint_and_others_still_checked(self):
+        assert check_unit(" mW ") == "mW"
+        assert check_unit("mL/h") == "mL/h"   # beyond the plain set: pint reads it
+        with pytest.raises(ConfigError, match=r"^data\.units\.y: unknown unit 'blorp'"):
+            check_unit("blorp", key="data.units.y")
+        with pytest.raises(ConfigError, match=r"a unit must be a non-empty string"):
+            check_unit(None)
+
+    def test_config_with_plain_units_does_not_load_pint(self):
+        # common practice, no source: a fresh interpreter shows whether pint was imported
+        import subprocess
+        import sys
+        code = ("import sys; from scaling.config import config_from_dict; "
+                "config_from_dict({'data': {'file': 'x.csv', 'x': 'm', 'y': 'r', "
+                "'units': {'x': 'g', 'y': 'mW'}}}); print('pint' in sys.modules)")
+        out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+        assert out.stdout.strip() == "False", out.stderr
 
 
 class TestUnitSymbol:

@@ -1,0 +1,138 @@
+"""Figures drawn in a forked worker and a second process: same files, and nothing lost
+when a process fails (scaling.figure_worker).
+
+Every check here is internal consistency (the files from one process are the
+reference for the files from several), except where a line says otherwise.
+"""
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+import scaling.figure_worker as fw
+from scaling.config import load_config
+from scaling.pipeline import analyse, run_config
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO_CONFIG = ROOT / "configs" / "demo.yaml"
+
+needs_fork = pytest.mark.skipif(
+    not sys.platform.startswith("linux") or len(os.sched_getaffinity(0)) < 2,
+    reason="figures are drawn in one process on this machine (not Linux, or one core)")
+
+
+@pytest.fixture(autouse=True)
+def only_this_thread(monkeypatch):
+    """Other tests leave idle threads behind (dask's pool), which makes a run draw in
+    one process for safety; here the forking paths are what is tested."""
+    monkeypatch.delenv("SCALING_ONE_PROCESS", raising=False)
+    monkeypatch.setattr(fw.threading, "active_count", lambda: 1)
+
+
+def _files(folder: Path) -> dict:
+    return {p.relative_to(folder).as_posix(): p.read_bytes()
+            for p in sorted(folder.rglob("*")) if p.is_file()
+            and p.name not in ("results.json", "summary.md", "report.html")}
+
+
+@pytest.fixture(scope="module")
+def demo_result():
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return analyse(load_config(DEMO_CONFIG), quiet=True)
+
+
+@needs_fork
+def test_worker_run_writes_the_same_files_as_one_process(tmp_path, monkeypatch):
+    # internal consistency: every CSV, the LaTeX table and every PNG/PDF byte for byte
+    # (the report and results.json carry the run's time, so they are left out)
+    started = []
+    real_start = fw.FigureWorker.__init__
+    monkeypatch.setattr(fw.FigureWorker, "__init__",
+                        lambda self: (started.append(1), real_start(self))[1])
+    run_config(DEMO_CONFIG, out=tmp_path / "many", quiet=True)
+    assert started == [1]
+    monkeypatch.setenv("SCALING_ONE_PROCESS", "1")
+    assert fw.start_worker(load_config(DEMO_CONFIG)) is None
+    run_config(DEMO_CONFIG, out=tmp_path / "one", quiet=True)
+    one, many = _files(tmp_path / "one"), _files(tmp_path / "many")
+    assert sorted(one) == sorted(many)
+    assert [name for name in one if one[name] != many[name]] == []
+    assert {"figures/scaling.png", "figures/residuals.pdf"} <= set(one)
+
+
+@needs_fork
+def test_second_process_failure_draws_its_share_here(tmp_path, monkeypatch, demo_result):
+    parent = os.getpid()
+    real = fw._draw_share
+
+    def failing_in_child(result, folder, kinds=None, extras=True):
+        if os.getpid() != parent:
+            raise RuntimeError("second process fails")
+        return real(result, folder, kinds, extras)
+
+    monkeypatch.setattr(fw, "_draw_share", failing_in_child)
+    paths, notes = fw.draw_figures(demo_result, tmp_path)
+    kinds = list(demo_result.config.figures.kinds)
+    formats = list(demo_result.config.figures.formats)
+    assert paths == [f"figures/{k}.{f}" for k in kinds for f in formats]   # config order
+    assert notes == []
+    assert all((tmp_path / p).stat().st_size > 0 for p in paths)
+
+
+@needs_fork
+def test_dead_worker_leaves_the_figures_to_the_caller(tmp_path, demo_result):
+    worker = fw.start_worker(demo_result.config)
+    assert worker is not None
+    worker._proc.kill()
+    worker._proc.join()
+    assert worker.draw(demo_result, tmp_path) is None
+    worker.close()   # idempotent
+
+
+@needs_fork
+def test_worker_draws_a_run_and_stops(tmp_path, demo_result):
+    worker = fw.start_worker(demo_result.config)
+    (tmp_path / "figures").mkdir()
+    paths, notes = worker.draw(demo_result, tmp_path)
+    assert notes == [] and "figures/natural.pdf" in paths
+    assert worker._proc is None   # joined after its one run
+
+
+def test_large_runs_are_not_sent_to_the_worker(tmp_path, monkeypatch, demo_result):
+    monkeypatch.setattr(fw, "SEND_MAX_POINTS", 10)
+    worker = fw.start_worker(demo_result.config)
+    if worker is None:
+        pytest.skip("figures are drawn in one process on this machine")
+    assert worker.draw(demo_result, tmp_path) is None
+
+
+def test_runs_without_figures_start_no_worker(write_config, small_csv):
+    cfg = load_config(write_config(
+        f"data: {{file: {small_csv}, x: mass, y: rate}}\nfigures: {{kinds: []}}\n"))
+    assert fw.start_worker(cfg) is None
+
+
+def test_split_balances_the_drawing_cost():
+    # exact law: greedy largest-first split of costs 4, 3, 2, 1 gives 5 and 5
+    from scaling.figures import DRAWING_COST
+    a, b = fw._split(["scaling", "natural", "exponents", "residuals"], DRAWING_COST)
+    assert sorted(a + b) == sorted(DRAWING_COST)
+    assert sum(DRAWING_COST[k] for k in a) == sum(DRAWING_COST[k] for k in b) == 5
+
+
+def test_output_buffered_before_the_run_is_printed_once(tmp_path):
+    # common practice, no source: a forked process must not flush its copy of the
+    # parent's unwritten output (stdout to a pipe is block-buffered)
+    code = ("from scaling.pipeline import run_config; print('printed before the run'); "
+            f"run_config({str(DEMO_CONFIG)!r}, out={str(tmp_path / 'o')!r}, quiet=True)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         cwd=ROOT)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.count("printed before the run") == 1
+    assert (tmp_path / "o" / "figures" / "residuals.png").is_file()
