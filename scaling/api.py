@@ -32,11 +32,12 @@ import pandas as pd
 from .config import METHOD_NAMES
 from .engine import FIT_TABLE_COLUMNS, fit_groups_from_moments, frame_moments
 from .errors import ConfigError, DataError
-from .lines import (METHODS, LineFit, MIN_N, _check_confidence, base_label,
+from .lines import (METHODS, LineFit, MIN_N, base_label,
                     fit_line as _fit_moment_line, parse_log_base, slope_test_statistic)
 from .moments import Moments
 from .predict import data_factors
 from .robust import ROW_METHODS, deming, deming_moments
+from .schema import check_confidence
 
 __all__ = ["fit_line", "fit_groups", "METHOD_OPTIONS", "ROW_METHOD_DEFAULTS"]
 
@@ -372,7 +373,7 @@ def fit_groups(df, *, x: str, y: str, group: str | None = None,
     if not methods:
         raise ConfigError(f"methods must name at least one of {', '.join(METHOD_NAMES)}")
     _check_options(methods, options)
-    confidence = _check_confidence(confidence)
+    confidence = check_confidence(confidence)
     base = parse_log_base(log_base)
     exps = _exponents(exponents)
     frame = _clean_frame(df, x, y, group, base)

@@ -37,10 +37,10 @@ import pandas as pd
 
 from .data import parse_numbers
 from .errors import ConfigError, DataError
-from .lines import (METHODS, _check_confidence, _get_method, base_label, fit_moments,
+from .lines import (METHODS, get_method, base_label, fit_moments,
                     parse_log_base, slope_test_statistic)
 from .moments import Moments, combine_moments, group_moments, merge_moments
-from .schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS
+from .schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, check_confidence
 
 __all__ = [
     "GroupedMoments",
@@ -644,7 +644,7 @@ def _check_methods(methods) -> list:
     if not methods:
         raise ConfigError("methods must name at least one of " + ", ".join(METHODS))
     for method in methods:
-        _get_method(method)
+        get_method(method)
     return methods
 
 
@@ -710,7 +710,7 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
     group up to rounding.
     """
     methods = _check_methods(methods)
-    confidence = _check_confidence(confidence)
+    confidence = check_confidence(confidence)
     exps = _check_exponents(exponents)
     if pooled:
         head = fit_groups_from_moments(pooled_view(gm), methods=methods,

@@ -123,7 +123,7 @@ from .lines import (EXACT_NOTE, METHODS, ConfidenceInterval, LineFit, SlopeTest,
                     exponent_value, fit_notes, p_text, line_fit_from_moments,
                     parse_log_base, to_log)
 from .moments import Moments, group_moments, moments, weighted_moments
-from .schema import GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS
+from .schema import GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence
 from .wording import EXACT_NOTE
 
 __all__ = [
@@ -165,13 +165,6 @@ def _check_method(method) -> str:
     if not isinstance(method, str) or method.lower() not in METHODS:
         raise ConfigError(f"method must be one of {', '.join(METHODS)}, not {method!r}")
     return method.lower()
-
-
-def _check_confidence(confidence) -> float:
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) \
-            or not 0 < confidence < 1:
-        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
-    return float(confidence)
 
 
 def _check_base(log_base):
@@ -426,7 +419,7 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
     could cite is implemented, so ``weighted=True`` is refused for them.
     """
     method = _check_method(method)
-    confidence = _check_confidence(confidence)
+    confidence = check_confidence(confidence)
     base = _check_base(log_base)
     min_n = _check_int(min_n, "min_n", 3)
     if weighted and method != "ols":
@@ -1135,7 +1128,7 @@ def common_slope(log_x, log_y, groups, *, method: str = "sma",
     intervals.
     """
     method = _check_method(method)
-    confidence = _check_confidence(confidence)
+    confidence = check_confidence(confidence)
     X, Y = _check_logs(log_x, log_y)
     codes, labels = _factorize(groups, X.size)
     m = group_moments(X, Y, codes, n_groups=len(labels))
@@ -1504,7 +1497,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     (3, 3)
     """
     method = _check_method(method)
-    confidence = _check_confidence(confidence)
+    confidence = check_confidence(confidence)
     base = _check_base(log_base)
     min_n = _check_int(min_n, "min_n", 3)
     if calibration not in _CALIBRATIONS:

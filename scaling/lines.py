@@ -75,7 +75,6 @@ Siegel and robust SMA/MA, the percentile-bootstrap p-value.
 
 from __future__ import annotations
 
-import importlib
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -86,8 +85,10 @@ from scipy import stats
 
 from .display import frame_html, short_repr
 from .errors import ConfigError, DataError, DegenerateDataWarning
+from .logscale import base_label, log_word, parse_log_base, to_log  # noqa: F401 -- re-exported
 from .moments import Moments, moments as _moments
-from .schema import CATALOGUE, is_symmetric, method_label
+from .predict import inverse_predict as _inverse_predict, predict as _predict
+from .schema import CATALOGUE, is_symmetric, method_label, check_confidence
 # Sentences live in wording; these names stay importable from lines (aliases).
 from .wording import (BOTH_SIGNS_NOTE, EXACT_NOTE, describe_test, format_p,  # noqa: F401
                       p_text, verdict_phrase)
@@ -118,7 +119,7 @@ MIN_N = 3
 
 
 # --------------------------------------------------------------------------
-# log bases
+# exponents
 
 
 def exponent_value(exponent) -> float:
@@ -142,54 +143,6 @@ def exponent_value(exponent) -> float:
             or not math.isfinite(value):
         raise ConfigError(f"exponent must be a number or a fraction like '3/4', not {exponent!r}")
     return float(value)
-
-
-def log_word(base: float | None) -> str:
-    """How a logarithm in ``base`` is written in labels: "log10", "ln", "log2" ("log" for None)."""
-    if base is None:
-        return "log"
-    if math.isclose(base, math.e):
-        return "ln"
-    return f"log{int(base)}"
-
-
-def parse_log_base(log_base) -> float | None:
-    """Return the numeric base for ``10``, ``"e"``, ``2`` (or None for logs given).
-
-    Raises
-    ------
-    ConfigError
-        If the base is not one of 10, e, 2 or None.
-    """
-    if log_base is None:
-        return None
-    if isinstance(log_base, str):
-        key = log_base.strip().lower()
-        table = {"10": 10.0, "e": math.e, "2": 2.0, "none": None}
-        if key in table:
-            return table[key]
-    elif isinstance(log_base, (int, float)) and not isinstance(log_base, bool):
-        for value in (10.0, math.e, 2.0):
-            if math.isclose(float(log_base), value):
-                return value
-    raise ConfigError(f"log_base must be 10, 'e', 2 or None, not {log_base!r}")
-
-
-def base_label(base: float | None) -> str:
-    """The way a base is written in outputs: "10", "e", "2" or "none"."""
-    if base is None:
-        return "none"
-    if math.isclose(base, math.e):
-        return "e"
-    return str(int(base))
-
-
-def to_log(values, base: float | None) -> np.ndarray:
-    """Logarithm in ``base`` (identity when ``base`` is None)."""
-    values = np.asarray(values, dtype=float)
-    if base is None:
-        return values
-    return np.log(values) / math.log(base)
 
 
 # --------------------------------------------------------------------------
@@ -372,20 +325,14 @@ METHOD_INFO: dict[str, tuple[str, bool]] = {
     name: (info.label, info.symmetric) for name, info in CATALOGUE.items()}
 
 
-def _get_method(method: str) -> LineMethod:
+def get_method(method: str) -> LineMethod:
+    """The moment formulas of ``method`` (:data:`METHODS`); ConfigError naming them if unknown."""
     try:
         return METHODS[method]
     except (KeyError, TypeError):
         raise ConfigError(
             f"method must be one of {', '.join(METHODS)}, not {method!r}"
         ) from None
-
-
-def _check_confidence(confidence) -> float:
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) \
-            or not 0 < confidence < 1:
-        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
-    return float(confidence)
 
 
 def fit_notes(m: Moments, method: str) -> np.ndarray:
@@ -431,7 +378,7 @@ def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
     correlation test of Warton et al. (2006) written as a t on n - 2 df
     (F(1, n - 2) = t^2).  A positive t means the fitted slope lies above b0.
     """
-    spec = _get_method(method)
+    spec = get_method(method)
     t = spec.test(m, b0)
     # Exact fit (no residual scatter): the slope is known; b0 equal to it up
     # to rounding is accepted (t = 0, p = 1), any other value rejected.
@@ -457,8 +404,8 @@ def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
         intercept_high, intercept_se, r, r2, resid_sd, df, note`` with the shape of
         ``m.n``.  Estimates are NaN where ``note`` is not empty.
     """
-    spec = _get_method(method)
-    confidence = _check_confidence(confidence)
+    spec = get_method(method)
+    confidence = check_confidence(confidence)
     df = m.n - 2
     with np.errstate(invalid="ignore"):
         tcrit = stats.t.ppf(0.5 + confidence / 2, df)
@@ -891,10 +838,8 @@ class LineFit:
         >>> bool(table["y_low"].lt(table["y"]).all())
         True
         """
-        # Late-bound delegation: scaling.predict registers its predict with
-        # register_delegate when imported (lines does not import predict).
-        return _delegate("predict")(self, x, correction=correction, interval=interval,
-                                     confidence=confidence, residuals=residuals).to_frame()
+        return _predict(self, x, correction=correction, interval=interval,
+                        confidence=confidence, residuals=residuals).to_frame()
 
     def inverse_predict(self, y, *, interval="prediction", confidence=None):
         """Estimates of x from observed ``y`` (e.g. body mass from a bone size), as a DataFrame.
@@ -929,27 +874,122 @@ class LineFit:
         >>> bool(table["x_low"][0] < table["x"][0] < table["x_high"][0])
         True
         """
-        return _delegate("inverse_predict")(self, y, interval=interval,
-                                             confidence=confidence).to_frame()
+        return _inverse_predict(self, y, interval=interval, confidence=confidence).to_frame()
 
 
-#: Functions of higher modules that LineFit methods delegate to (see
-#: :meth:`LineFit.predict`); filled by :func:`register_delegate`.
-_DELEGATES: dict = {}
+# --------------------------------------------------------------------------
+# a LineFit to and from plain JSON types (saved with a run; scaling predict)
+
+#: Format tag of :func:`fit_to_dict` dictionaries.
+DICT_FORMAT = "scaling.linefit/1"
 
 
-def register_delegate(name: str, func) -> None:
-    """Let a higher module provide a LineFit method's work (``"predict"``)."""
-    _DELEGATES[name] = func
+def _json_float(v):
+    v = float(v)
+    return v if math.isfinite(v) else None
 
 
-def _delegate(name: str):
-    # scaling.predict registers its functions when first imported; the package
-    # imports lazily, so load it by name here (no import statement: lines stays
-    # below predict in the import graph).
-    if name not in _DELEGATES:
-        importlib.import_module("scaling.predict")
-    return _DELEGATES[name]
+def _json_clean(obj):
+    if isinstance(obj, dict):
+        return {k: _json_clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_json_clean(v) for v in obj]
+    if isinstance(obj, (float, np.floating)):
+        return _json_float(obj)
+    return obj
+
+
+def _float(v) -> float:
+    return math.nan if v is None else float(v)
+
+
+def fit_to_dict(fit: LineFit, *, smearing_factor: float | None = None,
+                ratio_factor: float | None = None) -> dict:
+    """Everything needed to predict later without the data, as JSON-ready types.
+
+    Parameters
+    ----------
+    fit : LineFit
+    smearing_factor, ratio_factor : float, optional
+        Correction factors computed on the fitting data (see
+        :func:`data_factors`); stored so that ``smearing`` and ``ratio``
+        predictions work from the dictionary alone.  Default: the factors
+        the fit carries (set by :func:`scaling.fit_line`), if any.
+
+    Returns
+    -------
+    dict
+        Plain str, int, float, list and None (NaN is written as None).
+    """
+    if smearing_factor is None:
+        smearing_factor = fit.smearing_factor
+    if ratio_factor is None:
+        ratio_factor = fit.ratio_factor
+    for name, value in (("smearing_factor", smearing_factor), ("ratio_factor", ratio_factor)):
+        if value is not None and not (isinstance(value, (int, float, np.floating))
+                                      and not isinstance(value, bool)):
+            raise ConfigError(f"{name} must be a number or None, not {value!r}")
+    d = {
+        "format": DICT_FORMAT,
+        "method": fit.method, "n": int(fit.n),
+        "slope": fit.slope, "slope_ci": [fit.slope_ci.low, fit.slope_ci.high],
+        "slope_se": fit.slope_se,
+        "intercept": fit.intercept,
+        "intercept_ci": [fit.intercept_ci.low, fit.intercept_ci.high],
+        "intercept_se": fit.intercept_se,
+        "r": fit.r, "r2": fit.r2, "resid_sd": fit.resid_sd, "df": fit.df,
+        "log_base": base_label(fit.log_base), "confidence": fit.confidence,
+        "moments": fit.moments.to_dict(),
+        "x_range": None if fit.x_range is None else [float(v) for v in fit.x_range],
+        "y_range": None if fit.y_range is None else [float(v) for v in fit.y_range],
+        "note": fit.note, "lam": fit.lam, "interval_method": fit.interval_method,
+        "smearing_factor": smearing_factor, "ratio_factor": ratio_factor,
+    }
+    return _json_clean(d)
+
+
+_REQUIRED = ("method", "n", "slope", "slope_ci", "slope_se", "intercept", "intercept_ci",
+             "intercept_se", "r", "r2", "resid_sd", "df", "log_base", "confidence", "moments")
+
+
+def fit_from_dict(d: dict) -> LineFit:
+    """Rebuild the :class:`LineFit` written by :func:`fit_to_dict`.
+
+    Raises
+    ------
+    DataError
+        If a key is missing or the format is not recognised.
+    """
+    if not isinstance(d, dict):
+        raise DataError(f"a saved fit must be a dict, not {type(d).__name__}")
+    if d.get("format", DICT_FORMAT) != DICT_FORMAT:
+        raise DataError(f"saved fit has format {d.get('format')!r}; expected {DICT_FORMAT!r}")
+    missing = [k for k in _REQUIRED if k not in d]
+    if missing:
+        raise DataError(f"saved fit lacks key(s): {', '.join(missing)}")
+    if d["method"] not in METHOD_INFO:
+        raise DataError(f"saved fit has unknown method {d['method']!r}")
+    try:
+        base = parse_log_base(d["log_base"])
+    except (ValueError, ConfigError) as exc:
+        raise DataError(f"saved fit: {exc}") from None
+    mom = {k: (np.nan if v is None else v) for k, v in d["moments"].items()}
+    rng = lambda v: None if v is None else (float(v[0]), float(v[1]))  # noqa: E731
+    return LineFit(
+        method=d["method"], n=int(d["n"]), slope=_float(d["slope"]),
+        slope_ci=ConfidenceInterval(_float(d["slope_ci"][0]), _float(d["slope_ci"][1])),
+        slope_se=_float(d["slope_se"]), intercept=_float(d["intercept"]),
+        intercept_ci=ConfidenceInterval(_float(d["intercept_ci"][0]),
+                                        _float(d["intercept_ci"][1])),
+        intercept_se=_float(d["intercept_se"]), r=_float(d["r"]), r2=_float(d["r2"]),
+        resid_sd=_float(d["resid_sd"]), df=_float(d["df"]), log_base=base,
+        confidence=float(d["confidence"]), moments=Moments.from_dict(mom),
+        x_range=rng(d.get("x_range")), y_range=rng(d.get("y_range")),
+        note=str(d.get("note", "")), lam=d.get("lam"),
+        interval_method=str(d.get("interval_method", "analytic")),
+        smearing_factor=d.get("smearing_factor"), ratio_factor=d.get("ratio_factor"),
+    )
+
 
 
 def line_fit_from_moments(m: Moments, method: str, *, confidence: float = 0.95,
@@ -991,7 +1031,9 @@ def line_fit_from_result(res: dict, i, m: Moments, method: str, *, confidence: f
     )
 
 
-def _validate_xy(x, y, base):
+def validate_xy(x, y, base):
+    """``x`` and ``y`` as equal-length 1-d float arrays, finite, and positive when logs
+    will be taken (``base`` not None); DataError saying what is wrong otherwise."""
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     if x.ndim != 1 or y.ndim != 1:
@@ -1044,10 +1086,10 @@ def fit_line(x, y, *, method: str = "sma", confidence: float = 0.95,
     >>> round(fit.slope, 2)
     2.0
     """
-    spec = _get_method(method)
+    spec = get_method(method)
     base = parse_log_base(log_base)
-    confidence = _check_confidence(confidence)
-    x, y = _validate_xy(x, y, base)
+    confidence = check_confidence(confidence)
+    x, y = validate_xy(x, y, base)
     X, Y = to_log(x, base), to_log(y, base)
     m = _moments(X, Y)
     x_range = (float(x.min()), float(x.max())) if x.size else None

@@ -168,11 +168,11 @@ def weighted_moments(x, y, weights) -> Moments:
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     w = np.asarray(weights, dtype=float)
-    design, xbar, ybar = _weight_design(x, y)
-    return _moments_from_sums(w @ design, xbar, ybar)   # one pass over the weights
+    design, xbar, ybar = weight_design(x, y)
+    return moments_from_sums(w @ design, xbar, ybar)   # one pass over the weights
 
 
-def _weight_design(x: np.ndarray, y: np.ndarray):
+def weight_design(x: np.ndarray, y: np.ndarray):
     """Columns (1, cx, cy, cx^2, cy^2, cx cy) of :func:`weighted_moments` and the means.
 
     Split out so that a caller with many weight matrices for the same rows
@@ -191,8 +191,8 @@ def _weight_design(x: np.ndarray, y: np.ndarray):
     return design, xbar, ybar
 
 
-def _moments_from_sums(sums: np.ndarray, xbar, ybar) -> Moments:
-    """Moments from ``weights @ design`` (last axis: the six sums of :func:`_weight_design`)."""
+def moments_from_sums(sums: np.ndarray, xbar, ybar) -> Moments:
+    """Moments from ``weights @ design`` (last axis: the six sums of :func:`weight_design`)."""
     n, sx, sy, sxx, syy, sxy = np.moveaxis(sums, -1, 0)
     with np.errstate(divide="ignore", invalid="ignore"):
         mx = sx / n

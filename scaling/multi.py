@@ -85,6 +85,7 @@ from .display import frame_html, short_repr
 from .errors import ConfigError, DataError, ExtrapolationWarning
 from .lines import ConfidenceInterval, base_label, parse_log_base
 from .predict import CORRECTIONS, INTERVALS, correction_factor
+from .schema import check_confidence
 
 __all__ = [
     "SINGLE_PREDICTOR_METHODS",
@@ -146,13 +147,6 @@ def check_methods(methods: Sequence[str], n_predictors: int, *,
             raise ConfigError(f"{key}: {', '.join(bad)} {verb}; with {n_predictors} "
                               "predictors only ols can be fitted (set model.methods: [ols])")
     return methods
-
-
-def _check_confidence(confidence) -> float:
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float, np.floating)) \
-            or not 0 < confidence < 1:
-        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
-    return float(confidence)
 
 
 def _check_base(log_base) -> float:
@@ -790,7 +784,7 @@ class MultiFit:
         """
         if confidence is None:
             confidence = self.confidence
-        confidence = _check_confidence(confidence)
+        confidence = check_confidence(confidence)
         if not isinstance(interval, str) or interval not in INTERVALS:
             raise ConfigError(f"interval must be one of {', '.join(INTERVALS)}, "
                               f"not {interval!r}")
@@ -850,7 +844,7 @@ class MultiFit:
         """
         if confidence is None:
             confidence = self.confidence
-        confidence = _check_confidence(confidence)
+        confidence = check_confidence(confidence)
         if correction == "none":
             raise ConfigError("correction 'none' gives medians, whose sum is not an estimate "
                               "of a total; use smearing, parametric or ratio")
@@ -990,7 +984,7 @@ def fit_multi(x, y, *, names: Sequence[str] | None = None, confidence: float = 0
     >>> round(fit.b["d"], 6), round(fit.b["h"], 6), round(fit.a, 6)
     (2.0, 1.0, 0.05)
     """
-    confidence = _check_confidence(confidence)
+    confidence = check_confidence(confidence)
     base = _check_base(log_base)
     mat, names = _as_matrix(x, names)
     try:

@@ -91,11 +91,12 @@ from scipy import optimize, stats
 
 from .display import frame_html, short_repr
 from .errors import ConfigError, DataError
-from .lines import (ConfidenceInterval, LineFit, METHODS, SlopeTest, _check_confidence,
-                    _validate_xy, base_label, fit_moments, line_fit_from_moments,
+from .lines import (ConfidenceInterval, LineFit, METHODS, SlopeTest, 
+                    validate_xy, base_label, fit_moments, line_fit_from_moments,
                     method_label, parse_log_base, slope_test_statistic, to_log)
 from .moments import Moments
 from .newick import Tree, parse_newick, read_newick
+from .schema import check_confidence
 
 __all__ = [
     "Tree",
@@ -822,9 +823,9 @@ def fit_phylo(x, y, tree, species, *, method: str = "ols", lam="ml", reml: bool 
     if method not in METHODS:
         raise ConfigError(f"method must be one of {', '.join(METHODS)}, not {method!r}")
     lam_opt = _check_lam(lam)
-    confidence = _check_confidence(confidence)
+    confidence = check_confidence(confidence)
     base = parse_log_base(log_base)
-    x, y = _validate_xy(x, y, base)
+    x, y = validate_xy(x, y, base)
     species = list(species)
     if len(species) != x.size:
         raise DataError(f"species has {len(species)} entries but x and y have {x.size}")

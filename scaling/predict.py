@@ -96,16 +96,44 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass
+from typing import Any, Protocol
 
 import numpy as np
 from scipy import stats
 
 from .errors import (ConfigError, DataError, DegenerateDataWarning,
                      ExtrapolationWarning)
-from .lines import (ConfidenceInterval, LineFit, METHOD_INFO, register_delegate, base_label, log_word, method_label, is_symmetric,
-                    parse_log_base, to_log)
-from .moments import Moments
-from .schema import CORRECTIONS, INTERVALS, check_choice as _check_choice
+from .logscale import base_label, log_word, parse_log_base, to_log
+from .schema import (CORRECTIONS, INTERVALS, check_choice as _check_choice, check_confidence,
+                     is_symmetric, method_label)
+
+
+class FittedLine(Protocol):
+    """What prediction reads from a fitted line: :class:`scaling.lines.LineFit` has it.
+
+    (A protocol, not an import: :mod:`scaling.lines` imports this module for
+    ``LineFit.predict``, so this module does not import it back.)
+    """
+
+    method: str
+    n: int
+    slope: float
+    slope_se: float
+    intercept: float
+    resid_sd: float
+    df: float
+    log_base: float | None
+    confidence: float
+    moments: Any
+    x_range: tuple | None
+    y_range: tuple | None
+    note: str
+
+    @property
+    def estimable(self) -> bool: ...
+
+    @property
+    def intercept_ci(self) -> Any: ...
 
 __all__ = [
     "CORRECTIONS",
@@ -120,27 +148,18 @@ __all__ = [
     "inverse_log_interval",
     "predict",
     "inverse_predict",
-    "predict_from_dict",
     "saved_factor",
     "accuracy",
-    "fit_to_dict",
-    "fit_from_dict",
 ]
-
-DICT_FORMAT = "scaling.linefit/1"
 
 
 # --------------------------------------------------------------------------
 # input checks
 
 
-def _check_confidence(confidence, fit: LineFit) -> float:
-    if confidence is None:
-        return float(fit.confidence)
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float, np.floating)) \
-            or not 0 < confidence < 1:
-        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
-    return float(confidence)
+def _check_confidence(confidence, fit: FittedLine) -> float:
+    """The fit's level when ``confidence`` is None, else the checked value."""
+    return float(fit.confidence) if confidence is None else check_confidence(confidence)
 
 
 def _check_values(values, name: str, base) -> np.ndarray:
@@ -184,7 +203,7 @@ def _warn_outside(flags: np.ndarray, rng, name: str) -> None:
 # correction factors
 
 
-def log_residuals(fit: LineFit, x, y) -> np.ndarray:
+def log_residuals(fit: FittedLine, x, y) -> np.ndarray:
     """Vertical residuals Y - a - b X on the fit's log scale.
 
     Parameters
@@ -266,7 +285,7 @@ def correction_factor(kind: str, *, resid_sd, log_base, residuals=None, y=None,
     return float(out) if np.ndim(out) == 0 else out
 
 
-def data_factors(fit: LineFit, x, y) -> dict:
+def data_factors(fit: FittedLine, x, y) -> dict:
     """All correction factors of ``fit`` on its fitting data ``x``, ``y``.
 
     Returns
@@ -290,7 +309,7 @@ def data_factors(fit: LineFit, x, y) -> dict:
     return out
 
 
-def _factor_for(fit: LineFit, correction: str, *, residuals, data, factor) -> float:
+def _factor_for(fit: FittedLine, correction: str, *, residuals, data, factor) -> float:
     if factor is not None:
         if correction == "none":
             raise ConfigError("factor cannot be given with correction='none'")
@@ -592,7 +611,7 @@ class Accuracy:
 # the public functions
 
 
-def _line_params(fit: LineFit) -> dict:
+def _line_params(fit: FittedLine) -> dict:
     return {
         "intercept": fit.intercept, "slope": fit.slope, "slope_se": fit.slope_se,
         "resid_sd": fit.resid_sd, "n": float(fit.n),
@@ -600,7 +619,7 @@ def _line_params(fit: LineFit) -> dict:
     }
 
 
-def _swapped_params(fit: LineFit) -> dict:
+def _swapped_params(fit: FittedLine) -> dict:
     """The same symmetric line written as X on Y (slope 1/b); see module docstring."""
     b = fit.slope
     mean_x = float(np.asarray(fit.moments.mean_x))
@@ -616,7 +635,7 @@ def _unlog(values, base):
     return values if base is None else np.power(base, values)
 
 
-def predict(fit: LineFit, x, *, correction: str = "smearing",
+def predict(fit: FittedLine, x, *, correction: str = "smearing",
             interval: str = "prediction", confidence: float | None = None,
             residuals=None, data=None, factor: float | None = None) -> Prediction:
     """Predict y at ``x`` in natural units, with a confidence or prediction interval.
@@ -639,7 +658,7 @@ def predict(fit: LineFit, x, *, correction: str = "smearing",
         The fitting data in natural units (for ``smearing`` or ``ratio``).
     factor : float, optional
         A correction factor computed earlier (e.g. saved by
-        :func:`fit_to_dict`); overrides ``residuals`` and ``data``.
+        :func:`scaling.lines.fit_to_dict`); overrides ``residuals`` and ``data``.
 
     Returns
     -------
@@ -685,7 +704,7 @@ def predict(fit: LineFit, x, *, correction: str = "smearing",
     )
 
 
-def inverse_predict(fit: LineFit, y, *, interval: str = "prediction",
+def inverse_predict(fit: FittedLine, y, *, interval: str = "prediction",
                     confidence: float | None = None) -> InversePrediction:
     """Estimate x from observed ``y`` (e.g. body mass from a bone measurement).
 
@@ -749,7 +768,7 @@ def inverse_predict(fit: LineFit, y, *, interval: str = "prediction",
     )
 
 
-def accuracy(fit: LineFit, x, y, *, correction: str = "none") -> Accuracy:
+def accuracy(fit: FittedLine, x, y, *, correction: str = "none") -> Accuracy:
     """SEE, %SEE and %PE of ``fit`` on the sample ``x``, ``y`` (its fitting data).
 
     Parameters
@@ -804,115 +823,8 @@ def accuracy(fit: LineFit, x, y, *, correction: str = "none") -> Accuracy:
 # saving and restoring a fit
 
 
-def _json_float(v):
-    v = float(v)
-    return v if math.isfinite(v) else None
-
-
-def _json_clean(obj):
-    if isinstance(obj, dict):
-        return {k: _json_clean(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_json_clean(v) for v in obj]
-    if isinstance(obj, (float, np.floating)):
-        return _json_float(obj)
-    return obj
-
-
-def _float(v) -> float:
-    return math.nan if v is None else float(v)
-
-
-def fit_to_dict(fit: LineFit, *, smearing_factor: float | None = None,
-                ratio_factor: float | None = None) -> dict:
-    """Everything needed to predict later without the data, as JSON-ready types.
-
-    Parameters
-    ----------
-    fit : LineFit
-    smearing_factor, ratio_factor : float, optional
-        Correction factors computed on the fitting data (see
-        :func:`data_factors`); stored so that ``smearing`` and ``ratio``
-        predictions work from the dictionary alone.  Default: the factors
-        the fit carries (set by :func:`scaling.fit_line`), if any.
-
-    Returns
-    -------
-    dict
-        Plain str, int, float, list and None (NaN is written as None).
-    """
-    if smearing_factor is None:
-        smearing_factor = fit.smearing_factor
-    if ratio_factor is None:
-        ratio_factor = fit.ratio_factor
-    for name, value in (("smearing_factor", smearing_factor), ("ratio_factor", ratio_factor)):
-        if value is not None and not (isinstance(value, (int, float, np.floating))
-                                      and not isinstance(value, bool)):
-            raise ConfigError(f"{name} must be a number or None, not {value!r}")
-    d = {
-        "format": DICT_FORMAT,
-        "method": fit.method, "n": int(fit.n),
-        "slope": fit.slope, "slope_ci": [fit.slope_ci.low, fit.slope_ci.high],
-        "slope_se": fit.slope_se,
-        "intercept": fit.intercept,
-        "intercept_ci": [fit.intercept_ci.low, fit.intercept_ci.high],
-        "intercept_se": fit.intercept_se,
-        "r": fit.r, "r2": fit.r2, "resid_sd": fit.resid_sd, "df": fit.df,
-        "log_base": base_label(fit.log_base), "confidence": fit.confidence,
-        "moments": fit.moments.to_dict(),
-        "x_range": None if fit.x_range is None else [float(v) for v in fit.x_range],
-        "y_range": None if fit.y_range is None else [float(v) for v in fit.y_range],
-        "note": fit.note, "lam": fit.lam, "interval_method": fit.interval_method,
-        "smearing_factor": smearing_factor, "ratio_factor": ratio_factor,
-    }
-    return _json_clean(d)
-
-
-_REQUIRED = ("method", "n", "slope", "slope_ci", "slope_se", "intercept", "intercept_ci",
-             "intercept_se", "r", "r2", "resid_sd", "df", "log_base", "confidence", "moments")
-
-
-def fit_from_dict(d: dict) -> LineFit:
-    """Rebuild the :class:`LineFit` written by :func:`fit_to_dict`.
-
-    Raises
-    ------
-    DataError
-        If a key is missing or the format is not recognised.
-    """
-    if not isinstance(d, dict):
-        raise DataError(f"a saved fit must be a dict, not {type(d).__name__}")
-    if d.get("format", DICT_FORMAT) != DICT_FORMAT:
-        raise DataError(f"saved fit has format {d.get('format')!r}; expected {DICT_FORMAT!r}")
-    missing = [k for k in _REQUIRED if k not in d]
-    if missing:
-        raise DataError(f"saved fit lacks key(s): {', '.join(missing)}")
-    if d["method"] not in METHOD_INFO:
-        raise DataError(f"saved fit has unknown method {d['method']!r}")
-    try:
-        base = parse_log_base(d["log_base"])
-    except (ValueError, ConfigError) as exc:
-        raise DataError(f"saved fit: {exc}") from None
-    mom = {k: (np.nan if v is None else v) for k, v in d["moments"].items()}
-    rng = lambda v: None if v is None else (float(v[0]), float(v[1]))  # noqa: E731
-    return LineFit(
-        method=d["method"], n=int(d["n"]), slope=_float(d["slope"]),
-        slope_ci=ConfidenceInterval(_float(d["slope_ci"][0]), _float(d["slope_ci"][1])),
-        slope_se=_float(d["slope_se"]), intercept=_float(d["intercept"]),
-        intercept_ci=ConfidenceInterval(_float(d["intercept_ci"][0]),
-                                        _float(d["intercept_ci"][1])),
-        intercept_se=_float(d["intercept_se"]), r=_float(d["r"]), r2=_float(d["r2"]),
-        resid_sd=_float(d["resid_sd"]), df=_float(d["df"]), log_base=base,
-        confidence=float(d["confidence"]), moments=Moments.from_dict(mom),
-        x_range=rng(d.get("x_range")), y_range=rng(d.get("y_range")),
-        note=str(d.get("note", "")), lam=d.get("lam"),
-        interval_method=str(d.get("interval_method", "analytic")),
-        smearing_factor=d.get("smearing_factor"), ratio_factor=d.get("ratio_factor"),
-    )
-
-
 def saved_factor(d: dict, correction: str):
-    """The correction factor stored with a saved fit (:func:`fit_to_dict`).
+    """The correction factor stored with a saved fit (:func:`scaling.lines.fit_to_dict`).
 
     None for ``parametric`` and ``none`` (computed from the fit itself); the
     stored ``smearing_factor`` / ``ratio_factor`` otherwise.
@@ -929,23 +841,3 @@ def saved_factor(d: dict, correction: str):
         raise ConfigError(f"the saved fit has no {correction}_factor; "
                           "use correction='parametric' or 'none'")
     return factor
-
-
-def predict_from_dict(d: dict, x, *, correction: str = "smearing",
-                      interval: str = "prediction",
-                      confidence: float | None = None) -> Prediction:
-    """Predict from a saved fit dictionary, using the factor saved with it.
-
-    ``smearing`` and ``ratio`` need ``smearing_factor`` / ``ratio_factor`` in
-    ``d``; ``parametric`` and ``none`` need nothing more.
-    """
-    fit = fit_from_dict(d)
-    correction = _check_choice(correction, CORRECTIONS, "correction")
-    factor = saved_factor(d, correction)
-    return predict(fit, x, correction=correction, interval=interval,
-                   confidence=confidence, factor=factor)
-
-
-# LineFit.predict delegates here (lines does not import predict).
-register_delegate("predict", predict)
-register_delegate("inverse_predict", inverse_predict)

@@ -74,8 +74,8 @@ from scipy import special
 
 from .errors import ConfigError, DataError, DegenerateDataWarning, ScalingWarning
 from .lines import METHODS, ConfidenceInterval
-from .moments import Moments, _moments_from_sums, _weight_design, weighted_moments
-from .schema import CATALOGUE, MOMENT_METHODS
+from .moments import Moments, moments_from_sums, weight_design, weighted_moments
+from .schema import CATALOGUE, MOMENT_METHODS, check_confidence, check_lam
 
 __all__ = [
     "MOMENT_METHODS",
@@ -148,20 +148,6 @@ def _check_count(value, name: str, minimum: int = 1) -> int:
     return int(value)
 
 
-def _check_confidence(confidence) -> float:
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) \
-            or not 0 < confidence < 1:
-        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
-    return float(confidence)
-
-
-def _check_lam(lam) -> float:
-    if isinstance(lam, bool) or not isinstance(lam, (int, float, np.floating)) \
-            or not (math.isfinite(lam) and lam > 0):
-        raise ConfigError(f"lam (error-variance ratio) must be a positive finite number, not {lam!r}")
-    return float(lam)
-
-
 def _check_methods(methods) -> tuple[str, ...]:
     if isinstance(methods, str):
         methods = (methods,)
@@ -172,7 +158,8 @@ def _check_methods(methods) -> tuple[str, ...]:
     return methods
 
 
-def _rng(seed) -> np.random.Generator:
+def make_rng(seed) -> np.random.Generator:
+    """A numpy Generator from an integer seed, a Generator (used as is) or None."""
     if isinstance(seed, np.random.Generator):
         return seed
     if seed is None or (isinstance(seed, (int, np.integer)) and not isinstance(seed, bool)):
@@ -458,7 +445,8 @@ def bca_interval(replicates, estimate, jackknife, confidence: float):
     return bounds[0], bounds[1], z0, acc
 
 
-def _percentile(replicates, confidence: float) -> ConfidenceInterval:
+def percentile_interval(replicates, confidence: float) -> ConfidenceInterval:
+    """Percentile interval of the finite ``replicates`` (NaN bounds when there are none)."""
     t = np.asarray(replicates, dtype=float)
     t = t[np.isfinite(t)]
     if t.size == 0:
@@ -678,9 +666,9 @@ def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
                       "with so few resamples (they cover less than their level); use "
                       f"n_boot >= {MIN_BCA_BOOT} (resampling.bootstrap) or the percentile "
                       "interval", ScalingWarning, stacklevel=2)
-    confidence = _check_confidence(confidence)
-    lam = _check_lam(lam)
-    rng = _rng(seed)
+    confidence = check_confidence(confidence)
+    lam = check_lam(lam)
+    rng = make_rng(seed)
     draws = _check_draws(draws)
     n = X.size
     names, labels = _labels(groups, n)
@@ -695,7 +683,7 @@ def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
 
     reps = {(s[1], m): np.empty((n_boot, 2)) for s in scopes for m in methods}
     # weighted_moments, split: the columns it multiplies are built once per scope
-    designs = [_weight_design(X, Y) if rows is None else _weight_design(X[rows], Y[rows])
+    designs = [weight_design(X, Y) if rows is None else weight_design(X[rows], Y[rows])
                for _, _, rows in scopes]
     # Blocks of resamples: block k covers resamples k*block ... and is drawn
     # from stream k % len(streams), each stream by its own _CountDrawer.
@@ -750,7 +738,7 @@ def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
                 for s in range(len(streams)):
                     work(s, first, base)
             for j, (_, name, _) in enumerate(scopes):
-                mom = _moments_from_sums(sums[j, :top - base], designs[j][1], designs[j][2])
+                mom = moments_from_sums(sums[j, :top - base], designs[j][1], designs[j][2])
                 for method in methods:
                     b, a = line_from_moments(mom, method, lam=lam)
                     out = reps[(name, method)]
@@ -787,7 +775,7 @@ def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
                     estimate=est,
                     se=float(np.std(finite, ddof=1)) if finite.size > 1 else math.nan,
                     bias=float(finite.mean() - est) if finite.size else math.nan,
-                    percentile=_percentile(values, confidence),
+                    percentile=percentile_interval(values, confidence),
                     bca=ConfidenceInterval(lo, hi), z0=z0, acceleration=acc,
                     n_valid=int(ok.sum()),
                 ))
@@ -871,8 +859,8 @@ def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma"
         raise ConfigError(f"method must be one of {', '.join(MOMENT_METHODS + tuple(RANK_PAIRS))}"
                           f", not {method!r}")
     n_perm = _check_count(n_perm, "n_perm")
-    lam = _check_lam(lam)
-    rng = _rng(seed)
+    lam = check_lam(lam)
+    rng = make_rng(seed)
     b0 = float(exponent)
     pair = RANK_PAIRS.get(method, method)
     if method == "deming":

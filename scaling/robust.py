@@ -63,12 +63,13 @@ import numpy as np
 from scipy import stats
 
 from .errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import (METHODS, ConfidenceInterval, LineFit, _check_confidence as _lines_confidence,
+from .lines import (METHODS, ConfidenceInterval, LineFit, 
                     tie_term as _tie_term,
                     fit_moments, line_fit_from_moments, parse_log_base, to_log,
-                    _validate_xy)
+                    validate_xy)
 from .moments import Moments, moments as _moments
-from .resample import _percentile, _rng, draw_counts
+from .resample import percentile_interval, make_rng, draw_counts
+from .schema import check_confidence, check_lam
 
 __all__ = [
     "theil_sen",
@@ -89,16 +90,9 @@ MIN_N = 3
 # shared input handling
 
 
-def _confidence(confidence) -> float:
-    try:
-        return _lines_confidence(confidence)
-    except ValueError as exc:
-        raise ConfigError(str(exc)) from None
-
-
 def _prepare(x, y, log_base, *, need_spread: bool = True):
     base = parse_log_base(log_base)
-    x, y = _validate_xy(x, y, base)
+    x, y = validate_xy(x, y, base)
     if x.size < MIN_N:
         raise DataError(f"x and y need at least {MIN_N} rows, not {x.size}")
     X, Y = to_log(x, base), to_log(y, base)
@@ -247,10 +241,10 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     See the module docstring.  Cost O(n_boot n^2): a few seconds for
     n = 1000.
     """
-    confidence = _confidence(confidence)
+    confidence = check_confidence(confidence)
     n_boot = _check_boot(n_boot)
     base, X, Y, ranges = _prepare(x, y, log_base)
-    rng = _rng(seed)
+    rng = make_rng(seed)
     res = stats.theilslopes(Y, X, alpha=confidence)
     low, high = _sen_interval(X, Y, confidence)
     pairs = X.size * (X.size - 1) // 2
@@ -258,7 +252,7 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     return _package(
         "theil_sen", X, Y, slope=res.slope, intercept=res.intercept,
         slope_ci=ConfidenceInterval(low, high),
-        intercept_ci=_percentile(boot_a, confidence),
+        intercept_ci=percentile_interval(boot_a, confidence),
         slope_se=_sd(boot_b), intercept_se=_sd(boot_a),
         r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
         boot_slopes=boot_b, interval_method="kendall_slope_bootstrap_intercept")
@@ -285,10 +279,10 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     69:242).  The bootstrap calls it once per resample (about 1 ms per
     resample at n = 100, 30 ms at n = 1000).
     """
-    confidence = _confidence(confidence)
+    confidence = check_confidence(confidence)
     n_boot = _check_boot(n_boot)
     base, X, Y, ranges = _prepare(x, y, log_base)
-    rng = _rng(seed)
+    rng = make_rng(seed)
     res = stats.siegelslopes(Y, X)
     n = X.size
     boot = np.empty((n_boot, 2))
@@ -301,8 +295,8 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
         boot[k] = r.slope, r.intercept
     return _package(
         "siegel", X, Y, slope=res.slope, intercept=res.intercept,
-        slope_ci=_percentile(boot[:, 0], confidence),
-        intercept_ci=_percentile(boot[:, 1], confidence),
+        slope_ci=percentile_interval(boot[:, 0], confidence),
+        intercept_ci=percentile_interval(boot[:, 1], confidence),
         slope_se=_sd(boot[:, 0]), intercept_se=_sd(boot[:, 1]),
         r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
         boot_slopes=boot[:, 0])
@@ -411,10 +405,10 @@ def _scatter_moments(mu, V, n) -> Moments:
 
 
 def _robust_axis(kind, x, y, *, confidence, log_base, n_boot, seed, q) -> LineFit:
-    confidence = _confidence(confidence)
+    confidence = check_confidence(confidence)
     n_boot = _check_boot(n_boot)
     base, X, Y, ranges = _prepare(x, y, log_base)
-    rng = _rng(seed)
+    rng = make_rng(seed)
     n = X.size
     mu, V, ok = huber_scatter(X, Y, q=q)
     if not bool(ok):
@@ -434,8 +428,8 @@ def _robust_axis(kind, x, y, *, confidence, log_base, n_boot, seed, q) -> LineFi
     r = float(V[0, 1] / math.sqrt(V[0, 0] * V[1, 1]))
     return _package(
         f"{kind}_robust", X, Y, slope=b, intercept=a,
-        slope_ci=_percentile(boot_b, confidence),
-        intercept_ci=_percentile(boot_a, confidence),
+        slope_ci=percentile_interval(boot_b, confidence),
+        intercept_ci=percentile_interval(boot_a, confidence),
         slope_se=_sd(boot_b), intercept_se=_sd(boot_a), r=r, base=base,
         confidence=confidence, ranges=ranges, boot_slopes=boot_b)
 
@@ -482,13 +476,6 @@ def ma_robust(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
 # Deming
 
 
-def _check_lam(lam) -> float:
-    if isinstance(lam, bool) or not isinstance(lam, (int, float, np.floating)) \
-            or not (math.isfinite(lam) and lam > 0):
-        raise ConfigError(f"lam (error-variance ratio) must be a positive finite number, not {lam!r}")
-    return float(lam)
-
-
 def deming_moments(m: Moments, lam: float, *, confidence: float = 0.95) -> dict:
     """Deming line for every set of moments in ``m`` (as :func:`scaling.lines.fit_moments`).
 
@@ -510,8 +497,8 @@ def deming_moments(m: Moments, lam: float, *, confidence: float = 0.95) -> dict:
     bounds and standard errors and the residual SD multiplied by sqrt(lam);
     r and df unchanged.  See the module docstring.
     """
-    lam = _check_lam(lam)
-    confidence = _confidence(confidence)
+    lam = check_lam(lam)
+    confidence = check_confidence(confidence)
     k = math.sqrt(lam)
     mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
                  syy=m.syy / lam, sxy=m.sxy / k)
@@ -553,8 +540,8 @@ def deming_from_moments(m: Moments, lam: float, *, confidence: float = 0.95,
     The MA fit of (X, Y/sqrt(lam)) scaled back by sqrt(lam); see the module
     docstring.
     """
-    lam = _check_lam(lam)
-    confidence = _confidence(confidence)
+    lam = check_lam(lam)
+    confidence = check_confidence(confidence)
     k = math.sqrt(lam)
     mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
                  syy=m.syy / lam, sxy=m.sxy / k)
@@ -597,8 +584,8 @@ def deming(x, y, *, lam: float = 1.0, confidence: float = 0.95, log_base=10) -> 
     estimates with a note and a DegenerateDataWarning, like
     :func:`scaling.lines.fit_line`.
     """
-    lam = _check_lam(lam)
-    confidence = _confidence(confidence)
+    lam = check_lam(lam)
+    confidence = check_confidence(confidence)
     base, X, Y, ranges = _prepare(x, y, log_base, need_spread=False)
     fit = deming_from_moments(_moments(X, Y), lam, confidence=confidence, log_base=base,
                               x_range=ranges[0], y_range=ranges[1])

@@ -2,7 +2,7 @@
 
 ``results.json`` holds, for every estimable fit, the coefficients, moments,
 residual SD, correction factors and fitted ranges (see
-:func:`scaling.predict.fit_to_dict`).  :func:`load_results` turns a results
+:func:`scaling.lines.fit_to_dict`).  :func:`load_results` turns a results
 folder into a :class:`SavedResults`; ``scaling predict`` is
 :func:`predict_command`.
 """
@@ -20,9 +20,26 @@ import pandas as pd
 
 from .errors import (ConfigError, DataError, DegenerateDataWarning, ExtrapolationWarning,
                      OutputError)
-from .lines import LineFit
+from .lines import LineFit, fit_from_dict
+from .predict import CORRECTIONS, Prediction, inverse_predict, predict, saved_factor
+from .schema import check_choice as _check_choice
 
-__all__ = ["SavedResults", "load_results", "predict_command"]
+__all__ = ["SavedResults", "load_results", "predict_command", "predict_from_dict"]
+
+
+def predict_from_dict(d: dict, x, *, correction: str = "smearing",
+                      interval: str = "prediction",
+                      confidence: float | None = None) -> Prediction:
+    """Predict from a saved fit dictionary, using the factor saved with it.
+
+    ``smearing`` and ``ratio`` need ``smearing_factor`` / ``ratio_factor`` in
+    ``d``; ``parametric`` and ``none`` need nothing more.
+    """
+    fit = fit_from_dict(d)
+    correction = _check_choice(correction, CORRECTIONS, "correction")
+    factor = saved_factor(d, correction)
+    return predict(fit, x, correction=correction, interval=interval,
+                   confidence=confidence, factor=factor)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -78,13 +95,11 @@ class SavedResults:
 
     def fit(self, *, method: str | None = None, group: str | None = None) -> LineFit:
         """The :class:`LineFit` of one saved fit."""
-        from .predict import fit_from_dict
         return fit_from_dict(self.saved_fit(method=method, group=group))
 
     def predict(self, x, *, method=None, group=None, correction=None, interval=None,
                 inverse: bool = False) -> pd.DataFrame:
         """Predict y at ``x`` (or x at ``y`` with ``inverse``) in natural units."""
-        from .predict import fit_from_dict, inverse_predict, predict_from_dict
         d = self.saved_fit(method=method, group=group)
         interval = interval or self.interval
         if inverse:

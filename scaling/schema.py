@@ -13,6 +13,8 @@ plus its functions (see DEVELOPERS.md, "How to add a line method").
 
 from __future__ import annotations
 
+import math
+import numbers
 from dataclasses import dataclass
 
 from .errors import ConfigError
@@ -20,7 +22,7 @@ from .errors import ConfigError
 __all__ = [
     "MethodInfo", "CATALOGUE", "METHOD_NAMES", "MOMENT_METHODS", "CLASSIC_METHODS",
     "ROW_METHOD_NAMES", "GROUP_COMPARISON_METHODS", "method_info", "method_label",
-    "is_symmetric", "is_moment_method",
+    "is_symmetric", "is_moment_method", "check_confidence", "check_lam",
     "FIT_COLUMNS", "FIT_ACCURACY_COLUMNS", "FIT_CONSTANT_COLUMNS", "FIT_ALL_COLUMNS", "SLOPE_TEST_COLUMNS",
     "PERMUTATION_COLUMNS", "SLOPE_TEST_ALL_COLUMNS", "DROPPED_COLUMNS",
     "GROUP_MEANS_COLUMNS", "GROUP_TEST_COLUMNS", "PAIRWISE_COLUMNS",
@@ -226,6 +228,37 @@ LOG_BASES = ("10", "e", "2")
 FIGURE_KINDS = ("scaling", "natural", "exponents", "residuals")
 FIGURE_FORMATS = ("png", "pdf", "svg")
 FIGURE_SIZES = ("single", "double")
+
+
+def check_confidence(confidence) -> float:
+    """``confidence`` as a float if it is a number strictly between 0 and 1.
+
+    The one check of a confidence level (config, fits, tests, predictions).
+
+    Raises
+    ------
+    ConfigError
+        Otherwise, naming the value.
+    """
+    if isinstance(confidence, bool) or not isinstance(confidence, numbers.Real) \
+            or not 0 < confidence < 1:
+        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
+    return float(confidence)
+
+
+def check_lam(lam) -> float:
+    """Deming's error-variance ratio as a float if it is positive and finite.
+
+    Raises
+    ------
+    ConfigError
+        Otherwise, naming the value.
+    """
+    if isinstance(lam, bool) or not isinstance(lam, numbers.Real) \
+            or not (math.isfinite(lam) and lam > 0):
+        raise ConfigError("lam (error-variance ratio) must be a positive finite number, "
+                          f"not {lam!r}")
+    return float(lam)
 
 
 def check_choice(value, options, name: str) -> str:

@@ -14,9 +14,8 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from .lines import to_log
-from .predict import (accuracy, data_factors, fit_to_dict, inverse_predict, predict,
-                      saved_factor)
+from .lines import fit_to_dict, to_log
+from .predict import accuracy, data_factors, inverse_predict, predict, saved_factor
 from .schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
 from .predicting import add_range_ratio
 from .wording import (scope_words,

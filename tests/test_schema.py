@@ -80,3 +80,24 @@ class TestChoices:
         assert schema.check_choice("ratio", schema.CORRECTIONS, "correction") == "ratio"
         with pytest.raises(ConfigError, match="interval must be one of prediction, confidence"):
             schema.check_choice("wide", schema.INTERVALS, "interval")
+
+
+class TestOptionChecks:
+    def test_check_confidence_accepts_numbers_strictly_between_0_and_1(self):
+        # common practice, no source: a confidence level is a probability in (0, 1)
+        import numpy as np
+        from scaling.schema import check_confidence
+        assert check_confidence(0.95) == 0.95
+        assert check_confidence(np.float32(0.5)) == 0.5
+        for bad in (0, 1, 1.5, -0.1, float("nan"), True, "0.95", None):
+            with pytest.raises(ConfigError, match=r"^confidence must be a number between "
+                                                  r"0 and 1, not "):
+                check_confidence(bad)
+
+    def test_check_lam_accepts_positive_finite_numbers(self):
+        # Deming's lambda is a ratio of variances: positive and finite (Deming 1943)
+        from scaling.schema import check_lam
+        assert check_lam(2) == 2.0
+        for bad in (0, -1, float("inf"), float("nan"), False, "1"):
+            with pytest.raises(ConfigError, match=r"^lam \(error-variance ratio\) must be"):
+                check_lam(bad)
