@@ -37,7 +37,7 @@ from .lines import (METHODS, LineFit, MIN_N, base_label,
 from .moments import Moments
 from .predict import data_factors
 from .robust import ROW_METHODS, deming, deming_moments
-from .schema import check_confidence
+from .schema import check_confidence, check_exponents
 
 __all__ = ["fit_line", "fit_groups", "METHOD_OPTIONS", "ROW_METHOD_DEFAULTS"]
 
@@ -282,20 +282,6 @@ def _row_method_rows(frame: pd.DataFrame, labels, method: str, confidence: float
     return pd.DataFrame(rows, columns=FIT_TABLE_COLUMNS), fits
 
 
-def _exponents(exponents) -> dict:
-    if exponents is None:
-        return {}
-    if not isinstance(exponents, dict):
-        exponents = {f"{float(v):g}": v for v in exponents}
-    out = {}
-    for name, value in exponents.items():
-        if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) \
-                or not math.isfinite(value):
-            raise ConfigError(f"exponents[{name!r}] must be a finite number, not {value!r}")
-        out[str(name)] = float(value)
-    return out
-
-
 def fit_groups(df, *, x: str, y: str, group: str | None = None,
                methods=("ols", "sma", "ma"), confidence: float = 0.95, log_base=10,
                exponents=None, **options) -> pd.DataFrame:
@@ -375,7 +361,7 @@ def fit_groups(df, *, x: str, y: str, group: str | None = None,
     _check_options(methods, options)
     confidence = check_confidence(confidence)
     base = parse_log_base(log_base)
-    exps = _exponents(exponents)
+    exps = check_exponents(exponents)
     frame = _clean_frame(df, x, y, group, base)
     scope = "group" if group is not None else "pooled"
     gm = frame_moments(frame, x="x", y="y", group="group" if group is not None else None,

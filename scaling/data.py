@@ -210,6 +210,27 @@ def _matches(raw_text: pd.Series, targets) -> np.ndarray:
     return hit
 
 
+def _dropped_and_used(reasons, rows, keep, n_read: int, path):
+    """The dropped-rows table (row, reasons joined by "; ") and the mask of rows used.
+
+    Raises DataError when the table has no data rows or every row was dropped
+    (naming the most common reason).
+    """
+    dropped_mask = np.array([bool(r) for r in reasons], dtype=bool) & keep
+    dropped = pd.DataFrame({
+        "row": rows[dropped_mask].astype(int),
+        "reason": ["; ".join(reasons[i]) for i in np.flatnonzero(dropped_mask)],
+    })
+    use = keep & ~dropped_mask
+    if n_read == 0:
+        raise DataError(f"{path}: has no data rows under the header line")
+    if not use.any():
+        common = dropped["reason"].value_counts().index[0] if len(dropped) else "the table is empty"
+        raise DataError(f"{path}: no usable rows: all {n_read} data rows were dropped "
+                        f"(most common reason: {common})")
+    return dropped, use
+
+
 def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> CleanData:
     """Select, exclude, coerce, drop and (optionally) average; see module doc."""
     path = Path(cfg.file)
@@ -275,18 +296,7 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         for i in np.flatnonzero((prob != "") & active):
             reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
 
-    dropped_mask = np.array([bool(r) for r in reasons], dtype=bool) & keep
-    dropped = pd.DataFrame({
-        "row": rows[dropped_mask].astype(int),
-        "reason": ["; ".join(reasons[i]) for i in np.flatnonzero(dropped_mask)],
-    })
-    use = keep & ~dropped_mask
-    if n_read == 0:
-        raise DataError(f"{path}: has no data rows under the header line")
-    if not use.any():
-        common = dropped["reason"].value_counts().index[0] if len(dropped) else "the table is empty"
-        raise DataError(f"{path}: no usable rows: all {n_read} data rows were dropped "
-                        f"(most common reason: {common})")
+    dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
 
     base = log_base
     pts = pd.DataFrame({
@@ -427,18 +437,7 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
         _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
         for i in np.flatnonzero((prob != "") & active):
             reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
-    dropped_mask = np.array([bool(r) for r in reasons], dtype=bool) & keep
-    dropped = pd.DataFrame({
-        "row": rows[dropped_mask].astype(int),
-        "reason": ["; ".join(reasons[i]) for i in np.flatnonzero(dropped_mask)],
-    })
-    use = keep & ~dropped_mask
-    if n_read == 0:
-        raise DataError(f"{path}: has no data rows under the header line")
-    if not use.any():
-        common = dropped["reason"].value_counts().index[0] if len(dropped) else "the table is empty"
-        raise DataError(f"{path}: no usable rows: all {n_read} data rows were dropped "
-                        f"(most common reason: {common})")
+    dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
     pts = pd.DataFrame({"row": rows[use].astype(int)})
     for j, (_, _, values, _, _) in enumerate(parsed[:-1]):
         pts[f"x{j}"] = values[use]

@@ -40,7 +40,7 @@ from .errors import ConfigError, DataError
 from .lines import (METHODS, get_method, base_label, fit_moments,
                     parse_log_base, slope_test_statistic)
 from .moments import Moments, combine_moments, group_moments, merge_moments
-from .schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, check_confidence
+from .schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, check_confidence, check_exponents
 
 __all__ = [
     "GroupedMoments",
@@ -648,20 +648,6 @@ def _check_methods(methods) -> list:
     return methods
 
 
-def _check_exponents(exponents) -> dict:
-    if exponents is None:
-        return {}
-    if not isinstance(exponents, dict):
-        exponents = {f"{float(v):g}": v for v in exponents}
-    out = {}
-    for name, value in exponents.items():
-        if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) \
-                or not math.isfinite(value):
-            raise ConfigError(f"exponents.{name} must be a finite number, not {value!r}")
-        out[str(name)] = float(value)
-    return out
-
-
 def pooled_view(gm: GroupedMoments) -> GroupedMoments:
     """The pooled moments of ``gm`` as a one-group :class:`GroupedMoments` (label "")."""
     with np.errstate(invalid="ignore"):
@@ -711,7 +697,7 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
     """
     methods = _check_methods(methods)
     confidence = check_confidence(confidence)
-    exps = _check_exponents(exponents)
+    exps = check_exponents(exponents)
     if pooled:
         head = fit_groups_from_moments(pooled_view(gm), methods=methods,
                                        confidence=confidence, exponents=exps, scope="pooled")

@@ -22,7 +22,7 @@ from .errors import ConfigError
 __all__ = [
     "MethodInfo", "CATALOGUE", "METHOD_NAMES", "MOMENT_METHODS", "CLASSIC_METHODS",
     "ROW_METHOD_NAMES", "GROUP_COMPARISON_METHODS", "method_info", "method_label",
-    "is_symmetric", "is_moment_method", "check_confidence", "check_lam",
+    "is_symmetric", "is_moment_method", "check_confidence", "check_lam", "check_exponents",
     "FIT_COLUMNS", "FIT_ACCURACY_COLUMNS", "FIT_CONSTANT_COLUMNS", "FIT_ALL_COLUMNS", "SLOPE_TEST_COLUMNS",
     "PERMUTATION_COLUMNS", "SLOPE_TEST_ALL_COLUMNS", "DROPPED_COLUMNS",
     "GROUP_MEANS_COLUMNS", "GROUP_TEST_COLUMNS", "PAIRWISE_COLUMNS",
@@ -259,6 +259,30 @@ def check_lam(lam) -> float:
         raise ConfigError("lam (error-variance ratio) must be a positive finite number, "
                           f"not {lam!r}")
     return float(lam)
+
+
+def check_exponents(exponents) -> dict:
+    """Hypothesised exponents as ``{name: float}``.
+
+    A mapping is kept with its names; a plain sequence is named by the
+    values (``[0.75]`` -> ``{"0.75": 0.75}``); None is no exponents.
+
+    Raises
+    ------
+    ConfigError
+        An exponent that is not a finite number, naming it.
+    """
+    if exponents is None:
+        return {}
+    if not isinstance(exponents, dict):
+        exponents = {f"{float(v):g}": v for v in exponents}
+    out = {}
+    for name, value in exponents.items():
+        if isinstance(value, bool) or not isinstance(value, numbers.Real) \
+                or not math.isfinite(value):
+            raise ConfigError(f"exponents[{name!r}] must be a finite number, not {value!r}")
+        out[str(name)] = float(value)
+    return out
 
 
 def check_choice(value, options, name: str) -> str:

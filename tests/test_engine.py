@@ -249,7 +249,7 @@ class TestFitGroupsFromMoments:
 
     def test_bad_exponent(self):
         gm = frame_moments(_table(n=50), x="mass", y="rate", group="clade")
-        with pytest.raises(ConfigError, match="exponents.q must be a finite number"):
+        with pytest.raises(ConfigError, match=r"exponents\['q'\] must be a finite number"):
             fit_groups_from_moments(gm, exponents={"q": "3/4"})
 
 
