@@ -12,7 +12,9 @@ Measured:
 * ``scaling --version``              (target < 0.3 s on 2 cores);
 * ``python -c "import scaling"``     (lazy: loads no numeric module);
 * ``scaling run configs/demo.yaml``  (target < 4 s on 2 cores), with the
-  demo's figures (png + pdf) and with ``figures.kinds: []``.
+  demo's figures (png + pdf), with ``figures.kinds: []``, and with the
+  figures drawn in the calling process (``SCALING_ONE_PROCESS=1``: no
+  forked figure worker; the baseline for :mod:`scaling.figure_worker`).
 
 Printed: median seconds, min-max, and the ratio to each baseline, then
 whether the targets are met.
@@ -27,6 +29,7 @@ Run:  python benchmarks/bench_startup.py [REPEATS]   (default 5)
 
 from __future__ import annotations
 
+import os
 import resource
 import shutil
 import statistics
@@ -52,14 +55,14 @@ def _cpu() -> float:
     return r.ru_utime + r.ru_stime
 
 
-def _time(cmd: list[str], repeats: int, label: str = "") -> list[float]:
+def _time(cmd: list[str], repeats: int, label: str = "", env: dict | None = None) -> list[float]:
     """Wall times; the children's CPU times (user + sys) go to CPU[label]."""
     out = []
     for _ in range(repeats):
         c0, t0 = _cpu(), time.perf_counter()
         # cwd outside the checkout: "python -c" puts the cwd first on sys.path
         subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-                       cwd=tempfile.gettempdir())
+                       cwd=tempfile.gettempdir(), env=env)
         out.append(time.perf_counter() - t0)
         CPU.setdefault(label, []).append(_cpu() - c0)
     return out
@@ -94,11 +97,14 @@ def main(repeats: int = 5) -> None:
             label = "demo run, figures" if figures else "demo run, no figures"
             cases[label] = [*SCALING, "run", str(cfg), "--out", str(out), "--force",
                             "--quiet"]
+        # the same run with every figure drawn in the calling process (no forked worker)
+        cases["demo, figures, 1 process"] = cases["demo run, figures"]
+        envs = {"demo, figures, 1 process": {**os.environ, "SCALING_ONE_PROCESS": "1"}}
         times = {}
         for label, cmd in cases.items():
             if label.startswith("demo"):
-                _time(cmd, 1)   # warm-up (font cache, first output folder)
-            times[label] = _time(cmd, repeats, label)
+                _time(cmd, 1, env=envs.get(label))   # warm-up (font cache, first output folder)
+            times[label] = _time(cmd, repeats, label, env=envs.get(label))
         shutil.rmtree(tmp, ignore_errors=True)
 
     med = {k: statistics.median(v) for k, v in times.items()}

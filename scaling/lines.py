@@ -294,28 +294,34 @@ def _ma_bounds(m: Moments, tcrit: np.ndarray):
 
 @dataclass(frozen=True, slots=True)
 class LineMethod:
-    """One line-fitting method, as vectorised functions of moments.
+    """One moment-based line method, as vectorised functions of moments.
 
-    Adding a method means writing these four functions and one entry in
-    :data:`METHODS`; intercepts, intervals, tests and packaging follow.
+    Its name, label and symmetry are the catalogue's (:data:`scaling.schema.
+    CATALOGUE`); adding a moment method means one catalogue entry, these
+    four functions and one entry in :data:`METHODS`; intercepts, intervals,
+    tests and packaging follow.
     """
 
     name: str
-    label: str
     slope: Callable[[Moments], np.ndarray]
     slope_var: Callable[[Moments, np.ndarray], np.ndarray]
     test: Callable[[Moments, object], np.ndarray]
     bounds: Callable[[Moments, np.ndarray], tuple]
-    symmetric: bool  # True if swapping x and y inverts the slope
+
+    @property
+    def label(self) -> str:
+        return CATALOGUE[self.name].label
+
+    @property
+    def symmetric(self) -> bool:
+        """True if swapping x and y inverts the slope."""
+        return CATALOGUE[self.name].symmetric
 
 
 METHODS: dict[str, LineMethod] = {
-    "ols": LineMethod("ols", "OLS", _ols_slope, _ols_slope_var, _ols_test,
-                      _ols_bounds, symmetric=False),
-    "sma": LineMethod("sma", "SMA", _sma_slope, _sma_slope_var, _sma_test,
-                      _sma_bounds, symmetric=True),
-    "ma": LineMethod("ma", "MA", _ma_slope, _ma_slope_var, _ma_test,
-                     _ma_bounds, symmetric=True),
+    "ols": LineMethod("ols", _ols_slope, _ols_slope_var, _ols_test, _ols_bounds),
+    "sma": LineMethod("sma", _sma_slope, _sma_slope_var, _sma_test, _sma_bounds),
+    "ma": LineMethod("ma", _ma_slope, _ma_slope_var, _ma_test, _ma_bounds),
 }
 
 
