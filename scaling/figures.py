@@ -26,6 +26,7 @@ import math
 import textwrap
 import warnings
 from pathlib import Path
+from types import SimpleNamespace
 
 import matplotlib
 import numpy as np
@@ -35,7 +36,7 @@ from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter
                                FuncFormatter)
 from scipy import stats
 from .errors import ConfigError, FigureWarning
-from .lines import parse_log_base, to_log
+from .lines import ConfidenceInterval, parse_log_base, to_log
 from .predict import log_interval, predict, saved_factor
 from .schema import CATALOGUE, FIGURE_KINDS, method_label
 from .wording import exponent_label
@@ -435,6 +436,16 @@ def _common_slope_fit(result, method: str):
     fit = result.line_fits.get(("common", "", method))
     if fit is not None:
         return fit
+    fits = result.fits
+    if fits is not None and len(fits) and "scope" in fits:
+        # the run's own estimate and interval (fits.csv, scope "common"): the numbers
+        # the report leads with, not a second computation
+        rows = fits[(fits["scope"] == "common") & (fits["method"] == method)]
+        if len(rows) and np.isfinite(float(rows["slope"].iloc[0])):
+            row = rows.iloc[0]
+            return SimpleNamespace(slope=float(row["slope"]),
+                                   slope_ci=ConfidenceInterval(float(row["slope_low"]),
+                                                               float(row["slope_high"])))
     cfg = result.config
     pts = result.data.points
     if not (cfg.groups.compare and "group" in pts.columns) or method not in ("ols", "sma", "ma"):
@@ -464,11 +475,12 @@ def _group_line(fit, xs, common, means) -> np.ndarray:
 
 
 def equation_text(fit, *, digits: int = 3, factor: float | None = None,
-                  correction: str = "") -> str:
+                  correction: str = "", label: str | None = None) -> str:
     """The fitted line in natural units: ``median y = a·x^b`` with b's interval (mathtext).
 
     The back-transformed line gives the median of y; with ``factor`` (the
     correction factor of ``correction``) the box also says mean = median × factor.
+    ``label`` replaces the method's label at the start (e.g. "SMA, all clades").
     """
     a = fit.a
     pct = f"{100 * fit.confidence:g}%"
@@ -482,8 +494,36 @@ def equation_text(fit, *, digits: int = 3, factor: float | None = None,
     factor_text = ""
     if factor is not None and np.isfinite(factor):
         factor_text = f"\nline = median; mean = median × {factor:.3g}"
-    return (f"{method_label(fit.method)}: $y = {a_text}\\,x^{{{fit.slope:.{digits}f}}}$ "
+    return (f"{label or method_label(fit.method)}: $y = {a_text}\\,x^{{{fit.slope:.{digits}f}}}$ "
             f"({ci}){factor_text}")
+
+
+def common_slope_text(slope: float, low: float, high: float, *, method: str, confidence: float,
+                      groups_word: str, digits: int = 3) -> str:
+    """The common within-group exponent, for the head of the scaling plot's equation box.
+
+    Each group keeps its own constant, so the line is written y ∝ x^b.
+
+    Examples
+    --------
+    >>> common_slope_text(0.7372, 0.701, 0.781, method="sma", confidence=0.95,
+    ...                   groups_word="clades")
+    'SMA within clades: $y \\propto x^{0.737}$ (95% CI 0.701–0.781)'
+    """
+    pct = f"{100 * confidence:g}%"
+    ci = (f"{pct} CI {low:.{digits}f}–{high:.{digits}f}"
+          if np.isfinite(low) and np.isfinite(high) else f"{pct} CI unbounded")
+    return (f"{method_label(method)} within {groups_word}: "
+            f"$y \\propto x^{{{slope:.{digits}f}}}$ ({ci})")
+
+
+def _slopes_agree(result, method: str) -> bool:
+    """True when the run compared groups by ``method`` and found no difference in slope."""
+    table = (result.tables or {}).get("group_tests")
+    if table is None or not len(table) or "test" not in table:
+        return False
+    rows = table[(table["method"] == method) & (table["test"] == "slopes_equal")]
+    return bool(len(rows)) and float(rows["p_value"].iloc[0]) > 1 - result.config.model.confidence
 
 
 # --------------------------------------------------------------------------
@@ -539,6 +579,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         methods = [_primary_method(drawn, result)] if drawn else drawn
     methods = _methods(result, methods)
     groups = _groups(result)
+    group_word = str(result.config.data.group or "group")
+    plural = group_word if group_word.endswith("s") else f"{group_word}s"
     handles: list = []
     gm = None
     xs_all, ys_all = [pts["x"].to_numpy()], [pts["y"].to_numpy()]
@@ -599,6 +641,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                               markersize=4.5, label=f"data (n = {len(pts)})"))
 
     # per-group lines
+    common, gmethod = None, None
     if len(groups) > 1 and group_lines:
         gmethod = _primary_method(methods, result) if group_lines == "auto" else str(group_lines)
         drawn = False
@@ -632,12 +675,18 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         if drawn:
             handles.append(Line2D([], [], color="#888888", lw=0.9,
                                   ls=METHOD_DASHES.get(gmethod, "-"),
-                                  label=(f"{method_label(gmethod)} common slope in each group"
-                                         if common is not None else
-                                         f"{method_label(gmethod)} line per group")))
+                                  label=(f"{method_label(gmethod)} common slope in each "
+                                         f"{group_word}" if common is not None else
+                                         f"{method_label(gmethod)} line per {group_word}")))
 
-    # main lines with bands
+    # main lines with bands; the equation box leads with the answer: the common
+    # within-group exponent when the groups' slopes do not differ (as the report does)
     eq_lines = []
+    lead_line = ""
+    if scope == "pooled" and common is not None and _slopes_agree(result, gmethod):
+        lead_line = common_slope_text(common.slope, common.slope_ci.low, common.slope_ci.high,
+                                      method=gmethod, confidence=result.config.model.confidence,
+                                      groups_word=plural)
     for method in methods:
         fit = result.line_fits.get((scope, "", method))
         if fit is None:
@@ -657,12 +706,14 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         xs_all.append(xs)
         ys_all.append(_unlog(fitted, base))
         where = "group means" if scope == "group_means" else (
-            "all groups" if groups else "")
+            f"all {plural}" if groups else "")
         label = method_label(method) + (f" ({where})" if where else "")
         handles.append(Line2D([], [], color=shade, lw=1.3, ls=METHOD_DASHES.get(method, "-"),
                               label=label))
         if len(eq_lines) < MAX_EQUATIONS:
-            eq_lines.append(equation_text(fit, **_factor_of(result, scope, "", method)))
+            eq_lines.append(equation_text(
+                fit, **_factor_of(result, scope, "", method),
+                label=f"{method_label(method)}, all {plural}" if lead_line else None))
     if scope == "pooled":   # phylogenetic lines (scaling/phylo_stage.py), no band
         for method in methods:
             fit = result.line_fits.get(("phylo", "", method))
@@ -695,6 +746,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                            handletextpad=0.4, fontsize=STYLE["font.size"] - 1)
         else:
             ax.legend(handles=handles, loc="best", handlelength=2.6)
+    if lead_line:
+        eq_lines.insert(0, lead_line)
     if equation and eq_lines:
         text = ax.text(0.02, 0.98, "\n".join(eq_lines), transform=ax.transAxes,
                        ha="left", va="top", fontsize=STYLE["font.size"] - 0.5,

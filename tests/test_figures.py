@@ -133,8 +133,10 @@ class TestPlotScaling:
         ax = plot_scaling(grouped)
         (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
         body = text.get_text()
-        # primary: first symmetric method of [ols, sma, ma, deming] is SMA
-        assert body.startswith("SMA: ") and "OLS:" not in body
+        # primary: first symmetric method of [ols, sma, ma, deming] is SMA; the clades'
+        # slopes do not differ, so the box leads with the common within-clade exponent
+        assert body.startswith("SMA within clades: ") and "OLS" not in body
+        assert "\nSMA, all clades: $y = " in body
         factor = grouped.fits.query("scope == 'pooled' and method == 'sma'")[
             "smearing_factor"].iloc[0]
         # internal consistency: the factor shown is the run's smearing factor
@@ -143,7 +145,7 @@ class TestPlotScaling:
     def test_equation_matches_the_fits(self, grouped):
         ax = plot_scaling(grouped, methods=["ols", "sma", "ma"])
         (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
-        pattern = re.compile(r"(OLS|SMA|MA): \$y = ([\d.]+)\\,x\^\{([\d.]+)\}\$ "
+        pattern = re.compile(r"(OLS|SMA|MA), all clades: \$y = ([\d.]+)\\,x\^\{([\d.]+)\}\$ "
                              r"\(95% CI ([\d.]+)–([\d.]+)\)")
         found = pattern.findall(text.get_text())
         assert [f[0] for f in found] == ["OLS", "SMA", "MA"]
@@ -153,6 +155,29 @@ class TestPlotScaling:
             assert_allclose(float(a), fit.a, rtol=5e-3)
             assert_allclose([float(b), float(lo), float(hi)],
                             [fit.slope, fit.slope_ci.low, fit.slope_ci.high], rtol=0, atol=5e-4)
+
+    def test_equation_leads_with_the_common_slope_the_report_gives(self, grouped):
+        # internal consistency: the first line is fits.csv's common SMA row (the report's
+        # answer), not a second estimate; the clades' slopes do not differ (group_tests)
+        ax = plot_scaling(grouped)
+        (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
+        first = text.get_text().splitlines()[0]
+        m = re.fullmatch(r"SMA within clades: \$y \\propto x\^\{([\d.]+)\}\$ "
+                         r"\(95% CI ([\d.]+)–([\d.]+)\)", first)
+        assert m, first
+        row = grouped.fits.query("scope == 'common' and method == 'sma'").iloc[0]
+        assert_allclose([float(v) for v in m.groups()],
+                        [row["slope"], row["slope_low"], row["slope_high"]], rtol=0, atol=5e-4)
+
+    def test_equation_does_not_claim_a_common_slope_when_slopes_differ(self, grouped):
+        import dataclasses
+        tests = grouped.tables["group_tests"].copy()
+        tests.loc[tests["test"] == "slopes_equal", "p_value"] = 0.001
+        differ = dataclasses.replace(grouped, tables={**grouped.tables, "group_tests": tests})
+        ax = plot_scaling(differ)
+        (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
+        assert "within" not in text.get_text()
+        assert text.get_text().startswith("SMA: $y = ")
 
     def test_equation_covers_no_data(self, grouped):
         ax = plot_scaling(grouped)
@@ -475,4 +500,4 @@ class TestReadableFigures:
         assert any(abs(d.get_xdata()[0] - ref.slope) < 1e-12 for d in dots)
         ax = plot_scaling(grouped)
         texts = [t.get_text() for lg in ax.figure.legends for t in lg.get_texts()]
-        assert "SMA common slope in each group" in texts
+        assert "SMA common slope in each clade" in texts and "SMA (all clades)" in texts
