@@ -1073,20 +1073,31 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
 
 
 def _exponent_rows(result, methods) -> list:
-    """(label, scope, group) for every fit scope present, pooled first."""
+    """(label, scope, group) for every fit scope present.
+
+    Pooled first -- unless the groups' slopes do not differ (by the primary
+    method's group test), when the common within-group slope, the answer the
+    report leads with, comes first.
+    """
     rows = []
     keys = result.line_fits.keys()
     groups = _groups(result)
+    word = str(result.config.data.group or "group")
+    plural = word if word.endswith("s") else f"{word}s"
     if any(k[0] == "pooled" for k in keys):
-        rows.append(("Pooled" if not groups else "Pooled (all groups)", "pooled", ""))
+        rows.append(("Pooled" if not groups else f"Pooled (all {plural})", "pooled", ""))
     if len(groups) <= LEGEND_MAX_GROUPS:   # above: no row per group (see plot_exponents)
         fitted = {k[1] for k in keys if k[0] == "group"}
         rows += [(g, "group", g) for g in groups if g in fitted]
     if len(groups) > 1 and any(_common_slope_fit(result, m) is not None
                                for m in (methods or ())):
-        rows.append(("Common slope within groups", "common", ""))
+        common = (f"Common slope within {plural}", "common", "")
+        if _slopes_agree(result, _primary_method(list(methods), result)):
+            rows.insert(0, common)
+        else:
+            rows.append(common)
     if any(k[0] == "group_means" for k in keys):
-        rows.append(("Through group means", "group_means", ""))
+        rows.append((f"Through {word} means", "group_means", ""))
     return rows
 
 
@@ -1174,7 +1185,9 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
                 fontsize=6.5, color="#4d4d4d", zorder=4,
                 bbox=dict(boxstyle="square,pad=0.1", facecolor="white", edgecolor="none"))
     ax.set_yticks(range(len(rows)))
-    ax.set_yticklabels([textwrap.fill(r[0], 22) for r in rows])
+    labels = ax.set_yticklabels([textwrap.fill(r[0], 22) for r in rows])
+    if rows and rows[0][1] == "common":   # the answer, first and in bold
+        labels[0].set_fontweight("bold")
     ax.tick_params(axis="y", length=0)
     ax.spines["left"].set_visible(False)
     pct = f"{100 * result.config.model.confidence:g}%"

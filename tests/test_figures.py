@@ -390,8 +390,10 @@ class TestPlotExponents:
         assert_allclose(refs, [2 / 3, 0.75], rtol=1e-12)   # exact: the config's exponents
         texts = {t.get_text() for t in ax.texts}
         assert {"2/3", "3/4"} <= texts
-        labels = [t.get_text() for t in ax.get_yticklabels()]
-        assert labels[0].startswith("Pooled") and "Canopy" in labels
+        labels = [t.get_text().replace("\n", " ") for t in ax.get_yticklabels()]
+        # slopes agree: the answer (common slope) first, then pooled, then the clades
+        assert labels[:2] == ["Common slope within clades", "Pooled (all clades)"]
+        assert "Canopy" in labels
 
 
 class TestPlotResiduals:
@@ -489,15 +491,23 @@ class TestReadableFigures:
         from scaling.groups import common_slope
         ax = plot_exponents(grouped)
         labels = [t.get_text().replace("\n", " ") for t in ax.get_yticklabels()]
-        assert "Common slope within groups" in labels
+        # the clades' slopes do not differ: the common slope is the first row
+        assert labels[0] == "Common slope within clades"
+        assert ax.get_yticklabels()[0].get_fontweight() == "bold"
         pts = grouped.data.points
         ref = common_slope(pts["log_x"], pts["log_y"], pts["group"].astype(str),
                            method="sma")
-        row = labels.index("Common slope within groups")
+        row = labels.index("Common slope within clades")
         dots = [ln for ln in ax.lines if len(ln.get_xdata()) == 1
                 and abs(ln.get_ydata()[0] - row) < 0.4]
         # internal consistency: the row shows groups.common_slope's SMA estimate
         assert any(abs(d.get_xdata()[0] - ref.slope) < 1e-12 for d in dots)
+        # ... with the interval of fits.csv's common row (the report's numbers)
+        row_ci = grouped.fits.query("scope == 'common' and method == 'sma'").iloc[0]
+        bars = [ln for ln in ax.lines if len(ln.get_xdata()) == 2
+                and abs(ln.get_ydata()[0] - row) < 0.4]
+        assert any(np.allclose(b.get_xdata(), [row_ci["slope_low"], row_ci["slope_high"]],
+                               rtol=0, atol=1e-12) for b in bars)
         ax = plot_scaling(grouped)
         texts = [t.get_text() for lg in ax.figure.legends for t in lg.get_texts()]
         assert "SMA common slope in each clade" in texts and "SMA (all clades)" in texts
