@@ -40,30 +40,52 @@ def _files(folder: Path) -> dict:
 
 
 @pytest.fixture(scope="module")
-def demo_result():
+def small_config(tmp_path_factory) -> Path:
+    """Two groups on y = 3 x^0.75 (a simulation with a known truth), the two cheapest
+    figure kinds (two are needed for a split) in png and pdf at a low resolution: the
+    worker's paths at a fraction of the demo's cost."""
+    import numpy as np
+    import pandas as pd
+    folder = tmp_path_factory.mktemp("small")
+    rng = np.random.default_rng(7)
+    mass = 10 ** rng.uniform(0, 3, 40)
+    rate = 3.0 * mass ** 0.75 * 10 ** rng.normal(0, 0.05, 40)
+    pd.DataFrame({"grp": ["a"] * 20 + ["b"] * 20, "mass": mass, "rate": rate}).to_csv(
+        folder / "small.csv", index=False)
+    (folder / "run.yaml").write_text(
+        "data: {file: small.csv, x: mass, y: rate, group: grp}\n"
+        "prediction: {x: [5, 50]}\n"
+        "groups: {compare: false}\ndiagnostics: {enabled: false}\n"
+        "figures: {kinds: [natural, exponents], formats: [png, pdf], dpi: 60}\n",
+        encoding="utf-8")
+    return folder / "run.yaml"
+
+
+@pytest.fixture(scope="module")
+def demo_result(small_config):
     import warnings
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return analyse(load_config(DEMO_CONFIG), quiet=True)
+        return analyse(load_config(small_config), quiet=True)
 
 
 @needs_fork
-def test_worker_run_writes_the_same_files_as_one_process(tmp_path, monkeypatch):
+def test_worker_run_writes_the_same_files_as_one_process(tmp_path, monkeypatch, small_config):
     # internal consistency: every CSV, the LaTeX table and every PNG/PDF byte for byte
     # (the report and results.json carry the run's time, so they are left out)
     started = []
     real_start = fw.FigureWorker.__init__
     monkeypatch.setattr(fw.FigureWorker, "__init__",
                         lambda self: (started.append(1), real_start(self))[1])
-    run_config(DEMO_CONFIG, out=tmp_path / "many", quiet=True)
+    run_config(small_config, out=tmp_path / "many", quiet=True)
     assert started == [1]
     monkeypatch.setenv("SCALING_ONE_PROCESS", "1")
-    assert fw.start_worker(load_config(DEMO_CONFIG)) is None
-    run_config(DEMO_CONFIG, out=tmp_path / "one", quiet=True)
+    assert fw.start_worker(load_config(small_config)) is None
+    run_config(small_config, out=tmp_path / "one", quiet=True)
     one, many = _files(tmp_path / "one"), _files(tmp_path / "many")
     assert sorted(one) == sorted(many)
     assert [name for name in one if one[name] != many[name]] == []
-    assert {"figures/scaling.png", "figures/residuals.pdf"} <= set(one)
+    assert {"figures/natural.png", "figures/exponents.pdf"} <= set(one)
 
 
 @needs_fork
@@ -100,7 +122,7 @@ def test_worker_draws_a_run_and_stops(tmp_path, demo_result):
     worker = fw.start_worker(demo_result.config)
     (tmp_path / "figures").mkdir()
     paths, notes = worker.draw(demo_result, tmp_path)
-    assert notes == [] and "figures/natural.pdf" in paths
+    assert notes == [] and "figures/natural.pdf" in paths and len(paths) == 4
     assert worker._proc is None   # joined after its one run
 
 
@@ -126,13 +148,13 @@ def test_split_balances_the_drawing_cost():
     assert sum(DRAWING_COST[k] for k in a) == sum(DRAWING_COST[k] for k in b) == 5
 
 
-def test_output_buffered_before_the_run_is_printed_once(tmp_path):
+def test_output_buffered_before_the_run_is_printed_once(tmp_path, small_config):
     # common practice, no source: a forked process must not flush its copy of the
     # parent's unwritten output (stdout to a pipe is block-buffered)
     code = ("from scaling.pipeline import run_config; print('printed before the run'); "
-            f"run_config({str(DEMO_CONFIG)!r}, out={str(tmp_path / 'o')!r}, quiet=True)")
+            f"run_config({str(small_config)!r}, out={str(tmp_path / 'o')!r}, quiet=True)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          cwd=ROOT)
     assert out.returncode == 0, out.stderr
     assert out.stdout.count("printed before the run") == 1
-    assert (tmp_path / "o" / "figures" / "residuals.png").is_file()
+    assert (tmp_path / "o" / "figures" / "natural.png").is_file()
