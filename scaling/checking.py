@@ -20,6 +20,7 @@ from .lines import method_label
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "primary_method", "check_run"]
 
 from .schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
+from .diagnostics import fit_checks, points_to_check
 MAX_LISTED = 5
 
 
@@ -54,7 +55,6 @@ def check_run(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame,
     -------
     (DataFrame, list of str)
     """
-    from .diagnostics import fit_checks, points_to_check
     alpha = cfg.diagnostics.alpha
     records, warn = [], []
     preds = tables.get("predictions")

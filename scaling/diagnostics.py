@@ -70,6 +70,7 @@ from scipy import optimize, stats
 from .errors import ConfigError, DataError, DegenerateDataWarning
 from .lines import EXACT_NOTE, METHODS, LineFit, exact_fit, fit_moments, p_text
 from .moments import Moments, moments
+from .wording import estimate_outside_reason, group_residuals_reason, influence_reason, smearing_reason
 
 __all__ = [
     "Check",
@@ -851,7 +852,6 @@ def fit_checks(*, smearing_factor: float | None = None,
         [1/SMEARING_RATIO_LIMIT, SMEARING_RATIO_LIMIT]; estimates outside
         [low, high].
     """
-    from .wording import estimate_outside_reason, smearing_reason
     out = []
     if smearing_factor is not None and parametric_factor is not None \
             and np.isfinite(smearing_factor) and np.isfinite(parametric_factor) \
@@ -904,7 +904,6 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
     -----
     Rules and sources are in the module docstring.
     """
-    from .wording import group_residuals_reason, influence_reason
     alpha = _check_alpha(alpha)
     X = np.asarray(log_x, dtype=float)
     Y = np.asarray(log_y, dtype=float)

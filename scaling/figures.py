@@ -35,11 +35,13 @@ from matplotlib.lines import Line2D
 from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter,
                                FuncFormatter)
 from scipy import stats
-from .errors import ConfigError, FigureWarning
+from .errors import ConfigError, FigureWarning, ScalingError
 from .lines import ConfidenceInterval, parse_log_base, to_log
 from .predict import log_interval, predict, saved_factor
 from .schema import CATALOGUE, FIGURE_KINDS, method_label
 from .wording import exponent_label
+from .checking import primary_method
+from .groups import common_slope
 
 __all__ = ["plot_scaling", "plot_natural", "plot_exponents", "plot_residuals",
            "make_scaling", "make_natural", "make_exponents", "make_residuals",
@@ -335,7 +337,6 @@ def _primary_method(methods: list, result=None) -> str:
     (``model.primary``, else the first symmetric method, else OLS) when drawn,
     else SMA if present, else the first."""
     if result is not None:
-        from .checking import primary_method
         chosen = primary_method(result.config)
         if chosen in methods:
             return chosen
@@ -450,8 +451,6 @@ def _common_slope_fit(result, method: str):
     pts = result.data.points
     if not (cfg.groups.compare and "group" in pts.columns) or method not in ("ols", "sma", "ma"):
         return None
-    from .errors import ScalingError
-    from .groups import common_slope
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -1608,9 +1607,7 @@ def plot_partial(result, term: str, *, ax=None, size: str = "single"):
 
 def _write_partial_figures(result, folder: Path) -> list[Path]:
     """One ``figures/partial_<term>.<format>`` per predictor (several-predictor runs)."""
-    import warnings
 
-    from .errors import FigureWarning
     cfg = result.config.figures
     out: list[Path] = []
     for term in result.tables["_multi_fit"].names:

@@ -445,7 +445,6 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
         left = excluded_text(excluded)
         warnings.warn(f"groups left out of the line through the means: {left}",
                       DegenerateDataWarning, stacklevel=2)
-        from dataclasses import replace
         text = f"groups left out of the line through the means: {left}"
         fit = replace(fit, note=f"{fit.note}; {text}" if fit.note else text)
     return fit

@@ -33,6 +33,12 @@ import numpy as np
 import pandas as pd
 
 from .errors import ConfigError, DataError
+from .spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
+from .data import CleanData
+from .engine import fit_groups_from_moments, read_moments
+from .lines import METHODS, describe_test, line_fit_from_moments, method_label, parse_log_base
+from .output import manifest_header
+from .schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
 
 __all__ = ["use_moments_path", "analyse_moments", "spread_stage", "spread_sentence",
            "SPREAD_METHODS"]
@@ -88,7 +94,6 @@ def spread_stage(fits: pd.DataFrame, cfg) -> tuple[dict, list, list]:
         when there are at most ``groups.spread_min`` groups.
     messages, notes : list of str
     """
-    from .spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 
     groups = fits.loc[fits["scope"] == "group", "group"]
     n_groups = int(groups.nunique())
@@ -189,11 +194,6 @@ def analyse_moments(cfg, reason: str):
     is empty (no rows are kept), ``dropped`` is empty and ``tables`` holds
     ``dropped_counts`` (``reason, rows``) and ``group_means``.
     """
-    from .data import CleanData
-    from .engine import fit_groups_from_moments, read_moments
-    from .lines import METHODS, line_fit_from_moments, parse_log_base
-    from .output import manifest_header
-    from .schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
 
     base = parse_log_base(cfg.model.log_base)
     d = cfg.data
@@ -241,7 +241,6 @@ def analyse_moments(cfg, reason: str):
 
     messages = [_moments_path_sentence(reason, gm.n_read, gm.n_dropped, gm.n_groups)]
     pct = f"{100 * cfg.model.confidence:g}%"
-    from .lines import describe_test, method_label
     for (_, _, method), fit in line_fits.items():
         messages.append(f"Pooled {method_label(method)} exponent {fit.slope:.3f} ({pct} CI "
                         f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}), r² = {fit.r2:.3f}, "

@@ -25,10 +25,12 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, ExtrapolationWarning
+from .errors import DataError, ExtrapolationWarning, ScalingError
 from .lines import base_label, method_label
 from .output import manifest_header
 from .schema import DROPPED_COLUMNS
+from .units import conversion_factor, normalisation_constant
+from .multi import fit_multi
 
 __all__ = ["apply_model_units", "constant_columns", "analyse_several", "exponent_hypotheses",
            "MULTI_SLOPE_TEST_COLUMNS"]
@@ -43,14 +45,13 @@ MULTI_SLOPE_TEST_COLUMNS = ["scope", "group", "method", "term", "hypothesis", "e
 
 def _factors(cfg) -> tuple[list, float]:
     """Conversion factors (one per x column, and y) from data.units to model.units."""
-    from .units import conversion_factor
     du, mu = cfg.data.units, cfg.model.units
     xs = cfg.data.x_columns
     fx = [1.0] * len(xs)
     if mu.get("x") is not None:
         src = du["x"] if isinstance(du["x"], tuple) else (du["x"],)
         dst = mu["x"] if isinstance(mu["x"], tuple) else (mu["x"],)
-        fx = [conversion_factor(s, d, key=f"model.units.x" + (f"[{j}]" if len(xs) > 1 else ""))
+        fx = [conversion_factor(s, d, key="model.units.x" + (f"[{j}]" if len(xs) > 1 else ""))
               for j, (s, d) in enumerate(zip(src, dst))]
     fy = 1.0
     if mu.get("y") is not None:
@@ -105,7 +106,6 @@ def _unit_text(u) -> str:
 
 
 def _unit_string(y_unit, x_units, slopes, base, intercept, ci):
-    from .units import normalisation_constant
     return normalisation_constant(intercept, ci, slopes, x_units=x_units, y_unit=y_unit,
                                   log_base=base)
 
@@ -131,7 +131,6 @@ def constant_columns(fits: pd.DataFrame, units: dict, base) -> pd.DataFrame:
         hi = np.power(base, pd.to_numeric(out["intercept_high"], errors="coerce").to_numpy(float))
         ux, uy = units.get("x"), units.get("y")
         if ux and uy and not isinstance(ux, tuple):
-            from .errors import ScalingError
             for i, (b, c) in enumerate(zip(out["slope"], icpt)):
                 if np.isfinite(b) and np.isfinite(c):
                     try:
@@ -269,7 +268,6 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
     (new rows, natural units, intervals) and ``prediction_total``
     (``prediction.total``).
     """
-    from .multi import fit_multi
     if base is None:
         raise DataError(f"{cfg.data.file}: several predictors need model.log_base 10, e or 2")
     pts = data.points
@@ -314,7 +312,7 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
     new = _new_rows(cfg, names)
     if new is not None:
         pc = cfg.prediction
-        with warnings.catch_warnings(record=True) as caught:
+        with warnings.catch_warnings(record=True):   # the run notes extrapolation itself
             warnings.simplefilter("always", ExtrapolationWarning)
             pred = fit.predict(new[list(names)], correction=pc.correction,
                                interval=pc.interval)
@@ -330,7 +328,6 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
             notes.append(f"{n_ext} of {len(frame)} predictions lie outside the fitted data "
                          "(a predictor out of its range, or an unusual combination); flagged "
                          "in predictions.csv.")
-        del caught
         if total is not None:
             tables["prediction_total"] = total.to_frame()
             messages.insert(head, total_sentence(total, units.get("y", "")))

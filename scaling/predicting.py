@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from .lines import is_symmetric
+from .wording import range_warning, symmetric_prediction_note
 
 __all__ = ["prediction_methods", "prediction_fits", "range_ratio", "add_range_ratio"]
 
@@ -41,7 +42,6 @@ def prediction_methods(cfg, fitted: list) -> tuple:
 
 def prediction_fits(saved: dict, cfg) -> tuple:
     """The saved fits that predict, and the notes about that choice."""
-    from .wording import symmetric_prediction_note
     fitted = list(dict.fromkeys(m for (_, _, m) in saved))
     chosen = prediction_methods(cfg, fitted)
     keep = {k: d for k, d in saved.items() if k[2] in chosen}
@@ -93,7 +93,6 @@ def add_range_ratio(table: pd.DataFrame, saved: dict, role: str) -> tuple:
         ``(scope, group, method) -> saved-fit dict`` with ``x_range``,
         ``y_range`` and ``log_base``.
     """
-    from .wording import range_warning
     out = table.copy()
     if not len(out):
         out["range_ratio"] = pd.Series(dtype=float)

@@ -25,7 +25,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .wording import CAUTION, exponent_label, format_p, method_label, p_text, verdict_phrase
+from .headline import headline_of
+from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
+                      format_p, mechanism_caution, medians_vs_means, method_label, p_text,
+                      predicted_unit, verdict_phrase)
 
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
@@ -347,7 +350,6 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
               if not str(k).startswith("_") and isinstance(v, pd.DataFrame)}
     sections = []
 
-    from .headline import headline_of
     head = headline_of(result)
     sections.append(_headline_section(head))
     # the per-method exponent-test bullets are replaced by the one exponent table
@@ -382,7 +384,6 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         test_blocks.append(Block(kind="p", text="No hypothesised exponents were given."))
     if result.slope_tests is not None and len(result.slope_tests):
         test_blocks.append(Block(kind="table", frame=result.slope_tests, name="slope_tests"))
-    from .wording import ancestry_caution, mechanism_caution
     if sentences:
         test_blocks.append(Block(kind="p", text=mechanism_caution()))
     if cfg.data.group or cfg.data.average_within:
@@ -423,7 +424,6 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
             pred_blocks.append(Block(kind="p", text=intro + "." + note))
             pred_blocks.append(Block(kind="table", frame=t, name=name, highlight=flags))
     if pred_blocks:
-        from .wording import dose_caution, medians_vs_means, predicted_unit
         pred_blocks += [Block(kind="p", text=t) for t in (
             predicted_unit(cfg.data.average_within, cfg.data.y), medians_vs_means(),
             dose_caution())]
@@ -491,7 +491,6 @@ def _manifest_section(result) -> Section:
                        ("config_file", "Config file"), ("input_file", "Input file"),
                        ("input_sha256", "Input SHA-256")):
         if man.get(key):
-            from .wording import clean_timestamp   # '... 04:40 UTC', not '+00:00 UTC'
             value = clean_timestamp(man[key]) if key == "created_utc" else man[key]
             facts.append(f"{label}: {value}")
     if facts:
@@ -655,7 +654,6 @@ def _html_block(block: Block) -> str:
 
 
 def _clean_stamp(iso) -> str:
-    from .wording import clean_timestamp
     return clean_timestamp(iso)
 
 

@@ -23,6 +23,8 @@ from .errors import (ConfigError, DataError, DegenerateDataWarning, Extrapolatio
 from .lines import LineFit, fit_from_dict
 from .predict import CORRECTIONS, Prediction, inverse_predict, predict, saved_factor
 from .schema import check_choice as _check_choice
+from .wording import dose_caution, medians_vs_means
+from .predicting import range_ratio
 
 __all__ = ["SavedResults", "load_results", "predict_command", "predict_from_dict"]
 
@@ -238,7 +240,6 @@ def predict_command(args) -> int:
         if issubclass(w.category, DegenerateDataWarning):
             print(f"warning: {w.message}" + ("; x_low and x_high are blank"
                                              if "unbounded" in str(w.message) else ""))
-    from .wording import dose_caution, medians_vs_means
     print(medians_vs_means())
     print(dose_caution())
     print(f"wrote {out}")
@@ -249,7 +250,6 @@ def _with_names(frame: pd.DataFrame, saved: "SavedResults", ids, *, inverse: boo
                 method, group) -> pd.DataFrame:
     """ID columns of the --from file first; copies of x and y named after the variables;
     range_ratio (how far outside the fitted range each given value lies)."""
-    from .predicting import range_ratio
     out = frame.copy()
     d = saved.saved_fit(method=method, group=group)
     role = "y" if inverse else "x"
