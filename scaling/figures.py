@@ -30,6 +30,7 @@ from types import SimpleNamespace
 
 import matplotlib
 import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter,
@@ -345,7 +346,7 @@ def _primary_method(methods: list, result=None) -> str:
 
 def _new_figure(size: str, aspect: float) -> Figure:
     width = SIZES.get(size, SIZES["single"])
-    return Figure(figsize=(width, width * aspect), layout="constrained")
+    return _agg_figure(figsize=(width, width * aspect), layout="constrained")
 
 
 def _figure_legend(fig: Figure, handles: list, ncol: int, **kwargs):
@@ -768,10 +769,29 @@ _CORNERS = {"upper left": (0.02, 0.98, "left", "top"),
             "lower left": (0.02, 0.02, "left", "bottom")}
 
 
+def _agg_figure(**kwargs) -> Figure:
+    """A Figure with an Agg canvas attached (no pyplot): layout and text sizes are then
+    measured with the renderer that draws the PNG, which is also faster than a bare canvas."""
+    fig = Figure(**kwargs)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _laid_out(fig):
+    """Run the figure's layout (positions only; nothing is drawn) and return the renderer."""
+    engine = fig.get_layout_engine()
+    if engine is None:
+        fig.draw_without_rendering()
+        return None
+    canvas = fig.canvas if isinstance(fig.canvas, FigureCanvasAgg) else FigureCanvasAgg(fig)
+    engine.execute(fig)
+    return canvas.get_renderer()
+
+
 def _covered(ax, text, xs, ys) -> int:
     """Number of data points / line samples under ``text`` once laid out."""
-    ax.figure.draw_without_rendering()
-    box = text.get_window_extent().padded(2.0)
+    renderer = _laid_out(ax.figure)
+    box = text.get_window_extent(renderer).padded(2.0)
     disp = ax.transData.transform(np.column_stack([xs, ys]))
     inside = ((disp[:, 0] >= box.x0) & (disp[:, 0] <= box.x1)
               & (disp[:, 1] >= box.y0) & (disp[:, 1] <= box.y1))
@@ -802,8 +822,8 @@ def _place_in_emptiest_corner(ax, text, xs, ys) -> str:
     fwd = (np.log10 if log_scale else (lambda v: v))
     inv = ((lambda v: 10 ** v) if log_scale else (lambda v: v))
     for _ in range(6):
-        ax.figure.draw_without_rendering()
-        box = text.get_window_extent().padded(2.0)
+        renderer = _laid_out(ax.figure)
+        box = text.get_window_extent(renderer).padded(2.0)
         axbox = ax.get_window_extent()
         frac = (box.y0 - axbox.y0) / axbox.height      # text bottom, axes fraction
         lo, hi = (fwd(v) for v in ax.get_ylim())
@@ -1120,7 +1140,7 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
     if own:
         width = SIZES.get(size, SIZES["single"])
         height = (0.75 + 0.22 * max(len(rows), 1) * max(1.0, len(methods) / 3)) + 0.45
-        ax = Figure(figsize=(width, max(height, 1.8)), layout="constrained").add_subplot()
+        ax = _agg_figure(figsize=(width, max(height, 1.8)), layout="constrained").add_subplot()
     k = len(methods)
     n_groups = len(_groups(result))
     if n_groups > LEGEND_MAX_GROUPS:
@@ -1336,7 +1356,7 @@ def make_residuals(result, *, size: str = "single", methods=None) -> Figure:
     width = SIZES.get(size, SIZES["single"])
     row_h = width * (0.42 if size == "single" else 0.26)
     row_h = min(row_h, PAGE_HEIGHT / len(methods))   # the whole figure fits a page
-    fig = Figure(figsize=(width, row_h * len(methods) + 0.35), layout="constrained")
+    fig = _agg_figure(figsize=(width, row_h * len(methods) + 0.35), layout="constrained")
     axes = fig.subplots(len(methods), 2, squeeze=False)
     for i, method in enumerate(methods):
         plot_residuals(result, ax=axes[i, 0], method=method, kind="fitted")
