@@ -65,6 +65,16 @@ def _draw_share(result, folder: Path, kinds=None,
     return paths, notes
 
 
+def _anything_to_draw(result) -> bool:
+    """False when the run asks for no figure file: no format, or no kind and none of the
+    figures drawn beyond the kinds (several predictors; the summary of many groups)."""
+    cfg = result.config.figures
+    tables = result.tables or {}
+    spread = tables.get("exponent_spread")
+    extras = "_multi_fit" in tables or (spread is not None and len(spread) > 0)
+    return bool(cfg.formats) and (bool(cfg.kinds) or extras)
+
+
 def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
     """Write the run's figures into ``folder``; return (relative paths, skip notes).
 
@@ -72,6 +82,8 @@ def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
     (:func:`one_process` false); should that process fail, its figures are
     drawn here.  Paths come in the order of ``config.figures.kinds``.
     """
+    if not _anything_to_draw(result):
+        return [], []   # and matplotlib is never imported
     kinds = list(result.config.figures.kinds)
     if len(kinds) < 2 or one_process():
         return _draw_share(result, folder)

@@ -158,3 +158,18 @@ def test_output_buffered_before_the_run_is_printed_once(tmp_path, small_config):
     assert out.returncode == 0, out.stderr
     assert out.stdout.count("printed before the run") == 1
     assert (tmp_path / "o" / "figures" / "natural.png").is_file()
+
+
+def test_a_run_without_figures_does_not_import_matplotlib(tmp_path, small_config):
+    # common practice, no source: a fresh interpreter shows whether matplotlib was loaded
+    cfg = small_config.read_text(encoding="utf-8").replace(
+        "figures: {kinds: [natural, exponents],", "figures: {kinds: [],")
+    path = small_config.parent / "nofig.yaml"
+    path.write_text(cfg, encoding="utf-8")
+    code = ("import sys; from scaling.pipeline import run_config; "
+            f"run_config({str(path)!r}, out={str(tmp_path / 'o')!r}, quiet=True); "
+            "print('matplotlib' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip().splitlines()[-1] == "False"
+    assert not list((tmp_path / "o" / "figures").glob("*"))
