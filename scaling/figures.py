@@ -30,12 +30,15 @@ from types import SimpleNamespace
 
 import matplotlib
 import numpy as np
+import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter,
                                FuncFormatter)
 from scipy import stats
+
 from .errors import ConfigError, FigureWarning, ScalingError
 from .lines import ConfidenceInterval, parse_log_base, to_log
 from .predict import log_interval, predict, saved_factor
@@ -371,7 +374,6 @@ def _group_means_table(result):
     Returns a DataFrame ``group, n, mean_log_x, mean_log_y, se_log_x, se_log_y``
     or None without groups.  SE = SD / sqrt(n) (textbook; common practice).
     """
-    import pandas as pd
     table = (result.tables or {}).get("group_means")
     if isinstance(table, pd.DataFrame) and len(table):
         return table
@@ -668,7 +670,6 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                     ls=METHOD_DASHES.get(gmethod, "-"), zorder=3)
             drawn = True
         if segments:
-            from matplotlib.collections import LineCollection
             ax.add_collection(LineCollection(segments, colors=seg_colours, linewidths=0.9,
                                              linestyles=METHOD_DASHES.get(gmethod, "-"),
                                              zorder=3))
@@ -858,7 +859,6 @@ _PRED_COLOUR = "#000000"
 def _natural_predictions(result, methods: list):
     """Rows of the run's ``predictions`` table drawn on the natural-scale plot:
     scope ``pooled`` (the curves drawn), for the methods drawn; None if there are none."""
-    import pandas as pd
     table = (result.tables or {}).get("predictions")
     if not isinstance(table, pd.DataFrame) or not len(table) or "scope" not in table:
         return None

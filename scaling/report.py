@@ -19,11 +19,12 @@ import base64
 import html
 import math
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import yaml
 
 from .headline import headline_of
 from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
@@ -462,28 +463,26 @@ def _bounded(sections: list) -> list:
 
     Only the rows shown are ever formatted; the full tables are the CSV files.
     """
-    from dataclasses import replace as _rep
     out = []
     for section in sections:
         blocks = []
         for b in section.blocks:
             if b.kind == "table" and b.frame is not None and len(b.frame) > TABLE_MAX_ROWS:
-                blocks.append(_rep(b, frame=b.frame.head(TABLE_MAX_ROWS),
+                blocks.append(replace(b, frame=b.frame.head(TABLE_MAX_ROWS),
                                    highlight=tuple(b.highlight[:TABLE_MAX_ROWS])))
                 blocks.append(Block(kind="p", text=(
                     f"First {TABLE_MAX_ROWS} of {len(b.frame):,} rows shown; every row is in "
                     f"{b.name or 'the'}.csv.")))
             elif b.kind == "details" and len(b.items) > ITEMS_MAX:
-                blocks.append(_rep(b, items=tuple(b.items[:ITEMS_MAX]) + (
+                blocks.append(replace(b, items=tuple(b.items[:ITEMS_MAX]) + (
                     f"... {len(b.items) - ITEMS_MAX:,} more; see slope_tests.csv.",)))
             else:
                 blocks.append(b)
-        out.append(_rep(section, blocks=blocks))
+        out.append(replace(section, blocks=blocks))
     return out
 
 
 def _manifest_section(result) -> Section:
-    import yaml
     man = result.manifest or {}
     blocks = []
     facts = []
