@@ -63,7 +63,8 @@ def _build_parser() -> argparse.ArgumentParser:
     src.add_argument("--x", nargs="+", metavar="V", help="values in natural units "
                      "(of x; of y with --inverse)")
     src.add_argument("--from", dest="from_file", metavar="FILE.csv",
-                     help="a table with a column named as data.x (data.y with --inverse)")
+                     help="a table with a column named as data.x (data.y with --inverse; "
+                          "every data.x column for several predictors)")
     pred.add_argument("--group", metavar="G", help="use the fit of this group")
     pred.add_argument("--method", metavar="M", help="line method (default: first of the run)")
     pred.add_argument("--inverse", action="store_true", help="predict x from y values")

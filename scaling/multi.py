@@ -96,6 +96,9 @@ __all__ = [
     "TotalPrediction",
     "fit_multi",
     "check_methods",
+    "MULTI_DICT_FORMAT",
+    "multi_fit_to_dict",
+    "multi_fit_from_dict",
 ]
 
 SINGLE_PREDICTOR_METHODS = ("sma", "ma", "deming", "theil_sen", "siegel", "sma_robust",
@@ -842,6 +845,10 @@ class MultiFit:
         >>> bool(t.low < t.total < t.high), t.n_new
         (True, 3)
         """
+        if self.residuals.size == 0:
+            raise DataError("this fit was read back from a results folder without its "
+                            "residuals; a total's interval needs them: rerun 'scaling run' "
+                            "with prediction.total")
         if confidence is None:
             confidence = self.confidence
         confidence = check_confidence(confidence)
@@ -1037,3 +1044,105 @@ def fit_multi(x, y, *, names: Sequence[str] | None = None, confidence: float = 0
         y_range=(float(yv.min()), float(yv.max())), max_leverage=float(lev.max()),
         residuals=_frozen(resid), factors={k_: float(v) for k_, v in factors.items()},
         xtx_inv=_frozen(xtx_inv), log_x=_frozen(log_x), log_y=_frozen(log_y))
+
+
+# --------------------------------------------------------------------------
+# a MultiFit to and from plain JSON types (results.json; scaling predict)
+
+#: Format tag of :func:`multi_fit_to_dict` dictionaries.
+MULTI_DICT_FORMAT = "scaling.multifit/1"
+
+_MULTI_REQUIRED = ("predictors", "n", "slopes", "slope_se", "slope_low", "slope_high",
+                   "intercept", "intercept_se", "intercept_ci", "cov", "resid_sd", "df",
+                   "log_base", "confidence", "x_ranges", "y_range", "max_leverage",
+                   "xtx_inv", "factors")
+
+
+def _plain(v):
+    """JSON-ready: arrays to lists, NaN and inf to None."""
+    if isinstance(v, dict):
+        return {k: _plain(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple, np.ndarray)):
+        return [_plain(x) for x in (v.tolist() if isinstance(v, np.ndarray) else v)]
+    if isinstance(v, (float, np.floating)):
+        return float(v) if math.isfinite(v) else None
+    if isinstance(v, np.integer):
+        return int(v)
+    return v
+
+
+def multi_fit_to_dict(fit: MultiFit) -> dict:
+    """What predicting from a :class:`MultiFit` needs, as JSON-ready types.
+
+    Coefficients, their covariance, (X'X)^-1 and the largest leverage (the
+    joint extrapolation check), residual SD and df, the correction factors
+    computed on the fitting data and each predictor's fitted range.  The
+    residuals are not kept, so a fit read back predicts individuals but not
+    a total (:meth:`MultiFit.predict_total`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(3)
+    >>> d, h = 10 ** rng.uniform(1, 2, 30), 10 ** rng.uniform(0.5, 1.5, 30)
+    >>> fit = fit_multi({"d": d, "h": h}, 0.05 * d**2 * h * 10 ** rng.normal(0, 0.05, 30))
+    >>> back = multi_fit_from_dict(multi_fit_to_dict(fit))
+    >>> bool(np.allclose(back.predict({"d": [20.0], "h": [10.0]}).y,
+    ...                  fit.predict({"d": [20.0], "h": [10.0]}).y, rtol=1e-12))
+    True
+    """
+    return _plain({
+        "format": MULTI_DICT_FORMAT, "method": "ols", "predictors": list(fit.names),
+        "n": int(fit.n), "slopes": fit.slopes, "slope_se": fit.slope_se,
+        "slope_low": fit.slope_low, "slope_high": fit.slope_high,
+        "intercept": fit.intercept, "intercept_se": fit.intercept_se,
+        "intercept_ci": [fit.intercept_ci.low, fit.intercept_ci.high],
+        "cov": fit.cov, "resid_sd": fit.resid_sd, "df": fit.df, "r2": fit.r2,
+        "adj_r2": fit.adj_r2, "log_base": base_label(fit.log_base),
+        "confidence": fit.confidence, "x_ranges": [list(r) for r in fit.x_ranges],
+        "y_range": list(fit.y_range), "max_leverage": fit.max_leverage,
+        "xtx_inv": fit.xtx_inv, "factors": dict(fit.factors),
+    })
+
+
+def multi_fit_from_dict(d: dict) -> MultiFit:
+    """Rebuild the :class:`MultiFit` written by :func:`multi_fit_to_dict` (no residuals).
+
+    Raises
+    ------
+    DataError
+        Not such a dictionary, or a key is missing.
+    """
+    if not isinstance(d, dict) or d.get("format") != MULTI_DICT_FORMAT:
+        raise DataError(f"a saved several-predictor fit must be a dict of format "
+                        f"{MULTI_DICT_FORMAT!r}")
+    missing = [k for k in _MULTI_REQUIRED if k not in d]
+    if missing:
+        raise DataError(f"saved several-predictor fit lacks key(s): {', '.join(missing)}")
+
+    def arr(v):
+        return _frozen(np.array([math.nan if x is None else x for x in v], dtype=float))
+
+    def mat(v):
+        return _frozen(np.array([[math.nan if x is None else x for x in row] for row in v],
+                                dtype=float))
+
+    def num(v):
+        return math.nan if v is None else float(v)
+
+    base = parse_log_base(d["log_base"])
+    empty = _frozen(np.empty(0))
+    return MultiFit(
+        names=tuple(str(n) for n in d["predictors"]), n=int(d["n"]), slopes=arr(d["slopes"]),
+        slope_se=arr(d["slope_se"]), slope_low=arr(d["slope_low"]),
+        slope_high=arr(d["slope_high"]), intercept=num(d["intercept"]),
+        intercept_se=num(d["intercept_se"]),
+        intercept_ci=ConfidenceInterval(num(d["intercept_ci"][0]), num(d["intercept_ci"][1])),
+        cov=mat(d["cov"]), resid_sd=num(d["resid_sd"]), df=num(d["df"]),
+        r2=num(d.get("r2")), adj_r2=num(d.get("adj_r2")), log_base=base,
+        confidence=float(d["confidence"]),
+        x_ranges=tuple((num(r[0]), num(r[1])) for r in d["x_ranges"]),
+        y_range=(num(d["y_range"][0]), num(d["y_range"][1])),
+        max_leverage=num(d["max_leverage"]), residuals=empty,
+        factors={k: num(v) for k, v in d["factors"].items()}, xtx_inv=mat(d["xtx_inv"]),
+        log_x=empty, log_y=empty)

@@ -30,7 +30,7 @@ from .lines import base_label, method_label
 from .output import manifest_header
 from .schema import DROPPED_COLUMNS
 from .units import conversion_factor, normalisation_constant
-from .multi import fit_multi
+from .multi import fit_multi, multi_fit_to_dict
 
 __all__ = ["apply_model_units", "constant_columns", "analyse_several", "exponent_hypotheses",
            "MULTI_SLOPE_TEST_COLUMNS"]
@@ -302,7 +302,9 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
                               "estimate": t.estimate, "statistic": t.statistic,
                               "statistic_type": "t", "df": t.df, "p_value": t.p_value})
     slope_tests = pd.DataFrame(test_rows, columns=MULTI_SLOPE_TEST_COLUMNS)
-    tables: dict = {"_multi_fit": fit}
+    # saved for 'scaling predict' (results.json "saved_fits"): predictions without the data
+    saved = {**multi_fit_to_dict(fit), "scope": "pooled", "group": ""}
+    tables: dict = {"_multi_fit": fit, "_saved_fits": {("pooled", "", "ols"): saved}}
     comb = cfg.model.combined
     if comb is not None:
         c = fit.test_combined(comb["weights"], exponent=comb["exponent"],

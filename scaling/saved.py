@@ -20,7 +20,8 @@ import pandas as pd
 
 from .errors import (ConfigError, DataError, DegenerateDataWarning, ExtrapolationWarning,
                      OutputError)
-from .lines import LineFit, fit_from_dict
+from .lines import fit_from_dict
+from .multi import MULTI_DICT_FORMAT, multi_fit_from_dict
 from .predict import CORRECTIONS, Prediction, inverse_predict, predict, saved_factor
 from .schema import check_choice as _check_choice
 from .wording import dose_caution, medians_vs_means
@@ -95,15 +96,38 @@ class SavedResults:
         raise DataError(f"{self.folder}: no estimable {method.upper()} fit for {where} "
                         "(see the note in fits.csv)")
 
-    def fit(self, *, method: str | None = None, group: str | None = None) -> LineFit:
-        """The :class:`LineFit` of one saved fit."""
-        return fit_from_dict(self.saved_fit(method=method, group=group))
+    @property
+    def predictors(self) -> tuple:
+        """The predictor columns of a several-predictor run (empty for one predictor)."""
+        for d in self.fits:
+            if d.get("format") == MULTI_DICT_FORMAT:
+                return tuple(d["predictors"])
+        return ()
+
+    def fit(self, *, method: str | None = None, group: str | None = None):
+        """The :class:`LineFit` of one saved fit (a :class:`~scaling.multi.MultiFit` for a
+        several-predictor run)."""
+        d = self.saved_fit(method=method, group=group)
+        return multi_fit_from_dict(d) if d.get("format") == MULTI_DICT_FORMAT \
+            else fit_from_dict(d)
 
     def predict(self, x, *, method=None, group=None, correction=None, interval=None,
                 inverse: bool = False) -> pd.DataFrame:
-        """Predict y at ``x`` (or x at ``y`` with ``inverse``) in natural units."""
+        """Predict y at ``x`` (or x at ``y`` with ``inverse``) in natural units.
+
+        For a several-predictor run ``x`` is a DataFrame or mapping with one
+        column per predictor (:attr:`predictors`).
+        """
         d = self.saved_fit(method=method, group=group)
         interval = interval or self.interval
+        if d.get("format") == MULTI_DICT_FORMAT:
+            if inverse:
+                raise ConfigError("--inverse: a fit with several predictors "
+                                  f"({', '.join(self.predictors)}) estimates y only")
+            frame = multi_fit_from_dict(d).predict(
+                x, correction=correction or self.correction, interval=interval).to_frame()
+            frame.insert(0, "group", "" if group is None else group)
+            return frame
         if inverse:
             frame = inverse_predict(fit_from_dict(d), x, interval=interval).to_frame()
         else:
@@ -202,11 +226,32 @@ def _table_from_file(path: Path, column: str, flag: str) -> tuple:
     return _numbers(values, str(path)), table.drop(columns=[column]).reset_index(drop=True)
 
 
+def _predictors_from_file(path: Path, names) -> tuple:
+    """(DataFrame of the predictor columns, the file's other columns as text)."""
+    values = {}
+    ids = None
+    for name in names:
+        values[name], rest = _table_from_file(path, name, "--from")
+        ids = rest if ids is None else ids
+    ids = ids.drop(columns=[c for c in names if c in ids.columns])
+    return pd.DataFrame(values), ids
+
+
 def predict_command(args) -> int:
     """``scaling predict``: print a table and write it to a CSV file."""
     saved = load_results(args.results)
     ids = None
-    if args.x:
+    names = saved.predictors
+    if names and args.inverse:
+        raise ConfigError(f"--inverse: the run in {saved.folder} has several predictors "
+                          f"({', '.join(names)}); it estimates y only")
+    if names and args.x:
+        raise ConfigError(f"--x: the run in {saved.folder} has {len(names)} predictors "
+                          f"({', '.join(names)}); give their values as columns of a CSV "
+                          "with --from")
+    if names:
+        values, ids = _predictors_from_file(Path(args.from_file), names)
+    elif args.x:
         values = _numbers(args.x, "--x")
     else:
         column = saved.y_name if args.inverse else saved.x_name
@@ -228,8 +273,13 @@ def predict_command(args) -> int:
         frame = saved.predict(values, method=method, group=args.group,
                               correction=args.correction, interval=args.interval,
                               inverse=args.inverse)
-    frame = _with_names(frame, saved, ids, inverse=args.inverse,
-                        method=method, group=args.group)
+    if names:   # ID columns of the --from file first, as in the run's predictions.csv
+        frame = frame.drop(columns="group") if args.group is None else frame
+        if ids is not None and len(ids.columns):
+            frame = pd.concat([ids.reset_index(drop=True), frame], axis=1)
+    else:
+        frame = _with_names(frame, saved, ids, inverse=args.inverse,
+                            method=method, group=args.group)
     frame.to_csv(out, index=False, lineterminator="\n")
     shown = frame.copy()
     print(shown.to_string(index=False, float_format=lambda v: f"{v:.4g}"))

@@ -422,3 +422,32 @@ class TestToFrameAndSummary:
         assert fit.b == {"diameter": pytest.approx(1.98265, abs=1e-5),
                          "height": pytest.approx(1.11712, abs=1e-5)}  # statsmodels (reference)
         assert isinstance(fit, MultiFit) and fit.k == 2
+
+
+class TestSavedMultiFit:
+    def test_round_trip_predicts_the_same_to_the_last_bit(self):
+        # internal consistency: the JSON form keeps every number prediction reads
+        import json
+        from scaling.multi import multi_fit_from_dict, multi_fit_to_dict
+        rng = np.random.default_rng(11)   # simulation with a known truth: y = 0.05 d^2 h
+        d, h = 10 ** rng.uniform(1, 2, 40), 10 ** rng.uniform(0.5, 1.5, 40)
+        fit = fit_multi({"d": d, "h": h}, 0.05 * d ** 2 * h * 10 ** rng.normal(0, 0.05, 40))
+        back = multi_fit_from_dict(json.loads(json.dumps(multi_fit_to_dict(fit))))
+        new = {"d": [5.0, 20.0, 300.0], "h": [2.0, 10.0, 40.0]}
+        for interval in ("prediction", "confidence"):
+            for correction in ("smearing", "parametric", "ratio", "none"):
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    a = fit.predict(new, correction=correction, interval=interval)
+                    b = back.predict(new, correction=correction, interval=interval)
+                for name in ("y", "y_low", "y_high", "leverage"):
+                    assert np.array_equal(getattr(a, name), getattr(b, name)), name
+                assert np.array_equal(a.extrapolated, b.extrapolated)
+                assert np.array_equal(a.outside_data, b.outside_data)
+
+    def test_bad_saved_dicts_are_clear_errors(self):
+        from scaling.multi import MULTI_DICT_FORMAT, multi_fit_from_dict
+        with pytest.raises(DataError, match="must be a dict of format 'scaling.multifit/1'"):
+            multi_fit_from_dict({"format": "scaling.linefit/1"})
+        with pytest.raises(DataError, match="lacks key\\(s\\): predictors, n, slopes"):
+            multi_fit_from_dict({"format": MULTI_DICT_FORMAT})

@@ -1,6 +1,8 @@
 """Saved fits: `scaling predict` and `scaling.load_results` reproduce the run."""
 from __future__ import annotations
 
+import math
+
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
@@ -119,3 +121,60 @@ class TestPredictCommand:
         out = capsys.readouterr().out
         assert code == 0 and "outside the fitted range" in out
         assert pd.read_csv(tmp_path / "p.csv")["extrapolated"].all()
+
+
+@pytest.fixture(scope="module")
+def forestry_out(tmp_path_factory):
+    """The forestry example (two predictors: diameter and height; invented data whose
+    truth demo_data/make_forestry.py states), run once for these tests."""
+    from conftest import ROOT
+    out = tmp_path_factory.mktemp("forestry") / "out"
+    assert main(["run", str(ROOT / "configs" / "forestry.yaml"), "--out", str(out),
+                 "--quiet"]) == 0
+    return out
+
+
+class TestSeveralPredictors:
+    def test_predict_from_file_reproduces_the_runs_predictions(self, forestry_out, tmp_path,
+                                                               monkeypatch):
+        # internal consistency: the same saved coefficients, covariance and smearing
+        # factor give the run's predictions.csv byte for byte (IDs first, flags included)
+        from conftest import ROOT
+        monkeypatch.chdir(tmp_path)
+        plot = ROOT / "demo_data" / "forest_plot.csv"
+        assert main(["predict", str(forestry_out), "--from", str(plot), "--out", "p.csv"]) == 0
+        assert (tmp_path / "p.csv").read_bytes() == (forestry_out / "predictions.csv").read_bytes()
+
+    def test_python_api_names_the_predictors(self, forestry_out):
+        saved = scaling.load_results(forestry_out)
+        assert saved.predictors == ("diameter_cm", "height_m")
+        frame = saved.predict({"diameter_cm": [30.0], "height_m": [25.0]})
+        # exact law of the fitted model: y = smearing factor x 10^(a + b1 log D + b2 log H)
+        fit = saved.fit()
+        expected = fit.factors["smearing"] * 10 ** (
+            fit.intercept + fit.slopes[0] * math.log10(30.0) + fit.slopes[1] * math.log10(25.0))
+        assert_allclose(frame["y"], [expected], rtol=1e-12)
+
+    def test_one_value_or_an_inverse_is_refused_with_the_predictor_names(self, forestry_out,
+                                                                         capsys):
+        assert main(["predict", str(forestry_out), "--x", "30"]) == 2
+        err = capsys.readouterr().err
+        assert err.startswith("error: --x: the run in ") and "2 predictors (diameter_cm, " \
+            "height_m); give their values as columns of a CSV with --from" in err
+        assert main(["predict", str(forestry_out), "--x", "0.5", "--inverse"]) == 2
+        assert "it estimates y only" in capsys.readouterr().err
+
+    def test_missing_predictor_column_names_the_file_and_column(self, forestry_out, tmp_path,
+                                                                capsys):
+        (tmp_path / "new.csv").write_text("tree,diameter_cm\nA,30\n")
+        assert main(["predict", str(forestry_out), "--from", str(tmp_path / "new.csv"),
+                     "--out", str(tmp_path / "p.csv")]) == 2
+        err = capsys.readouterr().err.strip()
+        assert err.startswith(f"error: {tmp_path / 'new.csv'}: no column 'height_m'")
+        assert not (tmp_path / "p.csv").exists()
+
+    def test_a_fit_read_back_predicts_but_refuses_a_total(self, forestry_out):
+        from scaling.errors import DataError
+        fit = scaling.load_results(forestry_out).fit()
+        with pytest.raises(DataError, match="without its residuals"):
+            fit.predict_total({"diameter_cm": [30.0], "height_m": [25.0]})
