@@ -24,7 +24,7 @@ from .lines import fit_from_dict
 from .multi import MULTI_DICT_FORMAT, multi_fit_from_dict
 from .predict import CORRECTIONS, Prediction, inverse_predict, predict, saved_factor
 from .schema import check_choice as _check_choice
-from .wording import dose_caution, medians_vs_means
+from .wording import dose_caution, medians_vs_means, units_line
 from .predicting import range_ratio
 
 __all__ = ["SavedResults", "load_results", "predict_command", "predict_from_dict"]
@@ -290,6 +290,11 @@ def predict_command(args) -> int:
         if issubclass(w.category, DegenerateDataWarning):
             print(f"warning: {w.message}" + ("; x_low and x_high are blank"
                                              if "unbounded" in str(w.message) else ""))
+    summary = saved.document.get("data_summary") or {}
+    units = summary.get("units") or {}
+    line = units_line(summary.get("x"), units.get("x"), saved.y_name, units.get("y"))
+    if line:
+        print(line)
     print(medians_vs_means())
     print(dose_caution())
     print(f"wrote {out}")

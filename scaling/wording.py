@@ -20,7 +20,7 @@ __all__ = [
     "influence_reason", "smearing_reason", "estimate_outside_reason",
     "group_residuals_reason", "range_words", "range_warning", "medians_vs_means",
     "dose_caution", "mechanism_caution", "ancestry_caution", "curvature_ok",
-    "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "CAUTION",
+    "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "CAUTION",
     "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
     "p_text", "format_p", "scope_words", "read_message", "dropped_note",
     "pooled_fit_messages", "uncompared_message", "pairwise_skipped_note",
@@ -548,6 +548,26 @@ def predicted_unit(average_within: str | None, y_name: str) -> str:
                 f"{y_name} over a {average_within}), not for an individual: individuals "
                 "scatter more widely.")
     return f"Each prediction is for one new row of the kind in the data ({y_name})."
+
+
+def units_line(x_names, x_units, y_name: str, y_unit) -> str:
+    """The units of a prediction table, or "" when none are known.
+
+    Examples
+    --------
+    >>> units_line(["diameter_cm", "height_m"], ["cm", "m"], "biomass_kg", "t")
+    'Units: diameter_cm in cm, height_m in m; y (biomass_kg) in t.'
+    """
+    names = [x_names] if isinstance(x_names, str) else list(x_names or [])
+    units = [x_units] if isinstance(x_units, str) else list(x_units or [])
+    parts = [f"{n} in {u}" for n, u in zip(names, units) if u]
+    if y_unit:
+        parts.append(f"y ({y_name}) in {y_unit}" if y_name else f"y in {y_unit}")
+    if not parts:
+        return ""
+    x_part = ", ".join(p for p in parts if not p.startswith("y"))
+    y_part = next((p for p in parts if p.startswith("y")), "")
+    return "Units: " + "; ".join(p for p in (x_part, y_part) if p) + "."
 
 
 def clean_timestamp(iso: str) -> str:

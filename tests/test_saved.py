@@ -136,7 +136,7 @@ def forestry_out(tmp_path_factory):
 
 class TestSeveralPredictors:
     def test_predict_from_file_reproduces_the_runs_predictions(self, forestry_out, tmp_path,
-                                                               monkeypatch):
+                                                               monkeypatch, capsys):
         # internal consistency: the same saved coefficients, covariance and smearing
         # factor give the run's predictions.csv byte for byte (IDs first, flags included)
         from conftest import ROOT
@@ -144,6 +144,9 @@ class TestSeveralPredictors:
         plot = ROOT / "demo_data" / "forest_plot.csv"
         assert main(["predict", str(forestry_out), "--from", str(plot), "--out", "p.csv"]) == 0
         assert (tmp_path / "p.csv").read_bytes() == (forestry_out / "predictions.csv").read_bytes()
+        # the units the run fitted in (model.units.y: t), said once under the table
+        assert "Units: diameter_cm in cm, height_m in m; y (biomass_kg) in t." in \
+            capsys.readouterr().out
 
     def test_python_api_names_the_predictors(self, forestry_out):
         saved = scaling.load_results(forestry_out)
