@@ -302,34 +302,37 @@ def _scatter_groups(ax, pts, groups: list, **kwargs) -> None:
 
 def _scatter_coded(ax, x, y, codes, n_groups: int, **kwargs) -> None:
     """Scatter with group ``codes``: one artist per group present, or, above
-    :data:`LEGEND_MAX_GROUPS` groups, one per marker with colours per point
-    (a few artists instead of thousands)."""
+    :data:`LEGEND_MAX_GROUPS` groups, one artist with a colour per point, drawn in a
+    seeded random order (so no group's colour always lies on top)."""
+    x, y, codes = np.asarray(x), np.asarray(y), np.asarray(codes)
     n_all = len(x)
     if n_all > MAX_DRAWN_POINTS:   # drawing cost grows with points: a stated subsample
         keep = np.sort(np.random.default_rng(0).choice(n_all, MAX_DRAWN_POINTS,
                                                        replace=False))
-        x, y, codes = np.asarray(x)[keep], np.asarray(y)[keep], np.asarray(codes)[keep]
-        ax.text(0.99, 0.01, f"{_group_digits(str(MAX_DRAWN_POINTS))} of "
-                f"{_group_digits(str(n_all))} points drawn (random subset); all are fitted",
-                transform=ax.transAxes, ha="right", va="bottom", fontsize=5.5,
-                color="#555555", zorder=9)
+        x, y, codes = x[keep], y[keep], codes[keep]
+        note = ax.text(0.99, 0.01, f"{_group_digits(str(MAX_DRAWN_POINTS))} of "
+                       f"{_group_digits(str(n_all))} points\nshown; all are fitted",
+                       transform=ax.transAxes, ha="right", va="bottom", fontsize=5.5,
+                       color="#555555", zorder=9, linespacing=1.1,
+                       bbox=dict(boxstyle="square,pad=0.15", facecolor="white", alpha=0.75,
+                                 edgecolor="none"))
+        note.set_in_layout(False)   # a note inside the axes must not squeeze the layout
     if n_groups <= LEGEND_MAX_GROUPS:
         for c in np.unique(codes):
             colour, marker = _group_style(int(c))
             sel = codes == c
             ax.scatter(x[sel], y[sel], marker=marker, facecolor=colour, **kwargs)
         return
-    colours = np.asarray(PALETTE, dtype=object)[codes % len(PALETTE)]
-    for k, marker in enumerate(MARKERS):
-        sel = codes % len(MARKERS) == k
-        if np.any(sel):
-            ax.scatter(x[sel], y[sel], marker=marker, facecolor=list(colours[sel]), **kwargs)
+    order = np.random.default_rng(1).permutation(len(x))
+    colours = np.asarray(PALETTE, dtype=object)[codes[order] % len(PALETTE)]
+    ax.scatter(x[order], y[order], marker="o", facecolor=list(colours), **kwargs)
 
 
 def _many_groups_handle(n_groups: int):
     """The one legend entry standing for groups too many to list."""
     return Line2D([], [], ls="none", marker="o", color="#888888", markersize=4,
-                  label=f"{n_groups} groups (colours cycle; too many to list)")
+                  label=f"{_group_digits(str(n_groups))} groups (colours cycle; too many "
+                        "to list)")
 
 
 def _methods(result, methods) -> list:

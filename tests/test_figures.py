@@ -511,3 +511,29 @@ class TestReadableFigures:
         ax = plot_scaling(grouped)
         texts = [t.get_text() for lg in ax.figure.legends for t in lg.get_texts()]
         assert "SMA common slope in each clade" in texts and "SMA (all clades)" in texts
+
+
+class TestManyGroupsFigures:
+    def test_residuals_of_many_groups_keep_their_layout(self, tmp_path):
+        # exact geometry of the drawn figure: with 20 groups of 300 points (6 000 > 5 000
+        # drawn) the subset note stays inside its panel and the layout does not collapse
+        # (it did when the note took part in the layout: matplotlib warned and the
+        # panels shrank to slivers)
+        from helpers_figures import simulated
+        from scaling.figures import MAX_DRAWN_POINTS, make_figure
+        result = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(20)], n=300, seed=4)
+        assert len(result.data.points) > MAX_DRAWN_POINTS
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", UserWarning)   # "constrained_layout not applied"
+            fig = make_figure(result, "residuals")
+            fig.draw_without_rendering()
+        w = fig.bbox.width
+        notes = [(t, ax) for ax in fig.axes for t in ax.texts if "points\nshown" in t.get_text()]
+        assert len(notes) == len(fig.axes)
+        for text, ax in notes:
+            box, panel = text.get_window_extent(), ax.get_window_extent()
+            assert panel.width > 0.25 * w
+            assert box.x0 >= panel.x0 - 1 and box.x1 <= panel.x1 + 1
+        assert "5\u2009000 of 6\u2009000 points" in notes[0][0].get_text()
+        legend = [t.get_text() for lg in fig.legends for t in lg.get_texts()]
+        assert legend == ["20 groups (colours cycle; too many to list)"]
