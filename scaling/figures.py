@@ -626,15 +626,14 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                     ax.scatter(mx[j:j + 1], my[j:j + 1], s=42, marker=marker,
                                facecolor=colour, edgecolor="black", linewidth=0.8, zorder=6)
             elif idx.size:
+                # many groups: small symbols, one artist, a seeded random drawing order
+                # (large symbols of hundreds of means would hide the data and each other)
                 ax.errorbar(mx, my, xerr=xerr, yerr=yerr, fmt="none", ecolor="black",
-                            elinewidth=0.7, capsize=1.5, capthick=0.6, zorder=5)
-                colours = np.asarray(PALETTE, dtype=object)[idx % len(PALETTE)]
-                for k, marker in enumerate(MARKERS):
-                    sel = idx % len(MARKERS) == k
-                    if np.any(sel):
-                        ax.scatter(mx[sel], my[sel], s=42, marker=marker,
-                                   facecolor=list(colours[sel]), edgecolor="black",
-                                   linewidth=0.8, zorder=6)
+                            elinewidth=0.4, capsize=0, zorder=5, alpha=0.6)
+                order = np.random.default_rng(2).permutation(idx.size)
+                colours = np.asarray(PALETTE, dtype=object)[idx[order] % len(PALETTE)]
+                ax.scatter(mx[order], my[order], s=14, marker="o", facecolor=list(colours),
+                           edgecolor="black", linewidth=0.5, zorder=6)
             handles.append(Line2D([], [], ls="none", marker="o", markerfacecolor="white",
                                   markeredgecolor="black", markersize=6,
                                   label="group mean ± 1 SE"))
