@@ -43,7 +43,7 @@ from .errors import ConfigError, FigureWarning, ScalingError
 from .lines import ConfidenceInterval, parse_log_base, to_log
 from .predict import log_interval, predict, saved_factor
 from .schema import CATALOGUE, FIGURE_KINDS, method_label
-from .wording import exponent_label
+from .wording import exponent_label, plural as plural_of
 from .checking import primary_method
 from .groups import common_slope
 
@@ -585,7 +585,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     methods = _methods(result, methods)
     groups = _groups(result)
     group_word = str(result.config.data.group or "group")
-    plural = group_word if group_word.endswith("s") else f"{group_word}s"
+    plural = plural_of(group_word)
     handles: list = []
     gm = None
     xs_all, ys_all = [pts["x"].to_numpy()], [pts["y"].to_numpy()]
@@ -1104,7 +1104,7 @@ def _exponent_rows(result, methods) -> list:
     keys = result.line_fits.keys()
     groups = _groups(result)
     word = str(result.config.data.group or "group")
-    plural = word if word.endswith("s") else f"{word}s"
+    plural = plural_of(word)
     if any(k[0] == "pooled" for k in keys):
         rows.append(("Pooled" if not groups else f"Pooled (all {plural})", "pooled", ""))
     if len(groups) <= LEGEND_MAX_GROUPS:   # above: no row per group (see plot_exponents)

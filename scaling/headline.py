@@ -23,7 +23,7 @@ Which line answers the question
 * Slopes differ: no single exponent; a per-group verdict table
   (``group_table``).
 
-Verdicts use :func:`scaling.lines.verdict_phrase` at alpha = 1 - confidence.
+Verdicts use :func:`scaling.wording.verdict_phrase` at alpha = 1 - confidence.
 """
 
 from __future__ import annotations
@@ -34,7 +34,8 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import pandas as pd
 
-from .lines import format_p, method_label, verdict_phrase
+from .schema import method_label
+from .wording import format_p, plural as plural_of, verdict_phrase
 
 __all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
            "headline_of", "exponent_words"]
@@ -256,7 +257,7 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     compared = list(dict.fromkeys(group_tests["method"])) if usable else []
     read = lead if lead in compared else next(
         (m for m in ("sma", "ma", "ols") if m in compared), None)
-    plural = f"{group_word}s" if not group_word.endswith("s") else group_word
+    plural = plural_of(group_word)
 
     if read is None and "term" in fits.columns and \
             fits["term"].fillna("").astype(str).ne("").any():
@@ -295,7 +296,7 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
         rows = []
         index = _test_index(slope_tests)
         for r in gfits.itertuples(index=False):
-            rec = {plural[:-1] if plural.endswith("s") else group_word: r.group,
+            rec = {group_word: r.group,
                    "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
             for t in index.get(("group", lead, str(r.group)), ()):
                 rec[f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"] = \

@@ -20,7 +20,7 @@ __all__ = [
     "influence_reason", "smearing_reason", "estimate_outside_reason",
     "group_residuals_reason", "range_words", "range_warning", "medians_vs_means",
     "dose_caution", "mechanism_caution", "ancestry_caution", "curvature_ok",
-    "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "CAUTION",
+    "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "plural", "CAUTION",
     "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
     "p_text", "format_p", "scope_words", "read_message", "dropped_note",
     "pooled_fit_messages", "uncompared_message", "pairwise_skipped_note",
@@ -548,6 +548,36 @@ def predicted_unit(average_within: str | None, y_name: str) -> str:
                 f"{y_name} over a {average_within}), not for an individual: individuals "
                 "scatter more widely.")
     return f"Each prediction is for one new row of the kind in the data ({y_name})."
+
+
+#: Plurals of the group words biologists use that an "s" would get wrong.
+_IRREGULAR_PLURALS = {"genus": "genera", "taxon": "taxa", "phylum": "phyla",
+                      "species": "species", "subspecies": "subspecies", "series": "series",
+                      "family": "families", "subfamily": "subfamilies", "class": "classes",
+                      "subclass": "subclasses", "locus": "loci", "stratum": "strata",
+                      "datum": "data", "criterion": "criteria", "fungus": "fungi",
+                      "individual": "individuals", "sex": "sexes", "mouse": "mice",
+                      "fish": "fish", "sheep": "sheep", "deer": "deer"}
+
+
+def plural(word: str) -> str:
+    """English plural of a group word, for sentences ("clade" -> "clades").
+
+    Examples
+    --------
+    >>> [plural(w) for w in ("clade", "genus", "family", "Taxon", "species", "stock", "box")]
+    ['clades', 'genera', 'families', 'Taxa', 'species', 'stocks', 'boxes']
+    """
+    text = str(word)
+    low = text.lower()
+    if low in _IRREGULAR_PLURALS:
+        out = _IRREGULAR_PLURALS[low]
+        return out[0].upper() + out[1:] if text[:1].isupper() else out
+    if low.endswith(("s", "x", "z", "ch", "sh")):
+        return text + "es"
+    if low.endswith("y") and len(low) > 1 and low[-2] not in "aeiou":
+        return text[:-1] + "ies"
+    return text + "s"
 
 
 def units_line(x_names, x_units, y_name: str, y_unit) -> str:

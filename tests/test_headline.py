@@ -101,18 +101,19 @@ class TestBuildHeadline:
         assert common["slope_low"] <= 0.75 <= common["slope_high"]   # known truth 0.75
         assert pooled["slope"] < common["slope_low"]                 # the pooled line is biased
         s1, s2, s3 = head.sentences
-        assert s1.startswith(f"Within taxons, the common SMA exponent is {common['slope']:.3f} "
+        assert s1.startswith(f"Within taxa, the common SMA exponent is {common['slope']:.3f} "
                              f"(95% CI {common['slope_low']:.3f}–{common['slope_high']:.3f}")
         assert re.search(VERDICT + r" 3/4", s2) and re.search(VERDICT + r" 2/3", s2)
         assert "differ in elevation" in s3
-        assert "mixes taxons and understates the within-taxon exponent" in s3
+        # English plural of the group column "taxon" (wording.plural), not "taxons"
+        assert "mixes taxa and understates the within-taxon exponent" in s3
 
     def test_slopes_that_differ_give_a_per_group_table(self, tmp_path):
         # known truth: slopes 0.5, 0.75 and 1.0
         table = _groups(3, [0.5, 0.75, 1.0], [1.0, 1.0, 1.0], [0.0, 0.0, 0.0])
         head = headline_of(_run(tmp_path, table))
         assert head.line == "groups"
-        assert head.sentences[0].startswith("The taxons do not share one exponent")
+        assert head.sentences[0].startswith("The taxa do not share one exponent")
         assert len(head.sentences) <= 3
         g = head.group_table
         assert list(g["taxon"]) == ["t0", "t1", "t2"]
