@@ -64,6 +64,7 @@ def data_files(tmp_path_factory):
 
 
 def _same_fits(a: pd.DataFrame, b: pd.DataFrame) -> None:
+    # internal consistency: the same fits, in the same order, on both paths
     assert list(a[["scope", "group", "method"]].itertuples(index=False)) == \
         list(b[["scope", "group", "method"]].itertuples(index=False))
     for col in NUMERIC:
@@ -163,13 +164,15 @@ class TestUseMomentsPath:
 class TestSpreadStage:
     def test_appears_above_spread_min_and_matches_spread_from_fits(self, data_files):
         tmp, csv, _, ordinary = data_files
-        assert "exponent_spread" in ordinary.tables        # 25 groups > default 20
+        # exact by construction: the table has 25 groups, above the default spread_min 20
+        assert "exponent_spread" in ordinary.tables
         s = ordinary.tables["exponent_spread"].set_index("method")
         ref = spread_from_fits(ordinary.fits, "sma", exponents={"three_quarters": 0.75})
         # internal consistency: the stage is spread_from_fits on the run's fits
         assert s.loc["sma", "mean"] == pytest.approx(ref.mean, rel=1e-12)
         assert s.loc["sma", "tau"] == pytest.approx(ref.tau, rel=1e-12, abs=1e-15)
         tests = ordinary.tables["exponent_spread_tests"]
+        # exact: one row set per method of the config (ols, sma, ma); 25 groups as built
         assert set(tests["method"]) == {"ols", "sma", "ma"}
         assert any(m.startswith("Across 25 groups (taxon) the mean SMA exponent")
                    for m in ordinary.messages)
@@ -195,6 +198,8 @@ class TestBoundedDiagnostics:
         sets = {("pooled", ""): 1, ("group", "a"): 2, ("group", "b"): 3, ("group", "c"): 4,
                 ("group", "d"): 5}
         f, s, note = bounded_diagnostics(fits, sets, cfg)
+        # exact by construction: 4 groups > diagnostics_max 3 keep only the pooled entries;
+        # 2 groups (the first three sets) are within the limit and keep everything
         assert list(f) == [("pooled", "", "ols")] and list(s) == [("pooled", "")]
         assert "Per-group diagnostics skipped" in note[0]
         assert bounded_diagnostics(fits, dict(list(sets.items())[:3]), cfg)[2] == []
@@ -227,7 +232,8 @@ class TestManyGroupsRun:
         res = write_outputs(_run(cfg), tmp_path / "out")
         html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
         md = (tmp_path / "out" / "summary.md").read_text(encoding="utf-8")
-        n_fits = 3 * (1 + G + 1)                             # pooled, groups, group means
+        # exact by construction: 3 methods x (pooled + G groups + line through the means)
+        n_fits = 3 * (1 + G + 1)
         assert len(pd.read_csv(tmp_path / "out" / "fits.csv")) == n_fits
         # bounded: the fits table shows the first TABLE_MAX_ROWS rows and says where the rest are
         assert "every fit is in fits.csv" in md
