@@ -210,6 +210,24 @@ def _matches(raw_text: pd.Series, targets) -> np.ndarray:
     return hit
 
 
+def _blank_and_excluded(table, keep, reasons, cfg, path):
+    """Note blank lines and rows matched by ``data.exclude`` in ``reasons``; warn about
+    exclude values that match nothing.  Returns the mask of rows still active."""
+    all_text = table.apply(_as_text) if len(table.columns) else table
+    blank = (all_text == "").all(axis=1).to_numpy() if len(table) else np.zeros(0, bool)
+    for i in np.flatnonzero(blank & keep):
+        reasons[i].append("blank line")
+    active = keep & ~blank
+    for column, values in cfg.exclude.items():
+        text = _as_text(table[column])
+        hit = _matches(text, values)
+        for i in np.flatnonzero(hit & active):
+            reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
+        _warn_unmatched(column, values, text[keep & ~blank], path)
+    excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
+    return active & ~excluded
+
+
 def _dropped_and_used(reasons, rows, keep, n_read: int, path):
     """The dropped-rows table (row, reasons joined by "; ") and the mask of rows used.
 
@@ -260,25 +278,7 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         _column(table, column, f"data.exclude.{column}", path)
 
     reasons = [[] for _ in range(len(table))]
-
-    def add(mask, text_for):
-        for i in np.flatnonzero(mask & keep):
-            reasons[i].append(text_for(i))
-
-    all_text = table.apply(_as_text) if len(table.columns) else table
-    blank = (all_text == "").all(axis=1).to_numpy() if len(table) else np.zeros(0, bool)
-    add(blank, lambda i: "blank line")
-    active = keep & ~blank
-
-    for column, values in cfg.exclude.items():
-        text = _as_text(table[column])
-        hit = _matches(text, values)
-        for i in np.flatnonzero(hit & active):
-            reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
-        _warn_unmatched(column, values, text[keep & ~blank], path)
-
-    excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
-    active = active & ~excluded
+    active = _blank_and_excluded(table, keep, reasons, cfg, path)
 
     if g_col is not None:
         g_text = _as_text(g_col).to_numpy()
@@ -418,19 +418,7 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
     reasons = [[] for _ in range(len(table))]
-    all_text = table.apply(_as_text) if len(table.columns) else table
-    blank = (all_text == "").all(axis=1).to_numpy() if len(table) else np.zeros(0, bool)
-    for i in np.flatnonzero(blank & keep):
-        reasons[i].append("blank line")
-    active = keep & ~blank
-    for column, values in cfg.exclude.items():
-        text = _as_text(table[column])
-        hit = _matches(text, values)
-        for i in np.flatnonzero(hit & active):
-            reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
-        _warn_unmatched(column, values, text[keep & ~blank], path)
-    excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
-    active = active & ~excluded
+    active = _blank_and_excluded(table, keep, reasons, cfg, path)
     parsed = [("x", name, *_parse_numbers(col, cfg.decimal)) for name, col in zip(xs, x_cols)]
     parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal)))
     for role, column, _, prob, raw in parsed:
