@@ -191,18 +191,17 @@ def prediction_stage(line_fits: dict, saved: dict, cfg):
                 if not np.all(q.bounded):
                     unbounded.append(scope_words(scope, group) + " " + method_label(method))
     tables = {}
-    if pc.x:
-        table = pd.concat(rows, ignore_index=True)[PREDICTION_COLUMNS[:-1]] if rows else \
-            pd.DataFrame(columns=PREDICTION_COLUMNS[:-1])   # range_ratio added below
-        table, range_notes = add_range_ratio(table, saved, "x")
-        tables["predictions"] = table
+    for wanted, parts, columns, role, name in (
+            (pc.x, rows, PREDICTION_COLUMNS, "x", "predictions"),
+            (pc.y, inv_rows, INVERSE_COLUMNS, "y", "inverse_predictions")):
+        if not wanted:
+            continue
+        keep = columns[:-1]   # range_ratio, the last column, is added here
+        table = pd.concat(parts, ignore_index=True)[keep] if parts else \
+            pd.DataFrame(columns=keep)
+        table, range_notes = add_range_ratio(table, saved, role)
+        tables[name] = table
         notes += range_notes
-    if pc.y:
-        table = pd.concat(inv_rows, ignore_index=True)[INVERSE_COLUMNS[:-1]] if inv_rows else \
-            pd.DataFrame(columns=INVERSE_COLUMNS[:-1])   # range_ratio added below
-        table, range_notes = add_range_ratio(table, saved, "y")
-        tables["inverse_predictions"] = table
-        notes += range_notes
-        if unbounded:
-            notes.append(unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
+    if pc.y and unbounded:
+        notes.append(unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
     return tables, notes
