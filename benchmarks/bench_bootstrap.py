@@ -2,7 +2,7 @@
 
 Compares, in one run and on the same data:
 
-* ours     -- scaling.resample.bootstrap_lines(..., draws="fast"): 16-bit
+* ours     -- scaling.stats.resampling.bootstrap_lines(..., draws="fast"): 16-bit
               index draws in blocks alternating between two random streams,
               worked on by two threads when the machine has two CPUs ->
               count matrix -> weighted moments -> SMA slope; it also
@@ -36,8 +36,8 @@ import tracemalloc
 import numpy as np
 from scipy import stats
 
-import scaling.resample as resample
-from scaling.resample import bootstrap_lines
+import scaling.stats.resampling as resample
+from scaling.stats.resampling import bootstrap_lines
 
 N = 1_000
 B = 10_000

@@ -34,8 +34,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from scaling.config import config_from_dict
-from scaling.pipeline import analyse, write_outputs
+from scaling.io.config import config_from_dict
+from scaling.run.pipeline import analyse, write_outputs
 
 SEED = 20240917
 

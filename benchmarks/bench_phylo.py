@@ -1,4 +1,4 @@
-"""Speed and memory of the phylogenetic lambda fit (scaling.phylo).
+"""Speed and memory of the phylogenetic lambda fit (scaling.stats.phylogeny).
 
 Random trees (random joins of lineages, exponential branch lengths, so
 not ultrametric) of 1 000, 10 000 and 100 000 tips with traits simulated
@@ -30,8 +30,8 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
 
-from scaling.newick import parse_newick  # noqa: E402
-from scaling.phylo import fit_phylo  # noqa: E402
+from scaling.stats.newick import parse_newick  # noqa: E402
+from scaling.stats.phylogeny import fit_phylo  # noqa: E402
 
 
 def random_tree_newick(n: int, rng) -> str:
@@ -49,7 +49,7 @@ def random_tree_newick(n: int, rng) -> str:
 
 def simulate(tree, lam: float, rng):
     """Brownian X and Y (correlation 0.6, slope 0.75) under Pagel's lambda, one pass."""
-    from scaling.phylo import pagel_lambda
+    from scaling.stats.phylogeny import pagel_lambda
     t = pagel_lambda(tree, lam)
     n = t.n_nodes
     sd = np.sqrt(t.length)
@@ -107,7 +107,7 @@ def main(argv=None):
         big = max(args.sizes)
         text = random_tree_newick(big, np.random.default_rng(1))
         _, t_own, _ = timed(lambda: parse_newick(text))
-        print(f"readers on {big} tips: scaling.newick {t_own:.2f} s")
+        print(f"readers on {big} tips: scaling.stats.newick {t_own:.2f} s")
         for name, load in (("treeswift", lambda: __import__("treeswift").read_tree_newick(text)),
                            ("dendropy", lambda: __import__("dendropy").Tree.get(
                                data=text, schema="newick")),

@@ -14,7 +14,7 @@ Measured:
 * ``scaling run configs/demo.yaml``  (target < 4 s on 2 cores), with the
   demo's figures (png + pdf), with ``figures.kinds: []``, and with the
   figures drawn in the calling process (``SCALING_ONE_PROCESS=1``: no
-  forked figure worker; the baseline for :mod:`scaling.figure_worker`).
+  forked figure worker; the baseline for :mod:`scaling.render.figure_worker`).
 
 Printed: median seconds, min-max, and the ratio to each baseline, then
 whether the targets are met.
@@ -89,7 +89,7 @@ def main(repeats: int = 5) -> None:
             "import numpy, pandas": [PY, "-c", "import numpy, pandas"],
             "scaling --version": [*SCALING, "--version"],
             "import scaling": [PY, "-c", "import scaling"],
-            "import scaling.pipeline": [PY, "-c", "import scaling.pipeline"],
+            "import scaling.run.pipeline": [PY, "-c", "import scaling.run.pipeline"],
         }
         for figures in (False, True):
             cfg = _demo_config(tmp, figures)

@@ -1,7 +1,7 @@
 """scaling: allometric power laws y = a x^b, fitted on log-log scales.
 
 The public names are imported lazily (PEP 562): ``import scaling`` loads only
-this file and ``_version``, and ``scaling.fit_line`` imports ``scaling.lines``
+this file and ``_version``, and ``scaling.fit_line`` imports ``scaling.api``
 on first use.  ``scaling --version`` and the CLI's start-up therefore do not
 pay for numpy, scipy, pandas, statsmodels or matplotlib.  To add a public
 name, add one ``"name": "module"`` entry to :data:`_EXPORTS`.
@@ -9,8 +9,6 @@ name, add one ``"name": "module"`` entry to :data:`_EXPORTS`.
 from __future__ import annotations
 
 import importlib
-import sys
-import types
 
 from ._version import __version__
 
@@ -21,22 +19,24 @@ _EXPORTS: dict[str, str] = {
     "OutputError": "errors", "ScalingWarning": "errors", "DegenerateDataWarning": "errors",
     "ExtrapolationWarning": "errors", "DataWarning": "errors", "FigureWarning": "errors",
     # lines
-    "fit_line": "api", "fit_groups": "api", "LineFit": "lines", "SlopeTest": "lines",
-    "ConfidenceInterval": "lines",
+    "fit_line": "api", "fit_groups": "api", "LineFit": "stats.lines", "SlopeTest": "stats.lines",
+    "ConfidenceInterval": "stats.lines",
     # groups
-    "compare_groups": "groups", "group_means": "groups", "fit_group_means": "groups",
-    "GroupComparison": "groups",
+    "compare_groups": "stats.groups", "group_means": "stats.groups",
+    "fit_group_means": "stats.groups", "GroupComparison": "stats.groups",
     # moments, several predictors
-    "Moments": "moments",
-    "fit_multi": "multi", "MultiFit": "multi",
+    "Moments": "stats.moments",
+    "fit_multi": "stats.several_predictors", "MultiFit": "stats.several_predictors",
     # phylogeny, many groups
-    "fit_phylo": "phylo", "PhyloFit": "phylo", "read_newick": "newick",
-    "exponent_spread": "spread", "ExponentSpread": "spread",
+    "fit_phylo": "stats.phylogeny", "PhyloFit": "stats.phylogeny",
+    "read_newick": "stats.newick",
+    "exponent_spread": "stats.spread", "ExponentSpread": "stats.spread",
     # runs and saved results
-    "run_config": "pipeline", "RunResult": "pipeline",
-    "load_results": "saved",
+    "run_config": "run.pipeline", "RunResult": "run.pipeline",
+    "load_results": "io.saved",
     # prediction
-    "predict": "predict", "inverse_predict": "predict", "accuracy": "predict",
+    "predict": "stats.predictions", "inverse_predict": "stats.predictions",
+    "accuracy": "stats.predictions",
 }
 
 __all__ = ["__version__", *_EXPORTS]
@@ -45,7 +45,7 @@ __all__ = ["__version__", *_EXPORTS]
 def __getattr__(name: str):
     module = _EXPORTS.get(name)
     if module is None:
-        # Submodules stay reachable as attributes (scaling.lines), as when eager.
+        # The four floors stay reachable as attributes (scaling.stats), as when eager.
         try:
             return importlib.import_module(f".{name}", __name__)
         except ModuleNotFoundError as exc:
@@ -59,18 +59,3 @@ def __getattr__(name: str):
 
 def __dir__() -> list[str]:
     return sorted(set(globals()) | set(__all__))
-
-
-class _Package(types.ModuleType):
-    """Keeps a public function whose name is also a submodule's (``predict``)
-    bound to the function: importing the submodule (as ``pipeline`` does)
-    would otherwise rebind ``scaling.predict`` to the module."""
-
-    def __setattr__(self, name, value):
-        if (isinstance(value, types.ModuleType) and _EXPORTS.get(name) == name
-                and value.__name__ == f"{__name__}.{name}"):
-            value = getattr(value, name)
-        super().__setattr__(name, value)
-
-
-sys.modules[__name__].__class__ = _Package

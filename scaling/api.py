@@ -1,15 +1,15 @@
 """One Python call for what a config can do: every line method, every group.
 
 :func:`fit_line` fits one sample with any method a config may name
-(:data:`scaling.config.METHOD_NAMES`), taking the method's options as
-keywords, and returns a :class:`~scaling.lines.LineFit` that carries its
+(:data:`scaling.io.config.METHOD_NAMES`), taking the method's options as
+keywords, and returns a :class:`~scaling.stats.lines.LineFit` that carries its
 fitted ranges and its correction factors, so ``fit.predict(x)`` works with
 its defaults.  :func:`fit_groups` fits every group of a DataFrame and returns
 the tidy ``fits.csv`` table.
 
-This module sits above :mod:`scaling.lines` (moment methods),
-:mod:`scaling.robust` (Deming and the row-based lines),
-:mod:`scaling.predict` (correction factors) and :mod:`scaling.engine`
+This module sits above :mod:`scaling.stats.lines` (moment methods),
+:mod:`scaling.stats.robust` (Deming and the row-based lines),
+:mod:`scaling.stats.predictions` (correction factors) and :mod:`scaling.run.engine`
 (every group at once), and imports them at module level; none of them
 imports it.
 
@@ -17,7 +17,7 @@ Correction factors carried by a fit (computed once, from its own
 residuals e_i = Y_i - a - b X_i on the fitting data):
 smearing mean_i base^(e_i) (Duan 1983, *JASA* 78:605) and ratio
 mean(y) / mean(base^(a + b X)) (Snowdon 1991, *Can. J. For. Res.* 21:720);
-see :func:`scaling.predict.data_factors`.
+see :func:`scaling.stats.predictions.data_factors`.
 """
 
 from __future__ import annotations
@@ -29,15 +29,15 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from .config import METHOD_NAMES
-from .engine import FIT_TABLE_COLUMNS, fit_groups_from_moments, frame_moments
+from .io.config import METHOD_NAMES
+from .run.engine import FIT_TABLE_COLUMNS, fit_groups_from_moments, frame_moments
 from .errors import ConfigError, DataError
-from .lines import (METHODS, LineFit, MIN_N, base_label,
+from .stats.lines import (METHODS, LineFit, MIN_N, base_label,
                     fit_line as _fit_moment_line, parse_log_base, slope_test_statistic)
-from .moments import Moments
-from .predict import data_factors
-from .robust import ROW_METHODS, deming, deming_moments
-from .schema import check_confidence, check_exponents
+from .stats.moments import Moments
+from .stats.predictions import data_factors
+from .stats.robust import ROW_METHODS, deming, deming_moments
+from .stats.schema import check_confidence, check_exponents
 
 __all__ = ["fit_line", "fit_groups", "METHOD_OPTIONS", "ROW_METHOD_DEFAULTS"]
 
@@ -155,10 +155,10 @@ def fit_line(x, y, *, method: str = "sma", confidence: float = 0.95, log_base=10
 
     Notes
     -----
-    OLS, SMA, MA: :func:`scaling.lines.fit_line` (formulas in
-    :mod:`scaling.lines`); a degenerate sample returns NaN estimates with a
+    OLS, SMA, MA: :func:`scaling.stats.lines.fit_line` (formulas in
+    :mod:`scaling.stats.lines`); a degenerate sample returns NaN estimates with a
     note and a DegenerateDataWarning.  Deming and the row-based lines:
-    :mod:`scaling.robust` (Deming 1943; Sen 1968; Siegel 1982; Taskinen &
+    :mod:`scaling.stats.robust` (Deming 1943; Sen 1968; Siegel 1982; Taskinen &
     Warton 2011).  The numbers equal those of a config run with the same
     options on the same points.
 
@@ -315,7 +315,7 @@ def fit_groups(df, *, x: str, y: str, group: str | None = None,
     -------
     DataFrame
         The columns of ``fits.csv`` before the accuracy columns
-        (:data:`scaling.pipeline.FIT_COLUMNS`), one row per method and
+        (:data:`scaling.run.pipeline.FIT_COLUMNS`), one row per method and
         group: methods in the order given, groups sorted; ``scope`` is
         ``group`` (``pooled`` without a group column).  A group that cannot
         be fitted has NaN numbers and a ``note`` saying why.
@@ -331,10 +331,10 @@ def fit_groups(df, *, x: str, y: str, group: str | None = None,
     Notes
     -----
     OLS, SMA, MA and Deming: per-group moments in one pass
-    (:func:`scaling.engine.frame_moments`) and one vectorised fit per method
-    over all groups (:func:`scaling.engine.fit_groups_from_moments`,
-    :func:`scaling.robust.deming_moments`); formulas in :mod:`scaling.lines`
-    and :mod:`scaling.robust`.  The row-based lines (Theil-Sen, Siegel,
+    (:func:`scaling.run.engine.frame_moments`) and one vectorised fit per method
+    over all groups (:func:`scaling.run.engine.fit_groups_from_moments`,
+    :func:`scaling.stats.robust.deming_moments`); formulas in :mod:`scaling.stats.lines`
+    and :mod:`scaling.stats.robust`.  The row-based lines (Theil-Sen, Siegel,
     robust SMA/MA) need the rows: they are fitted group by group (a Python
     loop over groups, each with its own bootstrap of ``n_boot`` resamples
     seeded with ``seed``), which is far slower for many groups.  Every row

@@ -77,7 +77,7 @@ def _build_parser() -> argparse.ArgumentParser:
 
 
 def _examples() -> list[str]:
-    from .starter import EXAMPLE_FOLDERS, EXAMPLES
+    from .io.starter import EXAMPLE_FOLDERS, EXAMPLES
     return sorted(EXAMPLES) + sorted(EXAMPLE_FOLDERS)
 
 
@@ -110,12 +110,12 @@ def _summary_table(result) -> str:
 
 
 def _cmd_run(args) -> int:
-    from .pipeline import run_config
+    from .run.pipeline import run_config
     out = Path(args.out) if args.out else None
     result = run_config(args.config, out=out, force=args.force, quiet=args.quiet)
     if not args.quiet:
         print(f"scaling {__version__}: {result.config.title}")
-        from .headline import headline_of
+        from .render.headline import headline_of
         head = headline_of(result)
         for line in head.sentences:    # the answer first
             print(line)
@@ -138,9 +138,9 @@ def _cmd_run(args) -> int:
 
 
 def _cmd_check(args) -> int:
-    from .config import load_config
-    from .data import load_data
-    from .lines import MIN_N, parse_log_base
+    from .io.config import load_config
+    from .io.tables import load_data
+    from .stats.lines import MIN_N, parse_log_base
     import warnings
     from .errors import ScalingWarning
     cfg = load_config(args.config)
@@ -182,7 +182,7 @@ def _cmd_check(args) -> int:
 
 def _cmd_init(args) -> int:
     from .errors import ConfigError, OutputError
-    from .starter import EXAMPLE_FOLDERS, EXAMPLES
+    from .io.starter import EXAMPLE_FOLDERS, EXAMPLES
     if args.example in EXAMPLE_FOLDERS:   # a worked example: config(s) and data into a folder
         return _init_example(args)
     if args.example not in EXAMPLES:
@@ -203,7 +203,7 @@ def _cmd_init(args) -> int:
 
 def _init_example(args) -> int:
     from .errors import OutputError
-    from .starter import EXAMPLE_FOLDERS, example_files
+    from .io.starter import EXAMPLE_FOLDERS, example_files
     folder = Path(args.path)
     if folder.exists() and not folder.is_dir():
         raise OutputError(f"{folder}: exists and is not a folder (--example {args.example} "
@@ -225,7 +225,7 @@ def _init_example(args) -> int:
 
 
 def _cmd_predict(args) -> int:
-    from .saved import predict_command
+    from .io.saved import predict_command
     return predict_command(args)
 
 

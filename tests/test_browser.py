@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from scaling.pipeline import write_outputs
+from scaling.run.pipeline import write_outputs
 
 from helpers_figures import SCRIPT_GROUP, simulated
 

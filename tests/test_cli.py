@@ -303,7 +303,7 @@ class TestExtremeMagnitudes:
 
     def test_a_figure_failure_is_a_note_not_a_failed_run(self, tmp_path, write_config,
                                                           capsys, monkeypatch):
-        from scaling import figures
+        from scaling.render import figures
 
         def broken(result, *, size="single", **kwargs):
             raise OverflowError("int too large to convert to float")
@@ -372,7 +372,7 @@ class TestCheck:
 class TestInit:
     @pytest.mark.parametrize("example", ["basic", "groups", "length_weight"])
     def test_init_writes_valid_config(self, tmp_path, capsys, example):
-        from scaling.config import load_config
+        from scaling.io.config import load_config
         path = tmp_path / f"{example}.yaml"
         code, out, _ = _run(["init", "--example", example, path], capsys)
         assert code == 0 and path.exists()

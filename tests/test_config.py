@@ -6,9 +6,9 @@ from pathlib import Path
 
 import pytest
 
-from scaling.config import METHOD_NAMES, config_from_dict, load_config
+from scaling.io.config import METHOD_NAMES, config_from_dict, load_config
 from scaling.errors import ConfigError
-from scaling.lines import METHODS
+from scaling.stats.lines import METHODS
 
 MINIMAL = "data: {file: d.csv, x: mass, y: rate}\n"
 
@@ -43,10 +43,10 @@ class TestLoadConfig:
         # Deming line (moments plus lambda) and the row-based robust.ROW_METHODS;
         # every one has a label in lines.METHOD_INFO; the moment names are the
         # methods resample.bootstrap_lines can resample.
-        from scaling.config import MOMENT_METHOD_NAMES
-        from scaling.lines import METHOD_INFO
-        from scaling.resample import MOMENT_METHODS
-        from scaling.robust import ROW_METHODS
+        from scaling.io.config import MOMENT_METHOD_NAMES
+        from scaling.stats.lines import METHOD_INFO
+        from scaling.stats.resampling import MOMENT_METHODS
+        from scaling.stats.robust import ROW_METHODS
         assert set(METHOD_NAMES) == set(METHODS) | {"deming"} | set(ROW_METHODS)
         assert set(METHOD_NAMES) == set(METHOD_INFO)
         assert set(MOMENT_METHOD_NAMES) == set(MOMENT_METHODS)

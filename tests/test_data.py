@@ -7,8 +7,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from scaling.config import config_from_dict
-from scaling.data import load_data
+from scaling.io.config import config_from_dict
+from scaling.io.tables import load_data
 from scaling.errors import DataError
 
 
@@ -198,8 +198,8 @@ class TestNothingSilent:
 
 class TestCleanTableSeveral:
     def test_each_predictor_column_gets_the_single_column_drop_reasons(self, tmp_path):
-        from scaling.config import config_from_dict
-        from scaling.data import load_data
+        from scaling.io.config import config_from_dict
+        from scaling.io.tables import load_data
         path = tmp_path / "trees.csv"
         path.write_text("d,h,m\n10,8,4\n20,,9\n0,5,3\n30,12,<1\n15,9,6\n25,11,8\n")
         cfg = config_from_dict({"data": {"file": str(path), "x": ["d", "h"], "y": "m"},

@@ -19,7 +19,7 @@ from pandas.testing import assert_frame_equal
 
 import scaling
 from scaling.errors import ExtrapolationWarning
-from scaling.multi import fit_multi
+from scaling.stats.several_predictors import fit_multi
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_data"
@@ -132,7 +132,7 @@ class TestForestryExample:
         raw["model"] = {"methods": ["ols"]}
         raw["exponents"] = {"diameter_only": 2.55}
         raw["prediction"] = {}
-        cfg = scaling.config.config_from_dict(raw, base_dir=CONFIGS)
+        cfg = scaling.io.config.config_from_dict(raw, base_dir=CONFIGS)
         fit = scaling.run_config(cfg, write=False, quiet=True).fits.iloc[0]
         assert fit.slope_low < 2.55 < fit.slope_high
 

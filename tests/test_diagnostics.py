@@ -1,4 +1,4 @@
-"""Tests of scaling.diagnostics: residual checks, curvature, influence, error structure."""
+"""Tests of scaling.stats.diagnostics: residual checks, curvature, influence, error structure."""
 
 from __future__ import annotations
 
@@ -12,10 +12,10 @@ from scipy import stats
 from statsmodels.stats.diagnostic import het_breuschpagan
 from statsmodels.stats.outliers_influence import OLSInfluence
 
-from scaling.diagnostics import (Diagnostics, compare_error_structure, diagnose,
+from scaling.stats.diagnostics import (Diagnostics, compare_error_structure, diagnose,
                                  quadratic_t)
 from scaling.errors import ConfigError, DataError
-from scaling.lines import fit_line
+from scaling.stats.lines import fit_line
 
 
 @pytest.fixture(scope="module")
@@ -301,7 +301,7 @@ class TestDiagnoseExactPowerLaw:
 # --------------------------------------------------------------------------
 # points to check, graded
 
-from scaling.diagnostics import (PointCheck, cooks_distances, fit_checks,  # noqa: E402
+from scaling.stats.diagnostics import (PointCheck, cooks_distances, fit_checks,  # noqa: E402
                                  leave_one_out_slopes, points_to_check, strong_influence)
 
 

@@ -6,14 +6,14 @@ import doctest
 import pytest
 
 import scaling.api
-import scaling.groups
-import scaling.lines
-import scaling.multi
-import scaling.starter
-import scaling.units
+import scaling.stats.groups
+import scaling.stats.lines
+import scaling.stats.several_predictors
+import scaling.io.starter
+import scaling.stats.units
 
-MODULES = [scaling.api, scaling.groups, scaling.lines, scaling.multi, scaling.starter,
-           scaling.units]
+MODULES = [scaling.api, scaling.stats.groups, scaling.stats.lines, scaling.stats.several_predictors, scaling.io.starter,
+           scaling.stats.units]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)

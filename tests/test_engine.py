@@ -7,10 +7,10 @@ from hypothesis import given, settings, strategies as st
 from numpy.testing import assert_allclose
 
 import scaling
-from scaling.engine import (FIT_TABLE_COLUMNS, SLOPE_TEST_TABLE_COLUMNS, fit_frame,
+from scaling.run.engine import (FIT_TABLE_COLUMNS, SLOPE_TEST_TABLE_COLUMNS, fit_frame,
                             fit_groups_from_moments, frame_moments, read_moments)
 from scaling.errors import ConfigError, DataError
-from scaling.moments import combine_moments, group_moments, merge_moments, moments
+from scaling.stats.moments import combine_moments, group_moments, merge_moments, moments
 
 KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")
 
@@ -90,7 +90,7 @@ class TestFrameMoments:
         df.loc[3, "clade"] = None
         df.loc[4, "rate"] = np.inf
         gm = frame_moments(df, x="mass", y="rate", group="clade", chunk_size=20)
-        # exact law: the rows we spoiled, one reason each, as scaling.data words them
+        # exact law: the rows we spoiled, one reason each, as scaling.io.tables words them
         assert gm.dropped == {"x (mass) is zero: no logarithm": 1,
                               "x (mass) is not a number": 1,
                               "y (rate) is negative: no logarithm": 1,
@@ -104,8 +104,8 @@ class TestFrameMoments:
         df.loc[4, "clade"] = ""
         path = tmp_path / "t.csv"
         df.to_csv(path, index=False)
-        from scaling.config import config_from_dict
-        from scaling.data import load_data
+        from scaling.io.config import config_from_dict
+        from scaling.io.tables import load_data
         cfg = config_from_dict({"data": {"file": str(path), "x": "mass", "y": "rate",
                                          "group": "clade"}}, base_dir=tmp_path)
         pts = load_data(cfg.data, log_base=10).points
@@ -114,7 +114,7 @@ class TestFrameMoments:
         ref = group_moments(pts["log_x"], pts["log_y"], codes)
         assert list(gm.labels) == list(names)
         for k in KEYS:
-            # internal consistency: the chunked reader against scaling.data + group_moments
+            # internal consistency: the chunked reader against scaling.io.tables + group_moments
             assert_allclose(getattr(gm.moments, k), getattr(ref, k), rtol=1e-12)
 
     def test_missing_column_is_named(self):
@@ -223,7 +223,7 @@ class TestFitGroupsFromMoments:
                             [ols.params.iloc[1], *ols.conf_int().iloc[1]], rtol=1e-9)
 
     def test_columns_are_those_of_a_run(self):
-        from scaling.pipeline import FIT_COLUMNS, SLOPE_TEST_COLUMNS
+        from scaling.run.pipeline import FIT_COLUMNS, SLOPE_TEST_COLUMNS
         # internal consistency: one schema for run and engine
         assert FIT_TABLE_COLUMNS == FIT_COLUMNS
         assert SLOPE_TEST_TABLE_COLUMNS == SLOPE_TEST_COLUMNS

@@ -1,5 +1,5 @@
 """Figures drawn in a forked worker and a second process: same files, and nothing lost
-when a process fails (scaling.figure_worker).
+when a process fails (scaling.render.figure_worker).
 
 Every check here is internal consistency (the files from one process are the
 reference for the files from several), except where a line says otherwise.
@@ -13,9 +13,9 @@ from pathlib import Path
 
 import pytest
 
-import scaling.figure_worker as fw
-from scaling.config import load_config
-from scaling.pipeline import analyse, run_config
+import scaling.render.figure_worker as fw
+from scaling.io.config import load_config
+from scaling.run.pipeline import analyse, run_config
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_CONFIG = ROOT / "configs" / "demo.yaml"
@@ -142,7 +142,7 @@ def test_runs_without_figures_start_no_worker(write_config, small_csv):
 
 def test_split_balances_the_drawing_cost():
     # exact law: greedy largest-first split of costs 4, 3, 2, 1 gives 5 and 5
-    from scaling.figures import DRAWING_COST
+    from scaling.render.figures import DRAWING_COST
     a, b = fw._split(["scaling", "natural", "exponents", "residuals"], DRAWING_COST)
     assert sorted(a + b) == sorted(DRAWING_COST)
     assert sum(DRAWING_COST[k] for k in a) == sum(DRAWING_COST[k] for k in b) == 5
@@ -151,7 +151,7 @@ def test_split_balances_the_drawing_cost():
 def test_output_buffered_before_the_run_is_printed_once(tmp_path, small_config):
     # common practice, no source: a forked process must not flush its copy of the
     # parent's unwritten output (stdout to a pipe is block-buffered)
-    code = ("from scaling.pipeline import run_config; print('printed before the run'); "
+    code = ("from scaling.run.pipeline import run_config; print('printed before the run'); "
             f"run_config({str(small_config)!r}, out={str(tmp_path / 'o')!r}, quiet=True)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          cwd=ROOT)
@@ -166,7 +166,7 @@ def test_a_run_without_figures_does_not_import_matplotlib(tmp_path, small_config
         "figures: {kinds: [natural, exponents],", "figures: {kinds: [],")
     path = small_config.parent / "nofig.yaml"
     path.write_text(cfg, encoding="utf-8")
-    code = ("import sys; from scaling.pipeline import run_config; "
+    code = ("import sys; from scaling.run.pipeline import run_config; "
             f"run_config({str(path)!r}, out={str(tmp_path / 'o')!r}, quiet=True); "
             "print('matplotlib' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)

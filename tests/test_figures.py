@@ -13,10 +13,10 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 from PIL import Image
 
-from scaling import figures
+from scaling.render import figures
 from scaling.errors import ConfigError
-from scaling.pipeline import run_config
-from scaling.figures import (format_natural, make_figure, plot_exponents, plot_natural,
+from scaling.run.pipeline import run_config
+from scaling.render.figures import (format_natural, make_figure, plot_exponents, plot_natural,
                              plot_residuals, plot_scaling, write_figures)
 
 from helpers_figures import demo, simulated, with_figures
@@ -378,7 +378,7 @@ class TestPlotExponents:
         ax = plot_exponents(grouped)
         whiskers = [ln for ln in ax.lines if len(ln.get_xdata()) == 2
                     and ln.get_ydata()[0] == ln.get_ydata()[1]]
-        from scaling.figures import _common_slope_fit
+        from scaling.render.figures import _common_slope_fit
         common = [_common_slope_fit(grouped, m) for m in ("ols", "sma", "ma")]
         expected = sorted([(f.slope_ci.low, f.slope_ci.high) for f in grouped.line_fits.values()]
                           + [(c.slope_ci.low, c.slope_ci.high) for c in common])
@@ -436,7 +436,7 @@ class TestReadableFigures:
 
     @pytest.mark.parametrize("kind", ["scaling", "residuals", "natural", "exponents"])
     def test_no_text_outside_the_canvas(self, grouped, kind):
-        from scaling.figures import make_figure
+        from scaling.render.figures import make_figure
         fig = make_figure(grouped, kind)
         fig.draw_without_rendering()
         w, h = fig.bbox.width, fig.bbox.height
@@ -446,7 +446,7 @@ class TestReadableFigures:
         assert clipped == []   # exact geometry of the drawn figure
 
     def test_scaling_legend_at_most_about_a_quarter(self, grouped):
-        from scaling.figures import make_figure
+        from scaling.render.figures import make_figure
         fig = make_figure(grouped, "scaling")
         fig.draw_without_rendering()
         share = sum(lg.get_window_extent().height for lg in fig.legends) / fig.bbox.height
@@ -454,7 +454,7 @@ class TestReadableFigures:
 
     def test_thirty_groups_legend_is_a_note(self, tmp_path):
         from helpers_figures import simulated
-        from scaling.figures import make_figure
+        from scaling.render.figures import make_figure
         res = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(30)], n=6)
         fig = make_figure(res, "scaling")
         fig.draw_without_rendering()
@@ -465,7 +465,7 @@ class TestReadableFigures:
 
     def test_narrow_span_labels_two_and_five(self):
         from matplotlib.figure import Figure
-        from scaling.figures import natural_log_axis
+        from scaling.render.figures import natural_log_axis
         ax = Figure().add_subplot()
         ax.plot([12, 80], [12, 80])
         ax.set_xlim(12, 80)
@@ -478,7 +478,7 @@ class TestReadableFigures:
 
     def test_default_labels_do_not_repeat_units(self, tmp_path):
         from dataclasses import replace
-        from scaling.figures import _label
+        from scaling.render.figures import _label
         from helpers_figures import simulated
         res = simulated(tmp_path, groups=["a"], n=8)
         cfg = res.config
@@ -488,7 +488,7 @@ class TestReadableFigures:
         assert _label(res, "y") == "rate (W)"
 
     def test_common_slope_row_and_lines(self, grouped):
-        from scaling.groups import common_slope
+        from scaling.stats.groups import common_slope
         ax = plot_exponents(grouped)
         labels = [t.get_text().replace("\n", " ") for t in ax.get_yticklabels()]
         # the clades' slopes do not differ: the common slope is the first row
@@ -520,7 +520,7 @@ class TestManyGroupsFigures:
         # (it did when the note took part in the layout: matplotlib warned and the
         # panels shrank to slivers)
         from helpers_figures import simulated
-        from scaling.figures import MAX_DRAWN_POINTS, make_figure
+        from scaling.render.figures import MAX_DRAWN_POINTS, make_figure
         result = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(20)], n=300, seed=4)
         assert len(result.data.points) > MAX_DRAWN_POINTS
         with warnings.catch_warnings():

@@ -1,10 +1,10 @@
-"""Tests of scaling.groups: group means, the line through them, common slopes, comparisons.
+"""Tests of scaling.stats.groups: group means, the line through them, common slopes, comparisons.
 
 Sources of expected values are named beside each assertion.  Simulations use
 invented data with a known truth only (RULES.md 2); all Monte Carlo
 replicates are generated in one array pass through
-scaling.moments.group_moments and tested by the same vectorised function that
-compare_groups calls (scaling.groups._axis_tests).
+scaling.stats.moments.group_moments and tested by the same vectorised function that
+compare_groups calls (scaling.stats.groups._axis_tests).
 """
 from __future__ import annotations
 
@@ -17,10 +17,10 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import optimize, stats
 
-import scaling.groups as sg
+import scaling.stats.groups as sg
 from scaling import fit_line
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
-from scaling.moments import group_moments
+from scaling.stats.moments import group_moments
 
 
 # --------------------------------------------------------------------------

@@ -16,10 +16,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from scaling.config import config_from_dict
+from scaling.io.config import config_from_dict
 from scaling.errors import ConfigError
-from scaling.headline import build_headline, exponent_words, headline_of, primary_method
-from scaling.pipeline import analyse, write_outputs
+from scaling.render.headline import build_headline, exponent_words, headline_of, primary_method
+from scaling.run.pipeline import analyse, write_outputs
 
 ROOT = Path(__file__).resolve().parents[1]
 VERDICT = r"(is above|is below|does not differ detectably from)"
@@ -173,11 +173,11 @@ class TestHeadlineOfWorkedExamples:
     def _run(self, tmp_path, name):
         from scaling.cli import main
         assert main(["init", "--example", name, str(tmp_path / name)]) == 0
-        from scaling.pipeline import run_config
+        from scaling.run.pipeline import run_config
         return run_config(tmp_path / name / f"{name}.yaml", write=False, quiet=True)
 
     def test_several_predictors_name_each_exponent_and_its_test(self, tmp_path):
-        from scaling.headline import headline_of
+        from scaling.render.headline import headline_of
         head = headline_of(self._run(tmp_path, "forestry"))
         # demo_data/make_forestry.py (invented, stated truth): exponents 2 (diameter)
         # and 1 (height) of a cylinder; the headline names both terms and both tests
@@ -186,7 +186,7 @@ class TestHeadlineOfWorkedExamples:
         assert head.sentences[2].startswith("Total over")   # the plot total is the answer
 
     def test_inverse_prediction_of_a_fossil_is_the_last_sentence(self, tmp_path):
-        from scaling.headline import headline_of
+        from scaling.render.headline import headline_of
         head = headline_of(self._run(tmp_path, "palaeo"))
         # demo_data/make_palaeo.py: fossil F1's femur circumference is 118 mm
         assert len(head.sentences) <= 3

@@ -1,4 +1,4 @@
-"""The large-data path of a run and the summary across many groups (scaling.large).
+"""The large-data path of a run and the summary across many groups (scaling.run.moments_path).
 
 Where expected values come from: the ordinary run on the same rows (internal
 consistency: the same estimators from merged moments vs from the rows); counts
@@ -14,11 +14,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from scaling.config import config_from_dict
+from scaling.io.config import config_from_dict
 from scaling.errors import ConfigError, DataError
-from scaling.large import bounded_diagnostics, spread_stage, use_moments_path
-from scaling.pipeline import analyse, write_outputs
-from scaling.spread import spread_from_fits
+from scaling.run.moments_path import bounded_diagnostics, spread_stage, use_moments_path
+from scaling.run.pipeline import analyse, write_outputs
+from scaling.stats.spread import spread_from_fits
 
 NUMERIC = ["n", "slope", "slope_low", "slope_high", "intercept", "intercept_low",
            "intercept_high", "r", "r2", "slope_se", "intercept_se", "resid_sd",
@@ -219,8 +219,8 @@ class TestManyGroupsRun:
     GROUPS = 40
 
     def test_more_groups_than_the_caps_write_a_bounded_report(self, tmp_path, monkeypatch):
-        import scaling.figures as figures
-        import scaling.report as report
+        import scaling.render.figures as figures
+        import scaling.render.report as report
         monkeypatch.setattr(report, "TABLE_MAX_ROWS", 20)   # > MD_MAX_ROWS (12)
         monkeypatch.setattr(figures, "SPREAD_BARS_MAX", 15)
         G = self.GROUPS

@@ -1,4 +1,4 @@
-"""Numeric tests of the line estimators in scaling.lines (OLS, SMA, MA).
+"""Numeric tests of the line estimators in scaling.stats.lines (OLS, SMA, MA).
 
 Every numeric check names, beside it, where its expected value comes from:
 a reference library computing the same quantity another way (statsmodels
@@ -33,12 +33,12 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning, ScalingError
-from scaling.lines import (BOTH_SIGNS_NOTE, EXACT_NOTE, METHODS, base_label, describe_test,
+from scaling.stats.lines import (BOTH_SIGNS_NOTE, EXACT_NOTE, METHODS, base_label, describe_test,
                            exponent_value, fit_line, fit_moments, format_p,
                            is_symmetric, line_fit_from_moments, log_word, parse_log_base,
                            slope_test_statistic, to_log)
-from scaling.moments import group_moments, moments
-from scaling.robust import deming, siegel, sma_robust, theil_sen
+from scaling.stats.moments import group_moments, moments
+from scaling.stats.robust import deming, siegel, sma_robust, theil_sen
 
 with warnings.catch_warnings():
     # scipy.odr is deprecated from SciPy 1.17 on; it is still the reference

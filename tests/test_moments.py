@@ -1,4 +1,4 @@
-"""Tests of scaling.moments: sufficient statistics per group, weighted, single.
+"""Tests of scaling.stats.moments: sufficient statistics per group, weighted, single.
 
 Expected values come from plain numpy computations of the same sums (a
 reference library computing the same thing another way) or from exact
@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from numpy.testing import assert_allclose, assert_array_equal
 
-from scaling.moments import Moments, group_moments, moments, weighted_moments
+from scaling.stats.moments import Moments, group_moments, moments, weighted_moments
 
 
 def _numpy_moments(x: np.ndarray, y: np.ndarray) -> dict:

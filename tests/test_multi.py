@@ -1,4 +1,4 @@
-"""Multi-predictor power laws (scaling.multi).
+"""Multi-predictor power laws (scaling.stats.several_predictors).
 
 Sources of expected values:
 
@@ -23,10 +23,10 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError, DataError, ExtrapolationWarning
-from scaling.multi import (CombinedTermTest, MultiFit, MultiPrediction, TotalPrediction,
+from scaling.stats.several_predictors import (CombinedTermTest, MultiFit, MultiPrediction, TotalPrediction,
                            _ols_core, _scatter_variance, _total_bounds, check_methods,
                            fit_multi)
-from scaling.predict import correction_factor
+from scaling.stats.predictions import correction_factor
 
 
 @pytest.fixture(scope="module")
@@ -254,7 +254,7 @@ class TestPredict:
         assert_allclose(p.y, 10 ** sf["mean"].to_numpy(), rtol=1e-8)
 
     def test_correction_scales_point_and_confidence_bounds_not_prediction_bounds(self, fit):
-        # internal consistency with scaling.predict's rule (module docstring there)
+        # internal consistency with scaling.stats.predictions' rule (module docstring there)
         none = fit.predict(NEW, correction="none", interval="confidence")
         sm_c = fit.predict(NEW, correction="smearing", interval="confidence")
         sm_p = fit.predict(NEW, correction="smearing", interval="prediction")
@@ -267,7 +267,7 @@ class TestPredict:
         assert_allclose(sm_p.y_low, none_p.y_low, rtol=1e-12)
 
     def test_factors_equal_predict_correction_factor(self, fit, trees):
-        # internal consistency: the same formulas as scaling.predict.correction_factor
+        # internal consistency: the same formulas as scaling.stats.predictions.correction_factor
         assert_allclose(fit.factors["parametric"],
                         math.exp((fit.resid_sd * math.log(10)) ** 2 / 2), rtol=1e-12)  # Baskerville 1972
         yhat = 10 ** (fit.log_y - fit.residuals)
@@ -428,7 +428,7 @@ class TestSavedMultiFit:
     def test_round_trip_predicts_the_same_to_the_last_bit(self):
         # internal consistency: the JSON form keeps every number prediction reads
         import json
-        from scaling.multi import multi_fit_from_dict, multi_fit_to_dict
+        from scaling.stats.several_predictors import multi_fit_from_dict, multi_fit_to_dict
         rng = np.random.default_rng(11)   # simulation with a known truth: y = 0.05 d^2 h
         d, h = 10 ** rng.uniform(1, 2, 40), 10 ** rng.uniform(0.5, 1.5, 40)
         fit = fit_multi({"d": d, "h": h}, 0.05 * d ** 2 * h * 10 ** rng.normal(0, 0.05, 40))
@@ -446,7 +446,7 @@ class TestSavedMultiFit:
                 assert np.array_equal(a.outside_data, b.outside_data)
 
     def test_bad_saved_dicts_are_clear_errors(self):
-        from scaling.multi import MULTI_DICT_FORMAT, multi_fit_from_dict
+        from scaling.stats.several_predictors import MULTI_DICT_FORMAT, multi_fit_from_dict
         with pytest.raises(DataError, match="must be a dict of format 'scaling.multifit/1'"):
             multi_fit_from_dict({"format": "scaling.linefit/1"})
         with pytest.raises(DataError, match="lacks key\\(s\\): predictors, n, slopes"):

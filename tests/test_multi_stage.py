@@ -18,11 +18,11 @@ from numpy.testing import assert_allclose
 
 import scaling
 from scaling.cli import main
-from scaling.config import config_from_dict
+from scaling.io.config import config_from_dict
 from scaling.errors import ConfigError
-from scaling.multi import fit_multi
-from scaling.multi_stage import MULTI_SLOPE_TEST_COLUMNS, constant_columns
-from scaling.starter import EXAMPLE_FOLDERS, example_files
+from scaling.stats.several_predictors import fit_multi
+from scaling.run.several_predictors import MULTI_SLOPE_TEST_COLUMNS, constant_columns
+from scaling.io.starter import EXAMPLE_FOLDERS, example_files
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_data"

@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pandas as pd
 
-from scaling.output import json_safe, records
+from scaling.io.output import json_safe, records
 
 
 def _mixed_frame() -> pd.DataFrame:

@@ -1,4 +1,4 @@
-"""Tests of scaling.newick and scaling.phylo (phylogenetic OLS/SMA/MA, Pagel's lambda)."""
+"""Tests of scaling.stats.newick and scaling.stats.phylogeny (phylogenetic OLS/SMA/MA, Pagel's lambda)."""
 
 from __future__ import annotations
 
@@ -7,10 +7,10 @@ import pytest
 from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError, DataError
-from scaling.lines import fit_line, fit_moments
-from scaling.moments import Moments, group_moments
-from scaling.newick import parse_newick, read_newick
-from scaling.phylo import (PhyloPlan, dense_phylo_moments, fit_phylo, match_species,
+from scaling.stats.lines import fit_line, fit_moments
+from scaling.stats.moments import Moments, group_moments
+from scaling.stats.newick import parse_newick, read_newick
+from scaling.stats.phylogeny import (PhyloPlan, dense_phylo_moments, fit_phylo, match_species,
                            normalise_name, pagel_lambda, phylo_loglik, phylo_moments,
                            phylo_pass, prune_tree, tree_covariance)
 

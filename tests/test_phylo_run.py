@@ -10,10 +10,10 @@ import pytest
 from numpy.testing import assert_allclose
 
 from scaling.cli import main
-from scaling.config import config_from_dict, load_config
+from scaling.io.config import config_from_dict, load_config
 from scaling.errors import ConfigError, DataError
-from scaling.phylo import fit_phylo, read_newick
-from scaling.pipeline import analyse
+from scaling.stats.phylogeny import fit_phylo, read_newick
+from scaling.run.pipeline import analyse
 
 ROOT = Path(__file__).resolve().parents[1]
 PHYSIOLOGY = ROOT / "configs" / "physiology.yaml"
@@ -113,7 +113,7 @@ class TestPhylogeneticRows:
                                         base_dir=tmp_path))
         # prediction intervals of phylogenetic lines are not defined yet: none are made
         assert set(res.predictions["scope"]) == {"pooled"}
-        from scaling.figures import plot_scaling
+        from scaling.render.figures import plot_scaling
         def labels(ax):
             return [h.get_label() for h in ax.figure.legends[0].legend_handles] \
                 if ax.figure.legends else [t.get_text() for t in ax.get_legend().get_texts()]

@@ -1,4 +1,4 @@
-"""Tests of scaling.pipeline: analyse() and the run's stages.
+"""Tests of scaling.run.pipeline: analyse() and the run's stages.
 
 Fits with notes still reach the slope tests; the later stages (diagnostics,
 robust and Deming lines, bootstrap, permutations) report.  Runs of the demo
@@ -18,14 +18,14 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import stats
 
-from scaling.config import config_from_dict, load_config
-from scaling.data import load_data
+from scaling.io.config import config_from_dict, load_config
+from scaling.io.tables import load_data
 from scaling.errors import DegenerateDataWarning
-from scaling.lines import BOTH_SIGNS_NOTE, EXACT_NOTE, fit_line
-from scaling.pipeline import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,
+from scaling.stats.lines import BOTH_SIGNS_NOTE, EXACT_NOTE, fit_line
+from scaling.run.pipeline import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,
                               ERROR_STRUCTURE_COLUMNS, INFLUENCE_COLUMNS, analyse)
-from scaling.resample import bootstrap_lines
-from scaling.robust import deming, sma_robust
+from scaling.stats.resampling import bootstrap_lines
+from scaling.stats.robust import deming, sma_robust
 
 from conftest import DEMO_CONFIG
 
@@ -197,8 +197,8 @@ class TestRunFiles:
 
     def test_predict_from_saved_robust_fit(self, extended):
         # Internal consistency: predict() on the LineFit itself (the saved dict must rebuild it).
-        from scaling.predict import predict
-        from scaling.saved import predict_from_dict
+        from scaling.stats.predictions import predict
+        from scaling.io.saved import predict_from_dict
         _, wide = extended
         saved = wide.tables["_saved_fits"][("pooled", "", "sma_robust")]
         fit = wide.line_fits[("pooled", "", "sma_robust")]
@@ -274,7 +274,7 @@ class TestBootstrapTable:
 
 def _simulated_run(folder, x, y, labels=None, **config):
     """run_config (no files) on invented points with a known truth."""
-    from scaling.pipeline import run_config
+    from scaling.run.pipeline import run_config
     table = pd.DataFrame({"x": x, "y": y})
     data = {"file": str(folder / "sim.csv"), "x": "x", "y": "y"}
     if labels is not None:

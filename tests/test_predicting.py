@@ -1,4 +1,4 @@
-"""Tests of scaling.predicting: which lines predict; range_ratio."""
+"""Tests of scaling.run.prediction_lines: which lines predict; range_ratio."""
 from __future__ import annotations
 
 import warnings
@@ -7,9 +7,9 @@ import numpy as np
 import pandas as pd
 from numpy.testing import assert_allclose
 
-from scaling.config import config_from_dict
-from scaling.pipeline import analyse
-from scaling.predicting import range_ratio
+from scaling.io.config import config_from_dict
+from scaling.run.pipeline import analyse
+from scaling.run.prediction_lines import range_ratio
 
 
 class TestRangeRatio:

@@ -11,9 +11,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from scaling.lines import format_p
-from scaling.pipeline import CAUTION, write_outputs
-from scaling.report import (build_report, format_value, latex_escape, markdown_escape,
+from scaling.stats.lines import format_p
+from scaling.run.pipeline import CAUTION, write_outputs
+from scaling.render.report import (build_report, format_value, latex_escape, markdown_escape,
                             render_fits_tex, write_report)
 
 from helpers_figures import SCRIPT_GROUP, demo, simulated, with_figures
@@ -185,7 +185,7 @@ class TestWriteReport:
         t = fit.test_slope(2 / 3)
         side = "above" if fit.slope > 2 / 3 else "below"
         # the exponent tests are one table (fit x hypothesis), not one bullet per test
-        from scaling.headline import headline_of
+        from scaling.render.headline import headline_of
         head = headline_of(script_run)
         row = head.exponent_table.query("line == 'pooled' and method == 'SMA'").iloc[0]
         assert row["exponent"] == fit.slope          # internal consistency
@@ -222,14 +222,14 @@ class TestWriteReport:
 
     def test_long_tables_folded_but_predictions_open(self, demo_run):
         import re
-        from scaling.report import FOLD_ROWS
+        from scaling.render.report import FOLD_ROWS
         text = (demo_run.out_dir / "report.html").read_text(encoding="utf-8")
         folded = re.findall(r'<details class="table"><summary>([a-z_]+): (\d+) rows', text)
         assert folded and all(int(n) > FOLD_ROWS for _, n in folded)
         # predictions carry the extrapolation flags: never hidden, however long
         # (the demo predicts from OLS only, so its table is doubled to be long)
         from dataclasses import replace
-        from scaling.report import build_report, render_html
+        from scaling.render.report import build_report, render_html
         long = pd.concat([demo_run.tables["predictions"]] * 2, ignore_index=True)
         assert len(long) > FOLD_ROWS
         run = replace(demo_run, tables={**demo_run.tables, "predictions": long})
@@ -250,7 +250,7 @@ class TestBuildReport:
 
 class TestFormatValue:
     def test_values(self):
-        # p-values through scaling.lines.format_p; others 4 significant digits (exact strings)
+        # p-values through scaling.stats.lines.format_p; others 4 significant digits (exact strings)
         assert format_value(0.00002, "p_value") == format_p(0.00002) == "< 0.0001"
         assert format_value(0.6625, "slope") == "0.6625"
         assert format_value(13447.23, "x") == "13447"

@@ -1,4 +1,4 @@
-"""Tests of scaling.resample: bootstrap intervals and permutation tests."""
+"""Tests of scaling.stats.resampling: bootstrap intervals and permutation tests."""
 
 from __future__ import annotations
 
@@ -11,10 +11,10 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
-from scaling.lines import fit_line, slope_test_statistic
-from scaling.moments import Moments, moments
-import scaling.resample as resample
-from scaling.resample import (bca_interval, bootstrap_lines, draw_counts,
+from scaling.stats.lines import fit_line, slope_test_statistic
+from scaling.stats.moments import Moments, moments
+import scaling.stats.resampling as resample
+from scaling.stats.resampling import (bca_interval, bootstrap_lines, draw_counts,
                               line_from_moments, permutation_slope_test)
 
 
@@ -101,7 +101,7 @@ class TestDrawCounts:
 
 class TestLineFromMoments:
     def test_matches_fit_line(self):
-        # Internal consistency: scaling.lines.fit_line (same estimators through fit_moments).
+        # Internal consistency: scaling.stats.lines.fit_line (same estimators through fit_moments).
         X, Y = _data()
         m = moments(X, Y)
         for method in ("ols", "sma", "ma"):
@@ -376,7 +376,7 @@ class TestBootstrapLines:
 class TestPermutationSlopeTest:
     @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
     def test_agrees_with_parametric_test(self, method):
-        # Internal consistency with the t-form correlation tests of scaling.lines (OLS t test;
+        # Internal consistency with the t-form correlation tests of scaling.stats.lines (OLS t test;
         # Warton et al. 2006 for SMA/MA) are exact for bivariate normal data, and the
         # permutation distribution of a correlation is close to that null for
         # n = 60 (Pitman, E. J. G. 1937, Significance tests which may be applied to

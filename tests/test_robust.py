@@ -1,4 +1,4 @@
-"""Tests of scaling.robust: Theil-Sen, Siegel, robust SMA/MA and the Deming line."""
+"""Tests of scaling.stats.robust: Theil-Sen, Siegel, robust SMA/MA and the Deming line."""
 
 from __future__ import annotations
 
@@ -11,10 +11,10 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
-from scaling.lines import LineFit, fit_line
-from scaling.moments import Moments, moments
-from scaling.resample import draw_counts
-from scaling.robust import (_theil_sen_boot, deming, deming_moments, huber_scatter,
+from scaling.stats.lines import LineFit, fit_line
+from scaling.stats.moments import Moments, moments
+from scaling.stats.resampling import draw_counts
+from scaling.stats.robust import (_theil_sen_boot, deming, deming_moments, huber_scatter,
                             ma_robust, siegel, sma_robust, theil_sen)
 
 
@@ -96,7 +96,7 @@ class TestKendallSlopeTest:
         # Sen 1968, JASA 63:1379, eq. 2.6).  Here y has ties but R has none, so
         # no tie term applies: counting ties in y (as before) understated it.
         import itertools
-        from scaling.lines import _kendall_slope_test
+        from scaling.stats.lines import _kendall_slope_test
         X = np.array([0.1, 0.5, 0.9, 1.3, 1.6, 2.2, 2.9])
         Y = np.array([0.3, 0.3, 0.8, 0.8, 0.8, 1.4, 1.9])   # ties in y
         b0 = 0.37
@@ -197,7 +197,7 @@ class TestHuberScatter:
 
 class TestSmaRobust:
     def test_close_to_sma_on_clean_data(self):
-        # Internal consistency: the classical SMA (scaling.lines, Warton et al. 2006).  On clean
+        # Internal consistency: the classical SMA (scaling.stats.lines, Warton et al. 2006).  On clean
         # bivariate normal data the robust slope differs only by its lower efficiency:
         # tolerance 0.04 (about 2 SE of the SMA slope, SE ~ 0.019 here).
         rng = np.random.default_rng(0)
@@ -248,7 +248,7 @@ class TestMaRobust:
         assert_allclose(fit.slope, vec[1] / vec[0], rtol=1e-10)
 
     def test_close_to_ma_on_clean_data(self):
-        # Internal consistency: classical MA (scaling.lines); tolerance 0.04 as for SMA.
+        # Internal consistency: classical MA (scaling.stats.lines); tolerance 0.04 as for SMA.
         rng = np.random.default_rng(1)
         X = rng.normal(2, 0.6, 200)
         Y = 0.75 * X + 0.15 * rng.normal(size=200)

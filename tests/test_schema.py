@@ -1,4 +1,4 @@
-"""The vocabulary of scaling.schema: the tables a run writes and the method catalogue."""
+"""The vocabulary of scaling.stats.schema: the tables a run writes and the method catalogue."""
 from __future__ import annotations
 
 import csv
@@ -7,10 +7,10 @@ import warnings
 import pytest
 import yaml
 
-from scaling import schema
-from scaling.config import config_from_dict
+from scaling.stats import schema
+from scaling.io.config import config_from_dict
 from scaling.errors import ConfigError
-from scaling.pipeline import run_config
+from scaling.run.pipeline import run_config
 
 from conftest import DEMO_CONFIG
 
@@ -54,7 +54,9 @@ class TestTableColumns:
 
 class TestCatalogue:
     def test_every_method_has_one_entry_read_by_config_lines_and_figures(self):
-        from scaling import config, figures, lines, resample, robust
+        from scaling.io import config
+        from scaling.render import figures
+        from scaling.stats import lines, resampling as resample, robust
         assert config.METHOD_NAMES == tuple(schema.CATALOGUE)
         assert set(schema.MOMENT_METHODS) == set(lines.METHODS) | {"deming"}
         assert set(schema.ROW_METHOD_NAMES) == set(robust.ROW_METHODS)
@@ -86,7 +88,7 @@ class TestOptionChecks:
     def test_check_confidence_accepts_numbers_strictly_between_0_and_1(self):
         # common practice, no source: a confidence level is a probability in (0, 1)
         import numpy as np
-        from scaling.schema import check_confidence
+        from scaling.stats.schema import check_confidence
         assert check_confidence(0.95) == 0.95
         assert check_confidence(np.float32(0.5)) == 0.5
         for bad in (0, 1, 1.5, -0.1, float("nan"), True, "0.95", None):
@@ -96,7 +98,7 @@ class TestOptionChecks:
 
     def test_check_lam_accepts_positive_finite_numbers(self):
         # Deming's lambda is a ratio of variances: positive and finite (Deming 1943)
-        from scaling.schema import check_lam
+        from scaling.stats.schema import check_lam
         assert check_lam(2) == 2.0
         for bad in (0, -1, float("inf"), float("nan"), False, "1"):
             with pytest.raises(ConfigError, match=r"^lam \(error-variance ratio\) must be"):

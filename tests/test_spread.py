@@ -9,7 +9,7 @@ from numpy.testing import assert_allclose
 from scipy import optimize, stats
 
 from scaling.errors import ConfigError, DataError
-from scaling.spread import (SPREAD_COLUMNS, exponent_spread, spread_from_fits, tau2_dl,
+from scaling.stats.spread import (SPREAD_COLUMNS, exponent_spread, spread_from_fits, tau2_dl,
                             tau2_q_profile, tau2_reml)
 
 
@@ -185,7 +185,7 @@ class TestExponentSpread:
 
 class TestSpreadFromFits:
     def test_uses_estimable_group_rows_of_one_method(self):
-        from scaling.engine import fit_frame
+        from scaling.run.engine import fit_frame
         rng = np.random.default_rng(7)
         g = np.repeat(np.arange(30), 40)
         slope = 0.75 + rng.normal(0, 0.05, 30)[g]

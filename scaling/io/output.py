@@ -1,0 +1,219 @@
+"""Writing a run: the results document, the manifest's file facts, atomic writes.
+
+:func:`write_outputs` builds every file of a :class:`~scaling.run.pipeline.RunResult`
+in a temporary folder beside the output folder and moves them into place only
+when all were written.  :func:`json_safe` is the one JSON cleaner of the
+package (NaN/inf -> null, numpy scalars -> Python).  Nothing here computes
+statistics.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+import math
+import os
+import platform
+import shutil
+import tempfile
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..render import report as _report
+from .._version import __version__
+from ..errors import OutputError
+from ..render.figure_worker import draw_figures
+from ..render.wording import CAUTION
+
+__all__ = ["json_safe", "records", "results_document", "check_out_dir", "write_outputs",
+           "write_csv", "file_sha256", "versions"]
+
+
+def json_safe(obj):
+    if isinstance(obj, dict):
+        return {str(k): json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [json_safe(v) for v in obj]
+    if isinstance(obj, str):
+        return str(obj)   # also numpy str_, which YAML/JSON writers refuse
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        return None if not math.isfinite(float(obj)) else float(obj)
+    if isinstance(obj, (np.bool_,)):
+        return bool(obj)
+    if isinstance(obj, Path):
+        return str(obj)
+    if isinstance(obj, np.ndarray):
+        return json_safe(obj.tolist())
+    if obj is pd.NA or obj is None:
+        return None
+    return obj
+
+
+def _column_values(column: pd.Series) -> list:
+    """One column as JSON-ready Python values (NaN/inf -> None), cleaned column-wise."""
+    dtype = column.dtype
+    if isinstance(dtype, np.dtype) and dtype.kind == "f":
+        v = column.to_numpy()
+        out = v.tolist()
+        for i in np.flatnonzero(~np.isfinite(v)).tolist():
+            out[i] = None
+        return out
+    if isinstance(dtype, np.dtype) and dtype.kind in "iub":
+        return column.to_numpy().tolist()
+    return [json_safe(v) for v in column.astype(object).where(column.notna(), None)]
+
+
+def records(frame: pd.DataFrame) -> list:
+    """Rows of ``frame`` as JSON-ready dicts (what :func:`json_safe` makes of them).
+
+    Numeric columns are cleaned as whole arrays; only object columns go value
+    by value through :func:`json_safe`.
+    """
+    keys = [str(k) for k in frame.columns]
+    if not keys:
+        return [{} for _ in range(len(frame))]
+    columns = [_column_values(frame.iloc[:, j]) for j in range(len(keys))]
+    return [dict(zip(keys, row)) for row in zip(*columns)]
+
+
+def results_document(result) -> dict:
+    """The content of ``results.json``."""
+    cfg = result.config
+    doc = {
+        "title": cfg.title,
+        "fits": records(result.fits),
+        "slope_tests": records(result.slope_tests),
+        "dropped_rows": records(result.dropped),
+        "messages": list(result.messages),
+        "warnings": list(result.warnings),
+        "caution": CAUTION,
+        "saved_fits": list(result.tables.get("_saved_fits", {}).values()),
+        "data_summary": {
+            "rows_read": result.data.n_read, "rows_dropped": len(result.dropped),
+            "points_fitted": len(result.data.points),
+            "averaged_within": result.data.averaged_within,
+            "units": result.data.units, "x": cfg.data.x, "y": cfg.data.y,
+            "group": cfg.data.group,
+        },
+        "manifest": result.manifest,
+    }
+    clean = {"fits", "slope_tests", "dropped_rows"}   # records() are JSON-ready already
+    for name, table in result.tables.items():
+        if isinstance(table, pd.DataFrame) and not name.startswith("_"):
+            doc[name] = records(table)
+            clean.add(name)
+    return {str(k): v if k in clean else json_safe(v) for k, v in doc.items()}
+
+
+def check_out_dir(out_dir: Path, force: bool) -> None:
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OutputError(f"{out_dir}: output path exists and is not a folder")
+    if out_dir.exists() and any(out_dir.iterdir()) and not force:
+        raise OutputError(f"{out_dir}: output folder is not empty; use --force to replace "
+                          "the files scaling writes there (other files are left alone)")
+
+
+def write_outputs(result, out_dir: Path | str, *, force: bool = False, worker=None):
+    """Write the output folder atomically and return the result with ``files`` set.
+
+    Files are built in a temporary folder beside ``out_dir`` and moved into
+    place only when all of them were written, so a failure leaves
+    ``out_dir`` as it was.  A non-empty ``out_dir`` is refused unless
+    ``force``; with ``force`` only the files written here are replaced.
+    ``worker`` is a :class:`~scaling.render.figure_worker.FigureWorker` started with
+    the run, to draw the figures; without one they are drawn here.
+    """
+    out_dir = Path(out_dir)
+    inputs = [Path(result.config.data.file)] + \
+        ([Path(result.config.source)] if result.config.source else [])
+    check_out_dir(out_dir, force)
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
+    try:
+        written, result = _write_all(result, tmp, worker)
+        # Never overwrite an input, even with --force.
+        protected = {p.resolve() for p in inputs}
+        for rel in written:
+            if (out_dir / rel).resolve() in protected:
+                raise OutputError(f"{out_dir / rel}: refusing to overwrite an input file")
+        out_dir.mkdir(parents=True, exist_ok=True)
+        for rel in written:
+            target = out_dir / rel
+            target.parent.mkdir(parents=True, exist_ok=True)
+            os.replace(tmp / rel, target)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    files = tuple(out_dir / rel for rel in written)
+    return replace(result, out_dir=out_dir, files=files)
+
+
+def write_csv(frame: pd.DataFrame, path: Path) -> None:
+    frame.to_csv(path, index=False, lineterminator="\n")
+
+
+def _write_all(result, folder: Path, worker=None) -> tuple:
+    """Write every file into ``folder``; return (relative paths, result with figure notes)."""
+    written: list[Path] = []
+
+    def csv(name, frame):
+        write_csv(frame, folder / name)
+        written.append(Path(name))
+
+    csv("fits.csv", result.fits)
+    csv("slope_tests.csv", result.slope_tests)
+    csv("dropped_rows.csv", result.dropped)
+    for name, table in result.tables.items():
+        if isinstance(table, pd.DataFrame) and not name.startswith("_"):
+            csv(f"{name}.csv", table)
+    # Figures and report are optional stages; each returns relative paths.
+    (folder / "figures").mkdir(exist_ok=True)
+    drawn = worker.draw(result, folder) if worker is not None else None
+    paths, skipped = drawn if drawn is not None else draw_figures(result, folder)
+    written += [Path(p) for p in paths]
+    if skipped:   # a skipped figure is a note of the run: terminal, report and results.json
+        result = replace(result, warnings=tuple(result.warnings) + tuple(skipped))
+    written += _report.write_report(result, folder, written)
+    doc = results_document(result)
+    doc["files"] = sorted(str(p) for p in written) + ["results.json"]
+    with open(folder / "results.json", "w", encoding="utf-8") as fh:
+        json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
+    written.append(Path("results.json"))
+    return written, result
+
+
+def file_sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def manifest_header(cfg) -> dict:
+    """The first entries of every run's manifest: version, time, config, input hash."""
+    path = Path(cfg.data.file)
+    return {
+        "scaling_version": __version__,
+        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "config_file": str(cfg.source) if cfg.source else None,
+        "config": json_safe(cfg.raw),
+        "input_file": str(cfg.data.file),
+        "input_sha256": file_sha256(path) if path.is_file() else None,
+        "versions": versions(),
+    }
+
+
+def versions() -> dict:
+    # Installed versions from package metadata: importing statsmodels and matplotlib
+    # only to read __version__ cost about a second in runs that use neither.
+    from importlib.metadata import version
+    return {"python": platform.python_version(), "scaling": __version__,
+            "numpy": np.__version__, "scipy": version("scipy"), "pandas": pd.__version__,
+            "statsmodels": version("statsmodels"), "matplotlib": version("matplotlib"),
+            "pyyaml": version("PyYAML")}

@@ -1,0 +1,445 @@
+"""Read a measurement table, keep the usable rows, and say why others went.
+
+The result is a :class:`CleanData`: the points to fit (natural and log
+values, group, and input row numbers) and an audit table ``dropped`` with
+one row per input row removed and the reason.  Row numbers: row 1
+is the first line after the header line, counting every line (blank lines and
+a units row too), so header line + row = file line, which lets a user find a
+dropped row in any editor.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .config import DataConfig
+from ..errors import DataError, DataWarning
+from ..stats.lines import to_log
+
+__all__ = ["CleanData", "load_data", "read_table", "clean_table"]
+
+# "3,5" or "-0,25" or "1,5e3": a number written with a decimal comma.
+_DECIMAL_COMMA = re.compile(r"^[-+]?\d*,\d+(?:[eE][-+]?\d+)?$")
+_DECIMAL_HINT = 'if "," is the decimal mark, set data.decimal: ","'
+
+_MISSING_TOKENS = {"", "na", "n/a", "nan", "null", "none", "missing", "-", "--", "?", ".", "#n/a"}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class CleanData:
+    """Points ready to fit, and the audit of what was removed.
+
+    Attributes
+    ----------
+    points : DataFrame
+        Columns ``row`` (input row, or first row of the unit), ``x``, ``y``
+        (natural units; geometric means after averaging), ``log_x``,
+        ``log_y``, ``group`` (or absent), ``n_rows`` (rows behind the point)
+        and ``unit`` when averaged.
+    dropped : DataFrame
+        Columns ``row, reason``.
+    n_read : int
+        Data rows read (excluding a units row).
+    units : dict
+        ``{"x": ..., "y": ...}`` labels, from the config or the units row.
+    averaged_within : str or None
+        Column whose units were averaged.
+    """
+
+    points: pd.DataFrame
+    dropped: pd.DataFrame
+    n_read: int
+    units: dict = field(default_factory=dict)
+    averaged_within: str | None = None
+    n_rows_used: int = 0
+
+    @property
+    def has_groups(self) -> bool:
+        return "group" in self.points.columns
+
+
+def _sniff_delimiter(path: Path, cfg: DataConfig) -> str:
+    with open(path, encoding=_encoding(cfg), errors="replace", newline="") as fh:
+        for _ in range(cfg.skip_rows):
+            fh.readline()
+        header = fh.readline()
+    counts = {d: header.count(d) for d in (",", "\t", ";")}
+    if cfg.decimal == ",":
+        counts.pop(",")
+    best = max(counts, key=counts.get)
+    return best if counts[best] > 0 else ","
+
+
+def _encoding(cfg: DataConfig) -> str:
+    enc = cfg.encoding.lower().replace("_", "-")
+    return "utf-8-sig" if enc in ("utf-8", "utf8") else cfg.encoding
+
+
+def read_table(cfg: DataConfig) -> pd.DataFrame:
+    """Read the raw table as given, every cell as text (csv/tsv) or as stored.
+
+    The returned frame has a default index 0..N-1 where index i is row i + 1
+    of the module's row numbering.
+    """
+    path = Path(cfg.file)
+    if not path.exists():
+        raise DataError(f"{path}: data file not found (data.file)")
+    if path.is_dir():
+        raise DataError(f"{path}: is a folder, not a data file (data.file)")
+    suffix = path.suffix.lower()
+    try:
+        if suffix in (".xlsx", ".xlsm", ".xls"):
+            try:
+                import openpyxl  # noqa: F401
+            except ImportError:
+                raise DataError(f"{path}: reading Excel files needs the 'excel' extra: "
+                                "pip install 'scaling[excel]'") from None
+            table = pd.read_excel(path, sheet_name=cfg.sheet, skiprows=cfg.skip_rows,
+                                  header=0, dtype=object)
+        elif suffix == ".parquet":
+            try:
+                import pyarrow  # noqa: F401
+            except ImportError:
+                raise DataError(f"{path}: reading Parquet files needs the 'parquet' extra: "
+                                "pip install 'scaling[parquet]'") from None
+            table = pd.read_parquet(path)
+        else:
+            if cfg.delimiter == cfg.decimal:
+                raise DataError(f"{path}: data.delimiter and data.decimal are both "
+                                f"{cfg.delimiter!r}")
+            sep = _sniff_delimiter(path, cfg) if cfg.delimiter == "auto" else cfg.delimiter
+            table = pd.read_csv(path, sep=sep, skiprows=cfg.skip_rows, header=0,
+                                dtype=str, keep_default_na=False, na_filter=False,
+                                skip_blank_lines=False, encoding=_encoding(cfg),
+                                engine="python" if len(sep) > 1 else "c")
+    except DataError:
+        raise
+    except UnicodeDecodeError as exc:
+        raise DataError(f"{path}: cannot decode as {cfg.encoding} ({exc.reason}); "
+                        "set data.encoding (e.g. latin-1)") from None
+    except ValueError as exc:
+        # e.g. an Excel sheet that does not exist
+        raise DataError(f"{path}: cannot read table: {str(exc).splitlines()[0]}") from None
+    except Exception as exc:  # parser errors from pandas / engines
+        raise DataError(f"{path}: cannot read table: {str(exc).splitlines()[0]}") from None
+    table.columns = [str(c).strip() for c in table.columns]
+    return table.reset_index(drop=True)
+
+
+def _column(table: pd.DataFrame, name: str, key: str, path: Path) -> pd.Series:
+    if name not in table.columns:
+        close = difflib.get_close_matches(name, list(table.columns), n=1, cutoff=0.6)
+        hint = f"; did you mean '{close[0]}'?" if close else ""
+        shown = ", ".join(list(table.columns)[:12])
+        raise DataError(f"{path}: column '{name}' ({key}) not found{hint} "
+                        f"Columns are: {shown}")
+    col = table[name]
+    if isinstance(col, pd.DataFrame):
+        raise DataError(f"{path}: column '{name}' ({key}) appears more than once in the header")
+    return col
+
+
+def _as_text(series: pd.Series) -> pd.Series:
+    def text(v):
+        if v is None or (isinstance(v, float) and math.isnan(v)):
+            return ""
+        return str(v).strip()
+    return series.map(text)
+
+
+def _parse_numbers(series: pd.Series, decimal: str):
+    """Return (values, problem) arrays: float values and '' or a problem word."""
+    if pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype):
+        values = series.to_numpy(dtype=float, na_value=np.nan)
+        raw = pd.Series([""] * len(series), index=series.index)
+    else:
+        raw = _as_text(series)
+        cleaned = raw.str.replace(",", ".", regex=False) if decimal == "," else raw
+        values = pd.to_numeric(cleaned, errors="coerce").to_numpy(dtype=float)
+    problem = np.full(len(series), "", dtype=object)
+    lower = raw.str.lower()
+    missing = lower.isin(_MISSING_TOKENS).to_numpy() | (np.isnan(values) & (raw == "").to_numpy())
+    censored = raw.str.match(r"^[<>]\s*=?\s*[-+]?\d").to_numpy()
+    nan = np.isnan(values)
+    problem[nan] = "non-numeric"
+    problem[nan & censored] = "censored"
+    problem[nan & missing] = "missing"
+    finite = np.isfinite(values)
+    problem[~nan & ~finite] = "infinite"
+    problem[finite & (values == 0)] = "zero"
+    problem[finite & (values < 0)] = "negative"
+    return values, problem, raw.to_numpy()
+
+
+#: Public name: the engine parses chunks with the same text rules.
+parse_numbers = _parse_numbers
+
+
+def _reason(role: str, column: str, problem: str, raw: str, decimal: str = ".") -> str:
+    what = f"{role} ({column})"
+    if problem == "missing":
+        return f"{what} is missing"
+    if problem == "non-numeric":
+        if decimal != "," and _DECIMAL_COMMA.match(raw):
+            return f"{what} is not a number: {raw!r} ({_DECIMAL_HINT})"
+        return f"{what} is not a number: {raw!r}"
+    if problem == "censored":
+        return f"{what} is censored: {raw!r}"
+    if problem == "infinite":
+        return f"{what} is infinite"
+    if problem == "zero":
+        return f"{what} is zero: no logarithm"
+    return f"{what} is negative: no logarithm"
+
+
+def _matches(raw_text: pd.Series, targets) -> np.ndarray:
+    hit = np.zeros(len(raw_text), dtype=bool)
+    numbers = pd.to_numeric(raw_text, errors="coerce").to_numpy(dtype=float)
+    for target in targets:
+        hit |= (raw_text == str(target).strip()).to_numpy()
+        if isinstance(target, (int, float)) and not isinstance(target, bool):
+            hit |= numbers == float(target)
+    return hit
+
+
+def _blank_and_excluded(table, keep, reasons, cfg, path):
+    """Note blank lines and rows matched by ``data.exclude`` in ``reasons``; warn about
+    exclude values that match nothing.  Returns the mask of rows still active."""
+    all_text = table.apply(_as_text) if len(table.columns) else table
+    blank = (all_text == "").all(axis=1).to_numpy() if len(table) else np.zeros(0, bool)
+    for i in np.flatnonzero(blank & keep):
+        reasons[i].append("blank line")
+    active = keep & ~blank
+    for column, values in cfg.exclude.items():
+        text = _as_text(table[column])
+        hit = _matches(text, values)
+        for i in np.flatnonzero(hit & active):
+            reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
+        _warn_unmatched(column, values, text[keep & ~blank], path)
+    excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
+    return active & ~excluded
+
+
+def _dropped_and_used(reasons, rows, keep, n_read: int, path):
+    """The dropped-rows table (row, reasons joined by "; ") and the mask of rows used.
+
+    Raises DataError when the table has no data rows or every row was dropped
+    (naming the most common reason).
+    """
+    dropped_mask = np.array([bool(r) for r in reasons], dtype=bool) & keep
+    dropped = pd.DataFrame({
+        "row": rows[dropped_mask].astype(int),
+        "reason": ["; ".join(reasons[i]) for i in np.flatnonzero(dropped_mask)],
+    })
+    use = keep & ~dropped_mask
+    if n_read == 0:
+        raise DataError(f"{path}: has no data rows under the header line")
+    if not use.any():
+        common = dropped["reason"].value_counts().index[0] if len(dropped) else "the table is empty"
+        raise DataError(f"{path}: no usable rows: all {n_read} data rows were dropped "
+                        f"(most common reason: {common})")
+    return dropped, use
+
+
+def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> CleanData:
+    """Select, exclude, coerce, drop and (optionally) average; see module doc."""
+    path = Path(cfg.file)
+    units = dict(cfg.units)
+    rows = np.arange(1, len(table) + 1)
+    keep = np.ones(len(table), dtype=bool)
+    if cfg.units_row:
+        if len(table) == 0:
+            raise DataError(f"{path}: data.units_row is true but there is no line under the header")
+        first = table.iloc[0]
+        _check_units_row(first, cfg, path)
+        for role, name in (("x", cfg.x), ("y", cfg.y)):
+            if name in table.columns and role not in units:
+                unit = str(first[name]).strip()
+                if unit and unit.lower() != "nan":
+                    units[role] = unit
+        keep[0] = False
+    n_read = int(keep.sum())
+
+    x_col = _column(table, cfg.x, "data.x", path)
+    y_col = _column(table, cfg.y, "data.y", path)
+    g_col = _column(table, cfg.group, "data.group", path) if cfg.group else None
+    u_key = "data.species" if cfg.tree is not None and cfg.average_within == cfg.species \
+        else "data.average_within"
+    u_col = _column(table, cfg.average_within, u_key, path) if cfg.average_within else None
+    for column in cfg.exclude:
+        _column(table, column, f"data.exclude.{column}", path)
+
+    reasons = [[] for _ in range(len(table))]
+    active = _blank_and_excluded(table, keep, reasons, cfg, path)
+
+    if g_col is not None:
+        g_text = _as_text(g_col).to_numpy()
+        for i in np.flatnonzero((g_text == "") & active):
+            reasons[i].append(f"group ({cfg.group}) is missing")
+    if u_col is not None:
+        u_text = _as_text(u_col).to_numpy()
+        for i in np.flatnonzero((u_text == "") & active):
+            reasons[i].append(f"{cfg.average_within} (data.average_within) is missing")
+
+    x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal)
+    y_val, y_prob, y_raw = _parse_numbers(y_col, cfg.decimal)
+    for role, column, prob, raw in (("x", cfg.x, x_prob, x_raw), ("y", cfg.y, y_prob, y_raw)):
+        _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
+        for i in np.flatnonzero((prob != "") & active):
+            reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
+
+    dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
+
+    base = log_base
+    pts = pd.DataFrame({
+        "row": rows[use].astype(int),
+        "x": x_val[use],
+        "y": y_val[use],
+    })
+    pts["log_x"] = to_log(pts["x"].to_numpy(), base)
+    pts["log_y"] = to_log(pts["y"].to_numpy(), base)
+    if g_col is not None:
+        pts["group"] = g_text[use]
+    pts["n_rows"] = 1
+    n_used = int(use.sum())
+    if u_col is not None:
+        pts["unit"] = u_text[use]
+        pts = _average_within(pts, cfg, path, base)
+    return CleanData(points=pts.reset_index(drop=True), dropped=dropped, n_read=n_read,
+                     units=units, averaged_within=cfg.average_within, n_rows_used=n_used)
+
+
+def _check_units_row(first: pd.Series, cfg: DataConfig, path: Path) -> None:
+    """Refuse a 'units row' whose x and y cells are numbers: it is a data row."""
+    cells = {}
+    for name in (cfg.x, cfg.y):
+        if name not in first.index:
+            return   # the missing column is reported by _column, with its hint
+        raw = first[name]
+        raw = raw.iloc[0] if isinstance(raw, pd.Series) else raw
+        values, problem, _ = _parse_numbers(pd.Series([raw], dtype=object), cfg.decimal)
+        if problem[0] not in ("", "zero", "negative"):
+            return   # text (a unit), empty or censored: not a plain number
+        cells[name] = str(raw).strip()
+    shown = ", ".join(f"{k} = {v}" for k, v in cells.items())
+    raise DataError(f"{path}: data.units_row is true, but row 1 (the line under the header) "
+                    f"holds numbers ({shown}), not units; it would be lost as data. Set "
+                    "data.units_row: false, or add the units line to the file")
+
+
+def _warn_unmatched(column: str, values, text: pd.Series, path: Path) -> None:
+    """Warn for each exclude value that matches no row of ``column`` (a typo?)."""
+    present = sorted(set(text) - {""})
+    for value in values:
+        if _matches(text, [value]).any():
+            continue
+        close = difflib.get_close_matches(str(value).strip(), present, n=3, cutoff=0.6)
+        if close:
+            hint = "closest values: " + ", ".join(repr(c) for c in close)
+        else:
+            hint = ("values there include: " + ", ".join(repr(c) for c in present[:5])
+                    + (", ..." if len(present) > 5 else "")) if present else "the column is empty"
+        warnings.warn(f"{path}: data.exclude.{column}: {str(value)!r} matches no row of "
+                      f"column '{column}', so nothing was excluded for it ({hint})",
+                      DataWarning, stacklevel=3)
+
+
+def _check_decimal_comma(role: str, column: str, problem: np.ndarray, raw: np.ndarray,
+                         cfg: DataConfig, path: Path) -> None:
+    """A whole column unreadable because of decimal commas: one error with the fix."""
+    if cfg.decimal == "," or not len(problem):
+        return
+    present = problem != "missing"
+    if not present.any() or not (problem[present] == "non-numeric").all():
+        return
+    commas = [str(v) for v in raw[present] if _DECIMAL_COMMA.match(str(v))]
+    if not commas:
+        return
+    shown = ", ".join(repr(v) for v in commas[:3])
+    raise DataError(f"{path}: column '{column}' (data.{role}) holds no number read with "
+                    f"data.decimal \".\" (values like {shown}); {_DECIMAL_HINT}")
+
+
+def _average_within(pts: pd.DataFrame, cfg: DataConfig, path: Path, base) -> pd.DataFrame:
+    """Collapse rows to one point per unit: means of the logs (geometric means)."""
+    if "group" in pts.columns:
+        spans = pts.groupby("unit", sort=False)["group"].nunique()
+        bad = spans[spans > 1]
+        if len(bad):
+            unit = bad.index[0]
+            groups = sorted(pts.loc[pts["unit"] == unit, "group"].unique())
+            raise DataError(f"{path}: {cfg.average_within} '{unit}' appears in more than one "
+                            f"group ({cfg.group}: {', '.join(map(str, groups))}); "
+                            "each unit must belong to one group")
+    agg = {"row": ("row", "min"), "log_x": ("log_x", "mean"), "log_y": ("log_y", "mean"),
+           "n_rows": ("n_rows", "sum")}
+    if "group" in pts.columns:
+        agg["group"] = ("group", "first")
+    out = pts.groupby("unit", sort=False).agg(**agg).reset_index()
+    if base is None:
+        out["x"], out["y"] = out["log_x"], out["log_y"]
+    else:
+        out["x"] = np.power(base, out["log_x"])
+        out["y"] = np.power(base, out["log_y"])
+    cols = ["row", "unit", "x", "y", "log_x", "log_y"] + \
+        (["group"] if "group" in out.columns else []) + ["n_rows"]
+    return out[cols].sort_values("row", kind="stable")
+
+
+def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> CleanData:
+    """:func:`clean_table` for several predictor columns (``data.x`` a list).
+
+    The same drop reasons as for one predictor, per column (``x (height_m)
+    is missing``).  ``points`` holds ``row, y, log_y, n_rows`` and, for the
+    j-th predictor (from 0), ``x{j}`` and ``log_x{j}``; ``x`` and ``log_x``
+    repeat the first predictor.  Groups and averaging are not available here
+    (refused by the config).
+    """
+    path = Path(cfg.file)
+    units = dict(cfg.units)
+    xs = cfg.x_columns
+    rows = np.arange(1, len(table) + 1)
+    keep = np.ones(len(table), dtype=bool)
+    if cfg.units_row:
+        if len(table) == 0:
+            raise DataError(f"{path}: data.units_row is true but there is no line under the header")
+        keep[0] = False
+    n_read = int(keep.sum())
+    x_cols = [_column(table, name, f"data.x[{j}]", path) for j, name in enumerate(xs)]
+    y_col = _column(table, cfg.y, "data.y", path)
+    for column in cfg.exclude:
+        _column(table, column, f"data.exclude.{column}", path)
+    reasons = [[] for _ in range(len(table))]
+    active = _blank_and_excluded(table, keep, reasons, cfg, path)
+    parsed = [("x", name, *_parse_numbers(col, cfg.decimal)) for name, col in zip(xs, x_cols)]
+    parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal)))
+    for role, column, _, prob, raw in parsed:
+        _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
+        for i in np.flatnonzero((prob != "") & active):
+            reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
+    dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
+    pts = pd.DataFrame({"row": rows[use].astype(int)})
+    for j, (_, _, values, _, _) in enumerate(parsed[:-1]):
+        pts[f"x{j}"] = values[use]
+        pts[f"log_x{j}"] = to_log(values[use], log_base)
+    pts["y"] = parsed[-1][2][use]
+    pts["log_y"] = to_log(pts["y"].to_numpy(), log_base)
+    pts["x"], pts["log_x"] = pts["x0"], pts["log_x0"]
+    pts["n_rows"] = 1
+    return CleanData(points=pts.reset_index(drop=True), dropped=dropped, n_read=n_read,
+                     units=units, averaged_within=None, n_rows_used=int(use.sum()))
+
+
+def load_data(cfg: DataConfig, *, log_base=10.0) -> CleanData:
+    """Read and clean the table named by ``cfg`` (see :func:`clean_table`)."""
+    if isinstance(cfg.x, tuple):   # several predictors
+        return clean_table_several(read_table(cfg), cfg, log_base=log_base)
+    return clean_table(read_table(cfg), cfg, log_base=log_base)

@@ -1,0 +1,395 @@
+"""The answer first: at most three sentences for the line that answers the question.
+
+Pure functions over a run's tables (``fits``, ``slope_tests``, ``group_tests``,
+``pairwise_tests``) and a few config facts; nothing is recomputed here.
+
+Which line answers the question
+-------------------------------
+* The *primary method* leads: ``model.primary``, by default the first
+  symmetric method requested (SMA, MA, Deming, robust SMA, robust MA), else
+  OLS (:func:`primary_method`).  If groups were compared but not with the
+  primary method (e.g. Deming), the comparison of the first compared method
+  in the order SMA, MA, OLS is read.
+* No groups compared: the pooled exponent, its interval and its verdict
+  against each hypothesised exponent.
+* Groups compared and their slopes do not differ (p > 1 - confidence): the
+  common within-group exponent (scope ``common``), its interval and its
+  verdicts; then whether the groups differ in elevation or position along
+  the common axis.  When elevations differ and the pooled exponent lies
+  outside the common exponent's interval, the pooled line mixes groups and
+  under- or overstates the within-group exponent: said plainly (pooling
+  across groups at different elevations biases the pooled slope; e.g.
+  Warton et al. 2006, Biol. Rev. 81:259, section on shifts in elevation).
+* Slopes differ: no single exponent; a per-group verdict table
+  (``group_table``).
+
+Verdicts use :func:`scaling.render.wording.verdict_phrase` at alpha = 1 - confidence.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+import pandas as pd
+
+from ..stats.schema import method_label
+from .wording import format_p, plural as plural_of, verdict_phrase
+
+__all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
+           "headline_of", "exponent_words"]
+
+#: Symmetric methods in the order the default primary method is chosen.
+SYMMETRIC_ORDER = ("sma", "ma", "deming", "sma_robust", "ma_robust")
+
+_FRACTIONS = {0.75: "3/4", 2 / 3: "2/3", 1.0: "1", 0.5: "1/2", 1 / 3: "1/3", 0.25: "1/4",
+              3.0: "3", 2.0: "2"}
+_LINE_WORDS = {"pooled": "pooled", "common": "common within-group", "group_means":
+               "through the group means", "group": "group"}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Headline:
+    """The opening of the report.
+
+    Attributes
+    ----------
+    primary : str
+        The method whose line leads.
+    line : str
+        ``"pooled"`` (no groups compared), ``"common"`` (slopes do not differ)
+        or ``"groups"`` (slopes differ).
+    sentences : tuple of str
+        At most three.
+    exponent_table : DataFrame
+        One row per fit (line, method, exponent, interval) and one column per
+        hypothesised exponent holding the verdict and p-value.
+    group_table : DataFrame or None
+        Per-group verdicts of the primary method when slopes differ.
+    matrices : dict
+        Test name -> groups x groups DataFrame of Holm-adjusted p-values
+        (upper triangle; ``*`` marks p <= 1 - confidence), for the method read.
+    """
+
+    primary: str
+    line: str
+    sentences: tuple
+    exponent_table: pd.DataFrame = field(compare=False)
+    group_table: pd.DataFrame | None = field(default=None, compare=False)
+    matrices: dict = field(default_factory=dict, compare=False)
+
+
+def primary_method(methods, primary: str | None = None) -> str:
+    """The leading method: ``primary`` if requested, else the first symmetric one, else OLS.
+
+    >>> primary_method(["ols", "ma", "sma"])
+    'ma'
+    >>> primary_method(["ols", "theil_sen"])
+    'ols'
+    """
+    methods = list(methods)
+    if primary is not None and primary in methods:
+        return primary
+    for m in methods:
+        if m in SYMMETRIC_ORDER:
+            return m
+    return "ols" if "ols" in methods else methods[0]
+
+
+def exponent_words(name: str, value: float) -> str:
+    """'3/4' for 0.75, else the value to four significant digits."""
+    for v, text in _FRACTIONS.items():
+        if math.isclose(value, v, rel_tol=1e-9):
+            return text
+    return f"{value:.4g}"
+
+
+def _p(p: float) -> str:
+    text = format_p(p)
+    return f"p {text}" if text.startswith("<") else f"p = {text}"
+
+
+def _ci(lo, hi, pct: str) -> str:
+    if np.isfinite(lo) and np.isfinite(hi):
+        return f"{pct} CI {lo:.3f}–{hi:.3f}"
+    return f"{pct} CI unbounded"
+
+
+def _short_verdict(est, b0, p, alpha) -> str:
+    if not np.isfinite(p):
+        return "not tested"
+    if p < alpha:
+        return f"{'above' if est > b0 else 'below'} ({_p(p)})"
+    return f"not different ({_p(p)})"
+
+
+def _verdict_list(tests: pd.DataFrame, alpha: float) -> str:
+    parts = []
+    for r in tests.itertuples(index=False):
+        target = exponent_words(str(r.hypothesis), float(r.exponent))
+        parts.append(f"{verdict_phrase(r.estimate, r.exponent, r.p_value, alpha=alpha, target=target)}"
+                     f" ({_p(r.p_value)})" if np.isfinite(r.p_value) else
+                     f"could not be tested against {target}")
+    if not parts:
+        return ""
+    return parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + " and " + parts[-1]
+
+
+def _row(frame: pd.DataFrame, scope: str, method: str, group: str = "") -> pd.Series | None:
+    if frame is None or not len(frame):
+        return None
+    sel = frame[(frame["scope"] == scope) & (frame["method"] == method)
+                & (frame["group"].fillna("").astype(str) == group)]
+    return sel.iloc[0] if len(sel) else None
+
+
+def _tests(slope_tests: pd.DataFrame, scope: str, method: str, group: str = ""):
+    if slope_tests is None or not len(slope_tests):
+        return slope_tests.iloc[:0] if slope_tests is not None else pd.DataFrame()
+    return slope_tests[(slope_tests["scope"] == scope) & (slope_tests["method"] == method)
+                       & (slope_tests["group"].fillna("").astype(str) == group)]
+
+
+def _test_index(slope_tests: pd.DataFrame | None) -> dict:
+    """Rows of ``slope_tests`` (as dicts, in table order) by (scope, method, group).
+
+    One pass over the table, so that looking up the tests of each of many
+    groups does not filter the whole table once per group.  ``group`` is the
+    group label as text ("" for none), as :func:`_tests` compares it.
+    """
+    out: dict = {}
+    if slope_tests is None or not len(slope_tests):
+        return out
+    keys = zip(slope_tests["scope"], slope_tests["method"],
+               slope_tests["group"].fillna("").astype(str))
+    for key, rec in zip(keys, slope_tests.to_dict(orient="records")):
+        out.setdefault(key, []).append(rec)
+    return out
+
+
+def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
+    """Fit x hypothesis: every pooled, common and group-means fit, and the
+    primary method's per-group fits."""
+    rows = []
+    if fits is None or not len(fits):
+        return pd.DataFrame()
+    hyps = [] if slope_tests is None or not len(slope_tests) else \
+        list(dict.fromkeys(zip(slope_tests["hypothesis"], slope_tests["exponent"])))
+    order = {"common": 0, "pooled": 1, "group_means": 2, "group": 3}
+    keep = fits[(fits["scope"] != "group") | (fits["method"] == primary)]
+    keep = keep.assign(_o=keep["scope"].map(order).fillna(9),
+                       _p=(keep["method"] != primary).astype(int))
+    keep = keep.sort_values(["_o", "_p"], kind="stable")
+    index = _test_index(slope_tests)
+    for r in keep.itertuples(index=False):
+        group = "" if pd.isna(r.group) else str(r.group)
+        line = _LINE_WORDS.get(r.scope, r.scope) + (f" {group}" if group else "")
+        rec = {"line": line, "method": method_label(str(r.method)),
+               "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
+        first: dict = {}   # the first test of each hypothesis for this line
+        for t in index.get((r.scope, r.method, group), ()):
+            first.setdefault(t["hypothesis"], t)
+        for name, b0 in hyps:
+            t = first.get(name)
+            label = f"vs {exponent_words(str(name), float(b0))}"
+            rec[label] = (_short_verdict(float(t["estimate"]), float(b0),
+                                         float(t["p_value"]), alpha)
+                          if t is not None else "")
+        rows.append(rec)
+    return pd.DataFrame(rows)
+
+
+def _matrices(pairwise: pd.DataFrame | None, method: str, groups, alpha) -> dict:
+    out = {}
+    need = {"method", "test", "group_a", "group_b", "p_adjusted"}
+    if pairwise is None or not len(pairwise) or not need <= set(pairwise.columns):
+        return out
+    sub = pairwise[pairwise["method"] == method]
+    for test, block in sub.groupby("test", sort=False):
+        names = [str(g) for g in groups] if groups else \
+            sorted(set(block["group_a"].astype(str)) | set(block["group_b"].astype(str)))
+        mat = pd.DataFrame("", index=names, columns=names)
+        for r in block.itertuples(index=False):
+            a, b = str(r.group_a), str(r.group_b)
+            if a in mat.index and b in mat.columns:
+                p = float(r.p_adjusted)
+                mark = "*" if np.isfinite(p) and p <= alpha else ""
+                mat.loc[a, b] = (format_p(p) + mark) if np.isfinite(p) else "–"
+        mat = mat.loc[names[:-1], names[1:]] if len(names) > 1 else mat
+        mat.index.name = "group"
+        out[str(test)] = mat
+    return out
+
+
+def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
+                   group_tests: pd.DataFrame | None = None,
+                   pairwise_tests: pd.DataFrame | None = None, *, methods,
+                   primary: str | None = None, confidence: float = 0.95,
+                   group_word: str = "group") -> Headline:
+    """The headline of a run from its tables (see the module notes for the rules).
+
+    Parameters
+    ----------
+    fits, slope_tests : DataFrame
+        As in ``fits.csv`` and ``slope_tests.csv`` (with scope ``common``
+        rows when groups were compared).
+    group_tests, pairwise_tests : DataFrame or None
+        As in ``group_tests.csv`` and ``pairwise_tests.csv``.
+    methods : sequence of str
+        The methods requested, in order.
+    primary : str or None
+        ``model.primary``.
+    confidence : float
+    group_word : str
+        What a group is called (the group column's name, e.g. "clade").
+
+    Returns
+    -------
+    Headline
+    """
+    alpha = 1 - confidence
+    pct = f"{100 * confidence:g}%"
+    lead = primary_method(methods, primary)
+    table = _exponent_table(fits, slope_tests, lead, alpha, pct)
+    usable = group_tests is not None and len(group_tests) and \
+        {"method", "test", "p_value"} <= set(group_tests.columns)
+    compared = list(dict.fromkeys(group_tests["method"])) if usable else []
+    read = lead if lead in compared else next(
+        (m for m in ("sma", "ma", "ols") if m in compared), None)
+    plural = plural_of(group_word)
+
+    if read is None and "term" in fits.columns and \
+            fits["term"].fillna("").astype(str).ne("").any():
+        return Headline(primary=lead, line="pooled",
+                        sentences=_several_predictors(fits, slope_tests, lead, alpha, pct),
+                        exponent_table=table)
+    if read is None:
+        fit = _row(fits, "pooled", lead)
+        if fit is None or not np.isfinite(fit["slope"]):
+            sentences = (f"The {method_label(lead)} line could not be fitted; see the notes.",)
+        else:
+            tests = _tests(slope_tests, "pooled", lead)
+            s1 = (f"The {method_label(lead)} exponent is {fit['slope']:.3f} "
+                  f"({_ci(fit['slope_low'], fit['slope_high'], pct)}, n = {int(fit['n'])}).")
+            verdicts = _verdict_list(tests, alpha)
+            sentences = (s1,) + ((f"It {verdicts}.",) if verdicts else ())
+        return Headline(primary=lead, line="pooled", sentences=sentences,
+                        exponent_table=table)
+
+    gt = group_tests[group_tests["method"] == read].set_index("test")
+    label = method_label(read)
+    matrices = _matrices(pairwise_tests, read, None, alpha)
+
+    def p_of(test):
+        return float(gt.loc[test, "p_value"]) if test in gt.index else math.nan
+
+    p_slope, p_elev, p_axis = (p_of(t) for t in ("slopes_equal", "intercepts_equal",
+                                                 "shift_along_axis"))
+    common = _row(fits, "common", read)
+    n_groups = ""
+    if common is not None and isinstance(common.get("note", ""), str):
+        n_groups = common["note"].split(" groups")[0].replace("common within-group slope of ", "")
+
+    if np.isfinite(p_slope) and p_slope <= alpha:
+        gfits = fits[(fits["scope"] == "group") & (fits["method"] == lead)]
+        rows = []
+        index = _test_index(slope_tests)
+        for r in gfits.itertuples(index=False):
+            rec = {group_word: r.group,
+                   "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
+            for t in index.get(("group", lead, str(r.group)), ()):
+                rec[f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"] = \
+                    _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha)
+            rows.append(rec)
+        s1 = (f"The {plural} do not share one exponent: their {label} slopes differ "
+              f"({_p(p_slope)}), so each {group_word} has its own; the table below gives each "
+              f"{group_word}'s exponent and verdict.")
+        out = [s1]
+        pooled = _row(fits, "pooled", lead)
+        if pooled is not None and np.isfinite(pooled["slope"]):
+            out.append(f"The pooled {method_label(lead)} exponent "
+                       f"({pooled['slope']:.3f}) only averages these differing slopes.")
+        return Headline(primary=lead, line="groups", sentences=tuple(out),
+                        exponent_table=table, group_table=pd.DataFrame(rows),
+                        matrices=matrices)
+
+    if common is None or not np.isfinite(common["slope"]):
+        sentences = (f"The {plural}' {label} slopes could not be compared for a common "
+                     "exponent; see the group comparisons.",)
+        return Headline(primary=read, line="common", sentences=sentences,
+                        exponent_table=table, matrices=matrices)
+    tests = _tests(slope_tests, "common", read)
+    how = "do not differ" if np.isfinite(p_slope) else "were not compared"
+    s1 = (f"Within {plural}, the common {label} exponent is {common['slope']:.3f} "
+          f"({_ci(common['slope_low'], common['slope_high'], pct)}; {n_groups} {plural}, "
+          f"n = {int(common['n'])}; the {plural}' slopes {how}"
+          + (f", {_p(p_slope)})." if np.isfinite(p_slope) else ")."))
+    verdicts = _verdict_list(tests, alpha)
+    out = [s1] + ([f"This within-{group_word} exponent {verdicts}."] if verdicts else [])
+    elev_differs = np.isfinite(p_elev) and p_elev <= alpha
+    axis_differs = np.isfinite(p_axis) and p_axis <= alpha
+    pos = "position along the common axis" if read != "ols" else "mean size (log x)"
+    if elev_differs:
+        s3 = f"The {plural} differ in elevation ({_p(p_elev)})"
+    elif np.isfinite(p_elev):
+        s3 = f"The {plural} do not differ detectably in elevation ({_p(p_elev)})"
+    else:
+        s3 = f"Elevations of the {plural} were not compared"
+    if np.isfinite(p_axis):
+        s3 += (f" and {'differ' if axis_differs else 'do not differ detectably'} in {pos} "
+               f"({_p(p_axis)})")
+    pooled = _row(fits, "pooled", read)
+    if elev_differs and pooled is not None and np.isfinite(pooled["slope"]):
+        b_pool, lo, hi = float(pooled["slope"]), common["slope_low"], common["slope_high"]
+        if np.isfinite(lo) and np.isfinite(hi) and not lo <= b_pool <= hi:
+            word = "understates" if b_pool < lo else "overstates"
+            s3 += (f"; the pooled line ({b_pool:.3f}) mixes {plural} and {word} the "
+                   f"within-{group_word} exponent")
+    out.append(s3 + ".")
+    return Headline(primary=read, line="common", sentences=tuple(out[:3]),
+                    exponent_table=table, matrices=matrices)
+
+
+def _several_predictors(fits, slope_tests, lead, alpha, pct) -> tuple:
+    """Exponents of a power law in several predictors, then their tests per hypothesis."""
+    rows = fits[(fits["scope"] == "pooled") & (fits["method"] == lead)]
+    parts = [f"{r.slope:.3f} for {r.term} ({_ci(r.slope_low, r.slope_high, pct)})"
+             for r in rows.itertuples(index=False)]
+    n = int(rows["n"].iloc[0]) if len(rows) else 0
+    s1 = (f"The {method_label(lead)} exponents are " + "; ".join(parts) + f" (n = {n}).")
+    tests = slope_tests[(slope_tests["scope"] == "pooled") & (slope_tests["method"] == lead)]
+    said = []
+    if "term" in tests.columns:
+        for name, t in tests.groupby("hypothesis", sort=False):
+            each = ", ".join(f"{r.term} vs {r.exponent:g} "
+                             f"{_short_verdict(r.estimate, r.exponent, r.p_value, alpha)}"
+                             for r in t.itertuples(index=False))
+            said.append(f"against {name}: {each}")
+    return (s1,) + ((("Tested " + "; ".join(said) + "."),) if said else ())
+
+
+_ANSWER_LINES = ("Predicted ", "Inverse prediction of ", "Total over ")
+
+
+def headline_of(result) -> Headline:
+    """:func:`build_headline` for a :class:`scaling.run.pipeline.RunResult`.
+
+    When the headline has room (fewer than three sentences) and the run made a
+    few predictions (a fossil's mass, a plot's total biomass), the prediction
+    sentence of the run becomes the last sentence: for those users it is the
+    answer.
+    """
+    cfg = result.config
+    tables = result.tables or {}
+    head = build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
+                          tables.get("pairwise_tests"), methods=cfg.model.methods,
+                          primary=getattr(cfg.model, "primary", None),
+                          confidence=cfg.model.confidence,
+                          group_word=str(cfg.data.group or "group"))
+    if len(head.sentences) < 3:
+        answer = next((m.strip() for prefix in _ANSWER_LINES for m in result.messages
+                       if m.strip().startswith(prefix)), None)
+        if answer:
+            head = replace(head, sentences=tuple(head.sentences) + (answer,))
+    return head

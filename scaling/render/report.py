@@ -1,0 +1,831 @@
+"""The run's report: one self-contained ``report.html``, ``summary.md`` and ``fits.tex``.
+
+The report renders results; it computes nothing.  :func:`build_report`
+turns a :class:`~scaling.run.pipeline.RunResult` into a small content model (a
+list of :class:`Section` holding paragraphs, lists, tables, images and
+preformatted text, all as raw strings and numbers); :func:`render_html` and
+:func:`render_markdown` write that one model out, each escaping every string
+exactly once on the way (``html.escape`` for HTML; Markdown and LaTeX
+escaping for the others).  Numbers are rounded only when rendered.
+
+The HTML file holds everything it shows: figures as base64 PNG data URIs,
+CSS inline, no scripts, and no external addresses of any kind; links point
+only to the files written beside it.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import math
+import re
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import yaml
+
+from .headline import headline_of
+from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
+                      format_p, mechanism_caution, medians_vs_means, method_label, p_text,
+                      predicted_unit, verdict_phrase)
+
+__all__ = ["write_report", "build_report", "render_html", "render_markdown",
+           "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
+           "format_value"]
+
+# Tables longer than this are folded (<details>) in the HTML report.
+FOLD_ROWS = 30
+
+FIGURE_CAPTIONS = {
+    "scaling": "Data on log–log axes in natural units; fitted lines over the fitted range "
+               "with their confidence bands; group means ± 1 SE (back-transformed).",
+    "natural": "Back-transformed fitted curves on arithmetic axes with prediction bands.",
+    "exponents": "Fitted exponents with confidence intervals for every fit; dashed lines "
+                 "mark the hypothesised exponents.",
+    "residuals": "Residuals on the log scale against position along each line, and against "
+                 "normal quantiles.",
+}
+SPREAD_CAPTION = ("Per-group exponents ordered by size with their confidence intervals; the "
+                  "random-effects mean and its interval (line and band); dotted lines mark "
+                  "the hypothesised exponents; only flagged groups are named.")
+GROUP_TEST_WORDS = {
+    "slopes_equal": ("a common slope (exponent) for all groups",
+                     "the groups' slopes differ"),
+    "intercepts_equal": ("a common elevation (intercept) given the common slope",
+                         "the groups' lines differ in elevation"),
+    "shift_along_axis": ("no shift of the groups along the common line",
+                         "the groups are shifted along the common line"),
+}
+
+
+# --------------------------------------------------------------------------
+# content model
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Block:
+    """One piece of a section.
+
+    ``kind`` is ``p`` (text), ``ul`` (items), ``table`` (frame), ``img``
+    (png bytes with ``text`` as caption and ``path`` the written file),
+    ``pre`` (text), ``links`` (items are relative paths), ``caution`` (text),
+    ``details`` (items shown folded, ``text`` the summary line).
+    ``highlight`` is a boolean per table row (e.g. extrapolated predictions).
+    """
+
+    kind: str
+    text: str = ""
+    items: tuple = ()
+    frame: pd.DataFrame | None = None
+    png: bytes = b""
+    path: str = ""
+    highlight: tuple = ()
+    name: str = ""
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Section:
+    """A titled part of the report."""
+
+    title: str
+    blocks: list = field(default_factory=list)
+    anchor: str = ""
+
+
+# --------------------------------------------------------------------------
+# rendering numbers
+
+
+_P_COLUMNS = re.compile(r"^(p|p_value|p_adjusted|p_adj|p_.*value.*|.*_p)$")
+_INT_COLUMNS = {"n", "row", "df", "rows", "n_rows", "count"}
+
+
+def format_value(value, column: str = "") -> str:
+    """Text of one table cell: p-values as people write them, others 4 significant digits.
+
+    Integer columns (n, row, df) as integers; booleans yes/no; missing as "–".
+    Large numbers keep all their integer digits (never e-notation below 10^9).
+    """
+    if value is None or value is pd.NA:
+        return "–"
+    if isinstance(value, (bool, np.bool_)):
+        return "yes" if value else "no"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        if not math.isfinite(v):
+            return "–" if math.isnan(v) else ("∞" if v > 0 else "−∞")
+        if _P_COLUMNS.match(column or ""):
+            return format_p(v)
+        if column in _INT_COLUMNS and v == round(v):
+            return str(int(round(v)))
+        if v == 0:
+            return "0"
+        k = math.floor(math.log10(abs(v)))
+        if k >= 9 or k < -4:
+            return f"{v:.3e}"
+        decimals = max(3 - k, 0)
+        text = f"{v:.{decimals}f}"
+        if "." in text:
+            text = text.rstrip("0").rstrip(".")
+        return text
+    return str(value)
+
+
+def _num(v: float, digits: int = 3) -> str:
+    """A number in a sentence (3 significant digits, no e-notation in ordinary ranges)."""
+    if not (isinstance(v, (int, float, np.floating)) and math.isfinite(float(v))):
+        return "n/a"
+    v = float(v)
+    if v == 0:
+        return "0"
+    k = math.floor(math.log10(abs(v)))
+    if k >= 9 or k < -4:
+        return f"{v:.{digits - 1}e}"
+    decimals = max(digits - 1 - k, 0)
+    return f"{v:.{decimals}f}"
+
+
+def _exponent_words(name: str, value: float) -> str:
+    label = exponent_label(value)
+    if name and name not in (label, f"{value:g}"):
+        return f"{label} ({name})"
+    return label
+
+
+# --------------------------------------------------------------------------
+# building the content
+
+
+def _scope_words(scope: str, group: str) -> str:
+    if scope == "pooled":
+        return "Pooled"
+    if scope == "group":
+        return f"Group {group}"
+    if scope == "group_means":
+        return "Line through the group means"
+    return f"{scope} {group}".strip()
+
+
+def _slope_sentences(result) -> list:
+    """(scope, sentence) per fit and hypothesised exponent, from the tables."""
+    tests = result.slope_tests
+    if tests is None or not len(tests):
+        return []
+    conf = result.config.model.confidence
+    alpha = 1 - conf
+    pct = f"{100 * conf:g}%"
+    fits = result.fits.set_index(["scope", "group", "method"]) if len(result.fits) else None
+    out = []
+    n_group, skipped = 0, 0
+    for r in tests.itertuples(index=False):
+        if r.scope == "group":   # bounded: at most ITEMS_MAX group sentences are written
+            n_group += 1
+            if n_group > ITEMS_MAX:
+                skipped += 1
+                continue
+        ci = ""
+        if fits is not None and (r.scope, r.group, r.method) in fits.index:
+            row = fits.loc[(r.scope, r.group, r.method)]
+            if isinstance(row, pd.DataFrame):
+                row = row.iloc[0]
+            lo, hi = row["slope_low"], row["slope_high"]
+            ci = (f" ({pct} CI {_num(lo)}–{_num(hi)})" if np.isfinite(lo) and np.isfinite(hi)
+                  else f" ({pct} CI unbounded)")
+        target = _exponent_words(str(r.hypothesis), float(r.exponent))
+        verdict = verdict_phrase(r.estimate, r.exponent, r.p_value, alpha=alpha, target=target)
+        verdict += f", {p_text(r.p_value)}." if np.isfinite(r.p_value) else "."
+        out.append((r.scope, f"{_scope_words(r.scope, r.group)}: the {method_label(str(r.method))} exponent "
+                   f"{_num(r.estimate)}{ci} {verdict}"))
+    if skipped:
+        out.append(("group", f"... and {skipped:,} more group tests; every test is in "
+                             "slope_tests.csv."))
+    return out
+
+
+def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
+    out = []
+    for _, r in table.iterrows():
+        test = str(r.get("test", ""))
+        method = method_label(str(r.get("method", "")))
+        p = r.get("p_value", np.nan)
+        null, alt = GROUP_TEST_WORDS.get(test, (f"the null hypothesis of {test}",
+                                                f"{test} is rejected"))
+        stat = r.get("statistic", np.nan)
+        df = r.get("df", np.nan)
+        detail = []
+        if isinstance(stat, (int, float, np.floating)) and np.isfinite(stat):
+            detail.append(f"statistic {_num(stat)}")
+        if isinstance(df, (int, float, np.floating)) and np.isfinite(df):
+            detail.append(f"df = {format_value(df, 'df')}")
+        if isinstance(p, (int, float, np.floating)) and np.isfinite(p):
+            detail.append(p_text(float(p)))
+            verdict = (f"evidence that {alt}" if p < alpha
+                       else f"consistent with {null}")
+        else:
+            verdict = "not tested"
+        common = r.get("common_slope", np.nan)
+        extra = ""
+        if test == "slopes_equal" and isinstance(common, (int, float, np.floating)) \
+                and np.isfinite(common):
+            extra = f" Common slope {_num(common)}."
+        out.append(f"{method} {test.replace('_', ' ')}: {verdict} "
+                   f"({', '.join(detail)}).{extra}")
+    return out
+
+
+def _data_section(result) -> Section:
+    cfg = result.config
+    data = result.data
+    pts = data.points
+    units = data.units or {}
+    blocks = []
+    facts = [
+        f"Input file: {Path(str(cfg.data.file)).name}",
+        f"Rows read: {data.n_read}",
+        f"Rows dropped: {len(result.dropped)}",
+        f"Points fitted: {len(pts)}",
+        f"x: {cfg.data.x}" + (f" ({units['x']})" if units.get("x") else ""),
+        f"y: {cfg.data.y}" + (f" ({units['y']})" if units.get("y") else ""),
+        f"Log base: {cfg.model.log_base}; methods: "
+        f"{', '.join(method_label(m) for m in cfg.model.methods)}; confidence "
+        f"{100 * cfg.model.confidence:g}%",
+    ]
+    if getattr(data, "averaged_within", None):
+        facts.append(f"Each point is the mean (of logs) of the rows of one "
+                     f"{data.averaged_within} ({getattr(data, 'n_rows_used', '')} rows used)")
+    blocks.append(Block(kind="ul", items=tuple(facts)))
+    if "group" in pts.columns:
+        counts = pts.groupby("group", sort=True).size()
+        blocks.append(Block(kind="p", text=f"Groups ({cfg.data.group}): " + "; ".join(
+            f"{g} (n = {n})" for g, n in counts.items())))
+    dropped = result.dropped
+    if dropped is not None and len(dropped):
+        summary = (dropped.groupby("reason", sort=False)["row"]
+                   .agg(lambda rows: ", ".join(str(int(v)) for v in list(rows)[:12]
+                                               if pd.notna(v))   # tree tips: no row
+                        + (" …" if len(rows) > 12 else ""))
+                   .reset_index())
+        summary.insert(1, "rows", dropped.groupby("reason", sort=False).size().to_numpy())
+        summary.columns = ["reason", "rows", "row numbers"]
+        blocks.append(Block(kind="p", text="Rows dropped, by reason (row 1 is the first line "
+                                           "after the header; all are listed in "
+                                           "dropped_rows.csv):"))
+        blocks.append(Block(kind="table", frame=summary, name="dropped rows by reason"))
+    else:
+        blocks.append(Block(kind="p", text="No rows were dropped."))
+    return Section(title="Data", blocks=blocks, anchor="data")
+
+
+def _figure_blocks(result, folder: Path, written: list) -> list:
+    blocks = []
+    written_set = {Path(p).as_posix() for p in written}
+    for kind in result.config.figures.kinds:
+        rel = f"figures/{kind}.png"
+        if rel in written_set and (folder / rel).exists():
+            png = (folder / rel).read_bytes()
+            path = rel
+        else:
+            try:
+                from .figures import figure_png   # matplotlib: only for a figure not on disk
+                png = figure_png(result, kind, dpi=150)
+            except Exception:  # noqa: BLE001 -- a figure that cannot be drawn is left out;
+                continue       # write_figures has already put a note in the run's warnings
+            path = ""
+        blocks.append(Block(kind="img", png=png, path=path, name=kind,
+                            text=FIGURE_CAPTIONS.get(kind, kind)))
+    rel = "figures/group_exponents.png"   # summary across many groups (scaling.run.moments_path)
+    if rel in written_set and (folder / rel).exists():
+        blocks.append(Block(kind="img", png=(folder / rel).read_bytes(), path=rel,
+                            name="group_exponents", text=SPREAD_CAPTION))
+    return blocks
+
+
+def _interval_text(lo, hi) -> str:
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        return "unbounded" if np.isfinite(lo) or np.isfinite(hi) else "–"
+    return f"{_num(float(lo), 4)} to {_num(float(hi), 4)}"
+
+
+def _fits_display(result) -> pd.DataFrame:
+    """The fits table as shown: intervals as one text cell, the line in natural units."""
+    fits = result.fits.head(TABLE_MAX_ROWS)   # bounded; build_report notes the rest
+    rows = []
+    for r in fits.to_dict(orient="records"):
+        fit = result.line_fits.get((r["scope"], r["group"], r["method"]))
+        eq = (f"{_num(fit.a)}·x^{_num(fit.slope)}"
+              if fit is not None and fit.log_base is not None and np.isfinite(fit.slope)
+              else "–")
+        row = {"scope": r["scope"], "group": r["group"], "method": method_label(str(r["method"])),
+               "n": r["n"], "b": r["slope"], "b interval": _interval_text(
+                   r["slope_low"], r["slope_high"]),
+               "log a": r["intercept"], "log a interval": _interval_text(
+                   r["intercept_low"], r["intercept_high"]),
+               "y = a·x^b": eq, "r2": r["r2"], "resid_sd": r.get("resid_sd", np.nan)}
+        if "percent_see" in r:
+            row["%SEE"] = r["percent_see"]
+        row["note"] = r.get("note", "")
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def _headline_section(head) -> Section:
+    """The answer first: at most three sentences, then the per-group verdicts."""
+    blocks = [Block(kind="p", text=" ".join(head.sentences))]
+    if head.group_table is not None and len(head.group_table):
+        blocks.append(Block(kind="table", frame=head.group_table,
+                            name=f"{method_label(head.primary)} exponent of each group"))
+    return Section(title="Answer", blocks=blocks, anchor="answer")
+
+
+def build_report(result, folder: Path | None = None, written=()) -> list:
+    """The report's content as a list of :class:`Section` (no escaping, no rounding)."""
+    folder = Path(folder) if folder is not None else Path(".")
+    written = list(written or ())
+    cfg = result.config
+    conf = cfg.model.confidence
+    tables = {k: v for k, v in (result.tables or {}).items()
+              if not str(k).startswith("_") and isinstance(v, pd.DataFrame)}
+    sections = []
+
+    head = headline_of(result)
+    sections.append(_headline_section(head))
+    # the per-method exponent-test bullets are replaced by the one exponent table
+    messages = tuple(m.strip() for m in result.messages if not m.startswith("  The "))
+    summary = [Block(kind="ul", items=messages)] if messages else []
+    if result.warnings:
+        summary.append(Block(kind="p", text="Points to check:"))
+        summary.append(Block(kind="ul", items=tuple(result.warnings)))
+    sections.append(Section(title="Summary", blocks=summary, anchor="summary"))
+    sections.append(_data_section(result))
+    sections.append(Section(title="Figures", anchor="figures",
+                            blocks=_figure_blocks(result, folder, written)))
+
+    fit_blocks = [Block(kind="p", text=(
+        f"b is the exponent of y = a·x^b and log a the intercept on log{cfg.model.log_base} "
+        f"scales, each with its {100 * conf:g}% confidence interval; a is the median of y at "
+        "x = 1; resid_sd is the SD of the residuals on the log scale. Every column, unrounded, "
+        "is in fits.csv."))]
+    fit_blocks.append(Block(kind="table", frame=_fits_display(result), name="fits"))
+    if len(result.fits) > TABLE_MAX_ROWS:
+        fit_blocks.append(Block(kind="p", text=(
+            f"First {TABLE_MAX_ROWS} of {len(result.fits):,} fits shown; every fit is in "
+            "fits.csv.")))
+    sections.append(Section(title="Fits", blocks=fit_blocks, anchor="fits"))
+
+    sentences = _slope_sentences(result)
+    test_blocks = []
+    if sentences:   # one table of exponent tests (fit x hypothesis) instead of bullets
+        test_blocks.append(Block(kind="table", frame=head.exponent_table,
+                                 name="exponent tests (every fit in slope_tests.csv)"))
+    if not sentences:
+        test_blocks.append(Block(kind="p", text="No hypothesised exponents were given."))
+    if result.slope_tests is not None and len(result.slope_tests):
+        test_blocks.append(Block(kind="table", frame=result.slope_tests, name="slope_tests"))
+    if sentences:
+        test_blocks.append(Block(kind="p", text=mechanism_caution()))
+    if cfg.data.group or cfg.data.average_within:
+        test_blocks.append(Block(kind="p", text=ancestry_caution()))
+    sections.append(Section(title="Exponent tests", blocks=test_blocks, anchor="tests"))
+
+    group_blocks = []
+    if "group_tests" in tables:
+        group_blocks.append(Block(kind="ul", items=tuple(
+            _group_test_sentences(tables["group_tests"], 1 - conf))))
+        group_blocks.append(Block(kind="table", frame=tables["group_tests"],
+                                  name="group_tests"))
+    for test, matrix in head.matrices.items():
+        group_blocks.append(Block(kind="p", text=(
+            f"Pairwise {test.replace('_', ' ')} ({method_label(head.primary)}): "
+            f"Holm-adjusted p, * where p <= {1 - conf:g}; every pair and method in "
+            "pairwise_tests.csv.")))
+        group_blocks.append(Block(kind="table", frame=matrix.reset_index(),
+                                  name=f"pairwise {test}"))
+    for name, intro in (("pairwise_tests", "Every pair, test and method:"),
+                        ("group_means", "Group means on the log scale:")):
+        if name in tables:
+            group_blocks.append(Block(kind="p", text=intro))
+            group_blocks.append(Block(kind="table", frame=tables[name], name=name))
+    if group_blocks:
+        sections.append(Section(title="Group comparisons", blocks=group_blocks,
+                                anchor="groups"))
+
+    pred_blocks = []
+    for name, intro in (("predictions", "Predicted y at the requested x"),
+                        ("inverse_predictions", "Estimated x from the requested y")):
+        if name in tables:
+            t = tables[name]
+            flags = tuple(bool(v) for v in t["extrapolated"]) if "extrapolated" in t else ()
+            n_ext = sum(flags)
+            note = (f" {n_ext} rows are extrapolations outside the fitted range and are "
+                    "highlighted." if n_ext else " None is an extrapolation.")
+            pred_blocks.append(Block(kind="p", text=intro + "." + note))
+            pred_blocks.append(Block(kind="table", frame=t, name=name, highlight=flags))
+    if pred_blocks:
+        pred_blocks += [Block(kind="p", text=t) for t in (
+            predicted_unit(cfg.data.average_within, cfg.data.y), medians_vs_means(),
+            dose_caution())]
+        sections.append(Section(title="Predictions", blocks=pred_blocks,
+                                anchor="predictions"))
+
+    if "diagnostics" in tables:
+        sections.append(Section(title="Diagnostics", anchor="diagnostics", blocks=[
+            Block(kind="table", frame=tables["diagnostics"], name="diagnostics")]))
+    handled = {"group_tests", "pairwise_tests", "group_means", "predictions",
+               "inverse_predictions", "diagnostics"}
+    others = [Block(kind="table", frame=t, name=k) for k, t in tables.items()
+              if k not in handled]
+    if others:
+        sections.append(Section(title="Further tables", blocks=others, anchor="more"))
+
+    caution = [Block(kind="caution", text=CAUTION)]
+    sections.append(Section(title="Cautions", blocks=caution, anchor="cautions"))
+
+    files = sorted({Path(p).as_posix() for p in written} |
+                   {"report.html", "summary.md", "fits.tex", "results.json"})
+    sections.append(Section(title="Files", anchor="files",
+                            blocks=[Block(kind="links", items=tuple(files))]))
+    sections.append(_manifest_section(result))
+    return _bounded(sections)
+
+
+#: Tables longer than this show their first rows and a note (the CSV has every row).
+TABLE_MAX_ROWS = 60
+#: Folded lists (e.g. per-group test sentences) longer than this are cut likewise.
+ITEMS_MAX = 200
+
+
+def _bounded(sections: list) -> list:
+    """Cut long tables and folded lists so the report stays bounded with 10 000 groups.
+
+    Only the rows shown are ever formatted; the full tables are the CSV files.
+    """
+    out = []
+    for section in sections:
+        blocks = []
+        for b in section.blocks:
+            if b.kind == "table" and b.frame is not None and len(b.frame) > TABLE_MAX_ROWS:
+                blocks.append(replace(b, frame=b.frame.head(TABLE_MAX_ROWS),
+                                   highlight=tuple(b.highlight[:TABLE_MAX_ROWS])))
+                blocks.append(Block(kind="p", text=(
+                    f"First {TABLE_MAX_ROWS} of {len(b.frame):,} rows shown; every row is in "
+                    f"{b.name or 'the'}.csv.")))
+            elif b.kind == "details" and len(b.items) > ITEMS_MAX:
+                blocks.append(replace(b, items=tuple(b.items[:ITEMS_MAX]) + (
+                    f"... {len(b.items) - ITEMS_MAX:,} more; see slope_tests.csv.",)))
+            else:
+                blocks.append(b)
+        out.append(replace(section, blocks=blocks))
+    return out
+
+
+def _manifest_section(result) -> Section:
+    man = result.manifest or {}
+    blocks = []
+    facts = []
+    for key, label in (("created_utc", "Created (UTC)"), ("scaling_version", "scaling"),
+                       ("config_file", "Config file"), ("input_file", "Input file"),
+                       ("input_sha256", "Input SHA-256")):
+        if man.get(key):
+            value = clean_timestamp(man[key]) if key == "created_utc" else man[key]
+            facts.append(f"{label}: {value}")
+    if facts:
+        blocks.append(Block(kind="ul", items=tuple(facts)))
+    versions = man.get("versions") or {}
+    if versions:
+        blocks.append(Block(kind="table", name="versions", frame=pd.DataFrame(
+            {"package": list(versions), "version": [str(v) for v in versions.values()]})))
+    config = man.get("config")
+    if config is None and getattr(result.config, "raw", None):
+        config = result.config.raw
+    if config:
+        text = yaml.safe_dump(config, sort_keys=False, allow_unicode=True,
+                              default_flow_style=False)
+        blocks.append(Block(kind="p", text="Configuration as read:"))
+        blocks.append(Block(kind="pre", text=text))
+    return Section(title="Manifest", blocks=blocks, anchor="manifest")
+
+
+# --------------------------------------------------------------------------
+# HTML
+
+
+CSS = """
+:root { --ink: #1d232b; --muted: #5b6470; --rule: #c9ced6; --band: #f4f6f8;
+        --flag: #fff1d6; --flag-edge: #b86e00; --accent: #0b5d8f; }
+* { box-sizing: border-box; }
+body { margin: 0; color: var(--ink); background: #fff;
+       font: 15px/1.5 "DejaVu Sans", "Segoe UI", Helvetica, Arial, sans-serif; }
+main { max-width: 66rem; margin: 0 auto; padding: 1.5rem 1.5rem 4rem; }
+header { border-bottom: 3px solid var(--ink); margin-bottom: 1rem; }
+h1 { font-size: 1.6rem; margin: 0.2rem 0 0.4rem; line-height: 1.25; }
+.stamp { color: var(--muted); font-size: 0.85rem; margin: 0 0 0.6rem; }
+nav { font-size: 0.85rem; margin: 0.4rem 0 1rem; }
+nav a { color: var(--accent); margin-right: 0.9rem; text-decoration: none; }
+h2 { font-size: 1.15rem; margin: 2.2rem 0 0.6rem; padding-bottom: 0.15rem;
+     border-bottom: 1px solid var(--rule); }
+ul { padding-left: 1.3rem; }
+li { margin: 0.15rem 0; }
+.tablewrap { overflow-x: auto; margin: 0.6rem 0 1rem; }
+table { border-collapse: collapse; font-size: 0.8rem; font-variant-numeric: tabular-nums; }
+caption { text-align: left; font-weight: 600; color: var(--muted); padding-bottom: 0.2rem; }
+th, td { padding: 0.2rem 0.55rem; border-bottom: 1px solid var(--rule); white-space: nowrap; }
+th { text-align: left; border-bottom: 1.5px solid var(--ink); font-weight: 600; }
+td.num { text-align: right; }
+tbody tr:nth-child(even) { background: var(--band); }
+tr.flag, tr.flag:nth-child(even) { background: var(--flag); }
+tr.flag td:first-child { box-shadow: inset 3px 0 0 var(--flag-edge); }
+.flagnote { color: var(--flag-edge); font-weight: 600; }
+figure { margin: 1rem 0 1.6rem; }
+figure img { display: block; width: 100%; max-width: 34rem; height: auto;
+             border: 1px solid var(--rule); }
+figure.wide img { max-width: 40rem; }
+figcaption { font-size: 0.85rem; color: var(--muted); max-width: 40rem; margin-top: 0.3rem; }
+pre { background: var(--band); padding: 0.7rem 0.9rem; overflow-x: auto; font-size: 0.8rem;
+      border-left: 3px solid var(--rule); }
+.caution { border-left: 4px solid var(--flag-edge); background: var(--flag);
+           padding: 0.6rem 0.9rem; }
+a { color: var(--accent); }
+details { margin: 0.4rem 0 1rem; }
+summary { cursor: pointer; color: var(--accent); }
+@media print { nav { display: none; } main { max-width: none; } }
+"""
+
+
+def _esc(text) -> str:
+    return html.escape(str(text), quote=True)
+
+
+def _is_num_column(series: pd.Series) -> bool:
+    return pd.api.types.is_numeric_dtype(series) and not pd.api.types.is_bool_dtype(series)
+
+
+def _column_decimals(series: pd.Series, column: str):
+    """Fixed decimals for a float column (4 significant digits at its typical size).
+
+    None (format each value alone) for p-values, integer columns, or values
+    spanning more than two decades.
+    """
+    if _P_COLUMNS.match(column) or column in _INT_COLUMNS \
+            or not pd.api.types.is_float_dtype(series):
+        return None
+    v = np.abs(series.to_numpy(dtype=float))
+    v = v[np.isfinite(v)]
+    if v.size and np.all(v == np.round(v)) and v.max() < 1e9:
+        return 0                      # whole numbers stored as floats (df, counts)
+    v = v[v > 0]
+    if not v.size or np.all(v == v[0]):
+        return None                   # empty or constant (e.g. confidence): as is
+    if v.max() / v.min() > 100:
+        return None
+    k = math.floor(math.log10(float(np.median(v))))
+    if k >= 9 or k < -4:
+        return None
+    return int(min(max(3 - k, 0), 6))
+
+
+def _cell(value, column: str, decimals) -> str:
+    if decimals is None or not isinstance(value, (float, np.floating)) \
+            or not math.isfinite(float(value)):
+        return format_value(value, column)
+    return f"{float(value):.{decimals}f}"
+
+
+def _html_table(block: Block) -> str:
+    frame = block.frame
+    cols = list(frame.columns)
+    numeric = {c: _is_num_column(frame[c]) for c in cols}
+    decimals = {c: _column_decimals(frame[c], str(c)) for c in cols}
+    head = "".join(f"<th scope=\"col\">{_esc(c)}</th>" for c in cols)
+    rows = []
+    flags = block.highlight or ()
+    for i, values in enumerate(frame.itertuples(index=False, name=None)):
+        flagged = i < len(flags) and flags[i]
+        cells = []
+        for c, v in zip(cols, values):
+            cls = " class=\"num\"" if numeric[c] else ""
+            text = _esc(_cell(v, str(c), decimals[c]))
+            if flagged and c == "extrapolated":
+                text = f"<span class=\"flagnote\">{text} (extrapolated)</span>"
+            cells.append(f"<td{cls}>{text}</td>")
+        attr = " class=\"flag\"" if flagged else ""
+        rows.append(f"<tr{attr}>{''.join(cells)}</tr>")
+    caption = f"<caption>{_esc(block.name)}</caption>" if block.name else ""
+    return (f"<div class=\"tablewrap\"><table data-table=\"{_esc(block.name)}\">{caption}"
+            f"<thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table></div>")
+
+
+def _html_block(block: Block) -> str:
+    if block.kind == "p":
+        return f"<p>{_esc(block.text)}</p>"
+    if block.kind == "ul":
+        return "<ul>" + "".join(f"<li>{_esc(t)}</li>" for t in block.items) + "</ul>"
+    if block.kind == "table":
+        table = _html_table(block)
+        if block.frame is not None and len(block.frame) > FOLD_ROWS and not any(block.highlight):
+            # Long tables stay in the file but folded, so the report reads top-down;
+            # tables with flagged rows (extrapolations) always stay open.
+            return (f"<details class=\"table\"><summary>{_esc(block.name)}: "
+                    f"{len(block.frame)} rows (click to show)</summary>{table}</details>")
+        return table
+    if block.kind == "img":
+        data = base64.b64encode(block.png).decode("ascii")
+        wide = " class=\"wide\"" if block.name == "residuals" else ""
+        link = (f" <a href=\"{_esc(block.path)}\">{_esc(block.path)}</a>"
+                if block.path else "")
+        return (f"<figure{wide}><img alt=\"{_esc(block.name)} figure\" "
+                f"src=\"data:image/png;base64,{data}\">"
+                f"<figcaption>{_esc(block.text)}{link}</figcaption></figure>")
+    if block.kind == "pre":
+        return f"<pre>{_esc(block.text)}</pre>"
+    if block.kind == "details":
+        return (f"<details><summary>{_esc(block.text)}</summary><ul>"
+                + "".join(f"<li>{_esc(t)}</li>" for t in block.items) + "</ul></details>")
+    if block.kind == "links":
+        return "<ul>" + "".join(f"<li><a href=\"{_esc(p)}\">{_esc(p)}</a></li>"
+                                for p in block.items) + "</ul>"
+    if block.kind == "caution":
+        return f"<p class=\"caution\">{_esc(block.text)}</p>"
+    raise ValueError(f"unknown block kind {block.kind!r}")
+
+
+def _clean_stamp(iso) -> str:
+    return clean_timestamp(iso)
+
+
+def render_html(result, sections: list) -> str:
+    """The whole report as one HTML document (every string escaped here)."""
+    title = result.config.title or "Scaling analysis"
+    man = result.manifest or {}
+    stamp = " · ".join(s for s in (
+        f"scaling {man.get('scaling_version', '')}".strip(),
+        f"created {_clean_stamp(man['created_utc'])}" if man.get("created_utc") else "")
+        if s)
+    nav = "".join(f"<a href=\"#{_esc(s.anchor)}\">{_esc(s.title)}</a>"
+                  for s in sections if s.anchor)
+    body = []
+    for s in sections:
+        inner = "".join(_html_block(b) for b in s.blocks)
+        body.append(f"<section id=\"{_esc(s.anchor)}\"><h2>{_esc(s.title)}</h2>{inner}"
+                    "</section>")
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+            "<meta name=\"referrer\" content=\"no-referrer\">"
+            f"<title>{_esc(title)}</title><style>{CSS}</style></head><body><main>"
+            f"<header><h1>{_esc(title)}</h1><p class=\"stamp\">{_esc(stamp)}</p></header>"
+            f"<nav>{nav}</nav>{''.join(body)}</main></body></html>\n")
+
+
+# --------------------------------------------------------------------------
+# Markdown
+
+
+_MD_SPECIAL = re.compile(r"([\\`*_\[\]{}#|!])")
+
+
+def markdown_escape(text) -> str:
+    """Escape Markdown syntax and HTML in ``text`` (one line; pipes escaped for tables)."""
+    text = str(text).replace("\r", " ").replace("\n", " ")
+    text = html.escape(text, quote=False)
+    return _MD_SPECIAL.sub(r"\\\1", text)
+
+
+#: summary.md shows tables up to this many rows; longer ones are linked to their CSV
+#: (report.html shows them all, folded).
+MD_MAX_ROWS = 12
+
+
+def _md_table(block: Block) -> str:
+    frame = block.frame
+    if len(frame) > MD_MAX_ROWS:
+        where = (f"[{block.name}.csv]({block.name}.csv)" if re.fullmatch(r"\w+", block.name)
+                 else "report.html")
+        return (f"*{markdown_escape(block.name)}*: {len(frame)} rows, in {where} "
+                "(and in report.html).")
+    cols = [str(c) for c in frame.columns]
+    lines = ["| " + " | ".join(markdown_escape(c) for c in cols) + " |",
+             "|" + "|".join("---:" if _is_num_column(frame[c]) else "---"
+                            for c in frame.columns) + "|"]
+    flags = block.highlight or ()
+    decimals = {c: _column_decimals(frame[c], c) for c in frame.columns}
+    for i, values in enumerate(frame.itertuples(index=False, name=None)):
+        cells = []
+        for c, v in zip(cols, values):
+            text = markdown_escape(_cell(v, c, decimals[c]))
+            if i < len(flags) and flags[i] and c == "extrapolated":
+                text = f"**{text} (extrapolated)**"
+            cells.append(text)
+        lines.append("| " + " | ".join(cells) + " |")
+    title = f"*{markdown_escape(block.name)}*\n\n" if block.name else ""
+    return title + "\n".join(lines)
+
+
+def _md_block(block: Block) -> str:
+    if block.kind == "p":
+        return markdown_escape(block.text)
+    if block.kind == "ul":
+        return "\n".join(f"- {markdown_escape(t)}" for t in block.items)
+    if block.kind == "details":
+        return markdown_escape(block.text) + ":\n\n" + \
+            "\n".join(f"- {markdown_escape(t)}" for t in block.items)
+    if block.kind == "table":
+        return _md_table(block)
+    if block.kind == "img":
+        if block.path:
+            return f"![{markdown_escape(block.name)} figure]({block.path})\n\n" \
+                   f"{markdown_escape(block.text)}"
+        return f"({markdown_escape(block.name)} figure: see report.html)"
+    if block.kind == "pre":
+        fence = "````" if "```" in block.text else "```"
+        return f"{fence}yaml\n{block.text.rstrip()}\n{fence}"
+    if block.kind == "links":
+        return "\n".join(f"- [{markdown_escape(p)}]({p})" for p in block.items)
+    if block.kind == "caution":
+        return "> " + markdown_escape(block.text)
+    raise ValueError(f"unknown block kind {block.kind!r}")
+
+
+def render_markdown(result, sections: list) -> str:
+    """The report as Markdown (figures linked, not embedded)."""
+    title = result.config.title or "Scaling analysis"
+    parts = [f"# {markdown_escape(title)}"]
+    for s in sections:
+        parts.append(f"## {markdown_escape(s.title)}")
+        parts += [_md_block(b) for b in s.blocks]
+    return "\n\n".join(parts) + "\n"
+
+
+# --------------------------------------------------------------------------
+# LaTeX
+
+
+_LATEX = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
+          "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
+          "^": r"\textasciicircum{}", "<": r"\textless{}", ">": r"\textgreater{}"}
+_LATEX_RE = re.compile("|".join(re.escape(k) for k in _LATEX))
+
+
+def latex_escape(text) -> str:
+    """Escape LaTeX special characters (\\ & % $ # _ { } ~ ^ < >) in ``text``."""
+    return _LATEX_RE.sub(lambda m: _LATEX[m.group(0)], str(text))
+
+
+def _tex_num(v, column: str) -> str:
+    text = format_value(v, column)
+    if text == "–":
+        return "--"
+    return latex_escape(text.replace("−", "-"))
+
+
+def render_fits_tex(result) -> str:
+    """A LaTeX ``tabular`` of the fits (needs no package beyond plain LaTeX)."""
+    conf = f"{100 * result.config.model.confidence:g}"
+    base = latex_escape(result.config.model.log_base)
+    head = ["Scope", "Group", "Method", "$n$", "$b$", f"{conf}\\% CI of $b$",
+            f"$\\log_{{{base}}} a$", f"{conf}\\% CI of $\\log_{{{base}}} a$", "$r^2$"]
+    lines = [f"% Fits of {latex_escape(result.config.title)}; written by scaling "
+             f"{latex_escape((result.manifest or {}).get('scaling_version', ''))}",
+             "\\begin{tabular}{lllrrcrcr}", "\\hline", " & ".join(head) + " \\\\", "\\hline"]
+    for r in result.fits.itertuples(index=False):
+        ci_b = (f"{_tex_num(r.slope_low, 'slope_low')}--{_tex_num(r.slope_high, 'slope_high')}"
+                if np.isfinite(r.slope_low) and np.isfinite(r.slope_high) else "--")
+        ci_a = (f"{_tex_num(r.intercept_low, 'x')}--{_tex_num(r.intercept_high, 'x')}"
+                if np.isfinite(r.intercept_low) and np.isfinite(r.intercept_high) else "--")
+        cells = [latex_escape(r.scope), latex_escape(r.group), latex_escape(method_label(r.method)),
+                 _tex_num(r.n, "n"), _tex_num(r.slope, "slope"), ci_b,
+                 _tex_num(r.intercept, "intercept"), ci_a, _tex_num(r.r2, "r2")]
+        lines.append(" & ".join(cells) + " \\\\")
+    lines += ["\\hline", "\\end{tabular}", ""]
+    return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------
+# writing
+
+
+def write_report(result, folder: Path, written) -> list[Path]:
+    """Write ``report.html``, ``summary.md`` and ``fits.tex`` into ``folder``.
+
+    Parameters
+    ----------
+    result : RunResult
+    folder : Path
+        The (temporary) output folder; figures already written there are
+        embedded rather than drawn again.
+    written : list of Path
+        Paths relative to ``folder`` written so far (linked from the report).
+
+    Returns
+    -------
+    list of Path
+        The three paths written, relative to ``folder``.
+    """
+    folder = Path(folder)
+    sections = build_report(result, folder, written)
+    (folder / "report.html").write_text(render_html(result, sections), encoding="utf-8")
+    (folder / "summary.md").write_text(render_markdown(result, sections), encoding="utf-8")
+    (folder / "fits.tex").write_text(render_fits_tex(result), encoding="utf-8")
+    return [Path("report.html"), Path("summary.md"), Path("fits.tex")]

@@ -1,0 +1,611 @@
+"""Every plain-language sentence of a run: findings, verdicts, notes, the caution.
+
+The run summary (``RunResult.messages`` / ``warnings``), the report and the
+CLI read these functions, so one finding is worded in one place.  Functions
+take results (fits, tests, tables) and return strings; they estimate
+nothing new (a few ask a fit for its slope test, ``LineFit.test_slope``).  This module imports only :mod:`scaling.stats.schema` (and numpy), so
+the numeric core may use it (``SlopeTest.summary``).
+"""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+
+import numpy as np
+
+from ..stats.schema import CATALOGUE, CLASSIC_METHODS, ROW_METHOD_NAMES, method_label
+
+__all__ = [
+    "influence_reason", "smearing_reason", "estimate_outside_reason",
+    "group_residuals_reason", "range_words", "range_warning", "medians_vs_means",
+    "dose_caution", "mechanism_caution", "ancestry_caution", "curvature_ok",
+    "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "plural", "CAUTION",
+    "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
+    "p_text", "format_p", "scope_words", "read_message", "dropped_note",
+    "pooled_fit_messages", "uncompared_message", "pairwise_skipped_note",
+    "means_left_out_note", "extrapolation_note", "inverse_extrapolation_note",
+    "unbounded_inverse_note", "diag_method", "diagnostics_messages",
+    "error_structure_words", "line_method_messages", "bootstrap_message",
+    "bootstrap_means_note", "bootstrap_unstratified_note", "permutation_message"]
+
+def exponent_label(value: float) -> str:
+    """A hypothesised exponent as a small fraction where it is one (0.75 -> 3/4).
+
+    Examples
+    --------
+    >>> exponent_label(0.75), exponent_label(2 / 3), exponent_label(0.7)
+    ('3/4', '2/3', '7/10')
+    """
+    frac = Fraction(value).limit_denominator(12)
+    if frac.denominator > 1 and abs(float(frac) - value) < 5e-4:
+        return f"{frac.numerator}/{frac.denominator}"
+    return f"{value:g}"
+
+
+#: Shown in every report and results.json.
+CAUTION = ("Results are statistical estimates from the data supplied, not clinical, "
+           "veterinary or regulatory advice. Predictions outside the fitted range are "
+           "extrapolations and are flagged. Interspecies dose scaling and any clinical or "
+           "regulatory use must defer to the applicable guidance and licensed practice.")
+
+
+#: Note of a fit whose points lie on the line up to rounding.
+EXACT_NOTE = "no residual scatter: an exact power law"
+#: Note of an SMA fit whose correlation is not significant.
+BOTH_SIGNS_NOTE = "correlation not significant: slopes of either sign are accepted"
+
+
+# --------------------------------------------------------------------------
+# p-values and slope tests
+
+
+def verdict_phrase(estimate: float, exponent: float, p_value: float, *, alpha: float,
+                 target: str) -> str:
+    """The verb phrase of a slope test: "is above 3/4", "does not differ detectably from 3/4"."""
+    if not np.isfinite(p_value):
+        return f"could not be tested against {target}"
+    if p_value < alpha:
+        return f"is {'above' if estimate > exponent else 'below'} {target}"
+    return f"does not differ detectably from {target}"
+
+
+def describe_test(test, *, alpha: float = 0.05) -> str:
+    """Plain-language reading of a slope test."""
+    label = method_label(test.method)
+    if not np.isfinite(test.p_value):
+        return f"The {label} slope could not be tested against {test.exponent:g}."
+    b0 = f"{test.exponent:.4g}"
+    if test.hypothesis and test.hypothesis != f"{test.exponent:g}":
+        b0 = f"{b0} ({test.hypothesis})"
+    if test.note == EXACT_NOTE:
+        relation = "equals" if test.p_value >= alpha else (
+            "is above" if test.estimate > test.exponent else "is below")
+        return f"The {label} exponent {test.estimate:.6g} {relation} {b0} ({test.note})."
+    verdict = verdict_phrase(test.estimate, test.exponent, test.p_value, alpha=alpha, target=b0)
+    if test.statistic_type == "t":
+        stat = f"t = {test.statistic:.2f}, df = {test.df:g}, "
+    elif test.statistic_type == "z":
+        stat = f"z = {test.statistic:.2f}, "
+    else:
+        stat = "bootstrap, "
+    return f"The {label} exponent {test.estimate:.3g} {verdict} ({stat}{p_text(test.p_value)})."
+
+
+def p_text(p: float) -> str:
+    """'p = 0.031' or 'p < 0.0001'."""
+    text = format_p(p)
+    return f"p {text}" if text.startswith("<") else f"p = {text}"
+
+
+def format_p(p: float) -> str:
+    """p-values as people write them: 3 significant digits, '< 0.0001' below."""
+    if not np.isfinite(p):
+        return "n/a"
+    if p < 1e-4:
+        return "< 0.0001"
+    return f"{p:.2g}" if p < 0.01 else f"{p:.3f}"
+
+
+def scope_words(scope: str, group: str) -> str:
+    return {"pooled": "pooled", "group_means": "group-means"}.get(scope, f"group {group}")
+
+
+# --------------------------------------------------------------------------
+# the fits
+
+
+def read_message(data, cfg) -> str:
+    """"Read N data rows; dropped M; fitting K points (...)."""
+    unit_word = f" ({cfg.data.average_within} means of {data.n_rows_used} rows)" \
+        if data.averaged_within else ""
+    return (f"Read {data.n_read} data rows; dropped {len(data.dropped)}; "
+            f"fitting {len(data.points)} points{unit_word}.")
+
+
+def dropped_note(n_dropped: int) -> str:
+    return f"{n_dropped} rows were dropped; see dropped_rows.csv for each reason."
+
+
+def pooled_fit_messages(line_fits: dict, cfg) -> list:
+    """Each pooled exponent with its interval, then its tests against the exponents."""
+    messages = []
+    pct = f"{100 * cfg.model.confidence:g}%"
+    for (scope, group, method), fit in line_fits.items():
+        if scope == "pooled":
+            how = "" if fit.interval_method == "analytic" else ", bootstrap"
+            lam = f" (λ = {fit.lam:.3g})" if fit.lam is not None else ""
+            messages.append(
+                f"Pooled {method_label(method)}{lam} exponent {fit.slope:.3f} ({pct} CI "
+                f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}{how}), r² = {fit.r2:.3f}, "
+                f"n = {fit.n}.")
+            for name, b0 in cfg.exponents.items():
+                test = fit.test_slope(b0, hypothesis=name)
+                messages.append("  " + describe_test(test, alpha=1 - cfg.model.confidence))
+    return messages
+
+
+def line_method_messages(line_fits: dict, cfg) -> list:
+    """Does the choice of line matter for these data?  One or two plain sentences."""
+    pooled = {m: f for (s, g, m), f in line_fits.items() if s == "pooled"}
+    classic = [m for m in CLASSIC_METHODS if m in pooled]
+    out = []
+    alpha = 1 - cfg.model.confidence
+    if len(classic) >= 2:
+        fits = [pooled[m] for m in classic]
+        slopes = [f.slope for f in fits]
+        spread = max(slopes) - min(slopes)
+        widths = [f.slope_ci.high - f.slope_ci.low for f in fits
+                  if np.isfinite(f.slope_ci.high - f.slope_ci.low)]
+        width = min(widths) if widths else np.nan
+        r2 = fits[0].r2
+        listed = ", ".join(f"{method_label(m)} {pooled[m].slope:.3f}" for m in classic)
+        ratio = spread / width if np.isfinite(width) and width > 0 else np.inf
+        if ratio < 0.25:
+            verdict = (f"they differ by {spread:.3f}, under a quarter of the narrowest "
+                       f"{100 * cfg.model.confidence:g}% CI ({width:.3f}), so the choice of "
+                       "line does not change the conclusions")
+        else:
+            verdict = (f"they differ by {spread:.3f}, {ratio:.1f} times the narrowest CI "
+                       f"width ({width:.3f}): the choice matters — use OLS to predict y "
+                       "from x, SMA or MA to describe how y scales with x")
+        out.append(f"Line method: r² = {r2:.3f} ({listed}); {verdict}.")
+        disagree = []
+        for name, b0 in cfg.exponents.items():
+            verdicts = {m: pooled[m].test_slope(b0).p_value < alpha for m in classic}
+            if len(set(verdicts.values())) > 1:
+                rej = [method_label(m) for m, v in verdicts.items() if v]
+                acc = [method_label(m) for m, v in verdicts.items() if not v]
+                disagree.append(f"{name} ({'/'.join(rej)} reject it, {'/'.join(acc)} do not)")
+        if disagree:
+            out.append("  The lines disagree on " + "; ".join(disagree) + ".")
+    deming = pooled.get("deming")
+    if deming is not None:
+        near = ""
+        if "ols" in pooled and "ma" in pooled:
+            closer = "OLS" if abs(deming.slope - pooled["ols"].slope) <= \
+                abs(deming.slope - pooled["ma"].slope) else "MA"
+            near = (f"; it lies between MA (λ = 1) and OLS (λ → ∞), here closer to {closer}"
+                    + (", as most error is in y" if closer == "OLS" else ""))
+        out.append(f"  Deming line with λ = {deming.lam:.3g} (error variance of log y over log x):"
+                   f" exponent {deming.slope:.3f} ({deming.slope_ci.low:.3f}–"
+                   f"{deming.slope_ci.high:.3f}){near}.")
+    elif classic:
+        out.append("  If x is measured with error, the OLS exponent is biased towards 0 "
+                   "(regression dilution) and MA assumes equal error variances on both log "
+                   "scales; add deming to model.methods with model.deming_lambda (or "
+                   "model.error_variances) to fit the line for a stated error ratio λ.")
+    robust = [m for m in ROW_METHOD_NAMES if m in pooled]
+    for m in robust:
+        ref = CATALOGUE[m].permutation_pair   # the classical line it is checked against
+        classic_fit = pooled.get(ref)
+        f = pooled[m]
+        if classic_fit is None:
+            continue
+        diff = abs(f.slope - classic_fit.slope)
+        half = (classic_fit.slope_ci.high - classic_fit.slope_ci.low) / 2
+        if diff < half / 2:
+            judged = "so outlying points do not drive the classical line"
+        else:
+            judged = ("a difference as large as the CI half-width: a few points may drive "
+                      "the classical line (see influential_rows.csv)")
+        out.append(f"  Robust check: {method_label(m)} exponent {f.slope:.3f} vs "
+                   f"{method_label(ref)} {classic_fit.slope:.3f}, {judged}.")
+    return out
+
+
+
+# --------------------------------------------------------------------------
+# groups
+
+
+def uncompared_message(uncompared: list) -> str:
+    return ("Group comparisons are available for OLS, SMA and MA; none was made for "
+            f"{' or '.join(method_label(m) for m in uncompared)}.")
+
+
+def pairwise_skipped_note(method: str, n_groups: int, pairwise_max: int) -> str:
+    return (f"{method_label(method)}: pairwise comparisons skipped: "
+            f"{n_groups} groups exceed groups.pairwise_max = {pairwise_max}.")
+
+
+def means_left_out_note(left_out_text: str, n_left_out: int) -> str:
+    return (f"Line through the group means: {n_left_out} group(s) left out, "
+            f"as in the comparisons: {left_out_text}.")
+
+
+# --------------------------------------------------------------------------
+# predictions
+
+
+def extrapolation_note(table) -> str:
+    """The note on predictions outside the x range of their fit ("" if none)."""
+    n_ext = int(table["extrapolated"].sum()) if len(table) else 0
+    if not n_ext:
+        return ""
+    ext = table[table["extrapolated"]]
+    by_scope = ext.groupby("scope", sort=False)["x"].agg(lambda v: sorted(set(v)))
+    parts = []
+    for scope, xs in by_scope.items():
+        what = {"pooled": "pooled fits", "group": "group fits",
+                "group_means": "lines through group means"}.get(scope, scope)
+        parts.append(f"{what}: x = {', '.join(f'{v:g}' for v in xs)}")
+    return (f"{n_ext} of {len(table)} predictions lie outside the x range of the "
+            f"fit that made them ({'; '.join(parts)}); they are extrapolations, "
+            "flagged in predictions.csv; treat them with caution.")
+
+
+def inverse_extrapolation_note(table) -> str:
+    n_ext = int(table["extrapolated"].sum()) if len(table) else 0
+    if not n_ext:
+        return ""
+    return f"{n_ext} inverse predictions use y outside the fitted y range (extrapolations)."
+
+
+def unbounded_inverse_note(fits: list, interval: str, confidence: float) -> str:
+    """The note for inverse predictions whose interval has no finite bounds."""
+    return (f"Inverse predictions ({', '.join(fits)}): the {100 * confidence:g}% {interval} "
+            "interval for x is unbounded, because the slope does not differ from 0 at this "
+            "level; x_low and x_high are blank in inverse_predictions.csv, and y says little "
+            "about x here.")
+
+
+# --------------------------------------------------------------------------
+# diagnostics
+
+
+def diag_method(methods) -> str:
+    """The method whose residuals the plain-language verdicts read: OLS if fitted."""
+    return "ols" if "ols" in methods else methods[0]
+
+
+def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg) -> list:
+    """The plain-language verdicts of the diagnostics stage.
+
+    ``results``: ``(scope, group, method) -> Diagnosis``; ``es_results``:
+    ``(scope, group) -> ErrorStructure``; ``point_sets``: ``(scope, group) ->
+    points``.
+    """
+    dc = cfg.diagnostics
+    messages = []
+    methods = [m for m in cfg.model.methods]
+    key_method = diag_method(methods)
+    pooled = results.get(("pooled", "", key_method)) or next(
+        (d for (s, _, _), d in results.items() if s == "pooled"), None)
+    group_word = f"{cfg.data.group} groups" if cfg.data.group else "groups"
+    if pooled is None:
+        messages.append("Diagnostics: too few points (fewer than 4) to check the pooled line.")
+        return messages
+    curv = pooled.check("curvature")
+    if curv.flagged:
+        c = pooled.curvature
+        xs = [f"{t:g} at x ≈ {x:.3g}" for t, x, inside in c.crossings if inside]
+        where = (f"; the local exponent reaches {', '.join(xs)}" if xs else "")
+        messages.append(f"Power law: NOT a straight line on log-log scales — {curv.verdict}"
+                        f"{where}. One exponent summarises these data only roughly; see "
+                        "curvature.csv.")
+    else:
+        messages.append(curvature_ok(curv.verdict))
+    g_curved = [(g, d.check("curvature").p_value) for (s, g, m), d in results.items()
+                if s == "group" and m == pooled.method and d.check("curvature").flagged]
+    n_groups = sum(1 for (s, g, m) in results if s == "group" and m == pooled.method)
+    if n_groups:
+        if g_curved:
+            listed = ", ".join(f"{g}, {p_text(p)}" for g, p in g_curved)
+            messages.append(f"  Within {group_word}: curvature in {len(g_curved)} of {n_groups}: "
+                            f"{listed} (each tested at α = {dc.alpha:g}; by chance alone about "
+                            f"{dc.alpha * n_groups:.2g} of {n_groups} would be flagged).")
+        else:
+            messages.append(f"  Within {group_word}: no detectable curvature in any of the "
+                            f"{n_groups}.")
+    label = method_label(pooled.method)
+    normal, spread = pooled.check("normality"), pooled.check("constant_variance")
+    messages.append(f"Residuals of the pooled {label} line: {normal.verdict}; {spread.verdict}.")
+    infl = pooled.check("influence")
+    if infl.flagged:
+        rows = list(pooled.influential_rows)
+        sel = point_sets[("pooled", "")]
+        unit = dict(zip(sel["row"].tolist(), sel["unit"].astype(str))) if "unit" in sel else {}
+        shown = ", ".join(f"row {r}" + (f" ({unit[r]})" if r in unit else "") for r in rows[:4])
+        more = f" and {len(rows) - 4} more" if len(rows) > 4 else ""
+        messages.append(f"Influence: {len(rows)} point(s) pull the pooled line more than "
+                        f"usual (Cook's distance > 4/n): {shown}{more}. Such flags are common "
+                        "in clean data; check them in influential_rows.csv"
+                        + ("." if any(m in ROW_METHOD_NAMES for m in methods) else
+                           ", or add a robust line (sma_robust, theil_sen) to model.methods "
+                           "to see whether the exponent moves."))
+    else:
+        messages.append("Influence: no point pulls the pooled line unduly "
+                        "(all Cook's distances ≤ 4/n).")
+    es = es_results.get(("pooled", ""))
+    if es is not None:
+        messages.append("Error structure: " + error_structure_words(es))
+        g_pref = [(g, e.preferred) for (s, g), e in es_results.items() if s == "group"]
+        if g_pref:
+            same = [g for g, p in g_pref if p == es.preferred]
+            other = [f"{g}: {p if p != 'neither' else 'no clear preference'}"
+                     for g, p in g_pref if p != es.preferred]
+            word = {"neither": "no clear preference"}.get(es.preferred, es.preferred)
+            text = f"  Within {group_word}: {word} also in {len(same)} of {len(g_pref)}"
+            if other:
+                text += f" ({'; '.join(other)})"
+            messages.append(text + (" — small groups rarely decide this." if other else "."))
+    return messages
+
+
+def error_structure_words(es) -> str:
+    d = es.delta_aicc
+    if es.preferred == "multiplicative" and np.isfinite(d):
+        return (f"multiplicative (lognormal) error is supported over additive "
+                f"(ΔAICc = {d:.1f}), so fitting on logs is appropriate.")
+    if es.preferred == "multiplicative":
+        return "only the multiplicative (log-scale) model could be fitted."
+    if es.preferred == "additive":
+        return (f"additive (normal) error on the arithmetic scale is supported over "
+                f"multiplicative (ΔAICc = {-d:.1f}): the exponent from a nonlinear fit "
+                f"({es.additive.b:.3g}) may be more appropriate than the log-scale one "
+                f"({es.multiplicative.b:.3g}); see error_structure.csv.")
+    return (f"the data do not favour multiplicative or additive error (ΔAICc = {d:.1f}, "
+            f"|ΔAICc| < 2); exponents {es.multiplicative.b:.3g} (log scale) and "
+            f"{es.additive.b:.3g} (nonlinear) — consider reporting both.")
+
+
+# --------------------------------------------------------------------------
+# resampling
+
+
+def bootstrap_message(pooled, line_fits: dict, cfg, *, stratified: bool) -> str:
+    """The pooled bootstrap intervals beside the analytic ones.
+
+    ``pooled``: the pooled slope rows of bootstrap.csv.
+    """
+    rs = cfg.resampling
+    kind = "BCa" if rs.interval == "bca" else "percentile"
+    strat = f" within {cfg.data.group} groups" if stratified else ""
+    parts = []
+    for r in pooled.itertuples():
+        fit = line_fits[("pooled", "", r.method)]
+        parts.append(f"{method_label(r.method)} {r.low:.3f}–{r.high:.3f} (analytic "
+                     f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f})")
+    return (f"Bootstrap ({rs.bootstrap} resamples{strat}, {kind}, seed {rs.seed}): "
+            f"pooled exponent {100 * cfg.model.confidence:g}% CIs "
+            + "; ".join(parts) + ". Every fit's bootstrap interval is in "
+            "bootstrap.csv.")
+
+
+def bootstrap_unstratified_note() -> str:
+    return ("Bootstrap: groups with fewer than 3 points are not resampled; "
+            "the pooled bootstrap is not stratified by group.")
+
+
+def bootstrap_means_note(n_means: int) -> str:
+    return (f"The bootstrap of the line through the {n_means} group means "
+            "resamples the groups themselves; with fewer than 10 groups its "
+            "interval is rough.")
+
+
+def permutation_message(out, cfg) -> list:
+    """Do the permutation p-values (column p_permutation) agree with the t-tests?"""
+    rs = cfg.resampling
+    messages = []
+    alpha = 1 - cfg.model.confidence
+    valid = out.dropna(subset=["p_value", "p_permutation"])
+    valid = valid[valid["statistic_type"] == "t"]
+    if len(valid):
+        lo = np.minimum(valid["p_value"], valid["p_permutation"])
+        hi = np.maximum(valid["p_value"], valid["p_permutation"])
+        clash = valid[(lo < alpha) & (hi > 2 * alpha)]
+        diff = float(np.max(np.abs(valid["p_value"] - valid["p_permutation"])))
+        text = (f"Permutation tests ({rs.permutations} permutations per test, seed {rs.seed}) "
+                f"against the t-test p-values: largest difference {diff:.3f}")
+        if len(clash):
+            shown = "; ".join(
+                f"{scope_words(f.scope, f.group)} {method_label(f.method)} vs {f.hypothesis}: "
+                f"{p_text(f.p_value)} (t), {p_text(f.p_permutation)} (permutation)"
+                for f in clash.head(3).itertuples())
+            more = f" and {len(clash) - 3} more" if len(clash) > 3 else ""
+            text += (f"; {len(clash)} test(s) disagree ({shown}{more}). There the t-test "
+                     "leans on normal errors: prefer the permutation p-value.")
+        else:
+            text += (f"; no test is significant by one (p < {alpha:g}) and clearly not by the "
+                     f"other (p > {2 * alpha:g}), so the t-tests' reliance on normal errors does "
+                     "not matter here.")
+        messages.append(text + " p_permutation is in slope_tests.csv.")
+    return messages
+
+
+# --------------------------------------------------------------------------
+# checks and cautions
+
+
+def _g(v: float) -> str:
+    return f"{v:.3g}"
+
+
+def _who(row: int | None, label: str) -> str:
+    return f"row {row}" + (f" ({label})" if label else "")
+
+
+def influence_reason(row: int, label: str, *, cook: float, slope: float,
+                     slope_without: float, se: float, method: str) -> str:
+    """Why one point gets a strong warning."""
+    return (f"{_who(row, label)} drives the fit: Cook's distance {cook:.2g}"
+            f"{' (> 1)' if cook > 1 else ''}; without it the {method_label(method)} exponent is "
+            f"{slope_without:.3f} instead of {slope:.3f}, a change of "
+            f"{abs(slope_without - slope) / se:.1f} standard errors. Check this value "
+            "(a unit or typing error?) before using the results.")
+
+
+def smearing_reason(smearing: float, parametric: float, limit: float) -> str:
+    """Why a smearing factor far from the parametric one is a warning."""
+    return (f"the smearing correction factor ({_g(smearing)}) is far from the parametric one "
+            f"({_g(parametric)}; ratio outside 1/{limit:g}–{limit:g}): a few large residuals "
+            "dominate it, and back-transformed means are unreliable until they are checked.")
+
+
+def estimate_outside_reason(label: str, estimate: float, low: float, high: float) -> str:
+    """Why an estimate outside its own interval is a warning."""
+    return (f"the estimate {label}= {_g(estimate)} lies outside its own interval "
+            f"({_g(low)}–{_g(high)}): the correction factor is inflated by outlying "
+            "points; do not use it until they are checked.")
+
+
+def group_residuals_reason(f: float, df1: int, df2: int, p: float) -> str:
+    """Pooled residuals cluster by group."""
+    return (f"pooled residuals differ between groups (one-way ANOVA F = {f:.3g} on {df1} "
+            f"and {df2} df, {p_text(p)}): the groups sit at different elevations, so the "
+            "pooled line mixes them; prefer the within-group (common-slope) exponent.")
+
+
+def range_words(ratio: float) -> str:
+    """How far outside the fitted range an x lies, from its range_ratio."""
+    if not math.isfinite(ratio) or ratio <= 1:
+        return "inside the fitted range"
+    if ratio <= 2:
+        return f"{ratio:.2g}× beyond the fitted range: an extrapolation"
+    return (f"{ratio:.3g}× beyond the fitted range: far outside the data; the power law "
+            "may not hold there and the interval understates the uncertainty")
+
+
+def range_warning(n_out: int, n_all: int, lo: float, hi: float, worst: float,
+                  what: str = "predictions", role: str = "x") -> str:
+    """The extrapolation warning, stating the fitted range."""
+    strong = (" Beyond about 2× the range they are guesses, not estimates: the power law "
+              "may not hold there." if worst > 2 else "")
+    return (f"{n_out} of {n_all} {what} lie outside the fitted {role} range "
+            f"({_g(lo)}–{_g(hi)}{' for the widest fit' if what else ''}; each fit's own "
+            f"range applies), up to {worst:.3g}× beyond it: extrapolations, flagged with "
+            f"range_ratio > 1.{strong}")
+
+
+def medians_vs_means() -> str:
+    """Back-transformed lines give medians; corrected values estimate means."""
+    return ("A line fitted on logs predicts the median y at a given x; the corrected "
+            "values (smearing, parametric or ratio factor) estimate the mean, which is "
+            "higher by that factor.")
+
+
+def dose_caution() -> str:
+    """The dose sentence required wherever predictions are shown."""
+    return ("Allometric scaling of doses between species must follow pharmacological or "
+            "veterinary guidance and local regulation; an allometric fit is not a dose.")
+
+
+def mechanism_caution() -> str:
+    """Under exponent tests."""
+    return ("Agreement with 3/4 or 2/3 does not by itself confirm a mechanism: several "
+            "explanations predict the same exponent, and a test that does not reject only "
+            "fails to find a difference.")
+
+
+def ancestry_caution(tree_key: str = "data.tree") -> str:
+    """When group or average_within is set."""
+    return ("Species share ancestry, so their values are not independent: intervals and "
+            "p-values here are too narrow without a phylogenetic correction "
+            f"({tree_key} offers one).")
+
+
+def curvature_ok(verdict: str) -> str:
+    """The curvature verdict when no curvature is detected."""
+    return (f"Power law: {verdict}, so there is no evidence against one exponent within the "
+            "data range.")
+
+
+def symmetric_prediction_note(methods: list) -> str:
+    """Predictions from SMA/MA lines overestimate means at the edges."""
+    names = ", ".join(method_label(m) for m in methods)
+    return (f"Predictions from {names} were made because prediction.methods asks for them. "
+            "Symmetric lines describe how y scales with x; they do not predict y from x. "
+            "Their predictions drift away from the mean of y towards the edges of the data "
+            "(in a seeded simulation SMA with smearing overestimated mean y by about 20% at "
+            "the data's edge and 33% beyond it); use OLS predictions to estimate y.")
+
+
+def predicted_unit(average_within: str | None, y_name: str) -> str:
+    """What one predicted value stands for."""
+    if average_within:
+        return (f"Each prediction is for a new {average_within} mean (the mean of log "
+                f"{y_name} over a {average_within}), not for an individual: individuals "
+                "scatter more widely.")
+    return f"Each prediction is for one new row of the kind in the data ({y_name})."
+
+
+#: Plurals of the group words biologists use that an "s" would get wrong.
+_IRREGULAR_PLURALS = {"genus": "genera", "taxon": "taxa", "phylum": "phyla",
+                      "species": "species", "subspecies": "subspecies", "series": "series",
+                      "family": "families", "subfamily": "subfamilies", "class": "classes",
+                      "subclass": "subclasses", "locus": "loci", "stratum": "strata",
+                      "datum": "data", "criterion": "criteria", "fungus": "fungi",
+                      "individual": "individuals", "sex": "sexes", "mouse": "mice",
+                      "fish": "fish", "sheep": "sheep", "deer": "deer"}
+
+
+def plural(word: str) -> str:
+    """English plural of a group word, for sentences ("clade" -> "clades").
+
+    Examples
+    --------
+    >>> [plural(w) for w in ("clade", "genus", "family", "Taxon", "species", "stock", "box")]
+    ['clades', 'genera', 'families', 'Taxa', 'species', 'stocks', 'boxes']
+    """
+    text = str(word)
+    low = text.lower()
+    if low in _IRREGULAR_PLURALS:
+        out = _IRREGULAR_PLURALS[low]
+        return out[0].upper() + out[1:] if text[:1].isupper() else out
+    if low.endswith(("s", "x", "z", "ch", "sh")):
+        return text + "es"
+    if low.endswith("y") and len(low) > 1 and low[-2] not in "aeiou":
+        return text[:-1] + "ies"
+    return text + "s"
+
+
+def units_line(x_names, x_units, y_name: str, y_unit) -> str:
+    """The units of a prediction table, or "" when none are known.
+
+    Examples
+    --------
+    >>> units_line(["diameter_cm", "height_m"], ["cm", "m"], "biomass_kg", "t")
+    'Units: diameter_cm in cm, height_m in m; y (biomass_kg) in t.'
+    """
+    names = [x_names] if isinstance(x_names, str) else list(x_names or [])
+    units = [x_units] if isinstance(x_units, str) else list(x_units or [])
+    parts = [f"{n} in {u}" for n, u in zip(names, units) if u]
+    if y_unit:
+        parts.append(f"y ({y_name}) in {y_unit}" if y_name else f"y in {y_unit}")
+    if not parts:
+        return ""
+    x_part = ", ".join(p for p in parts if not p.startswith("y"))
+    y_part = next((p for p in parts if p.startswith("y")), "")
+    return "Units: " + "; ".join(p for p in (x_part, y_part) if p) + "."
+
+
+def clean_timestamp(iso: str) -> str:
+    """'2026-12-02T04:40:00+00:00' -> '2026-12-02 04:40 UTC'."""
+    text = str(iso).replace("T", " ")
+    for tail in ("+00:00", "Z"):
+        if text.endswith(tail):
+            text = text[: -len(tail)]
+    if len(text) >= 19 and text[16] == ":":
+        text = text[:16]
+    return text.strip() + " UTC"

@@ -1,0 +1,106 @@
+"""The diagnostics stage of a run: residual checks, influence, curvature, error structure.
+
+Tables from :mod:`scaling.stats.diagnostics`; the verdict sentences from
+:func:`scaling.render.wording.diagnostics_messages`.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from ..stats.diagnostics import compare_error_structure, diagnose
+from ..errors import ScalingError
+from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
+                     INFLUENCE_COLUMNS)
+from ..render.wording import diagnostics_messages
+
+__all__ = ["exponent_targets", "diagnostics_stage"]
+
+
+def exponent_targets(cfg) -> tuple:
+    """Exponents whose crossing the curvature check locates: diagnostics.exponent_at,
+    else the hypothesised exponents."""
+    return tuple(cfg.diagnostics.exponent_at) or tuple(cfg.exponents.values())
+
+
+def diagnostics_stage(line_fits: dict, point_sets: dict, cfg):
+    """diagnostics, influential_rows, curvature and error_structure tables and verdicts."""
+    dc = cfg.diagnostics
+    targets = exponent_targets(cfg)
+    diag_frames, infl_rows, curv_rows, es_rows = [], [], [], []
+    results: dict = {}
+    for (scope, group, method), fit in line_fits.items():
+        sel = point_sets.get((scope, group))
+        if sel is None or len(sel) != fit.n:
+            continue
+        if scope == "group_means":
+            rows = np.arange(len(sel))
+            labels = {i: str(g) for i, g in enumerate(sel["group"])}
+        else:
+            rows = sel["row"].to_numpy()
+            labels = dict(zip(rows.tolist(), sel["unit"].astype(str))) if "unit" in sel \
+                else {}
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                d = diagnose(fit, sel["log_x"].to_numpy(), sel["log_y"].to_numpy(), rows=rows,
+                             exponent_targets=targets, alpha=dc.alpha)
+        except ScalingError:
+            continue   # too few points (n < 4) or nothing to diagnose
+        results[(scope, group, method)] = d
+        frame = d.to_frame()
+        frame.insert(0, "scope", scope)
+        frame.insert(1, "group", group)
+        diag_frames.append(frame)
+        for rec in d.influence_frame().to_dict(orient="records"):
+            row = int(rec["row"])
+            infl_rows.append({"scope": scope, "group": group, "method": method,
+                              "row": None if scope == "group_means" else row,
+                              "label": labels.get(row, ""),
+                              "cooks_distance": rec["cooks_distance"]})
+        if (scope, group) not in {(r["scope"], r["group"]) for r in curv_rows}:
+            c = d.curvature
+            x = sel["log_x"].to_numpy()
+            e_lo, e_hi = c.local_exponent([x.min(), x.max()])
+            common = {"scope": scope, "group": group, "n": d.n, "quadratic": c.quadratic,
+                      "quadratic_se": c.quadratic_se, "statistic": c.statistic, "df": c.df,
+                      "p_value": c.p_value, "exponent_at_x_min": e_lo,
+                      "exponent_at_x_max": e_hi}
+            if c.crossings:
+                for target, xs, inside in c.crossings:
+                    curv_rows.append({**common, "exponent": target, "x_at_exponent": xs,
+                                      "within_data": inside})
+            else:
+                curv_rows.append({**common, "exponent": np.nan, "x_at_exponent": np.nan,
+                                  "within_data": None})
+    es_results: dict = {}
+    if dc.error_structure:
+        for (scope, group), sel in point_sets.items():
+            if scope == "group_means":
+                continue
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    es = compare_error_structure(sel["x"].to_numpy(), sel["y"].to_numpy())
+            except ScalingError:
+                continue
+            es_results[(scope, group)] = es
+            for m in (es.additive, es.multiplicative):
+                es_rows.append({"scope": scope, "group": group, "model": m.name, "a": m.a,
+                                "b": m.b, "sigma": m.sigma, "loglik": m.log_likelihood,
+                                "aicc": m.aicc, "delta_aicc": es.delta_aicc,
+                                "preferred": es.preferred})
+
+    tables = {
+        "diagnostics": pd.concat(diag_frames, ignore_index=True)[DIAGNOSTIC_COLUMNS]
+        if diag_frames else pd.DataFrame(columns=DIAGNOSTIC_COLUMNS),
+        "influential_rows": pd.DataFrame(infl_rows, columns=INFLUENCE_COLUMNS),
+        "curvature": pd.DataFrame(curv_rows, columns=CURVATURE_COLUMNS),
+    }
+    if dc.error_structure:
+        tables["error_structure"] = pd.DataFrame(es_rows, columns=ERROR_STRUCTURE_COLUMNS)
+
+    return tables, diagnostics_messages(results, es_results, point_sets, cfg)

@@ -1,0 +1,107 @@
+"""The group stage of a run: group means, lines through the means, group comparisons."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from ..stats.groups import compare_groups, compared_groups, excluded_text, fit_group_means, group_means
+from ..stats.lines import MIN_N
+from ..stats.moments import moments
+from ..stats.robust import deming_from_moments
+from ..stats.schema import (GROUP_COMPARISON_METHODS, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS,
+                     is_moment_method)
+from .fits import fit_row, row_method_fit, value_range, with_note, with_ranges
+from ..render.wording import means_left_out_note, pairwise_skipped_note, uncompared_message
+
+__all__ = ["group_stage"]
+
+
+def group_stage(pts: pd.DataFrame, cfg, base):
+    """Group means, lines through the means, and comparisons of groups."""
+    rows, fits, g_tables, messages, notes = [], {}, {}, [], []
+    X, Y, labels = pts["log_x"].to_numpy(), pts["log_y"].to_numpy(), pts["group"].to_numpy()
+    means = group_means(X, Y, labels, n_rows=pts["n_rows"].to_numpy())
+    frame = means.to_frame()
+    g_tables["group_means"] = frame
+    means_points = None
+    if cfg.groups.fit_group_means:
+        # The line through the means uses the groups the comparisons use (OLS rule for
+        # the methods compare_groups does not cover; fit_group_means applies each
+        # method's own rule and names the groups it leaves out in its note).
+        keep, left_out = compared_groups(X, Y, labels, method="ols", min_n=MIN_N)
+        frame = frame[frame["group"].isin(keep)].reset_index(drop=True)
+        left_note = (f"groups left out of the line through the means: "
+                     f"{excluded_text(left_out)}") if left_out else ""
+        if left_out:
+            notes.append(means_left_out_note(excluded_text(left_out), len(left_out)))
+        mx, my = frame["mean_log_x"].to_numpy(), frame["mean_log_y"].to_numpy()
+        means_points = pd.DataFrame({"group": frame["group"], "log_x": mx, "log_y": my,
+                                     "x": np.power(base, mx), "y": np.power(base, my)})
+        ranges = ((value_range(means_points["x"].to_numpy()),
+                   value_range(means_points["y"].to_numpy()))
+                  if len(means_points) else ((np.nan, np.nan), (np.nan, np.nan)))
+        for method in cfg.model.methods:
+            if not is_moment_method(method):
+                row, fit = row_method_fit("group_means", "", method, means_points, cfg, base)
+                if fit is not None and left_note:
+                    fit = with_note(fit, left_note)
+                    row["note"] = left_note
+                rows.append(row)
+                if fit is not None:
+                    fits[("group_means", "", method)] = fit
+                continue
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                if method == "deming":
+                    fit = deming_from_moments(moments(mx, my), cfg.model.deming_lambda,
+                                              confidence=cfg.model.confidence, log_base=base)
+                    if left_note and fit.estimable:
+                        fit = with_note(fit, f"{fit.note}; {left_note}" if fit.note
+                                         else left_note)
+                else:
+                    fit = fit_group_means(X, Y, labels, method=method,
+                                          confidence=cfg.model.confidence, log_base=base,
+                                          weighted=cfg.groups.weight_means)
+            fit = with_ranges(fit, ranges)
+            if fit.note and len(frame) < MIN_N:
+                fit = with_note(fit, f"{len(frame)} groups < {MIN_N}: no line through "
+                                      "the group means"
+                                      + (f"; {left_note}" if left_note else ""))
+            rows.append(fit_row("group_means", "", fit, ranges))
+            if fit.estimable:
+                fits[("group_means", "", method)] = fit
+    if cfg.groups.compare:
+        test_frames, pair_frames = [], []
+        data = pts[["x", "y", "group"]] if base is not None else \
+            pts.assign(x=pts["log_x"], y=pts["log_y"])[["x", "y", "group"]]
+        uncompared = [m for m in cfg.model.methods if m not in GROUP_COMPARISON_METHODS]
+        for method in cfg.model.methods:
+            if method not in GROUP_COMPARISON_METHODS:
+                continue
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                comp = compare_groups(data, "x", "y", "group", method=method,
+                                      confidence=cfg.model.confidence, log_base=base,
+                                      pairwise_max=cfg.groups.pairwise_max)
+            summary = comp.summary(list_pairs=False).replace(f"{len(comp.groups)} group groups",
+                                             f"{len(comp.groups)} {cfg.data.group} groups")
+            summary = summary.replace(" group groups", f" {cfg.data.group} groups")
+            summary = summary.replace("exceed pairwise_max", "exceed groups.pairwise_max")
+            messages.append(summary)
+            if comp.pairwise_skipped:
+                notes.append(pairwise_skipped_note(method, len(comp.groups), comp.pairwise_max))
+            if comp.compared:
+                test_frames.append(comp.to_frame())
+                pair_frames.append(comp.pairwise_frame())
+                g_tables.setdefault("_common_slopes", {})[method] = comp.common
+        if uncompared:
+            messages.append(uncompared_message(uncompared))
+        g_tables["group_tests"] = pd.concat(test_frames, ignore_index=True) if test_frames \
+            else pd.DataFrame(columns=GROUP_TEST_COLUMNS)
+        pairs = [f for f in pair_frames if len(f)]
+        g_tables["pairwise_tests"] = pd.concat(pairs, ignore_index=True) if pairs \
+            else pd.DataFrame(columns=PAIRWISE_COLUMNS)
+    return rows, fits, means_points, g_tables, messages, notes

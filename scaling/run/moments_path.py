@@ -1,0 +1,317 @@
+"""Large-data runs: the moments path of a run, and the summary across many groups.
+
+Two stages used by :func:`scaling.run.pipeline.analyse`:
+
+* :func:`use_moments_path` / :func:`analyse_moments` -- with ``engine: dask``,
+  or a data file larger than ``data.moments_above_mb``, the run never holds
+  the rows: :func:`scaling.run.engine.read_moments` reduces the file chunk by
+  chunk (or Dask partition by partition) to per-group moments merged exactly
+  (Chan, Golub & LeVeque 1983), and every OLS/SMA/MA fit, interval and slope
+  test follows from them (:func:`scaling.run.engine.fit_groups_from_moments`).
+  Stages that need the rows (residual diagnostics, smearing and the other
+  accuracy figures, influence, row-based robust lines, bootstrap,
+  permutations, the line through the group means and the group comparison
+  tests) are skipped with a note; rows
+  dropped while cleaning are counted per reason (``dropped_counts``), not
+  listed one by one.
+* :func:`spread_stage` -- with more groups than ``groups.spread_min``, the
+  random-effects summary of the per-group exponents of each line method
+  (:func:`scaling.stats.spread.spread_from_fits`): the mean exponent with its
+  interval, the between-group SD tau with its Q-profile interval, and a test
+  of the mean against each hypothesised exponent.
+
+The plain-language sentences are small functions here (to move into
+``wording.py`` at merge time).
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import ConfigError, DataError
+from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
+from ..io.tables import CleanData
+from .engine import fit_groups_from_moments, read_moments
+from ..stats.lines import METHODS, describe_test, line_fit_from_moments, method_label, parse_log_base
+from ..io.output import manifest_header
+from ..stats.schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
+
+__all__ = ["use_moments_path", "analyse_moments", "spread_stage", "spread_sentence",
+           "SPREAD_METHODS"]
+
+#: Line methods whose per-group exponents carry a standard error for the spread summary.
+SPREAD_METHODS = ("ols", "sma", "ma")
+
+_ROW_STAGES = "residual diagnostics, smearing and accuracy, influence, bootstrap and permutations"
+
+
+# --------------------------------------------------------------------------
+# wording
+
+
+def _thousands(n: int) -> str:
+    return f"{n:,}".replace(",", "\u2009")
+
+
+def spread_sentence(spread, group_word: str) -> str:
+    """One sentence: the mean exponent, its interval and the between-group SD."""
+    pct = f"{100 * spread.confidence:g}%"
+    return (f"Across {_thousands(spread.k)} {group_word} the mean {spread.method.upper()} "
+            f"exponent is {spread.mean:.3g} ({pct} CI {spread.mean_ci.low:.3g}–"
+            f"{spread.mean_ci.high:.3g}), between-group SD "
+            f"{spread.tau:.2g} ({spread.tau_ci.low:.2g}–{spread.tau_ci.high:.2g}); "
+            f"I² = {100 * spread.i2:.0f}% of the variation among estimates is between groups.")
+
+
+def _moments_path_sentence(reason: str, n_read: int, n_dropped: int, n_groups: int) -> str:
+    return (f"Large-data run ({reason}): read {_thousands(n_read)} rows in chunks, dropped "
+            f"{_thousands(n_dropped)}, fitted {_thousands(n_groups)} group(s) from "
+            "per-group moments.")
+
+
+# --------------------------------------------------------------------------
+# summary across many groups
+
+
+def spread_stage(fits: pd.DataFrame, cfg) -> tuple[dict, list, list]:
+    """Random-effects summary of the group exponents, when there are many groups.
+
+    Parameters
+    ----------
+    fits : DataFrame
+        The run's ``fits`` table.
+    cfg : Config
+
+    Returns
+    -------
+    tables : dict
+        ``exponent_spread`` (one row per method, :data:`scaling.stats.spread.SPREAD_COLUMNS`)
+        and ``exponent_spread_tests`` (method x hypothesised exponent), or nothing
+        when there are at most ``groups.spread_min`` groups.
+    messages, notes : list of str
+    """
+
+    groups = fits.loc[fits["scope"] == "group", "group"]
+    n_groups = int(groups.nunique())
+    if n_groups <= cfg.groups.spread_min:
+        return {}, [], []
+    frames, tests, messages, notes = [], [], [], []
+    word = f"groups ({cfg.data.group})" if cfg.data.group else "groups"
+    for method in cfg.model.methods:
+        if method not in SPREAD_METHODS:
+            continue
+        try:
+            s = spread_from_fits(fits, method, tau2_method=cfg.groups.spread_tau2,
+                                 mean_interval=cfg.groups.spread_interval,
+                                 confidence=cfg.model.confidence, exponents=cfg.exponents)
+        except DataError as exc:
+            notes.append(f"No summary across groups for {method.upper()}: {exc}.")
+            continue
+        frames.append(s.to_frame())
+        tests.append(s.tests_frame())
+        messages.append(spread_sentence(s, word))
+    if not frames:
+        return {}, messages, notes
+    tables = {"exponent_spread": pd.concat(frames, ignore_index=True)[SPREAD_COLUMNS],
+              "exponent_spread_tests": pd.concat(tests, ignore_index=True)[SPREAD_TEST_COLUMNS]}
+    return tables, messages, notes
+
+
+# --------------------------------------------------------------------------
+# the moments path
+
+
+def _file_mb(path: Path) -> float:
+    try:
+        if path.is_dir():
+            return sum(p.stat().st_size for p in path.iterdir() if p.is_file()) / 2**20
+        return path.stat().st_size / 2**20
+    except OSError:
+        return 0.0
+
+
+def _unsupported(cfg) -> list:
+    """Data keys the moments path cannot honour (it reads x, y, group only)."""
+    d = cfg.data
+    out = []
+    if d.average_within:
+        out.append("data.average_within")
+    if d.exclude:
+        out.append("data.exclude")
+    if d.skip_rows:
+        out.append("data.skip_rows")
+    if d.units_row:
+        out.append("data.units_row")
+    if Path(d.file).suffix.lower() in (".xlsx", ".xls"):
+        out.append("data.file (xlsx)")
+    if d.encoding.lower().replace("-", "") not in ("utf8", "utf8sig"):
+        out.append("data.encoding")
+    return out
+
+
+def use_moments_path(cfg) -> str | None:
+    """Why the run takes the moments path (``None``: the ordinary path).
+
+    ``engine: dask`` always does (and a key the path cannot honour is an
+    error); a file larger than ``data.moments_above_mb`` does unless such a
+    key is set (then the ordinary path reads it whole).
+    """
+    keys = _unsupported(cfg)
+    if cfg.engine == "dask":
+        if keys:
+            raise ConfigError(f"engine: dask reads x, y and group only; remove "
+                              f"{', '.join(keys)} or use engine: pandas")
+        return "engine: dask"
+    size = _file_mb(Path(cfg.data.file))
+    if size > cfg.data.moments_above_mb and not keys:
+        return f"file of {size:,.0f} MB above data.moments_above_mb = {cfg.data.moments_above_mb:g}"
+    return None
+
+
+def _sep(cfg) -> str:
+    if cfg.data.delimiter != "auto":
+        return cfg.data.delimiter
+    suffix = Path(cfg.data.file).suffix.lower()
+    if suffix == ".tsv":
+        return "\t"
+    if suffix == ".parquet":
+        return ","
+    with open(cfg.data.file, encoding="utf-8-sig", errors="replace") as fh:
+        head = fh.readline()
+    counts = {s: head.count(s) for s in (",", "\t", ";")}
+    return max(counts, key=counts.get) if max(counts.values()) else ","
+
+
+def analyse_moments(cfg, reason: str):
+    """A whole run from per-group moments (the file is never held in memory).
+
+    Returns the fields of a :class:`scaling.run.pipeline.RunResult` whose ``fits`` and
+    ``slope_tests`` equal those of the ordinary run to rounding; ``data.points``
+    is empty (no rows are kept), ``dropped`` is empty and ``tables`` holds
+    ``dropped_counts`` (``reason, rows``) and ``group_means``.
+    """
+
+    base = parse_log_base(cfg.model.log_base)
+    d = cfg.data
+    gm = read_moments(d.file, x=d.x, y=d.y, group=d.group, log_base=base,
+                      chunk_size=d.chunk_size, engine=cfg.engine, scheduler=cfg.scheduler,
+                      sep=_sep(cfg), decimal=d.decimal)
+    methods = [m for m in cfg.model.methods if m in METHODS]
+    others = [m for m in cfg.model.methods if m not in METHODS]
+    notes: list[str] = []
+    if not methods:
+        raise DataError(f"{d.file}: the large-data path fits OLS, SMA and MA from moments; "
+                        f"model.methods has only {', '.join(others)} (row-based)")
+    res = fit_groups_from_moments(gm, methods=methods, confidence=cfg.model.confidence,
+                                  exponents=cfg.exponents, pooled=True)
+    fits = res.fits[FIT_COLUMNS] if list(res.fits.columns) != FIT_COLUMNS else res.fits
+    if not d.group:
+        fits = fits[fits["scope"] == "pooled"].reset_index(drop=True)
+    slope_tests = res.slope_tests
+    if not d.group:
+        slope_tests = slope_tests[slope_tests["scope"] == "pooled"].reset_index(drop=True)
+    slope_tests = slope_tests[SLOPE_TEST_COLUMNS]
+
+    # LineFit objects for the pooled fits only (figures, predictions of the pooled line).
+    line_fits = {}
+    pooled = gm.pooled
+    for row in fits[fits["scope"] == "pooled"].itertuples(index=False):
+        if np.isfinite(row.slope):
+            line_fits[("pooled", "", row.method)] = line_fit_from_moments(
+                pooled[0], row.method, confidence=cfg.model.confidence, log_base=base,
+                x_range=(row.x_min, row.x_max),
+                y_range=(row.y_min, row.y_max))
+    if not line_fits:
+        raise DataError(f"{d.file}: no line could be fitted to the pooled rows")
+
+    tables: dict = {"dropped_counts": gm.dropped_frame()}
+    if d.group:
+        m = gm.moments
+        with np.errstate(invalid="ignore", divide="ignore"):
+            se_x = np.sqrt(m.sxx / (m.n - 1) / m.n)
+            se_y = np.sqrt(m.syy / (m.n - 1) / m.n)
+        tables["group_means"] = pd.DataFrame({
+            "group": gm.labels.astype(object), "n": m.n.astype(np.int64),
+            "mean_log_x": m.mean_x, "mean_log_y": m.mean_y, "se_log_x": se_x,
+            "se_log_y": se_y})
+
+    messages = [_moments_path_sentence(reason, gm.n_read, gm.n_dropped, gm.n_groups)]
+    pct = f"{100 * cfg.model.confidence:g}%"
+    for (_, _, method), fit in line_fits.items():
+        messages.append(f"Pooled {method_label(method)} exponent {fit.slope:.3f} ({pct} CI "
+                        f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}), r² = {fit.r2:.3f}, "
+                        f"n = {fit.n}.")
+        for name, b0 in cfg.exponents.items():
+            messages.append("  " + describe_test(fit.test_slope(b0, hypothesis=name),
+                                                 alpha=1 - cfg.model.confidence))
+    if gm.n_dropped:
+        notes.append(f"{gm.n_dropped} rows were dropped; dropped_counts.csv gives the number "
+                     "per reason (the large-data path counts rows instead of listing them).")
+    if others:
+        notes.append(f"Row-based methods not fitted on the large-data path: "
+                     f"{', '.join(others)}.")
+    notes.append(f"Stages that need the rows were skipped on the large-data path: "
+                 f"{_ROW_STAGES}, the line through the group means and the group comparison tests.")
+    if cfg.prediction.x or cfg.prediction.y:
+        notes.append("Predictions were not made on the large-data path (they need the "
+                     "residuals for the back-transformation).")
+
+    drawable = tuple(k for k in cfg.figures.kinds if k in ("scaling", "exponents"))
+    if drawable != tuple(cfg.figures.kinds):
+        gone = [k for k in cfg.figures.kinds if k not in drawable]
+        notes.append(f"Figures that need the rows were not drawn on the large-data path: "
+                     f"{', '.join(gone)}; the scaling figure shows the fitted lines and the "
+                     "group means.")
+        cfg = replace(cfg, figures=replace(cfg.figures, kinds=drawable))
+    empty = pd.DataFrame({"row": pd.Series(dtype=np.int64), "x": pd.Series(dtype=float),
+                          "y": pd.Series(dtype=float), "log_x": pd.Series(dtype=float),
+                          "log_y": pd.Series(dtype=float), "n_rows": pd.Series(dtype=np.int64)})
+    data = CleanData(points=empty, dropped=pd.DataFrame(columns=DROPPED_COLUMNS),
+                     n_read=int(gm.n_read), units=dict(d.units), averaged_within=None,
+                     n_rows_used=int(gm.moments.n.sum()))
+    manifest = {
+        **manifest_header(cfg),
+        "large_data": {"reason": reason, "engine": cfg.engine, "scheduler": cfg.scheduler,
+                       "chunk_size": d.chunk_size, "rows_read": int(gm.n_read),
+                       "rows_dropped": int(gm.n_dropped), "groups": gm.n_groups},
+    }
+    # the fields of a pipeline.RunResult (built there: this module sits below pipeline)
+    return dict(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
+                dropped=data.dropped, line_fits=line_fits, tables=tables,
+                messages=tuple(messages), warnings=tuple(notes), manifest=manifest)
+
+
+# --------------------------------------------------------------------------
+# hooks of the ordinary run
+
+
+def bounded_diagnostics(line_fits: dict, point_sets: dict, cfg) -> tuple[dict, dict, list]:
+    """The fits and point sets the diagnostics stage should check.
+
+    Above ``groups.diagnostics_max`` groups the per-group checks are left
+    out (the pooled and group-means lines are still checked) and a note
+    says so; otherwise everything is passed through.
+    """
+    n_groups = sum(1 for scope, _ in point_sets if scope == "group")
+    if n_groups <= cfg.groups.diagnostics_max:
+        return line_fits, point_sets, []
+    fits = {k: v for k, v in line_fits.items() if k[0] != "group"}
+    sets = {k: v for k, v in point_sets.items() if k[0] != "group"}
+    note = (f"Per-group diagnostics skipped: {_thousands(n_groups)} groups is more than "
+            f"groups.diagnostics_max = {cfg.groups.diagnostics_max}; the pooled line is "
+            "checked.")
+    return fits, sets, [note]
+
+
+def finish(result):
+    """Add the summary across groups (:func:`spread_stage`) to a run's result."""
+    tables, messages, notes = spread_stage(result.fits, result.config)
+    if not (tables or messages or notes):
+        return result
+    return replace(result, tables={**result.tables, **tables},
+                   messages=tuple(result.messages) + tuple(messages),
+                   warnings=tuple(result.warnings) + tuple(notes))

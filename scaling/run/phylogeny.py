@@ -1,0 +1,240 @@
+"""The phylogenetic stage of a run: PGLS, phylogenetic SMA and MA next to the ordinary fits.
+
+With ``data.tree`` (a Newick file) and ``data.species`` (the column naming
+its tips) in the config, every requested OLS, SMA and MA line is also fitted
+across species with :func:`scaling.stats.phylogeny.fit_phylo` (Pagel's lambda as set
+by ``model.phylogeny.lambda``: ``ml``, ``reml`` or a fixed number in
+[0, 1]).  Rows are averaged within species first (``data.average_within``
+is the species column), so the ordinary pooled fit and the phylogenetic one
+read the same species means and differ only by the correction.
+
+The phylogenetic fits are rows of ``fits.csv`` and ``slope_tests.csv`` with
+scope ``phylo`` (group blank); ``fits.csv`` gains the columns ``lambda``,
+``lambda_low``, ``lambda_high``, ``lambda_estimate``, ``loglik`` and
+``aic`` (blank for ordinary fits).  Species without a tip and tips without
+data are listed in ``dropped_rows.csv``; the tips are pruned.  Per-group
+phylogenetic fits and phylogenetic group comparisons are not done: the
+summary says so when groups are compared.
+
+The numeric work is in :mod:`scaling.stats.phylogeny`; this module only reads the
+tree, calls it and phrases the result (its sentences will move to
+``wording.py``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..stats.lines import base_label, describe_test, line_fit_from_moments, method_label
+from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
+
+__all__ = ["PHYLO_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
+           "add_phylo_columns"]
+
+PHYLO_SCOPE = "phylo"
+PHYLO_METHODS = ("ols", "sma", "ma")
+PHYLO_FIT_COLUMNS = ["lambda", "lambda_low", "lambda_high", "lambda_estimate", "loglik", "aic"]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PhyloStage:
+    """What the phylogenetic stage adds to a run.
+
+    Attributes
+    ----------
+    rows : list of dict
+        ``fits.csv`` rows (scope ``phylo``), with the lambda columns.
+    fits : dict
+        method -> :class:`~scaling.stats.phylogeny.PhyloFit`.
+    line_fits : dict
+        ``("phylo", "", method) -> LineFit`` (the same lines, for slope tests,
+        figures; not used for predictions, whose interval for a new species is not
+        defined here yet).
+    points : DataFrame
+        The species points with a tip (what the phylogenetic lines were fitted to).
+    dropped : DataFrame
+        ``row, reason`` entries for species without a tip and pruned tips.
+    messages, notes : list of str
+    """
+
+    rows: list
+    fits: dict
+    line_fits: dict
+    points: pd.DataFrame
+    dropped: pd.DataFrame
+    messages: list = field(default_factory=list)
+    notes: list = field(default_factory=list)
+
+
+def phylo_stage(pts: pd.DataFrame, cfg, base) -> PhyloStage:
+    """Fit every requested OLS/SMA/MA line phylogenetically over ``cfg.data.tree``.
+
+    Parameters
+    ----------
+    pts : DataFrame
+        The run's points, one per species (column ``unit`` holds the species).
+    cfg : Config
+    base : float or None
+        Log base of the run.
+
+    Raises
+    ------
+    DataError
+        If the tree file cannot be read or parsed (the message names the
+        file and the character), has a negative or missing branch length, or
+        fewer than 3 species match a tip.
+    """
+    dc = cfg.data
+    tree = read_newick(dc.tree)
+    name = Path(dc.tree).name
+    species = pts["unit"].astype(str).tolist()
+    match = match_species(species, tree)
+    has_tip = np.isin(np.asarray([_key(s) for s in species], dtype=object),
+                      np.asarray([s for s, t in zip(match.species, match.tip_of_species)
+                                  if t >= 0], dtype=object))
+    used = pts[has_tip]
+    lam = cfg.model.phylogeny["lambda"]
+    kwargs = dict(lam="ml" if lam in ("ml", "reml") else lam, reml=lam == "reml",
+                  confidence=cfg.model.confidence, log_base=base)
+    x, y = pts["x"].to_numpy(), pts["y"].to_numpy()
+    ranges = ((float(used["x"].min()), float(used["x"].max())),
+              (float(used["y"].min()), float(used["y"].max())))
+    rows, fits, line_fits = [], {}, {}
+    for method in [m for m in cfg.model.methods if m in PHYLO_METHODS]:
+        fit = fit_phylo(x, y, tree, species, method=method, **kwargs)
+        fits[method] = fit
+        rows.append(_row(fit, ranges))
+        if fit.estimable:
+            line_fits[(PHYLO_SCOPE, "", method)] = line_fit_from_moments(
+                fit.moments, method, confidence=fit.confidence, log_base=base,
+                x_range=ranges[0], y_range=ranges[1])
+    dropped = _dropped(pts, match, dc.species, name)
+    notes = []
+    if cfg.prediction.x or cfg.prediction.y:
+        notes.append("Predictions come from the ordinary lines only: phylogenetic lines make "
+                     "no predictions yet (an interval for a new species needs its place in "
+                     "the tree).")
+    if len(dropped):
+        notes.append(_drop_note(match, name, {_key(u): str(u) for u in pts["unit"]}))
+    return PhyloStage(rows=rows, fits=fits, line_fits=line_fits, points=used, dropped=dropped,
+                      notes=notes)
+
+
+def _key(name) -> str:
+    return " ".join(str(name).replace("_", " ").split())
+
+
+def _row(fit: PhyloFit, ranges) -> dict:
+    rec = fit.to_record()
+    (x_lo, x_hi), (y_lo, y_hi) = ranges
+    rec.update({"scope": PHYLO_SCOPE, "group": "", "x_min": x_lo, "x_max": x_hi,
+                "y_min": y_lo, "y_max": y_hi, "interval_method": "analytic",
+                "deming_lambda": np.nan})
+    return rec
+
+
+def _dropped(pts: pd.DataFrame, match, column: str, tree_name: str) -> pd.DataFrame:
+    """Species without a tip (their first input row) and tips without data (row blank)."""
+    first_row = {_key(u): int(r) for u, r in zip(pts["unit"], pts["row"])}
+    n_rows = {_key(u): int(k) for u, k in zip(pts["unit"], pts["n_rows"])}
+    shown = {_key(u): str(u) for u in pts["unit"]}
+    rows = [{"row": first_row[s],
+             "reason": f"{column} {shown[s]!r} has no tip in tree {tree_name}: left out of the "
+                       f"phylogenetic fits only ({n_rows[s]} row(s) of this species, "
+                       "first shown)"}
+            for s in match.missing_species]
+    rows += [{"row": pd.NA,
+              "reason": f"tree {tree_name} tip {t!r} has no data in column {column}: "
+                        "pruned from the tree"}
+             for t in match.pruned_tips]
+    out = pd.DataFrame(rows, columns=["row", "reason"])
+    out["row"] = out["row"].astype("Int64")
+    return out
+
+
+def _drop_note(match, tree_name: str, shown: dict) -> str:
+    missing = [shown.get(s, s) for s in match.missing_species]
+    parts = []
+    if match.missing_species:
+        parts.append(f"{len(match.missing_species)} species have no tip in {tree_name} and "
+                     f"are left out of the phylogenetic fits ({_listed(missing)})")
+    if match.pruned_tips:
+        parts.append(f"{len(match.pruned_tips)} tips of {tree_name} have no data and were "
+                     f"pruned ({_listed(match.pruned_tips)})")
+    return "; ".join(parts) + "; see dropped_rows.csv."
+
+
+def _listed(names, limit: int = 5) -> str:
+    shown = ", ".join(names[:limit])
+    return shown + (f" and {len(names) - limit} more" if len(names) > limit else "")
+
+
+def add_phylo_columns(fits: pd.DataFrame, stage: PhyloStage | None) -> pd.DataFrame:
+    """``fits`` with the lambda/loglik/aic columns (blank except on phylo rows)."""
+    out = fits.copy()
+    for c in PHYLO_FIT_COLUMNS:
+        out[c] = np.nan if c != "lambda_estimate" else ""
+    if stage is None:
+        return out
+    for r in stage.rows:
+        sel = (out["scope"] == PHYLO_SCOPE) & (out["method"] == r["method"])
+        for c in PHYLO_FIT_COLUMNS:
+            out.loc[sel, c] = r[c]
+    return out
+
+
+def phylo_messages(stage: PhyloStage, ordinary: dict, cfg, *, has_groups: bool) -> list:
+    """Plain-language sentences: lambda, the phylogenetic exponent and what changed.
+
+    ``ordinary`` maps method -> the pooled ordinary LineFit (on all species).
+    """
+    pct = f"{100 * cfg.model.confidence:g}%"
+    alpha = 1 - cfg.model.confidence
+    out = []
+    tree_name = Path(cfg.data.tree).name
+    for method, fit in stage.fits.items():
+        label = method_label(method)
+        if not fit.estimable:
+            out.append(f"Phylogenetic {label}: not estimable ({fit.note}).")
+            continue
+        if fit.lam_estimate == "fixed":
+            lam = f"Pagel's λ fixed at {fit.lam:g}"
+        else:
+            lam = (f"Pagel's λ = {fit.lam:.2f} ({pct} profile CI {fit.lam_ci.low:.2f}–"
+                   f"{fit.lam_ci.high:.2f}, {fit.lam_estimate.upper()})")
+        text = (f"Phylogenetic {label} over tree {tree_name} ({fit.n} species, {lam}): "
+                f"exponent {fit.slope:.3f} ({pct} CI {fit.slope_ci.low:.3f}–"
+                f"{fit.slope_ci.high:.3f})")
+        o = ordinary.get(method)
+        if o is not None:
+            w_p = fit.slope_ci.high - fit.slope_ci.low
+            w_o = o.slope_ci.high - o.slope_ci.low
+            change = (f"; ordinary {label} {o.slope:.3f} ({o.slope_ci.low:.3f}–"
+                      f"{o.slope_ci.high:.3f}, n = {o.n}): the correction moved the exponent "
+                      f"by {fit.slope - o.slope:+.3f}")
+            if np.isfinite(w_p) and np.isfinite(w_o) and w_o > 0:
+                change += (f" and made its interval {abs(w_p / w_o - 1) * 100:.0f}% "
+                           f"{'wider' if w_p > w_o else 'narrower'}")
+            text += change
+        out.append(text + ".")
+        for hyp, b0 in cfg.exponents.items():
+            t = fit.test_slope(b0, hypothesis=hyp)
+            line = "  " + describe_test(t, alpha=alpha).rstrip(".")
+            if o is not None:
+                ot = o.test_slope(b0, hypothesis=hyp)
+                if (t.p_value < alpha) != (ot.p_value < alpha):
+                    line += (f"; the ordinary {label} "
+                         f"{'rejects' if ot.p_value < alpha else 'does not reject'} it, so "
+                         "the verdict changes with the correction")
+                else:
+                    line += f"; same verdict as the ordinary {label}"
+            out.append(line + ".")
+    if has_groups:
+        out.append("Not yet phylogenetic: the per-group fits, the line through the group means "
+                   "and the group comparisons (common slope, intercept and axis shifts) "
+                   "treat species as independent.")
+    return out

@@ -1,0 +1,207 @@
+"""The prediction stage of a run: accuracy and correction factors per fit, predictions.
+
+The correction factors of every fit are computed once here (on the fit's own
+points), stored in the saved-fit dictionaries (``RunResult.tables["_saved_fits"]``,
+written to results.json) and in fits.csv, and passed on to the predictions
+and to the figures; nothing computes them again.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from ..stats.lines import fit_to_dict, to_log
+from ..stats.predictions import accuracy, data_factors, inverse_predict, predict, saved_factor
+from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
+from .prediction_lines import add_range_ratio
+from ..render.wording import (scope_words,
+                      unbounded_inverse_note)
+
+__all__ = ["accuracy_and_factors", "add_accuracy_columns", "prediction_stage"]
+
+
+def _extra_of(fit, x, y) -> dict:
+    """Accuracy and correction factors of one fit on its points (the per-fit reference)."""
+    factors = data_factors(fit, x, y)
+    acc = accuracy(fit, x, y)
+    return {"see": acc.see, "percent_see": acc.percent_see, "percent_pe": acc.percent_pe,
+            "smearing_factor": float(factors["smearing"]),
+            "parametric_factor": float(factors["parametric"]),
+            "ratio_factor": float(factors["ratio"])}
+
+
+def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray,
+                     log_base: float) -> dict:
+    """Accuracy and correction factors of many fits at once, one fit per group code.
+
+    Parameters
+    ----------
+    fits : list of LineFit
+        ``fits[k]`` is fitted to the rows with ``codes == k``; all estimable,
+        all on the log base ``log_base`` (not None).
+    x, y : ndarray
+        Natural units, every row of every group (positive, finite).
+    codes : ndarray of int
+        Group code of each row, 0 .. len(fits) - 1, sorted (each group's rows
+        contiguous), every code with >= 3 rows.
+    log_base : float
+
+    Returns
+    -------
+    dict
+        Arrays (one value per fit) under the keys of :func:`_extra_of`.
+
+    Notes
+    -----
+    The same formulas as :func:`scaling.stats.predictions.accuracy` and
+    :func:`scaling.stats.predictions.data_factors`, with the per-group sums taken over blocks of equal-sized groups
+    (no Python loop over groups): residuals e = Y - (a + b X);
+    SEE = sqrt(sum e^2 / (n - 2)); %SEE = 100 (base^SEE - 1);
+    %PE = 100 mean |y - yhat| / yhat with yhat = base^(a + b X);
+    smearing = mean(base^e) (Duan 1983, JASA 78:605); parametric =
+    exp(SEE_fit^2 ln(base)^2 / 2) (Baskerville 1972, Can. J. For. Res. 2:49);
+    ratio = mean(y) / mean(yhat) (Snowdon 1991, Can. J. For. Res. 21:720).
+    """
+    k = len(fits)
+    a = np.array([f.intercept for f in fits], dtype=float)[codes]
+    b = np.array([f.slope for f in fits], dtype=float)[codes]
+    sd = np.array([f.resid_sd for f in fits], dtype=float)
+    ln_base = math.log(log_base)
+    X, Y = to_log(x, log_base), to_log(y, log_base)
+    line = a + b * X
+    res = Y - line
+    y_hat = log_base ** line
+    sizes = np.bincount(codes, minlength=k)
+    n = sizes.astype(float)
+    starts = np.concatenate(([0], np.cumsum(sizes[:-1])))
+    # Groups of equal size side by side as rows of one C-ordered block: a sum
+    # along the rows adds each group's values in the same (pairwise) order as
+    # np.sum / np.mean on that group alone, so every number equals the per-fit
+    # one to the last bit.  One block per distinct group size (at most
+    # sqrt(2 N) of them for N rows).
+    blocks = [(idx, starts[idx][:, None] + np.arange(size))
+              for size in np.unique(sizes)
+              for idx in [np.flatnonzero(sizes == size)]]
+
+    def total(w):
+        out = np.empty(k)
+        for idx, rows in blocks:
+            out[idx] = w[rows].sum(axis=1)
+        return out
+
+    see = np.sqrt(total(res * res) / (n - 2))
+    # base ** SEE with Python's pow on each float, as accuracy() does (numpy's
+    # vectorised power can differ in the last bit).
+    percent_see = np.array([100 * (log_base ** v - 1) for v in see.tolist()])
+    return {"see": see, "percent_see": percent_see,
+            "percent_pe": 100 * (total(np.abs(y - y_hat) / y_hat) / n),
+            "smearing_factor": total(np.exp(res * ln_base)) / n,
+            "parametric_factor": np.exp(sd * sd * ln_base * ln_base / 2),
+            "ratio_factor": (total(y) / n) / (total(y_hat) / n)}
+
+
+def accuracy_and_factors(line_fits: dict, point_sets: dict):
+    """Saved-fit dicts (with smearing and ratio factors) and accuracy columns per fit.
+
+    Estimable fits on a log scale are evaluated together, per method and
+    log base, by :func:`factors_by_group` (no Python loop over the groups'
+    rows); the others one by one.
+    """
+    extra = {}
+    batches: dict = {}
+    for key, fit in line_fits.items():
+        scope, group, method = key
+        sel = point_sets.get((scope, group))
+        if sel is None or len(sel) < 3:
+            continue
+        if fit.log_base is None or not fit.estimable:
+            extra[key] = _extra_of(fit, sel["x"].to_numpy(), sel["y"].to_numpy())
+        else:
+            batches.setdefault((method, fit.log_base), []).append(key)
+    for (_, base), keys in batches.items():
+        sels = [point_sets[(s, g)] for s, g, _ in keys]
+        lengths = np.array([len(t) for t in sels])
+        codes = np.repeat(np.arange(len(keys)), lengths)
+        x = np.concatenate([t["x"].to_numpy(dtype=float) for t in sels])
+        y = np.concatenate([t["y"].to_numpy(dtype=float) for t in sels])
+        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))
+                and np.all(x > 0) and np.all(y > 0)):
+            for key, t in zip(keys, sels):   # let the per-fit path raise its clear error
+                extra[key] = _extra_of(line_fits[key], t["x"].to_numpy(), t["y"].to_numpy())
+            continue
+        cols = factors_by_group([line_fits[k] for k in keys], x, y, codes, base)
+        for i, key in enumerate(keys):
+            extra[key] = {c: float(v[i]) for c, v in cols.items()}
+    extra = {key: extra[key] for key in line_fits if key in extra}   # the fits' order
+    saved = {}
+    for key, fit in line_fits.items():
+        if key not in extra:
+            continue
+        scope, group, _ = key
+        d = fit_to_dict(fit, smearing_factor=extra[key]["smearing_factor"],
+                        ratio_factor=extra[key]["ratio_factor"])
+        d.update({"scope": scope, "group": group})
+        saved[key] = d
+    return saved, extra
+
+
+def add_accuracy_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:
+    """fits.csv with the accuracy and correction-factor columns (NaN where not computed)."""
+    values = {c: [] for c in FIT_ACCURACY_COLUMNS}
+    for r in fits.itertuples(index=False):
+        row = extra.get((r.scope, r.group, r.method), {})
+        for c in FIT_ACCURACY_COLUMNS:
+            values[c].append(row.get(c, np.nan))
+    out = fits.copy()
+    for c in FIT_ACCURACY_COLUMNS:
+        out[c] = values[c]
+    return out
+
+
+def _tagged(prediction, scope: str, group: str, method: str) -> pd.DataFrame:
+    """A prediction's table with the columns that say which fit made it."""
+    f = prediction.to_frame()
+    f.insert(0, "scope", scope)
+    f.insert(1, "group", group)
+    f["method"] = method
+    f["confidence"] = prediction.confidence
+    return f
+
+
+def prediction_stage(line_fits: dict, saved: dict, cfg):
+    """predictions.csv (and inverse_predictions.csv) for the config's values."""
+    pc = cfg.prediction
+    rows, inv_rows, notes, unbounded = [], [], [], []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for key, d in saved.items():
+            scope, group, method = key
+            fit = line_fits[key]
+            if pc.x:
+                p = predict(fit, list(pc.x), correction=pc.correction, interval=pc.interval,
+                            factor=saved_factor(d, pc.correction))
+                rows.append(_tagged(p, scope, group, method))
+            if pc.y:
+                q = inverse_predict(fit, list(pc.y), interval=pc.interval)
+                inv_rows.append(_tagged(q, scope, group, method))
+                if not np.all(q.bounded):
+                    unbounded.append(scope_words(scope, group) + " " + method_label(method))
+    tables = {}
+    for wanted, parts, columns, role, name in (
+            (pc.x, rows, PREDICTION_COLUMNS, "x", "predictions"),
+            (pc.y, inv_rows, INVERSE_COLUMNS, "y", "inverse_predictions")):
+        if not wanted:
+            continue
+        keep = columns[:-1]   # range_ratio, the last column, is added here
+        table = pd.concat(parts, ignore_index=True)[keep] if parts else \
+            pd.DataFrame(columns=keep)
+        table, range_notes = add_range_ratio(table, saved, role)
+        tables[name] = table
+        notes += range_notes
+    if pc.y and unbounded:
+        notes.append(unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
+    return tables, notes
