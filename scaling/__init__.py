@@ -22,8 +22,8 @@ _EXPORTS: dict[str, str] = {
     "fit_line": "api", "fit_groups": "api", "LineFit": "stats.lines", "SlopeTest": "stats.lines",
     "ConfidenceInterval": "stats.lines",
     # groups
-    "compare_groups": "stats.groups", "group_means": "stats.groups",
-    "fit_group_means": "stats.groups", "GroupComparison": "stats.groups",
+    "compare_groups": "stats.group_comparisons", "group_means": "stats.group_means",
+    "fit_group_means": "stats.group_means", "GroupComparison": "stats.group_comparisons",
     # moments, several predictors
     "Moments": "stats.moments",
     "fit_multi": "stats.several_predictors", "MultiFit": "stats.several_predictors",

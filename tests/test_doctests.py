@@ -6,13 +6,13 @@ import doctest
 import pytest
 
 import scaling.api
-import scaling.stats.groups
+import scaling.stats.group_comparisons
 import scaling.stats.lines
 import scaling.stats.several_predictors
 import scaling.io.starter
 import scaling.stats.units
 
-MODULES = [scaling.api, scaling.stats.groups, scaling.stats.lines, scaling.stats.several_predictors, scaling.io.starter,
+MODULES = [scaling.api, scaling.stats.group_comparisons, scaling.stats.lines, scaling.stats.several_predictors, scaling.io.starter,
            scaling.stats.units]
 
 

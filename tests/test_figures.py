@@ -488,7 +488,7 @@ class TestReadableFigures:
         assert _label(res, "y") == "rate (W)"
 
     def test_common_slope_row_and_lines(self, grouped):
-        from scaling.stats.groups import common_slope
+        from scaling.stats.common_slope import common_slope
         ax = plot_exponents(grouped)
         labels = [t.get_text().replace("\n", " ") for t in ax.get_yticklabels()]
         # the clades' slopes do not differ: the common slope is the first row

@@ -1,10 +1,13 @@
-"""Tests of scaling.stats.groups: group means, the line through them, common slopes, comparisons.
+"""Tests of the group modules: group means, the line through them, common slopes, comparisons.
+
+Modules: scaling.stats.group_means, scaling.stats.common_slope,
+scaling.stats.group_comparisons.
 
 Sources of expected values are named beside each assertion.  Simulations use
 invented data with a known truth only (RULES.md 2); all Monte Carlo
 replicates are generated in one array pass through
 scaling.stats.moments.group_moments and tested by the same vectorised function that
-compare_groups calls (scaling.stats.groups._axis_tests).
+compare_groups calls (scaling.stats.group_comparisons._axis_tests).
 """
 from __future__ import annotations
 
@@ -17,7 +20,9 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import optimize, stats
 
-import scaling.stats.groups as sg
+import scaling.stats.common_slope as cs
+import scaling.stats.group_comparisons as gc
+import scaling.stats.group_means as gm
 from scaling import fit_line
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
 from scaling.stats.moments import group_moments
@@ -85,7 +90,7 @@ def cats():
 class TestGroupMeans:
     def test_against_pandas_groupby(self, cats):
         lx, ly = np.log10(cats["Bwt"]), np.log10(cats["Hwt"])
-        res = sg.group_means(lx, ly, cats["Sex"], n_rows=np.full(len(cats), 2))
+        res = gm.group_means(lx, ly, cats["Sex"], n_rows=np.full(len(cats), 2))
         frame = res.to_frame()
         ref = pd.DataFrame({"lx": lx, "ly": ly, "g": cats["Sex"]}).groupby("g")
         # reference: pandas groupby mean / sem (sem = sd(ddof=1)/sqrt(n))
@@ -101,21 +106,21 @@ class TestGroupMeans:
                                        "se_log_x", "se_log_y", "n_rows"]
 
     def test_single_point_group_has_nan_se(self):
-        res = sg.group_means([1.0, 2.0, 3.0], [1.0, 2.5, 3.0], ["a", "a", "b"])
+        res = gm.group_means([1.0, 2.0, 3.0], [1.0, 2.5, 3.0], ["a", "a", "b"])
         # sd of one value is undefined (pandas also gives NaN for sem of one value)
         assert np.isnan(res.se_log_x[1]) and "n_rows" not in res.to_frame()
 
     def test_errors(self):
         with pytest.raises(DataError, match="groups must be one label per row"):
-            sg.group_means([1, 2, 3], [1, 2, 3], ["a", "b"])
+            gm.group_means([1, 2, 3], [1, 2, 3], ["a", "b"])
         with pytest.raises(DataError, match="groups has missing labels"):
-            sg.group_means([1, 2, 3], [1, 2, 3], ["a", None, "b"])
+            gm.group_means([1, 2, 3], [1, 2, 3], ["a", None, "b"])
         with pytest.raises(DataError, match="log_x and log_y must be 1-d arrays of one length"):
-            sg.group_means([1, 2, 3], [1, 2], ["a", "a", "b"])
+            gm.group_means([1, 2, 3], [1, 2], ["a", "a", "b"])
         with pytest.raises(DataError, match="log_x and log_y must be finite numbers"):
-            sg.group_means([1, np.nan, 3], [1, 2, 3], ["a", "a", "b"])
+            gm.group_means([1, np.nan, 3], [1, 2, 3], ["a", "a", "b"])
         with pytest.raises(DataError, match="n_rows must give a positive count"):
-            sg.group_means([1, 2, 3], [1, 2, 3], ["a", "a", "b"], n_rows=[1, 0, 1])
+            gm.group_means([1, 2, 3], [1, 2, 3], ["a", "a", "b"], n_rows=[1, 0, 1])
 
 
 class TestFitGroupMeans:
@@ -129,7 +134,7 @@ class TestFitGroupMeans:
         lx, ly, g = data
         means = pd.DataFrame({"x": lx, "y": ly, "g": g}).groupby("g").mean()
         for method in ("ols", "sma", "ma"):
-            got = sg.fit_group_means(lx, ly, g, method=method, log_base=10)
+            got = gm.fit_group_means(lx, ly, g, method=method, log_base=10)
             ref = fit_line(means["x"], means["y"], method=method, log_base=None)
             # internal consistency: scaling.fit_line on pandas groupby means (same estimator,
             # other path)
@@ -143,7 +148,7 @@ class TestFitGroupMeans:
         lx, ly, g = data
         tab = pd.DataFrame({"x": lx, "y": ly, "g": g}).groupby("g").agg(
             x=("x", "mean"), y=("y", "mean"), n=("x", "size"))
-        got = sg.fit_group_means(lx, ly, g, method="ols", log_base=10, weighted=True)
+        got = gm.fit_group_means(lx, ly, g, method="ols", log_base=10, weighted=True)
         wls = sm.WLS(tab["y"], sm.add_constant(tab["x"]), weights=tab["n"]).fit()
         ci = wls.conf_int(0.05)
         # reference: statsmodels WLS with weights n_i (Draper & Smith 1998, sec. 9.2)
@@ -157,11 +162,11 @@ class TestFitGroupMeans:
     def test_weighting_refused_for_sma(self, data):
         lx, ly, g = data
         with pytest.raises(ConfigError, match="weighted=True is available only for method='ols'"):
-            sg.fit_group_means(lx, ly, g, method="sma", weighted=True)
+            gm.fit_group_means(lx, ly, g, method="sma", weighted=True)
 
     def test_two_groups_warns(self):
         with pytest.warns(DegenerateDataWarning, match="line through group means"):
-            fit = sg.fit_group_means([1, 2, 3, 4], [1, 2, 3, 5], list("aabb"), method="ols")
+            fit = gm.fit_group_means([1, 2, 3, 4], [1, 2, 3, 5], list("aabb"), method="ols")
         assert np.isnan(fit.slope)  # n = 2 means: no line with intervals (lines.MIN_N)
 
 
@@ -171,7 +176,7 @@ class TestCommonSlope:
         rng = np.random.default_rng(5)
         d = _frame(rng, [25], [0.7], method="ma" if method == "ma" else "sma")
         lx, ly = np.log10(d["mass"]), np.log10(d["rate"])
-        got = sg.common_slope(lx, ly, d["clade"], method=method)
+        got = cs.common_slope(lx, ly, d["clade"], method=method)
         ref = fit_line(d["mass"], d["rate"], method=method)
         # internal consistency (against scaling.fit_line), by an exact law: with one group the
         # likelihood/ANCOVA estimate and interval reduce to
@@ -221,7 +226,7 @@ class TestCommonSlope:
         sep = -sum(stats.multivariate_normal.logpdf(
             pts, pts.mean(0), np.cov(pts.T, bias=True)).sum() for pts in groups)
         lr_ml = 2 * (opt.fun - sep)
-        got = sg.compare_groups(d, "mass", "rate", "clade", method=method, calibration="chi2")
+        got = gc.compare_groups(d, "mass", "rate", "clade", method=method, calibration="chi2")
         assert_allclose(got.common_slope, opt.x[0], rtol=1e-5)
         assert_allclose(got.test("slopes_equal").statistic, lr_ml * (n - 1) / n, rtol=1e-5)
 
@@ -231,8 +236,8 @@ class TestCommonSlope:
         shuffled = d.sample(frac=1.0, random_state=3).reset_index(drop=True)
         shuffled["clade"] = shuffled["clade"].map({"c0": "zeta", "c1": "alpha", "c2": "mu"})
         for method in ("ols", "sma", "ma"):
-            a = sg.compare_groups(d, "mass", "rate", "clade", method=method, calibration="chi2")
-            b = sg.compare_groups(shuffled, "mass", "rate", "clade", method=method,
+            a = gc.compare_groups(d, "mass", "rate", "clade", method=method, calibration="chi2")
+            b = gc.compare_groups(shuffled, "mass", "rate", "clade", method=method,
                                   calibration="chi2")
             # internal consistency, by an exact law: the estimators are functions of
             # per-group moments, which do not
@@ -245,7 +250,7 @@ class TestCommonSlope:
 
     def test_error(self):
         with pytest.raises(DataError, match="groups cannot share a slope estimate"):
-            sg.common_slope([1, 2, 3, 4], [1, 2, 3, 4], list("aaab"))
+            cs.common_slope([1, 2, 3, 4], [1, 2, 3, 4], list("aaab"))
 
 
 class TestCompareGroupsOLS:
@@ -259,7 +264,7 @@ class TestCompareGroupsOLS:
         full = smf.ols("ly ~ lx * C(sex)", d).fit()
         slopes = anova_lm(par, full).iloc[1]
         inter = anova_lm(one, par).iloc[1]
-        got = sg.compare_groups(cats, "Bwt", "Hwt", "Sex", method="ols")
+        got = gc.compare_groups(cats, "Bwt", "Hwt", "Sex", method="ols")
         s, i = got.test("slopes_equal"), got.test("intercepts_equal")
         # reference: statsmodels anova_lm on the nested formula models (MASS/cats, Fisher 1947)
         assert_allclose([s.statistic, s.p_value, s.df, s.df_resid],
@@ -288,7 +293,7 @@ class TestCompareGroupsOLS:
         par = smf.ols("ly ~ lx + C(clade)", d).fit()
         full = smf.ols("ly ~ lx * C(clade)", d).fit()
         ref = anova_lm(par, full).iloc[1]
-        got = sg.compare_groups(d, "mass", "rate", "clade", method="ols")
+        got = gc.compare_groups(d, "mass", "rate", "clade", method="ols")
         # reference: statsmodels anova_lm (nested models)
         assert_allclose(got.test("slopes_equal").statistic, ref["F"], rtol=1e-8)
         assert_allclose(got.test("slopes_equal").p_value, ref["Pr(>F)"], rtol=1e-8)
@@ -298,12 +303,12 @@ class TestCompareGroups:
     def test_frames_and_summary(self):
         rng = np.random.default_rng(12)
         d = _frame(rng, [25, 30, 35, 20], [0.6, 0.75, 0.95, 0.75], sr=0.1)
-        res = sg.compare_groups(d, "mass", "rate", "clade", method="sma")
+        res = gc.compare_groups(d, "mass", "rate", "clade", method="sma")
         frame = res.to_frame()
         assert list(frame.columns) == ["method", "test", "statistic", "df", "df_resid",
                                        "p_value", "p_method", "common_slope",
                                        "common_slope_low", "common_slope_high"]
-        assert frame["test"].tolist() == list(sg.TESTS)
+        assert frame["test"].tolist() == list(gc.TESTS)
         assert set(frame["p_method"]) == {"parametric_bootstrap(999)"}  # smallest n < 100
         # slopes 0.6 vs 0.95 with r ~ 0.98 and n >= 20 differ clearly (known truth)
         assert res.test("slopes_equal").p_value <= 0.01
@@ -326,14 +331,14 @@ class TestCompareGroups:
     def test_chi2_threshold_and_seed(self):
         rng = np.random.default_rng(2)
         d = _frame(rng, [120, 150], [0.75, 0.75])
-        auto = sg.compare_groups(d, "mass", "rate", "clade", method="ma")
+        auto = gc.compare_groups(d, "mass", "rate", "clade", method="ma")
         assert set(auto.to_frame()["p_method"]) == {"chi2"}  # every group >= 100 points
         t = auto.test("slopes_equal")
         # reference: scipy.stats.chi2 survival function on G - 1 = 1 df
         assert_allclose(t.p_value, stats.chi2.sf(t.statistic, 1), rtol=1e-12)
-        a = sg.compare_groups(d, "mass", "rate", "clade", method="ma", calibration="bootstrap",
+        a = gc.compare_groups(d, "mass", "rate", "clade", method="ma", calibration="bootstrap",
                               n_boot=199, seed=4)
-        b = sg.compare_groups(d, "mass", "rate", "clade", method="ma", calibration="bootstrap",
+        b = gc.compare_groups(d, "mass", "rate", "clade", method="ma", calibration="bootstrap",
                               n_boot=199, seed=4)
         # common practice, no source: a seeded bootstrap is reproducible
         assert a.to_frame().equals(b.to_frame())
@@ -343,7 +348,7 @@ class TestCompareGroups:
         d = pd.DataFrame({"mass": [1, 2, 4, 8, 1, 2], "rate": [1, 2, 5, 8, 1, 3],
                           "clade": list("aaaabb")})
         with pytest.warns(DegenerateDataWarning, match="groups left out"):
-            res = sg.compare_groups(d, "mass", "rate", "clade")
+            res = gc.compare_groups(d, "mass", "rate", "clade")
         assert not res.compared and res.excluded == (("b", "n = 2 < 3"),)
         assert res.to_frame().empty and res.pairwise_frame().empty
         assert res.summary().startswith("No SMA comparison of clade groups: fewer than two")
@@ -356,26 +361,26 @@ class TestCompareGroups:
         d = pd.DataFrame({"mass": [1, 2, 4, 8, 1, 2], "rate": [1, 2, 5, 8, 1, 3],
                           "clade": list("aaabbb")})
         with pytest.raises(ConfigError, match="method must be one of ols, sma, ma"):
-            sg.compare_groups(d, "mass", "rate", "clade", method="rma")
+            gc.compare_groups(d, "mass", "rate", "clade", method="rma")
         with pytest.raises(ConfigError, match="confidence must be a number between 0 and 1"):
-            sg.compare_groups(d, "mass", "rate", "clade", confidence=95)
+            gc.compare_groups(d, "mass", "rate", "clade", confidence=95)
         with pytest.raises(ConfigError, match="log_base must be 10"):
-            sg.compare_groups(d, "mass", "rate", "clade", log_base=3)
+            gc.compare_groups(d, "mass", "rate", "clade", log_base=3)
         with pytest.raises(ConfigError, match="min_n must be an integer >= 3"):
-            sg.compare_groups(d, "mass", "rate", "clade", min_n=2)
+            gc.compare_groups(d, "mass", "rate", "clade", min_n=2)
         with pytest.raises(ConfigError, match="calibration must be one of auto, chi2, bootstrap"):
-            sg.compare_groups(d, "mass", "rate", "clade", calibration="exact")
+            gc.compare_groups(d, "mass", "rate", "clade", calibration="exact")
         with pytest.raises(DataError, match="df must be a pandas DataFrame"):
-            sg.compare_groups(d.to_dict(), "mass", "rate", "clade")
+            gc.compare_groups(d.to_dict(), "mass", "rate", "clade")
         with pytest.raises(DataError, match="group column 'sex' not found"):
-            sg.compare_groups(d, "mass", "rate", "sex")
+            gc.compare_groups(d, "mass", "rate", "sex")
         bad = d.assign(mass=["1", "x", 4, 8, 1, 2])
         with pytest.raises(DataError, match="column 'mass' has 1 missing, non-numeric"):
-            sg.compare_groups(bad, "mass", "rate", "clade")
+            gc.compare_groups(bad, "mass", "rate", "clade")
         with pytest.raises(DataError, match="column 'rate' has values <= 0"):
-            sg.compare_groups(d.assign(rate=[1, 0, 5, 8, 1, 3]), "mass", "rate", "clade")
+            gc.compare_groups(d.assign(rate=[1, 0, 5, 8, 1, 3]), "mass", "rate", "clade")
         with pytest.raises(DataError, match="group column 'clade' has missing labels"):
-            sg.compare_groups(d.assign(clade=["a", None, "a", "b", "b", "b"]),
+            gc.compare_groups(d.assign(clade=["a", None, "a", "b", "b", "b"]),
                               "mass", "rate", "clade")
 
 
@@ -402,7 +407,7 @@ class TestCompareGroupsMonteCarlo:
     def test_size_at_five_percent(self, method):
         rng = np.random.default_rng(20240601 + (method == "ma"))
         arrays = _simulate(rng, 2000, [30, 30, 30], [0.75] * 3, method)
-        res = sg._axis_tests(method, *arrays, bootstrap=self.B, rng=rng)
+        res = gc._axis_tests(method, *arrays, bootstrap=self.B, rng=rng)
         size = (res["p_value"] <= 0.05).mean(axis=0)
         # known truth: common slope, equal elevation, no axis shift -> rejection rate alpha;
         # observed (seeded, B = 499), slopes/elevation/axis: SMA 0.054/0.046/0.048,
@@ -424,7 +429,7 @@ class TestCompareGroupsMonteCarlo:
             _simulate(rng, R, [30] * 3, [0.75] * 3, method, fshift=[0, 0.5, 1.0]),
         ]
         arrays = tuple(np.concatenate([p[k] for p in parts]) for k in range(6))
-        res = sg._axis_tests(method, *arrays, bootstrap=self.B, rng=rng)
+        res = gc._axis_tests(method, *arrays, bootstrap=self.B, rng=rng)
         reject = res["p_value"] <= 0.05
         power = [reject[k * R:(k + 1) * R, k].mean() for k in range(3)]
         # known truth: each alternative holds; observed (seeded, B = 499) power, slopes/
@@ -451,7 +456,7 @@ class TestCompareGroupsExactAndConstantData:
         d = _exact_frame(seed)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", DegenerateDataWarning)
-            res = sg.compare_groups(d, "mass", "rate", "clade", method=method)
+            res = gc.compare_groups(d, "mass", "rate", "clade", method=method)
         # exact law: every point lies on y = 3 x^0.75, so the common slope is 0.75 and the
         # interval has zero width (rounding only)
         assert_allclose(res.common_slope, 0.75, rtol=1e-12)
@@ -473,7 +478,7 @@ class TestCompareGroupsExactAndConstantData:
                           "clade": list("aaaaabbbbb")})
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", DegenerateDataWarning)
-            res = sg.compare_groups(d, "mass", "rate", "clade", method="sma")
+            res = gc.compare_groups(d, "mass", "rate", "clade", method="sma")
         # exact law: slopes 0.7 and 0.9 exactly; no common slope, so no interval
         assert np.isnan(res.common_slope_ci.low) and np.isnan(res.test("slopes_equal").statistic)
         assert "exact slopes differ" in res.note
@@ -486,12 +491,12 @@ class TestCompareGroupsExactAndConstantData:
         d["rate"] = d["mass"] ** 0.75 * np.exp(rng.normal(0, 0.1, 30))
         d.loc[d["clade"] == "c", "rate"] = 0.3   # log y differs only by rounding
         with pytest.warns(DegenerateDataWarning, match="c: y does not vary"):
-            res = sg.compare_groups(d, "mass", "rate", "clade", method=method,
+            res = gc.compare_groups(d, "mass", "rate", "clade", method=method,
                                     calibration="chi2")
         assert res.groups == ("a", "b")
         assert res.excluded == (("c", "y does not vary (log y constant up to rounding): "
                                        "no line to compare"),)
-        ref = sg.compare_groups(d[d["clade"] != "c"], "mass", "rate", "clade", method=method,
+        ref = gc.compare_groups(d[d["clade"] != "c"], "mass", "rate", "clade", method=method,
                                 calibration="chi2")
         # internal consistency: leaving the group out equals comparing the other two
         assert_allclose(res.to_frame()["statistic"], ref.to_frame()["statistic"], rtol=1e-12)
@@ -502,7 +507,7 @@ class TestCompareGroupsExactAndConstantData:
         ss = np.array([1e-31, 1e-24, 1e-13, 0.0])
         # common practice, no source: spread below 1e-9 of the values' size is rounding;
         # a spread of 1e-7 around a mean of 1e-6 is real variation
-        assert sg._no_variation(n, mean, ss).tolist() == [True, True, False, True]
+        assert gm._no_variation(n, mean, ss).tolist() == [True, True, False, True]
 
 
 class TestPairwiseLimit:
@@ -516,7 +521,7 @@ class TestPairwiseLimit:
 
     def test_pairwise_skipped_above_pairwise_max(self):
         d = self._many(25)
-        res = sg.compare_groups(d, "lx", "ly", "g", method="ols", log_base=None)
+        res = gc.compare_groups(d, "lx", "ly", "g", method="ols", log_base=None)
         # known truth: elevations differ by 0.05 per group with noise sd 0.02
         assert res.test("intercepts_equal").p_value < 1e-6
         assert res.pairwise == () and res.pairwise_skipped and res.pairwise_max == 20
@@ -524,21 +529,21 @@ class TestPairwiseLimit:
         assert "pairwise comparisons skipped: 25 groups exceed pairwise_max = 20" in res.note
         assert "Pairwise comparisons skipped: 25 groups exceed pairwise_max = 20" \
             in res.summary()
-        more = sg.compare_groups(d, "lx", "ly", "g", method="ols", log_base=None,
+        more = gc.compare_groups(d, "lx", "ly", "g", method="ols", log_base=None,
                                  pairwise_max=25)
         assert not more.pairwise_skipped
         assert len(more.pairwise_frame().query("test == 'intercepts_equal'")) == 25 * 24 // 2
 
     def test_many_groups_sma_bounded(self):
         d = self._many(300, n=5)
-        res = sg.compare_groups(d, "lx", "ly", "g", method="sma", n_boot=99)
+        res = gc.compare_groups(d, "lx", "ly", "g", method="sma", n_boot=99)
         assert res.compared and len(res.groups) == 300 and res.pairwise_skipped
         assert res.to_frame()["p_method"].iloc[0] == "parametric_bootstrap(99)"
 
     def test_error(self):
         d = self._many(3)
         with pytest.raises(ConfigError, match="pairwise_max must be an integer >= 2"):
-            sg.compare_groups(d, "lx", "ly", "g", log_base=None, pairwise_max=1)
+            gc.compare_groups(d, "lx", "ly", "g", log_base=None, pairwise_max=1)
 
 
 class TestGroupsUsedByMeansLine:
@@ -547,11 +552,11 @@ class TestGroupsUsedByMeansLine:
         d = _frame(rng, [12, 15, 20, 9, 1], [0.75] * 5, fshift=[0, 0.5, 1.0, 1.6, 2.0])
         lx, ly, g = np.log10(d["mass"]), np.log10(d["rate"]), d["clade"]
         with pytest.warns(DegenerateDataWarning, match="c4 \\(n = 1 < 3\\)"):
-            got = sg.fit_group_means(lx, ly, g, method="sma")
+            got = gm.fit_group_means(lx, ly, g, method="sma")
         with pytest.warns(DegenerateDataWarning):
-            comp = sg.compare_groups(d, "mass", "rate", "clade", method="sma",
+            comp = gc.compare_groups(d, "mass", "rate", "clade", method="sma",
                                      calibration="chi2")
-        used, excluded = sg.compared_groups(lx, ly, g, method="sma")
+        used, excluded = gm.compared_groups(lx, ly, g, method="sma")
         assert used == comp.groups == ("c0", "c1", "c2", "c3")
         assert excluded == comp.excluded == (("c4", "n = 1 < 3"),)
         assert got.n == 4
@@ -607,7 +612,7 @@ class TestCompareGroupsSizeMixedGroups:
         m = group_moments(X.ravel(), Y.ravel(), labels, n_groups=self.R * 3)
         arrays = tuple(np.asarray(getattr(m, k)).reshape(self.R, 3)
                        for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy"))
-        res = sg._axis_tests(method, *arrays, bootstrap=None, rng=None, exact=True)
+        res = gc._axis_tests(method, *arrays, bootstrap=None, rng=None, exact=True)
         p = res["p_value"]                                   # (R, 3), TESTS order
         size = (p <= 0.05).mean(axis=0)
         # known truth: common slope and elevation -> rejection rate 0.05, |size - 0.05| <=
@@ -621,13 +626,13 @@ class TestCompareGroupsSizeMixedGroups:
     def test_public_call_reports_the_vectorised_p_values(self, method):
         X, Y, grp = self._replicates(method)
         d = pd.DataFrame({"lx": X[0], "ly": Y[0], "g": np.array(["a", "b", "c"])[grp]})
-        res = sg.compare_groups(d, "lx", "ly", "g", method=method, log_base=None)
+        res = gc.compare_groups(d, "lx", "ly", "g", method=method, log_base=None)
         frame = res.to_frame()
         assert set(frame["p_method"]) == {"chi2"}           # the path the size test checks
         m = group_moments(X[0], Y[0], grp, n_groups=3)
         arrays = tuple(np.asarray(getattr(m, k))[None]
                        for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy"))
-        ref = sg._axis_tests(method, *arrays, bootstrap=None, rng=None, exact=True)
+        ref = gc._axis_tests(method, *arrays, bootstrap=None, rng=None, exact=True)
         # internal consistency: the public function's p-values are the array function's
         assert_allclose(frame["p_value"].to_numpy(float), ref["p_value"][0], rtol=1e-9,
                         atol=1e-300)
@@ -669,7 +674,7 @@ class TestCommonSlopeTestSlope:
         else:
             arrays = _simulate(rng, R, self.NS, [0.72] * 4, method, rshift=self.SHIFT_R,
                                fshift=self.SHIFT_F)
-        res = sg._common_test_arrays(method, *arrays, 0.72)
+        res = cs._common_test_arrays(method, *arrays, 0.72)
         size = float(np.mean(res["p"] <= 0.05))
         bias = float(np.mean(res["b"]) - 0.72)
         mc_se = float(np.std(res["b"]) / np.sqrt(R))
@@ -685,9 +690,9 @@ class TestCommonSlopeTestSlope:
         rng = np.random.default_rng(808 + (method == "ma"))
         arrays = _simulate(rng, 1500, [10, 15, 20], [0.72] * 3, method,
                            rshift=[0, 0.3, 0.6], fshift=[0, 0.5, 1.0])
-        res = sg._axis_tests(method, *arrays, bootstrap=199, rng=rng)
+        res = gc._axis_tests(method, *arrays, bootstrap=199, rng=rng)
         sums = tuple(np.sum(a, -1) for a in arrays[3:])
-        d = sg._profile_test(method, res["fit"], 0.72, sums)["excess"]
+        d = cs._profile_test(method, res["fit"], 0.72, sums)["excess"]
         boot = res["boot_profile"]                          # (B, R)
         p = (1 + np.sum(boot >= d - 1e-9 * (1 + np.abs(d)), axis=0)) / (boot.shape[0] + 1)
         size = float(np.mean(p <= 0.05))
@@ -702,7 +707,7 @@ class TestCommonSlopeTestSlope:
         d = _frame(rng, [25, 30, 35], [0.72] * 3, rshift=[0, 0.3, 0.6])
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            res = sg.compare_groups(d, "mass", "rate", "clade", method=method,
+            res = gc.compare_groups(d, "mass", "rate", "clade", method=method,
                                     calibration=calibration, n_boot=999)
         c = res.common
         ps = [c.test_slope(b).p_value for b in (c.slope_ci.low, c.slope_ci.high)]
@@ -720,7 +725,7 @@ class TestCommonSlopeTestSlope:
         rng = np.random.default_rng(9)
         X = rng.normal(0, 1, 30)
         Y = 0.72 * X + rng.normal(0, 0.2, 30)
-        c = sg.common_slope(X, Y, np.zeros(30), method=method)
+        c = cs.common_slope(X, Y, np.zeros(30), method=method)
         f = fit_line(X, Y, method=method, log_base=None)
         for b0 in (0.5, 0.75, 2 / 3, -0.7, 3.0, -2.0):
             a, b = c.test_slope(b0), f.test_slope(b0)
@@ -734,7 +739,7 @@ class TestCommonSlopeTestSlope:
         rng = np.random.default_rng(77)
         d = _frame(rng, [15, 25, 35], [0.72] * 3, rshift=[0, 0.4, -0.3])
         d = d.assign(logx=np.log10(d["mass"]), logy=np.log10(d["rate"]))
-        res = sg.compare_groups(d, "mass", "rate", "clade", method="ols")
+        res = gc.compare_groups(d, "mass", "rate", "clade", method="ols")
         model = smf.ols("logy ~ C(clade) + logx", data=d).fit()
         for b0 in (0.75, 2 / 3):
             t = res.common.test_slope(b0)
@@ -752,8 +757,8 @@ class TestCommonSlopeTestSlope:
     def test_rows_for_fits_and_slope_tests(self):
         rng = np.random.default_rng(3)
         d = _frame(rng, [25, 30, 35], [0.72] * 3, rshift=[0, 0.3, 0.6])
-        res = sg.compare_groups(d, "mass", "rate", "clade", method="sma", calibration="chi2")
-        fit_rows, test_rows = sg.common_slope_rows({"sma": res.common},
+        res = gc.compare_groups(d, "mass", "rate", "clade", method="sma", calibration="chi2")
+        fit_rows, test_rows = cs.common_slope_rows({"sma": res.common},
                                                    {"three_quarters": 0.75}, log_base="10")
         assert fit_rows[0]["scope"] == "common" and fit_rows[0]["n"] == 90
         assert "c0, c1, c2" in fit_rows[0]["note"]
@@ -770,15 +775,15 @@ class TestHolmAdjust:
         for m in (1, 2, 3, 10, 57):
             p = rng.uniform(0, 1, m) ** 3
             p[rng.uniform(size=m) < 0.2] = p[0]          # ties
-            assert np.array_equal(sg.holm_adjust(p), multipletests(p, method="holm")[1])
+            assert np.array_equal(gc.holm_adjust(p), multipletests(p, method="holm")[1])
 
     def test_holm_adjust_leaves_nan_out_of_the_count(self):
         # exact law: Holm on the two finite values alone (m = 2): 2·0.01, max(2·0.01, 0.04)
-        out = sg.holm_adjust([0.04, np.nan, 0.01])
+        out = gc.holm_adjust([0.04, np.nan, 0.01])
         assert np.isnan(out[1])
         assert out[[0, 2]].tolist() == [0.04, 0.02]
 
     def test_holm_adjust_caps_at_one_and_accepts_empty(self):
         # exact law: 3·0.5 = 1.5 is capped at 1; the step-down maximum keeps order
-        assert sg.holm_adjust([0.5, 0.6, 0.9]).tolist() == [1.0, 1.0, 1.0]
-        assert sg.holm_adjust([]).size == 0
+        assert gc.holm_adjust([0.5, 0.6, 0.9]).tolist() == [1.0, 1.0, 1.0]
+        assert gc.holm_adjust([]).size == 0

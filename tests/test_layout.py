@@ -47,13 +47,11 @@ KNOWN_WRONG_IMPORTS = {
     'scaling.io.tables -> scaling.stats.lines',
     'scaling.render.figures -> scaling.run.points_to_check',
     'scaling.stats.diagnostics -> scaling.render.wording',
-    'scaling.stats.groups -> scaling.render.wording',
     'scaling.stats.lines -> scaling.render.wording',
 }
 KNOWN_LONG = {
     'scaling/render/figures.py',
     'scaling/stats/diagnostics.py',
-    'scaling/stats/groups.py',
     'scaling/stats/lines.py',
     'scaling/stats/resampling.py',
     'scaling/stats/several_predictors.py',
@@ -68,15 +66,11 @@ KNOWN_BACKSLASHES = {
     'scaling/render/headline.py': 5,
     'scaling/render/report.py': 4,
     'scaling/render/wording.py': 2,
-    'scaling/run/diagnostics.py': 1,
     'scaling/run/engine.py': 5,
-    'scaling/run/groups.py': 3,
     'scaling/run/pipeline.py': 1,
-    'scaling/run/points_to_check.py': 1,
     'scaling/run/predictions.py': 1,
     'scaling/run/several_predictors.py': 1,
     'scaling/stats/diagnostics.py': 3,
-    'scaling/stats/groups.py': 3,
     'scaling/stats/lines.py': 1,
     'scaling/stats/phylogeny.py': 1,
     'scaling/stats/predictions.py': 1,
@@ -84,7 +78,6 @@ KNOWN_BACKSLASHES = {
     'scaling/stats/robust.py': 1,
     'scaling/stats/schema.py': 3,
     'scaling/stats/several_predictors.py': 3,
-    'scaling/stats/spread.py': 2,
 }
 
 

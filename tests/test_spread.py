@@ -9,6 +9,7 @@ from numpy.testing import assert_allclose
 from scipy import optimize, stats
 
 from scaling.errors import ConfigError, DataError
+from scaling.render.findings import spread_summary
 from scaling.stats.spread import (SPREAD_COLUMNS, exponent_spread, spread_from_fits, tau2_dl,
                             tau2_q_profile, tau2_reml)
 
@@ -148,7 +149,8 @@ class TestExponentSpread:
         b, v = _random_sample()
         res = exponent_spread(b, v, exponents={"three_quarters": 0.75}, method="sma")
         assert list(res.to_frame().columns) == SPREAD_COLUMNS
-        assert "mean exponent" in res.summary() and "three_quarters" in res.summary()
+        text = spread_summary(res)
+        assert "mean exponent" in text and "three_quarters" in text
 
     def test_unknown_tau2_method(self):
         with pytest.raises(ConfigError, match="tau2_method must be one of reml, dl"):

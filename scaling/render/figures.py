@@ -45,7 +45,7 @@ from ..stats.predictions import log_interval, predict, saved_factor
 from ..stats.schema import CATALOGUE, FIGURE_KINDS, method_label
 from .wording import exponent_label, plural as plural_of
 from ..run.points_to_check import primary_method
-from ..stats.groups import common_slope
+from ..stats.common_slope import common_slope
 
 __all__ = ["plot_scaling", "plot_natural", "plot_exponents", "plot_residuals",
            "make_scaling", "make_natural", "make_exponents", "make_residuals",

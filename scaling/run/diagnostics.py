@@ -41,8 +41,8 @@ def diagnostics_stage(line_fits: dict, point_sets: dict, cfg):
             labels = {i: str(g) for i, g in enumerate(sel["group"])}
         else:
             rows = sel["row"].to_numpy()
-            labels = dict(zip(rows.tolist(), sel["unit"].astype(str))) if "unit" in sel \
-                else {}
+            labels = (dict(zip(rows.tolist(), sel["unit"].astype(str))) if "unit" in sel
+                      else {})
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")

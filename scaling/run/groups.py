@@ -7,7 +7,8 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from ..stats.groups import compare_groups, compared_groups, excluded_text, fit_group_means, group_means
+from ..stats.group_comparisons import compare_groups
+from ..stats.group_means import compared_groups, excluded_text, fit_group_means, group_means
 from ..stats.lines import MIN_N
 from ..stats.moments import moments
 from ..stats.robust import deming_from_moments
@@ -75,8 +76,8 @@ def group_stage(pts: pd.DataFrame, cfg, base):
                 fits[("group_means", "", method)] = fit
     if cfg.groups.compare:
         test_frames, pair_frames = [], []
-        data = pts[["x", "y", "group"]] if base is not None else \
-            pts.assign(x=pts["log_x"], y=pts["log_y"])[["x", "y", "group"]]
+        data = (pts[["x", "y", "group"]] if base is not None
+                else pts.assign(x=pts["log_x"], y=pts["log_y"])[["x", "y", "group"]])
         uncompared = [m for m in cfg.model.methods if m not in GROUP_COMPARISON_METHODS]
         for method in cfg.model.methods:
             if method not in GROUP_COMPARISON_METHODS:
@@ -99,9 +100,9 @@ def group_stage(pts: pd.DataFrame, cfg, base):
                 g_tables.setdefault("_common_slopes", {})[method] = comp.common
         if uncompared:
             messages.append(uncompared_message(uncompared))
-        g_tables["group_tests"] = pd.concat(test_frames, ignore_index=True) if test_frames \
-            else pd.DataFrame(columns=GROUP_TEST_COLUMNS)
+        g_tables["group_tests"] = (pd.concat(test_frames, ignore_index=True) if test_frames
+                                   else pd.DataFrame(columns=GROUP_TEST_COLUMNS))
         pairs = [f for f in pair_frames if len(f)]
-        g_tables["pairwise_tests"] = pd.concat(pairs, ignore_index=True) if pairs \
-            else pd.DataFrame(columns=PAIRWISE_COLUMNS)
+        g_tables["pairwise_tests"] = (pd.concat(pairs, ignore_index=True) if pairs
+                                      else pd.DataFrame(columns=PAIRWISE_COLUMNS))
     return rows, fits, means_points, g_tables, messages, notes

@@ -78,8 +78,8 @@ def check_run(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame,
                    for r in mine.itertuples(index=False)]
         smear, param = factors.get(key, (None, None))
         labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
-        groups = sel["group"].astype(str).to_numpy() \
-            if whole and "group" in sel and scope == "pooled" else None
+        groups = (sel["group"].astype(str).to_numpy()
+                  if whole and "group" in sel and scope == "pooled" else None)
         x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
         rows = sel["row"].to_numpy() if "row" in sel else None
         try:

@@ -57,7 +57,7 @@ Permutation tests of slope = b0
     (for Theil-Sen this is the permutation version of Sen's 1968 test behind
     its interval), robust SMA the SMA pair, robust MA the MA pair.
 The common-slope test across groups is not here yet (it waits for
-``scaling.stats.groups``).
+``scaling.stats.common_slope``).
 """
 
 from __future__ import annotations

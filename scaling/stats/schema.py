@@ -29,7 +29,8 @@ __all__ = [
     "PREDICTION_COLUMNS", "INVERSE_COLUMNS", "DIAGNOSTIC_COLUMNS", "INFLUENCE_COLUMNS",
     "ERROR_STRUCTURE_COLUMNS", "CURVATURE_COLUMNS", "BOOTSTRAP_COLUMNS", "POINTS_TO_CHECK_COLUMNS", "TABLE_COLUMNS",
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
-    "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice",
+    "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice", "check_method", "check_methods",
+    "check_count", "EXACT_NOTE", "EXACT_LINE_NOTE",
 ]
 
 
@@ -54,7 +55,7 @@ class MethodInfo:
         over groups, bootstrapped through weighted moments); "rows": it needs
         the points themselves (robust lines, intervals by bootstrap).
     compares_groups : bool
-        The published common-slope / shift tests of :mod:`scaling.stats.groups` apply.
+        The published common-slope / shift tests of :mod:`scaling.stats.group_comparisons` apply.
     permutation_pair : str or None
         For a row-based line, the moment line whose permutation test (on
         ranks) is its own (``resample.RANK_PAIRS``); it is also the classical
@@ -290,3 +291,102 @@ def check_choice(value, options, name: str) -> str:
     if not isinstance(value, str) or value not in options:
         raise ConfigError(f"{name} must be one of {', '.join(options)}, not {value!r}")
     return value
+
+
+def check_method(method, options=METHOD_NAMES, *, name: str = "method",
+                 lower: bool = False) -> str:
+    """``method`` if it is one of ``options``: the one check of a method argument.
+
+    Parameters
+    ----------
+    method : str
+        The value given.
+    options : sequence of str
+        The methods the caller accepts (default every method of
+        :data:`CATALOGUE`).
+    name : str
+        The argument's name, used in the message.
+    lower : bool
+        Accept any letter case (``"SMA"`` is ``"sma"``).
+
+    Returns
+    -------
+    str
+        The method (lower-cased when ``lower``).
+
+    Raises
+    ------
+    ConfigError
+        "method must be one of ols, sma, ma, not 'wls'".
+    """
+    value = method.lower() if lower and isinstance(method, str) else method
+    if not isinstance(value, str) or value not in options:
+        raise ConfigError(f"{name} must be one of {', '.join(options)}, not {method!r}")
+    return value
+
+
+def check_methods(methods, options, *, name: str = "methods") -> tuple:
+    """Several methods (one name or a sequence) as a tuple, each one of ``options``.
+
+    Parameters
+    ----------
+    methods : str or sequence of str
+    options : sequence of str
+        The methods the caller accepts.
+    name : str
+        The argument's name, used in the messages.
+
+    Returns
+    -------
+    tuple of str
+
+    Raises
+    ------
+    ConfigError
+        When no method is named ("methods must name at least one of ...") or
+        one is not among ``options`` ("methods must be among ols, sma, ma
+        (each method must be one of these), not ['wls']").
+    """
+    if isinstance(methods, str):
+        methods = (methods,)
+    methods = tuple(methods)
+    if not methods:
+        raise ConfigError(f"{name} must name at least one of {', '.join(options)}")
+    bad = [m for m in methods if not isinstance(m, str) or m not in options]
+    if bad:
+        raise ConfigError(f"{name} must be among {', '.join(options)} (each method must be "
+                          f"one of these), not {bad!r}")
+    return methods
+
+
+def check_count(value, name: str, minimum: int = 1) -> int:
+    """``value`` as an int if it is a whole number (not a bool) at least ``minimum``.
+
+    Parameters
+    ----------
+    value : int
+    name : str
+        The argument's name, used in the message.
+    minimum : int
+
+    Returns
+    -------
+    int
+
+    Raises
+    ------
+    ConfigError
+        "n_boot must be an integer >= 2, not 1".
+    """
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < minimum:
+        raise ConfigError(f"{name} must be an integer >= {minimum}, not {value!r}")
+    return int(value)
+
+
+# --------------------------------------------------------------------------
+# notes: fixed short labels written in a table's note or reason cell
+
+#: Note of a fit (or check) whose points lie on the line up to rounding.
+EXACT_NOTE = "no residual scatter: an exact power law"
+#: Why a group lying exactly on a line is left out of SMA/MA comparisons.
+EXACT_LINE_NOTE = "points lie exactly on a line: no scatter to compare"

@@ -46,7 +46,8 @@ from scipy import stats
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError
-from .lines import ConfidenceInterval, format_p
+from .lines import ConfidenceInterval
+from .schema import check_confidence
 
 __all__ = ["ExponentSpread", "exponent_spread", "spread_from_fits", "tau2_dl", "tau2_reml",
            "tau2_q_profile", "TAU2_METHODS",
@@ -226,25 +227,7 @@ class ExponentSpread:
                                  "tau": self.tau, "i2": self.i2, "q_p_value": self.q_p_value})
 
     def _repr_html_(self) -> str:
-        return frame_html(self.to_frame(), title="Spread of exponents among groups",
-                          notes=[self.summary()])
-
-    def summary(self) -> str:
-        pct = f"{100 * self.confidence:g}%"
-        what = f"{self.method.upper()} exponents" if self.method else "exponents"
-        lines = [
-            f"{what} of {self.k} groups, random effects ({self.tau2_method.upper()}):",
-            f"  mean exponent {self.mean:.4g} ({pct} CI {self.mean_ci.low:.4g} to "
-            f"{self.mean_ci.high:.4g}, {self.mean_interval.replace('_', '-')})",
-            f"  between-group SD tau {self.tau:.3g} ({pct} CI {self.tau_ci.low:.3g} to "
-            f"{self.tau_ci.high:.3g}, Q-profile)",
-            f"  heterogeneity Q = {self.q:.4g} on {self.q_df:g} df "
-            f"(p {format_p(self.q_p_value)}), I^2 = {100 * self.i2:.1f}%",
-        ]
-        for t in self.tests:
-            lines.append(f"  mean vs {t['hypothesis']} ({t['exponent']:g}): "
-                         f"statistic {t['statistic']:.3g}, p {format_p(t['p_value'])}")
-        return "\n".join(lines)
+        return frame_html(self.to_frame(), title="Spread of exponents among groups")
 
 
 # --------------------------------------------------------------------------
@@ -300,9 +283,7 @@ def exponent_spread(estimates, variances, *, tau2_method: str = "reml",
     if mean_interval not in MEAN_INTERVALS:
         raise ConfigError(f"mean_interval must be one of {', '.join(MEAN_INTERVALS)}, "
                           f"not {mean_interval!r}")
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) \
-            or not 0 < confidence < 1:
-        raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
+    confidence = check_confidence(confidence)
     b, v = _check(estimates, variances)
     k = b.size
     _, _, _, q = _fixed(b, v)
@@ -320,8 +301,8 @@ def exponent_spread(estimates, variances, *, tau2_method: str = "reml",
     lo2, hi2 = (float(t) for t in tau2_q_profile(b, v, confidence))
     tests = []
     if exponents is not None:
-        items = exponents.items() if isinstance(exponents, dict) else \
-            ((f"{float(e):g}", e) for e in exponents)
+        items = (exponents.items() if isinstance(exponents, dict)
+                 else ((f"{float(e):g}", e) for e in exponents))
         for name, b0 in items:
             if isinstance(b0, bool) or not isinstance(b0, (int, float, np.floating)):
                 raise ConfigError(f"exponents.{name} must be a number, not {b0!r}")

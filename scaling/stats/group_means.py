@@ -1,0 +1,304 @@
+"""Groups: their means and the line through the means.
+
+:func:`group_means` gives the mean of log x and log y in every group with its
+standard error (one vectorised pass of
+:func:`scaling.stats.moments.group_moments`); :func:`fit_group_means` fits
+one line through the means of the groups that
+:func:`scaling.stats.group_comparisons.compare_groups` compares.  The rule
+that decides which groups those are (:func:`compared_groups`) lives here,
+so both use exactly the same groups.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, replace
+
+import numpy as np
+import pandas as pd
+
+from ..errors import ConfigError, DataError, DegenerateDataWarning
+from ._group_common import EXACT_FIT_TOL, check_base, check_logs, factorize
+from .lines import METHODS, LineFit, fit_notes, line_fit_from_moments
+from .moments import Moments, group_moments, moments, weighted_moments
+from .schema import EXACT_LINE_NOTE, check_confidence, check_count, check_method
+
+__all__ = [
+    "GroupMeansResult",
+    "group_means",
+    "fit_group_means",
+    "compared_groups",
+    "excluded_text",
+    "NO_VARIATION_EPS",
+]
+
+
+# --------------------------------------------------------------------------
+# which groups are compared
+
+#: Relative spread below which a group's log x or log y counts as constant:
+#: S <= (eps * scale)^2 n with scale the root mean square of the values (see
+#: :func:`_no_variation`).  Two-pass centred sums of equal values carry
+#: rounding of about n * 1e-16 * |value| in the mean, far below this.
+NO_VARIATION_EPS = 1e-9
+
+
+def _no_variation(n, mean, ss):
+    """True where a group's values do not vary relative to their scale.
+
+    Notes
+    -----
+    With S the centred sum of squares and scale^2 = mean^2 + S/n (the mean
+    square of the values), flags S <= (eps * scale)^2 * n, eps =
+    :data:`NO_VARIATION_EPS`: the spread is below eps times the size of the
+    values, which for logs of equal numbers is pure rounding (y = 0.3 in
+    every row gives S of about 1e-32, not 0).  Rearranged without division:
+    S (1 - eps^2) <= eps^2 n mean^2.
+    """
+    n, mean, ss = (np.asarray(a, dtype=float) for a in (n, mean, ss))
+    eps2 = NO_VARIATION_EPS ** 2
+    with np.errstate(invalid="ignore"):
+        return ~(ss * (1.0 - eps2) > eps2 * n * mean * mean)
+
+
+def _exclusion_reasons(m: Moments, labels, method: str, min_n: int) -> list:
+    """Why each group is left out of comparisons ("" if it is used).
+
+    The same rule decides the groups of :func:`compare_groups` and of
+    :func:`fit_group_means`, so the line through the means and the comparisons
+    use exactly the same groups.
+    """
+    notes = fit_notes(m, method)
+    flat_x = _no_variation(m.n, m.mean_x, m.sxx)
+    flat_y = _no_variation(m.n, m.mean_y, m.syy)
+    reasons = []
+    for i in range(len(labels)):
+        if m.n[i] < min_n:
+            reasons.append(f"n = {int(m.n[i])} < {min_n}")
+        elif flat_x[i]:
+            reasons.append("x does not vary (log x constant up to rounding): "
+                           "no line to compare")
+        elif flat_y[i]:
+            reasons.append("y does not vary (log y constant up to rounding): "
+                           "no line to compare")
+        elif notes[i]:
+            reasons.append(str(notes[i]))
+        elif method != "ols" and 1.0 - float(m.r[i]) ** 2 <= EXACT_FIT_TOL:
+            reasons.append(EXACT_LINE_NOTE)
+        else:
+            reasons.append("")
+    return reasons
+
+
+def _compared_groups(m: Moments, labels, method: str, min_n: int):
+    """Indices of the groups compared, (label, reason) of those left out, all-exact flag.
+
+    SMA/MA leave out a group lying exactly on a line when others have
+    scatter; when every usable group is an exact line they are all kept and
+    compared as exact data (``all_exact``).
+    """
+    reasons = _exclusion_reasons(m, labels, method, min_n)
+    used = [i for i, why in enumerate(reasons) if not why]
+    exact_only = [i for i, why in enumerate(reasons) if why == EXACT_LINE_NOTE]
+    all_exact = not used and len(exact_only) >= 2
+    if all_exact:
+        used = exact_only
+        reasons = ["" if i in used else why for i, why in enumerate(reasons)]
+    excluded = tuple((labels[i], reasons[i]) for i in range(len(labels)) if reasons[i])
+    return used, excluded, all_exact
+
+
+# --------------------------------------------------------------------------
+# group means
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GroupMeansResult:
+    """Per-group means of the logs and their standard errors.
+
+    Attributes
+    ----------
+    groups : tuple
+        Group labels, sorted.
+    n : ndarray of int
+        Points (units) per group.
+    mean_log_x, mean_log_y : ndarray
+        Group means of log x and log y.
+    se_log_x, se_log_y : ndarray
+        Standard errors sd/sqrt(n) (sd with n - 1 divisor; NaN for n = 1).
+    n_rows : ndarray of int or None
+        Input rows behind the units of each group, when given.
+    """
+
+    groups: tuple
+    n: np.ndarray
+    mean_log_x: np.ndarray
+    mean_log_y: np.ndarray
+    se_log_x: np.ndarray
+    se_log_y: np.ndarray
+    n_rows: np.ndarray | None = None
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per group with the columns of ``group_means.csv``."""
+        out = pd.DataFrame({
+            "group": list(self.groups), "n": self.n.astype(int),
+            "mean_log_x": self.mean_log_x, "mean_log_y": self.mean_log_y,
+            "se_log_x": self.se_log_x, "se_log_y": self.se_log_y,
+        })
+        if self.n_rows is not None:
+            out["n_rows"] = self.n_rows.astype(int)
+        return out
+
+
+def _means_from_moments(m: Moments):
+    with np.errstate(divide="ignore", invalid="ignore"):
+        var_x = np.where(m.n > 1, m.sxx / (m.n - 1), np.nan)
+        var_y = np.where(m.n > 1, m.syy / (m.n - 1), np.nan)
+        return np.sqrt(var_x / m.n), np.sqrt(var_y / m.n)
+
+
+def group_means(log_x, log_y, groups, *, n_rows=None) -> GroupMeansResult:
+    """Means and standard errors of log x and log y in every group.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (n,)
+        Values already on the log scale.
+    groups : array_like, shape (n,)
+        Group label of each row.
+    n_rows : array_like of int, shape (n,), optional
+        Input rows behind each point (after averaging within units); summed
+        per group into the ``n_rows`` column.
+
+    Returns
+    -------
+    GroupMeansResult
+
+    Notes
+    -----
+    se = sqrt(S/(n - 1))/sqrt(n) with S the centred sum of squares from
+    :func:`scaling.stats.moments.group_moments` (all groups in one pass).
+    """
+    X, Y = check_logs(log_x, log_y)
+    codes, labels = factorize(groups, X.size)
+    m = group_moments(X, Y, codes, n_groups=len(labels))
+    se_x, se_y = _means_from_moments(m)
+    rows = None
+    if n_rows is not None:
+        counts = np.asarray(n_rows, dtype=float)
+        if counts.shape != X.shape or np.any(~np.isfinite(counts)) or np.any(counts < 1):
+            raise DataError("n_rows must give a positive count for every row")
+        rows = np.bincount(codes, weights=counts, minlength=len(labels)).astype(int)
+    return GroupMeansResult(groups=labels, n=m.n.astype(int), mean_log_x=m.mean_x,
+                            mean_log_y=m.mean_y, se_log_x=se_x, se_log_y=se_y,
+                            n_rows=rows)
+
+
+def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.95,
+                    log_base=10, weighted: bool = False, min_n: int = 3) -> LineFit:
+    """Fit one line through the means of the groups that :func:`compare_groups` compares.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (n,)
+        Values on the log scale.
+    groups : array_like, shape (n,)
+        Group label of each row.
+    method : {"ols", "sma", "ma"}
+    confidence : float
+    log_base : {10, "e", 2, None}
+        Base the logs were taken in (labels the intercept of the result).
+    weighted : bool
+        Weight each group mean by its number of points.  Available for OLS
+        only (weighted least squares).
+    min_n : int
+        As in :func:`compare_groups`: groups with fewer points are left out.
+
+    Returns
+    -------
+    LineFit
+        ``n`` is the number of groups used; intervals use n - 2 df.  Groups
+        left out are named with their reasons in ``note`` ("groups left out
+        of the line through the means: ...") and in a
+        :class:`~scaling.errors.DegenerateDataWarning`.
+
+    Notes
+    -----
+    The groups used are exactly those :func:`compare_groups` compares with
+    the same ``method`` and ``min_n``: a group with fewer than ``min_n``
+    points (a one-point group has a mean but no line), with no variation in
+    log x or log y (relative to their size), or (SMA, MA) lying exactly on a
+    line while others scatter, is left out of both, with the same reason.
+
+    Unweighted: the fit of :func:`scaling.stats.lines.line_fit_from_moments` to the
+    moments of the G means.  Weighted OLS: the weighted moments with weights
+    w_i = G n_i / sum n_i (normalised to sum to G), so that the usual formulas
+    give weighted least squares: b = Sxy_w/Sxx_w, s^2 = sum w e^2/(G - 2),
+    var(b) = s^2/Sxx_w, var(a) = s^2 (1/sum w + xbar_w^2/Sxx_w) (Draper &
+    Smith, Applied Regression Analysis, 3rd ed., 1998, sec. 9.2; equal to
+    statsmodels WLS in the tests).  No weighted SMA or MA with intervals we
+    could cite is implemented, so ``weighted=True`` is refused for them.
+    """
+    method = check_method(method, METHODS, lower=True)
+    confidence = check_confidence(confidence)
+    base = check_base(log_base)
+    min_n = check_count(min_n, "min_n", 3)
+    if weighted and method != "ols":
+        raise ConfigError(f"weighted=True is available only for method='ols' (weighted least "
+                          f"squares), not {method!r}: no weighted {method.upper()} estimator "
+                          "with valid intervals is implemented")
+    X, Y = check_logs(log_x, log_y)
+    codes, labels = factorize(groups, X.size)
+    gm = group_moments(X, Y, codes, n_groups=len(labels))
+    used, excluded, _ = _compared_groups(gm, labels, method, min_n)
+    idx = np.asarray(used, dtype=np.intp)
+    mx, my, counts = gm.mean_x[idx], gm.mean_y[idx], gm.n[idx]
+    if weighted:
+        w = counts * (len(mx) / counts.sum()) if len(mx) else counts
+        m = weighted_moments(mx, my, w)
+    else:
+        m = moments(mx, my)
+    fit = line_fit_from_moments(m, method, confidence=confidence, log_base=base)
+    if fit.note:
+        warnings.warn(f"line through group means: {fit.note}", DegenerateDataWarning,
+                      stacklevel=2)
+    if excluded:
+        left = excluded_text(excluded)
+        warnings.warn(f"groups left out of the line through the means: {left}",
+                      DegenerateDataWarning, stacklevel=2)
+        text = f"groups left out of the line through the means: {left}"
+        fit = replace(fit, note=f"{fit.note}; {text}" if fit.note else text)
+    return fit
+
+
+def compared_groups(log_x, log_y, groups, *, method: str = "sma", min_n: int = 3):
+    """Labels of the groups :func:`compare_groups` compares, and those it leaves out.
+
+    Returns
+    -------
+    used : tuple
+        Labels (sorted) of the groups compared.
+    excluded : tuple of (label, reason)
+
+    Notes
+    -----
+    The rule of :func:`compare_groups` and :func:`fit_group_means`: fewer than
+    ``min_n`` points; log x or log y not varying relative to its size (S <=
+    (1e-9 scale)^2 n, scale^2 = mean^2 + S/n); a line that cannot be
+    estimated; (SMA, MA) an exact line while other groups scatter.
+    """
+    method = check_method(method, METHODS, lower=True)
+    min_n = check_count(min_n, "min_n", 3)
+    X, Y = check_logs(log_x, log_y)
+    codes, labels = factorize(groups, X.size)
+    gm = group_moments(X, Y, codes, n_groups=len(labels))
+    used, excluded, _ = _compared_groups(gm, labels, method, min_n)
+    return tuple(labels[i] for i in used), excluded
+
+
+def excluded_text(excluded, limit: int = 12) -> str:
+    """'a (n = 1 < 3), b (...)' for (label, reason) pairs, at most ``limit`` named."""
+    shown = ", ".join(f"{g} ({why})" for g, why in excluded[:limit])
+    more = f" and {len(excluded) - limit} more" if len(excluded) > limit else ""
+    return shown + more
+
