@@ -1,4 +1,8 @@
-"""Tests of scaling.stats.diagnostics: residual checks, curvature, influence, error structure."""
+"""Tests of the checks of a fit: residual checks, curvature, influence, error structure.
+
+Modules: scaling.stats.residual_checks, scaling.stats.error_structure,
+scaling.stats.influence (and the words of render.findings).
+"""
 
 from __future__ import annotations
 
@@ -12,8 +16,8 @@ from scipy import stats
 from statsmodels.stats.diagnostic import het_breuschpagan
 from statsmodels.stats.outliers_influence import OLSInfluence
 
-from scaling.stats.diagnostics import (Diagnostics, compare_error_structure, diagnose,
-                                 quadratic_t)
+from scaling.stats.error_structure import compare_error_structure
+from scaling.stats.residual_checks import Diagnostics, diagnose, quadratic_t
 from scaling.errors import ConfigError, DataError
 from scaling.stats.lines import fit_line
 
@@ -301,8 +305,9 @@ class TestDiagnoseExactPowerLaw:
 # --------------------------------------------------------------------------
 # points to check, graded
 
-from scaling.stats.diagnostics import (PointCheck, cooks_distances, fit_checks,  # noqa: E402
-                                 leave_one_out_slopes, points_to_check, strong_influence)
+from scaling.render.findings import point_check_reason  # noqa: E402
+from scaling.stats.influence import (PointCheck, cooks_distances, fit_checks,  # noqa: E402
+                                     leave_one_out_slopes, points_to_check, strong_influence)
 
 
 def _bones(seed=11, n=30):
@@ -367,7 +372,7 @@ class TestPointsToCheck:
         strong = [c for c in found if c.severity == "strong" and c.kind == "influence"]
         # planted error (simulation with known truth): the bad row is flagged, first
         assert strong and strong[0].row == 8 and strong[0].label == "sp7"
-        assert "row 8 (sp7)" in strong[0].reason
+        assert "row 8 (sp7)" in point_check_reason(strong[0])
 
     def test_clean_data_stays_silent(self):
         lx, ly = _bones(seed=12)
@@ -421,7 +426,7 @@ class TestPointsToCheck:
         found = fit_checks(estimates=[("at x = 100 ", 1799.0, 2.6, 346.0)])
         # the case of the report: 1 799 outside 2.6-346
         assert len(found) == 1 and found[0].kind == "outside_interval"
-        assert "1.8e+03" in found[0].reason and isinstance(found[0], PointCheck)
+        assert "1.8e+03" in point_check_reason(found[0]) and isinstance(found[0], PointCheck)
 
     def test_residuals_clustered_by_group_are_noted(self):
         rng = np.random.default_rng(4)

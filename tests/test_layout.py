@@ -46,12 +46,10 @@ KNOWN_WRONG_IMPORTS = {
     'scaling.io.saved -> scaling.stats.several_predictors',
     'scaling.io.tables -> scaling.stats.lines',
     'scaling.render.figures -> scaling.run.points_to_check',
-    'scaling.stats.diagnostics -> scaling.render.wording',
     'scaling.stats.lines -> scaling.render.wording',
 }
 KNOWN_LONG = {
     'scaling/render/figures.py',
-    'scaling/stats/diagnostics.py',
     'scaling/stats/lines.py',
     'scaling/stats/resampling.py',
     'scaling/stats/several_predictors.py',
@@ -70,7 +68,6 @@ KNOWN_BACKSLASHES = {
     'scaling/run/pipeline.py': 1,
     'scaling/run/predictions.py': 1,
     'scaling/run/several_predictors.py': 1,
-    'scaling/stats/diagnostics.py': 3,
     'scaling/stats/lines.py': 1,
     'scaling/stats/phylogeny.py': 1,
     'scaling/stats/predictions.py': 1,

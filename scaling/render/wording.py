@@ -14,7 +14,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from ..stats.schema import CATALOGUE, CLASSIC_METHODS, ROW_METHOD_NAMES, method_label
+from ..stats.schema import CATALOGUE, CLASSIC_METHODS, EXACT_NOTE, ROW_METHOD_NAMES, method_label
 
 __all__ = [
     "influence_reason", "smearing_reason", "estimate_outside_reason",
@@ -50,8 +50,6 @@ CAUTION = ("Results are statistical estimates from the data supplied, not clinic
            "regulatory use must defer to the applicable guidance and licensed practice.")
 
 
-#: Note of a fit whose points lie on the line up to rounding.
-EXACT_NOTE = "no residual scatter: an exact power law"
 #: Note of an SMA fit whose correlation is not significant.
 BOTH_SIGNS_NOTE = "correlation not significant: slopes of either sign are accepted"
 

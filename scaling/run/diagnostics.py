@@ -1,6 +1,7 @@
 """The diagnostics stage of a run: residual checks, influence, curvature, error structure.
 
-Tables from :mod:`scaling.stats.diagnostics`; the verdict sentences from
+Tables from :mod:`scaling.stats.residual_checks` and
+:mod:`scaling.stats.error_structure`; the verdict sentences from
 :func:`scaling.render.wording.diagnostics_messages`.
 """
 
@@ -11,7 +12,8 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from ..stats.diagnostics import compare_error_structure, diagnose
+from ..stats.error_structure import compare_error_structure
+from ..stats.residual_checks import diagnose
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)

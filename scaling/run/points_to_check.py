@@ -2,7 +2,7 @@
 
 :func:`check_run` reads what :func:`scaling.run.pipeline.analyse` has computed
 (the fits, their points, correction factors and predictions), calls
-:func:`scaling.stats.diagnostics.points_to_check` and returns the
+:func:`scaling.stats.influence.points_to_check` and returns the
 ``points_to_check`` table and the warnings it adds to the run.
 """
 
@@ -20,7 +20,8 @@ from ..stats.lines import method_label
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "primary_method", "check_run"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
-from ..stats.diagnostics import fit_checks, points_to_check
+from ..stats.influence import fit_checks, points_to_check
+from ..render.findings import point_check_reason
 MAX_LISTED = 5
 
 
@@ -96,8 +97,8 @@ def check_run(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame,
         except ScalingError:
             continue
         for c in found:
-            rec = c.to_record()
-            records.append({"scope": scope, "group": group, "method": method, **rec})
+            records.append({"scope": scope, "group": group, "method": method,
+                            **c.to_record(), "reason": point_check_reason(c)})
     table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
     if "row" in table:
         table["row"] = table["row"].astype("Int64")

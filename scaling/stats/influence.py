@@ -1,0 +1,358 @@
+"""Which points and numbers to look at: leverage, Cook's distance, points to check.
+
+:func:`cooks_distances` and :func:`leave_one_out_slopes` measure each point's
+pull on the line, all points (and many samples) at once;
+:func:`points_to_check` grades them, with the checks of a whole fit
+(:func:`fit_checks`), into :class:`PointCheck` findings: a ``kind`` code and
+the numbers behind it (the words are made in :mod:`scaling.render.findings`).
+
+Points to check (:func:`points_to_check`)
+    Graded warnings.  *Strong*: a point with Cook's distance D_i > 1 (Cook
+    & Weisberg 1982, *Residuals and Influence in Regression*, the usual
+    absolute cut-off), or whose removal moves the exponent by more than
+    its standard error (|b_(-i) - b| > se(b); the absolute DFBETA cut-off of
+    Belsley, Kuh & Welsch 1980, with se(b) of the full fit).  b_(-i) comes
+    from the moments downdated by point i (exact: n' = n - 1,
+    S'_xx = S_xx - n/(n-1) (X_i - mean X)^2, likewise S'_xy, S'_yy), all
+    points at once.  A smearing factor (Duan 1983) whose ratio to the
+    parametric factor exp(s^2 ln(base)^2 / 2) lies outside
+    [1/SMEARING_RATIO_LIMIT, SMEARING_RATIO_LIMIT] (1.25; common practice, no
+    source: normal residuals put the two within a few per cent) is strong.
+    A back-transformed estimate outside its own interval is strong (it
+    happens when one huge residual inflates the smearing factor).  *Mild*:
+    pooled residuals that differ between groups by one-way ANOVA
+    (``scipy.stats.f_oneway``) at ``alpha``.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from ..errors import DataError
+from .lines import METHODS, fit_moments
+from .moments import Moments, moments
+from .residual_checks import MIN_N, _check_alpha
+from .schema import check_method
+
+__all__ = ["PointCheck", "leave_one_out_slopes", "cooks_distances", "points_to_check",
+           "strong_influence", "fit_checks", "SMEARING_RATIO_LIMIT", "COOK_STRONG"]
+
+# --------------------------------------------------------------------------
+# points to check, graded
+
+SMEARING_RATIO_LIMIT = 1.25
+COOK_STRONG = 1.0
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PointCheck:
+    """One thing the user should look at.
+
+    Attributes
+    ----------
+    severity : str
+        ``"strong"`` (look at this before using the numbers) or ``"mild"``
+        (a note).
+    kind : str
+        ``"influence"``, ``"smearing"``, ``"outside_interval"`` or
+        ``"group_residuals"``.
+    row : int or None
+        Input row number of the point (None for checks of the whole fit).
+    label : str
+        The point's label (e.g. its species), or what the check is about.
+    value : float
+        Cook's distance, smearing/parametric ratio, the estimate, or the
+        ANOVA p-value.
+    method : str
+        ``"influence"``: the line method refitted without the point.
+    slope, slope_without, slope_se : float
+        ``"influence"``: the exponent, the exponent without the point, and
+        the exponent's standard error.
+    smearing_factor, parametric_factor, limit : float
+        ``"smearing"``: the two correction factors and
+        :data:`SMEARING_RATIO_LIMIT`.
+    low, high : float
+        ``"outside_interval"``: the estimate's interval.
+    statistic : float
+    df1, df2 : int or None
+        ``"group_residuals"``: the one-way ANOVA F and its degrees of freedom.
+
+    Notes
+    -----
+    A finding is data; :func:`scaling.render.findings.point_check_reason`
+    words it.
+    """
+
+    severity: str
+    kind: str
+    row: int | None
+    label: str
+    value: float
+    method: str = ""
+    slope: float = math.nan
+    slope_without: float = math.nan
+    slope_se: float = math.nan
+    smearing_factor: float = math.nan
+    parametric_factor: float = math.nan
+    limit: float = math.nan
+    low: float = math.nan
+    high: float = math.nan
+    statistic: float = math.nan
+    df1: int | None = None
+    df2: int | None = None
+
+    def to_record(self) -> dict:
+        """The columns of ``points_to_check.csv`` that are numbers and codes (not ``reason``)."""
+        return {"severity": self.severity, "kind": self.kind, "row": self.row,
+                "label": self.label, "value": self.value}
+
+
+def _moments_last_axis(X: np.ndarray, Y: np.ndarray) -> Moments:
+    n = X.shape[-1]
+    mx, my = X.mean(axis=-1), Y.mean(axis=-1)
+    d, f = X - mx[..., None], Y - my[..., None]
+    return Moments(n=np.full(mx.shape, float(n)), mean_x=mx, mean_y=my,
+                   sxx=np.sum(d * d, axis=-1), syy=np.sum(f * f, axis=-1),
+                   sxy=np.sum(d * f, axis=-1))
+
+
+def _xy(log_x, log_y, what: str) -> tuple:
+    X = np.asarray(log_x, dtype=float)
+    Y = np.asarray(log_y, dtype=float)
+    if X.ndim < 1 or X.shape != Y.shape:
+        raise DataError("log_x and log_y must be arrays of equal shape (..., n)")
+    if X.shape[-1] < MIN_N:
+        raise DataError(f"log_x and log_y need at least {MIN_N} rows for {what}, "
+                        f"not {X.shape[-1]}")
+    return X, Y
+
+
+def cooks_distances(log_x, log_y) -> np.ndarray:
+    """Cook's distance of every point in the OLS regression of Y on X.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (..., n)
+        One sample, or many (leading axes, e.g. simulation replicates).
+
+    Returns
+    -------
+    ndarray, shape (..., n)
+
+    Notes
+    -----
+    D_i = e_i^2 h_i / (2 s^2 (1 - h_i)^2), h_i = 1/n + (X_i - mean X)^2 / S_xx,
+    s^2 = sum e^2 / (n - 2) (Cook 1977, *Technometrics* 19:15).
+    """
+    X, Y = _xy(log_x, log_y, "Cook's distances")
+    n = X.shape[-1]
+    xc = X - X.mean(axis=-1, keepdims=True)
+    yc = Y - Y.mean(axis=-1, keepdims=True)
+    sxx = np.sum(xc * xc, axis=-1, keepdims=True)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        b = np.sum(xc * yc, axis=-1, keepdims=True) / sxx
+        e = yc - b * xc
+        s2 = np.sum(e * e, axis=-1, keepdims=True) / (n - 2)
+        h = 1.0 / n + xc * xc / sxx
+        return e * e * h / (2 * s2 * (1 - h) ** 2)
+
+
+def leave_one_out_slopes(log_x, log_y, *, method: str = "ols") -> np.ndarray:
+    """The exponent refitted without each point in turn, all at once.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (..., n)
+        One sample, or many (leading axes).
+    method : str
+        A moment method of :data:`scaling.stats.lines.METHODS` (ols, sma, ma).
+
+    Returns
+    -------
+    ndarray, shape (..., n)
+        b_(-i), the slope of the same method without point i.
+
+    Notes
+    -----
+    Downdating (exact algebra of centred sums): with d_i = X_i - mean X and
+    f_i = Y_i - mean Y, removing point i gives n - 1 points with
+    S_xx - n/(n-1) d_i^2, S_yy - n/(n-1) f_i^2, S_xy - n/(n-1) d_i f_i and
+    means shifted by -d_i/(n-1), -f_i/(n-1).
+    """
+    method = check_method(method, METHODS)
+    X, Y = _xy(log_x, log_y, "leaving one out")
+    n = X.shape[-1]
+    m = _moments_last_axis(X, Y)
+    d, f = X - m.mean_x[..., None], Y - m.mean_y[..., None]
+    k = n / (n - 1)
+    down = Moments(n=np.full(X.shape, n - 1.0), mean_x=m.mean_x[..., None] - d / (n - 1),
+                   mean_y=m.mean_y[..., None] - f / (n - 1),
+                   sxx=m.sxx[..., None] - k * d * d, syy=m.syy[..., None] - k * f * f,
+                   sxy=m.sxy[..., None] - k * d * f)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return np.asarray(fit_moments(down, method)["slope"], dtype=float)
+
+
+def strong_influence(log_x, log_y, *, method: str = "ols") -> dict:
+    """Which points get a strong influence warning, for one sample or many.
+
+    Returns
+    -------
+    dict of ndarray
+        ``flag`` (..., n) bool: D_i > 1 or |b_(-i) - b| > se(b);
+        ``cook``, ``slope_without`` (..., n); ``slope``, ``slope_se`` (...).
+
+    Notes
+    -----
+    Rules and sources are in the module docstring.
+    """
+    X, Y = _xy(log_x, log_y, "influence")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        full = fit_moments(_moments_last_axis(X, Y), method)
+    b, se = np.asarray(full["slope"], float), np.asarray(full["slope_se"], float)
+    loo = leave_one_out_slopes(X, Y, method=method)
+    cook = cooks_distances(X, Y)
+    with np.errstate(invalid="ignore"):
+        moved = np.abs(loo - b[..., None]) > se[..., None]
+        # exact fits (se = 0; D is rounding noise) are never flagged
+        flag = ((cook > COOK_STRONG) | moved) & (se[..., None] > 0)
+    return {"flag": flag, "cook": cook, "slope_without": loo, "slope": b, "slope_se": se}
+
+
+def fit_checks(*, smearing_factor: float | None = None,
+               parametric_factor: float | None = None, estimates=None) -> list:
+    """The checks of :func:`points_to_check` that need no data points.
+
+    Parameters
+    ----------
+    smearing_factor, parametric_factor : float, optional
+    estimates : iterable of (label, estimate, low, high), optional
+
+    Returns
+    -------
+    list of PointCheck
+        Strong warnings: smearing/parametric ratio outside
+        [1/SMEARING_RATIO_LIMIT, SMEARING_RATIO_LIMIT]; estimates outside
+        [low, high].
+    """
+    out = []
+    if (smearing_factor is not None and parametric_factor is not None
+            and np.isfinite(smearing_factor) and np.isfinite(parametric_factor)
+            and parametric_factor > 0):
+        ratio = smearing_factor / parametric_factor
+        if not 1 / SMEARING_RATIO_LIMIT <= ratio <= SMEARING_RATIO_LIMIT:
+            out.append(PointCheck(
+                severity="strong", kind="smearing", row=None, label="", value=float(ratio),
+                smearing_factor=float(smearing_factor),
+                parametric_factor=float(parametric_factor), limit=SMEARING_RATIO_LIMIT))
+    for label, est, low, high in (estimates or ()):
+        if (np.isfinite(est) and np.isfinite(low) and np.isfinite(high)
+                and not low <= est <= high):
+            out.append(PointCheck(severity="strong", kind="outside_interval", row=None,
+                                  label=str(label), value=float(est), low=float(low),
+                                  high=float(high)))
+    return out
+
+
+def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None,
+                    groups=None, smearing_factor: float | None = None,
+                    parametric_factor: float | None = None, estimates=None,
+                    alpha: float = 0.05) -> tuple:
+    """Graded warnings: influential points, odd correction factors, grouped residuals.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (n,)
+        The log-scale data of the fit.
+    method : str
+        Line method whose exponent is refitted without each point (a moment
+        method; others are checked through OLS).
+    rows, labels : array_like, optional
+        Input row number and label of each point.
+    groups : array_like, optional
+        Group of each point; residuals are compared between groups.
+    smearing_factor, parametric_factor : float, optional
+        The two correction factors of the fit.
+    estimates : iterable of (label, estimate, low, high), optional
+        Back-transformed estimates and their intervals.
+    alpha : float
+        Level of the group-residual test.
+
+    Returns
+    -------
+    tuple of PointCheck
+        Strong ones first.
+
+    Notes
+    -----
+    Rules and sources are in the module docstring.
+    """
+    alpha = _check_alpha(alpha)
+    X = np.asarray(log_x, dtype=float)
+    Y = np.asarray(log_y, dtype=float)
+    if X.ndim != 1 or X.shape != Y.shape:
+        raise DataError("log_x and log_y must be one-dimensional and of equal length")
+    n = X.size
+    if n < MIN_N:
+        raise DataError(f"log_x and log_y need at least {MIN_N} rows for points_to_check, "
+                        f"not {n}")
+    rows = np.arange(n) if rows is None else np.asarray(rows)
+    labels = np.full(n, "", dtype=object) if labels is None else np.asarray(labels, dtype=object)
+    if rows.shape != (n,) or labels.shape != (n,):
+        raise DataError(f"rows and labels must give one value per point ({n})")
+    use = method if method in METHODS else "ols"
+    out = []
+    if np.ptp(X) > 0:
+        inf = strong_influence(X, Y, method=use)
+        cook, loo, flag = inf["cook"], inf["slope_without"], inf["flag"]
+        b, se = float(inf["slope"]), float(inf["slope_se"])
+        for i in np.flatnonzero(flag)[np.argsort(-cook[flag], kind="stable")]:
+            out.append(PointCheck(
+                severity="strong", kind="influence", row=int(rows[i]), label=str(labels[i]),
+                value=float(cook[i]), method=use, slope=b, slope_without=float(loo[i]),
+                slope_se=se))
+    out += fit_checks(smearing_factor=smearing_factor, parametric_factor=parametric_factor,
+                      estimates=estimates)
+    if groups is not None:
+        g = np.asarray(groups, dtype=object)
+        if g.shape != (n,):
+            raise DataError(f"groups must give one value per point ({n})")
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            b_line = fit_moments(_one(X, Y), use)
+        resid = Y - float(b_line["intercept"][0]) - float(b_line["slope"][0]) * X
+        codes, uniq = _codes(g)
+        samples = [resid[codes == k] for k in range(len(uniq))]
+        samples = [s for s in samples if s.size >= 2]
+        if len(samples) >= 2:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                res = stats.f_oneway(*samples)
+            p = float(res.pvalue)
+            if np.isfinite(p) and p < alpha:
+                df2 = sum(s.size for s in samples) - len(samples)
+                out.append(PointCheck(
+                    severity="mild", kind="group_residuals", row=None, label="",
+                    value=p, statistic=float(res.statistic), df1=len(samples) - 1,
+                    df2=int(df2)))
+    out.sort(key=lambda c: c.severity != "strong")
+    return tuple(out)
+
+
+def _one(X: np.ndarray, Y: np.ndarray) -> Moments:
+    m = moments(X, Y)
+    return Moments(**{k: np.atleast_1d(getattr(m, k)) for k in
+                      ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
+
+
+def _codes(values: np.ndarray) -> tuple:
+    uniq, codes = np.unique(values.astype(str), return_inverse=True)
+    return codes, uniq
+
