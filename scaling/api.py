@@ -37,7 +37,7 @@ from .stats.lines import (METHODS, LineFit, MIN_N, base_label,
 from .stats.moments import Moments
 from .stats.predictions import data_factors
 from .stats.robust import ROW_METHODS, deming, deming_moments
-from .stats.schema import check_confidence, check_exponents
+from .stats.schema import check_confidence, check_exponents, check_method
 
 __all__ = ["fit_line", "fit_groups", "METHOD_OPTIONS", "ROW_METHOD_DEFAULTS"]
 
@@ -59,12 +59,6 @@ ROW_METHOD_DEFAULTS = {"n_boot": 999, "seed": 1}
 
 # --------------------------------------------------------------------------
 # input checks
-
-
-def _check_method(method) -> str:
-    if not isinstance(method, str) or method not in METHOD_NAMES:
-        raise ConfigError(f"method must be one of {', '.join(METHOD_NAMES)}, not {method!r}")
-    return method
 
 
 def _check_options(methods, options: dict) -> None:
@@ -175,7 +169,7 @@ def fit_line(x, y, *, method: str = "sma", confidence: float = 0.95, log_base=10
     >>> fit.predict([10])["y"].round(0).tolist()
     [305.0]
     """
-    method = _check_method(method)
+    method = check_method(method, METHOD_NAMES)
     _check_options([method], options)
     if method in METHODS:
         with warnings.catch_warnings(record=True) as caught:
@@ -355,7 +349,7 @@ def fit_groups(df, *, x: str, y: str, group: str | None = None,
     """
     if isinstance(methods, str):
         methods = [methods]
-    methods = [_check_method(m) for m in methods]
+    methods = [check_method(m, METHOD_NAMES) for m in methods]
     if not methods:
         raise ConfigError(f"methods must name at least one of {', '.join(METHOD_NAMES)}")
     _check_options(methods, options)

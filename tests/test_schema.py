@@ -103,3 +103,38 @@ class TestOptionChecks:
         for bad in (0, -1, float("inf"), float("nan"), False, "1"):
             with pytest.raises(ConfigError, match=r"^lam \(error-variance ratio\) must be"):
                 check_lam(bad)
+
+
+class TestArgumentChecks:
+    """One check per argument: a method, several methods, a count (rules of the house)."""
+
+    def test_check_method_names_the_argument_and_the_choices(self):
+        assert schema.check_method("sma", ("ols", "sma", "ma")) == "sma"
+        assert schema.check_method("SMA", ("ols", "sma", "ma"), lower=True) == "sma"
+        assert schema.check_method("deming") == "deming"   # every catalogue method by default
+        with pytest.raises(ConfigError, match=r"^method must be one of ols, sma, ma, not 'SMA'$"):
+            schema.check_method("SMA", ("ols", "sma", "ma"))
+        with pytest.raises(ConfigError, match=r"^line must be one of ols, sma, not 3$"):
+            schema.check_method(3, ("ols", "sma"), name="line")
+
+    def test_check_methods_takes_one_name_or_several(self):
+        assert schema.check_methods("ols", ("ols", "sma")) == ("ols",)
+        assert schema.check_methods(["sma", "ols"], ("ols", "sma")) == ("sma", "ols")
+        with pytest.raises(ConfigError, match=r"^methods must name at least one of ols, sma$"):
+            schema.check_methods([], ("ols", "sma"))
+        with pytest.raises(ConfigError, match=r"^methods must be among ols, sma \(each method "
+                                              r"must be one of these\), not \['wls'\]$"):
+            schema.check_methods(["ols", "wls"], ("ols", "sma"))
+
+    def test_check_count_wants_a_whole_number_at_least_the_minimum(self):
+        import numpy as np
+        assert schema.check_count(np.int64(5), "n_boot", 2) == 5
+        assert schema.check_count(0, "seed", 0) == 0
+        for bad in (1, 2.0, True, "3", None):
+            with pytest.raises(ConfigError, match=r"^n_boot must be an integer >= 2, not "):
+                schema.check_count(bad, "n_boot", 2)
+
+    def test_notes_are_fixed_labels(self):
+        # vocabulary: fits.csv notes carry no numbers
+        assert schema.EXACT_NOTE == "no residual scatter: an exact power law"
+        assert not any(ch.isdigit() for ch in schema.EXACT_NOTE + schema.EXACT_LINE_NOTE)

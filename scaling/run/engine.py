@@ -37,10 +37,11 @@ import pandas as pd
 
 from ..io.tables import parse_numbers
 from ..errors import ConfigError, DataError
-from ..stats.lines import (METHODS, get_method, base_label, fit_moments,
+from ..stats.lines import (METHODS, base_label, fit_moments,
                     parse_log_base, slope_test_statistic)
 from ..stats.moments import Moments, combine_moments, group_moments, merge_moments
-from ..stats.schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, check_confidence, check_exponents
+from ..stats.schema import (FIT_COLUMNS, SLOPE_TEST_COLUMNS, check_confidence, check_exponents,
+                            check_methods)
 
 __all__ = [
     "GroupedMoments",
@@ -637,17 +638,6 @@ def _dask_moments(path, kind, columns, x, y, group, base, chunk_size, scheduler,
 # every group fitted at once
 
 
-def _check_methods(methods) -> list:
-    if isinstance(methods, str):
-        methods = [methods]
-    methods = list(methods)
-    if not methods:
-        raise ConfigError("methods must name at least one of " + ", ".join(METHODS))
-    for method in methods:
-        get_method(method)
-    return methods
-
-
 def pooled_view(gm: GroupedMoments) -> GroupedMoments:
     """The pooled moments of ``gm`` as a one-group :class:`GroupedMoments` (label "")."""
     with np.errstate(invalid="ignore"):
@@ -695,7 +685,7 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
     :mod:`scaling.stats.lines`.  Results equal :func:`scaling.fit_line` group by
     group up to rounding.
     """
-    methods = _check_methods(methods)
+    methods = list(check_methods(methods, tuple(METHODS)))
     confidence = check_confidence(confidence)
     exps = check_exponents(exponents)
     if pooled:

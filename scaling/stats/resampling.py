@@ -75,7 +75,8 @@ from scipy import special
 from ..errors import ConfigError, DataError, DegenerateDataWarning, ScalingWarning
 from .lines import METHODS, ConfidenceInterval
 from .moments import Moments, moments_from_sums, weight_design, weighted_moments
-from .schema import CATALOGUE, MOMENT_METHODS, check_confidence, check_lam
+from .schema import (CATALOGUE, MOMENT_METHODS, check_confidence, check_count, check_lam,
+                     check_methods)
 
 __all__ = [
     "MOMENT_METHODS",
@@ -140,22 +141,6 @@ def _check_xy(log_x, log_y) -> tuple[np.ndarray, np.ndarray]:
     if X.size < 3:
         raise DataError(f"log_x and log_y need at least 3 rows to resample a line, not {X.size}")
     return X, Y
-
-
-def _check_count(value, name: str, minimum: int = 1) -> int:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
-        raise ConfigError(f"{name} must be an integer >= {minimum}, not {value!r}")
-    return int(value)
-
-
-def _check_methods(methods) -> tuple[str, ...]:
-    if isinstance(methods, str):
-        methods = (methods,)
-    methods = tuple(methods)
-    bad = [m for m in methods if m not in MOMENT_METHODS]
-    if bad or not methods:
-        raise ConfigError(f"methods must be among {', '.join(MOMENT_METHODS)}, not {bad or methods!r}")
-    return methods
 
 
 def make_rng(seed) -> np.random.Generator:
@@ -596,7 +581,7 @@ class PermutationTest:
 def _chunk(chunk_size, n: int, total: int, cells: int = _CELLS_PER_CHUNK) -> int:
     if chunk_size is None:
         return max(1, min(total, cells // max(n, 1)))
-    return min(_check_count(chunk_size, "chunk_size"), total)
+    return min(check_count(chunk_size, "chunk_size"), total)
 
 
 def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
@@ -659,8 +644,8 @@ def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
     coverage in the README ("Resampling").
     """
     X, Y = _check_xy(log_x, log_y)
-    methods = _check_methods(methods)
-    n_boot = _check_count(n_boot, "n_boot", 2)
+    methods = check_methods(methods, MOMENT_METHODS)
+    n_boot = check_count(n_boot, "n_boot", 2)
     if n_boot < MIN_BCA_BOOT:
         warnings.warn(f"n_boot = {n_boot} < {MIN_BCA_BOOT}: the BCa intervals are unreliable "
                       "with so few resamples (they cover less than their level); use "
@@ -858,7 +843,7 @@ def permutation_slope_test(log_x, log_y, exponent: float, *, method: str = "sma"
     if method not in MOMENT_METHODS and method not in RANK_PAIRS:
         raise ConfigError(f"method must be one of {', '.join(MOMENT_METHODS + tuple(RANK_PAIRS))}"
                           f", not {method!r}")
-    n_perm = _check_count(n_perm, "n_perm")
+    n_perm = check_count(n_perm, "n_perm")
     lam = check_lam(lam)
     rng = make_rng(seed)
     b0 = float(exponent)
