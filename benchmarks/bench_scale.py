@@ -5,7 +5,7 @@ group column, groups of equal size, rows in random order), it measures
 
 (a) floor  -- one pandas ``groupby(group).sum()`` of the five moment columns
               X, Y, X^2, Y^2, XY (precomputed outside the timing);
-(b) ours   -- ``scaling.run.engine.fit_frame``: cleaning, logs, per-group
+(b) ours   -- ``scaling.run.table_moments.fit_frame``: cleaning, logs, per-group
               moments, OLS, SMA and MA with slope and intercept intervals,
               and the tests of every fit against two exponents;
 (c) loop   -- a straightforward per-group loop: statsmodels OLS (estimate and
@@ -18,7 +18,7 @@ group column, groups of equal size, rows in random order), it measures
               figures and the report are all timed; the file is above
               ``data.moments_above_mb`` so the run takes the moments path.
               Target (issue 13): under 30 s at 1e7 rows and 1e4 groups.
-(d) chunked -- ``scaling.run.engine.read_moments`` on a parquet file of the same
+(d) chunked -- ``scaling.run.table_moments.read_moments`` on a parquet file of the same
               table (chunks of ``--chunk`` rows), in a child process whose
               peak resident memory is reported against a child that only
               imports the same modules.
@@ -52,7 +52,7 @@ import pandas as pd
 import statsmodels.api as sm
 from scipy import odr, stats
 
-from scaling.run.engine import fit_frame
+from scaling.run.table_moments import fit_frame
 
 SEED = 20261202
 EXPONENTS = {"three_quarters": 0.75, "two_thirds": 2 / 3}
@@ -126,7 +126,7 @@ def peak_of(fn) -> int:
 
 _CHILD = """
 import sys, time
-from scaling.run.engine import read_moments
+from scaling.run.table_moments import read_moments
 import pyarrow.parquet
 if sys.argv[1] == "read":
     t = time.perf_counter()

@@ -9,8 +9,9 @@ the tidy ``fits.csv`` table.
 
 This module sits above :mod:`scaling.stats.lines` (moment methods),
 :mod:`scaling.stats.robust` (Deming and the row-based lines),
-:mod:`scaling.stats.predictions` (correction factors) and :mod:`scaling.run.engine`
-(every group at once), and imports them at module level; none of them
+:mod:`scaling.stats.predictions` (correction factors),
+:mod:`scaling.run.table_moments` (per-group moments of a table) and
+:mod:`scaling.stats.grouped_fits` (every group at once), and imports them at module level; none of them
 imports it.
 
 Correction factors carried by a fit (computed once, from its own
@@ -30,12 +31,14 @@ import numpy as np
 import pandas as pd
 
 from .io.config import METHOD_NAMES
-from .run.engine import FIT_TABLE_COLUMNS, fit_groups_from_moments, frame_moments
+from .run.table_moments import frame_moments
 from .errors import ConfigError, DataError
 from .stats.lines import (METHODS, LineFit, MIN_N, base_label,
                     fit_line as _fit_moment_line, parse_log_base, slope_test_statistic)
 from .stats.moments import Moments
 from .stats.predictions import data_factors
+from .stats.fit_rows import ESTIMATE_COLUMNS, fit_row, fit_rows
+from .stats.grouped_fits import FIT_TABLE_COLUMNS, fit_groups_from_moments
 from .stats.robust import ROW_METHODS, deming, deming_moments
 from .stats.schema import check_confidence, check_exponents, check_method
 
@@ -209,8 +212,8 @@ def _clean_frame(df, x: str, y: str, group: str | None, base) -> pd.DataFrame:
         bad = ~np.isfinite(col) | ((col <= 0) if base is not None else False)
         if np.any(bad):
             first = df.index[np.argmax(bad)]
-            what = "missing, non-numeric, infinite or <= 0 (no logarithm)" if base is not None \
-                else "missing, non-numeric or infinite"
+            what = ("missing, non-numeric, infinite or <= 0 (no logarithm)" if base is not None
+                    else "missing, non-numeric or infinite")
             raise DataError(f"column {name!r} has {int(bad.sum())} value(s) {what} (first at "
                             f"row index {first!r}); clean the data first")
         out[name] = col
@@ -228,19 +231,13 @@ def _clean_frame(df, x: str, y: str, group: str | None, base) -> pd.DataFrame:
 def _deming_rows(gm, lam: float, confidence: float, scope: str) -> pd.DataFrame:
     """The fits rows of the Deming line for every group (one vectorised call)."""
     res = deming_moments(gm.moments, lam, confidence=confidence)
-    g = gm.labels.size
-    cols = {"scope": np.full(g, scope, dtype=object), "group": gm.labels.astype(object),
-            "method": np.full(g, "deming", dtype=object),
-            "n": np.asarray(gm.moments.n).astype(np.int64)}
-    for key in ("slope", "slope_low", "slope_high", "intercept", "intercept_low",
-                "intercept_high", "r", "r2", "slope_se", "intercept_se", "resid_sd"):
-        cols[key] = np.asarray(res[key], dtype=float)
-    cols.update(log_base=np.full(g, base_label(gm.log_base), dtype=object),
-                confidence=np.full(g, confidence), note=np.asarray(res["note"], dtype=object),
-                x_min=gm.x_min, x_max=gm.x_max, y_min=gm.y_min, y_max=gm.y_max,
-                interval_method=np.full(g, "analytic", dtype=object),
-                deming_lambda=np.full(g, lam))
-    return pd.DataFrame(cols, columns=FIT_TABLE_COLUMNS)
+    return fit_rows(
+        gm.labels.size, scope=scope, group=gm.labels.astype(object), method="deming",
+        n=np.asarray(gm.moments.n).astype(np.int64),
+        **{k: np.asarray(res[k], dtype=float) for k in ESTIMATE_COLUMNS},
+        log_base=base_label(gm.log_base), confidence=float(confidence),
+        note=np.asarray(res["note"], dtype=object), x_min=gm.x_min, x_max=gm.x_max,
+        y_min=gm.y_min, y_max=gm.y_max, interval_method="analytic", deming_lambda=float(lam))
 
 
 def _row_method_rows(frame: pd.DataFrame, labels, method: str, confidence: float, base,
@@ -248,8 +245,8 @@ def _row_method_rows(frame: pd.DataFrame, labels, method: str, confidence: float
     """Fits rows and LineFits of a row-based method, one group at a time."""
     kwargs = ROW_METHOD_DEFAULTS | {k: v for k, v in options.items()
                                     if k in METHOD_OPTIONS[method]}
-    parts = dict(tuple(frame.groupby("group", sort=False))) if "group" in frame else \
-        {"": frame}
+    parts = (dict(tuple(frame.groupby("group", sort=False))) if "group" in frame
+             else {"": frame})
     rows, fits = [], {}
     for label in labels:
         sub = parts[label]
@@ -263,16 +260,15 @@ def _row_method_rows(frame: pd.DataFrame, labels, method: str, confidence: float
                                           **kwargs)
             except DataError as exc:
                 note = str(exc).replace("x and y need", "needs")
+        ranges = {"x_range": (float(xv.min()), float(xv.max())),
+                  "y_range": (float(yv.min()), float(yv.max()))}
         if fit is not None:
-            rec = fit.to_record()
+            rows.append(fit_row(fit, scope=scope, group=label, **ranges))
             fits[label] = fit
         else:
-            rec = {"method": method, "n": int(xv.size), "log_base": base_label(base),
-                   "confidence": confidence, "note": note,
-                   "interval_method": "bootstrap_percentile"}
-        rec.update(scope=scope, group=label, x_min=float(xv.min()), x_max=float(xv.max()),
-                   y_min=float(yv.min()), y_max=float(yv.max()))
-        rows.append(rec)
+            rows.append(fit_row(scope=scope, group=label, method=method, n=int(xv.size),
+                                log_base=base_label(base), confidence=confidence, note=note,
+                                interval_method="bootstrap_percentile", **ranges))
     return pd.DataFrame(rows, columns=FIT_TABLE_COLUMNS), fits
 
 
@@ -325,8 +321,8 @@ def fit_groups(df, *, x: str, y: str, group: str | None = None,
     Notes
     -----
     OLS, SMA, MA and Deming: per-group moments in one pass
-    (:func:`scaling.run.engine.frame_moments`) and one vectorised fit per method
-    over all groups (:func:`scaling.run.engine.fit_groups_from_moments`,
+    (:func:`scaling.run.table_moments.frame_moments`) and one vectorised fit per method
+    over all groups (:func:`scaling.stats.grouped_fits.fit_groups_from_moments`,
     :func:`scaling.stats.robust.deming_moments`); formulas in :mod:`scaling.stats.lines`
     and :mod:`scaling.stats.robust`.  The row-based lines (Theil-Sen, Siegel,
     robust SMA/MA) need the rows: they are fitted group by group (a Python

@@ -7,8 +7,9 @@ from hypothesis import given, settings, strategies as st
 from numpy.testing import assert_allclose
 
 import scaling
-from scaling.run.engine import (FIT_TABLE_COLUMNS, SLOPE_TEST_TABLE_COLUMNS, fit_frame,
-                            fit_groups_from_moments, frame_moments, read_moments)
+from scaling.run.table_moments import fit_frame, frame_moments, read_moments
+from scaling.stats.grouped_fits import (FIT_TABLE_COLUMNS, SLOPE_TEST_TABLE_COLUMNS,
+                                        fit_groups_from_moments)
 from scaling.errors import ConfigError, DataError
 from scaling.stats.moments import combine_moments, group_moments, merge_moments, moments
 

@@ -18,6 +18,7 @@ from scaling.io.config import config_from_dict
 from scaling.errors import ConfigError, DataError
 from scaling.run.moments_path import bounded_diagnostics, spread_stage, use_moments_path
 from scaling.run.pipeline import analyse, write_outputs
+from scaling.run.state import RunState
 from scaling.stats.spread import spread_from_fits
 
 NUMERIC = ["n", "slope", "slope_low", "slope_high", "intercept", "intercept_low",
@@ -186,8 +187,8 @@ class TestSpreadStage:
     def test_absent_at_or_below_spread_min(self, data_files):
         tmp, csv, _, ordinary = data_files
         cfg = _cfg(csv, tmp, groups={"spread_min": 25})
-        tables, messages, notes = spread_stage(ordinary.fits, cfg)
-        assert tables == {} and messages == [] and notes == []
+        stage = spread_stage(cfg, RunState(data=ordinary.data, base=10.0, fits=ordinary.fits))
+        assert stage.tables == {} and stage.messages == () and stage.notes == ()
 
 
 class TestBoundedDiagnostics:

@@ -40,7 +40,7 @@ KNOWN_WRONG_IMPORTS = {
     'scaling.io.output -> scaling.render.figure_worker',
     'scaling.io.output -> scaling.render.wording',
     'scaling.io.saved -> scaling.render.wording',
-    'scaling.io.saved -> scaling.run.prediction_lines',
+    'scaling.io.saved -> scaling.run.predictions',
     'scaling.io.saved -> scaling.stats.lines',
     'scaling.io.saved -> scaling.stats.predictions',
     'scaling.io.saved -> scaling.stats.several_predictors',
@@ -55,7 +55,7 @@ KNOWN_LONG = {
     'scaling/stats/several_predictors.py',
 }
 KNOWN_BACKSLASHES = {
-    'scaling/api.py': 3,
+    'scaling/api.py': 1,
     'scaling/io/config.py': 2,
     'scaling/io/output.py': 1,
     'scaling/io/saved.py': 1,
@@ -64,10 +64,6 @@ KNOWN_BACKSLASHES = {
     'scaling/render/headline.py': 5,
     'scaling/render/report.py': 4,
     'scaling/render/wording.py': 2,
-    'scaling/run/engine.py': 5,
-    'scaling/run/pipeline.py': 1,
-    'scaling/run/predictions.py': 1,
-    'scaling/run/several_predictors.py': 1,
     'scaling/stats/lines.py': 1,
     'scaling/stats/phylogeny.py': 1,
     'scaling/stats/predictions.py': 1,

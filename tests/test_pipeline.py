@@ -200,7 +200,7 @@ class TestRunFiles:
         from scaling.stats.predictions import predict
         from scaling.io.saved import predict_from_dict
         _, wide = extended
-        saved = wide.tables["_saved_fits"][("pooled", "", "sma_robust")]
+        saved = wide.saved_fits[("pooled", "", "sma_robust")]
         fit = wide.line_fits[("pooled", "", "sma_robust")]
         got = predict_from_dict(saved, [10.0, 100.0], correction="parametric")
         ref = predict(fit, [10.0, 100.0], correction="parametric")

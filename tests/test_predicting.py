@@ -1,4 +1,4 @@
-"""Tests of scaling.run.prediction_lines: which lines predict; range_ratio."""
+"""Tests of scaling.run.predictions: which lines predict; range_ratio."""
 from __future__ import annotations
 
 import warnings
@@ -9,7 +9,7 @@ from numpy.testing import assert_allclose
 
 from scaling.io.config import config_from_dict
 from scaling.run.pipeline import analyse
-from scaling.run.prediction_lines import range_ratio
+from scaling.run.predictions import range_ratio
 
 
 class TestRangeRatio:

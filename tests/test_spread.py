@@ -187,7 +187,7 @@ class TestExponentSpread:
 
 class TestSpreadFromFits:
     def test_uses_estimable_group_rows_of_one_method(self):
-        from scaling.run.engine import fit_frame
+        from scaling.run.table_moments import fit_frame
         rng = np.random.default_rng(7)
         g = np.repeat(np.arange(30), 40)
         slope = 0.75 + rng.normal(0, 0.05, 30)[g]

@@ -93,7 +93,7 @@ def results_document(result) -> dict:
         "messages": list(result.messages),
         "warnings": list(result.warnings),
         "caution": CAUTION,
-        "saved_fits": list(result.tables.get("_saved_fits", {}).values()),
+        "saved_fits": list(result.saved_fits.values()),
         "data_summary": {
             "rows_read": result.data.n_read, "rows_dropped": len(result.dropped),
             "points_fitted": len(result.data.points),

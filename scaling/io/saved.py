@@ -25,7 +25,7 @@ from ..stats.several_predictors import MULTI_DICT_FORMAT, multi_fit_from_dict
 from ..stats.predictions import CORRECTIONS, Prediction, inverse_predict, predict, saved_factor
 from ..stats.schema import check_choice as _check_choice
 from ..render.wording import dose_caution, medians_vs_means, units_line
-from ..run.prediction_lines import range_ratio
+from ..run.predictions import range_ratio
 
 __all__ = ["SavedResults", "load_results", "predict_command", "predict_from_dict"]
 

@@ -71,7 +71,7 @@ def _anything_to_draw(result) -> bool:
     cfg = result.config.figures
     tables = result.tables or {}
     spread = tables.get("exponent_spread")
-    extras = "_multi_fit" in tables or (spread is not None and len(spread) > 0)
+    extras = result.multi_fit is not None or (spread is not None and len(spread) > 0)
     return bool(cfg.formats) and (bool(cfg.kinds) or extras)
 
 

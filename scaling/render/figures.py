@@ -902,7 +902,7 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
         lo, hi = _fit_xrange(fit, result)
         xs = np.linspace(lo, hi, 240)
         xs[0], xs[-1] = lo, hi
-        saved = result.tables.get("_saved_fits", {}).get(("pooled", "", method))
+        saved = result.saved_fits.get(("pooled", "", method))
         if saved is not None:   # the run's factors, computed once by the prediction stage
             pred = predict(fit, xs, correction=correction, interval=interval,
                            factor=saved_factor(saved, correction))
@@ -1457,7 +1457,7 @@ def write_figures(result, folder: Path, *, kinds=None, extras: bool = True) -> l
     cfg = result.config.figures
     folder = Path(folder)
     (folder / "figures").mkdir(parents=True, exist_ok=True)
-    if "_multi_fit" in (result.tables or {}):   # several predictors: partial relationships
+    if result.multi_fit is not None:   # several predictors: partial relationships
         return _write_partial_figures(result, folder) if extras else []
     chosen = [k for k in cfg.kinds if kinds is None or k in kinds]
     out: list[Path] = []
@@ -1599,7 +1599,7 @@ def plot_partial(result, term: str, *, ax=None, size: str = "single"):
     a + b_j log x_j + sum_{i != j} b_i mean log x_i over the fitted range of x_j.
     The slope of the points about the line is the partial exponent b_j.
     """
-    fit = result.tables["_multi_fit"]
+    fit = result.multi_fit
     j = fit.names.index(term)
     own = ax is None
     if own:
@@ -1632,7 +1632,7 @@ def _write_partial_figures(result, folder: Path) -> list[Path]:
 
     cfg = result.config.figures
     out: list[Path] = []
-    for term in result.tables["_multi_fit"].names:
+    for term in result.multi_fit.names:
         safe = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in term)
         try:
             ax = plot_partial(result, term, size=cfg.size)

@@ -8,6 +8,7 @@ Tables from :mod:`scaling.stats.residual_checks` and
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -18,8 +19,18 @@ from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
 from ..render.wording import diagnostics_messages
+from .moments_path import bounded_diagnostics
 
-__all__ = ["exponent_targets", "diagnostics_stage"]
+__all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DiagnosticsStage:
+    """The diagnostics, influential_rows, curvature (and error_structure) tables and verdicts."""
+
+    tables: dict
+    messages: tuple = ()
+    notes: tuple = ()
 
 
 def exponent_targets(cfg) -> tuple:
@@ -28,8 +39,9 @@ def exponent_targets(cfg) -> tuple:
     return tuple(cfg.diagnostics.exponent_at) or tuple(cfg.exponents.values())
 
 
-def diagnostics_stage(line_fits: dict, point_sets: dict, cfg):
+def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     """diagnostics, influential_rows, curvature and error_structure tables and verdicts."""
+    line_fits, point_sets, notes = bounded_diagnostics(state.line_fits, state.point_sets, cfg)
     dc = cfg.diagnostics
     targets = exponent_targets(cfg)
     diag_frames, infl_rows, curv_rows, es_rows = [], [], [], []
@@ -105,4 +117,5 @@ def diagnostics_stage(line_fits: dict, point_sets: dict, cfg):
     if dc.error_structure:
         tables["error_structure"] = pd.DataFrame(es_rows, columns=ERROR_STRUCTURE_COLUMNS)
 
-    return tables, diagnostics_messages(results, es_results, point_sets, cfg)
+    return DiagnosticsStage(tables=tables, notes=tuple(notes), messages=tuple(
+        diagnostics_messages(results, es_results, point_sets, cfg)))

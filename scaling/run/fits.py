@@ -1,30 +1,80 @@
 """The fitting stage of a run: fits.csv rows and LineFit objects, each fit computed once.
 
-Moment lines (OLS, SMA, MA, Deming) are fitted to every group at once from
-group moments; each fits.csv row and each :class:`~scaling.stats.lines.LineFit` is
-read from that one vectorised result.  Row-based lines (robust lines) are
-fitted per set of points by :data:`scaling.stats.robust.ROW_METHODS`.
+:func:`fit_stage` fits the pooled line and every group's line.  Moment lines
+(OLS, SMA, MA, Deming) are fitted to every group at once from group moments;
+each fits.csv row (:func:`scaling.stats.fit_rows.fit_row`) and each
+:class:`~scaling.stats.lines.LineFit` is read from that one vectorised result.
+Row-based lines (robust lines) are fitted per set of points by
+:data:`scaling.stats.robust.ROW_METHODS`.
+
+:func:`fits_table_stage` assembles ``fits.csv`` and ``slope_tests.csv`` from
+the rows and fits of every stage before it (ordinary, group means, common
+slope, phylogenetic).
 """
 
 from __future__ import annotations
 
 import warnings
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
 
 from ..errors import DataError
+from ..render.wording import line_method_messages, pooled_fit_messages
+from ..stats.fit_rows import ESTIMATE_COLUMNS, fit_row
 from ..stats.lines import MIN_N, base_label, fit_moments, line_fit_from_result
+from ..stats.moments import group_moments, moments
 from ..stats.robust import ROW_METHODS, deming_moments
-from ..stats.schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS
+from ..stats.schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, is_moment_method
+from .phylogeny import add_phylo_columns
 
-__all__ = ["value_range", "fit_moment_rows", "row_method_fit", "fit_row", "blank_numbers",
-           "robust_n_boot", "nothing_estimable", "slope_tests", "with_note", "with_ranges"]
+__all__ = ["FitStage", "FitsTable", "fit_stage", "fits_table_stage", "value_range",
+           "fit_moment_rows", "row_method_fit", "blank_numbers", "robust_n_boot",
+           "nothing_estimable", "slope_tests", "with_note", "with_ranges"]
 
-#: The numeric columns of fits.csv read from a moment fit.
-_NUMBERS = ("slope", "slope_low", "slope_high", "intercept", "intercept_low",
-            "intercept_high", "r", "r2", "slope_se", "intercept_se", "resid_sd")
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FitStage:
+    """The pooled and per-group fits.
+
+    Attributes
+    ----------
+    rows : tuple of dict
+        fits.csv rows (estimable or not), pooled first, then the groups.
+    line_fits : dict
+        ``(scope, group, method) -> LineFit`` for the estimable ones.
+    point_sets : dict
+        ``("pooled", "")`` and ``("group", name)`` -> the points fitted.
+    notes : tuple of str
+    """
+
+    rows: tuple
+    line_fits: dict
+    point_sets: dict
+    notes: tuple = ()
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FitsTable:
+    """``fits.csv`` and ``slope_tests.csv`` as assembled from every fitting stage.
+
+    Attributes
+    ----------
+    fits, slope_tests : DataFrame
+    line_fits : dict
+        The estimable fits in the order of the fits table.
+    messages : tuple of str
+        The pooled exponents and their tests (they lead the findings).
+    method_messages : tuple of str
+        Whether the choice of line matters for these data.
+    """
+
+    fits: pd.DataFrame
+    slope_tests: pd.DataFrame
+    line_fits: dict
+    messages: tuple = ()
+    method_messages: tuple = ()
 
 
 def value_range(values: np.ndarray) -> tuple:
@@ -34,6 +84,62 @@ def value_range(values: np.ndarray) -> tuple:
 def robust_n_boot(cfg) -> int:
     """Resamples behind the robust lines' intervals: resampling.bootstrap, else 999."""
     return cfg.resampling.bootstrap or 999
+
+
+def fit_stage(cfg, state) -> FitStage:
+    """Fit every method to the pooled points and to each group (``state.data.points``)."""
+    base = state.base
+    pts = state.data.points
+    X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
+    rows: list[dict] = []
+    line_fits: dict = {}
+    notes: list[str] = []
+    pooled_m = moments(X, Y)
+    pooled_m = type(pooled_m)(**{k: np.atleast_1d(getattr(pooled_m, k)) for k in
+                                 ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
+    ranges = [(value_range(pts["x"].to_numpy()), value_range(pts["y"].to_numpy()))]
+    for method in cfg.model.methods:
+        if is_moment_method(method):
+            new_rows, new_fits = fit_moment_rows("pooled", [""], pooled_m, method, cfg, base,
+                                                 ranges)
+            rows += new_rows
+            line_fits.update(new_fits)
+        else:
+            row, fit = row_method_fit("pooled", "", method, pts, cfg, base)
+            rows.append(row)
+            if fit is not None:
+                line_fits[("pooled", "", method)] = fit
+    point_sets = {("pooled", ""): pts}
+    if state.data.has_groups:
+        codes, uniques = pd.factorize(pts["group"], sort=True)
+        group_names = [str(u) for u in uniques]
+        gm = group_moments(X, Y, codes, n_groups=len(group_names))
+        granges = []
+        for i in range(len(group_names)):
+            sel = codes == i
+            granges.append((value_range(pts["x"].to_numpy()[sel]),
+                            value_range(pts["y"].to_numpy()[sel])))
+        # rows of each group, split in one pass (not one scan of the table per group)
+        group_rows = {str(g): sub for g, sub in pts.groupby("group", sort=True)}
+        for method in cfg.model.methods:
+            if is_moment_method(method):
+                new_rows, new_fits = fit_moment_rows("group", group_names, gm, method, cfg,
+                                                     base, granges)
+                rows += new_rows
+                line_fits.update(new_fits)
+                continue
+            for g in group_names:
+                row, fit = row_method_fit("group", g, method, group_rows[g], cfg, base)
+                rows.append(row)
+                if fit is not None:
+                    line_fits[("group", g, method)] = fit
+        small = [g for g, n in zip(group_names, gm.n) if n < MIN_N]
+        if small:
+            notes.append(f"Group fits skipped for n < {MIN_N}: {', '.join(small)}.")
+        for g in group_names:
+            point_sets[("group", g)] = group_rows[g]
+    return FitStage(rows=tuple(rows), line_fits=line_fits, point_sets=point_sets,
+                    notes=tuple(notes))
 
 
 def fit_moment_rows(scope: str, groups: list, m, method: str, cfg, base, ranges):
@@ -54,29 +160,26 @@ def fit_moment_rows(scope: str, groups: list, m, method: str, cfg, base, ranges)
         res = fit_moments(m, method, confidence=cfg.model.confidence)
     rows, fits = [], {}
     for i, name in enumerate(groups):
-        (x_lo, x_hi), (y_lo, y_hi) = ranges[i]
-        row = {
-            "scope": scope, "group": name, "method": method, "n": int(m.n[i]),
-            **{k: float(res[k][i]) for k in _NUMBERS},
-            "log_base": base_label(base), "confidence": cfg.model.confidence,
-            "note": str(res["note"][i]),
-            "x_min": x_lo, "x_max": x_hi, "y_min": y_lo, "y_max": y_hi,
-            "interval_method": "analytic",
-            "deming_lambda": lam if method == "deming" else np.nan,
-        }
+        x_range, y_range = ranges[i]
+        row = fit_row(scope=scope, group=name, method=method, n=int(m.n[i]),
+                      **{k: float(res[k][i]) for k in ESTIMATE_COLUMNS},
+                      log_base=base_label(base), confidence=cfg.model.confidence,
+                      note=str(res["note"][i]), x_range=x_range, y_range=y_range,
+                      interval_method="analytic",
+                      deming_lambda=lam if method == "deming" else np.nan)
         rows.append(row)
         # Notes on estimable fits (unbounded interval, SMA of either sign,
         # exact power law) keep the fit.
         if np.isfinite(row["slope"]):
             fits[(scope, name, method)] = line_fit_from_result(
                 res, i, m[i], method, confidence=cfg.model.confidence, log_base=base,
-                x_range=(x_lo, x_hi), y_range=(y_lo, y_hi), lam=lam)
+                x_range=x_range, y_range=y_range, lam=lam)
     return rows, fits
 
 
 def blank_numbers(row: dict) -> dict:
     if row["note"] and not np.isfinite(row["slope"]):
-        for k in _NUMBERS:
+        for k in ESTIMATE_COLUMNS:
             row[k] = np.nan
     return row
 
@@ -102,21 +205,10 @@ def row_method_fit(scope: str, group: str, method: str, points: pd.DataFrame, cf
         if fit is not None and not np.isfinite(fit.slope):
             note, fit = fit.note or "the line could not be fitted", None
     if fit is not None:
-        return fit_row(scope, group, fit, (rng_x, rng_y)), fit
-    row = {c: np.nan for c in FIT_COLUMNS}
-    row.update({"scope": scope, "group": group, "method": method, "n": n,
-                "log_base": base_label(base), "confidence": cfg.model.confidence,
-                "note": note, "x_min": rng_x[0], "x_max": rng_x[1], "y_min": rng_y[0],
-                "y_max": rng_y[1], "interval_method": "bootstrap_percentile"})
-    return row, None
-
-
-def fit_row(scope: str, group: str, fit, ranges) -> dict:
-    (x_lo, x_hi), (y_lo, y_hi) = ranges
-    rec = fit.to_record()
-    rec.update({"scope": scope, "group": group, "n": fit.n,
-                "x_min": x_lo, "x_max": x_hi, "y_min": y_lo, "y_max": y_hi})
-    return rec
+        return fit_row(fit, scope=scope, group=group, x_range=rng_x, y_range=rng_y), fit
+    return fit_row(scope=scope, group=group, method=method, n=n, log_base=base_label(base),
+                   confidence=cfg.model.confidence, note=note, x_range=rng_x, y_range=rng_y,
+                   interval_method="bootstrap_percentile"), None
 
 
 def with_ranges(fit, ranges):
@@ -125,6 +217,34 @@ def with_ranges(fit, ranges):
 
 def with_note(fit, note):
     return replace(fit, note=note)
+
+
+def fits_table_stage(cfg, state) -> FitsTable:
+    """fits.csv and slope_tests.csv from ``state.rows``, ``state.line_fits`` and ``state.test_rows``.
+
+    Raises
+    ------
+    DataError
+        No line at all could be fitted (:func:`nothing_estimable` says why).
+    """
+    pts = state.data.points
+    rows = list(state.rows)
+    line_fits = state.line_fits
+    if not line_fits:
+        raise DataError(nothing_estimable(cfg, pts, rows, len(state.data.dropped)))
+    # Keep line_fits in the order of the fits table.
+    order = {(r["scope"], r["group"], r["method"]): i for i, r in enumerate(rows)}
+    line_fits = dict(sorted(line_fits.items(), key=lambda kv: order.get(kv[0], len(order))))
+    fits = pd.DataFrame([blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
+    if state.phylo is not None:
+        fits = add_phylo_columns(fits, state.phylo)
+    tests = slope_tests(line_fits, cfg)
+    if state.test_rows:
+        tests = pd.concat([tests, pd.DataFrame(list(state.test_rows),
+                                               columns=SLOPE_TEST_COLUMNS)], ignore_index=True)
+    return FitsTable(fits=fits, slope_tests=tests, line_fits=line_fits,
+                     messages=tuple(pooled_fit_messages(line_fits, cfg)),
+                     method_messages=tuple(line_method_messages(line_fits, cfg)))
 
 
 def nothing_estimable(cfg, pts: pd.DataFrame, rows: list, n_dropped: int) -> str:

@@ -3,26 +3,59 @@
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from ..stats.common_slope import common_slope_rows
+from ..stats.fit_rows import fit_row
 from ..stats.group_comparisons import compare_groups
 from ..stats.group_means import compared_groups, excluded_text, fit_group_means, group_means
-from ..stats.lines import MIN_N
+from ..stats.lines import MIN_N, base_label
 from ..stats.moments import moments
 from ..stats.robust import deming_from_moments
 from ..stats.schema import (GROUP_COMPARISON_METHODS, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS,
                      is_moment_method)
-from .fits import fit_row, row_method_fit, value_range, with_note, with_ranges
+from .fits import row_method_fit, value_range, with_note, with_ranges
 from ..render.wording import means_left_out_note, pairwise_skipped_note, uncompared_message
 
-__all__ = ["group_stage"]
+__all__ = ["GroupStage", "group_stage"]
 
 
-def group_stage(pts: pd.DataFrame, cfg, base):
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GroupStage:
+    """Group means, lines through the means, comparisons and the common slope.
+
+    Attributes
+    ----------
+    rows : tuple of dict
+        fits.csv rows: the lines through the group means, then the common
+        within-group slope of each compared method (scope ``common``).
+    line_fits : dict
+        ``("group_means", "", method) -> LineFit`` for the estimable ones.
+    point_sets : dict
+        ``("group_means", "")`` -> the group means, when they were fitted.
+    tables : dict
+        ``group_means``, ``group_tests``, ``pairwise_tests``.
+    test_rows : tuple of dict
+        slope_tests.csv rows of the common slopes.
+    messages, notes : tuple of str
+    """
+
+    rows: tuple
+    line_fits: dict
+    point_sets: dict
+    tables: dict
+    test_rows: tuple = ()
+    messages: tuple = ()
+    notes: tuple = ()
+
+
+def group_stage(cfg, state) -> GroupStage:
     """Group means, lines through the means, and comparisons of groups."""
-    rows, fits, g_tables, messages, notes = [], {}, {}, [], []
+    pts, base = state.data.points, state.base
+    rows, fits, g_tables, messages, notes, commons = [], {}, {}, [], [], {}
     X, Y, labels = pts["log_x"].to_numpy(), pts["log_y"].to_numpy(), pts["group"].to_numpy()
     means = group_means(X, Y, labels, n_rows=pts["n_rows"].to_numpy())
     frame = means.to_frame()
@@ -71,7 +104,7 @@ def group_stage(pts: pd.DataFrame, cfg, base):
                 fit = with_note(fit, f"{len(frame)} groups < {MIN_N}: no line through "
                                       "the group means"
                                       + (f"; {left_note}" if left_note else ""))
-            rows.append(fit_row("group_means", "", fit, ranges))
+            rows.append(fit_row(fit, scope="group_means", x_range=ranges[0], y_range=ranges[1]))
             if fit.estimable:
                 fits[("group_means", "", method)] = fit
     if cfg.groups.compare:
@@ -97,7 +130,7 @@ def group_stage(pts: pd.DataFrame, cfg, base):
             if comp.compared:
                 test_frames.append(comp.to_frame())
                 pair_frames.append(comp.pairwise_frame())
-                g_tables.setdefault("_common_slopes", {})[method] = comp.common
+                commons[method] = comp.common
         if uncompared:
             messages.append(uncompared_message(uncompared))
         g_tables["group_tests"] = (pd.concat(test_frames, ignore_index=True) if test_frames
@@ -105,4 +138,9 @@ def group_stage(pts: pd.DataFrame, cfg, base):
         pairs = [f for f in pair_frames if len(f)]
         g_tables["pairwise_tests"] = (pd.concat(pairs, ignore_index=True) if pairs
                                       else pd.DataFrame(columns=PAIRWISE_COLUMNS))
-    return rows, fits, means_points, g_tables, messages, notes
+    # scope "common": the common within-group slope of each compared method
+    common_rows, test_rows = common_slope_rows(commons, cfg.exponents, log_base=base_label(base))
+    point_sets = {("group_means", ""): means_points} if means_points is not None else {}
+    return GroupStage(rows=tuple(rows + common_rows), line_fits=fits, point_sets=point_sets,
+                      tables=g_tables, test_rows=tuple(test_rows), messages=tuple(messages),
+                      notes=tuple(notes))

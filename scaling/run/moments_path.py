@@ -2,12 +2,12 @@
 
 Two stages used by :func:`scaling.run.pipeline.analyse`:
 
-* :func:`use_moments_path` / :func:`analyse_moments` -- with ``engine: dask``,
+* :func:`use_moments_path` / :func:`moments_stage` -- with ``engine: dask``,
   or a data file larger than ``data.moments_above_mb``, the run never holds
-  the rows: :func:`scaling.run.engine.read_moments` reduces the file chunk by
+  the rows: :func:`scaling.run.table_moments.read_moments` reduces the file chunk by
   chunk (or Dask partition by partition) to per-group moments merged exactly
   (Chan, Golub & LeVeque 1983), and every OLS/SMA/MA fit, interval and slope
-  test follows from them (:func:`scaling.run.engine.fit_groups_from_moments`).
+  test follows from them (:func:`scaling.stats.grouped_fits.fit_groups_from_moments`).
   Stages that need the rows (residual diagnostics, smearing and the other
   accuracy figures, influence, row-based robust lines, bootstrap,
   permutations, the line through the group means and the group comparison
@@ -26,7 +26,7 @@ The plain-language sentences are small functions here (to move into
 
 from __future__ import annotations
 
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -35,13 +35,13 @@ import pandas as pd
 from ..errors import ConfigError, DataError
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
-from .engine import fit_groups_from_moments, read_moments
+from .table_moments import read_moments
+from ..stats.grouped_fits import fit_groups_from_moments
 from ..stats.lines import METHODS, describe_test, line_fit_from_moments, method_label, parse_log_base
-from ..io.output import manifest_header
 from ..stats.schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
 
-__all__ = ["use_moments_path", "analyse_moments", "spread_stage", "spread_sentence",
-           "SPREAD_METHODS"]
+__all__ = ["use_moments_path", "MomentsStage", "moments_stage", "SpreadStage", "spread_stage",
+           "spread_sentence", "bounded_diagnostics", "SPREAD_METHODS"]
 
 #: Line methods whose per-group exponents carry a standard error for the spread summary.
 SPREAD_METHODS = ("ols", "sma", "ma")
@@ -77,28 +77,31 @@ def _moments_path_sentence(reason: str, n_read: int, n_dropped: int, n_groups: i
 # summary across many groups
 
 
-def spread_stage(fits: pd.DataFrame, cfg) -> tuple[dict, list, list]:
-    """Random-effects summary of the group exponents, when there are many groups.
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SpreadStage:
+    """The summary across many groups.
 
-    Parameters
+    Attributes
     ----------
-    fits : DataFrame
-        The run's ``fits`` table.
-    cfg : Config
-
-    Returns
-    -------
     tables : dict
         ``exponent_spread`` (one row per method, :data:`scaling.stats.spread.SPREAD_COLUMNS`)
         and ``exponent_spread_tests`` (method x hypothesised exponent), or nothing
         when there are at most ``groups.spread_min`` groups.
-    messages, notes : list of str
+    messages, notes : tuple of str
     """
 
+    tables: dict
+    messages: tuple = ()
+    notes: tuple = ()
+
+
+def spread_stage(cfg, state) -> SpreadStage:
+    """Random-effects summary of the group exponents (``state.fits``), when there are many groups."""
+    fits = state.fits
     groups = fits.loc[fits["scope"] == "group", "group"]
     n_groups = int(groups.nunique())
     if n_groups <= cfg.groups.spread_min:
-        return {}, [], []
+        return SpreadStage(tables={})
     frames, tests, messages, notes = [], [], [], []
     word = f"groups ({cfg.data.group})" if cfg.data.group else "groups"
     for method in cfg.model.methods:
@@ -115,10 +118,10 @@ def spread_stage(fits: pd.DataFrame, cfg) -> tuple[dict, list, list]:
         tests.append(s.tests_frame())
         messages.append(spread_sentence(s, word))
     if not frames:
-        return {}, messages, notes
+        return SpreadStage(tables={}, messages=tuple(messages), notes=tuple(notes))
     tables = {"exponent_spread": pd.concat(frames, ignore_index=True)[SPREAD_COLUMNS],
               "exponent_spread_tests": pd.concat(tests, ignore_index=True)[SPREAD_TEST_COLUMNS]}
-    return tables, messages, notes
+    return SpreadStage(tables=tables, messages=tuple(messages), notes=tuple(notes))
 
 
 # --------------------------------------------------------------------------
@@ -186,13 +189,45 @@ def _sep(cfg) -> str:
     return max(counts, key=counts.get) if max(counts.values()) else ","
 
 
-def analyse_moments(cfg, reason: str):
+@dataclass(frozen=True, slots=True, kw_only=True)
+class MomentsStage:
+    """A whole run's fitting from per-group moments.
+
+    Attributes
+    ----------
+    config : Config
+        The run's config, with ``figures.kinds`` cut to the figures this path
+        can draw.
+    data : CleanData
+        ``points`` empty (no rows are kept), ``dropped`` empty.
+    fits, slope_tests : DataFrame
+        Equal to those of the ordinary run to rounding.
+    line_fits : dict
+        LineFits of the pooled lines only.
+    tables : dict
+        ``dropped_counts`` (``reason, rows``) and ``group_means``.
+    messages, notes : tuple of str
+    manifest : dict
+        The run's manifest entries of this path (``large_data``).
+    """
+
+    config: object
+    data: CleanData
+    fits: pd.DataFrame
+    slope_tests: pd.DataFrame
+    line_fits: dict
+    tables: dict
+    messages: tuple = ()
+    notes: tuple = ()
+    manifest: dict
+
+
+def moments_stage(cfg, reason: str) -> MomentsStage:
     """A whole run from per-group moments (the file is never held in memory).
 
-    Returns the fields of a :class:`scaling.run.pipeline.RunResult` whose ``fits`` and
-    ``slope_tests`` equal those of the ordinary run to rounding; ``data.points``
-    is empty (no rows are kept), ``dropped`` is empty and ``tables`` holds
-    ``dropped_counts`` (``reason, rows``) and ``group_means``.
+    The first and only fitting stage of its road: it starts from the config
+    and ``reason`` (why the road was taken, :func:`use_moments_path`), not
+    from a state, since no rows are ever held.
     """
 
     base = parse_log_base(cfg.model.log_base)
@@ -274,15 +309,13 @@ def analyse_moments(cfg, reason: str):
                      n_read=int(gm.n_read), units=dict(d.units), averaged_within=None,
                      n_rows_used=int(gm.moments.n.sum()))
     manifest = {
-        **manifest_header(cfg),
         "large_data": {"reason": reason, "engine": cfg.engine, "scheduler": cfg.scheduler,
                        "chunk_size": d.chunk_size, "rows_read": int(gm.n_read),
                        "rows_dropped": int(gm.n_dropped), "groups": gm.n_groups},
     }
-    # the fields of a pipeline.RunResult (built there: this module sits below pipeline)
-    return dict(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
-                dropped=data.dropped, line_fits=line_fits, tables=tables,
-                messages=tuple(messages), warnings=tuple(notes), manifest=manifest)
+    return MomentsStage(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
+                        line_fits=line_fits, tables=tables, messages=tuple(messages),
+                        notes=tuple(notes), manifest=manifest)
 
 
 # --------------------------------------------------------------------------
@@ -306,12 +339,3 @@ def bounded_diagnostics(line_fits: dict, point_sets: dict, cfg) -> tuple[dict, d
             "checked.")
     return fits, sets, [note]
 
-
-def finish(result):
-    """Add the summary across groups (:func:`spread_stage`) to a run's result."""
-    tables, messages, notes = spread_stage(result.fits, result.config)
-    if not (tables or messages or notes):
-        return result
-    return replace(result, tables={**result.tables, **tables},
-                   messages=tuple(result.messages) + tuple(messages),
-                   warnings=tuple(result.warnings) + tuple(notes))

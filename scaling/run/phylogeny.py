@@ -23,13 +23,14 @@ tree, calls it and phrases the result (its sentences will move to
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from ..stats.lines import base_label, describe_test, line_fit_from_moments, method_label
+from ..stats.fit_rows import fit_row
+from ..stats.lines import describe_test, line_fit_from_moments, method_label
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
 
 __all__ = ["PHYLO_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
@@ -58,28 +59,30 @@ class PhyloStage:
         The species points with a tip (what the phylogenetic lines were fitted to).
     dropped : DataFrame
         ``row, reason`` entries for species without a tip and pruned tips.
-    messages, notes : list of str
+    messages, notes : tuple of str
+        The sentences (lambda, the phylogenetic exponent and what the
+        correction changed against the pooled ordinary line) and the notes.
     """
 
-    rows: list
+    rows: tuple
     fits: dict
     line_fits: dict
     points: pd.DataFrame
     dropped: pd.DataFrame
-    messages: list = field(default_factory=list)
-    notes: list = field(default_factory=list)
+    messages: tuple = ()
+    notes: tuple = ()
 
 
-def phylo_stage(pts: pd.DataFrame, cfg, base) -> PhyloStage:
+def phylo_stage(cfg, state) -> PhyloStage:
     """Fit every requested OLS/SMA/MA line phylogenetically over ``cfg.data.tree``.
 
     Parameters
     ----------
-    pts : DataFrame
-        The run's points, one per species (column ``unit`` holds the species).
     cfg : Config
-    base : float or None
-        Log base of the run.
+    state : RunState
+        ``state.data.points`` holds the run's points, one per species (column
+        ``unit`` holds the species); ``state.line_fits`` the pooled ordinary
+        fits the phylogenetic ones are compared with.
 
     Raises
     ------
@@ -89,6 +92,7 @@ def phylo_stage(pts: pd.DataFrame, cfg, base) -> PhyloStage:
         fewer than 3 species match a tip.
     """
     dc = cfg.data
+    pts, base = state.data.points, state.base
     tree = read_newick(dc.tree)
     name = Path(dc.tree).name
     species = pts["unit"].astype(str).tolist()
@@ -107,7 +111,9 @@ def phylo_stage(pts: pd.DataFrame, cfg, base) -> PhyloStage:
     for method in [m for m in cfg.model.methods if m in PHYLO_METHODS]:
         fit = fit_phylo(x, y, tree, species, method=method, **kwargs)
         fits[method] = fit
-        rows.append(_row(fit, ranges))
+        rows.append(fit_row(fit, scope=PHYLO_SCOPE, x_range=ranges[0], y_range=ranges[1],
+                            interval_method="analytic", deming_lambda=np.nan,
+                            **_lambda_columns(fit)))
         if fit.estimable:
             line_fits[(PHYLO_SCOPE, "", method)] = line_fit_from_moments(
                 fit.moments, method, confidence=fit.confidence, log_base=base,
@@ -120,21 +126,21 @@ def phylo_stage(pts: pd.DataFrame, cfg, base) -> PhyloStage:
                      "the tree).")
     if len(dropped):
         notes.append(_drop_note(match, name, {_key(u): str(u) for u in pts["unit"]}))
-    return PhyloStage(rows=rows, fits=fits, line_fits=line_fits, points=used, dropped=dropped,
-                      notes=notes)
+    ordinary = {m: f for (s, g, m), f in state.line_fits.items() if s == "pooled"}
+    stage = PhyloStage(rows=tuple(rows), fits=fits, line_fits=line_fits, points=used,
+                       dropped=dropped, notes=tuple(notes))
+    return replace(stage, messages=tuple(phylo_messages(stage, ordinary, cfg,
+                                                        has_groups=state.data.has_groups)))
+
+
+def _lambda_columns(fit: PhyloFit) -> dict:
+    """The columns of :data:`PHYLO_FIT_COLUMNS` of one phylogenetic fit."""
+    return {"lambda": fit.lam, "lambda_low": fit.lam_ci.low, "lambda_high": fit.lam_ci.high,
+            "lambda_estimate": fit.lam_estimate, "loglik": fit.loglik, "aic": fit.aic}
 
 
 def _key(name) -> str:
     return " ".join(str(name).replace("_", " ").split())
-
-
-def _row(fit: PhyloFit, ranges) -> dict:
-    rec = fit.to_record()
-    (x_lo, x_hi), (y_lo, y_hi) = ranges
-    rec.update({"scope": PHYLO_SCOPE, "group": "", "x_min": x_lo, "x_max": x_hi,
-                "y_min": y_lo, "y_max": y_hi, "interval_method": "analytic",
-                "deming_lambda": np.nan})
-    return rec
 
 
 def _dropped(pts: pd.DataFrame, match, column: str, tree_name: str) -> pd.DataFrame:

@@ -4,48 +4,49 @@
 written); :func:`write_outputs` writes the output folder atomically;
 :func:`run_config` does both.  The CLI is a thin layer over these.
 
-This module only orchestrates.  The stages live in their own modules
-(``stage_fits``, ``stage_groups``, ``stage_predict``, ``stage_diagnostics``,
-``stage_resample``), the table columns and method facts in :mod:`scaling.stats.schema`,
-the sentences in :mod:`scaling.render.wording` and the file writing in
+This module only orchestrates.  Every stage is a function
+``stage(cfg, state) -> <its own frozen dataclass>`` in its own module
+(:mod:`~scaling.run.reading`, :mod:`~scaling.run.fits`,
+:mod:`~scaling.run.groups`, :mod:`~scaling.run.phylogeny`,
+:mod:`~scaling.run.predictions`, :mod:`~scaling.run.diagnostics`,
+:mod:`~scaling.run.points_to_check`, :mod:`~scaling.run.resampling`,
+:mod:`~scaling.run.several_predictors`, :mod:`~scaling.run.moments_path`);
+:func:`analyse` calls them in order, folds each result into the
+:class:`~scaling.run.state.RunState` and assembles the :class:`RunResult`.
+The table columns and method facts live in :mod:`scaling.stats.schema`, the
+sentences in :mod:`scaling.render.wording` and the file writing in
 :mod:`scaling.io.output`.
 """
 
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from ..io.config import Config, config_from_dict, load_config
-from ..io.tables import CleanData, load_data
-from ..stats._display import frame_html, short_repr
-from ..errors import DataError, ScalingWarning
-from ..stats.common_slope import common_slope_rows
-from ..stats.lines import MIN_N, base_label, parse_log_base
-from ..stats.moments import group_moments, moments
-from . import several_predictors as multi_stage
 from ..io.output import check_out_dir, manifest_header, results_document, write_outputs  # noqa: F401
+from ..io.tables import CleanData
 from ..render.figure_worker import start_worker
+from ..render.wording import CAUTION  # noqa: F401 (alias)
+from ..stats._display import frame_html, short_repr
 from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  # noqa: F401 (aliases)
-                     DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
-                     INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
-                     SLOPE_TEST_COLUMNS, is_moment_method)
+                            DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
+                            INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
+                            SLOPE_TEST_COLUMNS)
 from .diagnostics import diagnostics_stage, exponent_targets
-from .fits import (blank_numbers, fit_moment_rows, nothing_estimable, row_method_fit,
-                         slope_tests as make_slope_tests, value_range)
-from .points_to_check import check_run
-from .moments_path import analyse_moments, bounded_diagnostics, finish, use_moments_path
-from .phylogeny import add_phylo_columns, phylo_messages, phylo_stage
-from .prediction_lines import prediction_fits
+from .fits import fit_stage, fits_table_stage
 from .groups import group_stage
-from .predictions import accuracy_and_factors, add_accuracy_columns, prediction_stage
-from .resampling import bootstrap_stage, permutation_stage, resampling_manifest
-from ..render.wording import (CAUTION, dropped_note, line_method_messages,  # noqa: F401
-                      pooled_fit_messages, read_message)
+from .moments_path import moments_stage, spread_stage, use_moments_path
+from .phylogeny import phylo_stage
+from .points_to_check import check_run
+from .predictions import prediction_stage
+from .reading import read_stage
+from .resampling import resampling_stage
+from .several_predictors import several_stage
+from .state import RunState
 
 # The column lists, CAUTION, write_outputs and results_document are imported
 # from scaling.stats.schema / wording / output and stay importable from here (aliases).
@@ -77,6 +78,12 @@ class RunResult:
         Config, input hash, versions, time.
     out_dir : Path or None
         Where the files were written, once written.
+    saved_fits : dict
+        ``(scope, group, method) -> saved-fit dict`` (the fit with its
+        correction factors; ``saved_fits`` of results.json, read back by
+        ``scaling predict``).
+    multi_fit : MultiFit or None
+        The fit of several predictors, when ``data.x`` lists several columns.
     """
 
     config: Config
@@ -91,6 +98,8 @@ class RunResult:
     manifest: dict = field(default_factory=dict)
     out_dir: Path | None = None
     files: tuple = ()
+    saved_fits: dict = field(default_factory=dict)
+    multi_fit: object = None
 
     @property
     def group_means(self) -> pd.DataFrame | None:
@@ -106,7 +115,7 @@ class RunResult:
 
     def __repr__(self) -> str:
         return short_repr(self, {"title": self.config.title, "fits": len(self.fits),
-                                 "tables": tuple(k for k in self.tables if not k.startswith("_")),
+                                 "tables": tuple(self.tables),
                                  "out_dir": None if self.out_dir is None else str(self.out_dir)})
 
     def _repr_html_(self) -> str:
@@ -143,186 +152,93 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     cfg = config
     reason = use_moments_path(cfg)   # large data: the run reads per-group moments only
     if reason:
-        return finish(RunResult(**analyse_moments(cfg, reason)))
-    base = parse_log_base(cfg.model.log_base)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", ScalingWarning)
-        data = load_data(cfg.data, log_base=base)
-    data, units_message = multi_stage.apply_model_units(data, cfg, base)   # model.units
-    pts = data.points
-    X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
-    messages: list[str] = []
-    notes: list[str] = []
-    for w in caught:   # e.g. an exclude value matching nothing: a note of the run, and re-warned
-        if issubclass(w.category, ScalingWarning):
-            notes.append(str(w.message))
-        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-
-    n_dropped = len(data.dropped)
-    messages.append(read_message(data, cfg))
-    if n_dropped:
-        notes.append(dropped_note(n_dropped))
-    if units_message:
-        messages.append(units_message)
+        return _moments_run(cfg, reason)
+    read = read_stage(cfg)
+    state = RunState(data=read.data, base=read.base, quiet=quiet)
     if isinstance(cfg.data.x, tuple):   # several predictors: OLS stage of its own
-        return RunResult(**multi_stage.analyse_several(cfg, data, base, messages, notes))
+        return _several_run(cfg, state, read)
 
-    moment_methods = [m for m in cfg.model.methods if is_moment_method(m)]
-    row_methods = [m for m in cfg.model.methods if m not in moment_methods]
-
-    # Fitting stage: every fit computed once (moment lines for all groups at once).
-    rows: list[dict] = []
-    line_fits: dict = {}
-    pooled_m = moments(X, Y)
-    pooled_m = type(pooled_m)(**{k: np.atleast_1d(getattr(pooled_m, k)) for k in
-                                ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
-    ranges = [(value_range(pts["x"].to_numpy()), value_range(pts["y"].to_numpy()))]
-    for method in cfg.model.methods:
-        if method in moment_methods:
-            new_rows, new_fits = fit_moment_rows("pooled", [""], pooled_m, method, cfg, base,
-                                                 ranges)
-            rows += new_rows
-            line_fits.update(new_fits)
-        else:
-            row, fit = row_method_fit("pooled", "", method, pts, cfg, base)
-            rows.append(row)
-            if fit is not None:
-                line_fits[("pooled", "", method)] = fit
-
-    group_names: list[str] = []
-    if data.has_groups:
-        codes, uniques = pd.factorize(pts["group"], sort=True)
-        group_names = [str(u) for u in uniques]
-        gm = group_moments(X, Y, codes, n_groups=len(group_names))
-        granges = []
-        for i in range(len(group_names)):
-            sel = codes == i
-            granges.append((value_range(pts["x"].to_numpy()[sel]),
-                            value_range(pts["y"].to_numpy()[sel])))
-        for method in cfg.model.methods:
-            if method in moment_methods:
-                new_rows, new_fits = fit_moment_rows("group", group_names, gm, method, cfg,
-                                                     base, granges)
-                rows += new_rows
-                line_fits.update(new_fits)
-                continue
-            for g in group_names:
-                row, fit = row_method_fit("group", g, method, pts[pts["group"] == g], cfg, base)
-                rows.append(row)
-                if fit is not None:
-                    line_fits[("group", g, method)] = fit
-        small = [g for g, n in zip(group_names, gm.n) if n < MIN_N]
-        if small:
-            notes.append(f"Group fits skipped for n < {MIN_N}: {', '.join(small)}.")
-
-    # rows of each group, split in one pass (not one scan of the table per group)
-    group_rows = ({str(g): sub for g, sub in pts.groupby("group", sort=True)}
-                  if group_names else {})
-    tables: dict = {}
-    point_sets = {("pooled", ""): pts}
-    for g in group_names:
-        point_sets[("group", g)] = group_rows[g]
-
-    g_messages: list[str] = []
-    common_test_rows: list = []
-    if data.has_groups:
-        group_rows, group_fits, means_points, g_tables, g_messages, g_notes = \
-            group_stage(pts, cfg, base)
-        rows += group_rows
-        line_fits.update(group_fits)
-        tables.update(g_tables)
-        # scope "common": the common within-group slope of each compared method
-        common_fit_rows, common_test_rows = common_slope_rows(
-            tables.get("_common_slopes", {}), cfg.exponents, log_base=base_label(base))
-        rows += common_fit_rows
-        notes += g_notes
-        if means_points is not None:
-            point_sets[("group_means", "")] = means_points
-
-    phylo = None
-    if cfg.data.tree is not None:   # phylogenetic lines: scaling/phylo_stage.py
-        phylo = phylo_stage(pts, cfg, base)
-        rows += phylo.rows
-        line_fits.update(phylo.line_fits)
-        notes += phylo.notes
-
-    if not line_fits:
-        raise DataError(nothing_estimable(cfg, pts, rows, n_dropped))
-
-    # Keep line_fits in the order of the fits table.
-    order = {(r["scope"], r["group"], r["method"]): i for i, r in enumerate(rows)}
-    line_fits = dict(sorted(line_fits.items(), key=lambda kv: order.get(kv[0], len(order))))
-
-    fits = pd.DataFrame([blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
+    fitted = fit_stage(cfg, state)
+    state = replace(state, rows=fitted.rows, line_fits=fitted.line_fits,
+                    point_sets=fitted.point_sets)
+    grouped = group_stage(cfg, state) if read.data.has_groups else None
+    if grouped is not None:
+        state = replace(state, rows=state.rows + grouped.rows, test_rows=grouped.test_rows,
+                        line_fits={**state.line_fits, **grouped.line_fits},
+                        point_sets={**state.point_sets, **grouped.point_sets},
+                        tables={**state.tables, **grouped.tables})
+    phylo = phylo_stage(cfg, state) if cfg.data.tree is not None else None
     if phylo is not None:
-        fits = add_phylo_columns(fits, phylo)
-    slope_tests = make_slope_tests(line_fits, cfg)
-    if common_test_rows:
-        slope_tests = pd.concat([slope_tests, pd.DataFrame(common_test_rows,
-                                 columns=SLOPE_TEST_COLUMNS)], ignore_index=True)
+        state = replace(state, rows=state.rows + phylo.rows, phylo=phylo,
+                        line_fits={**state.line_fits, **phylo.line_fits})
+    table = fits_table_stage(cfg, state)
+    state = replace(state, fits=table.fits, slope_tests=table.slope_tests,
+                    line_fits=table.line_fits)
+    predicted = prediction_stage(cfg, state)
+    state = replace(state, fits=predicted.fits, saved_fits=predicted.saved_fits,
+                    tables={**state.tables, **predicted.tables})
+    diagnosed = diagnostics_stage(cfg, state) if cfg.diagnostics.enabled else None
+    if diagnosed is not None:
+        state = replace(state, tables={**state.tables, **diagnosed.tables})
+    checked = check_run(cfg, state)
+    state = replace(state, tables={**state.tables, "points_to_check": checked.table})
+    resampled = resampling_stage(cfg, state)
+    state = replace(state, slope_tests=resampled.slope_tests,
+                    tables={**state.tables, **resampled.tables})
+    spread = spread_stage(cfg, state)
 
-    # Prediction stage: accuracy and correction factors per fit, then predictions.
-    saved, extra_cols = accuracy_and_factors(line_fits, point_sets)
-    fits = add_accuracy_columns(fits, extra_cols)
-    fits = multi_stage.constant_columns(fits, data.units, base)   # term, a, a_low, a_high, a_unit
-    predicting, pred_notes0 = prediction_fits(saved, cfg)   # which lines predict (default OLS)
-    pred_tables, pred_notes = prediction_stage(line_fits, predicting, cfg)
-    pred_notes = pred_notes0 + pred_notes
-    tables.update(pred_tables)
-    notes += pred_notes
-    tables["_saved_fits"] = saved
+    def said(*stages, field_name):
+        return tuple(t for stage in stages if stage is not None
+                     for t in getattr(stage, field_name))
 
-    messages += pooled_fit_messages(line_fits, cfg)
-    lead = line_fits.get(("pooled", "", cfg.model.primary))
-    if lead is not None:   # the normalisation constant a of the primary line, with its units
-        a_line = multi_stage.constant_sentence(lead, data.units, base, cfg.model.confidence)
-        if a_line:
-            messages.append(a_line)
-    messages += multi_stage.prediction_sentences(tables, cfg, data.units)
-
-    if phylo is not None:
-        messages += phylo_messages(phylo, {m: f for (s, g, m), f in line_fits.items()
-                                           if s == "pooled"}, cfg, has_groups=data.has_groups)
-    messages += g_messages
-
-    # Diagnostics stage: is the power law, its error structure and its line right?
-    if cfg.diagnostics.enabled:
-        d_fits, d_sets, d_note = bounded_diagnostics(line_fits, point_sets, cfg)
-        notes += d_note
-        d_tables, d_messages = diagnostics_stage(d_fits, d_sets, cfg)
-        tables.update(d_tables)
-        messages += d_messages
-    messages += line_method_messages(line_fits, cfg)
-    # graded points to check: strong warnings first
-    tables["points_to_check"], check_notes = check_run(cfg, line_fits, point_sets, fits, tables)
-    notes = check_notes + notes
-
-    # Resampling stage: bootstrap intervals and permutation p-values.
-    resampling = resampling_manifest(cfg, row_methods, data)
-    if cfg.resampling.bootstrap:
-        boot, b_messages, b_notes = bootstrap_stage(line_fits, point_sets, cfg, moment_methods,
-                                                     quiet=quiet)
-        tables["bootstrap"] = boot
-        messages += b_messages
-        notes += b_notes
-    if cfg.resampling.permutations:
-        slope_tests, p_messages = permutation_stage(slope_tests, line_fits, point_sets, cfg)
-        messages += p_messages
-
+    messages = (read.messages + table.messages + predicted.messages
+                + said(phylo, grouped, diagnosed, field_name="messages")
+                + table.method_messages + resampled.messages + spread.messages)
+    notes = (checked.notes + read.notes + fitted.notes
+             + said(grouped, phylo, predicted, diagnosed, resampled, spread,
+                    field_name="notes"))
     manifest = {
         **manifest_header(cfg),
-        "resampling": resampling,
+        "resampling": resampled.manifest,
         "diagnostics": {"enabled": cfg.diagnostics.enabled, "alpha": cfg.diagnostics.alpha,
                         "error_structure": cfg.diagnostics.error_structure,
                         "exponent_at": list(exponent_targets(cfg))},
         "deming_lambda": cfg.model.deming_lambda if "deming" in cfg.model.methods else None,
     }
-    return finish(RunResult(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
-                     dropped=data.dropped[DROPPED_COLUMNS] if phylo is None else pd.concat(
-                         [data.dropped[DROPPED_COLUMNS], phylo.dropped], ignore_index=True),
-                     line_fits=line_fits,
-                     tables=tables, messages=tuple(messages), warnings=tuple(notes),
-                     manifest=manifest))
+    dropped = state.data.dropped[DROPPED_COLUMNS]
+    if phylo is not None:
+        dropped = pd.concat([dropped, phylo.dropped], ignore_index=True)
+    return RunResult(config=cfg, data=state.data, fits=state.fits,
+                     slope_tests=state.slope_tests, dropped=dropped,
+                     line_fits=state.line_fits, tables={**state.tables, **spread.tables},
+                     messages=messages, warnings=notes, manifest=manifest,
+                     saved_fits=state.saved_fits)
+
+
+def _several_run(cfg, state: RunState, read) -> RunResult:
+    """The run when ``data.x`` lists several predictors (no spread across groups)."""
+    several = several_stage(cfg, state)
+    return RunResult(config=cfg, data=state.data, fits=several.fits,
+                     slope_tests=several.slope_tests,
+                     dropped=state.data.dropped[DROPPED_COLUMNS], line_fits={},
+                     tables=several.tables, messages=read.messages + several.messages,
+                     warnings=read.notes + several.notes,
+                     manifest={**manifest_header(cfg), **several.manifest},
+                     saved_fits=several.saved_fits, multi_fit=several.multi_fit)
+
+
+def _moments_run(cfg, reason: str) -> RunResult:
+    """The run from per-group moments (large data), with the spread across groups."""
+    path = moments_stage(cfg, reason)
+    cfg = path.config   # figures cut to those this path draws
+    state = RunState(data=path.data, base=None, fits=path.fits)
+    spread = spread_stage(cfg, state)
+    return RunResult(config=cfg, data=path.data, fits=path.fits,
+                     slope_tests=path.slope_tests, dropped=path.data.dropped,
+                     line_fits=path.line_fits, tables={**path.tables, **spread.tables},
+                     messages=path.messages + spread.messages,
+                     warnings=path.notes + spread.notes,
+                     manifest={**manifest_header(cfg), **path.manifest})
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,

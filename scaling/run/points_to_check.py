@@ -9,15 +9,15 @@
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
-import numpy as np
 import pandas as pd
 
 from ..errors import ScalingError
 from ..render.headline import primary_method as primary_method_of
 from ..stats.lines import method_label
 
-__all__ = ["POINTS_TO_CHECK_COLUMNS", "primary_method", "check_run"]
+__all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
 from ..stats.influence import fit_checks, points_to_check
@@ -35,27 +35,32 @@ def _scope_words(scope: str, group: str) -> str:
     return {"pooled": "pooled", "group_means": "group-means"}.get(scope, f"group {group}")
 
 
-def check_run(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame,
-              tables: dict) -> tuple:
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PointsToCheck:
+    """The ``points_to_check`` table and the warnings it adds to the run."""
+
+    table: pd.DataFrame
+    notes: tuple = ()
+
+
+def check_run(cfg, state) -> PointsToCheck:
     """The ``points_to_check`` table and the warnings for one run.
 
     Parameters
     ----------
     cfg : Config
-    line_fits : dict
-        ``(scope, group, method) -> LineFit``.
-    point_sets : dict
-        ``(scope, group) -> DataFrame`` with ``log_x, log_y, row`` (and
-        ``unit``, ``group`` when present).
-    fits : DataFrame
-        The fits table with ``smearing_factor`` and ``parametric_factor``.
-    tables : dict
-        The run's tables so far (``predictions`` is read when present).
-
-    Returns
-    -------
-    (DataFrame, list of str)
+    state : RunState
+        Reads ``line_fits`` (``(scope, group, method) -> LineFit``),
+        ``point_sets`` (``(scope, group) -> DataFrame`` with ``log_x, log_y,
+        row`` and ``unit``, ``group`` when present), ``fits`` (with
+        ``smearing_factor`` and ``parametric_factor``) and ``tables``
+        (``predictions`` when present).
     """
+    table, warn = _check(cfg, state.line_fits, state.point_sets, state.fits, state.tables)
+    return PointsToCheck(table=table, notes=tuple(warn))
+
+
+def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: dict) -> tuple:
     alpha = cfg.diagnostics.alpha
     records, warn = [], []
     preds = tables.get("predictions")

@@ -1,27 +1,92 @@
 """The prediction stage of a run: accuracy and correction factors per fit, predictions.
 
-The correction factors of every fit are computed once here (on the fit's own
-points), stored in the saved-fit dictionaries (``RunResult.tables["_saved_fits"]``,
-written to results.json) and in fits.csv, and passed on to the predictions
-and to the figures; nothing computes them again.
+:func:`prediction_stage` computes the correction factors of every fit once
+(on the fit's own points), stores them in the saved-fit dictionaries
+(``RunResult.saved_fits``, written to results.json) and in fits.csv, and
+passes them on to the predictions and to the figures; nothing computes them
+again.  It adds the accuracy, correction-factor and normalisation-constant
+columns to fits.csv and writes predictions.csv and inverse_predictions.csv.
+
+Which lines predict
+    :func:`prediction_fits` keeps the fits of ``prediction.methods``, by
+    default OLS (the line that estimates y from x); symmetric lines (SMA,
+    MA, ...) predict only when asked, with a note.
+
+range_ratio
+    For a value v and the fitted range [lo, hi] of the fit that made the
+    prediction: ``v / hi`` above the range, ``lo / v`` below it, 1 inside
+    (so 2 means twice the largest, or half the smallest, fitted value).  For
+    ``predictions.csv`` v is the requested x and the range that of x; for
+    ``inverse_predictions.csv`` v is the given y and the range that of y.
+    With log_base none (data already logs), the ratio is base-free: 1 +
+    distance outside the range / range width.
 """
 
 from __future__ import annotations
 
 import math
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
-from ..stats.lines import fit_to_dict, to_log
+from ..render.wording import (range_warning, scope_words, symmetric_prediction_note,
+                              unbounded_inverse_note)
+from ..stats.lines import fit_to_dict, is_symmetric, to_log
 from ..stats.predictions import accuracy, data_factors, inverse_predict, predict, saved_factor
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
-from .prediction_lines import add_range_ratio
-from ..render.wording import (scope_words,
-                      unbounded_inverse_note)
+from .several_predictors import constant_columns, constant_sentence, prediction_sentences
 
-__all__ = ["accuracy_and_factors", "add_accuracy_columns", "prediction_stage"]
+__all__ = ["PredictionStage", "prediction_stage", "accuracy_and_factors",
+           "add_accuracy_columns", "factors_by_group", "prediction_methods",
+           "prediction_fits", "range_ratio", "add_range_ratio"]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PredictionStage:
+    """Correction factors, the completed fits table and the predictions.
+
+    Attributes
+    ----------
+    fits : DataFrame
+        fits.csv with the accuracy, correction-factor and constant columns.
+    saved_fits : dict
+        ``(scope, group, method) -> saved-fit dict`` (with smearing and ratio
+        factors) of every fit evaluated on its points.
+    tables : dict
+        ``predictions`` and ``inverse_predictions`` when asked for.
+    messages, notes : tuple of str
+    """
+
+    fits: pd.DataFrame
+    saved_fits: dict
+    tables: dict
+    messages: tuple = ()
+    notes: tuple = ()
+
+
+def prediction_stage(cfg, state) -> PredictionStage:
+    """Factors per fit, the fits table's extra columns, and predictions for the config's values.
+
+    Reads ``state.line_fits``, ``state.point_sets``, ``state.fits`` (the
+    assembled fits table) and ``state.data.units``.
+    """
+    units, base = state.data.units, state.base
+    saved, extra = accuracy_and_factors(state.line_fits, state.point_sets)
+    fits = add_accuracy_columns(state.fits, extra)
+    fits = constant_columns(fits, units, base)   # term, a, a_low, a_high, a_unit
+    predicting, choice_notes = prediction_fits(saved, cfg)   # which lines predict (default OLS)
+    tables, notes = _predictions(state.line_fits, predicting, cfg)
+    messages = []
+    lead = state.line_fits.get(("pooled", "", cfg.model.primary))
+    if lead is not None:   # the normalisation constant a of the primary line, with its units
+        a_line = constant_sentence(lead, units, base, cfg.model.confidence)
+        if a_line:
+            messages.append(a_line)
+    messages += prediction_sentences(tables, cfg, units)
+    return PredictionStage(fits=fits, saved_fits=saved, tables=tables,
+                           messages=tuple(messages), notes=tuple(choice_notes + notes))
 
 
 def _extra_of(fit, x, y) -> dict:
@@ -172,8 +237,8 @@ def _tagged(prediction, scope: str, group: str, method: str) -> pd.DataFrame:
     return f
 
 
-def prediction_stage(line_fits: dict, saved: dict, cfg):
-    """predictions.csv (and inverse_predictions.csv) for the config's values."""
+def _predictions(line_fits: dict, saved: dict, cfg):
+    """predictions.csv (and inverse_predictions.csv) for the config's values, and notes."""
     pc = cfg.prediction
     rows, inv_rows, notes, unbounded = [], [], [], []
     with warnings.catch_warnings():
@@ -197,11 +262,105 @@ def prediction_stage(line_fits: dict, saved: dict, cfg):
         if not wanted:
             continue
         keep = columns[:-1]   # range_ratio, the last column, is added here
-        table = pd.concat(parts, ignore_index=True)[keep] if parts else \
-            pd.DataFrame(columns=keep)
+        table = (pd.concat(parts, ignore_index=True)[keep] if parts
+                 else pd.DataFrame(columns=keep))
         table, range_notes = add_range_ratio(table, saved, role)
         tables[name] = table
         notes += range_notes
     if pc.y and unbounded:
         notes.append(unbounded_inverse_note(unbounded, pc.interval, cfg.model.confidence))
     return tables, notes
+
+
+# --------------------------------------------------------------------------
+# which lines predict, and how far outside the fitted range
+
+
+def prediction_methods(cfg, fitted: list) -> tuple:
+    """The methods whose lines make predictions.
+
+    ``prediction.methods`` if given; else OLS if it was fitted; else the
+    first method fitted.
+    """
+    asked = tuple(getattr(cfg.prediction, "methods", ()) or ())
+    if asked:
+        return asked
+    if "ols" in fitted or not fitted:
+        return ("ols",)
+    return (fitted[0],)
+
+
+def prediction_fits(saved: dict, cfg) -> tuple:
+    """The saved fits that predict, and the notes about that choice."""
+    fitted = list(dict.fromkeys(m for (_, _, m) in saved))
+    chosen = prediction_methods(cfg, fitted)
+    keep = {k: d for k, d in saved.items() if k[2] in chosen}
+    notes = []
+    if not (cfg.prediction.x or cfg.prediction.y):
+        return keep, notes
+    symmetric = [m for m in chosen if m in fitted and _symmetric(m)]
+    if symmetric:
+        notes.append(symmetric_prediction_note(symmetric))
+    missing = [m for m in chosen if m not in fitted]
+    if missing:
+        notes.append(f"prediction.methods asks for {', '.join(missing)}, which model.methods "
+                     "does not fit (or could not fit); no predictions from "
+                     f"{'it' if len(missing) == 1 else 'them'}.")
+    return keep, notes
+
+
+def _symmetric(method: str) -> bool:
+    try:
+        return bool(is_symmetric(method))
+    except Exception:   # an unknown name is not symmetric
+        return False
+
+
+def range_ratio(values, low, high, *, logs: bool = False) -> np.ndarray:
+    """How far outside [low, high] each value lies (1 inside); see the module notes."""
+    v = np.asarray(values, dtype=float)
+    lo = np.asarray(low, dtype=float)
+    hi = np.asarray(high, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if logs:
+            width = np.where(hi > lo, hi - lo, 1.0)
+            out = np.where(v > hi, 1 + (v - hi) / width,
+                           np.where(v < lo, 1 + (lo - v) / width, 1.0))
+        else:
+            out = np.where(v > hi, v / hi, np.where(v < lo, lo / v, 1.0))
+    return np.where(np.isfinite(lo) & np.isfinite(hi), out, np.nan)
+
+
+def add_range_ratio(table: pd.DataFrame, saved: dict, role: str) -> tuple:
+    """``table`` with a ``range_ratio`` column, and the warning naming the fitted range.
+
+    Parameters
+    ----------
+    table : DataFrame
+        predictions (``role="x"``) or inverse predictions (``role="y"``) with
+        ``scope, group, method`` columns.
+    saved : dict
+        ``(scope, group, method) -> saved-fit dict`` with ``x_range``,
+        ``y_range`` and ``log_base``.
+    """
+    out = table.copy()
+    if not len(out):
+        out["range_ratio"] = pd.Series(dtype=float)
+        return out, []
+    lo, hi, logs = [], [], []
+    for r in out.itertuples(index=False):
+        d = saved.get((r.scope, r.group, r.method), {})
+        rng = d.get(f"{role}_range") or (np.nan, np.nan)
+        lo.append(rng[0])
+        hi.append(rng[1])
+        logs.append(d.get("log_base") in (None, "none"))
+    out["range_ratio"] = range_ratio(out[role].to_numpy(float), lo, hi,
+                                     logs=bool(all(logs)))
+    outside = out["range_ratio"] > 1
+    notes = []
+    if outside.any():
+        what = "predictions" if role == "x" else "inverse predictions (given y)"
+        notes.append(range_warning(int(outside.sum()), len(out), float(np.nanmin(lo)),
+                                   float(np.nanmax(hi)), float(out["range_ratio"].max()),
+                                   what=what, role=role))
+    return out, notes

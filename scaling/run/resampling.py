@@ -2,23 +2,71 @@
 
 bootstrap.csv from :func:`scaling.stats.resampling.bootstrap_lines` (every moment line
 at once, stratified by group); ``p_permutation`` / ``n_perm`` added to
-slope_tests.csv from :func:`scaling.stats.resampling.permutation_slope_test`.
+slope_tests.csv from :func:`scaling.stats.resampling.permutation_slope_test`;
+:func:`resampling_stage` runs both as the config asks.
 """
 
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from ..stats.resampling import bootstrap_lines, permutation_slope_test
-from ..stats.schema import BOOTSTRAP_COLUMNS
+from ..stats.schema import BOOTSTRAP_COLUMNS, is_moment_method
 from .fits import robust_n_boot
 from ..render.wording import (bootstrap_means_note, bootstrap_message, bootstrap_unstratified_note,
                       permutation_message)
 
-__all__ = ["bootstrap_stage", "permutation_stage", "resampling_manifest"]
+__all__ = ["ResamplingStage", "resampling_stage", "bootstrap_table", "permutation_p_values",
+           "resampling_manifest"]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ResamplingStage:
+    """Bootstrap intervals and permutation p-values.
+
+    Attributes
+    ----------
+    slope_tests : DataFrame
+        The run's slope tests, with ``p_permutation`` and ``n_perm`` when
+        ``resampling.permutations`` is set (else unchanged).
+    tables : dict
+        ``bootstrap`` when ``resampling.bootstrap`` is set.
+    messages, notes : tuple of str
+    manifest : dict
+        What was resampled, how and with which seed.
+    """
+
+    slope_tests: pd.DataFrame
+    tables: dict
+    messages: tuple = ()
+    notes: tuple = ()
+    manifest: dict
+
+
+def resampling_stage(cfg, state) -> ResamplingStage:
+    """Bootstrap every moment line and permute every slope test, as the config asks."""
+    methods = cfg.model.methods
+    moment_methods = [m for m in methods if is_moment_method(m)]
+    row_methods = [m for m in methods if m not in moment_methods]
+    tables, messages, notes = {}, [], []
+    slope_tests = state.slope_tests
+    if cfg.resampling.bootstrap:
+        boot, b_messages, b_notes = bootstrap_table(state.line_fits, state.point_sets, cfg,
+                                                    moment_methods, quiet=state.quiet)
+        tables["bootstrap"] = boot
+        messages += b_messages
+        notes += b_notes
+    if cfg.resampling.permutations:
+        slope_tests, p_messages = permutation_p_values(slope_tests, state.line_fits,
+                                                       state.point_sets, cfg)
+        messages += p_messages
+    return ResamplingStage(slope_tests=slope_tests, tables=tables, messages=tuple(messages),
+                           notes=tuple(notes),
+                           manifest=resampling_manifest(cfg, row_methods, state.data))
 
 
 def resampling_manifest(cfg, row_methods: list, data) -> dict:
@@ -34,8 +82,8 @@ def resampling_manifest(cfg, row_methods: list, data) -> dict:
     }
 
 
-def bootstrap_stage(line_fits: dict, point_sets: dict, cfg, moment_methods: list,
-                     *, quiet: bool):
+def bootstrap_table(line_fits: dict, point_sets: dict, cfg, moment_methods: list,
+                    *, quiet: bool):
     """bootstrap.csv: bootstrap intervals of every moment-method fit."""
     rs = cfg.resampling
     messages, notes = [], []
@@ -94,7 +142,7 @@ def bootstrap_stage(line_fits: dict, point_sets: dict, cfg, moment_methods: list
     return table, messages, notes
 
 
-def permutation_stage(slope_tests: pd.DataFrame, line_fits: dict, point_sets: dict, cfg):
+def permutation_p_values(slope_tests: pd.DataFrame, line_fits: dict, point_sets: dict, cfg):
     """Add p_permutation and n_perm to the slope tests; one plain sentence."""
     rs = cfg.resampling
     out = slope_tests.copy()

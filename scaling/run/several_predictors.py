@@ -7,7 +7,7 @@
   table: the normalisation constant a = base^intercept of y = a x^b, its
   interval base^(intercept bounds) in natural units, and its unit
   [y]·[x]^-b (see :mod:`scaling.stats.units`).
-* :func:`analyse_several` is the whole run when ``data.x`` lists several
+* :func:`several_stage` is the whole fitting when ``data.x`` lists several
   columns: OLS of log y on the logs (:func:`scaling.stats.several_predictors.fit_multi`), the
   exponent tests, the combined-term test, bias-corrected predictions with
   intervals and, with ``prediction.total``, the total over the new rows.
@@ -17,23 +17,20 @@ Sentences for the report are small functions here (to move to wording.py).
 
 from __future__ import annotations
 
-
 import math
 import warnings
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
 
 from ..errors import DataError, ExtrapolationWarning, ScalingError
 from ..stats.lines import base_label, method_label
-from ..io.output import manifest_header
-from ..stats.schema import DROPPED_COLUMNS
 from ..stats.units import conversion_factor, normalisation_constant
 from ..stats.several_predictors import fit_multi, multi_fit_to_dict
 
-__all__ = ["apply_model_units", "constant_columns", "analyse_several", "exponent_hypotheses",
-           "MULTI_SLOPE_TEST_COLUMNS"]
+__all__ = ["apply_model_units", "constant_columns", "SeveralStage", "several_stage",
+           "exponent_hypotheses", "MULTI_SLOPE_TEST_COLUMNS"]
 
 MULTI_SLOPE_TEST_COLUMNS = ["scope", "group", "method", "term", "hypothesis", "exponent",
                             "estimate", "statistic", "statistic_type", "df", "p_value"]
@@ -259,19 +256,53 @@ def total_sentence(total, y_unit: str) -> str:
             f"see prediction_total.csv{flag}).")
 
 
-def analyse_several(cfg, data, base, messages: list, notes: list):
-    """The run for several predictors; returns a :class:`scaling.run.pipeline.RunResult`.
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SeveralStage:
+    """The fit of several predictors and what follows from it.
 
-    Tables: ``fits`` (one row per term, ``term`` column, ``a, a_low,
-    a_high, a_unit``), ``slope_tests`` (``term`` column; one row per term
-    and hypothesis), ``combined_term`` (``model.combined``), ``predictions``
-    (new rows, natural units, intervals) and ``prediction_total``
-    (``prediction.total``).
+    Attributes
+    ----------
+    fits : DataFrame
+        One row per term (``term`` column; ``a, a_low, a_high, a_unit``).
+    slope_tests : DataFrame
+        ``term`` column; one row per term and hypothesis.
+    tables : dict
+        ``combined_term`` (``model.combined``), ``predictions`` (new rows,
+        natural units, intervals) and ``prediction_total`` (``prediction.total``).
+    multi_fit : MultiFit
+    saved_fits : dict
+        ``("pooled", "", "ols") -> saved-fit dict`` (for ``scaling predict``).
+    messages, notes : tuple of str
+        The plot total, when asked for, leads the messages.
+    manifest : dict
+        The run's manifest entries of this stage (``predictors``).
     """
+
+    fits: pd.DataFrame
+    slope_tests: pd.DataFrame
+    tables: dict
+    multi_fit: object
+    saved_fits: dict
+    messages: tuple = ()
+    notes: tuple = ()
+    manifest: dict
+
+
+def several_stage(cfg, state) -> SeveralStage:
+    """Fit log y on the logs of every column of ``data.x`` (OLS), test, predict.
+
+    Raises
+    ------
+    DataError
+        No log base, or fewer usable rows than predictors + 2.
+    """
+    data, base = state.data, state.base
     if base is None:
         raise DataError(f"{cfg.data.file}: several predictors need model.log_base 10, e or 2")
     pts = data.points
-    head = len(messages)   # the plot total, when asked for, leads the summary
+    messages: list[str] = []
+    notes: list[str] = []
+    head = 0   # the plot total, when asked for, leads the summary
     names = cfg.data.x_columns
     k = len(names)
     if len(pts) < k + 2:
@@ -304,7 +335,7 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
     slope_tests = pd.DataFrame(test_rows, columns=MULTI_SLOPE_TEST_COLUMNS)
     # saved for 'scaling predict' (results.json "saved_fits"): predictions without the data
     saved = {**multi_fit_to_dict(fit), "scope": "pooled", "group": ""}
-    tables: dict = {"_multi_fit": fit, "_saved_fits": {("pooled", "", "ols"): saved}}
+    tables: dict = {}
     comb = cfg.model.combined
     if comb is not None:
         c = fit.test_combined(comb["weights"], exponent=comb["exponent"],
@@ -318,8 +349,8 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
             warnings.simplefilter("always", ExtrapolationWarning)
             pred = fit.predict(new[list(names)], correction=pc.correction,
                                interval=pc.interval)
-            total = fit.predict_total(new[list(names)], correction=pc.correction) \
-                if pc.total else None
+            total = (fit.predict_total(new[list(names)], correction=pc.correction)
+                     if pc.total else None)
         frame = pred.to_frame()
         for c in new.columns:
             if c not in names:
@@ -335,15 +366,9 @@ def analyse_several(cfg, data, base, messages: list, notes: list):
             messages.insert(head, total_sentence(total, units.get("y", "")))
     messages.append(f"  Residual SD (log{base_label(base)}) {fit.resid_sd:.4f}; "
                     f"adjusted r² {fit.adj_r2:.3f}; smearing factor {fit.factors['smearing']:.4f}.")
-    manifest = {
-        **manifest_header(cfg),
-        "predictors": list(names),
-    }
-    # the fields of a pipeline.RunResult (built there: this module sits below pipeline)
-    return dict(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
-                dropped=data.dropped[DROPPED_COLUMNS], line_fits={},
-                tables=tables, messages=tuple(messages), warnings=tuple(notes),
-                manifest=manifest)
+    return SeveralStage(fits=fits, slope_tests=slope_tests, tables=tables, multi_fit=fit,
+                        saved_fits={("pooled", "", "ols"): saved}, messages=tuple(messages),
+                        notes=tuple(notes), manifest={"predictors": list(names)})
 
 
 def prediction_sentences(tables: dict, cfg, units: dict, *, most: int = 6) -> list:

@@ -1,0 +1,186 @@
+"""Per-group moments of a table in memory or on disk, in bounded memory.
+
+The road of large tables joins two floors: :mod:`scaling.io.chunked` reads
+and cleans the rows a chunk at a time (csv through pandas or pyarrow,
+parquet through pyarrow, Dask partitions), and
+:mod:`scaling.stats.grouped_fits` reduces each cleaned chunk to per-group
+moments merged exactly (Chan, Golub & LeVeque 1983) and fits every group at
+once.  :func:`frame_moments` and :func:`read_moments` do both;
+:func:`fit_frame` adds the fits.
+
+Memory is bounded by the chunk size plus a few arrays of length G (groups).
+Dask is optional (``pip install 'scaling[dask]'``); without a ``scheduler``
+it runs on Dask's local threaded scheduler, with an address
+(``"tcp://host:8786"``) it connects a ``dask.distributed`` client to that
+cluster.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+
+from ..errors import DataError
+from ..io.chunked import (check_chunk_size, check_column, check_reading, clean_chunk,
+                          dask_compute, dask_partitions, file_kind, files_of, frame_chunks,
+                          read_chunks)
+from ..stats.grouped_fits import (GroupedMoments, GroupFits, MomentAccumulator,
+                                  combine_summaries, fit_groups_from_moments,
+                                  summarise_rows, summary_frame)
+from ..stats.logscale import parse_log_base
+
+__all__ = ["frame_moments", "read_moments", "fit_frame"]
+
+
+def _no_rows(where: str, result: GroupedMoments) -> None:
+    if result.n_read == 0:
+        raise DataError(f"{where}: has no data rows under the header line")
+    if float(result.pooled.n[0]) == 0:
+        common = (max(result.dropped, key=result.dropped.get) if result.dropped
+                  else "the table is empty")
+        raise DataError(f"{where}: no usable rows: all {result.n_read} data rows were "
+                        f"dropped (most common reason: {common})")
+
+
+def _feed(acc: MomentAccumulator, part: pd.DataFrame, x, y, group, base, decimal) -> None:
+    c = clean_chunk(part, x, y, group, decimal)
+    acc.add_counts(c.counts, c.n_rows, c.n_dropped)
+    acc.add_rows(c.labels, c.codes, c.x, c.y, c.bad, base)
+
+
+def frame_moments(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
+                  log_base=10, chunk_size: int | None = None,
+                  decimal: str = ".") -> GroupedMoments:
+    """Per-group moments of an in-memory table.
+
+    Parameters
+    ----------
+    df : DataFrame
+    x, y : str
+        Columns of the predictor and response, in natural units (or logs
+        with ``log_base=None``).
+    group : str, optional
+        Column of group names; without it every row is one group named "".
+    log_base : {10, "e", 2, None}
+    chunk_size : int, optional
+        Walk the table in slices of this many rows (bounds the temporary
+        memory); the result equals the unchunked one up to rounding.
+    decimal : str
+        Decimal mark of numbers stored as text.
+
+    Returns
+    -------
+    GroupedMoments
+
+    Raises
+    ------
+    DataError
+        A column is missing, or no row is usable.
+    """
+    base = parse_log_base(log_base)
+    for name, key in ((x, "x"), (y, "y")) + (((group, "group"),) if group else ()):
+        check_column(df.columns, name, key, "table")
+    acc = MomentAccumulator()
+    for part in frame_chunks(df, chunk_size):
+        _feed(acc, part, x, y, group, base, decimal)
+    result = acc.result(base)
+    _no_rows("table", result)
+    return result
+
+
+def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
+                 chunk_size: int = 1_000_000, engine: str = "pandas",
+                 reader: str = "pandas", scheduler: str | None = None, sep: str = ",",
+                 decimal: str = ".") -> GroupedMoments:
+    """Per-group moments of a csv or parquet file, read in chunks.
+
+    Parameters
+    ----------
+    path : str or Path
+        A csv/tsv file, a parquet file, or (Dask) a folder or glob of them.
+    x, y, group, log_base, decimal
+        As for :func:`frame_moments`.
+    chunk_size : int
+        Rows per chunk (pandas engine) or per Dask partition (approximately,
+        through ``blocksize`` for csv; parquet partitions follow row groups).
+    engine : {"pandas", "dask"}
+        Read chunk by chunk in this process, or let Dask compute the
+        per-partition summaries.
+    reader : {"pandas", "pyarrow"}
+        csv parser of the pandas engine (parquet always uses pyarrow).
+        ``pyarrow`` is faster but needs numeric x and y columns.
+    scheduler : str, optional
+        Dask only: ``"threads"``, ``"processes"``, ``"synchronous"``, or the
+        address of a ``dask.distributed`` scheduler (``"tcp://host:8786"``).
+        Default: Dask's local threaded scheduler.
+    sep : str
+        csv field separator.
+
+    Returns
+    -------
+    GroupedMoments
+
+    Notes
+    -----
+    Memory is bounded by one chunk plus O(G) arrays; chunks are merged by
+    :func:`scaling.stats.moments.merge_moments` (Chan, Golub & LeVeque 1983), Dask
+    partitions by :func:`scaling.stats.moments.combine_moments`.
+    """
+    path = Path(path)
+    base = parse_log_base(log_base)
+    check_reading(engine, reader, scheduler)
+    chunk_size = check_chunk_size(chunk_size)
+    kind = file_kind(path)
+    columns = [x, y] + ([group] if group else [])
+    if engine == "dask":
+        result = _dask_moments(path, kind, columns, x, y, group, base, chunk_size,
+                               scheduler, sep, decimal)
+    else:
+        acc = MomentAccumulator()
+        for file in files_of(path, kind):
+            for part in read_chunks(file, kind, columns, chunk_size, reader, sep, decimal):
+                _feed(acc, part, x, y, group, base, decimal)
+        result = acc.result(base)
+    _no_rows(str(path), result)
+    return result
+
+
+def _partition_summary(pdf: pd.DataFrame, x, y, group, base, decimal):
+    """Per-group moments of one Dask partition (a small table) and its drop counts."""
+    pdf.columns = [str(c).strip() for c in pdf.columns]
+    c = clean_chunk(pdf, x, y, group, decimal)
+    frame = summary_frame(*summarise_rows(c.labels, c.codes, c.x, c.y, c.bad, base))
+    return frame, c.counts, len(pdf), c.n_dropped
+
+
+def _dask_moments(path, kind, columns, x, y, group, base, chunk_size, scheduler, sep,
+                  decimal) -> GroupedMoments:
+    partitions = dask_partitions(path, kind, columns, chunk_size, sep, decimal)
+    import dask   # dask_partitions has checked that it is installed
+    tasks = [dask.delayed(_partition_summary)(part, x, y, group, base, decimal)
+             for part in partitions]
+    parts = dask_compute(tasks, scheduler)
+    counts: dict[str, int] = {}
+    n_read = n_dropped = 0
+    frames = []
+    for frame, c, n_rows, n_drop in parts:        # one small item per partition
+        frames.append(frame)
+        n_read += n_rows
+        n_dropped += n_drop
+        for reason, k in c.items():
+            counts[reason] = counts.get(reason, 0) + k
+    return combine_summaries(frames, n_read=n_read, counts=counts, n_dropped=n_dropped,
+                             base=base)
+
+
+def fit_frame(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
+              methods=("ols", "sma", "ma"), confidence: float = 0.95, exponents=None,
+              log_base=10, chunk_size: int | None = None, pooled: bool = False) -> GroupFits:
+    """:func:`frame_moments` then :func:`~scaling.stats.grouped_fits.fit_groups_from_moments`.
+
+    One call, any table size; the engine behind :func:`scaling.fit_groups`.
+    """
+    gm = frame_moments(df, x=x, y=y, group=group, log_base=log_base, chunk_size=chunk_size)
+    return fit_groups_from_moments(gm, methods=methods, confidence=confidence,
+                                   exponents=exponents, pooled=pooled)
