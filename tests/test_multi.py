@@ -24,8 +24,9 @@ from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError, DataError, ExtrapolationWarning
 from scaling.stats.several_predictors import (CombinedTermTest, MultiFit, MultiPrediction, TotalPrediction,
-                           _ols_core, _scatter_variance, _total_bounds, check_methods,
+                           _ols_core, _scatter_variance, _total_bounds,
                            fit_multi)
+from scaling.stats.schema import check_methods
 from scaling.stats.predictions import correction_factor
 
 

@@ -29,7 +29,7 @@ __all__ = [
     "PREDICTION_COLUMNS", "INVERSE_COLUMNS", "DIAGNOSTIC_COLUMNS", "INFLUENCE_COLUMNS",
     "ERROR_STRUCTURE_COLUMNS", "CURVATURE_COLUMNS", "BOOTSTRAP_COLUMNS", "POINTS_TO_CHECK_COLUMNS", "TABLE_COLUMNS",
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
-    "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice",
+    "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice", "fraction_value", "check_methods",
 ]
 
 
@@ -290,3 +290,76 @@ def check_choice(value, options, name: str) -> str:
     if not isinstance(value, str) or value not in options:
         raise ConfigError(f"{name} must be one of {', '.join(options)}, not {value!r}")
     return value
+
+
+# --------------------------------------------------------------------------
+# reading values the way people write them, and what several predictors allow
+
+
+def fraction_value(value):
+    """A fraction written as text ("3/4") as its float; any other value unchanged.
+
+    How people write exponents; the config and :func:`~scaling.stats.lines.exponent_value`
+    both read them here.
+
+    Raises
+    ------
+    ValueError
+        If ``value`` is text with a "/" that is not a number over a non-zero number.
+
+    Examples
+    --------
+    >>> fraction_value("3/4"), fraction_value(0.75), fraction_value("1")
+    (0.75, 0.75, '1')
+    """
+    if not (isinstance(value, str) and "/" in value):
+        return value
+    num, _, den = value.partition("/")
+    try:
+        return float(num) / float(den)
+    except (ValueError, ZeroDivisionError):
+        raise ValueError(f"cannot read {value!r} as a fraction") from None
+
+
+def check_methods(methods, n_predictors: int, *, key: str = "model.methods") -> tuple:
+    """Refuse line methods that cannot take several predictors.
+
+    Only OLS fits several predictors; SMA, MA and the other lines are bivariate.
+
+    Parameters
+    ----------
+    methods : sequence of str
+        The methods asked for (e.g. ``config.model.methods``).
+    n_predictors : int
+        Number of predictors (columns in ``data.x``).
+    key : str
+        Key path named in the message.
+
+    Returns
+    -------
+    tuple of str
+        ``methods`` unchanged when allowed.
+
+    Raises
+    ------
+    ConfigError
+        When ``n_predictors > 1`` and any method other than ``ols`` is asked for.
+
+    Examples
+    --------
+    >>> check_methods(["ols"], 2)
+    ('ols',)
+    >>> check_methods(["ols", "sma"], 2)
+    Traceback (most recent call last):
+    ...
+    scaling.errors.ConfigError: model.methods: sma is a single-predictor method; with 2 predictors only ols can be fitted (set model.methods: [ols])
+    """
+    methods = tuple(methods)
+    if n_predictors > 1:
+        bad = [m for m in methods if m != "ols"]
+        if bad:
+            verb = ("is a single-predictor method" if len(bad) == 1
+                    else "are single-predictor methods")
+            raise ConfigError(f"{key}: {', '.join(bad)} {verb}; with {n_predictors} "
+                              "predictors only ols can be fitted (set model.methods: [ols])")
+    return methods
