@@ -28,8 +28,10 @@ from ..stats.groups import common_slope_rows
 from ..stats.lines import MIN_N, base_label, parse_log_base
 from ..stats.moments import group_moments, moments
 from . import several_predictors as multi_stage
-from ..io.output import check_out_dir, manifest_header, results_document, write_outputs  # noqa: F401
-from ..render.figure_worker import start_worker
+from ..io import output
+from ..io.output import check_out_dir, manifest_header, results_document  # noqa: F401
+from ..render.figure_worker import draw_figures, start_worker
+from ..render.report import write_report
 from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  # noqa: F401 (aliases)
                      DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
                      INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
@@ -323,6 +325,18 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                      line_fits=line_fits,
                      tables=tables, messages=tuple(messages), warnings=tuple(notes),
                      manifest=manifest))
+
+
+def write_outputs(result: RunResult, out_dir, *, force: bool = False, worker=None) -> RunResult:
+    """Write the output folder (:func:`scaling.io.output.write_outputs`) with the figures,
+    report and caution of :mod:`scaling.render`.  ``worker``: a
+    :class:`~scaling.render.figure_worker.FigureWorker` started with the run draws the
+    figures; without one (or when it cannot) they are drawn here."""
+    def figures(res, folder):
+        drawn = worker.draw(res, folder) if worker is not None else None
+        return drawn if drawn is not None else draw_figures(res, folder)
+    return output.write_outputs(result, out_dir, force=force, draw_figures=figures,
+                                write_report=write_report, caution=CAUTION)
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,
