@@ -51,9 +51,6 @@ KNOWN_LONG = {
 KNOWN_BACKSLASHES = {
     'scaling/api.py': 3,
     'scaling/render/figures.py': 3,
-    'scaling/render/headline.py': 5,
-    'scaling/render/report.py': 4,
-    'scaling/render/wording.py': 2,
     'scaling/run/diagnostics.py': 1,
     'scaling/run/engine.py': 5,
     'scaling/run/groups.py': 3,
