@@ -33,7 +33,7 @@ _EXPORTS: dict[str, str] = {
     "exponent_spread": "stats.spread", "ExponentSpread": "stats.spread",
     # runs and saved results
     "run_config": "run.pipeline", "RunResult": "run.pipeline",
-    "load_results": "io.saved",
+    "load_results": "run.saved_predictions",
     # prediction
     "predict": "stats.predictions", "inverse_predict": "stats.predictions",
     "accuracy": "stats.predictions",

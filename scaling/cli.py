@@ -225,7 +225,7 @@ def _init_example(args) -> int:
 
 
 def _cmd_predict(args) -> int:
-    from .io.saved import predict_command
+    from .run.saved_predictions import predict_command
     return predict_command(args)
 
 

@@ -216,3 +216,79 @@ class TestDiagnosticsResamplingAndDemingKeys:
         with pytest.raises(ConfigError, match=r"diagnosticks: unknown key; did you mean "
                                                r"'diagnostics'\?"):
             load_config(write_config(MINIMAL + "diagnosticks: {}\n"))
+
+
+class TestDefaultsWrittenOnce:
+    """Each key's default is written once, in the schema table; the dataclasses read it."""
+
+    # where a key lands on the config object when it is not the field of the same name
+    FIELD = {("prediction", "from"): "from_file"}
+
+    def test_a_minimal_config_gets_every_documented_default(self, tmp_path):
+        # internal consistency: the value a config from {data: {file, x, y}} holds for
+        # each key equals the schema's default (a rule's default: the rule applied to the
+        # section's defaults)
+        from scaling.io import config as module
+        cfg = config_from_dict({"data": {"file": "d.csv", "x": "mass", "y": "rate"}},
+                               base_dir=tmp_path)
+        checked = 0
+        for section, keys in module._SCHEMA.items():
+            held = getattr(cfg, section)
+            plain = {k: d for k, (_, d) in keys.items() if not isinstance(d, module._Rule)}
+            for key, (_, default) in keys.items():
+                if default is module._REQUIRED:
+                    continue
+                got = getattr(held, self.FIELD.get((section, key), key))
+                if isinstance(default, module._Rule):
+                    default = default.resolve(plain)
+                elif (section, key) == ("output", "dir"):   # None: results/<stem>
+                    default = (tmp_path / "results" / "scaling").resolve()
+                assert got == default, f"{section}.{key}"
+                checked += 1
+        for key, (_, default) in module._TOP_SCHEMA.items():
+            assert getattr(cfg, key) == default, key
+            checked += 1
+        required = 3                                   # data.file, data.x, data.y
+        assert checked == (sum(len(k) for k in module._SCHEMA.values()) - required
+                           + len(module._TOP_SCHEMA))
+
+    def test_the_two_rules_give_what_the_run_uses(self, write_config):
+        # internal consistency: the default methods (ols, sma, ma) lead with SMA, and an
+        # unset lambda is 1 (equal error variances on the log scales)
+        cfg = load_config(write_config(MINIMAL))
+        assert cfg.model.primary == "sma" and cfg.model.deming_lambda == 1.0
+        cfg = load_config(write_config(MINIMAL + "model: {methods: [ols, ma]}\n"))
+        assert cfg.model.primary == "ma"
+        cfg = load_config(write_config(MINIMAL + "model: {methods: [theil_sen, ols]}\n"))
+        assert cfg.model.primary == "ols"
+        cfg = load_config(write_config(MINIMAL + "model: {primary: null, methods: [siegel]}\n"))
+        assert cfg.model.primary == "siegel"
+
+    def test_dataclass_defaults_are_the_schema_defaults(self):
+        # internal consistency: every field default of a section's dataclass is its key's
+        from dataclasses import MISSING, fields
+
+        from scaling.io import config as module
+        classes = {"data": module.DataConfig, "model": module.ModelConfig,
+                   "groups": module.GroupsConfig, "prediction": module.PredictionConfig,
+                   "figures": module.FiguresConfig, "diagnostics": module.DiagnosticsConfig,
+                   "resampling": module.ResamplingConfig}
+        for section, cls in classes.items():
+            for f in fields(cls):
+                key = {"from_file": "from"}.get(f.name, f.name)
+                if key not in module._SCHEMA[section]:
+                    continue          # prediction.x_table: filled from a mapping prediction.x
+                default = module._SCHEMA[section][key][1]
+                value = (f.default if f.default is not MISSING else
+                         f.default_factory() if f.default_factory is not MISSING else
+                         module._REQUIRED)
+                if isinstance(default, module._Rule):
+                    assert value is module._REQUIRED, f"{section}.{key}"
+                else:
+                    assert value == default or value is default, f"{section}.{key}"
+
+    def test_a_mapping_default_is_not_shared_between_configs(self, write_config):
+        a = load_config(write_config(MINIMAL))
+        b = load_config(write_config(MINIMAL))
+        assert a.model.phylogeny == b.model.phylogeny == {"lambda": "ml"}
+        assert a.model.phylogeny is not b.model.phylogeny

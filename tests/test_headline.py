@@ -78,6 +78,41 @@ class TestExponentWords:
         assert exponent_words("x", 0.8) == "0.8"
 
 
+class TestOnePFormatter:
+    """Every p written in words goes through render.wording.format_p: three decimals from
+    0.01 up, two significant digits below, "< 0.0001" below 0.0001 (common practice, no
+    source; formatting only, exact strings)."""
+
+    def test_the_convention(self):
+        from scaling.render.wording import format_p, p_text
+        assert [format_p(p) for p in (0.7304, 0.052, 0.0042, 0.00042, 0.00002)] == [
+            "0.730", "0.052", "0.0042", "0.00042", "< 0.0001"]
+        assert p_text(0.052) == "p = 0.052" and p_text(3e-9) == "p < 0.0001"
+        assert p_text(float("nan")) == "p = n/a"
+
+    def test_headline_verdicts_use_it(self):
+        from scaling.render.headline import _short_verdict
+        assert _short_verdict(0.9, 0.75, 0.00042, 0.05) == "above (p = 0.00042)"
+        assert _short_verdict(0.9, 0.75, 1e-9, 0.05) == "above (p < 0.0001)"
+        assert _short_verdict(0.76, 0.75, 0.41, 0.05) == "not different (p = 0.410)"
+
+    def test_several_predictor_sentences_use_it(self):
+        from types import SimpleNamespace
+
+        from scaling.run.several_predictors import combined_sentence, exponent_sentence
+        test = SimpleNamespace(term="diameter", estimate=2.31, exponent=2.0, statistic=3.9,
+                               p_value=0.00042)
+        assert "t = 3.90, p = 0.00042 (differs)" in exponent_sentence("cylinder", [test], 0.05)
+        test.p_value = 2e-7
+        assert "p < 0.0001 (differs)" in exponent_sentence("cylinder", [test], 0.05)
+        ci = SimpleNamespace(low=0.98, high=1.03)
+        combined = SimpleNamespace(confidence=0.95, p_value=0.0042, label="D^2 H",
+                                   exponent=1.004, exponent_ci=ci, hypothesis=1.0,
+                                   t_p_value=0.73, f_statistic=8.1, df_num=1, df_den=117)
+        text = combined_sentence(combined, 0.05)
+        assert "vs 1: p = 0.730;" in text and "(1, 117) df, p = 0.0042:" in text
+
+
 class TestBuildHeadline:
     def test_one_group_gives_the_exponent_and_its_tests(self, tmp_path):
         table = _groups(1, [0.75], [1.0], [0.3], n=40).drop(columns="taxon")

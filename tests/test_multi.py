@@ -24,8 +24,9 @@ from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError, DataError, ExtrapolationWarning
 from scaling.stats.several_predictors import (CombinedTermTest, MultiFit, MultiPrediction, TotalPrediction,
-                           _ols_core, _scatter_variance, _total_bounds, check_methods,
+                           _ols_core, _scatter_variance, _total_bounds,
                            fit_multi)
+from scaling.stats.schema import check_predictor_methods
 from scaling.stats.predictions import correction_factor
 
 
@@ -147,17 +148,17 @@ class TestFitMulti:
 
 class TestCheckMethods:
     def test_ols_alone_passes_with_several_predictors(self):
-        assert check_methods(["ols"], 3) == ("ols",)  # common practice, no source
+        assert check_predictor_methods(["ols"], 3) == ("ols",)  # common practice, no source
 
     def test_any_method_passes_with_one_predictor(self):
-        assert check_methods(["ols", "sma", "ma"], 1) == ("ols", "sma", "ma")
+        assert check_predictor_methods(["ols", "sma", "ma"], 1) == ("ols", "sma", "ma")
 
     def test_single_predictor_methods_are_refused_naming_the_key(self):
         with pytest.raises(ConfigError, match=r"model\.methods: sma, ma are single-predictor "
                                               r"methods; with 2 predictors only ols"):
-            check_methods(["ols", "sma", "ma"], 2)
+            check_predictor_methods(["ols", "sma", "ma"], 2)
         with pytest.raises(ConfigError, match=r"^cfg\.m: sma is a single-predictor method"):
-            check_methods(["sma"], 2, key="cfg.m")
+            check_predictor_methods(["sma"], 2, key="cfg.m")
 
 
 class TestExponentTests:

@@ -198,7 +198,7 @@ class TestRunFiles:
     def test_predict_from_saved_robust_fit(self, extended):
         # Internal consistency: predict() on the LineFit itself (the saved dict must rebuild it).
         from scaling.stats.predictions import predict
-        from scaling.io.saved import predict_from_dict
+        from scaling.run.saved_predictions import predict_from_dict
         _, wide = extended
         saved = wide.saved_fits[("pooled", "", "sma_robust")]
         fit = wide.line_fits[("pooled", "", "sma_robust")]

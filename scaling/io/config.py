@@ -8,6 +8,7 @@ Paths in the config are resolved against the folder of the config file.
 
 from __future__ import annotations
 
+import copy
 import difflib
 import math
 from dataclasses import dataclass, field
@@ -17,7 +18,8 @@ from typing import Any, Callable
 import yaml
 
 from ..stats.schema import (BOOT_INTERVALS, CATALOGUE, CORRECTIONS, FIGURE_FORMATS, FIGURE_KINDS,
-                     FIGURE_SIZES, INTERVALS, LOG_BASES, METHOD_NAMES, MOMENT_METHODS)
+                            FIGURE_SIZES, INTERVALS, LOG_BASES, METHOD_NAMES, MOMENT_METHODS,
+                            check_predictor_methods, fraction_value)
 from ..errors import ConfigError
 
 __all__ = [
@@ -32,124 +34,6 @@ __all__ = [
 MOMENT_METHOD_NAMES = MOMENT_METHODS
 # Symmetric lines, in the order model.primary prefers (from the catalogue).
 SYMMETRIC_METHOD_NAMES = tuple(m.name for m in CATALOGUE.values() if m.symmetric)
-
-_REQUIRED = object()
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class DataConfig:
-    file: Path
-    x: str | tuple       # one column, or a tuple of columns (several predictors, OLS)
-    y: str
-    sheet: int | str = 0
-    skip_rows: int = 0
-    units_row: bool = False
-    delimiter: str = "auto"
-    decimal: str = "."
-    encoding: str = "utf-8"
-    group: str | None = None
-    average_within: str | None = None
-    exclude: dict = field(default_factory=dict)   # column -> tuple of values
-    units: dict = field(default_factory=dict)     # {"x": "g", "y": "mW"}; x a tuple with several x
-    tree: Path | None = None        # Newick file: phylogenetic fits (scaling/phylo_stage.py)
-    species: str | None = None      # column naming the tips of the tree
-    chunk_size: int = 1_000_000       # rows per chunk on the large-data (moments) path
-    moments_above_mb: float = 100.0   # files larger than this take the moments path
-
-    @property
-    def x_columns(self) -> tuple:
-        """The predictor column(s) as a tuple (one name for a single predictor)."""
-        return self.x if isinstance(self.x, tuple) else (self.x,)
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class ModelConfig:
-    log_base: str = "10"
-    methods: tuple = ("ols", "sma", "ma")
-    confidence: float = 0.95
-    deming_lambda: float = 1.0          # var(error in log y) / var(error in log x)
-    error_variances: dict = field(default_factory=dict)   # {"x": .., "y": ..} as given
-    # the method whose line leads the headline: given, else the first symmetric method
-    # requested, else OLS (else the first method)
-    primary: str = "sma"
-    phylogeny: dict = field(default_factory=lambda: {"lambda": "ml"})   # used with data.tree
-    units: dict = field(default_factory=dict)     # fit in these units: {"x": "kg", "y": "W"}
-    combined: dict | None = None  # {"weights": {col: w}, "exponent": 1.0} (several x)
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class GroupsConfig:
-    compare: bool = True
-    fit_group_means: bool = True
-    weight_means: bool = False
-    pairwise_max: int = 20
-    spread_min: int = 20              # more groups than this: summary across groups
-    spread_tau2: str = "reml"         # reml | dl
-    spread_interval: str = "z"        # z | knapp_hartung
-    diagnostics_max: int = 200        # more groups than this: no per-group diagnostics
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class PredictionConfig:
-    x: tuple = ()
-    y: tuple = ()            # inverse prediction: x from these y values
-    correction: str = "smearing"
-    interval: str = "prediction"
-    methods: tuple = ()      # lines that predict; () = OLS (else the first method fitted)
-    x_table: dict = field(default_factory=dict)   # several x: column -> tuple of values
-    from_file: Path | None = None   # prediction.from: a CSV of new rows (several x)
-    total: bool = False             # several x: also the total over the new rows
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class FiguresConfig:
-    formats: tuple = ("png",)
-    kinds: tuple = FIGURE_KINDS
-    size: str = "single"
-    dpi: int = 300
-    labels: dict = field(default_factory=dict)    # {"x": "Body mass", "y": "..."}
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class OutputConfig:
-    dir: Path
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class DiagnosticsConfig:
-    enabled: bool = True
-    alpha: float = 0.05
-    error_structure: bool = True
-    exponent_at: tuple = ()       # local-exponent targets; () = the exponents' values
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class ResamplingConfig:
-    bootstrap: int = 0            # resamples; 0 = off
-    interval: str = "bca"         # percentile | bca
-    permutations: int = 0         # permutations per slope test; 0 = off
-    seed: int = 1
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class Config:
-    """A whole validated configuration (every key is listed in the README)."""
-
-    title: str
-    data: DataConfig
-    model: ModelConfig
-    exponents: dict            # name -> float, in the order given
-    groups: GroupsConfig
-    prediction: PredictionConfig
-    figures: FiguresConfig
-    output: OutputConfig
-    diagnostics: DiagnosticsConfig = field(default_factory=DiagnosticsConfig)
-    resampling: ResamplingConfig = field(default_factory=ResamplingConfig)
-    engine: str = "pandas"         # pandas | dask (dask: the moments path)
-    scheduler: str | None = None   # dask only: None (local) or a scheduler address
-    source: Path | None = None     # the config file, if read from one
-    raw: dict = field(default_factory=dict)   # the mapping as read, for the manifest
-
 
 # --------------------------------------------------------------------------
 # small typed readers; each takes (value, path) and raises _Bad on failure
@@ -168,8 +52,8 @@ def _describe(value) -> str:
 
 def _suggest(word, options) -> str:
     close = difflib.get_close_matches(str(word), [str(o) for o in options], n=1, cutoff=0.5)
-    return f"; did you mean '{close[0]}'?" if close else \
-        f"; choose from {', '.join(map(str, options))}"
+    return (f"; did you mean '{close[0]}'?" if close
+            else f"; choose from {', '.join(map(str, options))}")
 
 
 def _string(value, path, *, allow_empty=False) -> str:
@@ -340,12 +224,10 @@ def _exponents(value, path):
 
 
 def _exponent_value(value, path) -> float:
-    if isinstance(value, str) and "/" in value:
-        num, _, den = value.partition("/")
-        try:
-            value = float(num) / float(den)
-        except (ValueError, ZeroDivisionError):
-            raise _Bad(path, f"cannot read {value!r} as a fraction") from None
+    try:
+        value = fraction_value(value)
+    except ValueError as exc:
+        raise _Bad(path, str(exc)) from None
     return _number(value, path)
 
 
@@ -376,13 +258,13 @@ def _error_variances(value, path):
 def _phylogeny(value, path):
     """model.phylogeny: {lambda: ml | reml | a number in [0, 1]}."""
     if value is None:
-        return {"lambda": "ml"}
+        return dict(_PHYLOGENY)
     if not isinstance(value, dict):
         raise _Bad(path, "expected a mapping like {lambda: ml}")
     for key in value:
         if key != "lambda":
             raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, ('lambda',))}")
-    lam = value.get("lambda", "ml")
+    lam = value.get("lambda", _PHYLOGENY["lambda"])
     where = f"{path}.lambda"
     if isinstance(lam, str):
         text = lam.strip().lower()
@@ -499,9 +381,8 @@ def _check_several_x(sections, exponents) -> None:
     data, model, pred = sections["data"], sections["model"], sections["prediction"]
     xs = data["x"]
     k = len(xs)
-    from ..stats.several_predictors import check_methods
     try:
-        check_methods(model["methods"], k, key="model.methods")
+        check_predictor_methods(model["methods"], k, key="model.methods")
     except ConfigError as exc:
         raise _Bad("model.methods", str(exc).split(": ", 1)[1]) from None
     for key in ("group", "average_within"):
@@ -585,7 +466,35 @@ def _check_single_x(sections, exponents) -> None:
 
 
 # --------------------------------------------------------------------------
-# the schema: section -> key -> (reader, default)
+# the schema: section -> key -> (reader, default).  Each default is written here
+# once; the config dataclasses below take their field defaults from this table.
+
+_REQUIRED = object()
+
+
+@dataclass(frozen=True, slots=True)
+class _Rule:
+    """A default worked out from the other keys of its section when the config is read."""
+
+    text: str                        # the rule in words (as the README states it)
+    resolve: Callable[[dict], Any]   # the section as read -> the value
+
+
+def _first_symmetric(model: dict) -> str:
+    return next((m for m in model["methods"] if m in SYMMETRIC_METHOD_NAMES),
+                "ols" if "ols" in model["methods"] else model["methods"][0])
+
+
+def _lambda_from_variances(model: dict) -> float:
+    ev = model["error_variances"]
+    return ev["y"] / ev["x"] if ev else 1.0
+
+
+_PRIMARY = _Rule("the first symmetric method of model.methods, else ols (else the first "
+                 "method)", _first_symmetric)
+_DEMING_LAMBDA = _Rule("1.0, or error_variances y / x when those are given",
+                       _lambda_from_variances)
+_PHYLOGENY = {"lambda": "ml"}
 
 _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
     "data": {
@@ -611,10 +520,10 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "log_base": (_log_base, "10"),
         "methods": (_list_of(_method, non_empty=True, noun="method"), ("ols", "sma", "ma")),
         "confidence": (_confidence, 0.95),
-        "deming_lambda": (_positive, None),
+        "deming_lambda": (_positive, _DEMING_LAMBDA),
         "error_variances": (_error_variances, {}),
-        "primary": (lambda v, p: None if v is None else _method(v, p), None),
-        "phylogeny": (_phylogeny, {"lambda": "ml"}),
+        "primary": (lambda v, p: None if v is None else _method(v, p), _PRIMARY),
+        "phylogeny": (_phylogeny, _PHYLOGENY),
         "units": (_model_units, {}),
         "combined": (_combined, None),
     },
@@ -657,11 +566,141 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "labels": (_xy_labels, {}),
     },
     "output": {
-        "dir": (_string, None),
+        "dir": (_string, None),          # None: results/<config file stem> beside the config
     },
+}
+#: The top-level keys that are not sections (title: null also means the default).
+_TOP_SCHEMA: dict[str, tuple[Callable, Any]] = {
+    "title": (_optional_string, "Allometric scaling"),
+    "engine": (_choice(("pandas", "dask")), "pandas"),
+    "scheduler": (_optional_string, None),
 }
 _TOP_LEVEL = ("title", "data", "model", "exponents", "groups", "prediction",
               "figures", "output", "diagnostics", "resampling", "engine", "scheduler")
+
+
+def _default(section: str, key: str):
+    """A dataclass field with the schema's default for ``section.key``."""
+    default = (_TOP_SCHEMA if section == "" else _SCHEMA[section])[key][1]
+    if isinstance(default, dict):      # a fresh mapping per config
+        return field(default_factory=lambda: copy.deepcopy(default))
+    return field(default=default)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DataConfig:
+    file: Path
+    x: str | tuple       # one column, or a tuple of columns (several predictors, OLS)
+    y: str
+    sheet: int | str = _default("data", "sheet")
+    skip_rows: int = _default("data", "skip_rows")
+    units_row: bool = _default("data", "units_row")
+    delimiter: str = _default("data", "delimiter")
+    decimal: str = _default("data", "decimal")
+    encoding: str = _default("data", "encoding")
+    group: str | None = _default("data", "group")
+    average_within: str | None = _default("data", "average_within")
+    exclude: dict = _default("data", "exclude")   # column -> tuple of values
+    units: dict = _default("data", "units")       # {"x": "g", "y": "mW"}; x a tuple with several x
+    tree: Path | None = _default("data", "tree")   # Newick file: phylogenetic fits
+    species: str | None = _default("data", "species")   # column naming the tips of the tree
+    chunk_size: int = _default("data", "chunk_size")    # rows per chunk on the moments path
+    moments_above_mb: float = _default("data", "moments_above_mb")   # larger files: moments path
+
+    @property
+    def x_columns(self) -> tuple:
+        """The predictor column(s) as a tuple (one name for a single predictor)."""
+        return self.x if isinstance(self.x, tuple) else (self.x,)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ModelConfig:
+    log_base: str = _default("model", "log_base")
+    methods: tuple = _default("model", "methods")
+    confidence: float = _default("model", "confidence")
+    # deming_lambda and primary default by rules on the other keys (_DEMING_LAMBDA,
+    # _PRIMARY), so they are always given
+    deming_lambda: float      # var(error in log y) / var(error in log x)
+    error_variances: dict = _default("model", "error_variances")   # {"x": .., "y": ..} as given
+    primary: str              # the method whose line leads the headline
+    phylogeny: dict = _default("model", "phylogeny")   # used with data.tree
+    units: dict = _default("model", "units")     # fit in these units: {"x": "kg", "y": "W"}
+    combined: dict | None = _default("model", "combined")   # {"weights": {col: w}, "exponent": 1.0}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GroupsConfig:
+    compare: bool = _default("groups", "compare")
+    fit_group_means: bool = _default("groups", "fit_group_means")
+    weight_means: bool = _default("groups", "weight_means")
+    pairwise_max: int = _default("groups", "pairwise_max")
+    spread_min: int = _default("groups", "spread_min")   # more groups: summary across groups
+    spread_tau2: str = _default("groups", "spread_tau2")             # reml | dl
+    spread_interval: str = _default("groups", "spread_interval")     # z | knapp_hartung
+    diagnostics_max: int = _default("groups", "diagnostics_max")   # more: no per-group checks
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PredictionConfig:
+    x: tuple = _default("prediction", "x")
+    y: tuple = _default("prediction", "y")      # inverse prediction: x from these y values
+    correction: str = _default("prediction", "correction")
+    interval: str = _default("prediction", "interval")
+    methods: tuple = _default("prediction", "methods")   # () = OLS (else the first fitted)
+    # several x: column -> tuple of values (prediction.x given as a mapping; not a key)
+    x_table: dict = field(default_factory=dict)
+    from_file: Path | None = _default("prediction", "from")   # a CSV of new rows (several x)
+    total: bool = _default("prediction", "total")   # several x: also the total over the rows
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FiguresConfig:
+    formats: tuple = _default("figures", "formats")
+    kinds: tuple = _default("figures", "kinds")
+    size: str = _default("figures", "size")
+    dpi: int = _default("figures", "dpi")
+    labels: dict = _default("figures", "labels")    # {"x": "Body mass", "y": "..."}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class OutputConfig:
+    dir: Path
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DiagnosticsConfig:
+    enabled: bool = _default("diagnostics", "enabled")
+    alpha: float = _default("diagnostics", "alpha")
+    error_structure: bool = _default("diagnostics", "error_structure")
+    exponent_at: tuple = _default("diagnostics", "exponent_at")   # () = the exponents' values
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ResamplingConfig:
+    bootstrap: int = _default("resampling", "bootstrap")     # resamples; 0 = off
+    interval: str = _default("resampling", "interval")       # percentile | bca
+    permutations: int = _default("resampling", "permutations")   # per slope test; 0 = off
+    seed: int = _default("resampling", "seed")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Config:
+    """A whole validated configuration (every key is listed in the README)."""
+
+    title: str
+    data: DataConfig
+    model: ModelConfig
+    exponents: dict            # name -> float, in the order given
+    groups: GroupsConfig
+    prediction: PredictionConfig
+    figures: FiguresConfig
+    output: OutputConfig
+    diagnostics: DiagnosticsConfig = field(default_factory=DiagnosticsConfig)
+    resampling: ResamplingConfig = field(default_factory=ResamplingConfig)
+    engine: str = _default("", "engine")              # pandas | dask (dask: the moments path)
+    scheduler: str | None = _default("", "scheduler")   # dask only: None (local) or an address
+    source: Path | None = None     # the config file, if read from one
+    raw: dict = field(default_factory=dict)   # the mapping as read, for the manifest
 
 
 def _read_section(raw, name) -> dict:
@@ -681,7 +720,10 @@ def _read_section(raw, name) -> dict:
         elif default is _REQUIRED:
             raise _Bad(path, "is required")
         else:
-            out[key] = default
+            out[key] = None if isinstance(default, _Rule) else copy.deepcopy(default)
+    for key, (_, default) in spec.items():   # rules read the section's other keys
+        if isinstance(default, _Rule) and out[key] is None:
+            out[key] = default.resolve(out)
     return out
 
 
@@ -738,8 +780,8 @@ def _build(raw, base_dir: Path, source) -> Config:
         raise _Bad("data", "is required (data.file, data.x and data.y at least)")
     sections = {name: _read_section(raw.get(name), name) for name in _SCHEMA}
     data = sections["data"]
-    data["file"] = (base_dir / Path(data["file"]).expanduser()).resolve() \
-        if not Path(data["file"]).is_absolute() else Path(data["file"])
+    data["file"] = (Path(data["file"]) if Path(data["file"]).is_absolute()
+                    else (base_dir / Path(data["file"]).expanduser()).resolve())
     xs = data["x"] if isinstance(data["x"], tuple) else (data["x"],)
     if data["y"] in xs:
         raise _Bad("data.y", f"is the same column as data.x ({data['y']!r})")
@@ -768,19 +810,12 @@ def _build(raw, base_dir: Path, source) -> Config:
                        "intervals is implemented. Set model.methods: [ols] or "
                        "weight_means: false")
     model = sections["model"]
-    if model["primary"] is None:
-        model["primary"] = next((m for m in model["methods"] if m in SYMMETRIC_METHOD_NAMES),
-                                "ols" if "ols" in model["methods"] else model["methods"][0])
-    elif model["primary"] not in model["methods"]:
+    if model["primary"] not in model["methods"]:   # a rule's primary always is
         raise _Bad("model.primary", f"'{model['primary']}' is not one of model.methods "
                    f"({', '.join(model['methods'])})")
-    if model["error_variances"] and model["deming_lambda"] is not None:
+    if model["error_variances"] and "deming_lambda" in (raw.get("model") or {}):
         raise _Bad("model.error_variances", "give either model.deming_lambda or "
                    "model.error_variances (which sets lambda = y / x), not both")
-    if model["error_variances"]:
-        model["deming_lambda"] = model["error_variances"]["y"] / model["error_variances"]["x"]
-    elif model["deming_lambda"] is None:
-        model["deming_lambda"] = 1.0
     out_dir = sections["output"]["dir"]
     if out_dir is None:
         stem = source.stem if source is not None else "scaling"
@@ -788,10 +823,10 @@ def _build(raw, base_dir: Path, source) -> Config:
     out_path = Path(out_dir).expanduser()
     if not out_path.is_absolute():
         out_path = (base_dir / out_path).resolve()
-    title = raw.get("title", None)
-    title = "Allometric scaling" if title is None else _string(title, "title")
-    engine = _choice(("pandas", "dask"))(raw.get("engine", "pandas"), "engine")
-    scheduler = _optional_string(raw.get("scheduler"), "scheduler")
+    top = {key: reader(raw[key], key) if key in raw else default
+           for key, (reader, default) in _TOP_SCHEMA.items()}
+    title = top["title"] if top["title"] is not None else _TOP_SCHEMA["title"][1]
+    engine, scheduler = top["engine"], top["scheduler"]
     if scheduler is not None and engine != "dask":
         raise _Bad("scheduler", "is used only with engine: dask")
     return Config(

@@ -2,8 +2,10 @@
 
 :func:`write_outputs` builds every file of a :class:`~scaling.run.pipeline.RunResult`
 in a temporary folder beside the output folder and moves them into place only
-when all were written.  :func:`json_safe` is the one JSON cleaner of the
-package (NaN/inf -> null, numpy scalars -> Python).  Nothing here computes
+when all were written.  It writes the tables itself and is handed what it does
+not make (the figure drawer, the report writer, the caution text), so this floor
+knows nothing of words or figures.  :func:`json_safe` is the one JSON cleaner of
+the package (NaN/inf -> null, numpy scalars -> Python).  Nothing here computes
 statistics.
 """
 
@@ -19,15 +21,13 @@ import shutil
 import tempfile
 from dataclasses import replace
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 import pandas as pd
 
-from ..render import report as _report
 from .._version import __version__
 from ..errors import OutputError
-from ..render.figure_worker import draw_figures
-from ..render.wording import CAUTION
 
 __all__ = ["json_safe", "records", "results_document", "check_out_dir", "write_outputs",
            "write_csv", "file_sha256", "versions"]
@@ -82,8 +82,8 @@ def records(frame: pd.DataFrame) -> list:
     return [dict(zip(keys, row)) for row in zip(*columns)]
 
 
-def results_document(result) -> dict:
-    """The content of ``results.json``."""
+def results_document(result, *, caution: str) -> dict:
+    """The content of ``results.json`` (``caution``: the caution text it carries)."""
     cfg = result.config
     doc = {
         "title": cfg.title,
@@ -92,7 +92,7 @@ def results_document(result) -> dict:
         "dropped_rows": records(result.dropped),
         "messages": list(result.messages),
         "warnings": list(result.warnings),
-        "caution": CAUTION,
+        "caution": caution,
         "saved_fits": list(result.saved_fits.values()),
         "data_summary": {
             "rows_read": result.data.n_read, "rows_dropped": len(result.dropped),
@@ -119,24 +119,38 @@ def check_out_dir(out_dir: Path, force: bool) -> None:
                           "the files scaling writes there (other files are left alone)")
 
 
-def write_outputs(result, out_dir: Path | str, *, force: bool = False, worker=None):
+def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
+                  write_report: Callable, caution: str, force: bool = False):
     """Write the output folder atomically and return the result with ``files`` set.
 
     Files are built in a temporary folder beside ``out_dir`` and moved into
     place only when all of them were written, so a failure leaves
     ``out_dir`` as it was.  A non-empty ``out_dir`` is refused unless
     ``force``; with ``force`` only the files written here are replaced.
-    ``worker`` is a :class:`~scaling.render.figure_worker.FigureWorker` started with
-    the run, to draw the figures; without one they are drawn here.
+
+    Parameters
+    ----------
+    result : RunResult
+    out_dir : path
+    draw_figures : callable
+        ``draw_figures(result, folder) -> (relative paths, skip notes)``: draws the
+        figures into ``folder / "figures"``.
+    write_report : callable
+        ``write_report(result, folder, written) -> relative paths``: writes the
+        report files, given the files written so far.
+    caution : str
+        The caution ``results.json`` carries.
+    force : bool
+        Replace the files written here in a non-empty ``out_dir``.
     """
     out_dir = Path(out_dir)
-    inputs = [Path(result.config.data.file)] + \
-        ([Path(result.config.source)] if result.config.source else [])
+    inputs = [Path(result.config.data.file)] + (
+        [Path(result.config.source)] if result.config.source else [])
     check_out_dir(out_dir, force)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
     try:
-        written, result = _write_all(result, tmp, worker)
+        written, result = _write_all(result, tmp, draw_figures, write_report, caution)
         # Never overwrite an input, even with --force.
         protected = {p.resolve() for p in inputs}
         for rel in written:
@@ -157,7 +171,7 @@ def write_csv(frame: pd.DataFrame, path: Path) -> None:
     frame.to_csv(path, index=False, lineterminator="\n")
 
 
-def _write_all(result, folder: Path, worker=None) -> tuple:
+def _write_all(result, folder: Path, draw_figures, write_report, caution) -> tuple:
     """Write every file into ``folder``; return (relative paths, result with figure notes)."""
     written: list[Path] = []
 
@@ -173,13 +187,12 @@ def _write_all(result, folder: Path, worker=None) -> tuple:
             csv(f"{name}.csv", table)
     # Figures and report are optional stages; each returns relative paths.
     (folder / "figures").mkdir(exist_ok=True)
-    drawn = worker.draw(result, folder) if worker is not None else None
-    paths, skipped = drawn if drawn is not None else draw_figures(result, folder)
+    paths, skipped = draw_figures(result, folder)
     written += [Path(p) for p in paths]
     if skipped:   # a skipped figure is a note of the run: terminal, report and results.json
         result = replace(result, warnings=tuple(result.warnings) + tuple(skipped))
-    written += _report.write_report(result, folder, written)
-    doc = results_document(result)
+    written += write_report(result, folder, written)
+    doc = results_document(result, caution=caution)
     doc["files"] = sorted(str(p) for p in written) + ["results.json"]
     with open(folder / "results.json", "w", encoding="utf-8") as fh:
         json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)

@@ -22,7 +22,7 @@ import pandas as pd
 
 from .config import DataConfig
 from ..errors import DataError, DataWarning
-from ..stats.lines import to_log
+from ..stats.logscale import to_log
 
 __all__ = ["CleanData", "load_data", "read_table", "clean_table"]
 
@@ -271,8 +271,8 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     x_col = _column(table, cfg.x, "data.x", path)
     y_col = _column(table, cfg.y, "data.y", path)
     g_col = _column(table, cfg.group, "data.group", path) if cfg.group else None
-    u_key = "data.species" if cfg.tree is not None and cfg.average_within == cfg.species \
-        else "data.average_within"
+    u_key = ("data.species" if cfg.tree is not None and cfg.average_within == cfg.species
+             else "data.average_within")
     u_col = _column(table, cfg.average_within, u_key, path) if cfg.average_within else None
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
@@ -389,8 +389,8 @@ def _average_within(pts: pd.DataFrame, cfg: DataConfig, path: Path, base) -> pd.
     else:
         out["x"] = np.power(base, out["log_x"])
         out["y"] = np.power(base, out["log_y"])
-    cols = ["row", "unit", "x", "y", "log_x", "log_y"] + \
-        (["group"] if "group" in out.columns else []) + ["n_rows"]
+    cols = (["row", "unit", "x", "y", "log_x", "log_y"]
+            + (["group"] if "group" in out.columns else []) + ["n_rows"])
     return out[cols].sort_values("row", kind="stable")
 
 

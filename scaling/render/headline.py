@@ -35,7 +35,7 @@ import numpy as np
 import pandas as pd
 
 from ..stats.schema import method_label
-from .wording import format_p, plural as plural_of, verdict_phrase
+from .wording import format_p, p_text, plural as plural_of, verdict_phrase
 
 __all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
            "headline_of", "exponent_words"]
@@ -105,11 +105,6 @@ def exponent_words(name: str, value: float) -> str:
     return f"{value:.4g}"
 
 
-def _p(p: float) -> str:
-    text = format_p(p)
-    return f"p {text}" if text.startswith("<") else f"p = {text}"
-
-
 def _ci(lo, hi, pct: str) -> str:
     if np.isfinite(lo) and np.isfinite(hi):
         return f"{pct} CI {lo:.3f}–{hi:.3f}"
@@ -120,8 +115,8 @@ def _short_verdict(est, b0, p, alpha) -> str:
     if not np.isfinite(p):
         return "not tested"
     if p < alpha:
-        return f"{'above' if est > b0 else 'below'} ({_p(p)})"
-    return f"not different ({_p(p)})"
+        return f"{'above' if est > b0 else 'below'} ({p_text(p)})"
+    return f"not different ({p_text(p)})"
 
 
 def _verdict_list(tests: pd.DataFrame, alpha: float) -> str:
@@ -129,7 +124,7 @@ def _verdict_list(tests: pd.DataFrame, alpha: float) -> str:
     for r in tests.itertuples(index=False):
         target = exponent_words(str(r.hypothesis), float(r.exponent))
         parts.append(f"{verdict_phrase(r.estimate, r.exponent, r.p_value, alpha=alpha, target=target)}"
-                     f" ({_p(r.p_value)})" if np.isfinite(r.p_value) else
+                     f" ({p_text(r.p_value)})" if np.isfinite(r.p_value) else
                      f"could not be tested against {target}")
     if not parts:
         return ""
@@ -174,8 +169,8 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
     rows = []
     if fits is None or not len(fits):
         return pd.DataFrame()
-    hyps = [] if slope_tests is None or not len(slope_tests) else \
-        list(dict.fromkeys(zip(slope_tests["hypothesis"], slope_tests["exponent"])))
+    hyps = ([] if slope_tests is None or not len(slope_tests)
+            else list(dict.fromkeys(zip(slope_tests["hypothesis"], slope_tests["exponent"]))))
     order = {"common": 0, "pooled": 1, "group_means": 2, "group": 3}
     keep = fits[(fits["scope"] != "group") | (fits["method"] == primary)]
     keep = keep.assign(_o=keep["scope"].map(order).fillna(9),
@@ -207,8 +202,8 @@ def _matrices(pairwise: pd.DataFrame | None, method: str, groups, alpha) -> dict
         return out
     sub = pairwise[pairwise["method"] == method]
     for test, block in sub.groupby("test", sort=False):
-        names = [str(g) for g in groups] if groups else \
-            sorted(set(block["group_a"].astype(str)) | set(block["group_b"].astype(str)))
+        names = ([str(g) for g in groups] if groups else
+                 sorted(set(block["group_a"].astype(str)) | set(block["group_b"].astype(str))))
         mat = pd.DataFrame("", index=names, columns=names)
         for r in block.itertuples(index=False):
             a, b = str(r.group_a), str(r.group_b)
@@ -252,15 +247,15 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     pct = f"{100 * confidence:g}%"
     lead = primary_method(methods, primary)
     table = _exponent_table(fits, slope_tests, lead, alpha, pct)
-    usable = group_tests is not None and len(group_tests) and \
-        {"method", "test", "p_value"} <= set(group_tests.columns)
+    usable = (group_tests is not None and len(group_tests)
+              and {"method", "test", "p_value"} <= set(group_tests.columns))
     compared = list(dict.fromkeys(group_tests["method"])) if usable else []
     read = lead if lead in compared else next(
         (m for m in ("sma", "ma", "ols") if m in compared), None)
     plural = plural_of(group_word)
 
-    if read is None and "term" in fits.columns and \
-            fits["term"].fillna("").astype(str).ne("").any():
+    if (read is None and "term" in fits.columns
+            and fits["term"].fillna("").astype(str).ne("").any()):
         return Headline(primary=lead, line="pooled",
                         sentences=_several_predictors(fits, slope_tests, lead, alpha, pct),
                         exponent_table=table)
@@ -299,11 +294,11 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
             rec = {group_word: r.group,
                    "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
             for t in index.get(("group", lead, str(r.group)), ()):
-                rec[f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"] = \
-                    _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha)
+                column = f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"
+                rec[column] = _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha)
             rows.append(rec)
         s1 = (f"The {plural} do not share one exponent: their {label} slopes differ "
-              f"({_p(p_slope)}), so each {group_word} has its own; the table below gives each "
+              f"({p_text(p_slope)}), so each {group_word} has its own; the table below gives each "
               f"{group_word}'s exponent and verdict.")
         out = [s1]
         pooled = _row(fits, "pooled", lead)
@@ -324,21 +319,21 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     s1 = (f"Within {plural}, the common {label} exponent is {common['slope']:.3f} "
           f"({_ci(common['slope_low'], common['slope_high'], pct)}; {n_groups} {plural}, "
           f"n = {int(common['n'])}; the {plural}' slopes {how}"
-          + (f", {_p(p_slope)})." if np.isfinite(p_slope) else ")."))
+          + (f", {p_text(p_slope)})." if np.isfinite(p_slope) else ")."))
     verdicts = _verdict_list(tests, alpha)
     out = [s1] + ([f"This within-{group_word} exponent {verdicts}."] if verdicts else [])
     elev_differs = np.isfinite(p_elev) and p_elev <= alpha
     axis_differs = np.isfinite(p_axis) and p_axis <= alpha
     pos = "position along the common axis" if read != "ols" else "mean size (log x)"
     if elev_differs:
-        s3 = f"The {plural} differ in elevation ({_p(p_elev)})"
+        s3 = f"The {plural} differ in elevation ({p_text(p_elev)})"
     elif np.isfinite(p_elev):
-        s3 = f"The {plural} do not differ detectably in elevation ({_p(p_elev)})"
+        s3 = f"The {plural} do not differ detectably in elevation ({p_text(p_elev)})"
     else:
         s3 = f"Elevations of the {plural} were not compared"
     if np.isfinite(p_axis):
         s3 += (f" and {'differ' if axis_differs else 'do not differ detectably'} in {pos} "
-               f"({_p(p_axis)})")
+               f"({p_text(p_axis)})")
     pooled = _row(fits, "pooled", read)
     if elev_differs and pooled is not None and np.isfinite(pooled["slope"]):
         b_pool, lo, hi = float(pooled["slope"]), common["slope_low"], common["slope_high"]

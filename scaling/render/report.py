@@ -229,8 +229,8 @@ def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
             verdict = "not tested"
         common = r.get("common_slope", np.nan)
         extra = ""
-        if test == "slopes_equal" and isinstance(common, (int, float, np.floating)) \
-                and np.isfinite(common):
+        if (test == "slopes_equal" and isinstance(common, (int, float, np.floating))
+                and np.isfinite(common)):
             extra = f" Common slope {_num(common)}."
         out.append(f"{method} {test.replace('_', ' ')}: {verdict} "
                    f"({', '.join(detail)}).{extra}")
@@ -569,8 +569,8 @@ def _column_decimals(series: pd.Series, column: str):
     None (format each value alone) for p-values, integer columns, or values
     spanning more than two decades.
     """
-    if _P_COLUMNS.match(column) or column in _INT_COLUMNS \
-            or not pd.api.types.is_float_dtype(series):
+    if (_P_COLUMNS.match(column) or column in _INT_COLUMNS
+            or not pd.api.types.is_float_dtype(series)):
         return None
     v = np.abs(series.to_numpy(dtype=float))
     v = v[np.isfinite(v)]
@@ -588,8 +588,8 @@ def _column_decimals(series: pd.Series, column: str):
 
 
 def _cell(value, column: str, decimals) -> str:
-    if decimals is None or not isinstance(value, (float, np.floating)) \
-            or not math.isfinite(float(value)):
+    if (decimals is None or not isinstance(value, (float, np.floating))
+            or not math.isfinite(float(value))):
         return format_value(value, column)
     return f"{float(value):.{decimals}f}"
 
@@ -729,14 +729,14 @@ def _md_block(block: Block) -> str:
     if block.kind == "ul":
         return "\n".join(f"- {markdown_escape(t)}" for t in block.items)
     if block.kind == "details":
-        return markdown_escape(block.text) + ":\n\n" + \
-            "\n".join(f"- {markdown_escape(t)}" for t in block.items)
+        return (markdown_escape(block.text) + ":\n\n"
+                + "\n".join(f"- {markdown_escape(t)}" for t in block.items))
     if block.kind == "table":
         return _md_table(block)
     if block.kind == "img":
         if block.path:
-            return f"![{markdown_escape(block.name)} figure]({block.path})\n\n" \
-                   f"{markdown_escape(block.text)}"
+            return (f"![{markdown_escape(block.name)} figure]({block.path})\n\n"
+                    f"{markdown_escape(block.text)}")
         return f"({markdown_escape(block.name)} figure: see report.html)"
     if block.kind == "pre":
         fence = "````" if "```" in block.text else "```"

@@ -91,13 +91,21 @@ def describe_test(test, *, alpha: float = 0.05) -> str:
 
 
 def p_text(p: float) -> str:
-    """'p = 0.031' or 'p < 0.0001'."""
+    """A p-value in a sentence: 'p = 0.031', 'p = 0.0042' or 'p < 0.0001'.
+
+    With :func:`format_p`, the one way the package writes a p-value in words.
+    """
     text = format_p(p)
     return f"p {text}" if text.startswith("<") else f"p = {text}"
 
 
 def format_p(p: float) -> str:
-    """p-values as people write them: 3 significant digits, '< 0.0001' below."""
+    """A p-value as people write it: '0.031' (three decimals from 0.01 up), '0.0042' (two
+    significant digits below 0.01), '< 0.0001' below 0.0001, 'n/a' when not finite.
+
+    The one p formatter of the package: sentences (:func:`p_text`), the report's
+    tables and the headline's tables of words all write p-values with it.
+    """
     if not np.isfinite(p):
         return "n/a"
     if p < 1e-4:
@@ -115,8 +123,8 @@ def scope_words(scope: str, group: str) -> str:
 
 def read_message(data, cfg) -> str:
     """"Read N data rows; dropped M; fitting K points (...)."""
-    unit_word = f" ({cfg.data.average_within} means of {data.n_rows_used} rows)" \
-        if data.averaged_within else ""
+    unit_word = (f" ({cfg.data.average_within} means of {data.n_rows_used} rows)"
+                 if data.averaged_within else "")
     return (f"Read {data.n_read} data rows; dropped {len(data.dropped)}; "
             f"fitting {len(data.points)} points{unit_word}.")
 
@@ -181,8 +189,8 @@ def line_method_messages(line_fits: dict, cfg) -> list:
     if deming is not None:
         near = ""
         if "ols" in pooled and "ma" in pooled:
-            closer = "OLS" if abs(deming.slope - pooled["ols"].slope) <= \
-                abs(deming.slope - pooled["ma"].slope) else "MA"
+            closer = ("OLS" if abs(deming.slope - pooled["ols"].slope)
+                      <= abs(deming.slope - pooled["ma"].slope) else "MA")
             near = (f"; it lies between MA (λ = 1) and OLS (λ → ∞), here closer to {closer}"
                     + (", as most error is in y" if closer == "OLS" else ""))
         out.append(f"  Deming line with λ = {deming.lam:.3g} (error variance of log y over log x):"

@@ -27,9 +27,11 @@ from pathlib import Path
 import pandas as pd
 
 from ..io.config import Config, config_from_dict, load_config
-from ..io.output import check_out_dir, manifest_header, results_document, write_outputs  # noqa: F401
+from ..io import output
+from ..io.output import check_out_dir, manifest_header, results_document  # noqa: F401
 from ..io.tables import CleanData
-from ..render.figure_worker import start_worker
+from ..render.figure_worker import draw_figures, start_worker
+from ..render.report import write_report
 from ..render.wording import CAUTION  # noqa: F401 (alias)
 from ..stats._display import frame_html, short_repr
 from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  # noqa: F401 (aliases)
@@ -239,6 +241,18 @@ def _moments_run(cfg, reason: str) -> RunResult:
                      messages=path.messages + spread.messages,
                      warnings=path.notes + spread.notes,
                      manifest={**manifest_header(cfg), **path.manifest})
+
+
+def write_outputs(result: RunResult, out_dir, *, force: bool = False, worker=None) -> RunResult:
+    """Write the output folder (:func:`scaling.io.output.write_outputs`) with the figures,
+    report and caution of :mod:`scaling.render`.  ``worker``: a
+    :class:`~scaling.render.figure_worker.FigureWorker` started with the run draws the
+    figures; without one (or when it cannot) they are drawn here."""
+    def figures(res, folder):
+        drawn = worker.draw(res, folder) if worker is not None else None
+        return drawn if drawn is not None else draw_figures(res, folder)
+    return output.write_outputs(result, out_dir, force=force, draw_figures=figures,
+                                write_report=write_report, caution=CAUTION)
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,

@@ -28,6 +28,7 @@ from ..errors import DataError, ExtrapolationWarning, ScalingError
 from ..stats.lines import base_label, method_label
 from ..stats.units import conversion_factor, normalisation_constant
 from ..stats.several_predictors import fit_multi, multi_fit_to_dict
+from ..render.wording import p_text
 
 __all__ = ["apply_model_units", "constant_columns", "SeveralStage", "several_stage",
            "exponent_hypotheses", "MULTI_SLOPE_TEST_COLUMNS"]
@@ -220,17 +221,13 @@ def _fits_rows(fit, units: dict, base) -> pd.DataFrame:
     return frame
 
 
-def _p(p: float) -> str:
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
-
-
 def exponent_sentence(label: str, tests, alpha: float) -> str:
     """One line per hypothesis: each exponent against its value, with the verdict."""
     parts = []
     for t in tests:
         verdict = "differs" if t.p_value < alpha else "consistent"
         parts.append(f"{t.term} {t.estimate:.3f} vs {t.exponent:g}: t = {t.statistic:.2f}, "
-                     f"{_p(t.p_value)} ({verdict})")
+                     f"{p_text(t.p_value)} ({verdict})")
     return f"  Hypothesis '{label}': " + "; ".join(parts) + "."
 
 
@@ -242,8 +239,8 @@ def combined_sentence(c, alpha: float) -> str:
                 "separate exponents fit better than the combined term")
     return (f"  Combined term {c.label}: exponent {c.exponent:.3f} ({pct} CI "
             f"{c.exponent_ci.low:.3f}–{c.exponent_ci.high:.3f}), vs {c.hypothesis:g}: "
-            f"{_p(c.t_p_value)}; against separate exponents F = {c.f_statistic:.2f} on "
-            f"({c.df_num:g}, {c.df_den:g}) df, {_p(c.p_value)}: {adequate}.")
+            f"{p_text(c.t_p_value)}; against separate exponents F = {c.f_statistic:.2f} on "
+            f"({c.df_num:g}, {c.df_den:g}) df, {p_text(c.p_value)}: {adequate}.")
 
 
 def total_sentence(total, y_unit: str) -> str:

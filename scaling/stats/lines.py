@@ -88,7 +88,7 @@ from ..errors import ConfigError, DataError, DegenerateDataWarning
 from .logscale import base_label, log_word, parse_log_base, to_log  # noqa: F401 -- re-exported
 from .moments import Moments, moments as _moments
 from .predictions import inverse_predict as _inverse_predict, predict as _predict
-from .schema import CATALOGUE, is_symmetric, method_label, check_confidence
+from .schema import CATALOGUE, is_symmetric, method_label, check_confidence, fraction_value
 # Sentences live in wording; these names stay importable from lines (aliases).
 from ..render.wording import (BOTH_SIGNS_NOTE, EXACT_NOTE, describe_test, format_p,  # noqa: F401
                       p_text, verdict_phrase)
@@ -132,13 +132,10 @@ def exponent_value(exponent) -> float:
     ConfigError
         If ``exponent`` is neither a finite number nor such a fraction.
     """
-    value = exponent
-    if isinstance(value, str) and "/" in value:
-        num, _, den = value.partition("/")
-        try:
-            value = float(num) / float(den)
-        except (ValueError, ZeroDivisionError):
-            raise ConfigError(f"cannot read exponent {exponent!r} as a fraction") from None
+    try:
+        value = fraction_value(exponent)
+    except ValueError:
+        raise ConfigError(f"cannot read exponent {exponent!r} as a fraction") from None
     if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)) \
             or not math.isfinite(value):
         raise ConfigError(f"exponent must be a number or a fraction like '3/4', not {exponent!r}")

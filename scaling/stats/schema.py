@@ -30,7 +30,8 @@ __all__ = [
     "ERROR_STRUCTURE_COLUMNS", "CURVATURE_COLUMNS", "BOOTSTRAP_COLUMNS", "POINTS_TO_CHECK_COLUMNS", "TABLE_COLUMNS",
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
     "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice", "check_method", "check_methods",
-    "check_count", "EXACT_NOTE", "EXACT_LINE_NOTE",
+    "check_count", "EXACT_NOTE", "EXACT_LINE_NOTE", "fraction_value",
+    "check_predictor_methods",
 ]
 
 
@@ -390,3 +391,76 @@ def check_count(value, name: str, minimum: int = 1) -> int:
 EXACT_NOTE = "no residual scatter: an exact power law"
 #: Why a group lying exactly on a line is left out of SMA/MA comparisons.
 EXACT_LINE_NOTE = "points lie exactly on a line: no scatter to compare"
+
+
+# --------------------------------------------------------------------------
+# reading values the way people write them, and what several predictors allow
+
+
+def fraction_value(value):
+    """A fraction written as text ("3/4") as its float; any other value unchanged.
+
+    How people write exponents; the config and :func:`~scaling.stats.lines.exponent_value`
+    both read them here.
+
+    Raises
+    ------
+    ValueError
+        If ``value`` is text with a "/" that is not a number over a non-zero number.
+
+    Examples
+    --------
+    >>> fraction_value("3/4"), fraction_value(0.75), fraction_value("1")
+    (0.75, 0.75, '1')
+    """
+    if not (isinstance(value, str) and "/" in value):
+        return value
+    num, _, den = value.partition("/")
+    try:
+        return float(num) / float(den)
+    except (ValueError, ZeroDivisionError):
+        raise ValueError(f"cannot read {value!r} as a fraction") from None
+
+
+def check_predictor_methods(methods, n_predictors: int, *, key: str = "model.methods") -> tuple:
+    """Refuse line methods that cannot take several predictors.
+
+    Only OLS fits several predictors; SMA, MA and the other lines are bivariate.
+
+    Parameters
+    ----------
+    methods : sequence of str
+        The methods asked for (e.g. ``config.model.methods``).
+    n_predictors : int
+        Number of predictors (columns in ``data.x``).
+    key : str
+        Key path named in the message.
+
+    Returns
+    -------
+    tuple of str
+        ``methods`` unchanged when allowed.
+
+    Raises
+    ------
+    ConfigError
+        When ``n_predictors > 1`` and any method other than ``ols`` is asked for.
+
+    Examples
+    --------
+    >>> check_predictor_methods(["ols"], 2)
+    ('ols',)
+    >>> check_predictor_methods(["ols", "sma"], 2)
+    Traceback (most recent call last):
+    ...
+    scaling.errors.ConfigError: model.methods: sma is a single-predictor method; with 2 predictors only ols can be fitted (set model.methods: [ols])
+    """
+    methods = tuple(methods)
+    if n_predictors > 1:
+        bad = [m for m in methods if m != "ols"]
+        if bad:
+            verb = ("is a single-predictor method" if len(bad) == 1
+                    else "are single-predictor methods")
+            raise ConfigError(f"{key}: {', '.join(bad)} {verb}; with {n_predictors} "
+                              "predictors only ols can be fitted (set model.methods: [ols])")
+    return methods

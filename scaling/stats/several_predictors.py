@@ -6,7 +6,7 @@ On the log scale (base ``log_base``), with Y = log y and X_j = log x_j,
 
 fitted by ordinary least squares (a QR decomposition of the design matrix
 D = [1, X1, ..., Xk] via :func:`numpy.linalg.lstsq`).  SMA and MA are
-single-predictor (bivariate) line methods; :func:`check_methods` refuses
+single-predictor (bivariate) line methods; :func:`scaling.stats.schema.check_predictor_methods` refuses
 them when there is more than one predictor.
 
 Estimates and intervals (textbook multiple regression, e.g. Draper & Smith
@@ -95,7 +95,6 @@ __all__ = [
     "MultiPrediction",
     "TotalPrediction",
     "fit_multi",
-    "check_methods",
     "MULTI_DICT_FORMAT",
     "multi_fit_to_dict",
     "multi_fit_from_dict",
@@ -107,49 +106,6 @@ SINGLE_PREDICTOR_METHODS = ("sma", "ma", "deming", "theil_sen", "siegel", "sma_r
 
 # --------------------------------------------------------------------------
 # input checks
-
-
-def check_methods(methods: Sequence[str], n_predictors: int, *,
-                  key: str = "model.methods") -> tuple:
-    """Refuse line methods that cannot take several predictors.
-
-    Parameters
-    ----------
-    methods : sequence of str
-        The methods asked for (e.g. ``config.model.methods``).
-    n_predictors : int
-        Number of predictors (columns in ``data.x``).
-    key : str
-        Key path named in the message.
-
-    Returns
-    -------
-    tuple of str
-        ``methods`` unchanged when allowed.
-
-    Raises
-    ------
-    ConfigError
-        When ``n_predictors > 1`` and any method other than ``ols`` is asked for.
-
-    Examples
-    --------
-    >>> check_methods(["ols"], 2)
-    ('ols',)
-    >>> check_methods(["ols", "sma"], 2)
-    Traceback (most recent call last):
-    ...
-    scaling.errors.ConfigError: model.methods: sma is a single-predictor method; with 2 predictors only ols can be fitted (set model.methods: [ols])
-    """
-    methods = tuple(methods)
-    if n_predictors > 1:
-        bad = [m for m in methods if m != "ols"]
-        if bad:
-            verb = "is a single-predictor method" if len(bad) == 1 else \
-                "are single-predictor methods"
-            raise ConfigError(f"{key}: {', '.join(bad)} {verb}; with {n_predictors} "
-                              "predictors only ols can be fitted (set model.methods: [ols])")
-    return methods
 
 
 def _check_base(log_base) -> float:
