@@ -45,13 +45,11 @@ KNOWN_WRONG_IMPORTS = {
     'scaling.io.saved -> scaling.stats.predictions',
     'scaling.io.saved -> scaling.stats.several_predictors',
     'scaling.io.tables -> scaling.stats.lines',
-    'scaling.render.figures -> scaling.run.points_to_check',
     'scaling.stats.diagnostics -> scaling.render.wording',
     'scaling.stats.groups -> scaling.render.wording',
     'scaling.stats.lines -> scaling.render.wording',
 }
 KNOWN_LONG = {
-    'scaling/render/figures.py',
     'scaling/stats/diagnostics.py',
     'scaling/stats/groups.py',
     'scaling/stats/lines.py',
@@ -64,7 +62,6 @@ KNOWN_BACKSLASHES = {
     'scaling/io/output.py': 1,
     'scaling/io/saved.py': 1,
     'scaling/io/tables.py': 2,
-    'scaling/render/figures.py': 3,
     'scaling/render/headline.py': 5,
     'scaling/render/report.py': 4,
     'scaling/render/wording.py': 2,
