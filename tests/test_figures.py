@@ -96,8 +96,8 @@ class TestWriteFigures:
 
     def test_kinds_select_figures(self, pooled_only, tmp_path):
         result = with_figures(pooled_only, formats=("svg",), kinds=("exponents",))
-        assert [p.as_posix() for p in write_figures(result, tmp_path)] == \
-            ["figures/exponents.svg"]
+        paths = write_figures(result, tmp_path)
+        assert [p.as_posix() for p in paths] == ["figures/exponents.svg"]
 
 
     def test_a_figure_that_fails_is_skipped_with_a_warning(self, pooled_only, tmp_path,
