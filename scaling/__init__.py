@@ -37,6 +37,8 @@ _EXPORTS: dict[str, str] = {
     # prediction
     "predict": "stats.predictions", "inverse_predict": "stats.predictions",
     "accuracy": "stats.predictions",
+    # figures
+    "plot_groups": "render.plots",
 }
 
 __all__ = ["__version__", *_EXPORTS]

@@ -303,12 +303,13 @@ class TestExtremeMagnitudes:
 
     def test_a_figure_failure_is_a_note_not_a_failed_run(self, tmp_path, write_config,
                                                           capsys, monkeypatch):
-        from scaling.render import figures
+        from dataclasses import replace
+        from scaling.render.figure_kinds import FIGURES
 
         def broken(result, *, size="single", **kwargs):
             raise OverflowError("int too large to convert to float")
 
-        monkeypatch.setitem(figures._MAKERS, "exponents", broken)
+        monkeypatch.setitem(FIGURES, "exponents", replace(FIGURES["exponents"], maker=broken))
         (tmp_path / "d.csv").write_text("m,r\n1,2\n2,3.1\n4,5.2\n8,9\n16,15\n")
         cfg = write_config("data: {file: d.csv, x: m, y: r}\nfigures: {dpi: 60}\n")
         code, out, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)

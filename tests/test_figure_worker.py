@@ -141,11 +141,11 @@ def test_runs_without_figures_start_no_worker(write_config, small_csv):
 
 
 def test_split_balances_the_drawing_cost():
-    # exact law: greedy largest-first split of costs 4, 3, 2, 1 gives 5 and 5
-    from scaling.render.figures import DRAWING_COST
-    a, b = fw._split(["scaling", "natural", "exponents", "residuals"], DRAWING_COST)
-    assert sorted(a + b) == sorted(DRAWING_COST)
-    assert sum(DRAWING_COST[k] for k in a) == sum(DRAWING_COST[k] for k in b) == 5
+    # exact law: greedy largest-first split of the registry's costs 4, 3, 2, 1 gives 5 and 5
+    from scaling.render.figure_kinds import FIGURES, KINDS
+    a, b = fw._split(list(KINDS))
+    assert sorted(a + b) == sorted(KINDS)
+    assert sum(FIGURES[k].cost for k in a) == sum(FIGURES[k].cost for k in b) == 5
 
 
 def test_output_buffered_before_the_run_is_printed_once(tmp_path, small_config):

@@ -5,6 +5,7 @@ import io
 import math
 import re
 import warnings
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
@@ -13,11 +14,16 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 from PIL import Image
 
-from scaling.render import figures
 from scaling.errors import ConfigError
 from scaling.run.pipeline import run_config
-from scaling.render.figures import (format_natural, make_figure, plot_exponents, plot_natural,
-                             plot_residuals, plot_scaling, write_figures)
+from scaling.render.figure_exponents import plot_exponents
+from scaling.render.figure_kinds import FIGURES, KINDS
+from scaling.render.figure_natural import plot_natural
+from scaling.render.figure_residuals import plot_residuals
+from scaling.render.figure_scaling import plot_scaling
+from scaling.render.figure_style import format_natural
+from scaling.render.figures import make_figure, write_figures
+from scaling.render.plots import fit_band
 
 from helpers_figures import demo, simulated, with_figures
 
@@ -68,9 +74,9 @@ class TestWriteFigures:
         with warnings.catch_warnings():
             warnings.simplefilter("error")
             paths = write_figures(result, tmp_path)
-        expected = {f"figures/{k}.{f}" for k in figures.KINDS for f in ("png", "pdf", "svg")}
+        expected = {f"figures/{k}.{f}" for k in KINDS for f in ("png", "pdf", "svg")}
         assert {p.as_posix() for p in paths} == expected
-        for kind in figures.KINDS:
+        for kind in KINDS:
             assert (tmp_path / f"figures/{kind}.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
             pdf = (tmp_path / f"figures/{kind}.pdf").read_bytes()
             assert pdf[:5] == b"%PDF-"
@@ -90,8 +96,8 @@ class TestWriteFigures:
 
     def test_kinds_select_figures(self, pooled_only, tmp_path):
         result = with_figures(pooled_only, formats=("svg",), kinds=("exponents",))
-        assert [p.as_posix() for p in write_figures(result, tmp_path)] == \
-            ["figures/exponents.svg"]
+        paths = write_figures(result, tmp_path)
+        assert [p.as_posix() for p in paths] == ["figures/exponents.svg"]
 
 
     def test_a_figure_that_fails_is_skipped_with_a_warning(self, pooled_only, tmp_path,
@@ -101,13 +107,13 @@ class TestWriteFigures:
         def broken(result, *, size="single", **kwargs):
             raise OverflowError("cannot convert float infinity to integer")
 
-        monkeypatch.setitem(figures._MAKERS, "natural", broken)
+        monkeypatch.setitem(FIGURES, "natural", replace(FIGURES["natural"], maker=broken))
         result = with_figures(pooled_only, formats=("png", "svg"), dpi=72)
         with pytest.warns(FigureWarning, match=r"Figure 'natural' was not drawn "
                                                r"\(OverflowError: cannot convert"):
             paths = write_figures(result, tmp_path)
         kinds = {p.stem for p in paths}
-        assert "natural" not in kinds and kinds == set(figures.KINDS) - {"natural"}
+        assert "natural" not in kinds and kinds == set(KINDS) - {"natural"}
         assert not list((tmp_path / "figures").glob("natural.*"))
 
 
@@ -207,7 +213,7 @@ class TestPlotScaling:
         fit = pooled_only.fit("ols")
         pts = pooled_only.data.points
         xs = np.geomspace(*fit.x_range, 7)
-        _, lo, hi = figures._fit_band(fit, xs)
+        _, lo, hi = fit_band(fit, xs)
         model = sm.OLS(pts["log_y"].to_numpy(), sm.add_constant(pts["log_x"].to_numpy())).fit()
         ref = model.get_prediction(sm.add_constant(np.log10(xs))).conf_int(alpha=0.05)
         # reference library: statsmodels OLS get_prediction, mean confidence interval
@@ -230,7 +236,7 @@ class TestPlotScaling:
         result = simulated(tmp_path, groups=["a", "b"], decades=(-6, 6))
         with warnings.catch_warnings():
             warnings.simplefilter("error")
-            for kind in figures.KINDS:
+            for kind in KINDS:
                 buf = io.BytesIO()
                 make_figure(result, kind).savefig(buf, format="png", dpi=60)
             ax = plot_scaling(result)
@@ -257,7 +263,7 @@ class TestPlotScaling:
         result = simulated(tmp_path, groups=["only"], decades=(1, 2.2), n=12)
         with warnings.catch_warnings():
             warnings.simplefilter("error")
-            for kind in figures.KINDS:
+            for kind in KINDS:
                 buf = io.BytesIO()
                 make_figure(result, kind).savefig(buf, format="png", dpi=60)
             ax = plot_scaling(result)
@@ -378,8 +384,8 @@ class TestPlotExponents:
         ax = plot_exponents(grouped)
         whiskers = [ln for ln in ax.lines if len(ln.get_xdata()) == 2
                     and ln.get_ydata()[0] == ln.get_ydata()[1]]
-        from scaling.render.figures import _common_slope_fit
-        common = [_common_slope_fit(grouped, m) for m in ("ols", "sma", "ma")]
+        from scaling.render.figure_inputs import common_slope_fit
+        common = [common_slope_fit(grouped, m) for m in ("ols", "sma", "ma")]
         expected = sorted([(f.slope_ci.low, f.slope_ci.high) for f in grouped.line_fits.values()]
                           + [(c.slope_ci.low, c.slope_ci.high) for c in common])
         got = sorted((float(ln.get_xdata()[0]), float(ln.get_xdata()[1])) for ln in whiskers)
@@ -436,7 +442,6 @@ class TestReadableFigures:
 
     @pytest.mark.parametrize("kind", ["scaling", "residuals", "natural", "exponents"])
     def test_no_text_outside_the_canvas(self, grouped, kind):
-        from scaling.render.figures import make_figure
         fig = make_figure(grouped, kind)
         fig.draw_without_rendering()
         w, h = fig.bbox.width, fig.bbox.height
@@ -446,7 +451,6 @@ class TestReadableFigures:
         assert clipped == []   # exact geometry of the drawn figure
 
     def test_scaling_legend_at_most_about_a_quarter(self, grouped):
-        from scaling.render.figures import make_figure
         fig = make_figure(grouped, "scaling")
         fig.draw_without_rendering()
         share = sum(lg.get_window_extent().height for lg in fig.legends) / fig.bbox.height
@@ -454,7 +458,6 @@ class TestReadableFigures:
 
     def test_thirty_groups_legend_is_a_note(self, tmp_path):
         from helpers_figures import simulated
-        from scaling.render.figures import make_figure
         res = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(30)], n=6)
         fig = make_figure(res, "scaling")
         fig.draw_without_rendering()
@@ -465,7 +468,7 @@ class TestReadableFigures:
 
     def test_narrow_span_labels_two_and_five(self):
         from matplotlib.figure import Figure
-        from scaling.render.figures import natural_log_axis
+        from scaling.render.figure_style import natural_log_axis
         ax = Figure().add_subplot()
         ax.plot([12, 80], [12, 80])
         ax.set_xlim(12, 80)
@@ -477,15 +480,14 @@ class TestReadableFigures:
         assert {"20", "50"} <= shown
 
     def test_default_labels_do_not_repeat_units(self, tmp_path):
-        from dataclasses import replace
-        from scaling.render.figures import _label
+        from scaling.render.figure_inputs import axis_label
         from helpers_figures import simulated
         res = simulated(tmp_path, groups=["a"], n=8)
         cfg = res.config
         res = replace(res, config=replace(cfg, data=replace(cfg.data, x="mass_kg"),
                                           figures=replace(cfg.figures, labels={})))
-        assert _label(res, "x") == "mass (kg)"
-        assert _label(res, "y") == "rate (W)"
+        assert axis_label(res, "x") == "mass (kg)"
+        assert axis_label(res, "y") == "rate (W)"
 
     def test_common_slope_row_and_lines(self, grouped):
         from scaling.stats.common_slope import common_slope
@@ -520,7 +522,7 @@ class TestManyGroupsFigures:
         # (it did when the note took part in the layout: matplotlib warned and the
         # panels shrank to slivers)
         from helpers_figures import simulated
-        from scaling.render.figures import MAX_DRAWN_POINTS, make_figure
+        from scaling.render.figure_style import MAX_DRAWN_POINTS
         result = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(20)], n=300, seed=4)
         assert len(result.data.points) > MAX_DRAWN_POINTS
         with warnings.catch_warnings():

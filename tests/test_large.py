@@ -210,7 +210,7 @@ class TestManyGroupsRun:
     """A run with more groups than every report cap writes bounded outputs.
 
     The caps are module constants (report.TABLE_MAX_ROWS = 60,
-    figures.SPREAD_BARS_MAX = 150; summary.md folds tables over
+    figure_exponents.SPREAD_BARS_MAX = 150; summary.md folds tables over
     report.MD_MAX_ROWS = 12) and the config key groups.diagnostics_max (200);
     they are lowered here (monkeypatch, config) so that 40 groups exceed each
     of them, instead of running thousands of groups through the same code
@@ -220,10 +220,10 @@ class TestManyGroupsRun:
     GROUPS = 40
 
     def test_more_groups_than_the_caps_write_a_bounded_report(self, tmp_path, monkeypatch):
-        import scaling.render.figures as figures
+        import scaling.render.figure_exponents as figure_exponents
         import scaling.render.report as report
         monkeypatch.setattr(report, "TABLE_MAX_ROWS", 20)   # > MD_MAX_ROWS (12)
-        monkeypatch.setattr(figures, "SPREAD_BARS_MAX", 15)
+        monkeypatch.setattr(figure_exponents, "SPREAD_BARS_MAX", 15)
         G = self.GROUPS
         df = _table(G, 4, seed=11)
         path = tmp_path / "many.csv"

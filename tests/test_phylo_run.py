@@ -113,7 +113,7 @@ class TestPhylogeneticRows:
                                         base_dir=tmp_path))
         # prediction intervals of phylogenetic lines are not defined yet: none are made
         assert set(res.predictions["scope"]) == {"pooled"}
-        from scaling.render.figures import plot_scaling
+        from scaling.render.figure_scaling import plot_scaling
         def labels(ax):
             return [h.get_label() for h in ax.figure.legends[0].legend_handles] \
                 if ax.figure.legends else [t.get_text() for t in ax.get_legend().get_texts()]

@@ -55,14 +55,14 @@ class TestTableColumns:
 class TestCatalogue:
     def test_every_method_has_one_entry_read_by_config_lines_and_figures(self):
         from scaling.io import config
-        from scaling.render import figures
+        from scaling.render import figure_style
         from scaling.stats import lines, resampling as resample, robust
         assert config.METHOD_NAMES == tuple(schema.CATALOGUE)
         assert set(schema.MOMENT_METHODS) == set(lines.METHODS) | {"deming"}
         assert set(schema.ROW_METHOD_NAMES) == set(robust.ROW_METHODS)
         assert resample.MOMENT_METHODS == schema.MOMENT_METHODS
         assert set(resample.RANK_PAIRS) == set(schema.ROW_METHOD_NAMES)
-        assert set(figures.METHOD_DASHES) == set(schema.CATALOGUE)
+        assert set(figure_style.METHOD_DASHES) == set(schema.CATALOGUE)
         assert lines.METHOD_INFO["sma_robust"] == ("robust SMA", True)
 
     def test_labels_and_symmetry(self):

@@ -2,7 +2,7 @@
 
 In a small run, drawing and saving the figures costs more than the
 statistics, and importing matplotlib alone about 0.4 s.  :func:`start_worker`
-forks a process as the run begins; it imports :mod:`scaling.render.figures` and
+forks a process as the run begins; it imports the figure modules and
 lays out a line of text (fonts loaded) while the parent computes.
 :meth:`FigureWorker.draw` then sends it the finished run and it draws the
 figures -- in two processes on two cores (:func:`scaling.render.figures.write_figures`).
@@ -26,6 +26,7 @@ import warnings
 from pathlib import Path
 
 from ..errors import FigureWarning
+from .figure_kinds import FIGURES
 
 __all__ = ["FigureWorker", "start_worker", "draw_figures", "one_process"]
 
@@ -43,14 +44,17 @@ def one_process() -> bool:
             or threading.active_count() > 1)
 
 
-def _split(kinds, cost: dict) -> tuple[list[str], list[str]]:
-    """Two lists of about equal drawing cost (largest first, each to the lighter list)."""
+def _split(kinds) -> tuple[list[str], list[str]]:
+    """Two lists of about equal drawing cost (the registry's ``cost``; largest first, each
+    to the lighter list)."""
+    def cost(kind: str) -> int:
+        return FIGURES[kind].cost if kind in FIGURES else 2
     shares: tuple[list[str], list[str]] = ([], [])
     totals = [0, 0]
-    for kind in sorted(kinds, key=lambda k: -cost.get(k, 2)):
+    for kind in sorted(kinds, key=lambda k: -cost(k)):
         i = 0 if totals[0] <= totals[1] else 1
         shares[i].append(kind)
-        totals[i] += cost.get(kind, 2)
+        totals[i] += cost(kind)
     return shares
 
 
@@ -87,8 +91,7 @@ def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
     kinds = list(result.config.figures.kinds)
     if len(kinds) < 2 or one_process():
         return _draw_share(result, folder)
-    from .figures import DRAWING_COST   # matplotlib: the worker has imported it already
-    mine, second = _split(kinds, DRAWING_COST)
+    mine, second = _split(kinds)
     read_end, write_end = os.pipe()
     pid = os.fork()
     if pid == 0:   # the second process: draw its share, hand back the paths, leave
@@ -120,11 +123,16 @@ def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
 
 def _warm_up() -> None:
     """Import the drawing stack and lay out text once, so fonts are loaded."""
+    import matplotlib
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.backends import backend_pdf  # noqa: F401 -- the PDF writer, ahead of use
-    from . import figures
-    fig = figures.Figure(figsize=(1, 1))
-    with figures.matplotlib.rc_context(figures.STYLE):
+    from matplotlib.figure import Figure
+    from . import figures  # noqa: F401 -- the figure modules, ahead of use
+    from .figure_style import STYLE
+    for kind in FIGURES.values():   # every figure module, ahead of use
+        kind.make()
+    fig = Figure(figsize=(1, 1))
+    with matplotlib.rc_context(STYLE):
         fig.text(0.1, 0.5, "0.123 g 10\u2009000")
         FigureCanvasAgg(fig).draw()
 

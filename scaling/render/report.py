@@ -27,6 +27,7 @@ import pandas as pd
 import yaml
 
 from .headline import headline_of
+from .figure_kinds import FIGURES
 from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
                       format_p, mechanism_caution, medians_vs_means, method_label, p_text,
                       predicted_unit, verdict_phrase)
@@ -38,18 +39,6 @@ __all__ = ["write_report", "build_report", "render_html", "render_markdown",
 # Tables longer than this are folded (<details>) in the HTML report.
 FOLD_ROWS = 30
 
-FIGURE_CAPTIONS = {
-    "scaling": "Data on log–log axes in natural units; fitted lines over the fitted range "
-               "with their confidence bands; group means ± 1 SE (back-transformed).",
-    "natural": "Back-transformed fitted curves on arithmetic axes with prediction bands.",
-    "exponents": "Fitted exponents with confidence intervals for every fit; dashed lines "
-                 "mark the hypothesised exponents.",
-    "residuals": "Residuals on the log scale against position along each line, and against "
-                 "normal quantiles.",
-}
-SPREAD_CAPTION = ("Per-group exponents ordered by size with their confidence intervals; the "
-                  "random-effects mean and its interval (line and band); dotted lines mark "
-                  "the hypothesised exponents; only flagged groups are named.")
 GROUP_TEST_WORDS = {
     "slopes_equal": ("a common slope (exponent) for all groups",
                      "the groups' slopes differ"),
@@ -296,11 +285,11 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
                 continue       # write_figures has already put a note in the run's warnings
             path = ""
         blocks.append(Block(kind="img", png=png, path=path, name=kind,
-                            text=FIGURE_CAPTIONS.get(kind, kind)))
+                            text=FIGURES[kind].caption if kind in FIGURES else kind))
     rel = "figures/group_exponents.png"   # summary across many groups (scaling.run.moments_path)
     if rel in written_set and (folder / rel).exists():
         blocks.append(Block(kind="img", png=(folder / rel).read_bytes(), path=rel,
-                            name="group_exponents", text=SPREAD_CAPTION))
+                            name="group_exponents", text=FIGURES["group_exponents"].caption))
     return blocks
 
 

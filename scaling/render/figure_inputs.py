@@ -1,0 +1,154 @@
+"""What a run's figures read from a :class:`~scaling.run.pipeline.RunResult`.
+
+The figures draw the fit objects (``result.line_fits``) and the tables
+(``result.fits``, ``result.tables``) the run computed; these helpers look
+them up (labels, groups, the primary method, group means, the common slope,
+correction factors) and compute nothing new.
+"""
+
+from __future__ import annotations
+
+from types import SimpleNamespace
+
+import numpy as np
+import pandas as pd
+
+from ..stats.lines import ConfidenceInterval, parse_log_base
+from .figure_style import scatter_coded
+from .headline import primary_method
+
+__all__ = ["run_base", "axis_label", "run_groups", "group_codes", "scatter_groups",
+           "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
+           "common_slope_fit", "slopes_agree"]
+
+
+def run_base(result) -> float:
+    """The run's log base (of its fits; else of its config; else 10)."""
+    for fit in result.line_fits.values():
+        if fit.log_base is not None:
+            return float(fit.log_base)
+    return parse_log_base(result.config.model.log_base) or 10.0
+
+
+def axis_label(result, role: str) -> str:
+    """Axis label: figures.labels, else the column name in words; "(unit)" once.
+
+    Without ``figures.labels`` a unit already in the column name is not
+    repeated: ``mass_g`` with unit g reads "mass (g)", not "mass_g (g)".
+    """
+    cfg = result.config
+    labels = cfg.figures.labels or {}
+    unit = (result.data.units or {}).get(role)
+    name = labels.get(role)
+    if not name:
+        name = str(cfg.data.x if role == "x" else cfg.data.y)
+        if unit:
+            for tail in (f"_{unit}", f" {unit}", f"({unit})", f"[{unit}]", f"_({unit})"):
+                if name.lower().endswith(tail.lower()) and len(name) > len(tail):
+                    name = name[: -len(tail)]
+                    break
+        name = name.replace("_", " ").strip()
+    if unit and f"({unit})" in str(name):
+        return str(name)
+    return f"{name} ({unit})" if unit else str(name)
+
+
+def run_groups(result) -> list:
+    """The groups of the run's points, sorted as text (empty without groups)."""
+    pts = result.data.points
+    if "group" not in pts.columns:
+        return []
+    return sorted(str(g) for g in pts["group"].unique())
+
+
+def group_codes(pts, groups: list) -> np.ndarray:
+    """Index into the sorted ``groups`` of every point (one pass, not one per group)."""
+    return np.searchsorted(np.asarray(groups, dtype=object),
+                           pts["group"].astype(str).to_numpy(dtype=object))
+
+
+def scatter_groups(ax, pts, groups: list, **kwargs) -> None:
+    """Points in their group's colour and marker (see :func:`scatter_coded`)."""
+    scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(), group_codes(pts, groups),
+                   len(groups), **kwargs)
+
+
+def run_methods(result, methods) -> list:
+    """``methods`` if given, else the run's methods."""
+    return list(methods) if methods else list(result.config.model.methods)
+
+
+def drawn_primary(methods: list, result=None) -> str:
+    """The method whose per-group lines are drawn: the run's primary method
+    (``model.primary``, else the first symmetric method, else OLS) when drawn,
+    else SMA if present, else the first."""
+    if result is not None:
+        chosen = primary_method(result.config.model.methods,
+                                getattr(result.config.model, "primary", None))
+        if chosen in methods:
+            return chosen
+    return "sma" if "sma" in methods else methods[0]
+
+
+def group_means_table(result):
+    """The run's group means on the log scale (``group_means.csv``), or None.
+
+    A DataFrame ``group, n, mean_log_x, mean_log_y, se_log_x, se_log_y``;
+    figures draw the table the run computed and never compute one.
+    """
+    table = (result.tables or {}).get("group_means")
+    if isinstance(table, pd.DataFrame) and len(table):
+        return table
+    return None
+
+
+def fit_xrange(fit, result):
+    """The natural-unit x range a fit was fitted to (else the range of the run's points)."""
+    if fit.x_range is not None:
+        return fit.x_range
+    x = result.data.points["x"].to_numpy()
+    return float(x.min()), float(x.max())
+
+
+def factor_of(result, scope: str, group: str, method: str) -> dict:
+    """The run's correction factor of one fit, for the equation box."""
+    kind = result.config.prediction.correction
+    col = f"{kind}_factor"
+    fits = result.fits
+    if kind == "none" or col not in fits:
+        return {}
+    row = fits[(fits["scope"] == scope) & (fits["group"] == group) & (fits["method"] == method)]
+    if not len(row):
+        return {}
+    return {"factor": float(row[col].iloc[0]), "correction": kind}
+
+
+def common_slope_fit(result, method: str):
+    """The run's common within-group slope of ``method`` (object with ``slope`` and
+    ``slope_ci``): its fits row of scope ``common``, or None when the run has none.
+
+    Never estimated here: a run that did not compare its groups by ``method``
+    draws no common slope."""
+    fit = result.line_fits.get(("common", "", method))
+    if fit is not None:
+        return fit
+    fits = result.fits
+    if fits is not None and len(fits) and "scope" in fits:
+        # the run's own estimate and interval (fits.csv, scope "common"): the numbers
+        # the report leads with, not a second computation
+        rows = fits[(fits["scope"] == "common") & (fits["method"] == method)]
+        if len(rows) and np.isfinite(float(rows["slope"].iloc[0])):
+            row = rows.iloc[0]
+            return SimpleNamespace(slope=float(row["slope"]),
+                                   slope_ci=ConfidenceInterval(float(row["slope_low"]),
+                                                               float(row["slope_high"])))
+    return None
+
+
+def slopes_agree(result, method: str) -> bool:
+    """True when the run compared groups by ``method`` and found no difference in slope."""
+    table = (result.tables or {}).get("group_tests")
+    if table is None or not len(table) or "test" not in table:
+        return False
+    rows = table[(table["method"] == method) & (table["test"] == "slopes_equal")]
+    return bool(len(rows)) and float(rows["p_value"].iloc[0]) > 1 - result.config.model.confidence

@@ -1,0 +1,278 @@
+"""The natural-scale figure of a run: back-transformed curves with their bands and the
+requested predictions, on arithmetic axes (y always in natural units)."""
+
+from __future__ import annotations
+
+import matplotlib
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+from ..stats.predictions import predict, saved_factor
+from ..stats.schema import method_label
+from .figure_inputs import axis_label, fit_xrange, run_groups, run_methods, scatter_groups
+from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE, STYLE,
+                           arith_formatter, figure_legend, group_style, many_groups_handle,
+                           new_figure, styled)
+
+__all__ = ["plot_natural", "make_natural"]
+
+#: Above this many decades of x the natural-scale plot zooms on the central data
+#: (x up to :data:`NATURAL_ZOOM_QUANTILE`) and adds a full-range panel (or inset).
+NATURAL_ZOOM_DECADES = 2.0
+NATURAL_ZOOM_QUANTILE = 90.0
+_PRED_COLOUR = "#000000"
+
+
+def _natural_predictions(result, methods: list):
+    """Rows of the run's ``predictions`` table drawn on the natural-scale plot:
+    scope ``pooled`` (the curves drawn), for the methods drawn; None if there are none."""
+    table = (result.tables or {}).get("predictions")
+    if not isinstance(table, pd.DataFrame) or not len(table) or "scope" not in table:
+        return None
+    rows = table[(table["scope"] == "pooled") & table["method"].isin(methods)]
+    rows = rows[np.isfinite(rows["y"].to_numpy(dtype=float))]
+    return rows if len(rows) else None
+
+
+def _run_factor(result, method: str, correction: str):
+    """The run's correction factor of the pooled ``method`` line (smearing, ratio), or None
+    (parametric and none follow from the fit itself).
+
+    The factors were computed once by the prediction stage (the saved fits;
+    else the fits table's ``<correction>_factor`` column); the figure never
+    computes them from the points again.
+    """
+    if correction not in ("smearing", "ratio"):
+        return None
+    saved = result.saved_fits.get(("pooled", "", method))
+    if saved is not None:
+        return saved_factor(saved, correction)
+    fits, col = result.fits, f"{correction}_factor"
+    if fits is not None and col in fits:
+        row = fits[(fits["scope"] == "pooled") & (fits["method"] == method)]
+        if len(row) and np.isfinite(float(row[col].iloc[0])):
+            return float(row[col].iloc[0])
+    return None
+
+
+def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
+                    small: bool = False) -> tuple:
+    """Points, corrected curves with bands, and prediction markers on ``ax``.
+
+    Returns (legend handles, (x, y) arrays of everything drawn for the limits).
+    """
+    pts = result.data.points
+    size = 5 if small else 10
+    handles = []
+    xs_all, ys_all = [pts["x"].to_numpy(float)], [pts["y"].to_numpy(float)]
+    if groups:
+        scatter_groups(ax, pts, groups, s=size, edgecolor="white", linewidth=0.3,
+                        alpha=0.75, zorder=2)
+        if len(groups) <= LEGEND_MAX_GROUPS:
+            for i, g in enumerate(groups):
+                colour, marker = group_style(i)
+                handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
+                                      markersize=4, label=g))
+        else:
+            handles.append(many_groups_handle(len(groups)))
+    else:
+        ax.scatter(pts["x"], pts["y"], s=size, facecolor=PALETTE[0], edgecolor="white",
+                   linewidth=0.3, alpha=0.8, zorder=2)
+        handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
+                              markersize=4, label="data"))
+    n_curves = 0
+    for method in methods:
+        fit = result.line_fits.get(("pooled", "", method))
+        if fit is None:
+            continue
+        lo, hi = fit_xrange(fit, result)
+        xs = np.linspace(lo, hi, 240)
+        xs[0], xs[-1] = lo, hi
+        pred = predict(fit, xs, correction=correction, interval=interval,
+                       factor=_run_factor(result, method, correction))
+        shade = METHOD_SHADES.get(method, "#333333")
+        ax.fill_between(xs, pred.y_low, pred.y_high, color=shade, alpha=0.10, lw=0, zorder=1)
+        ax.plot(xs, pred.y, color=shade, lw=0.9 if small else 1.2,
+                ls=METHOD_DASHES.get(method, "-"), zorder=4)
+        xs_all += [xs, xs]
+        ys_all += [np.asarray(pred.y_high, float), np.asarray(pred.y, float)]
+        n_curves += 1
+        handles.append(Line2D([], [], color=shade, lw=1.2, ls=METHOD_DASHES.get(method, "-"),
+                              label=method_label(method)))
+    if n_curves:
+        handles.append(matplotlib.patches.Patch(
+            color="#4d4d4d", alpha=0.2, lw=0,
+            label=f"{100 * result.config.model.confidence:g}% {interval} band"))
+    if preds is not None:
+        x = preds["x"].to_numpy(float)
+        y = preds["y"].to_numpy(float)
+        low = preds["y_low"].to_numpy(float)
+        high = preds["y_high"].to_numpy(float)
+        extra = preds["extrapolated"].astype(bool).to_numpy()
+        pct = f"{100 * result.config.model.confidence:g}%"
+        kinds = preds["interval"].iloc[0] if "interval" in preds else interval
+        ms = 3.0 if small else 4.5
+        for flag, style, label in (
+                (False, dict(marker="D", mfc=_PRED_COLOUR, ls="-"),
+                 f"prediction ± {pct} {kinds} interval"),
+                (True, dict(marker="D", mfc="white", ls=(0, (2, 1.5))),
+                 "extrapolated prediction (beyond fitted x)")):
+            sel = extra == flag
+            if not np.any(sel):
+                continue
+            for xi, yi, li, hi_ in zip(x[sel], y[sel], low[sel], high[sel]):
+                err = ([[max(yi - li, 0.0)], [max(hi_ - yi, 0.0)]]
+                       if np.isfinite(li) and np.isfinite(hi_) else None)
+                cont = ax.errorbar([xi], [yi], yerr=err, fmt="none", ecolor=_PRED_COLOUR,
+                                   elinewidth=0.8, capsize=2.0 if small else 2.5,
+                                   capthick=0.8, zorder=6)
+                if err is not None:
+                    for bar in cont.lines[2]:
+                        bar.set_linestyle(style["ls"])
+                ax.plot([xi], [yi], ls="none", marker=style["marker"], markersize=ms,
+                        markerfacecolor=style["mfc"], markeredgecolor=_PRED_COLOUR,
+                        markeredgewidth=0.8, zorder=7,
+                        gid="prediction-extrapolated" if flag else "prediction")
+            handles.append(Line2D([], [], color=_PRED_COLOUR, lw=0.8, ls=style["ls"],
+                                  marker=style["marker"], markersize=4,
+                                  markerfacecolor=style["mfc"],
+                                  markeredgecolor=_PRED_COLOUR, label=label))
+            xs_all.append(x[sel])
+            ys_all += [np.where(np.isfinite(high[sel]), high[sel], y[sel])]
+    return handles, (np.concatenate(xs_all), np.concatenate(ys_all))
+
+
+def _natural_limits(ax, drawn, x_hi: float) -> None:
+    """Arithmetic axes from 0 to just past ``x_hi`` and to the top of what is drawn there."""
+    x, y = drawn
+    ok = np.isfinite(x) & np.isfinite(y) & (x <= x_hi * 1.04)
+    top = float(np.max(y[ok])) if np.any(ok) else 1.0
+    ax.set_xlim(0, x_hi * 1.04)
+    ax.set_ylim(0, top * 1.05 if top > 0 else 1.0)
+    for axis in (ax.xaxis, ax.yaxis):
+        axis.set_major_locator(MaxNLocator(5, steps=[1, 2, 2.5, 5, 10], min_n_ticks=3))
+        axis.set_major_formatter(FuncFormatter(arith_formatter))
+
+
+def _inset_corner(ax, drawn) -> list:
+    """Bounds (axes fraction) of the inset corner covering fewest drawn samples."""
+    x, y = drawn
+    ok = np.isfinite(x) & np.isfinite(y)
+    frac = ax.transLimits.transform(np.column_stack([x[ok], y[ok]]))
+    w, h = 0.42, 0.38
+    best, best_n = None, None
+    for x0, y0 in ((0.56, 0.04), (0.06, 0.58), (0.56, 0.58), (0.06, 0.04)):
+        n = int(np.sum((frac[:, 0] >= x0 - 0.04) & (frac[:, 0] <= x0 + w + 0.02)
+                       & (frac[:, 1] >= y0 - 0.06) & (frac[:, 1] <= y0 + h + 0.02)))
+        if best_n is None or n < best_n:
+            best, best_n = [x0, y0, w, h], n
+    return best
+
+
+@styled
+def plot_natural(result, *, ax=None, methods=None, correction: str | None = None,
+                 interval: str = "prediction", size: str = "single"):
+    """Back-transformed pooled curves with their bands and the requested predictions,
+    on arithmetic axes (y always in natural units).
+
+    Parameters
+    ----------
+    result : RunResult
+    ax : Axes, optional
+    methods : sequence of str, optional
+    correction : {"smearing", "parametric", "ratio", "none"}, optional
+        Back-transformation correction; defaults to ``prediction.correction``
+        of the config.
+    interval : {"prediction", "confidence"}
+    size : {"single", "double"}
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The main panel.
+
+    Notes
+    -----
+    Curves and bands from :func:`scaling.stats.predictions.predict` (corrected mean,
+    prediction bounds as quantiles; Duan 1983 for smearing), over the fitted
+    range of x only.
+
+    Data spanning decades: when x spans more than :data:`NATURAL_ZOOM_DECADES`
+    decades, an arithmetic axis over the whole range would push most points
+    into its left corner.  The main panel then shows x from 0 to the
+    :data:`NATURAL_ZOOM_QUANTILE`-th percentile of x (y scaled to what is drawn
+    there), and a second, smaller panel below it (an inset in the emptiest
+    corner when ``ax`` is given) shows the full range with the zoomed window
+    shaded.  Both axes stay arithmetic, so the curve, its bias-corrected mean
+    and its band are read in natural units; no log, square-root or symlog scale.
+
+    Predictions: the rows of the run's ``predictions`` table for the pooled
+    curves drawn (scope ``pooled``, the methods drawn) are marked as black
+    diamonds with their interval as an error bar; extrapolated ones (outside
+    the fitted x range) are open diamonds with dashed bars, with their own
+    legend entry.  Predictions beyond the zoomed window appear in the
+    full-range panel only.
+    """
+    own = ax is None
+    pts = result.data.points
+    x = pts["x"].to_numpy(dtype=float)
+    x = x[np.isfinite(x) & (x > 0)]
+    decades = float(np.log10(x.max() / x.min())) if len(x) else 0.0
+    zoom = decades > NATURAL_ZOOM_DECADES
+    overview = None
+    if own:
+        if zoom:
+            fig = new_figure(size, 1.2)
+            grid = fig.add_gridspec(2, 1, height_ratios=[2.4, 1.0])
+            ax = fig.add_subplot(grid[0])
+            overview = fig.add_subplot(grid[1])
+        else:
+            ax = new_figure(size, 0.85).add_subplot()
+    methods = run_methods(result, methods)
+    groups = run_groups(result)
+    correction = correction or result.config.prediction.correction
+    preds = _natural_predictions(result, methods)
+    handles, drawn = _natural_layers(ax, result, methods, groups, correction, interval, preds)
+    x_all = np.concatenate([x, drawn[0][np.isfinite(drawn[0])]])
+    x_max = float(np.max(x_all)) if len(x_all) else 1.0
+    x_hi = float(np.percentile(x, NATURAL_ZOOM_QUANTILE)) if zoom else x_max
+    _natural_limits(ax, drawn, x_hi)
+    if any(isinstance(h, matplotlib.patches.Patch) for h in handles):   # curves drawn
+        what = "mean" if correction != "none" else "median"
+        title = f"{what.capitalize()} of y ({correction} correction)"
+        if zoom:
+            title += (f"\nx up to its {NATURAL_ZOOM_QUANTILE:g}th percentile"
+                      + ("; full range below" if own else ""))
+        ax.set_title(title, loc="left", fontsize=STYLE["font.size"] - 0.5)
+    if zoom:
+        if overview is None:
+            overview = ax.inset_axes(_inset_corner(ax, drawn))
+            overview.tick_params(labelsize=5, length=2, pad=1)
+        _natural_layers(overview, result, methods, groups, correction, interval, preds,
+                        small=True)
+        _natural_limits(overview, drawn, x_max)
+        overview.axvspan(0, x_hi * 1.04, color="#000000", alpha=0.06, lw=0, zorder=0)
+        note = "Full range (shaded: the panel above)" if own else "Full range (shaded: main view)"
+        overview.set_title(note, loc="left", fontsize=STYLE["font.size"] - (1 if own else 2),
+                           pad=2)
+        if own:
+            overview.set_xlabel(axis_label(result, "x"))
+    if not (zoom and own):
+        ax.set_xlabel(axis_label(result, "x"))
+    ax.set_ylabel(axis_label(result, "y"))
+    if own:
+        figure_legend(ax.figure, handles, 3 if len(handles) > 4 else 2, handlelength=2.0,
+                       columnspacing=0.8, handletextpad=0.4,
+                       fontsize=STYLE["font.size"] - 1)   # about a quarter of the height
+    else:
+        ax.legend(handles=handles, loc="best")
+    return ax
+
+
+@styled
+def make_natural(result, *, size: str = "single", **kwargs) -> Figure:
+    """The natural-scale plot as a Figure (see :func:`plot_natural`)."""
+    return plot_natural(result, size=size, **kwargs).figure

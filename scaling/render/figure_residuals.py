@@ -1,0 +1,141 @@
+"""The residual figure of a run: for each method, residuals of the pooled line on the
+log scale against position along the line, and against normal quantiles."""
+
+from __future__ import annotations
+
+import numpy as np
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.ticker import MaxNLocator
+from scipy import stats
+
+from ..stats.schema import method_label
+from .figure_inputs import run_groups, run_methods
+from .figure_style import (LEGEND_MAX_GROUPS, PAGE_HEIGHT, SIZES, STYLE, agg_figure,
+                           figure_legend, group_style, many_groups_handle, new_figure,
+                           scatter_coded, styled)
+
+__all__ = ["plot_residuals", "make_residuals"]
+
+
+def _residuals(fit, X: np.ndarray, Y: np.ndarray) -> tuple:
+    """(position along the line, residual) on the log scale for one fit.
+
+    OLS: fitted value a + bX against the vertical residual Y - a - bX.
+    SMA: Y + bX against Y - bX - a; MA: X + bY against Y - bX - a (the
+    residual and the axis score are uncorrelated for these lines; Warton,
+    Wright, Falster & Westoby 2006, Biol. Rev. 81:259, section on
+    checking assumptions).
+    """
+    b, a = fit.slope, fit.intercept
+    resid = Y - a - b * X
+    if fit.method == "sma":
+        return Y + b * X, resid
+    if fit.method == "ma":
+        return X + b * Y, resid
+    return a + b * X, resid
+
+
+_FITTED_LABEL = {"ols": "Fitted value (log scale)"}
+_POSITION_LABEL = "Position along the line (log scale)"
+
+
+def _normal_quantiles(n: int) -> np.ndarray:
+    """Blom (1958) plotting positions (i - 3/8)/(n + 1/4) as standard normal quantiles.
+
+    Blom, G. (1958) *Statistical Estimates and Transformed Beta-Variables*.
+    Wiley, New York (citation from memory).
+    """
+    i = np.arange(1, n + 1)
+    return stats.norm.ppf((i - 0.375) / (n + 0.25))
+
+
+@styled
+def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "fitted",
+                   scope: str = "pooled", size: str = "single"):
+    """One residual panel for one fit: against fitted position, or normal quantiles.
+
+    Parameters
+    ----------
+    result : RunResult
+    ax : Axes, optional
+    method : str, optional
+        Defaults to the run's first method.
+    kind : {"fitted", "normal"}
+        ``fitted``: residuals against position along the line;
+        ``normal``: ordered residuals against normal quantiles, with the line
+        through the quartiles.
+    scope : {"pooled"}
+        Residuals are drawn for the pooled fit (the one fitted to the points).
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+    """
+    method = method or result.config.model.methods[0]
+    if ax is None:
+        ax = new_figure(size, 0.8).add_subplot()
+    fit = result.line_fits.get((scope, "", method))
+    pts = result.data.points
+    if fit is None:
+        ax.text(0.5, 0.5, f"{method_label(method)}: no estimable fit", ha="center",
+                va="center", transform=ax.transAxes)
+        return ax
+    X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
+    pos, resid = _residuals(fit, X, Y)
+    groups = run_groups(result)
+    codes = (np.searchsorted(groups, pts["group"].astype(str).to_numpy())
+             if groups else np.zeros(len(pts), dtype=int))
+    if kind == "normal":
+        order = np.argsort(resid)
+        q = _normal_quantiles(resid.size)
+        scatter_coded(ax, q, resid[order], codes[order], len(groups), s=9,
+                       edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
+        if resid.size >= 4:
+            q1, q3 = np.percentile(resid, [25, 75])
+            z1, z3 = stats.norm.ppf([0.25, 0.75])
+            slope = (q3 - q1) / (z3 - z1)
+            zz = np.array([q.min(), q.max()])
+            ax.plot(zz, q1 + slope * (zz - z1), color="#4d4d4d", lw=0.8, zorder=1)
+        ax.set_xlabel("Expected if normal")
+        ax.set_ylabel("Residual (log scale)")
+        ax.set_title(f"{method_label(method)}: normality", loc="left",
+                     fontsize=STYLE["font.size"] - 0.5)
+    else:
+        scatter_coded(ax, pos, resid, codes, len(groups), s=9, edgecolor="white",
+                       linewidth=0.3, alpha=0.85, zorder=2)
+        ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
+        ax.set_xlabel(_FITTED_LABEL.get(method, _POSITION_LABEL))
+        ax.set_ylabel("Residual (log scale)")
+        ax.set_title(f"{method_label(method)}: residuals", loc="left",
+                     fontsize=STYLE["font.size"] - 0.5)
+    lim = float(np.max(np.abs(resid))) * 1.15 if resid.size else 1.0
+    if not lim > 0:   # perfect fit: all residuals zero
+        lim = 1.0
+    ax.set_ylim(-lim, lim)
+    ax.xaxis.set_major_locator(MaxNLocator(5))
+    ax.yaxis.set_major_locator(MaxNLocator(5, symmetric=True))
+    return ax
+
+
+@styled
+def make_residuals(result, *, size: str = "single", methods=None) -> Figure:
+    """Residual panels: one row per method, residuals vs position and normal quantiles."""
+    methods = run_methods(result, methods)
+    width = SIZES.get(size, SIZES["single"])
+    row_h = width * (0.42 if size == "single" else 0.26)
+    row_h = min(row_h, PAGE_HEIGHT / len(methods))   # the whole figure fits a page
+    fig = agg_figure(figsize=(width, row_h * len(methods) + 0.35), layout="constrained")
+    axes = fig.subplots(len(methods), 2, squeeze=False)
+    for i, method in enumerate(methods):
+        plot_residuals(result, ax=axes[i, 0], method=method, kind="fitted")
+        plot_residuals(result, ax=axes[i, 1], method=method, kind="normal")
+    groups = run_groups(result)
+    if len(groups) > LEGEND_MAX_GROUPS:
+        figure_legend(fig, [many_groups_handle(len(groups))], 1)
+    elif groups:
+        handles = [Line2D([], [], ls="none", marker=group_style(i)[1],
+                          color=group_style(i)[0], markersize=4, label=g)
+                   for i, g in enumerate(groups)]
+        figure_legend(fig, handles, min(len(groups), 3 if size == "single" else 6))
+    return fig

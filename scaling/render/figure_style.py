@@ -1,0 +1,292 @@
+"""The look of every figure: palette, sizes, text style, natural-unit log axes, saving.
+
+Look (our own): open axes with outward ticks, log axes labelled in natural
+units (1, 10, 100, 1 000 ...; powers of ten written 10^k once the axis
+spans values outside 0.001 to 100 000), groups told apart by colour *and*
+marker from the Okabe & Ito (2008) colour-blind-safe palette, fitted lines
+drawn only over the range of x they were fitted to.
+
+Sizes follow common journal column widths: ``single`` 85 mm, ``double``
+180 mm (common practice, no source).  Text is 7 pt (tick labels 6.5 pt) at
+print size.  PDF and SVG keep text as text (TrueType fonts embedded in PDF;
+SVG text left as ``<text>``).  Nothing here uses pyplot state.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+
+import matplotlib
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.ticker import Formatter, LogLocator, NullFormatter
+
+from ..stats.schema import CATALOGUE
+
+__all__ = ["STYLE", "PALETTE", "MARKERS", "SIZES", "METHOD_DASHES", "METHOD_SHADES",
+           "METHOD_MARKERS", "PHYLO_COLOUR", "LEGEND_MAX_GROUPS", "MAX_DRAWN_POINTS",
+           "format_natural", "NaturalLogFormatter", "natural_log_axis", "styled",
+           "save_figure"]
+
+# Okabe & Ito (2008) colour-blind-safe palette (yellow last: weak on white).
+PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
+           "#000000", "#F0E442"]
+MARKERS = ["o", "s", "^", "D", "v", "P", "X", "h"]
+# Methods are told apart by dash pattern (lines) and by a neutral shade.
+METHOD_DASHES = {name: m.dash for name, m in CATALOGUE.items()}
+METHOD_SHADES = {name: m.shade for name, m in CATALOGUE.items()}
+METHOD_MARKERS = {name: m.marker for name, m in CATALOGUE.items()}
+PHYLO_COLOUR = "#b2182b"   # phylogenetic lines in the scaling plot (one colour, method dashes)
+#: Above this many groups figures list no group in the legend (one entry says
+#: so) and draw the groups in a few batched artists instead of one per group.
+LEGEND_MAX_GROUPS = 12
+PAGE_HEIGHT = 9.0        # inches: an A4 or letter page less its margins
+#: Scatter plots draw a seeded random subset of this many points above it (stated on the axes).
+MAX_DRAWN_POINTS = 5_000
+MM = 1 / 25.4
+SIZES = {"single": 85 * MM, "double": 180 * MM}
+THIN = "\u2009"   # thin space between digit groups: 1 000, 10 000
+
+STYLE = {
+    "font.family": "DejaVu Sans",
+    "font.size": 7,
+    "axes.labelsize": 7,
+    "axes.titlesize": 7,
+    "axes.linewidth": 0.6,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "xtick.labelsize": 6.5,
+    "ytick.labelsize": 6.5,
+    "xtick.direction": "out",
+    "ytick.direction": "out",
+    "xtick.major.width": 0.6,
+    "ytick.major.width": 0.6,
+    "xtick.minor.width": 0.4,
+    "ytick.minor.width": 0.4,
+    "xtick.major.size": 3.0,
+    "ytick.major.size": 3.0,
+    "xtick.minor.size": 1.6,
+    "ytick.minor.size": 1.6,
+    "legend.fontsize": 6.5,
+    "legend.frameon": False,
+    "lines.linewidth": 1.0,
+    "mathtext.default": "regular",
+    "pdf.fonttype": 42,
+    "ps.fonttype": 42,
+    "svg.fonttype": "none",
+    "svg.hashsalt": "scaling",
+    "figure.dpi": 100,
+}
+
+
+def styled(func):
+    """Run ``func`` inside :data:`STYLE` (text sizes are fixed when artists are made)."""
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(STYLE):
+            return func(*args, **kwargs)
+    return wrapper
+
+
+# --------------------------------------------------------------------------
+# numbers and ticks in natural units
+
+
+def group_digits(text: str) -> str:
+    """Insert thin spaces every three digits left of the decimal point (5 digits up)."""
+    sign = "-" if text.startswith("-") else ""
+    text = text.lstrip("-")
+    whole, _, frac = text.partition(".")
+    if len(whole) >= 4:
+        groups = []
+        while whole:
+            groups.insert(0, whole[-3:])
+            whole = whole[:-3]
+        whole = THIN.join(groups)
+    return sign + whole + ("." + frac if frac else "")
+
+
+def plain_number(value: float, digits: int = 3) -> str:
+    """``value`` with ``digits`` significant digits, never in e-notation, digits grouped."""
+    if value == 0 or not math.isfinite(value):
+        return "0" if value == 0 else str(value)
+    k = math.floor(math.log10(abs(value)))
+    decimals = max(digits - 1 - k, 0)
+    text = f"{round(value, decimals):.{decimals}f}"
+    return group_digits(text)
+
+
+def format_natural(value: float, _pos=None) -> str:
+    """Tick text for a positive value on a log axis: 0.01, 0.1, 1, 2, 10, 1 000, 10 000.
+
+    Values from 0.001 to 100 000 are written out (digits grouped by thin
+    spaces); others as powers of ten in mathtext (``$10^{6}$``).
+    """
+    if not (value > 0 and math.isfinite(value)):
+        return ""
+    k = math.log10(value)
+    if abs(k - round(k)) < 1e-9 and not -3 <= round(k) <= 5:
+        return f"$10^{{{int(round(k))}}}$"
+    text = plain_number(value, 3)
+    return text.rstrip("0").rstrip(".") if "." in text else text
+
+
+class NaturalLogFormatter(Formatter):
+    """Major tick labels of a log axis in natural units, one style per axis.
+
+    If every labelled tick lies in [0.001, 100 000] the numbers are written
+    out (``0.1``, ``1``, ``1 000``); otherwise every tick is written as a
+    power of ten, so one axis never mixes the two styles.
+    """
+
+    def __init__(self):
+        self._powers = False
+
+    def set_locs(self, locs):
+        super().set_locs(locs)
+        lo, hi = self.axis.get_view_interval() if self.axis is not None else (1, 1)
+        lo, hi = min(lo, hi), max(lo, hi)
+        shown = [v for v in locs if v > 0 and lo * (1 - 1e-9) <= v <= hi * (1 + 1e-9)]
+        self._powers = any(v < 1e-3 * (1 - 1e-9) or v > 1e5 * (1 + 1e-9) for v in shown)
+
+    def __call__(self, value, pos=None):
+        if not (value > 0 and math.isfinite(value)):
+            return ""
+        if self._powers:
+            k = math.log10(value)
+            if abs(k - round(k)) < 1e-6:
+                return f"$10^{{{int(round(k))}}}$"
+            mant = value / 10 ** math.floor(k)
+            return f"${mant:.2g}\\times10^{{{int(math.floor(k))}}}$"
+        return format_natural(value)
+
+
+def natural_log_axis(ax, which: str = "both") -> None:
+    """Log scale on ``ax`` with natural-unit major tick labels and minor ticks.
+
+    Spans under two decades get majors at 1, 2, 5 x 10^k (2, 5, 20, 50 ...)
+    so that intermediate values are labelled; wide spans get every decade (or every
+    2nd, 3rd ... decade when more than ~8 decades are shown).
+    """
+    names = ("x", "y") if which == "both" else (which,)
+    for name in names:
+        axis = ax.xaxis if name == "x" else ax.yaxis
+        getattr(ax, f"set_{name}scale")("log")
+        lo, hi = sorted(getattr(ax, f"get_{name}lim")())
+        # difference of logs, not log of the ratio: hi / lo overflows for 1e-300..1e300
+        decades = math.log10(hi) - math.log10(lo) if lo > 0 and hi > 0 else 1.0
+        if decades < 2.0:
+            axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0), numticks=12))
+            axis.set_minor_locator(LogLocator(base=10, subs=np.arange(1, 10) * 1.0,
+                                              numticks=40))
+        else:
+            axis.set_major_locator(LogLocator(base=10, numticks=9))
+            axis.set_minor_locator(LogLocator(base=10, subs=np.arange(2, 10) * 1.0,
+                                              numticks=40 if decades <= 8 else 2))
+        axis.set_major_formatter(NaturalLogFormatter())
+        axis.set_minor_formatter(NullFormatter())
+
+
+def log_margins(ax, margin: float) -> None:
+    """Autoscale log axes with ``margin``, or with none where a margin would leave the
+    floating-point range (data spanning 1e-300 to 1e300: 5% of 600 decades is 1e330)."""
+    ax.margins(margin)
+    try:
+        with np.errstate(over="ignore", invalid="ignore"):
+            ax.autoscale_view()
+        limits = np.array([*ax.get_xlim(), *ax.get_ylim()], dtype=float)
+        ok = bool(np.all(np.isfinite(limits)) and np.all(limits > 0))
+    except ValueError:
+        ok = False
+    if not ok:
+        ax.margins(0)
+        ax.autoscale_view()
+
+
+def arith_formatter(value, _pos=None) -> str:
+    if not math.isfinite(value):
+        return ""
+    if value == 0:
+        return "0"
+    text = f"{value:.6g}"
+    if "e" in text:
+        return f"{value:.1e}"
+    return group_digits(text)
+
+
+def group_style(i: int) -> tuple:
+    return PALETTE[i % len(PALETTE)], MARKERS[i % len(MARKERS)]
+
+
+def scatter_coded(ax, x, y, codes, n_groups: int, **kwargs) -> None:
+    """Scatter with group ``codes``: one artist per group present, or, above
+    :data:`LEGEND_MAX_GROUPS` groups, one artist with a colour per point, drawn in a
+    seeded random order (so no group's colour always lies on top)."""
+    x, y, codes = np.asarray(x), np.asarray(y), np.asarray(codes)
+    n_all = len(x)
+    if n_all > MAX_DRAWN_POINTS:   # drawing cost grows with points: a stated subsample
+        keep = np.sort(np.random.default_rng(0).choice(n_all, MAX_DRAWN_POINTS,
+                                                       replace=False))
+        x, y, codes = x[keep], y[keep], codes[keep]
+        note = ax.text(0.99, 0.01, f"{group_digits(str(MAX_DRAWN_POINTS))} of "
+                       f"{group_digits(str(n_all))} points\nshown; all are fitted",
+                       transform=ax.transAxes, ha="right", va="bottom", fontsize=5.5,
+                       color="#555555", zorder=9, linespacing=1.1,
+                       bbox=dict(boxstyle="square,pad=0.15", facecolor="white", alpha=0.75,
+                                 edgecolor="none"))
+        note.set_in_layout(False)   # a note inside the axes must not squeeze the layout
+    if n_groups <= LEGEND_MAX_GROUPS:
+        for c in np.unique(codes):
+            colour, marker = group_style(int(c))
+            sel = codes == c
+            ax.scatter(x[sel], y[sel], marker=marker, facecolor=colour, **kwargs)
+        return
+    order = np.random.default_rng(1).permutation(len(x))
+    colours = np.asarray(PALETTE, dtype=object)[codes[order] % len(PALETTE)]
+    ax.scatter(x[order], y[order], marker="o", facecolor=list(colours), **kwargs)
+
+
+def many_groups_handle(n_groups: int):
+    """The one legend entry standing for groups too many to list."""
+    return Line2D([], [], ls="none", marker="o", color="#888888", markersize=4,
+                  label=f"{group_digits(str(n_groups))} groups (colours cycle; too many "
+                        "to list)")
+
+def new_figure(size: str, aspect: float) -> Figure:
+    width = SIZES.get(size, SIZES["single"])
+    return agg_figure(figsize=(width, width * aspect), layout="constrained")
+
+
+def figure_legend(fig: Figure, handles: list, ncol: int, **kwargs):
+    """Legend below the axes; fewer columns while it is wider than the figure."""
+    ncol = max(1, min(ncol, len(handles)))
+    while True:
+        legend = fig.legend(handles=handles, loc="outside lower center", ncol=ncol, **kwargs)
+        if ncol == 1:
+            return legend
+        # The legend's width depends only on its entries and fonts, not on where the
+        # layout puts it: measured with the figure's renderer, no draw of the figure
+        # (a draw_without_rendering here ran constrained layout once per try).
+        if legend.get_window_extent().width <= fig.bbox.width * 0.98:
+            return legend
+        legend.remove()
+        ncol -= 1
+
+def agg_figure(**kwargs) -> Figure:
+    """A Figure with an Agg canvas attached (no pyplot): layout and text sizes are then
+    measured with the renderer that draws the PNG, which is also faster than a bare canvas."""
+    fig = Figure(**kwargs)
+    FigureCanvasAgg(fig)
+    return fig
+
+def save_figure(fig: Figure, target, fmt: str, dpi: int) -> None:
+    """Save ``fig`` as ``fmt`` in the house style, without dates (reruns give the same file)."""
+    # No creation dates in the files, so reruns give identical figures.
+    meta = {"png": {"Software": None}, "pdf": {"CreationDate": None, "Producer": None},
+            "svg": {"Date": None}}.get(fmt, {})
+    with matplotlib.rc_context(STYLE):
+        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+
