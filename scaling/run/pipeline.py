@@ -24,7 +24,7 @@ from ..io.config import Config, config_from_dict, load_config
 from ..io.tables import CleanData, load_data
 from ..stats._display import frame_html, short_repr
 from ..errors import DataError, ScalingWarning
-from ..stats.common_slope import common_slope_rows
+from .groups import common_slope_rows
 from ..stats.lines import MIN_N, base_label, parse_log_base
 from ..stats.moments import group_moments, moments
 from . import several_predictors as multi_stage
