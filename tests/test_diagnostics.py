@@ -16,6 +16,7 @@ from scipy import stats
 from statsmodels.stats.diagnostic import het_breuschpagan
 from statsmodels.stats.outliers_influence import OLSInfluence
 
+from scaling.render.findings import check_verdict, diagnostics_summary, error_structure_verdict
 from scaling.stats.error_structure import compare_error_structure
 from scaling.stats.residual_checks import Diagnostics, diagnose, quadratic_t
 from scaling.errors import ConfigError, DataError
@@ -63,7 +64,7 @@ class TestDiagnose:
         bp = diagnose(fit, X, Y).check("constant_variance")
         assert_allclose(bp.statistic, 100 * r2, rtol=1e-10)
         assert_allclose(bp.p_value, stats.chi2.sf(100 * r2, 1), rtol=1e-10)
-        assert bp.flagged and "grows with size" in bp.verdict  # known truth: SD rises with X
+        assert bp.flagged and bp.direction == 1 and "grows with size" in check_verdict(bp)  # known truth: SD rises with X
 
     def test_cooks_distance_equals_statsmodels(self, cats):
         # Reference library: statsmodels OLSInfluence.cooks_distance; rows above 4/n
@@ -88,7 +89,7 @@ class TestDiagnose:
         fit = fit_line(X, Y, method="ols", log_base=None)
         diag = diagnose(fit, X, Y, rows=np.arange(101, 131))
         assert diag.influential_rows[0] == 130
-        assert "row 130" in diag.check("influence").verdict
+        assert "row 130" in check_verdict(diag.check("influence"))
 
     def test_curvature_equals_statsmodels(self):
         # Reference library: statsmodels OLS of Y on (1, X, X^2).
@@ -107,10 +108,10 @@ class TestDiagnose:
         diag = diagnose(fit_line(X, Y, method="ols", log_base=None), X, Y)
         check = diag.check("curvature")
         assert check.flagged and check.p_value < 0.001
-        assert "residuals show curvature: the exponent rises with size" in check.verdict
+        assert "residuals show curvature: the exponent rises with size" in check_verdict(check)
         Xd, Yd = _curved(b2=-0.08)
         down = diagnose(fit_line(Xd, Yd, method="ols", log_base=None), Xd, Yd)
-        assert "the exponent falls with size" in down.check("curvature").verdict
+        assert "the exponent falls with size" in check_verdict(down.check("curvature"))
 
     def test_exponent_crossing(self):
         # Exact law: for Y = 1 + 0.5 X + 0.1 X^2 the local slope 0.5 + 0.2 X equals 0.75 at
@@ -135,8 +136,8 @@ class TestDiagnose:
         frame = diag.to_frame()
         assert list(frame["check"]) == ["normality", "constant_variance", "curvature",
                                         "influence"]
-        assert {"check", "statistic", "p_value", "estimate", "verdict"} <= set(frame.columns)
-        assert len(diag.summary().splitlines()) == 4
+        assert {"check", "statistic", "p_value", "estimate", "finding"} <= set(frame.columns)
+        assert len(diagnostics_summary(diag).splitlines()) == 4
 
     def test_errors(self):
         X, Y = _curved(n=20)
@@ -255,7 +256,7 @@ class TestCompareErrorStructure:
         y = 10 * x ** 0.75 * np.exp(0.3 * rng.normal(size=50))
         res = compare_error_structure(x, y)
         assert res.preferred == "multiplicative"
-        assert "fitting on log scales is appropriate" in res.verdict
+        assert "fitting on log scales is appropriate" in error_structure_verdict(res)
         assert res.delta_aicc > 2 and res.weight_multiplicative > 0.5
         frame = res.to_frame()
         assert list(frame["error_model"]) == ["additive", "multiplicative"]
@@ -289,7 +290,8 @@ class TestDiagnoseExactPowerLaw:
         d = diagnose(fit, np.log10(x), np.log10(y), exponent_targets=(0.75,))
         assert not any(c.flagged for c in d.checks)
         assert all(math.isnan(c.p_value) for c in d.checks)
-        assert all("exact power law" in c.verdict for c in d.checks)
+        assert all("exact power law" in check_verdict(c) for c in d.checks)
+        assert {c.finding for c in d.checks} == {"exact_fit"}
         assert d.influential_rows == ()
 
     def test_scattered_data_still_diagnosed(self):

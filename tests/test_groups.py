@@ -24,6 +24,9 @@ import scaling.stats.common_slope as cs
 import scaling.stats.group_comparisons as gc
 import scaling.stats.group_means as gm
 from scaling import fit_line
+from scaling.render.findings import (comparison_note, comparison_summary, exclusion_reason,
+                                     means_left_out_text)
+from scaling.run.groups import common_slope_rows
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
 from scaling.stats.moments import group_moments
 
@@ -321,7 +324,7 @@ class TestCompareGroups:
         from statsmodels.stats.multitest import multipletests
         assert_allclose(slopes["p_adjusted"], multipletests(slopes["p_value"], method="holm")[1],
                         rtol=1e-12)
-        text = res.summary()
+        text = comparison_summary(res)
         assert text.startswith("Slopes differ among the 4 clade groups (SMA, LR = ")
         # known truth: c1 and c3 share slope 0.75, c0 (0.6) and c2 (0.95) differ from both
         assert "Pairs that differ (Holm-adjusted): c0 vs c1, c0 vs c2, c0 vs c3" in text
@@ -347,11 +350,17 @@ class TestCompareGroups:
     def test_small_groups_left_out_and_no_comparison(self):
         d = pd.DataFrame({"mass": [1, 2, 4, 8, 1, 2], "rate": [1, 2, 5, 8, 1, 3],
                           "clade": list("aaaabb")})
-        with pytest.warns(DegenerateDataWarning, match="groups left out"):
+        with pytest.warns(DegenerateDataWarning, match="groups left out.*b: too few \\(n = 2\\)"):
             res = gc.compare_groups(d, "mass", "rate", "clade")
-        assert not res.compared and res.excluded == (("b", "n = 2 < 3"),)
+        assert not res.compared and res.excluded == (
+            gm.Exclusion(group="b", reason="too_few", n=2, min_n=3),)
+        assert res.notes == ("too_few_groups",)
+        assert exclusion_reason(res.excluded[0]) == "n = 2 < 3"
         assert res.to_frame().empty and res.pairwise_frame().empty
-        assert res.summary().startswith("No SMA comparison of clade groups: fewer than two")
+        assert comparison_note(res) == ("fewer than two groups have at least 3 usable points "
+                                        "(1 of 2), so there is nothing to compare")
+        assert comparison_summary(res).startswith(
+            "No SMA comparison of clade groups: fewer than two")
         with pytest.raises(ConfigError, match="test must be one of"):
             res.test("elevation")
         with pytest.raises(DataError, match="no slopes_equal test: fewer than two"):
@@ -468,8 +477,9 @@ class TestCompareGroupsExactAndConstantData:
         # or a rounding-noise F with a tiny p-value
         assert np.isnan(res.test("slopes_equal").statistic)
         assert np.isnan(res.test("intercepts_equal").p_value)
-        assert "no residual scatter: an exact power law" in res.note
-        assert "no residual scatter: an exact power law" in res.summary()
+        assert res.notes == (("exact_ols",) if method == "ols" else ("exact_all",))
+        assert "no residual scatter: an exact power law" in comparison_note(res)
+        assert "no residual scatter: an exact power law" in comparison_summary(res)
         assert res.pairwise == ()
 
     def test_exact_lines_with_different_slopes_have_no_common_slope(self):
@@ -481,8 +491,9 @@ class TestCompareGroupsExactAndConstantData:
             res = gc.compare_groups(d, "mass", "rate", "clade", method="sma")
         # exact law: slopes 0.7 and 0.9 exactly; no common slope, so no interval
         assert np.isnan(res.common_slope_ci.low) and np.isnan(res.test("slopes_equal").statistic)
-        assert "exact slopes differ" in res.note
-        assert "no common slope" in res.summary()
+        assert res.notes == ("exact_all_slopes_differ",)
+        assert "exact slopes differ" in comparison_note(res)
+        assert "no common slope" in comparison_summary(res)
 
     @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
     def test_constant_y_group_left_out_with_reason(self, method):
@@ -490,12 +501,13 @@ class TestCompareGroupsExactAndConstantData:
         d = pd.DataFrame({"mass": rng.uniform(1, 100, 30), "clade": np.repeat(list("abc"), 10)})
         d["rate"] = d["mass"] ** 0.75 * np.exp(rng.normal(0, 0.1, 30))
         d.loc[d["clade"] == "c", "rate"] = 0.3   # log y differs only by rounding
-        with pytest.warns(DegenerateDataWarning, match="c: y does not vary"):
+        with pytest.warns(DegenerateDataWarning, match="c: y constant"):
             res = gc.compare_groups(d, "mass", "rate", "clade", method=method,
                                     calibration="chi2")
         assert res.groups == ("a", "b")
-        assert res.excluded == (("c", "y does not vary (log y constant up to rounding): "
-                                       "no line to compare"),)
+        assert [(e.group, e.reason) for e in res.excluded] == [("c", "y_constant")]
+        assert exclusion_reason(res.excluded[0]) == ("y does not vary (log y constant up to "
+                                                     "rounding): no line to compare")
         ref = gc.compare_groups(d[d["clade"] != "c"], "mass", "rate", "clade", method=method,
                                 calibration="chi2")
         # internal consistency: leaving the group out equals comparing the other two
@@ -526,9 +538,13 @@ class TestPairwiseLimit:
         assert res.test("intercepts_equal").p_value < 1e-6
         assert res.pairwise == () and res.pairwise_skipped and res.pairwise_max == 20
         assert res.pairwise_frame().empty
-        assert "pairwise comparisons skipped: 25 groups exceed pairwise_max = 20" in res.note
-        assert "Pairwise comparisons skipped: 25 groups exceed pairwise_max = 20" \
-            in res.summary()
+        assert res.notes == ("pairwise_skipped",)
+        assert ("pairwise comparisons skipped: 25 groups exceed pairwise_max = 20"
+                == comparison_note(res))
+        assert ("Pairwise comparisons skipped: 25 groups exceed pairwise_max = 20"
+                in comparison_summary(res))
+        assert ("exceed groups.pairwise_max = 20"
+                in comparison_summary(res, max_key="groups.pairwise_max"))
         more = gc.compare_groups(d, "lx", "ly", "g", method="ols", log_base=None,
                                  pairwise_max=25)
         assert not more.pairwise_skipped
@@ -551,16 +567,18 @@ class TestGroupsUsedByMeansLine:
         rng = np.random.default_rng(11)
         d = _frame(rng, [12, 15, 20, 9, 1], [0.75] * 5, fshift=[0, 0.5, 1.0, 1.6, 2.0])
         lx, ly, g = np.log10(d["mass"]), np.log10(d["rate"]), d["clade"]
-        with pytest.warns(DegenerateDataWarning, match="c4 \\(n = 1 < 3\\)"):
+        with pytest.warns(DegenerateDataWarning, match="c4: too few \\(n = 1\\)"):
             got = gm.fit_group_means(lx, ly, g, method="sma")
         with pytest.warns(DegenerateDataWarning):
             comp = gc.compare_groups(d, "mass", "rate", "clade", method="sma",
                                      calibration="chi2")
         used, excluded = gm.compared_groups(lx, ly, g, method="sma")
         assert used == comp.groups == ("c0", "c1", "c2", "c3")
-        assert excluded == comp.excluded == (("c4", "n = 1 < 3"),)
+        assert excluded == comp.excluded == (
+            gm.Exclusion(group="c4", reason="too_few", n=1, min_n=3),)
         assert got.n == 4
-        assert "groups left out of the line through the means: c4 (n = 1 < 3)" in got.note
+        assert (means_left_out_text(excluded)
+                == "groups left out of the line through the means: c4 (n = 1 < 3)")
         keep = g != "c4"
         means = pd.DataFrame({"x": lx[keep], "y": ly[keep], "g": g[keep]}).groupby("g").mean()
         ref = fit_line(means["x"], means["y"], method="sma", log_base=None)
@@ -758,10 +776,11 @@ class TestCommonSlopeTestSlope:
         rng = np.random.default_rng(3)
         d = _frame(rng, [25, 30, 35], [0.72] * 3, rshift=[0, 0.3, 0.6])
         res = gc.compare_groups(d, "mass", "rate", "clade", method="sma", calibration="chi2")
-        fit_rows, test_rows = cs.common_slope_rows({"sma": res.common},
-                                                   {"three_quarters": 0.75}, log_base="10")
+        fit_rows, test_rows = common_slope_rows({"sma": res.common},
+                                                {"three_quarters": 0.75}, log_base="10")
         assert fit_rows[0]["scope"] == "common" and fit_rows[0]["n"] == 90
-        assert "c0, c1, c2" in fit_rows[0]["note"]
+        assert fit_rows[0]["note"] == ("common within-group slope of 3 groups (c0, c1, c2); "
+                                       "each group keeps its own elevation")
         assert "intercept" not in fit_rows[0]
         assert test_rows[0]["p_value"] == res.common.test_slope(0.75).p_value
 

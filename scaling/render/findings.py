@@ -1,4 +1,4 @@
-"""Words for the findings of the numeric core: points to check, the spread of exponents.
+"""Words for the findings of the numeric core: groups, residual checks, points to check.
 
 ``scaling.stats`` returns findings as data (a code and the numbers in the
 fields of a frozen dataclass); these functions turn them into the sentences
@@ -8,10 +8,16 @@ single checks stay in :mod:`scaling.render.wording`.
 
 from __future__ import annotations
 
-from .wording import (estimate_outside_reason, format_p, group_residuals_reason,
-                      influence_reason, smearing_reason)
+import numpy as np
 
-__all__ = ["point_check_reason", "spread_summary"]
+from ..stats.schema import EXACT_LINE_NOTE, EXACT_NOTE
+from .wording import (estimate_outside_reason, format_p, group_residuals_reason,
+                      influence_reason, p_text, smearing_reason)
+
+__all__ = ["point_check_reason", "spread_summary", "exclusion_reason", "excluded_text",
+           "means_left_out_text", "comparison_note", "comparison_summary",
+           "common_slope_note", "check_verdict", "diagnostics_summary",
+           "error_structure_verdict"]
 
 
 def point_check_reason(check) -> str:
@@ -62,3 +68,250 @@ def spread_summary(spread) -> str:
         lines.append(f"  mean vs {t['hypothesis']} ({t['exponent']:g}): "
                      f"statistic {t['statistic']:.3g}, p {format_p(t['p_value'])}")
     return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------
+# groups: which are left out, comparisons, the common slope
+
+#: Why a group is left out of comparisons, for the reasons without numbers.
+_EXCLUSION_WORDS = {
+    "x_constant": "x does not vary (log x constant up to rounding): no line to compare",
+    "y_constant": "y does not vary (log y constant up to rounding): no line to compare",
+    "exact_line": EXACT_LINE_NOTE,
+}
+
+
+def exclusion_reason(exclusion) -> str:
+    """Why one group is left out, from a :class:`~scaling.stats.group_means.Exclusion`.
+
+    Examples
+    --------
+    >>> from scaling.stats.group_means import Exclusion
+    >>> exclusion_reason(Exclusion(group="b", reason="too_few", n=2, min_n=3))
+    'n = 2 < 3'
+    """
+    if exclusion.reason == "too_few":
+        return f"n = {exclusion.n} < {exclusion.min_n}"
+    if exclusion.reason == "not_estimable":
+        return str(exclusion.note)
+    try:
+        return _EXCLUSION_WORDS[exclusion.reason]
+    except KeyError:
+        raise ValueError(f"reason must be one of too_few, not_estimable, "
+                         f"{', '.join(_EXCLUSION_WORDS)}, not {exclusion.reason!r}") from None
+
+
+def excluded_text(excluded, limit: int = 12) -> str:
+    """'a (n = 1 < 3), b (...)' for groups left out, at most ``limit`` named.
+
+    Parameters
+    ----------
+    excluded : sequence of Exclusion
+    limit : int
+    """
+    shown = ", ".join(f"{e.group} ({exclusion_reason(e)})" for e in excluded[:limit])
+    more = f" and {len(excluded) - limit} more" if len(excluded) > limit else ""
+    return shown + more
+
+
+def means_left_out_text(excluded) -> str:
+    """The ``note`` of a line through the group means that leaves groups out ("" if none)."""
+    if not excluded:
+        return ""
+    return f"groups left out of the line through the means: {excluded_text(excluded)}"
+
+
+def comparison_note(comparison, *, max_key: str = "pairwise_max") -> str:
+    """What a :class:`~scaling.stats.group_comparisons.GroupComparison` did not do, in words.
+
+    Each code of ``comparison.notes`` gives one clause; clauses are joined by
+    "; " ("" when there is none).  ``max_key`` names the pairwise limit as
+    the reader set it (the config says ``groups.pairwise_max``).
+    """
+    n_used = len(comparison.groups)
+    clauses = []
+    for code in comparison.notes:
+        if code == "too_few_groups":
+            clauses.append(f"fewer than two groups have at least {comparison.min_n} usable "
+                           f"points ({n_used} of {n_used + len(comparison.excluded)}), so "
+                           "there is nothing to compare")
+        elif code in ("exact_all", "exact_all_slopes_differ"):
+            clauses.append(f"{EXACT_NOTE} in every group: the tests need residual scatter "
+                           "and are not made"
+                           + ("; the groups' exact slopes differ, so there is no common slope"
+                              if code == "exact_all_slopes_differ" else ""))
+        elif code == "exact_ols":
+            clauses.append(f"{EXACT_NOTE} in every group: the slope and elevation tests "
+                           "need residual scatter and are not made (NaN)")
+        elif code == "pairwise_skipped":
+            clauses.append(f"pairwise comparisons skipped: {n_used} groups exceed "
+                           f"{max_key} = {comparison.pairwise_max}")
+        else:
+            raise ValueError(f"unknown comparison note code {code!r}")
+    return "; ".join(clauses)
+
+
+def comparison_summary(comparison, *, list_pairs: bool = True, group_word: str | None = None,
+                       max_key: str = "pairwise_max") -> str:
+    """Plain-language sentences on slopes, elevations and axis shifts of a comparison.
+
+    Parameters
+    ----------
+    comparison : GroupComparison
+        From :func:`scaling.compare_groups`.
+    list_pairs : bool
+        False gives the number of differing pairs instead of naming them
+        (the pairs are then read from a matrix).
+    group_word : str, optional
+        What the groups are called (default: the group column's name).
+    max_key : str
+        How the pairwise limit is named ("pairwise_max", or the config key).
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> import pandas as pd, scaling
+    >>> d = pd.DataFrame({"m": [1, 2, 4, 8, 1, 2, 4, 8], "r": [1, 2.1, 3.9, 8.2, 2, 4.1, 8, 15.8],
+    ...                   "g": list("aaaabbbb")})
+    >>> comparison_summary(scaling.compare_groups(d, "m", "r", "g", method="ols"))[:40]
+    'Slopes do not differ among the 2 g group'
+    """
+    c = comparison
+    label = c.method.upper()
+    word = c.group_column if group_word is None else group_word
+    what = f"{len(c.groups)} {word} groups"
+    note = comparison_note(c, max_key=max_key)
+    if not c.compared:
+        return f"No {label} comparison of {word} groups: {note}"
+    alpha = 1 - c.confidence
+    pct = f"{100 * c.confidence:g}%"
+
+    def numbers(t, name: str) -> str:
+        df = f"{t.df:g}" if not np.isfinite(t.df_resid) else f"{t.df:g}, {t.df_resid:g}"
+        boot = ", parametric bootstrap" if t.p_method.startswith("parametric") else ""
+        return f"{name} = {t.statistic:.3g}, df = {df}, {p_text(t.p_value)}{boot}"
+
+    def differing(test: str) -> str:
+        pairs = [f"{p.group_a} vs {p.group_b}" for p in c.pairwise
+                 if p.test == test and p.p_adjusted <= alpha]
+        if pairs and not list_pairs:
+            total = sum(p.test == test for p in c.pairwise)
+            return f" {len(pairs)} of {total} pairs differ (Holm-adjusted)."
+        return f" Pairs that differ (Holm-adjusted): {', '.join(pairs)}." if pairs else ""
+
+    lo, hi = c.common_slope_ci.low, c.common_slope_ci.high
+    ci = (f"({pct} CI {lo:.3g}\u2013{hi:.3g})" if np.isfinite(lo) and np.isfinite(hi)
+          else f"({pct} CI unbounded)")
+    slopes = c.test("slopes_equal")
+    if not any(np.isfinite(t.p_value) for t in c.tests):
+        slope = (f"common slope {c.common_slope:.3g} {ci}"
+                 if np.isfinite(lo) and np.isfinite(hi) else "no common slope")
+        return f"No {label} tests among the {what}: {note}; {slope}."
+    stat = "F" if c.method == "ols" else "LR"
+    out = []
+    if not np.isfinite(slopes.p_value):
+        out.append(f"Slopes of the {what} not compared ({label}): {note}; "
+                   f"common slope {c.common_slope:.3g} {ci}.")
+    elif slopes.p_value <= alpha:
+        out.append(f"Slopes differ among the {what} ({label}, {numbers(slopes, stat)}); "
+                   f"a common slope of {c.common_slope:.3g} {ci} only summarises "
+                   f"differing slopes.{differing('slopes_equal')}")
+    else:
+        out.append(f"Slopes do not differ among the {what} ({label}, "
+                   f"{numbers(slopes, stat)}); common slope {c.common_slope:.3g} {ci}.")
+    caveat = " (read with care: slopes differ)" if slopes.p_value <= alpha else ""
+    inter = c.test("intercepts_equal")
+    stat = "F" if c.method == "ols" else "Wald"
+    verb = "differ" if inter.p_value <= alpha else "do not differ"
+    if np.isfinite(inter.p_value):
+        out.append(f"Given a common slope, elevations (intercepts) {verb}{caveat} "
+                   f"({numbers(inter, stat)}).{differing('intercepts_equal')}")
+    else:
+        out.append("Elevations not compared (no residual scatter).")
+    axis = c.test("shift_along_axis")
+    if c.method == "ols":
+        verb = "differs" if axis.p_value <= alpha else "does not differ"
+        out.append(f"Mean log x {verb} among groups (one-way ANOVA, "
+                   f"{numbers(axis, 'F')}).{differing('shift_along_axis')}")
+    else:
+        verb = "are" if axis.p_value <= alpha else "are not detectably"
+        out.append(f"Groups {verb} shifted along the common axis{caveat} "
+                   f"({numbers(axis, 'Wald')}).{differing('shift_along_axis')}")
+    if c.pairwise_skipped:
+        out.append("Pairwise comparisons skipped: "
+                   f"{len(c.groups)} groups exceed {max_key} = {c.pairwise_max}.")
+    if c.excluded:
+        out.append(f"Left out: {excluded_text(c.excluded)}.")
+    return " ".join(out)
+
+
+def common_slope_note(common) -> str:
+    """The ``fits.csv`` note of a common within-group slope (scope ``common``)."""
+    names = ", ".join(map(str, common.groups))
+    return (f"common within-group slope of {common.n_groups} groups ({names}); "
+            "each group keeps its own elevation")
+
+
+# --------------------------------------------------------------------------
+# residual checks and error structure
+
+
+def check_verdict(check) -> str:
+    """Plain-language reading of one :class:`~scaling.stats.residual_checks.Check`."""
+    if check.finding == "exact_fit":
+        return f"{EXACT_NOTE}; residual checks do not apply"
+    p = p_text(check.p_value)
+    if check.check == "normality":
+        if check.flagged:
+            return (f"residuals depart from a normal distribution ({p}); "
+                    "intervals for predictions may be off")
+        return f"no detectable departure from normal residuals ({p})"
+    if check.check == "constant_variance":
+        if check.flagged:
+            trend = "grows" if check.direction > 0 else "shrinks"
+            return (f"scatter around the line {trend} with size ({p}); "
+                    "consider weighting or a different error model")
+        return f"no detectable change in scatter with size ({p})"
+    if check.check == "curvature":
+        if check.flagged:
+            direction = "rises" if check.direction > 0 else "falls"
+            return (f"residuals show curvature: the exponent {direction} with size "
+                    f"(from {check.exponent_low:.3g} to {check.exponent_high:.3g} across "
+                    f"the data; {p})")
+        return f"no detectable curvature on log-log scales ({p})"
+    if check.check == "influence":
+        if check.flagged:
+            rows = check.rows
+            shown = ", ".join(str(r) for r in rows[:5])
+            more = f" and {len(rows) - 5} more" if len(rows) > 5 else ""
+            return (f"{len(rows)} row(s) pull the line strongly (Cook's distance > 4/n): "
+                    f"row {shown}{more}; check them and refit without them to see the effect")
+        return "no row has an outsized pull on the line (all Cook's distances <= 4/n)"
+    raise ValueError(f"check must be one of normality, constant_variance, curvature, "
+                     f"influence, not {check.check!r}")
+
+
+def diagnostics_summary(diagnostics) -> str:
+    """The verdicts of a :class:`~scaling.stats.residual_checks.Diagnostics`, one per line."""
+    return "\n".join(f"{c.check}: {check_verdict(c)}" for c in diagnostics.checks)
+
+
+def error_structure_verdict(es) -> str:
+    """Which error model an :class:`~scaling.stats.error_structure.ErrorStructure` favours."""
+    add, mult, delta = es.additive, es.multiplicative, es.delta_aicc
+    if not add.converged:
+        return ("only the multiplicative (log-scale) model could be fitted; "
+                f"its exponent is {mult.b:.3g}")
+    if es.preferred == "neither":
+        return (f"the data do not clearly favour either error model (AICc difference "
+                f"{abs(delta):.2g} < 2); exponents {mult.b:.3g} (multiplicative) and "
+                f"{add.b:.3g} (additive) -- consider reporting both")
+    if es.preferred == "multiplicative":
+        return (f"scatter grows with size (multiplicative, lognormal error; AICc lower by "
+                f"{delta:.3g}): fitting on log scales is appropriate; exponent {mult.b:.3g}")
+    return (f"scatter is constant on the arithmetic scale (additive normal error; AICc "
+            f"lower by {-delta:.3g}): the nonlinear fit is better supported; exponent "
+            f"{add.b:.3g} (the log-scale fit gives {mult.b:.3g})")

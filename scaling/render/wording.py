@@ -292,6 +292,7 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg)
     ``(scope, group) -> ErrorStructure``; ``point_sets``: ``(scope, group) ->
     points``.
     """
+    from .findings import check_verdict   # findings builds on this module
     dc = cfg.diagnostics
     messages = []
     methods = [m for m in cfg.model.methods]
@@ -307,11 +308,11 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg)
         c = pooled.curvature
         xs = [f"{t:g} at x ≈ {x:.3g}" for t, x, inside in c.crossings if inside]
         where = (f"; the local exponent reaches {', '.join(xs)}" if xs else "")
-        messages.append(f"Power law: NOT a straight line on log-log scales — {curv.verdict}"
+        messages.append(f"Power law: NOT a straight line on log-log scales — {check_verdict(curv)}"
                         f"{where}. One exponent summarises these data only roughly; see "
                         "curvature.csv.")
     else:
-        messages.append(curvature_ok(curv.verdict))
+        messages.append(curvature_ok(check_verdict(curv)))
     g_curved = [(g, d.check("curvature").p_value) for (s, g, m), d in results.items()
                 if s == "group" and m == pooled.method and d.check("curvature").flagged]
     n_groups = sum(1 for (s, g, m) in results if s == "group" and m == pooled.method)
@@ -326,7 +327,7 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg)
                             f"{n_groups}.")
     label = method_label(pooled.method)
     normal, spread = pooled.check("normality"), pooled.check("constant_variance")
-    messages.append(f"Residuals of the pooled {label} line: {normal.verdict}; {spread.verdict}.")
+    messages.append(f"Residuals of the pooled {label} line: {check_verdict(normal)}; {check_verdict(spread)}.")
     infl = pooled.check("influence")
     if infl.flagged:
         rows = list(pooled.influential_rows)

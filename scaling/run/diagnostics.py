@@ -1,7 +1,8 @@
 """The diagnostics stage of a run: residual checks, influence, curvature, error structure.
 
 Tables from :mod:`scaling.stats.residual_checks` and
-:mod:`scaling.stats.error_structure`; the verdict sentences from
+:mod:`scaling.stats.error_structure`; the ``verdict`` column from
+:func:`scaling.render.findings.check_verdict` and the verdict sentences from
 :func:`scaling.render.wording.diagnostics_messages`.
 """
 
@@ -18,6 +19,7 @@ from ..stats.residual_checks import diagnose
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
+from ..render.findings import check_verdict
 from ..render.wording import diagnostics_messages
 from .moments_path import bounded_diagnostics
 
@@ -66,6 +68,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
             continue   # too few points (n < 4) or nothing to diagnose
         results[(scope, group, method)] = d
         frame = d.to_frame()
+        frame["verdict"] = [check_verdict(c) for c in d.checks]
         frame.insert(0, "scope", scope)
         frame.insert(1, "group", group)
         diag_frames.append(frame)

@@ -1,4 +1,9 @@
-"""The group stage of a run: group means, lines through the means, group comparisons."""
+"""The group stage of a run: group means, lines through the means, group comparisons.
+
+The numbers come from :mod:`scaling.stats.group_means`,
+:mod:`scaling.stats.group_comparisons` and :mod:`scaling.stats.common_slope`;
+the notes and sentences from :mod:`scaling.render.findings`.
+"""
 
 from __future__ import annotations
 
@@ -8,19 +13,20 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..stats.common_slope import common_slope_rows
 from ..stats.fit_rows import fit_row
 from ..stats.group_comparisons import compare_groups
-from ..stats.group_means import compared_groups, excluded_text, fit_group_means, group_means
+from ..stats.group_means import compared_groups, fit_group_means, group_means
 from ..stats.lines import MIN_N, base_label
 from ..stats.moments import moments
 from ..stats.robust import deming_from_moments
 from ..stats.schema import (GROUP_COMPARISON_METHODS, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS,
                      is_moment_method)
 from .fits import row_method_fit, value_range, with_note, with_ranges
+from ..render.findings import (common_slope_note, comparison_summary, excluded_text,
+                               means_left_out_text)
 from ..render.wording import means_left_out_note, pairwise_skipped_note, uncompared_message
 
-__all__ = ["GroupStage", "group_stage"]
+__all__ = ["GroupStage", "group_stage", "common_slope_rows"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -67,8 +73,7 @@ def group_stage(cfg, state) -> GroupStage:
         # method's own rule and names the groups it leaves out in its note).
         keep, left_out = compared_groups(X, Y, labels, method="ols", min_n=MIN_N)
         frame = frame[frame["group"].isin(keep)].reset_index(drop=True)
-        left_note = (f"groups left out of the line through the means: "
-                     f"{excluded_text(left_out)}") if left_out else ""
+        left_note = means_left_out_text(left_out)
         if left_out:
             notes.append(means_left_out_note(excluded_text(left_out), len(left_out)))
         mx, my = frame["mean_log_x"].to_numpy(), frame["mean_log_y"].to_numpy()
@@ -99,6 +104,12 @@ def group_stage(cfg, state) -> GroupStage:
                     fit = fit_group_means(X, Y, labels, method=method,
                                           confidence=cfg.model.confidence, log_base=base,
                                           weighted=cfg.groups.weight_means)
+                    # the groups this method's own rule leaves out
+                    own_note = means_left_out_text(compared_groups(X, Y, labels,
+                                                                   method=method)[1])
+                    if own_note:
+                        fit = with_note(fit, f"{fit.note}; {own_note}" if fit.note
+                                        else own_note)
             fit = with_ranges(fit, ranges)
             if fit.note and len(frame) < MIN_N:
                 fit = with_note(fit, f"{len(frame)} groups < {MIN_N}: no line through "
@@ -120,11 +131,9 @@ def group_stage(cfg, state) -> GroupStage:
                 comp = compare_groups(data, "x", "y", "group", method=method,
                                       confidence=cfg.model.confidence, log_base=base,
                                       pairwise_max=cfg.groups.pairwise_max)
-            summary = comp.summary(list_pairs=False).replace(f"{len(comp.groups)} group groups",
-                                             f"{len(comp.groups)} {cfg.data.group} groups")
-            summary = summary.replace(" group groups", f" {cfg.data.group} groups")
-            summary = summary.replace("exceed pairwise_max", "exceed groups.pairwise_max")
-            messages.append(summary)
+            messages.append(comparison_summary(comp, list_pairs=False,
+                                               group_word=str(cfg.data.group),
+                                               max_key="groups.pairwise_max"))
             if comp.pairwise_skipped:
                 notes.append(pairwise_skipped_note(method, len(comp.groups), comp.pairwise_max))
             if comp.compared:
@@ -144,3 +153,47 @@ def group_stage(cfg, state) -> GroupStage:
     return GroupStage(rows=tuple(rows + common_rows), line_fits=fits, point_sets=point_sets,
                       tables=g_tables, test_rows=tuple(test_rows), messages=tuple(messages),
                       notes=tuple(notes))
+
+
+def common_slope_rows(commons: dict, exponents: dict, *, log_base: str) -> tuple[list, list]:
+    """Rows of ``fits.csv`` and ``slope_tests.csv`` (scope ``common``) for common slopes.
+
+    Parameters
+    ----------
+    commons : dict
+        method -> :class:`~scaling.stats.common_slope.CommonSlope` (from
+        :attr:`GroupComparison.common`).
+    exponents : dict
+        Hypothesis name -> exponent.
+    log_base : str
+        The ``log_base`` label written in ``fits.csv``.
+
+    Returns
+    -------
+    fit_rows, test_rows : list of dict
+        ``n`` is the total number of points; the intercept columns are left
+        out (each group has its own elevation); ``note`` names the groups
+        (:func:`scaling.render.findings.common_slope_note`).
+    """
+    fit_rows, test_rows = [], []
+    for method, c in commons.items():
+        if c is None:
+            continue
+        if c.method == "ols":
+            how = "t"
+        elif c.boot_profile is not None:
+            how = f"profile_likelihood_bootstrap({c.boot_profile.size})"
+        else:
+            how = "profile_likelihood"
+        fit_rows.append(fit_row(
+            scope="common", method=method, n=c.n, slope=c.slope, slope_low=c.slope_ci.low,
+            slope_high=c.slope_ci.high, log_base=log_base, confidence=c.confidence,
+            slope_se=c.slope_se, note=common_slope_note(c), interval_method=how))
+        for name, b0 in exponents.items():
+            t = c.test_slope(b0, hypothesis=name)
+            test_rows.append({"scope": "common", "group": "", "method": method,
+                              "hypothesis": name, "exponent": t.exponent,
+                              "estimate": t.estimate, "statistic": t.statistic,
+                              "statistic_type": t.statistic_type, "df": t.df,
+                              "p_value": t.p_value})
+    return fit_rows, test_rows

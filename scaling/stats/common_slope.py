@@ -87,7 +87,7 @@ from .lines import (METHODS, ConfidenceInterval, SlopeTest, exponent_value, fit_
 from .moments import Moments, group_moments
 from .schema import EXACT_NOTE, check_confidence, check_method
 
-__all__ = ["CommonSlope", "common_slope", "common_slope_rows"]
+__all__ = ["CommonSlope", "common_slope"]
 
 
 # --------------------------------------------------------------------------
@@ -588,51 +588,3 @@ def common_slope(log_x, log_y, groups, *, method: str = "sma",
                        n_groups=len(labels), n=int(m.n.sum()), confidence=confidence,
                        groups=tuple(labels), df_resid=float(m.n.sum() - len(labels) - 1),
                        profile=state)
-
-
-
-def common_slope_rows(commons: dict, exponents: dict, *, log_base: str) -> tuple[list, list]:
-    """Rows of ``fits.csv`` and ``slope_tests.csv`` (scope ``common``) for common slopes.
-
-    Parameters
-    ----------
-    commons : dict
-        method -> :class:`CommonSlope` (from :attr:`GroupComparison.common`).
-    exponents : dict
-        Hypothesis name -> exponent.
-    log_base : str
-        The ``log_base`` label written in ``fits.csv``.
-
-    Returns
-    -------
-    fit_rows, test_rows : list of dict
-        ``n`` is the total number of points; the intercept columns are left
-        out (each group has its own elevation); ``note`` names the groups.
-    """
-    fit_rows, test_rows = [], []
-    for method, c in commons.items():
-        if c is None:
-            continue
-        names = ", ".join(map(str, c.groups))
-        if c.method == "ols":
-            how = "t"
-        elif c.boot_profile is not None:
-            how = f"profile_likelihood_bootstrap({c.boot_profile.size})"
-        else:
-            how = "profile_likelihood"
-        fit_rows.append({
-            "scope": "common", "group": "", "method": method, "n": c.n, "slope": c.slope,
-            "slope_low": c.slope_ci.low, "slope_high": c.slope_ci.high,
-            "log_base": log_base, "confidence": c.confidence, "slope_se": c.slope_se,
-            "note": f"common within-group slope of {c.n_groups} groups ({names}); "
-                    "each group keeps its own elevation",
-            "interval_method": how})
-        for name, b0 in exponents.items():
-            t = c.test_slope(b0, hypothesis=name)
-            test_rows.append({"scope": "common", "group": "", "method": method,
-                              "hypothesis": name, "exponent": t.exponent,
-                              "estimate": t.estimate, "statistic": t.statistic,
-                              "statistic_type": t.statistic_type, "df": t.df,
-                              "p_value": t.p_value})
-    return fit_rows, test_rows
-

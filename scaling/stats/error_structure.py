@@ -77,8 +77,10 @@ class ErrorStructure:
     weight_multiplicative : float
         Akaike weight of the multiplicative model.
     preferred : str
-        ``"multiplicative"``, ``"additive"`` or ``"neither"`` (|delta| < 2).
-    verdict : str
+        ``"multiplicative"``, ``"additive"`` or ``"neither"`` (|delta| < 2);
+        ``"multiplicative"`` also when the additive model did not converge
+        (``additive.converged`` False).  The words are made by
+        :func:`scaling.render.findings.error_structure_verdict`.
     """
 
     n: int
@@ -87,7 +89,6 @@ class ErrorStructure:
     delta_aicc: float
     weight_multiplicative: float
     preferred: str
-    verdict: str
 
     def to_frame(self):
         """One row per model."""
@@ -194,22 +195,12 @@ def compare_error_structure(x, y) -> ErrorStructure:
 
     if not converged:
         preferred = "multiplicative"
-        verdict = ("only the multiplicative (log-scale) model could be fitted; "
-                   f"its exponent is {mult.b:.3g}")
     elif abs(delta) < 2:
         preferred = "neither"
-        verdict = (f"the data do not clearly favour either error model (AICc difference "
-                   f"{abs(delta):.2g} < 2); exponents {mult.b:.3g} (multiplicative) and "
-                   f"{add.b:.3g} (additive) -- consider reporting both")
     elif delta > 0:
         preferred = "multiplicative"
-        verdict = (f"scatter grows with size (multiplicative, lognormal error; AICc lower by "
-                   f"{delta:.3g}): fitting on log scales is appropriate; exponent {mult.b:.3g}")
     else:
         preferred = "additive"
-        verdict = (f"scatter is constant on the arithmetic scale (additive normal error; AICc "
-                   f"lower by {-delta:.3g}): the nonlinear fit is better supported; exponent "
-                   f"{add.b:.3g} (the log-scale fit gives {mult.b:.3g})")
     return ErrorStructure(n=n, additive=add, multiplicative=mult, delta_aicc=delta,
-                          weight_multiplicative=w_mult, preferred=preferred, verdict=verdict)
+                          weight_multiplicative=w_mult, preferred=preferred)
 

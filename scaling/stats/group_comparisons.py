@@ -64,14 +64,16 @@ from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL, check_base, factorize
 from .common_slope import (CommonSlope, _common_from_arrays, _fit_common, _parallel_lines,
                            _pool, _profile_interval, _profile_state, _profile_terms)
-from .group_means import _compared_groups, excluded_text
-from .lines import METHODS, ConfidenceInterval, p_text, to_log
+from .group_means import _compared_groups, _exclusion_warning
+from .lines import METHODS, ConfidenceInterval
+from .logscale import to_log
 from .moments import group_moments
-from .schema import (EXACT_NOTE, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence,
-                     check_count, check_method)
+from .schema import (GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence, check_count,
+                     check_method)
 
 __all__ = [
     "TESTS",
+    "NOTE_CODES",
     "AUTO_BOOTSTRAP_BELOW",
     "PAIRWISE_MAX",
     "GroupTest",
@@ -83,6 +85,13 @@ __all__ = [
 
 #: Names of the three comparisons, in the order they are reported.
 TESTS = ("slopes_equal", "intercepts_equal", "shift_along_axis")
+
+#: What a comparison did not do (:attr:`GroupComparison.notes`): fewer than two
+#: usable groups; every group an exact line (SMA, MA), their exact slopes
+#: differing or not; every group an exact line (OLS); pairwise comparisons
+#: skipped for more than ``pairwise_max`` groups.
+NOTE_CODES = ("too_few_groups", "exact_all", "exact_all_slopes_differ", "exact_ols",
+              "pairwise_skipped")
 
 #: ``calibration="auto"`` uses the parametric bootstrap when the smallest
 #: compared group has fewer points than this (see docs/group_tests.md for the
@@ -345,8 +354,9 @@ class GroupComparison:
         Labels of the groups compared (sorted).
     group_n : tuple of int
         Points in each compared group.
-    excluded : tuple of (label, reason)
-        Groups left out and why.
+    excluded : tuple of Exclusion
+        Groups left out, each with its reason code and size
+        (:class:`scaling.stats.group_means.Exclusion`).
     common_slope, common_slope_se : float
     common_slope_ci : ConfidenceInterval
     tests : tuple of GroupTest
@@ -358,11 +368,15 @@ class GroupComparison:
     calibration : str
         As requested ("auto", "chi2" or "bootstrap").
     n_boot, seed : int
-    note : str
-        Empty, or why no comparison was made, or what was not made: tests
-        left NaN for exact data ("no residual scatter: an exact power law
-        ..."), pairwise comparisons skipped for too many groups.  Several
-        notes are joined by "; ".
+    notes : tuple of str
+        Codes (:data:`NOTE_CODES`) of what was not made: no comparison
+        (fewer than two usable groups), tests left NaN for exact data,
+        pairwise comparisons skipped for too many groups.  Empty when
+        everything was made.  :func:`scaling.render.findings.comparison_note`
+        words them, :func:`scaling.render.findings.comparison_summary` words
+        the whole comparison.
+    min_n : int
+        Fewest points a compared group needs.
     pairwise_max : int
         Pairwise comparisons are made only for at most this many groups.
     pairwise_skipped : bool
@@ -389,7 +403,8 @@ class GroupComparison:
     calibration: str
     n_boot: int
     seed: int | None
-    note: str = ""
+    notes: tuple = ()
+    min_n: int = 3
     pairwise_max: int = PAIRWISE_MAX
     pairwise_skipped: bool = False
     common: CommonSlope | None = None
@@ -406,7 +421,9 @@ class GroupComparison:
                 return t
         if name not in TESTS:
             raise ConfigError(f"test must be one of {', '.join(TESTS)}, not {name!r}")
-        raise DataError(f"no {name} test: {self.note or 'not computed'}")
+        raise DataError(f"no {name} test: fewer than two groups were compared "
+                        f"({len(self.groups)} of {len(self.groups) + len(self.excluded)} "
+                        f"have at least {self.min_n} usable points)")
 
     def to_frame(self) -> pd.DataFrame:
         """One row per test with the columns of ``group_tests.csv``."""
@@ -419,90 +436,21 @@ class GroupComparison:
                   "common_slope_ci": (float(self.common_slope_ci.low),
                                       float(self.common_slope_ci.high))}
         fields.update({f"p_{t.test}": float(t.p_value) for t in self.tests})
-        if self.note:
-            fields["note"] = self.note
+        if self.notes:
+            fields["notes"] = ", ".join(self.notes)
         return short_repr(self, fields)
 
     def _repr_html_(self) -> str:
-        compared = ", ".join(f"{g} (n = {n})" for g, n in zip(self.groups, self.group_n))
-        return frame_html(self.to_frame(), notes=[self.summary(), f"groups: {compared}"],
-                          title=f"{self.method.upper()} comparison of {self.group_column} groups")
+        # Tables only: the sentences are scaling.render.findings.comparison_summary.
+        groups = pd.DataFrame({"group": list(self.groups), "n": list(self.group_n)})
+        return (frame_html(self.to_frame(), title=f"{self.method.upper()} comparison of "
+                                                  f"{self.group_column} groups")
+                + "\n" + frame_html(groups))
 
     def pairwise_frame(self) -> pd.DataFrame:
         """One row per pair and test."""
         return pd.DataFrame([t.to_record() for t in self.pairwise],
                             columns=list(_PAIR_COLUMNS))
-
-    def summary(self, *, list_pairs: bool = True) -> str:
-        """Plain-language sentences on slopes, elevations and axis shifts.
-
-        ``list_pairs=False`` gives the number of differing pairs instead of
-        naming them (the pairs are then read from a matrix).
-        """
-        label = self.method.upper()
-        what = f"{len(self.groups)} {self.group_column} groups"
-        if not self.compared:
-            return f"No {label} comparison of {self.group_column} groups: {self.note}"
-        alpha = 1 - self.confidence
-        pct = f"{100 * self.confidence:g}%"
-
-        def numbers(t: GroupTest, name: str) -> str:
-            df = f"{t.df:g}" if not np.isfinite(t.df_resid) else f"{t.df:g}, {t.df_resid:g}"
-            boot = ", parametric bootstrap" if t.p_method.startswith("parametric") else ""
-            return f"{name} = {t.statistic:.3g}, df = {df}, {p_text(t.p_value)}{boot}"
-
-        def differing(test: str) -> str:
-            pairs = [f"{p.group_a} vs {p.group_b}" for p in self.pairwise
-                     if p.test == test and p.p_adjusted <= alpha]
-            if pairs and not list_pairs:
-                total = sum(p.test == test for p in self.pairwise)
-                return f" {len(pairs)} of {total} pairs differ (Holm-adjusted)."
-            return f" Pairs that differ (Holm-adjusted): {', '.join(pairs)}." if pairs else ""
-
-        lo, hi = self.common_slope_ci.low, self.common_slope_ci.high
-        ci = (f"({pct} CI {lo:.3g}\u2013{hi:.3g})" if np.isfinite(lo) and np.isfinite(hi)
-              else f"({pct} CI unbounded)")
-        slopes = self.test("slopes_equal")
-        if not any(np.isfinite(t.p_value) for t in self.tests):
-            slope = (f"common slope {self.common_slope:.3g} {ci}"
-                     if np.isfinite(lo) and np.isfinite(hi) else "no common slope")
-            return f"No {label} tests among the {what}: {self.note}; {slope}."
-        stat = "F" if self.method == "ols" else "LR"
-        out = []
-        if not np.isfinite(slopes.p_value):
-            out.append(f"Slopes of the {what} not compared ({label}): {self.note}; "
-                       f"common slope {self.common_slope:.3g} {ci}.")
-        elif slopes.p_value <= alpha:
-            out.append(f"Slopes differ among the {what} ({label}, {numbers(slopes, stat)}); "
-                       f"a common slope of {self.common_slope:.3g} {ci} only summarises "
-                       f"differing slopes.{differing('slopes_equal')}")
-        else:
-            out.append(f"Slopes do not differ among the {what} ({label}, "
-                       f"{numbers(slopes, stat)}); common slope {self.common_slope:.3g} {ci}.")
-        caveat = " (read with care: slopes differ)" if slopes.p_value <= alpha else ""
-        inter = self.test("intercepts_equal")
-        stat = "F" if self.method == "ols" else "Wald"
-        verb = "differ" if inter.p_value <= alpha else "do not differ"
-        if np.isfinite(inter.p_value):
-            out.append(f"Given a common slope, elevations (intercepts) {verb}{caveat} "
-                       f"({numbers(inter, stat)}).{differing('intercepts_equal')}")
-        else:
-            out.append("Elevations not compared (no residual scatter).")
-        axis = self.test("shift_along_axis")
-        if self.method == "ols":
-            verb = "differs" if axis.p_value <= alpha else "does not differ"
-            out.append(f"Mean log x {verb} among groups (one-way ANOVA, "
-                       f"{numbers(axis, 'F')}).{differing('shift_along_axis')}")
-        else:
-            verb = "are" if axis.p_value <= alpha else "are not detectably"
-            out.append(f"Groups {verb} shifted along the common axis{caveat} "
-                       f"({numbers(axis, 'Wald')}).{differing('shift_along_axis')}")
-        if self.pairwise_skipped:
-            out.append("Pairwise comparisons skipped: "
-                       f"{len(self.groups)} groups exceed pairwise_max = {self.pairwise_max}.")
-        if self.excluded:
-            out.append(f"Left out: {excluded_text(self.excluded)}.")
-        return " ".join(out)
 
 
 
@@ -612,7 +560,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     -------
     GroupComparison
         With fewer than two usable groups, a result with no tests whose
-        ``note`` says why (no exception).
+        ``notes`` hold ``"too_few_groups"`` (no exception).
 
     Notes
     -----
@@ -661,21 +609,18 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
 
     used, excluded, all_exact = _compared_groups(m, labels, method, min_n)
     if excluded:
-        shown = "; ".join(f"{g}: {why}" for g, why in excluded[:10])
-        more = f"; and {len(excluded) - 10} more" if len(excluded) > 10 else ""
-        warnings.warn("groups left out of the comparison: " + shown + more,
+        warnings.warn(_exclusion_warning("the comparison", excluded),
                       DegenerateDataWarning, stacklevel=2)
     common = dict(method=method, group_column=str(group), confidence=confidence,
                   log_base=base, calibration=calibration, n_boot=n_boot, seed=seed,
+                  min_n=min_n,
                   excluded=excluded, groups=tuple(labels[i] for i in used),
                   group_n=tuple(int(m.n[i]) for i in used))
     if len(used) < 2:
         return GroupComparison(
             **common, common_slope=math.nan,
             common_slope_ci=ConfidenceInterval(math.nan, math.nan),
-            common_slope_se=math.nan, tests=(), pairwise=(),
-            note=f"fewer than two groups have at least {min_n} usable points "
-                 f"({len(used)} of {len(labels)}), so there is nothing to compare")
+            common_slope_se=math.nan, tests=(), pairwise=(), notes=("too_few_groups",))
 
     idx = np.asarray(used)
     arrays = tuple(np.asarray(getattr(m, k))[idx]
@@ -692,10 +637,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
         tests = [GroupTest(method=method, test=name, statistic=math.nan, df=float(len(used) - 1),
                            df_resid=math.nan, p_value=math.nan, p_method="none",
                            common_slope=b) for name in TESTS]
-        notes.append(f"{EXACT_NOTE} in every group: the tests need residual scatter "
-                     "and are not made"
-                     + ("" if agree else "; the groups' exact slopes differ, so there is "
-                                         "no common slope"))
+        notes.append("exact_all" if agree else "exact_all_slopes_differ")
     else:
         if method == "ols":
             b, ci, se = _common_from_arrays(method, *arrays, confidence)
@@ -715,8 +657,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
                 boot_profile = np.asarray(axis_res["boot_profile"][:, 0], dtype=float)
         tests = _run_tests(method, arrays, axis_res, p_method, b)
         if method == "ols" and _ols_tests(*arrays)["exact"]:
-            notes.append(f"{EXACT_NOTE} in every group: the slope and elevation tests "
-                         "need residual scatter and are not made (NaN)")
+            notes.append("exact_ols")
     tests = [replace(t, common_slope_low=ci.low, common_slope_high=ci.high) for t in tests]
     common_fit = CommonSlope(method=method, slope=b, slope_ci=ci, slope_se=se,
                              n_groups=len(used), n=int(np.sum(n)), confidence=confidence,
@@ -734,8 +675,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     rejected = [t.test for t in tests if t.p_value <= alpha]
     pairwise_skipped = bool(rejected) and len(used) > pairwise_max
     if pairwise_skipped:
-        notes.append(f"pairwise comparisons skipped: {len(used)} groups exceed "
-                     f"pairwise_max = {pairwise_max}")
+        notes.append("pairwise_skipped")
     elif rejected and len(used) > 2:
         pairs = list(itertools.combinations(range(len(used)), 2))
         pair_idx = np.array(pairs)
@@ -762,7 +702,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     return GroupComparison(**common, common_slope=b, common_slope_ci=ci,
                            common_slope_se=se, tests=tuple(tests),
                            pairwise=tuple(pairwise), pairwise_max=pairwise_max,
-                           pairwise_skipped=pairwise_skipped, note="; ".join(notes),
+                           pairwise_skipped=pairwise_skipped, notes=tuple(notes),
                            common=common_fit)
 
 

@@ -12,7 +12,7 @@ so both use exactly the same groups.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -21,16 +21,50 @@ from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL, check_base, check_logs, factorize
 from .lines import METHODS, LineFit, fit_notes, line_fit_from_moments
 from .moments import Moments, group_moments, moments, weighted_moments
-from .schema import EXACT_LINE_NOTE, check_confidence, check_count, check_method
+from .schema import check_confidence, check_count, check_method
 
 __all__ = [
+    "Exclusion",
+    "EXCLUSION_REASONS",
     "GroupMeansResult",
     "group_means",
     "fit_group_means",
     "compared_groups",
-    "excluded_text",
     "NO_VARIATION_EPS",
 ]
+
+#: Why a group is left out of comparisons: too few points, log x or log y
+#: constant, a line that cannot be estimated, (SMA, MA) an exact line while
+#: other groups scatter.
+EXCLUSION_REASONS = ("too_few", "x_constant", "y_constant", "not_estimable", "exact_line")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Exclusion:
+    """A group left out of comparisons and of the line through the means.
+
+    Attributes
+    ----------
+    group : object
+        The group's label.
+    reason : str
+        One of :data:`EXCLUSION_REASONS`.
+    n : int
+        Points in the group.
+    min_n : int
+        Fewest points a compared group needs.
+    note : str
+        For ``"not_estimable"``: the fit's note saying why no line can be
+        fitted ("" otherwise).
+
+    The words are made by :func:`scaling.render.findings.exclusion_reason`.
+    """
+
+    group: object
+    reason: str
+    n: int
+    min_n: int
+    note: str = ""
 
 
 # --------------------------------------------------------------------------
@@ -62,7 +96,9 @@ def _no_variation(n, mean, ss):
 
 
 def _exclusion_reasons(m: Moments, labels, method: str, min_n: int) -> list:
-    """Why each group is left out of comparisons ("" if it is used).
+    """Why each group is left out of comparisons: a reason code and the fit's note.
+
+    ("", "") for a group that is used.
 
     The same rule decides the groups of :func:`compare_groups` and of
     :func:`fit_group_means`, so the line through the means and the comparisons
@@ -74,38 +110,46 @@ def _exclusion_reasons(m: Moments, labels, method: str, min_n: int) -> list:
     reasons = []
     for i in range(len(labels)):
         if m.n[i] < min_n:
-            reasons.append(f"n = {int(m.n[i])} < {min_n}")
+            reasons.append(("too_few", ""))
         elif flat_x[i]:
-            reasons.append("x does not vary (log x constant up to rounding): "
-                           "no line to compare")
+            reasons.append(("x_constant", ""))
         elif flat_y[i]:
-            reasons.append("y does not vary (log y constant up to rounding): "
-                           "no line to compare")
+            reasons.append(("y_constant", ""))
         elif notes[i]:
-            reasons.append(str(notes[i]))
+            reasons.append(("not_estimable", str(notes[i])))
         elif method != "ols" and 1.0 - float(m.r[i]) ** 2 <= EXACT_FIT_TOL:
-            reasons.append(EXACT_LINE_NOTE)
+            reasons.append(("exact_line", ""))
         else:
-            reasons.append("")
+            reasons.append(("", ""))
     return reasons
 
 
 def _compared_groups(m: Moments, labels, method: str, min_n: int):
-    """Indices of the groups compared, (label, reason) of those left out, all-exact flag.
+    """Indices of the groups compared, :class:`Exclusion` of those left out, all-exact flag.
 
     SMA/MA leave out a group lying exactly on a line when others have
     scatter; when every usable group is an exact line they are all kept and
     compared as exact data (``all_exact``).
     """
     reasons = _exclusion_reasons(m, labels, method, min_n)
-    used = [i for i, why in enumerate(reasons) if not why]
-    exact_only = [i for i, why in enumerate(reasons) if why == EXACT_LINE_NOTE]
+    used = [i for i, (why, _) in enumerate(reasons) if not why]
+    exact_only = [i for i, (why, _) in enumerate(reasons) if why == "exact_line"]
     all_exact = not used and len(exact_only) >= 2
     if all_exact:
         used = exact_only
-        reasons = ["" if i in used else why for i, why in enumerate(reasons)]
-    excluded = tuple((labels[i], reasons[i]) for i in range(len(labels)) if reasons[i])
+        reasons = [("", "") if i in used else why for i, why in enumerate(reasons)]
+    excluded = tuple(Exclusion(group=labels[i], reason=why, n=int(m.n[i]), min_n=min_n,
+                               note=note)
+                     for i, (why, note) in enumerate(reasons) if why)
     return used, excluded, all_exact
+
+
+def _exclusion_warning(what: str, excluded) -> str:
+    """Warning text naming the groups left out of ``what``, with their reasons and sizes."""
+    shown = "; ".join(f"{e.group}: {e.reason.replace('_', ' ')} (n = {e.n})"
+                      for e in excluded[:10])
+    more = f"; and {len(excluded) - 10} more" if len(excluded) > 10 else ""
+    return f"groups left out of {what}: {shown}{more}"
 
 
 # --------------------------------------------------------------------------
@@ -218,9 +262,10 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
     -------
     LineFit
         ``n`` is the number of groups used; intervals use n - 2 df.  Groups
-        left out are named with their reasons in ``note`` ("groups left out
-        of the line through the means: ...") and in a
-        :class:`~scaling.errors.DegenerateDataWarning`.
+        left out are named with their reason codes in a
+        :class:`~scaling.errors.DegenerateDataWarning`; :func:`compared_groups`
+        returns them as :class:`Exclusion` records, and
+        :func:`scaling.render.findings.means_left_out_text` words them.
 
     Notes
     -----
@@ -263,11 +308,8 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
         warnings.warn(f"line through group means: {fit.note}", DegenerateDataWarning,
                       stacklevel=2)
     if excluded:
-        left = excluded_text(excluded)
-        warnings.warn(f"groups left out of the line through the means: {left}",
+        warnings.warn(_exclusion_warning("the line through the means", excluded),
                       DegenerateDataWarning, stacklevel=2)
-        text = f"groups left out of the line through the means: {left}"
-        fit = replace(fit, note=f"{fit.note}; {text}" if fit.note else text)
     return fit
 
 
@@ -278,7 +320,8 @@ def compared_groups(log_x, log_y, groups, *, method: str = "sma", min_n: int = 3
     -------
     used : tuple
         Labels (sorted) of the groups compared.
-    excluded : tuple of (label, reason)
+    excluded : tuple of Exclusion
+        The groups left out, each with its reason code and size.
 
     Notes
     -----
@@ -294,11 +337,4 @@ def compared_groups(log_x, log_y, groups, *, method: str = "sma", min_n: int = 3
     gm = group_moments(X, Y, codes, n_groups=len(labels))
     used, excluded, _ = _compared_groups(gm, labels, method, min_n)
     return tuple(labels[i] for i in used), excluded
-
-
-def excluded_text(excluded, limit: int = 12) -> str:
-    """'a (n = 1 < 3), b (...)' for (label, reason) pairs, at most ``limit`` named."""
-    shown = ", ".join(f"{g} ({why})" for g, why in excluded[:limit])
-    more = f" and {len(excluded) - limit} more" if len(excluded) > limit else ""
-    return shown + more
 

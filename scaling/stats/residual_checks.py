@@ -39,9 +39,8 @@ import numpy as np
 from scipy import stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import LineFit, exact_fit, p_text
+from .lines import LineFit, exact_fit
 from .moments import moments
-from .schema import EXACT_NOTE
 
 __all__ = ["Check", "Curvature", "Diagnostics", "diagnose", "quadratic_t", "MIN_N"]
 
@@ -70,8 +69,18 @@ class Check:
         the test has none.
     flagged : bool
         True when the check finds a problem at level ``alpha``.
-    verdict : str
-        Plain-language reading.
+    finding : str
+        ``"flagged"``, ``"clear"`` or ``"exact_fit"`` (no residual scatter:
+        the check does not apply).  The plain-language reading is
+        :func:`scaling.render.findings.check_verdict`.
+    direction : int
+        constant_variance: +1 when the scatter grows with size, -1 when it
+        shrinks; curvature: the sign of the quadratic term; 0 otherwise.
+    exponent_low, exponent_high : float
+        curvature: the local exponent at the smallest and largest x (NaN
+        for the other checks).
+    rows : tuple of int
+        influence: the rows above the threshold, largest distance first.
     """
 
     check: str
@@ -81,12 +90,16 @@ class Check:
     p_value: float
     estimate: float
     flagged: bool
-    verdict: str
+    finding: str
+    direction: int = 0
+    exponent_low: float = math.nan
+    exponent_high: float = math.nan
+    rows: tuple = ()
 
     def to_record(self) -> dict:
         return {"check": self.check, "test": self.test, "statistic": self.statistic,
                 "df": self.df, "p_value": self.p_value, "estimate": self.estimate,
-                "flagged": self.flagged, "verdict": self.verdict}
+                "flagged": self.flagged, "finding": self.finding}
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -175,7 +188,8 @@ class Diagnostics:
                           f"choose from {', '.join(c.check for c in self.checks)}")
 
     def to_frame(self):
-        """One row per check (columns check, test, statistic, df, p_value, estimate, flagged, verdict)."""
+        """One row per check (columns method, check, test, statistic, df, p_value, estimate,
+        flagged, finding)."""
         import pandas as pd
         frame = pd.DataFrame([c.to_record() for c in self.checks])
         frame.insert(0, "method", self.method)
@@ -195,10 +209,6 @@ class Diagnostics:
         return pd.DataFrame([{"row": r, "cooks_distance": float(self.cooks_distance[pos[r]])}
                              for r in self.influential_rows],
                             columns=["row", "cooks_distance"])
-
-    def summary(self) -> str:
-        """The verdicts, one per line."""
-        return "\n".join(f"{c.check}: {c.verdict}" for c in self.checks)
 
 
 # --------------------------------------------------------------------------
@@ -260,6 +270,10 @@ def quadratic_t(log_x, log_y) -> dict:
 
 # --------------------------------------------------------------------------
 # diagnose
+
+
+def _finding(flagged) -> str:
+    return "flagged" if flagged else "clear"
 
 
 def _check_alpha(alpha) -> float:
@@ -341,12 +355,9 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         sw = stats.shapiro(resid)
     w_stat, p_sw = float(sw.statistic), float(sw.pvalue)
     flagged = p_sw < alpha
-    verdict = (f"residuals depart from a normal distribution ({p_text(p_sw)}); "
-               "intervals for predictions may be off" if flagged else
-               f"no detectable departure from normal residuals ({p_text(p_sw)})")
     checks.append(Check(check="normality", test="Shapiro-Wilk", statistic=w_stat,
                         df=math.nan, p_value=p_sw, estimate=math.nan,
-                        flagged=flagged, verdict=verdict))
+                        flagged=flagged, finding=_finding(flagged)))
 
     # constant variance
     if np.ptp(resid) == 0:
@@ -357,16 +368,13 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         lm, p_bp, _, _ = het_breuschpagan(resid, exog)
         lm, p_bp = float(lm), float(p_bp)
     flagged = bool(p_bp < alpha)
+    trend = 0
     if flagged:
-        slope_sq = np.polyfit(X, resid ** 2, 1)[0]
-        trend = "grows" if slope_sq > 0 else "shrinks"
-        verdict = (f"scatter around the line {trend} with size ({p_text(p_bp)}); "
-                   "consider weighting or a different error model")
-    else:
-        verdict = f"no detectable change in scatter with size ({p_text(p_bp)})"
+        # which way the squared residuals trend with size
+        trend = 1 if np.polyfit(X, resid ** 2, 1)[0] > 0 else -1
     checks.append(Check(check="constant_variance", test="Breusch-Pagan", statistic=lm,
                         df=1.0, p_value=p_bp, estimate=math.nan, flagged=flagged,
-                        verdict=verdict))
+                        finding=_finding(flagged), direction=trend))
 
     # curvature
     q = quadratic_t(X, Y)
@@ -388,16 +396,12 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
                      statistic=qv["statistic"], df=qv["df"], p_value=qv["p_value"],
                      log_base=base, crossings=tuple(crossings))
     flagged = bool(qv["p_value"] < alpha)
-    if flagged:
-        direction = "rises" if qv["quadratic"] > 0 else "falls"
-        e_lo, e_hi = curv.local_exponent([lo, hi])
-        verdict = (f"residuals show curvature: the exponent {direction} with size "
-                   f"(from {e_lo:.3g} to {e_hi:.3g} across the data; {p_text(qv['p_value'])})")
-    else:
-        verdict = f"no detectable curvature on log-log scales ({p_text(qv['p_value'])})"
+    e_lo, e_hi = (float(e) for e in curv.local_exponent([lo, hi]))
     checks.append(Check(check="curvature", test="quadratic term t", statistic=qv["statistic"],
                         df=qv["df"], p_value=qv["p_value"], estimate=qv["quadratic"],
-                        flagged=flagged, verdict=verdict))
+                        flagged=flagged, finding=_finding(flagged),
+                        direction=1 if qv["quadratic"] > 0 else -1,
+                        exponent_low=e_lo, exponent_high=e_hi))
 
     # influence
     infl = OLSInfluence(OLS(Y, exog).fit())
@@ -407,16 +411,9 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     above = above[np.argsort(-cooks[above], kind="stable")]
     influential = tuple(rows[above].tolist())
     flagged = above.size > 0
-    if flagged:
-        shown = ", ".join(str(r) for r in influential[:5])
-        more = f" and {len(influential) - 5} more" if len(influential) > 5 else ""
-        verdict = (f"{len(influential)} row(s) pull the line strongly (Cook's distance > 4/n): "
-                   f"row {shown}{more}; check them and refit without them to see the effect")
-    else:
-        verdict = "no row has an outsized pull on the line (all Cook's distances <= 4/n)"
     checks.append(Check(check="influence", test="Cook's distance", statistic=float(cooks.max()),
                         df=math.nan, p_value=math.nan, estimate=float(cooks.max()),
-                        flagged=flagged, verdict=verdict))
+                        flagged=flagged, finding=_finding(flagged), rows=influential))
 
     return Diagnostics(method=fit.method, n=n, alpha=alpha, checks=tuple(checks),
                        curvature=curv, residuals=resid, cooks_distance=cooks,
@@ -430,13 +427,13 @@ def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
     With no residual scatter (r = +-1 up to rounding) the residuals are
     rounding noise, so normality, constant-variance, curvature and influence
     statistics would read noise as signal (a curvature t of 1e3 is common).
-    Every check is reported unflagged with NaN statistics and says why.
+    Every check is reported unflagged with NaN statistics and finding
+    ``"exact_fit"``.
     """
     n = X.size
-    why = f"{EXACT_NOTE}; residual checks do not apply"
     checks = tuple(
         Check(check=name, test=test, statistic=math.nan, df=math.nan, p_value=math.nan,
-              estimate=math.nan, flagged=False, verdict=why)
+              estimate=math.nan, flagged=False, finding="exact_fit")
         for name, test in (("normality", "Shapiro-Wilk"),
                            ("constant_variance", "Breusch-Pagan"),
                            ("curvature", "quadratic term t"),
