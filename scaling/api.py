@@ -32,9 +32,9 @@ import pandas as pd
 from .io.config import METHOD_NAMES
 from .run.engine import FIT_TABLE_COLUMNS, fit_groups_from_moments, frame_moments
 from .errors import ConfigError, DataError
-from .stats.lines import (METHODS, LineFit, MIN_N, base_label,
-                    fit_line as _fit_moment_line, parse_log_base, slope_test_statistic)
-from .stats.moments import Moments
+from .stats.deming import deming_slope_test
+from .stats.line_results import LineFit, fit_line as _fit_moment_line
+from .stats.lines import METHODS, MIN_N, base_label, parse_log_base, slope_test_statistic
 from .stats.predictions import data_factors
 from .stats.robust import ROW_METHODS, deming, deming_moments
 from .stats.schema import check_confidence, check_exponents
@@ -410,12 +410,7 @@ def _add_p_values(out: pd.DataFrame, gm, methods, row_fits: dict, exps: dict,
             elif method == "deming":
                 # The Deming test is the MA test of (X, Y/sqrt(lam)) against
                 # b0/sqrt(lam) (see LineFit.test_slope), vectorised here.
-                lam = _deming_lam(options)
-                k = math.sqrt(lam)
-                mk = m[idx]
-                mr = Moments(n=mk.n, mean_x=mk.mean_x, mean_y=mk.mean_y / k, sxx=mk.sxx,
-                             syy=mk.syy / lam, sxy=mk.sxy / k)
-                p[ok] = slope_test_statistic(mr, "ma", b0 / k)[2]
+                p[ok] = deming_slope_test(m[idx], _deming_lam(options), b0)[2]
             else:
                 for r in ok:
                     p[r] = row_fits[method][out["group"].iloc[r]].test_slope(b0).p_value

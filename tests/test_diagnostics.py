@@ -15,7 +15,7 @@ from statsmodels.stats.outliers_influence import OLSInfluence
 from scaling.stats.diagnostics import (Diagnostics, compare_error_structure, diagnose,
                                  quadratic_t)
 from scaling.errors import ConfigError, DataError
-from scaling.stats.lines import fit_line
+from scaling.stats.line_results import fit_line
 
 
 @pytest.fixture(scope="module")

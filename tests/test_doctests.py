@@ -7,12 +7,12 @@ import pytest
 
 import scaling.api
 import scaling.stats.groups
-import scaling.stats.lines
+import scaling.stats.line_results
 import scaling.stats.several_predictors
 import scaling.io.starter
 import scaling.stats.units
 
-MODULES = [scaling.api, scaling.stats.groups, scaling.stats.lines, scaling.stats.several_predictors, scaling.io.starter,
+MODULES = [scaling.api, scaling.stats.groups, scaling.stats.line_results, scaling.stats.several_predictors, scaling.io.starter,
            scaling.stats.units]
 
 

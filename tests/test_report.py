@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from scaling.stats.lines import format_p
+from scaling.render.wording import format_p
 from scaling.run.pipeline import CAUTION, write_outputs
 from scaling.render.report import (build_report, format_value, latex_escape, markdown_escape,
                             render_fits_tex, write_report)
@@ -250,7 +250,7 @@ class TestBuildReport:
 
 class TestFormatValue:
     def test_values(self):
-        # p-values through scaling.stats.lines.format_p; others 4 significant digits (exact strings)
+        # p-values through scaling.render.wording.format_p; others 4 significant digits (exact strings)
         assert format_value(0.00002, "p_value") == format_p(0.00002) == "< 0.0001"
         assert format_value(0.6625, "slope") == "0.6625"
         assert format_value(13447.23, "x") == "13447"

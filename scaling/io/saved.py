@@ -20,7 +20,7 @@ import pandas as pd
 
 from ..errors import (ConfigError, DataError, DegenerateDataWarning, ExtrapolationWarning,
                      OutputError)
-from ..stats.lines import fit_from_dict
+from ..stats.line_results import fit_from_dict
 from ..stats.several_predictors import MULTI_DICT_FORMAT, multi_fit_from_dict
 from ..stats.predictions import CORRECTIONS, Prediction, inverse_predict, predict, saved_factor
 from ..stats.schema import check_choice as _check_choice

@@ -40,7 +40,8 @@ from matplotlib.ticker import (Formatter, LogLocator, MaxNLocator, NullFormatter
 from scipy import stats
 
 from ..errors import ConfigError, FigureWarning, ScalingError
-from ..stats.lines import ConfidenceInterval, parse_log_base, to_log
+from ..stats.line_results import ConfidenceInterval
+from ..stats.lines import parse_log_base, to_log
 from ..stats.predictions import log_interval, predict, saved_factor
 from ..stats.schema import CATALOGUE, FIGURE_KINDS, method_label
 from .wording import exponent_label, plural as plural_of

@@ -40,6 +40,7 @@ from ..errors import ConfigError, DataError
 from ..stats.lines import (METHODS, get_method, base_label, fit_moments,
                     parse_log_base, slope_test_statistic)
 from ..stats.moments import Moments, combine_moments, group_moments, merge_moments
+from ..render.wording import fit_notes_column
 from ..stats.schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, check_confidence, check_exponents
 
 __all__ = [
@@ -718,7 +719,7 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
             cols[key] = res[key]
         cols["log_base"] = np.full(g, base_label(gm.log_base), dtype=object)
         cols["confidence"] = np.full(g, confidence)
-        cols["note"] = np.asarray(res["note"], dtype=object)
+        cols["note"] = fit_notes_column(res)
         for key in ("slope_se", "intercept_se", "resid_sd"):
             cols[key] = res[key]
         cols.update(x_min=gm.x_min, x_max=gm.x_max, y_min=gm.y_min, y_max=gm.y_max,

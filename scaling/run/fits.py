@@ -15,7 +15,9 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError
-from ..stats.lines import MIN_N, base_label, fit_moments, line_fit_from_result
+from ..render.wording import fit_note, fit_notes_column
+from ..stats.line_results import line_fit_from_result
+from ..stats.lines import MIN_N, base_label, fit_moments
 from ..stats.robust import ROW_METHODS, deming_moments
 from ..stats.schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS
 
@@ -53,13 +55,14 @@ def fit_moment_rows(scope: str, groups: list, m, method: str, cfg, base, ranges)
     else:
         res = fit_moments(m, method, confidence=cfg.model.confidence)
     rows, fits = [], {}
+    notes = fit_notes_column(res)
     for i, name in enumerate(groups):
         (x_lo, x_hi), (y_lo, y_hi) = ranges[i]
         row = {
             "scope": scope, "group": name, "method": method, "n": int(m.n[i]),
             **{k: float(res[k][i]) for k in _NUMBERS},
             "log_base": base_label(base), "confidence": cfg.model.confidence,
-            "note": str(res["note"][i]),
+            "note": str(notes[i]),
             "x_min": x_lo, "x_max": x_hi, "y_min": y_lo, "y_max": y_hi,
             "interval_method": "analytic",
             "deming_lambda": lam if method == "deming" else np.nan,
@@ -114,7 +117,7 @@ def row_method_fit(scope: str, group: str, method: str, points: pd.DataFrame, cf
 def fit_row(scope: str, group: str, fit, ranges) -> dict:
     (x_lo, x_hi), (y_lo, y_hi) = ranges
     rec = fit.to_record()
-    rec.update({"scope": scope, "group": group, "n": fit.n,
+    rec.update({"scope": scope, "group": group, "n": fit.n, "note": fit_note(fit),
                 "x_min": x_lo, "x_max": x_hi, "y_min": y_lo, "y_max": y_hi})
     return rec
 

@@ -36,7 +36,9 @@ from ..errors import ConfigError, DataError
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
 from .engine import fit_groups_from_moments, read_moments
-from ..stats.lines import METHODS, describe_test, line_fit_from_moments, method_label, parse_log_base
+from ..stats.line_results import line_fit_from_moments
+from ..stats.lines import METHODS, method_label, parse_log_base
+from ..render.wording import describe_test
 from ..io.output import manifest_header
 from ..stats.schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
 

@@ -29,7 +29,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..stats.lines import base_label, describe_test, line_fit_from_moments, method_label
+from ..stats.line_results import line_fit_from_moments
+from ..stats.lines import base_label, method_label
+from ..render.wording import describe_test, fit_note
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
 
 __all__ = ["PHYLO_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
@@ -133,7 +135,7 @@ def _row(fit: PhyloFit, ranges) -> dict:
     (x_lo, x_hi), (y_lo, y_hi) = ranges
     rec.update({"scope": PHYLO_SCOPE, "group": "", "x_min": x_lo, "x_max": x_hi,
                 "y_min": y_lo, "y_max": y_hi, "interval_method": "analytic",
-                "deming_lambda": np.nan})
+                "deming_lambda": np.nan, "note": fit_note(fit)})
     return rec
 
 

@@ -14,10 +14,12 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from ..stats.lines import fit_to_dict, to_log
+from ..stats.line_results import fit_to_dict
+from ..stats.lines import to_log
 from ..stats.predictions import accuracy, data_factors, inverse_predict, predict, saved_factor
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
 from .prediction_lines import add_range_ratio
+from ..render.wording import fit_note
 from ..render.wording import (scope_words,
                       unbounded_inverse_note)
 
@@ -144,7 +146,7 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
         scope, group, _ = key
         d = fit_to_dict(fit, smearing_factor=extra[key]["smearing_factor"],
                         ratio_factor=extra[key]["ratio_factor"])
-        d.update({"scope": scope, "group": group})
+        d.update({"scope": scope, "group": group, "note": fit_note(fit)})
         saved[key] = d
     return saved, extra
 

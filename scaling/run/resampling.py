@@ -12,7 +12,8 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from ..stats.resampling import bootstrap_lines, permutation_slope_test
+from ..stats.permutation import permutation_slope_test
+from ..stats.resampling import bootstrap_lines
 from ..stats.schema import BOOTSTRAP_COLUMNS
 from .fits import robust_n_boot
 from ..render.wording import (bootstrap_means_note, bootstrap_message, bootstrap_unstratified_note,

@@ -68,9 +68,12 @@ import numpy as np
 from scipy import optimize, stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import EXACT_NOTE, METHODS, LineFit, exact_fit, fit_moments, p_text
+from .line_results import LineFit
+from .lines import METHODS, exact_fit, fit_moments
 from .moments import Moments, moments
+from .schema import EXACT_NOTE
 from ..render.wording import estimate_outside_reason, group_residuals_reason, influence_reason, smearing_reason
+from ..render.wording import p_text
 
 __all__ = [
     "Check",

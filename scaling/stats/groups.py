@@ -119,12 +119,11 @@ from scipy import optimize, stats
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import (EXACT_NOTE, METHODS, ConfidenceInterval, LineFit, SlopeTest,
-                    exponent_value, fit_notes, p_text, line_fit_from_moments,
-                    parse_log_base, to_log)
+from .line_results import ConfidenceInterval, LineFit, SlopeTest, line_fit_from_moments
+from .lines import METHODS, exponent_value, fit_notes, parse_log_base, to_log
 from .moments import Moments, group_moments, moments, weighted_moments
-from .schema import GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence
-from ..render.wording import EXACT_NOTE
+from .schema import EXACT_NOTE, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence
+from ..render.wording import p_text
 
 __all__ = [
     "TESTS",

@@ -30,6 +30,7 @@ __all__ = [
     "ERROR_STRUCTURE_COLUMNS", "CURVATURE_COLUMNS", "BOOTSTRAP_COLUMNS", "POINTS_TO_CHECK_COLUMNS", "TABLE_COLUMNS",
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
     "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice",
+    "EXACT_NOTE", "BOTH_SIGNS_NOTE",
 ]
 
 
@@ -216,6 +217,12 @@ OPTIONAL_COLUMNS: dict[str, list] = {
 
 # --------------------------------------------------------------------------
 # allowed values of the enumerated options
+
+#: fits.csv ``note`` of a fit whose points lie on the line up to rounding.
+EXACT_NOTE = "no residual scatter: an exact power law"
+#: fits.csv ``note`` of an SMA fit whose correlation is not significant (the
+#: sentence naming the two accepted ranges is made in render).
+BOTH_SIGNS_NOTE = "correlation not significant: slopes of either sign are accepted"
 
 #: Back-transformation corrections (prediction.correction).
 CORRECTIONS = ("smearing", "parametric", "ratio", "none")

@@ -83,7 +83,8 @@ from scipy import stats
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError, ExtrapolationWarning
-from .lines import ConfidenceInterval, base_label, parse_log_base
+from .line_results import ConfidenceInterval
+from .logscale import base_label, parse_log_base
 from .predictions import CORRECTIONS, INTERVALS, correction_factor
 from .schema import check_confidence
 

@@ -46,7 +46,8 @@ from scipy import stats
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError
-from .lines import ConfidenceInterval, format_p
+from .line_results import ConfidenceInterval
+from ..render.wording import format_p
 
 __all__ = ["ExponentSpread", "exponent_spread", "spread_from_fits", "tau2_dl", "tau2_reml",
            "tau2_q_profile", "TAU2_METHODS",
