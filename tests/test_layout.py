@@ -54,7 +54,6 @@ KNOWN_LONG = {
     'scaling/render/figures.py',
     'scaling/stats/diagnostics.py',
     'scaling/stats/groups.py',
-    'scaling/stats/several_predictors.py',
 }
 KNOWN_BACKSLASHES = {
     'scaling/api.py': 3,
@@ -76,7 +75,6 @@ KNOWN_BACKSLASHES = {
     'scaling/stats/diagnostics.py': 3,
     'scaling/stats/groups.py': 3,
     'scaling/stats/schema.py': 3,
-    'scaling/stats/several_predictors.py': 3,
     'scaling/stats/spread.py': 2,
 }
 
