@@ -19,8 +19,8 @@ _EXPORTS: dict[str, str] = {
     "OutputError": "errors", "ScalingWarning": "errors", "DegenerateDataWarning": "errors",
     "ExtrapolationWarning": "errors", "DataWarning": "errors", "FigureWarning": "errors",
     # lines
-    "fit_line": "api", "fit_groups": "api", "LineFit": "stats.lines", "SlopeTest": "stats.lines",
-    "ConfidenceInterval": "stats.lines",
+    "fit_line": "api", "fit_groups": "api", "LineFit": "stats.line_results",
+    "SlopeTest": "stats.line_results", "ConfidenceInterval": "stats.line_results",
     # groups
     "compare_groups": "stats.group_comparisons", "group_means": "stats.group_means",
     "fit_group_means": "stats.group_means", "GroupComparison": "stats.group_comparisons",

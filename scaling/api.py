@@ -30,12 +30,13 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
+from .render.wording import fit_note, worded_fits
 from .io.config import METHOD_NAMES
 from .run.table_moments import frame_moments
 from .errors import ConfigError, DataError
-from .stats.lines import (METHODS, LineFit, MIN_N, base_label,
-                    fit_line as _fit_moment_line, parse_log_base, slope_test_statistic)
-from .stats.moments import Moments
+from .stats.deming import deming_slope_test
+from .stats.line_results import LineFit, fit_line as _fit_moment_line
+from .stats.lines import METHODS, MIN_N, base_label, parse_log_base, slope_test_statistic
 from .stats.predictions import data_factors
 from .stats.fit_rows import ESTIMATE_COLUMNS, fit_row, fit_rows
 from .stats.grouped_fits import FIT_TABLE_COLUMNS, fit_groups_from_moments
@@ -88,8 +89,8 @@ def _deming_lam(options: dict) -> float:
                           f"error variances of log x and log y, not {ev!r}")
     for key in ("x", "y"):
         v = ev[key]
-        if isinstance(v, bool) or not isinstance(v, (int, float, np.floating)) \
-                or not (math.isfinite(v) and v > 0):
+        if (isinstance(v, bool) or not isinstance(v, (int, float, np.floating))
+                or not (math.isfinite(v) and v > 0)):
             raise ConfigError(f"error_variances['{key}'] must be a positive number, not {v!r}")
     return float(ev["y"]) / float(ev["x"])
 
@@ -263,7 +264,7 @@ def _row_method_rows(frame: pd.DataFrame, labels, method: str, confidence: float
         ranges = {"x_range": (float(xv.min()), float(xv.max())),
                   "y_range": (float(yv.min()), float(yv.max()))}
         if fit is not None:
-            rows.append(fit_row(fit, scope=scope, group=label, **ranges))
+            rows.append(fit_row(fit, scope=scope, group=label, note=fit_note(fit), **ranges))
             fits[label] = fit
         else:
             rows.append(fit_row(scope=scope, group=label, method=method, n=int(xv.size),
@@ -360,8 +361,8 @@ def fit_groups(df, *, x: str, y: str, group: str | None = None,
     parts, row_fits = [], {}
     for method in methods:
         if method in METHODS:
-            parts.append(fit_groups_from_moments(gm, methods=[method], confidence=confidence,
-                                                 scope=scope).fits)
+            parts.append(worded_fits(fit_groups_from_moments(
+                gm, methods=[method], confidence=confidence, scope=scope)))
         elif method == "deming":
             parts.append(_deming_rows(gm, _deming_lam(options), confidence, scope))
         else:
@@ -400,12 +401,7 @@ def _add_p_values(out: pd.DataFrame, gm, methods, row_fits: dict, exps: dict,
             elif method == "deming":
                 # The Deming test is the MA test of (X, Y/sqrt(lam)) against
                 # b0/sqrt(lam) (see LineFit.test_slope), vectorised here.
-                lam = _deming_lam(options)
-                k = math.sqrt(lam)
-                mk = m[idx]
-                mr = Moments(n=mk.n, mean_x=mk.mean_x, mean_y=mk.mean_y / k, sxx=mk.sxx,
-                             syy=mk.syy / lam, sxy=mk.sxy / k)
-                p[ok] = slope_test_statistic(mr, "ma", b0 / k)[2]
+                p[ok] = deming_slope_test(m[idx], _deming_lam(options), b0)[2]
             else:
                 for r in ok:
                     p[r] = row_fits[method][out["group"].iloc[r]].test_slope(b0).p_value

@@ -168,7 +168,7 @@ class TestFreshFitPredictions:
 
     def test_saved_fit_keeps_its_factors(self, trees):
         # internal consistency: fit_to_dict saves the carried factors, fit_from_dict restores them
-        from scaling.stats.lines import fit_from_dict, fit_to_dict
+        from scaling.stats.line_results import fit_from_dict, fit_to_dict
         fit = scaling.fit_line(*trees, method="ols")
         back = fit_from_dict(fit_to_dict(fit))
         assert back.smearing_factor == fit.smearing_factor

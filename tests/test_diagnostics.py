@@ -20,7 +20,7 @@ from scaling.render.findings import check_verdict, diagnostics_summary, error_st
 from scaling.stats.error_structure import compare_error_structure
 from scaling.stats.residual_checks import Diagnostics, diagnose, quadratic_t
 from scaling.errors import ConfigError, DataError
-from scaling.stats.lines import fit_line
+from scaling.stats.line_results import fit_line
 
 
 @pytest.fixture(scope="module")

@@ -7,12 +7,14 @@ import pytest
 
 import scaling.api
 import scaling.stats.group_comparisons
-import scaling.stats.lines
+import scaling.stats.line_results
+import scaling.stats.schema
 import scaling.stats.several_predictors
 import scaling.io.starter
 import scaling.stats.units
 
-MODULES = [scaling.api, scaling.stats.group_comparisons, scaling.stats.lines, scaling.stats.several_predictors, scaling.io.starter,
+MODULES = [scaling.api, scaling.stats.group_comparisons, scaling.stats.line_results,
+           scaling.stats.several_predictors, scaling.io.starter, scaling.stats.schema,
            scaling.stats.units]
 
 

@@ -32,27 +32,6 @@ MAX_LINES = 900
 #: ``render.plots`` (imported inside the method, so numbers never load matplotlib).
 PLOT_DOOR = "scaling.render.plots"
 
-#: Being mended while the house is rebuilt: each entry must go (a test fails
-#: when an entry no longer occurs, so the lists only shrink).
-KNOWN_WRONG_IMPORTS = {
-    'scaling.stats.lines -> scaling.render.wording',
-}
-KNOWN_LONG = {
-    'scaling/stats/lines.py',
-    'scaling/stats/resampling.py',
-    'scaling/stats/several_predictors.py',
-}
-KNOWN_BACKSLASHES = {
-    'scaling/api.py': 1,
-    'scaling/stats/lines.py': 1,
-    'scaling/stats/phylogeny.py': 1,
-    'scaling/stats/predictions.py': 1,
-    'scaling/stats/resampling.py': 1,
-    'scaling/stats/robust.py': 1,
-    'scaling/stats/schema.py': 3,
-    'scaling/stats/several_predictors.py': 2,
-}
-
 
 def module_name(path: Path) -> str:
     parts = path.relative_to(PACKAGE.parent).with_suffix("").parts
@@ -127,9 +106,7 @@ class TestFloors:
         assert stray == []
 
     def test_imports_run_one_way(self):
-        wrong = {w.split(": ", 1)[1] for w in wrong_imports()}
-        assert sorted(wrong - KNOWN_WRONG_IMPORTS) == []
-        assert sorted(KNOWN_WRONG_IMPORTS - wrong) == [], "mended: remove from KNOWN_WRONG_IMPORTS"
+        assert wrong_imports() == []
 
     def test_a_wrong_import_is_caught(self, tmp_path, monkeypatch):
         # teeth: a stats module that reads a sentence from render must be refused
@@ -155,20 +132,13 @@ class TestModules:
     def test_no_module_passes_the_line_limit(self):
         long = {str(p.relative_to(PACKAGE.parent)): n for p in modules()
                 if (n := len(p.read_text(encoding="utf-8").splitlines())) > MAX_LINES}
-        assert sorted(set(long) - KNOWN_LONG) == []
-        assert sorted(KNOWN_LONG - set(long)) == [], "mended: remove from KNOWN_LONG"
+        assert long == {}
 
     def test_no_backslash_continuation_lines(self):
-        found: dict[str, int] = {}
-        for path in modules():
-            for i, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
-                if line.rstrip().endswith("\\") and not _inside_string(path, i):
-                    name = str(path.relative_to(PACKAGE.parent))
-                    found[name] = found.get(name, 0) + 1
-        over = {k: v for k, v in found.items() if v > KNOWN_BACKSLASHES.get(k, 0)}
-        assert over == {}
-        mended = {k: v for k, v in KNOWN_BACKSLASHES.items() if found.get(k, 0) < v}
-        assert mended == {}, "mended: lower or remove the entry in KNOWN_BACKSLASHES"
+        found = [f"{path.relative_to(PACKAGE.parent)}:{i}" for path in modules()
+                 for i, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1)
+                 if line.rstrip().endswith("\\") and not _inside_string(path, i)]
+        assert found == []
 
 
 def _inside_string(path: Path, line: int) -> bool:

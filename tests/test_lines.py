@@ -33,10 +33,11 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning, ScalingError
-from scaling.stats.lines import (BOTH_SIGNS_NOTE, EXACT_NOTE, METHODS, base_label, describe_test,
-                           exponent_value, fit_line, fit_moments, format_p,
-                           is_symmetric, line_fit_from_moments, log_word, parse_log_base,
-                           slope_test_statistic, to_log)
+from scaling.render.wording import describe_test, fit_note, format_p
+from scaling.stats.line_results import fit_line, line_fit_from_moments
+from scaling.stats.lines import (METHODS, base_label, exponent_value, fit_moments, is_symmetric,
+                                 log_word, parse_log_base, slope_test_statistic, to_log)
+from scaling.stats.schema import BOTH_SIGNS_NOTE, EXACT_NOTE
 from scaling.stats.moments import group_moments, moments
 from scaling.stats.robust import deming, siegel, sma_robust, theil_sen
 
@@ -315,7 +316,7 @@ class TestFitMoments:
         f = fit_moments(m, "sma")
         assert set(f) == {"slope", "slope_low", "slope_high", "slope_se", "intercept",
                           "intercept_low", "intercept_high", "intercept_se", "r", "r2",
-                          "resid_sd", "df", "note"}
+                          "resid_sd", "df", "note", "slope_gap_low", "slope_gap_high"}
         assert all(np.shape(v) == (3,) for v in f.values())
 
     def test_ma_coverage_steep_slope_weak_correlation(self):
@@ -714,7 +715,13 @@ class TestSignAndBranchAwareTests:
             fit = fit_line(X, Y, method="sma", log_base=None)
         lo, hi = fit.slope_ci.low, fit.slope_ci.high
         assert lo == -hi and hi > abs(fit.slope)
-        inner = float(fit.note.split(" and ")[1].split(" to ")[0])
+        # the two accepted ranges are data on the fit; render writes them out
+        assert fit.note == BOTH_SIGNS_NOTE
+        inner = fit.slope_gap_high
+        assert 0 < inner < hi and fit.slope_gap_low == -inner
+        assert fit_note(fit) == (f"{BOTH_SIGNS_NOTE}: the accepted slopes are {lo:.4g} to "
+                                 f"{-inner:.4g} and {inner:.4g} to {hi:.4g} (the interval "
+                                 "reported is their hull)")
         for b0 in (lo, hi, inner, -inner):
             # exact law: every end of the accepted set has p = 1 - confidence
             assert_allclose(fit.test_slope(b0).p_value, 0.05, rtol=1e-3)

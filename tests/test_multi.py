@@ -23,9 +23,10 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError, DataError, ExtrapolationWarning
-from scaling.stats.several_predictors import (CombinedTermTest, MultiFit, MultiPrediction, TotalPrediction,
-                           _ols_core, _scatter_variance, _total_bounds,
-                           fit_multi)
+from scaling.stats.multi_predictions import (MultiPrediction, TotalPrediction, _scatter_variance,
+                                            _total_bounds)
+from scaling.stats.several_predictors import (CombinedTermTest, MultiFit, _ols_core,
+                                              fit_multi)
 from scaling.stats.schema import check_predictor_methods
 from scaling.stats.predictions import correction_factor
 

@@ -7,7 +7,8 @@ import pytest
 from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError, DataError
-from scaling.stats.lines import fit_line, fit_moments
+from scaling.stats.line_results import fit_line
+from scaling.stats.lines import fit_moments
 from scaling.stats.moments import Moments, group_moments
 from scaling.stats.newick import parse_newick, read_newick
 from scaling.stats.phylogeny import (PhyloPlan, dense_phylo_moments, fit_phylo, match_species,

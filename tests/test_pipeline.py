@@ -21,7 +21,8 @@ from scipy import stats
 from scaling.io.config import config_from_dict, load_config
 from scaling.io.tables import load_data
 from scaling.errors import DegenerateDataWarning
-from scaling.stats.lines import BOTH_SIGNS_NOTE, EXACT_NOTE, fit_line
+from scaling.stats.line_results import fit_line
+from scaling.stats.schema import BOTH_SIGNS_NOTE, EXACT_NOTE
 from scaling.run.pipeline import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,
                               ERROR_STRUCTURE_COLUMNS, INFLUENCE_COLUMNS, analyse)
 from scaling.stats.resampling import bootstrap_lines

@@ -264,7 +264,8 @@ class TestRegistry:
 #: The fitting entry points of the numeric floor: a figure must call none of them.
 FITTING = {
     "scaling.api": ("fit_line", "fit_groups"),
-    "scaling.stats.lines": ("fit_line", "fit_moments", "line_fit_from_moments"),
+    "scaling.stats.lines": ("fit_moments",),
+    "scaling.stats.line_results": ("fit_line", "line_fit_from_moments"),
     "scaling.stats.common_slope": ("common_slope",),
     "scaling.stats.group_comparisons": ("compare_groups",),
     "scaling.stats.group_means": ("fit_group_means", "group_means"),

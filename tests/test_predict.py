@@ -22,7 +22,8 @@ from numpy.testing import assert_allclose, assert_array_equal
 import scaling
 from scaling.errors import (ConfigError, DataError, DegenerateDataWarning,
                             ExtrapolationWarning)
-from scaling.stats.lines import fit_from_dict, fit_moments, fit_to_dict
+from scaling.stats.line_results import fit_from_dict, fit_to_dict
+from scaling.stats.lines import fit_moments
 from scaling.stats.moments import group_moments
 from scaling.stats.predictions import (Accuracy, InversePrediction, Prediction, accuracy,
                              correction_factor, data_factors, inverse_log_interval,
@@ -289,9 +290,9 @@ class TestPredict:
             predict(fit, [10.0], correction="none", interval="credible")
         with pytest.raises(ConfigError, match="confidence must be a number between 0 and 1"):
             predict(fit, [10.0], correction="none", confidence=95)
-        # scaling.stats.lines.fit_line (moments only) carries no correction factors,
+        # scaling.stats.line_results.fit_line (moments only) carries no correction factors,
         # unlike scaling.fit_line, so smearing and ratio need the data.
-        bare = scaling.stats.lines.fit_line(x, y, method="ols")
+        bare = scaling.stats.line_results.fit_line(x, y, method="ols")
         with pytest.raises(ConfigError, match="correction 'smearing' needs"):
             predict(bare, [10.0])
         with pytest.raises(ConfigError, match="correction 'ratio' needs"):
@@ -539,7 +540,7 @@ class TestPredictFromDict:
     def test_parametric_needs_no_factor_and_missing_factor_errors(self, trees):
         x, y = trees
         # moments-only fit: carries no smearing/ratio factor to save
-        fit = scaling.stats.lines.fit_line(x, y, method="ols")
+        fit = scaling.stats.line_results.fit_line(x, y, method="ols")
         d = fit_to_dict(fit)
         p = predict_from_dict(d, [12.0], correction="parametric")
         # same numbers as predicting from the fit itself (exact law)

@@ -11,11 +11,12 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
-from scaling.stats.lines import fit_line, slope_test_statistic
+from scaling.stats.line_results import fit_line
+from scaling.stats.lines import slope_test_statistic
 from scaling.stats.moments import Moments, moments
 import scaling.stats.resampling as resample
-from scaling.stats.resampling import (bca_interval, bootstrap_lines, draw_counts,
-                              line_from_moments, permutation_slope_test)
+from scaling.stats.permutation import permutation_slope_test
+from scaling.stats.resampling import bca_interval, bootstrap_lines, draw_counts, line_from_moments
 
 
 def _data(n=40, seed=1, slope=0.7, noise=0.5):
@@ -101,7 +102,7 @@ class TestDrawCounts:
 
 class TestLineFromMoments:
     def test_matches_fit_line(self):
-        # Internal consistency: scaling.stats.lines.fit_line (same estimators through fit_moments).
+        # Internal consistency: scaling.stats.line_results.fit_line (same estimators through fit_moments).
         X, Y = _data()
         m = moments(X, Y)
         for method in ("ols", "sma", "ma"):

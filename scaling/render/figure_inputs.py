@@ -13,7 +13,8 @@ from types import SimpleNamespace
 import numpy as np
 import pandas as pd
 
-from ..stats.lines import ConfidenceInterval, parse_log_base
+from ..stats.lines import parse_log_base
+from ..stats.line_results import ConfidenceInterval
 from .figure_style import scatter_coded
 from .headline import primary_method
 

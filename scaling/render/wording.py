@@ -3,8 +3,9 @@
 The run summary (``RunResult.messages`` / ``warnings``), the report and the
 CLI read these functions, so one finding is worded in one place.  Functions
 take results (fits, tests, tables) and return strings; they estimate
-nothing new (a few ask a fit for its slope test, ``LineFit.test_slope``).  This module imports only :mod:`scaling.stats.schema` (and numpy), so
-the numeric core may use it (``SlopeTest.summary``).
+nothing new (a few ask a fit for its slope test, ``LineFit.test_slope``).  The fixed
+note labels (``EXACT_NOTE``, ``BOTH_SIGNS_NOTE``) are vocabulary of
+:mod:`scaling.stats.schema`; sentences built on them are made here.
 """
 
 from __future__ import annotations
@@ -14,7 +15,8 @@ from fractions import Fraction
 
 import numpy as np
 
-from ..stats.schema import CATALOGUE, CLASSIC_METHODS, EXACT_NOTE, ROW_METHOD_NAMES, method_label
+from ..stats.schema import CATALOGUE, CLASSIC_METHODS, ROW_METHOD_NAMES, method_label
+from ..stats.schema import BOTH_SIGNS_NOTE, EXACT_NOTE
 
 __all__ = [
     "influence_reason", "smearing_reason", "estimate_outside_reason",
@@ -48,10 +50,6 @@ CAUTION = ("Results are statistical estimates from the data supplied, not clinic
            "veterinary or regulatory advice. Predictions outside the fitted range are "
            "extrapolations and are flagged. Interspecies dose scaling and any clinical or "
            "regulatory use must defer to the applicable guidance and licensed practice.")
-
-
-#: Note of an SMA fit whose correlation is not significant.
-BOTH_SIGNS_NOTE = "correlation not significant: slopes of either sign are accepted"
 
 
 # --------------------------------------------------------------------------
@@ -616,3 +614,61 @@ def clean_timestamp(iso: str) -> str:
     if len(text) >= 19 and text[16] == ":":
         text = text[:16]
     return text.strip() + " UTC"
+
+
+# --------------------------------------------------------------------------
+# the note cell of a fit (numbers the fit carries, written out)
+
+
+def accepted_slopes_note(note: str, slope_high: float, gap_low: float, gap_high: float) -> str:
+    """The ``note`` of a fit with its accepted slopes written out where they are two ranges.
+
+    An SMA fit noted ``BOTH_SIGNS_NOTE`` accepts ``-slope_high .. gap_low`` and
+    ``gap_high .. slope_high`` (its interval is their hull; see
+    :func:`scaling.stats.lines.fit_moments`).  Any other note comes back as it is.
+
+    Examples
+    --------
+    >>> accepted_slopes_note(BOTH_SIGNS_NOTE, 2.0, -0.5, 0.5)[len(BOTH_SIGNS_NOTE):]
+    ': the accepted slopes are -2 to -0.5 and 0.5 to 2 (the interval reported is their hull)'
+    >>> accepted_slopes_note("", 2.0, math.nan, math.nan)
+    ''
+    """
+    if not (str(note).startswith(BOTH_SIGNS_NOTE) and np.isfinite(gap_low)
+            and np.isfinite(gap_high)):
+        return note
+    ranges = (f": the accepted slopes are {-slope_high:.4g} to {gap_low:.4g} and "
+              f"{gap_high:.4g} to {slope_high:.4g} (the interval reported is their hull)")
+    return BOTH_SIGNS_NOTE + ranges + str(note)[len(BOTH_SIGNS_NOTE):]
+
+
+def fit_note(fit) -> str:
+    """:func:`accepted_slopes_note` of a fit object (a LineFit or a PhyloFit)."""
+    return accepted_slopes_note(fit.note, fit.slope_ci.high, fit.slope_gap_low,
+                                fit.slope_gap_high)
+
+
+def fit_notes_column(res: dict) -> np.ndarray:
+    """The ``note`` column of a vectorised :func:`scaling.stats.lines.fit_moments` result."""
+    notes = np.asarray(res["note"], dtype=object)
+    shape = notes.shape
+    flat = notes.reshape(-1).copy()
+    high, low_gap, high_gap = (np.broadcast_to(res.get(k, np.nan), shape).reshape(-1)
+                               for k in ("slope_high", "slope_gap_low", "slope_gap_high"))
+    for i in np.flatnonzero(np.isfinite(np.asarray(low_gap, dtype=float))):
+        flat[i] = accepted_slopes_note(flat[i], high[i], low_gap[i], high_gap[i])
+    return flat.reshape(shape)
+
+
+def worded_fits(group_fits):
+    """The ``fits`` table of a :class:`~scaling.stats.grouped_fits.GroupFits` with each
+    SMA note of two accepted ranges written out (:func:`accepted_slopes_note`)."""
+    gaps = group_fits.slope_gaps
+    if gaps is None or not np.isfinite(gaps["slope_gap_low"].to_numpy(dtype=float)).any():
+        return group_fits.fits
+    res = {"note": group_fits.fits["note"].to_numpy(dtype=object),
+           **{k: gaps[k].to_numpy(dtype=float) for k in gaps.columns}}
+    return group_fits.fits.assign(note=fit_notes_column(res))
+
+
+__all__ += ["accepted_slopes_note", "fit_note", "fit_notes_column", "worded_fits"]

@@ -20,10 +20,12 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
+from ..render.wording import fit_note, fit_notes_column
 from ..errors import DataError
 from ..render.wording import line_method_messages, pooled_fit_messages
 from ..stats.fit_rows import ESTIMATE_COLUMNS, fit_row
-from ..stats.lines import MIN_N, base_label, fit_moments, line_fit_from_result
+from ..stats.lines import MIN_N, base_label, fit_moments
+from ..stats.line_results import line_fit_from_result
 from ..stats.moments import group_moments, moments
 from ..stats.robust import ROW_METHODS, deming_moments
 from ..stats.schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, is_moment_method
@@ -159,12 +161,13 @@ def fit_moment_rows(scope: str, groups: list, m, method: str, cfg, base, ranges)
     else:
         res = fit_moments(m, method, confidence=cfg.model.confidence)
     rows, fits = [], {}
+    notes = fit_notes_column(res)   # the SMA note of two accepted ranges, written out
     for i, name in enumerate(groups):
         x_range, y_range = ranges[i]
         row = fit_row(scope=scope, group=name, method=method, n=int(m.n[i]),
                       **{k: float(res[k][i]) for k in ESTIMATE_COLUMNS},
                       log_base=base_label(base), confidence=cfg.model.confidence,
-                      note=str(res["note"][i]), x_range=x_range, y_range=y_range,
+                      note=str(notes[i]), x_range=x_range, y_range=y_range,
                       interval_method="analytic",
                       deming_lambda=lam if method == "deming" else np.nan)
         rows.append(row)
@@ -205,7 +208,8 @@ def row_method_fit(scope: str, group: str, method: str, points: pd.DataFrame, cf
         if fit is not None and not np.isfinite(fit.slope):
             note, fit = fit.note or "the line could not be fitted", None
     if fit is not None:
-        return fit_row(fit, scope=scope, group=group, x_range=rng_x, y_range=rng_y), fit
+        return (fit_row(fit, scope=scope, group=group, note=fit_note(fit), x_range=rng_x,
+                        y_range=rng_y), fit)
     return fit_row(scope=scope, group=group, method=method, n=n, log_base=base_label(base),
                    confidence=cfg.model.confidence, note=note, x_range=rng_x, y_range=rng_y,
                    interval_method="bootstrap_percentile"), None

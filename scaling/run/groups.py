@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from ..render.wording import fit_note
 from ..stats.fit_rows import fit_row
 from ..stats.group_comparisons import compare_groups
 from ..stats.group_means import compared_groups, fit_group_means, group_means
@@ -115,7 +116,8 @@ def group_stage(cfg, state) -> GroupStage:
                 fit = with_note(fit, f"{len(frame)} groups < {MIN_N}: no line through "
                                       "the group means"
                                       + (f"; {left_note}" if left_note else ""))
-            rows.append(fit_row(fit, scope="group_means", x_range=ranges[0], y_range=ranges[1]))
+            rows.append(fit_row(fit, scope="group_means", note=fit_note(fit), x_range=ranges[0],
+                                y_range=ranges[1]))
             if fit.estimable:
                 fits[("group_means", "", method)] = fit
     if cfg.groups.compare:

@@ -32,12 +32,15 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..render.wording import worded_fits
 from ..errors import ConfigError, DataError
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
 from .table_moments import read_moments
 from ..stats.grouped_fits import fit_groups_from_moments
-from ..stats.lines import METHODS, describe_test, line_fit_from_moments, method_label, parse_log_base
+from ..stats.lines import METHODS, method_label, parse_log_base
+from ..stats.line_results import line_fit_from_moments
+from ..render.wording import describe_test
 from ..stats.schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
 
 __all__ = ["use_moments_path", "MomentsStage", "moments_stage", "SpreadStage", "spread_stage",
@@ -243,7 +246,8 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
                         f"model.methods has only {', '.join(others)} (row-based)")
     res = fit_groups_from_moments(gm, methods=methods, confidence=cfg.model.confidence,
                                   exponents=cfg.exponents, pooled=True)
-    fits = res.fits[FIT_COLUMNS] if list(res.fits.columns) != FIT_COLUMNS else res.fits
+    fits = worded_fits(res)
+    fits = fits[FIT_COLUMNS] if list(fits.columns) != FIT_COLUMNS else fits
     if not d.group:
         fits = fits[fits["scope"] == "pooled"].reset_index(drop=True)
     slope_tests = res.slope_tests

@@ -29,8 +29,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..render.wording import fit_note
 from ..stats.fit_rows import fit_row
-from ..stats.lines import describe_test, line_fit_from_moments, method_label
+from ..stats.lines import method_label
+from ..stats.line_results import line_fit_from_moments
+from ..render.wording import describe_test
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
 
 __all__ = ["PHYLO_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
@@ -113,6 +116,7 @@ def phylo_stage(cfg, state) -> PhyloStage:
         fits[method] = fit
         rows.append(fit_row(fit, scope=PHYLO_SCOPE, x_range=ranges[0], y_range=ranges[1],
                             interval_method="analytic", deming_lambda=np.nan,
+                            note=fit_note(fit),
                             **_lambda_columns(fit)))
         if fit.estimable:
             line_fits[(PHYLO_SCOPE, "", method)] = line_fit_from_moments(

@@ -31,9 +31,11 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from ..render.wording import fit_note
 from ..render.wording import (range_warning, scope_words, symmetric_prediction_note,
                               unbounded_inverse_note)
-from ..stats.lines import fit_to_dict, is_symmetric, to_log
+from ..stats.lines import is_symmetric, to_log
+from ..stats.line_results import fit_to_dict
 from ..stats.predictions import accuracy, data_factors, inverse_predict, predict, saved_factor
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
 from .several_predictors import constant_columns, constant_sentence, prediction_sentences
@@ -209,7 +211,7 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
         scope, group, _ = key
         d = fit_to_dict(fit, smearing_factor=extra[key]["smearing_factor"],
                         ratio_factor=extra[key]["ratio_factor"])
-        d.update({"scope": scope, "group": group})
+        d.update({"scope": scope, "group": group, "note": fit_note(fit)})
         saved[key] = d
     return saved, extra
 

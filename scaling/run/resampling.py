@@ -14,7 +14,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..stats.resampling import bootstrap_lines, permutation_slope_test
+from ..stats.permutation import permutation_slope_test
+from ..stats.resampling import bootstrap_lines
 from ..stats.schema import BOOTSTRAP_COLUMNS, is_moment_method
 from .fits import robust_n_boot
 from ..render.wording import (bootstrap_means_note, bootstrap_message, bootstrap_unstratified_note,

@@ -19,7 +19,7 @@ import pandas as pd
 from ..errors import ConfigError, DegenerateDataWarning, ExtrapolationWarning, OutputError
 from ..io.saved import SavedRun, hint, parse_numbers, read_column, read_predictors, read_results
 from ..render.wording import dose_caution, medians_vs_means, units_line
-from ..stats.lines import fit_from_dict
+from ..stats.line_results import fit_from_dict
 from ..stats.predictions import Prediction, inverse_predict, predict, saved_factor
 from ..stats.schema import CORRECTIONS, INTERVALS, check_choice
 from ..stats.several_predictors import MULTI_DICT_FORMAT, multi_fit_from_dict

@@ -17,10 +17,12 @@ cluster.
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 import pandas as pd
 
+from ..render.wording import worded_fits
 from ..errors import DataError
 from ..io.chunked import (check_chunk_size, check_column, check_reading, clean_chunk,
                           dask_compute, dask_partitions, file_kind, files_of, frame_chunks,
@@ -182,5 +184,6 @@ def fit_frame(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
     One call, any table size; the engine behind :func:`scaling.fit_groups`.
     """
     gm = frame_moments(df, x=x, y=y, group=group, log_base=log_base, chunk_size=chunk_size)
-    return fit_groups_from_moments(gm, methods=methods, confidence=confidence,
-                                   exponents=exponents, pooled=pooled)
+    fitted = fit_groups_from_moments(gm, methods=methods, confidence=confidence,
+                                     exponents=exponents, pooled=pooled)
+    return replace(fitted, fits=worded_fits(fitted))

@@ -83,7 +83,8 @@ from scipy import optimize, stats
 
 from ..errors import DataError
 from ._group_common import EXACT_FIT_TOL, check_logs, factorize
-from .lines import (METHODS, ConfidenceInterval, SlopeTest, exponent_value, fit_notes)
+from .lines import METHODS, exponent_value, fit_notes
+from .line_results import ConfidenceInterval, SlopeTest
 from .moments import Moments, group_moments
 from .schema import EXACT_NOTE, check_confidence, check_method
 

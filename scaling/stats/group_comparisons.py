@@ -65,7 +65,8 @@ from ._group_common import EXACT_FIT_TOL, check_base, factorize
 from .common_slope import (CommonSlope, _common_from_arrays, _fit_common, _parallel_lines,
                            _pool, _profile_interval, _profile_state, _profile_terms)
 from .group_means import _compared_groups, _exclusion_warning
-from .lines import METHODS, ConfidenceInterval
+from .lines import METHODS
+from .line_results import ConfidenceInterval
 from .logscale import to_log
 from .moments import group_moments
 from .schema import (GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence, check_count,

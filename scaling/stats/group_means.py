@@ -19,7 +19,8 @@ import pandas as pd
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL, check_base, check_logs, factorize
-from .lines import METHODS, LineFit, fit_notes, line_fit_from_moments
+from .lines import METHODS, fit_notes
+from .line_results import LineFit, line_fit_from_moments
 from .moments import Moments, group_moments, moments, weighted_moments
 from .schema import check_confidence, check_count, check_method
 

@@ -128,6 +128,10 @@ class GroupFits:
     fits: pd.DataFrame
     slope_tests: pd.DataFrame
     moments: GroupedMoments | None = None
+    #: Row by row with ``fits``: ``slope_high``, ``slope_gap_low``, ``slope_gap_high``
+    #: (the gap of an SMA accepted set of two ranges; NaN otherwise), from which
+    #: render writes the note naming the two ranges.
+    slope_gaps: pd.DataFrame | None = None
 
     def summary(self) -> str:
         f = self.fits
@@ -361,12 +365,16 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
                                        exponents=exps, scope=scope)
         return GroupFits(fits=pd.concat([head.fits, body.fits], ignore_index=True),
                          slope_tests=pd.concat([head.slope_tests, body.slope_tests],
-                                               ignore_index=True), moments=gm)
+                                               ignore_index=True), moments=gm,
+                         slope_gaps=pd.concat([head.slope_gaps, body.slope_gaps],
+                                              ignore_index=True))
     m = gm.moments
     g = m.n.size
-    frames, tests = [], []
+    frames, tests, gaps = [], [], []
     for method in methods:
         res = fit_moments(m, method, confidence=confidence)
+        gaps.append(pd.DataFrame({k: np.broadcast_to(res.get(k, np.nan), (g,)) for k in
+                                  ("slope_high", "slope_gap_low", "slope_gap_high")}))
         note = np.asarray(res["note"], dtype=object)
         frames.append(fit_rows(
             g, scope=scope, group=gm.labels.astype(object), method=method,
@@ -390,5 +398,6 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
     fits = pd.concat(frames, ignore_index=True)
     slope_tests = (pd.concat(tests, ignore_index=True) if tests
                    else pd.DataFrame(columns=SLOPE_TEST_TABLE_COLUMNS))
-    return GroupFits(fits=fits, slope_tests=slope_tests, moments=gm)
+    return GroupFits(fits=fits, slope_tests=slope_tests, moments=gm,
+                     slope_gaps=pd.concat(gaps, ignore_index=True))
 

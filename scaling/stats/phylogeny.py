@@ -91,9 +91,9 @@ from scipy import optimize, stats
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError
-from .lines import (ConfidenceInterval, LineFit, METHODS, SlopeTest, 
-                    validate_xy, base_label, fit_moments, line_fit_from_moments,
-                    method_label, parse_log_base, slope_test_statistic, to_log)
+from .line_results import ConfidenceInterval, LineFit, SlopeTest, line_fit_from_moments
+from .lines import (METHODS, validate_xy, base_label, fit_moments, method_label,
+                    parse_log_base, slope_test_statistic, to_log)
 from .moments import Moments
 from .newick import Tree, parse_newick, read_newick
 from .schema import check_confidence
@@ -637,7 +637,7 @@ class PhyloFit:
     method : str
         ``"ols"`` (PGLS), ``"sma"`` or ``"ma"``.
     n, slope, slope_ci, slope_se, intercept, intercept_ci, intercept_se, r, r2, resid_sd, df
-        As in :class:`~scaling.stats.lines.LineFit`, computed from the phylogenetic
+        As in :class:`~scaling.stats.line_results.LineFit`, computed from the phylogenetic
         moments (``r`` is the phylogenetic correlation; ``resid_sd`` is on the
         scale where 1'V^-1 1 = n).
     lam : float
@@ -652,6 +652,8 @@ class PhyloFit:
         At ``lam``; ``n_params`` parameters counted in the AIC.
     missing_species, pruned_tips : tuple of str
         Species without a tip (dropped) and tips without data (pruned).
+    note, slope_gap_low, slope_gap_high
+        As in :class:`~scaling.stats.line_results.LineFit`.
     """
 
     method: str
@@ -679,6 +681,8 @@ class PhyloFit:
     missing_species: tuple = ()
     pruned_tips: tuple = ()
     note: str = ""
+    slope_gap_low: float = field(default=math.nan, compare=False)
+    slope_gap_high: float = field(default=math.nan, compare=False)
 
     @property
     def b(self) -> float:
@@ -702,7 +706,7 @@ class PhyloFit:
                          exponent=b0, estimate=self.slope, statistic=t, df=df, p_value=p)
 
     def line_fit(self) -> LineFit:
-        """The same line as a :class:`~scaling.stats.lines.LineFit` (for figures and predictions)."""
+        """The same line as a :class:`~scaling.stats.line_results.LineFit` (for figures and predictions)."""
         return line_fit_from_moments(self.moments, self.method, confidence=self.confidence,
                                      log_base=self.log_base)
 
@@ -771,8 +775,8 @@ def _check_lam(lam):
         if lam.strip().lower() == "ml":
             return "ml"
         raise ConfigError(f"lam must be 'ml' or a number between 0 and 1, not {lam!r}")
-    if isinstance(lam, bool) or not isinstance(lam, (int, float, np.floating)) \
-            or not 0 <= float(lam) <= 1:
+    if (isinstance(lam, bool) or not isinstance(lam, (int, float, np.floating))
+            or not 0 <= float(lam) <= 1):
         raise ConfigError(f"lam must be 'ml' or a number between 0 and 1, not {lam!r}")
     return float(lam)
 
@@ -889,8 +893,7 @@ def fit_phylo(x, y, tree, species, *, method: str = "ols", lam="ml", reml: bool 
         intercept_ci=ConfidenceInterval(float(f["intercept_low"]), float(f["intercept_high"])),
         intercept_se=float(f["intercept_se"]), r=float(f["r"]), r2=float(f["r2"]),
         resid_sd=float(f["resid_sd"]), df=float(f["df"]), lam=float(lam_hat), lam_ci=lam_ci,
-        lam_estimate=estimate, lam_model=model, loglik=float(ll_hat),
+        lam_estimate=estimate, lam_model=model, loglik=float(ll_hat), note=note,
         aic=float(-2 * ll_hat + 2 * k), n_params=k, log_base=base, confidence=confidence,
         moments=m, missing_species=match.missing_species, pruned_tips=match.pruned_tips,
-        note=note,
-    )
+        slope_gap_low=float(f["slope_gap_low"]), slope_gap_high=float(f["slope_gap_high"]))

@@ -178,8 +178,8 @@ def _check_values(values, name: str, base) -> np.ndarray:
 
 
 def _check_factor(factor) -> float:
-    if isinstance(factor, bool) or not isinstance(factor, (int, float, np.floating)) \
-            or not (np.isfinite(factor) and factor > 0):
+    if (isinstance(factor, bool) or not isinstance(factor, (int, float, np.floating))
+            or not (np.isfinite(factor) and factor > 0)):
         raise ConfigError(f"factor must be a positive number, not {factor!r}")
     return float(factor)
 

@@ -39,7 +39,8 @@ import numpy as np
 from scipy import stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import LineFit, exact_fit
+from .lines import exact_fit
+from .line_results import LineFit
 from .moments import moments
 
 __all__ = ["Check", "Curvature", "Diagnostics", "diagnose", "quadratic_t", "MIN_N"]

@@ -2,7 +2,7 @@
 
 Each function takes x and y in natural units (or logs with
 ``log_base=None``), fits on the log scale and returns a
-:class:`scaling.stats.lines.LineFit` whose ``method`` names the estimator:
+:class:`scaling.stats.line_results.LineFit` whose ``method`` names the estimator:
 ``"theil_sen"``, ``"siegel"``, ``"sma_robust"``, ``"ma_robust"``,
 ``"deming"``.  ``r``, ``r2``, ``moments`` and ``resid_sd`` describe the log
 data as for the classical lines (``resid_sd`` is the SD of the vertical
@@ -63,10 +63,10 @@ import numpy as np
 from scipy import stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
-from .lines import (METHODS, ConfidenceInterval, LineFit, 
-                    tie_term as _tie_term,
-                    fit_moments, line_fit_from_moments, parse_log_base, to_log,
-                    validate_xy)
+from .deming import to_ma_scale
+from .line_results import (ConfidenceInterval, LineFit, line_fit_from_moments,
+                           tie_term as _tie_term)
+from .lines import METHODS, fit_moments, parse_log_base, to_log, validate_xy
 from .moments import Moments, moments as _moments
 from .resampling import percentile_interval, make_rng, draw_counts
 from .schema import check_confidence, check_lam
@@ -499,16 +499,15 @@ def deming_moments(m: Moments, lam: float, *, confidence: float = 0.95) -> dict:
     """
     lam = check_lam(lam)
     confidence = check_confidence(confidence)
-    k = math.sqrt(lam)
-    mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
-                 syy=m.syy / lam, sxy=m.sxy / k)
+    mr, k = to_ma_scale(m, lam)
     out = dict(fit_moments(mr, "ma", confidence=confidence))
     for key in ("slope", "slope_low", "slope_high", "slope_se", "intercept",
-                "intercept_low", "intercept_high", "intercept_se", "resid_sd"):
+                "intercept_low", "intercept_high", "intercept_se", "resid_sd",
+                "slope_gap_low", "slope_gap_high"):
         out[key] = out[key] * k
     notes = np.asarray(out["note"], dtype=object).copy()
-    notes[notes == "x and y are uncorrelated: the MA slope is undefined"] = \
-        "x and y are uncorrelated: the Deming slope is undefined"
+    notes[notes == "x and y are uncorrelated: the MA slope is undefined"] = (
+        "x and y are uncorrelated: the Deming slope is undefined")
     out["note"] = notes
     return out
 
@@ -542,9 +541,7 @@ def deming_from_moments(m: Moments, lam: float, *, confidence: float = 0.95,
     """
     lam = check_lam(lam)
     confidence = check_confidence(confidence)
-    k = math.sqrt(lam)
-    mr = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y / k, sxx=m.sxx,
-                 syy=m.syy / lam, sxy=m.sxy / k)
+    mr, k = to_ma_scale(m, lam)
     fit = line_fit_from_moments(mr, "ma", confidence=confidence, log_base=log_base,
                                 x_range=x_range, y_range=y_range)
     note = fit.note.replace("MA slope", "Deming slope")

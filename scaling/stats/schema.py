@@ -31,7 +31,7 @@ __all__ = [
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
     "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice", "check_method", "check_methods",
     "check_count", "EXACT_NOTE", "EXACT_LINE_NOTE", "fraction_value",
-    "check_predictor_methods",
+    "check_predictor_methods", "BOTH_SIGNS_NOTE",
 ]
 
 
@@ -219,6 +219,12 @@ OPTIONAL_COLUMNS: dict[str, list] = {
 # --------------------------------------------------------------------------
 # allowed values of the enumerated options
 
+#: fits.csv ``note`` of a fit whose points lie on the line up to rounding.
+EXACT_NOTE = "no residual scatter: an exact power law"
+#: fits.csv ``note`` of an SMA fit whose correlation is not significant (the
+#: sentence naming the two accepted ranges is made in render).
+BOTH_SIGNS_NOTE = "correlation not significant: slopes of either sign are accepted"
+
 #: Back-transformation corrections (prediction.correction).
 CORRECTIONS = ("smearing", "parametric", "ratio", "none")
 #: Kinds of prediction interval (prediction.interval).
@@ -242,8 +248,8 @@ def check_confidence(confidence) -> float:
     ConfigError
         Otherwise, naming the value.
     """
-    if isinstance(confidence, bool) or not isinstance(confidence, numbers.Real) \
-            or not 0 < confidence < 1:
+    if (isinstance(confidence, bool) or not isinstance(confidence, numbers.Real)
+            or not 0 < confidence < 1):
         raise ConfigError(f"confidence must be a number between 0 and 1, not {confidence!r}")
     return float(confidence)
 
@@ -256,8 +262,8 @@ def check_lam(lam) -> float:
     ConfigError
         Otherwise, naming the value.
     """
-    if isinstance(lam, bool) or not isinstance(lam, numbers.Real) \
-            or not (math.isfinite(lam) and lam > 0):
+    if (isinstance(lam, bool) or not isinstance(lam, numbers.Real)
+            or not (math.isfinite(lam) and lam > 0)):
         raise ConfigError("lam (error-variance ratio) must be a positive finite number, "
                           f"not {lam!r}")
     return float(lam)
@@ -280,8 +286,8 @@ def check_exponents(exponents) -> dict:
         exponents = {f"{float(v):g}": v for v in exponents}
     out = {}
     for name, value in exponents.items():
-        if isinstance(value, bool) or not isinstance(value, numbers.Real) \
-                or not math.isfinite(value):
+        if (isinstance(value, bool) or not isinstance(value, numbers.Real)
+                or not math.isfinite(value)):
             raise ConfigError(f"exponents[{name!r}] must be a finite number, not {value!r}")
         out[str(name)] = float(value)
     return out
@@ -387,8 +393,6 @@ def check_count(value, name: str, minimum: int = 1) -> int:
 # --------------------------------------------------------------------------
 # notes: fixed short labels written in a table's note or reason cell
 
-#: Note of a fit (or check) whose points lie on the line up to rounding.
-EXACT_NOTE = "no residual scatter: an exact power law"
 #: Why a group lying exactly on a line is left out of SMA/MA comparisons.
 EXACT_LINE_NOTE = "points lie exactly on a line: no scatter to compare"
 

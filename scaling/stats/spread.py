@@ -46,7 +46,7 @@ from scipy import stats
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError
-from .lines import ConfidenceInterval
+from .line_results import ConfidenceInterval
 from .schema import check_confidence
 
 __all__ = ["ExponentSpread", "exponent_spread", "spread_from_fits", "tau2_dl", "tau2_reml",
