@@ -37,6 +37,7 @@ from .errors import ConfigError, DataError
 from .stats.deming import deming_slope_test
 from .stats.line_results import LineFit, fit_line as _fit_moment_line
 from .stats.lines import METHODS, MIN_N, base_label, parse_log_base, slope_test_statistic
+from .stats.logscale import to_log
 from .stats.predictions import data_factors
 from .stats.fit_rows import ESTIMATE_COLUMNS, fit_row, fit_rows
 from .stats.grouped_fits import FIT_TABLE_COLUMNS, fit_groups_from_moments
@@ -96,7 +97,10 @@ def _deming_lam(options: dict) -> float:
 
 
 def _with_factors(fit: LineFit, x, y) -> LineFit:
-    """The fit with its smearing and ratio factors on its own data (None without a log base)."""
+    """The fit with its smearing and ratio factors on its own data (None without a log
+    base) and its points on the log scale (``log_data``: what ``fit.plot()`` draws)."""
+    if fit.log_data is None and x.shape == y.shape:
+        fit = replace(fit, log_data=(to_log(x, fit.log_base), to_log(y, fit.log_base)))
     if fit.log_base is None or not fit.estimable:
         return fit
     factors = data_factors(fit, x, y)

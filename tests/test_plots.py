@@ -15,6 +15,7 @@ import ast
 import math
 import re
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -175,6 +176,36 @@ class TestPlotFit:
         assert [len(c.get_offsets()) for c in ax.collections
                 if c.__class__.__name__ == "PathCollection"] == [fit.n]
 
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma", "theil_sen"])
+    def test_plot_method_of_a_line_fit_draws_its_own_points(self, method):
+        x, y = _cube()
+        fit = scaling.fit_line(x, y, method=method)
+        ax = fit.plot()
+        _assert_natural_log_axes(ax)
+        (line,) = _drawn_lines(ax)
+        # exact law: the fit's own line y = a x^b
+        assert_allclose(line.get_ydata(), fit.a * np.asarray(line.get_xdata()) ** fit.slope,
+                        rtol=1e-10)
+        # exact: the n points the fit was given, in natural units
+        (dots,) = [c for c in ax.collections if c.__class__.__name__ == "PathCollection"]
+        assert_allclose(np.sort(dots.get_offsets()[:, 0]), np.sort(x), rtol=1e-12)
+
+    def test_plot_method_of_phylogenetic_and_several_predictor_fits(self):
+        x, y = _cube(n=8, seed=2, scatter=0.05)
+        phylo = scaling.fit_phylo(x, y, TREE, list("abcdefgh"), method="sma", lam=1.0)
+        ax = phylo.plot()
+        _assert_natural_log_axes(ax)
+        # exact: the method draws what plot_fit draws
+        assert_allclose(_drawn_lines(ax)[0].get_ydata(),
+                        _drawn_lines(plot_fit(phylo))[0].get_ydata(), rtol=0)
+        rng = np.random.default_rng(8)
+        d, h = 10 ** rng.uniform(0.5, 1.5, 40), 10 ** rng.uniform(0.8, 1.6, 40)
+        multi = scaling.fit_multi({"diameter": d, "height": h},
+                                  math.pi / 4 * d ** 2 * h * 10 ** rng.normal(0, 0.02, 40))
+        ax = multi.plot(term="height")
+        _assert_natural_log_axes(ax)
+        assert _log_slope(_drawn_lines(ax)[0]) == pytest.approx(multi.slopes[1], rel=1e-9)
+
     def test_unknown_term(self):
         x = {"a": np.arange(1, 11.0), "b": np.arange(2, 12.0) ** 1.3}
         fit = scaling.fit_multi(x, np.arange(1, 11.0) ** 0.7 * np.arange(2, 12.0) ** 0.2
@@ -213,11 +244,31 @@ class TestPlotComparison:
             assert np.interp(g["volume"], xs, ys) == pytest.approx(g["area"], abs=1e-9)
         _assert_natural_log_axes(ax)
 
+    def test_plot_method_draws_from_the_comparison_alone(self):
+        df = _three_groups()
+        comp = scaling.compare_groups(df, "volume", "area", "clade", method="ols")
+        ax = comp.plot()
+        lines = _drawn_lines(ax)
+        # exact by construction: one line per compared group
+        assert sorted(ln.get_label() for ln in lines) == ["a", "b", "c"]
+        logs = np.log10(df[["volume", "area"]])
+        for ln in lines:
+            assert _log_slope(ln) == pytest.approx(comp.common_slope, rel=1e-9)
+            # reference: pandas means and range of the group's logs -- the centroid the
+            # line passes through and the span it is drawn over
+            sub = logs[df["clade"] == ln.get_label()]
+            xs, ys = np.log10(ln.get_xdata()), np.log10(ln.get_ydata())
+            assert np.interp(sub["volume"].mean(), xs, ys) == pytest.approx(
+                sub["area"].mean(), abs=1e-9)
+            assert_allclose([xs[0], xs[-1]], [sub["volume"].min(), sub["volume"].max()],
+                            rtol=1e-9)
+        _assert_natural_log_axes(ax)
+
     def test_without_data_or_means_says_what_to_pass(self):
         df = _three_groups()
         comp = scaling.compare_groups(df, "volume", "area", "clade", method="ols")
         with pytest.raises(scaling.DataError, match="pass data=, x= and y="):
-            plot_comparison(comp)
+            plot_comparison(replace(comp, centroids=()))
 
 
 class TestPlotGroups:

@@ -23,7 +23,7 @@ import pandas as pd
 from .logscale import base_label
 from .schema import FIT_COLUMNS
 
-__all__ = ["ESTIMATE_COLUMNS", "RANGE_COLUMNS", "fit_row", "fit_rows"]
+__all__ = ["ESTIMATE_COLUMNS", "RANGE_COLUMNS", "fit_row", "fit_rows", "fit_values"]
 
 #: The numeric columns of a fit's estimates (blank when the fit is not estimable).
 ESTIMATE_COLUMNS = ("slope", "slope_low", "slope_high", "intercept", "intercept_low",
@@ -34,7 +34,7 @@ RANGE_COLUMNS = ("x_min", "x_max", "y_min", "y_max")
 _NAN_PAIR = (math.nan, math.nan)
 
 
-def _from_fit(fit) -> dict:
+def fit_values(fit) -> dict:
     """The columns a fit object knows about itself.
 
     Reads the attributes shared by :class:`~scaling.stats.lines.LineFit` and
@@ -96,7 +96,7 @@ def fit_row(fit=None, *, scope: str = "", group: str = "", x_range=None, y_range
     >>> list(row)[:4], row["slope"]
     (['scope', 'group', 'method', 'n'], nan)
     """
-    known = _from_fit(fit) if fit is not None else {}
+    known = fit_values(fit) if fit is not None else {}
     if x_range is None:
         x_range = getattr(fit, "x_range", None) or _NAN_PAIR
     if y_range is None:

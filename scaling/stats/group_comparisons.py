@@ -409,6 +409,30 @@ class GroupComparison:
     pairwise_max: int = PAIRWISE_MAX
     pairwise_skipped: bool = False
     common: CommonSlope | None = None
+    #: Per compared group: (mean log x, mean log y, min log x, max log x), in
+    #: ``groups`` order -- what :meth:`plot` draws each group's line through.
+    centroids: tuple = ()
+
+    @property
+    def group_means(self):
+        """The compared groups' centroids as a table: ``group, n, mean_log_x,
+        mean_log_y, log_x_min, log_x_max`` (None when none were kept)."""
+        if not self.centroids:
+            return None
+        import pandas as pd   # the numbers need no pandas; only this table does
+        return pd.DataFrame([(g, n, *c) for g, n, c in
+                             zip(self.groups, self.group_n, self.centroids)],
+                            columns=["group", "n", "mean_log_x", "mean_log_y",
+                                     "log_x_min", "log_x_max"])
+
+    def plot(self, *, ax=None, **style):
+        """Draw each group's points or mean and its line with the common slope.
+
+        See :func:`scaling.render.plots.plot_comparison` (``data=``, ``x=``,
+        ``y=`` add each group's points); returns the matplotlib Axes.
+        """
+        from ..render.plots import plot_comparison
+        return plot_comparison(self, ax=ax, **style)
 
     @property
     def compared(self) -> bool:
@@ -612,11 +636,17 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     if excluded:
         warnings.warn(_exclusion_warning("the comparison", excluded),
                       DegenerateDataWarning, stacklevel=2)
+    lo = np.full(len(labels), np.inf)
+    hi = np.full(len(labels), -np.inf)
+    np.minimum.at(lo, codes, X)
+    np.maximum.at(hi, codes, X)
     common = dict(method=method, group_column=str(group), confidence=confidence,
                   log_base=base, calibration=calibration, n_boot=n_boot, seed=seed,
                   min_n=min_n,
                   excluded=excluded, groups=tuple(labels[i] for i in used),
-                  group_n=tuple(int(m.n[i]) for i in used))
+                  group_n=tuple(int(m.n[i]) for i in used),
+                  centroids=tuple((float(m.mean_x[i]), float(m.mean_y[i]), float(lo[i]),
+                                   float(hi[i])) for i in used))
     if len(used) < 2:
         return GroupComparison(
             **common, common_slope=math.nan,

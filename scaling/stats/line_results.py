@@ -23,6 +23,7 @@ from scipy import stats
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from .deming import deming_slope_test
+from .fit_rows import fit_values
 from .lines import (METHOD_INFO, METHODS, exact_fit, exponent_value, fit_moments, get_method,
                     slope_test_statistic, validate_xy)
 from .logscale import base_label, log_word, parse_log_base, to_log
@@ -312,18 +313,18 @@ class LineFit:
         return pd.DataFrame([self.to_record()])
 
     def to_record(self) -> dict:
-        return {
-            "method": self.method, "n": self.n,
-            "slope": self.slope, "slope_low": self.slope_ci.low,
-            "slope_high": self.slope_ci.high,
-            "intercept": self.intercept, "intercept_low": self.intercept_ci.low,
-            "intercept_high": self.intercept_ci.high,
-            "r": self.r, "r2": self.r2, "slope_se": self.slope_se,
-            "intercept_se": self.intercept_se, "resid_sd": self.resid_sd,
-            "log_base": base_label(self.log_base), "confidence": self.confidence,
-            "note": self.note, "interval_method": self.interval_method,
-            "deming_lambda": None if self.lam is None else float(self.lam),
-        }
+        """The fit's columns of ``fits.csv`` (:func:`scaling.stats.fit_rows.fit_values`)."""
+        return fit_values(self)
+
+    def plot(self, *, ax=None, **style):
+        """Draw the points (when kept), the line and its confidence band on log axes
+        labelled in natural units; returns the matplotlib Axes.
+
+        See :func:`scaling.render.plots.plot_fit` for the options (``x=``,
+        ``y=`` to draw points a fit from moments does not keep).
+        """
+        from ..render.plots import plot_fit
+        return plot_fit(self, ax=ax, **style)
 
     def summary(self) -> str:
         """A few lines of text describing the fit."""

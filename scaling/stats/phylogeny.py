@@ -89,6 +89,7 @@ from typing import Callable
 import numpy as np
 from scipy import optimize, stats
 
+from .fit_rows import fit_values
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError
 from .line_results import ConfidenceInterval, LineFit, SlopeTest, line_fit_from_moments
@@ -712,17 +713,15 @@ class PhyloFit:
 
     def to_record(self) -> dict:
         """One row with the columns of ``fits.csv`` plus lambda, loglik and aic."""
-        return {
-            "method": self.method, "n": self.n,
-            "slope": self.slope, "slope_low": self.slope_ci.low, "slope_high": self.slope_ci.high,
-            "intercept": self.intercept, "intercept_low": self.intercept_ci.low,
-            "intercept_high": self.intercept_ci.high, "r": self.r, "r2": self.r2,
-            "slope_se": self.slope_se, "intercept_se": self.intercept_se,
-            "resid_sd": self.resid_sd, "log_base": base_label(self.log_base),
-            "confidence": self.confidence, "note": self.note,
-            "lambda": self.lam, "lambda_low": self.lam_ci.low, "lambda_high": self.lam_ci.high,
-            "lambda_estimate": self.lam_estimate, "loglik": self.loglik, "aic": self.aic,
-        }
+        return {**fit_values(self),
+                "lambda": self.lam, "lambda_low": self.lam_ci.low, "lambda_high": self.lam_ci.high,
+                "lambda_estimate": self.lam_estimate, "loglik": self.loglik, "aic": self.aic}
+
+    def plot(self, *, ax=None, **style):
+        """Draw the phylogenetic line and its band on natural-unit log axes (points
+        with ``x=``, ``y=``); returns the Axes (:func:`scaling.render.plots.plot_fit`)."""
+        from ..render.plots import plot_fit
+        return plot_fit(self, ax=ax, **style)
 
     def to_frame(self):
         import pandas as pd

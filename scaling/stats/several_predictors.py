@@ -573,6 +573,13 @@ class MultiFit:
         return frame_html(self.to_frame(), title="OLS fit on several predictors",
                           notes=[self.summary()])
 
+    def plot(self, *, ax=None, term: str | None = None, **style):
+        """Draw the partial relationship with one predictor (``term``, default the
+        first) at the geometric means of the others, on natural-unit log axes;
+        returns the Axes (:func:`scaling.render.plots.plot_fit`)."""
+        from ..render.plots import plot_fit
+        return plot_fit(self, ax=ax, term=term, **style)
+
     def summary(self) -> str:
         """A few lines of text describing the fit.
 
