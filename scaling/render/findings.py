@@ -10,14 +10,15 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..stats.schema import EXACT_LINE_NOTE, EXACT_NOTE
-from .wording import (estimate_outside_reason, format_p, group_residuals_reason,
+from ..stats.schema import EXACT_LINE_NOTE, EXACT_NOTE, ROW_METHOD_NAMES, method_label
+from .wording import (curvature_ok, diag_method, error_structure_words,
+                      estimate_outside_reason, format_p, group_residuals_reason,
                       influence_reason, p_text, smearing_reason)
 
 __all__ = ["point_check_reason", "spread_summary", "exclusion_reason", "excluded_text",
            "means_left_out_text", "comparison_note", "comparison_summary",
            "common_slope_note", "check_verdict", "diagnostics_summary",
-           "error_structure_verdict"]
+           "error_structure_verdict", "diagnostics_messages"]
 
 
 def point_check_reason(check) -> str:
@@ -315,3 +316,77 @@ def error_structure_verdict(es) -> str:
     return (f"scatter is constant on the arithmetic scale (additive normal error; AICc "
             f"lower by {-delta:.3g}): the nonlinear fit is better supported; exponent "
             f"{add.b:.3g} (the log-scale fit gives {mult.b:.3g})")
+
+
+def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg) -> list:
+    """The plain-language verdicts of the diagnostics stage.
+
+    ``results``: ``(scope, group, method) -> Diagnosis``; ``es_results``:
+    ``(scope, group) -> ErrorStructure``; ``point_sets``: ``(scope, group) ->
+    points``.
+    """
+    dc = cfg.diagnostics
+    messages = []
+    methods = [m for m in cfg.model.methods]
+    key_method = diag_method(methods)
+    pooled = results.get(("pooled", "", key_method)) or next(
+        (d for (s, _, _), d in results.items() if s == "pooled"), None)
+    group_word = f"{cfg.data.group} groups" if cfg.data.group else "groups"
+    if pooled is None:
+        messages.append("Diagnostics: too few points (fewer than 4) to check the pooled line.")
+        return messages
+    curv = pooled.check("curvature")
+    if curv.flagged:
+        c = pooled.curvature
+        xs = [f"{t:g} at x ≈ {x:.3g}" for t, x, inside in c.crossings if inside]
+        where = (f"; the local exponent reaches {', '.join(xs)}" if xs else "")
+        messages.append(f"Power law: NOT a straight line on log-log scales — {check_verdict(curv)}"
+                        f"{where}. One exponent summarises these data only roughly; see "
+                        "curvature.csv.")
+    else:
+        messages.append(curvature_ok(check_verdict(curv)))
+    g_curved = [(g, d.check("curvature").p_value) for (s, g, m), d in results.items()
+                if s == "group" and m == pooled.method and d.check("curvature").flagged]
+    n_groups = sum(1 for (s, g, m) in results if s == "group" and m == pooled.method)
+    if n_groups:
+        if g_curved:
+            listed = ", ".join(f"{g}, {p_text(p)}" for g, p in g_curved)
+            messages.append(f"  Within {group_word}: curvature in {len(g_curved)} of {n_groups}: "
+                            f"{listed} (each tested at α = {dc.alpha:g}; by chance alone about "
+                            f"{dc.alpha * n_groups:.2g} of {n_groups} would be flagged).")
+        else:
+            messages.append(f"  Within {group_word}: no detectable curvature in any of the "
+                            f"{n_groups}.")
+    label = method_label(pooled.method)
+    normal, spread = pooled.check("normality"), pooled.check("constant_variance")
+    messages.append(f"Residuals of the pooled {label} line: {check_verdict(normal)}; {check_verdict(spread)}.")
+    infl = pooled.check("influence")
+    if infl.flagged:
+        rows = list(pooled.influential_rows)
+        sel = point_sets[("pooled", "")]
+        unit = dict(zip(sel["row"].tolist(), sel["unit"].astype(str))) if "unit" in sel else {}
+        shown = ", ".join(f"row {r}" + (f" ({unit[r]})" if r in unit else "") for r in rows[:4])
+        more = f" and {len(rows) - 4} more" if len(rows) > 4 else ""
+        messages.append(f"Influence: {len(rows)} point(s) pull the pooled line more than "
+                        f"usual (Cook's distance > 4/n): {shown}{more}. Such flags are common "
+                        "in clean data; check them in influential_rows.csv"
+                        + ("." if any(m in ROW_METHOD_NAMES for m in methods) else
+                           ", or add a robust line (sma_robust, theil_sen) to model.methods "
+                           "to see whether the exponent moves."))
+    else:
+        messages.append("Influence: no point pulls the pooled line unduly "
+                        "(all Cook's distances ≤ 4/n).")
+    es = es_results.get(("pooled", ""))
+    if es is not None:
+        messages.append("Error structure: " + error_structure_words(es))
+        g_pref = [(g, e.preferred) for (s, g), e in es_results.items() if s == "group"]
+        if g_pref:
+            same = [g for g, p in g_pref if p == es.preferred]
+            other = [f"{g}: {p if p != 'neither' else 'no clear preference'}"
+                     for g, p in g_pref if p != es.preferred]
+            word = {"neither": "no clear preference"}.get(es.preferred, es.preferred)
+            text = f"  Within {group_word}: {word} also in {len(same)} of {len(g_pref)}"
+            if other:
+                text += f" ({'; '.join(other)})"
+            messages.append(text + (" — small groups rarely decide this." if other else "."))
+    return messages

@@ -27,7 +27,7 @@ __all__ = [
     "p_text", "format_p", "scope_words", "read_message", "dropped_note",
     "pooled_fit_messages", "uncompared_message", "pairwise_skipped_note",
     "means_left_out_note", "extrapolation_note", "inverse_extrapolation_note",
-    "unbounded_inverse_note", "diag_method", "diagnostics_messages",
+    "unbounded_inverse_note", "diag_method",
     "error_structure_words", "line_method_messages", "bootstrap_message",
     "bootstrap_means_note", "bootstrap_unstratified_note", "permutation_message"]
 
@@ -281,81 +281,6 @@ def unbounded_inverse_note(fits: list, interval: str, confidence: float) -> str:
 def diag_method(methods) -> str:
     """The method whose residuals the plain-language verdicts read: OLS if fitted."""
     return "ols" if "ols" in methods else methods[0]
-
-
-def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg) -> list:
-    """The plain-language verdicts of the diagnostics stage.
-
-    ``results``: ``(scope, group, method) -> Diagnosis``; ``es_results``:
-    ``(scope, group) -> ErrorStructure``; ``point_sets``: ``(scope, group) ->
-    points``.
-    """
-    from .findings import check_verdict   # findings builds on this module
-    dc = cfg.diagnostics
-    messages = []
-    methods = [m for m in cfg.model.methods]
-    key_method = diag_method(methods)
-    pooled = results.get(("pooled", "", key_method)) or next(
-        (d for (s, _, _), d in results.items() if s == "pooled"), None)
-    group_word = f"{cfg.data.group} groups" if cfg.data.group else "groups"
-    if pooled is None:
-        messages.append("Diagnostics: too few points (fewer than 4) to check the pooled line.")
-        return messages
-    curv = pooled.check("curvature")
-    if curv.flagged:
-        c = pooled.curvature
-        xs = [f"{t:g} at x ≈ {x:.3g}" for t, x, inside in c.crossings if inside]
-        where = (f"; the local exponent reaches {', '.join(xs)}" if xs else "")
-        messages.append(f"Power law: NOT a straight line on log-log scales — {check_verdict(curv)}"
-                        f"{where}. One exponent summarises these data only roughly; see "
-                        "curvature.csv.")
-    else:
-        messages.append(curvature_ok(check_verdict(curv)))
-    g_curved = [(g, d.check("curvature").p_value) for (s, g, m), d in results.items()
-                if s == "group" and m == pooled.method and d.check("curvature").flagged]
-    n_groups = sum(1 for (s, g, m) in results if s == "group" and m == pooled.method)
-    if n_groups:
-        if g_curved:
-            listed = ", ".join(f"{g}, {p_text(p)}" for g, p in g_curved)
-            messages.append(f"  Within {group_word}: curvature in {len(g_curved)} of {n_groups}: "
-                            f"{listed} (each tested at α = {dc.alpha:g}; by chance alone about "
-                            f"{dc.alpha * n_groups:.2g} of {n_groups} would be flagged).")
-        else:
-            messages.append(f"  Within {group_word}: no detectable curvature in any of the "
-                            f"{n_groups}.")
-    label = method_label(pooled.method)
-    normal, spread = pooled.check("normality"), pooled.check("constant_variance")
-    messages.append(f"Residuals of the pooled {label} line: {check_verdict(normal)}; {check_verdict(spread)}.")
-    infl = pooled.check("influence")
-    if infl.flagged:
-        rows = list(pooled.influential_rows)
-        sel = point_sets[("pooled", "")]
-        unit = dict(zip(sel["row"].tolist(), sel["unit"].astype(str))) if "unit" in sel else {}
-        shown = ", ".join(f"row {r}" + (f" ({unit[r]})" if r in unit else "") for r in rows[:4])
-        more = f" and {len(rows) - 4} more" if len(rows) > 4 else ""
-        messages.append(f"Influence: {len(rows)} point(s) pull the pooled line more than "
-                        f"usual (Cook's distance > 4/n): {shown}{more}. Such flags are common "
-                        "in clean data; check them in influential_rows.csv"
-                        + ("." if any(m in ROW_METHOD_NAMES for m in methods) else
-                           ", or add a robust line (sma_robust, theil_sen) to model.methods "
-                           "to see whether the exponent moves."))
-    else:
-        messages.append("Influence: no point pulls the pooled line unduly "
-                        "(all Cook's distances ≤ 4/n).")
-    es = es_results.get(("pooled", ""))
-    if es is not None:
-        messages.append("Error structure: " + error_structure_words(es))
-        g_pref = [(g, e.preferred) for (s, g), e in es_results.items() if s == "group"]
-        if g_pref:
-            same = [g for g, p in g_pref if p == es.preferred]
-            other = [f"{g}: {p if p != 'neither' else 'no clear preference'}"
-                     for g, p in g_pref if p != es.preferred]
-            word = {"neither": "no clear preference"}.get(es.preferred, es.preferred)
-            text = f"  Within {group_word}: {word} also in {len(same)} of {len(g_pref)}"
-            if other:
-                text += f" ({'; '.join(other)})"
-            messages.append(text + (" — small groups rarely decide this." if other else "."))
-    return messages
 
 
 def error_structure_words(es) -> str:

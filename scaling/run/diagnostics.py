@@ -3,7 +3,7 @@
 Tables from :mod:`scaling.stats.residual_checks` and
 :mod:`scaling.stats.error_structure`; the ``verdict`` column from
 :func:`scaling.render.findings.check_verdict` and the verdict sentences from
-:func:`scaling.render.wording.diagnostics_messages`.
+:func:`scaling.render.findings.diagnostics_messages`.
 """
 
 from __future__ import annotations
@@ -19,8 +19,7 @@ from ..stats.residual_checks import diagnose
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
-from ..render.findings import check_verdict
-from ..render.wording import diagnostics_messages
+from ..render.findings import check_verdict, diagnostics_messages
 from .moments_path import bounded_diagnostics
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
