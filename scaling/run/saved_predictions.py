@@ -45,21 +45,9 @@ def predict_from_dict(d: dict, x, *, correction: str = "smearing",
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class SavedResults(SavedRun):
-    """The fits of a finished run, usable for prediction.
-
-    Attributes
-    ----------
-    folder : Path
-    fits : tuple of dict
-        Saved fit dictionaries (with ``scope``, ``group`` and ``method``).
-    methods : tuple of str
-        Methods of the run, in the config's order.
-    groups : tuple of str
-        Group names ("" only when the run had no groups).
-    x_name, y_name : str
-        Column names of x and y in the original data.
-    correction, interval : str
-        The run's prediction settings (defaults for new predictions).
+    """The fits of a finished run, usable for prediction: the attributes of
+    :class:`scaling.io.saved.SavedRun`, with the saved fits rebuilt as fit objects
+    (:attr:`predictors`, :meth:`fit`) and :meth:`predict`.
     """
 
     @property
