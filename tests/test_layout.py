@@ -5,10 +5,14 @@ report, figures) reads ``stats`` and the config objects of ``scaling/io``;
 ``scaling/io`` (config, tables, saved results, output folder) reads only the
 vocabulary of ``stats`` (the schema, log bases, units); ``scaling/run`` (the
 stages) may read all three; the public face (``api``, ``cli``) sits on top.
-``errors`` and ``_version`` are leaves every floor may import.  Every import
-is read with :mod:`ast`, those inside functions and under ``TYPE_CHECKING``
-too.  Rules of the house, no external source (common practice for layered
-packages, no source).
+``errors`` and ``_version`` are leaves every floor may import.  A result in
+``stats`` opens upward only through a door, a method of a given name that
+hands the result to one module of ``render`` inside the method (``plot`` to
+``render.plots``, ``summary`` to ``render.summaries``, see ``DOORS``), so
+numbers carry no words and load no figures.  Every import is read with
+:mod:`ast`, those inside functions and under ``TYPE_CHECKING`` too.  Rules of
+the house, no external source (common practice for layered packages, no
+source).
 """
 from __future__ import annotations
 
@@ -28,9 +32,13 @@ ALLOWED = {
 TOP = {"scaling", "scaling.api", "scaling.cli", "scaling.errors", "scaling._version",
        "scaling.__init__"}
 MAX_LINES = 900
-#: The one door upward: a result's ``plot`` method in ``stats`` hands itself to
-#: ``render.plots`` (imported inside the method, so numbers never load matplotlib).
-PLOT_DOOR = "scaling.render.plots"
+#: The doors upward: method name -> the one ``render`` module a method of that name
+#: in ``stats`` may import, inside the method (a result hands itself over to be drawn
+#: or worded; numbers never load matplotlib or hold a sentence).
+DOORS = {
+    "plot": "scaling.render.plots",
+    "summary": "scaling.render.summaries",
+}
 
 
 def module_name(path: Path) -> str:
@@ -49,13 +57,14 @@ def imported_names(path: Path) -> list[tuple[int, str]]:
     here = module_name(path)
     package = here if path.name == "__init__.py" else here.rpartition(".")[0]
     found = []
-    in_plot = {id(n) for f in ast.walk(tree)
-               if isinstance(f, (ast.FunctionDef, ast.AsyncFunctionDef)) and f.name == "plot"
+    # node -> the module its enclosing door method may import
+    door_of = {id(n): DOORS[f.name] for f in ast.walk(tree)
+               if isinstance(f, (ast.FunctionDef, ast.AsyncFunctionDef)) and f.name in DOORS
                for n in ast.walk(f)}
     for node in ast.walk(tree):
-        if id(node) in in_plot:
+        if id(node) in door_of:
             if isinstance(node, ast.ImportFrom) and (node.module or "").endswith(
-                    PLOT_DOOR.split(".", 1)[1]):
+                    door_of[id(node)].split(".", 1)[1]):
                 continue
         if isinstance(node, ast.Import):
             found += [(node.lineno, a.name) for a in node.names if a.name.startswith("scaling")]
@@ -122,10 +131,19 @@ class TestFloors:
         (planted.parent / "door.py").write_text(
             "def plot(self):\n    from ..render.plots import plot_fit\n"
             "def other(self):\n    from ..render.plots import plot_fit\n", encoding="utf-8")
+        # a summary method may hand itself to render.summaries, and to no other
+        # render module: each door opens onto its own room
+        (planted.parent / "words.py").write_text(
+            "def summary(self):\n    from ..render.summaries import line_fit_summary\n"
+            "def summary(self):\n    from ..render.wording import describe_test\n"
+            "def plot(self):\n    from ..render.summaries import line_fit_summary\n",
+            encoding="utf-8")
         monkeypatch.setattr(sys.modules[__name__], "PACKAGE", tmp_path / "scaling")
         assert wrong_imports() == [
             "scaling/stats/door.py:4: scaling.stats.door -> scaling.render.plots",
-            "scaling/stats/planted.py:1: scaling.stats.planted -> scaling.render.wording"]
+            "scaling/stats/planted.py:1: scaling.stats.planted -> scaling.render.wording",
+            "scaling/stats/words.py:4: scaling.stats.words -> scaling.render.wording",
+            "scaling/stats/words.py:6: scaling.stats.words -> scaling.render.summaries"]
 
 
 class TestModules:

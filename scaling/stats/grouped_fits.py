@@ -134,17 +134,9 @@ class GroupFits:
     slope_gaps: pd.DataFrame | None = None
 
     def summary(self) -> str:
-        f = self.fits
-        ok = f["note"].eq("") | f["note"].str.contains("unbounded", regex=False)
-        parts = []
-        for method, sub in f[ok].groupby("method", sort=False):
-            q = sub["slope"].quantile([0.25, 0.5, 0.75]).to_numpy()
-            parts.append(f"  {method}: median exponent {q[1]:.4g} "
-                         f"(quartiles {q[0]:.4g} to {q[2]:.4g})")
-        n_groups = f["group"].nunique()
-        head = (f"{n_groups} groups fitted with {f['method'].nunique()} methods; "
-                f"{int((~ok).sum())} fits not estimable")
-        return "\n".join([head] + parts)
+        """A few lines: groups and fits, and the exponent's quartiles per method."""
+        from ..render.summaries import group_fits_summary
+        return group_fits_summary(self)
 
 
 # --------------------------------------------------------------------------

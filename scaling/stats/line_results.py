@@ -26,7 +26,7 @@ from .deming import deming_slope_test
 from .fit_rows import fit_values
 from .lines import (METHOD_INFO, METHODS, exact_fit, exponent_value, fit_moments, get_method,
                     slope_test_statistic, validate_xy)
-from .logscale import base_label, log_word, parse_log_base, to_log
+from .logscale import base_label, parse_log_base, to_log
 from .moments import Moments, moments as _moments
 from .predictions import inverse_predict as _inverse_predict, predict as _predict
 from .schema import EXACT_NOTE, check_confidence, method_label
@@ -328,22 +328,8 @@ class LineFit:
 
     def summary(self) -> str:
         """A few lines of text describing the fit."""
-        label = method_label(self.method)
-        if not self.estimable:
-            return f"{label} fit, n = {self.n}: {self.note}"
-        pct = f"{100 * self.confidence:g}%"
-        lines = [
-            f"{label} line on {log_word(self.log_base)} scales, n = {self.n}"
-            + (f" (lambda = {self.lam:g})" if self.lam is not None else ""),
-            f"  exponent b = {self.slope:.4g}  ({pct} CI {self.slope_ci.low:.4g} to {self.slope_ci.high:.4g})",
-            f"  intercept log a = {self.intercept:.4g}  ({pct} CI {self.intercept_ci.low:.4g} to {self.intercept_ci.high:.4g})",
-            f"  r = {self.r:.4f}, r^2 = {self.r2:.4f}, residual SD (log scale) = {self.resid_sd:.4g}",
-        ]
-        if self.log_base is not None:
-            lines.append(f"  y = {self.a:.4g} * x^{self.slope:.4g}")
-        if self.note:
-            lines.append(f"  note: {self.note}")
-        return "\n".join(lines)
+        from ..render.summaries import line_fit_summary
+        return line_fit_summary(self)
 
     def __repr__(self) -> str:
         fields = {"method": self.method, "n": self.n, "slope": self.slope,

@@ -238,11 +238,9 @@ class TotalPrediction:
         }])
 
     def summary(self) -> str:
-        flag = (f" ({self.n_extrapolated} of {self.n_new} extrapolated)"
-                if self.n_extrapolated else "")
-        return (f"Total of {self.n_new} predictions: {self.total:.4g} "
-                f"({100 * self.confidence:g}% interval {self.low:.4g} to {self.high:.4g}; "
-                f"correction {self.correction}){flag}")
+        """One line: the total, its interval and correction."""
+        from ..render.summaries import total_prediction_summary
+        return total_prediction_summary(self)
 
 
 # --------------------------------------------------------------------------

@@ -741,19 +741,9 @@ class PhyloFit:
                           title=f"phylogenetic {method_label(self.method)} line")
 
     def summary(self) -> str:
-        label = f"phylogenetic {method_label(self.method)}"
-        if not self.estimable:
-            return f"{label} fit, n = {self.n}: {self.note}"
-        pct = f"{100 * self.confidence:g}%"
-        lam = (f"lambda = {self.lam:.3g} ({self.lam_estimate}, {pct} profile CI "
-               f"{self.lam_ci.low:.3g} to {self.lam_ci.high:.3g})"
-               if self.lam_estimate != "fixed" else f"lambda = {self.lam:g} (fixed)")
-        return "\n".join([
-            f"{label} line on log{base_label(self.log_base)} scales, n = {self.n} species, {lam}",
-            f"  exponent b = {self.slope:.4g}  ({pct} CI {self.slope_ci.low:.4g} to "
-            f"{self.slope_ci.high:.4g})",
-            f"  log-likelihood = {self.loglik:.4f}, AIC = {self.aic:.4f}",
-        ])
+        """A few lines of text describing the fit."""
+        from ..render.summaries import phylo_fit_summary
+        return phylo_fit_summary(self)
 
 
 def _species_means(species, X, Y):

@@ -103,7 +103,7 @@ from scipy import stats
 
 from ..errors import (ConfigError, DataError, DegenerateDataWarning,
                      ExtrapolationWarning)
-from .logscale import base_label, log_word, parse_log_base, to_log
+from .logscale import base_label, parse_log_base, to_log
 from .schema import (CORRECTIONS, INTERVALS, check_choice as _check_choice, check_confidence,
                      is_symmetric, method_label)
 
@@ -483,15 +483,8 @@ class Prediction:
 
     def summary(self) -> str:
         """A few lines of text, one per x."""
-        pct = f"{100 * self.confidence:g}%"
-        what = "mean" if self.correction != "none" else "median"
-        lines = [f"{method_label(self.method)} predictions of y ({what}, correction "
-                 f"{self.correction}, {pct} {self.interval} interval)"]
-        for i in range(self.x.size):
-            flag = "  [extrapolated]" if self.extrapolated[i] else ""
-            lines.append(f"  x = {self.x[i]:.4g}: y = {self.y[i]:.4g} "
-                         f"({self.y_low[i]:.4g} to {self.y_high[i]:.4g}){flag}")
-        return "\n".join(lines)
+        from ..render.summaries import prediction_summary
+        return prediction_summary(self)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -550,14 +543,8 @@ class InversePrediction:
 
     def summary(self) -> str:
         """A few lines of text, one per y."""
-        pct = f"{100 * self.confidence:g}%"
-        lines = [f"{method_label(self.method)} estimates of x from y ({pct} {self.interval} interval)"]
-        for i in range(self.y.size):
-            flag = "  [extrapolated]" if self.extrapolated[i] else ""
-            span = (f"{self.x_low[i]:.4g} to {self.x_high[i]:.4g}" if self.bounded[i]
-                    else "unbounded")
-            lines.append(f"  y = {self.y[i]:.4g}: x = {self.x[i]:.4g} ({span}){flag}")
-        return "\n".join(lines)
+        from ..render.summaries import inverse_prediction_summary
+        return inverse_prediction_summary(self)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -602,9 +589,9 @@ class Accuracy:
         }])
 
     def summary(self) -> str:
-        return (f"{method_label(self.method)}: SEE = {self.see:.4g} ({log_word(self.log_base)}), "
-                f"%SEE = +{self.percent_see:.3g}% / -{self.percent_see_minus:.3g}%, "
-                f"%PE = {self.percent_pe:.3g}% (n = {self.n}, correction {self.correction})")
+        """One line: SEE, %SEE and %PE."""
+        from ..render.summaries import accuracy_summary
+        return accuracy_summary(self)
 
 
 # --------------------------------------------------------------------------

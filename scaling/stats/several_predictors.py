@@ -237,12 +237,9 @@ class CombinedTermTest:
         }])
 
     def summary(self) -> str:
-        pct = f"{100 * self.confidence:g}%"
-        return (f"Combined term {self.label}: F = {self.f_statistic:.3g} on "
-                f"({self.df_num:g}, {self.df_den:g}) df, p = {self.p_value:.3g} against the "
-                f"separate exponents; its exponent {self.exponent:.4g} ({pct} CI "
-                f"{self.exponent_ci.low:.4g} to {self.exponent_ci.high:.4g}), t = "
-                f"{self.t_statistic:.2f} against {self.hypothesis:g}, p = {self.t_p_value:.3g}.")
+        """One sentence reading the test."""
+        from ..render.summaries import combined_term_summary
+        return combined_term_summary(self)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -592,19 +589,8 @@ class MultiFit:
         >>> print(fit_multi({"d": d, "h": h}, m).summary().splitlines()[0])
         OLS fit of log10 y on 2 predictors (d, h), n = 40
         """
-        pct = f"{100 * self.confidence:g}%"
-        lines = [f"OLS fit of log{base_label(self.log_base)} y on {self.k} predictors "
-                 f"({', '.join(self.names)}), n = {self.n}"]
-        for j, name in enumerate(self.names):
-            lines.append(f"  exponent of {name} = {self.slopes[j]:.4g}  ({pct} CI "
-                         f"{self.slope_low[j]:.4g} to {self.slope_high[j]:.4g})")
-        lines.append(f"  intercept log a = {self.intercept:.4g}  ({pct} CI "
-                     f"{self.intercept_ci.low:.4g} to {self.intercept_ci.high:.4g})")
-        lines.append(f"  r^2 = {self.r2:.4f}, residual SD (log scale) = {self.resid_sd:.4g}, "
-                     f"df = {self.df:g}")
-        terms = " * ".join(f"{n}^{b:.4g}" for n, b in zip(self.names, self.slopes))
-        lines.append(f"  y = {self.a:.4g} * {terms}")
-        return "\n".join(lines)
+        from ..render.summaries import multi_fit_summary
+        return multi_fit_summary(self)
 
 
 # --------------------------------------------------------------------------

@@ -255,9 +255,9 @@ class NormalisationConstant:
         }])
 
     def summary(self) -> str:
-        level = "" if self.confidence is None else f"{100 * self.confidence:g}% "
-        return (f"a = {self.value:.4g} {self.unit} ({level}interval {self.low:.4g} to "
-                f"{self.high:.4g})")
+        """One line: a with its unit and interval."""
+        from ..render.summaries import normalisation_constant_summary
+        return normalisation_constant_summary(self)
 
 
 def _format_power(symbol: str, power: float, digits: int) -> str:
