@@ -320,3 +320,22 @@ class TestNotebookDisplay:
         assert repr(phylo).startswith("PhyloFit(method='ols', n=8, slope=")
         assert "<table" in phylo._repr_html_()
         assert not math.isnan(phylo.slope)
+
+
+class TestResultsSpeakAndDraw:
+    """Every result object of the public API answers .summary() (words made in render)."""
+
+    def test_comparison_and_spread_summaries_are_the_render_words(self):
+        from scaling.render.findings import comparison_summary, spread_summary
+        from scaling.stats.spread import exponent_spread
+        rng = np.random.default_rng(3)
+        x = 10 ** rng.uniform(0, 2, 30)
+        df = pd.DataFrame({"m": x, "r": x ** 0.75 * 10 ** rng.normal(0, 0.05, 30)
+                           * np.repeat([1.0, 2.0, 3.0], 10), "g": np.repeat(list("abc"), 10)})
+        comp = scaling.compare_groups(df, "m", "r", "g", method="ols")
+        # internal consistency: the method hands itself to render, nothing else
+        assert comp.summary() == comparison_summary(comp)
+        assert comp.summary().startswith("Slopes do not differ")
+        spread = exponent_spread([0.75, 0.77, 0.67, 0.79], [0.02] * 4)
+        assert spread.summary() == spread_summary(spread)
+        assert "mean exponent" in spread._repr_html_()   # the notebook view carries the words

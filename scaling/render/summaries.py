@@ -15,6 +15,8 @@ from __future__ import annotations
 
 from ..stats.logscale import base_label, log_word
 from ..stats.schema import method_label
+from .findings import comparison_summary, spread_summary  # noqa: F401 (doors of stats)
+from .wording import p_text
 
 __all__ = [
     "line_fit_summary", "phylo_fit_summary", "multi_fit_summary", "combined_term_summary",
@@ -128,10 +130,10 @@ def combined_term_summary(test) -> str:
     """
     pct = _percent(test.confidence)
     return (f"Combined term {test.label}: F = {test.f_statistic:.3g} on "
-            f"({test.df_num:g}, {test.df_den:g}) df, p = {test.p_value:.3g} against the "
+            f"({test.df_num:g}, {test.df_den:g}) df, {p_text(test.p_value)} against the "
             f"separate exponents; its exponent {test.exponent:.4g} ({pct} CI "
             f"{test.exponent_ci.low:.4g} to {test.exponent_ci.high:.4g}), t = "
-            f"{test.t_statistic:.2f} against {test.hypothesis:g}, p = {test.t_p_value:.3g}.")
+            f"{test.t_statistic:.2f} against {test.hypothesis:g}, {p_text(test.t_p_value)}.")
 
 
 def total_prediction_summary(total) -> str:

@@ -425,6 +425,12 @@ class GroupComparison:
                             columns=["group", "n", "mean_log_x", "mean_log_y",
                                      "log_x_min", "log_x_max"])
 
+    def summary(self) -> str:
+        """The comparison in plain sentences (slopes, elevations, axis shifts, pairs):
+        :func:`scaling.render.findings.comparison_summary`."""
+        from ..render.summaries import comparison_summary
+        return comparison_summary(self)
+
     def plot(self, *, ax=None, **style):
         """Draw each group's points or mean and its line with the common slope.
 

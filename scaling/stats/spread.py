@@ -227,7 +227,14 @@ class ExponentSpread:
                                  "tau": self.tau, "i2": self.i2, "q_p_value": self.q_p_value})
 
     def _repr_html_(self) -> str:
-        return frame_html(self.to_frame(), title="Spread of exponents among groups")
+        return frame_html(self.to_frame(), title="Spread of exponents among groups",
+                          notes=[self.summary()])
+
+    def summary(self) -> str:
+        """The mean exponent, the spread between groups and the tests, in lines of text
+        (:func:`scaling.render.findings.spread_summary`)."""
+        from ..render.summaries import spread_summary
+        return spread_summary(self)
 
 
 # --------------------------------------------------------------------------
