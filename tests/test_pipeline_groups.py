@@ -1,6 +1,6 @@
 """The group stage of a run: many groups, exact data, groups left out of the means line.
 
-Invented tables with a known truth (simulation use only, RULES.md 2).
+Invented tables with a known truth (simulation use only).
 """
 from __future__ import annotations
 

@@ -161,8 +161,9 @@ class TestPredict:
         pred = predict(fit, x_new, correction="smearing", interval="prediction",
                        data=(x, y))
         pred_naive = predict(fit, x_new, correction="none", interval="prediction")
-        # documented rule (module docstring): the mean is CF times the median;
-        # confidence bounds are multiplied by CF, prediction bounds are not.
+        # internal consistency (the rule of the module docstring): the mean is CF
+        # times the median; confidence bounds are multiplied by CF, prediction
+        # bounds are not.
         assert_allclose(conf.y, cf * naive.y, rtol=1e-12)
         assert_allclose(conf.y_low, cf * naive.y_low, rtol=1e-12)
         assert_allclose(conf.y_high, cf * naive.y_high, rtol=1e-12)
@@ -187,11 +188,16 @@ class TestPredict:
         fit = scaling.fit_line(x, y, method=method, log_base=10)
         with pytest.warns(ExtrapolationWarning):
             p = predict(fit, 1.0, correction="none", interval="confidence")
-        # at X = log 1 = 0 the line's interval is the intercept interval of
-        # scaling.stats.lines (Warton et al. 2006 Biol. Rev. 81:259 for SMA/MA;
-        # textbook OLS, Sokal & Rohlf 2012 ch. 14)
+        # internal consistency: at X = log 1 = 0 the line's interval is the
+        # fit's own intercept interval (checked against statsmodels for OLS below,
+        # and against the Warton et al. 2006 formulas for SMA/MA in test_lines.py)
         assert_allclose(p.log_low[0], fit.intercept_ci.low, rtol=1e-10)
         assert_allclose(p.log_high[0], fit.intercept_ci.high, rtol=1e-10)
+        if method == "ols":
+            lo, hi = _ols_sm(x, y, np.log10).conf_int(alpha=0.05)[0]
+            # reference library: statsmodels OLS interval of the intercept, trees
+            # (Ryan et al. 1976)
+            assert_allclose([p.log_low[0], p.log_high[0]], [lo, hi], rtol=1e-9)
 
     def test_smearing_mean_monte_carlo(self):
         # simulation with known truth: log10 y = 0.5 + 0.75 log10 x + e,
@@ -211,7 +217,7 @@ class TestPredict:
         true_mean = 10 ** (a + b * X0[:, 0]) * true_cf
         smeared = np.mean(cf * 10 ** fitted, axis=1)
         naive = np.mean(10 ** fitted, axis=1)
-        # tolerance 2% (stated in the brief); Duan 1983 smearing is consistent
+        # tolerance 2% (common practice, no source); Duan 1983 smearing is consistent
         assert_allclose(smeared, true_mean, rtol=0.02)
         # the naive back-transform is low by the factor exp(s^2 ln(10)^2/2) ~ 1.18
         assert_allclose(naive / true_mean, 1 / true_cf, rtol=0.02)
@@ -268,7 +274,8 @@ class TestPredict:
         x, y = trees
         fit = scaling.fit_line(np.log10(x), np.log10(y), method="ols", log_base=None)
         p = predict(fit, [1.0], correction="none")
-        # no back-transformation when the data are logs already (documented)
+        # internal consistency: no back-transformation when the data are logs
+        # already (the documented behaviour), so y is the line at X = 1
         assert_allclose(p.y, fit.intercept + fit.slope, rtol=1e-12)
         with pytest.raises(ConfigError, match="needs a log base"):
             predict(fit, [1.0], correction="smearing")
@@ -311,7 +318,7 @@ class TestLogInterval:
         # simulation with known truth: (X, Y) bivariate normal, corr 0.7,
         # SD 1 and 0.8; 20000 replicates of n = 20 plus one new individual
         # drawn like the fitting data.  Binomial SE of the coverage ~ 0.0015;
-        # tolerance 0.015 (stated in the brief).
+        # tolerance 0.015 (about 10 binomial SEs; common practice, no source).
         rng = np.random.default_rng(2024)
         R, n, rho = 20000, 20, 0.7
         L = np.linalg.cholesky(np.array([[1.0, rho * 0.8], [rho * 0.8, 0.64]]))
@@ -397,8 +404,10 @@ class TestInversePredict:
                               interval=interval)
         fwd = predict(scaling.fit_line(y, x, method=method), [15.0, 40.0], correction="none",
                       interval=interval)
-        # exact law: SMA and MA are symmetric in x and y (Warton et al. 2006
-        # Biol. Rev. 81:259), so x from y equals the fit of x on y
+        # exact law for the line: SMA and MA are symmetric in x and y (Warton et
+        # al. 2006 Biol. Rev. 81:259), so x from y equals the fit of x on y;
+        # internal consistency for the bounds (the inverse interval is the
+        # swapped fit's interval by construction)
         assert_allclose(inv.log_fit, fwd.log_fit, rtol=1e-10)
         assert_allclose(inv.log_low, fwd.log_low, rtol=1e-10)
         assert_allclose(inv.log_high, fwd.log_high, rtol=1e-10)
@@ -464,8 +473,8 @@ class TestAccuracy:
         x, y = trees
         fit = scaling.fit_line(x, y, method="sma", log_base=10)
         acc = accuracy(fit, x, y, correction="ratio")
-        # SEE of the fitting data equals the fit's residual SD (same formula,
-        # n - 2 df; scaling.stats.lines)
+        # internal consistency: SEE of the fitting data equals the fit's residual
+        # SD (same formula, n - 2 df; scaling.stats.lines)
         assert_allclose(acc.see, fit.resid_sd, rtol=1e-10)
         y_hat = data_factors(fit, x, y)["ratio"] * 10 ** (fit.intercept + fit.slope
                                                           * np.log10(x))
@@ -543,7 +552,7 @@ class TestPredictFromDict:
         fit = scaling.stats.line_results.fit_line(x, y, method="ols")
         d = fit_to_dict(fit)
         p = predict_from_dict(d, [12.0], correction="parametric")
-        # same numbers as predicting from the fit itself (exact law)
+        # internal consistency: same numbers as predicting from the fit itself
         assert_allclose(p.y, predict(fit, [12.0], correction="parametric").y, rtol=0)
         assert isinstance(p, Prediction)
         with pytest.raises(ConfigError, match="the saved fit has no smearing_factor"):

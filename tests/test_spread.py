@@ -210,3 +210,66 @@ class TestSpreadFromFits:
                              "slope_se": [0.1]})
         with pytest.raises(DataError, match="fewer than 2 groups with an estimable sma"):
             spread_from_fits(fits, "sma")
+
+
+class TestRestrictedLikelihoodAgainstDenseNormal:
+    """tau2_reml (and exponent_spread's REML tau^2) is the maximiser of the restricted
+    likelihood written densely from its formula.
+
+    Model b ~ N(mu 1, Sigma), Sigma = diag(v + tau^2).  Restricted
+    log-likelihood (Harville 1977, J. Am. Stat. Assoc. 72:320):
+    l_R = -1/2 [(k - 1) log 2pi + log|Sigma| + log|1'Sigma^-1 1| + r'Sigma^-1 r],
+    r = b - mu_hat 1, mu_hat the GLS mean; computed here as scipy's
+    multivariate_normal.logpdf at mu_hat plus 1/2 log 2pi - 1/2 log|1'Sigma^-1 1|,
+    and maximised by scipy's bounded scalar search (reference library).  The
+    ML maximiser (the same without the log|1'Sigma^-1 1| term) is checked to be
+    told apart on every set, so the comparison would see that term dropped.
+    """
+
+    @staticmethod
+    def _loglik(t2, b, v, *, restricted=True):
+        cov = np.diag(v + t2)
+        one = np.ones((b.size, 1))
+        ci1 = np.linalg.solve(cov, one)
+        info = float(ci1.sum())                       # 1' Sigma^-1 1 (the 1 x 1 X'V^-1 X)
+        mu = float(ci1[:, 0] @ b) / info
+        ll = float(stats.multivariate_normal.logpdf(b, mean=np.full(b.size, mu), cov=cov))
+        if restricted:
+            ll += 0.5 * math.log(2 * math.pi) - 0.5 * math.log(info)
+        return ll
+
+    def _argmax(self, b, v, *, restricted=True):
+        top = 10 * (np.var(b) + v.max())
+        opt = optimize.minimize_scalar(lambda t: -self._loglik(t, b, v, restricted=restricted),
+                                       bounds=(0.0, top), method="bounded",
+                                       options={"xatol": 1e-13})
+        # the bounded search never evaluates the end 0 itself
+        at0 = self._loglik(0.0, b, v, restricted=restricted)
+        return 0.0 if at0 >= -opt.fun else float(opt.x)
+
+    @staticmethod
+    def _sets(bcg):
+        out = [bcg]
+        for seed, k in ((3, 6), (21, 12), (40, 30)):
+            rng = np.random.default_rng(seed)       # invented, known truth: tau = 0.1
+            v = rng.uniform(0.002, 0.03, k)
+            out.append((0.75 + rng.normal(0, 0.1, k) + rng.normal(0, np.sqrt(v)), v))
+        return out
+
+    def test_reml_tau2_is_the_dense_restricted_maximiser(self, bcg):
+        for b, v in self._sets(bcg):
+            ref = self._argmax(b, v)
+            ml = self._argmax(b, v, restricted=False)
+            assert ref > 0 and abs(ref - ml) > 1e-3 * ref       # the sets tell REML from ML
+            # reference library: scipy multivariate_normal, Harville (1977) restricted
+            # likelihood, maximised by scipy.optimize.minimize_scalar (bounded)
+            assert_allclose(tau2_reml(b, v), ref, rtol=1e-6)
+            assert_allclose(exponent_spread(b, v, tau2_method="reml").tau2, ref, rtol=1e-6)
+
+    def test_no_spread_gives_zero_at_the_dense_maximum(self):
+        rng = np.random.default_rng(5)       # invented, known truth: tau = 0
+        v = rng.uniform(0.01, 0.03, 8)
+        b = 0.75 + rng.normal(0, np.sqrt(v)) * 0.3      # less scatter than v alone explains
+        # reference library: the dense restricted likelihood peaks at the boundary 0
+        assert self._argmax(b, v) == 0.0
+        assert tau2_reml(b, v) == 0.0
