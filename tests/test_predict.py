@@ -557,3 +557,32 @@ class TestPredictFromDict:
         assert isinstance(p, Prediction)
         with pytest.raises(ConfigError, match="the saved fit has no smearing_factor"):
             predict_from_dict(d, [12.0], correction="smearing")
+
+
+class TestNearTheFloatLimit:
+    def test_ratio_factor_stays_finite_near_the_float_limit(self):
+        # exact law: the ratio estimator mean(y)/mean(y_hat) is unchanged when y is
+        # multiplied by a constant, so data near 1e308 give the factor of the same data
+        # scaled down by 1e300 (their plain means would overflow to inf/inf)
+        from scaling.stats.predictions import data_factors
+        x = np.array([1.0, 2, 3, 4, 5, 6])
+        y = np.array([1.0, 1.5, 0.6, 1.2, 0.9, 1.7])
+        big = scaling.fit_line(x, y * 1e308, method="ols")
+        small = scaling.fit_line(x, y * 1e8, method="ols")
+        assert_allclose(data_factors(big, x, y * 1e308)["ratio"],
+                        data_factors(small, x, y * 1e8)["ratio"], rtol=1e-9)
+
+    def test_overflowing_prediction_is_inf_with_a_warning_never_zero(self):
+        # exact law: 10**309 exceeds the largest double; the prediction must be inf (at or
+        # above its own lower bound), the log-scale value exact
+        from scaling.errors import DegenerateDataWarning
+        from scaling.stats.predictions import predict
+        x = np.array([1.0, 2, 3, 4, 5, 6])
+        y = np.array([1.0, 1.5, 0.6, 1.2, 0.9, 1.7]) * 1e300 * x
+        fit = scaling.fit_line(x, y, method="ols")
+        with pytest.warns(DegenerateDataWarning, match="exceed the largest floating-point"):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", ExtrapolationWarning)
+                p = predict(fit, [1e12], correction="ratio", data=(x, y))
+        assert np.isinf(p.y[0]) and p.y[0] > 0 and p.y[0] >= p.y_low[0]
+        assert np.isfinite(p.log_fit[0]) and p.log_fit[0] > 309

@@ -242,7 +242,7 @@ def fits_table_stage(cfg, state) -> FitsTable:
     fits = pd.DataFrame([blank_numbers(r) for r in rows], columns=FIT_COLUMNS)
     if state.phylo is not None:
         fits = add_phylo_columns(fits, state.phylo)
-    tests = slope_tests(line_fits, cfg)
+    tests = slope_tests(line_fits, cfg, phylo_fits=state.phylo.fits if state.phylo else {})
     if state.test_rows:
         tests = pd.concat([tests, pd.DataFrame(list(state.test_rows),
                                                columns=SLOPE_TEST_COLUMNS)], ignore_index=True)
@@ -272,10 +272,12 @@ def nothing_estimable(cfg, pts: pd.DataFrame, rows: list, n_dropped: int) -> str
     return f"{where}: " + ("; ".join(notes) if notes else "no fit was estimable")
 
 
-def slope_tests(line_fits: dict, cfg) -> pd.DataFrame:
-    """slope_tests.csv: every fit against every hypothesised exponent."""
+def slope_tests(line_fits: dict, cfg, *, phylo_fits=None) -> pd.DataFrame:
+    """slope_tests.csv: every fit against every hypothesised exponent (phylogenetic
+    rows by their PhyloFit, whose PGLS test profiles over lambda)."""
     rows = []
     for (scope, group, method), fit in line_fits.items():
+        fit = (phylo_fits or {}).get(method, fit) if scope == "phylo" else fit
         for name, b0 in cfg.exponents.items():
             t = fit.test_slope(b0, hypothesis=name)
             rows.append({"scope": scope, "group": group, "method": method,

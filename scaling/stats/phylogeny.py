@@ -27,7 +27,10 @@ the phylogenetic SMA and MA of Ives, Midford & Garland (2007, Syst. Biol.
 tests and intervals are those of :mod:`scaling.stats.lines` on n - 2 degrees of
 freedom, as in the ordinary case (they treat lambda as known).  On a star
 tree with equal tip heights V = I after scaling, so every result equals the
-ordinary one exactly.
+ordinary one exactly.  Exception: PGLS with lambda estimated takes its slope
+interval and slope test from the profile likelihood over lambda
+(:mod:`scaling.stats.phylo_profile`), so that they carry lambda's uncertainty;
+its intercept interval still treats lambda as known.
 
 Linear time
 -----------
@@ -97,6 +100,8 @@ from .lines import (METHODS, validate_xy, base_label, fit_moments, method_label,
                     parse_log_base, slope_test_statistic, to_log)
 from .moments import Moments
 from .newick import Tree, parse_newick, read_newick
+from .phylo_profile import (PROFILE_GRID, SlopeProfile, _GRID, _maximise, _profile_interval,
+                            profile_interval, profile_test, slope_profile)
 from .schema import check_confidence
 
 __all__ = [
@@ -117,9 +122,6 @@ __all__ = [
     "PhyloFit",
     "fit_phylo",
 ]
-
-_GRID = np.linspace(0.0, 1.0, 11)
-
 
 # --------------------------------------------------------------------------
 # names and pruning
@@ -558,72 +560,6 @@ def dense_phylo_moments(tree: Tree, X, Y, lam: float, *, tips=None) -> Moments:
 # lambda estimation
 
 
-_H = 1e-4   # step of the central-difference derivative of the log-likelihood in lambda
-
-
-def _maximise(loglik: Callable, grid_values: np.ndarray,
-              ll_many: Callable) -> tuple[float, float]:
-    """Maximise loglik(lam) on [0, 1], starting from its values on ``_GRID``.
-
-    Inside (0, 1) the maximum is the zero of the derivative, found by
-    Brent's root search on the central difference (both points in one
-    pass via ``ll_many``) between the grid neighbours of the best grid
-    point.  The zero of the derivative is determined to about machine
-    epsilon / curvature, whereas searching on the function value stops where
-    the likelihood is flat to rounding (about sqrt(epsilon)).  When the
-    derivative does not change sign there (maximum at or next to 0 or 1),
-    bounded Brent search on the value is used and the ends are checked.
-    """
-    g = int(np.nanargmax(grid_values))
-    lo = float(_GRID[max(g - 1, 0)])
-    hi = float(_GRID[min(g + 1, _GRID.size - 1)])
-
-    def grad(t):
-        a, b = ll_many([t - _H, t + _H])
-        return (b - a) / (2 * _H)
-
-    if lo - _H >= 0 and hi + _H <= 1:
-        g_lo, g_hi = grad(lo), grad(hi)
-        if np.isfinite(g_lo) and np.isfinite(g_hi) and g_lo > 0 > g_hi:
-            t = optimize.brentq(grad, lo, hi, xtol=1e-10)
-            return float(t), loglik(t)
-    r = optimize.minimize_scalar(lambda t: -loglik(t), bounds=(lo, hi), method="bounded",
-                                 options={"xatol": 1e-10, "maxiter": 200})
-    best_lam, best_ll = float(r.x), float(-r.fun)
-    for edge in {lo, hi}:              # bounded Brent never evaluates the ends
-        ll = float(grid_values[int(round(edge * (_GRID.size - 1)))])
-        if ll > best_ll:
-            best_lam, best_ll = float(edge), ll
-    return best_lam, best_ll
-
-
-def _profile_interval(loglik: Callable, lam_hat: float, ll_hat: float,
-                      confidence: float, grid_values: np.ndarray) -> ConfidenceInterval:
-    """{lambda in [0, 1]: 2 (l_max - l(lambda)) <= chi2_1(confidence)} (Wilks).
-
-    The grid values bracket each crossing of the cut; Brent's root search
-    finds it.  A side where the grid never falls below the cut ends at 0 or 1.
-    """
-    cut = ll_hat - stats.chi2.ppf(confidence, 1) / 2
-
-    def f(t):
-        return loglik(t) - cut
-
-    below = grid_values < cut
-    left = np.flatnonzero(below & (_GRID < lam_hat))
-    right = np.flatnonzero(below & (_GRID > lam_hat))
-    if left.size:
-        i = int(left[-1])
-        low = optimize.brentq(f, _GRID[i], min(_GRID[i + 1], lam_hat), xtol=1e-9)
-    else:
-        low = 0.0
-    if right.size:
-        i = int(right[0])
-        high = optimize.brentq(f, max(_GRID[i - 1], lam_hat), _GRID[i], xtol=1e-9)
-    else:
-        high = 1.0
-    return ConfidenceInterval(float(low), float(high))
-
 
 # --------------------------------------------------------------------------
 # result and entry point
@@ -655,6 +591,9 @@ class PhyloFit:
         Species without a tip (dropped) and tips without data (pruned).
     note, slope_gap_low, slope_gap_high
         As in :class:`~scaling.stats.line_results.LineFit`.
+    slope_profile : SlopeProfile or None
+        PGLS with lambda estimated: the profile over lambda that gives
+        ``slope_ci`` and :meth:`test_slope` (:mod:`scaling.stats.phylo_profile`).
     """
 
     method: str
@@ -684,6 +623,7 @@ class PhyloFit:
     note: str = ""
     slope_gap_low: float = field(default=math.nan, compare=False)
     slope_gap_high: float = field(default=math.nan, compare=False)
+    slope_profile: SlopeProfile | None = field(default=None, repr=False, compare=False)
 
     @property
     def b(self) -> float:
@@ -695,11 +635,14 @@ class PhyloFit:
 
     def test_slope(self, exponent: float, *, hypothesis: str = "") -> SlopeTest:
         """Test slope = ``exponent`` with the tests of :mod:`scaling.stats.lines` on the
-        phylogenetic moments (t on n - 2 df; the slope interval is its inversion)."""
+        phylogenetic moments (t on n - 2 df; the slope interval is its inversion);
+        PGLS with lambda estimated: the profile test over lambda, as a t on n - 2 df."""
         if isinstance(exponent, bool) or not isinstance(exponent, (int, float, np.floating)):
             raise ConfigError(f"exponent must be a number, not {exponent!r}")
         b0 = float(exponent)
-        if self.estimable:
+        if self.estimable and self.slope_profile is not None:
+            t, df, p = (float(v) for v in profile_test(self.slope_profile, self.slope, b0))
+        elif self.estimable:
             t, df, p = (float(v) for v in slope_test_statistic(self.moments, self.method, b0))
         else:
             t, df, p = math.nan, float(self.df), math.nan
@@ -875,6 +818,15 @@ def fit_phylo(x, y, tree, species, *, method: str = "ols", lam="ml", reml: bool 
     res = fit_moments(m, method, confidence=confidence)
     f = {key: (v.item() if isinstance(v, np.ndarray) else v) for key, v in res.items()}
     note = str(np.asarray(f["note"]).reshape(-1)[0])
+    prof = None
+    if method == "ols" and estimate != "fixed" and np.isfinite(f["slope"]):
+        # lambda's uncertainty enters the slope interval through the profile over lambda
+        parts = [run(PROFILE_GRID[i:i + 17]) for i in range(0, PROFILE_GRID.size, 17)]
+        prof = slope_profile(np.concatenate([r.logdet for r in parts]),
+                             np.concatenate([r.sum_w for r in parts]),
+                             np.concatenate([r.css for r in parts]), n, reml=reml)
+        lo, hi = profile_interval(prof, f["slope"], f["slope_se"], confidence)
+        f["slope_low"], f["slope_high"] = float(lo), float(hi)
     return PhyloFit(
         method=method, n=n, slope=float(f["slope"]),
         slope_ci=ConfidenceInterval(float(f["slope_low"]), float(f["slope_high"])),
@@ -885,4 +837,5 @@ def fit_phylo(x, y, tree, species, *, method: str = "ols", lam="ml", reml: bool 
         lam_estimate=estimate, lam_model=model, loglik=float(ll_hat), note=note,
         aic=float(-2 * ll_hat + 2 * k), n_params=k, log_base=base, confidence=confidence,
         moments=m, missing_species=match.missing_species, pruned_tips=match.pruned_tips,
-        slope_gap_low=float(f["slope_gap_low"]), slope_gap_high=float(f["slope_gap_high"]))
+        slope_gap_low=float(f["slope_gap_low"]), slope_gap_high=float(f["slope_gap_high"]),
+        slope_profile=prof)

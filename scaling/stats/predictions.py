@@ -298,8 +298,13 @@ def data_factors(fit: FittedLine, x, y) -> dict:
     if fit.log_base is None or not fit.estimable:
         return out | {k: math.nan for k in ("smearing", "parametric", "ratio")}
     res = log_residuals(fit, x, y)
-    y_nat = np.asarray(y, dtype=float)
-    y_hat = fit.log_base ** (fit.intercept + fit.slope * to_log(x, fit.log_base))
+    # the ratio is unchanged by a common scale: dividing by base^max(log y) keeps
+    # y and y_hat finite near the float limit (1.8e308), where their means overflow
+    log_y = to_log(_check_values(y, "y", fit.log_base), fit.log_base)
+    top = float(np.max(log_y))
+    y_nat = fit.log_base ** (log_y - top)
+    with np.errstate(over="ignore"):
+        y_hat = fit.log_base ** (fit.intercept + fit.slope * to_log(x, fit.log_base) - top)
     out["smearing"] = correction_factor("smearing", resid_sd=fit.resid_sd,
                                         log_base=fit.log_base, residuals=res)
     out["parametric"] = correction_factor("parametric", resid_sd=fit.resid_sd,
@@ -680,11 +685,18 @@ def predict(fit: FittedLine, x, *, correction: str = "smearing",
                       DegenerateDataWarning, stacklevel=2)
     fitted, se, lo, hi = log_interval(to_log(x, base), confidence=confidence,
                                       interval=interval, **_line_params(fit))
-    y = cf * _unlog(fitted, base)
     bound_cf = cf if interval == "confidence" else 1.0
+    with np.errstate(over="ignore"):       # beyond 1.8e308: inf, with a warning, never 0
+        y = cf * _unlog(fitted, base)
+        y_low, y_high = bound_cf * _unlog(lo, base), bound_cf * _unlog(hi, base)
+    if np.any(np.isinf(y_high) & np.isfinite(hi)):
+        warnings.warn("some predictions exceed the largest floating-point number (about "
+                      "1.8e308): they and their bounds are reported as inf; the log-scale "
+                      "values (log_fit, log_low, log_high) are exact",
+                      DegenerateDataWarning, stacklevel=2)
     return Prediction(
         method=fit.method, x=_frozen(x), y=_frozen(y),
-        y_low=_frozen(bound_cf * _unlog(lo, base)), y_high=_frozen(bound_cf * _unlog(hi, base)),
+        y_low=_frozen(y_low), y_high=_frozen(y_high),
         interval=interval, correction=correction, factor=float(cf), confidence=confidence,
         extrapolated=_frozen(extrapolated), log_fit=_frozen(fitted), log_se=_frozen(se),
         log_low=_frozen(lo), log_high=_frozen(hi), log_base=base, df=float(fit.df),
