@@ -66,7 +66,8 @@ def _build_parser() -> argparse.ArgumentParser:
                      help="a table with a column named as data.x (data.y with --inverse; "
                           "every data.x column for several predictors)")
     pred.add_argument("--group", metavar="G", help="use the fit of this group")
-    pred.add_argument("--method", metavar="M", help="line method (default: first of the run)")
+    pred.add_argument("--method", metavar="M", help="line method (default: ols, the line "
+                      "that predicts y from x, when the run fitted it; else the run's first)")
     pred.add_argument("--inverse", action="store_true", help="predict x from y values")
     pred.add_argument("--correction", metavar="C", help="smearing | parametric | ratio | none")
     pred.add_argument("--interval", metavar="I", help="prediction | confidence")

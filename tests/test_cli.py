@@ -271,6 +271,20 @@ class TestNothingSilent:
         assert "default: predictions.csv in the current folder" in " ".join(out.split())
         assert "predictions_cli" not in out
 
+    def test_predict_uses_the_method_its_help_names(self, tmp_path, small_csv, write_config,
+                                                    capsys):
+        # SMA is the run's first method; --help says OLS is used when fitted, and it is
+        code, out, _ = _run(["predict", "--help"], capsys)
+        assert "--method M line method (default: ols, the line that predicts y from x, " \
+               "when the run fitted it; else the run's first)" in " ".join(out.split())
+        cfg = write_config(f"data: {{file: {small_csv.name}, x: mass, y: rate}}\n"
+                           "model: {methods: [sma, ols]}\nfigures: {formats: []}\n")
+        assert _run(["run", cfg, "--out", tmp_path / "o", "--quiet"], capsys)[0] == 0
+        code, _, err = _run(["predict", tmp_path / "o", "--x", "10",
+                             "--out", tmp_path / "p.csv"], capsys)
+        assert code == 0, err
+        assert list(pd.read_csv(tmp_path / "p.csv")["method"]) == ["ols"]
+
 
 class TestExtremeMagnitudes:
     """Values near 1e±300: the numbers are fine, and figures must not fail the run."""
