@@ -373,6 +373,31 @@ class TestErrors:
 
 
 class TestCheck:
+    @pytest.mark.parametrize("table, x, pattern", [
+        ("m,r\n5,1\n5,2\n5,3\n5,4\n", "m",
+         r"no line can be fitted: x \(m\) has the same value \(5\) in all 4 points"),
+        ("m,r\n1,3\n2,3\n4,3\n8,3\n", "m",
+         r"no line can be fitted: y \(r\) has the same value \(3\) in all 4 points"),
+        ("m,r\n1,2\n2,3\nx,4\n", "m",
+         r"no line can be fitted: only 2 usable points \(a line needs at least 3\); "
+         r"1 rows were dropped"),
+        ("h,d,r\n1,5,1\n2,5,2\n3,5,3\n4,5,4.5\n5,5,6\n", "[h, d]",
+         r"the logs of the predictors \(h, d\) are collinear \(or one is constant\)"),
+    ], ids=["constant_x", "constant_y", "two_points", "constant_predictor"])
+    def test_check_refuses_what_run_refuses_with_the_same_line(self, tmp_path, write_config,
+                                                               capsys, table, x, pattern):
+        import re
+        (tmp_path / "d.csv").write_text(table)
+        methods = "[ols]" if x.startswith("[") else "[ols, sma]"
+        cfg = write_config(f"data: {{file: d.csv, x: {x}, y: r}}\n"
+                           f"model: {{methods: {methods}}}\nfigures: {{formats: []}}\n")
+        code_run, _, err_run = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        code_check, out_check, err_check = _run(["check", cfg], capsys)
+        assert code_run == code_check == 2
+        assert err_check == err_run and len(err_check.splitlines()) == 1
+        assert re.search(pattern, err_check) and err_check.startswith("error: ")
+        assert "data OK" not in out_check
+
     def test_check_demo(self, capsys):
         code, out, _ = _run(["check", DEMO_CONFIG], capsys)
         assert code == 0
