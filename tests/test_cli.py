@@ -346,10 +346,17 @@ class TestErrors:
         ("data: {file: d.csv, x: mass, y: r}\n", r"column 'mass' \(data.x\) not found"),
         ("data: {file: nothere.csv, x: m, y: r}\n", r"nothere.csv: data file not found"),
         ("data: {file: zeros.csv, x: m, y: r}\n", r"no usable rows"),
+        ("data: {file: twice.csv, x: m, y: r}\n",
+         r"twice.csv: the header line names the same column more than once: 'm' \(data.x\)"),
+        ("data: {file: titled.csv, x: m, y: r}\n",
+         r"titled.csv: column .m. \(data.x\) not found; line 2 holds the columns m, r: "
+         r"set data.skip_rows: 1\. Columns are: Measured 2026"),
     ])
     def test_bad_input_exit_2(self, tmp_path, write_config, capsys, text, pattern):
         (tmp_path / "d.csv").write_text("m,r\n1,2\n2,3\n3,5\n")
         (tmp_path / "zeros.csv").write_text("m,r\n0,2\n0,3\n")
+        (tmp_path / "twice.csv").write_text("m,r,m\n1,2,5\n2,3,5\n3,5,5\n")
+        (tmp_path / "titled.csv").write_text("Measured 2026\nm,r\n1,2\n2,3\n3,5\n")
         cfg = write_config(text)
         code, _, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
         assert code == 2
