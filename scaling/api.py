@@ -42,7 +42,7 @@ from .stats.predictions import data_factors
 from .stats.fit_rows import ESTIMATE_COLUMNS, fit_row, fit_rows
 from .stats.grouped_fits import FIT_TABLE_COLUMNS, fit_groups_from_moments
 from .stats.robust import ROW_METHODS, deming, deming_moments
-from .stats.schema import check_confidence, check_exponents, check_method
+from .stats.schema import DEFAULT_SEED, check_confidence, check_exponents, check_method
 
 __all__ = ["fit_line", "fit_groups", "METHOD_OPTIONS", "ROW_METHOD_DEFAULTS"]
 
@@ -57,9 +57,10 @@ METHOD_OPTIONS: dict[str, tuple[str, ...]] = {
 }
 
 #: Defaults of the row-based methods' options: those of a config run
-#: (``resampling.bootstrap`` 0 -> 999 resamples, ``resampling.seed`` 1), so a
-#: call with defaults gives the numbers a run with defaults gives.
-ROW_METHOD_DEFAULTS = {"n_boot": 999, "seed": 1}
+#: (``resampling.bootstrap`` 0 -> 999 resamples, ``resampling.seed``
+#: :data:`~scaling.stats.schema.DEFAULT_SEED`), so a call with defaults gives the
+#: numbers a run with defaults gives.
+ROW_METHOD_DEFAULTS = {"n_boot": 999, "seed": DEFAULT_SEED}
 
 
 # --------------------------------------------------------------------------

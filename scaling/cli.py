@@ -66,7 +66,8 @@ def _build_parser() -> argparse.ArgumentParser:
                      help="a table with a column named as data.x (data.y with --inverse; "
                           "every data.x column for several predictors)")
     pred.add_argument("--group", metavar="G", help="use the fit of this group")
-    pred.add_argument("--method", metavar="M", help="line method (default: first of the run)")
+    pred.add_argument("--method", metavar="M", help="line method (default: ols, the line "
+                      "that predicts y from x, when the run fitted it; else the run's first)")
     pred.add_argument("--inverse", action="store_true", help="predict x from y values")
     pred.add_argument("--correction", metavar="C", help="smearing | parametric | ratio | none")
     pred.add_argument("--interval", metavar="I", help="prediction | confidence")
@@ -147,6 +148,7 @@ def _cmd_check(args) -> int:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ScalingWarning)
         data = load_data(cfg.data, log_base=parse_log_base(cfg.model.log_base))
+    _refuse_unfittable(cfg, data)
     pts = data.points
     print(f"config OK: {args.config}")
     print(f"data OK: {cfg.data.file}")
@@ -178,6 +180,34 @@ def _cmd_check(args) -> int:
             print(f"  note: {w.message}")
     print(f"  output folder: {cfg.output.dir}")
     return 0
+
+
+def _refuse_unfittable(cfg, data) -> None:
+    """Refuse, with the run's own line, data on which ``scaling run`` can fit no line.
+
+    The run's rules are applied, not restated: the notes of the pooled OLS line
+    (too few points, x or y constant: every other line and group then fails too)
+    and the run's message; for several predictors the checks of the OLS fit itself.
+    """
+    from .errors import DataError
+    if isinstance(cfg.data.x, tuple):
+        from .stats.several_predictors import fit_multi
+        pts, names = data.points, cfg.data.x_columns
+        k = len(names)
+        if len(pts) < k + 2:   # the run's message (run.several_predictors)
+            raise DataError(f"{cfg.data.file}: {k} predictors need at least {k + 2} usable "
+                            f"rows, got {len(pts)}")
+        fit_multi({n: pts[f"x{j}"].to_numpy() for j, n in enumerate(names)},
+                  pts["y"].to_numpy(), log_base=cfg.model.log_base)
+        return
+    from .run.fits import nothing_estimable
+    from .stats.lines import fit_notes
+    from .stats.moments import moments
+    pts = data.points
+    note = fit_notes(moments(pts["log_x"].to_numpy(), pts["log_y"].to_numpy()), "ols")[0]
+    if note:
+        raise DataError(nothing_estimable(cfg, pts, [{"scope": "pooled", "note": note}],
+                                          len(data.dropped)))
 
 
 def _cmd_init(args) -> int:

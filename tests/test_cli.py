@@ -271,6 +271,20 @@ class TestNothingSilent:
         assert "default: predictions.csv in the current folder" in " ".join(out.split())
         assert "predictions_cli" not in out
 
+    def test_predict_uses_the_method_its_help_names(self, tmp_path, small_csv, write_config,
+                                                    capsys):
+        # SMA is the run's first method; --help says OLS is used when fitted, and it is
+        code, out, _ = _run(["predict", "--help"], capsys)
+        assert "--method M line method (default: ols, the line that predicts y from x, " \
+               "when the run fitted it; else the run's first)" in " ".join(out.split())
+        cfg = write_config(f"data: {{file: {small_csv.name}, x: mass, y: rate}}\n"
+                           "model: {methods: [sma, ols]}\nfigures: {formats: []}\n")
+        assert _run(["run", cfg, "--out", tmp_path / "o", "--quiet"], capsys)[0] == 0
+        code, _, err = _run(["predict", tmp_path / "o", "--x", "10",
+                             "--out", tmp_path / "p.csv"], capsys)
+        assert code == 0, err
+        assert list(pd.read_csv(tmp_path / "p.csv")["method"]) == ["ols"]
+
 
 class TestExtremeMagnitudes:
     """Values near 1e±300: the numbers are fine, and figures must not fail the run."""
@@ -332,10 +346,17 @@ class TestErrors:
         ("data: {file: d.csv, x: mass, y: r}\n", r"column 'mass' \(data.x\) not found"),
         ("data: {file: nothere.csv, x: m, y: r}\n", r"nothere.csv: data file not found"),
         ("data: {file: zeros.csv, x: m, y: r}\n", r"no usable rows"),
+        ("data: {file: twice.csv, x: m, y: r}\n",
+         r"twice.csv: the header line names the same column more than once: 'm' \(data.x\)"),
+        ("data: {file: titled.csv, x: m, y: r}\n",
+         r"titled.csv: column .m. \(data.x\) not found; line 2 holds the columns m, r: "
+         r"set data.skip_rows: 1\. Columns are: Measured 2026"),
     ])
     def test_bad_input_exit_2(self, tmp_path, write_config, capsys, text, pattern):
         (tmp_path / "d.csv").write_text("m,r\n1,2\n2,3\n3,5\n")
         (tmp_path / "zeros.csv").write_text("m,r\n0,2\n0,3\n")
+        (tmp_path / "twice.csv").write_text("m,r,m\n1,2,5\n2,3,5\n3,5,5\n")
+        (tmp_path / "titled.csv").write_text("Measured 2026\nm,r\n1,2\n2,3\n3,5\n")
         cfg = write_config(text)
         code, _, err = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
         assert code == 2
@@ -359,6 +380,31 @@ class TestErrors:
 
 
 class TestCheck:
+    @pytest.mark.parametrize("table, x, pattern", [
+        ("m,r\n5,1\n5,2\n5,3\n5,4\n", "m",
+         r"no line can be fitted: x \(m\) has the same value \(5\) in all 4 points"),
+        ("m,r\n1,3\n2,3\n4,3\n8,3\n", "m",
+         r"no line can be fitted: y \(r\) has the same value \(3\) in all 4 points"),
+        ("m,r\n1,2\n2,3\nx,4\n", "m",
+         r"no line can be fitted: only 2 usable points \(a line needs at least 3\); "
+         r"1 rows were dropped"),
+        ("h,d,r\n1,5,1\n2,5,2\n3,5,3\n4,5,4.5\n5,5,6\n", "[h, d]",
+         r"the logs of the predictors \(h, d\) are collinear \(or one is constant\)"),
+    ], ids=["constant_x", "constant_y", "two_points", "constant_predictor"])
+    def test_check_refuses_what_run_refuses_with_the_same_line(self, tmp_path, write_config,
+                                                               capsys, table, x, pattern):
+        import re
+        (tmp_path / "d.csv").write_text(table)
+        methods = "[ols]" if x.startswith("[") else "[ols, sma]"
+        cfg = write_config(f"data: {{file: d.csv, x: {x}, y: r}}\n"
+                           f"model: {{methods: {methods}}}\nfigures: {{formats: []}}\n")
+        code_run, _, err_run = _run(["run", cfg, "--out", tmp_path / "o"], capsys)
+        code_check, out_check, err_check = _run(["check", cfg], capsys)
+        assert code_run == code_check == 2
+        assert err_check == err_run and len(err_check.splitlines()) == 1
+        assert re.search(pattern, err_check) and err_check.startswith("error: ")
+        assert "data OK" not in out_check
+
     def test_check_demo(self, capsys):
         code, out, _ = _run(["check", DEMO_CONFIG], capsys)
         assert code == 0

@@ -292,3 +292,45 @@ class TestDefaultsWrittenOnce:
         b = load_config(write_config(MINIMAL))
         assert a.model.phylogeny == b.model.phylogeny == {"lambda": "ml"}
         assert a.model.phylogeny is not b.model.phylogeny
+
+
+class TestOneDefaultSeed:
+    """One default seed: a run, compare_groups and the robust lines of fit_line agree."""
+
+    def test_every_seed_default_is_the_schema_constant(self, write_config):
+        # internal consistency: the config default, compare_groups' keyword default and
+        # the robust-line option default are the one constant
+        import inspect
+
+        from scaling.api import ROW_METHOD_DEFAULTS
+        from scaling.stats.group_comparisons import compare_groups
+        from scaling.stats.schema import DEFAULT_SEED
+        cfg = load_config(write_config(MINIMAL))
+        assert cfg.resampling.seed == DEFAULT_SEED
+        assert inspect.signature(compare_groups).parameters["seed"].default == DEFAULT_SEED
+        assert ROW_METHOD_DEFAULTS["seed"] == DEFAULT_SEED
+
+    def test_a_run_seeds_the_group_bootstrap_with_resampling_seed(self, write_config,
+                                                                  tmp_path):
+        # internal consistency: the group tests of a run with resampling.seed 5 equal
+        # compare_groups(..., seed=5) on the same points (bootstrap calibration: groups
+        # of 6, below the size where the chi-square reference is used)
+        import numpy as np
+        import pandas as pd
+
+        from scaling.run.pipeline import run_config
+        from scaling.stats.group_comparisons import compare_groups
+        rng = np.random.default_rng(3)
+        mass = 10 ** rng.uniform(0, 2, 18)
+        rate = 2.0 * mass ** 0.75 * 10 ** rng.normal(0, 0.1, 18)
+        frame = pd.DataFrame({"g": list("aaaaaabbbbbbcccccc"), "mass": mass, "rate": rate})
+        frame.to_csv(tmp_path / "d.csv", index=False)
+        path = write_config("data: {file: d.csv, x: mass, y: rate, group: g}\n"
+                            "model: {methods: [sma]}\nfigures: {formats: []}\n"
+                            "diagnostics: {enabled: false}\nresampling: {seed: 5}\n")
+        result = run_config(path, out=tmp_path / "out", quiet=True)
+        direct = compare_groups(frame, "mass", "rate", "g", method="sma", seed=5).to_frame()
+        assert direct["p_method"].str.startswith("parametric").any()
+        got = result.group_tests.set_index("test")["p_value"]
+        want = direct.set_index("test")["p_value"]
+        assert np.allclose(got[want.index], want, rtol=1e-12)

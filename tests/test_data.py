@@ -196,6 +196,104 @@ class TestNothingSilent:
         np.testing.assert_allclose(data.points["x"], [1.5, 2.5, 4.25], rtol=0)
 
 
+class TestHeaderLine:
+    """A header that repeats a name, or that sits below title lines, gets one clear line."""
+
+    def test_duplicated_x_column_is_refused_naming_both_places(self, tmp_path):
+        _write(tmp_path, "mass,rate,mass\n1,2,10\n2,3,20\n4,5,40\n")
+        with pytest.raises(DataError, match=r"t\.csv: the header line names the same column "
+                                            r"more than once: 'mass' \(data\.x\) in columns "
+                                            r"1 and 3; .*rename or remove the extra copies"):
+            load_data(_cfg(tmp_path))
+
+    @pytest.mark.parametrize("key, column", [("group", "clade"), ("average_within", "sp")])
+    def test_duplicated_group_or_unit_column_is_refused(self, tmp_path, key, column):
+        _write(tmp_path, f"mass,rate,{column},{column}\n1,2,a,b\n2,3,a,b\n4,5,a,b\n")
+        with pytest.raises(DataError, match=rf"'{column}' \(data\.{key}\) in columns 3 and 4"):
+            load_data(_cfg(tmp_path, **{key: column}))
+
+    def test_duplicated_x_column_in_excel_is_refused(self, tmp_path):
+        openpyxl = pytest.importorskip("openpyxl")
+        book = openpyxl.Workbook()
+        for row in (["rate", "mass", "mass"], [2, 1, 10], [3, 2, 20], [5, 4, 40]):
+            book.active.append(row)
+        book.save(tmp_path / "t.xlsx")
+        with pytest.raises(DataError, match=r"'mass' \(data\.x\) in columns 2 and 3"):
+            load_data(_cfg(tmp_path, file="t.xlsx"))
+
+    def test_duplicated_unused_column_only_warns(self, tmp_path):
+        from scaling.errors import DataWarning
+        _write(tmp_path, "mass,note,rate,note\n1,a,2,b\n2,a,3,b\n4,a,5,b\n")
+        with pytest.warns(DataWarning, match=r"t\.csv: the header line names the same column "
+                                             r"more than once \('note' in columns 2 and 4\); "
+                                             r"the config reads no copy of it"):
+            data = load_data(_cfg(tmp_path))
+        assert len(data.points) == 3
+
+    def test_columns_that_differ_only_by_spaces_count_as_one_name(self, tmp_path):
+        _write(tmp_path, "mass,rate, mass \n1,2,10\n2,3,20\n4,5,40\n")
+        with pytest.raises(DataError, match=r"'mass' \(data\.x\) in columns 1 and 3"):
+            load_data(_cfg(tmp_path))
+
+    def test_a_unique_header_is_silent(self, tmp_path):
+        import warnings
+        _write(tmp_path, "mass,rate,mass.1\n1,2,10\n2,3,20\n4,5,40\n")
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            assert list(load_data(_cfg(tmp_path)).points["x"]) == [1, 2, 4]
+
+    @staticmethod
+    def _titled_book(path, sheet="Data"):
+        openpyxl = pytest.importorskip("openpyxl")
+        book = openpyxl.Workbook()
+        book.active.title = sheet
+        for row in (["Body mass and resting rate, 2026"], [], ["mass", "rate"],
+                    [1, 2], [2, 3], [4, 5]):
+            book.active.append(row)
+        book.create_sheet("Notes")
+        book.save(path)
+
+    def test_title_rows_in_excel_give_the_skip_rows_setting(self, tmp_path):
+        self._titled_book(tmp_path / "t.xlsx")
+        with pytest.raises(DataError, match=r"t\.xlsx: column 'mass' \(data\.x\) not found; "
+                                            r"row 3 holds the columns mass, rate: "
+                                            r"set data\.skip_rows: 2\. Columns are"):
+            load_data(_cfg(tmp_path, file="t.xlsx"))
+        # the setting the message gives reads the sheet
+        data = load_data(_cfg(tmp_path, file="t.xlsx", skip_rows=2))
+        assert list(data.points["x"]) == [1, 2, 4]
+
+    def test_title_lines_in_csv_give_the_skip_rows_setting(self, tmp_path):
+        # one field on the title line: the csv parser fails on the first data line
+        _write(tmp_path, "Body mass and resting rate\n\nmass,rate\n1,2\n2,3\n4,5\n")
+        with pytest.raises(DataError, match=r"t\.csv: cannot read table: .*; line 3 holds "
+                                            r"the columns mass, rate: set data\.skip_rows: 2$"):
+            load_data(_cfg(tmp_path))
+        # a comma in the title: the title is read as the header line
+        _write(tmp_path, "Body mass, resting rate\nmass;rate\n1;2\n2;3\n4;5\n")
+        with pytest.raises(DataError, match=r"column 'mass' \(data\.x\) not found; line 2 "
+                                            r"holds the columns mass, rate: set "
+                                            r"data\.skip_rows: 1\."):
+            load_data(_cfg(tmp_path))
+        assert list(load_data(_cfg(tmp_path, skip_rows=1)).points["x"]) == [1, 2, 4]
+
+    def test_skip_rows_past_the_header_gives_the_right_setting(self, tmp_path):
+        _write(tmp_path, "Title\nmass,rate\n1,2\n2,3\n4,5\n6,7\n")
+        with pytest.raises(DataError, match=r"line 2 holds the columns mass, rate: set "
+                                            r"data\.skip_rows: 1\."):
+            load_data(_cfg(tmp_path, skip_rows=2))
+
+    def test_missing_sheet_lists_the_sheets(self, tmp_path):
+        self._titled_book(tmp_path / "t.xlsx")
+        with pytest.raises(DataError, match=r"t\.xlsx: no sheet named 'Notse' \(data\.sheet\); "
+                                            r"the workbook's sheets are: 'Data', 'Notes'; "
+                                            r"did you mean 'Notes'\?"):
+            load_data(_cfg(tmp_path, file="t.xlsx", sheet="Notse"))
+        with pytest.raises(DataError, match=r"no sheet number 2 \(data\.sheet counts from 0\); "
+                                            r"the workbook's sheets are: 'Data', 'Notes'$"):
+            load_data(_cfg(tmp_path, file="t.xlsx", sheet=2))
+
+
 class TestCleanTableSeveral:
     def test_each_predictor_column_gets_the_single_column_drop_reasons(self, tmp_path):
         from scaling.io.config import config_from_dict

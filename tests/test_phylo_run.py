@@ -159,6 +159,42 @@ class TestMismatchedNames:
         assert dropped["reason"].str.contains("pruned").sum() == 1
 
 
+class TestLetterCase:
+    """Species that match a tip except for letter case are named, never matched silently."""
+
+    def test_case_differences_are_named_in_reasons_and_a_note(self, tmp_path):
+        names, x, y = _invented(10)
+        data_names = names[:8] + ["SP_08", "Sp 09"]    # tips are sp_08, sp_09
+        res = _analyse(config_from_dict(_write(tmp_path, data_names, x, y, _star(names)),
+                                        base_dir=tmp_path))
+        reasons = list(res.dropped["reason"])
+        assert ("sp 'SP_08' has no tip in tree t.nwk (tip 'sp_08' differs only in letter "
+                "case): left out") in reasons[0]
+        assert any("tip 'sp_09' has no data in column sp (sp 'Sp 09' differs only in letter "
+                   "case): pruned" in r for r in reasons)
+        assert ("2 species match a tip except for letter case (e.g. 'SP_08' vs 'sp_08'); "
+                "names must match exactly, so correct the spelling in the data or in the "
+                "tree.") in res.warnings
+        # not matched: the phylogenetic fit uses the 8 exact names only
+        assert int(res.fits.loc[res.fits["scope"] == "phylo", "n"].iloc[0]) == 8
+
+    def test_too_few_exact_matches_say_that_case_differs(self, tmp_path):
+        names, x, y = _invented(6)
+        data_names = [n.upper() for n in names[:4]] + names[4:]
+        raw = _write(tmp_path, data_names, x, y, _star(names))
+        with pytest.raises(DataError, match=r"only 2 species of column sp match a tip of tree "
+                                            r"t\.nwk; at least 3 are needed; 4 species match a "
+                                            r"tip except for letter case \(e\.g\. 'SP_00' vs "
+                                            r"'sp_00'\)"):
+            _analyse(config_from_dict(raw, base_dir=tmp_path))
+
+    def test_exact_names_give_no_case_note(self, tmp_path):
+        names, x, y = _invented(10)
+        res = _analyse(config_from_dict(_write(tmp_path, names, x, y, _star(names)),
+                                        base_dir=tmp_path))
+        assert not any("letter case" in w for w in res.warnings)
+
+
 class TestBadTrees:
     @pytest.mark.parametrize("newick, what", [
         ("((a:1,b:-2):1,c:3);", "negative"),

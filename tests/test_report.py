@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import base64
 import html
+import re
 from dataclasses import replace
 from html.parser import HTMLParser
 from pathlib import Path
@@ -277,3 +278,24 @@ class TestEscaping:
         assert len(rows) == len(script_run.fits) + 1
         assert all(ln.count("&") == 8 for ln in rows)     # 9 columns
         assert tex.count("{") - tex.count(r"\{") == tex.count("}") - tex.count(r"\}")
+
+    def test_fits_tex_writes_negative_numbers_with_a_math_minus(self, tmp_path):
+        # y = 1e-5 x^0.75 with little scatter: log10 a = -5 (exact law of the simulation),
+        # so the intercept and both bounds of its interval are negative
+        from scaling.run.pipeline import run_config
+        rng = np.random.default_rng(11)
+        x = 10 ** rng.uniform(0, 3, 25)
+        frame = pd.DataFrame({"mass": x, "rate": 1e-5 * x ** 0.75 * 10 ** rng.normal(0, 0.02, 25)})
+        frame.to_csv(tmp_path / "neg.csv", index=False)
+        result = run_config({"data": {"file": str(tmp_path / "neg.csv"), "x": "mass",
+                                      "y": "rate"},
+                             "model": {"methods": ["ols"]}, "figures": {"formats": []}},
+                            write=False)
+        assert result.fits["intercept_high"].iloc[0] < 0
+        tex = render_fits_tex(result)
+        row = [ln for ln in tex.splitlines() if ln.startswith("pooled")][0]
+        cells = row.split(" & ")
+        assert cells[6].startswith("$-$5.")                       # the intercept
+        assert re.fullmatch(r"\$-\$5\.\d+ to \$-\$(5\.|4\.9)\d+", cells[7])   # its interval
+        assert "---" not in tex and not re.search(r"(?<![$-])-\d", row)   # no bare minus
+        assert re.fullmatch(r"0\.\d+--0\.\d+", cells[5])          # positive: the en dash

@@ -19,7 +19,7 @@ import yaml
 
 from ..stats.schema import (BOOT_INTERVALS, CATALOGUE, CORRECTIONS, FIGURE_FORMATS, FIGURE_KINDS,
                             FIGURE_SIZES, INTERVALS, LOG_BASES, METHOD_NAMES, MOMENT_METHODS,
-                            check_predictor_methods, fraction_value)
+                            DEFAULT_SEED, check_predictor_methods, fraction_value)
 from ..errors import ConfigError
 
 __all__ = [
@@ -537,7 +537,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "bootstrap": (_n_boot, 0),
         "interval": (_choice(BOOT_INTERVALS), "bca"),
         "permutations": (lambda v, p: _int(v, p, minimum=0), 0),
-        "seed": (_seed, 1),
+        "seed": (_seed, DEFAULT_SEED),
     },
     "groups": {
         "compare": (_boolean, True),

@@ -10,6 +10,7 @@ dropped row in any editor.
 
 from __future__ import annotations
 
+import csv
 import difflib
 import math
 import re
@@ -31,6 +32,9 @@ _DECIMAL_COMMA = re.compile(r"^[-+]?\d*,\d+(?:[eE][-+]?\d+)?$")
 _DECIMAL_HINT = 'if "," is the decimal mark, set data.decimal: ","'
 
 _MISSING_TOKENS = {"", "na", "n/a", "nan", "null", "none", "missing", "-", "--", "?", ".", "#n/a"}
+
+#: Lines (sheet rows) searched for the header when the x and y columns are not found.
+_HEADER_SEARCH_LINES = 50
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -95,15 +99,19 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
     if path.is_dir():
         raise DataError(f"{path}: is a folder, not a data file (data.file)")
     suffix = path.suffix.lower()
+    header = None    # the header line's cells as written (pandas renames duplicates)
     try:
-        if suffix in (".xlsx", ".xlsm", ".xls"):
+        if suffix in _EXCEL_SUFFIXES:
             try:
                 import openpyxl  # noqa: F401
             except ImportError:
                 raise DataError(f"{path}: reading Excel files needs the 'excel' extra: "
                                 "pip install 'scaling[excel]'") from None
+            _check_sheet(path, cfg.sheet)
             table = pd.read_excel(path, sheet_name=cfg.sheet, skiprows=cfg.skip_rows,
                                   header=0, dtype=object)
+            header = pd.read_excel(path, sheet_name=cfg.sheet, skiprows=cfg.skip_rows,
+                                   header=None, nrows=1, dtype=object)
         elif suffix == ".parquet":
             try:
                 import pyarrow  # noqa: F401
@@ -116,35 +124,160 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
                 raise DataError(f"{path}: data.delimiter and data.decimal are both "
                                 f"{cfg.delimiter!r}")
             sep = _sniff_delimiter(path, cfg) if cfg.delimiter == "auto" else cfg.delimiter
-            table = pd.read_csv(path, sep=sep, skiprows=cfg.skip_rows, header=0,
-                                dtype=str, keep_default_na=False, na_filter=False,
-                                skip_blank_lines=False, encoding=_encoding(cfg),
-                                engine="python" if len(sep) > 1 else "c")
+            options = dict(sep=sep, skiprows=cfg.skip_rows, dtype=str, keep_default_na=False,
+                           na_filter=False, skip_blank_lines=False, encoding=_encoding(cfg),
+                           engine="python" if len(sep) > 1 else "c")
+            table = pd.read_csv(path, header=0, **options)
+            header = pd.read_csv(path, header=None, nrows=1, **options)
     except DataError:
         raise
     except UnicodeDecodeError as exc:
         raise DataError(f"{path}: cannot decode as {cfg.encoding} ({exc.reason}); "
                         "set data.encoding (e.g. latin-1)") from None
-    except ValueError as exc:
-        # e.g. an Excel sheet that does not exist
-        raise DataError(f"{path}: cannot read table: {str(exc).splitlines()[0]}") from None
     except Exception as exc:  # parser errors from pandas / engines
-        raise DataError(f"{path}: cannot read table: {str(exc).splitlines()[0]}") from None
+        raise DataError(f"{path}: cannot read table: {str(exc).splitlines()[0]}"
+                        f"{_skip_rows_hint(cfg, path)}") from None
+    names = (list(table.columns) if header is None or not len(header)
+             else header.iloc[0].tolist())
     table.columns = [str(c).strip() for c in table.columns]
-    return table.reset_index(drop=True)
+    table = table.reset_index(drop=True)
+    table.attrs["duplicated_columns"] = _duplicated(names)
+    return table
 
 
-def _column(table: pd.DataFrame, name: str, key: str, path: Path) -> pd.Series:
+_EXCEL_SUFFIXES = (".xlsx", ".xlsm", ".xls")
+
+
+def _check_sheet(path: Path, sheet) -> None:
+    """A DataError listing the workbook's sheets when ``data.sheet`` names none of them."""
+    try:
+        with pd.ExcelFile(path) as book:
+            names = list(book.sheet_names)
+    except Exception:   # not a workbook: reported by the reader itself
+        return
+    if isinstance(sheet, int) and not isinstance(sheet, bool):
+        if 0 <= sheet < len(names):
+            return
+        what = f"no sheet number {sheet} (data.sheet counts from 0)"
+    elif str(sheet) in names:
+        return
+    else:
+        what = f"no sheet named {str(sheet)!r} (data.sheet)"
+    shown = ", ".join(repr(n) for n in names)
+    close = difflib.get_close_matches(str(sheet), names, n=1, cutoff=0.6)
+    hint = f"; did you mean {close[0]!r}?" if close and not isinstance(sheet, int) else ""
+    raise DataError(f"{path}: {what}; the workbook's sheets are: {shown}{hint}")
+
+
+def _duplicated(names) -> dict:
+    """Header names written more than once (after trimming; blank cells ignored) ->
+    their positions in the header line, counted from 1."""
+    where: dict[str, list] = {}
+    for i, name in enumerate(names, 1):
+        text = _cell_text(name)
+        if text:
+            where.setdefault(text, []).append(i)
+    return {c: tuple(at) for c, at in where.items() if len(at) > 1}
+
+
+def _cell_text(value) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    return str(value).strip()
+
+
+def _first_rows(cfg: DataConfig, path: Path) -> list:
+    """The cells of the first lines (csv) or sheet rows (Excel), as sets of trimmed text.
+
+    Counted from the top of the file, as ``data.skip_rows`` counts: entry i is
+    the line that ``data.skip_rows: i`` would make the header line.
+    """
+    if path.suffix.lower() in _EXCEL_SUFFIXES:
+        frame = pd.read_excel(path, sheet_name=cfg.sheet, header=None,
+                              nrows=_HEADER_SEARCH_LINES, dtype=object)
+        return [{_cell_text(v) for v in row} for row in frame.itertuples(index=False)]
+    if path.suffix.lower() == ".parquet":
+        return []
+    seps = (",", "\t", ";") if cfg.delimiter == "auto" else (cfg.delimiter,)
+    rows = []
+    with open(path, encoding=_encoding(cfg), errors="replace", newline="") as fh:
+        for _ in range(_HEADER_SEARCH_LINES):
+            line = fh.readline()
+            if not line:
+                break
+            cells = set()
+            for sep in seps:
+                if len(sep) == 1:
+                    cells |= {c.strip() for c in next(csv.reader([line], delimiter=sep), [])}
+            rows.append(cells)
+    return rows
+
+
+def _skip_rows_hint(cfg: DataConfig, path: Path) -> str:
+    """"; line N holds the x and y columns: set data.skip_rows: K" when such a line is
+    near the top and is not the header line read; "" otherwise."""
+    wanted = [*cfg.x_columns, cfg.y]
+    try:
+        rows = _first_rows(cfg, path)
+    except Exception:   # the hint is a courtesy: never let it replace the real error
+        return ""
+    for i, cells in enumerate(rows):
+        if set(wanted) <= cells and i != cfg.skip_rows:
+            where = "row" if path.suffix.lower() in _EXCEL_SUFFIXES else "line"
+            return (f"; {where} {i + 1} holds the columns {', '.join(wanted)}: "
+                    f"set data.skip_rows: {i}")
+    return ""
+
+
+def _column(table: pd.DataFrame, name: str, key: str, path: Path,
+            cfg: DataConfig | None = None) -> pd.Series:
     if name not in table.columns:
+        skip = _skip_rows_hint(cfg, path) if cfg is not None else ""
         close = difflib.get_close_matches(name, list(table.columns), n=1, cutoff=0.6)
-        hint = f"; did you mean '{close[0]}'?" if close else ""
+        hint = f"; did you mean '{close[0]}'?" if close and not skip else ""
         shown = ", ".join(list(table.columns)[:12])
-        raise DataError(f"{path}: column '{name}' ({key}) not found{hint} "
-                        f"Columns are: {shown}")
+        head = f"{path}: column '{name}' ({key}) not found{hint}{skip}"
+        raise DataError(f"{head}{' ' if head.endswith('?') else '. '}Columns are: {shown}")
     col = table[name]
     if isinstance(col, pd.DataFrame):
         raise DataError(f"{path}: column '{name}' ({key}) appears more than once in the header")
     return col
+
+
+def _check_duplicated(table: pd.DataFrame, cfg: DataConfig, path: Path) -> None:
+    """A header name written twice: an error when the config reads that column, else a warning.
+
+    pandas keeps the first and renames the others (``mass.1``), so which copy
+    is analysed would depend on column order; a copy the config never reads
+    changes nothing, and refusing the file for it would only be in the way.
+    """
+    duplicated = table.attrs.get("duplicated_columns", {})
+    if not duplicated:
+        return
+    keys = {name: f"data.x[{j}]" if len(cfg.x_columns) > 1 else "data.x"
+            for j, name in enumerate(cfg.x_columns)}
+    keys.setdefault(cfg.y, "data.y")
+    for name, key in ((cfg.group, "data.group"), (cfg.average_within, "data.average_within"),
+                      (cfg.species, "data.species")):
+        if name:
+            keys.setdefault(name, key)
+    for column in cfg.exclude:
+        keys.setdefault(column, f"data.exclude.{column}")
+    used = [c for c in duplicated if c in keys]
+    if used:
+        shown = "; ".join(f"'{c}' ({keys[c]}) in {_positions(duplicated[c])}" for c in used)
+        raise DataError(f"{path}: the header line names the same column more than once: "
+                        f"{shown}; which copy to read is unclear, so rename or remove the "
+                        "extra copies")
+    shown = "; ".join(f"'{c}' in {_positions(at)}" for c, at in duplicated.items())
+    warnings.warn(f"{path}: the header line names the same column more than once ({shown}); "
+                  f"the config reads {'none of these columns' if len(duplicated) > 1 else 'no copy of it'}"
+                  ", so the results are unaffected",
+                  DataWarning, stacklevel=3)
+
+
+def _positions(at) -> str:
+    return "columns " + ", ".join(map(str, at[:-1])) + f" and {at[-1]}"
 
 
 def _as_text(series: pd.Series) -> pd.Series:
@@ -268,8 +401,9 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         keep[0] = False
     n_read = int(keep.sum())
 
-    x_col = _column(table, cfg.x, "data.x", path)
-    y_col = _column(table, cfg.y, "data.y", path)
+    _check_duplicated(table, cfg, path)
+    x_col = _column(table, cfg.x, "data.x", path, cfg)
+    y_col = _column(table, cfg.y, "data.y", path, cfg)
     g_col = _column(table, cfg.group, "data.group", path) if cfg.group else None
     u_key = ("data.species" if cfg.tree is not None and cfg.average_within == cfg.species
              else "data.average_within")
@@ -413,8 +547,9 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
             raise DataError(f"{path}: data.units_row is true but there is no line under the header")
         keep[0] = False
     n_read = int(keep.sum())
-    x_cols = [_column(table, name, f"data.x[{j}]", path) for j, name in enumerate(xs)]
-    y_col = _column(table, cfg.y, "data.y", path)
+    _check_duplicated(table, cfg, path)
+    x_cols = [_column(table, name, f"data.x[{j}]", path, cfg) for j, name in enumerate(xs)]
+    y_col = _column(table, cfg.y, "data.y", path, cfg)
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
     reasons = [[] for _ in range(len(table))]

@@ -766,7 +766,18 @@ def _tex_num(v, column: str) -> str:
     text = format_value(v, column)
     if text == "–":
         return "--"
-    return latex_escape(text.replace("−", "-"))
+    text = text.replace("−", "-")
+    if text.startswith("-"):   # a math minus: a bare "-" sets as a hyphen beside the dash
+        return "$-$" + latex_escape(text[1:])
+    return latex_escape(text)
+
+
+def _tex_interval(lo, hi, column: str) -> str:
+    """``lo--hi``, or ``lo to hi`` when a bound is negative (a dash beside a minus misreads)."""
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        return "--"
+    joint = " to " if min(lo, hi) < 0 else "--"
+    return f"{_tex_num(lo, column)}{joint}{_tex_num(hi, column)}"
 
 
 def render_fits_tex(result) -> str:
@@ -779,10 +790,8 @@ def render_fits_tex(result) -> str:
              f"{latex_escape((result.manifest or {}).get('scaling_version', ''))}",
              "\\begin{tabular}{lllrrcrcr}", "\\hline", " & ".join(head) + " \\\\", "\\hline"]
     for r in result.fits.itertuples(index=False):
-        ci_b = (f"{_tex_num(r.slope_low, 'slope_low')}--{_tex_num(r.slope_high, 'slope_high')}"
-                if np.isfinite(r.slope_low) and np.isfinite(r.slope_high) else "--")
-        ci_a = (f"{_tex_num(r.intercept_low, 'x')}--{_tex_num(r.intercept_high, 'x')}"
-                if np.isfinite(r.intercept_low) and np.isfinite(r.intercept_high) else "--")
+        ci_b = _tex_interval(r.slope_low, r.slope_high, "slope_low")
+        ci_a = _tex_interval(r.intercept_low, r.intercept_high, "x")
         cells = [latex_escape(r.scope), latex_escape(r.group), latex_escape(method_label(r.method)),
                  _tex_num(r.n, "n"), _tex_num(r.slope, "slope"), ci_b,
                  _tex_num(r.intercept, "intercept"), ci_a, _tex_num(r.r2, "r2")]

@@ -132,7 +132,8 @@ def group_stage(cfg, state) -> GroupStage:
                 warnings.simplefilter("ignore")
                 comp = compare_groups(data, "x", "y", "group", method=method,
                                       confidence=cfg.model.confidence, log_base=base,
-                                      pairwise_max=cfg.groups.pairwise_max)
+                                      pairwise_max=cfg.groups.pairwise_max,
+                                      seed=cfg.resampling.seed)
             messages.append(comparison_summary(comp, list_pairs=False,
                                                group_word=str(cfg.data.group),
                                                max_key="groups.pairwise_max"))

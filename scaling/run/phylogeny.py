@@ -34,6 +34,7 @@ from ..stats.fit_rows import fit_row
 from ..stats.lines import method_label
 from ..stats.line_results import line_fit_from_moments
 from ..render.wording import describe_test
+from ..errors import DataError
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
 
 __all__ = ["PHYLO_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
@@ -100,6 +101,12 @@ def phylo_stage(cfg, state) -> PhyloStage:
     name = Path(dc.tree).name
     species = pts["unit"].astype(str).tolist()
     match = match_species(species, tree)
+    shown = {_key(u): str(u) for u in pts["unit"]}
+    case_only = _case_only(match)
+    n_matched = int(np.count_nonzero(match.tip_of_species >= 0))
+    if n_matched < 3 and case_only:   # the fit would refuse: say why the names missed
+        raise DataError(f"only {n_matched} species of column {dc.species} match a tip of tree "
+                        f"{name}; at least 3 are needed; {_case_text(case_only, shown)}")
     has_tip = np.isin(np.asarray([_key(s) for s in species], dtype=object),
                       np.asarray([s for s, t in zip(match.species, match.tip_of_species)
                                   if t >= 0], dtype=object))
@@ -122,14 +129,16 @@ def phylo_stage(cfg, state) -> PhyloStage:
             line_fits[(PHYLO_SCOPE, "", method)] = line_fit_from_moments(
                 fit.moments, method, confidence=fit.confidence, log_base=base,
                 x_range=ranges[0], y_range=ranges[1])
-    dropped = _dropped(pts, match, dc.species, name)
+    dropped = _dropped(pts, match, dc.species, name, case_only)
     notes = []
     if cfg.prediction.x or cfg.prediction.y:
         notes.append("Predictions come from the ordinary lines only: phylogenetic lines make "
                      "no predictions yet (an interval for a new species needs its place in "
                      "the tree).")
     if len(dropped):
-        notes.append(_drop_note(match, name, {_key(u): str(u) for u in pts["unit"]}))
+        notes.append(_drop_note(match, name, shown))
+    if case_only:
+        notes.append(_case_text(case_only, shown) + ".")
     ordinary = {m: f for (s, g, m), f in state.line_fits.items() if s == "pooled"}
     stage = PhyloStage(rows=tuple(rows), fits=fits, line_fits=line_fits, points=used,
                        dropped=dropped, notes=tuple(notes))
@@ -147,19 +156,48 @@ def _key(name) -> str:
     return " ".join(str(name).replace("_", " ").split())
 
 
-def _dropped(pts: pd.DataFrame, match, column: str, tree_name: str) -> pd.DataFrame:
+def _case_only(match) -> dict:
+    """Species without a tip -> the unused tip whose name differs from it only in letter case.
+
+    Names are matched exactly (``_`` read as a space); a case difference is
+    reported, never matched, since 'Mus musculus' and 'mus musculus' may be a
+    typo or two names the user keeps apart on purpose.
+    """
+    tips = {}
+    for t in match.pruned_tips:
+        tips.setdefault(_key(t).casefold(), t)
+    return {s: tips[s.casefold()] for s in match.missing_species if s.casefold() in tips}
+
+
+def _case_text(case_only: dict, shown: dict) -> str:
+    """"N species match a tip except for letter case (e.g. 'A b' vs 'a_b'): ..." """
+    species, tip = next(iter(case_only.items()))
+    n = len(case_only)
+    return (f"{n} species match{'es' if n == 1 else ''} a tip except for letter case "
+            f"(e.g. {shown.get(species, species)!r} vs {tip!r}); names must match exactly, "
+            "so correct the spelling in the data or in the tree")
+
+
+def _dropped(pts: pd.DataFrame, match, column: str, tree_name: str,
+             case_only: dict | None = None) -> pd.DataFrame:
     """Species without a tip (their first input row) and tips without data (row blank)."""
     first_row = {_key(u): int(r) for u, r in zip(pts["unit"], pts["row"])}
     n_rows = {_key(u): int(k) for u, k in zip(pts["unit"], pts["n_rows"])}
     shown = {_key(u): str(u) for u in pts["unit"]}
+    case_only = case_only or {}
     rows = [{"row": first_row[s],
-             "reason": f"{column} {shown[s]!r} has no tip in tree {tree_name}: left out of the "
-                       f"phylogenetic fits only ({n_rows[s]} row(s) of this species, "
-                       "first shown)"}
+             "reason": f"{column} {shown[s]!r} has no tip in tree {tree_name}"
+                       + (f" (tip {case_only[s]!r} differs only in letter case)"
+                          if s in case_only else "")
+                       + f": left out of the phylogenetic fits only ({n_rows[s]} row(s) of "
+                         "this species, first shown)"}
             for s in match.missing_species]
+    near = {t: shown.get(s, s) for s, t in case_only.items()}
     rows += [{"row": pd.NA,
-              "reason": f"tree {tree_name} tip {t!r} has no data in column {column}: "
-                        "pruned from the tree"}
+              "reason": f"tree {tree_name} tip {t!r} has no data in column {column}"
+                        + (f" ({column} {near[t]!r} differs only in letter case)"
+                           if t in near else "")
+                        + ": pruned from the tree"}
              for t in match.pruned_tips]
     out = pd.DataFrame(rows, columns=["row", "reason"])
     out["row"] = out["row"].astype("Int64")

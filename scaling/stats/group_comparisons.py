@@ -69,8 +69,8 @@ from .lines import METHODS
 from .line_results import ConfidenceInterval
 from .logscale import to_log
 from .moments import group_moments
-from .schema import (GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence, check_count,
-                     check_method)
+from .schema import (DEFAULT_SEED, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence,
+                     check_count, check_method)
 
 __all__ = [
     "TESTS",
@@ -553,7 +553,7 @@ def _p_method(method: str, calibration: str, min_group_n: float, n_boot: int) ->
 def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
                    confidence: float = 0.95, log_base=10, min_n: int = 3,
                    calibration: str = "auto", n_boot: int = 999,
-                   seed: int | None = 0, pairwise_max: int = PAIRWISE_MAX,
+                   seed: int | None = DEFAULT_SEED, pairwise_max: int = PAIRWISE_MAX,
                    average_within: str | None = None) -> GroupComparison:
     """Test whether groups share a slope, an elevation and a position along the axis.
 
@@ -579,7 +579,8 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     n_boot : int
         Bootstrap replicates.
     seed : int or None
-        Seed of ``np.random.default_rng`` for the bootstrap.
+        Seed of ``np.random.default_rng`` for the bootstrap (default
+        :data:`~scaling.stats.schema.DEFAULT_SEED`, the seed of a run).
     average_within : str, optional
         Column of units (e.g. species) whose rows are collapsed to one point
         first: the means of log x and log y over the unit's rows, as the

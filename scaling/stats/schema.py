@@ -31,7 +31,7 @@ __all__ = [
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
     "FIGURE_FORMATS", "FIGURE_SIZES", "check_choice", "check_method", "check_methods",
     "check_count", "EXACT_NOTE", "EXACT_LINE_NOTE", "fraction_value",
-    "check_predictor_methods", "BOTH_SIGNS_NOTE",
+    "check_predictor_methods", "BOTH_SIGNS_NOTE", "DEFAULT_SEED",
 ]
 
 
@@ -233,6 +233,10 @@ INTERVALS = ("prediction", "confidence")
 BOOT_INTERVALS = ("percentile", "bca")
 #: Log bases a config may name (model.log_base).
 LOG_BASES = ("10", "e", "2")
+#: The one default seed of every seeded computation: a run's ``resampling.seed``,
+#: the group-comparison bootstrap of ``compare_groups`` and the robust lines of
+#: ``fit_line`` and ``fit_groups``, so a call with defaults repeats a run with defaults.
+DEFAULT_SEED = 1
 FIGURE_KINDS = ("scaling", "natural", "exponents", "residuals")
 FIGURE_FORMATS = ("png", "pdf", "svg")
 FIGURE_SIZES = ("single", "double")
