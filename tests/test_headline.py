@@ -227,3 +227,107 @@ class TestHeadlineOfWorkedExamples:
         assert len(head.sentences) <= 3
         assert head.sentences[-1].startswith("Inverse prediction of")
         assert "118 mm" in head.sentences[-1]
+
+
+class TestTwoAcceptedRanges:
+    """An SMA fit whose correlation is not significant accepts slopes in two ranges;
+    every sentence and table of words names both (invented tables: formatting only)."""
+
+    def _tables(self):
+        fits = pd.DataFrame({"scope": ["pooled"], "group": [""], "method": ["sma"], "n": [10],
+                             "slope": [1.0], "slope_low": [-2.0977], "slope_high": [2.0977],
+                             "slope_gap_low": [-0.4767], "slope_gap_high": [0.4767]})
+        tests = pd.DataFrame({"scope": ["pooled"], "group": [""], "method": ["sma"],
+                              "hypothesis": ["k"], "exponent": [0.75], "estimate": [1.0],
+                              "p_value": [0.6], "p_method": ["t"]})
+        return fits, tests
+
+    def test_the_answer_says_both_ranges(self):
+        head = build_headline(*self._tables(), methods=["sma"])
+        assert head.sentences[0] == ("The SMA exponent is 1.000 (95% CI -2.098 to -0.477 or "
+                                     "0.477 to 2.098, n = 10).")
+        row = head.exponent_table.iloc[0]
+        assert (row["low"], row["gap_low"], row["gap_high"], row["high"]) == (
+            -2.0977, -0.4767, 0.4767, 2.0977)
+
+    def test_no_gap_columns_when_every_set_is_one_range(self):
+        fits, tests = self._tables()
+        fits[["slope_gap_low", "slope_gap_high"]] = np.nan
+        head = build_headline(fits, tests, methods=["sma"])
+        assert "gap_low" not in head.exponent_table.columns
+        assert "(95% CI -2.098–2.098, n = 10)" in head.sentences[0]
+
+    def test_a_run_of_weakly_correlated_data_writes_them(self, tmp_path):
+        # y a permutation of x (r = 0.11, n = 10): SMA accepts either sign
+        table = pd.DataFrame({"mass": np.arange(1.0, 11.0),
+                              "rate": [3.0, 9, 2, 7, 4, 10, 1, 6, 8, 5]})
+        res = _run(tmp_path, table, group=False)
+        sma = res.fits.query("method == 'sma'").iloc[0]
+        assert np.isfinite(sma["slope_gap_low"]) and np.isfinite(sma["slope_gap_high"])
+        assert res.fits.query("method == 'ols'")[["slope_gap_low", "slope_gap_high"]].isna().all().all()
+        head = headline_of(res)
+        assert "95% CI -2.098 to -0.477 or 0.477 to 2.098" in head.sentences[0]
+        assert any("Pooled SMA exponent 1.000 (95% CI -2.098 to -0.477 or 0.477 to 2.098)"
+                   in m for m in res.messages)
+
+
+class TestCalibratedPAtItsFloor:
+    """A p from B resampled draws is at least 1/(B + 1) (Davison & Hinkley 1997,
+    Bootstrap Methods, eq. 4.11; Phipson & Smyth 2010, Stat. Appl. Genet. Mol. Biol. 9:39);
+    at that floor it is written 'p ≤ 1/(B + 1) (B draws)' (formatting only)."""
+
+    def test_the_helper(self):
+        from scaling.render.wording import calibrated_p_text, p_floor
+        assert calibrated_p_text(0.001, "parametric_bootstrap(999)") == "p ≤ 0.001 (999 draws)"
+        assert calibrated_p_text(0.001, "lr_parametric_bootstrap(999)") == (
+            "p ≤ 0.001 (999 draws)")
+        assert calibrated_p_text(1 / 10000, "permutation(9999)") == "p ≤ 0.0001 (9999 draws)"
+        assert calibrated_p_text(0.002, "bootstrap_percentile(999)") == "p ≤ 0.002 (999 draws)"
+        assert calibrated_p_text(0.002, "parametric_bootstrap(999)") == "p = 0.002"
+        assert calibrated_p_text(0.001, "t") == calibrated_p_text(0.001, "") == "p = 0.001"
+        assert p_floor("permutation(99)") == (0.01, 99)
+
+    def test_headline_sentences_and_tables_of_words(self):
+        from scaling.render.headline import _short_verdict
+        assert _short_verdict(0.9, 0.75, 0.001, 0.05, "lr_parametric_bootstrap(999)") == (
+            "above (p ≤ 0.001 (999 draws))")
+        fits = pd.DataFrame({"scope": ["pooled", "common"], "group": ["", ""],
+                             "method": ["sma", "sma"], "n": [40, 40], "slope": [0.67, 0.74],
+                             "slope_low": [0.64, 0.70], "slope_high": [0.71, 0.78],
+                             "note": ["", "common within-group slope of 5 groups"]})
+        tests = pd.DataFrame({"scope": ["common"], "group": [""], "method": ["sma"],
+                              "hypothesis": ["k"], "exponent": [2 / 3], "estimate": [0.74],
+                              "p_value": [0.001], "p_method": ["lr_parametric_bootstrap(999)"]})
+        groups = pd.DataFrame({"method": ["sma"] * 3,
+                               "test": ["slopes_equal", "intercepts_equal", "shift_along_axis"],
+                               "p_value": [0.356, 0.001, 0.004],
+                               "p_method": ["parametric_bootstrap(999)"] * 3})
+        head = build_headline(fits, tests, groups, methods=["sma"], group_word="clade")
+        s1, s2, s3 = head.sentences
+        assert "slopes do not differ, p = 0.356)" in s1
+        assert s2 == "This within-clade exponent is above 2/3 (p ≤ 0.001 (999 draws))."
+        assert s3.startswith("The clades differ in elevation (p ≤ 0.001 (999 draws)) and "
+                             "differ in position along the common axis (p = 0.004)")
+        assert head.exponent_table.loc[0, "vs 2/3"] == "above (p ≤ 0.001 (999 draws))"
+
+    def test_every_sentence_of_the_demo_reads_at_most(self, demo):
+        # The demo's SMA/MA group tests and common-slope tests are calibrated with 999
+        # parametric-bootstrap draws; several sit at the floor 0.001.
+        groups = demo.tables["group_tests"]
+        floor = groups[groups["p_method"].str.startswith("parametric_bootstrap")
+                       & (groups["p_value"] <= 1 / 1000 + 1e-12)]
+        tests = demo.slope_tests
+        common = tests[tests["p_method"].str.startswith("lr_parametric_bootstrap")
+                       & (tests["p_value"] <= 1 / 1000 + 1e-12)]
+        assert len(floor) and len(common)
+        # no p-value that is not resampled would be written "0.001" here, so every
+        # "p = 0.001" would be a floor written as exact
+        from scaling.render.wording import format_p
+        others = pd.concat([groups.loc[~groups["p_method"].str.contains(r"\("), "p_value"],
+                            tests.loc[~tests["p_method"].str.contains(r"\("), "p_value"]])
+        assert "0.001" not in {format_p(p) for p in others}
+        md = (demo.out_dir / "summary.md").read_text(encoding="utf-8")
+        html = (demo.out_dir / "report.html").read_text(encoding="utf-8")
+        words = [md, html, *demo.messages, *headline_of(demo).sentences]
+        assert not any("p = 0.001" in text for text in words)
+        assert "p ≤ 0.001 (999 draws)" in md and "p ≤ 0.001 (999 draws)" in html

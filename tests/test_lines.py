@@ -859,8 +859,8 @@ class TestSignAndBranchAwareTests:
         inner = fit.slope_gap_high
         assert 0 < inner < hi and fit.slope_gap_low == -inner
         assert fit_note(fit) == (f"{BOTH_SIGNS_NOTE}: the accepted slopes are {lo:.4g} to "
-                                 f"{-inner:.4g} and {inner:.4g} to {hi:.4g} (the interval "
-                                 "reported is their hull)")
+                                 f"{-inner:.4g} or {inner:.4g} to {hi:.4g} (slope_low to "
+                                 "slope_high is their hull)")
         for b0 in (lo, hi, inner, -inner):
             # internal consistency: every end of the accepted set has p = 1 - confidence
             assert_allclose(fit.test_slope(b0).p_value, 0.05, rtol=1e-3)
@@ -1137,3 +1137,154 @@ class TestLineFitTestSlope:
         assert not is_symmetric("theil_sen")
         with pytest.raises(ConfigError, match="method must be one of"):
             is_symmetric("loess")
+
+
+# --------------------------------------------------------------------------
+# the SMA accepted set when it is two ranges
+
+
+def _warton_sma_rule(X, Y, b0, confidence=0.95):
+    """Is b0 accepted?  Written here from the published test, with scipy.
+
+    Warton, Wright, Falster & Westoby (2006, Biol. Rev. 81:259, section on
+    testing an SMA slope): b0 is rejected when Y - b0 X and Y + b0 X are
+    correlated (Pearson's test, n - 2 df).  That correlation is also zero at
+    -b0, so a b0 of the other sign than the data's correlation is rejected too
+    when the correlation of X and Y itself is significant (the sign rule the
+    package documents in scaling.stats.lines).
+    """
+    alpha = 1 - confidence
+    if stats.pearsonr(Y - b0 * X, Y + b0 * X).pvalue < alpha:
+        return False
+    r = stats.pearsonr(X, Y)
+    return not (np.sign(b0) != np.sign(r.statistic) and r.pvalue < alpha)
+
+
+_SPLIT_X = np.arange(1, 11)
+_SPLIT_Y = np.array([3, 9, 2, 7, 4, 10, 1, 6, 8, 5])
+
+
+@pytest.fixture(scope="module")
+def split():
+    """An SMA fit whose correlation (r = 0.11, n = 10) is not significant."""
+    with pytest.warns(DegenerateDataWarning, match=BOTH_SIGNS_NOTE):
+        return fit_line(_SPLIT_X, _SPLIT_Y, method="sma")
+
+
+class TestAcceptedSet:
+    """``LineFit.accepted_slopes``: the slopes the SMA test accepts, one or two ranges."""
+
+    def test_two_ranges_when_the_correlation_is_not_significant(self, split):
+        X, Y = np.log10(_SPLIT_X), np.log10(_SPLIT_Y)
+        low, high = split.accepted_slopes
+        # Warton et al. 2006 (Biol. Rev. 81:259), SMA slope interval:
+        # |b| (sqrt(B + 1) -+ sqrt(B)), B = (1 - r^2) F_0.95(1, n - 2)/(n - 2), with r
+        # from scipy.stats.pearsonr and the quantile from scipy.stats.f; here y is a
+        # permutation of x, so Syy = Sxx and |b| = 1 (exact law)
+        r = stats.pearsonr(X, Y).statistic
+        big_b = (1 - r * r) * stats.f.ppf(0.95, 1, 8) / 8
+        inner, outer = math.sqrt(big_b + 1) - math.sqrt(big_b), math.sqrt(big_b + 1) + math.sqrt(big_b)
+        assert_allclose([low.low, low.high, high.low, high.high],
+                        [-outer, -inner, inner, outer], rtol=1e-10)
+        # the interval stays the hull; the gap sits beside it
+        assert (split.slope_ci.low, split.slope_ci.high) == (low.low, high.high)
+        assert (split.slope_gap_low, split.slope_gap_high) == (low.high, high.low)
+
+    def test_one_range_when_the_correlation_is_significant(self):
+        X, Y = _line_data(33, 15, 0.8, 0.1)
+        fit = fit_line(X, Y, method="sma", log_base=None)
+        assert fit.accepted_slopes == (fit.slope_ci,)
+        assert np.isnan(fit.slope_gap_low) and np.isnan(fit.slope_gap_high)
+
+    def test_every_value_of_the_set_is_accepted_and_every_other_rejected(self, split):
+        X, Y = np.log10(_SPLIT_X), np.log10(_SPLIT_Y)
+        ends = np.array([[r.low, r.high] for r in split.accepted_slopes]).ravel()
+        grid = np.linspace(-3, 3, 2001)
+        grid = grid[np.min(np.abs(grid[:, None] - ends[None, :]), axis=1) > 1e-6]
+        in_set = np.zeros(grid.size, dtype=bool)
+        for r in split.accepted_slopes:
+            in_set |= (r.low <= grid) & (grid <= r.high)
+        p = np.array([split.test_slope(b0).p_value for b0 in grid])
+        # internal consistency: the set is the inversion of the package's own test
+        assert np.array_equal(p >= 0.05, in_set)
+        # the published rule written with scipy (see _warton_sma_rule) accepts the same set
+        assert np.array_equal([_warton_sma_rule(X, Y, b0) for b0 in grid], in_set)
+        gap = (split.slope_gap_low < grid) & (grid < split.slope_gap_high)
+        assert gap.sum() > 300 and not in_set[gap].any()
+        # the value quoted when the gap was found: inside the hull, rejected by the test
+        assert split.test_slope(0.1).p_value < 1e-5
+
+    def test_the_set_covers_and_agrees_with_the_test_by_simulation(self):
+        # One array pass of 20 000 samples of n = 10 from a bivariate normal with
+        # correlation 0.2; the true SMA slope is sd_y/sd_x = 0.8 (simulation with a
+        # known truth).
+        rng = np.random.default_rng(20061)
+        reps, n, rho, sx, sy = 20_000, 10, 0.2, 0.5, 0.4
+        cov = np.array([[sx * sx, rho * sx * sy], [rho * sx * sy, sy * sy]])
+        z = rng.multivariate_normal([1.0, 0.5], cov, size=(reps, n))
+        m = group_moments(z[..., 0].ravel(), z[..., 1].ravel(),
+                          np.repeat(np.arange(reps), n), n_groups=reps)
+        f = fit_moments(m, "sma")
+        split = np.isfinite(f["slope_gap_low"])
+        assert split.mean() > 0.8   # the correlation is rarely significant here
+
+        def in_set(b0):
+            gap = split & (f["slope_gap_low"] < b0) & (b0 < f["slope_gap_high"])
+            return (f["slope_low"] <= b0) & (b0 <= f["slope_high"]) & ~gap
+
+        # internal consistency, exact on every replicate: the reported set is the
+        # set of slopes the test accepts, at the truth and at values around it
+        for b0 in (0.8, -0.8, 0.08, 0.3, 2.4, -0.2):
+            _, _, p = slope_test_statistic(m, "sma", b0)
+            assert np.array_equal(in_set(b0), p >= 0.05), b0
+        # Warton et al. 2006's test of b0 = 0.8 written from the moments: the
+        # correlation of Y - b0 X with Y + b0 X as F(1, n - 2).  It is exact for
+        # normal data, so the symmetric set it accepts covers at 0.95 within 3
+        # binomial SEs (SE = sqrt(0.95 * 0.05 / 20 000) = 0.0015).
+        b0, se = 0.8, math.sqrt(0.95 * 0.05 / reps)
+        c = m.syy - b0 * b0 * m.sxx
+        va = m.syy - 2 * b0 * m.sxy + b0 * b0 * m.sxx
+        vb = m.syy + 2 * b0 * m.sxy + b0 * b0 * m.sxx
+        rstar2 = c * c / (va * vb)
+        ratio_accepts = rstar2 * (n - 2) / (1 - rstar2) < stats.f.ppf(0.95, 1, n - 2)
+        assert abs(ratio_accepts.mean() - 0.95) <= 3 * se
+        # The reported set also rejects b0 when the correlation is significant with
+        # the other sign (scipy.stats.t quantile of the correlation test): exactly
+        # those replicates are lost, so its coverage is 0.95 less that share
+        # (0.006 by Fisher's z at rho = 0.2, n = 10; measured 0.0037 here: 0.946).
+        r = m.sxy / np.sqrt(m.sxx * m.syy)
+        wrong_sign = (r < 0) & (r * r * (n - 2) / (1 - r * r) > stats.t.ppf(0.975, n - 2) ** 2)
+        assert np.array_equal(in_set(b0), ratio_accepts & ~wrong_sign)
+        assert 0.95 - 0.006 - 3 * se <= in_set(b0).mean() <= 0.95 + 3 * se
+
+    def test_fits_rows_carry_the_gap(self, split):
+        from scaling.stats.fit_rows import fit_row
+        from scaling.stats.grouped_fits import GroupedMoments, fit_groups_from_moments
+        from scaling.stats.line_results import fit_from_dict, fit_to_dict
+        row = fit_row(split, scope="pooled")
+        # internal consistency: the fits.csv row, the saved fit and the grouped road
+        assert (row["slope_low"], row["slope_gap_low"], row["slope_gap_high"],
+                row["slope_high"]) == (split.slope_ci.low, split.slope_gap_low,
+                                       split.slope_gap_high, split.slope_ci.high)
+        back = fit_from_dict(fit_to_dict(split))
+        assert back.accepted_slopes == split.accepted_slopes
+        X, Y = np.log10(_SPLIT_X), np.log10(_SPLIT_Y)
+        m = group_moments(X, Y, np.zeros(10, dtype=int), n_groups=1)
+        one, ten = np.array([1.0]), np.array([10.0])
+        gm = GroupedMoments(labels=np.array(["a"], dtype=object), moments=m, pooled=m,
+                            x_min=one, x_max=ten, y_min=one, y_max=ten, n_read=10)
+        table = fit_groups_from_moments(gm, methods=["sma", "ols"], exponents={"b": 0.1})
+        sma = table.fits[table.fits["method"] == "sma"].iloc[0]
+        assert_allclose([sma["slope_gap_low"], sma["slope_gap_high"]],
+                        [split.slope_gap_low, split.slope_gap_high], rtol=1e-12)
+        assert table.fits[table.fits["method"] == "ols"]["slope_gap_low"].isna().all()
+        # the grouped road tests a fit accepting slopes of either sign, as a run does
+        tested = table.slope_tests[table.slope_tests["method"] == "sma"]
+        assert len(tested) == 1 and tested["p_value"].iloc[0] < 1e-5
+        assert tested["p_method"].iloc[0] == "t"
+
+    def test_sentences_name_both_ranges(self, split):
+        from scaling.render.wording import fit_interval_text
+        assert fit_interval_text(split) == "-2.098 to -0.477 or 0.477 to 2.098"
+        assert "-2.098 to -0.4767 or 0.4767 to 2.098" in split.summary()
+        assert "or 0.4767 to 2.098 (slope_low to slope_high is their hull)" in fit_note(split)

@@ -47,9 +47,29 @@ class TestTableColumns:
             assert _header(path) == expected, path.name   # internal consistency
 
     def test_fits_table_has_every_schema_column(self, demo_run):
-        # 24 line columns, 6 accuracy/correction columns, 5 for the constant a and the term
+        # 26 line columns (the slope gap last), 6 accuracy/correction columns, 5 for the
+        # constant a and the term
         assert list(demo_run.fits.columns) == schema.FIT_ALL_COLUMNS
-        assert len(schema.FIT_ALL_COLUMNS) == 35
+        assert len(schema.FIT_ALL_COLUMNS) == 37
+        assert schema.FIT_COLUMNS[-2:] == ["slope_gap_low", "slope_gap_high"]
+        # no demo fit accepts slopes of either sign: the gap is blank in every row
+        assert demo_run.fits[["slope_gap_low", "slope_gap_high"]].isna().all().all()
+
+    def test_every_slope_test_says_how_its_p_was_got(self, demo_run):
+        tests = demo_run.slope_tests
+        assert schema.SLOPE_TEST_COLUMNS[-2:] == ["p_value", "p_method"]
+        assert tests["p_method"].notna().all() and tests["p_method"].ne("").all()
+        ordinary = tests[tests["scope"].isin(["pooled", "group", "group_means"])]
+        assert ordinary["p_method"].eq("t").all()
+        # the demo's common SMA/MA slopes are calibrated by the parametric bootstrap
+        # (groups of 8 points): their statistic is the likelihood ratio, without t df
+        common = tests[(tests["scope"] == "common") & tests["method"].isin(["sma", "ma"])]
+        assert len(common)
+        assert common["p_method"].eq("lr_parametric_bootstrap(999)").all()
+        assert common["statistic_type"].eq("lr").all() and common["df"].isna().all()
+        assert (common["statistic"] >= 0).all()
+        ols = tests[(tests["scope"] == "common") & (tests["method"] == "ols")]
+        assert ols["p_method"].eq("t").all() and ols["statistic_type"].eq("t").all()
 
 
 class TestCatalogue:

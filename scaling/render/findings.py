@@ -13,7 +13,7 @@ import numpy as np
 from ..stats.schema import EXACT_LINE_NOTE, EXACT_NOTE, ROW_METHOD_NAMES, method_label
 from .wording import (curvature_ok, diag_method, error_structure_words,
                       estimate_outside_reason, format_p, group_residuals_reason,
-                      influence_reason, p_text, smearing_reason)
+                      influence_reason, p_text, smearing_reason, calibrated_p_text)
 
 __all__ = ["point_check_reason", "spread_summary", "exclusion_reason", "excluded_text",
            "means_left_out_text", "comparison_note", "comparison_summary",
@@ -193,7 +193,8 @@ def comparison_summary(comparison, *, list_pairs: bool = True, group_word: str |
     def numbers(t, name: str) -> str:
         df = f"{t.df:g}" if not np.isfinite(t.df_resid) else f"{t.df:g}, {t.df_resid:g}"
         boot = ", parametric bootstrap" if t.p_method.startswith("parametric") else ""
-        return f"{name} = {t.statistic:.3g}, df = {df}, {p_text(t.p_value)}{boot}"
+        return (f"{name} = {t.statistic:.3g}, df = {df}, "
+                f"{calibrated_p_text(t.p_value, t.p_method)}{boot}")
 
     def differing(test: str) -> str:
         pairs = [f"{p.group_a} vs {p.group_b}" for p in c.pairwise

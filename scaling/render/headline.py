@@ -35,7 +35,8 @@ import numpy as np
 import pandas as pd
 
 from ..stats.schema import method_label
-from .wording import format_p, p_text, plural as plural_of, verdict_phrase
+from .wording import (calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
+                      verdict_phrase)
 
 __all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
            "headline_of", "exponent_words"]
@@ -105,18 +106,40 @@ def exponent_words(name: str, value: float) -> str:
     return f"{value:.4g}"
 
 
-def _ci(lo, hi, pct: str) -> str:
+def _ci(lo, hi, pct: str, gap_low=math.nan, gap_high=math.nan) -> str:
+    """The interval in words; two ranges when an SMA accepted set is split by a gap."""
     if np.isfinite(lo) and np.isfinite(hi):
-        return f"{pct} CI {lo:.3f}–{hi:.3f}"
+        return f"{pct} CI {slope_interval_text(lo, hi, _num(gap_low), _num(gap_high))}"
     return f"{pct} CI unbounded"
 
 
-def _short_verdict(est, b0, p, alpha) -> str:
+def _num(value) -> float:
+    """A table cell as a float (blank or missing -> NaN)."""
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return math.nan
+
+
+def _gap(row) -> tuple:
+    """``slope_gap_low, slope_gap_high`` of a fits row (NaN where the table has none)."""
+    return tuple(_num(row.get(k, math.nan)) if hasattr(row, "get")
+                 else _num(getattr(row, k, math.nan)) for k in ("slope_gap_low", "slope_gap_high"))
+
+
+def _short_verdict(est, b0, p, alpha, p_method="") -> str:
     if not np.isfinite(p):
         return "not tested"
     if p < alpha:
-        return f"{'above' if est > b0 else 'below'} ({p_text(p)})"
-    return f"not different ({p_text(p)})"
+        return f"{'above' if est > b0 else 'below'} ({calibrated_p_text(p, p_method)})"
+    return f"not different ({calibrated_p_text(p, p_method)})"
+
+
+def _p_method(record) -> str:
+    """The ``p_method`` of a slope_tests or group_tests row ("" in tables without it)."""
+    value = record.get("p_method", "") if hasattr(record, "get") else getattr(
+        record, "p_method", "")
+    return value if isinstance(value, str) else ""
 
 
 def _verdict_list(tests: pd.DataFrame, alpha: float) -> str:
@@ -124,8 +147,8 @@ def _verdict_list(tests: pd.DataFrame, alpha: float) -> str:
     for r in tests.itertuples(index=False):
         target = exponent_words(str(r.hypothesis), float(r.exponent))
         parts.append(f"{verdict_phrase(r.estimate, r.exponent, r.p_value, alpha=alpha, target=target)}"
-                     f" ({p_text(r.p_value)})" if np.isfinite(r.p_value) else
-                     f"could not be tested against {target}")
+                     f" ({calibrated_p_text(r.p_value, _p_method(r))})"
+                     if np.isfinite(r.p_value) else f"could not be tested against {target}")
     if not parts:
         return ""
     return parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + " and " + parts[-1]
@@ -181,7 +204,8 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
         group = "" if pd.isna(r.group) else str(r.group)
         line = _LINE_WORDS.get(r.scope, r.scope) + (f" {group}" if group else "")
         rec = {"line": line, "method": method_label(str(r.method)),
-               "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
+               "exponent": r.slope, "low": r.slope_low, "high": r.slope_high,
+               **_gap_cells(r)}
         first: dict = {}   # the first test of each hypothesis for this line
         for t in index.get((r.scope, r.method, group), ()):
             first.setdefault(t["hypothesis"], t)
@@ -189,10 +213,25 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
             t = first.get(name)
             label = f"vs {exponent_words(str(name), float(b0))}"
             rec[label] = (_short_verdict(float(t["estimate"]), float(b0),
-                                         float(t["p_value"]), alpha)
+                                         float(t["p_value"]), alpha, _p_method(t))
                           if t is not None else "")
         rows.append(rec)
-    return pd.DataFrame(rows)
+    return _drop_empty_gaps(pd.DataFrame(rows))
+
+
+def _gap_cells(r) -> dict:
+    """``gap_low``, ``gap_high`` of a fits row: the slopes between them are rejected
+    (an SMA accepted set of two ranges, ``low .. gap_low`` and ``gap_high .. high``)."""
+    gap_low, gap_high = _gap(r)
+    return {"gap_low": gap_low, "gap_high": gap_high}
+
+
+def _drop_empty_gaps(table: pd.DataFrame) -> pd.DataFrame:
+    """The gap columns are shown only when some row's accepted slopes are two ranges."""
+    if "gap_low" in table.columns and not np.isfinite(
+            table["gap_low"].to_numpy(dtype=float)).any():
+        return table.drop(columns=["gap_low", "gap_high"])
+    return table
 
 
 def _matrices(pairwise: pd.DataFrame | None, method: str, groups, alpha) -> dict:
@@ -266,7 +305,8 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
         else:
             tests = _tests(slope_tests, "pooled", lead)
             s1 = (f"The {method_label(lead)} exponent is {fit['slope']:.3f} "
-                  f"({_ci(fit['slope_low'], fit['slope_high'], pct)}, n = {int(fit['n'])}).")
+                  f"({_ci(fit['slope_low'], fit['slope_high'], pct, *_gap(fit))}, "
+                  f"n = {int(fit['n'])}).")
             verdicts = _verdict_list(tests, alpha)
             sentences = (s1,) + ((f"It {verdicts}.",) if verdicts else ())
         return Headline(primary=lead, line="pooled", sentences=sentences,
@@ -278,6 +318,10 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
 
     def p_of(test):
         return float(gt.loc[test, "p_value"]) if test in gt.index else math.nan
+
+    def p_words(test):
+        how = gt.loc[test, "p_method"] if test in gt.index and "p_method" in gt.columns else ""
+        return calibrated_p_text(p_of(test), how if isinstance(how, str) else "")
 
     p_slope, p_elev, p_axis = (p_of(t) for t in ("slopes_equal", "intercepts_equal",
                                                  "shift_along_axis"))
@@ -292,13 +336,15 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
         index = _test_index(slope_tests)
         for r in gfits.itertuples(index=False):
             rec = {group_word: r.group,
-                   "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high}
+                   "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high,
+                   **_gap_cells(r)}
             for t in index.get(("group", lead, str(r.group)), ()):
                 column = f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"
-                rec[column] = _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha)
+                rec[column] = _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha,
+                                             _p_method(t))
             rows.append(rec)
         s1 = (f"The {plural} do not share one exponent: their {label} slopes differ "
-              f"({p_text(p_slope)}), so each {group_word} has its own; the table below gives each "
+              f"({p_words('slopes_equal')}), so each {group_word} has its own; the table below gives each "
               f"{group_word}'s exponent and verdict.")
         out = [s1]
         pooled = _row(fits, "pooled", lead)
@@ -306,7 +352,7 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
             out.append(f"The pooled {method_label(lead)} exponent "
                        f"({pooled['slope']:.3f}) only averages these differing slopes.")
         return Headline(primary=lead, line="groups", sentences=tuple(out),
-                        exponent_table=table, group_table=pd.DataFrame(rows),
+                        exponent_table=table, group_table=_drop_empty_gaps(pd.DataFrame(rows)),
                         matrices=matrices)
 
     if common is None or not np.isfinite(common["slope"]):
@@ -317,23 +363,24 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     tests = _tests(slope_tests, "common", read)
     how = "do not differ" if np.isfinite(p_slope) else "were not compared"
     s1 = (f"Within {plural}, the common {label} exponent is {common['slope']:.3f} "
-          f"({_ci(common['slope_low'], common['slope_high'], pct)}; {n_groups} {plural}, "
-          f"n = {int(common['n'])}; the {plural}' slopes {how}"
-          + (f", {p_text(p_slope)})." if np.isfinite(p_slope) else ")."))
+          f"({_ci(common['slope_low'], common['slope_high'], pct, *_gap(common))}; "
+          f"{n_groups} {plural}, n = {int(common['n'])}; the {plural}' slopes {how}"
+          + (f", {p_words('slopes_equal')})." if np.isfinite(p_slope) else ")."))
     verdicts = _verdict_list(tests, alpha)
     out = [s1] + ([f"This within-{group_word} exponent {verdicts}."] if verdicts else [])
     elev_differs = np.isfinite(p_elev) and p_elev <= alpha
     axis_differs = np.isfinite(p_axis) and p_axis <= alpha
     pos = "position along the common axis" if read != "ols" else "mean size (log x)"
     if elev_differs:
-        s3 = f"The {plural} differ in elevation ({p_text(p_elev)})"
+        s3 = f"The {plural} differ in elevation ({p_words('intercepts_equal')})"
     elif np.isfinite(p_elev):
-        s3 = f"The {plural} do not differ detectably in elevation ({p_text(p_elev)})"
+        s3 = (f"The {plural} do not differ detectably in elevation "
+              f"({p_words('intercepts_equal')})")
     else:
         s3 = f"Elevations of the {plural} were not compared"
     if np.isfinite(p_axis):
         s3 += (f" and {'differ' if axis_differs else 'do not differ detectably'} in {pos} "
-               f"({p_text(p_axis)})")
+               f"({p_words('shift_along_axis')})")
     pooled = _row(fits, "pooled", read)
     if elev_differs and pooled is not None and np.isfinite(pooled["slope"]):
         b_pool, lo, hi = float(pooled["slope"]), common["slope_low"], common["slope_high"]
@@ -349,7 +396,7 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
 def _several_predictors(fits, slope_tests, lead, alpha, pct) -> tuple:
     """Exponents of a power law in several predictors, then their tests per hypothesis."""
     rows = fits[(fits["scope"] == "pooled") & (fits["method"] == lead)]
-    parts = [f"{r.slope:.3f} for {r.term} ({_ci(r.slope_low, r.slope_high, pct)})"
+    parts = [f"{r.slope:.3f} for {r.term} ({_ci(r.slope_low, r.slope_high, pct, *_gap(r))})"
              for r in rows.itertuples(index=False)]
     n = int(rows["n"].iloc[0]) if len(rows) else 0
     s1 = (f"The {method_label(lead)} exponents are " + "; ".join(parts) + f" (n = {n}).")
@@ -358,7 +405,7 @@ def _several_predictors(fits, slope_tests, lead, alpha, pct) -> tuple:
     if "term" in tests.columns:
         for name, t in tests.groupby("hypothesis", sort=False):
             each = ", ".join(f"{r.term} vs {r.exponent:g} "
-                             f"{_short_verdict(r.estimate, r.exponent, r.p_value, alpha)}"
+                             f"{_short_verdict(r.estimate, r.exponent, r.p_value, alpha, _p_method(r))}"
                              for r in t.itertuples(index=False))
             said.append(f"against {name}: {each}")
     return (s1,) + ((("Tested " + "; ".join(said) + "."),) if said else ())

@@ -29,8 +29,8 @@ import yaml
 from .headline import headline_of
 from .figure_kinds import FIGURES
 from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
-                      format_p, mechanism_caution, medians_vs_means, method_label, p_text,
-                      predicted_unit, verdict_phrase)
+                      calibrated_p_text, format_p, mechanism_caution, medians_vs_means,
+                      method_label, predicted_unit, slope_interval_text, verdict_phrase)
 
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
@@ -182,11 +182,13 @@ def _slope_sentences(result) -> list:
             if isinstance(row, pd.DataFrame):
                 row = row.iloc[0]
             lo, hi = row["slope_low"], row["slope_high"]
-            ci = (f" ({pct} CI {_num(lo)}–{_num(hi)})" if np.isfinite(lo) and np.isfinite(hi)
-                  else f" ({pct} CI unbounded)")
+            gap = (row.get("slope_gap_low", np.nan), row.get("slope_gap_high", np.nan))
+            ci = (f" ({pct} CI {slope_interval_text(lo, hi, *gap, fmt=_num)})"
+                  if np.isfinite(lo) and np.isfinite(hi) else f" ({pct} CI unbounded)")
         target = _exponent_words(str(r.hypothesis), float(r.exponent))
         verdict = verdict_phrase(r.estimate, r.exponent, r.p_value, alpha=alpha, target=target)
-        verdict += f", {p_text(r.p_value)}." if np.isfinite(r.p_value) else "."
+        verdict += (f", {calibrated_p_text(r.p_value, getattr(r, 'p_method', ''))}."
+                    if np.isfinite(r.p_value) else ".")
         out.append((r.scope, f"{_scope_words(r.scope, r.group)}: the {method_label(str(r.method))} exponent "
                    f"{_num(r.estimate)}{ci} {verdict}"))
     if skipped:
@@ -211,7 +213,7 @@ def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
         if isinstance(df, (int, float, np.floating)) and np.isfinite(df):
             detail.append(f"df = {format_value(df, 'df')}")
         if isinstance(p, (int, float, np.floating)) and np.isfinite(p):
-            detail.append(p_text(float(p)))
+            detail.append(calibrated_p_text(float(p), str(r.get("p_method", ""))))
             verdict = (f"evidence that {alt}" if p < alpha
                        else f"consistent with {null}")
         else:
@@ -293,9 +295,11 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
     return blocks
 
 
-def _interval_text(lo, hi) -> str:
+def _interval_text(lo, hi, gap_low=np.nan, gap_high=np.nan) -> str:
     if not (np.isfinite(lo) and np.isfinite(hi)):
         return "unbounded" if np.isfinite(lo) or np.isfinite(hi) else "–"
+    if np.isfinite(gap_low) and np.isfinite(gap_high):
+        return slope_interval_text(lo, hi, gap_low, gap_high, fmt=lambda v: _num(float(v), 4))
     return f"{_num(float(lo), 4)} to {_num(float(hi), 4)}"
 
 
@@ -310,7 +314,8 @@ def _fits_display(result) -> pd.DataFrame:
               else "–")
         row = {"scope": r["scope"], "group": r["group"], "method": method_label(str(r["method"])),
                "n": r["n"], "b": r["slope"], "b interval": _interval_text(
-                   r["slope_low"], r["slope_high"]),
+                   r["slope_low"], r["slope_high"], r.get("slope_gap_low", np.nan),
+                   r.get("slope_gap_high", np.nan)),
                "log a": r["intercept"], "log a interval": _interval_text(
                    r["intercept_low"], r["intercept_high"]),
                "y = a·x^b": eq, "r2": r["r2"], "resid_sd": r.get("resid_sd", np.nan)}

@@ -48,8 +48,8 @@ def line_fit_summary(fit) -> str:
     lines = [
         f"{label} line on {log_word(fit.log_base)} scales, n = {fit.n}"
         + (f" (lambda = {fit.lam:g})" if fit.lam is not None else ""),
-        f"  exponent b = {fit.slope:.4g}  ({pct} CI {fit.slope_ci.low:.4g} to "
-        f"{fit.slope_ci.high:.4g})",
+        f"  exponent b = {fit.slope:.4g}  ({pct} CI "
+        + " or ".join(f"{r.low:.4g} to {r.high:.4g}" for r in fit.accepted_slopes) + ")",
         f"  intercept log a = {fit.intercept:.4g}  ({pct} CI {fit.intercept_ci.low:.4g} to "
         f"{fit.intercept_ci.high:.4g})",
         f"  r = {fit.r:.4f}, r^2 = {fit.r2:.4f}, residual SD (log scale) = {fit.resid_sd:.4g}",
@@ -83,8 +83,8 @@ def phylo_fit_summary(fit) -> str:
            if fit.lam_estimate != "fixed" else f"lambda = {fit.lam:g} (fixed)")
     return "\n".join([
         f"{label} line on log{base_label(fit.log_base)} scales, n = {fit.n} species, {lam}",
-        f"  exponent b = {fit.slope:.4g}  ({pct} CI {fit.slope_ci.low:.4g} to "
-        f"{fit.slope_ci.high:.4g})",
+        f"  exponent b = {fit.slope:.4g}  ({pct} CI "
+        + " or ".join(f"{r.low:.4g} to {r.high:.4g}" for r in fit.accepted_slopes) + ")",
         f"  log-likelihood = {fit.loglik:.4f}, AIC = {fit.aic:.4f}",
     ])
 

@@ -11,6 +11,7 @@ note labels (``EXACT_NOTE``, ``BOTH_SIGNS_NOTE``) are vocabulary of
 from __future__ import annotations
 
 import math
+import re
 from fractions import Fraction
 
 import numpy as np
@@ -24,7 +25,7 @@ __all__ = [
     "dose_caution", "mechanism_caution", "ancestry_caution", "curvature_ok",
     "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "plural", "CAUTION",
     "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
-    "p_text", "format_p", "scope_words", "read_message", "dropped_note",
+    "p_text", "format_p", "calibrated_p_text", "p_floor", "slope_interval_text", "scope_words", "read_message", "dropped_note",
     "pooled_fit_messages", "uncompared_message", "pairwise_skipped_note",
     "means_left_out_note", "extrapolation_note", "inverse_extrapolation_note",
     "unbounded_inverse_note", "diag_method",
@@ -83,9 +84,12 @@ def describe_test(test, *, alpha: float = 0.05) -> str:
         stat = f"t = {test.statistic:.2f}, df = {test.df:g}, "
     elif test.statistic_type == "z":
         stat = f"z = {test.statistic:.2f}, "
+    elif test.statistic_type == "lr":
+        stat = f"LR = {test.statistic:.2f}, parametric bootstrap, "
     else:
         stat = "bootstrap, "
-    return f"The {label} exponent {test.estimate:.3g} {verdict} ({stat}{p_text(test.p_value)})."
+    p = calibrated_p_text(test.p_value, getattr(test, "p_method", ""))
+    return f"The {label} exponent {test.estimate:.3g} {verdict} ({stat}{p})."
 
 
 def p_text(p: float) -> str:
@@ -109,6 +113,82 @@ def format_p(p: float) -> str:
     if p < 1e-4:
         return "< 0.0001"
     return f"{p:.2g}" if p < 0.01 else f"{p:.3f}"
+
+
+_DRAWN = re.compile(r"([a-z_]+)\((\d+)\)")
+
+
+def p_floor(p_method) -> tuple:
+    """The smallest p a resampled test can give, and its number of draws.
+
+    ``p_method`` as written in slope_tests.csv and group_tests.csv:
+    ``"parametric_bootstrap(B)"``, ``"lr_parametric_bootstrap(B)"`` and
+    ``"permutation(B)"`` give p = (1 + #{as extreme})/(B + 1), at least
+    1/(B + 1) (Davison & Hinkley 1997, eq. 4.11; Phipson & Smyth 2010);
+    ``"bootstrap_percentile(B)"`` gives p = 2(1 + #)/(B + 1), at least
+    2/(B + 1).  Any other method: ``(nan, None)``.
+
+    Examples
+    --------
+    >>> p_floor("parametric_bootstrap(999)"), p_floor("t")
+    ((0.001, 999), (nan, None))
+    """
+    match = _DRAWN.fullmatch(str(p_method or "").strip())
+    if not match:
+        return math.nan, None
+    draws = int(match.group(2))
+    floor = (2.0 if match.group(1).startswith("bootstrap_percentile") else 1.0) / (draws + 1)
+    return min(floor, 1.0), draws
+
+
+def calibrated_p_text(p: float, p_method="") -> str:
+    """A p-value in a sentence that says when it sits at the floor of its draws.
+
+    A resampled p (``p_method`` like ``"parametric_bootstrap(999)"`` or
+    ``"permutation(999)"``, see :func:`p_floor`) at its floor is only known
+    to be at most that floor: 'p ≤ 0.001 (999 draws)'.  Every other p is
+    written by :func:`p_text`.
+
+    Examples
+    --------
+    >>> calibrated_p_text(0.001, "parametric_bootstrap(999)")
+    'p ≤ 0.001 (999 draws)'
+    >>> calibrated_p_text(0.004, "permutation(999)"), calibrated_p_text(0.001, "t")
+    ('p = 0.004', 'p = 0.001')
+    """
+    floor, draws = p_floor(p_method)
+    if draws is None or not np.isfinite(p) or p > floor * (1 + 1e-9):
+        return p_text(p)
+    shown = format_p(floor) if floor >= 1e-4 else f"{floor:.1g}"
+    return f"p ≤ {shown} ({draws} draws)"
+
+
+def slope_interval_text(low: float, high: float, gap_low: float = math.nan,
+                        gap_high: float = math.nan, *, fmt=None) -> str:
+    """A slope interval in words: '0.626–0.699', or the two accepted ranges
+    '-2.098 to -0.477 or 0.477 to 2.098' when the gap ``gap_low .. gap_high``
+    (an SMA fit whose correlation is not significant) splits it.
+
+    ``fmt`` writes one number (default: three decimals).
+
+    Examples
+    --------
+    >>> slope_interval_text(0.6261, 0.6994)
+    '0.626–0.699'
+    >>> slope_interval_text(-2.0977, 2.0977, -0.4767, 0.4767)
+    '-2.098 to -0.477 or 0.477 to 2.098'
+    """
+    fmt = fmt or (lambda v: f"{v:.3f}")
+    if np.isfinite(gap_low) and np.isfinite(gap_high):
+        return f"{fmt(low)} to {fmt(gap_low)} or {fmt(gap_high)} to {fmt(high)}"
+    return f"{fmt(low)}–{fmt(high)}"
+
+
+def fit_interval_text(fit, *, fmt=None) -> str:
+    """:func:`slope_interval_text` of a fit object's ``slope_ci`` and gap."""
+    return slope_interval_text(fit.slope_ci.low, fit.slope_ci.high,
+                               getattr(fit, "slope_gap_low", math.nan),
+                               getattr(fit, "slope_gap_high", math.nan), fmt=fmt)
 
 
 def scope_words(scope: str, group: str) -> str:
@@ -141,7 +221,7 @@ def pooled_fit_messages(line_fits: dict, cfg) -> list:
             lam = f" (λ = {fit.lam:.3g})" if fit.lam is not None else ""
             messages.append(
                 f"Pooled {method_label(method)}{lam} exponent {fit.slope:.3f} ({pct} CI "
-                f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}{how}), r² = {fit.r2:.3f}, "
+                f"{fit_interval_text(fit)}{how}), r² = {fit.r2:.3f}, "
                 f"n = {fit.n}.")
             for name, b0 in cfg.exponents.items():
                 test = fit.test_slope(b0, hypothesis=name)
@@ -316,7 +396,7 @@ def bootstrap_message(pooled, line_fits: dict, cfg, *, stratified: bool) -> str:
     for r in pooled.itertuples():
         fit = line_fits[("pooled", "", r.method)]
         parts.append(f"{method_label(r.method)} {r.low:.3f}–{r.high:.3f} (analytic "
-                     f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f})")
+                     f"{fit_interval_text(fit)})")
     return (f"Bootstrap ({rs.bootstrap} resamples{strat}, {kind}, seed {rs.seed}): "
             f"pooled exponent {100 * cfg.model.confidence:g}% CIs "
             + "; ".join(parts) + ". Every fit's bootstrap interval is in "
@@ -351,7 +431,9 @@ def permutation_message(out, cfg) -> list:
         if len(clash):
             shown = "; ".join(
                 f"{scope_words(f.scope, f.group)} {method_label(f.method)} vs {f.hypothesis}: "
-                f"{p_text(f.p_value)} (t), {p_text(f.p_permutation)} (permutation)"
+                f"{p_text(f.p_value)} (t), "
+                f"{calibrated_p_text(f.p_permutation, f'permutation({int(f.n_perm)})')} "
+                "(permutation)"
                 for f in clash.head(3).itertuples())
             more = f" and {len(clash) - 3} more" if len(clash) > 3 else ""
             text += (f"; {len(clash)} test(s) disagree ({shown}{more}). There the t-test "
@@ -555,15 +637,16 @@ def accepted_slopes_note(note: str, slope_high: float, gap_low: float, gap_high:
     Examples
     --------
     >>> accepted_slopes_note(BOTH_SIGNS_NOTE, 2.0, -0.5, 0.5)[len(BOTH_SIGNS_NOTE):]
-    ': the accepted slopes are -2 to -0.5 and 0.5 to 2 (the interval reported is their hull)'
+    ': the accepted slopes are -2 to -0.5 or 0.5 to 2 (slope_low to slope_high is their hull)'
     >>> accepted_slopes_note("", 2.0, math.nan, math.nan)
     ''
     """
     if not (str(note).startswith(BOTH_SIGNS_NOTE) and np.isfinite(gap_low)
             and np.isfinite(gap_high)):
         return note
-    ranges = (f": the accepted slopes are {-slope_high:.4g} to {gap_low:.4g} and "
-              f"{gap_high:.4g} to {slope_high:.4g} (the interval reported is their hull)")
+    text = slope_interval_text(-slope_high, slope_high, gap_low, gap_high,
+                               fmt=lambda v: f"{v:.4g}")
+    ranges = f": the accepted slopes are {text} (slope_low to slope_high is their hull)"
     return BOTH_SIGNS_NOTE + ranges + str(note)[len(BOTH_SIGNS_NOTE):]
 
 
@@ -588,12 +671,14 @@ def fit_notes_column(res: dict) -> np.ndarray:
 def worded_fits(group_fits):
     """The ``fits`` table of a :class:`~scaling.stats.grouped_fits.GroupFits` with each
     SMA note of two accepted ranges written out (:func:`accepted_slopes_note`)."""
-    gaps = group_fits.slope_gaps
-    if gaps is None or not np.isfinite(gaps["slope_gap_low"].to_numpy(dtype=float)).any():
-        return group_fits.fits
-    res = {"note": group_fits.fits["note"].to_numpy(dtype=object),
-           **{k: gaps[k].to_numpy(dtype=float) for k in gaps.columns}}
-    return group_fits.fits.assign(note=fit_notes_column(res))
+    fits = group_fits.fits
+    if not np.isfinite(fits["slope_gap_low"].to_numpy(dtype=float)).any():
+        return fits
+    res = {"note": fits["note"].to_numpy(dtype=object),
+           **{k: fits[k].to_numpy(dtype=float)
+              for k in ("slope_high", "slope_gap_low", "slope_gap_high")}}
+    return fits.assign(note=fit_notes_column(res))
 
 
-__all__ += ["accepted_slopes_note", "fit_note", "fit_notes_column", "worded_fits"]
+__all__ += ["accepted_slopes_note", "fit_note", "fit_notes_column", "worded_fits",
+            "fit_interval_text"]

@@ -283,5 +283,5 @@ def slope_tests(line_fits: dict, cfg, *, phylo_fits=None) -> pd.DataFrame:
             rows.append({"scope": scope, "group": group, "method": method,
                          "hypothesis": name, "exponent": b0, "estimate": fit.slope,
                          "statistic": t.statistic, "statistic_type": t.statistic_type,
-                         "df": t.df, "p_value": t.p_value})
+                         "df": t.df, "p_value": t.p_value, "p_method": t.p_method})
     return pd.DataFrame(rows, columns=SLOPE_TEST_COLUMNS)

@@ -198,5 +198,5 @@ def common_slope_rows(commons: dict, exponents: dict, *, log_base: str) -> tuple
                               "hypothesis": name, "exponent": t.exponent,
                               "estimate": t.estimate, "statistic": t.statistic,
                               "statistic_type": t.statistic_type, "df": t.df,
-                              "p_value": t.p_value})
+                              "p_value": t.p_value, "p_method": t.p_method})
     return fit_rows, test_rows

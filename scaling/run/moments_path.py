@@ -40,7 +40,7 @@ from .table_moments import read_moments
 from ..stats.grouped_fits import fit_groups_from_moments
 from ..stats.lines import METHODS, method_label, parse_log_base
 from ..stats.line_results import line_fit_from_moments
-from ..render.wording import describe_test
+from ..render.wording import describe_test, fit_interval_text
 from ..stats.schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
 
 __all__ = ["use_moments_path", "MomentsStage", "moments_stage", "SpreadStage", "spread_stage",
@@ -282,7 +282,7 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     pct = f"{100 * cfg.model.confidence:g}%"
     for (_, _, method), fit in line_fits.items():
         messages.append(f"Pooled {method_label(method)} exponent {fit.slope:.3f} ({pct} CI "
-                        f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}), r² = {fit.r2:.3f}, "
+                        f"{fit_interval_text(fit)}), r² = {fit.r2:.3f}, "
                         f"n = {fit.n}.")
         for name, b0 in cfg.exponents.items():
             messages.append("  " + describe_test(fit.test_slope(b0, hypothesis=name),

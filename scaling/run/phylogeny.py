@@ -33,7 +33,7 @@ from ..render.wording import fit_note
 from ..stats.fit_rows import fit_row
 from ..stats.lines import method_label
 from ..stats.line_results import line_fit_from_moments
-from ..render.wording import describe_test
+from ..render.wording import describe_test, fit_interval_text
 from ..errors import DataError
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
 
@@ -255,14 +255,13 @@ def phylo_messages(stage: PhyloStage, ordinary: dict, cfg, *, has_groups: bool) 
             lam = (f"Pagel's λ = {fit.lam:.2f} ({pct} profile CI {fit.lam_ci.low:.2f}–"
                    f"{fit.lam_ci.high:.2f}, {fit.lam_estimate.upper()})")
         text = (f"Phylogenetic {label} over tree {tree_name} ({fit.n} species, {lam}): "
-                f"exponent {fit.slope:.3f} ({pct} CI {fit.slope_ci.low:.3f}–"
-                f"{fit.slope_ci.high:.3f})")
+                f"exponent {fit.slope:.3f} ({pct} CI {fit_interval_text(fit)})")
         o = ordinary.get(method)
         if o is not None:
             w_p = fit.slope_ci.high - fit.slope_ci.low
             w_o = o.slope_ci.high - o.slope_ci.low
-            change = (f"; ordinary {label} {o.slope:.3f} ({o.slope_ci.low:.3f}–"
-                      f"{o.slope_ci.high:.3f}, n = {o.n}): the correction moved the exponent "
+            change = (f"; ordinary {label} {o.slope:.3f} ({fit_interval_text(o)}, "
+                      f"n = {o.n}): the correction moved the exponent "
                       f"by {fit.slope - o.slope:+.3f}")
             if np.isfinite(w_p) and np.isfinite(w_o) and w_o > 0:
                 change += (f" and made its interval {abs(w_p / w_o - 1) * 100:.0f}% "

@@ -34,7 +34,8 @@ __all__ = ["apply_model_units", "constant_columns", "SeveralStage", "several_sta
            "exponent_hypotheses", "MULTI_SLOPE_TEST_COLUMNS"]
 
 MULTI_SLOPE_TEST_COLUMNS = ["scope", "group", "method", "term", "hypothesis", "exponent",
-                            "estimate", "statistic", "statistic_type", "df", "p_value"]
+                            "estimate", "statistic", "statistic_type", "df", "p_value",
+                            "p_method"]
 
 
 # --------------------------------------------------------------------------
@@ -328,7 +329,8 @@ def several_stage(cfg, state) -> SeveralStage:
             test_rows.append({"scope": "pooled", "group": "", "method": "ols", "term": t.term,
                               "hypothesis": label, "exponent": t.exponent,
                               "estimate": t.estimate, "statistic": t.statistic,
-                              "statistic_type": "t", "df": t.df, "p_value": t.p_value})
+                              "statistic_type": "t", "df": t.df, "p_value": t.p_value,
+                              "p_method": "t"})
     slope_tests = pd.DataFrame(test_rows, columns=MULTI_SLOPE_TEST_COLUMNS)
     # saved for 'scaling predict' (results.json "saved_fits"): predictions without the data
     saved = {**multi_fit_to_dict(fit), "scope": "pooled", "group": ""}

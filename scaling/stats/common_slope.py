@@ -487,8 +487,11 @@ class CommonSlope:
         Returns
         -------
         SlopeTest
-            ``statistic_type`` "t" on ``df_resid`` = N - G - 1 df; positive
-            when the common slope is above b0.
+            ``statistic_type`` "t" on ``df_resid`` = N - G - 1 df, positive
+            when the common slope is above b0 (``p_method`` "t" for OLS,
+            "lr_t" for the SMA/MA profile statistic); when the p-value comes
+            from the parametric bootstrap, ``statistic_type`` "lr": the
+            statistic is D, df NaN, ``p_method`` "lr_parametric_bootstrap(B)".
 
         Notes
         -----
@@ -521,11 +524,16 @@ class CommonSlope:
                              p_value=float(2 * stats.t.sf(abs(t), self.df_resid)))
         res = _profile_test(self.method, self.profile, b0, self.profile["sums"])
         t, p = float(res["t"][0]), float(res["p"][0])
-        if self.boot_profile is not None and not bool(res["use_corr"][0]):
+        if bool(res["use_corr"][0]):
+            return SlopeTest(**common, statistic=t, p_value=p)
+        if self.boot_profile is not None:
+            # The p is the bootstrap's: report the statistic it calibrates (D).
             d = float(res["excess"][0])
             boot = self.boot_profile
             p = float((1 + np.sum(boot >= d - 1e-9 * (1 + abs(d)))) / (boot.size + 1))
-        return SlopeTest(**common, statistic=t, p_value=p)
+            return SlopeTest(**{**common, "df": math.nan, "statistic_type": "lr"}, statistic=d,
+                             p_value=p, p_method=f"lr_parametric_bootstrap({boot.size})")
+        return SlopeTest(**common, statistic=t, p_value=p, p_method="lr_t")
 
 
 def _common_from_arrays(method, n, mx, my, sxx, syy, sxy, confidence, *, full=False):

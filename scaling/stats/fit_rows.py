@@ -25,9 +25,11 @@ from .schema import FIT_COLUMNS
 
 __all__ = ["ESTIMATE_COLUMNS", "RANGE_COLUMNS", "fit_row", "fit_rows", "fit_values"]
 
-#: The numeric columns of a fit's estimates (blank when the fit is not estimable).
+#: The numeric columns of a fit's estimates (blank when the fit is not estimable;
+#: the slope gap is blank too unless the accepted slopes are two ranges).
 ESTIMATE_COLUMNS = ("slope", "slope_low", "slope_high", "intercept", "intercept_low",
-                    "intercept_high", "r", "r2", "slope_se", "intercept_se", "resid_sd")
+                    "intercept_high", "r", "r2", "slope_se", "intercept_se", "resid_sd",
+                    "slope_gap_low", "slope_gap_high")
 #: The fitted ranges, in natural units (logs when the run has no log base).
 RANGE_COLUMNS = ("x_min", "x_max", "y_min", "y_max")
 
@@ -48,7 +50,8 @@ def fit_values(fit) -> dict:
         out[name] = getattr(fit, value, math.nan)
         ci = getattr(fit, f"{value}_ci", None)
         out[f"{name}_low"], out[f"{name}_high"] = (ci.low, ci.high) if ci is not None else _NAN_PAIR
-    for name in ("r", "r2", "slope_se", "intercept_se", "resid_sd"):
+    for name in ("r", "r2", "slope_se", "intercept_se", "resid_sd", "slope_gap_low",
+                 "slope_gap_high"):
         out[name] = getattr(fit, name, math.nan)
     if hasattr(fit, "log_base"):
         out["log_base"] = base_label(fit.log_base)
@@ -68,7 +71,8 @@ def fit_row(fit=None, *, scope: str = "", group: str = "", x_range=None, y_range
     ----------
     fit : LineFit, PhyloFit or None
         Read for ``method, n``, the estimates and their intervals, ``r``,
-        ``r2``, the standard errors, ``log_base`` (written as its label),
+        ``r2``, the standard errors, the slope gap (``slope_gap_low``,
+        ``slope_gap_high``), ``log_base`` (written as its label),
         ``confidence``, ``note``, ``interval_method`` and (Deming)
         ``deming_lambda``.  None: every value comes from ``columns``.
     scope, group : str

@@ -128,10 +128,6 @@ class GroupFits:
     fits: pd.DataFrame
     slope_tests: pd.DataFrame
     moments: GroupedMoments | None = None
-    #: Row by row with ``fits``: ``slope_high``, ``slope_gap_low``, ``slope_gap_high``
-    #: (the gap of an SMA accepted set of two ranges; NaN otherwise), from which
-    #: render writes the note naming the two ranges.
-    slope_gaps: pd.DataFrame | None = None
 
     def summary(self) -> str:
         """A few lines: groups and fits, and the exponent's quartiles per method."""
@@ -357,16 +353,12 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
                                        exponents=exps, scope=scope)
         return GroupFits(fits=pd.concat([head.fits, body.fits], ignore_index=True),
                          slope_tests=pd.concat([head.slope_tests, body.slope_tests],
-                                               ignore_index=True), moments=gm,
-                         slope_gaps=pd.concat([head.slope_gaps, body.slope_gaps],
-                                              ignore_index=True))
+                                               ignore_index=True), moments=gm)
     m = gm.moments
     g = m.n.size
-    frames, tests, gaps = [], [], []
+    frames, tests = [], []
     for method in methods:
         res = fit_moments(m, method, confidence=confidence)
-        gaps.append(pd.DataFrame({k: np.broadcast_to(res.get(k, np.nan), (g,)) for k in
-                                  ("slope_high", "slope_gap_low", "slope_gap_high")}))
         note = np.asarray(res["note"], dtype=object)
         frames.append(fit_rows(
             g, scope=scope, group=gm.labels.astype(object), method=method,
@@ -374,8 +366,9 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
             log_base=base_label(gm.log_base), confidence=confidence, note=note,
             x_min=gm.x_min, x_max=gm.x_max, y_min=gm.y_min, y_max=gm.y_max,
             interval_method="analytic"))
-        ok = np.isfinite(res["slope"]) & ((note == "") | pd.Series(note).str.contains(
-            "unbounded", regex=False).to_numpy())
+        # Every estimable fit is tested, as in a run (an SMA fit accepting slopes
+        # of either sign and an exact power law included).
+        ok = np.isfinite(res["slope"])
         mk = m[ok]
         for name, b0 in exps.items():
             t, df, p = slope_test_statistic(mk, method, b0)
@@ -386,10 +379,10 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
                 "hypothesis": np.full(k, name, dtype=object), "exponent": np.full(k, b0),
                 "estimate": res["slope"][ok], "statistic": t,
                 "statistic_type": np.full(k, "t", dtype=object), "df": df, "p_value": p,
+                "p_method": np.full(k, "t", dtype=object),
             }, columns=SLOPE_TEST_TABLE_COLUMNS))
     fits = pd.concat(frames, ignore_index=True)
     slope_tests = (pd.concat(tests, ignore_index=True) if tests
                    else pd.DataFrame(columns=SLOPE_TEST_TABLE_COLUMNS))
-    return GroupFits(fits=fits, slope_tests=slope_tests, moments=gm,
-                     slope_gaps=pd.concat(gaps, ignore_index=True))
+    return GroupFits(fits=fits, slope_tests=slope_tests, moments=gm)
 

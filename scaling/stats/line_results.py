@@ -33,6 +33,7 @@ from .schema import EXACT_NOTE, check_confidence, method_label
 
 __all__ = [
     "ConfidenceInterval",
+    "accepted_ranges",
     "LineFit",
     "SlopeTest",
     "fit_line",
@@ -55,6 +56,16 @@ class ConfidenceInterval:
 
     low: float
     high: float
+
+
+def accepted_ranges(ci: ConfidenceInterval, gap_low: float = math.nan,
+                    gap_high: float = math.nan) -> tuple:
+    """The accepted slopes as ranges: ``(ci,)``, or ``ci`` split at the gap
+    ``gap_low .. gap_high`` into two ranges when both ends of the gap are finite."""
+    if np.isfinite(gap_low) and np.isfinite(gap_high):
+        return (ConfidenceInterval(ci.low, float(gap_low)),
+                ConfidenceInterval(float(gap_high), ci.high))
+    return (ci,)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -80,6 +91,12 @@ class SlopeTest:
     p_value : float
         Two-sided.
     statistic_type : str
+    p_method : str
+        How ``p_value`` was got (the vocabulary of
+        :data:`scaling.stats.schema.SLOPE_P_METHODS`): ``"t"``, ``"normal"``,
+        ``"bootstrap_percentile(B)"`` (B finite replicates; p is at least
+        2/(B + 1)), and for a common slope ``"lr_t"`` or
+        ``"lr_parametric_bootstrap(B)"`` (p at least 1/(B + 1)).
     note : str
         ``EXACT_NOTE`` when the points have no residual scatter (then p is 1
         if b0 equals the slope up to rounding and 0 otherwise).
@@ -93,6 +110,7 @@ class SlopeTest:
     df: float
     p_value: float
     statistic_type: str = "t"
+    p_method: str = "t"
     note: str = ""
 
     def to_frame(self):
@@ -101,7 +119,8 @@ class SlopeTest:
             "method": self.method, "hypothesis": self.hypothesis,
             "exponent": self.exponent, "estimate": self.estimate,
             "statistic": self.statistic, "statistic_type": self.statistic_type,
-            "df": self.df, "p_value": self.p_value, "note": self.note,
+            "df": self.df, "p_value": self.p_value, "p_method": self.p_method,
+            "note": self.note,
         }])
 
     def __repr__(self) -> str:
@@ -198,7 +217,9 @@ class LineFit:
     slope_gap_low, slope_gap_high : float
         NaN unless the accepted slopes are two ranges (an SMA fit noted
         ``BOTH_SIGNS_NOTE``): then they are ``slope_ci.low .. slope_gap_low``
-        and ``slope_gap_high .. slope_ci.high``, and ``slope_ci`` is their hull.
+        and ``slope_gap_high .. slope_ci.high``, ``slope_ci`` is their hull
+        and the slopes inside the gap are rejected; :attr:`accepted_slopes`
+        gives the ranges.
     slope_replicates : ndarray or None
         Bootstrap slopes behind a bootstrap interval (used by the test).
     log_data : (ndarray, ndarray) or None
@@ -254,6 +275,31 @@ class LineFit:
     def estimable(self) -> bool:
         return np.isfinite(self.slope)
 
+    @property
+    def accepted_slopes(self) -> tuple:
+        """The slopes :meth:`test_slope` accepts at level ``confidence``, as ranges.
+
+        Returns
+        -------
+        tuple of ConfidenceInterval
+            One range, ``(slope_ci,)``, or two when the accepted set is split
+            (an SMA fit whose correlation is not significant accepts slopes
+            of either sign: ``slope_ci.low .. slope_gap_low`` and
+            ``slope_gap_high .. slope_ci.high``; the gap between them is
+            rejected).
+
+        Examples
+        --------
+        >>> import warnings, scaling
+        >>> with warnings.catch_warnings():
+        ...     warnings.simplefilter("ignore")
+        ...     fit = scaling.fit_line(range(1, 11), [3, 9, 2, 7, 4, 10, 1, 6, 8, 5],
+        ...                            method="sma")
+        >>> [(round(r.low, 3), round(r.high, 3)) for r in fit.accepted_slopes]
+        [(-2.098, -0.477), (0.477, 2.098)]
+        """
+        return accepted_ranges(self.slope_ci, self.slope_gap_low, self.slope_gap_high)
+
     def test_slope(self, exponent: float, *, hypothesis: str = "") -> SlopeTest:
         """Test slope = ``exponent`` (two-sided) with the test behind the interval.
 
@@ -281,21 +327,23 @@ class LineFit:
             interpolation.  The statistic is the share of b* above b0.
         """
         b0 = exponent_value(exponent)
-        kind, df = "t", float(self.df)
+        kind, df, how = "t", float(self.df), "t"
         if not self.estimable:
             t, p = math.nan, math.nan
             if self.method not in METHODS and self.method != "deming":
                 kind, df = ("z" if self.method == "theil_sen" else "boot_share_above"), math.nan
+                how = "normal" if kind == "z" else "bootstrap_percentile"
         elif self.method in METHODS:
             t, df, p = (float(v) for v in slope_test_statistic(self.moments, self.method, b0))
         elif self.method == "deming":
             t, df, p = _deming_test(self.moments, self.lam, b0)
         elif self.method == "theil_sen" and self.log_data is not None:
             t, p = _kendall_slope_test(self.log_data[0], self.log_data[1], b0)
-            kind, df = "z", math.nan
+            kind, df, how = "z", math.nan, "normal"
         elif self.slope_replicates is not None:
             t, p = _bootstrap_slope_test(self.slope_replicates, b0)
-            kind, df = "boot_share_above", math.nan
+            finite = int(np.count_nonzero(np.isfinite(self.slope_replicates)))
+            kind, df, how = "boot_share_above", math.nan, f"bootstrap_percentile({finite})"
         else:
             raise ConfigError(f"the {method_label(self.method)} fit carries neither data nor "
                               "bootstrap replicates, so its slope cannot be tested")
@@ -305,7 +353,7 @@ class LineFit:
         label = exponent.strip() if isinstance(exponent, str) else f"{b0:g}"
         return SlopeTest(method=self.method, hypothesis=hypothesis or label,
                          exponent=b0, estimate=self.slope, statistic=t, df=df,
-                         p_value=p, statistic_type=kind, note=note)
+                         p_value=p, statistic_type=kind, p_method=how, note=note)
 
     def to_frame(self):
         """One tidy row with the column names of ``fits.csv``."""
@@ -498,6 +546,8 @@ def fit_to_dict(fit: LineFit, *, smearing_factor: float | None = None,
         "note": fit.note, "lam": fit.lam, "interval_method": fit.interval_method,
         "smearing_factor": smearing_factor, "ratio_factor": ratio_factor,
     }
+    if np.isfinite(fit.slope_gap_low) and np.isfinite(fit.slope_gap_high):
+        d["slope_gap"] = [fit.slope_gap_low, fit.slope_gap_high]
     return _json_clean(d)
 
 
@@ -528,6 +578,7 @@ def fit_from_dict(d: dict) -> LineFit:
         raise DataError(f"saved fit: {exc}") from None
     mom = {k: (np.nan if v is None else v) for k, v in d["moments"].items()}
     rng = lambda v: None if v is None else (float(v[0]), float(v[1]))  # noqa: E731
+    gap = d.get("slope_gap") or (None, None)
     return LineFit(
         method=d["method"], n=int(d["n"]), slope=_float(d["slope"]),
         slope_ci=ConfidenceInterval(_float(d["slope_ci"][0]), _float(d["slope_ci"][1])),
@@ -541,6 +592,7 @@ def fit_from_dict(d: dict) -> LineFit:
         note=str(d.get("note", "")), lam=d.get("lam"),
         interval_method=str(d.get("interval_method", "analytic")),
         smearing_factor=d.get("smearing_factor"), ratio_factor=d.get("ratio_factor"),
+        slope_gap_low=_gap_value(gap[0]), slope_gap_high=_gap_value(gap[1]),
     )
 
 
@@ -581,9 +633,16 @@ def line_fit_from_result(res: dict, i, m: Moments, method: str, *, confidence: f
         r=float(f["r"]), r2=float(f["r2"]), resid_sd=float(f["resid_sd"]),
         df=float(f["df"]), log_base=log_base, confidence=confidence, moments=m,
         x_range=x_range, y_range=y_range, note=str(note), lam=lam,
-        slope_gap_low=float(f.get("slope_gap_low", math.nan)),
-        slope_gap_high=float(f.get("slope_gap_high", math.nan)),
+        slope_gap_low=_gap_value(f.get("slope_gap_low")),
+        slope_gap_high=_gap_value(f.get("slope_gap_high")),
     )
+
+
+def _gap_value(v) -> float:
+    """A slope-gap end as a float; the one ``math.nan`` when there is none (so
+    records of fits without a gap compare equal)."""
+    v = math.nan if v is None else float(v)
+    return v if math.isfinite(v) else math.nan
 
 
 def fit_line(x, y, *, method: str = "sma", confidence: float = 0.95,

@@ -32,8 +32,11 @@ SMA (standardised major axis)
     together with its mirror image -hi..-lo when it is not; the latter is
     reported as the hull -hi..hi with the note ``BOTH_SIGNS_NOTE`` and the
     gap between the two ranges, -lo..lo, as ``slope_gap_low`` and
-    ``slope_gap_high`` (p = 1 - confidence at all four ends).  Seeded coverage at correlation 0.3:
-    0.945 (n = 8) and 0.950 (n = 20) for the accepted set (tests).
+    ``slope_gap_high`` (p = 1 - confidence at all four ends; fits.csv columns
+    of those names, ``LineFit.accepted_slopes``).  Seeded coverage at
+    correlation 0.3: 0.945 (n = 8) and 0.950 (n = 20) for the accepted set;
+    at 0.2 and n = 10, 0.946: the sign rule loses the samples whose
+    correlation is significant with the wrong sign (tests).
 MA (major axis)
     b is the direction of the first eigenvector of [[Sxx, Sxy], [Sxy, Syy]].
     Test of b = b0: correlation of (Y - b0 X) with (X + b0 Y), t as for SMA.

@@ -95,7 +95,8 @@ from scipy import optimize, stats
 from .fit_rows import fit_values
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError
-from .line_results import ConfidenceInterval, LineFit, SlopeTest, line_fit_from_moments
+from .line_results import (ConfidenceInterval, LineFit, SlopeTest, accepted_ranges,
+                           line_fit_from_moments)
 from .lines import (METHODS, validate_xy, base_label, fit_moments, method_label,
                     parse_log_base, slope_test_statistic, to_log)
 from .moments import Moments
@@ -653,6 +654,12 @@ class PhyloFit:
         """The same line as a :class:`~scaling.stats.line_results.LineFit` (for figures and predictions)."""
         return line_fit_from_moments(self.moments, self.method, confidence=self.confidence,
                                      log_base=self.log_base)
+
+    @property
+    def accepted_slopes(self) -> tuple:
+        """The slopes :meth:`test_slope` accepts, as one range or two (as
+        :attr:`scaling.stats.line_results.LineFit.accepted_slopes`)."""
+        return accepted_ranges(self.slope_ci, self.slope_gap_low, self.slope_gap_high)
 
     def to_record(self) -> dict:
         """One row with the columns of ``fits.csv`` plus lambda, loglik and aic."""

@@ -24,6 +24,7 @@ __all__ = [
     "ROW_METHOD_NAMES", "GROUP_COMPARISON_METHODS", "method_info", "method_label",
     "is_symmetric", "is_moment_method", "check_confidence", "check_lam", "check_exponents",
     "FIT_COLUMNS", "FIT_ACCURACY_COLUMNS", "FIT_CONSTANT_COLUMNS", "FIT_ALL_COLUMNS", "SLOPE_TEST_COLUMNS",
+    "SLOPE_P_METHODS",
     "PERMUTATION_COLUMNS", "SLOPE_TEST_ALL_COLUMNS", "DROPPED_COLUMNS",
     "GROUP_MEANS_COLUMNS", "GROUP_TEST_COLUMNS", "PAIRWISE_COLUMNS",
     "PREDICTION_COLUMNS", "INVERSE_COLUMNS", "DIAGNOSTIC_COLUMNS", "INFLUENCE_COLUMNS",
@@ -150,17 +151,33 @@ def is_moment_method(method: str) -> bool:
 FIT_COLUMNS = ["scope", "group", "method", "n", "slope", "slope_low", "slope_high",
                "intercept", "intercept_low", "intercept_high", "r", "r2", "log_base",
                "confidence", "note", "slope_se", "intercept_se", "resid_sd",
-               "x_min", "x_max", "y_min", "y_max", "interval_method", "deming_lambda"]
+               "x_min", "x_max", "y_min", "y_max", "interval_method", "deming_lambda",
+               "slope_gap_low", "slope_gap_high"]
+#: ``slope_gap_low`` .. ``slope_gap_high`` is blank unless the slopes the test
+#: accepts are two ranges (an SMA fit whose correlation is not significant):
+#: then they are ``slope_low`` .. ``slope_gap_low`` and ``slope_gap_high`` ..
+#: ``slope_high``, and the gap between them is rejected.
 #: ... and the accuracy and back-transformation columns of the prediction stage.
 FIT_ACCURACY_COLUMNS = ["see", "percent_see", "percent_pe", "smearing_factor",
                         "parametric_factor", "ratio_factor"]
 #: The normalisation constant a of y = a x^b in natural units (and its units), and
 #: the predictor a row belongs to (blank with one predictor).
 FIT_CONSTANT_COLUMNS = ["term", "a", "a_low", "a_high", "a_unit"]
-#: All 35 columns of fits.csv (a run with data.tree adds PHYLO columns).
+#: All 37 columns of fits.csv (a run with data.tree adds PHYLO columns).
 FIT_ALL_COLUMNS = FIT_COLUMNS + FIT_ACCURACY_COLUMNS + FIT_CONSTANT_COLUMNS
 SLOPE_TEST_COLUMNS = ["scope", "group", "method", "hypothesis", "exponent", "estimate",
-                      "statistic", "statistic_type", "df", "p_value"]
+                      "statistic", "statistic_type", "df", "p_value", "p_method"]
+#: How a slope test's ``p_value`` was got (slope_tests.csv ``p_method``): the
+#: statistic named by ``statistic_type`` referred to ...
+SLOPE_P_METHODS = {
+    "t": "the t distribution on df degrees of freedom",
+    "normal": "the standard normal distribution (Kendall's S over its SD)",
+    "lr_t": ("the profile likelihood-ratio statistic D of a common slope, as "
+             "t^2 = (nu - 1)(exp(D/nu) - 1) on df = nu - 1 (nu = N - groups)"),
+    "lr_parametric_bootstrap(B)": ("the profile likelihood-ratio statistic D against B "
+                                   "parametric-bootstrap draws of it: (1 + #{D* >= D})/(B + 1)"),
+    "bootstrap_percentile(B)": "the percentile bootstrap of B slope replicates",
+}
 #: Added to slope_tests.csv when resampling.permutations is set.
 PERMUTATION_COLUMNS = ["p_permutation", "n_perm"]
 SLOPE_TEST_ALL_COLUMNS = SLOPE_TEST_COLUMNS + PERMUTATION_COLUMNS
