@@ -410,6 +410,33 @@ class TestAnalysisScale:
         assert res.tests[0]["statistic"] == np.inf and res.tests[0]["p_value"] == 0.0
 
 
+class TestSpreadStage:
+    def test_reml_that_does_not_converge_becomes_a_note(self, tmp_path, monkeypatch):
+        import scaling.stats.spread as spread_module
+        from scaling.io.config import config_from_dict
+        from scaling.run.moments_path import spread_stage
+        from scaling.run.state import RunState
+        from scaling.run.table_moments import fit_frame
+        rng = np.random.default_rng(3)
+        g = np.repeat(np.arange(25), 20)
+        lx = rng.normal(1, 0.5, g.size)
+        df = pd.DataFrame({"x": 10 ** lx, "y": 10 ** (0.75 * lx + rng.normal(0, .1, g.size)),
+                           "g": g.astype(str)})
+        df.to_csv(tmp_path / "d.csv", index=False)
+        cfg = config_from_dict({"data": {"file": "d.csv", "x": "x", "y": "y", "group": "g"},
+                                "model": {"methods": ["sma"]}}, base_dir=tmp_path)
+        fits = fit_frame(df, x="x", y="y", group="g").fits
+        real = spread_module.tau2_reml
+        monkeypatch.setattr(spread_module, "tau2_reml", lambda b, v: real(b, v, max_iter=1))
+        stage = spread_stage(cfg, RunState(data=None, base=10.0, fits=fits))
+        # the run's default interval is Knapp-Hartung, and the warning is kept as a note
+        assert stage.tables["exponent_spread"]["mean_interval"].tolist() == ["knapp_hartung"]
+        assert stage.tables["exponent_spread"]["scale"].tolist() == ["log"]
+        assert len(stage.notes) == 1
+        assert stage.notes[0].startswith("Summary across groups for SMA: REML tau^2 did not "
+                                         "converge in 1 steps")
+
+
 class TestSpreadFromFits:
     def test_uses_estimable_group_rows_of_one_method(self):
         from scaling.run.table_moments import fit_frame
