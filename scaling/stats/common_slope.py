@@ -71,7 +71,7 @@ with ``calibration="auto"`` whenever an SMA/MA slope is shared by two or
 more groups and the smallest has fewer than ``AUTO_BOOTSTRAP_BELOW`` points.
 The F-referred threshold is liberal there: the test of the true common SMA
 slope rejects 0.12 (six groups of 6), 0.087 (of 8) and 0.075 (of 10) of the
-time at nominal 0.05 (MA: 0.13, 0.09, 0.08); calibrated, 0.050 (of 8) and
+time at nominal 0.05 (MA: 0.13, 0.09, 0.08); calibrated, 0.049 (of 8) and
 0.05 (of 10), and 0.06 (of 6: the null variances come from 5 df each); 2000-
 4000 replicates of 39 draws, tests/test_groups.py checks six groups of 8.
 With one group the F-referred interval is exact (Warton et al. 2006) and is
@@ -671,7 +671,7 @@ def common_slope(log_x, log_y, groups, *, method: str = "sma",
     common slope and profile interval (Warton & Weber 2002; see the module
     notes).  With one group these are the ordinary one-group estimates and
     intervals.  Calibration: module notes (the F-referred interval of
-    several small groups covers 0.89-0.93).
+    several small groups covers 0.88-0.93).
 
     Examples
     --------
