@@ -546,7 +546,8 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "pairwise_max": (lambda v, p: _int(v, p, minimum=2), 20),
         "spread_min": (lambda v, p: _int(v, p, minimum=2), 20),
         "spread_tau2": (_choice(("reml", "dl")), "reml"),
-        "spread_interval": (_choice(("z", "knapp_hartung")), "z"),
+        "spread_interval": (_choice(("knapp_hartung", "z", "knapp_hartung_plain")),
+                            "knapp_hartung"),
         "diagnostics_max": (lambda v, p: _int(v, p, minimum=0), 200),
     },
     "prediction": {
@@ -636,7 +637,7 @@ class GroupsConfig:
     pairwise_max: int = _default("groups", "pairwise_max")
     spread_min: int = _default("groups", "spread_min")   # more groups: summary across groups
     spread_tau2: str = _default("groups", "spread_tau2")             # reml | dl
-    spread_interval: str = _default("groups", "spread_interval")     # z | knapp_hartung
+    spread_interval: str = _default("groups", "spread_interval")     # knapp_hartung | z | ...
     diagnostics_max: int = _default("groups", "diagnostics_max")   # more: no per-group checks
 
 

@@ -47,19 +47,27 @@ def point_check_reason(check) -> str:
                      f"group_residuals, not {check.kind!r}")
 
 
+#: How the mean exponent's interval was made, and on which scale the exponents were averaged.
+_SPREAD_INTERVAL_WORDS = {"z": "z", "knapp_hartung": "Knapp-Hartung",
+                          "knapp_hartung_plain": "Knapp-Hartung, untruncated"}
+_SPREAD_SCALE_WORDS = {"log": ", averaged as log|b|", "angle": ", averaged as angles atan(b)"}
+
+
 def spread_summary(spread) -> str:
     """Lines describing an :class:`~scaling.stats.spread.ExponentSpread`.
 
-    The mean exponent with its interval, the between-group SD tau with its
-    Q-profile interval, Cochran's Q and I^2, and one line per hypothesised
-    exponent.
+    The mean exponent with its interval (and the scale the exponents were
+    averaged on), the between-group SD tau with its Q-profile interval,
+    Cochran's Q and I^2, and one line per hypothesised exponent.
     """
     pct = f"{100 * spread.confidence:g}%"
     what = f"{spread.method.upper()} exponents" if spread.method else "exponents"
+    how = _SPREAD_INTERVAL_WORDS.get(spread.mean_interval, spread.mean_interval)
     lines = [
-        f"{what} of {spread.k} groups, random effects ({spread.tau2_method.upper()}):",
+        f"{what} of {spread.k} groups, random effects ({spread.tau2_method.upper()})"
+        f"{_SPREAD_SCALE_WORDS.get(spread.scale, '')}:",
         f"  mean exponent {spread.mean:.4g} ({pct} CI {spread.mean_ci.low:.4g} to "
-        f"{spread.mean_ci.high:.4g}, {spread.mean_interval.replace('_', '-')})",
+        f"{spread.mean_ci.high:.4g}, {how})",
         f"  between-group SD tau {spread.tau:.3g} ({pct} CI {spread.tau_ci.low:.3g} to "
         f"{spread.tau_ci.high:.3g}, Q-profile)",
         f"  heterogeneity Q = {spread.q:.4g} on {spread.q_df:g} df "

@@ -26,6 +26,7 @@ The plain-language sentences are small functions here (to move into
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -33,7 +34,7 @@ import numpy as np
 import pandas as pd
 
 from ..render.wording import worded_fits
-from ..errors import ConfigError, DataError
+from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
 from .table_moments import read_moments
@@ -111,12 +112,20 @@ def spread_stage(cfg, state) -> SpreadStage:
         if method not in SPREAD_METHODS:
             continue
         try:
-            s = spread_from_fits(fits, method, tau2_method=cfg.groups.spread_tau2,
-                                 mean_interval=cfg.groups.spread_interval,
-                                 confidence=cfg.model.confidence, exponents=cfg.exponents)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", DegenerateDataWarning)
+                # SMA/MA exponents are averaged as log|b| / atan b (scale "auto")
+                s = spread_from_fits(fits, method, tau2_method=cfg.groups.spread_tau2,
+                                     mean_interval=cfg.groups.spread_interval,
+                                     confidence=cfg.model.confidence, exponents=cfg.exponents)
         except DataError as exc:
             notes.append(f"No summary across groups for {method.upper()}: {exc}.")
             continue
+        for w in caught:     # a REML iteration that did not converge becomes a note
+            if issubclass(w.category, DegenerateDataWarning):
+                notes.append(f"Summary across groups for {method.upper()}: {w.message}")
+            else:
+                warnings.warn(w.message, w.category, stacklevel=2)
         frames.append(s.to_frame())
         tests.append(s.tests_frame())
         messages.append(spread_sentence(s, word))
