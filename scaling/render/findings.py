@@ -367,6 +367,7 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg,
     messages = []
     if line == "common":
         what = f"the common within-{g_word} {label} model"
+        mixes = "at different elevations"
         how = f"one slope, each {g_word} at its own elevation"
         messages.append(_curvature_words(
             common, f" within {plural_word(g_word)} (common {label} slope, each {g_word} at its "
@@ -378,6 +379,7 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg,
         messages.append(_influence_words(common, point_sets, what, strong, methods))
     elif line == "groups":
         what = f"each {g_word}'s own {label} line"
+        mixes = "whose lines differ"
         messages += _groups_words(groups, what, group_word, dc.alpha)
         rows = sorted({r for d in groups.values() for r in d.influential_rows})
         if rows:
@@ -402,7 +404,7 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg,
         if flagged:
             messages.append(f"The pooled {method_label(pooled.method)} line is not the answer "
                             f"and its own checks flag {', '.join(flagged)}: it mixes "
-                            f"{plural_word(g_word)} at different elevations; read its "
+                            f"{plural_word(g_word)} {mixes}; read its "
                             "predictions with this in mind (diagnostics.csv, scope pooled).")
     es = es_results.get(("pooled", ""))
     if es is not None:
@@ -458,22 +460,22 @@ def _group_curvature(results: dict, method: str, group_word: str, alpha: float) 
 
 
 def _groups_words(groups: dict, what: str, group_word: str, alpha: float) -> list:
-    """Curvature, normality and scatter of each group's own line, counted."""
+    """Curvature, then normality and scatter, of each group's own line, counted."""
     n = len(groups)
     chance = f"(each tested at α = {alpha:g}; by chance alone about {alpha * n:.2g} of {n})"
-    out = []
+    said = {}
     for name, ok in (("curvature", "no detectable curvature on log-log scales"),
                      ("normality", "no detectable departure from normal residuals"),
                      ("constant_variance", "no detectable change in scatter with size")):
         hit = [(g, d.check(name).p_value) for g, d in groups.items() if d.check(name).flagged]
-        head = ("Power law, " if name == "curvature" else "Residuals, ") + what
         if hit:
             listed = ", ".join(f"{g}, {p_text(p)}" for g, p in hit)
-            out.append(f"{head}: {_CHECK_NAMES[name]} in {len(hit)} of {n} {group_word}: "
-                       f"{listed} {chance}.")
+            said[name] = (f"{_CHECK_NAMES[name]} in {len(hit)} of {n} {group_word}: "
+                          f"{listed} {chance}")
         else:
-            out.append(f"{head}: {ok} in any of the {n} {group_word}.")
-    return out
+            said[name] = f"{ok} in any of the {n} {group_word}"
+    return [f"Power law, {what}: {said['curvature']}.",
+            f"Residuals of {what}: {said['normality']}; {said['constant_variance']}."]
 
 
 def _clean_data_words(methods) -> str:
@@ -496,7 +498,7 @@ def _strong_words(points, line: str) -> str:
                 "verdict when left out: the answer names it; check it first "
                 "(points_to_check.csv).")
     strong = mine[mine["kind"] == "influence"]
-    if len(strong):
+    if len(strong):   # strong, but none moves the answer
         rows = _rows_words(strong["row"].tolist())
         return (f"{rows} {'is' if len(strong) == 1 else 'are'} strong (Cook's distance "
                 "> 1, or a change of more than one standard error), though leaving "

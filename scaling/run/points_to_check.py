@@ -139,8 +139,10 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
         table["row"] = table["row"].astype("Int64")
     if not len(table):
         return table, warn
-    infl = table[table["kind"].isin(["moves_answer", "influence"])]
-    infl = infl.sort_values("kind", key=lambda k: k != "moves_answer", kind="stable")
+    # a row that moves the answer is named by the answer; listed here only when it has
+    # no strong influence row of its own
+    infl = table[(table["kind"] == "influence") | ((table["kind"] == "moves_answer") & ~table[
+        "row"].isin(table.loc[table["kind"] == "influence", "row"]))]
     for r in infl.head(MAX_LISTED).itertuples(index=False):
         warn.append(f"STRONG — {_scope_words(r.scope, r.group)} {method_label(r.method)}: "
                     f"{r.reason}")
@@ -240,25 +242,26 @@ def _stated(state, scope: str, group: str, method: str, hyps) -> tuple:
 
 
 def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slope_without,
-             after, hyps, exponent_of="", evidence=None) -> tuple | None:
-    """The row of point ``i``: ``moves_answer`` when refitting the answer without it moves
-    the answer, else its own strong ``evidence`` ((scope, group, PointCheck) or None: the
-    answer's model's numbers)."""
+             after, hyps, exponent_of="", evidence=None) -> list:
+    """The rows of point ``i``: its own strong ``evidence`` ((scope, group, PointCheck);
+    None: the answer's model's numbers; False: none), then ``moves_answer`` when refitting
+    the answer without it moves the answer."""
     rows = _rows_of(sel)
     label = str(sel["unit"].iloc[i]) if "unit" in sel else ""
     common = dict(severity="strong", row=int(rows[i]), label=label, value=float(cook),
                   method=method, slope=float(slope), slope_without=float(slope_without),
                   slope_se=float(se))
+    out = []
+    if evidence is None:
+        out.append((scope, group, method, PointCheck(kind="influence", **common)))
+    elif evidence is not False:
+        out.append((evidence[0], evidence[1], method, evidence[2]))
     if moves_answer(slope, se, slope_without, before, after):
         changes = tuple((t, a, b) for (t, _), a, b in zip(hyps, before, after) if a != b)
-        return scope, group, method, PointCheck(
+        out.append((scope, group, method, PointCheck(
             kind="moves_answer", context=_context(cfg, sel, i), exponent_of=exponent_of,
-            changes=changes, **common)
-    if evidence is None:
-        return scope, group, method, PointCheck(kind="influence", **common)
-    if evidence is False:
-        return None
-    return evidence[0], evidence[1], method, evidence[2]
+            changes=changes, **common)))
+    return out
 
 
 def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps) -> list:
@@ -277,10 +280,10 @@ def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps) -> 
                        log_base=None)
         after = tuple(verdict_code(fit.slope, b0, fit.test_slope(b0).p_value,
                                    1 - cfg.model.confidence) for _, b0 in hyps)
-        out.append(_finding(cfg, sel, i, scope=scope, group=group, method=method,
-                            cook=inf["cook"][i], slope=slope, se=se, before=before,
-                            slope_without=fit.slope, after=after, hyps=hyps,
-                            exponent_of=group if scope == "group" else ""))
+        out += _finding(cfg, sel, i, scope=scope, group=group, method=method,
+                        cook=inf["cook"][i], slope=slope, se=se, before=before,
+                        slope_without=fit.slope, after=after, hyps=hyps,
+                        exponent_of=group if scope == "group" else "")
     return out
 
 
@@ -332,10 +335,8 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
         after = tuple(verdict_code(without, b0, c.test_slope(b0).p_value if c is not None
                                    else np.nan, 1 - cfg.model.confidence) for _, b0 in hyps)
         strong_here = bool(par["cook"][k] > COOK_STRONG)
-        found = _finding(cfg, sel, k, scope="common", group="", method=method,
-                         cook=float(par["cook"][k]), slope=slope, se=se, before=before,
-                         slope_without=without, after=after, hyps=hyps,
-                         evidence=None if strong_here else own.get(k, False))
-        if found is not None:
-            out.append(found)
+        out += _finding(cfg, sel, k, scope="common", group="", method=method,
+                        cook=float(par["cook"][k]), slope=slope, se=se, before=before,
+                        slope_without=without, after=after, hyps=hyps,
+                        evidence=None if strong_here else own.get(k, False))
     return out

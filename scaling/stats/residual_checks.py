@@ -539,7 +539,7 @@ def parallel_lines_influence(log_x, log_y, groups) -> dict:
         raise DataError("log_x does not vary within groups: nothing to diagnose")
     b = float(np.sum(xt * yt) / S)
     e = yt - b * xt
-    df = n - G - 2
+    df = n - G - 1
     rss = float(np.sum(e * e))
     exact = bool(rss <= EXACT_FIT_TOL * float(np.sum(yt * yt)))
     h = 1.0 / counts[codes] + xt * xt / S
