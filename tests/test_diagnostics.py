@@ -459,3 +459,107 @@ class TestPointsToCheck:
     def test_too_few(self):
         with pytest.raises(DataError, match="at least 4 rows for points_to_check"):
             points_to_check([1, 2, 3], [1, 2, 3])
+
+
+# --------------------------------------------------------------------------
+# the parallel-lines model (common slope, each group its own elevation)
+
+
+def _clades(seed: int, per=(5, 6, 7, 8)):
+    """Four clades, one exponent 0.75, elevations shifted (invented, known truth)."""
+    rng = np.random.default_rng(seed)
+    g = np.repeat(np.array(list("abcd")), per)
+    code = np.repeat(np.arange(4), per)
+    lx = 0.8 * code + rng.uniform(0, 1.5, g.size)
+    ly = 0.75 * lx + np.array([0.0, 0.3, 0.3, 0.0])[code] + rng.normal(0, 0.1, g.size)
+    return lx, ly, g
+
+
+class TestParallelLinesChecks:
+    def test_equal_statsmodels_ols_with_group_dummies(self):
+        import pandas as pd
+        import statsmodels.formula.api as smf
+        from statsmodels.stats.diagnostic import het_breuschpagan
+        from statsmodels.stats.outliers_influence import OLSInfluence
+        from scaling.stats.residual_checks import diagnose_parallel, within_quadratic_t
+
+        lx, ly, g = _clades(5)
+        frame = pd.DataFrame({"x": lx, "y": ly, "g": g})
+        quad = smf.ols("y ~ C(g) + x + I(x**2)", frame).fit()
+        lines = smf.ols("y ~ C(g) + x", frame).fit()
+        q = within_quadratic_t(lx, ly, g)
+        # reference library: statsmodels OLS with one dummy per group and a quadratic term
+        assert_allclose(q["quadratic"], quad.params["I(x ** 2)"], rtol=1e-9)
+        assert_allclose(q["linear"], quad.params["x"], rtol=1e-9)
+        assert_allclose(q["statistic"], quad.tvalues["I(x ** 2)"], rtol=1e-9)
+        assert_allclose(q["p_value"], quad.pvalues["I(x ** 2)"], rtol=1e-9)
+        assert q["df"] == quad.df_resid
+        d = diagnose_parallel(lines.params["x"], lx, ly, g, method="ols", alpha=0.05)
+        # residuals, Cook's distance: statsmodels OLS C(g) + x and its OLSInfluence
+        assert_allclose(d.residuals, lines.resid, atol=1e-12)
+        assert_allclose(d.cooks_distance, OLSInfluence(lines).cooks_distance[0], rtol=1e-9)
+        # normality: scipy.stats.shapiro; constant variance: statsmodels het_breuschpagan
+        # on regressors (1, log x), both on the same residuals
+        sw = stats.shapiro(lines.resid)
+        assert_allclose(d.check("normality").p_value, sw.pvalue, rtol=1e-9)
+        lm, p_bp, _, _ = het_breuschpagan(lines.resid, np.column_stack([np.ones(lx.size), lx]))
+        assert_allclose(d.check("constant_variance").statistic, lm, rtol=1e-9)
+        assert_allclose(d.check("constant_variance").p_value, p_bp, rtol=1e-9)
+        assert_allclose(d.check("curvature").p_value, quad.pvalues["I(x ** 2)"], rtol=1e-9)
+
+    def test_slope_change_is_statsmodels_dfbeta(self):
+        import pandas as pd
+        import statsmodels.formula.api as smf
+        from statsmodels.stats.outliers_influence import OLSInfluence
+        from scaling.stats.residual_checks import parallel_lines_influence
+
+        lx, ly, g = _clades(6)
+        lines = smf.ols("y ~ C(g) + x", pd.DataFrame({"x": lx, "y": ly, "g": g})).fit()
+        inf = parallel_lines_influence(lx, ly, g)
+        # statsmodels' dfbeta is b - b_(-i); ours is b_(-i) - b
+        assert_allclose(inf["slope_change"], -OLSInfluence(lines).dfbeta[:, -1], atol=1e-12)
+        assert_allclose(inf["slope_se"], lines.bse["x"], rtol=1e-9)
+
+    def test_sma_residuals_are_the_stated_lines_through_group_centroids(self):
+        from scaling.stats.residual_checks import diagnose_parallel
+
+        lx, ly, g = _clades(7)
+        d = diagnose_parallel(0.8, lx, ly, g, method="sma")
+        for k in "abcd":
+            s = g == k
+            # exact law: a line of slope b through the group centroid
+            expect = ly[s] - (ly[s].mean() + 0.8 * (lx[s] - lx[s].mean()))
+            assert_allclose(d.residuals[s], expect, atol=1e-12)
+
+    def test_curvature_false_alarms_at_alpha_with_elevation_shifts(self):
+        from scaling.stats.residual_checks import quadratic_t, within_quadratic_t
+
+        # simulation with a known truth: four clades share exponent 0.75 with no curvature;
+        # the middle clades sit 0.3 higher; 2000 replicates in one array pass
+        rng = np.random.default_rng(20240519)
+        R, per = 2000, 12
+        code = np.repeat(np.arange(4), per)
+        lx = 0.8 * code + rng.uniform(0, 1.5, (R, code.size))
+        ly = (0.75 * lx + np.array([0.0, 0.3, 0.3, 0.0])[code]
+              + rng.normal(0, 0.1, (R, code.size)))
+        rate = np.mean(within_quadratic_t(lx, ly, code)["p_value"] < 0.05)
+        # size of an exact t test: 0.05 +- 0.015 (3 binomial SEs, sqrt(.05 .95 / 2000) = 0.005)
+        assert abs(rate - 0.05) <= 0.015
+        # the pooled quadratic test reads the elevation shifts as curvature (observed 0.99)
+        pooled = np.mean(quadratic_t(lx, ly)["p_value"] < 0.05)
+        assert pooled > 0.5
+
+    def test_exact_parallel_lines_are_not_checked(self):
+        from scaling.stats.residual_checks import diagnose_parallel
+
+        lx, _, g = _clades(8)
+        ly = 0.75 * lx + (g == "b") * 0.2    # exact law: parallel lines, no scatter
+        d = diagnose_parallel(0.75, lx, ly, g)
+        assert {c.finding for c in d.checks} == {"exact_fit"}
+
+    def test_too_small_groups_are_refused(self):
+        from scaling.errors import DataError
+        from scaling.stats.residual_checks import diagnose_parallel
+
+        with pytest.raises(DataError, match="at least 2 points"):
+            diagnose_parallel(1.0, [0, 1, 2, 3, 4], [0, 1, 2, 3, 5], list("aaaab"))

@@ -186,7 +186,7 @@ def demo(tmp_path_factory):
 class TestDemoHeadline:
     def test_first_sentences_give_the_common_exponent_and_the_pooled_bias(self, demo):
         head = headline_of(demo)
-        s1, s2, s3 = head.sentences
+        s1, s2, s3 = head.sentences[:3]     # a fourth names a row that moves the answer
         m = re.search(r"common SMA exponent is (\d\.\d+) \(95% CI (\d\.\d+)–(\d\.\d+)", s1)
         assert m and s1.startswith("Within clades")
         low, high = float(m.group(2)), float(m.group(3))
@@ -331,3 +331,56 @@ class TestCalibratedPAtItsFloor:
         words = [md, html, *demo.messages, *headline_of(demo).sentences]
         assert not any("p = 0.001" in text for text in words)
         assert "p ≤ 0.001 (999 draws)" in md and "p ≤ 0.001 (999 draws)" in html
+
+
+class TestInfluenceSentence:
+    def test_names_the_row_its_values_and_the_move(self):
+        from scaling.render.headline import influence_sentence
+        said = influence_sentence(35, (("stem_mm", 4.1), ("habitat", "shade")), slope=1.845,
+                                  slope_without=1.818)
+        assert said == ("Row 35 (stem_mm 4.1, habitat shade) moves this exponent from 1.845 "
+                        "to 1.818: check it first.")
+
+    def test_a_changed_verdict_and_a_group_exponent(self):
+        from scaling.render.headline import influence_sentence
+        said = influence_sentence(7, (("", "sp_a"),), slope=0.76, slope_without=0.74,
+                                  changes=(("3/4", "not_different", "below"),),
+                                  exponent_of="shade")
+        assert said == ("Row 7 (sp_a) moves the shade exponent from 0.760 to 0.740 and its "
+                        "verdict against 3/4 from not different to below: check it first.")
+
+    def test_headline_of_appends_the_moves_answer_rows(self, demo):
+        from dataclasses import replace
+        from scaling.render.headline import headline_of
+        points = pd.DataFrame({"scope": ["common", "common"], "group": ["", ""],
+                               "method": ["sma", "sma"], "severity": ["strong", "strong"],
+                               "kind": ["moves_answer", "moves_answer"], "row": [3, 9],
+                               "label": ["", ""], "value": [2.0, 1.5],
+                               "reason": ["Row 3 (x 1) moves this exponent from 0.700 to "
+                                          "0.800: check it first.", "Row 9 ..."]})
+        head = headline_of(replace(demo, tables={**demo.tables, "points_to_check": points}))
+        assert head.sentences[-1] == ("Row 3 (x 1) moves this exponent from 0.700 to 0.800; "
+                                      "1 more row moves it too (points_to_check.csv): check "
+                                      "them first.")
+
+
+class TestAnswerLine:
+    def _tests(self, p_slope):
+        return pd.DataFrame({"method": ["sma"] * 3, "test": ["slopes_equal", "intercepts_equal",
+                                                             "shift_along_axis"],
+                             "p_value": [p_slope, 0.001, 0.2]})
+
+    def test_the_rule_of_the_headline(self):
+        from scaling.render.headline import answer_line
+        assert answer_line(None, ["ols", "sma"]) == ("pooled", "sma")
+        assert answer_line(self._tests(0.4), ["ols", "sma"]) == ("common", "sma")
+        assert answer_line(self._tests(0.01), ["ols", "sma"]) == ("groups", "sma")
+        assert answer_line(self._tests(0.4), ["ols", "deming"]) == ("common", "sma")
+
+    def test_agrees_with_the_demo_headline(self, demo):
+        from scaling.render.headline import answer_line
+        head = headline_of(demo)
+        cfg = demo.config
+        # internal consistency: the checks and the headline read the same model
+        assert answer_line(demo.tables["group_tests"], cfg.model.methods, cfg.model.primary,
+                           cfg.model.confidence) == (head.line, head.primary)

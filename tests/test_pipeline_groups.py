@@ -85,3 +85,62 @@ class TestAnalyseExactAndOnePointGroups:
         assert means["note"].str.contains("solo \\(n = 1 < 3\\)").all()
         assert "solo (n = 1 < 3)" in " ".join(res.messages)   # left out of comparisons too
         assert len(res.tables["group_means"]) == 6   # the means table lists every group
+
+
+def _forest(seed: int = 11) -> pd.DataFrame:
+    """Stem diameter (mm) and dry biomass (g) of trees in four habitats (invented, known
+    truth: biomass = 0.05 D^2.4, habitats at different elevations, log10 SD 0.08)."""
+    rng = np.random.default_rng(seed)
+    habitat = np.repeat(["edge", "gap", "shade", "sun"], 15)
+    d = 10 ** rng.uniform(np.log10(5), np.log10(60), habitat.size)
+    shift = pd.Series(habitat).map({"edge": 0.0, "gap": 0.12, "shade": 0.1, "sun": -0.05})
+    log_b = (np.log10(0.05) + 2.4 * np.log10(d) + shift.to_numpy()
+             + rng.normal(0, 0.08, habitat.size))
+    return pd.DataFrame({"stem_mm": d, "biomass_g": 10 ** log_b, "habitat": habitat})
+
+
+class TestChecksFollowTheAnswer:
+    def _run(self, tmp_path, table, methods=("ols",)):
+        path = tmp_path / "trees.csv"
+        table.to_csv(path, index=False)
+        cfg = config_from_dict({"data": {"file": str(path), "x": "stem_mm", "y": "biomass_g",
+                                         "group": "habitat"},
+                                "model": {"methods": list(methods)},
+                                "exponents": {"square": 2, "truth": 2.4},
+                                "diagnostics": {"error_structure": False},
+                                "output": {"dir": str(tmp_path / "out")}}, base_dir=tmp_path)
+        return analyse(cfg)
+
+    def test_a_planted_typo_is_named_in_the_answer(self, tmp_path):
+        from scaling.render.headline import headline_of
+
+        table = _forest()
+        i = table.loc[table["habitat"] == "shade", "stem_mm"].idxmax()
+        table.loc[i, "stem_mm"] /= 10          # a value in cm among mm
+        res = self._run(tmp_path, table)
+        head = headline_of(res)
+        assert head.line == "common"
+        said = head.sentences[-1]
+        # dropped_rows.csv numbering: row 1 is the first line after the header
+        assert said.startswith(f"Row {i + 1} (stem_mm {table.loc[i, 'stem_mm']:.3g}, "
+                               "habitat shade) moves this exponent from ")
+        assert said.endswith(": check it first.")
+        moved = res.tables["points_to_check"].query("kind == 'moves_answer'")
+        assert moved["row"].tolist() == [i + 1] and moved["scope"].tolist() == ["common"]
+        text = " ".join(res.messages)
+        assert "common in clean data" not in text.split("Influence:")[1].split("\n")[0]
+
+    def test_clean_data_name_no_row_and_checks_read_the_common_model(self, tmp_path):
+        from scaling.render.headline import headline_of
+
+        res = self._run(tmp_path, _forest())
+        assert len(headline_of(res).sentences) == 3
+        diag = res.tables["diagnostics"]
+        # the answer's model (scope common) is checked beside the pooled line
+        assert set(diag.loc[diag["scope"] == "common", "check"]) == {
+            "normality", "constant_variance", "curvature", "influence"}
+        assert {"pooled", "group"} <= set(diag["scope"])
+        assert "common" in set(res.tables["curvature"]["scope"])
+        text = "\n".join(res.messages)
+        assert "Power law within habitats (common OLS slope" in text
+        assert "Residuals of the common within-habitat OLS model" in text

@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..stats.schema import EXACT_LINE_NOTE, EXACT_NOTE, ROW_METHOD_NAMES, method_label
+from .headline import influence_sentence
 from .wording import (curvature_ok, diag_method, error_structure_words,
                       estimate_outside_reason, format_p, group_residuals_reason,
                       influence_reason, p_text, smearing_reason, calibrated_p_text)
@@ -37,14 +38,18 @@ def point_check_reason(check) -> str:
         return influence_reason(check.row, check.label, cook=check.value, slope=check.slope,
                                 slope_without=check.slope_without, se=check.slope_se,
                                 method=check.method)
+    if check.kind == "moves_answer":
+        return influence_sentence(check.row, check.context, slope=check.slope,
+                                  slope_without=check.slope_without, changes=check.changes,
+                                  exponent_of=check.exponent_of)
     if check.kind == "smearing":
         return smearing_reason(check.smearing_factor, check.parametric_factor, check.limit)
     if check.kind == "outside_interval":
         return estimate_outside_reason(check.label, check.value, check.low, check.high)
     if check.kind == "group_residuals":
         return group_residuals_reason(check.statistic, check.df1, check.df2, check.value)
-    raise ValueError(f"kind must be one of influence, smearing, outside_interval, "
-                     f"group_residuals, not {check.kind!r}")
+    raise ValueError(f"kind must be one of influence, moves_answer, smearing, "
+                     f"outside_interval, group_residuals, not {check.kind!r}")
 
 
 #: How the mean exponent's interval was made, and on which scale the exponents were averaged.
@@ -327,64 +332,89 @@ def error_structure_verdict(es) -> str:
             f"{add.b:.3g} (the log-scale fit gives {mult.b:.3g})")
 
 
-def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg) -> list:
-    """The plain-language verdicts of the diagnostics stage.
+def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg, *,
+                         answer: tuple | None = None, points=None) -> list:
+    """The plain-language verdicts of the diagnostics stage, for the answer's model.
 
-    ``results``: ``(scope, group, method) -> Diagnosis``; ``es_results``:
-    ``(scope, group) -> ErrorStructure``; ``point_sets``: ``(scope, group) ->
-    points``.
+    Parameters
+    ----------
+    results : dict
+        ``(scope, group, method) -> Diagnostics`` (scope ``common`` for the
+        parallel-lines model of the common slope).
+    es_results : dict
+        ``(scope, group) -> ErrorStructure``.
+    point_sets : dict
+        ``(scope, group) -> points``.
+    cfg : Config
+    answer : (line, method), optional
+        The answer's model (:func:`scaling.render.headline.answer_line`):
+        ``"pooled"``, ``"common"`` or ``"groups"``.  Default: the pooled line
+        of the method whose residuals the pooled checks read.
+    points : DataFrame, optional
+        ``points_to_check``: rows of kind ``moves_answer`` (or strong
+        ``influence`` rows of the answer's model) replace the reassurance
+        that flags at 4/n are common in clean data.
     """
     dc = cfg.diagnostics
-    messages = []
-    methods = [m for m in cfg.model.methods]
-    key_method = diag_method(methods)
-    pooled = results.get(("pooled", "", key_method)) or next(
-        (d for (s, _, _), d in results.items() if s == "pooled"), None)
+    methods = list(cfg.model.methods)
+    line, method = answer if answer is not None else ("pooled", diag_method(methods))
+    g_word = str(cfg.data.group) if cfg.data.group else "group"
     group_word = f"{cfg.data.group} groups" if cfg.data.group else "groups"
-    if pooled is None:
-        messages.append("Diagnostics: too few points (fewer than 4) to check the pooled line.")
-        return messages
-    curv = pooled.check("curvature")
-    if curv.flagged:
-        c = pooled.curvature
-        xs = [f"{t:g} at x ≈ {x:.3g}" for t, x, inside in c.crossings if inside]
-        where = (f"; the local exponent reaches {', '.join(xs)}" if xs else "")
-        messages.append(f"Power law: NOT a straight line on log-log scales — {check_verdict(curv)}"
-                        f"{where}. One exponent summarises these data only roughly; see "
-                        "curvature.csv.")
-    else:
-        messages.append(curvature_ok(check_verdict(curv)))
-    g_curved = [(g, d.check("curvature").p_value) for (s, g, m), d in results.items()
-                if s == "group" and m == pooled.method and d.check("curvature").flagged]
-    n_groups = sum(1 for (s, g, m) in results if s == "group" and m == pooled.method)
-    if n_groups:
-        if g_curved:
-            listed = ", ".join(f"{g}, {p_text(p)}" for g, p in g_curved)
-            messages.append(f"  Within {group_word}: curvature in {len(g_curved)} of {n_groups}: "
-                            f"{listed} (each tested at α = {dc.alpha:g}; by chance alone about "
-                            f"{dc.alpha * n_groups:.2g} of {n_groups} would be flagged).")
+    pooled = results.get(("pooled", "", method)) or results.get(
+        ("pooled", "", diag_method(methods))) or next(
+        (d for (s, _, _), d in results.items() if s == "pooled"), None)
+    common = results.get(("common", "", method)) if line == "common" else None
+    groups = {g: d for (s, g, m), d in results.items() if s == "group" and m == method}
+    if line == "common" and common is None:
+        line = "pooled"
+    if line == "groups" and not groups:
+        line = "pooled"
+    if line == "pooled" and pooled is None:
+        return ["Diagnostics: too few points (fewer than 4) to check the pooled line."]
+    label = method_label(method if line != "pooled" else pooled.method)
+    strong = _strong_words(points, line)
+    messages = []
+    if line == "common":
+        what = f"the common within-{g_word} {label} model"
+        mixes = "at different elevations"
+        how = f"one slope, each {g_word} at its own elevation"
+        messages.append(_curvature_words(
+            common, f" within {plural_word(g_word)} (common {label} slope, each {g_word} at its "
+                    "own elevation)"))
+        messages += _group_curvature(results, method, group_word, dc.alpha)
+        messages.append(f"Residuals of {what} ({how}): "
+                        f"{check_verdict(common.check('normality'))}; "
+                        f"{check_verdict(common.check('constant_variance'))}.")
+        messages.append(_influence_words(common, point_sets, what, strong, methods))
+    elif line == "groups":
+        what = f"each {g_word}'s own {label} line"
+        mixes = "whose lines differ"
+        messages += _groups_words(groups, what, group_word, dc.alpha)
+        rows = sorted({r for d in groups.values() for r in d.influential_rows})
+        if rows:
+            messages.append(f"Influence: {len(rows)} point(s) pull {what} more than usual "
+                            f"(Cook's distance > 4/n): row {', '.join(map(str, rows[:4]))}"
+                            + (f" and {len(rows) - 4} more" if len(rows) > 4 else "")
+                            + ". " + (strong or _clean_data_words(methods)))
         else:
-            messages.append(f"  Within {group_word}: no detectable curvature in any of the "
-                            f"{n_groups}.")
-    label = method_label(pooled.method)
-    normal, spread = pooled.check("normality"), pooled.check("constant_variance")
-    messages.append(f"Residuals of the pooled {label} line: {check_verdict(normal)}; {check_verdict(spread)}.")
-    infl = pooled.check("influence")
-    if infl.flagged:
-        rows = list(pooled.influential_rows)
-        sel = point_sets[("pooled", "")]
-        unit = dict(zip(sel["row"].tolist(), sel["unit"].astype(str))) if "unit" in sel else {}
-        shown = ", ".join(f"row {r}" + (f" ({unit[r]})" if r in unit else "") for r in rows[:4])
-        more = f" and {len(rows) - 4} more" if len(rows) > 4 else ""
-        messages.append(f"Influence: {len(rows)} point(s) pull the pooled line more than "
-                        f"usual (Cook's distance > 4/n): {shown}{more}. Such flags are common "
-                        "in clean data; check them in influential_rows.csv"
-                        + ("." if any(m in ROW_METHOD_NAMES for m in methods) else
-                           ", or add a robust line (sma_robust, theil_sen) to model.methods "
-                           "to see whether the exponent moves."))
+            messages.append(f"Influence: no point pulls {what} unduly "
+                            "(all Cook's distances ≤ 4/n).")
     else:
-        messages.append("Influence: no point pulls the pooled line unduly "
-                        "(all Cook's distances ≤ 4/n).")
+        messages.append(_curvature_words(pooled, ""))
+        messages += _group_curvature(results, pooled.method, group_word, dc.alpha)
+        normal, spread = pooled.check("normality"), pooled.check("constant_variance")
+        messages.append(f"Residuals of the pooled {label} line: {check_verdict(normal)}; "
+                        f"{check_verdict(spread)}.")
+        messages.append(_influence_words(pooled, point_sets, "the pooled line", strong,
+                                         methods))
+    if line != "pooled" and pooled is not None:
+        flagged = [f"{_CHECK_NAMES[c.check]} ({p_text(c.p_value)})" for c in pooled.checks
+                   if c.flagged and c.check != "influence"]
+        if flagged:
+            messages.append(f"The pooled {method_label(pooled.method)} line is not the answer "
+                            f"and its own checks flag {', '.join(flagged)}: it mixes "
+                            f"{plural_word(g_word)} {mixes}; read its "
+                            "predictions with this in mind (diagnostics.csv, scope pooled).")
     es = es_results.get(("pooled", ""))
     if es is not None:
         messages.append("Error structure: " + error_structure_words(es))
@@ -399,3 +429,109 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg)
                 text += f" ({'; '.join(other)})"
             messages.append(text + (" — small groups rarely decide this." if other else "."))
     return messages
+
+
+_CHECK_NAMES = {"curvature": "curvature", "normality": "non-normal residuals",
+                "constant_variance": "scatter changing with size"}
+
+
+def plural_word(word: str) -> str:
+    """'clades' for 'clade', 'species' for 'species' (the group word in sentences)."""
+    return word if word.endswith("s") else word + "s"
+
+
+def _curvature_words(d, where: str) -> str:
+    curv = d.check("curvature")
+    if not curv.flagged:
+        if not where:
+            return curvature_ok(check_verdict(curv))
+        return (f"Power law{where}: {check_verdict(curv)}, so there is no evidence against "
+                "one exponent within the data range.")
+    c = d.curvature
+    xs = [f"{t:g} at x ≈ {x:.3g}" for t, x, inside in c.crossings if inside]
+    at = f"; the local exponent reaches {', '.join(xs)}" if xs else ""
+    return (f"Power law{where}: NOT a straight line on log-log scales — {check_verdict(curv)}"
+            f"{at}. One exponent summarises these data only roughly; see curvature.csv.")
+
+
+def _group_curvature(results: dict, method: str, group_word: str, alpha: float) -> list:
+    g_curved = [(g, d.check("curvature").p_value) for (s, g, m), d in results.items()
+                if s == "group" and m == method and d.check("curvature").flagged]
+    n_groups = sum(1 for (s, g, m) in results if s == "group" and m == method)
+    if not n_groups:
+        return []
+    if g_curved:
+        listed = ", ".join(f"{g}, {p_text(p)}" for g, p in g_curved)
+        return [f"  Within {group_word}: curvature in {len(g_curved)} of {n_groups}: "
+                f"{listed} (each tested at α = {alpha:g}; by chance alone about "
+                f"{alpha * n_groups:.2g} of {n_groups} would be flagged)."]
+    return [f"  Within {group_word}: no detectable curvature in any of the {n_groups}."]
+
+
+def _groups_words(groups: dict, what: str, group_word: str, alpha: float) -> list:
+    """Curvature, then normality and scatter, of each group's own line, counted."""
+    n = len(groups)
+    chance = f"(each tested at α = {alpha:g}; by chance alone about {alpha * n:.2g} of {n})"
+    said = {}
+    for name, ok in (("curvature", "no detectable curvature on log-log scales"),
+                     ("normality", "no detectable departure from normal residuals"),
+                     ("constant_variance", "no detectable change in scatter with size")):
+        hit = [(g, d.check(name).p_value) for g, d in groups.items() if d.check(name).flagged]
+        if hit:
+            listed = ", ".join(f"{g}, {p_text(p)}" for g, p in hit)
+            said[name] = (f"{_CHECK_NAMES[name]} in {len(hit)} of {n} {group_word}: "
+                          f"{listed} {chance}")
+        else:
+            said[name] = f"{ok} in any of the {n} {group_word}"
+    return [f"Power law, {what}: {said['curvature']}.",
+            f"Residuals of {what}: {said['normality']}; {said['constant_variance']}."]
+
+
+def _clean_data_words(methods) -> str:
+    return ("Such flags are common in clean data; check them in influential_rows.csv"
+            + ("." if any(m in ROW_METHOD_NAMES for m in methods) else
+               ", or add a robust line (sma_robust, theil_sen) to model.methods "
+               "to see whether the exponent moves."))
+
+
+def _strong_words(points, line: str) -> str:
+    """What the strong rows of the answer's model say, or "" when there are none."""
+    if points is None or not len(points) or "kind" not in points.columns:
+        return ""
+    mine = points[points["scope"].isin(["pooled"] if line == "pooled"
+                                       else ["common", "group"])]
+    moving = mine[mine["kind"] == "moves_answer"]
+    if len(moving):
+        rows = _rows_words(moving["row"].tolist())
+        return (f"{rows} move{'s' if len(moving) == 1 else ''} the answer's exponent or a "
+                "verdict when left out: the answer names it; check it first "
+                "(points_to_check.csv).")
+    strong = mine[mine["kind"] == "influence"]
+    if len(strong):   # strong, but none moves the answer
+        rows = _rows_words(strong["row"].tolist())
+        return (f"{rows} {'is' if len(strong) == 1 else 'are'} strong (Cook's distance "
+                "> 1, or a change of more than one standard error), though leaving "
+                f"{'it' if len(strong) == 1 else 'each'} out does not change the answer; "
+                "see points_to_check.csv.")
+    return ""
+
+
+def _rows_words(rows: list) -> str:
+    """'Row 7', 'Rows 7, 9', 'Rows 1, 2, 3, 4 and 2 more' (first four named)."""
+    named = ", ".join(str(r) for r in rows[:4])
+    more = f" and {len(rows) - 4} more" if len(rows) > 4 else ""
+    return f"Row {named}" if len(rows) == 1 else f"Rows {named}{more}"
+
+
+def _influence_words(d, point_sets: dict, what: str, strong: str, methods) -> str:
+    infl = d.check("influence")
+    if not infl.flagged:
+        return (f"Influence: no point pulls {what} unduly (all Cook's distances ≤ 4/n).")
+    rows = list(d.influential_rows)
+    sel = point_sets.get(("pooled", ""))
+    unit = (dict(zip(sel["row"].tolist(), sel["unit"].astype(str)))
+            if sel is not None and "unit" in sel else {})
+    shown = ", ".join(f"row {r}" + (f" ({unit[r]})" if r in unit else "") for r in rows[:4])
+    more = f" and {len(rows) - 4} more" if len(rows) > 4 else ""
+    return (f"Influence: {len(rows)} point(s) pull {what} more than usual (Cook's distance "
+            f"> 4/n): {shown}{more}. " + (strong or _clean_data_words(methods)))

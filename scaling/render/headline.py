@@ -24,6 +24,13 @@ Which line answers the question
   (``group_table``).
 
 Verdicts use :func:`scaling.render.wording.verdict_phrase` at alpha = 1 - confidence.
+
+A point that moves the answer
+-----------------------------
+When removing one point moves the leading exponent by more than its standard
+error or changes a verdict (rows of kind ``moves_answer`` in
+``points_to_check``), the answer says so in one more sentence naming the row
+(:func:`influence_sentence`).
 """
 
 from __future__ import annotations
@@ -39,7 +46,7 @@ from .wording import (calibrated_p_text, format_p, plural as plural_of, slope_in
                       verdict_phrase)
 
 __all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
-           "headline_of", "exponent_words"]
+           "headline_of", "exponent_words", "answer_line", "influence_sentence"]
 
 #: Symmetric methods in the order the default primary method is chosen.
 SYMMETRIC_ORDER = ("sma", "ma", "deming", "sma_robust", "ma_robust")
@@ -96,6 +103,92 @@ def primary_method(methods, primary: str | None = None) -> str:
         if m in SYMMETRIC_ORDER:
             return m
     return "ols" if "ols" in methods else methods[0]
+
+
+def answer_line(group_tests: pd.DataFrame | None, methods, primary: str | None = None,
+                confidence: float = 0.95) -> tuple:
+    """Which model the answer reports: ``(line, method)``, the rule of :func:`build_headline`.
+
+    ``line`` is ``"pooled"`` (no groups compared), ``"common"`` (groups
+    compared and their slopes do not differ: the parallel-lines model with
+    the common slope of ``method``) or ``"groups"`` (slopes differ: each
+    group's own line of ``method``).
+
+    >>> answer_line(None, ["ols", "sma"])
+    ('pooled', 'sma')
+    """
+    lead = primary_method(methods, primary)
+    usable = (group_tests is not None and len(group_tests)
+              and {"method", "test", "p_value"} <= set(group_tests.columns))
+    compared = list(dict.fromkeys(group_tests["method"])) if usable else []
+    read = lead if lead in compared else next(
+        (m for m in ("sma", "ma", "ols") if m in compared), None)
+    if read is None:
+        return "pooled", lead
+    gt = group_tests[(group_tests["method"] == read) & (group_tests["test"] == "slopes_equal")]
+    p = float(gt["p_value"].iloc[0]) if len(gt) else math.nan
+    if np.isfinite(p) and p <= 1 - confidence:
+        return "groups", lead
+    return "common", read
+
+
+_VERDICT_WORDS = {"above": "above", "below": "below", "not_different": "not different",
+                  "not_tested": "not tested"}
+
+
+def influence_sentence(row, context=(), *, slope: float, slope_without: float,
+                       changes=(), exponent_of: str = "") -> str:
+    """One sentence naming a row that moves the answer.
+
+    >>> influence_sentence(35, (("stem_mm", 4.1), ("habitat", "shade")), slope=1.845,
+    ...                    slope_without=1.818)
+    'Row 35 (stem_mm 4.1, habitat shade) moves this exponent from 1.845 to 1.818: check it first.'
+
+    Parameters
+    ----------
+    row : int or None
+    context : sequence of (name, value)
+        What identifies the point besides its row (its x, its group, its label).
+    slope, slope_without : float
+        The exponent with the point and refitted without it.
+    changes : sequence of (target, before, after)
+        Verdicts that change: the hypothesised exponent as written and the
+        verdict codes with and without the point.
+    exponent_of : str
+        The group whose exponent moves ("" for the one exponent of the answer).
+    """
+    def value(v):
+        return f"{v:.3g}" if isinstance(v, (float, np.floating)) else str(v)
+
+    what = ", ".join(f"{name} {value(v)}" if name else value(v) for name, v in context)
+    who = (f"Row {row}" if row is not None else "One point") + (f" ({what})" if what else "")
+    which = f"the {exponent_of} exponent" if exponent_of else "this exponent"
+    if np.isfinite(slope_without):
+        moved = f"moves {which} from {slope:.3f} to {slope_without:.3f}"
+    else:
+        moved = f"holds up {which} ({slope:.3f}): without it the exponent cannot be estimated"
+    verdicts = [f"against {t} from {_VERDICT_WORDS.get(a, a)} to {_VERDICT_WORDS.get(b, b)}"
+                for t, a, b in changes]
+    if verdicts:
+        moved += (" and its verdict " if len(verdicts) == 1 else " and its verdicts ") + (
+            "; ".join(verdicts))
+    return f"{who} {moved}: check it first."
+
+
+def _moves_sentence(points: pd.DataFrame | None) -> str:
+    """The answer's sentence on rows that move it (from ``points_to_check``), or ""."""
+    if points is None or not len(points) or "kind" not in points.columns:
+        return ""
+    moving = points[points["kind"] == "moves_answer"]
+    if not len(moving):
+        return ""
+    first = str(moving["reason"].iloc[0])
+    if len(moving) == 1:
+        return first
+    more = len(moving) - 1
+    return (first.removesuffix(": check it first.")
+            + f"; {more} more row{'s' if more > 1 else ''} move{'' if more > 1 else 's'} it "
+            "too (points_to_check.csv): check them first.")
 
 
 def exponent_words(name: str, value: float) -> str:
@@ -434,4 +527,7 @@ def headline_of(result) -> Headline:
                        if m.strip().startswith(prefix)), None)
         if answer:
             head = replace(head, sentences=tuple(head.sentences) + (answer,))
+    moves = _moves_sentence(tables.get("points_to_check"))
+    if moves:   # a row that moves the answer is said in the answer, whatever its length
+        head = replace(head, sentences=tuple(head.sentences) + (moves,))
     return head

@@ -1,5 +1,13 @@
 """The diagnostics stage of a run: residual checks, influence, curvature, error structure.
 
+Every line is checked and reported under its own scope (``pooled``, ``group``,
+``group_means``); the model the answer reports is checked too
+(:func:`scaling.render.headline.answer_line`): with a common within-group
+slope, the parallel-lines model (scope ``common``, by
+:func:`scaling.stats.residual_checks.diagnose_parallel`); when slopes differ,
+each group's own line (the ``group`` rows); without groups, the pooled line.
+The verdict sentences speak of the answer's model.
+
 Tables from :mod:`scaling.stats.residual_checks` and
 :mod:`scaling.stats.error_structure`; the ``verdict`` column from
 :func:`scaling.render.findings.check_verdict` and the verdict sentences from
@@ -15,11 +23,13 @@ import numpy as np
 import pandas as pd
 
 from ..stats.error_structure import compare_error_structure
-from ..stats.residual_checks import diagnose
+from ..stats.group_means import compared_groups
+from ..stats.residual_checks import diagnose, diagnose_parallel
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
 from ..render.findings import check_verdict, diagnostics_messages
+from ..render.headline import answer_line
 from .moments_path import bounded_diagnostics
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
@@ -47,9 +57,15 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     targets = exponent_targets(cfg)
     diag_frames, infl_rows, curv_rows, es_rows = [], [], [], []
     results: dict = {}
-    for (scope, group, method), fit in line_fits.items():
-        sel = point_sets.get((scope, group))
-        if sel is None or len(sel) != fit.n:
+    # The answer's model.  With a tree the phylogenetic model should lead; the answer
+    # does not lead with it yet, so the checks follow the answer as it is built.
+    answer = answer_line(state.tables.get("group_tests"), cfg.model.methods,
+                         getattr(cfg.model, "primary", None), cfg.model.confidence)
+    todo = [(key, fit, point_sets.get(key[:2])) for key, fit in line_fits.items()]
+    if answer[0] == "common":
+        todo.append((("common", "", answer[1]), None, _common_points(point_sets, answer[1])))
+    for (scope, group, method), fit, sel in todo:
+        if sel is None or (fit is not None and len(sel) != fit.n):
             continue
         if scope == "group_means":
             rows = np.arange(len(sel))
@@ -61,8 +77,15 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                d = diagnose(fit, sel["log_x"].to_numpy(), sel["log_y"].to_numpy(), rows=rows,
-                             exponent_targets=targets, alpha=dc.alpha)
+                if fit is None:
+                    d = diagnose_parallel(_common_slope(state.fits, method),
+                                          sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
+                                          sel["group"].astype(str).to_numpy(), method=method,
+                                          rows=rows, exponent_targets=targets,
+                                          alpha=dc.alpha, log_base=state.base)
+                else:
+                    d = diagnose(fit, sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
+                                 rows=rows, exponent_targets=targets, alpha=dc.alpha)
         except ScalingError:
             continue   # too few points (n < 4) or nothing to diagnose
         results[(scope, group, method)] = d
@@ -120,4 +143,25 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         tables["error_structure"] = pd.DataFrame(es_rows, columns=ERROR_STRUCTURE_COLUMNS)
 
     return DiagnosticsStage(tables=tables, notes=tuple(notes), messages=tuple(
-        diagnostics_messages(results, es_results, point_sets, cfg)))
+        diagnostics_messages(results, es_results, point_sets, cfg, answer=answer,
+                             points=state.tables.get("points_to_check"))))
+
+
+def _common_points(point_sets: dict, method: str):
+    """The pooled points of the groups the common slope of ``method`` is estimated from."""
+    pooled = point_sets.get(("pooled", ""))
+    if pooled is None or "group" not in pooled:
+        return None
+    labels = pooled["group"].astype(str).to_numpy()
+    try:
+        used, _ = compared_groups(pooled["log_x"].to_numpy(), pooled["log_y"].to_numpy(),
+                                  labels, method=method)
+    except ScalingError:
+        return None
+    sel = pooled[np.isin(labels, np.asarray(used, dtype=str))]
+    return sel if len(used) >= 2 else None
+
+
+def _common_slope(fits: pd.DataFrame, method: str) -> float:
+    row = fits[(fits["scope"] == "common") & (fits["method"] == method)]
+    return float(row["slope"].iloc[0]) if len(row) else float("nan")

@@ -179,10 +179,11 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     predicted = prediction_stage(cfg, state)
     state = replace(state, fits=predicted.fits, saved_fits=predicted.saved_fits,
                     tables={**state.tables, **predicted.tables})
-    diagnosed = diagnostics_stage(cfg, state) if cfg.diagnostics.enabled else None
+    checked = check_run(cfg, state)   # before the diagnostics, whose words read it
+    diagnosed = (diagnostics_stage(cfg, replace(state, tables={
+        **state.tables, "points_to_check": checked.table})) if cfg.diagnostics.enabled else None)
     if diagnosed is not None:
         state = replace(state, tables={**state.tables, **diagnosed.tables})
-    checked = check_run(cfg, state)
     state = replace(state, tables={**state.tables, "points_to_check": checked.table})
     resampled = resampling_stage(cfg, state)
     state = replace(state, slope_tests=resampled.slope_tests,

@@ -4,6 +4,15 @@
 (the fits, their points, correction factors and predictions), calls
 :func:`scaling.stats.influence.points_to_check` and returns the
 ``points_to_check`` table and the warnings it adds to the run.
+
+Influence is also measured on what the answer states (:func:`answer_points`):
+the strong points of the answer's model (the parallel-lines model of the
+common within-group slope, each group's own line when slopes differ, the
+pooled line without groups; and, with a common slope, the points strong in
+their own group's line) are removed one at a time and the answer's model is
+refitted by the run's own estimator; a point that moves the exponent by more
+than its standard error or changes a verdict is a ``moves_answer`` row, and
+the answer names it.
 """
 
 from __future__ import annotations
@@ -11,18 +20,27 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
 
 from ..errors import ScalingError
+from ..render.headline import answer_line, exponent_words
 from ..render.headline import primary_method as primary_method_of
-from ..stats.lines import method_label
+from ..stats.group_comparisons import compare_groups
+from ..stats.group_means import compared_groups
+from ..stats.line_results import fit_line
+from ..stats.lines import METHODS, method_label
 
-__all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run"]
+__all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run",
+           "answer_points"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
-from ..stats.influence import fit_checks, points_to_check
+from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, points_to_check,
+                               strong_influence, strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
 MAX_LISTED = 5
+#: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
+MAX_REFITS = 10
 
 
 def primary_method(cfg) -> str:
@@ -32,7 +50,8 @@ def primary_method(cfg) -> str:
 
 
 def _scope_words(scope: str, group: str) -> str:
-    return {"pooled": "pooled", "group_means": "group-means"}.get(scope, f"group {group}")
+    return {"pooled": "pooled", "group_means": "group-means",
+            "common": "common within-group"}.get(scope, f"group {group}")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -56,11 +75,14 @@ def check_run(cfg, state) -> PointsToCheck:
         ``smearing_factor`` and ``parametric_factor``) and ``tables``
         (``predictions`` when present).
     """
-    table, warn = _check(cfg, state.line_fits, state.point_sets, state.fits, state.tables)
+    answer = answer_points(cfg, state)
+    table, warn = _check(cfg, state.line_fits, state.point_sets, state.fits, state.tables,
+                         answer)
     return PointsToCheck(table=table, notes=tuple(warn))
 
 
-def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: dict) -> tuple:
+def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: dict,
+           answer: list) -> tuple:
     alpha = cfg.diagnostics.alpha
     records, warn = [], []
     preds = tables.get("predictions")
@@ -101,15 +123,26 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
                                        estimates=est)
         except ScalingError:
             continue
+        if whole and answer and answer[0][0] == "pooled":
+            # the pooled line is the answer: its strong points are the answer's
+            found = [c for c in found if c.kind != "influence"]
+            records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
+                         "reason": point_check_reason(c)} for sc, g, m, c in answer]
+            answer = []
         for c in found:
             records.append({"scope": scope, "group": group, "method": method,
                             **c.to_record(), "reason": point_check_reason(c)})
+    records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
+                 "reason": point_check_reason(c)} for sc, g, m, c in answer]
     table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
     if "row" in table:
         table["row"] = table["row"].astype("Int64")
     if not len(table):
         return table, warn
-    infl = table[table["kind"] == "influence"]
+    # a row that moves the answer is named by the answer; listed here only when it has
+    # no strong influence row of its own
+    infl = table[(table["kind"] == "influence") | ((table["kind"] == "moves_answer") & ~table[
+        "row"].isin(table.loc[table["kind"] == "influence", "row"]))]
     for r in infl.head(MAX_LISTED).itertuples(index=False):
         warn.append(f"STRONG — {_scope_words(r.scope, r.group)} {method_label(r.method)}: "
                     f"{r.reason}")
@@ -129,3 +162,181 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
     for r in table[table["kind"] == "group_residuals"].itertuples(index=False):
         warn.append(f"Note — {method_label(r.method)} line: {r.reason}")
     return table, warn
+
+
+# --------------------------------------------------------------------------
+# influence on what the answer states
+
+
+def answer_points(cfg, state) -> list:
+    """The strong points of the answer's model, each refitted out: ``(scope, group, method, PointCheck)``.
+
+    The answer's model is the one :func:`scaling.render.headline.answer_line`
+    reads from the group tests: the pooled line of the primary method (no
+    groups), the parallel-lines model of the common slope, or each group's
+    own line.  With a tree the phylogenetic model should lead; the answer
+    does not lead with it yet, so the checks follow the answer as it is
+    (common slope or pooled line) and the tree case is left to the
+    phylogenetic answer.  Only the moment methods (OLS, SMA, MA) are refitted;
+    other primary methods keep the pooled checks of :func:`check_run`.
+    """
+    pooled = state.point_sets.get(("pooled", ""))
+    if pooled is None or len(pooled) < 4 or state.fits is None:
+        return []
+    line, method = answer_line(state.tables.get("group_tests"), cfg.model.methods,
+                               getattr(cfg.model, "primary", None), cfg.model.confidence)
+    if method not in METHODS:
+        return []
+    hyps = [(exponent_words(str(k), float(v)), float(v)) for k, v in cfg.exponents.items()]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            if line == "common":
+                return _common_points(cfg, state, pooled, method, hyps)
+            if line == "groups":
+                return [p for g, sel in _group_sets(state, method)
+                        for p in _line_points(cfg, state, sel, "group", g, method, hyps)]
+            return _line_points(cfg, state, pooled, "pooled", "", method, hyps)
+        except ScalingError:
+            return []
+
+
+def _group_sets(state, method: str):
+    for (scope, g), sel in state.point_sets.items():
+        if scope == "group" and ("group", g, method) in state.line_fits and len(sel) >= 4:
+            yield g, sel
+
+
+def _rows_of(sel: pd.DataFrame) -> np.ndarray:
+    return sel["row"].to_numpy() if "row" in sel else np.arange(len(sel))
+
+
+def _context(cfg, sel: pd.DataFrame, i: int) -> tuple:
+    """What names point ``i`` of ``sel`` besides its row: its label, x and group."""
+    out = []
+    if "unit" in sel:
+        out.append(("", str(sel["unit"].iloc[i])))
+    if isinstance(cfg.data.x, str) and "x" in sel:
+        out.append((cfg.data.x, float(sel["x"].iloc[i])))
+    if cfg.data.group and "group" in sel:
+        out.append((str(cfg.data.group), str(sel["group"].iloc[i])))
+    return tuple(out)
+
+
+def _stated(state, scope: str, group: str, method: str, hyps) -> tuple:
+    """The answer's exponent, its standard error and its verdicts, as the tables state them."""
+    f = state.fits
+    row = f[(f["scope"] == scope) & (f["method"] == method)
+            & (f["group"].fillna("").astype(str) == group)]
+    if not len(row):
+        return np.nan, np.nan, ()
+    slope = float(row["slope"].iloc[0])
+    se = float(row["slope_se"].iloc[0]) if "slope_se" in row else np.nan
+    t = state.slope_tests
+    tests = t[(t["scope"] == scope) & (t["method"] == method)
+              & (t["group"].fillna("").astype(str) == group)] if t is not None else t
+    by_value = {float(r.exponent): float(r.p_value) for r in tests.itertuples(index=False)}
+    alpha = 1 - float(row["confidence"].iloc[0]) if "confidence" in row else 0.05
+    return slope, se, tuple(verdict_code(slope, b0, by_value.get(b0, np.nan), alpha)
+                            for _, b0 in hyps)
+
+
+def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slope_without,
+             after, hyps, exponent_of="", evidence=None) -> list:
+    """The rows of point ``i``: its own strong ``evidence`` ((scope, group, PointCheck);
+    None: the answer's model's numbers; False: none), then ``moves_answer`` when refitting
+    the answer without it moves the answer."""
+    rows = _rows_of(sel)
+    label = str(sel["unit"].iloc[i]) if "unit" in sel else ""
+    common = dict(severity="strong", row=int(rows[i]), label=label, value=float(cook),
+                  method=method, slope=float(slope), slope_without=float(slope_without),
+                  slope_se=float(se))
+    out = []
+    if evidence is None:
+        out.append((scope, group, method, PointCheck(kind="influence", **common)))
+    elif evidence is not False:
+        out.append((evidence[0], evidence[1], method, evidence[2]))
+    if moves_answer(slope, se, slope_without, before, after):
+        changes = tuple((t, a, b) for (t, _), a, b in zip(hyps, before, after) if a != b)
+        out.append((scope, group, method, PointCheck(
+            kind="moves_answer", context=_context(cfg, sel, i), exponent_of=exponent_of,
+            changes=changes, **common)))
+    return out
+
+
+def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps) -> list:
+    """Strong points of one line (pooled, or a group's when slopes differ), refitted out."""
+    X, Y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
+    if np.ptp(X) == 0:
+        return []
+    inf = strong_influence(X, Y, method=method)
+    flagged = np.flatnonzero(inf["flag"])
+    flagged = flagged[np.argsort(-inf["cook"][flagged], kind="stable")][:MAX_REFITS]
+    slope, se, before = _stated(state, scope, group, method, hyps)
+    out = []
+    for i in flagged:
+        keep = np.arange(X.size) != i
+        fit = fit_line(X[keep], Y[keep], method=method, confidence=cfg.model.confidence,
+                       log_base=None)
+        after = tuple(verdict_code(fit.slope, b0, fit.test_slope(b0).p_value,
+                                   1 - cfg.model.confidence) for _, b0 in hyps)
+        out += _finding(cfg, sel, i, scope=scope, group=group, method=method,
+                        cook=inf["cook"][i], slope=slope, se=se, before=before,
+                        slope_without=fit.slope, after=after, hyps=hyps,
+                        exponent_of=group if scope == "group" else "")
+    return out
+
+
+def _common_points(cfg, state, pooled, method: str, hyps) -> list:
+    """Strong points of the parallel-lines model and of the groups' own lines, refitted out
+    of the common slope by :func:`scaling.stats.group_comparisons.compare_groups`.
+
+    Refitted: Cook's distance above the strong threshold in the parallel-lines
+    model, a deletion change of the common OLS slope above its standard error
+    (for SMA/MA a screen only), and the points strong in their own group's line.
+    Listed: those that move the answer, and those strong by their own
+    numbers (the parallel-lines Cook's distance, or the group's line).
+    """
+    X, Y = pooled["log_x"].to_numpy(), pooled["log_y"].to_numpy()
+    labels = pooled["group"].astype(str).to_numpy()
+    used, _ = compared_groups(X, Y, labels, method=method)
+    inside = np.isin(labels, np.asarray(used, dtype=str))
+    if len(used) < 2:
+        return []
+    sel = pooled[inside]
+    Xs, Ys, gs = X[inside], Y[inside], labels[inside]
+    par = strong_parallel_influence(Xs, Ys, gs)
+    rank = {int(k): float(par["cook"][k]) for k in np.flatnonzero(par["flag"])}
+    own: dict = {}   # point -> its strong finding in its group's own line
+    for g in used:
+        mine = np.flatnonzero(gs == g)
+        if mine.size < 4 or np.ptp(Xs[mine]) == 0:
+            continue
+        inf = strong_influence(Xs[mine], Ys[mine], method=method)
+        for j in np.flatnonzero(inf["flag"]):
+            k = int(mine[j])
+            own[k] = ("group", str(g), PointCheck(
+                severity="strong", kind="influence", row=int(_rows_of(sel)[k]),
+                label=str(sel["unit"].iloc[k]) if "unit" in sel else "",
+                value=float(inf["cook"][j]), method=method, slope=float(inf["slope"]),
+                slope_without=float(inf["slope_without"][j]), slope_se=float(inf["slope_se"])))
+            rank[k] = max(rank.get(k, 0.0), float(inf["cook"][j]))
+    order = sorted(rank, key=lambda k: -rank[k])[:MAX_REFITS]
+    slope, se, before = _stated(state, "common", "", method, hyps)
+    base = state.base
+    data = (sel[["x", "y", "group"]] if base is not None
+            else sel.assign(x=sel["log_x"], y=sel["log_y"])[["x", "y", "group"]])
+    out = []
+    for k in order:
+        comp = compare_groups(data.drop(index=data.index[k]), "x", "y", "group", method=method,
+                              confidence=cfg.model.confidence, log_base=base, pairwise_max=2)
+        c = comp.common
+        without = c.slope if c is not None else np.nan
+        after = tuple(verdict_code(without, b0, c.test_slope(b0).p_value if c is not None
+                                   else np.nan, 1 - cfg.model.confidence) for _, b0 in hyps)
+        strong_here = bool(par["cook"][k] > COOK_STRONG)
+        out += _finding(cfg, sel, k, scope="common", group="", method=method,
+                        cook=float(par["cook"][k]), slope=slope, se=se, before=before,
+                        slope_without=without, after=after, hyps=hyps,
+                        evidence=None if strong_here else own.get(k, False))
+    return out

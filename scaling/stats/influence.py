@@ -22,6 +22,18 @@ Points to check (:func:`points_to_check`)
     happens when one huge residual inflates the smearing factor).  *Mild*:
     pooled residuals that differ between groups by one-way ANOVA
     (``scipy.stats.f_oneway``) at ``alpha``.
+
+Points that move the answer (:func:`strong_parallel_influence`, :func:`verdict_code`,
+:func:`moves_answer`)
+    The same strong rule applied to the model the answer states: for parallel
+    lines (a common within-group slope), Cook's distance in the
+    parallel-lines OLS model above :data:`COOK_STRONG`, or a deletion change
+    of the common OLS slope above its standard error.  The caller refits the
+    answer's own model without each strong point; the point *moves the
+    answer* when the exponent changes by more than its standard error (of
+    the fit with the point) or a verdict against a hypothesised exponent
+    (above / below / not different at alpha) changes (kind
+    ``"moves_answer"``).
 """
 
 from __future__ import annotations
@@ -36,11 +48,12 @@ from scipy import stats
 from ..errors import DataError
 from .lines import METHODS, fit_moments
 from .moments import Moments, moments
-from .residual_checks import MIN_N, _check_alpha
+from .residual_checks import MIN_N, _check_alpha, parallel_lines_influence
 from .schema import check_method
 
 __all__ = ["PointCheck", "leave_one_out_slopes", "cooks_distances", "points_to_check",
-           "strong_influence", "fit_checks", "SMEARING_RATIO_LIMIT", "COOK_STRONG"]
+           "strong_influence", "fit_checks", "SMEARING_RATIO_LIMIT", "COOK_STRONG",
+           "strong_parallel_influence", "verdict_code", "moves_answer"]
 
 # --------------------------------------------------------------------------
 # points to check, graded
@@ -59,8 +72,8 @@ class PointCheck:
         ``"strong"`` (look at this before using the numbers) or ``"mild"``
         (a note).
     kind : str
-        ``"influence"``, ``"smearing"``, ``"outside_interval"`` or
-        ``"group_residuals"``.
+        ``"influence"``, ``"moves_answer"``, ``"smearing"``,
+        ``"outside_interval"`` or ``"group_residuals"``.
     row : int or None
         Input row number of the point (None for checks of the whole fit).
     label : str
@@ -81,6 +94,16 @@ class PointCheck:
     statistic : float
     df1, df2 : int or None
         ``"group_residuals"``: the one-way ANOVA F and its degrees of freedom.
+    context : tuple of (str, object)
+        ``"moves_answer"``: what identifies the point besides its row (e.g.
+        ``(("stem_mm", 4.1), ("habitat", "shade"))``).
+    exponent_of : str
+        ``"moves_answer"``: the group whose exponent moves when the answer
+        gives one per group, else "".
+    changes : tuple of (str, str, str)
+        ``"moves_answer"``: (hypothesised exponent as written, verdict code
+        with the point, verdict code without it) for each verdict that
+        changes (:func:`verdict_code`).
 
     Notes
     -----
@@ -105,6 +128,9 @@ class PointCheck:
     statistic: float = math.nan
     df1: int | None = None
     df2: int | None = None
+    context: tuple = ()
+    exponent_of: str = ""
+    changes: tuple = ()
 
     def to_record(self) -> dict:
         """The columns of ``points_to_check.csv`` that are numbers and codes (not ``reason``)."""
@@ -356,3 +382,70 @@ def _codes(values: np.ndarray) -> tuple:
     uniq, codes = np.unique(values.astype(str), return_inverse=True)
     return codes, uniq
 
+
+
+# --------------------------------------------------------------------------
+# the answer's model: parallel lines, verdicts, whether a point moves it
+
+
+def strong_parallel_influence(log_x, log_y, groups) -> dict:
+    """Which points get a strong influence warning in the parallel-lines model.
+
+    Parameters
+    ----------
+    log_x, log_y, groups : array_like, shape (n,)
+        The points of the groups sharing a slope (at least 2 per group).
+
+    Returns
+    -------
+    dict
+        ``flag`` (n,) bool: D_i > :data:`COOK_STRONG` or |b_(-i) - b| > se(b)
+        in the OLS model Y = a_g + b X; ``cook``, ``slope_without`` (n,);
+        ``slope``, ``slope_se``.  An exact fit flags nothing.
+
+    Notes
+    -----
+    Closed forms of :func:`scaling.stats.residual_checks.parallel_lines_influence`.
+    """
+    inf = parallel_lines_influence(log_x, log_y, groups)
+    se = inf["slope_se"]
+    with np.errstate(invalid="ignore"):
+        flag = ((inf["cook"] > COOK_STRONG) | (np.abs(inf["slope_change"]) > se)) & (se > 0)
+    return {"flag": np.asarray(flag, dtype=bool), "cook": inf["cook"],
+            "slope_without": inf["slope"] + inf["slope_change"], "slope": inf["slope"],
+            "slope_se": se}
+
+
+def verdict_code(estimate: float, exponent: float, p_value: float, alpha: float) -> str:
+    """``"above"``, ``"below"``, ``"not_different"`` (p >= alpha) or ``"not_tested"``.
+
+    >>> verdict_code(0.80, 0.75, 0.01, 0.05), verdict_code(0.76, 0.75, 0.4, 0.05)
+    ('above', 'not_different')
+    """
+    if not np.isfinite(p_value) or not np.isfinite(estimate):
+        return "not_tested"
+    if p_value < alpha:
+        return "above" if estimate > exponent else "below"
+    return "not_different"
+
+
+def moves_answer(slope: float, slope_se: float, slope_without: float, before=(),
+                 after=()) -> bool:
+    """True when the exponent moves by more than its standard error or a verdict changes.
+
+    Parameters
+    ----------
+    slope, slope_se : float
+        The answer's exponent and its standard error (with the point).
+    slope_without : float
+        The exponent refitted without the point.
+    before, after : sequence of str
+        Verdict codes (:func:`verdict_code`) with and without the point, one
+        per hypothesised exponent, in the same order.
+    """
+    if np.isfinite(slope) and np.isfinite(slope_without) and np.isfinite(slope_se):
+        if abs(slope_without - slope) > slope_se:
+            return True
+    elif np.isfinite(slope) != np.isfinite(slope_without):
+        return True
+    return any(a != b for a, b in zip(before, after))

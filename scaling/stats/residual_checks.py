@@ -27,6 +27,21 @@ Influence
     D > 4/n are listed (a common rule of thumb, no single source).  For SMA
     and MA fits the OLS distances are a proxy: they measure influence on
     the least-squares line through the same points.
+
+The parallel-lines model (:func:`diagnose_parallel`)
+    When groups share one slope b and each keeps its own elevation, the
+    model is Y = a_g + b X + e.  The same four questions are asked of it,
+    all by closed forms on within-group centred values (X~ = X - mean_g X;
+    by Frisch-Waugh-Lovell this is the OLS fit with one dummy per group),
+    so one pass serves four groups or ten thousand:
+    residuals e = (Y - mean_g Y) - b X~ (the stated lines, vertical);
+    curvature: one common quadratic term in centred log x with per-group
+    intercepts, Y = a_g + b1 c + b2 c^2, c = X - mean X (Kolokotrones et
+    al. 2010's quadratic term, with the group elevations the answer allows),
+    t = b2/se(b2) on n - G - 2 df (:func:`within_quadratic_t`); normality
+    and Breusch-Pagan on e as above; Cook's distance of the parallel-lines
+    OLS model, p = G + 1 parameters, leverage h = 1/n_g + X~^2/sum X~^2
+    (:func:`parallel_lines_influence`).
 """
 
 from __future__ import annotations
@@ -39,11 +54,13 @@ import numpy as np
 from scipy import stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
+from ._group_common import EXACT_FIT_TOL
 from .lines import exact_fit
 from .line_results import LineFit
 from .moments import moments
 
-__all__ = ["Check", "Curvature", "Diagnostics", "diagnose", "quadratic_t", "MIN_N"]
+__all__ = ["Check", "Curvature", "Diagnostics", "diagnose", "quadratic_t", "MIN_N",
+           "within_quadratic_t", "parallel_lines_influence", "diagnose_parallel"]
 
 #: Fewest points a diagnostic check reads.
 MIN_N = 4
@@ -348,73 +365,19 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
 
     resid = Y - fit.intercept - fit.slope * X
     exog = np.column_stack([np.ones(n), X])
-    checks = []
-
-    # normality
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)  # scipy's n > 5000 accuracy note
-        sw = stats.shapiro(resid)
-    w_stat, p_sw = float(sw.statistic), float(sw.pvalue)
-    flagged = p_sw < alpha
-    checks.append(Check(check="normality", test="Shapiro-Wilk", statistic=w_stat,
-                        df=math.nan, p_value=p_sw, estimate=math.nan,
-                        flagged=flagged, finding=_finding(flagged)))
-
-    # constant variance
+    checks = [_normality(resid, alpha)]
     if np.ptp(resid) == 0:
         warnings.warn("residuals are all equal: the constant-variance test is not defined",
                       DegenerateDataWarning, stacklevel=2)
-        lm, p_bp = math.nan, math.nan
-    else:
-        lm, p_bp, _, _ = het_breuschpagan(resid, exog)
-        lm, p_bp = float(lm), float(p_bp)
-    flagged = bool(p_bp < alpha)
-    trend = 0
-    if flagged:
-        # which way the squared residuals trend with size
-        trend = 1 if np.polyfit(X, resid ** 2, 1)[0] > 0 else -1
-    checks.append(Check(check="constant_variance", test="Breusch-Pagan", statistic=lm,
-                        df=1.0, p_value=p_bp, estimate=math.nan, flagged=flagged,
-                        finding=_finding(flagged), direction=trend))
-
-    # curvature
-    q = quadratic_t(X, Y)
-    qv = {k: float(v) for k, v in q.items()}
-    base = fit.log_base
-    lo, hi = float(X.min()), float(X.max())
-    crossings = []
-    for target in targets:
-        if qv["quadratic"] == 0 or not np.isfinite(qv["quadratic"]):
-            crossings.append((target, math.nan, False))
-            continue
-        lx = (target - qv["linear"]) / (2 * qv["quadratic"])
-        with np.errstate(over="ignore"):
-            # numpy power: a crossing far outside the data gives inf, not OverflowError
-            xs = float(lx) if base is None else float(np.power(np.float64(base), lx))
-        crossings.append((target, xs, bool(lo <= lx <= hi)))
-    curv = Curvature(intercept=qv["intercept"], linear=qv["linear"],
-                     quadratic=qv["quadratic"], quadratic_se=qv["quadratic_se"],
-                     statistic=qv["statistic"], df=qv["df"], p_value=qv["p_value"],
-                     log_base=base, crossings=tuple(crossings))
-    flagged = bool(qv["p_value"] < alpha)
-    e_lo, e_hi = (float(e) for e in curv.local_exponent([lo, hi]))
-    checks.append(Check(check="curvature", test="quadratic term t", statistic=qv["statistic"],
-                        df=qv["df"], p_value=qv["p_value"], estimate=qv["quadratic"],
-                        flagged=flagged, finding=_finding(flagged),
-                        direction=1 if qv["quadratic"] > 0 else -1,
-                        exponent_low=e_lo, exponent_high=e_hi))
-
-    # influence
+    checks.append(_constant_variance(resid, X, het_breuschpagan, alpha))
+    curv, check = _curvature({k: float(v) for k, v in quadratic_t(X, Y).items()}, X, targets,
+                             fit.log_base, alpha)
+    checks.append(check)
     infl = OLSInfluence(OLS(Y, exog).fit())
     cooks = np.asarray(infl.cooks_distance[0], dtype=float)
     threshold = 4.0 / n
-    above = np.flatnonzero(cooks > threshold)
-    above = above[np.argsort(-cooks[above], kind="stable")]
-    influential = tuple(rows[above].tolist())
-    flagged = above.size > 0
-    checks.append(Check(check="influence", test="Cook's distance", statistic=float(cooks.max()),
-                        df=math.nan, p_value=math.nan, estimate=float(cooks.max()),
-                        flagged=flagged, finding=_finding(flagged), rows=influential))
+    checks.append(_influence(cooks, rows, threshold))
+    influential = checks[-1].rows
 
     return Diagnostics(method=fit.method, n=n, alpha=alpha, checks=tuple(checks),
                        curvature=curv, residuals=resid, cooks_distance=cooks,
@@ -447,3 +410,308 @@ def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
                        cooks_distance=np.zeros(n), influence_threshold=4.0 / n,
                        influential_rows=(), rows=rows)
 
+
+
+# --------------------------------------------------------------------------
+# the parallel-lines model: groups share a slope, each keeps its elevation
+
+
+def _group_codes(groups, n: int) -> tuple:
+    g = np.asarray(groups)
+    if g.shape != (n,):
+        raise DataError(f"groups must give one value per point ({n}), not shape {g.shape}")
+    labels, codes = np.unique(g.astype(str), return_inverse=True)
+    return codes, labels
+
+
+def _within(A: np.ndarray, codes: np.ndarray, n_groups: int) -> np.ndarray:
+    """A minus its group means along the last axis (any leading shape; codes (n,))."""
+    lead = A.shape[:-1]
+    M = int(np.prod(lead)) if lead else 1
+    flat = A.reshape(M, A.shape[-1])
+    idx = (codes[None, :] + n_groups * np.arange(M)[:, None]).ravel()
+    sums = np.bincount(idx, weights=flat.ravel(), minlength=M * n_groups)
+    counts = np.bincount(codes, minlength=n_groups).astype(float)
+    means = sums.reshape(M, n_groups) / counts
+    return (flat - means[:, codes]).reshape(A.shape)
+
+
+def within_quadratic_t(log_x, log_y, groups) -> dict:
+    """OLS fit of Y = a_g + b1 X + b2 X^2 (one elevation per group), vectorised.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (..., n)
+        One or many samples (all replicates of a simulation at once).
+    groups : array_like, shape (n,)
+        Group of each point, the same for every sample.
+
+    Returns
+    -------
+    dict of ndarray
+        ``linear, quadratic, quadratic_se, statistic, df, p_value`` with the
+        leading shape; ``intercept`` is NaN (each group has its own).
+
+    Notes
+    -----
+    By Frisch-Waugh-Lovell the coefficients of X and q = (X - mean X)^2 in
+    the model with group dummies are those of the regression of the
+    within-group centred Y on the within-group centred X and q; the
+    2 x 2 normal equations are then those of :func:`quadratic_t` with
+    n - G - 2 residual degrees of freedom.  The linear coefficient is
+    returned for uncentred X: b1 = g_c - 2 g_q mean(X).
+    """
+    X = np.asarray(log_x, dtype=float)
+    Y = np.asarray(log_y, dtype=float)
+    if X.ndim < 1 or X.shape != Y.shape:
+        raise DataError("log_x and log_y must be arrays of equal shape (..., n)")
+    n = X.shape[-1]
+    codes, labels = _group_codes(groups, n)
+    G = labels.size
+    if n - G - 2 < 1:
+        raise DataError(f"{n} points in {G} groups leave no degrees of freedom for the "
+                        "quadratic term (need n - G - 2 >= 1)")
+    mx = X.mean(axis=-1, keepdims=True)
+    c = _within(X, codes, G)
+    q = _within((X - mx) ** 2, codes, G)
+    yc = _within(Y, codes, G)
+    scc = np.sum(c * c, axis=-1)
+    scq = np.sum(c * q, axis=-1)
+    sqq = np.sum(q * q, axis=-1)
+    scy = np.sum(c * yc, axis=-1)
+    sqy = np.sum(q * yc, axis=-1)
+    syy = np.sum(yc * yc, axis=-1)
+    det = scc * sqq - scq * scq
+    df = n - G - 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        gc = (sqq * scy - scq * sqy) / det
+        gq = (scc * sqy - scq * scy) / det
+        s2 = np.maximum(syy - gc * scy - gq * sqy, 0.0) / df
+        se = np.sqrt(s2 * scc / det)
+        t = gq / se
+    p = 2 * stats.t.sf(np.abs(t), df)
+    return {"intercept": np.full(np.shape(t), np.nan), "linear": gc - 2 * gq * mx[..., 0],
+            "quadratic": gq, "quadratic_se": se, "statistic": t,
+            "df": np.full(np.shape(t), float(df)), "p_value": p}
+
+
+def parallel_lines_influence(log_x, log_y, groups) -> dict:
+    """Cook's distance and slope change of each point in the parallel-lines OLS model.
+
+    Parameters
+    ----------
+    log_x, log_y : array_like, shape (n,)
+    groups : array_like, shape (n,)
+        Every group needs at least two points.
+
+    Returns
+    -------
+    dict
+        ``cook`` (n,): Cook's distance in the model Y = a_g + b X;
+        ``slope_change`` (n,): b_(-i) - b, the common OLS slope without
+        point i minus the slope with it; ``slope``, ``slope_se`` (floats);
+        ``leverage`` (n,); ``exact`` (bool: no residual scatter).
+
+    Notes
+    -----
+    With X~ the within-group centred X, S = sum X~^2, b = sum X~ Y~ / S,
+    e = Y~ - b X~, p = G + 1 and s^2 = sum e^2/(n - G - 1):
+    h_i = 1/n_g + X~_i^2/S, D_i = e_i^2 h_i / (p s^2 (1 - h_i)^2)
+    (Cook 1977), and by the deletion formula of least squares
+    b_(-i) - b = -X~_i e_i / (S (1 - h_i)) (the slope row of
+    (X'X)^-1 x_i e_i/(1 - h_i); Belsley, Kuh & Welsch 1980, DFBETA).
+    """
+    X = np.asarray(log_x, dtype=float)
+    Y = np.asarray(log_y, dtype=float)
+    if X.ndim != 1 or X.shape != Y.shape:
+        raise DataError("log_x and log_y must be one-dimensional and of equal length")
+    n = X.size
+    codes, labels = _group_codes(groups, n)
+    G = labels.size
+    counts = np.bincount(codes, minlength=G)
+    if counts.min() < 2:
+        small = ", ".join(str(labels[k]) for k in np.flatnonzero(counts < 2))
+        raise DataError(f"every group needs at least 2 points for the parallel-lines "
+                        f"model; {small} has fewer")
+    xt, yt = _within(X, codes, G), _within(Y, codes, G)
+    S = float(np.sum(xt * xt))
+    if not S > 0:
+        raise DataError("log_x does not vary within groups: nothing to diagnose")
+    b = float(np.sum(xt * yt) / S)
+    e = yt - b * xt
+    df = n - G - 1
+    rss = float(np.sum(e * e))
+    exact = bool(rss <= EXACT_FIT_TOL * float(np.sum(yt * yt)))
+    h = 1.0 / counts[codes] + xt * xt / S
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s2 = rss / df if df > 0 else math.nan
+        cook = e * e * h / ((G + 1) * s2 * (1 - h) ** 2)
+        change = -xt * e / (S * (1 - h))
+    if exact:
+        cook = np.zeros(n)
+    return {"cook": cook, "slope_change": change, "slope": b,
+            "slope_se": math.sqrt(s2 / S) if df > 0 and not exact else (0.0 if exact
+                                                                         else math.nan),
+            "leverage": h, "exact": exact}
+
+
+def diagnose_parallel(slope: float, log_x, log_y, groups, *, method: str = "ols",
+                      rows=None, exponent_targets=(), alpha: float = 0.05,
+                      log_base: float | None = None) -> Diagnostics:
+    """Residual, curvature and influence checks of parallel lines (one slope, own elevations).
+
+    Parameters
+    ----------
+    slope : float
+        The common within-group slope the lines are drawn with (the answer's
+        exponent, of any method).
+    log_x, log_y : array_like, shape (n,)
+        The log-scale points of the groups that share the slope.
+    groups : array_like, shape (n,)
+        Group of each point (at least 2 points each).
+    method : str
+        Method of the common slope (recorded in the result).
+    rows : array_like of int, optional
+        Input row number of each point (default 0, ..., n - 1).
+    exponent_targets : sequence of float
+        Exponents at which to report where the local exponent of the
+        common quadratic reaches them.
+    alpha : float
+    log_base : float or None
+        Base of the logs (for the crossings in natural units).
+
+    Returns
+    -------
+    Diagnostics
+        ``curvature.intercept`` is NaN (one elevation per group).
+
+    Notes
+    -----
+    Residuals are the vertical residuals of the stated lines:
+    e = Y - a_g - b X with a_g = mean_g Y - b mean_g X, the line of slope b
+    through each group's centroid.  For an SMA or MA common slope these are
+    the answer's own lines, and their vertical residuals are what the
+    normality and constant-variance checks of a single line read too
+    (:func:`diagnose`), so the two are told apart by the model only.
+    Normality is Shapiro-Wilk and constant variance Breusch-Pagan on
+    regressors (1, X) (does the scatter change with size?), as for one
+    line.  Curvature and Cook's distance are those of the parallel-lines
+    OLS model whatever the method: the quadratic test needs a least-squares
+    fit, and for SMA/MA the OLS distances are a proxy, as for one line.
+    Formulas are in the module docstring.
+    """
+    alpha = _check_alpha(alpha)
+    X = np.asarray(log_x, dtype=float)
+    Y = np.asarray(log_y, dtype=float)
+    if X.ndim != 1 or X.shape != Y.shape:
+        raise DataError("log_x and log_y must be one-dimensional and of equal length")
+    if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
+        raise DataError("log_x and log_y must be finite numbers (no NaN or inf)")
+    n = X.size
+    if n < MIN_N:
+        raise DataError(f"log_x and log_y need at least {MIN_N} rows for diagnostics, not {n}")
+    if not np.isfinite(slope):
+        raise DataError("the common slope is not a finite number: nothing to diagnose")
+    rows = np.arange(n) if rows is None else np.asarray(rows)
+    if rows.shape != (n,):
+        raise DataError(f"rows must give one row number per point ({n}), not shape {rows.shape}")
+    try:
+        targets = tuple(float(t) for t in exponent_targets)
+    except (TypeError, ValueError):
+        raise ConfigError("exponent_targets must be a sequence of numbers") from None
+    codes, labels = _group_codes(groups, n)
+    infl = parallel_lines_influence(X, Y, groups)
+    xt, yt = _within(X, codes, labels.size), _within(Y, codes, labels.size)
+    resid = yt - float(slope) * xt
+    threshold = 4.0 / n
+    if infl["exact"]:
+        fit = _Line(method=method, slope=float(slope), log_base=log_base)
+        checks = _exact_diagnostics(fit, X, Y, rows, alpha).checks
+        curv = Curvature(intercept=math.nan, linear=float(slope), quadratic=0.0,
+                         quadratic_se=math.nan, statistic=math.nan,
+                         df=float(n - labels.size - 2), p_value=math.nan,
+                         log_base=log_base, crossings=())
+        return Diagnostics(method=method, n=n, alpha=alpha, checks=checks, curvature=curv,
+                           residuals=resid, cooks_distance=np.zeros(n),
+                           influence_threshold=threshold, influential_rows=(), rows=rows)
+    from statsmodels.stats.diagnostic import het_breuschpagan
+
+    checks = [_normality(resid, alpha)]
+    checks.append(_constant_variance(resid, X, het_breuschpagan, alpha))
+    q = {k: float(v) for k, v in within_quadratic_t(X, Y, groups).items()}
+    curv, check = _curvature(q, X, targets, log_base, alpha)
+    checks.append(check)
+    cooks = np.asarray(infl["cook"], dtype=float)
+    checks.append(_influence(cooks, rows, threshold))
+    return Diagnostics(method=method, n=n, alpha=alpha, checks=tuple(checks), curvature=curv,
+                       residuals=resid, cooks_distance=cooks, influence_threshold=threshold,
+                       influential_rows=checks[-1].rows, rows=rows)
+
+
+@dataclass(frozen=True, slots=True)
+class _Line:
+    """What :func:`_exact_diagnostics` reads of a fit (parallel lines have no one intercept)."""
+
+    method: str
+    slope: float
+    log_base: float | None
+    intercept: float = math.nan
+
+
+def _normality(resid, alpha) -> Check:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # scipy's n > 5000 accuracy note
+        sw = stats.shapiro(resid)
+    flagged = bool(sw.pvalue < alpha)
+    return Check(check="normality", test="Shapiro-Wilk", statistic=float(sw.statistic),
+                 df=math.nan, p_value=float(sw.pvalue), estimate=math.nan,
+                 flagged=flagged, finding=_finding(flagged))
+
+
+def _constant_variance(resid, X, het_breuschpagan, alpha) -> Check:
+    if np.ptp(resid) == 0:
+        lm, p_bp = math.nan, math.nan
+    else:
+        lm, p_bp, _, _ = het_breuschpagan(resid, np.column_stack([np.ones(X.size), X]))
+        lm, p_bp = float(lm), float(p_bp)
+    flagged = bool(p_bp < alpha)
+    trend = 0
+    if flagged:
+        trend = 1 if np.polyfit(X, resid ** 2, 1)[0] > 0 else -1
+    return Check(check="constant_variance", test="Breusch-Pagan", statistic=lm, df=1.0,
+                 p_value=p_bp, estimate=math.nan, flagged=flagged, finding=_finding(flagged),
+                 direction=trend)
+
+
+def _curvature(qv: dict, X, targets, base, alpha) -> tuple:
+    lo, hi = float(X.min()), float(X.max())
+    crossings = []
+    for target in targets:
+        if qv["quadratic"] == 0 or not np.isfinite(qv["quadratic"]):
+            crossings.append((target, math.nan, False))
+            continue
+        lx = (target - qv["linear"]) / (2 * qv["quadratic"])
+        with np.errstate(over="ignore"):
+            xs = float(lx) if base is None else float(np.power(np.float64(base), lx))
+        crossings.append((target, xs, bool(lo <= lx <= hi)))
+    curv = Curvature(intercept=qv["intercept"], linear=qv["linear"],
+                     quadratic=qv["quadratic"], quadratic_se=qv["quadratic_se"],
+                     statistic=qv["statistic"], df=qv["df"], p_value=qv["p_value"],
+                     log_base=base, crossings=tuple(crossings))
+    flagged = bool(qv["p_value"] < alpha)
+    e_lo, e_hi = (float(e) for e in curv.local_exponent([lo, hi]))
+    return curv, Check(check="curvature", test="quadratic term t", statistic=qv["statistic"],
+                       df=qv["df"], p_value=qv["p_value"], estimate=qv["quadratic"],
+                       flagged=flagged, finding=_finding(flagged),
+                       direction=1 if qv["quadratic"] > 0 else -1,
+                       exponent_low=e_lo, exponent_high=e_hi)
+
+
+def _influence(cooks, rows, threshold) -> Check:
+    above = np.flatnonzero(cooks > threshold)
+    above = above[np.argsort(-cooks[above], kind="stable")]
+    flagged = above.size > 0
+    top = float(cooks.max()) if cooks.size else math.nan
+    return Check(check="influence", test="Cook's distance", statistic=top, df=math.nan,
+                 p_value=math.nan, estimate=top, flagged=flagged, finding=_finding(flagged),
+                 rows=tuple(rows[above].tolist()))
