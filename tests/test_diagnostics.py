@@ -563,3 +563,21 @@ class TestParallelLinesChecks:
 
         with pytest.raises(DataError, match="at least 2 points"):
             diagnose_parallel(1.0, [0, 1, 2, 3, 4], [0, 1, 2, 3, 5], list("aaaab"))
+
+
+class TestMovesAnswer:
+    """The rule that names a point in the Answer (common practice, no source: a
+    deletion change of the estimate larger than its standard error, measured
+    against the larger of the standard errors with and without the point)."""
+
+    def test_a_move_beyond_both_standard_errors_moves_the_answer(self):
+        from scaling.stats.influence import moves_answer
+        assert moves_answer(0.737, 0.020, 0.759)                         # 1.1 SE
+        assert moves_answer(0.737, 0.020, 0.759, slope_se_without=0.021)
+        # the refit is much less precise: the same move is within its standard error
+        assert not moves_answer(0.737, 0.020, 0.759, slope_se_without=0.030)
+
+    def test_a_changed_verdict_moves_the_answer_whatever_the_size(self):
+        from scaling.stats.influence import moves_answer
+        assert moves_answer(0.737, 0.020, 0.740, ("same",), ("above",))
+        assert not moves_answer(0.737, 0.020, 0.740, ("same",), ("same",))

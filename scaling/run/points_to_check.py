@@ -242,7 +242,7 @@ def _stated(state, scope: str, group: str, method: str, hyps) -> tuple:
 
 
 def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slope_without,
-             after, hyps, exponent_of="", evidence=None) -> list:
+             after, hyps, exponent_of="", evidence=None, se_without=np.nan) -> list:
     """The rows of point ``i``: its own strong ``evidence`` ((scope, group, PointCheck);
     None: the answer's model's numbers; False: none), then ``moves_answer`` when refitting
     the answer without it moves the answer."""
@@ -256,7 +256,7 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
         out.append((scope, group, method, PointCheck(kind="influence", **common)))
     elif evidence is not False:
         out.append((evidence[0], evidence[1], method, evidence[2]))
-    if moves_answer(slope, se, slope_without, before, after):
+    if moves_answer(slope, se, slope_without, before, after, slope_se_without=se_without):
         changes = tuple((t, a, b) for (t, _), a, b in zip(hyps, before, after) if a != b)
         out.append((scope, group, method, PointCheck(
             kind="moves_answer", context=_context(cfg, sel, i), exponent_of=exponent_of,
@@ -283,7 +283,7 @@ def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps) -> 
         out += _finding(cfg, sel, i, scope=scope, group=group, method=method,
                         cook=inf["cook"][i], slope=slope, se=se, before=before,
                         slope_without=fit.slope, after=after, hyps=hyps,
-                        exponent_of=group if scope == "group" else "")
+                        exponent_of=group if scope == "group" else "", se_without=fit.slope_se)
     return out
 
 
@@ -338,5 +338,6 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
         out += _finding(cfg, sel, k, scope="common", group="", method=method,
                         cook=float(par["cook"][k]), slope=slope, se=se, before=before,
                         slope_without=without, after=after, hyps=hyps,
-                        evidence=None if strong_here else own.get(k, False))
+                        evidence=None if strong_here else own.get(k, False),
+                        se_without=c.slope_se if c is not None else np.nan)
     return out

@@ -97,7 +97,7 @@ from ._group_common import EXACT_FIT_TOL, check_logs, factorize
 from .lines import METHODS, exponent_value, fit_notes
 from .line_results import ConfidenceInterval, SlopeTest
 from .moments import Moments, group_moments
-from .schema import EXACT_NOTE, check_confidence, check_count, check_method
+from .schema import DEFAULT_SEED, EXACT_NOTE, check_confidence, check_count, check_method
 
 __all__ = ["CommonSlope", "common_slope", "CALIBRATIONS"]
 
@@ -640,7 +640,7 @@ def _profile_state(fit: dict, sxx, syy, sxy) -> dict:
 
 def common_slope(log_x, log_y, groups, *, method: str = "sma",
                  confidence: float = 0.95, calibration: str = "auto", n_boot: int = 999,
-                 seed: int | None = 0) -> CommonSlope:
+                 seed: int | None = DEFAULT_SEED) -> CommonSlope:
     """Estimate the slope common to all groups, with its interval.
 
     Parameters

@@ -430,7 +430,7 @@ def verdict_code(estimate: float, exponent: float, p_value: float, alpha: float)
 
 
 def moves_answer(slope: float, slope_se: float, slope_without: float, before=(),
-                 after=()) -> bool:
+                 after=(), slope_se_without: float = math.nan) -> bool:
     """True when the exponent moves by more than its standard error or a verdict changes.
 
     Parameters
@@ -442,9 +442,15 @@ def moves_answer(slope: float, slope_se: float, slope_without: float, before=(),
     before, after : sequence of str
         Verdict codes (:func:`verdict_code`) with and without the point, one
         per hypothesised exponent, in the same order.
+    slope_se_without : float, optional
+        The standard error of the refit.  The move is measured against the
+        larger of the two standard errors, so that dropping a point that
+        carried much of the x range (and so widens the interval) is not
+        mistaken for a point that moves the answer (common practice, no source).
     """
     if np.isfinite(slope) and np.isfinite(slope_without) and np.isfinite(slope_se):
-        if abs(slope_without - slope) > slope_se:
+        scale = max(slope_se, slope_se_without) if np.isfinite(slope_se_without) else slope_se
+        if abs(slope_without - slope) > scale:
             return True
     elif np.isfinite(slope) != np.isfinite(slope_without):
         return True
