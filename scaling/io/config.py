@@ -298,7 +298,7 @@ def _seed(value, path):
 
 
 
-# ---- several predictors and units (issue: multi-predictor power laws, units)
+# ---- several predictors and units
 
 def _x_columns(value, path):
     """One column name, or a list of distinct names (several predictors)."""

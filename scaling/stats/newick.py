@@ -14,7 +14,7 @@ The maintained registry readers were timed on a random 100 000-tip tree
 (``newick.loads``).  treeswift is fast enough for the speed target, but
 none of the three reports *where* a tree is broken (the character offset
 of a missing or negative branch length, or of the token that cannot be
-parsed), which the issue requires of every bad-tree error; all three also
+parsed), which we require of every bad-tree error; all three also
 return object trees that must then be walked node by node in Python to
 get the arrays.  This reader is a single regular-expression tokeniser and
 one loop over tokens, keeps the offset of every node, and is as fast as

@@ -76,7 +76,7 @@ __all__ = [
 
 #: Fewest resamples for a BCa interval without a warning.  BCa needs the tails
 #: of the bootstrap distribution; with B = 99 its SMA slope coverage at n = 20
-#: was 0.90 (issue record), 0.92 with B = 999 (README, "Resampling").
+#: was 0.90 (measured when the check was added), 0.92 with B = 999 (README, "Resampling").
 MIN_BCA_BOOT = 999
 #: Robust lines -> the moment method whose derived pair their permutation test uses.
 RANK_PAIRS = {m.name: m.permutation_pair for m in CATALOGUE.values()
