@@ -300,6 +300,21 @@ def _check_alpha(alpha) -> float:
     return float(alpha)
 
 
+
+def _checked_logs(log_x, log_y) -> tuple:
+    """The logs as float arrays: one-dimensional, equal length, finite, at least MIN_N."""
+    X = np.asarray(log_x, dtype=float)
+    Y = np.asarray(log_y, dtype=float)
+    if X.ndim != 1 or X.shape != Y.shape:
+        raise DataError("log_x and log_y must be one-dimensional and of equal length")
+    if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
+        raise DataError("log_x and log_y must be finite numbers (no NaN or inf)")
+    if X.size < MIN_N:
+        raise DataError(f"log_x and log_y need at least {MIN_N} rows for diagnostics, "
+                        f"not {X.size}")
+    return X, Y
+
+
 def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
              alpha: float = 0.05) -> Diagnostics:
     """Residual normality, constant variance, curvature and influence of a fit.
@@ -331,15 +346,8 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     if not isinstance(fit, LineFit):
         raise ConfigError(f"fit must be a LineFit, not {type(fit).__name__}")
     alpha = _check_alpha(alpha)
-    X = np.asarray(log_x, dtype=float)
-    Y = np.asarray(log_y, dtype=float)
-    if X.ndim != 1 or X.shape != Y.shape:
-        raise DataError("log_x and log_y must be one-dimensional and of equal length")
-    if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
-        raise DataError("log_x and log_y must be finite numbers (no NaN or inf)")
+    X, Y = _checked_logs(log_x, log_y)
     n = X.size
-    if n < MIN_N:
-        raise DataError(f"log_x and log_y need at least {MIN_N} rows for diagnostics, not {n}")
     if n != fit.n:
         raise DataError(f"log_x has {n} rows but the fit was made on {fit.n}")
     if not fit.estimable:
@@ -601,15 +609,8 @@ def diagnose_parallel(slope: float, log_x, log_y, groups, *, method: str = "ols"
     Formulas are in the module docstring.
     """
     alpha = _check_alpha(alpha)
-    X = np.asarray(log_x, dtype=float)
-    Y = np.asarray(log_y, dtype=float)
-    if X.ndim != 1 or X.shape != Y.shape:
-        raise DataError("log_x and log_y must be one-dimensional and of equal length")
-    if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
-        raise DataError("log_x and log_y must be finite numbers (no NaN or inf)")
+    X, Y = _checked_logs(log_x, log_y)
     n = X.size
-    if n < MIN_N:
-        raise DataError(f"log_x and log_y need at least {MIN_N} rows for diagnostics, not {n}")
     if not np.isfinite(slope):
         raise DataError("the common slope is not a finite number: nothing to diagnose")
     rows = np.arange(n) if rows is None else np.asarray(rows)
