@@ -300,7 +300,6 @@ def _check_alpha(alpha) -> float:
     return float(alpha)
 
 
-
 def _checked_logs(log_x, log_y) -> tuple:
     """The logs as float arrays: one-dimensional, equal length, finite, at least MIN_N."""
     X = np.asarray(log_x, dtype=float)
