@@ -20,7 +20,7 @@ from .wording import p_text
 
 __all__ = [
     "line_fit_summary", "phylo_fit_summary", "multi_fit_summary", "combined_term_summary",
-    "total_prediction_summary", "prediction_summary", "inverse_prediction_summary",
+    "total_prediction_summary", "total_range_note", "prediction_summary", "inverse_prediction_summary",
     "accuracy_summary", "normalisation_constant_summary", "group_fits_summary"]
 
 
@@ -152,7 +152,27 @@ def total_prediction_summary(total) -> str:
             if total.n_extrapolated else "")
     return (f"Total of {total.n_new} predictions: {total.total:.4g} "
             f"({_percent(total.confidence)} interval {total.low:.4g} to {total.high:.4g}; "
-            f"correction {total.correction}){flag}")
+            f"correction {total.correction}){flag}{total_range_note(total)}")
+
+
+def total_range_note(total) -> str:
+    """A sentence (with a leading space) when a total's scatter lies beyond the
+    range where its interval's coverage was shown; "" otherwise.
+
+    Parameters
+    ----------
+    total : TotalPrediction
+
+    Returns
+    -------
+    str
+    """
+    if not getattr(total, "beyond_shown_range", False):
+        return ""
+    from ..stats.multi_predictions import SCATTER_SHOWN
+    return (f" The scatter about the line (log10 SD {total.scatter_log10:.2g}) is beyond "
+            f"{SCATTER_SHOWN:g}, the largest at which this interval was shown by simulation "
+            "to hold its confidence: read it as approximate.")
 
 
 def prediction_summary(pred) -> str:

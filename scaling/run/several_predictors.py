@@ -28,6 +28,7 @@ from ..errors import DataError, ExtrapolationWarning, ScalingError
 from ..stats.lines import base_label, method_label
 from ..stats.units import conversion_factor, normalisation_constant
 from ..stats.several_predictors import fit_multi, multi_fit_to_dict
+from ..render.summaries import total_range_note
 from ..render.wording import p_text
 
 __all__ = ["apply_model_units", "constant_columns", "SeveralStage", "several_stage",
@@ -251,7 +252,7 @@ def total_sentence(total, y_unit: str) -> str:
     return (f"Total over the {total.n_new} new rows: {total.total:,.4g}{u} "
             f"({100 * total.confidence:g}% interval {total.low:,.4g} to {total.high:,.4g}{u}; "
             f"{total.correction} correction; parameter and scatter uncertainty combined, "
-            f"see prediction_total.csv{flag}).")
+            f"see prediction_total.csv{flag}).{total_range_note(total)}")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

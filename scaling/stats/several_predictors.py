@@ -507,9 +507,9 @@ class MultiFit:
 
         Notes
         -----
-        Delta method for the parameter part plus independent log-normal (or
-        smeared) scatter, combined into a log-normal by moment matching; see
-        the module docstring.
+        The interval is the quantiles of totals simulated from the fit's
+        sampling distribution with normal log-scale scatter per individual; see
+        :mod:`scaling.stats.multi_predictions`.
 
         Examples
         --------
