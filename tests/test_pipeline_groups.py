@@ -144,3 +144,19 @@ class TestChecksFollowTheAnswer:
         text = "\n".join(res.messages)
         assert "Power law within habitats (common OLS slope" in text
         assert "Residuals of the common within-habitat OLS model" in text
+
+
+class TestExactLawRun:
+    def test_a_run_on_an_exact_law_writes_no_scatter_and_no_runtime_warning(self, tmp_path):
+        import warnings
+        x = np.array([1.0, 2, 5, 10, 30, 100, 400, 3, 7, 50, 200, 20])
+        table = pd.DataFrame({"taxon": np.repeat(["Dunefoot", "Saltmarsh", "Ridge"], 4),
+                              "mass": x, "rate": 3 * x ** 0.75})
+        cfg = _config(tmp_path, table, model={"methods": ["ols", "sma", "ma"]},
+                      figures={"formats": []})
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            res = analyse(cfg)
+        fits = res.fits[res.fits["scope"].isin(["pooled", "group", "group_means"])]
+        assert (fits["resid_sd"] == 0).all()   # exact law: y = 3 x^0.75
+        assert_allclose(fits["slope"], 0.75, rtol=1e-12)   # exact law
