@@ -68,7 +68,7 @@ from .line_results import (ConfidenceInterval, LineFit, line_fit_from_moments,
                            tie_term as _tie_term)
 from .lines import METHODS, exact_fit, fit_moments, parse_log_base, to_log, validate_xy
 from .moments import Moments, moments as _moments
-from .resampling import percentile_interval, make_rng, draw_counts
+from .resampling import bootstrap_se, percentile_interval, make_rng, draw_counts
 from .schema import check_confidence, check_lam
 
 __all__ = [
@@ -129,12 +129,6 @@ def _package(method, X, Y, *, slope, intercept, slope_ci, intercept_ci, slope_se
         slope_replicates=None if boot_slopes is None else np.asarray(boot_slopes, dtype=float),
         log_data=(X, Y) if method == "theil_sen" else None,
     )
-
-
-def _sd(values) -> float:
-    v = np.asarray(values, dtype=float)
-    v = v[np.isfinite(v)]
-    return float(np.std(v, ddof=1)) if v.size > 1 else math.nan
 
 
 # --------------------------------------------------------------------------
@@ -238,7 +232,8 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     LineFit
         ``method="theil_sen"``; slope interval by Sen (1968), intercept
         interval percentile bootstrap; ``slope_se``/``intercept_se`` are
-        bootstrap standard deviations.
+        robust bootstrap standard deviations (IQR / 1.349 of the replicates,
+        :func:`scaling.stats.resampling.bootstrap_se`).
 
     Notes
     -----
@@ -257,7 +252,7 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
         "theil_sen", X, Y, slope=res.slope, intercept=res.intercept,
         slope_ci=ConfidenceInterval(low, high),
         intercept_ci=percentile_interval(boot_a, confidence),
-        slope_se=_sd(boot_b), intercept_se=_sd(boot_a),
+        slope_se=bootstrap_se(boot_b), intercept_se=bootstrap_se(boot_a),
         r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
         boot_slopes=boot_b, interval_method="kendall_slope_bootstrap_intercept")
 
@@ -301,7 +296,7 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
         "siegel", X, Y, slope=res.slope, intercept=res.intercept,
         slope_ci=percentile_interval(boot[:, 0], confidence),
         intercept_ci=percentile_interval(boot[:, 1], confidence),
-        slope_se=_sd(boot[:, 0]), intercept_se=_sd(boot[:, 1]),
+        slope_se=bootstrap_se(boot[:, 0]), intercept_se=bootstrap_se(boot[:, 1]),
         r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
         boot_slopes=boot[:, 0])
 
@@ -437,7 +432,7 @@ def _robust_axis(kind, x, y, *, confidence, log_base, n_boot, seed, q) -> LineFi
         f"{kind}_robust", X, Y, slope=b, intercept=a,
         slope_ci=percentile_interval(boot_b, confidence),
         intercept_ci=percentile_interval(boot_a, confidence),
-        slope_se=_sd(boot_b), intercept_se=_sd(boot_a), r=r, base=base,
+        slope_se=bootstrap_se(boot_b), intercept_se=bootstrap_se(boot_a), r=r, base=base,
         confidence=confidence, ranges=ranges, boot_slopes=boot_b)
 
 
