@@ -1288,3 +1288,32 @@ class TestAcceptedSet:
         assert fit_interval_text(split) == "-2.098 to -0.477 or 0.477 to 2.098"
         assert "-2.098 to -0.4767 or 0.4767 to 2.098" in split.summary()
         assert "or 0.4767 to 2.098 (slope_low to slope_high is their hull)" in fit_note(split)
+
+
+class TestExactLawLeavesNoScatter:
+    """Points on y = 3 x^0.75: no residual scatter and no numpy warnings."""
+
+    X = np.array([1.0, 2, 5, 10, 30, 100, 400])   # SMA rounding left 1e-8 here
+
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    def test_resid_sd_zero_and_slope_exact_without_runtime_warnings(self, method):
+        import scaling
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            warnings.simplefilter("ignore", DegenerateDataWarning)  # the exact-fit note
+            fit = scaling.fit_line(self.X, 3 * self.X ** 0.75, method=method)
+            test = fit.test_slope(0.75)
+            other = fit.test_slope(2 / 3)
+        assert fit.resid_sd == 0.0   # exact law: every point on the line
+        assert_allclose(fit.slope, 0.75, rtol=1e-12)   # exact law
+        assert fit.note == EXACT_NOTE
+        assert test.p_value == 1.0 and other.p_value == 0.0   # exact law: b is 0.75
+
+    @pytest.mark.parametrize("method", ["sma_robust", "ma_robust", "theil_sen"])
+    def test_row_methods_on_an_exact_law_report_no_scatter(self, method):
+        import scaling
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            fit = scaling.fit_line(self.X, 3 * self.X ** 0.75, method=method)
+        assert fit.resid_sd == 0.0   # exact law
+        assert_allclose(fit.slope, 0.75, rtol=1e-9)   # exact law

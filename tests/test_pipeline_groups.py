@@ -144,3 +144,44 @@ class TestChecksFollowTheAnswer:
         text = "\n".join(res.messages)
         assert "Power law within habitats (common OLS slope" in text
         assert "Residuals of the common within-habitat OLS model" in text
+
+
+class TestExactLawRun:
+    def test_a_run_on_an_exact_law_writes_no_scatter_and_no_runtime_warning(self, tmp_path):
+        import warnings
+        x = np.array([1.0, 2, 5, 10, 30, 100, 400, 3, 7, 50, 200, 20])
+        table = pd.DataFrame({"taxon": np.repeat(["Dunefoot", "Saltmarsh", "Ridge"], 4),
+                              "mass": x, "rate": 3 * x ** 0.75})
+        cfg = _config(tmp_path, table, model={"methods": ["ols", "sma", "ma"]},
+                      figures={"formats": []})
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            res = analyse(cfg)
+        fits = res.fits[res.fits["scope"].isin(["pooled", "group", "group_means"])]
+        assert (fits["resid_sd"] == 0).all()   # exact law: y = 3 x^0.75
+        assert_allclose(fits["slope"], 0.75, rtol=1e-12)   # exact law
+
+
+class TestGroupMeansPointsNamed:
+    def test_influential_group_means_are_named_by_group(self, tmp_path):
+        # Five groups whose means lie near one line but one far out along x and off
+        # it (a strong pull on the means line, Cook's distance > 4/n by construction).
+        rng = np.random.default_rng(7)
+        names = ["Dunefoot", "Saltmarsh", "Ridge", "Hollow", "Canopy"]
+        centre = {"Dunefoot": 1.0, "Saltmarsh": 1.2, "Ridge": 1.4, "Hollow": 1.6,
+                  "Canopy": 4.0}
+        lift = {"Canopy": 1.0}
+        rows = []
+        for g in names:
+            lx = centre[g] + 0.1 * rng.standard_normal(6)
+            ly = 0.75 * lx + lift.get(g, 0.0) + 0.02 * rng.standard_normal(6)
+            rows.append(pd.DataFrame({"taxon": g, "mass": 10 ** lx, "rate": 10 ** ly}))
+        cfg = _config(tmp_path, pd.concat(rows, ignore_index=True),
+                      model={"methods": ["ols"]}, figures={"formats": []})
+        res = analyse(cfg)
+        diag = res.tables["diagnostics"]
+        verdict = diag[(diag["scope"] == "group_means") & (diag["check"] == "influence")]
+        text = " ".join(verdict["verdict"])
+        assert "group Canopy" in text and "row " not in text
+        infl = res.tables["influential_rows"]
+        assert "Canopy" in set(infl.loc[infl["scope"] == "group_means", "label"])

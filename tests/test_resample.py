@@ -132,7 +132,9 @@ class TestBootstrapLines:
             got = ours.percentile if kind == "percentile" else ours.bca
             assert_allclose([got.low, got.high], [ref.confidence_interval.low,
                                                   ref.confidence_interval.high], rtol=1e-9)
-            assert_allclose(ours.se, ref.standard_error, rtol=1e-9)  # scipy.stats.bootstrap
+            # scipy.stats.bootstrap's replicates, scaled robustly (IQR / 1.349 by numpy)
+            q1, q3 = np.percentile(ref.bootstrap_distribution, [25, 75])
+            assert_allclose(ours.se, (q3 - q1) / stats.norm.ppf(0.75) / 2, rtol=1e-9)
 
     @pytest.mark.parametrize("method, stat", [("sma", _sma), ("ols", _ols), ("ma", _ma)])
     def test_fast_draws_agree_with_scipy_within_monte_carlo_error(self, method, stat):
@@ -142,8 +144,10 @@ class TestBootstrapLines:
         # has SD sqrt(p (1 - p) / B) / phi(1.96) = 0.019 SE (normal approximation), the
         # difference of two 0.027 SE; tolerance 0.15 SE (>= 5 SD; observed <= 0.04 SE,
         # seeds 5/5).  The bootstrap SE itself: relative SD of the difference
-        # sqrt((kurtosis - 1) / (2 B)) <= 0.012 for kurtosis <= 7; tolerance rtol 0.05
-        # (observed <= 0.018).
+        # sqrt((kurtosis - 1) / (2 B)) <= 0.012 for kurtosis <= 7; the robust SE (IQR /
+        # 1.349) against the same scale of scipy's replicates: relative SD of each about
+        # 1.17 / sqrt(B) = 0.008 for normal replicates, of the difference 0.012;
+        # tolerance rtol 0.05 (> 4 SD).
         X, Y = _data()
         ours = bootstrap_lines(X, Y, methods=(method,), n_boot=20000, seed=5,
                                draws="fast").get(method)
@@ -152,10 +156,11 @@ class TestBootstrapLines:
                                   method=kind, rng=np.random.default_rng(5))
             got = ours.percentile if kind == "percentile" else ours.bca
             se = ref.standard_error
+            q1, q3 = np.percentile(ref.bootstrap_distribution, [25, 75])
             assert_allclose([got.low, got.high], [ref.confidence_interval.low,
                                                   ref.confidence_interval.high],
                             rtol=0, atol=0.15 * se)  # scipy.stats.bootstrap, MC tolerance
-            assert_allclose(ours.se, se, rtol=0.05)  # scipy.stats.bootstrap, MC tolerance
+            assert_allclose(ours.se, (q3 - q1) / 1.3489795, rtol=0.05)  # scipy.stats.bootstrap
 
     def test_fast_draws_same_with_and_without_threads(self, monkeypatch):
         # Exact law: the two streams of draws="fast" are fixed per block of resamples,
@@ -511,3 +516,39 @@ class TestSignAndBranchAwarePermutation:
         # error of a permutation p with 999 permutations, about 0.03 at most
         assert abs(res.p_value - float(p)) < 0.05
         assert "other sign" not in res.scheme
+
+
+class TestBootstrapSE:
+    def test_a_few_wild_replicates_leave_the_se_near_the_normal_sd(self):
+        # A constructed sample: the normal quantiles at (i - 0.5) / B for B = 2000
+        # (an SD-1 normal to within 1 %), with 20 replicates replaced by +-1e3.  The
+        # plain SD jumps to about 100; the robust SE is the IQR of the sample / 1.349
+        # (reference: numpy percentile of the same sample, exact) and stays near 1.
+        B = 2000
+        t = stats.norm.ppf((np.arange(1, B + 1) - 0.5) / B)
+        wild = t.copy()
+        wild[:10], wild[-10:] = -1e3, 1e3
+        q1, q3 = np.percentile(wild, [25, 75])
+        assert_allclose(resample.bootstrap_se(wild), (q3 - q1) / 1.3489795, rtol=1e-6)
+        assert_allclose(resample.bootstrap_se(wild), 1.0, rtol=0.01)   # exact law: normal SD 1
+        assert np.std(wild, ddof=1) > 50   # the SD would have said ~100
+
+    def test_normal_replicates_agree_with_the_sd_within_monte_carlo_error(self):
+        # Monte Carlo: 2000 samples of B = 2000 N(0, 2^2) replicates, one array.  The
+        # relative SD of IQR / 1.349 is 1.17 / sqrt(B) = 0.026 and of the sample SD
+        # 0.71 / sqrt(B) = 0.016 (asymptotic, common practice, no source); their ratio
+        # to the true SD averages to 1 within 3 SEs of the mean over 2000 samples, and a
+        # single sample's ratio to np.std lies within 4 SD (0.12) of 1.
+        rng = np.random.default_rng(19)
+        reps = rng.normal(0.0, 2.0, size=(2000, 2000))
+        se = np.array([resample.bootstrap_se(r) for r in reps])
+        sd = reps.std(axis=1, ddof=1)
+        ratio = se / sd
+        assert abs(ratio.mean() - 1) < 3 * ratio.std(ddof=1) / math.sqrt(ratio.size)
+        assert np.all(np.abs(ratio - 1) < 0.12)
+
+    def test_non_finite_replicates_are_dropped_and_too_few_give_nan(self):
+        assert_allclose(resample.bootstrap_se([np.nan, 1.0, 2.0, 3.0, 4.0, np.inf]),
+                        np.subtract(*np.percentile([1.0, 2, 3, 4], [75, 25])) / 1.3489795,
+                        rtol=1e-6)   # reference: numpy percentile
+        assert math.isnan(resample.bootstrap_se([1.0, np.nan]))

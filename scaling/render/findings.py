@@ -274,8 +274,12 @@ def common_slope_note(common) -> str:
 # residual checks and error structure
 
 
-def check_verdict(check) -> str:
-    """Plain-language reading of one :class:`~scaling.stats.residual_checks.Check`."""
+def check_verdict(check, *, groups: dict | None = None) -> str:
+    """Plain-language reading of one :class:`~scaling.stats.residual_checks.Check`.
+
+    ``groups`` (point number -> group name) names the points of a line through
+    group means by their group rather than by a row number.
+    """
     if check.finding == "exact_fit":
         return f"{EXACT_NOTE}; residual checks do not apply"
     p = p_text(check.p_value)
@@ -300,8 +304,13 @@ def check_verdict(check) -> str:
     if check.check == "influence":
         if check.flagged:
             rows = check.rows
-            shown = ", ".join(str(r) for r in rows[:5])
             more = f" and {len(rows) - 5} more" if len(rows) > 5 else ""
+            if groups is not None:
+                shown = ", ".join(f"group {groups.get(r, r)}" for r in rows[:5])
+                return (f"{len(rows)} group mean(s) pull the line strongly (Cook's distance "
+                        f"> 4/n): {shown}{more}; check them and refit without them to see "
+                        "the effect")
+            shown = ", ".join(str(r) for r in rows[:5])
             return (f"{len(rows)} row(s) pull the line strongly (Cook's distance > 4/n): "
                     f"row {shown}{more}; check them and refit without them to see the effect")
         return "no row has an outsized pull on the line (all Cook's distances <= 4/n)"

@@ -90,7 +90,9 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
             continue   # too few points (n < 4) or nothing to diagnose
         results[(scope, group, method)] = d
         frame = d.to_frame()
-        frame["verdict"] = [check_verdict(c) for c in d.checks]
+        # Points of the means line are groups: name them, not their positions.
+        named = labels if scope == "group_means" else None
+        frame["verdict"] = [check_verdict(c, groups=named) for c in d.checks]
         frame.insert(0, "scope", scope)
         frame.insert(1, "group", group)
         diag_frames.append(frame)

@@ -78,7 +78,9 @@ def group_stage(cfg, state) -> GroupStage:
         if left_out:
             notes.append(means_left_out_note(excluded_text(left_out), len(left_out)))
         mx, my = frame["mean_log_x"].to_numpy(), frame["mean_log_y"].to_numpy()
-        means_points = pd.DataFrame({"group": frame["group"], "log_x": mx, "log_y": my,
+        # Each point is a group: its name is its label (unit) wherever points are named.
+        means_points = pd.DataFrame({"group": frame["group"], "unit": frame["group"],
+                                     "log_x": mx, "log_y": my,
                                      "x": np.power(base, mx), "y": np.power(base, my)})
         ranges = ((value_range(means_points["x"].to_numpy()),
                    value_range(means_points["y"].to_numpy()))

@@ -269,7 +269,8 @@ def _ma_test(m: Moments, b0) -> np.ndarray:
         t_max = _corr_to_t(l1 - l2, l1 + l2, l1 + l2, m.n)
         minor = va > vb
         side = np.sign(_ma_slope(m) - b0)
-    return np.where(minor, side * np.abs(t_max), t)
+        # On an exact line t_max is infinite and side may be 0 (b0 = slope).
+        return np.where(minor, side * np.abs(t_max), t)
 
 
 def _ma_bounds(m: Moments, tcrit: np.ndarray):
@@ -389,9 +390,10 @@ def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
     exact = exact_fit(m)
     if np.any(exact):
         b = spec.slope(m)
+        # sign(0) * inf where b0 = b is computed and discarded by the where.
         with np.errstate(invalid="ignore"):
             same = np.abs(b - b0) <= 1e-9 * np.maximum(1.0, np.abs(b))
-        t = np.where(exact, np.where(same, 0.0, np.sign(b - b0) * np.inf), t)
+            t = np.where(exact, np.where(same, 0.0, np.sign(b - b0) * np.inf), t)
     df = m.n - 2
     with np.errstate(invalid="ignore"):
         p = 2 * stats.t.sf(np.abs(t), df)
@@ -435,7 +437,9 @@ def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
             var_a = resid_var / m.n + m.mean_x ** 2 * var_b
         se_a = np.sqrt(var_a)
     if np.any(exact):
+        # The residuals are rounding of the logs, not scatter: report none.
         se_a = np.where(exact, 0.0, se_a)
+        resid_var = np.where(exact, 0.0, resid_var)
     r = m.r
     out = {
         "slope": b,

@@ -72,6 +72,7 @@ __all__ = [
     "draw_counts",
     "line_from_moments",
     "bca_interval",
+    "bootstrap_se",
 ]
 
 #: Fewest resamples for a BCa interval without a warning.  BCa needs the tails
@@ -423,6 +424,42 @@ def percentile_interval(replicates, confidence: float) -> ConfidenceInterval:
     return ConfidenceInterval(float(lo), float(hi))
 
 
+# IQR of a normal distribution in SDs: 2 * Phi^-1(0.75) = 1.3490 (to 4 d.p.).
+_NORMAL_IQR = 2 * math.sqrt(2) * special.erfinv(0.5)
+
+
+def bootstrap_se(replicates) -> float:
+    """Standard error of a statistic from its bootstrap replicates, robustly.
+
+    Parameters
+    ----------
+    replicates : array_like
+        Bootstrap replicates; non-finite ones (degenerate resamples) are dropped.
+
+    Returns
+    -------
+    float
+        The interquartile range of the finite replicates divided by 1.349,
+        the IQR of a standard normal, so that it estimates the SD when the
+        replicates are normal.  NaN with fewer than two finite replicates.
+
+    Notes
+    -----
+    The plain SD of the replicates is dragged by a few wild resamples (a
+    line through a handful of nearly collinear means can tilt without
+    bound) while the percentile interval ignores them; the IQR scale agrees
+    with the interval and, for normal replicates, with the SD (its relative
+    Monte Carlo error is about 1.17 / sqrt(B) against 0.71 / sqrt(B) for
+    the SD).  IQR / 1.349 as a normal-consistent scale is common practice.
+    """
+    t = np.asarray(replicates, dtype=float)
+    t = t[np.isfinite(t)]
+    if t.size < 2:
+        return math.nan
+    q1, q3 = np.percentile(t, [25, 75])
+    return float((q3 - q1) / _NORMAL_IQR)
+
+
 # --------------------------------------------------------------------------
 # results
 
@@ -443,7 +480,8 @@ class BootstrapInterval:
     estimate : float
         The value on the original data.
     se : float
-        Standard deviation of the bootstrap replicates.
+        Robust standard deviation of the bootstrap replicates: their
+        interquartile range / 1.349 (:func:`bootstrap_se`).
     bias : float
         Mean of the replicates minus the estimate.
     percentile, bca : ConfidenceInterval
@@ -702,7 +740,7 @@ def bootstrap_lines(log_x, log_y, *, methods=("ols", "sma", "ma"), groups=None,
                 intervals.append(BootstrapInterval(
                     scope=scope, group=name, method=method, parameter=parameter,
                     estimate=est,
-                    se=float(np.std(finite, ddof=1)) if finite.size > 1 else math.nan,
+                    se=bootstrap_se(finite),
                     bias=float(finite.mean() - est) if finite.size else math.nan,
                     percentile=percentile_interval(values, confidence),
                     bca=ConfidenceInterval(lo, hi), z0=z0, acceleration=acc,

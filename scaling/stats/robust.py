@@ -66,9 +66,9 @@ from ..errors import ConfigError, DataError, DegenerateDataWarning
 from .deming import to_ma_scale
 from .line_results import (ConfidenceInterval, LineFit, line_fit_from_moments,
                            tie_term as _tie_term)
-from .lines import METHODS, fit_moments, parse_log_base, to_log, validate_xy
+from .lines import METHODS, exact_fit, fit_moments, parse_log_base, to_log, validate_xy
 from .moments import Moments, moments as _moments
-from .resampling import percentile_interval, make_rng, draw_counts
+from .resampling import bootstrap_se, percentile_interval, make_rng, draw_counts
 from .schema import check_confidence, check_lam
 
 __all__ = [
@@ -113,24 +113,22 @@ def _package(method, X, Y, *, slope, intercept, slope_ci, intercept_ci, slope_se
              interval_method="bootstrap_percentile") -> LineFit:
     n = X.size
     resid = Y - intercept - slope * X
+    m = _moments(X, Y)
+    # Points on one line (the tolerance of the classical lines): what is
+    # left is rounding of the logs, not scatter.
+    resid_sd = 0.0 if bool(exact_fit(m)) else float(math.sqrt(np.sum(resid ** 2) / (n - 2)))
     return LineFit(
         method=method, n=n, slope=float(slope), slope_ci=slope_ci,
         slope_se=float(slope_se), intercept=float(intercept),
         intercept_ci=intercept_ci, intercept_se=float(intercept_se),
         r=float(r), r2=float(r) ** 2,
-        resid_sd=float(math.sqrt(np.sum(resid ** 2) / (n - 2))),
+        resid_sd=resid_sd,
         df=float(n - 2), log_base=base, confidence=confidence,
-        moments=_moments(X, Y), x_range=ranges[0], y_range=ranges[1],
+        moments=m, x_range=ranges[0], y_range=ranges[1],
         interval_method=interval_method,
         slope_replicates=None if boot_slopes is None else np.asarray(boot_slopes, dtype=float),
         log_data=(X, Y) if method == "theil_sen" else None,
     )
-
-
-def _sd(values) -> float:
-    v = np.asarray(values, dtype=float)
-    v = v[np.isfinite(v)]
-    return float(np.std(v, ddof=1)) if v.size > 1 else math.nan
 
 
 # --------------------------------------------------------------------------
@@ -234,7 +232,8 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     LineFit
         ``method="theil_sen"``; slope interval by Sen (1968), intercept
         interval percentile bootstrap; ``slope_se``/``intercept_se`` are
-        bootstrap standard deviations.
+        robust bootstrap standard deviations (IQR / 1.349 of the replicates,
+        :func:`scaling.stats.resampling.bootstrap_se`).
 
     Notes
     -----
@@ -253,7 +252,7 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
         "theil_sen", X, Y, slope=res.slope, intercept=res.intercept,
         slope_ci=ConfidenceInterval(low, high),
         intercept_ci=percentile_interval(boot_a, confidence),
-        slope_se=_sd(boot_b), intercept_se=_sd(boot_a),
+        slope_se=bootstrap_se(boot_b), intercept_se=bootstrap_se(boot_a),
         r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
         boot_slopes=boot_b, interval_method="kendall_slope_bootstrap_intercept")
 
@@ -297,7 +296,7 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
         "siegel", X, Y, slope=res.slope, intercept=res.intercept,
         slope_ci=percentile_interval(boot[:, 0], confidence),
         intercept_ci=percentile_interval(boot[:, 1], confidence),
-        slope_se=_sd(boot[:, 0]), intercept_se=_sd(boot[:, 1]),
+        slope_se=bootstrap_se(boot[:, 0]), intercept_se=bootstrap_se(boot[:, 1]),
         r=_moments(X, Y).r, base=base, confidence=confidence, ranges=ranges,
         boot_slopes=boot[:, 0])
 
@@ -379,7 +378,9 @@ def huber_scatter(X, Y, *, weights=None, q: float = 0.9, tol: float = 1e-9,
             d2 = (Da[..., 0] ** 2 * inv00[:, None] + Da[..., 1] ** 2 * inv11[:, None]
                   + 2 * Da[..., 0] * Da[..., 1] * inv01[:, None])
             u2 = np.minimum(1.0, c2 / d2)
-        u2 = np.where(np.isfinite(u2), u2, 1.0)
+        # A distance that rounding makes negative (a singular scatter: the
+        # points on one line) is a zero distance: full weight.
+        u2 = np.where(np.isfinite(u2) & (u2 >= 0), u2, 1.0)
         u1 = np.sqrt(u2) * wa
         mu_new = (u1 @ Zc) / u1.sum(axis=1)[:, None]
         D_new = Zc[None, :, :] - mu_new[:, None, :]
@@ -423,14 +424,15 @@ def _robust_axis(kind, x, y, *, confidence, log_base, n_boot, seed, q) -> LineFi
         bm, bV, _ = huber_scatter(X, Y, weights=counts, q=q)
         bb = spec.slope(_scatter_moments(bm, bV, n))
         boot_b.append(bb)
-        boot_a.append(bm[:, 1] - bb * bm[:, 0])
+        with np.errstate(invalid="ignore"):  # a replicate with no slope: NaN
+            boot_a.append(bm[:, 1] - bb * bm[:, 0])
     boot_b, boot_a = np.concatenate(boot_b), np.concatenate(boot_a)
     r = float(V[0, 1] / math.sqrt(V[0, 0] * V[1, 1]))
     return _package(
         f"{kind}_robust", X, Y, slope=b, intercept=a,
         slope_ci=percentile_interval(boot_b, confidence),
         intercept_ci=percentile_interval(boot_a, confidence),
-        slope_se=_sd(boot_b), intercept_se=_sd(boot_a), r=r, base=base,
+        slope_se=bootstrap_se(boot_b), intercept_se=bootstrap_se(boot_a), r=r, base=base,
         confidence=confidence, ranges=ranges, boot_slopes=boot_b)
 
 
