@@ -577,6 +577,25 @@ class TestMovesAnswer:
         # the refit is much less precise: the same move is within its standard error
         assert not moves_answer(0.737, 0.020, 0.759, slope_se_without=0.030)
 
+    def test_a_point_that_inflates_the_interval_moves_the_answer(self):
+        # invented numbers: an exponent that moves 0.7 SE (1.845 -> 1.818) while the
+        # interval is 0.22 wide with the point and 0.155 without it
+        from scaling.stats.influence import NARROWS, moves_answer, narrows
+        se_with, se_without = 0.22 / 3.92, 0.155 / 3.92
+        assert abs(1.818 - 1.845) < se_without < se_with          # the move alone is small
+        assert se_without < NARROWS * se_with and narrows(se_with, se_without)
+        assert moves_answer(1.845, se_with, 1.818, slope_se_without=se_without)
+        # exact: the threshold is strict, and a point whose removal widens the
+        # interval never counts as narrowing it
+        assert not narrows(1.0, NARROWS)
+        assert not narrows(1.0, 1.3)
+        from scaling.render.headline import influence_sentence
+        said = influence_sentence(35, (("stem_mm", 4.1), ("habitat", "shade")), slope=1.845,
+                                  slope_without=1.818, slope_se=se_with,
+                                  slope_se_without=se_without)
+        assert said == ("Row 35 (stem_mm 4.1, habitat shade) moves this exponent from 1.845 "
+                        "to 1.818 and widens its interval by 42%: check it first.")
+
     def test_a_changed_verdict_moves_the_answer_whatever_the_size(self):
         from scaling.stats.influence import moves_answer
         assert moves_answer(0.737, 0.020, 0.740, ("same",), ("above",))

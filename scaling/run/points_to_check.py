@@ -260,7 +260,7 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
         changes = tuple((t, a, b) for (t, _), a, b in zip(hyps, before, after) if a != b)
         out.append((scope, group, method, PointCheck(
             kind="moves_answer", context=_context(cfg, sel, i), exponent_of=exponent_of,
-            changes=changes, **common)))
+            changes=changes, slope_se_without=float(se_without), **common)))
     return out
 
 

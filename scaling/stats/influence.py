@@ -53,7 +53,8 @@ from .schema import check_method
 
 __all__ = ["PointCheck", "leave_one_out_slopes", "cooks_distances", "points_to_check",
            "strong_influence", "fit_checks", "SMEARING_RATIO_LIMIT", "COOK_STRONG",
-           "strong_parallel_influence", "verdict_code", "moves_answer"]
+           "strong_parallel_influence", "verdict_code", "moves_answer", "narrows",
+           "NARROWS"]
 
 # --------------------------------------------------------------------------
 # points to check, graded
@@ -120,6 +121,7 @@ class PointCheck:
     slope: float = math.nan
     slope_without: float = math.nan
     slope_se: float = math.nan
+    slope_se_without: float = math.nan
     smearing_factor: float = math.nan
     parametric_factor: float = math.nan
     limit: float = math.nan
@@ -429,6 +431,17 @@ def verdict_code(estimate: float, exponent: float, p_value: float, alpha: float)
     return "not_different"
 
 
+#: A point whose removal leaves the slope's standard error below this share of
+#: its value with the point narrows the answer's interval by more than a quarter.
+NARROWS = 0.75
+
+
+def narrows(slope_se: float, slope_se_without: float) -> bool:
+    """True when removing a point narrows the slope's interval by more than a quarter."""
+    return bool(np.isfinite(slope_se) and np.isfinite(slope_se_without)
+                and slope_se > 0 and slope_se_without < NARROWS * slope_se)
+
+
 def moves_answer(slope: float, slope_se: float, slope_without: float, before=(),
                  after=(), slope_se_without: float = math.nan) -> bool:
     """True when the exponent moves by more than its standard error or a verdict changes.
@@ -447,10 +460,14 @@ def moves_answer(slope: float, slope_se: float, slope_without: float, before=(),
         larger of the two standard errors, so that dropping a point that
         carried much of the x range (and so widens the interval) is not
         mistaken for a point that moves the answer (common practice, no source).
+        A point whose removal narrows the interval by more than a quarter
+        (``slope_se_without < NARROWS * slope_se``: the point inflates the
+        scatter, as a mistyped value does) also moves the answer: it states
+        the exponent less precisely than the data do (common practice, no source).
     """
     if np.isfinite(slope) and np.isfinite(slope_without) and np.isfinite(slope_se):
         scale = max(slope_se, slope_se_without) if np.isfinite(slope_se_without) else slope_se
-        if abs(slope_without - slope) > scale:
+        if abs(slope_without - slope) > scale or narrows(slope_se, slope_se_without):
             return True
     elif np.isfinite(slope) != np.isfinite(slope_without):
         return True
