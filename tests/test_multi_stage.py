@@ -74,9 +74,12 @@ class TestPackagedExamples:
 
     def test_example_files_point_at_files_beside_the_config(self):
         files = example_files("palaeo")
-        assert set(files) == {"palaeo.yaml", "palaeo_forward.yaml", "bone_mass.csv"}
+        # the fossils the configs predict come along, named beside the config
+        assert set(files) == {"palaeo.yaml", "palaeo_forward.yaml", "bone_mass.csv",
+                              "fossils.csv"}
         text = files["palaeo.yaml"].decode()
         assert "../" not in text and "file: bone_mass.csv" in text
+        assert "(fossils.csv)" in text
 
 
 class TestExamplesEndToEnd:
