@@ -17,7 +17,7 @@ group column, groups of equal size, rows in random order), it measures
               reading, cleaning, fitting, the summary across groups, tables,
               figures and the report are all timed; the file is above
               ``data.moments_above_mb`` so the run takes the moments path.
-              Target (issue 13): under 30 s at 1e7 rows and 1e4 groups.
+              Target: under 30 s at 1e7 rows and 1e4 groups.
 (d) chunked -- ``scaling.run.table_moments.read_moments`` on a parquet file of the same
               table (chunks of ``--chunk`` rows), in a child process whose
               peak resident memory is reported against a child that only
@@ -28,7 +28,7 @@ Ratios printed: (b)/(a), (c)/(b); peak memory of (b) under tracemalloc
 input columns (``memory_usage(deep=True)``); rows per second.  (a) and (b)
 take turns ``--repeats`` times and the best time counts.
 
-Targets (issue 13): (b) within 2.5x of (a); (c)/(b) >= 10 at 1e4 groups of
+Targets: (b) within 2.5x of (a); (c)/(b) >= 10 at 1e4 groups of
 1e3 rows; peak memory of (b) < 3x the three input columns.
 
 Run:   python benchmarks/bench_scale.py                      # 1e6 rows, 1e3 groups

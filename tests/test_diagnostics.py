@@ -591,8 +591,7 @@ class TestMovesAnswer:
         assert not narrows(1.0, 1.3)
         from scaling.render.headline import influence_sentence
         said = influence_sentence(35, (("stem_mm", 4.1), ("habitat", "shade")), slope=1.845,
-                                  slope_without=1.818, slope_se=se_with,
-                                  slope_se_without=se_without)
+                                  slope_without=1.818, widens_by=se_with / se_without - 1)
         assert said == ("Row 35 (stem_mm 4.1, habitat shade) moves this exponent from 1.845 "
                         "to 1.818 and widens its interval by 42%: check it first.")
 

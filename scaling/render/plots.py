@@ -26,7 +26,7 @@ from scipy import stats
 
 from ..errors import DataError
 from ..stats.logscale import parse_log_base, to_log
-from ..stats.predictions import log_interval
+from ..stats.intervals import log_interval
 from .figure_style import (METHOD_DASHES, PALETTE, STYLE, group_style, log_margins,
                            natural_log_axis, new_figure)
 
@@ -52,7 +52,7 @@ def fit_band(fit, xs: np.ndarray, *, interval: str = "confidence"):
     Notes
     -----
     var = s_r^2/n + (X0 - mean_x)^2 var(b) (+ s_r^2 for a prediction band),
-    bounds at the t quantile on ``fit.df``; see :func:`scaling.stats.predictions.log_interval`
+    bounds at the t quantile on ``fit.df``; see :func:`scaling.stats.intervals.log_interval`
     (exact for OLS; Warton et al. 2006, Biol. Rev. 81:259 for SMA/MA; for a
     PhyloFit the moments are the phylogenetic ones, scaled so 1'V^-1 1 = n,
     which makes the same formula the GLS variance of the fitted value).

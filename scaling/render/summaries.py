@@ -14,7 +14,7 @@ nothing new.
 from __future__ import annotations
 
 from ..stats.logscale import base_label, log_word
-from ..stats.schema import method_label
+from ..stats.schema import SCATTER_SHOWN, method_label
 from .findings import comparison_summary, spread_summary  # noqa: F401 (doors of stats)
 from .wording import p_text
 
@@ -169,7 +169,6 @@ def total_range_note(total) -> str:
     """
     if not getattr(total, "beyond_shown_range", False):
         return ""
-    from ..stats.multi_predictions import SCATTER_SHOWN
     return (f" The scatter about the line (log10 SD {total.scatter_log10:.2g}) is beyond "
             f"{SCATTER_SHOWN:g}, the largest at which this interval was shown by simulation "
             "to hold its confidence: read it as approximate.")

@@ -35,8 +35,9 @@ __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_
            "answer_points"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
-from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, points_to_check,
-                               strong_influence, strong_parallel_influence, verdict_code)
+from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, narrows,
+                               points_to_check, strong_influence, strong_parallel_influence,
+                               verdict_code)
 from ..render.findings import point_check_reason
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
@@ -260,7 +261,8 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
         changes = tuple((t, a, b) for (t, _), a, b in zip(hyps, before, after) if a != b)
         out.append((scope, group, method, PointCheck(
             kind="moves_answer", context=_context(cfg, sel, i), exponent_of=exponent_of,
-            changes=changes, slope_se_without=float(se_without), **common)))
+            changes=changes, slope_se_without=float(se_without),
+            narrowed=narrows(se, se_without), **common)))
     return out
 
 

@@ -99,7 +99,12 @@ from .line_results import ConfidenceInterval, SlopeTest
 from .moments import Moments, group_moments
 from .schema import DEFAULT_SEED, EXACT_NOTE, check_confidence, check_count, check_method
 
-__all__ = ["CommonSlope", "common_slope", "CALIBRATIONS"]
+__all__ = ["CommonSlope", "common_slope", "CALIBRATIONS", "AUTO_BOOTSTRAP_BELOW"]
+
+#: ``calibration="auto"`` (here and in ``compare_groups``) uses the parametric
+#: bootstrap when the smallest compared group has fewer points than this (see
+#: docs/group_tests.md for the measured chi-square sizes that set it).
+AUTO_BOOTSTRAP_BELOW = 100
 
 #: How :func:`common_slope` calibrates its interval and tests (as ``compare_groups``).
 CALIBRATIONS = ("auto", "chi2", "bootstrap")
@@ -690,7 +695,6 @@ def common_slope(log_x, log_y, groups, *, method: str = "sma",
     >>> c.boot_profile.size        # four groups of 10: calibrated by 999 draws
     999
     """
-    from .group_comparisons import AUTO_BOOTSTRAP_BELOW   # one threshold for both doors
 
     method = check_method(method, METHODS, lower=True)
     confidence = check_confidence(confidence)

@@ -62,8 +62,9 @@ from scipy import stats
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL, check_base, factorize
-from .common_slope import (CommonSlope, _common_from_arrays, _fit_common, _parallel_lines,
-                           _pool, _profile_interval, _profile_state, _profile_terms)
+from .common_slope import (AUTO_BOOTSTRAP_BELOW, CommonSlope, _common_from_arrays,
+                           _fit_common, _parallel_lines, _pool, _profile_interval,
+                           _profile_state, _profile_terms)
 from .group_means import _compared_groups, _exclusion_warning
 from .lines import METHODS
 from .line_results import ConfidenceInterval
@@ -93,11 +94,6 @@ TESTS = ("slopes_equal", "intercepts_equal", "shift_along_axis")
 #: skipped for more than ``pairwise_max`` groups.
 NOTE_CODES = ("too_few_groups", "exact_all", "exact_all_slopes_differ", "exact_ols",
               "pairwise_skipped")
-
-#: ``calibration="auto"`` uses the parametric bootstrap when the smallest
-#: compared group has fewer points than this (see docs/group_tests.md for the
-#: measured chi-square sizes that set it).
-AUTO_BOOTSTRAP_BELOW = 100
 
 #: ``pairwise_max`` default: pairwise tests are made for at most this many groups.
 PAIRWISE_MAX = 20

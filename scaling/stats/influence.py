@@ -87,6 +87,11 @@ class PointCheck:
     slope, slope_without, slope_se : float
         ``"influence"``: the exponent, the exponent without the point, and
         the exponent's standard error.
+    slope_se_without : float
+        ``"moves_answer"``: the standard error of the refit without the point.
+    narrowed : bool
+        ``"moves_answer"``: removing the point narrows the interval by more than
+        a quarter (:func:`narrows`).
     smearing_factor, parametric_factor, limit : float
         ``"smearing"``: the two correction factors and
         :data:`SMEARING_RATIO_LIMIT`.
@@ -122,6 +127,7 @@ class PointCheck:
     slope_without: float = math.nan
     slope_se: float = math.nan
     slope_se_without: float = math.nan
+    narrowed: bool = False
     smearing_factor: float = math.nan
     parametric_factor: float = math.nan
     limit: float = math.nan

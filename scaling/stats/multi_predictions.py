@@ -75,10 +75,10 @@ from scipy import stats
 
 from ..errors import ConfigError, DataError, ExtrapolationWarning
 from .predictions import CORRECTIONS, INTERVALS
-from .schema import DEFAULT_SEED, check_confidence
+from .schema import DEFAULT_SEED, SCATTER_SHOWN, check_confidence
 
 __all__ = ["MultiPrediction", "TotalPrediction", "predict_multi", "predict_total",
-           "SCATTER_SHOWN", "TOTAL_DRAWS"]
+           "TOTAL_DRAWS"]
 
 
 # --------------------------------------------------------------------------
@@ -107,9 +107,6 @@ def _check_positive(mat: np.ndarray, names, what: str) -> None:
 #: about 0.3% of the total's spread).
 TOTAL_DRAWS = 10_000
 
-#: Log10 scatter (residual SD of log10 y) up to which the total's interval was
-#: shown by simulation to cover 0.95 +- 0.015 (tests/test_multi.py).
-SCATTER_SHOWN = 0.5
 
 # draws x rows held in memory at once
 _BLOCK = 2_000_000
