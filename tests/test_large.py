@@ -85,11 +85,12 @@ class TestAnalyseMoments:
         tmp, csv, pq, ordinary = data_files
         res = _run(_cfg(csv if kind == "csv" else pq, tmp, **extra))
         assert res.manifest["large_data"]["rows_read"] == 1000   # exact: rows written
-        ref = ordinary.fits[ordinary.fits["scope"].isin(["pooled", "group"])]
-        _same_fits(res.fits, ref[res.fits.columns].reset_index(drop=True))
+        # every scope: pooled, group, group_means and common
+        assert set(ordinary.fits["scope"]) == {"pooled", "group", "group_means", "common"}
+        _same_fits(res.fits, ordinary.fits[res.fits.columns])
         keys = ["scope", "group", "method", "hypothesis"]
         a = res.slope_tests
-        b = ordinary.slope_tests[ordinary.slope_tests["scope"].isin(["pooled", "group"])]
+        b = ordinary.slope_tests
         both = a.merge(b[a.columns], on=keys, how="outer", indicator=True)
         assert (both["_merge"] == "both").all() and len(both) == len(a) == len(b)
         # internal consistency: slope tests from merged moments vs from the rows
@@ -153,8 +154,10 @@ class TestUseMomentsPath:
 
     def test_dask_with_a_row_key_is_an_error(self, data_files):
         tmp, csv, _, _ = data_files
-        with pytest.raises(ConfigError, match="engine: dask reads x, y and group only"):
-            use_moments_path(_cfg(csv, tmp, engine="dask", data={"average_within": "taxon"}))
+        with pytest.raises(ConfigError, match="engine: dask reads x, y, group and "
+                                              "average_within only; remove data.exclude"):
+            use_moments_path(_cfg(csv, tmp, engine="dask",
+                                  data={"exclude": {"taxon": ["g0001"]}}))
 
     def test_scheduler_without_dask_is_an_error(self, data_files):
         tmp, csv, _, _ = data_files

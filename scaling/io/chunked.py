@@ -58,6 +58,10 @@ class CleanChunk:
     counts : dict
         ``reason -> rows`` (a row with two problems counts under both).
     n_rows, n_dropped : int
+    unit_labels : Index or None
+        Names of the units met in the chunk (``data.average_within``), cleaned.
+    unit_codes : ndarray of int or None
+        Unit code of each row (None without a unit column).
     """
 
     labels: pd.Index
@@ -68,6 +72,8 @@ class CleanChunk:
     counts: dict
     n_rows: int
     n_dropped: int
+    unit_labels: pd.Index | None = None
+    unit_codes: np.ndarray | None = None
 
 
 # --------------------------------------------------------------------------
@@ -149,7 +155,7 @@ def _keys(columns: list) -> dict:
 
 
 def read_chunks(path: Path, kind: str, columns: list, chunk_size: int, reader: str, sep: str,
-                decimal: str):
+                decimal: str, keys: dict | None = None):
     """Yield the ``columns`` of one file as DataFrames of about ``chunk_size`` rows.
 
     Raises
@@ -158,7 +164,7 @@ def read_chunks(path: Path, kind: str, columns: list, chunk_size: int, reader: s
         A column is missing, Parquet support is not installed, or the file
         cannot be parsed (pyarrow reader: a cell that is not a number).
     """
-    keys = _keys(columns)
+    keys = keys or _keys(columns)
     if kind == "parquet":
         try:
             import pyarrow.parquet as pq
@@ -262,7 +268,7 @@ def _group_codes(col: pd.Series):
 
 
 def clean_chunk(part: pd.DataFrame, x: str, y: str, group: str | None,
-                decimal: str) -> CleanChunk:
+                decimal: str, unit: str | None = None) -> CleanChunk:
     """Parse the numbers and group names of one chunk and mark the rows to drop.
 
     Parameters
@@ -273,6 +279,9 @@ def clean_chunk(part: pd.DataFrame, x: str, y: str, group: str | None,
         Column names (``group`` None: one group named "").
     decimal : str
         Decimal mark of numbers stored as text.
+    unit : str, optional
+        Column of units whose rows are averaged (``data.average_within``); a
+        row with no unit is dropped, as :mod:`scaling.io.tables` does.
     """
     counts: dict[str, int] = {}
     bad = None
@@ -294,9 +303,16 @@ def clean_chunk(part: pd.DataFrame, x: str, y: str, group: str | None,
             bad = missing if bad is None else (bad | missing)
     else:
         codes, labels = None, pd.Index([""], dtype=object)
+    u_codes = u_labels = None
+    if unit is not None:
+        u_codes, u_labels, missing = _group_codes(part[unit])
+        if missing.any():
+            counts[f"{unit} (data.average_within) is missing"] = int(missing.sum())
+            bad = missing if bad is None else (bad | missing)
     return CleanChunk(labels=labels, codes=codes, x=values[0], y=values[1], bad=bad,
                       counts=counts, n_rows=len(part),
-                      n_dropped=0 if bad is None else int(bad.sum()))
+                      n_dropped=0 if bad is None else int(bad.sum()),
+                      unit_labels=u_labels, unit_codes=u_codes)
 
 
 # --------------------------------------------------------------------------
@@ -304,7 +320,7 @@ def clean_chunk(part: pd.DataFrame, x: str, y: str, group: str | None,
 
 
 def dask_partitions(path: Path, kind: str, columns: list, chunk_size: int, sep: str,
-                    decimal: str) -> list:
+                    decimal: str, keys: dict | None = None) -> list:
     """The Dask partitions (delayed DataFrames) of the ``columns`` of a file, folder or glob.
 
     Raises
@@ -319,7 +335,7 @@ def dask_partitions(path: Path, kind: str, columns: list, chunk_size: int, sep: 
     except ImportError:
         raise ConfigError("engine 'dask' needs the 'dask' extra: "
                           "pip install 'scaling[dask]'") from None
-    keys = _keys(columns)
+    keys = keys or _keys(columns)
     if kind == "parquet":
         names = [str(c).strip() for c in dd.read_parquet(str(path)).columns]
         for c in columns:

@@ -95,8 +95,12 @@ def results_document(result, *, caution: str) -> dict:
         "caution": caution,
         "saved_fits": list(result.saved_fits.values()),
         "data_summary": {
-            "rows_read": result.data.n_read, "rows_dropped": len(result.dropped),
-            "points_fitted": len(result.data.points),
+            "rows_read": result.data.n_read,
+            # the large-data road counts rows instead of listing them
+            "rows_dropped": result.manifest.get("large_data", {}).get("rows_dropped",
+                                                                      len(result.dropped)),
+            "points_fitted": result.manifest.get("large_data", {}).get(
+                "points_fitted", len(result.data.points)),
             "averaged_within": result.data.averaged_within,
             "units": result.data.units, "x": cfg.data.x, "y": cfg.data.y,
             "group": cfg.data.group,

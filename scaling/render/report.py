@@ -234,11 +234,12 @@ def _data_section(result) -> Section:
     pts = data.points
     units = data.units or {}
     blocks = []
+    large = (result.manifest or {}).get("large_data", {})   # counted, not listed, rows
     facts = [
         f"Input file: {Path(str(cfg.data.file)).name}",
         f"Rows read: {data.n_read}",
-        f"Rows dropped: {len(result.dropped)}",
-        f"Points fitted: {len(pts)}",
+        f"Rows dropped: {large.get('rows_dropped', len(result.dropped))}",
+        f"Points fitted: {large.get('points_fitted', len(pts))}",
         f"x: {cfg.data.x}" + (f" ({units['x']})" if units.get("x") else ""),
         f"y: {cfg.data.y}" + (f" ({units['y']})" if units.get("y") else ""),
         f"Log base: {cfg.model.log_base}; methods: "
@@ -249,8 +250,10 @@ def _data_section(result) -> Section:
         facts.append(f"Each point is the mean (of logs) of the rows of one "
                      f"{data.averaged_within} ({getattr(data, 'n_rows_used', '')} rows used)")
     blocks.append(Block(kind="ul", items=tuple(facts)))
-    if "group" in pts.columns:
-        counts = pts.groupby("group", sort=True).size()
+    means = (result.tables or {}).get("group_means")
+    if "group" in pts.columns or (large and means is not None):
+        counts = (pts.groupby("group", sort=True).size() if "group" in pts.columns
+                  else means.set_index("group")["n"])
         blocks.append(Block(kind="p", text=f"Groups ({cfg.data.group}): " + "; ".join(
             f"{g} (n = {n})" for g, n in counts.items())))
     dropped = result.dropped
@@ -266,6 +269,11 @@ def _data_section(result) -> Section:
                                            "after the header; all are listed in "
                                            "dropped_rows.csv):"))
         blocks.append(Block(kind="table", frame=summary, name="dropped rows by reason"))
+    elif large.get("rows_dropped"):
+        blocks.append(Block(kind="p", text="Rows dropped, by reason (a row with two problems "
+                                           "counts under both; in dropped_counts.csv):"))
+        blocks.append(Block(kind="table", frame=result.tables["dropped_counts"],
+                            name="dropped rows by reason"))
     else:
         blocks.append(Block(kind="p", text="No rows were dropped."))
     return Section(title="Data", blocks=blocks, anchor="data")

@@ -15,10 +15,11 @@ import pandas as pd
 
 from ..render.wording import fit_note
 from ..stats.fit_rows import fit_row
-from ..stats.group_comparisons import compare_groups
-from ..stats.group_means import compared_groups, fit_group_means, group_means
+from ..stats.group_comparisons import compare_group_moments
+from ..stats.group_means import (compared_groups_from_moments, fit_group_means_from_moments,
+                                 group_means_from_moments)
 from ..stats.lines import MIN_N, base_label
-from ..stats.moments import moments
+from ..stats.moments import group_moments, moments
 from ..stats.robust import deming_from_moments
 from ..stats.schema import (GROUP_COMPARISON_METHODS, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS,
                      is_moment_method)
@@ -27,7 +28,7 @@ from ..render.findings import (common_slope_note, comparison_summary, excluded_t
                                means_left_out_text)
 from ..render.wording import means_left_out_note, pairwise_skipped_note, uncompared_message
 
-__all__ = ["GroupStage", "group_stage", "common_slope_rows"]
+__all__ = ["GroupStage", "group_stage", "groups_from_moments", "common_slope_rows"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -60,11 +61,58 @@ class GroupStage:
 
 
 def group_stage(cfg, state) -> GroupStage:
-    """Group means, lines through the means, and comparisons of groups."""
-    pts, base = state.data.points, state.base
+    """Group means, lines through the means, and comparisons of groups.
+
+    The rows in memory are reduced to per-group moments (one vectorised pass)
+    and handed to :func:`groups_from_moments`, the code the large-data road
+    calls with the moments it reads chunk by chunk.
+    """
+    pts = state.data.points
+    codes, uniques = pd.factorize(pd.Series(pts["group"].to_numpy(dtype=object)), sort=True)
+    labels = tuple(uniques.tolist())
+    g = len(labels)
+    X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
+    m = group_moments(X, Y, codes, n_groups=g)
+    lo, hi = np.full(g, np.inf), np.full(g, -np.inf)
+    np.minimum.at(lo, codes, X)
+    np.maximum.at(hi, codes, X)
+    n_rows = np.bincount(codes, weights=pts["n_rows"].to_numpy(dtype=float), minlength=g)
+    return groups_from_moments(cfg, m, labels, base=state.base, n_rows=n_rows,
+                               log_x_range=(lo, hi))
+
+
+def groups_from_moments(cfg, m, labels, *, base, n_rows=None, log_x_range=None,
+                        methods=None) -> GroupStage:
+    """The group stage from per-group moments: the one code of every road.
+
+    Parameters
+    ----------
+    cfg : Config
+    m : Moments
+        Arrays of shape (G,) on the log scale of ``base``: per group, the
+        points (rows, or units after ``data.average_within``) and their sums.
+    labels : tuple
+        The G group names, sorted, in the order of ``m``.
+    base : float or None
+    n_rows : ndarray, optional
+        Input rows behind each group (the ``n_rows`` column of group_means.csv).
+    log_x_range : (ndarray, ndarray), optional
+        Smallest and largest log x per group (drawn by the comparison figure).
+    methods : sequence of str, optional
+        The line methods to use (default ``cfg.model.methods``).
+
+    Returns
+    -------
+    GroupStage
+        The same tables, rows and sentences for the same moments, whichever
+        road produced them; the comparisons are calibrated with
+        ``resampling.seed``.
+    """
+    methods = list(cfg.model.methods if methods is None else methods)
     rows, fits, g_tables, messages, notes, commons = [], {}, {}, [], [], {}
-    X, Y, labels = pts["log_x"].to_numpy(), pts["log_y"].to_numpy(), pts["group"].to_numpy()
-    means = group_means(X, Y, labels, n_rows=pts["n_rows"].to_numpy())
+    if n_rows is None:
+        n_rows = m.n
+    means = group_means_from_moments(m, labels, n_rows=n_rows)
     frame = means.to_frame()
     g_tables["group_means"] = frame
     means_points = None
@@ -72,7 +120,7 @@ def group_stage(cfg, state) -> GroupStage:
         # The line through the means uses the groups the comparisons use (OLS rule for
         # the methods compare_groups does not cover; fit_group_means applies each
         # method's own rule and names the groups it leaves out in its note).
-        keep, left_out = compared_groups(X, Y, labels, method="ols", min_n=MIN_N)
+        keep, left_out = compared_groups_from_moments(m, labels, method="ols", min_n=MIN_N)
         frame = frame[frame["group"].isin(keep)].reset_index(drop=True)
         left_note = means_left_out_text(left_out)
         if left_out:
@@ -81,11 +129,11 @@ def group_stage(cfg, state) -> GroupStage:
         # Each point is a group: its name is its label (unit) wherever points are named.
         means_points = pd.DataFrame({"group": frame["group"], "unit": frame["group"],
                                      "log_x": mx, "log_y": my,
-                                     "x": np.power(base, mx), "y": np.power(base, my)})
+                                     "x": _natural(mx, base), "y": _natural(my, base)})
         ranges = ((value_range(means_points["x"].to_numpy()),
                    value_range(means_points["y"].to_numpy()))
                   if len(means_points) else ((np.nan, np.nan), (np.nan, np.nan)))
-        for method in cfg.model.methods:
+        for method in methods:
             if not is_moment_method(method):
                 row, fit = row_method_fit("group_means", "", method, means_points, cfg, base)
                 if fit is not None and left_note:
@@ -104,12 +152,12 @@ def group_stage(cfg, state) -> GroupStage:
                         fit = with_note(fit, f"{fit.note}; {left_note}" if fit.note
                                          else left_note)
                 else:
-                    fit = fit_group_means(X, Y, labels, method=method,
-                                          confidence=cfg.model.confidence, log_base=base,
-                                          weighted=cfg.groups.weight_means)
+                    fit = fit_group_means_from_moments(
+                        m, labels, method=method, confidence=cfg.model.confidence,
+                        log_base=base, weighted=cfg.groups.weight_means)
                     # the groups this method's own rule leaves out
-                    own_note = means_left_out_text(compared_groups(X, Y, labels,
-                                                                   method=method)[1])
+                    own_note = means_left_out_text(
+                        compared_groups_from_moments(m, labels, method=method)[1])
                     if own_note:
                         fit = with_note(fit, f"{fit.note}; {own_note}" if fit.note
                                         else own_note)
@@ -124,18 +172,17 @@ def group_stage(cfg, state) -> GroupStage:
                 fits[("group_means", "", method)] = fit
     if cfg.groups.compare:
         test_frames, pair_frames = [], []
-        data = (pts[["x", "y", "group"]] if base is not None
-                else pts.assign(x=pts["log_x"], y=pts["log_y"])[["x", "y", "group"]])
-        uncompared = [m for m in cfg.model.methods if m not in GROUP_COMPARISON_METHODS]
-        for method in cfg.model.methods:
+        uncompared = [m_ for m_ in methods if m_ not in GROUP_COMPARISON_METHODS]
+        for method in methods:
             if method not in GROUP_COMPARISON_METHODS:
                 continue
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                comp = compare_groups(data, "x", "y", "group", method=method,
-                                      confidence=cfg.model.confidence, log_base=base,
-                                      pairwise_max=cfg.groups.pairwise_max,
-                                      seed=cfg.resampling.seed)
+                comp = compare_group_moments(m, labels, method=method,
+                                             confidence=cfg.model.confidence, log_base=base,
+                                             pairwise_max=cfg.groups.pairwise_max,
+                                             seed=cfg.resampling.seed,
+                                             group_column="group", log_x_range=log_x_range)
             messages.append(comparison_summary(comp, list_pairs=False,
                                                group_word=str(cfg.data.group),
                                                max_key="groups.pairwise_max"))
@@ -158,6 +205,10 @@ def group_stage(cfg, state) -> GroupStage:
     return GroupStage(rows=tuple(rows + common_rows), line_fits=fits, point_sets=point_sets,
                       tables=g_tables, test_rows=tuple(test_rows), messages=tuple(messages),
                       notes=tuple(notes))
+
+
+def _natural(logs: np.ndarray, base) -> np.ndarray:
+    return logs if base is None else np.power(base, logs)
 
 
 def common_slope_rows(commons: dict, exponents: dict, *, log_base: str) -> tuple[list, list]:

@@ -8,12 +8,16 @@ Two stages used by :func:`scaling.run.pipeline.analyse`:
   chunk (or Dask partition by partition) to per-group moments merged exactly
   (Chan, Golub & LeVeque 1983), and every OLS/SMA/MA fit, interval and slope
   test follows from them (:func:`scaling.stats.grouped_fits.fit_groups_from_moments`).
+  With ``data.average_within`` the reduction has two levels (rows -> unit
+  means -> groups).  :func:`moments_group_stage` then hands the per-group
+  moments to :func:`scaling.run.groups.groups_from_moments`, the group stage
+  of the in-memory run: group means, the line through them, the three group
+  comparisons with pairwise tests and their calibration, and the common
+  within-group slope with its slope tests, with the same seed.
   Stages that need the rows (residual diagnostics, smearing and the other
   accuracy figures, influence, row-based robust lines, bootstrap,
-  permutations, the line through the group means and the group comparison
-  tests) are skipped with a note; rows
-  dropped while cleaning are counted per reason (``dropped_counts``), not
-  listed one by one.
+  permutations) are skipped with a note; rows dropped while cleaning are
+  counted per reason (``dropped_counts``), not listed one by one.
 * :func:`spread_stage` -- with more groups than ``groups.spread_min``, the
   random-effects summary of the per-group exponents of each line method
   (:func:`scaling.stats.spread.spread_from_fits`): the mean exponent with its
@@ -42,10 +46,14 @@ from ..stats.grouped_fits import fit_groups_from_moments
 from ..stats.lines import METHODS, method_label, parse_log_base
 from ..stats.line_results import line_fit_from_moments
 from ..render.wording import describe_test, fit_interval_text
+from ..stats.logscale import to_log
 from ..stats.schema import DROPPED_COLUMNS, FIT_COLUMNS, SLOPE_TEST_COLUMNS
+from .fits import blank_numbers, slope_tests
+from .groups import groups_from_moments
 
-__all__ = ["use_moments_path", "MomentsStage", "moments_stage", "SpreadStage", "spread_stage",
-           "spread_sentence", "bounded_diagnostics", "SPREAD_METHODS"]
+__all__ = ["use_moments_path", "MomentsStage", "moments_stage", "moments_group_stage",
+           "with_groups", "SpreadStage", "spread_stage", "spread_sentence",
+           "bounded_diagnostics", "SPREAD_METHODS"]
 
 #: Line methods whose per-group exponents carry a standard error for the spread summary.
 SPREAD_METHODS = ("ols", "sma", "ma")
@@ -153,8 +161,6 @@ def _unsupported(cfg) -> list:
     """Data keys the moments path cannot honour (it reads x, y, group only)."""
     d = cfg.data
     out = []
-    if d.average_within:
-        out.append("data.average_within")
     if d.exclude:
         out.append("data.exclude")
     if d.skip_rows:
@@ -178,8 +184,8 @@ def use_moments_path(cfg) -> str | None:
     keys = _unsupported(cfg)
     if cfg.engine == "dask":
         if keys:
-            raise ConfigError(f"engine: dask reads x, y and group only; remove "
-                              f"{', '.join(keys)} or use engine: pandas")
+            raise ConfigError(f"engine: dask reads x, y, group and average_within only; "
+                              f"remove {', '.join(keys)} or use engine: pandas")
         return "engine: dask"
     size = _file_mb(Path(cfg.data.file))
     if size > cfg.data.moments_above_mb and not keys:
@@ -217,10 +223,13 @@ class MomentsStage:
     line_fits : dict
         LineFits of the pooled lines only.
     tables : dict
-        ``dropped_counts`` (``reason, rows``) and ``group_means``.
+        ``dropped_counts`` (``reason, rows``); after :func:`with_groups` also
+        ``group_means``, ``group_tests`` and ``pairwise_tests``.
     messages, notes : tuple of str
     manifest : dict
         The run's manifest entries of this path (``large_data``).
+    moments : GroupedMoments
+        The per-group moments everything here was computed from.
     """
 
     config: object
@@ -232,6 +241,7 @@ class MomentsStage:
     messages: tuple = ()
     notes: tuple = ()
     manifest: dict
+    moments: object = None
 
 
 def moments_stage(cfg, reason: str) -> MomentsStage:
@@ -246,7 +256,7 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     d = cfg.data
     gm = read_moments(d.file, x=d.x, y=d.y, group=d.group, log_base=base,
                       chunk_size=d.chunk_size, engine=cfg.engine, scheduler=cfg.scheduler,
-                      sep=_sep(cfg), decimal=d.decimal)
+                      sep=_sep(cfg), decimal=d.decimal, unit=d.average_within)
     methods = [m for m in cfg.model.methods if m in METHODS]
     others = [m for m in cfg.model.methods if m not in METHODS]
     notes: list[str] = []
@@ -262,7 +272,7 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     slope_tests = res.slope_tests
     if not d.group:
         slope_tests = slope_tests[slope_tests["scope"] == "pooled"].reset_index(drop=True)
-    slope_tests = slope_tests[SLOPE_TEST_COLUMNS]
+    slope_tests = _in_fits_order(slope_tests[SLOPE_TEST_COLUMNS], fits, cfg.exponents)
 
     # LineFit objects for the pooled fits only (figures, predictions of the pooled line).
     line_fits = {}
@@ -277,15 +287,6 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
         raise DataError(f"{d.file}: no line could be fitted to the pooled rows")
 
     tables: dict = {"dropped_counts": gm.dropped_frame()}
-    if d.group:
-        m = gm.moments
-        with np.errstate(invalid="ignore", divide="ignore"):
-            se_x = np.sqrt(m.sxx / (m.n - 1) / m.n)
-            se_y = np.sqrt(m.syy / (m.n - 1) / m.n)
-        tables["group_means"] = pd.DataFrame({
-            "group": gm.labels.astype(object), "n": m.n.astype(np.int64),
-            "mean_log_x": m.mean_x, "mean_log_y": m.mean_y, "se_log_x": se_x,
-            "se_log_y": se_y})
 
     messages = [_moments_path_sentence(reason, gm.n_read, gm.n_dropped, gm.n_groups)]
     pct = f"{100 * cfg.model.confidence:g}%"
@@ -303,7 +304,7 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
         notes.append(f"Row-based methods not fitted on the large-data path: "
                      f"{', '.join(others)}.")
     notes.append(f"Stages that need the rows were skipped on the large-data path: "
-                 f"{_ROW_STAGES}, the line through the group means and the group comparison tests.")
+                 f"{_ROW_STAGES}.")
     if cfg.prediction.x or cfg.prediction.y:
         notes.append("Predictions were not made on the large-data path (they need the "
                      "residuals for the back-transformation).")
@@ -318,17 +319,62 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     empty = pd.DataFrame({"row": pd.Series(dtype=np.int64), "x": pd.Series(dtype=float),
                           "y": pd.Series(dtype=float), "log_x": pd.Series(dtype=float),
                           "log_y": pd.Series(dtype=float), "n_rows": pd.Series(dtype=np.int64)})
+    n_points = int(gm.pooled.n[0])
+    n_used = int(gm.pooled.n[0] if gm.n_rows is None else gm.n_rows.sum())
     data = CleanData(points=empty, dropped=pd.DataFrame(columns=DROPPED_COLUMNS),
-                     n_read=int(gm.n_read), units=dict(d.units), averaged_within=None,
-                     n_rows_used=int(gm.moments.n.sum()))
+                     n_read=int(gm.n_read), units=dict(d.units),
+                     averaged_within=d.average_within, n_rows_used=n_used)
     manifest = {
         "large_data": {"reason": reason, "engine": cfg.engine, "scheduler": cfg.scheduler,
                        "chunk_size": d.chunk_size, "rows_read": int(gm.n_read),
-                       "rows_dropped": int(gm.n_dropped), "groups": gm.n_groups},
+                       "rows_dropped": int(gm.n_dropped), "rows_used": n_used,
+                       "points_fitted": n_points, "groups": gm.n_groups},
     }
     return MomentsStage(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                         line_fits=line_fits, tables=tables, messages=tuple(messages),
-                        notes=tuple(notes), manifest=manifest)
+                        notes=tuple(notes), manifest=manifest, moments=gm)
+
+
+def _in_fits_order(tests: pd.DataFrame, fits: pd.DataFrame, exponents: dict) -> pd.DataFrame:
+    """Slope tests fit by fit in the order of the fits table (as the in-memory run)."""
+    where = {k: i for i, k in enumerate(zip(fits["scope"], fits["group"], fits["method"]))}
+    hyp = {name: i for i, name in enumerate(exponents)}
+    first = [where.get(k, len(where)) for k in
+             zip(tests["scope"], tests["group"], tests["method"])]
+    second = [hyp.get(h, len(hyp)) for h in tests["hypothesis"]]
+    return tests.iloc[np.lexsort((second, first))].reset_index(drop=True)
+
+
+def moments_group_stage(cfg, path: MomentsStage):
+    """The group stage of the in-memory run, from the moments the path read.
+
+    :func:`scaling.run.groups.groups_from_moments` with the per-group moments
+    (of the unit means under ``data.average_within``), the rows behind each
+    group, and the moment methods this path fits.
+    """
+    gm = path.moments
+    base = gm.log_base
+    methods = [m for m in cfg.model.methods if m in METHODS]
+    n_rows = gm.moments.n if gm.n_rows is None else gm.n_rows
+    log_range = (to_log(gm.x_min, base), to_log(gm.x_max, base))
+    return groups_from_moments(cfg, gm.moments, tuple(gm.labels.tolist()), base=base,
+                               n_rows=n_rows, log_x_range=log_range, methods=methods)
+
+
+def with_groups(path: MomentsStage, grouped, cfg) -> MomentsStage:
+    """The path's tables with the group stage's rows, tests, tables and sentences
+    added in the order of the in-memory run (group means, then the common slopes)."""
+    fits = pd.concat([path.fits, pd.DataFrame([blank_numbers(dict(r)) for r in grouped.rows],
+                                              columns=FIT_COLUMNS)], ignore_index=True)
+    tests = [path.slope_tests, slope_tests(grouped.line_fits, cfg)]
+    if grouped.test_rows:
+        tests.append(pd.DataFrame(list(grouped.test_rows), columns=SLOPE_TEST_COLUMNS))
+    tests = pd.concat([t for t in tests if len(t)], ignore_index=True)[SLOPE_TEST_COLUMNS]
+    return replace(path, fits=fits, slope_tests=tests,
+                   line_fits={**path.line_fits, **grouped.line_fits},
+                   tables={**path.tables, **grouped.tables},
+                   messages=path.messages + grouped.messages,
+                   notes=path.notes + grouped.notes)
 
 
 # --------------------------------------------------------------------------

@@ -41,7 +41,8 @@ from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COL
 from .diagnostics import diagnostics_stage, exponent_targets
 from .fits import fit_stage, fits_table_stage
 from .groups import group_stage
-from .moments_path import moments_stage, spread_stage, use_moments_path
+from .moments_path import (moments_group_stage, moments_stage, spread_stage,
+                           use_moments_path, with_groups)
 from .phylogeny import phylo_stage
 from .points_to_check import check_run
 from .predictions import prediction_stage
@@ -234,6 +235,8 @@ def _moments_run(cfg, reason: str) -> RunResult:
     """The run from per-group moments (large data), with the spread across groups."""
     path = moments_stage(cfg, reason)
     cfg = path.config   # figures cut to those this path draws
+    if cfg.data.group:  # group means, comparisons, common slope: the in-memory stage's code
+        path = with_groups(path, moments_group_stage(cfg, path), cfg)
     state = RunState(data=path.data, base=None, fits=path.fits)
     spread = spread_stage(cfg, state)
     return RunResult(config=cfg, data=path.data, fits=path.fits,

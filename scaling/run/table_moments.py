@@ -27,9 +27,10 @@ from ..errors import DataError
 from ..io.chunked import (check_chunk_size, check_column, check_reading, clean_chunk,
                           dask_compute, dask_partitions, file_kind, files_of, frame_chunks,
                           read_chunks)
-from ..stats.grouped_fits import (GroupedMoments, GroupFits, MomentAccumulator,
-                                  combine_summaries, fit_groups_from_moments,
-                                  summarise_rows, summary_frame)
+from ..stats.grouped_fits import (UNIT_COLUMNS, GroupedMoments, GroupFits,
+                                  MomentAccumulator, combine_summaries,
+                                  fit_groups_from_moments, merge_unit_sums, summarise_rows,
+                                  summary_frame, unit_sums, units_to_groups)
 from ..stats.logscale import parse_log_base
 
 __all__ = ["frame_moments", "read_moments", "fit_frame"]
@@ -94,7 +95,7 @@ def frame_moments(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
 def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
                  chunk_size: int = 1_000_000, engine: str = "pandas",
                  reader: str = "pandas", scheduler: str | None = None, sep: str = ",",
-                 decimal: str = ".") -> GroupedMoments:
+                 decimal: str = ".", unit: str | None = None) -> GroupedMoments:
     """Per-group moments of a csv or parquet file, read in chunks.
 
     Parameters
@@ -118,34 +119,77 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
         Default: Dask's local threaded scheduler.
     sep : str
         csv field separator.
+    unit : str, optional
+        Column of units (``data.average_within``): each unit's rows become
+        one point, the means of their logs, before the groups are summed.
 
     Returns
     -------
     GroupedMoments
+        With ``unit``, ``n_rows`` holds the rows behind each group.
 
     Notes
     -----
     Memory is bounded by one chunk plus O(G) arrays; chunks are merged by
     :func:`scaling.stats.moments.merge_moments` (Chan, Golub & LeVeque 1983), Dask
-    partitions by :func:`scaling.stats.moments.combine_moments`.
+    partitions by :func:`scaling.stats.moments.combine_moments`.  With
+    ``unit`` the reduction has two levels: per-unit row counts and sums of
+    the logs are merged across chunks (memory: one row per unit), then the
+    unit means are reduced to group moments; with Dask the per-partition
+    unit sums are merged by a Dask groupby on the unit.
     """
     path = Path(path)
     base = parse_log_base(log_base)
     check_reading(engine, reader, scheduler)
     chunk_size = check_chunk_size(chunk_size)
     kind = file_kind(path)
-    columns = [x, y] + ([group] if group else [])
+    columns = [x, y] + ([group] if group else []) + ([unit] if unit else [])
+    keys = {x: "data.x", y: "data.y", **({group: "data.group"} if group else {}),
+            **({unit: "data.average_within"} if unit else {})}
     if engine == "dask":
-        result = _dask_moments(path, kind, columns, x, y, group, base, chunk_size,
+        result = _dask_moments(path, kind, columns, keys, x, y, group, unit, base, chunk_size,
                                scheduler, sep, decimal)
+    elif unit:
+        pieces, counts, n_read, n_dropped, units = [], {}, 0, 0, None
+        for file in files_of(path, kind):
+            for part in read_chunks(file, kind, columns, chunk_size, reader, sep, decimal,
+                                    keys):
+                frame, c, n_rows, n_drop = _partition_units(part, x, y, group, unit, base,
+                                                            decimal)
+                pieces.append(frame)
+                n_read, n_dropped = n_read + n_rows, n_dropped + n_drop
+                _add_counts(counts, c)
+                if len(pieces) >= 8:      # merge as we go: memory stays one row per unit
+                    units = merge_unit_sums([units] + pieces if units is not None else pieces)
+                    pieces = []
+        units = merge_unit_sums(([units] if units is not None else []) + pieces)
+        result = _unit_groups(units, str(path), group, unit, n_read=n_read, counts=counts,
+                              n_dropped=n_dropped, base=base)
     else:
         acc = MomentAccumulator()
         for file in files_of(path, kind):
-            for part in read_chunks(file, kind, columns, chunk_size, reader, sep, decimal):
+            for part in read_chunks(file, kind, columns, chunk_size, reader, sep, decimal,
+                                    keys):
                 _feed(acc, part, x, y, group, base, decimal)
         result = acc.result(base)
     _no_rows(str(path), result)
     return result
+
+
+def _add_counts(total: dict, counts: dict) -> None:
+    for reason, k in counts.items():
+        total[reason] = total.get(reason, 0) + k
+
+
+def _unit_groups(units: pd.DataFrame, where: str, group, unit, **kw) -> GroupedMoments:
+    """Group moments of the unit means; a unit in two groups is a DataError naming it."""
+    split = units["group_min"] != units["group_max"]
+    if split.any():
+        row = units[split].iloc[0]
+        raise DataError(f"{where}: {unit} '{row['unit']}' appears in more than one group "
+                        f"({group}: {row['group_min']}, {row['group_max']}, ...); "
+                        "each unit must belong to one group")
+    return units_to_groups(units, **kw)
 
 
 def _partition_summary(pdf: pd.DataFrame, x, y, group, base, decimal):
@@ -156,22 +200,57 @@ def _partition_summary(pdf: pd.DataFrame, x, y, group, base, decimal):
     return frame, c.counts, len(pdf), c.n_dropped
 
 
-def _dask_moments(path, kind, columns, x, y, group, base, chunk_size, scheduler, sep,
-                  decimal) -> GroupedMoments:
-    partitions = dask_partitions(path, kind, columns, chunk_size, sep, decimal)
+def _tail(item: tuple) -> tuple:
+    return item[1:]
+
+
+def _partition_units(pdf: pd.DataFrame, x, y, group, unit, base, decimal):
+    """Per-unit sums of one chunk or Dask partition and its drop counts."""
+    pdf.columns = [str(c).strip() for c in pdf.columns]
+    c = clean_chunk(pdf, x, y, group, decimal, unit=unit)
+    frame = unit_sums(c.unit_labels, c.unit_codes, c.labels, c.codes, c.x, c.y, c.bad, base)
+    return frame, c.counts, len(pdf), c.n_dropped
+
+
+def _dask_moments(path, kind, columns, keys, x, y, group, unit, base, chunk_size, scheduler,
+                  sep, decimal) -> GroupedMoments:
+    partitions = dask_partitions(path, kind, columns, chunk_size, sep, decimal, keys)
     import dask   # dask_partitions has checked that it is installed
+    if unit:
+        import dask.dataframe as dd
+        tasks = [dask.delayed(_partition_units)(part, x, y, group, unit, base, decimal)
+                 for part in partitions]
+        frames = [t[0] for t in tasks]
+        meta = pd.DataFrame({"unit": pd.Series(dtype=object),
+                             "group_min": pd.Series(dtype=object),
+                             "group_max": pd.Series(dtype=object),
+                             "n": pd.Series(dtype=float), "sum_x": pd.Series(dtype=float),
+                             "sum_y": pd.Series(dtype=float)})[UNIT_COLUMNS]
+        # the groupby on the unit runs on the cluster; the driver gets one row per unit
+        merged = (dd.from_delayed(frames, meta=meta, verify_meta=False).groupby("unit")
+                  .agg({"group_min": "min", "group_max": "max", "n": "sum", "sum_x": "sum",
+                        "sum_y": "sum"}))
+        extras = [dask.delayed(_tail)(t) for t in tasks]
+        units, *rest = dask_compute([merged] + extras, scheduler)
+        counts: dict[str, int] = {}
+        n_read = n_dropped = 0
+        for c, n_rows, n_drop in rest:
+            _add_counts(counts, c)
+            n_read, n_dropped = n_read + n_rows, n_dropped + n_drop
+        units = units.reset_index()[UNIT_COLUMNS]
+        return _unit_groups(units, str(path), group, unit, n_read=n_read, counts=counts,
+                            n_dropped=n_dropped, base=base)
     tasks = [dask.delayed(_partition_summary)(part, x, y, group, base, decimal)
              for part in partitions]
     parts = dask_compute(tasks, scheduler)
-    counts: dict[str, int] = {}
+    counts = {}
     n_read = n_dropped = 0
     frames = []
     for frame, c, n_rows, n_drop in parts:        # one small item per partition
         frames.append(frame)
         n_read += n_rows
         n_dropped += n_drop
-        for reason, k in c.items():
-            counts[reason] = counts.get(reason, 0) + k
+        _add_counts(counts, c)
     return combine_summaries(frames, n_read=n_read, counts=counts, n_dropped=n_dropped,
                              base=base)
 

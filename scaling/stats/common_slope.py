@@ -99,7 +99,8 @@ from .line_results import ConfidenceInterval, SlopeTest
 from .moments import Moments, group_moments
 from .schema import DEFAULT_SEED, EXACT_NOTE, check_confidence, check_count, check_method
 
-__all__ = ["CommonSlope", "common_slope", "CALIBRATIONS", "AUTO_BOOTSTRAP_BELOW"]
+__all__ = ["CommonSlope", "common_slope", "common_slope_from_moments", "CALIBRATIONS",
+           "AUTO_BOOTSTRAP_BELOW"]
 
 #: ``calibration="auto"`` (here and in ``compare_groups``) uses the parametric
 #: bootstrap when the smallest compared group has fewer points than this (see
@@ -206,8 +207,15 @@ def _grid_minimum(method, loc, q, nu, lo, hi, *, points: int = 361):
     j = np.argmin(values, axis=1)
     step = (hi - lo) / (points - 1)
     centre = grid[np.arange(grid.shape[0]), j]
-    return _golden(method, loc, q, nu, np.maximum(centre - step, lo),
-                   np.minimum(centre + step, hi))
+    x = _golden(method, loc, q, nu, np.maximum(centre - step, lo), np.minimum(centre + step, hi))
+    # Golden section compares values of F, which are flat to rounding within about
+    # sqrt(eps F / F'') of the minimum (1e-9 here); Newton steps on F' finish the job.
+    for _ in range(3):
+        _, g1, g2 = _profile_terms(method, x, loc, q, nu)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            dx = -g1 / g2
+        x = np.where((g2 > 0) & np.isfinite(dx) & (np.abs(dx) <= step), x + dx, x)
+    return x
 
 
 def _axis_params(method, sxx, syy, sxy):
@@ -696,6 +704,33 @@ def common_slope(log_x, log_y, groups, *, method: str = "sma",
     999
     """
 
+    X, Y = check_logs(log_x, log_y)
+    codes, labels = factorize(groups, X.size)
+    m = group_moments(X, Y, codes, n_groups=len(labels))
+    return common_slope_from_moments(m, labels, method=method, confidence=confidence,
+                                     calibration=calibration, n_boot=n_boot, seed=seed)
+
+
+def common_slope_from_moments(m: Moments, labels, *, method: str = "sma",
+                              confidence: float = 0.95, calibration: str = "auto",
+                              n_boot: int = 999,
+                              seed: int | None = DEFAULT_SEED) -> CommonSlope:
+    """:func:`common_slope` from per-group moments.
+
+    Parameters
+    ----------
+    m : Moments
+        Arrays of shape (G,), one element per group, on the log scale.
+    labels : sequence
+        The G group labels, in the order of ``m``.
+    method, confidence, calibration, n_boot, seed
+        As for :func:`common_slope`; the same seed gives the same draws.
+
+    Returns
+    -------
+    CommonSlope
+        Equal to :func:`common_slope` on the rows behind ``m``.
+    """
     method = check_method(method, METHODS, lower=True)
     confidence = check_confidence(confidence)
     if calibration not in CALIBRATIONS:
@@ -704,9 +739,10 @@ def common_slope(log_x, log_y, groups, *, method: str = "sma",
     n_boot = check_count(n_boot, "n_boot", 19)
     if seed is not None:
         seed = check_count(seed, "seed", 0)
-    X, Y = check_logs(log_x, log_y)
-    codes, labels = factorize(groups, X.size)
-    m = group_moments(X, Y, codes, n_groups=len(labels))
+    labels = tuple(labels)
+    if len(labels) != np.size(m.n):
+        raise DataError(f"labels must name each of the {np.size(m.n)} groups, "
+                        f"not {len(labels)}")
     notes = fit_notes(m, method)
     bad = [f"{labels[i]!r}: {notes[i]}" for i in range(len(labels)) if notes[i]]
     if bad:

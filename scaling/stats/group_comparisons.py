@@ -69,7 +69,7 @@ from .group_means import _compared_groups, _exclusion_warning
 from .lines import METHODS
 from .line_results import ConfidenceInterval
 from .logscale import to_log
-from .moments import group_moments
+from .moments import Moments, group_moments
 from .schema import (DEFAULT_SEED, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS, check_confidence,
                      check_count, check_method)
 
@@ -83,6 +83,7 @@ __all__ = [
     "holm_adjust",
     "GroupComparison",
     "compare_groups",
+    "compare_group_moments",
 ]
 
 #: Names of the three comparisons, in the order they are reported.
@@ -634,16 +635,80 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
         X, Y, labels_raw = _average_units(X, Y, labels_raw, df, average_within, group)
     codes, labels = factorize(labels_raw, X.size)
     m = group_moments(X, Y, codes, n_groups=len(labels))
-
-    used, excluded, all_exact = _compared_groups(m, labels, method, min_n)
-    if excluded:
-        warnings.warn(_exclusion_warning("the comparison", excluded),
-                      DegenerateDataWarning, stacklevel=2)
     lo = np.full(len(labels), np.inf)
     hi = np.full(len(labels), -np.inf)
     np.minimum.at(lo, codes, X)
     np.maximum.at(hi, codes, X)
-    common = dict(method=method, group_column=str(group), confidence=confidence,
+    return _compare(m, labels, (lo, hi), method=method, group_column=str(group),
+                    confidence=confidence, base=base, min_n=min_n, calibration=calibration,
+                    n_boot=n_boot, seed=seed, pairwise_max=pairwise_max)
+
+
+def compare_group_moments(m: Moments, labels, *, method: str = "sma",
+                          confidence: float = 0.95, log_base=10, min_n: int = 3,
+                          calibration: str = "auto", n_boot: int = 999,
+                          seed: int | None = DEFAULT_SEED, pairwise_max: int = PAIRWISE_MAX,
+                          group_column: str = "group",
+                          log_x_range=None) -> GroupComparison:
+    """:func:`compare_groups` from per-group moments: the road of every run.
+
+    Parameters
+    ----------
+    m : Moments
+        Arrays of shape (G,): n, means and centred sums of log x and log y
+        in each group (rows, or units after averaging within units).
+    labels : sequence
+        The G group labels, in the order of ``m`` (the in-memory road sorts them).
+    method, confidence, log_base, min_n, calibration, n_boot, seed, pairwise_max
+        As for :func:`compare_groups`; the same seed gives the same
+        bootstrap draws, so the rows and their moments give the same p-values.
+    group_column : str
+        Name of the group column (recorded in the result).
+    log_x_range : (ndarray, ndarray), optional
+        Smallest and largest log x of each group (what :meth:`GroupComparison.plot`
+        draws each group's line over); NaN when not given.
+
+    Returns
+    -------
+    GroupComparison
+
+    Notes
+    -----
+    Every statistic of :func:`compare_groups` is a function of these
+    moments (module notes), so the in-memory, chunked and Dask roads of a
+    run call this one function and agree to rounding.
+    """
+    method = check_method(method, METHODS, lower=True)
+    confidence = check_confidence(confidence)
+    base = check_base(log_base)
+    min_n = check_count(min_n, "min_n", 3)
+    if calibration not in _CALIBRATIONS:
+        raise ConfigError(f"calibration must be one of {', '.join(_CALIBRATIONS)}, "
+                          f"not {calibration!r}")
+    n_boot = check_count(n_boot, "n_boot", 19)
+    pairwise_max = check_count(pairwise_max, "pairwise_max", 2)
+    if seed is not None:
+        seed = check_count(seed, "seed", 0)
+    labels = tuple(labels)
+    g = len(labels)
+    if g != np.size(m.n):
+        raise DataError(f"labels must name each of the {np.size(m.n)} groups, not {g}")
+    if log_x_range is None:
+        log_x_range = (np.full(g, np.nan), np.full(g, np.nan))
+    return _compare(m, labels, log_x_range, method=method, group_column=str(group_column),
+                    confidence=confidence, base=base, min_n=min_n, calibration=calibration,
+                    n_boot=n_boot, seed=seed, pairwise_max=pairwise_max)
+
+
+def _compare(m: Moments, labels: tuple, log_x_range, *, method, group_column, confidence,
+             base, min_n, calibration, n_boot, seed, pairwise_max) -> GroupComparison:
+    """The comparison from checked arguments and per-group moments."""
+    lo, hi = (np.asarray(r, dtype=float) for r in log_x_range)
+    used, excluded, all_exact = _compared_groups(m, labels, method, min_n)
+    if excluded:
+        warnings.warn(_exclusion_warning("the comparison", excluded),
+                      DegenerateDataWarning, stacklevel=3)
+    common = dict(method=method, group_column=group_column, confidence=confidence,
                   log_base=base, calibration=calibration, n_boot=n_boot, seed=seed,
                   min_n=min_n,
                   excluded=excluded, groups=tuple(labels[i] for i in used),
@@ -703,7 +768,7 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
         if other:
             warnings.warn(f"the SMA comparison uses slope magnitudes; group(s) "
                           f"{', '.join(map(str, other))} have a correlation of the opposite "
-                          f"sign to the common slope", DegenerateDataWarning, stacklevel=2)
+                          f"sign to the common slope", DegenerateDataWarning, stacklevel=3)
     alpha = 1 - confidence
     pairwise = []
     rejected = [t.test for t in tests if t.p_value <= alpha]

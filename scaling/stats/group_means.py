@@ -31,6 +31,9 @@ __all__ = [
     "group_means",
     "fit_group_means",
     "compared_groups",
+    "group_means_from_moments",
+    "fit_group_means_from_moments",
+    "compared_groups_from_moments",
     "NO_VARIATION_EPS",
 ]
 
@@ -221,22 +224,54 @@ def group_means(log_x, log_y, groups, *, n_rows=None) -> GroupMeansResult:
 
     Notes
     -----
-    se = sqrt(S/(n - 1))/sqrt(n) with S the centred sum of squares from
-    :func:`scaling.stats.moments.group_moments` (all groups in one pass).
+    The rows are reduced to per-group moments
+    (:func:`scaling.stats.moments.group_moments`, all groups in one pass) and
+    handed to :func:`group_means_from_moments`.
     """
     X, Y = check_logs(log_x, log_y)
     codes, labels = factorize(groups, X.size)
     m = group_moments(X, Y, codes, n_groups=len(labels))
-    se_x, se_y = _means_from_moments(m)
     rows = None
     if n_rows is not None:
         counts = np.asarray(n_rows, dtype=float)
         if counts.shape != X.shape or np.any(~np.isfinite(counts)) or np.any(counts < 1):
             raise DataError("n_rows must give a positive count for every row")
-        rows = np.bincount(codes, weights=counts, minlength=len(labels)).astype(int)
-    return GroupMeansResult(groups=labels, n=m.n.astype(int), mean_log_x=m.mean_x,
-                            mean_log_y=m.mean_y, se_log_x=se_x, se_log_y=se_y,
-                            n_rows=rows)
+        rows = np.bincount(codes, weights=counts, minlength=len(labels))
+    return group_means_from_moments(m, labels, n_rows=rows)
+
+
+def group_means_from_moments(m: Moments, labels, *, n_rows=None) -> GroupMeansResult:
+    """Means and standard errors of log x and log y from per-group moments.
+
+    Parameters
+    ----------
+    m : Moments
+        Arrays of shape (G,): one element per group, on the log scale.
+    labels : sequence
+        The G group labels, in the order of ``m``.
+    n_rows : array_like of int, shape (G,), optional
+        Input rows behind each group (more than ``n`` after averaging within
+        units); written as the ``n_rows`` column.
+
+    Returns
+    -------
+    GroupMeansResult
+
+    Notes
+    -----
+    se = sqrt(S/(n - 1))/sqrt(n) with S the centred sum of squares (NaN for
+    n = 1).  Every road of a run (rows in memory, chunks, Dask partitions)
+    calls this with its per-group moments.
+    """
+    labels = tuple(labels)
+    if len(labels) != np.size(m.n):
+        raise DataError(f"labels must name each of the {np.size(m.n)} groups, "
+                        f"not {len(labels)}")
+    se_x, se_y = _means_from_moments(m)
+    rows = None if n_rows is None else np.asarray(n_rows, dtype=float).astype(int)
+    return GroupMeansResult(groups=labels, n=np.asarray(m.n).astype(int),
+                            mean_log_x=np.asarray(m.mean_x), mean_log_y=np.asarray(m.mean_y),
+                            se_log_x=se_x, se_log_y=se_y, n_rows=rows)
 
 
 def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.95,
@@ -296,6 +331,30 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
     X, Y = check_logs(log_x, log_y)
     codes, labels = factorize(groups, X.size)
     gm = group_moments(X, Y, codes, n_groups=len(labels))
+    return _fit_means(gm, labels, method, confidence, base, weighted, min_n)
+
+
+def fit_group_means_from_moments(m: Moments, labels, *, method: str,
+                                 confidence: float = 0.95, log_base=10,
+                                 weighted: bool = False, min_n: int = 3) -> LineFit:
+    """:func:`fit_group_means` from per-group moments (arrays of shape (G,)).
+
+    Every road of a run calls this with its per-group moments; the groups
+    used, the warnings and the fit are those of :func:`fit_group_means` on
+    the rows behind ``m``.
+    """
+    method = check_method(method, METHODS, lower=True)
+    confidence = check_confidence(confidence)
+    base = check_base(log_base)
+    min_n = check_count(min_n, "min_n", 3)
+    if weighted and method != "ols":
+        raise ConfigError(f"weighted=True is available only for method='ols' (weighted least "
+                          f"squares), not {method!r}: no weighted {method.upper()} estimator "
+                          "with valid intervals is implemented")
+    return _fit_means(m, tuple(labels), method, confidence, base, weighted, min_n)
+
+
+def _fit_means(gm: Moments, labels, method, confidence, base, weighted, min_n) -> LineFit:
     used, excluded, _ = _compared_groups(gm, labels, method, min_n)
     idx = np.asarray(used, dtype=np.intp)
     mx, my, counts = gm.mean_x[idx], gm.mean_y[idx], gm.n[idx]
@@ -336,6 +395,15 @@ def compared_groups(log_x, log_y, groups, *, method: str = "sma", min_n: int = 3
     X, Y = check_logs(log_x, log_y)
     codes, labels = factorize(groups, X.size)
     gm = group_moments(X, Y, codes, n_groups=len(labels))
-    used, excluded, _ = _compared_groups(gm, labels, method, min_n)
+    return compared_groups_from_moments(gm, labels, method=method, min_n=min_n)
+
+
+def compared_groups_from_moments(m: Moments, labels, *, method: str = "sma",
+                                 min_n: int = 3):
+    """:func:`compared_groups` from per-group moments (arrays of shape (G,))."""
+    method = check_method(method, METHODS, lower=True)
+    min_n = check_count(min_n, "min_n", 3)
+    labels = tuple(labels)
+    used, excluded, _ = _compared_groups(m, labels, method, min_n)
     return tuple(labels[i] for i in used), excluded
 

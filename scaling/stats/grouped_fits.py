@@ -23,7 +23,7 @@ Memory is bounded by one slice of rows plus a few arrays of length G (groups).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -49,6 +49,10 @@ __all__ = [
     "SLOPE_TEST_TABLE_COLUMNS",
     "SUMMARY_COLUMNS",
     "summary_frame",
+    "UNIT_COLUMNS",
+    "unit_sums",
+    "merge_unit_sums",
+    "units_to_groups",
 ]
 
 #: Columns of the fits table and of the slope-test table (from scaling.stats.schema).
@@ -89,6 +93,9 @@ class GroupedMoments:
     n_dropped : int
         Rows dropped (each once).
     log_base : float or None
+    n_rows : ndarray or None
+        Input rows behind each group, when the points are unit means
+        (``data.average_within``); None when every point is one row.
     """
 
     labels: np.ndarray
@@ -102,6 +109,7 @@ class GroupedMoments:
     dropped: dict = field(default_factory=dict)
     n_dropped: int = 0
     log_base: float | None = 10.0
+    n_rows: np.ndarray | None = None
 
     @property
     def n_groups(self) -> int:
@@ -305,7 +313,8 @@ def pooled_view(gm: GroupedMoments) -> GroupedMoments:
     return GroupedMoments(labels=np.array([""]), moments=gm.pooled, pooled=gm.pooled,
                           x_min=ranges[0], x_max=ranges[1], y_min=ranges[2],
                           y_max=ranges[3], n_read=gm.n_read, dropped=dict(gm.dropped),
-                          n_dropped=gm.n_dropped, log_base=gm.log_base)
+                          n_dropped=gm.n_dropped, log_base=gm.log_base,
+                          n_rows=None if gm.n_rows is None else np.atleast_1d(gm.n_rows.sum()))
 
 
 def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
@@ -386,3 +395,96 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
                    else pd.DataFrame(columns=SLOPE_TEST_TABLE_COLUMNS))
     return GroupFits(fits=fits, slope_tests=slope_tests, moments=gm)
 
+
+# --------------------------------------------------------------------------
+# two levels: rows -> unit means -> groups (data.average_within)
+
+#: Columns of the per-unit partial sums of a piece (:func:`unit_sums`).
+UNIT_COLUMNS = ["unit", "group_min", "group_max", "n", "sum_x", "sum_y"]
+
+
+def unit_sums(unit_labels: pd.Index, unit_codes, labels: pd.Index, codes, x, y, bad,
+              base) -> pd.DataFrame:
+    """Per-unit row counts and sums of log x and log y of one piece of rows.
+
+    Parameters
+    ----------
+    unit_labels, unit_codes
+        Unit names of the piece and the unit code of each row.
+    labels, codes
+        Group names and the group code of each row (codes None: one group).
+    x, y, bad, base
+        As for :func:`summarise_rows`.
+
+    Returns
+    -------
+    DataFrame
+        :data:`UNIT_COLUMNS`, one row per unit met; ``group_min`` and
+        ``group_max`` are the smallest and largest group name of its rows
+        (they differ when a unit spans two groups).
+
+    Notes
+    -----
+    The unit mean of the logs is sum/n once every piece's sums are merged
+    (:func:`merge_unit_sums`); memory is one row per unit.
+    """
+    keep = slice(None) if bad is None else ~bad
+    u = np.asarray(unit_codes)[keep]
+    lx, ly = to_log(np.asarray(x)[keep], base), to_log(np.asarray(y)[keep], base)
+    gc = (np.zeros(u.size, dtype=np.intp) if codes is None
+          else np.asarray(codes, dtype=np.intp)[keep])
+    k = len(unit_labels)
+    n = np.bincount(u, minlength=k).astype(float)
+    sx = np.bincount(u, weights=lx, minlength=k)
+    sy = np.bincount(u, weights=ly, minlength=k)
+    # group names ranked so that min/max of ranks are min/max of names
+    names = np.asarray(labels, dtype=object).astype(str)
+    rank = np.argsort(np.argsort(names, kind="stable"), kind="stable")
+    gmin, gmax = np.full(k, names.size), np.full(k, -1)
+    np.minimum.at(gmin, u, rank[gc])
+    np.maximum.at(gmax, u, rank[gc])
+    used = n > 0
+    by_rank = names[np.argsort(rank)] if names.size else names
+    return pd.DataFrame({"unit": np.asarray(unit_labels, dtype=object)[used],
+                         "group_min": by_rank[gmin[used]] if used.any() else [],
+                         "group_max": by_rank[gmax[used]] if used.any() else [],
+                         "n": n[used], "sum_x": sx[used], "sum_y": sy[used]},
+                        columns=UNIT_COLUMNS)
+
+
+def merge_unit_sums(frames: list) -> pd.DataFrame:
+    """Merge per-unit sums of many pieces (a groupby on the unit)."""
+    frames = [f for f in frames if len(f)]
+    if not frames:
+        return pd.DataFrame({c: [] for c in UNIT_COLUMNS})
+    table = pd.concat(frames, ignore_index=True)
+    return (table.groupby("unit", sort=False)
+            .agg(group_min=("group_min", "min"), group_max=("group_max", "max"),
+                 n=("n", "sum"), sum_x=("sum_x", "sum"), sum_y=("sum_y", "sum"))
+            .reset_index()[UNIT_COLUMNS])
+
+
+def units_to_groups(units: pd.DataFrame, *, n_read, counts, n_dropped, base) -> GroupedMoments:
+    """Per-group moments of the unit means (each unit one point), with rows per group.
+
+    ``units`` holds merged per-unit sums (:func:`merge_unit_sums`) whose
+    units each lie in one group (``group_min == group_max``; the caller checks).
+    """
+    n = units["n"].to_numpy(dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lx = units["sum_x"].to_numpy(dtype=float) / n
+        ly = units["sum_y"].to_numpy(dtype=float) / n
+    codes, uniques = pd.factorize(units["group_min"].astype(object), sort=False)
+    g = len(uniques)
+    m = group_moments(lx, ly, codes, n_groups=g)
+    ranges = []
+    for v, fn, start in ((lx, np.minimum, np.inf), (lx, np.maximum, -np.inf),
+                         (ly, np.minimum, np.inf), (ly, np.maximum, -np.inf)):
+        out = np.full(g, start)
+        fn.at(out, codes, v)
+        ranges.append(out)
+    rows = np.bincount(codes, weights=n, minlength=g)
+    gm = grouped_moments(pd.Index(uniques, dtype=object), m, ranges, n_read=n_read,
+                         counts=counts, n_dropped=n_dropped, base=base)
+    order = np.argsort(np.asarray(uniques, dtype=object).astype(str), kind="stable")
+    return replace(gm, n_rows=rows[order])
