@@ -286,3 +286,89 @@ class TestFilesAndPooled:
                         [fit.slope, fit.intercept, df["mass"].min(), df["rate"].max()],
                         rtol=1e-12)
         assert res.slope_tests.iloc[0].scope == "pooled"
+
+
+class TestGroupFunctionsFromMoments:
+    """The group functions of every road, fed per-group moments merged from chunks."""
+
+    @staticmethod
+    def _inputs(chunk_size=None):
+        df = _table(seed=4, n=700, groups=6)
+        gm = frame_moments(df, x="mass", y="rate", group="clade", chunk_size=chunk_size)
+        return df, np.log10(df["mass"].to_numpy()), np.log10(df["rate"].to_numpy()), gm
+
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    def test_comparison_from_chunk_moments_equals_the_rows(self, method):
+        from scaling.stats.group_comparisons import compare_group_moments
+        df, _, _, gm = self._inputs(chunk_size=53)
+        rows = scaling.compare_groups(df, "mass", "rate", "clade", method=method,
+                                      pairwise_max=6)
+        merged = compare_group_moments(gm.moments, gm.labels, method=method,
+                                       pairwise_max=6, group_column="clade")
+        assert merged.groups == rows.groups and merged.group_n == rows.group_n
+        for a, b in ((rows.to_frame(), merged.to_frame()),
+                     (rows.pairwise_frame(), merged.pairwise_frame())):
+            assert len(a) == len(b) and list(a.columns) == list(b.columns)
+            for col in a.columns:
+                if pd.api.types.is_numeric_dtype(a[col]):
+                    # internal consistency: the same statistics from rows and from merged
+                    # chunk moments, the same seed for the bootstrap
+                    assert_allclose(b[col].to_numpy(float), a[col].to_numpy(float),
+                                    rtol=1e-9, atol=1e-12, err_msg=col)
+                else:
+                    assert b[col].tolist() == a[col].tolist()
+
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    def test_common_slope_and_means_from_moments_equal_the_rows(self, method):
+        from scaling.stats.common_slope import common_slope, common_slope_from_moments
+        from scaling.stats.group_means import (fit_group_means, fit_group_means_from_moments,
+                                               group_means, group_means_from_moments)
+        df, X, Y, gm = self._inputs(chunk_size=71)
+        g = df["clade"].to_numpy()
+        a = common_slope(X, Y, g, method=method)
+        b = common_slope_from_moments(gm.moments, gm.labels, method=method)
+        # internal consistency: rows vs merged chunk moments
+        assert_allclose([b.slope, b.slope_ci.low, b.slope_ci.high, b.slope_se],
+                        [a.slope, a.slope_ci.low, a.slope_ci.high, a.slope_se], rtol=1e-9)
+        assert_allclose(b.test_slope(0.75).p_value, a.test_slope(0.75).p_value, rtol=1e-9)
+        fa = fit_group_means(X, Y, g, method=method)
+        fb = fit_group_means_from_moments(gm.moments, gm.labels, method=method)
+        assert_allclose([fb.slope, fb.intercept, fb.slope_ci.low, fb.slope_ci.high],
+                        [fa.slope, fa.intercept, fa.slope_ci.low, fa.slope_ci.high], rtol=1e-9)
+        ma, mb = group_means(X, Y, g).to_frame(), group_means_from_moments(
+            gm.moments, gm.labels).to_frame()
+        assert ma["group"].tolist() == mb["group"].tolist()
+        assert_allclose(mb[["n", "mean_log_x", "mean_log_y", "se_log_x", "se_log_y"]],
+                        ma[["n", "mean_log_x", "mean_log_y", "se_log_x", "se_log_y"]],
+                        rtol=1e-9)
+
+    def test_labels_must_name_every_group(self):
+        from scaling.stats.group_comparisons import compare_group_moments
+        _, _, _, gm = self._inputs()
+        with pytest.raises(DataError, match="labels must name each of the 6 groups, not 5"):
+            compare_group_moments(gm.moments, gm.labels[:5])
+
+
+class TestUnitMeansFromChunks:
+    def test_two_level_reduction_equals_averaging_the_rows_first(self, tmp_path):
+        df = _table(seed=8, n=900, groups=5)
+        df["unit"] = [f"{g}-{k % 40}" for k, g in enumerate(df["clade"])]
+        path = tmp_path / "u.csv"
+        df.to_csv(path, index=False)
+        lx, ly = np.log10(df["mass"]), np.log10(df["rate"])
+        units = (pd.DataFrame({"unit": df["unit"], "clade": df["clade"], "lx": lx, "ly": ly})
+                 .groupby("unit").agg(clade=("clade", "first"), lx=("lx", "mean"),
+                                      ly=("ly", "mean")))
+        direct = frame_moments(units.assign(x=10 ** units["lx"], y=10 ** units["ly"]),
+                               x="x", y="y", group="clade")
+        for engine in ("pandas", "dask"):
+            gm = read_moments(path, x="mass", y="rate", group="clade", unit="unit",
+                              chunk_size=61, engine=engine)
+            assert list(gm.labels) == list(direct.labels)
+            # exact: one point per unit, every one of the 900 rows behind a unit
+            assert gm.moments.n.tolist() == direct.moments.n.tolist()
+            assert gm.n_rows.sum() == 900 and gm.moments.n.sum() == units.shape[0]
+            for k in KEYS[1:]:
+                # internal consistency: unit sums merged across chunks vs pandas groupby means
+                assert_allclose(getattr(gm.moments, k), getattr(direct.moments, k),
+                                rtol=1e-9, atol=1e-12)

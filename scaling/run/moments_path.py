@@ -158,7 +158,7 @@ def _file_mb(path: Path) -> float:
 
 
 def _unsupported(cfg) -> list:
-    """Data keys the moments path cannot honour (it reads x, y, group only)."""
+    """Data keys the moments path cannot honour (it reads x, y, group and the unit column)."""
     d = cfg.data
     out = []
     if d.exclude:

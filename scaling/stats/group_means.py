@@ -366,10 +366,10 @@ def _fit_means(gm: Moments, labels, method, confidence, base, weighted, min_n) -
     fit = line_fit_from_moments(m, method, confidence=confidence, log_base=base)
     if fit.note:
         warnings.warn(f"line through group means: {fit.note}", DegenerateDataWarning,
-                      stacklevel=2)
+                      stacklevel=3)
     if excluded:
         warnings.warn(_exclusion_warning("the line through the means", excluded),
-                      DegenerateDataWarning, stacklevel=2)
+                      DegenerateDataWarning, stacklevel=3)
     return fit
 
 
