@@ -252,7 +252,6 @@ def _axis_tests(method: str, n, mx, my, sxx, syy, sxy, *, bootstrap: int | None,
             "p_value": p_value, "df": G - 1, "fit": fit, "boot_profile": profile}
 
 
-
 # --------------------------------------------------------------------------
 # OLS: analysis of covariance from moments
 
@@ -292,7 +291,6 @@ def _ols_tests(n, mx, my, sxx, syy, sxy) -> dict:
         out["rows"].append((float(stat), float(d1), float(d2), p))
     out["se"], out["df_par"] = par["se"], df_par
     return out
-
 
 
 # --------------------------------------------------------------------------
@@ -479,7 +477,6 @@ class GroupComparison:
         """One row per pair and test."""
         return pd.DataFrame([t.to_record() for t in self.pairwise],
                             columns=list(_PAIR_COLUMNS))
-
 
 
 # --------------------------------------------------------------------------
@@ -674,9 +671,8 @@ def compare_group_moments(m: Moments, labels, *, method: str = "sma",
 
     Notes
     -----
-    Every statistic of :func:`compare_groups` is a function of these
-    moments (module notes), so the in-memory, chunked and Dask roads of a
-    run call this one function and agree to rounding.
+    Every statistic of :func:`compare_groups` is a function of these moments
+    (module notes): every road of a run calls this function.
     """
     method = check_method(method, METHODS, lower=True)
     confidence = check_confidence(confidence)
