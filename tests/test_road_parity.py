@@ -138,11 +138,13 @@ def _same_answer_and_tables(ref, ref_dir, res, res_dir) -> None:
         _same_table(ref.tables[name], res.tables[name], KEYS[name], name)
 
 
-@pytest.fixture(scope="module", params=[("slopes_differ", False), ("common_slope", False),
-                                        ("slopes_differ", True)],
-                ids=["slopes_differ", "common_slope", "average_within"])
-def runs(request, tmp_path_factory):
-    shape, averaged = request.param
+_RUNS: dict = {}
+
+
+def _runs_of(shape: str, averaged: bool, tmp_path_factory):
+    """The three roads' runs of one table shape (built once per module)."""
+    if (shape, averaged) in _RUNS:
+        return _RUNS[(shape, averaged)]
     tmp = tmp_path_factory.mktemp(shape)
     path = tmp / "table.csv"
     _table(**SHAPES[shape]).to_csv(path, index=False)
@@ -153,7 +155,21 @@ def runs(request, tmp_path_factory):
     for road in ("pandas", *ROADS):
         cfg = _cfg(path, tmp, road, **{k: dict(v) for k, v in extra.items()})
         out[road] = (_run(cfg, tmp / road), tmp / road)
-    return shape, averaged, path, tmp, extra, out
+    _RUNS[(shape, averaged)] = (shape, averaged, path, tmp, extra, out)
+    return _RUNS[(shape, averaged)]
+
+
+@pytest.fixture(scope="module", params=[("slopes_differ", False), ("common_slope", False),
+                                        ("slopes_differ", True)],
+                ids=["slopes_differ", "common_slope", "average_within"])
+def runs(request, tmp_path_factory):
+    return _runs_of(*request.param, tmp_path_factory)
+
+
+@pytest.fixture(scope="module")
+def averaged_runs(tmp_path_factory):
+    """The shape with units averaged within groups: it exercises the unit groupby."""
+    return _runs_of("slopes_differ", True, tmp_path_factory)
 
 
 class TestRoadsGiveOneAnswer:
@@ -241,10 +257,8 @@ class TestCountsOfDroppedRows:
 
 
 class TestRealCluster:
-    def test_local_cluster_gives_the_answer_of_the_pandas_engine(self, runs):
-        shape, averaged, path, tmp, extra, out = runs
-        if shape != "slopes_differ" or not averaged:
-            pytest.skip("one shape is enough for the cluster (it exercises the unit groupby)")
+    def test_local_cluster_gives_the_answer_of_the_pandas_engine(self, averaged_runs):
+        shape, averaged, path, tmp, extra, out = averaged_runs
         distributed = pytest.importorskip("distributed")
         with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1,
                                       dashboard_address=None) as cluster:
