@@ -252,7 +252,8 @@ class TestSeveralPredictorConfigErrors:
                                                       r"weight for every column"),
         ({"prediction__x": [1, 2]}, r"prediction.x: with several predictors give a mapping"),
         ({"prediction__total": True}, r"prediction.total: needs new rows"),
-        ({"data__group": "site"}, r"data.group: is not available with several predictors"),
+        ({"data__average_within": "site"},
+         r"data.average_within: is not available with several predictors"),
     ])
     def test_bad_keys_name_their_path(self, tmp_path, changes, match):
         raw = self._raw(tmp_path)

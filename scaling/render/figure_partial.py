@@ -56,7 +56,20 @@ def plot_partial(result, term: str, *, ax=None, size: str = "single"):
     held = ", ".join(f"{fit.names[i]} = {base ** means[i]:.3g}" for i in others)
     ax.set_ylabel(axis_label(result, "y") + f"\nat {held}")
     ax.legend(loc="upper left", fontsize="small", frameon=False)
+    _limits_around_points(ax, fit, j, others, means)
     return ax
+
+
+def _limits_around_points(ax, fit, j: int, others: list, means) -> None:
+    """Log axes that hold every partial point and the line, with 5% of a decade-span margin
+    at each side (no point drawn half outside the frame)."""
+    lx, ly = np.asarray(fit.log_x), np.asarray(fit.log_y)
+    adj = ly - sum(fit.slopes[i] * (lx[:, i] - means[i]) for i in others)
+    base = fit.log_base
+    for values, setter in ((lx[:, j], ax.set_xlim), (adj, ax.set_ylim)):
+        lo, hi = float(np.min(values)), float(np.max(values))
+        pad = 0.05 * (hi - lo) if hi > lo else 0.1
+        setter(base ** (lo - pad), base ** (hi + pad))
 
 
 def make_partial(result, *, size: str = "single", term: str | None = None) -> Figure:
