@@ -170,7 +170,8 @@ def build_several_report(result, folder: Path | None = None, written=()) -> list
         sections.append(Section(title="Group comparisons", anchor="groups", blocks=[
             Block(kind="ul", items=tuple(several_group_sentences(tables["group_tests"],
                                                                  alpha, word))),
-            Block(kind="table", frame=tables["group_tests"], name="group_tests")]))
+            Block(kind="table", name="group_tests",   # one-predictor columns left blank: hidden
+                  frame=tables["group_tests"].dropna(axis=1, how="all"))]))
 
     if "predictions" in tables:
         t = tables["predictions"]
