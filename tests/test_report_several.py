@@ -169,8 +169,13 @@ class TestSeveralPredictorReport:
     def test_diagnostics_list_collinearity(self, request, which):
         out, _ = self._get(request, which)
         diag = pd.read_csv(out / "diagnostics.csv")
-        assert list(diag.loc[diag["test"] == "VIF", "term"]) == ["diameter_cm", "height_m"]
-        assert (diag["test"] == "condition number").sum() == 1
+        # with groups, the common-exponents model (the Answer's) is checked too
+        scopes = ["pooled", "common"] if which == "grouped" else ["pooled"]
+        assert list(dict.fromkeys(diag["scope"])) == scopes
+        for scope in scopes:
+            d = diag[diag["scope"] == scope]
+            assert list(d.loc[d["test"] == "VIF", "term"]) == ["diameter_cm", "height_m"]
+            assert (d["test"] == "condition number").sum() == 1
         assert set(diag["check"]) == {"normality", "constant_variance", "curvature",
                                       "influence", "leverage", "collinearity"}
 

@@ -23,7 +23,8 @@ from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflatio
 import scaling
 from scaling.errors import DataError
 from scaling.render.answer_several import collinearity_warning
-from scaling.stats.several_checks import (VIF_LIMIT, check_multi, condition_number,
+from scaling.stats.several_checks import (VIF_LIMIT, check_multi, check_multi_groups,
+                                          condition_number,
                                           variance_inflation)
 from scaling.stats.several_predictors import fit_multi
 
@@ -140,3 +141,34 @@ class TestCollinearity:
     def test_condition_number_of_a_constant_design(self):
         # exact law: D = [1, x] with x = (-1, 1) has D'D = 2 I, condition number 1
         assert_allclose(condition_number(np.array([[-1.0], [1.0]])), 1.0)
+
+
+class TestCheckMultiGroups:
+    def test_common_exponents_model_equals_statsmodels(self):
+        d = palmerpenguins.load_penguins().dropna(
+            subset=["body_mass_g", "flipper_length_mm", "bill_length_mm"]).reset_index(drop=True)
+        lx = np.log10(d[["flipper_length_mm", "bill_length_mm"]].to_numpy())
+        ly = np.log10(d["body_mass_g"].to_numpy())
+        dummies = pd.get_dummies(d["species"]).to_numpy(dtype=float)
+        exog = np.column_stack([dummies, lx])
+        ref = sm.OLS(ly, exog).fit()   # statsmodels: species elevations, common exponents
+        checks = check_multi_groups(lx, ly, d["species"], ("f", "b"))
+        infl = OLSInfluence(ref)
+        assert_allclose(checks.cooks_distance, infl.cooks_distance[0], rtol=1e-8, atol=1e-12)
+        assert_allclose(checks.leverage, infl.hat_matrix_diag, rtol=1e-8, atol=1e-12)
+        # statsmodels variance_inflation_factor: each term on the other term and the groups
+        assert_allclose(checks.vif, [variance_inflation_factor(exog, j) for j in (3, 4)],
+                        rtol=1e-8)
+        assert_allclose(checks.condition_number, ref.condition_number, rtol=1e-8)
+        # statsmodels wants an explicit constant: the same column space as constant,
+        # two species indicators and the logs (4 df)
+        same_space = sm.add_constant(np.column_stack([dummies[:, 1:], lx]))
+        lm, p, _, _ = het_breuschpagan(ref.resid, same_space)
+        c = _check(checks, "constant_variance")
+        assert_allclose([c.statistic, c.p_value], [lm, p], rtol=1e-8)
+        for j, term in enumerate(("f", "b")):
+            cj = lx[:, j] - lx[:, j].mean()
+            quad = sm.OLS(ly, np.column_stack([exog, cj * cj])).fit()   # statsmodels
+            got = _check(checks, "curvature", term)
+            assert_allclose([got.statistic, got.p_value], [quad.tvalues[-1], quad.pvalues[-1]],
+                            rtol=1e-8)

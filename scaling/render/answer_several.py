@@ -31,8 +31,15 @@ __all__ = ["several_headline", "several_exponent_table", "several_check_verdict"
 _LINE = {"pooled": "pooled", "common": "common within-group", "group": "group"}
 
 
+def _interval(lo, hi, pct: str) -> str:
+    """'95% CI 1.688–2.017'; 'to' where a bound is negative (a dash would read as minus)."""
+    if np.isfinite(lo) and np.isfinite(hi) and min(lo, hi) < 0:
+        return f"{pct} CI {lo:.3f} to {hi:.3f}"
+    return _ci(lo, hi, pct)
+
+
 def _terms(rows: pd.DataFrame, pct: str) -> str:
-    parts = [f"{r.slope:.3f} for {r.term} ({_ci(r.slope_low, r.slope_high, pct)})"
+    parts = [f"{r.slope:.3f} for {r.term} ({_interval(r.slope_low, r.slope_high, pct)})"
              for r in rows.itertuples(index=False)]
     return parts[0] if len(parts) == 1 else "; ".join(parts[:-1]) + " and " + parts[-1]
 
@@ -57,10 +64,41 @@ def _group_p(gt: pd.DataFrame, test: str) -> tuple:
     return float(r["p_value"]), stat + calibrated_p_text(float(r["p_value"]), "F")
 
 
+def _vif(value: float) -> str:
+    """A variance inflation factor as read: '1,107', '23.4'."""
+    return f"{value:,.0f}" if value >= 100 else f"{value:.3g}"
+
+
+def _collinear_sentence(diagnostics: pd.DataFrame | None) -> str:
+    """One sentence when a term's VIF passes 10 (the Answer's intervals are inflated)."""
+    if diagnostics is None or not len(diagnostics) or "test" not in diagnostics.columns:
+        return ""
+    vif = diagnostics[(diagnostics["test"] == "VIF") & (diagnostics["scope"] == "pooled")]
+    vif = vif[vif["flagged"].astype(bool)]
+    if not len(vif):
+        return ""
+    top = float(vif["statistic"].max())
+    return (f"The predictors are strongly correlated (variance inflation factor up to "
+            f"{_vif(top)}), so these intervals are about {math.sqrt(top):.2g} times as wide as "
+            "with uncorrelated predictors.")
+
+
 def several_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
                      group_tests: pd.DataFrame | None, *, confidence: float = 0.95,
-                     group_word: str = "group") -> Headline:
+                     group_word: str = "group",
+                     diagnostics: pd.DataFrame | None = None) -> Headline:
     """The Answer of a run with several predictors (see the module notes)."""
+    head = _several_headline(fits, slope_tests, group_tests, confidence=confidence,
+                             group_word=group_word)
+    said = _collinear_sentence(diagnostics)
+    if said and len(head.sentences) < 3:
+        return Headline(primary=head.primary, line=head.line,
+                        sentences=tuple(head.sentences) + (said,),
+                        exponent_table=head.exponent_table, group_table=head.group_table)
+    return head
+
+
+def _several_headline(fits, slope_tests, group_tests, *, confidence, group_word) -> Headline:
     alpha = 1 - confidence
     pct = f"{100 * confidence:g}%"
     table = several_exponent_table(fits, slope_tests, alpha)
@@ -203,7 +241,7 @@ def collinearity_warning(terms_vifs, names) -> str:
     """The summary's warning when a VIF passes 10, saying what it does to the intervals."""
     if not terms_vifs:
         return ""
-    each = ", ".join(f"{t} {v:.3g}" for t, v in terms_vifs)
+    each = ", ".join(f"{t} {_vif(v)}" for t, v in terms_vifs)
     widest = max(v for _, v in terms_vifs)
     return (f"The predictors are strongly correlated on the log scale (variance inflation "
             f"factor {each}; above 10): each exponent's interval is about "

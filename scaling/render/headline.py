@@ -528,7 +528,8 @@ def headline_of(result) -> Headline:
         from .answer_several import several_headline
         head = several_headline(result.fits, result.slope_tests, tables.get("group_tests"),
                                 confidence=cfg.model.confidence,
-                                group_word=str(cfg.data.group or "group"))
+                                group_word=str(cfg.data.group or "group"),
+                                diagnostics=tables.get("diagnostics"))
     else:
         head = build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
                               tables.get("pairwise_tests"), methods=cfg.model.methods,

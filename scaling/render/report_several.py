@@ -189,7 +189,8 @@ def build_several_report(result, folder: Path | None = None, written=()) -> list
     if "diagnostics" in tables:
         sections.append(Section(title="Diagnostics", anchor="diagnostics", blocks=[
             Block(kind="p", text=(
-                "Checks of the pooled fit: normality of the log-scale residuals "
+                "Checks of the pooled fit (and, with groups, of the common-exponents model "
+                "with one elevation per group): normality of the log-scale residuals "
                 "(Shapiro-Wilk), constant variance against all predictors (Breusch-Pagan), "
                 "curvature in each term (a quadratic in that term's log), influence (Cook's "
                 "distance above 4/n), leverage (rows whose combination of predictors lies "

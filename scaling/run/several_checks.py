@@ -21,7 +21,7 @@ import pandas as pd
 from ..errors import ScalingError
 from ..render.answer_several import (collinearity_warning, several_check_verdict,
                                      several_group_sentences)
-from ..stats.several_checks import check_multi
+from ..stats.several_checks import check_multi, check_multi_groups
 from ..stats.several_groups import compare_groups_multi
 
 __all__ = ["SEVERAL_DIAGNOSTIC_COLUMNS", "SeveralExtras", "several_diagnostics",
@@ -46,25 +46,35 @@ class SeveralExtras:
 
 
 def several_diagnostics(fit, pts: pd.DataFrame, cfg) -> SeveralExtras:
-    """diagnostics.csv of the pooled fit, and the collinearity warning."""
+    """diagnostics.csv of the pooled fit (and, with groups, of the common-exponents
+    model), and the collinearity warning."""
     rows = pts["row"].to_numpy() if "row" in pts.columns else None
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            checks = check_multi(fit, rows=rows, alpha=cfg.diagnostics.alpha)
-    except ScalingError:
+    alpha = cfg.diagnostics.alpha
+    todo = [("pooled", lambda: check_multi(fit, rows=rows, alpha=alpha))]
+    if "group" in pts.columns and pts["group"].nunique() > 1:
+        todo.append(("common", lambda: check_multi_groups(
+            fit.log_x, fit.log_y, pts["group"].to_numpy(), fit.names, rows=rows, alpha=alpha)))
+    frames, first = [], None
+    for scope, run in todo:
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                checks = run()
+        except ScalingError:
+            continue
+        first = first or checks
+        frame = checks.to_frame()
+        frame["verdict"] = [several_check_verdict(c, t)
+                            for c, t in zip(checks.checks, checks.terms)]
+        frame.insert(0, "scope", scope)
+        frame.insert(1, "group", "")
+        frame.insert(2, "method", "ols")
+        frames.append(frame[SEVERAL_DIAGNOSTIC_COLUMNS])
+    if first is None:
         return SeveralExtras(tables={})
-    frame = checks.to_frame()
-    frame["verdict"] = [several_check_verdict(c, t) for c, t in zip(checks.checks, checks.terms)]
-    frame.insert(0, "scope", "pooled")
-    frame.insert(1, "group", "")
-    frame.insert(2, "method", "ols")
-    notes = ()
-    warning = collinearity_warning(checks.collinear_terms(), fit.names)
-    if warning:
-        notes = (warning,)
-    return SeveralExtras(tables={"diagnostics": frame[SEVERAL_DIAGNOSTIC_COLUMNS]},
-                         notes=notes, checks=checks)
+    warning = collinearity_warning(first.collinear_terms(), fit.names)
+    return SeveralExtras(tables={"diagnostics": pd.concat(frames, ignore_index=True)},
+                         notes=(warning,) if warning else (), checks=first)
 
 
 def several_groups(pts: pd.DataFrame, names: tuple, hypotheses: dict, cfg, base,

@@ -52,7 +52,7 @@ from scipy import stats
 from ..errors import DataError
 from .residual_checks import MIN_N, Check
 
-__all__ = ["VIF_LIMIT", "CONDITION_LIMIT", "MultiChecks", "check_multi",
+__all__ = ["VIF_LIMIT", "CONDITION_LIMIT", "MultiChecks", "check_multi", "check_multi_groups",
            "variance_inflation", "condition_number", "term_curvature"]
 
 #: A term's variance inflation factor above this is flagged.
@@ -65,8 +65,11 @@ def _flag(flagged: bool) -> str:
     return "flagged" if flagged else "clear"
 
 
-def variance_inflation(log_x) -> np.ndarray:
+def variance_inflation(log_x, lead=None) -> np.ndarray:
     """VIF of each column of ``log_x`` (n, k): 1 / (1 - R^2) of it on the others.
+
+    ``lead`` are the design's other columns (default a constant; one indicator
+    per group for the common-exponents model), kept in every regression.
 
     Examples
     --------
@@ -77,11 +80,12 @@ def variance_inflation(log_x) -> np.ndarray:
     """
     lx = np.asarray(log_x, dtype=float)
     n, k = lx.shape
-    if k < 2:
+    lead = np.ones((n, 1)) if lead is None else np.asarray(lead, dtype=float)
+    if k < 2 and lead.shape[1] == 1:
         return np.ones(k)
     out = np.empty(k)
     for j in range(k):
-        others = np.column_stack([np.ones(n), np.delete(lx, j, axis=1)])
+        others = np.column_stack([lead, np.delete(lx, j, axis=1)])
         beta = np.linalg.lstsq(others, lx[:, j], rcond=None)[0]
         resid = lx[:, j] - others @ beta
         centred = lx[:, j] - lx[:, j].mean()
@@ -91,27 +95,30 @@ def variance_inflation(log_x) -> np.ndarray:
     return out
 
 
-def condition_number(log_x) -> float:
-    """sqrt(max / min eigenvalue) of D'D for the design D = [1, log_x] (statsmodels' form)."""
+def condition_number(log_x, lead=None) -> float:
+    """sqrt(max / min eigenvalue) of D'D for the design D = [lead, log_x] (statsmodels' form;
+    ``lead`` a constant by default)."""
     lx = np.asarray(log_x, dtype=float)
-    design = np.column_stack([np.ones(lx.shape[0]), lx])
+    lead = np.ones((lx.shape[0], 1)) if lead is None else np.asarray(lead, dtype=float)
+    design = np.column_stack([lead, lx])
     eig = np.linalg.eigvalsh(design.T @ design)
     return float(math.sqrt(eig.max() / eig.min())) if eig.min() > 0 else math.inf
 
 
-def term_curvature(log_x, log_y) -> list:
+def term_curvature(log_x, log_y, lead=None) -> list:
     """Per term j: dict(quadratic, quadratic_se, statistic, df, p_value) of the model
-    with (X_j - mean X_j)^2 added to [1, X1..Xk]."""
+    with (X_j - mean X_j)^2 added to [lead, X1..Xk] (``lead`` a constant by default)."""
     lx = np.asarray(log_x, dtype=float)
     ly = np.asarray(log_y, dtype=float)
     n, k = lx.shape
-    base = np.column_stack([np.ones(n), lx])
-    df = n - k - 2
+    lead = np.ones((n, 1)) if lead is None else np.asarray(lead, dtype=float)
+    base = np.column_stack([lead, lx])
+    df = n - base.shape[1] - 1
     out = []
     for j in range(k):
         c = lx[:, j] - lx[:, j].mean()
         design = np.column_stack([base, c * c])
-        if df < 1 or np.linalg.matrix_rank(design) < k + 2:
+        if df < 1 or np.linalg.matrix_rank(design) < design.shape[1]:
             out.append({"quadratic": math.nan, "quadratic_se": math.nan,
                         "statistic": math.nan, "df": float(df), "p_value": math.nan})
             continue
@@ -205,14 +212,41 @@ def check_multi(fit, *, rows=None, alpha: float = 0.05) -> MultiChecks:
     ['normality', 'constant_variance', 'curvature', 'curvature']
     """
     lx = np.asarray(fit.log_x, dtype=float)
-    ly = np.asarray(fit.log_y, dtype=float)
+    return _check_design(np.ones((lx.shape[0], 1)), lx, np.asarray(fit.log_y, dtype=float),
+                         fit.names, rows=rows, alpha=alpha)
+
+
+def check_multi_groups(log_x, log_y, groups, names, *, rows=None,
+                       alpha: float = 0.05) -> MultiChecks:
+    """The checks of the common-exponents model Y = a_g + sum_j b_j X_j (one elevation per
+    group), on log-scale data.
+
+    The same questions as :func:`check_multi`, asked of the model with one
+    indicator column per group in place of the constant: Breusch-Pagan on
+    that design (G + k - 1 df), curvature per term with the group
+    elevations, Cook's distance and leverage with p = G + k, VIF of each term
+    given the others and the groups, the condition number of that design.
+    """
+    lx = np.asarray(log_x, dtype=float)
+    _, codes = np.unique(np.asarray(groups).astype(str), return_inverse=True)
+    lead = (codes[:, None] == np.arange(codes.max() + 1)[None, :]).astype(float)
+    return _check_design(lead, lx, np.asarray(log_y, dtype=float), names, rows=rows,
+                         alpha=alpha)
+
+
+def _check_design(lead, lx, ly, names, *, rows, alpha) -> MultiChecks:
+    """Every check of the OLS model Y = lead·a + X·b (see the module notes)."""
     n, k = lx.shape
     if n < MIN_N:
         raise DataError(f"the checks need at least {MIN_N} points, got {n}")
     rows = np.arange(n) if rows is None else np.asarray(rows)
-    resid = np.asarray(fit.residuals, dtype=float)
-    design = np.column_stack([np.ones(n), lx])
-    p = k + 1
+    design = np.column_stack([lead, lx])
+    p = design.shape[1]
+    if n <= p:
+        raise DataError(f"the checks need more points than the model's {p} coefficients")
+    xtx_inv = np.linalg.inv(design.T @ design)
+    resid = ly - design @ (xtx_inv @ (design.T @ ly))
+    s2 = float(resid @ resid) / (n - p)
     checks, terms = [], []
 
     with warnings.catch_warnings():
@@ -230,18 +264,18 @@ def check_multi(fit, *, rows=None, alpha: float = 0.05) -> MultiChecks:
     fitted = design @ beta
     sst = float(np.sum((e2 - e2.mean()) ** 2))
     lm = n * float(np.sum((fitted - e2.mean()) ** 2)) / sst if sst > 0 else math.nan
-    p_bp = float(stats.chi2.sf(lm, k)) if np.isfinite(lm) else math.nan
+    p_bp = float(stats.chi2.sf(lm, p - 1)) if np.isfinite(lm) else math.nan
     flagged = bool(p_bp < alpha)
     trend = 0
     if flagged:
         y_hat = ly - resid   # the scatter grows (+1) or shrinks (-1) with the fitted value
         trend = 1 if np.polyfit(y_hat, e2, 1)[0] > 0 else -1
     checks.append(Check(check="constant_variance", test="Breusch-Pagan", statistic=lm,
-                        df=float(k), p_value=p_bp, estimate=math.nan, flagged=flagged,
+                        df=float(p - 1), p_value=p_bp, estimate=math.nan, flagged=flagged,
                         finding=_flag(flagged), direction=trend))
     terms.append("")
 
-    for name, q in zip(fit.names, term_curvature(lx, ly)):
+    for name, q in zip(names, term_curvature(lx, ly, lead)):
         flagged = bool(q["p_value"] < alpha)
         checks.append(Check(check="curvature", test="quadratic term t", statistic=q["statistic"],
                             df=q["df"], p_value=q["p_value"], estimate=q["quadratic"],
@@ -250,8 +284,7 @@ def check_multi(fit, *, rows=None, alpha: float = 0.05) -> MultiChecks:
                                        if np.isfinite(q["quadratic"]) else 0)))
         terms.append(name)
 
-    lev = np.einsum("np,pq,nq->n", design, np.asarray(fit.xtx_inv), design)
-    s2 = fit.resid_sd ** 2
+    lev = np.einsum("np,pq,nq->n", design, xtx_inv, design)
     with np.errstate(divide="ignore", invalid="ignore"):
         cooks = resid ** 2 * lev / (p * s2 * (1 - lev) ** 2) if s2 > 0 else np.zeros(n)
     threshold = 4 / n
@@ -271,14 +304,14 @@ def check_multi(fit, *, rows=None, alpha: float = 0.05) -> MultiChecks:
                         rows=tuple(rows[high].tolist())))
     terms.append("")
 
-    vif = variance_inflation(lx)
-    for name, v in zip(fit.names, vif):
+    vif = variance_inflation(lx, lead)
+    for name, v in zip(names, vif):
         flagged = bool(v > VIF_LIMIT)
         checks.append(Check(check="collinearity", test="VIF", statistic=float(v), df=math.nan,
                             p_value=math.nan, estimate=float(math.sqrt(v)), flagged=flagged,
                             finding=_flag(flagged)))
         terms.append(name)
-    cond = condition_number(lx)
+    cond = condition_number(lx, lead)
     flagged = bool(cond > CONDITION_LIMIT)
     checks.append(Check(check="collinearity", test="condition number", statistic=cond,
                         df=math.nan, p_value=math.nan, estimate=math.nan, flagged=flagged,
