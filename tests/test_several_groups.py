@@ -129,3 +129,28 @@ class TestNestedF:
 
     def test_no_df_is_nan(self):
         assert np.isnan(nested_f(1.0, 10, 1.0, 10)[0])
+
+
+class TestGroupedRunAnswer:
+    def test_answer_leads_with_common_exponents_and_flags_the_pooled_fit(self, penguins,
+                                                                         models, tmp_path):
+        from scaling.io.config import config_from_dict
+        from scaling.render.headline import headline_of
+        path = tmp_path / "penguins.csv"
+        penguins.to_csv(path, index=False)
+        raw = {"data": {"file": str(path), "x": ["flipper_length_mm", "bill_length_mm"],
+                        "y": "body_mass_g", "group": "species"},
+               "model": {"methods": ["ols"]}, "exponents": {"isometry": [3, 3]}}
+        res = scaling.run_config(config_from_dict(raw), write=False, quiet=True)
+        head = headline_of(res)
+        assert head.line == "common" and len(head.sentences) == 3
+        par = models["parallel"]   # statsmodels: species elevations, common exponents
+        for name in ("lf", "lb"):
+            assert f"{par.params[name]:.3f}" in head.sentences[0]
+        # the species differ in elevation (F test against the pooled line, p < 1e-4 here)
+        # and the pooled exponents lie outside the common intervals: said in the Answer
+        assert "differ in elevation" in head.sentences[2]
+        assert "the pooled fit mixes species" in head.sentences[2]
+        gt = res.tables["group_tests"].set_index("test")
+        ref = models["separate"].compare_f_test(models["parallel"])   # statsmodels
+        assert_allclose(gt.loc["slopes_equal", "p_value"], ref[1], rtol=0, atol=1e-8)

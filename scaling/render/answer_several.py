@@ -141,7 +141,16 @@ def _several_headline(fits, slope_tests, group_tests, *, confidence, group_word)
         out.append(f"These within-{group_word} exponents, {said}.")
     if np.isfinite(p_elev):
         word = "differ" if p_elev <= alpha else "do not differ detectably"
-        out.append(f"At these exponents the {plural} {word} in elevation ({elev_words}).")
+        s3 = f"At these exponents the {plural} {word} in elevation ({elev_words})"
+        pooled = fits[fits["scope"] == "pooled"].set_index("term")
+        off = [f"{r.term} {float(pooled.loc[r.term, 'slope']):.3f}"
+               for r in common.itertuples(index=False)
+               if p_elev <= alpha and r.term in pooled.index
+               and not r.slope_low <= float(pooled.loc[r.term, "slope"]) <= r.slope_high]
+        if off:   # pooling groups at different elevations biases the pooled exponents
+            s3 += (f"; the pooled fit mixes {plural} and misstates the within-{group_word} "
+                   f"exponents ({', '.join(off)})")
+        out.append(s3 + ".")
     else:
         out.append(f"Elevations of the {plural} were not compared.")
     return Headline(primary="ols", line="common", sentences=tuple(out[:3]),
