@@ -27,6 +27,9 @@ _EXPORTS: dict[str, str] = {
     # moments, several predictors
     "Moments": "stats.moments",
     "fit_multi": "stats.several_predictors", "MultiFit": "stats.several_predictors",
+    "compare_groups_multi": "stats.several_groups",
+    "MultiGroupComparison": "stats.several_groups",
+    "check_multi": "stats.several_checks", "MultiChecks": "stats.several_checks",
     # phylogeny, many groups
     "fit_phylo": "stats.phylogeny", "PhyloFit": "stats.phylogeny",
     "read_newick": "stats.newick",

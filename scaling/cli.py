@@ -105,7 +105,8 @@ def _summary_table(result) -> str:
         ci = f"{_fmt(r.slope_low)} to {_fmt(r.slope_high)}" if np.isfinite(r.slope) else r.note
         label = getattr(r, "term", "") if isinstance(getattr(r, "term", ""), str) else ""
         label = label or str(r.group)   # several predictors: the term in the group column
-        lines.append(f"{r.scope:<12} {label[:14]:<14} {r.method:<{mw}} {r.n:>5} "
+        scope = str(r.group) if several and r.scope == "group" else r.scope   # its name
+        lines.append(f"{scope[:12]:<12} {label[:14]:<14} {r.method:<{mw}} {r.n:>5} "
                      f"{_fmt(r.slope):>7}  {ci:<17} {_fmt(r.r2):>6}")
     return "\n".join(lines)
 

@@ -214,6 +214,40 @@ class TestSeveralPredictorsRun:
         assert (plain.term == "").all()
 
 
+class TestSeveralPredictorChecksRun:
+    def test_correlated_predictors_warn_in_the_summary(self, tmp_path):
+        # invented data, truth stated here: log h = log d + N(0, 0.01), so r(log d, log h)
+        # is about 0.99 and the VIFs are far above 10
+        rng = np.random.default_rng(21)
+        d = 10 ** rng.uniform(1, 2, 60)
+        h = d * 10 ** rng.normal(0, 0.01, 60)
+        m = 0.05 * d ** 2 * h * 10 ** rng.normal(0, 0.05, 60)
+        path = tmp_path / "c.csv"
+        pd.DataFrame({"d": d, "h": h, "m": m}).to_csv(path, index=False)
+        raw = {"data": {"file": str(path), "x": ["d", "h"], "y": "m"},
+               "model": {"methods": ["ols"]}, "output": {"dir": str(tmp_path / "out")}}
+        res = scaling.run_config(config_from_dict(raw), quiet=True)
+        warning = next(w for w in res.warnings if "variance inflation" in w)
+        vif = res.tables["diagnostics"].query("test == 'VIF'")["statistic"]
+        assert (vif > 10).all()
+        # exact law: the interval of an exponent widens by sqrt(VIF)
+        assert f"{math.sqrt(vif.max()):.2g} times as wide" in warning
+        summary = (tmp_path / "out" / "summary.md").read_text()
+        assert "variance inflation" in summary
+        diag = pd.read_csv(tmp_path / "out" / "diagnostics.csv")
+        assert diag.loc[diag["test"] == "VIF", "flagged"].all()
+
+    def test_diagnostics_can_be_switched_off(self, tmp_path):
+        cfg, _ = _trees_config(tmp_path)
+        res = scaling.run_config(cfg, write=False, quiet=True)
+        assert "diagnostics" in res.tables
+        raw = {"data": {"file": str(tmp_path / "trees.csv"), "x": ["Girth", "Height"],
+                        "y": "Volume"}, "model": {"methods": ["ols"]},
+               "diagnostics": {"enabled": False}}
+        off = scaling.run_config(config_from_dict(raw), write=False, quiet=True)
+        assert "diagnostics" not in off.tables
+
+
 class TestConstantColumns:
     def test_a_is_base_to_the_intercept_with_its_bounds(self):
         fits = pd.DataFrame({"slope": [0.75], "intercept": [0.5], "intercept_low": [0.4],
@@ -252,7 +286,8 @@ class TestSeveralPredictorConfigErrors:
                                                       r"weight for every column"),
         ({"prediction__x": [1, 2]}, r"prediction.x: with several predictors give a mapping"),
         ({"prediction__total": True}, r"prediction.total: needs new rows"),
-        ({"data__group": "site"}, r"data.group: is not available with several predictors"),
+        ({"data__average_within": "site"},
+         r"data.average_within: is not available with several predictors"),
     ])
     def test_bad_keys_name_their_path(self, tmp_path, changes, match):
         raw = self._raw(tmp_path)

@@ -385,10 +385,10 @@ def _check_several_x(sections, exponents) -> None:
         check_predictor_methods(model["methods"], k, key="model.methods")
     except ConfigError as exc:
         raise _Bad("model.methods", str(exc).split(": ", 1)[1]) from None
-    for key in ("group", "average_within"):
+    for key in ("average_within",):
         if data[key] is not None:
             raise _Bad(f"data.{key}", "is not available with several predictors (data.x is a "
-                       "list); fit one predictor per group, or remove it")
+                       "list): fit the rows themselves, or average them before the run")
     for section, units in (("data.units", data["units"]), ("model.units", model["units"])):
         ux = units.get("x")
         if ux is not None and (not isinstance(ux, tuple) or len(ux) != k):

@@ -534,8 +534,8 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
     The same drop reasons as for one predictor, per column (``x (height_m)
     is missing``).  ``points`` holds ``row, y, log_y, n_rows`` and, for the
     j-th predictor (from 0), ``x{j}`` and ``log_x{j}``; ``x`` and ``log_x``
-    repeat the first predictor.  Groups and averaging are not available here
-    (refused by the config).
+    repeat the first predictor; ``group`` with ``data.group``.  Averaging is not
+    available here (refused by the config).
     """
     path = Path(cfg.file)
     units = dict(cfg.units)
@@ -552,8 +552,13 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
     y_col = _column(table, cfg.y, "data.y", path, cfg)
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
+    g_col = _column(table, cfg.group, "data.group", path) if cfg.group else None
     reasons = [[] for _ in range(len(table))]
     active = _blank_and_excluded(table, keep, reasons, cfg, path)
+    if g_col is not None:
+        g_text = _as_text(g_col).to_numpy()
+        for i in np.flatnonzero((g_text == "") & active):
+            reasons[i].append(f"group ({cfg.group}) is missing")
     parsed = [("x", name, *_parse_numbers(col, cfg.decimal)) for name, col in zip(xs, x_cols)]
     parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal)))
     for role, column, _, prob, raw in parsed:
@@ -568,6 +573,8 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
     pts["y"] = parsed[-1][2][use]
     pts["log_y"] = to_log(pts["y"].to_numpy(), log_base)
     pts["x"], pts["log_x"] = pts["x0"], pts["log_x0"]
+    if g_col is not None:
+        pts["group"] = g_text[use]
     pts["n_rows"] = 1
     return CleanData(points=pts.reset_index(drop=True), dropped=dropped, n_read=n_read,
                      units=units, averaged_within=None, n_rows_used=int(use.sum()))

@@ -524,11 +524,18 @@ def headline_of(result) -> Headline:
     """
     cfg = result.config
     tables = result.tables or {}
-    head = build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
-                          tables.get("pairwise_tests"), methods=cfg.model.methods,
-                          primary=getattr(cfg.model, "primary", None),
-                          confidence=cfg.model.confidence,
-                          group_word=str(cfg.data.group or "group"))
+    if getattr(result, "multi_fit", None) is not None:   # several predictors: their own Answer
+        from .answer_several import several_headline
+        head = several_headline(result.fits, result.slope_tests, tables.get("group_tests"),
+                                confidence=cfg.model.confidence,
+                                group_word=str(cfg.data.group or "group"),
+                                diagnostics=tables.get("diagnostics"))
+    else:
+        head = build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
+                              tables.get("pairwise_tests"), methods=cfg.model.methods,
+                              primary=getattr(cfg.model, "primary", None),
+                              confidence=cfg.model.confidence,
+                              group_word=str(cfg.data.group or "group"))
     if len(head.sentences) < 3:
         answer = next((m.strip() for prefix in _ANSWER_LINES for m in result.messages
                        if m.strip().startswith(prefix)), None)

@@ -345,6 +345,9 @@ def _headline_section(head) -> Section:
 
 def build_report(result, folder: Path | None = None, written=()) -> list:
     """The report's content as a list of :class:`Section` (no escaping, no rounding)."""
+    if getattr(result, "multi_fit", None) is not None:   # several predictors: their own
+        from .report_several import build_several_report
+        return build_several_report(result, folder, written)
     folder = Path(folder) if folder is not None else Path(".")
     written = list(written or ())
     cfg = result.config

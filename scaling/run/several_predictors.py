@@ -30,6 +30,7 @@ from ..stats.units import conversion_factor, normalisation_constant
 from ..stats.several_predictors import fit_multi, multi_fit_to_dict
 from ..render.summaries import total_range_note
 from ..render.wording import p_text
+from .several_checks import several_diagnostics, several_groups
 
 __all__ = ["apply_model_units", "constant_columns", "SeveralStage", "several_stage",
            "exponent_hypotheses", "MULTI_SLOPE_TEST_COLUMNS"]
@@ -332,10 +333,22 @@ def several_stage(cfg, state) -> SeveralStage:
                               "estimate": t.estimate, "statistic": t.statistic,
                               "statistic_type": "t", "df": t.df, "p_value": t.p_value,
                               "p_method": "t"})
+    tables: dict = {}
+    if "group" in pts.columns:   # data.group: each group's fit, common exponents, tests
+        grouped = several_groups(pts, names, exponent_hypotheses(cfg.exponents, names), cfg,
+                                 base, units)
+        fits = pd.concat([fits, grouped.fits], ignore_index=True)
+        test_rows += list(grouped.slope_rows)
+        tables.update(grouped.tables)
+        messages += list(grouped.messages)
+        notes += list(grouped.notes)
+    if cfg.diagnostics.enabled:
+        checked = several_diagnostics(fit, pts, cfg)
+        tables.update(checked.tables)
+        notes += list(checked.notes)
     slope_tests = pd.DataFrame(test_rows, columns=MULTI_SLOPE_TEST_COLUMNS)
     # saved for 'scaling predict' (results.json "saved_fits"): predictions without the data
     saved = {**multi_fit_to_dict(fit), "scope": "pooled", "group": ""}
-    tables: dict = {}
     comb = cfg.model.combined
     if comb is not None:
         c = fit.test_combined(comb["weights"], exponent=comb["exponent"],

@@ -1,0 +1,242 @@
+"""Groups with several predictors: each group's fit, shared exponents, shared elevations.
+
+With groups g = 1..G and predictors X_1..X_k (logs), three nested OLS
+models on the log scale (the analysis of covariance with several
+covariates; e.g. Draper & Smith 1998, *Applied Regression Analysis*, 3rd
+ed., ch. 14, from memory):
+
+    separate  Y = a_g + sum_j b_gj X_j      (group x term interactions), G(k+1) parameters
+    parallel  Y = a_g + sum_j b_j  X_j      (common exponents),          G + k
+    pooled    Y = a   + sum_j b_j  X_j      (one line),                  1 + k
+
+Do the groups share the exponents?  The extra-sum-of-squares F test of
+parallel against separate, ((SSR_par - SSR_sep) / ((G-1)k)) /
+(SSR_sep / (n - G(k+1))).  Do they share the elevation, given common
+exponents?  Pooled against parallel, ((SSR_pool - SSR_par) / (G-1)) /
+(SSR_par / (n - G - k)).  Both equal statsmodels' ``compare_f_test`` of the
+nested OLS fits (checked in the tests).  The common exponents are those of
+the parallel model, with se from s^2_par (D'D)^-1 and t intervals and tests
+on n - G - k df.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Mapping
+
+import numpy as np
+from scipy import stats
+
+from ..errors import DataError
+from .schema import check_confidence
+from .several_predictors import TermTest, _as_matrix, _check_base, fit_multi
+from .multi_predictions import _check_positive
+
+__all__ = ["MultiGroupComparison", "compare_groups_multi", "nested_f"]
+
+
+def _ssr(design: np.ndarray, y: np.ndarray) -> tuple:
+    beta, *_ = np.linalg.lstsq(design, y, rcond=None)
+    resid = y - design @ beta
+    return float(resid @ resid), beta
+
+
+def nested_f(ssr_small: float, df_small: float, ssr_big: float, df_big: float) -> tuple:
+    """(F, df_num, df_den, p) of a restricted model (small) against a larger one (big).
+
+    ``df_*`` are residual degrees of freedom.
+    """
+    df_num = df_small - df_big
+    if df_num <= 0 or df_big <= 0 or ssr_big <= 0:
+        return math.nan, float(df_num), float(df_big), math.nan
+    f = ((ssr_small - ssr_big) / df_num) / (ssr_big / df_big)
+    return float(f), float(df_num), float(df_big), float(stats.f.sf(f, df_num, df_big))
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class MultiGroupComparison:
+    """Each group's fit with several predictors and the tests across groups.
+
+    Attributes
+    ----------
+    names : tuple of str
+        The predictors.
+    groups : tuple of str
+        Groups compared (those with at least k + 2 rows).
+    skipped : tuple of str
+        Groups with too few rows for their own fit (still in the tests when
+        they have rows: they add elevations).
+    group_fits : dict
+        group -> MultiFit.
+    n : int
+    slopes, slope_se, slope_low, slope_high : ndarray, shape (k,)
+        The common within-group exponents (parallel model).
+    df : float
+        Residual df of the parallel model, n - G - k.
+    elevations : dict
+        group -> intercept (log scale) of the parallel model.
+    slopes_equal, intercepts_equal : tuple
+        (F, df_num, df_den, p) of the two nested tests.
+    resid_sd : float
+        Residual SD of the parallel model.
+    log_base : float
+    confidence : float
+    """
+
+    names: tuple
+    groups: tuple
+    skipped: tuple
+    group_fits: dict = field(repr=False)
+    n: int
+    slopes: np.ndarray
+    slope_se: np.ndarray
+    slope_low: np.ndarray
+    slope_high: np.ndarray
+    df: float
+    elevations: dict = field(repr=False)
+    slopes_equal: tuple
+    intercepts_equal: tuple
+    resid_sd: float
+    log_base: float
+    confidence: float
+
+    def test_exponents(self, hypothesis: Mapping[str, float], *, label: str = "") -> tuple:
+        """t tests of the common exponents against ``{term: value}`` (n - G - k df)."""
+        out = []
+        for term, value in hypothesis.items():
+            j = self.names.index(term)
+            t = (float(self.slopes[j]) - float(value)) / float(self.slope_se[j])
+            out.append(TermTest(term=term, hypothesis=label or f"{value:g}", estimate=float(self.slopes[j]),
+                                exponent=float(value), se=float(self.slope_se[j]),
+                                statistic=t, df=self.df,
+                                p_value=float(2 * stats.t.sf(abs(t), self.df))))
+        return tuple(out)
+
+    def to_frame(self):
+        """Rows as in fits.csv: each group's terms (scope ``group``), then the common
+        exponents (scope ``common``)."""
+        import pandas as pd
+        frames = []
+        for g in self.groups:
+            f = self.group_fits[g].to_frame()
+            f["scope"], f["group"] = "group", g
+            frames.append(f)
+        rows = []
+        for j, name in enumerate(self.names):
+            rows.append({"scope": "common", "group": "", "method": "ols", "term": name,
+                         "n": self.n, "slope": float(self.slopes[j]),
+                         "slope_low": float(self.slope_low[j]),
+                         "slope_high": float(self.slope_high[j]),
+                         "slope_se": float(self.slope_se[j]), "intercept": math.nan,
+                         "intercept_low": math.nan, "intercept_high": math.nan, "r": math.nan,
+                         "r2": math.nan, "adj_r2": math.nan, "resid_sd": self.resid_sd,
+                         "confidence": self.confidence,
+                         "note": f"common within-group exponent of {len(self.groups)} groups"})
+        frames.append(pd.DataFrame(rows))
+        return pd.concat(frames, ignore_index=True)
+
+    def tests_frame(self):
+        """group_tests rows: slopes_equal (group x term interactions) and intercepts_equal."""
+        import pandas as pd
+        rows = []
+        for test, (f, d1, d2, p) in (("slopes_equal", self.slopes_equal),
+                                     ("intercepts_equal", self.intercepts_equal)):
+            rows.append({"method": "ols", "test": test, "statistic": f, "df": d1,
+                         "df_resid": d2, "p_value": p, "p_method": "F",
+                         "common_slope": math.nan, "common_slope_low": math.nan,
+                         "common_slope_high": math.nan})
+        return pd.DataFrame(rows)
+
+
+def compare_groups_multi(x, y, groups, *, names=None, confidence: float = 0.95,
+                         log_base=10) -> MultiGroupComparison:
+    """Fit y = a_g prod_j x_j^b_gj in each group and test shared exponents and elevations.
+
+    Parameters
+    ----------
+    x : mapping of name -> values, DataFrame, or array (n, k)
+        Positive predictors in natural units.
+    y : array_like (n,)
+        Positive responses.
+    groups : array_like (n,)
+        Group labels.
+    names : sequence of str, optional
+    confidence : float
+    log_base : {10, "e", 2}
+
+    Returns
+    -------
+    MultiGroupComparison
+
+    Raises
+    ------
+    DataError
+        Fewer than two groups, or too few rows for the separate model.
+
+    Notes
+    -----
+    See the module docstring for the three models and the F tests.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(3)
+    >>> d, h = 10 ** rng.uniform(1, 2, 90), 10 ** rng.uniform(.5, 1.5, 90)
+    >>> g = np.repeat(["a", "b", "c"], 30)
+    >>> m = np.where(g == "a", .05, .08) * d**2 * h * 10 ** rng.normal(0, .05, 90)
+    >>> cmp = compare_groups_multi({"d": d, "h": h}, m, g)
+    >>> cmp.groups, bool(cmp.intercepts_equal[3] < 0.05)
+    (('a', 'b', 'c'), True)
+    """
+    confidence = check_confidence(confidence)
+    base = _check_base(log_base)
+    mat, names = _as_matrix(x, names)
+    yv = np.asarray(y, dtype=float)
+    gv = np.asarray(groups).astype(str)
+    if yv.shape != (mat.shape[0],) or gv.shape != (mat.shape[0],):
+        raise DataError(f"x, y and groups must have the same length ({mat.shape[0]} rows)")
+    _check_positive(mat, names, "predictor")
+    _check_positive(yv[:, None], ("y",), "response")
+    n, k = mat.shape
+    labels, codes = np.unique(gv, return_inverse=True)
+    G = len(labels)
+    if G < 2:
+        raise DataError("comparing groups needs at least two groups")
+    ln_b = math.log(base)
+    lx, ly = np.log(mat) / ln_b, np.log(yv) / ln_b
+    dummies = (codes[:, None] == np.arange(G)[None, :]).astype(float)
+    pooled = np.column_stack([np.ones(n), lx])
+    parallel = np.column_stack([dummies, lx])
+    separate = np.column_stack([dummies] + [dummies * lx[:, [j]] for j in range(k)])
+    df_sep, df_par, df_pool = n - G * (k + 1), n - G - k, n - k - 1
+    if df_sep < 1:
+        raise DataError(f"{G} groups with {k} predictors need more than {G * (k + 1)} rows "
+                        f"for each group's own exponents, got {n}")
+    for design, what in ((parallel, "common exponents"), (separate, "each group's exponents")):
+        if np.linalg.matrix_rank(design) < design.shape[1]:
+            raise DataError(f"the logs of the predictors are collinear within a group; "
+                            f"{what} cannot be separated")
+    ssr_sep, _ = _ssr(separate, ly)
+    ssr_par, beta = _ssr(parallel, ly)
+    ssr_pool, _ = _ssr(pooled, ly)
+    s2 = ssr_par / df_par
+    cov = s2 * np.linalg.inv(parallel.T @ parallel)
+    se = np.sqrt(np.diag(cov))[G:]
+    b = beta[G:]
+    tcrit = stats.t.ppf(0.5 + confidence / 2, df_par)
+    fits, skipped = {}, []
+    for i, g in enumerate(labels):
+        sel = codes == i
+        if sel.sum() < k + 2:
+            skipped.append(str(g))
+            continue
+        fits[str(g)] = fit_multi(mat[sel], yv[sel], names=names, confidence=confidence,
+                                 log_base=base)
+    return MultiGroupComparison(
+        names=names, groups=tuple(fits), skipped=tuple(skipped), group_fits=fits, n=n,
+        slopes=b.copy(), slope_se=se, slope_low=b - tcrit * se, slope_high=b + tcrit * se,
+        df=float(df_par), elevations={str(g): float(beta[i]) for i, g in enumerate(labels)},
+        slopes_equal=nested_f(ssr_par, df_par, ssr_sep, df_sep),
+        intercepts_equal=nested_f(ssr_pool, df_pool, ssr_par, df_par),
+        resid_sd=math.sqrt(s2), log_base=base, confidence=confidence)
