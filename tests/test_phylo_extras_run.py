@@ -109,3 +109,21 @@ def test_bad_phylogeny_keys_are_one_line_errors(tmp_path, phylogeny, where):
     with pytest.raises(ConfigError) as err:
         config_from_dict(raw, base_dir=tmp_path)
     assert where in str(err.value) and "\n" not in str(err.value)
+
+
+def test_saved_results_predict_a_new_species_by_the_pgls_line(tmp_path):
+    from scaling.run.pipeline import run_config
+    from scaling.run.saved_predictions import load_results
+    text, _, names, X, Y, _ = _invented(20, 24)
+    table = pd.DataFrame({"sp": names, "mass": 10 ** X, "rate": 10 ** Y})
+    cfg, res = _run(tmp_path, table, text)
+    run_config(cfg, out=tmp_path / "out", quiet=True)
+    saved = load_results(tmp_path / "out")
+    frame = saved.predict([10.0], method="pgls", correction="none")
+    row = res.tables["predictions"]
+    row = row[(row["scope"] == "phylo") & (row["species"] == "")]
+    # internal consistency: the saved line reproduces the run's prediction
+    assert_allclose(frame[["y", "y_low", "y_high"]].to_numpy(float),
+                    row[["y", "y_low", "y_high"]].to_numpy(float), rtol=1e-10)
+    with pytest.raises(ConfigError, match="--group"):
+        saved.predict([10.0], method="pgls", group="A")

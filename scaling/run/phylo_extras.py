@@ -29,7 +29,7 @@ same species means (the species with a tip), and adds:
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -41,9 +41,9 @@ from ..stats.fit_rows import fit_row
 from ..stats.logscale import to_log
 from ..stats.phylo_models import (compare_models, fit_sampling_error, lambda_tests,
                                   pooled_within_variance)
-from ..stats.phylo_predict import (MAX_DENSE_TIPS, OUTLIER_CUT, lambda_covariance,
-                                   new_species_line, parametric_factor, predict_new_species,
-                                   predict_tips, residual_checks)
+from ..stats.phylo_predict import (MAX_DENSE_TIPS, OUTLIER_CUT, back_transform,
+                                   lambda_covariance, new_species_line, new_species_to_dict,
+                                   predict_new_species, predict_tips, residual_checks)
 from ..stats.phylogeny import (PhyloPlan, fit_phylo, match_species, normalise_name,
                                phylo_pass, prune_tree, read_newick)
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS, PREDICTION_COLUMNS
@@ -67,7 +67,8 @@ class PhyloExtras:
     ``rows`` and ``test_rows`` go into fits.csv and slope_tests.csv;
     ``lambda_columns`` ((scope, group, method) -> the lambda columns) fill
     the group rows once fits.csv is assembled; ``tables`` holds
-    ``phylo_models``; ``predictions`` and ``checks`` are appended to
+    ``phylo_models``; ``saved_fits`` the PGLS line for ``scaling predict --method
+    pgls``; ``predictions`` and ``checks`` are appended to
     predictions.csv and points_to_check.csv; ``dropped`` is the run's
     dropped-rows table without the rows now predicted.
     """
@@ -76,6 +77,7 @@ class PhyloExtras:
     test_rows: tuple = ()
     lambda_columns: dict
     tables: dict
+    saved_fits: dict
     predictions: pd.DataFrame
     checks: pd.DataFrame
     dropped: pd.DataFrame
@@ -107,7 +109,7 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
     X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
     settings = cfg.model.phylogeny
     reml = settings["lambda"] == "reml"
-    messages, notes, rows, test_rows, lam_cols = [], [], [], [], {}
+    messages, notes, rows, test_rows, lam_cols, saved = [], [], [], [], {}, {}
     tables, preds, checks = {}, [], []
     dropped = state.data.dropped
     ols = phylo.fits.get("ols")
@@ -120,6 +122,8 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
         depth = float(np.mean(_tip_heights(pruned, tips)))
         line = new_species_line(res, plan.n, depth)
         x_range = (float(pts["x"].min()), float(pts["x"].max()))
+        saved = {("phylo", "", "ols"): new_species_to_dict(
+            line, log_base=base, confidence=ols.confidence, lam=ols.lam, x_range=x_range)}
         if cfg.prediction.x:
             new_rows = _new_species_rows(cfg, line, base, x_range, ols.confidence)
             preds.append(new_rows)
@@ -144,13 +148,14 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
     check_table = (pd.concat(checks, ignore_index=True) if checks
                    else pd.DataFrame(columns=POINTS_TO_CHECK_COLUMNS))
     return PhyloExtras(rows=tuple(rows), test_rows=tuple(test_rows), lambda_columns=lam_cols,
-                       tables=tables, predictions=pred_table, checks=check_table,
+                       tables=tables, saved_fits=saved, predictions=pred_table, checks=check_table,
                        dropped=dropped, messages=tuple(messages), notes=tuple(notes))
 
 
 def finish_phylo_extras(state, extras: PhyloExtras) -> tuple:
-    """``(fits, tables)``: fits.csv with the group rows' lambda columns and predictions.csv
-    with this stage's rows (called once those tables exist)."""
+    """``(fits, tables, saved_fits)``: fits.csv with the group rows' lambda columns,
+    predictions.csv with this stage's rows and the saved PGLS line (called once those
+    tables exist)."""
     fits = state.fits.copy()
     for (scope, group, method), cols in extras.lambda_columns.items():
         sel = ((fits["scope"] == scope) & (fits["group"] == group)
@@ -165,7 +170,7 @@ def finish_phylo_extras(state, extras: PhyloExtras) -> tuple:
         old = old.assign(species="") if "species" not in old else old
         tables["predictions"] = pd.concat([old, extras.predictions[list(old.columns)]],
                                           ignore_index=True)
-    return fits, tables
+    return fits, tables, {**state.saved_fits, **extras.saved_fits}
 
 
 def add_phylo_checks(table: pd.DataFrame, extras: PhyloExtras | None) -> pd.DataFrame:
@@ -266,16 +271,11 @@ def _tip_heights(tree, tips) -> np.ndarray:
 
 
 def _back(fit, low, high, resid_var, correction: str, interval: str, base):
-    """Natural units: the median times the factor; bounds unscaled for a prediction interval
-    (as :func:`scaling.stats.predictions.predict` does)."""
-    unlog = (lambda v: v) if base is None else (lambda v: np.power(base, v))
-    cf = np.ones_like(fit) if correction == "none" else parametric_factor(resid_var, base)
-    bound = cf if interval == "confidence" else 1.0
-    return cf * unlog(fit), bound * unlog(low), bound * unlog(high)
+    return back_transform(fit, low, high, resid_var, correction, interval, base)[:3]
 
 
 def _correction_label(correction: str) -> str:
-    return "none" if correction == "none" else "parametric"
+    return "none" if correction == "none" else "parametric"   # as back_transform
 
 
 def _new_species_rows(cfg, line, base, x_range, confidence) -> pd.DataFrame:

@@ -186,8 +186,8 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     state = replace(state, fits=predicted.fits, saved_fits=predicted.saved_fits,
                     tables={**state.tables, **predicted.tables})
     if extras is not None:
-        fits_x, tables_x = finish_phylo_extras(state, extras)
-        state = replace(state, fits=fits_x, tables=tables_x)
+        fits_x, tables_x, saved_x = finish_phylo_extras(state, extras)
+        state = replace(state, fits=fits_x, tables=tables_x, saved_fits=saved_x)
     checked = check_run(cfg, state)   # before the diagnostics, whose words read it
     diagnosed = (diagnostics_stage(cfg, replace(state, tables={
         **state.tables, "points_to_check": checked.table})) if cfg.diagnostics.enabled else None)

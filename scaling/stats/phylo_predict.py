@@ -50,14 +50,18 @@ import numpy as np
 from scipy import stats
 from scipy.linalg import cho_factor, cho_solve, solve_triangular
 
+from .lines import base_label, parse_log_base
 from .phylogeny import PassResult, Tree, tree_covariance
 
-__all__ = ["MAX_DENSE_TIPS", "OUTLIER_CUT", "NewSpeciesLine", "new_species_line",
+__all__ = ["MAX_DENSE_TIPS", "OUTLIER_CUT", "PHYLO_DICT_FORMAT", "NewSpeciesLine",
+           "new_species_line", "new_species_to_dict", "new_species_from_dict", "back_transform",
            "predict_new_species", "lambda_covariance", "TipPrediction", "predict_tips",
            "ResidualChecks", "residual_checks", "parametric_factor"]
 
 MAX_DENSE_TIPS = 4000
 OUTLIER_CUT = 3.0
+#: ``format`` of a saved PGLS line in results.json (``scaling predict --method pgls``).
+PHYLO_DICT_FORMAT = "phylo_new_species"
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -112,6 +116,42 @@ def predict_new_species(line: NewSpeciesLine, log_x, *, confidence: float = 0.95
     se = np.sqrt(var)
     q = stats.t.ppf(0.5 + confidence / 2, line.df)
     return fit, se, fit - q * se, fit + q * se, np.full_like(fit, tip_var)
+
+
+def new_species_to_dict(line: NewSpeciesLine, *, log_base, confidence: float, lam: float,
+                        x_range) -> dict:
+    """A JSON-ready dict of the line, for results.json (``scope`` phylo, method ols)."""
+    return {"format": PHYLO_DICT_FORMAT, "scope": "phylo", "group": "", "method": "ols",
+            **{k: float(v) for k, v in line.to_dict().items()}, "n": int(line.n),
+            "log_base": base_label(log_base), "confidence": float(confidence),
+            "lambda": float(lam), "x_range": [float(x_range[0]), float(x_range[1])]}
+
+
+def new_species_from_dict(d: dict) -> tuple:
+    """``(line, log_base)`` from :func:`new_species_to_dict`'s dict."""
+    line = NewSpeciesLine(**{k: float(d[k]) for k in ("intercept", "slope", "mean_x", "sum_w",
+                                                      "sxx", "s2", "depth")}, n=int(d["n"]))
+    return line, parse_log_base(d["log_base"])
+
+
+def back_transform(fit, low, high, resid_var, correction: str, interval: str, base) -> tuple:
+    """Natural units ``(y, y_low, y_high)`` and the correction applied.
+
+    The median base^fit times a factor: 1 for ``none``; otherwise the
+    lognormal mean factor :func:`parametric_factor` of the prediction's own
+    residual variance (Duan's smearing and the ratio estimator assume
+    independent residuals, which related species are not), so the correction
+    is reported as ``parametric``.  Bounds carry the factor only for a
+    confidence interval, as in :func:`scaling.stats.predictions.predict`.
+    """
+    fit, low, high = (np.asarray(v, dtype=float) for v in (fit, low, high))
+    if base is None:
+        return fit, low, high, "none"
+    cf = np.ones_like(fit) if correction == "none" else parametric_factor(resid_var, base)
+    bound = cf if interval == "confidence" else 1.0
+    with np.errstate(over="ignore"):
+        return (cf * np.power(base, fit), bound * np.power(base, low),
+                bound * np.power(base, high), "none" if correction == "none" else "parametric")
 
 
 def lambda_covariance(tree: Tree, tips, lam: float) -> np.ndarray:
