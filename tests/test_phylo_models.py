@@ -221,17 +221,20 @@ def test_sampling_error_removes_the_downward_bias_of_lambda():
     chol = np.linalg.cholesky(t)
     X = chol @ rng.normal(size=(60, B))
     Y = 0.75 * X + chol @ rng.normal(size=(60, B)) + rng.normal(size=(60, B)) * np.sqrt(extra)[:, None]
-    lam = np.linspace(0, 1, 21)
-    sig = np.geomspace(0.2, 5, 31)
+    lam = np.linspace(0, 1, 11)
+    sig = np.geomspace(0.2, 5, 15)
     L, S = (a.ravel() for a in np.meshgrid(lam, sig, indexing="ij"))
     with_err = sampling_error_loglik(plan, X, Y, extra, L, S)          # (L*S, B)
     naive = sampling_error_loglik(plan, X, Y, np.zeros(60), L, S)
     lam_err = L[np.argmax(with_err, axis=0)]
     lam_naive = L[np.argmax(naive, axis=0)]
-    # ignoring the error pulls lambda well below 1; modelling it brings the mean back near 1
-    assert lam_naive.mean() < 0.85
-    assert lam_err.mean() > 0.9
-    assert lam_err.mean() - lam_naive.mean() > 0.1
+    # ignoring the error pulls lambda well below 1 (seen: mean 0.64) and inflates the rate
+    # (1.35); modelling it brings them back near the truth (0.91, capped by the bound at 1;
+    # 0.89).  Tolerances: about 4 Monte Carlo SEs (SD of lambda-hat ~ 0.2 / sqrt(300))
+    assert lam_naive.mean() < 0.75
+    assert lam_err.mean() > 0.85
+    assert S[np.argmax(naive, axis=0)].mean() > 1.2
+    assert 0.75 < S[np.argmax(with_err, axis=0)].mean() < 1.1
 
 
 # --------------------------------------------------------------------------
@@ -325,3 +328,24 @@ def test_residual_checks_standardise_by_the_conditional_spread_and_flag_outliers
     Y2 = Y.copy()
     Y2[7] += 3.0        # a planted outlier (a mistyped value)
     assert 7 in residual_checks(v, X, Y2).flagged
+
+
+@pytest.mark.parametrize("model,est", [("kappa", 0.6), ("delta", 1.8), ("ou", 0.05),
+                                       ("lambda", 0.3), ("independent", math.nan)])
+def test_transformed_tree_gives_the_model_likelihood(model, est):
+    # internal consistency: Brownian on transform_tree = the model's O(n) likelihood
+    from scaling.stats.phylo_models import transform_tree
+    from scaling.stats.phylogeny import phylo_loglik
+    _, tree, _, rng = _tree(20, 15, ultrametric=True)
+    plan = PhyloPlan.from_tree(tree)
+    X = rng.normal(size=20)
+    Y = X + rng.normal(size=20)
+    T = float(np.max(np.diag(tree_covariance(tree))))
+    p = est * T if model == "ou" else est
+    a = phylo_loglik(pass_with_lengths(plan, np.column_stack([X, Y]),
+                                       model_lengths(plan, model, [p])), 20, model="regression")
+    t2 = transform_tree(tree, model, est)
+    b = phylo_loglik(pass_with_lengths(PhyloPlan.from_tree(t2), np.column_stack([X, Y]),
+                                       model_lengths(PhyloPlan.from_tree(t2), "brownian", [1])),
+                     20, model="regression")
+    assert_allclose(a, b, atol=1e-9)

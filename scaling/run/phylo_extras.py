@@ -29,7 +29,7 @@ same species means (the species with a tip), and adds:
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace as dc_replace
 from pathlib import Path
 
 import numpy as np
@@ -38,9 +38,10 @@ import pandas as pd
 from ..io.tables import _as_text, _parse_numbers, _reason, read_table
 from ..render.wording import fit_note
 from ..stats.fit_rows import fit_row
+from ..stats.line_results import ConfidenceInterval, line_fit_from_moments
 from ..stats.logscale import to_log
 from ..stats.phylo_models import (compare_models, fit_sampling_error, lambda_tests,
-                                  pooled_within_variance)
+                                  pooled_within_variance, transform_tree)
 from ..stats.phylo_predict import (MAX_DENSE_TIPS, OUTLIER_CUT, back_transform,
                                    lambda_covariance, new_species_line, new_species_to_dict,
                                    predict_new_species, predict_tips, residual_checks)
@@ -64,7 +65,11 @@ _LAMBDA_COLUMNS = ["lambda", "lambda_low", "lambda_high", "lambda_estimate", "lo
 class PhyloExtras:
     """What this stage adds (see the module docstring).
 
-    ``rows`` and ``test_rows`` go into fits.csv and slope_tests.csv;
+    ``rows`` are every fits.csv row of the run so far (the phylogenetic OLS row
+    swapped for the named model's) and the per-group rows; ``test_rows`` go into
+    slope_tests.csv;
+    ``phylo`` is the phylogenetic stage with its OLS line under the model named
+    by ``model.phylogeny.model`` (the stage itself when that is lambda);
     ``lambda_columns`` ((scope, group, method) -> the lambda columns) fill
     the group rows once fits.csv is assembled; ``tables`` holds
     ``phylo_models``; ``saved_fits`` the PGLS line for ``scaling predict --method
@@ -76,6 +81,7 @@ class PhyloExtras:
     rows: tuple = ()
     test_rows: tuple = ()
     lambda_columns: dict
+    phylo: object
     tables: dict
     saved_fits: dict
     predictions: pd.DataFrame
@@ -114,28 +120,43 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
     dropped = state.data.dropped
     ols = phylo.fits.get("ols")
     pruned, tips, plan = _tips_plan(tree, species)
+    phylo_out = phylo
     if ols is not None and ols.estimable:
-        table, m_msgs = _models_table(cfg, state, plan, X, Y, ols, reml)
+        table, m_msgs, model_fits = _models_table(cfg, state, plan, X, Y, ols, reml)
         tables["phylo_models"] = table
         messages += m_msgs
-        res = phylo_pass(plan, np.column_stack([X, Y]), [ols.lam])
-        depth = float(np.mean(_tip_heights(pruned, tips)))
+        chosen = _chosen(settings.get("model", "lambda"), model_fits, notes)
+        if chosen is None:       # the lambda line as fitted by the phylogenetic stage
+
+            def cov_tree(sub):
+                return sub, ols.lam
+            line_fit = ols
+        else:                    # the named model: GLS on the transformed tree
+            mf = chosen
+
+            def cov_tree(sub):
+                return transform_tree(sub, mf.model, mf.estimate), 1.0
+            line_fit, phylo_out, c_msg = _chosen_line(cfg, phylo, pts, pruned, mf, base)
+            messages.append(c_msg)
+        t_tree, t_lam = cov_tree(pruned)
+        res = phylo_pass(PhyloPlan.from_tree(t_tree, tips), np.column_stack([X, Y]), [t_lam])
+        depth = float(np.mean(_tip_heights(t_tree, tips)))
         line = new_species_line(res, plan.n, depth)
         x_range = (float(pts["x"].min()), float(pts["x"].max()))
         saved = {("phylo", "", "ols"): new_species_to_dict(
-            line, log_base=base, confidence=ols.confidence, lam=ols.lam, x_range=x_range)}
+            line, log_base=base, confidence=ols.confidence, lam=t_lam, x_range=x_range)}
         if cfg.prediction.x:
             new_rows = _new_species_rows(cfg, line, base, x_range, ols.confidence)
             preds.append(new_rows)
             messages.append(_new_species_sentence(new_rows, state.data.units, depth))
-        taken, tip_rows, tip_msgs = _unmeasured(cfg, state, tree, pruned, species, X, Y, ols,
-                                                base, x_range, name)
+        taken, tip_rows, tip_msgs = _unmeasured(cfg, state, tree, species, X, Y, line_fit,
+                                                cov_tree, base, x_range, name)
         if len(tip_rows):
             preds.append(tip_rows)
             dropped = dropped[~dropped["row"].isin(taken)].reset_index(drop=True)
         messages += tip_msgs
         if plan.n <= MAX_DENSE_TIPS:
-            chk, c_msgs = _residual_checks(pruned, tips, ols.lam, X, Y, pts)
+            chk, c_msgs = _residual_checks(t_tree, tips, t_lam, X, Y, pts)
             checks.append(chk)
             messages += c_msgs
         else:
@@ -147,8 +168,10 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
                   else pd.DataFrame(columns=PREDICTION_COLUMNS + ["species"]))
     check_table = (pd.concat(checks, ignore_index=True) if checks
                    else pd.DataFrame(columns=POINTS_TO_CHECK_COLUMNS))
+    swap = {id(a): b for a, b in zip(phylo.rows, phylo_out.rows) if a is not b}
+    rows = [swap.get(id(r), r) for r in state.rows] + list(rows)
     return PhyloExtras(rows=tuple(rows), test_rows=tuple(test_rows), lambda_columns=lam_cols,
-                       tables=tables, saved_fits=saved, predictions=pred_table, checks=check_table,
+                       phylo=phylo_out, tables=tables, saved_fits=saved, predictions=pred_table, checks=check_table,
                        dropped=dropped, messages=tuple(messages), notes=tuple(notes))
 
 
@@ -207,7 +230,6 @@ def _models_table(cfg, state, plan, X, Y, ols, reml: bool) -> tuple:
     w = np.exp(-0.5 * table["delta_aicc"].to_numpy(float))
     table["weight"] = w / np.nansum(w)
     table = table[MODEL_COLUMNS]
-    pct = f"{100 * cfg.model.confidence:g}%"
     ok = table[table["note"] == ""]
     top = ok.loc[ok["aicc"].idxmin()]
     msgs = [f"Pagel's λ = {lt.lam:.2f} against λ = 0 (no phylogenetic signal): "
@@ -219,8 +241,50 @@ def _models_table(cfg, state, plan, X, Y, ols, reml: bool) -> tuple:
                 + ", ".join(f"{r.model} ΔAICc {r.delta_aicc:.1f}" for r in ok.itertuples()
                             if r.model != top["model"]) + f"; the phylogenetic line reported "
                 f"uses the {chosen} model.")
-    del pct
-    return table, msgs
+    return table, msgs, {f.model: f for f in fits}
+
+
+def _chosen(name: str, model_fits: dict, notes: list):
+    """The ModelFit the line uses, or None for lambda (also when the named model failed)."""
+    if name == "lambda":
+        return None
+    mf = model_fits.get(name)
+    if mf is None or mf.note or not np.isfinite(mf.loglik):
+        notes.append(f"model.phylogeny.model is {name}, which could not be fitted "
+                     f"({mf.note if mf is not None else 'unknown model'}); the phylogenetic "
+                     "line uses Pagel's λ.")
+        return None
+    return mf
+
+
+def _chosen_line(cfg, phylo, pts, pruned, mf, base) -> tuple:
+    """The phylogenetic OLS line under the named model: GLS on the transformed tree
+    (the model's parameter held at its estimate), as a PhyloFit, and the stage with it."""
+    t_tree = transform_tree(pruned, mf.model, mf.estimate)
+    fit = fit_phylo(pts["x"].to_numpy(), pts["y"].to_numpy(), t_tree,
+                    pts["unit"].astype(str).tolist(), method="ols", lam=1.0,
+                    confidence=cfg.model.confidence, log_base=base)
+    fit = dc_replace(fit, lam=math.nan, lam_ci=ConfidenceInterval(math.nan, math.nan),
+                     lam_estimate=mf.model, loglik=mf.loglik, aic=mf.aic, n_params=mf.k)
+    ranges = ((float(pts["x"].min()), float(pts["x"].max())),
+              (float(pts["y"].min()), float(pts["y"].max())))
+    row = fit_row(fit, scope="phylo", x_range=ranges[0], y_range=ranges[1],
+                  interval_method="analytic", deming_lambda=np.nan, note=fit_note(fit),
+                  **{"lambda": math.nan, "lambda_low": math.nan, "lambda_high": math.nan,
+                     "lambda_estimate": mf.model, "loglik": mf.loglik, "aic": mf.aic})
+    rows = tuple(row if (r["scope"] == "phylo" and r["method"] == "ols") else r
+                 for r in phylo.rows)
+    line_fits = dict(phylo.line_fits)
+    line_fits[("phylo", "", "ols")] = line_fit_from_moments(
+        fit.moments, "ols", confidence=fit.confidence, log_base=base, x_range=ranges[0],
+        y_range=ranges[1])
+    stage = dc_replace(phylo, rows=rows, fits={**phylo.fits, "ols": fit}, line_fits=line_fits)
+    par = (f", {mf.parameter} = {mf.estimate:.3g}" if mf.parameter else "")
+    pct = f"{100 * cfg.model.confidence:g}%"
+    msg = (f"The phylogenetic OLS line uses the {mf.model} model (model.phylogeny.model"
+           f"{par}, its parameter held at the estimate): exponent {fit.slope:.3f} ({pct} CI "
+           f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}).")
+    return fit, stage, msg
 
 
 def _p(p: float) -> str:
@@ -305,7 +369,7 @@ def _pred_frame(x, y, y_lo, y_hi, cfg, x_range, confidence, *, species) -> pd.Da
                          "range_ratio": rr, "species": species})
 
 
-def _unmeasured(cfg, state, tree, pruned, species, X, Y, ols, base, x_range, tree_name):
+def _unmeasured(cfg, state, tree, species, X, Y, ols, cov_tree, base, x_range, tree_name):
     """Rows with x, a species with a tip and a blank y: predicted from the fitted relatives."""
     dc = cfg.data
     reason = _reason("y", dc.y, "missing", "", dc.decimal)
@@ -336,7 +400,8 @@ def _unmeasured(cfg, state, tree, pruned, species, X, Y, ols, base, x_range, tre
                         f"exceed {MAX_DENSE_TIPS} (the prediction needs the dense covariance)."]
     all_species = list(species) + list(means.index)
     sub, tips, _ = _tips_plan(tree, all_species)
-    cov = lambda_covariance(sub, tips, ols.lam)
+    t_tree, t_lam = cov_tree(sub)
+    cov = lambda_covariance(t_tree, tips, t_lam)
     pc = cfg.prediction
     tp = predict_tips(cov, X, Y, means["lx"].to_numpy(), confidence=ols.confidence,
                       interval=pc.interval)
@@ -348,7 +413,9 @@ def _unmeasured(cfg, state, tree, pruned, species, X, Y, ols, base, x_range, tre
     listed = ", ".join(f"{s} {v:.3g} ({lo:.3g}–{hi:.3g})" for s, v, lo, hi in
                        zip(means["shown"], y, y_lo, y_hi))
     unit_y = state.data.units.get("y", "")
-    msg = (f"Predicted from their relatives in {tree_name} (PGLS at λ = {ols.lam:.2f}, "
+    how = (f"PGLS at λ = {ols.lam:.2f}" if ols.lam_estimate in ("ml", "reml", "fixed")
+           else f"PGLS under the {ols.lam_estimate} model")
+    msg = (f"Predicted from their relatives in {tree_name} ({how}, "
            f"{100 * ols.confidence:g}% {pc.interval} intervals{', ' + unit_y if unit_y else ''}"
            f"): {listed}.")
     return rows.tolist(), out, [msg]

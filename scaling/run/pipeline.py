@@ -176,9 +176,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                         line_fits={**state.line_fits, **phylo.line_fits})
     extras = phylo_extras_stage(cfg, state) if phylo is not None else None
     if extras is not None:   # models, predictions from the tree, per-group lines, checks
-        state = replace(state, rows=state.rows + extras.rows, data=replace(
+        state = replace(state, rows=extras.rows, phylo=extras.phylo, data=replace(
             state.data, dropped=extras.dropped), test_rows=state.test_rows + extras.test_rows,
-            tables={**state.tables, **extras.tables})
+            tables={**state.tables, **extras.tables},
+            line_fits={**state.line_fits, **extras.phylo.line_fits})
     table = fits_table_stage(cfg, state)
     state = replace(state, fits=table.fits, slope_tests=table.slope_tests,
                     line_fits=table.line_fits)

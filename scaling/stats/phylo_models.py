@@ -79,10 +79,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize, stats
 
-from .phylogeny import PassResult, PhyloPlan, pass_with_lengths, phylo_loglik
+from .phylogeny import PassResult, PhyloPlan, Tree, _heights, pass_with_lengths, phylo_loglik
 
 __all__ = ["MODELS", "OU_NOT_ULTRAMETRIC", "branch_heights", "is_ultrametric",
-           "model_lengths", "ModelFit", "fit_model", "compare_models", "LambdaTests",
+           "model_lengths", "transform_tree", "ModelFit", "fit_model", "compare_models", "LambdaTests",
            "lambda_tests", "aicc", "SamplingErrorFit", "pooled_within_variance",
            "fit_sampling_error", "sampling_error_loglik"]
 
@@ -144,6 +144,41 @@ def model_lengths(plan: PhyloPlan, model: str, params) -> np.ndarray:
         ou = np.exp(-2 * a * (T - hc)) * -np.expm1(-2 * a * (hc - hp)) / (2 * a)
         return np.where(small, b, ou)
     raise ValueError(f"unknown model {model!r}")
+
+
+def transform_tree(tree: Tree, model: str, estimate: float) -> Tree:
+    """The tree with its branch lengths transformed by ``model`` at ``estimate``.
+
+    ``estimate`` as on :class:`ModelFit` (for ``ou`` alpha in 1/height units;
+    ignored for ``brownian`` and ``independent``).  The same transforms as
+    :func:`model_lengths`, on the tree's own arrays: Brownian GLS on the result
+    (lambda = 1) is GLS under the model.
+    """
+    h = _heights(tree.parent, tree.length)
+    hp = h[np.maximum(tree.parent, 0)]
+    b = tree.length
+    tip_h = np.where(tree.is_tip, h, 0.0)
+    if model in ("brownian",) or (model != "independent" and not np.isfinite(estimate)):
+        new = b.copy()
+    elif model == "independent":
+        new = tip_h
+    elif model == "lambda":
+        new = b * estimate + tip_h * (1 - estimate)
+    elif model == "kappa":
+        new = np.where(b > 0, np.power(np.where(b > 0, b, 1.0), estimate), 0.0)
+    elif model == "delta":
+        new = np.power(h, estimate) - np.power(hp, estimate)
+    elif model == "ou":
+        T = float(np.max(h))
+        a = float(estimate)
+        new = (b.copy() if a * T < 1e-12 else
+               np.exp(-2 * a * (T - h)) * -np.expm1(-2 * a * (h - hp)) / (2 * a))
+    else:
+        raise ValueError(f"unknown model {model!r}")
+    new = np.asarray(new, dtype=float).copy()
+    new[0] = 0.0
+    return Tree(parent=tree.parent, length=new, names=tree.names, is_tip=tree.is_tip,
+                source=tree.source, offsets=tree.offsets)
 
 
 def aicc(loglik, k: int, n: int):
@@ -393,11 +428,13 @@ def fit_sampling_error(plan: PhyloPlan, X, Y, extra, *, lam="ml", s2: float = ma
     sxx, syy, sxy = (float(res0.css[0, i, j]) for i, j in ((0, 0), (1, 1), (0, 1)))
     s0 = max((syy - sxy * sxy / sxx) / plan.n, 1e-300)
     lam_grid = np.linspace(0, 1, 11) if lam == "ml" else np.array([float(lam)])
-    sig_grid = s0 * np.geomspace(1e-3, 10, 25)
-    L, S = np.meshgrid(lam_grid, sig_grid, indexing="ij")
-    ll = sampling_error_loglik(plan, X, Y, extra, L.ravel(), S.ravel())
+    sig_grid = s0 * np.geomspace(1e-3, 10, 13)
+    L, S = (a.ravel() for a in np.meshgrid(lam_grid, sig_grid, indexing="ij"))
+    # the grid in chunks of 16 columns: memory O(16 n), one pass each
+    ll = np.concatenate([sampling_error_loglik(plan, X, Y, extra, L[i:i + 16], S[i:i + 16])
+                         for i in range(0, L.size, 16)])
     i = int(np.nanargmax(ll))
-    start = np.array([L.ravel()[i], math.log(S.ravel()[i])])
+    start = np.array([L[i], math.log(S[i])])
 
     def neg(p):
         lam_v = p[0] if lam == "ml" else float(lam)
@@ -405,7 +442,7 @@ def fit_sampling_error(plan: PhyloPlan, X, Y, extra, *, lam="ml", s2: float = ma
 
     bounds = [(0.0, 1.0) if lam == "ml" else (float(lam), float(lam)), (None, None)]
     r = optimize.minimize(neg, start, method="L-BFGS-B", bounds=bounds,
-                          options={"ftol": 1e-14, "gtol": 1e-10})
+                          options={"ftol": 1e-13, "gtol": 1e-9})
     p = r.x if r.fun <= -ll[i] else start
     lam_hat = float(p[0]) if lam == "ml" else float(lam)
     sig2 = math.exp(float(p[1]))
