@@ -127,3 +127,19 @@ def test_saved_results_predict_a_new_species_by_the_pgls_line(tmp_path):
                     row[["y", "y_low", "y_high"]].to_numpy(float), rtol=1e-10)
     with pytest.raises(ConfigError, match="--group"):
         saved.predict([10.0], method="pgls", group="A")
+
+
+def test_sampling_error_line_is_gls_with_the_added_tip_variance(tmp_path):
+    text, tree, names, X, Y, rng = _invented(24, 25)
+    rows = []
+    for i, s in enumerate(names):
+        for _ in range(int(rng.integers(1, 4))):
+            rows.append({"sp": s, "mass": 10 ** X[i], "rate": 10 ** (Y[i] + rng.normal(0, 0.1))})
+    _, res = _run(tmp_path, pd.DataFrame(rows), text, sampling_error=True)
+    m = res.tables["phylo_models"].set_index("model")
+    row = res.fits[(res.fits["scope"] == "phylo") & (res.fits["method"] == "ols")].iloc[0]
+    # the fits.csv line is the sampling-error GLS line of phylo_models.csv (internal
+    # consistency; its likelihood is checked against the dense normal in test_phylo_models)
+    assert row["lambda_estimate"] == "lambda_sampling_error"
+    assert_allclose(row["slope"], m.loc["lambda_sampling_error", "slope"], rtol=1e-7)
+    assert m.loc["lambda_sampling_error", "chosen"] and not m.loc["lambda", "chosen"]

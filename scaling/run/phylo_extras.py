@@ -40,7 +40,7 @@ from ..render.wording import fit_note
 from ..stats.fit_rows import fit_row
 from ..stats.line_results import ConfidenceInterval, line_fit_from_moments
 from ..stats.logscale import to_log
-from ..stats.phylo_models import (compare_models, fit_sampling_error, lambda_tests,
+from ..stats.phylo_models import (ModelFit, compare_models, fit_sampling_error, lambda_tests,
                                   pooled_within_variance, transform_tree)
 from ..stats.phylo_predict import (MAX_DENSE_TIPS, OUTLIER_CUT, back_transform,
                                    lambda_covariance, new_species_line, new_species_to_dict,
@@ -58,7 +58,7 @@ GROUP_SCOPE = "phylo_group"
 MODEL_COLUMNS = ["method", "model", "parameter", "estimate", "half_life", "loglik", "k", "n",
                  "aicc", "delta_aicc", "weight", "slope", "slope_se", "intercept",
                  "lr_statistic", "p_value", "chosen", "note"]
-_LAMBDA_COLUMNS = ["lambda", "lambda_low", "lambda_high", "lambda_estimate", "loglik", "aic"]
+SAMPLING_MODEL = "lambda_sampling_error"
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -132,15 +132,19 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
                 return sub, ols.lam
             line_fit = ols
         else:                    # the named model: GLS on the transformed tree
-            mf = chosen
+            mf, info = chosen, model_fits.get("_sampling")
 
             def cov_tree(sub):
-                return transform_tree(sub, mf.model, mf.estimate), 1.0
-            line_fit, phylo_out, c_msg = _chosen_line(cfg, phylo, pts, pruned, mf, base)
+                return _transformed(sub, mf, info), 1.0
+            line_fit, phylo_out, c_msg = _chosen_line(cfg, phylo, pts, cov_tree(pruned)[0], mf,
+                                                      base)
             messages.append(c_msg)
         t_tree, t_lam = cov_tree(pruned)
         res = phylo_pass(PhyloPlan.from_tree(t_tree, tips), np.column_stack([X, Y]), [t_lam])
-        depth = float(np.mean(_tip_heights(t_tree, tips)))
+        # a new species' own depth: without the fitted species' sampling error
+        depth = float(np.mean(_tip_heights(
+            t_tree if chosen is None or chosen.model != SAMPLING_MODEL
+            else transform_tree(pruned, "lambda", chosen.estimate), tips)))
         line = new_species_line(res, plan.n, depth)
         x_range = (float(pts["x"].min()), float(pts["x"].max()))
         saved = {("phylo", "", "ols"): new_species_to_dict(
@@ -211,6 +215,11 @@ def _models_table(cfg, state, plan, X, Y, ols, reml: bool) -> tuple:
     fits = compare_models(plan, X, Y, reml=reml)
     lt = lambda_tests(plan, X, Y, ols.lam, ols.loglik, reml=reml)
     chosen = cfg.model.phylogeny.get("model", "lambda")
+    if cfg.model.phylogeny.get("sampling_error") and chosen != "lambda":
+        state_note = ("model.phylogeny.sampling_error applies to the lambda model only; "
+                      f"the {chosen} line ignores it.")
+    else:
+        state_note = ""
     records = []
     for f in fits:
         lr = {"independent": (lt.stat_0, lt.p_0), "brownian": (lt.stat_1, lt.p_1)}.get(
@@ -222,8 +231,14 @@ def _models_table(cfg, state, plan, X, Y, ols, reml: bool) -> tuple:
                         "lr_statistic": lr[0], "p_value": lr[1],
                         "chosen": f.model == chosen, "note": f.note})
     sampling = _sampling_error(cfg, state, plan, X, Y)
+    model_fits = {f.model: f for f in fits}
     if sampling is not None:
-        records.append(sampling)
+        row, mf, info = sampling
+        row["chosen"] = chosen == "lambda"     # sampling error refines the lambda model
+        records[0]["chosen"] = records[0]["chosen"] and chosen != "lambda"
+        records.append(row)
+        model_fits[SAMPLING_MODEL] = mf
+        model_fits["_sampling"] = info
     table = pd.DataFrame(records)
     best = np.nanmin(table["aicc"].to_numpy(float))
     table["delta_aicc"] = table["aicc"] - best
@@ -240,14 +255,15 @@ def _models_table(cfg, state, plan, X, Y, ols, reml: bool) -> tuple:
                 f"{top['model']} (exponent {top['slope']:.3f} ± {top['slope_se']:.3f} SE); "
                 + ", ".join(f"{r.model} ΔAICc {r.delta_aicc:.1f}" for r in ok.itertuples()
                             if r.model != top["model"]) + f"; the phylogenetic line reported "
-                f"uses the {chosen} model.")
-    return table, msgs, {f.model: f for f in fits}
+                f"uses the {table.loc[table['chosen'].astype(bool), 'model'].iloc[0]} model."
+                + (" " + state_note if state_note else ""))
+    return table, msgs, model_fits
 
 
 def _chosen(name: str, model_fits: dict, notes: list):
     """The ModelFit the line uses, or None for lambda (also when the named model failed)."""
     if name == "lambda":
-        return None
+        return model_fits.get(SAMPLING_MODEL)    # None unless sampling_error is on
     mf = model_fits.get(name)
     if mf is None or mf.note or not np.isfinite(mf.loglik):
         notes.append(f"model.phylogeny.model is {name}, which could not be fitted "
@@ -257,20 +273,32 @@ def _chosen(name: str, model_fits: dict, notes: list):
     return mf
 
 
-def _chosen_line(cfg, phylo, pts, pruned, mf, base) -> tuple:
+def _transformed(sub, mf, info):
+    """``sub`` transformed by the model ``mf`` at its estimate; for lambda with sampling
+    error the fitted species' tip branches are also lengthened by s2/(n_i sigma^2)."""
+    if mf.model != SAMPLING_MODEL:
+        return transform_tree(sub, mf.model, mf.estimate)
+    t = transform_tree(sub, "lambda", mf.estimate)
+    length = t.length.copy()
+    for i in t.tips.tolist():
+        length[i] += info["extra"].get(normalise_name(t.names[i]), 0.0) / info["sigma2"]
+    return dc_replace(t, length=length)
+
+
+def _chosen_line(cfg, phylo, pts, t_tree, mf, base) -> tuple:
     """The phylogenetic OLS line under the named model: GLS on the transformed tree
-    (the model's parameter held at its estimate), as a PhyloFit, and the stage with it."""
-    t_tree = transform_tree(pruned, mf.model, mf.estimate)
+    (the model's parameters held at their estimates), as a PhyloFit, and the stage with it."""
     fit = fit_phylo(pts["x"].to_numpy(), pts["y"].to_numpy(), t_tree,
                     pts["unit"].astype(str).tolist(), method="ols", lam=1.0,
                     confidence=cfg.model.confidence, log_base=base)
-    fit = dc_replace(fit, lam=math.nan, lam_ci=ConfidenceInterval(math.nan, math.nan),
+    lam = mf.estimate if mf.model == SAMPLING_MODEL else math.nan
+    fit = dc_replace(fit, lam=lam, lam_ci=ConfidenceInterval(math.nan, math.nan),
                      lam_estimate=mf.model, loglik=mf.loglik, aic=mf.aic, n_params=mf.k)
     ranges = ((float(pts["x"].min()), float(pts["x"].max())),
               (float(pts["y"].min()), float(pts["y"].max())))
     row = fit_row(fit, scope="phylo", x_range=ranges[0], y_range=ranges[1],
                   interval_method="analytic", deming_lambda=np.nan, note=fit_note(fit),
-                  **{"lambda": math.nan, "lambda_low": math.nan, "lambda_high": math.nan,
+                  **{"lambda": lam, "lambda_low": math.nan, "lambda_high": math.nan,
                      "lambda_estimate": mf.model, "loglik": mf.loglik, "aic": mf.aic})
     rows = tuple(row if (r["scope"] == "phylo" and r["method"] == "ols") else r
                  for r in phylo.rows)
@@ -281,8 +309,10 @@ def _chosen_line(cfg, phylo, pts, pruned, mf, base) -> tuple:
     stage = dc_replace(phylo, rows=rows, fits={**phylo.fits, "ols": fit}, line_fits=line_fits)
     par = (f", {mf.parameter} = {mf.estimate:.3g}" if mf.parameter else "")
     pct = f"{100 * cfg.model.confidence:g}%"
-    msg = (f"The phylogenetic OLS line uses the {mf.model} model (model.phylogeny.model"
-           f"{par}, its parameter held at the estimate): exponent {fit.slope:.3f} ({pct} CI "
+    key = ("model.phylogeny.sampling_error" if mf.model == SAMPLING_MODEL
+           else "model.phylogeny.model")
+    msg = (f"The phylogenetic OLS line uses the {mf.model} model ({key}{par}, "
+           f"held at the estimate): exponent {fit.slope:.3f} ({pct} CI "
            f"{fit.slope_ci.low:.3f}–{fit.slope_ci.high:.3f}).")
     return fit, stage, msg
 
@@ -291,12 +321,12 @@ def _p(p: float) -> str:
     return "< 0.001" if p < 0.001 else f"= {p:.3f}"
 
 
-def _sampling_error(cfg, state, plan, X, Y) -> dict | None:
-    """The lambda model with within-species sampling error (a phylo_models row), or None."""
+def _sampling_error(cfg, state, plan, X, Y):
+    """The lambda model with within-species sampling error: ``(phylo_models row, ModelFit,
+    {"sigma2", "extra": species -> s2/n_i})``, or None."""
     if not cfg.model.phylogeny.get("sampling_error") or not cfg.data.average_within:
         return None
     table = read_table(cfg.data)
-    rows = state.data.points  # species means: need the raw rows of the used species
     y_val, y_prob, _ = _parse_numbers(table[cfg.data.y], cfg.data.decimal)
     unit = _as_text(table[cfg.data.average_within]).to_numpy()
     keys = {normalise_name(u): i for i, u in enumerate(state.phylo.points["unit"].astype(str))}
@@ -306,7 +336,6 @@ def _sampling_error(cfg, state, plan, X, Y) -> dict | None:
     log_y = to_log(y_val[ok], state.base)
     s2, df = pooled_within_variance(code[ok], log_y)
     n_i = np.bincount(code[ok], minlength=plan.n)
-    del rows
     if not np.isfinite(s2) or np.any(n_i == 0):
         return None
     lam = cfg.model.phylogeny["lambda"]
@@ -314,11 +343,16 @@ def _sampling_error(cfg, state, plan, X, Y) -> dict | None:
                            s2=s2)
     k = 3 + (lam in ("ml", "reml"))   # a, b, sigma^2 (+ lambda); s2 comes from within species
     aicc = -2 * f.loglik + 2 * k + 2 * k * (k + 1) / (plan.n - k - 1)
-    return {"method": "ols", "model": "lambda_sampling_error", "parameter": "lambda",
-            "estimate": f.lam, "half_life": math.nan, "loglik": f.loglik, "k": k, "n": plan.n,
-            "aicc": aicc, "slope": f.slope, "slope_se": f.slope_se, "intercept": f.intercept,
-            "lr_statistic": math.nan, "p_value": math.nan, "chosen": False,
-            "note": f"s2 = {s2:.4g} on {df} df (pooled within species)"}
+    note = f"s2 = {s2:.4g} on {df} df (pooled within species)"
+    row = {"method": "ols", "model": SAMPLING_MODEL, "parameter": "lambda",
+           "estimate": f.lam, "half_life": math.nan, "loglik": f.loglik, "k": k, "n": plan.n,
+           "aicc": aicc, "slope": f.slope, "slope_se": f.slope_se, "intercept": f.intercept,
+           "lr_statistic": math.nan, "p_value": math.nan, "chosen": False, "note": note}
+    mf = ModelFit(model=SAMPLING_MODEL, parameter="lambda", estimate=f.lam, loglik=f.loglik,
+                  k=k, n=plan.n, aic=-2 * f.loglik + 2 * k, aicc=aicc, slope=f.slope,
+                  slope_se=f.slope_se, intercept=f.intercept)
+    names = [normalise_name(u) for u in state.phylo.points["unit"].astype(str)]
+    return row, mf, {"sigma2": f.sigma2, "extra": dict(zip(names, s2 / n_i))}
 
 
 # --------------------------------------------------------------------------
