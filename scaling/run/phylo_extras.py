@@ -232,6 +232,10 @@ def _models_table(cfg, state, plan, X, Y, ols, reml: bool) -> tuple:
                         "chosen": f.model == chosen, "note": f.note})
     sampling = _sampling_error(cfg, state, plan, X, Y)
     model_fits = {f.model: f for f in fits}
+    if sampling is None and cfg.model.phylogeny.get("sampling_error") and chosen == "lambda":
+        state_note = ("model.phylogeny.sampling_error is on but no species has two or more "
+                      "rows with y, so there is no within-species variance; the line is the "
+                      "plain lambda one.")
     if sampling is not None:
         row, mf, info = sampling
         row["chosen"] = chosen == "lambda"     # sampling error refines the lambda model
