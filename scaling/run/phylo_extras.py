@@ -47,7 +47,7 @@ from ..stats.phylo_predict import (MAX_DENSE_TIPS, OUTLIER_CUT, back_transform,
                                    predict_new_species, predict_tips, residual_checks)
 from ..stats.phylogeny import (PhyloPlan, fit_phylo, match_species, normalise_name,
                                phylo_pass, prune_tree, read_newick)
-from ..stats.schema import POINTS_TO_CHECK_COLUMNS, PREDICTION_COLUMNS
+from ..stats.schema import POINTS_TO_CHECK_COLUMNS, PREDICTION_COLUMNS, method_label
 from .predictions import range_ratio
 from .several_predictors import _factors
 
@@ -168,6 +168,7 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
                          f"{MAX_DENSE_TIPS} (they need the dense covariance).")
     if state.data.has_groups:
         rows, test_rows, lam_cols = _group_lines(cfg, state, tree, pts, base)
+        messages += _group_sentences(rows, lam_cols, cfg)
     pred_table = (pd.concat(preds, ignore_index=True) if preds
                   else pd.DataFrame(columns=PREDICTION_COLUMNS + ["species"]))
     check_table = (pd.concat(checks, ignore_index=True) if checks
@@ -419,11 +420,11 @@ def _unmeasured(cfg, state, tree, species, X, Y, ols, cov_tree, base, x_range, t
     x_val, x_prob, _ = _parse_numbers(table[dc.x].iloc[idx], dc.decimal)
     unit = _as_text(table[dc.average_within].iloc[idx]).to_numpy()
     fitted = {normalise_name(s) for s in species}
-    match = match_species([u for u in unit], tree)
+    match = match_species([u for u in unit if u], tree)
+    has_tip = {s for s, t in zip(match.species, match.tip_of_species) if t >= 0}
     ok = ((x_prob == "") & np.isfinite(x_val) & (x_val > 0 if base else True)
-          & (match.tip_of_species[[match.species.index(normalise_name(u)) if u else 0
-                                   for u in unit]] >= 0)
-          & np.array([bool(u) and normalise_name(u) not in fitted for u in unit]))
+          & np.array([bool(u) and normalise_name(u) in has_tip
+                      and normalise_name(u) not in fitted for u in unit]))
     if not np.any(ok):
         return [], [], []
     rows = cand["row"].to_numpy(int)[ok]
@@ -482,6 +483,21 @@ def _residual_checks(pruned, tips, lam, X, Y, pts) -> tuple:
               "(points_to_check.csv)." if rc.flagged.size
               else f"no species with |standardised residual| > {OUTLIER_CUT:g}."))
     return pd.DataFrame(recs, columns=POINTS_TO_CHECK_COLUMNS), [msg]
+
+
+def _group_sentences(rows, lam_cols: dict, cfg) -> list:
+    """One sentence per method: each group's phylogenetic exponent, interval and lambda."""
+    out = []
+    pct = f"{100 * cfg.model.confidence:g}%"
+    for method in dict.fromkeys(r["method"] for r in rows):
+        parts = [f"{r['group']} {r['slope']:.3f} ({r['slope_low']:.3f}–{r['slope_high']:.3f}, "
+                 f"λ = {lam_cols[(GROUP_SCOPE, r['group'], method)]['lambda']:.2f})"
+                 for r in rows if r["method"] == method and np.isfinite(r["slope"])]
+        if parts:
+            out.append(f"Phylogenetic {method_label(method)} within each group, on its own subtree "
+                       f"(exponent, {pct} CI, λ; fits.csv scope {GROUP_SCOPE}): "
+                       + "; ".join(parts) + ".")
+    return out
 
 
 def _group_lines(cfg, state, tree, pts, base) -> tuple:
