@@ -143,3 +143,16 @@ def test_sampling_error_line_is_gls_with_the_added_tip_variance(tmp_path):
     assert row["lambda_estimate"] == "lambda_sampling_error"
     assert_allclose(row["slope"], m.loc["lambda_sampling_error", "slope"], rtol=1e-7)
     assert m.loc["lambda_sampling_error", "chosen"] and not m.loc["lambda", "chosen"]
+
+
+def test_lambda_tests_use_the_likelihood_maximum_when_the_line_fixes_lambda(tmp_path):
+    text, tree, names, X, Y, _ = _invented(25, 26)
+    table = pd.DataFrame({"sp": names, "mass": 10 ** X, "rate": 10 ** Y})
+    _, res = _run(tmp_path, table, text, **{"lambda": 0.3})
+    m = res.tables["phylo_models"].set_index("model")
+    pf = fit_phylo(10 ** X, 10 ** Y, tree, names)      # lambda by ML (internal consistency)
+    assert_allclose(m.loc["lambda", "estimate"], pf.lam, atol=1e-5)
+    assert_allclose(m.loc["independent", "lr_statistic"],
+                    2 * (pf.loglik - m.loc["independent", "loglik"]), atol=1e-6)
+    row = res.fits[(res.fits["scope"] == "phylo") & (res.fits["method"] == "ols")].iloc[0]
+    assert row["lambda"] == 0.3 and row["lambda_estimate"] == "fixed"

@@ -122,7 +122,7 @@ def phylo_extras_stage(cfg, state) -> PhyloExtras:
     pruned, tips, plan = _tips_plan(tree, species)
     phylo_out = phylo
     if ols is not None and ols.estimable:
-        table, m_msgs, model_fits = _models_table(cfg, state, plan, X, Y, ols, reml)
+        table, m_msgs, model_fits = _models_table(cfg, state, plan, X, Y, reml)
         tables["phylo_models"] = table
         messages += m_msgs
         chosen = _chosen(settings.get("model", "lambda"), model_fits, notes)
@@ -212,9 +212,11 @@ def add_phylo_checks(table: pd.DataFrame, extras: PhyloExtras | None) -> pd.Data
 # models
 
 
-def _models_table(cfg, state, plan, X, Y, ols, reml: bool) -> tuple:
+def _models_table(cfg, state, plan, X, Y, reml: bool) -> tuple:
     fits = compare_models(plan, X, Y, reml=reml)
-    lt = lambda_tests(plan, X, Y, ols.lam, ols.loglik, reml=reml)
+    # the tests compare the likelihood's maximum over lambda (also when the line's lambda is fixed)
+    lam_fit = next(f for f in fits if f.model == "lambda")
+    lt = lambda_tests(plan, X, Y, lam_fit.estimate, lam_fit.loglik, reml=reml)
     chosen = cfg.model.phylogeny.get("model", "lambda")
     if cfg.model.phylogeny.get("sampling_error") and chosen != "lambda":
         state_note = ("model.phylogeny.sampling_error applies to the lambda model only; "
