@@ -13,6 +13,15 @@ reader (``--readers``).  Peak memory is the process's peak resident set
 Targets (2 cores): 10 000 tips < 2 s, 100 000 tips < 20 s, growth close to
 linear, peak memory < 1 GB at 100 000 tips.
 
+Then, on the same sizes, the evolutionary models of
+:mod:`scaling.stats.phylo_models` (lambda, Brownian, independent, OU, kappa,
+delta: one grid pass and a bounded search each, by the O(n) pass on
+transformed branch lengths; OU is refused on these non-ultrametric trees, so
+it costs only the check), the LR tests of lambda, PGLS with within-species
+sampling error (a 2-D grid in one pass, then a quasi-Newton search) and the
+new-species line, with time ratios between sizes (linear growth: ratio close
+to the size ratio).  Skip with ``--no-models``.
+
 Run:  .venv/bin/python benchmarks/bench_phylo.py [--sizes 1000 10000 100000]
 """
 
@@ -77,6 +86,8 @@ def main(argv=None):
     ap.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000, 100000])
     ap.add_argument("--dense-max", type=int, default=2000)
     ap.add_argument("--readers", action="store_true", help="also time registry Newick readers")
+    ap.add_argument("--no-models", action="store_true",
+                    help="skip the evolutionary models and sampling error")
     args = ap.parse_args(argv)
     rng = np.random.default_rng(2026)
     rows = []
@@ -103,6 +114,8 @@ def main(argv=None):
         for (n0, t0), (n1, t1) in zip(ts, ts[1:]):
             print(f"{method}: time ratio {n1}/{n0} tips = {t1 / t0:.1f} "
                   f"(linear would be {n1 / n0:.0f})")
+    if not args.no_models:
+        bench_models(args.sizes, np.random.default_rng(7))
     if args.readers:
         big = max(args.sizes)
         text = random_tree_newick(big, np.random.default_rng(1))
@@ -118,6 +131,36 @@ def main(argv=None):
                 print(f"  {name}: not installed")
                 continue
             print(f"  {name}: {t:.2f} s (x{t / t_own:.1f}; object tree only, no arrays)")
+
+
+def bench_models(sizes, rng) -> None:
+    """Time the model comparison, the lambda tests, sampling error and the new-species line."""
+    from scaling.stats.phylogeny import PhyloPlan, phylo_pass
+    from scaling.stats.phylo_models import compare_models, fit_sampling_error, lambda_tests
+    from scaling.stats.phylo_predict import new_species_line
+    times = {}
+    for n in sizes:
+        tree = parse_newick(random_tree_newick(n, rng))
+        x, y, _ = simulate(tree, 0.5, rng)
+        X, Y = np.log10(x), np.log10(y)
+        plan, t_plan, _ = timed(lambda: PhyloPlan.from_tree(tree))
+        fits, t_models, peak = timed(lambda: compare_models(plan, X, Y))
+        lam = next(f for f in fits if f.model == "lambda")
+        _, t_lr, _ = timed(lambda: lambda_tests(plan, X, Y, lam.estimate, lam.loglik))
+        extra = 0.05 / rng.integers(1, 6, n)
+        se, t_se, peak2 = timed(lambda: fit_sampling_error(plan, X, Y, extra, s2=0.05))
+        _, t_new, _ = timed(lambda: new_species_line(
+            phylo_pass(plan, np.column_stack([X, Y]), [lam.estimate]), n, 1.0))
+        times[n] = (t_models, t_se)
+        print(f"n={n:>7} models: plan {t_plan:5.2f} s, six models {t_models:6.2f} s "
+              f"(lambda {lam.estimate:.3f}), LR tests {t_lr:5.2f} s, sampling error "
+              f"{t_se:6.2f} s (lambda {se.lam:.3f}), new-species line {t_new:5.3f} s, "
+              f"peak RSS {max(peak, peak2) / 2**20:7.1f} MiB", flush=True)
+    ns = sorted(times)
+    for n0, n1 in zip(ns, ns[1:]):
+        print(f"models: time ratio {n1}/{n0} tips = {times[n1][0] / times[n0][0]:.1f}, "
+              f"sampling error {times[n1][1] / times[n0][1]:.1f} "
+              f"(linear would be {n1 / n0:.0f})")
 
 
 if __name__ == "__main__":

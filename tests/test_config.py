@@ -290,7 +290,8 @@ class TestDefaultsWrittenOnce:
     def test_a_mapping_default_is_not_shared_between_configs(self, write_config):
         a = load_config(write_config(MINIMAL))
         b = load_config(write_config(MINIMAL))
-        assert a.model.phylogeny == b.model.phylogeny == {"lambda": "ml"}
+        assert a.model.phylogeny == b.model.phylogeny == {"lambda": "ml", "model": "lambda",
+                                                          "sampling_error": False}
         assert a.model.phylogeny is not b.model.phylogeny
 
 

@@ -255,27 +255,39 @@ def _error_variances(value, path):
     return out
 
 
+PHYLO_MODELS = ("lambda", "brownian", "ou", "kappa", "delta")
+
+
 def _phylogeny(value, path):
-    """model.phylogeny: {lambda: ml | reml | a number in [0, 1]}."""
+    """model.phylogeny: {lambda: ml | reml | a number in [0, 1], model: lambda | brownian |
+    ou | kappa | delta, sampling_error: true | false}."""
     if value is None:
         return dict(_PHYLOGENY)
     if not isinstance(value, dict):
         raise _Bad(path, "expected a mapping like {lambda: ml}")
     for key in value:
-        if key != "lambda":
-            raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, ('lambda',))}")
+        if key not in _PHYLOGENY:
+            raise _Bad(f"{path}.{key}", f"unknown key{_suggest(key, tuple(_PHYLOGENY))}")
+    model = value.get("model", _PHYLOGENY["model"])
+    if not isinstance(model, str) or model.strip().lower() not in PHYLO_MODELS:
+        text = model.strip().lower() if isinstance(model, str) else ""
+        raise _Bad(f"{path}.model", f"{model!r} is not one of {', '.join(PHYLO_MODELS)}"
+                   f"{_suggest(text, PHYLO_MODELS)}")
+    extra = {"model": model.strip().lower(),
+             "sampling_error": _boolean(value.get("sampling_error", False),
+                                        f"{path}.sampling_error")}
     lam = value.get("lambda", _PHYLOGENY["lambda"])
     where = f"{path}.lambda"
     if isinstance(lam, str):
         text = lam.strip().lower()
         if text in ("ml", "reml"):
-            return {"lambda": text}
+            return {"lambda": text, **extra}
         raise _Bad(where, f"{lam!r} is not ml, reml or a number between 0 and 1"
                    f"{_suggest(text, ('ml', 'reml'))}")
     v = _number(lam, where)
     if not 0 <= v <= 1:
         raise _Bad(where, f"Pagel's lambda must lie between 0 and 1, got {lam!r}")
-    return {"lambda": v}
+    return {"lambda": v, **extra}
 
 
 def _alpha(value, path):
@@ -494,7 +506,7 @@ _PRIMARY = _Rule("the first symmetric method of model.methods, else ols (else th
                  "method)", _first_symmetric)
 _DEMING_LAMBDA = _Rule("1.0, or error_variances y / x when those are given",
                        _lambda_from_variances)
-_PHYLOGENY = {"lambda": "ml"}
+_PHYLOGENY = {"lambda": "ml", "model": "lambda", "sampling_error": False}
 
 _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
     "data": {

@@ -21,7 +21,7 @@ import pandas as pd
 
 from ..errors import ConfigError, DataError
 
-__all__ = ["SavedRun", "read_results", "hint", "parse_numbers", "read_column",
+__all__ = ["SavedRun", "PGLS", "read_results", "hint", "parse_numbers", "read_column",
            "read_predictors"]
 
 
@@ -57,6 +57,8 @@ class SavedRun:
     def saved_fit(self, *, method: str | None = None, group: str | None = None) -> dict:
         """The saved dict of one fit (pooled unless ``group`` is given)."""
         # default: OLS, the line that estimates y from x (else the first fitted)
+        if method == PGLS:
+            return self._phylo_fit(group)
         method = method or ("ols" if "ols" in self.methods else self.methods[0])
         if method not in self.methods:
             raise ConfigError(f"--method: '{method}' was not fitted in {self.folder}"
@@ -75,6 +77,22 @@ class SavedRun:
         where = "the pooled data" if group is None else f"group '{group}'"
         raise DataError(f"{self.folder}: no estimable {method.upper()} fit for {where} "
                         "(see the note in fits.csv)")
+
+
+    def _phylo_fit(self, group) -> dict:
+        """The saved PGLS line (a typical new species; ``--method pgls``)."""
+        if group is not None:
+            raise ConfigError("--group: the PGLS line is fitted across all species; "
+                              "leave --group out with --method pgls")
+        for d in self.fits:
+            if d.get("scope") == "phylo" and d.get("method") == "ols":
+                return d
+        raise ConfigError(f"--method pgls: the run in {self.folder} has no PGLS line "
+                          "(it needs data.tree and ols in model.methods)")
+
+
+#: ``--method`` value that predicts from the saved PGLS line.
+PGLS = "pgls"
 
 
 def hint(word, options) -> str:

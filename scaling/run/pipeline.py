@@ -44,6 +44,7 @@ from .groups import group_stage
 from .moments_path import (moments_group_stage, moments_stage, spread_stage,
                            use_moments_path, with_groups)
 from .phylogeny import phylo_stage
+from .phylo_extras import add_phylo_checks, finish_phylo_extras, phylo_extras_stage
 from .points_to_check import check_run
 from .predictions import prediction_stage
 from .reading import read_stage
@@ -174,18 +175,28 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     if phylo is not None:
         state = replace(state, rows=state.rows + phylo.rows, phylo=phylo,
                         line_fits={**state.line_fits, **phylo.line_fits})
+    extras = phylo_extras_stage(cfg, state) if phylo is not None else None
+    if extras is not None:   # models, predictions from the tree, per-group lines, checks
+        state = replace(state, rows=extras.rows, phylo=extras.phylo, data=replace(
+            state.data, dropped=extras.dropped), test_rows=state.test_rows + extras.test_rows,
+            tables={**state.tables, **extras.tables},
+            line_fits={**state.line_fits, **extras.phylo.line_fits})
     table = fits_table_stage(cfg, state)
     state = replace(state, fits=table.fits, slope_tests=table.slope_tests,
                     line_fits=table.line_fits)
     predicted = prediction_stage(cfg, state)
     state = replace(state, fits=predicted.fits, saved_fits=predicted.saved_fits,
                     tables={**state.tables, **predicted.tables})
+    if extras is not None:
+        fits_x, tables_x, saved_x = finish_phylo_extras(state, extras)
+        state = replace(state, fits=fits_x, tables=tables_x, saved_fits=saved_x)
     checked = check_run(cfg, state)   # before the diagnostics, whose words read it
     diagnosed = (diagnostics_stage(cfg, replace(state, tables={
         **state.tables, "points_to_check": checked.table})) if cfg.diagnostics.enabled else None)
     if diagnosed is not None:
         state = replace(state, tables={**state.tables, **diagnosed.tables})
-    state = replace(state, tables={**state.tables, "points_to_check": checked.table})
+    state = replace(state, tables={**state.tables, "points_to_check": add_phylo_checks(
+        checked.table, extras)})
     resampled = resampling_stage(cfg, state)
     state = replace(state, slope_tests=resampled.slope_tests,
                     tables={**state.tables, **resampled.tables})
@@ -196,10 +207,10 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                      for t in getattr(stage, field_name))
 
     messages = (read.messages + table.messages + predicted.messages
-                + said(phylo, grouped, diagnosed, field_name="messages")
+                + said(phylo, extras, grouped, diagnosed, field_name="messages")
                 + table.method_messages + resampled.messages + spread.messages)
     notes = (checked.notes + read.notes + fitted.notes
-             + said(grouped, phylo, predicted, diagnosed, resampled, spread,
+             + said(grouped, phylo, extras, predicted, diagnosed, resampled, spread,
                     field_name="notes"))
     manifest = {
         **manifest_header(cfg),

@@ -23,6 +23,9 @@ from ..stats.line_results import fit_from_dict
 from ..stats.predictions import Prediction, inverse_predict, predict, saved_factor
 from ..stats.schema import CORRECTIONS, INTERVALS, check_choice
 from ..stats.several_predictors import MULTI_DICT_FORMAT, multi_fit_from_dict
+from ..stats.logscale import to_log
+from ..stats.phylo_predict import (PHYLO_DICT_FORMAT, back_transform, new_species_from_dict,
+                                   predict_new_species)
 from .predictions import range_ratio
 
 __all__ = ["SavedResults", "load_results", "predict_command", "predict_from_dict"]
@@ -82,13 +85,34 @@ class SavedResults(SavedRun):
                 x, correction=correction or self.correction, interval=interval).to_frame()
             frame.insert(0, "group", "" if group is None else group)
             return frame
-        if inverse:
+        if d.get("format") == PHYLO_DICT_FORMAT:
+            if inverse:
+                raise ConfigError("--inverse: the PGLS line predicts y from x only")
+            frame = _predict_new_species(d, x, correction or self.correction, interval)
+        elif inverse:
             frame = inverse_predict(fit_from_dict(d), x, interval=interval).to_frame()
         else:
             frame = predict_from_dict(d, x, correction=correction or self.correction,
                                       interval=interval).to_frame()
         frame.insert(0, "group", "" if group is None else group)
         return frame
+
+
+def _predict_new_species(d: dict, x, correction: str, interval: str) -> pd.DataFrame:
+    """A typical new species by the saved PGLS line (:mod:`scaling.stats.phylo_predict`)."""
+    check_choice(correction, CORRECTIONS, "correction")
+    line, base = new_species_from_dict(d)
+    x = np.atleast_1d(np.asarray(x, dtype=float))
+    fit, _, lo, hi, tip_var = predict_new_species(
+        line, to_log(x, base) if base is not None else x, confidence=d["confidence"],
+        interval=interval)
+    y, y_lo, y_hi, used = back_transform(fit, lo, hi, tip_var, correction, interval, base)
+    low, high = d["x_range"]
+    out = (x < low) | (x > high)
+    if np.any(out):
+        warnings.warn("x outside the fitted range", ExtrapolationWarning, stacklevel=3)
+    return pd.DataFrame({"x": x, "y": y, "y_low": y_lo, "y_high": y_hi, "interval": interval,
+                         "correction": used, "extrapolated": out, "method": "pgls"})
 
 
 def load_results(folder) -> SavedResults:

@@ -117,6 +117,7 @@ __all__ = [
     "tree_covariance",
     "PhyloPlan",
     "phylo_pass",
+    "pass_with_lengths",
     "phylo_moments",
     "dense_phylo_moments",
     "phylo_loglik",
@@ -426,15 +427,36 @@ def phylo_pass(plan: PhyloPlan, values, lams) -> PassResult:
     The pruning recursion of the module docstring; cost and memory
     O(n L B k), one numpy step per tree level.
     """
+    lams = np.atleast_1d(np.asarray(lams, dtype=float))
+    # branch lengths under each lambda: internal b -> lambda b, tip b -> lambda b + (1 - lambda) h
+    blen = plan.length[:, None] * lams[None, :] + plan.tip_height[:, None] * (1 - lams)[None, :]
+    return pass_with_lengths(plan, values, blen)
+
+
+def pass_with_lengths(plan: PhyloPlan, values, blen) -> PassResult:
+    """The pass of :func:`phylo_pass` on given branch lengths (the transform hook).
+
+    Parameters
+    ----------
+    plan : PhyloPlan
+    values : array_like, shape (n, k) or (n, B, k)
+    blen : array_like, shape (n_nodes - 1, L)
+        Branch lengths in the plan's branch order (``plan.length`` order), one
+        column per transformed tree (Pagel's lambda, Grafen's kappa, Pagel's
+        delta, Ornstein-Uhlenbeck, added tip variance, ...).
+
+    Returns
+    -------
+    PassResult
+        As :func:`phylo_pass`, with L the number of columns of ``blen``.
+    """
     z_tips = np.asarray(values, dtype=float)
     batched = z_tips.ndim == 3
     if not batched:
         z_tips = z_tips[:, None, :]
-    lams = np.atleast_1d(np.asarray(lams, dtype=float))
-    L = lams.size
+    blen = np.asarray(blen, dtype=float)
+    L = blen.shape[1]
     n, B, k = z_tips.shape
-    # branch lengths under each lambda: internal b -> lambda b, tip b -> lambda b + (1 - lambda) h
-    blen = plan.length[:, None] * lams[None, :] + plan.tip_height[:, None] * (1 - lams)[None, :]
     # one column per (lambda, data set, trait), lambda slowest
     p = np.zeros((plan.n_nodes, L))
     z = np.zeros((plan.n_nodes, L * B * k))
