@@ -188,6 +188,7 @@ class TestCautionRules:
         assert mass_from_measurement(_cfg(y="body_mass_kg", x="femur_circumference_mm"))
         assert not mass_from_measurement(_cfg(y="femur_mm", x="body_mass_kg"))
         assert not mass_from_measurement(_cfg(y="biomass_kg", x="diameter_cm"))
+        assert not mass_from_measurement(_cfg(y="weight_g", x="length_cm"))
 
 
 def test_summary_lists_each_rule_by_its_words():

@@ -27,7 +27,7 @@ from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALE
                            many_groups_handle, natural_log_axis, new_figure, plain_number,
                            scatter_coded, styled)
 from .plots import common_line, fit_band, plot_fit, unlog
-from .prediction_words import inverse_run
+from .prediction_words import answer_primary, inverse_run
 from .wording import number_text, plural as plural_of
 
 __all__ = ["plot_scaling", "make_scaling", "equation_text", "common_slope_text"]
@@ -148,6 +148,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     if methods is None:   # the primary method's line; other methods only when asked
         drawn = list(result.config.model.methods)
         methods = [drawn_primary(drawn, result)] if drawn else drawn
+        if drawn and inverse_run(result.config):   # the line that reads x off leads
+            methods = [answer_primary(result.config)]
     methods = run_methods(result, methods)
     groups = run_groups(result)
     group_word = str(result.config.data.group or "group")

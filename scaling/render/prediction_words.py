@@ -169,13 +169,16 @@ def prediction_sentence(tables: dict, cfg, units: dict, *, slopes_differ: bool =
 
 def mass_from_measurement(cfg) -> bool:
     """True when forward predictions estimate a body mass from another measurement
-    (y's column or label names mass or weight and x's does not): the case where
-    inverse prediction is the alternative route."""
+    (y's column or label has the word "mass" and x's does not): the case of
+    docs/inverse_vs_forward.md, a mass from a bone or another proxy, where inverse
+    prediction is the other route.  A weight at length of fish stocks is not
+    counted: it is the quantity of interest in its own right, not a proxy
+    reading (and "biomass" is not the word "mass")."""
     def words(text):
         return {w for w in re.split(r"[^a-z]+", str(text or "").lower()) if w}
 
     labels = getattr(cfg.figures, "labels", None) or {}
-    masses = {"mass", "weight", "wt"}
+    masses = {"mass"}
     x = cfg.data.x if isinstance(cfg.data.x, str) else ""
     y = cfg.data.y if isinstance(cfg.data.y, str) else ""
     return bool((words(y) | words(labels.get("y", ""))) & masses

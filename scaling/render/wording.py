@@ -469,22 +469,24 @@ def number_text(value: float, digits: int = 4) -> str:
     """A number to ``digits`` significant digits that never reads as a rounder one.
 
     ``f"{v:.4g}"`` writes 0.99997 as "1" and 2000.4 as "2000": a bound that
-    looks exact.  Digits are added (up to 10) until the text shows ``digits``
-    significant digits or equals the value exactly.
+    looks exact.  When the text has lost two or more of its ``digits``
+    significant digits to rounding (and is not the exact value), digits are
+    added (up to 10) until it shows ``digits - 1`` of them; "0.0177" for
+    0.017701 keeps its usual form.
 
     Examples
     --------
     >>> number_text(0.99997), number_text(1.5), number_text(1.2441), number_text(2000.4)
     ('0.99997', '1.5', '1.244', '2000.4')
-    >>> number_text(1.0)
-    '1'
+    >>> number_text(1.0), number_text(0.0177012)
+    ('1', '0.0177')
     """
     v = float(value)
     if not math.isfinite(v):
         return "unbounded" if math.isinf(v) else "–"
     d = digits
     text = f"{v:.{d}g}"
-    while d < 10 and float(text) != v and _significant(text) < digits:
+    while d < 10 and float(text) != v and _significant(text) < digits - 1:
         d += 1
         text = f"{v:.{d}g}"
     return text

@@ -39,7 +39,7 @@ from ..stats.line_results import fit_to_dict
 from ..stats.predictions import accuracy, data_factors, inverse_predict, predict, saved_factor
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
 from ..render.headline import answer_line
-from ..render.prediction_words import predicting_method, prediction_sentence
+from ..render.prediction_words import answer_primary, predicting_method, prediction_sentence
 from .several_predictors import constant_columns, constant_sentence
 
 __all__ = ["PredictionStage", "prediction_stage", "accuracy_and_factors",
@@ -83,7 +83,7 @@ def prediction_stage(cfg, state) -> PredictionStage:
     predicting, choice_notes = prediction_fits(saved, cfg)   # which lines predict (default OLS)
     tables, notes = _predictions(state.line_fits, predicting, cfg)
     messages = []
-    lead = state.line_fits.get(("pooled", "", cfg.model.primary))
+    lead = state.line_fits.get(("pooled", "", answer_primary(cfg)))   # the Answer's line
     if lead is not None:   # the normalisation constant a of the primary line, with its units
         a_line = constant_sentence(lead, units, base, cfg.model.confidence)
         if a_line:
