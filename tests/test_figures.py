@@ -183,7 +183,14 @@ class TestPlotScaling:
         ax = plot_scaling(differ)
         (text,) = [t for t in ax.texts if t.get_gid() == "equation"]
         assert "within" not in text.get_text()
-        assert text.get_text().startswith("SMA: $y = ")
+        # the box says the slopes differ, then gives the pooled line as a pooled line
+        first, second = text.get_text().split("\n")[:2]
+        assert first == "SMA slopes differ: clades' own lines"
+        assert second.startswith("SMA, all clades: $y = ")
+        # each clade's own line, not the common slope through its mean
+        legend = [t.get_text() for lg in ax.figure.legends for t in lg.get_texts()]
+        assert "SMA, each clade's own line" in legend
+        assert not any("common slope" in t for t in legend)
 
     def test_equation_covers_no_data(self, grouped):
         ax = plot_scaling(grouped)

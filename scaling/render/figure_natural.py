@@ -13,6 +13,7 @@ from matplotlib.ticker import FuncFormatter, MaxNLocator
 from ..stats.predictions import predict, saved_factor
 from ..stats.schema import method_label
 from .figure_inputs import axis_label, fit_xrange, run_groups, run_methods, scatter_groups
+from .prediction_words import inverse_run
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE, STYLE,
                            arith_formatter, figure_legend, group_style, many_groups_handle,
                            new_figure, styled)
@@ -26,15 +27,55 @@ NATURAL_ZOOM_QUANTILE = 90.0
 _PRED_COLOUR = "#000000"
 
 
-def _natural_predictions(result, methods: list):
-    """Rows of the run's ``predictions`` table drawn on the natural-scale plot:
-    scope ``pooled`` (the curves drawn), for the methods drawn; None if there are none."""
-    table = (result.tables or {}).get("predictions")
+def _natural_predictions(result, methods: list, *, inverse: bool = False):
+    """Rows of the run's ``predictions`` table (``inverse_predictions`` when ``inverse``)
+    drawn on the natural-scale plot: scope ``pooled`` (the curves drawn), for the methods
+    drawn; None if there are none."""
+    name, value = ("inverse_predictions", "x") if inverse else ("predictions", "y")
+    table = (result.tables or {}).get(name)
     if not isinstance(table, pd.DataFrame) or not len(table) or "scope" not in table:
         return None
     rows = table[(table["scope"] == "pooled") & table["method"].isin(methods)]
-    rows = rows[np.isfinite(rows["y"].to_numpy(dtype=float))]
+    rows = rows[np.isfinite(rows[value].to_numpy(dtype=float))]
     return rows if len(rows) else None
+
+
+def _inverse_markers(ax, result, preds, handles, xs_all, ys_all, *, small: bool) -> None:
+    """Each requested y marked on the line at the x read off it, with the x interval as a
+    horizontal bar; extrapolated ones (y outside the fitted y range) open, bars dashed."""
+    x = preds["x"].to_numpy(float)
+    y = preds["y"].to_numpy(float)
+    low = preds["x_low"].to_numpy(float)
+    high = preds["x_high"].to_numpy(float)
+    extra = preds["extrapolated"].astype(bool).to_numpy()
+    pct = f"{100 * result.config.model.confidence:g}%"
+    kinds = preds["interval"].iloc[0] if "interval" in preds else "prediction"
+    ms = 3.0 if small else 4.5
+    for flag, style, label in (
+            (False, dict(mfc=_PRED_COLOUR, ls="-"), f"given y: x ± {pct} {kinds} interval"),
+            (True, dict(mfc="white", ls=(0, (2, 1.5))),
+             "given y beyond the fitted y range (extrapolated)")):
+        sel = extra == flag
+        if not np.any(sel):
+            continue
+        for xi, yi, li, hi_ in zip(x[sel], y[sel], low[sel], high[sel]):
+            err = ([[max(xi - li, 0.0)], [max(hi_ - xi, 0.0)]]
+                   if np.isfinite(li) and np.isfinite(hi_) else None)
+            cont = ax.errorbar([xi], [yi], xerr=err, fmt="none", ecolor=_PRED_COLOUR,
+                               elinewidth=0.8, capsize=2.0 if small else 2.5,
+                               capthick=0.8, zorder=6)
+            if err is not None:
+                for bar in cont.lines[2]:
+                    bar.set_linestyle(style["ls"])
+            ax.plot([xi], [yi], ls="none", marker="s", markersize=ms,
+                    markerfacecolor=style["mfc"], markeredgecolor=_PRED_COLOUR,
+                    markeredgewidth=0.8, zorder=7,
+                    gid="inverse-extrapolated" if flag else "inverse")
+        handles.append(Line2D([], [], color=_PRED_COLOUR, lw=0.8, ls=style["ls"], marker="s",
+                              markersize=4, markerfacecolor=style["mfc"],
+                              markeredgecolor=_PRED_COLOUR, label=label))
+        xs_all += [x[sel], np.where(np.isfinite(high[sel]), high[sel], x[sel])]
+        ys_all += [y[sel], y[sel]]
 
 
 def _run_factor(result, method: str, correction: str):
@@ -106,7 +147,9 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
         handles.append(matplotlib.patches.Patch(
             color="#4d4d4d", alpha=0.2, lw=0,
             label=f"{100 * result.config.model.confidence:g}% {interval} band"))
-    if preds is not None:
+    if preds is not None and "x_low" in preds:   # inverse predictions: x from given y
+        _inverse_markers(ax, result, preds, handles, xs_all, ys_all, small=small)
+    elif preds is not None:
         x = preds["x"].to_numpy(float)
         y = preds["y"].to_numpy(float)
         low = preds["y_low"].to_numpy(float)
@@ -233,16 +276,21 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
             ax = new_figure(size, 0.85).add_subplot()
     methods = run_methods(result, methods)
     groups = run_groups(result)
-    correction = correction or result.config.prediction.correction
-    preds = _natural_predictions(result, methods)
+    inverse = inverse_run(result.config)
+    # an inverse run reads x off the line itself: the curve is the median (no correction)
+    correction = correction or ("none" if inverse else result.config.prediction.correction)
+    preds = _natural_predictions(result, methods, inverse=inverse)
     handles, drawn = _natural_layers(ax, result, methods, groups, correction, interval, preds)
     x_all = np.concatenate([x, drawn[0][np.isfinite(drawn[0])]])
     x_max = float(np.max(x_all)) if len(x_all) else 1.0
     x_hi = float(np.percentile(x, NATURAL_ZOOM_QUANTILE)) if zoom else x_max
     _natural_limits(ax, drawn, x_hi)
     if any(isinstance(h, matplotlib.patches.Patch) for h in handles):   # curves drawn
-        what = "mean" if correction != "none" else "median"
-        title = f"{what.capitalize()} of y ({correction} correction)"
+        title = (f"Mean of y ({correction} correction)" if correction != "none"
+                 else "Median of y (the fitted line, no correction)")
+        if inverse and preds is not None:
+            lines = ", ".join(dict.fromkeys(method_label(m) for m in preds["method"]))
+            title = f"Each given y read off the {lines} line (medians of x)"
         if zoom:
             title += (f"\nx up to its {NATURAL_ZOOM_QUANTILE:g}th percentile"
                       + ("; full range below" if own else ""))

@@ -113,7 +113,10 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     if not lim > 0:   # perfect fit: all residuals zero
         lim = 1.0
     ax.set_ylim(-lim, lim)
-    ax.xaxis.set_major_locator(MaxNLocator(5))
+    # at most four intervals on x: the panels are half a column wide, and five
+    # labels such as "−1.5" run into each other; normal quantiles in whole numbers
+    ax.xaxis.set_major_locator(MaxNLocator(4, integer=True, symmetric=True)
+                               if kind == "normal" else MaxNLocator(4))
     ax.yaxis.set_major_locator(MaxNLocator(5, symmetric=True))
     return ax
 

@@ -27,7 +27,8 @@ from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALE
                            many_groups_handle, natural_log_axis, new_figure, plain_number,
                            scatter_coded, styled)
 from .plots import common_line, fit_band, plot_fit, unlog
-from .wording import plural as plural_of
+from .prediction_words import answer_primary, inverse_run
+from .wording import number_text, plural as plural_of
 
 __all__ = ["plot_scaling", "make_scaling", "equation_text", "common_slope_text"]
 
@@ -55,7 +56,7 @@ def equation_text(fit, *, digits: int = 3, factor: float | None = None,
     a_text = a_text.replace(THIN, r"\,")
     factor_text = ""
     if factor is not None and np.isfinite(factor):
-        factor_text = f"\nline = median; mean = median × {factor:.3g}"
+        factor_text = f"\nline = median; mean = median × {number_text(factor, 3)}"
     return (f"{label or method_label(fit.method)}: $y = {a_text}\\,x^{{{fit.slope:.{digits}f}}}$ "
             f"({ci}){factor_text}")
 
@@ -77,6 +78,15 @@ def common_slope_text(slope: float, low: float, high: float, *, method: str, con
           if np.isfinite(low) and np.isfinite(high) else f"{pct} CI unbounded")
     return (f"{method_label(method)} within {groups_word}: "
             f"$y \\propto x^{{{slope:.{digits}f}}}$ ({ci})")
+
+
+def slopes_differ_in(result, method: str) -> bool:
+    """True when the run compared groups by ``method`` and found their slopes differ."""
+    table = (result.tables or {}).get("group_tests")
+    if table is None or not len(table) or "test" not in table:
+        return False
+    rows = table[(table["method"] == method) & (table["test"] == "slopes_equal")]
+    return bool(len(rows)) and float(rows["p_value"].iloc[0]) <= 1 - result.config.model.confidence
 
 
 def _group_line(fit, xs, common, means) -> np.ndarray:
@@ -138,6 +148,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     if methods is None:   # the primary method's line; other methods only when asked
         drawn = list(result.config.model.methods)
         methods = [drawn_primary(drawn, result)] if drawn else drawn
+        if drawn and inverse_run(result.config):   # the line that reads x off leads
+            methods = [answer_primary(result.config)]
     methods = run_methods(result, methods)
     groups = run_groups(result)
     group_word = str(result.config.data.group or "group")
@@ -206,7 +218,10 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         gmethod = drawn_primary(methods, result) if group_lines == "auto" else str(group_lines)
         drawn = False
         segments, seg_colours = [], []
-        common = common_slope_fit(result, gmethod)
+        # the common slope through each group's mean only when the groups share it;
+        # when their slopes differ each group's own line is drawn
+        common = (common_slope_fit(result, gmethod) if slopes_agree(result, gmethod)
+                  else None)
         means_of = {} if common is None or gm is None else {
             str(r.group): (r.mean_log_x, r.mean_log_y) for r in gm.itertuples(index=False)}
         for i, g in enumerate(groups):
@@ -236,7 +251,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                                   ls=METHOD_DASHES.get(gmethod, "-"),
                                   label=(f"{method_label(gmethod)} common slope in each "
                                          f"{group_word}" if common is not None else
-                                         f"{method_label(gmethod)} line per {group_word}")))
+                                         f"{method_label(gmethod)}, each {group_word}'s own "
+                                         "line")))
 
     # main lines with bands; the equation box leads with the answer: the common
     # within-group exponent when the groups' slopes do not differ (as the report does)
@@ -246,6 +262,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         lead_line = common_slope_text(common.slope, common.slope_ci.low, common.slope_ci.high,
                                       method=gmethod, confidence=result.config.model.confidence,
                                       groups_word=plural)
+    elif scope == "pooled" and gmethod is not None and slopes_differ_in(result, gmethod):
+        lead_line = f"{method_label(gmethod)} slopes differ: {plural}' own lines"
     for method in methods:
         fit = result.line_fits.get((scope, "", method))
         if fit is None:
@@ -265,8 +283,10 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         handles.append(Line2D([], [], color=shade, lw=1.3, ls=METHOD_DASHES.get(method, "-"),
                               label=label))
         if len(eq_lines) < MAX_EQUATIONS:
+            # an inverse run reads x off the line: no mean of y, so no factor in the box
+            factor = {} if inverse_run(result.config) else factor_of(result, scope, "", method)
             eq_lines.append(equation_text(
-                fit, **factor_of(result, scope, "", method),
+                fit, **factor,
                 label=f"{method_label(method)}, all {plural}" if lead_line else None))
     if scope == "pooled":   # phylogenetic lines (scaling/phylo_stage.py), no band
         for method in methods:

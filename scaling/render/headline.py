@@ -42,6 +42,7 @@ import numpy as np
 import pandas as pd
 
 from ..stats.schema import method_label
+from .prediction_words import answer_primary
 from .wording import (calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
                       verdict_phrase)
 
@@ -533,7 +534,7 @@ def headline_of(result) -> Headline:
     else:
         head = build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
                               tables.get("pairwise_tests"), methods=cfg.model.methods,
-                              primary=getattr(cfg.model, "primary", None),
+                              primary=answer_primary(cfg),   # an inverse run: its predicting line
                               confidence=cfg.model.confidence,
                               group_word=str(cfg.data.group or "group"))
     if len(head.sentences) < 3:

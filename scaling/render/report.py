@@ -28,9 +28,10 @@ import yaml
 
 from .headline import headline_of
 from .figure_kinds import FIGURES
+from .prediction_words import extrapolation_words, prediction_notes
 from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
-                      calibrated_p_text, format_p, mechanism_caution, medians_vs_means,
-                      method_label, predicted_unit, slope_interval_text, verdict_phrase)
+                      calibrated_p_text, dose_scaling_applies, format_p, mechanism_caution,
+                      method_label, slope_interval_text, units_share_ancestry, verdict_phrase)
 
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
@@ -392,7 +393,7 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         test_blocks.append(Block(kind="table", frame=result.slope_tests, name="slope_tests"))
     if sentences:
         test_blocks.append(Block(kind="p", text=mechanism_caution()))
-    if cfg.data.group or cfg.data.average_within:
+    if units_share_ancestry(cfg):   # species or higher taxa, or a tree (the rule in wording)
         test_blocks.append(Block(kind="p", text=ancestry_caution()))
     sections.append(Section(title="Exponent tests", blocks=test_blocks, anchor="tests"))
 
@@ -425,14 +426,13 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
             t = tables[name]
             flags = tuple(bool(v) for v in t["extrapolated"]) if "extrapolated" in t else ()
             n_ext = sum(flags)
-            note = (f" {n_ext} rows are extrapolations outside the fitted range and are "
-                    "highlighted." if n_ext else " None is an extrapolation.")
-            pred_blocks.append(Block(kind="p", text=intro + "." + note))
+            pred_blocks.append(Block(kind="p", text=intro + "." + extrapolation_words(n_ext)))
             pred_blocks.append(Block(kind="table", frame=t, name=name, highlight=flags))
     if pred_blocks:
         pred_blocks += [Block(kind="p", text=t) for t in (
-            predicted_unit(cfg.data.average_within, cfg.data.y), medians_vs_means(),
-            dose_caution())]
+            prediction_notes(cfg, tables, result.data.units or {},
+                             slopes_differ=head.line == "groups")
+            + ([dose_caution()] if dose_scaling_applies(cfg) else []))]
         sections.append(Section(title="Predictions", blocks=pred_blocks,
                                 anchor="predictions"))
 

@@ -23,6 +23,8 @@ __all__ = [
     "influence_reason", "smearing_reason", "estimate_outside_reason",
     "group_residuals_reason", "range_words", "range_warning", "medians_vs_means",
     "dose_caution", "mechanism_caution", "ancestry_caution", "curvature_ok",
+    "units_share_ancestry", "dose_scaling_applies", "number_text", "interval_numbers",
+    "unit_text", "count_words",
     "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "plural", "CAUTION",
     "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
     "p_text", "format_p", "calibrated_p_text", "p_floor", "slope_interval_text", "scope_words", "read_message", "dropped_note",
@@ -454,6 +456,73 @@ def _g(v: float) -> str:
     return f"{v:.3g}"
 
 
+def _significant(text: str) -> int:
+    """Significant digits written in a number's text ("0.0300" -> 3, "1" -> 1, "1000" -> 1)."""
+    mantissa = text.lower().split("e")[0].lstrip("+-")
+    digits = mantissa.replace(".", "").lstrip("0")
+    if "." not in mantissa:
+        digits = digits.rstrip("0")
+    return max(len(digits), 1)
+
+
+def number_text(value: float, digits: int = 4) -> str:
+    """A number to ``digits`` significant digits that never reads as a rounder one.
+
+    ``f"{v:.4g}"`` writes 0.99997 as "1" and 2000.4 as "2000": a bound that
+    looks exact.  When the text has lost two or more of its ``digits``
+    significant digits to rounding (and is not the exact value), digits are
+    added (up to 10) until it shows ``digits - 1`` of them; "0.0177" for
+    0.017701 keeps its usual form.
+
+    Examples
+    --------
+    >>> number_text(0.99997), number_text(1.5), number_text(1.2441), number_text(2000.4)
+    ('0.99997', '1.5', '1.244', '2000.4')
+    >>> number_text(1.0), number_text(0.0177012)
+    ('1', '0.0177')
+    """
+    v = float(value)
+    if not math.isfinite(v):
+        return "unbounded" if math.isinf(v) else "–"
+    d = digits
+    text = f"{v:.{d}g}"
+    while d < 10 and float(text) != v and _significant(text) < digits - 1:
+        d += 1
+        text = f"{v:.{d}g}"
+    return text
+
+
+def interval_numbers(low: float, high: float, digits: int = 4) -> str:
+    """An interval's two bounds in words, each by :func:`number_text` ("0.99997 to 1.529")."""
+    return f"{number_text(low, digits)} to {number_text(high, digits)}"
+
+
+_SUPERSCRIPTS = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
+
+
+def unit_text(unit) -> str:
+    """A unit as the run writes it in sentences: "(cm**2)" -> "cm²", "(kg*m**-1)" -> "kg·m⁻¹".
+
+    Examples
+    --------
+    >>> unit_text("(cm**2)"), unit_text("kg"), unit_text("(g/cm**3)"), unit_text(None)
+    ('cm²', 'kg', 'g/cm³', '')
+    """
+    if not unit or not isinstance(unit, str):
+        return ""
+    text = unit.strip()
+    if text.startswith("(") and text.endswith(")"):
+        text = text[1:-1]
+    text = re.sub(r"\*\*\s*(-?\d+)", lambda m: m.group(1).translate(_SUPERSCRIPTS), text)
+    text = re.sub(r"\^\s*(-?\d+)", lambda m: m.group(1).translate(_SUPERSCRIPTS), text)
+    return text.replace(" * ", "·").replace("*", "·").replace(" ", "")
+
+
+def count_words(n: int, word: str) -> str:
+    """A count with its noun in the right number ("1 row", "3 rows", "1 species")."""
+    return f"{n} {word if n == 1 else plural(word)}"
+
+
 def _who(row: int | None, label: str) -> str:
     return f"row {row}" + (f" ({label})" if label else "")
 
@@ -531,10 +600,74 @@ def mechanism_caution() -> str:
 
 
 def ancestry_caution(tree_key: str = "data.tree") -> str:
-    """When group or average_within is set."""
+    """Where the units can share ancestry (:func:`units_share_ancestry`)."""
     return ("Species share ancestry, so their values are not independent: intervals and "
             "p-values here are too narrow without a phylogenetic correction "
             f"({tree_key} offers one).")
+
+
+#: Words naming species or higher taxa in a column name (matched per word of the
+#: name: "species", "Order", "taxon_id", "clade_name").
+TAXON_WORDS = frozenset({
+    "species", "subspecies", "genus", "genera", "family", "families", "subfamily",
+    "superfamily", "tribe", "order", "orders", "suborder", "infraorder", "class",
+    "subclass", "phylum", "phyla", "kingdom", "clade", "clades", "taxon", "taxa",
+    "lineage", "lineages"})
+
+#: Words that name a rate or a dose in a column name, label or unit.
+RATE_WORDS = frozenset({
+    "rate", "rates", "dose", "doses", "dosage", "metabolic", "metabolism", "bmr", "fmr",
+    "rmr", "smr", "vo2", "clearance", "consumption", "uptake", "intake", "expenditure",
+    "flux", "turnover", "excretion"})
+
+_POWER_UNITS = frozenset({"w", "mw", "kw", "uw", "µw", "watt", "watts", "milliwatt"})
+_TIME_UNITS = frozenset({"s", "sec", "min", "h", "hr", "d", "day", "yr", "year"})
+
+
+def _words(text) -> set:
+    return {w for w in re.split(r"[^a-z0-9µ]+", str(text or "").lower()) if w}
+
+
+def units_share_ancestry(cfg) -> bool:
+    """True when the run's units can share ancestry: the caution applies.
+
+    The rule, from config facts only: a tree is given (``data.tree``), or the
+    group column (``data.group``) or the averaging unit (``data.average_within``)
+    names species or a higher taxon (a word of :data:`TAXON_WORDS` in the column
+    name).  Stocks, sites, plots, sexes or treatments of one species share no
+    ancestry the analysis could correct for, so they get no caution.
+    """
+    data = cfg.data
+    if getattr(data, "tree", None) is not None:
+        return True
+    return any(_words(name) & TAXON_WORDS
+               for name in (data.group, data.average_within) if name)
+
+
+def _names_rate(cfg) -> bool:
+    labels = getattr(cfg.figures, "labels", None) or {}
+    y = cfg.data.y if isinstance(cfg.data.y, str) else ""
+    units = getattr(cfg.data, "units", None) or {}
+    unit = str(units.get("y", "") or "") if isinstance(units, dict) else ""
+    if (_words(y) | _words(labels.get("y", ""))) & RATE_WORDS:
+        return True
+    low = unit.strip().lower()
+    if low in _POWER_UNITS:
+        return True
+    per = re.split(r"/|\bper\b", low)
+    return len(per) > 1 and bool(_words(per[-1]) & _TIME_UNITS)
+
+
+def dose_scaling_applies(cfg) -> bool:
+    """True when the dose-scaling caution fits the data.
+
+    The rule: the response is a rate or a dose (its column name or axis label
+    has a word of :data:`RATE_WORDS`, or its unit is a power such as mW or a
+    quantity per unit time such as ml/min) and it is scaled across species
+    (:func:`units_share_ancestry`).  A length-weight relation of fish stocks or
+    a bone against body mass is not a dose.
+    """
+    return units_share_ancestry(cfg) and _names_rate(cfg)
 
 
 def curvature_ok(verdict: str) -> str:

@@ -30,6 +30,7 @@ from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTU
                      INFLUENCE_COLUMNS)
 from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
+from ..render.prediction_words import answer_primary
 from .moments_path import bounded_diagnostics
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
@@ -60,7 +61,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     # The answer's model.  With a tree the phylogenetic model should lead; the answer
     # does not lead with it yet, so the checks follow the answer as it is built.
     answer = answer_line(state.tables.get("group_tests"), cfg.model.methods,
-                         getattr(cfg.model, "primary", None), cfg.model.confidence)
+                         answer_primary(cfg), cfg.model.confidence)
     todo = [(key, fit, point_sets.get(key[:2])) for key, fit in line_fits.items()]
     if answer[0] == "common":
         todo.append((("common", "", answer[1]), None, _common_points(point_sets, answer[1])))

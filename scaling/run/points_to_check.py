@@ -25,6 +25,7 @@ import pandas as pd
 
 from ..errors import ScalingError
 from ..render.headline import answer_line, exponent_words
+from ..render.prediction_words import answer_primary
 from ..render.headline import primary_method as primary_method_of
 from ..stats.group_comparisons import compare_groups
 from ..stats.group_means import compared_groups
@@ -185,7 +186,7 @@ def answer_points(cfg, state) -> list:
     if pooled is None or len(pooled) < 4 or state.fits is None:
         return []
     line, method = answer_line(state.tables.get("group_tests"), cfg.model.methods,
-                               getattr(cfg.model, "primary", None), cfg.model.confidence)
+                               answer_primary(cfg), cfg.model.confidence)
     if method not in METHODS:
         return []
     hyps = [(exponent_words(str(k), float(v)), float(v)) for k, v in cfg.exponents.items()]

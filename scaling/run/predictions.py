@@ -38,7 +38,9 @@ from ..stats.lines import is_symmetric, to_log
 from ..stats.line_results import fit_to_dict
 from ..stats.predictions import accuracy, data_factors, inverse_predict, predict, saved_factor
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
-from .several_predictors import constant_columns, constant_sentence, prediction_sentences
+from ..render.headline import answer_line
+from ..render.prediction_words import answer_primary, predicting_method, prediction_sentence
+from .several_predictors import constant_columns, constant_sentence
 
 __all__ = ["PredictionStage", "prediction_stage", "accuracy_and_factors",
            "add_accuracy_columns", "factors_by_group", "prediction_methods",
@@ -81,12 +83,17 @@ def prediction_stage(cfg, state) -> PredictionStage:
     predicting, choice_notes = prediction_fits(saved, cfg)   # which lines predict (default OLS)
     tables, notes = _predictions(state.line_fits, predicting, cfg)
     messages = []
-    lead = state.line_fits.get(("pooled", "", cfg.model.primary))
+    lead = state.line_fits.get(("pooled", "", answer_primary(cfg)))   # the Answer's line
     if lead is not None:   # the normalisation constant a of the primary line, with its units
         a_line = constant_sentence(lead, units, base, cfg.model.confidence)
         if a_line:
             messages.append(a_line)
-    messages += prediction_sentences(tables, cfg, units)
+    # groups whose slopes differ predict from their own lines (the pooled one mixes them)
+    group_tests = state.tables.get("group_tests")
+    differ = (isinstance(group_tests, pd.DataFrame) and len(group_tests) > 0
+              and answer_line(group_tests, cfg.model.methods, getattr(cfg.model, "primary", None),
+                              cfg.model.confidence)[0] == "groups")
+    messages += prediction_sentence(tables, cfg, units, slopes_differ=differ)
     return PredictionStage(fits=fits, saved_fits=saved, tables=tables,
                            messages=tuple(messages), notes=tuple(choice_notes + notes))
 
@@ -287,9 +294,7 @@ def prediction_methods(cfg, fitted: list) -> tuple:
     asked = tuple(getattr(cfg.prediction, "methods", ()) or ())
     if asked:
         return asked
-    if "ols" in fitted or not fitted:
-        return ("ols",)
-    return (fitted[0],)
+    return (predicting_method(cfg, fitted),)
 
 
 def prediction_fits(saved: dict, cfg) -> tuple:
