@@ -21,12 +21,11 @@ import math
 import numpy as np
 import pandas as pd
 
-from ..stats.schema import method_label
 from .headline import Headline, _ci, _p_method, _short_verdict, exponent_words
 from .wording import calibrated_p_text, plural as plural_of
 
 __all__ = ["several_headline", "several_exponent_table", "several_check_verdict",
-           "collinearity_warning", "several_group_sentences", "mechanism_applies"]
+           "collinearity_warning", "several_group_sentences"]
 
 _LINE = {"pooled": "pooled", "common": "common within-group", "group": "group"}
 
@@ -191,14 +190,6 @@ def several_exponent_table(fits: pd.DataFrame, slope_tests: pd.DataFrame | None,
     if not frame["group"].astype(str).ne("").any():
         frame = frame.drop(columns=["group"])
     return frame
-
-
-def mechanism_applies(fits_slope_tests: pd.DataFrame | None) -> bool:
-    """True when 3/4 or 2/3 is among the hypothesised exponents (the mechanism caution)."""
-    if fits_slope_tests is None or not len(fits_slope_tests):
-        return False
-    values = fits_slope_tests["exponent"].astype(float).to_numpy()
-    return bool(np.any(np.isclose(values, 0.75)) or np.any(np.isclose(values, 2 / 3, atol=1e-3)))
 
 
 def several_check_verdict(check, term: str = "") -> str:

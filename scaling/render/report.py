@@ -30,7 +30,8 @@ from .headline import headline_of
 from .figure_kinds import FIGURES
 from .prediction_words import extrapolation_words, prediction_notes
 from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
-                      calibrated_p_text, dose_scaling_applies, format_p, mechanism_caution,
+                      calibrated_p_text, dose_scaling_applies, format_p, mechanism_applies,
+                      mechanism_caution,
                       method_label, slope_interval_text, units_share_ancestry, verdict_phrase)
 
 __all__ = ["write_report", "build_report", "render_html", "render_markdown",
@@ -391,7 +392,7 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         test_blocks.append(Block(kind="p", text="No hypothesised exponents were given."))
     if result.slope_tests is not None and len(result.slope_tests):
         test_blocks.append(Block(kind="table", frame=result.slope_tests, name="slope_tests"))
-    if sentences:
+    if sentences and mechanism_applies(result.slope_tests):   # it names 3/4 and 2/3
         test_blocks.append(Block(kind="p", text=mechanism_caution()))
     if units_share_ancestry(cfg):   # species or higher taxa, or a tree (the rule in wording)
         test_blocks.append(Block(kind="p", text=ancestry_caution()))

@@ -19,11 +19,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .answer_several import mechanism_applies, several_group_sentences
+from .answer_several import several_group_sentences
 from .headline import headline_of
 from .report import (Block, Section, TABLE_MAX_ROWS, _bounded, _headline_section,
                      _interval_text, _manifest_section)
-from .wording import (CAUTION, dose_caution, mechanism_caution, medians_vs_means,
+from .wording import (CAUTION, dose_caution, mechanism_applies, mechanism_caution, medians_vs_means,
                       predicted_unit)
 
 __all__ = ["build_several_report", "partial_figure_name"]

@@ -22,7 +22,7 @@ from ..stats.schema import BOTH_SIGNS_NOTE, EXACT_NOTE
 __all__ = [
     "influence_reason", "smearing_reason", "estimate_outside_reason",
     "group_residuals_reason", "range_words", "range_warning", "medians_vs_means",
-    "dose_caution", "mechanism_caution", "ancestry_caution", "curvature_ok",
+    "dose_caution", "mechanism_caution", "mechanism_applies", "ancestry_caution", "curvature_ok",
     "units_share_ancestry", "dose_scaling_applies", "number_text", "interval_numbers",
     "unit_text", "count_words",
     "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "plural", "CAUTION",
@@ -597,6 +597,15 @@ def mechanism_caution() -> str:
     return ("Agreement with 3/4 or 2/3 does not by itself confirm a mechanism: several "
             "explanations predict the same exponent, and a test that does not reject only "
             "fails to find a difference.")
+
+
+def mechanism_applies(fits_slope_tests) -> bool:
+    """True when 3/4 or 2/3 is among the hypothesised exponents of ``slope_tests``: the
+    mechanism caution (:func:`mechanism_caution`) names them, so it is said only then."""
+    if fits_slope_tests is None or not len(fits_slope_tests):
+        return False
+    values = fits_slope_tests["exponent"].astype(float).to_numpy()
+    return bool(np.any(np.isclose(values, 0.75)) or np.any(np.isclose(values, 2 / 3, atol=1e-3)))
 
 
 def ancestry_caution(tree_key: str = "data.tree") -> str:
