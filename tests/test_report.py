@@ -269,6 +269,10 @@ class TestEscaping:
 
     def test_markdown(self):
         assert markdown_escape("a|b *c* <d>") == r"a\|b \*c\* &lt;d&gt;"
+        # CommonMark (spec 0.31, "Raw HTML"): "<" opens a tag only before a letter, "/",
+        # "!" or "?", so a comparison stays plain text a reader can read.
+        assert markdown_escape("p < 0.0001, p > 0.1, '<5'") == "p < 0.0001, p > 0.1, '<5'"
+        assert markdown_escape("&amp; <!-- x -->") == "&amp;amp; &lt;\\!-- x --&gt;"
 
     def test_fits_tex_is_a_tabular(self, script_run):
         tex = render_fits_tex(script_run)

@@ -692,10 +692,17 @@ def render_html(result, sections: list) -> str:
 _MD_SPECIAL = re.compile(r"([\\`*_\[\]{}#|!])")
 
 
+#: What Markdown would read as raw HTML: a tag (``<`` before a letter, ``/``, ``!`` or ``?``)
+#: or an entity.  Only these are escaped, so "p < 0.0001" stays readable as plain text.
+_MD_TAG = re.compile(r"<[A-Za-z/!?][^<>]*>?")
+_MD_ENTITY = re.compile(r"&(?=#?[A-Za-z0-9]+;)")
+
+
 def markdown_escape(text) -> str:
     """Escape Markdown syntax and HTML in ``text`` (one line; pipes escaped for tables)."""
     text = str(text).replace("\r", " ").replace("\n", " ")
-    text = html.escape(text, quote=False)
+    text = _MD_ENTITY.sub("&amp;", text)
+    text = _MD_TAG.sub(lambda m: html.escape(m.group(0), quote=False), text)
     return _MD_SPECIAL.sub(r"\\\1", text)
 
 
