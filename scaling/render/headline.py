@@ -42,6 +42,7 @@ import numpy as np
 import pandas as pd
 
 from ..stats.schema import method_label
+from .answer_phylo import ordinary_rows, phylo_answer
 from .wording import (calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
                       verdict_phrase)
 
@@ -118,6 +119,7 @@ def answer_line(group_tests: pd.DataFrame | None, methods, primary: str | None =
     ('pooled', 'sma')
     """
     lead = primary_method(methods, primary)
+    group_tests = ordinary_rows(group_tests)
     usable = (group_tests is not None and len(group_tests)
               and {"method", "test", "p_value"} <= set(group_tests.columns))
     compared = list(dict.fromkeys(group_tests["method"])) if usable else []
@@ -385,6 +387,7 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     alpha = 1 - confidence
     pct = f"{100 * confidence:g}%"
     lead = primary_method(methods, primary)
+    group_tests, pairwise_tests = ordinary_rows(group_tests), ordinary_rows(pairwise_tests)
     table = _exponent_table(fits, slope_tests, lead, alpha, pct)
     usable = (group_tests is not None and len(group_tests)
               and {"method", "test", "p_value"} <= set(group_tests.columns))
@@ -529,6 +532,7 @@ def headline_of(result) -> Headline:
                           primary=getattr(cfg.model, "primary", None),
                           confidence=cfg.model.confidence,
                           group_word=str(cfg.data.group or "group"))
+    head = phylo_answer(head, result)   # with a tree the phylogenetic result leads
     if len(head.sentences) < 3:
         answer = next((m.strip() for prefix in _ANSWER_LINES for m in result.messages
                        if m.strip().startswith(prefix)), None)

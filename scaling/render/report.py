@@ -201,7 +201,8 @@ def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
     out = []
     for _, r in table.iterrows():
         test = str(r.get("test", ""))
-        method = method_label(str(r.get("method", "")))
+        method = (("phylogenetic " if r.get("scope", "") == "phylo" else "")
+                  + method_label(str(r.get("method", ""))))
         p = r.get("p_value", np.nan)
         null, alt = GROUP_TEST_WORDS.get(test, (f"the null hypothesis of {test}",
                                                 f"{test} is rejected"))
@@ -381,7 +382,7 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         test_blocks.append(Block(kind="table", frame=result.slope_tests, name="slope_tests"))
     if sentences:
         test_blocks.append(Block(kind="p", text=mechanism_caution()))
-    if cfg.data.group or cfg.data.average_within:
+    if (cfg.data.group or cfg.data.average_within) and cfg.data.tree is None:
         test_blocks.append(Block(kind="p", text=ancestry_caution()))
     sections.append(Section(title="Exponent tests", blocks=test_blocks, anchor="tests"))
 

@@ -23,7 +23,7 @@ tree, calls it and phrases the result (its sentences will move to
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -36,11 +36,18 @@ from ..stats.line_results import line_fit_from_moments
 from ..render.wording import describe_test, fit_interval_text
 from ..errors import DataError
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
+from ..stats.phylo_groups import PHYLO_GROUP_SCOPE, phylo_group_tests
+from ..render.answer_phylo import phylo_group_messages
 
-__all__ = ["PHYLO_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
+__all__ = ["PHYLO_SCOPE", "PHYLO_COMMON_SCOPE", "ORDINARY_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
            "add_phylo_columns"]
 
 PHYLO_SCOPE = "phylo"
+#: fits.csv scope of the phylogenetic common within-group slope.
+PHYLO_COMMON_SCOPE = "phylo_common"
+#: ``scope`` of the ordinary rows of group_tests.csv and pairwise_tests.csv when a
+#: tree adds phylogenetic rows beside them.
+ORDINARY_SCOPE = "ordinary"
 PHYLO_METHODS = ("ols", "sma", "ma")
 PHYLO_FIT_COLUMNS = ["lambda", "lambda_low", "lambda_high", "lambda_estimate", "loglik", "aic"]
 
@@ -66,6 +73,15 @@ class PhyloStage:
     messages, notes : tuple of str
         The sentences (lambda, the phylogenetic exponent and what the
         correction changed against the pooled ordinary line) and the notes.
+    group_tests : dict
+        method -> :class:`~scaling.stats.phylo_groups.PhyloGroupTests` (with
+        groups compared).
+    tables : dict
+        ``group_tests`` and ``pairwise_tests`` with a ``scope`` column
+        (``ordinary`` and ``phylo`` rows) and the lambda used, when groups
+        are compared.
+    test_rows : tuple of dict
+        ``slope_tests.csv`` rows of the phylogenetic common slope.
     """
 
     rows: tuple
@@ -75,6 +91,9 @@ class PhyloStage:
     dropped: pd.DataFrame
     messages: tuple = ()
     notes: tuple = ()
+    group_tests: dict = field(default_factory=dict)
+    tables: dict = field(default_factory=dict)
+    test_rows: tuple = ()
 
 
 def phylo_stage(cfg, state) -> PhyloStage:
@@ -140,10 +159,72 @@ def phylo_stage(cfg, state) -> PhyloStage:
     if case_only:
         notes.append(_case_text(case_only, shown) + ".")
     ordinary = {m: f for (s, g, m), f in state.line_fits.items() if s == "pooled"}
-    stage = PhyloStage(rows=tuple(rows), fits=fits, line_fits=line_fits, points=used,
-                       dropped=dropped, notes=tuple(notes))
-    return replace(stage, messages=tuple(phylo_messages(stage, ordinary, cfg,
-                                                        has_groups=state.data.has_groups)))
+    compared = _group_comparisons(cfg, state, used, tree, kwargs, notes)
+    common_rows, test_rows = _phylo_common_rows(compared, cfg, base)
+    stage = PhyloStage(rows=tuple(rows + common_rows), fits=fits, line_fits=line_fits,
+                       points=used, dropped=dropped, notes=tuple(notes), group_tests=compared,
+                       tables=_scoped_tables(state.tables, compared) if compared else {},
+                       test_rows=tuple(test_rows))
+    messages = phylo_messages(stage, ordinary, cfg, has_groups=state.data.has_groups)
+    if compared:
+        messages += phylo_group_messages(compared, state.tables.get("group_tests"), cfg)
+    return replace(stage, messages=tuple(messages))
+
+
+def _group_comparisons(cfg, state, used: pd.DataFrame, tree, kwargs: dict, notes: list) -> dict:
+    """method -> PhyloGroupTests for each compared method (groups of >= 3 species)."""
+    if not (state.data.has_groups and cfg.groups.compare) or "group" not in used:
+        return {}
+    counts = used["group"].astype(str).value_counts()
+    keep = used[used["group"].astype(str).isin(counts.index[counts >= 3])]
+    if keep["group"].nunique() < 2:
+        return {}
+    out = {}
+    for method in [m for m in cfg.model.methods if m in PHYLO_METHODS]:
+        out[method] = phylo_group_tests(
+            keep["log_x"].to_numpy(), keep["log_y"].to_numpy(),
+            keep["unit"].astype(str).tolist(), keep["group"].astype(str).to_numpy(), tree,
+            method=method, lam=kwargs["lam"], reml=kwargs["reml"],
+            confidence=kwargs["confidence"])
+    return out
+
+
+def _phylo_common_rows(compared: dict, cfg, base) -> tuple[list, list]:
+    """fits.csv and slope_tests.csv rows (scope ``phylo_common``) of the common slopes."""
+    if not compared:
+        return [], []
+    from .groups import common_slope_rows
+    from ..stats.lines import base_label
+    rows, tests = common_slope_rows({m: c.common for m, c in compared.items()},
+                                    cfg.exponents, log_base=base_label(base))
+    for r in rows:
+        c = compared[r["method"]]
+        r.update(scope=PHYLO_COMMON_SCOPE, note=r["note"] + "; phylogenetic (GLS at the "
+                 "lambda of the full group model)",
+                 interval_method="t" if c.method == "ols" else "profile_likelihood",
+                 **{"lambda": c.lam, "lambda_low": c.lam_ci.low, "lambda_high": c.lam_ci.high,
+                    "lambda_estimate": c.lam_estimate})
+    for t in tests:
+        t["scope"] = PHYLO_COMMON_SCOPE
+    return rows, tests
+
+
+def _scoped_tables(tables: dict, compared: dict) -> dict:
+    """group_tests and pairwise_tests with ``scope`` (ordinary, phylo) and the lambda used."""
+    out = {}
+    for name, frame_of in (("group_tests", lambda c: c.to_frame()),
+                           ("pairwise_tests", lambda c: c.pairwise_frame())):
+        ordinary = tables.get(name)
+        ordinary = (ordinary.assign(scope=ORDINARY_SCOPE) if ordinary is not None
+                    else pd.DataFrame({"scope": []}))
+        for c in ("lambda", "lambda_low", "lambda_high"):
+            ordinary[c] = np.nan
+        phylo = [frame_of(c) for c in compared.values()]
+        phylo = [f for f in phylo if len(f)]
+        frame = pd.concat([ordinary] + phylo, ignore_index=True) if phylo else ordinary
+        lead = ["scope"]
+        out[name] = frame[lead + [c for c in frame.columns if c not in lead]]
+    return out
 
 
 def _lambda_columns(fit: PhyloFit) -> dict:
@@ -229,9 +310,10 @@ def add_phylo_columns(fits: pd.DataFrame, stage: PhyloStage | None) -> pd.DataFr
     if stage is None:
         return out
     for r in stage.rows:
-        sel = (out["scope"] == PHYLO_SCOPE) & (out["method"] == r["method"])
+        sel = (out["scope"] == r["scope"]) & (out["method"] == r["method"])
         for c in PHYLO_FIT_COLUMNS:
-            out.loc[sel, c] = r[c]
+            if c in r:
+                out.loc[sel, c] = r[c]
     return out
 
 
@@ -281,7 +363,6 @@ def phylo_messages(stage: PhyloStage, ordinary: dict, cfg, *, has_groups: bool) 
                     line += f"; same verdict as the ordinary {label}"
             out.append(line + ".")
     if has_groups:
-        out.append("Not yet phylogenetic: the per-group fits, the line through the group means "
-                   "and the group comparisons (common slope, intercept and axis shifts) "
-                   "treat species as independent.")
+        out.append("Not yet phylogenetic: the per-group fits and the line through the group "
+                   "means treat species as independent.")
     return out

@@ -172,7 +172,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     phylo = phylo_stage(cfg, state) if cfg.data.tree is not None else None
     if phylo is not None:
         state = replace(state, rows=state.rows + phylo.rows, phylo=phylo,
-                        line_fits={**state.line_fits, **phylo.line_fits})
+                        line_fits={**state.line_fits, **phylo.line_fits},
+                        test_rows=state.test_rows + phylo.test_rows,
+                        tables={**state.tables, **phylo.tables})
     table = fits_table_stage(cfg, state)
     state = replace(state, fits=table.fits, slope_tests=table.slope_tests,
                     line_fits=table.line_fits)
