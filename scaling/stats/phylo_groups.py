@@ -85,8 +85,11 @@ whitened quadratic forms that belong to group i:
   R = diag(1/n_i) and this is the ordinary Sigma = diag(s_i^2/n_i) + var(b) c c'
   exactly; on a tree, R carries the covariance of the group means that
   shared ancestry creates (the ordinary tests take it as zero, hence their
-  inflation).  p-values refer W and LR to chi^2(G - 1) (the ordinary
-  tests' parametric bootstrap is not carried over).
+  inflation).  Referred to chi^2(G - 1) these are liberal in small groups
+  (as the ordinary ones), so p-values come from a parametric bootstrap of
+  the fitted null model simulated on the tree (:func:`_bootstrap`; the
+  ordinary bootstrap with the species' scores correlated by V_lambda),
+  p = (1 + #{T* >= T})/(B + 1) (Davison & Hinkley 1997, eq. 4.11).
 
 Checks (tests/test_phylo_groups.py): on an ultrametric tree with lambda = 0,
 or on a star tree whatever lambda, V is proportional to I and every
@@ -112,8 +115,8 @@ from .line_results import ConfidenceInterval
 from .newick import Tree
 from .phylo_profile import _GRID, _maximise, _profile_interval
 from .phylogeny import (PhyloPlan, match_species, normalise_name, pagel_lambda, phylo_pass,
-                        prune_tree)
-from .schema import check_confidence
+                        prune_tree, tree_covariance)
+from .schema import DEFAULT_SEED, check_confidence
 
 __all__ = ["PHYLO_GROUP_SCOPE", "PhyloGroupTests", "phylo_group_tests", "gram_matrices"]
 
@@ -121,6 +124,9 @@ __all__ = ["PHYLO_GROUP_SCOPE", "PhyloGroupTests", "phylo_group_tests", "gram_ma
 PHYLO_GROUP_SCOPE = "phylo"
 _TESTS = ("slopes_equal", "intercepts_equal", "shift_along_axis")
 _LOG2PI = math.log(2 * math.pi)
+#: Above this many species the SMA/MA tests are referred to chi^2 (the bootstrap
+#: simulates with a dense n x n Cholesky factor).
+BOOTSTRAP_MAX_N = 3000
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -280,12 +286,17 @@ def _axis_loglik(gram, logdet, n, G, reml):
 
 
 def _wald_general(t, s, R, var_b, c):
-    """W = min_mu (t - mu 1)' Sigma^-1 (t - mu 1), Sigma = diag(s) R diag(s) + var_b c c'."""
-    sigma = s[:, None] * R * s[None, :] + var_b * np.outer(c, c)
+    """W = min_mu (t - mu 1)' Sigma^-1 (t - mu 1), Sigma = diag(s) R diag(s) + var_b c c'.
+
+    Rows (leading axis) in parallel: t, s, c of shape (B, G), var_b (B,).
+    """
+    sigma = (s[:, :, None] * R[None] * s[:, None, :]
+             + np.asarray(var_b)[:, None, None] * c[:, :, None] * c[:, None, :])
     one = np.ones_like(t)
-    a = np.linalg.solve(sigma, np.column_stack([t, one]))
-    w = t @ a[:, 0] - (one @ a[:, 0]) ** 2 / (one @ a[:, 1])
-    return max(float(w), 0.0)
+    a = np.linalg.solve(sigma, np.stack([t, one], axis=-1))
+    w = (np.sum(t * a[..., 0], -1) - np.sum(one * a[..., 0], -1) ** 2
+         / np.sum(one * a[..., 1], -1))
+    return np.maximum(w, 0.0)
 
 
 # --------------------------------------------------------------------------
@@ -327,20 +338,21 @@ def _subset(p: _Problem, keep: np.ndarray) -> _Problem:
                     Y=p.Y[keep], codes=codes, groups=tuple(p.groups[g] for g in groups))
 
 
-def _group_sums(p: _Problem, lam: float, scale: float):
-    """Per-group GLS means-free centred sums on each group's subtree of the lambda tree."""
+def _group_sums(p: _Problem, lam: float, scale: float, X, Y):
+    """Per-group GLS centred sums (group mean free) on each group's subtree of the
+    lambda-transformed tree; X, Y of shape (n, B) -> (3, B, G): Sxx, Syy, Sxy."""
     t_lam = pagel_lambda(p.tree, lam)
     G = len(p.groups)
-    sums = np.zeros((3, G))
+    sums = np.zeros((3, X.shape[1], G))
     for g in range(G):
         rows = np.flatnonzero(p.codes == g)
         sub = prune_tree(t_lam, p.tips[rows])
         index = {normalise_name(sub.names[t]): int(t) for t in sub.tips}
         tips = np.array([index[normalise_name(t_lam.names[t])] for t in p.tips[rows]])
         res = phylo_pass(PhyloPlan.from_tree(sub, tips),
-                         np.column_stack([p.X[rows], p.Y[rows]]), [1.0])
-        css = res.css[0] * scale
-        sums[:, g] = css[0, 0], css[1, 1], css[0, 1]
+                         np.stack([X[rows], Y[rows]], axis=-1), [1.0])
+        css = res.css[0] * scale                          # (B, 2, 2)
+        sums[:, :, g] = css[:, 0, 0], css[:, 1, 1], css[:, 0, 1]
     return sums
 
 
@@ -366,7 +378,8 @@ def _estimate_lam(p: _Problem, method: str, lam, reml: bool, confidence: float):
     return float(lam_hat), ci, "reml" if reml else "ml"
 
 
-def _tests_at(p: _Problem, method: str, lam: float, confidence: float):
+def _tests_at(p: _Problem, method: str, lam: float, confidence: float, n_boot: int = 0,
+              seed: int | None = None):
     """(statistic, df, df_resid, p, CommonSlope) of the three tests at a fixed lambda."""
     G, n = len(p.groups), p.X.size
     n_g = np.bincount(p.codes, minlength=G).astype(float)
@@ -384,34 +397,113 @@ def _tests_at(p: _Problem, method: str, lam: float, confidence: float):
                              slope_se=se, n_groups=G, n=n, confidence=confidence,
                              groups=p.groups, df_resid=float(df_par))
         return f, np.full(3, G - 1.0), r["df_resid"], p_val, common, "F"
-    D = (p.codes[:, None] == np.arange(G)).astype(float)
-    gram, _, sum_w = gram_matrices(p.plan, np.column_stack([D, p.X, p.Y]), [lam])
-    scale = n / float(sum_w[0])            # V scaled so that 1'V^-1 1 = n
-    gram = gram[0] * scale
-    R = np.linalg.inv(gram[:G, :G])
-    means = R @ gram[:G, G:G + 2]
-    sxx, syy, sxy = _group_sums(p, lam, scale)
-    mx, my = means[:, 0], means[:, 1]
-    b, ci, se, prof = _common_from_arrays(method, n_g, mx, my, sxx, syy, sxy, confidence,
-                                          full=True)
+    r = _axis_stats(p, method, lam, p.X, p.Y)
+    sxx, syy, sxy = r["sums"]
+    b, ci, se, prof = _common_from_arrays(method, n_g, r["mx"], r["my"], sxx, syy, sxy,
+                                          confidence, full=True)
     common = CommonSlope(method=method, slope=float(b), slope_ci=ci, slope_se=float(se),
                          n_groups=G, n=n, confidence=confidence, groups=p.groups,
                          df_resid=float(n - G - 1), profile=prof)
-    fit = _fit_common(method, n_g[None], sxx[None], syy[None], sxy[None], exact=True)
-    sc = {k: np.asarray(v)[0] for k, v in _axis_scores(method, fit["b"], n_g[None], mx[None],
-                                                       my[None], sxx[None], syy[None],
-                                                       sxy[None]).items()}
-    var_b = float(fit["var_b"][0])
-    w_int = _wald_general(sc["rbar"], np.sqrt(sc["sr2"]), R, var_b, sc["c_r"])
-    w_axis = _wald_general(sc["fbar"], np.sqrt(sc["sf2"]), R, var_b, sc["c_f"])
-    stat = np.array([float(fit["lr"][0]), w_int, w_axis])
-    return (stat, np.full(3, G - 1.0), np.full(3, math.nan), stats.chi2.sf(stat, G - 1),
-            common, "chi2")
+    stat = r["statistic"]
+    if not n_boot or n > BOOTSTRAP_MAX_N:
+        return (stat, np.full(3, G - 1.0), np.full(3, math.nan), stats.chi2.sf(stat, G - 1),
+                common, "chi2")
+    boot = _bootstrap(p, method, lam, r, n_boot, np.random.default_rng(seed))[0]
+    tol = 1e-9 * (1 + np.abs(stat))
+    p_val = (1.0 + np.sum(boot >= stat - tol, axis=0)) / (n_boot + 1.0)
+    return (stat, np.full(3, G - 1.0), np.full(3, math.nan), p_val, common,
+            f"parametric_bootstrap({n_boot})")
+
+
+def _bootstrap(p: _Problem, method: str, lam: float, r: dict, n_boot: int, rng, *,
+               chunk: int = 20_000) -> np.ndarray:
+    """Statistics (M, n_boot, 3) under the fitted null models, simulated on the tree.
+
+    ``r`` is :func:`_axis_stats` of M data sets (``mx``, ``my`` (M, G), ``sums``
+    (3, M, G)).  As the ordinary bootstrap (:mod:`scaling.stats.group_comparisons`):
+    common slope b; residual scores r and axis scores f independent, group i
+    with variances s_r,i^2 and s_f,i^2; for the elevation test (and the slope
+    LR) all group means of r equal (their weighted mean), f's as observed; for
+    the axis test the reverse.  Here the scores of the species are correlated
+    along the tree: r* = mean + s_r,g(i) (L z)_i, L L' = V_lambda (scaled), so
+    the group means have the covariance diag(s) R diag(s) the Wald statistics
+    assume.  Replicates are simulated for all data sets in array passes of
+    about ``chunk`` data sets.
+    """
+    G, n = len(p.groups), p.X.size
+    mx, my = np.atleast_2d(r["mx"]), np.atleast_2d(r["my"])
+    sums = r["sums"] if np.ndim(r["sums"]) == 3 else r["sums"][:, None, :]
+    M = mx.shape[0]
+    n_g = np.broadcast_to(np.bincount(p.codes, minlength=G).astype(float), (M, G))
+    fit = _fit_common(method, n_g, *sums, exact=M == 1)
+    sc = _axis_scores(method, fit["b"], n_g, mx, my, *sums)
+    b = fit["b"]
+    pos = np.searchsorted(p.tree.tips, p.tips)
+    v = tree_covariance(p.tree, lam)[np.ix_(pos, pos)]
+    one = np.ones(n)
+    v *= float(one @ np.linalg.solve(v, one)) / n        # 1'V^-1 1 = n
+    L = np.linalg.cholesky(v)
+    w_r, w_f = n_g / sc["sr2"], n_g / sc["sf2"]
+    r_pool = np.sum(w_r * sc["rbar"], -1, keepdims=True) / np.sum(w_r, -1, keepdims=True)
+    f_pool = np.sum(w_f * sc["fbar"], -1, keepdims=True) / np.sum(w_f, -1, keepdims=True)
+    nulls = ((np.broadcast_to(r_pool, (M, G)), sc["fbar"]),
+             (sc["rbar"], np.broadcast_to(f_pool, (M, G))))
+    out = np.empty((M, n_boot, 3))
+    per = max(1, chunk // M)
+    for start in range(0, n_boot, per):
+        B = min(per, n_boot - start)
+        # (n, M, B): the same draws serve both null models
+        zr = np.sqrt(sc["sr2"]).T[p.codes][:, :, None] * (
+            L @ rng.standard_normal((n, M * B))).reshape(n, M, B)
+        zf = np.sqrt(sc["sf2"]).T[p.codes][:, :, None] * (
+            L @ rng.standard_normal((n, M * B))).reshape(n, M, B)
+        bb = b[None, :, None]
+        res = []
+        for r_mean, f_mean in nulls:
+            rr = r_mean.T[p.codes][:, :, None] + zr
+            ff = f_mean.T[p.codes][:, :, None] + zf
+            if method == "sma":
+                X, Y = (ff - rr) / (2 * bb), (rr + ff) / 2
+            else:
+                X, Y = (ff - bb * rr) / (1 + bb * bb), (rr + bb * ff) / (1 + bb * bb)
+            res.append(_axis_stats(p, method, lam, X.reshape(n, M * B),
+                                   Y.reshape(n, M * B))["statistic"].reshape(M, B, 3))
+        out[:, start:start + B] = np.concatenate([res[0][..., :2], res[1][..., 2:]], axis=-1)
+    return out
+
+
+def _axis_stats(p: _Problem, method: str, lam: float, X, Y) -> dict:
+    """LR and the two Wald statistics for data X, Y of shape (n,) or (n, B) (replicates)."""
+    G, n = len(p.groups), p.X.size
+    batched = np.ndim(X) == 2
+    Xb = X if batched else X[:, None]
+    Yb = Y if batched else Y[:, None]
+    B = Xb.shape[1]
+    D = (p.codes[:, None] == np.arange(G)).astype(float)
+    cols = np.concatenate([np.broadcast_to(D[:, None, :], (n, B, G)), Xb[..., None],
+                           Yb[..., None]], axis=-1)
+    gram, _, sum_w = gram_matrices(p.plan, cols, [lam])
+    scale = n / float(sum_w[0])            # V scaled so that 1'V^-1 1 = n
+    gram = gram[0] * scale                  # (B, G + 2, G + 2)
+    R = np.linalg.inv(gram[0, :G, :G])      # the same for every replicate
+    means = np.einsum("gh,bhk->bgk", R, gram[:, :G, G:G + 2])
+    mx, my = means[..., 0], means[..., 1]
+    sums = _group_sums(p, lam, scale, Xb, Yb)          # (3, B, G)
+    n_g = np.broadcast_to(np.bincount(p.codes, minlength=G).astype(float), (B, G))
+    fit = _fit_common(method, n_g, *sums, exact=not batched)
+    sc = _axis_scores(method, fit["b"], n_g, mx, my, *sums)
+    w_int = _wald_general(sc["rbar"], np.sqrt(sc["sr2"]), R, fit["var_b"], sc["c_r"])
+    w_axis = _wald_general(sc["fbar"], np.sqrt(sc["sf2"]), R, fit["var_b"], sc["c_f"])
+    stat = np.stack([fit["lr"], w_int, w_axis], axis=-1)
+    out = {"statistic": stat, "mx": mx, "my": my, "sums": sums}
+    if not batched:
+        out = {"statistic": stat[0], "mx": mx[0], "my": my[0], "sums": sums[:, 0]}
+    return out
 
 
 def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols", lam="ml",
-                      reml: bool = False, confidence: float = 0.95,
-                      pairwise: bool = True) -> PhyloGroupTests:
+                      reml: bool = False, confidence: float = 0.95, pairwise: bool = True,
+                      n_boot: int = 999, seed: int | None = DEFAULT_SEED) -> PhyloGroupTests:
     """Phylogenetic slopes-equal, elevations-equal and shift-along-axis tests.
 
     Parameters
@@ -431,6 +523,12 @@ def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols",
         Level of the lambda and common-slope intervals; pairwise tests are
         made for tests with p < 1 - confidence.
     pairwise : bool
+    n_boot : int
+        SMA and MA: replicates of the parametric bootstrap on the tree that
+        calibrates the p-values (0: chi^2; also above :data:`BOOTSTRAP_MAX_N`
+        species).  OLS F tests are exact and never bootstrapped.
+    seed : int or None
+        Seed of the bootstrap.
 
     Returns
     -------
@@ -452,7 +550,8 @@ def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols",
     if len(p.groups) < 2 or n_g.min() < 3:
         raise DataError("phylogenetic group tests need at least 2 groups of at least 3 species")
     lam_hat, lam_ci, estimate = _estimate_lam(p, method, lam, reml, confidence)
-    stat, df, df_resid, p_val, common, p_method = _tests_at(p, method, lam_hat, confidence)
+    stat, df, df_resid, p_val, common, p_method = _tests_at(p, method, lam_hat, confidence,
+                                                            n_boot, seed)
     pairs = []
     alpha = 1 - confidence
     if pairwise and len(p.groups) > 2:
@@ -462,7 +561,8 @@ def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols",
             rows = []
             for a, b in itertools.combinations(range(len(p.groups)), 2):
                 sub = _subset(p, (p.codes == a) | (p.codes == b))
-                s2, d2, _, pv, _, _ = _tests_at(sub, method, lam_hat, confidence)
+                s2, d2, _, pv, _, _ = _tests_at(sub, method, lam_hat, confidence, n_boot,
+                                                seed)
                 rows.append({"method": method, "test": test, "group_a": p.groups[a],
                              "group_b": p.groups[b], "statistic": float(s2[i]),
                              "df": float(d2[i]), "p_value": float(pv[i])})
