@@ -12,9 +12,16 @@ The phylogenetic fits are rows of ``fits.csv`` and ``slope_tests.csv`` with
 scope ``phylo`` (group blank); ``fits.csv`` gains the columns ``lambda``,
 ``lambda_low``, ``lambda_high``, ``lambda_estimate``, ``loglik`` and
 ``aic`` (blank for ordinary fits).  Species without a tip and tips without
-data are listed in ``dropped_rows.csv``; the tips are pruned.  Per-group
-phylogenetic fits and phylogenetic group comparisons are not done: the
-summary says so when groups are compared.
+data are listed in ``dropped_rows.csv``; the tips are pruned.
+
+With groups compared (``groups.compare``), every ordinary group test gets its
+phylogenetic counterpart (:func:`scaling.stats.phylo_groups.phylo_group_tests`):
+``group_tests.csv`` and ``pairwise_tests.csv`` gain the columns ``scope``
+(``ordinary`` or ``phylo``), ``lambda``, ``lambda_low`` and ``lambda_high``
+(the lambda each phylogenetic row used, estimated under the full group model),
+and the phylogenetic common within-group slope is a ``fits.csv`` row of scope
+``phylo_common`` with its slope tests.  Without a tree those tables keep their
+columns.  Per-group phylogenetic fits are not done: the summary says so.
 
 The numeric work is in :mod:`scaling.stats.phylogeny`; this module only reads the
 tree, calls it and phrases the result (its sentences will move to
@@ -185,7 +192,7 @@ def _group_comparisons(cfg, state, used: pd.DataFrame, tree, kwargs: dict, notes
             keep["log_x"].to_numpy(), keep["log_y"].to_numpy(),
             keep["unit"].astype(str).tolist(), keep["group"].astype(str).to_numpy(), tree,
             method=method, lam=kwargs["lam"], reml=kwargs["reml"],
-            confidence=kwargs["confidence"])
+            confidence=kwargs["confidence"], seed=cfg.resampling.seed)
     return out
 
 
@@ -366,3 +373,78 @@ def phylo_messages(stage: PhyloStage, ordinary: dict, cfg, *, has_groups: bool) 
         out.append("Not yet phylogenetic: the per-group fits and the line through the group "
                    "means treat species as independent.")
     return out
+
+
+def tree_check_lines(cfg, pts: pd.DataFrame) -> list:
+    """What ``scaling check`` says about ``data.tree``: how species met the tips.
+
+    Reads and parses the tree (a bad file raises the run's DataError), matches
+    the species column of ``pts`` (the points to fit, ``unit`` holding the
+    species) to the tips as the run does, and says which groups are clades
+    (monophyletic among the matched tips), which the phylogenetic SMA and MA
+    group tests treat exactly.
+    """
+    tree = read_newick(cfg.data.tree)
+    name = Path(cfg.data.tree).name
+    species = pts["unit"].astype(str).tolist()
+    match = match_species(species, tree)
+    shown = {_key(u): str(u) for u in pts["unit"]}
+    n_sp = len(match.species)
+    n_ok = int(np.count_nonzero(match.tip_of_species >= 0))
+    lines = [f"tree OK: {name} ({tree.n_tips} tips): {n_ok} of {n_sp} species match a tip"]
+    if match.missing_species:
+        lines.append(f"  note: {len(match.missing_species)} species have no tip and will be "
+                     "left out of the phylogenetic fits ("
+                     + _listed([shown.get(s, s) for s in match.missing_species]) + ")")
+    if match.pruned_tips:
+        lines.append(f"  note: {len(match.pruned_tips)} tips have no data and will be pruned ("
+                     + _listed(list(match.pruned_tips)) + ")")
+    case_only = _case_only(match)
+    if case_only:
+        lines.append("  note: " + _case_text(case_only, shown))
+    if n_ok < 3:
+        lines.append("  note: fewer than 3 species match a tip: the phylogenetic fits will "
+                     "refuse to run")
+    if "group" in pts and cfg.data.group and n_ok >= 3:
+        tip_of = dict(zip(match.species, match.tip_of_species.tolist()))
+        keys = [_key(s) for s in species]
+        by_group: dict = {}
+        for k, g in zip(keys, pts["group"].astype(str)):
+            if tip_of.get(k, -1) >= 0:
+                by_group.setdefault(g, set()).add(tip_of[k])
+        used = set(t for t in tip_of.values() if t >= 0)
+        below = _used_below(tree, used)
+        not_clades = [g for g, tips in by_group.items()
+                      if len(tips) > 1 and not _is_clade(tree, tips, below)]
+        if not_clades:
+            lines.append(f"  note: {len(not_clades)} of {len(by_group)} groups are not clades "
+                         f"of the tree ({_listed(sorted(not_clades))}): the phylogenetic SMA/MA "
+                         "group tests then ignore the covariance between groups' residuals "
+                         "(OLS tests stay exact)")
+        else:
+            lines.append(f"  all {len(by_group)} groups are clades of the tree")
+    return lines
+
+
+def _is_clade(tree, tips: set, used_below: list) -> bool:
+    """Whether no other used tip lies below the most recent common ancestor of ``tips``."""
+    par = tree.parent.tolist()
+    common = None
+    for t in tips:
+        anc = []
+        while t > 0:
+            anc.append(t)
+            t = par[t]
+        anc.append(0)
+        common = anc if common is None else [a for a in anc if a in common_set]
+        common_set = set(common)
+    return used_below[common[0]] == len(tips)
+
+
+def _used_below(tree, used: set) -> list:
+    """Number of used tips below every node (one post-order sweep)."""
+    count = [1 if i in used else 0 for i in range(tree.n_nodes)]
+    par = tree.parent.tolist()
+    for i in range(tree.n_nodes - 1, 0, -1):
+        count[par[i]] += count[i]
+    return count
