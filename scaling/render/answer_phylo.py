@@ -199,7 +199,12 @@ def phylo_answer(head, result):
            if tests is not None else pd.DataFrame())
     verdicts = _verdicts(own, alpha) if len(own) else []
     changed = _changed_verdicts(tests, scope, ordinary_scope, method, alpha)
-    if verdicts:
+    if scope == _PHYLO:
+        ordinary = fits[(fits["scope"] == "pooled") & (fits["method"] == method)]
+        if len(ordinary) and np.isfinite(_num(ordinary["slope"].iloc[0])):
+            o = ordinary.iloc[0]
+            changed = (changed or "ignoring ancestry gives the same verdicts") + (
+                f" (ordinary {label} {_num(o['slope']):.3f}, {_interval(o, pct)})")
         out.append(f"This exponent {_joined(verdicts)}"
                    + (f"; {changed}" if changed else "") + ".")
     if scope == _COMMON:
