@@ -205,6 +205,7 @@ def phylo_answer(head, result):
             o = ordinary.iloc[0]
             changed = (changed or "ignoring ancestry gives the same verdicts") + (
                 f" (ordinary {label} {_num(o['slope']):.3f}, {_interval(o, pct)})")
+    if verdicts:
         out.append(f"This exponent {_joined(verdicts)}"
                    + (f"; {changed}" if changed else "") + ".")
     if scope == _COMMON:
