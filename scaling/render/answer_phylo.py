@@ -261,7 +261,7 @@ def phylo_group_messages(compared: dict, ordinary: pd.DataFrame | None, cfg) -> 
                   else f"df = {c.df[i]:g}")
             word = "differ" if p < alpha else "do not differ detectably"
             parts.append(f"{_what(test, method)}: {word} ({stat} = {c.statistic[i]:.3g}, {df}, "
-                         f"{calibrated_p_text(p, '')})")
+                         f"{calibrated_p_text(p, c.p_method)})")
         ci = c.common.slope_ci
         text = (f"Phylogenetic group comparisons ({label}, {lam}): " + "; ".join(parts)
                 + f". Phylogenetic common slope {c.common.slope:.3f} ({pct} CI "

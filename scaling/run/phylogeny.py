@@ -188,12 +188,22 @@ def _group_comparisons(cfg, state, used: pd.DataFrame, tree, kwargs: dict, notes
         return {}
     out = {}
     for method in [m for m in cfg.model.methods if m in PHYLO_METHODS]:
-        out[method] = phylo_group_tests(
-            keep["log_x"].to_numpy(), keep["log_y"].to_numpy(),
-            keep["unit"].astype(str).tolist(), keep["group"].astype(str).to_numpy(), tree,
-            method=method, lam=kwargs["lam"], reml=kwargs["reml"],
-            confidence=kwargs["confidence"], seed=cfg.resampling.seed)
+        try:
+            out[method] = _one_comparison(keep, tree, method, kwargs, cfg)
+        except (DataError, np.linalg.LinAlgError) as exc:   # the ordinary tests still stand
+            notes.append(f"Phylogenetic group comparison ({method_label(method)}) not made: "
+                         f"{exc}.")
     return out
+
+
+def _one_comparison(keep: pd.DataFrame, tree, method: str, kwargs: dict, cfg):
+    """The phylogenetic group tests of one method on the species with a tip."""
+    return phylo_group_tests(
+        keep["log_x"].to_numpy(), keep["log_y"].to_numpy(),
+        keep["unit"].astype(str).tolist(), keep["group"].astype(str).to_numpy(), tree,
+        method=method, lam=kwargs["lam"], reml=kwargs["reml"],
+        confidence=kwargs["confidence"], pairwise_max=cfg.groups.pairwise_max,
+        seed=cfg.resampling.seed)
 
 
 def _phylo_common_rows(compared: dict, cfg, base) -> tuple[list, list]:

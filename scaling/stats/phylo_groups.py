@@ -110,7 +110,7 @@ from scipy import stats
 
 from ..errors import DataError
 from .common_slope import CommonSlope, _common_from_arrays, _fit_common
-from .group_comparisons import _axis_scores, holm_adjust
+from .group_comparisons import PAIRWISE_MAX, _axis_scores, holm_adjust
 from .line_results import ConfidenceInterval
 from .newick import Tree
 from .phylo_profile import _GRID, _maximise, _profile_interval
@@ -503,7 +503,8 @@ def _axis_stats(p: _Problem, method: str, lam: float, X, Y) -> dict:
 
 def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols", lam="ml",
                       reml: bool = False, confidence: float = 0.95, pairwise: bool = True,
-                      n_boot: int = 999, seed: int | None = DEFAULT_SEED) -> PhyloGroupTests:
+                      pairwise_max: int = PAIRWISE_MAX, n_boot: int = 999,
+                      seed: int | None = DEFAULT_SEED) -> PhyloGroupTests:
     """Phylogenetic slopes-equal, elevations-equal and shift-along-axis tests.
 
     Parameters
@@ -523,6 +524,8 @@ def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols",
         Level of the lambda and common-slope intervals; pairwise tests are
         made for tests with p < 1 - confidence.
     pairwise : bool
+    pairwise_max : int
+        Pairwise tests only for at most this many groups (as the ordinary ones).
     n_boot : int
         SMA and MA: replicates of the parametric bootstrap on the tree that
         calibrates the p-values (0: chi^2; also above :data:`BOOTSTRAP_MAX_N`
@@ -554,7 +557,7 @@ def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols",
                                                             n_boot, seed)
     pairs = []
     alpha = 1 - confidence
-    if pairwise and len(p.groups) > 2:
+    if pairwise and 2 < len(p.groups) <= pairwise_max:
         for i, test in enumerate(_TESTS):
             if not (np.isfinite(p_val[i]) and p_val[i] < alpha) or test == "slopes_equal":
                 continue
