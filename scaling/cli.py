@@ -179,6 +179,10 @@ def _cmd_check(args) -> int:
     for w in caught:
         if issubclass(w.category, ScalingWarning):
             print(f"  note: {w.message}")
+    if cfg.data.tree is not None and not isinstance(cfg.data.x, tuple):
+        from .run.phylogeny import tree_check_lines
+        for line in tree_check_lines(cfg, pts):
+            print(line)
     print(f"  output folder: {cfg.output.dir}")
     return 0
 

@@ -264,9 +264,15 @@ class TestPhyloConfig:
         assert res.fits.loc[res.fits["scope"] == "phylo", "lambda_estimate"].iloc[0] == "reml"
 
 
+@pytest.fixture(scope="module")
+def physiology():
+    """The physiology example analysed once for this module (read only)."""
+    return _analyse(load_config(PHYSIOLOGY))
+
+
 class TestPhysiologyExample:
-    def test_recovers_the_stated_exponent(self):
-        res = _analyse(load_config(PHYSIOLOGY))
+    def test_recovers_the_stated_exponent(self, physiology):
+        res = physiology
         phylo = res.fits[res.fits["scope"] == "phylo"]
         assert len(phylo) == 2
         for row in phylo.itertuples():
@@ -275,3 +281,86 @@ class TestPhysiologyExample:
         text = " ".join(res.messages)
         assert "Phylogenetic SMA over tree species_tree.nwk" in text
         assert "Not yet phylogenetic" in text
+        assert "Phylogenetic group comparisons (SMA" in text
+
+    def test_group_tests_have_phylogenetic_rows_beside_the_ordinary_ones(self, physiology):
+        res = physiology
+        gt = res.tables["group_tests"]
+        assert list(gt.columns[:1]) == ["scope"]
+        assert {"lambda", "lambda_low", "lambda_high"} <= set(gt.columns)
+        for scope in ("ordinary", "phylo"):
+            part = gt[gt["scope"] == scope]
+            assert sorted(part["method"].unique()) == ["ols", "sma"]
+            assert set(part["test"]) == {"slopes_equal", "intercepts_equal", "shift_along_axis"}
+        assert gt.loc[gt["scope"] == "ordinary", "lambda"].isna().all()
+        phylo = gt[gt["scope"] == "phylo"]
+        assert phylo["lambda"].between(0, 1).all()
+        assert (phylo["lambda_low"] <= phylo["lambda"]).all()
+        assert (phylo.loc[phylo["method"] == "sma", "p_method"]
+                == "parametric_bootstrap(999)").all()
+        pw = res.tables["pairwise_tests"]
+        assert set(pw["scope"]) == {"ordinary", "phylo"}
+        # phylo_common rows: fits.csv and their slope tests
+        common = res.fits[res.fits["scope"] == "phylo_common"]
+        assert sorted(common["method"]) == ["ols", "sma"]
+        for row in common.itertuples():
+            # simulation truth: demo_data/make_physiology.py draws b = 0.75 in every clade
+            assert row.slope_low <= 0.75 <= row.slope_high
+            lam = phylo.loc[phylo["method"] == row.method, "lambda"].iloc[0]
+            assert row.lambda_estimate == "ml"
+            # internal consistency: the row's lambda is the one its group tests used
+            assert_allclose(res.fits.loc[common.index[common["method"] == row.method][0],
+                                         "lambda"], lam, rtol=0)
+        tests = res.slope_tests[res.slope_tests["scope"] == "phylo_common"]
+        assert len(tests) == 2 * len(load_config(PHYSIOLOGY).exponents)
+
+    def test_answer_leads_with_the_phylogenetic_result(self, physiology):
+        from scaling.render.headline import headline_of
+        res = physiology
+        head = headline_of(res)
+        first = head.sentences[0]
+        assert first.startswith("Accounting for shared ancestry (Pagel's λ = ")
+        assert "common within-clade SMA exponent" in first
+        common = res.fits[(res.fits["scope"] == "phylo_common") & (res.fits["method"] == "sma")]
+        assert f"{common['slope'].iloc[0]:.3f}" in first
+        assert "3/4" in head.sentences[1] and "2/3" in head.sentences[1]
+        assert "ancestry" in head.sentences[2]
+        assert len(head.sentences) <= 4
+
+    def test_ancestry_caution_only_without_a_tree(self, physiology):
+        from dataclasses import replace
+        from scaling.render.report import build_report, render_html
+        cfg = load_config(PHYSIOLOGY)
+        res = physiology
+        caution = "too narrow without a phylogenetic correction"
+        assert caution not in render_html(res, build_report(res))
+        no_tree = replace(cfg, data=replace(cfg.data, tree=None, species=None))
+        res2 = _analyse(no_tree)
+        assert caution in render_html(res2, build_report(res2))
+        assert "scope" not in res2.tables["group_tests"].columns
+
+
+class TestCheckReportsTheTree:
+    def test_check_says_how_species_matched_tips(self, capsys):
+        assert main(["check", str(PHYSIOLOGY)]) == 0
+        out = capsys.readouterr().out
+        assert "tree OK: species_tree.nwk (48 tips): 48 of 48 species match a tip" in out
+        assert "all 4 groups are clades of the tree" in out
+
+    def test_check_lists_unmatched_species_pruned_tips_and_non_clades(self, tmp_path, capsys):
+        names, x, y = _invented(9)
+        newick = ("((sp_00:1,sp_01:1,sp_02:1):1,(sp_03:1,sp_04:1,sp_05:1):1,"
+                  "(sp_06:1,sp_07:1,extra:1):1);")
+        raw = _write(tmp_path, names, x, y, newick,
+                     extra_data={"group": "g"})
+        table = pd.read_csv(tmp_path / "d.csv")
+        table["g"] = ["a", "a", "b", "b", "b", "b", "c", "c", "c"]
+        table.to_csv(tmp_path / "d.csv", index=False)
+        import yaml
+        (tmp_path / "c.yaml").write_text(yaml.safe_dump(raw), encoding="utf-8")
+        assert main(["check", str(tmp_path / "c.yaml")]) == 0
+        out = capsys.readouterr().out
+        assert "8 of 9 species match a tip" in out
+        assert "1 species have no tip" in out and "sp_08" in out
+        assert "1 tips have no data and will be pruned (extra)" in out
+        assert "2 of 3 groups are not clades of the tree (a, b)" in out

@@ -4,12 +4,14 @@ hypothesised exponents, and the exponents of many groups ordered with their mean
 from __future__ import annotations
 
 import textwrap
+from types import SimpleNamespace
 
 import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import MaxNLocator
 
+from ..stats.line_results import ConfidenceInterval
 from ..stats.schema import method_label
 from .figure_inputs import common_slope_fit, drawn_primary, run_groups, run_methods, slopes_agree
 from .figure_style import (LEGEND_MAX_GROUPS, MARKERS, METHOD_MARKERS, METHOD_SHADES, PALETTE,
@@ -47,7 +49,28 @@ def _exponent_rows(result, methods) -> list:
             rows.append(common)
     if any(k[0] == "group_means" for k in keys):
         rows.append((f"Through {word} means", "group_means", ""))
-    return rows
+    # with a tree the phylogenetic lines lead, as in the Answer
+    phylo = []
+    if any(_table_fit(result, "phylo_common", m) is not None for m in (methods or ())):
+        phylo.append((f"Phylogenetic common slope within {plural}", "phylo_common", ""))
+    if any(k[0] == "phylo" for k in keys):
+        phylo.append(("Phylogenetic" + (f" (all {plural})" if groups else ""), "phylo", ""))
+    return phylo + rows
+
+
+def _table_fit(result, scope: str, method: str):
+    """The fits.csv row of ``scope`` and ``method`` as an object with ``slope`` and
+    ``slope_ci`` (None when absent or not estimable); nothing is estimated here."""
+    fits = result.fits
+    if fits is None or not len(fits) or "scope" not in fits:
+        return None
+    rows = fits[(fits["scope"] == scope) & (fits["method"] == method)]
+    if not len(rows) or not np.isfinite(float(rows["slope"].iloc[0])):
+        return None
+    row = rows.iloc[0]
+    return SimpleNamespace(slope=float(row["slope"]),
+                           slope_ci=ConfidenceInterval(float(row["slope_low"]),
+                                                       float(row["slope_high"])))
 
 
 @styled
@@ -85,6 +108,7 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         any_drawn = False
         for i, (_label_text, scope, group) in enumerate(rows):
             fit = (common_slope_fit(result, method) if scope == "common"
+                   else _table_fit(result, scope, method) if scope == "phylo_common"
                    else result.line_fits.get((scope, group, method)))
             if fit is None:
                 continue

@@ -43,6 +43,7 @@ import pandas as pd
 
 from ..stats.schema import method_label
 from .prediction_words import answer_primary
+from .answer_phylo import ordinary_rows, phylo_answer
 from .wording import (calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
                       verdict_phrase)
 
@@ -119,6 +120,7 @@ def answer_line(group_tests: pd.DataFrame | None, methods, primary: str | None =
     ('pooled', 'sma')
     """
     lead = primary_method(methods, primary)
+    group_tests = ordinary_rows(group_tests)
     usable = (group_tests is not None and len(group_tests)
               and {"method", "test", "p_value"} <= set(group_tests.columns))
     compared = list(dict.fromkeys(group_tests["method"])) if usable else []
@@ -386,6 +388,7 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     alpha = 1 - confidence
     pct = f"{100 * confidence:g}%"
     lead = primary_method(methods, primary)
+    group_tests, pairwise_tests = ordinary_rows(group_tests), ordinary_rows(pairwise_tests)
     table = _exponent_table(fits, slope_tests, lead, alpha, pct)
     usable = (group_tests is not None and len(group_tests)
               and {"method", "test", "p_value"} <= set(group_tests.columns))
@@ -537,6 +540,7 @@ def headline_of(result) -> Headline:
                               primary=answer_primary(cfg),   # an inverse run: its predicting line
                               confidence=cfg.model.confidence,
                               group_word=str(cfg.data.group or "group"))
+        head = phylo_answer(head, result)   # with a tree the phylogenetic result leads
     if len(head.sentences) < 3:
         answer = next((m.strip() for prefix in _ANSWER_LINES for m in result.messages
                        if m.strip().startswith(prefix)), None)

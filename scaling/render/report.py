@@ -203,7 +203,8 @@ def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
     out = []
     for _, r in table.iterrows():
         test = str(r.get("test", ""))
-        method = method_label(str(r.get("method", "")))
+        method = (("phylogenetic " if r.get("scope", "") == "phylo" else "")
+                  + method_label(str(r.get("method", ""))))
         p = r.get("p_value", np.nan)
         null, alt = GROUP_TEST_WORDS.get(test, (f"the null hypothesis of {test}",
                                                 f"{test} is rejected"))
@@ -394,7 +395,8 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         test_blocks.append(Block(kind="table", frame=result.slope_tests, name="slope_tests"))
     if sentences and mechanism_applies(result.slope_tests):   # it names 3/4 and 2/3
         test_blocks.append(Block(kind="p", text=mechanism_caution()))
-    if units_share_ancestry(cfg):   # species or higher taxa, or a tree (the rule in wording)
+    # species or higher taxa, or a tree (the rule in wording); with a tree the fits correct it
+    if units_share_ancestry(cfg) and cfg.data.tree is None:
         test_blocks.append(Block(kind="p", text=ancestry_caution()))
     sections.append(Section(title="Exponent tests", blocks=test_blocks, anchor="tests"))
 

@@ -12,9 +12,16 @@ The phylogenetic fits are rows of ``fits.csv`` and ``slope_tests.csv`` with
 scope ``phylo`` (group blank); ``fits.csv`` gains the columns ``lambda``,
 ``lambda_low``, ``lambda_high``, ``lambda_estimate``, ``loglik`` and
 ``aic`` (blank for ordinary fits).  Species without a tip and tips without
-data are listed in ``dropped_rows.csv``; the tips are pruned.  Per-group
-phylogenetic fits and phylogenetic group comparisons are not done: the
-summary says so when groups are compared.
+data are listed in ``dropped_rows.csv``; the tips are pruned.
+
+With groups compared (``groups.compare``), every ordinary group test gets its
+phylogenetic counterpart (:func:`scaling.stats.phylo_groups.phylo_group_tests`):
+``group_tests.csv`` and ``pairwise_tests.csv`` gain the columns ``scope``
+(``ordinary`` or ``phylo``), ``lambda``, ``lambda_low`` and ``lambda_high``
+(the lambda each phylogenetic row used, estimated under the full group model),
+and the phylogenetic common within-group slope is a ``fits.csv`` row of scope
+``phylo_common`` with its slope tests.  Without a tree those tables keep their
+columns.  Per-group phylogenetic fits are not done: the summary says so.
 
 The numeric work is in :mod:`scaling.stats.phylogeny`; this module only reads the
 tree, calls it and phrases the result (its sentences will move to
@@ -23,7 +30,7 @@ tree, calls it and phrases the result (its sentences will move to
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -36,11 +43,18 @@ from ..stats.line_results import line_fit_from_moments
 from ..render.wording import describe_test, fit_interval_text
 from ..errors import DataError
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
+from ..stats.phylo_groups import PHYLO_GROUP_SCOPE, phylo_group_tests
+from ..render.answer_phylo import phylo_group_messages
 
-__all__ = ["PHYLO_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
+__all__ = ["PHYLO_SCOPE", "PHYLO_COMMON_SCOPE", "ORDINARY_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
            "add_phylo_columns"]
 
 PHYLO_SCOPE = "phylo"
+#: fits.csv scope of the phylogenetic common within-group slope.
+PHYLO_COMMON_SCOPE = "phylo_common"
+#: ``scope`` of the ordinary rows of group_tests.csv and pairwise_tests.csv when a
+#: tree adds phylogenetic rows beside them.
+ORDINARY_SCOPE = "ordinary"
 PHYLO_METHODS = ("ols", "sma", "ma")
 PHYLO_FIT_COLUMNS = ["lambda", "lambda_low", "lambda_high", "lambda_estimate", "loglik", "aic"]
 
@@ -66,6 +80,15 @@ class PhyloStage:
     messages, notes : tuple of str
         The sentences (lambda, the phylogenetic exponent and what the
         correction changed against the pooled ordinary line) and the notes.
+    group_tests : dict
+        method -> :class:`~scaling.stats.phylo_groups.PhyloGroupTests` (with
+        groups compared).
+    tables : dict
+        ``group_tests`` and ``pairwise_tests`` with a ``scope`` column
+        (``ordinary`` and ``phylo`` rows) and the lambda used, when groups
+        are compared.
+    test_rows : tuple of dict
+        ``slope_tests.csv`` rows of the phylogenetic common slope.
     """
 
     rows: tuple
@@ -75,6 +98,9 @@ class PhyloStage:
     dropped: pd.DataFrame
     messages: tuple = ()
     notes: tuple = ()
+    group_tests: dict = field(default_factory=dict)
+    tables: dict = field(default_factory=dict)
+    test_rows: tuple = ()
 
 
 def phylo_stage(cfg, state) -> PhyloStage:
@@ -140,10 +166,82 @@ def phylo_stage(cfg, state) -> PhyloStage:
     if case_only:
         notes.append(_case_text(case_only, shown) + ".")
     ordinary = {m: f for (s, g, m), f in state.line_fits.items() if s == "pooled"}
-    stage = PhyloStage(rows=tuple(rows), fits=fits, line_fits=line_fits, points=used,
-                       dropped=dropped, notes=tuple(notes))
-    return replace(stage, messages=tuple(phylo_messages(stage, ordinary, cfg,
-                                                        has_groups=state.data.has_groups)))
+    compared = _group_comparisons(cfg, state, used, tree, kwargs, notes)
+    common_rows, test_rows = _phylo_common_rows(compared, cfg, base)
+    stage = PhyloStage(rows=tuple(rows + common_rows), fits=fits, line_fits=line_fits,
+                       points=used, dropped=dropped, notes=tuple(notes), group_tests=compared,
+                       tables=_scoped_tables(state.tables, compared) if compared else {},
+                       test_rows=tuple(test_rows))
+    messages = phylo_messages(stage, ordinary, cfg, has_groups=state.data.has_groups)
+    if compared:
+        messages += phylo_group_messages(compared, state.tables.get("group_tests"), cfg)
+    return replace(stage, messages=tuple(messages))
+
+
+def _group_comparisons(cfg, state, used: pd.DataFrame, tree, kwargs: dict, notes: list) -> dict:
+    """method -> PhyloGroupTests for each compared method (groups of >= 3 species)."""
+    if not (state.data.has_groups and cfg.groups.compare) or "group" not in used:
+        return {}
+    counts = used["group"].astype(str).value_counts()
+    keep = used[used["group"].astype(str).isin(counts.index[counts >= 3])]
+    if keep["group"].nunique() < 2:
+        return {}
+    out = {}
+    for method in [m for m in cfg.model.methods if m in PHYLO_METHODS]:
+        try:
+            out[method] = _one_comparison(keep, tree, method, kwargs, cfg)
+        except (DataError, np.linalg.LinAlgError) as exc:   # the ordinary tests still stand
+            notes.append(f"Phylogenetic group comparison ({method_label(method)}) not made: "
+                         f"{exc}.")
+    return out
+
+
+def _one_comparison(keep: pd.DataFrame, tree, method: str, kwargs: dict, cfg):
+    """The phylogenetic group tests of one method on the species with a tip."""
+    return phylo_group_tests(
+        keep["log_x"].to_numpy(), keep["log_y"].to_numpy(),
+        keep["unit"].astype(str).tolist(), keep["group"].astype(str).to_numpy(), tree,
+        method=method, lam=kwargs["lam"], reml=kwargs["reml"],
+        confidence=kwargs["confidence"], pairwise_max=cfg.groups.pairwise_max,
+        seed=cfg.resampling.seed)
+
+
+def _phylo_common_rows(compared: dict, cfg, base) -> tuple[list, list]:
+    """fits.csv and slope_tests.csv rows (scope ``phylo_common``) of the common slopes."""
+    if not compared:
+        return [], []
+    from .groups import common_slope_rows
+    from ..stats.lines import base_label
+    rows, tests = common_slope_rows({m: c.common for m, c in compared.items()},
+                                    cfg.exponents, log_base=base_label(base))
+    for r in rows:
+        c = compared[r["method"]]
+        r.update(scope=PHYLO_COMMON_SCOPE, note=r["note"] + "; phylogenetic (GLS at the "
+                 "lambda of the full group model)",
+                 interval_method="t" if c.method == "ols" else "profile_likelihood",
+                 **{"lambda": c.lam, "lambda_low": c.lam_ci.low, "lambda_high": c.lam_ci.high,
+                    "lambda_estimate": c.lam_estimate})
+    for t in tests:
+        t["scope"] = PHYLO_COMMON_SCOPE
+    return rows, tests
+
+
+def _scoped_tables(tables: dict, compared: dict) -> dict:
+    """group_tests and pairwise_tests with ``scope`` (ordinary, phylo) and the lambda used."""
+    out = {}
+    for name, frame_of in (("group_tests", lambda c: c.to_frame()),
+                           ("pairwise_tests", lambda c: c.pairwise_frame())):
+        ordinary = tables.get(name)
+        ordinary = (ordinary.assign(scope=ORDINARY_SCOPE) if ordinary is not None
+                    else pd.DataFrame({"scope": []}))
+        for c in ("lambda", "lambda_low", "lambda_high"):
+            ordinary[c] = np.nan
+        phylo = [frame_of(c) for c in compared.values()]
+        phylo = [f for f in phylo if len(f)]
+        frame = pd.concat([ordinary] + phylo, ignore_index=True) if phylo else ordinary
+        lead = ["scope"]
+        out[name] = frame[lead + [c for c in frame.columns if c not in lead]]
+    return out
 
 
 def _lambda_columns(fit: PhyloFit) -> dict:
@@ -229,9 +327,10 @@ def add_phylo_columns(fits: pd.DataFrame, stage: PhyloStage | None) -> pd.DataFr
     if stage is None:
         return out
     for r in stage.rows:
-        sel = (out["scope"] == PHYLO_SCOPE) & (out["method"] == r["method"])
+        sel = (out["scope"] == r["scope"]) & (out["method"] == r["method"])
         for c in PHYLO_FIT_COLUMNS:
-            out.loc[sel, c] = r[c]
+            if c in r:
+                out.loc[sel, c] = r[c]
     return out
 
 
@@ -281,7 +380,81 @@ def phylo_messages(stage: PhyloStage, ordinary: dict, cfg, *, has_groups: bool) 
                     line += f"; same verdict as the ordinary {label}"
             out.append(line + ".")
     if has_groups:
-        out.append("Not yet phylogenetic: the per-group fits, the line through the group means "
-                   "and the group comparisons (common slope, intercept and axis shifts) "
-                   "treat species as independent.")
+        out.append("Not yet phylogenetic: the per-group fits and the line through the group "
+                   "means treat species as independent.")
     return out
+
+
+def tree_check_lines(cfg, pts: pd.DataFrame) -> list:
+    """What ``scaling check`` says about ``data.tree``: how species met the tips.
+
+    Reads and parses the tree (a bad file raises the run's DataError), matches
+    the species column of ``pts`` (the points to fit, ``unit`` holding the
+    species) to the tips as the run does, and says which groups are clades
+    (monophyletic among the matched tips), which the phylogenetic SMA and MA
+    group tests treat exactly.
+    """
+    tree = read_newick(cfg.data.tree)
+    name = Path(cfg.data.tree).name
+    species = pts["unit"].astype(str).tolist()
+    match = match_species(species, tree)
+    shown = {_key(u): str(u) for u in pts["unit"]}
+    n_sp = len(match.species)
+    n_ok = int(np.count_nonzero(match.tip_of_species >= 0))
+    lines = [f"tree OK: {name} ({tree.n_tips} tips): {n_ok} of {n_sp} species match a tip"]
+    if match.missing_species:
+        lines.append(f"  note: {len(match.missing_species)} species have no tip and will be "
+                     "left out of the phylogenetic fits ("
+                     + _listed([shown.get(s, s) for s in match.missing_species]) + ")")
+    if match.pruned_tips:
+        lines.append(f"  note: {len(match.pruned_tips)} tips have no data and will be pruned ("
+                     + _listed(list(match.pruned_tips)) + ")")
+    case_only = _case_only(match)
+    if case_only:
+        lines.append("  note: " + _case_text(case_only, shown))
+    if n_ok < 3:
+        lines.append("  note: fewer than 3 species match a tip: the phylogenetic fits will "
+                     "refuse to run")
+    if "group" in pts and cfg.data.group and n_ok >= 3:
+        tip_of = dict(zip(match.species, match.tip_of_species.tolist()))
+        keys = [_key(s) for s in species]
+        by_group: dict = {}
+        for k, g in zip(keys, pts["group"].astype(str)):
+            if tip_of.get(k, -1) >= 0:
+                by_group.setdefault(g, set()).add(tip_of[k])
+        used = set(t for t in tip_of.values() if t >= 0)
+        below = _used_below(tree, used)
+        not_clades = [g for g, tips in by_group.items()
+                      if len(tips) > 1 and not _is_clade(tree, tips, below)]
+        if not_clades:
+            lines.append(f"  note: {len(not_clades)} of {len(by_group)} groups are not clades "
+                         f"of the tree ({_listed(sorted(not_clades))}): the phylogenetic SMA/MA "
+                         "group tests then ignore the covariance between groups' residuals "
+                         "(OLS tests stay exact)")
+        else:
+            lines.append(f"  all {len(by_group)} groups are clades of the tree")
+    return lines
+
+
+def _is_clade(tree, tips: set, used_below: list) -> bool:
+    """Whether no other used tip lies below the most recent common ancestor of ``tips``."""
+    par = tree.parent.tolist()
+    common = None
+    for t in tips:
+        anc = []
+        while t > 0:
+            anc.append(t)
+            t = par[t]
+        anc.append(0)
+        common = anc if common is None else [a for a in anc if a in common_set]
+        common_set = set(common)
+    return used_below[common[0]] == len(tips)
+
+
+def _used_below(tree, used: set) -> list:
+    """Number of used tips below every node (one post-order sweep)."""
+    count = [1 if i in used else 0 for i in range(tree.n_nodes)]
+    par = tree.parent.tolist()
+    for i in range(tree.n_nodes - 1, 0, -1):
+        count[par[i]] += count[i]
+    return count

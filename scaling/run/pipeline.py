@@ -174,7 +174,9 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     phylo = phylo_stage(cfg, state) if cfg.data.tree is not None else None
     if phylo is not None:
         state = replace(state, rows=state.rows + phylo.rows, phylo=phylo,
-                        line_fits={**state.line_fits, **phylo.line_fits})
+                        line_fits={**state.line_fits, **phylo.line_fits},
+                        test_rows=state.test_rows + phylo.test_rows,
+                        tables={**state.tables, **phylo.tables})
     extras = phylo_extras_stage(cfg, state) if phylo is not None else None
     if extras is not None:   # models, predictions from the tree, per-group lines, checks
         state = replace(state, rows=extras.rows, phylo=extras.phylo, data=replace(
