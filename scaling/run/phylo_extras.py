@@ -36,7 +36,7 @@ import numpy as np
 import pandas as pd
 
 from ..io.tables import _as_text, _parse_numbers, _reason, read_table
-from ..render.wording import fit_note
+from ..render.wording import fit_note, p_text
 from ..stats.fit_rows import fit_row
 from ..stats.line_results import ConfidenceInterval, line_fit_from_moments
 from ..stats.logscale import to_log
@@ -325,7 +325,8 @@ def _chosen_line(cfg, phylo, pts, t_tree, mf, base) -> tuple:
 
 
 def _p(p: float) -> str:
-    return "< 0.001" if p < 0.001 else f"= {p:.3f}"
+    """'= 0.031' or '< 0.0001': the package's one p formatter, after 'p '."""
+    return p_text(p)[2:]
 
 
 def _sampling_error(cfg, state, plan, X, Y):

@@ -158,9 +158,9 @@ def phylo_stage(cfg, state) -> PhyloStage:
     dropped = _dropped(pts, match, dc.species, name, case_only)
     notes = []
     if cfg.prediction.x or cfg.prediction.y:
-        notes.append("Predictions come from the ordinary lines only: phylogenetic lines make "
-                     "no predictions yet (an interval for a new species needs its place in "
-                     "the tree).")
+        notes.append("The predictions at the requested x come from the ordinary lines; the "
+                     "PGLS line's predictions (a typical new species, and species in the "
+                     "tree without y) are the scope 'phylo' rows of predictions.csv.")
     if len(dropped):
         notes.append(_drop_note(match, name, shown))
     if case_only:
@@ -380,8 +380,8 @@ def phylo_messages(stage: PhyloStage, ordinary: dict, cfg, *, has_groups: bool) 
                     line += f"; same verdict as the ordinary {label}"
             out.append(line + ".")
     if has_groups:
-        out.append("Not yet phylogenetic: the per-group fits and the line through the group "
-                   "means treat species as independent.")
+        out.append("Not yet phylogenetic: the line through the group means treats the group "
+                   "means as independent.")
     return out
 
 
