@@ -317,7 +317,7 @@ class TestCompareGroups:
         assert res.test("slopes_equal").p_value <= 0.01
         pw = res.pairwise_frame()
         assert list(pw.columns) == ["method", "test", "group_a", "group_b", "statistic",
-                                    "df", "p_value", "p_adjusted"]
+                                    "df", "p_value", "p_adjusted", "p_method"]
         slopes = pw[pw.test == "slopes_equal"]
         assert len(slopes) == 6
         # reference library: statsmodels multipletests(method="holm") on the pairwise p-values

@@ -308,6 +308,7 @@ class TestCalibratedPAtItsFloor:
         assert s2 == "This within-clade exponent is above 2/3 (p ≤ 0.001 (999 draws))."
         assert s3.startswith("The clades differ in elevation (p ≤ 0.001 (999 draws)) and "
                              "differ in position along the common axis (p = 0.004)")
+
         assert head.exponent_table.loc[0, "vs 2/3"] == "above (p ≤ 0.001 (999 draws))"
 
     def test_every_sentence_of_the_demo_reads_at_most(self, demo):
@@ -331,6 +332,23 @@ class TestCalibratedPAtItsFloor:
         words = [md, html, *demo.messages, *headline_of(demo).sentences]
         assert not any("p = 0.001" in text for text in words)
         assert "p ≤ 0.001 (999 draws)" in md and "p ≤ 0.001 (999 draws)" in html
+
+    def test_pairwise_holm_p_from_a_floor_p_is_written_as_a_bound(self):
+        # Holm (1979, Scand. J. Stat. 6:65) adjusts by multiplying: a raw p that is only
+        # known to be at most 1/(B + 1) gives an adjusted p that is only an upper bound.
+        from scaling.render.headline import _matrices
+        from scaling.render.report import Block, _md_table
+        pairs = pd.DataFrame({"method": ["sma"] * 3, "test": ["intercepts_equal"] * 3,
+                              "group_a": ["a", "a", "b"], "group_b": ["b", "c", "c"],
+                              "statistic": [30.0, 2.0, 9.0], "df": [1.0] * 3,
+                              "p_value": [0.001, 0.2, 0.004], "p_adjusted": [0.003, 0.2, 0.008],
+                              "p_method": ["parametric_bootstrap(999)"] * 3})
+        mat = _matrices(pairs, "sma", ["a", "b", "c"], 0.05)["intercepts_equal"]
+        assert mat.loc["a", "b"] == "≤ 0.003*" and mat.loc["a", "c"] == "0.200"
+        assert mat.loc["b", "c"] == "0.008*"
+        md = _md_table(Block(kind="table", frame=pairs, name="pairwise_tests"))
+        rows = md.splitlines()[-3:]
+        assert "| ≤ 0.001 | ≤ 0.003 |" in rows[0] and "≤" not in rows[1] + rows[2]
 
 
 class TestInfluenceSentence:

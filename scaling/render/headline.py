@@ -44,7 +44,7 @@ import pandas as pd
 from ..stats.schema import method_label
 from .prediction_words import answer_primary
 from .answer_phylo import ordinary_rows, phylo_answer
-from .wording import (calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
+from .wording import (at_floor, calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
                       verdict_phrase)
 
 __all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
@@ -352,7 +352,10 @@ def _matrices(pairwise: pd.DataFrame | None, method: str, groups, alpha) -> dict
             if a in mat.index and b in mat.columns:
                 p = float(r.p_adjusted)
                 mark = "*" if np.isfinite(p) and p <= alpha else ""
-                mat.loc[a, b] = (format_p(p) + mark) if np.isfinite(p) else "–"
+                # a Holm p from a resampled p at its floor is an upper bound
+                bound = ("≤ " if at_floor([r.p_value], [getattr(r, "p_method", "")])[0]
+                         else "")
+                mat.loc[a, b] = (bound + format_p(p) + mark) if np.isfinite(p) else "–"
         mat = mat.loc[names[:-1], names[1:]] if len(names) > 1 else mat
         mat.index.name = "group"
         out[str(test)] = mat

@@ -30,7 +30,7 @@ from .headline import headline_of
 from .figure_kinds import FIGURES
 from .prediction_words import extrapolation_words, prediction_notes
 from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
-                      calibrated_p_text, dose_scaling_applies, format_p, mechanism_applies,
+                      at_floor, calibrated_p_text, dose_scaling_applies, format_p, mechanism_applies,
                       mechanism_caution,
                       method_label, slope_interval_text, units_share_ancestry, verdict_phrase)
 
@@ -595,6 +595,18 @@ def _column_decimals(series: pd.Series, column: str):
     return int(min(max(3 - k, 0), 6))
 
 
+#: p columns that inherit "≤" from a ``p_value`` at the floor of its draws (``p_method``).
+_FLOOR_P_COLUMNS = ("p_value", "p_adjusted")
+
+
+def _floor_rows(frame: pd.DataFrame) -> np.ndarray:
+    """Rows whose ``p_value`` sits at the floor of its resampling draws."""
+    if "p_method" not in frame.columns or "p_value" not in frame.columns:
+        return np.zeros(len(frame), dtype=bool)
+    return at_floor(pd.to_numeric(frame["p_value"], errors="coerce").to_numpy(float),
+                    frame["p_method"].tolist())
+
+
 def _cell(value, column: str, decimals) -> str:
     if (decimals is None or not isinstance(value, (float, np.floating))
             or not math.isfinite(float(value))):
@@ -610,12 +622,15 @@ def _html_table(block: Block) -> str:
     head = "".join(f"<th scope=\"col\">{_esc(c)}</th>" for c in cols)
     rows = []
     flags = block.highlight or ()
+    floor = _floor_rows(frame)
     for i, values in enumerate(frame.itertuples(index=False, name=None)):
         flagged = i < len(flags) and flags[i]
         cells = []
         for c, v in zip(cols, values):
             cls = " class=\"num\"" if numeric[c] else ""
             text = _esc(_cell(v, str(c), decimals[c]))
+            if floor[i] and c in _FLOOR_P_COLUMNS:
+                text = f"≤ {text}"
             if flagged and c == "extrapolated":
                 text = f"<span class=\"flagnote\">{text} (extrapolated)</span>"
             cells.append(f"<td{cls}>{text}</td>")
@@ -726,10 +741,13 @@ def _md_table(block: Block) -> str:
                             for c in frame.columns) + "|"]
     flags = block.highlight or ()
     decimals = {c: _column_decimals(frame[c], c) for c in frame.columns}
+    floor = _floor_rows(frame)
     for i, values in enumerate(frame.itertuples(index=False, name=None)):
         cells = []
         for c, v in zip(cols, values):
             text = markdown_escape(_cell(v, c, decimals[c]))
+            if floor[i] and c in _FLOOR_P_COLUMNS:
+                text = f"≤ {text}"
             if i < len(flags) and flags[i] and c == "extrapolated":
                 text = f"**{text} (extrapolated)**"
             cells.append(text)

@@ -27,7 +27,7 @@ __all__ = [
     "unit_text", "count_words",
     "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "plural", "CAUTION",
     "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
-    "p_text", "format_p", "calibrated_p_text", "p_floor", "slope_interval_text", "scope_words", "read_message", "dropped_note",
+    "p_text", "format_p", "calibrated_p_text", "p_floor", "at_floor", "slope_interval_text", "scope_words", "read_message", "dropped_note",
     "pooled_fit_messages", "uncompared_message", "pairwise_skipped_note",
     "means_left_out_note", "extrapolation_note", "inverse_extrapolation_note",
     "unbounded_inverse_note", "diag_method",
@@ -141,6 +141,17 @@ def p_floor(p_method) -> tuple:
     draws = int(match.group(2))
     floor = (2.0 if match.group(1).startswith("bootstrap_percentile") else 1.0) / (draws + 1)
     return min(floor, 1.0), draws
+
+
+def at_floor(p_values, p_methods) -> np.ndarray:
+    """Which resampled p-values sit at the floor of their draws (:func:`p_floor`): such a
+    p, and a Holm-adjusted p computed from it, is written "≤" in sentences and tables."""
+    out = []
+    for p, method in zip(p_values, p_methods):
+        floor, draws = p_floor(method if isinstance(method, str) else "")
+        out.append(draws is not None and np.isfinite(float(p))
+                   and float(p) <= floor * (1 + 1e-9))
+    return np.asarray(out, dtype=bool)
 
 
 def calibrated_p_text(p: float, p_method="") -> str:

@@ -323,7 +323,12 @@ class GroupTest:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class PairwiseTest:
-    """One comparison between two groups; ``p_adjusted`` by Holm's method."""
+    """One comparison between two groups; ``p_adjusted`` by Holm's method.
+
+    ``p_method`` as for the omnibus test (``F``, ``chi2`` or
+    ``parametric_bootstrap(B)``).  A resampled p at its floor 1/(B + 1) is only an
+    upper bound, and so is the Holm-adjusted p computed from it.
+    """
 
     method: str
     test: str
@@ -333,6 +338,7 @@ class PairwiseTest:
     df: float
     p_value: float
     p_adjusted: float
+    p_method: str = ""
 
     def to_record(self) -> dict:
         return {name: getattr(self, name) for name in _PAIR_COLUMNS}
@@ -785,7 +791,8 @@ def _compare(m: Moments, labels: tuple, log_x_range, *, method, group_column, co
                 pairwise.append(PairwiseTest(
                     method=method, test=name, group_a=labels[used[a]],
                     group_b=labels[used[c]], statistic=float(stat[j]), df=float(df1[j]),
-                    p_value=float(p[j]), p_adjusted=float(p_adj[j])))
+                    p_value=float(p[j]), p_adjusted=float(p_adj[j]),
+                    p_method="F" if method == "ols" else p_method))
     elif rejected:
         # Two groups: the omnibus test is the pairwise test.
         for t in tests:
@@ -793,7 +800,7 @@ def _compare(m: Moments, labels: tuple, log_x_range, *, method, group_column, co
                 pairwise.append(PairwiseTest(
                     method=method, test=t.test, group_a=labels[used[0]],
                     group_b=labels[used[1]], statistic=t.statistic, df=t.df,
-                    p_value=t.p_value, p_adjusted=t.p_value))
+                    p_value=t.p_value, p_adjusted=t.p_value, p_method=t.p_method))
     return GroupComparison(**common, common_slope=b, common_slope_ci=ci,
                            common_slope_se=se, tests=tuple(tests),
                            pairwise=tuple(pairwise), pairwise_max=pairwise_max,

@@ -192,7 +192,7 @@ class PhyloGroupTests:
     def pairwise_frame(self) -> pd.DataFrame:
         """Rows of ``pairwise_tests.csv`` (scope ``phylo``)."""
         cols = ["scope", "lambda", "lambda_low", "lambda_high", "method", "test", "group_a",
-                "group_b", "statistic", "df", "p_value", "p_adjusted"]
+                "group_b", "statistic", "df", "p_value", "p_adjusted", "p_method"]
         return pd.DataFrame([{**self._lam_cols(), **r} for r in self.pairwise], columns=cols)
 
     def differ(self, test: str, alpha: float) -> bool:
@@ -564,11 +564,11 @@ def phylo_group_tests(X, Y, species, groups, tree: Tree, *, method: str = "ols",
             rows = []
             for a, b in itertools.combinations(range(len(p.groups)), 2):
                 sub = _subset(p, (p.codes == a) | (p.codes == b))
-                s2, d2, _, pv, _, _ = _tests_at(sub, method, lam_hat, confidence, n_boot,
-                                                seed)
+                s2, d2, _, pv, _, pm = _tests_at(sub, method, lam_hat, confidence, n_boot,
+                                                 seed)
                 rows.append({"method": method, "test": test, "group_a": p.groups[a],
                              "group_b": p.groups[b], "statistic": float(s2[i]),
-                             "df": float(d2[i]), "p_value": float(pv[i])})
+                             "df": float(d2[i]), "p_value": float(pv[i]), "p_method": pm})
             adj = holm_adjust([r["p_value"] for r in rows])
             pairs += [{**r, "p_adjusted": float(q)} for r, q in zip(rows, adj)]
     return PhyloGroupTests(method=method, lam=lam_hat, lam_ci=lam_ci, lam_estimate=estimate,

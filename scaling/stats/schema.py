@@ -187,7 +187,7 @@ GROUP_MEANS_COLUMNS = ["group", "n", "mean_log_x", "mean_log_y", "se_log_x", "se
 GROUP_TEST_COLUMNS = ["method", "test", "statistic", "df", "df_resid", "p_value",
                       "p_method", "common_slope", "common_slope_low", "common_slope_high"]
 PAIRWISE_COLUMNS = ["method", "test", "group_a", "group_b", "statistic", "df",
-                    "p_value", "p_adjusted"]
+                    "p_value", "p_adjusted", "p_method"]
 PREDICTION_COLUMNS = ["scope", "group", "method", "x", "y", "y_low", "y_high", "interval",
                       "correction", "extrapolated", "confidence", "range_ratio"]
 INVERSE_COLUMNS = ["scope", "group", "method", "y", "x", "x_low", "x_high", "interval",
