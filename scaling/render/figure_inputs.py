@@ -17,6 +17,7 @@ from ..stats.lines import parse_log_base
 from ..stats.line_results import ConfidenceInterval
 from .figure_style import scatter_coded
 from .headline import primary_method
+from .wording import unit_text
 
 __all__ = ["run_base", "axis_label", "run_groups", "group_codes", "scatter_groups",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
@@ -51,7 +52,7 @@ def axis_label(result, role: str) -> str:
         name = name.replace("_", " ").strip()
     if unit and f"({unit})" in str(name):
         return str(name)
-    return f"{name} ({unit})" if unit else str(name)
+    return f"{name} ({unit_text(unit)})" if unit else str(name)   # "cm²", not "(cm**2)"
 
 
 def run_groups(result) -> list:

@@ -29,7 +29,7 @@ import yaml
 from .headline import headline_of
 from .figure_kinds import FIGURES
 from .prediction_words import extrapolation_words, prediction_notes
-from .wording import (CAUTION, ancestry_caution, clean_timestamp, dose_caution, exponent_label,
+from .wording import (CAUTION, ancestry_caution, unit_text, clean_timestamp, dose_caution, exponent_label,
                       at_floor, calibrated_p_text, dose_scaling_applies, format_p, mechanism_applies,
                       mechanism_caution,
                       method_label, slope_interval_text, units_share_ancestry, verdict_phrase)
@@ -243,8 +243,8 @@ def _data_section(result) -> Section:
         f"Rows read: {data.n_read}",
         f"Rows dropped: {large.get('rows_dropped', len(result.dropped))}",
         f"Points fitted: {large.get('points_fitted', len(pts))}",
-        f"x: {cfg.data.x}" + (f" ({units['x']})" if units.get("x") else ""),
-        f"y: {cfg.data.y}" + (f" ({units['y']})" if units.get("y") else ""),
+        f"x: {cfg.data.x}" + (f" ({unit_text(units['x'])})" if units.get("x") else ""),
+        f"y: {cfg.data.y}" + (f" ({unit_text(units['y'])})" if units.get("y") else ""),
         f"Log base: {cfg.model.log_base}; methods: "
         f"{', '.join(method_label(m) for m in cfg.model.methods)}; confidence "
         f"{100 * cfg.model.confidence:g}%",

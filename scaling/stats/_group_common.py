@@ -3,7 +3,8 @@
 :mod:`scaling.stats.group_means`, :mod:`scaling.stats.common_slope` and
 :mod:`scaling.stats.group_comparisons` read their log values, group labels
 and log base through these helpers, so every group analysis refuses the same
-inputs with the same messages.
+inputs with the same messages.  :func:`holm_adjust` adjusts the pairwise p-values
+of the ordinary and the phylogenetic group comparisons alike.
 """
 
 from __future__ import annotations
@@ -53,3 +54,41 @@ def check_logs(log_x, log_y):
     if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
         raise DataError("log_x and log_y must be finite numbers (no NaN or inf)")
     return X, Y
+
+
+def holm_adjust(p) -> np.ndarray:
+    """Holm (1979, Scand. J. Statist. 6:65) step-down adjusted p-values.
+
+    The i-th smallest of m finite p-values becomes
+    ``max_{j <= i} min(1, (m - j + 1) p_(j))``; non-finite p-values stay NaN
+    and do not count in m.
+
+    Parameters
+    ----------
+    p : array_like
+        Unadjusted p-values, in any order.
+
+    Returns
+    -------
+    ndarray
+        Adjusted p-values in the order given.
+
+    Examples
+    --------
+    >>> holm_adjust([0.01, 0.04, 0.03]).round(3).tolist()
+    [0.03, 0.06, 0.06]
+    """
+    # Written here rather than calling statsmodels' multipletests, which runs a
+    # full garbage collection on every call (about 0.09 s each in a demo run).
+    p = np.asarray(p, dtype=float)
+    out = np.full(p.shape, np.nan)
+    ok = np.isfinite(p)
+    q = p[ok]
+    if q.size:
+        order = np.argsort(q)
+        adjusted = np.maximum.accumulate(q[order] * np.arange(q.size, 0, -1))
+        adjusted[adjusted > 1] = 1
+        values = np.empty_like(adjusted)
+        values[order] = adjusted
+        out[ok] = values
+    return out
