@@ -50,7 +50,7 @@ __all__ = ["use_moments_path", "MomentsStage", "moments_stage", "SpreadStage", "
 #: Line methods whose per-group exponents carry a standard error for the spread summary.
 SPREAD_METHODS = ("ols", "sma", "ma")
 
-_ROW_STAGES = "residual diagnostics, smearing and accuracy, influence, bootstrap and permutations"
+_ROW_STAGES = "bootstrap and permutations"   # the second pass does the residual checks
 
 
 # --------------------------------------------------------------------------
@@ -221,6 +221,8 @@ class MomentsStage:
     messages, notes : tuple of str
     manifest : dict
         The run's manifest entries of this path (``large_data``).
+    moments : GroupedMoments or None
+        The per-group moments the fits came from (read again by the second pass).
     """
 
     config: object
@@ -232,6 +234,7 @@ class MomentsStage:
     messages: tuple = ()
     notes: tuple = ()
     manifest: dict
+    moments: object = None   # the second pass (run/second_pass.py) reads them
 
 
 def moments_stage(cfg, reason: str) -> MomentsStage:
@@ -304,9 +307,6 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
                      f"{', '.join(others)}.")
     notes.append(f"Stages that need the rows were skipped on the large-data path: "
                  f"{_ROW_STAGES}, the line through the group means and the group comparison tests.")
-    if cfg.prediction.x or cfg.prediction.y:
-        notes.append("Predictions were not made on the large-data path (they need the "
-                     "residuals for the back-transformation).")
 
     drawable = tuple(k for k in cfg.figures.kinds if k in ("scaling", "exponents"))
     if drawable != tuple(cfg.figures.kinds):
@@ -328,7 +328,7 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     }
     return MomentsStage(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                         line_fits=line_fits, tables=tables, messages=tuple(messages),
-                        notes=tuple(notes), manifest=manifest)
+                        notes=tuple(notes), manifest=manifest, moments=gm)
 
 
 # --------------------------------------------------------------------------

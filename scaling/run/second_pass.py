@@ -1,0 +1,424 @@
+"""The second pass of the moments path: what needs residuals, read chunk by chunk again.
+
+The first pass (:func:`scaling.run.table_moments.read_moments`) gives per-group
+moments and so the fitted lines.  With the lines known, :func:`second_pass`
+reads the same file again through the same reader (chunks of
+:mod:`scaling.io.chunked`, or Dask partitions on the same scheduler), cleans
+each chunk by the same rules and adds its residual sums to a
+:class:`~scaling.stats.streaming_residuals.ResidualSums` (pooled rows and
+every group, every line method).  From those sums and the moments it builds
+what the in-memory road writes from the rows:
+
+* the accuracy and correction-factor columns of fits.csv (SEE, %SEE, %PE,
+  smearing, parametric and ratio factors) and the constant ``a`` columns;
+* predictions and inverse predictions (:func:`scaling.run.predictions.predictions_from_factors`)
+  and the saved fits of results.json;
+* the ``diagnostics`` table: normality (D'Agostino-Pearson from residual
+  skewness and kurtosis: Shapiro-Wilk needs the sorted rows), constant
+  variance (Breusch-Pagan), curvature (the quadratic term, from the higher
+  moments, :func:`scaling.stats.moment_curvature.quadratic_from_moments`) and
+  influence (Cook's distance), with ``curvature`` and ``influential_rows``
+  (at most :data:`~scaling.stats.streaming_residuals.TOP_K` rows per fit);
+* the fit-level rows of ``points_to_check`` (odd correction factors,
+  estimates outside their interval).
+
+What needs all rows at once (row bootstrap, permutation tests, row-based
+robust lines, leave-one-out refits) is not done; one note names it.
+The plain-language notes are small functions here (to move into
+``wording.py`` at merge time), as in :mod:`scaling.run.moments_path`.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import ScalingError
+from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind, files_of,
+                          read_chunks)
+from ..render.findings import check_verdict, point_check_reason
+from ..stats.influence import fit_checks
+from ..stats.line_results import line_fit_from_moments
+from ..stats.lines import exact_fit
+from ..stats.logscale import to_log
+from ..stats.moment_curvature import local_exponents, quadratic_from_moments
+from ..stats.residual_checks import MIN_N, Check
+from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, INFLUENCE_COLUMNS,
+                            POINTS_TO_CHECK_COLUMNS)
+from ..stats.streaming_residuals import TOP_K, ResidualSums, StreamedChecks
+from .diagnostics import exponent_targets
+from .moments_path import _sep
+from .predictions import predictions_from_factors, saved_fits_of
+
+__all__ = ["SecondPass", "second_pass", "residual_sums", "ROW_ONLY_STAGES"]
+
+#: What the moments path cannot do without holding every row at once.
+ROW_ONLY_STAGES = ("row bootstrap", "permutation tests", "row-based robust lines",
+                   "leave-one-out refits (points that move the answer)")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SecondPass:
+    """What the second pass adds to a moments-path run.
+
+    Attributes
+    ----------
+    fits : DataFrame
+        fits.csv with the accuracy, correction-factor and constant columns.
+    saved_fits : dict
+        ``(scope, group, method) -> saved-fit dict`` of every estimable fit.
+    tables : dict
+        ``predictions`` / ``inverse_predictions`` (when asked for),
+        ``diagnostics``, ``curvature``, ``influential_rows`` (when
+        ``diagnostics.enabled``) and ``points_to_check``.
+    checks : StreamedChecks
+        The raw sums' results (set 0 pooled, set 1 + g group g).
+    messages, notes : tuple of str
+    """
+
+    fits: pd.DataFrame
+    saved_fits: dict
+    tables: dict
+    checks: StreamedChecks
+    messages: tuple = ()
+    notes: tuple = ()
+
+
+# --------------------------------------------------------------------------
+# the sets and lines of a run
+
+
+def _sets(gm, grouped: bool):
+    """Moments of the point sets: pooled first, then each group (when grouped)."""
+    if not grouped:
+        return gm.pooled, [("pooled", "")]
+    m = gm.moments
+    both = {k: np.concatenate([np.atleast_1d(getattr(gm.pooled, k)), getattr(m, k)])
+            for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")}
+    if gm.pooled.has_higher and m.has_higher:
+        both.update({k: np.concatenate([getattr(gm.pooled, k), getattr(m, k)])
+                     for k in ("sxxx", "sxxxx", "sxxy")})
+    keys = [("pooled", "")] + [("group", str(g)) for g in gm.labels]
+    return type(m)(**both), keys
+
+
+def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
+    """Arrays (S, M) of intercept, slope and residual SD read from the fits table."""
+    index = {k: i for i, k in enumerate(keys)}
+    out = {c: np.full((len(keys), len(methods)), np.nan)
+           for c in ("intercept", "slope", "resid_sd")}
+    for r in fits.itertuples(index=False):
+        i = index.get((r.scope, r.group))
+        if i is None or r.method not in methods:
+            continue
+        j = methods.index(r.method)
+        for c in out:
+            out[c][i, j] = getattr(r, c)
+    return out
+
+
+# --------------------------------------------------------------------------
+# reading the rows again
+
+
+def _params(m, lines: dict, base) -> dict:
+    return dict(intercept=lines["intercept"], slope=lines["slope"], mean_x=m.mean_x,
+                mean_y=m.mean_y, sxx=m.sxx, syy=m.syy, sxy=m.sxy, n=m.n,
+                resid_sd=lines["resid_sd"], log_base=base)
+
+
+def _feed(acc: ResidualSums, part, cfg, base, label_index, grouped: bool, first_row: int):
+    d = cfg.data
+    c = clean_chunk(part, d.x, d.y, d.group, d.decimal)
+    rows = first_row + np.arange(c.n_rows, dtype=np.int64) + 1      # 1-based data rows
+    x, y = c.x, c.y
+    codes = c.codes
+    if c.bad is not None:
+        keep = ~c.bad
+        x, y, rows = x[keep], y[keep], rows[keep]
+        codes = codes[keep] if codes is not None else None
+    if not x.size:
+        return c.n_rows
+    X, Y = to_log(x, base), to_log(y, base)
+    acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
+    if grouped:
+        local = label_index.get_indexer(pd.Index(c.labels).astype(str))
+        acc.add(1 + local[codes], X, Y, rows)
+    return c.n_rows
+
+
+def _partition_sums(pdf, cfg, base, params, labels, grouped):
+    """The residual sums of one Dask partition (rows numbered from 1 within it)."""
+    pdf.columns = [str(col).strip() for col in pdf.columns]
+    acc = ResidualSums(**params)
+    n_rows = _feed(acc, pdf, cfg, base, pd.Index(labels), grouped, 0)
+    return acc, n_rows
+
+
+def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base) -> tuple:
+    """Read the file again and return the filled :class:`ResidualSums` and the set keys."""
+    d = cfg.data
+    grouped = bool(d.group)
+    m, keys = _sets(gm, grouped)
+    params = _params(m, _lines(fits, keys, methods), base)
+    label_index = pd.Index(np.asarray(gm.labels, dtype=str))
+    path = Path(d.file)
+    kind = file_kind(path)
+    columns = [d.x, d.y] + ([d.group] if d.group else [])
+    sep = _sep(cfg)
+    acc = ResidualSums(**params)
+    if cfg.engine == "dask":
+        import dask   # the first pass has checked that it is installed
+        parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
+        tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, list(label_index),
+                                               grouped) for p in parts]
+        offset = 0
+        for part, n_rows in dask_compute(tasks, cfg.scheduler):   # partitions in file order
+            part.top_rows = np.where(part.top_rows >= 0, part.top_rows + offset, -1)
+            acc.merge(part)
+            offset += n_rows
+    else:
+        offset = 0
+        for file in files_of(path, kind):
+            for part in read_chunks(file, kind, columns, d.chunk_size, "pandas", sep,
+                                    d.decimal):
+                offset += _feed(acc, part, cfg, base, label_index, grouped, offset)
+    return acc, keys, m
+
+
+# --------------------------------------------------------------------------
+# the run's tables
+
+
+def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
+                base) -> SecondPass:
+    """Residual sums over a second read of the file, and the tables they give.
+
+    Parameters
+    ----------
+    cfg : Config
+    gm : GroupedMoments
+        The first pass's moments (with the higher sums).
+    fits : DataFrame
+        The moments path's fits table (pooled and group rows).
+    line_fits : dict
+        The path's LineFits (pooled); group fits are packaged here for the
+        predictions and saved fits.
+    units : dict
+    base : float or None
+    """
+    methods = list(dict.fromkeys(fits["method"]))
+    acc, keys, m = residual_sums(cfg, gm, fits, methods, base)
+    res = acc.result()
+
+    # LineFits of every estimable fit (pooled ones as the path made them).
+    all_fits = dict(line_fits)
+    rng = {(r.scope, r.group, r.method): r for r in fits.itertuples(index=False)}
+    for i, (scope, group) in enumerate(keys):
+        for method in methods:
+            key = (scope, group, method)
+            r = rng.get(key)
+            if key in all_fits or r is None or not np.isfinite(r.slope):
+                continue
+            all_fits[key] = line_fit_from_moments(
+                m[i], method, confidence=cfg.model.confidence, log_base=base,
+                x_range=(r.x_min, r.x_max), y_range=(r.y_min, r.y_max))
+    extra = {}
+    for i, (scope, group) in enumerate(keys):
+        if res.n[i] < 3:
+            continue
+        for j, method in enumerate(methods):
+            key = (scope, group, method)
+            if key not in all_fits:
+                continue
+            extra[key] = {"see": float(res.see[i, j]),
+                          "percent_see": float(res.percent_see[i, j]),
+                          "percent_pe": float(res.percent_pe[i, j]),
+                          "smearing_factor": float(res.smearing[i, j]),
+                          "parametric_factor": float(res.parametric[i, j]),
+                          "ratio_factor": float(res.ratio[i, j])}
+    saved = saved_fits_of(all_fits, extra)
+    predicted = predictions_from_factors(cfg, fits=fits, line_fits=all_fits, saved=saved,
+                                         extra=extra, units=units, base=base)
+    tables = dict(predicted.tables)
+    notes = list(predicted.notes)
+    if cfg.diagnostics.enabled:
+        diag, diag_notes = _diagnostics(cfg, res, m, keys, methods, all_fits, base)
+        tables.update(diag)
+        notes += diag_notes
+    tables["points_to_check"] = _points_to_check(predicted.fits, all_fits,
+                                                 tables.get("predictions"))
+    notes.append(skipped_note())
+    return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
+                      checks=res, messages=predicted.messages, notes=tuple(notes))
+
+
+def skipped_note() -> str:
+    """The one note naming what the moments path leaves out."""
+    return ("The large-data path reads the rows twice (moments, then residual sums) and "
+            "never holds them all, so it leaves out what needs every row at once: "
+            f"{', '.join(ROW_ONLY_STAGES)}; its normality check is D'Agostino-Pearson "
+            "(residual skewness and kurtosis) instead of Shapiro-Wilk, and it lists at most "
+            f"{TOP_K} influential rows per fit.")
+
+
+def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base) -> tuple:
+    """diagnostics, curvature and influential_rows tables from the sums and moments."""
+    alpha = cfg.diagnostics.alpha
+    n_groups = len(keys) - 1
+    notes = []
+    todo = range(len(keys))
+    if n_groups > cfg.groups.diagnostics_max:
+        todo = [0]
+        notes.append(f"Per-group diagnostics skipped: {n_groups} groups is more than "
+                     f"groups.diagnostics_max = {cfg.groups.diagnostics_max}; the pooled "
+                     "line is checked.")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        quad = quadratic_from_moments(m) if m.has_higher else None
+        exact = np.asarray(exact_fit(m), dtype=bool)
+    targets = exponent_targets(cfg)
+    diag, infl, curv = [], [], []
+    for i in todo:
+        scope, group = keys[i]
+        n = int(res.n[i])
+        if n < MIN_N or not (m.sxx[i] > 0):
+            continue
+        fitted = [j for j, meth in enumerate(methods) if (scope, group, meth) in all_fits]
+        if not fitted:
+            continue
+        lx = to_log(np.array([all_fits[(scope, group, methods[fitted[0]])].x_range[0],
+                              all_fits[(scope, group, methods[fitted[0]])].x_range[1]]),
+                    base)
+        q = ({k: float(np.asarray(v)[i]) for k, v in quad.items()} if quad is not None
+             else None)
+        threshold = 4.0 / n
+        cooks = res.cooks_distance[i]
+        above = np.flatnonzero(cooks > threshold)
+        top = float(np.nanmax(cooks)) if np.isfinite(cooks).any() else math.nan
+        for j in fitted:
+            method = methods[j]
+            checks = _checks(res, i, j, q, lx, exact[i], top, res.cooks_rows[i][above], alpha)
+            for c in checks:
+                diag.append({"scope": scope, "group": group, "method": method,
+                             **c.to_record(), "verdict": check_verdict(c)})
+            if not exact[i]:
+                for k in above:
+                    infl.append({"scope": scope, "group": group, "method": method,
+                                 "row": int(res.cooks_rows[i][k]), "label": "",
+                                 "cooks_distance": float(cooks[k])})
+        if q is not None:
+            e_lo, e_hi = local_exponents(q, lx) if not exact[i] else (math.nan, math.nan)
+            common = {"scope": scope, "group": group, "n": n,
+                      "quadratic": q["quadratic"] if not exact[i] else 0.0,
+                      "quadratic_se": q["quadratic_se"] if not exact[i] else math.nan,
+                      "statistic": q["statistic"] if not exact[i] else math.nan,
+                      "df": q["df"], "p_value": q["p_value"] if not exact[i] else math.nan,
+                      "exponent_at_x_min": e_lo, "exponent_at_x_max": e_hi}
+            crossings = _crossings(q, targets, lx, base) if not exact[i] else []
+            if crossings:
+                for target, xs, inside in crossings:
+                    curv.append({**common, "exponent": target, "x_at_exponent": xs,
+                                 "within_data": inside})
+            else:
+                curv.append({**common, "exponent": np.nan, "x_at_exponent": np.nan,
+                             "within_data": None})
+    tables = {
+        "diagnostics": pd.DataFrame(diag, columns=DIAGNOSTIC_COLUMNS),
+        "influential_rows": pd.DataFrame(infl, columns=INFLUENCE_COLUMNS),
+        "curvature": pd.DataFrame(curv, columns=CURVATURE_COLUMNS),
+    }
+    return tables, notes
+
+
+def _crossings(q: dict, targets, lx, base) -> list:
+    """(target, x*, inside the data) where the local exponent reaches each target."""
+    out = []
+    for target in targets:
+        if q["quadratic"] == 0 or not np.isfinite(q["quadratic"]):
+            out.append((target, math.nan, False))
+            continue
+        at = (target - q["linear"]) / (2 * q["quadratic"])
+        with np.errstate(over="ignore"):
+            xs = float(at) if base is None else float(np.power(np.float64(base), at))
+        out.append((target, xs, bool(lx[0] <= at <= lx[1])))
+    return out
+
+
+def _checks(res: StreamedChecks, i: int, j: int, q, lx, exact: bool, top: float, rows,
+            alpha: float) -> list:
+    """The four checks of one fit, as :class:`Check` records (the in-memory road's shape)."""
+    if exact:
+        return [Check(check=name, test=test, statistic=math.nan, df=math.nan,
+                      p_value=math.nan, estimate=math.nan, flagged=False, finding="exact_fit")
+                for name, test in (("normality", "D'Agostino-Pearson"),
+                                   ("constant_variance", "Breusch-Pagan"),
+                                   ("curvature", "quadratic term t"),
+                                   ("influence", "Cook's distance"))]
+    out = []
+    p = float(res.normality_p[i, j])
+    flagged = bool(p < alpha)
+    out.append(Check(check="normality", test="D'Agostino-Pearson",
+                     statistic=float(res.normality_statistic[i, j]), df=2.0, p_value=p,
+                     estimate=math.nan, flagged=flagged,
+                     finding="flagged" if flagged else "clear"))
+    p = float(res.bp_p[i, j])
+    flagged = bool(p < alpha)
+    out.append(Check(check="constant_variance", test="Breusch-Pagan",
+                     statistic=float(res.bp_statistic[i, j]), df=1.0, p_value=p,
+                     estimate=math.nan, flagged=flagged,
+                     finding="flagged" if flagged else "clear",
+                     direction=int(res.bp_direction[i, j]) if flagged else 0))
+    if q is not None:
+        flagged = bool(q["p_value"] < alpha)
+        e_lo, e_hi = (float(v) for v in local_exponents(q, lx))
+        out.append(Check(check="curvature", test="quadratic term t", statistic=q["statistic"],
+                         df=q["df"], p_value=q["p_value"], estimate=q["quadratic"],
+                         flagged=flagged, finding="flagged" if flagged else "clear",
+                         direction=1 if q["quadratic"] > 0 else -1,
+                         exponent_low=e_lo, exponent_high=e_hi))
+    flagged = len(rows) > 0
+    out.append(Check(check="influence", test="Cook's distance", statistic=top, df=math.nan,
+                     p_value=math.nan, estimate=top, flagged=flagged,
+                     finding="flagged" if flagged else "clear",
+                     rows=tuple(int(r) for r in rows)))
+    return out
+
+
+def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds) -> pd.DataFrame:
+    """The fit-level rows of points_to_check (factors, estimates outside their interval)."""
+    records = []
+    for r in fits.itertuples(index=False):
+        key = (r.scope, r.group, r.method)
+        if key not in all_fits or not np.isfinite(getattr(r, "smearing_factor", math.nan)):
+            continue
+        est = ()
+        if preds is not None and len(preds):
+            mine = preds[(preds["scope"] == r.scope) & (preds["group"] == r.group)
+                         & (preds["method"] == r.method)]
+            est = [(f"at x = {p.x:g} ", p.y, p.y_low, p.y_high)
+                   for p in mine.itertuples(index=False)]
+        try:
+            found = fit_checks(smearing_factor=r.smearing_factor,
+                               parametric_factor=r.parametric_factor, estimates=est)
+        except ScalingError:
+            continue
+        records += [{"scope": r.scope, "group": r.group, "method": r.method,
+                     **c.to_record(), "reason": point_check_reason(c)} for c in found]
+    table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
+    table["row"] = table["row"].astype("Int64")
+    return table
+
+
+def with_second_pass(result, cfg, gm, units, base):
+    """``result`` (a RunResult of the moments path) with the second pass's tables."""
+    extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base)
+    return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
+                   tables={**result.tables, **extra.tables},
+                   messages=result.messages + extra.messages,
+                   warnings=result.warnings + extra.notes)
