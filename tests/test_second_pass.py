@@ -30,6 +30,8 @@ def table(tmp_path_factory):
         curve = 0.05 * lx * lx if g == 3 else 0.0      # one group bends
         ly = 0.4 + (0.7 + 0.03 * g) * lx + curve + rng.normal(0, 0.12 * (1 + 0.3 * lx), n)
         parts.append(pd.DataFrame({"mass": 10 ** lx, "rate": 10 ** ly, "clade": f"c{g}"}))
+    # one far point off the line: strong in the pooled line (Cook's distance > 1)
+    parts.append(pd.DataFrame({"mass": [1e8], "rate": [10 ** 2.0], "clade": ["c4"]}))
     df = pd.concat(parts).sample(frac=1, random_state=3).reset_index(drop=True)
     df.loc[7, "rate"] = -1.0                            # one dropped row, counted
     path = tmp_path_factory.mktemp("second") / "t.csv"
@@ -140,3 +142,15 @@ def test_dask_partitions_give_the_same_second_pass(table, runs):
     assert a["row"].tolist() == b["row"].tolist()   # row numbers count across partitions
     assert_allclose(a["cooks_distance"].to_numpy(float), b["cooks_distance"].to_numpy(float),
                     rtol=1e-9)
+
+
+def test_points_to_check_of_the_pooled_line_equal_the_in_memory_road(runs):
+    cols = ["scope", "group", "method", "severity", "kind", "row", "value", "reason"]
+    mem = runs["memory"].tables["points_to_check"]
+    mom = runs["moments"].tables["points_to_check"]
+    mem = mem[mem["scope"] == "pooled"][cols].reset_index(drop=True)
+    mom = mom[mom["scope"] == "pooled"][cols].reset_index(drop=True)
+    assert set(mem["kind"]) == {"influence", "group_residuals"}
+    # internal consistency: leave-one-out refits and f_oneway on the rows in memory
+    assert_allclose(mom["value"].to_numpy(float), mem["value"].to_numpy(float), rtol=1e-9)
+    pd.testing.assert_frame_equal(mom.drop(columns="value"), mem.drop(columns="value"))

@@ -138,3 +138,56 @@ def test_breusch_pagan_from_sums_equals_statsmodels():
     ref = het_breuschpagan(e, np.column_stack([np.ones(X.size), X]))
     # reference library: statsmodels het_breuschpagan
     assert_allclose([lm, p], ref[:2], rtol=1e-10)
+
+
+@pytest.mark.parametrize("method", METHODS)
+def test_strong_rows_equal_refits_without_each_point(method):
+    from scaling.stats.influence import strong_influence
+    from scaling.stats.moments import moments
+    X, Y = _sample(n=30, seed=12)
+    X[4], Y[4] = 4.5, Y.mean() - 1.5            # a far point off the line
+    Y[9] += 0.8                                  # and one off the line in the middle
+    codes = np.zeros(X.size, dtype=np.intp)
+    m = group_moments(X, Y, codes, n_groups=1)
+    fit = fit_moments(m, method)
+    lines = {k: np.column_stack([fit_moments(m, meth)[k] for meth in METHODS])
+             for k in ("intercept", "slope", "resid_sd")}
+    acc = ResidualSums(intercept=lines["intercept"], slope=lines["slope"], mean_x=m.mean_x,
+                       mean_y=m.mean_y, sxx=m.sxx, syy=m.syy, sxy=m.sxy, n=m.n,
+                       resid_sd=lines["resid_sd"], log_base=10.0, influence_method=method,
+                       influence_slope=fit["slope"], slope_se=fit["slope_se"])
+    for start in range(0, X.size, 7):
+        sl = slice(start, start + 7)
+        acc.add(codes[sl], X[sl], Y[sl], np.arange(X.size)[sl])
+    res = acc.result()
+    ref = strong_influence(X, Y, method=method)
+    flagged = np.flatnonzero(ref["flag"])
+    flagged = flagged[np.argsort(-ref["cook"][flagged], kind="stable")][:TOP_K]
+    assert flagged.size >= 1
+    got = res.strong_rows[0][res.strong_rows[0] >= 0]
+    # internal consistency: the in-memory rule on the rows (scaling.stats.influence)
+    assert list(got) == list(flagged)
+    assert_allclose(res.strong_cooks[0][:got.size], ref["cook"][flagged], rtol=1e-9)
+    for k, i in enumerate(got):
+        keep = np.arange(X.size) != i
+        refit = fit_moments(moments(X[keep], Y[keep]), method)["slope"]
+        # exact law: the slope refitted to the sample without the point
+        assert_allclose(res.strong_slope_without[0][k], refit, rtol=1e-9)
+
+
+def test_group_residual_anova_equals_scipy_f_oneway():
+    from scaling.stats.streaming_residuals import GroupResidualSums
+    X, Y = _sample(n=200, seed=6)
+    g = np.arange(X.size) % 4
+    Y = Y + 0.05 * g                              # groups at slightly different elevations
+    m = group_moments(X, Y, g)
+    acc = GroupResidualSums(intercept=0.4, slope=0.8, mean_x=m.mean_x, mean_y=m.mean_y)
+    for start in range(0, X.size, 33):
+        sl = slice(start, start + 33)
+        acc.add(g[sl], X[sl], Y[sl])
+    out = acc.anova()
+    e = Y - 0.4 - 0.8 * X
+    ref = stats.f_oneway(*[e[g == k] for k in range(4)])
+    # reference library: scipy.stats.f_oneway on the residuals
+    assert_allclose([out["statistic"], out["p_value"]], [ref.statistic, ref.pvalue], rtol=1e-9)
+    assert (out["df1"], out["df2"]) == (3, 196)

@@ -42,7 +42,7 @@ from ..errors import ScalingError
 from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind, files_of,
                           read_chunks)
 from ..render.findings import check_verdict, point_check_reason
-from ..stats.influence import fit_checks
+from ..stats.influence import PointCheck, fit_checks
 from ..stats.line_results import line_fit_from_moments
 from ..stats.lines import exact_fit
 from ..stats.logscale import to_log
@@ -50,9 +50,11 @@ from ..stats.moment_curvature import local_exponents, quadratic_from_moments
 from ..stats.residual_checks import MIN_N, Check
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, INFLUENCE_COLUMNS,
                             POINTS_TO_CHECK_COLUMNS)
-from ..stats.streaming_residuals import TOP_K, ResidualSums, StreamedChecks
+from ..stats.streaming_residuals import (TOP_K, GroupResidualSums, ResidualSums,
+                                         StreamedChecks)
 from .diagnostics import exponent_targets
 from .moments_path import _sep
+from .points_to_check import primary_method
 from .predictions import predictions_from_factors, saved_fits_of
 
 __all__ = ["SecondPass", "second_pass", "residual_sums", "ROW_ONLY_STAGES"]
@@ -111,7 +113,7 @@ def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
     """Arrays (S, M) of intercept, slope and residual SD read from the fits table."""
     index = {k: i for i, k in enumerate(keys)}
     out = {c: np.full((len(keys), len(methods)), np.nan)
-           for c in ("intercept", "slope", "resid_sd")}
+           for c in ("intercept", "slope", "resid_sd", "slope_se")}
     for r in fits.itertuples(index=False):
         i = index.get((r.scope, r.group))
         if i is None or r.method not in methods:
@@ -126,13 +128,17 @@ def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
 # reading the rows again
 
 
-def _params(m, lines: dict, base) -> dict:
+def _params(m, lines: dict, base, methods: list, checked: str) -> dict:
+    """ResidualSums arguments; ``checked`` is the method whose strong points are listed."""
+    j = methods.index(checked)
     return dict(intercept=lines["intercept"], slope=lines["slope"], mean_x=m.mean_x,
                 mean_y=m.mean_y, sxx=m.sxx, syy=m.syy, sxy=m.sxy, n=m.n,
-                resid_sd=lines["resid_sd"], log_base=base)
+                resid_sd=lines["resid_sd"], log_base=base, influence_method=checked,
+                influence_slope=lines["slope"][:, j], slope_se=lines["slope_se"][:, j])
 
 
-def _feed(acc: ResidualSums, part, cfg, base, label_index, grouped: bool, first_row: int):
+def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: bool,
+          first_row: int):
     d = cfg.data
     c = clean_chunk(part, d.x, d.y, d.group, d.decimal)
     rows = first_row + np.arange(c.n_rows, dtype=np.int64) + 1      # 1-based data rows
@@ -147,48 +153,58 @@ def _feed(acc: ResidualSums, part, cfg, base, label_index, grouped: bool, first_
     X, Y = to_log(x, base), to_log(y, base)
     acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
     if grouped:
-        local = label_index.get_indexer(pd.Index(c.labels).astype(str))
-        acc.add(1 + local[codes], X, Y, rows)
+        local = label_index.get_indexer(pd.Index(c.labels).astype(str))[codes]
+        acc.add(1 + local, X, Y, rows)
+        between.add(local, X, Y)
     return c.n_rows
 
 
-def _partition_sums(pdf, cfg, base, params, labels, grouped):
+def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped):
     """The residual sums of one Dask partition (rows numbered from 1 within it)."""
     pdf.columns = [str(col).strip() for col in pdf.columns]
     acc = ResidualSums(**params)
-    n_rows = _feed(acc, pdf, cfg, base, pd.Index(labels), grouped, 0)
-    return acc, n_rows
+    between = GroupResidualSums(**between_params)
+    n_rows = _feed(acc, between, pdf, cfg, base, pd.Index(labels), grouped, 0)
+    return acc, between, n_rows
 
 
-def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base) -> tuple:
-    """Read the file again and return the filled :class:`ResidualSums` and the set keys."""
+def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str) -> tuple:
+    """Read the file again: the filled :class:`ResidualSums`, the group-residual sums of
+    the pooled ``checked`` line, the set keys and the sets' moments."""
     d = cfg.data
     grouped = bool(d.group)
     m, keys = _sets(gm, grouped)
-    params = _params(m, _lines(fits, keys, methods), base)
+    lines = _lines(fits, keys, methods)
+    params = _params(m, lines, base, methods, checked)
+    j = methods.index(checked)
+    between_params = dict(intercept=float(lines["intercept"][0, j]),
+                          slope=float(lines["slope"][0, j]),
+                          mean_x=gm.moments.mean_x, mean_y=gm.moments.mean_y)
     label_index = pd.Index(np.asarray(gm.labels, dtype=str))
     path = Path(d.file)
     kind = file_kind(path)
     columns = [d.x, d.y] + ([d.group] if d.group else [])
     sep = _sep(cfg)
     acc = ResidualSums(**params)
+    between = GroupResidualSums(**between_params)
     if cfg.engine == "dask":
         import dask   # the first pass has checked that it is installed
         parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
-        tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, list(label_index),
-                                               grouped) for p in parts]
+        tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, between_params,
+                                               list(label_index), grouped) for p in parts]
         offset = 0
-        for part, n_rows in dask_compute(tasks, cfg.scheduler):   # partitions in file order
-            part.top_rows = np.where(part.top_rows >= 0, part.top_rows + offset, -1)
+        for part, part_between, n_rows in dask_compute(tasks, cfg.scheduler):  # file order
+            part.offset_rows(offset)
             acc.merge(part)
+            between.merge(part_between)
             offset += n_rows
     else:
         offset = 0
         for file in files_of(path, kind):
             for part in read_chunks(file, kind, columns, d.chunk_size, "pandas", sep,
                                     d.decimal):
-                offset += _feed(acc, part, cfg, base, label_index, grouped, offset)
-    return acc, keys, m
+                offset += _feed(acc, between, part, cfg, base, label_index, grouped, offset)
+    return acc, (between if grouped else None), keys, m
 
 
 # --------------------------------------------------------------------------
@@ -213,7 +229,11 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     base : float or None
     """
     methods = list(dict.fromkeys(fits["method"]))
-    acc, keys, m = residual_sums(cfg, gm, fits, methods, base)
+    # the pooled line whose points are checked one by one, as in memory (points_to_check)
+    checked = primary_method(cfg)
+    if checked not in methods:
+        checked = methods[0]
+    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked)
     res = acc.result()
 
     # LineFits of every estimable fit (pooled ones as the path made them).
@@ -251,8 +271,10 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         diag, diag_notes = _diagnostics(cfg, res, m, keys, methods, all_fits, base)
         tables.update(diag)
         notes += diag_notes
-    tables["points_to_check"] = _points_to_check(predicted.fits, all_fits,
-                                                 tables.get("predictions"))
+    tables["points_to_check"] = _points_to_check(
+        predicted.fits, all_fits, tables.get("predictions"), res,
+        ("pooled", "", checked), between.anova() if between is not None else None,
+        cfg.diagnostics.alpha)
     notes.append(skipped_note())
     return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
                       checks=res, messages=predicted.messages, notes=tuple(notes))
@@ -390,8 +412,28 @@ def _checks(res: StreamedChecks, i: int, j: int, q, lx, exact: bool, top: float,
     return out
 
 
-def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds) -> pd.DataFrame:
-    """The fit-level rows of points_to_check (factors, estimates outside their interval)."""
+def _point_checks(res: StreamedChecks, fit, anova, alpha: float) -> list:
+    """Strong points of the pooled line and its residuals between groups (set 0)."""
+    out = []
+    for i in np.flatnonzero(res.strong_rows[0] >= 0):
+        out.append(PointCheck(severity="strong", kind="influence",
+                              row=int(res.strong_rows[0][i]), label="",
+                              value=float(res.strong_cooks[0][i]), method=fit.method,
+                              slope=float(fit.slope),
+                              slope_without=float(res.strong_slope_without[0][i]),
+                              slope_se=float(fit.slope_se)))
+    if anova is not None and np.isfinite(anova["p_value"]) and anova["p_value"] < alpha:
+        out.append(PointCheck(severity="mild", kind="group_residuals", row=None, label="",
+                              value=anova["p_value"], statistic=float(anova["statistic"]),
+                              df1=int(anova["df1"]), df2=int(anova["df2"])))
+    return out
+
+
+def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChecks,
+                     checked_key, anova, alpha: float) -> pd.DataFrame:
+    """points_to_check: the pooled line's strong points and residuals between groups,
+    and every fit's factor and interval checks (as :func:`scaling.stats.influence.points_to_check`
+    and :func:`~scaling.stats.influence.fit_checks`)."""
     records = []
     for r in fits.itertuples(index=False):
         key = (r.scope, r.group, r.method)
@@ -408,6 +450,9 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds) -> pd.DataFrame:
                                parametric_factor=r.parametric_factor, estimates=est)
         except ScalingError:
             continue
+        if key == checked_key and r.n >= MIN_N:
+            found = _point_checks(res, all_fits[key], anova, alpha) + found
+            found.sort(key=lambda c: c.severity != "strong")
         records += [{"scope": r.scope, "group": r.group, "method": r.method,
                      **c.to_record(), "reason": point_check_reason(c)} for c in found]
     table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)

@@ -42,6 +42,16 @@ Influence
     ranking needs no s^2, so each chunk keeps per set the k rows with the
     largest e_i^2 h_i / (1 - h_i)^2 (a bounded selection, ties by row
     number) and s^2 is applied at the end.
+Strong influence (the rule of :func:`scaling.stats.influence.strong_influence`)
+    With ``influence_method`` given, each row's leave-one-out slope of that
+    method comes from the set's moments downdated by the row (exact algebra
+    of centred sums, as :func:`scaling.stats.influence.leave_one_out_slopes`);
+    a row is strong when D_i > 1 or |b_(-i) - b| > se(b), and the k
+    strongest by Cook's distance are kept per set.
+Residuals between groups (:class:`GroupResidualSums`)
+    The one-way ANOVA F of one line's residuals across groups (as
+    ``scipy.stats.f_oneway`` on the rows), from per-group sums of residuals
+    centred on their known group means.
 """
 
 from __future__ import annotations
@@ -52,7 +62,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-__all__ = ["TOP_K", "ResidualSums", "StreamedChecks", "dagostino_pearson", "breusch_pagan"]
+from .influence import COOK_STRONG
+from .lines import METHODS, fit_moments
+from .moments import Moments
+
+__all__ = ["TOP_K", "ResidualSums", "StreamedChecks", "GroupResidualSums",
+           "dagostino_pearson", "breusch_pagan"]
 
 #: Most influential rows kept per point set (largest Cook's distance first).
 TOP_K = 10
@@ -80,6 +95,9 @@ class StreamedChecks:
     cooks_distance, cooks_rows : ndarray, shape (S, k)
         The k largest Cook's distances of each set (NaN-padded, largest
         first) and their row numbers (-1 padded).
+    strong_cooks, strong_rows, strong_slope_without : ndarray, shape (S, k)
+        The k strongest rows of each set under the strong-influence rule
+        (NaN / -1 padded; all padding without ``influence_method``).
     """
 
     n: np.ndarray
@@ -98,6 +116,9 @@ class StreamedChecks:
     bp_direction: np.ndarray
     cooks_distance: np.ndarray
     cooks_rows: np.ndarray
+    strong_cooks: np.ndarray
+    strong_rows: np.ndarray
+    strong_slope_without: np.ndarray
 
 
 class ResidualSums:
@@ -114,10 +135,15 @@ class ResidualSums:
     log_base : float or None
     k : int
         Influential rows kept per set.
+    influence_method : str, optional
+        Line method whose leave-one-out slopes give the strong-influence rows;
+        ``slope_se`` (S,) is then that method's slope standard error per set
+        and ``influence_slope`` (S,) its slope.
     """
 
     def __init__(self, *, intercept, slope, mean_x, mean_y, sxx, syy, sxy, n, resid_sd,
-                 log_base, k: int = TOP_K):
+                 log_base, k: int = TOP_K, influence_method: str | None = None,
+                 influence_slope=None, slope_se=None):
         self.a = np.atleast_2d(np.asarray(intercept, dtype=float))
         self.b = np.atleast_2d(np.asarray(slope, dtype=float))
         S, M = self.a.shape
@@ -142,6 +168,17 @@ class ResidualSums:
         self.so2 = np.zeros(S)            # sum of squared OLS residuals
         self.top_u = np.full((S, self.k), -np.inf)
         self.top_rows = np.full((S, self.k), -1, dtype=np.int64)
+        self.influence_method = influence_method
+        if influence_method is not None:
+            self.b_infl = np.asarray(influence_slope, dtype=float)
+            self.se_infl = np.asarray(slope_se, dtype=float)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                # s^2 of the OLS line from the moments: only decides the D > 1 flag
+                self.s2_moments = ((self.syy - self.sxy * self.sxy / self.sxx)
+                                   / (self.n_moments - 2))
+        self.strong_u = np.full((S, self.k), -np.inf)
+        self.strong_rows = np.full((S, self.k), -1, dtype=np.int64)
+        self.strong_loo = np.full((S, self.k), np.nan)
 
     # ------------------------------------------------------------------
     def add(self, codes, X, Y, rows) -> None:
@@ -180,14 +217,42 @@ class ResidualSums:
             h = 1.0 / self.n_moments[codes] + (X - self.mx[codes]) ** 2 / self.sxx[codes]
             u = eo * eo * h / (1.0 - h) ** 2
         self.so2 += np.bincount(codes, weights=eo * eo, minlength=S)
-        self._keep_top(codes, np.where(np.isfinite(u), u, -np.inf),
-                       np.asarray(rows, dtype=np.int64))
+        u = np.where(np.isfinite(u), u, -np.inf)
+        rows = np.asarray(rows, dtype=np.int64)
+        # Only rows that beat their set's k-th largest so far can enter (keeps the sort small).
+        live = u >= self.top_u[codes, -1]
+        self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
+        if self.influence_method is not None:
+            self._add_strong(codes, X, Y, u, rows)
 
-    def _keep_top(self, codes, u, rows) -> None:
-        S, k = self.top_u.shape
+    def _add_strong(self, codes, X, Y, u, rows) -> None:
+        """Rows under the strong-influence rule, with their leave-one-out slopes."""
+        n = self.n_moments[codes]
+        d, f = X - self.mx[codes], Y - self.my[codes]
+        k = n / (n - 1)
+        down = Moments(n=n - 1, mean_x=self.mx[codes] - d / (n - 1),
+                       mean_y=self.my[codes] - f / (n - 1), sxx=self.sxx[codes] - k * d * d,
+                       syy=self.syy[codes] - k * f * f, sxy=self.sxy[codes] - k * d * f)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            loo = METHODS[self.influence_method].slope(down)
+            cook = u / (2 * self.s2_moments[codes])
+            se = self.se_infl[codes]
+            flag = ((cook > COOK_STRONG) | (np.abs(loo - self.b_infl[codes]) > se)) & (se > 0)
+        if not flag.any():
+            return
+        idx = np.flatnonzero(flag)
+        # the run's own estimator for the rows kept (its notes and guards included)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            exact = np.asarray(fit_moments(down[idx], self.influence_method)["slope"], float)
+        self._keep_top(self.strong_u, self.strong_rows, self.strong_loo, codes[idx], u[idx],
+                       rows[idx], exact)
+
+    def _keep_top(self, heap_u, heap_rows, heap_extra, codes, u, rows, extra) -> None:
+        """Keep in ``heap_*`` (S, k) the k largest ``u`` per set (ties: smaller row first)."""
+        S, k = heap_u.shape
         all_codes = np.concatenate([np.repeat(np.arange(S), k), codes])
-        all_u = np.concatenate([self.top_u.ravel(), u])
-        all_rows = np.concatenate([self.top_rows.ravel(), rows])
+        all_u = np.concatenate([heap_u.ravel(), u])
+        all_rows = np.concatenate([heap_rows.ravel(), rows])
         order = np.lexsort((all_rows, -all_u, all_codes))
         sc = all_codes[order]
         first = np.searchsorted(sc, np.arange(S))
@@ -195,8 +260,10 @@ class ResidualSums:
         keep = order[rank < k]
         kc = all_codes[keep]
         slot = rank[rank < k]
-        self.top_u[kc, slot] = all_u[keep]
-        self.top_rows[kc, slot] = all_rows[keep]
+        heap_u[kc, slot] = all_u[keep]
+        heap_rows[kc, slot] = all_rows[keep]
+        if heap_extra is not None:
+            heap_extra[kc, slot] = np.concatenate([heap_extra.ravel(), extra])[keep]
 
     def merge(self, other: "ResidualSums") -> None:
         """Add another accumulator of the same lines (e.g. another Dask partition)."""
@@ -207,7 +274,17 @@ class ResidualSums:
         S, k = self.top_u.shape
         codes = np.repeat(np.arange(S), k)
         live = other.top_rows.ravel() >= 0
-        self._keep_top(codes[live], other.top_u.ravel()[live], other.top_rows.ravel()[live])
+        self._keep_top(self.top_u, self.top_rows, None, codes[live],
+                       other.top_u.ravel()[live], other.top_rows.ravel()[live], None)
+        live = other.strong_rows.ravel() >= 0
+        self._keep_top(self.strong_u, self.strong_rows, self.strong_loo, codes[live],
+                       other.strong_u.ravel()[live], other.strong_rows.ravel()[live],
+                       other.strong_loo.ravel()[live])
+
+    def offset_rows(self, offset: int) -> None:
+        """Shift the kept row numbers by ``offset`` (a Dask partition numbered from 1)."""
+        for rows in (self.top_rows, self.strong_rows):
+            rows[rows >= 0] += offset
 
     # ------------------------------------------------------------------
     def result(self) -> StreamedChecks:
@@ -235,14 +312,75 @@ class ResidualSums:
                 parametric = np.exp(self.resid_sd ** 2 * ln_base ** 2 / 2)
             s2 = self.so2 / (self.n - 2)
             cooks = self.top_u / (2 * s2[:, None])
+            strong = self.strong_u / (2 * s2[:, None])
         rows = self.top_rows.copy()
         cooks = np.where(rows >= 0, cooks, np.nan)
+        strong_rows = self.strong_rows.copy()
+        strong = np.where(strong_rows >= 0, strong, np.nan)
         return StreamedChecks(n=self.n.copy(), see=see, percent_see=percent_see,
                               percent_pe=percent_pe, smearing=smearing, ratio=ratio,
                               parametric=parametric, skewness=skew, kurtosis=kurt,
                               normality_statistic=k2, normality_p=p_norm, bp_statistic=lm,
                               bp_p=p_bp, bp_direction=direction, cooks_distance=cooks,
-                              cooks_rows=rows)
+                              cooks_rows=rows, strong_cooks=strong, strong_rows=strong_rows,
+                              strong_slope_without=np.where(strong_rows >= 0,
+                                                            self.strong_loo, np.nan))
+
+
+class GroupResidualSums:
+    """Per-group sums of one line's residuals, for the one-way ANOVA across groups.
+
+    Parameters
+    ----------
+    intercept, slope : float
+        The line (e.g. the pooled fit).
+    mean_x, mean_y : array_like, shape (G,)
+        Each group's means (from the moments), which give each group's mean
+        residual before the pass, so the sums are of centred values.
+    """
+
+    def __init__(self, *, intercept: float, slope: float, mean_x, mean_y):
+        self.centre = (np.asarray(mean_y, float) - intercept
+                       - slope * np.asarray(mean_x, float))
+        self.a, self.b = float(intercept), float(slope)
+        g = self.centre.size
+        self.n, self.s1, self.s2 = np.zeros(g), np.zeros(g), np.zeros(g)
+
+    def add(self, codes, X, Y) -> None:
+        """Add rows: group code (0..G-1), log x and log y of each."""
+        codes = np.asarray(codes, dtype=np.intp)
+        d = np.asarray(Y, float) - self.a - self.b * np.asarray(X, float) - self.centre[codes]
+        g = self.centre.size
+        self.n += np.bincount(codes, minlength=g)
+        self.s1 += np.bincount(codes, weights=d, minlength=g)
+        self.s2 += np.bincount(codes, weights=d * d, minlength=g)
+
+    def merge(self, other: "GroupResidualSums") -> None:
+        self.n += other.n
+        self.s1 += other.s1
+        self.s2 += other.s2
+
+    def anova(self) -> dict:
+        """``statistic, df1, df2, p_value`` of the one-way ANOVA over groups of >= 2 rows.
+
+        As ``scipy.stats.f_oneway`` on the residuals: F = (SSB/(k - 1)) /
+        (SSW/(N - k)); NaN with fewer than two such groups.
+        """
+        use = self.n >= 2
+        k = int(use.sum())
+        if k < 2:
+            return {"statistic": math.nan, "df1": k - 1, "df2": 0, "p_value": math.nan}
+        n, s1, s2 = self.n[use], self.s1[use], self.s2[use]
+        means = self.centre[use] + s1 / n
+        total = float(n.sum())
+        grand = float(np.sum(n * means) / total)
+        ssw = float(np.sum(s2 - s1 * s1 / n))
+        ssb = float(np.sum(n * (means - grand) ** 2))
+        df1, df2 = k - 1, int(total) - k
+        with np.errstate(divide="ignore", invalid="ignore"):
+            f = (ssb / df1) / (ssw / df2)
+        return {"statistic": f, "df1": df1, "df2": df2,
+                "p_value": float(stats.f.sf(f, df1, df2))}
 
 
 def dagostino_pearson(n, skewness, kurtosis):
