@@ -154,3 +154,18 @@ def test_points_to_check_of_the_pooled_line_equal_the_in_memory_road(runs):
     # internal consistency: leave-one-out refits and f_oneway on the rows in memory
     assert_allclose(mom["value"].to_numpy(float), mem["value"].to_numpy(float), rtol=1e-9)
     pd.testing.assert_frame_equal(mom.drop(columns="value"), mem.drop(columns="value"))
+
+
+def test_influence_verdicts_count_every_row_above_four_over_n(runs):
+    mem = runs["memory"].tables["diagnostics"]
+    mom = runs["moments"].tables["diagnostics"]
+    for frame in (mem, mom):
+        assert frame.columns.tolist()[-1] == "verdict"
+    pick = (mem["scope"] == "pooled") & (mem["check"] == "influence")
+    mine = (mom["scope"] == "pooled") & (mom["check"] == "influence")
+    # internal consistency: the in-memory verdict counts statsmodels' distances > 4/n
+    count = [v.split(" row(s)")[0] for v in mem.loc[pick, "verdict"]]
+    assert [v.split(" row(s)")[0] for v in mom.loc[mine, "verdict"]] == count
+    assert int(count[0]) > TOP_K
+    infl = [t for t in runs["moments"].messages if t.startswith("Influence:")]
+    assert infl and f"Influence: {count[0]} point(s)" in infl[0]

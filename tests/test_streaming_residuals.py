@@ -93,6 +93,8 @@ def test_residual_checks_equal_scipy_and_statsmodels(offset, split):
         # reference library: statsmodels OLSInfluence, the k largest Cook's distances
         assert_allclose(res.cooks_distance[s], cooks[order], rtol=1e-9)
         assert list(res.cooks_rows[s]) == list(rows[order])
+        # reference library: statsmodels' distances above the 4/n rule, all counted
+        assert res.n_influential[s] == np.sum(cooks > 4 / x.size)
         assert res.n[s] == x.size
 
 

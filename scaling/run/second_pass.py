@@ -41,13 +41,14 @@ import pandas as pd
 from ..errors import ScalingError
 from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind, files_of,
                           read_chunks)
-from ..render.findings import check_verdict, point_check_reason
+from ..render.findings import check_verdict, diagnostics_messages, point_check_reason
+from ..render.headline import answer_line
 from ..stats.influence import PointCheck, fit_checks
 from ..stats.line_results import line_fit_from_moments
 from ..stats.lines import exact_fit
 from ..stats.logscale import to_log
 from ..stats.moment_curvature import local_exponents, quadratic_from_moments
-from ..stats.residual_checks import MIN_N, Check
+from ..stats.residual_checks import MIN_N, Check, Curvature, Diagnostics
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, INFLUENCE_COLUMNS,
                             POINTS_TO_CHECK_COLUMNS)
 from ..stats.streaming_residuals import (TOP_K, GroupResidualSums, ResidualSums,
@@ -212,7 +213,7 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
 
 
 def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
-                base) -> SecondPass:
+                base, other_tables: dict | None = None) -> SecondPass:
     """Residual sums over a second read of the file, and the tables they give.
 
     Parameters
@@ -227,7 +228,11 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         predictions and saved fits.
     units : dict
     base : float or None
+    other_tables : dict, optional
+        The run's tables so far (``group_tests`` decides the answer's model,
+        whose checks the verdict sentences speak of).
     """
+    other_tables = other_tables or {}
     methods = list(dict.fromkeys(fits["method"]))
     # the pooled line whose points are checked one by one, as in memory (points_to_check)
     checked = primary_method(cfg)
@@ -267,30 +272,46 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
                                          extra=extra, units=units, base=base)
     tables = dict(predicted.tables)
     notes = list(predicted.notes)
-    if cfg.diagnostics.enabled:
-        diag, diag_notes = _diagnostics(cfg, res, m, keys, methods, all_fits, base)
-        tables.update(diag)
-        notes += diag_notes
+    messages = list(predicted.messages)
+    # before the diagnostics, whose words read it (as in memory)
     tables["points_to_check"] = _points_to_check(
         predicted.fits, all_fits, tables.get("predictions"), res,
         ("pooled", "", checked), between.anova() if between is not None else None,
         cfg.diagnostics.alpha)
-    notes.append(skipped_note())
+    if cfg.diagnostics.enabled:
+        diag, diag_notes, diag_messages = _diagnostics(cfg, res, m, keys, methods, all_fits,
+                                                       base, tables, other_tables)
+        tables.update(diag)
+        notes += diag_notes
+        messages += diag_messages
+    notes.append(skipped_note(cfg.diagnostics.enabled and cfg.diagnostics.error_structure))
     return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
-                      checks=res, messages=predicted.messages, notes=tuple(notes))
+                      checks=res, messages=tuple(messages), notes=tuple(notes))
 
 
-def skipped_note() -> str:
+def skipped_note(error_structure: bool = False) -> str:
     """The one note naming what the moments path leaves out."""
+    left = ROW_ONLY_STAGES + (("the additive-versus-multiplicative error comparison "
+                               "(an iterative fit on the natural scale)",)
+                              if error_structure else ())
     return ("The large-data path reads the rows twice (moments, then residual sums) and "
             "never holds them all, so it leaves out what needs every row at once: "
-            f"{', '.join(ROW_ONLY_STAGES)}; its normality check is D'Agostino-Pearson "
+            f"{', '.join(left)}; its normality check is D'Agostino-Pearson "
             "(residual skewness and kurtosis) instead of Shapiro-Wilk, and it lists at most "
             f"{TOP_K} influential rows per fit.")
 
 
-def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base) -> tuple:
-    """diagnostics, curvature and influential_rows tables from the sums and moments."""
+def _many_influential(n_above: int, rows) -> str:
+    """The influence verdict when more rows pass 4/n than the pass keeps."""
+    shown = ", ".join(str(r) for r in rows[:5])
+    return (f"{n_above} row(s) pull the line strongly (Cook's distance > 4/n): row {shown} "
+            f"and {n_above - min(len(rows), 5)} more; the {len(rows)} largest are in "
+            "influential_rows.csv; check them and refit without them to see the effect")
+
+
+def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tables: dict,
+                 other_tables: dict) -> tuple:
+    """diagnostics, curvature and influential_rows tables, notes and verdict sentences."""
     alpha = cfg.diagnostics.alpha
     n_groups = len(keys) - 1
     notes = []
@@ -306,6 +327,7 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base) -> 
         exact = np.asarray(exact_fit(m), dtype=bool)
     targets = exponent_targets(cfg)
     diag, infl, curv = [], [], []
+    results: dict = {}
     for i in todo:
         scope, group = keys[i]
         n = int(res.n[i])
@@ -323,12 +345,23 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base) -> 
         cooks = res.cooks_distance[i]
         above = np.flatnonzero(cooks > threshold)
         top = float(np.nanmax(cooks)) if np.isfinite(cooks).any() else math.nan
+        n_above = int(res.n_influential[i])
+        curvature = _curvature(q, lx, targets, base, exact[i], n, all_fits, keys[i], methods,
+                               fitted)
         for j in fitted:
             method = methods[j]
             checks = _checks(res, i, j, q, lx, exact[i], top, res.cooks_rows[i][above], alpha)
+            results[(scope, group, method)] = Diagnostics(
+                method=method, n=n, alpha=alpha, checks=tuple(checks), curvature=curvature,
+                residuals=np.empty(0), cooks_distance=cooks[np.isfinite(cooks)],
+                influence_threshold=threshold, influential_rows=checks[-1].rows,
+                rows=res.cooks_rows[i][res.cooks_rows[i] >= 0])
             for c in checks:
+                verdict = (_many_influential(n_above, c.rows)
+                           if c.check == "influence" and c.flagged and n_above > len(c.rows)
+                           else check_verdict(c))
                 diag.append({"scope": scope, "group": group, "method": method,
-                             **c.to_record(), "verdict": check_verdict(c)})
+                             **c.to_record(), "verdict": verdict})
             if not exact[i]:
                 for k in above:
                     infl.append({"scope": scope, "group": group, "method": method,
@@ -350,12 +383,53 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base) -> 
             else:
                 curv.append({**common, "exponent": np.nan, "x_at_exponent": np.nan,
                              "within_data": None})
-    tables = {
+    out = {
         "diagnostics": pd.DataFrame(diag, columns=DIAGNOSTIC_COLUMNS),
         "influential_rows": pd.DataFrame(infl, columns=INFLUENCE_COLUMNS),
         "curvature": pd.DataFrame(curv, columns=CURVATURE_COLUMNS),
     }
-    return tables, notes
+    answer = answer_line(other_tables.get("group_tests"), cfg.model.methods,
+                         getattr(cfg.model, "primary", None), cfg.model.confidence)
+    messages = diagnostics_messages(results, {}, {}, cfg, answer=answer,
+                                    points=tables.get("points_to_check")) if results else []
+    many = {(k[0], k[1]) for k, d in results.items()
+            if res.n_influential[keys.index(k[:2])] > len(d.influential_rows)}
+    if many:   # the count of the influence sentence is the pass's count, not the k kept
+        messages = [_recount(t, results, res, keys, answer) if t.startswith("Influence:")
+                    else t for t in messages]
+    return out, notes, messages
+
+
+def _recount(text: str, results: dict, res: StreamedChecks, keys, answer) -> str:
+    """The influence sentence with the rows above 4/n counted in the pass (not the k kept)."""
+    line, method = answer
+    if line == "groups":
+        chosen = [(g, d) for (s, g, m), d in results.items() if s == "group" and m == method]
+        kept = len({r for _, d in chosen for r in d.influential_rows})
+        total = int(sum(res.n_influential[keys.index(("group", g))] for g, _ in chosen))
+    else:
+        pooled = next((d for (s, _, _), d in results.items() if s == "pooled"), None)
+        kept = len(pooled.influential_rows) if pooled is not None else 0
+        total = int(res.n_influential[0])
+    if total <= kept:
+        return text
+    text = text.replace(f"Influence: {kept} point(s)", f"Influence: {total} point(s)", 1)
+    if kept > 4:
+        return text.replace(f" and {kept - 4} more.", f" and {total - 4} more.", 1)
+    return text
+
+
+def _curvature(q, lx, targets, base, exact: bool, n: int, all_fits, key, methods, fitted):
+    """The :class:`Curvature` record of one set (what the verdict sentences read)."""
+    if q is None or exact:
+        first = all_fits[(key[0], key[1], methods[fitted[0]])]
+        return Curvature(intercept=first.intercept, linear=first.slope, quadratic=0.0,
+                         quadratic_se=math.nan, statistic=math.nan, df=float(n - 3),
+                         p_value=math.nan, log_base=base, crossings=())
+    return Curvature(intercept=q["intercept"], linear=q["linear"], quadratic=q["quadratic"],
+                     quadratic_se=q["quadratic_se"], statistic=q["statistic"], df=q["df"],
+                     p_value=q["p_value"], log_base=base,
+                     crossings=tuple(_crossings(q, targets, lx, base)))
 
 
 def _crossings(q: dict, targets, lx, base) -> list:
@@ -462,7 +536,8 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
 
 def with_second_pass(result, cfg, gm, units, base):
     """``result`` (a RunResult of the moments path) with the second pass's tables."""
-    extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base)
+    extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
+                        other_tables=result.tables)
     return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
                    tables={**result.tables, **extra.tables},
                    messages=result.messages + extra.messages,

@@ -95,6 +95,8 @@ class StreamedChecks:
     cooks_distance, cooks_rows : ndarray, shape (S, k)
         The k largest Cook's distances of each set (NaN-padded, largest
         first) and their row numbers (-1 padded).
+    n_influential : ndarray, shape (S,)
+        Rows with Cook's distance above 4/n (all of them, not only the k kept).
     strong_cooks, strong_rows, strong_slope_without : ndarray, shape (S, k)
         The k strongest rows of each set under the strong-influence rule
         (NaN / -1 padded; all padding without ``influence_method``).
@@ -116,6 +118,7 @@ class StreamedChecks:
     bp_direction: np.ndarray
     cooks_distance: np.ndarray
     cooks_rows: np.ndarray
+    n_influential: np.ndarray
     strong_cooks: np.ndarray
     strong_rows: np.ndarray
     strong_slope_without: np.ndarray
@@ -172,10 +175,11 @@ class ResidualSums:
         if influence_method is not None:
             self.b_infl = np.asarray(influence_slope, dtype=float)
             self.se_infl = np.asarray(slope_se, dtype=float)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                # s^2 of the OLS line from the moments: only decides the D > 1 flag
-                self.s2_moments = ((self.syy - self.sxy * self.sxy / self.sxx)
-                                   / (self.n_moments - 2))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            # s^2 of the OLS line from the moments: only decides the flags D > 4/n and D > 1
+            self.s2_moments = ((self.syy - self.sxy * self.sxy / self.sxx)
+                               / (self.n_moments - 2))
+        self.n_above = np.zeros(S)        # rows with Cook's distance > 4/n
         self.strong_u = np.full((S, self.k), -np.inf)
         self.strong_rows = np.full((S, self.k), -1, dtype=np.int64)
         self.strong_loo = np.full((S, self.k), np.nan)
@@ -219,6 +223,9 @@ class ResidualSums:
         self.so2 += np.bincount(codes, weights=eo * eo, minlength=S)
         u = np.where(np.isfinite(u), u, -np.inf)
         rows = np.asarray(rows, dtype=np.int64)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            above = u / (2 * self.s2_moments[codes]) > 4.0 / self.n_moments[codes]
+        self.n_above += np.bincount(codes, weights=above, minlength=S)
         # Only rows that beat their set's k-th largest so far can enter (keeps the sort small).
         live = u >= self.top_u[codes, -1]
         self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
@@ -271,6 +278,7 @@ class ResidualSums:
         for key in _SUMS:
             self.sums[key] += other.sums[key]
         self.so2 += other.so2
+        self.n_above += other.n_above
         S, k = self.top_u.shape
         codes = np.repeat(np.arange(S), k)
         live = other.top_rows.ravel() >= 0
@@ -322,7 +330,8 @@ class ResidualSums:
                               parametric=parametric, skewness=skew, kurtosis=kurt,
                               normality_statistic=k2, normality_p=p_norm, bp_statistic=lm,
                               bp_p=p_bp, bp_direction=direction, cooks_distance=cooks,
-                              cooks_rows=rows, strong_cooks=strong, strong_rows=strong_rows,
+                              cooks_rows=rows, n_influential=self.n_above.copy(),
+                              strong_cooks=strong, strong_rows=strong_rows,
                               strong_slope_without=np.where(strong_rows >= 0,
                                                             self.strong_loo, np.nan))
 
