@@ -50,8 +50,6 @@ __all__ = ["use_moments_path", "MomentsStage", "moments_stage", "SpreadStage", "
 #: Line methods whose per-group exponents carry a standard error for the spread summary.
 SPREAD_METHODS = ("ols", "sma", "ma")
 
-_ROW_STAGES = "bootstrap and permutations"   # the second pass does the residual checks
-
 
 # --------------------------------------------------------------------------
 # wording
@@ -305,8 +303,8 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     if others:
         notes.append(f"Row-based methods not fitted on the large-data path: "
                      f"{', '.join(others)}.")
-    notes.append(f"Stages that need the rows were skipped on the large-data path: "
-                 f"{_ROW_STAGES}, the line through the group means and the group comparison tests.")
+    notes.append("Stages that need the rows were skipped on the large-data path: "
+                 "the line through the group means and the group comparison tests.")
 
     drawable = tuple(k for k in cfg.figures.kinds if k in ("scaling", "exponents"))
     if drawable != tuple(cfg.figures.kinds):

@@ -44,8 +44,8 @@ from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind,
 from ..render.findings import check_verdict, diagnostics_messages, point_check_reason
 from ..render.headline import answer_line
 from ..stats.influence import PointCheck, fit_checks
-from ..stats.line_results import line_fit_from_moments
-from ..stats.lines import exact_fit
+from ..stats.line_results import line_fit_from_result
+from ..stats.lines import exact_fit, fit_moments
 from ..stats.logscale import to_log
 from ..stats.moment_curvature import local_exponents, quadratic_from_moments
 from ..stats.residual_checks import MIN_N, Check, Curvature, Diagnostics
@@ -241,17 +241,21 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked)
     res = acc.result()
 
-    # LineFits of every estimable fit (pooled ones as the path made them).
+    # LineFits of every estimable fit (pooled ones as the path made them); each method
+    # fitted to every set in one vectorised call, then packaged set by set.
     all_fits = dict(line_fits)
     rng = {(r.scope, r.group, r.method): r for r in fits.itertuples(index=False)}
-    for i, (scope, group) in enumerate(keys):
-        for method in methods:
+    for method in methods:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fitted = fit_moments(m, method, confidence=cfg.model.confidence)
+        for i, (scope, group) in enumerate(keys):
             key = (scope, group, method)
             r = rng.get(key)
             if key in all_fits or r is None or not np.isfinite(r.slope):
                 continue
-            all_fits[key] = line_fit_from_moments(
-                m[i], method, confidence=cfg.model.confidence, log_base=base,
+            all_fits[key] = line_fit_from_result(
+                fitted, i, m[i], method, confidence=cfg.model.confidence, log_base=base,
                 x_range=(r.x_min, r.x_max), y_range=(r.y_min, r.y_max))
     extra = {}
     for i, (scope, group) in enumerate(keys):
@@ -367,22 +371,17 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tab
                     infl.append({"scope": scope, "group": group, "method": method,
                                  "row": int(res.cooks_rows[i][k]), "label": "",
                                  "cooks_distance": float(cooks[k])})
-        if q is not None:
-            e_lo, e_hi = local_exponents(q, lx) if not exact[i] else (math.nan, math.nan)
-            common = {"scope": scope, "group": group, "n": n,
-                      "quadratic": q["quadratic"] if not exact[i] else 0.0,
-                      "quadratic_se": q["quadratic_se"] if not exact[i] else math.nan,
-                      "statistic": q["statistic"] if not exact[i] else math.nan,
-                      "df": q["df"], "p_value": q["p_value"] if not exact[i] else math.nan,
-                      "exponent_at_x_min": e_lo, "exponent_at_x_max": e_hi}
-            crossings = _crossings(q, targets, lx, base) if not exact[i] else []
-            if crossings:
-                for target, xs, inside in crossings:
-                    curv.append({**common, "exponent": target, "x_at_exponent": xs,
-                                 "within_data": inside})
-            else:
-                curv.append({**common, "exponent": np.nan, "x_at_exponent": np.nan,
-                             "within_data": None})
+        e_lo, e_hi = (float(v) for v in curvature.local_exponent(lx))
+        common = {"scope": scope, "group": group, "n": n, "quadratic": curvature.quadratic,
+                  "quadratic_se": curvature.quadratic_se, "statistic": curvature.statistic,
+                  "df": curvature.df, "p_value": curvature.p_value, "exponent_at_x_min": e_lo,
+                  "exponent_at_x_max": e_hi}
+        for target, xs, inside in curvature.crossings:
+            curv.append({**common, "exponent": target, "x_at_exponent": xs,
+                         "within_data": inside})
+        if not curvature.crossings:
+            curv.append({**common, "exponent": np.nan, "x_at_exponent": np.nan,
+                         "within_data": None})
     out = {
         "diagnostics": pd.DataFrame(diag, columns=DIAGNOSTIC_COLUMNS),
         "influential_rows": pd.DataFrame(infl, columns=INFLUENCE_COLUMNS),
@@ -392,9 +391,9 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tab
                          getattr(cfg.model, "primary", None), cfg.model.confidence)
     messages = diagnostics_messages(results, {}, {}, cfg, answer=answer,
                                     points=tables.get("points_to_check")) if results else []
-    many = {(k[0], k[1]) for k, d in results.items()
-            if res.n_influential[keys.index(k[:2])] > len(d.influential_rows)}
-    if many:   # the count of the influence sentence is the pass's count, not the k kept
+    where = {k: i for i, k in enumerate(keys)}
+    if any(res.n_influential[where[k[:2]]] > len(d.influential_rows)
+           for k, d in results.items()):   # the sentence counts every row, not the k kept
         messages = [_recount(t, results, res, keys, answer) if t.startswith("Influence:")
                     else t for t in messages]
     return out, notes, messages
@@ -406,7 +405,8 @@ def _recount(text: str, results: dict, res: StreamedChecks, keys, answer) -> str
     if line == "groups":
         chosen = [(g, d) for (s, g, m), d in results.items() if s == "group" and m == method]
         kept = len({r for _, d in chosen for r in d.influential_rows})
-        total = int(sum(res.n_influential[keys.index(("group", g))] for g, _ in chosen))
+        where = {k: i for i, k in enumerate(keys)}
+        total = int(sum(res.n_influential[where[("group", g)]] for g, _ in chosen))
     else:
         pooled = next((d for (s, _, _), d in results.items() if s == "pooled"), None)
         kept = len(pooled.influential_rows) if pooled is not None else 0
@@ -509,16 +509,17 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
     and every fit's factor and interval checks (as :func:`scaling.stats.influence.points_to_check`
     and :func:`~scaling.stats.influence.fit_checks`)."""
     records = []
+    estimates: dict = {}      # (scope, group, method) -> the predictions' estimates, once
+    if preds is not None and len(preds):
+        for p in preds[["scope", "group", "method", "x", "y", "y_low", "y_high"]].itertuples(
+                index=False):
+            estimates.setdefault((p.scope, p.group, p.method), []).append(
+                (f"at x = {p.x:g} ", p.y, p.y_low, p.y_high))
     for r in fits.itertuples(index=False):
         key = (r.scope, r.group, r.method)
         if key not in all_fits or not np.isfinite(getattr(r, "smearing_factor", math.nan)):
             continue
-        est = ()
-        if preds is not None and len(preds):
-            mine = preds[(preds["scope"] == r.scope) & (preds["group"] == r.group)
-                         & (preds["method"] == r.method)]
-            est = [(f"at x = {p.x:g} ", p.y, p.y_low, p.y_high)
-                   for p in mine.itertuples(index=False)]
+        est = estimates.get(key, ())
         try:
             found = fit_checks(smearing_factor=r.smearing_factor,
                                parametric_factor=r.parametric_factor, estimates=est)
