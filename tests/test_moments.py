@@ -288,3 +288,34 @@ class TestCurvatureFromMoments:
             # internal consistency: the in-memory road's curvature test on the rows
             for key in ("quadratic", "linear", "quadratic_se", "statistic", "p_value"):
                 assert_allclose(q[key][0], ref[key], rtol=1e-9, err_msg=f"{key} at {offset}")
+
+    def test_common_quadratic_with_group_elevations_equals_statsmodels(self):
+        import statsmodels.api as sm
+        from scaling.stats.moment_curvature import within_quadratic_from_moments
+        from scaling.stats.moments import combine_moments
+        from scaling.stats.residual_checks import within_quadratic_t
+        rng = np.random.default_rng(21)
+        sizes = (12, 40, 7, 90)
+        g = np.repeat(np.arange(4), sizes)
+        for offset in (0.0, 12.0):
+            x = offset + rng.uniform(0, 3, g.size) + 0.4 * g
+            c = x - offset
+            y = 0.2 * g + 0.7 * c + 0.05 * c * c + rng.normal(0, 0.1, g.size)
+            # each group read in two parts and merged, as chunks are
+            half = (np.arange(g.size) % 2) + 2 * g
+            parts = group_moments(x, y, half, n_groups=8, higher=True)
+            m = combine_moments(parts, np.arange(8) // 2, n_groups=4)
+            q = within_quadratic_from_moments(m)
+            ref = within_quadratic_t(x, y, g)
+            for key in ("linear", "quadratic", "quadratic_se", "statistic", "p_value", "df"):
+                # internal consistency: the in-memory parallel-lines curvature test
+                assert_allclose(q[key], ref[key], rtol=1e-9, err_msg=f"{key} at {offset}")
+            if offset == 0.0:
+                dummies = (g[:, None] == np.arange(4)).astype(float)
+                design = np.column_stack([dummies, x, x * x])
+                fit = sm.OLS(y, design).fit()
+                # reference library: statsmodels OLS with one dummy per group
+                assert_allclose(q["quadratic"], fit.params[5], rtol=1e-9)
+                assert_allclose(q["linear"], fit.params[4], rtol=1e-9)
+                assert_allclose(q["statistic"], fit.tvalues[5], rtol=1e-9)
+                assert_allclose(q["df"], fit.df_resid)
