@@ -193,28 +193,28 @@ class ResidualSums:
         X, Y = np.asarray(X, float), np.asarray(Y, float)
         S, M = self.shape
         self.n += np.bincount(codes, minlength=S)
-        e = Y[:, None] - self.a[codes] - self.b[codes] * X[:, None]         # (rows, M)
-        d = e - self.mean_e[codes]
-        d2 = d * d
-        e2 = e * e
-        w = e2 - self.mean_e2[codes]
-        xc = (X - self.mx[codes])[:, None]
-        values = {"se2": e2, "sd2": d2, "sd3": d2 * d, "sd4": d2 * d2, "bw": w,
-                  "bww": w * w, "bwx": w * xc}
+        xc = X - self.mx[codes]
         if self.base is not None:
             ln_base = math.log(self.base)
-            be = np.exp(e * ln_base)
-            line = Y[:, None] - e
-            # Natural y and yhat scaled by a common power per set (the ratio is
-            # unchanged by it), so values near 1e+-12 neither overflow nor underflow.
-            top = self.my[codes][:, None]
-            values.update({"smear": be, "spe": np.abs(be - 1.0),
-                           "sy": np.broadcast_to(np.exp((Y[:, None] - top) * ln_base), e.shape),
-                           "syhat": np.exp((line - top) * ln_base)})
-        flat = (codes[:, None] + S * np.arange(M)).ravel()
-        for key, v in values.items():
-            self.sums[key] += np.bincount(flat, weights=v.ravel(),
-                                          minlength=S * M).reshape(M, S).T
+            # Natural y scaled by a common power per set (the ratio is unchanged by it),
+            # so values near 1e+-12 neither overflow nor underflow.
+            y_scaled = np.exp((Y - self.my[codes]) * ln_base)
+            sy = np.bincount(codes, weights=y_scaled, minlength=S)
+        for j in range(M):   # one method at a time: 1-d arrays, gathers from 1-d tables
+            e = Y - self.a[:, j][codes] - self.b[:, j][codes] * X
+            d = e - self.mean_e[:, j][codes]
+            d2 = d * d
+            e2 = e * e
+            w = e2 - self.mean_e2[:, j][codes]
+            values = {"se2": e2, "sd2": d2, "sd3": d2 * d, "sd4": d2 * d2, "bw": w,
+                      "bww": w * w, "bwx": w * xc}
+            if self.base is not None:
+                be = np.exp(e * ln_base)
+                values.update({"smear": be, "spe": np.abs(be - 1.0),
+                               "syhat": y_scaled / be})   # yhat = y / base^e
+                self.sums["sy"][:, j] += sy
+            for key, v in values.items():
+                self.sums[key][:, j] += np.bincount(codes, weights=v, minlength=S)
         # Cook's distance up to each set's factor 1 / (2 s^2).
         with np.errstate(divide="ignore", invalid="ignore"):
             eo = Y - self.a_ols[codes] - self.b_ols[codes] * X
