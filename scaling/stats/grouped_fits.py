@@ -237,7 +237,7 @@ class MomentAccumulator:
         k = len(new_labels)
         self.index = self.index.append(new_labels)
         fill = {"n": 0.0, "mean_x": np.nan, "mean_y": np.nan, "sxx": 0.0, "syy": 0.0,
-                "sxy": 0.0, **{k: 0.0 for k in HIGHER_KEYS}}
+                "sxy": 0.0, **{name: 0.0 for name in HIGHER_KEYS}}
         for key in _MOMENT_KEYS:
             self.m[key] = np.concatenate([self.m[key], np.full(k, fill[key])])
         for i, start in enumerate((np.inf, -np.inf, np.inf, -np.inf)):
