@@ -121,11 +121,13 @@ class TestAnalyseMoments:
         on_disk = pd.read_csv(written.out_dir / "dropped_counts.csv")
         assert list(on_disk.columns) == ["reason", "rows"] and on_disk["rows"].sum() == 10
 
-    def test_row_stages_are_skipped_with_a_note(self, data_files):
+    def test_what_needs_every_row_at_once_is_skipped_with_a_note(self, data_files):
         tmp, csv, _, _ = data_files
         res = _run(_cfg(csv, tmp, data={"moments_above_mb": 1e-6}))
-        assert "diagnostics" not in res.tables
-        assert any("Stages that need the rows were skipped" in w for w in res.warnings)
+        # the second pass gives the residual checks; the bootstrap needs every row
+        assert "diagnostics" in res.tables and "bootstrap" not in res.tables
+        assert any("row bootstrap, permutation tests, row-based robust lines" in w
+                   for w in res.warnings)
 
     def test_only_row_methods_is_an_error(self, data_files):
         tmp, csv, _, _ = data_files

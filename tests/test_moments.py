@@ -156,3 +156,166 @@ class TestCorrelationProperty:
         assume(np.std(y) > 1e-6 * (1 + np.max(np.abs(y))))
         # reference library: numpy.corrcoef
         assert_allclose(moments(x, y).r, np.corrcoef(x, y)[0, 1], rtol=1e-9, atol=1e-9)
+
+
+# --------------------------------------------------------------------------
+# higher sums (sxxx, sxxxx, sxxy): exact merging and the curvature test from moments
+
+
+def _numpy_higher(x: np.ndarray, y: np.ndarray) -> dict:
+    """Reference: the higher centred sums written directly with numpy (two passes)."""
+    dx, dy = x - np.mean(x), y - np.mean(y)
+    return {"sxxx": np.sum(dx ** 3), "sxxxx": np.sum(dx ** 4), "sxxy": np.sum(dx * dx * dy)}
+
+
+#: Merged sums agree with the one-pass sums to MERGE_TOL of the sum of the
+#: absolute terms (a few hundred float64 rounding errors, eps = 2.2e-16), plus
+#: what moving the centres by CENTRE_TOL (1 + |log|) changes: logs near +-12 are
+#: stored to about 12 eps = 2.7e-15, so any two ways of computing a mean differ
+#: by some eps of the offset, and a centred power inherits that (common
+#: practice of rounding-error analysis, no source).
+MERGE_TOL = 1e-11
+CENTRE_TOL = 1e-13
+
+_POWERS = {"sxx": (2, 0), "syy": (0, 2), "sxy": (1, 1), "sxxx": (3, 0), "sxxxx": (4, 0),
+           "sxxy": (2, 1)}
+
+
+def _tolerance(x: np.ndarray, y: np.ndarray) -> dict:
+    """Allowed difference of each sum: the sum of |terms| with the centres moved."""
+    shift = CENTRE_TOL * (1 + max(np.max(np.abs(x)), np.max(np.abs(y))))
+    dx, dy = np.abs(x - np.mean(x)), np.abs(y - np.mean(y))
+    out = {}
+    for key, (p, q) in _POWERS.items():
+        plain = np.sum(dx ** p * dy ** q)
+        moved = np.sum((dx + shift) ** p * (dy + shift) ** q)
+        out[key] = MERGE_TOL * plain + (moved - plain) + 1e-300
+    return out
+
+
+class TestHigherMomentMerge:
+    @settings(max_examples=150, deadline=None)
+    @given(n=st.integers(4, 60), offset=st.sampled_from([-12.0, 0.0, 12.0]),
+           spread=st.sampled_from([1e-3, 0.3, 3.0]), seed=st.integers(0, 2**32 - 1),
+           n_cuts=st.integers(0, 8), n_groups=st.integers(1, 4))
+    def test_any_split_merges_to_the_one_pass_sums(self, n, offset, spread, seed, n_cuts,
+                                                   n_groups):
+        from scaling.stats.moments import combine_moments, merge_moments
+        rng = np.random.default_rng(seed)
+        # logs near -12, 0 or +12 (data near 1e-12, 1 or 1e12)
+        x = offset + spread * rng.standard_normal(n)
+        y = -offset + 0.7 * (x - offset) + spread * rng.standard_normal(n)
+        labels = rng.integers(0, n_groups, n)
+        cuts = np.sort(rng.integers(0, n + 1, n_cuts))
+        pieces = np.split(np.arange(n), cuts)
+        one = group_moments(x, y, labels, n_groups=n_groups, higher=True)
+        running = None
+        parts, part_codes = [], []
+        for idx in pieces:
+            m = group_moments(x[idx], y[idx], labels[idx], n_groups=n_groups, higher=True)
+            running = m if running is None else merge_moments(running, m)
+            parts.append(m)
+            part_codes.append(np.arange(n_groups))
+        stacked = Moments(**{k: np.concatenate([getattr(p, k) for p in parts])
+                             for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy",
+                                       "sxxx", "sxxxx", "sxxy")})
+        combined = combine_moments(stacked, np.concatenate(part_codes), n_groups=n_groups)
+        for g in range(n_groups):
+            sel = labels == g
+            if not sel.any():
+                continue
+            ref = {**_numpy_higher(x[sel], y[sel])}
+            tol = _tolerance(x[sel], y[sel])
+            for merged in (running, combined, one):
+                for key, value in ref.items():
+                    # reference library: numpy sums of centred powers, two passes
+                    assert abs(getattr(merged, key)[g] - value) <= tol[key], key
+                for key in ("sxx", "syy", "sxy"):
+                    # internal consistency: the second-order sums merge as before
+                    assert abs(getattr(merged, key)[g] - getattr(one, key)[g]) <= tol[key], key
+
+    def test_merge_without_higher_sums_keeps_old_behaviour(self):
+        from scaling.stats.moments import merge_moments
+        rng = np.random.default_rng(3)
+        x, y = rng.normal(size=20), rng.normal(size=20)
+        a, b = moments(x[:7], y[:7]), moments(x[7:], y[7:])
+        m = merge_moments(a, b)
+        assert m.sxxx is None and not m.has_higher
+        # reference library: numpy sums of the whole sample
+        _assert_moments_close(m, _numpy_moments(x, y), rtol=1e-12)
+
+
+class TestCurvatureFromMoments:
+    def _data(self, offset=0.0, n=300, seed=5):
+        rng = np.random.default_rng(seed)
+        x = offset + rng.uniform(0, 4, n)
+        c = x - offset
+        y = 1.0 + 0.75 * c + 0.04 * c * c + rng.normal(0, 0.2, n)
+        return x, y
+
+    def test_equals_statsmodels_quadratic_ols(self):
+        import statsmodels.api as sm
+        from scaling.stats.moment_curvature import quadratic_from_moments
+        from scaling.stats.grouped_fits import MomentAccumulator
+        x, y = self._data()
+        acc = MomentAccumulator()     # chunked, as the large-data road reads
+        import pandas as pd
+        for start in range(0, x.size, 37):
+            sl = slice(start, start + 37)
+            acc.add_rows(pd.Index([""]), None, x[sl], y[sl], None, None)
+        q = quadratic_from_moments(acc.result(None).moments)
+        fit = sm.OLS(y, np.column_stack([np.ones(x.size), x, x * x])).fit()
+        # reference library: statsmodels OLS of Y on (1, X, X^2)
+        assert_allclose(q["quadratic"][0], fit.params[2], rtol=1e-9)
+        assert_allclose(q["linear"][0], fit.params[1], rtol=1e-9)
+        assert_allclose(q["intercept"][0], fit.params[0], rtol=1e-9)
+        assert_allclose(q["quadratic_se"][0], fit.bse[2], rtol=1e-9)
+        assert_allclose(q["statistic"][0], fit.tvalues[2], rtol=1e-9)
+        assert_allclose(q["p_value"][0], fit.pvalues[2], rtol=1e-9)
+        assert q["df"][0] == fit.df_resid
+
+    def test_equals_the_in_memory_test_far_from_zero(self):
+        from scaling.stats.moment_curvature import quadratic_from_moments
+        from scaling.stats.moments import combine_moments
+        from scaling.stats.residual_checks import quadratic_t
+        for offset in (-12.0, 12.0):
+            x, y = self._data(offset=offset, n=250, seed=9)
+            labels = np.arange(x.size) % 5         # five parts, merged
+            parts = group_moments(x, y, labels, higher=True)
+            m = combine_moments(parts, np.zeros(5, dtype=np.intp), n_groups=1)
+            q = quadratic_from_moments(m)
+            ref = quadratic_t(x, y)
+            # internal consistency: the in-memory road's curvature test on the rows
+            for key in ("quadratic", "linear", "quadratic_se", "statistic", "p_value"):
+                assert_allclose(q[key][0], ref[key], rtol=1e-9, err_msg=f"{key} at {offset}")
+
+    def test_common_quadratic_with_group_elevations_equals_statsmodels(self):
+        import statsmodels.api as sm
+        from scaling.stats.moment_curvature import within_quadratic_from_moments
+        from scaling.stats.moments import combine_moments
+        from scaling.stats.residual_checks import within_quadratic_t
+        rng = np.random.default_rng(21)
+        sizes = (12, 40, 7, 90)
+        g = np.repeat(np.arange(4), sizes)
+        for offset in (0.0, 12.0):
+            x = offset + rng.uniform(0, 3, g.size) + 0.4 * g
+            c = x - offset
+            y = 0.2 * g + 0.7 * c + 0.05 * c * c + rng.normal(0, 0.1, g.size)
+            # each group read in two parts and merged, as chunks are
+            half = (np.arange(g.size) % 2) + 2 * g
+            parts = group_moments(x, y, half, n_groups=8, higher=True)
+            m = combine_moments(parts, np.arange(8) // 2, n_groups=4)
+            q = within_quadratic_from_moments(m)
+            ref = within_quadratic_t(x, y, g)
+            for key in ("linear", "quadratic", "quadratic_se", "statistic", "p_value", "df"):
+                # internal consistency: the in-memory parallel-lines curvature test
+                assert_allclose(q[key], ref[key], rtol=1e-9, err_msg=f"{key} at {offset}")
+            if offset == 0.0:
+                dummies = (g[:, None] == np.arange(4)).astype(float)
+                design = np.column_stack([dummies, x, x * x])
+                fit = sm.OLS(y, design).fit()
+                # reference library: statsmodels OLS with one dummy per group
+                assert_allclose(q["quadratic"], fit.params[5], rtol=1e-9)
+                assert_allclose(q["linear"], fit.params[4], rtol=1e-9)
+                assert_allclose(q["statistic"], fit.tvalues[5], rtol=1e-9)
+                assert_allclose(q["df"], fit.df_resid)

@@ -58,8 +58,6 @@ __all__ = ["use_moments_path", "MomentsStage", "moments_stage", "moments_group_s
 #: Line methods whose per-group exponents carry a standard error for the spread summary.
 SPREAD_METHODS = ("ols", "sma", "ma")
 
-_ROW_STAGES = "residual diagnostics, smearing and accuracy, influence, bootstrap and permutations"
-
 
 # --------------------------------------------------------------------------
 # wording
@@ -228,8 +226,8 @@ class MomentsStage:
     messages, notes : tuple of str
     manifest : dict
         The run's manifest entries of this path (``large_data``).
-    moments : GroupedMoments
-        The per-group moments everything here was computed from.
+    moments : GroupedMoments or None
+        The per-group moments the fits came from (read again by the second pass).
     """
 
     config: object
@@ -241,7 +239,7 @@ class MomentsStage:
     messages: tuple = ()
     notes: tuple = ()
     manifest: dict
-    moments: object = None
+    moments: object = None   # the second pass (run/second_pass.py) reads them
 
 
 def moments_stage(cfg, reason: str) -> MomentsStage:
@@ -303,11 +301,6 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     if others:
         notes.append(f"Row-based methods not fitted on the large-data path: "
                      f"{', '.join(others)}.")
-    notes.append(f"Stages that need the rows were skipped on the large-data path: "
-                 f"{_ROW_STAGES}.")
-    if cfg.prediction.x or cfg.prediction.y:
-        notes.append("Predictions were not made on the large-data path (they need the "
-                     "residuals for the back-transformation).")
 
     drawable = tuple(k for k in cfg.figures.kinds if k in ("scaling", "exponents"))
     if drawable != tuple(cfg.figures.kinds):

@@ -49,7 +49,9 @@ from .points_to_check import check_run
 from .predictions import prediction_stage
 from .reading import read_stage
 from .resampling import resampling_stage
+from .second_pass import with_second_pass
 from .several_predictors import several_stage
+from ..stats.logscale import parse_log_base
 from .state import RunState
 
 # The column lists, CAUTION, write_outputs and results_document are imported
@@ -252,12 +254,15 @@ def _moments_run(cfg, reason: str) -> RunResult:
         path = with_groups(path, moments_group_stage(cfg, path), cfg)
     state = RunState(data=path.data, base=None, fits=path.fits)
     spread = spread_stage(cfg, state)
-    return RunResult(config=cfg, data=path.data, fits=path.fits,
-                     slope_tests=path.slope_tests, dropped=path.data.dropped,
-                     line_fits=path.line_fits, tables={**path.tables, **spread.tables},
-                     messages=path.messages + spread.messages,
-                     warnings=path.notes + spread.notes,
-                     manifest={**manifest_header(cfg), **path.manifest})
+    result = RunResult(config=cfg, data=path.data, fits=path.fits,
+                       slope_tests=path.slope_tests, dropped=path.data.dropped,
+                       line_fits=path.line_fits, tables={**path.tables, **spread.tables},
+                       messages=path.messages + spread.messages,
+                       warnings=path.notes + spread.notes,
+                       manifest={**manifest_header(cfg), **path.manifest})
+    # The second pass over the file: correction factors, residual checks, predictions.
+    return with_second_pass(result, cfg, path.moments, path.data.units,
+                            parse_log_base(cfg.model.log_base))
 
 
 def write_outputs(result: RunResult, out_dir, *, force: bool = False, worker=None) -> RunResult:

@@ -42,7 +42,8 @@ from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary, predicting_method, prediction_sentence
 from .several_predictors import constant_columns, constant_sentence
 
-__all__ = ["PredictionStage", "prediction_stage", "accuracy_and_factors",
+__all__ = ["PredictionStage", "prediction_stage", "predictions_from_factors",
+           "saved_fits_of", "accuracy_and_factors",
            "add_accuracy_columns", "factors_by_group", "prediction_methods",
            "prediction_fits", "range_ratio", "add_range_ratio"]
 
@@ -76,20 +77,35 @@ def prediction_stage(cfg, state) -> PredictionStage:
     Reads ``state.line_fits``, ``state.point_sets``, ``state.fits`` (the
     assembled fits table) and ``state.data.units``.
     """
-    units, base = state.data.units, state.base
     saved, extra = accuracy_and_factors(state.line_fits, state.point_sets)
-    fits = add_accuracy_columns(state.fits, extra)
+    return predictions_from_factors(cfg, fits=state.fits, line_fits=state.line_fits,
+                                    saved=saved, extra=extra, units=state.data.units,
+                                    base=state.base,
+                                    group_tests=state.tables.get("group_tests"))
+
+
+def predictions_from_factors(cfg, *, fits: pd.DataFrame, line_fits: dict, saved: dict,
+                             extra: dict, units: dict, base,
+                             group_tests: pd.DataFrame | None = None) -> PredictionStage:
+    """The prediction stage once each fit's accuracy and factors are known.
+
+    ``extra`` (``(scope, group, method) -> accuracy and factor columns``) and
+    ``saved`` (:func:`saved_fits_of`) come from the fits' points in memory
+    (:func:`accuracy_and_factors`) or from a streaming pass over the rows
+    (:mod:`scaling.run.second_pass`); nothing here reads the rows.  ``group_tests``:
+    when the groups' slopes differ, each group predicts from its own line.
+    """
+    fits = add_accuracy_columns(fits, extra)
     fits = constant_columns(fits, units, base)   # term, a, a_low, a_high, a_unit
     predicting, choice_notes = prediction_fits(saved, cfg)   # which lines predict (default OLS)
-    tables, notes = _predictions(state.line_fits, predicting, cfg)
+    tables, notes = _predictions(line_fits, predicting, cfg)
     messages = []
-    lead = state.line_fits.get(("pooled", "", answer_primary(cfg)))   # the Answer's line
+    lead = line_fits.get(("pooled", "", answer_primary(cfg)))   # the Answer's line
     if lead is not None:   # the normalisation constant a of the primary line, with its units
         a_line = constant_sentence(lead, units, base, cfg.model.confidence)
         if a_line:
             messages.append(a_line)
     # groups whose slopes differ predict from their own lines (the pooled one mixes them)
-    group_tests = state.tables.get("group_tests")
     differ = (isinstance(group_tests, pd.DataFrame) and len(group_tests) > 0
               and answer_line(group_tests, cfg.model.methods, getattr(cfg.model, "primary", None),
                               cfg.model.confidence)[0] == "groups")
@@ -211,6 +227,11 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
         for i, key in enumerate(keys):
             extra[key] = {c: float(v[i]) for c, v in cols.items()}
     extra = {key: extra[key] for key in line_fits if key in extra}   # the fits' order
+    return saved_fits_of(line_fits, extra), extra
+
+
+def saved_fits_of(line_fits: dict, extra: dict) -> dict:
+    """Saved-fit dicts (with smearing and ratio factors) of the fits that have ``extra``."""
     saved = {}
     for key, fit in line_fits.items():
         if key not in extra:
@@ -220,7 +241,7 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
                         ratio_factor=extra[key]["ratio_factor"])
         d.update({"scope": scope, "group": group, "note": fit_note(fit)})
         saved[key] = d
-    return saved, extra
+    return saved
 
 
 def add_accuracy_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:

@@ -32,7 +32,7 @@ import pandas as pd
 from .fit_rows import ESTIMATE_COLUMNS, fit_rows
 from .lines import METHODS, fit_moments, slope_test_statistic
 from .logscale import base_label, to_log
-from .moments import Moments, combine_moments, group_moments, merge_moments
+from .moments import HIGHER_KEYS, Moments, combine_moments, group_moments, merge_moments
 from .schema import (FIT_COLUMNS, SLOPE_TEST_COLUMNS, check_confidence, check_exponents,
                      check_methods)
 
@@ -61,8 +61,9 @@ SLOPE_TEST_TABLE_COLUMNS = SLOPE_TEST_COLUMNS
 
 #: Columns of one piece's summary (:func:`summarise_rows` as a table).
 SUMMARY_COLUMNS = ["label", "n", "mean_x", "mean_y", "sxx", "syy", "sxy",
-                   "lx_min", "lx_max", "ly_min", "ly_max"]
-_MOMENT_KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")
+                   "lx_min", "lx_max", "ly_min", "ly_max", *HIGHER_KEYS]
+# The higher sums (sxxx, sxxxx, sxxy) ride along for the curvature test from moments.
+_MOMENT_KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", *HIGHER_KEYS)
 
 #: Rows per slice of the numeric work: temporaries stay in cache.
 _SLICE = 1 << 16
@@ -175,7 +176,8 @@ def summarise_rows(labels: pd.Index, codes, x: np.ndarray, y: np.ndarray, bad, b
     """
     g = len(labels)
     total = Moments(n=np.zeros(g), mean_x=np.full(g, np.nan), mean_y=np.full(g, np.nan),
-                    sxx=np.zeros(g), syy=np.zeros(g), sxy=np.zeros(g))
+                    sxx=np.zeros(g), syy=np.zeros(g), sxy=np.zeros(g),
+                    **{k: np.zeros(g) for k in HIGHER_KEYS})
     ranges = [np.full(g, np.inf), np.full(g, -np.inf), np.full(g, np.inf),
               np.full(g, -np.inf)]
     step = max(_SLICE, 8 * g)      # keeps the O(G) merges small against the rows
@@ -189,7 +191,7 @@ def summarise_rows(labels: pd.Index, codes, x: np.ndarray, y: np.ndarray, bad, b
         if not lx.size:
             continue
         lx, ly = to_log(lx, base), to_log(ly, base)
-        total = merge_moments(total, group_moments(lx, ly, c, n_groups=g))
+        total = merge_moments(total, group_moments(lx, ly, c, n_groups=g, higher=True))
         np.minimum.at(ranges[0], c, lx)
         np.maximum.at(ranges[1], c, lx)
         np.minimum.at(ranges[2], c, ly)
@@ -243,7 +245,7 @@ class MomentAccumulator:
         k = len(new_labels)
         self.index = self.index.append(new_labels)
         fill = {"n": 0.0, "mean_x": np.nan, "mean_y": np.nan, "sxx": 0.0, "syy": 0.0,
-                "sxy": 0.0}
+                "sxy": 0.0, **{name: 0.0 for name in HIGHER_KEYS}}
         for key in _MOMENT_KEYS:
             self.m[key] = np.concatenate([self.m[key], np.full(k, fill[key])])
         for i, start in enumerate((np.inf, -np.inf, np.inf, -np.inf)):

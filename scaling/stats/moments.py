@@ -9,6 +9,15 @@ thousand groups, or a ``(B, groups)`` stack of bootstrap resamples.
 Centred sums are accumulated with a two-pass algorithm (means first, then
 sums of centred products), which keeps full precision when the logs have a
 large offset.
+
+Optionally (``higher=True``) the moments also carry three higher centred
+sums, sum (X - mean_x)^3, sum (X - mean_x)^4 and sum (X - mean_x)^2 (Y - mean_y),
+which the quadratic-term curvature test reads
+(:mod:`scaling.stats.moment_curvature`).  They merge exactly by the same
+shift-to-the-merged-mean update as the second-order sums (the Chan, Golub &
+LeVeque 1983 pairwise update carried to third and fourth order; see
+:func:`merge_moments`), so chunked and partitioned reads give the one-pass
+values up to rounding.
 """
 
 from __future__ import annotations
@@ -18,7 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["Moments", "moments", "group_moments", "weighted_moments", "merge_moments",
-           "combine_moments"]
+           "combine_moments", "HIGHER_KEYS"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -36,6 +45,10 @@ class Moments:
     sxx, syy, sxy : ndarray
         Centred sums: sum (X - mean_x)^2, sum (Y - mean_y)^2,
         sum (X - mean_x)(Y - mean_y).
+    sxxx, sxxxx, sxxy : ndarray or None
+        Higher centred sums: sum (X - mean_x)^3, sum (X - mean_x)^4,
+        sum (X - mean_x)^2 (Y - mean_y); None unless asked for
+        (``group_moments(..., higher=True)``).
     """
 
     n: np.ndarray
@@ -44,6 +57,14 @@ class Moments:
     sxx: np.ndarray
     syy: np.ndarray
     sxy: np.ndarray
+    sxxx: np.ndarray | None = None
+    sxxxx: np.ndarray | None = None
+    sxxy: np.ndarray | None = None
+
+    @property
+    def has_higher(self) -> bool:
+        """True when the higher sums (``sxxx``, ``sxxxx``, ``sxxy``) are carried."""
+        return self.sxxx is not None and self.sxxxx is not None and self.sxxy is not None
 
     @property
     def r(self) -> np.ndarray:
@@ -56,6 +77,8 @@ class Moments:
             return np.clip(self.sxy / np.sqrt(self.sxx * self.syy), -1.0, 1.0)
 
     def __getitem__(self, index) -> "Moments":
+        higher = ({k: getattr(self, k)[index] for k in HIGHER_KEYS} if self.has_higher
+                  else {})
         return Moments(
             n=self.n[index],
             mean_x=self.mean_x[index],
@@ -63,6 +86,7 @@ class Moments:
             sxx=self.sxx[index],
             syy=self.syy[index],
             sxy=self.sxy[index],
+            **higher,
         )
 
     def swapped(self) -> "Moments":
@@ -85,21 +109,28 @@ class Moments:
                       for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
 
 
-def moments(x, y) -> Moments:
+#: Names of the higher centred sums (None unless asked for).
+HIGHER_KEYS = ("sxxx", "sxxxx", "sxxy")
+
+
+def moments(x, y, *, higher: bool = False) -> Moments:
     """Moments of one sample (0-d arrays).
 
     Parameters
     ----------
     x, y : array_like
         Equal-length 1-d arrays (already on the log scale).
+    higher : bool
+        Also the higher sums ``sxxx``, ``sxxxx``, ``sxxy``.
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     labels = np.zeros(x.shape, dtype=np.intp)
-    return group_moments(x, y, labels, n_groups=1)[0]
+    return group_moments(x, y, labels, n_groups=1, higher=higher)[0]
 
 
-def group_moments(x, y, labels, *, n_groups: int | None = None) -> Moments:
+def group_moments(x, y, labels, *, n_groups: int | None = None,
+                  higher: bool = False) -> Moments:
     """Moments of every group at once.
 
     Parameters
@@ -110,6 +141,9 @@ def group_moments(x, y, labels, *, n_groups: int | None = None) -> Moments:
         Group index 0..G-1 of each row.
     n_groups : int, optional
         G; defaults to ``labels.max() + 1``.
+    higher : bool
+        Also the higher sums ``sxxx``, ``sxxxx``, ``sxxy`` (centred on each
+        group's mean, like the others).
 
     Returns
     -------
@@ -127,13 +161,20 @@ def group_moments(x, y, labels, *, n_groups: int | None = None) -> Moments:
         my = np.bincount(labels, weights=y, minlength=n_groups) / n
     dx = x - mx[labels]
     dy = y - my[labels]
+    dxx = dx * dx
+    extra = {}
+    if higher:
+        extra = {"sxxx": np.bincount(labels, weights=dxx * dx, minlength=n_groups),
+                 "sxxxx": np.bincount(labels, weights=dxx * dxx, minlength=n_groups),
+                 "sxxy": np.bincount(labels, weights=dxx * dy, minlength=n_groups)}
     return Moments(
         n=n,
         mean_x=mx,
         mean_y=my,
-        sxx=np.bincount(labels, weights=dx * dx, minlength=n_groups),
+        sxx=np.bincount(labels, weights=dxx, minlength=n_groups),
         syy=np.bincount(labels, weights=dy * dy, minlength=n_groups),
         sxy=np.bincount(labels, weights=dx * dy, minlength=n_groups),
+        **extra,
     )
 
 
@@ -233,6 +274,22 @@ def merge_moments(a: Moments, b: Moments) -> Moments:
         Sxy = Sxy,a + Sxy,b + d_x d_y n_a n_b / n
 
     which is exact in exact arithmetic and needs no raw rows.
+
+    The higher sums (when both parts carry them) merge by shifting each
+    part's centred sums to the merged mean: with u = X - mean_x,part,
+    v = Y - mean_y,part and the part's offsets al = mean_x,part - mean_x,
+    be = mean_y,part - mean_y (al = -d_x n_b / n for a, d_x n_a / n for b),
+    and sum u = sum v = 0,
+
+        sum (u + al)^3       = Sxxx + 3 al Sxx + n al^3
+        sum (u + al)^4       = Sxxxx + 4 al Sxxx + 6 al^2 Sxx + n al^4
+        sum (u + al)^2 (v + be) = Sxxy + be Sxx + 2 al Sxy + n al^2 be
+
+    summed over the two parts.  This is the Chan, Golub & LeVeque (1983)
+    update carried to third and fourth order (the same algebra as Pebay
+    2008, Sandia report SAND2008-6212, eq. 3.1 for centred moments of any
+    order); every term is formed from differences of means, so nothing
+    large cancels when the logs sit far from zero (data near 1e+-12).
     """
     na, nb = np.asarray(a.n, dtype=float), np.asarray(b.n, dtype=float)
     n = na + nb
@@ -250,9 +307,23 @@ def merge_moments(a: Moments, b: Moments) -> Moments:
             "syy": a.syy + b.syy + dy * dy * h,
             "sxy": a.sxy + b.sxy + dx * dy * h,
         }
+        if a.has_higher and b.has_higher:
+            ax, ay = -dx * fb, -dy * fb          # offsets of part a from the merged mean
+            fa = na / n
+            bx, by = dx * fa, dy * fa            # offsets of part b
+            out.update({k: _shifted(a, ax, ay, na)[k] + _shifted(b, bx, by, nb)[k]
+                        for k in HIGHER_KEYS})
     for key in out:
         out[key] = np.where(only_a, getattr(a, key), np.where(only_b, getattr(b, key), out[key]))
     return Moments(n=n, **out)
+
+
+def _shifted(p: Moments, al, be, n) -> dict:
+    """A part's higher sums about a point shifted by (al, be) from its own means."""
+    al2 = al * al
+    return {"sxxx": p.sxxx + 3 * al * p.sxx + n * al2 * al,
+            "sxxxx": p.sxxxx + 4 * al * p.sxxx + 6 * al2 * p.sxx + n * al2 * al2,
+            "sxxy": p.sxxy + be * p.sxx + 2 * al * p.sxy + n * al2 * be}
 
 
 def combine_moments(parts: Moments, codes, *, n_groups: int | None = None) -> Moments:
@@ -297,9 +368,14 @@ def combine_moments(parts: Moments, codes, *, n_groups: int | None = None) -> Mo
         my = np.bincount(codes, weights=pn * p.mean_y, minlength=n_groups) / n
     dx = p.mean_x - mx[codes]
     dy = p.mean_y - my[codes]
+    extra = {}
+    if p.has_higher:   # each part shifted to its group's merged mean (see merge_moments)
+        extra = {k: np.bincount(codes, weights=v, minlength=n_groups)
+                 for k, v in _shifted(p, dx, dy, pn).items()}
     return Moments(
         n=n, mean_x=mx, mean_y=my,
         sxx=np.bincount(codes, weights=p.sxx + pn * dx * dx, minlength=n_groups),
         syy=np.bincount(codes, weights=p.syy + pn * dy * dy, minlength=n_groups),
         sxy=np.bincount(codes, weights=p.sxy + pn * dx * dy, minlength=n_groups),
+        **extra,
     )

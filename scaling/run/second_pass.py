@@ -1,0 +1,546 @@
+"""The second pass of the moments path: what needs residuals, read chunk by chunk again.
+
+The first pass (:func:`scaling.run.table_moments.read_moments`) gives per-group
+moments and so the fitted lines.  With the lines known, :func:`second_pass`
+reads the same file again through the same reader (chunks of
+:mod:`scaling.io.chunked`, or Dask partitions on the same scheduler), cleans
+each chunk by the same rules and adds its residual sums to a
+:class:`~scaling.stats.streaming_residuals.ResidualSums` (pooled rows and
+every group, every line method).  From those sums and the moments it builds
+what the in-memory road writes from the rows:
+
+* the accuracy and correction-factor columns of fits.csv (SEE, %SEE, %PE,
+  smearing, parametric and ratio factors) and the constant ``a`` columns;
+* predictions and inverse predictions (:func:`scaling.run.predictions.predictions_from_factors`)
+  and the saved fits of results.json;
+* the ``diagnostics`` table: normality (D'Agostino-Pearson from residual
+  skewness and kurtosis: Shapiro-Wilk needs the sorted rows), constant
+  variance (Breusch-Pagan), curvature (the quadratic term, from the higher
+  moments, :func:`scaling.stats.moment_curvature.quadratic_from_moments`) and
+  influence (Cook's distance), with ``curvature`` and ``influential_rows``
+  (at most :data:`~scaling.stats.streaming_residuals.TOP_K` rows per fit);
+* the fit-level rows of ``points_to_check`` (odd correction factors,
+  estimates outside their interval).
+
+What needs all rows at once (row bootstrap, permutation tests, row-based
+robust lines, leave-one-out refits) is not done; one note names it.
+The plain-language notes are small functions here (to move into
+``wording.py`` at merge time), as in :mod:`scaling.run.moments_path`.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import ScalingError
+from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind, files_of,
+                          read_chunks)
+from ..render.findings import check_verdict, diagnostics_messages, point_check_reason
+from ..render.headline import answer_line
+from ..stats.influence import PointCheck, fit_checks
+from ..stats.line_results import line_fit_from_result
+from ..stats.lines import exact_fit, fit_moments
+from ..stats.logscale import to_log
+from ..stats.moment_curvature import local_exponents, quadratic_from_moments
+from ..stats.residual_checks import MIN_N, Check, Curvature, Diagnostics
+from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, INFLUENCE_COLUMNS,
+                            POINTS_TO_CHECK_COLUMNS)
+from ..stats.streaming_residuals import (TOP_K, GroupResidualSums, ResidualSums,
+                                         StreamedChecks)
+from .diagnostics import exponent_targets
+from .moments_path import _sep
+from .points_to_check import primary_method
+from .predictions import predictions_from_factors, saved_fits_of
+
+__all__ = ["SecondPass", "second_pass", "residual_sums", "ROW_ONLY_STAGES"]
+
+#: What the moments path cannot do without holding every row at once.
+ROW_ONLY_STAGES = ("row bootstrap", "permutation tests", "row-based robust lines",
+                   "leave-one-out refits (points that move the answer)")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SecondPass:
+    """What the second pass adds to a moments-path run.
+
+    Attributes
+    ----------
+    fits : DataFrame
+        fits.csv with the accuracy, correction-factor and constant columns.
+    saved_fits : dict
+        ``(scope, group, method) -> saved-fit dict`` of every estimable fit.
+    tables : dict
+        ``predictions`` / ``inverse_predictions`` (when asked for),
+        ``diagnostics``, ``curvature``, ``influential_rows`` (when
+        ``diagnostics.enabled``) and ``points_to_check``.
+    checks : StreamedChecks
+        The raw sums' results (set 0 pooled, set 1 + g group g).
+    messages, notes : tuple of str
+    """
+
+    fits: pd.DataFrame
+    saved_fits: dict
+    tables: dict
+    checks: StreamedChecks
+    messages: tuple = ()
+    notes: tuple = ()
+
+
+# --------------------------------------------------------------------------
+# the sets and lines of a run
+
+
+def _sets(gm, grouped: bool):
+    """Moments of the point sets: pooled first, then each group (when grouped)."""
+    if not grouped:
+        return gm.pooled, [("pooled", "")]
+    m = gm.moments
+    both = {k: np.concatenate([np.atleast_1d(getattr(gm.pooled, k)), getattr(m, k)])
+            for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")}
+    if gm.pooled.has_higher and m.has_higher:
+        both.update({k: np.concatenate([getattr(gm.pooled, k), getattr(m, k)])
+                     for k in ("sxxx", "sxxxx", "sxxy")})
+    keys = [("pooled", "")] + [("group", str(g)) for g in gm.labels]
+    return type(m)(**both), keys
+
+
+def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
+    """Arrays (S, M) of intercept, slope and residual SD read from the fits table."""
+    index = {k: i for i, k in enumerate(keys)}
+    out = {c: np.full((len(keys), len(methods)), np.nan)
+           for c in ("intercept", "slope", "resid_sd", "slope_se")}
+    for r in fits.itertuples(index=False):
+        i = index.get((r.scope, r.group))
+        if i is None or r.method not in methods:
+            continue
+        j = methods.index(r.method)
+        for c in out:
+            out[c][i, j] = getattr(r, c)
+    return out
+
+
+# --------------------------------------------------------------------------
+# reading the rows again
+
+
+def _params(m, lines: dict, base, methods: list, checked: str) -> dict:
+    """ResidualSums arguments; ``checked`` is the method whose strong points are listed."""
+    j = methods.index(checked)
+    return dict(intercept=lines["intercept"], slope=lines["slope"], mean_x=m.mean_x,
+                mean_y=m.mean_y, sxx=m.sxx, syy=m.syy, sxy=m.sxy, n=m.n,
+                resid_sd=lines["resid_sd"], log_base=base, influence_method=checked,
+                influence_slope=lines["slope"][:, j], slope_se=lines["slope_se"][:, j])
+
+
+def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: bool,
+          first_row: int):
+    d = cfg.data
+    c = clean_chunk(part, d.x, d.y, d.group, d.decimal)
+    rows = first_row + np.arange(c.n_rows, dtype=np.int64) + 1      # 1-based data rows
+    x, y = c.x, c.y
+    codes = c.codes
+    if c.bad is not None:
+        keep = ~c.bad
+        x, y, rows = x[keep], y[keep], rows[keep]
+        codes = codes[keep] if codes is not None else None
+    if not x.size:
+        return c.n_rows
+    X, Y = to_log(x, base), to_log(y, base)
+    acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
+    if grouped:
+        local = label_index.get_indexer(pd.Index(c.labels).astype(str))[codes]
+        acc.add(1 + local, X, Y, rows)
+        between.add(local, X, Y)
+    return c.n_rows
+
+
+def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped):
+    """The residual sums of one Dask partition (rows numbered from 1 within it)."""
+    pdf.columns = [str(col).strip() for col in pdf.columns]
+    acc = ResidualSums(**params)
+    between = GroupResidualSums(**between_params)
+    n_rows = _feed(acc, between, pdf, cfg, base, pd.Index(labels), grouped, 0)
+    return acc, between, n_rows
+
+
+def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str) -> tuple:
+    """Read the file again: the filled :class:`ResidualSums`, the group-residual sums of
+    the pooled ``checked`` line, the set keys and the sets' moments."""
+    d = cfg.data
+    grouped = bool(d.group)
+    m, keys = _sets(gm, grouped)
+    lines = _lines(fits, keys, methods)
+    params = _params(m, lines, base, methods, checked)
+    j = methods.index(checked)
+    between_params = dict(intercept=float(lines["intercept"][0, j]),
+                          slope=float(lines["slope"][0, j]),
+                          mean_x=gm.moments.mean_x, mean_y=gm.moments.mean_y)
+    label_index = pd.Index(np.asarray(gm.labels, dtype=str))
+    path = Path(d.file)
+    kind = file_kind(path)
+    columns = [d.x, d.y] + ([d.group] if d.group else [])
+    sep = _sep(cfg)
+    acc = ResidualSums(**params)
+    between = GroupResidualSums(**between_params)
+    if cfg.engine == "dask":
+        import dask   # the first pass has checked that it is installed
+        parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
+        tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, between_params,
+                                               list(label_index), grouped) for p in parts]
+        offset = 0
+        for part, part_between, n_rows in dask_compute(tasks, cfg.scheduler):  # file order
+            part.offset_rows(offset)
+            acc.merge(part)
+            between.merge(part_between)
+            offset += n_rows
+    else:
+        offset = 0
+        for file in files_of(path, kind):
+            for part in read_chunks(file, kind, columns, d.chunk_size, "pandas", sep,
+                                    d.decimal):
+                offset += _feed(acc, between, part, cfg, base, label_index, grouped, offset)
+    return acc, (between if grouped else None), keys, m
+
+
+# --------------------------------------------------------------------------
+# the run's tables
+
+
+def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
+                base, other_tables: dict | None = None) -> SecondPass:
+    """Residual sums over a second read of the file, and the tables they give.
+
+    Parameters
+    ----------
+    cfg : Config
+    gm : GroupedMoments
+        The first pass's moments (with the higher sums).
+    fits : DataFrame
+        The moments path's fits table (pooled and group rows).
+    line_fits : dict
+        The path's LineFits (pooled); group fits are packaged here for the
+        predictions and saved fits.
+    units : dict
+    base : float or None
+    other_tables : dict, optional
+        The run's tables so far (``group_tests`` decides the answer's model,
+        whose checks the verdict sentences speak of).
+    """
+    other_tables = other_tables or {}
+    methods = list(dict.fromkeys(fits["method"]))
+    # the pooled line whose points are checked one by one, as in memory (points_to_check)
+    checked = primary_method(cfg)
+    if checked not in methods:
+        checked = methods[0]
+    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked)
+    res = acc.result()
+
+    # LineFits of every estimable fit (pooled ones as the path made them); each method
+    # fitted to every set in one vectorised call, then packaged set by set.
+    all_fits = dict(line_fits)
+    rng = {(r.scope, r.group, r.method): r for r in fits.itertuples(index=False)}
+    for method in methods:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fitted = fit_moments(m, method, confidence=cfg.model.confidence)
+        for i, (scope, group) in enumerate(keys):
+            key = (scope, group, method)
+            r = rng.get(key)
+            if key in all_fits or r is None or not np.isfinite(r.slope):
+                continue
+            all_fits[key] = line_fit_from_result(
+                fitted, i, m[i], method, confidence=cfg.model.confidence, log_base=base,
+                x_range=(r.x_min, r.x_max), y_range=(r.y_min, r.y_max))
+    extra = {}
+    for i, (scope, group) in enumerate(keys):
+        if res.n[i] < 3:
+            continue
+        for j, method in enumerate(methods):
+            key = (scope, group, method)
+            if key not in all_fits:
+                continue
+            extra[key] = {"see": float(res.see[i, j]),
+                          "percent_see": float(res.percent_see[i, j]),
+                          "percent_pe": float(res.percent_pe[i, j]),
+                          "smearing_factor": float(res.smearing[i, j]),
+                          "parametric_factor": float(res.parametric[i, j]),
+                          "ratio_factor": float(res.ratio[i, j])}
+    saved = saved_fits_of(all_fits, extra)
+    predicted = predictions_from_factors(cfg, fits=fits, line_fits=all_fits, saved=saved,
+                                         extra=extra, units=units, base=base,
+                                         group_tests=(other_tables or {}).get("group_tests"))
+    tables = dict(predicted.tables)
+    notes = list(predicted.notes)
+    messages = list(predicted.messages)
+    # before the diagnostics, whose words read it (as in memory)
+    tables["points_to_check"] = _points_to_check(
+        predicted.fits, all_fits, tables.get("predictions"), res,
+        ("pooled", "", checked), between.anova() if between is not None else None,
+        cfg.diagnostics.alpha)
+    if cfg.diagnostics.enabled:
+        diag, diag_notes, diag_messages = _diagnostics(cfg, res, m, keys, methods, all_fits,
+                                                       base, tables, other_tables)
+        tables.update(diag)
+        notes += diag_notes
+        messages += diag_messages
+    notes.append(skipped_note(cfg.diagnostics.enabled and cfg.diagnostics.error_structure))
+    return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
+                      checks=res, messages=tuple(messages), notes=tuple(notes))
+
+
+def skipped_note(error_structure: bool = False) -> str:
+    """The one note naming what the moments path leaves out."""
+    left = ROW_ONLY_STAGES + (("the additive-versus-multiplicative error comparison "
+                               "(an iterative fit on the natural scale)",)
+                              if error_structure else ())
+    return ("The large-data path reads the rows twice (moments, then residual sums) and "
+            "never holds them all, so it leaves out what needs every row at once: "
+            f"{', '.join(left)}; its normality check is D'Agostino-Pearson "
+            "(residual skewness and kurtosis) instead of Shapiro-Wilk, and it lists at most "
+            f"{TOP_K} influential rows per fit.")
+
+
+def _many_influential(n_above: int, rows) -> str:
+    """The influence verdict when more rows pass 4/n than the pass keeps."""
+    shown = ", ".join(str(r) for r in rows[:5])
+    return (f"{n_above} row(s) pull the line strongly (Cook's distance > 4/n): row {shown} "
+            f"and {n_above - min(len(rows), 5)} more; the {len(rows)} largest are in "
+            "influential_rows.csv; check them and refit without them to see the effect")
+
+
+def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tables: dict,
+                 other_tables: dict) -> tuple:
+    """diagnostics, curvature and influential_rows tables, notes and verdict sentences."""
+    alpha = cfg.diagnostics.alpha
+    n_groups = len(keys) - 1
+    notes = []
+    todo = range(len(keys))
+    if n_groups > cfg.groups.diagnostics_max:
+        todo = [0]
+        notes.append(f"Per-group diagnostics skipped: {n_groups} groups is more than "
+                     f"groups.diagnostics_max = {cfg.groups.diagnostics_max}; the pooled "
+                     "line is checked.")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        quad = quadratic_from_moments(m) if m.has_higher else None
+        exact = np.asarray(exact_fit(m), dtype=bool)
+    targets = exponent_targets(cfg)
+    diag, infl, curv = [], [], []
+    results: dict = {}
+    for i in todo:
+        scope, group = keys[i]
+        n = int(res.n[i])
+        if n < MIN_N or not (m.sxx[i] > 0):
+            continue
+        fitted = [j for j, meth in enumerate(methods) if (scope, group, meth) in all_fits]
+        if not fitted:
+            continue
+        lx = to_log(np.array([all_fits[(scope, group, methods[fitted[0]])].x_range[0],
+                              all_fits[(scope, group, methods[fitted[0]])].x_range[1]]),
+                    base)
+        q = ({k: float(np.asarray(v)[i]) for k, v in quad.items()} if quad is not None
+             else None)
+        threshold = 4.0 / n
+        cooks = res.cooks_distance[i]
+        above = np.flatnonzero(cooks > threshold)
+        top = float(np.nanmax(cooks)) if np.isfinite(cooks).any() else math.nan
+        n_above = int(res.n_influential[i])
+        curvature = _curvature(q, lx, targets, base, exact[i], n, all_fits, keys[i], methods,
+                               fitted)
+        for j in fitted:
+            method = methods[j]
+            checks = _checks(res, i, j, q, lx, exact[i], top, res.cooks_rows[i][above], alpha)
+            results[(scope, group, method)] = Diagnostics(
+                method=method, n=n, alpha=alpha, checks=tuple(checks), curvature=curvature,
+                residuals=np.empty(0), cooks_distance=cooks[np.isfinite(cooks)],
+                influence_threshold=threshold, influential_rows=checks[-1].rows,
+                rows=res.cooks_rows[i][res.cooks_rows[i] >= 0])
+            for c in checks:
+                verdict = (_many_influential(n_above, c.rows)
+                           if c.check == "influence" and c.flagged and n_above > len(c.rows)
+                           else check_verdict(c))
+                diag.append({"scope": scope, "group": group, "method": method,
+                             **c.to_record(), "verdict": verdict})
+            if not exact[i]:
+                for k in above:
+                    infl.append({"scope": scope, "group": group, "method": method,
+                                 "row": int(res.cooks_rows[i][k]), "label": "",
+                                 "cooks_distance": float(cooks[k])})
+        e_lo, e_hi = (float(v) for v in curvature.local_exponent(lx))
+        common = {"scope": scope, "group": group, "n": n, "quadratic": curvature.quadratic,
+                  "quadratic_se": curvature.quadratic_se, "statistic": curvature.statistic,
+                  "df": curvature.df, "p_value": curvature.p_value, "exponent_at_x_min": e_lo,
+                  "exponent_at_x_max": e_hi}
+        for target, xs, inside in curvature.crossings:
+            curv.append({**common, "exponent": target, "x_at_exponent": xs,
+                         "within_data": inside})
+        if not curvature.crossings:
+            curv.append({**common, "exponent": np.nan, "x_at_exponent": np.nan,
+                         "within_data": None})
+    out = {
+        "diagnostics": pd.DataFrame(diag, columns=DIAGNOSTIC_COLUMNS),
+        "influential_rows": pd.DataFrame(infl, columns=INFLUENCE_COLUMNS),
+        "curvature": pd.DataFrame(curv, columns=CURVATURE_COLUMNS),
+    }
+    answer = answer_line(other_tables.get("group_tests"), cfg.model.methods,
+                         getattr(cfg.model, "primary", None), cfg.model.confidence)
+    messages = diagnostics_messages(results, {}, {}, cfg, answer=answer,
+                                    points=tables.get("points_to_check")) if results else []
+    where = {k: i for i, k in enumerate(keys)}
+    if any(res.n_influential[where[k[:2]]] > len(d.influential_rows)
+           for k, d in results.items()):   # the sentence counts every row, not the k kept
+        messages = [_recount(t, results, res, keys, answer) if t.startswith("Influence:")
+                    else t for t in messages]
+    return out, notes, messages
+
+
+def _recount(text: str, results: dict, res: StreamedChecks, keys, answer) -> str:
+    """The influence sentence with the rows above 4/n counted in the pass (not the k kept)."""
+    line, method = answer
+    if line == "groups":
+        chosen = [(g, d) for (s, g, m), d in results.items() if s == "group" and m == method]
+        kept = len({r for _, d in chosen for r in d.influential_rows})
+        where = {k: i for i, k in enumerate(keys)}
+        total = int(sum(res.n_influential[where[("group", g)]] for g, _ in chosen))
+    else:
+        pooled = next((d for (s, _, _), d in results.items() if s == "pooled"), None)
+        kept = len(pooled.influential_rows) if pooled is not None else 0
+        total = int(res.n_influential[0])
+    if total <= kept:
+        return text
+    text = text.replace(f"Influence: {kept} point(s)", f"Influence: {total} point(s)", 1)
+    if kept > 4:
+        return text.replace(f" and {kept - 4} more.", f" and {total - 4} more.", 1)
+    return text
+
+
+def _curvature(q, lx, targets, base, exact: bool, n: int, all_fits, key, methods, fitted):
+    """The :class:`Curvature` record of one set (what the verdict sentences read)."""
+    if q is None or exact:
+        first = all_fits[(key[0], key[1], methods[fitted[0]])]
+        return Curvature(intercept=first.intercept, linear=first.slope, quadratic=0.0,
+                         quadratic_se=math.nan, statistic=math.nan, df=float(n - 3),
+                         p_value=math.nan, log_base=base, crossings=())
+    return Curvature(intercept=q["intercept"], linear=q["linear"], quadratic=q["quadratic"],
+                     quadratic_se=q["quadratic_se"], statistic=q["statistic"], df=q["df"],
+                     p_value=q["p_value"], log_base=base,
+                     crossings=tuple(_crossings(q, targets, lx, base)))
+
+
+def _crossings(q: dict, targets, lx, base) -> list:
+    """(target, x*, inside the data) where the local exponent reaches each target."""
+    out = []
+    for target in targets:
+        if q["quadratic"] == 0 or not np.isfinite(q["quadratic"]):
+            out.append((target, math.nan, False))
+            continue
+        at = (target - q["linear"]) / (2 * q["quadratic"])
+        with np.errstate(over="ignore"):
+            xs = float(at) if base is None else float(np.power(np.float64(base), at))
+        out.append((target, xs, bool(lx[0] <= at <= lx[1])))
+    return out
+
+
+def _checks(res: StreamedChecks, i: int, j: int, q, lx, exact: bool, top: float, rows,
+            alpha: float) -> list:
+    """The four checks of one fit, as :class:`Check` records (the in-memory road's shape)."""
+    if exact:
+        return [Check(check=name, test=test, statistic=math.nan, df=math.nan,
+                      p_value=math.nan, estimate=math.nan, flagged=False, finding="exact_fit")
+                for name, test in (("normality", "D'Agostino-Pearson"),
+                                   ("constant_variance", "Breusch-Pagan"),
+                                   ("curvature", "quadratic term t"),
+                                   ("influence", "Cook's distance"))]
+    out = []
+    p = float(res.normality_p[i, j])
+    flagged = bool(p < alpha)
+    out.append(Check(check="normality", test="D'Agostino-Pearson",
+                     statistic=float(res.normality_statistic[i, j]), df=2.0, p_value=p,
+                     estimate=math.nan, flagged=flagged,
+                     finding="flagged" if flagged else "clear"))
+    p = float(res.bp_p[i, j])
+    flagged = bool(p < alpha)
+    out.append(Check(check="constant_variance", test="Breusch-Pagan",
+                     statistic=float(res.bp_statistic[i, j]), df=1.0, p_value=p,
+                     estimate=math.nan, flagged=flagged,
+                     finding="flagged" if flagged else "clear",
+                     direction=int(res.bp_direction[i, j]) if flagged else 0))
+    if q is not None:
+        flagged = bool(q["p_value"] < alpha)
+        e_lo, e_hi = (float(v) for v in local_exponents(q, lx))
+        out.append(Check(check="curvature", test="quadratic term t", statistic=q["statistic"],
+                         df=q["df"], p_value=q["p_value"], estimate=q["quadratic"],
+                         flagged=flagged, finding="flagged" if flagged else "clear",
+                         direction=1 if q["quadratic"] > 0 else -1,
+                         exponent_low=e_lo, exponent_high=e_hi))
+    flagged = len(rows) > 0
+    out.append(Check(check="influence", test="Cook's distance", statistic=top, df=math.nan,
+                     p_value=math.nan, estimate=top, flagged=flagged,
+                     finding="flagged" if flagged else "clear",
+                     rows=tuple(int(r) for r in rows)))
+    return out
+
+
+def _point_checks(res: StreamedChecks, fit, anova, alpha: float) -> list:
+    """Strong points of the pooled line and its residuals between groups (set 0)."""
+    out = []
+    for i in np.flatnonzero(res.strong_rows[0] >= 0):
+        out.append(PointCheck(severity="strong", kind="influence",
+                              row=int(res.strong_rows[0][i]), label="",
+                              value=float(res.strong_cooks[0][i]), method=fit.method,
+                              slope=float(fit.slope),
+                              slope_without=float(res.strong_slope_without[0][i]),
+                              slope_se=float(fit.slope_se)))
+    if anova is not None and np.isfinite(anova["p_value"]) and anova["p_value"] < alpha:
+        out.append(PointCheck(severity="mild", kind="group_residuals", row=None, label="",
+                              value=anova["p_value"], statistic=float(anova["statistic"]),
+                              df1=int(anova["df1"]), df2=int(anova["df2"])))
+    return out
+
+
+def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChecks,
+                     checked_key, anova, alpha: float) -> pd.DataFrame:
+    """points_to_check: the pooled line's strong points and residuals between groups,
+    and every fit's factor and interval checks (as :func:`scaling.stats.influence.points_to_check`
+    and :func:`~scaling.stats.influence.fit_checks`)."""
+    records = []
+    estimates: dict = {}      # (scope, group, method) -> the predictions' estimates, once
+    if preds is not None and len(preds):
+        for p in preds[["scope", "group", "method", "x", "y", "y_low", "y_high"]].itertuples(
+                index=False):
+            estimates.setdefault((p.scope, p.group, p.method), []).append(
+                (f"at x = {p.x:g} ", p.y, p.y_low, p.y_high))
+    for r in fits.itertuples(index=False):
+        key = (r.scope, r.group, r.method)
+        if key not in all_fits or not np.isfinite(getattr(r, "smearing_factor", math.nan)):
+            continue
+        est = estimates.get(key, ())
+        try:
+            found = fit_checks(smearing_factor=r.smearing_factor,
+                               parametric_factor=r.parametric_factor, estimates=est)
+        except ScalingError:
+            continue
+        if key == checked_key and r.n >= MIN_N:
+            found = _point_checks(res, all_fits[key], anova, alpha) + found
+            found.sort(key=lambda c: c.severity != "strong")
+        records += [{"scope": r.scope, "group": r.group, "method": r.method,
+                     **c.to_record(), "reason": point_check_reason(c)} for c in found]
+    table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
+    table["row"] = table["row"].astype("Int64")
+    return table
+
+
+def with_second_pass(result, cfg, gm, units, base):
+    """``result`` (a RunResult of the moments path) with the second pass's tables."""
+    extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
+                        other_tables=result.tables)
+    return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
+                   tables={**result.tables, **extra.tables},
+                   messages=result.messages + extra.messages,
+                   warnings=result.warnings + extra.notes)

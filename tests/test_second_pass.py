@@ -1,0 +1,171 @@
+"""The moments path's second pass writes what the in-memory road writes from the rows.
+
+On a table that fits in memory, a run with a tiny ``data.moments_above_mb``
+(every file takes the moments path) and a small ``data.chunk_size`` (groups
+split across chunks) is compared with the ordinary run of the same config:
+the in-memory road is the reference (internal consistency), itself checked
+against scipy and statsmodels in test_diagnostics.py and test_predict.py.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+from scaling.run.pipeline import run_config
+from scaling.stats.schema import FIT_ACCURACY_COLUMNS
+from scaling.stats.streaming_residuals import TOP_K
+
+SIZES = (3, 5, 40, 120, 6000)   # about 250 kB: several Dask partitions
+
+
+@pytest.fixture(scope="module")
+def table(tmp_path_factory):
+    rng = np.random.default_rng(20)
+    parts = []
+    for g, n in enumerate(SIZES):
+        lx = rng.uniform(0, 3, n)
+        curve = 0.05 * lx * lx if g == 3 else 0.0      # one group bends
+        ly = 0.4 + (0.7 + 0.03 * g) * lx + curve + rng.normal(0, 0.12 * (1 + 0.3 * lx), n)
+        parts.append(pd.DataFrame({"mass": 10 ** lx, "rate": 10 ** ly, "clade": f"c{g}"}))
+    # one far point off the line: strong in the pooled line (Cook's distance > 1)
+    parts.append(pd.DataFrame({"mass": [1e8], "rate": [10 ** 2.0], "clade": ["c4"]}))
+    df = pd.concat(parts).sample(frac=1, random_state=3).reset_index(drop=True)
+    df.loc[7, "rate"] = -1.0                            # one dropped row, counted
+    path = tmp_path_factory.mktemp("second") / "t.csv"
+    df.to_csv(path, index=False)
+    return path
+
+
+def _run(path, *, large: bool, engine: str = "pandas"):
+    cfg = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "clade",
+                    "moments_above_mb": 1e-9 if large else 1e6, "chunk_size": 61},
+           "engine": engine, "model": {"methods": ["ols", "sma", "ma"]},
+           "exponents": {"three_quarters": 0.75},
+           "prediction": {"x": [1, 30, 5000], "y": [10, 100]},
+           "figures": {"formats": []}}
+    return run_config(cfg, write=False, quiet=True)
+
+
+@pytest.fixture(scope="module")
+def runs(table):
+    return {"memory": _run(table, large=False), "moments": _run(table, large=True)}
+
+
+def _keyed(frame, keys, scopes=("pooled", "group")):
+    part = frame[frame["scope"].isin(scopes)]
+    return part.set_index(keys).sort_index()
+
+
+def test_correction_columns_equal_the_in_memory_road(runs):
+    mem = _keyed(runs["memory"].fits, ["scope", "group", "method"])
+    mom = _keyed(runs["moments"].fits, ["scope", "group", "method"])
+    assert list(runs["moments"].fits.columns) == list(runs["memory"].fits.columns)
+    assert mem.index.equals(mom.index)
+    for col in FIT_ACCURACY_COLUMNS + ["a", "a_low", "a_high"]:
+        # internal consistency: the same factors from the rows held in memory
+        assert_allclose(mom[col].to_numpy(float), mem[col].to_numpy(float), rtol=1e-9,
+                        err_msg=col)
+
+
+def test_predictions_equal_the_in_memory_road(runs):
+    for name, keys in (("predictions", ["scope", "group", "method", "x"]),
+                       ("inverse_predictions", ["scope", "group", "method", "y"])):
+        mem = _keyed(runs["memory"].tables[name], keys)
+        mom = _keyed(runs["moments"].tables[name], keys)
+        assert mem.index.equals(mom.index) and list(mem.columns) == list(mom.columns)
+        for col in mem.columns:
+            if mem[col].dtype.kind == "f":
+                # internal consistency: predictions from the same fits and factors
+                assert_allclose(mom[col].to_numpy(), mem[col].to_numpy(), rtol=1e-9,
+                                err_msg=f"{name}.{col}")
+            else:
+                assert (mom[col] == mem[col]).all(), f"{name}.{col}"
+
+
+def test_curvature_equals_the_in_memory_road(runs):
+    keys = ["scope", "group", "exponent"]
+    mem = _keyed(runs["memory"].tables["curvature"], keys)
+    mom = _keyed(runs["moments"].tables["curvature"], keys)
+    assert mem.index.equals(mom.index)
+    for col in ("n", "quadratic", "quadratic_se", "statistic", "df", "p_value",
+                "exponent_at_x_min", "exponent_at_x_max", "x_at_exponent"):
+        # internal consistency: the quadratic term fitted to the rows
+        assert_allclose(mom[col].to_numpy(float), mem[col].to_numpy(float), rtol=1e-9,
+                        err_msg=col)
+    assert (mom["within_data"] == mem["within_data"]).all()
+
+
+def test_diagnostic_rows_match_except_the_normality_test(runs):
+    keys = ["scope", "group", "method", "check"]
+    mem = _keyed(runs["memory"].tables["diagnostics"], keys)
+    mom = _keyed(runs["moments"].tables["diagnostics"], keys)
+    assert mem.index.equals(mom.index)
+    same = mem.index.get_level_values("check") != "normality"
+    for col in ("statistic", "df", "p_value", "estimate"):
+        # internal consistency: Breusch-Pagan (statsmodels), quadratic t, Cook's max
+        assert_allclose(mom.loc[same, col].to_numpy(float), mem.loc[same, col].to_numpy(float),
+                        rtol=1e-9, err_msg=col)
+    assert (mom.loc[same, "flagged"] == mem.loc[same, "flagged"]).all()
+    normal = mom[~same]
+    assert (normal["test"] == "D'Agostino-Pearson").all()
+    assert (mem.loc[~same, "test"] == "Shapiro-Wilk").all()
+
+
+def test_influential_rows_are_the_in_memory_top_k(runs):
+    mem = runs["memory"].tables["influential_rows"]
+    mom = runs["moments"].tables["influential_rows"]
+    for (scope, group, method), part in mem[mem["scope"].isin(["pooled", "group"])].groupby(
+            ["scope", "group", "method"]):
+        top = part.sort_values("cooks_distance", ascending=False, kind="stable").head(TOP_K)
+        mine = mom[(mom["scope"] == scope) & (mom["group"] == group) & (mom["method"] == method)]
+        # internal consistency: statsmodels' Cook's distances of the rows in memory
+        assert list(mine["row"].astype(int)) == list(top["row"].astype(int))
+        assert_allclose(mine["cooks_distance"].to_numpy(float),
+                        top["cooks_distance"].to_numpy(float), rtol=1e-9)
+
+
+def test_dask_partitions_give_the_same_second_pass(table, runs):
+    pytest.importorskip("dask.dataframe")
+    from scaling.io.chunked import dask_partitions
+    assert len(dask_partitions(table, "csv", ["mass", "rate", "clade"], 61, ",", ".")) >= 2
+    dask_run = _run(table, large=True, engine="dask")
+    mom = _keyed(runs["moments"].fits, ["scope", "group", "method"])
+    dsk = _keyed(dask_run.fits, ["scope", "group", "method"])
+    for col in FIT_ACCURACY_COLUMNS:
+        # internal consistency: the chunked road above
+        assert_allclose(dsk[col].to_numpy(float), mom[col].to_numpy(float), rtol=1e-9,
+                        err_msg=col)
+    a, b = dask_run.tables["influential_rows"], runs["moments"].tables["influential_rows"]
+    assert a["row"].tolist() == b["row"].tolist()   # row numbers count across partitions
+    assert_allclose(a["cooks_distance"].to_numpy(float), b["cooks_distance"].to_numpy(float),
+                    rtol=1e-9)
+
+
+def test_points_to_check_of_the_pooled_line_equal_the_in_memory_road(runs):
+    cols = ["scope", "group", "method", "severity", "kind", "row", "value", "reason"]
+    mem = runs["memory"].tables["points_to_check"]
+    mom = runs["moments"].tables["points_to_check"]
+    mem = mem[mem["scope"] == "pooled"][cols].reset_index(drop=True)
+    mom = mom[mom["scope"] == "pooled"][cols].reset_index(drop=True)
+    assert set(mem["kind"]) == {"influence", "group_residuals"}
+    # internal consistency: leave-one-out refits and f_oneway on the rows in memory
+    assert_allclose(mom["value"].to_numpy(float), mem["value"].to_numpy(float), rtol=1e-9)
+    pd.testing.assert_frame_equal(mom.drop(columns="value"), mem.drop(columns="value"))
+
+
+def test_influence_verdicts_count_every_row_above_four_over_n(runs):
+    mem = runs["memory"].tables["diagnostics"]
+    mom = runs["moments"].tables["diagnostics"]
+    for frame in (mem, mom):
+        assert frame.columns.tolist()[-1] == "verdict"
+    pick = (mem["scope"] == "pooled") & (mem["check"] == "influence")
+    mine = (mom["scope"] == "pooled") & (mom["check"] == "influence")
+    # internal consistency: the in-memory verdict counts statsmodels' distances > 4/n
+    count = [v.split(" row(s)")[0] for v in mem.loc[pick, "verdict"]]
+    assert [v.split(" row(s)")[0] for v in mom.loc[mine, "verdict"]] == count
+    assert int(count[0]) > TOP_K
+    infl = [t for t in runs["moments"].messages if t.startswith("Influence:")]
+    assert infl and f"Influence: {count[0]} point(s)" in infl[0]
