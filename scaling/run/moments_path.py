@@ -31,7 +31,7 @@ The plain-language sentences are small functions here (to move into
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -228,6 +228,9 @@ class MomentsStage:
         The run's manifest entries of this path (``large_data``).
     moments : GroupedMoments or None
         The per-group moments the fits came from (read again by the second pass).
+    point_sets : dict
+        After :func:`with_groups`: the group means as points (``("group_means", "")``),
+        on which the second pass measures the line through them.
     """
 
     config: object
@@ -240,6 +243,7 @@ class MomentsStage:
     notes: tuple = ()
     manifest: dict
     moments: object = None   # the second pass (run/second_pass.py) reads them
+    point_sets: dict = field(default_factory=dict)
 
 
 def moments_stage(cfg, reason: str) -> MomentsStage:
@@ -366,6 +370,7 @@ def with_groups(path: MomentsStage, grouped, cfg) -> MomentsStage:
     return replace(path, fits=fits, slope_tests=tests,
                    line_fits={**path.line_fits, **grouped.line_fits},
                    tables={**path.tables, **grouped.tables},
+                   point_sets={**path.point_sets, **grouped.point_sets},
                    messages=path.messages + grouped.messages,
                    notes=path.notes + grouped.notes)
 

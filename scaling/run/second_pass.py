@@ -56,7 +56,7 @@ from ..stats.streaming_residuals import (TOP_K, GroupResidualSums, ResidualSums,
 from .diagnostics import exponent_targets
 from .moments_path import _sep
 from .points_to_check import primary_method
-from .predictions import predictions_from_factors, saved_fits_of
+from .predictions import accuracy_and_factors, predictions_from_factors, saved_fits_of
 
 __all__ = ["SecondPass", "second_pass", "residual_sums", "ROW_ONLY_STAGES"]
 
@@ -213,7 +213,8 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
 
 
 def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
-                base, other_tables: dict | None = None) -> SecondPass:
+                base, other_tables: dict | None = None,
+                point_sets: dict | None = None) -> SecondPass:
     """Residual sums over a second read of the file, and the tables they give.
 
     Parameters
@@ -231,6 +232,9 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     other_tables : dict, optional
         The run's tables so far (``group_tests`` decides the answer's model,
         whose checks the verdict sentences speak of).
+    point_sets : dict, optional
+        ``(scope, group) -> points`` held in memory (the group means): their fits'
+        accuracy and factors are measured on them, as on the in-memory road.
     """
     other_tables = other_tables or {}
     methods = list(dict.fromkeys(fits["method"]))
@@ -271,6 +275,9 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
                           "smearing_factor": float(res.smearing[i, j]),
                           "parametric_factor": float(res.parametric[i, j]),
                           "ratio_factor": float(res.ratio[i, j])}
+    if point_sets:   # the line through the group means: its points are in memory
+        held = {k: f for k, f in all_fits.items() if (k[0], k[1]) in point_sets}
+        extra.update(accuracy_and_factors(held, point_sets)[1])
     saved = saved_fits_of(all_fits, extra)
     predicted = predictions_from_factors(cfg, fits=fits, line_fits=all_fits, saved=saved,
                                          extra=extra, units=units, base=base,
@@ -536,10 +543,11 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
     return table
 
 
-def with_second_pass(result, cfg, gm, units, base):
-    """``result`` (a RunResult of the moments path) with the second pass's tables."""
+def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None):
+    """``result`` (a RunResult of the moments path) with the second pass's tables;
+    ``point_sets``: points held in memory (the group means), measured as in memory."""
     extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
-                        other_tables=result.tables)
+                        other_tables=result.tables, point_sets=point_sets)
     return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
                    tables={**result.tables, **extra.tables},
                    messages=result.messages + extra.messages,
