@@ -269,6 +269,10 @@ class TestTwoAcceptedRanges:
         assert "95% CI -2.098 to -0.477 or 0.477 to 2.098" in head.sentences[0]
         assert any("Pooled SMA exponent 1.000 (95% CI -2.098 to -0.477 or 0.477 to 2.098)"
                    in m for m in res.messages)
+        from scaling.render.report import render_fits_tex
+        sma_row = [ln for ln in render_fits_tex(res).splitlines()
+                   if ln.startswith("pooled & ") and "SMA" in ln][0]
+        assert "$-$2.098 to $-$0.4767 or 0.4767--2.098" in sma_row   # the two accepted ranges
 
 
 class TestCalibratedPAtItsFloor:

@@ -835,6 +835,10 @@ def render_fits_tex(result) -> str:
              "\\begin{tabular}{lllrrcrcr}", "\\hline", " & ".join(head) + " \\\\", "\\hline"]
     for r in result.fits.itertuples(index=False):
         ci_b = _tex_interval(r.slope_low, r.slope_high, "slope_low")
+        gap = (getattr(r, "slope_gap_low", np.nan), getattr(r, "slope_gap_high", np.nan))
+        if np.isfinite(gap[0]) and np.isfinite(gap[1]):   # SMA's accepted set: two ranges
+            ci_b = (f"{_tex_interval(r.slope_low, gap[0], 'slope_low')} or "
+                    f"{_tex_interval(gap[1], r.slope_high, 'slope_low')}")
         ci_a = _tex_interval(r.intercept_low, r.intercept_high, "x")
         cells = [latex_escape(r.scope), latex_escape(r.group), latex_escape(method_label(r.method)),
                  _tex_num(r.n, "n"), _tex_num(r.slope, "slope"), ci_b,
