@@ -273,6 +273,11 @@ class TestTwoAcceptedRanges:
         sma_row = [ln for ln in render_fits_tex(res).splitlines()
                    if ln.startswith("pooled & ") and "SMA" in ln][0]
         assert "$-$2.098 to $-$0.4767 or 0.4767--2.098" in sma_row   # the two accepted ranges
+        from scaling.render.figure_exponents import plot_exponents
+        ax = plot_exponents(res, methods=["sma"])
+        bars = sorted(tuple(np.round(ln.get_xdata(), 3)) for ln in ax.lines
+                      if len(ln.get_xdata()) == 2 and ln.get_ydata()[0] == ln.get_ydata()[1])
+        assert bars == [(-2.098, -0.477), (0.477, 2.098)]   # the gap is not drawn as accepted
 
 
 class TestCalibratedPAtItsFloor:

@@ -73,6 +73,21 @@ def _table_fit(result, scope: str, method: str):
                                                        float(row["slope_high"])))
 
 
+def _accepted_ranges(fits, scope: str, group: str, method: str, lo: float, hi: float) -> list:
+    """The interval as drawn: one range, or SMA's two accepted ranges when fits.csv has a
+    gap (``slope_gap_low`` .. ``slope_gap_high`` is rejected by the test)."""
+    if fits is None or "slope_gap_low" not in fits:
+        return [(lo, hi)]
+    row = fits[(fits["scope"] == scope) & (fits["group"].astype(str) == str(group))
+               & (fits["method"] == method)]
+    if not len(row):
+        return [(lo, hi)]
+    gap_lo, gap_hi = float(row["slope_gap_low"].iloc[0]), float(row["slope_gap_high"].iloc[0])
+    if np.isfinite(gap_lo) and np.isfinite(gap_hi):
+        return [(lo, gap_lo), (gap_hi, hi)]
+    return [(lo, hi)]
+
+
 @styled
 def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
     """Every fitted exponent with its interval, and the hypothesised exponents.
@@ -115,7 +130,9 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
             y = i + offsets[j]
             lo, hi = fit.slope_ci.low, fit.slope_ci.high
             if np.isfinite(lo) and np.isfinite(hi):
-                ax.plot([lo, hi], [y, y], color=shade, lw=1.0, solid_capstyle="butt", zorder=2)
+                for a, b in _accepted_ranges(result.fits, scope, group, method, lo, hi):
+                    ax.plot([a, b], [y, y], color=shade, lw=1.0, solid_capstyle="butt",
+                            zorder=2)
                 lows.append(lo)
                 highs.append(hi)
             else:
