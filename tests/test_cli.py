@@ -69,7 +69,7 @@ class TestRun:
         assert set(tests["method"]) == {"ols", "sma", "ma"}
         pairs = pd.read_csv(out / "pairwise_tests.csv")
         assert list(pairs.columns) == ["method", "test", "group_a", "group_b", "statistic",
-                                       "df", "p_value", "p_adjusted"]
+                                       "df", "p_value", "p_adjusted", "p_method"]
         fits = pd.read_csv(out / "fits.csv")
         assert set(fits.loc[fits["scope"] == "group_means", "n"]) == {5}
 
