@@ -297,7 +297,9 @@ def _as_text(series: pd.Series) -> pd.Series:
         out = [v.strip() for v in values]
     except (AttributeError, TypeError):   # numbers, NaN, None, dates: cell by cell
         out = [_text(v) for v in values]
-    return pd.Series(out, index=series.index)
+    # object dtype: building an Arrow string column of a million cells costs more
+    # than the stripping; the text rules below build one for the few cells they need
+    return pd.Series(out, index=series.index, dtype=object)
 
 
 def _is_blank(series: pd.Series) -> np.ndarray:

@@ -96,12 +96,12 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         frame.insert(0, "scope", scope)
         frame.insert(1, "group", group)
         diag_frames.append(frame)
-        for rec in d.influence_frame().to_dict(orient="records"):
-            row = int(rec["row"])
+        infl = d.influence_frame()
+        for row, cook in zip(infl["row"].tolist(), infl["cooks_distance"].tolist()):
+            row = int(row)
             infl_rows.append({"scope": scope, "group": group, "method": method,
                               "row": None if scope == "group_means" else row,
-                              "label": labels.get(row, ""),
-                              "cooks_distance": rec["cooks_distance"]})
+                              "label": labels.get(row, ""), "cooks_distance": cook})
         if (scope, group) not in {(r["scope"], r["group"]) for r in curv_rows}:
             c = d.curvature
             x = sel["log_x"].to_numpy()

@@ -274,6 +274,8 @@ def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps) -> 
     inf = strong_influence(X, Y, method=method)
     flagged = np.flatnonzero(inf["flag"])
     flagged = flagged[np.argsort(-inf["cook"][flagged], kind="stable")][:MAX_REFITS]
+    if not flagged.size:   # nothing to refit: skip the table look-up (once per group)
+        return []
     slope, se, before = _stated(state, scope, group, method, hyps)
     out = []
     for i in flagged:

@@ -51,6 +51,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 from scipy import stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
@@ -223,9 +224,16 @@ class Diagnostics:
     def influence_frame(self):
         """Rows above the Cook's distance threshold (columns row, cooks_distance)."""
         import pandas as pd
-        pos = {int(r): i for i, r in enumerate(self.rows)}
-        return pd.DataFrame([{"row": r, "cooks_distance": float(self.cooks_distance[pos[r]])}
-                             for r in self.influential_rows],
+        if not self.influential_rows:
+            return pd.DataFrame([], columns=["row", "cooks_distance"])
+        rows = np.asarray(self.rows).astype(np.int64)
+        # position of each flagged row (the last one should a row number repeat)
+        sorter = np.argsort(rows, kind="stable")
+        flagged = np.asarray(self.influential_rows, dtype=np.int64)
+        at = sorter[np.searchsorted(rows, flagged, side="right", sorter=sorter) - 1]
+        return pd.DataFrame({"row": list(self.influential_rows),
+                             "cooks_distance": np.asarray(self.cooks_distance,
+                                                          dtype=float)[at]},
                             columns=["row", "cooks_distance"])
 
 
@@ -427,8 +435,21 @@ def _group_codes(groups, n: int) -> tuple:
     g = np.asarray(groups)
     if g.shape != (n,):
         raise DataError(f"groups must give one value per point ({n}), not shape {g.shape}")
-    labels, codes = np.unique(g.astype(str), return_inverse=True)
-    return codes, labels
+    return unique_codes(g)
+
+
+def unique_codes(values) -> tuple:
+    """(codes, labels): ``np.unique(values.astype(str), return_inverse=True)`` reversed,
+    through one hash pass (sorting a million strings costs about a second; only the
+    distinct labels are sorted here)."""
+    text = np.asarray(values).astype(str)
+    if not text.size:
+        return np.zeros(0, dtype=np.intp), text
+    first, uniq = pd.factorize(text)
+    order = np.argsort(uniq, kind="stable")
+    rank = np.empty(order.size, dtype=np.intp)
+    rank[order] = np.arange(order.size)
+    return rank[first], np.asarray(uniq[order], dtype=text.dtype)
 
 
 def _within(A: np.ndarray, codes: np.ndarray, n_groups: int) -> np.ndarray:
