@@ -302,29 +302,57 @@ def _as_text(series: pd.Series) -> pd.Series:
     return pd.Series(out, index=series.index, dtype=object)
 
 
-def _is_blank(series: pd.Series) -> np.ndarray:
-    """Mask of the cells :func:`_as_text` would make "" (numbers only when missing)."""
-    dtype = series.dtype
-    if isinstance(dtype, np.dtype) and dtype.kind in "biuf":
-        return series.isna().to_numpy()
-    return (_as_text(series) == "").to_numpy()
+class _Texts:
+    """:func:`_as_text` of a table's columns, each made once (cleaning reads a column's
+    text for blank lines, exclusions, groups and numbers).  Columns are held by
+    position: two header cells may strip to the same name."""
+
+    def __init__(self, table: pd.DataFrame) -> None:
+        self.table = table
+        self.made: dict = {}
+
+    def at(self, j: int) -> pd.Series:
+        if j not in self.made:
+            self.made[j] = _as_text(self.table.iloc[:, j])
+        return self.made[j]
+
+    def __call__(self, column) -> pd.Series:
+        """The text of the column named ``column`` (one the config names: unique)."""
+        return self.at(self.table.columns.get_loc(column))
+
+    def to_parse(self, column) -> pd.Series | None:
+        """The text :func:`_parse_numbers` reads (None for a number column: not needed)."""
+        j = self.table.columns.get_loc(column)
+        dtype = self.table.iloc[:, j].dtype
+        numeric = pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
+        return None if numeric else self.at(j)
+
+    def blank(self, j: int) -> np.ndarray:
+        """Mask of the cells of column ``j`` whose text is "" (a number column: only its
+        missing cells)."""
+        series = self.table.iloc[:, j]
+        dtype = series.dtype
+        if isinstance(dtype, np.dtype) and dtype.kind in "biuf":
+            return series.isna().to_numpy()
+        return (self.at(j) == "").to_numpy()
 
 
 _CENSORED = r"^[<>]\s*=?\s*[-+]?\d"
 
 
-def _parse_numbers(series: pd.Series, decimal: str):
+def _parse_numbers(series: pd.Series, decimal: str, *, text: pd.Series | None = None):
     """Return (values, problem, raw) arrays: float values, '' or a problem word, and the text.
 
     Numbers are parsed for the whole column at once; the text rules (missing
     tokens, censored values) are applied only to the cells that did not parse.
+    ``text``: the column's :func:`_as_text`, when the caller has it already.
     """
     n = len(series)
     if pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype):
         values = series.to_numpy(dtype=float, na_value=np.nan)
         raw = np.full(n, "", dtype=object)
     else:
-        text = _as_text(series)
+        text = _as_text(series) if text is None else text
         cleaned = text.str.replace(",", ".", regex=False) if decimal == "," else text
         values = pd.to_numeric(cleaned, errors="coerce").to_numpy(dtype=float)
         raw = text.to_numpy(dtype=object)
@@ -399,16 +427,16 @@ class _Reasons:
         return out
 
 
-def _blank_and_excluded(table, keep, reasons, cfg, path):
+def _blank_and_excluded(table, keep, reasons, cfg, path, texts: _Texts):
     """Note blank lines and rows matched by ``data.exclude`` in ``reasons``; warn about
     exclude values that match nothing.  Returns the mask of rows still active."""
     blank = np.ones(len(table), dtype=bool)
-    for column in table.columns:
-        blank &= _is_blank(table[column])
+    for j in range(table.shape[1]):
+        blank &= texts.blank(j)
     reasons.add(np.flatnonzero(blank & keep), "blank line")
     active = keep & ~blank
     for column, values in cfg.exclude.items():
-        text = _as_text(table[column])
+        text = texts(column)
         hit = _matches(text, values)
         at = np.flatnonzero(hit & active)
         shown = text.to_numpy(dtype=object)[at]
@@ -469,18 +497,19 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
         _column(table, column, f"data.exclude.{column}", path)
 
     reasons = _Reasons(len(table))
-    active = _blank_and_excluded(table, keep, reasons, cfg, path)
+    texts = _Texts(table)
+    active = _blank_and_excluded(table, keep, reasons, cfg, path, texts)
 
     if g_col is not None:
-        g_text = _as_text(g_col).to_numpy()
+        g_text = texts(cfg.group).to_numpy()
         reasons.add(np.flatnonzero((g_text == "") & active), f"group ({cfg.group}) is missing")
     if u_col is not None:
-        u_text = _as_text(u_col).to_numpy()
+        u_text = texts(cfg.average_within).to_numpy()
         reasons.add(np.flatnonzero((u_text == "") & active),
                     f"{cfg.average_within} (data.average_within) is missing")
 
-    x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal)
-    y_val, y_prob, y_raw = _parse_numbers(y_col, cfg.decimal)
+    x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal, text=texts.to_parse(cfg.x))
+    y_val, y_prob, y_raw = _parse_numbers(y_col, cfg.decimal, text=texts.to_parse(cfg.y))
     for role, column, prob, raw in (("x", cfg.x, x_prob, x_raw), ("y", cfg.y, y_prob, y_raw)):
         _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
         at = np.flatnonzero((prob != "") & active)
@@ -610,9 +639,11 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
     reasons = _Reasons(len(table))
-    active = _blank_and_excluded(table, keep, reasons, cfg, path)
-    parsed = [("x", name, *_parse_numbers(col, cfg.decimal)) for name, col in zip(xs, x_cols)]
-    parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal)))
+    texts = _Texts(table)
+    active = _blank_and_excluded(table, keep, reasons, cfg, path, texts)
+    parsed = [("x", name, *_parse_numbers(col, cfg.decimal, text=texts.to_parse(name)))
+              for name, col in zip(xs, x_cols)]
+    parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal, text=texts.to_parse(cfg.y))))
     for role, column, _, prob, raw in parsed:
         _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
         at = np.flatnonzero((prob != "") & active)

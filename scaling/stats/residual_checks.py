@@ -226,15 +226,21 @@ class Diagnostics:
         import pandas as pd
         if not self.influential_rows:
             return pd.DataFrame([], columns=["row", "cooks_distance"])
+        rows, cooks = self.influence_values()
+        return pd.DataFrame({"row": rows, "cooks_distance": cooks},
+                            columns=["row", "cooks_distance"])
+
+    def influence_values(self) -> tuple:
+        """(flagged rows, their Cook's distances) as lists: the columns of
+        :meth:`influence_frame`, without building a frame."""
+        if not self.influential_rows:
+            return [], []
         rows = np.asarray(self.rows).astype(np.int64)
         # position of each flagged row (the last one should a row number repeat)
         sorter = np.argsort(rows, kind="stable")
         flagged = np.asarray(self.influential_rows, dtype=np.int64)
         at = sorter[np.searchsorted(rows, flagged, side="right", sorter=sorter) - 1]
-        return pd.DataFrame({"row": list(self.influential_rows),
-                             "cooks_distance": np.asarray(self.cooks_distance,
-                                                          dtype=float)[at]},
-                            columns=["row", "cooks_distance"])
+        return list(self.influential_rows), np.asarray(self.cooks_distance, dtype=float)[at].tolist()
 
 
 # --------------------------------------------------------------------------
@@ -323,7 +329,7 @@ def _checked_logs(log_x, log_y) -> tuple:
 
 
 def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
-             alpha: float = 0.05) -> Diagnostics:
+             alpha: float = 0.05, memo: dict | None = None) -> Diagnostics:
     """Residual normality, constant variance, curvature and influence of a fit.
 
     Parameters
@@ -341,6 +347,11 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         quadratic fit reaches them.
     alpha : float
         Level at which checks are flagged.
+    memo : dict, optional
+        One empty dict per set of points, passed to every call for lines
+        fitted to those same points: the parts that do not depend on the
+        line (the quadratic fit, the OLS Cook's distances) are computed by the
+        first call and read by the others.
 
     Returns
     -------
@@ -385,11 +396,14 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         warnings.warn("residuals are all equal: the constant-variance test is not defined",
                       DegenerateDataWarning, stacklevel=2)
     checks.append(_constant_variance(resid, X, het_breuschpagan, alpha))
-    curv, check = _curvature({k: float(v) for k, v in quadratic_t(X, Y).items()}, X, targets,
-                             fit.log_base, alpha)
+    memo = {} if memo is None else memo
+    if "quadratic" not in memo:   # the same for every line through these points
+        memo["quadratic"] = {k: float(v) for k, v in quadratic_t(X, Y).items()}
+        memo["cooks"] = np.asarray(OLSInfluence(OLS(Y, exog).fit()).cooks_distance[0],
+                                   dtype=float)
+    curv, check = _curvature(memo["quadratic"], X, targets, fit.log_base, alpha)
     checks.append(check)
-    infl = OLSInfluence(OLS(Y, exog).fit())
-    cooks = np.asarray(infl.cooks_distance[0], dtype=float)
+    cooks = memo["cooks"]
     threshold = 4.0 / n
     checks.append(_influence(cooks, rows, threshold))
     influential = checks[-1].rows
