@@ -292,6 +292,11 @@ def _as_text(series: pd.Series) -> pd.Series:
     A column of text (what ``read_csv`` gives) is stripped by ``str.strip``
     directly; any other cell goes through :func:`_text`.
     """
+    dtype = series.dtype
+    if isinstance(dtype, pd.StringDtype) and dtype.na_value is np.nan:
+        # what read_csv gives: stripped in Arrow, no Python string per cell (Arrow's
+        # whitespace is Python's, checked for every code point); missing -> ""
+        return series.str.strip().fillna("")
     values = series.to_numpy(dtype=object)
     try:
         out = [v.strip() for v in values]
@@ -355,7 +360,7 @@ def _parse_numbers(series: pd.Series, decimal: str, *, text: pd.Series | None = 
         text = _as_text(series) if text is None else text
         cleaned = text.str.replace(",", ".", regex=False) if decimal == "," else text
         values = pd.to_numeric(cleaned, errors="coerce").to_numpy(dtype=float)
-        raw = text.to_numpy(dtype=object)
+        raw = text.array   # read cell by cell only where a cell failed
     problem = np.full(n, "", dtype=object)
     nan = np.isnan(values)
     failed = np.flatnonzero(nan)
@@ -513,8 +518,8 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     for role, column, prob, raw in (("x", cfg.x, x_prob, x_raw), ("y", cfg.y, y_prob, y_raw)):
         _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
         at = np.flatnonzero((prob != "") & active)
-        reasons.add(at, [_reason(role, column, prob[i], str(raw[i]), cfg.decimal)
-                         for i in at.tolist()])
+        reasons.add(at, [_reason(role, column, p, str(r), cfg.decimal)
+                         for p, r in zip(prob[at], np.asarray(raw[at], dtype=object))])
 
     dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
 
@@ -647,8 +652,8 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
     for role, column, _, prob, raw in parsed:
         _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
         at = np.flatnonzero((prob != "") & active)
-        reasons.add(at, [_reason(role, column, prob[i], str(raw[i]), cfg.decimal)
-                         for i in at.tolist()])
+        reasons.add(at, [_reason(role, column, p, str(r), cfg.decimal)
+                         for p, r in zip(prob[at], np.asarray(raw[at], dtype=object))])
     dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
     pts = pd.DataFrame({"row": rows[use].astype(int)})
     for j, (_, _, values, _, _) in enumerate(parsed[:-1]):
