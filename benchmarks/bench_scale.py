@@ -148,11 +148,12 @@ def plain_loop(path: Path) -> int:
     return len(index)
 
 
-def _child_rss(args: list) -> tuple:
+def _child_rss(args: list, cwd=None) -> tuple:
     """Run ``args`` in a child; return (seconds, peak RSS in bytes of that child,
     (exit code, stderr, CPU seconds))."""
     t0 = time.perf_counter()
-    proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            cwd=cwd)
     err = proc.stderr.read()   # before waiting: a full pipe would block the child
     _, status, usage = os.wait4(proc.pid, 0)
     secs = time.perf_counter() - t0
@@ -176,13 +177,15 @@ def versus_loop(df: pd.DataFrame, repeats: int) -> None:
                        "  moments_above_mb: 100000\nexponents:\n  three_quarters: 0.75\n"
                        "  two_thirds: 0.6667\ngroups:\n  compare: true\n"
                        "figures:\n  formats: [png]\noutput:\n  dir: out\n", encoding="utf-8")
+        # cwd: the temporary folder, so the child imports the installed package (or
+        # PYTHONPATH's), not a checkout in the current folder
         _, base_rss, _ = _child_rss([sys.executable, "-c", "import scaling.run.pipeline, "
-                                     "scaling.render.figures"])
+                                     "scaling.render.figures"], cwd=tmp)
         best_run, best_loop, peak = np.inf, np.inf, 0
         cpu_run, cpu_loop = np.inf, np.inf
         for _ in range(repeats):   # round-robin; the best time of each counts
             secs, rss, (code, err, cpu) = _child_rss(cmd + ["run", str(cfg), "--quiet",
-                                                            "--force"])
+                                                            "--force"], cwd=tmp)
             if code:
                 print(f"(e) scaling run FAILED: {err.strip()[-400:]}")
                 return
