@@ -23,6 +23,18 @@ group column, groups of equal size, rows in random order), it measures
               peak resident memory is reported against a child that only
               imports the same modules.
 
+(e) run vs loop -- with ``--versus-loop`` (alone): ``scaling run`` (the command,
+              in a child process, in memory: the file is under
+              ``data.moments_above_mb``) on the table written as a CSV file, groups
+              compared, PNG figures, against a plain loop in this process over
+              the same file: ``pandas.read_csv``, then for each group
+              statsmodels OLS (estimate, interval, t tests of two exponents),
+              scipy.odr (the MA line) and numpy SMA (slope and interval).  Every
+              group is fitted (no scaling up).  Printed: the ratio run / loop
+              (target <= 1.5) and the run's peak RSS against the bytes of the
+              three input columns (target <= 10), also above a child that only
+              imports the package.
+
 Ratios printed: (b)/(a), (c)/(b); peak memory of (b) under tracemalloc
 (numpy reports its allocations) against the in-memory size of the three
 input columns (``memory_usage(deep=True)``); rows per second.  (a) and (b)
@@ -32,6 +44,7 @@ Targets: (b) within 2.5x of (a); (c)/(b) >= 10 at 1e4 groups of
 1e3 rows; peak memory of (b) < 3x the three input columns.
 
 Run:   python benchmarks/bench_scale.py                      # 1e6 rows, 1e3 groups
+       python benchmarks/bench_scale.py --versus-loop        # (e) only
        python benchmarks/bench_scale.py --rows 1e7 --groups 1e4
        python benchmarks/bench_scale.py --rows 1e7 --groups 1e4 --run --no-parquet
 """
@@ -105,6 +118,103 @@ def run_loop(df: pd.DataFrame, index: dict, names) -> None:
         out.sd_beta
 
 
+def sma_interval(X: np.ndarray, Y: np.ndarray, alpha: float = 0.05) -> tuple:
+    """SMA slope and its interval, b (sqrt(B + 1) -+ sqrt(B)) with
+    B = (1 - r^2) F(1, n - 2) / (n - 2) (Warton et al. 2006, Biol. Rev. 81:259)."""
+    n = X.size
+    xc, yc = X - X.mean(), Y - Y.mean()
+    sxx, syy, sxy = xc @ xc, yc @ yc, xc @ yc
+    r2 = sxy * sxy / (sxx * syy)
+    b = np.sign(sxy) * np.sqrt(syy / sxx)
+    B = (1 - r2) * stats.f.ppf(1 - alpha, 1, n - 2) / (n - 2)
+    return b, b * (np.sqrt(B + 1) - np.sqrt(B)), b * (np.sqrt(B + 1) + np.sqrt(B))
+
+
+def plain_loop(path: Path) -> int:
+    """(e)'s loop: read the file, then OLS, MA (scipy.odr) and SMA for every group."""
+    df = pd.read_csv(path)
+    index = df.groupby("species", sort=False).indices
+    mass, rate = df["mass"].to_numpy(), df["rate"].to_numpy()
+    for rows in index.values():
+        X, Y = np.log10(mass[rows]), np.log10(rate[rows])
+        fit = sm.OLS(Y, sm.add_constant(X)).fit()
+        fit.conf_int()
+        for b0 in EXPONENTS.values():
+            t = (fit.params[1] - b0) / fit.bse[1]
+            2 * stats.t.sf(abs(t), fit.df_resid)
+        out = odr.ODR(odr.RealData(X, Y), odr.unilinear, beta0=fit.params[::-1]).run()
+        out.sd_beta
+        sma_interval(X, Y)
+    return len(index)
+
+
+def _child_rss(args: list, cwd=None) -> tuple:
+    """Run ``args`` in a child; return (seconds, peak RSS in bytes of that child,
+    (exit code, stderr, CPU seconds))."""
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            cwd=cwd)
+    err = proc.stderr.read()   # before waiting: a full pipe would block the child
+    _, status, usage = os.wait4(proc.pid, 0)
+    secs = time.perf_counter() - t0
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    proc.stdout.close()
+    proc.stderr.close()
+    cpu = usage.ru_utime + usage.ru_stime   # with the figure process it waited for
+    return secs, usage.ru_maxrss * 1024, (proc.returncode, err, cpu)
+
+
+def versus_loop(df: pd.DataFrame, repeats: int) -> None:
+    """(e): ``scaling run`` in memory against the plain per-group loop, same file, same run."""
+    rows, groups = len(df), df["species"].nunique()
+    input_bytes = int(df.memory_usage(deep=True, index=False).sum())
+    cmd = [sys.executable, "-c", "import sys; from scaling.cli import main; sys.exit(main())"]
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "table.csv"
+        df.to_csv(path, index=False)
+        cfg = Path(tmp) / "run.yaml"
+        cfg.write_text("data:\n  file: table.csv\n  x: mass\n  y: rate\n  group: species\n"
+                       "  moments_above_mb: 100000\nexponents:\n  three_quarters: 0.75\n"
+                       "  two_thirds: 0.6667\ngroups:\n  compare: true\n"
+                       "figures:\n  formats: [png]\noutput:\n  dir: out\n", encoding="utf-8")
+        # cwd: the temporary folder, so the child imports the installed package (or
+        # PYTHONPATH's), not a checkout in the current folder
+        _, base_rss, _ = _child_rss([sys.executable, "-c", "import scaling.run.pipeline, "
+                                     "scaling.render.figures"], cwd=tmp)
+        best_run, best_loop, peak = np.inf, np.inf, 0
+        cpu_run, cpu_loop = np.inf, np.inf
+        for _ in range(repeats):   # round-robin; the best time of each counts
+            secs, rss, (code, err, cpu) = _child_rss(cmd + ["run", str(cfg), "--quiet",
+                                                            "--force"], cwd=tmp)
+            if code:
+                print(f"(e) scaling run FAILED: {err.strip()[-400:]}")
+                return
+            best_run, peak, cpu_run = min(best_run, secs), max(peak, rss), min(cpu_run, cpu)
+            t0, c0 = time.perf_counter(), time.process_time()
+            fitted = plain_loop(path)
+            best_loop = min(best_loop, time.perf_counter() - t0)
+            cpu_loop = min(cpu_loop, time.process_time() - c0)
+        size = path.stat().st_size
+        figures = sorted(p.name for p in (Path(tmp) / "out" / "figures").iterdir())
+    ratio = best_run / best_loop
+    print(f"(e) {rows:,} rows in {groups:,} groups, csv file of {size / 1e6:.0f} MB; best of "
+          f"{repeats}")
+    print(f"    scaling run (in memory, groups compared, png: {', '.join(figures)}): "
+          f"{best_run:7.2f} s")
+    print(f"    plain loop (read_csv + statsmodels OLS + scipy.odr + numpy SMA, "
+          f"{fitted:,} groups): {best_loop:7.2f} s")
+    print(f"    ratio run / loop = {ratio:5.2f}   target <= 1.5 : "
+          f"{'met' if ratio <= 1.5 else 'NOT met'}")
+    print(f"    CPU seconds (what a busy machine distorts least): run {cpu_run:.2f} s "
+          f"(its figure process included), loop {cpu_loop:.2f} s, ratio "
+          f"{cpu_run / cpu_loop:5.2f}")
+    print(f"    peak RSS of the run {peak / 1e6:.0f} MB = {peak / input_bytes:.1f}x the three "
+          f"input columns ({input_bytes / 1e6:.0f} MB)   target <= 10x : "
+          f"{'met' if peak <= 10 * input_bytes else 'NOT met'}; above a child that only "
+          f"imports the package ({base_rss / 1e6:.0f} MB): {(peak - base_rss) / 1e6:.0f} MB = "
+          f"{(peak - base_rss) / input_bytes:.1f}x")
+
+
 def best_of(fns: dict, repeats: int) -> dict:
     best = {k: np.inf for k in fns}
     for _ in range(repeats):
@@ -160,8 +270,14 @@ def main(argv=None) -> int:
     ap.add_argument("--run-format", choices=("parquet", "csv"), default="parquet")
     ap.add_argument("--run-only", action="store_true",
                     help="time only (a) and (b'), skipping (b), (c) and (d)")
+    ap.add_argument("--versus-loop", action="store_true",
+                    help="time only (e): `scaling run` against a plain per-group loop")
     a = ap.parse_args(argv)
     rows, groups = int(a.rows), int(a.groups)
+    if a.versus_loop:
+        print(f"{os.cpu_count()} CPUs; numpy {np.__version__}, pandas {pd.__version__}")
+        versus_loop(make_table(rows, groups), a.repeats)
+        return 0
 
     print(f"{rows:,} rows in {groups:,} groups ({rows // groups:,} rows each); "
           f"{os.cpu_count()} CPUs; numpy {np.__version__}, pandas {pd.__version__}")

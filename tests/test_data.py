@@ -310,3 +310,39 @@ class TestCleanTableSeveral:
         assert data.points[["x0", "x1", "y"]].to_numpy().tolist() == [
             [10, 8, 4], [15, 9, 6], [25, 11, 8]]
         np.testing.assert_allclose(data.points["log_x1"], np.log10([8, 9, 11]), rtol=1e-12)
+
+
+class TestColumnParsing:
+    """Whole-column parsing gives what the cell-by-cell text rules give."""
+
+    CELLS = ["1.5", " 2 ", "", "NA", "n/a", "<0.1", "> = 3", "abc", "0", "-1", "inf", "1,5",
+             " ", "nan", "?", "3e2", "\t4\t", "1e400", "#N/A", "<x", "\u00a05\u00a0"]
+
+    @staticmethod
+    def _one_by_one(cells, decimal="."):
+        from scaling.io.tables import _parse_numbers
+        out = [_parse_numbers(pd.Series([c], dtype=object), decimal) for c in cells]
+        return (np.array([o[0][0] for o in out]), [o[1][0] for o in out],
+                [o[2][0] for o in out])
+
+    @pytest.mark.parametrize("decimal", [".", ","])
+    @pytest.mark.parametrize("dtype", ["str", object])
+    def test_column_equals_cell_by_cell(self, decimal, dtype):
+        from scaling.io.tables import _parse_numbers
+        cells = self.CELLS * 3
+        series = pd.Series(cells, dtype=dtype)
+        if dtype is object:
+            series.iloc[[1, 2, 3]] = [2.5, None, np.nan]
+        values, problem, raw = _parse_numbers(series, decimal)
+        v1, p1, r1 = self._one_by_one(list(series), decimal)
+        # internal consistency: one column at once against one cell at a time
+        np.testing.assert_array_equal(values, v1)
+        assert list(problem) == p1 and list(raw) == r1
+        assert problem[cells.index("<0.1")] == "censored"       # common practice, no source
+        assert problem[cells.index("NA")] == "missing"
+
+    def test_blank_and_whitespace_cells_are_text_free(self):
+        from scaling.io.tables import _as_text
+        series = pd.Series([" a ", np.nan, "\t", 3, None, 2.5], dtype=object)
+        # the text rule: missing -> "", anything else str() and stripped
+        assert list(_as_text(series)) == ["a", "", "", "3", "", "2.5"]

@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pandas as pd
 
-from scaling.io.output import json_safe, records
+from scaling.io.output import CSV_ONLY, json_safe, records, write_json
 
 
 def _mixed_frame() -> pd.DataFrame:
@@ -37,3 +37,46 @@ class TestRecords:
     def test_frame_without_columns_gives_empty_rows(self):
         assert records(pd.DataFrame(index=range(2))) == [{}, {}]
         assert records(pd.DataFrame({"a": []})) == []
+
+
+class TestWriteJson:
+    def test_parses_to_the_document_written(self, tmp_path):
+        doc = {"title": "Ünïcode", "fits": records(_mixed_frame()), "empty": [], "none": None,
+               "nested": {"a": [1, 2.5, {"b": "c"}]}, "n": 3}
+        write_json(doc, tmp_path / "r.json")
+        text = (tmp_path / "r.json").read_text(encoding="utf-8")
+        # internal consistency: the fast writer against the standard parser
+        assert json.loads(text) == doc
+        assert "Ünïcode" in text            # written as UTF-8, not escaped
+        lines = text.splitlines()
+        # readable line by line: one line per top-level key, one per item of a list
+        assert sum(line.startswith("    {") for line in lines) == len(doc["fits"])
+        assert len(lines) == 2 + len(doc) + len(doc["fits"]) + 1   # braces, keys, items, "]"
+
+    def test_refuses_a_number_json_cannot_hold(self, tmp_path):
+        import pytest
+        with pytest.raises(ValueError):
+            write_json({"x": [float("nan")]}, tmp_path / "r.json")
+
+    def test_empty_document(self, tmp_path):
+        write_json({}, tmp_path / "r.json")
+        assert json.loads((tmp_path / "r.json").read_text()) == {}
+
+
+class TestResultsDocument:
+    def test_per_row_tables_are_named_not_copied(self, tmp_path):
+        from scaling.run.pipeline import run_config
+        data = tmp_path / "d.csv"
+        rng = np.random.default_rng(3)
+        x = rng.lognormal(1, 0.6, 60)
+        pd.DataFrame({"x": x, "y": 2 * x ** 0.75 * rng.lognormal(0, 0.1, 60)}).to_csv(
+            data, index=False)
+        cfg = {"data": {"file": str(data), "x": "x", "y": "y"}, "figures": {"formats": []}}
+        run_config(cfg, out=tmp_path / "out")
+        doc = json.loads((tmp_path / "out" / "results.json").read_text())
+        # internal consistency: each per-row table is in its CSV and only named in the JSON
+        for name in CSV_ONLY:
+            assert name not in doc
+            assert doc["csv_only"][name] == f"{name}.csv"
+            assert (tmp_path / "out" / f"{name}.csv").is_file()
+        assert doc["saved_fits"] and doc["fits"]

@@ -30,7 +30,13 @@ from .._version import __version__
 from ..errors import OutputError
 
 __all__ = ["json_safe", "records", "results_document", "check_out_dir", "write_outputs",
-           "write_csv", "file_sha256", "versions"]
+           "write_csv", "write_json", "file_sha256", "versions", "CSV_ONLY"]
+
+#: Per-row tables written to their CSV file only: in ``results.json`` they would
+#: hold most of its bytes (a row per flagged point of every fit) and nothing
+#: ``scaling predict`` or a reader of the fits needs.  ``results.json`` names
+#: their files under ``csv_only``.
+CSV_ONLY = frozenset({"influential_rows"})
 
 
 def json_safe(obj):
@@ -108,11 +114,39 @@ def results_document(result, *, caution: str) -> dict:
         "manifest": result.manifest,
     }
     clean = {"fits", "slope_tests", "dropped_rows"}   # records() are JSON-ready already
+    csv_only = {}
     for name, table in result.tables.items():
         if isinstance(table, pd.DataFrame) and not name.startswith("_"):
+            if name in CSV_ONLY:
+                csv_only[name] = f"{name}.csv"
+                continue
             doc[name] = records(table)
             clean.add(name)
+    if csv_only:
+        doc["csv_only"] = csv_only
     return {str(k): v if k in clean else json_safe(v) for k, v in doc.items()}
+
+
+def write_json(doc: dict, path: Path) -> None:
+    """Write ``doc`` as JSON: one top-level key per line block, one list item per line.
+
+    Each item is encoded by the C encoder of :mod:`json` (``json.dumps``
+    without ``indent``); ``indent`` would send millions of values through the
+    pure-Python encoder.  The file stays readable line by line and parses to
+    the same document.
+    """
+    def dumps(value) -> str:
+        return json.dumps(value, ensure_ascii=False, allow_nan=False)
+
+    parts = []
+    for key, value in doc.items():
+        if isinstance(value, list) and value:
+            body = ",\n".join("    " + dumps(item) for item in value)
+            parts.append(f"  {dumps(str(key))}: [\n{body}\n  ]")
+        else:
+            parts.append(f"  {dumps(str(key))}: {dumps(value)}")
+    with open(path, "w", encoding="utf-8") as fh:
+        fh.write("{\n" + ",\n".join(parts) + "\n}\n" if parts else "{}\n")
 
 
 def check_out_dir(out_dir: Path, force: bool) -> None:
@@ -198,8 +232,7 @@ def _write_all(result, folder: Path, draw_figures, write_report, caution) -> tup
     written += write_report(result, folder, written)
     doc = results_document(result, caution=caution)
     doc["files"] = sorted(str(p) for p in written) + ["results.json"]
-    with open(folder / "results.json", "w", encoding="utf-8") as fh:
-        json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
+    write_json(doc, folder / "results.json")
     written.append(Path("results.json"))
     return written, result
 

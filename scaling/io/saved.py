@@ -2,7 +2,8 @@
 
 ``results.json`` holds, for every estimable fit, the coefficients, moments,
 residual SD, correction factors and fitted ranges (see
-:func:`scaling.stats.lines.fit_to_dict`).  :func:`read_results` reads a results
+:func:`scaling.stats.lines.fit_to_dict`); per-row tables named under its
+``csv_only`` key (``influential_rows``) are in their CSV files only.  :func:`read_results` reads a results
 folder into a :class:`SavedRun` of plain dictionaries; :func:`read_column` and
 :func:`read_predictors` read the values to predict at from a CSV file.
 Rebuilding fits and predicting from them is

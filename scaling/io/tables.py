@@ -280,36 +280,103 @@ def _positions(at) -> str:
     return "columns " + ", ".join(map(str, at[:-1])) + f" and {at[-1]}"
 
 
+def _text(v) -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    return str(v).strip()
+
+
 def _as_text(series: pd.Series) -> pd.Series:
-    def text(v):
-        if v is None or (isinstance(v, float) and math.isnan(v)):
-            return ""
-        return str(v).strip()
-    return series.map(text)
+    """Each cell as stripped text ("" for a missing cell), in one pass over the values.
+
+    A column of text (what ``read_csv`` gives) is stripped by ``str.strip``
+    directly; any other cell goes through :func:`_text`.
+    """
+    dtype = series.dtype
+    if isinstance(dtype, pd.StringDtype) and dtype.na_value is np.nan:
+        # what read_csv gives: stripped in Arrow, no Python string per cell (Arrow's
+        # whitespace is Python's, checked for every code point); missing -> ""
+        return series.str.strip().fillna("")
+    values = series.to_numpy(dtype=object)
+    try:
+        out = [v.strip() for v in values]
+    except (AttributeError, TypeError):   # numbers, NaN, None, dates: cell by cell
+        out = [_text(v) for v in values]
+    # object dtype: building an Arrow string column of a million cells costs more
+    # than the stripping; the text rules below build one for the few cells they need
+    return pd.Series(out, index=series.index, dtype=object)
 
 
-def _parse_numbers(series: pd.Series, decimal: str):
-    """Return (values, problem) arrays: float values and '' or a problem word."""
+class _Texts:
+    """:func:`_as_text` of a table's columns, each made once (cleaning reads a column's
+    text for blank lines, exclusions, groups and numbers).  Columns are held by
+    position: two header cells may strip to the same name."""
+
+    def __init__(self, table: pd.DataFrame) -> None:
+        self.table = table
+        self.made: dict = {}
+
+    def at(self, j: int) -> pd.Series:
+        if j not in self.made:
+            self.made[j] = _as_text(self.table.iloc[:, j])
+        return self.made[j]
+
+    def __call__(self, column) -> pd.Series:
+        """The text of the column named ``column`` (one the config names: unique)."""
+        return self.at(self.table.columns.get_loc(column))
+
+    def to_parse(self, column) -> pd.Series | None:
+        """The text :func:`_parse_numbers` reads (None for a number column: not needed)."""
+        j = self.table.columns.get_loc(column)
+        dtype = self.table.iloc[:, j].dtype
+        numeric = pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
+        return None if numeric else self.at(j)
+
+    def blank(self, j: int) -> np.ndarray:
+        """Mask of the cells of column ``j`` whose text is "" (a number column: only its
+        missing cells)."""
+        series = self.table.iloc[:, j]
+        dtype = series.dtype
+        if isinstance(dtype, np.dtype) and dtype.kind in "biuf":
+            return series.isna().to_numpy()
+        return (self.at(j) == "").to_numpy()
+
+
+_CENSORED = r"^[<>]\s*=?\s*[-+]?\d"
+
+
+def _parse_numbers(series: pd.Series, decimal: str, *, text: pd.Series | None = None):
+    """Return (values, problem, raw) arrays: float values, '' or a problem word, and the text.
+
+    Numbers are parsed for the whole column at once; the text rules (missing
+    tokens, censored values) are applied only to the cells that did not parse.
+    ``text``: the column's :func:`_as_text`, when the caller has it already.
+    """
+    n = len(series)
     if pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype):
         values = series.to_numpy(dtype=float, na_value=np.nan)
-        raw = pd.Series([""] * len(series), index=series.index)
+        raw = np.full(n, "", dtype=object)
     else:
-        raw = _as_text(series)
-        cleaned = raw.str.replace(",", ".", regex=False) if decimal == "," else raw
+        text = _as_text(series) if text is None else text
+        cleaned = text.str.replace(",", ".", regex=False) if decimal == "," else text
         values = pd.to_numeric(cleaned, errors="coerce").to_numpy(dtype=float)
-    problem = np.full(len(series), "", dtype=object)
-    lower = raw.str.lower()
-    missing = lower.isin(_MISSING_TOKENS).to_numpy() | (np.isnan(values) & (raw == "").to_numpy())
-    censored = raw.str.match(r"^[<>]\s*=?\s*[-+]?\d").to_numpy()
+        raw = text.array   # read cell by cell only where a cell failed
+    problem = np.full(n, "", dtype=object)
     nan = np.isnan(values)
-    problem[nan] = "non-numeric"
-    problem[nan & censored] = "censored"
-    problem[nan & missing] = "missing"
+    failed = np.flatnonzero(nan)
+    if failed.size:
+        sub = pd.Series(raw[failed], dtype="str")
+        missing = (sub.str.lower().isin(_MISSING_TOKENS) | (sub == "")).to_numpy()
+        censored = sub.str.match(_CENSORED).to_numpy(dtype=bool)
+        words = np.full(failed.size, "non-numeric", dtype=object)
+        words[censored] = "censored"
+        words[missing] = "missing"
+        problem[failed] = words
     finite = np.isfinite(values)
     problem[~nan & ~finite] = "infinite"
     problem[finite & (values == 0)] = "zero"
     problem[finite & (values < 0)] = "negative"
-    return values, problem, raw.to_numpy()
+    return values, problem, raw
 
 
 #: Public name: the engine parses chunks with the same text rules.
@@ -343,22 +410,44 @@ def _matches(raw_text: pd.Series, targets) -> np.ndarray:
     return hit
 
 
-def _blank_and_excluded(table, keep, reasons, cfg, path):
+class _Reasons:
+    """The drop reasons of a table's rows, kept only for rows that have one.
+
+    ``add(rows, text)`` appends ``text`` (a string, or one string per row) to
+    each row of the index array ``rows``; reasons of a row keep their order.
+    """
+
+    def __init__(self, n: int) -> None:
+        self.n = n
+        self.by_row: dict[int, list[str]] = {}
+
+    def add(self, rows, text) -> None:
+        texts = [text] * len(rows) if isinstance(text, str) else text
+        for i, t in zip(np.asarray(rows).tolist(), texts):
+            self.by_row.setdefault(i, []).append(t)
+
+    def mask(self) -> np.ndarray:
+        out = np.zeros(self.n, dtype=bool)
+        out[list(self.by_row)] = True
+        return out
+
+
+def _blank_and_excluded(table, keep, reasons, cfg, path, texts: _Texts):
     """Note blank lines and rows matched by ``data.exclude`` in ``reasons``; warn about
     exclude values that match nothing.  Returns the mask of rows still active."""
-    all_text = table.apply(_as_text) if len(table.columns) else table
-    blank = (all_text == "").all(axis=1).to_numpy() if len(table) else np.zeros(0, bool)
-    for i in np.flatnonzero(blank & keep):
-        reasons[i].append("blank line")
+    blank = np.ones(len(table), dtype=bool)
+    for j in range(table.shape[1]):
+        blank &= texts.blank(j)
+    reasons.add(np.flatnonzero(blank & keep), "blank line")
     active = keep & ~blank
     for column, values in cfg.exclude.items():
-        text = _as_text(table[column])
+        text = texts(column)
         hit = _matches(text, values)
-        for i in np.flatnonzero(hit & active):
-            reasons[i].append(f"excluded: {column} is {all_text[column].iloc[i]!r}")
+        at = np.flatnonzero(hit & active)
+        shown = text.to_numpy(dtype=object)[at]
+        reasons.add(at, [f"excluded: {column} is {v!r}" for v in shown])
         _warn_unmatched(column, values, text[keep & ~blank], path)
-    excluded = np.array([bool(r) for r in reasons], dtype=bool) & active
-    return active & ~excluded
+    return active & ~(reasons.mask() & active)
 
 
 def _dropped_and_used(reasons, rows, keep, n_read: int, path):
@@ -367,10 +456,11 @@ def _dropped_and_used(reasons, rows, keep, n_read: int, path):
     Raises DataError when the table has no data rows or every row was dropped
     (naming the most common reason).
     """
-    dropped_mask = np.array([bool(r) for r in reasons], dtype=bool) & keep
+    dropped_mask = reasons.mask() & keep
+    at = np.flatnonzero(dropped_mask)
     dropped = pd.DataFrame({
         "row": rows[dropped_mask].astype(int),
-        "reason": ["; ".join(reasons[i]) for i in np.flatnonzero(dropped_mask)],
+        "reason": ["; ".join(reasons.by_row[i]) for i in at.tolist()],
     })
     use = keep & ~dropped_mask
     if n_read == 0:
@@ -411,24 +501,25 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
 
-    reasons = [[] for _ in range(len(table))]
-    active = _blank_and_excluded(table, keep, reasons, cfg, path)
+    reasons = _Reasons(len(table))
+    texts = _Texts(table)
+    active = _blank_and_excluded(table, keep, reasons, cfg, path, texts)
 
     if g_col is not None:
-        g_text = _as_text(g_col).to_numpy()
-        for i in np.flatnonzero((g_text == "") & active):
-            reasons[i].append(f"group ({cfg.group}) is missing")
+        g_text = texts(cfg.group).to_numpy()
+        reasons.add(np.flatnonzero((g_text == "") & active), f"group ({cfg.group}) is missing")
     if u_col is not None:
-        u_text = _as_text(u_col).to_numpy()
-        for i in np.flatnonzero((u_text == "") & active):
-            reasons[i].append(f"{cfg.average_within} (data.average_within) is missing")
+        u_text = texts(cfg.average_within).to_numpy()
+        reasons.add(np.flatnonzero((u_text == "") & active),
+                    f"{cfg.average_within} (data.average_within) is missing")
 
-    x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal)
-    y_val, y_prob, y_raw = _parse_numbers(y_col, cfg.decimal)
+    x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal, text=texts.to_parse(cfg.x))
+    y_val, y_prob, y_raw = _parse_numbers(y_col, cfg.decimal, text=texts.to_parse(cfg.y))
     for role, column, prob, raw in (("x", cfg.x, x_prob, x_raw), ("y", cfg.y, y_prob, y_raw)):
         _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
-        for i in np.flatnonzero((prob != "") & active):
-            reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
+        at = np.flatnonzero((prob != "") & active)
+        reasons.add(at, [_reason(role, column, p, str(r), cfg.decimal)
+                         for p, r in zip(prob[at], np.asarray(raw[at], dtype=object))])
 
     dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
 
@@ -553,18 +644,20 @@ def clean_table_several(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) 
     for column in cfg.exclude:
         _column(table, column, f"data.exclude.{column}", path)
     g_col = _column(table, cfg.group, "data.group", path) if cfg.group else None
-    reasons = [[] for _ in range(len(table))]
-    active = _blank_and_excluded(table, keep, reasons, cfg, path)
+    reasons = _Reasons(len(table))
+    texts = _Texts(table)
+    active = _blank_and_excluded(table, keep, reasons, cfg, path, texts)
     if g_col is not None:
-        g_text = _as_text(g_col).to_numpy()
-        for i in np.flatnonzero((g_text == "") & active):
-            reasons[i].append(f"group ({cfg.group}) is missing")
-    parsed = [("x", name, *_parse_numbers(col, cfg.decimal)) for name, col in zip(xs, x_cols)]
-    parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal)))
+        g_text = texts(cfg.group).to_numpy()
+        reasons.add(np.flatnonzero((g_text == "") & active), f"group ({cfg.group}) is missing")
+    parsed = [("x", name, *_parse_numbers(col, cfg.decimal, text=texts.to_parse(name)))
+              for name, col in zip(xs, x_cols)]
+    parsed.append(("y", cfg.y, *_parse_numbers(y_col, cfg.decimal, text=texts.to_parse(cfg.y))))
     for role, column, _, prob, raw in parsed:
         _check_decimal_comma(role, column, prob[active], raw[active], cfg, path)
-        for i in np.flatnonzero((prob != "") & active):
-            reasons[i].append(_reason(role, column, prob[i], str(raw[i]), cfg.decimal))
+        at = np.flatnonzero((prob != "") & active)
+        reasons.add(at, [_reason(role, column, p, str(r), cfg.decimal)
+                         for p, r in zip(prob[at], np.asarray(raw[at], dtype=object))])
     dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
     pts = pd.DataFrame({"row": rows[use].astype(int)})
     for j, (_, _, values, _, _) in enumerate(parsed[:-1]):

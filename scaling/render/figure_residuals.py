@@ -10,7 +10,7 @@ from matplotlib.ticker import MaxNLocator
 from scipy import stats
 
 from ..stats.schema import method_label
-from .figure_inputs import run_groups, run_methods
+from .figure_inputs import group_codes, run_groups, run_methods
 from .figure_style import (LEGEND_MAX_GROUPS, PAGE_HEIGHT, SIZES, STYLE, agg_figure,
                            figure_legend, group_style, many_groups_handle, new_figure,
                            scatter_coded, styled)
@@ -84,8 +84,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
     pos, resid = _residuals(fit, X, Y)
     groups = run_groups(result)
-    codes = (np.searchsorted(groups, pts["group"].astype(str).to_numpy())
-             if groups else np.zeros(len(pts), dtype=int))
+    codes = group_codes(pts, groups) if groups else np.zeros(len(pts), dtype=int)
     if kind == "normal":
         order = np.argsort(resid)
         q = _normal_quantiles(resid.size)

@@ -56,7 +56,8 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     line_fits, point_sets, notes = bounded_diagnostics(state.line_fits, state.point_sets, cfg)
     dc = cfg.diagnostics
     targets = exponent_targets(cfg)
-    diag_frames, infl_rows, curv_rows, es_rows = [], [], [], []
+    diag_records, infl_rows, curv_rows, es_rows = [], [], [], []
+    memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
     results: dict = {}
     # The answer's model.  With a tree the phylogenetic model should lead; the answer
     # does not lead with it yet, so the checks follow the answer as it is built.
@@ -86,23 +87,22 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
                                           alpha=dc.alpha, log_base=state.base)
                 else:
                     d = diagnose(fit, sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
-                                 rows=rows, exponent_targets=targets, alpha=dc.alpha)
+                                 rows=rows, exponent_targets=targets, alpha=dc.alpha,
+                                 memo=memos.setdefault((scope, group), {}))
         except ScalingError:
             continue   # too few points (n < 4) or nothing to diagnose
         results[(scope, group, method)] = d
-        frame = d.to_frame()
         # Points of the means line are groups: name them, not their positions.
         named = labels if scope == "group_means" else None
-        frame["verdict"] = [check_verdict(c, groups=named) for c in d.checks]
-        frame.insert(0, "scope", scope)
-        frame.insert(1, "group", group)
-        diag_frames.append(frame)
-        for rec in d.influence_frame().to_dict(orient="records"):
-            row = int(rec["row"])
+        # rows of d.to_frame() with scope, group and verdict; one table at the end
+        diag_records += [{"scope": scope, "group": group, "method": d.method,
+                          **c.to_record(), "verdict": check_verdict(c, groups=named)}
+                         for c in d.checks]
+        for row, cook in zip(*d.influence_values()):
+            row = int(row)
             infl_rows.append({"scope": scope, "group": group, "method": method,
                               "row": None if scope == "group_means" else row,
-                              "label": labels.get(row, ""),
-                              "cooks_distance": rec["cooks_distance"]})
+                              "label": labels.get(row, ""), "cooks_distance": cook})
         if (scope, group) not in {(r["scope"], r["group"]) for r in curv_rows}:
             c = d.curvature
             x = sel["log_x"].to_numpy()
@@ -137,8 +137,8 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
                                 "preferred": es.preferred})
 
     tables = {
-        "diagnostics": pd.concat(diag_frames, ignore_index=True)[DIAGNOSTIC_COLUMNS]
-        if diag_frames else pd.DataFrame(columns=DIAGNOSTIC_COLUMNS),
+        "diagnostics": pd.DataFrame(diag_records)[DIAGNOSTIC_COLUMNS]
+        if diag_records else pd.DataFrame(columns=DIAGNOSTIC_COLUMNS),
         "influential_rows": pd.DataFrame(infl_rows, columns=INFLUENCE_COLUMNS),
         "curvature": pd.DataFrame(curv_rows, columns=CURVATURE_COLUMNS),
     }

@@ -94,24 +94,26 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
     pooled_key = ("pooled", "", primary)
     if pooled_key not in line_fits:
         pooled_key = next((k for k in line_fits if k[0] == "pooled"), None)
+    # the prediction rows of each fit, in table order (one pass, not one filter per fit)
+    pred_rows: dict = {}
+    if preds is not None and len(preds):
+        for r in preds.itertuples(index=False):
+            pred_rows.setdefault((r.scope, r.group, r.method), []).append(r)
     for key, fit in line_fits.items():
         scope, group, method = key
         sel = point_sets.get((scope, group))
         if sel is None or len(sel) != fit.n or len(sel) < 4:
             continue
         whole = key == pooled_key
-        est = ()
-        if preds is not None and len(preds):
-            mine = preds[(preds["scope"] == scope) & (preds["group"] == group)
-                         & (preds["method"] == method)]
-            est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
-                   for r in mine.itertuples(index=False)]
+        est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
+               for r in pred_rows.get(key, ())] if preds is not None and len(preds) else ()
         smear, param = factors.get(key, (None, None))
-        labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
-        groups = (sel["group"].astype(str).to_numpy()
-                  if whole and "group" in sel and scope == "pooled" else None)
-        x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
-        rows = sel["row"].to_numpy() if "row" in sel else None
+        if whole:   # the points are read for the primary pooled line only
+            labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
+            groups = (sel["group"].astype(str).to_numpy()
+                      if "group" in sel and scope == "pooled" else None)
+            x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
+            rows = sel["row"].to_numpy() if "row" in sel else None
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
@@ -275,6 +277,8 @@ def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps) -> 
     inf = strong_influence(X, Y, method=method)
     flagged = np.flatnonzero(inf["flag"])
     flagged = flagged[np.argsort(-inf["cook"][flagged], kind="stable")][:MAX_REFITS]
+    if not flagged.size:   # nothing to refit: skip the table look-up (once per group)
+        return []
     slope, se, before = _stated(state, scope, group, method, hyps)
     out = []
     for i in flagged:

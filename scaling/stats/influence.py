@@ -48,7 +48,7 @@ from scipy import stats
 from ..errors import DataError
 from .lines import METHODS, fit_moments
 from .moments import Moments, moments
-from .residual_checks import MIN_N, _check_alpha, parallel_lines_influence
+from .residual_checks import MIN_N, _check_alpha, parallel_lines_influence, unique_codes
 from .schema import check_method
 
 __all__ = ["PointCheck", "leave_one_out_slopes", "cooks_distances", "points_to_check",
@@ -362,8 +362,11 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
             warnings.simplefilter("ignore")
             b_line = fit_moments(_one(X, Y), use)
         resid = Y - float(b_line["intercept"][0]) - float(b_line["slope"][0]) * X
-        codes, uniq = _codes(g)
-        samples = [resid[codes == k] for k in range(len(uniq))]
+        codes, uniq = unique_codes(g)
+        # one stable sort splits the residuals by group, in row order within each
+        order = np.argsort(codes, kind="stable")
+        bounds = np.cumsum(np.bincount(codes, minlength=len(uniq)))[:-1]
+        samples = np.split(resid[order], bounds)
         samples = [s for s in samples if s.size >= 2]
         if len(samples) >= 2:
             with warnings.catch_warnings():
@@ -384,12 +387,6 @@ def _one(X: np.ndarray, Y: np.ndarray) -> Moments:
     m = moments(X, Y)
     return Moments(**{k: np.atleast_1d(getattr(m, k)) for k in
                       ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
-
-
-def _codes(values: np.ndarray) -> tuple:
-    uniq, codes = np.unique(values.astype(str), return_inverse=True)
-    return codes, uniq
-
 
 
 # --------------------------------------------------------------------------

@@ -51,6 +51,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 from scipy import stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
@@ -223,10 +224,23 @@ class Diagnostics:
     def influence_frame(self):
         """Rows above the Cook's distance threshold (columns row, cooks_distance)."""
         import pandas as pd
-        pos = {int(r): i for i, r in enumerate(self.rows)}
-        return pd.DataFrame([{"row": r, "cooks_distance": float(self.cooks_distance[pos[r]])}
-                             for r in self.influential_rows],
+        if not self.influential_rows:
+            return pd.DataFrame([], columns=["row", "cooks_distance"])
+        rows, cooks = self.influence_values()
+        return pd.DataFrame({"row": rows, "cooks_distance": cooks},
                             columns=["row", "cooks_distance"])
+
+    def influence_values(self) -> tuple:
+        """(flagged rows, their Cook's distances) as lists: the columns of
+        :meth:`influence_frame`, without building a frame."""
+        if not self.influential_rows:
+            return [], []
+        rows = np.asarray(self.rows).astype(np.int64)
+        # position of each flagged row (the last one should a row number repeat)
+        sorter = np.argsort(rows, kind="stable")
+        flagged = np.asarray(self.influential_rows, dtype=np.int64)
+        at = sorter[np.searchsorted(rows, flagged, side="right", sorter=sorter) - 1]
+        return list(self.influential_rows), np.asarray(self.cooks_distance, dtype=float)[at].tolist()
 
 
 # --------------------------------------------------------------------------
@@ -315,7 +329,7 @@ def _checked_logs(log_x, log_y) -> tuple:
 
 
 def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
-             alpha: float = 0.05) -> Diagnostics:
+             alpha: float = 0.05, memo: dict | None = None) -> Diagnostics:
     """Residual normality, constant variance, curvature and influence of a fit.
 
     Parameters
@@ -333,6 +347,11 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         quadratic fit reaches them.
     alpha : float
         Level at which checks are flagged.
+    memo : dict, optional
+        One empty dict per set of points, passed to every call for lines
+        fitted to those same points: the parts that do not depend on the
+        line (the quadratic fit, the OLS Cook's distances) are computed by the
+        first call and read by the others.
 
     Returns
     -------
@@ -377,11 +396,14 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         warnings.warn("residuals are all equal: the constant-variance test is not defined",
                       DegenerateDataWarning, stacklevel=2)
     checks.append(_constant_variance(resid, X, het_breuschpagan, alpha))
-    curv, check = _curvature({k: float(v) for k, v in quadratic_t(X, Y).items()}, X, targets,
-                             fit.log_base, alpha)
+    memo = {} if memo is None else memo
+    if "quadratic" not in memo:   # the same for every line through these points
+        memo["quadratic"] = {k: float(v) for k, v in quadratic_t(X, Y).items()}
+        memo["cooks"] = np.asarray(OLSInfluence(OLS(Y, exog).fit()).cooks_distance[0],
+                                   dtype=float)
+    curv, check = _curvature(memo["quadratic"], X, targets, fit.log_base, alpha)
     checks.append(check)
-    infl = OLSInfluence(OLS(Y, exog).fit())
-    cooks = np.asarray(infl.cooks_distance[0], dtype=float)
+    cooks = memo["cooks"]
     threshold = 4.0 / n
     checks.append(_influence(cooks, rows, threshold))
     influential = checks[-1].rows
@@ -427,8 +449,21 @@ def _group_codes(groups, n: int) -> tuple:
     g = np.asarray(groups)
     if g.shape != (n,):
         raise DataError(f"groups must give one value per point ({n}), not shape {g.shape}")
-    labels, codes = np.unique(g.astype(str), return_inverse=True)
-    return codes, labels
+    return unique_codes(g)
+
+
+def unique_codes(values) -> tuple:
+    """(codes, labels): ``np.unique(values.astype(str), return_inverse=True)`` reversed,
+    through one hash pass (sorting a million strings costs about a second; only the
+    distinct labels are sorted here)."""
+    text = np.asarray(values).astype(str)
+    if not text.size:
+        return np.zeros(0, dtype=np.intp), text
+    first, uniq = pd.factorize(text)
+    order = np.argsort(uniq, kind="stable")
+    rank = np.empty(order.size, dtype=np.intp)
+    rank[order] = np.arange(order.size)
+    return rank[first], np.asarray(uniq[order], dtype=text.dtype)
 
 
 def _within(A: np.ndarray, codes: np.ndarray, n_groups: int) -> np.ndarray:
