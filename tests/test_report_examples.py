@@ -11,7 +11,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from scaling.render.wording import format_p, p_text
+from scaling.render.wording import at_floor, format_p, p_text
 from scaling.run.pipeline import run_config, write_outputs
 
 from helpers_figures import demo, with_figures
@@ -124,9 +124,14 @@ class TestWorkedExampleReports:
             for column in columns:
                 j = table["head"].index(column)
                 shown = [row[j] for row in table["rows"]]
-                # internal consistency: the page writes the CSV's value by format_p
-                expected = [format_p(float(v)) if pd.notna(v) else "–"
-                            for v in csv[column].tolist()[:len(shown)]]
+                # internal consistency: the page writes the CSV's value by format_p, after
+                # "≤ " where the row's p sits at the floor of its draws (p_method)
+                floor = (at_floor(csv["p_value"], csv["p_method"])
+                         if {"p_value", "p_method"} <= set(csv.columns)
+                         and column in ("p_value", "p_adjusted")
+                         else [False] * len(csv))
+                expected = [("≤ " if f else "") + format_p(float(v)) if pd.notna(v) else "–"
+                            for v, f in zip(csv[column].tolist()[:len(shown)], floor)]
                 assert shown == expected, (table["name"], column)
                 checked += len(shown)
         assert checked > 0
