@@ -355,7 +355,7 @@ def phylo_strong_reason(*, scope: str, method: str, group_word: str, row, label:
 
 
 def phylo_check_messages(diag, *, scope: str, method: str, lam: float, group_word: str,
-                         strong: list, moving: list) -> list:
+                         strong: list, moving: list, lam_curvature: float = math.nan) -> list:
     """The diagnostics sentences of the phylogenetic model the Answer reports.
 
     Parameters
@@ -365,7 +365,10 @@ def phylo_check_messages(diag, *, scope: str, method: str, lam: float, group_wor
     scope, method : str
         The Answer's model (:func:`answer_model`).
     lam : float
-        Pagel's lambda the checks were made at.
+        Pagel's lambda the residual and influence checks were made at.
+    lam_curvature : float
+        Pagel's lambda of the curvature test (REML under the straight-line
+        design); NaN: ``lam``.
     group_word : str
     strong : list of (row, label)
         The strong species (refitted out of the Answer).
@@ -375,7 +378,8 @@ def phylo_check_messages(diag, *, scope: str, method: str, lam: float, group_wor
     from .findings import check_verdict
     plural = plural_of(group_word)
     what = _model_words(scope, method, group_word)
-    at = f"whitened by the tree at λ = {lam:.2f}, held at its estimate"
+    at = (f"GLS at λ = {lam_curvature:.2f}, REML under the straight-line model"
+          if np.isfinite(lam_curvature) else f"GLS at λ = {lam:.2f}")
     curv = diag.check("curvature")
     where = (f" within {plural}, with ancestry accounted for (phylogenetic common "
              f"{method_label(method)} slope, each {group_word} at its own elevation; {at})"
@@ -388,7 +392,8 @@ def phylo_check_messages(diag, *, scope: str, method: str, lam: float, group_wor
     else:
         out = [f"Power law{where}: {check_verdict(curv)}, so there is no evidence against "
                "one exponent within the data range."]
-    out.append(f"Residuals of {what} (whitened by the tree): "
+    out.append(f"Residuals of {what} (whitened by the tree at λ = {lam:.2f}, held at its "
+               "estimate): "
                f"{check_verdict(diag.check('normality'))}; "
                f"{check_verdict(diag.check('constant_variance'))}.")
     rule = ("|standardised residual| > 3, Cook's distance > 1 or leverage > 3p/n "

@@ -7,9 +7,10 @@ group tests) when groups lead, else the phylogenetic pooled line (scope
 ``phylo``, at its own lambda).  This module checks that model:
 
 - :func:`answer_model_checks`: whitened-residual normality and constant
-  variance, the GLS curvature test, and the GLS deletion diagnostics of each
-  species (:func:`scaling.stats.phylo_checks.phylo_model_checks`), with
-  Pagel's lambda held at its estimate;
+  variance and the GLS deletion diagnostics of each species, with Pagel's
+  lambda held at the Answer's estimate, and the GLS curvature test at the
+  REML lambda of the straight-line design
+  (:func:`scaling.stats.phylo_checks.phylo_model_checks`, ``curvature_lambda``);
 - :func:`diagnostic_rows`: their rows of ``diagnostics.csv``,
   ``curvature.csv`` and ``influential_rows.csv`` (under the model's scope)
   and their sentences;
@@ -38,10 +39,11 @@ from ..render.findings import check_verdict, point_check_reason
 from ..render.headline import answer_line, exponent_words
 from ..render.prediction_words import answer_primary
 from ..stats.influence import PointCheck, moves_answer, narrows, verdict_code
-from ..stats.phylo_checks import PhyloChecks, phylo_model_checks
+from ..stats.phylo_checks import PhyloChecks, curvature_lambda, phylo_model_checks
 from ..stats.phylo_groups import phylo_group_tests
 from ..stats.phylo_predict import MAX_DENSE_TIPS, lambda_covariance
-from ..stats.phylogeny import fit_phylo, match_species, normalise_name, prune_tree, read_newick
+from ..stats.phylogeny import (PhyloPlan, fit_phylo, match_species, normalise_name, prune_tree,
+                               read_newick)
 
 __all__ = ["AnswerChecks", "answer_model_checks", "diagnostic_rows", "answer_point_rows"]
 
@@ -54,7 +56,8 @@ class AnswerChecks:
     """The checks of the Answer's phylogenetic model.
 
     ``scope`` (``phylo_common`` or ``phylo``), ``method``, ``lam`` (held at its
-    estimate), ``points`` (the species checked, data order), ``checks``
+    estimate), ``lam_curvature`` (the REML lambda of the straight-line design the
+    curvature test uses, :func:`scaling.stats.phylo_checks.curvature_lambda`), ``points`` (the species checked, data order), ``checks``
     (:class:`~scaling.stats.phylo_checks.PhyloChecks`), ``tree`` (the tree as
     read) and ``slope`` (the Answer's exponent).
     """
@@ -62,6 +65,7 @@ class AnswerChecks:
     scope: str
     method: str
     lam: float
+    lam_curvature: float
     slope: float
     points: pd.DataFrame
     checks: PhyloChecks
@@ -97,30 +101,34 @@ def answer_model_checks(cfg, state) -> AnswerChecks | None:
         return None
     pts = pts.reset_index(drop=True)
     tree = read_newick(cfg.data.tree)
+    groups = pts["group"].astype(str).to_numpy() if scope == "phylo_common" else None
     try:
-        cov = _covariance(tree, pts["unit"].astype(str).tolist(), lam)
+        pruned, tips = _pruned(tree, pts["unit"].astype(str).tolist())
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
+            lam_c = curvature_lambda(PhyloPlan.from_tree(pruned, tips),
+                                     pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float),
+                                     groups)
             checks = phylo_model_checks(
-                cov, pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float),
-                groups=pts["group"].astype(str).to_numpy() if scope == "phylo_common" else None,
-                method=method, slope=slope, rows=pts["row"].to_numpy(),
+                lambda_covariance(pruned, tips, lam), pts["log_x"].to_numpy(float),
+                pts["log_y"].to_numpy(float), groups=groups, method=method, slope=slope, rows=pts["row"].to_numpy(),
                 exponent_targets=tuple(cfg.diagnostics.exponent_at)
                 or tuple(cfg.exponents.values()),
-                alpha=cfg.diagnostics.alpha, log_base=state.base)
+                alpha=cfg.diagnostics.alpha, log_base=state.base,
+                curvature_cov=lambda_covariance(pruned, tips, lam_c))
     except (ScalingError, np.linalg.LinAlgError):
         return None
-    return AnswerChecks(scope=scope, method=method, lam=lam, slope=slope, points=pts,
-                        checks=checks, tree=tree)
+    return AnswerChecks(scope=scope, method=method, lam=lam, lam_curvature=lam_c, slope=slope,
+                        points=pts, checks=checks, tree=tree)
 
 
-def _covariance(tree, species: list, lam: float) -> np.ndarray:
-    """V_lambda of ``species`` (each with a tip), in their order."""
+def _pruned(tree, species: list) -> tuple:
+    """The tree pruned to ``species`` (each with a tip) and their tip ids, in their order."""
     match = match_species(species, tree)
     pruned = prune_tree(tree, match.tip_of_species)
     index = {normalise_name(pruned.names[t]): int(t) for t in pruned.tips}
-    tips = np.array([index[normalise_name(tree.names[t])] for t in match.tip_of_species])
-    return lambda_covariance(pruned, tips, lam)
+    return pruned, np.array([index[normalise_name(tree.names[t])]
+                             for t in match.tip_of_species])
 
 
 def diagnostic_rows(cfg, ac: AnswerChecks, points: pd.DataFrame | None) -> tuple:
@@ -154,6 +162,7 @@ def diagnostic_rows(cfg, ac: AnswerChecks, points: pd.DataFrame | None) -> tuple
         mine = points[(points["scope"] == ac.scope) & (points["kind"] == "moves_answer")]
         moving = [int(r) for r in mine["row"].dropna()]
     messages = phylo_check_messages(d, scope=ac.scope, method=ac.method, lam=ac.lam,
+                                    lam_curvature=ac.lam_curvature,
                                     group_word=str(cfg.data.group or "group"), strong=strong,
                                     moving=moving)
     return frame, infl, curv, messages
