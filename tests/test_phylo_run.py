@@ -449,3 +449,23 @@ class TestChecksFollowThePhylogeneticAnswer:
         assert any(m.startswith("Residuals of the phylogenetic SMA line") for m in res.messages)
         assert any(m.startswith("Ignoring ancestry (species independent) — Residuals of the "
                                 "pooled SMA line") for m in res.messages)
+
+    def test_answer_names_only_rows_that_move_the_phylogenetic_answer(self, physiology):
+        from dataclasses import replace
+        res = physiology
+        pts = res.tables["points_to_check"]
+
+        def row(scope, label):
+            return {"scope": scope, "group": "", "method": "sma", "severity": "strong",
+                    "kind": "moves_answer", "row": 7, "label": label, "value": 1.5,
+                    "reason": f"Row 7 ({label}) moves this exponent from 0.753 to 0.700: "
+                              "check it first."}
+        ordinary_only = pd.concat([pts, pd.DataFrame([row("common", "sp_x")])],
+                                  ignore_index=True)
+        head = headline_of(replace(res, tables={**res.tables,
+                                                "points_to_check": ordinary_only}))
+        assert "sp_x" not in " ".join(head.sentences)     # the ordinary model's, not the Answer's
+        both = pd.concat([ordinary_only, pd.DataFrame([row("phylo_common", "sp_y")])],
+                         ignore_index=True)
+        head = headline_of(replace(res, tables={**res.tables, "points_to_check": both}))
+        assert "Row 7 (sp_y) moves this exponent" in head.sentences[-1]
