@@ -14,6 +14,9 @@ from scaling.io.config import config_from_dict, load_config
 from scaling.errors import ConfigError, DataError
 from scaling.stats.phylogeny import fit_phylo, read_newick
 from scaling.run.pipeline import analyse
+from scaling.render.headline import headline_of
+from scaling.stats.newick import parse_newick
+from scaling.stats.phylogeny import tree_covariance
 
 ROOT = Path(__file__).resolve().parents[1]
 PHYSIOLOGY = ROOT / "configs" / "physiology.yaml"
@@ -364,3 +367,105 @@ class TestCheckReportsTheTree:
         assert "1 species have no tip" in out and "sp_08" in out
         assert "1 tips have no data and will be pruned (extra)" in out
         assert "2 of 3 groups are not clades of the tree (a, b)" in out
+
+
+def _clade_newick(sizes, rng):
+    """Monophyletic clades (tips c<clade>s<i>), each a random ultrametric subtree below a
+    stem of length 0.5 from the root; tips at height 1 (simulation with a known truth)."""
+    def build(part, height, h=None):
+        if len(part) == 1:
+            return f"{part[0]}:{height!r}"
+        cut = int(rng.integers(1, len(part)))
+        h = height * rng.uniform(0.2, 0.9) if h is None else h
+        return "(" + build(part[:cut], h) + "," + build(part[cut:], h) + f"):{height - h!r}"
+    names, labels, clades = [], [], []
+    for c, size in enumerate(sizes):
+        part = [f"c{c}s{i}" for i in range(size)]
+        names += part
+        labels += [f"clade{c}"] * size
+        clades.append(build(part, 1.0, h=0.5))
+    return "(" + ",".join(clades) + ");", names, labels
+
+
+def _brownian(newick, names, rng, scale):
+    """Brownian motion on the tree (simulation), values in ``names`` order."""
+    t = parse_newick(newick)
+    index = {t.names[k]: i for i, k in enumerate(t.tips)}
+    order = [index[s] for s in names]
+    v = tree_covariance(t)[np.ix_(order, order)]
+    return scale * (np.linalg.cholesky(v) @ rng.normal(size=len(names)))
+
+
+class TestChecksFollowThePhylogeneticAnswer:
+    def test_physiology_checks_are_the_phylogenetic_models(self, physiology):
+        res = physiology
+        diag = res.tables["diagnostics"]
+        mine = diag[diag["scope"] == "phylo_common"]
+        assert list(mine["method"].unique()) == ["sma"]          # the Answer's method
+        assert list(mine["check"]) == ["normality", "constant_variance", "curvature",
+                                       "influence"]
+        assert "phylo_common" in set(res.tables["curvature"]["scope"])
+        text = " ".join(res.messages)
+        assert "Residuals of the phylogenetic common within-clade SMA model" in text
+        assert ("Ignoring ancestry (species independent) — Residuals of the common "
+                "within-clade SMA model") in text
+        # simulation truth (demo_data/make_physiology.py): no curvature, normal errors
+        assert not mine.set_index("check").loc["curvature", "flagged"]
+        assert "moves this exponent" not in " ".join(headline_of(res).sentences)
+
+    def test_planted_outlier_species_is_named_in_the_answer(self, tmp_path):
+        # simulation with a known truth: b = 0.75, Brownian x and residuals on a tree of
+        # four clades of 10; the species with the largest x gets y divided by 10^0.5
+        rng = np.random.default_rng(3)
+        newick, names, labels = _clade_newick([10, 10, 10, 10], rng)
+        X = 1.5 + _brownian(newick, names, rng, 0.8)
+        Y = 0.75 * X + _brownian(newick, names, rng, 0.1)
+        k = int(np.argmax(X))
+        Y[k] -= 0.5
+        raw = _write(tmp_path, names, 10 ** X, 10 ** Y, newick, methods=("ols",),
+                     extra_data={"group": "clade"})
+        pd.DataFrame({"sp": names, "clade": labels, "mass": 10 ** X,
+                      "rate": 10 ** Y}).to_csv(tmp_path / "d.csv", index=False)
+        raw["diagnostics"] = {"enabled": True}
+        raw["groups"] = {"compare": True}
+        res = _analyse(config_from_dict(raw, base_dir=tmp_path))
+        answer = " ".join(headline_of(res).sentences)
+        assert answer.startswith("Accounting for shared ancestry")
+        assert f"({names[k]}, mass" in answer and "moves this exponent" in answer
+        pts = res.tables["points_to_check"]
+        moving = pts[(pts["scope"] == "phylo_common") & (pts["kind"] == "moves_answer")]
+        assert list(moving["label"]) == [names[k]]
+        assert any("Influence on the phylogenetic common within-clade OLS model" in m
+                   for m in res.messages)
+
+    def test_pooled_phylogenetic_line_is_checked_without_groups(self, tmp_path):
+        names, x, y = _invented(20)
+        raw = _write(tmp_path, names, x, y, _caterpillar(names), methods=("ols", "sma"))
+        raw["diagnostics"] = {"enabled": True}
+        res = _analyse(config_from_dict(raw, base_dir=tmp_path))
+        diag = res.tables["diagnostics"]
+        mine = diag[diag["scope"] == "phylo"]
+        assert list(mine["method"].unique()) == ["sma"]
+        assert any(m.startswith("Residuals of the phylogenetic SMA line") for m in res.messages)
+        assert any(m.startswith("Ignoring ancestry (species independent) — Residuals of the "
+                                "pooled SMA line") for m in res.messages)
+
+    def test_answer_names_only_rows_that_move_the_phylogenetic_answer(self, physiology):
+        from dataclasses import replace
+        res = physiology
+        pts = res.tables["points_to_check"]
+
+        def row(scope, label):
+            return {"scope": scope, "group": "", "method": "sma", "severity": "strong",
+                    "kind": "moves_answer", "row": 7, "label": label, "value": 1.5,
+                    "reason": f"Row 7 ({label}) moves this exponent from 0.753 to 0.700: "
+                              "check it first."}
+        ordinary_only = pd.concat([pts, pd.DataFrame([row("common", "sp_x")])],
+                                  ignore_index=True)
+        head = headline_of(replace(res, tables={**res.tables,
+                                                "points_to_check": ordinary_only}))
+        assert "sp_x" not in " ".join(head.sentences)     # the ordinary model's, not the Answer's
+        both = pd.concat([ordinary_only, pd.DataFrame([row("phylo_common", "sp_y")])],
+                         ignore_index=True)
+        head = headline_of(replace(res, tables={**res.tables, "points_to_check": both}))
+        assert "Row 7 (sp_y) moves this exponent" in head.sentences[-1]

@@ -28,7 +28,9 @@ import pandas as pd
 from ..stats.schema import method_label
 from .wording import calibrated_p_text, plural as plural_of, verdict_phrase
 
-__all__ = ["ordinary_rows", "phylo_answer", "phylo_group_messages"]
+__all__ = ["ordinary_rows", "phylo_answer", "phylo_group_messages", "answer_model",
+           "answer_points",
+           "phylo_check_messages", "phylo_strong_reason"]
 
 _PHYLO = "phylo"
 _COMMON = "phylo_common"
@@ -272,3 +274,146 @@ def phylo_group_messages(compared: dict, ordinary: pd.DataFrame | None, cfg) -> 
         out.append(text)
     return out
 
+
+
+# --------------------------------------------------------------------------
+# the checks of the model the Answer reports
+
+
+def answer_model(fits: pd.DataFrame | None, group_tests: pd.DataFrame | None, primary: str,
+                 confidence: float) -> tuple | None:
+    """``(scope, method)`` of the phylogenetic model the Answer leads with, or None.
+
+    The rule of :func:`phylo_answer`: the primary method if it was fitted
+    phylogenetically (else the first phylogenetic method); its phylogenetic
+    common within-group line (scope ``phylo_common``) when groups were
+    compared with the tree and their phylogenetic slopes do not differ, the
+    phylogenetic pooled line (scope ``phylo``) when no groups were compared;
+    None when the phylogenetic slopes differ (the Answer then gives each
+    group's line) or no phylogenetic line was fitted.
+    """
+    if fits is None or "scope" not in fits:
+        return None
+    methods = list(fits.loc[fits["scope"] == _PHYLO, "method"])
+    if not methods:
+        return None
+    method = primary if primary in methods else methods[0]
+    phylo_gt = (group_tests[group_tests["scope"] == _PHYLO]
+                if group_tests is not None and "scope" in group_tests.columns else None)
+    common = fits[(fits["scope"] == _COMMON) & (fits["method"] == method)]
+    if len(common) and phylo_gt is not None and len(phylo_gt):
+        p_slope, _ = _p(phylo_gt, method, "slopes_equal")
+        if np.isfinite(p_slope) and p_slope < 1 - confidence:
+            return None
+        return _COMMON, method
+    row = fits[(fits["scope"] == _PHYLO) & (fits["method"] == method)]
+    if not len(row) or not np.isfinite(_num(row["slope"].iloc[0])):
+        return None
+    return _PHYLO, method
+
+
+def answer_points(points: pd.DataFrame | None, result) -> pd.DataFrame | None:
+    """The rows of ``points_to_check`` that speak of the model the Answer reports.
+
+    With a tree and a phylogenetic Answer, only the phylogenetic model's rows
+    (the ordinary model's rows that move the ordinary exponent stay in the
+    table and the summary, but are not the Answer's); otherwise all rows.
+    """
+    cfg = result.config
+    if points is None or getattr(cfg.data, "tree", None) is None or "scope" not in points:
+        return points
+    tables = result.tables or {}
+    from .headline import answer_line
+    from .prediction_words import answer_primary
+    primary = answer_line(tables.get("group_tests"), cfg.model.methods, answer_primary(cfg),
+                          cfg.model.confidence)[1]
+    model = answer_model(result.fits, tables.get("group_tests"), primary,
+                         cfg.model.confidence)
+    if model is None:
+        return points
+    return points[points["scope"] == model[0]]
+
+
+def _model_words(scope: str, method: str, group_word: str) -> str:
+    label = method_label(method)
+    if scope == _COMMON:
+        return f"the phylogenetic common within-{group_word} {label} model"
+    return f"the phylogenetic {label} line"
+
+
+def phylo_strong_reason(*, scope: str, method: str, group_word: str, row, label: str,
+                        standardised: float, cook: float, leverage: float, slope: float,
+                        slope_without: float) -> str:
+    """Why one species is strong in the phylogenetic model of the Answer (points_to_check)."""
+    who = f"row {row}" + (f" ({label})" if label else "")
+    moved = (f"without it the exponent is {slope_without:.3f} instead of {slope:.3f} "
+             "(λ held at its estimate)" if np.isfinite(slope_without)
+             else "it was not refitted out")
+    return (f"{who} is strong in {_model_words(scope, method, group_word)}: standardised "
+            f"residual {standardised:+.2f}, Cook's distance {cook:.2g}, leverage "
+            f"{leverage:.2f}; {moved}")
+
+
+def phylo_check_messages(diag, *, scope: str, method: str, lam: float, group_word: str,
+                         strong: list, moving: list, lam_curvature: float = math.nan) -> list:
+    """The diagnostics sentences of the phylogenetic model the Answer reports.
+
+    Parameters
+    ----------
+    diag : Diagnostics
+        From :func:`scaling.stats.phylo_checks.phylo_model_checks`.
+    scope, method : str
+        The Answer's model (:func:`answer_model`).
+    lam : float
+        Pagel's lambda the residual and influence checks were made at.
+    lam_curvature : float
+        Pagel's lambda of the curvature test (REML under the straight-line
+        design); NaN: ``lam``.
+    group_word : str
+    strong : list of (row, label)
+        The strong species (refitted out of the Answer).
+    moving : list of int
+        The rows among them that move the Answer's exponent or a verdict.
+    """
+    from .findings import check_verdict
+    plural = plural_of(group_word)
+    what = _model_words(scope, method, group_word)
+    at = (f"GLS at λ = {lam_curvature:.2f}, REML under the straight-line model"
+          if np.isfinite(lam_curvature) else f"GLS at λ = {lam:.2f}")
+    curv = diag.check("curvature")
+    where = (f" within {plural}, with ancestry accounted for (phylogenetic common "
+             f"{method_label(method)} slope, each {group_word} at its own elevation; {at})"
+             if scope == _COMMON else
+             f", with ancestry accounted for (phylogenetic {method_label(method)} line; {at})")
+    if curv.flagged:
+        out = [f"Power law{where}: NOT a straight line on log-log scales — "
+               f"{check_verdict(curv)}. One exponent summarises these data only roughly; see "
+               f"curvature.csv (scope {scope})."]
+    else:
+        out = [f"Power law{where}: {check_verdict(curv)}, so there is no evidence against "
+               "one exponent within the data range."]
+    out.append(f"Residuals of {what} (whitened by the tree at λ = {lam:.2f}, held at its "
+               "estimate): "
+               f"{check_verdict(diag.check('normality'))}; "
+               f"{check_verdict(diag.check('constant_variance'))}.")
+    rule = ("|standardised residual| > 3, Cook's distance > 1 or leverage > 3p/n "
+            "in the whitened regression")
+    if not strong:
+        out.append(f"Influence on {what}: no species is strong ({rule}).")
+        return out
+    shown = ", ".join(f"row {r}" + (f" ({lab})" if lab else "") for r, lab in strong[:4])
+    more = f" and {len(strong) - 4} more" if len(strong) > 4 else ""
+    head = (f"Influence on {what}: {len(strong)} species "
+            f"{'is' if len(strong) == 1 else 'are'} strong ({rule}): {shown}{more}")
+    if moving:
+        rows = ", ".join(str(r) for r in moving[:4])
+        out.append(f"{head}; refitted without {'it' if len(strong) == 1 else 'each'} (λ held "
+                   f"at its estimate), row{'s' if len(moving) > 1 else ''} {rows} "
+                   f"move{'' if len(moving) > 1 else 's'} the exponent by more than its "
+                   "standard error or change a verdict: the answer names it; check it first "
+                   "(points_to_check.csv).")
+    else:
+        out.append(f"{head}; refitted without {'it' if len(strong) == 1 else 'each'} (λ held "
+                   "at its estimate), none moves the exponent by more than its standard error "
+                   "or changes a verdict (points_to_check.csv).")
+    return out

@@ -43,7 +43,7 @@ import pandas as pd
 
 from ..stats.schema import method_label
 from .prediction_words import answer_primary
-from .answer_phylo import ordinary_rows, phylo_answer
+from .answer_phylo import answer_points, ordinary_rows, phylo_answer
 from .wording import (at_floor, calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
                       verdict_phrase)
 
@@ -549,7 +549,7 @@ def headline_of(result) -> Headline:
                        if m.strip().startswith(prefix)), None)
         if answer:
             head = replace(head, sentences=tuple(head.sentences) + (answer,))
-    moves = _moves_sentence(tables.get("points_to_check"))
+    moves = _moves_sentence(answer_points(tables.get("points_to_check"), result))
     if moves:   # a row that moves the answer is said in the answer, whatever its length
         head = replace(head, sentences=tuple(head.sentences) + (moves,))
     return head

@@ -32,6 +32,7 @@ from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
 from .moments_path import bounded_diagnostics
+from .phylo_checks import answer_model_checks, diagnostic_rows
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
 
@@ -59,8 +60,8 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     diag_records, infl_rows, curv_rows, es_rows = [], [], [], []
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
     results: dict = {}
-    # The answer's model.  With a tree the phylogenetic model should lead; the answer
-    # does not lead with it yet, so the checks follow the answer as it is built.
+    # The ordinary answer's model; with a tree the phylogenetic model the Answer leads
+    # with is checked too (below), and the ordinary checks are said to be the ordinary's.
     answer = answer_line(state.tables.get("group_tests"), cfg.model.methods,
                          answer_primary(cfg), cfg.model.confidence)
     todo = [(key, fit, point_sets.get(key[:2])) for key, fit in line_fits.items()]
@@ -136,6 +137,16 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
                                 "aicc": m.aicc, "delta_aicc": es.delta_aicc,
                                 "preferred": es.preferred})
 
+    messages = diagnostics_messages(results, es_results, point_sets, cfg, answer=answer,
+                                    points=state.tables.get("points_to_check"))
+    phylo = answer_model_checks(cfg, state) if cfg.data.tree is not None else None
+    if phylo is not None:   # the Answer's model leads; the ordinary checks follow, named so
+        frame, p_infl, p_curv, p_msgs = diagnostic_rows(cfg, phylo,
+                                                        state.tables.get("points_to_check"))
+        diag_frames.insert(0, frame)
+        infl_rows[:0] = p_infl
+        curv_rows[:0] = p_curv
+        messages = p_msgs + [_ordinary(m) for m in messages]
     tables = {
         "diagnostics": pd.DataFrame(diag_records)[DIAGNOSTIC_COLUMNS]
         if diag_records else pd.DataFrame(columns=DIAGNOSTIC_COLUMNS),
@@ -145,9 +156,18 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     if dc.error_structure:
         tables["error_structure"] = pd.DataFrame(es_rows, columns=ERROR_STRUCTURE_COLUMNS)
 
-    return DiagnosticsStage(tables=tables, notes=tuple(notes), messages=tuple(
-        diagnostics_messages(results, es_results, point_sets, cfg, answer=answer,
-                             points=state.tables.get("points_to_check"))))
+    return DiagnosticsStage(tables=tables, notes=tuple(notes), messages=tuple(messages))
+
+
+#: Ordinary check sentences that, with a tree, are prefixed as the ordinary model's.
+_ORDINARY_CHECKS = ("Power law", "Residuals of the ", "Influence: ")
+
+
+def _ordinary(message: str) -> str:
+    """With a tree: the ordinary model's check sentences say they take species as independent."""
+    if message.startswith(_ORDINARY_CHECKS):
+        return "Ignoring ancestry (species independent) — " + message
+    return message
 
 
 def _common_points(point_sets: dict, method: str):

@@ -40,6 +40,7 @@ from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer
                                points_to_check, strong_influence, strong_parallel_influence,
                                verdict_code)
 from ..render.findings import point_check_reason
+from .phylo_checks import answer_model_checks, answer_point_rows
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
 MAX_REFITS = 10
@@ -80,6 +81,13 @@ def check_run(cfg, state) -> PointsToCheck:
     answer = answer_points(cfg, state)
     table, warn = _check(cfg, state.line_fits, state.point_sets, state.fits, state.tables,
                          answer)
+    if cfg.data.tree is not None:   # the phylogenetic model the Answer leads with
+        records, p_warn = answer_point_rows(cfg, state, answer_model_checks(cfg, state))
+        if records:
+            extra = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
+            table = pd.concat([extra, table], ignore_index=True) if len(table) else extra
+            table["row"] = table["row"].astype("Int64")
+            warn = p_warn + warn
     return PointsToCheck(table=table, notes=tuple(warn))
 
 
