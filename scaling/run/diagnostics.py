@@ -143,7 +143,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     if phylo is not None:   # the Answer's model leads; the ordinary checks follow, named so
         frame, p_infl, p_curv, p_msgs = diagnostic_rows(cfg, phylo,
                                                         state.tables.get("points_to_check"))
-        diag_frames.insert(0, frame)
+        diag_records[:0] = frame.to_dict(orient="records")
         infl_rows[:0] = p_infl
         curv_rows[:0] = p_curv
         messages = p_msgs + [_ordinary(m) for m in messages]
