@@ -100,13 +100,6 @@ def several_groups(pts: pd.DataFrame, names: tuple, hypotheses: dict, cfg, base,
     messages = tuple("  " + s for s in several_group_sentences(
         tests, 1 - cfg.model.confidence, word))
     notes = ()
-    alpha = 1 - cfg.model.confidence
-    differ = [what for what, test in (("exponents", comparison.slopes_equal),
-                                      ("elevation", comparison.intercepts_equal))
-              if test[3] <= alpha]
-    if differ and (cfg.prediction.x_table or cfg.prediction.from_file is not None):
-        notes += (f"The {word} values differ in {' and '.join(differ)}; the predictions come "
-                  f"from the pooled fit, which mixes them.",)
     if comparison.skipped:
         notes += (f"{len(comparison.skipped)} {word} value(s) with fewer than "
                  f"{len(names) + 2} rows have no exponents of their own "
