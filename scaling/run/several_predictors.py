@@ -273,6 +273,8 @@ class SeveralStage:
         ``combined_term`` (``model.combined``), ``predictions`` (new rows,
         natural units, intervals) and ``prediction_total`` (``prediction.total``).
     multi_fit : MultiFit
+    comparison : MultiGroupComparison or None
+        With ``data.group``: each group's fit, the common exponents, the tests.
     saved_fits : dict
         ``("pooled", "", "ols") -> saved-fit dict`` (for ``scaling predict``).
     messages, notes : tuple of str
@@ -289,6 +291,7 @@ class SeveralStage:
     messages: tuple = ()
     notes: tuple = ()
     manifest: dict
+    comparison: object = None
 
 
 def several_stage(cfg, state) -> SeveralStage:
@@ -348,7 +351,7 @@ def several_stage(cfg, state) -> SeveralStage:
         notes += list(grouped.notes)
         comparison = grouped.comparison
     if cfg.diagnostics.enabled:
-        checked = several_diagnostics(fit, pts, cfg)
+        checked = several_diagnostics(fit, pts, cfg, comparison)
         tables.update(checked.tables)
         notes += list(checked.notes)
     slope_tests = pd.DataFrame(test_rows, columns=MULTI_SLOPE_TEST_COLUMNS)
@@ -395,7 +398,8 @@ def several_stage(cfg, state) -> SeveralStage:
                     f"adjusted r² {fit.adj_r2:.3f}; smearing factor {fit.factors['smearing']:.4f}.")
     return SeveralStage(fits=fits, slope_tests=slope_tests, tables=tables, multi_fit=fit,
                         saved_fits={("pooled", "", "ols"): saved}, messages=tuple(messages),
-                        notes=tuple(notes), manifest={"predictors": list(names)})
+                        notes=tuple(notes), manifest={"predictors": list(names)},
+                        comparison=comparison)
 
 
 def _prediction_model(cfg, comparison, new: pd.DataFrame) -> tuple:
