@@ -68,7 +68,8 @@ def _vif(value: float) -> str:
     return f"{value:,.0f}" if value >= 100 else f"{value:.3g}"
 
 
-def _collinear_sentence(diagnostics: pd.DataFrame | None, scope: str = "pooled") -> str:
+def _collinear_sentence(diagnostics: pd.DataFrame | None, scope: str = "pooled",
+                        group_word: str = "group") -> str:
     """One sentence when a term's VIF passes 10 in the model the Answer reports
     (``scope`` of diagnostics.csv): the Answer's intervals are inflated."""
     if diagnostics is None or not len(diagnostics) or "test" not in diagnostics.columns:
@@ -78,9 +79,21 @@ def _collinear_sentence(diagnostics: pd.DataFrame | None, scope: str = "pooled")
     if not len(vif):
         return ""
     top = float(vif["statistic"].max())
-    return (f"The predictors are strongly correlated (variance inflation factor up to "
-            f"{_vif(top)}), so these intervals are about {math.sqrt(top):.2g} times as wide as "
+    who, whose = "The predictors are", "these intervals are"
+    if scope == "group":   # each group's own fit: name the groups whose predictors are
+        groups = list(dict.fromkeys(vif["group"].astype(str)))
+        who = f"Within {_listed(groups)} the predictors are"
+        whose = "their exponents' intervals are"
+    elif scope == "common":
+        who = f"Within {plural_of(group_word)} the predictors are"
+    return (f"{who} strongly correlated (variance inflation factor up to "
+            f"{_vif(top)}), so {whose} about {math.sqrt(top):.2g} times as wide as "
             "with uncorrelated predictors.")
+
+
+def _listed(names: list) -> str:
+    """'a', 'a and b', 'a, b and c'."""
+    return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
 
 
 def several_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
@@ -91,7 +104,7 @@ def several_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     head = _several_headline(fits, slope_tests, group_tests, confidence=confidence,
                              group_word=group_word)
     scope = {"groups": "group", "common": "common"}.get(head.line, "pooled")
-    said = _collinear_sentence(diagnostics, scope)
+    said = _collinear_sentence(diagnostics, scope, group_word)
     if said and len(head.sentences) < 3:
         return Headline(primary=head.primary, line=head.line,
                         sentences=tuple(head.sentences) + (said,),
