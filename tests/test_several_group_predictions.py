@@ -158,3 +158,17 @@ class TestGroupedRunPredictions:
         assert "scope" not in res.tables["predictions"].columns
         said = [w for w in res.warnings if "pooled fit, which mixes" in w]
         assert len(said) == 1 and "species column" in said[0]
+
+    def test_a_group_without_a_fit_is_an_error_naming_the_file(self, penguins, tmp_path):
+        import scaling
+        from scaling.io.config import config_from_dict
+        path = tmp_path / "penguins.csv"
+        penguins.to_csv(path, index=False)
+        new_path = tmp_path / "new.csv"
+        NEW.assign(species=["Adelie", "Emperor", "Gentoo", "Adelie", "Gentoo"]).to_csv(
+            new_path, index=False)
+        raw = {"data": {"file": str(path), "x": ["flipper_length_mm", "bill_length_mm"],
+                        "y": "body_mass_g", "group": "species"},
+               "model": {"methods": ["ols"]}, "prediction": {"from": str(new_path)}}
+        with pytest.raises(DataError, match=r"new\.csv: group 'Emperor'"):
+            scaling.run_config(config_from_dict(raw), write=False, quiet=True)

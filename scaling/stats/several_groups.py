@@ -325,7 +325,7 @@ def _group_rows(comparison, x_new, groups_new, model: str) -> tuple:
         raise ValueError(f"model must be one of {', '.join(GROUP_MODELS)}, not {model!r}")
     gv = np.atleast_1d(np.asarray(groups_new)).astype(str)
     source = comparison.group_fits if model == "group" else comparison.common_fits
-    unknown = [g for g in dict.fromkeys(gv) if g not in source]
+    unknown = [str(g) for g in dict.fromkeys(gv) if g not in source]
     if unknown:
         what = ("no exponents of its own (too few rows or not in the data)" if model == "group"
                 else "no rows in the data")
