@@ -74,6 +74,21 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
     return blocks
 
 
+def _which_line(table: pd.DataFrame, result) -> str:
+    """'Predicted y for the new rows' and, with groups, from which line (the scope column:
+    each group's own fit, or the common exponents at the group's elevation)."""
+    scopes = set(table["scope"]) if "scope" in table.columns else set()
+    word = str(result.config.data.group or "group")
+    if scopes == {"group"}:
+        return f"Predicted y for the new rows, each from the fit of its own {word} (scope group)."
+    if scopes == {"common"}:
+        return (f"Predicted y for the new rows, each from the common exponents at the elevation "
+                f"of its {word} (scope common).")
+    if getattr(result, "multi_groups", None) is not None:
+        return f"Predicted y for the new rows from the pooled fit (all {word} values together)."
+    return "Predicted y for the new rows."
+
+
 def _unit_text(unit) -> str:
     return f" ({unit})" if unit else ""
 
@@ -192,7 +207,7 @@ def build_several_report(result, folder: Path | None = None, written=()) -> list
         note = (f" {n_ext} of {len(t)} {'is an extrapolation' if n_ext == 1 else 'are extrapolations'}"
                 " (a predictor outside its fitted range, or a combination unlike the data) "
                 "and highlighted." if n_ext else " None is an extrapolation.")
-        pred_blocks = [Block(kind="p", text="Predicted y for the new rows." + note),
+        pred_blocks = [Block(kind="p", text=_which_line(t, result) + note),
                        Block(kind="table", frame=t, name="predictions", highlight=flags)]
         pred_blocks += [Block(kind="p", text=s) for s in (
             predicted_unit(cfg.data.average_within, cfg.data.y), medians_vs_means())]
