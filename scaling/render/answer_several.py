@@ -25,7 +25,7 @@ from .headline import Headline, _ci, _p_method, _short_verdict, exponent_words
 from .wording import calibrated_p_text, plural as plural_of
 
 __all__ = ["several_headline", "several_exponent_table", "several_check_verdict",
-           "collinearity_warning", "several_group_sentences"]
+           "collinearity_warning", "several_group_sentences", "partial_model"]
 
 _LINE = {"pooled": "pooled", "common": "common within-group", "group": "group"}
 
@@ -68,18 +68,32 @@ def _vif(value: float) -> str:
     return f"{value:,.0f}" if value >= 100 else f"{value:.3g}"
 
 
-def _collinear_sentence(diagnostics: pd.DataFrame | None) -> str:
-    """One sentence when a term's VIF passes 10 (the Answer's intervals are inflated)."""
+def _collinear_sentence(diagnostics: pd.DataFrame | None, scope: str = "pooled",
+                        group_word: str = "group") -> str:
+    """One sentence when a term's VIF passes 10 in the model the Answer reports
+    (``scope`` of diagnostics.csv): the Answer's intervals are inflated."""
     if diagnostics is None or not len(diagnostics) or "test" not in diagnostics.columns:
         return ""
-    vif = diagnostics[(diagnostics["test"] == "VIF") & (diagnostics["scope"] == "pooled")]
+    vif = diagnostics[(diagnostics["test"] == "VIF") & (diagnostics["scope"] == scope)]
     vif = vif[vif["flagged"].astype(bool)]
     if not len(vif):
         return ""
     top = float(vif["statistic"].max())
-    return (f"The predictors are strongly correlated (variance inflation factor up to "
-            f"{_vif(top)}), so these intervals are about {math.sqrt(top):.2g} times as wide as "
+    who, whose = "The predictors are", "these intervals are"
+    if scope == "group":   # each group's own fit: name the groups whose predictors are
+        groups = list(dict.fromkeys(vif["group"].astype(str)))
+        who = f"Within {_listed(groups)} the predictors are"
+        whose = "their exponents' intervals are"
+    elif scope == "common":
+        who = f"Within {plural_of(group_word)} the predictors are"
+    return (f"{who} strongly correlated (variance inflation factor up to "
+            f"{_vif(top)}), so {whose} about {math.sqrt(top):.2g} times as wide as "
             "with uncorrelated predictors.")
+
+
+def _listed(names: list) -> str:
+    """'a', 'a and b', 'a, b and c'."""
+    return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
 
 
 def several_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
@@ -89,7 +103,8 @@ def several_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     """The Answer of a run with several predictors (see the module notes)."""
     head = _several_headline(fits, slope_tests, group_tests, confidence=confidence,
                              group_word=group_word)
-    said = _collinear_sentence(diagnostics)
+    scope = {"groups": "group", "common": "common"}.get(head.line, "pooled")
+    said = _collinear_sentence(diagnostics, scope, group_word)
     if said and len(head.sentences) < 3:
         return Headline(primary=head.primary, line=head.line,
                         sentences=tuple(head.sentences) + (said,),
@@ -237,14 +252,29 @@ def _rows(rows, most: int = 5) -> str:
     return f"rows {', '.join(named[:-1])} and {named[-1]}"
 
 
-def collinearity_warning(terms_vifs, names) -> str:
-    """The summary's warning when a VIF passes 10, saying what it does to the intervals."""
-    if not terms_vifs:
+def collinearity_warning(flagged, names, *, model: str = "pooled",
+                         group_word: str = "group") -> str:
+    """The summary's warning when a VIF passes 10, saying what it does to the intervals.
+
+    ``flagged`` maps a group ('' for the pooled or common-exponents model) to
+    its (term, VIF) pairs above 10 (a sequence of pairs is read as the
+    pooled fit's); ``model`` is the one the Answer reports (``pooled``,
+    ``common`` or ``group``).
+    """
+    if not isinstance(flagged, dict):
+        flagged = {"": tuple(flagged)} if flagged else {}
+    flagged = {g: t for g, t in flagged.items() if t}
+    if not flagged:
         return ""
-    each = ", ".join(f"{t} {_vif(v)}" for t, v in terms_vifs)
-    widest = max(v for _, v in terms_vifs)
-    return (f"The predictors are strongly correlated on the log scale (variance inflation "
-            f"factor {each}; above 10): each exponent's interval is about "
+    widest = max(v for t in flagged.values() for _, v in t)
+    if model == "group":
+        each = "; ".join(f"{g} " + ", ".join(f"{t} {_vif(v)}" for t, v in terms)
+                         for g, terms in flagged.items())
+    else:
+        each = ", ".join(f"{t} {_vif(v)}" for t, v in next(iter(flagged.values())))
+    within = f" within {plural_of(group_word)}" if model in ("common", "group") else ""
+    return (f"The predictors are strongly correlated on the log scale{within} (variance "
+            f"inflation factor {each}; above 10): each exponent's interval is about "
             f"{math.sqrt(widest):.2g} times as wide as with uncorrelated predictors, and the "
             f"data cannot tell the exponents of {', '.join(names)} apart well (a combination "
             "of them is better determined than either; see diagnostics.csv).")
@@ -264,3 +294,13 @@ def several_group_sentences(group_tests: pd.DataFrame, alpha: float, group_word:
         verdict = "rejected" if p <= alpha else "not rejected"
         out.append(f"That {subject}: {verdict} ({words}).")
     return out
+
+
+def partial_model(result) -> str:
+    """The model the partial figures draw: ``"pooled"``, ``"common"`` or ``"group"``
+    (the Answer's line; :meth:`MultiGroupComparison.leading`)."""
+    comparison = getattr(result, "multi_groups", None)
+    pts = result.data.points
+    if comparison is None or "group" not in pts.columns or len(pts) != result.multi_fit.n:
+        return "pooled"
+    return comparison.leading(1 - result.config.model.confidence)

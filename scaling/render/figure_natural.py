@@ -13,12 +13,13 @@ from matplotlib.ticker import FuncFormatter, MaxNLocator
 from ..stats.predictions import predict, saved_factor
 from ..stats.schema import method_label
 from .figure_inputs import axis_label, fit_xrange, run_groups, run_methods, scatter_groups
-from .prediction_words import inverse_run
+from .headline import answer_line
+from .prediction_words import answer_primary, inverse_run, predicting_method
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE, STYLE,
                            arith_formatter, figure_legend, group_style, many_groups_handle,
                            new_figure, styled)
 
-__all__ = ["plot_natural", "make_natural"]
+__all__ = ["plot_natural", "make_natural", "groups_differ"]
 
 #: Above this many decades of x the natural-scale plot zooms on the central data
 #: (x up to :data:`NATURAL_ZOOM_QUANTILE`) and adds a full-range panel (or inset).
@@ -27,22 +28,46 @@ NATURAL_ZOOM_QUANTILE = 90.0
 _PRED_COLOUR = "#000000"
 
 
-def _natural_predictions(result, methods: list, *, inverse: bool = False):
+def groups_differ(result) -> bool:
+    """True when the Answer reports each group's own line (the groups' slopes differ;
+    :func:`scaling.render.headline.answer_line` with the Answer's method)."""
+    table = (result.tables or {}).get("group_tests")
+    if not isinstance(table, pd.DataFrame) or not len(table):
+        return False
+    cfg = result.config
+    return answer_line(table, cfg.model.methods, answer_primary(cfg),
+                       cfg.model.confidence)[0] == "groups"
+
+
+def _natural_predictions(result, methods: list, *, inverse: bool = False,
+                         scope: str = "pooled"):
     """Rows of the run's ``predictions`` table (``inverse_predictions`` when ``inverse``)
-    drawn on the natural-scale plot: scope ``pooled`` (the curves drawn), for the methods
-    drawn; None if there are none."""
+    drawn on the natural-scale plot: of ``scope`` (``pooled``, or ``group`` when each
+    group's own curve is drawn), for the methods drawn; None if there are none."""
     name, value = ("inverse_predictions", "x") if inverse else ("predictions", "y")
     table = (result.tables or {}).get(name)
     if not isinstance(table, pd.DataFrame) or not len(table) or "scope" not in table:
         return None
-    rows = table[(table["scope"] == "pooled") & table["method"].isin(methods)]
+    rows = table[(table["scope"] == scope) & table["method"].isin(methods)]
     rows = rows[np.isfinite(rows[value].to_numpy(dtype=float))]
     return rows if len(rows) else None
 
 
-def _inverse_markers(ax, result, preds, handles, xs_all, ys_all, *, small: bool) -> None:
+def _row_colours(preds, groups: list | None) -> list:
+    """Each prediction row's colour: its group's (rows of scope group) or black."""
+    if not groups or "group" not in preds or not (preds["scope"] == "group").any():
+        return [_PRED_COLOUR] * len(preds)
+    index = {g: i for i, g in enumerate(groups)}
+    return [group_style(index[str(g)])[0] if str(g) in index else _PRED_COLOUR
+            for g in preds["group"]]
+
+
+def _inverse_markers(ax, result, preds, handles, xs_all, ys_all, *, small: bool,
+                     groups: list | None = None) -> None:
     """Each requested y marked on the line at the x read off it, with the x interval as a
-    horizontal bar; extrapolated ones (y outside the fitted y range) open, bars dashed."""
+    horizontal bar; extrapolated ones (y outside the fitted y range) open, bars dashed.
+    Rows of each group's own line take the group's colour."""
+    colours = np.array(_row_colours(preds, groups), dtype=object)
     x = preds["x"].to_numpy(float)
     y = preds["y"].to_numpy(float)
     low = preds["x_low"].to_numpy(float)
@@ -52,27 +77,27 @@ def _inverse_markers(ax, result, preds, handles, xs_all, ys_all, *, small: bool)
     kinds = preds["interval"].iloc[0] if "interval" in preds else "prediction"
     ms = 3.0 if small else 4.5
     for flag, style, label in (
-            (False, dict(mfc=_PRED_COLOUR, ls="-"), f"given y: x ± {pct} {kinds} interval"),
+            (False, dict(mfc=None, ls="-"), f"given y: x ± {pct} {kinds} interval"),
             (True, dict(mfc="white", ls=(0, (2, 1.5))),
              "given y beyond the fitted y range (extrapolated)")):
         sel = extra == flag
         if not np.any(sel):
             continue
-        for xi, yi, li, hi_ in zip(x[sel], y[sel], low[sel], high[sel]):
+        for xi, yi, li, hi_, c in zip(x[sel], y[sel], low[sel], high[sel], colours[sel]):
             err = ([[max(xi - li, 0.0)], [max(hi_ - xi, 0.0)]]
                    if np.isfinite(li) and np.isfinite(hi_) else None)
-            cont = ax.errorbar([xi], [yi], xerr=err, fmt="none", ecolor=_PRED_COLOUR,
+            cont = ax.errorbar([xi], [yi], xerr=err, fmt="none", ecolor=c,
                                elinewidth=0.8, capsize=2.0 if small else 2.5,
                                capthick=0.8, zorder=6)
             if err is not None:
                 for bar in cont.lines[2]:
                     bar.set_linestyle(style["ls"])
             ax.plot([xi], [yi], ls="none", marker="s", markersize=ms,
-                    markerfacecolor=style["mfc"], markeredgecolor=_PRED_COLOUR,
+                    markerfacecolor=style["mfc"] or c, markeredgecolor=c,
                     markeredgewidth=0.8, zorder=7,
                     gid="inverse-extrapolated" if flag else "inverse")
         handles.append(Line2D([], [], color=_PRED_COLOUR, lw=0.8, ls=style["ls"], marker="s",
-                              markersize=4, markerfacecolor=style["mfc"],
+                              markersize=4, markerfacecolor=style["mfc"] or _PRED_COLOUR,
                               markeredgecolor=_PRED_COLOUR, label=label))
         xs_all += [x[sel], np.where(np.isfinite(high[sel]), high[sel], x[sel])]
         ys_all += [y[sel], y[sel]]
@@ -99,11 +124,47 @@ def _run_factor(result, method: str, correction: str):
     return None
 
 
+def _group_factor(result, group: str, method: str, correction: str):
+    """The run's correction factor of one group's own line (see :func:`_run_factor`)."""
+    if correction not in ("smearing", "ratio"):
+        return None
+    saved = result.saved_fits.get(("group", group, method))
+    return saved_factor(saved, correction) if saved is not None else None
+
+
+def _group_curves(ax, result, method, groups, correction, interval, *, small: bool,
+                  xs_all: list, ys_all: list) -> list:
+    """Each group's own ``method`` curve (no band: they would hide one another) in the
+    group's colour over the group's fitted x range; returns the legend handles."""
+    n = 0
+    for i, g in enumerate(groups):
+        fit = result.line_fits.get(("group", g, method))
+        if fit is None or not getattr(fit, "estimable", True):
+            continue
+        lo, hi = fit_xrange(fit, result)
+        xs = np.linspace(lo, hi, 240)
+        xs[0], xs[-1] = lo, hi
+        pred = predict(fit, xs, correction=correction, interval=interval,
+                       factor=_group_factor(result, g, method, correction))
+        ax.plot(xs, pred.y, color=group_style(i)[0], lw=0.9 if small else 1.2,
+                ls=METHOD_DASHES.get(method, "-"), zorder=4, gid=f"group-curve:{g}")
+        xs_all.append(xs)
+        ys_all.append(np.asarray(pred.y, float))
+        n += 1
+    if not n:
+        return []
+    word = str(result.config.data.group or "group")
+    return [Line2D([], [], color="#4d4d4d", lw=1.2, ls=METHOD_DASHES.get(method, "-"),
+                   label=f"each {word}'s own {method_label(method)} line")]
+
+
 def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
-                    small: bool = False) -> tuple:
+                    small: bool = False, own_lines: bool = False) -> tuple:
     """Points, corrected curves with bands, and prediction markers on ``ax``.
 
-    Returns (legend handles, (x, y) arrays of everything drawn for the limits).
+    ``own_lines``: each group's own curve of ``methods[0]`` in place of the pooled
+    curves (the groups' slopes differ).  Returns (legend handles, (x, y) arrays of
+    everything drawn for the limits).
     """
     pts = result.data.points
     size = 5 if small else 10
@@ -125,7 +186,10 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
         handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
                               markersize=4, label="data"))
     n_curves = 0
-    for method in methods:
+    if own_lines:
+        handles += _group_curves(ax, result, methods[0], groups, correction, interval,
+                                 small=small, xs_all=xs_all, ys_all=ys_all)
+    for method in ([] if own_lines else methods):
         fit = result.line_fits.get(("pooled", "", method))
         if fit is None:
             continue
@@ -148,8 +212,10 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
             color="#4d4d4d", alpha=0.2, lw=0,
             label=f"{100 * result.config.model.confidence:g}% {interval} band"))
     if preds is not None and "x_low" in preds:   # inverse predictions: x from given y
-        _inverse_markers(ax, result, preds, handles, xs_all, ys_all, small=small)
+        _inverse_markers(ax, result, preds, handles, xs_all, ys_all, small=small,
+                         groups=groups)
     elif preds is not None:
+        colours = np.array(_row_colours(preds, groups), dtype=object)
         x = preds["x"].to_numpy(float)
         y = preds["y"].to_numpy(float)
         low = preds["y_low"].to_numpy(float)
@@ -159,29 +225,29 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
         kinds = preds["interval"].iloc[0] if "interval" in preds else interval
         ms = 3.0 if small else 4.5
         for flag, style, label in (
-                (False, dict(marker="D", mfc=_PRED_COLOUR, ls="-"),
+                (False, dict(marker="D", mfc=None, ls="-"),
                  f"prediction ± {pct} {kinds} interval"),
                 (True, dict(marker="D", mfc="white", ls=(0, (2, 1.5))),
                  "extrapolated prediction (beyond fitted x)")):
             sel = extra == flag
             if not np.any(sel):
                 continue
-            for xi, yi, li, hi_ in zip(x[sel], y[sel], low[sel], high[sel]):
+            for xi, yi, li, hi_, c in zip(x[sel], y[sel], low[sel], high[sel], colours[sel]):
                 err = ([[max(yi - li, 0.0)], [max(hi_ - yi, 0.0)]]
                        if np.isfinite(li) and np.isfinite(hi_) else None)
-                cont = ax.errorbar([xi], [yi], yerr=err, fmt="none", ecolor=_PRED_COLOUR,
+                cont = ax.errorbar([xi], [yi], yerr=err, fmt="none", ecolor=c,
                                    elinewidth=0.8, capsize=2.0 if small else 2.5,
                                    capthick=0.8, zorder=6)
                 if err is not None:
                     for bar in cont.lines[2]:
                         bar.set_linestyle(style["ls"])
                 ax.plot([xi], [yi], ls="none", marker=style["marker"], markersize=ms,
-                        markerfacecolor=style["mfc"], markeredgecolor=_PRED_COLOUR,
+                        markerfacecolor=style["mfc"] or c, markeredgecolor=c,
                         markeredgewidth=0.8, zorder=7,
                         gid="prediction-extrapolated" if flag else "prediction")
             handles.append(Line2D([], [], color=_PRED_COLOUR, lw=0.8, ls=style["ls"],
                                   marker=style["marker"], markersize=4,
-                                  markerfacecolor=style["mfc"],
+                                  markerfacecolor=style["mfc"] or _PRED_COLOUR,
                                   markeredgecolor=_PRED_COLOUR, label=label))
             xs_all.append(x[sel])
             ys_all += [np.where(np.isfinite(high[sel]), high[sel], y[sel])]
@@ -252,6 +318,12 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     shaded.  Both axes stay arithmetic, so the curve, its bias-corrected mean
     and its band are read in natural units; no log, square-root or symlog scale.
 
+    Groups whose slopes differ (the Answer reports each group's own line,
+    :func:`groups_differ`): each group's own curve of the predicting method
+    is drawn in the group's colour over its fitted x range (no bands: they
+    would hide one another), in place of the pooled curves, and the
+    predictions marked are those of scope ``group``, in their group's colour.
+
     Predictions: the rows of the run's ``predictions`` table for the pooled
     curves drawn (scope ``pooled``, the methods drawn) are marked as black
     diamonds with their interval as an error bar; extrapolated ones (outside
@@ -277,20 +349,30 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     methods = run_methods(result, methods)
     groups = run_groups(result)
     inverse = inverse_run(result.config)
+    own_lines = bool(groups) and groups_differ(result)
+    if own_lines:   # each group's own line of the method that predicts, as the Answer says
+        methods = [predicting_method(result.config, methods)]
     # an inverse run reads x off the line itself: the curve is the median (no correction)
     correction = correction or ("none" if inverse else result.config.prediction.correction)
-    preds = _natural_predictions(result, methods, inverse=inverse)
-    handles, drawn = _natural_layers(ax, result, methods, groups, correction, interval, preds)
+    preds = _natural_predictions(result, methods, inverse=inverse,
+                                 scope="group" if own_lines else "pooled")
+    handles, drawn = _natural_layers(ax, result, methods, groups, correction, interval, preds,
+                                     own_lines=own_lines)
     x_all = np.concatenate([x, drawn[0][np.isfinite(drawn[0])]])
     x_max = float(np.max(x_all)) if len(x_all) else 1.0
     x_hi = float(np.percentile(x, NATURAL_ZOOM_QUANTILE)) if zoom else x_max
     _natural_limits(ax, drawn, x_hi)
-    if any(isinstance(h, matplotlib.patches.Patch) for h in handles):   # curves drawn
+    curves = own_lines or any(isinstance(h, matplotlib.patches.Patch) for h in handles)
+    if curves:
         title = (f"Mean of y ({correction} correction)" if correction != "none"
                  else "Median of y (the fitted line, no correction)")
+        if own_lines:
+            word = str(result.config.data.group or "group")
+            title += f", each {word}'s own line"
         if inverse and preds is not None:
             lines = ", ".join(dict.fromkeys(method_label(m) for m in preds["method"]))
-            title = f"Each given y read off the {lines} line (medians of x)"
+            title = (f"Given y read off each {word}'s {lines} line (medians of x)"
+                     if own_lines else f"Each given y read off the {lines} line (medians of x)")
         if zoom:
             title += (f"\nx up to its {NATURAL_ZOOM_QUANTILE:g}th percentile"
                       + ("; full range below" if own else ""))
@@ -300,7 +382,7 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
             overview = ax.inset_axes(_inset_corner(ax, drawn))
             overview.tick_params(labelsize=5, length=2, pad=1)
         _natural_layers(overview, result, methods, groups, correction, interval, preds,
-                        small=True)
+                        small=True, own_lines=own_lines)
         _natural_limits(overview, drawn, x_max)
         overview.axvspan(0, x_hi * 1.04, color="#000000", alpha=0.06, lw=0, zorder=0)
         note = "Full range (shaded: the panel above)" if own else "Full range (shaded: main view)"

@@ -34,6 +34,7 @@ from .wording import count_words, interval_numbers, number_text, plural, unit_te
 
 __all__ = ["DOCS_INVERSE", "inverse_run", "predicting_method", "answer_primary",
            "inverse_sentence", "pooled_prediction_sentence", "group_prediction_sentence",
+           "group_inverse_sentence",
            "prediction_sentence", "prediction_notes", "mass_from_measurement",
            "extrapolation_words"]
 
@@ -124,29 +125,57 @@ def group_prediction_sentence(table: pd.DataFrame, cfg, units: dict, method: str
     rows = table[(table["scope"] == "group") & (table["method"] == method)]
     if not len(rows) or len(rows) > MOST_GROUP_VALUES:
         return ""
-    ux, uy = _unit(units, "x"), _unit(units, "y")
-    word = str(cfg.data.group or "group")
-    xs = list(dict.fromkeys(rows["x"].tolist()))
     correction = str(rows["correction"].iloc[0]) if "correction" in rows.columns else "none"
     what = "medians" if correction == "none" else f"{correction}-corrected means"
+    word = str(cfg.data.group or "group")
+    return _group_values(rows, cfg, units, "x", "y", (
+        f"Predicted y{{unit}} (each {word}'s own {method_label(method)} line, {what}{{where}}; "
+        f"the {plural(word)}' slopes differ, so the pooled line, which mixes them, does not "
+        "predict)"), "predictions.csv")
+
+
+def group_inverse_sentence(table: pd.DataFrame, cfg, units: dict, method: str) -> str:
+    """Each requested y read off every group's own ``method`` line, in one sentence, or "".
+
+    Used when the groups' slopes differ.  A requested y carries no group, so
+    every group's line is solved for x and each value is labelled with its
+    group (inverse_predictions.csv, scope ``group``): the row of the
+    specimen's group is its estimate, and the spread across groups shows
+    what the choice of group does when that is uncertain.
+    """
+    rows = table[(table["scope"] == "group") & (table["method"] == method)]
+    if not len(rows) or len(rows) > MOST_GROUP_VALUES:
+        return ""
+    word = str(cfg.data.group or "group")
+    return _group_values(rows, cfg, units, "y", "x", (
+        f"Inverse prediction of x{{unit}} (each {word}'s own {method_label(method)} line "
+        f"solved for x, since the {plural(word)}' slopes differ and the pooled line mixes "
+        "them; medians of x for the given y, with no back-transformation correction"
+        "{where}; read the row of the specimen's own " + word + ")"),
+        "inverse_predictions.csv")
+
+
+def _group_values(rows: pd.DataFrame, cfg, units: dict, given: str, got: str, lead: str,
+                  where_file: str) -> str:
+    """'<lead> at <given> = v1, v2 unit: g1 a, b; g2 c, d.' (intervals when few values)."""
+    unit_given, unit_got = _unit(units, given), _unit(units, got)
+    at_values = list(dict.fromkeys(rows[given].tolist()))
     with_intervals = len(rows) <= MOST_VALUES
     parts = []
     for g, sub in rows.groupby("group", sort=False):
         values = []
         for r in sub.to_dict("records"):
-            text = number_text(r["y"])
+            text = number_text(r[got])
             if with_intervals:
-                text += f" ({_interval(r, 'y')})"
+                text += f" ({_interval(r, got)})"
             values.append(text + (" (extrapolated)" if r.get("extrapolated") else ""))
         parts.append(f"{g} " + ", ".join(values))
-    at = ", ".join(number_text(v) for v in xs) + (f" {ux}" if ux else "")
+    at = ", ".join(number_text(v) for v in at_values) + (f" {unit_given}" if unit_given else "")
     where = "" if with_intervals else (
         f"; {100 * float(rows['confidence'].iloc[0]):g}% {rows['interval'].iloc[0]} "
-        "intervals in predictions.csv")
-    return (f"Predicted y{', in ' + uy if uy else ''} (each {word}'s own "
-            f"{method_label(method)} line, {what}{where}; the {plural(word)}' slopes differ, so "
-            f"the pooled line, which mixes them, does not predict) at x = {at}: "
-            + "; ".join(parts) + ".")
+        f"intervals in {where_file}")
+    head = lead.format(unit=", in " + unit_got if unit_got else "", where=where)
+    return f"{head} at {given} = {at}: " + "; ".join(parts) + "."
 
 
 def prediction_sentence(tables: dict, cfg, units: dict, *, slopes_differ: bool = False) -> list:
@@ -161,7 +190,8 @@ def prediction_sentence(tables: dict, cfg, units: dict, *, slopes_differ: bool =
             out.append(text)
     inverse = tables.get("inverse_predictions")
     if isinstance(inverse, pd.DataFrame) and "scope" in inverse.columns:
-        text = inverse_sentence(inverse, cfg, units, method)
+        text = (group_inverse_sentence(inverse, cfg, units, method) if slopes_differ
+                else "") or inverse_sentence(inverse, cfg, units, method)
         if text:
             out.append(text)
     return out
@@ -225,15 +255,23 @@ def prediction_notes(cfg, tables: dict, units: dict, *, slopes_differ: bool = Fa
                      "(a fossil beyond the living species' sizes), inverse prediction "
                      f"(prediction.y) is the other route; {DOCS_INVERSE} (in the scaling "
                      "source) says when to use which.")
-    forward = tables.get("predictions")
-    if slopes_differ and isinstance(forward, pd.DataFrame) and "scope" in forward.columns:
-        n_pooled = int((forward["scope"] == "pooled").sum())
+    word = str(cfg.data.group or "group")
+    for name in ("predictions", "inverse_predictions"):
+        table = tables.get(name)
+        if not (slopes_differ and isinstance(table, pd.DataFrame) and "scope" in table.columns):
+            continue
+        n_pooled = int((table["scope"] == "pooled").sum())
         if n_pooled:
-            word = str(cfg.data.group or "group")
+            where = "" if name == "predictions" else " of inverse_predictions.csv"
             notes.append(f"The {plural(word)}' slopes differ: use each {word}'s own rows "
-                         f"(scope group). The {count_words(n_pooled, 'row')} of scope pooled "
-                         f"come from the pooled line, which mixes {plural(word)} whose lines "
-                         "differ.")
+                         f"(scope group{where}). The {count_words(n_pooled, 'row')} of scope "
+                         f"pooled come from the pooled line, which mixes {plural(word)} whose "
+                         "lines differ.")
+        if name == "inverse_predictions" and (table["scope"] == "group").any():
+            notes.append(f"A given y carries no {word}: each y is read off every {word}'s own "
+                         f"line and labelled with the {word}; use the row of the specimen's "
+                         f"own {word} (the spread across {plural(word)} shows what the choice "
+                         "does when it is uncertain).")
     return notes
 
 

@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .answer_several import several_group_sentences
+from .answer_several import partial_model, several_group_sentences
 from .headline import headline_of
 from .report import (Block, Section, TABLE_MAX_ROWS, _bounded, _headline_section,
                      _interval_text, _manifest_section)
@@ -29,8 +29,17 @@ from .wording import (CAUTION, dose_caution, mechanism_applies, mechanism_cautio
 __all__ = ["build_several_report", "partial_figure_name"]
 
 _PARTIAL_CAPTION = ("Partial relationship of y with {term}: each point is y adjusted to the "
-                    "geometric means of the other predictors ({others}); the line has the "
-                    "fitted exponent of {term}. Log axes in natural units.")
+                    "geometric means of the other predictors ({others}){lines}. Log axes in "
+                    "natural units.")
+
+#: What the partial figure's lines are, by the model the Answer leads with.
+_PARTIAL_LINES = {
+    "pooled": "; the line has the fitted exponent of {term}",
+    "common": ("; one line per {word}, each at its elevation, all with the common "
+               "within-{word} exponent of {term} (points adjusted by the common exponents)"),
+    "group": ("; one line per {word} with its own exponent of {term} (points adjusted by "
+              "their {word}'s own exponents)"),
+}
 
 
 def partial_figure_name(term: str) -> str:
@@ -57,9 +66,27 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
             except Exception:  # noqa: BLE001 -- the writer has noted the missing figure
                 continue
         others = ", ".join(n for n in names if n != term)
+        lines = _PARTIAL_LINES[partial_model(result)].format(
+            term=term, word=str(result.config.data.group))
         blocks.append(Block(kind="img", png=png, path=path, name=partial_figure_name(term),
-                            text=_PARTIAL_CAPTION.format(term=term, others=others)))
+                            text=_PARTIAL_CAPTION.format(term=term, others=others,
+                                                         lines=lines)))
     return blocks
+
+
+def _which_line(table: pd.DataFrame, result) -> str:
+    """'Predicted y for the new rows' and, with groups, from which line (the scope column:
+    each group's own fit, or the common exponents at the group's elevation)."""
+    scopes = set(table["scope"]) if "scope" in table.columns else set()
+    word = str(result.config.data.group or "group")
+    if scopes == {"group"}:
+        return f"Predicted y for the new rows, each from the fit of its own {word} (scope group)."
+    if scopes == {"common"}:
+        return (f"Predicted y for the new rows, each from the common exponents at the elevation "
+                f"of its {word} (scope common).")
+    if getattr(result, "multi_groups", None) is not None:
+        return f"Predicted y for the new rows from the pooled fit (all {word} values together)."
+    return "Predicted y for the new rows."
 
 
 def _unit_text(unit) -> str:
@@ -180,7 +207,7 @@ def build_several_report(result, folder: Path | None = None, written=()) -> list
         note = (f" {n_ext} of {len(t)} {'is an extrapolation' if n_ext == 1 else 'are extrapolations'}"
                 " (a predictor outside its fitted range, or a combination unlike the data) "
                 "and highlighted." if n_ext else " None is an extrapolation.")
-        pred_blocks = [Block(kind="p", text="Predicted y for the new rows." + note),
+        pred_blocks = [Block(kind="p", text=_which_line(t, result) + note),
                        Block(kind="table", frame=t, name="predictions", highlight=flags)]
         pred_blocks += [Block(kind="p", text=s) for s in (
             predicted_unit(cfg.data.average_within, cfg.data.y), medians_vs_means())]

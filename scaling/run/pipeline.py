@@ -106,6 +106,7 @@ class RunResult:
     files: tuple = ()
     saved_fits: dict = field(default_factory=dict)
     multi_fit: object = None
+    multi_groups: object = None   # several predictors with data.group: MultiGroupComparison
 
     @property
     def group_means(self) -> pd.DataFrame | None:
@@ -243,7 +244,8 @@ def _several_run(cfg, state: RunState, read) -> RunResult:
                      tables=several.tables, messages=read.messages + several.messages,
                      warnings=read.notes + several.notes,
                      manifest={**manifest_header(cfg), **several.manifest},
-                     saved_fits=several.saved_fits, multi_fit=several.multi_fit)
+                     saved_fits=several.saved_fits, multi_fit=several.multi_fit,
+                     multi_groups=several.comparison)
 
 
 def _moments_run(cfg, reason: str) -> RunResult:

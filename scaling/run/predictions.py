@@ -107,7 +107,7 @@ def predictions_from_factors(cfg, *, fits: pd.DataFrame, line_fits: dict, saved:
             messages.append(a_line)
     # groups whose slopes differ predict from their own lines (the pooled one mixes them)
     differ = (isinstance(group_tests, pd.DataFrame) and len(group_tests) > 0
-              and answer_line(group_tests, cfg.model.methods, getattr(cfg.model, "primary", None),
+              and answer_line(group_tests, cfg.model.methods, answer_primary(cfg),
                               cfg.model.confidence)[0] == "groups")
     messages += prediction_sentence(tables, cfg, units, slopes_differ=differ)
     return PredictionStage(fits=fits, saved_fits=saved, tables=tables,

@@ -45,36 +45,58 @@ class SeveralExtras:
     checks: object = None
 
 
-def several_diagnostics(fit, pts: pd.DataFrame, cfg) -> SeveralExtras:
+def several_diagnostics(fit, pts: pd.DataFrame, cfg, comparison=None) -> SeveralExtras:
     """diagnostics.csv of the pooled fit (and, with groups, of the common-exponents
-    model), and the collinearity warning."""
+    model; with groups whose exponents differ, of each group's own fit too), and the
+    collinearity warning of the model the Answer reports.
+
+    The Answer leads with the pooled fit without groups, the common
+    exponents when the groups share them, each group's own fit when they
+    differ (:meth:`MultiGroupComparison.leading`); the warning reads the
+    variance inflation factors of that model (of every group's fit, naming
+    the groups, in the last case).
+    """
     rows = pts["row"].to_numpy() if "row" in pts.columns else None
     alpha = cfg.diagnostics.alpha
-    todo = [("pooled", lambda: check_multi(fit, rows=rows, alpha=alpha))]
+    todo = [("pooled", "", lambda: check_multi(fit, rows=rows, alpha=alpha))]
+    lead = "pooled"
     if "group" in pts.columns and pts["group"].nunique() > 1:
-        todo.append(("common", lambda: check_multi_groups(
+        todo.append(("common", "", lambda: check_multi_groups(
             fit.log_x, fit.log_y, pts["group"].to_numpy(), fit.names, rows=rows, alpha=alpha)))
-    frames, first = [], None
-    for scope, run in todo:
+        if comparison is not None:
+            lead = comparison.leading(1 - cfg.model.confidence)
+        if lead == "group":   # the Answer's lines are each group's own fit: check each
+            labels = pts["group"].astype(str).to_numpy()
+            for g, own in comparison.group_fits.items():
+                sel = labels == g
+                todo.append(("group", g, lambda own=own, sel=sel: check_multi(
+                    own, rows=None if rows is None else rows[sel], alpha=alpha)))
+    frames, read = [], {}
+    for scope, group, run in todo:
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 checks = run()
         except ScalingError:
             continue
-        first = first or checks
+        read[(scope, group)] = checks
         frame = checks.to_frame()
         frame["verdict"] = [several_check_verdict(c, t)
                             for c, t in zip(checks.checks, checks.terms)]
         frame.insert(0, "scope", scope)
-        frame.insert(1, "group", "")
+        frame.insert(1, "group", group)
         frame.insert(2, "method", "ols")
         frames.append(frame[SEVERAL_DIAGNOSTIC_COLUMNS])
-    if first is None:
+    if not read:
         return SeveralExtras(tables={})
-    warning = collinearity_warning(first.collinear_terms(), fit.names)
+    answered = {key: c for key, c in read.items() if key[0] == lead} or {
+        next(iter(read)): next(iter(read.values()))}
+    flagged = {key[1]: c.collinear_terms() for key, c in answered.items()
+               if c.collinear_terms()}
+    warning = collinearity_warning(flagged, fit.names, model=lead,
+                                   group_word=str(cfg.data.group or "group"))
     return SeveralExtras(tables={"diagnostics": pd.concat(frames, ignore_index=True)},
-                         notes=(warning,) if warning else (), checks=first)
+                         notes=(warning,) if warning else (), checks=next(iter(read.values())))
 
 
 def several_groups(pts: pd.DataFrame, names: tuple, hypotheses: dict, cfg, base,
@@ -100,13 +122,6 @@ def several_groups(pts: pd.DataFrame, names: tuple, hypotheses: dict, cfg, base,
     messages = tuple("  " + s for s in several_group_sentences(
         tests, 1 - cfg.model.confidence, word))
     notes = ()
-    alpha = 1 - cfg.model.confidence
-    differ = [what for what, test in (("exponents", comparison.slopes_equal),
-                                      ("elevation", comparison.intercepts_equal))
-              if test[3] <= alpha]
-    if differ and (cfg.prediction.x_table or cfg.prediction.from_file is not None):
-        notes += (f"The {word} values differ in {' and '.join(differ)}; the predictions come "
-                  f"from the pooled fit, which mixes them.",)
     if comparison.skipped:
         notes += (f"{len(comparison.skipped)} {word} value(s) with fewer than "
                  f"{len(names) + 2} rows have no exponents of their own "

@@ -27,9 +27,10 @@ import pandas as pd
 from ..errors import DataError, ExtrapolationWarning, ScalingError
 from ..stats.lines import base_label, method_label
 from ..stats.units import conversion_factor, normalisation_constant
+from ..stats.several_groups import predict_groups, predict_total_groups
 from ..stats.several_predictors import fit_multi, multi_fit_to_dict
 from ..render.summaries import total_range_note
-from ..render.wording import p_text
+from ..render.wording import p_text, plural
 from .several_checks import several_diagnostics, several_groups
 
 __all__ = ["apply_model_units", "constant_columns", "SeveralStage", "several_stage",
@@ -246,11 +247,13 @@ def combined_sentence(c, alpha: float) -> str:
             f"({c.df_num:g}, {c.df_den:g}) df, {p_text(c.p_value)}: {adequate}.")
 
 
-def total_sentence(total, y_unit: str) -> str:
-    """The total of the new rows with its interval."""
+def total_sentence(total, y_unit: str, source: str = "") -> str:
+    """The total of the new rows with its interval (``source``: which lines predicted
+    them, when not the pooled fit)."""
     u = f" {y_unit}" if y_unit else ""
+    source = f", {source}" if source else ""
     flag = (f"; {total.n_extrapolated} of them extrapolated" if total.n_extrapolated else "")
-    return (f"Total over the {total.n_new} new rows: {total.total:,.4g}{u} "
+    return (f"Total over the {total.n_new} new rows{source}: {total.total:,.4g}{u} "
             f"({100 * total.confidence:g}% interval {total.low:,.4g} to {total.high:,.4g}{u}; "
             f"{total.correction} correction; parameter and scatter uncertainty combined, "
             f"see prediction_total.csv{flag}).{total_range_note(total)}")
@@ -270,6 +273,8 @@ class SeveralStage:
         ``combined_term`` (``model.combined``), ``predictions`` (new rows,
         natural units, intervals) and ``prediction_total`` (``prediction.total``).
     multi_fit : MultiFit
+    comparison : MultiGroupComparison or None
+        With ``data.group``: each group's fit, the common exponents, the tests.
     saved_fits : dict
         ``("pooled", "", "ols") -> saved-fit dict`` (for ``scaling predict``).
     messages, notes : tuple of str
@@ -286,6 +291,7 @@ class SeveralStage:
     messages: tuple = ()
     notes: tuple = ()
     manifest: dict
+    comparison: object = None
 
 
 def several_stage(cfg, state) -> SeveralStage:
@@ -334,6 +340,7 @@ def several_stage(cfg, state) -> SeveralStage:
                               "statistic_type": "t", "df": t.df, "p_value": t.p_value,
                               "p_method": "t"})
     tables: dict = {}
+    comparison = None
     if "group" in pts.columns:   # data.group: each group's fit, common exponents, tests
         grouped = several_groups(pts, names, exponent_hypotheses(cfg.exponents, names), cfg,
                                  base, units)
@@ -342,8 +349,9 @@ def several_stage(cfg, state) -> SeveralStage:
         tables.update(grouped.tables)
         messages += list(grouped.messages)
         notes += list(grouped.notes)
+        comparison = grouped.comparison
     if cfg.diagnostics.enabled:
-        checked = several_diagnostics(fit, pts, cfg)
+        checked = several_diagnostics(fit, pts, cfg, comparison)
         tables.update(checked.tables)
         notes += list(checked.notes)
     slope_tests = pd.DataFrame(test_rows, columns=MULTI_SLOPE_TEST_COLUMNS)
@@ -358,16 +366,23 @@ def several_stage(cfg, state) -> SeveralStage:
     new = _new_rows(cfg, names)
     if new is not None:
         pc = cfg.prediction
+        model, said = _prediction_model(cfg, comparison, new)
+        notes += said
         with warnings.catch_warnings(record=True):   # the run notes extrapolation itself
             warnings.simplefilter("always", ExtrapolationWarning)
-            pred = fit.predict(new[list(names)], correction=pc.correction,
-                               interval=pc.interval)
-            total = (fit.predict_total(new[list(names)], correction=pc.correction)
-                     if pc.total else None)
+            if model is None:
+                pred = fit.predict(new[list(names)], correction=pc.correction,
+                                   interval=pc.interval)
+                total = (fit.predict_total(new[list(names)], correction=pc.correction)
+                         if pc.total else None)
+            else:
+                pred, total = _predict_by_group(cfg, comparison, new, names, model)
         frame = pred.to_frame()
         for c in new.columns:
             if c not in names:
                 frame.insert(0, c, new[c].to_numpy())
+        if model is not None:   # which line predicted: each group's own, or the common one
+            frame.insert(0, "scope", model)
         tables["predictions"] = frame
         n_ext = int(frame["extrapolated"].sum())
         if n_ext:
@@ -376,12 +391,68 @@ def several_stage(cfg, state) -> SeveralStage:
                          "in predictions.csv.")
         if total is not None:
             tables["prediction_total"] = total.to_frame()
-            messages.insert(head, total_sentence(total, units.get("y", "")))
+            source = (_source_words(model, cfg.data.group) if not said else
+                      f"from the pooled fit, which mixes {plural(str(cfg.data.group))}")
+            messages.insert(head, total_sentence(total, units.get("y", ""), source))
     messages.append(f"  Residual SD (log{base_label(base)}) {fit.resid_sd:.4f}; "
                     f"adjusted r² {fit.adj_r2:.3f}; smearing factor {fit.factors['smearing']:.4f}.")
     return SeveralStage(fits=fits, slope_tests=slope_tests, tables=tables, multi_fit=fit,
                         saved_fits={("pooled", "", "ols"): saved}, messages=tuple(messages),
-                        notes=tuple(notes), manifest={"predictors": list(names)})
+                        notes=tuple(notes), manifest={"predictors": list(names)},
+                        comparison=comparison)
+
+
+def _prediction_model(cfg, comparison, new: pd.DataFrame) -> tuple:
+    """(model, notes): which line predicts the new rows when the groups were compared.
+
+    ``"group"`` (each group's own fit) when the groups' exponents differ;
+    ``"common"`` (the common exponents at each group's elevation) when they
+    share exponents but not the elevation; None (the pooled fit) when they
+    share both, or when the new rows have no group column (then one note
+    says that the pooled fit predicts and mixes the groups).
+    """
+    if comparison is None:
+        return None, []
+    alpha = 1 - cfg.model.confidence
+    lead = comparison.leading(alpha)
+    elev = comparison.intercepts_equal[3]
+    differ = lead == "group" or (np.isfinite(elev) and elev <= alpha)
+    if not differ:
+        return None, []
+    word = str(cfg.data.group)
+    what = "exponents" if lead == "group" else "elevation"
+    column = cfg.data.group
+    if column in new.columns and new[column].notna().all():
+        return lead if lead == "group" else "common", []
+    return None, [f"The {plural(word)} differ in their {what}, but the new rows have no complete "
+                  f"{word} column, so their predictions come from the pooled fit, which mixes "
+                  f"{plural(word)}; add a {word} column to the prediction table to predict "
+                  f"each row from the line of its own {word}."]
+
+
+def _source_words(model: str | None, word) -> str:
+    """Which lines predicted the new rows, in words ('' for the pooled fit)."""
+    if model == "group":
+        return f"each from the fit of its own {word}"
+    if model == "common":
+        return f"each from the common exponents at the elevation of its {word}"
+    return ""
+
+
+def _predict_by_group(cfg, comparison, new: pd.DataFrame, names, model: str) -> tuple:
+    """(MultiPrediction, TotalPrediction or None) of the new rows from their groups' lines."""
+    pc = cfg.prediction
+    x = {n: new[n].to_numpy(dtype=float) for n in names}
+    groups = new[cfg.data.group].astype(str).to_numpy()
+    where = pc.from_file if pc.from_file is not None else "prediction.x"
+    try:
+        pred, _ = predict_groups(comparison, x, groups, model=model,
+                                 correction=pc.correction, interval=pc.interval)
+        total = (predict_total_groups(comparison, x, groups, model=model,
+                                      correction=pc.correction) if pc.total else None)
+    except DataError as exc:
+        raise DataError(f"{where}: {exc}") from None
+    return pred, total
 
 
 def prediction_sentences(tables: dict, cfg, units: dict, *, most: int = 6) -> list:

@@ -78,7 +78,7 @@ from .predictions import CORRECTIONS, INTERVALS
 from .schema import DEFAULT_SEED, SCATTER_SHOWN, check_confidence
 
 __all__ = ["MultiPrediction", "TotalPrediction", "predict_multi", "predict_total",
-           "TOTAL_DRAWS"]
+           "total_piece", "combine_total_pieces", "TOTAL_DRAWS"]
 
 
 # --------------------------------------------------------------------------
@@ -416,18 +416,44 @@ def predict_total(fit, x_new, *, correction: str = "smearing",
     mat, d0 = _design(fit, x_new)
     out_range, outside, _ = _flags(fit, mat, d0)
     beta = np.concatenate([[fit.intercept], fit.slopes])
-    s2 = fit.resid_sd ** 2
-    scatter = _scatter_variance(correction, s2, fit.residuals, fit.log_base)
-    total, var_param, var_scatter = _total_moments(d0, beta, s2, fit.xtx_inv, factor=factor,
-                                                   scatter_var=scatter, base=fit.log_base)
-    sims = _total_draws(d0, beta, s2, fit.xtx_inv, base=fit.log_base, df=fit.df,
-                        draws=TOTAL_DRAWS, rng=np.random.default_rng(seed))
-    low, high = _total_interval(sims, confidence)
+    piece = total_piece(d0, beta, fit.resid_sd ** 2, fit.xtx_inv, residuals=fit.residuals,
+                        df=fit.df, base=fit.log_base, correction=correction, factor=factor,
+                        rng=np.random.default_rng(seed))
+    return combine_total_pieces(
+        [piece], confidence=confidence, correction=correction, n_new=int(mat.shape[0]),
+        n_extrapolated=int((out_range.any(axis=1) | outside).sum()),
+        resid_sd=fit.resid_sd, base=fit.log_base)
+
+
+def total_piece(d0: np.ndarray, beta, s2: float, xtx_inv, *, residuals, df: float,
+                base: float, correction: str, factor: float,
+                rng: np.random.Generator) -> tuple:
+    """(total, var_param, var_scatter, simulated totals) of the rows ``d0`` of one model.
+
+    ``d0`` are design rows of the model whose coefficients are ``beta`` with
+    covariance ``s2 * xtx_inv``; pieces from models fitted to disjoint data
+    are independent and add (:func:`combine_total_pieces`).
+    """
+    scatter = _scatter_variance(correction, s2, residuals, base)
+    total, var_param, var_scatter = _total_moments(d0, beta, s2, xtx_inv, factor=factor,
+                                                   scatter_var=scatter, base=base)
+    sims = _total_draws(d0, beta, s2, xtx_inv, base=base, df=df, draws=TOTAL_DRAWS, rng=rng)
+    return float(total), float(var_param), float(var_scatter), sims
+
+
+def combine_total_pieces(pieces, *, confidence: float, correction: str, n_new: int,
+                         n_extrapolated: int, resid_sd: float, base: float) -> TotalPrediction:
+    """The total of independent pieces (:func:`total_piece`): sums of the totals, of the
+    variances and of the simulated totals draw by draw.  ``resid_sd`` is the largest
+    residual SD among the models (for ``beyond_shown_range``)."""
+    total = sum(p[0] for p in pieces)
+    var_param = sum(p[1] for p in pieces)
+    var_scatter = sum(p[2] for p in pieces)
+    low, high = _total_interval(sum(p[3] for p in pieces), confidence)
     return TotalPrediction(
         total=float(total), se=math.sqrt(float(var_param + var_scatter)),
         low=float(low), high=float(high), se_parameters=math.sqrt(float(var_param)),
-        se_scatter=math.sqrt(float(var_scatter)), n_new=int(mat.shape[0]),
-        correction=correction, confidence=confidence,
-        n_extrapolated=int((out_range.any(axis=1) | outside).sum()),
-        draws=TOTAL_DRAWS, scatter_log10=float(fit.resid_sd * math.log10(fit.log_base)),
-        beyond_shown_range=bool(_beyond_shown(s2, fit.log_base)))
+        se_scatter=math.sqrt(float(var_scatter)), n_new=n_new,
+        correction=correction, confidence=confidence, n_extrapolated=n_extrapolated,
+        draws=TOTAL_DRAWS, scatter_log10=float(resid_sd * math.log10(base)),
+        beyond_shown_range=bool(_beyond_shown(resid_sd ** 2, base)))
