@@ -1317,3 +1317,15 @@ class TestExactLawLeavesNoScatter:
             fit = scaling.fit_line(self.X, 3 * self.X ** 0.75, method=method)
         assert fit.resid_sd == 0.0   # exact law
         assert_allclose(fit.slope, 0.75, rtol=1e-9)   # exact law
+
+
+def test_t_quantiles_are_scipys_elementwise():
+    # reference library: scipy.stats.t.ppf, called on the whole array; the cached
+    # per-value path must give the very same floats, nan and edge dfs included
+    from scipy import stats
+    from scaling.stats.lines import t_quantiles
+    for df in (np.array(3.0), np.array([1.0, 2, -1, 0, np.nan, np.inf, 1e6, 37]),
+               np.arange(1, 40.0).reshape(3, 13)):
+        got, ref = t_quantiles(0.975, df), stats.t.ppf(0.975, df)
+        assert got.shape == ref.shape
+        assert np.array_equal(got, ref, equal_nan=True)

@@ -85,6 +85,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Callable
 
 import numpy as np
@@ -400,6 +401,25 @@ def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
     return t, df, p
 
 
+@lru_cache(maxsize=8192)
+def _t_quantile(q: float, df: float) -> float:
+    return float(stats.t.ppf(q, df))
+
+
+def t_quantiles(q: float, df) -> np.ndarray:
+    """``scipy.stats.t.ppf(q, df)`` elementwise, each distinct (q, df) computed once.
+
+    A run calls the fits of small samples thousands of times (a group at a time,
+    a point left out at a time), where scipy's per-call set-up costs more than the
+    quantile; the values are scipy's own.
+    """
+    df = np.asarray(df, dtype=float)
+    if df.size > 256:
+        return stats.t.ppf(q, df)
+    flat = [_t_quantile(float(q), float(d)) for d in df.ravel().tolist()]
+    return np.asarray(flat, dtype=float).reshape(df.shape)
+
+
 def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
     """Fit ``method`` to every group of moments at once.
 
@@ -418,7 +438,7 @@ def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
     confidence = check_confidence(confidence)
     df = m.n - 2
     with np.errstate(invalid="ignore"):
-        tcrit = stats.t.ppf(0.5 + confidence / 2, df)
+        tcrit = t_quantiles(0.5 + confidence / 2, df)
     b = spec.slope(m)
     lo, hi = spec.bounds(m, tcrit)
     var_b = spec.slope_var(m, b)
