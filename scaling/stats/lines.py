@@ -414,10 +414,13 @@ def t_quantiles(q: float, df) -> np.ndarray:
     quantile; the values are scipy's own.
     """
     df = np.asarray(df, dtype=float)
-    if df.size > 256:
-        return stats.t.ppf(q, df)
-    flat = [_t_quantile(float(q), float(d)) for d in df.ravel().tolist()]
-    return np.asarray(flat, dtype=float).reshape(df.shape)
+    values, where = np.unique(df.ravel(), return_inverse=True)   # nan sorts last, once each
+    if values.size > 256:
+        quantiles = stats.t.ppf(q, values)
+    else:
+        quantiles = np.asarray([_t_quantile(float(q), float(d)) for d in values.tolist()],
+                               dtype=float)
+    return quantiles[where].reshape(df.shape)
 
 
 def fit_moments(m: Moments, method: str, *, confidence: float = 0.95) -> dict:
