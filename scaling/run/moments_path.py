@@ -310,8 +310,8 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     if drawable != tuple(cfg.figures.kinds):
         gone = [k for k in cfg.figures.kinds if k not in drawable]
         notes.append(f"Figures that need the rows were not drawn on the large-data path: "
-                     f"{', '.join(gone)}; the scaling figure shows the pooled line only "
-                     "(neither rows nor group means).")
+                     f"{', '.join(gone)}; the scaling figure draws the fitted lines and "
+                     "the group means, not the points.")
         cfg = replace(cfg, figures=replace(cfg.figures, kinds=drawable))
     empty = pd.DataFrame({"row": pd.Series(dtype=np.int64), "x": pd.Series(dtype=float),
                           "y": pd.Series(dtype=float), "log_x": pd.Series(dtype=float),

@@ -81,6 +81,9 @@ class SecondPass:
         ``diagnostics.enabled``) and ``points_to_check``.
     checks : StreamedChecks
         The raw sums' results (set 0 pooled, set 1 + g group g).
+    line_fits : dict
+        ``(scope, group, method) -> LineFit`` of every estimable fit (the path's
+        own and each group's), as the in-memory road holds them (figures, report).
     messages, notes : tuple of str
     """
 
@@ -88,6 +91,7 @@ class SecondPass:
     saved_fits: dict
     tables: dict
     checks: StreamedChecks
+    line_fits: dict
     messages: tuple = ()
     notes: tuple = ()
 
@@ -319,7 +323,8 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         messages += diag_messages
     notes.append(skipped_note(cfg.diagnostics.enabled and cfg.diagnostics.error_structure))
     return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
-                      checks=res, messages=tuple(messages), notes=tuple(notes))
+                      checks=res, line_fits=all_fits, messages=tuple(messages),
+                      notes=tuple(notes))
 
 
 def skipped_note(error_structure: bool = False) -> str:
@@ -572,6 +577,6 @@ def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = 
     extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
                         other_tables=result.tables, point_sets=point_sets)
     return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
-                   tables={**result.tables, **extra.tables},
+                   line_fits=extra.line_fits, tables={**result.tables, **extra.tables},
                    messages=result.messages + extra.messages,
                    warnings=result.warnings + extra.notes)
