@@ -226,11 +226,25 @@ class ResidualSums:
         with np.errstate(divide="ignore", invalid="ignore"):
             above = u / (2 * self.s2_moments[codes]) > 4.0 / self.n_moments[codes]
         self.n_above += np.bincount(codes, weights=above, minlength=S)
-        # Only rows that beat their set's k-th largest so far can enter (keeps the sort small).
-        live = u >= self.top_u[codes, -1]
+        # Only rows that beat their set's k-th largest so far, and a lower bound of the
+        # chunk's own k-th largest, can enter (keeps the sort small).
+        live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
         self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
         if self.influence_method is not None:
             self._add_strong(codes, X, Y, u, rows)
+
+    def _chunk_floor(self, codes, u) -> np.ndarray:
+        """Per set, a lower bound of the k-th largest ``u`` of a chunk: the smallest of
+        the maxima of k disjoint strided slices (k distinct rows reach it; -inf for a
+        set missing from a slice)."""
+        S = self.shape[0]
+        floor = np.full(S, np.inf)
+        top = np.empty(S)
+        for j in range(self.k):
+            top.fill(-np.inf)
+            np.maximum.at(top, codes[j::self.k], u[j::self.k])
+            np.minimum(floor, top, out=floor)
+        return floor
 
     def _add_strong(self, codes, X, Y, u, rows) -> None:
         """Rows under the strong-influence rule, with their leave-one-out slopes."""
