@@ -9,6 +9,8 @@ against scipy and statsmodels in test_diagnostics.py and test_predict.py.
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -270,6 +272,9 @@ class TestSecondPassOnUnitMeans:
         rows = pd.read_csv(unit_table)
         assert len(far) == 1
         assert int(far["row"].iloc[0]) == int(np.flatnonzero(rows["species"] == "c3_far")[0]) + 1
+        # the influence sentence names each point's unit beside its row, as in memory
+        said = [t for t in unit_runs["moments"].messages if t.startswith("Influence:")]
+        assert said and re.search(r"row \d+ \(c\d_", said[0]), said
 
     def test_points_to_check_of_the_pooled_line_name_the_unit(self, unit_runs):
         cols = ["scope", "group", "method", "severity", "kind", "row", "label", "value"]

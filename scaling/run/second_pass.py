@@ -424,7 +424,10 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tab
     }
     answer = answer_line(other_tables.get("group_tests"), cfg.model.methods,
                          getattr(cfg.model, "primary", None), cfg.model.confidence)
-    messages = diagnostics_messages(results, {}, {}, cfg, answer=answer,
+    # the verdicts name a point by its unit (data.average_within), as in memory
+    named = ({("pooled", ""): pd.DataFrame({"row": list(names), "unit": list(names.values())})}
+             if names else {})
+    messages = diagnostics_messages(results, {}, named, cfg, answer=answer,
                                     points=tables.get("points_to_check")) if results else []
     where = {k: i for i, k in enumerate(keys)}
     if any(res.n_influential[where[k[:2]]] > len(d.influential_rows)
