@@ -43,8 +43,15 @@ take turns ``--repeats`` times and the best time counts.
 Targets: (b) within 2.5x of (a); (c)/(b) >= 10 at 1e4 groups of
 1e3 rows; peak memory of (b) < 3x the three input columns.
 
+(f) moments -- with ``--moments`` (only): the moments path's whole answer
+              (``run_config`` on the table as a file, above
+              ``data.moments_above_mb``: groups compared, second pass,
+              predictions, tables, report, PNG figures) against its fits alone
+              (``read_moments`` + ``fit_groups_from_moments``).  Target < 2x.
+
 Run:   python benchmarks/bench_scale.py                      # 1e6 rows, 1e3 groups
        python benchmarks/bench_scale.py --versus-loop        # (e) only
+       python benchmarks/bench_scale.py --moments --run-format csv   # (f) only
        python benchmarks/bench_scale.py --rows 1e7 --groups 1e4
        python benchmarks/bench_scale.py --rows 1e7 --groups 1e4 --run --no-parquet
 """
@@ -272,6 +279,9 @@ def main(argv=None) -> int:
                     help="time only (a) and (b'), skipping (b), (c) and (d)")
     ap.add_argument("--versus-loop", action="store_true",
                     help="time only (e): `scaling run` against a plain per-group loop")
+    ap.add_argument("--moments", action="store_true",
+                    help="time only (f): the moments path's whole answer vs its fits")
+    ap.add_argument("--profile", help="with --moments: write cProfile stats of (f2) here")
     a = ap.parse_args(argv)
     rows, groups = int(a.rows), int(a.groups)
     if a.versus_loop:
@@ -285,6 +295,10 @@ def main(argv=None) -> int:
     ff = floor_frame(df)
     input_bytes = int(df.memory_usage(deep=True, index=False).sum())
 
+    if a.moments:
+        moments_answer(df, a.run_format if a.run_format == "csv" else "parquet", a.repeats,
+                       a.profile)
+        return 0
     if a.run_only:
         t = best_of({"floor": lambda: run_floor(ff)}, a.repeats)
         print(f"(a) floor, groupby-sum of 5 columns : {t['floor']:8.3f} s")
@@ -375,6 +389,59 @@ def run_command(df: pd.DataFrame, fmt: str, floor: float) -> None:
           f"target < 30 s: {'met' if secs < 30 else 'NOT met'}")
     print(f"     peak RSS of the largest child so far {rss / 1e6:.0f} MB; report.html "
           f"{report / 1e6:.2f} MB; figures: {', '.join(figures)}")
+
+
+def moments_answer(df: pd.DataFrame, fmt: str = "csv", repeats: int = 1,
+                   profile: str | None = None) -> float:
+    """(f): the moments path's whole answer against its fits alone, in this process.
+
+    On the table written as a file: (f1) its fits alone --
+    ``read_moments`` (chunks of 1e6 rows) and ``fit_groups_from_moments`` (OLS,
+    SMA, MA, intervals, slope tests); (f2) the answer computed -- ``run_config``
+    with ``data.moments_above_mb`` tiny (the moments path), groups compared,
+    corrections, residual checks and curvature (the second pass, which reads
+    the file again), predictions, nothing written; (f3) the same with the
+    tables, results.json, the report and the PNG figures written.  Target
+    (f3)/(f1) < 2.  ``profile``: a path to write cProfile statistics of (f3) to.
+    Returns the ratio.
+    """
+    from scaling.run.pipeline import run_config
+    from scaling.run.table_moments import read_moments
+    from scaling.stats.grouped_fits import fit_groups_from_moments
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / f"table.{fmt}"
+        if fmt == "parquet":
+            df.to_parquet(path, row_group_size=min(len(df), 1_000_000))
+        else:
+            df.to_csv(path, index=False)
+
+        def fits_alone():
+            gm = read_moments(path, x="mass", y="rate", group="species", chunk_size=1_000_000)
+            fit_groups_from_moments(gm, methods=("ols", "sma", "ma"), exponents=EXPONENTS,
+                                    pooled=True)
+
+        cfg = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "species",
+                        "moments_above_mb": 1e-6, "chunk_size": 1_000_000},
+               "exponents": {"three_quarters": 0.75}, "prediction": {"x": [10, 100]},
+               "figures": {"formats": ["png"]}, "output": {"dir": str(Path(tmp) / "out")}}
+
+        def answer():
+            run_config(cfg, write=False, quiet=True)
+
+        def whole():
+            run_config(cfg, force=True, quiet=True)
+
+        t = best_of({"fits": fits_alone, "answer": answer, "whole": whole}, repeats)
+        if profile:
+            import cProfile
+            cProfile.runctx("whole()", globals(), {"whole": whole}, profile)
+    ratio = t["whole"] / t["fits"]
+    print(f"(f1) moments path, fits alone ({fmt})   : {t['fits']:8.3f} s")
+    print(f"(f2) the answer computed, not written: {t['answer']:8.3f} s  (f2)/(f1) = "
+          f"{t['answer'] / t['fits']:.2f}")
+    print(f"(f3) the whole answer written        : {t['whole']:8.3f} s  (f3)/(f1) = "
+          f"{ratio:.2f}   target < 2 : {'met' if ratio < 2 else 'NOT met'}")
+    return ratio
 
 
 if __name__ == "__main__":

@@ -252,3 +252,54 @@ class TestManyGroupsRun:
         assert (tmp_path / "out" / "figures" / "group_exponents.png").exists()
         assert (tmp_path / "out" / "exponent_spread.csv").exists()
         assert any("Per-group diagnostics skipped" in w for w in res.warnings)
+
+
+class TestScalingFigureOfTheMomentsPath:
+    """The moments path holds no points: its scaling figure draws what needs none."""
+
+    @staticmethod
+    def _figure(result):
+        from matplotlib.collections import LineCollection
+        from scaling.render.figure_scaling import make_scaling
+        fig = make_scaling(result)
+        ax = fig.axes[0]
+        texts = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
+        segments = sum(len(c.get_segments()) for c in ax.collections
+                       if isinstance(c, LineCollection))
+        return ax, texts, segments
+
+    def test_group_lines_means_and_counts_as_in_memory(self, tmp_path):
+        path = tmp_path / "few.csv"
+        _table(5, 30).to_csv(path, index=False)
+        mem = _run(_cfg(path, tmp_path))
+        big = _run(_cfg(path, tmp_path, data={"moments_above_mb": 1e-6, "chunk_size": 40}))
+        ax_m, texts_m, _ = self._figure(mem)
+        ax_b, texts_b, _ = self._figure(big)
+        # exact: 30 rows in each of five groups; every legend entry of the in-memory
+        # figure is there, and one more says the points are not drawn
+        assert "g0000 (n = 30)" in texts_b
+        assert [t for t in texts_b if t != "points not drawn: large-data run"] == texts_m
+        assert "points not drawn: large-data run" in texts_b
+        # the same lines (pooled line and one per group; internal consistency)
+        lines_m = sorted((round(float(ln.get_ydata()[0]), 9), len(ln.get_xdata()))
+                         for ln in ax_m.lines)
+        lines_b = sorted((round(float(ln.get_ydata()[0]), 9), len(ln.get_xdata()))
+                         for ln in ax_b.lines)
+        assert lines_b == lines_m and len(lines_b) >= 6
+
+    def test_many_groups_draw_each_line_and_the_pooled_count(self, data_files):
+        tmp, csv, _, ordinary = data_files
+        big = _run(_cfg(csv, tmp, data={"moments_above_mb": 1e-6}))
+        _, _, segments_m = self._figure(ordinary)
+        _, texts, segments = self._figure(big)
+        # exact: 25 groups, one line segment each and two SE bars on each mean, as the
+        # in-memory figure draws them
+        assert segments == segments_m == 25 * 3
+        assert "points not drawn: large-data run" in texts
+
+    def test_without_groups_the_legend_gives_the_points_fitted(self, data_files):
+        tmp, csv, _, _ = data_files
+        cfg = _cfg(csv, tmp, data={"moments_above_mb": 1e-6, "group": None})
+        _, texts, _ = self._figure(_run(cfg))
+        # exact: the 1000 rows written
+        assert "points not drawn: large-data run (n = 1000)" in texts

@@ -172,10 +172,7 @@ def averaged_runs(tmp_path_factory):
 
 class TestRoadsGiveOneAnswer:
     @pytest.mark.parametrize("road", list(ROADS))
-    def test_answer_and_tables_equal_the_in_memory_run(self, runs, road, request):
-        if runs[1]:   # averaged within units: the second pass still reads rows, not unit means
-            request.applymarker(pytest.mark.xfail(strict=True, reason=(
-                "the moments path's second pass measures accuracy on rows, not unit means")))
+    def test_answer_and_tables_equal_the_in_memory_run(self, runs, road):
         _, _, _, _, _, out = runs
         assert "large_data" in out[road][0].manifest and "large_data" not in \
             out["pandas"][0].manifest
@@ -258,8 +255,6 @@ class TestCountsOfDroppedRows:
 
 
 class TestRealCluster:
-    @pytest.mark.xfail(strict=True, reason="the moments path's second pass measures "
-                       "accuracy on rows, not unit means")
     def test_local_cluster_gives_the_answer_of_the_pandas_engine(self, averaged_runs):
         shape, averaged, path, tmp, extra, out = averaged_runs
         distributed = pytest.importorskip("distributed")

@@ -9,6 +9,8 @@ against scipy and statsmodels in test_diagnostics.py and test_predict.py.
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -171,3 +173,130 @@ def test_influence_verdicts_count_every_row_above_four_over_n(runs):
     said = [[t.split(" pull ")[0] for t in runs[road].messages if t.startswith("Influence:")]
             for road in ("memory", "moments")]
     assert said[0] and said[1] == said[0]
+
+
+# --------------------------------------------------------------------------
+# data.average_within: the points are unit means, named by their unit
+
+
+@pytest.fixture(scope="module")
+def unit_table(tmp_path_factory):
+    """Invented: 1 to 4 rows per species, species within clades, rows shuffled so a
+    species' rows fall in several chunks; one far species (one row) pulls the line."""
+    rng = np.random.default_rng(21)
+    parts = []
+    for g, n_species in enumerate((4, 9, 60, 1800)):   # about 240 kB: several partitions
+        lx_sp = rng.uniform(0, 3, n_species)
+        ly_sp = 0.3 + (0.72 + 0.02 * g) * lx_sp + rng.normal(0, 0.1 * (1 + 0.3 * lx_sp))
+        reps = rng.integers(1, 5, n_species)
+        k = np.repeat(np.arange(n_species), reps)
+        parts.append(pd.DataFrame({
+            "mass": 10 ** (lx_sp[k] + rng.normal(0, 0.05, k.size)),
+            "rate": 10 ** (ly_sp[k] + rng.normal(0, 0.05, k.size)),
+            "clade": f"c{g}", "species": [f"c{g}_sp{i}" for i in k]}))
+    parts.append(pd.DataFrame({"mass": [1e8], "rate": [10 ** 2.0], "clade": ["c3"],
+                               "species": ["c3_far"]}))
+    df = pd.concat(parts).sample(frac=1, random_state=4).reset_index(drop=True)
+    path = tmp_path_factory.mktemp("units") / "u.csv"
+    df.to_csv(path, index=False)
+    return path
+
+
+def _unit_run(path, *, large: bool, engine: str = "pandas"):
+    cfg = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "clade",
+                    "average_within": "species",
+                    "moments_above_mb": 1e-9 if large else 1e6, "chunk_size": 97},
+           "engine": engine, "model": {"methods": ["ols", "sma", "ma"]},
+           "exponents": {"three_quarters": 0.75},
+           "prediction": {"x": [1, 30, 5000], "y": [10, 100]},
+           "figures": {"formats": []}}
+    return run_config(cfg, write=False, quiet=True)
+
+
+@pytest.fixture(scope="module")
+def unit_runs(unit_table):
+    return {"memory": _unit_run(unit_table, large=False),
+            "moments": _unit_run(unit_table, large=True)}
+
+
+class TestSecondPassOnUnitMeans:
+    def test_correction_columns_and_predictions_equal_the_in_memory_road(self, unit_runs):
+        mem = _keyed(unit_runs["memory"].fits, ["scope", "group", "method"])
+        mom = _keyed(unit_runs["moments"].fits, ["scope", "group", "method"])
+        assert mem.index.equals(mom.index)
+        # exact: one point per species, not one per row
+        assert (mom["n"] == mem["n"]).all()
+        assert mom.loc[("pooled", "", "ols"), "n"] == len(unit_runs["memory"].data.points)
+        for col in FIT_ACCURACY_COLUMNS + ["a", "a_low", "a_high"]:
+            # internal consistency: the same factors from the unit means held in memory
+            assert_allclose(mom[col].to_numpy(float), mem[col].to_numpy(float), rtol=1e-9,
+                            err_msg=col)
+        keys = ["scope", "group", "method", "x"]
+        a = _keyed(unit_runs["memory"].tables["predictions"], keys)
+        b = _keyed(unit_runs["moments"].tables["predictions"], keys)
+        assert a.index.equals(b.index)
+        for col in ("y", "y_low", "y_high"):
+            # internal consistency: predictions from the same fits and factors
+            assert_allclose(b[col].to_numpy(float), a[col].to_numpy(float), rtol=1e-9)
+
+    def test_checks_and_curvature_equal_the_in_memory_road(self, unit_runs):
+        keys = ["scope", "group", "method", "check"]
+        mem = _keyed(unit_runs["memory"].tables["diagnostics"], keys)
+        mom = _keyed(unit_runs["moments"].tables["diagnostics"], keys)
+        assert mem.index.equals(mom.index)
+        same = mem.index.get_level_values("check") != "normality"
+        for col in ("statistic", "p_value"):
+            # internal consistency: Breusch-Pagan (statsmodels), quadratic t, Cook's max
+            assert_allclose(mom.loc[same, col].to_numpy(float),
+                            mem.loc[same, col].to_numpy(float), rtol=1e-9, err_msg=col)
+        keys = ["scope", "group", "exponent"]
+        a = _keyed(unit_runs["memory"].tables["curvature"], keys)
+        b = _keyed(unit_runs["moments"].tables["curvature"], keys)
+        # internal consistency: the quadratic term fitted to the unit means
+        assert_allclose(b["quadratic"].to_numpy(float), a["quadratic"].to_numpy(float),
+                        rtol=1e-9)
+
+    def test_influential_points_name_the_unit_and_its_first_row(self, unit_runs, unit_table):
+        mem = unit_runs["memory"].tables["influential_rows"]
+        mom = unit_runs["moments"].tables["influential_rows"]
+        pooled = mem[(mem["scope"] == "pooled") & (mem["method"] == "ols")]
+        top = pooled.sort_values("cooks_distance", ascending=False, kind="stable").head(TOP_K)
+        mine = mom[(mom["scope"] == "pooled") & (mom["method"] == "ols")]
+        # internal consistency: statsmodels' Cook's distances of the unit means in memory
+        assert list(mine["row"].astype(int)) == list(top["row"].astype(int))
+        assert list(mine["label"]) == list(top["label"])
+        assert_allclose(mine["cooks_distance"].to_numpy(float),
+                        top["cooks_distance"].to_numpy(float), rtol=1e-9)
+        # exact: the far species has one row, the first of its rows in the file
+        far = mine[mine["label"] == "c3_far"]
+        rows = pd.read_csv(unit_table)
+        assert len(far) == 1
+        assert int(far["row"].iloc[0]) == int(np.flatnonzero(rows["species"] == "c3_far")[0]) + 1
+        # the influence sentence names each point's unit beside its row, as in memory
+        said = [t for t in unit_runs["moments"].messages if t.startswith("Influence:")]
+        assert said and re.search(r"row \d+ \(c\d_", said[0]), said
+
+    def test_points_to_check_of_the_pooled_line_name_the_unit(self, unit_runs):
+        cols = ["scope", "group", "method", "severity", "kind", "row", "label", "value"]
+        mem = unit_runs["memory"].tables["points_to_check"]
+        mom = unit_runs["moments"].tables["points_to_check"]
+        mem = mem[(mem["scope"] == "pooled") & (mem["kind"] == "influence")][cols]
+        mom = mom[(mom["scope"] == "pooled") & (mom["kind"] == "influence")][cols]
+        assert "c3_far" in set(mom["label"])
+        # internal consistency: leave-one-out refits on the unit means in memory
+        assert_allclose(mom["value"].to_numpy(float), mem["value"].to_numpy(float), rtol=1e-9)
+        pd.testing.assert_frame_equal(mom.drop(columns="value").reset_index(drop=True),
+                                      mem.drop(columns="value").reset_index(drop=True))
+
+    def test_dask_partitions_number_the_unit_by_its_first_row(self, unit_table, unit_runs):
+        pytest.importorskip("dask.dataframe")
+        from scaling.io.chunked import dask_partitions
+        columns = ["mass", "rate", "clade"]
+        assert len(dask_partitions(unit_table, "csv", columns, 97, ",", ".")) >= 2
+        dask_run = _unit_run(unit_table, large=True, engine="dask")
+        a = dask_run.tables["influential_rows"]
+        b = unit_runs["moments"].tables["influential_rows"]
+        # internal consistency: the chunked road above
+        assert a[["row", "label"]].values.tolist() == b[["row", "label"]].values.tolist()
+        assert_allclose(a["cooks_distance"].to_numpy(float),
+                        b["cooks_distance"].to_numpy(float), rtol=1e-9)

@@ -19,7 +19,8 @@ from .figure_style import scatter_coded
 from .headline import primary_method
 from .wording import unit_text
 
-__all__ = ["run_base", "axis_label", "run_groups", "group_codes", "scatter_groups",
+__all__ = ["run_base", "axis_label", "points_held", "run_groups", "group_sizes", "fitted_n",
+           "group_codes", "scatter_groups",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
 
@@ -55,12 +56,47 @@ def axis_label(result, role: str) -> str:
     return f"{name} ({unit_text(unit)})" if unit else str(name)   # "cm²", not "(cm**2)"
 
 
+def points_held(result) -> bool:
+    """False for a large-data run, which never holds its points (``points`` is empty):
+    its figures draw the fits and group means, not the points."""
+    return bool(len(result.data.points)) or "large_data" not in (result.manifest or {})
+
+
 def run_groups(result) -> list:
-    """The groups of the run's points, sorted as text (empty without groups)."""
+    """The groups of the run's points, sorted as text (empty without groups).
+
+    A large-data run holds no points: its groups are those of its fits."""
     pts = result.data.points
+    if not points_held(result):
+        fits = result.fits
+        if fits is None or "scope" not in fits or not result.config.data.group:
+            return []
+        return sorted({str(g) for g in fits.loc[fits["scope"] == "group", "group"]})
     if "group" not in pts.columns:
         return []
     return sorted(str(g) for g in pts["group"].unique())
+
+
+def _fit_counts(result, scope: str) -> dict:
+    """``group -> n`` of the fits of one scope (every method fits the same points)."""
+    fits = result.fits
+    rows = fits[fits["scope"] == scope]
+    return {str(g): int(n) for g, n in zip(rows["group"], rows["n"])}
+
+
+def group_sizes(result, groups: list) -> np.ndarray:
+    """Points in each of the sorted ``groups`` (from the fits on a large-data run)."""
+    if points_held(result):
+        return np.bincount(group_codes(result.data.points, groups), minlength=len(groups))
+    counts = _fit_counts(result, "group")
+    return np.array([counts.get(g, 0) for g in groups], dtype=np.int64)
+
+
+def fitted_n(result) -> int:
+    """Points of the run (the pooled fits' n on a large-data run)."""
+    if points_held(result):
+        return len(result.data.points)
+    return int(_fit_counts(result, "pooled").get("", 0))
 
 
 def group_codes(pts, groups: list) -> np.ndarray:

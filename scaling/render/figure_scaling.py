@@ -20,8 +20,8 @@ from matplotlib.lines import Line2D
 
 from ..stats.schema import method_label
 from .figure_inputs import (axis_label, common_slope_fit, drawn_primary, factor_of, fit_xrange,
-                            group_codes, group_means_table, run_base, run_groups, run_methods,
-                            scatter_groups, slopes_agree)
+                            fitted_n, group_means_table, group_sizes, points_held, run_base,
+                            run_groups, run_methods, scatter_groups, slopes_agree)
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE,
                            PHYLO_COLOUR, STYLE, THIN, figure_legend, group_style, log_margins,
                            many_groups_handle, natural_log_axis, new_figure, plain_number,
@@ -157,14 +157,20 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     handles: list = []
     gm = None
     xs_all, ys_all = [pts["x"].to_numpy()], [pts["y"].to_numpy()]
+    # a large-data run never holds its points: lines and group means only, and it says so
+    held = points_held(result)
+    unheld = Line2D([], [], ls="none", marker="none",
+                    label="points not drawn: large-data run"
+                          + ("" if groups else f" (n = {fitted_n(result)})"))
 
     # data
     if groups:
         gm = group_means_table(result)
-        scatter_groups(ax, pts, groups, s=12, edgecolor="white", linewidth=0.3, alpha=0.75,
-                        zorder=2)
+        if held:
+            scatter_groups(ax, pts, groups, s=12, edgecolor="white", linewidth=0.3,
+                           alpha=0.75, zorder=2)
         if len(groups) <= LEGEND_MAX_GROUPS:
-            sizes = np.bincount(group_codes(pts, groups), minlength=len(groups))
+            sizes = group_sizes(result, groups)
             for i, g in enumerate(groups):
                 colour, marker = group_style(i)
                 handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
@@ -183,6 +189,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
             sy = np.nan_to_num(gm["se_log_y"].to_numpy(float)[keep], nan=0.0)
             idx = idx[keep]
             mx, my = unlog(lx, base), unlog(ly, base)
+            if not held:   # the equation box keeps clear of the means instead
+                xs_all.append(mx)
+                ys_all.append(my)
             xerr = np.vstack([mx - unlog(lx - sx, base), unlog(lx + sx, base) - mx])
             yerr = np.vstack([my - unlog(ly - sy, base), unlog(ly + sy, base) - my])
             if len(groups) <= LEGEND_MAX_GROUPS:
@@ -205,6 +214,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
             handles.append(Line2D([], [], ls="none", marker="o", markerfacecolor="white",
                                   markeredgecolor="black", markersize=6,
                                   label="group mean ± 1 SE"))
+    elif not held:
+        handles.append(unheld)
     else:
         scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(),
                        np.zeros(len(pts), dtype=int), 1, s=12, edgecolor="white",
@@ -304,6 +315,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         handles.append(matplotlib.patches.Patch(color="#4d4d4d", alpha=0.25, lw=0,
                                                 label=f"{100 * result.config.model.confidence:g}% "
                                                       "confidence band"))
+    if groups and not held:   # the group entries above count each group's points
+        handles.append(unheld)
 
     natural_log_axis(ax)
     log_margins(ax, 0.05)

@@ -9,15 +9,25 @@ Two stages used by :func:`scaling.run.pipeline.analyse`:
   (Chan, Golub & LeVeque 1983), and every OLS/SMA/MA fit, interval and slope
   test follows from them (:func:`scaling.stats.grouped_fits.fit_groups_from_moments`).
   With ``data.average_within`` the reduction has two levels (rows -> unit
-  means -> groups).  :func:`moments_group_stage` then hands the per-group
-  moments to :func:`scaling.run.groups.groups_from_moments`, the group stage
-  of the in-memory run: group means, the line through them, the three group
+  means -> groups) and the unit means themselves are kept (one row per
+  unit, named and numbered by its first row: ``GroupedMoments.units``).
+  :func:`moments_group_stage` then hands the per-group moments to
+  :func:`scaling.run.groups.groups_from_moments`, the group stage of the
+  in-memory run: group means, the line through them, the three group
   comparisons with pairwise tests and their calibration, and the common
-  within-group slope with its slope tests, with the same seed.
-  Stages that need the rows (residual diagnostics, smearing and the other
-  accuracy figures, influence, row-based robust lines, bootstrap,
-  permutations) are skipped with a note; rows dropped while cleaning are
-  counted per reason (``dropped_counts``), not listed one by one.
+  within-group slope with its slope tests, with the same seed.  Curvature
+  and the local exponents come from the higher moments (Σx³, Σx⁴, Σx²y).
+  What needs residuals comes from a second pass
+  (:mod:`scaling.run.second_pass`, over the same chunks, or over the unit
+  means with ``data.average_within``): correction factors, SEE, %SEE and
+  %PE, predictions, the residual checks (D'Agostino-Pearson normality
+  instead of Shapiro-Wilk, which needs the sorted rows; Breusch-Pagan;
+  Cook's distance, top k rows per fit) and the points to check.  Only what
+  needs every row at once is skipped, with one note: row bootstrap,
+  permutation tests, row-based robust lines and leave-one-out refits beyond
+  the pooled line.  Rows dropped while cleaning are counted per reason
+  (``dropped_counts``), not listed one by one.  The scaling figure draws the
+  lines and group means, not the points.
 * :func:`spread_stage` -- with more groups than ``groups.spread_min``, the
   random-effects summary of the per-group exponents of each line method
   (:func:`scaling.stats.spread.spread_from_fits`): the mean exponent with its
@@ -310,8 +320,8 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     if drawable != tuple(cfg.figures.kinds):
         gone = [k for k in cfg.figures.kinds if k not in drawable]
         notes.append(f"Figures that need the rows were not drawn on the large-data path: "
-                     f"{', '.join(gone)}; the scaling figure shows the pooled line only "
-                     "(neither rows nor group means).")
+                     f"{', '.join(gone)}; the scaling figure draws the fitted lines and "
+                     "the group means, not the points.")
         cfg = replace(cfg, figures=replace(cfg.figures, kinds=drawable))
     empty = pd.DataFrame({"row": pd.Series(dtype=np.int64), "x": pd.Series(dtype=float),
                           "y": pd.Series(dtype=float), "log_x": pd.Series(dtype=float),

@@ -257,14 +257,28 @@ def add_accuracy_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:
     return out
 
 
-def _tagged(prediction, scope: str, group: str, method: str) -> pd.DataFrame:
-    """A prediction's table with the columns that say which fit made it."""
-    f = prediction.to_frame()
-    f.insert(0, "scope", scope)
-    f.insert(1, "group", group)
-    f["method"] = method
-    f["confidence"] = prediction.confidence
-    return f
+def _tagged(prediction, scope: str, group: str, method: str) -> dict:
+    """A prediction's columns (those of its ``to_frame``) with the columns that say
+    which fit made it; joined once by :func:`_joined` (a table per fit costs more than
+    the prediction itself when there are many groups)."""
+    values = (("x", "y", "y_low", "y_high") if hasattr(prediction, "y_low")
+              else ("y", "x", "x_low", "x_high"))
+    k = np.size(getattr(prediction, values[0]))
+    cols = {"scope": [scope] * k, "group": [group] * k}
+    cols.update({c: np.asarray(getattr(prediction, c)) for c in values})
+    cols.update({"interval": [prediction.interval] * k,
+                 "correction": [prediction.correction] * k,
+                 "extrapolated": np.asarray(prediction.extrapolated).astype(bool),
+                 "method": [method] * k,
+                 "confidence": np.full(k, prediction.confidence, dtype=float)})
+    return cols
+
+
+def _joined(parts: list) -> pd.DataFrame:
+    """One table of the columns of :func:`_tagged`, in their order."""
+    return pd.DataFrame({c: ([v for p in parts for v in p[c]] if isinstance(parts[0][c], list)
+                             else np.concatenate([p[c] for p in parts]))
+                         for c in parts[0]})
 
 
 def _predictions(line_fits: dict, saved: dict, cfg):
@@ -292,8 +306,7 @@ def _predictions(line_fits: dict, saved: dict, cfg):
         if not wanted:
             continue
         keep = columns[:-1]   # range_ratio, the last column, is added here
-        table = (pd.concat(parts, ignore_index=True)[keep] if parts
-                 else pd.DataFrame(columns=keep))
+        table = _joined(parts)[keep] if parts else pd.DataFrame(columns=keep)
         table, range_notes = add_range_ratio(table, saved, role)
         tables[name] = table
         notes += range_notes

@@ -81,6 +81,9 @@ class SecondPass:
         ``diagnostics.enabled``) and ``points_to_check``.
     checks : StreamedChecks
         The raw sums' results (set 0 pooled, set 1 + g group g).
+    line_fits : dict
+        ``(scope, group, method) -> LineFit`` of every estimable fit (the path's
+        own and each group's), as the in-memory road holds them (figures, report).
     messages, notes : tuple of str
     """
 
@@ -88,6 +91,7 @@ class SecondPass:
     saved_fits: dict
     tables: dict
     checks: StreamedChecks
+    line_fits: dict
     messages: tuple = ()
     notes: tuple = ()
 
@@ -160,6 +164,19 @@ def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: boo
     return c.n_rows
 
 
+def _feed_points(acc: ResidualSums, between, points: pd.DataFrame, label_index,
+                 grouped: bool) -> None:
+    """Add points held in memory (``row, group, log_x, log_y``) to the sums."""
+    X = points["log_x"].to_numpy(dtype=float)
+    Y = points["log_y"].to_numpy(dtype=float)
+    rows = points["row"].to_numpy(dtype=np.int64)
+    acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
+    if grouped:
+        local = label_index.get_indexer(points["group"].astype(str))
+        acc.add(1 + local, X, Y, rows)
+        between.add(local, X, Y)
+
+
 def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped):
     """The residual sums of one Dask partition (rows numbered from 1 within it)."""
     pdf.columns = [str(col).strip() for col in pdf.columns]
@@ -182,12 +199,17 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
                           slope=float(lines["slope"][0, j]),
                           mean_x=gm.moments.mean_x, mean_y=gm.moments.mean_y)
     label_index = pd.Index(np.asarray(gm.labels, dtype=str))
+    acc = ResidualSums(**params)
+    between = GroupResidualSums(**between_params)
+    if gm.units is not None:
+        # data.average_within: the points are the unit means the first pass kept (one
+        # row per unit, numbered by its first row), not the rows of the file.
+        _feed_points(acc, between, gm.units, label_index, grouped)
+        return acc, (between if grouped else None), keys, m
     path = Path(d.file)
     kind = file_kind(path)
     columns = [d.x, d.y] + ([d.group] if d.group else [])
     sep = _sep(cfg)
-    acc = ResidualSums(**params)
-    between = GroupResidualSums(**between_params)
     if cfg.engine == "dask":
         import dask   # the first pass has checked that it is installed
         parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
@@ -244,6 +266,9 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         checked = methods[0]
     acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked)
     res = acc.result()
+    # a point's name: its unit under data.average_within (as in memory), else none
+    names = ({} if gm.units is None
+             else dict(zip(gm.units["row"].tolist(), gm.units["unit"].tolist())))
 
     # LineFits of every estimable fit (pooled ones as the path made them); each method
     # fitted to every set in one vectorised call, then packaged set by set.
@@ -289,16 +314,17 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     tables["points_to_check"] = _points_to_check(
         predicted.fits, all_fits, tables.get("predictions"), res,
         ("pooled", "", checked), between.anova() if between is not None else None,
-        cfg.diagnostics.alpha)
+        cfg.diagnostics.alpha, names)
     if cfg.diagnostics.enabled:
         diag, diag_notes, diag_messages = _diagnostics(cfg, res, m, keys, methods, all_fits,
-                                                       base, tables, other_tables)
+                                                       base, tables, other_tables, names)
         tables.update(diag)
         notes += diag_notes
         messages += diag_messages
     notes.append(skipped_note(cfg.diagnostics.enabled and cfg.diagnostics.error_structure))
     return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
-                      checks=res, messages=tuple(messages), notes=tuple(notes))
+                      checks=res, line_fits=all_fits, messages=tuple(messages),
+                      notes=tuple(notes))
 
 
 def skipped_note(error_structure: bool = False) -> str:
@@ -322,7 +348,7 @@ def _many_influential(n_above: int, rows) -> str:
 
 
 def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tables: dict,
-                 other_tables: dict) -> tuple:
+                 other_tables: dict, names: dict) -> tuple:
     """diagnostics, curvature and influential_rows tables, notes and verdict sentences."""
     alpha = cfg.diagnostics.alpha
     n_groups = len(keys) - 1
@@ -377,7 +403,8 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tab
             if not exact[i]:
                 for k in above:
                     infl.append({"scope": scope, "group": group, "method": method,
-                                 "row": int(res.cooks_rows[i][k]), "label": "",
+                                 "row": int(res.cooks_rows[i][k]),
+                                 "label": names.get(int(res.cooks_rows[i][k]), ""),
                                  "cooks_distance": float(cooks[k])})
         e_lo, e_hi = (float(v) for v in curvature.local_exponent(lx))
         common = {"scope": scope, "group": group, "n": n, "quadratic": curvature.quadratic,
@@ -397,7 +424,10 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tab
     }
     answer = answer_line(other_tables.get("group_tests"), cfg.model.methods,
                          getattr(cfg.model, "primary", None), cfg.model.confidence)
-    messages = diagnostics_messages(results, {}, {}, cfg, answer=answer,
+    # the verdicts name a point by its unit (data.average_within), as in memory
+    named = ({("pooled", ""): pd.DataFrame({"row": list(names), "unit": list(names.values())})}
+             if names else {})
+    messages = diagnostics_messages(results, {}, named, cfg, answer=answer,
                                     points=tables.get("points_to_check")) if results else []
     where = {k: i for i, k in enumerate(keys)}
     if any(res.n_influential[where[k[:2]]] > len(d.influential_rows)
@@ -494,12 +524,13 @@ def _checks(res: StreamedChecks, i: int, j: int, q, lx, exact: bool, top: float,
     return out
 
 
-def _point_checks(res: StreamedChecks, fit, anova, alpha: float) -> list:
+def _point_checks(res: StreamedChecks, fit, anova, alpha: float, names: dict) -> list:
     """Strong points of the pooled line and its residuals between groups (set 0)."""
     out = []
     for i in np.flatnonzero(res.strong_rows[0] >= 0):
         out.append(PointCheck(severity="strong", kind="influence",
-                              row=int(res.strong_rows[0][i]), label="",
+                              row=int(res.strong_rows[0][i]),
+                              label=names.get(int(res.strong_rows[0][i]), ""),
                               value=float(res.strong_cooks[0][i]), method=fit.method,
                               slope=float(fit.slope),
                               slope_without=float(res.strong_slope_without[0][i]),
@@ -512,7 +543,7 @@ def _point_checks(res: StreamedChecks, fit, anova, alpha: float) -> list:
 
 
 def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChecks,
-                     checked_key, anova, alpha: float) -> pd.DataFrame:
+                     checked_key, anova, alpha: float, names: dict) -> pd.DataFrame:
     """points_to_check: the pooled line's strong points and residuals between groups,
     and every fit's factor and interval checks (as :func:`scaling.stats.influence.points_to_check`
     and :func:`~scaling.stats.influence.fit_checks`)."""
@@ -534,7 +565,7 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
         except ScalingError:
             continue
         if key == checked_key and r.n >= MIN_N:
-            found = _point_checks(res, all_fits[key], anova, alpha) + found
+            found = _point_checks(res, all_fits[key], anova, alpha, names) + found
             found.sort(key=lambda c: c.severity != "strong")
         records += [{"scope": r.scope, "group": r.group, "method": r.method,
                      **c.to_record(), "reason": point_check_reason(c)} for c in found]
@@ -549,6 +580,6 @@ def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = 
     extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
                         other_tables=result.tables, point_sets=point_sets)
     return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
-                   tables={**result.tables, **extra.tables},
+                   line_fits=extra.line_fits, tables={**result.tables, **extra.tables},
                    messages=result.messages + extra.messages,
                    warnings=result.warnings + extra.notes)

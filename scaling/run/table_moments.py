@@ -20,6 +20,7 @@ from __future__ import annotations
 from dataclasses import replace
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from ..render.wording import worded_fits
@@ -155,7 +156,7 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
             for part in read_chunks(file, kind, columns, chunk_size, reader, sep, decimal,
                                     keys):
                 frame, c, n_rows, n_drop = _partition_units(part, x, y, group, unit, base,
-                                                            decimal)
+                                                            decimal, n_read)
                 pieces.append(frame)
                 n_read, n_dropped = n_read + n_rows, n_dropped + n_drop
                 _add_counts(counts, c)
@@ -204,11 +205,19 @@ def _tail(item: tuple) -> tuple:
     return item[1:]
 
 
-def _partition_units(pdf: pd.DataFrame, x, y, group, unit, base, decimal):
-    """Per-unit sums of one chunk or Dask partition and its drop counts."""
+#: A Dask partition's row numbers are ``(partition << _PART_SHIFT) + row within it``
+#: until the partitions' lengths are known: the minimum stays the first row in file order.
+_PART_SHIFT = 40
+
+
+def _partition_units(pdf: pd.DataFrame, x, y, group, unit, base, decimal, first_row=0):
+    """Per-unit sums of one chunk or Dask partition and its drop counts; rows are
+    numbered from ``first_row + 1``."""
     pdf.columns = [str(c).strip() for c in pdf.columns]
     c = clean_chunk(pdf, x, y, group, decimal, unit=unit)
-    frame = unit_sums(c.unit_labels, c.unit_codes, c.labels, c.codes, c.x, c.y, c.bad, base)
+    rows = first_row + np.arange(1, len(pdf) + 1, dtype=np.int64)
+    frame = unit_sums(c.unit_labels, c.unit_codes, c.labels, c.codes, c.x, c.y, c.bad, base,
+                      rows=rows)
     return frame, c.counts, len(pdf), c.n_dropped
 
 
@@ -218,26 +227,34 @@ def _dask_moments(path, kind, columns, keys, x, y, group, unit, base, chunk_size
     import dask   # dask_partitions has checked that it is installed
     if unit:
         import dask.dataframe as dd
-        tasks = [dask.delayed(_partition_units)(part, x, y, group, unit, base, decimal)
-                 for part in partitions]
+        tasks = [dask.delayed(_partition_units)(part, x, y, group, unit, base, decimal,
+                                                i << _PART_SHIFT)
+                 for i, part in enumerate(partitions)]
         frames = [t[0] for t in tasks]
         meta = pd.DataFrame({"unit": pd.Series(dtype=object),
                              "group_min": pd.Series(dtype=object),
                              "group_max": pd.Series(dtype=object),
                              "n": pd.Series(dtype=float), "sum_x": pd.Series(dtype=float),
-                             "sum_y": pd.Series(dtype=float)})[UNIT_COLUMNS]
+                             "sum_y": pd.Series(dtype=float),
+                             "row_min": pd.Series(dtype=np.int64)})[UNIT_COLUMNS]
         # the groupby on the unit runs on the cluster; the driver gets one row per unit
         merged = (dd.from_delayed(frames, meta=meta, verify_meta=False).groupby("unit")
                   .agg({"group_min": "min", "group_max": "max", "n": "sum", "sum_x": "sum",
-                        "sum_y": "sum"}))
+                        "sum_y": "sum", "row_min": "min"}))
         extras = [dask.delayed(_tail)(t) for t in tasks]
         units, *rest = dask_compute([merged] + extras, scheduler)
         counts: dict[str, int] = {}
         n_read = n_dropped = 0
-        for c, n_rows, n_drop in rest:
+        offsets = []
+        for c, n_rows, n_drop in rest:        # partitions in file order
+            offsets.append(n_read)
             _add_counts(counts, c)
             n_read, n_dropped = n_read + n_rows, n_dropped + n_drop
         units = units.reset_index()[UNIT_COLUMNS]
+        coded = units["row_min"].to_numpy(dtype=np.int64)
+        part = coded >> _PART_SHIFT
+        units["row_min"] = (np.asarray(offsets, dtype=np.int64)[part]
+                            + (coded - (part << _PART_SHIFT)))
         return _unit_groups(units, str(path), group, unit, n_read=n_read, counts=counts,
                             n_dropped=n_dropped, base=base)
     tasks = [dask.delayed(_partition_summary)(part, x, y, group, base, decimal)

@@ -50,6 +50,7 @@ __all__ = [
     "SUMMARY_COLUMNS",
     "summary_frame",
     "UNIT_COLUMNS",
+    "UNIT_POINT_COLUMNS",
     "unit_sums",
     "merge_unit_sums",
     "units_to_groups",
@@ -97,6 +98,11 @@ class GroupedMoments:
     n_rows : ndarray or None
         Input rows behind each group, when the points are unit means
         (``data.average_within``); None when every point is one row.
+    units : DataFrame or None
+        The unit means themselves (``data.average_within``), one row per unit
+        sorted by ``row``: :data:`UNIT_POINT_COLUMNS` (``row`` is the unit's
+        smallest data row number, as the in-memory road numbers it).  The
+        second pass measures residuals on these points; None without units.
     """
 
     labels: np.ndarray
@@ -111,6 +117,7 @@ class GroupedMoments:
     n_dropped: int = 0
     log_base: float | None = 10.0
     n_rows: np.ndarray | None = None
+    units: pd.DataFrame | None = None
 
     @property
     def n_groups(self) -> int:
@@ -402,11 +409,14 @@ def fit_groups_from_moments(gm: GroupedMoments, *, methods=("ols", "sma", "ma"),
 # two levels: rows -> unit means -> groups (data.average_within)
 
 #: Columns of the per-unit partial sums of a piece (:func:`unit_sums`).
-UNIT_COLUMNS = ["unit", "group_min", "group_max", "n", "sum_x", "sum_y"]
+UNIT_COLUMNS = ["unit", "group_min", "group_max", "n", "sum_x", "sum_y", "row_min"]
+
+#: Columns of the unit means (:attr:`GroupedMoments.units`).
+UNIT_POINT_COLUMNS = ["row", "unit", "group", "log_x", "log_y", "n_rows"]
 
 
 def unit_sums(unit_labels: pd.Index, unit_codes, labels: pd.Index, codes, x, y, bad,
-              base) -> pd.DataFrame:
+              base, rows=None) -> pd.DataFrame:
     """Per-unit row counts and sums of log x and log y of one piece of rows.
 
     Parameters
@@ -417,6 +427,9 @@ def unit_sums(unit_labels: pd.Index, unit_codes, labels: pd.Index, codes, x, y, 
         Group names and the group code of each row (codes None: one group).
     x, y, bad, base
         As for :func:`summarise_rows`.
+    rows : array_like of int, optional
+        Row number of each row (default 1, 2, ...); ``row_min`` is the
+        smallest of a unit's usable rows.
 
     Returns
     -------
@@ -445,12 +458,17 @@ def unit_sums(unit_labels: pd.Index, unit_codes, labels: pd.Index, codes, x, y, 
     gmin, gmax = np.full(k, names.size), np.full(k, -1)
     np.minimum.at(gmin, u, rank[gc])
     np.maximum.at(gmax, u, rank[gc])
+    r = (np.arange(1, np.size(unit_codes) + 1, dtype=np.int64) if rows is None
+         else np.asarray(rows, dtype=np.int64))[keep]
+    rmin = np.full(k, np.iinfo(np.int64).max)
+    np.minimum.at(rmin, u, r)
     used = n > 0
     by_rank = names[np.argsort(rank)] if names.size else names
     return pd.DataFrame({"unit": np.asarray(unit_labels, dtype=object)[used],
                          "group_min": by_rank[gmin[used]] if used.any() else [],
                          "group_max": by_rank[gmax[used]] if used.any() else [],
-                         "n": n[used], "sum_x": sx[used], "sum_y": sy[used]},
+                         "n": n[used], "sum_x": sx[used], "sum_y": sy[used],
+                         "row_min": rmin[used]},
                         columns=UNIT_COLUMNS)
 
 
@@ -462,7 +480,8 @@ def merge_unit_sums(frames: list) -> pd.DataFrame:
     table = pd.concat(frames, ignore_index=True)
     return (table.groupby("unit", sort=False)
             .agg(group_min=("group_min", "min"), group_max=("group_max", "max"),
-                 n=("n", "sum"), sum_x=("sum_x", "sum"), sum_y=("sum_y", "sum"))
+                 n=("n", "sum"), sum_x=("sum_x", "sum"), sum_y=("sum_y", "sum"),
+                 row_min=("row_min", "min"))
             .reset_index()[UNIT_COLUMNS])
 
 
@@ -471,6 +490,8 @@ def units_to_groups(units: pd.DataFrame, *, n_read, counts, n_dropped, base) -> 
 
     ``units`` holds merged per-unit sums (:func:`merge_unit_sums`) whose
     units each lie in one group (``group_min == group_max``; the caller checks).
+    The result keeps the unit means as points (``GroupedMoments.units``,
+    sorted by their smallest row number, as the in-memory road orders them).
     """
     n = units["n"].to_numpy(dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -478,7 +499,7 @@ def units_to_groups(units: pd.DataFrame, *, n_read, counts, n_dropped, base) -> 
         ly = units["sum_y"].to_numpy(dtype=float) / n
     codes, uniques = pd.factorize(units["group_min"].astype(object), sort=False)
     g = len(uniques)
-    m = group_moments(lx, ly, codes, n_groups=g)
+    m = group_moments(lx, ly, codes, n_groups=g, higher=True)   # curvature from moments
     ranges = []
     for v, fn, start in ((lx, np.minimum, np.inf), (lx, np.maximum, -np.inf),
                          (ly, np.minimum, np.inf), (ly, np.maximum, -np.inf)):
@@ -489,4 +510,10 @@ def units_to_groups(units: pd.DataFrame, *, n_read, counts, n_dropped, base) -> 
     gm = grouped_moments(pd.Index(uniques, dtype=object), m, ranges, n_read=n_read,
                          counts=counts, n_dropped=n_dropped, base=base)
     order = np.argsort(np.asarray(uniques, dtype=object).astype(str), kind="stable")
-    return replace(gm, n_rows=rows[order])
+    points = pd.DataFrame({"row": units["row_min"].to_numpy(dtype=np.int64),
+                           "unit": units["unit"].astype(str).to_numpy(dtype=object),
+                           "group": units["group_min"].astype(str).to_numpy(dtype=object),
+                           "log_x": lx, "log_y": ly, "n_rows": n.astype(np.int64)},
+                          columns=UNIT_POINT_COLUMNS)
+    points = points.sort_values("row", kind="stable").reset_index(drop=True)
+    return replace(gm, n_rows=rows[order], units=points)

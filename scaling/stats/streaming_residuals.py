@@ -192,20 +192,34 @@ class ResidualSums:
             return
         X, Y = np.asarray(X, float), np.asarray(Y, float)
         S, M = self.shape
+        # One set in the chunk (the pooled rows): its line's numbers are scalars and its
+        # sums plain sums, not gathers and bincounts over every row.
+        one = int(codes[0]) if codes[0] == codes.min() == codes.max() else None
+
+        def take(table):
+            return table[one] if one is not None else table[codes]
+
+        def total(v):
+            if one is None:
+                return np.bincount(codes, weights=v, minlength=S)
+            out = np.zeros(S)
+            out[one] = v.sum()
+            return out
+
         self.n += np.bincount(codes, minlength=S)
-        xc = X - self.mx[codes]
+        xc = X - take(self.mx)
         if self.base is not None:
             ln_base = math.log(self.base)
             # Natural y scaled by a common power per set (the ratio is unchanged by it),
             # so values near 1e+-12 neither overflow nor underflow.
-            y_scaled = np.exp((Y - self.my[codes]) * ln_base)
-            sy = np.bincount(codes, weights=y_scaled, minlength=S)
+            y_scaled = np.exp((Y - take(self.my)) * ln_base)
+            sy = total(y_scaled)
         for j in range(M):   # one method at a time: 1-d arrays, gathers from 1-d tables
-            e = Y - self.a[:, j][codes] - self.b[:, j][codes] * X
-            d = e - self.mean_e[:, j][codes]
+            e = Y - take(self.a[:, j]) - take(self.b[:, j]) * X
+            d = e - take(self.mean_e[:, j])
             d2 = d * d
             e2 = e * e
-            w = e2 - self.mean_e2[:, j][codes]
+            w = e2 - take(self.mean_e2[:, j])
             values = {"se2": e2, "sd2": d2, "sd3": d2 * d, "sd4": d2 * d2, "bw": w,
                       "bww": w * w, "bwx": w * xc}
             if self.base is not None:
@@ -214,7 +228,7 @@ class ResidualSums:
                                "syhat": y_scaled / be})   # yhat = y / base^e
                 self.sums["sy"][:, j] += sy
             for key, v in values.items():
-                self.sums[key][:, j] += np.bincount(codes, weights=v, minlength=S)
+                self.sums[key][:, j] += total(v)
         # Cook's distance up to each set's factor 1 / (2 s^2).
         with np.errstate(divide="ignore", invalid="ignore"):
             eo = Y - self.a_ols[codes] - self.b_ols[codes] * X
@@ -226,11 +240,25 @@ class ResidualSums:
         with np.errstate(divide="ignore", invalid="ignore"):
             above = u / (2 * self.s2_moments[codes]) > 4.0 / self.n_moments[codes]
         self.n_above += np.bincount(codes, weights=above, minlength=S)
-        # Only rows that beat their set's k-th largest so far can enter (keeps the sort small).
-        live = u >= self.top_u[codes, -1]
+        # Only rows that beat their set's k-th largest so far, and a lower bound of the
+        # chunk's own k-th largest, can enter (keeps the sort small).
+        live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
         self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
         if self.influence_method is not None:
             self._add_strong(codes, X, Y, u, rows)
+
+    def _chunk_floor(self, codes, u) -> np.ndarray:
+        """Per set, a lower bound of the k-th largest ``u`` of a chunk: the smallest of
+        the maxima of k disjoint strided slices (k distinct rows reach it; -inf for a
+        set missing from a slice)."""
+        S = self.shape[0]
+        floor = np.full(S, np.inf)
+        top = np.empty(S)
+        for j in range(self.k):
+            top.fill(-np.inf)
+            np.maximum.at(top, codes[j::self.k], u[j::self.k])
+            np.minimum(floor, top, out=floor)
+        return floor
 
     def _add_strong(self, codes, X, Y, u, rows) -> None:
         """Rows under the strong-influence rule, with their leave-one-out slopes."""
