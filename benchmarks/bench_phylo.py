@@ -20,7 +20,9 @@ transformed branch lengths; OU is refused on these non-ultrametric trees, so
 it costs only the check), the LR tests of lambda, PGLS with within-species
 sampling error (a 2-D grid in one pass, then a quasi-Newton search) and the
 new-species line, with time ratios between sizes (linear growth: ratio close
-to the size ratio).  Skip with ``--no-models``.
+to the size ratio).  Skip with ``--no-models``.  Then the phylogenetic group
+comparisons (four groups; OLS and SMA) with their time ratios; skip with
+``--no-groups``.
 
 Run:  .venv/bin/python benchmarks/bench_phylo.py [--sizes 1000 10000 100000]
 """
@@ -88,6 +90,8 @@ def main(argv=None):
     ap.add_argument("--readers", action="store_true", help="also time registry Newick readers")
     ap.add_argument("--no-models", action="store_true",
                     help="skip the evolutionary models and sampling error")
+    ap.add_argument("--no-groups", action="store_true",
+                    help="skip the phylogenetic group comparisons")
     args = ap.parse_args(argv)
     rng = np.random.default_rng(2026)
     rows = []
@@ -116,6 +120,8 @@ def main(argv=None):
                   f"(linear would be {n1 / n0:.0f})")
     if not args.no_models:
         bench_models(args.sizes, np.random.default_rng(7))
+    if not args.no_groups:
+        bench_groups(args.sizes, np.random.default_rng(11))
     if args.readers:
         big = max(args.sizes)
         text = random_tree_newick(big, np.random.default_rng(1))
@@ -131,6 +137,28 @@ def main(argv=None):
                 print(f"  {name}: not installed")
                 continue
             print(f"  {name}: {t:.2f} s (x{t / t_own:.1f}; object tree only, no arrays)")
+
+
+def bench_groups(sizes, rng) -> None:
+    """Phylogenetic group comparisons (four groups, lambda by ML under the full model):
+    OLS by the whitened ANCOVA, SMA by the whitened moment tests (bootstrap-calibrated
+    up to 3 000 species, chi-squared above), with time ratios between sizes."""
+    from scaling.stats.phylo_groups import phylo_group_tests
+    times: dict = {}
+    for n in sizes:
+        tree = parse_newick(random_tree_newick(n, rng))
+        x, y, sp = simulate(tree, 0.5, rng)
+        groups = np.array([f"g{i % 4}" for i in range(n)])
+        for method in ("ols", "sma"):
+            res, t, peak = timed(lambda: phylo_group_tests(np.log10(x), np.log10(y), sp, groups,
+                                                           tree, method=method))
+            times[(method, n)] = t
+            print(f"groups n={n:>7} {method:>3}: {t:6.2f} s ({res.p_method}), "
+                  f"peak RSS {peak / 2**20:7.1f} MiB", flush=True)
+    for method in ("ols", "sma"):
+        for n0, n1 in zip(sizes, sizes[1:]):
+            print(f"groups {method}: time ratio {n1}/{n0} tips = "
+                  f"{times[(method, n1)] / times[(method, n0)]:.1f} (linear would be {n1 / n0:.0f})")
 
 
 def bench_models(sizes, rng) -> None:
