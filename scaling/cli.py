@@ -117,7 +117,7 @@ def _cmd_run(args) -> int:
     result = run_config(args.config, out=out, force=args.force, quiet=args.quiet)
     if not args.quiet:
         print(f"scaling {__version__}: {result.config.title}")
-        from .render.headline import headline_of
+        from .render.answer import headline_of
         head = headline_of(result)
         for line in head.sentences:    # the answer first
             print(line)

@@ -18,7 +18,8 @@ import pytest
 
 from scaling.io.config import config_from_dict
 from scaling.errors import ConfigError
-from scaling.render.headline import build_headline, exponent_words, headline_of, primary_method
+from scaling.render.answer import headline_of
+from scaling.render.headline import build_headline, exponent_words, primary_method
 from scaling.run.pipeline import analyse, write_outputs
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -212,7 +213,7 @@ class TestHeadlineOfWorkedExamples:
         return run_config(tmp_path / name / f"{name}.yaml", write=False, quiet=True)
 
     def test_several_predictors_name_each_exponent_and_its_test(self, tmp_path):
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
         head = headline_of(self._run(tmp_path, "forestry"))
         # demo_data/make_forestry.py (invented, stated truth): exponents 2 (diameter)
         # and 1 (height) of a cylinder; the headline names both terms and both tests
@@ -221,7 +222,7 @@ class TestHeadlineOfWorkedExamples:
         assert head.sentences[2].startswith("Total over")   # the plot total is the answer
 
     def test_inverse_prediction_of_a_fossil_is_the_last_sentence(self, tmp_path):
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
         head = headline_of(self._run(tmp_path, "palaeo"))
         # demo_data/make_palaeo.py: fossil F1's femur circumference is 118 mm
         assert len(head.sentences) <= 3
@@ -378,7 +379,7 @@ class TestInfluenceSentence:
 
     def test_headline_of_appends_the_moves_answer_rows(self, demo):
         from dataclasses import replace
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
         points = pd.DataFrame({"scope": ["common", "common"], "group": ["", ""],
                                "method": ["sma", "sma"], "severity": ["strong", "strong"],
                                "kind": ["moves_answer", "moves_answer"], "row": [3, 9],

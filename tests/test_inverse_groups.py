@@ -23,7 +23,7 @@ import scaling
 from scaling.io.config import config_from_dict
 from scaling.render.figure_natural import plot_natural
 from scaling.render.figure_style import group_style
-from scaling.render.headline import headline_of
+from scaling.render.answer import headline_of
 from scaling.render.wording import number_text
 
 GIVEN = [60.0, 150.0]

@@ -22,7 +22,7 @@ from scipy import linalg, stats
 
 from scaling.run.pipeline import analyse
 from scaling.io.config import load_config
-from scaling.render.headline import headline_of
+from scaling.render.answer import headline_of
 from scaling.stats.line_results import fit_line
 from scaling.stats.newick import parse_newick
 from scaling.stats.phylo_checks import (curvature_lambda, gls_quadratic_t, phylo_model_checks,

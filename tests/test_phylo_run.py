@@ -14,7 +14,7 @@ from scaling.io.config import config_from_dict, load_config
 from scaling.errors import ConfigError, DataError
 from scaling.stats.phylogeny import fit_phylo, read_newick
 from scaling.run.pipeline import analyse
-from scaling.render.headline import headline_of
+from scaling.render.answer import headline_of
 from scaling.stats.newick import parse_newick
 from scaling.stats.phylogeny import tree_covariance
 
@@ -318,7 +318,7 @@ class TestPhysiologyExample:
         assert len(tests) == 2 * len(load_config(PHYSIOLOGY).exponents)
 
     def test_answer_leads_with_the_phylogenetic_result(self, physiology):
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
         res = physiology
         head = headline_of(res)
         first = head.sentences[0]

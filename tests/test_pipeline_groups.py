@@ -112,7 +112,7 @@ class TestChecksFollowTheAnswer:
         return analyse(cfg)
 
     def test_a_planted_typo_is_named_in_the_answer(self, tmp_path):
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
 
         table = _forest()
         i = table.loc[table["habitat"] == "shade", "stem_mm"].idxmax()
@@ -131,7 +131,7 @@ class TestChecksFollowTheAnswer:
         assert "common in clean data" not in text.split("Influence:")[1].split("\n")[0]
 
     def test_clean_data_name_no_row_and_checks_read_the_common_model(self, tmp_path):
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
 
         res = self._run(tmp_path, _forest())
         assert len(headline_of(res).sentences) == 3

@@ -12,7 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from scaling.render.figure_natural import plot_natural
-from scaling.render.headline import headline_of
+from scaling.render.answer import headline_of
 from scaling.render.prediction_words import answer_primary, inverse_run, mass_from_measurement
 from scaling.render.wording import (count_words, dose_scaling_applies, interval_numbers,
                                     number_text, unit_text, units_share_ancestry)

@@ -186,7 +186,7 @@ class TestWriteReport:
         t = fit.test_slope(2 / 3)
         side = "above" if fit.slope > 2 / 3 else "below"
         # the exponent tests are one table (fit x hypothesis), not one bullet per test
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
         head = headline_of(script_run)
         row = head.exponent_table.query("line == 'pooled' and method == 'SMA'").iloc[0]
         assert row["exponent"] == fit.slope          # internal consistency

@@ -34,7 +34,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from scaling.io.config import config_from_dict
-from scaling.render.headline import headline_of
+from scaling.render.answer import headline_of
 from scaling.run.pipeline import analyse, write_outputs
 
 ROADS = {

@@ -27,7 +27,7 @@ from statsmodels.stats.outliers_influence import variance_inflation_factor
 import scaling
 from scaling.io.config import config_from_dict
 from scaling.render.figure_partial import plot_partial
-from scaling.render.headline import headline_of
+from scaling.render.answer import headline_of
 
 palmerpenguins = pytest.importorskip("palmerpenguins")
 

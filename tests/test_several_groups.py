@@ -135,7 +135,7 @@ class TestGroupedRunAnswer:
     def test_answer_leads_with_common_exponents_and_flags_the_pooled_fit(self, penguins,
                                                                          models, tmp_path):
         from scaling.io.config import config_from_dict
-        from scaling.render.headline import headline_of
+        from scaling.render.answer import headline_of
         path = tmp_path / "penguins.csv"
         penguins.to_csv(path, index=False)
         raw = {"data": {"file": str(path), "x": ["flipper_length_mm", "bill_length_mm"],

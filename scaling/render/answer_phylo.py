@@ -26,22 +26,16 @@ import numpy as np
 import pandas as pd
 
 from ..stats.schema import method_label
+from .headline import answer_line, exponent_words, ordinary_rows
 from .wording import calibrated_p_text, plural as plural_of, verdict_phrase
 
-__all__ = ["ordinary_rows", "phylo_answer", "phylo_group_messages", "answer_model",
+__all__ = ["phylo_answer", "phylo_group_messages", "answer_model",
            "answer_points",
            "phylo_check_messages", "phylo_strong_reason"]
 
 _PHYLO = "phylo"
 _COMMON = "phylo_common"
 _TESTS = ("slopes_equal", "intercepts_equal", "shift_along_axis")
-
-
-def ordinary_rows(table: pd.DataFrame | None) -> pd.DataFrame | None:
-    """The ordinary rows of group_tests / pairwise_tests (all rows when unscoped)."""
-    if table is None or "scope" not in table.columns:
-        return table
-    return table[table["scope"] != _PHYLO].reset_index(drop=True)
 
 
 def _num(v) -> float:
@@ -66,7 +60,6 @@ def _interval(row, pct: str) -> str:
 
 
 def _target(name: str, value: float) -> str:
-    from .headline import exponent_words
     return exponent_words(name, value)
 
 
@@ -323,7 +316,6 @@ def answer_points(points: pd.DataFrame | None, result) -> pd.DataFrame | None:
     if points is None or getattr(cfg.data, "tree", None) is None or "scope" not in points:
         return points
     tables = result.tables or {}
-    from .headline import answer_line
     from .prediction_words import answer_primary
     primary = answer_line(tables.get("group_tests"), cfg.model.methods, answer_primary(cfg),
                           cfg.model.confidence)[1]

@@ -36,19 +36,17 @@ error or changes a verdict (rows of kind ``moves_answer`` in
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
 from ..stats.schema import method_label
-from .prediction_words import answer_primary
-from .answer_phylo import answer_points, ordinary_rows, phylo_answer
 from .wording import (at_floor, calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
                       verdict_phrase)
 
 __all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
-           "headline_of", "exponent_words", "answer_line", "influence_sentence"]
+           "exponent_words", "answer_line", "influence_sentence"]
 
 #: Symmetric methods in the order the default primary method is chosen.
 SYMMETRIC_ORDER = ("sma", "ma", "deming", "sma_robust", "ma_robust")
@@ -88,6 +86,14 @@ class Headline:
     exponent_table: pd.DataFrame = field(compare=False)
     group_table: pd.DataFrame | None = field(default=None, compare=False)
     matrices: dict = field(default_factory=dict, compare=False)
+
+
+def ordinary_rows(table: pd.DataFrame | None) -> pd.DataFrame | None:
+    """The ordinary rows of group_tests / pairwise_tests (all rows when unscoped): the
+    phylogenetic rows (scope ``phylo``) lead only through :mod:`scaling.render.answer_phylo`."""
+    if table is None or "scope" not in table.columns:
+        return table
+    return table[table["scope"] != "phylo"].reset_index(drop=True)
 
 
 def primary_method(methods, primary: str | None = None) -> str:
@@ -516,40 +522,3 @@ def _several_predictors(fits, slope_tests, lead, alpha, pct) -> tuple:
                              for r in t.itertuples(index=False))
             said.append(f"against {name}: {each}")
     return (s1,) + ((("Tested " + "; ".join(said) + "."),) if said else ())
-
-
-_ANSWER_LINES = ("Predicted ", "Inverse prediction of ", "Total over ")
-
-
-def headline_of(result) -> Headline:
-    """:func:`build_headline` for a :class:`scaling.run.pipeline.RunResult`.
-
-    When the headline has room (fewer than three sentences) and the run made a
-    few predictions (a fossil's mass, a plot's total biomass), the prediction
-    sentence of the run becomes the last sentence: for those users it is the
-    answer.
-    """
-    cfg = result.config
-    tables = result.tables or {}
-    if getattr(result, "multi_fit", None) is not None:   # several predictors: their own Answer
-        from .answer_several import several_headline
-        head = several_headline(result.fits, result.slope_tests, tables.get("group_tests"),
-                                confidence=cfg.model.confidence,
-                                group_word=str(cfg.data.group or "group"),
-                                diagnostics=tables.get("diagnostics"))
-    else:
-        head = build_headline(result.fits, result.slope_tests, tables.get("group_tests"),
-                              tables.get("pairwise_tests"), methods=cfg.model.methods,
-                              primary=answer_primary(cfg),   # an inverse run: its predicting line
-                              confidence=cfg.model.confidence,
-                              group_word=str(cfg.data.group or "group"))
-        head = phylo_answer(head, result)   # with a tree the phylogenetic result leads
-    if len(head.sentences) < 3:
-        answer = next((m.strip() for prefix in _ANSWER_LINES for m in result.messages
-                       if m.strip().startswith(prefix)), None)
-        if answer:
-            head = replace(head, sentences=tuple(head.sentences) + (answer,))
-    moves = _moves_sentence(answer_points(tables.get("points_to_check"), result))
-    if moves:   # a row that moves the answer is said in the answer, whatever its length
-        head = replace(head, sentences=tuple(head.sentences) + (moves,))
-    return head

@@ -20,9 +20,9 @@ import numpy as np
 import pandas as pd
 
 from .answer_several import partial_model, several_group_sentences
-from .headline import headline_of
-from .report import (Block, Section, TABLE_MAX_ROWS, _bounded, _headline_section,
-                     _interval_text, _manifest_section)
+from .answer import headline_of
+from .report_parts import (Block, Section, TABLE_MAX_ROWS, _bounded, _headline_section,
+                           _interval_text, _manifest_section)
 from .wording import (CAUTION, dose_caution, mechanism_applies, mechanism_caution, medians_vs_means,
                       predicted_unit)
 

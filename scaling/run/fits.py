@@ -28,8 +28,7 @@ from ..stats.lines import MIN_N, base_label, fit_moments
 from ..stats.line_results import line_fit_from_result
 from ..stats.moments import group_moments, moments
 from ..stats.robust import ROW_METHODS, deming_moments
-from ..stats.schema import FIT_COLUMNS, SLOPE_TEST_COLUMNS, is_moment_method
-from .phylogeny import add_phylo_columns
+from ..stats.schema import FIT_COLUMNS, PHYLO_FIT_COLUMNS, SLOPE_TEST_COLUMNS, is_moment_method
 
 __all__ = ["FitStage", "FitsTable", "fit_stage", "fits_table_stage", "value_range",
            "fit_moment_rows", "row_method_fit", "blank_numbers", "robust_n_boot",
@@ -285,3 +284,19 @@ def slope_tests(line_fits: dict, cfg, *, phylo_fits=None) -> pd.DataFrame:
                          "statistic": t.statistic, "statistic_type": t.statistic_type,
                          "df": t.df, "p_value": t.p_value, "p_method": t.p_method})
     return pd.DataFrame(rows, columns=SLOPE_TEST_COLUMNS)
+
+
+def add_phylo_columns(fits: pd.DataFrame, stage) -> pd.DataFrame:
+    """``fits`` with the lambda/loglik/aic columns (blank except on phylo rows);
+    ``stage``: the run's :class:`~scaling.run.phylogeny.PhyloStage` or None."""
+    out = fits.copy()
+    for c in PHYLO_FIT_COLUMNS:
+        out[c] = np.nan if c != "lambda_estimate" else ""
+    if stage is None:
+        return out
+    for r in stage.rows:
+        sel = (out["scope"] == r["scope"]) & (out["method"] == r["method"])
+        for c in PHYLO_FIT_COLUMNS:
+            if c in r:
+                out.loc[sel, c] = r[c]
+    return out

@@ -51,6 +51,19 @@ __all__ = ["AnswerChecks", "answer_model_checks", "diagnostic_rows", "answer_poi
 MAX_REFITS = 10
 
 
+def point_context(cfg, sel: pd.DataFrame, i: int) -> tuple:
+    """What names point ``i`` of ``sel`` besides its row: its label, x and group (the
+    ordinary and the phylogenetic points to check name points alike)."""
+    out = []
+    if "unit" in sel:
+        out.append(("", str(sel["unit"].iloc[i])))
+    if isinstance(cfg.data.x, str) and "x" in sel:
+        out.append((cfg.data.x, float(sel["x"].iloc[i])))
+    if cfg.data.group and "group" in sel:
+        out.append((str(cfg.data.group), str(sel["group"].iloc[i])))
+    return tuple(out)
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class AnswerChecks:
     """The checks of the Answer's phylogenetic model.
@@ -206,7 +219,6 @@ def answer_point_rows(cfg, state, ac: AnswerChecks | None) -> tuple:
     phylogenetic model, each refitted out (lambda held at its estimate)."""
     if ac is None or not ac.checks.strong.size:
         return [], []
-    from .points_to_check import _context
     hyps = [(exponent_words(str(k), float(v)), float(v)) for k, v in cfg.exponents.items()]
     alpha = 1 - cfg.model.confidence
     slope, se, before = _stated(state, ac.scope, ac.method, hyps, alpha)
@@ -243,7 +255,7 @@ def answer_point_rows(cfg, state, ac: AnswerChecks | None) -> tuple:
                            slope_without=float(without), slope_se=se,
                            slope_se_without=float(se_without),
                            narrowed=narrows(se, se_without),
-                           context=_context(cfg, ac.points, int(i)), changes=changes)
+                           context=point_context(cfg, ac.points, int(i)), changes=changes)
         reason = point_check_reason(check)
         records.append({**base, **check.to_record(), "reason": reason})
         warn.append(f"STRONG — the phylogenetic answer: {reason}")

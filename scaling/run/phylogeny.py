@@ -45,9 +45,9 @@ from ..errors import DataError
 from ..stats.phylogeny import PhyloFit, fit_phylo, match_species, read_newick
 from ..stats.phylo_groups import PHYLO_GROUP_SCOPE, phylo_group_tests
 from ..render.answer_phylo import phylo_group_messages
+from ..stats.schema import PHYLO_FIT_COLUMNS  # noqa: F401 (importable from here too)
 
-__all__ = ["PHYLO_SCOPE", "PHYLO_COMMON_SCOPE", "ORDINARY_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage",
-           "add_phylo_columns"]
+__all__ = ["PHYLO_SCOPE", "PHYLO_COMMON_SCOPE", "ORDINARY_SCOPE", "PHYLO_METHODS", "PHYLO_FIT_COLUMNS", "PhyloStage", "phylo_stage"]
 
 PHYLO_SCOPE = "phylo"
 #: fits.csv scope of the phylogenetic common within-group slope.
@@ -56,7 +56,6 @@ PHYLO_COMMON_SCOPE = "phylo_common"
 #: tree adds phylogenetic rows beside them.
 ORDINARY_SCOPE = "ordinary"
 PHYLO_METHODS = ("ols", "sma", "ma")
-PHYLO_FIT_COLUMNS = ["lambda", "lambda_low", "lambda_high", "lambda_estimate", "loglik", "aic"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -317,21 +316,6 @@ def _drop_note(match, tree_name: str, shown: dict) -> str:
 def _listed(names, limit: int = 5) -> str:
     shown = ", ".join(names[:limit])
     return shown + (f" and {len(names) - limit} more" if len(names) > limit else "")
-
-
-def add_phylo_columns(fits: pd.DataFrame, stage: PhyloStage | None) -> pd.DataFrame:
-    """``fits`` with the lambda/loglik/aic columns (blank except on phylo rows)."""
-    out = fits.copy()
-    for c in PHYLO_FIT_COLUMNS:
-        out[c] = np.nan if c != "lambda_estimate" else ""
-    if stage is None:
-        return out
-    for r in stage.rows:
-        sel = (out["scope"] == r["scope"]) & (out["method"] == r["method"])
-        for c in PHYLO_FIT_COLUMNS:
-            if c in r:
-                out.loc[sel, c] = r[c]
-    return out
 
 
 def phylo_messages(stage: PhyloStage, ordinary: dict, cfg, *, has_groups: bool) -> list:

@@ -40,7 +40,7 @@ from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer
                                points_to_check, strong_influence, strong_parallel_influence,
                                verdict_code)
 from ..render.findings import point_check_reason
-from .phylo_checks import answer_model_checks, answer_point_rows
+from .phylo_checks import answer_model_checks, answer_point_rows, point_context
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
 MAX_REFITS = 10
@@ -223,18 +223,6 @@ def _rows_of(sel: pd.DataFrame) -> np.ndarray:
     return sel["row"].to_numpy() if "row" in sel else np.arange(len(sel))
 
 
-def _context(cfg, sel: pd.DataFrame, i: int) -> tuple:
-    """What names point ``i`` of ``sel`` besides its row: its label, x and group."""
-    out = []
-    if "unit" in sel:
-        out.append(("", str(sel["unit"].iloc[i])))
-    if isinstance(cfg.data.x, str) and "x" in sel:
-        out.append((cfg.data.x, float(sel["x"].iloc[i])))
-    if cfg.data.group and "group" in sel:
-        out.append((str(cfg.data.group), str(sel["group"].iloc[i])))
-    return tuple(out)
-
-
 def _stated(state, scope: str, group: str, method: str, hyps) -> tuple:
     """The answer's exponent, its standard error and its verdicts, as the tables state them."""
     f = state.fits
@@ -271,7 +259,7 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
     if moves_answer(slope, se, slope_without, before, after, slope_se_without=se_without):
         changes = tuple((t, a, b) for (t, _), a, b in zip(hyps, before, after) if a != b)
         out.append((scope, group, method, PointCheck(
-            kind="moves_answer", context=_context(cfg, sel, i), exponent_of=exponent_of,
+            kind="moves_answer", context=point_context(cfg, sel, i), exponent_of=exponent_of,
             changes=changes, slope_se_without=float(se_without),
             narrowed=narrows(se, se_without), **common)))
     return out

@@ -26,7 +26,7 @@ __all__ = [
     "FIT_COLUMNS", "FIT_ACCURACY_COLUMNS", "FIT_CONSTANT_COLUMNS", "FIT_ALL_COLUMNS", "SLOPE_TEST_COLUMNS",
     "SLOPE_P_METHODS",
     "PERMUTATION_COLUMNS", "SLOPE_TEST_ALL_COLUMNS", "DROPPED_COLUMNS",
-    "GROUP_MEANS_COLUMNS", "GROUP_TEST_COLUMNS", "PAIRWISE_COLUMNS",
+    "GROUP_MEANS_COLUMNS", "GROUP_TEST_COLUMNS", "PAIRWISE_COLUMNS", "PHYLO_FIT_COLUMNS",
     "PREDICTION_COLUMNS", "INVERSE_COLUMNS", "DIAGNOSTIC_COLUMNS", "INFLUENCE_COLUMNS",
     "ERROR_STRUCTURE_COLUMNS", "CURVATURE_COLUMNS", "BOOTSTRAP_COLUMNS", "POINTS_TO_CHECK_COLUMNS", "TABLE_COLUMNS",
     "CORRECTIONS", "INTERVALS", "BOOT_INTERVALS", "LOG_BASES", "FIGURE_KINDS",
@@ -182,6 +182,8 @@ SLOPE_P_METHODS = {
 PERMUTATION_COLUMNS = ["p_permutation", "n_perm"]
 SLOPE_TEST_ALL_COLUMNS = SLOPE_TEST_COLUMNS + PERMUTATION_COLUMNS
 DROPPED_COLUMNS = ["row", "reason"]
+#: Added to fits.csv with a tree (blank except on the phylogenetic rows).
+PHYLO_FIT_COLUMNS = ["lambda", "lambda_low", "lambda_high", "lambda_estimate", "loglik", "aic"]
 #: group_means.csv; ``n_rows`` is added when rows were averaged within units.
 GROUP_MEANS_COLUMNS = ["group", "n", "mean_log_x", "mean_log_y", "se_log_x", "se_log_y"]
 GROUP_TEST_COLUMNS = ["method", "test", "statistic", "df", "df_resid", "p_value",
