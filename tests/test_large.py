@@ -214,7 +214,7 @@ class TestBoundedDiagnostics:
 class TestManyGroupsRun:
     """A run with more groups than every report cap writes bounded outputs.
 
-    The caps are module constants (report.TABLE_MAX_ROWS = 60,
+    The caps are module constants (report_parts.TABLE_MAX_ROWS = 60,
     figure_exponents.SPREAD_BARS_MAX = 150; summary.md folds tables over
     report.MD_MAX_ROWS = 12) and the config key groups.diagnostics_max (200);
     they are lowered here (monkeypatch, config) so that 40 groups exceed each
@@ -226,8 +226,8 @@ class TestManyGroupsRun:
 
     def test_more_groups_than_the_caps_write_a_bounded_report(self, tmp_path, monkeypatch):
         import scaling.render.figure_exponents as figure_exponents
-        import scaling.render.report as report
-        monkeypatch.setattr(report, "TABLE_MAX_ROWS", 20)   # > MD_MAX_ROWS (12)
+        import scaling.render.report_parts as report_parts
+        monkeypatch.setattr(report_parts, "TABLE_MAX_ROWS", 20)   # > MD_MAX_ROWS (12)
         monkeypatch.setattr(figure_exponents, "SPREAD_BARS_MAX", 15)
         G = self.GROUPS
         df = _table(G, 4, seed=11)

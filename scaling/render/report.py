@@ -26,7 +26,8 @@ import pandas as pd
 
 from .answer import headline_of
 from .figure_kinds import FIGURES
-from .report_parts import (ITEMS_MAX, TABLE_MAX_ROWS, Block, Section, _bounded,  # noqa: F401
+from . import report_parts   # its TABLE_MAX_ROWS is the one cap, read when a report is built
+from .report_parts import (ITEMS_MAX, Block, Section, _bounded,  # noqa: F401
                            _headline_section, _interval_text, _manifest_section, _num)
 from .prediction_words import extrapolation_words, prediction_notes
 from .wording import (CAUTION, ancestry_caution, unit_text, clean_timestamp, dose_caution, exponent_label,
@@ -264,7 +265,7 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
 
 def _fits_display(result) -> pd.DataFrame:
     """The fits table as shown: intervals as one text cell, the line in natural units."""
-    fits = result.fits.head(TABLE_MAX_ROWS)   # bounded; build_report notes the rest
+    fits = result.fits.head(report_parts.TABLE_MAX_ROWS)   # bounded; build_report notes the rest
     rows = []
     for r in fits.to_dict(orient="records"):
         fit = result.line_fits.get((r["scope"], r["group"], r["method"]))
@@ -317,9 +318,9 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
         "x = 1; resid_sd is the SD of the residuals on the log scale. Every column, unrounded, "
         "is in fits.csv."))]
     fit_blocks.append(Block(kind="table", frame=_fits_display(result), name="fits"))
-    if len(result.fits) > TABLE_MAX_ROWS:
+    if len(result.fits) > report_parts.TABLE_MAX_ROWS:
         fit_blocks.append(Block(kind="p", text=(
-            f"First {TABLE_MAX_ROWS} of {len(result.fits):,} fits shown; every fit is in "
+            f"First {report_parts.TABLE_MAX_ROWS} of {len(result.fits):,} fits shown; every fit is in "
             "fits.csv.")))
     sections.append(Section(title="Fits", blocks=fit_blocks, anchor="fits"))
 

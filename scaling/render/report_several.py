@@ -21,7 +21,8 @@ import pandas as pd
 
 from .answer_several import partial_model, several_group_sentences
 from .answer import headline_of
-from .report_parts import (Block, Section, TABLE_MAX_ROWS, _bounded, _headline_section,
+from . import report_parts   # its TABLE_MAX_ROWS is read when a report is built
+from .report_parts import (Block, Section, _bounded, _headline_section,
                            _interval_text, _manifest_section)
 from .wording import (CAUTION, dose_caution, mechanism_applies, mechanism_caution, medians_vs_means,
                       predicted_unit)
@@ -129,7 +130,7 @@ def _data_section(result) -> Section:
 
 def _fits_display(fits: pd.DataFrame) -> pd.DataFrame:
     rows = []
-    for r in fits.head(TABLE_MAX_ROWS).to_dict(orient="records"):
+    for r in fits.head(report_parts.TABLE_MAX_ROWS).to_dict(orient="records"):
         group = r.get("group", "")
         rows.append({"scope": r["scope"], "group": group if isinstance(group, str) else "",
                      "term": r["term"], "n": r["n"], "b": r["slope"],
@@ -170,8 +171,8 @@ def build_several_report(result, folder: Path | None = None, written=()) -> list
         f"{100 * conf:g}% confidence interval; log a is the intercept of the whole model, "
         "the same on every row of a line. Every column, unrounded, is in fits.csv."))]
     fit_blocks.append(Block(kind="table", frame=_fits_display(result.fits), name="fits"))
-    if len(result.fits) > TABLE_MAX_ROWS:
-        fit_blocks.append(Block(kind="p", text=f"First {TABLE_MAX_ROWS} of "
+    if len(result.fits) > report_parts.TABLE_MAX_ROWS:
+        fit_blocks.append(Block(kind="p", text=f"First {report_parts.TABLE_MAX_ROWS} of "
                                                f"{len(result.fits):,} rows shown."))
     sections.append(Section(title="Fits", blocks=fit_blocks, anchor="fits"))
 
