@@ -550,6 +550,22 @@ def _p_method(method: str, calibration: str, min_group_n: float, n_boot: int) ->
     return "chi2"
 
 
+def _checked(method, confidence, log_base, min_n, calibration, n_boot, pairwise_max, seed):
+    """The arguments of :func:`compare_groups` and :func:`compare_group_moments`, checked."""
+    method = check_method(method, METHODS, lower=True)
+    confidence = check_confidence(confidence)
+    base = check_base(log_base)
+    min_n = check_count(min_n, "min_n", 3)
+    if calibration not in _CALIBRATIONS:
+        raise ConfigError(f"calibration must be one of {', '.join(_CALIBRATIONS)}, "
+                          f"not {calibration!r}")
+    n_boot = check_count(n_boot, "n_boot", 19)
+    pairwise_max = check_count(pairwise_max, "pairwise_max", 2)
+    if seed is not None:
+        seed = check_count(seed, "seed", 0)
+    return method, confidence, base, min_n, n_boot, pairwise_max, seed
+
+
 def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
                    confidence: float = 0.95, log_base=10, min_n: int = 3,
                    calibration: str = "auto", n_boot: int = 999,
@@ -622,17 +638,8 @@ def compare_groups(df, x: str, y: str, group: str, *, method: str = "sma",
     >>> sg.compare_groups(e, "m", "r", "g", method="ols", average_within="sp").group_n
     (3, 3)
     """
-    method = check_method(method, METHODS, lower=True)
-    confidence = check_confidence(confidence)
-    base = check_base(log_base)
-    min_n = check_count(min_n, "min_n", 3)
-    if calibration not in _CALIBRATIONS:
-        raise ConfigError(f"calibration must be one of {', '.join(_CALIBRATIONS)}, "
-                          f"not {calibration!r}")
-    n_boot = check_count(n_boot, "n_boot", 19)
-    pairwise_max = check_count(pairwise_max, "pairwise_max", 2)
-    if seed is not None:
-        seed = check_count(seed, "seed", 0)
+    method, confidence, base, min_n, n_boot, pairwise_max, seed = _checked(
+        method, confidence, log_base, min_n, calibration, n_boot, pairwise_max, seed)
     X, Y, labels_raw = _xy_columns(df, x, y, group, base)
     if average_within is not None:
         X, Y, labels_raw = _average_units(X, Y, labels_raw, df, average_within, group)
@@ -680,17 +687,8 @@ def compare_group_moments(m: Moments, labels, *, method: str = "sma",
     Every statistic of :func:`compare_groups` is a function of these moments
     (module notes): every road of a run calls this function.
     """
-    method = check_method(method, METHODS, lower=True)
-    confidence = check_confidence(confidence)
-    base = check_base(log_base)
-    min_n = check_count(min_n, "min_n", 3)
-    if calibration not in _CALIBRATIONS:
-        raise ConfigError(f"calibration must be one of {', '.join(_CALIBRATIONS)}, "
-                          f"not {calibration!r}")
-    n_boot = check_count(n_boot, "n_boot", 19)
-    pairwise_max = check_count(pairwise_max, "pairwise_max", 2)
-    if seed is not None:
-        seed = check_count(seed, "seed", 0)
+    method, confidence, base, min_n, n_boot, pairwise_max, seed = _checked(
+        method, confidence, log_base, min_n, calibration, n_boot, pairwise_max, seed)
     labels = tuple(labels)
     g = len(labels)
     if g != np.size(m.n):
