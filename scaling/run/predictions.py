@@ -36,7 +36,8 @@ from ..render.wording import (range_warning, scope_words, symmetric_prediction_n
                               unbounded_inverse_note)
 from ..stats.lines import is_symmetric, to_log
 from ..stats.line_results import fit_to_dict
-from ..stats.predictions import accuracy, data_factors, inverse_predict, predict, saved_factor
+from ..stats.predictions import (LinePredictions, accuracy, data_factors, inverse_predict_lines,
+                                 predict_lines, saved_factor)
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary, predicting_method, prediction_sentence
@@ -257,56 +258,75 @@ def add_accuracy_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:
     return out
 
 
-def _tagged(prediction, scope: str, group: str, method: str) -> dict:
-    """A prediction's columns (those of its ``to_frame``) with the columns that say
-    which fit made it; joined once by :func:`_joined` (a table per fit costs more than
-    the prediction itself when there are many groups)."""
-    values = (("x", "y", "y_low", "y_high") if hasattr(prediction, "y_low")
-              else ("y", "x", "x_low", "x_high"))
-    k = np.size(getattr(prediction, values[0]))
-    cols = {"scope": [scope] * k, "group": [group] * k}
-    cols.update({c: np.asarray(getattr(prediction, c)) for c in values})
-    cols.update({"interval": [prediction.interval] * k,
-                 "correction": [prediction.correction] * k,
-                 "extrapolated": np.asarray(prediction.extrapolated).astype(bool),
-                 "method": [method] * k,
-                 "confidence": np.full(k, prediction.confidence, dtype=float)})
+def _columns(keys: list, batch: LinePredictions, role: str) -> dict:
+    """The columns of predictions.csv (``role`` "x") or inverse_predictions.csv ("y"),
+    without range_ratio: one row per line of ``keys`` and value, line by line."""
+    k, f = batch.given.size, len(keys)
+    names = ("x", "y", "y_low", "y_high") if role == "x" else ("y", "x", "x_low", "x_high")
+    cols = {"scope": [s for s, _, _ in keys for _ in range(k)],
+            "group": [g for _, g, _ in keys for _ in range(k)]}
+    cols.update(zip(names, (np.tile(batch.given, f), batch.estimate.ravel(),
+                            batch.low.ravel(), batch.high.ravel())))
+    cols.update({"interval": [batch.interval] * (k * f),
+                 "correction": [batch.correction] * (k * f),
+                 "extrapolated": batch.extrapolated.ravel().astype(bool),
+                 "method": [m for _, _, m in keys for _ in range(k)],
+                 "confidence": np.repeat(batch.confidence.astype(float), k)})
     return cols
 
 
-def _joined(parts: list) -> pd.DataFrame:
-    """One table of the columns of :func:`_tagged`, in their order."""
-    return pd.DataFrame({c: ([v for p in parts for v in p[c]] if isinstance(parts[0][c], list)
-                             else np.concatenate([p[c] for p in parts]))
-                         for c in parts[0]})
+def _many(keys: list, line_fits: dict, make) -> LinePredictions:
+    """``make(fits)`` for the lines ``keys``, one call per log base, rows in ``keys``' order."""
+    by_base: dict = {}
+    for i, key in enumerate(keys):
+        by_base.setdefault(line_fits[key].log_base, []).append(i)
+    parts = [(idx, make(idx)) for idx in by_base.values()]
+    if len(parts) == 1:
+        return parts[0][1]
+    order = np.argsort(np.concatenate([idx for idx, _ in parts]), kind="stable")
+    first = parts[0][1]
+    stack = {f: np.concatenate([getattr(p, f) for _, p in parts])[order]
+             for f in ("estimate", "low", "high", "extrapolated", "bounded", "confidence")}
+    return LinePredictions(given=first.given, interval=first.interval,
+                           correction=first.correction, **stack)
+
+
+def _quiet(keys: list, line_fits: dict, make) -> LinePredictions:
+    """:func:`_many` with numpy's floating-point warnings silenced (an overflowing
+    or undefined value is written as inf or NaN and the tables say why)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return _many(keys, line_fits, make)
 
 
 def _predictions(line_fits: dict, saved: dict, cfg):
-    """predictions.csv (and inverse_predictions.csv) for the config's values, and notes."""
+    """predictions.csv (and inverse_predictions.csv) for the config's values, and notes.
+
+    Every line predicts at once (:func:`~scaling.stats.predictions.predict_lines`,
+    one array pass instead of a call and a t quantile per line)."""
     pc = cfg.prediction
-    rows, inv_rows, notes, unbounded = [], [], [], []
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        for key, d in saved.items():
-            scope, group, method = key
-            fit = line_fits[key]
-            if pc.x:
-                p = predict(fit, list(pc.x), correction=pc.correction, interval=pc.interval,
-                            factor=saved_factor(d, pc.correction))
-                rows.append(_tagged(p, scope, group, method))
-            if pc.y:
-                q = inverse_predict(fit, list(pc.y), interval=pc.interval)
-                inv_rows.append(_tagged(q, scope, group, method))
-                if not np.all(q.bounded):
-                    unbounded.append(scope_words(scope, group) + " " + method_label(method))
-    tables = {}
-    for wanted, parts, columns, role, name in (
-            (pc.x, rows, PREDICTION_COLUMNS, "x", "predictions"),
-            (pc.y, inv_rows, INVERSE_COLUMNS, "y", "inverse_predictions")):
+    keys = list(saved)
+    tables, notes, unbounded = {}, [], []
+    for wanted, columns, role, name in (
+            (pc.x, PREDICTION_COLUMNS, "x", "predictions"),
+            (pc.y, INVERSE_COLUMNS, "y", "inverse_predictions")):
         if not wanted:
             continue
         keep = columns[:-1]   # range_ratio, the last column, is added here
-        table = _joined(parts)[keep] if parts else pd.DataFrame(columns=keep)
+        if not keys:
+            table = pd.DataFrame(columns=keep)
+        elif role == "x":
+            batch = _quiet(keys, line_fits, lambda idx: predict_lines(
+                [line_fits[keys[i]] for i in idx], list(pc.x), correction=pc.correction,
+                interval=pc.interval,
+                factors=[saved_factor(saved[keys[i]], pc.correction) for i in idx]))
+            table = pd.DataFrame(_columns(keys, batch, "x"))[keep]
+        else:
+            batch = _quiet(keys, line_fits, lambda idx: inverse_predict_lines(
+                [line_fits[keys[i]] for i in idx], list(pc.y), interval=pc.interval))
+            table = pd.DataFrame(_columns(keys, batch, "y"))[keep]
+            unbounded = [scope_words(s, g) + " " + method_label(m)
+                         for (s, g, m), ok in zip(keys, batch.bounded.all(axis=1)) if not ok]
         table, range_notes = add_range_ratio(table, saved, role)
         tables[name] = table
         notes += range_notes

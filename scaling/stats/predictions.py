@@ -95,7 +95,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Protocol
 
 import numpy as np
@@ -146,6 +146,9 @@ __all__ = [
     "log_residuals",
     "predict",
     "inverse_predict",
+    "LinePredictions",
+    "predict_lines",
+    "inverse_predict_lines",
     "saved_factor",
     "accuracy",
 ]
@@ -514,6 +517,38 @@ class Accuracy:
         return accuracy_summary(self)
 
 
+@dataclass(frozen=True, slots=True, kw_only=True)
+class LinePredictions:
+    """Predictions of many fitted lines at the same values, one row per line.
+
+    Made by :func:`predict_lines` (y from x) and :func:`inverse_predict_lines`
+    (x from y); row ``i`` is what :func:`predict` / :func:`inverse_predict` give line ``i``.
+
+    Attributes
+    ----------
+    given : ndarray (K,)
+        The values asked about (x forward, y inverse), natural units.
+    estimate, low, high : ndarray (F, K)
+        Point estimates and interval bounds in natural units.
+    extrapolated : ndarray of bool (F, K)
+        True where the value lies outside the line's fitted range.
+    bounded : ndarray of bool (F, K)
+        False where an inverse interval is unbounded (all True forward).
+    confidence : ndarray (F,)
+    interval, correction : str
+    """
+
+    given: np.ndarray
+    estimate: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+    extrapolated: np.ndarray
+    bounded: np.ndarray
+    confidence: np.ndarray
+    interval: str
+    correction: str
+
+
 # --------------------------------------------------------------------------
 # the public functions
 
@@ -680,6 +715,114 @@ def inverse_predict(fit: FittedLine, y, *, interval: str = "prediction",
         extrapolated=_frozen(extrapolated), bounded=_frozen(bounded),
         log_fit=_frozen(fitted), log_low=_frozen(lo), log_high=_frozen(hi), log_base=base,
     )
+
+
+def _one_base(fits: list):
+    if len(bases := {f.log_base for f in fits}) > 1:
+        raise ConfigError("lines predicted together must share one log base")
+    return bases.pop() if bases else 10.0
+
+
+def _stacked(params) -> dict:
+    """Per-line parameter dicts as (F, 1) columns (broadcast against (1, K) values)."""
+    params = list(params)
+    return {k: np.array([p[k] for p in params], dtype=float)[:, None] for k in params[0]}
+
+
+def _ranges_outside(values: np.ndarray, ranges: list) -> np.ndarray:
+    """(F, K) flags of :func:`_outside` for every line's range (None: never outside)."""
+    lim = np.array([(np.nan, np.nan) if r is None else r[:2] for r in ranges]).reshape(-1, 2)
+    return (values[None, :] < lim[:, :1]) | (values[None, :] > lim[:, 1:])
+
+
+def predict_lines(fits, x, *, correction: str = "smearing", interval: str = "prediction",
+                  factors=None) -> LinePredictions:
+    """:func:`predict` for many lines at the same ``x``, in one array pass.
+
+    Parameters
+    ----------
+    fits : sequence of LineFit
+        Lines sharing one ``log_base``; each at its own ``confidence``.
+    x, correction, interval
+        As for :func:`predict`.
+    factors : sequence, optional
+        Per line, the ``factor`` argument of :func:`predict` (a saved factor or None).
+
+    Returns
+    -------
+    LinePredictions
+        Row ``i`` equals ``predict(fits[i], x, ..., factor=factors[i])`` to the
+        last bit (same operations, elementwise); nothing is warned.
+    """
+    correction = _check_choice(correction, CORRECTIONS, "correction")
+    interval = _check_choice(interval, INTERVALS, "interval")
+    fits = list(fits)
+    factors = [None] * len(fits) if factors is None else list(factors)
+    base = _one_base(fits)
+    if base is None and correction != "none":
+        raise ConfigError(f"correction {correction!r} needs a log base: values given as "
+                          "logs are not back-transformed; use correction='none'")
+    x = _check_values(x, "x", base)
+    if not fits:
+        return replace(inverse_predict_lines([], x, interval=interval), correction=correction)
+    level = np.array([_check_confidence(None, f) for f in fits])
+    cf = np.array([_factor_for(f, correction, residuals=None, data=None, factor=k)
+                   for f, k in zip(fits, factors)])[:, None]
+    fitted, _, lo, hi = log_interval(to_log(x, base)[None, :], confidence=level[:, None],
+                                     interval=interval, **_stacked(map(_line_params, fits)))
+    bound_cf = cf if interval == "confidence" else 1.0
+    with np.errstate(over="ignore"):
+        y = cf * _unlog(fitted, base)
+        y_low, y_high = bound_cf * _unlog(lo, base), bound_cf * _unlog(hi, base)
+    return LinePredictions(given=x, estimate=y, low=y_low, high=y_high,
+                           extrapolated=_ranges_outside(x, [f.x_range for f in fits]),
+                           bounded=np.ones(y.shape, dtype=bool), confidence=level,
+                           interval=interval, correction=correction)
+
+
+def inverse_predict_lines(fits, y, *, interval: str = "prediction") -> LinePredictions:
+    """:func:`inverse_predict` for many lines at the same ``y``, in one array pass.
+
+    Parameters
+    ----------
+    fits : sequence of LineFit
+        Lines sharing one ``log_base`` (symmetric lines and OLS each their own way).
+    y, interval
+        As for :func:`inverse_predict`.
+
+    Returns
+    -------
+    LinePredictions
+        ``estimate``, ``low``, ``high`` are x; row ``i`` equals
+        ``inverse_predict(fits[i], y, ...)`` to the last bit; nothing is warned.
+    """
+    interval = _check_choice(interval, INTERVALS, "interval")
+    fits = list(fits)
+    base = _one_base(fits)
+    y = _check_values(y, "y", base)
+    fitted, lo, hi = (np.full((len(fits), y.size), np.nan) for _ in range(3))
+    level = np.array([_check_confidence(None, f) for f in fits])
+    Y0 = to_log(y, base)[None, :]
+    symmetric = np.array([bool(is_symmetric(f.method)) for f in fits], dtype=bool)
+    for sym in (True, False):
+        idx = np.flatnonzero(symmetric == sym)
+        if not idx.size:
+            continue
+        if sym:
+            params = _stacked([_swapped_params(fits[i]) for i in idx])
+            f_, _, l_, h_ = log_interval(Y0, confidence=level[idx][:, None],
+                                         interval=interval, **params)
+        else:
+            params = _stacked([_line_params(fits[i]) for i in idx])
+            f_, l_, h_ = inverse_log_interval(Y0, confidence=level[idx][:, None],
+                                              interval=interval, **params)
+        fitted[idx], lo[idx], hi[idx] = f_, l_, h_
+    with np.errstate(over="ignore"):
+        x, x_low, x_high = (_unlog(v, base) for v in (fitted, lo, hi))
+    return LinePredictions(given=y, estimate=x, low=x_low, high=x_high,
+                           extrapolated=_ranges_outside(y, [f.y_range for f in fits]),
+                           bounded=np.isfinite(lo) & np.isfinite(hi), confidence=level,
+                           interval=interval, correction="none")
 
 
 def accuracy(fit: FittedLine, x, y, *, correction: str = "none") -> Accuracy:

@@ -1,0 +1,90 @@
+"""Predictions of many lines in one array pass equal the line-by-line ones.
+
+:func:`scaling.stats.predictions.predict_lines` and
+:func:`~scaling.stats.predictions.inverse_predict_lines` give, row by row, what
+:func:`~scaling.stats.predictions.predict` and
+:func:`~scaling.stats.predictions.inverse_predict` give each line: the check is
+internal consistency, exact to the last bit (same formulas, elementwise).
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+from numpy.testing import assert_array_equal
+
+import scaling
+from scaling.errors import ConfigError
+from scaling.stats.predictions import (inverse_predict, inverse_predict_lines, predict,
+                                       predict_lines)
+
+
+@pytest.fixture(scope="module")
+def lines():
+    """OLS, SMA and MA lines of groups of 5 to 400 points, two levels, one weak slope."""
+    rng = np.random.default_rng(7)
+    out = []
+    for size, slope, noise, level in ((5, 0.75, 0.1, 0.95), (40, 0.7, 0.3, 0.9),
+                                      (400, 0.8, 0.05, 0.95), (12, 0.02, 0.6, 0.99)):
+        x = 10 ** rng.uniform(0, 3, size)
+        y = 2.0 * x ** slope * 10 ** rng.normal(0, noise, size)
+        with warnings.catch_warnings():   # the weak slope warns that it is weak
+            warnings.simplefilter("ignore")
+            out += [scaling.fit_line(x, y, method=m, confidence=level)
+                    for m in ("ols", "sma", "ma")]
+    return out
+
+
+@pytest.mark.parametrize("correction", ["smearing", "parametric", "ratio", "none"])
+@pytest.mark.parametrize("interval", ["prediction", "confidence"])
+def test_predict_lines_equals_each_line_predicted_alone(lines, correction, interval):
+    # internal consistency: one array pass against one call per line, exact
+    x = [0.5, 10.0, 300.0, 5e4]   # below, inside and above the fitted ranges
+    factors = [None if correction in ("parametric", "none") else 1.01 + 0.01 * i
+               for i in range(len(lines))]
+    batch = predict_lines(lines, x, correction=correction, interval=interval,
+                          factors=factors)
+    assert batch.estimate.shape == (len(lines), len(x))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for i, (fit, factor) in enumerate(zip(lines, factors)):
+            one = predict(fit, x, correction=correction, interval=interval, factor=factor)
+            assert_array_equal(batch.estimate[i], one.y)
+            assert_array_equal(batch.low[i], one.y_low)
+            assert_array_equal(batch.high[i], one.y_high)
+            assert_array_equal(batch.extrapolated[i], one.extrapolated)
+            assert batch.confidence[i] == one.confidence
+    assert batch.extrapolated[:, 0].all() and batch.extrapolated[:, -1].all()
+
+
+@pytest.mark.parametrize("interval", ["prediction", "confidence"])
+def test_inverse_predict_lines_equals_each_line_alone(lines, interval):
+    # internal consistency: symmetric lines and OLS (Fieller) mixed, exact
+    y = [1.0, 20.0, 400.0]
+    batch = inverse_predict_lines(lines, y, interval=interval)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for i, fit in enumerate(lines):
+            one = inverse_predict(fit, y, interval=interval)
+            assert_array_equal(batch.estimate[i], one.x)
+            assert_array_equal(batch.low[i], one.x_low)
+            assert_array_equal(batch.high[i], one.x_high)
+            assert_array_equal(batch.bounded[i], one.bounded)
+            assert_array_equal(batch.extrapolated[i], one.extrapolated)
+    # the weak OLS slope (0.02 in noise 0.6 on 12 points) leaves its interval unbounded
+    assert not batch.bounded[9].all()
+
+
+def test_predict_lines_refuses_lines_on_different_log_bases():
+    x = np.array([1.0, 2.0, 4.0, 8.0])
+    y = np.array([1.1, 2.3, 3.9, 8.4])
+    fits = [scaling.fit_line(x, y, log_base=10), scaling.fit_line(x, y, log_base="e")]
+    with pytest.raises(ConfigError, match="one log base"):
+        predict_lines(fits, [3.0], correction="none")
+
+
+def test_predict_lines_of_no_lines_is_empty():
+    batch = predict_lines([], [1.0, 2.0], correction="parametric")
+    assert batch.estimate.shape == (0, 2) and batch.correction == "parametric"
