@@ -40,6 +40,15 @@ CSV_ONLY = frozenset({"influential_rows"})
 
 
 def json_safe(obj):
+    kind = type(obj)   # the plain types first: most values of a document are these
+    if kind is float:
+        return obj if math.isfinite(obj) else None
+    if kind is str or kind is int or kind is bool or obj is None:
+        return obj
+    if kind is dict:
+        return {k if type(k) is str else str(k): json_safe(v) for k, v in obj.items()}
+    if kind is list:
+        return [json_safe(v) for v in obj]
     if isinstance(obj, dict):
         return {str(k): json_safe(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):

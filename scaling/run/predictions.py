@@ -46,7 +46,7 @@ from .several_predictors import constant_columns, constant_sentence
 __all__ = ["PredictionStage", "prediction_stage", "predictions_from_factors",
            "saved_fits_of", "accuracy_and_factors",
            "add_accuracy_columns", "factors_by_group", "prediction_methods",
-           "prediction_fits", "range_ratio", "add_range_ratio"]
+           "prediction_fits", "range_ratio", "add_range_ratio", "row_keys"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -245,13 +245,15 @@ def saved_fits_of(line_fits: dict, extra: dict) -> dict:
     return saved
 
 
+def row_keys(table: pd.DataFrame):
+    """``(scope, group, method)`` of each row (column lists: no row objects)."""
+    return zip(*(table[c].tolist() for c in ("scope", "group", "method")))
+
+
 def add_accuracy_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:
     """fits.csv with the accuracy and correction-factor columns (NaN where not computed)."""
-    values = {c: [] for c in FIT_ACCURACY_COLUMNS}
-    for r in fits.itertuples(index=False):
-        row = extra.get((r.scope, r.group, r.method), {})
-        for c in FIT_ACCURACY_COLUMNS:
-            values[c].append(row.get(c, np.nan))
+    rows = [extra.get(key, {}) for key in row_keys(fits)]
+    values = {c: [row.get(c, np.nan) for row in rows] for c in FIT_ACCURACY_COLUMNS}
     out = fits.copy()
     for c in FIT_ACCURACY_COLUMNS:
         out[c] = values[c]
@@ -409,8 +411,8 @@ def add_range_ratio(table: pd.DataFrame, saved: dict, role: str) -> tuple:
         out["range_ratio"] = pd.Series(dtype=float)
         return out, []
     lo, hi, logs = [], [], []
-    for r in out.itertuples(index=False):
-        d = saved.get((r.scope, r.group, r.method), {})
+    for key in row_keys(out):
+        d = saved.get(key, {})
         rng = d.get(f"{role}_range") or (np.nan, np.nan)
         lo.append(rng[0])
         hi.append(rng[1])

@@ -56,7 +56,8 @@ from ..stats.streaming_residuals import (TOP_K, GroupResidualSums, ResidualSums,
 from .diagnostics import exponent_targets
 from .moments_path import _sep
 from .points_to_check import primary_method
-from .predictions import accuracy_and_factors, predictions_from_factors, saved_fits_of
+from .predictions import (accuracy_and_factors, predictions_from_factors, row_keys,
+                          saved_fits_of)
 
 __all__ = ["SecondPass", "second_pass", "residual_sums", "ROW_ONLY_STAGES"]
 
@@ -119,13 +120,14 @@ def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
     index = {k: i for i, k in enumerate(keys)}
     out = {c: np.full((len(keys), len(methods)), np.nan)
            for c in ("intercept", "slope", "resid_sd", "slope_se")}
-    for r in fits.itertuples(index=False):
-        i = index.get((r.scope, r.group))
-        if i is None or r.method not in methods:
+    values = {c: fits[c].to_numpy(dtype=float) for c in out}
+    for row, (scope, group, method) in enumerate(row_keys(fits)):
+        i = index.get((scope, group))
+        if i is None or method not in methods:
             continue
-        j = methods.index(r.method)
+        j = methods.index(method)
         for c in out:
-            out[c][i, j] = getattr(r, c)
+            out[c][i, j] = values[c][row]
     return out
 
 
@@ -273,19 +275,20 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     # LineFits of every estimable fit (pooled ones as the path made them); each method
     # fitted to every set in one vectorised call, then packaged set by set.
     all_fits = dict(line_fits)
-    rng = {(r.scope, r.group, r.method): r for r in fits.itertuples(index=False)}
+    rng = dict(zip(row_keys(fits), zip(*(fits[c].tolist()
+                                       for c in ("slope", "x_min", "x_max", "y_min", "y_max")))))
     for method in methods:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             fitted = fit_moments(m, method, confidence=cfg.model.confidence)
         for i, (scope, group) in enumerate(keys):
             key = (scope, group, method)
-            r = rng.get(key)
-            if key in all_fits or r is None or not np.isfinite(r.slope):
+            r = rng.get(key)   # slope, x_min, x_max, y_min, y_max
+            if key in all_fits or r is None or not np.isfinite(r[0]):
                 continue
             all_fits[key] = line_fit_from_result(
                 fitted, i, m[i], method, confidence=cfg.model.confidence, log_base=base,
-                x_range=(r.x_min, r.x_max), y_range=(r.y_min, r.y_max))
+                x_range=(r[1], r[2]), y_range=(r[3], r[4]))
     extra = {}
     for i, (scope, group) in enumerate(keys):
         if res.n[i] < 3:
@@ -554,20 +557,22 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
                 index=False):
             estimates.setdefault((p.scope, p.group, p.method), []).append(
                 (f"at x = {p.x:g} ", p.y, p.y_low, p.y_high))
-    for r in fits.itertuples(index=False):
-        key = (r.scope, r.group, r.method)
-        if key not in all_fits or not np.isfinite(getattr(r, "smearing_factor", math.nan)):
+    nan = [math.nan] * len(fits)
+    for key, smearing, parametric, n in zip(
+            row_keys(fits), *(fits[c].tolist() if c in fits.columns else nan
+                           for c in ("smearing_factor", "parametric_factor", "n"))):
+        if key not in all_fits or not np.isfinite(smearing):
             continue
         est = estimates.get(key, ())
         try:
-            found = fit_checks(smearing_factor=r.smearing_factor,
-                               parametric_factor=r.parametric_factor, estimates=est)
+            found = fit_checks(smearing_factor=smearing, parametric_factor=parametric,
+                               estimates=est)
         except ScalingError:
             continue
-        if key == checked_key and r.n >= MIN_N:
+        if key == checked_key and n >= MIN_N:
             found = _point_checks(res, all_fits[key], anova, alpha, names) + found
             found.sort(key=lambda c: c.severity != "strong")
-        records += [{"scope": r.scope, "group": r.group, "method": r.method,
+        records += [{"scope": key[0], "group": key[1], "method": key[2],
                      **c.to_record(), "reason": point_check_reason(c)} for c in found]
     table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
     table["row"] = table["row"].astype("Int64")
