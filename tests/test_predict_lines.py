@@ -9,6 +9,7 @@ internal consistency, exact to the last bit (same formulas, elementwise).
 
 from __future__ import annotations
 
+import json
 import warnings
 
 import numpy as np
@@ -88,3 +89,30 @@ def test_predict_lines_refuses_lines_on_different_log_bases():
 def test_predict_lines_of_no_lines_is_empty():
     batch = predict_lines([], [1.0, 2.0], correction="parametric")
     assert batch.estimate.shape == (0, 2) and batch.correction == "parametric"
+
+
+def test_saved_fits_equal_fit_to_dict():
+    # internal consistency: the saved-fit dicts built for many fits at once are the
+    # dicts of fit_to_dict (plus scope, group and the fit's note), key for key
+    from scaling.render.wording import fit_note
+    from scaling.run.predictions import saved_fits_of
+    from scaling.stats.line_results import fit_to_dict
+    x = np.array([1.0, 2.0, 4.0, 8.0, 16.0])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fits = {("pooled", "", m): scaling.fit_line(x, 3 * x ** 0.7 * [1, 1.1, 0.9, 1, 1.05],
+                                                    method=m) for m in ("ols", "sma", "ma")}
+        # a weak slope (its interval has a gap) and an exact line (NaN intervals)
+        fits[("group", "weak", "sma")] = scaling.fit_line(x, [2.0, 1.0, 3.0, 1.5, 2.5],
+                                                          method="sma")
+        fits[("group", "exact", "ols")] = scaling.fit_line(x, 2 * x ** 0.5)
+    extra = {k: {"smearing_factor": 1.0 + i / 10, "ratio_factor": float("nan")}
+             for i, k in enumerate(fits)}
+    saved = saved_fits_of(fits, extra)
+    for key, fit in fits.items():
+        want = fit_to_dict(fit, smearing_factor=extra[key]["smearing_factor"],
+                           ratio_factor=extra[key]["ratio_factor"])
+        want.update({"scope": key[0], "group": key[1], "note": fit_note(fit)})
+        # the same values, types (3 is not 3.0 in results.json) and key order
+        assert json.dumps(saved[key]) == json.dumps(want)
+    assert any("slope_gap" in d for d in saved.values())

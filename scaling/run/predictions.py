@@ -35,7 +35,8 @@ from ..render.wording import fit_note
 from ..render.wording import (range_warning, scope_words, symmetric_prediction_note,
                               unbounded_inverse_note)
 from ..stats.lines import is_symmetric, to_log
-from ..stats.line_results import fit_to_dict
+from ..stats.line_results import DICT_FORMAT, fit_to_dict
+from ..stats.logscale import base_label
 from ..stats.predictions import (LinePredictions, accuracy, data_factors, inverse_predict_lines,
                                  predict_lines, saved_factor)
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
@@ -232,17 +233,94 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
 
 
 def saved_fits_of(line_fits: dict, extra: dict) -> dict:
-    """Saved-fit dicts (with smearing and ratio factors) of the fits that have ``extra``."""
+    """Saved-fit dicts (with smearing and ratio factors) of the fits that have ``extra``.
+
+    Each is the dict of :func:`~scaling.stats.line_results.fit_to_dict` with the
+    fit's ``scope``, ``group`` and ``note``; fits whose factors are floats are
+    built together, a field at a time (:func:`_saved_dicts`)."""
+    keys = [k for k in line_fits if k in extra]
+    plain = [k for k in keys if type(extra[k]["smearing_factor"]) is float
+             and type(extra[k]["ratio_factor"]) is float]
+    built = dict(zip(plain, _saved_dicts([line_fits[k] for k in plain],
+                                         [extra[k]["smearing_factor"] for k in plain],
+                                         [extra[k]["ratio_factor"] for k in plain])))
     saved = {}
-    for key, fit in line_fits.items():
-        if key not in extra:
-            continue
-        scope, group, _ = key
-        d = fit_to_dict(fit, smearing_factor=extra[key]["smearing_factor"],
-                        ratio_factor=extra[key]["ratio_factor"])
-        d.update({"scope": scope, "group": group, "note": fit_note(fit)})
+    for key in keys:
+        fit = line_fits[key]
+        d = built.get(key)
+        if d is None:   # None (the fit's own factors) or another type: the reference checks it
+            d = fit_to_dict(fit, smearing_factor=extra[key]["smearing_factor"],
+                            ratio_factor=extra[key]["ratio_factor"])
+        d.update({"scope": key[0], "group": key[1], "note": fit_note(fit)})
         saved[key] = d
     return saved
+
+
+def _clean(v):
+    """The cleaning of :func:`~scaling.stats.line_results.fit_to_dict`: floats (numpy
+    ones too) as finite floats or None, lists and tuples as lists, the rest as is."""
+    kind = type(v)
+    if kind is float or kind is np.float64:
+        v = float(v)
+        return v if math.isfinite(v) else None
+    if isinstance(v, dict):
+        return {k: _clean(u) for k, u in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_clean(u) for u in v]
+    if isinstance(v, (float, np.floating)):
+        v = float(v)
+        return v if math.isfinite(v) else None
+    return v
+
+
+def _column(values: list) -> list:
+    """:func:`_clean` of each value; all floats in one array pass."""
+    if all(type(v) is float or type(v) is np.float64 for v in values):
+        arr = np.array(values, dtype=float)
+        out = arr.tolist()
+        for i in np.flatnonzero(~np.isfinite(arr)).tolist():
+            out[i] = None
+        return out
+    return [_clean(v) for v in values]
+
+
+_SCALARS = ("slope", "slope_se", "intercept", "intercept_se", "r", "r2", "resid_sd", "df",
+            "confidence")
+_MOMENTS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")
+
+
+def _saved_dicts(fits: list, smearing: list, ratio: list) -> list:
+    """``fit_to_dict(fit, smearing_factor=s, ratio_factor=r)`` of each fit, the same
+    dicts (a test holds them equal, types and key order included), built a field
+    at a time instead of by a recursive cleaning of each fit's dict."""
+    col = {name: _column([getattr(f, name) for f in fits]) for name in _SCALARS}
+    ci = {name: (_column([getattr(f, name).low for f in fits]),
+                 _column([getattr(f, name).high for f in fits]))
+          for name in ("slope_ci", "intercept_ci")}
+    mom = {name: _column([np.asarray(getattr(f.moments, name)).tolist() for f in fits])
+           for name in _MOMENTS}
+    factors = _column(smearing), _column(ratio)
+    labels: dict = {}
+    out = []
+    for i, f in enumerate(fits):
+        if f.log_base not in labels:
+            labels[f.log_base] = base_label(f.log_base)
+        d = {"format": DICT_FORMAT, "method": f.method, "n": int(f.n),
+             "slope": col["slope"][i], "slope_ci": [ci["slope_ci"][0][i], ci["slope_ci"][1][i]],
+             "slope_se": col["slope_se"][i], "intercept": col["intercept"][i],
+             "intercept_ci": [ci["intercept_ci"][0][i], ci["intercept_ci"][1][i]],
+             "intercept_se": col["intercept_se"][i], "r": col["r"][i], "r2": col["r2"][i],
+             "resid_sd": col["resid_sd"][i], "df": col["df"][i],
+             "log_base": labels[f.log_base], "confidence": col["confidence"][i],
+             "moments": {name: mom[name][i] for name in _MOMENTS},
+             "x_range": None if f.x_range is None else [_clean(float(v)) for v in f.x_range],
+             "y_range": None if f.y_range is None else [_clean(float(v)) for v in f.y_range],
+             "note": f.note, "lam": _clean(f.lam), "interval_method": f.interval_method,
+             "smearing_factor": factors[0][i], "ratio_factor": factors[1][i]}
+        if np.isfinite(f.slope_gap_low) and np.isfinite(f.slope_gap_high):
+            d["slope_gap"] = [_clean(f.slope_gap_low), _clean(f.slope_gap_high)]
+        out.append(d)
+    return out
 
 
 def row_keys(table: pd.DataFrame):
