@@ -456,14 +456,20 @@ def unique_codes(values) -> tuple:
     """(codes, labels): ``np.unique(values.astype(str), return_inverse=True)`` reversed,
     through one hash pass (sorting a million strings costs about a second; only the
     distinct labels are sorted here)."""
-    text = np.asarray(values).astype(str)
+    values = np.asarray(values)
+    if values.dtype == object and pd.api.types.infer_dtype(values, skipna=False) == "string":
+        # already text: hash the objects; only the distinct labels become a numpy str array
+        text = values
+    else:
+        text = values.astype(str)
     if not text.size:
         return np.zeros(0, dtype=np.intp), text
     first, uniq = pd.factorize(text)
+    uniq = np.asarray(uniq).astype(str)
     order = np.argsort(uniq, kind="stable")
     rank = np.empty(order.size, dtype=np.intp)
     rank[order] = np.arange(order.size)
-    return rank[first], np.asarray(uniq[order], dtype=text.dtype)
+    return rank[first], uniq[order]
 
 
 def _within(A: np.ndarray, codes: np.ndarray, n_groups: int) -> np.ndarray:
