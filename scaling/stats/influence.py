@@ -46,7 +46,7 @@ import numpy as np
 from scipy import stats
 
 from ..errors import DataError
-from .lines import METHODS, fit_moments
+from .lines import METHODS, fit_moments, fit_notes, get_method
 from .moments import Moments, moments
 from .residual_checks import MIN_N, _check_alpha, parallel_lines_influence, unique_codes
 from .schema import check_method
@@ -228,9 +228,15 @@ def leave_one_out_slopes(log_x, log_y, *, method: str = "ols") -> np.ndarray:
                    mean_y=m.mean_y[..., None] - f / (n - 1),
                    sxx=m.sxx[..., None] - k * d * d, syy=m.syy[..., None] - k * f * f,
                    sxy=m.sxy[..., None] - k * d * f)
+    return _slopes(down, method)
+
+
+def _slopes(m: Moments, method: str) -> np.ndarray:
+    """``fit_moments(m, method)["slope"]`` without the intervals (the same floats)."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return np.asarray(fit_moments(down, method)["slope"], dtype=float)
+        b = np.asarray(get_method(method).slope(m), dtype=float)
+    return np.where(fit_notes(m, method).reshape(np.shape(m.n)) != "", np.nan, b)
 
 
 def strong_influence(log_x, log_y, *, method: str = "ols") -> dict:
@@ -320,7 +326,7 @@ def strong_influence_each(samples, *, method: str = "ols") -> list:
         down = Moments(n=ne - 1.0, mean_x=mx[each] - d / (ne - 1), mean_y=my[each] - f / (ne - 1),
                        sxx=sxx[each] - k * d * d, syy=syy[each] - k * f * f,
                        sxy=sxy[each] - k * d * f)
-        loo = np.asarray(fit_moments(down, method)["slope"], dtype=float)
+        loo = _slopes(down, method)
     b = np.array([float(w["slope"]) for w in full])
     se = np.array([float(w["slope_se"]) for w in full])
     with np.errstate(divide="ignore", invalid="ignore"):
