@@ -718,7 +718,10 @@ def _constant_variance(resid, X, het_breuschpagan, alpha) -> Check:
     flagged = bool(p_bp < alpha)
     trend = 0
     if flagged:
-        trend = 1 if np.polyfit(X, resid ** 2, 1)[0] > 0 else -1
+        # the sign of the OLS slope of e^2 on X is the sign of their centred cross
+        # product (a significant test puts it far from rounding's zero)
+        xc = X - X.mean()
+        trend = 1 if np.dot(xc, resid ** 2) > 0 else -1
     return Check(check="constant_variance", test="Breusch-Pagan", statistic=lm, df=1.0,
                  p_value=p_bp, estimate=math.nan, flagged=flagged, finding=_finding(flagged),
                  direction=trend)
