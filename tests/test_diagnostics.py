@@ -309,7 +309,8 @@ class TestDiagnoseExactPowerLaw:
 
 from scaling.render.findings import point_check_reason  # noqa: E402
 from scaling.stats.influence import (PointCheck, cooks_distances, fit_checks,  # noqa: E402
-                                     leave_one_out_slopes, points_to_check, strong_influence)
+                                     leave_one_out_slopes, points_to_check, strong_influence,
+                                     strong_influence_each)
 
 
 def _bones(seed=11, n=30):
@@ -363,6 +364,34 @@ class TestLeaveOneOutSlopes:
     def test_shapes_must_agree(self):
         with pytest.raises(DataError, match="equal shape"):
             leave_one_out_slopes([1, 2, 3, 4], [1, 2, 3])
+
+
+class TestStrongInfluenceEach:
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    def test_many_samples_at_once_give_the_same_floats_as_one_at_a_time(self, method):
+        # internal consistency: the segmented pass against strong_influence per sample,
+        # bit for bit (sizes around numpy's pairwise-summation blocks of 8 and 128)
+        rng = np.random.default_rng(5)
+        samples = []
+        for i, n in enumerate([4, 7, 8, 9, 16, 127, 128, 129, 300, 1000] * 3):
+            lx = rng.uniform(0.0, 3.0, n)
+            ly = 0.7 * lx + rng.normal(0.0, 0.05 + 0.1 * (i % 4), n)
+            if i % 3 == 0:
+                ly[i % n] += 2.0       # a strong point
+            if i % 7 == 0:
+                ly = 0.5 * lx + 1.0    # an exact line: nothing flagged
+            samples.append((lx, ly))
+        each = strong_influence_each(samples, method=method)
+        assert len(each) == len(samples)
+        assert any(e["flag"].any() for e in each)
+        for (lx, ly), got in zip(samples, each):
+            ref = strong_influence(lx, ly, method=method)
+            for key in ref:
+                assert np.array_equal(np.asarray(got[key]), np.asarray(ref[key]),
+                                      equal_nan=key != "flag"), key
+
+    def test_no_samples_give_an_empty_list(self):
+        assert strong_influence_each([]) == []
 
 
 class TestPointsToCheck:

@@ -546,3 +546,26 @@ class TestManyGroupsFigures:
         assert "5\u2009000 of 6\u2009000 points" in notes[0][0].get_text()
         legend = [t.get_text() for lg in fig.legends for t in lg.get_texts()]
         assert legend == ["20 groups (colours cycle; too many to list)"]
+
+
+class TestGroupCurveValues:
+    @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+    def test_curve_is_predicts_corrected_mean(self, method):
+        # internal consistency: the natural figure's group curves are predict(...).y,
+        # computed without the interval, to the last bit
+        from scaling.render.figure_natural import _curve_y
+        from scaling.stats.line_results import fit_line
+        from scaling.stats.predictions import predict
+        rng = np.random.default_rng(8)
+        x = 10 ** rng.uniform(0.0, 3.0, 40)
+        y = 2.0 * x ** 0.75 * 10 ** rng.normal(0.0, 0.1, 40)
+        fit = fit_line(x, y, method=method, log_base=10)
+        xs = np.linspace(*fit.x_range, 240)
+        for correction, factor in (("parametric", None), ("smearing", 1.07), ("ratio", 0.98),
+                                   ("none", None)):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                ref = predict(fit, xs, correction=correction, factor=factor).y
+            assert np.array_equal(_curve_y(fit, xs, correction, "prediction", factor), ref)
+        with pytest.raises(ConfigError):   # no usable factor: predict's own message
+            _curve_y(fit, xs, "smearing", "prediction", float("nan"))

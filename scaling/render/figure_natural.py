@@ -6,10 +6,12 @@ from __future__ import annotations
 import matplotlib
 import numpy as np
 import pandas as pd
+from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter, MaxNLocator
 
+from ..stats.logscale import to_log
 from ..stats.predictions import predict, saved_factor
 from ..stats.schema import method_label
 from .figure_inputs import axis_label, fit_xrange, run_groups, run_methods, scatter_groups
@@ -132,11 +134,35 @@ def _group_factor(result, group: str, method: str, correction: str):
     return saved_factor(saved, correction) if saved is not None else None
 
 
+def _curve_y(fit, xs: np.ndarray, correction: str, interval: str, factor) -> np.ndarray:
+    """The corrected curve of ``fit`` at ``xs``: ``predict(...).y`` without its interval
+    (the same arithmetic: factor * base ** (a + b log_base x)); anything unusual (no log
+    base, no usable factor) goes through :func:`predict`, which says why."""
+    base = fit.log_base
+    cf = None
+    if correction == "none":
+        cf = 1.0 if factor is None else None
+    elif factor is None:
+        cf = getattr(fit, f"{correction}_factor", None)
+    else:
+        cf = factor
+    if base is None or cf is None or not (np.isfinite(cf) and cf > 0):
+        return np.asarray(predict(fit, xs, correction=correction, interval=interval,
+                                  factor=factor).y, float)
+    fitted = fit.intercept + fit.slope * to_log(xs, base)
+    with np.errstate(over="ignore"):
+        return float(cf) * np.power(base, fitted)
+
+
 def _group_curves(ax, result, method, groups, correction, interval, *, small: bool,
                   xs_all: list, ys_all: list) -> list:
     """Each group's own ``method`` curve (no band: they would hide one another) in the
-    group's colour over the group's fitted x range; returns the legend handles."""
-    n = 0
+    group's colour over the group's fitted x range; returns the legend handles.
+
+    Up to :data:`LEGEND_MAX_GROUPS` groups each curve is its own artist (gid
+    ``group-curve:<group>``); more are drawn as one collection (gid ``group-curves``).
+    """
+    segments, colours = [], []
     for i, g in enumerate(groups):
         fit = result.line_fits.get(("group", g, method))
         if fit is None or not getattr(fit, "estimable", True):
@@ -144,15 +170,22 @@ def _group_curves(ax, result, method, groups, correction, interval, *, small: bo
         lo, hi = fit_xrange(fit, result)
         xs = np.linspace(lo, hi, 240)
         xs[0], xs[-1] = lo, hi
-        pred = predict(fit, xs, correction=correction, interval=interval,
-                       factor=_group_factor(result, g, method, correction))
-        ax.plot(xs, pred.y, color=group_style(i)[0], lw=0.9 if small else 1.2,
-                ls=METHOD_DASHES.get(method, "-"), zorder=4, gid=f"group-curve:{g}")
+        y = _curve_y(fit, xs, correction, interval,
+                     _group_factor(result, g, method, correction))
+        segments.append(np.column_stack([xs, y]))
+        colours.append(group_style(i)[0])
         xs_all.append(xs)
-        ys_all.append(np.asarray(pred.y, float))
-        n += 1
-    if not n:
+        ys_all.append(y)
+        if len(groups) <= LEGEND_MAX_GROUPS:
+            ax.plot(xs, y, color=colours[-1], lw=0.9 if small else 1.2,
+                    ls=METHOD_DASHES.get(method, "-"), zorder=4, gid=f"group-curve:{g}")
+    if not segments:
         return []
+    if len(groups) > LEGEND_MAX_GROUPS:   # one artist draws a thousand curves in a blink
+        ax.add_collection(LineCollection(segments, colors=colours,
+                                         linewidths=0.9 if small else 1.2,
+                                         linestyles=METHOD_DASHES.get(method, "-"), zorder=4,
+                                         gid="group-curves"))
     word = str(result.config.data.group or "group")
     return [Line2D([], [], color="#4d4d4d", lw=1.2, ls=METHOD_DASHES.get(method, "-"),
                    label=f"each {word}'s own {method_label(method)} line")]

@@ -30,6 +30,7 @@ from ..render.headline import primary_method as primary_method_of
 from ..stats.group_comparisons import compare_groups
 from ..stats.group_means import compared_groups
 from ..stats.line_results import fit_line
+from ..stats.residual_checks import unique_codes
 from ..stats.lines import METHODS, method_label
 
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run",
@@ -37,8 +38,8 @@ __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
 from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, narrows,
-                               points_to_check, strong_influence, strong_parallel_influence,
-                               verdict_code)
+                               points_to_check, strong_influence, strong_influence_each,
+                               strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
 from .phylo_checks import answer_model_checks, answer_point_rows, point_context
 MAX_LISTED = 5
@@ -206,8 +207,14 @@ def answer_points(cfg, state) -> list:
             if line == "common":
                 return _common_points(cfg, state, pooled, method, hyps)
             if line == "groups":
-                return [p for g, sel in _group_sets(state, method)
-                        for p in _line_points(cfg, state, sel, "group", g, method, hyps)]
+                sets = [(g, sel) for g, sel in _group_sets(state, method)
+                        if np.ptp(sel["log_x"].to_numpy()) > 0]
+                screens = strong_influence_each(
+                    [(sel["log_x"].to_numpy(), sel["log_y"].to_numpy()) for _, sel in sets],
+                    method=method)   # every group's screen in one array pass
+                return [p for (g, sel), inf in zip(sets, screens)
+                        for p in _line_points(cfg, state, sel, "group", g, method, hyps,
+                                              inf=inf)]
             return _line_points(cfg, state, pooled, "pooled", "", method, hyps)
         except ScalingError:
             return []
@@ -265,12 +272,17 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
     return out
 
 
-def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps) -> list:
-    """Strong points of one line (pooled, or a group's when slopes differ), refitted out."""
+def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps,
+                 inf: dict | None = None) -> list:
+    """Strong points of one line (pooled, or a group's when slopes differ), refitted out.
+
+    ``inf``: the line's :func:`scaling.stats.influence.strong_influence`, when the
+    caller has screened many lines at once."""
     X, Y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
     if np.ptp(X) == 0:
         return []
-    inf = strong_influence(X, Y, method=method)
+    if inf is None:
+        inf = strong_influence(X, Y, method=method)
     flagged = np.flatnonzero(inf["flag"])
     flagged = flagged[np.argsort(-inf["cook"][flagged], kind="stable")][:MAX_REFITS]
     if not flagged.size:   # nothing to refit: skip the table look-up (once per group)
@@ -311,11 +323,16 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
     par = strong_parallel_influence(Xs, Ys, gs)
     rank = {int(k): float(par["cook"][k]) for k in np.flatnonzero(par["flag"])}
     own: dict = {}   # point -> its strong finding in its group's own line
-    for g in used:
-        mine = np.flatnonzero(gs == g)
-        if mine.size < 4 or np.ptp(Xs[mine]) == 0:
-            continue
-        inf = strong_influence(Xs[mine], Ys[mine], method=method)
+    # each group's points in row order (one stable sort, not one comparison per group)
+    codes, names = unique_codes(gs)
+    split = np.split(np.argsort(codes, kind="stable"),
+                     np.cumsum(np.bincount(codes, minlength=len(names)))[:-1])
+    where = {str(name): i for i, name in enumerate(names)}
+    members = [(str(g), mine) for g, mine in ((g, split[where[str(g)]]) for g in used)
+               if mine.size >= 4 and np.ptp(Xs[mine]) > 0]
+    screens = strong_influence_each([(Xs[mine], Ys[mine]) for _, mine in members],
+                                    method=method)   # every group in one array pass
+    for (g, mine), inf in zip(members, screens):
         for j in np.flatnonzero(inf["flag"]):
             k = int(mine[j])
             own[k] = ("group", str(g), PointCheck(

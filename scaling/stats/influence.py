@@ -46,13 +46,13 @@ import numpy as np
 from scipy import stats
 
 from ..errors import DataError
-from .lines import METHODS, fit_moments
+from .lines import METHODS, fit_moments, fit_notes, get_method
 from .moments import Moments, moments
 from .residual_checks import MIN_N, _check_alpha, parallel_lines_influence, unique_codes
 from .schema import check_method
 
 __all__ = ["PointCheck", "leave_one_out_slopes", "cooks_distances", "points_to_check",
-           "strong_influence", "fit_checks", "SMEARING_RATIO_LIMIT", "COOK_STRONG",
+           "strong_influence", "strong_influence_each", "fit_checks", "SMEARING_RATIO_LIMIT", "COOK_STRONG",
            "strong_parallel_influence", "verdict_code", "moves_answer", "narrows",
            "NARROWS"]
 
@@ -228,9 +228,15 @@ def leave_one_out_slopes(log_x, log_y, *, method: str = "ols") -> np.ndarray:
                    mean_y=m.mean_y[..., None] - f / (n - 1),
                    sxx=m.sxx[..., None] - k * d * d, syy=m.syy[..., None] - k * f * f,
                    sxy=m.sxy[..., None] - k * d * f)
+    return _slopes(down, method)
+
+
+def _slopes(m: Moments, method: str) -> np.ndarray:
+    """``fit_moments(m, method)["slope"]`` without the intervals (the same floats)."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return np.asarray(fit_moments(down, method)["slope"], dtype=float)
+        b = np.asarray(get_method(method).slope(m), dtype=float)
+    return np.where(fit_notes(m, method).reshape(np.shape(m.n)) != "", np.nan, b)
 
 
 def strong_influence(log_x, log_y, *, method: str = "ols") -> dict:
@@ -258,6 +264,84 @@ def strong_influence(log_x, log_y, *, method: str = "ols") -> dict:
         # exact fits (se = 0; D is rounding noise) are never flagged
         flag = ((cook > COOK_STRONG) | moved) & (se[..., None] > 0)
     return {"flag": flag, "cook": cook, "slope_without": loo, "slope": b, "slope_se": se}
+
+
+def strong_influence_each(samples, *, method: str = "ols") -> list:
+    """:func:`strong_influence` of many samples of different sizes, in one array pass.
+
+    Parameters
+    ----------
+    samples : sequence of (log_x, log_y)
+        One-dimensional samples, each of at least :data:`MIN_N` points.
+    method : str
+
+    Returns
+    -------
+    list of dict
+        One per sample, the same numbers :func:`strong_influence` gives it.
+
+    Notes
+    -----
+    The samples are laid end to end and every sum is a segmented reduction
+    (``np.add.reduceat``) over segments each led by a zero, which adds each
+    segment in the order :func:`numpy.sum` adds the sample alone, so the
+    floats are the same.
+    """
+    method = check_method(method, METHODS)
+    pairs = [_xy(x, y, "influence") for x, y in samples]
+    if any(X.ndim != 1 for X, _ in pairs):
+        raise DataError("each sample must be one-dimensional")
+    if not pairs:
+        return []
+    sizes = np.array([X.size for X, _ in pairs])
+    starts = np.concatenate(([0], np.cumsum(sizes)[:-1]))
+    X = np.concatenate([X for X, _ in pairs])
+    Y = np.concatenate([Y for _, Y in pairs])
+    n = sizes.astype(float)
+
+    each = np.repeat(np.arange(sizes.size), sizes)
+    # each segment led by a zero: reduceat then adds 0 + (the segment's pairwise sum),
+    # numpy.sum's order (without it, the first element is added last)
+    slots = np.arange(X.size) + each + 1
+    heads = starts + np.arange(sizes.size)
+
+    def total(v):
+        padded = np.zeros(v.size + sizes.size)
+        padded[slots] = v
+        return np.add.reduceat(padded, heads)
+
+    mx, my = total(X) / n, total(Y) / n
+    d, f = X - mx[each], Y - my[each]
+    sxx, syy, sxy = total(d * d), total(f * f), total(d * f)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        # the whole fits one sample at a time, on scalars as strong_influence has them:
+        # numpy squares a scalar with pow() and an array by multiplying, which can
+        # differ in the last digit (SMA, MA)
+        full = [fit_moments(Moments(n=np.full((), n[i]), mean_x=mx[i], mean_y=my[i],
+                                    sxx=sxx[i], syy=syy[i], sxy=sxy[i]), method)
+                for i in range(sizes.size)]
+        # leave one out (the algebra of leave_one_out_slopes)
+        ne, k = n[each], (n / (n - 1))[each]
+        down = Moments(n=ne - 1.0, mean_x=mx[each] - d / (ne - 1), mean_y=my[each] - f / (ne - 1),
+                       sxx=sxx[each] - k * d * d, syy=syy[each] - k * f * f,
+                       sxy=sxy[each] - k * d * f)
+        loo = _slopes(down, method)
+    b = np.array([float(w["slope"]) for w in full])
+    se = np.array([float(w["slope_se"]) for w in full])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # Cook's distances (the algebra of cooks_distances)
+        slope = (sxy / sxx)[each]
+        e = f - slope * d
+        s2 = (total(e * e) / (n - 2))[each]
+        h = 1.0 / ne + d * d / sxx[each]
+        cook = e * e * h / (2 * s2 * (1 - h) ** 2)
+        moved = np.abs(loo - b[each]) > se[each]
+        flag = ((cook > COOK_STRONG) | moved) & (se[each] > 0)
+    return [{"flag": flag[a:a + m], "cook": cook[a:a + m], "slope_without": loo[a:a + m],
+             "slope": np.asarray(full[i]["slope"], float),
+             "slope_se": np.asarray(full[i]["slope_se"], float)}
+            for i, (a, m) in enumerate(zip(starts.tolist(), sizes.tolist()))]
 
 
 def fit_checks(*, smearing_factor: float | None = None,

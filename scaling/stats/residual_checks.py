@@ -456,14 +456,20 @@ def unique_codes(values) -> tuple:
     """(codes, labels): ``np.unique(values.astype(str), return_inverse=True)`` reversed,
     through one hash pass (sorting a million strings costs about a second; only the
     distinct labels are sorted here)."""
-    text = np.asarray(values).astype(str)
+    values = np.asarray(values)
+    if values.dtype == object and pd.api.types.infer_dtype(values, skipna=False) == "string":
+        # already text: hash the objects; only the distinct labels become a numpy str array
+        text = values
+    else:
+        text = values.astype(str)
     if not text.size:
         return np.zeros(0, dtype=np.intp), text
     first, uniq = pd.factorize(text)
+    uniq = np.asarray(uniq).astype(str)
     order = np.argsort(uniq, kind="stable")
     rank = np.empty(order.size, dtype=np.intp)
     rank[order] = np.arange(order.size)
-    return rank[first], np.asarray(uniq[order], dtype=text.dtype)
+    return rank[first], uniq[order]
 
 
 def _within(A: np.ndarray, codes: np.ndarray, n_groups: int) -> np.ndarray:
@@ -712,7 +718,10 @@ def _constant_variance(resid, X, het_breuschpagan, alpha) -> Check:
     flagged = bool(p_bp < alpha)
     trend = 0
     if flagged:
-        trend = 1 if np.polyfit(X, resid ** 2, 1)[0] > 0 else -1
+        # the sign of the OLS slope of e^2 on X is the sign of their centred cross
+        # product (a significant test puts it far from rounding's zero)
+        xc = X - X.mean()
+        trend = 1 if np.dot(xc, resid ** 2) > 0 else -1
     return Check(check="constant_variance", test="Breusch-Pagan", statistic=lm, df=1.0,
                  p_value=p_bp, estimate=math.nan, flagged=flagged, finding=_finding(flagged),
                  direction=trend)
