@@ -28,7 +28,8 @@ from .answer import headline_of
 from .figure_kinds import FIGURES
 from . import report_parts   # its TABLE_MAX_ROWS is the one cap, read when a report is built
 from .report_parts import (ITEMS_MAX, Block, Section, _bounded,  # noqa: F401
-                           _headline_section, _interval_text, _manifest_section, _num)
+                           _headline_section, _interval_text, _manifest_section, _num,
+                           _summary_section)
 from .prediction_words import extrapolation_words, prediction_notes
 from .wording import (CAUTION, ancestry_caution, unit_text, clean_timestamp, dose_caution, exponent_label,
                       at_floor, calibrated_p_text, dose_scaling_applies, format_p, mechanism_applies,
@@ -302,12 +303,9 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
     head = headline_of(result)
     sections.append(_headline_section(head))
     # the per-method exponent-test bullets are replaced by the one exponent table
-    messages = tuple(m.strip() for m in result.messages if not m.startswith("  The "))
-    summary = [Block(kind="ul", items=messages)] if messages else []
-    if result.warnings:
-        summary.append(Block(kind="p", text="Points to check:"))
-        summary.append(Block(kind="ul", items=tuple(result.warnings)))
-    sections.append(Section(title="Summary", blocks=summary, anchor="summary"))
+    sections.append(_summary_section(
+        tuple(m.strip() for m in result.messages if not m.startswith("  The ")),
+        result.warnings))
     sections.append(_data_section(result))
     sections.append(Section(title="Figures", anchor="figures",
                             blocks=_figure_blocks(result, folder, written)))

@@ -73,6 +73,15 @@ def _interval_text(lo, hi, gap_low=np.nan, gap_high=np.nan) -> str:
     return f"{_num(float(lo), 4)} to {_num(float(hi), 4)}"
 
 
+def _summary_section(messages: tuple, warnings) -> Section:
+    """The run's findings as a list, then its points to check."""
+    blocks = [Block(kind="ul", items=tuple(messages))] if messages else []
+    if warnings:
+        blocks.append(Block(kind="p", text="Points to check:"))
+        blocks.append(Block(kind="ul", items=tuple(warnings)))
+    return Section(title="Summary", blocks=blocks, anchor="summary")
+
+
 def _headline_section(head) -> Section:
     """The answer first: at most three sentences, then the per-group verdicts."""
     blocks = [Block(kind="p", text=" ".join(head.sentences))]

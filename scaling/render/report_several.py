@@ -23,7 +23,7 @@ from .answer_several import partial_model, several_group_sentences
 from .answer import headline_of
 from . import report_parts   # its TABLE_MAX_ROWS is read when a report is built
 from .report_parts import (Block, Section, _bounded, _headline_section,
-                           _interval_text, _manifest_section)
+                           _interval_text, _manifest_section, _summary_section)
 from .wording import (CAUTION, dose_caution, mechanism_applies, mechanism_caution, medians_vs_means,
                       predicted_unit)
 
@@ -156,11 +156,8 @@ def build_several_report(result, folder: Path | None = None, written=()) -> list
               if not str(k).startswith("_") and isinstance(v, pd.DataFrame)}
     head = headline_of(result)
     sections = [_headline_section(head)]
-    summary = [Block(kind="ul", items=tuple(m.strip() for m in result.messages))]
-    if result.warnings:
-        summary.append(Block(kind="p", text="Points to check:"))
-        summary.append(Block(kind="ul", items=tuple(result.warnings)))
-    sections.append(Section(title="Summary", blocks=summary, anchor="summary"))
+    sections.append(_summary_section(tuple(m.strip() for m in result.messages),
+                                     result.warnings))
     sections.append(_data_section(result))
     sections.append(Section(title="Figures", anchor="figures",
                             blocks=_figure_blocks(result, folder, written)))
