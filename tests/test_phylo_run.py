@@ -286,6 +286,18 @@ class TestPhysiologyExample:
         assert "Not yet phylogenetic" in text
         assert "Phylogenetic group comparisons (SMA" in text
 
+    def test_exponents_figure_leads_with_the_phylogenetic_answer(self, physiology):
+        from scaling.render.figure_exponents import plot_exponents
+        ax = plot_exponents(physiology, methods=["sma"])
+        first = ax.get_yticklabels()[0]
+        assert first.get_text().replace("\n", " ") == "Phylogenetic common slope within clades"
+        assert first.get_fontweight() == "bold"
+        row = physiology.fits.query("scope == 'phylo_common' and method == 'sma'").iloc[0]
+        bars = [tuple(ln.get_xdata()) for ln in ax.lines
+                if len(ln.get_xdata()) == 2 and abs(ln.get_ydata()[0]) < 0.5]
+        # internal consistency: the first row's bar is the interval of fits.csv
+        assert bars and np.allclose(bars[0], (row["slope_low"], row["slope_high"]))
+
     def test_group_tests_have_phylogenetic_rows_beside_the_ordinary_ones(self, physiology):
         res = physiology
         gt = res.tables["group_tests"]

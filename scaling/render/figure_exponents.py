@@ -176,7 +176,7 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
                 bbox=dict(boxstyle="square,pad=0.1", facecolor="white", edgecolor="none"))
     ax.set_yticks(range(len(rows)))
     labels = ax.set_yticklabels([textwrap.fill(r[0], 22) for r in rows])
-    if rows and rows[0][1] == "common":   # the answer, first and in bold
+    if rows and rows[0][1] in ("common", "phylo_common"):   # the answer, first and in bold
         labels[0].set_fontweight("bold")
     ax.tick_params(axis="y", length=0)
     ax.spines["left"].set_visible(False)
