@@ -125,7 +125,7 @@ class TestSeveralPredictorReport:
         for png in pngs:
             data = base64.b64encode(png.read_bytes()).decode("ascii")
             assert sum(src.endswith(data) for src in page.images) == 1, png.name
-        assert len(page.images) == len(pngs)   # nothing else: no one-predictor figures
+        assert len(page.images) == len(pngs)   # exact: nothing else, no one-predictor figures
 
     def test_no_python_repr_reaches_the_page(self, request, which):
         _, page = self._get(request, which)
@@ -148,6 +148,7 @@ class TestSeveralPredictorReport:
         assert len(shown) == len(csv)
         for (_, s), (_, c) in zip(shown.iterrows(), csv.iterrows()):
             assert (s["term"], s["hypothesis"]) == (c["term"], c["hypothesis"])
+            # internal consistency: the page's p is slope_tests.csv's, to the printed digits
             assert _same_p(s["p_value"], float(c["p_value"]))
         table = _as_frame(page.tables["exponent tests"])
         n_checked = 0
@@ -157,6 +158,7 @@ class TestSeveralPredictorReport:
                       & (csv["term"] == r["term"]) & (csv["hypothesis"] == "cylinder")]
             m = re.search(r"p (= |< |≤ )([0-9.e-]+)", r["vs cylinder"])
             assert m and len(row) == 1
+            # internal consistency: each cell of the exponent table is its own test's p
             assert _same_p(m.group(1).strip("= ") + m.group(2), float(row["p_value"].iloc[0]))
             n_checked += 1
         assert n_checked == len(csv)
@@ -164,6 +166,7 @@ class TestSeveralPredictorReport:
         shown = _as_frame(page.tables["diagnostics"])
         for (_, s), (_, c) in zip(shown.iterrows(), diag.iterrows()):
             if c["p_value"] != "":
+                # internal consistency: the page's p is diagnostics.csv's
                 assert _same_p(s["p_value"], float(c["p_value"]))
 
     def test_diagnostics_list_collinearity(self, request, which):
@@ -174,6 +177,7 @@ class TestSeveralPredictorReport:
         assert list(dict.fromkeys(diag["scope"])) == scopes
         for scope in scopes:
             d = diag[diag["scope"] == scope]
+            # exact by construction: one VIF per predictor, one condition number per model
             assert list(d.loc[d["test"] == "VIF", "term"]) == ["diameter_cm", "height_m"]
             assert (d["test"] == "condition number").sum() == 1
         assert set(diag["check"]) == {"normality", "constant_variance", "curvature",
@@ -187,6 +191,7 @@ class TestGroupedReport:
         shown = _as_frame(page.tables["group_tests"])
         assert list(shown["test"]) == ["slopes_equal", "intercepts_equal"]
         for (_, s), (_, c) in zip(shown.iterrows(), csv.iterrows()):
+            # internal consistency: the page's p is group_tests.csv's
             assert _same_p(s["p_value"], float(c["p_value"]))
 
     def test_answer_has_three_sentences_on_common_exponents(self, grouped):
@@ -198,6 +203,9 @@ class TestGroupedReport:
         common = fits[fits["scope"] == "common"]
         assert list(common["term"]) == ["diameter_cm", "height_m"]
         for b in common["slope"]:
+            # internal consistency: the Answer states fits.csv's common exponents
+            # (their values against statsmodels: tests/test_several_groups.py)
             assert f"{b:.3f}" in answer
         groups = fits[fits["scope"] == "group"]
+        # the species groups written by demo_data/make_forestry.py (invented demo data)
         assert sorted(set(groups["group"])) == ["ash", "beech", "maple", "oak"]
