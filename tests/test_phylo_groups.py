@@ -26,24 +26,13 @@ from scaling.stats.phylogeny import tree_covariance
 dendropy = pytest.importorskip("dendropy")
 sm = pytest.importorskip("statsmodels.api")
 
+from helpers_trees import dendropy_cov as _dendropy_cov, random_newick as _random_newick  # noqa: E402
+
 TESTS = ["slopes_equal", "intercepts_equal", "shift_along_axis"]
 
 
 # --------------------------------------------------------------------------
 # trees
-
-
-def _random_newick(names, rng, *, polytomy=0.3):
-    """Random rooted tree: splits into 2 parts, or 3 (a polytomy) with prob ``polytomy``;
-    branch lengths uniform on (0.05, 1): tips end at different heights."""
-    def build(part):
-        if len(part) == 1:
-            return f"{part[0]}:{rng.uniform(0.05, 1):.6f}"
-        k = 3 if (len(part) >= 3 and rng.random() < polytomy) else 2
-        cuts = np.sort(rng.choice(np.arange(1, len(part)), size=k - 1, replace=False))
-        kids = [build(p) for p in np.split(np.asarray(part), cuts)]
-        return "(" + ",".join(kids) + f"):{rng.uniform(0.05, 1):.6f}"
-    return build(list(names)).rsplit(":", 1)[0] + ";"
 
 
 def _ultrametric_clades(sizes, rng, *, stem=0.5, shared=0.2):
@@ -69,18 +58,6 @@ def _ultrametric_clades(sizes, rng, *, stem=0.5, shared=0.2):
         clades.append(build(part, 1.0 - (shared if c < 2 else 0.0), h=1 - stem))
     clades = [f"({clades[0]},{clades[1]}):{shared!r}"] + clades[2:]
     return "(" + ",".join(clades) + ");", names, np.asarray(labels)
-
-
-def _dendropy_cov(newick, names, lam):
-    """Pagel-lambda covariance from dendropy's patristic distances, rows in ``names`` order."""
-    t = dendropy.Tree.get(data=newick, schema="newick", rooting="force-rooted")
-    pdm = t.phylogenetic_distance_matrix()
-    leaf = {nd.taxon.label: nd for nd in t.leaf_node_iter()}
-    h = np.array([leaf[s].distance_from_root() for s in names])
-    d = np.array([[pdm.patristic_distance(leaf[a].taxon, leaf[b].taxon) if a != b else 0.0
-                   for b in names] for a in names])
-    v = (h[:, None] + h[None, :] - d) / 2
-    return lam * v + (1 - lam) * np.diag(np.diag(v))
 
 
 def _data(n, rng, *, slope=0.75):

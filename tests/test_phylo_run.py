@@ -17,6 +17,7 @@ from scaling.run.pipeline import analyse
 from scaling.render.answer import headline_of
 from scaling.stats.newick import parse_newick
 from scaling.stats.phylogeny import tree_covariance
+from helpers_trees import clade_tree
 
 ROOT = Path(__file__).resolve().parents[1]
 PHYSIOLOGY = ROOT / "configs" / "physiology.yaml"
@@ -381,24 +382,6 @@ class TestCheckReportsTheTree:
         assert "2 of 3 groups are not clades of the tree (a, b)" in out
 
 
-def _clade_newick(sizes, rng):
-    """Monophyletic clades (tips c<clade>s<i>), each a random ultrametric subtree below a
-    stem of length 0.5 from the root; tips at height 1 (simulation with a known truth)."""
-    def build(part, height, h=None):
-        if len(part) == 1:
-            return f"{part[0]}:{height!r}"
-        cut = int(rng.integers(1, len(part)))
-        h = height * rng.uniform(0.2, 0.9) if h is None else h
-        return "(" + build(part[:cut], h) + "," + build(part[cut:], h) + f"):{height - h!r}"
-    names, labels, clades = [], [], []
-    for c, size in enumerate(sizes):
-        part = [f"c{c}s{i}" for i in range(size)]
-        names += part
-        labels += [f"clade{c}"] * size
-        clades.append(build(part, 1.0, h=0.5))
-    return "(" + ",".join(clades) + ");", names, labels
-
-
 def _brownian(newick, names, rng, scale):
     """Brownian motion on the tree (simulation), values in ``names`` order."""
     t = parse_newick(newick)
@@ -429,7 +412,7 @@ class TestChecksFollowThePhylogeneticAnswer:
         # simulation with a known truth: b = 0.75, Brownian x and residuals on a tree of
         # four clades of 10; the species with the largest x gets y divided by 10^0.5
         rng = np.random.default_rng(3)
-        newick, names, labels = _clade_newick([10, 10, 10, 10], rng)
+        newick, names, labels = clade_tree([10, 10, 10, 10], rng)
         X = 1.5 + _brownian(newick, names, rng, 0.8)
         Y = 0.75 * X + _brownian(newick, names, rng, 0.1)
         k = int(np.argmax(X))
