@@ -64,3 +64,18 @@ def demo_run_shared(tmp_path_factory) -> DemoRun:
         code = main(["run", str(DEMO_CONFIG), "--out", str(out)])
     assert DEMO_DATA.read_bytes() == before   # input never modified
     return DemoRun(code=code, out=out, stdout=printed.getvalue())
+
+
+@pytest.fixture(scope="session")
+def penguins():
+    """The Palmer penguins with body mass, flipper and bill length and species (rows with
+    any of them missing dropped), plus their log10 columns lm, lf, lb.  Data: Gorman,
+    Williams & Fraser 2014, PLoS ONE 9:e90081, shipped by the palmerpenguins package
+    (Horst, Hill & Gorman 2020); skipped where the package is absent."""
+    import numpy as np
+    palmerpenguins = pytest.importorskip("palmerpenguins")
+    d = palmerpenguins.load_penguins().dropna(
+        subset=["body_mass_g", "flipper_length_mm", "bill_length_mm", "species"])
+    d = d.reset_index(drop=True)
+    return d.assign(lm=np.log10(d["body_mass_g"]), lf=np.log10(d["flipper_length_mm"]),
+                    lb=np.log10(d["bill_length_mm"]))

@@ -57,15 +57,6 @@ def _log_level(line, at: float) -> float:
 
 
 @pytest.fixture(scope="module")
-def penguins() -> pd.DataFrame:
-    d = palmerpenguins.load_penguins().dropna(
-        subset=["body_mass_g", "flipper_length_mm", "bill_length_mm", "species"])
-    d = d.reset_index(drop=True)
-    return d.assign(lm=np.log10(d["body_mass_g"]), lf=np.log10(d["flipper_length_mm"]),
-                    lb=np.log10(d["bill_length_mm"]))
-
-
-@pytest.fixture(scope="module")
 def penguin_run(penguins, tmp_path_factory):
     return _run(penguins, tmp_path_factory.mktemp("penguins"),
                 ("flipper_length_mm", "bill_length_mm"), "body_mass_g", "species")

@@ -30,15 +30,6 @@ X_NEW = {"flipper_length_mm": NEW["flipper_length_mm"].to_numpy(),
 
 
 @pytest.fixture(scope="module")
-def penguins() -> pd.DataFrame:
-    d = palmerpenguins.load_penguins().dropna(
-        subset=["body_mass_g", "flipper_length_mm", "bill_length_mm", "species"])
-    d = d.reset_index(drop=True)
-    return d.assign(lm=np.log10(d["body_mass_g"]), lf=np.log10(d["flipper_length_mm"]),
-                    lb=np.log10(d["bill_length_mm"]))
-
-
-@pytest.fixture(scope="module")
 def comparison(penguins):
     x = penguins[["flipper_length_mm", "bill_length_mm"]]
     return compare_groups_multi(x, penguins["body_mass_g"], penguins["species"])

@@ -12,7 +12,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import statsmodels.api as sm
 import statsmodels.formula.api as smf
 from numpy.testing import assert_allclose
 from statsmodels.stats.anova import anova_lm
@@ -22,15 +21,6 @@ from scaling.errors import DataError
 from scaling.stats.several_groups import compare_groups_multi, nested_f
 
 palmerpenguins = pytest.importorskip("palmerpenguins")
-
-
-@pytest.fixture(scope="module")
-def penguins() -> pd.DataFrame:
-    d = palmerpenguins.load_penguins().dropna(
-        subset=["body_mass_g", "flipper_length_mm", "bill_length_mm", "species"])
-    d = d.reset_index(drop=True)
-    return d.assign(lm=np.log10(d["body_mass_g"]), lf=np.log10(d["flipper_length_mm"]),
-                    lb=np.log10(d["bill_length_mm"]))
 
 
 @pytest.fixture(scope="module")
