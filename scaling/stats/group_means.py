@@ -320,18 +320,12 @@ def fit_group_means(log_x, log_y, groups, *, method: str, confidence: float = 0.
     statsmodels WLS in the tests).  No weighted SMA or MA with intervals we
     could cite is implemented, so ``weighted=True`` is refused for them.
     """
-    method = check_method(method, METHODS, lower=True)
-    confidence = check_confidence(confidence)
-    base = check_base(log_base)
-    min_n = check_count(min_n, "min_n", 3)
-    if weighted and method != "ols":
-        raise ConfigError(f"weighted=True is available only for method='ols' (weighted least "
-                          f"squares), not {method!r}: no weighted {method.upper()} estimator "
-                          "with valid intervals is implemented")
+    method = check_method(method, METHODS, lower=True)   # named before the data are read
     X, Y = check_logs(log_x, log_y)
     codes, labels = factorize(groups, X.size)
     gm = group_moments(X, Y, codes, n_groups=len(labels))
-    return _fit_means(gm, labels, method, confidence, base, weighted, min_n)
+    return fit_group_means_from_moments(gm, labels, method=method, confidence=confidence,
+                                        log_base=log_base, weighted=weighted, min_n=min_n)
 
 
 def fit_group_means_from_moments(m: Moments, labels, *, method: str,
