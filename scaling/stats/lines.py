@@ -85,7 +85,6 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import lru_cache
 from typing import Callable
 
 import numpy as np
@@ -401,9 +400,10 @@ def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
     return t, df, p
 
 
-@lru_cache(maxsize=8192)
-def _t_quantile(q: float, df: float) -> float:
-    return float(stats.t.ppf(q, df))
+#: (q, df) -> scipy's t quantile, for :func:`t_quantiles` (emptied when it grows past
+#: ``_T_CACHE_MAX`` entries).
+_T_CACHE: dict = {}
+_T_CACHE_MAX = 8192
 
 
 def t_quantiles(q: float, df) -> np.ndarray:
@@ -411,15 +411,25 @@ def t_quantiles(q: float, df) -> np.ndarray:
 
     A run calls the fits of small samples thousands of times (a group at a time,
     a point left out at a time), where scipy's per-call set-up costs more than the
-    quantile; the values are scipy's own.
+    quantile; the values are scipy's own.  The quantiles not yet cached are
+    computed in one array call (scipy's quantile is elementwise: the same values
+    as one call per df).
     """
+    q = float(q)
     df = np.asarray(df, dtype=float)
     values, where = np.unique(df.ravel(), return_inverse=True)   # nan sorts last, once each
-    if values.size > 256:
-        quantiles = stats.t.ppf(q, values)
-    else:
-        quantiles = np.asarray([_t_quantile(float(q), float(d)) for d in values.tolist()],
-                               dtype=float)
+    keys = values.tolist()
+    found = {d: _T_CACHE.get((q, d)) for d in keys}
+    missing = [d for d, v in found.items() if v is None]
+    if missing:
+        computed = np.asarray(stats.t.ppf(q, np.asarray(missing, dtype=float)),
+                              dtype=float).tolist()
+        found.update(zip(missing, computed))
+        if len(_T_CACHE) + len(missing) > _T_CACHE_MAX:
+            _T_CACHE.clear()
+        # A NaN key would never be found again (nan != nan): not cached.
+        _T_CACHE.update(((q, d), v) for d, v in zip(missing, computed) if d == d)
+    quantiles = np.asarray([found[d] for d in keys], dtype=float)
     return quantiles[where].reshape(df.shape)
 
 
