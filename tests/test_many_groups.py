@@ -28,7 +28,7 @@ from scaling.run.state import RunState
 from scaling.stats.line_results import (fit_to_dict, line_fit_from_result,
                                         line_fits_from_result, slope_tests_for)
 from scaling.stats.lines import fit_moments
-from scaling.stats.moments import group_extremes, group_moments, sort_by_group
+from scaling.stats.moments import Moments, group_extremes, group_moments, sort_by_group
 from scaling.stats.robust import deming_moments
 
 MOMENT_METHODS = ("ols", "sma", "ma")
@@ -187,6 +187,41 @@ class TestSlopeTestsFor:
         exact = what.index("exact r=-1")
         t = slope_tests_for(fits["ma"], -0.5)[exact]
         assert t.p_value == 1.0 and t.note == scaling.stats.schema.EXACT_NOTE
+
+    @pytest.mark.parametrize("method", MOMENT_METHODS)
+    def test_equal_each_fits_own_test_on_random_moments(self, method):
+        # internal consistency: moments over six decades of spread and every
+        # correlation, tested against exponents of both signs and 0, bit for bit
+        rng = np.random.default_rng(11)
+        g = 300
+        sxx = rng.uniform(0.5, 2, g) * 10.0 ** rng.integers(-3, 3, g)
+        syy = rng.uniform(0.5, 2, g) * 10.0 ** rng.integers(-3, 3, g)
+        m = Moments(n=rng.integers(3, 40, g).astype(float), mean_x=rng.normal(size=g),
+                    mean_y=rng.normal(size=g), sxx=sxx, syy=syy,
+                    sxy=rng.uniform(-1, 1, g) ** 3 * np.sqrt(sxx * syy))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fits = line_fits_from_result(fit_moments(m, method), m, method, confidence=0.95,
+                                         log_base=10.0)
+            for exponent in (0.75, -0.75, 0.0, 3.0, -4 / 3):
+                for fit, t in zip(fits, slope_tests_for(fits, exponent)):
+                    assert _same_test(t, fit.test_slope(exponent))
+
+    def test_minor_axis_side_of_ma_equals_the_scalar_test_to_the_last_digit(self):
+        # internal consistency: on these moments numpy's scalar x ** 2 (pow) and the
+        # array's x * x differ in the last digit, which moves the MA statistic of a b0
+        # on the minor-axis side; the vectorised tests still equal each fit's own test
+        m = Moments(**{k: np.array([float.fromhex(v), 8.0 if k == "n" else 0.5])
+                       for k, v in (("n", "0x1.0p+3"), ("mean_x", "-0x1.0ca52b681aaadp+1"),
+                                    ("mean_y", "-0x1.e02ef266912c3p-1"),
+                                    ("sxx", "0x1.c42746a3b0640p-1"),
+                                    ("syy", "0x1.22bc5ada61e35p+0"),
+                                    ("sxy", "0x1.b827000b81c9cp-1"))})
+        fits = line_fits_from_result(fit_moments(m, "ma"), m, "ma", confidence=0.95,
+                                     log_base=10.0)
+        for exponent in (-4 / 3, -0.75, 0.0, 1.0):
+            for fit, t in zip(fits, slope_tests_for(fits, exponent)):
+                assert _same_test(t, fit.test_slope(exponent)), exponent
 
     def test_a_mixed_list_keeps_its_order_and_each_fits_own_test(self, edge_fits):
         # internal consistency: Deming, Theil-Sen and one-sample fits take their own test

@@ -107,6 +107,7 @@ __all__ = [
     "fit_moments",
     "fit_notes",
     "slope_test_statistic",
+    "ma_minor_side",
     "parse_log_base",
     "base_label",
     "log_word",
@@ -253,11 +254,25 @@ def _ma_slope_var(m: Moments, b: np.ndarray) -> np.ndarray:
     return (1 + b * b) ** 2 * var_theta
 
 
+def _ma_spreads(m: Moments, b0) -> tuple:
+    """Sums of squares along b0 (va) and across it (vb)."""
+    va = m.syy - 2 * b0 * m.sxy + b0 * b0 * m.sxx
+    vb = m.sxx + 2 * b0 * m.sxy + b0 * b0 * m.syy
+    return va, vb
+
+
+def ma_minor_side(m: Moments, b0) -> np.ndarray:
+    """True where the direction b0 spreads less than its perpendicular (the MA
+    test's minor-axis side, where its statistic is read from the eigenvalues)."""
+    va, vb = _ma_spreads(m, np.asarray(b0, dtype=float))
+    with np.errstate(invalid="ignore"):
+        return np.asarray(va > vb)
+
+
 def _ma_test(m: Moments, b0) -> np.ndarray:
     b0 = np.asarray(b0, dtype=float)
     c = m.sxy * (1 - b0 * b0) + b0 * (m.syy - m.sxx)
-    va = m.syy - 2 * b0 * m.sxy + b0 * b0 * m.sxx
-    vb = m.sxx + 2 * b0 * m.sxy + b0 * b0 * m.syy
+    va, vb = _ma_spreads(m, b0)
     t = _corr_to_t(c, va, vb, m.n)
     # The correlation is zero along the minor axis too.  A b0 whose direction
     # has less spread than its perpendicular (va > vb) lies on the minor-axis
