@@ -18,6 +18,10 @@ shift-to-the-merged-mean update as the second-order sums (the Chan, Golub &
 LeVeque 1983 pairwise update carried to third and fourth order; see
 :func:`merge_moments`), so chunked and partitioned reads give the one-pass
 values up to rounding.
+
+:func:`sort_by_group` puts each group's rows together with one stable sort, and
+:func:`group_extremes` reads every group's smallest and largest value from
+that order in one pass (no scan of the rows per group).
 """
 
 from __future__ import annotations
