@@ -25,14 +25,14 @@ from ..errors import DataError
 from ..render.wording import line_method_messages, pooled_fit_messages
 from ..stats.fit_rows import ESTIMATE_COLUMNS, fit_row
 from ..stats.lines import MIN_N, base_label, fit_moments
-from ..stats.line_results import line_fit_from_result
-from ..stats.moments import group_moments, moments
+from ..stats.line_results import line_fits_from_result, slope_tests_for
+from ..stats.moments import group_extremes, group_moments, moments, sort_by_group
 from ..stats.robust import ROW_METHODS, deming_moments
 from ..stats.schema import FIT_COLUMNS, PHYLO_FIT_COLUMNS, SLOPE_TEST_COLUMNS, is_moment_method
 
 __all__ = ["FitStage", "FitsTable", "fit_stage", "fits_table_stage", "value_range",
            "fit_moment_rows", "row_method_fit", "blank_numbers", "robust_n_boot",
-           "nothing_estimable", "slope_tests", "with_note", "with_ranges"]
+           "nothing_estimable", "slope_tests", "with_note", "with_ranges", "split_by_group"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -115,13 +115,13 @@ def fit_stage(cfg, state) -> FitStage:
         codes, uniques = pd.factorize(pts["group"], sort=True)
         group_names = [str(u) for u in uniques]
         gm = group_moments(X, Y, codes, n_groups=len(group_names))
-        granges = []
-        for i in range(len(group_names)):
-            sel = codes == i
-            granges.append((value_range(pts["x"].to_numpy()[sel]),
-                            value_range(pts["y"].to_numpy()[sel])))
-        # rows of each group, split in one pass (not one scan of the table per group)
-        group_rows = {str(g): sub for g, sub in pts.groupby("group", sort=True)}
+        # One stable sort by group serves the ranges and the split into groups
+        # (no scan of the table per group).
+        order, bounds = sort_by_group(codes, n_groups=len(group_names))
+        x_lo, x_hi = group_extremes(pts["x"].to_numpy(), order, bounds)
+        y_lo, y_hi = group_extremes(pts["y"].to_numpy(), order, bounds)
+        granges = list(zip(zip(x_lo.tolist(), x_hi.tolist()), zip(y_lo.tolist(), y_hi.tolist())))
+        group_rows = split_by_group(pts, order, bounds, group_names)
         for method in cfg.model.methods:
             if is_moment_method(method):
                 new_rows, new_fits = fit_moment_rows("group", group_names, gm, method, cfg,
@@ -143,6 +143,19 @@ def fit_stage(cfg, state) -> FitStage:
                     notes=tuple(notes))
 
 
+def split_by_group(pts: pd.DataFrame, order: np.ndarray, bounds: np.ndarray,
+                   names: list) -> dict:
+    """Each group's rows of ``pts`` as a frame (``name -> DataFrame``).
+
+    One copy of the table sorted by group; each group's frame is a slice of it
+    (the frames ``pts.groupby("group")`` yields: same rows, index and columns).
+    ``order`` and ``bounds`` are those of :func:`scaling.stats.moments.sort_by_group`.
+    """
+    in_order = pts.take(order)
+    return {name: in_order.iloc[a:b] for name, a, b in
+            zip(names, bounds[:-1].tolist(), bounds[1:].tolist())}
+
+
 def fit_moment_rows(scope: str, groups: list, m, method: str, cfg, base, ranges):
     """fits.csv rows and LineFits of a moment method for every group of ``m`` at once.
 
@@ -159,23 +172,27 @@ def fit_moment_rows(scope: str, groups: list, m, method: str, cfg, base, ranges)
         res = deming_moments(m, lam, confidence=cfg.model.confidence)
     else:
         res = fit_moments(m, method, confidence=cfg.model.confidence)
-    rows, fits = [], {}
     notes = fit_notes_column(res)   # the SMA note of two accepted ranges, written out
+    # Each column read out of its array once (python floats, as float(res[k][i]) gives).
+    cols = {k: np.asarray(res[k], dtype=float).reshape(-1).tolist() for k in ESTIMATE_COLUMNS}
+    sizes = np.asarray(m.n).reshape(-1).tolist()
+    shared = {"method": method, "log_base": base_label(base),
+              "confidence": cfg.model.confidence, "interval_method": "analytic",
+              "deming_lambda": lam if method == "deming" else np.nan}
+    rows = []
     for i, name in enumerate(groups):
         x_range, y_range = ranges[i]
-        row = fit_row(scope=scope, group=name, method=method, n=int(m.n[i]),
-                      **{k: float(res[k][i]) for k in ESTIMATE_COLUMNS},
-                      log_base=base_label(base), confidence=cfg.model.confidence,
-                      note=str(notes[i]), x_range=x_range, y_range=y_range,
-                      interval_method="analytic",
-                      deming_lambda=lam if method == "deming" else np.nan)
-        rows.append(row)
-        # Notes on estimable fits (unbounded interval, SMA of either sign,
-        # exact power law) keep the fit.
-        if np.isfinite(row["slope"]):
-            fits[(scope, name, method)] = line_fit_from_result(
-                res, i, m[i], method, confidence=cfg.model.confidence, log_base=base,
-                x_range=x_range, y_range=y_range, lam=lam)
+        rows.append(fit_row(scope=scope, group=name, n=int(sizes[i]),
+                            **{k: cols[k][i] for k in ESTIMATE_COLUMNS}, **shared,
+                            note=str(notes[i]), x_range=x_range, y_range=y_range))
+    # Notes on estimable fits (unbounded interval, SMA of either sign,
+    # exact power law) keep the fit.
+    estimable = np.isfinite(np.asarray(cols["slope"], dtype=float))
+    packaged = line_fits_from_result(res, m, method, confidence=cfg.model.confidence,
+                                     log_base=base, x_ranges=[r[0] for r in ranges],
+                                     y_ranges=[r[1] for r in ranges], lam=lam, keep=estimable)
+    fits = {(scope, name, method): fit for name, fit in zip(groups, packaged)
+            if fit is not None}
     return rows, fits
 
 
@@ -274,11 +291,15 @@ def nothing_estimable(cfg, pts: pd.DataFrame, rows: list, n_dropped: int) -> str
 def slope_tests(line_fits: dict, cfg, *, phylo_fits=None) -> pd.DataFrame:
     """slope_tests.csv: every fit against every hypothesised exponent (phylogenetic
     rows by their PhyloFit, whose PGLS test profiles over lambda)."""
+    keys = list(line_fits)
+    fits = [(phylo_fits or {}).get(method, fit) if scope == "phylo" else fit
+            for (scope, group, method), fit in line_fits.items()]
+    # Every fit against one exponent at a time: one array pass per moment method.
+    tests = [slope_tests_for(fits, b0, hypothesis=name) for name, b0 in cfg.exponents.items()]
     rows = []
-    for (scope, group, method), fit in line_fits.items():
-        fit = (phylo_fits or {}).get(method, fit) if scope == "phylo" else fit
-        for name, b0 in cfg.exponents.items():
-            t = fit.test_slope(b0, hypothesis=name)
+    for k, ((scope, group, method), fit) in enumerate(zip(keys, fits)):
+        for (name, b0), by_fit in zip(cfg.exponents.items(), tests):
+            t = by_fit[k]
             rows.append({"scope": scope, "group": group, "method": method,
                          "hypothesis": name, "exponent": b0, "estimate": fit.slope,
                          "statistic": t.statistic, "statistic_type": t.statistic_type,

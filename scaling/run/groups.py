@@ -19,7 +19,7 @@ from ..stats.group_comparisons import compare_group_moments
 from ..stats.group_means import (compared_groups_from_moments, fit_group_means_from_moments,
                                  group_means_from_moments)
 from ..stats.lines import MIN_N, base_label
-from ..stats.moments import group_moments, moments
+from ..stats.moments import group_extremes, group_moments, moments, sort_by_group
 from ..stats.robust import deming_from_moments
 from ..stats.schema import (GROUP_COMPARISON_METHODS, GROUP_TEST_COLUMNS, PAIRWISE_COLUMNS,
                      is_moment_method)
@@ -68,14 +68,17 @@ def group_stage(cfg, state) -> GroupStage:
     calls with the moments it reads chunk by chunk.
     """
     pts = state.data.points
-    codes, uniques = pd.factorize(pd.Series(pts["group"].to_numpy(dtype=object)), sort=True)
+    group = pts["group"]
+    if not isinstance(group.dtype, pd.StringDtype):
+        group = pd.Series(group.to_numpy(dtype=object))
+    # A text column is factorised as it is: a Series of its objects would infer
+    # the same dtype back, at the cost of two conversions.
+    codes, uniques = pd.factorize(group, sort=True)
     labels = tuple(uniques.tolist())
     g = len(labels)
     X, Y = pts["log_x"].to_numpy(), pts["log_y"].to_numpy()
     m = group_moments(X, Y, codes, n_groups=g)
-    lo, hi = np.full(g, np.inf), np.full(g, -np.inf)
-    np.minimum.at(lo, codes, X)
-    np.maximum.at(hi, codes, X)
+    lo, hi = group_extremes(X, *sort_by_group(codes, n_groups=g))
     n_rows = np.bincount(codes, weights=pts["n_rows"].to_numpy(dtype=float), minlength=g)
     return groups_from_moments(cfg, m, labels, base=state.base, n_rows=n_rows,
                                log_x_range=(lo, hi))

@@ -25,7 +25,7 @@ from ..errors import ConfigError, DataError, DegenerateDataWarning
 from .deming import deming_slope_test
 from .fit_rows import fit_values
 from .lines import (METHOD_INFO, METHODS, exact_fit, exponent_value, fit_moments, get_method,
-                    slope_test_statistic, validate_xy)
+                    ma_minor_side, slope_test_statistic, validate_xy)
 from .logscale import base_label, parse_log_base, to_log
 from .moments import Moments, moments as _moments
 from .predictions import inverse_predict as _inverse_predict, predict as _predict
@@ -39,6 +39,8 @@ __all__ = [
     "fit_line",
     "line_fit_from_moments",
     "line_fit_from_result",
+    "line_fits_from_result",
+    "slope_tests_for",
     "tie_term",
     "DICT_FORMAT",
     "fit_to_dict",
@@ -636,6 +638,127 @@ def line_fit_from_result(res: dict, i, m: Moments, method: str, *, confidence: f
         slope_gap_low=_gap_value(f.get("slope_gap_low")),
         slope_gap_high=_gap_value(f.get("slope_gap_high")),
     )
+
+
+def line_fits_from_result(res: dict, m: Moments, method: str, *, confidence: float,
+                          log_base: float | None, x_ranges=None, y_ranges=None,
+                          lam: float | None = None, keep=None) -> list:
+    """The :class:`LineFit` of every entry of a vectorised :func:`fit_moments` result.
+
+    The same fits as ``line_fit_from_result(res, i, m[i], ...)`` for each ``i``,
+    with each column read out of its array once rather than once per fit.
+
+    Parameters
+    ----------
+    res : dict
+        A vectorised result (1-d arrays) of :func:`~scaling.stats.lines.fit_moments`
+        or :func:`~scaling.stats.robust.deming_moments`.
+    m : Moments
+        The moments ``res`` was fitted to (1-d arrays).
+    x_ranges, y_ranges : sequence of (low, high), optional
+        Each entry's fitted ranges.
+    keep : array_like of bool, optional
+        Package only these entries (default: all).
+
+    Returns
+    -------
+    list
+        A LineFit for each kept entry, None for the others.
+    """
+    size = np.size(m.n)
+    keep = np.ones(size, dtype=bool) if keep is None else np.asarray(keep, dtype=bool)
+    cols = {k: np.asarray(res[k], dtype=float).reshape(-1).tolist() for k in
+            ("slope", "slope_low", "slope_high", "slope_se", "intercept", "intercept_low",
+             "intercept_high", "intercept_se", "r", "r2", "resid_sd", "df")}
+    gaps = [np.broadcast_to(np.asarray(res.get(k, math.nan), dtype=float), (size,)).tolist()
+            for k in ("slope_gap_low", "slope_gap_high")]
+    notes = np.asarray(res["note"], dtype=object).reshape(-1)
+    # Iterating an array gives numpy scalars, as indexing it one entry at a time does.
+    parts = (zip(*(list(getattr(m, k)) for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")))
+             if not m.has_higher else None)
+    out = []
+    for i in range(size):
+        mi = next(parts) if parts is not None else None
+        if not keep[i]:
+            out.append(None)
+            continue
+        if mi is None:
+            mi = m[i]
+        else:
+            mi = Moments(n=mi[0], mean_x=mi[1], mean_y=mi[2], sxx=mi[3], syy=mi[4], sxy=mi[5])
+        out.append(LineFit(
+            method=method, n=int(mi.n),
+            slope=cols["slope"][i],
+            slope_ci=ConfidenceInterval(cols["slope_low"][i], cols["slope_high"][i]),
+            slope_se=cols["slope_se"][i],
+            intercept=cols["intercept"][i],
+            intercept_ci=ConfidenceInterval(cols["intercept_low"][i], cols["intercept_high"][i]),
+            intercept_se=cols["intercept_se"][i],
+            r=cols["r"][i], r2=cols["r2"][i], resid_sd=cols["resid_sd"][i],
+            df=cols["df"][i], log_base=log_base, confidence=confidence, moments=mi,
+            x_range=None if x_ranges is None else x_ranges[i],
+            y_range=None if y_ranges is None else y_ranges[i],
+            note=str(notes[i]), lam=lam,
+            slope_gap_low=_gap_value(gaps[0][i]), slope_gap_high=_gap_value(gaps[1][i]),
+        ))
+    return out
+
+
+def slope_tests_for(fits, exponent, *, hypothesis: str = "") -> list:
+    """Test the slope of many fits against one exponent: ``[f.test_slope(exponent) ...]``.
+
+    The fits of a moment method (OLS, SMA, MA) are tested together, one
+    vectorised :func:`~scaling.stats.lines.slope_test_statistic` (one call of
+    the t distribution) per method; any other fit (Deming, robust lines, a
+    fit that is not estimable, an object that is not a :class:`LineFit`) by
+    its own ``test_slope``.
+
+    Parameters
+    ----------
+    fits : sequence
+        Fits with a ``test_slope`` method.
+    exponent : float or str
+        The hypothesised slope b0 (a number or a fraction such as ``"3/4"``).
+    hypothesis : str
+        Name given to the exponent (default: the exponent as written).
+
+    Returns
+    -------
+    list of SlopeTest
+        In the order of ``fits``, equal to each fit's own ``test_slope``.
+    """
+    fits = list(fits)
+    b0 = exponent_value(exponent)
+    label = hypothesis or (exponent.strip() if isinstance(exponent, str) else f"{b0:g}")
+    out: list = [None] * len(fits)
+    by_method: dict = {}
+    for i, fit in enumerate(fits):
+        if type(fit) is LineFit and fit.method in METHODS and fit.estimable:
+            by_method.setdefault(fit.method, []).append(i)
+    for method, idx in by_method.items():
+        stacked = Moments(**{k: np.array([getattr(fits[i].moments, k) for i in idx],
+                                         dtype=float)
+                             for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
+        t, df, p = (np.asarray(v, dtype=float).tolist() for v in np.broadcast_arrays(
+            *slope_test_statistic(stacked, method, b0)))
+        exact = exact_fit(stacked).tolist()
+        # On the minor-axis side the MA statistic squares with ``**``, which numpy
+        # computes with pow() for a scalar (a fit's own moments) and by multiplying
+        # for an array; the two can differ in the last digit, so those fits take
+        # their own test.
+        own = (ma_minor_side(stacked, b0).tolist() if method == "ma"
+               else [False] * len(idx))
+        for j, i in enumerate(idx):
+            if own[j]:
+                continue
+            out[i] = SlopeTest(method=method, hypothesis=label, exponent=b0,
+                               estimate=fits[i].slope, statistic=t[j], df=df[j], p_value=p[j],
+                               statistic_type="t", p_method="t",
+                               note=EXACT_NOTE if exact[j] else "")
+    for i, fit in enumerate(fits):
+        if out[i] is None:
+            out[i] = fit.test_slope(exponent, hypothesis=hypothesis)
+    return out
 
 
 def _gap_value(v) -> float:

@@ -85,7 +85,6 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import lru_cache
 from typing import Callable
 
 import numpy as np
@@ -108,6 +107,7 @@ __all__ = [
     "fit_moments",
     "fit_notes",
     "slope_test_statistic",
+    "ma_minor_side",
     "parse_log_base",
     "base_label",
     "log_word",
@@ -254,11 +254,25 @@ def _ma_slope_var(m: Moments, b: np.ndarray) -> np.ndarray:
     return (1 + b * b) ** 2 * var_theta
 
 
+def _ma_spreads(m: Moments, b0) -> tuple:
+    """Sums of squares along b0 (va) and across it (vb)."""
+    va = m.syy - 2 * b0 * m.sxy + b0 * b0 * m.sxx
+    vb = m.sxx + 2 * b0 * m.sxy + b0 * b0 * m.syy
+    return va, vb
+
+
+def ma_minor_side(m: Moments, b0) -> np.ndarray:
+    """True where the direction b0 spreads less than its perpendicular (the MA
+    test's minor-axis side, where its statistic is read from the eigenvalues)."""
+    va, vb = _ma_spreads(m, np.asarray(b0, dtype=float))
+    with np.errstate(invalid="ignore"):
+        return np.asarray(va > vb)
+
+
 def _ma_test(m: Moments, b0) -> np.ndarray:
     b0 = np.asarray(b0, dtype=float)
     c = m.sxy * (1 - b0 * b0) + b0 * (m.syy - m.sxx)
-    va = m.syy - 2 * b0 * m.sxy + b0 * b0 * m.sxx
-    vb = m.sxx + 2 * b0 * m.sxy + b0 * b0 * m.syy
+    va, vb = _ma_spreads(m, b0)
     t = _corr_to_t(c, va, vb, m.n)
     # The correlation is zero along the minor axis too.  A b0 whose direction
     # has less spread than its perpendicular (va > vb) lies on the minor-axis
@@ -401,9 +415,10 @@ def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
     return t, df, p
 
 
-@lru_cache(maxsize=8192)
-def _t_quantile(q: float, df: float) -> float:
-    return float(stats.t.ppf(q, df))
+#: (q, df) -> scipy's t quantile, for :func:`t_quantiles` (emptied when it grows past
+#: ``_T_CACHE_MAX`` entries).
+_T_CACHE: dict = {}
+_T_CACHE_MAX = 8192
 
 
 def t_quantiles(q: float, df) -> np.ndarray:
@@ -411,15 +426,25 @@ def t_quantiles(q: float, df) -> np.ndarray:
 
     A run calls the fits of small samples thousands of times (a group at a time,
     a point left out at a time), where scipy's per-call set-up costs more than the
-    quantile; the values are scipy's own.
+    quantile; the values are scipy's own.  The quantiles not yet cached are
+    computed in one array call (scipy's quantile is elementwise: the same values
+    as one call per df).
     """
+    q = float(q)
     df = np.asarray(df, dtype=float)
     values, where = np.unique(df.ravel(), return_inverse=True)   # nan sorts last, once each
-    if values.size > 256:
-        quantiles = stats.t.ppf(q, values)
-    else:
-        quantiles = np.asarray([_t_quantile(float(q), float(d)) for d in values.tolist()],
-                               dtype=float)
+    keys = values.tolist()
+    found = {d: _T_CACHE.get((q, d)) for d in keys}
+    missing = [d for d, v in found.items() if v is None]
+    if missing:
+        computed = np.asarray(stats.t.ppf(q, np.asarray(missing, dtype=float)),
+                              dtype=float).tolist()
+        found.update(zip(missing, computed))
+        if len(_T_CACHE) + len(missing) > _T_CACHE_MAX:
+            _T_CACHE.clear()
+        # A NaN key would never be found again (nan != nan): not cached.
+        _T_CACHE.update(((q, d), v) for d, v in zip(missing, computed) if d == d)
+    quantiles = np.asarray([found[d] for d in keys], dtype=float)
     return quantiles[where].reshape(df.shape)
 
 

@@ -18,6 +18,10 @@ shift-to-the-merged-mean update as the second-order sums (the Chan, Golub &
 LeVeque 1983 pairwise update carried to third and fourth order; see
 :func:`merge_moments`), so chunked and partitioned reads give the one-pass
 values up to rounding.
+
+:func:`sort_by_group` puts each group's rows together with one stable sort, and
+:func:`group_extremes` reads every group's smallest and largest value from
+that order in one pass (no scan of the rows per group).
 """
 
 from __future__ import annotations
@@ -27,7 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["Moments", "moments", "group_moments", "weighted_moments", "merge_moments",
-           "combine_moments", "HIGHER_KEYS"]
+           "combine_moments", "HIGHER_KEYS", "sort_by_group", "group_extremes"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -176,6 +180,63 @@ def group_moments(x, y, labels, *, n_groups: int | None = None,
         sxy=np.bincount(labels, weights=dx * dy, minlength=n_groups),
         **extra,
     )
+
+
+def sort_by_group(labels, *, n_groups: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """One stable sort that puts each group's rows together.
+
+    Parameters
+    ----------
+    labels : array_like of int
+        Group index 0..G-1 of each row.
+    n_groups : int, optional
+        G; defaults to ``labels.max() + 1``.
+
+    Returns
+    -------
+    order : ndarray of intp
+        Row positions, group by group; within a group in their original order.
+    bounds : ndarray of intp, shape (G + 1,)
+        The rows of group g are ``order[bounds[g]:bounds[g + 1]]`` (empty
+        when the group has none).
+    """
+    labels = np.asarray(labels, dtype=np.intp)
+    if n_groups is None:
+        n_groups = int(labels.max()) + 1 if labels.size else 0
+    # numpy sorts 16-bit keys by radix sort (linear); a stable sort gives the
+    # same order whatever the key type.
+    keys = labels.astype(np.int16) if n_groups <= np.iinfo(np.int16).max else labels
+    order = np.argsort(keys, kind="stable")
+    bounds = np.zeros(n_groups + 1, dtype=np.intp)
+    np.cumsum(np.bincount(labels, minlength=n_groups), out=bounds[1:])
+    return order, bounds
+
+
+def group_extremes(values, order, bounds) -> tuple[np.ndarray, np.ndarray]:
+    """Smallest and largest value of each group, in one pass over the sorted rows.
+
+    Parameters
+    ----------
+    values : array_like, shape (rows,)
+    order, bounds : ndarray
+        From :func:`sort_by_group`.
+
+    Returns
+    -------
+    low, high : ndarray, shape (G,)
+        ``min`` and ``max`` of each group's values (NaN if one is NaN);
+        ``+inf`` and ``-inf`` for an empty group.
+    """
+    v = np.asarray(values, dtype=float)[order]
+    n_groups = bounds.size - 1
+    low, high = np.full(n_groups, np.inf), np.full(n_groups, -np.inf)
+    filled = bounds[1:] > bounds[:-1]
+    # Empty groups have no segment: each start of a filled group runs to the next one.
+    starts = bounds[:-1][filled]
+    if starts.size:
+        low[filled] = np.minimum.reduceat(v, starts)
+        high[filled] = np.maximum.reduceat(v, starts)
+    return low, high
 
 
 def weighted_moments(x, y, weights) -> Moments:

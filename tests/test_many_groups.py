@@ -1,0 +1,321 @@
+"""Passes over many groups at once give what one group at a time gives.
+
+The run fits, ranges and tests every group of a table in array passes
+(:func:`scaling.stats.moments.sort_by_group`, :func:`group_extremes`,
+:func:`scaling.stats.line_results.line_fits_from_result`, :func:`slope_tests_for`).
+Each is checked here against the per-group computation it replaces, value for
+value (internal consistency, exact equality of floats), on the edge cases:
+n = 3, points on an exact line (r = +1 and r = -1), hypothesised exponents of
+the other sign and 0, intervals that are unbounded or of both signs, fits that
+are not estimable, one point per group and groups of one repeated x.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from pandas.testing import assert_frame_equal
+
+import scaling
+from scaling.io.config import config_from_dict
+from scaling.run.fits import fit_stage, slope_tests
+from scaling.run.reading import read_stage
+from scaling.run.state import RunState
+from scaling.stats.line_results import (fit_to_dict, line_fit_from_result,
+                                        line_fits_from_result, slope_tests_for)
+from scaling.stats.lines import fit_moments
+from scaling.stats.moments import Moments, group_extremes, group_moments, sort_by_group
+from scaling.stats.robust import deming_moments
+
+MOMENT_METHODS = ("ols", "sma", "ma")
+#: Hypothesised exponents: the usual ones, 0, of the other sign, on the minor-axis
+#: side of a slope near 0.75 (-4/3), the exact slopes below (0.75, -0.5), a fraction.
+EXPONENTS = (0.75, 2 / 3, 1.0, 3.0, 0.0, -0.75, -0.5, -4 / 3, "3/4")
+
+
+def _same_float(a, b) -> bool:
+    a, b = float(a), float(b)
+    if math.isnan(a) or math.isnan(b):
+        return math.isnan(a) and math.isnan(b)
+    return a == b and math.copysign(1.0, a) == math.copysign(1.0, b)
+
+
+def _same_test(a, b) -> bool:
+    numbers = ("exponent", "estimate", "statistic", "df", "p_value")
+    words = ("method", "hypothesis", "statistic_type", "p_method", "note")
+    return (all(_same_float(getattr(a, k), getattr(b, k)) for k in numbers)
+            and all(getattr(a, k) == getattr(b, k) for k in words))
+
+
+def _edge_moments():
+    """Moments of groups covering the edge cases, and what each group is."""
+    rng = np.random.default_rng(20)
+    xs, ys, what = [], [], []
+
+    def add(x, y, name):
+        xs.append(np.asarray(x, dtype=float))
+        ys.append(np.asarray(y, dtype=float))
+        what.append(name)
+
+    for n in (3, 4, 5, 8, 30):
+        for rho in (0.98, 0.6, 0.2, 0.02, -0.3, -0.9):
+            x = rng.normal(1.0, 0.5, n)
+            y = 0.75 * x * np.sign(rho) + rng.normal(0, 0.5 * math.sqrt(1 / rho ** 2 - 1), n)
+            add(x, y, f"n={n} rho={rho}")
+    x = np.linspace(0.0, 2.0, 6)
+    add(x, 0.75 * x + 0.2, "exact r=+1")
+    add(x, -0.5 * x + 1.0, "exact r=-1")
+    add(np.array([0.0, 1.0, 2.0]), np.array([0.0, 0.75, 1.5]), "exact n=3")
+    add(np.array([0.5, 1.5]), np.array([1.0, 2.0]), "n=2: not estimable")
+    add(np.full(5, 1.3), rng.normal(0, 1, 5), "constant x: not estimable")
+    add(rng.normal(0, 1, 5), np.full(5, 0.4), "constant y: not estimable")
+    add(np.array([0.0, 1.0, 2.0, 3.0]), np.array([1.0, 0.0, 0.0, 1.0]),
+        "uncorrelated: SMA and MA not estimable")
+    labels = np.concatenate([np.full(x.size, i) for i, x in enumerate(xs)])
+    m = group_moments(np.concatenate(xs), np.concatenate(ys), labels, n_groups=len(xs))
+    return m, what
+
+
+@pytest.fixture(scope="module")
+def edge_fits():
+    """Every moment method's LineFit of every edge group (estimable or not)."""
+    m, what = _edge_moments()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        out = {method: line_fits_from_result(fit_moments(m, method), m, method,
+                                             confidence=0.95, log_base=10.0)
+               for method in MOMENT_METHODS}
+    return out, what
+
+
+class TestSortByGroup:
+    def test_rows_of_each_group_in_their_original_order(self):
+        # internal consistency: the rows of group g are np.flatnonzero(labels == g)
+        rng = np.random.default_rng(1)
+        labels = rng.integers(0, 7, 200)
+        labels[labels == 4] = 5   # group 4 empty
+        order, bounds = sort_by_group(labels, n_groups=9)   # 7, 8 empty too
+        assert bounds.tolist()[0] == 0 and bounds[-1] == labels.size
+        for g in range(9):
+            assert order[bounds[g]:bounds[g + 1]].tolist() == np.flatnonzero(labels == g).tolist()
+
+    def test_many_groups_sort_the_same_as_few(self):
+        # internal consistency: more groups than 16-bit keys hold take the general sort
+        rng = np.random.default_rng(2)
+        labels = rng.integers(0, 40_000, 100_000)
+        order, bounds = sort_by_group(labels)
+        assert np.array_equal(order, np.argsort(labels, kind="stable"))
+        assert np.array_equal(np.diff(bounds), np.bincount(labels, minlength=40_000))
+
+    def test_no_rows(self):
+        order, bounds = sort_by_group(np.array([], dtype=int), n_groups=2)
+        assert order.size == 0 and bounds.tolist() == [0, 0, 0]
+
+
+class TestGroupExtremes:
+    def test_equal_the_minimum_and_maximum_of_each_group(self):
+        # exact law: the extremes of each group's values (numpy min and max per group)
+        rng = np.random.default_rng(3)
+        labels = np.concatenate([rng.integers(0, 50, 2000), [50], [51, 51, 51]])
+        values = np.concatenate([rng.lognormal(0, 2, 2000), [7.5], [0.3, 0.3, 0.3]])
+        low, high = group_extremes(values, *sort_by_group(labels, n_groups=53))
+        for g in range(52):
+            sel = values[labels == g]
+            assert low[g] == np.min(sel) and high[g] == np.max(sel)
+        assert (low[50], high[50]) == (7.5, 7.5)   # one point
+        assert (low[51], high[51]) == (0.3, 0.3)   # one repeated x
+        assert (low[52], high[52]) == (np.inf, -np.inf)   # no rows
+
+    def test_nan_is_the_extreme_of_its_group(self):
+        # common practice, no source: numpy's min and max propagate NaN
+        low, high = group_extremes([1.0, np.nan, 2.0, 3.0],
+                                   *sort_by_group(np.array([0, 0, 1, 1])))
+        assert np.isnan(low[0]) and np.isnan(high[0]) and (low[1], high[1]) == (2.0, 3.0)
+
+
+class TestLineFitsFromResult:
+    @pytest.mark.parametrize("method", MOMENT_METHODS + ("deming",))
+    def test_equal_the_fits_packaged_one_at_a_time(self, method):
+        # internal consistency: every entry equals line_fit_from_result(res, i, m[i])
+        m, what = _edge_moments()
+        ranges = [((i + 1.0, i + 2.0), (i + 3.0, i + 4.0)) for i in range(len(what))]
+        lam = 2.0 if method == "deming" else None
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = (deming_moments(m, lam) if method == "deming"
+                   else fit_moments(m, method))
+        keep = np.arange(len(what)) % 3 != 1
+        fits = line_fits_from_result(res, m, method, confidence=0.95, log_base=10.0,
+                                     x_ranges=[r[0] for r in ranges],
+                                     y_ranges=[r[1] for r in ranges], lam=lam, keep=keep)
+        for i, name in enumerate(what):
+            if not keep[i]:
+                assert fits[i] is None
+                continue
+            one = line_fit_from_result(res, i, m[i], method, confidence=0.95, log_base=10.0,
+                                       x_range=ranges[i][0], y_range=ranges[i][1], lam=lam)
+            assert fit_to_dict(fits[i]) == fit_to_dict(one), name
+            assert fits[i].note == one.note, name
+            for k in ("n", "mean_x", "sxy"):
+                assert type(getattr(fits[i].moments, k)) is type(getattr(one.moments, k))
+
+
+class TestSlopeTestsFor:
+    @pytest.mark.parametrize("method", MOMENT_METHODS)
+    @pytest.mark.parametrize("exponent", EXPONENTS)
+    def test_equal_each_fits_own_test(self, edge_fits, method, exponent):
+        # internal consistency: the vectorised tests equal LineFit.test_slope bit for bit
+        fits, what = edge_fits
+        got = slope_tests_for(fits[method], exponent, hypothesis="h")
+        assert len(got) == len(what)
+        for fit, t, name in zip(fits[method], got, what):
+            assert _same_test(t, fit.test_slope(exponent, hypothesis="h")), name
+
+    def test_the_edge_cases_are_there(self, edge_fits):
+        # the cases the equality above is meant to cover do occur
+        fits, what = edge_fits
+        notes = {f.note for method in MOMENT_METHODS for f in fits[method]}
+        assert "slope interval unbounded (correlation too weak)" in notes
+        assert scaling.stats.schema.BOTH_SIGNS_NOTE in notes
+        assert scaling.stats.schema.EXACT_NOTE in notes
+        assert any(not f.estimable for f in fits["ols"])
+        assert any(f.slope < 0 for f in fits["sma"] if f.estimable)
+        exact = what.index("exact r=-1")
+        t = slope_tests_for(fits["ma"], -0.5)[exact]
+        assert t.p_value == 1.0 and t.note == scaling.stats.schema.EXACT_NOTE
+
+    @pytest.mark.parametrize("method", MOMENT_METHODS)
+    def test_equal_each_fits_own_test_on_random_moments(self, method):
+        # internal consistency: moments over six decades of spread and every
+        # correlation, tested against exponents of both signs and 0, bit for bit
+        rng = np.random.default_rng(11)
+        g = 300
+        sxx = rng.uniform(0.5, 2, g) * 10.0 ** rng.integers(-3, 3, g)
+        syy = rng.uniform(0.5, 2, g) * 10.0 ** rng.integers(-3, 3, g)
+        m = Moments(n=rng.integers(3, 40, g).astype(float), mean_x=rng.normal(size=g),
+                    mean_y=rng.normal(size=g), sxx=sxx, syy=syy,
+                    sxy=rng.uniform(-1, 1, g) ** 3 * np.sqrt(sxx * syy))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fits = line_fits_from_result(fit_moments(m, method), m, method, confidence=0.95,
+                                         log_base=10.0)
+            for exponent in (0.75, -0.75, 0.0, 3.0, -4 / 3):
+                for fit, t in zip(fits, slope_tests_for(fits, exponent)):
+                    assert _same_test(t, fit.test_slope(exponent))
+
+    def test_minor_axis_side_of_ma_equals_the_scalar_test_to_the_last_digit(self):
+        # internal consistency: on these moments numpy's scalar x ** 2 (pow) and the
+        # array's x * x differ in the last digit, which moves the MA statistic of a b0
+        # on the minor-axis side; the vectorised tests still equal each fit's own test
+        m = Moments(**{k: np.array([float.fromhex(v), 8.0 if k == "n" else 0.5])
+                       for k, v in (("n", "0x1.0p+3"), ("mean_x", "-0x1.0ca52b681aaadp+1"),
+                                    ("mean_y", "-0x1.e02ef266912c3p-1"),
+                                    ("sxx", "0x1.c42746a3b0640p-1"),
+                                    ("syy", "0x1.22bc5ada61e35p+0"),
+                                    ("sxy", "0x1.b827000b81c9cp-1"))})
+        fits = line_fits_from_result(fit_moments(m, "ma"), m, "ma", confidence=0.95,
+                                     log_base=10.0)
+        for exponent in (-4 / 3, -0.75, 0.0, 1.0):
+            for fit, t in zip(fits, slope_tests_for(fits, exponent)):
+                assert _same_test(t, fit.test_slope(exponent)), exponent
+
+    def test_a_mixed_list_keeps_its_order_and_each_fits_own_test(self, edge_fits):
+        # internal consistency: Deming, Theil-Sen and one-sample fits take their own test
+        fits, _ = edge_fits
+        x = np.array([1.0, 2.0, 3.0, 5.0, 8.0, 13.0, 21.0])
+        y = np.array([2.1, 3.9, 6.5, 9.0, 15.2, 22.0, 30.1])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            others = [scaling.fit_line(x, y, method="deming", lam=2.0),
+                      scaling.fit_line(x, y, method="theil_sen"),
+                      scaling.fit_line(x, y, method="sma")]
+        mixed = [others[0], fits["ols"][0], others[1], fits["ma"][5], others[2],
+                 fits["sma"][3], fits["ols"][-2]]
+        for exponent in (0.75, "2/3", -1.0):
+            got = slope_tests_for(mixed, exponent)
+            for fit, t in zip(mixed, got):
+                assert _same_test(t, fit.test_slope(exponent))
+
+    def test_statistic_and_df_are_the_ones_of_the_t_test(self, edge_fits):
+        # textbook (Sokal & Rohlf 2012, ch. 14): OLS t = (b - b0)/se(b) on n - 2 df,
+        # p = 2 P(T > |t|) (scipy.stats.t as the reference)
+        from scipy import stats
+        fits, what = edge_fits
+        i = what.index("n=30 rho=0.6")
+        t = slope_tests_for(fits["ols"], 1.0)[i]
+        fit = fits["ols"][i]
+        assert t.df == 28.0
+        assert t.statistic == pytest.approx((fit.slope - 1.0) / fit.slope_se, rel=1e-12)
+        assert t.p_value == pytest.approx(2 * stats.t.sf(abs(t.statistic), 28), rel=1e-12)
+
+
+def _run_state(tmp_path, frame: pd.DataFrame, methods=("ols", "sma")):
+    frame.to_csv(tmp_path / "t.csv", index=False)
+    cfg = config_from_dict({"data": {"file": "t.csv", "x": "x", "y": "y", "group": "g"},
+                            "model": {"methods": list(methods)},
+                            "exponents": {"three_quarters": 0.75, "zero": 0}},
+                           base_dir=tmp_path)
+    read = read_stage(cfg)
+    return cfg, RunState(data=read.data, base=read.base)
+
+
+class TestFitStageGroups:
+    @pytest.fixture
+    def frame(self):
+        rng = np.random.default_rng(4)
+        g = rng.choice(["b", "a", "Zeta", "c"], 60)
+        x = rng.lognormal(1, 1, 60)
+        return pd.DataFrame({
+            "x": np.concatenate([x, [3.0], [2.0, 2.0, 2.0]]),
+            "y": np.concatenate([2 * x ** 0.75 * rng.lognormal(0, 0.1, 60), [5.0],
+                                 [1.0, 4.0, 9.0]]),
+            "g": np.concatenate([g, ["one point"], ["one x"] * 3])})
+
+    def test_ranges_are_each_groups_minimum_and_maximum(self, tmp_path, frame):
+        # exact law: the fitted range of a group is the min and max of its x and y
+        cfg, state = _run_state(tmp_path, frame)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fitted = fit_stage(cfg, state)
+        rows = [r for r in fitted.rows if r["scope"] == "group"]
+        assert {r["group"] for r in rows} == set(frame["g"])
+        for r in rows:
+            sel = frame[frame["g"] == r["group"]]
+            assert (r["x_min"], r["x_max"]) == (sel["x"].min(), sel["x"].max())
+            assert (r["y_min"], r["y_max"]) == (sel["y"].min(), sel["y"].max())
+            fit = fitted.line_fits.get(("group", r["group"], r["method"]))
+            if fit is not None:
+                assert fit.x_range == (r["x_min"], r["x_max"])
+
+    def test_point_sets_are_each_groups_rows(self, tmp_path, frame):
+        # internal consistency: each group's points are the table's rows of that group
+        cfg, state = _run_state(tmp_path, frame)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fitted = fit_stage(cfg, state)
+        pts = state.data.points
+        groups = sorted(set(frame["g"]))
+        assert [k for k in fitted.point_sets] == [("pooled", "")] + [("group", g) for g in groups]
+        for g in groups:
+            assert_frame_equal(fitted.point_sets[("group", g)], pts[pts["group"] == g])
+
+    def test_slope_table_equals_each_fits_own_tests(self, tmp_path, frame):
+        # internal consistency: slope_tests.csv rows equal LineFit.test_slope, in fit order
+        cfg, state = _run_state(tmp_path, frame, methods=("ols", "sma", "ma", "theil_sen"))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fitted = fit_stage(cfg, state)
+            table = slope_tests(fitted.line_fits, cfg)
+        expected = [(key, name, fit.test_slope(b0, hypothesis=name))
+                    for key, fit in fitted.line_fits.items()
+                    for name, b0 in cfg.exponents.items()]
+        assert len(table) == len(expected)
+        for row, (key, name, t) in zip(table.itertuples(), expected):
+            assert (row.scope, row.group, row.method, row.hypothesis) == (*key, name)
+            assert all(_same_float(getattr(row, k), getattr(t, k))
+                       for k in ("statistic", "df", "p_value"))
+            assert (row.statistic_type, row.p_method) == (t.statistic_type, t.p_method)
