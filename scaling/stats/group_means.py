@@ -111,6 +111,7 @@ def _exclusion_reasons(m: Moments, labels, method: str, min_n: int) -> list:
     notes = fit_notes(m, method)
     flat_x = _no_variation(m.n, m.mean_x, m.sxx)
     flat_y = _no_variation(m.n, m.mean_y, m.syy)
+    r = m.r   # a property computed for every group: read it once, not once per group
     reasons = []
     for i in range(len(labels)):
         if m.n[i] < min_n:
@@ -121,7 +122,7 @@ def _exclusion_reasons(m: Moments, labels, method: str, min_n: int) -> list:
             reasons.append(("y_constant", ""))
         elif notes[i]:
             reasons.append(("not_estimable", str(notes[i])))
-        elif method != "ols" and 1.0 - float(m.r[i]) ** 2 <= EXACT_FIT_TOL:
+        elif method != "ols" and 1.0 - float(r[i]) ** 2 <= EXACT_FIT_TOL:
             reasons.append(("exact_line", ""))
         else:
             reasons.append(("", ""))
@@ -141,7 +142,8 @@ def _compared_groups(m: Moments, labels, method: str, min_n: int):
     all_exact = not used and len(exact_only) >= 2
     if all_exact:
         used = exact_only
-        reasons = [("", "") if i in used else why for i, why in enumerate(reasons)]
+        chosen = set(used)
+        reasons = [("", "") if i in chosen else why for i, why in enumerate(reasons)]
     excluded = tuple(Exclusion(group=labels[i], reason=why, n=int(m.n[i]), min_n=min_n,
                                note=note)
                      for i, (why, note) in enumerate(reasons) if why)
