@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .config import DataConfig
+from .fast_csv import read_plain_columns
 from ..errors import DataError, DataWarning
 from ..stats.logscale import to_log
 
@@ -522,24 +523,64 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
                          for p, r in zip(prob[at], np.asarray(raw[at], dtype=object))])
 
     dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
+    # the text table and the number columns' text are not needed past here
+    del texts, table, x_col, y_col, g_col, u_col, x_raw, y_raw, x_prob, y_prob
+    pts = _points(rows[use].astype(int), x_val[use], y_val[use],
+                  g_text[use] if cfg.group else None,
+                  u_text[use] if cfg.average_within else None, cfg, path, log_base)
+    return CleanData(points=pts, dropped=dropped, n_read=n_read, units=units,
+                     averaged_within=cfg.average_within, n_rows_used=int(use.sum()))
 
-    base = log_base
-    pts = pd.DataFrame({
-        "row": rows[use].astype(int),
-        "x": x_val[use],
-        "y": y_val[use],
-    })
+
+def _points(rows, x, y, group, unit, cfg: DataConfig, path: Path, base) -> pd.DataFrame:
+    """The ``points`` of a :class:`CleanData` from the used rows' numbers, group and unit
+    (``group``, ``unit``: one label per row, or None); averaged within units when given."""
+    # the arrays become the frame's columns as they are (no copy into one block)
+    pts = pd.DataFrame({"row": rows, "x": x, "y": y}, copy=False)
     pts["log_x"] = to_log(pts["x"].to_numpy(), base)
     pts["log_y"] = to_log(pts["y"].to_numpy(), base)
-    if g_col is not None:
-        pts["group"] = g_text[use]
+    if group is not None:
+        pts["group"] = group
     pts["n_rows"] = 1
-    n_used = int(use.sum())
-    if u_col is not None:
-        pts["unit"] = u_text[use]
+    if unit is not None:
+        pts["unit"] = unit
         pts = _average_within(pts, cfg, path, base)
-    return CleanData(points=pts.reset_index(drop=True), dropped=dropped, n_read=n_read,
-                     units=units, averaged_within=cfg.average_within, n_rows_used=n_used)
+    return pts.reset_index(drop=True)
+
+
+def _clean_plain(cfg: DataConfig, *, log_base=10.0) -> CleanData | None:
+    """:func:`clean_table` of a plain delimited file read by
+    :func:`~scaling.io.fast_csv.read_plain_columns`, or None when the file or the
+    config needs the text reading (it alone words drop reasons, warnings and errors).
+
+    Taken when nothing could be dropped or warned about: one predictor, decimal ".",
+    UTF-8, no ``data.exclude``, no units row (and, by the reader, every number finite
+    and positive and every group and unit given).
+    """
+    path = Path(cfg.file)
+    if (isinstance(cfg.x, tuple) or cfg.decimal != "." or cfg.exclude or cfg.units_row
+            or _encoding(cfg) != "utf-8-sig" or not path.is_file()
+            or path.suffix.lower() in (*_EXCEL_SUFFIXES, ".parquet")):
+        return None
+    sep = _sniff_delimiter(path, cfg) if cfg.delimiter == "auto" else cfg.delimiter
+    labels = tuple(c for c in (cfg.group, cfg.average_within) if c)
+    columns = read_plain_columns(path, sep=sep, skip_rows=cfg.skip_rows,
+                                 numbers=(cfg.x, cfg.y), labels=labels)
+    if columns is None:
+        return None
+    n = len(columns[cfg.x])
+    rows = np.arange(1, n + 1)
+    keep = np.ones(n, dtype=bool)
+    dropped, _ = _dropped_and_used(_Reasons(n), rows, keep, n, path)
+    text = {c: pd.array(columns.pop(c), dtype=_TEXT_DTYPE) for c in labels}
+    pts = _points(rows, columns.pop(cfg.x), columns.pop(cfg.y), text.get(cfg.group),
+                  text.get(cfg.average_within), cfg, path, log_base)
+    return CleanData(points=pts, dropped=dropped, n_read=n, units=dict(cfg.units),
+                     averaged_within=cfg.average_within, n_rows_used=n)
+
+
+#: What the text reading gives a column of labels (pandas' default string dtype).
+_TEXT_DTYPE = pd.Series(np.array([""], dtype=object)).dtype
 
 
 def _check_units_row(first: pd.Series, cfg: DataConfig, path: Path) -> None:
@@ -677,4 +718,7 @@ def load_data(cfg: DataConfig, *, log_base=10.0) -> CleanData:
     """Read and clean the table named by ``cfg`` (see :func:`clean_table`)."""
     if isinstance(cfg.x, tuple):   # several predictors
         return clean_table_several(read_table(cfg), cfg, log_base=log_base)
+    plain = _clean_plain(cfg, log_base=log_base)
+    if plain is not None:
+        return plain
     return clean_table(read_table(cfg), cfg, log_base=log_base)
