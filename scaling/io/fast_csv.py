@@ -9,15 +9,17 @@ otherwise, so the caller reads the file as text and every drop reason, warning
 and error message comes from one place.
 
 Plain means: UTF-8 without a byte-order mark, lines ending in ``\\n`` only,
-no quote character and no NUL byte anywhere in the file, a one-character
-delimiter, a header line whose cells are distinct and not blank, the same
-number of cells on every line, and in the number columns only numbers that are
-finite and positive (a blank line, a missing, censored, zero, negative or
-infinite value would be a dropped row: those files go the text way).  On such
-a file both readers split lines and cells the same way; the number grammar
-``pyarrow`` accepts is a subset of what the text reading accepts after
-trimming, and both round correctly (as Python's ``float`` does), so the values
-are the same bits.
+no quote character, no NUL byte and no plus sign but an exponent's anywhere in
+the file, a one-character delimiter, a header line whose cells are distinct and
+not blank, the same number of cells on every line, and in the number columns
+only numbers that are finite and positive (a blank line, a missing, censored,
+zero, negative or infinite value would be a dropped row: those files go the
+text way).  On such a file both readers split lines and cells the same way; the
+number grammar ``pyarrow`` accepts is a subset of what the text reading accepts
+after trimming, and both round correctly (as Python's ``float`` does), so the
+values are the same bits.  (With a leading plus sign pandas' ``to_numeric`` is
+sometimes one unit in the last place off the correctly rounded value, while
+pyarrow is not: such files are left to the text reading, whose values they keep.)
 """
 
 from __future__ import annotations
@@ -49,6 +51,11 @@ def _file_is_plain(path: Path) -> bool:
                 return False
             first = False
             if b'"' in block or b"\r" in block or b"\0" in block:
+                return False
+            # a plus sign other than an exponent's ("+1.5"): pandas' to_numeric, which the
+            # text reading uses, is then one unit in the last place off Python's float()
+            # for some numbers, so such files keep the text reading's values
+            if block.count(b"+") != block.count(b"e+") + block.count(b"E+"):
                 return False
             if not block.isascii():
                 try:
