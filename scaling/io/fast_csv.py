@@ -55,7 +55,8 @@ def _file_is_plain(path: Path) -> bool:
             # a plus sign other than an exponent's ("+1.5"): pandas' to_numeric, which the
             # text reading uses, is then one unit in the last place off Python's float()
             # for some numbers, so such files keep the text reading's values
-            if block.count(b"+") != block.count(b"e+") + block.count(b"E+"):
+            if b"+" in block and (block.count(b"+")
+                                   != block.count(b"e+") + block.count(b"E+")):
                 return False
             if not block.isascii():
                 try:
@@ -124,7 +125,7 @@ def read_plain_columns(path, *, sep: str, skip_rows: int, numbers: tuple,
     if "" in names or len(set(names)) != len(names) or not set(wanted) <= set(names):
         return None
     raw = dict(zip(names, cells))   # pyarrow matches header names as written
-    types = {raw[n]: pa.float64() for n in numbers} | {raw[n]: pa.string() for n in labels}
+    types = {raw[n]: pa.float64() for n in numbers} | {raw[n]: pa.large_string() for n in labels}
     pool = pa.system_memory_pool()
     try:
         # one thread: as fast on two shared cores, and a third less memory at its peak;
@@ -161,5 +162,5 @@ def read_plain_columns(path, *, sep: str, skip_rows: int, numbers: tuple,
         text = pc.utf8_trim_whitespace(text, memory_pool=pool)   # as str.strip does
         if pc.any(pc.equal(text, "")).as_py():
             return None
-        out[name] = pc.cast(text, pa.large_string(), memory_pool=pool).combine_chunks(pool)
+        out[name] = text.combine_chunks(pool)   # large_string: what pandas holds
     return out
