@@ -272,3 +272,53 @@ class TestLean:
         monkeypatch.setattr(tables, "read_table", refuse)
         _assert_same(load_data(cfg), reference)
         assert reference.points["group"].dtype == pd.StringDtype("pyarrow", na_value=np.nan)
+
+
+class TestToNumbers:
+    """``_to_numbers`` gives ``pd.to_numeric(text, errors="coerce")``'s bits (the text
+    reading's own rule: internal consistency), column by column."""
+
+    WORDS = ["", "NA", "n/a", "nan", "None", "-", "?", "<0.5", "> 2", "abc", "1,5", "1.5.2",
+             "0x10", "1_000", "\u0661\u0662", "\uff11\uff12", "1e", "e5", ".", "TRUE", "1d5"]
+    NUMBERS = ["0", "-0", "0.0", "+0", "-1.5", "+1.5", "+.5", "inf", "-inf", "Infinity",
+               "1e400", "1e-400", "-1e-400", "+1e5", " 1.5", "1.5 ", "+9007199254740993",
+               "9007199254740993", "18446744073709551616", "-9223372036854775809",
+               "123456789012345678901234567890", "1e0005", "000012.5"]
+
+    @staticmethod
+    def _bits(values):
+        return np.asarray(values, dtype=float).view(np.int64)
+
+    def _check(self, cells):
+        text = pd.Series(cells, dtype="str")
+        expected = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+        assert (self._bits(tables._to_numbers(text)) == self._bits(expected)).all(), cells
+
+    def test_plain_numbers_with_words(self):
+        rng = np.random.default_rng(7)
+        numbers = [f"{v:.{int(k)}g}" for v, k in zip(np.exp(rng.uniform(-700, 700, 2000)),
+                                                      rng.integers(1, 30, 2000))]
+        self._check(numbers)
+        self._check(numbers + self.WORDS)
+        self._check(self.WORDS)
+
+    @pytest.mark.parametrize("number", NUMBERS)
+    def test_other_numbers_alone_among_plain_ones_or_words(self, number):
+        # With a signed or spelled number in the column, to_numeric reads the whole
+        # column as before (its integer reading depends on the other cells).
+        self._check([number])
+        self._check(["1", "2", number])
+        self._check(["1.5", "2", number])
+        self._check(["1", "NA", number])
+        self._check(["9007199254740993", number])
+
+    def test_integers(self):
+        self._check(["1", "2", "9007199254740993", "18446744073709551616"])
+        self._check(["1", "2", "123456789012345678901234567890", ""])
+        self._check(["+1", "2", "9007199254740993"])
+
+    def test_object_and_empty_columns(self):
+        self._check([])
+        cells = pd.Series(["1.5", "NA", "+2"], dtype=object)
+        expected = pd.to_numeric(cells, errors="coerce").to_numpy(dtype=float)
+        assert (self._bits(tables._to_numbers(cells)) == self._bits(expected)).all()

@@ -360,7 +360,7 @@ def _parse_numbers(series: pd.Series, decimal: str, *, text: pd.Series | None = 
     else:
         text = _as_text(series) if text is None else text
         cleaned = text.str.replace(",", ".", regex=False) if decimal == "," else text
-        values = pd.to_numeric(cleaned, errors="coerce").to_numpy(dtype=float)
+        values = _to_numbers(cleaned)
         raw = text.array   # read cell by cell only where a cell failed
     problem = np.full(n, "", dtype=object)
     nan = np.isnan(values)
@@ -382,6 +382,41 @@ def _parse_numbers(series: pd.Series, decimal: str, *, text: pd.Series | None = 
 
 #: Public name: the engine parses chunks with the same text rules.
 parse_numbers = _parse_numbers
+
+#: A number written plainly: digits, at most one point, an exponent; no sign, no spaces.
+_PLAIN_NUMBER = r"^(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?$"
+
+
+def _to_numbers(text: pd.Series) -> np.ndarray:
+    """``pd.to_numeric(text, errors="coerce")`` as float64, the same bits, without a
+    Python string per cell when ``text`` is Arrow text (what ``read_csv`` gives).
+
+    Plainly written numbers are converted by Arrow; the other cells (missing,
+    censored, words) by ``to_numeric``.  Both round correctly (Python's ``float`` is
+    the reference), so a plain number gets the same bits either way.  When one of
+    the other cells is a number too (a sign, "inf", ...), the whole column goes
+    through ``to_numeric`` as before: its reading of a signed number depends on
+    the column around it (integers read exactly when every cell is one).
+    """
+    arrow = getattr(text.array, "_pa_array", None)
+    if arrow is None or not len(text):
+        return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    plain = pc.fill_null(pc.match_substring_regex(arrow, _PLAIN_NUMBER), False)
+    mask = plain.to_numpy(zero_copy_only=False)
+    values = np.full(len(text), np.nan)
+    try:
+        values[mask] = pc.cast(pc.filter(arrow, plain), pa.float64()).to_numpy()
+    except pa.ArrowInvalid:   # not expected for plain numbers; the old way then
+        return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+    rest = np.flatnonzero(~mask)
+    if rest.size:
+        others = pd.to_numeric(text.iloc[rest], errors="coerce").to_numpy(dtype=float)
+        if not np.isnan(others).all():
+            return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+        values[rest] = others
+    return values
 
 
 def _reason(role: str, column: str, problem: str, raw: str, decimal: str = ".") -> str:
