@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import sys
 import warnings
+from unittest import mock
 
 import numpy as np
 import pandas as pd
@@ -20,7 +21,7 @@ import pytest
 from scaling.errors import ScalingError
 from scaling.io import tables
 from scaling.io.config import config_from_dict
-from scaling.io.fast_csv import read_plain_columns
+from scaling.io.fast_csv import read_plain_columns, read_plain_text
 from scaling.io.tables import clean_table, load_data, read_table
 
 pytest.importorskip("pyarrow")
@@ -64,12 +65,18 @@ def _assert_same(fast, ref):
         ref.n_read, ref.units, ref.averaged_within, ref.n_rows_used)
 
 
+def _pandas_read(cfg):
+    """The text reading with every csv cell read by pandas (the reference)."""
+    with mock.patch.object(tables, "read_plain_text", lambda *a, **k: None):
+        return clean_table(read_table(cfg), cfg)
+
+
 def _check_against_text(cfg, *, plain: bool):
     """load_data equals the text reading (data, error message and warnings alike);
     ``plain``: whether the column-typed reading takes the file (else it declines)."""
     taken = tables._clean_plain(cfg)
     assert (taken is not None) == plain
-    ref, ref_error, ref_warnings = _outcome(lambda: clean_table(read_table(cfg), cfg))
+    ref, ref_error, ref_warnings = _outcome(lambda: _pandas_read(cfg))
     got, error, got_warnings = _outcome(lambda: load_data(cfg))
     assert error == ref_error
     assert got_warnings == ref_warnings
@@ -164,6 +171,50 @@ def test_other_files_are_read_as_text(tmp_path, name):
     content, data = DECLINED[name]
     _write(tmp_path, content)
     _check_against_text(_cfg(tmp_path, **data), plain=False)
+
+
+def _table_outcome(read):
+    """(table, attrs) of ``read()``, or the error message."""
+    try:
+        table = read()
+    except ScalingError as exc:
+        return str(exc)
+    return table, dict(table.attrs)
+
+
+ALL_FILES = {**{f"plain {k}": v for k, v in PLAIN.items()},
+             **{f"declined {k}": v for k, v in DECLINED.items()},
+             "one column": ("mass\n1\n\n3\n", {}),
+             "blank lines only": ("mass,rate\n\n\n", {}),
+             "empty file": ("", {}),
+             "header of blanks": (",,\n1,2,3\n", {}),
+             "duplicated and blank names": ("a,a,,a, a\n1,2,3,4,5\n", {})}
+
+
+@pytest.mark.parametrize("name", list(ALL_FILES))
+def test_text_table_is_pandas_table(tmp_path, name):
+    # read_table reads a plain file's cells with pyarrow as text; the table (values,
+    # dtypes, names, index, attrs) or the error is the one pandas' read_csv gives.
+    content, data = ALL_FILES[name]
+    _write(tmp_path, content)
+    cfg = _cfg(tmp_path, **data)
+    with mock.patch.object(tables, "read_plain_text", lambda *a, **k: None):
+        expected = _table_outcome(lambda: read_table(cfg))
+    got = _table_outcome(lambda: read_table(cfg))
+    if isinstance(expected, str):
+        assert got == expected
+    else:
+        pd.testing.assert_frame_equal(got[0], expected[0], check_exact=True)
+        assert got[1] == expected[1]
+
+
+def test_text_table_of_a_plain_file_is_read_by_arrow(tmp_path):
+    # A blank line and words among numbers: no column-typed answer, but the cells of
+    # the plain file are read by pyarrow (the comparison above then has teeth).
+    path = _write(tmp_path, "mass,rate,sp\n1,2,a\n\nNA,<1,b\n")
+    arrays = read_plain_text(path, sep=",", skip_rows=0, n_columns=3)
+    assert [a.to_pylist() for a in arrays] == [["1", "", "NA"], ["2", "", "<1"], ["a", "", "b"]]
+    assert read_plain_text(path, sep=",", skip_rows=0, n_columns=2) is None
 
 
 class TestBytes:

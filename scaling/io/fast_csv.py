@@ -164,3 +164,41 @@ def read_plain_columns(path, *, sep: str, skip_rows: int, numbers: tuple,
             return None
         out[name] = text.combine_chunks(pool)   # large_string: what pandas holds
     return out
+
+
+def read_plain_text(path, *, sep: str, skip_rows: int, n_columns: int) -> list | None:
+    """Every cell of a plain file as written, one large_string Arrow array per column.
+
+    What ``pandas.read_csv(dtype=str, na_filter=False, skip_blank_lines=False)``
+    gives for the lines under the header line (a blank line: a row of ""),
+    without a Python string per cell.  ``None`` when the file is not plain (see
+    the module doc), has a line with another number of cells than
+    ``n_columns``, or pyarrow is missing: the caller then reads it with pandas.
+    """
+    try:
+        import pyarrow as pa
+        import pyarrow.csv as pcsv
+    except ImportError:
+        return None
+    path = Path(path)
+    if sep not in PLAIN_DELIMITERS or n_columns < 1 or not _file_is_plain(path):
+        return None
+    cells = _header_cells(path, skip_rows, sep)
+    if cells is None or len(cells) != n_columns:
+        return None
+    names = [f"c{j}" for j in range(n_columns)]
+    pool = pa.system_memory_pool()
+    try:
+        table = pcsv.read_csv(
+            path,
+            read_options=pcsv.ReadOptions(skip_rows=skip_rows + 1, column_names=names,
+                                          use_threads=False),
+            parse_options=pcsv.ParseOptions(delimiter=sep, quote_char=False,
+                                            double_quote=False, ignore_empty_lines=False),
+            convert_options=pcsv.ConvertOptions(
+                column_types={n: pa.large_string() for n in names},
+                strings_can_be_null=False),
+            memory_pool=pool)
+    except (pa.ArrowException, ValueError, OSError):
+        return None
+    return [table.column(n) for n in names]

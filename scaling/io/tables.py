@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .config import DataConfig
-from .fast_csv import read_plain_columns
+from .fast_csv import read_plain_columns, read_plain_text
 from ..errors import DataError, DataWarning
 from ..stats.logscale import to_log
 
@@ -128,8 +128,10 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
             options = dict(sep=sep, skiprows=cfg.skip_rows, dtype=str, keep_default_na=False,
                            na_filter=False, skip_blank_lines=False, encoding=_encoding(cfg),
                            engine="python" if len(sep) > 1 else "c")
-            table = pd.read_csv(path, header=0, **options)
             header = pd.read_csv(path, header=None, nrows=1, **options)
+            table = _read_plain_text(path, sep, cfg, options)
+            if table is None:
+                table = pd.read_csv(path, header=0, **options)
     except DataError:
         raise
     except UnicodeDecodeError as exc:
@@ -147,6 +149,21 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
 
 
 _EXCEL_SUFFIXES = (".xlsx", ".xlsm", ".xls")
+
+
+def _read_plain_text(path: Path, sep: str, cfg: DataConfig, options: dict):
+    """``pd.read_csv(path, header=0, **options)`` for a plain UTF-8 file, its cells
+    held by Arrow as read (no Python string per cell); None for any other file."""
+    if _encoding(cfg) != "utf-8-sig":
+        return None
+    columns = pd.read_csv(path, header=0, nrows=0, **options).columns   # pandas' names
+    arrays = read_plain_text(path, sep=sep, skip_rows=cfg.skip_rows, n_columns=len(columns))
+    if arrays is None:
+        return None
+    table = pd.DataFrame({j: pd.array(a, dtype=_TEXT_DTYPE) for j, a in enumerate(arrays)},
+                         copy=False)
+    table.columns = columns
+    return table
 
 
 def _check_sheet(path: Path, sheet) -> None:
@@ -398,7 +415,7 @@ def _to_numbers(text: pd.Series) -> np.ndarray:
     through ``to_numeric`` as before: its reading of a signed number depends on
     the column around it (integers read exactly when every cell is one).
     """
-    arrow = getattr(text.array, "_pa_array", None)
+    arrow = _arrow_text(text)
     if arrow is None or not len(text):
         return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
     import pyarrow as pa
@@ -542,11 +559,12 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     active = _blank_and_excluded(table, keep, reasons, cfg, path, texts)
 
     if g_col is not None:
-        g_text = texts(cfg.group).to_numpy()
-        reasons.add(np.flatnonzero((g_text == "") & active), f"group ({cfg.group}) is missing")
+        g_text = texts(cfg.group)
+        reasons.add(np.flatnonzero((g_text == "").to_numpy() & active),
+                    f"group ({cfg.group}) is missing")
     if u_col is not None:
-        u_text = texts(cfg.average_within).to_numpy()
-        reasons.add(np.flatnonzero((u_text == "") & active),
+        u_text = texts(cfg.average_within)
+        reasons.add(np.flatnonzero((u_text == "").to_numpy() & active),
                     f"{cfg.average_within} (data.average_within) is missing")
 
     x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal, text=texts.to_parse(cfg.x))
@@ -561,10 +579,31 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     # the text table and the number columns' text are not needed past here
     del texts, table, x_col, y_col, g_col, u_col, x_raw, y_raw, x_prob, y_prob
     pts = _points(rows[use].astype(int), x_val[use], y_val[use],
-                  g_text[use] if cfg.group else None,
-                  u_text[use] if cfg.average_within else None, cfg, path, log_base)
+                  _used_labels(g_text, use) if cfg.group else None,
+                  _used_labels(u_text, use) if cfg.average_within else None, cfg, path, log_base)
     return CleanData(points=pts, dropped=dropped, n_read=n_read, units=units,
                      averaged_within=cfg.average_within, n_rows_used=int(use.sum()))
+
+
+def _arrow_text(series: pd.Series):
+    """The Arrow array (chunked) behind a column of pandas' default text dtype, or None."""
+    dtype = series.dtype
+    if (isinstance(dtype, pd.StringDtype) and dtype.storage == "pyarrow"
+            and dtype.na_value is np.nan):
+        return series.array.__arrow_array__()
+    return None
+
+
+def _used_labels(text: pd.Series, use: np.ndarray):
+    """The labels of the used rows as ``points`` holds them (pandas' default text dtype):
+    taken in Arrow when the text is Arrow's, with no Python string per row."""
+    arrow = _arrow_text(text)
+    if arrow is None:
+        return text.to_numpy()[use]
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    kept = pc.filter(arrow, pa.array(use)).combine_chunks()
+    return pd.array(kept, dtype=_TEXT_DTYPE)
 
 
 def _points(rows, x, y, group, unit, cfg: DataConfig, path: Path, base) -> pd.DataFrame:
