@@ -373,3 +373,26 @@ class TestToNumbers:
         cells = pd.Series(["1.5", "NA", "+2"], dtype=object)
         expected = pd.to_numeric(cells, errors="coerce").to_numpy(dtype=float)
         assert (self._bits(tables._to_numbers(cells)) == self._bits(expected)).all()
+
+    def test_the_text_table_is_let_go_before_the_points_are_built(self, tmp_path, monkeypatch):
+        # A file with a row to drop is cleaned from a table of text; that table is
+        # not kept alive while the points (the run's data) are made.
+        import weakref
+        _write(tmp_path, "mass,rate,sp\n1,2,a\n,3,b\n4,5,c\n")
+        cfg = _cfg(tmp_path, group="sp")
+        made, alive = [], []
+        read, points = tables.read_table, tables._points
+
+        def reading(c):
+            table = read(c)
+            made.append(weakref.ref(table))
+            return table
+
+        def building(*args, **kwargs):
+            alive.append(made[0]() is not None)
+            return points(*args, **kwargs)
+
+        monkeypatch.setattr(tables, "read_table", reading)
+        monkeypatch.setattr(tables, "_points", building)
+        data = load_data(cfg)
+        assert alive == [False] and len(data.points) == 2 and data.dropped["row"].tolist() == [2]

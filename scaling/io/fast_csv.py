@@ -1,25 +1,30 @@
-"""A typed read of a plain delimited file: the few columns a fit needs, no text table.
+"""Plain delimited files read by pyarrow: no Python string per cell.
 
-:func:`read_plain_columns` reads the number columns straight to float64 and
-the label columns (group, unit) as Arrow strings with ``pyarrow.csv``, without
-making a Python string per cell.  It is a shortcut, not a second set of rules:
-it answers only for files on which it is sure to give what the text reading
-in :mod:`scaling.io.tables` gives (the reference), and returns ``None``
-otherwise, so the caller reads the file as text and every drop reason, warning
-and error message comes from one place.
+Two readers, both shortcuts and not a second set of rules: each answers only
+for files on which it is sure to give what :mod:`scaling.io.tables` gives with
+pandas (the reference), and returns ``None`` otherwise, so that the caller
+reads the file the pandas way and every drop reason, warning and error message
+comes from one place.
 
-Plain means: UTF-8 without a byte-order mark, lines ending in ``\\n`` only,
-no quote character, no NUL byte and no plus sign but an exponent's anywhere in
-the file, a one-character delimiter, a header line whose cells are distinct and
-not blank, the same number of cells on every line, and in the number columns
-only numbers that are finite and positive (a blank line, a missing, censored,
-zero, negative or infinite value would be a dropped row: those files go the
-text way).  On such a file both readers split lines and cells the same way; the
-number grammar ``pyarrow`` accepts is a subset of what the text reading accepts
+* :func:`read_plain_columns` reads just the columns a fit needs, the numbers
+  straight to float64 and the labels (group, unit) as Arrow text, when no row
+  would be dropped: then no table of text is made at all.
+* :func:`read_plain_text` reads every cell as Arrow text, the table
+  ``pandas.read_csv(dtype=str)`` gives, for the cleaning to go through.
+
+A plain file is UTF-8 without a byte-order mark, its lines end in ``\\n`` only,
+it holds no quote character, no NUL byte and no plus sign but an exponent's,
+its delimiter is one character and every line under the header line has as
+many cells as the header line.  On such a file pyarrow and pandas split lines
+and cells the same way (a blank line is a row of empty cells).
+:func:`read_plain_columns` asks more: header names distinct and not blank,
+every number finite and positive (a blank, missing, censored, zero, negative
+or infinite value would be a dropped row) and every label given.  The number
+grammar pyarrow accepts is then a subset of what the text reading accepts
 after trimming, and both round correctly (as Python's ``float`` does), so the
 values are the same bits.  (With a leading plus sign pandas' ``to_numeric`` is
 sometimes one unit in the last place off the correctly rounded value, while
-pyarrow is not: such files are left to the text reading, whose values they keep.)
+pyarrow is not: such files are left to pandas, whose values they keep.)
 """
 
 from __future__ import annotations
