@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .config import DataConfig
+from .fast_csv import read_plain_columns, read_plain_text
 from ..errors import DataError, DataWarning
 from ..stats.logscale import to_log
 
@@ -127,8 +128,10 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
             options = dict(sep=sep, skiprows=cfg.skip_rows, dtype=str, keep_default_na=False,
                            na_filter=False, skip_blank_lines=False, encoding=_encoding(cfg),
                            engine="python" if len(sep) > 1 else "c")
-            table = pd.read_csv(path, header=0, **options)
             header = pd.read_csv(path, header=None, nrows=1, **options)
+            table = _read_plain_text(path, sep, cfg, options)
+            if table is None:
+                table = pd.read_csv(path, header=0, **options)
     except DataError:
         raise
     except UnicodeDecodeError as exc:
@@ -146,6 +149,21 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
 
 
 _EXCEL_SUFFIXES = (".xlsx", ".xlsm", ".xls")
+
+
+def _read_plain_text(path: Path, sep: str, cfg: DataConfig, options: dict):
+    """``pd.read_csv(path, header=0, **options)`` for a plain UTF-8 file, its cells
+    held by Arrow as read (no Python string per cell); None for any other file."""
+    if _encoding(cfg) != "utf-8-sig":
+        return None
+    columns = pd.read_csv(path, header=0, nrows=0, **options).columns   # pandas' names
+    arrays = read_plain_text(path, sep=sep, skip_rows=cfg.skip_rows, n_columns=len(columns))
+    if arrays is None:
+        return None
+    table = pd.DataFrame({j: pd.array(a, dtype=_TEXT_DTYPE) for j, a in enumerate(arrays)},
+                         copy=False)
+    table.columns = columns
+    return table
 
 
 def _check_sheet(path: Path, sheet) -> None:
@@ -359,7 +377,7 @@ def _parse_numbers(series: pd.Series, decimal: str, *, text: pd.Series | None = 
     else:
         text = _as_text(series) if text is None else text
         cleaned = text.str.replace(",", ".", regex=False) if decimal == "," else text
-        values = pd.to_numeric(cleaned, errors="coerce").to_numpy(dtype=float)
+        values = _to_numbers(cleaned)
         raw = text.array   # read cell by cell only where a cell failed
     problem = np.full(n, "", dtype=object)
     nan = np.isnan(values)
@@ -381,6 +399,41 @@ def _parse_numbers(series: pd.Series, decimal: str, *, text: pd.Series | None = 
 
 #: Public name: the engine parses chunks with the same text rules.
 parse_numbers = _parse_numbers
+
+#: A number written plainly: digits, at most one point, an exponent; no sign, no spaces.
+_PLAIN_NUMBER = r"^(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?$"
+
+
+def _to_numbers(text: pd.Series) -> np.ndarray:
+    """``pd.to_numeric(text, errors="coerce")`` as float64, the same bits, without a
+    Python string per cell when ``text`` is Arrow text (what ``read_csv`` gives).
+
+    Plainly written numbers are converted by Arrow; the other cells (missing,
+    censored, words) by ``to_numeric``.  Both round correctly (Python's ``float`` is
+    the reference), so a plain number gets the same bits either way.  When one of
+    the other cells is a number too (a sign, "inf", ...), the whole column goes
+    through ``to_numeric`` as before: its reading of a signed number depends on
+    the column around it (integers read exactly when every cell is one).
+    """
+    arrow = _arrow_text(text)
+    if arrow is None or not len(text):
+        return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    plain = pc.fill_null(pc.match_substring_regex(arrow, _PLAIN_NUMBER), False)
+    mask = plain.to_numpy(zero_copy_only=False)
+    values = np.full(len(text), np.nan)
+    try:
+        values[mask] = pc.cast(pc.filter(arrow, plain), pa.float64()).to_numpy()
+    except pa.ArrowInvalid:   # not expected for plain numbers; the old way then
+        return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+    rest = np.flatnonzero(~mask)
+    if rest.size:
+        others = pd.to_numeric(text.iloc[rest], errors="coerce").to_numpy(dtype=float)
+        if not np.isnan(others).all():
+            return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+        values[rest] = others
+    return values
 
 
 def _reason(role: str, column: str, problem: str, raw: str, decimal: str = ".") -> str:
@@ -506,11 +559,12 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
     active = _blank_and_excluded(table, keep, reasons, cfg, path, texts)
 
     if g_col is not None:
-        g_text = texts(cfg.group).to_numpy()
-        reasons.add(np.flatnonzero((g_text == "") & active), f"group ({cfg.group}) is missing")
+        g_text = texts(cfg.group)
+        reasons.add(np.flatnonzero((g_text == "").to_numpy() & active),
+                    f"group ({cfg.group}) is missing")
     if u_col is not None:
-        u_text = texts(cfg.average_within).to_numpy()
-        reasons.add(np.flatnonzero((u_text == "") & active),
+        u_text = texts(cfg.average_within)
+        reasons.add(np.flatnonzero((u_text == "").to_numpy() & active),
                     f"{cfg.average_within} (data.average_within) is missing")
 
     x_val, x_prob, x_raw = _parse_numbers(x_col, cfg.decimal, text=texts.to_parse(cfg.x))
@@ -522,24 +576,85 @@ def clean_table(table: pd.DataFrame, cfg: DataConfig, *, log_base=10.0) -> Clean
                          for p, r in zip(prob[at], np.asarray(raw[at], dtype=object))])
 
     dropped, use = _dropped_and_used(reasons, rows, keep, n_read, path)
+    # the text table and the number columns' text are not needed past here
+    del texts, table, x_col, y_col, g_col, u_col, x_raw, y_raw, x_prob, y_prob
+    pts = _points(rows[use].astype(int), x_val[use], y_val[use],
+                  _used_labels(g_text, use) if cfg.group else None,
+                  _used_labels(u_text, use) if cfg.average_within else None, cfg, path, log_base)
+    return CleanData(points=pts, dropped=dropped, n_read=n_read, units=units,
+                     averaged_within=cfg.average_within, n_rows_used=int(use.sum()))
 
-    base = log_base
-    pts = pd.DataFrame({
-        "row": rows[use].astype(int),
-        "x": x_val[use],
-        "y": y_val[use],
-    })
+
+def _arrow_text(series: pd.Series):
+    """The Arrow array (chunked) behind a column of pandas' default text dtype, or None."""
+    dtype = series.dtype
+    if (isinstance(dtype, pd.StringDtype) and dtype.storage == "pyarrow"
+            and dtype.na_value is np.nan):
+        return series.array.__arrow_array__()
+    return None
+
+
+def _used_labels(text: pd.Series, use: np.ndarray):
+    """The labels of the used rows as ``points`` holds them (pandas' default text dtype):
+    taken in Arrow when the text is Arrow's, with no Python string per row."""
+    arrow = _arrow_text(text)
+    if arrow is None:
+        return text.to_numpy()[use]
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    kept = pc.filter(arrow, pa.array(use)).combine_chunks()
+    return pd.array(kept, dtype=_TEXT_DTYPE)
+
+
+def _points(rows, x, y, group, unit, cfg: DataConfig, path: Path, base) -> pd.DataFrame:
+    """The ``points`` of a :class:`CleanData` from the used rows' numbers, group and unit
+    (``group``, ``unit``: one label per row, or None); averaged within units when given."""
+    # the arrays become the frame's columns as they are (no copy into one block)
+    pts = pd.DataFrame({"row": rows, "x": x, "y": y}, copy=False)
     pts["log_x"] = to_log(pts["x"].to_numpy(), base)
     pts["log_y"] = to_log(pts["y"].to_numpy(), base)
-    if g_col is not None:
-        pts["group"] = g_text[use]
+    if group is not None:
+        pts["group"] = group
     pts["n_rows"] = 1
-    n_used = int(use.sum())
-    if u_col is not None:
-        pts["unit"] = u_text[use]
+    if unit is not None:
+        pts["unit"] = unit
         pts = _average_within(pts, cfg, path, base)
-    return CleanData(points=pts.reset_index(drop=True), dropped=dropped, n_read=n_read,
-                     units=units, averaged_within=cfg.average_within, n_rows_used=n_used)
+    return pts.reset_index(drop=True)
+
+
+def _clean_plain(cfg: DataConfig, *, log_base=10.0) -> CleanData | None:
+    """:func:`clean_table` of a plain delimited file read by
+    :func:`~scaling.io.fast_csv.read_plain_columns`, or None when the file or the
+    config needs the text reading (it alone words drop reasons, warnings and errors).
+
+    Taken when nothing could be dropped or warned about: one predictor, decimal ".",
+    UTF-8, no ``data.exclude``, no units row (and, by the reader, every number finite
+    and positive and every group and unit given).
+    """
+    path = Path(cfg.file)
+    if (isinstance(cfg.x, tuple) or cfg.decimal != "." or cfg.exclude or cfg.units_row
+            or _encoding(cfg) != "utf-8-sig" or not path.is_file()
+            or path.suffix.lower() in (*_EXCEL_SUFFIXES, ".parquet")):
+        return None
+    sep = _sniff_delimiter(path, cfg) if cfg.delimiter == "auto" else cfg.delimiter
+    labels = tuple(c for c in (cfg.group, cfg.average_within) if c)
+    columns = read_plain_columns(path, sep=sep, skip_rows=cfg.skip_rows,
+                                 numbers=(cfg.x, cfg.y), labels=labels)
+    if columns is None:
+        return None
+    n = len(columns[cfg.x])
+    rows = np.arange(1, n + 1)
+    keep = np.ones(n, dtype=bool)
+    dropped, _ = _dropped_and_used(_Reasons(n), rows, keep, n, path)
+    text = {c: pd.array(columns.pop(c), dtype=_TEXT_DTYPE) for c in labels}
+    pts = _points(rows, columns.pop(cfg.x), columns.pop(cfg.y), text.get(cfg.group),
+                  text.get(cfg.average_within), cfg, path, log_base)
+    return CleanData(points=pts, dropped=dropped, n_read=n, units=dict(cfg.units),
+                     averaged_within=cfg.average_within, n_rows_used=n)
+
+
+#: What the text reading gives a column of labels (pandas' default string dtype).
+_TEXT_DTYPE = pd.Series(np.array([""], dtype=object)).dtype
 
 
 def _check_units_row(first: pd.Series, cfg: DataConfig, path: Path) -> None:
@@ -677,4 +792,7 @@ def load_data(cfg: DataConfig, *, log_base=10.0) -> CleanData:
     """Read and clean the table named by ``cfg`` (see :func:`clean_table`)."""
     if isinstance(cfg.x, tuple):   # several predictors
         return clean_table_several(read_table(cfg), cfg, log_base=log_base)
+    plain = _clean_plain(cfg, log_base=log_base)
+    if plain is not None:
+        return plain
     return clean_table(read_table(cfg), cfg, log_base=log_base)
