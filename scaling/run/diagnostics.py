@@ -57,7 +57,8 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     line_fits, point_sets, notes = bounded_diagnostics(state.line_fits, state.point_sets, cfg)
     dc = cfg.diagnostics
     targets = exponent_targets(cfg)
-    diag_records, infl_rows, curv_rows, es_rows = [], [], [], []
+    diag_records, curv_rows, es_rows = [], [], []
+    infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
     results: dict = {}
     # The ordinary answer's model; with a tree the phylogenetic model the Answer leads
@@ -75,8 +76,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
             labels = {i: str(g) for i, g in enumerate(sel["group"])}
         else:
             rows = sel["row"].to_numpy()
-            labels = (dict(zip(rows.tolist(), sel["unit"].astype(str))) if "unit" in sel
-                      else {})
+            labels = None   # the flagged rows' units, looked up below
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
@@ -99,11 +99,17 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         diag_records += [{"scope": scope, "group": group, "method": d.method,
                           **c.to_record(), "verdict": check_verdict(c, groups=named)}
                          for c in d.checks]
-        for row, cook in zip(*d.influence_values()):
-            row = int(row)
-            infl_rows.append({"scope": scope, "group": group, "method": method,
-                              "row": None if scope == "group_means" else row,
-                              "label": labels.get(row, ""), "cooks_distance": cook})
+        flagged, cooks = d.influence_values()
+        if flagged:
+            k = len(flagged)
+            flagged = [int(r) for r in flagged]
+            infl["scope"] += [scope] * k
+            infl["group"] += [group] * k
+            infl["method"] += [method] * k
+            infl["row"] += [None] * k if scope == "group_means" else flagged
+            infl["label"] += ([labels.get(r, "") for r in flagged] if labels is not None
+                              else _unit_labels(sel, rows, flagged))
+            infl["cooks_distance"] += cooks
         if (scope, group) not in {(r["scope"], r["group"]) for r in curv_rows}:
             c = d.curvature
             x = sel["log_x"].to_numpy()
@@ -144,13 +150,15 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         frame, p_infl, p_curv, p_msgs = diagnostic_rows(cfg, phylo,
                                                         state.tables.get("points_to_check"))
         diag_records[:0] = frame.to_dict(orient="records")
-        infl_rows[:0] = p_infl
+        for c in INFLUENCE_COLUMNS:
+            infl[c][:0] = [r[c] for r in p_infl]
         curv_rows[:0] = p_curv
         messages = p_msgs + [_ordinary(m) for m in messages]
     tables = {
         "diagnostics": pd.DataFrame(diag_records)[DIAGNOSTIC_COLUMNS]
         if diag_records else pd.DataFrame(columns=DIAGNOSTIC_COLUMNS),
-        "influential_rows": pd.DataFrame(infl_rows, columns=INFLUENCE_COLUMNS),
+        "influential_rows": (pd.DataFrame(infl, columns=INFLUENCE_COLUMNS) if infl["row"]
+                             else pd.DataFrame([], columns=INFLUENCE_COLUMNS)),
         "curvature": pd.DataFrame(curv_rows, columns=CURVATURE_COLUMNS),
     }
     if dc.error_structure:
@@ -168,6 +176,17 @@ def _ordinary(message: str) -> str:
     if message.startswith(_ORDINARY_CHECKS):
         return "Ignoring ancestry (species independent) — " + message
     return message
+
+
+def _unit_labels(sel: pd.DataFrame, rows: np.ndarray, flagged: list) -> list:
+    """The ``unit`` (as text) of each flagged row number, "" without a unit column; a
+    row number that repeats takes its last point's unit."""
+    if "unit" not in sel:
+        return [""] * len(flagged)
+    rows = np.asarray(rows, dtype=np.int64)
+    order = np.argsort(rows, kind="stable")
+    at = order[np.searchsorted(rows, flagged, side="right", sorter=order) - 1]
+    return sel["unit"].iloc[at].astype(str).tolist()
 
 
 def _common_points(point_sets: dict, method: str):

@@ -30,7 +30,7 @@ from ..render.headline import primary_method as primary_method_of
 from ..stats.group_comparisons import compare_groups
 from ..stats.group_means import compared_groups
 from ..stats.line_results import fit_line
-from ..stats.residual_checks import unique_codes
+from ..stats.residual_checks import group_order, unique_codes
 from ..stats.lines import METHODS, method_label
 
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run",
@@ -207,14 +207,15 @@ def answer_points(cfg, state) -> list:
             if line == "common":
                 return _common_points(cfg, state, pooled, method, hyps)
             if line == "groups":
-                sets = [(g, sel) for g, sel in _group_sets(state, method)
-                        if np.ptp(sel["log_x"].to_numpy()) > 0]
-                screens = strong_influence_each(
-                    [(sel["log_x"].to_numpy(), sel["log_y"].to_numpy()) for _, sel in sets],
-                    method=method)   # every group's screen in one array pass
-                return [p for (g, sel), inf in zip(sets, screens)
+                # each group's columns read once (a column of a frame costs tens of µs)
+                sets = [(g, sel, sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+                        for g, sel in _group_sets(state, method)]
+                sets = [s for s in sets if np.ptp(s[2]) > 0]
+                screens = strong_influence_each([(X, Y) for _, _, X, Y in sets],
+                                                method=method)   # every group in one pass
+                return [p for (g, sel, X, Y), inf in zip(sets, screens)
                         for p in _line_points(cfg, state, sel, "group", g, method, hyps,
-                                              inf=inf)]
+                                              inf=inf, xy=(X, Y))]
             return _line_points(cfg, state, pooled, "pooled", "", method, hyps)
         except ScalingError:
             return []
@@ -273,12 +274,15 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
 
 
 def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps,
-                 inf: dict | None = None) -> list:
+                 inf: dict | None = None, xy: tuple | None = None) -> list:
     """Strong points of one line (pooled, or a group's when slopes differ), refitted out.
 
     ``inf``: the line's :func:`scaling.stats.influence.strong_influence`, when the
-    caller has screened many lines at once."""
-    X, Y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
+    caller has screened many lines at once (a line with varying x); ``xy``: the
+    line's log x and log y when the caller has read them."""
+    if inf is not None and not inf["flag"].any():   # nothing to refit (most groups)
+        return []
+    X, Y = xy if xy is not None else (sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
     if np.ptp(X) == 0:
         return []
     if inf is None:
@@ -325,7 +329,7 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
     own: dict = {}   # point -> its strong finding in its group's own line
     # each group's points in row order (one stable sort, not one comparison per group)
     codes, names = unique_codes(gs)
-    split = np.split(np.argsort(codes, kind="stable"),
+    split = np.split(group_order(codes, len(names)),
                      np.cumsum(np.bincount(codes, minlength=len(names)))[:-1])
     where = {str(name): i for i, name in enumerate(names)}
     members = [(str(g), mine) for g, mine in ((g, split[where[str(g)]]) for g in used)

@@ -127,7 +127,7 @@ def _extra_of(fit, x, y) -> dict:
 
 
 def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray,
-                     log_base: float) -> dict:
+                     log_base: float, *, logs: tuple | None = None) -> dict:
     """Accuracy and correction factors of many fits at once, one fit per group code.
 
     Parameters
@@ -141,6 +141,9 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
         Group code of each row, 0 .. len(fits) - 1, sorted (each group's rows
         contiguous), every code with >= 3 rows.
     log_base : float
+    logs : (ndarray, ndarray), optional
+        ``to_log(x, log_base)`` and ``to_log(y, log_base)`` when the caller has them
+        (several methods' fits to the same points).
 
     Returns
     -------
@@ -163,7 +166,7 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
     b = np.array([f.slope for f in fits], dtype=float)[codes]
     sd = np.array([f.resid_sd for f in fits], dtype=float)
     ln_base = math.log(log_base)
-    X, Y = to_log(x, log_base), to_log(y, log_base)
+    X, Y = logs if logs is not None else (to_log(x, log_base), to_log(y, log_base))
     line = a + b * X
     res = Y - line
     y_hat = log_base ** line
@@ -214,18 +217,33 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
             extra[key] = _extra_of(fit, sel["x"].to_numpy(), sel["y"].to_numpy())
         else:
             batches.setdefault((method, fit.log_base), []).append(key)
+    # The methods' batches usually hold the same point sets: each set's columns are
+    # read once, and each batch of sets is joined (and its logs taken) once.
+    columns: dict = {}
+    joined: dict = {}
     for (_, base), keys in batches.items():
-        sels = [point_sets[(s, g)] for s, g, _ in keys]
-        lengths = np.array([len(t) for t in sels])
-        codes = np.repeat(np.arange(len(keys)), lengths)
-        x = np.concatenate([t["x"].to_numpy(dtype=float) for t in sels])
-        y = np.concatenate([t["y"].to_numpy(dtype=float) for t in sels])
-        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))
-                and np.all(x > 0) and np.all(y > 0)):
-            for key, t in zip(keys, sels):   # let the per-fit path raise its clear error
+        sets = tuple((s, g) for s, g, _ in keys)
+        if sets not in joined:
+            for k in sets:
+                if k not in columns:
+                    t = point_sets[k]
+                    columns[k] = (t["x"].to_numpy(dtype=float), t["y"].to_numpy(dtype=float))
+            x = np.concatenate([columns[k][0] for k in sets])
+            y = np.concatenate([columns[k][1] for k in sets])
+            ok = bool(np.all(np.isfinite(x)) and np.all(np.isfinite(y))
+                      and np.all(x > 0) and np.all(y > 0))
+            codes = np.repeat(np.arange(len(sets)), [columns[k][0].size for k in sets])
+            joined[sets] = {"x": x, "y": y, "ok": ok, "codes": codes}
+        join = joined[sets]
+        if not join["ok"]:
+            for key in keys:   # let the per-fit path raise its clear error
+                t = point_sets[key[:2]]
                 extra[key] = _extra_of(line_fits[key], t["x"].to_numpy(), t["y"].to_numpy())
             continue
-        cols = factors_by_group([line_fits[k] for k in keys], x, y, codes, base)
+        if base not in join:
+            join[base] = (to_log(join["x"], base), to_log(join["y"], base))
+        cols = factors_by_group([line_fits[k] for k in keys], join["x"], join["y"],
+                                join["codes"], base, logs=join[base])
         for i, key in enumerate(keys):
             extra[key] = {c: float(v[i]) for c, v in cols.items()}
     extra = {key: extra[key] for key in line_fits if key in extra}   # the fits' order

@@ -46,9 +46,10 @@ import numpy as np
 from scipy import stats
 
 from ..errors import DataError
-from .lines import METHODS, fit_moments, fit_notes, get_method
+from .lines import METHODS, exact_fit, fit_moments, fit_notes, get_method
 from .moments import Moments, moments
-from .residual_checks import MIN_N, _check_alpha, parallel_lines_influence, unique_codes
+from .residual_checks import (MIN_N, _check_alpha, group_order, parallel_lines_influence,
+                              unique_codes)
 from .schema import check_method
 
 __all__ = ["PointCheck", "leave_one_out_slopes", "cooks_distances", "points_to_check",
@@ -313,22 +314,16 @@ def strong_influence_each(samples, *, method: str = "ols") -> list:
     mx, my = total(X) / n, total(Y) / n
     d, f = X - mx[each], Y - my[each]
     sxx, syy, sxy = total(d * d), total(f * f), total(d * f)
+    b, se = _slopes_and_ses(Moments(n=n, mean_x=mx, mean_y=my, sxx=sxx, syy=syy, sxy=sxy),
+                            method)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        # the whole fits one sample at a time, on scalars as strong_influence has them:
-        # numpy squares a scalar with pow() and an array by multiplying, which can
-        # differ in the last digit (SMA, MA)
-        full = [fit_moments(Moments(n=np.full((), n[i]), mean_x=mx[i], mean_y=my[i],
-                                    sxx=sxx[i], syy=syy[i], sxy=sxy[i]), method)
-                for i in range(sizes.size)]
         # leave one out (the algebra of leave_one_out_slopes)
         ne, k = n[each], (n / (n - 1))[each]
         down = Moments(n=ne - 1.0, mean_x=mx[each] - d / (ne - 1), mean_y=my[each] - f / (ne - 1),
                        sxx=sxx[each] - k * d * d, syy=syy[each] - k * f * f,
                        sxy=sxy[each] - k * d * f)
         loo = _slopes(down, method)
-    b = np.array([float(w["slope"]) for w in full])
-    se = np.array([float(w["slope_se"]) for w in full])
     with np.errstate(divide="ignore", invalid="ignore"):
         # Cook's distances (the algebra of cooks_distances)
         slope = (sxy / sxx)[each]
@@ -339,9 +334,31 @@ def strong_influence_each(samples, *, method: str = "ols") -> list:
         moved = np.abs(loo - b[each]) > se[each]
         flag = ((cook > COOK_STRONG) | moved) & (se[each] > 0)
     return [{"flag": flag[a:a + m], "cook": cook[a:a + m], "slope_without": loo[a:a + m],
-             "slope": np.asarray(full[i]["slope"], float),
-             "slope_se": np.asarray(full[i]["slope_se"], float)}
+             "slope": np.asarray(b[i], float), "slope_se": np.asarray(se[i], float)}
             for i, (a, m) in enumerate(zip(starts.tolist(), sizes.tolist()))]
+
+
+def _slopes_and_ses(m: Moments, method: str) -> tuple:
+    """``fit_moments(m[i], method)``'s ``slope`` and ``slope_se`` of each sample i of
+    one-dimensional moments, each equal to the float of sample i fitted alone.
+
+    The slope, the exact-fit and note tests are elementwise arithmetic (the same
+    floats for an array as for one sample); the slope variance is taken one sample
+    at a time on scalars, as a lone fit has them: numpy squares a scalar with pow()
+    and an array by multiplying, which can differ in the last digit (SMA, MA).
+    """
+    spec = get_method(method)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        b = np.asarray(spec.slope(m), dtype=float)
+        exact = exact_fit(m) & np.isfinite(b)
+        var = np.array([float(spec.slope_var(
+            Moments(n=np.full((), m.n[i]), mean_x=m.mean_x[i], mean_y=m.mean_y[i],
+                    sxx=m.sxx[i], syy=m.syy[i], sxy=m.sxy[i]), b[i]))
+            for i in range(b.size)], dtype=float)
+        se = np.sqrt(np.where(exact, 0.0, var))
+    bad = fit_notes(m, method).reshape(b.shape) != ""
+    return np.where(bad, np.nan, b), np.where(bad, np.nan, se)
 
 
 def fit_checks(*, smearing_factor: float | None = None,
@@ -448,7 +465,7 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
         resid = Y - float(b_line["intercept"][0]) - float(b_line["slope"][0]) * X
         codes, uniq = unique_codes(g)
         # one stable sort splits the residuals by group, in row order within each
-        order = np.argsort(codes, kind="stable")
+        order = group_order(codes, len(uniq))
         bounds = np.cumsum(np.bincount(codes, minlength=len(uniq)))[:-1]
         samples = np.split(resid[order], bounds)
         samples = [s for s in samples if s.size >= 2]
