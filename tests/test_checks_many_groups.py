@@ -160,3 +160,43 @@ class TestInfluentialRowsTable:
         # internal consistency: the unit of each flagged row number, as text
         assert _unit_labels(sel, sel["row"].to_numpy(), [9, 3]) == ["7", "a"]
         assert _unit_labels(sel.drop(columns="unit"), sel["row"].to_numpy(), [9]) == [""]
+
+
+class TestManyPointsInSlices:
+    def test_samples_beyond_one_pass_give_the_floats_of_each_sample_alone(self):
+        # internal consistency: runs of samples (and one sample longer than a run) give
+        # strong_influence's floats bit for bit
+        from scaling.stats.influence import SPAN
+        rng = np.random.default_rng(8)
+        sizes = [900] * 160 + [2 * SPAN + 11] + [5, 300]
+        samples = []
+        for n in sizes:
+            lx = rng.uniform(0.0, 3.0, n)
+            samples.append((lx, 0.7 * lx + rng.normal(0.0, 0.1, n)))
+        each = strong_influence_each(samples, method="sma")
+        for i in (0, 75, 159, 160, 161, 162):
+            ref = strong_influence(*samples[i], method="sma")
+            for key in ref:
+                assert np.array_equal(np.asarray(each[i][key]), np.asarray(ref[key]),
+                                      equal_nan=key != "flag"), (i, key)
+
+    @pytest.mark.parametrize("shape", [(3 * (1 << 16) + 5,), (2, (1 << 16) + 3)])
+    def test_cooks_distances_and_left_out_slopes_equal_the_whole_array_algebra(self, shape):
+        # internal consistency: the elementwise steps a slice at a time equal the same
+        # algebra on whole arrays (Cook 1977, Technometrics 19:15; downdated moments)
+        from scaling.stats.influence import cooks_distances, leave_one_out_slopes
+        rng = np.random.default_rng(9)
+        X = rng.uniform(0.0, 3.0, shape)
+        Y = 0.6 * X + rng.normal(0.0, 0.2, shape)
+        n = shape[-1]
+        xc = X - X.mean(axis=-1, keepdims=True)
+        yc = Y - Y.mean(axis=-1, keepdims=True)
+        sxx = np.sum(xc * xc, axis=-1, keepdims=True)
+        e = yc - np.sum(xc * yc, axis=-1, keepdims=True) / sxx * xc
+        s2 = np.sum(e * e, axis=-1, keepdims=True) / (n - 2)
+        h = 1.0 / n + xc * xc / sxx
+        assert np.array_equal(cooks_distances(X, Y), e * e * h / (2 * s2 * (1 - h) ** 2))
+        k = n / (n - 1)
+        sxy = np.sum(xc * yc, axis=-1, keepdims=True)
+        ols = (sxy - k * xc * yc) / (sxx - k * xc * xc)
+        assert np.array_equal(leave_one_out_slopes(X, Y, method="ols"), ols)

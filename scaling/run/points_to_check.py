@@ -119,8 +119,12 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
         smear, param = factors.get(key, (None, None))
         if whole:   # the points are read for the primary pooled line only
             labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
-            groups = (sel["group"].astype(str).to_numpy()
-                      if "group" in sel and scope == "pooled" else None)
+            # the groups as codes in the order of their names (factorized by pandas:
+            # no Python string per row)
+            codes = (pd.factorize(sel["group"].astype(str), sort=True)[0]
+                     if "group" in sel and scope == "pooled" else None)
+            if codes is not None and codes.size and codes.min() < 0:   # a missing name
+                codes = unique_codes(sel["group"].astype(str).to_numpy())[0]
             x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
             rows = sel["row"].to_numpy() if "row" in sel else None
         try:
@@ -128,7 +132,7 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
                 warnings.simplefilter("ignore")
                 if whole:
                     found = points_to_check(x, y, method=method, rows=rows, labels=labels,
-                                            groups=groups, smearing_factor=smear,
+                                            group_codes=codes, smearing_factor=smear,
                                             parametric_factor=param, estimates=est,
                                             alpha=alpha)
                 else:   # fit-level checks only; points are checked on the primary line
