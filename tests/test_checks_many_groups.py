@@ -200,3 +200,61 @@ class TestManyPointsInSlices:
         sxy = np.sum(xc * yc, axis=-1, keepdims=True)
         ols = (sxy - k * xc * yc) / (sxx - k * xc * xc)
         assert np.array_equal(leave_one_out_slopes(X, Y, method="ols"), ols)
+
+
+def test_cooks_distances_of_the_pooled_line_are_statsmodels_own():
+    # reference library: statsmodels OLSInfluence.cooks_distance[0], bit for bit (its
+    # own formula, without the p-values)
+    from statsmodels.regression.linear_model import OLS
+    from statsmodels.stats.outliers_influence import OLSInfluence
+    from scaling.stats.residual_checks import _ols_cooks
+    rng = np.random.default_rng(12)
+    X = rng.uniform(0.0, 3.0, 500)
+    Y = 0.7 * X + rng.normal(0.0, 0.2, 500)
+    exog = np.column_stack([np.ones(500), X])
+    assert np.array_equal(_ols_cooks(OLSInfluence(OLS(Y, exog).fit())),
+                          OLSInfluence(OLS(Y, exog).fit()).cooks_distance[0])
+
+
+class TestCodedGroups:
+    LABELS = ["b", "B", "a", "é", "Z", "z1", "z10", "z9", " x", "ß", "10", "9", "a b", "Ä"]
+
+    def _column(self, kind):
+        rng = np.random.default_rng(4)
+        if kind == "int":
+            return pd.Series(rng.integers(0, 30, 3000))
+        return pd.Series(np.array(self.LABELS, dtype=object)[rng.integers(0, 14, 3000)],
+                         dtype=kind)
+
+    @pytest.mark.parametrize("kind", ["str", "object", "int"])
+    def test_codes_and_names_equal_the_text_coding(self, kind):
+        # internal consistency: pandas' coding of the names equals unique_codes of the text
+        from scaling.run.points_to_check import coded_groups
+        from scaling.stats.residual_checks import unique_codes
+        column = self._column(kind)
+        got = coded_groups(column)
+        codes, names = unique_codes(column.astype(str).to_numpy())
+        assert np.array_equal(got.codes, codes) and np.array_equal(got.labels, names)
+
+    def test_membership_equals_numpy_isin(self):
+        from scaling.run.points_to_check import in_groups
+        labels = self._column("object").to_numpy()
+        for names in (["a", "10"], [10, "Z"], [], ["none"]):
+            # internal consistency: a hash look-up gives numpy's answer
+            assert np.array_equal(in_groups(labels, names),
+                                  np.isin(labels, np.asarray(names, dtype=str)))
+
+    def test_parallel_lines_checks_of_coded_groups_equal_those_of_labels(self):
+        # internal consistency: coding the groups first changes no float
+        from scaling.stats.influence import strong_parallel_influence
+        from scaling.stats.residual_checks import GroupCodes, diagnose_parallel, unique_codes
+        rng = np.random.default_rng(6)
+        labels = np.array(self.LABELS, dtype=object)[rng.integers(0, 14, 600)]
+        X = rng.uniform(0.0, 3.0, 600)
+        Y = 0.1 * rng.integers(0, 5, 600) + 0.7 * X + rng.normal(0.0, 0.1, 600)
+        coded = GroupCodes(*unique_codes(labels))
+        a, b = diagnose_parallel(0.7, X, Y, labels), diagnose_parallel(0.7, X, Y, coded)
+        assert [c.to_record() for c in a.checks] == [c.to_record() for c in b.checks]
+        assert np.array_equal(a.cooks_distance, b.cooks_distance)
+        p, q = strong_parallel_influence(X, Y, labels), strong_parallel_influence(X, Y, coded)
+        assert all(np.array_equal(p[k], q[k]) for k in p)

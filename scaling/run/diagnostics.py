@@ -33,6 +33,7 @@ from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
+from .points_to_check import coded_groups, in_groups
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
 
@@ -83,7 +84,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
                 if fit is None:
                     d = diagnose_parallel(_common_slope(state.fits, method),
                                           sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
-                                          sel["group"].astype(str).to_numpy(), method=method,
+                                          coded_groups(sel["group"]), method=method,
                                           rows=rows, exponent_targets=targets,
                                           alpha=dc.alpha, log_base=state.base)
                 else:
@@ -102,7 +103,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         flagged, cooks = d.influence_values()
         if flagged:
             k = len(flagged)
-            flagged = [int(r) for r in flagged]
+            flagged = np.asarray(flagged, dtype=np.int64).tolist()
             infl["scope"] += [scope] * k
             infl["group"] += [group] * k
             infl["method"] += [method] * k
@@ -200,8 +201,10 @@ def _common_points(point_sets: dict, method: str):
                                   labels, method=method)
     except ScalingError:
         return None
-    sel = pooled[np.isin(labels, np.asarray(used, dtype=str))]
-    return sel if len(used) >= 2 else None
+    if len(used) < 2:
+        return None
+    inside = in_groups(labels, used)
+    return pooled if inside.all() else pooled[inside]   # usually every group: no copy
 
 
 def _common_slope(fits: pd.DataFrame, method: str) -> float:

@@ -30,11 +30,11 @@ from ..render.headline import primary_method as primary_method_of
 from ..stats.group_comparisons import compare_groups
 from ..stats.group_means import compared_groups
 from ..stats.line_results import fit_line
-from ..stats.residual_checks import group_order, unique_codes
+from ..stats.residual_checks import GroupCodes, group_order, unique_codes
 from ..stats.lines import METHODS, method_label
 
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run",
-           "answer_points"]
+           "answer_points", "in_groups", "coded_groups"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
 from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, narrows,
@@ -121,10 +121,8 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
             labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
             # the groups as codes in the order of their names (factorized by pandas:
             # no Python string per row)
-            codes = (pd.factorize(sel["group"].astype(str), sort=True)[0]
+            codes = (coded_groups(sel["group"]).codes
                      if "group" in sel and scope == "pooled" else None)
-            if codes is not None and codes.size and codes.min() < 0:   # a missing name
-                codes = unique_codes(sel["group"].astype(str).to_numpy())[0]
             x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
             rows = sel["row"].to_numpy() if "row" in sel else None
         try:
@@ -225,6 +223,23 @@ def answer_points(cfg, state) -> list:
             return []
 
 
+def in_groups(labels: np.ndarray, names) -> np.ndarray:
+    """``np.isin(labels, np.asarray(names, dtype=str))`` for text labels, by one hash
+    look-up per label (numpy compares every label with every name: a million rows
+    times a thousand groups)."""
+    return pd.Series(labels, dtype=object, copy=False).isin([str(n) for n in names]).to_numpy()
+
+
+def coded_groups(column: pd.Series) -> GroupCodes:
+    """A group column's names as :class:`~scaling.stats.residual_checks.GroupCodes`
+    (codes in the order of the names as text), factorized by pandas without making a
+    Python string per row; a column with a missing name is coded through its text."""
+    codes, names = pd.factorize(column.astype(str), sort=True)
+    if codes.size and codes.min() < 0:
+        return GroupCodes(*unique_codes(column.astype(str).to_numpy()))
+    return GroupCodes(codes, np.asarray(names, dtype=str))
+
+
 def _group_sets(state, method: str):
     for (scope, g), sel in state.point_sets.items():
         if scope == "group" and ("group", g, method) in state.line_fits and len(sel) >= 4:
@@ -323,16 +338,17 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
     X, Y = pooled["log_x"].to_numpy(), pooled["log_y"].to_numpy()
     labels = pooled["group"].astype(str).to_numpy()
     used, _ = compared_groups(X, Y, labels, method=method)
-    inside = np.isin(labels, np.asarray(used, dtype=str))
+    inside = in_groups(labels, used)
     if len(used) < 2:
         return []
-    sel = pooled[inside]
-    Xs, Ys, gs = X[inside], Y[inside], labels[inside]
-    par = strong_parallel_influence(Xs, Ys, gs)
+    every = bool(inside.all())   # usually every group is compared: no copies
+    sel = pooled if every else pooled[inside]
+    Xs, Ys, gs = (X, Y, labels) if every else (X[inside], Y[inside], labels[inside])
+    codes, names = unique_codes(gs)   # coded once, for the model and for the split
+    par = strong_parallel_influence(Xs, Ys, GroupCodes(codes, names))
     rank = {int(k): float(par["cook"][k]) for k in np.flatnonzero(par["flag"])}
     own: dict = {}   # point -> its strong finding in its group's own line
     # each group's points in row order (one stable sort, not one comparison per group)
-    codes, names = unique_codes(gs)
     split = np.split(group_order(codes, len(names)),
                      np.cumsum(np.bincount(codes, minlength=len(names)))[:-1])
     where = {str(name): i for i, name in enumerate(names)}

@@ -543,7 +543,8 @@ def strong_parallel_influence(log_x, log_y, groups) -> dict:
     Parameters
     ----------
     log_x, log_y, groups : array_like, shape (n,)
-        The points of the groups sharing a slope (at least 2 per group).
+        The points of the groups sharing a slope (at least 2 per group);
+        ``groups`` may be a :class:`scaling.stats.residual_checks.GroupCodes`.
 
     Returns
     -------

@@ -65,7 +65,7 @@ from .moments import moments
 
 __all__ = ["Check", "Curvature", "Diagnostics", "diagnose", "quadratic_t", "MIN_N",
            "within_quadratic_t", "parallel_lines_influence", "diagnose_parallel",
-           "breusch_pagan", "unique_codes", "group_order"]
+           "breusch_pagan", "unique_codes", "group_order", "GroupCodes"]
 
 #: Fewest points a diagnostic check reads.
 MIN_N = 4
@@ -469,8 +469,7 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         from statsmodels.regression.linear_model import OLS
         from statsmodels.stats.outliers_influence import OLSInfluence
         memo["quadratic"] = {k: float(v) for k, v in quadratic_t(X, Y).items()}
-        memo["cooks"] = np.asarray(OLSInfluence(OLS(Y, np.column_stack([np.ones(n), X])).fit())
-                                   .cooks_distance[0], dtype=float)
+        memo["cooks"] = _ols_cooks(OLSInfluence(OLS(Y, np.column_stack([np.ones(n), X])).fit()))
     curv, check = _curvature(memo["quadratic"], X, targets, fit.log_base, alpha)
     checks.append(check)
     cooks = memo["cooks"]
@@ -482,6 +481,16 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
                        curvature=curv, residuals=resid, cooks_distance=cooks,
                        influence_threshold=threshold, influential_rows=influential,
                        rows=rows)
+
+
+def _ols_cooks(infl) -> np.ndarray:
+    """``infl.cooks_distance[0]`` of a statsmodels ``OLSInfluence``, by its own formula
+    (Eubank 1999, p. 93: r_i^2 / k * h_i / (1 - h_i), r the internally studentised
+    residual), without the F p-value of every point that statsmodels adds."""
+    hii = infl.hat_matrix_diag
+    cooks = infl.resid_studentized ** 2 / infl.k_vars
+    cooks *= hii / (1 - hii)
+    return np.asarray(cooks, dtype=float)
 
 
 def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
@@ -515,7 +524,22 @@ def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
 # the parallel-lines model: groups share a slope, each keeps its elevation
 
 
+@dataclass(frozen=True, slots=True)
+class GroupCodes:
+    """Groups already coded: ``labels[codes[i]]`` is point i's group, ``labels`` sorted
+    as text (what :func:`unique_codes` returns).  Passed as ``groups`` to the
+    parallel-lines functions, it spares coding a million labels once per function."""
+
+    codes: np.ndarray
+    labels: np.ndarray
+
+
 def _group_codes(groups, n: int) -> tuple:
+    if isinstance(groups, GroupCodes):
+        if np.shape(groups.codes) != (n,):
+            raise DataError(f"groups must give one value per point ({n}), "
+                            f"not shape {np.shape(groups.codes)}")
+        return np.asarray(groups.codes), np.asarray(groups.labels)
     g = np.asarray(groups)
     if g.shape != (n,):
         raise DataError(f"groups must give one value per point ({n}), not shape {g.shape}")
@@ -741,6 +765,7 @@ def diagnose_parallel(slope: float, log_x, log_y, groups, *, method: str = "ols"
     except (TypeError, ValueError):
         raise ConfigError("exponent_targets must be a sequence of numbers") from None
     codes, labels = _group_codes(groups, n)
+    groups = GroupCodes(codes, labels)   # coded once for the functions below
     infl = parallel_lines_influence(X, Y, groups)
     xt, yt = _within(X, codes, labels.size), _within(Y, codes, labels.size)
     resid = yt - float(slope) * xt
