@@ -258,3 +258,19 @@ class TestCodedGroups:
         assert np.array_equal(a.cooks_distance, b.cooks_distance)
         p, q = strong_parallel_influence(X, Y, labels), strong_parallel_influence(X, Y, coded)
         assert all(np.array_equal(p[k], q[k]) for k in p)
+
+
+def test_a_given_breusch_pagan_is_reported_as_given():
+    # internal consistency: diagnose reports the statistic its caller computed for every
+    # group at once, and the same numbers as its own closed form
+    rng = np.random.default_rng(13)
+    X = rng.uniform(0.0, 2.0, 60)
+    Y = 0.4 + 0.8 * X + (0.05 + 0.1 * X) * rng.normal(size=60)
+    fit = fit_line(X, Y, method="ols", log_base=None)
+    own = diagnose(fit, X, Y).check("constant_variance")
+    lm, p = breusch_pagan(Y - fit.intercept - fit.slope * X, X, np.zeros(60, dtype=int))
+    given = diagnose(fit, X, Y, constant_variance=(lm[0], p[0])).check("constant_variance")
+    assert (given.statistic, given.p_value) == (lm[0], p[0])
+    # internal consistency: the grouped sums equal the one-line sums to rounding
+    assert_allclose([given.statistic, given.p_value], [own.statistic, own.p_value], rtol=1e-12)
+    assert given.flagged == own.flagged and given.direction == own.direction

@@ -24,7 +24,7 @@ import pandas as pd
 
 from ..stats.error_structure import compare_error_structure
 from ..stats.group_means import compared_groups
-from ..stats.residual_checks import diagnose, diagnose_parallel
+from ..stats.residual_checks import MIN_N, breusch_pagan, diagnose, diagnose_parallel
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
@@ -34,6 +34,7 @@ from ..render.prediction_words import answer_primary
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
 from .points_to_check import coded_groups, in_groups
+from .predictions import CHUNK_ROWS, chunk_runs
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
 
@@ -69,6 +70,8 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     todo = [(key, fit, point_sets.get(key[:2])) for key, fit in line_fits.items()]
     if answer[0] == "common":
         todo.append((("common", "", answer[1]), None, _common_points(point_sets, answer[1])))
+    logs: dict = {}   # (scope, group) -> (log x, log y): each set's columns read once
+    bp = _groups_breusch_pagan(line_fits, point_sets, logs)
     for (scope, group, method), fit, sel in todo:
         if sel is None or (fit is not None and len(sel) != fit.n):
             continue
@@ -78,19 +81,19 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         else:
             rows = sel["row"].to_numpy()
             labels = None   # the flagged rows' units, looked up below
+        X, Y = _logs(logs, (scope, group), sel)
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 if fit is None:
-                    d = diagnose_parallel(_common_slope(state.fits, method),
-                                          sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
+                    d = diagnose_parallel(_common_slope(state.fits, method), X, Y,
                                           coded_groups(sel["group"]), method=method,
                                           rows=rows, exponent_targets=targets,
                                           alpha=dc.alpha, log_base=state.base)
                 else:
-                    d = diagnose(fit, sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
-                                 rows=rows, exponent_targets=targets, alpha=dc.alpha,
-                                 memo=memos.setdefault((scope, group), {}))
+                    d = diagnose(fit, X, Y, rows=rows, exponent_targets=targets,
+                                 alpha=dc.alpha, memo=memos.setdefault((scope, group), {}),
+                                 constant_variance=bp.get((scope, group, method)))
         except ScalingError:
             continue   # too few points (n < 4) or nothing to diagnose
         results[(scope, group, method)] = d
@@ -113,8 +116,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
             infl["cooks_distance"] += cooks
         if (scope, group) not in {(r["scope"], r["group"]) for r in curv_rows}:
             c = d.curvature
-            x = sel["log_x"].to_numpy()
-            e_lo, e_hi = c.local_exponent([x.min(), x.max()])
+            e_lo, e_hi = c.local_exponent([X.min(), X.max()])
             common = {"scope": scope, "group": group, "n": d.n, "quadratic": c.quadratic,
                       "quadratic_se": c.quadratic_se, "statistic": c.statistic, "df": c.df,
                       "p_value": c.p_value, "exponent_at_x_min": e_lo,
@@ -177,6 +179,38 @@ def _ordinary(message: str) -> str:
     if message.startswith(_ORDINARY_CHECKS):
         return "Ignoring ancestry (species independent) — " + message
     return message
+
+
+def _logs(cache: dict, key: tuple, sel: pd.DataFrame) -> tuple:
+    """A point set's log x and log y, read from its frame once (``cache`` by key)."""
+    if key not in cache:
+        cache[key] = (sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+    return cache[key]
+
+
+def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dict:
+    """``(scope, group, method) -> (statistic, p)`` of the Breusch-Pagan test of every
+    group line, a method at a time in one pass over runs of whole groups of about
+    :data:`~scaling.run.predictions.CHUNK_ROWS` rows
+    (:func:`~scaling.stats.residual_checks.breusch_pagan` with group codes)."""
+    by_method: dict = {}
+    for key, fit in line_fits.items():
+        sel = point_sets.get(key[:2])
+        if (key[0] == "group" and sel is not None and len(sel) == fit.n
+                and len(sel) >= MIN_N and fit.estimable):
+            by_method.setdefault(key[2], []).append((key, fit, _logs(cache, key[:2], sel)))
+    out = {}
+    runs = [lines[lo:hi] for lines in by_method.values()   # a few MB of rows at a time
+            for lo, hi in chunk_runs([xy[0].size for _, _, xy in lines], CHUNK_ROWS)]
+    for lines in runs:
+        X = np.concatenate([xy[0] for _, _, xy in lines])
+        e = np.concatenate([xy[1] - fit.intercept - fit.slope * xy[0] for _, fit, xy in lines])
+        codes = np.repeat(np.arange(len(lines)), [xy[0].size for _, _, xy in lines])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            lm, p = breusch_pagan(e, X, codes, n_groups=len(lines))
+        out.update({key: (lm[i], p[i]) for i, (key, _, _) in enumerate(lines)})
+    return out
 
 
 def _unit_labels(sel: pd.DataFrame, rows: np.ndarray, flagged: list) -> list:

@@ -47,7 +47,8 @@ from .several_predictors import constant_columns, constant_sentence
 __all__ = ["PredictionStage", "prediction_stage", "predictions_from_factors",
            "saved_fits_of", "accuracy_and_factors",
            "add_accuracy_columns", "factors_by_group", "prediction_methods",
-           "prediction_fits", "range_ratio", "add_range_ratio", "row_keys"]
+           "prediction_fits", "range_ratio", "add_range_ratio", "row_keys", "chunk_runs",
+           "CHUNK_ROWS"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -255,7 +256,7 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
     for (_, base), keys in batches.items():
         by_sets.setdefault(tuple((s, g) for s, g, _ in keys), []).append((base, keys))
     for sets, jobs in by_sets.items():
-        for lo, hi in _chunks([len(point_sets[k]) for k in sets], CHUNK_ROWS):
+        for lo, hi in chunk_runs([len(point_sets[k]) for k in sets], CHUNK_ROWS):
             cols = [(point_sets[k]["x"].to_numpy(dtype=float),
                      point_sets[k]["y"].to_numpy(dtype=float)) for k in sets[lo:hi]]
             x = cols[0][0] if len(cols) == 1 else np.concatenate([c[0] for c in cols])
@@ -282,7 +283,7 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
     return saved_fits_of(line_fits, extra), extra
 
 
-def _chunks(lengths: list, rows: int) -> list:
+def chunk_runs(lengths: list, rows: int) -> list:
     """``(start, stop)`` runs of consecutive items whose lengths add up to at most
     ``rows`` (an item longer than ``rows`` alone)."""
     out, lo, filled = [], 0, 0

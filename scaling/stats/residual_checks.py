@@ -400,7 +400,8 @@ def _checked_logs(log_x, log_y) -> tuple:
 
 
 def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
-             alpha: float = 0.05, memo: dict | None = None) -> Diagnostics:
+             alpha: float = 0.05, memo: dict | None = None,
+             constant_variance: tuple | None = None) -> Diagnostics:
     """Residual normality, constant variance, curvature and influence of a fit.
 
     Parameters
@@ -423,6 +424,10 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         fitted to those same points: the parts that do not depend on the
         line (the quadratic fit, the OLS Cook's distances) are computed by the
         first call and read by the others.
+    constant_variance : (float, float), optional
+        The Breusch-Pagan statistic and p-value of this line's residuals when
+        the caller has them (every group of a method at once:
+        :func:`breusch_pagan` with group codes).
 
     Returns
     -------
@@ -464,7 +469,7 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     if np.ptp(resid) == 0:
         warnings.warn("residuals are all equal: the constant-variance test is not defined",
                       DegenerateDataWarning, stacklevel=2)
-    checks.append(_constant_variance(resid, X, alpha=alpha))
+    checks.append(_constant_variance(resid, X, alpha=alpha, given=constant_variance))
     if "quadratic" not in memo:   # the same for every line through these points
         from statsmodels.regression.linear_model import OLS
         from statsmodels.stats.outliers_influence import OLSInfluence
@@ -812,11 +817,14 @@ def _normality(resid, alpha) -> Check:
                  flagged=flagged, finding=_finding(flagged))
 
 
-def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05) -> Check:
-    """Breusch-Pagan check on (1, X): closed form (:func:`breusch_pagan`), or
-    ``het_breuschpagan(resid, exog)`` when a function of that signature is given."""
+def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05, given=None) -> Check:
+    """Breusch-Pagan check on (1, X): ``given`` (statistic, p), else the closed form
+    (:func:`breusch_pagan`), or ``het_breuschpagan(resid, exog)`` when a function of
+    that signature is given."""
     if np.ptp(resid) == 0:
         lm, p_bp = math.nan, math.nan
+    elif given is not None:
+        lm, p_bp = float(given[0]), float(given[1])
     elif het_breuschpagan is None:
         lm, p_bp = breusch_pagan(resid, X)
     else:
