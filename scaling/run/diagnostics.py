@@ -24,7 +24,7 @@ import pandas as pd
 
 from ..stats.error_structure import compare_error_structure
 from ..stats.group_means import compared_groups
-from ..stats.residual_checks import diagnose, diagnose_parallel
+from ..stats.residual_checks import MIN_N, breusch_pagan, diagnose, diagnose_parallel
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
@@ -33,6 +33,8 @@ from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
+from .points_to_check import coded_groups, in_groups
+from .predictions import CHUNK_ROWS, chunk_runs
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
 
@@ -57,7 +59,8 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     line_fits, point_sets, notes = bounded_diagnostics(state.line_fits, state.point_sets, cfg)
     dc = cfg.diagnostics
     targets = exponent_targets(cfg)
-    diag_records, infl_rows, curv_rows, es_rows = [], [], [], []
+    diag_records, curv_rows, es_rows = [], [], []
+    infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
     results: dict = {}
     # The ordinary answer's model; with a tree the phylogenetic model the Answer leads
@@ -67,6 +70,8 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     todo = [(key, fit, point_sets.get(key[:2])) for key, fit in line_fits.items()]
     if answer[0] == "common":
         todo.append((("common", "", answer[1]), None, _common_points(point_sets, answer[1])))
+    logs: dict = {}   # (scope, group) -> (log x, log y): each set's columns read once
+    bp = _groups_breusch_pagan(line_fits, point_sets, logs)
     for (scope, group, method), fit, sel in todo:
         if sel is None or (fit is not None and len(sel) != fit.n):
             continue
@@ -75,21 +80,20 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
             labels = {i: str(g) for i, g in enumerate(sel["group"])}
         else:
             rows = sel["row"].to_numpy()
-            labels = (dict(zip(rows.tolist(), sel["unit"].astype(str))) if "unit" in sel
-                      else {})
+            labels = None   # the flagged rows' units, looked up below
+        X, Y = _logs(logs, (scope, group), sel)
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 if fit is None:
-                    d = diagnose_parallel(_common_slope(state.fits, method),
-                                          sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
-                                          sel["group"].astype(str).to_numpy(), method=method,
+                    d = diagnose_parallel(_common_slope(state.fits, method), X, Y,
+                                          coded_groups(sel["group"]), method=method,
                                           rows=rows, exponent_targets=targets,
                                           alpha=dc.alpha, log_base=state.base)
                 else:
-                    d = diagnose(fit, sel["log_x"].to_numpy(), sel["log_y"].to_numpy(),
-                                 rows=rows, exponent_targets=targets, alpha=dc.alpha,
-                                 memo=memos.setdefault((scope, group), {}))
+                    d = diagnose(fit, X, Y, rows=rows, exponent_targets=targets,
+                                 alpha=dc.alpha, memo=memos.setdefault((scope, group), {}),
+                                 constant_variance=bp.get((scope, group, method)))
         except ScalingError:
             continue   # too few points (n < 4) or nothing to diagnose
         results[(scope, group, method)] = d
@@ -99,15 +103,20 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         diag_records += [{"scope": scope, "group": group, "method": d.method,
                           **c.to_record(), "verdict": check_verdict(c, groups=named)}
                          for c in d.checks]
-        for row, cook in zip(*d.influence_values()):
-            row = int(row)
-            infl_rows.append({"scope": scope, "group": group, "method": method,
-                              "row": None if scope == "group_means" else row,
-                              "label": labels.get(row, ""), "cooks_distance": cook})
+        flagged, cooks = d.influence_values()
+        if flagged:
+            k = len(flagged)
+            flagged = np.asarray(flagged, dtype=np.int64).tolist()
+            infl["scope"] += [scope] * k
+            infl["group"] += [group] * k
+            infl["method"] += [method] * k
+            infl["row"] += [None] * k if scope == "group_means" else flagged
+            infl["label"] += ([labels.get(r, "") for r in flagged] if labels is not None
+                              else _unit_labels(sel, rows, flagged))
+            infl["cooks_distance"] += cooks
         if (scope, group) not in {(r["scope"], r["group"]) for r in curv_rows}:
             c = d.curvature
-            x = sel["log_x"].to_numpy()
-            e_lo, e_hi = c.local_exponent([x.min(), x.max()])
+            e_lo, e_hi = c.local_exponent([X.min(), X.max()])
             common = {"scope": scope, "group": group, "n": d.n, "quadratic": c.quadratic,
                       "quadratic_se": c.quadratic_se, "statistic": c.statistic, "df": c.df,
                       "p_value": c.p_value, "exponent_at_x_min": e_lo,
@@ -144,13 +153,15 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         frame, p_infl, p_curv, p_msgs = diagnostic_rows(cfg, phylo,
                                                         state.tables.get("points_to_check"))
         diag_records[:0] = frame.to_dict(orient="records")
-        infl_rows[:0] = p_infl
+        for c in INFLUENCE_COLUMNS:
+            infl[c][:0] = [r[c] for r in p_infl]
         curv_rows[:0] = p_curv
         messages = p_msgs + [_ordinary(m) for m in messages]
     tables = {
         "diagnostics": pd.DataFrame(diag_records)[DIAGNOSTIC_COLUMNS]
         if diag_records else pd.DataFrame(columns=DIAGNOSTIC_COLUMNS),
-        "influential_rows": pd.DataFrame(infl_rows, columns=INFLUENCE_COLUMNS),
+        "influential_rows": (pd.DataFrame(infl, columns=INFLUENCE_COLUMNS) if infl["row"]
+                             else pd.DataFrame([], columns=INFLUENCE_COLUMNS)),
         "curvature": pd.DataFrame(curv_rows, columns=CURVATURE_COLUMNS),
     }
     if dc.error_structure:
@@ -170,6 +181,49 @@ def _ordinary(message: str) -> str:
     return message
 
 
+def _logs(cache: dict, key: tuple, sel: pd.DataFrame) -> tuple:
+    """A point set's log x and log y, read from its frame once (``cache`` by key)."""
+    if key not in cache:
+        cache[key] = (sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+    return cache[key]
+
+
+def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dict:
+    """``(scope, group, method) -> (statistic, p)`` of the Breusch-Pagan test of every
+    group line, a method at a time in one pass over runs of whole groups of about
+    :data:`~scaling.run.predictions.CHUNK_ROWS` rows
+    (:func:`~scaling.stats.residual_checks.breusch_pagan` with group codes)."""
+    by_method: dict = {}
+    for key, fit in line_fits.items():
+        sel = point_sets.get(key[:2])
+        if (key[0] == "group" and sel is not None and len(sel) == fit.n
+                and len(sel) >= MIN_N and fit.estimable):
+            by_method.setdefault(key[2], []).append((key, fit, _logs(cache, key[:2], sel)))
+    out = {}
+    runs = [lines[lo:hi] for lines in by_method.values()   # a few MB of rows at a time
+            for lo, hi in chunk_runs([xy[0].size for _, _, xy in lines], CHUNK_ROWS)]
+    for lines in runs:
+        X = np.concatenate([xy[0] for _, _, xy in lines])
+        e = np.concatenate([xy[1] - fit.intercept - fit.slope * xy[0] for _, fit, xy in lines])
+        codes = np.repeat(np.arange(len(lines)), [xy[0].size for _, _, xy in lines])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            lm, p = breusch_pagan(e, X, codes, n_groups=len(lines))
+        out.update({key: (lm[i], p[i]) for i, (key, _, _) in enumerate(lines)})
+    return out
+
+
+def _unit_labels(sel: pd.DataFrame, rows: np.ndarray, flagged: list) -> list:
+    """The ``unit`` (as text) of each flagged row number, "" without a unit column; a
+    row number that repeats takes its last point's unit."""
+    if "unit" not in sel:
+        return [""] * len(flagged)
+    rows = np.asarray(rows, dtype=np.int64)
+    order = np.argsort(rows, kind="stable")
+    at = order[np.searchsorted(rows, flagged, side="right", sorter=order) - 1]
+    return sel["unit"].iloc[at].astype(str).tolist()
+
+
 def _common_points(point_sets: dict, method: str):
     """The pooled points of the groups the common slope of ``method`` is estimated from."""
     pooled = point_sets.get(("pooled", ""))
@@ -181,8 +235,10 @@ def _common_points(point_sets: dict, method: str):
                                   labels, method=method)
     except ScalingError:
         return None
-    sel = pooled[np.isin(labels, np.asarray(used, dtype=str))]
-    return sel if len(used) >= 2 else None
+    if len(used) < 2:
+        return None
+    inside = in_groups(labels, used)
+    return pooled if inside.all() else pooled[inside]   # usually every group: no copy
 
 
 def _common_slope(fits: pd.DataFrame, method: str) -> float:

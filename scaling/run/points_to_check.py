@@ -30,11 +30,11 @@ from ..render.headline import primary_method as primary_method_of
 from ..stats.group_comparisons import compare_groups
 from ..stats.group_means import compared_groups
 from ..stats.line_results import fit_line
-from ..stats.residual_checks import unique_codes
+from ..stats.residual_checks import GroupCodes, group_order, unique_codes
 from ..stats.lines import METHODS, method_label
 
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run",
-           "answer_points"]
+           "answer_points", "in_groups", "coded_groups"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
 from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, narrows,
@@ -119,8 +119,10 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
         smear, param = factors.get(key, (None, None))
         if whole:   # the points are read for the primary pooled line only
             labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
-            groups = (sel["group"].astype(str).to_numpy()
-                      if "group" in sel and scope == "pooled" else None)
+            # the groups as codes in the order of their names (factorized by pandas:
+            # no Python string per row)
+            codes = (coded_groups(sel["group"]).codes
+                     if "group" in sel and scope == "pooled" else None)
             x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
             rows = sel["row"].to_numpy() if "row" in sel else None
         try:
@@ -128,7 +130,7 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
                 warnings.simplefilter("ignore")
                 if whole:
                     found = points_to_check(x, y, method=method, rows=rows, labels=labels,
-                                            groups=groups, smearing_factor=smear,
+                                            group_codes=codes, smearing_factor=smear,
                                             parametric_factor=param, estimates=est,
                                             alpha=alpha)
                 else:   # fit-level checks only; points are checked on the primary line
@@ -207,17 +209,35 @@ def answer_points(cfg, state) -> list:
             if line == "common":
                 return _common_points(cfg, state, pooled, method, hyps)
             if line == "groups":
-                sets = [(g, sel) for g, sel in _group_sets(state, method)
-                        if np.ptp(sel["log_x"].to_numpy()) > 0]
-                screens = strong_influence_each(
-                    [(sel["log_x"].to_numpy(), sel["log_y"].to_numpy()) for _, sel in sets],
-                    method=method)   # every group's screen in one array pass
-                return [p for (g, sel), inf in zip(sets, screens)
+                # each group's columns read once (a column of a frame costs tens of µs)
+                sets = [(g, sel, sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+                        for g, sel in _group_sets(state, method)]
+                sets = [s for s in sets if np.ptp(s[2]) > 0]
+                screens = strong_influence_each([(X, Y) for _, _, X, Y in sets],
+                                                method=method)   # every group in one pass
+                return [p for (g, sel, X, Y), inf in zip(sets, screens)
                         for p in _line_points(cfg, state, sel, "group", g, method, hyps,
-                                              inf=inf)]
+                                              inf=inf, xy=(X, Y))]
             return _line_points(cfg, state, pooled, "pooled", "", method, hyps)
         except ScalingError:
             return []
+
+
+def in_groups(labels: np.ndarray, names) -> np.ndarray:
+    """``np.isin(labels, np.asarray(names, dtype=str))`` for text labels, by one hash
+    look-up per label (numpy compares every label with every name: a million rows
+    times a thousand groups)."""
+    return pd.Series(labels, dtype=object, copy=False).isin([str(n) for n in names]).to_numpy()
+
+
+def coded_groups(column: pd.Series) -> GroupCodes:
+    """A group column's names as :class:`~scaling.stats.residual_checks.GroupCodes`
+    (codes in the order of the names as text), factorized by pandas without making a
+    Python string per row; a column with a missing name is coded through its text."""
+    codes, names = pd.factorize(column.astype(str), sort=True)
+    if codes.size and codes.min() < 0:
+        return GroupCodes(*unique_codes(column.astype(str).to_numpy()))
+    return GroupCodes(codes, np.asarray(names, dtype=str))
 
 
 def _group_sets(state, method: str):
@@ -273,12 +293,15 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
 
 
 def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps,
-                 inf: dict | None = None) -> list:
+                 inf: dict | None = None, xy: tuple | None = None) -> list:
     """Strong points of one line (pooled, or a group's when slopes differ), refitted out.
 
     ``inf``: the line's :func:`scaling.stats.influence.strong_influence`, when the
-    caller has screened many lines at once."""
-    X, Y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
+    caller has screened many lines at once (a line with varying x); ``xy``: the
+    line's log x and log y when the caller has read them."""
+    if inf is not None and not inf["flag"].any():   # nothing to refit (most groups)
+        return []
+    X, Y = xy if xy is not None else (sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
     if np.ptp(X) == 0:
         return []
     if inf is None:
@@ -315,17 +338,18 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
     X, Y = pooled["log_x"].to_numpy(), pooled["log_y"].to_numpy()
     labels = pooled["group"].astype(str).to_numpy()
     used, _ = compared_groups(X, Y, labels, method=method)
-    inside = np.isin(labels, np.asarray(used, dtype=str))
+    inside = in_groups(labels, used)
     if len(used) < 2:
         return []
-    sel = pooled[inside]
-    Xs, Ys, gs = X[inside], Y[inside], labels[inside]
-    par = strong_parallel_influence(Xs, Ys, gs)
+    every = bool(inside.all())   # usually every group is compared: no copies
+    sel = pooled if every else pooled[inside]
+    Xs, Ys, gs = (X, Y, labels) if every else (X[inside], Y[inside], labels[inside])
+    codes, names = unique_codes(gs)   # coded once, for the model and for the split
+    par = strong_parallel_influence(Xs, Ys, GroupCodes(codes, names))
     rank = {int(k): float(par["cook"][k]) for k in np.flatnonzero(par["flag"])}
     own: dict = {}   # point -> its strong finding in its group's own line
     # each group's points in row order (one stable sort, not one comparison per group)
-    codes, names = unique_codes(gs)
-    split = np.split(np.argsort(codes, kind="stable"),
+    split = np.split(group_order(codes, len(names)),
                      np.cumsum(np.bincount(codes, minlength=len(names)))[:-1])
     where = {str(name): i for i, name in enumerate(names)}
     members = [(str(g), mine) for g, mine in ((g, split[where[str(g)]]) for g in used)

@@ -47,7 +47,8 @@ from .several_predictors import constant_columns, constant_sentence
 __all__ = ["PredictionStage", "prediction_stage", "predictions_from_factors",
            "saved_fits_of", "accuracy_and_factors",
            "add_accuracy_columns", "factors_by_group", "prediction_methods",
-           "prediction_fits", "range_ratio", "add_range_ratio", "row_keys"]
+           "prediction_fits", "range_ratio", "add_range_ratio", "row_keys", "chunk_runs",
+           "CHUNK_ROWS"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -127,7 +128,7 @@ def _extra_of(fit, x, y) -> dict:
 
 
 def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray,
-                     log_base: float) -> dict:
+                     log_base: float, *, logs: tuple | None = None) -> dict:
     """Accuracy and correction factors of many fits at once, one fit per group code.
 
     Parameters
@@ -141,6 +142,9 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
         Group code of each row, 0 .. len(fits) - 1, sorted (each group's rows
         contiguous), every code with >= 3 rows.
     log_base : float
+    logs : (ndarray, ndarray), optional
+        ``to_log(x, log_base)`` and ``to_log(y, log_base)`` when the caller has them
+        (several methods' fits to the same points).
 
     Returns
     -------
@@ -159,22 +163,53 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
     ratio = mean(y) / mean(yhat) (Snowdon 1991, Can. J. For. Res. 21:720).
     """
     k = len(fits)
-    a = np.array([f.intercept for f in fits], dtype=float)[codes]
-    b = np.array([f.slope for f in fits], dtype=float)[codes]
+    sizes = np.bincount(codes, minlength=k)
     sd = np.array([f.resid_sd for f in fits], dtype=float)
     ln_base = math.log(log_base)
-    X, Y = to_log(x, log_base), to_log(y, log_base)
-    line = a + b * X
+    X, Y = logs if logs is not None else (to_log(x, log_base), to_log(y, log_base))
+    # a + b X, each group's a and b repeated over its (contiguous) rows, in place
+    line = np.repeat(np.array([f.slope for f in fits], dtype=float), sizes) * X
+    line += np.repeat(np.array([f.intercept for f in fits], dtype=float), sizes)
     res = Y - line
-    y_hat = log_base ** line
-    sizes = np.bincount(codes, minlength=k)
+    y_hat = np.power(log_base, line, out=line)
     n = sizes.astype(float)
     starts = np.concatenate(([0], np.cumsum(sizes[:-1])))
-    # Groups of equal size side by side as rows of one C-ordered block: a sum
-    # along the rows adds each group's values in the same (pairwise) order as
-    # np.sum / np.mean on that group alone, so every number equals the per-fit
-    # one to the last bit.  One block per distinct group size (at most
-    # sqrt(2 N) of them for N rows).
+    total = _group_sums(sizes, starts)
+
+    see = np.sqrt(total(res * res) / (n - 2))
+    # base ** SEE with Python's pow on each float, as accuracy() does (numpy's
+    # vectorised power can differ in the last bit).
+    percent_see = np.array([100 * (log_base ** v - 1) for v in see.tolist()])
+    res *= ln_base
+    smearing = total(np.exp(res, out=res)) / n
+    del res
+    gap = np.subtract(y, y_hat)
+    np.abs(gap, out=gap)
+    percent_pe = 100 * (total(np.divide(gap, y_hat, out=gap)) / n)
+    del gap
+    return {"see": see, "percent_see": percent_see, "percent_pe": percent_pe,
+            "smearing_factor": smearing,
+            "parametric_factor": np.exp(sd * sd * ln_base * ln_base / 2),
+            "ratio_factor": (total(y) / n) / (total(y_hat) / n)}
+
+
+def _group_sums(sizes: np.ndarray, starts: np.ndarray):
+    """A function summing an array's values group by group (groups contiguous), each in
+    the (pairwise) order of ``np.sum`` on that group alone, so every number equals the
+    per-fit one to the last bit.
+
+    A few groups: one sum of each group's slice.  Many: groups of equal size side by
+    side as rows of one C-ordered block, summed along the rows (one block per distinct
+    group size, at most sqrt(2 N) of them for N rows), without a Python loop over groups.
+    """
+    k = sizes.size
+    if k <= _FEW_GROUPS:
+        bounds = list(zip(starts.tolist(), (starts + sizes).tolist()))
+        add = np.add.reduce
+
+        def total(w):
+            return np.array([add(w[a:b]) for a, b in bounds], dtype=float)
+        return total
     blocks = [(idx, starts[idx][:, None] + np.arange(size))
               for size in np.unique(sizes)
               for idx in [np.flatnonzero(sizes == size)]]
@@ -184,16 +219,14 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
         for idx, rows in blocks:
             out[idx] = w[rows].sum(axis=1)
         return out
+    return total
 
-    see = np.sqrt(total(res * res) / (n - 2))
-    # base ** SEE with Python's pow on each float, as accuracy() does (numpy's
-    # vectorised power can differ in the last bit).
-    percent_see = np.array([100 * (log_base ** v - 1) for v in see.tolist()])
-    return {"see": see, "percent_see": percent_see,
-            "percent_pe": 100 * (total(np.abs(y - y_hat) / y_hat) / n),
-            "smearing_factor": total(np.exp(res * ln_base)) / n,
-            "parametric_factor": np.exp(sd * sd * ln_base * ln_base / 2),
-            "ratio_factor": (total(y) / n) / (total(y_hat) / n)}
+
+#: At most this many groups are summed one slice each (:func:`_group_sums`).
+_FEW_GROUPS = 64
+#: Rows of the point sets evaluated together by :func:`accuracy_and_factors` (a larger
+#: set alone): the temporary arrays stay a few megabytes, whatever the number of groups.
+CHUNK_ROWS = 1 << 17
 
 
 def accuracy_and_factors(line_fits: dict, point_sets: dict):
@@ -201,7 +234,9 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
 
     Estimable fits on a log scale are evaluated together, per method and
     log base, by :func:`factors_by_group` (no Python loop over the groups'
-    rows); the others one by one.
+    rows), a chunk of about :data:`CHUNK_ROWS` rows of whole point sets at a
+    time (the numbers do not depend on the chunks: every sum is one group's);
+    the others one by one.
     """
     extra = {}
     batches: dict = {}
@@ -214,22 +249,52 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
             extra[key] = _extra_of(fit, sel["x"].to_numpy(), sel["y"].to_numpy())
         else:
             batches.setdefault((method, fit.log_base), []).append(key)
+    # The methods' batches usually hold the same point sets: they are evaluated
+    # together, a chunk of whole point sets at a time (about CHUNK_ROWS rows), each
+    # chunk's columns read and its logs taken once for every method.
+    by_sets: dict = {}
     for (_, base), keys in batches.items():
-        sels = [point_sets[(s, g)] for s, g, _ in keys]
-        lengths = np.array([len(t) for t in sels])
-        codes = np.repeat(np.arange(len(keys)), lengths)
-        x = np.concatenate([t["x"].to_numpy(dtype=float) for t in sels])
-        y = np.concatenate([t["y"].to_numpy(dtype=float) for t in sels])
-        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))
-                and np.all(x > 0) and np.all(y > 0)):
-            for key, t in zip(keys, sels):   # let the per-fit path raise its clear error
-                extra[key] = _extra_of(line_fits[key], t["x"].to_numpy(), t["y"].to_numpy())
-            continue
-        cols = factors_by_group([line_fits[k] for k in keys], x, y, codes, base)
-        for i, key in enumerate(keys):
-            extra[key] = {c: float(v[i]) for c, v in cols.items()}
+        by_sets.setdefault(tuple((s, g) for s, g, _ in keys), []).append((base, keys))
+    for sets, jobs in by_sets.items():
+        for lo, hi in chunk_runs([len(point_sets[k]) for k in sets], CHUNK_ROWS):
+            cols = [(point_sets[k]["x"].to_numpy(dtype=float),
+                     point_sets[k]["y"].to_numpy(dtype=float)) for k in sets[lo:hi]]
+            x = cols[0][0] if len(cols) == 1 else np.concatenate([c[0] for c in cols])
+            y = cols[0][1] if len(cols) == 1 else np.concatenate([c[1] for c in cols])
+            if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))
+                    and np.all(x > 0) and np.all(y > 0)):
+                for _, keys in jobs:   # let the per-fit path raise its clear error
+                    for key in keys[lo:hi]:
+                        t = point_sets[key[:2]]
+                        extra[key] = _extra_of(line_fits[key], t["x"].to_numpy(),
+                                               t["y"].to_numpy())
+                continue
+            codes = np.repeat(np.arange(hi - lo), [c[0].size for c in cols])
+            logs: dict = {}
+            for base, keys in jobs:
+                if base not in logs:
+                    logs[base] = (to_log(x, base), to_log(y, base))
+                part = keys[lo:hi]
+                got = factors_by_group([line_fits[k] for k in part], x, y, codes, base,
+                                       logs=logs[base])
+                for i, key in enumerate(part):
+                    extra[key] = {c: float(v[i]) for c, v in got.items()}
     extra = {key: extra[key] for key in line_fits if key in extra}   # the fits' order
     return saved_fits_of(line_fits, extra), extra
+
+
+def chunk_runs(lengths: list, rows: int) -> list:
+    """``(start, stop)`` runs of consecutive items whose lengths add up to at most
+    ``rows`` (an item longer than ``rows`` alone)."""
+    out, lo, filled = [], 0, 0
+    for i, m in enumerate(lengths):
+        if i > lo and filled + m > rows:
+            out.append((lo, i))
+            lo, filled = i, 0
+        filled += m
+    if lo < len(lengths):
+        out.append((lo, len(lengths)))
+    return out
 
 
 def saved_fits_of(line_fits: dict, extra: dict) -> dict:

@@ -46,9 +46,10 @@ import numpy as np
 from scipy import stats
 
 from ..errors import DataError
-from .lines import METHODS, fit_moments, fit_notes, get_method
+from .lines import METHODS, exact_fit, fit_moments, fit_notes, get_method
 from .moments import Moments, moments
-from .residual_checks import MIN_N, _check_alpha, parallel_lines_influence, unique_codes
+from .residual_checks import (MIN_N, _check_alpha, group_order, parallel_lines_influence,
+                              unique_codes)
 from .schema import check_method
 
 __all__ = ["PointCheck", "leave_one_out_slopes", "cooks_distances", "points_to_check",
@@ -191,9 +192,24 @@ def cooks_distances(log_x, log_y) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         b = np.sum(xc * yc, axis=-1, keepdims=True) / sxx
         e = yc - b * xc
+        del yc
         s2 = np.sum(e * e, axis=-1, keepdims=True) / (n - 2)
-        h = 1.0 / n + xc * xc / sxx
-        return e * e * h / (2 * s2 * (1 - h) ** 2)
+        out = np.empty(e.shape)
+        for lo, hi in _spans(n):   # elementwise from here: a slice at a time
+            xs, es = xc[..., lo:hi], e[..., lo:hi]
+            h = 1.0 / n + xs * xs / sxx
+            out[..., lo:hi] = es * es * h / (2 * s2 * (1 - h) ** 2)
+        return out
+
+
+#: Points handled at a time by the elementwise steps of the influence measures (the
+#: numbers do not depend on it; the temporary arrays stay a few megabytes).
+SPAN = 1 << 16
+
+
+def _spans(n: int) -> list:
+    """``(start, stop)`` slices of 0 .. n - 1, :data:`SPAN` points each."""
+    return [(lo, min(lo + SPAN, n)) for lo in range(0, n, SPAN)] or [(0, 0)]
 
 
 def leave_one_out_slopes(log_x, log_y, *, method: str = "ols") -> np.ndarray:
@@ -222,13 +238,16 @@ def leave_one_out_slopes(log_x, log_y, *, method: str = "ols") -> np.ndarray:
     X, Y = _xy(log_x, log_y, "leaving one out")
     n = X.shape[-1]
     m = _moments_last_axis(X, Y)
-    d, f = X - m.mean_x[..., None], Y - m.mean_y[..., None]
     k = n / (n - 1)
-    down = Moments(n=np.full(X.shape, n - 1.0), mean_x=m.mean_x[..., None] - d / (n - 1),
-                   mean_y=m.mean_y[..., None] - f / (n - 1),
-                   sxx=m.sxx[..., None] - k * d * d, syy=m.syy[..., None] - k * f * f,
-                   sxy=m.sxy[..., None] - k * d * f)
-    return _slopes(down, method)
+    out = np.empty(X.shape)
+    for lo, hi in _spans(n):   # elementwise: a slice of the points at a time
+        d, f = X[..., lo:hi] - m.mean_x[..., None], Y[..., lo:hi] - m.mean_y[..., None]
+        down = Moments(n=np.full(d.shape, n - 1.0), mean_x=m.mean_x[..., None] - d / (n - 1),
+                       mean_y=m.mean_y[..., None] - f / (n - 1),
+                       sxx=m.sxx[..., None] - k * d * d, syy=m.syy[..., None] - k * f * f,
+                       sxy=m.sxy[..., None] - k * d * f)
+        out[..., lo:hi] = _slopes(down, method)
+    return out
 
 
 def _slopes(m: Moments, method: str) -> np.ndarray:
@@ -285,12 +304,25 @@ def strong_influence_each(samples, *, method: str = "ols") -> list:
     The samples are laid end to end and every sum is a segmented reduction
     (``np.add.reduceat``) over segments each led by a zero, which adds each
     segment in the order :func:`numpy.sum` adds the sample alone, so the
-    floats are the same.
+    floats are the same.  Consecutive samples are taken a run of about
+    ``2 * SPAN`` points at a time (a larger sample alone), so the temporary
+    arrays stay a few megabytes whatever the number of samples.
     """
     method = check_method(method, METHODS)
     pairs = [_xy(x, y, "influence") for x, y in samples]
     if any(X.ndim != 1 for X, _ in pairs):
         raise DataError("each sample must be one-dimensional")
+    out, lo, filled = [], 0, 0
+    for i, (X, _) in enumerate(pairs):
+        if i > lo and filled + X.size > 2 * SPAN:
+            out += _influence_run(pairs[lo:i], method)
+            lo, filled = i, 0
+        filled += X.size
+    return out + _influence_run(pairs[lo:], method)
+
+
+def _influence_run(pairs: list, method: str) -> list:
+    """:func:`strong_influence_each` of checked samples, all in one array pass."""
     if not pairs:
         return []
     sizes = np.array([X.size for X, _ in pairs])
@@ -313,22 +345,16 @@ def strong_influence_each(samples, *, method: str = "ols") -> list:
     mx, my = total(X) / n, total(Y) / n
     d, f = X - mx[each], Y - my[each]
     sxx, syy, sxy = total(d * d), total(f * f), total(d * f)
+    b, se = _slopes_and_ses(Moments(n=n, mean_x=mx, mean_y=my, sxx=sxx, syy=syy, sxy=sxy),
+                            method)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        # the whole fits one sample at a time, on scalars as strong_influence has them:
-        # numpy squares a scalar with pow() and an array by multiplying, which can
-        # differ in the last digit (SMA, MA)
-        full = [fit_moments(Moments(n=np.full((), n[i]), mean_x=mx[i], mean_y=my[i],
-                                    sxx=sxx[i], syy=syy[i], sxy=sxy[i]), method)
-                for i in range(sizes.size)]
         # leave one out (the algebra of leave_one_out_slopes)
         ne, k = n[each], (n / (n - 1))[each]
         down = Moments(n=ne - 1.0, mean_x=mx[each] - d / (ne - 1), mean_y=my[each] - f / (ne - 1),
                        sxx=sxx[each] - k * d * d, syy=syy[each] - k * f * f,
                        sxy=sxy[each] - k * d * f)
         loo = _slopes(down, method)
-    b = np.array([float(w["slope"]) for w in full])
-    se = np.array([float(w["slope_se"]) for w in full])
     with np.errstate(divide="ignore", invalid="ignore"):
         # Cook's distances (the algebra of cooks_distances)
         slope = (sxy / sxx)[each]
@@ -339,9 +365,31 @@ def strong_influence_each(samples, *, method: str = "ols") -> list:
         moved = np.abs(loo - b[each]) > se[each]
         flag = ((cook > COOK_STRONG) | moved) & (se[each] > 0)
     return [{"flag": flag[a:a + m], "cook": cook[a:a + m], "slope_without": loo[a:a + m],
-             "slope": np.asarray(full[i]["slope"], float),
-             "slope_se": np.asarray(full[i]["slope_se"], float)}
+             "slope": np.asarray(b[i], float), "slope_se": np.asarray(se[i], float)}
             for i, (a, m) in enumerate(zip(starts.tolist(), sizes.tolist()))]
+
+
+def _slopes_and_ses(m: Moments, method: str) -> tuple:
+    """``fit_moments(m[i], method)``'s ``slope`` and ``slope_se`` of each sample i of
+    one-dimensional moments, each equal to the float of sample i fitted alone.
+
+    The slope, the exact-fit and note tests are elementwise arithmetic (the same
+    floats for an array as for one sample); the slope variance is taken one sample
+    at a time on scalars, as a lone fit has them: numpy squares a scalar with pow()
+    and an array by multiplying, which can differ in the last digit (SMA, MA).
+    """
+    spec = get_method(method)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        b = np.asarray(spec.slope(m), dtype=float)
+        exact = exact_fit(m) & np.isfinite(b)
+        var = np.array([float(spec.slope_var(
+            Moments(n=np.full((), m.n[i]), mean_x=m.mean_x[i], mean_y=m.mean_y[i],
+                    sxx=m.sxx[i], syy=m.syy[i], sxy=m.sxy[i]), b[i]))
+            for i in range(b.size)], dtype=float)
+        se = np.sqrt(np.where(exact, 0.0, var))
+    bad = fit_notes(m, method).reshape(b.shape) != ""
+    return np.where(bad, np.nan, b), np.where(bad, np.nan, se)
 
 
 def fit_checks(*, smearing_factor: float | None = None,
@@ -382,7 +430,7 @@ def fit_checks(*, smearing_factor: float | None = None,
 def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None,
                     groups=None, smearing_factor: float | None = None,
                     parametric_factor: float | None = None, estimates=None,
-                    alpha: float = 0.05) -> tuple:
+                    alpha: float = 0.05, group_codes=None) -> tuple:
     """Graded warnings: influential points, odd correction factors, grouped residuals.
 
     Parameters
@@ -395,7 +443,12 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
     rows, labels : array_like, optional
         Input row number and label of each point.
     groups : array_like, optional
-        Group of each point; residuals are compared between groups.
+        Group of each point; residuals are compared between groups (taken in
+        the order of their labels as text).
+    group_codes : array_like of int, optional
+        Instead of ``groups``: each point's group as a code 0 .. G - 1, codes in
+        the order of the labels as text (e.g. ``pandas.factorize(labels.astype(str),
+        sort=True)``), which spares making a million labels into text.
     smearing_factor, parametric_factor : float, optional
         The two correction factors of the fit.
     estimates : iterable of (label, estimate, low, high), optional
@@ -438,18 +491,25 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
                 slope_se=se))
     out += fit_checks(smearing_factor=smearing_factor, parametric_factor=parametric_factor,
                       estimates=estimates)
-    if groups is not None:
-        g = np.asarray(groups, dtype=object)
-        if g.shape != (n,):
-            raise DataError(f"groups must give one value per point ({n})")
+    if groups is not None or group_codes is not None:
+        if group_codes is not None:
+            codes = np.asarray(group_codes)
+            if codes.shape != (n,) or codes.dtype.kind not in "iu":
+                raise DataError(f"group_codes must give one integer code per point ({n})")
+            n_groups = int(codes.max()) + 1
+        else:
+            g = np.asarray(groups, dtype=object)
+            if g.shape != (n,):
+                raise DataError(f"groups must give one value per point ({n})")
+            codes, uniq = unique_codes(g)
+            n_groups = len(uniq)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             b_line = fit_moments(_one(X, Y), use)
         resid = Y - float(b_line["intercept"][0]) - float(b_line["slope"][0]) * X
-        codes, uniq = unique_codes(g)
         # one stable sort splits the residuals by group, in row order within each
-        order = np.argsort(codes, kind="stable")
-        bounds = np.cumsum(np.bincount(codes, minlength=len(uniq)))[:-1]
+        order = group_order(codes, n_groups)
+        bounds = np.cumsum(np.bincount(codes, minlength=n_groups))[:-1]
         samples = np.split(resid[order], bounds)
         samples = [s for s in samples if s.size >= 2]
         if len(samples) >= 2:
@@ -483,7 +543,8 @@ def strong_parallel_influence(log_x, log_y, groups) -> dict:
     Parameters
     ----------
     log_x, log_y, groups : array_like, shape (n,)
-        The points of the groups sharing a slope (at least 2 per group).
+        The points of the groups sharing a slope (at least 2 per group);
+        ``groups`` may be a :class:`scaling.stats.residual_checks.GroupCodes`.
 
     Returns
     -------

@@ -11,8 +11,11 @@ Normality
     Shapiro & Wilk (1965), *Biometrika* 52:591, via ``scipy.stats.shapiro``.
 Constant variance
     Breusch & Pagan (1979), *Econometrica* 47:1287, studentised (Koenker
-    1981) LM form as computed by ``statsmodels.stats.diagnostic.
-    het_breuschpagan``: n R^2 of e^2 regressed on (1, X), chi-square 1 df.
+    1981, *J. Econometrics* 17:107) LM form, the default of
+    ``statsmodels.stats.diagnostic.het_breuschpagan``: n R^2 of e^2
+    regressed on (1, X), chi-square 1 df.  With one regressor R^2 is the
+    squared correlation of e^2 and X, so LM = n S_wx^2 / (S_xx S_ww) from
+    centred sums (:func:`breusch_pagan`), for one line or every group at once.
 Curvature
     The quadratic term b2 of Y = b0 + b1 X + b2 X^2 fitted by OLS
     (Kolokotrones, Savage, Deeds & Fontana 2010, *Nature* 464:753), tested
@@ -61,7 +64,8 @@ from .line_results import LineFit
 from .moments import moments
 
 __all__ = ["Check", "Curvature", "Diagnostics", "diagnose", "quadratic_t", "MIN_N",
-           "within_quadratic_t", "parallel_lines_influence", "diagnose_parallel"]
+           "within_quadratic_t", "parallel_lines_influence", "diagnose_parallel",
+           "breusch_pagan", "unique_codes", "group_order", "GroupCodes"]
 
 #: Fewest points a diagnostic check reads.
 MIN_N = 4
@@ -235,11 +239,17 @@ class Diagnostics:
         :meth:`influence_frame`, without building a frame."""
         if not self.influential_rows:
             return [], []
-        rows = np.asarray(self.rows).astype(np.int64)
+        rows = np.asarray(self.rows, dtype=np.int64)
         # position of each flagged row (the last one should a row number repeat)
-        sorter = np.argsort(rows, kind="stable")
         flagged = np.asarray(self.influential_rows, dtype=np.int64)
-        at = sorter[np.searchsorted(rows, flagged, side="right", sorter=sorter) - 1]
+        if rows.size and rows[-1] - rows[0] == rows.size - 1 and bool(
+                np.all(np.diff(rows) == 1)):   # consecutive row numbers: positions by offset
+            at = flagged - rows[0]
+        elif rows.size < 2 or bool(np.all(rows[1:] >= rows[:-1])):   # in order already
+            at = np.searchsorted(rows, flagged, side="right") - 1
+        else:
+            sorter = np.argsort(rows, kind="stable")
+            at = sorter[np.searchsorted(rows, flagged, side="right", sorter=sorter) - 1]
         return list(self.influential_rows), np.asarray(self.cooks_distance, dtype=float)[at].tolist()
 
 
@@ -301,6 +311,67 @@ def quadratic_t(log_x, log_y) -> dict:
 
 
 # --------------------------------------------------------------------------
+# constant variance, closed form
+
+
+def breusch_pagan(resid, log_x, groups=None, *, n_groups: int | None = None) -> tuple:
+    """Koenker's studentised Breusch-Pagan LM on regressors (1, X) and its p-value.
+
+    Parameters
+    ----------
+    resid, log_x : array_like, shape (n,)
+        Residuals e and the regressor X.
+    groups : array_like of int, shape (n,), optional
+        Integer group code (0 .. n_groups - 1) of each point: one test per
+        group, all in one pass (``np.bincount``).  None: one test of all points.
+    n_groups : int, optional
+        Number of groups (default ``groups.max() + 1``).
+
+    Returns
+    -------
+    statistic, p_value : float, or ndarray of shape (n_groups,)
+        LM = n R^2, chi-square 1 df; NaN where e^2 or X does not vary.
+
+    Notes
+    -----
+    With w = e^2, the R^2 of w regressed on (1, X) is the squared
+    correlation of w and X, so LM = n S_wx^2 / (S_xx S_ww) with the centred
+    sums S_wx, S_xx, S_ww (Breusch & Pagan 1979, *Econometrica* 47:1287;
+    Koenker 1981, *J. Econometrics* 17:107).  ``het_breuschpagan`` of
+    statsmodels (default ``robust=True``) computes the same as n (1 - RSS/TSS)
+    by least squares; the two agree to rounding.
+    """
+    e = np.asarray(resid, dtype=float)
+    X = np.asarray(log_x, dtype=float)
+    if e.ndim != 1 or e.shape != X.shape:
+        raise DataError("resid and log_x must be one-dimensional and of equal length")
+    w = e * e
+    if groups is None:
+        wc = w - w.mean()
+        xc = X - X.mean()
+        n, swx, sxx, sww = float(X.size), np.sum(wc * xc), np.sum(xc * xc), np.sum(wc * wc)
+    else:
+        codes = np.asarray(groups)
+        if codes.shape != X.shape or codes.dtype.kind not in "iu":
+            raise DataError("groups must be integer codes, one per point")
+        k = int(codes.max()) + 1 if n_groups is None and codes.size else int(n_groups or 0)
+        n = np.bincount(codes, minlength=k).astype(float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            wc = w - (np.bincount(codes, weights=w, minlength=k) / n)[codes]
+            xc = X - (np.bincount(codes, weights=X, minlength=k) / n)[codes]
+        swx = np.bincount(codes, weights=wc * xc, minlength=k)
+        sxx = np.bincount(codes, weights=xc * xc, minlength=k)
+        sww = np.bincount(codes, weights=wc * wc, minlength=k)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lm = n * swx * swx / (sxx * sww)
+    lm = np.where((sxx > 0) & (sww > 0), lm, np.nan)
+    p = stats.chi2.sf(lm, 1)
+    if groups is None:
+        return float(lm), float(p)
+    return lm, p
+
+
+# --------------------------------------------------------------------------
 # diagnose
 
 
@@ -329,7 +400,8 @@ def _checked_logs(log_x, log_y) -> tuple:
 
 
 def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
-             alpha: float = 0.05, memo: dict | None = None) -> Diagnostics:
+             alpha: float = 0.05, memo: dict | None = None,
+             constant_variance: tuple | None = None) -> Diagnostics:
     """Residual normality, constant variance, curvature and influence of a fit.
 
     Parameters
@@ -352,6 +424,10 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         fitted to those same points: the parts that do not depend on the
         line (the quadratic fit, the OLS Cook's distances) are computed by the
         first call and read by the others.
+    constant_variance : (float, float), optional
+        The Breusch-Pagan statistic and p-value of this line's residuals when
+        the caller has them (every group of a method at once:
+        :func:`breusch_pagan` with group codes).
 
     Returns
     -------
@@ -382,25 +458,23 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     if np.ptp(X) == 0:
         raise DataError("log_x does not vary: nothing to diagnose")
 
-    if bool(exact_fit(moments(X, Y))):
+    memo = {} if memo is None else memo
+    if "exact" not in memo:   # the points' moments, once per set of points
+        memo["exact"] = bool(exact_fit(moments(X, Y)))
+    if memo["exact"]:
         return _exact_diagnostics(fit, X, Y, rows, alpha)
 
-    from statsmodels.regression.linear_model import OLS
-    from statsmodels.stats.diagnostic import het_breuschpagan
-    from statsmodels.stats.outliers_influence import OLSInfluence
-
     resid = Y - fit.intercept - fit.slope * X
-    exog = np.column_stack([np.ones(n), X])
     checks = [_normality(resid, alpha)]
     if np.ptp(resid) == 0:
         warnings.warn("residuals are all equal: the constant-variance test is not defined",
                       DegenerateDataWarning, stacklevel=2)
-    checks.append(_constant_variance(resid, X, het_breuschpagan, alpha))
-    memo = {} if memo is None else memo
+    checks.append(_constant_variance(resid, X, alpha=alpha, given=constant_variance))
     if "quadratic" not in memo:   # the same for every line through these points
+        from statsmodels.regression.linear_model import OLS
+        from statsmodels.stats.outliers_influence import OLSInfluence
         memo["quadratic"] = {k: float(v) for k, v in quadratic_t(X, Y).items()}
-        memo["cooks"] = np.asarray(OLSInfluence(OLS(Y, exog).fit()).cooks_distance[0],
-                                   dtype=float)
+        memo["cooks"] = _ols_cooks(OLSInfluence(OLS(Y, np.column_stack([np.ones(n), X])).fit()))
     curv, check = _curvature(memo["quadratic"], X, targets, fit.log_base, alpha)
     checks.append(check)
     cooks = memo["cooks"]
@@ -412,6 +486,16 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
                        curvature=curv, residuals=resid, cooks_distance=cooks,
                        influence_threshold=threshold, influential_rows=influential,
                        rows=rows)
+
+
+def _ols_cooks(infl) -> np.ndarray:
+    """``infl.cooks_distance[0]`` of a statsmodels ``OLSInfluence``, by its own formula
+    (Eubank 1999, p. 93: r_i^2 / k * h_i / (1 - h_i), r the internally studentised
+    residual), without the F p-value of every point that statsmodels adds."""
+    hii = infl.hat_matrix_diag
+    cooks = infl.resid_studentized ** 2 / infl.k_vars
+    cooks *= hii / (1 - hii)
+    return np.asarray(cooks, dtype=float)
 
 
 def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
@@ -445,7 +529,22 @@ def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
 # the parallel-lines model: groups share a slope, each keeps its elevation
 
 
+@dataclass(frozen=True, slots=True)
+class GroupCodes:
+    """Groups already coded: ``labels[codes[i]]`` is point i's group, ``labels`` sorted
+    as text (what :func:`unique_codes` returns).  Passed as ``groups`` to the
+    parallel-lines functions, it spares coding a million labels once per function."""
+
+    codes: np.ndarray
+    labels: np.ndarray
+
+
 def _group_codes(groups, n: int) -> tuple:
+    if isinstance(groups, GroupCodes):
+        if np.shape(groups.codes) != (n,):
+            raise DataError(f"groups must give one value per point ({n}), "
+                            f"not shape {np.shape(groups.codes)}")
+        return np.asarray(groups.codes), np.asarray(groups.labels)
     g = np.asarray(groups)
     if g.shape != (n,):
         raise DataError(f"groups must give one value per point ({n}), not shape {g.shape}")
@@ -470,6 +569,16 @@ def unique_codes(values) -> tuple:
     rank = np.empty(order.size, dtype=np.intp)
     rank[order] = np.arange(order.size)
     return rank[first], uniq[order]
+
+
+def group_order(codes, n_groups: int) -> np.ndarray:
+    """``np.argsort(codes, kind="stable")``: the points of group 0, then of group 1, ...,
+    each group's in their order.  Codes below 2^15 are sorted as 16-bit integers, which
+    numpy's stable sort does by radix (a stable order is unique: the same positions)."""
+    codes = np.asarray(codes)
+    if codes.dtype.kind in "iu" and 0 < n_groups <= np.iinfo(np.int16).max:
+        codes = codes.astype(np.int16)
+    return np.argsort(codes, kind="stable")
 
 
 def _within(A: np.ndarray, codes: np.ndarray, n_groups: int) -> np.ndarray:
@@ -661,6 +770,7 @@ def diagnose_parallel(slope: float, log_x, log_y, groups, *, method: str = "ols"
     except (TypeError, ValueError):
         raise ConfigError("exponent_targets must be a sequence of numbers") from None
     codes, labels = _group_codes(groups, n)
+    groups = GroupCodes(codes, labels)   # coded once for the functions below
     infl = parallel_lines_influence(X, Y, groups)
     xt, yt = _within(X, codes, labels.size), _within(Y, codes, labels.size)
     resid = yt - float(slope) * xt
@@ -675,10 +785,8 @@ def diagnose_parallel(slope: float, log_x, log_y, groups, *, method: str = "ols"
         return Diagnostics(method=method, n=n, alpha=alpha, checks=checks, curvature=curv,
                            residuals=resid, cooks_distance=np.zeros(n),
                            influence_threshold=threshold, influential_rows=(), rows=rows)
-    from statsmodels.stats.diagnostic import het_breuschpagan
-
     checks = [_normality(resid, alpha)]
-    checks.append(_constant_variance(resid, X, het_breuschpagan, alpha))
+    checks.append(_constant_variance(resid, X, alpha=alpha))
     q = {k: float(v) for k, v in within_quadratic_t(X, Y, groups).items()}
     curv, check = _curvature(q, X, targets, log_base, alpha)
     checks.append(check)
@@ -709,9 +817,16 @@ def _normality(resid, alpha) -> Check:
                  flagged=flagged, finding=_finding(flagged))
 
 
-def _constant_variance(resid, X, het_breuschpagan, alpha) -> Check:
+def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05, given=None) -> Check:
+    """Breusch-Pagan check on (1, X): ``given`` (statistic, p), else the closed form
+    (:func:`breusch_pagan`), or ``het_breuschpagan(resid, exog)`` when a function of
+    that signature is given."""
     if np.ptp(resid) == 0:
         lm, p_bp = math.nan, math.nan
+    elif given is not None:
+        lm, p_bp = float(given[0]), float(given[1])
+    elif het_breuschpagan is None:
+        lm, p_bp = breusch_pagan(resid, X)
     else:
         lm, p_bp, _, _ = het_breuschpagan(resid, np.column_stack([np.ones(X.size), X]))
         lm, p_bp = float(lm), float(p_bp)
