@@ -51,7 +51,7 @@ from ..render.wording import worded_fits
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
-from .table_moments import read_moments
+from .table_moments import RowSpill, read_moments
 from ..stats.grouped_fits import fit_groups_from_moments
 from ..stats.lines import METHODS, method_label, parse_log_base
 from ..stats.line_results import line_fit_from_moments
@@ -241,6 +241,11 @@ class MomentsStage:
     point_sets : dict
         After :func:`with_groups`: the group means as points (``("group_means", "")``),
         on which the second pass measures the line through them.
+    spill : RowSpill or None
+        The first pass's cleaned rows on disk, which the second pass reads
+        instead of parsing the file again (and then deletes); None with Dask
+        (its partitions are read again) and with ``data.average_within`` (the
+        second pass reads the unit means held in ``moments``).
     """
 
     config: object
@@ -254,6 +259,7 @@ class MomentsStage:
     manifest: dict
     moments: object = None   # the second pass (run/second_pass.py) reads them
     point_sets: dict = field(default_factory=dict)
+    spill: RowSpill | None = None
 
 
 def moments_stage(cfg, reason: str) -> MomentsStage:
@@ -261,14 +267,26 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
 
     The first and only fitting stage of its road: it starts from the config
     and ``reason`` (why the road was taken, :func:`use_moments_path`), not
-    from a state, since no rows are ever held.
+    from a state, since no rows are ever held.  Read chunk by chunk in this
+    process, the cleaned rows are also kept on disk for the second pass
+    (:class:`~scaling.run.table_moments.RowSpill`).
     """
+    d = cfg.data
+    spill = RowSpill() if cfg.engine != "dask" and not d.average_within else None
+    try:
+        return _moments_stage(cfg, reason, spill)
+    except BaseException:
+        if spill is not None:
+            spill.close()
+        raise
 
+
+def _moments_stage(cfg, reason: str, spill: RowSpill | None) -> MomentsStage:
     base = parse_log_base(cfg.model.log_base)
     d = cfg.data
     gm = read_moments(d.file, x=d.x, y=d.y, group=d.group, log_base=base,
                       chunk_size=d.chunk_size, engine=cfg.engine, scheduler=cfg.scheduler,
-                      sep=_sep(cfg), decimal=d.decimal, unit=d.average_within)
+                      sep=_sep(cfg), decimal=d.decimal, unit=d.average_within, spill=spill)
     methods = [m for m in cfg.model.methods if m in METHODS]
     others = [m for m in cfg.model.methods if m not in METHODS]
     notes: list[str] = []
@@ -339,7 +357,7 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     }
     return MomentsStage(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                         line_fits=line_fits, tables=tables, messages=tuple(messages),
-                        notes=tuple(notes), manifest=manifest, moments=gm)
+                        notes=tuple(notes), manifest=manifest, moments=gm, spill=spill)
 
 
 def _in_fits_order(tests: pd.DataFrame, fits: pd.DataFrame, exponents: dict) -> pd.DataFrame:

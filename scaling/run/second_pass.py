@@ -157,13 +157,21 @@ def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: boo
         codes = codes[keep] if codes is not None else None
     if not x.size:
         return c.n_rows
-    X, Y = to_log(x, base), to_log(y, base)
+    _add_rows(acc, between, c.labels, codes, to_log(x, base), to_log(y, base), rows,
+              label_index, grouped)
+    return c.n_rows
+
+
+def _add_rows(acc: ResidualSums, between, labels, codes, X, Y, rows, label_index,
+              grouped: bool) -> None:
+    """Add a chunk's usable rows (log x, log y, chunk group codes, row numbers)."""
+    if not X.size:
+        return
     acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
     if grouped:
-        local = label_index.get_indexer(pd.Index(c.labels).astype(str))[codes]
+        local = label_index.get_indexer(pd.Index(labels).astype(str))[codes]
         acc.add(1 + local, X, Y, rows)
         between.add(local, X, Y)
-    return c.n_rows
 
 
 def _feed_points(acc: ResidualSums, between, points: pd.DataFrame, label_index,
@@ -188,9 +196,14 @@ def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped):
     return acc, between, n_rows
 
 
-def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str) -> tuple:
-    """Read the file again: the filled :class:`ResidualSums`, the group-residual sums of
-    the pooled ``checked`` line, the set keys and the sets' moments."""
+def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str,
+                  spill=None) -> tuple:
+    """Read the rows again: the filled :class:`ResidualSums`, the group-residual sums of
+    the pooled ``checked`` line, the set keys and the sets' moments.
+
+    ``spill``: the first pass's :class:`~scaling.run.table_moments.RowSpill`; when
+    usable its chunks are read instead of the file (the same rows, chunk for chunk).
+    """
     d = cfg.data
     grouped = bool(d.group)
     m, keys = _sets(gm, grouped)
@@ -212,7 +225,13 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
     kind = file_kind(path)
     columns = [d.x, d.y] + ([d.group] if d.group else [])
     sep = _sep(cfg)
-    if cfg.engine == "dask":
+    if spill is not None and spill.usable:
+        for chunk in spill.chunks():
+            _add_rows(acc, between, chunk.labels, chunk.codes, chunk.X, chunk.Y, chunk.rows,
+                      label_index, grouped)
+    elif cfg.engine == "dask":
+        # Dask partitions are read and cleaned again: holding them (persist) would keep
+        # every row in the workers' memory, which this road exists to avoid.
         import dask   # the first pass has checked that it is installed
         parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
         tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, between_params,
@@ -238,7 +257,7 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
 
 def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
                 base, other_tables: dict | None = None,
-                point_sets: dict | None = None) -> SecondPass:
+                point_sets: dict | None = None, spill=None) -> SecondPass:
     """Residual sums over a second read of the file, and the tables they give.
 
     Parameters
@@ -259,6 +278,8 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     point_sets : dict, optional
         ``(scope, group) -> points`` held in memory (the group means): their fits'
         accuracy and factors are measured on them, as on the in-memory road.
+    spill : RowSpill, optional
+        The first pass's rows on disk (read instead of the file when usable).
     """
     other_tables = other_tables or {}
     methods = list(dict.fromkeys(fits["method"]))
@@ -266,7 +287,7 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     checked = primary_method(cfg)
     if checked not in methods:
         checked = methods[0]
-    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked)
+    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked, spill)
     res = acc.result()
     # a point's name: its unit under data.average_within (as in memory), else none
     names = ({} if gm.units is None
@@ -579,11 +600,17 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
     return table
 
 
-def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None):
+def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None,
+                     spill=None):
     """``result`` (a RunResult of the moments path) with the second pass's tables;
-    ``point_sets``: points held in memory (the group means), measured as in memory."""
-    extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
-                        other_tables=result.tables, point_sets=point_sets)
+    ``point_sets``: points held in memory (the group means), measured as in memory;
+    ``spill``: the first pass's rows on disk, read instead of the file and then deleted."""
+    try:
+        extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
+                            other_tables=result.tables, point_sets=point_sets, spill=spill)
+    finally:
+        if spill is not None:
+            spill.close()
     return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
                    line_fits=extra.line_fits, tables={**result.tables, **extra.tables},
                    messages=result.messages + extra.messages,
