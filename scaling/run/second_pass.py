@@ -135,13 +135,19 @@ def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
 # reading the rows again
 
 
-def _params(m, lines: dict, base, methods: list, checked: str) -> dict:
-    """ResidualSums arguments; ``checked`` is the method whose strong points are listed."""
+def _params(m, lines: dict, base, methods: list, checked: str, check_groups: bool) -> dict:
+    """ResidualSums arguments; ``checked`` is the method whose strong points are listed
+    (those of the pooled line only, set 0: points_to_check reads no other), and the
+    groups' residual checks are summed only when ``check_groups`` (the diagnostics
+    stage checks each group)."""
     j = methods.index(checked)
+    sets = np.zeros(np.size(m.n), dtype=bool)
+    sets[0] = True
     return dict(intercept=lines["intercept"], slope=lines["slope"], mean_x=m.mean_x,
                 mean_y=m.mean_y, sxx=m.sxx, syy=m.syy, sxy=m.sxy, n=m.n,
                 resid_sd=lines["resid_sd"], log_base=base, influence_method=checked,
-                influence_slope=lines["slope"][:, j], slope_se=lines["slope_se"][:, j])
+                influence_slope=lines["slope"][:, j], slope_se=lines["slope_se"][:, j],
+                checked=np.ones_like(sets) if check_groups else sets, strong=sets)
 
 
 def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: bool,
@@ -208,7 +214,10 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
     grouped = bool(d.group)
     m, keys = _sets(gm, grouped)
     lines = _lines(fits, keys, methods)
-    params = _params(m, lines, base, methods, checked)
+    # the groups are checked one by one only up to groups.diagnostics_max (_diagnostics)
+    check_groups = (cfg.diagnostics.enabled
+                    and len(keys) - 1 <= cfg.groups.diagnostics_max)
+    params = _params(m, lines, base, methods, checked, check_groups)
     j = methods.index(checked)
     between_params = dict(intercept=float(lines["intercept"][0, j]),
                           slope=float(lines["slope"][0, j]),

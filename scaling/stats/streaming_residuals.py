@@ -73,6 +73,8 @@ __all__ = ["TOP_K", "ResidualSums", "StreamedChecks", "GroupResidualSums",
 TOP_K = 10
 
 _SUMS = ("se2", "sd2", "sd3", "sd4", "smear", "sy", "syhat", "spe", "bw", "bww", "bwx")
+#: The sums only the residual checks (normality, constant variance) read.
+_CHECK_SUMS = ("sd2", "sd3", "sd4", "bw", "bww", "bwx")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -100,6 +102,9 @@ class StreamedChecks:
     strong_cooks, strong_rows, strong_slope_without : ndarray, shape (S, k)
         The k strongest rows of each set under the strong-influence rule
         (NaN / -1 padded; all padding without ``influence_method``).
+
+    The checks (skewness to ``n_influential``) are NaN (rows -1, counts 0)
+    for a set the sums were told not to check (``ResidualSums(checked=...)``).
     """
 
     n: np.ndarray
@@ -142,11 +147,18 @@ class ResidualSums:
         Line method whose leave-one-out slopes give the strong-influence rows;
         ``slope_se`` (S,) is then that method's slope standard error per set
         and ``influence_slope`` (S,) its slope.
+    checked : array_like of bool, shape (S,), optional
+        Sets whose residual checks (normality, constant variance, Cook's
+        distances) are summed; the others get only the accuracy figures and
+        factors, which is less than half the work per row.  Default: all.
+    strong : array_like of bool, shape (S,), optional
+        Sets whose rows go through the strong-influence rule (with
+        ``influence_method``).  Default: all.
     """
 
     def __init__(self, *, intercept, slope, mean_x, mean_y, sxx, syy, sxy, n, resid_sd,
                  log_base, k: int = TOP_K, influence_method: str | None = None,
-                 influence_slope=None, slope_se=None):
+                 influence_slope=None, slope_se=None, checked=None, strong=None):
         self.a = np.atleast_2d(np.asarray(intercept, dtype=float))
         self.b = np.atleast_2d(np.asarray(slope, dtype=float))
         S, M = self.a.shape
@@ -166,6 +178,10 @@ class ResidualSums:
             self.b_ols = self.sxy / self.sxx
             self.a_ols = self.my - self.b_ols * self.mx
         self.shape = (S, M)
+        self.checked = (np.ones(S, dtype=bool) if checked is None
+                        else np.asarray(checked, dtype=bool).reshape(S))
+        self.strong = (np.ones(S, dtype=bool) if strong is None
+                       else np.asarray(strong, dtype=bool).reshape(S))
         self.n = np.zeros(S)
         self.sums = {key: np.zeros((S, M)) for key in _SUMS}
         self.so2 = np.zeros(S)            # sum of squared OLS residuals
@@ -206,8 +222,13 @@ class ResidualSums:
             out[one] = v.sum()
             return out
 
-        self.n += np.bincount(codes, minlength=S)
-        xc = X - take(self.mx)
+        counts = np.bincount(codes, minlength=S)
+        self.n += counts
+        present = counts > 0
+        # A chunk with no checked set sums only the factors and accuracy figures.
+        checks = bool(self.checked[present].any())
+        if checks:
+            xc = X - take(self.mx)
         if self.base is not None:
             ln_base = math.log(self.base)
             # Natural y scaled by a common power per set (the ratio is unchanged by it),
@@ -216,12 +237,14 @@ class ResidualSums:
             sy = total(y_scaled)
         for j in range(M):   # one method at a time: 1-d arrays, gathers from 1-d tables
             e = Y - take(self.a[:, j]) - take(self.b[:, j]) * X
-            d = e - take(self.mean_e[:, j])
-            d2 = d * d
             e2 = e * e
-            w = e2 - take(self.mean_e2[:, j])
-            values = {"se2": e2, "sd2": d2, "sd3": d2 * d, "sd4": d2 * d2, "bw": w,
-                      "bww": w * w, "bwx": w * xc}
+            values = {"se2": e2}
+            if checks:
+                d = e - take(self.mean_e[:, j])
+                d2 = d * d
+                w = e2 - take(self.mean_e2[:, j])
+                values.update({"sd2": d2, "sd3": d2 * d, "sd4": d2 * d2, "bw": w,
+                               "bww": w * w, "bwx": w * xc})
             if self.base is not None:
                 be = np.exp(e * ln_base)
                 values.update({"smear": be, "spe": np.abs(be - 1.0),
@@ -229,6 +252,12 @@ class ResidualSums:
                 self.sums["sy"][:, j] += sy
             for key, v in values.items():
                 self.sums[key][:, j] += total(v)
+        if checks:
+            self._add_checks(codes, X, Y, rows)
+
+    def _add_checks(self, codes, X, Y, rows) -> None:
+        """Cook's distances (the k largest per set, rows above 4/n) and strong rows."""
+        S = self.shape[0]
         # Cook's distance up to each set's factor 1 / (2 s^2).
         with np.errstate(divide="ignore", invalid="ignore"):
             eo = Y - self.a_ols[codes] - self.b_ols[codes] * X
@@ -245,7 +274,11 @@ class ResidualSums:
         live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
         self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
         if self.influence_method is not None:
-            self._add_strong(codes, X, Y, u, rows)
+            strong = self.strong[codes]
+            if strong.all():
+                self._add_strong(codes, X, Y, u, rows)
+            elif strong.any():
+                self._add_strong(codes[strong], X[strong], Y[strong], u[strong], rows[strong])
 
     def _chunk_floor(self, codes, u) -> np.ndarray:
         """Per set, a lower bound of the k-th largest ``u`` of a chunk: the smallest of
@@ -353,12 +386,21 @@ class ResidualSums:
         cooks = np.where(rows >= 0, cooks, np.nan)
         strong_rows = self.strong_rows.copy()
         strong = np.where(strong_rows >= 0, strong, np.nan)
+        n_above = self.n_above.copy()
+        if not self.checked.all():   # sets whose checks were not summed
+            off = ~self.checked
+            for v in (skew, kurt, k2, p_norm, lm, p_bp):
+                v[off] = np.nan
+            direction[off] = 0
+            cooks[off] = np.nan
+            rows[off] = -1
+            n_above[off] = 0
         return StreamedChecks(n=self.n.copy(), see=see, percent_see=percent_see,
                               percent_pe=percent_pe, smearing=smearing, ratio=ratio,
                               parametric=parametric, skewness=skew, kurtosis=kurt,
                               normality_statistic=k2, normality_p=p_norm, bp_statistic=lm,
                               bp_p=p_bp, bp_direction=direction, cooks_distance=cooks,
-                              cooks_rows=rows, n_influential=self.n_above.copy(),
+                              cooks_rows=rows, n_influential=n_above,
                               strong_cooks=strong, strong_rows=strong_rows,
                               strong_slope_without=np.where(strong_rows >= 0,
                                                             self.strong_loo, np.nan))
