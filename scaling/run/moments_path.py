@@ -362,11 +362,18 @@ def _moments_stage(cfg, reason: str, spill: RowSpill | None) -> MomentsStage:
 
 def _in_fits_order(tests: pd.DataFrame, fits: pd.DataFrame, exponents: dict) -> pd.DataFrame:
     """Slope tests fit by fit in the order of the fits table (as the in-memory run)."""
-    where = {k: i for i, k in enumerate(zip(fits["scope"], fits["group"], fits["method"]))}
-    hyp = {name: i for i, name in enumerate(exponents)}
-    first = [where.get(k, len(where)) for k in
-             zip(tests["scope"], tests["group"], tests["method"])]
-    second = [hyp.get(h, len(hyp)) for h in tests["hypothesis"]]
+    cols = ["scope", "group", "method"]
+    where = pd.MultiIndex.from_frame(fits[cols].astype(object))
+    position = np.arange(len(where))
+    if not where.is_unique:   # the last row of a key counts
+        last = ~where.duplicated(keep="last")
+        where, position = where[last], position[last]
+    # position of each test's fit in the fits table (after every fit when it has none)
+    found = where.get_indexer(pd.MultiIndex.from_frame(tests[cols].astype(object)))
+    first = np.where(found < 0, len(where), position[found])
+    hyp = pd.Index(list(exponents), dtype=object)
+    second = hyp.get_indexer(tests["hypothesis"].astype(object))
+    second = np.where(second < 0, len(hyp), second)
     return tests.iloc[np.lexsort((second, first))].reset_index(drop=True)
 
 

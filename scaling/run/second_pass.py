@@ -43,7 +43,7 @@ from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind,
                           read_chunks)
 from ..render.findings import check_verdict, diagnostics_messages, point_check_reason
 from ..render.headline import answer_line
-from ..stats.influence import PointCheck, fit_checks
+from ..stats.influence import SMEARING_RATIO_LIMIT, PointCheck, fit_checks
 from ..stats.line_results import line_fit_from_result
 from ..stats.lines import exact_fit, fit_moments
 from ..stats.logscale import to_log
@@ -579,27 +579,54 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
                      checked_key, anova, alpha: float, names: dict) -> pd.DataFrame:
     """points_to_check: the pooled line's strong points and residuals between groups,
     and every fit's factor and interval checks (as :func:`scaling.stats.influence.points_to_check`
-    and :func:`~scaling.stats.influence.fit_checks`)."""
-    records = []
-    estimates: dict = {}      # (scope, group, method) -> the predictions' estimates, once
+    and :func:`~scaling.stats.influence.fit_checks`).
+
+    The factor ratios and the estimates' intervals of all fits are screened in
+    array passes first; :func:`~scaling.stats.influence.fit_checks` (which finds
+    nothing elsewhere) then runs only on the fits the screen keeps and on the
+    checked pooled line.
+    """
+    keys = list(row_keys(fits))
+    nan = np.full(len(fits), np.nan)
+    smearing, parametric = (fits[c].to_numpy(dtype=float) if c in fits.columns else nan
+                            for c in ("smearing_factor", "parametric_factor"))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        ratio = smearing / parametric
+        odd = (np.isfinite(smearing) & np.isfinite(parametric) & (parametric > 0)
+               & ~((1 / SMEARING_RATIO_LIMIT <= ratio) & (ratio <= SMEARING_RATIO_LIMIT)))
+    pred_keys: list = []
     if preds is not None and len(preds):
-        for p in preds[["scope", "group", "method", "x", "y", "y_low", "y_high"]].itertuples(
-                index=False):
-            estimates.setdefault((p.scope, p.group, p.method), []).append(
-                (f"at x = {p.x:g} ", p.y, p.y_low, p.y_high))
-    nan = [math.nan] * len(fits)
-    for key, smearing, parametric, n in zip(
-            row_keys(fits), *(fits[c].tolist() if c in fits.columns else nan
-                           for c in ("smearing_factor", "parametric_factor", "n"))):
-        if key not in all_fits or not np.isfinite(smearing):
+        pred_keys = list(row_keys(preds))
+        y, lo, hi = (preds[c].to_numpy(dtype=float) for c in ("y", "y_low", "y_high"))
+        with np.errstate(invalid="ignore"):
+            outside = (np.isfinite(y) & np.isfinite(lo) & np.isfinite(hi)
+                       & ~((lo <= y) & (y <= hi)))
+        flagged = {pred_keys[i] for i in np.flatnonzero(outside)}
+    else:
+        flagged = set()
+    chosen = [i for i, key in enumerate(keys)
+              if odd[i] or key == checked_key or key in flagged]
+    wanted = {keys[i] for i in chosen}
+    estimates: dict = {}      # (scope, group, method) -> the predictions' estimates, once
+    if pred_keys and wanted:
+        xs, ys, los, his = (preds[c].tolist() for c in ("x", "y", "y_low", "y_high"))
+        for i, key in enumerate(pred_keys):
+            if key in wanted:
+                estimates.setdefault(key, []).append(
+                    (f"at x = {xs[i]:g} ", ys[i], los[i], his[i]))
+    ns = fits["n"].tolist()
+    records = []
+    for i in chosen:
+        key = keys[i]
+        if key not in all_fits or not np.isfinite(smearing[i]):
             continue
         est = estimates.get(key, ())
         try:
-            found = fit_checks(smearing_factor=smearing, parametric_factor=parametric,
-                               estimates=est)
+            found = fit_checks(smearing_factor=float(smearing[i]),
+                               parametric_factor=float(parametric[i]), estimates=est)
         except ScalingError:
             continue
-        if key == checked_key and n >= MIN_N:
+        if key == checked_key and ns[i] >= MIN_N:
             found = _point_checks(res, all_fits[key], anova, alpha, names) + found
             found.sort(key=lambda c: c.severity != "strong")
         records += [{"scope": key[0], "group": key[1], "method": key[2],

@@ -253,27 +253,39 @@ class ResidualSums:
             for key, v in values.items():
                 self.sums[key][:, j] += total(v)
         if checks:
-            self._add_checks(codes, X, Y, rows)
+            self._add_checks(codes, X, Y, rows, one)
 
-    def _add_checks(self, codes, X, Y, rows) -> None:
-        """Cook's distances (the k largest per set, rows above 4/n) and strong rows."""
+    def _add_checks(self, codes, X, Y, rows, one: int | None = None) -> None:
+        """Cook's distances (the k largest per set, rows above 4/n) and strong rows;
+        ``one``: the chunk's only set (its numbers are then scalars, not gathers)."""
         S = self.shape[0]
+
+        def take(table):
+            return table[one] if one is not None else table[codes]
+
         # Cook's distance up to each set's factor 1 / (2 s^2).
         with np.errstate(divide="ignore", invalid="ignore"):
-            eo = Y - self.a_ols[codes] - self.b_ols[codes] * X
-            h = 1.0 / self.n_moments[codes] + (X - self.mx[codes]) ** 2 / self.sxx[codes]
+            eo = Y - take(self.a_ols) - take(self.b_ols) * X
+            h = 1.0 / take(self.n_moments) + (X - take(self.mx)) ** 2 / take(self.sxx)
             u = eo * eo * h / (1.0 - h) ** 2
         self.so2 += np.bincount(codes, weights=eo * eo, minlength=S)
         u = np.where(np.isfinite(u), u, -np.inf)
         rows = np.asarray(rows, dtype=np.int64)
         with np.errstate(divide="ignore", invalid="ignore"):
-            above = u / (2 * self.s2_moments[codes]) > 4.0 / self.n_moments[codes]
-        self.n_above += np.bincount(codes, weights=above, minlength=S)
+            above = u / (2 * take(self.s2_moments)) > 4.0 / take(self.n_moments)
+        if one is None:
+            self.n_above += np.bincount(codes, weights=above, minlength=S)
+        else:
+            self.n_above[one] += np.count_nonzero(above)
         # Only rows that beat their set's k-th largest so far, and a lower bound of the
         # chunk's own k-th largest, can enter (keeps the sort small).
         live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
         self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
         if self.influence_method is not None:
+            if one is not None:
+                if self.strong[one]:
+                    self._add_strong(codes, X, Y, u, rows, one)
+                return
             strong = self.strong[codes]
             if strong.all():
                 self._add_strong(codes, X, Y, u, rows)
@@ -293,25 +305,36 @@ class ResidualSums:
             np.minimum(floor, top, out=floor)
         return floor
 
-    def _add_strong(self, codes, X, Y, u, rows) -> None:
+    def _add_strong(self, codes, X, Y, u, rows, one: int | None = None) -> None:
         """Rows under the strong-influence rule, with their leave-one-out slopes."""
-        n = self.n_moments[codes]
-        d, f = X - self.mx[codes], Y - self.my[codes]
+        def take(table):
+            return table[one] if one is not None else table[codes]
+
+        n = take(self.n_moments)
+        mx, my = take(self.mx), take(self.my)
+        d, f = X - mx, Y - my
         k = n / (n - 1)
-        down = Moments(n=n - 1, mean_x=self.mx[codes] - d / (n - 1),
-                       mean_y=self.my[codes] - f / (n - 1), sxx=self.sxx[codes] - k * d * d,
-                       syy=self.syy[codes] - k * f * f, sxy=self.sxy[codes] - k * d * f)
+        sxx = take(self.sxx) - k * d * d
+        syy = take(self.syy) - k * f * f
+        sxy = take(self.sxy) - k * d * f
+        # Every row's leave-one-out slope reads only the centred sums (the means
+        # are placeholders here; the rows kept get theirs below).
         with np.errstate(divide="ignore", invalid="ignore"):
-            loo = METHODS[self.influence_method].slope(down)
-            cook = u / (2 * self.s2_moments[codes])
-            se = self.se_infl[codes]
-            flag = ((cook > COOK_STRONG) | (np.abs(loo - self.b_infl[codes]) > se)) & (se > 0)
-        if not flag.any():
+            loo = METHODS[self.influence_method].slope(
+                Moments(n=n - 1, mean_x=mx, mean_y=my, sxx=sxx, syy=syy, sxy=sxy))
+            cook = u / (2 * take(self.s2_moments))
+            se = take(self.se_infl)
+            flag = ((cook > COOK_STRONG) | (np.abs(loo - take(self.b_infl)) > se)) & (se > 0)
+        if not np.any(flag):
             return
-        idx = np.flatnonzero(flag)
+        idx = np.flatnonzero(np.broadcast_to(flag, X.shape))
+        n_i = np.broadcast_to(n, X.shape)[idx]
+        down = Moments(n=n_i - 1, mean_x=np.broadcast_to(mx, X.shape)[idx] - d[idx] / (n_i - 1),
+                       mean_y=np.broadcast_to(my, X.shape)[idx] - f[idx] / (n_i - 1),
+                       sxx=sxx[idx], syy=syy[idx], sxy=sxy[idx])
         # the run's own estimator for the rows kept (its notes and guards included)
         with np.errstate(divide="ignore", invalid="ignore"):
-            exact = np.asarray(fit_moments(down[idx], self.influence_method)["slope"], float)
+            exact = np.asarray(fit_moments(down, self.influence_method)["slope"], float)
         self._keep_top(self.strong_u, self.strong_rows, self.strong_loo, codes[idx], u[idx],
                        rows[idx], exact)
 
