@@ -215,43 +215,59 @@ class ResidualSums:
         def take(table):
             return table[one] if one is not None else table[codes]
 
-        def total(v):
+        def add_to(key, j, v):
             if one is None:
-                return np.bincount(codes, weights=v, minlength=S)
-            out = np.zeros(S)
-            out[one] = v.sum()
-            return out
+                self.sums[key][:, j] += np.bincount(codes, weights=v, minlength=S)
+            else:
+                self.sums[key][one, j] += v.sum()
 
         counts = np.bincount(codes, minlength=S)
         self.n += counts
         present = counts > 0
         # A chunk with no checked set sums only the factors and accuracy figures.
         checks = bool(self.checked[present].any())
+        size = X.size
+        # Work arrays reused by every method (the values are those of the plain
+        # expressions in the comments, operation for operation).
+        e, e2, t = np.empty(size), np.empty(size), np.empty(size)
         if checks:
             xc = X - take(self.mx)
+            d, d2, w = np.empty(size), np.empty(size), np.empty(size)
         if self.base is not None:
             ln_base = math.log(self.base)
             # Natural y scaled by a common power per set (the ratio is unchanged by it),
             # so values near 1e+-12 neither overflow nor underflow.
             y_scaled = np.exp((Y - take(self.my)) * ln_base)
-            sy = total(y_scaled)
+            if one is None:
+                sy = np.bincount(codes, weights=y_scaled, minlength=S)
+            else:
+                sy = y_scaled.sum()
+            be = np.empty(size)
         for j in range(M):   # one method at a time: 1-d arrays, gathers from 1-d tables
-            e = Y - take(self.a[:, j]) - take(self.b[:, j]) * X
-            e2 = e * e
-            values = {"se2": e2}
+            np.multiply(take(self.b[:, j]), X, out=t)
+            np.subtract(Y, take(self.a[:, j]), out=e)
+            np.subtract(e, t, out=e)                        # e = Y - a - b X
+            np.multiply(e, e, out=e2)
+            add_to("se2", j, e2)
             if checks:
-                d = e - take(self.mean_e[:, j])
-                d2 = d * d
-                w = e2 - take(self.mean_e2[:, j])
-                values.update({"sd2": d2, "sd3": d2 * d, "sd4": d2 * d2, "bw": w,
-                               "bww": w * w, "bwx": w * xc})
+                np.subtract(e, take(self.mean_e[:, j]), out=d)      # d = e - mean e
+                np.multiply(d, d, out=d2)
+                add_to("sd2", j, d2)
+                add_to("sd3", j, np.multiply(d2, d, out=t))
+                add_to("sd4", j, np.multiply(d2, d2, out=t))
+                np.subtract(e2, take(self.mean_e2[:, j]), out=w)    # w = e^2 - mean e^2
+                add_to("bw", j, w)
+                add_to("bww", j, np.multiply(w, w, out=t))
+                add_to("bwx", j, np.multiply(w, xc, out=t))
             if self.base is not None:
-                be = np.exp(e * ln_base)
-                values.update({"smear": be, "spe": np.abs(be - 1.0),
-                               "syhat": y_scaled / be})   # yhat = y / base^e
-                self.sums["sy"][:, j] += sy
-            for key, v in values.items():
-                self.sums[key][:, j] += total(v)
+                np.exp(np.multiply(e, ln_base, out=be), out=be)    # base^e
+                add_to("smear", j, be)
+                add_to("spe", j, np.abs(np.subtract(be, 1.0, out=t), out=t))
+                add_to("syhat", j, np.divide(y_scaled, be, out=t))  # yhat = y / base^e
+                if one is None:
+                    self.sums["sy"][:, j] += sy
+                else:
+                    self.sums["sy"][one, j] += sy
         if checks:
             self._add_checks(codes, X, Y, rows, one)
 
@@ -279,7 +295,12 @@ class ResidualSums:
             self.n_above[one] += np.count_nonzero(above)
         # Only rows that beat their set's k-th largest so far, and a lower bound of the
         # chunk's own k-th largest, can enter (keeps the sort small).
-        live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
+        if one is None:
+            live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
+        else:   # one set: the floor is the smallest of the k slices' maxima
+            floor = min((float(u[j::self.k].max()) if u[j::self.k].size else -np.inf)
+                        for j in range(self.k))
+            live = u >= max(self.top_u[one, -1], floor)
         self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
         if self.influence_method is not None:
             if one is not None:
