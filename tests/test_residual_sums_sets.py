@@ -17,6 +17,7 @@ from numpy.testing import assert_array_equal
 
 from scaling.stats.lines import fit_moments
 from scaling.stats.moments import group_moments
+from scaling.stats import streaming_residuals as sr
 from scaling.stats.streaming_residuals import ResidualSums
 
 METHODS = ("ols", "sma", "ma")
@@ -95,3 +96,34 @@ def test_default_checks_every_set(data):
     ra, rb = a.result(), b.result()
     for f in dataclasses.fields(ra):
         assert_array_equal(getattr(ra, f.name), getattr(rb, f.name), err_msg=f.name)
+
+
+@pytest.mark.parametrize("n", [1, 7, 128, 129, 1000, 4099, 70001])
+@pytest.mark.parametrize("block", [128, 1000, 1 << 16])
+def test_pairwise_blocks_reproduce_numpy_sum_bit_for_bit(n, block):
+    # reference: numpy's own np.sum of the whole array (its pairwise summation)
+    rng = np.random.default_rng(n)
+    v = rng.normal(size=n) * 10.0 ** rng.uniform(-6, 6, n)
+    blocks = sr._pairwise_blocks(n, block)
+    assert blocks[0][0] == 0 and blocks[-1][1] == n
+    assert all(a[1] == b[0] for a, b in zip(blocks, blocks[1:]))
+    parts = np.array([[v[lo:hi].sum(), (v[lo:hi] ** 3).sum()] for lo, hi in blocks])
+    total = sr._pairwise_join(parts, n, block)
+    assert total[0] == v.sum() and total[1] == (v ** 3).sum()
+
+
+def test_one_set_in_small_blocks_equals_the_whole_chunk(data, monkeypatch):
+    X, Y, codes, S = data
+    params = _params(X, Y, np.zeros(X.size, dtype=np.intp), 1)    # the pooled set
+    rows = np.arange(1, X.size + 1)
+    results = []
+    for block in (1 << 16, 128):
+        monkeypatch.setattr(sr, "_BLOCK", block)
+        acc = ResidualSums(**params)
+        acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)   # one set, many blocks
+        acc.add(np.zeros(300, dtype=np.intp), X[:300], Y[:300], rows[:300])
+        results.append(acc.result())
+    assert sr._pairwise_blocks(X.size, 128)[1:]       # several blocks were used
+    for f in dataclasses.fields(results[0]):
+        assert_array_equal(getattr(results[0], f.name), getattr(results[1], f.name),
+                           err_msg=f.name)

@@ -207,28 +207,36 @@ class ResidualSums:
         if not codes.size:
             return
         X, Y = np.asarray(X, float), np.asarray(Y, float)
+        rows = np.asarray(rows, dtype=np.int64)
         S, M = self.shape
         # One set in the chunk (the pooled rows): its line's numbers are scalars and its
         # sums plain sums, not gathers and bincounts over every row.
         one = int(codes[0]) if codes[0] == codes.min() == codes.max() else None
-
-        def take(table):
-            return table[one] if one is not None else table[codes]
-
-        def add_to(key, j, v):
-            if one is None:
-                self.sums[key][:, j] += np.bincount(codes, weights=v, minlength=S)
-            else:
-                self.sums[key][one, j] += v.sum()
-
         counts = np.bincount(codes, minlength=S)
         self.n += counts
-        present = counts > 0
         # A chunk with no checked set sums only the factors and accuracy figures.
-        checks = bool(self.checked[present].any())
+        checks = bool(self.checked[counts > 0].any())
+        if one is not None:
+            self._add_one(one, X, Y, rows, checks)
+            return
+        for key, j, v in self._values(X, Y, lambda table: table[codes], checks):
+            total = np.bincount(codes, weights=v, minlength=S)
+            if j is None:     # the same for every method
+                for jj in range(M):
+                    self.sums[key][:, jj] += total
+            else:
+                self.sums[key][:, j] += total
+        if checks:
+            self._add_checks(codes, X, Y, rows)
+
+    def _values(self, X, Y, take, checks: bool):
+        """Yield ``(key, method column or None, values)`` of every sum of a piece of rows.
+
+        ``take(table)`` gives each row's entry of a per-set table.  The values
+        live in work arrays reused by the next item (each is the plain
+        expression in the comments, operation for operation).
+        """
         size = X.size
-        # Work arrays reused by every method (the values are those of the plain
-        # expressions in the comments, operation for operation).
         e, e2, t = np.empty(size), np.empty(size), np.empty(size)
         if checks:
             xc = X - take(self.mx)
@@ -238,43 +246,71 @@ class ResidualSums:
             # Natural y scaled by a common power per set (the ratio is unchanged by it),
             # so values near 1e+-12 neither overflow nor underflow.
             y_scaled = np.exp((Y - take(self.my)) * ln_base)
-            if one is None:
-                sy = np.bincount(codes, weights=y_scaled, minlength=S)
-            else:
-                sy = y_scaled.sum()
+            yield "sy", None, y_scaled
             be = np.empty(size)
-        for j in range(M):   # one method at a time: 1-d arrays, gathers from 1-d tables
+        for j in range(self.shape[1]):   # one method at a time: gathers from 1-d tables
             np.multiply(take(self.b[:, j]), X, out=t)
             np.subtract(Y, take(self.a[:, j]), out=e)
             np.subtract(e, t, out=e)                        # e = Y - a - b X
             np.multiply(e, e, out=e2)
-            add_to("se2", j, e2)
+            yield "se2", j, e2
             if checks:
                 np.subtract(e, take(self.mean_e[:, j]), out=d)      # d = e - mean e
                 np.multiply(d, d, out=d2)
-                add_to("sd2", j, d2)
-                add_to("sd3", j, np.multiply(d2, d, out=t))
-                add_to("sd4", j, np.multiply(d2, d2, out=t))
+                yield "sd2", j, d2
+                yield "sd3", j, np.multiply(d2, d, out=t)
+                yield "sd4", j, np.multiply(d2, d2, out=t)
                 np.subtract(e2, take(self.mean_e2[:, j]), out=w)    # w = e^2 - mean e^2
-                add_to("bw", j, w)
-                add_to("bww", j, np.multiply(w, w, out=t))
-                add_to("bwx", j, np.multiply(w, xc, out=t))
+                yield "bw", j, w
+                yield "bww", j, np.multiply(w, w, out=t)
+                yield "bwx", j, np.multiply(w, xc, out=t)
             if self.base is not None:
                 np.exp(np.multiply(e, ln_base, out=be), out=be)    # base^e
-                add_to("smear", j, be)
-                add_to("spe", j, np.abs(np.subtract(be, 1.0, out=t), out=t))
-                add_to("syhat", j, np.divide(y_scaled, be, out=t))  # yhat = y / base^e
-                if one is None:
-                    self.sums["sy"][:, j] += sy
-                else:
-                    self.sums["sy"][one, j] += sy
-        if checks:
-            self._add_checks(codes, X, Y, rows, one)
+                yield "smear", j, be
+                yield "spe", j, np.abs(np.subtract(be, 1.0, out=t), out=t)
+                yield "syhat", j, np.divide(y_scaled, be, out=t)  # yhat = y / base^e
 
-    def _add_checks(self, codes, X, Y, rows, one: int | None = None) -> None:
+    def _add_one(self, one: int, X, Y, rows, checks: bool) -> None:
+        """Add a chunk of one set in blocks that stay in the processor's cache.
+
+        The blocks are the subtrees of numpy's pairwise summation over the
+        chunk (:func:`_pairwise_blocks`), and their sums are joined as that
+        summation joins them, so every sum equals ``values.sum()`` over the
+        whole chunk to the last bit; the sum of squared OLS residuals, which
+        is taken in row order, is carried from block to block.
+        """
+        def take(table):
+            return table[one]
+
+        blocks = _pairwise_blocks(X.size, _BLOCK)
+        items, partials = None, []
+        so2 = None
+        for lo, hi in blocks:
+            found = [(key, j, float(v.sum()))
+                     for key, j, v in self._values(X[lo:hi], Y[lo:hi], take, checks)]
+            items = items or [(key, j) for key, j, _ in found]
+            partials.append([v for _, _, v in found])
+            if checks:
+                so2 = self._add_checks(None, X[lo:hi], Y[lo:hi], rows[lo:hi], one,
+                                       so2_start=0.0 if so2 is None else so2)
+        totals = _pairwise_join(np.array(partials), X.size, _BLOCK)
+        for (key, j), total in zip(items, totals):
+            if j is None:
+                self.sums[key][one, :] += total
+            else:
+                self.sums[key][one, j] += total
+        if so2 is not None:
+            self.so2[one] += so2
+
+    def _add_checks(self, codes, X, Y, rows, one: int | None = None,
+                    so2_start: float | None = None) -> float | None:
         """Cook's distances (the k largest per set, rows above 4/n) and strong rows;
-        ``one``: the chunk's only set (its numbers are then scalars, not gathers)."""
+        ``one``: the piece's only set (its numbers are then scalars, not gathers;
+        ``codes`` may be None).  With ``so2_start`` the squared OLS residuals are
+        summed in row order onto it and the sum returned, not added."""
         S = self.shape[0]
+        if codes is None:
+            codes = np.full(X.size, one, dtype=np.intp)
 
         def take(table):
             return table[one] if one is not None else table[codes]
@@ -284,7 +320,11 @@ class ResidualSums:
             eo = Y - take(self.a_ols) - take(self.b_ols) * X
             h = 1.0 / take(self.n_moments) + (X - take(self.mx)) ** 2 / take(self.sxx)
             u = eo * eo * h / (1.0 - h) ** 2
-        self.so2 += np.bincount(codes, weights=eo * eo, minlength=S)
+        carried = None
+        if so2_start is None:
+            self.so2 += np.bincount(codes, weights=eo * eo, minlength=S)
+        else:   # in row order, as bincount sums: the last of the running sums
+            carried = float(np.add.accumulate(np.concatenate(([so2_start], eo * eo)))[-1])
         u = np.where(np.isfinite(u), u, -np.inf)
         rows = np.asarray(rows, dtype=np.int64)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -306,12 +346,13 @@ class ResidualSums:
             if one is not None:
                 if self.strong[one]:
                     self._add_strong(codes, X, Y, u, rows, one)
-                return
+                return carried
             strong = self.strong[codes]
             if strong.all():
                 self._add_strong(codes, X, Y, u, rows)
             elif strong.any():
                 self._add_strong(codes[strong], X[strong], Y[strong], u[strong], rows[strong])
+        return carried
 
     def _chunk_floor(self, codes, u) -> np.ndarray:
         """Per set, a lower bound of the k-th largest ``u`` of a chunk: the smallest of
@@ -448,6 +489,48 @@ class ResidualSums:
                               strong_cooks=strong, strong_rows=strong_rows,
                               strong_slope_without=np.where(strong_rows >= 0,
                                                             self.strong_loo, np.nan))
+
+
+#: Rows per block of a one-set chunk (temporaries of 0.5 MB stay in the cache).
+_BLOCK = 1 << 16
+
+
+def _pairwise_blocks(n: int, block: int) -> list:
+    """The (start, stop) of the subtrees of numpy's pairwise summation of ``n`` values
+    that are at most ``block`` long (``block`` >= 128), in order.
+
+    ``np.sum`` of a contiguous float64 array splits ``n`` values into
+    ``n2 = n // 2 - (n // 2) % 8`` and ``n - n2`` until at most 128 remain;
+    the sum of one subtree is ``np.sum`` of its slice.
+    """
+    out = []
+
+    def split(start: int, size: int) -> None:
+        if size <= block:
+            out.append((start, start + size))
+            return
+        half = size // 2
+        half -= half % 8
+        split(start, half)
+        split(start + half, size - half)
+
+    split(0, n)
+    return out
+
+
+def _pairwise_join(partials: np.ndarray, n: int, block: int) -> np.ndarray:
+    """Join the sums of :func:`_pairwise_blocks` (rows of ``partials``) as the
+    pairwise summation of ``n`` values joins them."""
+    it = iter(partials)
+
+    def join(size: int):
+        if size <= block:
+            return next(it)
+        half = size // 2
+        half -= half % 8
+        return join(half) + join(size - half)
+
+    return join(n)
 
 
 class GroupResidualSums:
