@@ -307,32 +307,42 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     all_fits = dict(line_fits)
     rng = dict(zip(row_keys(fits), zip(*(fits[c].tolist()
                                        for c in ("slope", "x_min", "x_max", "y_min", "y_max")))))
+    fitted = {}
     for method in methods:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            fitted = fit_moments(m, method, confidence=cfg.model.confidence)
-        for i, (scope, group) in enumerate(keys):
+            fitted[method] = fit_moments(m, method, confidence=cfg.model.confidence)
+    made = {}
+    for i, (scope, group) in enumerate(keys):
+        m_i = None      # one set's moments, shared by its methods' fits
+        for method in methods:
             key = (scope, group, method)
             r = rng.get(key)   # slope, x_min, x_max, y_min, y_max
             if key in all_fits or r is None or not np.isfinite(r[0]):
                 continue
-            all_fits[key] = line_fit_from_result(
-                fitted, i, m[i], method, confidence=cfg.model.confidence, log_base=base,
-                x_range=(r[1], r[2]), y_range=(r[3], r[4]))
+            m_i = m[i] if m_i is None else m_i
+            made[key] = line_fit_from_result(
+                fitted[method], i, m_i, method, confidence=cfg.model.confidence,
+                log_base=base, x_range=(r[1], r[2]), y_range=(r[3], r[4]))
+    for method in methods:   # listed method by method, as the fits always were
+        for scope, group in keys:
+            key = (scope, group, method)
+            if key in made:
+                all_fits[key] = made[key]
     extra = {}
+    columns = {c: getattr(res, name).tolist() for c, name in
+               (("see", "see"), ("percent_see", "percent_see"), ("percent_pe", "percent_pe"),
+                ("smearing_factor", "smearing"), ("parametric_factor", "parametric"),
+                ("ratio_factor", "ratio"))}
+    set_n = res.n.tolist()
     for i, (scope, group) in enumerate(keys):
-        if res.n[i] < 3:
+        if set_n[i] < 3:
             continue
         for j, method in enumerate(methods):
             key = (scope, group, method)
             if key not in all_fits:
                 continue
-            extra[key] = {"see": float(res.see[i, j]),
-                          "percent_see": float(res.percent_see[i, j]),
-                          "percent_pe": float(res.percent_pe[i, j]),
-                          "smearing_factor": float(res.smearing[i, j]),
-                          "parametric_factor": float(res.parametric[i, j]),
-                          "ratio_factor": float(res.ratio[i, j])}
+            extra[key] = {c: float(v[i][j]) for c, v in columns.items()}
     if point_sets:   # the line through the group means: its points are in memory
         held = {k: f for k, f in all_fits.items() if (k[0], k[1]) in point_sets}
         extra.update(accuracy_and_factors(held, point_sets)[1])
