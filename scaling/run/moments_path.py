@@ -18,8 +18,9 @@ Two stages used by :func:`scaling.run.pipeline.analyse`:
   within-group slope with its slope tests, with the same seed.  Curvature
   and the local exponents come from the higher moments (Σx³, Σx⁴, Σx²y).
   What needs residuals comes from a second pass
-  (:mod:`scaling.run.second_pass`, over the same chunks, or over the unit
-  means with ``data.average_within``): correction factors, SEE, %SEE and
+  (:mod:`scaling.run.second_pass`, over the same chunks -- kept by the first
+  pass in a temporary binary file, or read again with Dask -- or over the
+  unit means with ``data.average_within``): correction factors, SEE, %SEE and
   %PE, predictions, the residual checks (D'Agostino-Pearson normality
   instead of Shapiro-Wilk, which needs the sorted rows; Breusch-Pagan;
   Cook's distance, top k rows per fit) and the points to check.  Only what

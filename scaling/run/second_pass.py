@@ -2,12 +2,18 @@
 
 The first pass (:func:`scaling.run.table_moments.read_moments`) gives per-group
 moments and so the fitted lines.  With the lines known, :func:`second_pass`
-reads the same file again through the same reader (chunks of
-:mod:`scaling.io.chunked`, or Dask partitions on the same scheduler), cleans
-each chunk by the same rules and adds its residual sums to a
+reads the rows again chunk by chunk and adds their residual sums to a
 :class:`~scaling.stats.streaming_residuals.ResidualSums` (pooled rows and
-every group, every line method).  From those sums and the moments it builds
-what the in-memory road writes from the rows:
+every group, every line method; the groups' residual checks only when each
+group is checked, ``groups.diagnostics_max``).  Read in this process, the
+rows come back from the first pass's temporary binary file
+(:class:`~scaling.run.table_moments.RowSpill`: log x, log y, group code and
+row number of each cleaned chunk, the same chunks), not from parsing the
+file again; with Dask the partitions are read and cleaned again on the same
+scheduler (persisting them would hold every row in the workers' memory);
+with ``data.average_within`` the points are the unit means held in memory.
+From those sums and the moments it builds what the in-memory road writes
+from the rows:
 
 * the accuracy and correction-factor columns of fits.csv (SEE, %SEE, %PE,
   smearing, parametric and ratio factors) and the constant ``a`` columns;
