@@ -401,22 +401,29 @@ class ResidualSums:
                        rows[idx], exact)
 
     def _keep_top(self, heap_u, heap_rows, heap_extra, codes, u, rows, extra) -> None:
-        """Keep in ``heap_*`` (S, k) the k largest ``u`` per set (ties: smaller row first)."""
-        S, k = heap_u.shape
-        all_codes = np.concatenate([np.repeat(np.arange(S), k), codes])
-        all_u = np.concatenate([heap_u.ravel(), u])
-        all_rows = np.concatenate([heap_rows.ravel(), rows])
+        """Keep in ``heap_*`` (S, k) the k largest ``u`` per set (ties: smaller row first).
+
+        Only the sets with candidates are sorted again (the others' rows are
+        already in that order).
+        """
+        if not np.size(codes):
+            return
+        k = heap_u.shape[1]
+        sets = np.unique(codes)
+        all_codes = np.concatenate([np.repeat(sets, k), codes])
+        all_u = np.concatenate([heap_u[sets].ravel(), u])
+        all_rows = np.concatenate([heap_rows[sets].ravel(), rows])
         order = np.lexsort((all_rows, -all_u, all_codes))
         sc = all_codes[order]
-        first = np.searchsorted(sc, np.arange(S))
-        rank = np.arange(sc.size) - first[sc]
+        first = np.searchsorted(sc, sets)
+        rank = np.arange(sc.size) - first[np.searchsorted(sets, sc)]
         keep = order[rank < k]
         kc = all_codes[keep]
         slot = rank[rank < k]
         heap_u[kc, slot] = all_u[keep]
         heap_rows[kc, slot] = all_rows[keep]
         if heap_extra is not None:
-            heap_extra[kc, slot] = np.concatenate([heap_extra.ravel(), extra])[keep]
+            heap_extra[kc, slot] = np.concatenate([heap_extra[sets].ravel(), extra])[keep]
 
     def merge(self, other: "ResidualSums") -> None:
         """Add another accumulator of the same lines (e.g. another Dask partition)."""
