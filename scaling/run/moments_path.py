@@ -52,6 +52,7 @@ from ..render.wording import worded_fits
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
+from ..io.chunked import file_kind, files_of
 from .table_moments import RowSpill, read_moments
 from ..stats.grouped_fits import fit_groups_from_moments
 from ..stats.lines import METHODS, method_label, parse_log_base
@@ -210,7 +211,12 @@ def _sep(cfg) -> str:
         return "\t"
     if suffix == ".parquet":
         return ","
-    with open(cfg.data.file, encoding="utf-8-sig", errors="replace") as fh:
+    path = Path(cfg.data.file)
+    kind = file_kind(path)
+    if kind == "parquet":
+        return ","
+    # a folder or glob of csv files: the first file's header line decides
+    with open(files_of(path, kind)[0], encoding="utf-8-sig", errors="replace") as fh:
         head = fh.readline()
     counts = {s: head.count(s) for s in (",", "\t", ";")}
     return max(counts, key=counts.get) if max(counts.values()) else ","
