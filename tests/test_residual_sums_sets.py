@@ -127,3 +127,28 @@ def test_one_set_in_small_blocks_equals_the_whole_chunk(data, monkeypatch):
     for f in dataclasses.fields(results[0]):
         assert_array_equal(getattr(results[0], f.name), getattr(results[1], f.name),
                            err_msg=f.name)
+
+
+def test_many_sets_in_small_blocks_equal_one_bincount_of_the_chunk(data, monkeypatch):
+    X, Y, codes, S = data
+    params = _params(X, Y, codes, S - 1)
+    rows = np.arange(1, X.size + 1)
+    results, sums = [], []
+    for block in (1 << 16, 128):
+        monkeypatch.setattr(sr, "_BLOCK", block)
+        acc = ResidualSums(**params)
+        acc.add(codes, X, Y, rows)
+        results.append(acc.result())
+        sums.append({k: v.copy() for k, v in acc.sums.items()})
+    for f in dataclasses.fields(results[0]):
+        assert_array_equal(getattr(results[0], f.name), getattr(results[1], f.name),
+                           err_msg=f.name)
+    # reference: one bincount of the chunk's values, as the sums were first written
+    a, b = params["intercept"], params["slope"]
+    for j in range(len(METHODS)):
+        e = Y - a[codes, j] - b[codes, j] * X
+        want = np.bincount(codes, weights=e * e, minlength=S - 1)
+        assert_array_equal(sums[1]["se2"][:, j], want)
+        assert_array_equal(sums[1]["smear"][:, j],
+                           np.bincount(codes, weights=np.exp(e * np.log(10.0)),
+                                       minlength=S - 1))

@@ -219,8 +219,17 @@ class ResidualSums:
         if one is not None:
             self._add_one(one, X, Y, rows, checks)
             return
-        for key, j, v in self._values(X, Y, lambda table: table[codes], checks):
-            total = np.bincount(codes, weights=v, minlength=S)
+        # Blocks that stay in the cache; each sum is scattered in row order onto the
+        # chunk's totals (from 0, as one bincount of the chunk would add them).
+        totals: dict = {}
+        for lo in range(0, X.size, _BLOCK):
+            part = codes[lo:lo + _BLOCK]
+            for key, j, v in self._values(X[lo:lo + _BLOCK], Y[lo:lo + _BLOCK],
+                                          lambda table: table[part], checks):
+                if (key, j) not in totals:
+                    totals[key, j] = np.zeros(S)
+                np.add.at(totals[key, j], part, v)
+        for (key, j), total in totals.items():
             if j is None:     # the same for every method
                 for jj in range(M):
                     self.sums[key][:, jj] += total
