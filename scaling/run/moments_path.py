@@ -18,8 +18,9 @@ Two stages used by :func:`scaling.run.pipeline.analyse`:
   within-group slope with its slope tests, with the same seed.  Curvature
   and the local exponents come from the higher moments (Σx³, Σx⁴, Σx²y).
   What needs residuals comes from a second pass
-  (:mod:`scaling.run.second_pass`, over the same chunks, or over the unit
-  means with ``data.average_within``): correction factors, SEE, %SEE and
+  (:mod:`scaling.run.second_pass`, over the same chunks -- kept by the first
+  pass in a temporary binary file, or read again with Dask -- or over the
+  unit means with ``data.average_within``): correction factors, SEE, %SEE and
   %PE, predictions, the residual checks (D'Agostino-Pearson normality
   instead of Shapiro-Wilk, which needs the sorted rows; Breusch-Pagan;
   Cook's distance, top k rows per fit) and the points to check.  Only what
@@ -51,7 +52,8 @@ from ..render.wording import worded_fits
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
-from .table_moments import read_moments
+from ..io.chunked import file_kind, files_of
+from .table_moments import RowSpill, read_moments
 from ..stats.grouped_fits import fit_groups_from_moments
 from ..stats.lines import METHODS, method_label, parse_log_base
 from ..stats.line_results import line_fit_from_moments
@@ -209,7 +211,12 @@ def _sep(cfg) -> str:
         return "\t"
     if suffix == ".parquet":
         return ","
-    with open(cfg.data.file, encoding="utf-8-sig", errors="replace") as fh:
+    path = Path(cfg.data.file)
+    kind = file_kind(path)
+    if kind == "parquet":
+        return ","
+    # a folder or glob of csv files: the first file's header line decides
+    with open(files_of(path, kind)[0], encoding="utf-8-sig", errors="replace") as fh:
         head = fh.readline()
     counts = {s: head.count(s) for s in (",", "\t", ";")}
     return max(counts, key=counts.get) if max(counts.values()) else ","
@@ -241,6 +248,11 @@ class MomentsStage:
     point_sets : dict
         After :func:`with_groups`: the group means as points (``("group_means", "")``),
         on which the second pass measures the line through them.
+    spill : RowSpill or None
+        The first pass's cleaned rows on disk, which the second pass reads
+        instead of parsing the file again (and then deletes); None with Dask
+        (its partitions are read again) and with ``data.average_within`` (the
+        second pass reads the unit means held in ``moments``).
     """
 
     config: object
@@ -254,6 +266,7 @@ class MomentsStage:
     manifest: dict
     moments: object = None   # the second pass (run/second_pass.py) reads them
     point_sets: dict = field(default_factory=dict)
+    spill: RowSpill | None = None
 
 
 def moments_stage(cfg, reason: str) -> MomentsStage:
@@ -261,14 +274,26 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
 
     The first and only fitting stage of its road: it starts from the config
     and ``reason`` (why the road was taken, :func:`use_moments_path`), not
-    from a state, since no rows are ever held.
+    from a state, since no rows are ever held.  Read chunk by chunk in this
+    process, the cleaned rows are also kept on disk for the second pass
+    (:class:`~scaling.run.table_moments.RowSpill`).
     """
+    d = cfg.data
+    spill = RowSpill() if cfg.engine != "dask" and not d.average_within else None
+    try:
+        return _moments_stage(cfg, reason, spill)
+    except BaseException:
+        if spill is not None:
+            spill.close()
+        raise
 
+
+def _moments_stage(cfg, reason: str, spill: RowSpill | None) -> MomentsStage:
     base = parse_log_base(cfg.model.log_base)
     d = cfg.data
     gm = read_moments(d.file, x=d.x, y=d.y, group=d.group, log_base=base,
                       chunk_size=d.chunk_size, engine=cfg.engine, scheduler=cfg.scheduler,
-                      sep=_sep(cfg), decimal=d.decimal, unit=d.average_within)
+                      sep=_sep(cfg), decimal=d.decimal, unit=d.average_within, spill=spill)
     methods = [m for m in cfg.model.methods if m in METHODS]
     others = [m for m in cfg.model.methods if m not in METHODS]
     notes: list[str] = []
@@ -339,16 +364,23 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     }
     return MomentsStage(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                         line_fits=line_fits, tables=tables, messages=tuple(messages),
-                        notes=tuple(notes), manifest=manifest, moments=gm)
+                        notes=tuple(notes), manifest=manifest, moments=gm, spill=spill)
 
 
 def _in_fits_order(tests: pd.DataFrame, fits: pd.DataFrame, exponents: dict) -> pd.DataFrame:
     """Slope tests fit by fit in the order of the fits table (as the in-memory run)."""
-    where = {k: i for i, k in enumerate(zip(fits["scope"], fits["group"], fits["method"]))}
-    hyp = {name: i for i, name in enumerate(exponents)}
-    first = [where.get(k, len(where)) for k in
-             zip(tests["scope"], tests["group"], tests["method"])]
-    second = [hyp.get(h, len(hyp)) for h in tests["hypothesis"]]
+    cols = ["scope", "group", "method"]
+    where = pd.MultiIndex.from_frame(fits[cols].astype(object))
+    position = np.arange(len(where))
+    if not where.is_unique:   # the last row of a key counts
+        last = ~where.duplicated(keep="last")
+        where, position = where[last], position[last]
+    # position of each test's fit in the fits table (after every fit when it has none)
+    found = where.get_indexer(pd.MultiIndex.from_frame(tests[cols].astype(object)))
+    first = np.where(found < 0, len(where), position[found])
+    hyp = pd.Index(list(exponents), dtype=object)
+    second = hyp.get_indexer(tests["hypothesis"].astype(object))
+    second = np.where(second < 0, len(hyp), second)
     return tests.iloc[np.lexsort((second, first))].reset_index(drop=True)
 
 

@@ -2,12 +2,18 @@
 
 The first pass (:func:`scaling.run.table_moments.read_moments`) gives per-group
 moments and so the fitted lines.  With the lines known, :func:`second_pass`
-reads the same file again through the same reader (chunks of
-:mod:`scaling.io.chunked`, or Dask partitions on the same scheduler), cleans
-each chunk by the same rules and adds its residual sums to a
+reads the rows again chunk by chunk and adds their residual sums to a
 :class:`~scaling.stats.streaming_residuals.ResidualSums` (pooled rows and
-every group, every line method).  From those sums and the moments it builds
-what the in-memory road writes from the rows:
+every group, every line method; the groups' residual checks only when each
+group is checked, ``groups.diagnostics_max``).  Read in this process, the
+rows come back from the first pass's temporary binary file
+(:class:`~scaling.run.table_moments.RowSpill`: log x, log y, group code and
+row number of each cleaned chunk, the same chunks), not from parsing the
+file again; with Dask the partitions are read and cleaned again on the same
+scheduler (persisting them would hold every row in the workers' memory);
+with ``data.average_within`` the points are the unit means held in memory.
+From those sums and the moments it builds what the in-memory road writes
+from the rows:
 
 * the accuracy and correction-factor columns of fits.csv (SEE, %SEE, %PE,
   smearing, parametric and ratio factors) and the constant ``a`` columns;
@@ -43,7 +49,7 @@ from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind,
                           read_chunks)
 from ..render.findings import check_verdict, diagnostics_messages, point_check_reason
 from ..render.headline import answer_line
-from ..stats.influence import PointCheck, fit_checks
+from ..stats.influence import SMEARING_RATIO_LIMIT, PointCheck, fit_checks
 from ..stats.line_results import line_fit_from_result
 from ..stats.lines import exact_fit, fit_moments
 from ..stats.logscale import to_log
@@ -135,13 +141,19 @@ def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
 # reading the rows again
 
 
-def _params(m, lines: dict, base, methods: list, checked: str) -> dict:
-    """ResidualSums arguments; ``checked`` is the method whose strong points are listed."""
+def _params(m, lines: dict, base, methods: list, checked: str, check_groups: bool) -> dict:
+    """ResidualSums arguments; ``checked`` is the method whose strong points are listed
+    (those of the pooled line only, set 0: points_to_check reads no other), and the
+    groups' residual checks are summed only when ``check_groups`` (the diagnostics
+    stage checks each group)."""
     j = methods.index(checked)
+    sets = np.zeros(np.size(m.n), dtype=bool)
+    sets[0] = True
     return dict(intercept=lines["intercept"], slope=lines["slope"], mean_x=m.mean_x,
                 mean_y=m.mean_y, sxx=m.sxx, syy=m.syy, sxy=m.sxy, n=m.n,
                 resid_sd=lines["resid_sd"], log_base=base, influence_method=checked,
-                influence_slope=lines["slope"][:, j], slope_se=lines["slope_se"][:, j])
+                influence_slope=lines["slope"][:, j], slope_se=lines["slope_se"][:, j],
+                checked=np.ones_like(sets) if check_groups else sets, strong=sets)
 
 
 def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: bool,
@@ -157,13 +169,21 @@ def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: boo
         codes = codes[keep] if codes is not None else None
     if not x.size:
         return c.n_rows
-    X, Y = to_log(x, base), to_log(y, base)
+    _add_rows(acc, between, c.labels, codes, to_log(x, base), to_log(y, base), rows,
+              label_index, grouped)
+    return c.n_rows
+
+
+def _add_rows(acc: ResidualSums, between, labels, codes, X, Y, rows, label_index,
+              grouped: bool) -> None:
+    """Add a chunk's usable rows (log x, log y, chunk group codes, row numbers)."""
+    if not X.size:
+        return
     acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
     if grouped:
-        local = label_index.get_indexer(pd.Index(c.labels).astype(str))[codes]
+        local = label_index.get_indexer(pd.Index(labels).astype(str))[codes]
         acc.add(1 + local, X, Y, rows)
         between.add(local, X, Y)
-    return c.n_rows
 
 
 def _feed_points(acc: ResidualSums, between, points: pd.DataFrame, label_index,
@@ -188,14 +208,22 @@ def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped):
     return acc, between, n_rows
 
 
-def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str) -> tuple:
-    """Read the file again: the filled :class:`ResidualSums`, the group-residual sums of
-    the pooled ``checked`` line, the set keys and the sets' moments."""
+def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str,
+                  spill=None) -> tuple:
+    """Read the rows again: the filled :class:`ResidualSums`, the group-residual sums of
+    the pooled ``checked`` line, the set keys and the sets' moments.
+
+    ``spill``: the first pass's :class:`~scaling.run.table_moments.RowSpill`; when
+    usable its chunks are read instead of the file (the same rows, chunk for chunk).
+    """
     d = cfg.data
     grouped = bool(d.group)
     m, keys = _sets(gm, grouped)
     lines = _lines(fits, keys, methods)
-    params = _params(m, lines, base, methods, checked)
+    # the groups are checked one by one only up to groups.diagnostics_max (_diagnostics)
+    check_groups = (cfg.diagnostics.enabled
+                    and len(keys) - 1 <= cfg.groups.diagnostics_max)
+    params = _params(m, lines, base, methods, checked, check_groups)
     j = methods.index(checked)
     between_params = dict(intercept=float(lines["intercept"][0, j]),
                           slope=float(lines["slope"][0, j]),
@@ -212,7 +240,13 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
     kind = file_kind(path)
     columns = [d.x, d.y] + ([d.group] if d.group else [])
     sep = _sep(cfg)
-    if cfg.engine == "dask":
+    if spill is not None and spill.usable:
+        for chunk in spill.chunks():
+            _add_rows(acc, between, chunk.labels, chunk.codes, chunk.X, chunk.Y, chunk.rows,
+                      label_index, grouped)
+    elif cfg.engine == "dask":
+        # Dask partitions are read and cleaned again: holding them (persist) would keep
+        # every row in the workers' memory, which this road exists to avoid.
         import dask   # the first pass has checked that it is installed
         parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
         tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, between_params,
@@ -238,7 +272,7 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
 
 def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
                 base, other_tables: dict | None = None,
-                point_sets: dict | None = None) -> SecondPass:
+                point_sets: dict | None = None, spill=None) -> SecondPass:
     """Residual sums over a second read of the file, and the tables they give.
 
     Parameters
@@ -259,6 +293,8 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     point_sets : dict, optional
         ``(scope, group) -> points`` held in memory (the group means): their fits'
         accuracy and factors are measured on them, as on the in-memory road.
+    spill : RowSpill, optional
+        The first pass's rows on disk (read instead of the file when usable).
     """
     other_tables = other_tables or {}
     methods = list(dict.fromkeys(fits["method"]))
@@ -266,7 +302,7 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     checked = primary_method(cfg)
     if checked not in methods:
         checked = methods[0]
-    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked)
+    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked, spill)
     res = acc.result()
     # a point's name: its unit under data.average_within (as in memory), else none
     names = ({} if gm.units is None
@@ -277,32 +313,42 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     all_fits = dict(line_fits)
     rng = dict(zip(row_keys(fits), zip(*(fits[c].tolist()
                                        for c in ("slope", "x_min", "x_max", "y_min", "y_max")))))
+    fitted = {}
     for method in methods:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            fitted = fit_moments(m, method, confidence=cfg.model.confidence)
-        for i, (scope, group) in enumerate(keys):
+            fitted[method] = fit_moments(m, method, confidence=cfg.model.confidence)
+    made = {}
+    for i, (scope, group) in enumerate(keys):
+        m_i = None      # one set's moments, shared by its methods' fits
+        for method in methods:
             key = (scope, group, method)
             r = rng.get(key)   # slope, x_min, x_max, y_min, y_max
             if key in all_fits or r is None or not np.isfinite(r[0]):
                 continue
-            all_fits[key] = line_fit_from_result(
-                fitted, i, m[i], method, confidence=cfg.model.confidence, log_base=base,
-                x_range=(r[1], r[2]), y_range=(r[3], r[4]))
+            m_i = m[i] if m_i is None else m_i
+            made[key] = line_fit_from_result(
+                fitted[method], i, m_i, method, confidence=cfg.model.confidence,
+                log_base=base, x_range=(r[1], r[2]), y_range=(r[3], r[4]))
+    for method in methods:   # listed method by method, as the fits always were
+        for scope, group in keys:
+            key = (scope, group, method)
+            if key in made:
+                all_fits[key] = made[key]
     extra = {}
+    columns = {c: getattr(res, name).tolist() for c, name in
+               (("see", "see"), ("percent_see", "percent_see"), ("percent_pe", "percent_pe"),
+                ("smearing_factor", "smearing"), ("parametric_factor", "parametric"),
+                ("ratio_factor", "ratio"))}
+    set_n = res.n.tolist()
     for i, (scope, group) in enumerate(keys):
-        if res.n[i] < 3:
+        if set_n[i] < 3:
             continue
         for j, method in enumerate(methods):
             key = (scope, group, method)
             if key not in all_fits:
                 continue
-            extra[key] = {"see": float(res.see[i, j]),
-                          "percent_see": float(res.percent_see[i, j]),
-                          "percent_pe": float(res.percent_pe[i, j]),
-                          "smearing_factor": float(res.smearing[i, j]),
-                          "parametric_factor": float(res.parametric[i, j]),
-                          "ratio_factor": float(res.ratio[i, j])}
+            extra[key] = {c: float(v[i][j]) for c, v in columns.items()}
     if point_sets:   # the line through the group means: its points are in memory
         held = {k: f for k, f in all_fits.items() if (k[0], k[1]) in point_sets}
         extra.update(accuracy_and_factors(held, point_sets)[1])
@@ -549,27 +595,54 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
                      checked_key, anova, alpha: float, names: dict) -> pd.DataFrame:
     """points_to_check: the pooled line's strong points and residuals between groups,
     and every fit's factor and interval checks (as :func:`scaling.stats.influence.points_to_check`
-    and :func:`~scaling.stats.influence.fit_checks`)."""
-    records = []
-    estimates: dict = {}      # (scope, group, method) -> the predictions' estimates, once
+    and :func:`~scaling.stats.influence.fit_checks`).
+
+    The factor ratios and the estimates' intervals of all fits are screened in
+    array passes first; :func:`~scaling.stats.influence.fit_checks` (which finds
+    nothing elsewhere) then runs only on the fits the screen keeps and on the
+    checked pooled line.
+    """
+    keys = list(row_keys(fits))
+    nan = np.full(len(fits), np.nan)
+    smearing, parametric = (fits[c].to_numpy(dtype=float) if c in fits.columns else nan
+                            for c in ("smearing_factor", "parametric_factor"))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        ratio = smearing / parametric
+        odd = (np.isfinite(smearing) & np.isfinite(parametric) & (parametric > 0)
+               & ~((1 / SMEARING_RATIO_LIMIT <= ratio) & (ratio <= SMEARING_RATIO_LIMIT)))
+    pred_keys: list = []
     if preds is not None and len(preds):
-        for p in preds[["scope", "group", "method", "x", "y", "y_low", "y_high"]].itertuples(
-                index=False):
-            estimates.setdefault((p.scope, p.group, p.method), []).append(
-                (f"at x = {p.x:g} ", p.y, p.y_low, p.y_high))
-    nan = [math.nan] * len(fits)
-    for key, smearing, parametric, n in zip(
-            row_keys(fits), *(fits[c].tolist() if c in fits.columns else nan
-                           for c in ("smearing_factor", "parametric_factor", "n"))):
-        if key not in all_fits or not np.isfinite(smearing):
+        pred_keys = list(row_keys(preds))
+        y, lo, hi = (preds[c].to_numpy(dtype=float) for c in ("y", "y_low", "y_high"))
+        with np.errstate(invalid="ignore"):
+            outside = (np.isfinite(y) & np.isfinite(lo) & np.isfinite(hi)
+                       & ~((lo <= y) & (y <= hi)))
+        flagged = {pred_keys[i] for i in np.flatnonzero(outside)}
+    else:
+        flagged = set()
+    chosen = [i for i, key in enumerate(keys)
+              if odd[i] or key == checked_key or key in flagged]
+    wanted = {keys[i] for i in chosen}
+    estimates: dict = {}      # (scope, group, method) -> the predictions' estimates, once
+    if pred_keys and wanted:
+        xs, ys, los, his = (preds[c].tolist() for c in ("x", "y", "y_low", "y_high"))
+        for i, key in enumerate(pred_keys):
+            if key in wanted:
+                estimates.setdefault(key, []).append(
+                    (f"at x = {xs[i]:g} ", ys[i], los[i], his[i]))
+    ns = fits["n"].tolist()
+    records = []
+    for i in chosen:
+        key = keys[i]
+        if key not in all_fits or not np.isfinite(smearing[i]):
             continue
         est = estimates.get(key, ())
         try:
-            found = fit_checks(smearing_factor=smearing, parametric_factor=parametric,
-                               estimates=est)
+            found = fit_checks(smearing_factor=float(smearing[i]),
+                               parametric_factor=float(parametric[i]), estimates=est)
         except ScalingError:
             continue
-        if key == checked_key and n >= MIN_N:
+        if key == checked_key and ns[i] >= MIN_N:
             found = _point_checks(res, all_fits[key], anova, alpha, names) + found
             found.sort(key=lambda c: c.severity != "strong")
         records += [{"scope": key[0], "group": key[1], "method": key[2],
@@ -579,11 +652,17 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
     return table
 
 
-def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None):
+def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None,
+                     spill=None):
     """``result`` (a RunResult of the moments path) with the second pass's tables;
-    ``point_sets``: points held in memory (the group means), measured as in memory."""
-    extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
-                        other_tables=result.tables, point_sets=point_sets)
+    ``point_sets``: points held in memory (the group means), measured as in memory;
+    ``spill``: the first pass's rows on disk, read instead of the file and then deleted."""
+    try:
+        extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
+                            other_tables=result.tables, point_sets=point_sets, spill=spill)
+    finally:
+        if spill is not None:
+            spill.close()
     return replace(result, fits=extra.fits, saved_fits=extra.saved_fits,
                    line_fits=extra.line_fits, tables={**result.tables, **extra.tables},
                    messages=result.messages + extra.messages,

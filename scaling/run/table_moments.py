@@ -17,7 +17,8 @@ cluster.
 
 from __future__ import annotations
 
-from dataclasses import replace
+import tempfile
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -32,9 +33,99 @@ from ..stats.grouped_fits import (UNIT_COLUMNS, GroupedMoments, GroupFits,
                                   MomentAccumulator, combine_summaries,
                                   fit_groups_from_moments, merge_unit_sums, summarise_rows,
                                   summary_frame, unit_sums, units_to_groups)
-from ..stats.logscale import parse_log_base
+from ..stats.logscale import parse_log_base, to_log
 
-__all__ = ["frame_moments", "read_moments", "fit_frame"]
+__all__ = ["frame_moments", "read_moments", "fit_frame", "RowSpill", "SpilledChunk"]
+
+
+@dataclass(frozen=True, slots=True)
+class SpilledChunk:
+    """The usable rows of one chunk as the first pass cleaned them.
+
+    Attributes
+    ----------
+    labels : Index
+        Group names met in the chunk (``codes`` index into them).
+    codes : ndarray of int32 or None
+        Group code of each row (None without a group column).
+    X, Y : ndarray
+        Log x and log y of each row.
+    rows : ndarray of int64
+        Data-row number of each row (1 = the first line under the header).
+    """
+
+    labels: pd.Index
+    codes: np.ndarray | None
+    X: np.ndarray
+    Y: np.ndarray
+    rows: np.ndarray
+
+
+class RowSpill:
+    """The first pass's cleaned rows kept in a temporary binary file for the second pass.
+
+    The second pass of the moments path needs every usable row again (log x,
+    log y, group, row number).  Parsing a csv file a second time costs more
+    than everything the pass computes; so the first pass appends each
+    cleaned chunk here as raw arrays (20 bytes a row: two float64 logs, an
+    int32 group code; the int64 row numbers only for a chunk that lost rows)
+    and the second pass reads them back chunk by chunk, with the same chunk
+    boundaries, so its sums are those of a second read of the file to the
+    last bit.  Memory stays one chunk; the folder (under the system's
+    temporary folder, ``TMPDIR``) is deleted by :meth:`close` (and, failing
+    that, when the object is collected).  Should a write fail (a full disk),
+    the spill gives up (``usable`` False, its file deleted) and the second
+    pass reads the file again.
+    """
+
+    def __init__(self) -> None:
+        self._dir = tempfile.TemporaryDirectory(prefix="scaling-rows-")
+        self._path = Path(self._dir.name) / "rows.bin"
+        self._fh = open(self._path, "wb")
+        self._chunks: list[tuple] = []    # (labels, n, has codes, has rows, first row)
+        self.usable = True
+
+    def write(self, labels: pd.Index, codes, X, Y, keep, first_row: int,
+              n_rows: int) -> None:
+        """Append a chunk: ``keep`` (None: every row) marks the usable rows of its
+        ``n_rows``, numbered from ``first_row + 1``."""
+        if not self.usable:
+            return
+        rows = None
+        if keep is not None:
+            codes = codes[keep] if codes is not None else None
+            X, Y = X[keep], Y[keep]
+            rows = first_row + 1 + np.flatnonzero(keep).astype(np.int64)
+        try:
+            for arr, dtype in ((X, np.float64), (Y, np.float64), (codes, np.int32),
+                               (rows, np.int64)):
+                if arr is not None:
+                    self._fh.write(np.ascontiguousarray(arr, dtype=dtype).data)
+        except OSError:
+            self.close()
+            return
+        self._chunks.append((labels, int(X.size), codes is not None, rows is not None,
+                             int(first_row)))
+
+    def chunks(self):
+        """Yield the chunks written, in order, as :class:`SpilledChunk`."""
+        if not self.usable:
+            raise RuntimeError("the row spill was closed")
+        self._fh.close()
+        with open(self._path, "rb") as fh:
+            for labels, n, has_codes, has_rows, first in self._chunks:
+                X = np.fromfile(fh, dtype=np.float64, count=n)
+                Y = np.fromfile(fh, dtype=np.float64, count=n)
+                codes = np.fromfile(fh, dtype=np.int32, count=n) if has_codes else None
+                rows = (np.fromfile(fh, dtype=np.int64, count=n) if has_rows
+                        else first + np.arange(1, n + 1, dtype=np.int64))
+                yield SpilledChunk(labels=labels, codes=codes, X=X, Y=Y, rows=rows)
+
+    def close(self) -> None:
+        """Delete the file and its folder (idempotent)."""
+        self.usable = False
+        self._fh.close()
+        self._dir.cleanup()
 
 
 def _no_rows(where: str, result: GroupedMoments) -> None:
@@ -47,10 +138,21 @@ def _no_rows(where: str, result: GroupedMoments) -> None:
                         f"dropped (most common reason: {common})")
 
 
-def _feed(acc: MomentAccumulator, part: pd.DataFrame, x, y, group, base, decimal) -> None:
+def _feed(acc: MomentAccumulator, part: pd.DataFrame, x, y, group, base, decimal,
+          spill: RowSpill | None = None) -> None:
     c = clean_chunk(part, x, y, group, decimal)
+    first_row = acc.n_read
     acc.add_counts(c.counts, c.n_rows, c.n_dropped)
-    acc.add_rows(c.labels, c.codes, c.x, c.y, c.bad, base)
+    if spill is None or not spill.usable:
+        acc.add_rows(c.labels, c.codes, c.x, c.y, c.bad, base)
+        return
+    # Logs of every row once (the dropped ones are masked out below and in the
+    # summary): the same values the summary would take, kept for the second pass.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        X, Y = to_log(c.x, base), to_log(c.y, base)
+    acc.add_rows(c.labels, c.codes, X, Y, c.bad, None)
+    spill.write(c.labels, c.codes, X, Y, None if c.bad is None else ~c.bad, first_row,
+                c.n_rows)
 
 
 def frame_moments(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
@@ -96,7 +198,8 @@ def frame_moments(df: pd.DataFrame, *, x: str, y: str, group: str | None = None,
 def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
                  chunk_size: int = 1_000_000, engine: str = "pandas",
                  reader: str = "pandas", scheduler: str | None = None, sep: str = ",",
-                 decimal: str = ".", unit: str | None = None) -> GroupedMoments:
+                 decimal: str = ".", unit: str | None = None,
+                 spill: RowSpill | None = None) -> GroupedMoments:
     """Per-group moments of a csv or parquet file, read in chunks.
 
     Parameters
@@ -123,6 +226,10 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
     unit : str, optional
         Column of units (``data.average_within``): each unit's rows become
         one point, the means of their logs, before the groups are summed.
+    spill : RowSpill, optional
+        The pandas engine without ``unit`` appends every cleaned chunk to it
+        (log x, log y, group code, row number) for a second pass that
+        should not parse the file again; ignored otherwise.
 
     Returns
     -------
@@ -171,7 +278,7 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
         for file in files_of(path, kind):
             for part in read_chunks(file, kind, columns, chunk_size, reader, sep, decimal,
                                     keys):
-                _feed(acc, part, x, y, group, base, decimal)
+                _feed(acc, part, x, y, group, base, decimal, spill)
         result = acc.result(base)
     _no_rows(str(path), result)
     return result

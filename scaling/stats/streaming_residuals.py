@@ -73,6 +73,8 @@ __all__ = ["TOP_K", "ResidualSums", "StreamedChecks", "GroupResidualSums",
 TOP_K = 10
 
 _SUMS = ("se2", "sd2", "sd3", "sd4", "smear", "sy", "syhat", "spe", "bw", "bww", "bwx")
+#: The sums only the residual checks (normality, constant variance) read.
+_CHECK_SUMS = ("sd2", "sd3", "sd4", "bw", "bww", "bwx")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -100,6 +102,9 @@ class StreamedChecks:
     strong_cooks, strong_rows, strong_slope_without : ndarray, shape (S, k)
         The k strongest rows of each set under the strong-influence rule
         (NaN / -1 padded; all padding without ``influence_method``).
+
+    The checks (skewness to ``n_influential``) are NaN (rows -1, counts 0)
+    for a set the sums were told not to check (``ResidualSums(checked=...)``).
     """
 
     n: np.ndarray
@@ -142,11 +147,18 @@ class ResidualSums:
         Line method whose leave-one-out slopes give the strong-influence rows;
         ``slope_se`` (S,) is then that method's slope standard error per set
         and ``influence_slope`` (S,) its slope.
+    checked : array_like of bool, shape (S,), optional
+        Sets whose residual checks (normality, constant variance, Cook's
+        distances) are summed; the others get only the accuracy figures and
+        factors, which is less than half the work per row.  Default: all.
+    strong : array_like of bool, shape (S,), optional
+        Sets whose rows go through the strong-influence rule (with
+        ``influence_method``).  Default: all.
     """
 
     def __init__(self, *, intercept, slope, mean_x, mean_y, sxx, syy, sxy, n, resid_sd,
                  log_base, k: int = TOP_K, influence_method: str | None = None,
-                 influence_slope=None, slope_se=None):
+                 influence_slope=None, slope_se=None, checked=None, strong=None):
         self.a = np.atleast_2d(np.asarray(intercept, dtype=float))
         self.b = np.atleast_2d(np.asarray(slope, dtype=float))
         S, M = self.a.shape
@@ -166,6 +178,10 @@ class ResidualSums:
             self.b_ols = self.sxy / self.sxx
             self.a_ols = self.my - self.b_ols * self.mx
         self.shape = (S, M)
+        self.checked = (np.ones(S, dtype=bool) if checked is None
+                        else np.asarray(checked, dtype=bool).reshape(S))
+        self.strong = (np.ones(S, dtype=bool) if strong is None
+                       else np.asarray(strong, dtype=bool).reshape(S))
         self.n = np.zeros(S)
         self.sums = {key: np.zeros((S, M)) for key in _SUMS}
         self.so2 = np.zeros(S)            # sum of squared OLS residuals
@@ -191,61 +207,161 @@ class ResidualSums:
         if not codes.size:
             return
         X, Y = np.asarray(X, float), np.asarray(Y, float)
+        rows = np.asarray(rows, dtype=np.int64)
         S, M = self.shape
         # One set in the chunk (the pooled rows): its line's numbers are scalars and its
         # sums plain sums, not gathers and bincounts over every row.
         one = int(codes[0]) if codes[0] == codes.min() == codes.max() else None
+        counts = np.bincount(codes, minlength=S)
+        self.n += counts
+        # A chunk with no checked set sums only the factors and accuracy figures.
+        checks = bool(self.checked[counts > 0].any())
+        if one is not None:
+            self._add_one(one, X, Y, rows, checks)
+            return
+        # Blocks that stay in the cache; each sum is scattered in row order onto the
+        # chunk's totals (from 0, as one bincount of the chunk would add them).
+        totals: dict = {}
+        for lo in range(0, X.size, _BLOCK):
+            part = codes[lo:lo + _BLOCK]
+            for key, j, v in self._values(X[lo:lo + _BLOCK], Y[lo:lo + _BLOCK],
+                                          lambda table: table[part], checks):
+                if (key, j) not in totals:
+                    totals[key, j] = np.zeros(S)
+                np.add.at(totals[key, j], part, v)
+        for (key, j), total in totals.items():
+            if j is None:     # the same for every method
+                for jj in range(M):
+                    self.sums[key][:, jj] += total
+            else:
+                self.sums[key][:, j] += total
+        if checks:
+            self._add_checks(codes, X, Y, rows)
 
-        def take(table):
-            return table[one] if one is not None else table[codes]
+    def _values(self, X, Y, take, checks: bool):
+        """Yield ``(key, method column or None, values)`` of every sum of a piece of rows.
 
-        def total(v):
-            if one is None:
-                return np.bincount(codes, weights=v, minlength=S)
-            out = np.zeros(S)
-            out[one] = v.sum()
-            return out
-
-        self.n += np.bincount(codes, minlength=S)
-        xc = X - take(self.mx)
+        ``take(table)`` gives each row's entry of a per-set table.  The values
+        live in work arrays reused by the next item (each is the plain
+        expression in the comments, operation for operation).
+        """
+        size = X.size
+        e, e2, t = np.empty(size), np.empty(size), np.empty(size)
+        if checks:
+            xc = X - take(self.mx)
+            d, d2, w = np.empty(size), np.empty(size), np.empty(size)
         if self.base is not None:
             ln_base = math.log(self.base)
             # Natural y scaled by a common power per set (the ratio is unchanged by it),
             # so values near 1e+-12 neither overflow nor underflow.
             y_scaled = np.exp((Y - take(self.my)) * ln_base)
-            sy = total(y_scaled)
-        for j in range(M):   # one method at a time: 1-d arrays, gathers from 1-d tables
-            e = Y - take(self.a[:, j]) - take(self.b[:, j]) * X
-            d = e - take(self.mean_e[:, j])
-            d2 = d * d
-            e2 = e * e
-            w = e2 - take(self.mean_e2[:, j])
-            values = {"se2": e2, "sd2": d2, "sd3": d2 * d, "sd4": d2 * d2, "bw": w,
-                      "bww": w * w, "bwx": w * xc}
+            yield "sy", None, y_scaled
+            be = np.empty(size)
+        for j in range(self.shape[1]):   # one method at a time: gathers from 1-d tables
+            np.multiply(take(self.b[:, j]), X, out=t)
+            np.subtract(Y, take(self.a[:, j]), out=e)
+            np.subtract(e, t, out=e)                        # e = Y - a - b X
+            np.multiply(e, e, out=e2)
+            yield "se2", j, e2
+            if checks:
+                np.subtract(e, take(self.mean_e[:, j]), out=d)      # d = e - mean e
+                np.multiply(d, d, out=d2)
+                yield "sd2", j, d2
+                yield "sd3", j, np.multiply(d2, d, out=t)
+                yield "sd4", j, np.multiply(d2, d2, out=t)
+                np.subtract(e2, take(self.mean_e2[:, j]), out=w)    # w = e^2 - mean e^2
+                yield "bw", j, w
+                yield "bww", j, np.multiply(w, w, out=t)
+                yield "bwx", j, np.multiply(w, xc, out=t)
             if self.base is not None:
-                be = np.exp(e * ln_base)
-                values.update({"smear": be, "spe": np.abs(be - 1.0),
-                               "syhat": y_scaled / be})   # yhat = y / base^e
-                self.sums["sy"][:, j] += sy
-            for key, v in values.items():
-                self.sums[key][:, j] += total(v)
+                np.exp(np.multiply(e, ln_base, out=be), out=be)    # base^e
+                yield "smear", j, be
+                yield "spe", j, np.abs(np.subtract(be, 1.0, out=t), out=t)
+                yield "syhat", j, np.divide(y_scaled, be, out=t)  # yhat = y / base^e
+
+    def _add_one(self, one: int, X, Y, rows, checks: bool) -> None:
+        """Add a chunk of one set in blocks that stay in the processor's cache.
+
+        The blocks are the subtrees of numpy's pairwise summation over the
+        chunk (:func:`_pairwise_blocks`), and their sums are joined as that
+        summation joins them, so every sum equals ``values.sum()`` over the
+        whole chunk to the last bit; the sum of squared OLS residuals, which
+        is taken in row order, is carried from block to block.
+        """
+        def take(table):
+            return table[one]
+
+        blocks = _pairwise_blocks(X.size, _BLOCK)
+        items, partials = None, []
+        so2 = None
+        for lo, hi in blocks:
+            found = [(key, j, float(v.sum()))
+                     for key, j, v in self._values(X[lo:hi], Y[lo:hi], take, checks)]
+            items = items or [(key, j) for key, j, _ in found]
+            partials.append([v for _, _, v in found])
+            if checks:
+                so2 = self._add_checks(None, X[lo:hi], Y[lo:hi], rows[lo:hi], one,
+                                       so2_start=0.0 if so2 is None else so2)
+        totals = _pairwise_join(np.array(partials), X.size, _BLOCK)
+        for (key, j), total in zip(items, totals):
+            if j is None:
+                self.sums[key][one, :] += total
+            else:
+                self.sums[key][one, j] += total
+        if so2 is not None:
+            self.so2[one] += so2
+
+    def _add_checks(self, codes, X, Y, rows, one: int | None = None,
+                    so2_start: float | None = None) -> float | None:
+        """Cook's distances (the k largest per set, rows above 4/n) and strong rows;
+        ``one``: the piece's only set (its numbers are then scalars, not gathers;
+        ``codes`` may be None).  With ``so2_start`` the squared OLS residuals are
+        summed in row order onto it and the sum returned, not added."""
+        S = self.shape[0]
+        if codes is None:
+            codes = np.full(X.size, one, dtype=np.intp)
+
+        def take(table):
+            return table[one] if one is not None else table[codes]
+
         # Cook's distance up to each set's factor 1 / (2 s^2).
         with np.errstate(divide="ignore", invalid="ignore"):
-            eo = Y - self.a_ols[codes] - self.b_ols[codes] * X
-            h = 1.0 / self.n_moments[codes] + (X - self.mx[codes]) ** 2 / self.sxx[codes]
+            eo = Y - take(self.a_ols) - take(self.b_ols) * X
+            h = 1.0 / take(self.n_moments) + (X - take(self.mx)) ** 2 / take(self.sxx)
             u = eo * eo * h / (1.0 - h) ** 2
-        self.so2 += np.bincount(codes, weights=eo * eo, minlength=S)
+        carried = None
+        if so2_start is None:
+            self.so2 += np.bincount(codes, weights=eo * eo, minlength=S)
+        else:   # in row order, as bincount sums: the last of the running sums
+            carried = float(np.add.accumulate(np.concatenate(([so2_start], eo * eo)))[-1])
         u = np.where(np.isfinite(u), u, -np.inf)
         rows = np.asarray(rows, dtype=np.int64)
         with np.errstate(divide="ignore", invalid="ignore"):
-            above = u / (2 * self.s2_moments[codes]) > 4.0 / self.n_moments[codes]
-        self.n_above += np.bincount(codes, weights=above, minlength=S)
+            above = u / (2 * take(self.s2_moments)) > 4.0 / take(self.n_moments)
+        if one is None:
+            self.n_above += np.bincount(codes, weights=above, minlength=S)
+        else:
+            self.n_above[one] += np.count_nonzero(above)
         # Only rows that beat their set's k-th largest so far, and a lower bound of the
         # chunk's own k-th largest, can enter (keeps the sort small).
-        live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
+        if one is None:
+            live = (u >= self.top_u[codes, -1]) & (u >= self._chunk_floor(codes, u)[codes])
+        else:   # one set: the floor is the smallest of the k slices' maxima
+            floor = min((float(u[j::self.k].max()) if u[j::self.k].size else -np.inf)
+                        for j in range(self.k))
+            live = u >= max(self.top_u[one, -1], floor)
         self._keep_top(self.top_u, self.top_rows, None, codes[live], u[live], rows[live], None)
         if self.influence_method is not None:
-            self._add_strong(codes, X, Y, u, rows)
+            if one is not None:
+                if self.strong[one]:
+                    self._add_strong(codes, X, Y, u, rows, one)
+                return carried
+            strong = self.strong[codes]
+            if strong.all():
+                self._add_strong(codes, X, Y, u, rows)
+            elif strong.any():
+                self._add_strong(codes[strong], X[strong], Y[strong], u[strong], rows[strong])
+        return carried
 
     def _chunk_floor(self, codes, u) -> np.ndarray:
         """Per set, a lower bound of the k-th largest ``u`` of a chunk: the smallest of
@@ -260,45 +376,63 @@ class ResidualSums:
             np.minimum(floor, top, out=floor)
         return floor
 
-    def _add_strong(self, codes, X, Y, u, rows) -> None:
+    def _add_strong(self, codes, X, Y, u, rows, one: int | None = None) -> None:
         """Rows under the strong-influence rule, with their leave-one-out slopes."""
-        n = self.n_moments[codes]
-        d, f = X - self.mx[codes], Y - self.my[codes]
+        def take(table):
+            return table[one] if one is not None else table[codes]
+
+        n = take(self.n_moments)
+        mx, my = take(self.mx), take(self.my)
+        d, f = X - mx, Y - my
         k = n / (n - 1)
-        down = Moments(n=n - 1, mean_x=self.mx[codes] - d / (n - 1),
-                       mean_y=self.my[codes] - f / (n - 1), sxx=self.sxx[codes] - k * d * d,
-                       syy=self.syy[codes] - k * f * f, sxy=self.sxy[codes] - k * d * f)
+        sxx = take(self.sxx) - k * d * d
+        syy = take(self.syy) - k * f * f
+        sxy = take(self.sxy) - k * d * f
+        # Every row's leave-one-out slope reads only the centred sums (the means
+        # are placeholders here; the rows kept get theirs below).
         with np.errstate(divide="ignore", invalid="ignore"):
-            loo = METHODS[self.influence_method].slope(down)
-            cook = u / (2 * self.s2_moments[codes])
-            se = self.se_infl[codes]
-            flag = ((cook > COOK_STRONG) | (np.abs(loo - self.b_infl[codes]) > se)) & (se > 0)
-        if not flag.any():
+            loo = METHODS[self.influence_method].slope(
+                Moments(n=n - 1, mean_x=mx, mean_y=my, sxx=sxx, syy=syy, sxy=sxy))
+            cook = u / (2 * take(self.s2_moments))
+            se = take(self.se_infl)
+            flag = ((cook > COOK_STRONG) | (np.abs(loo - take(self.b_infl)) > se)) & (se > 0)
+        if not np.any(flag):
             return
-        idx = np.flatnonzero(flag)
+        idx = np.flatnonzero(np.broadcast_to(flag, X.shape))
+        n_i = np.broadcast_to(n, X.shape)[idx]
+        down = Moments(n=n_i - 1, mean_x=np.broadcast_to(mx, X.shape)[idx] - d[idx] / (n_i - 1),
+                       mean_y=np.broadcast_to(my, X.shape)[idx] - f[idx] / (n_i - 1),
+                       sxx=sxx[idx], syy=syy[idx], sxy=sxy[idx])
         # the run's own estimator for the rows kept (its notes and guards included)
         with np.errstate(divide="ignore", invalid="ignore"):
-            exact = np.asarray(fit_moments(down[idx], self.influence_method)["slope"], float)
+            exact = np.asarray(fit_moments(down, self.influence_method)["slope"], float)
         self._keep_top(self.strong_u, self.strong_rows, self.strong_loo, codes[idx], u[idx],
                        rows[idx], exact)
 
     def _keep_top(self, heap_u, heap_rows, heap_extra, codes, u, rows, extra) -> None:
-        """Keep in ``heap_*`` (S, k) the k largest ``u`` per set (ties: smaller row first)."""
-        S, k = heap_u.shape
-        all_codes = np.concatenate([np.repeat(np.arange(S), k), codes])
-        all_u = np.concatenate([heap_u.ravel(), u])
-        all_rows = np.concatenate([heap_rows.ravel(), rows])
+        """Keep in ``heap_*`` (S, k) the k largest ``u`` per set (ties: smaller row first).
+
+        Only the sets with candidates are sorted again (the others' rows are
+        already in that order).
+        """
+        if not np.size(codes):
+            return
+        k = heap_u.shape[1]
+        sets = np.unique(codes)
+        all_codes = np.concatenate([np.repeat(sets, k), codes])
+        all_u = np.concatenate([heap_u[sets].ravel(), u])
+        all_rows = np.concatenate([heap_rows[sets].ravel(), rows])
         order = np.lexsort((all_rows, -all_u, all_codes))
         sc = all_codes[order]
-        first = np.searchsorted(sc, np.arange(S))
-        rank = np.arange(sc.size) - first[sc]
+        first = np.searchsorted(sc, sets)
+        rank = np.arange(sc.size) - first[np.searchsorted(sets, sc)]
         keep = order[rank < k]
         kc = all_codes[keep]
         slot = rank[rank < k]
         heap_u[kc, slot] = all_u[keep]
         heap_rows[kc, slot] = all_rows[keep]
         if heap_extra is not None:
-            heap_extra[kc, slot] = np.concatenate([heap_extra.ravel(), extra])[keep]
+            heap_extra[kc, slot] = np.concatenate([heap_extra[sets].ravel(), extra])[keep]
 
     def merge(self, other: "ResidualSums") -> None:
         """Add another accumulator of the same lines (e.g. another Dask partition)."""
@@ -353,15 +487,66 @@ class ResidualSums:
         cooks = np.where(rows >= 0, cooks, np.nan)
         strong_rows = self.strong_rows.copy()
         strong = np.where(strong_rows >= 0, strong, np.nan)
+        n_above = self.n_above.copy()
+        if not self.checked.all():   # sets whose checks were not summed
+            off = ~self.checked
+            for v in (skew, kurt, k2, p_norm, lm, p_bp):
+                v[off] = np.nan
+            direction[off] = 0
+            cooks[off] = np.nan
+            rows[off] = -1
+            n_above[off] = 0
         return StreamedChecks(n=self.n.copy(), see=see, percent_see=percent_see,
                               percent_pe=percent_pe, smearing=smearing, ratio=ratio,
                               parametric=parametric, skewness=skew, kurtosis=kurt,
                               normality_statistic=k2, normality_p=p_norm, bp_statistic=lm,
                               bp_p=p_bp, bp_direction=direction, cooks_distance=cooks,
-                              cooks_rows=rows, n_influential=self.n_above.copy(),
+                              cooks_rows=rows, n_influential=n_above,
                               strong_cooks=strong, strong_rows=strong_rows,
                               strong_slope_without=np.where(strong_rows >= 0,
                                                             self.strong_loo, np.nan))
+
+
+#: Rows per block of a one-set chunk (temporaries of 0.5 MB stay in the cache).
+_BLOCK = 1 << 16
+
+
+def _pairwise_blocks(n: int, block: int) -> list:
+    """The (start, stop) of the subtrees of numpy's pairwise summation of ``n`` values
+    that are at most ``block`` long (``block`` >= 128), in order.
+
+    ``np.sum`` of a contiguous float64 array splits ``n`` values into
+    ``n2 = n // 2 - (n // 2) % 8`` and ``n - n2`` until at most 128 remain;
+    the sum of one subtree is ``np.sum`` of its slice.
+    """
+    out = []
+
+    def split(start: int, size: int) -> None:
+        if size <= block:
+            out.append((start, start + size))
+            return
+        half = size // 2
+        half -= half % 8
+        split(start, half)
+        split(start + half, size - half)
+
+    split(0, n)
+    return out
+
+
+def _pairwise_join(partials: np.ndarray, n: int, block: int) -> np.ndarray:
+    """Join the sums of :func:`_pairwise_blocks` (rows of ``partials``) as the
+    pairwise summation of ``n`` values joins them."""
+    it = iter(partials)
+
+    def join(size: int):
+        if size <= block:
+            return next(it)
+        half = size // 2
+        half -= half % 8
+        return join(half) + join(size - half)
+
+    return join(n)
 
 
 class GroupResidualSums:
