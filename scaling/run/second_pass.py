@@ -50,7 +50,7 @@ from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind,
 from ..render.findings import check_verdict, diagnostics_messages, point_check_reason
 from ..render.headline import answer_line
 from ..stats.influence import SMEARING_RATIO_LIMIT, PointCheck, fit_checks
-from ..stats.line_results import line_fit_from_result
+from ..stats.line_results import line_fits_from_result
 from ..stats.lines import exact_fit, fit_moments
 from ..stats.logscale import to_log
 from ..stats.moment_curvature import local_exponents, quadratic_from_moments
@@ -318,23 +318,21 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             fitted[method] = fit_moments(m, method, confidence=cfg.model.confidence)
-    made = {}
-    for i, (scope, group) in enumerate(keys):
-        m_i = None      # one set's moments, shared by its methods' fits
-        for method in methods:
-            key = (scope, group, method)
-            r = rng.get(key)   # slope, x_min, x_max, y_min, y_max
-            if key in all_fits or r is None or not np.isfinite(r[0]):
-                continue
-            m_i = m[i] if m_i is None else m_i
-            made[key] = line_fit_from_result(
-                fitted[method], i, m_i, method, confidence=cfg.model.confidence,
-                log_base=base, x_range=(r[1], r[2]), y_range=(r[3], r[4]))
     for method in methods:   # listed method by method, as the fits always were
+        keep, x_ranges, y_ranges = [], [], []
         for scope, group in keys:
             key = (scope, group, method)
-            if key in made:
-                all_fits[key] = made[key]
+            r = rng.get(key)   # slope, x_min, x_max, y_min, y_max
+            new = not (key in all_fits or r is None or not np.isfinite(r[0]))
+            keep.append(new)
+            x_ranges.append((r[1], r[2]) if new else None)
+            y_ranges.append((r[3], r[4]) if new else None)
+        made = line_fits_from_result(fitted[method], m, method,
+                                     confidence=cfg.model.confidence, log_base=base,
+                                     x_ranges=x_ranges, y_ranges=y_ranges, keep=keep)
+        for (scope, group), new, fit in zip(keys, keep, made):
+            if new:
+                all_fits[(scope, group, method)] = fit
     extra = {}
     columns = {c: getattr(res, name).tolist() for c, name in
                (("see", "see"), ("percent_see", "percent_see"), ("percent_pe", "percent_pe"),
