@@ -202,18 +202,25 @@ class TestManyPointsInSlices:
         assert np.array_equal(leave_one_out_slopes(X, Y, method="ols"), ols)
 
 
-def test_cooks_distances_of_the_pooled_line_are_statsmodels_own():
-    # reference library: statsmodels OLSInfluence.cooks_distance[0], bit for bit (its
-    # own formula, without the p-values)
+@pytest.mark.parametrize("n, lever", [(4, False), (12, True), (500, False), (20_000, True)])
+def test_cooks_distances_of_the_residual_checks_equal_statsmodels(n, lever):
+    # reference library: statsmodels OLSInfluence.cooks_distance[0] (hat matrix of the
+    # design), against the closed form from centred sums, to 1e-9 relative (Cook 1977,
+    # Technometrics 19:15); ``lever``: one point far out in x
     from statsmodels.regression.linear_model import OLS
     from statsmodels.stats.outliers_influence import OLSInfluence
-    from scaling.stats.residual_checks import _ols_cooks
-    rng = np.random.default_rng(12)
-    X = rng.uniform(0.0, 3.0, 500)
-    Y = 0.7 * X + rng.normal(0.0, 0.2, 500)
-    exog = np.column_stack([np.ones(500), X])
-    assert np.array_equal(_ols_cooks(OLSInfluence(OLS(Y, exog).fit())),
-                          OLSInfluence(OLS(Y, exog).fit()).cooks_distance[0])
+    from scaling.stats.line_results import line_fit_from_moments
+    from scaling.stats.moments import moments
+    from scaling.stats.residual_checks import diagnose
+    rng = np.random.default_rng(n)
+    X = rng.uniform(0.0, 3.0, n)
+    if lever:
+        X[0] = 9.0
+    Y = 0.7 * X + rng.normal(0.0, 0.2, n)
+    ref = OLSInfluence(OLS(Y, np.column_stack([np.ones(n), X])).fit()).cooks_distance[0]
+    fit = line_fit_from_moments(moments(X, Y), "ols")
+    got = diagnose(fit, X, Y).cooks_distance
+    assert np.allclose(got, ref, rtol=1e-9, atol=0)
 
 
 class TestCodedGroups:

@@ -47,6 +47,8 @@ from scipy import stats
 
 from ..errors import DataError
 from .lines import METHODS, exact_fit, fit_moments, fit_notes, get_method
+from .cooks import SPAN, ols_cooks_distances
+from .cooks import spans as _spans
 from .moments import Moments, moments
 from .residual_checks import (MIN_N, _check_alpha, group_order, parallel_lines_influence,
                               unique_codes)
@@ -185,31 +187,7 @@ def cooks_distances(log_x, log_y) -> np.ndarray:
     s^2 = sum e^2 / (n - 2) (Cook 1977, *Technometrics* 19:15).
     """
     X, Y = _xy(log_x, log_y, "Cook's distances")
-    n = X.shape[-1]
-    xc = X - X.mean(axis=-1, keepdims=True)
-    yc = Y - Y.mean(axis=-1, keepdims=True)
-    sxx = np.sum(xc * xc, axis=-1, keepdims=True)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        b = np.sum(xc * yc, axis=-1, keepdims=True) / sxx
-        e = yc - b * xc
-        del yc
-        s2 = np.sum(e * e, axis=-1, keepdims=True) / (n - 2)
-        out = np.empty(e.shape)
-        for lo, hi in _spans(n):   # elementwise from here: a slice at a time
-            xs, es = xc[..., lo:hi], e[..., lo:hi]
-            h = 1.0 / n + xs * xs / sxx
-            out[..., lo:hi] = es * es * h / (2 * s2 * (1 - h) ** 2)
-        return out
-
-
-#: Points handled at a time by the elementwise steps of the influence measures (the
-#: numbers do not depend on it; the temporary arrays stay a few megabytes).
-SPAN = 1 << 16
-
-
-def _spans(n: int) -> list:
-    """``(start, stop)`` slices of 0 .. n - 1, :data:`SPAN` points each."""
-    return [(lo, min(lo + SPAN, n)) for lo in range(0, n, SPAN)] or [(0, 0)]
+    return ols_cooks_distances(X, Y)
 
 
 def leave_one_out_slopes(log_x, log_y, *, method: str = "ols") -> np.ndarray:

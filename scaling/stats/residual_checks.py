@@ -26,7 +26,7 @@ Curvature
     uncentred X.
 Influence
     Cook's (1977, *Technometrics* 19:15) distance of each row in the OLS
-    regression of Y on X, via ``statsmodels``' ``OLSInfluence``; rows with
+    regression of Y on X, in closed form (:mod:`scaling.stats.cooks`); rows with
     D > 4/n are listed (a common rule of thumb, no single source).  For SMA
     and MA fits the OLS distances are a proxy: they measure influence on
     the least-squares line through the same points.
@@ -59,6 +59,7 @@ from scipy import stats
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL
+from .cooks import ols_cooks_distances
 from .lines import exact_fit
 from .line_results import LineFit
 from .moments import moments
@@ -471,10 +472,8 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
                       DegenerateDataWarning, stacklevel=2)
     checks.append(_constant_variance(resid, X, alpha=alpha, given=constant_variance))
     if "quadratic" not in memo:   # the same for every line through these points
-        from statsmodels.regression.linear_model import OLS
-        from statsmodels.stats.outliers_influence import OLSInfluence
         memo["quadratic"] = {k: float(v) for k, v in quadratic_t(X, Y).items()}
-        memo["cooks"] = _ols_cooks(OLSInfluence(OLS(Y, np.column_stack([np.ones(n), X])).fit()))
+        memo["cooks"] = ols_cooks_distances(X, Y)
     curv, check = _curvature(memo["quadratic"], X, targets, fit.log_base, alpha)
     checks.append(check)
     cooks = memo["cooks"]
@@ -486,16 +485,6 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
                        curvature=curv, residuals=resid, cooks_distance=cooks,
                        influence_threshold=threshold, influential_rows=influential,
                        rows=rows)
-
-
-def _ols_cooks(infl) -> np.ndarray:
-    """``infl.cooks_distance[0]`` of a statsmodels ``OLSInfluence``, by its own formula
-    (Eubank 1999, p. 93: r_i^2 / k * h_i / (1 - h_i), r the internally studentised
-    residual), without the F p-value of every point that statsmodels adds."""
-    hii = infl.hat_matrix_diag
-    cooks = infl.resid_studentized ** 2 / infl.k_vars
-    cooks *= hii / (1 - hii)
-    return np.asarray(cooks, dtype=float)
 
 
 def _exact_diagnostics(fit: LineFit, X, Y, rows, alpha: float) -> Diagnostics:
