@@ -18,6 +18,7 @@ from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
+from ..stats.logscale import to_log
 from ..stats.schema import method_label
 from .figure_inputs import (axis_label, common_slope_fit, drawn_primary, factor_of, fit_xrange,
                             fitted_n, group_means_table, group_sizes, points_held, run_base,
@@ -92,8 +93,8 @@ def slopes_differ_in(result, method: str) -> bool:
 def _group_line(fit, xs, common, means) -> np.ndarray:
     """Log-scale fitted values of one group's line at ``xs``: through the group's own
     mean with the common slope when ``common`` is given, else the group's own line."""
-    if common is None or means is None:
-        return fit_band(fit, xs)[0]
+    if common is None or means is None:   # fit_band's fitted values, without its band
+        return fit.intercept + fit.slope * np.asarray(to_log(xs, fit.log_base), dtype=float)
     return common_line(common.slope, means[0], means[1], xs, fit.log_base)
 
 
