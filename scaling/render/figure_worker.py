@@ -233,7 +233,7 @@ def _warm_up() -> None:
         kind.make()
     fig = Figure(figsize=(1, 1))
     with matplotlib.rc_context(STYLE):
-        fig.text(0.1, 0.5, "0.123 g 10\u2009000")
+        fig.text(0.1, 0.5, "0.123 g 10\u2009000 $10^{3}$")   # mathtext too: powers of ten
         FigureCanvasAgg(fig).draw()
 
 
