@@ -143,3 +143,22 @@ class TestPngLayout:
         engine = fig.get_layout_engine()
         fs.save_figure(fig, io.BytesIO(), "png", 60)
         assert fig.get_layout_engine() is engine
+
+
+class TestEquationCorner:
+    def test_same_figure_as_laying_out_for_every_corner(self, monkeypatch):
+        import scaling.render.figure_scaling as fsc
+        from scaling.render.figures import make_figure
+
+        def png():
+            buf = io.BytesIO()
+            fs.save_figure(make_figure(demo(), "scaling"), buf, "png", 100)
+            return buf.getvalue()
+        calls = []
+        real = fsc._laid_out
+        monkeypatch.setattr(fsc, "_laid_out", lambda fig: (calls.append(1), real(fig))[1])
+        short, n_short = png(), len(calls)
+        monkeypatch.setattr(fsc, "_inside", lambda ax, text, renderer: False)
+        calls.clear()
+        assert png() == short
+        assert n_short < len(calls)   # the shortcut saved layouts on the demo
