@@ -215,3 +215,24 @@ def test_one_process_draws_on_waiting(tmp_path, monkeypatch, demo_result):
     assert not drawing._shares and not list((tmp_path / "figures").glob("*"))
     paths, notes = drawing.wait()
     assert len(paths) == 4 and notes == []
+
+
+@needs_fork
+@pytest.mark.parametrize("forks_granted", [0, 1])
+def test_no_process_to_be_had_leaves_the_figures_here(tmp_path, monkeypatch, demo_result,
+                                                      forks_granted):
+    real_fork, granted = os.fork, []
+
+    def fork():
+        if len(granted) >= forks_granted:
+            raise OSError("no more processes")
+        granted.append(1)
+        return real_fork()
+
+    monkeypatch.setattr(fw.os, "fork", fork)
+    drawing = fw.start_figures(demo_result, tmp_path)
+    assert len(drawing._shares) == forks_granted
+    paths, notes = drawing.wait()
+    kinds = list(demo_result.config.figures.kinds)
+    formats = list(demo_result.config.figures.formats)
+    assert paths == [f"figures/{k}.{f}" for k in kinds for f in formats] and notes == []

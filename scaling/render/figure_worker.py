@@ -92,7 +92,12 @@ class _Share:
     def __init__(self, result, folder: Path, kinds, extras: bool) -> None:
         self.kinds, self.extras = kinds, extras
         read_end, write_end = os.pipe()
-        pid = os.fork()
+        try:
+            pid = os.fork()
+        except OSError:
+            os.close(read_end)
+            os.close(write_end)
+            raise
         if pid == 0:   # the drawing process: draw the share, hand back the paths, leave
             code = 1
             try:
@@ -192,10 +197,16 @@ def _start_here(result, folder: Path, *, draw_here: bool) -> Drawing:
     if len(kinds) < 2 or one_process():
         return Drawing(result, folder, here=(None, True))
     mine, second = _split(kinds)
-    shares = [_Share(result, folder, second, extras=False)]
-    if draw_here:
-        return Drawing(result, folder, shares=shares, here=(mine, True))
-    return Drawing(result, folder, shares=[_Share(result, folder, mine, extras=True)] + shares)
+    try:
+        shares = [_Share(result, folder, second, extras=False)]
+    except OSError:   # no process to be had: everything is drawn here
+        return Drawing(result, folder, here=(None, True))
+    if not draw_here:
+        try:
+            shares.insert(0, _Share(result, folder, mine, extras=True))
+        except OSError:
+            draw_here = True
+    return Drawing(result, folder, shares=shares, here=(mine, True) if draw_here else None)
 
 
 def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
