@@ -137,3 +137,47 @@ class TestFiguresDrawnWhileTablesAreWritten:
         assert seen == {"cancelled": True}
         assert [p.name for p in (tmp_path / "out").iterdir()] == ["keep.txt"]
         assert not list(tmp_path.glob(".scaling-tmp-*"))
+
+
+class TestReportPreparedWhileFiguresAreDrawn:
+    """prepare_report makes the Answer and fits.tex early; the files equal write_report's
+    (internal consistency: write_report is the reference)."""
+
+    @staticmethod
+    def _files(folder):
+        return {name: (folder / name).read_bytes()
+                for name in ("report.html", "summary.md", "fits.tex")}
+
+    def test_same_files_as_write_report(self, tmp_path):
+        from dataclasses import replace
+        from helpers_figures import demo
+        from scaling.render.report import prepare_report, write_report
+        result = demo()
+        early = prepare_report(result)
+        for name, res in (("same", result),   # the parts made early are used
+                          ("noted", replace(result, warnings=result.warnings + ("a note",)))):
+            a, b = tmp_path / f"{name}_a", tmp_path / f"{name}_b"
+            a.mkdir()
+            b.mkdir()
+            assert early(res, a, []) == write_report(res, b, [])
+            assert self._files(a) == self._files(b)
+        assert "a note" in (tmp_path / "noted_a" / "summary.md").read_text(encoding="utf-8")
+
+    def test_prepared_before_the_figures_are_awaited(self, tmp_path):
+        from helpers_figures import demo
+        from scaling.io.output import write_outputs
+        from scaling.render.report import write_report
+        order = []
+
+        class Drawing:
+            def wait(self):
+                order.append("wait")
+                return [], []
+
+        def prepare(result):
+            order.append("prepare")
+            return write_report
+        write_outputs(demo(), tmp_path / "out", draw_figures=lambda r, f: Drawing(),
+                      write_report=write_report, caution="c", prepare_report=prepare)
+        assert order == ["prepare", "wait"]
+        assert (tmp_path / "out" / "fits.tex").is_file()

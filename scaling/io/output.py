@@ -177,7 +177,8 @@ def check_out_dir(out_dir: Path, force: bool) -> None:
 
 
 def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
-                  write_report: Callable, caution: str, force: bool = False):
+                  write_report: Callable, caution: str, force: bool = False,
+                  prepare_report: Callable | None = None):
     """Write the output folder atomically and return the result with ``files`` set.
 
     Files are built in a temporary folder beside ``out_dir`` and moved into
@@ -201,6 +202,10 @@ def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
         The caution ``results.json`` carries.
     force : bool
         Replace the files written here in a non-empty ``out_dir``.
+    prepare_report : callable, optional
+        ``prepare_report(result) -> write_report``: does the report's work that needs
+        no figure while they are drawn, and returns the writer used in place of
+        ``write_report``.
     """
     out_dir = Path(out_dir)
     inputs = [Path(result.config.data.file)] + (
@@ -209,7 +214,8 @@ def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
     try:
-        written, result = _write_all(result, tmp, draw_figures, write_report, caution)
+        written, result = _write_all(result, tmp, draw_figures, write_report, caution,
+                                     prepare_report)
         # Never overwrite an input, even with --force.
         protected = {p.resolve() for p in inputs}
         for rel in written:
@@ -230,7 +236,8 @@ def write_csv(frame: pd.DataFrame, path: Path) -> None:
     frame.to_csv(path, index=False, lineterminator="\n")
 
 
-def _write_all(result, folder: Path, draw_figures, write_report, caution) -> tuple:
+def _write_all(result, folder: Path, draw_figures, write_report, caution,
+               prepare_report=None) -> tuple:
     """Write every file into ``folder``; return (relative paths, result with figure notes).
 
     The figures are started first and drawn elsewhere (when ``draw_figures`` returns a
@@ -246,6 +253,8 @@ def _write_all(result, folder: Path, draw_figures, write_report, caution) -> tup
             written.append(Path(name))
         doc = results_document(result, caution=caution)
         parts = _json_parts(doc)   # all but the figure notes and the file list, encoded now
+        if prepare_report is not None:
+            write_report = prepare_report(result)
         paths, skipped = drawing.wait() if hasattr(drawing, "wait") else drawing
     except BaseException:
         if hasattr(drawing, "cancel"):   # end the drawing processes of a failed run
