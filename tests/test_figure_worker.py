@@ -173,3 +173,66 @@ def test_a_run_without_figures_does_not_import_matplotlib(tmp_path, small_config
     assert out.returncode == 0, out.stderr
     assert out.stdout.strip().splitlines()[-1] == "False"
     assert not list((tmp_path / "o" / "figures").glob("*"))
+
+
+@needs_fork
+def test_figures_started_here_are_drawn_by_two_processes_in_config_order(tmp_path,
+                                                                          demo_result):
+    parent = os.getpid()
+    drawing = fw.start_figures(demo_result, tmp_path)   # no worker: two forked processes
+    assert len(drawing._shares) == 2 and all(s.pid != parent for s in drawing._shares)
+    paths, notes = drawing.wait()
+    kinds = list(demo_result.config.figures.kinds)
+    formats = list(demo_result.config.figures.formats)
+    assert paths == [f"figures/{k}.{f}" for k in kinds for f in formats] and notes == []
+    assert drawing.wait() == (paths, notes)   # asked again: the same answer
+
+
+@needs_fork
+def test_cancelled_drawing_leaves_no_process_behind(tmp_path, demo_result):
+    drawing = fw.start_figures(demo_result, tmp_path)
+    pids = [s.pid for s in drawing._shares]
+    drawing.cancel()
+    for pid in pids:   # reaped: no longer a child of this process
+        with pytest.raises(ChildProcessError):
+            os.waitpid(pid, os.WNOHANG)
+
+
+@needs_fork
+def test_worker_streams_the_run_and_draws_while_the_caller_waits(tmp_path, demo_result):
+    worker = fw.start_worker(demo_result.config)
+    drawing = fw.start_figures(demo_result, tmp_path, worker)
+    assert drawing._worker is worker   # the worker took the run
+    paths, notes = drawing.wait()
+    assert notes == [] and len(paths) == 4
+    assert all((tmp_path / p).stat().st_size > 0 for p in paths)
+    assert worker._proc is None
+
+
+def test_one_process_draws_on_waiting(tmp_path, monkeypatch, demo_result):
+    monkeypatch.setenv("SCALING_ONE_PROCESS", "1")
+    drawing = fw.start_figures(demo_result, tmp_path)
+    assert not drawing._shares and not list((tmp_path / "figures").glob("*"))
+    paths, notes = drawing.wait()
+    assert len(paths) == 4 and notes == []
+
+
+@needs_fork
+@pytest.mark.parametrize("forks_granted", [0, 1])
+def test_no_process_to_be_had_leaves_the_figures_here(tmp_path, monkeypatch, demo_result,
+                                                      forks_granted):
+    real_fork, granted = os.fork, []
+
+    def fork():
+        if len(granted) >= forks_granted:
+            raise OSError("no more processes")
+        granted.append(1)
+        return real_fork()
+
+    monkeypatch.setattr(fw.os, "fork", fork)
+    drawing = fw.start_figures(demo_result, tmp_path)
+    assert len(drawing._shares) == forks_granted
+    paths, notes = drawing.wait()
+    kinds = list(demo_result.config.figures.kinds)
+    formats = list(demo_result.config.figures.formats)
+    assert paths == [f"figures/{k}.{f}" for k in kinds for f in formats] and notes == []

@@ -80,3 +80,104 @@ class TestResultsDocument:
             assert doc["csv_only"][name] == f"{name}.csv"
             assert (tmp_path / "out" / f"{name}.csv").is_file()
         assert doc["saved_fits"] and doc["fits"]
+
+
+class TestFiguresDrawnWhileTablesAreWritten:
+    """write_outputs with a drawing handle: tables first, the report after the figures
+    (internal consistency: the order of the files on disk)."""
+
+    @staticmethod
+    def _handle(folder, seen, paths=(), notes=()):
+        class Drawing:
+            def wait(self):
+                seen["tables before waiting"] = (folder / "fits.csv").is_file()
+                seen["report before waiting"] = (folder / "report.html").exists()
+                return list(paths), list(notes)
+
+            def cancel(self):
+                seen["cancelled"] = True
+        return Drawing()
+
+    def test_tables_first_then_figures_then_report(self, tmp_path):
+        from helpers_figures import demo
+        from scaling.io.output import write_outputs
+        from scaling.render.report import write_report
+        seen = {}
+
+        def draw(result, folder):
+            return self._handle(folder, seen, notes=["Figure 'x' was not drawn (test)."])
+
+        out = write_outputs(demo(), tmp_path / "out", draw_figures=draw,
+                            write_report=write_report, caution="c")
+        assert seen == {"tables before waiting": True, "report before waiting": False}
+        doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
+        assert doc["warnings"][-1] == "Figure 'x' was not drawn (test)."   # the figure note
+        assert "Figure 'x' was not drawn" in (tmp_path / "out" / "summary.md").read_text(
+            encoding="utf-8")
+        assert doc["files"] == sorted(str(p.relative_to(tmp_path / "out"))
+                                      for p in out.files if p.name != "results.json") + [
+            "results.json"]
+
+    def test_a_failure_while_drawing_stops_the_drawing_and_leaves_the_folder(self, tmp_path,
+                                                                             monkeypatch):
+        import pytest
+        from helpers_figures import demo
+        import scaling.io.output as output
+        seen = {}
+        (tmp_path / "out").mkdir()
+        (tmp_path / "out" / "keep.txt").write_text("mine", encoding="utf-8")
+
+        def broken(frame, path):
+            raise OSError("disk full")
+        monkeypatch.setattr(output, "write_csv", broken)
+        with pytest.raises(OSError, match="disk full"):
+            output.write_outputs(demo(), tmp_path / "out", force=True,
+                                 draw_figures=lambda r, f: self._handle(f, seen),
+                                 write_report=lambda r, f, w: [], caution="c")
+        assert seen == {"cancelled": True}
+        assert [p.name for p in (tmp_path / "out").iterdir()] == ["keep.txt"]
+        assert not list(tmp_path.glob(".scaling-tmp-*"))
+
+
+class TestReportPreparedWhileFiguresAreDrawn:
+    """prepare_report makes the Answer and fits.tex early; the files equal write_report's
+    (internal consistency: write_report is the reference)."""
+
+    @staticmethod
+    def _files(folder):
+        return {name: (folder / name).read_bytes()
+                for name in ("report.html", "summary.md", "fits.tex")}
+
+    def test_same_files_as_write_report(self, tmp_path):
+        from dataclasses import replace
+        from helpers_figures import demo
+        from scaling.render.report import prepare_report, write_report
+        result = demo()
+        early = prepare_report(result)
+        for name, res in (("same", result),   # the parts made early are used
+                          ("noted", replace(result, warnings=result.warnings + ("a note",)))):
+            a, b = tmp_path / f"{name}_a", tmp_path / f"{name}_b"
+            a.mkdir()
+            b.mkdir()
+            assert early(res, a, []) == write_report(res, b, [])
+            assert self._files(a) == self._files(b)
+        assert "a note" in (tmp_path / "noted_a" / "summary.md").read_text(encoding="utf-8")
+
+    def test_prepared_before_the_figures_are_awaited(self, tmp_path):
+        from helpers_figures import demo
+        from scaling.io.output import write_outputs
+        from scaling.render.report import write_report
+        order = []
+
+        class Drawing:
+            def wait(self):
+                order.append("wait")
+                return [], []
+
+        def prepare(result):
+            order.append("prepare")
+            return write_report
+        write_outputs(demo(), tmp_path / "out", draw_figures=lambda r, f: Drawing(),
+                      write_report=write_report, caution="c", prepare_report=prepare)
+        assert order == ["prepare", "wait"]
+        assert (tmp_path / "out" / "fits.tex").is_file()

@@ -144,17 +144,28 @@ def write_json(doc: dict, path: Path) -> None:
     pure-Python encoder, and ``json.dumps`` with options builds an encoder per call).  The file stays readable line by line and parses to
     the same document.
     """
-    dumps = json.JSONEncoder(ensure_ascii=False, allow_nan=False).encode   # one encoder
+    _write_json_parts(_json_parts(doc), path)
 
-    parts = []
-    for key, value in doc.items():
-        if isinstance(value, list) and value:
-            body = ",\n".join("    " + dumps(item) for item in value)
-            parts.append(f"  {dumps(str(key))}: [\n{body}\n  ]")
-        else:
-            parts.append(f"  {dumps(str(key))}: {dumps(value)}")
+
+_encode = json.JSONEncoder(ensure_ascii=False, allow_nan=False).encode   # one encoder
+
+
+def _json_part(key, value) -> str:
+    """One top-level entry of :func:`write_json`'s layout."""
+    if isinstance(value, list) and value:
+        body = ",\n".join("    " + _encode(item) for item in value)
+        return f"  {_encode(str(key))}: [\n{body}\n  ]"
+    return f"  {_encode(str(key))}: {_encode(value)}"
+
+
+def _json_parts(doc: dict) -> dict:
+    """``key -> encoded entry`` of ``doc``, in its order (entries can be replaced later)."""
+    return {key: _json_part(key, value) for key, value in doc.items()}
+
+
+def _write_json_parts(parts: dict, path: Path) -> None:
     with open(path, "w", encoding="utf-8") as fh:
-        fh.write("{\n" + ",\n".join(parts) + "\n}\n" if parts else "{}\n")
+        fh.write("{\n" + ",\n".join(parts.values()) + "\n}\n" if parts else "{}\n")
 
 
 def check_out_dir(out_dir: Path, force: bool) -> None:
@@ -166,7 +177,8 @@ def check_out_dir(out_dir: Path, force: bool) -> None:
 
 
 def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
-                  write_report: Callable, caution: str, force: bool = False):
+                  write_report: Callable, caution: str, force: bool = False,
+                  prepare_report: Callable | None = None):
     """Write the output folder atomically and return the result with ``files`` set.
 
     Files are built in a temporary folder beside ``out_dir`` and moved into
@@ -179,8 +191,10 @@ def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
     result : RunResult
     out_dir : path
     draw_figures : callable
-        ``draw_figures(result, folder) -> (relative paths, skip notes)``: draws the
-        figures into ``folder / "figures"``.
+        ``draw_figures(result, folder)`` draws the figures into ``folder / "figures"``
+        and returns (relative paths, skip notes), or a handle whose ``wait()`` returns
+        them once drawn elsewhere (and whose ``cancel()``, if any, stops the drawing
+        when writing fails), so the tables are written meanwhile.
     write_report : callable
         ``write_report(result, folder, written) -> relative paths``: writes the
         report files, given the files written so far.
@@ -188,6 +202,10 @@ def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
         The caution ``results.json`` carries.
     force : bool
         Replace the files written here in a non-empty ``out_dir``.
+    prepare_report : callable, optional
+        ``prepare_report(result) -> write_report``: does the report's work that needs
+        no figure while they are drawn, and returns the writer used in place of
+        ``write_report``.
     """
     out_dir = Path(out_dir)
     inputs = [Path(result.config.data.file)] + (
@@ -196,7 +214,8 @@ def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
     try:
-        written, result = _write_all(result, tmp, draw_figures, write_report, caution)
+        written, result = _write_all(result, tmp, draw_figures, write_report, caution,
+                                     prepare_report)
         # Never overwrite an input, even with --force.
         protected = {p.resolve() for p in inputs}
         for rel in written:
@@ -217,32 +236,50 @@ def write_csv(frame: pd.DataFrame, path: Path) -> None:
     frame.to_csv(path, index=False, lineterminator="\n")
 
 
-def _write_all(result, folder: Path, draw_figures, write_report, caution) -> tuple:
-    """Write every file into ``folder``; return (relative paths, result with figure notes)."""
+def _write_all(result, folder: Path, draw_figures, write_report, caution,
+               prepare_report=None) -> tuple:
+    """Write every file into ``folder``; return (relative paths, result with figure notes).
+
+    The figures are started first and drawn elsewhere (when ``draw_figures`` returns a
+    handle with ``wait()``) while the tables and most of ``results.json`` are made here;
+    the report, which embeds the figures, is written once they exist.
+    """
     written: list[Path] = []
-
-    def csv(name, frame):
-        write_csv(frame, folder / name)
-        written.append(Path(name))
-
-    csv("fits.csv", result.fits)
-    csv("slope_tests.csv", result.slope_tests)
-    csv("dropped_rows.csv", result.dropped)
-    for name, table in result.tables.items():
-        if isinstance(table, pd.DataFrame) and not name.startswith("_"):
-            csv(f"{name}.csv", table)
-    # Figures and report are optional stages; each returns relative paths.
     (folder / "figures").mkdir(exist_ok=True)
-    paths, skipped = draw_figures(result, folder)
+    drawing = draw_figures(result, folder)
+    try:
+        for name, frame in _tables(result):
+            write_csv(frame, folder / name)
+            written.append(Path(name))
+        doc = results_document(result, caution=caution)
+        parts = _json_parts(doc)   # all but the figure notes and the file list, encoded now
+        if prepare_report is not None:
+            write_report = prepare_report(result)
+        paths, skipped = drawing.wait() if hasattr(drawing, "wait") else drawing
+    except BaseException:
+        if hasattr(drawing, "cancel"):   # end the drawing processes of a failed run
+            drawing.cancel()
+        raise
     written += [Path(p) for p in paths]
     if skipped:   # a skipped figure is a note of the run: terminal, report and results.json
         result = replace(result, warnings=tuple(result.warnings) + tuple(skipped))
+        parts["warnings"] = _json_part("warnings", json_safe(list(result.warnings)))
     written += write_report(result, folder, written)
-    doc = results_document(result, caution=caution)
-    doc["files"] = sorted(str(p) for p in written) + ["results.json"]
-    write_json(doc, folder / "results.json")
+    files = sorted(str(p) for p in written) + ["results.json"]
+    parts["files"] = _json_part("files", files)
+    _write_json_parts(parts, folder / "results.json")
     written.append(Path("results.json"))
     return written, result
+
+
+def _tables(result):
+    """(file name, table) of every CSV of a run, in the order they are written."""
+    yield "fits.csv", result.fits
+    yield "slope_tests.csv", result.slope_tests
+    yield "dropped_rows.csv", result.dropped
+    for name, table in result.tables.items():
+        if isinstance(table, pd.DataFrame) and not name.startswith("_"):
+            yield f"{name}.csv", table
 
 
 def file_sha256(path: Path) -> str:

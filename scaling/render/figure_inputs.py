@@ -8,6 +8,7 @@ correction factors) and compute nothing new.
 
 from __future__ import annotations
 
+import contextlib
 from types import SimpleNamespace
 
 import numpy as np
@@ -19,10 +20,41 @@ from .figure_style import scatter_coded
 from .headline import primary_method
 from .wording import unit_text
 
-__all__ = ["run_base", "axis_label", "points_held", "run_groups", "group_sizes", "fitted_n",
+__all__ = ["reuse_inputs", "run_base", "axis_label", "points_held", "run_groups", "group_sizes", "fitted_n",
            "group_codes", "scatter_groups",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
+
+
+#: Within :func:`reuse_inputs`: ``key -> (objects read, value)``; else None.
+_MEMO: dict | None = None
+
+
+@contextlib.contextmanager
+def reuse_inputs():
+    """Within this block the groups of a run and the group code of every point are found
+    once per table, not once per panel: a run's figures read the same million points
+    a dozen times.  Outside it (a user's plot calls) nothing is kept."""
+    global _MEMO
+    outer = _MEMO
+    _MEMO = {} if outer is None else outer
+    try:
+        yield
+    finally:
+        _MEMO = outer
+
+
+def _memo(key, held: tuple, compute):
+    """``compute()``, or its value kept for the same objects ``held`` (compared by identity;
+    they are kept alive with the value, so an id is never reused while kept)."""
+    if _MEMO is None:
+        return compute()
+    hit = _MEMO.get(key)
+    if hit is not None and all(a is b for a, b in zip(hit[0], held)):
+        return hit[1]
+    value = compute()
+    _MEMO[key] = (held, value)
+    return value
 
 
 def run_base(result) -> float:
@@ -66,6 +98,10 @@ def run_groups(result) -> list:
     """The groups of the run's points, sorted as text (empty without groups).
 
     A large-data run holds no points: its groups are those of its fits."""
+    return list(_memo(("groups", id(result)), (result,), lambda: _run_groups(result)))
+
+
+def _run_groups(result) -> list:
     pts = result.data.points
     if not points_held(result):
         fits = result.fits
@@ -101,11 +137,17 @@ def fitted_n(result) -> int:
 
 def group_codes(pts, groups: list) -> np.ndarray:
     """Index into the sorted ``groups`` of every point (one pass, not one per group)."""
+    return _memo(("codes", id(pts), tuple(groups)), (pts,), lambda: _group_codes(pts, groups))
+
+
+def _group_codes(pts, groups: list) -> np.ndarray:
     # one hash pass over the points, then a look-up of the distinct names only:
     # searchsorted on a million Python strings costs seconds
     codes, names = pd.factorize(pts["group"].astype(str))
     at = pd.Index(groups, dtype=object).get_indexer(np.asarray(names, dtype=object))
-    return at[codes]
+    codes = at[codes]
+    codes.flags.writeable = False   # shared between the panels of a run's figures
+    return codes
 
 
 def scatter_groups(ax, pts, groups: list, **kwargs) -> None:

@@ -18,6 +18,7 @@ from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
+from ..stats.logscale import to_log
 from ..stats.schema import method_label
 from .figure_inputs import (axis_label, common_slope_fit, drawn_primary, factor_of, fit_xrange,
                             fitted_n, group_means_table, group_sizes, points_held, run_base,
@@ -92,8 +93,8 @@ def slopes_differ_in(result, method: str) -> bool:
 def _group_line(fit, xs, common, means) -> np.ndarray:
     """Log-scale fitted values of one group's line at ``xs``: through the group's own
     mean with the common slope when ``common`` is given, else the group's own line."""
-    if common is None or means is None:
-        return fit_band(fit, xs)[0]
+    if common is None or means is None:   # fit_band's fitted values, without its band
+        return fit.intercept + fit.slope * np.asarray(to_log(xs, fit.log_base), dtype=float)
     return common_line(common.slope, means[0], means[1], xs, fit.log_base)
 
 
@@ -365,14 +366,23 @@ def _laid_out(fig):
     return canvas.get_renderer()
 
 
-def _covered(ax, text, xs, ys) -> int:
-    """Number of data points / line samples under ``text`` once laid out."""
-    renderer = _laid_out(ax.figure)
+def _covered(ax, text, xs, ys, renderer=None) -> int:
+    """Number of data points / line samples under ``text`` once laid out (``renderer``:
+    the figure is laid out already)."""
+    renderer = renderer or _laid_out(ax.figure)
     box = text.get_window_extent(renderer).padded(2.0)
     disp = ax.transData.transform(np.column_stack([xs, ys]))
     inside = ((disp[:, 0] >= box.x0) & (disp[:, 0] <= box.x1)
               & (disp[:, 1] >= box.y0) & (disp[:, 1] <= box.y1))
     return int(np.sum(inside))
+
+
+def _inside(ax, text, renderer) -> bool:
+    """True when ``text`` lies within the axes: then where it sits does not change the
+    layout (the axes' own box already bounds it), and moving it needs no new layout."""
+    box, axbox = text.get_window_extent(renderer), ax.get_window_extent(renderer)
+    return (box.x0 >= axbox.x0 and box.x1 <= axbox.x1 and box.y0 >= axbox.y0
+            and box.y1 <= axbox.y1)
 
 
 def _place_in_emptiest_corner(ax, text, xs, ys) -> str:
@@ -383,11 +393,17 @@ def _place_in_emptiest_corner(ax, text, xs, ys) -> str:
     the y-axis until the upper-left corner is clear.  Returns the corner.
     """
     counts = {}
+    renderer = None   # set while the layout holds: it was found with the text inside the axes
     for name, (x, y, ha, va) in _CORNERS.items():
         text.set_position((x, y))
         text.set_ha(ha)
         text.set_va(va)
-        counts[name] = _covered(ax, text, xs, ys)
+        if renderer is not None and not _inside(ax, text, renderer):
+            renderer = None
+        if renderer is None:
+            renderer = _laid_out(ax.figure)
+            renderer = renderer if renderer is not None and _inside(ax, text, renderer) else None
+        counts[name] = _covered(ax, text, xs, ys, renderer)
         if counts[name] == 0:
             return name
     name = "upper left"

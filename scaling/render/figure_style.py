@@ -19,8 +19,10 @@ import math
 
 import matplotlib
 import numpy as np
+from matplotlib import cbook
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.layout_engine import PlaceHolderLayoutEngine
 from matplotlib.lines import Line2D
 from matplotlib.ticker import Formatter, LogLocator, NullFormatter
 
@@ -29,7 +31,7 @@ from ..stats.schema import CATALOGUE
 __all__ = ["STYLE", "PALETTE", "MARKERS", "SIZES", "METHOD_DASHES", "METHOD_SHADES",
            "METHOD_MARKERS", "PHYLO_COLOUR", "LEGEND_MAX_GROUPS", "MAX_DRAWN_POINTS",
            "format_natural", "NaturalLogFormatter", "natural_log_axis", "styled",
-           "save_figure"]
+           "save_figure", "thinned_index"]
 
 # Okabe & Ito (2008) colour-blind-safe palette (yellow last: weak on white).
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
@@ -221,16 +223,30 @@ def group_style(i: int) -> tuple:
     return PALETTE[i % len(PALETTE)], MARKERS[i % len(MARKERS)]
 
 
-def scatter_coded(ax, x, y, codes, n_groups: int, **kwargs) -> None:
+def thinned_index(n: int):
+    """Sorted indices of the seeded random subset of :data:`MAX_DRAWN_POINTS` of ``n``
+    points a scatter plot draws, or None when all ``n`` are drawn."""
+    if n <= MAX_DRAWN_POINTS:
+        return None
+    return np.sort(np.random.default_rng(0).choice(n, MAX_DRAWN_POINTS, replace=False))
+
+
+def scatter_coded(ax, x, y, codes, n_groups: int, *, total: int | None = None,
+                  **kwargs) -> None:
     """Scatter with group ``codes``: one artist per group present, or, above
     :data:`LEGEND_MAX_GROUPS` groups, one artist with a colour per point, drawn in a
-    seeded random order (so no group's colour always lies on top)."""
+    seeded random order (so no group's colour always lies on top).
+
+    Above :data:`MAX_DRAWN_POINTS` points the subset :func:`thinned_index` is drawn,
+    and a note on the axes says so.  ``total``: the arrays are that subset already of
+    ``total`` points (a caller that computes values for the drawn points only).
+    """
     x, y, codes = np.asarray(x), np.asarray(y), np.asarray(codes)
-    n_all = len(x)
-    if n_all > MAX_DRAWN_POINTS:   # drawing cost grows with points: a stated subsample
-        keep = np.sort(np.random.default_rng(0).choice(n_all, MAX_DRAWN_POINTS,
-                                                       replace=False))
+    n_all = len(x) if total is None else total
+    keep = thinned_index(n_all) if total is None else None
+    if keep is not None:   # drawing cost grows with points: a stated subsample
         x, y, codes = x[keep], y[keep], codes[keep]
+    if n_all > MAX_DRAWN_POINTS:
         note = ax.text(0.99, 0.01, f"{group_digits(str(MAX_DRAWN_POINTS))} of "
                        f"{group_digits(str(n_all))} points\nshown; all are fitted",
                        transform=ax.transAxes, ha="right", va="bottom", fontsize=5.5,
@@ -288,5 +304,28 @@ def save_figure(fig: Figure, target, fmt: str, dpi: int) -> None:
     meta = {"png": {"Software": None}, "pdf": {"CreationDate": None, "Producer": None},
             "svg": {"Date": None}}.get(fmt, {})
     with matplotlib.rc_context(STYLE):
-        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+        engine = fig.get_layout_engine()
+        if fmt != "png" or not _lay_out(fig, engine, dpi):
+            fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+            return
+        fig.set_layout_engine("none")   # laid out already, as savefig would do it
+        try:
+            fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+        finally:
+            fig.set_layout_engine(engine)
+
+
+def _lay_out(fig: Figure, engine, dpi: int) -> bool:
+    """Run ``fig``'s layout engine at the PNG's resolution, as ``savefig`` does; True when
+    it ran.  ``savefig`` runs it inside a whole draw of the figure without output (every
+    tick, text and path of a thousand lines handled once more) before the real draw."""
+    if (engine is None or isinstance(engine, PlaceHolderLayoutEngine) or not fig.axes
+            or not isinstance(fig.canvas, FigureCanvasAgg)):
+        return False
+    with cbook._setattr_cm(fig, dpi=dpi):   # the renderer savefig's layout uses
+        try:
+            engine.execute(fig)
+        except ValueError:   # as Figure.draw: the layout is then left as it is
+            pass
+    return True
 

@@ -1,18 +1,20 @@
-"""Draw a run's figures in a process that got matplotlib ready while the run computed.
+"""Draw a run's figures in other processes while the calling process writes the tables.
 
 In a small run, drawing and saving the figures costs more than the
-statistics, and importing matplotlib alone about 0.4 s.  :func:`start_worker`
+statistics, and importing matplotlib alone about 0.5 s.  :func:`start_worker`
 forks a process as the run begins; it imports the figure modules and
 lays out a line of text (fonts loaded) while the parent computes.
-:meth:`FigureWorker.draw` then sends it the finished run and it draws the
-figures -- in two processes on two cores (:func:`scaling.render.figures.write_figures`).
+:func:`start_figures` then streams it the finished run and returns at once: the
+worker draws the figures -- in two processes on two cores -- while the caller
+writes the tables, and :meth:`Drawing.wait` collects the paths when the report
+needs them.  Without a worker the run is forked into two drawing processes after
+the analysis instead.
 
 The files are the same whichever process draws them (a test compares them
-byte for byte).  Whenever the worker cannot be used -- not Linux, one core,
-other threads running, a run too large to send cheaply, the worker died --
-the figures are drawn in the calling process instead; nothing is lost.
-Set the environment variable ``SCALING_ONE_PROCESS=1`` to draw everything in
-the calling process.
+byte for byte).  Whenever another process cannot be used -- not Linux, one core,
+other threads running, the worker died -- the figures are drawn in the calling
+process instead; nothing is lost.  Set the environment variable
+``SCALING_ONE_PROCESS=1`` to draw everything in the calling process.
 """
 
 from __future__ import annotations
@@ -20,6 +22,7 @@ from __future__ import annotations
 import multiprocessing
 import os
 import pickle
+import signal
 import sys
 import threading
 import warnings
@@ -28,11 +31,15 @@ from pathlib import Path
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
 
-__all__ = ["FigureWorker", "start_worker", "draw_figures", "one_process"]
+__all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
+           "one_process"]
 
-#: Runs with more fitted points than this are drawn in the calling process
-#: (forked after the analysis, so nothing is copied), not sent to the worker.
-SEND_MAX_POINTS = 200_000
+#: Runs with more fitted points than this are not streamed to the worker but
+#: drawn by two processes forked after the analysis (nothing copied, matplotlib
+#: imported in each).  Streaming a million points costs about 0.45 s of CPU
+#: (pickling here, unpickling there); two fresh imports of the drawing stack
+#: about 1.1 s: the break-even lies near 2.5 million points.
+SEND_MAX_POINTS = 2_000_000
 
 
 def one_process() -> bool:
@@ -79,46 +86,150 @@ def _anything_to_draw(result) -> bool:
     return bool(cfg.formats) and (bool(cfg.kinds) or extras)
 
 
+class _Share:
+    """One share of the figures drawn by a forked process (its answer comes on a pipe)."""
+
+    def __init__(self, result, folder: Path, kinds, extras: bool) -> None:
+        self.kinds, self.extras = kinds, extras
+        read_end, write_end = os.pipe()
+        try:
+            pid = os.fork()
+        except OSError:
+            os.close(read_end)
+            os.close(write_end)
+            raise
+        if pid == 0:   # the drawing process: draw the share, hand back the paths, leave
+            code = 1
+            try:
+                os.close(read_end)
+                with os.fdopen(write_end, "wb") as fh:
+                    fh.write(pickle.dumps(_draw_share(result, folder, kinds, extras=extras)))
+                code = 0
+            finally:
+                os._exit(code)   # no atexit handlers, no flushing of the parent's buffers
+        os.close(write_end)
+        self.pid, self.read_end = pid, read_end
+
+    def collect(self, result, folder: Path) -> tuple[list[str], list[str]]:
+        """The share's (paths, notes); drawn here when its process failed."""
+        with os.fdopen(self.read_end, "rb") as fh:
+            answer = fh.read()
+        _, status = os.waitpid(self.pid, 0)
+        try:
+            theirs = pickle.loads(answer) if status == 0 else None
+        except Exception:  # noqa: BLE001 -- a truncated answer: draw the share here
+            theirs = None
+        return theirs if theirs is not None else _draw_share(result, folder, self.kinds,
+                                                            extras=self.extras)
+
+    def stop(self) -> None:
+        """End the process and reap it (its files are left to the caller)."""
+        try:
+            os.kill(self.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+        os.close(self.read_end)
+        os.waitpid(self.pid, 0)
+
+
+def _in_order(result, answers) -> tuple[list[str], list[str]]:
+    """Paths of several shares in the order of ``config.figures.kinds`` (the figures beyond
+    the kinds last), with their notes."""
+    order = {kind: i for i, kind in enumerate(result.config.figures.kinds)}
+    paths = sorted((p for answer in answers for p in answer[0]),
+                   key=lambda p: order.get(Path(p).stem, len(order)))
+    return paths, [note for answer in answers for note in answer[1]]
+
+
+class Drawing:
+    """Figures being drawn (or drawn already); :meth:`wait` gives (relative paths, skip notes).
+
+    Made by :func:`start_figures`; the caller writes other files meanwhile.
+    """
+
+    def __init__(self, result, folder: Path, *, shares=(), here=None, worker=None,
+                 answer=None) -> None:
+        self._result, self._folder = result, Path(folder)
+        self._shares = list(shares)      # forked processes drawing a share each
+        self._here = here                # (kinds, extras) drawn by wait() itself, or None
+        self._worker = worker            # a FigureWorker drawing every figure
+        self._answer = answer
+
+    def wait(self) -> tuple[list[str], list[str]]:
+        """Block until every figure is written; return (relative paths, skip notes)."""
+        if self._answer is not None:
+            return self._answer
+        if self._worker is not None:
+            answer = self._worker.answer()
+            self._answer = answer if answer is not None else draw_figures(self._result,
+                                                                          self._folder)
+            return self._answer
+        answers = []
+        try:
+            if self._here is not None:
+                answers.append(_draw_share(self._result, self._folder, *self._here))
+            while self._shares:
+                answers.append(self._shares.pop(0).collect(self._result, self._folder))
+        finally:   # a failure here: end and reap the processes not collected
+            self.cancel()
+        self._answer = answers[0] if len(answers) == 1 else _in_order(self._result, answers)
+        return self._answer
+
+    def cancel(self) -> None:
+        """Stop drawing (the run failed elsewhere): end and reap the processes started."""
+        for share in self._shares:
+            share.stop()
+        self._shares = []
+        if self._worker is not None:
+            self._worker.close()
+
+
+def _start_here(result, folder: Path, *, draw_here: bool) -> Drawing:
+    """Figures of ``result`` drawn by processes forked from this one.
+
+    ``draw_here``: this process draws one share itself (in :meth:`Drawing.wait`) and one
+    forked process the other; else both shares go to forked processes, so this process
+    is free until it waits.
+    """
+    if not _anything_to_draw(result):
+        return Drawing(result, folder, answer=([], []))   # and matplotlib is never imported
+    kinds = list(result.config.figures.kinds)
+    if len(kinds) < 2 or one_process():
+        return Drawing(result, folder, here=(None, True))
+    mine, second = _split(kinds)
+    try:
+        shares = [_Share(result, folder, second, extras=False)]
+    except OSError:   # no process to be had: everything is drawn here
+        return Drawing(result, folder, here=(None, True))
+    if not draw_here:
+        try:
+            shares.insert(0, _Share(result, folder, mine, extras=True))
+        except OSError:
+            draw_here = True
+    return Drawing(result, folder, shares=shares, here=(mine, True) if draw_here else None)
+
+
 def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
     """Write the run's figures into ``folder``; return (relative paths, skip notes).
 
-    Every other figure is drawn in a forked process when two cores are free
+    Half the figures are drawn in a forked process when two cores are free
     (:func:`one_process` false); should that process fail, its figures are
     drawn here.  Paths come in the order of ``config.figures.kinds``.
     """
-    if not _anything_to_draw(result):
-        return [], []   # and matplotlib is never imported
-    kinds = list(result.config.figures.kinds)
-    if len(kinds) < 2 or one_process():
-        return _draw_share(result, folder)
-    mine, second = _split(kinds)
-    read_end, write_end = os.pipe()
-    pid = os.fork()
-    if pid == 0:   # the second process: draw its share, hand back the paths, leave
-        code = 1
-        try:
-            os.close(read_end)
-            with os.fdopen(write_end, "wb") as fh:
-                fh.write(pickle.dumps(_draw_share(result, folder, second, extras=False)))
-            code = 0
-        finally:
-            os._exit(code)   # no atexit handlers, no flushing of the parent's buffers
-    os.close(write_end)
-    try:
-        paths, notes = _draw_share(result, folder, mine)
-    finally:   # always reap the second process
-        with os.fdopen(read_end, "rb") as fh:
-            answer = fh.read()
-        _, status = os.waitpid(pid, 0)
-    try:
-        theirs = pickle.loads(answer) if status == 0 else None
-    except Exception:  # noqa: BLE001 -- a truncated answer: draw the share here
-        theirs = None
-    if theirs is None:
-        theirs = _draw_share(result, folder, second, extras=False)
-    order = {kind: i for i, kind in enumerate(kinds)}
-    paths = sorted(paths + theirs[0], key=lambda p: order.get(Path(p).stem, len(order)))
-    return paths, notes + theirs[1]
+    return _start_here(result, folder, draw_here=True).wait()
+
+
+def start_figures(result, folder: Path, worker: "FigureWorker | None" = None) -> Drawing:
+    """Start writing the run's figures into ``folder``; return the :class:`Drawing`.
+
+    ``worker`` (started with the run, :func:`start_worker`) draws them when it
+    can take the run; else two processes forked here do (or, when
+    :func:`one_process` holds, :meth:`Drawing.wait` draws them itself).
+    """
+    folder = Path(folder)
+    if worker is not None and worker.send(result, folder):
+        return Drawing(result, folder, worker=worker)
+    return _start_here(result, folder, draw_here=False)
 
 
 def _warm_up() -> None:
@@ -133,13 +244,21 @@ def _warm_up() -> None:
         kind.make()
     fig = Figure(figsize=(1, 1))
     with matplotlib.rc_context(STYLE):
-        fig.text(0.1, 0.5, "0.123 g 10\u2009000")
+        fig.text(0.1, 0.5, "0.123 g 10\u2009000 $10^{3}$")   # mathtext too: powers of ten
         FigureCanvasAgg(fig).draw()
 
 
-def _serve(conn, parent_end) -> None:
+def _reply(conn, answer) -> None:
+    try:
+        conn.send(answer)
+    except OSError:   # the parent is gone or stopped listening
+        pass
+
+
+def _serve(conn, parent_end, job_read: int, job_write: int) -> None:
     """The worker: get ready, wait for one run, draw it, answer, exit."""
     parent_end.close()   # else the worker would never see the parent go away
+    os.close(job_write)
     try:
         try:
             _warm_up()
@@ -151,13 +270,21 @@ def _serve(conn, parent_end) -> None:
             return
         if job is None:
             return
-        result, folder = pickle.loads(job)
         try:
-            conn.send(draw_figures(result, folder))
+            # the run comes on its own pipe, unpickled as it arrives: no copy of it as bytes
+            with os.fdopen(job_read, "rb", closefd=False) as fh:
+                result, folder = pickle.load(fh)
+        except Exception:  # noqa: BLE001 -- the parent stopped sending: it draws them
+            _reply(conn, None)
+            return
+        try:
+            answer = draw_figures(result, folder)
         except Exception:  # noqa: BLE001 -- the parent draws them instead
-            conn.send(None)
+            answer = None
+        _reply(conn, answer)
     finally:
         conn.close()
+        os.close(job_read)
 
 
 class FigureWorker:
@@ -167,33 +294,54 @@ class FigureWorker:
         # multiprocessing flushes stdout/stderr before it forks, so nothing is printed twice
         ctx = multiprocessing.get_context("fork")
         self._conn, child_end = ctx.Pipe()
-        self._proc = ctx.Process(target=_serve, args=(child_end, self._conn), daemon=True)
-        self._proc.start()
-        child_end.close()
+        job_read, self._job = os.pipe()
+        try:
+            self._proc = ctx.Process(target=_serve, args=(child_end, self._conn, job_read,
+                                                          self._job), daemon=True)
+            self._proc.start()
+        finally:
+            os.close(job_read)
+            child_end.close()
+
+    def send(self, result, folder: Path) -> bool:
+        """Stream ``result`` to the worker to draw into ``folder``; False when it cannot
+        take it (too large to send cheaply, dead, unpicklable): the caller draws then."""
+        if self._proc is None:
+            return False
+        points = getattr(getattr(result, "data", None), "points", None)
+        if points is not None and len(points) > SEND_MAX_POINTS:
+            self.close()
+            return False
+        try:
+            self._conn.send(True)   # a run follows on the job pipe
+            with os.fdopen(self._job, "wb", closefd=False) as fh:
+                pickle.dump((result, Path(folder)), fh, protocol=pickle.HIGHEST_PROTOCOL)
+        except Exception:  # noqa: BLE001 -- unpicklable run, dead worker: draw here
+            self.close()
+            return False
+        return True
+
+    def answer(self) -> tuple[list[str], list[str]] | None:
+        """Wait for the worker's (relative paths, skip notes); None when it failed."""
+        answer = None
+        try:
+            while answer is None and self._proc is not None and self._proc.is_alive():
+                if self._conn.poll(0.05):
+                    answer = self._conn.recv()
+            if answer is None and self._proc is not None and self._conn.poll(0):
+                answer = self._conn.recv()   # answered just before it exited
+        except Exception:  # noqa: BLE001 -- dead worker: the caller draws them
+            answer = None
+        self.close()
+        return answer
 
     def draw(self, result, folder: Path) -> tuple[list[str], list[str]] | None:
-        """Have the worker draw ``result``'s figures into ``folder``.
+        """Have the worker draw ``result``'s figures into ``folder`` and wait for them.
 
         Returns (relative paths, skip notes), or None when the worker could
         not do it (the caller then draws them itself).
         """
-        points = getattr(getattr(result, "data", None), "points", None)
-        if points is not None and len(points) > SEND_MAX_POINTS:
-            self.close()
-            return None
-        try:
-            self._conn.send(pickle.dumps((result, Path(folder)),
-                                         protocol=pickle.HIGHEST_PROTOCOL))
-            answer = None
-            while answer is None and self._proc.is_alive():
-                if self._conn.poll(0.05):
-                    answer = self._conn.recv()
-            if answer is None and self._conn.poll(0):   # answered just before it exited
-                answer = self._conn.recv()
-        except Exception:  # noqa: BLE001 -- unpicklable run, dead worker: draw here
-            answer = None
-        self.close()
-        return answer
+        return self.answer() if self.send(result, folder) else None
 
     def close(self) -> None:
         """Stop the worker if it is still waiting (idempotent)."""
@@ -204,6 +352,7 @@ class FigureWorker:
         except Exception:  # noqa: BLE001 -- already gone
             pass
         self._conn.close()
+        os.close(self._job)   # a worker still reading a run sees its end
         self._proc.join(timeout=5)
         if self._proc.is_alive():
             self._proc.terminate()

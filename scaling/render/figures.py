@@ -23,6 +23,7 @@ from pathlib import Path
 from matplotlib.figure import Figure
 
 from ..errors import ConfigError, FigureWarning
+from .figure_inputs import reuse_inputs
 from .figure_kinds import FIGURES, KINDS, figure_kind
 from .figure_style import save_figure
 
@@ -102,8 +103,12 @@ def write_figures(result, folder: Path, *, kinds=None, extras: bool = True) -> l
     predictors): :mod:`scaling.render.figure_worker` splits a run's figures between
     processes this way.
     """
+    with reuse_inputs():   # the groups of the points found once for all the figures
+        return _write_figures(result, Path(folder), kinds, extras)
+
+
+def _write_figures(result, folder: Path, kinds, extras: bool) -> list[Path]:
     cfg = result.config.figures
-    folder = Path(folder)
     (folder / "figures").mkdir(parents=True, exist_ok=True)
     if result.multi_fit is not None:   # several predictors: partial relationships
         return _write_partial_figures(result, folder) if extras else []

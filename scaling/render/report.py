@@ -36,7 +36,7 @@ from .wording import (CAUTION, ancestry_caution, unit_text, clean_timestamp, dos
                       mechanism_caution,
                       method_label, slope_interval_text, units_share_ancestry, verdict_phrase)
 
-__all__ = ["write_report", "build_report", "render_html", "render_markdown",
+__all__ = ["write_report", "prepare_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
            "format_value"]
 
@@ -287,8 +287,11 @@ def _fits_display(result) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def build_report(result, folder: Path | None = None, written=()) -> list:
-    """The report's content as a list of :class:`Section` (no escaping, no rounding)."""
+def build_report(result, folder: Path | None = None, written=(), *, head=None) -> list:
+    """The report's content as a list of :class:`Section` (no escaping, no rounding).
+
+    ``head``: the run's Answer (:func:`~scaling.render.answer.headline_of`) when made
+    already."""
     if getattr(result, "multi_fit", None) is not None:   # several predictors: their own
         from .report_several import build_several_report
         return build_several_report(result, folder, written)
@@ -300,7 +303,7 @@ def build_report(result, folder: Path | None = None, written=()) -> list:
               if not str(k).startswith("_") and isinstance(v, pd.DataFrame)}
     sections = []
 
-    head = headline_of(result)
+    head = head if head is not None else headline_of(result)
     sections.append(_headline_section(head))
     # the per-method exponent-test bullets are replaced by the one exponent table
     sections.append(_summary_section(
@@ -750,9 +753,32 @@ def write_report(result, folder: Path, written) -> list[Path]:
     list of Path
         The three paths written, relative to ``folder``.
     """
-    folder = Path(folder)
-    sections = build_report(result, folder, written)
+    return _write_report(result, Path(folder), written)
+
+
+def _write_report(result, folder: Path, written, *, head=None, tex=None) -> list[Path]:
+    sections = build_report(result, folder, written, head=head)
     (folder / "report.html").write_text(render_html(result, sections), encoding="utf-8")
     (folder / "summary.md").write_text(render_markdown(result, sections), encoding="utf-8")
-    (folder / "fits.tex").write_text(render_fits_tex(result), encoding="utf-8")
+    (folder / "fits.tex").write_text(tex if tex is not None else render_fits_tex(result),
+                                     encoding="utf-8")
     return [Path("report.html"), Path("summary.md"), Path("fits.tex")]
+
+
+def prepare_report(result):
+    """:func:`write_report` with what needs no figure made now: the Answer and fits.tex.
+
+    Called while the figures are drawn elsewhere; the function returned writes the
+    same files as :func:`write_report`.  The parts made here serve this very
+    ``result`` only (a run whose figure notes were added is a new result, written
+    from the start).
+    """
+    several = getattr(result, "multi_fit", None) is not None
+    head = None if several else headline_of(result)
+    tex = render_fits_tex(result)
+
+    def write(res, folder: Path, written) -> list[Path]:
+        if res is not result:
+            return write_report(res, folder, written)
+        return _write_report(res, Path(folder), written, head=head, tex=tex)
+    return write

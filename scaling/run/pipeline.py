@@ -30,8 +30,8 @@ from ..io.config import Config, config_from_dict, load_config
 from ..io import output
 from ..io.output import check_out_dir, manifest_header, results_document  # noqa: F401
 from ..io.tables import CleanData
-from ..render.figure_worker import draw_figures, start_worker
-from ..render.report import write_report
+from ..render.figure_worker import start_figures, start_worker
+from ..render.report import prepare_report, write_report
 from ..render.wording import CAUTION  # noqa: F401 (alias)
 from ..stats._display import frame_html, short_repr
 from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS,  # noqa: F401 (aliases)
@@ -274,10 +274,10 @@ def write_outputs(result: RunResult, out_dir, *, force: bool = False, worker=Non
     :class:`~scaling.render.figure_worker.FigureWorker` started with the run draws the
     figures; without one (or when it cannot) they are drawn here."""
     def figures(res, folder):
-        drawn = worker.draw(res, folder) if worker is not None else None
-        return drawn if drawn is not None else draw_figures(res, folder)
+        return start_figures(res, folder, worker)   # drawn while the tables are written
     return output.write_outputs(result, out_dir, force=force, draw_figures=figures,
-                                write_report=write_report, caution=CAUTION)
+                                write_report=write_report, caution=CAUTION,
+                                prepare_report=prepare_report)
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,
