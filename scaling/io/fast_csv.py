@@ -114,7 +114,7 @@ def read_plain_columns(path, *, sep: str, skip_rows: int, numbers: tuple,
     try:
         import pyarrow as pa
         import pyarrow.compute as pc
-        import pyarrow.csv as pcsv
+        import pyarrow.csv  # noqa: F401 -- needed by _arrow_read
     except ImportError:
         return None
     path = Path(path)
@@ -133,18 +133,9 @@ def read_plain_columns(path, *, sep: str, skip_rows: int, numbers: tuple,
     types = {raw[n]: pa.float64() for n in numbers} | {raw[n]: pa.large_string() for n in labels}
     pool = pa.system_memory_pool()
     try:
-        # one thread: as fast on two shared cores, and a third less memory at its peak;
         # the system allocator: what Arrow frees, numpy can use again
-        table = pcsv.read_csv(
-            path,
-            read_options=pcsv.ReadOptions(skip_rows=skip_rows + 1, column_names=cells,
-                                          use_threads=False),
-            parse_options=pcsv.ParseOptions(delimiter=sep, quote_char=False,
-                                            double_quote=False, ignore_empty_lines=False),
-            convert_options=pcsv.ConvertOptions(column_types=types,
-                                                include_columns=[raw[n] for n in wanted],
-                                                strings_can_be_null=False),
-            memory_pool=pool)
+        table = _arrow_read(path, skip_rows=skip_rows, names=cells, sep=sep, types=types,
+                            include=[raw[n] for n in wanted], pool=pool)
     except (pa.ArrowException, ValueError, OSError):
         return None   # a line with another number of cells, a cell that is no number, ...
     if table.num_rows == 0:
@@ -182,7 +173,7 @@ def read_plain_text(path, *, sep: str, skip_rows: int, n_columns: int) -> list |
     """
     try:
         import pyarrow as pa
-        import pyarrow.csv as pcsv
+        import pyarrow.csv  # noqa: F401 -- needed by _arrow_read
     except ImportError:
         return None
     path = Path(path)
@@ -194,16 +185,26 @@ def read_plain_text(path, *, sep: str, skip_rows: int, n_columns: int) -> list |
     names = [f"c{j}" for j in range(n_columns)]
     pool = pa.system_memory_pool()
     try:
-        table = pcsv.read_csv(
-            path,
-            read_options=pcsv.ReadOptions(skip_rows=skip_rows + 1, column_names=names,
-                                          use_threads=False),
-            parse_options=pcsv.ParseOptions(delimiter=sep, quote_char=False,
-                                            double_quote=False, ignore_empty_lines=False),
-            convert_options=pcsv.ConvertOptions(
-                column_types={n: pa.large_string() for n in names},
-                strings_can_be_null=False),
-            memory_pool=pool)
+        table = _arrow_read(path, skip_rows=skip_rows, names=names, sep=sep,
+                            types={n: pa.large_string() for n in names}, include=[],
+                            pool=pool)
     except (pa.ArrowException, ValueError, OSError):
         return None
     return [table.column(n) for n in names]
+
+
+def _arrow_read(path, *, skip_rows: int, names: list, sep: str, types: dict, include: list,
+                pool):
+    """``pyarrow.csv.read_csv`` of the lines under the header, as both readers need it:
+    one thread (as fast on two shared cores, a third less memory at its peak), no quoting,
+    blank lines kept, no cell read as null; ``include``: the columns (empty: all)."""
+    import pyarrow.csv as pcsv
+    return pcsv.read_csv(
+        path,
+        read_options=pcsv.ReadOptions(skip_rows=skip_rows + 1, column_names=names,
+                                      use_threads=False),
+        parse_options=pcsv.ParseOptions(delimiter=sep, quote_char=False, double_quote=False,
+                                        ignore_empty_lines=False),
+        convert_options=pcsv.ConvertOptions(column_types=types, include_columns=include,
+                                            strings_can_be_null=False),
+        memory_pool=pool)
