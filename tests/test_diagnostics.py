@@ -630,3 +630,18 @@ class TestMovesAnswer:
         from scaling.stats.influence import moves_answer
         assert moves_answer(0.737, 0.020, 0.740, ("same",), ("above",))
         assert not moves_answer(0.737, 0.020, 0.740, ("same",), ("same",))
+
+
+def test_influential_rows_are_written_as_whole_row_numbers_and_blank_without_a_row(tmp_path):
+    # common practice, no source: a row number is a whole number; a group mean has none
+    from scaling.io.output import write_csv
+    from scaling.run.diagnostics import influence_table
+    table = influence_table({"scope": ["pooled", "group_means"], "group": ["", ""],
+                             "method": ["ols", "ols"], "row": [54, None],
+                             "label": ["", "sp1"], "cooks_distance": [0.25, 0.5]})
+    write_csv(table, tmp_path / "influential_rows.csv")
+    lines = (tmp_path / "influential_rows.csv").read_text().splitlines()
+    assert lines[1:] == ["pooled,,ols,54,,0.25", "group_means,,ols,,sp1,0.5"]
+    empty = influence_table({"scope": [], "group": [], "method": [], "row": [], "label": [],
+                             "cooks_distance": []})
+    assert len(empty) == 0 and str(empty["row"].dtype) == "Int64"

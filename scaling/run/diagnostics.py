@@ -160,14 +160,22 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     tables = {
         "diagnostics": pd.DataFrame(diag_records)[DIAGNOSTIC_COLUMNS]
         if diag_records else pd.DataFrame(columns=DIAGNOSTIC_COLUMNS),
-        "influential_rows": (pd.DataFrame(infl, columns=INFLUENCE_COLUMNS) if infl["row"]
-                             else pd.DataFrame([], columns=INFLUENCE_COLUMNS)),
+        "influential_rows": influence_table(infl),
         "curvature": pd.DataFrame(curv_rows, columns=CURVATURE_COLUMNS),
     }
     if dc.error_structure:
         tables["error_structure"] = pd.DataFrame(es_rows, columns=ERROR_STRUCTURE_COLUMNS)
 
     return DiagnosticsStage(tables=tables, notes=tuple(notes), messages=tuple(messages))
+
+
+def influence_table(rows) -> pd.DataFrame:
+    """influential_rows.csv from its columns (a dict of lists) or its records (a list of
+    dicts); ``row`` as whole numbers, blank where a point has no input row (a group
+    mean, a species of the tree)."""
+    empty = not rows["row"] if isinstance(rows, dict) else not len(rows)
+    frame = pd.DataFrame([] if empty else rows, columns=INFLUENCE_COLUMNS)
+    return frame.astype({"row": "Int64"})
 
 
 #: Ordinary check sentences that, with a tree, are prefixed as the ordinary model's.

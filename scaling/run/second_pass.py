@@ -55,11 +55,10 @@ from ..stats.lines import exact_fit, fit_moments
 from ..stats.logscale import to_log
 from ..stats.moment_curvature import local_exponents, quadratic_from_moments
 from ..stats.residual_checks import MIN_N, Check, Curvature, Diagnostics
-from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, INFLUENCE_COLUMNS,
-                            POINTS_TO_CHECK_COLUMNS)
+from ..stats.schema import CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, POINTS_TO_CHECK_COLUMNS
 from ..stats.streaming_residuals import (TOP_K, GroupResidualSums, ResidualSums,
                                          StreamedChecks)
-from .diagnostics import exponent_targets
+from .diagnostics import exponent_targets, influence_table
 from .moments_path import _sep
 from .points_to_check import primary_method
 from .predictions import (accuracy_and_factors, predictions_from_factors, row_keys,
@@ -466,7 +465,7 @@ def _diagnostics(cfg, res: StreamedChecks, m, keys, methods, all_fits, base, tab
                          "within_data": None})
     out = {
         "diagnostics": pd.DataFrame(diag, columns=DIAGNOSTIC_COLUMNS),
-        "influential_rows": pd.DataFrame(infl, columns=INFLUENCE_COLUMNS),
+        "influential_rows": influence_table(infl),
         "curvature": pd.DataFrame(curv, columns=CURVATURE_COLUMNS),
     }
     answer = answer_line(other_tables.get("group_tests"), cfg.model.methods,
