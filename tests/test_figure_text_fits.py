@@ -41,7 +41,8 @@ def many_groups(tmp_path_factory):
         return run_config({"data": {"file": str(path), "x": "mass", "y": "rate",
                                     "group": "species"},
                            "exponents": {"three_quarters": 0.75, "two_thirds": 0.6667},
-                           "groups": {"compare": True}}, write=False)
+                           "model": {"methods": ["ols"]},
+                           "groups": {"compare": True, "diagnostics_max": 10}}, write=False)
 
 
 def _laid_out(fig, dpi):
