@@ -187,14 +187,15 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
             figure_legend(ax.figure, handles, len(handles))
         else:
             ax.legend(handles=handles, loc="best")
-    if title is not None and own:
+    laid_out = title is not None and own
+    if laid_out:   # wrapping moves only what is above the axes: one layout serves both
         wrap_to_width(title, ax.figure.bbox.x1 - 3 * ax.figure.dpi / 72,
                       lay_out_now(ax.figure))
-    _reference_labels(ax, values, own)
+    _reference_labels(ax, values, own, laid_out)
     return ax
 
 
-def _reference_labels(ax, values: list, own: bool) -> None:
+def _reference_labels(ax, values: list, own: bool, laid_out: bool = False) -> None:
     """Label the hypothesised exponents' lines on top, one label per line; labels that
     would touch are joined into one ("2/3, 3/4") centred over their lines, so no two
     labels overlap however close the exponents lie on the axis.
@@ -213,10 +214,11 @@ def _reference_labels(ax, values: list, own: bool) -> None:
                                  edgecolor="none"))
 
     texts = [draw(c) for c in clusters]
-    for _ in range(3):
+    for round_ in range(3):
         if len(texts) < 2:
             return
-        renderer = lay_out_now(ax.figure) if own else ax.figure.canvas.get_renderer()
+        renderer = (lay_out_now(ax.figure) if own and not (laid_out and round_ == 0)
+                    else ax.figure.canvas.get_renderer())
         joined = False
         while len(texts) > 1:
             boxes = [t.get_window_extent(renderer) for t in texts]
