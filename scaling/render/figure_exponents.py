@@ -9,14 +9,15 @@ from types import SimpleNamespace
 import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.text import Text
 from matplotlib.ticker import MaxNLocator
 
 from ..stats.line_results import ConfidenceInterval
 from ..stats.schema import method_label
 from .figure_inputs import common_slope_fit, drawn_primary, run_groups, run_methods, slopes_agree
 from .figure_style import (LEGEND_MAX_GROUPS, MARKERS, METHOD_MARKERS, METHOD_SHADES, PALETTE,
-                           SIZES, STYLE, agg_figure, figure_legend, group_digits, new_figure,
-                           styled)
+                           SIZES, STYLE, agg_figure, figure_legend, group_digits, lay_out_now,
+                           new_figure, spread_apart, styled, wrap_to_width)
 from .wording import exponent_label, plural as plural_of
 
 __all__ = ["plot_exponents", "make_exponents", "plot_group_exponents", "make_group_exponents",
@@ -111,9 +112,14 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         ax = agg_figure(figsize=(width, max(height, 1.8)), layout="constrained").add_subplot()
     k = len(methods)
     n_groups = len(run_groups(result))
+    title = None
     if n_groups > LEGEND_MAX_GROUPS:
-        ax.set_title(f"{n_groups} groups: per-group exponents not drawn "
-                     "(see fits.csv)", loc="left", fontsize=STYLE["font.size"] - 1)
+        spread = result.tables.get("exponent_spread")
+        where = ("the group_exponents figure and fits.csv"
+                 if spread is not None and len(spread) else "fits.csv")
+        title = ax.set_title(f"{group_digits(str(n_groups))} groups: per-group exponents "
+                             f"not drawn here (see {where})", loc="left",
+                             fontsize=STYLE["font.size"] - 1)
     offsets = (np.arange(k) - (k - 1) / 2) * (0.6 / max(k, 1))
     handles = []
     lows, highs = [], []
@@ -162,18 +168,8 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
         ax.set_xlim(lo_all - pad, hi_all + pad)
     # first row on top; at least one row's height when no fit is estimable
     ax.set_ylim(max(len(rows), 1) - 0.5, -0.5 - (0.55 if refs else 0))
-    span = np.diff(ax.get_xlim())[0]
-    placed: list = []
-    for name, value in sorted(refs, key=lambda kv: kv[1]):
+    for value in values:
         ax.axvline(value, color="#9a9a9a", lw=0.7, ls=(0, (3, 2)), zorder=0)
-        level = 0
-        while any(abs(value - v) < 0.12 * span and lvl == level for v, lvl in placed):
-            level += 1
-        placed.append((value, level))
-        text = exponent_label(value)
-        ax.text(value, -0.5 - 0.05 - 0.25 * level, text, ha="center", va="bottom",
-                fontsize=6.5, color="#4d4d4d", zorder=4,
-                bbox=dict(boxstyle="square,pad=0.1", facecolor="white", edgecolor="none"))
     ax.set_yticks(range(len(rows)))
     labels = ax.set_yticklabels([textwrap.fill(r[0], 22) for r in rows])
     if rows and rows[0][1] in ("common", "phylo_common"):   # the answer, first and in bold
@@ -191,7 +187,53 @@ def plot_exponents(result, *, ax=None, methods=None, size: str = "single"):
             figure_legend(ax.figure, handles, len(handles))
         else:
             ax.legend(handles=handles, loc="best")
+    laid_out = title is not None and own
+    if laid_out:   # wrapping moves only what is above the axes: one layout serves both
+        wrap_to_width(title, ax.figure.bbox.x1 - 3 * ax.figure.dpi / 72,
+                      lay_out_now(ax.figure))
+    _reference_labels(ax, values, own, laid_out)
     return ax
+
+
+def _reference_labels(ax, values: list, own: bool, laid_out: bool = False) -> None:
+    """Label the hypothesised exponents' lines on top, one label per line; labels that
+    would touch are joined into one ("2/3, 3/4") centred over their lines, so no two
+    labels overlap however close the exponents lie on the axis.
+
+    Widths are measured after the layout (``own`` figure): labels at the edges can
+    narrow the axes, so the layout and the check run again until nothing is joined.
+    """
+    clusters = [[v] for v in sorted(set(values))]
+    gap = 2 * ax.figure.dpi / 72   # 2 pt between labels
+
+    def draw(cluster):
+        return ax.text((cluster[0] + cluster[-1]) / 2, -0.5 - 0.05,
+                       ", ".join(exponent_label(v) for v in cluster), ha="center",
+                       va="bottom", fontsize=6.5, color="#4d4d4d", zorder=4,
+                       bbox=dict(boxstyle="square,pad=0.1", facecolor="white",
+                                 edgecolor="none"))
+
+    texts = [draw(c) for c in clusters]
+    for round_ in range(3):
+        if len(texts) < 2:
+            return
+        renderer = (lay_out_now(ax.figure) if own and not (laid_out and round_ == 0)
+                    else ax.figure.canvas.get_renderer())
+        joined = False
+        while len(texts) > 1:
+            boxes = [t.get_window_extent(renderer) for t in texts]
+            touching = [i for i in range(len(texts) - 1)
+                        if boxes[i].x1 + gap > boxes[i + 1].x0]
+            if not touching:
+                break
+            i = touching[0]   # join the leftmost pair that touches, then look again
+            texts[i].remove()
+            texts[i + 1].remove()
+            clusters[i:i + 2] = [clusters[i] + clusters[i + 1]]
+            texts[i:i + 2] = [draw(clusters[i])]
+            joined = True
+        if not joined:
+            return
 
 
 @styled
@@ -255,15 +297,9 @@ def plot_group_exponents(result, *, method: str | None = None, ax=None,
         order = np.argsort(-np.where(flagged, far, -np.inf))[:min(SPREAD_LABEL_MAX,
                                                                   int(flagged.sum()))]
         names = rows["group"].astype(str).to_numpy()
-        seen = {True: 0, False: 0}   # stagger the names on each side so they do not overlap
-        for i in order:
-            up = bool(b[i] > s["mean"])
-            j = seen[up]
-            seen[up] += 1
-            ax.annotate(names[i], (rank[i], b[i]), xytext=(-4, (-8 - 7 * j) if up else 3 + 7 * j),
-                        textcoords="offset points", fontsize=5.5, color="#333333",
-                        ha="right" if up else "left",
-                        arrowprops=dict(arrowstyle="-", lw=0.3, color="#999999"))
+        marks = [(names[i], rank[i], b[i], bool(b[i] > s["mean"])) for i in order]
+    else:
+        marks = []
     for name, value in result.config.exponents.items():
         ax.axhline(value, color="#555555", ls=":", lw=0.9)
         ax.annotate(f"{name} ({value:g})", (1, value), xycoords=("axes fraction", "data"),
@@ -273,7 +309,55 @@ def plot_group_exponents(result, *, method: str | None = None, ax=None,
                   f"{thousands_plain(int(flagged.sum()))} flagged: interval excludes the mean")
     ax.set_ylabel(f"{method.upper()} exponent")
     ax.legend(loc="upper left", fontsize=6, frameon=False)
+    _name_flagged(ax, marks)
     return ax
+
+
+def _name_flagged(ax, marks: list) -> None:
+    """Name flagged groups beside the ends of the ordered curve, with leader lines.
+
+    ``marks`` are (name, rank, exponent, above the mean).  Names of the low end
+    stand in a column right of and below their points, those of the high end
+    left of and above theirs -- the empty sides of a rising curve -- spread
+    apart vertically so no two touch, and kept inside the axes (clear of the
+    tick labels).  Positions are measured after the layout, in points from
+    each point, so they hold at any output resolution.
+    """
+    if not marks:
+        return
+    fig = ax.figure
+    renderer = lay_out_now(fig)
+    px = fig.dpi / 72   # display pixels per point
+    box = ax.get_window_extent(renderer)
+    to_display = ax.transData.transform
+    for up in (False, True):
+        side = sorted((m for m in marks if m[3] == up), key=lambda m: m[2])
+        if not side:
+            continue
+        texts = [ax.annotate(name, (r, v), xytext=(0, 0), textcoords="offset points",
+                             fontsize=5.5, color="#333333", va="center",
+                             ha="right" if up else "left",
+                             arrowprops=dict(arrowstyle="-", lw=0.3, color="#999999",
+                                             shrinkA=1, shrinkB=1))
+                 for name, r, v, _ in side]
+        extents = [Text.get_window_extent(t, renderer) for t in texts]   # not the leader
+        height = max(e.height for e in extents) + 1.0 * px
+        width = max(e.width for e in extents)
+        points = to_display([(r, v) for _, r, v, _ in side])
+        dx = 14 * px   # the column stands this far beside the outermost point
+        lo_y, hi_y = box.y0 + height / 2 + 1, box.y1 - height / 2 - 1
+        if up:   # stacked upward from the lowest named point, left of the end
+            x = min(points[:, 0].min() - dx, box.x1 - 2 * px)
+            x = max(x, box.x0 + width + 2 * px)
+            ys = spread_apart(np.full(len(side), points[:, 1].min() + height / 2), height,
+                              lo_y, hi_y)
+        else:    # stacked downward from the highest named point, right of the end
+            x = max(points[:, 0].max() + dx, box.x0 + 2 * px)
+            x = min(x, box.x1 - width - 2 * px)
+            top = points[:, 1].max() - height / 2
+            ys = spread_apart(top - height * np.arange(len(side))[::-1], height, lo_y, hi_y)
+        for t, (px_x, px_y), y in zip(texts, points, ys):
+            t.xyann = ((x - px_x) / px, (y - px_y) / px)
 
 
 def thousands_plain(n: int) -> str:

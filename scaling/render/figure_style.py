@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import functools
 import math
+import textwrap
 
 import matplotlib
 import numpy as np
@@ -329,3 +330,58 @@ def _lay_out(fig: Figure, engine, dpi: int) -> bool:
             pass
     return True
 
+
+
+# --------------------------------------------------------------------------
+# text that must fit: measured with the renderer that draws the figure
+
+
+def lay_out_now(fig: Figure):
+    """Run ``fig``'s layout engine (if any) now and return its renderer, so positions and
+    text extents can be measured before the figure is saved (the save lays it out again,
+    the same way, at the output resolution: text in points scales with the axes)."""
+    renderer = fig.canvas.get_renderer()
+    engine = fig.get_layout_engine()
+    if engine is not None and not isinstance(engine, PlaceHolderLayoutEngine) and fig.axes:
+        try:
+            engine.execute(fig)
+        except ValueError:   # as Figure.draw: the layout is then left as it is
+            pass
+    return renderer
+
+
+def wrap_to_width(artist, right: float, renderer) -> None:
+    """Re-wrap a text artist's words onto more lines until its right edge (display
+    pixels) lies left of ``right``; a single word wider than that stays as it is.
+    Only plain spaces break lines (a thin space inside "1 000" never does)."""
+    words = [w for w in artist.get_text().replace("\n", " ").split(" ") if w]
+    if artist.get_window_extent(renderer).x1 <= right or len(words) < 2:
+        return
+    width = len(" ".join(words))
+    while width > 1:
+        width -= 1
+        artist.set_text(textwrap.fill(" ".join(words), width, break_on_hyphens=False))
+        if artist.get_window_extent(renderer).x1 <= right:
+            return
+
+
+def spread_apart(centres, height: float, low: float, high: float) -> np.ndarray:
+    """Positions near ``centres`` (sorted ascending) at least ``height`` apart and within
+    ``low`` .. ``high`` where there is room (else from ``low`` upward).
+
+    One pass up pushes each position clear of the one below, one pass down pulls
+    them under ``high``, a last pass up keeps them above ``low``.
+    """
+    pos = np.asarray(centres, dtype=float).copy()
+    n = len(pos)
+    for i in range(1, n):
+        pos[i] = max(pos[i], pos[i - 1] + height)
+    if n:
+        pos[-1] = min(pos[-1], high)
+    for i in range(n - 2, -1, -1):
+        pos[i] = min(pos[i], pos[i + 1] - height)
+    if n:
+        pos[0] = max(pos[0], low)
+    for i in range(1, n):
+        pos[i] = max(pos[i], pos[i - 1] + height)
+    return pos
