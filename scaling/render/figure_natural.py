@@ -17,6 +17,7 @@ from ..stats.schema import method_label
 from .figure_inputs import axis_label, fit_xrange, run_groups, run_methods, scatter_groups
 from .headline import answer_line
 from .prediction_words import answer_primary, inverse_run, predicting_method
+from .wording import possessive
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE, STYLE,
                            arith_formatter, figure_legend, group_style, many_groups_handle,
                            new_figure, styled)
@@ -188,7 +189,7 @@ def _group_curves(ax, result, method, groups, correction, interval, *, small: bo
                                          gid="group-curves"))
     word = str(result.config.data.group or "group")
     return [Line2D([], [], color="#4d4d4d", lw=1.2, ls=METHOD_DASHES.get(method, "-"),
-                   label=f"each {word}'s own {method_label(method)} line")]
+                   label=f"each {possessive(word)} own {method_label(method)} line")]
 
 
 def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
@@ -401,7 +402,7 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
                  else "Median of y (the fitted line, no correction)")
         if own_lines:
             word = str(result.config.data.group or "group")
-            title += f", each {word}'s own line"
+            title += f", each {possessive(word)} own line"
         if inverse and preds is not None:
             lines = ", ".join(dict.fromkeys(method_label(m) for m in preds["method"]))
             title = (f"Given y read off each {word}'s {lines} line (medians of x)"

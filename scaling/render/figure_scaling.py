@@ -27,9 +27,9 @@ from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALE
                            PHYLO_COLOUR, STYLE, THIN, figure_legend, group_style, log_margins,
                            many_groups_handle, natural_log_axis, new_figure, plain_number,
                            scatter_coded, styled)
-from .plots import common_line, fit_band, plot_fit, unlog
+from .plots import common_line, plot_fit, unlog
 from .prediction_words import answer_primary, inverse_run
-from .wording import number_text, plural as plural_of
+from .wording import number_text, plural as plural_of, possessive
 
 __all__ = ["plot_scaling", "make_scaling", "equation_text", "common_slope_text"]
 
@@ -263,7 +263,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                                   ls=METHOD_DASHES.get(gmethod, "-"),
                                   label=(f"{method_label(gmethod)} common slope in each "
                                          f"{group_word}" if common is not None else
-                                         f"{method_label(gmethod)}, each {group_word}'s own "
+                                         f"{method_label(gmethod)}, each {possessive(group_word)} own "
                                          "line")))
 
     # main lines with bands; the equation box leads with the answer: the common

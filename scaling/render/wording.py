@@ -24,7 +24,7 @@ __all__ = [
     "group_residuals_reason", "range_words", "range_warning", "medians_vs_means",
     "dose_caution", "mechanism_caution", "mechanism_applies", "ancestry_caution", "curvature_ok",
     "units_share_ancestry", "dose_scaling_applies", "number_text", "interval_numbers",
-    "unit_text", "count_words",
+    "unit_text", "count_words", "possessive",
     "symmetric_prediction_note", "predicted_unit", "clean_timestamp", "units_line", "plural", "CAUTION",
     "EXACT_NOTE", "BOTH_SIGNS_NOTE", "verdict_phrase", "describe_test", "exponent_label",
     "p_text", "format_p", "calibrated_p_text", "p_floor", "at_floor", "slope_interval_text", "scope_words", "read_message", "dropped_note",
@@ -532,6 +532,11 @@ def unit_text(unit) -> str:
 def count_words(n: int, word: str) -> str:
     """A count with its noun in the right number ("1 row", "3 rows", "1 species")."""
     return f"{n} {word if n == 1 else plural(word)}"
+
+
+def possessive(word: str) -> str:
+    """A noun's possessive: "group's", "stock's", but "species'" (a noun ending in s)."""
+    return f"{word}'" if word.endswith("s") else f"{word}'s"
 
 
 def _who(row: int | None, label: str) -> str:
