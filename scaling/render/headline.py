@@ -290,8 +290,10 @@ def _test_index(slope_tests: pd.DataFrame | None) -> dict:
         return out
     keys = zip(slope_tests["scope"], slope_tests["method"],
                slope_tests["group"].fillna("").astype(str))
-    for key, rec in zip(keys, slope_tests.to_dict(orient="records")):
-        out.setdefault(key, []).append(rec)
+    # records from column lists: to_dict boxes every cell of an Arrow text column
+    columns = {c: slope_tests[c].tolist() for c in slope_tests.columns}
+    for key, values in zip(keys, zip(*columns.values())):
+        out.setdefault(key, []).append(dict(zip(columns, values)))
     return out
 
 
