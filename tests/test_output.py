@@ -153,6 +153,10 @@ class TestReportPreparedWhileFiguresAreDrawn:
         from helpers_figures import demo
         from scaling.render.report import prepare_report, write_report
         result = demo()
+        # no figure kinds: the report would draw each figure again for its page (no PNG
+        # is written here), which costs seconds and is not what this test is about
+        result = replace(result, config=replace(
+            result.config, figures=replace(result.config.figures, kinds=())))
         early = prepare_report(result)
         for name, res in (("same", result),   # the parts made early are used
                           ("noted", replace(result, warnings=result.warnings + ("a note",)))):
