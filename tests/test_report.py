@@ -303,3 +303,24 @@ class TestEscaping:
         assert re.fullmatch(r"\$-\$5\.\d+ to \$-\$(5\.|4\.9)\d+", cells[7])   # its interval
         assert "---" not in tex and not re.search(r"(?<![$-])-\d", row)   # no bare minus
         assert re.fullmatch(r"0\.\d+--0\.\d+", cells[5])          # positive: the en dash
+
+
+def test_a_cut_caption_table_names_the_files_that_hold_every_row():
+    # common practice, no source: a pointer to the full table names a file that exists
+    import pandas as pd
+    from scaling.render import report_parts
+    from scaling.render.report import _md_table
+    from scaling.render.report_parts import Block, Section
+    frame = pd.DataFrame({"group": [f"g{i}" for i in range(100)], "exponent": 0.75})
+    caption = Block(kind="table", frame=frame, name="SMA exponent of each group",
+                    csv="fits.csv (exponents) and slope_tests.csv (tests)")
+    named = Block(kind="table", frame=frame, name="group_means")
+    cut = report_parts._bounded([Section(title="Answer", blocks=[caption, named])])[0].blocks
+    notes = [b.text for b in cut if b.kind == "p"]
+    assert notes == [f"First {report_parts.TABLE_MAX_ROWS} of 100 rows shown; every row is in "
+                     "fits.csv (exponents) and slope_tests.csv (tests).",
+                     f"First {report_parts.TABLE_MAX_ROWS} of 100 rows shown; every row is in "
+                     "group_means.csv."]
+    assert _md_table(caption) == "*SMA exponent of each group*: 100 rows, in report.html."
+    assert _md_table(named) == ("*group\\_means*: 100 rows, in [group_means.csv](group_means.csv) "
+                                "(and in report.html).")

@@ -1,7 +1,9 @@
 
 
-def test_possessive_of_a_noun_ending_in_s_takes_only_the_apostrophe():
-    # common practice, no source: English possessive of a noun ending in s
+def test_possessive_takes_the_apostrophe_alone_for_plurals_and_species():
+    # Chicago Manual of Style, 17th ed., 7.17-7.19: 's for singular nouns (ending in s too);
+    # the apostrophe alone for plurals and nouns the same in both numbers
     from scaling.render.wording import possessive
-    assert [possessive(w) for w in ("group", "stock", "species", "plots")] == [
-        "group's", "stock's", "species'", "plots'"]
+    words = ("group", "stock", "species", "Species", "plots", "genus", "class", "series")
+    assert [possessive(w) for w in words] == [
+        "group's", "stock's", "species'", "Species'", "plots'", "genus's", "class's", "series'"]

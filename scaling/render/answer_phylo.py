@@ -27,7 +27,7 @@ import pandas as pd
 
 from ..stats.schema import method_label
 from .headline import answer_line, exponent_words, ordinary_rows
-from .wording import calibrated_p_text, plural as plural_of, verdict_phrase
+from .wording import possessive, calibrated_p_text, plural as plural_of, verdict_phrase
 
 __all__ = ["phylo_answer", "phylo_group_messages", "answer_model",
            "answer_points",
@@ -172,7 +172,7 @@ def phylo_answer(head, result):
             s1 = (f"Accounting for shared ancestry ({_lam_text(row, pct)}), the {plural}' "
                   f"{label} slopes differ ({calibrated_p_text(p_slope, how)}), so there is no "
                   "single phylogenetic exponent; each "
-                  f"{group_word}'s ordinary line is in the table below.")
+                  f"{possessive(group_word)} ordinary line is in the table below.")
             return replace(head, sentences=(s1,) + tuple(head.sentences))
         s1 = (f"Accounting for shared ancestry ({_lam_text(row, pct)}), the common "
               f"within-{group_word} {label} exponent is {_num(row['slope']):.3f} "

@@ -405,7 +405,7 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
             title += f", each {possessive(word)} own line"
         if inverse and preds is not None:
             lines = ", ".join(dict.fromkeys(method_label(m) for m in preds["method"]))
-            title = (f"Given y read off each {word}'s {lines} line (medians of x)"
+            title = (f"Given y read off each {possessive(word)} {lines} line (medians of x)"
                      if own_lines else f"Each given y read off the {lines} line (medians of x)")
         if zoom:
             title += (f"\nx up to its {NATURAL_ZOOM_QUANTILE:g}th percentile"

@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 from matplotlib.figure import Figure
 
+from .wording import possessive
 from .answer_several import partial_model
 from .figure_inputs import axis_label
 from .figure_style import LEGEND_MAX_GROUPS, group_style, natural_log_axis, new_figure
@@ -105,7 +106,7 @@ def _draw_groups(ax, result, model: str, j: int, others: list, means) -> tuple:
         if i < LEGEND_MAX_GROUPS:   # one entry per group: its marker on its line
             handles.append(dots if drawn is None else (dots, drawn))
             names.append(f"{g}: {b[j]:.3f}" if model == "group" and drawn is not None else g)
-    title = (f"each {word}'s own exponent" if model == "group" else
+    title = (f"each {possessive(word)} own exponent" if model == "group" else
              f"common exponent {comparison.slopes[j]:.3f}\n"
              f"({comparison.slope_low[j]:.3f}–{comparison.slope_high[j]:.3f}), "
              f"each {word}\nat its elevation")

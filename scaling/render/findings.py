@@ -12,7 +12,7 @@ import numpy as np
 
 from ..stats.schema import EXACT_LINE_NOTE, EXACT_NOTE, ROW_METHOD_NAMES, method_label
 from .headline import influence_sentence
-from .wording import (curvature_ok, diag_method, error_structure_words,
+from .wording import (possessive, curvature_ok, diag_method, error_structure_words,
                       estimate_outside_reason, format_p, group_residuals_reason,
                       influence_reason, p_text, smearing_reason, calibrated_p_text)
 
@@ -398,7 +398,7 @@ def diagnostics_messages(results: dict, es_results: dict, point_sets: dict, cfg,
                         f"{check_verdict(common.check('constant_variance'))}.")
         messages.append(_influence_words(common, point_sets, what, strong, methods))
     elif line == "groups":
-        what = f"each {g_word}'s own {label} line"
+        what = f"each {possessive(g_word)} own {label} line"
         mixes = "whose lines differ"
         messages += _groups_words(groups, what, group_word, dc.alpha)
         rows = sorted({r for d in groups.values() for r in d.influential_rows})

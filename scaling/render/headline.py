@@ -42,8 +42,8 @@ import numpy as np
 import pandas as pd
 
 from ..stats.schema import method_label
-from .wording import (at_floor, calibrated_p_text, format_p, plural as plural_of, slope_interval_text,
-                      verdict_phrase)
+from .wording import (at_floor, calibrated_p_text, format_p, plural as plural_of, possessive,
+                      slope_interval_text, verdict_phrase)
 
 __all__ = ["SYMMETRIC_ORDER", "Headline", "primary_method", "build_headline",
            "exponent_words", "answer_line", "influence_sentence"]
@@ -460,7 +460,7 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
             rows.append(rec)
         s1 = (f"The {plural} do not share one exponent: their {label} slopes differ "
               f"({p_words('slopes_equal')}), so each {group_word} has its own; the table below gives each "
-              f"{group_word}'s exponent and verdict.")
+              f"{possessive(group_word)} exponent and verdict.")
         out = [s1]
         pooled = _row(fits, "pooled", lead)
         if pooled is not None and np.isfinite(pooled["slope"]):

@@ -30,7 +30,7 @@ import re
 import pandas as pd
 
 from ..stats.schema import method_label
-from .wording import count_words, interval_numbers, number_text, plural, unit_text
+from .wording import possessive, count_words, interval_numbers, number_text, plural, unit_text
 
 __all__ = ["DOCS_INVERSE", "inverse_run", "predicting_method", "answer_primary",
            "inverse_sentence", "pooled_prediction_sentence", "group_prediction_sentence",
@@ -129,7 +129,7 @@ def group_prediction_sentence(table: pd.DataFrame, cfg, units: dict, method: str
     what = "medians" if correction == "none" else f"{correction}-corrected means"
     word = str(cfg.data.group or "group")
     return _group_values(rows, cfg, units, "x", "y", (
-        f"Predicted y{{unit}} (each {word}'s own {method_label(method)} line, {what}{{where}}; "
+        f"Predicted y{{unit}} (each {possessive(word)} own {method_label(method)} line, {what}{{where}}; "
         f"the {plural(word)}' slopes differ, so the pooled line, which mixes them, does not "
         "predict)"), "predictions.csv")
 
@@ -148,7 +148,7 @@ def group_inverse_sentence(table: pd.DataFrame, cfg, units: dict, method: str) -
         return ""
     word = str(cfg.data.group or "group")
     return _group_values(rows, cfg, units, "y", "x", (
-        f"Inverse prediction of x{{unit}} (each {word}'s own {method_label(method)} line "
+        f"Inverse prediction of x{{unit}} (each {possessive(word)} own {method_label(method)} line "
         f"solved for x, since the {plural(word)}' slopes differ and the pooled line mixes "
         "them; medians of x for the given y, with no back-transformation correction"
         "{where}; read the row of the specimen's own " + word + ")"),
@@ -263,12 +263,12 @@ def prediction_notes(cfg, tables: dict, units: dict, *, slopes_differ: bool = Fa
         n_pooled = int((table["scope"] == "pooled").sum())
         if n_pooled:
             where = "" if name == "predictions" else " of inverse_predictions.csv"
-            notes.append(f"The {plural(word)}' slopes differ: use each {word}'s own rows "
+            notes.append(f"The {plural(word)}' slopes differ: use each {possessive(word)} own rows "
                          f"(scope group{where}). The {count_words(n_pooled, 'row')} of scope "
                          f"pooled come from the pooled line, which mixes {plural(word)} whose "
                          "lines differ.")
         if name == "inverse_predictions" and (table["scope"] == "group").any():
-            notes.append(f"A given y carries no {word}: each y is read off every {word}'s own "
+            notes.append(f"A given y carries no {word}: each y is read off every {possessive(word)} own "
                          f"line and labelled with the {word}; use the row of the specimen's "
                          f"own {word} (the spread across {plural(word)} shows what the choice "
                          "does when it is uncertain).")

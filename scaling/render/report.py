@@ -615,10 +615,10 @@ MD_MAX_ROWS = 12
 def _md_table(block: Block) -> str:
     frame = block.frame
     if len(frame) > MD_MAX_ROWS:
-        where = (f"[{block.name}.csv]({block.name}.csv)" if re.fullmatch(r"\w+", block.name)
-                 else "report.html")
-        return (f"*{markdown_escape(block.name)}*: {len(frame)} rows, in {where} "
-                "(and in report.html).")
+        if re.fullmatch(r"\w+", block.name) and not block.csv:
+            return (f"*{markdown_escape(block.name)}*: {len(frame)} rows, in "
+                    f"[{block.name}.csv]({block.name}.csv) (and in report.html).")
+        return f"*{markdown_escape(block.name)}*: {len(frame)} rows, in report.html."
     cols = [str(c) for c in frame.columns]
     lines = ["| " + " | ".join(markdown_escape(c) for c in cols) + " |",
              "|" + "|".join("---:" if _is_num_column(frame[c]) else "---"

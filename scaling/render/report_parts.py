@@ -30,6 +30,8 @@ class Block:
     ``pre`` (text), ``links`` (items are relative paths), ``caution`` (text),
     ``details`` (items shown folded, ``text`` the summary line).
     ``highlight`` is a boolean per table row (e.g. extrapolated predictions).
+    ``csv``: the file(s) holding every row of a table whose ``name`` is a caption, not
+    a file name (default: ``{name}.csv``).
     """
 
     kind: str
@@ -40,6 +42,12 @@ class Block:
     path: str = ""
     highlight: tuple = ()
     name: str = ""
+    csv: str = ""
+
+    @property
+    def full_rows(self) -> str:
+        """Where every row of this table is: ``csv``, else the CSV named after it."""
+        return self.csv or f"{self.name or 'the'}.csv"
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -87,7 +95,8 @@ def _headline_section(head) -> Section:
     blocks = [Block(kind="p", text=" ".join(head.sentences))]
     if head.group_table is not None and len(head.group_table):
         blocks.append(Block(kind="table", frame=head.group_table,
-                            name=f"{method_label(head.primary)} exponent of each group"))
+                            name=f"{method_label(head.primary)} exponent of each group",
+                            csv="fits.csv (exponents) and slope_tests.csv (tests)"))
     return Section(title="Answer", blocks=blocks, anchor="answer")
 
 
@@ -111,7 +120,7 @@ def _bounded(sections: list) -> list:
                                    highlight=tuple(b.highlight[:TABLE_MAX_ROWS])))
                 blocks.append(Block(kind="p", text=(
                     f"First {TABLE_MAX_ROWS} of {len(b.frame):,} rows shown; every row is in "
-                    f"{b.name or 'the'}.csv.")))
+                    f"{b.full_rows}.")))
             elif b.kind == "details" and len(b.items) > ITEMS_MAX:
                 blocks.append(replace(b, items=tuple(b.items[:ITEMS_MAX]) + (
                     f"... {len(b.items) - ITEMS_MAX:,} more; see slope_tests.csv.",)))

@@ -39,7 +39,7 @@ _PARTIAL_LINES = {
     "common": ("; one line per {word}, each at its elevation, all with the common "
                "within-{word} exponent of {term} (points adjusted by the common exponents)"),
     "group": ("; one line per {word} with its own exponent of {term} (points adjusted by "
-              "their {word}'s own exponents)"),
+              "the exponents of their own {word})"),
 }
 
 

@@ -535,8 +535,14 @@ def count_words(n: int, word: str) -> str:
 
 
 def possessive(word: str) -> str:
-    """A noun's possessive: "group's", "stock's", but "species'" (a noun ending in s)."""
-    return f"{word}'" if word.endswith("s") else f"{word}'s"
+    """A noun's possessive: "group's", "genus's", "class's", but "species'" and
+    "plots'" (a word the same in both numbers, or a plural, takes the apostrophe only;
+    Chicago Manual of Style, 17th ed., 7.17-7.19)."""
+    low = word.lower()
+    if low.endswith(("species", "series")) or (low.endswith("s")
+                                               and not low.endswith(("ss", "us", "is"))):
+        return f"{word}'"
+    return f"{word}'s"
 
 
 def _who(row: int | None, label: str) -> str:
