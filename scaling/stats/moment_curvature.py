@@ -26,6 +26,7 @@ from scipy import stats
 
 from ..errors import DataError
 from .moments import Moments
+from .residual_checks import quadratic_solve
 
 __all__ = ["quadratic_from_moments", "within_quadratic_from_moments", "local_exponents"]
 
@@ -64,13 +65,7 @@ def quadratic_from_moments(m: Moments) -> dict:
     scc, scq, scy, sqy, syy = m.sxx, m.sxxx, m.sxy, m.sxxy, m.syy
     with np.errstate(divide="ignore", invalid="ignore"):
         sqq = m.sxxxx - scc * scc / n
-        det = scc * sqq - scq * scq
-        gc = (sqq * scy - scq * sqy) / det
-        gq = (scc * sqy - scq * scy) / det
-        s2 = np.maximum(syy - gc * scy - gq * sqy, 0.0) / (n - 3)
-        se = np.sqrt(s2 * scc / det)
-        t = gq / se
-        p = 2 * stats.t.sf(np.abs(t), n - 3)
+        gc, gq, se, t, p = quadratic_solve(scc, scq, sqq, scy, sqy, syy, n)
         b1 = gc - 2 * gq * m.mean_x
         b0 = m.mean_y - b1 * m.mean_x - gq * (m.mean_x * m.mean_x + scc / n)
     return {"intercept": b0, "linear": b1, "quadratic": gq, "quadratic_se": se,

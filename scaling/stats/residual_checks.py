@@ -295,20 +295,28 @@ def quadratic_t(log_x, log_y) -> dict:
     scy = np.sum(c * yc, axis=-1)
     sqy = np.sum(q * yc, axis=-1)
     syy = np.sum(yc * yc, axis=-1)
-    det = scc * sqq - scq * scq
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gc = (sqq * scy - scq * sqy) / det
-        gq = (scc * sqy - scq * scy) / det
-        s2 = np.maximum(syy - gc * scy - gq * sqy, 0.0) / (n - 3)
-        se = np.sqrt(s2 * scc / det)
-        t = gq / se
-    p = 2 * stats.t.sf(np.abs(t), n - 3)
+    gc, gq, se, t, p = quadratic_solve(scc, scq, sqq, scy, sqy, syy, n)
     mx = mx[..., 0]
     b2 = gq
     b1 = gc - 2 * gq * mx
     b0 = Y.mean(axis=-1) - b1 * X.mean(axis=-1) - b2 * np.mean(X * X, axis=-1)
     return {"intercept": b0, "linear": b1, "quadratic": b2, "quadratic_se": se,
             "statistic": t, "df": np.full(np.shape(t), float(n - 3)), "p_value": p}
+
+
+def quadratic_solve(scc, scq, sqq, scy, sqy, syy, n) -> tuple:
+    """``(g_c, g_q, se(g_q), t, p)`` of the quadratic term from centred sums (the 2 x 2
+    normal equations of :func:`quadratic_t`'s notes; t on n - 3 df).  Shared by the
+    row road and the moments road (:mod:`scaling.stats.moment_curvature`)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        det = scc * sqq - scq * scq
+        gc = (sqq * scy - scq * sqy) / det
+        gq = (scc * sqy - scq * scy) / det
+        s2 = np.maximum(syy - gc * scy - gq * sqy, 0.0) / (n - 3)
+        se = np.sqrt(s2 * scc / det)
+        t = gq / se
+        p = 2 * stats.t.sf(np.abs(t), n - 3)
+    return gc, gq, se, t, p
 
 
 # --------------------------------------------------------------------------
