@@ -41,9 +41,11 @@ def table(tmp_path_factory):
     return path
 
 
-def _run(path, *, large: bool, engine: str = "pandas"):
-    cfg = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "clade",
-                    "moments_above_mb": 1e-9 if large else 1e6, "chunk_size": 61},
+def _run(path, *, large: bool, engine: str = "pandas", chunk_size: int = 61, **data):
+    """The run of ``path`` in memory or (``large``) on the moments path; ``data``: more
+    ``data`` keys."""
+    cfg = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "clade", **data,
+                    "moments_above_mb": 1e-9 if large else 1e6, "chunk_size": chunk_size},
            "engine": engine, "model": {"methods": ["ols", "sma", "ma"]},
            "exponents": {"three_quarters": 0.75},
            "prediction": {"x": [1, 30, 5000], "y": [10, 100]},
@@ -203,14 +205,7 @@ def unit_table(tmp_path_factory):
 
 
 def _unit_run(path, *, large: bool, engine: str = "pandas"):
-    cfg = {"data": {"file": str(path), "x": "mass", "y": "rate", "group": "clade",
-                    "average_within": "species",
-                    "moments_above_mb": 1e-9 if large else 1e6, "chunk_size": 97},
-           "engine": engine, "model": {"methods": ["ols", "sma", "ma"]},
-           "exponents": {"three_quarters": 0.75},
-           "prediction": {"x": [1, 30, 5000], "y": [10, 100]},
-           "figures": {"formats": []}}
-    return run_config(cfg, write=False, quiet=True)
+    return _run(path, large=large, engine=engine, chunk_size=97, average_within="species")
 
 
 @pytest.fixture(scope="module")
