@@ -265,3 +265,22 @@ class TestRealCluster:
             res = _run(cfg, tmp / "cluster")
         assert res.manifest["large_data"]["scheduler"].startswith("tcp://")
         _same_answer_and_tables(*out["pandas"], res, tmp / "cluster")
+
+
+def test_a_mistyped_column_gets_the_same_line_on_every_road(tmp_path):
+    # common practice, no source: one error line whatever road the file takes
+    import pandas as pd
+    from scaling.errors import DataError
+    from scaling.run.pipeline import run_config
+    path = tmp_path / "t.csv"
+    pd.DataFrame({"mass": [1.0, 2.0, 4.0, 8.0], "rate": [1.0, 1.7, 2.9, 4.8]}).to_csv(
+        path, index=False)
+    said = []
+    for above in (1e6, 1e-9):   # in memory, then the moments path
+        cfg = {"data": {"file": str(path), "x": "mas", "y": "rate",
+                        "moments_above_mb": above}, "figures": {"formats": []}}
+        with pytest.raises(DataError) as err:
+            run_config(cfg, write=False, quiet=True)
+        said.append(str(err.value))
+    assert said[0] == said[1]
+    assert "did you mean 'mass'?" in said[0]

@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ConfigError, DataError
-from .tables import parse_numbers
+from .tables import missing_column_message, parse_numbers
 
 __all__ = ["ENGINES", "READERS", "CleanChunk", "check_chunk_size", "check_column",
            "check_reading", "file_kind", "files_of", "read_chunks", "frame_chunks",
@@ -83,8 +83,7 @@ class CleanChunk:
 def check_column(columns, name: str, key: str, where: str) -> None:
     """DataError naming the column, its config key and the columns there are."""
     if name not in columns:
-        shown = ", ".join(map(str, list(columns)[:12]))
-        raise DataError(f"{where}: column '{name}' ({key}) not found. Columns are: {shown}")
+        raise DataError(missing_column_message(name, key, columns, where))
 
 
 def check_chunk_size(chunk_size) -> int:

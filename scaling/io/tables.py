@@ -247,15 +247,22 @@ def _skip_rows_hint(cfg: DataConfig, path: Path) -> str:
     return ""
 
 
+def missing_column_message(name: str, key: str, columns, where, *, skip: str = "") -> str:
+    """The one line for a config key naming a column the file lacks: the closest
+    header name ("did you mean"; not beside a ``skip`` hint) and the columns there are.
+    Every road (whole table, chunks, Dask partitions) says it the same way."""
+    columns = [str(c) for c in columns]
+    close = difflib.get_close_matches(name, columns, n=1, cutoff=0.6)
+    hint = f"; did you mean '{close[0]}'?" if close and not skip else ""
+    head = f"{where}: column '{name}' ({key}) not found{hint}{skip}"
+    return f"{head}{' ' if head.endswith('?') else '. '}Columns are: {', '.join(columns[:12])}"
+
+
 def _column(table: pd.DataFrame, name: str, key: str, path: Path,
             cfg: DataConfig | None = None) -> pd.Series:
     if name not in table.columns:
         skip = _skip_rows_hint(cfg, path) if cfg is not None else ""
-        close = difflib.get_close_matches(name, list(table.columns), n=1, cutoff=0.6)
-        hint = f"; did you mean '{close[0]}'?" if close and not skip else ""
-        shown = ", ".join(list(table.columns)[:12])
-        head = f"{path}: column '{name}' ({key}) not found{hint}{skip}"
-        raise DataError(f"{head}{' ' if head.endswith('?') else '. '}Columns are: {shown}")
+        raise DataError(missing_column_message(name, key, table.columns, path, skip=skip))
     col = table[name]
     if isinstance(col, pd.DataFrame):
         raise DataError(f"{path}: column '{name}' ({key}) appears more than once in the header")
