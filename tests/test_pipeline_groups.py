@@ -62,6 +62,46 @@ class TestAnalyseManyGroups:
         assert len(analyse(cfg).tables["pairwise_tests"]) > 0
 
 
+class TestCalibrationFromConfig:
+    """``groups.calibration`` reaches the SMA/MA group tests and the common-slope rows."""
+
+    def test_chi2_gives_chi_square_p_values_and_the_common_rows_follow(self, tmp_path):
+        from scipy import stats
+        cfg = _config(tmp_path, _many_groups(4, 8), groups={"calibration": "chi2"},
+                      diagnostics={"enabled": False})
+        res = analyse(cfg)
+        tests = res.tables["group_tests"]
+        sym = tests[tests["method"].isin(["sma", "ma"])]
+        assert set(sym["p_method"]) == {"chi2"}
+        # reference: scipy.stats chi-square survival function of the reported statistic
+        assert_allclose(sym["p_value"], stats.chi2.sf(sym["statistic"], sym["df"]),
+                        rtol=1e-12, atol=1e-300)
+        fits = res.fits
+        for method in ("sma", "ma"):
+            row = fits[(fits["scope"] == "common") & (fits["method"] == method)].iloc[0]
+            test = sym[sym["method"] == method].iloc[0]
+            # internal consistency: fits.csv's common row is the group test's common slope
+            assert row["slope_low"] == pytest.approx(test["common_slope_low"], rel=1e-12)
+
+    def test_bootstrap_even_for_large_groups_and_auto_not(self, tmp_path):
+        table = _many_groups(3, 120)   # every group above the auto threshold of 100 points
+        auto = analyse(_config(tmp_path, table, diagnostics={"enabled": False}))
+        boot = analyse(_config(tmp_path, table, groups={"calibration": "bootstrap"},
+                               diagnostics={"enabled": False}))
+        methods = auto.tables["group_tests"].set_index(["method", "test"])["p_method"]
+        assert methods.loc["sma"].eq("chi2").all()
+        b = boot.tables["group_tests"].set_index(["method", "test"])
+        assert b.loc["sma", "p_method"].eq("parametric_bootstrap(999)").all()
+        # exact law of the bootstrap p-value (k + 1) / (B + 1) with B = 999: a multiple of 1/1000
+        k = b.loc["sma", "p_value"].to_numpy() * 1000
+        assert_allclose(k, np.round(k), atol=1e-9)
+
+    def test_mistyped_value_names_the_key(self, tmp_path):
+        from scaling.errors import ConfigError
+        with pytest.raises(ConfigError, match="groups.calibration"):
+            _config(tmp_path, _many_groups(3, 5), groups={"calibration": "bootsrap"})
+
+
 class TestAnalyseExactAndOnePointGroups:
     def test_exact_power_law_with_groups_runs(self, tmp_path):
         rng = np.random.default_rng(3)

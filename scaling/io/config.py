@@ -18,8 +18,8 @@ from typing import Any, Callable
 import yaml
 
 from ..stats.schema import (BOOT_INTERVALS, CATALOGUE, CORRECTIONS, FIGURE_FORMATS, FIGURE_KINDS,
-                            FIGURE_SIZES, INTERVALS, LOG_BASES, METHOD_NAMES, MOMENT_METHODS,
-                            DEFAULT_SEED, check_predictor_methods, fraction_value)
+                            FIGURE_SIZES, GROUP_CALIBRATIONS, INTERVALS, LOG_BASES, METHOD_NAMES,
+                            MOMENT_METHODS, DEFAULT_SEED, check_predictor_methods, fraction_value)
 from ..errors import ConfigError
 
 __all__ = [
@@ -556,6 +556,7 @@ _SCHEMA: dict[str, dict[str, tuple[Callable, Any]]] = {
         "fit_group_means": (_boolean, True),
         "weight_means": (_boolean, False),
         "pairwise_max": (lambda v, p: _int(v, p, minimum=2), 20),
+        "calibration": (_choice(GROUP_CALIBRATIONS), "auto"),
         "spread_min": (lambda v, p: _int(v, p, minimum=2), 20),
         "spread_tau2": (_choice(("reml", "dl")), "reml"),
         "spread_interval": (_choice(("knapp_hartung", "z", "knapp_hartung_plain")),
@@ -647,6 +648,7 @@ class GroupsConfig:
     fit_group_means: bool = _default("groups", "fit_group_means")
     weight_means: bool = _default("groups", "weight_means")
     pairwise_max: int = _default("groups", "pairwise_max")
+    calibration: str = _default("groups", "calibration")   # auto | chi2 | bootstrap (SMA/MA tests)
     spread_min: int = _default("groups", "spread_min")   # more groups: summary across groups
     spread_tau2: str = _default("groups", "spread_tau2")             # reml | dl
     spread_interval: str = _default("groups", "spread_interval")     # knapp_hartung | z | ...

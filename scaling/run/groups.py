@@ -184,6 +184,7 @@ def groups_from_moments(cfg, m, labels, *, base, n_rows=None, log_x_range=None,
                 comp = compare_group_moments(m, labels, method=method,
                                              confidence=cfg.model.confidence, log_base=base,
                                              pairwise_max=cfg.groups.pairwise_max,
+                                             calibration=cfg.groups.calibration,
                                              seed=cfg.resampling.seed,
                                              group_column="group", log_x_range=log_x_range)
             messages.append(comparison_summary(comp, list_pairs=False,

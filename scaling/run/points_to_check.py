@@ -373,7 +373,8 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
     out = []
     for k in order:
         comp = compare_groups(data.drop(index=data.index[k]), "x", "y", "group", method=method,
-                              confidence=cfg.model.confidence, log_base=base, pairwise_max=2)
+                              confidence=cfg.model.confidence, log_base=base, pairwise_max=2,
+                              calibration=cfg.groups.calibration, seed=cfg.resampling.seed)
         c = comp.common
         without = c.slope if c is not None else np.nan
         after = tuple(verdict_code(without, b0, c.test_slope(b0).p_value if c is not None

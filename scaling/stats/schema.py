@@ -250,6 +250,9 @@ CORRECTIONS = ("smearing", "parametric", "ratio", "none")
 INTERVALS = ("prediction", "confidence")
 #: Bootstrap interval kinds (resampling.interval).
 BOOT_INTERVALS = ("percentile", "bca")
+#: How the SMA/MA group tests are calibrated (groups.calibration): the parametric
+#: bootstrap when a compared group is small ("auto"), always, or the chi-square never.
+GROUP_CALIBRATIONS = ("auto", "chi2", "bootstrap")
 #: Log bases a config may name (model.log_base).
 LOG_BASES = ("10", "e", "2")
 #: The one default seed of every seeded computation: a run's ``resampling.seed``,
