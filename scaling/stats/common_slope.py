@@ -115,17 +115,22 @@ CALIBRATIONS = ("auto", "chi2", "bootstrap")
 # the vectorised core for SMA and MA: arrays of shape (M, G)
 
 
-def _profile_terms(method: str, x, loc, q, nu, order: int = 2):
-    """F, F' and F'' of the profile objective at x (shape (M,)), summed over groups."""
+def _profile_terms(method: str, x, loc, q, nu, order: int = 2, *, first: bool = True):
+    """F, F' and F'' of the profile objective at x (shape (M,)), summed over groups.
+
+    ``first=False`` leaves F' out (None in its place), for callers that read
+    only F and F''; every term is computed operation for operation as with it.
+    """
     if method == "sma":
         t = np.clip(x[:, None] - loc, -100.0, 100.0)
         sh = np.sinh(t)
         d = q + sh * sh
         terms = [np.log(d)]
         if order >= 1:
-            terms.append(np.sinh(2 * t) / d)
+            t2 = 2 * t
+            terms.append(np.sinh(t2) / d if first else None)
         if order >= 2:
-            terms.append((1.0 + np.cosh(2 * t) * (2 * q - 1)) / (d * d))
+            terms.append((1.0 + np.cosh(t2) * (2 * q - 1)) / (d * d))
     else:
         psi = x[:, None] - loc
         s = np.sin(psi)
@@ -133,29 +138,75 @@ def _profile_terms(method: str, x, loc, q, nu, order: int = 2):
         d = q + k * s * s
         terms = [np.log(d)]
         if order >= 1:
-            terms.append(k * np.sin(2 * psi) / d)
+            psi2 = 2 * psi
+            ks2 = k * np.sin(psi2)
+            terms.append(ks2 / d if first else None)
         if order >= 2:
-            terms.append((2 * k * np.cos(2 * psi) * d - (k * np.sin(2 * psi)) ** 2) / (d * d))
-    return [np.sum(nu * term, axis=-1) for term in terms]
+            terms.append((2 * k * np.cos(psi2) * d - ks2 ** 2) / (d * d))
+    return [None if term is None else np.sum(nu * term, axis=-1) for term in terms]
+
+
+def _profile_slopes(method: str, x, loc, q, nu):
+    """F' and F'' of the profile objective at x (shape (M,)): the terms of
+    :func:`_profile_terms` without F, which Newton steps do not read."""
+    if method == "sma":
+        t = np.clip(x[:, None] - loc, -100.0, 100.0)
+        sh = np.sinh(t)
+        d = q + sh * sh
+        t2 = 2 * t
+        g1 = np.sinh(t2) / d
+        g2 = (1.0 + np.cosh(t2) * (2 * q - 1)) / (d * d)
+    else:
+        psi = x[:, None] - loc
+        s = np.sin(psi)
+        k = 1.0 - q
+        d = q + k * s * s
+        psi2 = 2 * psi
+        ks2 = k * np.sin(psi2)
+        g1 = ks2 / d
+        g2 = (2 * k * np.cos(psi2) * d - ks2 ** 2) / (d * d)
+    return np.sum(nu * g1, axis=-1), np.sum(nu * g2, axis=-1)
 
 
 def _newton_bracketed(method, loc, q, nu, lo, hi, x0, *, iters: int = 80):
-    """Root of F' in [lo, hi] (F'(lo) <= 0 <= F'(hi)), Newton with bisection fallback."""
+    """Root of F' in [lo, hi] (F'(lo) <= 0 <= F'(hi)), Newton with bisection fallback.
+
+    All rows step together until every row has converged.  A row whose step
+    returns exactly its own x (not a bisection) stays there at every later
+    step, since the step reads only that row's x, and its bracket no longer
+    moves; such rows are set aside, so the rest step on smaller arrays and
+    every row ends where stepping all of them would leave it.
+    """
     x = x0.copy()
-    lo, hi = lo.copy(), hi.copy()
+    rows = None             # the rows still stepped (None: all of them)
+    xa, la, ha = x.copy(), lo.copy(), hi.copy()
+    L, Q, N = loc, q, np.broadcast_to(nu, np.shape(loc))
     for _ in range(iters):
-        _, g1, g2 = _profile_terms(method, x, loc, q, nu)
+        g1, g2 = _profile_slopes(method, xa, L, Q, N)
         neg = g1 < 0
-        lo = np.where(neg, x, lo)
-        hi = np.where(neg, hi, x)
+        la = np.where(neg, xa, la)
+        ha = np.where(neg, ha, xa)
         with np.errstate(divide="ignore", invalid="ignore"):
-            xn = x - g1 / g2
-        bad = ~(g2 > 0) | ~(xn >= lo) | ~(xn <= hi) | ~np.isfinite(xn)
-        xn = np.where(bad, 0.5 * (lo + hi), xn)
-        done = np.all(np.abs(xn - x) <= 1e-12 * (1.0 + np.abs(x)))
-        x = xn
+            xn = xa - g1 / g2
+        bad = ~(g2 > 0) | ~(xn >= la) | ~(xn <= ha) | ~np.isfinite(xn)
+        xn = np.where(bad, 0.5 * (la + ha), xn)
+        done = np.all(np.abs(xn - xa) <= 1e-12 * (1.0 + np.abs(xa)))
+        fixed = (xn == xa) & ~bad
+        xa = xn
         if done:
             break
+        n_fixed = int(np.count_nonzero(fixed))
+        if n_fixed and n_fixed * 8 >= xa.size:   # set aside when it shrinks the work
+            if rows is None:
+                rows = np.arange(xa.size)
+            x[rows[fixed]] = xa[fixed]
+            keep = ~fixed
+            rows = rows[keep]
+            xa, la, ha = xa[keep], la[keep], ha[keep]
+            L, Q, N = L[keep], Q[keep], N[keep]
+    if rows is None:
+        return xa
+    x[rows] = xa
     return x
 
 
@@ -211,7 +262,7 @@ def _grid_minimum(method, loc, q, nu, lo, hi, *, points: int = 361):
     # Golden section compares values of F, which are flat to rounding within about
     # sqrt(eps F / F'') of the minimum (1e-9 here); Newton steps on F' finish the job.
     for _ in range(3):
-        _, g1, g2 = _profile_terms(method, x, loc, q, nu)
+        g1, g2 = _profile_slopes(method, x, loc, q, nu)
         with np.errstate(divide="ignore", invalid="ignore"):
             dx = -g1 / g2
         x = np.where((g2 > 0) & np.isfinite(dx) & (np.abs(dx) <= step), x + dx, x)
@@ -261,7 +312,7 @@ def _fit_common(method: str, n, sxx, syy, sxy, *, exact: bool = False) -> dict:
         fx = _profile_terms(method, x, loc, q, nu, order=0)[0]
         fg = _profile_terms(method, xg, loc, q, nu, order=0)[0]
         x = np.where(fg < fx - 1e-10 * (1 + np.abs(fx)), xg, x)
-    fval, _, f2 = _profile_terms(method, x, loc, q, nu)
+    fval, _, f2 = _profile_terms(method, x, loc, q, nu, first=False)
     lr = fval - np.sum(nu * np.log(q), axis=-1)
     if method == "sma":
         b = sign * np.exp(x)
