@@ -169,3 +169,79 @@ class TestNewtonSetAside:
             assert short[1] is None
             assert np.array_equal(full[0], short[0]) and np.array_equal(full[2], short[2])
             assert np.array_equal(full[1], slopes[0]) and np.array_equal(full[2], slopes[1])
+
+
+class TestGridPruned:
+    """The pruned grid (values only where the minimum can be) picks the point of the full one."""
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    @pytest.mark.parametrize("case", ["tight groups far apart", "loose groups",
+                                      "one exact group", "two clusters"])
+    def test_same_argmin_and_value(self, method, case):
+        rng = np.random.default_rng(21)
+        G = 300
+        n = rng.integers(5, 200, G).astype(float)
+        sxx = rng.uniform(0.5, 3, G)
+        if case == "tight groups far apart":      # deep narrow wells: many local minima
+            slopes, r = rng.choice([0.3, 0.9, 2.5], G), np.full(G, 0.9999)
+        elif case == "loose groups":
+            slopes, r = rng.normal(0.75, 0.3, G), rng.uniform(0.1, 0.6, G)
+        elif case == "one exact group":
+            slopes, r = rng.normal(0.75, 0.05, G), rng.uniform(0.8, 0.99, G)
+            r[0] = 1.0
+        else:                                       # two equally deep clusters
+            slopes, r = np.where(np.arange(G) % 2 == 0, 0.5, 1.5), np.full(G, 0.99)
+        syy = sxx * slopes ** 2 / r ** 2
+        sxy = r * np.sqrt(sxx * syy) * np.sign(slopes)
+        loc, q, _, phi0 = cs._axis_params(method, sxx[None], syy[None], sxy[None])
+        nu = n[None] - 1.0
+        if method == "sma":
+            lo, hi = loc.min(-1), loc.max(-1)
+        else:
+            lo, hi = phi0 - np.pi / 2, phi0 + np.pi / 2
+        grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, 2001)
+        full = cs._grid_values(method, grid, loc, q, nu)
+        pruned = cs._grid_values_pruned(method, grid, loc, q, nu)
+        j = int(np.argmin(full))
+        assert int(np.argmin(pruned)) == j
+        assert pruned[0, j] == full[0, j]
+        seen = np.isfinite(pruned)
+        assert np.array_equal(pruned[seen], full[seen])   # every value it computes is exact
+
+
+class TestExclusionReasons:
+    def test_equals_the_group_by_group_rule(self):
+        from scaling.stats.group_means import _exclusion_reasons, _no_variation
+        from scaling.stats.lines import fit_notes
+        from scaling.stats.moments import Moments
+        from scaling.stats._group_common import EXACT_FIT_TOL
+
+        # too few, constant x, constant y, uncorrelated, exact line, usable, NaN sums
+        m = Moments(n=np.array([2.0, 5, 5, 5, 5, 5, 5]),
+                    mean_x=np.array([1.0, 2, 1, 1, 1, 1, 1]),
+                    mean_y=np.array([1.0, 1, 3, 1, 1, 1, 1]),
+                    sxx=np.array([1.0, 0, 1, 1, 1, 1, np.nan]),
+                    syy=np.array([1.0, 1, 0, 1, 4, 1, 1]),
+                    sxy=np.array([0.5, 0, 0, 0, 2, 0.5, 0.5]))
+        labels = list("abcdefg")
+        for method in ("ols", "sma", "ma"):
+            notes = fit_notes(m, method)
+            flat_x = _no_variation(m.n, m.mean_x, m.sxx)
+            flat_y = _no_variation(m.n, m.mean_y, m.syy)
+            want = []
+            for i in range(len(labels)):
+                if m.n[i] < 3:
+                    want.append(("too_few", ""))
+                elif flat_x[i]:
+                    want.append(("x_constant", ""))
+                elif flat_y[i]:
+                    want.append(("y_constant", ""))
+                elif notes[i]:
+                    want.append(("not_estimable", str(notes[i])))
+                elif method != "ols" and 1.0 - float(m.r[i]) ** 2 <= EXACT_FIT_TOL:
+                    want.append(("exact_line", ""))
+                else:
+                    want.append(("", ""))
+            assert _exclusion_reasons(m, labels, method, 3) == want
+            assert [w for w, _ in want][3:6] == (["not_estimable", "exact_line", ""]
+                                                 if method != "ols" else ["", "", ""])

@@ -738,9 +738,9 @@ def _compare(m: Moments, labels: tuple, log_x_range, *, method, group_column, co
                   log_base=base, calibration=calibration, n_boot=n_boot, seed=seed,
                   min_n=min_n,
                   excluded=excluded, groups=tuple(labels[i] for i in used),
-                  group_n=tuple(int(m.n[i]) for i in used),
-                  centroids=tuple((float(m.mean_x[i]), float(m.mean_y[i]), float(lo[i]),
-                                   float(hi[i])) for i in used))
+                  group_n=tuple(int(v) for v in np.asarray(m.n)[used].tolist()),
+                  centroids=tuple(zip(*(np.asarray(a, dtype=float)[used].tolist()
+                                        for a in (m.mean_x, m.mean_y, lo, hi)))))
     if len(used) < 2:
         return GroupComparison(
             **common, common_slope=math.nan,
