@@ -245,3 +245,63 @@ class TestExclusionReasons:
             assert _exclusion_reasons(m, labels, method, 3) == want
             assert [w for w, _ in want][3:6] == (["not_estimable", "exact_line", ""]
                                                  if method != "ols" else ["", "", ""])
+
+
+def _plain_terms(method, x, loc, q, nu, order=2):
+    """The profile objective's terms written as plain expressions."""
+    if method == "sma":
+        t = np.clip(x[:, None] - loc, -100.0, 100.0)
+        sh = np.sinh(t)
+        d = q + sh * sh
+        terms = [np.log(d)]
+        if order >= 1:
+            terms.append(np.sinh(2 * t) / d)
+        if order >= 2:
+            terms.append((1.0 + np.cosh(2 * t) * (2 * q - 1)) / (d * d))
+    else:
+        psi = x[:, None] - loc
+        s = np.sin(psi)
+        k = 1.0 - q
+        d = q + k * s * s
+        terms = [np.log(d)]
+        if order >= 1:
+            terms.append(k * np.sin(2 * psi) / d)
+        if order >= 2:
+            terms.append((2 * k * np.cos(2 * psi) * d - (k * np.sin(2 * psi)) ** 2) / (d * d))
+    return [np.sum(nu * term, axis=-1) for term in terms]
+
+
+class TestProfileTermsInPlace:
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    @pytest.mark.parametrize("order", [0, 1, 2])
+    def test_equal_the_plain_expressions(self, method, order):
+        rng = np.random.default_rng(13)
+        M, G = 40, 33
+        loc = rng.normal(0, 2, (M, G))
+        q = np.exp(rng.uniform(-700, 0, (M, G)))          # down to ~1e-300, as clipped
+        q[0, :3] = [1.0, 1e-300, 0.5]
+        nu = rng.integers(1, 500, (M, G)).astype(float)
+        x = rng.normal(0, 3, M)
+        x[1] = 250.0                                        # beyond the SMA clip
+        x[2] = np.nan
+        got = cs._profile_terms(method, x, loc, q, nu, order=order)
+        want = _plain_terms(method, x, loc, q, nu, order=order)
+        assert len(got) == len(want)
+        for g, w in zip(got, want):
+            assert np.array_equal(g, w, equal_nan=True)
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_broadcast_inputs_are_not_written(self, method):
+        # one dataset's groups broadcast against many x (the profile interval's grid)
+        rng = np.random.default_rng(14)
+        loc, q = rng.normal(0, 1, (1, 9)), rng.uniform(0.01, 1, (1, 9))
+        nu = np.full((1, 9), 7.0)
+        x = np.linspace(-1, 1, 25)
+        big = [np.broadcast_to(a, (25, 9)) for a in (loc, q, nu)]
+        keep = [a.copy() for a in (loc, q, nu)]
+        got = cs._profile_terms(method, x, *big, order=2)
+        want = _plain_terms(method, x, *big, order=2)
+        for g, w in zip(got, want):
+            assert np.array_equal(g, w)
+        for a, b in zip((loc, q, nu), keep):
+            assert np.array_equal(a, b)

@@ -119,53 +119,89 @@ def _profile_terms(method: str, x, loc, q, nu, order: int = 2, *, first: bool = 
     """F, F' and F'' of the profile objective at x (shape (M,)), summed over groups.
 
     ``first=False`` leaves F' out (None in its place), for callers that read
-    only F and F''; every term is computed operation for operation as with it.
+    only F and F''.
     """
-    if method == "sma":
-        t = np.clip(x[:, None] - loc, -100.0, 100.0)
-        sh = np.sinh(t)
-        d = q + sh * sh
-        terms = [np.log(d)]
-        if order >= 1:
-            t2 = 2 * t
-            terms.append(np.sinh(t2) / d if first else None)
-        if order >= 2:
-            terms.append((1.0 + np.cosh(t2) * (2 * q - 1)) / (d * d))
-    else:
-        psi = x[:, None] - loc
-        s = np.sin(psi)
-        k = 1.0 - q
-        d = q + k * s * s
-        terms = [np.log(d)]
-        if order >= 1:
-            psi2 = 2 * psi
-            ks2 = k * np.sin(psi2)
-            terms.append(ks2 / d if first else None)
-        if order >= 2:
-            terms.append((2 * k * np.cos(psi2) * d - ks2 ** 2) / (d * d))
-    return [None if term is None else np.sum(nu * term, axis=-1) for term in terms]
+    parts = _profile_parts(method, x, loc, q, nu, value=True, first=order >= 1 and first,
+                           second=order >= 2)
+    return parts[:order + 1]
 
 
 def _profile_slopes(method: str, x, loc, q, nu):
-    """F' and F'' of the profile objective at x (shape (M,)): the terms of
-    :func:`_profile_terms` without F, which Newton steps do not read."""
+    """F' and F'' of the profile objective at x (shape (M,)), without F (which
+    Newton steps do not read)."""
+    return tuple(_profile_parts(method, x, loc, q, nu, value=False)[1:])
+
+
+def _nu_sum(nu, term):
+    np.multiply(nu, term, out=term)
+    return np.sum(term, axis=-1)
+
+
+def _profile_parts(method: str, x, loc, q, nu, *, value: bool = True, first: bool = True,
+                   second: bool = True) -> list:
+    """[F, F', F''] at x (shape (M,)) summed over groups; None for a term not asked for.
+
+    Each group's terms are (SMA, t = clip(x - loc, -100, 100), d = q + sinh(t)^2)
+    log d, sinh(2t)/d and (1 + cosh(2t)(2q - 1))/d^2; (MA, psi = x - loc, k = 1 - q,
+    d = q + k sin(psi)^2) log d, k sin(2 psi)/d and (2k cos(2 psi) d - (k sin(2 psi))^2)/d^2,
+    each times nu.  They are computed in place in a few work arrays, operation for
+    operation as those expressions read (so to the same last bit).
+    """
+    t = np.subtract(x[:, None], loc)
+    shape = np.broadcast_shapes(t.shape, np.shape(q), np.shape(nu))
+    if t.shape != shape:
+        t = np.array(np.broadcast_to(t, shape))
+    out = [None, None, None]
     if method == "sma":
-        t = np.clip(x[:, None] - loc, -100.0, 100.0)
-        sh = np.sinh(t)
-        d = q + sh * sh
-        t2 = 2 * t
-        g1 = np.sinh(t2) / d
-        g2 = (1.0 + np.cosh(t2) * (2 * q - 1)) / (d * d)
-    else:
-        psi = x[:, None] - loc
-        s = np.sin(psi)
-        k = 1.0 - q
-        d = q + k * s * s
-        psi2 = 2 * psi
-        ks2 = k * np.sin(psi2)
-        g1 = ks2 / d
-        g2 = (2 * k * np.cos(psi2) * d - ks2 ** 2) / (d * d)
-    return np.sum(nu * g1, axis=-1), np.sum(nu * g2, axis=-1)
+        np.clip(t, -100.0, 100.0, out=t)
+        d = np.sinh(t)
+        np.multiply(d, d, out=d)
+        np.add(q, d, out=d)                       # d = q + sinh(t)^2
+        if value:
+            out[0] = _nu_sum(nu, np.log(d))
+        if not (first or second):
+            return out
+        np.multiply(t, 2, out=t)                  # 2t
+        c2 = np.cosh(t) if second else None
+        if first:
+            g1 = np.sinh(t, out=t)
+            np.divide(g1, d, out=g1)
+            out[1] = _nu_sum(nu, g1)
+        if second:
+            w = 2 * q
+            np.subtract(w, 1, out=w)
+            np.multiply(c2, w, out=c2)
+            np.add(c2, 1.0, out=c2)               # 1 + cosh(2t)(2q - 1)
+            np.multiply(d, d, out=d)
+            np.divide(c2, d, out=c2)
+            out[2] = _nu_sum(nu, c2)
+        return out
+    k = np.subtract(1.0, q)
+    s = np.sin(t)
+    d = np.multiply(k, s)
+    np.multiply(d, s, out=d)
+    np.add(q, d, out=d)                           # d = q + (k sin psi) sin psi
+    if value:
+        out[0] = _nu_sum(nu, np.log(d, out=s))
+    if not (first or second):
+        return out
+    np.multiply(t, 2, out=t)                      # 2 psi
+    ks2 = np.sin(t, out=s)
+    np.multiply(k, ks2, out=ks2)                  # k sin(2 psi)
+    if first:
+        g1 = np.divide(ks2, d)
+        out[1] = _nu_sum(nu, g1)
+    if second:
+        c2 = np.cos(t, out=t)
+        np.multiply(k, 2, out=k)
+        np.multiply(k, c2, out=c2)
+        np.multiply(c2, d, out=c2)                # 2k cos(2 psi) d
+        np.multiply(ks2, ks2, out=ks2)
+        np.subtract(c2, ks2, out=c2)
+        np.multiply(d, d, out=d)
+        np.divide(c2, d, out=c2)
+        out[2] = _nu_sum(nu, c2)
+    return out
 
 
 def _newton_bracketed(method, loc, q, nu, lo, hi, x0, *, iters: int = 80):
