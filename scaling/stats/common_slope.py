@@ -116,11 +116,8 @@ CALIBRATIONS = ("auto", "chi2", "bootstrap")
 
 
 def _profile_terms(method: str, x, loc, q, nu, order: int = 2, *, first: bool = True):
-    """F, F' and F'' of the profile objective at x (shape (M,)), summed over groups.
-
-    ``first=False`` leaves F' out (None in its place), for callers that read
-    only F and F''.
-    """
+    """F, F' and F'' of the profile objective at x (shape (M,)), summed over groups
+    (``first=False``: F' left out, None in its place)."""
     parts = _profile_parts(method, x, loc, q, nu, value=True, first=order >= 1 and first,
                            second=order >= 2)
     return parts[:order + 1]
@@ -141,12 +138,10 @@ def _profile_parts(method: str, x, loc, q, nu, *, value: bool = True, first: boo
                    second: bool = True) -> list:
     """[F, F', F''] at x (shape (M,)) summed over groups; None for a term not asked for.
 
-    Each group's terms are (SMA, t = clip(x - loc, -100, 100), d = q + sinh(t)^2)
-    log d, sinh(2t)/d and (1 + cosh(2t)(2q - 1))/d^2; (MA, psi = x - loc, k = 1 - q,
-    d = q + k sin(psi)^2) log d, k sin(2 psi)/d and (2k cos(2 psi) d - (k sin(2 psi))^2)/d^2,
-    each times nu.  They are computed in place in a few work arrays, operation for
-    operation as those expressions read (so to the same last bit).
-    """
+    Each group's terms, times nu: SMA (t = clip(x - loc, +-100), d = q + sinh(t)^2)
+    log d, sinh(2t)/d, (1 + cosh(2t)(2q - 1))/d^2; MA (psi = x - loc, k = 1 - q,
+    d = q + k sin(psi)^2) log d, k sin(2 psi)/d, (2k cos(2 psi) d - (k sin(2 psi))^2)/d^2;
+    computed in place, operation for operation as written (to the same last bit)."""
     t = np.subtract(x[:, None], loc)
     shape = np.broadcast_shapes(t.shape, np.shape(q), np.shape(nu))
     if t.shape != shape:
@@ -207,11 +202,9 @@ def _profile_parts(method: str, x, loc, q, nu, *, value: bool = True, first: boo
 def _newton_bracketed(method, loc, q, nu, lo, hi, x0, *, iters: int = 80):
     """Root of F' in [lo, hi] (F'(lo) <= 0 <= F'(hi)), Newton with bisection fallback.
 
-    All rows step together until every row has converged.  A row whose step
-    returns exactly its own x (not a bisection) stays there at every later
-    step, since the step reads only that row's x, and its bracket no longer
-    moves; such rows are set aside, so the rest step on smaller arrays and
-    every row ends where stepping all of them would leave it.
+    All rows step until every row has converged.  A row whose Newton step returns
+    exactly its own x stays there at every later step (the step reads only that
+    row's x) and is set aside, so every row ends where stepping all would leave it.
     """
     x = x0.copy()
     rows = None             # the rows still stepped (None: all of them)
@@ -291,14 +284,12 @@ def _grid_values_pruned(method, grid, loc, q, nu, *, stride: int = 16):
     """F at the points of ``grid`` (one row, P points) that can hold its smallest
     value, +inf at the others: the argmin of :func:`_grid_values`, for less work.
 
-    F is evaluated at every ``stride``-th point first.  Between two of them F
-    cannot fall faster than its Lipschitz bound L = sum nu_i max|f_i'| (SMA:
-    |f_i'| <= 2 + 1/sqrt(q_i), since q + sinh^2 u >= 2 sqrt(q) |sinh u|; MA:
-    |f_i'| <= sqrt((1 - q_i)/q_i), likewise), so a point whose lower bound
-    stays above the smallest value seen by more than rounding cannot be the
-    grid's minimum, and is not evaluated.  The points evaluated get the
-    values of :func:`_grid_values` to the last bit (each point's sum is its
-    own), so ``np.argmin`` picks the same point.
+    F is evaluated at every ``stride``-th point first.  Between two of them F cannot
+    fall faster than its Lipschitz bound L = sum nu_i max|f_i'| (SMA: |f_i'| <= 2 +
+    1/sqrt(q_i), as q + sinh^2 u >= 2 sqrt(q) |sinh u|; MA: sqrt((1 - q_i)/q_i)), so a
+    point whose bound stays above the smallest value seen by more than rounding is
+    not evaluated.  The others get the values of :func:`_grid_values` to the last bit
+    (each point's sum is its own), so ``np.argmin`` picks the same point.
     """
     P = grid.shape[1]
     coarse = np.arange(0, P, stride)
