@@ -290,8 +290,9 @@ def file_sha256(path: Path) -> str:
     return h.hexdigest()
 
 
-def manifest_header(cfg) -> dict:
-    """The first entries of every run's manifest: version, time, config, input hash."""
+def manifest_header(cfg, input_sha256: str | None = None) -> dict:
+    """The first entries of every run's manifest: version, time, config, input hash
+    (``input_sha256``: the hash when the caller has it already)."""
     path = Path(cfg.data.file)
     return {
         "scaling_version": __version__,
@@ -299,7 +300,8 @@ def manifest_header(cfg) -> dict:
         "config_file": str(cfg.source) if cfg.source else None,
         "config": json_safe(cfg.raw),
         "input_file": str(cfg.data.file),
-        "input_sha256": file_sha256(path) if path.is_file() else None,
+        "input_sha256": (input_sha256 if input_sha256 is not None
+                         else file_sha256(path) if path.is_file() else None),
         "versions": versions(),
     }
 

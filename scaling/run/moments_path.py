@@ -42,6 +42,7 @@ The plain-language sentences are small functions here (to move into
 from __future__ import annotations
 
 import warnings
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -53,6 +54,7 @@ from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ..stats.spread import SPREAD_COLUMNS, SPREAD_TEST_COLUMNS, spread_from_fits
 from ..io.tables import CleanData
 from ..io.chunked import file_kind, files_of
+from ..io.output import file_sha256
 from .table_moments import RowSpill, read_moments
 from ..stats.grouped_fits import fit_groups_from_moments
 from ..stats.lines import METHODS, method_label, parse_log_base
@@ -253,6 +255,10 @@ class MomentsStage:
         instead of parsing the file again (and then deletes); None with Dask
         (its partitions are read again) and with ``data.average_within`` (the
         second pass reads the unit means held in ``moments``).
+    input_sha256 : Future or None
+        The input file's SHA-256 for the manifest, computed in a thread while
+        the first pass parses (hashlib lets go of the interpreter lock); None
+        when ``data.file`` is not one file (a folder or glob).
     """
 
     config: object
@@ -267,6 +273,25 @@ class MomentsStage:
     moments: object = None   # the second pass (run/second_pass.py) reads them
     point_sets: dict = field(default_factory=dict)
     spill: RowSpill | None = None
+    input_sha256: Future | None = None
+
+    def input_hash(self) -> str | None:
+        """The input file's SHA-256 (waits for the thread computing it)."""
+        return None if self.input_sha256 is None else self.input_sha256.result()
+
+
+def _hash_in_thread(path: Path) -> Future | None:
+    """Start computing a plain file's SHA-256 in a thread (None for a folder or glob)."""
+    try:
+        if not path.is_file():
+            return None
+    except OSError:
+        return None
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="input-sha256")
+    try:
+        return pool.submit(file_sha256, path)
+    finally:
+        pool.shutdown(wait=False)   # the thread ends when the hash is done
 
 
 def moments_stage(cfg, reason: str) -> MomentsStage:
@@ -279,9 +304,10 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
     (:class:`~scaling.run.table_moments.RowSpill`).
     """
     d = cfg.data
+    digest = _hash_in_thread(Path(d.file))
     spill = RowSpill() if cfg.engine != "dask" and not d.average_within else None
     try:
-        return _moments_stage(cfg, reason, spill)
+        return replace(_moments_stage(cfg, reason, spill), input_sha256=digest)
     except BaseException:
         if spill is not None:
             spill.close()

@@ -261,7 +261,8 @@ def _moments_run(cfg, reason: str) -> RunResult:
                        line_fits=path.line_fits, tables={**path.tables, **spread.tables},
                        messages=path.messages + spread.messages,
                        warnings=path.notes + spread.notes,
-                       manifest={**manifest_header(cfg), **path.manifest})
+                       manifest={**manifest_header(cfg, path.input_hash()),
+                                 **path.manifest})
     # The second pass over the file: correction factors, residual checks, predictions.
     return with_second_pass(result, cfg, path.moments, path.data.units,
                             parse_log_base(cfg.model.log_base), point_sets=path.point_sets,

@@ -115,47 +115,127 @@ CALIBRATIONS = ("auto", "chi2", "bootstrap")
 # the vectorised core for SMA and MA: arrays of shape (M, G)
 
 
-def _profile_terms(method: str, x, loc, q, nu, order: int = 2):
-    """F, F' and F'' of the profile objective at x (shape (M,)), summed over groups."""
+def _profile_terms(method: str, x, loc, q, nu, order: int = 2, *, first: bool = True):
+    """F, F' and F'' of the profile objective at x (shape (M,)), summed over groups
+    (``first=False``: F' left out, None in its place)."""
+    parts = _profile_parts(method, x, loc, q, nu, value=True, first=order >= 1 and first,
+                           second=order >= 2)
+    return parts[:order + 1]
+
+
+def _profile_slopes(method: str, x, loc, q, nu):
+    """F' and F'' of the profile objective at x (shape (M,)), without F (which
+    Newton steps do not read)."""
+    return tuple(_profile_parts(method, x, loc, q, nu, value=False)[1:])
+
+
+def _nu_sum(nu, term):
+    np.multiply(nu, term, out=term)
+    return np.sum(term, axis=-1)
+
+
+def _profile_parts(method: str, x, loc, q, nu, *, value: bool = True, first: bool = True,
+                   second: bool = True) -> list:
+    """[F, F', F''] at x (shape (M,)) summed over groups; None for a term not asked for.
+
+    Each group's terms, times nu: SMA (t = clip(x - loc, +-100), d = q + sinh(t)^2)
+    log d, sinh(2t)/d, (1 + cosh(2t)(2q - 1))/d^2; MA (psi = x - loc, k = 1 - q,
+    d = q + k sin(psi)^2) log d, k sin(2 psi)/d, (2k cos(2 psi) d - (k sin(2 psi))^2)/d^2;
+    computed in place, operation for operation as written (to the same last bit)."""
+    t = np.subtract(x[:, None], loc)
+    shape = np.broadcast_shapes(t.shape, np.shape(q), np.shape(nu))
+    if t.shape != shape:
+        t = np.array(np.broadcast_to(t, shape))
+    out = [None, None, None]
     if method == "sma":
-        t = np.clip(x[:, None] - loc, -100.0, 100.0)
-        sh = np.sinh(t)
-        d = q + sh * sh
-        terms = [np.log(d)]
-        if order >= 1:
-            terms.append(np.sinh(2 * t) / d)
-        if order >= 2:
-            terms.append((1.0 + np.cosh(2 * t) * (2 * q - 1)) / (d * d))
-    else:
-        psi = x[:, None] - loc
-        s = np.sin(psi)
-        k = 1.0 - q
-        d = q + k * s * s
-        terms = [np.log(d)]
-        if order >= 1:
-            terms.append(k * np.sin(2 * psi) / d)
-        if order >= 2:
-            terms.append((2 * k * np.cos(2 * psi) * d - (k * np.sin(2 * psi)) ** 2) / (d * d))
-    return [np.sum(nu * term, axis=-1) for term in terms]
+        np.clip(t, -100.0, 100.0, out=t)
+        d = np.sinh(t)
+        np.multiply(d, d, out=d)
+        np.add(q, d, out=d)                       # d = q + sinh(t)^2
+        if value:
+            out[0] = _nu_sum(nu, np.log(d))
+        if not (first or second):
+            return out
+        np.multiply(t, 2, out=t)                  # 2t
+        c2 = np.cosh(t) if second else None
+        if first:
+            g1 = np.sinh(t, out=t)
+            np.divide(g1, d, out=g1)
+            out[1] = _nu_sum(nu, g1)
+        if second:
+            w = 2 * q
+            np.subtract(w, 1, out=w)
+            np.multiply(c2, w, out=c2)
+            np.add(c2, 1.0, out=c2)               # 1 + cosh(2t)(2q - 1)
+            np.multiply(d, d, out=d)
+            np.divide(c2, d, out=c2)
+            out[2] = _nu_sum(nu, c2)
+        return out
+    k = np.subtract(1.0, q)
+    s = np.sin(t)
+    d = np.multiply(k, s)
+    np.multiply(d, s, out=d)
+    np.add(q, d, out=d)                           # d = q + (k sin psi) sin psi
+    if value:
+        out[0] = _nu_sum(nu, np.log(d, out=s))
+    if not (first or second):
+        return out
+    np.multiply(t, 2, out=t)                      # 2 psi
+    ks2 = np.sin(t, out=s)
+    np.multiply(k, ks2, out=ks2)                  # k sin(2 psi)
+    if first:
+        g1 = np.divide(ks2, d)
+        out[1] = _nu_sum(nu, g1)
+    if second:
+        c2 = np.cos(t, out=t)
+        np.multiply(k, 2, out=k)
+        np.multiply(k, c2, out=c2)
+        np.multiply(c2, d, out=c2)                # 2k cos(2 psi) d
+        np.multiply(ks2, ks2, out=ks2)
+        np.subtract(c2, ks2, out=c2)
+        np.multiply(d, d, out=d)
+        np.divide(c2, d, out=c2)
+        out[2] = _nu_sum(nu, c2)
+    return out
 
 
 def _newton_bracketed(method, loc, q, nu, lo, hi, x0, *, iters: int = 80):
-    """Root of F' in [lo, hi] (F'(lo) <= 0 <= F'(hi)), Newton with bisection fallback."""
+    """Root of F' in [lo, hi] (F'(lo) <= 0 <= F'(hi)), Newton with bisection fallback.
+
+    All rows step until every row has converged.  A row whose Newton step returns
+    exactly its own x stays there at every later step (the step reads only that
+    row's x) and is set aside, so every row ends where stepping all would leave it.
+    """
     x = x0.copy()
-    lo, hi = lo.copy(), hi.copy()
+    rows = None             # the rows still stepped (None: all of them)
+    xa, la, ha = x.copy(), lo.copy(), hi.copy()
+    L, Q, N = loc, q, np.broadcast_to(nu, np.shape(loc))
     for _ in range(iters):
-        _, g1, g2 = _profile_terms(method, x, loc, q, nu)
+        g1, g2 = _profile_slopes(method, xa, L, Q, N)
         neg = g1 < 0
-        lo = np.where(neg, x, lo)
-        hi = np.where(neg, hi, x)
+        la = np.where(neg, xa, la)
+        ha = np.where(neg, ha, xa)
         with np.errstate(divide="ignore", invalid="ignore"):
-            xn = x - g1 / g2
-        bad = ~(g2 > 0) | ~(xn >= lo) | ~(xn <= hi) | ~np.isfinite(xn)
-        xn = np.where(bad, 0.5 * (lo + hi), xn)
-        done = np.all(np.abs(xn - x) <= 1e-12 * (1.0 + np.abs(x)))
-        x = xn
+            xn = xa - g1 / g2
+        bad = ~(g2 > 0) | ~(xn >= la) | ~(xn <= ha) | ~np.isfinite(xn)
+        xn = np.where(bad, 0.5 * (la + ha), xn)
+        done = np.all(np.abs(xn - xa) <= 1e-12 * (1.0 + np.abs(xa)))
+        fixed = (xn == xa) & ~bad
+        xa = xn
         if done:
             break
+        n_fixed = int(np.count_nonzero(fixed))
+        if n_fixed and n_fixed * 8 >= xa.size:   # set aside when it shrinks the work
+            if rows is None:
+                rows = np.arange(xa.size)
+            x[rows[fixed]] = xa[fixed]
+            keep = ~fixed
+            rows = rows[keep]
+            xa, la, ha = xa[keep], la[keep], ha[keep]
+            L, Q, N = L[keep], Q[keep], N[keep]
+    if rows is None:
+        return xa
+    x[rows] = xa
     return x
 
 
@@ -200,10 +280,59 @@ def _grid_values(method, grid, loc, q, nu, *, block: int = 2_000_000):
     return out
 
 
+def _grid_values_pruned(method, grid, loc, q, nu, *, stride: int = 16):
+    """F at the points of ``grid`` (one row, P points) that can hold its smallest
+    value, +inf at the others: the argmin of :func:`_grid_values`, for less work.
+
+    F is evaluated at every ``stride``-th point first.  Between two of them F cannot
+    fall faster than its Lipschitz bound L = sum nu_i max|f_i'| (SMA: |f_i'| <= 2 +
+    1/sqrt(q_i), as q + sinh^2 u >= 2 sqrt(q) |sinh u|; MA: sqrt((1 - q_i)/q_i)), so a
+    point whose bound stays above the smallest value seen by more than rounding is
+    not evaluated.  The others get the values of :func:`_grid_values` to the last bit
+    (each point's sum is its own), so ``np.argmin`` picks the same point.
+    """
+    P = grid.shape[1]
+    coarse = np.arange(0, P, stride)
+    if coarse[-1] != P - 1:
+        coarse = np.append(coarse, P - 1)
+    fc = _grid_values(method, grid[:, coarse], loc, q, nu)[0]
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        lip = 2.0 + 1.0 / np.sqrt(q) if method == "sma" else np.sqrt((1.0 - q) / q)
+        L = float(np.sum(nu * lip))
+        # rounding of each computed F: far below 1e-10 of the sum of its terms' sizes
+        # (|nu log d| <= nu max(|log q|, 200), d = q + sinh^2 with |u| <= 100), and
+        # of the bound's own arithmetic on the grid points
+        size = float(np.sum(nu * np.maximum(np.abs(np.log(q)), 200.0)))
+    g = grid[0]
+    slack = 1e-10 * size + 1e-12 * L * (1.0 + float(np.max(np.abs(g))))
+    if not (np.all(np.isfinite(fc)) and math.isfinite(L) and math.isfinite(slack)):
+        return _grid_values(method, grid, loc, q, nu)
+    points = np.arange(P)
+    right = np.searchsorted(coarse, points)          # first coarse point at or after
+    left = np.where(coarse[right] == points, right, right - 1)
+    with np.errstate(invalid="ignore"):
+        bound = np.maximum(fc[left] - L * (g - g[coarse[left]]),
+                           fc[right] - L * (g[coarse[right]] - g))
+    out = np.full(P, np.inf)
+    out[coarse] = fc
+    todo = np.flatnonzero(bound <= fc.min() + slack)
+    todo = todo[coarse[left[todo]] != todo]
+    if todo.size:
+        out[todo] = _grid_values(method, grid[:, todo], loc, q, nu)[0]
+    return out[None]
+
+
 def _grid_minimum(method, loc, q, nu, lo, hi, *, points: int = 361):
-    """Global minimum of F on [lo, hi] by a grid, then golden section nearby."""
+    """Global minimum of F on [lo, hi] by a grid, then golden section nearby.
+
+    One row of many groups (the observed data) evaluates the grid where its
+    minimum can be (:func:`_grid_values_pruned`); rows in parallel evaluate all of it.
+    """
     grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, points)
-    values = _grid_values(method, grid, loc, q, nu)
+    if grid.shape[0] == 1 and points >= 256 and loc.shape[-1] >= 64:
+        values = _grid_values_pruned(method, grid, loc, q, nu)
+    else:
+        values = _grid_values(method, grid, loc, q, nu)
     j = np.argmin(values, axis=1)
     step = (hi - lo) / (points - 1)
     centre = grid[np.arange(grid.shape[0]), j]
@@ -211,7 +340,7 @@ def _grid_minimum(method, loc, q, nu, lo, hi, *, points: int = 361):
     # Golden section compares values of F, which are flat to rounding within about
     # sqrt(eps F / F'') of the minimum (1e-9 here); Newton steps on F' finish the job.
     for _ in range(3):
-        _, g1, g2 = _profile_terms(method, x, loc, q, nu)
+        g1, g2 = _profile_slopes(method, x, loc, q, nu)
         with np.errstate(divide="ignore", invalid="ignore"):
             dx = -g1 / g2
         x = np.where((g2 > 0) & np.isfinite(dx) & (np.abs(dx) <= step), x + dx, x)
@@ -261,7 +390,7 @@ def _fit_common(method: str, n, sxx, syy, sxy, *, exact: bool = False) -> dict:
         fx = _profile_terms(method, x, loc, q, nu, order=0)[0]
         fg = _profile_terms(method, xg, loc, q, nu, order=0)[0]
         x = np.where(fg < fx - 1e-10 * (1 + np.abs(fx)), xg, x)
-    fval, _, f2 = _profile_terms(method, x, loc, q, nu)
+    fval, _, f2 = _profile_terms(method, x, loc, q, nu, first=False)
     lr = fval - np.sum(nu * np.log(q), axis=-1)
     if method == "sma":
         b = sign * np.exp(x)

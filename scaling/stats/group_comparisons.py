@@ -110,20 +110,30 @@ _PAIR_COLUMNS = tuple(PAIRWISE_COLUMNS)
 
 def _axis_scores(method, b, n, mx, my, sxx, syy, sxy):
     """Per-group residual/fitted axis variances and means at slope b (M,) -> (M, G)."""
+    sr2, sf2 = _axis_variances(method, b, n, sxx, syy, sxy)
+    rbar, fbar, c_f = _axis_means(method, b, mx, my)
+    return {"sr2": sr2, "sf2": sf2, "rbar": rbar, "fbar": fbar, "c_r": -mx, "c_f": c_f}
+
+
+def _axis_variances(method, b, n, sxx, syy, sxy):
+    """Residual- and fitted-axis variances Srr/nu, Sff/nu at slope b (M,) -> (M, G)."""
     nu = n - 1.0
     bb = b[:, None]
     srr = syy - 2 * bb * sxy + bb * bb * sxx
-    rbar = my - bb * mx
     if method == "sma":
         sff = syy + 2 * bb * sxy + bb * bb * sxx
-        fbar = my + bb * mx
-        c_f = mx
     else:
         sff = sxx + 2 * bb * sxy + bb * bb * syy
-        fbar = mx + bb * my
-        c_f = my
-    return {"sr2": srr / nu, "sf2": sff / nu, "rbar": rbar, "fbar": fbar,
-            "c_r": -mx, "c_f": c_f}
+    return srr / nu, sff / nu
+
+
+def _axis_means(method, b, mx, my):
+    """Residual- and fitted-axis means at slope b, and d fbar / d b (M,) -> (M, G)."""
+    bb = b[:, None]
+    rbar = my - bb * mx
+    if method == "sma":
+        return rbar, my + bb * mx, mx
+    return rbar, mx + bb * my, my
 
 
 def _wald_equal(theta, d, c, v):
@@ -148,20 +158,29 @@ def _wald_tests(method, fit, n, mx, my, sxx, syy, sxy):
 
 def _from_axis_coords(method, b, srr, srf, sff, rbar, fbar):
     """(r, f) sums and means back to (X, Y) for slope b (broadcasting)."""
+    return _sums_from_axis(method, b, srr, srf, sff) + _means_from_axis(method, b, rbar, fbar)
+
+
+def _sums_from_axis(method, b, srr, srf, sff):
+    """(r, f) centred sums back to Sxx, Syy, Sxy for slope b (broadcasting)."""
     if method == "sma":
         sxx = (sff - 2 * srf + srr) / (4 * b * b)
         syy = (srr + 2 * srf + sff) / 4
         sxy = (sff - srr) / (4 * b)
-        mx = (fbar - rbar) / (2 * b)
-        my = (rbar + fbar) / 2
     else:
         k = 1 + b * b
         sxx = (b * b * srr - 2 * b * srf + sff) / (k * k)
         syy = (srr + 2 * b * srf + b * b * sff) / (k * k)
         sxy = (-b * srr + (1 - b * b) * srf + b * sff) / (k * k)
-        mx = (fbar - b * rbar) / k
-        my = (rbar + b * fbar) / k
-    return sxx, syy, sxy, mx, my
+    return sxx, syy, sxy
+
+
+def _means_from_axis(method, b, rbar, fbar):
+    """(r, f) means back to the means of X and Y for slope b (broadcasting)."""
+    if method == "sma":
+        return (fbar - rbar) / (2 * b), (rbar + fbar) / 2
+    k = 1 + b * b
+    return (fbar - b * rbar) / k, (rbar + b * fbar) / k
 
 
 def _bootstrap_counts(method, n, fit, scores, observed, n_boot: int, rng, *,
@@ -183,31 +202,38 @@ def _bootstrap_counts(method, n, fit, scores, observed, n_boot: int, rng, *,
     r_pool = np.sum(wr * scores["rbar"], -1, keepdims=True) / np.sum(wr, -1, keepdims=True)
     f_pool = np.sum(wf * scores["fbar"], -1, keepdims=True) / np.sum(wf, -1, keepdims=True)
     b = fit["b"][:, None]
+    root_n = np.sqrt(n)
+    tol = 1e-9 * (1 + np.abs(observed))
     while done < n_boot:
         B = min(per, n_boot - done)
         size = (B, M, G)
         a11 = rng.chisquare(nu, size=size)
         a22 = rng.chisquare(nu - 1, size=size)
         a21 = rng.standard_normal(size)
-        z_r = rng.standard_normal(size) / np.sqrt(n)
-        z_f = rng.standard_normal(size) / np.sqrt(n)
+        z_r = rng.standard_normal(size) / root_n
+        z_f = rng.standard_normal(size) / root_n
         srr = scores["sr2"] * a11
         srf = sr * sf * np.sqrt(a11) * a21
         sff = scores["sf2"] * (a21 * a21 + a22)
         # null for elevation: common rbar; null for axis: common fbar
-        r_a, f_a = r_pool + sr * z_r, scores["fbar"] + sf * z_f
-        r_b, f_b = scores["rbar"] + sr * z_r, f_pool + sf * z_f
-        sxx, syy, sxy, mx_a, my_a = _from_axis_coords(method, b, srr, srf, sff, r_a, f_a)
-        _, _, _, mx_b, my_b = _from_axis_coords(method, b, srr, srf, sff, r_b, f_b)
+        e_r, e_f = sr * z_r, sf * z_f
+        r_a, f_a = r_pool + e_r, scores["fbar"] + e_f
+        r_b, f_b = scores["rbar"] + e_r, f_pool + e_f
+        sxx, syy, sxy = _sums_from_axis(method, b, srr, srf, sff)
+        mx_a, my_a = _means_from_axis(method, b, r_a, f_a)
+        mx_b, my_b = _means_from_axis(method, b, r_b, f_b)
         flat = lambda a: np.broadcast_to(a, size).reshape(B * M, G)  # noqa: E731
         nn = flat(n)
-        fit_b = _fit_common(method, nn, flat(sxx), flat(syy), flat(sxy))
-        w_int, _, _ = _wald_tests(method, fit_b, nn, flat(mx_a), flat(my_a),
-                                  flat(sxx), flat(syy), flat(sxy))
-        _, w_axis, _ = _wald_tests(method, fit_b, nn, flat(mx_b), flat(my_b),
-                                   flat(sxx), flat(syy), flat(sxy))
+        sxx, syy, sxy = flat(sxx), flat(syy), flat(sxy)
+        fit_b = _fit_common(method, nn, sxx, syy, sxy)
+        # each null's Wald statistic only (the sums, so the variances, are shared)
+        sr2_b, sf2_b = _axis_variances(method, fit_b["b"], nn, sxx, syy, sxy)
+        mx_a, my_a, mx_b, my_b = flat(mx_a), flat(my_a), flat(mx_b), flat(my_b)
+        rbar_a = _axis_means(method, fit_b["b"], mx_a, my_a)[0]
+        _, fbar_b, c_f = _axis_means(method, fit_b["b"], mx_b, my_b)
+        w_int = _wald_equal(rbar_a, sr2_b / nn, -mx_a, fit_b["var_b"])
+        w_axis = _wald_equal(fbar_b, sf2_b / nn, c_f, fit_b["var_b"])
         boot = np.stack([fit_b["lr"], w_int, w_axis], axis=-1).reshape(B, M, 3)
-        tol = 1e-9 * (1 + np.abs(observed))
         counts += np.sum(boot >= observed - tol, axis=0)
         # profile statistic F*(b_hat) - F*(b_hat*) at the slope the data were made with
         x_true = np.broadcast_to(fit["x"], (B, M)).reshape(B * M)
@@ -712,9 +738,9 @@ def _compare(m: Moments, labels: tuple, log_x_range, *, method, group_column, co
                   log_base=base, calibration=calibration, n_boot=n_boot, seed=seed,
                   min_n=min_n,
                   excluded=excluded, groups=tuple(labels[i] for i in used),
-                  group_n=tuple(int(m.n[i]) for i in used),
-                  centroids=tuple((float(m.mean_x[i]), float(m.mean_y[i]), float(lo[i]),
-                                   float(hi[i])) for i in used))
+                  group_n=tuple(int(v) for v in np.asarray(m.n)[used].tolist()),
+                  centroids=tuple(zip(*(np.asarray(a, dtype=float)[used].tolist()
+                                        for a in (m.mean_x, m.mean_y, lo, hi)))))
     if len(used) < 2:
         return GroupComparison(
             **common, common_slope=math.nan,

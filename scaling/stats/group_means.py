@@ -109,24 +109,25 @@ def _exclusion_reasons(m: Moments, labels, method: str, min_n: int) -> list:
     use exactly the same groups.
     """
     notes = fit_notes(m, method)
+    n = np.atleast_1d(np.asarray(m.n, dtype=float))
     flat_x = _no_variation(m.n, m.mean_x, m.sxx)
     flat_y = _no_variation(m.n, m.mean_y, m.syy)
-    r = m.r   # a property computed for every group: read it once, not once per group
-    reasons = []
-    for i in range(len(labels)):
-        if m.n[i] < min_n:
-            reasons.append(("too_few", ""))
-        elif flat_x[i]:
-            reasons.append(("x_constant", ""))
-        elif flat_y[i]:
-            reasons.append(("y_constant", ""))
-        elif notes[i]:
-            reasons.append(("not_estimable", str(notes[i])))
-        elif method != "ols" and 1.0 - float(r[i]) ** 2 <= EXACT_FIT_TOL:
-            reasons.append(("exact_line", ""))
-        else:
-            reasons.append(("", ""))
-    return reasons
+    has_note = np.array([bool(v) for v in np.atleast_1d(notes).tolist()], dtype=bool)
+    if method != "ols":
+        r = np.atleast_1d(np.asarray(m.r, dtype=float))
+        with np.errstate(invalid="ignore"):
+            exact = 1.0 - r ** 2 <= EXACT_FIT_TOL
+    else:
+        exact = np.zeros(n.shape, dtype=bool)
+    # the first reason that applies, in this order (array passes, not a loop over groups)
+    why = np.select([n < min_n, np.broadcast_to(flat_x, n.shape),
+                     np.broadcast_to(flat_y, n.shape), has_note, exact],
+                    ["too_few", "x_constant", "y_constant", "not_estimable", "exact_line"],
+                    default="").astype(object)
+    note = np.full(n.shape, "", dtype=object)
+    pick = why == "not_estimable"
+    note[pick] = [str(v) for v in np.atleast_1d(notes)[pick].tolist()]
+    return list(zip(why[:len(labels)].tolist(), note[:len(labels)].tolist()))
 
 
 def _compared_groups(m: Moments, labels, method: str, min_n: int):
