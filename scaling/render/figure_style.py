@@ -306,14 +306,24 @@ def save_figure(fig: Figure, target, fmt: str, dpi: int) -> None:
             "svg": {"Date": None}}.get(fmt, {})
     with matplotlib.rc_context(STYLE):
         engine = fig.get_layout_engine()
-        if fmt != "png" or not _lay_out(fig, engine, dpi):
+        laid_out = (isinstance(engine, PlaceHolderLayoutEngine)   # fixed by an earlier save
+                    or (fmt == "png" and _lay_out(fig, engine, dpi)))
+        if not laid_out:
             fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
             return
-        fig.set_layout_engine("none")   # laid out already, as savefig would do it
+        # Laid out already, as savefig would do it.  With no engine at all (the placeholder
+        # "none" leaves one) savefig also skips its drawing pass without output before the
+        # real one: every tick, text and collection handled once more for nothing.
+        with matplotlib.rc_context(_NO_LAYOUT):
+            fig.set_layout_engine(None)
         try:
             fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
         finally:
             fig.set_layout_engine(engine)
+
+
+#: ``set_layout_engine(None)`` falls back on these settings: off, so it leaves no engine.
+_NO_LAYOUT = {"figure.autolayout": False, "figure.constrained_layout.use": False}
 
 
 def _lay_out(fig: Figure, engine, dpi: int) -> bool:
