@@ -79,6 +79,10 @@ class TestScatterOfAThinnedSubset:
         for ca, cb in zip(a.collections, b.collections):
             np.testing.assert_array_equal(ca.get_offsets(), cb.get_offsets())
             np.testing.assert_array_equal(ca.get_facecolors(), cb.get_facecolors())
+        assert len(a.lines) == len(b.lines)   # many groups: markers of one colour each
+        for la, lb in zip(a.lines, b.lines):
+            np.testing.assert_array_equal(la.get_xydata(), lb.get_xydata())
+            assert la.get_markerfacecolor() == lb.get_markerfacecolor()
         assert [t.get_text() for t in a.texts] == [t.get_text() for t in b.texts] != []
 
     def test_no_subset_at_or_below_the_limit(self):
