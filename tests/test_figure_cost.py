@@ -136,3 +136,29 @@ class TestOneDrawPerFile:
         assert [str(p) for p in first] == [str(p) for p in second] != []
         for rel in first:
             assert (tmp_path / "a" / rel).read_bytes() == (tmp_path / "b" / rel).read_bytes()
+
+
+class TestRunObjectsLeftAlone:
+    def test_frozen_while_drawing_and_thawed_after(self, tmp_path, monkeypatch):
+        import gc
+
+        import scaling.render.figures as figs
+        seen = []
+        real = figs._draw_and_save
+        monkeypatch.setattr(figs, "_draw_and_save", lambda *a: (seen.append(gc.get_freeze_count()),
+                                                                 real(*a))[1])
+        assert gc.get_freeze_count() == 0
+        write_figures(with_figures(demo(), formats=("png",), kinds=("exponents",), dpi=50),
+                      tmp_path)
+        assert seen and seen[0] > 0   # the run's objects were set aside while drawing
+        assert gc.get_freeze_count() == 0
+
+    def test_a_caller_s_freeze_is_left_to_the_caller(self, tmp_path):
+        import gc
+        gc.freeze()
+        try:
+            write_figures(with_figures(demo(), formats=("png",), kinds=("exponents",), dpi=50),
+                          tmp_path)
+            assert gc.get_freeze_count() > 0   # not thawed by the figure writer
+        finally:
+            gc.unfreeze()
