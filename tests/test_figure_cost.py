@@ -138,6 +138,34 @@ class TestOneDrawPerFile:
             assert (tmp_path / "a" / rel).read_bytes() == (tmp_path / "b" / rel).read_bytes()
 
 
+class TestOpaquePng:
+    def test_an_opaque_figure_is_written_in_rgb_with_the_same_pixels(self):
+        from PIL import Image
+        fig = make_figure(demo(), "exponents")
+        ours, theirs = io.BytesIO(), io.BytesIO()
+        fs.save_figure(fig, ours, "png", 70)
+        with matplotlib.rc_context(fs.STYLE):
+            fig.savefig(theirs, format="png", dpi=70, metadata={"Software": None})
+        a, b = Image.open(ours), Image.open(theirs)
+        assert a.mode == "RGB" and a.info["dpi"] == b.info["dpi"]
+        np.testing.assert_array_equal(np.asarray(a.convert("RGBA")), np.asarray(b))
+        assert len(ours.getvalue()) < len(theirs.getvalue())
+
+    def test_a_see_through_figure_keeps_its_alpha(self):
+        from PIL import Image
+        fig = make_figure(demo(), "exponents")
+        fig.patch.set_alpha(0.0)
+        for ax in fig.axes:
+            ax.patch.set_alpha(0.0)
+        ours, theirs = io.BytesIO(), io.BytesIO()
+        fs.save_figure(fig, ours, "png", 70)
+        with matplotlib.rc_context(fs.STYLE):
+            fig.savefig(theirs, format="png", dpi=70, metadata={"Software": None})
+        a, b = Image.open(ours), Image.open(theirs)
+        assert a.mode == "RGBA"
+        np.testing.assert_array_equal(np.asarray(a), np.asarray(b))
+
+
 class TestRunObjectsLeftAlone:
     def test_frozen_while_drawing_and_thawed_after(self, tmp_path, monkeypatch):
         import gc
