@@ -190,3 +190,15 @@ class TestRunObjectsLeftAlone:
             assert gc.get_freeze_count() > 0   # not thawed by the figure writer
         finally:
             gc.unfreeze()
+
+
+def test_a_tight_bounding_box_is_left_to_savefig():
+    from PIL import Image
+    fig = make_figure(demo(), "exponents")
+    ours, theirs = io.BytesIO(), io.BytesIO()
+    with matplotlib.rc_context({"savefig.bbox": "tight"}):
+        fs.save_figure(fig, ours, "png", 50)
+        with matplotlib.rc_context(fs.STYLE):
+            fig.savefig(theirs, format="png", dpi=50, metadata={"Software": None})
+    assert Image.open(ours).size == Image.open(theirs).size
+    assert ours.getvalue() == theirs.getvalue()

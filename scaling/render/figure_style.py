@@ -382,7 +382,7 @@ def _save(fig: Figure, target, fmt: str, dpi: int, meta: dict) -> None:
     """``fig.savefig``; a PNG whose every pixel is opaque (a figure on its white ground)
     is written in RGB, not RGBA: the same picture, a tenth smaller, a third faster to
     compress.  Its file otherwise has what savefig writes (resolution; no text chunk)."""
-    if fmt != "png":
+    if fmt != "png" or matplotlib.rcParams["savefig.bbox"] == "tight":   # cropped: savefig
         fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
         return
     buf = io.BytesIO()
