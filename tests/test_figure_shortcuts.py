@@ -79,6 +79,10 @@ class TestScatterOfAThinnedSubset:
         for ca, cb in zip(a.collections, b.collections):
             np.testing.assert_array_equal(ca.get_offsets(), cb.get_offsets())
             np.testing.assert_array_equal(ca.get_facecolors(), cb.get_facecolors())
+        assert len(a.lines) == len(b.lines)   # many groups: markers of one colour each
+        for la, lb in zip(a.lines, b.lines):
+            np.testing.assert_array_equal(la.get_xydata(), lb.get_xydata())
+            assert la.get_markerfacecolor() == lb.get_markerfacecolor()
         assert [t.get_text() for t in a.texts] == [t.get_text() for t in b.texts] != []
 
     def test_no_subset_at_or_below_the_limit(self):
@@ -127,7 +131,8 @@ class TestGroupsFoundOnce:
 
 class TestPngLayout:
     @pytest.mark.parametrize("kind", ["scaling", "residuals", "exponents"])
-    def test_same_bytes_as_matplotlib_laying_out_in_savefig(self, kind):
+    def test_same_picture_as_matplotlib_laying_out_in_savefig(self, kind):
+        from PIL import Image
         from scaling.render.figures import make_figure
         result = demo()
         ours, theirs = io.BytesIO(), io.BytesIO()
@@ -135,7 +140,11 @@ class TestPngLayout:
         fig = make_figure(result, kind)
         with matplotlib.rc_context(fs.STYLE):   # savefig lays out inside a silent draw
             fig.savefig(theirs, format="png", dpi=120, metadata={"Software": None})
-        assert ours.getvalue() == theirs.getvalue()
+        a, b = Image.open(ours), Image.open(theirs)
+        # the same pixels (ours in RGB: every pixel of the figure is opaque) and resolution
+        assert (a.mode, b.mode) == ("RGB", "RGBA")
+        assert a.info.get("dpi") == b.info.get("dpi") and a.info.keys() == b.info.keys()
+        np.testing.assert_array_equal(np.asarray(a.convert("RGBA")), np.asarray(b))
 
     def test_layout_engine_is_given_back(self):
         from scaling.render.figures import make_figure

@@ -20,7 +20,7 @@ from .figure_style import scatter_coded
 from .headline import primary_method
 from .wording import unit_text
 
-__all__ = ["reuse_inputs", "run_base", "axis_label", "points_held", "run_groups", "group_sizes", "fitted_n",
+__all__ = ["reuse_inputs", "reused", "run_base", "axis_label", "points_held", "run_groups", "group_sizes", "fitted_n",
            "group_codes", "scatter_groups",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
@@ -44,7 +44,7 @@ def reuse_inputs():
         _MEMO = outer
 
 
-def _memo(key, held: tuple, compute):
+def reused(key, held: tuple, compute):
     """``compute()``, or its value kept for the same objects ``held`` (compared by identity;
     they are kept alive with the value, so an id is never reused while kept)."""
     if _MEMO is None:
@@ -98,7 +98,7 @@ def run_groups(result) -> list:
     """The groups of the run's points, sorted as text (empty without groups).
 
     A large-data run holds no points: its groups are those of its fits."""
-    return list(_memo(("groups", id(result)), (result,), lambda: _run_groups(result)))
+    return list(reused(("groups", id(result)), (result,), lambda: _run_groups(result)))
 
 
 def _run_groups(result) -> list:
@@ -137,7 +137,7 @@ def fitted_n(result) -> int:
 
 def group_codes(pts, groups: list) -> np.ndarray:
     """Index into the sorted ``groups`` of every point (one pass, not one per group)."""
-    return _memo(("codes", id(pts), tuple(groups)), (pts,), lambda: _group_codes(pts, groups))
+    return reused(("codes", id(pts), tuple(groups)), (pts,), lambda: _group_codes(pts, groups))
 
 
 def _group_codes(pts, groups: list) -> np.ndarray:

@@ -14,7 +14,8 @@ from matplotlib.ticker import FuncFormatter, MaxNLocator
 from ..stats.logscale import to_log
 from ..stats.predictions import predict, saved_factor
 from ..stats.schema import method_label
-from .figure_inputs import axis_label, fit_xrange, run_groups, run_methods, scatter_groups
+from .figure_inputs import (axis_label, fit_xrange, reused, run_groups, run_methods,
+                            scatter_groups)
 from .headline import answer_line
 from .prediction_words import answer_primary, inverse_run, predicting_method
 from .wording import possessive
@@ -163,18 +164,13 @@ def _group_curves(ax, result, method, groups, correction, interval, *, small: bo
     Up to :data:`LEGEND_MAX_GROUPS` groups each curve is its own artist (gid
     ``group-curve:<group>``); more are drawn as one collection (gid ``group-curves``).
     """
+    curves = reused(("group curves", id(result), method, correction, interval, tuple(groups)),
+                    (result,), lambda: _group_curve_points(result, method, groups, correction,
+                                                           interval))
     segments, colours = [], []
-    for i, g in enumerate(groups):
-        fit = result.line_fits.get(("group", g, method))
-        if fit is None or not getattr(fit, "estimable", True):
-            continue
-        lo, hi = fit_xrange(fit, result)
-        xs = np.linspace(lo, hi, 240)
-        xs[0], xs[-1] = lo, hi
-        y = _curve_y(fit, xs, correction, interval,
-                     _group_factor(result, g, method, correction))
+    for g, xs, y, colour in curves:
         segments.append(np.column_stack([xs, y]))
-        colours.append(group_style(i)[0])
+        colours.append(colour)
         xs_all.append(xs)
         ys_all.append(y)
         if len(groups) <= LEGEND_MAX_GROUPS:
@@ -190,6 +186,23 @@ def _group_curves(ax, result, method, groups, correction, interval, *, small: bo
     word = str(result.config.data.group or "group")
     return [Line2D([], [], color="#4d4d4d", lw=1.2, ls=METHOD_DASHES.get(method, "-"),
                    label=f"each {possessive(word)} own {method_label(method)} line")]
+
+
+def _group_curve_points(result, method, groups, correction, interval) -> list:
+    """``(group, x, corrected y, colour)`` of each group's own curve (see
+    :func:`_group_curves`; the zoomed panel and the full range draw the same curves)."""
+    out = []
+    for i, g in enumerate(groups):
+        fit = result.line_fits.get(("group", g, method))
+        if fit is None or not getattr(fit, "estimable", True):
+            continue
+        lo, hi = fit_xrange(fit, result)
+        xs = np.linspace(lo, hi, 240)
+        xs[0], xs[-1] = lo, hi
+        y = _curve_y(fit, xs, correction, interval,
+                     _group_factor(result, g, method, correction))
+        out.append((g, xs, y, group_style(i)[0]))
+    return out
 
 
 def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,

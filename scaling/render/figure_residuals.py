@@ -10,7 +10,7 @@ from matplotlib.ticker import MaxNLocator
 from scipy import stats
 
 from ..stats.schema import method_label
-from .figure_inputs import group_codes, run_groups, run_methods
+from .figure_inputs import group_codes, reused, run_groups, run_methods
 from .figure_style import (LEGEND_MAX_GROUPS, PAGE_HEIGHT, SIZES, STYLE, agg_figure,
                            figure_legend, group_style, many_groups_handle, new_figure,
                            scatter_coded, styled, thinned_index)
@@ -27,13 +27,32 @@ def _residuals(fit, X: np.ndarray, Y: np.ndarray) -> tuple:
     Wright, Falster & Westoby 2006, Biol. Rev. 81:259, section on
     checking assumptions).
     """
+    return _position(fit, X, Y), _residual(fit, X, Y)
+
+
+def _residual(fit, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
+    """Y - a - bX (see :func:`_residuals`)."""
+    return Y - fit.intercept - fit.slope * X
+
+
+def _position(fit, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
+    """Position along the line (see :func:`_residuals`)."""
     b, a = fit.slope, fit.intercept
-    resid = Y - a - b * X
     if fit.method == "sma":
-        return Y + b * X, resid
+        return Y + b * X
     if fit.method == "ma":
-        return X + b * Y, resid
-    return a + b * X, resid
+        return X + b * Y
+    return a + b * X
+
+
+def _point_residuals(fit, pts) -> tuple:
+    """(X, Y, residuals, largest absolute residual) of every point: within
+    :func:`~scaling.render.figure_inputs.reuse_inputs` found once for both panels of a fit."""
+    def compute():
+        X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
+        resid = _residual(fit, X, Y)
+        return X, Y, resid, float(np.max(np.abs(resid))) if resid.size else 0.0
+    return reused(("residuals", id(fit), id(pts)), (fit, pts), compute)
 
 
 _FITTED_LABEL = {"ols": "Fitted value (log scale)"}
@@ -84,21 +103,22 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ax.text(0.5, 0.5, f"{method_label(method)}: no estimable fit", ha="center",
                 va="center", transform=ax.transAxes)
         return ax
-    X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
-    pos, resid = _residuals(fit, X, Y)
+    X, Y, resid, largest = _point_residuals(fit, pts)
     groups = run_groups(result)
     codes = group_codes(pts, groups) if groups else np.zeros(len(pts), dtype=int)
+    n = resid.size
     if kind == "normal":
-        n = resid.size
         # quantiles of the drawn points only (a million ppf calls cost a quarter second)
         drawn = thinned_index(n)
         drawn = np.arange(n) if drawn is None else drawn
-        at = np.argsort(resid)[drawn]
+        order = np.argsort(resid)
+        ranked = resid[order]   # sorted: its quartiles are those of resid, found faster
+        at = order[drawn]
         q = _normal_quantiles(n, drawn)
-        scatter_coded(ax, q, resid[at], codes[at], len(groups), total=n, s=9,
+        scatter_coded(ax, q, ranked[drawn], codes[at], len(groups), total=n, s=9,
                        edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
         if n >= 4:
-            q1, q3 = np.percentile(resid, [25, 75])
+            q1, q3 = np.percentile(ranked, [25, 75])
             z1, z3 = stats.norm.ppf([0.25, 0.75])
             slope = (q3 - q1) / (z3 - z1)
             zz = _normal_quantiles(n, [0, n - 1])   # the smallest and largest
@@ -108,14 +128,18 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ax.set_title(f"{method_label(method)}: normality", loc="left",
                      fontsize=STYLE["font.size"] - 0.5)
     else:
-        scatter_coded(ax, pos, resid, codes, len(groups), s=9, edgecolor="white",
-                       linewidth=0.3, alpha=0.85, zorder=2)
+        # positions of the drawn points only
+        drawn = thinned_index(n)
+        drawn = slice(None) if drawn is None else drawn
+        scatter_coded(ax, _position(fit, X[drawn], Y[drawn]), resid[drawn], codes[drawn],
+                       len(groups), total=n, s=9, edgecolor="white", linewidth=0.3,
+                       alpha=0.85, zorder=2)
         ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
         ax.set_xlabel(_FITTED_LABEL.get(method, _POSITION_LABEL))
         ax.set_ylabel("Residual (log scale)")
         ax.set_title(f"{method_label(method)}: residuals", loc="left",
                      fontsize=STYLE["font.size"] - 0.5)
-    lim = float(np.max(np.abs(resid))) * 1.15 if resid.size else 1.0
+    lim = largest * 1.15 if resid.size else 1.0
     if not lim > 0:   # perfect fit: all residuals zero
         lim = 1.0
     ax.set_ylim(-lim, lim)

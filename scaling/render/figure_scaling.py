@@ -26,7 +26,7 @@ from .figure_inputs import (axis_label, common_slope_fit, drawn_primary, factor_
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE,
                            PHYLO_COLOUR, STYLE, THIN, figure_legend, group_style, log_margins,
                            many_groups_handle, natural_log_axis, new_figure, plain_number,
-                           scatter_coded, styled)
+                           scatter_by_colour, scatter_coded, styled)
 from .plots import common_line, plot_fit, unlog
 from .prediction_words import answer_primary, inverse_run
 from .wording import number_text, plural as plural_of, possessive
@@ -208,10 +208,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                 # (large symbols of hundreds of means would hide the data and each other)
                 ax.errorbar(mx, my, xerr=xerr, yerr=yerr, fmt="none", ecolor="black",
                             elinewidth=0.4, capsize=0, zorder=5, alpha=0.6)
-                order = np.random.default_rng(2).permutation(idx.size)
-                colours = np.asarray(PALETTE, dtype=object)[idx[order] % len(PALETTE)]
-                ax.scatter(mx[order], my[order], s=14, marker="o", facecolor=list(colours),
-                           edgecolor="black", linewidth=0.5, zorder=6)
+                scatter_by_colour(ax, mx, my, idx % len(PALETTE), seed=2, s=14,
+                                  edgecolor="black", linewidth=0.5, zorder=6)
             handles.append(Line2D([], [], ls="none", marker="o", markerfacecolor="white",
                                   markeredgecolor="black", markersize=6,
                                   label="group mean ± 1 SE"))

@@ -15,6 +15,7 @@ SVG text left as ``<text>``).  Nothing here uses pyplot state.
 from __future__ import annotations
 
 import functools
+import io
 import math
 import textwrap
 
@@ -26,13 +27,15 @@ from matplotlib.figure import Figure
 from matplotlib.layout_engine import PlaceHolderLayoutEngine
 from matplotlib.lines import Line2D
 from matplotlib.ticker import Formatter, LogLocator, NullFormatter
+from PIL import Image
+from PIL.PngImagePlugin import PngInfo
 
 from ..stats.schema import CATALOGUE
 
 __all__ = ["STYLE", "PALETTE", "MARKERS", "SIZES", "METHOD_DASHES", "METHOD_SHADES",
            "METHOD_MARKERS", "PHYLO_COLOUR", "LEGEND_MAX_GROUPS", "MAX_DRAWN_POINTS",
            "format_natural", "NaturalLogFormatter", "natural_log_axis", "styled",
-           "save_figure", "thinned_index"]
+           "save_figure", "thinned_index", "scatter_by_colour"]
 
 # Okabe & Ito (2008) colour-blind-safe palette (yellow last: weak on white).
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
@@ -235,8 +238,8 @@ def thinned_index(n: int):
 def scatter_coded(ax, x, y, codes, n_groups: int, *, total: int | None = None,
                   **kwargs) -> None:
     """Scatter with group ``codes``: one artist per group present, or, above
-    :data:`LEGEND_MAX_GROUPS` groups, one artist with a colour per point, drawn in a
-    seeded random order (so no group's colour always lies on top).
+    :data:`LEGEND_MAX_GROUPS` groups, the points by colour in a seeded random order
+    (:func:`scatter_by_colour`: no group's colour always lies on top).
 
     Above :data:`MAX_DRAWN_POINTS` points the subset :func:`thinned_index` is drawn,
     and a note on the axes says so.  ``total``: the arrays are that subset already of
@@ -261,9 +264,62 @@ def scatter_coded(ax, x, y, codes, n_groups: int, *, total: int | None = None,
             sel = codes == c
             ax.scatter(x[sel], y[sel], marker=marker, facecolor=colour, **kwargs)
         return
-    order = np.random.default_rng(1).permutation(len(x))
-    colours = np.asarray(PALETTE, dtype=object)[codes[order] % len(PALETTE)]
-    ax.scatter(x[order], y[order], marker="o", facecolor=list(colours), **kwargs)
+    scatter_by_colour(ax, x, y, codes % len(PALETTE), seed=1, **kwargs)
+
+
+#: A scatter of many colours draws this share of its points (the last in its random order)
+#: one by one on top, and the others by colour (see :func:`scatter_by_colour`).
+SCATTER_TOP_SHARE = 0.2
+#: ... the others in this many rounds.
+SCATTER_ROUNDS = 2
+
+
+def scatter_by_colour(ax, x, y, colours, *, seed: int, s: float | None = None,
+                      edgecolor="face", linewidth: float | None = None, alpha: float = 1.0,
+                      zorder: float = 2) -> list:
+    """Round markers coloured ``PALETTE[colours]``, drawn in a seeded random order so that
+    no colour lies always on top; returns the artists.  ``s``, ``edgecolor``,
+    ``linewidth``, ``alpha``, ``zorder`` as for ``ax.scatter``.
+
+    Where points pile up only the last drawn show: the last
+    :data:`SCATTER_TOP_SHARE` of the random order are drawn one by one (one scatter with
+    a colour per point).  The points under them are dealt into
+    :data:`SCATTER_ROUNDS` rounds, each drawn as one artist per colour in a random
+    order of the colours: an artist of one colour is stamped by the renderer
+    (``draw_markers``), while a colour per point goes through Agg's path collections,
+    several times slower.
+    """
+    x, y, colours = np.asarray(x), np.asarray(y), np.asarray(colours)
+    rng = np.random.default_rng(seed)
+    order = rng.permutation(len(x))
+    split = len(order) - int(math.ceil(SCATTER_TOP_SHARE * len(order)))
+    if s is None:   # ax.scatter's defaults
+        s = matplotlib.rcParams["lines.markersize"] ** 2
+    if linewidth is None:
+        linewidth = matplotlib.rcParams["lines.linewidth"]
+    size = math.sqrt(s)   # scatter sizes are areas in pt², markers are diameters in pt
+    artists = []
+    for part in np.array_split(order[:split], SCATTER_ROUNDS):
+        in_part = colours[part]
+        for colour in rng.permutation(len(PALETTE)):
+            sel = part[in_part == colour]
+            if not sel.size:
+                continue
+            # ax.plot, not ax.scatter: a line of markers is cheaper to make and draw;
+            # its colour is given so the axes' colour cycle is left as it is
+            artists += ax.plot(x[sel], y[sel], ls="none", marker="o", markersize=size,
+                               color=PALETTE[colour], markerfacecolor=PALETTE[colour],
+                               markeredgecolor=(PALETTE[colour] if str(edgecolor) == "face"
+                                                else edgecolor),
+                               markeredgewidth=linewidth,
+                               alpha=alpha, zorder=zorder, gid="points")
+    top = order[split:]
+    if top.size:
+        shades = np.asarray(PALETTE, dtype=object)[colours[top]]
+        artists.append(ax.scatter(x[top], y[top], s=s, marker="o", facecolor=list(shades),
+                                  edgecolor=edgecolor, linewidth=linewidth, alpha=alpha,
+                                  zorder=zorder, gid="points"))
+    return artists
 
 
 def many_groups_handle(n_groups: int):
@@ -306,14 +362,48 @@ def save_figure(fig: Figure, target, fmt: str, dpi: int) -> None:
             "svg": {"Date": None}}.get(fmt, {})
     with matplotlib.rc_context(STYLE):
         engine = fig.get_layout_engine()
-        if fmt != "png" or not _lay_out(fig, engine, dpi):
-            fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+        laid_out = (isinstance(engine, PlaceHolderLayoutEngine)   # fixed by an earlier save
+                    or (fmt == "png" and _lay_out(fig, engine, dpi)))
+        if not laid_out:
+            _save(fig, target, fmt, dpi, meta)
             return
-        fig.set_layout_engine("none")   # laid out already, as savefig would do it
+        # Laid out already, as savefig would do it.  With no engine at all (the placeholder
+        # "none" leaves one) savefig also skips its drawing pass without output before the
+        # real one: every tick, text and collection handled once more for nothing.
+        with matplotlib.rc_context(_NO_LAYOUT):
+            fig.set_layout_engine(None)
         try:
-            fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+            _save(fig, target, fmt, dpi, meta)
         finally:
             fig.set_layout_engine(engine)
+
+
+def _save(fig: Figure, target, fmt: str, dpi: int, meta: dict) -> None:
+    """``fig.savefig``; a PNG whose every pixel is opaque (a figure on its white ground)
+    is written in RGB, not RGBA: the same picture, a tenth smaller, a third faster to
+    compress.  Its file otherwise has what savefig writes (resolution; no text chunk)."""
+    if fmt != "png" or matplotlib.rcParams["savefig.bbox"] == "tight":   # cropped: savefig
+        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+        return
+    buf = io.BytesIO()
+    fig.savefig(buf, format="rgba", dpi=dpi)   # the pixels savefig's PNG would hold
+    raw = buf.getbuffer()
+    width = int(fig.get_figwidth() * dpi)
+    if not width or len(raw) % (4 * width):   # not the size expected: let savefig write it
+        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+        return
+    image = Image.frombuffer("RGBA", (width, len(raw) // (4 * width)), raw, "raw", "RGBA", 0, 1)
+    if np.frombuffer(raw, dtype=np.uint8)[3::4].min() == 255:
+        image = image.convert("RGB")
+    info = PngInfo()
+    for key, value in meta.items():
+        if value is not None:
+            info.add_text(key, value)
+    image.save(target, format="png", dpi=(dpi, dpi), pnginfo=info)
+
+
+#: ``set_layout_engine(None)`` falls back on these settings: off, so it leaves no engine.
+_NO_LAYOUT = {"figure.autolayout": False, "figure.constrained_layout.use": False}
 
 
 def _lay_out(fig: Figure, engine, dpi: int) -> bool:

@@ -16,6 +16,8 @@ paths relative to the output folder; :func:`make_figure` returns one
 
 from __future__ import annotations
 
+import contextlib
+import gc
 import io
 import warnings
 from pathlib import Path
@@ -107,7 +109,27 @@ def write_figures(result, folder: Path, *, kinds=None, extras: bool = True) -> l
         return _write_figures(result, Path(folder), kinds, extras)
 
 
+@contextlib.contextmanager
+def _run_objects_left_alone():
+    """Within this block the garbage collector passes over the objects that exist when it
+    starts (the run: tables, fits, a fit object per group): drawing makes many short-lived
+    objects, and each full collection otherwise walks every object of the run again."""
+    if gc.get_freeze_count():   # frozen by the caller already: theirs to thaw
+        yield
+        return
+    gc.freeze()
+    try:
+        yield
+    finally:
+        gc.unfreeze()
+
+
 def _write_figures(result, folder: Path, kinds, extras: bool) -> list[Path]:
+    with _run_objects_left_alone():
+        return _write_figures_now(result, folder, kinds, extras)
+
+
+def _write_figures_now(result, folder: Path, kinds, extras: bool) -> list[Path]:
     cfg = result.config.figures
     (folder / "figures").mkdir(parents=True, exist_ok=True)
     if result.multi_fit is not None:   # several predictors: partial relationships
