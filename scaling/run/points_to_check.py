@@ -97,8 +97,9 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
     alpha = cfg.diagnostics.alpha
     records, warn = [], []
     preds = tables.get("predictions")
-    factors = {(r.scope, r.group, r.method): (r.smearing_factor, r.parametric_factor)
-               for r in fits.itertuples(index=False)} if "smearing_factor" in fits else {}
+    factors = dict(zip(zip(*(fits[c].tolist() for c in ("scope", "group", "method"))),
+                       zip(fits["smearing_factor"].tolist(), fits["parametric_factor"].tolist()))
+                   ) if "smearing_factor" in fits else {}
     primary = primary_method(cfg)
     pooled_key = ("pooled", "", primary)
     if pooled_key not in line_fits:
@@ -257,11 +258,11 @@ class _Stated:
     filter of the whole fits and slope_tests tables per group would be quadratic in
     the number of groups)."""
 
-    __slots__ = ("_fits", "_tests", "_first", "_by_key")
+    __slots__ = ("_fits", "_tests", "_first", "_by_key", "_columns")
 
     def __init__(self, state):
         self._fits, self._tests = state.fits, state.slope_tests
-        self._first = self._by_key = None
+        self._first = self._by_key = self._columns = None
 
     @staticmethod
     def _keys(table: pd.DataFrame):
@@ -279,14 +280,17 @@ class _Stated:
                 for key, b0, p in zip(self._keys(t), t["exponent"].tolist(),
                                       t["p_value"].tolist()):
                     self._by_key.setdefault(key, []).append((float(b0), float(p)))
+            f = self._fits
+            self._columns = {c: f[c].tolist() for c in ("slope", "slope_se", "confidence")
+                             if c in f}
         i = self._first.get((scope, group, method))
         if i is None:
             return np.nan, np.nan, ()
-        f = self._fits
-        slope = float(f["slope"].iloc[i])
-        se = float(f["slope_se"].iloc[i]) if "slope_se" in f else np.nan
+        cols = self._columns
+        slope = float(cols["slope"][i])
+        se = float(cols["slope_se"][i]) if "slope_se" in cols else np.nan
         by_value = dict(self._by_key.get((scope, group, method), ()))
-        alpha = 1 - float(f["confidence"].iloc[i]) if "confidence" in f else 0.05
+        alpha = 1 - float(cols["confidence"][i]) if "confidence" in cols else 0.05
         return slope, se, tuple(verdict_code(slope, b0, by_value.get(b0, np.nan), alpha)
                                 for _, b0 in hyps)
 
