@@ -38,7 +38,7 @@ from .wording import (CAUTION, ancestry_caution, unit_text, clean_timestamp, dos
 
 __all__ = ["write_report", "prepare_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
-           "format_value"]
+           "format_value", "format_values"]
 
 # Tables longer than this are folded (<details>) in the HTML report.
 FOLD_ROWS = 30
@@ -96,6 +96,64 @@ def format_value(value, column: str = "") -> str:
             text = text.rstrip("0").rstrip(".")
         return text
     return str(value)
+
+
+def format_values(values, column: str = "") -> list:
+    """:func:`format_value` of every value of a column, the numbers formatted a few
+    array passes at a time (the same text, value for value).
+
+    A float column is split by what :func:`format_value` does with each value
+    (missing or infinite, p-value, whole number of an integer column, zero, e-notation,
+    or the number of decimals that gives 4 significant digits) and each part is
+    written by one ``map`` of one format; other columns go value by value.
+    """
+    v = values.to_numpy() if isinstance(values, pd.Series) else np.asarray(values)
+    if v.dtype.kind in "iu":
+        return list(map(str, v.tolist()))
+    if v.dtype.kind != "f":
+        return [format_value(x, column) for x in (v.tolist() if v.dtype.kind != "O" else v)]
+    v = v.astype(float, copy=False)
+    floats = v.tolist()
+    out = [""] * len(floats)
+
+    def put(mask, texts):
+        for i, t in zip(np.flatnonzero(mask).tolist(), texts):
+            out[i] = t
+
+    def pick(mask):
+        return [floats[i] for i in np.flatnonzero(mask).tolist()]
+
+    finite = np.isfinite(v)
+    if not finite.all():
+        put(~finite, ["–" if math.isnan(x) else ("∞" if x > 0 else "−∞")
+                      for x in pick(~finite)])
+    if _P_COLUMNS.match(column or ""):
+        put(finite, map(format_p, pick(finite)))
+        return out
+    left = finite
+    if column in _INT_COLUMNS:
+        whole = finite & (v == np.round(v))
+        put(whole, (str(int(round(x))) for x in pick(whole)))
+        left = finite & ~whole
+    zero = left & (v == 0)
+    put(zero, ["0"] * int(zero.sum()))
+    left = left & ~zero
+    a = np.abs(np.where(left, v, 1.0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lg = np.log10(a)
+    k = np.floor(lg)
+    # near a power of ten numpy's log10 may differ from math.log10 in the last bit
+    for i in np.flatnonzero(left & (np.abs(lg - np.round(lg)) < 1e-9)).tolist():
+        k[i] = math.floor(math.log10(abs(floats[i])))
+    sci = left & ((k >= 9) | (k < -4))
+    put(sci, map("{:.3e}".format, pick(sci)))
+    left = left & ~sci
+    decimals = np.where(left, np.maximum(3 - k, 0), -1)
+    for d in np.unique(decimals[left]).tolist():
+        part = decimals == d
+        texts = map(f"{{:.{int(d)}f}}".format, pick(part))
+        put(part, (t.rstrip("0").rstrip(".") for t in texts) if d > 0 else texts)
+    return out
 
 
 def _exponent_words(name: str, value: float) -> str:
@@ -708,8 +766,50 @@ def _tex_interval(lo, hi, column: str) -> str:
     return f"{_tex_num(lo, column)}{joint}{_tex_num(hi, column)}"
 
 
+def _tex_texts(texts: list) -> list:
+    """:func:`_tex_num` of each text of :func:`format_values` (escaped only when needed)."""
+    escape = _LATEX_RE.search("".join(texts)) is not None
+    out = []
+    for text in texts:
+        if text == "–":
+            out.append("--")
+            continue
+        if text.startswith("−"):
+            text = "-" + text[1:]
+        if text.startswith("-"):
+            out.append("$-$" + (latex_escape(text[1:]) if escape else text[1:]))
+        else:
+            out.append(latex_escape(text) if escape else text)
+    return out
+
+
+def _tex_nums(values, column: str) -> list:
+    """:func:`_tex_num` of every value of a column."""
+    return _tex_texts(format_values(values, column))
+
+
+def _tex_intervals(lo: np.ndarray, hi: np.ndarray, column: str) -> list:
+    """:func:`_tex_interval` of every pair of bounds."""
+    lo_text, hi_text = _tex_nums(lo, column), _tex_nums(hi, column)
+    with np.errstate(invalid="ignore"):
+        both = (np.isfinite(lo) & np.isfinite(hi)).tolist()
+        negative = (np.minimum(lo, hi) < 0).tolist()
+    return [(a + (" to " if neg else "--") + b) if ok else "--"
+            for a, b, ok, neg in zip(lo_text, hi_text, both, negative)]
+
+
+def _text_cells(column: pd.Series) -> list:
+    """:func:`latex_escape` of each cell of a text column (each distinct value once)."""
+    values = column.tolist()
+    done = {}
+    return [done[v] if v in done else done.setdefault(v, latex_escape(v)) for v in values]
+
+
 def render_fits_tex(result) -> str:
-    """A LaTeX ``tabular`` of the fits (needs no package beyond plain LaTeX)."""
+    """A LaTeX ``tabular`` of the fits (needs no package beyond plain LaTeX).
+
+    Each column is formatted at once (:func:`format_values`); a row reads as
+    :func:`_tex_num` and :func:`_tex_interval` write its cells one at a time."""
     conf = f"{100 * result.config.model.confidence:g}"
     base = latex_escape(result.config.model.log_base)
     head = ["Scope", "Group", "Method", "$n$", "$b$", f"{conf}\\% CI of $b$",
@@ -717,17 +817,35 @@ def render_fits_tex(result) -> str:
     lines = [f"% Fits of {latex_escape(result.config.title)}; written by scaling "
              f"{latex_escape((result.manifest or {}).get('scaling_version', ''))}",
              "\\begin{tabular}{lllrrcrcr}", "\\hline", " & ".join(head) + " \\\\", "\\hline"]
-    for r in result.fits.itertuples(index=False):
-        ci_b = _tex_interval(r.slope_low, r.slope_high, "slope_low")
-        gap = (getattr(r, "slope_gap_low", np.nan), getattr(r, "slope_gap_high", np.nan))
-        if np.isfinite(gap[0]) and np.isfinite(gap[1]):   # SMA's accepted set: two ranges
-            ci_b = (f"{_tex_interval(r.slope_low, gap[0], 'slope_low')} or "
-                    f"{_tex_interval(gap[1], r.slope_high, 'slope_low')}")
-        ci_a = _tex_interval(r.intercept_low, r.intercept_high, "x")
-        cells = [latex_escape(r.scope), latex_escape(r.group), latex_escape(method_label(r.method)),
-                 _tex_num(r.n, "n"), _tex_num(r.slope, "slope"), ci_b,
-                 _tex_num(r.intercept, "intercept"), ci_a, _tex_num(r.r2, "r2")]
-        lines.append(" & ".join(cells) + " \\\\")
+    fits = result.fits
+    if len(fits):
+        def num(name):
+            return pd.to_numeric(fits[name]).to_numpy(dtype=float)
+
+        def gap(name):
+            return num(name) if name in fits.columns else np.full(len(fits), np.nan)
+
+        lo, hi = num("slope_low"), num("slope_high")
+        gap_lo, gap_hi = gap("slope_gap_low"), gap("slope_gap_high")
+        ci_b = _tex_intervals(lo, hi, "slope_low")
+        split = np.flatnonzero(np.isfinite(gap_lo) & np.isfinite(gap_hi))
+        if split.size:   # SMA's accepted set: two ranges
+            left = _tex_intervals(lo[split], gap_lo[split], "slope_low")
+            right = _tex_intervals(gap_hi[split], hi[split], "slope_low")
+            for i, a, b in zip(split.tolist(), left, right):
+                ci_b[i] = f"{a} or {b}"
+        labels = {}
+        methods = [labels[m] if m in labels else labels.setdefault(
+            m, latex_escape(method_label(m))) for m in fits["method"].tolist()]
+        n = fits["n"]
+        columns = (_text_cells(fits["scope"]), _text_cells(fits["group"]), methods,
+                   _tex_nums(n if n.dtype.kind in "iuf" else n.astype(object), "n"),
+                   _tex_nums(num("slope"), "slope"), ci_b,
+                   _tex_nums(num("intercept"), "intercept"),
+                   _tex_intervals(num("intercept_low"), num("intercept_high"), "x"),
+                   _tex_nums(num("r2"), "r2"))
+        lines += map(" & ".join, zip(*columns))
+        lines[5:] = [line + " \\\\" for line in lines[5:]]
     lines += ["\\hline", "\\end{tabular}", ""]
     return "\n".join(lines)
 
