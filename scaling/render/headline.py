@@ -288,8 +288,8 @@ def _test_index(slope_tests: pd.DataFrame | None) -> dict:
     out: dict = {}
     if slope_tests is None or not len(slope_tests):
         return out
-    keys = zip(slope_tests["scope"], slope_tests["method"],
-               slope_tests["group"].fillna("").astype(str))
+    keys = zip(slope_tests["scope"].tolist(), slope_tests["method"].tolist(),
+               slope_tests["group"].fillna("").astype(str).tolist())
     # records from column lists: to_dict boxes every cell of an Arrow text column
     columns = {c: slope_tests[c].tolist() for c in slope_tests.columns}
     for key, values in zip(keys, zip(*columns.values())):
@@ -297,20 +297,21 @@ def _test_index(slope_tests: pd.DataFrame | None) -> dict:
     return out
 
 
-def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
+def _exponent_table(fits, slope_tests, primary, alpha, pct, index=None) -> pd.DataFrame:
     """Fit x hypothesis: every pooled, common and group-means fit, and the
-    primary method's per-group fits."""
+    primary method's per-group fits (``index``: :func:`_test_index` of ``slope_tests``)."""
     rows = []
     if fits is None or not len(fits):
         return pd.DataFrame()
     hyps = ([] if slope_tests is None or not len(slope_tests)
-            else list(dict.fromkeys(zip(slope_tests["hypothesis"], slope_tests["exponent"]))))
+            else list(dict.fromkeys(zip(slope_tests["hypothesis"].tolist(),
+                                        slope_tests["exponent"].tolist()))))
     order = {"common": 0, "pooled": 1, "group_means": 2, "group": 3}
     keep = fits[(fits["scope"] != "group") | (fits["method"] == primary)]
     keep = keep.assign(_o=keep["scope"].map(order).fillna(9),
                        _p=(keep["method"] != primary).astype(int))
     keep = keep.sort_values(["_o", "_p"], kind="stable")
-    index = _test_index(slope_tests)
+    index = _test_index(slope_tests) if index is None else index
     for r in keep.itertuples(index=False):
         group = "" if pd.isna(r.group) else str(r.group)
         line = _LINE_WORDS.get(r.scope, r.scope) + (f" {group}" if group else "")
@@ -400,7 +401,8 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     pct = f"{100 * confidence:g}%"
     lead = primary_method(methods, primary)
     group_tests, pairwise_tests = ordinary_rows(group_tests), ordinary_rows(pairwise_tests)
-    table = _exponent_table(fits, slope_tests, lead, alpha, pct)
+    index = _test_index(slope_tests)   # the tests of each line, read once
+    table = _exponent_table(fits, slope_tests, lead, alpha, pct, index)
     usable = (group_tests is not None and len(group_tests)
               and {"method", "test", "p_value"} <= set(group_tests.columns))
     compared = list(dict.fromkeys(group_tests["method"])) if usable else []
@@ -448,7 +450,6 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     if np.isfinite(p_slope) and p_slope <= alpha:
         gfits = fits[(fits["scope"] == "group") & (fits["method"] == lead)]
         rows = []
-        index = _test_index(slope_tests)
         for r in gfits.itertuples(index=False):
             rec = {group_word: r.group,
                    "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high,
