@@ -111,7 +111,7 @@ def _document(result, *, caution: str) -> dict:
         "messages": list(result.messages),
         "warnings": list(result.warnings),
         "caution": caution,
-        "saved_fits": list(result.saved_fits.values()),
+        "saved_fits": _Plain(result.saved_fits.values()),
         "data_summary": {
             "rows_read": result.data.n_read,
             # the large-data road counts rows instead of listing them
@@ -134,13 +134,48 @@ def _document(result, *, caution: str) -> dict:
             doc[name] = table
     if csv_only:
         doc["csv_only"] = csv_only
-    return {str(k): v if isinstance(v, pd.DataFrame) else json_safe(v) for k, v in doc.items()}
+    # the saved fits (dicts with text keys, one per fit) are cleaned while encoded
+    return {str(k): v if isinstance(v, (pd.DataFrame, _Plain)) else json_safe(v)
+            for k, v in doc.items()}
 
 
 def results_document(result, *, caution: str) -> dict:
     """The content of ``results.json`` (``caution``: the caution text it carries)."""
-    return {k: records(v) if isinstance(v, pd.DataFrame) else v
+    return {k: records(v) if isinstance(v, pd.DataFrame) else json_safe(v)
             for k, v in _document(result, caution=caution).items()}
+
+
+class _Plain(list):
+    """A list of dicts with text keys whose values :func:`_json_part` cleans as it encodes
+    them (:func:`_encode_plain`), instead of :func:`json_safe` first."""
+
+
+def _plain_default(obj):
+    """The encoder's hook for what :func:`json_safe` turns into plain values."""
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    if isinstance(obj, (np.ndarray, Path)) or obj is pd.NA:
+        return json_safe(obj)
+    raise TypeError(type(obj).__name__)   # anything else: json_safe decides
+
+
+_encode_raw = json.JSONEncoder(ensure_ascii=False, allow_nan=False,
+                               default=_plain_default).encode
+
+
+def _encode_plain(item) -> str:
+    """``_encode(json_safe(item))`` for a dict with text keys, in one encoder pass when the
+    item holds no NaN, infinity or other value that :func:`json_safe` changes.
+
+    The encoder writes a float (numpy's float64 too) by ``float.__repr__``, a tuple as
+    a list and numpy integers and booleans through the hook, as :func:`json_safe`
+    would make them; a non-finite float stops it and the item is cleaned first."""
+    try:
+        return _encode_raw(item)
+    except (ValueError, TypeError):
+        return _encode(json_safe(item))
 
 
 def write_json(doc: dict, path: Path) -> None:
@@ -166,6 +201,9 @@ def _json_part(key, value, text=None) -> str:
         if len(value):
             return f"  {_encode(str(key))}: [\n{_json_rows(value, text)}\n  ]"
         value = []
+    if isinstance(value, _Plain) and value:
+        body = ",\n".join("    " + _encode_plain(item) for item in value)
+        return f"  {_encode(str(key))}: [\n{body}\n  ]"
     if isinstance(value, list) and value:
         body = ",\n".join("    " + _encode(item) for item in value)
         return f"  {_encode(str(key))}: [\n{body}\n  ]"
@@ -212,8 +250,8 @@ _encode_str = json.encoder.encode_basestring   # the encoder's own (ensure_ascii
 
 
 def _csv_object(v) -> str:
-    """The text the :mod:`csv` writer makes of a value (floats by repr, the rest by str)."""
-    return v if type(v) is str else (repr(v) if isinstance(v, float) else str(v))
+    """The text the :mod:`csv` writer makes of a value: ``str`` (a float's str is its repr)."""
+    return v if type(v) is str else str(v)
 
 
 def _csv_texts(values: list) -> list:
