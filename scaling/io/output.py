@@ -83,6 +83,8 @@ def _column_values(column: pd.Series) -> list:
         return out
     if isinstance(dtype, np.dtype) and dtype.kind in "iub":
         return column.to_numpy().tolist()
+    if isinstance(dtype, pd.StringDtype):   # text or missing: nothing for json_safe to do
+        return column.to_numpy(dtype=object, na_value=None).tolist()
     return [json_safe(v) for v in column.astype(object).where(column.notna(), None)]
 
 
