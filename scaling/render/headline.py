@@ -36,6 +36,7 @@ error or changes a verdict (rows of kind ``moves_answer`` in
 from __future__ import annotations
 
 import math
+from collections import namedtuple
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -312,7 +313,9 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct, index=None) -> pd.Da
                        _p=(keep["method"] != primary).astype(int))
     keep = keep.sort_values(["_o", "_p"], kind="stable")
     index = _test_index(slope_tests) if index is None else index
-    for r in keep.itertuples(index=False):
+    labels = [f"vs {exponent_words(str(name), float(b0))}" for name, b0 in hyps]
+    for r in _rows(keep, ("scope", "group", "method", "slope", "slope_low", "slope_high",
+                          "slope_gap_low", "slope_gap_high")):
         group = "" if pd.isna(r.group) else str(r.group)
         line = _LINE_WORDS.get(r.scope, r.scope) + (f" {group}" if group else "")
         rec = {"line": line, "method": method_label(str(r.method)),
@@ -321,14 +324,21 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct, index=None) -> pd.Da
         first: dict = {}   # the first test of each hypothesis for this line
         for t in index.get((r.scope, r.method, group), ()):
             first.setdefault(t["hypothesis"], t)
-        for name, b0 in hyps:
+        for (name, b0), label in zip(hyps, labels):
             t = first.get(name)
-            label = f"vs {exponent_words(str(name), float(b0))}"
             rec[label] = (_short_verdict(float(t["estimate"]), float(b0),
                                          float(t["p_value"]), alpha, _p_method(t))
                           if t is not None else "")
         rows.append(rec)
     return _drop_empty_gaps(pd.DataFrame(rows))
+
+
+def _rows(frame: pd.DataFrame, columns) -> map:
+    """``frame[columns].itertuples(index=False)`` (of the columns present), each column read
+    as one list (itertuples reads an Arrow text column value by value)."""
+    names = [c for c in columns if c in frame.columns]
+    row = namedtuple("Row", names)
+    return map(row._make, zip(*(frame[c].tolist() for c in names)))
 
 
 def _gap_cells(r) -> dict:
@@ -449,13 +459,16 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
 
     if np.isfinite(p_slope) and p_slope <= alpha:
         gfits = fits[(fits["scope"] == "group") & (fits["method"] == lead)]
-        rows = []
-        for r in gfits.itertuples(index=False):
+        rows, words = [], {}
+        for r in _rows(gfits, ("group", "n", "slope", "slope_low", "slope_high",
+                               "slope_gap_low", "slope_gap_high")):
             rec = {group_word: r.group,
                    "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high,
                    **_gap_cells(r)}
             for t in index.get(("group", lead, str(r.group)), ()):
-                column = f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"
+                which = (t["hypothesis"], t["exponent"])   # the column's words, made once
+                column = words.get(which) or words.setdefault(
+                    which, f"vs {exponent_words(str(which[0]), float(which[1]))}")
                 rec[column] = _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha,
                                              _p_method(t))
             rows.append(rec)
