@@ -11,12 +11,14 @@ statistics.
 
 from __future__ import annotations
 
+import csv
 import datetime as _dt
 import hashlib
 import json
 import math
 import os
 import platform
+import re
 import shutil
 import tempfile
 from dataclasses import replace
@@ -81,6 +83,8 @@ def _column_values(column: pd.Series) -> list:
         return out
     if isinstance(dtype, np.dtype) and dtype.kind in "iub":
         return column.to_numpy().tolist()
+    if isinstance(dtype, pd.StringDtype):   # text or missing: nothing for json_safe to do
+        return column.to_numpy(dtype=object, na_value=None).tolist()
     return [json_safe(v) for v in column.astype(object).where(column.notna(), None)]
 
 
@@ -97,18 +101,19 @@ def records(frame: pd.DataFrame) -> list:
     return [dict(zip(keys, row)) for row in zip(*columns)]
 
 
-def results_document(result, *, caution: str) -> dict:
-    """The content of ``results.json`` (``caution``: the caution text it carries)."""
+def _document(result, *, caution: str) -> dict:
+    """:func:`results_document` with each table left a DataFrame (encoded column-wise
+    by :func:`_json_part`)."""
     cfg = result.config
     doc = {
         "title": cfg.title,
-        "fits": records(result.fits),
-        "slope_tests": records(result.slope_tests),
-        "dropped_rows": records(result.dropped),
+        "fits": result.fits,
+        "slope_tests": result.slope_tests,
+        "dropped_rows": result.dropped,
         "messages": list(result.messages),
         "warnings": list(result.warnings),
         "caution": caution,
-        "saved_fits": list(result.saved_fits.values()),
+        "saved_fits": _Plain(result.saved_fits.values()),
         "data_summary": {
             "rows_read": result.data.n_read,
             # the large-data road counts rows instead of listing them
@@ -122,18 +127,57 @@ def results_document(result, *, caution: str) -> dict:
         },
         "manifest": result.manifest,
     }
-    clean = {"fits", "slope_tests", "dropped_rows"}   # records() are JSON-ready already
     csv_only = {}
     for name, table in result.tables.items():
         if isinstance(table, pd.DataFrame) and not name.startswith("_"):
             if name in CSV_ONLY:
                 csv_only[name] = f"{name}.csv"
                 continue
-            doc[name] = records(table)
-            clean.add(name)
+            doc[name] = table
     if csv_only:
         doc["csv_only"] = csv_only
-    return {str(k): v if k in clean else json_safe(v) for k, v in doc.items()}
+    # the saved fits (dicts with text keys, one per fit) are cleaned while encoded
+    return {str(k): v if isinstance(v, (pd.DataFrame, _Plain)) else json_safe(v)
+            for k, v in doc.items()}
+
+
+def results_document(result, *, caution: str) -> dict:
+    """The content of ``results.json`` (``caution``: the caution text it carries)."""
+    return {k: records(v) if isinstance(v, pd.DataFrame) else json_safe(v)
+            for k, v in _document(result, caution=caution).items()}
+
+
+class _Plain(list):
+    """A list of dicts with text keys whose values :func:`_json_part` cleans as it encodes
+    them (:func:`_encode_plain`), instead of :func:`json_safe` first."""
+
+
+def _plain_default(obj):
+    """The encoder's hook for what :func:`json_safe` turns into plain values."""
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    if isinstance(obj, (np.ndarray, Path)) or obj is pd.NA:
+        return json_safe(obj)
+    raise TypeError(type(obj).__name__)   # anything else: json_safe decides
+
+
+_encode_raw = json.JSONEncoder(ensure_ascii=False, allow_nan=False,
+                               default=_plain_default).encode
+
+
+def _encode_plain(item) -> str:
+    """``_encode(json_safe(item))`` for a dict with text keys, in one encoder pass when the
+    item holds no NaN, infinity or other value that :func:`json_safe` changes.
+
+    The encoder writes a float (numpy's float64 too) by ``float.__repr__``, a tuple as
+    a list and numpy integers and booleans through the hook, as :func:`json_safe`
+    would make them; a non-finite float stops it and the item is cleaned first."""
+    try:
+        return _encode_raw(item)
+    except (ValueError, TypeError):
+        return _encode(json_safe(item))
 
 
 def write_json(doc: dict, path: Path) -> None:
@@ -141,7 +185,9 @@ def write_json(doc: dict, path: Path) -> None:
 
     Each item is encoded by the C encoder of :mod:`json` (one encoder, without
     ``indent``: ``indent`` would send millions of values through the
-    pure-Python encoder, and ``json.dumps`` with options builds an encoder per call).  The file stays readable line by line and parses to
+    pure-Python encoder, and ``json.dumps`` with options builds an encoder per call).
+    A DataFrame value is written as its :func:`records`, a column at a time
+    (:func:`_json_rows`).  The file stays readable line by line and parses to
     the same document.
     """
     _write_json_parts(_json_parts(doc), path)
@@ -150,22 +196,167 @@ def write_json(doc: dict, path: Path) -> None:
 _encode = json.JSONEncoder(ensure_ascii=False, allow_nan=False).encode   # one encoder
 
 
-def _json_part(key, value) -> str:
-    """One top-level entry of :func:`write_json`'s layout."""
+def _json_part(key, value, text=None) -> str:
+    """One top-level entry of :func:`write_json`'s layout (``text``: the table's
+    :class:`_TableText` when its CSV was written from it)."""
+    if isinstance(value, pd.DataFrame):
+        if len(value):
+            return f"  {_encode(str(key))}: [\n{_json_rows(value, text)}\n  ]"
+        value = []
+    if isinstance(value, _Plain) and value:
+        body = ",\n".join("    " + _encode_plain(item) for item in value)
+        return f"  {_encode(str(key))}: [\n{body}\n  ]"
     if isinstance(value, list) and value:
         body = ",\n".join("    " + _encode(item) for item in value)
         return f"  {_encode(str(key))}: [\n{body}\n  ]"
     return f"  {_encode(str(key))}: {_encode(value)}"
 
 
-def _json_parts(doc: dict) -> dict:
-    """``key -> encoded entry`` of ``doc``, in its order (entries can be replaced later)."""
-    return {key: _json_part(key, value) for key, value in doc.items()}
+def _json_parts(doc: dict, texts: dict | None = None) -> dict:
+    """``key -> encoded entry`` of ``doc``, in its order (entries can be replaced later).
+
+    ``texts``: ``id(table) -> _TableText`` of tables whose CSV was written already
+    (their numbers are not turned into text twice)."""
+    texts = texts or {}
+    return {key: _json_part(key, value, texts.get(id(value))) for key, value in doc.items()}
 
 
 def _write_json_parts(parts: dict, path: Path) -> None:
     with open(path, "w", encoding="utf-8") as fh:
         fh.write("{\n" + ",\n".join(parts.values()) + "\n}\n" if parts else "{}\n")
+
+
+# --------------------------------------------------------------------------
+# tables as text, a column at a time (CSV and results.json)
+
+
+_MaskedDtype = pd.core.dtypes.dtypes.BaseMaskedDtype   # Int64, boolean, ...
+_JSON_WORDS = {True: "true", False: "false", None: "null"}
+
+
+def _json_value(v) -> str:
+    """The C encoder's text of one JSON-ready value (the common types without a call)."""
+    kind = type(v)
+    if kind is str:
+        return _encode_str(v)
+    if kind is float:
+        return float.__repr__(v)
+    if kind is int:
+        return int.__repr__(v)
+    if v is None or kind is bool:
+        return _JSON_WORDS[v]
+    return _encode(v)
+
+
+_encode_str = json.encoder.encode_basestring   # the encoder's own (ensure_ascii=False)
+
+
+def _csv_object(v) -> str:
+    """The text the :mod:`csv` writer makes of a value: ``str`` (a float's str is its repr)."""
+    return v if type(v) is str else str(v)
+
+
+def _csv_texts(values: list) -> list:
+    """:func:`_csv_object` of each value (a column of text as it is)."""
+    if set(map(type, values)) <= {str}:
+        return values
+    return list(map(_csv_object, values))
+
+
+class _TableText:
+    """A table's cells as text, made once a column at a time: ``csv`` (what
+    ``DataFrame.to_csv`` writes in each cell, before quoting) and, on demand,
+    ``json`` (what the JSON encoder writes for each value of :func:`records`).
+
+    ``ok`` is False for a column type handled only by pandas (then neither is used).
+    Floats are written by ``float.__repr__`` once for both files: pandas writes a
+    float64 column with numpy's ``astype(str)`` and the encoder with
+    ``float.__repr__``, both the shortest text that reads back as the same float.
+    """
+
+    __slots__ = ("frame", "csv", "_floats", "ok")
+
+    def __init__(self, frame: pd.DataFrame):
+        self.frame = frame
+        self.csv, self._floats, self.ok = [], {}, True
+        for j in range(frame.shape[1]):
+            column = frame.iloc[:, j]
+            dtype = column.dtype
+            if isinstance(dtype, np.dtype) and dtype.kind == "f" and dtype.itemsize == 8:
+                v = column.to_numpy()
+                text = list(map(float.__repr__, v.tolist()))
+                self._floats[j] = (v, text)
+                nan = np.flatnonzero(np.isnan(v)).tolist()
+                if nan:
+                    text = text.copy()
+                    for i in nan:
+                        text[i] = ""
+                self.csv.append(text)
+            elif isinstance(dtype, np.dtype) and dtype.kind in "iu":
+                self.csv.append(list(map(int.__repr__, column.to_numpy().tolist())))
+            elif isinstance(dtype, np.dtype) and dtype.kind == "b":
+                self.csv.append(["True" if v else "False" for v in column.to_numpy().tolist()])
+            elif isinstance(dtype, np.dtype) and dtype.kind == "O":
+                values = column.to_numpy(dtype=object, copy=True)
+                values[pd.isna(values)] = ""
+                self.csv.append(_csv_texts(values.tolist()))
+            elif isinstance(dtype, pd.StringDtype) or (
+                    isinstance(dtype, _MaskedDtype) and dtype.kind in "iub"):
+                # pandas writes these through astype(object): the same values
+                values = column.to_numpy(dtype=object)
+                values[column.isna().to_numpy()] = ""
+                self.csv.append(_csv_texts(values.tolist()))
+            else:
+                self.ok = False
+                return
+
+    def json(self, j: int) -> list:
+        """Column ``j`` as the JSON encoder writes each of its :func:`records` values."""
+        if j in self._floats:
+            v, text = self._floats[j]
+            bad = np.flatnonzero(~np.isfinite(v)).tolist()
+            if bad:
+                text = text.copy()
+                for i in bad:
+                    text[i] = "null"
+            return text
+        column = self.frame.iloc[:, j]
+        dtype = column.dtype
+        if isinstance(dtype, np.dtype) and dtype.kind in "iu":
+            return self.csv[j]
+        if isinstance(dtype, np.dtype) and dtype.kind == "b":
+            return ["true" if v else "false" for v in column.to_numpy().tolist()]
+        return list(map(_json_value, _column_values(column)))
+
+
+#: Characters that make the csv writer quote a cell (any of them: the writer is used).
+_QUOTED = re.compile(r'[,"\r\n]')
+
+
+def _csv_rows(text: _TableText) -> str | None:
+    """The body of the CSV (one line per row), or None when some cell needs quoting or
+    the table has a single column (whose empty cells the writer quotes)."""
+    if len(text.csv) < 2:
+        return None
+    for j, cells in enumerate(text.csv):
+        if j in text._floats or text.frame.dtypes.iloc[j].kind in "iub":
+            continue   # numbers and True/False are never quoted
+        if _QUOTED.search("".join(cells)):
+            return None
+    line = ",".join(["%s"] * len(text.csv)) + "\n"
+    return "".join(map(line.__mod__, zip(*text.csv)))
+
+
+def _json_rows(frame: pd.DataFrame, text: _TableText | None = None) -> str:
+    """``",\n".join("    " + encode(row) for row in records(frame))``, built a column at
+    a time: each value is turned into text once and each row is one ``%`` format."""
+    keys = [str(k) for k in frame.columns]
+    if text is None:
+        text = _TableText(frame)
+    if not keys or len(set(keys)) < len(keys) or not text.ok:
+        return ",\n".join("    " + _encode(item) for item in records(frame))
+    line = "    {" + ", ".join(_encode(k).replace("%", "%%") + ": %s" for k in keys) + "}"
+    return ",\n".join(map(line.__mod__, zip(*(text.json(j) for j in range(len(keys))))))
 
 
 def check_out_dir(out_dir: Path, force: bool) -> None:
@@ -232,8 +423,27 @@ def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
     return replace(result, out_dir=out_dir, files=files)
 
 
-def write_csv(frame: pd.DataFrame, path: Path) -> None:
-    frame.to_csv(path, index=False, lineterminator="\n")
+def write_csv(frame: pd.DataFrame, path: Path):
+    """Write ``frame`` as ``frame.to_csv(path, index=False, lineterminator="\\n")`` does,
+    byte for byte, with its cells made into text a column at a time.
+
+    Returns the table's :class:`_TableText` (reused for ``results.json``), or None
+    when pandas wrote the file (a column type this writer leaves to it, or column
+    labels that are not plain).
+    """
+    text = _TableText(frame)
+    if not text.ok or isinstance(frame.columns, pd.MultiIndex):
+        frame.to_csv(path, index=False, lineterminator="\n")
+        return None
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(list(frame.columns))
+        body = _csv_rows(text)
+        if body is None:
+            writer.writerows(zip(*text.csv))
+        else:
+            fh.write(body)
+    return text
 
 
 def _write_all(result, folder: Path, draw_figures, write_report, caution,
@@ -248,11 +458,12 @@ def _write_all(result, folder: Path, draw_figures, write_report, caution,
     (folder / "figures").mkdir(exist_ok=True)
     drawing = draw_figures(result, folder)
     try:
+        texts = {}   # each table's cells as text, made once for its CSV and results.json
         for name, frame in _tables(result):
-            write_csv(frame, folder / name)
+            texts[id(frame)] = write_csv(frame, folder / name)
             written.append(Path(name))
-        doc = results_document(result, caution=caution)
-        parts = _json_parts(doc)   # all but the figure notes and the file list, encoded now
+        doc = _document(result, caution=caution)
+        parts = _json_parts(doc, texts)   # all but the figure notes and the file list, now
         if prepare_report is not None:
             write_report = prepare_report(result)
         paths, skipped = drawing.wait() if hasattr(drawing, "wait") else drawing

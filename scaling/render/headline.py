@@ -36,6 +36,7 @@ error or changes a verdict (rows of kind ``moves_answer`` in
 from __future__ import annotations
 
 import math
+from collections import namedtuple
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -288,8 +289,8 @@ def _test_index(slope_tests: pd.DataFrame | None) -> dict:
     out: dict = {}
     if slope_tests is None or not len(slope_tests):
         return out
-    keys = zip(slope_tests["scope"], slope_tests["method"],
-               slope_tests["group"].fillna("").astype(str))
+    keys = zip(slope_tests["scope"].tolist(), slope_tests["method"].tolist(),
+               slope_tests["group"].fillna("").astype(str).tolist())
     # records from column lists: to_dict boxes every cell of an Arrow text column
     columns = {c: slope_tests[c].tolist() for c in slope_tests.columns}
     for key, values in zip(keys, zip(*columns.values())):
@@ -297,21 +298,24 @@ def _test_index(slope_tests: pd.DataFrame | None) -> dict:
     return out
 
 
-def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
+def _exponent_table(fits, slope_tests, primary, alpha, pct, index=None) -> pd.DataFrame:
     """Fit x hypothesis: every pooled, common and group-means fit, and the
-    primary method's per-group fits."""
+    primary method's per-group fits (``index``: :func:`_test_index` of ``slope_tests``)."""
     rows = []
     if fits is None or not len(fits):
         return pd.DataFrame()
     hyps = ([] if slope_tests is None or not len(slope_tests)
-            else list(dict.fromkeys(zip(slope_tests["hypothesis"], slope_tests["exponent"]))))
+            else list(dict.fromkeys(zip(slope_tests["hypothesis"].tolist(),
+                                        slope_tests["exponent"].tolist()))))
     order = {"common": 0, "pooled": 1, "group_means": 2, "group": 3}
     keep = fits[(fits["scope"] != "group") | (fits["method"] == primary)]
     keep = keep.assign(_o=keep["scope"].map(order).fillna(9),
                        _p=(keep["method"] != primary).astype(int))
     keep = keep.sort_values(["_o", "_p"], kind="stable")
-    index = _test_index(slope_tests)
-    for r in keep.itertuples(index=False):
+    index = _test_index(slope_tests) if index is None else index
+    labels = [f"vs {exponent_words(str(name), float(b0))}" for name, b0 in hyps]
+    for r in _rows(keep, ("scope", "group", "method", "slope", "slope_low", "slope_high",
+                          "slope_gap_low", "slope_gap_high")):
         group = "" if pd.isna(r.group) else str(r.group)
         line = _LINE_WORDS.get(r.scope, r.scope) + (f" {group}" if group else "")
         rec = {"line": line, "method": method_label(str(r.method)),
@@ -320,14 +324,21 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct) -> pd.DataFrame:
         first: dict = {}   # the first test of each hypothesis for this line
         for t in index.get((r.scope, r.method, group), ()):
             first.setdefault(t["hypothesis"], t)
-        for name, b0 in hyps:
+        for (name, b0), label in zip(hyps, labels):
             t = first.get(name)
-            label = f"vs {exponent_words(str(name), float(b0))}"
             rec[label] = (_short_verdict(float(t["estimate"]), float(b0),
                                          float(t["p_value"]), alpha, _p_method(t))
                           if t is not None else "")
         rows.append(rec)
     return _drop_empty_gaps(pd.DataFrame(rows))
+
+
+def _rows(frame: pd.DataFrame, columns) -> map:
+    """``frame[columns].itertuples(index=False)`` (of the columns present), each column read
+    as one list (itertuples reads an Arrow text column value by value)."""
+    names = [c for c in columns if c in frame.columns]
+    row = namedtuple("Row", names)
+    return map(row._make, zip(*(frame[c].tolist() for c in names)))
 
 
 def _gap_cells(r) -> dict:
@@ -400,7 +411,8 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     pct = f"{100 * confidence:g}%"
     lead = primary_method(methods, primary)
     group_tests, pairwise_tests = ordinary_rows(group_tests), ordinary_rows(pairwise_tests)
-    table = _exponent_table(fits, slope_tests, lead, alpha, pct)
+    index = _test_index(slope_tests)   # the tests of each line, read once
+    table = _exponent_table(fits, slope_tests, lead, alpha, pct, index)
     usable = (group_tests is not None and len(group_tests)
               and {"method", "test", "p_value"} <= set(group_tests.columns))
     compared = list(dict.fromkeys(group_tests["method"])) if usable else []
@@ -447,14 +459,16 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
 
     if np.isfinite(p_slope) and p_slope <= alpha:
         gfits = fits[(fits["scope"] == "group") & (fits["method"] == lead)]
-        rows = []
-        index = _test_index(slope_tests)
-        for r in gfits.itertuples(index=False):
+        rows, words = [], {}
+        for r in _rows(gfits, ("group", "n", "slope", "slope_low", "slope_high",
+                               "slope_gap_low", "slope_gap_high")):
             rec = {group_word: r.group,
                    "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high,
                    **_gap_cells(r)}
             for t in index.get(("group", lead, str(r.group)), ()):
-                column = f"vs {exponent_words(str(t['hypothesis']), float(t['exponent']))}"
+                which = (t["hypothesis"], t["exponent"])   # the column's words, made once
+                column = words.get(which) or words.setdefault(
+                    which, f"vs {exponent_words(str(which[0]), float(which[1]))}")
                 rec[column] = _short_verdict(t["estimate"], t["exponent"], t["p_value"], alpha,
                                              _p_method(t))
             rows.append(rec)

@@ -31,14 +31,13 @@ from .report_parts import (ITEMS_MAX, Block, Section, _bounded,  # noqa: F401
                            _headline_section, _interval_text, _manifest_section, _num,
                            _summary_section)
 from .prediction_words import extrapolation_words, prediction_notes
-from .wording import (CAUTION, ancestry_caution, unit_text, clean_timestamp, dose_caution, exponent_label,
+from .wording import (CAUTION, ancestry_caution, unit_text, clean_timestamp, dose_caution,
                       at_floor, calibrated_p_text, dose_scaling_applies, format_p, mechanism_applies,
-                      mechanism_caution,
-                      method_label, slope_interval_text, units_share_ancestry, verdict_phrase)
+                      mechanism_caution, method_label, units_share_ancestry)
 
 __all__ = ["write_report", "prepare_report", "build_report", "render_html", "render_markdown",
            "render_fits_tex", "Section", "Block", "latex_escape", "markdown_escape",
-           "format_value"]
+           "format_value", "format_values"]
 
 # Tables longer than this are folded (<details>) in the HTML report.
 FOLD_ROWS = 30
@@ -98,62 +97,61 @@ def format_value(value, column: str = "") -> str:
     return str(value)
 
 
-def _exponent_words(name: str, value: float) -> str:
-    label = exponent_label(value)
-    if name and name not in (label, f"{value:g}"):
-        return f"{label} ({name})"
-    return label
+def format_values(values, column: str = "") -> list:
+    """:func:`format_value` of every value of a column, the numbers formatted a few
+    array passes at a time (the same text, value for value).
 
+    A float column is split by what :func:`format_value` does with each value
+    (missing or infinite, p-value, whole number of an integer column, zero, e-notation,
+    or the number of decimals that gives 4 significant digits) and each part is
+    written by one ``map`` of one format; other columns go value by value.
+    """
+    v = values.to_numpy() if isinstance(values, pd.Series) else np.asarray(values)
+    if v.dtype.kind in "iu":
+        return list(map(str, v.tolist()))
+    if v.dtype.kind != "f":
+        return [format_value(x, column) for x in (v.tolist() if v.dtype.kind == "b" else v)]
+    v = v.astype(float, copy=False)
+    floats = v.tolist()
+    out = [""] * len(floats)
 
-# --------------------------------------------------------------------------
-# building the content
+    def put(mask, texts):
+        for i, t in zip(np.flatnonzero(mask).tolist(), texts):
+            out[i] = t
 
+    def pick(mask):
+        return [floats[i] for i in np.flatnonzero(mask).tolist()]
 
-def _scope_words(scope: str, group: str) -> str:
-    if scope == "pooled":
-        return "Pooled"
-    if scope == "group":
-        return f"Group {group}"
-    if scope == "group_means":
-        return "Line through the group means"
-    return f"{scope} {group}".strip()
-
-
-def _slope_sentences(result) -> list:
-    """(scope, sentence) per fit and hypothesised exponent, from the tables."""
-    tests = result.slope_tests
-    if tests is None or not len(tests):
-        return []
-    conf = result.config.model.confidence
-    alpha = 1 - conf
-    pct = f"{100 * conf:g}%"
-    fits = result.fits.set_index(["scope", "group", "method"]) if len(result.fits) else None
-    out = []
-    n_group, skipped = 0, 0
-    for r in tests.itertuples(index=False):
-        if r.scope == "group":   # bounded: at most ITEMS_MAX group sentences are written
-            n_group += 1
-            if n_group > ITEMS_MAX:
-                skipped += 1
-                continue
-        ci = ""
-        if fits is not None and (r.scope, r.group, r.method) in fits.index:
-            row = fits.loc[(r.scope, r.group, r.method)]
-            if isinstance(row, pd.DataFrame):
-                row = row.iloc[0]
-            lo, hi = row["slope_low"], row["slope_high"]
-            gap = (row.get("slope_gap_low", np.nan), row.get("slope_gap_high", np.nan))
-            ci = (f" ({pct} CI {slope_interval_text(lo, hi, *gap, fmt=_num)})"
-                  if np.isfinite(lo) and np.isfinite(hi) else f" ({pct} CI unbounded)")
-        target = _exponent_words(str(r.hypothesis), float(r.exponent))
-        verdict = verdict_phrase(r.estimate, r.exponent, r.p_value, alpha=alpha, target=target)
-        verdict += (f", {calibrated_p_text(r.p_value, getattr(r, 'p_method', ''))}."
-                    if np.isfinite(r.p_value) else ".")
-        out.append((r.scope, f"{_scope_words(r.scope, r.group)}: the {method_label(str(r.method))} exponent "
-                   f"{_num(r.estimate)}{ci} {verdict}"))
-    if skipped:
-        out.append(("group", f"... and {skipped:,} more group tests; every test is in "
-                             "slope_tests.csv."))
+    finite = np.isfinite(v)
+    if not finite.all():
+        put(~finite, ["–" if math.isnan(x) else ("∞" if x > 0 else "−∞")
+                      for x in pick(~finite)])
+    if _P_COLUMNS.match(column or ""):
+        put(finite, map(format_p, pick(finite)))
+        return out
+    left = finite
+    if column in _INT_COLUMNS:
+        whole = finite & (v == np.round(v))
+        put(whole, (str(int(round(x))) for x in pick(whole)))
+        left = finite & ~whole
+    zero = left & (v == 0)
+    put(zero, ["0"] * int(zero.sum()))
+    left = left & ~zero
+    a = np.abs(np.where(left, v, 1.0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lg = np.log10(a)
+    k = np.floor(lg)
+    # near a power of ten numpy's log10 may differ from math.log10 in the last bit
+    for i in np.flatnonzero(left & (np.abs(lg - np.round(lg)) < 1e-9)).tolist():
+        k[i] = math.floor(math.log10(abs(floats[i])))
+    sci = left & ((k >= 9) | (k < -4))
+    put(sci, map("{:.3e}".format, pick(sci)))
+    left = left & ~sci
+    decimals = np.where(left, np.maximum(3 - k, 0), -1)
+    for d in np.unique(decimals[left]).tolist():
+        part = decimals == d
+        texts = map(f"{{:.{int(d)}f}}".format, pick(part))
+        put(part, (t.rstrip("0").rstrip(".") for t in texts) if d > 0 else texts)
     return out
 
 
@@ -325,7 +323,8 @@ def build_report(result, folder: Path | None = None, written=(), *, head=None) -
             "fits.csv.")))
     sections.append(Section(title="Fits", blocks=fit_blocks, anchor="fits"))
 
-    sentences = _slope_sentences(result)
+    # one sentence per test was made here only to ask whether there is any test
+    sentences = result.slope_tests is not None and len(result.slope_tests) > 0
     test_blocks = []
     if sentences:   # one table of exponent tests (fit x hypothesis) instead of bullets
         test_blocks.append(Block(kind="table", frame=head.exponent_table,
@@ -708,8 +707,50 @@ def _tex_interval(lo, hi, column: str) -> str:
     return f"{_tex_num(lo, column)}{joint}{_tex_num(hi, column)}"
 
 
+def _tex_texts(texts: list) -> list:
+    """:func:`_tex_num` of each text of :func:`format_values` (escaped only when needed)."""
+    escape = _LATEX_RE.search("".join(texts)) is not None
+    out = []
+    for text in texts:
+        if text == "–":
+            out.append("--")
+            continue
+        if text.startswith("−"):
+            text = "-" + text[1:]
+        if text.startswith("-"):
+            out.append("$-$" + (latex_escape(text[1:]) if escape else text[1:]))
+        else:
+            out.append(latex_escape(text) if escape else text)
+    return out
+
+
+def _tex_nums(values, column: str) -> list:
+    """:func:`_tex_num` of every value of a column."""
+    return _tex_texts(format_values(values, column))
+
+
+def _tex_intervals(lo: np.ndarray, hi: np.ndarray, column: str) -> list:
+    """:func:`_tex_interval` of every pair of bounds."""
+    lo_text, hi_text = _tex_nums(lo, column), _tex_nums(hi, column)
+    with np.errstate(invalid="ignore"):
+        both = (np.isfinite(lo) & np.isfinite(hi)).tolist()
+        negative = (np.minimum(lo, hi) < 0).tolist()
+    return [(a + (" to " if neg else "--") + b) if ok else "--"
+            for a, b, ok, neg in zip(lo_text, hi_text, both, negative)]
+
+
+def _text_cells(column: pd.Series) -> list:
+    """:func:`latex_escape` of each cell of a text column (each distinct value once)."""
+    values = column.tolist()
+    done = {}
+    return [done[v] if v in done else done.setdefault(v, latex_escape(v)) for v in values]
+
+
 def render_fits_tex(result) -> str:
-    """A LaTeX ``tabular`` of the fits (needs no package beyond plain LaTeX)."""
+    """A LaTeX ``tabular`` of the fits (needs no package beyond plain LaTeX).
+
+    Each column is formatted at once (:func:`format_values`); a row reads as
+    :func:`_tex_num` and :func:`_tex_interval` write its cells one at a time."""
     conf = f"{100 * result.config.model.confidence:g}"
     base = latex_escape(result.config.model.log_base)
     head = ["Scope", "Group", "Method", "$n$", "$b$", f"{conf}\\% CI of $b$",
@@ -717,17 +758,35 @@ def render_fits_tex(result) -> str:
     lines = [f"% Fits of {latex_escape(result.config.title)}; written by scaling "
              f"{latex_escape((result.manifest or {}).get('scaling_version', ''))}",
              "\\begin{tabular}{lllrrcrcr}", "\\hline", " & ".join(head) + " \\\\", "\\hline"]
-    for r in result.fits.itertuples(index=False):
-        ci_b = _tex_interval(r.slope_low, r.slope_high, "slope_low")
-        gap = (getattr(r, "slope_gap_low", np.nan), getattr(r, "slope_gap_high", np.nan))
-        if np.isfinite(gap[0]) and np.isfinite(gap[1]):   # SMA's accepted set: two ranges
-            ci_b = (f"{_tex_interval(r.slope_low, gap[0], 'slope_low')} or "
-                    f"{_tex_interval(gap[1], r.slope_high, 'slope_low')}")
-        ci_a = _tex_interval(r.intercept_low, r.intercept_high, "x")
-        cells = [latex_escape(r.scope), latex_escape(r.group), latex_escape(method_label(r.method)),
-                 _tex_num(r.n, "n"), _tex_num(r.slope, "slope"), ci_b,
-                 _tex_num(r.intercept, "intercept"), ci_a, _tex_num(r.r2, "r2")]
-        lines.append(" & ".join(cells) + " \\\\")
+    fits = result.fits
+    if len(fits):
+        def num(name):
+            return pd.to_numeric(fits[name]).to_numpy(dtype=float)
+
+        def gap(name):
+            return num(name) if name in fits.columns else np.full(len(fits), np.nan)
+
+        lo, hi = num("slope_low"), num("slope_high")
+        gap_lo, gap_hi = gap("slope_gap_low"), gap("slope_gap_high")
+        ci_b = _tex_intervals(lo, hi, "slope_low")
+        split = np.flatnonzero(np.isfinite(gap_lo) & np.isfinite(gap_hi))
+        if split.size:   # SMA's accepted set: two ranges
+            left = _tex_intervals(lo[split], gap_lo[split], "slope_low")
+            right = _tex_intervals(gap_hi[split], hi[split], "slope_low")
+            for i, a, b in zip(split.tolist(), left, right):
+                ci_b[i] = f"{a} or {b}"
+        labels = {}
+        methods = [labels[m] if m in labels else labels.setdefault(
+            m, latex_escape(method_label(m))) for m in fits["method"].tolist()]
+        n = fits["n"]
+        columns = (_text_cells(fits["scope"]), _text_cells(fits["group"]), methods,
+                   _tex_nums(n if n.dtype.kind in "iuf" else n.astype(object), "n"),
+                   _tex_nums(num("slope"), "slope"), ci_b,
+                   _tex_nums(num("intercept"), "intercept"),
+                   _tex_intervals(num("intercept_low"), num("intercept_high"), "x"),
+                   _tex_nums(num("r2"), "r2"))
+        lines += map(" & ".join, zip(*columns))
+        lines[5:] = [line + " \\\\" for line in lines[5:]]
     lines += ["\\hline", "\\end{tabular}", ""]
     return "\n".join(lines)
 

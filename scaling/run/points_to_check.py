@@ -97,8 +97,9 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
     alpha = cfg.diagnostics.alpha
     records, warn = [], []
     preds = tables.get("predictions")
-    factors = {(r.scope, r.group, r.method): (r.smearing_factor, r.parametric_factor)
-               for r in fits.itertuples(index=False)} if "smearing_factor" in fits else {}
+    factors = dict(zip(zip(*(fits[c].tolist() for c in ("scope", "group", "method"))),
+                       zip(fits["smearing_factor"].tolist(), fits["parametric_factor"].tolist()))
+                   ) if "smearing_factor" in fits else {}
     primary = primary_method(cfg)
     pooled_key = ("pooled", "", primary)
     if pooled_key not in line_fits:
@@ -215,9 +216,10 @@ def answer_points(cfg, state) -> list:
                 sets = [s for s in sets if np.ptp(s[2]) > 0]
                 screens = strong_influence_each([(X, Y) for _, _, X, Y in sets],
                                                 method=method)   # every group in one pass
+                stated = _Stated(state)
                 return [p for (g, sel, X, Y), inf in zip(sets, screens)
                         for p in _line_points(cfg, state, sel, "group", g, method, hyps,
-                                              inf=inf, xy=(X, Y))]
+                                              inf=inf, xy=(X, Y), stated=stated)]
             return _line_points(cfg, state, pooled, "pooled", "", method, hyps)
         except ScalingError:
             return []
@@ -250,22 +252,52 @@ def _rows_of(sel: pd.DataFrame) -> np.ndarray:
     return sel["row"].to_numpy() if "row" in sel else np.arange(len(sel))
 
 
+class _Stated:
+    """The answer's exponent, its standard error and its verdicts, as the tables state
+    them, for any (scope, group, method): the tables are read once into look-ups (a
+    filter of the whole fits and slope_tests tables per group would be quadratic in
+    the number of groups)."""
+
+    __slots__ = ("_fits", "_tests", "_first", "_by_key", "_columns")
+
+    def __init__(self, state):
+        self._fits, self._tests = state.fits, state.slope_tests
+        self._first = self._by_key = self._columns = None
+
+    @staticmethod
+    def _keys(table: pd.DataFrame):
+        return zip(table["scope"].tolist(), table["group"].fillna("").astype(str).tolist(),
+                   table["method"].tolist())
+
+    def __call__(self, scope: str, group: str, method: str, hyps) -> tuple:
+        if self._first is None:
+            self._first = {}
+            for i, key in enumerate(self._keys(self._fits)):
+                self._first.setdefault(key, i)   # the first row of each fit, as iloc[0]
+            t = self._tests
+            self._by_key = {}
+            if t is not None:
+                for key, b0, p in zip(self._keys(t), t["exponent"].tolist(),
+                                      t["p_value"].tolist()):
+                    self._by_key.setdefault(key, []).append((float(b0), float(p)))
+            f = self._fits
+            self._columns = {c: f[c].tolist() for c in ("slope", "slope_se", "confidence")
+                             if c in f}
+        i = self._first.get((scope, group, method))
+        if i is None:
+            return np.nan, np.nan, ()
+        cols = self._columns
+        slope = float(cols["slope"][i])
+        se = float(cols["slope_se"][i]) if "slope_se" in cols else np.nan
+        by_value = dict(self._by_key.get((scope, group, method), ()))
+        alpha = 1 - float(cols["confidence"][i]) if "confidence" in cols else 0.05
+        return slope, se, tuple(verdict_code(slope, b0, by_value.get(b0, np.nan), alpha)
+                                for _, b0 in hyps)
+
+
 def _stated(state, scope: str, group: str, method: str, hyps) -> tuple:
     """The answer's exponent, its standard error and its verdicts, as the tables state them."""
-    f = state.fits
-    row = f[(f["scope"] == scope) & (f["method"] == method)
-            & (f["group"].fillna("").astype(str) == group)]
-    if not len(row):
-        return np.nan, np.nan, ()
-    slope = float(row["slope"].iloc[0])
-    se = float(row["slope_se"].iloc[0]) if "slope_se" in row else np.nan
-    t = state.slope_tests
-    tests = t[(t["scope"] == scope) & (t["method"] == method)
-              & (t["group"].fillna("").astype(str) == group)] if t is not None else t
-    by_value = {float(r.exponent): float(r.p_value) for r in tests.itertuples(index=False)}
-    alpha = 1 - float(row["confidence"].iloc[0]) if "confidence" in row else 0.05
-    return slope, se, tuple(verdict_code(slope, b0, by_value.get(b0, np.nan), alpha)
-                            for _, b0 in hyps)
+    return _Stated(state)(scope, group, method, hyps)
 
 
 def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slope_without,
@@ -293,12 +325,14 @@ def _finding(cfg, sel, i, *, scope, group, method, cook, slope, se, before, slop
 
 
 def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps,
-                 inf: dict | None = None, xy: tuple | None = None) -> list:
+                 inf: dict | None = None, xy: tuple | None = None,
+                 stated: _Stated | None = None) -> list:
     """Strong points of one line (pooled, or a group's when slopes differ), refitted out.
 
     ``inf``: the line's :func:`scaling.stats.influence.strong_influence`, when the
     caller has screened many lines at once (a line with varying x); ``xy``: the
-    line's log x and log y when the caller has read them."""
+    line's log x and log y when the caller has read them; ``stated``: the look-up of
+    the tables' exponents and verdicts shared by many lines."""
     if inf is not None and not inf["flag"].any():   # nothing to refit (most groups)
         return []
     X, Y = xy if xy is not None else (sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
@@ -310,7 +344,7 @@ def _line_points(cfg, state, sel, scope: str, group: str, method: str, hyps,
     flagged = flagged[np.argsort(-inf["cook"][flagged], kind="stable")][:MAX_REFITS]
     if not flagged.size:   # nothing to refit: skip the table look-up (once per group)
         return []
-    slope, se, before = _stated(state, scope, group, method, hyps)
+    slope, se, before = (stated or _Stated(state))(scope, group, method, hyps)
     out = []
     for i in flagged:
         keep = np.arange(X.size) != i
