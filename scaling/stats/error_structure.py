@@ -159,6 +159,7 @@ def compare_error_structure(x, y) -> ErrorStructure:
     # are unchanged (exact law of a change of scale).
     ln_cx, ln_cy = float(np.mean(lx)), float(np.mean(ly))
     xs, ys = np.exp(lx - ln_cx), np.exp(ly - ln_cy)
+    del lx, ly, res_log   # the nonlinear fit's own arrays are the peak on many points
 
     def power(xv, a, b):
         return a * np.power(xv, b)
