@@ -178,7 +178,9 @@ def compare_error_structure(x, y) -> ErrorStructure:
     del lx, ly, res_log   # the nonlinear fit's own arrays are the peak on many points
 
     def power(xv, a, b):
-        return a * np.power(xv, b)
+        out = np.power(xv, b)
+        out *= a   # in place: a * x^b with one array of n points, not two
+        return out
 
     converged = True
     try:
