@@ -17,7 +17,7 @@ Tables from :mod:`scaling.stats.residual_checks` and
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -48,6 +48,11 @@ class DiagnosticsStage:
     notes: tuple = ()
 
 
+#: What a checked line keeps of its per-point arrays once its rows are tabled.
+_NO_POINTS = np.empty(0)
+_NO_POINTS.flags.writeable = False
+
+
 def exponent_targets(cfg) -> tuple:
     """Exponents whose crossing the curvature check locates: diagnostics.exponent_at,
     else the hypothesised exponents."""
@@ -60,6 +65,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     dc = cfg.diagnostics
     targets = exponent_targets(cfg)
     diag_records, curv_rows, es_rows = [], [], []
+    curved: set = set()   # (scope, group) of the curvature rows so far
     infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
     results: dict = {}
@@ -96,7 +102,6 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
                                  constant_variance=bp.get((scope, group, method)))
         except ScalingError:
             continue   # too few points (n < 4) or nothing to diagnose
-        results[(scope, group, method)] = d
         # Points of the means line are groups: name them, not their positions.
         named = labels if scope == "group_means" else None
         # rows of d.to_frame() with scope, group and verdict; one table at the end
@@ -114,7 +119,12 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
             infl["label"] += ([labels.get(r, "") for r in flagged] if labels is not None
                               else _unit_labels(sel, rows, flagged))
             infl["cooks_distance"] += cooks
-        if (scope, group) not in {(r["scope"], r["group"]) for r in curv_rows}:
+        # the verdicts read the checks only: the per-point arrays (a million points
+        # for the pooled line, one array per method) are let go once tabled
+        d = results[(scope, group, method)] = replace(d, residuals=_NO_POINTS,
+                                                      cooks_distance=_NO_POINTS)
+        if (scope, group) not in curved:
+            curved.add((scope, group))
             c = d.curvature
             e_lo, e_hi = c.local_exponent([X.min(), X.max()])
             common = {"scope": scope, "group": group, "n": d.n, "quadratic": c.quadratic,
@@ -128,6 +138,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
             else:
                 curv_rows.append({**common, "exponent": np.nan, "x_at_exponent": np.nan,
                                   "within_data": None})
+    del memos, logs   # the per-set Cook's distances: not needed past the checks
     es_results: dict = {}
     if dc.error_structure:
         for (scope, group), sel in point_sets.items():

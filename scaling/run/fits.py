@@ -148,10 +148,20 @@ def split_by_group(pts: pd.DataFrame, order: np.ndarray, bounds: np.ndarray,
     """Each group's rows of ``pts`` as a frame (``name -> DataFrame``).
 
     One copy of the table sorted by group; each group's frame is a slice of it
-    (the frames ``pts.groupby("group")`` yields: same rows, index and columns).
+    (the frames ``pts.groupby("group")`` yields: same rows, index, columns and
+    values; a text ``group`` column is held as a categorical of ``names``).
     ``order`` and ``bounds`` are those of :func:`scaling.stats.moments.sort_by_group`.
     """
-    in_order = pts.take(order)
+    if "group" in pts and isinstance(pts["group"].dtype, pd.StringDtype) and len(names) > 1:
+        # the labels of the sorted rows as codes into ``names`` (group by group, so
+        # read off ``bounds``): two bytes a row instead of a copy of the text
+        in_order = pts.drop(columns="group").take(order)
+        codes = np.repeat(np.arange(len(names), dtype=np.min_scalar_type(len(names))),
+                          np.diff(bounds))
+        in_order.insert(pts.columns.get_loc("group"), "group",
+                        pd.Categorical.from_codes(codes, categories=names))
+    else:
+        in_order = pts.take(order)
     return {name: in_order.iloc[a:b] for name, a, b in
             zip(names, bounds[:-1].tolist(), bounds[1:].tolist())}
 

@@ -105,6 +105,22 @@ def _aicc(loglik: float, k: int, n: int) -> float:
     return -2 * loglik + 2 * k + 2 * k * (k + 1) / (n - k - 1)
 
 
+def _polyfit_line(lx: np.ndarray, ly: np.ndarray) -> tuple:
+    """``np.polyfit(lx, ly, 1)`` (slope, intercept) by the same steps -- a Vandermonde
+    matrix scaled by its column norms, solved by ``np.linalg.lstsq`` -- so the same
+    bits, without the two copies of the data polyfit makes (``lx``, ``ly``: float64,
+    no negative zero, as logs are)."""
+    lhs = np.vander(lx, 2)
+    scale = np.sqrt((lhs * lhs).sum(axis=0))
+    lhs /= scale
+    c, _, rank, _ = np.linalg.lstsq(lhs, ly, len(lx) * np.finfo(lx.dtype).eps)
+    if rank != 2:
+        warnings.warn("Polyfit may be poorly conditioned", np.exceptions.RankWarning,
+                      stacklevel=3)
+    c = (c.T / scale).T
+    return c[0], c[1]
+
+
 def compare_error_structure(x, y) -> ErrorStructure:
     """Is the scatter about y = a x^b multiplicative or additive?
 
@@ -142,7 +158,7 @@ def compare_error_structure(x, y) -> ErrorStructure:
         raise DataError("x does not vary: no power law can be fitted")
 
     # multiplicative: OLS on natural logs
-    b_log, ln_a = np.polyfit(lx, ly, 1)
+    b_log, ln_a = _polyfit_line(lx, ly)
     res_log = ly - ln_a - b_log * lx
     s2_log = float(np.mean(res_log ** 2))
     if s2_log <= 1e-20 * max(float(np.var(ly)), np.finfo(float).tiny):
@@ -159,9 +175,12 @@ def compare_error_structure(x, y) -> ErrorStructure:
     # are unchanged (exact law of a change of scale).
     ln_cx, ln_cy = float(np.mean(lx)), float(np.mean(ly))
     xs, ys = np.exp(lx - ln_cx), np.exp(ly - ln_cy)
+    del lx, ly, res_log   # the nonlinear fit's own arrays are the peak on many points
 
     def power(xv, a, b):
-        return a * np.power(xv, b)
+        out = np.power(xv, b)
+        out *= a   # in place: a * x^b with one array of n points, not two
+        return out
 
     converged = True
     try:

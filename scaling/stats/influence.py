@@ -453,8 +453,9 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
         raise DataError(f"log_x and log_y need at least {MIN_N} rows for points_to_check, "
                         f"not {n}")
     rows = np.arange(n) if rows is None else np.asarray(rows)
-    labels = np.full(n, "", dtype=object) if labels is None else np.asarray(labels, dtype=object)
-    if rows.shape != (n,) or labels.shape != (n,):
+    # no labels: "" for each flagged point, without an array of a million ""
+    labels = None if labels is None else np.asarray(labels, dtype=object)
+    if rows.shape != (n,) or (labels is not None and labels.shape != (n,)):
         raise DataError(f"rows and labels must give one value per point ({n})")
     use = method if method in METHODS else "ols"
     out = []
@@ -464,9 +465,11 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
         b, se = float(inf["slope"]), float(inf["slope_se"])
         for i in np.flatnonzero(flag)[np.argsort(-cook[flag], kind="stable")]:
             out.append(PointCheck(
-                severity="strong", kind="influence", row=int(rows[i]), label=str(labels[i]),
+                severity="strong", kind="influence", row=int(rows[i]),
+                label="" if labels is None else str(labels[i]),
                 value=float(cook[i]), method=use, slope=b, slope_without=float(loo[i]),
                 slope_se=se))
+        del inf, cook, loo, flag
     out += fit_checks(smearing_factor=smearing_factor, parametric_factor=parametric_factor,
                       estimates=estimates)
     if groups is not None or group_codes is not None:
@@ -488,7 +491,9 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
         # one stable sort splits the residuals by group, in row order within each
         order = group_order(codes, n_groups)
         bounds = np.cumsum(np.bincount(codes, minlength=n_groups))[:-1]
-        samples = np.split(resid[order], bounds)
+        resid = resid[order]
+        del order   # each array let go once used: this runs on every pooled point
+        samples = np.split(resid, bounds)
         samples = [s for s in samples if s.size >= 2]
         if len(samples) >= 2:
             with warnings.catch_warnings():

@@ -129,6 +129,8 @@ def moments(x, y, *, higher: bool = False) -> Moments:
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
+    if x.ndim == 1 and x.shape == y.shape and x.size > _CHUNK:
+        return _chunked_moments(x, y, None, 1, higher)[0]
     labels = np.zeros(x.shape, dtype=np.intp)
     return group_moments(x, y, labels, n_groups=1, higher=higher)[0]
 
@@ -159,6 +161,9 @@ def group_moments(x, y, labels, *, n_groups: int | None = None,
     labels = np.asarray(labels, dtype=np.intp)
     if n_groups is None:
         n_groups = int(labels.max()) + 1 if labels.size else 0
+    if (x.ndim == 1 and x.shape == y.shape == labels.shape and x.size > _CHUNK
+            and int(labels.min()) >= 0 and int(labels.max()) < n_groups):
+        return _chunked_moments(x, y, labels, n_groups, higher)
     n = np.bincount(labels, minlength=n_groups).astype(float)
     with np.errstate(divide="ignore", invalid="ignore"):
         mx = np.bincount(labels, weights=x, minlength=n_groups) / n
@@ -180,6 +185,62 @@ def group_moments(x, y, labels, *, n_groups: int | None = None,
         sxy=np.bincount(labels, weights=dx * dy, minlength=n_groups),
         **extra,
     )
+
+
+#: Rows :func:`group_moments` handles at a time beyond this many: its temporary arrays
+#: stay a few megabytes whatever the number of rows (the sums do not depend on it).
+_CHUNK = 1 << 16
+
+
+def _continued(acc: np.ndarray, labels: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """``acc`` plus ``weights`` summed into their groups, added one at a time in row
+    order after ``acc[g]``: the sums one ``np.bincount`` over all the rows gives (it
+    adds each weight to its group's sum in turn), carried on from a previous chunk."""
+    g = acc.size
+    return np.bincount(np.concatenate([_SEEDS[:g] if g <= _SEEDS.size else np.arange(g),
+                                       labels]),
+                       weights=np.concatenate([acc, weights]), minlength=g)
+
+
+_SEEDS = np.arange(1 << 14)
+
+
+def _chunked_moments(x: np.ndarray, y: np.ndarray, labels: np.ndarray | None,
+                     n_groups: int, higher: bool) -> Moments:
+    """:func:`group_moments` a chunk of :data:`_CHUNK` rows at a time, with the same
+    two passes and the same order of additions, so the same bits; ``labels`` None: one
+    group."""
+    size = x.size
+    spans = [(lo, min(lo + _CHUNK, size)) for lo in range(0, size, _CHUNK)]
+    ones = np.zeros(_CHUNK, dtype=np.intp) if labels is None else None
+
+    def codes(lo: int, hi: int) -> np.ndarray:
+        return ones[:hi - lo] if labels is None else labels[lo:hi]
+
+    count = np.zeros(n_groups, dtype=np.int64)
+    sum_x, sum_y = np.zeros(n_groups), np.zeros(n_groups)
+    for lo, hi in spans:
+        c = codes(lo, hi)
+        count += np.bincount(c, minlength=n_groups)
+        sum_x = _continued(sum_x, c, x[lo:hi])
+        sum_y = _continued(sum_y, c, y[lo:hi])
+    n = count.astype(float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mx = sum_x / n
+        my = sum_y / n
+    sums = {k: np.zeros(n_groups) for k in ("sxx", "syy", "sxy", *(HIGHER_KEYS if higher
+                                                                    else ()))}
+    for lo, hi in spans:
+        c = codes(lo, hi)
+        dx = x[lo:hi] - mx[c]
+        dy = y[lo:hi] - my[c]
+        dxx = dx * dx
+        terms = {"sxx": dxx, "syy": dy * dy, "sxy": dx * dy}
+        if higher:
+            terms.update(sxxx=dxx * dx, sxxxx=dxx * dxx, sxxy=dxx * dy)
+        for k, w in terms.items():
+            sums[k] = _continued(sums[k], c, w)
+    return Moments(n=n, mean_x=mx, mean_y=my, **sums)
 
 
 def sort_by_group(labels, *, n_groups: int | None = None) -> tuple[np.ndarray, np.ndarray]:
