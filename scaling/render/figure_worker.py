@@ -10,6 +10,11 @@ writes the tables, and :meth:`Drawing.wait` collects the paths when the report
 needs them.  Without a worker the run is forked into two drawing processes after
 the analysis instead.
 
+When ``png`` is not among ``figures.formats``, the PNGs the report embeds are
+drawn on the same road, into :data:`REPORT_PNGS` of the folder (the output
+writer's temporary folder, so they never reach the output folder), and the
+report reads them with :func:`report_png`.
+
 The files are the same whichever process draws them (a test compares them
 byte for byte).  Whenever another process cannot be used -- not Linux, one core,
 other threads running, the worker died -- the figures are drawn in the calling
@@ -32,7 +37,7 @@ from ..errors import FigureWarning
 from .figure_kinds import FIGURES
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
-           "one_process"]
+           "one_process", "report_png", "REPORT_PNGS"]
 
 #: Runs with more fitted points than this are not streamed to the worker but
 #: drawn by two processes forked after the analysis (nothing copied, matplotlib
@@ -40,6 +45,12 @@ __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_fig
 #: (pickling here, unpickling there); two fresh imports of the drawing stack
 #: about 1.1 s: the break-even lies near 2.5 million points.
 SEND_MAX_POINTS = 2_000_000
+
+#: The folder, inside the folder the figures are drawn into, that holds the PNGs the
+#: report embeds when ``png`` is not among ``figures.formats``: they are drawn with the
+#: figure files (in the same processes) but are no output; the output writer's
+#: temporary folder, removed after the run, holds them.
+REPORT_PNGS = ".report-png"
 
 
 def one_process() -> bool:
@@ -70,20 +81,47 @@ def _draw_share(result, folder: Path, kinds=None,
     from . import figures   # matplotlib: imported only when figures are drawn
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", FigureWarning)
-        paths = [str(p) for p in figures.write_figures(result, Path(folder), kinds=kinds,
-                                                       extras=extras)]
+        paths = [str(p) for p in figures.write_figures(
+            result, Path(folder), kinds=kinds, extras=extras,
+            report_folder=Path(folder) / REPORT_PNGS)]
     notes = [str(w.message) for w in caught if issubclass(w.category, FigureWarning)]
     return paths, notes
 
 
+def _report_pngs(result) -> bool:
+    """True when the report embeds figures of which no PNG file is written: the kinds
+    (or, with several predictors, the partial figures) when ``png`` is not a format."""
+    cfg = result.config.figures
+    return "png" not in cfg.formats and (bool(cfg.kinds) or result.multi_fit is not None)
+
+
 def _anything_to_draw(result) -> bool:
-    """False when the run asks for no figure file: no format, or no kind and none of the
-    figures drawn beyond the kinds (several predictors; the summary of many groups)."""
+    """False when the run asks for no figure file and its report shows no figure: no format
+    and no figure in the report, or no kind and none of the figures drawn beyond the kinds
+    (several predictors; the summary of many groups)."""
     cfg = result.config.figures
     tables = result.tables or {}
     spread = tables.get("exponent_spread")
     extras = result.multi_fit is not None or (spread is not None and len(spread) > 0)
-    return bool(cfg.formats) and (bool(cfg.kinds) or extras)
+    return (bool(cfg.formats) or _report_pngs(result)) and (bool(cfg.kinds) or extras)
+
+
+def report_png(folder: Path, name: str, draw) -> bytes | None:
+    """The PNG of figure ``name`` the report embeds when no PNG file of it was written.
+
+    When the run's figures were drawn into ``folder`` (its :data:`REPORT_PNGS` folder
+    exists), the report's PNG was drawn with them, and a missing file is a figure that
+    could not be drawn; else ``draw()`` draws it here.  None: the figure cannot be drawn
+    (the report leaves it out).
+    """
+    drawn = Path(folder) / REPORT_PNGS
+    if drawn.is_dir():
+        path = drawn / f"{name}.png"
+        return path.read_bytes() if path.is_file() else None
+    try:
+        return draw()
+    except Exception:  # noqa: BLE001 -- a figure that cannot be drawn is left out
+        return None
 
 
 class _Share:
@@ -211,6 +249,9 @@ def _start_here(result, folder: Path, *, draw_here: bool) -> Drawing:
 
 def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
     """Write the run's figures into ``folder``; return (relative paths, skip notes).
+
+    The report's PNGs, when no PNG file is asked for, go to ``folder /`` :data:`REPORT_PNGS`
+    (not among the paths).
 
     Half the figures are drawn in a forked process when two cores are free
     (:func:`one_process` false); should that process fail, its figures are
@@ -363,10 +404,10 @@ class FigureWorker:
 def start_worker(config) -> FigureWorker | None:
     """Fork a figure worker for a run of ``config``, or None when it would not help.
 
-    None when the run draws no figures, or :func:`one_process` holds.
+    None when the run draws no figures (no kind), or :func:`one_process` holds.
     """
     fig = config.figures
-    if not (fig.kinds and fig.formats) or one_process():
+    if not fig.kinds or one_process():   # with no format, the report's PNGs are drawn
         return None
     try:
         return FigureWorker()

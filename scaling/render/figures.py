@@ -29,7 +29,7 @@ from .figure_inputs import reuse_inputs
 from .figure_kinds import FIGURES, KINDS, figure_kind
 from .figure_style import save_figure
 
-__all__ = ["make_figure", "figure_png", "write_figures"]
+__all__ = ["make_figure", "figure_png", "partial_png", "write_figures"]
 
 
 def make_figure(result, kind: str, *, size: str | None = None) -> Figure:
@@ -46,11 +46,24 @@ def make_figure(result, kind: str, *, size: str | None = None) -> Figure:
     return figure_kind(kind).make()(result, size=size or result.config.figures.size)
 
 
-def figure_png(result, kind: str, *, dpi: int = 150, size: str | None = None) -> bytes:
-    """PNG bytes of one figure (used by the report when no PNG was written)."""
+#: Resolution of the PNG the report embeds when the run writes no PNG file.
+REPORT_DPI = 150
+
+
+def figure_png(result, kind: str, *, dpi: int = REPORT_DPI, size: str | None = None) -> bytes:
+    """PNG bytes of one figure (what the report embeds when no PNG file is written)."""
     fig = make_figure(result, kind, size=size)
     buf = io.BytesIO()
     save_figure(fig, buf, "png", dpi)
+    return buf.getvalue()
+
+
+def partial_png(result, term: str) -> bytes:
+    """PNG bytes of the partial figure of ``term`` (several predictors) as the report embeds
+    it when no PNG file is written: the figure's default size, saved as drawn."""
+    fig = figure_kind("partial").make()(result, term=term)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=REPORT_DPI)
     return buf.getvalue()
 
 
@@ -88,7 +101,8 @@ def _draw_and_save(result, kinds, folder: Path) -> list:
     return drawn
 
 
-def write_figures(result, folder: Path, *, kinds=None, extras: bool = True) -> list[Path]:
+def write_figures(result, folder: Path, *, kinds=None, extras: bool = True,
+                  report_folder: Path | None = None) -> list[Path]:
     """Save the run's figures under ``folder/figures``; return paths relative to ``folder``.
 
     ``config.figures.kinds`` selects the figures, ``.formats`` the files
@@ -104,9 +118,16 @@ def write_figures(result, folder: Path, *, kinds=None, extras: bool = True) -> l
     leaves out the figures beyond them (of many groups; of several
     predictors): :mod:`scaling.render.figure_worker` splits a run's figures between
     processes this way.
+
+    ``report_folder``: when ``png`` is not among the formats, the PNG the report
+    embeds of each figure (:func:`figure_png`: drawn once more, at :data:`REPORT_DPI`)
+    is saved there too, as ``<kind>.png``; those files are not among the paths
+    returned (they are not output files), and a figure that cannot be drawn is
+    left out there without a note, as the report leaves it out.
     """
     with reuse_inputs():   # the groups of the points found once for all the figures
-        return _write_figures(result, Path(folder), kinds, extras)
+        return _write_figures(result, Path(folder), kinds, extras,
+                              None if report_folder is None else Path(report_folder))
 
 
 @contextlib.contextmanager
@@ -124,23 +145,39 @@ def _run_objects_left_alone():
         gc.unfreeze()
 
 
-def _write_figures(result, folder: Path, kinds, extras: bool) -> list[Path]:
+def _write_figures(result, folder: Path, kinds, extras: bool,
+                   report_folder: Path | None = None) -> list[Path]:
     with _run_objects_left_alone():
-        return _write_figures_now(result, folder, kinds, extras)
+        return _write_figures_now(result, folder, kinds, extras, report_folder)
 
 
-def _write_figures_now(result, folder: Path, kinds, extras: bool) -> list[Path]:
+def _write_figures_now(result, folder: Path, kinds, extras: bool,
+                       report_folder: Path | None = None) -> list[Path]:
     cfg = result.config.figures
     (folder / "figures").mkdir(parents=True, exist_ok=True)
+    if "png" in cfg.formats:   # the report embeds the PNG files
+        report_folder = None
     if result.multi_fit is not None:   # several predictors: partial relationships
-        return _write_partial_figures(result, folder) if extras else []
+        if not extras:
+            return []
+        out = _write_partial_figures(result, folder) if cfg.formats else []
+        if report_folder is not None:
+            from .report_several import partial_figure_name   # the report reads these names
+            _save_report_pngs(report_folder, [
+                (partial_figure_name(term), lambda term=term: partial_png(result, term))
+                for term in result.multi_fit.names])
+        return out
     chosen = [k for k in cfg.kinds if kinds is None or k in kinds]
     out: list[Path] = []
-    for kind, (done, note) in _draw_and_save(result, chosen, folder):
+    # no format: nothing to draw but the report's PNGs (and no note of a figure not drawn)
+    for kind, (done, note) in _draw_and_save(result, chosen if cfg.formats else [], folder):
         if note:
             warnings.warn(note, FigureWarning, stacklevel=2)
         out += [Path(rel) for rel in done]
-    if not extras:
+    if report_folder is not None:
+        _save_report_pngs(report_folder, [(kind, lambda kind=kind: figure_png(result, kind))
+                                          for kind in chosen])
+    if not extras or not cfg.formats:
         return out
     try:   # the summary across many groups (scaling.run.moments_path), when the run has one
         out += _write_group_exponents(result, folder)
@@ -164,6 +201,20 @@ def _write_group_exponents(result, folder: Path) -> list[Path]:
         save_figure(fig, Path(folder) / rel, fmt, cfg.dpi)
         out.append(rel)
     return out
+
+
+def _save_report_pngs(folder: Path, draws) -> None:
+    """Save ``folder/<name>.png`` from each ``(name, draw)``; ``draw()`` gives the PNG bytes.
+
+    A figure that cannot be drawn is left out (the run has noted it when it wrote its
+    files; the report leaves it out)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, draw in draws:
+        try:
+            png = draw()
+        except Exception:  # noqa: BLE001 -- a figure never fails the run
+            continue
+        (folder / f"{name}.png").write_bytes(png)
 
 
 def _write_partial_figures(result, folder: Path) -> list[Path]:

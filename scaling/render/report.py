@@ -26,6 +26,7 @@ import pandas as pd
 
 from .answer import headline_of
 from .figure_kinds import FIGURES
+from .figure_worker import report_png
 from . import report_parts   # its TABLE_MAX_ROWS is the one cap, read when a report is built
 from .report_parts import (ITEMS_MAX, Block, Section, _bounded,  # noqa: F401
                            _headline_section, _interval_text, _manifest_section, _num,
@@ -246,12 +247,10 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
         if rel in written_set and (folder / rel).exists():
             png = (folder / rel).read_bytes()
             path = rel
-        else:
-            try:
-                from .figures import figure_png   # matplotlib: only for a figure not on disk
-                png = figure_png(result, kind, dpi=150)
-            except Exception:  # noqa: BLE001 -- a figure that cannot be drawn is left out;
-                continue       # write_figures has already put a note in the run's warnings
+        else:   # drawn with the figures (no png format), else here; None: left out
+            png = report_png(folder, kind, lambda kind=kind: _draw_png(result, kind))
+            if png is None:
+                continue
             path = ""
         blocks.append(Block(kind="img", png=png, path=path, name=kind,
                             text=FIGURES[kind].caption if kind in FIGURES else kind))
@@ -260,6 +259,11 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
         blocks.append(Block(kind="img", png=(folder / rel).read_bytes(), path=rel,
                             name="group_exponents", text=FIGURES["group_exponents"].caption))
     return blocks
+
+
+def _draw_png(result, kind: str) -> bytes:
+    from .figures import figure_png   # matplotlib: only for a figure not drawn yet
+    return figure_png(result, kind)
 
 
 def _fits_display(result) -> pd.DataFrame:

@@ -13,7 +13,6 @@ It computes nothing.
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 import numpy as np
@@ -22,6 +21,7 @@ import pandas as pd
 from .answer_several import partial_model, several_group_sentences
 from .answer import headline_of
 from . import report_parts   # its TABLE_MAX_ROWS is read when a report is built
+from .figure_worker import report_png
 from .report_parts import (Block, Section, _bounded, _headline_section,
                            _interval_text, _manifest_section, _summary_section)
 from .wording import (CAUTION, dose_caution, mechanism_applies, mechanism_caution, medians_vs_means,
@@ -48,6 +48,11 @@ def partial_figure_name(term: str) -> str:
     return "partial_" + "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in term)
 
 
+def _partial_png(result, term: str) -> bytes:
+    from .figures import partial_png   # matplotlib only for a figure not drawn yet
+    return partial_png(result, term)
+
+
 def _figure_blocks(result, folder: Path, written: list) -> list:
     """One image per predictor: the partial figure written by the run (else drawn here)."""
     names = result.multi_fit.names
@@ -57,14 +62,10 @@ def _figure_blocks(result, folder: Path, written: list) -> list:
         rel = f"figures/{partial_figure_name(term)}.png"
         if rel in written_set and (folder / rel).exists():
             png, path = (folder / rel).read_bytes(), rel
-        else:
-            try:   # matplotlib only for a figure not on disk (e.g. figures.formats: [pdf])
-                from .figure_partial import make_partial
-                fig = make_partial(result, term=term)
-                buf = io.BytesIO()
-                fig.savefig(buf, format="png", dpi=150)
-                png, path = buf.getvalue(), ""
-            except Exception:  # noqa: BLE001 -- the writer has noted the missing figure
+        else:   # drawn with the figures (e.g. figures.formats: [pdf]), else here
+            png, path = report_png(folder, partial_figure_name(term),
+                                   lambda term=term: _partial_png(result, term)), ""
+            if png is None:   # the writer has noted the missing figure
                 continue
         others = ", ".join(n for n in names if n != term)
         lines = _PARTIAL_LINES[partial_model(result)].format(
