@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from scaling.stats import _profile_grid as pg
 from scaling.stats import common_slope as cs
 from scaling.stats import group_comparisons as gc
 from scaling.stats.moments import group_moments
@@ -200,8 +201,8 @@ class TestGridPruned:
         else:
             lo, hi = phi0 - np.pi / 2, phi0 + np.pi / 2
         grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, 2001)
-        full = cs._grid_values(method, grid, loc, q, nu)
-        pruned = cs._grid_values_pruned(method, grid, loc, q, nu)
+        full = pg.grid_values(method, grid, loc, q, nu)
+        pruned = pg.grid_values_pruned(method, grid, loc, q, nu)
         j = int(np.argmin(full))
         assert int(np.argmin(pruned)) == j
         assert pruned[0, j] == full[0, j]
@@ -305,3 +306,35 @@ class TestProfileTermsInPlace:
             assert np.array_equal(g, w)
         for a, b in zip((loc, q, nu), keep):
             assert np.array_equal(a, b)
+
+
+def _plain_grid(method, grid, loc, q, nu):
+    """F on a grid by the plain expressions, one grid point at a time."""
+    out = np.empty(grid.shape)
+    for j in range(grid.shape[1]):
+        g = grid[:, j:j + 1]
+        if method == "sma":
+            sh = np.sinh(np.clip(g - loc, -100.0, 100.0))
+            d = q + sh * sh
+        else:
+            s = np.sin(g - loc)
+            d = q + (1.0 - q) * s * s
+        out[:, j] = np.sum(nu * np.log(d), axis=-1)
+    return out
+
+
+class TestGridValuesInPlace:
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_equal_the_plain_expressions_bit_for_bit(self, method):
+        # internal consistency: the in-place work array against the plain formula
+        rng = np.random.default_rng(7)
+        M, G, P = 3, 257, 41
+        loc = rng.uniform(-2, 2, (M, G))
+        loc[0, :5] = [150.0, -150.0, 0.0, 1e-12, -1e-12]   # beyond the clip, and at g
+        q = rng.uniform(0.0, 1.0, (M, G))
+        q[1, :4] = [1e-300, 1e-12, 1.0, 0.5]
+        nu = rng.integers(1, 40, (M, G)).astype(float)
+        grid = np.linspace(-3, 3, P)[None, :] + rng.uniform(-0.1, 0.1, (M, 1))
+        # a block smaller than a row's terms: several blocks, the last one shorter
+        got = pg.grid_values(method, grid, loc, q, nu, block=7 * M * G)
+        assert np.array_equal(got, _plain_grid(method, grid, loc, q, nu))

@@ -59,7 +59,7 @@ bootstrap replicates, which brings coverage of small, many-group designs
 from 0.92 to 0.94-0.96 (docs/group_tests.md).
 The standard error of the common slope is from the observed information of
 the profile likelihood: var(u) = 2/F''(u_hat) (SMA; var(b) = b^2 var(u)),
-var(w) = 2/F''(w_hat) (MA; var(b) = ((1 + b^2)/2)^2 var(w)).  With one group
+var(w) = 2/F''(w_hat) (MA; var(b) = ((1 + b^2)/2)^2 var(w)).
 
 The parametric-bootstrap calibration of the group tests (module
 :mod:`scaling.stats.group_comparisons`) also yields the bootstrap profile
@@ -94,6 +94,7 @@ from scipy import optimize, stats
 
 from ..errors import ConfigError, DataError
 from ._group_common import EXACT_FIT_TOL, check_logs, factorize
+from ._profile_grid import grid_values, grid_values_pruned
 from .lines import METHODS, exponent_value, fit_notes
 from .line_results import ConfidenceInterval, SlopeTest
 from .moments import Moments, group_moments
@@ -259,80 +260,17 @@ def _golden(method, loc, q, nu, lo, hi, *, iters: int = 80):
     return 0.5 * (a + b)
 
 
-def _grid_values(method, grid, loc, q, nu, *, block: int = 2_000_000):
-    """F at every point of ``grid`` (M, P): blocks of grid points in one array pass.
-
-    Each block holds at most about ``block`` (row, point, group) terms, so
-    memory stays bounded for any number of groups.
-    """
-    M, P = grid.shape
-    per = max(1, block // max(M * loc.shape[-1], 1))
-    out = np.empty((M, P))
-    for j0 in range(0, P, per):
-        g = grid[:, j0:j0 + per, None]
-        if method == "sma":
-            sh = np.sinh(np.clip(g - loc[:, None, :], -100.0, 100.0))
-            d = q[:, None, :] + sh * sh
-        else:
-            s = np.sin(g - loc[:, None, :])
-            d = q[:, None, :] + (1.0 - q[:, None, :]) * s * s
-        out[:, j0:j0 + per] = np.sum(nu[:, None, :] * np.log(d), axis=-1)
-    return out
-
-
-def _grid_values_pruned(method, grid, loc, q, nu, *, stride: int = 16):
-    """F at the points of ``grid`` (one row, P points) that can hold its smallest
-    value, +inf at the others: the argmin of :func:`_grid_values`, for less work.
-
-    F is evaluated at every ``stride``-th point first.  Between two of them F cannot
-    fall faster than its Lipschitz bound L = sum nu_i max|f_i'| (SMA: |f_i'| <= 2 +
-    1/sqrt(q_i), as q + sinh^2 u >= 2 sqrt(q) |sinh u|; MA: sqrt((1 - q_i)/q_i)), so a
-    point whose bound stays above the smallest value seen by more than rounding is
-    not evaluated.  The others get the values of :func:`_grid_values` to the last bit
-    (each point's sum is its own), so ``np.argmin`` picks the same point.
-    """
-    P = grid.shape[1]
-    coarse = np.arange(0, P, stride)
-    if coarse[-1] != P - 1:
-        coarse = np.append(coarse, P - 1)
-    fc = _grid_values(method, grid[:, coarse], loc, q, nu)[0]
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        lip = 2.0 + 1.0 / np.sqrt(q) if method == "sma" else np.sqrt((1.0 - q) / q)
-        L = float(np.sum(nu * lip))
-        # rounding of each computed F: far below 1e-10 of the sum of its terms' sizes
-        # (|nu log d| <= nu max(|log q|, 200), d = q + sinh^2 with |u| <= 100), and
-        # of the bound's own arithmetic on the grid points
-        size = float(np.sum(nu * np.maximum(np.abs(np.log(q)), 200.0)))
-    g = grid[0]
-    slack = 1e-10 * size + 1e-12 * L * (1.0 + float(np.max(np.abs(g))))
-    if not (np.all(np.isfinite(fc)) and math.isfinite(L) and math.isfinite(slack)):
-        return _grid_values(method, grid, loc, q, nu)
-    points = np.arange(P)
-    right = np.searchsorted(coarse, points)          # first coarse point at or after
-    left = np.where(coarse[right] == points, right, right - 1)
-    with np.errstate(invalid="ignore"):
-        bound = np.maximum(fc[left] - L * (g - g[coarse[left]]),
-                           fc[right] - L * (g[coarse[right]] - g))
-    out = np.full(P, np.inf)
-    out[coarse] = fc
-    todo = np.flatnonzero(bound <= fc.min() + slack)
-    todo = todo[coarse[left[todo]] != todo]
-    if todo.size:
-        out[todo] = _grid_values(method, grid[:, todo], loc, q, nu)[0]
-    return out[None]
-
-
 def _grid_minimum(method, loc, q, nu, lo, hi, *, points: int = 361):
     """Global minimum of F on [lo, hi] by a grid, then golden section nearby.
 
     One row of many groups (the observed data) evaluates the grid where its
-    minimum can be (:func:`_grid_values_pruned`); rows in parallel evaluate all of it.
+    minimum can be (:func:`~scaling.stats._profile_grid.grid_values_pruned`); rows in parallel evaluate all of it.
     """
     grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, points)
     if grid.shape[0] == 1 and points >= 256 and loc.shape[-1] >= 64:
-        values = _grid_values_pruned(method, grid, loc, q, nu)
+        values = grid_values_pruned(method, grid, loc, q, nu)
     else:
-        values = _grid_values(method, grid, loc, q, nu)
+        values = grid_values(method, grid, loc, q, nu)
     j = np.argmin(values, axis=1)
     step = (hi - lo) / (points - 1)
     centre = grid[np.arange(grid.shape[0]), j]

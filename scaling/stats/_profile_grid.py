@@ -1,0 +1,93 @@
+"""The profile objective F of a common SMA/MA slope on a grid of candidate values.
+
+F and its notation are those of :mod:`scaling.stats.common_slope`:
+SMA F(u) = sum_i nu_i log(q_i + sinh^2(u - m_i)), MA F(w) = sum_i nu_i log(q_i +
+(1 - q_i) sin^2(w - phi_i)).  :func:`grid_values` evaluates F at every point of a
+grid for many rows (datasets) at once; :func:`grid_values_pruned` evaluates one row's
+grid only where its smallest value can lie.  The common-slope search
+(``common_slope._grid_minimum``) takes the argmin of either.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = ["grid_values", "grid_values_pruned"]
+
+
+def grid_values(method, grid, loc, q, nu, *, block: int = 2_000_000):
+    """F at every point of ``grid`` (M, P): blocks of grid points in one array pass.
+
+    Blocks of at most about ``block`` (row, point, group) terms bound memory for
+    any number of groups; each is computed in place, by the plain expressions'
+    operations in their order (same bits; tests/test_group_bootstrap_paths.py).
+    """
+    M, P = grid.shape
+    per = max(1, block // max(M * loc.shape[-1], 1))
+    out = np.empty((M, P))
+    loc3, q3, nu3 = loc[:, None, :], q[:, None, :], nu[:, None, :]
+    rest, work, sq = (None if method == "sma" else 1.0 - q3), None, None
+    for j0 in range(0, P, per):
+        g = grid[:, j0:j0 + per, None]
+        if work is None or work.shape[1] != g.shape[1]:
+            work = np.empty((M, g.shape[1], loc.shape[-1]))
+            sq = np.empty_like(work)
+        np.subtract(g, loc3, out=work)
+        if method == "sma":
+            np.clip(work, -100.0, 100.0, out=work)
+            np.sinh(work, out=work)
+            np.multiply(work, work, out=sq)
+            np.add(q3, sq, out=sq)
+        else:
+            np.sin(work, out=work)
+            np.multiply(rest, work, out=sq)
+            np.multiply(sq, work, out=sq)
+            np.add(q3, sq, out=sq)
+        np.log(sq, out=sq)
+        np.multiply(nu3, sq, out=sq)
+        out[:, j0:j0 + per] = np.sum(sq, axis=-1)
+    return out
+
+
+def grid_values_pruned(method, grid, loc, q, nu, *, stride: int = 16):
+    """F at the points of ``grid`` (one row, P points) that can hold its smallest
+    value, +inf at the others: the argmin of :func:`grid_values`, for less work.
+
+    F is evaluated at every ``stride``-th point first.  Between two of them F cannot
+    fall faster than its Lipschitz bound L = sum nu_i max|f_i'| (SMA: |f_i'| <= 2 +
+    1/sqrt(q_i), as q + sinh^2 u >= 2 sqrt(q) |sinh u|; MA: sqrt((1 - q_i)/q_i)), so a
+    point whose bound stays above the smallest value seen by more than rounding is
+    not evaluated.  The others get the values of :func:`grid_values` to the last bit
+    (each point's sum is its own), so ``np.argmin`` picks the same point.
+    """
+    P = grid.shape[1]
+    coarse = np.arange(0, P, stride)
+    if coarse[-1] != P - 1:
+        coarse = np.append(coarse, P - 1)
+    fc = grid_values(method, grid[:, coarse], loc, q, nu)[0]
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        lip = 2.0 + 1.0 / np.sqrt(q) if method == "sma" else np.sqrt((1.0 - q) / q)
+        L = float(np.sum(nu * lip))
+        # rounding of each computed F: far below 1e-10 of the sum of its terms' sizes
+        # (|nu log d| <= nu max(|log q|, 200), d = q + sinh^2 with |u| <= 100), and
+        # of the bound's own arithmetic on the grid points
+        size = float(np.sum(nu * np.maximum(np.abs(np.log(q)), 200.0)))
+    g = grid[0]
+    slack = 1e-10 * size + 1e-12 * L * (1.0 + float(np.max(np.abs(g))))
+    if not (np.all(np.isfinite(fc)) and math.isfinite(L) and math.isfinite(slack)):
+        return grid_values(method, grid, loc, q, nu)
+    points = np.arange(P)
+    right = np.searchsorted(coarse, points)          # first coarse point at or after
+    left = np.where(coarse[right] == points, right, right - 1)
+    with np.errstate(invalid="ignore"):
+        bound = np.maximum(fc[left] - L * (g - g[coarse[left]]),
+                           fc[right] - L * (g[coarse[right]] - g))
+    out = np.full(P, np.inf)
+    out[coarse] = fc
+    todo = np.flatnonzero(bound <= fc.min() + slack)
+    todo = todo[coarse[left[todo]] != todo]
+    if todo.size:
+        out[todo] = grid_values(method, grid[:, todo], loc, q, nu)[0]
+    return out[None]
