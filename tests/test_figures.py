@@ -525,9 +525,8 @@ class TestReadableFigures:
 class TestManyGroupsFigures:
     def test_residuals_of_many_groups_keep_their_layout(self, tmp_path):
         # exact geometry of the drawn figure: with 20 groups of 300 points (6 000 > 5 000
-        # drawn) the subset note stays inside its panel and the layout does not collapse
-        # (it did when the note took part in the layout: matplotlib warned and the
-        # panels shrank to slivers)
+        # drawn) the subset is said once, as the legend's title under the panels (not
+        # over the points of every panel), and the layout does not collapse
         from helpers_figures import simulated
         from scaling.render.figure_style import MAX_DRAWN_POINTS
         result = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(20)], n=300, seed=4)
@@ -537,15 +536,40 @@ class TestManyGroupsFigures:
             fig = make_figure(result, "residuals")
             fig.draw_without_rendering()
         w = fig.bbox.width
-        notes = [(t, ax) for ax in fig.axes for t in ax.texts if "points\nshown" in t.get_text()]
-        assert len(notes) == len(fig.axes)
-        for text, ax in notes:
-            box, panel = text.get_window_extent(), ax.get_window_extent()
-            assert panel.width > 0.25 * w
-            assert box.x0 >= panel.x0 - 1 and box.x1 <= panel.x1 + 1
-        assert "5\u2009000 of 6\u2009000 points" in notes[0][0].get_text()
-        legend = [t.get_text() for lg in fig.legends for t in lg.get_texts()]
-        assert legend == ["20 groups (colours cycle; too many to list)"]
+        assert not [t for ax in fig.axes for t in ax.texts if "shown" in t.get_text()]
+        for ax in fig.axes:
+            assert ax.get_window_extent().width > 0.25 * w
+        (legend,) = fig.legends
+        assert legend.get_title().get_text() == (
+            "5\u2009000 of 6\u2009000 points shown in each panel (random); all are fitted")
+        box = legend.get_window_extent()
+        assert box.x0 >= -1 and box.x1 <= w + 1   # the title fits the figure's width
+        assert [t.get_text() for t in legend.get_texts()] == [
+            "20 groups (colours cycle; too many to list)"]
+
+    def test_subset_note_without_groups_and_on_a_users_axes(self, tmp_path):
+        import matplotlib
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+        from scaling.render.figure_residuals import plot_residuals
+        from scaling.run.pipeline import run_config
+        rng = np.random.default_rng(5)   # simulation with a known truth: y = 2 x^0.75
+        x = 10 ** rng.uniform(0, 3, 6000)
+        pd.DataFrame({"mass": x, "rate": 2 * x ** 0.75 * 10 ** rng.normal(0, 0.08, 6000)}
+                     ).to_csv(tmp_path / "one.csv", index=False)
+        result = run_config({"data": {"file": str(tmp_path / "one.csv"), "x": "mass",
+                                      "y": "rate"}}, write=False)
+        fig = make_figure(result, "residuals")
+        (legend,) = fig.legends   # no groups: a legend only for the note
+        assert legend.get_title().get_text().startswith("5\u2009000 of 6\u2009000 points")
+        assert legend.get_texts() == []
+        # a user's own axes: the figure is theirs, so the note stays on the axes
+        fig2, ax = plt.subplots()
+        plot_residuals(result, ax=ax, method="ols", kind="fitted")
+        assert [t.get_text() for t in ax.texts] == [
+            "5\u2009000 of 6\u2009000 points\nshown; all are fitted"]
+        assert fig2.legends == []
+        plt.close(fig2)
 
 
 class TestGroupCurveValues:

@@ -171,4 +171,6 @@ def make_residuals(result, *, size: str = "single", methods=None) -> Figure:
                           color=group_style(i)[0], markersize=4, label=g)
                    for i, g in enumerate(groups)]
         figure_legend(fig, handles, min(len(groups), 3 if size == "single" else 6))
+    else:   # no groups: a legend only to say the points are a subset, if they are
+        figure_legend(fig, [], 1)
     return fig

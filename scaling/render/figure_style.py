@@ -35,7 +35,7 @@ from ..stats.schema import CATALOGUE
 __all__ = ["STYLE", "PALETTE", "MARKERS", "SIZES", "METHOD_DASHES", "METHOD_SHADES",
            "METHOD_MARKERS", "PHYLO_COLOUR", "LEGEND_MAX_GROUPS", "MAX_DRAWN_POINTS",
            "format_natural", "NaturalLogFormatter", "natural_log_axis", "styled",
-           "save_figure", "thinned_index", "scatter_by_colour"]
+           "save_figure", "thinned_index", "scatter_by_colour", "thinned_notes_to_legend"]
 
 # Okabe & Ito (2008) colour-blind-safe palette (yellow last: weak on white).
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
@@ -251,10 +251,12 @@ def scatter_coded(ax, x, y, codes, n_groups: int, *, total: int | None = None,
     if keep is not None:   # drawing cost grows with points: a stated subsample
         x, y, codes = x[keep], y[keep], codes[keep]
     if n_all > MAX_DRAWN_POINTS:
-        note = ax.text(0.99, 0.01, f"{group_digits(str(MAX_DRAWN_POINTS))} of "
+        # on a figure of ours, figure_legend moves this note into the legend (once)
+        note = ax.text(0.99, 0.03, f"{group_digits(str(MAX_DRAWN_POINTS))} of "
                        f"{group_digits(str(n_all))} points\nshown; all are fitted",
                        transform=ax.transAxes, ha="right", va="bottom", fontsize=5.5,
                        color="#555555", zorder=9, linespacing=1.1,
+                       gid=f"{_THINNED_NOTE}{n_all}",
                        bbox=dict(boxstyle="square,pad=0.15", facecolor="white", alpha=0.75,
                                  edgecolor="none"))
         note.set_in_layout(False)   # a note inside the axes must not squeeze the layout
@@ -333,8 +335,35 @@ def new_figure(size: str, aspect: float) -> Figure:
     return agg_figure(figsize=(width, width * aspect), layout="constrained")
 
 
+#: gid prefix of a thinned scatter's note on its axes (the number of points follows).
+_THINNED_NOTE = "thinned-note-"
+
+
+def thinned_notes_to_legend(fig: Figure) -> str:
+    """The notes of thinned scatters on ``fig``'s axes, removed and returned as one line
+    for the legend's title ("" when no scatter is thinned): said once under the figure,
+    not in every panel over the points."""
+    notes = [t for ax in fig.axes for t in ax.texts
+             if str(t.get_gid() or "").startswith(_THINNED_NOTE)]
+    if not notes:
+        return ""
+    total = max(int(str(t.get_gid())[len(_THINNED_NOTE):]) for t in notes)
+    for t in notes:
+        t.remove()
+    where = " in each panel" if len(notes) > 1 else ""
+    return (f"{group_digits(str(MAX_DRAWN_POINTS))} of {group_digits(str(total))} points "
+            f"shown{where} (random); all are fitted")
+
+
 def figure_legend(fig: Figure, handles: list, ncol: int, **kwargs):
-    """Legend below the axes; fewer columns while it is wider than the figure."""
+    """Legend below the axes; fewer columns while it is wider than the figure.  A note
+    that a scatter shows a subset of the points becomes its title."""
+    note = thinned_notes_to_legend(fig)
+    if note:
+        kwargs.update(title=note, title_fontsize=kwargs.get("fontsize",
+                                                            STYLE["legend.fontsize"]))
+    elif not handles:
+        return None
     ncol = max(1, min(ncol, len(handles)))
     while True:
         legend = fig.legend(handles=handles, loc="outside lower center", ncol=ncol, **kwargs)
