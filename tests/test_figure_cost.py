@@ -202,3 +202,23 @@ def test_a_tight_bounding_box_is_left_to_savefig():
             fig.savefig(theirs, format="png", dpi=50, metadata={"Software": None})
     assert Image.open(ours).size == Image.open(theirs).size
     assert ours.getvalue() == theirs.getvalue()
+
+
+def test_group_lines_left_out_of_the_layout_change_no_pixel(tmp_path):
+    # internal consistency: the same figure laid out with every artist taking part
+    from helpers_figures import simulated
+    result = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(30)], n=8, seed=6)
+    fig = make_figure(result, "scaling")
+    out = [a for ax in fig.axes for a in ax.get_children() if not a.get_in_layout()
+           and a.get_gid() is None and type(a).__name__ == "LineCollection"]
+    assert out   # the 30 group lines and the bars of the 30 means
+    lean = io.BytesIO()
+    fs.save_figure(fig, lean, "png", 100)
+    fig = make_figure(result, "scaling")
+    for ax in fig.axes:
+        for a in ax.get_children():
+            if type(a).__name__ == "LineCollection":
+                a.set_in_layout(True)
+    full = io.BytesIO()
+    fs.save_figure(fig, full, "png", 100)
+    assert lean.getvalue() == full.getvalue()

@@ -206,8 +206,10 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
             elif idx.size:
                 # many groups: small symbols, one artist, a seeded random drawing order
                 # (large symbols of hundreds of means would hide the data and each other)
-                ax.errorbar(mx, my, xerr=xerr, yerr=yerr, fmt="none", ecolor="black",
-                            elinewidth=0.4, capsize=0, zorder=5, alpha=0.6)
+                bars = ax.errorbar(mx, my, xerr=xerr, yerr=yerr, fmt="none", ecolor="black",
+                                   elinewidth=0.4, capsize=0, zorder=5, alpha=0.6)
+                for part in bars.lines[2]:   # clipped to the axes: nothing for the layout
+                    part.set_in_layout(False)
                 scatter_by_colour(ax, mx, my, idx % len(PALETTE), seed=2, s=14,
                                   edgecolor="black", linewidth=0.5, zorder=6)
             handles.append(Line2D([], [], ls="none", marker="o", markerfacecolor="white",
@@ -253,9 +255,12 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                     ls=METHOD_DASHES.get(gmethod, "-"), zorder=3)
             drawn = True
         if segments:
-            ax.add_collection(LineCollection(segments, colors=seg_colours, linewidths=0.9,
-                                             linestyles=METHOD_DASHES.get(gmethod, "-"),
-                                             zorder=3))
+            lines = ax.add_collection(LineCollection(
+                segments, colors=seg_colours, linewidths=0.9,
+                linestyles=METHOD_DASHES.get(gmethod, "-"), zorder=3))
+            # clipped to the axes, so they cannot move the layout, which otherwise
+            # measures each of a thousand paths once more through the log transform
+            lines.set_in_layout(False)
         if drawn:
             handles.append(Line2D([], [], color="#888888", lw=0.9,
                                   ls=METHOD_DASHES.get(gmethod, "-"),
