@@ -335,9 +335,12 @@ class TestGridValuesInPlace:
         q[1, :4] = [1e-300, 1e-12, 1.0, 0.5]
         nu = rng.integers(1, 40, (M, G)).astype(float)
         grid = np.linspace(-3, 3, P)[None, :] + rng.uniform(-0.1, 0.1, (M, 1))
-        # a block smaller than a row's terms: several blocks, the last one shorter
-        got = pg.grid_values(method, grid, loc, q, nu, block=7 * M * G)
-        assert np.array_equal(got, _plain_grid(method, grid, loc, q, nu))
+        want = _plain_grid(method, grid, loc, q, nu)
+        # blocks of several points, the last one shorter; of rows 2 + 1 (a block under
+        # three rows' groups); of one row and point (a block under one row's groups)
+        for block in (7 * M * G, 2 * G + 5, 1):
+            got = pg.grid_values(method, grid, loc, q, nu, block=block)
+            assert np.array_equal(got, want)
 
 
 def _grid_rows(method, M, G, seed, *, points=361, spread=0.3, r_low=0.2, r_high=0.95):
