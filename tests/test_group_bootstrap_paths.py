@@ -432,8 +432,9 @@ class TestGridPrunedRows:
 
     @pytest.mark.parametrize("method", ["sma", "ma"])
     @pytest.mark.parametrize("points", [361, 2001])
-    def test_grid_minimum_equals_the_whole_grid(self, method, points, monkeypatch):
-        grid, loc, q, nu = _grid_rows(method, 30, 100, 38, points=2)
+    @pytest.mark.parametrize("groups", [3, 100])
+    def test_grid_minimum_equals_the_whole_grid(self, method, points, groups, monkeypatch):
+        grid, loc, q, nu = _grid_rows(method, 30, groups, 38, points=2)
         lo, hi = grid[:, 0], grid[:, -1]
         got = cs._grid_minimum(method, loc, q, nu, lo, hi, points=points)
         monkeypatch.setattr(cs, "grid_values_pruned", pg.grid_values)
