@@ -335,6 +335,108 @@ class TestGridValuesInPlace:
         q[1, :4] = [1e-300, 1e-12, 1.0, 0.5]
         nu = rng.integers(1, 40, (M, G)).astype(float)
         grid = np.linspace(-3, 3, P)[None, :] + rng.uniform(-0.1, 0.1, (M, 1))
-        # a block smaller than a row's terms: several blocks, the last one shorter
-        got = pg.grid_values(method, grid, loc, q, nu, block=7 * M * G)
-        assert np.array_equal(got, _plain_grid(method, grid, loc, q, nu))
+        want = _plain_grid(method, grid, loc, q, nu)
+        # blocks of several points, the last one shorter; of rows 2 + 1 (a block under
+        # three rows' groups); of one row and point (a block under one row's groups)
+        for block in (7 * M * G, 2 * G + 5, 1):
+            got = pg.grid_values(method, grid, loc, q, nu, block=block)
+            assert np.array_equal(got, want)
+
+
+def _grid_rows(method, M, G, seed, *, points=361, spread=0.3, r_low=0.2, r_high=0.95):
+    """Rows of groups as a bootstrap chunk draws them, with each row's search grid."""
+    rng = np.random.default_rng(seed)
+    n = rng.integers(3, 20, (M, G)).astype(float)
+    sxx = rng.uniform(0.2, 3, (M, G))
+    slopes = rng.normal(0.75, spread, (M, G)) * rng.uniform(0.5, 2.0, (M, 1))
+    r = rng.uniform(r_low, r_high, (M, G))
+    syy = sxx * slopes ** 2 / r ** 2
+    sxy = r * np.sqrt(sxx * syy) * np.sign(slopes)
+    loc, q, _, phi0 = cs._axis_params(method, sxx, syy, sxy)
+    if method == "sma":
+        lo, hi = loc.min(-1), loc.max(-1)
+    else:
+        lo, hi = phi0 - np.pi / 2, phi0 + np.pi / 2
+    grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, points)
+    return grid, loc, q, n - 1.0
+
+
+def _assert_same_minimum(method, grid, loc, q, nu, **kw):
+    """The pruned grid's argmin and computed values are those of the whole grid."""
+    full = pg.grid_values(method, grid, loc, q, nu)
+    pruned = pg.grid_values_pruned(method, grid, loc, q, nu, **kw)
+    assert pruned.shape == full.shape
+    assert np.array_equal(np.argmin(pruned, axis=1), np.argmin(full, axis=1))
+    seen = ~np.isposinf(pruned)
+    assert np.array_equal(pruned[seen], full[seen], equal_nan=True)
+    return full, pruned
+
+
+class TestGridPrunedRows:
+    """Internal consistency: many rows pruned at once give, row by row, the argmin of the
+    whole grid and its values at every point they evaluate, to the last bit."""
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    @pytest.mark.parametrize("points", [361, 2001])
+    def test_many_rows_same_argmin_and_values(self, method, points):
+        grid, loc, q, nu = _grid_rows(method, 60, 90, 31, points=points)
+        # a small block: the coarse pass and the gathered pairs both run in several
+        # blocks, the last one shorter
+        _, pruned = _assert_same_minimum(method, grid, loc, q, nu, block=7 * 90 + 13)
+        assert np.mean(np.isposinf(pruned)) > 0.5     # it did leave most points out
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_rows_where_nothing_can_be_pruned(self, method):
+        # near-exact groups (q ~ 1e-10) with slopes far apart: the Lipschitz bound is
+        # far too loose to exclude any point, so every point is evaluated
+        loose = _grid_rows(method, 4, 70, 32, spread=1.0, r_low=1 - 1e-10, r_high=1.0)
+        tight = _grid_rows(method, 4, 70, 33)
+        grid, loc, q, nu = (np.concatenate(pair) for pair in zip(loose, tight))
+        _, pruned = _assert_same_minimum(method, grid, loc, q, nu)
+        assert np.all(np.isfinite(pruned[:4]))
+        assert np.any(np.isposinf(pruned[4:]))
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_rows_with_nan_or_inf_are_evaluated_whole(self, method):
+        grid, loc, q, nu = _grid_rows(method, 6, 80, 34)
+        loc[0, 5] = np.nan            # NaN values at every point
+        loc[1, 7] = np.inf            # MA: NaN values (sin(inf)); SMA: clipped, finite
+        q[2, 3] = 0.0                 # infinite Lipschitz bound
+        nu[3, 1] = np.inf             # infinite values
+        with np.errstate(invalid="ignore"):
+            full, pruned = _assert_same_minimum(method, grid, loc, q, nu)
+        whole = [0, 2, 3] if method == "sma" else [0, 1, 2, 3]
+        assert np.array_equal(pruned[whole], full[whole], equal_nan=True)
+        assert np.any(np.isposinf(pruned[4:]))        # the finite rows are still pruned
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_one_group(self, method):
+        for M in (1, 5):
+            grid, loc, q, nu = _grid_rows(method, M, 1, 35, points=2001)
+            if method == "sma":       # a zero-width window: every point the same
+                grid = grid + np.linspace(-0.5, 0.5, 2001)
+            _assert_same_minimum(method, grid, loc, q, nu)
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    def test_gathered_pairs_equal_the_grid_bit_for_bit(self, method):
+        # a point's value is a sum over the groups axis only, so it is the same whichever
+        # other (row, point) pairs share its block, in whatever order
+        grid, loc, q, nu = _grid_rows(method, 9, 301, 36, points=50)
+        full = pg.grid_values(method, grid, loc, q, nu)
+        rng = np.random.default_rng(37)
+        rows = rng.integers(0, 9, 500)
+        cols = rng.integers(0, 50, 500)
+        for block in (1, 301, 5 * 301 + 7, 10 ** 7):
+            got = pg._pair_values(method, grid[rows, cols], rows, loc, q, nu, block)
+            assert np.array_equal(got, full[rows, cols])
+
+    @pytest.mark.parametrize("method", ["sma", "ma"])
+    @pytest.mark.parametrize("points", [361, 2001])
+    @pytest.mark.parametrize("groups", [3, 100])
+    def test_grid_minimum_equals_the_whole_grid(self, method, points, groups, monkeypatch):
+        grid, loc, q, nu = _grid_rows(method, 30, groups, 38, points=2)
+        lo, hi = grid[:, 0], grid[:, -1]
+        got = cs._grid_minimum(method, loc, q, nu, lo, hi, points=points)
+        monkeypatch.setattr(cs, "grid_values_pruned", pg.grid_values)
+        want = cs._grid_minimum(method, loc, q, nu, lo, hi, points=points)
+        assert np.array_equal(got, want)
