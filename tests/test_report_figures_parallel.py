@@ -99,7 +99,7 @@ def _drawn_here(config: Path) -> list:
         warnings.simplefilter("ignore")
         result = analyse(load_config(config), quiet=True)
     if result.multi_fit is not None:
-        from scaling.render.report_several import partial_figure_name
+        from scaling.render.figure_kinds import partial_figure_name
         return [(f"{partial_figure_name(t)} figure", figures.partial_png(result, t))
                 for t in result.multi_fit.names]
     return [(f"{kind} figure", figures.figure_png(result, kind))

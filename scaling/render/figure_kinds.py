@@ -22,7 +22,7 @@ from typing import Callable
 from ..errors import ConfigError
 from ..stats.schema import FIGURE_KINDS
 
-__all__ = ["FigureKind", "FIGURES", "KINDS", "figure_kind"]
+__all__ = ["FigureKind", "FIGURES", "KINDS", "figure_kind", "partial_figure_name"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -108,3 +108,9 @@ def figure_kind(name: str) -> FigureKind:
         return FIGURES[name]
     except KeyError:
         raise ConfigError(f"figure kind must be one of {', '.join(KINDS)}, not {name!r}") from None
+
+
+def partial_figure_name(term: str) -> str:
+    """The file stem of the partial figure of ``term`` (several predictors): the figure
+    writer names its files so, and the report finds them by it."""
+    return "partial_" + "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in term)

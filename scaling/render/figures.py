@@ -26,7 +26,7 @@ from matplotlib.figure import Figure
 
 from ..errors import ConfigError, FigureWarning
 from .figure_inputs import reuse_inputs
-from .figure_kinds import FIGURES, KINDS, figure_kind
+from .figure_kinds import FIGURES, KINDS, figure_kind, partial_figure_name
 from .figure_style import save_figure
 
 __all__ = ["make_figure", "figure_png", "partial_png", "write_figures"]
@@ -162,7 +162,6 @@ def _write_figures_now(result, folder: Path, kinds, extras: bool,
             return []
         out = _write_partial_figures(result, folder) if cfg.formats else []
         if report_folder is not None:
-            from .report_several import partial_figure_name   # the report reads these names
             _save_report_pngs(report_folder, [
                 (partial_figure_name(term), lambda term=term: partial_png(result, term))
                 for term in result.multi_fit.names])
@@ -223,15 +222,15 @@ def _write_partial_figures(result, folder: Path) -> list[Path]:
     make = figure_kind("partial").make()
     out: list[Path] = []
     for term in result.multi_fit.names:
-        safe = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in term)
+        name = partial_figure_name(term)   # the report finds the file by this name
         try:
             fig = make(result, size=cfg.size, term=term)
             for fmt in cfg.formats:
-                rel = Path("figures") / f"partial_{safe}.{fmt}"
+                rel = Path("figures") / f"{name}.{fmt}"
                 save_figure(fig, folder / rel, fmt, cfg.dpi)
                 out.append(rel)
         except Exception as exc:  # noqa: BLE001 -- a figure never fails the run
-            warnings.warn(f"Figure 'partial_{safe}' was not drawn ({type(exc).__name__}: "
+            warnings.warn(f"Figure '{name}' was not drawn ({type(exc).__name__}: "
                           f"{exc}); the numeric results are complete in the tables.",
                           FigureWarning, stacklevel=2)
     return out

@@ -28,7 +28,7 @@ from .answer import headline_of
 from .figure_kinds import FIGURES
 from .figure_worker import report_png
 from . import report_parts   # its TABLE_MAX_ROWS is the one cap, read when a report is built
-from .report_parts import (ITEMS_MAX, Block, Section, _bounded,  # noqa: F401
+from .report_parts import (Block, Section, _bounded,  # noqa: F401
                            _headline_section, _interval_text, _manifest_section, _num,
                            _summary_section)
 from .prediction_words import extrapolation_words, prediction_notes

@@ -21,13 +21,14 @@ import pandas as pd
 from .answer_several import partial_model, several_group_sentences
 from .answer import headline_of
 from . import report_parts   # its TABLE_MAX_ROWS is read when a report is built
+from .figure_kinds import partial_figure_name
 from .figure_worker import report_png
 from .report_parts import (Block, Section, _bounded, _headline_section,
                            _interval_text, _manifest_section, _summary_section)
 from .wording import (CAUTION, dose_caution, mechanism_applies, mechanism_caution, medians_vs_means,
                       predicted_unit)
 
-__all__ = ["build_several_report", "partial_figure_name"]
+__all__ = ["build_several_report"]
 
 _PARTIAL_CAPTION = ("Partial relationship of y with {term}: each point is y adjusted to the "
                     "geometric means of the other predictors ({others}){lines}. Log axes in "
@@ -41,11 +42,6 @@ _PARTIAL_LINES = {
     "group": ("; one line per {word} with its own exponent of {term} (points adjusted by "
               "the exponents of their own {word})"),
 }
-
-
-def partial_figure_name(term: str) -> str:
-    """The file stem of the partial figure of ``term`` (as the figure writer names it)."""
-    return "partial_" + "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in term)
 
 
 def _partial_png(result, term: str) -> bytes:

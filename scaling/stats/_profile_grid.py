@@ -10,11 +10,25 @@ grid only where its smallest value can lie.  The common-slope search
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 __all__ = ["grid_values", "grid_values_pruned"]
+
+
+def _log_terms(method, work, sq, q, rest) -> None:
+    """``sq`` <- log(q + sinh(clip(u))^2) (SMA) or log(q + (1 - q) sin(u) sin(u)) (MA) for
+    ``u`` in ``work`` (overwritten), in place, by the plain expressions' operations in
+    their order (``rest`` = 1 - q for MA), so every term has the plain value's bits."""
+    if method == "sma":
+        np.clip(work, -100.0, 100.0, out=work)
+        np.sinh(work, out=work)
+        np.multiply(work, work, out=sq)
+    else:
+        np.sin(work, out=work)
+        np.multiply(rest, work, out=sq)
+        np.multiply(sq, work, out=sq)
+    np.add(q, sq, out=sq)
+    np.log(sq, out=sq)
 
 
 def grid_values(method, grid, loc, q, nu, *, block: int = 1 << 19):
@@ -48,17 +62,7 @@ def _grid_block(method, grid, loc, q, nu, block, out):
             work = np.empty((M, g.shape[1], loc.shape[-1]))
             sq = np.empty_like(work)
         np.subtract(g, loc3, out=work)
-        if method == "sma":
-            np.clip(work, -100.0, 100.0, out=work)
-            np.sinh(work, out=work)
-            np.multiply(work, work, out=sq)
-            np.add(q3, sq, out=sq)
-        else:
-            np.sin(work, out=work)
-            np.multiply(rest, work, out=sq)
-            np.multiply(sq, work, out=sq)
-            np.add(q3, sq, out=sq)
-        np.log(sq, out=sq)
+        _log_terms(method, work, sq, q3, rest)
         np.multiply(nu3, sq, out=sq)
         out[:, j0:j0 + per] = np.sum(sq, axis=-1)
 
@@ -139,18 +143,9 @@ def _pair_values(method, x, rows, loc, q, nu, block):
         np.take(loc, r, axis=0, out=sq)
         np.subtract(g, sq, out=work)
         np.take(q, r, axis=0, out=qk)
-        if method == "sma":
-            np.clip(work, -100.0, 100.0, out=work)
-            np.sinh(work, out=work)
-            np.multiply(work, work, out=sq)
-            np.add(qk, sq, out=sq)
-        else:
+        if rest is not None:
             np.subtract(1.0, qk, out=rest)
-            np.sin(work, out=work)
-            np.multiply(rest, work, out=sq)
-            np.multiply(sq, work, out=sq)
-            np.add(qk, sq, out=sq)
-        np.log(sq, out=sq)
+        _log_terms(method, work, sq, qk, rest)
         np.take(nu, r, axis=0, out=qk)
         np.multiply(qk, sq, out=sq)
         out[k0:k0 + per] = np.sum(sq, axis=-1)
