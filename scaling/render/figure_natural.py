@@ -14,14 +14,14 @@ from matplotlib.ticker import FuncFormatter, MaxNLocator
 from ..stats.logscale import to_log
 from ..stats.predictions import predict, saved_factor
 from ..stats.schema import method_label
-from .figure_inputs import (axis_label, fit_xrange, reused, run_groups, run_methods,
-                            scatter_groups)
+from .figure_inputs import (axis_label, drawn_points, fit_xrange, reused, run_groups,
+                            run_methods, scatter_groups)
 from .headline import answer_line
 from .prediction_words import answer_primary, inverse_run, predicting_method
 from .wording import possessive
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE, STYLE,
                            arith_formatter, figure_legend, group_style, many_groups_handle,
-                           new_figure, styled)
+                           new_figure, scatter_coded, styled)
 
 __all__ = ["plot_natural", "make_natural", "groups_differ"]
 
@@ -213,13 +213,13 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
     curves (the groups' slopes differ).  Returns (legend handles, (x, y) arrays of
     everything drawn for the limits).
     """
-    pts = result.data.points
+    pts, total = drawn_points(result)   # limits follow the points drawn
     size = 5 if small else 10
     handles = []
     xs_all, ys_all = [pts["x"].to_numpy(float)], [pts["y"].to_numpy(float)]
     if groups:
-        scatter_groups(ax, pts, groups, s=size, edgecolor="white", linewidth=0.3,
-                        alpha=0.75, zorder=2)
+        scatter_groups(ax, pts, groups, total=total, s=size, edgecolor="white",
+                       linewidth=0.3, alpha=0.75, zorder=2)
         if len(groups) <= LEGEND_MAX_GROUPS:
             for i, g in enumerate(groups):
                 colour, marker = group_style(i)
@@ -228,8 +228,9 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
         else:
             handles.append(many_groups_handle(len(groups)))
     else:
-        ax.scatter(pts["x"], pts["y"], s=size, facecolor=PALETTE[0], edgecolor="white",
-                   linewidth=0.3, alpha=0.8, zorder=2)
+        scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(),
+                      np.zeros(len(pts), dtype=int), 1, total=total, s=size,
+                      edgecolor="white", linewidth=0.3, alpha=0.8, zorder=2)
         handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
                               markersize=4, label="data"))
     n_curves = 0
@@ -365,6 +366,12 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     shaded.  Both axes stay arithmetic, so the curve, its bias-corrected mean
     and its band are read in natural units; no log, square-root or symlog scale.
 
+    Points: above :data:`~scaling.render.figure_style.MAX_DRAWN_POINTS` the seeded
+    subset is drawn (:func:`~scaling.render.figure_inputs.drawn_points`, stated
+    under the figure), and the zoom, the limits and the inset's corner follow the
+    points drawn, so a large-data run, which collects the same subset, draws the
+    same figure.
+
     Groups whose slopes differ (the Answer reports each group's own line,
     :func:`groups_differ`): each group's own curve of the predicting method
     is drawn in the group's colour over its fitted x range (no bands: they
@@ -379,7 +386,7 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     full-range panel only.
     """
     own = ax is None
-    pts = result.data.points
+    pts, _ = drawn_points(result)   # the zoom follows the points drawn
     x = pts["x"].to_numpy(dtype=float)
     x = x[np.isfinite(x) & (x > 0)]
     decades = float(np.log10(x.max() / x.min())) if len(x) else 0.0
