@@ -160,7 +160,10 @@ class DrawnPoints:
     base : float or None
         Log base (natural x and y are ``base ** log`` when a chunk has only the logs).
     start : int
-        Position of the first point this collector sees (a Dask partition's offset).
+        Position of the first point this collector sees.
+    positions : array of int, optional
+        Sorted positions to pick instead of those of ``n`` (a Dask partition's own,
+        counted from its first usable row).
     """
 
     def __init__(self, n: int, labels=None, base=None, *, start: int = 0,
