@@ -255,7 +255,8 @@ class TestManyGroupsRun:
 
 
 class TestScalingFigureOfTheMomentsPath:
-    """The moments path holds no points: its scaling figure draws what needs none."""
+    """The moments path holds no points: its scaling figure draws the points its second
+    pass picked, the lines and the means, as the in-memory figure does."""
 
     @staticmethod
     def _figure(result):
@@ -275,11 +276,15 @@ class TestScalingFigureOfTheMomentsPath:
         big = _run(_cfg(path, tmp_path, data={"moments_above_mb": 1e-6, "chunk_size": 40}))
         ax_m, texts_m, _ = self._figure(mem)
         ax_b, texts_b, _ = self._figure(big)
-        # exact: 30 rows in each of five groups; every legend entry of the in-memory
-        # figure is there, and one more says the points are not drawn
+        # exact: 30 rows in each of five groups; the legend is the in-memory figure's
         assert "g0000 (n = 30)" in texts_b
-        assert [t for t in texts_b if t != "points not drawn: large-data run"] == texts_m
-        assert "points not drawn: large-data run" in texts_b
+        assert texts_b == texts_m
+        # the same 150 points (internal consistency: the rows of the file)
+        drawn = [np.vstack([c.get_offsets() for c in ax.collections
+                            if len(c.get_offsets()) and c.get_zorder() == 2])
+                 for ax in (ax_m, ax_b)]
+        assert drawn[0].shape == (150, 2)
+        np.testing.assert_allclose(drawn[1], drawn[0], rtol=1e-14)
         # the same lines (pooled line and one per group; internal consistency)
         lines_m = sorted((round(float(ln.get_ydata()[0]), 9), len(ln.get_xdata()))
                          for ln in ax_m.lines)
@@ -295,11 +300,11 @@ class TestScalingFigureOfTheMomentsPath:
         # exact: 25 groups, one line segment each and two SE bars on each mean, as the
         # in-memory figure draws them
         assert segments == segments_m == 25 * 3
-        assert "points not drawn: large-data run" in texts
+        assert "points not drawn: large-data run" not in texts
 
     def test_without_groups_the_legend_gives_the_points_fitted(self, data_files):
         tmp, csv, _, _ = data_files
         cfg = _cfg(csv, tmp, data={"moments_above_mb": 1e-6, "group": None})
         _, texts, _ = self._figure(_run(cfg))
-        # exact: the 1000 rows written
-        assert "points not drawn: large-data run (n = 1000)" in texts
+        # exact: the 1000 rows written, drawn as in memory
+        assert "data (n = 1000)" in texts

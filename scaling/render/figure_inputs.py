@@ -16,11 +16,13 @@ import pandas as pd
 
 from ..stats.lines import parse_log_base
 from ..stats.line_results import ConfidenceInterval
-from .figure_style import scatter_coded
+from .figure_style import scatter_coded, thinned_index
+from .thinning import DRAWN_TABLE
 from .headline import primary_method
 from .wording import unit_text
 
-__all__ = ["reuse_inputs", "reused", "run_base", "axis_label", "points_held", "run_groups", "group_sizes", "fitted_n",
+__all__ = ["reuse_inputs", "reused", "run_base", "axis_label", "points_held", "points_drawn",
+           "drawn_points", "run_groups", "group_sizes", "fitted_n",
            "group_codes", "scatter_groups",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
@@ -90,8 +92,36 @@ def axis_label(result, role: str) -> str:
 
 def points_held(result) -> bool:
     """False for a large-data run, which never holds its points (``points`` is empty):
-    its figures draw the fits and group means, not the points."""
+    its counts come from the fits, and its figures draw the points of
+    :func:`drawn_points` (collected by its second pass)."""
     return bool(len(result.data.points)) or "large_data" not in (result.manifest or {})
+
+
+def points_drawn(result) -> bool:
+    """True when the run's figures have points to draw (:func:`drawn_points`): every
+    in-memory run, and a large-data run whose second pass collected them."""
+    return points_held(result) or isinstance((result.tables or {}).get(DRAWN_TABLE),
+                                             pd.DataFrame)
+
+
+def drawn_points(result) -> tuple:
+    """(the points a scatter draws, the number of points fitted).
+
+    In memory: all the points, or above :data:`~scaling.render.figure_style.MAX_DRAWN_POINTS`
+    the seeded subset :func:`~scaling.render.figure_style.thinned_index` of them, in
+    the points' order.  On a large-data run: the same subset, collected by its second
+    pass as the rows streamed past (``result.tables[DRAWN_TABLE]``; the count is the
+    pooled fits' n).  What a figure places, zooms or scales by its points, it does by
+    these, so both roads draw the same figure.
+    """
+    pts = result.data.points
+    table = (result.tables or {}).get(DRAWN_TABLE)
+    if not points_held(result) and isinstance(table, pd.DataFrame):
+        return table, fitted_n(result)
+    keep = thinned_index(len(pts))
+    if keep is None:
+        return pts, len(pts)
+    return reused(("drawn", id(pts)), (pts,), lambda: pts.iloc[keep]), len(pts)
 
 
 def run_groups(result) -> list:

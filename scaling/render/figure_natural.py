@@ -14,14 +14,14 @@ from matplotlib.ticker import FuncFormatter, MaxNLocator
 from ..stats.logscale import to_log
 from ..stats.predictions import predict, saved_factor
 from ..stats.schema import method_label
-from .figure_inputs import (axis_label, fit_xrange, reused, run_groups, run_methods,
-                            scatter_groups)
+from .figure_inputs import (axis_label, drawn_points, fit_xrange, reused, run_groups,
+                            run_methods, scatter_groups)
 from .headline import answer_line
 from .prediction_words import answer_primary, inverse_run, predicting_method
 from .wording import possessive
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE, STYLE,
                            arith_formatter, figure_legend, group_style, many_groups_handle,
-                           new_figure, styled)
+                           new_figure, scatter_coded, styled)
 
 __all__ = ["plot_natural", "make_natural", "groups_differ"]
 
@@ -66,6 +66,39 @@ def _row_colours(preds, groups: list | None) -> list:
             for g in preds["group"]]
 
 
+#: Up to this many marked predictions each is its own artist; above, one artist per colour
+#: (a thousand groups' predictions drawn one by one take seconds).
+MARKED_ONE_BY_ONE = 40
+
+
+def _mark_rows(ax, x, y, mid, low, high, colours, *, across: bool, marker: str, mfc, ls,
+               ms: float, small: bool, gid: str) -> None:
+    """Markers at (x, y) with the interval ``low``-``high`` around ``mid`` as a bar
+    (``across``: horizontal, for an x read off the line; else vertical), in each row's
+    colour; ``mfc`` None: filled in that colour."""
+    finite = np.isfinite(low) & np.isfinite(high)
+    bar_kw = dict(fmt="none", elinewidth=0.8, capsize=2.0 if small else 2.5, capthick=0.8,
+                  zorder=6)
+    if len(x) <= MARKED_ONE_BY_ONE:
+        batches = [([i], colours[i]) for i in range(len(x))]
+    else:
+        batches = [(np.flatnonzero(colours == c), c) for c in dict.fromkeys(colours)]
+    for rows, c in batches:
+        bars = [i for i in rows if finite[i]]
+        if len(rows) == 1 or bars:
+            err = (np.vstack([np.maximum(mid[bars] - low[bars], 0.0),
+                              np.maximum(high[bars] - mid[bars], 0.0)]) if bars else None)
+            at = rows if len(rows) == 1 else bars
+            cont = ax.errorbar(x[at], y[at], **({"xerr": err} if across else {"yerr": err}),
+                               ecolor=c, **bar_kw)
+            if err is not None:
+                for bar in cont.lines[2]:
+                    bar.set_linestyle(ls)
+        ax.plot(x[rows], y[rows], ls="none", marker=marker, markersize=ms,
+                markerfacecolor=mfc or c, markeredgecolor=c, markeredgewidth=0.8, zorder=7,
+                gid=gid)
+
+
 def _inverse_markers(ax, result, preds, handles, xs_all, ys_all, *, small: bool,
                      groups: list | None = None) -> None:
     """Each requested y marked on the line at the x read off it, with the x interval as a
@@ -87,19 +120,9 @@ def _inverse_markers(ax, result, preds, handles, xs_all, ys_all, *, small: bool,
         sel = extra == flag
         if not np.any(sel):
             continue
-        for xi, yi, li, hi_, c in zip(x[sel], y[sel], low[sel], high[sel], colours[sel]):
-            err = ([[max(xi - li, 0.0)], [max(hi_ - xi, 0.0)]]
-                   if np.isfinite(li) and np.isfinite(hi_) else None)
-            cont = ax.errorbar([xi], [yi], xerr=err, fmt="none", ecolor=c,
-                               elinewidth=0.8, capsize=2.0 if small else 2.5,
-                               capthick=0.8, zorder=6)
-            if err is not None:
-                for bar in cont.lines[2]:
-                    bar.set_linestyle(style["ls"])
-            ax.plot([xi], [yi], ls="none", marker="s", markersize=ms,
-                    markerfacecolor=style["mfc"] or c, markeredgecolor=c,
-                    markeredgewidth=0.8, zorder=7,
-                    gid="inverse-extrapolated" if flag else "inverse")
+        _mark_rows(ax, x[sel], y[sel], x[sel], low[sel], high[sel], colours[sel],
+                   across=True, marker="s", mfc=style["mfc"], ls=style["ls"], ms=ms,
+                   small=small, gid="inverse-extrapolated" if flag else "inverse")
         handles.append(Line2D([], [], color=_PRED_COLOUR, lw=0.8, ls=style["ls"], marker="s",
                               markersize=4, markerfacecolor=style["mfc"] or _PRED_COLOUR,
                               markeredgecolor=_PRED_COLOUR, label=label))
@@ -213,13 +236,13 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
     curves (the groups' slopes differ).  Returns (legend handles, (x, y) arrays of
     everything drawn for the limits).
     """
-    pts = result.data.points
+    pts, total = drawn_points(result)   # limits follow the points drawn
     size = 5 if small else 10
     handles = []
     xs_all, ys_all = [pts["x"].to_numpy(float)], [pts["y"].to_numpy(float)]
     if groups:
-        scatter_groups(ax, pts, groups, s=size, edgecolor="white", linewidth=0.3,
-                        alpha=0.75, zorder=2)
+        scatter_groups(ax, pts, groups, total=total, s=size, edgecolor="white",
+                       linewidth=0.3, alpha=0.75, zorder=2)
         if len(groups) <= LEGEND_MAX_GROUPS:
             for i, g in enumerate(groups):
                 colour, marker = group_style(i)
@@ -228,8 +251,9 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
         else:
             handles.append(many_groups_handle(len(groups)))
     else:
-        ax.scatter(pts["x"], pts["y"], s=size, facecolor=PALETTE[0], edgecolor="white",
-                   linewidth=0.3, alpha=0.8, zorder=2)
+        scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(),
+                      np.zeros(len(pts), dtype=int), 1, total=total, s=size,
+                      edgecolor="white", linewidth=0.3, alpha=0.8, zorder=2)
         handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
                               markersize=4, label="data"))
     n_curves = 0
@@ -279,19 +303,10 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
             sel = extra == flag
             if not np.any(sel):
                 continue
-            for xi, yi, li, hi_, c in zip(x[sel], y[sel], low[sel], high[sel], colours[sel]):
-                err = ([[max(yi - li, 0.0)], [max(hi_ - yi, 0.0)]]
-                       if np.isfinite(li) and np.isfinite(hi_) else None)
-                cont = ax.errorbar([xi], [yi], yerr=err, fmt="none", ecolor=c,
-                                   elinewidth=0.8, capsize=2.0 if small else 2.5,
-                                   capthick=0.8, zorder=6)
-                if err is not None:
-                    for bar in cont.lines[2]:
-                        bar.set_linestyle(style["ls"])
-                ax.plot([xi], [yi], ls="none", marker=style["marker"], markersize=ms,
-                        markerfacecolor=style["mfc"] or c, markeredgecolor=c,
-                        markeredgewidth=0.8, zorder=7,
-                        gid="prediction-extrapolated" if flag else "prediction")
+            _mark_rows(ax, x[sel], y[sel], y[sel], low[sel], high[sel], colours[sel],
+                       across=False, marker=style["marker"], mfc=style["mfc"], ls=style["ls"],
+                       ms=ms, small=small,
+                       gid="prediction-extrapolated" if flag else "prediction")
             handles.append(Line2D([], [], color=_PRED_COLOUR, lw=0.8, ls=style["ls"],
                                   marker=style["marker"], markersize=4,
                                   markerfacecolor=style["mfc"] or _PRED_COLOUR,
@@ -365,6 +380,12 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     shaded.  Both axes stay arithmetic, so the curve, its bias-corrected mean
     and its band are read in natural units; no log, square-root or symlog scale.
 
+    Points: above :data:`~scaling.render.figure_style.MAX_DRAWN_POINTS` the seeded
+    subset is drawn (:func:`~scaling.render.figure_inputs.drawn_points`, stated
+    under the figure), and the zoom, the limits and the inset's corner follow the
+    points drawn, so a large-data run, which collects the same subset, draws the
+    same figure.
+
     Groups whose slopes differ (the Answer reports each group's own line,
     :func:`groups_differ`): each group's own curve of the predicting method
     is drawn in the group's colour over its fitted x range (no bands: they
@@ -379,7 +400,7 @@ def plot_natural(result, *, ax=None, methods=None, correction: str | None = None
     full-range panel only.
     """
     own = ax is None
-    pts = result.data.points
+    pts, _ = drawn_points(result)   # the zoom follows the points drawn
     x = pts["x"].to_numpy(dtype=float)
     x = x[np.isfinite(x) & (x > 0)]
     decades = float(np.log10(x.max() / x.min())) if len(x) else 0.0

@@ -10,7 +10,8 @@ from matplotlib.ticker import MaxNLocator
 from scipy import stats
 
 from ..stats.schema import method_label
-from .figure_inputs import group_codes, reused, run_groups, run_methods
+from .figure_inputs import (drawn_points, group_codes, points_held, reused, run_groups,
+                            run_methods)
 from .figure_style import (LEGEND_MAX_GROUPS, PAGE_HEIGHT, SIZES, STYLE, agg_figure,
                            figure_legend, group_style, many_groups_handle, new_figure,
                            scatter_coded, styled, thinned_index)
@@ -53,6 +54,23 @@ def _point_residuals(fit, pts) -> tuple:
         resid = _residual(fit, X, Y)
         return X, Y, resid, float(np.max(np.abs(resid))) if resid.size else 0.0
     return reused(("residuals", id(fit), id(pts)), (fit, pts), compute)
+
+
+def _residual_points(result) -> tuple:
+    """(points whose residuals are drawn, points fitted).
+
+    In memory: all points (the normal-quantile panel places the drawn ones at their
+    ranks among all residuals, and the limits hold every residual).  A large-data
+    run never holds them all: the points its second pass collected
+    (:func:`~scaling.render.figure_inputs.drawn_points`), the same as the in-memory
+    figure draws; up to :data:`~scaling.render.figure_style.MAX_DRAWN_POINTS` points
+    they are all the points and the panels are the same, above it their quantiles
+    and limits are those of the drawn points (ranking every residual needs all rows
+    at once) and the run says so in a note.
+    """
+    if points_held(result):
+        return result.data.points, len(result.data.points)
+    return drawn_points(result)
 
 
 _FITTED_LABEL = {"ols": "Fitted value (log scale)"}
@@ -98,7 +116,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     if ax is None:
         ax = new_figure(size, 0.8).add_subplot()
     fit = result.line_fits.get((scope, "", method))
-    pts = result.data.points
+    pts, total = _residual_points(result)
     if fit is None:
         ax.text(0.5, 0.5, f"{method_label(method)}: no estimable fit", ha="center",
                 va="center", transform=ax.transAxes)
@@ -115,7 +133,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ranked = resid[order]   # sorted: its quartiles are those of resid, found faster
         at = order[drawn]
         q = _normal_quantiles(n, drawn)
-        scatter_coded(ax, q, ranked[drawn], codes[at], len(groups), total=n, s=9,
+        scatter_coded(ax, q, ranked[drawn], codes[at], len(groups), total=total, s=9,
                        edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
         if n >= 4:
             q1, q3 = np.percentile(ranked, [25, 75])
@@ -132,7 +150,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         drawn = thinned_index(n)
         drawn = slice(None) if drawn is None else drawn
         scatter_coded(ax, _position(fit, X[drawn], Y[drawn]), resid[drawn], codes[drawn],
-                       len(groups), total=n, s=9, edgecolor="white", linewidth=0.3,
+                       len(groups), total=total, s=9, edgecolor="white", linewidth=0.3,
                        alpha=0.85, zorder=2)
         ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
         ax.set_xlabel(_FITTED_LABEL.get(method, _POSITION_LABEL))

@@ -21,7 +21,8 @@ from matplotlib.lines import Line2D
 from ..stats.logscale import to_log
 from ..stats.schema import method_label
 from .figure_inputs import (axis_label, common_slope_fit, drawn_primary, factor_of, fit_xrange,
-                            fitted_n, group_means_table, group_sizes, points_held, run_base,
+                            drawn_points, fitted_n, group_means_table, group_sizes, points_drawn,
+                            run_base,
                             run_groups, run_methods, scatter_groups, slopes_agree)
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE,
                            PHYLO_COLOUR, STYLE, THIN, figure_legend, group_style, log_margins,
@@ -144,7 +145,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     own = ax is None
     if own:
         ax = new_figure(size, 0.92).add_subplot()
-    pts = result.data.points
+    pts, total = drawn_points(result)   # at most MAX_DRAWN_POINTS, the same on every road
     base = run_base(result)
     if methods is None:   # the primary method's line; other methods only when asked
         drawn = list(result.config.model.methods)
@@ -158,8 +159,9 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     handles: list = []
     gm = None
     xs_all, ys_all = [pts["x"].to_numpy()], [pts["y"].to_numpy()]
-    # a large-data run never holds its points: lines and group means only, and it says so
-    held = points_held(result)
+    # points to draw: in memory, or collected by a large-data run's second pass; without
+    # them (a large-data result made before they were collected) lines and means, said so
+    held = points_drawn(result)
     unheld = Line2D([], [], ls="none", marker="none",
                     label="points not drawn: large-data run"
                           + ("" if groups else f" (n = {fitted_n(result)})"))
@@ -168,8 +170,8 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
     if groups:
         gm = group_means_table(result)
         if held:
-            scatter_groups(ax, pts, groups, s=12, edgecolor="white", linewidth=0.3,
-                           alpha=0.75, zorder=2)
+            scatter_groups(ax, pts, groups, total=total, s=12, edgecolor="white",
+                           linewidth=0.3, alpha=0.75, zorder=2)
         if len(groups) <= LEGEND_MAX_GROUPS:
             sizes = group_sizes(result, groups)
             for i, g in enumerate(groups):
@@ -219,10 +221,10 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         handles.append(unheld)
     else:
         scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(),
-                       np.zeros(len(pts), dtype=int), 1, s=12, edgecolor="white",
+                       np.zeros(len(pts), dtype=int), 1, total=total, s=12, edgecolor="white",
                        linewidth=0.3, alpha=0.8, zorder=2)   # same look; thinned above a size
         handles.append(Line2D([], [], ls="none", marker="o", color=PALETTE[0],
-                              markersize=4.5, label=f"data (n = {len(pts)})"))
+                              markersize=4.5, label=f"data (n = {total})"))
 
     # per-group lines
     common, gmethod = None, None

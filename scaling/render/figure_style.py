@@ -31,6 +31,7 @@ from PIL import Image
 from PIL.PngImagePlugin import PngInfo
 
 from ..stats.schema import CATALOGUE
+from .thinning import MAX_DRAWN_POINTS as _MAX_DRAWN_POINTS, subset_index
 
 __all__ = ["STYLE", "PALETTE", "MARKERS", "SIZES", "METHOD_DASHES", "METHOD_SHADES",
            "METHOD_MARKERS", "PHYLO_COLOUR", "LEGEND_MAX_GROUPS", "MAX_DRAWN_POINTS",
@@ -51,7 +52,7 @@ PHYLO_COLOUR = "#b2182b"   # phylogenetic lines in the scaling plot (one colour,
 LEGEND_MAX_GROUPS = 12
 PAGE_HEIGHT = 9.0        # inches: an A4 or letter page less its margins
 #: Scatter plots draw a seeded random subset of this many points above it (stated on the axes).
-MAX_DRAWN_POINTS = 5_000
+MAX_DRAWN_POINTS = _MAX_DRAWN_POINTS
 MM = 1 / 25.4
 SIZES = {"single": 85 * MM, "double": 180 * MM}
 THIN = "\u2009"   # thin space between digit groups: 1 000, 10 000
@@ -229,10 +230,10 @@ def group_style(i: int) -> tuple:
 
 def thinned_index(n: int):
     """Sorted indices of the seeded random subset of :data:`MAX_DRAWN_POINTS` of ``n``
-    points a scatter plot draws, or None when all ``n`` are drawn."""
-    if n <= MAX_DRAWN_POINTS:
-        return None
-    return np.sort(np.random.default_rng(0).choice(n, MAX_DRAWN_POINTS, replace=False))
+    points a scatter plot draws, or None when all ``n`` are drawn
+    (:func:`scaling.render.thinning.subset_index`, which the moments path's second
+    pass uses to collect the same points)."""
+    return subset_index(n, MAX_DRAWN_POINTS)
 
 
 def scatter_coded(ax, x, y, codes, n_groups: int, *, total: int | None = None,

@@ -27,8 +27,9 @@ Two stages used by :func:`scaling.run.pipeline.analyse`:
   needs every row at once is skipped, with one note: row bootstrap,
   permutation tests, row-based robust lines and leave-one-out refits beyond
   the pooled line.  Rows dropped while cleaning are counted per reason
-  (``dropped_counts``), not listed one by one.  The scaling figure draws the
-  lines and group means, not the points.
+  (``dropped_counts``), not listed one by one.  The figures are those of the
+  in-memory run: the second pass picks the points they draw (at most
+  ``MAX_DRAWN_POINTS``, the same seeded subset, :class:`scaling.run.second_pass.DrawnPoints`).
 * :func:`spread_stage` -- with more groups than ``groups.spread_min``, the
   random-effects summary of the per-group exponents of each line method
   (:func:`scaling.stats.spread.spread_from_fits`): the mean exponent with its
@@ -231,10 +232,10 @@ class MomentsStage:
     Attributes
     ----------
     config : Config
-        The run's config, with ``figures.kinds`` cut to the figures this path
-        can draw.
+        The run's config.
     data : CleanData
-        ``points`` empty (no rows are kept), ``dropped`` empty.
+        ``points`` empty (no rows are kept: the figures' points are picked by the
+        second pass), ``dropped`` empty.
     fits, slope_tests : DataFrame
         Equal to those of the ordinary run to rounding.
     line_fits : dict
@@ -367,13 +368,7 @@ def _moments_stage(cfg, reason: str, spill: RowSpill | None) -> MomentsStage:
         notes.append(f"Row-based methods not fitted on the large-data path: "
                      f"{', '.join(others)}.")
 
-    drawable = tuple(k for k in cfg.figures.kinds if k in ("scaling", "exponents"))
-    if drawable != tuple(cfg.figures.kinds):
-        gone = [k for k in cfg.figures.kinds if k not in drawable]
-        notes.append(f"Figures that need the rows were not drawn on the large-data path: "
-                     f"{', '.join(gone)}; the scaling figure draws the fitted lines and "
-                     "the group means, not the points.")
-        cfg = replace(cfg, figures=replace(cfg.figures, kinds=drawable))
+    # every figure is drawn: the second pass picks the points they draw
     empty = pd.DataFrame({"row": pd.Series(dtype=np.int64), "x": pd.Series(dtype=float),
                           "y": pd.Series(dtype=float), "log_x": pd.Series(dtype=float),
                           "log_y": pd.Series(dtype=float), "n_rows": pd.Series(dtype=np.int64)})
@@ -434,7 +429,9 @@ def with_groups(path: MomentsStage, grouped, cfg) -> MomentsStage:
     tests = [path.slope_tests, slope_tests(grouped.line_fits, cfg)]
     if grouped.test_rows:
         tests.append(pd.DataFrame(list(grouped.test_rows), columns=SLOPE_TEST_COLUMNS))
-    tests = pd.concat([t for t in tests if len(t)], ignore_index=True)[SLOPE_TEST_COLUMNS]
+    tests = [t for t in tests if len(t)]   # none without exponents to test
+    tests = (pd.concat(tests, ignore_index=True)[SLOPE_TEST_COLUMNS] if tests
+             else path.slope_tests)
     return replace(path, fits=fits, slope_tests=tests,
                    line_fits={**path.line_fits, **grouped.line_fits},
                    tables={**path.tables, **grouped.tables},

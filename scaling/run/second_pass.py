@@ -49,6 +49,7 @@ from ..io.chunked import (clean_chunk, dask_compute, dask_partitions, file_kind,
                           read_chunks)
 from ..render.findings import check_verdict, diagnostics_messages, point_check_reason
 from ..render.headline import answer_line
+from ..render.thinning import DRAWN_TABLE, MAX_DRAWN_POINTS, subset_index
 from ..stats.influence import SMEARING_RATIO_LIMIT, PointCheck, fit_checks
 from ..stats.line_results import line_fits_from_result
 from ..stats.lines import exact_fit, fit_moments
@@ -137,6 +138,99 @@ def _lines(fits: pd.DataFrame, keys: list, methods: list) -> dict:
 
 
 # --------------------------------------------------------------------------
+# the points the figures draw
+
+
+class DrawnPoints:
+    """The points the figures draw, picked while the points stream past in file order.
+
+    Of the run's ``n`` points, those at the positions
+    :func:`~scaling.render.thinning.subset_index` picks (all of them up to
+    :data:`~scaling.render.thinning.MAX_DRAWN_POINTS`): the points the in-memory
+    figures draw, whose points are the cleaned rows in file order.  Each chunk costs
+    one ``searchsorted`` on the sorted positions; at most ``MAX_DRAWN_POINTS`` points
+    are held.
+
+    Parameters
+    ----------
+    n : int
+        Points of the run (the pooled n).
+    labels : sequence of str
+        The run's group names (``codes`` index into them); None without groups.
+    base : float or None
+        Log base (natural x and y are ``base ** log`` when a chunk has only the logs).
+    start : int
+        Position of the first point this collector sees.
+    positions : array of int, optional
+        Sorted positions to pick instead of those of ``n`` (a Dask partition's own,
+        counted from its first usable row).
+    """
+
+    def __init__(self, n: int, labels=None, base=None, *, start: int = 0,
+                 positions=None) -> None:
+        if positions is None:
+            keep = subset_index(n, MAX_DRAWN_POINTS)
+            positions = np.arange(n, dtype=np.int64) if keep is None else keep
+        self.positions = np.asarray(positions, dtype=np.int64)
+        #: every point is drawn (at most MAX_DRAWN_POINTS): positions 0, 1, ..., n - 1
+        self.every = bool(self.positions.size <= MAX_DRAWN_POINTS and (
+            not self.positions.size or self.positions[-1] == self.positions.size - 1))
+        self.labels = None if labels is None else np.asarray(labels, dtype=object)
+        self.base = base
+        self.seen = start
+        self.parts: list = []
+
+    def add(self, X, Y, rows, codes=None, x=None, y=None) -> None:
+        """The next ``len(X)`` points (log x, log y, row numbers, group codes; natural
+        ``x, y`` when at hand)."""
+        first = self.seen
+        self.seen += int(X.size)
+        lo, hi = np.searchsorted(self.positions, (first, self.seen))
+        if hi <= lo:
+            return
+        i = self.positions[lo:hi] - first
+        self.parts.append((np.asarray(rows)[i], _natural(X[i], x, i, self.base),
+                           _natural(Y[i], y, i, self.base), X[i], Y[i],
+                           None if codes is None else np.asarray(codes)[i]))
+
+    def table(self) -> pd.DataFrame:
+        """``row, x, y, log_x, log_y`` (and ``group``) of the points picked, in order."""
+        cols = list(zip(*self.parts)) if self.parts else [[]] * 6
+        out = {name: (np.concatenate(c) if len(c) else np.empty(0, dtype=dtype))
+               for name, c, dtype in zip(("row", "x", "y", "log_x", "log_y"), cols,
+                                         (np.int64, float, float, float, float))}
+        frame = pd.DataFrame(out)
+        if self.labels is not None:
+            codes = np.concatenate(cols[5]) if len(cols[5]) else np.empty(0, dtype=np.intp)
+            frame["group"] = self.labels[codes]
+        return frame
+
+
+def _natural(logs, values, i, base):
+    """Natural units of the picked points: the values read when at hand, else ``base ** log``."""
+    if values is not None:
+        return np.asarray(values, dtype=float)[i]
+    if base is None:
+        return np.array(logs, dtype=float)
+    return np.power(base, logs)
+
+
+def _unit_points(units: pd.DataFrame, base, grouped: bool) -> pd.DataFrame:
+    """The points drawn among the unit means (held in memory, in row order as in memory)."""
+    keep = subset_index(len(units), MAX_DRAWN_POINTS)
+    pts = units if keep is None else units.iloc[keep]
+    lx, ly = (pts[c].to_numpy(dtype=float) for c in ("log_x", "log_y"))
+    frame = pd.DataFrame({"row": pts["row"].to_numpy(dtype=np.int64),
+                          "unit": pts["unit"].to_numpy(),
+                          "x": lx if base is None else np.power(base, lx),
+                          "y": ly if base is None else np.power(base, ly),
+                          "log_x": lx, "log_y": ly})
+    if grouped:
+        frame["group"] = pts["group"].astype(str).to_numpy()
+    return frame
+
+
+# --------------------------------------------------------------------------
 # reading the rows again
 
 
@@ -155,8 +249,10 @@ def _params(m, lines: dict, base, methods: list, checked: str, check_groups: boo
                 checked=np.ones_like(sets) if check_groups else sets, strong=sets)
 
 
-def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: bool,
-          first_row: int):
+def _feed(acc: ResidualSums | None, between, part, cfg, base, label_index, grouped: bool,
+          first_row: int, drawn: DrawnPoints | None = None) -> tuple:
+    """Clean one chunk and add its usable rows; (rows read, rows used).  ``acc`` None:
+    the rows are only looked at for the points drawn."""
     d = cfg.data
     c = clean_chunk(part, d.x, d.y, d.group, d.decimal)
     rows = first_row + np.arange(c.n_rows, dtype=np.int64) + 1      # 1-based data rows
@@ -167,20 +263,26 @@ def _feed(acc: ResidualSums, between, part, cfg, base, label_index, grouped: boo
         x, y, rows = x[keep], y[keep], rows[keep]
         codes = codes[keep] if codes is not None else None
     if not x.size:
-        return c.n_rows
+        return c.n_rows, 0
     _add_rows(acc, between, c.labels, codes, to_log(x, base), to_log(y, base), rows,
-              label_index, grouped)
-    return c.n_rows
+              label_index, grouped, drawn, x, y)
+    return c.n_rows, int(x.size)
 
 
-def _add_rows(acc: ResidualSums, between, labels, codes, X, Y, rows, label_index,
-              grouped: bool) -> None:
-    """Add a chunk's usable rows (log x, log y, chunk group codes, row numbers)."""
+def _add_rows(acc: ResidualSums | None, between, labels, codes, X, Y, rows, label_index,
+              grouped: bool, drawn: DrawnPoints | None = None, x=None, y=None) -> None:
+    """Add a chunk's usable rows (log x, log y, chunk group codes, row numbers; ``x, y``
+    in natural units when at hand) to the sums and to the points drawn."""
     if not X.size:
+        return
+    local = (label_index.get_indexer(pd.Index(labels).astype(str))[codes] if grouped
+             else None)
+    if drawn is not None:
+        drawn.add(X, Y, rows, local, x, y)
+    if acc is None:
         return
     acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
     if grouped:
-        local = label_index.get_indexer(pd.Index(labels).astype(str))[codes]
         acc.add(1 + local, X, Y, rows)
         between.add(local, X, Y)
 
@@ -198,22 +300,42 @@ def _feed_points(acc: ResidualSums, between, points: pd.DataFrame, label_index,
         between.add(local, X, Y)
 
 
-def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped):
-    """The residual sums of one Dask partition (rows numbered from 1 within it)."""
+def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped, take: int):
+    """The residual sums of one Dask partition (rows numbered from 1 within it), its rows
+    read and used, and, when ``take`` (the run's n, at most
+    :data:`~scaling.render.thinning.MAX_DRAWN_POINTS`: every point is drawn), its points."""
     pdf.columns = [str(col).strip() for col in pdf.columns]
     acc = ResidualSums(**params)
     between = GroupResidualSums(**between_params)
-    n_rows = _feed(acc, between, pdf, cfg, base, pd.Index(labels), grouped, 0)
-    return acc, between, n_rows
+    drawn = DrawnPoints(0, positions=np.arange(take)) if take else None
+    n_rows, n_used = _feed(acc, between, pdf, cfg, base, pd.Index(labels), grouped, 0, drawn)
+    return acc, between, n_rows, n_used, (drawn.parts if drawn is not None else None)
+
+
+def _partition_drawn(pdf, cfg, base, labels, grouped, positions):
+    """The points of one Dask partition at ``positions`` (among its usable rows)."""
+    pdf.columns = [str(col).strip() for col in pdf.columns]
+    drawn = DrawnPoints(0, positions=positions)
+    _feed(None, None, pdf, cfg, base, pd.Index(labels), grouped, 0, drawn)
+    return drawn.parts
+
+
+def _offset_parts(parts, rows: int) -> list:
+    """A partition's picked points with its row numbers moved on by ``rows``."""
+    return [(p[0] + rows, *p[1:]) for p in parts]
 
 
 def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str,
-                  spill=None) -> tuple:
+                  spill=None, drawn: DrawnPoints | None = None) -> tuple:
     """Read the rows again: the filled :class:`ResidualSums`, the group-residual sums of
     the pooled ``checked`` line, the set keys and the sets' moments.
 
     ``spill``: the first pass's :class:`~scaling.run.table_moments.RowSpill`; when
     usable its chunks are read instead of the file (the same rows, chunk for chunk).
+    ``drawn``: also pick the points the figures draw (filled in place); with Dask and
+    more points than are drawn, a partition's points are known only once the
+    partitions before it are counted, so they are picked in a second read of the
+    partitions (holding them would hold every row).
     """
     d = cfg.data
     grouped = bool(d.group)
@@ -242,26 +364,47 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
     if spill is not None and spill.usable:
         for chunk in spill.chunks():
             _add_rows(acc, between, chunk.labels, chunk.codes, chunk.X, chunk.Y, chunk.rows,
-                      label_index, grouped)
+                      label_index, grouped, drawn)
     elif cfg.engine == "dask":
         # Dask partitions are read and cleaned again: holding them (persist) would keep
         # every row in the workers' memory, which this road exists to avoid.
         import dask   # the first pass has checked that it is installed
         parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
+        every = drawn is not None and drawn.every
+        take = int(drawn.positions.size) if every else 0
         tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, between_params,
-                                               list(label_index), grouped) for p in parts]
-        offset = 0
-        for part, part_between, n_rows in dask_compute(tasks, cfg.scheduler):  # file order
-            part.offset_rows(offset)
+                                               list(label_index), grouped, take)
+                 for p in parts]
+        offset = used = 0
+        firsts = []   # (first row, first point) of each partition
+        for part, part_between, n_rows, n_used, picked in dask_compute(tasks, cfg.scheduler):
+            part.offset_rows(offset)    # file order
             acc.merge(part)
             between.merge(part_between)
-            offset += n_rows
+            if picked:
+                drawn.parts += _offset_parts(picked, offset)
+            firsts.append((offset, used))
+            offset, used = offset + n_rows, used + n_used
+        if drawn is not None and not every:
+            ends = [u for _, u in firsts[1:]] + [used]
+            cut = np.searchsorted(drawn.positions, [u for _, u in firsts] + [used])
+            later, where = [], []
+            for i, (p, (rows, first)) in enumerate(zip(parts, firsts)):
+                if cut[i + 1] > cut[i] and ends[i] > first:
+                    later.append(dask.delayed(_partition_drawn)(
+                        p, cfg, base, list(label_index), grouped,
+                        drawn.positions[cut[i]:cut[i + 1]] - first))
+                    where.append(rows)
+            for picked, rows in zip(dask_compute(later, cfg.scheduler) if later else (),
+                                    where):
+                drawn.parts += _offset_parts(picked, rows)
     else:
         offset = 0
         for file in files_of(path, kind):
             for part in read_chunks(file, kind, columns, d.chunk_size, "pandas", sep,
                                     d.decimal):
-                offset += _feed(acc, between, part, cfg, base, label_index, grouped, offset)
+                offset += _feed(acc, between, part, cfg, base, label_index, grouped, offset,
+                                drawn)[0]
     return acc, (between if grouped else None), keys, m
 
 
@@ -301,7 +444,11 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     checked = primary_method(cfg)
     if checked not in methods:
         checked = methods[0]
-    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked, spill)
+    n_points = int(np.atleast_1d(gm.pooled.n)[0])
+    drawn = (None if gm.units is not None or not _draws_points(cfg)
+             else DrawnPoints(n_points, gm.labels if cfg.data.group else None, base))
+    acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked, spill,
+                                          drawn)
     res = acc.result()
     # a point's name: its unit under data.average_within (as in memory), else none
     names = ({} if gm.units is None
@@ -368,9 +515,35 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         notes += diag_notes
         messages += diag_messages
     notes.append(skipped_note(cfg.diagnostics.enabled and cfg.diagnostics.error_structure))
+    if gm.units is not None and _draws_points(cfg):
+        tables[DRAWN_TABLE] = _unit_points(gm.units, base, bool(cfg.data.group))
+    elif drawn is not None:
+        tables[DRAWN_TABLE] = drawn.table()
+    if (DRAWN_TABLE in tables and "residuals" in cfg.figures.kinds
+            and n_points > MAX_DRAWN_POINTS):
+        notes.append(drawn_quantiles_note(n_points))
     return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
                       checks=res, line_fits=all_fits, messages=tuple(messages),
                       notes=tuple(notes))
+
+
+#: Figure kinds that draw the run's points.
+POINT_FIGURES = ("scaling", "natural", "residuals")
+
+
+def _draws_points(cfg) -> bool:
+    """True when a figure of the run draws its points (its second pass picks them)."""
+    return any(kind in POINT_FIGURES for kind in cfg.figures.kinds)
+
+
+def drawn_quantiles_note(n: int) -> str:
+    """What the residual figure of a large-data run shows differently (above the points drawn)."""
+    shown = f"{MAX_DRAWN_POINTS:,}".replace(",", "\u2009")
+    total = f"{n:,}".replace(",", "\u2009")
+    return (f"The residual figure's normal-quantile panels rank the {shown} points drawn "
+            f"among themselves, and its limits hold those points: ranking all {total} "
+            "residuals needs every row at once (the other panels and figures are those of "
+            "the in-memory run).")
 
 
 def skipped_note(error_structure: bool = False) -> str:
