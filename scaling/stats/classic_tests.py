@@ -110,7 +110,6 @@ def _normal_scores(p: np.ndarray) -> np.ndarray:
     return out
 
 
-@functools.lru_cache(maxsize=32)
 def _coefficients(n: int) -> np.ndarray:
     """The n//2 coefficients a_1 >= a_2 >= ... of AS R94 (the upper half of a)."""
     n2 = n // 2
@@ -133,8 +132,27 @@ def _coefficients(n: int) -> np.ndarray:
         first = 1
     a[0] = a1
     a[first:] = -m[first:] * (1.0 / fac)   # by the reciprocal, as AS R94 is run
-    a.flags.writeable = False   # cached: shared by every sample of this size
     return a
+
+
+@functools.lru_cache(maxsize=32)
+def _centred_weights(n: int) -> tuple:
+    """(a_i - mean a, sum of their squares) in sorted-sample order, for size n.
+
+    The coefficient of the i-th smallest value is -a_i in the lower half,
+    +a_(n+1-i) in the upper half and 0 in the middle of an odd sample.  They
+    depend on n alone, so they are cached (read-only) for the next sample.
+    """
+    a = _coefficients(n)
+    n2 = n // 2
+    coef = np.zeros(n)
+    coef[:n2] = -a
+    coef[n - n2:] = a[::-1]
+    sa = float(np.cumsum(coef)[-1]) / n   # AS R94's running sums, first to last
+    asa = coef - sa
+    ssa = float(np.cumsum(asa * asa)[-1])
+    asa.flags.writeable = False
+    return asa, ssa
 
 
 def _upper_normal(z: float) -> float:
@@ -197,22 +215,15 @@ def shapiro_wilk(x) -> TestResult:
     rng = y[-1] - y[0]
     if rng < _SMALL:
         return TestResult(1.0, 1.0)
-    a = _coefficients(n)
-    # coefficient of the i-th smallest value: -a_i in the lower half, +a_(n+1-i)
-    # in the upper half, 0 in the middle of an odd sample
-    n2 = n // 2
-    coef = np.zeros(n)
-    coef[:n2] = -a
-    coef[n - n2:] = a[::-1]
-    xs = y / rng
-    # the running sums of AS R94 in its order (np.cumsum adds left to right)
-    sx = float(np.cumsum(xs)[-1]) / n
-    sa = float(np.cumsum(coef)[-1]) / n
-    asa = coef - sa
-    xsx = xs - sx
-    ssa = float(np.cumsum(asa * asa)[-1])
-    ssx = float(np.cumsum(xsx * xsx)[-1])
-    sax = float(np.cumsum(asa * xsx)[-1])
+    asa, ssa = _centred_weights(n)
+    # the running sums of AS R94 in its order (np.cumsum adds first to last)
+    y /= rng
+    sx = float(np.cumsum(y)[-1]) / n
+    y -= sx
+    w = y * y
+    ssx = float(np.cumsum(w, out=w)[-1])
+    np.multiply(asa, y, out=w)
+    sax = float(np.cumsum(w, out=w)[-1])
     ssassx = math.sqrt(ssa * ssx)
     w1 = (ssassx - sax) * (ssassx + sax) / (ssa * ssx)
     w = 1.0 - w1

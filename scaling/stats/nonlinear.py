@@ -66,8 +66,9 @@ def _norm(v) -> float:
     very large and very small ones."""
     v = np.abs(np.asarray(v, dtype=float))
     giant = _RGIANT / v.size
-    if v.size > 2 and np.all((v > _RDWARF) & (v < giant)):
-        return np.sqrt(float(np.cumsum(v * v)[-1]))
+    if v.size > 2 and v.min() > _RDWARF and v.max() < giant:
+        np.multiply(v, v, out=v)   # v is our own copy: square and sum in place
+        return np.sqrt(np.cumsum(v, out=v)[-1])
     s1 = s2 = s3 = x1max = x3max = 0.0
     for xabs in v:   # numpy scalars: IEEE arithmetic on NaN and infinities, as in C
         if _RDWARF < xabs < giant:
@@ -94,7 +95,10 @@ def _norm(v) -> float:
 
 def _dot(u: np.ndarray, v: np.ndarray) -> float:
     """Running sum of u_i v_i, first to last."""
-    return np.cumsum(u * v)[-1] if u.size else np.float64(0.0)
+    if not u.size:
+        return np.float64(0.0)
+    w = u * v
+    return np.cumsum(w, out=w)[-1]
 
 
 def _qr_pivoted(a: np.ndarray):
@@ -118,7 +122,8 @@ def _qr_pivoted(a: np.ndarray):
             a[:, [j, kmax]] = a[:, [kmax, j]]
             rdiag[kmax], wa[kmax] = rdiag[j], wa[j]
             order[j], order[kmax] = order[kmax], order[j]
-        ajnorm = _norm(a[j:, j])
+        # the first column is whole: its norm is already known
+        ajnorm = acnorm[order[0]] if j == 0 else _norm(a[j:, j])
         if ajnorm != 0:
             if a[j, j] < 0:
                 ajnorm = -ajnorm
@@ -334,7 +339,7 @@ def _fit(model, xdata, ydata, p, max_evaluations, ftol, xtol, factor) -> Nonline
     delta = xnorm = 0.0
     while True:
         # forward-difference Jacobian
-        fjac = np.empty((m, n))
+        fjac = np.empty((m, n), order="F")   # columns contiguous
         for j in range(n):
             temp = p[j]
             h = eps * abs(temp)
