@@ -7,7 +7,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import MaxNLocator
-from scipy import stats
+from ..stats import tails
 
 from ..stats.schema import method_label
 from .figure_inputs import (drawn_points, group_codes, points_held, reused, run_groups,
@@ -87,7 +87,7 @@ def _normal_quantiles(n: int, ranks=None) -> np.ndarray:
     Wiley, New York (citation from memory).
     """
     i = np.arange(1, n + 1) if ranks is None else np.asarray(ranks) + 1
-    return stats.norm.ppf((i - 0.375) / (n + 0.25))
+    return tails.normal_quantile((i - 0.375) / (n + 0.25))
 
 
 @styled
@@ -137,7 +137,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
                        edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
         if n >= 4:
             q1, q3 = np.percentile(ranked, [25, 75])
-            z1, z3 = stats.norm.ppf([0.25, 0.75])
+            z1, z3 = tails.normal_quantile([0.25, 0.75])
             slope = (q3 - q1) / (z3 - z1)
             zz = _normal_quantiles(n, [0, n - 1])   # the smallest and largest
             ax.plot(zz, q1 + slope * (zz - z1), color="#4d4d4d", lw=0.8, zorder=1)

@@ -22,7 +22,7 @@ import contextlib
 
 import matplotlib
 import numpy as np
-from scipy import stats
+from ..stats import tails
 
 from ..errors import DataError
 from ..stats.logscale import parse_log_base, to_log
@@ -229,7 +229,7 @@ def _plot_multi(fit, ax, *, term, band, interval, color, band_alpha, point_color
             d[:, 1 + i] = means[i]
         se = np.sqrt(np.einsum("ij,jk,ik->i", d, np.asarray(fit.cov), d)
                      + (fit.resid_sd ** 2 if interval == "prediction" else 0.0))
-        t = stats.t.ppf(0.5 + fit.confidence / 2, fit.df)
+        t = tails.t_quantile(0.5 + fit.confidence / 2, fit.df)
         ax.fill_between(base ** grid, base ** (line - t * se), base ** (line + t * se),
                         color=color, alpha=band_alpha, linewidth=0, zorder=1)
     ax.plot(base ** grid, base ** line, color=color, **{"lw": 1.2, "zorder": 3, **style})

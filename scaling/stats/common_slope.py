@@ -90,7 +90,8 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize, stats
+from . import tails
+from .roots import brent_root
 
 from ..errors import ConfigError, DataError
 from ._group_common import EXACT_FIT_TOL, check_logs, factorize
@@ -359,7 +360,7 @@ def _profile_interval(method: str, fit: dict, confidence: float,
         df2 = nu_tot - 1
         if df2 <= 0:
             return math.nan, math.nan
-        crit = nu_tot * math.log1p(stats.f.ppf(confidence, 1, df2) / df2)
+        crit = nu_tot * math.log1p(tails.f_quantile(confidence, 1, df2) / df2)
     x_hat = float(fit["x"][0])
     f_hat = float(fit["fval"][0])
 
@@ -387,7 +388,7 @@ def _profile_interval(method: str, fit: dict, confidence: float,
         if excess(far) <= 0:
             bounds.append(math.nan)
             continue
-        bounds.append(optimize.brentq(excess, x_hat, far, xtol=1e-13) if far != x_hat
+        bounds.append(brent_root(excess, x_hat, far, xtol=1e-13) if far != x_hat
                       else x_hat)
     lo_x, hi_x = bounds
     if method == "sma":
@@ -468,7 +469,7 @@ def _profile_test(method: str, fit: dict, b0, sums) -> dict:
             t = np.where(use_corr, t_corr, t)
         else:
             use_corr = opposite
-        p = 2 * stats.t.sf(np.abs(t), df2)
+        p = 2 * tails.t_upper(np.abs(t), df2)
     return {"excess": excess, "t": t, "df": df2, "p": p, "use_corr": use_corr}
 
 
@@ -491,7 +492,7 @@ def _common_test_arrays(method: str, n, mx, my, sxx, syy, sxy, b0) -> dict:
             rss = np.maximum(sums[1] - sums[2] ** 2 / sums[0], 0.0)
             se = np.sqrt(rss / df / sums[0])
             t = (b - b0) / se
-        return {"b": b, "t": t, "df": df, "p": 2 * stats.t.sf(np.abs(t), df), "se": se}
+        return {"b": b, "t": t, "df": df, "p": 2 * tails.t_upper(np.abs(t), df), "se": se}
     fit = _fit_common(method, n, sxx, syy, sxy)
     out = _profile_test(method, fit, b0, sums)
     out["b"] = fit["b"]
@@ -685,7 +686,7 @@ class CommonSlope:
         if self.method == "ols" or self.profile is None:
             t = (self.slope - b0) / self.slope_se
             return SlopeTest(**common, statistic=float(t),
-                             p_value=float(2 * stats.t.sf(abs(t), self.df_resid)))
+                             p_value=float(2 * tails.t_upper(abs(t), self.df_resid)))
         res = _profile_test(self.method, self.profile, b0, self.profile["sums"])
         t, p = float(res["t"][0]), float(res["p"][0])
         if bool(res["use_corr"][0]):
@@ -703,7 +704,8 @@ class CommonSlope:
 def _common_from_arrays(method, n, mx, my, sxx, syy, sxy, confidence, *, full=False):
     if method == "ols":
         res = _parallel_lines(n, sxx, syy, sxy)
-        t = stats.t.ppf(0.5 + confidence / 2, res["df_par"]) if res["df_par"] > 0 else math.nan
+        t = (tails.t_quantile(0.5 + confidence / 2, res["df_par"]) if res["df_par"] > 0
+             else math.nan)
         ci = ConfidenceInterval(float(res["b"] - t * res["se"]), float(res["b"] + t * res["se"]))
         return (res["b"], ci, res["se"], None) if full else (res["b"], ci, res["se"])
     fit = _fit_common(method, n[None], sxx[None], syy[None], sxy[None], exact=True)

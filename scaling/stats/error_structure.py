@@ -23,9 +23,9 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize
 
 from ..errors import DataError, DegenerateDataWarning
+from .nonlinear import fit_nonlinear
 
 __all__ = ["ErrorModel", "ErrorStructure", "compare_error_structure"]
 
@@ -185,11 +185,11 @@ def compare_error_structure(x, y) -> ErrorStructure:
     converged = True
     try:
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore", optimize.OptimizeWarning)
+            warnings.simplefilter("ignore", RuntimeWarning)
             with np.errstate(over="ignore", invalid="ignore"):
-                (a_s, b_nl), _ = optimize.curve_fit(
-                    power, xs, ys, p0=(math.exp(ln_a + b_log * ln_cx - ln_cy), b_log),
-                    maxfev=5000)
+                a_s, b_nl = fit_nonlinear(
+                    power, xs, ys, (math.exp(ln_a + b_log * ln_cx - ln_cy), b_log),
+                    max_evaluations=5000).params
         rss_s = float(np.sum((ys - power(xs, a_s, b_nl)) ** 2))
         if not np.isfinite(rss_s) or rss_s <= 0 or a_s == 0:
             raise RuntimeError("non-finite residuals")

@@ -57,7 +57,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from . import tails
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError, DegenerateDataWarning
@@ -267,7 +267,7 @@ def _axis_tests(method: str, n, mx, my, sxx, syy, sxy, *, bootstrap: int | None,
     fit = _fit_common(method, n, sxx, syy, sxy, exact=exact)
     w_int, w_axis, scores = _wald_tests(method, fit, n, mx, my, sxx, syy, sxy)
     statistic = np.stack([fit["lr"], w_int, w_axis], axis=-1)
-    p_chi2 = stats.chi2.sf(statistic, G - 1)
+    p_chi2 = tails.chi2_upper(statistic, G - 1)
     profile = None
     if bootstrap:
         counts, profile = _bootstrap_counts(method, n, fit, scores, statistic, bootstrap, rng)
@@ -313,7 +313,7 @@ def _ols_tests(n, mx, my, sxx, syy, sxy) -> dict:
             f_axis = (ss_between / (G - 1)) / (float(np.sum(sxx)) / (N - G))
     for stat, d1, d2 in ((f_slope, G - 1, df_sep), (f_int, G - 1, df_par),
                          (f_axis, G - 1, N - G)):
-        p = float(stats.f.sf(stat, d1, d2)) if np.isfinite(stat) else math.nan
+        p = float(tails.f_upper(stat, d1, d2)) if np.isfinite(stat) else math.nan
         out["rows"].append((float(stat), float(d1), float(d2), p))
     out["se"], out["df_par"] = par["se"], df_par
     return out

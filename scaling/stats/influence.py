@@ -43,7 +43,7 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from .classic_tests import one_way_anova
 
 from ..errors import DataError
 from .lines import METHODS, exact_fit, fit_moments, fit_notes, get_method
@@ -498,7 +498,7 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
         if len(samples) >= 2:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                res = stats.f_oneway(*samples)
+                res = one_way_anova(*samples)
             p = float(res.pvalue)
             if np.isfinite(p) and p < alpha:
                 df2 = sum(s.size for s in samples) - len(samples)

@@ -10,7 +10,7 @@ result objects so that drawing needs nothing but these formulas.
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from .schema import INTERVALS, check_choice as _check_choice
 
@@ -49,7 +49,7 @@ def log_interval(X0, *, intercept, slope, slope_se, resid_sd, n, mean_x, df,
         var = s2 / n + (X0 - mean_x) ** 2 * np.asarray(slope_se, dtype=float) ** 2
         if interval == "prediction":
             var = var + s2
-        tcrit = stats.t.ppf(0.5 + confidence / 2, df)
+        tcrit = tails.t_quantile(0.5 + confidence / 2, df)
     se = np.sqrt(var)
     return fitted, se, fitted - tcrit * se, fitted + tcrit * se
 
@@ -80,7 +80,7 @@ def inverse_log_interval(Y0, *, intercept, slope, slope_se, resid_sd, n, mean_x,
     b = np.asarray(slope, dtype=float)
     s2 = np.asarray(resid_sd, dtype=float) ** 2
     with np.errstate(divide="ignore", invalid="ignore"):
-        tcrit = stats.t.ppf(0.5 + confidence / 2, df)
+        tcrit = tails.t_quantile(0.5 + confidence / 2, df)
         mean_y_line = intercept + b * mean_x
         d = Y0 - mean_y_line
         fitted = mean_x + d / b

@@ -18,7 +18,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError, DegenerateDataWarning
@@ -175,7 +175,7 @@ def _kendall_slope_test(X, Y, b0: float) -> tuple:
     if var <= 0:
         return math.nan, math.nan
     z = s / math.sqrt(var)
-    return z, float(2 * stats.norm.sf(abs(z)))
+    return z, float(2 * tails.normal_upper(abs(z)))
 
 
 def _bootstrap_slope_test(replicates, b0: float) -> tuple:

@@ -88,7 +88,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ..errors import ConfigError, DataError
 from .logscale import base_label, log_word, parse_log_base, to_log  # noqa: F401 -- re-exported
@@ -411,7 +411,7 @@ def slope_test_statistic(m: Moments, method: str, b0) -> tuple:
             t = np.where(exact, np.where(same, 0.0, np.sign(b - b0) * np.inf), t)
     df = m.n - 2
     with np.errstate(invalid="ignore"):
-        p = 2 * stats.t.sf(np.abs(t), df)
+        p = 2 * tails.t_upper(np.abs(t), df)
     return t, df, p
 
 
@@ -437,7 +437,7 @@ def t_quantiles(q: float, df) -> np.ndarray:
     found = {d: _T_CACHE.get((q, d)) for d in keys}
     missing = [d for d, v in found.items() if v is None]
     if missing:
-        computed = np.asarray(stats.t.ppf(q, np.asarray(missing, dtype=float)),
+        computed = np.asarray(tails.t_quantile(q, np.asarray(missing, dtype=float)),
                               dtype=float).tolist()
         found.update(zip(missing, computed))
         if len(_T_CACHE) + len(missing) > _T_CACHE_MAX:

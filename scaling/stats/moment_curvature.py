@@ -22,7 +22,7 @@ moments.
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ..errors import DataError
 from .moments import Moments
@@ -130,7 +130,7 @@ def within_quadratic_from_moments(m: Moments) -> dict:
         t = gq / se
     return {"intercept": float("nan"), "linear": gc - 2 * gq * grand, "quadratic": gq,
             "quadratic_se": float(se), "statistic": float(t), "df": float(df),
-            "p_value": float(2 * stats.t.sf(abs(t), df))}
+            "p_value": float(2 * tails.t_upper(abs(t), df))}
 
 
 def local_exponents(quad: dict, log_x) -> np.ndarray:

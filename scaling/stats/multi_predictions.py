@@ -71,7 +71,7 @@ from dataclasses import dataclass
 from typing import Mapping
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ..errors import ConfigError, DataError, ExtrapolationWarning
 from .predictions import CORRECTIONS, INTERVALS
@@ -381,7 +381,7 @@ def predict_multi(fit, x_new, *, correction: str = "smearing", interval: str = "
     if interval == "prediction":
         var = var + fit.resid_sd ** 2
     se = np.sqrt(var)
-    tcrit = stats.t.ppf(0.5 + confidence / 2, fit.df)
+    tcrit = tails.t_quantile(0.5 + confidence / 2, fit.df)
     low, high = fitted - tcrit * se, fitted + tcrit * se
     bf = factor if interval == "confidence" else 1.0
     base = fit.log_base

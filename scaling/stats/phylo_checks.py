@@ -76,7 +76,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ..errors import DataError
 from .influence import COOK_STRONG
@@ -185,7 +185,7 @@ def gls_quadratic_t(root, log_x, log_y, codes=None) -> dict:
                           else np.full(np.shape(t), np.nan)),
             "linear": coef[..., -2] - 2 * g * mx[..., 0], "quadratic": g,
             "quadratic_se": se, "statistic": t, "df": np.full(np.shape(t), float(df)),
-            "p_value": 2 * stats.t.sf(np.abs(t), df)}
+            "p_value": 2 * tails.t_upper(np.abs(t), df)}
 
 
 def curvature_lambda(plan: PhyloPlan, log_x, log_y, groups=None) -> float:

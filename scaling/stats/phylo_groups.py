@@ -106,7 +106,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from . import tails
 
 from ..errors import DataError
 from .common_slope import CommonSlope, _common_from_arrays, _fit_common
@@ -387,10 +387,10 @@ def _tests_at(p: _Problem, method: str, lam: float, confidence: float, n_boot: i
         gram, _, _ = gram_matrices(p.plan, _ols_columns(p.X, p.Y, p.codes, G), [lam])
         r = _ols_stats(gram[0], n, G)
         f = r["f"]
-        p_val = np.array([stats.f.sf(f[i], G - 1, r["df_resid"][i]) if np.isfinite(f[i])
+        p_val = np.array([tails.f_upper(f[i], G - 1, r["df_resid"][i]) if np.isfinite(f[i])
                           else math.nan for i in range(3)])
         df_par = n - G - 1
-        tq = stats.t.ppf(0.5 + confidence / 2, df_par)
+        tq = tails.t_quantile(0.5 + confidence / 2, df_par)
         b, se = float(r["b"]), float(r["se"])
         common = CommonSlope(method=method, slope=b,
                              slope_ci=ConfidenceInterval(b - tq * se, b + tq * se),
@@ -406,7 +406,7 @@ def _tests_at(p: _Problem, method: str, lam: float, confidence: float, n_boot: i
                          df_resid=float(n - G - 1), profile=prof)
     stat = r["statistic"]
     if not n_boot or n > BOOTSTRAP_MAX_N:
-        return (stat, np.full(3, G - 1.0), np.full(3, math.nan), stats.chi2.sf(stat, G - 1),
+        return (stat, np.full(3, G - 1.0), np.full(3, math.nan), tails.chi2_upper(stat, G - 1),
                 common, "chi2")
     boot = _bootstrap(p, method, lam, r, n_boot, np.random.default_rng(seed))[0]
     tol = 1e-9 * (1 + np.abs(stat))

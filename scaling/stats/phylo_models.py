@@ -77,7 +77,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
+from . import tails
 
 from .phylogeny import PassResult, PhyloPlan, Tree, _heights, pass_with_lengths, phylo_loglik
 
@@ -222,6 +222,8 @@ def _search(f, low: float, high: float, grid_values, grid):
     """Maximise f on [low, high] from a grid: bounded Brent between the best point's neighbours."""
     i = int(np.nanargmax(grid_values))
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
+    from scipy import optimize   # lazy: only the phylogeny road
+
     r = optimize.minimize_scalar(lambda t: -f(t), bounds=(lo, hi), method="bounded",
                                  options={"xatol": 1e-10 * max(1.0, high - low)})
     best, val = (float(r.x), -float(r.fun))
@@ -332,7 +334,8 @@ def lambda_tests(plan: PhyloPlan, X, Y, lam_hat: float, ll_hat: float, *,
     ll, _ = _loglik_of(plan, values, "lambda", [0.0, 1.0], likelihood, reml)
     s0, s1 = (max(0.0, 2 * (ll_hat - float(v))) for v in ll)
     return LambdaTests(lam=float(lam_hat), loglik=float(ll_hat), stat_0=s0,
-                       p_0=float(stats.chi2.sf(s0, 1)), stat_1=s1, p_1=float(stats.chi2.sf(s1, 1)))
+                       p_0=float(tails.chi2_upper(s0, 1)), stat_1=s1,
+                       p_1=float(tails.chi2_upper(s1, 1)))
 
 
 # --------------------------------------------------------------------------
@@ -441,6 +444,8 @@ def fit_sampling_error(plan: PhyloPlan, X, Y, extra, *, lam="ml", s2: float = ma
         return -float(sampling_error_loglik(plan, X, Y, extra, [lam_v], [math.exp(p[1])])[0])
 
     bounds = [(0.0, 1.0) if lam == "ml" else (float(lam), float(lam)), (None, None)]
+    from scipy import optimize   # lazy: only the phylogeny road
+
     r = optimize.minimize(neg, start, method="L-BFGS-B", bounds=bounds,
                           options={"ftol": 1e-13, "gtol": 1e-9})
     p = r.x if r.fun <= -ll[i] else start

@@ -47,8 +47,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
-from scipy.linalg import cho_factor, cho_solve, solve_triangular
+from . import tails
+from .classic_tests import shapiro_wilk
 
 from .lines import base_label, parse_log_base
 from .phylogeny import PassResult, Tree, tree_covariance
@@ -114,7 +114,7 @@ def predict_new_species(line: NewSpeciesLine, log_x, *, confidence: float = 0.95
     tip_var = line.s2 * line.depth
     var = var_line + (tip_var if interval == "prediction" else 0.0)
     se = np.sqrt(var)
-    q = stats.t.ppf(0.5 + confidence / 2, line.df)
+    q = tails.t_quantile(0.5 + confidence / 2, line.df)
     return fit, se, fit - q * se, fit + q * se, np.full_like(fit, tip_var)
 
 
@@ -198,6 +198,8 @@ def predict_tips(cov, X, Y, x_new, *, confidence: float = 0.95,
         ``confidence`` leaves out s^2 (v_00 - c'V^-1 c), the target's own
         deviation (an interval for its expected value given its relatives).
     """
+    from scipy.linalg import cho_factor, cho_solve   # lazy: only the phylogeny road
+
     X, Y = np.asarray(X, dtype=float), np.asarray(Y, dtype=float)
     x_new = np.atleast_1d(np.asarray(x_new, dtype=float))
     n = X.size
@@ -218,7 +220,7 @@ def predict_tips(cov, X, Y, x_new, *, confidence: float = 0.95,
     var_beta = s2 * np.einsum("ij,jk,ik->i", d, np.linalg.inv(xtx), d)
     var = var_beta + (cond if interval == "prediction" else 0.0)
     se = np.sqrt(var)
-    q = stats.t.ppf(0.5 + confidence / 2, n - 2)
+    q = tails.t_quantile(0.5 + confidence / 2, n - 2)
     return TipPrediction(fit=fit, se=se, low=fit - q * se, high=fit + q * se, cond_var=cond,
                          beta=beta, s2=s2, df=n - 2)
 
@@ -249,6 +251,9 @@ class ResidualChecks:
 
 def residual_checks(cov, X, Y) -> ResidualChecks:
     """Normality, constant variance and outlying species of the PGLS residuals."""
+    from scipy import stats   # lazy: only the phylogeny road
+    from scipy.linalg import cho_solve, solve_triangular
+
     X, Y = np.asarray(X, dtype=float), np.asarray(Y, dtype=float)
     n = X.size
     cov = np.asarray(cov, dtype=float)
@@ -263,7 +268,7 @@ def residual_checks(cov, X, Y) -> ResidualChecks:
     vinv = cho_solve((chol, True), np.eye(n))
     r = (vinv @ e) / np.sqrt(np.diag(vinv)) / s
     w = we / s
-    normality = tuple(float(v) for v in stats.shapiro(w)) if n >= 3 else (math.nan, math.nan)
+    normality = tuple(float(v) for v in shapiro_wilk(w)) if n >= 3 else (math.nan, math.nan)
     rho = stats.spearmanr(np.abs(r), X)
     return ResidualChecks(whitened=w, standardised=r, normality=normality,
                           spread=(float(rho.statistic), float(rho.pvalue)),

@@ -49,7 +49,8 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy import optimize, stats
+from . import tails
+from .roots import brent_root
 
 from .line_results import ConfidenceInterval
 
@@ -150,7 +151,7 @@ def profile_deviance(prof: SlopeProfile, b0) -> np.ndarray:
 
 def profile_cut(n: int, confidence: float, *, reml: bool = False) -> float:
     """m log(1 + t^2/(n - 2)), t the two-sided ``confidence`` quantile on n - 2 df."""
-    t = stats.t.ppf(0.5 + confidence / 2, n - 2)
+    t = tails.t_quantile(0.5 + confidence / 2, n - 2)
     return float(_m(n, reml) * np.log1p(t * t / (n - 2)))
 
 
@@ -188,7 +189,7 @@ def profile_test(prof: SlopeProfile, estimate, b0: float):
     d = profile_deviance(prof, b0)
     df = prof.n - 2
     t = np.sign(np.asarray(estimate) - b0) * np.sqrt(df * np.expm1(d / _m(prof.n, prof.reml)))
-    return t, float(df), 2 * stats.t.sf(np.abs(t), df)
+    return t, float(df), 2 * tails.t_upper(np.abs(t), df)
 
 
 # --------------------------------------------------------------------------
@@ -211,6 +212,8 @@ def _maximise(loglik: Callable, grid_values: np.ndarray,
     derivative does not change sign there (maximum at or next to 0 or 1),
     bounded Brent search on the value is used and the ends are checked.
     """
+    from scipy import optimize   # lazy: only the phylogeny road
+
     g = int(np.nanargmax(grid_values))
     lo = float(_GRID[max(g - 1, 0)])
     hi = float(_GRID[min(g + 1, _GRID.size - 1)])
@@ -222,7 +225,7 @@ def _maximise(loglik: Callable, grid_values: np.ndarray,
     if lo - _H >= 0 and hi + _H <= 1:
         g_lo, g_hi = grad(lo), grad(hi)
         if np.isfinite(g_lo) and np.isfinite(g_hi) and g_lo > 0 > g_hi:
-            t = optimize.brentq(grad, lo, hi, xtol=1e-10)
+            t = brent_root(grad, lo, hi, xtol=1e-10)
             return float(t), loglik(t)
     r = optimize.minimize_scalar(lambda t: -loglik(t), bounds=(lo, hi), method="bounded",
                                  options={"xatol": 1e-10, "maxiter": 200})
@@ -241,7 +244,7 @@ def _profile_interval(loglik: Callable, lam_hat: float, ll_hat: float,
     The grid values bracket each crossing of the cut; Brent's root search
     finds it.  A side where the grid never falls below the cut ends at 0 or 1.
     """
-    cut = ll_hat - stats.chi2.ppf(confidence, 1) / 2
+    cut = ll_hat - tails.chi2_quantile(confidence, 1) / 2
 
     def f(t):
         return loglik(t) - cut
@@ -251,12 +254,12 @@ def _profile_interval(loglik: Callable, lam_hat: float, ll_hat: float,
     right = np.flatnonzero(below & (_GRID > lam_hat))
     if left.size:
         i = int(left[-1])
-        low = optimize.brentq(f, _GRID[i], min(_GRID[i + 1], lam_hat), xtol=1e-9)
+        low = brent_root(f, _GRID[i], min(_GRID[i + 1], lam_hat), xtol=1e-9)
     else:
         low = 0.0
     if right.size:
         i = int(right[0])
-        high = optimize.brentq(f, max(_GRID[i - 1], lam_hat), _GRID[i], xtol=1e-9)
+        high = brent_root(f, max(_GRID[i - 1], lam_hat), _GRID[i], xtol=1e-9)
     else:
         high = 1.0
     return ConfidenceInterval(float(low), float(high))

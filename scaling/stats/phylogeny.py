@@ -90,7 +90,6 @@ from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
-from scipy import optimize, stats
 
 from .fit_rows import fit_values
 from ._display import frame_html, short_repr

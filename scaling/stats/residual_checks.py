@@ -55,7 +55,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from . import tails
+from .classic_tests import shapiro_wilk
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL
@@ -315,7 +316,7 @@ def quadratic_solve(scc, scq, sqq, scy, sqy, syy, n) -> tuple:
         s2 = np.maximum(syy - gc * scy - gq * sqy, 0.0) / (n - 3)
         se = np.sqrt(s2 * scc / det)
         t = gq / se
-        p = 2 * stats.t.sf(np.abs(t), n - 3)
+        p = 2 * tails.t_upper(np.abs(t), n - 3)
     return gc, gq, se, t, p
 
 
@@ -374,7 +375,7 @@ def breusch_pagan(resid, log_x, groups=None, *, n_groups: int | None = None) -> 
     with np.errstate(divide="ignore", invalid="ignore"):
         lm = n * swx * swx / (sxx * sww)
     lm = np.where((sxx > 0) & (sww > 0), lm, np.nan)
-    p = stats.chi2.sf(lm, 1)
+    p = tails.chi2_upper(lm, 1)
     if groups is None:
         return float(lm), float(p)
     return lm, p
@@ -643,7 +644,7 @@ def within_quadratic_t(log_x, log_y, groups) -> dict:
         s2 = np.maximum(syy - gc * scy - gq * sqy, 0.0) / df
         se = np.sqrt(s2 * scc / det)
         t = gq / se
-    p = 2 * stats.t.sf(np.abs(t), df)
+    p = 2 * tails.t_upper(np.abs(t), df)
     return {"intercept": np.full(np.shape(t), np.nan), "linear": gc - 2 * gq * mx[..., 0],
             "quadratic": gq, "quadratic_se": se, "statistic": t,
             "df": np.full(np.shape(t), float(df)), "p_value": p}
@@ -807,7 +808,7 @@ class _Line:
 def _normality(resid, alpha) -> Check:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # scipy's n > 5000 accuracy note
-        sw = stats.shapiro(resid)
+        sw = shapiro_wilk(resid)
     flagged = bool(sw.pvalue < alpha)
     return Check(check="normality", test="Shapiro-Wilk", statistic=float(sw.statistic),
                  df=math.nan, p_value=float(sw.pvalue), estimate=math.nan,

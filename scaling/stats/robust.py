@@ -60,7 +60,7 @@ import warnings
 from dataclasses import replace
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from .deming import to_ma_scale
@@ -206,7 +206,7 @@ def _sen_interval(X, Y, confidence: float) -> tuple:
     nt = slopes.size
     if nt == 0:
         return math.nan, math.nan
-    z = stats.norm.ppf(0.5 + confidence / 2)
+    z = tails.normal_quantile(0.5 + confidence / 2)
     sd = math.sqrt(max((n * (n - 1) * (2 * n + 5) - _tie_term(X)) / 18.0, 0.0))
     upper = min(int(np.round((nt + z * sd) / 2.0)), nt - 1)
     lower = max(int(np.round((nt - z * sd) / 2.0)) - 1, 0)
@@ -244,6 +244,8 @@ def theil_sen(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     n_boot = _check_boot(n_boot)
     base, X, Y, ranges = _prepare(x, y, log_base)
     rng = make_rng(seed)
+    from scipy import stats   # lazy: robust lines are not on the default road
+
     res = stats.theilslopes(Y, X, alpha=confidence)
     low, high = _sen_interval(X, Y, confidence)
     pairs = X.size * (X.size - 1) // 2
@@ -282,6 +284,8 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
     n_boot = _check_boot(n_boot)
     base, X, Y, ranges = _prepare(x, y, log_base)
     rng = make_rng(seed)
+    from scipy import stats   # lazy: robust lines are not on the default road
+
     res = stats.siegelslopes(Y, X)
     n = X.size
     boot = np.empty((n_boot, 2))
@@ -306,7 +310,7 @@ def siegel(x, y, *, confidence: float = 0.95, log_base=10, n_boot: int = 999,
 
 
 def _huber_tau(c2: float) -> float:
-    return float(stats.chi2.cdf(c2, 4) + c2 / 2 * stats.chi2.sf(c2, 2))
+    return float(tails.chi2_lower(c2, 4) + c2 / 2 * tails.chi2_upper(c2, 2))
 
 
 def _weighted_scatter(w: np.ndarray, D: np.ndarray) -> np.ndarray:
@@ -361,7 +365,7 @@ def huber_scatter(X, Y, *, weights=None, q: float = 0.9, tol: float = 1e-9,
     Zc = Z - centre
     scale = float(np.sqrt(np.mean(Zc ** 2))) or 1.0
     Zc = Zc / scale
-    c2 = float(stats.chi2.ppf(q, 2))
+    c2 = float(tails.chi2_quantile(q, 2))
     tau = _huber_tau(c2)
     total = w.sum(axis=1)
     mu = (w @ Zc) / total[:, None]

@@ -47,7 +47,8 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
+from . import tails
+from .classic_tests import shapiro_wilk
 
 from ..errors import DataError
 from .residual_checks import MIN_N, Check
@@ -128,7 +129,7 @@ def term_curvature(log_x, log_y, lead=None) -> list:
         cov = s2 * np.linalg.inv(design.T @ design)
         se = math.sqrt(cov[-1, -1])
         t = float(beta[-1]) / se if se > 0 else math.nan
-        p = float(2 * stats.t.sf(abs(t), df)) if np.isfinite(t) else math.nan
+        p = float(2 * tails.t_upper(abs(t), df)) if np.isfinite(t) else math.nan
         out.append({"quadratic": float(beta[-1]), "quadratic_se": se, "statistic": t,
                     "df": float(df), "p_value": p})
     return out
@@ -251,7 +252,7 @@ def _check_design(lead, lx, ly, names, *, rows, alpha) -> MultiChecks:
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)   # scipy's n > 5000 accuracy note
-        sw = stats.shapiro(resid)
+        sw = shapiro_wilk(resid)
     flagged = bool(sw.pvalue < alpha)
     checks.append(Check(check="normality", test="Shapiro-Wilk", statistic=float(sw.statistic),
                         df=math.nan, p_value=float(sw.pvalue), estimate=math.nan,
@@ -264,7 +265,7 @@ def _check_design(lead, lx, ly, names, *, rows, alpha) -> MultiChecks:
     fitted = design @ beta
     sst = float(np.sum((e2 - e2.mean()) ** 2))
     lm = n * float(np.sum((fitted - e2.mean()) ** 2)) / sst if sst > 0 else math.nan
-    p_bp = float(stats.chi2.sf(lm, p - 1)) if np.isfinite(lm) else math.nan
+    p_bp = float(tails.chi2_upper(lm, p - 1)) if np.isfinite(lm) else math.nan
     flagged = bool(p_bp < alpha)
     trend = 0
     if flagged:

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 from typing import Mapping
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ..errors import ConfigError, DataError
 from .schema import check_confidence
@@ -61,7 +61,7 @@ def nested_f(ssr_small: float, df_small: float, ssr_big: float, df_big: float) -
     if df_num <= 0 or df_big <= 0 or ssr_big <= 0:
         return math.nan, float(df_num), float(df_big), math.nan
     f = ((ssr_small - ssr_big) / df_num) / (ssr_big / df_big)
-    return float(f), float(df_num), float(df_big), float(stats.f.sf(f, df_num, df_big))
+    return float(f), float(df_num), float(df_big), float(tails.f_upper(f, df_num, df_big))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -141,7 +141,7 @@ class MultiGroupComparison:
             out.append(TermTest(term=term, hypothesis=label or f"{value:g}", estimate=float(self.slopes[j]),
                                 exponent=float(value), se=float(self.slope_se[j]),
                                 statistic=t, df=self.df,
-                                p_value=float(2 * stats.t.sf(abs(t), self.df))))
+                                p_value=float(2 * tails.t_upper(abs(t), self.df))))
         return tuple(out)
 
     def to_frame(self):
@@ -255,7 +255,7 @@ def compare_groups_multi(x, y, groups, *, names=None, confidence: float = 0.95,
     cov = s2 * np.linalg.inv(parallel.T @ parallel)
     se = np.sqrt(np.diag(cov))[G:]
     b = beta[G:]
-    tcrit = stats.t.ppf(0.5 + confidence / 2, df_par)
+    tcrit = tails.t_quantile(0.5 + confidence / 2, df_par)
     common = _common_fits(parallel, ly, beta, s2, df_par, mat, yv, labels, names,
                           base=base, confidence=confidence, tcrit=tcrit)
     fits, skipped = {}, []

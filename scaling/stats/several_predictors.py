@@ -38,7 +38,7 @@ from dataclasses import dataclass, field
 from typing import Mapping, Sequence
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError
@@ -363,7 +363,7 @@ class MultiFit:
                 raise ConfigError(f"hypothesised exponent of {term!r} must be a number, "
                                   f"not {value!r}") from None
             t = (self.slopes[j] - b0) / self.slope_se[j]
-            p = 2 * stats.t.sf(abs(t), self.df)
+            p = 2 * tails.t_upper(abs(t), self.df)
             out.append(TermTest(term=term, hypothesis=label or f"{b0:g}", exponent=b0,
                                 estimate=float(self.slopes[j]), se=float(self.slope_se[j]),
                                 statistic=float(t), df=float(self.df), p_value=float(p)))
@@ -432,10 +432,10 @@ class MultiFit:
         ssr_f = float(self.residuals @ self.residuals)
         df_num = self.k - 1
         f = ((ssr_r - ssr_f) / df_num) / (ssr_f / self.df)
-        p = stats.f.sf(f, df_num, self.df)
+        p = tails.f_upper(f, df_num, self.df)
         df_r = self.n - 2
         se_c = math.sqrt(s2_r * inv_r[1, 1])
-        tcrit = stats.t.ppf(0.5 + self.confidence / 2, df_r)
+        tcrit = tails.t_quantile(0.5 + self.confidence / 2, df_r)
         t = (beta_r[1] - exponent) / se_c
         return CombinedTermTest(
             label=label, terms=self.names, weights=_frozen(w), f_statistic=float(f),
@@ -444,7 +444,7 @@ class MultiFit:
             exponent_se=se_c, exponent_ci=ConfidenceInterval(float(beta_r[1] - tcrit * se_c),
                                                              float(beta_r[1] + tcrit * se_c)),
             intercept=float(beta_r[0]), hypothesis=float(exponent), t_statistic=float(t),
-            t_df=float(df_r), t_p_value=float(2 * stats.t.sf(abs(t), df_r)),
+            t_df=float(df_r), t_p_value=float(2 * tails.t_upper(abs(t), df_r)),
             confidence=self.confidence)
 
     # ---- predictions
@@ -665,7 +665,7 @@ def fit_multi(x, y, *, names: Sequence[str] | None = None, confidence: float = 0
     df = n - k - 1
     cov = s2 * xtx_inv
     se = np.sqrt(np.diag(cov))
-    tcrit = stats.t.ppf(0.5 + confidence / 2, df)
+    tcrit = tails.t_quantile(0.5 + confidence / 2, df)
     syy = float(np.sum((log_y - log_y.mean()) ** 2))
     ssr = float(resid @ resid)
     r2 = 1 - ssr / syy if syy > 0 else math.nan

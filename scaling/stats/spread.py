@@ -110,7 +110,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from . import tails
 
 from ._display import frame_html, short_repr
 from ..errors import ConfigError, DataError, DegenerateDataWarning
@@ -258,7 +258,7 @@ def tau2_q_profile(b, v, confidence: float = 0.95, *, iters: int = 200) -> tuple
     b, v = np.asarray(b, float), np.asarray(v, float)
     k = b.shape[-1]
     alpha = 1 - confidence
-    hi_q, lo_q = stats.chi2.ppf(1 - alpha / 2, k - 1), stats.chi2.ppf(alpha / 2, k - 1)
+    hi_q, lo_q = tails.chi2_quantile(1 - alpha / 2, k - 1), tails.chi2_quantile(alpha / 2, k - 1)
     q0 = _gen_q(b, v, np.zeros(b.shape[:-1]))
     spread = b.max(-1) - b.min(-1)
     top = np.maximum(100.0 * (spread ** 2 + v.max(-1)), 1e-12)
@@ -375,14 +375,14 @@ def spread_arrays(estimates, variances, *, scale: str = "slope", tau2_method: st
     if mean_interval == "z":
         se = np.sqrt(1.0 / sw)
         df = math.inf
-        crit = stats.norm.ppf(0.5 + confidence / 2)
+        crit = tails.normal_quantile(0.5 + confidence / 2)
     else:
         q = (w * (theta - mu[..., None]) ** 2).sum(-1) / (k - 1)
         if mean_interval == "knapp_hartung":
             q = np.maximum(q, 1.0)     # Knapp & Hartung's (2003) ad hoc truncation
         se = np.sqrt(q / sw)
         df = float(k - 1)
-        crit = stats.t.ppf(0.5 + confidence / 2, df)
+        crit = tails.t_quantile(0.5 + confidence / 2, df)
     ends = _back(mu - crit * se, t2, scale, sign), _back(mu + crit * se, t2, scale, sign)
     return {"mean": _back(mu, t2, scale, sign), "low": np.minimum(*ends),
             "high": np.maximum(*ends), "mean_se": _back_slope(mu, t2, scale, sign) * se,
@@ -593,7 +593,8 @@ def exponent_spread(estimates, variances, *, tau2_method: str = "reml",
             stat = (sign if scale == "log" else 1.0) * (mu - x0) / se
             if math.isnan(x0):    # b0 of the other sign than log-scale exponents
                 stat = math.copysign(math.inf, sign)
-            p = 2 * (stats.norm.sf(abs(stat)) if math.isinf(df) else stats.t.sf(abs(stat), df))
+            p = 2 * (tails.normal_upper(abs(stat)) if math.isinf(df)
+                     else tails.t_upper(abs(stat), df))
             tests.append({"hypothesis": str(name), "exponent": float(b0),
                           "statistic": stat, "df": df, "p_value": float(p)})
     tau2 = t2 * factor ** 2
@@ -604,7 +605,7 @@ def exponent_spread(estimates, variances, *, tau2_method: str = "reml",
         mean_interval=mean_interval, mean_df=df, tau2=tau2, tau=math.sqrt(tau2),
         tau2_ci=ConfidenceInterval(lo2, hi2),
         tau_ci=ConfidenceInterval(math.sqrt(lo2), math.sqrt(hi2)),
-        q=float(q), q_df=float(k - 1), q_p_value=float(stats.chi2.sf(q, k - 1)),
+        q=float(q), q_df=float(k - 1), q_p_value=float(tails.chi2_upper(q, k - 1)),
         i2=float(max(0.0, (q - (k - 1)) / q)) if q > 0 else 0.0,
         confidence=float(confidence), tests=tuple(tests), scale=scale,
         scale_mean=mu, scale_mean_se=se, scale_tau2=t2)

@@ -60,7 +60,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from . import tails
 
 from .influence import COOK_STRONG
 from .lines import METHODS, fit_moments
@@ -602,7 +602,7 @@ class GroupResidualSums:
         with np.errstate(divide="ignore", invalid="ignore"):
             f = (ssb / df1) / (ssw / df2)
         return {"statistic": f, "df1": df1, "df2": df2,
-                "p_value": float(stats.f.sf(f, df1, df2))}
+                "p_value": float(tails.f_upper(f, df1, df2))}
 
 
 def dagostino_pearson(n, skewness, kurtosis):
@@ -655,7 +655,7 @@ def dagostino_pearson(n, skewness, kurtosis):
         z2 = (term1 - term2) / np.sqrt(2 / (9.0 * a))
         k2 = z1 * z1 + z2 * z2
     k2 = np.where(n >= 8, k2, np.nan)
-    return k2, stats.chi2.sf(k2, 2)
+    return k2, tails.chi2_upper(k2, 2)
 
 
 def breusch_pagan(n, swx, sxx, sww):
@@ -679,4 +679,4 @@ def breusch_pagan(n, swx, sxx, sww):
     """
     with np.errstate(divide="ignore", invalid="ignore"):
         lm = np.asarray(n, float) * swx * swx / (sxx * sww)
-    return lm, stats.chi2.sf(lm, 1)
+    return lm, tails.chi2_upper(lm, 1)
