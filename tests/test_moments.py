@@ -8,12 +8,13 @@ identities; each check says which beside it.
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from numpy.testing import assert_allclose, assert_array_equal
 
-from scaling.stats.moments import Moments, group_moments, moments, weighted_moments
+from scaling.stats.moments import HIGHER_KEYS, Moments, group_moments, moments, weighted_moments
 
 
 def _numpy_moments(x: np.ndarray, y: np.ndarray) -> dict:
@@ -319,3 +320,25 @@ class TestCurvatureFromMoments:
                 assert_allclose(q["linear"], fit.params[4], rtol=1e-9)
                 assert_allclose(q["statistic"], fit.tvalues[5], rtol=1e-9)
                 assert_allclose(q["df"], fit.df_resid)
+
+
+@pytest.mark.parametrize("higher", [False, True])
+def test_indexing_takes_every_sum_at_the_index(higher):
+    # internal consistency: m[i] is each field indexed by i (higher sums only when all
+    # three are carried)
+    rng = np.random.default_rng(11)
+    x, y = rng.normal(size=60), rng.normal(size=60)
+    m = group_moments(x, y, rng.integers(0, 5, 60), n_groups=5, higher=higher)
+    for index in (0, 4, -1, slice(1, 3), np.array([3, 0])):
+        part = m[index]
+        for name in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", *HIGHER_KEYS):
+            whole = getattr(m, name)
+            got = getattr(part, name)
+            if whole is None:
+                assert got is None
+            else:
+                assert np.array_equal(got, whole[index])
+        assert part.has_higher == higher
+    partial = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y, sxx=m.sxx, syy=m.syy,
+                      sxy=m.sxy, sxxx=m.sxx)        # one higher sum alone is not carried
+    assert partial[1].sxxx is None and not partial[1].has_higher

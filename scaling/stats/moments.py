@@ -81,17 +81,15 @@ class Moments:
             return np.clip(self.sxy / np.sqrt(self.sxx * self.syy), -1.0, 1.0)
 
     def __getitem__(self, index) -> "Moments":
-        higher = ({k: getattr(self, k)[index] for k in HIGHER_KEYS} if self.has_higher
-                  else {})
-        return Moments(
-            n=self.n[index],
-            mean_x=self.mean_x[index],
-            mean_y=self.mean_y[index],
-            sxx=self.sxx[index],
-            syy=self.syy[index],
-            sxy=self.sxy[index],
-            **higher,
-        )
+        # written out (no dict of the higher sums): a run packages one per fit
+        sxxx, sxxxx, sxxy = self.sxxx, self.sxxxx, self.sxxy
+        if sxxx is None or sxxxx is None or sxxy is None:
+            return Moments(n=self.n[index], mean_x=self.mean_x[index],
+                           mean_y=self.mean_y[index], sxx=self.sxx[index],
+                           syy=self.syy[index], sxy=self.sxy[index])
+        return Moments(n=self.n[index], mean_x=self.mean_x[index], mean_y=self.mean_y[index],
+                       sxx=self.sxx[index], syy=self.syy[index], sxy=self.sxy[index],
+                       sxxx=sxxx[index], sxxxx=sxxxx[index], sxxy=sxxy[index])
 
     def swapped(self) -> "Moments":
         """The moments with the roles of X and Y exchanged."""
