@@ -194,6 +194,11 @@ def _continued(acc: np.ndarray, labels: np.ndarray, weights: np.ndarray) -> np.n
     """``acc`` plus ``weights`` summed into their groups, added one at a time in row
     order after ``acc[g]``: the sums one ``np.bincount`` over all the rows gives (it
     adds each weight to its group's sum in turn), carried on from a previous chunk."""
+    if _ADD_AT_IN_ORDER:
+        # np.add.at adds each weight in row order too, without copying seeds and rows
+        out = np.array(acc, dtype=float)
+        np.add.at(out, labels, weights)
+        return out
     g = acc.size
     return np.bincount(np.concatenate([_SEEDS[:g] if g <= _SEEDS.size else np.arange(g),
                                        labels]),
@@ -201,6 +206,10 @@ def _continued(acc: np.ndarray, labels: np.ndarray, weights: np.ndarray) -> np.n
 
 
 _SEEDS = np.arange(1 << 14)
+
+#: From numpy 1.25 on ``np.add.at`` is as fast as ``np.bincount`` (before, ten times
+#: slower); both add in row order, so either gives the same bits.
+_ADD_AT_IN_ORDER = np.lib.NumpyVersion(np.__version__) >= "1.25.0"
 
 
 def _chunked_moments(x: np.ndarray, y: np.ndarray, labels: np.ndarray | None,
