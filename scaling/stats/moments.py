@@ -91,6 +91,17 @@ class Moments:
                        sxx=self.sxx[index], syy=self.syy[index], sxy=self.sxy[index],
                        sxxx=sxxx[index], sxxxx=sxxxx[index], sxxy=sxxy[index])
 
+    def __reduce_ex__(self, protocol):
+        # One Moments per fit travels to the figure process: numpy scalars are pickled
+        # nine to one bytes object (a numpy scalar alone pickles slowly, through numpy's
+        # reconstruction); anything else as a dataclass is.
+        values = [getattr(self, k) for k in _PACKED]
+        if values[6] is None and values[7] is None and values[8] is None:
+            values = values[:6]
+        if all(type(v) is np.float64 for v in values):
+            return (_unpacked_moments, (np.array(values, dtype=np.float64).tobytes(),))
+        return object.__reduce_ex__(self, protocol)
+
     def swapped(self) -> "Moments":
         """The moments with the roles of X and Y exchanged."""
         return Moments(
@@ -113,6 +124,19 @@ class Moments:
 
 #: Names of the higher centred sums (None unless asked for).
 HIGHER_KEYS = ("sxxx", "sxxxx", "sxxy")
+
+_PACKED = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", *HIGHER_KEYS)
+
+
+def _unpacked_moments(packed: bytes) -> Moments:
+    """The Moments of one sample packed by ``Moments.__reduce_ex__`` (numpy scalars)."""
+    values = np.frombuffer(packed, dtype=np.float64)
+    if values.size == 6:
+        n, mean_x, mean_y, sxx, syy, sxy = values     # iterating gives numpy scalars
+        return Moments(n=n, mean_x=mean_x, mean_y=mean_y, sxx=sxx, syy=syy, sxy=sxy)
+    n, mean_x, mean_y, sxx, syy, sxy, sxxx, sxxxx, sxxy = values
+    return Moments(n=n, mean_x=mean_x, mean_y=mean_y, sxx=sxx, syy=syy, sxy=sxy,
+                   sxxx=sxxx, sxxxx=sxxxx, sxxy=sxxy)
 
 
 def moments(x, y, *, higher: bool = False) -> Moments:
