@@ -440,3 +440,42 @@ class TestGridPrunedRows:
         monkeypatch.setattr(cs, "grid_values_pruned", pg.grid_values)
         want = cs._grid_minimum(method, loc, q, nu, lo, hi, points=points)
         assert np.array_equal(got, want)
+
+
+class TestIntervalGridSearch:
+    """The MA interval's bracket: the first of 720 grid points past the threshold,
+    searched in growing blocks, is the point the whole grid evaluated at once gives."""
+
+    @staticmethod
+    def _whole_grid(grid, loc, q, nu, f_hat, crit):
+        shape = (grid.size, loc.shape[1])
+        vals = cs._profile_terms("ma", grid, np.broadcast_to(loc, shape),
+                                 np.broadcast_to(q, shape), np.broadcast_to(nu, shape),
+                                 order=0)[0]
+        over = np.flatnonzero(vals - f_hat - crit > 0)
+        return float(grid[over[0]]) if over.size else None
+
+    @pytest.mark.parametrize("groups", [1, 2, 7, 1000])
+    def test_first_point_over_equals_the_whole_grid(self, groups):
+        rng = np.random.default_rng(40 + groups)
+        found = set()
+        for _ in range(40):
+            loc = rng.normal(0, 0.3, (1, groups))
+            q = rng.random((1, groups)) * rng.choice([0.01, 0.5, 1.0])
+            nu = rng.integers(1, 500, (1, groups)).astype(float)
+            x_hat = float(rng.normal(0, 0.5))
+            grid = x_hat + rng.choice([-1.0, 1.0]) * np.linspace(0, np.pi / 2, 721)[1:]
+            f_hat = float(cs._profile_terms("ma", np.array([x_hat]), loc, q, nu,
+                                            order=0)[0][0])
+            # thresholds from "crossed at once" to "never crossed"
+            crit = float(rng.choice([1e-6, 0.01, 1.0, 10.0, 1e6]) * nu.sum() / 100)
+            want = self._whole_grid(grid, loc, q, nu, f_hat, crit)
+            got = cs._first_over("ma", grid, loc, q, nu, f_hat, crit)
+            assert got == want          # bit for bit, or both None
+            found.add(None if want is None else int(np.flatnonzero(grid == want)[0]) > 0)
+        assert found >= {False, True} or groups == 1   # crossings at the first point and later
+
+    def test_no_crossing_gives_none(self):
+        loc, q, nu = np.zeros((1, 3)), np.full((1, 3), 0.5), np.full((1, 3), 10.0)
+        grid = np.linspace(0, np.pi / 2, 721)[1:]
+        assert cs._first_over("ma", grid, loc, q, nu, 0.0, 1e300) is None

@@ -8,12 +8,13 @@ identities; each check says which beside it.
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from numpy.testing import assert_allclose, assert_array_equal
 
-from scaling.stats.moments import Moments, group_moments, moments, weighted_moments
+from scaling.stats.moments import HIGHER_KEYS, Moments, group_moments, moments, weighted_moments
 
 
 def _numpy_moments(x: np.ndarray, y: np.ndarray) -> dict:
@@ -319,3 +320,56 @@ class TestCurvatureFromMoments:
                 assert_allclose(q["linear"], fit.params[4], rtol=1e-9)
                 assert_allclose(q["statistic"], fit.tvalues[5], rtol=1e-9)
                 assert_allclose(q["df"], fit.df_resid)
+
+
+@pytest.mark.parametrize("higher", [False, True])
+def test_indexing_takes_every_sum_at_the_index(higher):
+    # internal consistency: m[i] is each field indexed by i (higher sums only when all
+    # three are carried)
+    rng = np.random.default_rng(11)
+    x, y = rng.normal(size=60), rng.normal(size=60)
+    m = group_moments(x, y, rng.integers(0, 5, 60), n_groups=5, higher=higher)
+    for index in (0, 4, -1, slice(1, 3), np.array([3, 0])):
+        part = m[index]
+        for name in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", *HIGHER_KEYS):
+            whole = getattr(m, name)
+            got = getattr(part, name)
+            if whole is None:
+                assert got is None
+            else:
+                assert np.array_equal(got, whole[index])
+        assert part.has_higher == higher
+    partial = Moments(n=m.n, mean_x=m.mean_x, mean_y=m.mean_y, sxx=m.sxx, syy=m.syy,
+                      sxy=m.sxy, sxxx=m.sxx)        # one higher sum alone is not carried
+    assert partial[1].sxxx is None and not partial[1].has_higher
+
+
+def _same_moments(a: Moments, b: Moments) -> None:
+    for name in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", *HIGHER_KEYS):
+        va, vb = getattr(a, name), getattr(b, name)
+        assert type(va) is type(vb), name
+        if va is not None:
+            assert np.asarray(va).tobytes() == np.asarray(vb).tobytes(), name   # same bits
+
+
+@pytest.mark.parametrize("higher", [False, True])
+def test_pickled_moments_come_back_bit_for_bit(higher):
+    # internal consistency: numpy scalars take the packed road, anything else the
+    # dataclass one; both give the same types and bits back
+    import pickle
+    rng = np.random.default_rng(12)
+    x, y = rng.normal(size=40), rng.normal(size=40)
+    m = group_moments(x, y, rng.integers(0, 4, 40), n_groups=5, higher=higher)  # group 4 empty
+    special = Moments(n=np.float64(2.0), mean_x=np.float64(np.nan), mean_y=np.float64(-0.0),
+                      sxx=np.float64(np.inf), syy=np.float64(5e-324), sxy=np.float64(-1e308),
+                      **({k: np.float64(-0.0) for k in HIGHER_KEYS} if higher else {}))
+    partial = Moments(n=m.n[0], mean_x=m.mean_x[0], mean_y=m.mean_y[0], sxx=m.sxx[0],
+                      syy=m.syy[0], sxy=m.sxy[0], sxxx=m.sxx[0])
+    mixed = Moments(n=3.0, mean_x=m.mean_x[0], mean_y=m.mean_y[0], sxx=m.sxx[0],
+                    syy=m.syy[0], sxy=m.sxy[0])
+    zero_d = Moments(**{k: np.asarray(getattr(m, k)[1]) for k in
+                        ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
+    for item in (m, m[0], m[4], special, partial, mixed, zero_d, moments(x, y)):
+        for protocol in (2, pickle.HIGHEST_PROTOCOL):
+            _same_moments(pickle.loads(pickle.dumps(item, protocol=protocol)), item)
+    assert len(pickle.dumps(m[1])) < 200      # nine numbers in one bytes object

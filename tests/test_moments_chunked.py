@@ -84,3 +84,21 @@ def test_labels_outside_the_groups_take_the_one_pass_road(small_chunks):
     labels = np.r_[np.zeros(19, dtype=np.intp), 3]
     got = mom.group_moments(x, x, labels, n_groups=2)
     assert got.n.shape == (4,)
+
+
+@pytest.mark.parametrize("add_at", [False, True])
+@pytest.mark.parametrize("n_groups", [1, 40, 20_000])
+def test_carried_sums_equal_one_pass_by_either_scatter(small_chunks, monkeypatch, add_at,
+                                                        n_groups):
+    # np.add.at (numpy >= 1.25) and np.bincount over seeds and rows both add in row order
+    monkeypatch.setattr(mom, "_ADD_AT_IN_ORDER", add_at)
+    rng = np.random.default_rng(8)
+    n = 211
+    x = rng.normal(size=n) * 3 - 2e5
+    y = 0.7 * x + rng.normal(size=n)
+    x[17] = np.nan                      # a NaN stays in its own group's sums
+    labels = rng.integers(0, n_groups, size=n)
+    got = mom.group_moments(x, y, labels, n_groups=n_groups, higher=True)
+    want = one_pass(x, y, labels, n_groups, higher=True)
+    for k in want:
+        assert_array_equal(getattr(got, k), want[k], err_msg=k)

@@ -346,6 +346,29 @@ def _fit_common(method: str, n, sxx, syy, sxy, *, exact: bool = False) -> dict:
             "loc": loc, "q": q, "nu": nu, "sign": sign}
 
 
+def _first_over(method: str, grid, loc, q, nu, f_hat: float, crit: float) -> float | None:
+    """The first point of ``grid`` where the profile objective F exceeds
+    ``f_hat + crit`` (``F - f_hat - crit > 0``, in that order), None if none does.
+
+    The grid is evaluated in blocks of 1, 4, 16, ... points and the search stops
+    at the first block with such a point: with many rows the interval is narrow
+    and the first point already lies outside it.  Each point's F is a sum over
+    the groups of its own row, so it has the same bits whatever block it is in.
+    """
+    start, size = 0, 1
+    while start < grid.size:
+        part = grid[start:start + size]
+        shape = (part.size, loc.shape[1])
+        vals = _profile_terms(method, part, np.broadcast_to(loc, shape),
+                              np.broadcast_to(q, (part.size, q.shape[1])),
+                              np.broadcast_to(nu, (part.size, nu.shape[1])), order=0)[0]
+        over = np.flatnonzero(vals - f_hat - crit > 0)
+        if over.size:
+            return float(part[over[0]])
+        start += size
+        size *= 4
+    return None
+
 
 def _profile_interval(method: str, fit: dict, confidence: float,
                       crit: float | None = None) -> tuple[float, float]:
@@ -377,14 +400,10 @@ def _profile_interval(method: str, fit: dict, confidence: float,
             far = x_hat + direction * reach
         else:
             grid = x_hat + direction * np.linspace(0, np.pi / 2, 721)[1:]
-            vals = _profile_terms(method, grid, np.broadcast_to(loc, (grid.size, loc.shape[1])),
-                                  np.broadcast_to(q, (grid.size, q.shape[1])),
-                                  np.broadcast_to(nu, (grid.size, nu.shape[1])), order=0)[0]
-            over = np.flatnonzero(vals - f_hat - crit > 0)
-            if over.size == 0:
+            far = _first_over(method, grid, loc, q, nu, f_hat, crit)
+            if far is None:
                 bounds.append(math.nan)
                 continue
-            far = float(grid[over[0]])
         if excess(far) <= 0:
             bounds.append(math.nan)
             continue
