@@ -325,3 +325,25 @@ class TestFitStageGroups:
             assert all(_same_float(getattr(row, k), getattr(t, k))
                        for k in ("statistic", "df", "p_value"))
             assert (row.statistic_type, row.p_method) == (t.statistic_type, t.p_method)
+
+
+def test_group_frames_columns_read_at_once_equal_each_frames_own():
+    # internal consistency: set_columns of the frames of split_by_group (slices of the
+    # sorted table, read once) equals each frame's own columns; any other frame, a
+    # copy or a text column is read from the frame itself
+    from scaling.run.fits import set_columns, split_by_group
+    from scaling.stats.moments import sort_by_group
+    rng = np.random.default_rng(3)
+    names = ["b", "a", "c", "d"]
+    pts = pd.DataFrame({"row": np.arange(11), "x": rng.random(11), "log_x": rng.random(11),
+                        "group": pd.array([names[i] for i in [0, 1, 0, 2, 3, 1, 0, 2, 1, 0, 3]],
+                                          dtype="str"), "unit": list("abcdefghijk")})
+    codes, uniques = pd.factorize(pts["group"], sort=True)
+    order, bounds = sort_by_group(codes, n_groups=len(uniques))
+    frames = split_by_group(pts, order, bounds, [str(u) for u in uniques])
+    for frame in list(frames.values()) + [pts, frames["a"].copy()]:
+        got = set_columns(frame, "x", "log_x", "row")
+        for name, values in zip(("x", "log_x", "row"), got):
+            assert np.array_equal(values, frame[name].to_numpy())
+        assert set_columns(frame, "unit")[0].tolist() == frame["unit"].tolist()
+    assert len(set_columns(frames["c"], "x")[0]) == 2   # group c: rows 3 and 7

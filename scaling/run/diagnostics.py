@@ -31,6 +31,7 @@ from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTU
 from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
+from .fits import set_columns
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
 from .points_to_check import coded_groups, in_groups
@@ -203,7 +204,7 @@ def _ordinary(message: str) -> str:
 def _logs(cache: dict, key: tuple, sel: pd.DataFrame) -> tuple:
     """A point set's log x and log y, read from its frame once (``cache`` by key)."""
     if key not in cache:
-        cache[key] = (sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+        cache[key] = set_columns(sel, "log_x", "log_y")
     return cache[key]
 
 

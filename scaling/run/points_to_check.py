@@ -41,6 +41,7 @@ from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer
                                points_to_check, strong_influence, strong_influence_each,
                                strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
+from .fits import set_columns
 from .phylo_checks import answer_model_checks, answer_point_rows, point_context
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
@@ -211,7 +212,7 @@ def answer_points(cfg, state) -> list:
                 return _common_points(cfg, state, pooled, method, hyps)
             if line == "groups":
                 # each group's columns read once (a column of a frame costs tens of µs)
-                sets = [(g, sel, sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+                sets = [(g, sel, *set_columns(sel, "log_x", "log_y"))
                         for g, sel in _group_sets(state, method)]
                 sets = [s for s in sets if np.ptp(s[2]) > 0]
                 screens = strong_influence_each([(X, Y) for _, _, X, Y in sets],
