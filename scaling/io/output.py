@@ -263,6 +263,19 @@ def _csv_texts(values: list) -> list:
     return list(map(_csv_object, values))
 
 
+def _float_texts(v: np.ndarray) -> list:
+    """``float.__repr__`` of each value of a float64 array, each distinct value written
+    once: the same value recurs down many columns (a confidence level, an exponent, the
+    Cook's distances of the pooled points under each method).  Values are told apart by
+    their bits (0.0 and -0.0 are two texts)."""
+    if v.size < 64:
+        return list(map(float.__repr__, v.tolist()))
+    codes, distinct = pd.factorize(np.ascontiguousarray(v).view(np.int64))
+    words = np.array(list(map(float.__repr__, distinct.view(np.float64).tolist())),
+                     dtype=object)
+    return words[codes].tolist()
+
+
 class _TableText:
     """A table's cells as text, made once a column at a time: ``csv`` (what
     ``DataFrame.to_csv`` writes in each cell, before quoting) and, on demand,
@@ -284,7 +297,7 @@ class _TableText:
             dtype = column.dtype
             if isinstance(dtype, np.dtype) and dtype.kind == "f" and dtype.itemsize == 8:
                 v = column.to_numpy()
-                text = list(map(float.__repr__, v.tolist()))
+                text = _float_texts(v)
                 self._floats[j] = (v, text)
                 nan = np.flatnonzero(np.isnan(v)).tolist()
                 if nan:
