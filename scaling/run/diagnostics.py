@@ -69,6 +69,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     curved: set = set()   # (scope, group) of the curvature rows so far
     infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
+    flagged_of: dict = {}   # (scope, group) -> the flagged rows, their distances and units
     results: dict = {}
     # The ordinary answer's model; with a tree the phylogenetic model the Answer leads
     # with is checked too (below), and the ordinary checks are said to be the ordinary's.
@@ -109,16 +110,24 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         diag_records += [{"scope": scope, "group": group, "method": d.method,
                           **c.to_record(), "verdict": check_verdict(c, groups=named)}
                          for c in d.checks]
-        flagged, cooks = d.influence_values()
+        # the lines through one set of points share the OLS Cook's distances and so
+        # the flagged rows (diagnose returns the same tuple): read and labelled once
+        seen = flagged_of.get((scope, group))
+        if seen is None or seen[0] is not d.influential_rows:
+            flagged, cooks = d.influence_values()
+            flagged = np.asarray(flagged, dtype=np.int64).tolist()
+            named_rows = ([labels.get(r, "") for r in flagged] if labels is not None
+                          else _unit_labels(sel, rows, flagged)) if flagged else []
+            seen = flagged_of[(scope, group)] = (d.influential_rows, flagged, cooks,
+                                                 named_rows)
+        _, flagged, cooks, named_rows = seen
         if flagged:
             k = len(flagged)
-            flagged = np.asarray(flagged, dtype=np.int64).tolist()
             infl["scope"] += [scope] * k
             infl["group"] += [group] * k
             infl["method"] += [method] * k
             infl["row"] += [None] * k if scope == "group_means" else flagged
-            infl["label"] += ([labels.get(r, "") for r in flagged] if labels is not None
-                              else _unit_labels(sel, rows, flagged))
+            infl["label"] += named_rows
             infl["cooks_distance"] += cooks
         # the verdicts read the checks only: the per-point arrays (a million points
         # for the pooled line, one array per method) are let go once tabled
@@ -186,6 +195,9 @@ def influence_table(rows) -> pd.DataFrame:
     dicts); ``row`` as whole numbers, blank where a point has no input row (a group
     mean, a species of the tree)."""
     empty = not rows["row"] if isinstance(rows, dict) else not len(rows)
+    if not empty and isinstance(rows, dict) and None not in rows["row"]:
+        # every point has an input row: the row numbers as one integer array
+        rows = {**rows, "row": pd.array(np.array(rows["row"], dtype=np.int64), dtype="Int64")}
     frame = pd.DataFrame([] if empty else rows, columns=INFLUENCE_COLUMNS)
     return frame.astype({"row": "Int64"})
 
@@ -239,8 +251,11 @@ def _unit_labels(sel: pd.DataFrame, rows: np.ndarray, flagged: list) -> list:
     if "unit" not in sel:
         return [""] * len(flagged)
     rows = np.asarray(rows, dtype=np.int64)
-    order = np.argsort(rows, kind="stable")
-    at = order[np.searchsorted(rows, flagged, side="right", sorter=order) - 1]
+    if rows.size < 2 or bool(np.all(rows[1:] >= rows[:-1])):   # in order already
+        at = np.searchsorted(rows, flagged, side="right") - 1
+    else:
+        order = np.argsort(rows, kind="stable")
+        at = order[np.searchsorted(rows, flagged, side="right", sorter=order) - 1]
     return sel["unit"].iloc[at].astype(str).tolist()
 
 

@@ -486,7 +486,12 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     checks.append(check)
     cooks = memo["cooks"]
     threshold = 4.0 / n
-    checks.append(_influence(cooks, rows, threshold))
+    # the OLS Cook's distances are the same for every line through these points: so is
+    # the check, when the row numbers are (the same Check object, so callers see it)
+    seen = memo.get("influence")
+    if seen is None or not (seen[0] is rows or np.array_equal(seen[0], rows)):
+        seen = memo["influence"] = (rows, _influence(cooks, rows, threshold))
+    checks.append(seen[1])
     influential = checks[-1].rows
 
     return Diagnostics(method=fit.method, n=n, alpha=alpha, checks=tuple(checks),
