@@ -291,6 +291,23 @@ class TestFitStageGroups:
             if fit is not None:
                 assert fit.x_range == (r["x_min"], r["x_max"])
 
+    def test_groups_coded_by_the_fits_are_the_codes_of_their_names_as_text(self, tmp_path,
+                                                                               frame):
+        # internal consistency: the fitting stage's codes of the points' groups (reused by
+        # the checks) are coded_groups' codes of the names as text, in the same order;
+        # another frame (a copy) is coded afresh, to the same codes
+        from scaling.run.points_to_check import coded_groups, coded_points
+        cfg, state = _run_state(tmp_path, frame)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fit_stage(cfg, state)
+        pts = state.data.points
+        want = coded_groups(pts["group"])
+        for points in (pts, pts.copy()):
+            got = coded_points(points)
+            assert np.array_equal(got.codes, want.codes)
+            assert got.labels.tolist() == want.labels.tolist() == sorted(set(frame["g"]))
+
     def test_point_sets_are_each_groups_rows(self, tmp_path, frame):
         # internal consistency: each group's points are the table's rows of that group
         cfg, state = _run_state(tmp_path, frame)

@@ -34,7 +34,7 @@ from ..render.prediction_words import answer_primary
 from .fits import set_columns
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
-from .points_to_check import coded_groups, in_groups
+from .points_to_check import coded_points, in_groups
 from .predictions import CHUNK_ROWS, chunk_runs
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
@@ -95,7 +95,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
                 warnings.simplefilter("ignore")
                 if fit is None:
                     d = diagnose_parallel(_common_slope(state.fits, method), X, Y,
-                                          coded_groups(sel["group"]), method=method,
+                                          coded_points(sel), method=method,
                                           rows=rows, exponent_targets=targets,
                                           alpha=dc.alpha, log_base=state.base)
                 else:

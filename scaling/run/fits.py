@@ -34,7 +34,7 @@ from ..stats.schema import FIT_COLUMNS, PHYLO_FIT_COLUMNS, SLOPE_TEST_COLUMNS, i
 __all__ = ["FitStage", "FitsTable", "fit_stage", "fits_table_stage", "value_range",
            "fit_moment_rows", "row_method_fit", "blank_numbers", "robust_n_boot",
            "nothing_estimable", "slope_tests", "with_note", "with_ranges", "split_by_group",
-           "set_columns"]
+           "set_columns", "known_group_codes"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -116,6 +116,10 @@ def fit_stage(cfg, state) -> FitStage:
     if state.data.has_groups:
         codes, uniques = pd.factorize(pts["group"], sort=True)
         group_names = [str(u) for u in uniques]
+        if isinstance(pts["group"].dtype, pd.StringDtype) and (not codes.size or codes.min() >= 0):
+            # text names sorted as text: the codes later stages take the groups by
+            _CODED[id(pts)] = (weakref.ref(pts, _forget(id(pts), _CODED)), codes,
+                               np.asarray(group_names, dtype=str))
         gm = group_moments(X, Y, codes, n_groups=len(group_names))
         # One stable sort by group serves the ranges and the split into groups
         # (no scan of the table per group).
@@ -199,10 +203,24 @@ class _Sorted:
 _SLICES: dict = {}
 
 
-def _forget(key: int):
+#: ``id(points) -> (weak reference to them, codes, names)``: the groups of the points
+#: fitted, coded by :func:`fit_stage` (names in text order).
+_CODED: dict = {}
+
+
+def _forget(key: int, registry: dict | None = None):
     def drop(_ref):
-        _SLICES.pop(key, None)
+        (_SLICES if registry is None else registry).pop(key, None)
     return drop
+
+
+def known_group_codes(frame: pd.DataFrame):
+    """``(codes, names)`` of the ``group`` column of the points :func:`fit_stage` fitted
+    (``pandas.factorize`` of the text names, sorted), or None for any other frame."""
+    entry = _CODED.get(id(frame))
+    if entry is not None and entry[0]() is frame:
+        return entry[1], entry[2]
+    return None
 
 
 def set_columns(frame: pd.DataFrame, *names: str) -> tuple:
