@@ -684,3 +684,17 @@ def test_influence_table_from_whole_row_numbers_equals_the_one_built_value_by_va
     got = influence_table(blank)
     assert got["row"].isna().tolist() == [True, False, True] and str(got["row"].dtype) == "Int64"
     assert len(influence_table({c: [] for c in INFLUENCE_COLUMNS})) == 0
+
+
+def test_influence_table_with_blank_rows_equals_pandas_own_conversion():
+    # internal consistency: blanks among the row numbers (group means, species of a
+    # tree) and other number types give the table pandas builds from the lists
+    import pandas as pd
+    from scaling.run.diagnostics import influence_table
+    from scaling.stats.schema import INFLUENCE_COLUMNS
+    for row in ([None, 2, 2**40], [3, np.int64(4), None], [None, None, None]):
+        cols = {"scope": ["group_means", "pooled", "pooled"], "group": ["", "", ""],
+                "method": ["sma"] * 3, "row": row, "label": ["g1", "", "g3"],
+                "cooks_distance": [0.5, np.nan, 0.1]}
+        want = pd.DataFrame(cols, columns=INFLUENCE_COLUMNS).astype({"row": "Int64"})
+        pd.testing.assert_frame_equal(influence_table(cols), want)

@@ -195,9 +195,14 @@ def influence_table(rows) -> pd.DataFrame:
     dicts); ``row`` as whole numbers, blank where a point has no input row (a group
     mean, a species of the tree)."""
     empty = not rows["row"] if isinstance(rows, dict) else not len(rows)
-    if not empty and isinstance(rows, dict) and None not in rows["row"]:
-        # every point has an input row: the row numbers as one integer array
-        rows = {**rows, "row": pd.array(np.array(rows["row"], dtype=np.int64), dtype="Int64")}
+    if not empty and isinstance(rows, dict):
+        # the row numbers as one integer array and a mask of the blanks (pandas would
+        # look at each of a hundred thousand values to find their type)
+        given = np.array(rows["row"], dtype=object)
+        blank = np.equal(given, None)
+        if given.ndim == 1 and set(map(type, given[~blank].tolist())) <= {int}:
+            values = np.where(blank, 0, given).astype(np.int64)
+            rows = {**rows, "row": pd.arrays.IntegerArray(values, blank)}
     frame = pd.DataFrame([] if empty else rows, columns=INFLUENCE_COLUMNS)
     return frame.astype({"row": "Int64"})
 
