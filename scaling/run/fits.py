@@ -118,7 +118,9 @@ def fit_stage(cfg, state) -> FitStage:
         group_names = [str(u) for u in uniques]
         if isinstance(pts["group"].dtype, pd.StringDtype) and (not codes.size or codes.min() >= 0):
             # text names sorted as text: the codes later stages take the groups by
-            _CODED[id(pts)] = (weakref.ref(pts, _forget(id(pts), _CODED)), codes,
+            # kept as small integers while the run lasts (2 bytes a row below 32768 groups)
+            _CODED[id(pts)] = (weakref.ref(pts, _forget(id(pts), _CODED)),
+                               codes.astype(np.min_scalar_type(max(len(group_names) - 1, 0))),
                                np.asarray(group_names, dtype=str))
         gm = group_moments(X, Y, codes, n_groups=len(group_names))
         # One stable sort by group serves the ranges and the split into groups
@@ -219,7 +221,7 @@ def known_group_codes(frame: pd.DataFrame):
     (``pandas.factorize`` of the text names, sorted), or None for any other frame."""
     entry = _CODED.get(id(frame))
     if entry is not None and entry[0]() is frame:
-        return entry[1], entry[2]
+        return entry[1].astype(np.intp), entry[2]
     return None
 
 
