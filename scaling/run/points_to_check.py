@@ -111,46 +111,45 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
         for r in preds.itertuples(index=False):
             pred_rows.setdefault((r.scope, r.group, r.method), []).append(r)
     sizes = {k: len(sel) for k, sel in point_sets.items()}   # each set's size taken once
-    for key, fit in line_fits.items():
-        scope, group, method = key
-        size = sizes.get((scope, group))
-        if size is None or size != fit.n or size < 4:
-            continue
-        sel = point_sets[(scope, group)]
-        whole = key == pooled_key
-        est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
-               for r in pred_rows.get(key, ())] if preds is not None and len(preds) else ()
-        smear, param = factors.get(key, (None, None))
-        if whole:   # the points are read for the primary pooled line only
-            labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
-            # the groups as codes in the order of their names (factorized by pandas:
-            # no Python string per row)
-            codes = (coded_points(sel).codes
-                     if "group" in sel and scope == "pooled" else None)
-            x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
-            rows = sel["row"].to_numpy() if "row" in sel else None
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
+    with warnings.catch_warnings():   # one silenced context for every fit's checks
+        warnings.simplefilter("ignore")
+        for key, fit in line_fits.items():
+            scope, group, method = key
+            size = sizes.get((scope, group))
+            if size is None or size != fit.n or size < 4:
+                continue
+            sel = point_sets[(scope, group)]
+            whole = key == pooled_key
+            est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
+                   for r in pred_rows.get(key, ())] if preds is not None and len(preds) else ()
+            smear, param = factors.get(key, (None, None))
+            if whole:   # the points are read for the primary pooled line only
+                labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
+                # the groups as codes in the order of their names (factorized by pandas:
+                # no Python string per row)
+                codes = (coded_points(sel).codes
+                         if "group" in sel and scope == "pooled" else None)
+                x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
+                rows = sel["row"].to_numpy() if "row" in sel else None
+            try:
                 if whole:
                     found = points_to_check(x, y, method=method, rows=rows, labels=labels,
                                             group_codes=codes, smearing_factor=smear,
-                                            parametric_factor=param, estimates=est,
-                                            alpha=alpha)
+                                            parametric_factor=param, estimates=est, alpha=alpha)
                 else:   # fit-level checks only; points are checked on the primary line
                     found = fit_checks(smearing_factor=smear, parametric_factor=param,
                                        estimates=est)
-        except ScalingError:
-            continue
-        if whole and answer and answer[0][0] == "pooled":
-            # the pooled line is the answer: its strong points are the answer's
-            found = [c for c in found if c.kind != "influence"]
-            records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
-                         "reason": point_check_reason(c)} for sc, g, m, c in answer]
-            answer = []
-        for c in found:
-            records.append({"scope": scope, "group": group, "method": method,
-                            **c.to_record(), "reason": point_check_reason(c)})
+            except ScalingError:
+                continue
+            if whole and answer and answer[0][0] == "pooled":
+                # the pooled line is the answer: its strong points are the answer's
+                found = [c for c in found if c.kind != "influence"]
+                records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
+                             "reason": point_check_reason(c)} for sc, g, m, c in answer]
+                answer = []
+            for c in found:
+                records.append({"scope": scope, "group": group, "method": method,
+                                **c.to_record(), "reason": point_check_reason(c)})
     records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
                  "reason": point_check_reason(c)} for sc, g, m, c in answer]
     table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
