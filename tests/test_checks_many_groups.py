@@ -281,3 +281,70 @@ def test_a_given_breusch_pagan_is_reported_as_given():
     # internal consistency: the grouped sums equal the one-line sums to rounding
     assert_allclose([given.statistic, given.p_value], [own.statistic, own.p_value], rtol=1e-12)
     assert given.flagged == own.flagged and given.direction == own.direction
+
+
+@pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+def test_no_line_mask_is_where_the_fit_notes_are_not_empty(method):
+    # internal consistency: the boolean mask of influence._no_line marks exactly the fits
+    # whose scaling.stats.lines.fit_notes are not empty, on the edge cases of a fit
+    from scaling.stats.influence import _no_line
+    from scaling.stats.lines import fit_notes
+    from scaling.stats.moments import Moments
+    n = np.array([1.0, 2, 3, 3, 4, 5, 6, 7, 1e6, 8])
+    mean_x = np.array([0.0, 1, 2, 1e12, 1, 1, 1, 1, 3, np.nan])
+    mean_y = np.array([0.0, 1, 2, 1, 1e12, 1, 1, 1, 3, 1])
+    sxx = np.array([0.0, 1, 1, 1e-3, 1, 0, 1, 1e-30, 2, 1])
+    syy = np.array([0.0, 1, 1, 1, 1e-3, 1, 0, 1, 2, 1])
+    sxy = np.array([0.0, 1, 0, 0.5, 0.5, 0, 0, 0, 1, np.nan])
+    m = Moments(n=n, mean_x=mean_x, mean_y=mean_y, sxx=sxx, syy=syy, sxy=sxy)
+    want = fit_notes(m, method) != ""
+    assert want.any() and not want.all()
+    assert np.array_equal(_no_line(m, method), want)
+
+
+def _scipy_f_oneway(values, sizes) -> tuple:
+    from scipy import stats
+    res = stats.f_oneway(*np.split(values, np.cumsum(sizes)[:-1]))
+    return res.statistic, res.pvalue
+
+
+@pytest.mark.parametrize("sizes", [[2, 2], [3, 5, 2], [2] * 500, [1000, 3], [4] * 3 + [700] * 4,
+                                   list(range(2, 300))])
+def test_one_way_f_gives_scipy_f_oneway_floats(sizes):
+    # reference library: scipy.stats.f_oneway on the samples one by one, bit for bit
+    from scaling.stats.influence import one_way_f
+    rng = np.random.default_rng(len(sizes))
+    values = rng.normal(size=sum(sizes)) * 1e-3 + 5.0
+    values[: sizes[0]] += 0.01 * np.arange(sizes[0])   # a group shifted and spread
+    got = one_way_f(values, sizes)
+    want = _scipy_f_oneway(values, sizes)
+    assert got[0] == want[0] and got[1] == want[1]
+
+
+def test_one_way_f_leaves_constant_samples_and_nan_to_scipy():
+    # reference library: scipy.stats.f_oneway (inf for constant groups that differ,
+    # NaN for one constant value, NaN propagated)
+    from scaling.stats.influence import one_way_f
+    for values, sizes in ((np.array([1.0, 1, 2, 2, 2]), [2, 3]),
+                          (np.array([1.0, 1, 1, 1]), [2, 2]),
+                          (np.array([1.0, np.nan, 2, 3]), [2, 2]),
+                          (np.array([1.0, 1, 2, 3]), [2, 2])):
+        got, want = one_way_f(values, sizes), _scipy_f_oneway(values, sizes)
+        assert np.array_equal(np.array(got, float), np.array(want, float), equal_nan=True)
+
+
+def test_points_to_check_group_residual_test_is_scipy_f_oneway():
+    # reference library: scipy.stats.f_oneway of the OLS residuals split by group (groups
+    # of one point left out), as points_to_check reports it
+    from scipy import stats
+    from scaling.stats.influence import points_to_check
+    rng = np.random.default_rng(5)
+    codes = np.r_[rng.integers(0, 40, 2000), 40]   # group 40 holds one point
+    X = rng.normal(size=codes.size)
+    Y = 0.75 * X + 0.05 * codes + rng.normal(scale=0.1, size=codes.size)
+    found = [c for c in points_to_check(X, Y, group_codes=codes) if c.kind == "group_residuals"]
+    e = _ols_resid(X, Y)   # numpy polyfit's line: the same residuals to rounding
+    want = stats.f_oneway(*[e[codes == g] for g in range(40)])
+    assert len(found) == 1
+    assert found[0].df1 == 39 and found[0].df2 == 2000 - 40
+    assert_allclose(found[0].statistic, want.statistic, rtol=1e-9)

@@ -93,6 +93,19 @@ class TestWriteCsv:
         write_csv(frame, tmp_path / "ours.csv")
         assert (tmp_path / "ours.csv").read_bytes() == _pandas_csv(frame, tmp_path / "p.csv")
 
+    def test_repeated_floats_and_signed_zeros_are_written_as_pandas_writes_them(self, tmp_path):
+        # each distinct value is written once and taken by its code: 0.0 and -0.0 (equal
+        # as numbers, two texts), NaN and repeats among many rows keep pandas' bytes
+        rng = np.random.default_rng(11)
+        pool = np.array([0.0, -0.0, np.nan, 0.75, 1 / 3, -np.inf, 5e-324, 0.1 + 0.2])
+        values = pool[rng.integers(0, pool.size, 5000)]
+        frame = pd.DataFrame({"v": values, "w": np.concatenate([values[:4000],
+                                                                _random_floats(1000)])})
+        write_csv(frame, tmp_path / "ours.csv")
+        assert (tmp_path / "ours.csv").read_bytes() == _pandas_csv(frame, tmp_path / "p.csv")
+        reference = output._json_part("t", records(frame))
+        assert output._json_part("t", frame, output._TableText(frame)) == reference
+
     def test_a_plant_in_the_float_text_is_caught(self, tmp_path, monkeypatch):
         # teeth: a writer that rounds floats to 15 digits differs from pandas
         frame = pd.DataFrame({"v": [0.1 + 0.2, 1 / 3], "w": [1.0, 2.0]})

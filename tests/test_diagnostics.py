@@ -645,3 +645,56 @@ def test_influential_rows_are_written_as_whole_row_numbers_and_blank_without_a_r
     empty = influence_table({"scope": [], "group": [], "method": [], "row": [], "label": [],
                              "cooks_distance": []})
     assert len(empty) == 0 and str(empty["row"].dtype) == "Int64"
+
+
+def test_lines_through_one_set_share_the_influence_check_of_a_lone_diagnose():
+    # internal consistency: with one memo per set of points, the OLS, SMA and MA lines
+    # get the same influence check object, equal to what each line's diagnose gives
+    # alone; other row numbers get their own check
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=300)
+    Y = 0.7 * X + rng.normal(scale=0.3, size=300)
+    Y[[5, 80]] += 3.0
+    rows = np.arange(300) * 2
+    memo: dict = {}
+    shared = []
+    for method in ("ols", "sma", "ma"):
+        fit = fit_line(X, Y, method=method, log_base=None)
+        d = diagnose(fit, X, Y, rows=rows.copy(), memo=memo)
+        alone = diagnose(fit, X, Y, rows=rows)
+        assert d.checks == alone.checks and d.influential_rows == alone.influential_rows
+        shared.append(d.check("influence"))
+    assert shared[0] is shared[1] is shared[2] and shared[0].rows
+    other = diagnose(fit, X, Y, rows=rows + 1, memo=memo)
+    assert other.influential_rows == tuple(r + 1 for r in shared[0].rows)
+
+
+def test_influence_table_from_whole_row_numbers_equals_the_one_built_value_by_value():
+    # internal consistency: the influential_rows table built with an integer row array
+    # equals the one pandas builds from the lists (Int64 rows, blank where a point has
+    # no input row)
+    import pandas as pd
+    from scaling.run.diagnostics import influence_table
+    from scaling.stats.schema import INFLUENCE_COLUMNS
+    cols = {"scope": ["pooled"] * 3, "group": [""] * 3, "method": ["ols"] * 3,
+            "row": [7, 2, 11], "label": ["a", "", "c"], "cooks_distance": [0.5, 0.25, 0.1]}
+    want = pd.DataFrame(cols, columns=INFLUENCE_COLUMNS).astype({"row": "Int64"})
+    pd.testing.assert_frame_equal(influence_table(cols), want)
+    blank = {**cols, "row": [None, 2, None]}
+    got = influence_table(blank)
+    assert got["row"].isna().tolist() == [True, False, True] and str(got["row"].dtype) == "Int64"
+    assert len(influence_table({c: [] for c in INFLUENCE_COLUMNS})) == 0
+
+
+def test_influence_table_with_blank_rows_equals_pandas_own_conversion():
+    # internal consistency: blanks among the row numbers (group means, species of a
+    # tree) and other number types give the table pandas builds from the lists
+    import pandas as pd
+    from scaling.run.diagnostics import influence_table
+    from scaling.stats.schema import INFLUENCE_COLUMNS
+    for row in ([None, 2, 2**40], [3, np.int64(4), None], [None, None, None]):
+        cols = {"scope": ["group_means", "pooled", "pooled"], "group": ["", "", ""],
+                "method": ["sma"] * 3, "row": row, "label": ["g1", "", "g3"],
+                "cooks_distance": [0.5, np.nan, 0.1]}
+        want = pd.DataFrame(cols, columns=INFLUENCE_COLUMNS).astype({"row": "Int64"})
+        pd.testing.assert_frame_equal(influence_table(cols), want)

@@ -291,6 +291,23 @@ class TestFitStageGroups:
             if fit is not None:
                 assert fit.x_range == (r["x_min"], r["x_max"])
 
+    def test_groups_coded_by_the_fits_are_the_codes_of_their_names_as_text(self, tmp_path,
+                                                                               frame):
+        # internal consistency: the fitting stage's codes of the points' groups (reused by
+        # the checks) are coded_groups' codes of the names as text, in the same order;
+        # another frame (a copy) is coded afresh, to the same codes
+        from scaling.run.points_to_check import coded_groups, coded_points
+        cfg, state = _run_state(tmp_path, frame)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fit_stage(cfg, state)
+        pts = state.data.points
+        want = coded_groups(pts["group"])
+        for points in (pts, pts.copy()):
+            got = coded_points(points)
+            assert np.array_equal(got.codes, want.codes)
+            assert got.labels.tolist() == want.labels.tolist() == sorted(set(frame["g"]))
+
     def test_point_sets_are_each_groups_rows(self, tmp_path, frame):
         # internal consistency: each group's points are the table's rows of that group
         cfg, state = _run_state(tmp_path, frame)
@@ -325,3 +342,25 @@ class TestFitStageGroups:
             assert all(_same_float(getattr(row, k), getattr(t, k))
                        for k in ("statistic", "df", "p_value"))
             assert (row.statistic_type, row.p_method) == (t.statistic_type, t.p_method)
+
+
+def test_group_frames_columns_read_at_once_equal_each_frames_own():
+    # internal consistency: set_columns of the frames of split_by_group (slices of the
+    # sorted table, read once) equals each frame's own columns; any other frame, a
+    # copy or a text column is read from the frame itself
+    from scaling.run.fits import set_columns, split_by_group
+    from scaling.stats.moments import sort_by_group
+    rng = np.random.default_rng(3)
+    names = ["b", "a", "c", "d"]
+    pts = pd.DataFrame({"row": np.arange(11), "x": rng.random(11), "log_x": rng.random(11),
+                        "group": pd.array([names[i] for i in [0, 1, 0, 2, 3, 1, 0, 2, 1, 0, 3]],
+                                          dtype="str"), "unit": list("abcdefghijk")})
+    codes, uniques = pd.factorize(pts["group"], sort=True)
+    order, bounds = sort_by_group(codes, n_groups=len(uniques))
+    frames = split_by_group(pts, order, bounds, [str(u) for u in uniques])
+    for frame in list(frames.values()) + [pts, frames["a"].copy()]:
+        got = set_columns(frame, "x", "log_x", "row")
+        for name, values in zip(("x", "log_x", "row"), got):
+            assert np.array_equal(values, frame[name].to_numpy())
+        assert set_columns(frame, "unit")[0].tolist() == frame["unit"].tolist()
+    assert len(set_columns(frames["c"], "x")[0]) == 2   # group c: rows 3 and 7

@@ -263,6 +263,19 @@ def _csv_texts(values: list) -> list:
     return list(map(_csv_object, values))
 
 
+def _float_texts(v: np.ndarray) -> list:
+    """``float.__repr__`` of each value of a float64 array, each distinct value written
+    once: the same value recurs down many columns (a confidence level, an exponent, the
+    Cook's distances of the pooled points under each method).  Values are told apart by
+    their bits (0.0 and -0.0 are two texts)."""
+    if v.size < 64:
+        return list(map(float.__repr__, v.tolist()))
+    codes, distinct = pd.factorize(np.ascontiguousarray(v).view(np.int64))
+    words = np.array(list(map(float.__repr__, distinct.view(np.float64).tolist())),
+                     dtype=object)
+    return words[codes].tolist()
+
+
 class _TableText:
     """A table's cells as text, made once a column at a time: ``csv`` (what
     ``DataFrame.to_csv`` writes in each cell, before quoting) and, on demand,
@@ -274,17 +287,17 @@ class _TableText:
     ``float.__repr__``, both the shortest text that reads back as the same float.
     """
 
-    __slots__ = ("frame", "csv", "_floats", "ok")
+    __slots__ = ("frame", "csv", "_floats", "_words", "ok")
 
     def __init__(self, frame: pd.DataFrame):
         self.frame = frame
-        self.csv, self._floats, self.ok = [], {}, True
+        self.csv, self._floats, self._words, self.ok = [], {}, {}, True
         for j in range(frame.shape[1]):
             column = frame.iloc[:, j]
             dtype = column.dtype
             if isinstance(dtype, np.dtype) and dtype.kind == "f" and dtype.itemsize == 8:
                 v = column.to_numpy()
-                text = list(map(float.__repr__, v.tolist()))
+                text = _float_texts(v)
                 self._floats[j] = (v, text)
                 nan = np.flatnonzero(np.isnan(v)).tolist()
                 if nan:
@@ -300,8 +313,22 @@ class _TableText:
                 values = column.to_numpy(dtype=object, copy=True)
                 values[pd.isna(values)] = ""
                 self.csv.append(_csv_texts(values.tolist()))
-            elif isinstance(dtype, pd.StringDtype) or (
-                    isinstance(dtype, _MaskedDtype) and dtype.kind in "iub"):
+            elif isinstance(dtype, pd.StringDtype):
+                # a few distinct words over many rows (scope, group, method, label):
+                # each distinct word is handled once and the cells taken by their codes
+                codes, words = pd.factorize(column)
+                words = [str(w) for w in words]   # text as it is; a missing cell is ""
+                self._words[j] = (codes, words)
+                self.csv.append(np.array(words + [""], dtype=object)[codes].tolist())
+            elif isinstance(dtype, _MaskedDtype) and dtype.kind in "iu":
+                # what pandas writes through astype(object): str of each whole number
+                values = column.array
+                text = list(map(int.__repr__, values.to_numpy(
+                    dtype=dtype.numpy_dtype, na_value=0).tolist()))
+                for i in np.flatnonzero(values.isna()).tolist():
+                    text[i] = ""
+                self.csv.append(text)
+            elif isinstance(dtype, _MaskedDtype) and dtype.kind == "b":
                 # pandas writes these through astype(object): the same values
                 values = column.to_numpy(dtype=object)
                 values[column.isna().to_numpy()] = ""
@@ -309,6 +336,13 @@ class _TableText:
             else:
                 self.ok = False
                 return
+
+    def quoted(self, j: int) -> bool:
+        """Whether some cell of column ``j`` holds a character the csv writer quotes."""
+        if j in self._floats or self.frame.dtypes.iloc[j].kind in "iub":
+            return False   # numbers and True/False are never quoted
+        cells = self._words[j][1] if j in self._words else self.csv[j]
+        return _QUOTED.search("".join(cells)) is not None
 
     def json(self, j: int) -> list:
         """Column ``j`` as the JSON encoder writes each of its :func:`records` values."""
@@ -320,6 +354,10 @@ class _TableText:
                 for i in bad:
                     text[i] = "null"
             return text
+        if j in self._words:   # text, or null where missing
+            codes, words = self._words[j]
+            return np.array([_encode_str(w) for w in words] + ["null"],
+                            dtype=object)[codes].tolist()
         column = self.frame.iloc[:, j]
         dtype = column.dtype
         if isinstance(dtype, np.dtype) and dtype.kind in "iu":
@@ -336,15 +374,11 @@ _QUOTED = re.compile(r'[,"\r\n]')
 def _csv_rows(text: _TableText) -> str | None:
     """The body of the CSV (one line per row), or None when some cell needs quoting or
     the table has a single column (whose empty cells the writer quotes)."""
-    if len(text.csv) < 2:
+    if len(text.csv) < 2 or any(text.quoted(j) for j in range(len(text.csv))):
         return None
-    for j, cells in enumerate(text.csv):
-        if j in text._floats or text.frame.dtypes.iloc[j].kind in "iub":
-            continue   # numbers and True/False are never quoted
-        if _QUOTED.search("".join(cells)):
-            return None
-    line = ",".join(["%s"] * len(text.csv)) + "\n"
-    return "".join(map(line.__mod__, zip(*text.csv)))
+    if not text.csv[0]:
+        return ""
+    return "\n".join(map(",".join, zip(*text.csv))) + "\n"   # every cell is text already
 
 
 def _json_rows(frame: pd.DataFrame, text: _TableText | None = None) -> str:

@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import math
 from collections import namedtuple
+from functools import lru_cache
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -237,7 +238,10 @@ def _gap(row) -> tuple:
                  else _num(getattr(row, k, math.nan)) for k in ("slope_gap_low", "slope_gap_high"))
 
 
+@lru_cache(maxsize=4096)
 def _short_verdict(est, b0, p, alpha, p_method="") -> str:
+    """The verdict cell of an exponent table (cached: a line's verdicts are written in the
+    exponent table and again in the groups' table, thousands of times over many groups)."""
     if not np.isfinite(p):
         return "not tested"
     if p < alpha:
@@ -280,7 +284,8 @@ def _tests(slope_tests: pd.DataFrame, scope: str, method: str, group: str = ""):
 
 
 def _test_index(slope_tests: pd.DataFrame | None) -> dict:
-    """Rows of ``slope_tests`` (as dicts, in table order) by (scope, method, group).
+    """Rows of ``slope_tests`` (as dicts of :data:`_TEST_FIELDS`, in table order) by
+    (scope, method, group).
 
     One pass over the table, so that looking up the tests of each of many
     groups does not filter the whole table once per group.  ``group`` is the
@@ -291,11 +296,16 @@ def _test_index(slope_tests: pd.DataFrame | None) -> dict:
         return out
     keys = zip(slope_tests["scope"].tolist(), slope_tests["method"].tolist(),
                slope_tests["group"].fillna("").astype(str).tolist())
-    # records from column lists: to_dict boxes every cell of an Arrow text column
-    columns = {c: slope_tests[c].tolist() for c in slope_tests.columns}
+    # records from column lists (to_dict boxes every cell of an Arrow text column), of
+    # the columns the headline reads
+    columns = {c: slope_tests[c].tolist() for c in _TEST_FIELDS if c in slope_tests.columns}
     for key, values in zip(keys, zip(*columns.values())):
         out.setdefault(key, []).append(dict(zip(columns, values)))
     return out
+
+
+#: The columns of slope_tests rows that :func:`_test_index` keeps.
+_TEST_FIELDS = ("hypothesis", "exponent", "estimate", "p_value", "p_method")
 
 
 def _exponent_table(fits, slope_tests, primary, alpha, pct, index=None) -> pd.DataFrame:

@@ -31,9 +31,10 @@ from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTU
 from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
+from .fits import set_columns
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
-from .points_to_check import coded_groups, in_groups
+from .points_to_check import coded_points, in_groups
 from .predictions import CHUNK_ROWS, chunk_runs
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
@@ -68,6 +69,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     curved: set = set()   # (scope, group) of the curvature rows so far
     infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
+    flagged_of: dict = {}   # (scope, group) -> the flagged rows, their distances and units
     results: dict = {}
     # The ordinary answer's model; with a tree the phylogenetic model the Answer leads
     # with is checked too (below), and the ordinary checks are said to be the ordinary's.
@@ -93,7 +95,7 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
                 warnings.simplefilter("ignore")
                 if fit is None:
                     d = diagnose_parallel(_common_slope(state.fits, method), X, Y,
-                                          coded_groups(sel["group"]), method=method,
+                                          coded_points(sel), method=method,
                                           rows=rows, exponent_targets=targets,
                                           alpha=dc.alpha, log_base=state.base)
                 else:
@@ -108,16 +110,24 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         diag_records += [{"scope": scope, "group": group, "method": d.method,
                           **c.to_record(), "verdict": check_verdict(c, groups=named)}
                          for c in d.checks]
-        flagged, cooks = d.influence_values()
+        # the lines through one set of points share the OLS Cook's distances and so
+        # the flagged rows (diagnose returns the same tuple): read and labelled once
+        seen = flagged_of.get((scope, group))
+        if seen is None or seen[0] is not d.influential_rows:
+            flagged, cooks = d.influence_values()
+            flagged = np.asarray(flagged, dtype=np.int64).tolist()
+            named_rows = ([labels.get(r, "") for r in flagged] if labels is not None
+                          else _unit_labels(sel, rows, flagged)) if flagged else []
+            seen = flagged_of[(scope, group)] = (d.influential_rows, flagged, cooks,
+                                                 named_rows)
+        _, flagged, cooks, named_rows = seen
         if flagged:
             k = len(flagged)
-            flagged = np.asarray(flagged, dtype=np.int64).tolist()
             infl["scope"] += [scope] * k
             infl["group"] += [group] * k
             infl["method"] += [method] * k
             infl["row"] += [None] * k if scope == "group_means" else flagged
-            infl["label"] += ([labels.get(r, "") for r in flagged] if labels is not None
-                              else _unit_labels(sel, rows, flagged))
+            infl["label"] += named_rows
             infl["cooks_distance"] += cooks
         # the verdicts read the checks only: the per-point arrays (a million points
         # for the pooled line, one array per method) are let go once tabled
@@ -185,6 +195,14 @@ def influence_table(rows) -> pd.DataFrame:
     dicts); ``row`` as whole numbers, blank where a point has no input row (a group
     mean, a species of the tree)."""
     empty = not rows["row"] if isinstance(rows, dict) else not len(rows)
+    if not empty and isinstance(rows, dict):
+        # the row numbers as one integer array and a mask of the blanks (pandas would
+        # look at each of a hundred thousand values to find their type)
+        given = np.array(rows["row"], dtype=object)
+        blank = np.equal(given, None)
+        if given.ndim == 1 and set(map(type, given[~blank].tolist())) <= {int}:
+            values = np.where(blank, 0, given).astype(np.int64)
+            rows = {**rows, "row": pd.arrays.IntegerArray(values, blank)}
     frame = pd.DataFrame([] if empty else rows, columns=INFLUENCE_COLUMNS)
     return frame.astype({"row": "Int64"})
 
@@ -203,7 +221,7 @@ def _ordinary(message: str) -> str:
 def _logs(cache: dict, key: tuple, sel: pd.DataFrame) -> tuple:
     """A point set's log x and log y, read from its frame once (``cache`` by key)."""
     if key not in cache:
-        cache[key] = (sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+        cache[key] = set_columns(sel, "log_x", "log_y")
     return cache[key]
 
 
@@ -238,8 +256,11 @@ def _unit_labels(sel: pd.DataFrame, rows: np.ndarray, flagged: list) -> list:
     if "unit" not in sel:
         return [""] * len(flagged)
     rows = np.asarray(rows, dtype=np.int64)
-    order = np.argsort(rows, kind="stable")
-    at = order[np.searchsorted(rows, flagged, side="right", sorter=order) - 1]
+    if rows.size < 2 or bool(np.all(rows[1:] >= rows[:-1])):   # in order already
+        at = np.searchsorted(rows, flagged, side="right") - 1
+    else:
+        order = np.argsort(rows, kind="stable")
+        at = order[np.searchsorted(rows, flagged, side="right", sorter=order) - 1]
     return sel["unit"].iloc[at].astype(str).tolist()
 
 

@@ -34,13 +34,14 @@ from ..stats.residual_checks import GroupCodes, group_order, unique_codes
 from ..stats.lines import METHODS, method_label
 
 __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_run",
-           "answer_points", "in_groups", "coded_groups"]
+           "answer_points", "in_groups", "coded_groups", "coded_points"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
 from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, narrows,
                                points_to_check, strong_influence, strong_influence_each,
                                strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
+from .fits import known_group_codes, set_columns
 from .phylo_checks import answer_model_checks, answer_point_rows, point_context
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
@@ -109,45 +110,46 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
     if preds is not None and len(preds):
         for r in preds.itertuples(index=False):
             pred_rows.setdefault((r.scope, r.group, r.method), []).append(r)
-    for key, fit in line_fits.items():
-        scope, group, method = key
-        sel = point_sets.get((scope, group))
-        if sel is None or len(sel) != fit.n or len(sel) < 4:
-            continue
-        whole = key == pooled_key
-        est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
-               for r in pred_rows.get(key, ())] if preds is not None and len(preds) else ()
-        smear, param = factors.get(key, (None, None))
-        if whole:   # the points are read for the primary pooled line only
-            labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
-            # the groups as codes in the order of their names (factorized by pandas:
-            # no Python string per row)
-            codes = (coded_groups(sel["group"]).codes
-                     if "group" in sel and scope == "pooled" else None)
-            x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
-            rows = sel["row"].to_numpy() if "row" in sel else None
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
+    sizes = {k: len(sel) for k, sel in point_sets.items()}   # each set's size taken once
+    with warnings.catch_warnings():   # one silenced context for every fit's checks
+        warnings.simplefilter("ignore")
+        for key, fit in line_fits.items():
+            scope, group, method = key
+            size = sizes.get((scope, group))
+            if size is None or size != fit.n or size < 4:
+                continue
+            sel = point_sets[(scope, group)]
+            whole = key == pooled_key
+            est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
+                   for r in pred_rows.get(key, ())] if preds is not None and len(preds) else ()
+            smear, param = factors.get(key, (None, None))
+            if whole:   # the points are read for the primary pooled line only
+                labels = sel["unit"].astype(str).to_numpy() if "unit" in sel else None
+                # the groups as codes in the order of their names (factorized by pandas:
+                # no Python string per row)
+                codes = (coded_points(sel).codes
+                         if "group" in sel and scope == "pooled" else None)
+                x, y = sel["log_x"].to_numpy(), sel["log_y"].to_numpy()
+                rows = sel["row"].to_numpy() if "row" in sel else None
+            try:
                 if whole:
                     found = points_to_check(x, y, method=method, rows=rows, labels=labels,
                                             group_codes=codes, smearing_factor=smear,
-                                            parametric_factor=param, estimates=est,
-                                            alpha=alpha)
+                                            parametric_factor=param, estimates=est, alpha=alpha)
                 else:   # fit-level checks only; points are checked on the primary line
                     found = fit_checks(smearing_factor=smear, parametric_factor=param,
                                        estimates=est)
-        except ScalingError:
-            continue
-        if whole and answer and answer[0][0] == "pooled":
-            # the pooled line is the answer: its strong points are the answer's
-            found = [c for c in found if c.kind != "influence"]
-            records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
-                         "reason": point_check_reason(c)} for sc, g, m, c in answer]
-            answer = []
-        for c in found:
-            records.append({"scope": scope, "group": group, "method": method,
-                            **c.to_record(), "reason": point_check_reason(c)})
+            except ScalingError:
+                continue
+            if whole and answer and answer[0][0] == "pooled":
+                # the pooled line is the answer: its strong points are the answer's
+                found = [c for c in found if c.kind != "influence"]
+                records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
+                             "reason": point_check_reason(c)} for sc, g, m, c in answer]
+                answer = []
+            for c in found:
+                records.append({"scope": scope, "group": group, "method": method,
+                                **c.to_record(), "reason": point_check_reason(c)})
     records += [{"scope": sc, "group": g, "method": m, **c.to_record(),
                  "reason": point_check_reason(c)} for sc, g, m, c in answer]
     table = pd.DataFrame(records, columns=POINTS_TO_CHECK_COLUMNS)
@@ -211,7 +213,7 @@ def answer_points(cfg, state) -> list:
                 return _common_points(cfg, state, pooled, method, hyps)
             if line == "groups":
                 # each group's columns read once (a column of a frame costs tens of µs)
-                sets = [(g, sel, sel["log_x"].to_numpy(), sel["log_y"].to_numpy())
+                sets = [(g, sel, *set_columns(sel, "log_x", "log_y"))
                         for g, sel in _group_sets(state, method)]
                 sets = [s for s in sets if np.ptp(s[2]) > 0]
                 screens = strong_influence_each([(X, Y) for _, _, X, Y in sets],
@@ -240,6 +242,13 @@ def coded_groups(column: pd.Series) -> GroupCodes:
     if codes.size and codes.min() < 0:
         return GroupCodes(*unique_codes(column.astype(str).to_numpy()))
     return GroupCodes(codes, np.asarray(names, dtype=str))
+
+
+def coded_points(points: pd.DataFrame) -> GroupCodes:
+    """:func:`coded_groups` of ``points["group"]``, taken from the fitting stage when these
+    are the points it coded (the same codes: text names factorized in sorted order)."""
+    known = known_group_codes(points)
+    return GroupCodes(*known) if known is not None else coded_groups(points["group"])
 
 
 def _group_sets(state, method: str):

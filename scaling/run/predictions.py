@@ -42,6 +42,7 @@ from ..stats.predictions import (LinePredictions, accuracy, data_factors, invers
 from ..stats.schema import FIT_ACCURACY_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS, method_label
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary, predicting_method, prediction_sentence
+from .fits import set_columns
 from .several_predictors import constant_columns, constant_sentence
 
 __all__ = ["PredictionStage", "prediction_stage", "predictions_from_factors",
@@ -257,8 +258,9 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
         by_sets.setdefault(tuple((s, g) for s, g, _ in keys), []).append((base, keys))
     for sets, jobs in by_sets.items():
         for lo, hi in chunk_runs([len(point_sets[k]) for k in sets], CHUNK_ROWS):
-            cols = [(point_sets[k]["x"].to_numpy(dtype=float),
-                     point_sets[k]["y"].to_numpy(dtype=float)) for k in sets[lo:hi]]
+            cols = [tuple(np.asarray(c, dtype=float)
+                          for c in set_columns(point_sets[k], "x", "y"))
+                    for k in sets[lo:hi]]
             x = cols[0][0] if len(cols) == 1 else np.concatenate([c[0] for c in cols])
             y = cols[0][1] if len(cols) == 1 else np.concatenate([c[1] for c in cols])
             if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))

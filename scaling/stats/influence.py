@@ -43,10 +43,13 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import special
+
 from .classic_tests import one_way_anova
 
 from ..errors import DataError
-from .lines import METHODS, exact_fit, fit_moments, fit_notes, get_method
+from .lines import MIN_N as LINE_MIN_N
+from .lines import METHODS, exact_fit, fit_moments, get_method
 from .cooks import SPAN, ols_cooks_distances
 from .cooks import spans as _spans
 from .moments import Moments, moments
@@ -233,7 +236,20 @@ def _slopes(m: Moments, method: str) -> np.ndarray:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         b = np.asarray(get_method(method).slope(m), dtype=float)
-    return np.where(fit_notes(m, method).reshape(np.shape(m.n)) != "", np.nan, b)
+    return np.where(_no_line(m, method).reshape(np.shape(m.n)), np.nan, b)
+
+
+def _no_line(m: Moments, method: str) -> np.ndarray:
+    """``fit_notes(m, method) != ""`` without the notes' text (a million points' worth of
+    strings when every point is left out in turn): the same conditions, as booleans."""
+    n = np.atleast_1d(m.n)
+    sxx, syy, sxy = (np.atleast_1d(a) for a in (m.sxx, m.syy, m.sxy))
+    bad = sxx <= (n * (1e-12 * (np.abs(np.atleast_1d(m.mean_x)) + 1.0)) ** 2)
+    bad |= syy <= (n * (1e-12 * (np.abs(np.atleast_1d(m.mean_y)) + 1.0)) ** 2)
+    if method != "ols":
+        bad |= sxy == 0
+    bad |= n < LINE_MIN_N
+    return bad
 
 
 def strong_influence(log_x, log_y, *, method: str = "ols") -> dict:
@@ -366,7 +382,7 @@ def _slopes_and_ses(m: Moments, method: str) -> tuple:
                     sxx=m.sxx[i], syy=m.syy[i], sxy=m.sxy[i]), b[i]))
             for i in range(b.size)], dtype=float)
         se = np.sqrt(np.where(exact, 0.0, var))
-    bad = fit_notes(m, method).reshape(b.shape) != ""
+    bad = _no_line(m, method).reshape(b.shape)
     return np.where(bad, np.nan, b), np.where(bad, np.nan, se)
 
 
@@ -490,24 +506,77 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
         resid = Y - float(b_line["intercept"][0]) - float(b_line["slope"][0]) * X
         # one stable sort splits the residuals by group, in row order within each
         order = group_order(codes, n_groups)
-        bounds = np.cumsum(np.bincount(codes, minlength=n_groups))[:-1]
+        counts = np.bincount(codes, minlength=n_groups)
         resid = resid[order]
         del order   # each array let go once used: this runs on every pooled point
-        samples = np.split(resid, bounds)
-        samples = [s for s in samples if s.size >= 2]
-        if len(samples) >= 2:
+        kept = counts >= 2   # a group of one point has no spread to compare
+        if np.count_nonzero(kept) >= 2:
+            if not kept.all():
+                resid = resid[np.repeat(kept, counts)]
+            sizes = counts[kept]
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                res = one_way_anova(*samples)
-            p = float(res.pvalue)
+                statistic, pvalue = one_way_f(resid, sizes)
+            p = float(pvalue)
             if np.isfinite(p) and p < alpha:
-                df2 = sum(s.size for s in samples) - len(samples)
                 out.append(PointCheck(
                     severity="mild", kind="group_residuals", row=None, label="",
-                    value=p, statistic=float(res.statistic), df1=len(samples) - 1,
-                    df2=int(df2)))
+                    value=p, statistic=float(statistic), df1=int(sizes.size) - 1,
+                    df2=int(sizes.sum()) - int(sizes.size)))
     out.sort(key=lambda c: c.severity != "strong")
     return tuple(out)
+
+
+def one_way_f(values, sizes) -> tuple:
+    """``scipy.stats.f_oneway(*samples)``'s statistic and p-value, the same floats, for
+    samples laid end to end (``values``: sample 0's values, then sample 1's, ...;
+    ``sizes``: their lengths), without a Python call per sample.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n,)
+    sizes : array_like of int
+        At least two samples, each of at least two values.
+
+    Returns
+    -------
+    (statistic, p_value) : numpy floats
+
+    Notes
+    -----
+    The one-way ANOVA F = (SS_between / (k - 1)) / (SS_within / (n - k)) in scipy's
+    order of operations (values shifted by their mean; SS_total by ``np.vecdot``; each
+    sample's shifted sum squared and divided by its size, added sample after sample),
+    so the floats are scipy's; each sample's sum is a segmented reduction led by a
+    zero (numpy's order for the sample alone).  Samples with a constant one, or values
+    that are not finite, are left to :func:`~scaling.stats.classic_tests.one_way_anova`
+    (the same steps, sample by sample).
+    """
+    values = np.asarray(values, dtype=float)
+    sizes = np.asarray(sizes, dtype=np.int64)
+    starts = np.concatenate(([0], np.cumsum(sizes)[:-1]))
+    if (sizes.size < 2 or sizes.min() < 2 or values.size != int(sizes.sum())
+            or not np.all(np.isfinite(values))
+            or np.any(np.minimum.reduceat(values, starts) == np.maximum.reduceat(values, starts))):
+        res = one_way_anova(*np.split(values, starts[1:]))
+        return res.statistic, res.pvalue
+    k, bign = sizes.size, values.size
+    offset = np.mean(values, axis=-1, keepdims=True)
+    shifted = values - offset
+    normalized_ss = np.sum(shifted, axis=-1) ** 2. / bign
+    sstot = np.vecdot(shifted, shifted, axis=-1) - normalized_ss
+    padded = np.zeros(bign + k)   # each sample's sum led by a zero: numpy.sum's order
+    padded[np.arange(bign) + np.repeat(np.arange(1, k + 1), sizes)] = shifted
+    sums = np.add.reduceat(padded, starts + np.arange(k))
+    ssbn = 0
+    for total, size in zip(sums, sizes.tolist()):   # added in turn, as scipy adds them
+        ssbn = ssbn + total ** 2. / size
+    ssbn = ssbn - normalized_ss
+    sswn = sstot - ssbn
+    dfbn, dfwn = k - 1, bign - k
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f = (ssbn / dfbn) / (sswn / dfwn)
+    return f, np.asarray(special.fdtrc(dfbn, dfwn, f), dtype=f.dtype)[()]
 
 
 def _one(X: np.ndarray, Y: np.ndarray) -> Moments:

@@ -357,28 +357,40 @@ def breusch_pagan(resid, log_x, groups=None, *, n_groups: int | None = None) -> 
         raise DataError("resid and log_x must be one-dimensional and of equal length")
     w = e * e
     if groups is None:
-        wc = w - w.mean()
-        xc = X - X.mean()
-        n, swx, sxx, sww = float(X.size), np.sum(wc * xc), np.sum(xc * xc), np.sum(wc * wc)
-    else:
-        codes = np.asarray(groups)
-        if codes.shape != X.shape or codes.dtype.kind not in "iu":
-            raise DataError("groups must be integer codes, one per point")
-        k = int(codes.max()) + 1 if n_groups is None and codes.size else int(n_groups or 0)
-        n = np.bincount(codes, minlength=k).astype(float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            wc = w - (np.bincount(codes, weights=w, minlength=k) / n)[codes]
-            xc = X - (np.bincount(codes, weights=X, minlength=k) / n)[codes]
-        swx = np.bincount(codes, weights=wc * xc, minlength=k)
-        sxx = np.bincount(codes, weights=xc * xc, minlength=k)
-        sww = np.bincount(codes, weights=wc * wc, minlength=k)
+        return _breusch_pagan_centred(w, _centred(X))
+    codes = np.asarray(groups)
+    if codes.shape != X.shape or codes.dtype.kind not in "iu":
+        raise DataError("groups must be integer codes, one per point")
+    k = int(codes.max()) + 1 if n_groups is None and codes.size else int(n_groups or 0)
+    n = np.bincount(codes, minlength=k).astype(float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        wc = w - (np.bincount(codes, weights=w, minlength=k) / n)[codes]
+        xc = X - (np.bincount(codes, weights=X, minlength=k) / n)[codes]
+    swx = np.bincount(codes, weights=wc * xc, minlength=k)
+    sxx = np.bincount(codes, weights=xc * xc, minlength=k)
+    sww = np.bincount(codes, weights=wc * wc, minlength=k)
     with np.errstate(divide="ignore", invalid="ignore"):
         lm = n * swx * swx / (sxx * sww)
     lm = np.where((sxx > 0) & (sww > 0), lm, np.nan)
-    p = tails.chi2_upper(lm, 1)
-    if groups is None:
-        return float(lm), float(p)
-    return lm, p
+    return lm, tails.chi2_upper(lm, 1)
+
+
+def _centred(X: np.ndarray) -> tuple:
+    """``(X - mean X, sum of its squares)``: the regressor's part of :func:`breusch_pagan`,
+    the same for every line through the same points."""
+    xc = X - X.mean()
+    return xc, np.sum(xc * xc)
+
+
+def _breusch_pagan_centred(w: np.ndarray, centred: tuple) -> tuple:
+    """:func:`breusch_pagan` of one set of points from w = e^2 and :func:`_centred` of X."""
+    xc, sxx = centred
+    wc = w - w.mean()
+    n, swx, sww = float(xc.size), np.sum(wc * xc), np.sum(wc * wc)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lm = n * swx * swx / (sxx * sww)
+    lm = np.where((sxx > 0) & (sww > 0), lm, np.nan)
+    return float(lm), float(tails.chi2_upper(lm, 1))
 
 
 # --------------------------------------------------------------------------
@@ -479,7 +491,10 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     if np.ptp(resid) == 0:
         warnings.warn("residuals are all equal: the constant-variance test is not defined",
                       DegenerateDataWarning, stacklevel=2)
-    checks.append(_constant_variance(resid, X, alpha=alpha, given=constant_variance))
+    if "centred" not in memo:   # X's part of the Breusch-Pagan test, once per set
+        memo["centred"] = _centred(X)
+    checks.append(_constant_variance(resid, X, alpha=alpha, given=constant_variance,
+                                     centred=memo["centred"]))
     if "quadratic" not in memo:   # the same for every line through these points
         memo["quadratic"] = {k: float(v) for k, v in quadratic_t(X, Y).items()}
         memo["cooks"] = ols_cooks_distances(X, Y)
@@ -487,7 +502,12 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
     checks.append(check)
     cooks = memo["cooks"]
     threshold = 4.0 / n
-    checks.append(_influence(cooks, rows, threshold))
+    # the OLS Cook's distances are the same for every line through these points: so is
+    # the check, when the row numbers are (the same Check object, so callers see it)
+    seen = memo.get("influence")
+    if seen is None or not (seen[0] is rows or np.array_equal(seen[0], rows)):
+        seen = memo["influence"] = (rows, _influence(cooks, rows, threshold))
+    checks.append(seen[1])
     influential = checks[-1].rows
 
     return Diagnostics(method=fit.method, n=n, alpha=alpha, checks=tuple(checks),
@@ -815,14 +835,18 @@ def _normality(resid, alpha) -> Check:
                  flagged=flagged, finding=_finding(flagged))
 
 
-def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05, given=None) -> Check:
+def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05, given=None,
+                       centred=None) -> Check:
     """Breusch-Pagan check on (1, X): ``given`` (statistic, p), else the closed form
-    (:func:`breusch_pagan`), or ``het_breuschpagan(resid, exog)`` when a function of
-    that signature is given."""
+    (:func:`breusch_pagan`; ``centred``: :func:`_centred` of X when the caller has it),
+    or ``het_breuschpagan(resid, exog)`` when a function of that signature is given."""
     if np.ptp(resid) == 0:
         lm, p_bp = math.nan, math.nan
     elif given is not None:
         lm, p_bp = float(given[0]), float(given[1])
+    elif het_breuschpagan is None and centred is not None:
+        e = np.asarray(resid, dtype=float)
+        lm, p_bp = _breusch_pagan_centred(e * e, centred)
     elif het_breuschpagan is None:
         lm, p_bp = breusch_pagan(resid, X)
     else:
@@ -833,7 +857,7 @@ def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05, given=None) 
     if flagged:
         # the sign of the OLS slope of e^2 on X is the sign of their centred cross
         # product (a significant test puts it far from rounding's zero)
-        xc = X - X.mean()
+        xc = X - X.mean() if centred is None else centred[0]
         trend = 1 if np.dot(xc, resid ** 2) > 0 else -1
     return Check(check="constant_variance", test="Breusch-Pagan", statistic=lm, df=1.0,
                  p_value=p_bp, estimate=math.nan, flagged=flagged, finding=_finding(flagged),
