@@ -7,7 +7,8 @@ additive (normal on the arithmetic scale).
 Error structure
     Xiao, White, Hooten & Durham (2011), *Ecology* 92:1887: fit
     y = a x^b + e, e ~ N(0, s^2) by nonlinear least squares
-    (``scipy.optimize.curve_fit`` started from the log-scale OLS fit) and
+    (Levenberg-Marquardt, :func:`scaling.stats.nonlinear.fit_nonlinear`, the steps of
+    ``scipy.optimize.curve_fit``, started from the log-scale OLS fit) and
     log y = log a + b log x + e, e ~ N(0, s^2) by OLS on natural logs; both
     maximised likelihoods are written for y on the arithmetic scale (the
     lognormal one includes the Jacobian -sum log y_i) and compared by
@@ -137,7 +138,8 @@ def compare_error_structure(x, y) -> ErrorStructure:
     -----
     Xiao, White, Hooten & Durham (2011), *Ecology* 92:1887; formulas in the
     module docstring.  Nonlinear least squares uses
-    ``scipy.optimize.curve_fit`` from the log-scale OLS estimates; if it
+    :func:`scaling.stats.nonlinear.fit_nonlinear` (``scipy.optimize.curve_fit``'s
+    numbers) from the log-scale OLS estimates; if it
     fails, the additive model is reported with NaN and the multiplicative
     model is preferred by default, with a DegenerateDataWarning.
     """

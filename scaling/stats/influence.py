@@ -21,7 +21,7 @@ Points to check (:func:`points_to_check`)
     A back-transformed estimate outside its own interval is strong (it
     happens when one huge residual inflates the smearing factor).  *Mild*:
     pooled residuals that differ between groups by one-way ANOVA
-    (``scipy.stats.f_oneway``) at ``alpha``.
+    (:func:`one_way_f`, ``scipy.stats.f_oneway``'s numbers) at ``alpha``.
 
 Points that move the answer (:func:`strong_parallel_influence`, :func:`verdict_code`,
 :func:`moves_answer`)

@@ -27,7 +27,8 @@ Residuals
     a common factor, are the same functions of the vertical residuals.
 
 Normality
-    Shapiro-Wilk (``scipy.stats.shapiro``) on S e.
+    Shapiro-Wilk (:func:`scaling.stats.classic_tests.shapiro_wilk`, ``scipy.stats.shapiro``'s
+    numbers) on S e.
 Constant variance
     Breusch-Pagan, studentised (Koenker 1981) as
     ``statsmodels.stats.diagnostic.het_breuschpagan``: (S e)^2 on (1, S X),

@@ -8,7 +8,8 @@ Residuals are the vertical residuals e_i = Y_i - a - b X_i on the log
 scale, whatever the fitting method.
 
 Normality
-    Shapiro & Wilk (1965), *Biometrika* 52:591, via ``scipy.stats.shapiro``.
+    Shapiro & Wilk (1965), *Biometrika* 52:591, by Royston's algorithm
+    (:func:`scaling.stats.classic_tests.shapiro_wilk`; ``scipy.stats.shapiro``'s numbers).
 Constant variance
     Breusch & Pagan (1979), *Econometrica* 47:1287, studentised (Koenker
     1981, *J. Econometrics* 17:107) LM form, the default of

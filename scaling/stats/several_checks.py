@@ -8,7 +8,7 @@ one :class:`~scaling.stats.residual_checks.Check` per question, the
 numbers.  Findings are data; the words are in :mod:`scaling.render.answer_several`.
 
 Normality
-    Shapiro & Wilk (1965), *Biometrika* 52:591 (``scipy.stats.shapiro``) of
+    Shapiro & Wilk (1965), *Biometrika* 52:591 (``classic_tests.shapiro_wilk``) of
     the log-scale residuals, as for one predictor.
 Constant variance
     Breusch & Pagan (1979), *Econometrica* 47:1287, studentised (Koenker 1981)
