@@ -47,10 +47,11 @@ __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_fig
            "figure_view", "one_process", "report_png", "REPORT_PNGS", "FIGURE_TABLES"]
 
 #: Runs with more fitted points than this are not streamed to the worker but
-#: drawn by two processes forked after the analysis (nothing copied, matplotlib
-#: imported in each).  Streaming a million points costs about 0.45 s of CPU
-#: (pickling here, unpickling there); two fresh imports of the drawing stack
-#: about 1.1 s: the break-even lies near 2.5 million points.
+#: drawn by two processes forked when the figure inputs exist (nothing copied,
+#: matplotlib imported in each), so the worker never holds a second copy of a
+#: large table.  Streaming a million points (with a thousand groups' fits, as
+#: :func:`figure_view`) costs about 0.06 s of CPU here and 0.08 s there; two fresh
+#: imports of the drawing stack about 1.1 s.
 SEND_MAX_POINTS = 2_000_000
 
 #: The folder, inside the folder the figures are drawn into, that holds the PNGs the
