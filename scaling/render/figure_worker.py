@@ -103,9 +103,8 @@ class _Reductions(dict):
     reduce it (``copyreg``'s entry, else ``__reduce_ex__``), found once per type."""
 
     def __missing__(self, cls):
-        state = getattr(cls, "__getstate__", None)
-        if (dataclasses.is_dataclass(cls)
-                and getattr(state, "__qualname__", "") == "_dataclass_getstate"):
+        reduce = copyreg.dispatch_table.get(cls)
+        if reduce is None and _plain_slotted_dataclass(cls):
             names = tuple(f.name for f in dataclasses.fields(cls))
             get = operator.attrgetter(*names)
             if len(names) == 1:
@@ -114,13 +113,22 @@ class _Reductions(dict):
             else:
                 def reduce(obj, cls=cls, names=names, get=get):
                     return _rebuild, (cls, names, get(obj))
-        elif isinstance(cls, type) and issubclass(cls, type):
-            raise KeyError(cls)   # classes (metaclass instances) are saved by name
-        else:
-            reduce = (copyreg.dispatch_table.get(cls)
-                      or operator.methodcaller("__reduce_ex__", pickle.HIGHEST_PROTOCOL))
+        elif reduce is None:
+            if issubclass(cls, type):
+                raise KeyError(cls)   # a class (of a metaclass) is saved by name
+            reduce = operator.methodcaller("__reduce_ex__", pickle.HIGHEST_PROTOCOL)
         self[cls] = reduce
         return reduce
+
+
+def _plain_slotted_dataclass(cls) -> bool:
+    """True for a slotted dataclass pickled by the state functions dataclasses generate
+    (no reduction of its own)."""
+    state = getattr(cls, "__getstate__", None)
+    return (dataclasses.is_dataclass(cls)
+            and getattr(state, "__qualname__", "") == "_dataclass_getstate"
+            and cls.__reduce_ex__ is object.__reduce_ex__
+            and cls.__reduce__ is object.__reduce__)
 
 
 def _float64(value):
