@@ -6,6 +6,7 @@ run are the reference for the figures drawn elsewhere while the run was still co
 """
 from __future__ import annotations
 
+import dataclasses
 import io
 import os
 import pickle
@@ -257,3 +258,26 @@ def _dumped(obj) -> bytes:
     fh = io.BytesIO()
     fw._dump(obj, fh)
     return fh.getvalue()
+
+
+@dataclasses.dataclass(frozen=True, slots=True)
+class _Plain:
+    a: float
+    b: tuple
+
+
+@dataclasses.dataclass(frozen=True, slots=True)
+class _OwnReduction:
+    a: float
+
+    def __reduce__(self):
+        return _OwnReduction, (self.a + 1,)   # marks that its own reduction was used
+
+
+def test_the_send_reduces_dataclasses_as_pickle_would():
+    import numpy as np
+    plain = _Plain(np.float64(0.5), (1, "x"))
+    back = pickle.loads(_dumped([plain, plain, _OwnReduction(1.0)]))
+    assert back[0] == plain and back[0] is back[1]   # one object, sent once
+    assert type(back[0].a) is np.float64
+    assert back[2] == pickle.loads(pickle.dumps(_OwnReduction(1.0))) == _OwnReduction(2.0)
