@@ -31,7 +31,8 @@ import pandas as pd
 from .._version import __version__
 from ..errors import OutputError
 
-__all__ = ["json_safe", "records", "results_document", "check_out_dir", "write_outputs",
+__all__ = ["json_safe", "records", "results_document", "check_out_dir", "staging_folder",
+           "write_outputs",
            "write_csv", "write_json", "file_sha256", "versions", "CSV_ONLY"]
 
 #: Per-row tables written to their CSV file only: in ``results.json`` they would
@@ -401,9 +402,22 @@ def check_out_dir(out_dir: Path, force: bool) -> None:
                           "the files scaling writes there (other files are left alone)")
 
 
+def staging_folder(out_dir: Path | str, force: bool = False) -> Path:
+    """A new temporary folder beside ``out_dir`` for :func:`write_outputs` to fill (``folder``).
+
+    Made before the files are written, so files that take long to make (the figures)
+    can be drawn into it while the run still computes; :func:`write_outputs` moves its
+    files into place and removes it.  Refuses as :func:`check_out_dir` does.
+    """
+    out_dir = Path(out_dir)
+    check_out_dir(out_dir, force)
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    return Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
+
+
 def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
                   write_report: Callable, caution: str, force: bool = False,
-                  prepare_report: Callable | None = None):
+                  prepare_report: Callable | None = None, folder: Path | None = None):
     """Write the output folder atomically and return the result with ``files`` set.
 
     Files are built in a temporary folder beside ``out_dir`` and moved into
@@ -431,13 +445,16 @@ def write_outputs(result, out_dir: Path | str, *, draw_figures: Callable,
         ``prepare_report(result) -> write_report``: does the report's work that needs
         no figure while they are drawn, and returns the writer used in place of
         ``write_report``.
+    folder : path, optional
+        The temporary folder to fill, made earlier by :func:`staging_folder` for this
+        ``out_dir`` (figures may be being drawn into it); removed here once writing
+        began, as the folder made here otherwise is.
     """
     out_dir = Path(out_dir)
     inputs = [Path(result.config.data.file)] + (
         [Path(result.config.source)] if result.config.source else [])
-    check_out_dir(out_dir, force)
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=".scaling-tmp-", dir=out_dir.parent))
+    check_out_dir(out_dir, force)   # (refused here, a folder given stays the caller's)
+    tmp = staging_folder(out_dir, force) if folder is None else Path(folder)
     try:
         written, result = _write_all(result, tmp, draw_figures, write_report, caution,
                                      prepare_report)

@@ -4,11 +4,13 @@ In a small run, drawing and saving the figures costs more than the
 statistics, and importing matplotlib alone about 0.5 s.  :func:`start_worker`
 forks a process as the run begins; it imports the figure modules and
 lays out a line of text (fonts loaded) while the parent computes.
-:func:`start_figures` then streams it the finished run and returns at once: the
-worker draws the figures -- in two processes on two cores -- while the caller
-writes the tables, and :meth:`Drawing.wait` collects the paths when the report
-needs them.  Without a worker the run is forked into two drawing processes after
-the analysis instead.
+:func:`start_figures` then streams it what the figures draw (:func:`figure_view`:
+the run without the tables no figure reads) and returns at once -- a run of
+:mod:`scaling.run.pipeline` does so as soon as those inputs exist, before its
+points to check, diagnostics and resampling: the worker draws the figures -- in
+two processes on two cores -- while the caller computes and writes the tables,
+and :meth:`Drawing.wait` collects the paths when the report needs them.  Without
+a worker the run is forked into two drawing processes instead.
 
 When ``png`` is not among ``figures.formats``, the PNGs the report embeds are
 drawn on the same road, into :data:`REPORT_PNGS` of the folder (the output
@@ -24,7 +26,10 @@ process instead; nothing is lost.  Set the environment variable
 
 from __future__ import annotations
 
+import copyreg
+import dataclasses
 import multiprocessing
+import operator
 import os
 import pickle
 import signal
@@ -33,17 +38,20 @@ import threading
 import warnings
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
-           "one_process", "report_png", "REPORT_PNGS"]
+           "figure_view", "one_process", "report_png", "REPORT_PNGS", "FIGURE_TABLES"]
 
 #: Runs with more fitted points than this are not streamed to the worker but
-#: drawn by two processes forked after the analysis (nothing copied, matplotlib
-#: imported in each).  Streaming a million points costs about 0.45 s of CPU
-#: (pickling here, unpickling there); two fresh imports of the drawing stack
-#: about 1.1 s: the break-even lies near 2.5 million points.
+#: drawn by two processes forked when the figure inputs exist (nothing copied,
+#: matplotlib imported in each), so the worker never holds a second copy of a
+#: large table.  Streaming a million points (with a thousand groups' fits, as
+#: :func:`figure_view`) costs about 0.06 s of CPU here and 0.08 s there; two fresh
+#: imports of the drawing stack about 1.1 s.
 SEND_MAX_POINTS = 2_000_000
 
 #: The folder, inside the folder the figures are drawn into, that holds the PNGs the
@@ -51,6 +59,89 @@ SEND_MAX_POINTS = 2_000_000
 #: figure files (in the same processes) but are no output; the output writer's
 #: temporary folder, removed after the run, holds them.
 REPORT_PNGS = ".report-png"
+
+#: The tables of a run (``result.tables``) that a figure reads; :func:`figure_view`
+#: sends only these to the processes that draw.
+FIGURE_TABLES = frozenset({"group_means", "group_tests", "exponent_spread", "predictions",
+                           "inverse_predictions"})
+
+
+def figure_view(result):
+    """``result`` cut to what its figures read: the config, the points and units, the fits
+    table, the fit objects and saved fits, :data:`FIGURE_TABLES`, the several-predictor
+    fits and the manifest's ``large_data`` entry.
+
+    The slope tests, dropped rows, messages and the other tables are left out (empty), so
+    sending the run to another process costs less; the figures drawn from the view are the
+    files drawn from the whole run (a test compares their bytes).
+    """
+    large = (result.manifest or {}).get("large_data")
+    data = result.data
+    if dataclasses.is_dataclass(data) and hasattr(data, "dropped"):
+        data = dataclasses.replace(data, dropped=data.dropped.iloc[:0])
+    return dataclasses.replace(
+        result, data=data, slope_tests=result.slope_tests.iloc[:0],
+        dropped=result.dropped.iloc[:0], messages=(), warnings=(),
+        tables={k: v for k, v in (result.tables or {}).items() if k in FIGURE_TABLES},
+        manifest={} if large is None else {"large_data": large})
+
+
+def _rebuild(cls, names: tuple, values: tuple):
+    """An instance of the slotted dataclass ``cls`` with ``values`` (what its generated
+    ``__setstate__`` does, without the call per field)."""
+    obj = object.__new__(cls)
+    for name, value in zip(names, values):
+        object.__setattr__(obj, name, value)
+    return obj
+
+
+class _Reductions(dict):
+    """The pickler's ``dispatch_table`` for sending a run: a frozen slotted dataclass (a fit
+    and its intervals and moments, thousands of them in a run of many groups) is reduced
+    by one C-level ``attrgetter`` instead of its generated Python ``__getstate__``; a numpy
+    float64 scalar by its Python float (exact).  Every other type is reduced as pickle would
+    reduce it (``copyreg``'s entry, else ``__reduce_ex__``), found once per type."""
+
+    def __missing__(self, cls):
+        reduce = copyreg.dispatch_table.get(cls)
+        if reduce is None and _plain_slotted_dataclass(cls):
+            names = tuple(f.name for f in dataclasses.fields(cls))
+            get = operator.attrgetter(*names)
+            if len(names) == 1:
+                def reduce(obj, cls=cls, names=names, get=get):
+                    return _rebuild, (cls, names, (get(obj),))
+            else:
+                def reduce(obj, cls=cls, names=names, get=get):
+                    return _rebuild, (cls, names, get(obj))
+        elif reduce is None:
+            if issubclass(cls, type):
+                raise KeyError(cls)   # a class (of a metaclass) is saved by name
+            reduce = operator.methodcaller("__reduce_ex__", pickle.HIGHEST_PROTOCOL)
+        self[cls] = reduce
+        return reduce
+
+
+def _plain_slotted_dataclass(cls) -> bool:
+    """True for a slotted dataclass pickled by the state functions dataclasses generate
+    (no reduction of its own)."""
+    state = getattr(cls, "__getstate__", None)
+    return (dataclasses.is_dataclass(cls)
+            and getattr(state, "__qualname__", "") == "_dataclass_getstate"
+            and cls.__reduce_ex__ is object.__reduce_ex__
+            and cls.__reduce__ is object.__reduce__)
+
+
+def _float64(value):
+    return np.float64, (float(value),)
+
+
+def _dump(obj, fh) -> None:
+    """``pickle.dump(obj, fh)`` with the cheaper reductions of :class:`_Reductions`."""
+    pickler = pickle.Pickler(fh, protocol=pickle.HIGHEST_PROTOCOL)
+    table = _Reductions()
+    table[np.float64] = _float64
+    pickler.dispatch_table = table
+    pickler.dump(obj)
 
 
 def one_process() -> bool:
@@ -124,27 +215,66 @@ def report_png(folder: Path, name: str, draw) -> bytes | None:
         return None
 
 
+#: Pids of the drawing processes forked by this process and not yet reaped: a worker told
+#: to stop (SIGTERM, :meth:`FigureWorker.stop`) ends and reaps them before it exits.
+_SHARES: set = set()
+
+
+def _die_with_parent(parent: int) -> None:
+    """In a forked drawing process: be killed when the process that forked it dies (a
+    worker killed mid-run leaves no process drawing into the folder)."""
+    try:
+        import ctypes
+        ctypes.CDLL(None).prctl(1, signal.SIGKILL, 0, 0, 0)   # PR_SET_PDEATHSIG
+    except Exception:  # noqa: BLE001 -- not Linux: the parent's stop() still ends it
+        pass
+    if os.getppid() != parent:   # it died before the line above
+        os._exit(1)
+
+
+def _end_shares(signum=None, frame=None) -> None:
+    """The worker's SIGTERM handler: end and reap its drawing processes, then leave (so
+    none is left writing into the folder once the worker is reaped)."""
+    for pid in list(_SHARES):
+        try:
+            os.kill(pid, signal.SIGKILL)
+            os.waitpid(pid, 0)
+        except OSError:
+            pass
+    os._exit(1)
+
+
 class _Share:
     """One share of the figures drawn by a forked process (its answer comes on a pipe)."""
 
     def __init__(self, result, folder: Path, kinds, extras: bool) -> None:
         self.kinds, self.extras = kinds, extras
         read_end, write_end = os.pipe()
+        parent = os.getpid()
+        # no SIGTERM between the fork and the pid's registration (see _end_shares)
+        blocked = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGTERM})
         try:
             pid = os.fork()
         except OSError:
+            signal.pthread_sigmask(signal.SIG_SETMASK, blocked)
             os.close(read_end)
             os.close(write_end)
             raise
         if pid == 0:   # the drawing process: draw the share, hand back the paths, leave
             code = 1
             try:
+                _SHARES.clear()
+                signal.signal(signal.SIGTERM, signal.SIG_DFL)
+                signal.pthread_sigmask(signal.SIG_SETMASK, blocked)
+                _die_with_parent(parent)
                 os.close(read_end)
                 with os.fdopen(write_end, "wb") as fh:
                     fh.write(pickle.dumps(_draw_share(result, folder, kinds, extras=extras)))
                 code = 0
             finally:
                 os._exit(code)   # no atexit handlers, no flushing of the parent's buffers
+        _SHARES.add(pid)
+        signal.pthread_sigmask(signal.SIG_SETMASK, blocked)
         os.close(write_end)
         self.pid, self.read_end = pid, read_end
 
@@ -153,6 +283,7 @@ class _Share:
         with os.fdopen(self.read_end, "rb") as fh:
             answer = fh.read()
         _, status = os.waitpid(self.pid, 0)
+        _SHARES.discard(self.pid)
         try:
             theirs = pickle.loads(answer) if status == 0 else None
         except Exception:  # noqa: BLE001 -- a truncated answer: draw the share here
@@ -168,6 +299,7 @@ class _Share:
             pass
         os.close(self.read_end)
         os.waitpid(self.pid, 0)
+        _SHARES.discard(self.pid)
 
 
 def _in_order(result, answers) -> tuple[list[str], list[str]]:
@@ -219,7 +351,7 @@ class Drawing:
             share.stop()
         self._shares = []
         if self._worker is not None:
-            self._worker.close()
+            self._worker.stop()
 
 
 def _start_here(result, folder: Path, *, draw_here: bool) -> Drawing:
@@ -263,14 +395,17 @@ def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
 def start_figures(result, folder: Path, worker: "FigureWorker | None" = None) -> Drawing:
     """Start writing the run's figures into ``folder``; return the :class:`Drawing`.
 
-    ``worker`` (started with the run, :func:`start_worker`) draws them when it
-    can take the run; else two processes forked here do (or, when
-    :func:`one_process` holds, :meth:`Drawing.wait` draws them itself).
+    Only what the figures read goes on (:func:`figure_view`), so ``result`` may be a run
+    whose other tables are not made yet.  ``worker`` (started with the run,
+    :func:`start_worker`) draws them when it can take the run; else two processes
+    forked here do (or, when :func:`one_process` holds, :meth:`Drawing.wait` draws
+    them itself).
     """
     folder = Path(folder)
-    if worker is not None and worker.send(result, folder):
-        return Drawing(result, folder, worker=worker)
-    return _start_here(result, folder, draw_here=False)
+    view = figure_view(result)
+    if worker is not None and worker.send(view, folder):
+        return Drawing(view, folder, worker=worker)
+    return _start_here(view, folder, draw_here=False)
 
 
 def _warm_up() -> None:
@@ -298,6 +433,7 @@ def _reply(conn, answer) -> None:
 
 def _serve(conn, parent_end, job_read: int, job_write: int) -> None:
     """The worker: get ready, wait for one run, draw it, answer, exit."""
+    signal.signal(signal.SIGTERM, _end_shares)   # stop(): its drawing processes end too
     parent_end.close()   # else the worker would never see the parent go away
     os.close(job_write)
     try:
@@ -356,7 +492,7 @@ class FigureWorker:
         try:
             self._conn.send(True)   # a run follows on the job pipe
             with os.fdopen(self._job, "wb", closefd=False) as fh:
-                pickle.dump((result, Path(folder)), fh, protocol=pickle.HIGHEST_PROTOCOL)
+                _dump((result, Path(folder)), fh)
         except Exception:  # noqa: BLE001 -- unpicklable run, dead worker: draw here
             self.close()
             return False
@@ -383,6 +519,21 @@ class FigureWorker:
         not do it (the caller then draws them itself).
         """
         return self.answer() if self.send(result, folder) else None
+
+    def stop(self) -> None:
+        """End the worker now, drawing or not, with its drawing processes, and reap it
+        (the run failed elsewhere; idempotent).  Once it returns, no process of the worker
+        writes into the folder."""
+        if self._proc is None:
+            return
+        self._proc.terminate()   # SIGTERM: the worker ends and reaps its own processes
+        self._proc.join(timeout=5)
+        if self._proc.is_alive():   # stuck: killed (its drawing processes die with it)
+            self._proc.kill()
+            self._proc.join()
+        self._conn.close()
+        os.close(self._job)
+        self._proc = None
 
     def close(self) -> None:
         """Stop the worker if it is still waiting (idempotent)."""

@@ -20,6 +20,7 @@ sentences in :mod:`scaling.render.wording` and the file writing in
 
 from __future__ import annotations
 
+import shutil
 import warnings
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -156,14 +157,22 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     ScalingError
         For bad data (the message names file, column or row).
     """
-    cfg = config
+    return _analyse(config, quiet=quiet)
+
+
+def _analyse(cfg: Config, *, quiet: bool = True, figure_inputs=None) -> RunResult:
+    """:func:`analyse`; ``figure_inputs(result)``, when given, is called once, as soon as
+    everything the figures draw exists (after the predictions and the spread across
+    groups, before the points to check, diagnostics and resampling on the in-memory
+    road), with a :class:`RunResult` of what exists then (its other tables are not made
+    yet), so the figures are drawn while the rest is computed."""
     reason = use_moments_path(cfg)   # large data: the run reads per-group moments only
     if reason:
-        return _moments_run(cfg, reason)
+        return _handed(_moments_run(cfg, reason), figure_inputs)
     read = read_stage(cfg)
     state = RunState(data=read.data, base=read.base, quiet=quiet)
     if isinstance(cfg.data.x, tuple):   # several predictors: OLS stage of its own
-        return _several_run(cfg, state, read)
+        return _handed(_several_run(cfg, state, read), figure_inputs)
 
     fitted = fit_stage(cfg, state)
     state = replace(state, rows=fitted.rows, line_fits=fitted.line_fits,
@@ -195,6 +204,15 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     if extras is not None:
         fits_x, tables_x, saved_x = finish_phylo_extras(state, extras)
         state = replace(state, fits=fits_x, tables=tables_x, saved_fits=saved_x)
+    # The fits are final here (the stages below add tables and slope tests only), so the
+    # spread across groups, which reads the fits alone, is made now: with it, everything
+    # the figures draw exists.
+    spread = spread_stage(cfg, state)
+    if figure_inputs is not None:
+        figure_inputs(RunResult(config=cfg, data=state.data, fits=state.fits,
+                                slope_tests=state.slope_tests, dropped=state.data.dropped,
+                                line_fits=state.line_fits, saved_fits=state.saved_fits,
+                                tables={**state.tables, **spread.tables}))
     checked = check_run(cfg, state)   # before the diagnostics, whose words read it
     diagnosed = (diagnostics_stage(cfg, replace(state, tables={
         **state.tables, "points_to_check": checked.table})) if cfg.diagnostics.enabled else None)
@@ -205,7 +223,6 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
     resampled = resampling_stage(cfg, state)
     state = replace(state, slope_tests=resampled.slope_tests,
                     tables={**state.tables, **resampled.tables})
-    spread = spread_stage(cfg, state)
 
     def said(*stages, field_name):
         return tuple(t for stage in stages if stage is not None
@@ -233,6 +250,14 @@ def analyse(config: Config, *, quiet: bool = True) -> RunResult:
                      line_fits=state.line_fits, tables={**state.tables, **spread.tables},
                      messages=messages, warnings=notes, manifest=manifest,
                      saved_fits=state.saved_fits)
+
+
+def _handed(result: RunResult, figure_inputs) -> RunResult:
+    """``result``, after handing it to ``figure_inputs`` (when given): the roads whose
+    figure inputs exist only at their end."""
+    if figure_inputs is not None:
+        figure_inputs(result)
+    return result
 
 
 def _several_run(cfg, state: RunState, read) -> RunResult:
@@ -276,9 +301,43 @@ def write_outputs(result: RunResult, out_dir, *, force: bool = False, worker=Non
     figures; without one (or when it cannot) they are drawn here."""
     def figures(res, folder):
         return start_figures(res, folder, worker)   # drawn while the tables are written
+    return _write(result, out_dir, force, figures)
+
+
+def _write(result: RunResult, out_dir, force: bool, figures, folder=None) -> RunResult:
     return output.write_outputs(result, out_dir, force=force, draw_figures=figures,
                                 write_report=write_report, caution=CAUTION,
-                                prepare_report=prepare_report)
+                                prepare_report=prepare_report, folder=folder)
+
+
+class _FiguresFirst:
+    """The figures of a run started as soon as what they draw exists (``figure_inputs``
+    of :func:`_analyse`), into the temporary folder the output writer then fills
+    (:func:`scaling.io.output.staging_folder`): drawn while the points to check,
+    diagnostics, resampling and tables are made."""
+
+    def __init__(self, out_dir: Path, force: bool, worker) -> None:
+        self.out_dir, self.force, self.worker = out_dir, force, worker
+        self.folder = self.drawing = None
+
+    def __call__(self, inputs: RunResult) -> None:
+        self.folder = output.staging_folder(self.out_dir, self.force)
+        self.drawing = start_figures(inputs, self.folder, self.worker)
+
+    def write(self, result: RunResult) -> RunResult:
+        """Write the run into the folder the figures are drawn into."""
+        if self.drawing is None:   # no figure inputs were handed over
+            return write_outputs(result, self.out_dir, force=self.force, worker=self.worker)
+        return _write(result, self.out_dir, self.force, lambda res, folder: self.drawing,
+                      self.folder)
+
+    def end(self) -> None:
+        """Stop a drawing not collected (the run failed), then remove the temporary
+        folder if it is left (nothing draws into it any more)."""
+        if self.drawing is not None:
+            self.drawing.cancel()
+        if self.folder is not None:
+            shutil.rmtree(self.folder, ignore_errors=True)
 
 
 def run_config(config, *, out: Path | str | None = None, force: bool = False,
@@ -315,13 +374,16 @@ def run_config(config, *, out: Path | str | None = None, force: bool = False,
     # Drawing the figures needs matplotlib, which a forked worker imports while
     # the numbers are computed (scaling.render.figure_worker); None: drawn here later.
     worker = start_worker(config) if write else None
+    figures = _FiguresFirst(out_dir, force, worker) if write else None
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            result = analyse(config, quiet=quiet)
+            result = _analyse(config, quiet=quiet, figure_inputs=figures)
         if not write:
             return result
-        return write_outputs(result, out_dir, force=force, worker=worker)
+        return figures.write(result)
     finally:
+        if figures is not None:
+            figures.end()
         if worker is not None:
             worker.close()
