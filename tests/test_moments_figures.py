@@ -164,6 +164,20 @@ class TestFiguresOfBothRoads:
         for kind in KINDS:
             assert _svg(moments, kind) == _svg(memory, kind), kind
 
+    def test_written_files_are_the_in_memory_ones(self, small, tmp_path):
+        # the files a run writes come from the figure processes, which are sent a cut
+        # of the run (figure_worker.figure_view): the moments path's picked points
+        # must reach them too (internal consistency: the in-memory run's files)
+        texts = {}
+        for large in (False, True):
+            out = tmp_path / f"large_{large}"
+            _run(small, large=large, out=out)
+            texts[large] = {kind: re.sub(r"\bp[0-9a-f]{10}\b", "clip", (
+                out / "figures" / f"{kind}.svg").read_text(encoding="utf-8"))
+                for kind in KINDS}
+        for kind in KINDS:
+            assert texts[True][kind] == texts[False][kind], kind
+
     def test_with_unit_means(self, small):
         memory = _run(small, large=False, average_within="animal")
         moments = _run(small, large=True, average_within="animal")

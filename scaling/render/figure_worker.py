@@ -42,6 +42,7 @@ import numpy as np
 
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
+from .thinning import DRAWN_TABLE
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
            "figure_view", "one_process", "report_png", "REPORT_PNGS", "FIGURE_TABLES"]
@@ -63,7 +64,7 @@ REPORT_PNGS = ".report-png"
 #: The tables of a run (``result.tables``) that a figure reads; :func:`figure_view`
 #: sends only these to the processes that draw.
 FIGURE_TABLES = frozenset({"group_means", "group_tests", "exponent_spread", "predictions",
-                           "inverse_predictions"})
+                           "inverse_predictions", DRAWN_TABLE})
 
 
 def figure_view(result):

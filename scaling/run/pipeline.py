@@ -276,7 +276,7 @@ def _several_run(cfg, state: RunState, read) -> RunResult:
 def _moments_run(cfg, reason: str) -> RunResult:
     """The run from per-group moments (large data), with the spread across groups."""
     path = moments_stage(cfg, reason)
-    cfg = path.config   # figures cut to those this path draws
+    cfg = path.config
     if cfg.data.group:  # group means, comparisons, common slope: the in-memory stage's code
         path = with_groups(path, moments_group_stage(cfg, path), cfg)
     state = RunState(data=path.data, base=None, fits=path.fits)
