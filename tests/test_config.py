@@ -33,6 +33,19 @@ class TestLoadConfig:
         assert cfg.exponents["a"] == 0.75
         assert math.isclose(cfg.exponents["b"], 2 / 3)  # exact law: 2/3
 
+    def test_numbers_in_e_notation_without_a_dot(self, write_config):
+        # YAML 1.2 reads 1e-9 as a number; PyYAML (YAML 1.1) as the text '1e-9'
+        text = ("data: {file: d.csv, x: mass, y: rate, moments_above_mb: 1e-9}\n"
+                "exponents: {big: 2E0, small: -75e-2}\n")
+        cfg = load_config(write_config(text))
+        assert cfg.data.moments_above_mb == 1e-9
+        assert cfg.exponents == {"big": 2.0, "small": -0.75}
+        # text that only looks like it stays text, and is named when a number is due
+        with pytest.raises(ConfigError, match=r"data.moments_above_mb: expected a number, "
+                                              r"got '1e' \(str\)"):
+            load_config(write_config("data: {file: d.csv, x: mass, y: rate, "
+                                     "moments_above_mb: 1e}\n"))
+
     def test_log_base_forms(self, write_config):
         for text, label in (("10", "10"), ("e", "e"), ("2", "2"), ('"10"', "10")):
             cfg = load_config(write_config(MINIMAL + f"model: {{log_base: {text}}}\n"))

@@ -11,6 +11,7 @@ from __future__ import annotations
 import copy
 import difflib
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
@@ -862,6 +863,17 @@ def _build(raw, base_dir: Path, source) -> Config:
     )
 
 
+class _ConfigLoader(yaml.SafeLoader):
+    """YAML's safe loader that also reads ``1e-9`` and ``2E3`` as numbers: YAML 1.1 (PyYAML)
+    wants a dot in a float (``1.0e-9``), YAML 1.2 and users do not."""
+
+
+_ConfigLoader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    re.compile(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9_]+)[eE][-+]?[0-9]+$"),
+    list("-+0123456789."))
+
+
 def load_config(path: str | Path) -> Config:
     """Read and validate a YAML config file.
 
@@ -881,7 +893,7 @@ def load_config(path: str | Path) -> Config:
     except UnicodeDecodeError as exc:
         raise ConfigError(f"{path}: config file is not UTF-8 text ({exc.reason})") from None
     try:
-        raw = yaml.safe_load(text)
+        raw = yaml.load(text, Loader=_ConfigLoader)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f"line {mark.line + 1}, column {mark.column + 1}: " if mark else ""
