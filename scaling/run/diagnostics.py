@@ -24,7 +24,8 @@ import pandas as pd
 
 from ..stats.error_structure import compare_error_structure
 from ..stats.group_means import compared_groups
-from ..stats.residual_checks import MIN_N, breusch_pagan, diagnose, diagnose_parallel
+from ..stats.breusch_pagan import breusch_pagan
+from ..stats.residual_checks import MIN_N, diagnose, diagnose_parallel
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
@@ -229,7 +230,7 @@ def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dic
     """``(scope, group, method) -> (statistic, p)`` of the Breusch-Pagan test of every
     group line, a method at a time in one pass over runs of whole groups of about
     :data:`~scaling.run.predictions.CHUNK_ROWS` rows
-    (:func:`~scaling.stats.residual_checks.breusch_pagan` with group codes)."""
+    (:func:`~scaling.stats.breusch_pagan.breusch_pagan` with group codes)."""
     by_method: dict = {}
     for key, fit in line_fits.items():
         sel = point_sets.get(key[:2])
