@@ -24,6 +24,7 @@ import pandas as pd
 
 from ..stats.error_structure import compare_error_structure
 from ..stats.group_means import compared_groups
+from ..stats.lines import exact_fit
 from ..stats.breusch_pagan import breusch_pagan
 from ..stats.residual_checks import MIN_N, diagnose, diagnose_parallel
 from ..errors import ScalingError
@@ -32,7 +33,7 @@ from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTU
 from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
-from .fits import set_columns
+from .fits import known_moments, set_columns
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
 from .points_to_check import coded_points, in_groups
@@ -70,6 +71,10 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     curved: set = set()   # (scope, group) of the curvature rows so far
     infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
+    pooled = point_sets.get(("pooled", ""))
+    if pooled is not None and (m := known_moments(pooled)) is not None:
+        # the fits' moments of these very points: what diagnose's exact-fit test reads
+        memos[("pooled", "")] = {"exact": bool(exact_fit(m))}
     flagged_of: dict = {}   # (scope, group) -> the flagged rows, their distances and units
     results: dict = {}
     # The ordinary answer's model; with a tree the phylogenetic model the Answer leads

@@ -376,7 +376,8 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         One empty dict per set of points, passed to every call for lines
         fitted to those same points: the parts that do not depend on the
         line (the quadratic fit, the OLS Cook's distances) are computed by the
-        first call and read by the others.
+        first call and read by the others.  A caller that has the points'
+        moments may set ``memo["exact"]`` to ``exact_fit`` of them.
     constant_variance : (float, float), optional
         The Breusch-Pagan statistic and p-value of this line's residuals when
         the caller has them (every group of a method at once:
