@@ -17,7 +17,8 @@ from statsmodels.stats.diagnostic import het_breuschpagan
 
 from scaling.stats.influence import strong_influence, strong_influence_each
 from scaling.stats.line_results import fit_line
-from scaling.stats.residual_checks import breusch_pagan, diagnose, group_order
+from scaling.stats.breusch_pagan import breusch_pagan
+from scaling.stats.residual_checks import diagnose, group_order
 
 
 def _statsmodels_bp(e, X) -> tuple:

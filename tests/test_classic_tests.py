@@ -95,3 +95,25 @@ def test_one_way_anova_known_value():
     f, p = one_way_anova([1, 2, 3], [4, 5, 6])
     assert f == pytest.approx(13.5, rel=1e-14)
     assert 0.01 < p < 0.05
+
+
+def test_shapiro_normal_scores_equal_the_plain_scalar_steps():
+    # internal consistency: the vectorised normal scores of AS 111 equal the value-by-value
+    # evaluation with libm's log in both branches (central |q| <= 0.42 and the tails)
+    from scaling.stats.classic_tests import _normal_scores
+    n = 200_001
+    p = (np.arange(1, n // 2 + 1) - 0.375) / (n + 0.25)
+    want = []
+    for v in p.tolist():
+        q = v - 0.5
+        if abs(q) <= 0.42:
+            r = q * q
+            want.append(q * (((-25.44106049637 * r + 41.39119773534) * r - 18.61500062529) * r
+                             + 2.50662823884)
+                        / ((((3.13082909833 * r - 21.06224101826) * r + 23.08336743743) * r
+                            - 8.47351093090) * r + 1.0))
+        else:
+            s = math.sqrt(-math.log(v))
+            want.append(-((((2.32121276858 * s + 4.85014127135) * s - 2.29796479134) * s
+                           - 2.78718931138) / ((1.63706781897 * s + 3.54388924762) * s + 1.0)))
+    assert np.array_equal(_normal_scores(p), np.array(want))

@@ -11,6 +11,7 @@ import pytest
 
 from scaling.stats.error_structure import _polyfit_line
 from scaling.stats.influence import points_to_check
+from scaling.stats.residual_checks import quadratic_solve, quadratic_t
 
 
 @pytest.mark.parametrize("n", [5, 17, 1000, 70_001])
@@ -40,3 +41,35 @@ def test_points_to_check_without_labels_names_flagged_points_with_empty_text():
     assert any(c.kind == "influence" and c.row == 8 and c.label == "" for c in without)
     with pytest.raises(Exception, match="one value per point"):
         points_to_check(x, y, labels=np.full(59, "", dtype=object))
+
+
+def _quadratic_plain(X, Y):
+    # the steps of the quadratic fit written out plainly (each sum and mean recomputed)
+    mx = X.mean(axis=-1, keepdims=True)
+    c = X - mx
+    q = c * c
+    q = q - q.mean(axis=-1, keepdims=True)
+    yc = Y - Y.mean(axis=-1, keepdims=True)
+    sums = [np.sum(a * b, axis=-1) for a, b in ((c, c), (c, q), (q, q), (c, yc), (q, yc),
+                                                 (yc, yc))]
+    gc, gq, se, t, p = quadratic_solve(*sums, X.shape[-1])
+    b1 = gc - 2 * gq * mx[..., 0]
+    b0 = Y.mean(axis=-1) - b1 * X.mean(axis=-1) - gq * np.mean(X * X, axis=-1)
+    return {"intercept": b0, "linear": b1, "quadratic": gq, "quadratic_se": se,
+            "statistic": t, "p_value": p}
+
+
+@pytest.mark.parametrize("shape", [(3,), (4,), (1000,), (5, 7), (2, 3, 50)])
+def test_quadratic_fit_equals_its_plain_steps_bit_for_bit(shape):
+    # internal consistency: the shared sums (c^2 once, the means once) give the same bits
+    rng = np.random.default_rng(5)
+    X = rng.normal(2, 1, shape)
+    cases = [(X, 0.7 * X + rng.normal(0, 0.1, shape)),   # scatter
+             (X, 0.7 * X + 0.3),                          # exact line
+             (np.full(shape, 1.5), rng.normal(0, 1, shape)),   # constant x
+             (np.where(X > 2.5, np.nan, X), X)]           # NaN
+    for x, y in cases:
+        with np.errstate(all="ignore"):
+            got, want = quadratic_t(x, y), _quadratic_plain(x, y)
+        for k, v in want.items():
+            assert np.array_equal(got[k], v, equal_nan=True), (shape, k)

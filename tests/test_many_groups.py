@@ -308,6 +308,26 @@ class TestFitStageGroups:
             assert np.array_equal(got.codes, want.codes)
             assert got.labels.tolist() == want.labels.tolist() == sorted(set(frame["g"]))
 
+    def test_pooled_moments_kept_by_the_fits_are_those_of_the_points_logs(self, tmp_path,
+                                                                          frame):
+        # internal consistency: the moments the diagnostics' exact-fit test takes from the
+        # fitting stage equal moments() of the pooled frame's logs bit for bit, also on
+        # exact data; a copy of the frame has none kept (computed afresh)
+        from scaling.run.fits import known_moments
+        from scaling.stats.moments import moments
+        exact = frame.assign(y=3.0 * frame["x"] ** 0.5)
+        for data in (frame, exact):
+            cfg, state = _run_state(tmp_path, data)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                fit_stage(cfg, state)
+            pts = state.data.points
+            got = known_moments(pts)
+            want = moments(pts["log_x"].to_numpy(), pts["log_y"].to_numpy())
+            for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy"):
+                assert np.array_equal(getattr(got, k), getattr(want, k)), k
+            assert known_moments(pts.copy()) is None
+
     def test_point_sets_are_each_groups_rows(self, tmp_path, frame):
         # internal consistency: each group's points are the table's rows of that group
         cfg, state = _run_state(tmp_path, frame)

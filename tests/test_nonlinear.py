@@ -99,3 +99,20 @@ def test_exact_power_law_recovered():
     x = np.linspace(0.5, 20, 40)
     fit = fit_nonlinear(_power, x, 2.5 * x ** 0.75, (1.0, 1.0))
     assert fit.params == pytest.approx((2.5, 0.75), rel=1e-9)
+
+
+def test_pivoted_columns_match_curve_fit_bits():
+    # scipy.optimize.curve_fit as reference library, bit for bit: a model whose second
+    # parameter's Jacobian column is the larger one, so the QR swaps the columns
+    def line(xv, a, b):
+        return a + b * 1e3 * xv
+
+    rng = np.random.default_rng(3)
+    for n in (3, 5, 400):
+        x = rng.uniform(1, 2, n)
+        y = 0.5 + 2e3 * x + rng.normal(0, 0.1, n)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            want = tuple(optimize.curve_fit(line, x, y, p0=(1.0, 1.0))[0])
+        got = fit_nonlinear(line, x, y, (1.0, 1.0)).params
+        assert got == want, (n, got, want)

@@ -24,14 +24,16 @@ import pandas as pd
 
 from ..stats.error_structure import compare_error_structure
 from ..stats.group_means import compared_groups
-from ..stats.residual_checks import MIN_N, breusch_pagan, diagnose, diagnose_parallel
+from ..stats.lines import exact_fit
+from ..stats.breusch_pagan import breusch_pagan
+from ..stats.residual_checks import MIN_N, diagnose, diagnose_parallel
 from ..errors import ScalingError
 from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTURE_COLUMNS,
                      INFLUENCE_COLUMNS)
 from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
-from .fits import set_columns
+from .fits import known_moments, set_columns
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
 from .points_to_check import coded_points, in_groups
@@ -69,6 +71,10 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
     curved: set = set()   # (scope, group) of the curvature rows so far
     infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
+    pooled = point_sets.get(("pooled", ""))
+    if pooled is not None and (m := known_moments(pooled)) is not None:
+        # the fits' moments of these very points: what diagnose's exact-fit test reads
+        memos[("pooled", "")] = {"exact": bool(exact_fit(m))}
     flagged_of: dict = {}   # (scope, group) -> the flagged rows, their distances and units
     results: dict = {}
     # The ordinary answer's model; with a tree the phylogenetic model the Answer leads
@@ -229,7 +235,7 @@ def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dic
     """``(scope, group, method) -> (statistic, p)`` of the Breusch-Pagan test of every
     group line, a method at a time in one pass over runs of whole groups of about
     :data:`~scaling.run.predictions.CHUNK_ROWS` rows
-    (:func:`~scaling.stats.residual_checks.breusch_pagan` with group codes)."""
+    (:func:`~scaling.stats.breusch_pagan.breusch_pagan` with group codes)."""
     by_method: dict = {}
     for key, fit in line_fits.items():
         sel = point_sets.get(key[:2])

@@ -98,6 +98,8 @@ def fit_stage(cfg, state) -> FitStage:
     line_fits: dict = {}
     notes: list[str] = []
     pooled_m = moments(X, Y)
+    # kept for the diagnostics, which would otherwise compute the same moments again
+    _MOMENTS[id(pts)] = (weakref.ref(pts, _forget(id(pts), _MOMENTS)), pooled_m)
     pooled_m = type(pooled_m)(**{k: np.atleast_1d(getattr(pooled_m, k)) for k in
                                  ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
     ranges = [(value_range(pts["x"].to_numpy()), value_range(pts["y"].to_numpy()))]
@@ -208,6 +210,21 @@ _SLICES: dict = {}
 #: ``id(points) -> (weak reference to them, codes, names)``: the groups of the points
 #: fitted, coded by :func:`fit_stage` (names in text order).
 _CODED: dict = {}
+
+
+#: ``id(points) -> (weak reference to them, Moments)``: the moments of the points'
+#: ``log_x`` and ``log_y`` as :func:`scaling.stats.moments.moments` gives them.
+_MOMENTS: dict = {}
+
+
+def known_moments(frame: pd.DataFrame):
+    """:func:`scaling.stats.moments.moments` of ``frame``'s ``log_x`` and ``log_y``
+    when :func:`fit_stage` computed them for this very frame (its pooled points),
+    else None."""
+    entry = _MOMENTS.get(id(frame))
+    if entry is not None and entry[0]() is frame:
+        return entry[1]
+    return None
 
 
 def _forget(key: int, registry: dict | None = None):

@@ -96,15 +96,18 @@ def _normal_scores(p: np.ndarray) -> np.ndarray:
     q = p - 0.5
     out = np.empty_like(p)
     mid = np.abs(q) <= 0.42
-    r = q[mid] * q[mid]
-    out[mid] = (q[mid] * (((-25.44106049637 * r + 41.39119773534) * r - 18.61500062529) * r
-                          + 2.50662823884)
+    qm = q[mid]
+    r = qm * qm
+    out[mid] = (qm * (((-25.44106049637 * r + 41.39119773534) * r - 18.61500062529) * r
+                      + 2.50662823884)
                 / ((((3.13082909833 * r - 21.06224101826) * r + 23.08336743743) * r
                     - 8.47351093090) * r + 1.0))
     tail = np.flatnonzero(~mid)
     if tail.size:
-        # libm's log, as AS R94 compiled, not numpy's vectorised one
-        s = np.sqrt(np.array([-math.log(v) for v in p[tail].tolist()]))
+        # libm's log, as AS R94 compiled, not numpy's vectorised one (map: no Python
+        # frame per value; -log negated as an array, the same bits)
+        logs = np.fromiter(map(math.log, p[tail].tolist()), dtype=float, count=tail.size)
+        s = np.sqrt(np.negative(logs, out=logs))
         out[tail] = -((((2.32121276858 * s + 4.85014127135) * s - 2.29796479134) * s
                        - 2.78718931138) / ((1.63706781897 * s + 3.54388924762) * s + 1.0))
     return out
@@ -206,10 +209,12 @@ def shapiro_wilk(x) -> TestResult:
     """
     x = np.ravel(np.asarray(x, dtype=np.float64))
     n = x.size
-    if n < 3 or np.isnan(x).any():
+    if n < 3:
         return TestResult(math.nan, math.nan)
-    if not np.isfinite(x).all():   # no W; AS R94 leaves p at its starting 1
-        return TestResult(math.nan, 1.0)
+    if not np.isfinite(x).all():   # one pass when all are finite, as usual
+        if np.isnan(x).any():
+            return TestResult(math.nan, math.nan)
+        return TestResult(math.nan, 1.0)   # no W; AS R94 leaves p at its starting 1
     y = np.sort(x)
     y -= x[n // 2]
     rng = y[-1] - y[0]

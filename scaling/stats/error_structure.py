@@ -111,7 +111,9 @@ def _polyfit_line(lx: np.ndarray, ly: np.ndarray) -> tuple:
     matrix scaled by its column norms, solved by ``np.linalg.lstsq`` -- so the same
     bits, without the two copies of the data polyfit makes (``lx``, ``ly``: float64,
     no negative zero, as logs are)."""
-    lhs = np.vander(lx, 2)
+    lhs = np.empty((lx.size, 2))   # np.vander(lx, 2): the columns lx and 1, built directly
+    lhs[:, 0] = lx
+    lhs[:, 1] = 1.0
     scale = np.sqrt((lhs * lhs).sum(axis=0))
     lhs /= scale
     c, _, rank, _ = np.linalg.lstsq(lhs, ly, len(lx) * np.finfo(lx.dtype).eps)

@@ -34,6 +34,7 @@ ESTIMATE_COLUMNS = ("slope", "slope_low", "slope_high", "intercept", "intercept_
 RANGE_COLUMNS = ("x_min", "x_max", "y_min", "y_max")
 
 _NAN_PAIR = (math.nan, math.nan)
+_FIT_SET = frozenset(FIT_COLUMNS)
 
 
 def fit_values(fit) -> dict:
@@ -100,16 +101,18 @@ def fit_row(fit=None, *, scope: str = "", group: str = "", x_range=None, y_range
     >>> list(row)[:4], row["slope"]
     (['scope', 'group', 'method', 'n'], nan)
     """
-    known = fit_values(fit) if fit is not None else {}
     if x_range is None:
         x_range = getattr(fit, "x_range", None) or _NAN_PAIR
     if y_range is None:
         y_range = getattr(fit, "y_range", None) or _NAN_PAIR
-    known.update({"scope": scope, "group": group, "x_min": x_range[0], "x_max": x_range[1],
-                  "y_min": y_range[0], "y_max": y_range[1]})
-    known.update(columns)
-    row = {c: known.get(c, math.nan) for c in FIT_COLUMNS}
-    row.update({k: v for k, v in columns.items() if k not in row})
+    # every column in order, NaN until given; later sources win (the fit's values, the
+    # scope and ranges, then ``columns``, whose keys outside FIT_COLUMNS follow in order)
+    row = dict.fromkeys(FIT_COLUMNS, math.nan)
+    if fit is not None:
+        row.update((k, v) for k, v in fit_values(fit).items() if k in _FIT_SET)
+    row.update(scope=scope, group=group, x_min=x_range[0], x_max=x_range[1],
+               y_min=y_range[0], y_max=y_range[1])
+    row.update(columns)
     return row
 
 

@@ -119,7 +119,9 @@ def _qr_pivoted(a: np.ndarray):
             if rdiag[k] > rdiag[kmax]:
                 kmax = k
         if kmax != j:
-            a[:, [j, kmax]] = a[:, [kmax, j]]
+            column = a[:, j].copy()
+            a[:, j] = a[:, kmax]
+            a[:, kmax] = column
             rdiag[kmax], wa[kmax] = rdiag[j], wa[j]
             order[j], order[kmax] = order[kmax], order[j]
         # the first column is whole: its norm is already known
@@ -348,7 +350,8 @@ def _fit(model, xdata, ydata, p, max_evaluations, ftol, xtol, factor) -> Nonline
             p[j] = temp + h
             wa = residuals(p)
             p[j] = temp
-            fjac[:, j] = (wa - fvec) / h
+            np.subtract(wa, fvec, out=wa)   # wa is a fresh array: difference in place
+            np.divide(wa, h, out=fjac[:, j])
         nfev += n
         order, rdiag, acnorm = _qr_pivoted(fjac)
         if iteration == 1:
@@ -363,7 +366,7 @@ def _fit(model, xdata, ydata, p, max_evaluations, ftol, xtol, factor) -> Nonline
         for j in range(n):
             if fjac[j, j] != 0:
                 temp = -_dot(fjac[j:, j], wa4[j:]) / fjac[j, j]
-                wa4[j:] = wa4[j:] + fjac[j:, j] * temp
+                wa4[j:] += fjac[j:, j] * temp
             fjac[j, j] = rdiag[j]
             qtf[j] = wa4[j]
         r = [[fjac[i, j] for j in range(n)] for i in range(n)]

@@ -61,6 +61,7 @@ from .classic_tests import shapiro_wilk
 
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL
+from .breusch_pagan import _breusch_pagan_centred, _centred, breusch_pagan
 from .cooks import ols_cooks_distances
 from .lines import exact_fit
 from .line_results import LineFit
@@ -68,7 +69,7 @@ from .moments import moments
 
 __all__ = ["Check", "Curvature", "Diagnostics", "diagnose", "quadratic_t", "MIN_N",
            "within_quadratic_t", "parallel_lines_influence", "diagnose_parallel",
-           "breusch_pagan", "unique_codes", "group_order", "GroupCodes"]
+           "unique_codes", "group_order", "GroupCodes"]
 
 #: Fewest points a diagnostic check reads.
 MIN_N = 4
@@ -288,10 +289,12 @@ def quadratic_t(log_x, log_y) -> dict:
     n = X.shape[-1]
     mx = X.mean(axis=-1, keepdims=True)
     c = X - mx
-    q = c * c
-    q = q - q.mean(axis=-1, keepdims=True)
-    yc = Y - Y.mean(axis=-1, keepdims=True)
-    scc = np.sum(c * c, axis=-1)
+    cc = c * c   # read twice: centred into q, summed into S_cc
+    q = cc - cc.mean(axis=-1, keepdims=True)
+    my = Y.mean(axis=-1, keepdims=True)
+    yc = Y - my
+    scc = np.sum(cc, axis=-1)
+    del cc
     scq = np.sum(c * q, axis=-1)
     sqq = np.sum(q * q, axis=-1)
     scy = np.sum(c * yc, axis=-1)
@@ -301,7 +304,7 @@ def quadratic_t(log_x, log_y) -> dict:
     mx = mx[..., 0]
     b2 = gq
     b1 = gc - 2 * gq * mx
-    b0 = Y.mean(axis=-1) - b1 * X.mean(axis=-1) - b2 * np.mean(X * X, axis=-1)
+    b0 = my[..., 0] - b1 * mx - b2 * np.mean(X * X, axis=-1)
     return {"intercept": b0, "linear": b1, "quadratic": b2, "quadratic_se": se,
             "statistic": t, "df": np.full(np.shape(t), float(n - 3)), "p_value": p}
 
@@ -319,79 +322,6 @@ def quadratic_solve(scc, scq, sqq, scy, sqy, syy, n) -> tuple:
         t = gq / se
         p = 2 * tails.t_upper(np.abs(t), n - 3)
     return gc, gq, se, t, p
-
-
-# --------------------------------------------------------------------------
-# constant variance, closed form
-
-
-def breusch_pagan(resid, log_x, groups=None, *, n_groups: int | None = None) -> tuple:
-    """Koenker's studentised Breusch-Pagan LM on regressors (1, X) and its p-value.
-
-    Parameters
-    ----------
-    resid, log_x : array_like, shape (n,)
-        Residuals e and the regressor X.
-    groups : array_like of int, shape (n,), optional
-        Integer group code (0 .. n_groups - 1) of each point: one test per
-        group, all in one pass (``np.bincount``).  None: one test of all points.
-    n_groups : int, optional
-        Number of groups (default ``groups.max() + 1``).
-
-    Returns
-    -------
-    statistic, p_value : float, or ndarray of shape (n_groups,)
-        LM = n R^2, chi-square 1 df; NaN where e^2 or X does not vary.
-
-    Notes
-    -----
-    With w = e^2, the R^2 of w regressed on (1, X) is the squared
-    correlation of w and X, so LM = n S_wx^2 / (S_xx S_ww) with the centred
-    sums S_wx, S_xx, S_ww (Breusch & Pagan 1979, *Econometrica* 47:1287;
-    Koenker 1981, *J. Econometrics* 17:107).  ``het_breuschpagan`` of
-    statsmodels (default ``robust=True``) computes the same as n (1 - RSS/TSS)
-    by least squares; the two agree to rounding.
-    """
-    e = np.asarray(resid, dtype=float)
-    X = np.asarray(log_x, dtype=float)
-    if e.ndim != 1 or e.shape != X.shape:
-        raise DataError("resid and log_x must be one-dimensional and of equal length")
-    w = e * e
-    if groups is None:
-        return _breusch_pagan_centred(w, _centred(X))
-    codes = np.asarray(groups)
-    if codes.shape != X.shape or codes.dtype.kind not in "iu":
-        raise DataError("groups must be integer codes, one per point")
-    k = int(codes.max()) + 1 if n_groups is None and codes.size else int(n_groups or 0)
-    n = np.bincount(codes, minlength=k).astype(float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        wc = w - (np.bincount(codes, weights=w, minlength=k) / n)[codes]
-        xc = X - (np.bincount(codes, weights=X, minlength=k) / n)[codes]
-    swx = np.bincount(codes, weights=wc * xc, minlength=k)
-    sxx = np.bincount(codes, weights=xc * xc, minlength=k)
-    sww = np.bincount(codes, weights=wc * wc, minlength=k)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        lm = n * swx * swx / (sxx * sww)
-    lm = np.where((sxx > 0) & (sww > 0), lm, np.nan)
-    return lm, tails.chi2_upper(lm, 1)
-
-
-def _centred(X: np.ndarray) -> tuple:
-    """``(X - mean X, sum of its squares)``: the regressor's part of :func:`breusch_pagan`,
-    the same for every line through the same points."""
-    xc = X - X.mean()
-    return xc, np.sum(xc * xc)
-
-
-def _breusch_pagan_centred(w: np.ndarray, centred: tuple) -> tuple:
-    """:func:`breusch_pagan` of one set of points from w = e^2 and :func:`_centred` of X."""
-    xc, sxx = centred
-    wc = w - w.mean()
-    n, swx, sww = float(xc.size), np.sum(wc * xc), np.sum(wc * wc)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        lm = n * swx * swx / (sxx * sww)
-    lm = np.where((sxx > 0) & (sww > 0), lm, np.nan)
-    return float(lm), float(tails.chi2_upper(lm, 1))
 
 
 # --------------------------------------------------------------------------
@@ -446,7 +376,8 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
         One empty dict per set of points, passed to every call for lines
         fitted to those same points: the parts that do not depend on the
         line (the quadratic fit, the OLS Cook's distances) are computed by the
-        first call and read by the others.
+        first call and read by the others.  A caller that has the points'
+        moments may set ``memo["exact"]`` to ``exact_fit`` of them.
     constant_variance : (float, float), optional
         The Breusch-Pagan statistic and p-value of this line's residuals when
         the caller has them (every group of a method at once:
@@ -489,13 +420,13 @@ def diagnose(fit: LineFit, log_x, log_y, *, rows=None, exponent_targets=(),
 
     resid = Y - fit.intercept - fit.slope * X
     checks = [_normality(resid, alpha)]
-    if np.ptp(resid) == 0:
+    if (level := np.ptp(resid) == 0):
         warnings.warn("residuals are all equal: the constant-variance test is not defined",
                       DegenerateDataWarning, stacklevel=2)
     if "centred" not in memo:   # X's part of the Breusch-Pagan test, once per set
         memo["centred"] = _centred(X)
     checks.append(_constant_variance(resid, X, alpha=alpha, given=constant_variance,
-                                     centred=memo["centred"]))
+                                     centred=memo["centred"], level=level))
     if "quadratic" not in memo:   # the same for every line through these points
         memo["quadratic"] = {k: float(v) for k, v in quadratic_t(X, Y).items()}
         memo["cooks"] = ols_cooks_distances(X, Y)
@@ -837,17 +768,19 @@ def _normality(resid, alpha) -> Check:
 
 
 def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05, given=None,
-                       centred=None) -> Check:
+                       centred=None, level=None) -> Check:
     """Breusch-Pagan check on (1, X): ``given`` (statistic, p), else the closed form
     (:func:`breusch_pagan`; ``centred``: :func:`_centred` of X when the caller has it),
-    or ``het_breuschpagan(resid, exog)`` when a function of that signature is given."""
-    if np.ptp(resid) == 0:
+    or ``het_breuschpagan(resid, exog)`` when a function of that signature is given;
+    ``level``: whether the residuals are all equal, when the caller knows."""
+    w = None   # e^2, kept for the trend's sign below
+    if np.ptp(resid) == 0 if level is None else level:
         lm, p_bp = math.nan, math.nan
     elif given is not None:
         lm, p_bp = float(given[0]), float(given[1])
     elif het_breuschpagan is None and centred is not None:
         e = np.asarray(resid, dtype=float)
-        lm, p_bp = _breusch_pagan_centred(e * e, centred)
+        lm, p_bp = _breusch_pagan_centred(w := e * e, centred)
     elif het_breuschpagan is None:
         lm, p_bp = breusch_pagan(resid, X)
     else:
@@ -859,7 +792,7 @@ def _constant_variance(resid, X, het_breuschpagan=None, alpha=0.05, given=None,
         # the sign of the OLS slope of e^2 on X is the sign of their centred cross
         # product (a significant test puts it far from rounding's zero)
         xc = X - X.mean() if centred is None else centred[0]
-        trend = 1 if np.dot(xc, resid ** 2) > 0 else -1
+        trend = 1 if np.dot(xc, resid ** 2 if w is None else w) > 0 else -1
     return Check(check="constant_variance", test="Breusch-Pagan", statistic=lm, df=1.0,
                  p_value=p_bp, estimate=math.nan, flagged=flagged, finding=_finding(flagged),
                  direction=trend)
