@@ -27,7 +27,7 @@ from .fit_rows import fit_values
 from .lines import (METHOD_INFO, METHODS, exact_fit, exponent_value, fit_moments, get_method,
                     ma_minor_side, slope_test_statistic, validate_xy)
 from .logscale import base_label, parse_log_base, to_log
-from .moments import Moments, moments as _moments
+from .moments import HIGHER_KEYS, Moments, moments as _moments
 from .predictions import inverse_predict as _inverse_predict, predict as _predict
 from .schema import EXACT_NOTE, check_confidence, method_label
 
@@ -670,22 +670,24 @@ def line_fits_from_result(res: dict, m: Moments, method: str, *, confidence: flo
     cols = {k: np.asarray(res[k], dtype=float).reshape(-1).tolist() for k in
             ("slope", "slope_low", "slope_high", "slope_se", "intercept", "intercept_low",
              "intercept_high", "intercept_se", "r", "r2", "resid_sd", "df")}
-    gaps = [np.broadcast_to(np.asarray(res.get(k, math.nan), dtype=float), (size,)).tolist()
+    gaps = [_gap_column(np.broadcast_to(np.asarray(res.get(k, math.nan), dtype=float),
+                                        (size,)))
             for k in ("slope_gap_low", "slope_gap_high")]
-    notes = np.asarray(res["note"], dtype=object).reshape(-1)
+    notes = list(map(str, np.asarray(res["note"], dtype=object).reshape(-1)))
     # Iterating an array gives numpy scalars, as indexing it one entry at a time does.
-    parts = (zip(*(list(getattr(m, k)) for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")))
-             if not m.has_higher else None)
+    names = _MOMENT_KEYS + (HIGHER_KEYS if m.has_higher else ())
+    parts = zip(*(list(getattr(m, k)) for k in names))
+    keep = keep.tolist()
     out = []
     for i in range(size):
-        mi = next(parts) if parts is not None else None
+        mi = next(parts)
         if not keep[i]:
             out.append(None)
             continue
-        if mi is None:
-            mi = m[i]
-        else:
-            mi = Moments(n=mi[0], mean_x=mi[1], mean_y=mi[2], sxx=mi[3], syy=mi[4], sxy=mi[5])
+        mi = (Moments(n=mi[0], mean_x=mi[1], mean_y=mi[2], sxx=mi[3], syy=mi[4], sxy=mi[5])
+              if len(mi) == 6 else
+              Moments(n=mi[0], mean_x=mi[1], mean_y=mi[2], sxx=mi[3], syy=mi[4], sxy=mi[5],
+                      sxxx=mi[6], sxxxx=mi[7], sxxy=mi[8]))
         out.append(LineFit(
             method=method, n=int(mi.n),
             slope=cols["slope"][i],
@@ -698,10 +700,21 @@ def line_fits_from_result(res: dict, m: Moments, method: str, *, confidence: flo
             df=cols["df"][i], log_base=log_base, confidence=confidence, moments=mi,
             x_range=None if x_ranges is None else x_ranges[i],
             y_range=None if y_ranges is None else y_ranges[i],
-            note=str(notes[i]), lam=lam,
-            slope_gap_low=_gap_value(gaps[0][i]), slope_gap_high=_gap_value(gaps[1][i]),
+            note=notes[i], lam=lam, slope_gap_low=gaps[0][i], slope_gap_high=gaps[1][i],
         ))
     return out
+
+
+def _gap_column(values: np.ndarray) -> list:
+    """:func:`_gap_value` of each entry of a float array, in one array pass."""
+    out = values.tolist()
+    for i in np.flatnonzero(~np.isfinite(values)).tolist():
+        out[i] = math.nan
+    return out
+
+
+#: The moments every fit carries (the higher sums come after them when carried).
+_MOMENT_KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")
 
 
 def slope_tests_for(fits, exponent, *, hypothesis: str = "") -> list:
