@@ -479,20 +479,7 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         for (scope, group), new, fit in zip(keys, keep, made):
             if new:
                 all_fits[(scope, group, method)] = fit
-    extra = {}
-    columns = {c: getattr(res, name).tolist() for c, name in
-               (("see", "see"), ("percent_see", "percent_see"), ("percent_pe", "percent_pe"),
-                ("smearing_factor", "smearing"), ("parametric_factor", "parametric"),
-                ("ratio_factor", "ratio"))}
-    set_n = res.n.tolist()
-    for i, (scope, group) in enumerate(keys):
-        if set_n[i] < 3:
-            continue
-        for j, method in enumerate(methods):
-            key = (scope, group, method)
-            if key not in all_fits:
-                continue
-            extra[key] = {c: float(v[i][j]) for c, v in columns.items()}
+    extra = _accuracy(res, keys, methods, all_fits)
     if point_sets:   # the line through the group means: its points are in memory
         held = {k: f for k, f in all_fits.items() if (k[0], k[1]) in point_sets}
         extra.update(accuracy_and_factors(held, point_sets)[1])
@@ -525,6 +512,31 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
                       checks=res, line_fits=all_fits, messages=tuple(messages),
                       notes=tuple(notes))
+
+
+#: The accuracy and factor columns of fits.csv and the :class:`StreamedChecks` field of each.
+_ACCURACY = (("see", "see"), ("percent_see", "percent_see"), ("percent_pe", "percent_pe"),
+             ("smearing_factor", "smearing"), ("parametric_factor", "parametric"),
+             ("ratio_factor", "ratio"))
+
+
+def _accuracy(res: StreamedChecks, keys: list, methods: list, all_fits: dict) -> dict:
+    """``(scope, group, method) -> {column: float}`` of the accuracy and factor columns,
+    for every fit of ``all_fits`` whose set has at least 3 points; set by set, method by
+    method (the order of the dict), each column read out of its array once."""
+    names = [c for c, _ in _ACCURACY]
+    values = [np.asarray(getattr(res, name), dtype=float) for _, name in _ACCURACY]
+    big = np.flatnonzero(~(np.asarray(res.n) < 3)).tolist()
+    rows = {j: list(zip(*(v[big, j].tolist() for v in values)))
+            for j in range(len(methods))}
+    extra = {}
+    for at, i in enumerate(big):
+        scope, group = keys[i]
+        for j, method in enumerate(methods):
+            key = (scope, group, method)
+            if key in all_fits:
+                extra[key] = dict(zip(names, rows[j][at]))
+    return extra
 
 
 #: Figure kinds that draw the run's points.
