@@ -176,6 +176,9 @@ def _same_fields(a, b) -> bool:
                 return False
         elif type(u) is not type(v):
             return False
+        elif isinstance(u, (np.ndarray, tuple)):
+            if not all(np.array_equal(p, q, equal_nan=True) for p, q in zip(u, v)):
+                return False
         elif isinstance(u, (float, np.floating)):
             if not _same_float(u, v):
                 return False
@@ -209,6 +212,48 @@ class TestLineFitsWithHigherSums:
             gaps += math.isfinite(fits[i].slope_gap_low)
         if method == "sma":   # the split intervals are among them
             assert gaps > 0
+
+
+class TestLineFitPickles:
+    @pytest.mark.parametrize("higher", [False, True])
+    @pytest.mark.parametrize("method", MOMENT_METHODS + ("deming",))
+    def test_a_pickled_fit_is_the_fit(self, method, higher):
+        # internal consistency: every field of a fit sent through pickle (the packed
+        # floats) comes back bit for bit and type for type, as a dataclass would
+        import pickle
+
+        from scaling.render.figure_worker import _dump
+        import io
+        m, what = _edge_moments(higher=higher)
+        lam = 2.0 if method == "deming" else None
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = (deming_moments(m, lam) if method == "deming"
+                   else fit_moments(m, method))
+        fits = line_fits_from_result(res, m, method, confidence=0.95, log_base=10.0,
+                                     x_ranges=[(1.0, float(i)) for i in range(len(what))],
+                                     y_ranges=[None] * len(what), lam=lam)
+        buffer = io.BytesIO()
+        _dump(fits, buffer)
+        for back in (pickle.loads(pickle.dumps(fits)), pickle.loads(buffer.getvalue())):
+            for name, a, b in zip(what, fits, back):
+                assert _same_fields(a, b), name
+                assert (a.slope_gap_low is math.nan) == (b.slope_gap_low is math.nan)
+
+    def test_fits_of_other_shapes_pickle_as_dataclasses(self):
+        # internal consistency: numpy-float fields, 0-d moments, infinite gaps and
+        # bootstrap replicates come back as they were
+        import pickle
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fit = scaling.fit_line([1.0, 2.0, 4.0, 8.0, 16.0], [2.0, 3.1, 5.2, 8.8, 15.0])
+        fits = [fit, dataclasses.replace(fit, slope=np.float64(fit.slope)),
+                dataclasses.replace(fit, slope_gap_low=-math.inf, slope_gap_high=math.inf),
+                dataclasses.replace(fit, slope_replicates=np.array([0.5, 0.7]),
+                                    smearing_factor=1.1, x_range=(1.0, 16.0))]
+        for a, b in zip(fits, pickle.loads(pickle.dumps(fits))):
+            assert _same_fields(a, b)
+            assert type(a.moments.n) is type(b.moments.n)
 
 
 class TestSlopeTestsFor:

@@ -14,6 +14,7 @@ made in :mod:`scaling.render`.
 from __future__ import annotations
 
 import math
+import operator
 import warnings
 from dataclasses import dataclass, field
 
@@ -375,6 +376,23 @@ class LineFit:
         """
         from ..render.plots import plot_fit
         return plot_fit(self, ax=ax, **style)
+
+    def __reduce_ex__(self, protocol):
+        # Thousands of fits travel to the figure process in a run of many groups: a fit
+        # whose numbers are Python floats and whose moments numpy floats goes as one
+        # bytes object of them (exact) with its other fields; any other as a dataclass.
+        floats = _FLOATS(self)
+        mom = self.moments
+        if (type(mom) is Moments and type(self.slope_ci) is ConfidenceInterval
+                and type(self.intercept_ci) is ConfidenceInterval
+                and set(map(type, floats)) == {float}):
+            values = _MOMENT_VALUES(mom)
+            if values[6] is None and values[7] is None and values[8] is None:
+                values = values[:6]
+            if set(map(type, values)) == {np.float64}:
+                return (_unpacked_line_fit, (np.array(floats + values).tobytes(),
+                                             _OTHERS(self)))
+        return object.__reduce_ex__(self, protocol)
 
     def summary(self) -> str:
         """A few lines of text describing the fit."""
@@ -772,6 +790,46 @@ def slope_tests_for(fits, exponent, *, hypothesis: str = "") -> list:
         if out[i] is None:
             out[i] = fit.test_slope(exponent, hypothesis=hypothesis)
     return out
+
+
+#: What :meth:`LineFit.__reduce_ex__` packs as floats, and the rest it sends as is.
+_FLOATS = operator.attrgetter("slope", "slope_ci.low", "slope_ci.high", "slope_se",
+                              "intercept", "intercept_ci.low", "intercept_ci.high",
+                              "intercept_se", "r", "r2", "resid_sd", "df", "confidence",
+                              "slope_gap_low", "slope_gap_high")
+_OTHERS = operator.attrgetter("method", "n", "log_base", "x_range", "y_range", "note", "lam",
+                              "interval_method", "slope_replicates", "log_data",
+                              "smearing_factor", "ratio_factor")
+_MOMENT_VALUES = operator.attrgetter(*_MOMENT_KEYS, *HIGHER_KEYS)
+
+
+def _unpacked_line_fit(packed: bytes, others: tuple) -> LineFit:
+    """The fit packed by :meth:`LineFit.__reduce_ex__`."""
+    values = np.frombuffer(packed, dtype=np.float64)
+    (slope, slope_low, slope_high, slope_se, intercept, intercept_low, intercept_high,
+     intercept_se, r, r2, resid_sd, df, confidence, gap_low,
+     gap_high) = values[:15].tolist()
+    mom = values[15:]          # iterating gives numpy scalars, as the fit held
+    if mom.size == 6:
+        n, mean_x, mean_y, sxx, syy, sxy = mom
+        moments = Moments(n=n, mean_x=mean_x, mean_y=mean_y, sxx=sxx, syy=syy, sxy=sxy)
+    else:
+        n, mean_x, mean_y, sxx, syy, sxy, sxxx, sxxxx, sxxy = mom
+        moments = Moments(n=n, mean_x=mean_x, mean_y=mean_y, sxx=sxx, syy=syy, sxy=sxy,
+                          sxxx=sxxx, sxxxx=sxxxx, sxxy=sxxy)
+    (method, n, log_base, x_range, y_range, note, lam, interval_method, replicates,
+     log_data, smearing_factor, ratio_factor) = others
+    return LineFit(
+        method=method, n=n, slope=slope, slope_ci=ConfidenceInterval(slope_low, slope_high),
+        slope_se=slope_se, intercept=intercept,
+        intercept_ci=ConfidenceInterval(intercept_low, intercept_high),
+        intercept_se=intercept_se, r=r, r2=r2, resid_sd=resid_sd, df=df, log_base=log_base,
+        confidence=confidence, moments=moments, x_range=x_range, y_range=y_range, note=note,
+        lam=lam, interval_method=interval_method,
+        slope_gap_low=gap_low if gap_low == gap_low else math.nan,   # NaN: the one nan
+        slope_gap_high=gap_high if gap_high == gap_high else math.nan,
+        slope_replicates=replicates, log_data=log_data, smearing_factor=smearing_factor,
+        ratio_factor=ratio_factor)
 
 
 def _gap_value(v) -> float:
