@@ -323,3 +323,26 @@ def test_accuracy_columns_equal_the_fit_by_fit_loop():
     assert list(got) == list(want)
     assert repr(got) == repr(want)
     assert all(type(v) is float for d in got.values() for v in d.values())
+
+
+def test_the_collector_is_paused_in_the_pass_and_restored_after():
+    # internal consistency: the pass's pause leaves the collector as it found it, on
+    # error too
+    import gc
+
+    from scaling.run.second_pass import _collector_paused
+    assert gc.isenabled()
+    with _collector_paused():
+        assert not gc.isenabled()
+    assert gc.isenabled()
+    with pytest.raises(ZeroDivisionError):
+        with _collector_paused():
+            1 / 0
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        with _collector_paused():
+            pass
+        assert not gc.isenabled()
+    finally:
+        gc.enable()

@@ -36,8 +36,10 @@ The plain-language notes are small functions here (to move into
 
 from __future__ import annotations
 
+import gc
 import math
 import warnings
+from contextlib import contextmanager
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -834,14 +836,30 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
     return table
 
 
+@contextmanager
+def _collector_paused():
+    """Python's cyclic garbage collector paused (as it was after): the pass makes fit
+    objects and dicts by the ten thousand, none in a reference cycle, and each burst of
+    new objects would otherwise set off collections that walk every live object."""
+    was = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was:
+            gc.enable()
+
+
 def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None,
                      spill=None):
     """``result`` (a RunResult of the moments path) with the second pass's tables;
     ``point_sets``: points held in memory (the group means), measured as in memory;
     ``spill``: the first pass's rows on disk, read instead of the file and then deleted."""
     try:
-        extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
-                            other_tables=result.tables, point_sets=point_sets, spill=spill)
+        with _collector_paused():
+            extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units,
+                                base=base, other_tables=result.tables,
+                                point_sets=point_sets, spill=spill)
     finally:
         if spill is not None:
             spill.close()
