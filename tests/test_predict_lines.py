@@ -152,3 +152,30 @@ def test_saved_fits_of_fits_from_arrays_equal_fit_to_dict():
         want.update({"scope": key[0], "group": key[1], "note": fit_note(fit)})
         assert json.dumps(saved[key]) == json.dumps(want), key
     assert list(saved) == list(fits)
+
+
+@pytest.mark.parametrize("partial", [False, True])
+def test_accuracy_columns_equal_the_row_by_row_reading(partial):
+    # internal consistency: the columns read in one pass equal extra.get(key, {}).get(c)
+    # row by row (fits without accuracy left NaN; a dict lacking a column too)
+    import pandas as pd
+
+    from scaling.run.predictions import add_accuracy_columns
+    from scaling.stats.schema import FIT_ACCURACY_COLUMNS
+    fits = pd.DataFrame({"scope": ["pooled", "group", "group", "group"],
+                         "group": ["", "a", "b", "c"], "method": ["ols"] * 4,
+                         "slope": [0.7, 0.8, np.nan, 0.6]})
+    extra = {("pooled", "", "ols"): {c: 1.0 + i for i, c in enumerate(FIT_ACCURACY_COLUMNS)},
+             ("group", "b", "ols"): {c: float("nan") for c in FIT_ACCURACY_COLUMNS},
+             ("group", "c", "ols"): {c: -2.5 * i for i, c in enumerate(FIT_ACCURACY_COLUMNS)}}
+    if partial:
+        del extra[("group", "c", "ols")]["ratio_factor"]
+    want = fits.copy()
+    for c in FIT_ACCURACY_COLUMNS:
+        want[c] = [extra.get(k, {}).get(c, np.nan)
+                   for k in zip(fits["scope"], fits["group"], fits["method"])]
+    got = add_accuracy_columns(fits, extra)
+    pd.testing.assert_frame_equal(got, want)
+    assert got.to_csv() == want.to_csv()
+    empty = add_accuracy_columns(fits.iloc[:0], extra)
+    assert list(empty.columns) == list(want.columns) and len(empty) == 0

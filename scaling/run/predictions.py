@@ -420,8 +420,15 @@ def row_keys(table: pd.DataFrame):
 
 def add_accuracy_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:
     """fits.csv with the accuracy and correction-factor columns (NaN where not computed)."""
-    rows = [extra.get(key, {}) for key in row_keys(fits)]
-    values = {c: [row.get(c, np.nan) for row in rows] for c in FIT_ACCURACY_COLUMNS}
+    blank = dict.fromkeys(FIT_ACCURACY_COLUMNS, np.nan)
+    rows = [extra.get(key, blank) for key in row_keys(fits)]
+    try:   # every row with every column (as the passes make them): one C-level read each
+        read = list(zip(*map(operator.itemgetter(*FIT_ACCURACY_COLUMNS), rows)))
+        values = {c: list(v) for c, v in zip(FIT_ACCURACY_COLUMNS, read)} if rows else None
+    except KeyError:
+        values = None
+    if values is None:
+        values = {c: [row.get(c, np.nan) for row in rows] for c in FIT_ACCURACY_COLUMNS}
     out = fits.copy()
     for c in FIT_ACCURACY_COLUMNS:
         out[c] = values[c]
