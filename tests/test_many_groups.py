@@ -12,6 +12,7 @@ are not estimable, one point per group and groups of one repeated x.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import warnings
 
@@ -51,7 +52,7 @@ def _same_test(a, b) -> bool:
             and all(getattr(a, k) == getattr(b, k) for k in words))
 
 
-def _edge_moments():
+def _edge_moments(higher: bool = False):
     """Moments of groups covering the edge cases, and what each group is."""
     rng = np.random.default_rng(20)
     xs, ys, what = [], [], []
@@ -76,7 +77,8 @@ def _edge_moments():
     add(np.array([0.0, 1.0, 2.0, 3.0]), np.array([1.0, 0.0, 0.0, 1.0]),
         "uncorrelated: SMA and MA not estimable")
     labels = np.concatenate([np.full(x.size, i) for i, x in enumerate(xs)])
-    m = group_moments(np.concatenate(xs), np.concatenate(ys), labels, n_groups=len(xs))
+    m = group_moments(np.concatenate(xs), np.concatenate(ys), labels, n_groups=len(xs),
+                      higher=higher)
     return m, what
 
 
@@ -162,6 +164,96 @@ class TestLineFitsFromResult:
             assert fits[i].note == one.note, name
             for k in ("n", "mean_x", "sxy"):
                 assert type(getattr(fits[i].moments, k)) is type(getattr(one.moments, k))
+
+
+def _same_fields(a, b) -> bool:
+    """Every field of two LineFits (and of their intervals and moments) the same, bit for
+    bit and type for type (NaN equal to NaN)."""
+    for f in dataclasses.fields(a):
+        u, v = getattr(a, f.name), getattr(b, f.name)
+        if dataclasses.is_dataclass(u):
+            if type(u) is not type(v) or not _same_fields(u, v):
+                return False
+        elif type(u) is not type(v):
+            return False
+        elif isinstance(u, (np.ndarray, tuple)):
+            if not all(np.array_equal(p, q, equal_nan=True) for p, q in zip(u, v)):
+                return False
+        elif isinstance(u, (float, np.floating)):
+            if not _same_float(u, v):
+                return False
+        elif u != v:
+            return False
+    return True
+
+
+class TestLineFitsWithHigherSums:
+    @pytest.mark.parametrize("method", MOMENT_METHODS + ("deming",))
+    def test_equal_the_fits_packaged_one_at_a_time(self, method):
+        # internal consistency: with the higher sums carried (the moments path), every
+        # field of every entry equals line_fit_from_result(res, i, m[i]), types included
+        m, what = _edge_moments(higher=True)
+        assert m.has_higher
+        ranges = [((i + 1.0, i + 2.0), (i + 3.0, i + 4.0)) for i in range(len(what))]
+        lam = 2.0 if method == "deming" else None
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = (deming_moments(m, lam) if method == "deming"
+                   else fit_moments(m, method))
+        fits = line_fits_from_result(res, m, method, confidence=0.95, log_base=10.0,
+                                     x_ranges=[r[0] for r in ranges],
+                                     y_ranges=[r[1] for r in ranges], lam=lam)
+        gaps = 0
+        for i, name in enumerate(what):
+            one = line_fit_from_result(res, i, m[i], method, confidence=0.95, log_base=10.0,
+                                       x_range=ranges[i][0], y_range=ranges[i][1], lam=lam)
+            assert _same_fields(fits[i], one), name
+            assert fits[i].moments.sxxxx is not None, name
+            gaps += math.isfinite(fits[i].slope_gap_low)
+        if method == "sma":   # the split intervals are among them
+            assert gaps > 0
+
+
+class TestLineFitPickles:
+    @pytest.mark.parametrize("higher", [False, True])
+    @pytest.mark.parametrize("method", MOMENT_METHODS + ("deming",))
+    def test_a_pickled_fit_is_the_fit(self, method, higher):
+        # internal consistency: every field of a fit sent through pickle (the packed
+        # floats) comes back bit for bit and type for type, as a dataclass would
+        import pickle
+
+        from scaling.render.figure_worker import _dump
+        import io
+        m, what = _edge_moments(higher=higher)
+        lam = 2.0 if method == "deming" else None
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = (deming_moments(m, lam) if method == "deming"
+                   else fit_moments(m, method))
+        fits = line_fits_from_result(res, m, method, confidence=0.95, log_base=10.0,
+                                     x_ranges=[(1.0, float(i)) for i in range(len(what))],
+                                     y_ranges=[None] * len(what), lam=lam)
+        buffer = io.BytesIO()
+        _dump(fits, buffer)
+        for back in (pickle.loads(pickle.dumps(fits)), pickle.loads(buffer.getvalue())):
+            for name, a, b in zip(what, fits, back):
+                assert _same_fields(a, b), name
+                assert (a.slope_gap_low is math.nan) == (b.slope_gap_low is math.nan)
+
+    def test_fits_of_other_shapes_pickle_as_dataclasses(self):
+        # internal consistency: numpy-float fields, 0-d moments, infinite gaps and
+        # bootstrap replicates come back as they were
+        import pickle
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fit = scaling.fit_line([1.0, 2.0, 4.0, 8.0, 16.0], [2.0, 3.1, 5.2, 8.8, 15.0])
+        fits = [fit, dataclasses.replace(fit, slope=np.float64(fit.slope)),
+                dataclasses.replace(fit, slope_gap_low=-math.inf, slope_gap_high=math.inf),
+                dataclasses.replace(fit, slope_replicates=np.array([0.5, 0.7]),
+                                    smearing_factor=1.1, x_range=(1.0, 16.0))]
+        for a, b in zip(fits, pickle.loads(pickle.dumps(fits))):
+            assert _same_fields(a, b)
+            assert type(a.moments.n) is type(b.moments.n)
 
 
 class TestSlopeTestsFor:

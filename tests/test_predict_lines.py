@@ -116,3 +116,66 @@ def test_saved_fits_equal_fit_to_dict():
         # the same values, types (3 is not 3.0 in results.json) and key order
         assert json.dumps(saved[key]) == json.dumps(want)
     assert any("slope_gap" in d for d in saved.values())
+
+
+def test_saved_fits_of_fits_from_arrays_equal_fit_to_dict():
+    # internal consistency: fits packaged from a vectorised result (numpy-scalar moments
+    # with the higher sums, as on the moments path), including a one-point group, an
+    # exact line, a constant x and a weak SMA slope, give the dicts of fit_to_dict
+    from scaling.render.wording import fit_note
+    from scaling.run.predictions import saved_fits_of
+    from scaling.stats.line_results import fit_to_dict, line_fits_from_result
+    from scaling.stats.lines import fit_moments
+    from scaling.stats.moments import group_moments
+    rng = np.random.default_rng(5)
+    X = np.concatenate([rng.normal(1, 0.5, 40), [0.3], [0.0, 1.0, 2.0, 3.0],
+                        [1.2, 1.2, 1.2], [0.0, 1.0, 2.0, 3.0]])
+    Y = np.concatenate([0.75 * X[:40] + rng.normal(0, 0.1, 40), [0.9], [0.1, 0.85, 1.6, 2.35],
+                        [0.1, 0.5, 0.2], [1.0, 0.0, 0.0, 1.0]])
+    labels = np.repeat(np.arange(5), [40, 1, 4, 3, 4])
+    m = group_moments(X, Y, labels, n_groups=5, higher=True)
+    fits, extra = {}, {}
+    for method in ("ols", "sma", "ma"):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            made = line_fits_from_result(fit_moments(m, method), m, method, confidence=0.95,
+                                         log_base=10.0, x_ranges=[(1.0, 2.0)] * 5,
+                                         y_ranges=[(3.0, float("nan"))] * 5)
+        for g, fit in enumerate(made):
+            key = ("group", str(g), method)
+            fits[key] = fit
+            extra[key] = {"smearing_factor": 1.0 + g / 7, "ratio_factor": float("inf")}
+    saved = saved_fits_of(fits, extra)
+    for key, fit in fits.items():
+        want = fit_to_dict(fit, smearing_factor=extra[key]["smearing_factor"],
+                           ratio_factor=extra[key]["ratio_factor"])
+        want.update({"scope": key[0], "group": key[1], "note": fit_note(fit)})
+        assert json.dumps(saved[key]) == json.dumps(want), key
+    assert list(saved) == list(fits)
+
+
+@pytest.mark.parametrize("partial", [False, True])
+def test_accuracy_columns_equal_the_row_by_row_reading(partial):
+    # internal consistency: the columns read in one pass equal extra.get(key, {}).get(c)
+    # row by row (fits without accuracy left NaN; a dict lacking a column too)
+    import pandas as pd
+
+    from scaling.run.predictions import add_accuracy_columns
+    from scaling.stats.schema import FIT_ACCURACY_COLUMNS
+    fits = pd.DataFrame({"scope": ["pooled", "group", "group", "group"],
+                         "group": ["", "a", "b", "c"], "method": ["ols"] * 4,
+                         "slope": [0.7, 0.8, np.nan, 0.6]})
+    extra = {("pooled", "", "ols"): {c: 1.0 + i for i, c in enumerate(FIT_ACCURACY_COLUMNS)},
+             ("group", "b", "ols"): {c: float("nan") for c in FIT_ACCURACY_COLUMNS},
+             ("group", "c", "ols"): {c: -2.5 * i for i, c in enumerate(FIT_ACCURACY_COLUMNS)}}
+    if partial:
+        del extra[("group", "c", "ols")]["ratio_factor"]
+    want = fits.copy()
+    for c in FIT_ACCURACY_COLUMNS:
+        want[c] = [extra.get(k, {}).get(c, np.nan)
+                   for k in zip(fits["scope"], fits["group"], fits["method"])]
+    got = add_accuracy_columns(fits, extra)
+    pd.testing.assert_frame_equal(got, want)
+    assert got.to_csv() == want.to_csv()
+    empty = add_accuracy_columns(fits.iloc[:0], extra)
+    assert list(empty.columns) == list(want.columns) and len(empty) == 0

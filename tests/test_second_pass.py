@@ -295,3 +295,54 @@ class TestSecondPassOnUnitMeans:
         assert a[["row", "label"]].values.tolist() == b[["row", "label"]].values.tolist()
         assert_allclose(a["cooks_distance"].to_numpy(float),
                         b["cooks_distance"].to_numpy(float), rtol=1e-9)
+
+
+def test_accuracy_columns_equal_the_fit_by_fit_loop():
+    # internal consistency: the accuracy and factor dicts read column-wise equal the plain
+    # loop over sets and methods (sets under 3 points and fits not made left out; NaN kept)
+    from types import SimpleNamespace
+
+    from scaling.run.second_pass import _ACCURACY, _accuracy
+    rng = np.random.default_rng(3)
+    keys = [("pooled", "")] + [("group", f"g{i}") for i in range(6)]
+    methods = ["ols", "sma", "ma"]
+    fields = {name: rng.normal(size=(7, 3)) for _, name in _ACCURACY}
+    fields["ratio"][2, 1] = np.nan
+    res = SimpleNamespace(n=np.array([40.0, 3, 2, 1, 0, 10, 5]), **fields)
+    all_fits = {(s, g, m): None for s, g in keys for m in methods}
+    del all_fits[("group", "g5", "sma")]
+    want = {}
+    for i, (scope, group) in enumerate(keys):
+        if res.n[i] < 3:
+            continue
+        for j, method in enumerate(methods):
+            if (scope, group, method) in all_fits:
+                want[(scope, group, method)] = {c: float(getattr(res, name)[i][j])
+                                                for c, name in _ACCURACY}
+    got = _accuracy(res, keys, methods, all_fits)
+    assert list(got) == list(want)
+    assert repr(got) == repr(want)
+    assert all(type(v) is float for d in got.values() for v in d.values())
+
+
+def test_the_collector_is_paused_in_the_pass_and_restored_after():
+    # internal consistency: the pass's pause leaves the collector as it found it, on
+    # error too
+    import gc
+
+    from scaling.run.second_pass import _collector_paused
+    assert gc.isenabled()
+    with _collector_paused():
+        assert not gc.isenabled()
+    assert gc.isenabled()
+    with pytest.raises(ZeroDivisionError):
+        with _collector_paused():
+            1 / 0
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        with _collector_paused():
+            pass
+        assert not gc.isenabled()
+    finally:
+        gc.enable()

@@ -25,6 +25,7 @@ range_ratio
 from __future__ import annotations
 
 import math
+import operator
 import warnings
 from dataclasses import dataclass
 
@@ -356,36 +357,58 @@ _SCALARS = ("slope", "slope_se", "intercept", "intercept_se", "r", "r2", "resid_
 _MOMENTS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")
 
 
+def _moment_column(values: list) -> list:
+    """The moments' field of each fit as :meth:`~scaling.stats.moments.Moments.to_dict`
+    then :func:`_clean` give it; numpy float scalars in one array pass."""
+    if all(type(v) is np.float64 or type(v) is float for v in values):
+        return _column(values)
+    return _column([np.asarray(v).tolist() for v in values])
+
+
+#: What :func:`_saved_dicts` reads of each fit, in one C-level call per fit.
+_READ = operator.attrgetter(
+    *_SCALARS, "slope_ci.low", "slope_ci.high", "intercept_ci.low", "intercept_ci.high",
+    *(f"moments.{name}" for name in _MOMENTS))
+
+
+#: The rest of a fit :func:`_saved_dicts` reads, as it is.
+_OTHERS = operator.attrgetter("method", "n", "log_base", "x_range", "y_range", "note", "lam",
+                              "interval_method", "slope_gap_low", "slope_gap_high")
+
+
 def _saved_dicts(fits: list, smearing: list, ratio: list) -> list:
     """``fit_to_dict(fit, smearing_factor=s, ratio_factor=r)`` of each fit, the same
     dicts (a test holds them equal, types and key order included), built a field
     at a time instead of by a recursive cleaning of each fit's dict."""
-    col = {name: _column([getattr(f, name) for f in fits]) for name in _SCALARS}
-    ci = {name: (_column([getattr(f, name).low for f in fits]),
-                 _column([getattr(f, name).high for f in fits]))
-          for name in ("slope_ci", "intercept_ci")}
-    mom = {name: _column([np.asarray(getattr(f.moments, name)).tolist() for f in fits])
-           for name in _MOMENTS}
+    read = list(zip(*map(_READ, fits))) or [()] * (len(_SCALARS) + 4 + len(_MOMENTS))
+    k = len(_SCALARS)
+    col = {name: _column(list(read[i])) for i, name in enumerate(_SCALARS)}
+    ci = {"slope_ci": (_column(list(read[k])), _column(list(read[k + 1]))),
+          "intercept_ci": (_column(list(read[k + 2])), _column(list(read[k + 3])))}
+    mom = {name: _moment_column(list(read[k + 4 + i])) for i, name in enumerate(_MOMENTS)}
     factors = _column(smearing), _column(ratio)
     labels: dict = {}
     out = []
-    for i, f in enumerate(fits):
-        if f.log_base not in labels:
-            labels[f.log_base] = base_label(f.log_base)
-        d = {"format": DICT_FORMAT, "method": f.method, "n": int(f.n),
-             "slope": col["slope"][i], "slope_ci": [ci["slope_ci"][0][i], ci["slope_ci"][1][i]],
-             "slope_se": col["slope_se"][i], "intercept": col["intercept"][i],
-             "intercept_ci": [ci["intercept_ci"][0][i], ci["intercept_ci"][1][i]],
-             "intercept_se": col["intercept_se"][i], "r": col["r"][i], "r2": col["r2"][i],
-             "resid_sd": col["resid_sd"][i], "df": col["df"][i],
-             "log_base": labels[f.log_base], "confidence": col["confidence"][i],
-             "moments": {name: mom[name][i] for name in _MOMENTS},
-             "x_range": None if f.x_range is None else [_clean(float(v)) for v in f.x_range],
-             "y_range": None if f.y_range is None else [_clean(float(v)) for v in f.y_range],
-             "note": f.note, "lam": _clean(f.lam), "interval_method": f.interval_method,
-             "smearing_factor": factors[0][i], "ratio_factor": factors[1][i]}
-        if np.isfinite(f.slope_gap_low) and np.isfinite(f.slope_gap_high):
-            d["slope_gap"] = [_clean(f.slope_gap_low), _clean(f.slope_gap_high)]
+    columns = (map(_OTHERS, fits), *(col[name] for name in _SCALARS), *ci["slope_ci"],
+               *ci["intercept_ci"], zip(*(mom[name] for name in _MOMENTS)), *factors)
+    for ((method, n, log_base, x_range, y_range, note, lam, how, gap_low, gap_high),
+         slope, slope_se, intercept, intercept_se, r, r2, resid_sd, df, confidence,
+         slope_low, slope_high, intercept_low, intercept_high, moments, smearing_factor,
+         ratio_factor) in zip(*columns):
+        if log_base not in labels:
+            labels[log_base] = base_label(log_base)
+        d = {"format": DICT_FORMAT, "method": method, "n": int(n),
+             "slope": slope, "slope_ci": [slope_low, slope_high], "slope_se": slope_se,
+             "intercept": intercept, "intercept_ci": [intercept_low, intercept_high],
+             "intercept_se": intercept_se, "r": r, "r2": r2, "resid_sd": resid_sd, "df": df,
+             "log_base": labels[log_base], "confidence": confidence,
+             "moments": dict(zip(_MOMENTS, moments)),
+             "x_range": None if x_range is None else [_clean(float(v)) for v in x_range],
+             "y_range": None if y_range is None else [_clean(float(v)) for v in y_range],
+             "note": note, "lam": _clean(lam), "interval_method": how,
+             "smearing_factor": smearing_factor, "ratio_factor": ratio_factor}
+        if math.isfinite(gap_low) and math.isfinite(gap_high):
+            d["slope_gap"] = [_clean(gap_low), _clean(gap_high)]
         out.append(d)
     return out
 
@@ -397,8 +420,15 @@ def row_keys(table: pd.DataFrame):
 
 def add_accuracy_columns(fits: pd.DataFrame, extra: dict) -> pd.DataFrame:
     """fits.csv with the accuracy and correction-factor columns (NaN where not computed)."""
-    rows = [extra.get(key, {}) for key in row_keys(fits)]
-    values = {c: [row.get(c, np.nan) for row in rows] for c in FIT_ACCURACY_COLUMNS}
+    blank = dict.fromkeys(FIT_ACCURACY_COLUMNS, np.nan)
+    rows = [extra.get(key, blank) for key in row_keys(fits)]
+    try:   # every row with every column (as the passes make them): one C-level read each
+        read = list(zip(*map(operator.itemgetter(*FIT_ACCURACY_COLUMNS), rows)))
+        values = {c: list(v) for c, v in zip(FIT_ACCURACY_COLUMNS, read)} if rows else None
+    except KeyError:
+        values = None
+    if values is None:
+        values = {c: [row.get(c, np.nan) for row in rows] for c in FIT_ACCURACY_COLUMNS}
     out = fits.copy()
     for c in FIT_ACCURACY_COLUMNS:
         out[c] = values[c]

@@ -36,8 +36,10 @@ The plain-language notes are small functions here (to move into
 
 from __future__ import annotations
 
+import gc
 import math
 import warnings
+from contextlib import contextmanager
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -479,20 +481,7 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         for (scope, group), new, fit in zip(keys, keep, made):
             if new:
                 all_fits[(scope, group, method)] = fit
-    extra = {}
-    columns = {c: getattr(res, name).tolist() for c, name in
-               (("see", "see"), ("percent_see", "percent_see"), ("percent_pe", "percent_pe"),
-                ("smearing_factor", "smearing"), ("parametric_factor", "parametric"),
-                ("ratio_factor", "ratio"))}
-    set_n = res.n.tolist()
-    for i, (scope, group) in enumerate(keys):
-        if set_n[i] < 3:
-            continue
-        for j, method in enumerate(methods):
-            key = (scope, group, method)
-            if key not in all_fits:
-                continue
-            extra[key] = {c: float(v[i][j]) for c, v in columns.items()}
+    extra = _accuracy(res, keys, methods, all_fits)
     if point_sets:   # the line through the group means: its points are in memory
         held = {k: f for k, f in all_fits.items() if (k[0], k[1]) in point_sets}
         extra.update(accuracy_and_factors(held, point_sets)[1])
@@ -525,6 +514,31 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     return SecondPass(fits=predicted.fits, saved_fits=predicted.saved_fits, tables=tables,
                       checks=res, line_fits=all_fits, messages=tuple(messages),
                       notes=tuple(notes))
+
+
+#: The accuracy and factor columns of fits.csv and the :class:`StreamedChecks` field of each.
+_ACCURACY = (("see", "see"), ("percent_see", "percent_see"), ("percent_pe", "percent_pe"),
+             ("smearing_factor", "smearing"), ("parametric_factor", "parametric"),
+             ("ratio_factor", "ratio"))
+
+
+def _accuracy(res: StreamedChecks, keys: list, methods: list, all_fits: dict) -> dict:
+    """``(scope, group, method) -> {column: float}`` of the accuracy and factor columns,
+    for every fit of ``all_fits`` whose set has at least 3 points; set by set, method by
+    method (the order of the dict), each column read out of its array once."""
+    names = [c for c, _ in _ACCURACY]
+    values = [np.asarray(getattr(res, name), dtype=float) for _, name in _ACCURACY]
+    big = np.flatnonzero(~(np.asarray(res.n) < 3)).tolist()
+    rows = {j: list(zip(*(v[big, j].tolist() for v in values)))
+            for j in range(len(methods))}
+    extra = {}
+    for at, i in enumerate(big):
+        scope, group = keys[i]
+        for j, method in enumerate(methods):
+            key = (scope, group, method)
+            if key in all_fits:
+                extra[key] = dict(zip(names, rows[j][at]))
+    return extra
 
 
 #: Figure kinds that draw the run's points.
@@ -822,14 +836,30 @@ def _points_to_check(fits: pd.DataFrame, all_fits: dict, preds, res: StreamedChe
     return table
 
 
+@contextmanager
+def _collector_paused():
+    """Python's cyclic garbage collector paused (as it was after): the pass makes fit
+    objects and dicts by the ten thousand, none in a reference cycle, and each burst of
+    new objects would otherwise set off collections that walk every live object."""
+    was = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was:
+            gc.enable()
+
+
 def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None,
                      spill=None):
     """``result`` (a RunResult of the moments path) with the second pass's tables;
     ``point_sets``: points held in memory (the group means), measured as in memory;
     ``spill``: the first pass's rows on disk, read instead of the file and then deleted."""
     try:
-        extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units, base=base,
-                            other_tables=result.tables, point_sets=point_sets, spill=spill)
+        with _collector_paused():
+            extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units,
+                                base=base, other_tables=result.tables,
+                                point_sets=point_sets, spill=spill)
     finally:
         if spill is not None:
             spill.close()

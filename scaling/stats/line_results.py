@@ -14,6 +14,7 @@ made in :mod:`scaling.render`.
 from __future__ import annotations
 
 import math
+import operator
 import warnings
 from dataclasses import dataclass, field
 
@@ -27,7 +28,7 @@ from .fit_rows import fit_values
 from .lines import (METHOD_INFO, METHODS, exact_fit, exponent_value, fit_moments, get_method,
                     ma_minor_side, slope_test_statistic, validate_xy)
 from .logscale import base_label, parse_log_base, to_log
-from .moments import Moments, moments as _moments
+from .moments import HIGHER_KEYS, Moments, moments as _moments
 from .predictions import inverse_predict as _inverse_predict, predict as _predict
 from .schema import EXACT_NOTE, check_confidence, method_label
 
@@ -376,6 +377,23 @@ class LineFit:
         from ..render.plots import plot_fit
         return plot_fit(self, ax=ax, **style)
 
+    def __reduce_ex__(self, protocol):
+        # Thousands of fits travel to the figure process in a run of many groups: a fit
+        # whose numbers are Python floats and whose moments numpy floats goes as one
+        # bytes object of them (exact) with its other fields; any other as a dataclass.
+        floats = _FLOATS(self)
+        mom = self.moments
+        if (type(mom) is Moments and type(self.slope_ci) is ConfidenceInterval
+                and type(self.intercept_ci) is ConfidenceInterval
+                and set(map(type, floats)) == {float}):
+            values = _MOMENT_VALUES(mom)
+            if values[6] is None and values[7] is None and values[8] is None:
+                values = values[:6]
+            if set(map(type, values)) == {np.float64}:
+                return (_unpacked_line_fit, (np.array(floats + values).tobytes(),
+                                             _OTHERS(self)))
+        return object.__reduce_ex__(self, protocol)
+
     def summary(self) -> str:
         """A few lines of text describing the fit."""
         from ..render.summaries import line_fit_summary
@@ -670,22 +688,24 @@ def line_fits_from_result(res: dict, m: Moments, method: str, *, confidence: flo
     cols = {k: np.asarray(res[k], dtype=float).reshape(-1).tolist() for k in
             ("slope", "slope_low", "slope_high", "slope_se", "intercept", "intercept_low",
              "intercept_high", "intercept_se", "r", "r2", "resid_sd", "df")}
-    gaps = [np.broadcast_to(np.asarray(res.get(k, math.nan), dtype=float), (size,)).tolist()
+    gaps = [_gap_column(np.broadcast_to(np.asarray(res.get(k, math.nan), dtype=float),
+                                        (size,)))
             for k in ("slope_gap_low", "slope_gap_high")]
-    notes = np.asarray(res["note"], dtype=object).reshape(-1)
+    notes = list(map(str, np.asarray(res["note"], dtype=object).reshape(-1)))
     # Iterating an array gives numpy scalars, as indexing it one entry at a time does.
-    parts = (zip(*(list(getattr(m, k)) for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")))
-             if not m.has_higher else None)
+    names = _MOMENT_KEYS + (HIGHER_KEYS if m.has_higher else ())
+    parts = zip(*(list(getattr(m, k)) for k in names))
+    keep = keep.tolist()
     out = []
     for i in range(size):
-        mi = next(parts) if parts is not None else None
+        mi = next(parts)
         if not keep[i]:
             out.append(None)
             continue
-        if mi is None:
-            mi = m[i]
-        else:
-            mi = Moments(n=mi[0], mean_x=mi[1], mean_y=mi[2], sxx=mi[3], syy=mi[4], sxy=mi[5])
+        mi = (Moments(n=mi[0], mean_x=mi[1], mean_y=mi[2], sxx=mi[3], syy=mi[4], sxy=mi[5])
+              if len(mi) == 6 else
+              Moments(n=mi[0], mean_x=mi[1], mean_y=mi[2], sxx=mi[3], syy=mi[4], sxy=mi[5],
+                      sxxx=mi[6], sxxxx=mi[7], sxxy=mi[8]))
         out.append(LineFit(
             method=method, n=int(mi.n),
             slope=cols["slope"][i],
@@ -698,10 +718,21 @@ def line_fits_from_result(res: dict, m: Moments, method: str, *, confidence: flo
             df=cols["df"][i], log_base=log_base, confidence=confidence, moments=mi,
             x_range=None if x_ranges is None else x_ranges[i],
             y_range=None if y_ranges is None else y_ranges[i],
-            note=str(notes[i]), lam=lam,
-            slope_gap_low=_gap_value(gaps[0][i]), slope_gap_high=_gap_value(gaps[1][i]),
+            note=notes[i], lam=lam, slope_gap_low=gaps[0][i], slope_gap_high=gaps[1][i],
         ))
     return out
+
+
+def _gap_column(values: np.ndarray) -> list:
+    """:func:`_gap_value` of each entry of a float array, in one array pass."""
+    out = values.tolist()
+    for i in np.flatnonzero(~np.isfinite(values)).tolist():
+        out[i] = math.nan
+    return out
+
+
+#: The moments every fit carries (the higher sums come after them when carried).
+_MOMENT_KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")
 
 
 def slope_tests_for(fits, exponent, *, hypothesis: str = "") -> list:
@@ -759,6 +790,46 @@ def slope_tests_for(fits, exponent, *, hypothesis: str = "") -> list:
         if out[i] is None:
             out[i] = fit.test_slope(exponent, hypothesis=hypothesis)
     return out
+
+
+#: What :meth:`LineFit.__reduce_ex__` packs as floats, and the rest it sends as is.
+_FLOATS = operator.attrgetter("slope", "slope_ci.low", "slope_ci.high", "slope_se",
+                              "intercept", "intercept_ci.low", "intercept_ci.high",
+                              "intercept_se", "r", "r2", "resid_sd", "df", "confidence",
+                              "slope_gap_low", "slope_gap_high")
+_OTHERS = operator.attrgetter("method", "n", "log_base", "x_range", "y_range", "note", "lam",
+                              "interval_method", "slope_replicates", "log_data",
+                              "smearing_factor", "ratio_factor")
+_MOMENT_VALUES = operator.attrgetter(*_MOMENT_KEYS, *HIGHER_KEYS)
+
+
+def _unpacked_line_fit(packed: bytes, others: tuple) -> LineFit:
+    """The fit packed by :meth:`LineFit.__reduce_ex__`."""
+    values = np.frombuffer(packed, dtype=np.float64)
+    (slope, slope_low, slope_high, slope_se, intercept, intercept_low, intercept_high,
+     intercept_se, r, r2, resid_sd, df, confidence, gap_low,
+     gap_high) = values[:15].tolist()
+    mom = values[15:]          # iterating gives numpy scalars, as the fit held
+    if mom.size == 6:
+        n, mean_x, mean_y, sxx, syy, sxy = mom
+        moments = Moments(n=n, mean_x=mean_x, mean_y=mean_y, sxx=sxx, syy=syy, sxy=sxy)
+    else:
+        n, mean_x, mean_y, sxx, syy, sxy, sxxx, sxxxx, sxxy = mom
+        moments = Moments(n=n, mean_x=mean_x, mean_y=mean_y, sxx=sxx, syy=syy, sxy=sxy,
+                          sxxx=sxxx, sxxxx=sxxxx, sxxy=sxxy)
+    (method, n, log_base, x_range, y_range, note, lam, interval_method, replicates,
+     log_data, smearing_factor, ratio_factor) = others
+    return LineFit(
+        method=method, n=n, slope=slope, slope_ci=ConfidenceInterval(slope_low, slope_high),
+        slope_se=slope_se, intercept=intercept,
+        intercept_ci=ConfidenceInterval(intercept_low, intercept_high),
+        intercept_se=intercept_se, r=r, r2=r2, resid_sd=resid_sd, df=df, log_base=log_base,
+        confidence=confidence, moments=moments, x_range=x_range, y_range=y_range, note=note,
+        lam=lam, interval_method=interval_method,
+        slope_gap_low=gap_low if gap_low == gap_low else math.nan,   # NaN: the one nan
+        slope_gap_high=gap_high if gap_high == gap_high else math.nan,
+        slope_replicates=replicates, log_data=log_data, smearing_factor=smearing_factor,
+        ratio_factor=ratio_factor)
 
 
 def _gap_value(v) -> float:
