@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import copyreg
 import dataclasses
+import gc
 import multiprocessing
 import operator
 import os
@@ -449,9 +450,14 @@ def _serve(conn, parent_end, job_read: int, job_write: int) -> None:
         if job is None:
             return
         try:
-            # the run comes on its own pipe, unpickled as it arrives: no copy of it as bytes
-            with os.fdopen(job_read, "rb", closefd=False) as fh:
-                result, folder = pickle.load(fh)
+            # the run comes on its own pipe, unpickled as it arrives: no copy of it as bytes;
+            # no garbage collection while its thousands of fit objects are built
+            gc.disable()
+            try:
+                with os.fdopen(job_read, "rb", closefd=False) as fh:
+                    result, folder = pickle.load(fh)
+            finally:
+                gc.enable()
         except Exception:  # noqa: BLE001 -- the parent stopped sending: it draws them
             _reply(conn, None)
             return
