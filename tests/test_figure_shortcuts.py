@@ -171,3 +171,62 @@ class TestEquationCorner:
         calls.clear()
         assert png() == short
         assert n_short < len(calls)   # the shortcut saved layouts on the demo
+
+
+class TestTicksFoundOnce:
+    @staticmethod
+    def _saved(kind: str, fmt: str) -> bytes:
+        from scaling.render.figures import make_figure
+        buf = io.BytesIO()
+        fs.save_figure(make_figure(demo(), kind), buf, fmt, 100)
+        return buf.getvalue()
+
+    @pytest.mark.parametrize("kind", ["scaling", "natural", "residuals", "exponents"])
+    def test_same_files_as_finding_the_ticks_at_every_measurement(self, kind, monkeypatch):
+        import contextlib
+        short = {fmt: self._saved(kind, fmt) for fmt in ("png", "pdf", "svg")}
+        monkeypatch.setattr(fs, "ticks_found_once", lambda fig: contextlib.nullcontext())
+        for fmt, data in short.items():
+            assert self._saved(kind, fmt) == data, fmt
+
+    def test_ticks_are_found_fewer_times_and_the_axes_given_back(self, monkeypatch):
+        import contextlib
+        from matplotlib.axis import Axis
+        from scaling.render.figures import make_figure
+        calls = []
+        real = Axis._update_ticks
+        monkeypatch.setattr(Axis, "_update_ticks", lambda self: (calls.append(1), real(self))[1])
+        fig = make_figure(demo(), "residuals")
+        fs.save_figure(fig, io.BytesIO(), "png", 60)
+        n_short = len(calls)
+        assert all("_update_ticks" not in vars(ax.xaxis) for ax in fig.axes)
+        calls.clear()
+        monkeypatch.setattr(fs, "ticks_found_once", lambda fig: contextlib.nullcontext())
+        fs.save_figure(make_figure(demo(), "residuals"), io.BytesIO(), "png", 60)
+        assert 2 * n_short < len(calls)
+
+    def test_a_changed_view_gets_its_own_ticks(self):
+        fig = fs.new_figure("single", 0.8)
+        ax = fig.add_subplot()
+        ax.plot([0, 10], [0, 1])
+        with fs.ticks_found_once(fig):
+            first = [t.get_loc() for t in ax.xaxis._update_ticks()]
+            ax.set_xlim(0, 1000)
+            second = [t.get_loc() for t in ax.xaxis._update_ticks()]
+        assert max(first) <= 10 < max(second)   # internal consistency: the limits set
+
+
+class TestPngCompression:
+    @pytest.mark.parametrize("kind", ["scaling", "residuals"])
+    def test_same_pixels_and_resolution_as_the_default_level(self, kind, monkeypatch):
+        from PIL import Image
+        from scaling.render.figures import make_figure
+        fast = io.BytesIO()
+        fs.save_figure(make_figure(demo(), kind), fast, "png", 120)
+        monkeypatch.setattr(fs, "PNG_COMPRESSION", 6)   # zlib's default, PIL's too
+        default = io.BytesIO()
+        fs.save_figure(make_figure(demo(), kind), default, "png", 120)
+        a, b = Image.open(fast), Image.open(default)
+        assert fast.getvalue() != default.getvalue()   # the level was applied
+        assert (a.mode, a.size, a.info.get("dpi")) == (b.mode, b.size, b.info.get("dpi"))
+        np.testing.assert_array_equal(np.asarray(a), np.asarray(b))

@@ -76,7 +76,7 @@ def test_worker_run_writes_the_same_files_as_one_process(tmp_path, monkeypatch, 
     started = []
     real_start = fw.FigureWorker.__init__
     monkeypatch.setattr(fw.FigureWorker, "__init__",
-                        lambda self: (started.append(1), real_start(self))[1])
+                        lambda self, **kw: (started.append(1), real_start(self, **kw))[1])
     run_config(small_config, out=tmp_path / "many", quiet=True)
     assert started == [1]
     monkeypatch.setenv("SCALING_ONE_PROCESS", "1")
@@ -138,6 +138,28 @@ def test_runs_without_figures_start_no_worker(write_config, small_csv):
     cfg = load_config(write_config(
         f"data: {{file: {small_csv}, x: mass, y: rate}}\nfigures: {{kinds: []}}\n"))
     assert fw.start_worker(cfg) is None
+
+
+@pytest.mark.parametrize("formats, pdf", [("[png]", False), ("[png, pdf]", True)])
+def test_the_worker_imports_the_pdf_writer_only_for_runs_writing_pdfs(
+        formats, pdf, write_config, small_csv, monkeypatch):
+    asked = []
+    monkeypatch.setattr(fw, "FigureWorker", lambda **kw: asked.append(kw) or "worker")
+    monkeypatch.setattr(fw, "one_process", lambda: False)
+    cfg = load_config(write_config(
+        f"data: {{file: {small_csv}, x: mass, y: rate}}\nfigures: {{formats: {formats}}}\n"))
+    assert fw.start_worker(cfg) == "worker" and asked == [{"pdf": pdf}]
+
+
+@pytest.mark.parametrize("pdf", [False, True])
+def test_warming_up_without_pdfs_leaves_the_pdf_writer_unimported(pdf):
+    # common practice, no source: a fresh interpreter shows which modules were loaded
+    code = ("import sys; from scaling.render.figure_worker import _warm_up; "
+            f"_warm_up({pdf}); print('matplotlib.backends.backend_pdf' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         cwd=ROOT)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip().splitlines()[-1] == str(pdf)
 
 
 def test_split_balances_the_drawing_cost():

@@ -145,7 +145,7 @@ def test_figures_started_before_the_diagnostics_equal_those_drawn_after(
     _record_order(monkeypatch, order)
     real_init = fw.FigureWorker.__init__
     monkeypatch.setattr(fw.FigureWorker, "__init__",
-                        lambda self: (workers.append(self), real_init(self))[1])
+                        lambda self, **kw: (workers.append(self), real_init(self, **kw))[1])
     pipeline.run_config(config, out=tmp_path / "out", quiet=True)
     assert order == ["figures started", "check_run", "diagnostics_stage", "resampling_stage"]
     assert len(workers) == 1 and workers[0]._proc is None   # it drew them and was joined
@@ -171,7 +171,7 @@ def test_a_worker_killed_mid_run_still_gives_every_figure(tmp_path, monkeypatch,
     workers = []
     real_init = fw.FigureWorker.__init__
     monkeypatch.setattr(fw.FigureWorker, "__init__",
-                        lambda self: (workers.append(self), real_init(self))[1])
+                        lambda self, **kw: (workers.append(self), real_init(self, **kw))[1])
     log = tmp_path / "shares.log"
     _shares_logged(monkeypatch, log)
     real_check = pipeline.check_run
@@ -194,7 +194,7 @@ def test_a_run_failing_after_the_figures_started_leaves_no_folder_and_no_process
     workers = []
     real_init = fw.FigureWorker.__init__
     monkeypatch.setattr(fw.FigureWorker, "__init__",
-                        lambda self: (workers.append(self), real_init(self))[1])
+                        lambda self, **kw: (workers.append(self), real_init(self, **kw))[1])
     log = tmp_path / "shares.log"
     _shares_logged(monkeypatch, log)
 

@@ -127,7 +127,7 @@ def test_report_images_drawn_elsewhere_equal_those_drawn_here(tmp_path, monkeypa
     started = []
     real_start = fw.FigureWorker.__init__
     monkeypatch.setattr(fw.FigureWorker, "__init__",
-                        lambda self: (started.append(1), real_start(self))[1])
+                        lambda self, **kw: (started.append(1), real_start(self, **kw))[1])
     run_config(config, out=tmp_path / "out", quiet=True)
     assert started == [1]   # the worker started with the run drew them
 

@@ -14,6 +14,7 @@ SVG text left as ``<text>``).  Nothing here uses pyplot state.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import io
 import math
@@ -390,7 +391,7 @@ def save_figure(fig: Figure, target, fmt: str, dpi: int) -> None:
     # No creation dates in the files, so reruns give identical figures.
     meta = {"png": {"Software": None}, "pdf": {"CreationDate": None, "Producer": None},
             "svg": {"Date": None}}.get(fmt, {})
-    with matplotlib.rc_context(STYLE):
+    with matplotlib.rc_context(STYLE), ticks_found_once(fig):
         engine = fig.get_layout_engine()
         laid_out = (isinstance(engine, PlaceHolderLayoutEngine)   # fixed by an earlier save
                     or (fmt == "png" and _lay_out(fig, engine, dpi)))
@@ -408,10 +409,16 @@ def save_figure(fig: Figure, target, fmt: str, dpi: int) -> None:
             fig.set_layout_engine(engine)
 
 
+#: zlib level of the PNGs written here: the same pixels as the default (6) in files about
+#: 2 % larger, compressed in two thirds of the time (a figure's flat colours leave the
+#: higher levels little to find).
+PNG_COMPRESSION = 3
+
+
 def _save(fig: Figure, target, fmt: str, dpi: int, meta: dict) -> None:
     """``fig.savefig``; a PNG whose every pixel is opaque (a figure on its white ground)
     is written in RGB, not RGBA: the same picture, a tenth smaller, a third faster to
-    compress.  Its file otherwise has what savefig writes (resolution; no text chunk)."""
+    compress (at :data:`PNG_COMPRESSION`).  Its file otherwise has what savefig writes (resolution; no text chunk)."""
     if fmt != "png" or matplotlib.rcParams["savefig.bbox"] == "tight":   # cropped: savefig
         fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
         return
@@ -429,7 +436,44 @@ def _save(fig: Figure, target, fmt: str, dpi: int, meta: dict) -> None:
     for key, value in meta.items():
         if value is not None:
             info.add_text(key, value)
-    image.save(target, format="png", dpi=(dpi, dpi), pnginfo=info)
+    image.save(target, format="png", dpi=(dpi, dpi), pnginfo=info,
+               compress_level=PNG_COMPRESSION)
+
+
+@contextlib.contextmanager
+def ticks_found_once(fig: Figure):
+    """Within this block each axis of ``fig`` finds its ticks (locations, labels, those in
+    view) once per view interval and axes size, not again at every measurement: a save
+    asks for them about fifteen times per axis (the layout's two passes measure the
+    tick labels, spines, axis labels and titles; the draw once more), each time
+    running the locator, the formatter and a scale transform per tick.  The ticks
+    found depend only on what the key holds, so the figure drawn is the same."""
+    axes = [axis for ax in fig.axes for axis in (ax.xaxis, ax.yaxis)
+            if "_update_ticks" not in vars(axis)]
+    for axis in axes:
+        axis._update_ticks = _tick_memo(axis, axis._update_ticks)
+    try:
+        yield
+    finally:
+        for axis in axes:
+            vars(axis).pop("_update_ticks", None)
+
+
+def _tick_memo(axis, update):
+    """``axis._update_ticks`` remembered per state of everything it reads."""
+    found: dict = {}
+
+    def remembered():
+        key = (tuple(axis.get_view_interval()), axis.axes.bbox.bounds, id(axis._scale),
+               id(axis.major.locator), id(axis.major.formatter), id(axis.minor.locator),
+               id(axis.minor.formatter), id(vars(axis).get("majorTicks")),
+               id(vars(axis).get("minorTicks")), repr(axis._major_tick_kw),
+               repr(axis._minor_tick_kw))
+        ticks = found.get(key)
+        if ticks is None:
+            ticks = found[key] = update()
+        return list(ticks)
+    return remembered
 
 
 #: ``set_layout_engine(None)`` falls back on these settings: off, so it leaves no engine.

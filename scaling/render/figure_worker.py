@@ -410,11 +410,13 @@ def start_figures(result, folder: Path, worker: "FigureWorker | None" = None) ->
     return _start_here(view, folder, draw_here=False)
 
 
-def _warm_up() -> None:
-    """Import the drawing stack and lay out text once, so fonts are loaded."""
+def _warm_up(pdf: bool = True) -> None:
+    """Import the drawing stack and lay out text once, so fonts are loaded; ``pdf``: the
+    PDF writer too (a tenth of a second of imports a run without PDFs never uses)."""
     import matplotlib
     from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.backends import backend_pdf  # noqa: F401 -- the PDF writer, ahead of use
+    if pdf:
+        from matplotlib.backends import backend_pdf  # noqa: F401 -- ahead of use
     from matplotlib.figure import Figure
     from . import figures  # noqa: F401 -- the figure modules, ahead of use
     from .figure_style import STYLE
@@ -433,14 +435,14 @@ def _reply(conn, answer) -> None:
         pass
 
 
-def _serve(conn, parent_end, job_read: int, job_write: int) -> None:
+def _serve(conn, parent_end, job_read: int, job_write: int, pdf: bool = True) -> None:
     """The worker: get ready, wait for one run, draw it, answer, exit."""
     signal.signal(signal.SIGTERM, _end_shares)   # stop(): its drawing processes end too
     parent_end.close()   # else the worker would never see the parent go away
     os.close(job_write)
     try:
         try:
-            _warm_up()
+            _warm_up(pdf)
         except Exception:  # noqa: BLE001 -- drawing will then fail or succeed on its own
             pass
         try:
@@ -472,16 +474,17 @@ def _serve(conn, parent_end, job_read: int, job_write: int) -> None:
 
 
 class FigureWorker:
-    """Handle on a forked figure process; see :func:`start_worker`."""
+    """Handle on a forked figure process; see :func:`start_worker`.  ``pdf``: the process
+    imports the PDF writer while it waits (the run writes PDFs)."""
 
-    def __init__(self) -> None:
+    def __init__(self, pdf: bool = True) -> None:
         # multiprocessing flushes stdout/stderr before it forks, so nothing is printed twice
         ctx = multiprocessing.get_context("fork")
         self._conn, child_end = ctx.Pipe()
         job_read, self._job = os.pipe()
         try:
             self._proc = ctx.Process(target=_serve, args=(child_end, self._conn, job_read,
-                                                          self._job), daemon=True)
+                                                          self._job, pdf), daemon=True)
             self._proc.start()
         finally:
             os.close(job_read)
@@ -568,6 +571,6 @@ def start_worker(config) -> FigureWorker | None:
     if not fig.kinds or one_process():   # with no format, the report's PNGs are drawn
         return None
     try:
-        return FigureWorker()
+        return FigureWorker(pdf="pdf" in fig.formats)
     except Exception:  # noqa: BLE001 -- no fork here: draw in the calling process
         return None
