@@ -214,19 +214,3 @@ class TestTicksFoundOnce:
             ax.set_xlim(0, 1000)
             second = [t.get_loc() for t in ax.xaxis._update_ticks()]
         assert max(first) <= 10 < max(second)   # internal consistency: the limits set
-
-
-class TestPngCompression:
-    @pytest.mark.parametrize("kind", ["scaling", "residuals"])
-    def test_same_pixels_and_resolution_as_the_default_level(self, kind, monkeypatch):
-        from PIL import Image
-        from scaling.render.figures import make_figure
-        fast = io.BytesIO()
-        fs.save_figure(make_figure(demo(), kind), fast, "png", 120)
-        monkeypatch.setattr(fs, "PNG_COMPRESSION", 6)   # zlib's default, PIL's too
-        default = io.BytesIO()
-        fs.save_figure(make_figure(demo(), kind), default, "png", 120)
-        a, b = Image.open(fast), Image.open(default)
-        assert fast.getvalue() != default.getvalue()   # the level was applied
-        assert (a.mode, a.size, a.info.get("dpi")) == (b.mode, b.size, b.info.get("dpi"))
-        np.testing.assert_array_equal(np.asarray(a), np.asarray(b))
