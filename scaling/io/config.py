@@ -863,15 +863,10 @@ def _build(raw, base_dir: Path, source) -> Config:
     )
 
 
-class _ConfigLoader(yaml.SafeLoader):
-    """YAML's safe loader that also reads ``1e-9`` and ``2E3`` as numbers: YAML 1.1 (PyYAML)
-    wants a dot in a float (``1.0e-9``), YAML 1.2 and users do not."""
-
-
-_ConfigLoader.add_implicit_resolver(
-    "tag:yaml.org,2002:float",
-    re.compile(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9_]+)[eE][-+]?[0-9]+$"),
-    list("-+0123456789."))
+# the safe loader, reading 1e-9 as a number (as YAML 1.2 does; PyYAML wants a dot: 1.0e-9)
+_ConfigLoader = type("_ConfigLoader", (yaml.SafeLoader,), {})
+_ConfigLoader.add_implicit_resolver("tag:yaml.org,2002:float", re.compile(
+    r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9_]+)[eE][-+]?[0-9]+$"), list("-+0123456789."))
 
 
 def load_config(path: str | Path) -> Config:
