@@ -197,6 +197,11 @@ class TestFiguresOfBothRoads:
         moments = _run(small, large=True)
         assert not [w for w in moments.warnings if "not drawn" in w or "Figures" in w]
 
+    def test_picked_points_stay_out_of_the_runs_repr(self, small):
+        moments = _run(small, large=True)
+        assert DRAWN_TABLE in moments.tables and DRAWN_TABLE not in repr(moments)
+        assert "group_means" in repr(moments)
+
 
 class TestCountsUnchanged:
     def test_results_summary_and_files_count_every_point(self, large, tmp_path):

@@ -123,7 +123,8 @@ class RunResult:
 
     def __repr__(self) -> str:
         return short_repr(self, {"title": self.config.title, "fits": len(self.fits),
-                                 "tables": tuple(self.tables),
+                                 # a leading "_": internal (the figures' picked points)
+                                 "tables": tuple(k for k in self.tables if not k.startswith("_")),
                                  "out_dir": None if self.out_dir is None else str(self.out_dir)})
 
     def _repr_html_(self) -> str:
