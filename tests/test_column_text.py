@@ -155,6 +155,52 @@ class TestJsonTables:
         assert output._json_part("saved_fits", output._Plain(items)) == reference
 
 
+def _saved_fit(i: int, value: float) -> dict:
+    """A dict shaped as a saved fit, with ``value`` in its number fields."""
+    return {"format": "scaling.linefit/1", "method": ["ols", "sma", "ma"][i % 3], "n": i,
+            "slope": value, "slope_ci": (value, -value), "df": float(i),
+            "moments": {"n": float(i), "sxx": value, "ends": [value, 1.0]},
+            "x_range": [0.5, value], "note": "50% \"q\" Ünï" if i % 2 else "",
+            "lam": None if i % 4 else value, "ok": bool(i % 2), "empty": [],
+            "none": {}, "scope": "group", "group": f"g{i % 7}"}
+
+
+class TestSavedFitsByKey:
+    """Saved fits written a key at a time equal the encoder on each json_safe'd dict."""
+
+    @staticmethod
+    def _reference(items) -> str:
+        return ",\n".join("    " + json.dumps(json_safe(item), ensure_ascii=False,
+                                               allow_nan=False) for item in items)
+
+    def test_edge_values_down_a_column(self):
+        values = np.concatenate([EDGE_FLOATS, _random_floats()]).tolist()
+        items = [_saved_fit(i, v) for i, v in enumerate(values)]
+        assert output._plain_rows(items) == self._reference(items)
+        # the same through the entry of results.json
+        assert (output._json_part("saved_fits", output._Plain(items))
+                == output._json_part("saved_fits", json_safe(items)))
+
+    def test_numpy_floats_and_mixed_types(self):
+        items = [_saved_fit(i, v) for i, v in enumerate([0.5, -0.0, np.nan, 1e-300, 1e300])]
+        items[0]["slope"] = np.float64(0.1)          # mixed float and numpy float
+        items[1]["n"] = np.int64(7)                  # a numpy integer among ints
+        for item in items:
+            item["df"] = np.float64(item["df"])      # a column of numpy floats
+        items[2]["slope_ci"] = (1.0, 2.0, 3.0)       # lists of different lengths
+        items[3]["moments"] = {"sxx": 1.0, "n": 2.0, "ends": []}   # keys in another order
+        items[4]["x_range"] = np.array([1.0, np.inf])
+        assert output._plain_rows(items) == self._reference(items)
+
+    def test_items_with_other_keys_are_left_to_the_encoder(self):
+        items = [_saved_fit(0, 1.0), {"slope": 1.0}]
+        assert output._plain_rows(items) is None
+        assert output._plain_rows([{1: 2.0}]) is None
+        assert output._plain_rows([{}, {}]) == self._reference([{}, {}])
+        assert (output._json_part("saved_fits", output._Plain(items))
+                == output._json_part("saved_fits", json_safe(items)))
+
+
 class TestFormatValues:
     @pytest.mark.parametrize("column", ["", "slope", "n", "df", "row", "p_value", "p_adjusted",
                                         "x"])

@@ -181,6 +181,73 @@ def _encode_plain(item) -> str:
         return _encode(json_safe(item))
 
 
+def _plain_rows(items: list) -> str | None:
+    """``",\n".join("    " + _encode_plain(item) for item in items)`` built a key at a
+    time, when every item is a dict with the same text keys in the same order (the saved
+    fits); None otherwise.  Each key's values are made into text together
+    (:func:`_plain_column`), so a value recurring down the items is written once."""
+    columns = _plain_columns(items)
+    if columns is None:
+        return None
+    keys, texts = columns
+    line = "    {" + ", ".join(_encode(k).replace("%", "%%") + ": %s" for k in keys) + "}"
+    if not keys:
+        return ",\n".join(["    {}"] * len(items))
+    return ",\n".join(map(line.__mod__, zip(*texts)))
+
+
+def _plain_columns(items: list) -> tuple | None:
+    """(keys, text of each key's values) of dicts sharing their text keys, or None."""
+    if type(items[0]) is not dict:
+        return None
+    keys = tuple(items[0])
+    if any(type(k) is not str for k in keys):
+        return None
+    for item in items:
+        if type(item) is not dict or tuple(item) != keys:
+            return None
+    return keys, [_plain_column([item[k] for item in items]) for k in keys]
+
+
+def _plain_column(values: list) -> list:
+    """:func:`_encode_plain` of each value, made for the whole column at once where its
+    values share a type: floats (one ``float.__repr__`` per distinct value, ``null``
+    where not finite, as :func:`json_safe` makes them), text, whole numbers, lists or
+    tuples of one length and dicts of the same keys (a column per position or key)."""
+    kinds = set(map(type, values))
+    if len(kinds) != 1:
+        return list(map(_encode_plain, values))
+    kind = kinds.pop()
+    if kind is float or kind is np.float64:
+        v = np.array(values, dtype=np.float64)
+        text = _float_texts(v)
+        for i in np.flatnonzero(~np.isfinite(v)).tolist():
+            text[i] = "null"
+        return text
+    if kind is str:
+        words = {w: _encode_str(w) for w in dict.fromkeys(values)}
+        return list(map(words.__getitem__, values))
+    if kind is int:
+        return list(map(int.__repr__, values))
+    if kind is list or kind is tuple:
+        sizes = set(map(len, values))
+        if len(sizes) == 1:
+            size = sizes.pop()
+            if size == 0:
+                return ["[]"] * len(values)
+            parts = [_plain_column([v[i] for v in values]) for i in range(size)]
+            return ["[" + ", ".join(cells) + "]" for cells in zip(*parts)]
+    if kind is dict:
+        columns = _plain_columns(values)
+        if columns is not None:
+            keys, texts = columns
+            if not keys:
+                return ["{}"] * len(values)
+            line = "{" + ", ".join(_encode(k).replace("%", "%%") + ": %s" for k in keys) + "}"
+            return list(map(line.__mod__, zip(*texts)))
+    return list(map(_encode_plain, values))
+
+
 def write_json(doc: dict, path: Path) -> None:
     """Write ``doc`` as JSON: one top-level key per line block, one list item per line.
 
@@ -205,7 +272,9 @@ def _json_part(key, value, text=None) -> str:
             return f"  {_encode(str(key))}: [\n{_json_rows(value, text)}\n  ]"
         value = []
     if isinstance(value, _Plain) and value:
-        body = ",\n".join("    " + _encode_plain(item) for item in value)
+        body = _plain_rows(value)
+        if body is None:
+            body = ",\n".join("    " + _encode_plain(item) for item in value)
         return f"  {_encode(str(key))}: [\n{body}\n  ]"
     if isinstance(value, list) and value:
         body = ",\n".join("    " + _encode(item) for item in value)
