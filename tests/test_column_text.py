@@ -192,6 +192,27 @@ class TestSavedFitsByKey:
         items[4]["x_range"] = np.array([1.0, np.inf])
         assert output._plain_rows(items) == self._reference(items)
 
+    def test_texts_of_the_fits_table_are_reused_as_written(self):
+        values = np.concatenate([EDGE_FLOATS, _random_floats(200)])
+        items = [_saved_fit(i, v) for i, v in enumerate(values.tolist())]
+        # fits.csv holds the same numbers, others, -0.0 where a fit has 0.0, and NaN
+        other = values[::-1].copy()
+        other[other == 0] = -0.0
+        fits = pd.DataFrame({"slope": values, "slope_low": other, "slope_high": -values,
+                             "x_min": np.full(len(values), np.nan), "r2": other,
+                             "x_max": np.arange(len(values)).astype(str)})
+        known = output._TableText(fits)
+        assert output._plain_rows(items, known) == self._reference(items)
+        # a table whose columns repeat a label is not read
+        twice = output._TableText(pd.DataFrame([[1.0, 2.0]] * 70, columns=["slope", "slope"]))
+        assert output._plain_rows(items, twice) == self._reference(items)
+
+    def test_float_texts_from_known_texts(self):
+        values = np.concatenate([EDGE_FLOATS, _random_floats(300)])
+        known = dict(zip(values[::2].view(np.int64).tolist(),
+                         map(float.__repr__, values[::2].tolist())))
+        assert output._float_texts(values, known) == list(map(float.__repr__, values.tolist()))
+
     def test_items_with_other_keys_are_left_to_the_encoder(self):
         items = [_saved_fit(0, 1.0), {"slope": 1.0}]
         assert output._plain_rows(items) is None
