@@ -238,10 +238,12 @@ def _gap(row) -> tuple:
                  else _num(getattr(row, k, math.nan)) for k in ("slope_gap_low", "slope_gap_high"))
 
 
-@lru_cache(maxsize=4096)
+@lru_cache(maxsize=1 << 16)
 def _short_verdict(est, b0, p, alpha, p_method="") -> str:
     """The verdict cell of an exponent table (cached: a line's verdicts are written in the
-    exponent table and again in the groups' table, thousands of times over many groups)."""
+    exponent table and again in the groups' table, thousands of times over many groups;
+    the cache holds every verdict of a run of 10 000 groups and two exponents, so the
+    groups' table finds each one made)."""
     if not np.isfinite(p):
         return "not tested"
     if p < alpha:
