@@ -222,6 +222,17 @@ class TestSavedFitsByKey:
                 == output._json_part("saved_fits", json_safe(items)))
 
 
+class TestTexCells:
+    @pytest.mark.parametrize("column", ["slope", "n", "p_value", "x", "r2"])
+    def test_a_column_of_cells_equals_tex_num_on_each_value(self, column):
+        from scaling.render.report import _tex_nums
+        values = np.concatenate([EDGE_FLOATS, -EDGE_FLOATS, _random_floats(2000)])
+        assert _tex_nums(values, column) == [_tex_num(v, column) for v in values]
+        plain = np.abs(values[np.isfinite(values)])   # no minus, no missing cell
+        assert _tex_nums(plain, column) == [_tex_num(v, column) for v in plain]
+        assert _tex_nums(np.array([]), column) == []
+
+
 class TestFormatValues:
     @pytest.mark.parametrize("column", ["", "slope", "n", "df", "row", "p_value", "p_adjusted",
                                         "x"])
