@@ -19,6 +19,7 @@ import base64
 import html
 import math
 import re
+from itertools import repeat
 from pathlib import Path
 
 import numpy as np
@@ -155,7 +156,9 @@ def format_values(values, column: str = "") -> list:
     for d in np.unique(decimals[left]).tolist():
         part = decimals == d
         texts = map(f"{{:.{int(d)}f}}".format, pick(part))
-        put(part, (t.rstrip("0").rstrip(".") for t in texts) if d > 0 else texts)
+        # t.rstrip("0").rstrip(".") of each text, by two maps of str.rstrip
+        put(part, map(str.rstrip, map(str.rstrip, texts, repeat("0")), repeat("."))
+            if d > 0 else texts)
     return out.tolist()
 
 
