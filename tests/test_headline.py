@@ -115,6 +115,20 @@ class TestOnePFormatter:
             assert [_short_verdict(*c) for c in cases] == [make(*c) for c in cases]
         assert _short_verdict.cache_info().maxsize >= 2 * 20000
 
+    def test_gap_cells_read_from_float_columns_equal_the_cells_made_per_row(self):
+        # internal consistency: the straight read gives _gap_cells' values, bit for bit
+        from scaling.render.headline import _gap_cells, _gap_reader, _rows
+        values = [np.nan, -0.0, 0.0, np.inf, -np.inf, 1e-300, 1e300, 0.5]
+        frame = pd.DataFrame({"slope_gap_low": values, "slope_gap_high": values[::-1]})
+        names = ("slope_gap_low", "slope_gap_high")
+        got = [reader(r) for reader in (_gap_reader(frame), _gap_cells)
+               for r in _rows(frame, names)]
+        assert [np.float64(list(c.values())).tobytes() for c in got[:8]] == [
+            np.float64(list(c.values())).tobytes() for c in got[8:]]
+        # text or missing gap columns are read per row
+        for other in (frame.astype(object), frame.drop(columns="slope_gap_high")):
+            assert _gap_reader(other) is _gap_cells
+
     def test_several_predictor_sentences_use_it(self):
         from types import SimpleNamespace
 
