@@ -155,6 +155,84 @@ class TestJsonTables:
         assert output._json_part("saved_fits", output._Plain(items)) == reference
 
 
+def _saved_fit(i: int, value: float) -> dict:
+    """A dict shaped as a saved fit, with ``value`` in its number fields."""
+    return {"format": "scaling.linefit/1", "method": ["ols", "sma", "ma"][i % 3], "n": i,
+            "slope": value, "slope_ci": (value, -value), "df": float(i),
+            "moments": {"n": float(i), "sxx": value, "ends": [value, 1.0]},
+            "x_range": [0.5, value], "note": "50% \"q\" Ünï" if i % 2 else "",
+            "lam": None if i % 4 else value, "ok": bool(i % 2), "empty": [],
+            "none": {}, "scope": "group", "group": f"g{i % 7}"}
+
+
+class TestSavedFitsByKey:
+    """Saved fits written a key at a time equal the encoder on each json_safe'd dict."""
+
+    @staticmethod
+    def _reference(items) -> str:
+        return ",\n".join("    " + json.dumps(json_safe(item), ensure_ascii=False,
+                                               allow_nan=False) for item in items)
+
+    def test_edge_values_down_a_column(self):
+        values = np.concatenate([EDGE_FLOATS, _random_floats()]).tolist()
+        items = [_saved_fit(i, v) for i, v in enumerate(values)]
+        assert output._plain_rows(items) == self._reference(items)
+        # the same through the entry of results.json
+        assert (output._json_part("saved_fits", output._Plain(items))
+                == output._json_part("saved_fits", json_safe(items)))
+
+    def test_numpy_floats_and_mixed_types(self):
+        items = [_saved_fit(i, v) for i, v in enumerate([0.5, -0.0, np.nan, 1e-300, 1e300])]
+        items[0]["slope"] = np.float64(0.1)          # mixed float and numpy float
+        items[1]["n"] = np.int64(7)                  # a numpy integer among ints
+        for item in items:
+            item["df"] = np.float64(item["df"])      # a column of numpy floats
+        items[2]["slope_ci"] = (1.0, 2.0, 3.0)       # lists of different lengths
+        items[3]["moments"] = {"sxx": 1.0, "n": 2.0, "ends": []}   # keys in another order
+        items[4]["x_range"] = np.array([1.0, np.inf])
+        assert output._plain_rows(items) == self._reference(items)
+
+    def test_texts_of_the_fits_table_are_reused_as_written(self):
+        values = np.concatenate([EDGE_FLOATS, _random_floats(200)])
+        items = [_saved_fit(i, v) for i, v in enumerate(values.tolist())]
+        # fits.csv holds the same numbers, others, -0.0 where a fit has 0.0, and NaN
+        other = values[::-1].copy()
+        other[other == 0] = -0.0
+        fits = pd.DataFrame({"slope": values, "slope_low": other, "slope_high": -values,
+                             "x_min": np.full(len(values), np.nan), "r2": other,
+                             "x_max": np.arange(len(values)).astype(str)})
+        known = output._TableText(fits)
+        assert output._plain_rows(items, known) == self._reference(items)
+        # a table whose columns repeat a label is not read
+        twice = output._TableText(pd.DataFrame([[1.0, 2.0]] * 70, columns=["slope", "slope"]))
+        assert output._plain_rows(items, twice) == self._reference(items)
+
+    def test_float_texts_from_known_texts(self):
+        values = np.concatenate([EDGE_FLOATS, _random_floats(300)])
+        known = dict(zip(values[::2].view(np.int64).tolist(),
+                         map(float.__repr__, values[::2].tolist())))
+        assert output._float_texts(values, known) == list(map(float.__repr__, values.tolist()))
+
+    def test_items_with_other_keys_are_left_to_the_encoder(self):
+        items = [_saved_fit(0, 1.0), {"slope": 1.0}]
+        assert output._plain_rows(items) is None
+        assert output._plain_rows([{1: 2.0}]) is None
+        assert output._plain_rows([{}, {}]) == self._reference([{}, {}])
+        assert (output._json_part("saved_fits", output._Plain(items))
+                == output._json_part("saved_fits", json_safe(items)))
+
+
+class TestTexCells:
+    @pytest.mark.parametrize("column", ["slope", "n", "p_value", "x", "r2"])
+    def test_a_column_of_cells_equals_tex_num_on_each_value(self, column):
+        from scaling.render.report import _tex_nums
+        values = np.concatenate([EDGE_FLOATS, -EDGE_FLOATS, _random_floats(2000)])
+        assert _tex_nums(values, column) == [_tex_num(v, column) for v in values]
+        plain = np.abs(values[np.isfinite(values)])   # no minus, no missing cell
+        assert _tex_nums(plain, column) == [_tex_num(v, column) for v in plain]
+        assert _tex_nums(np.array([]), column) == []
+
+
 class TestFormatValues:
     @pytest.mark.parametrize("column", ["", "slope", "n", "df", "row", "p_value", "p_adjusted",
                                         "x"])

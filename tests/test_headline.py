@@ -97,6 +97,38 @@ class TestOnePFormatter:
         assert _short_verdict(0.9, 0.75, 1e-9, 0.05) == "above (p < 0.0001)"
         assert _short_verdict(0.76, 0.75, 0.41, 0.05) == "not different (p = 0.410)"
 
+    def test_cached_verdicts_equal_the_verdicts_made_afresh(self):
+        # internal consistency: the cache gives what the function makes, for edge values,
+        # ties of p, an int and a float of one value, and a run's worth of verdicts
+        from scaling.render.headline import _short_verdict
+        make = _short_verdict.__wrapped__
+        nan, inf = float("nan"), float("inf")
+        cases = [(0.9, 0.75, p, 0.05, how) for p in (nan, inf, -0.0, 0.0, 1e-300, 1e300,
+                                                     0.05, 0.05, 0.049999, 1.0)
+                 for how in ("", "t", "parametric_bootstrap(999)")]
+        cases += [(1, 1, 0.5, 0.05, ""), (1.0, 1.0, 0.5, 0.05, ""), (0.75, 0.75, 0.01, 0.05, ""),
+                  (-0.0, 0.0, 1e-5, 0.05, "permutation(99)")]
+        rng = np.random.default_rng(5)
+        cases += [(float(e), 0.75, float(p), 0.05, "") for e, p in
+                  zip(rng.normal(0.75, 0.1, 25000), rng.uniform(0, 1, 25000) ** 4)]
+        for _ in range(2):   # made, then found in the cache
+            assert [_short_verdict(*c) for c in cases] == [make(*c) for c in cases]
+        assert _short_verdict.cache_info().maxsize >= 2 * 20000
+
+    def test_gap_cells_read_from_float_columns_equal_the_cells_made_per_row(self):
+        # internal consistency: the straight read gives _gap_cells' values, bit for bit
+        from scaling.render.headline import _gap_cells, _gap_reader, _rows
+        values = [np.nan, -0.0, 0.0, np.inf, -np.inf, 1e-300, 1e300, 0.5]
+        frame = pd.DataFrame({"slope_gap_low": values, "slope_gap_high": values[::-1]})
+        names = ("slope_gap_low", "slope_gap_high")
+        got = [reader(r) for reader in (_gap_reader(frame), _gap_cells)
+               for r in _rows(frame, names)]
+        assert [np.float64(list(c.values())).tobytes() for c in got[:8]] == [
+            np.float64(list(c.values())).tobytes() for c in got[8:]]
+        # text or missing gap columns are read per row
+        for other in (frame.astype(object), frame.drop(columns="slope_gap_high")):
+            assert _gap_reader(other) is _gap_cells
+
     def test_several_predictor_sentences_use_it(self):
         from types import SimpleNamespace
 

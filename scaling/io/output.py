@@ -181,6 +181,113 @@ def _encode_plain(item) -> str:
         return _encode(json_safe(item))
 
 
+def _plain_rows(items: list, known: "_TableText | None" = None) -> str | None:
+    """``",\n".join("    " + _encode_plain(item) for item in items)`` built a key at a
+    time, when every item is a dict with the same text keys in the same order (the saved
+    fits); None otherwise.  Each key's values are made into text together
+    (:func:`_plain_column`), so a value recurring down the items is written once.
+
+    ``known``: the text of fits.csv, whose numbers recur in the saved fits
+    (:data:`_FITS_COLUMNS`): a float written there is not written again."""
+    columns = _plain_columns(items, known)
+    if columns is None:
+        return None
+    keys, texts = columns
+    line = "    {" + ", ".join(_encode(k).replace("%", "%%") + ": %s" for k in keys) + "}"
+    if not keys:
+        return ",\n".join(["    {}"] * len(items))
+    return ",\n".join(map(line.__mod__, zip(*texts)))
+
+
+def _plain_columns(items: list, known=None, path: tuple = ()) -> tuple | None:
+    """(keys, text of each key's values) of dicts sharing their text keys, or None."""
+    if type(items[0]) is not dict:
+        return None
+    keys = tuple(items[0])
+    if any(type(k) is not str for k in keys):
+        return None
+    for item in items:
+        if type(item) is not dict or tuple(item) != keys:
+            return None
+    return keys, [_plain_column([item[k] for item in items], known, path + (k,))
+                  for k in keys]
+
+
+def _plain_column(values: list, known=None, path: tuple = ()) -> list:
+    """:func:`_encode_plain` of each value, made for the whole column at once where its
+    values share a type: floats (one ``float.__repr__`` per distinct value, ``null``
+    where not finite, as :func:`json_safe` makes them), text, whole numbers, lists or
+    tuples of one length and dicts of the same keys (a column per position or key)."""
+    kinds = set(map(type, values))
+    if kinds == {type(None)}:
+        return ["null"] * len(values)
+    if kinds in ({float, type(None)}, {np.float64, type(None)}):   # a number where set
+        return _float_json(np.array([math.nan if x is None else x for x in values],
+                                    dtype=np.float64), _known_texts(known, path))
+    if len(kinds) != 1:
+        return list(map(_encode_plain, values))
+    kind = kinds.pop()
+    if kind is float or kind is np.float64:
+        return _float_json(np.array(values, dtype=np.float64), _known_texts(known, path))
+    if kind is str:
+        words = {w: _encode_str(w) for w in dict.fromkeys(values)}
+        return list(map(words.__getitem__, values))
+    if kind is int:
+        return list(map(int.__repr__, values))
+    if kind is list or kind is tuple:
+        sizes = set(map(len, values))
+        if len(sizes) == 1:
+            size = sizes.pop()
+            if size == 0:
+                return ["[]"] * len(values)
+            parts = [_plain_column([v[i] for v in values], known, path + (i,))
+                     for i in range(size)]
+            line = "[" + ", ".join(["%s"] * size) + "]"
+            return list(map(line.__mod__, zip(*parts)))
+    if kind is dict:
+        columns = _plain_columns(values, known, path)
+        if columns is not None:
+            keys, texts = columns
+            if not keys:
+                return ["{}"] * len(values)
+            line = "{" + ", ".join(_encode(k).replace("%", "%%") + ": %s" for k in keys) + "}"
+            return list(map(line.__mod__, zip(*texts)))
+    return list(map(_encode_plain, values))
+
+
+#: The fits.csv column holding the numbers of a saved fit's entry (key, or key and position).
+_FITS_COLUMNS = {("slope",): "slope", ("slope_ci", 0): "slope_low",
+                 ("slope_ci", 1): "slope_high", ("slope_se",): "slope_se",
+                 ("intercept",): "intercept", ("intercept_ci", 0): "intercept_low",
+                 ("intercept_ci", 1): "intercept_high", ("intercept_se",): "intercept_se",
+                 ("r",): "r", ("r2",): "r2", ("resid_sd",): "resid_sd",
+                 ("smearing_factor",): "smearing_factor", ("ratio_factor",): "ratio_factor",
+                 ("x_range", 0): "x_min", ("x_range", 1): "x_max",
+                 ("y_range", 0): "y_min", ("y_range", 1): "y_max"}
+
+
+def _known_texts(known, path: tuple) -> dict | None:
+    """``bits -> text`` of the floats of the fits.csv column of a saved fit's ``path``
+    (None without one)."""
+    name = _FITS_COLUMNS.get(path)
+    if known is None or name is None:
+        return None
+    labels = [str(c) for c in known.frame.columns]
+    if labels.count(name) != 1 or labels.index(name) not in known._floats:
+        return None
+    v, text = known._floats[labels.index(name)]
+    return dict(zip(np.ascontiguousarray(v).view(np.int64).tolist(), text))
+
+
+def _float_json(v: np.ndarray, known: dict | None = None) -> list:
+    """The encoder's text of each :func:`json_safe` float of ``v`` (``null`` where not
+    finite); ``known``: texts already made, by the bits of their float."""
+    text = _float_texts(v, known)
+    for i in np.flatnonzero(~np.isfinite(v)).tolist():
+        text[i] = "null"
+    return text
+
+
 def write_json(doc: dict, path: Path) -> None:
     """Write ``doc`` as JSON: one top-level key per line block, one list item per line.
 
@@ -205,7 +312,9 @@ def _json_part(key, value, text=None) -> str:
             return f"  {_encode(str(key))}: [\n{_json_rows(value, text)}\n  ]"
         value = []
     if isinstance(value, _Plain) and value:
-        body = ",\n".join("    " + _encode_plain(item) for item in value)
+        body = _plain_rows(value, text)
+        if body is None:
+            body = ",\n".join("    " + _encode_plain(item) for item in value)
         return f"  {_encode(str(key))}: [\n{body}\n  ]"
     if isinstance(value, list) and value:
         body = ",\n".join("    " + _encode(item) for item in value)
@@ -264,16 +373,24 @@ def _csv_texts(values: list) -> list:
     return list(map(_csv_object, values))
 
 
-def _float_texts(v: np.ndarray) -> list:
+def _float_texts(v: np.ndarray, known: dict | None = None) -> list:
     """``float.__repr__`` of each value of a float64 array, each distinct value written
     once: the same value recurs down many columns (a confidence level, an exponent, the
     Cook's distances of the pooled points under each method).  Values are told apart by
-    their bits (0.0 and -0.0 are two texts)."""
+    their bits (0.0 and -0.0 are two texts).  ``known``: texts made already, by bits
+    (a value found there is not written again)."""
     if v.size < 64:
         return list(map(float.__repr__, v.tolist()))
     codes, distinct = pd.factorize(np.ascontiguousarray(v).view(np.int64))
-    words = np.array(list(map(float.__repr__, distinct.view(np.float64).tolist())),
-                     dtype=object)
+    if known:
+        words = np.array(list(map(known.get, distinct.tolist())), dtype=object)
+        todo = np.flatnonzero(words == None)   # noqa: E711 (elementwise)
+        new = list(map(float.__repr__, distinct.view(np.float64)[todo].tolist()))
+        for i, word in zip(todo.tolist(), new):
+            words[i] = word
+    else:
+        words = np.array(list(map(float.__repr__, distinct.view(np.float64).tolist())),
+                         dtype=object)
     return words[codes].tolist()
 
 
@@ -514,6 +631,8 @@ def _write_all(result, folder: Path, draw_figures, write_report, caution,
             texts[id(frame)] = write_csv(frame, folder / name)
             written.append(Path(name))
         doc = _document(result, caution=caution)
+        if isinstance(doc.get("saved_fits"), _Plain):   # their numbers recur in fits.csv
+            texts[id(doc["saved_fits"])] = texts.get(id(result.fits))
         parts = _json_parts(doc, texts)   # all but the figure notes and the file list, now
         if prepare_report is not None:
             write_report = prepare_report(result)

@@ -238,10 +238,12 @@ def _gap(row) -> tuple:
                  else _num(getattr(row, k, math.nan)) for k in ("slope_gap_low", "slope_gap_high"))
 
 
-@lru_cache(maxsize=4096)
+@lru_cache(maxsize=1 << 16)
 def _short_verdict(est, b0, p, alpha, p_method="") -> str:
     """The verdict cell of an exponent table (cached: a line's verdicts are written in the
-    exponent table and again in the groups' table, thousands of times over many groups)."""
+    exponent table and again in the groups' table, thousands of times over many groups;
+    the cache holds every verdict of a run of 10 000 groups and two exponents, so the
+    groups' table finds each one made)."""
     if not np.isfinite(p):
         return "not tested"
     if p < alpha:
@@ -324,13 +326,14 @@ def _exponent_table(fits, slope_tests, primary, alpha, pct, index=None) -> pd.Da
     keep = keep.sort_values(["_o", "_p"], kind="stable")
     index = _test_index(slope_tests) if index is None else index
     labels = [f"vs {exponent_words(str(name), float(b0))}" for name, b0 in hyps]
+    gaps = _gap_reader(keep)
     for r in _rows(keep, ("scope", "group", "method", "slope", "slope_low", "slope_high",
                           "slope_gap_low", "slope_gap_high")):
         group = "" if pd.isna(r.group) else str(r.group)
         line = _LINE_WORDS.get(r.scope, r.scope) + (f" {group}" if group else "")
         rec = {"line": line, "method": method_label(str(r.method)),
                "exponent": r.slope, "low": r.slope_low, "high": r.slope_high,
-               **_gap_cells(r)}
+               **gaps(r)}
         first: dict = {}   # the first test of each hypothesis for this line
         for t in index.get((r.scope, r.method, group), ()):
             first.setdefault(t["hypothesis"], t)
@@ -356,6 +359,16 @@ def _gap_cells(r) -> dict:
     (an SMA accepted set of two ranges, ``low .. gap_low`` and ``gap_high .. high``)."""
     gap_low, gap_high = _gap(r)
     return {"gap_low": gap_low, "gap_high": gap_high}
+
+
+def _gap_reader(frame: pd.DataFrame):
+    """:func:`_gap_cells`, or the same cells read straight from a row of :func:`_rows`
+    when both gap columns of ``frame`` hold float64 (whose values ``_num`` keeps as
+    they are)."""
+    names = ("slope_gap_low", "slope_gap_high")
+    if all(c in frame.columns and frame[c].dtype == np.float64 for c in names):
+        return lambda r: {"gap_low": r.slope_gap_low, "gap_high": r.slope_gap_high}
+    return _gap_cells
 
 
 def _drop_empty_gaps(table: pd.DataFrame) -> pd.DataFrame:
@@ -470,11 +483,12 @@ def build_headline(fits: pd.DataFrame, slope_tests: pd.DataFrame,
     if np.isfinite(p_slope) and p_slope <= alpha:
         gfits = fits[(fits["scope"] == "group") & (fits["method"] == lead)]
         rows, words = [], {}
+        gaps = _gap_reader(gfits)
         for r in _rows(gfits, ("group", "n", "slope", "slope_low", "slope_high",
                                "slope_gap_low", "slope_gap_high")):
             rec = {group_word: r.group,
                    "n": r.n, "exponent": r.slope, "low": r.slope_low, "high": r.slope_high,
-                   **_gap_cells(r)}
+                   **gaps(r)}
             for t in index.get(("group", lead, str(r.group)), ()):
                 which = (t["hypothesis"], t["exponent"])   # the column's words, made once
                 column = words.get(which) or words.setdefault(

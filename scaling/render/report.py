@@ -19,6 +19,7 @@ import base64
 import html
 import math
 import re
+from itertools import repeat
 from pathlib import Path
 
 import numpy as np
@@ -114,11 +115,14 @@ def format_values(values, column: str = "") -> list:
         return [format_value(x, column) for x in (v.tolist() if v.dtype.kind == "b" else v)]
     v = v.astype(float, copy=False)
     floats = v.tolist()
-    out = [""] * len(floats)
+    out = np.full(len(floats), "", dtype=object)   # filled a part at a time, in one step
 
     def put(mask, texts):
-        for i, t in zip(np.flatnonzero(mask).tolist(), texts):
-            out[i] = t
+        where = np.flatnonzero(mask)
+        if where.size:
+            cells = np.empty(where.size, dtype=object)
+            cells[:] = list(texts)
+            out[where] = cells
 
     def pick(mask):
         return [floats[i] for i in np.flatnonzero(mask).tolist()]
@@ -129,7 +133,7 @@ def format_values(values, column: str = "") -> list:
                       for x in pick(~finite)])
     if _P_COLUMNS.match(column or ""):
         put(finite, map(format_p, pick(finite)))
-        return out
+        return out.tolist()
     left = finite
     if column in _INT_COLUMNS:
         whole = finite & (v == np.round(v))
@@ -152,8 +156,10 @@ def format_values(values, column: str = "") -> list:
     for d in np.unique(decimals[left]).tolist():
         part = decimals == d
         texts = map(f"{{:.{int(d)}f}}".format, pick(part))
-        put(part, (t.rstrip("0").rstrip(".") for t in texts) if d > 0 else texts)
-    return out
+        # t.rstrip("0").rstrip(".") of each text, by two maps of str.rstrip
+        put(part, map(str.rstrip, map(str.rstrip, texts, repeat("0")), repeat("."))
+            if d > 0 else texts)
+    return out.tolist()
 
 
 def _group_test_sentences(table: pd.DataFrame, alpha: float) -> list:
@@ -714,18 +720,25 @@ def _tex_interval(lo, hi, column: str) -> str:
 def _tex_texts(texts: list) -> list:
     """:func:`_tex_num` of each text of :func:`format_values` (escaped only when needed)."""
     escape = _LATEX_RE.search("".join(texts)) is not None
-    out = []
-    for text in texts:
-        if text == "–":
-            out.append("--")
-            continue
-        if text.startswith("−"):
-            text = "-" + text[1:]
-        if text.startswith("-"):
-            out.append("$-$" + (latex_escape(text[1:]) if escape else text[1:]))
-        else:
-            out.append(latex_escape(text) if escape else text)
-    return out
+    if not escape:   # most cells are plain numbers, written as they are
+        return [text if text[:1] not in _TEX_MARKED else _tex_text(text, False)
+                for text in texts]
+    return [_tex_text(text, True) for text in texts]
+
+
+#: First characters of a cell that :func:`_tex_text` rewrites (missing value, minus).
+_TEX_MARKED = frozenset(("–", "−", "-"))
+
+
+def _tex_text(text: str, escape: bool) -> str:
+    """:func:`_tex_num` of one text of :func:`format_values` (``escape``: LaTeX-escape)."""
+    if text == "–":
+        return "--"
+    if text.startswith("−"):
+        text = "-" + text[1:]
+    if text.startswith("-"):
+        return "$-$" + (latex_escape(text[1:]) if escape else text[1:])
+    return latex_escape(text) if escape else text
 
 
 def _tex_nums(values, column: str) -> list:
