@@ -139,17 +139,23 @@ class TestGroupExtremes:
         assert np.isnan(low[0]) and np.isnan(high[0]) and (low[1], high[1]) == (2.0, 3.0)
 
 
+def _edge_fits(method: str, *, higher: bool = False):
+    """The edge-case moments, a range per set, Deming's lambda and one method's fit of
+    every set at once: what the packaging tests hand to line_fits_from_result."""
+    m, what = _edge_moments(higher=higher)
+    ranges = [((i + 1.0, i + 2.0), (i + 3.0, i + 4.0)) for i in range(len(what))]
+    lam = 2.0 if method == "deming" else None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = deming_moments(m, lam) if method == "deming" else fit_moments(m, method)
+    return m, what, ranges, lam, res
+
+
 class TestLineFitsFromResult:
     @pytest.mark.parametrize("method", MOMENT_METHODS + ("deming",))
     def test_equal_the_fits_packaged_one_at_a_time(self, method):
         # internal consistency: every entry equals line_fit_from_result(res, i, m[i])
-        m, what = _edge_moments()
-        ranges = [((i + 1.0, i + 2.0), (i + 3.0, i + 4.0)) for i in range(len(what))]
-        lam = 2.0 if method == "deming" else None
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            res = (deming_moments(m, lam) if method == "deming"
-                   else fit_moments(m, method))
+        m, what, ranges, lam, res = _edge_fits(method)
         keep = np.arange(len(what)) % 3 != 1
         fits = line_fits_from_result(res, m, method, confidence=0.95, log_base=10.0,
                                      x_ranges=[r[0] for r in ranges],
@@ -192,14 +198,8 @@ class TestLineFitsWithHigherSums:
     def test_equal_the_fits_packaged_one_at_a_time(self, method):
         # internal consistency: with the higher sums carried (the moments path), every
         # field of every entry equals line_fit_from_result(res, i, m[i]), types included
-        m, what = _edge_moments(higher=True)
+        m, what, ranges, lam, res = _edge_fits(method, higher=True)
         assert m.has_higher
-        ranges = [((i + 1.0, i + 2.0), (i + 3.0, i + 4.0)) for i in range(len(what))]
-        lam = 2.0 if method == "deming" else None
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            res = (deming_moments(m, lam) if method == "deming"
-                   else fit_moments(m, method))
         fits = line_fits_from_result(res, m, method, confidence=0.95, log_base=10.0,
                                      x_ranges=[r[0] for r in ranges],
                                      y_ranges=[r[1] for r in ranges], lam=lam)
