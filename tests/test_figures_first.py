@@ -165,15 +165,22 @@ def test_figures_started_early_without_a_worker_equal_those_drawn_after(
     assert _figures(tmp_path / "out") == drawn_after
 
 
-@needs_fork
-def test_a_worker_killed_mid_run_still_gives_every_figure(tmp_path, monkeypatch, config,
-                                                          drawn_after):
+def _workers_and_shares_logged(monkeypatch, tmp_path):
+    """The figure workers the run starts (a list filled as they are made) and the log of
+    their drawing processes' pids (:func:`_shares_logged`)."""
     workers = []
     real_init = fw.FigureWorker.__init__
     monkeypatch.setattr(fw.FigureWorker, "__init__",
                         lambda self, **kw: (workers.append(self), real_init(self, **kw))[1])
     log = tmp_path / "shares.log"
     _shares_logged(monkeypatch, log)
+    return workers, log
+
+
+@needs_fork
+def test_a_worker_killed_mid_run_still_gives_every_figure(tmp_path, monkeypatch, config,
+                                                          drawn_after):
+    workers, log = _workers_and_shares_logged(monkeypatch, tmp_path)
     real_check = pipeline.check_run
 
     def check_run(cfg, state):   # the worker is drawing the run handed over: kill it now
@@ -191,12 +198,7 @@ def test_a_worker_killed_mid_run_still_gives_every_figure(tmp_path, monkeypatch,
 @needs_fork
 def test_a_run_failing_after_the_figures_started_leaves_no_folder_and_no_process(
         tmp_path, monkeypatch, config):
-    workers = []
-    real_init = fw.FigureWorker.__init__
-    monkeypatch.setattr(fw.FigureWorker, "__init__",
-                        lambda self, **kw: (workers.append(self), real_init(self, **kw))[1])
-    log = tmp_path / "shares.log"
-    _shares_logged(monkeypatch, log)
+    workers, log = _workers_and_shares_logged(monkeypatch, tmp_path)
 
     def diagnostics_stage(cfg, state):   # fail while the worker's second process draws
         _wait_for_a_share(log)
