@@ -2,8 +2,8 @@
 
 :func:`fit_nonlinear` minimises sum (model(x, p1, p2) - y)^2 from a start
 point by the Levenberg-Marquardt method in the trust-region form of Moré
-(1978), "The Levenberg-Marquardt algorithm: implementation and theory",
-*Lecture Notes in Mathematics* 630:105-116:
+(1978), "The Levenberg-Marquardt algorithm: implementation and theory", in
+G. A. Watson (ed.), *Numerical Analysis*, Springer LNM 630:105-116:
 
 - the Jacobian by forward differences with step sqrt(eps) |p_j| (sqrt(eps)
   for p_j = 0);
