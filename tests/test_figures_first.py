@@ -200,7 +200,7 @@ def test_a_run_failing_after_the_figures_started_leaves_no_folder_and_no_process
         tmp_path, monkeypatch, config):
     workers, log = _workers_and_shares_logged(monkeypatch, tmp_path)
 
-    def diagnostics_stage(cfg, state):   # fail while the worker's second process draws
+    def diagnostics_stage(cfg, state, **_):   # fail while the worker's second process draws
         _wait_for_a_share(log)
         raise RuntimeError("the diagnostics failed")
     monkeypatch.setattr(pipeline, "diagnostics_stage", diagnostics_stage)

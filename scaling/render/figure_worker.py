@@ -222,9 +222,10 @@ def report_png(folder: Path, name: str, draw) -> bytes | None:
 _SHARES: set = set()
 
 
-def _die_with_parent(parent: int) -> None:
-    """In a forked drawing process: be killed when the process that forked it dies (a
-    worker killed mid-run leaves no process drawing into the folder)."""
+def die_with_parent(parent: int) -> None:
+    """In a forked process (a drawing process, a background check): be killed when the
+    process that forked it dies (a worker killed mid-run leaves no process drawing into
+    the folder)."""
     try:
         import ctypes
         ctypes.CDLL(None).prctl(1, signal.SIGKILL, 0, 0, 0)   # PR_SET_PDEATHSIG
@@ -268,7 +269,7 @@ class _Share:
                 _SHARES.clear()
                 signal.signal(signal.SIGTERM, signal.SIG_DFL)
                 signal.pthread_sigmask(signal.SIG_SETMASK, blocked)
-                _die_with_parent(parent)
+                die_with_parent(parent)
                 os.close(read_end)
                 with os.fdopen(write_end, "wb") as fh:
                     fh.write(pickle.dumps(_draw_share(result, folder, kinds, extras=extras)))

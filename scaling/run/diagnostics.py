@@ -33,13 +33,14 @@ from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTU
 from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
+from .background import Background
 from .fits import known_moments, set_columns
 from .moments_path import bounded_diagnostics
 from .phylo_checks import answer_model_checks, diagnostic_rows
 from .points_to_check import coded_points, in_groups
 from .predictions import CHUNK_ROWS, chunk_runs
 
-__all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage"]
+__all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage", "early_checks"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -62,8 +63,40 @@ def exponent_targets(cfg) -> tuple:
     return tuple(cfg.diagnostics.exponent_at) or tuple(cfg.exponents.values())
 
 
-def diagnostics_stage(cfg, state) -> DiagnosticsStage:
-    """diagnostics, influential_rows, curvature and error_structure tables and verdicts."""
+#: From this many pooled points the error-structure comparison is started early, in a
+#: forked process (:func:`early_checks`): about 30 ms of its nonlinear fit, against a few
+#: ms to fork.
+EARLY_FROM_POINTS = 50_000
+
+
+def early_checks(cfg, points: pd.DataFrame | None) -> dict:
+    """``{(scope, group): (points, Background)}``: the checks that need only the cleaned
+    ``points`` (the pooled line's error-structure comparison), started in a forked
+    process as soon as the points exist, on a large table whose diagnostics will ask
+    for them; ``{}`` otherwise.  :func:`diagnostics_stage` takes the answer for the
+    very same points, and the caller stops what it did not take."""
+    dc = cfg.diagnostics
+    if (points is None or not (dc.enabled and dc.error_structure)
+            or len(points) < EARLY_FROM_POINTS):
+        return {}
+    x, y = points["x"].to_numpy(), points["y"].to_numpy()
+    return {("pooled", ""): (points, Background(_error_structure, x, y))}
+
+
+def _error_structure(x, y):
+    """:func:`compare_error_structure` of the points, its warnings silenced (the
+    diagnostics report a failed fit in words)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return compare_error_structure(x, y)
+
+
+def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsStage:
+    """diagnostics, influential_rows, curvature and error_structure tables and verdicts.
+
+    ``early``: from :func:`early_checks`; each answer is read (once) where its point
+    set is the very frame checked here, and computed here otherwise."""
+    early = early if early is not None else {}
     line_fits, point_sets, notes = bounded_diagnostics(state.line_fits, state.point_sets, cfg)
     dc = cfg.diagnostics
     targets = exponent_targets(cfg)
@@ -160,10 +193,12 @@ def diagnostics_stage(cfg, state) -> DiagnosticsStage:
         for (scope, group), sel in point_sets.items():
             if scope == "group_means":
                 continue
+            started = early.pop((scope, group), None)
             try:
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore")
-                    es = compare_error_structure(sel["x"].to_numpy(), sel["y"].to_numpy())
+                if started is not None and started[0] is sel:
+                    es = started[1].result()
+                else:
+                    es = _error_structure(sel["x"].to_numpy(), sel["y"].to_numpy())
             except ScalingError:
                 continue
             es_results[(scope, group)] = es

@@ -39,7 +39,7 @@ from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COL
                             DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
                             INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
                             SLOPE_TEST_COLUMNS)
-from .diagnostics import diagnostics_stage, exponent_targets
+from .diagnostics import diagnostics_stage, early_checks, exponent_targets
 from .fits import fit_stage, fits_table_stage
 from .groups import group_stage
 from .moments_path import (moments_group_stage, moments_stage, spread_stage,
@@ -174,7 +174,16 @@ def _analyse(cfg: Config, *, quiet: bool = True, figure_inputs=None) -> RunResul
     state = RunState(data=read.data, base=read.base, quiet=quiet)
     if isinstance(cfg.data.x, tuple):   # several predictors: OLS stage of its own
         return _handed(_several_run(cfg, state, read), figure_inputs)
+    early = early_checks(cfg, read.data.points)
+    try:
+        return _one_predictor(cfg, state, read, early, figure_inputs)
+    finally:
+        for job in early.values():   # not read (the run failed, or no diagnostics)
+            job[1].stop()
 
+
+def _one_predictor(cfg, state: RunState, read, early: dict, figure_inputs) -> RunResult:
+    """:func:`_analyse` of one predictor in memory, its ``early`` checks started."""
     fitted = fit_stage(cfg, state)
     state = replace(state, rows=fitted.rows, line_fits=fitted.line_fits,
                     point_sets=fitted.point_sets)
@@ -216,7 +225,8 @@ def _analyse(cfg: Config, *, quiet: bool = True, figure_inputs=None) -> RunResul
                                 tables={**state.tables, **spread.tables}))
     checked = check_run(cfg, state)   # before the diagnostics, whose words read it
     diagnosed = (diagnostics_stage(cfg, replace(state, tables={
-        **state.tables, "points_to_check": checked.table})) if cfg.diagnostics.enabled else None)
+        **state.tables, "points_to_check": checked.table}), early=early)
+        if cfg.diagnostics.enabled else None)
     if diagnosed is not None:
         state = replace(state, tables={**state.tables, **diagnosed.tables})
     state = replace(state, tables={**state.tables, "points_to_check": add_phylo_checks(

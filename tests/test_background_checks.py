@@ -1,0 +1,121 @@
+"""A check computed in a forked process while the run goes on (scaling.run.background),
+and the error-structure comparison started that way once the points exist
+(scaling.run.diagnostics.early_checks)."""
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from scaling.errors import DataError
+from scaling.run import diagnostics as diag
+from scaling.run.background import Background
+from scaling.run.pipeline import analyse
+from scaling.io.config import config_from_dict
+from scaling.stats.error_structure import compare_error_structure
+
+
+def _no_children_left() -> bool:
+    """True when this process has no child left to reap (none running, none a zombie)."""
+    try:
+        os.waitpid(-1, os.WNOHANG)
+    except ChildProcessError:
+        return True
+    return False
+
+
+def _points(n: int = 400, seed: int = 3):
+    """Simulated y = 2 x^0.75 with lognormal scatter (invented; known truth)."""
+    rng = np.random.default_rng(seed)
+    x = 10 ** rng.uniform(0, 3, n)
+    return x, 2.0 * x ** 0.75 * 10 ** rng.normal(0, 0.1, n)
+
+
+def test_background_answer_is_the_call_made_here():
+    x, y = _points()
+    # internal consistency: the same function on the same arrays, in this process
+    assert Background(compare_error_structure, x, y).result() == compare_error_structure(x, y)
+    assert _no_children_left()
+
+
+def test_background_raises_what_the_call_raised():
+    x, y = _points()
+    job = Background(compare_error_structure, x, -y)   # negative y: no logarithms
+    with pytest.raises(DataError, match="positive"):
+        job.result()
+    assert _no_children_left()
+
+
+def _dies_in_a_child(parent: int, value: float) -> float:
+    if os.getpid() != parent:
+        os._exit(3)   # the forked child dies without answering
+    return value * 2
+
+
+def test_background_whose_child_died_is_computed_here():
+    assert Background(_dies_in_a_child, os.getpid(), 21.0).result() == 42.0
+    assert _no_children_left()
+
+
+def test_background_stopped_unread_leaves_no_process():
+    job = Background(sorted, range(10))
+    job.stop()
+    job.stop()   # idempotent
+    assert _no_children_left()
+
+
+def _table(tmp_path, n: int = 600):
+    rng = np.random.default_rng(11)
+    x = 10 ** rng.uniform(0, 3, n)
+    y = 2.0 * x ** 0.75 * 10 ** rng.normal(0, 0.1, n)
+    path = tmp_path / "t.csv"
+    pd.DataFrame({"mass": x, "rate": y, "grp": np.repeat(["a", "b", "c"], n // 3)}).to_csv(
+        path, index=False)
+    return config_from_dict({"data": {"file": str(path), "x": "mass", "y": "rate",
+                                      "group": "grp"},
+                             "exponents": {"three_quarters": 0.75}}, base_dir=tmp_path)
+
+
+def test_error_structure_started_early_equals_the_one_computed_in_the_stage(
+        tmp_path, monkeypatch):
+    cfg = _table(tmp_path)
+    started = []
+
+    class Counted(Background):
+        def __init__(self, fn, *args):
+            started.append(fn)
+            super().__init__(fn, *args)
+
+    monkeypatch.setattr(diag, "Background", Counted)
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10)
+    early = analyse(cfg).tables["error_structure"]
+    assert len(started) == 1   # the pooled line's comparison went to a forked process
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10**9)
+    late = analyse(cfg).tables["error_structure"]
+    assert len(started) == 1
+    # internal consistency: the same function of the same points, in either process
+    pd.testing.assert_frame_equal(early, late, check_exact=True)
+    assert _no_children_left()
+
+
+def test_run_failing_after_the_early_start_leaves_no_process(tmp_path, monkeypatch):
+    cfg = _table(tmp_path)
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10)
+    import scaling.run.pipeline as pipeline
+
+    def broken(cfg, state):
+        raise DataError("a stage failed")
+
+    monkeypatch.setattr(pipeline, "fit_stage", broken)
+    with pytest.raises(DataError, match="a stage failed"):
+        analyse(cfg)
+    assert _no_children_left()
+
+
+def test_no_early_start_below_the_threshold_or_without_the_check(tmp_path):
+    cfg = _table(tmp_path)
+    pts = pd.DataFrame({"x": [1.0, 2.0], "y": [1.0, 2.0]})
+    assert diag.early_checks(cfg, pts) == {}   # two points: not worth a process
+    assert diag.early_checks(cfg, None) == {}
