@@ -10,6 +10,7 @@ import pandas as pd
 import pytest
 
 from scaling.errors import DataError
+from scaling.render.figure_worker import one_process
 from scaling.run import diagnostics as diag
 from scaling.run.background import Background
 from scaling.run.pipeline import analyse
@@ -35,8 +36,10 @@ def _points(n: int = 400, seed: int = 3):
 
 def test_background_answer_is_the_call_made_here():
     x, y = _points()
+    job = Background(compare_error_structure, x, y)
+    assert job._pid is not None or one_process()   # forked where forking is allowed
     # internal consistency: the same function on the same arrays, in this process
-    assert Background(compare_error_structure, x, y).result() == compare_error_structure(x, y)
+    assert job.result() == compare_error_structure(x, y)
     assert _no_children_left()
 
 
@@ -119,3 +122,10 @@ def test_no_early_start_below_the_threshold_or_without_the_check(tmp_path):
     pts = pd.DataFrame({"x": [1.0, 2.0], "y": [1.0, 2.0]})
     assert diag.early_checks(cfg, pts) == {}   # two points: not worth a process
     assert diag.early_checks(cfg, None) == {}
+
+
+def test_background_forks_nothing_when_asked_for_one_process(monkeypatch):
+    monkeypatch.setenv("SCALING_ONE_PROCESS", "1")
+    job = Background(_dies_in_a_child, os.getpid(), 4.0)
+    assert job._pid is None   # nothing forked: computed when asked, in this process
+    assert job.result() == 8.0

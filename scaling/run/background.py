@@ -5,8 +5,11 @@ worker waits for its inputs then).  A check that needs only the cleaned points -
 error-structure comparison's nonlinear fit over every point -- can use that core: it is
 forked once the points exist and collected when the diagnostics read it.  The child
 runs the same function on the same arrays, so the numbers are the same bits as a call
-in the run's own process; whenever the child cannot answer (no ``fork`` on this system,
-it died, its answer is cut short), the call is made here instead.
+in the run's own process.  Where figures are drawn in one process
+(:func:`~scaling.render.figure_worker.one_process`: not Linux, one core, other threads
+running, ``SCALING_ONE_PROCESS=1``) nothing is forked and the call is made when its
+answer is asked for; so it is when the child cannot answer (it died, its answer is
+cut short).
 """
 
 from __future__ import annotations
@@ -17,7 +20,7 @@ import pickle
 import signal
 from typing import Any, Callable
 
-from ..render.figure_worker import die_with_parent
+from ..render.figure_worker import die_with_parent, one_process
 
 __all__ = ["Background"]
 
@@ -43,7 +46,7 @@ class Background:
         self._call = (fn, args)
         self._pid = None
         self._read_end = None
-        if not hasattr(os, "fork"):
+        if one_process():   # no fork: not Linux, one core, other threads, or asked not to
             return
         read_end, write_end = os.pipe()
         parent = os.getpid()
