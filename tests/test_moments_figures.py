@@ -222,15 +222,38 @@ class TestCountsUnchanged:
 
 
 class TestDask:
-    def test_partitions_pick_the_same_points(self, small, large, large_runs):
+    def test_partitions_pick_the_same_points_in_one_read(self, small, large, large_runs,
+                                                          monkeypatch):
         pytest.importorskip("dask.dataframe")
+        from scaling.run import second_pass
+        further = []   # partitions read once more to pick points
+        plain = second_pass._partition_drawn
+        monkeypatch.setattr(second_pass, "_partition_drawn",
+                            lambda *a: further.append(1) or plain(*a))
         # chunk_size 97: Dask blocks of 64 kB, several partitions over each file; all
-        # points (600) picked in the partitions' pass, and a subset (of 6499) picked by
-        # a second read once the partitions before each are counted
+        # points (600), or a subset (of 6499) placed by the first pass's count of each
+        # partition, picked in the second pass's one read of the partitions
         few = _run(small, large=True, engine="dask")
         _assert_same_points(few.tables[DRAWN_TABLE],
                             _expected_points(_run(small, large=False)))
         many = _run(large, large=True, engine="dask")
         _assert_same_points(many.tables[DRAWN_TABLE],
                             _expected_points(large_runs["memory"]))
+        assert not further
         assert _svg(few, "scaling") == _svg(_run(small, large=False), "scaling")
+
+    def test_partitions_without_counts_are_read_again_for_their_points(
+            self, large, large_runs, monkeypatch):
+        pytest.importorskip("dask.dataframe")
+        from scaling.run import moments_path, second_pass
+        plain_read = moments_path.read_moments
+        monkeypatch.setattr(moments_path, "read_moments",   # a first pass that counts none
+                            lambda *a, **k: plain_read(*a, **{**k, "partition_points": None}))
+        further = []
+        plain = second_pass._partition_drawn
+        monkeypatch.setattr(second_pass, "_partition_drawn",
+                            lambda *a: further.append(1) or plain(*a))
+        many = _run(large, large=True, engine="dask")
+        _assert_same_points(many.tables[DRAWN_TABLE],
+                            _expected_points(large_runs["memory"]))
+        assert further

@@ -256,6 +256,10 @@ class MomentsStage:
         instead of parsing the file again (and then deletes); None with Dask
         (its partitions are read again) and with ``data.average_within`` (the
         second pass reads the unit means held in ``moments``).
+    partition_points : tuple or None
+        With Dask (without ``data.average_within``): each partition's (rows read,
+        points used) in file order, so the second pass picks the points the figures
+        draw in its one read of the partitions.
     input_sha256 : Future or None
         The input file's SHA-256 for the manifest, computed in a thread while
         the first pass parses (hashlib lets go of the interpreter lock); None
@@ -274,6 +278,7 @@ class MomentsStage:
     moments: object = None   # the second pass (run/second_pass.py) reads them
     point_sets: dict = field(default_factory=dict)
     spill: RowSpill | None = None
+    partition_points: tuple | None = None
     input_sha256: Future | None = None
 
     def input_hash(self) -> str | None:
@@ -318,9 +323,11 @@ def moments_stage(cfg, reason: str) -> MomentsStage:
 def _moments_stage(cfg, reason: str, spill: RowSpill | None) -> MomentsStage:
     base = parse_log_base(cfg.model.log_base)
     d = cfg.data
+    counted = [] if cfg.engine == "dask" and not d.average_within else None
     gm = read_moments(d.file, x=d.x, y=d.y, group=d.group, log_base=base,
                       chunk_size=d.chunk_size, engine=cfg.engine, scheduler=cfg.scheduler,
-                      sep=_sep(cfg), decimal=d.decimal, unit=d.average_within, spill=spill)
+                      sep=_sep(cfg), decimal=d.decimal, unit=d.average_within, spill=spill,
+                      partition_points=counted)
     methods = [m for m in cfg.model.methods if m in METHODS]
     others = [m for m in cfg.model.methods if m not in METHODS]
     notes: list[str] = []
@@ -385,7 +392,8 @@ def _moments_stage(cfg, reason: str, spill: RowSpill | None) -> MomentsStage:
     }
     return MomentsStage(config=cfg, data=data, fits=fits, slope_tests=slope_tests,
                         line_fits=line_fits, tables=tables, messages=tuple(messages),
-                        notes=tuple(notes), manifest=manifest, moments=gm, spill=spill)
+                        notes=tuple(notes), manifest=manifest, moments=gm, spill=spill,
+                        partition_points=None if counted is None else tuple(counted))
 
 
 def _in_fits_order(tests: pd.DataFrame, fits: pd.DataFrame, exponents: dict) -> pd.DataFrame:

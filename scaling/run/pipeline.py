@@ -302,7 +302,7 @@ def _moments_run(cfg, reason: str) -> RunResult:
     # The second pass over the file: correction factors, residual checks, predictions.
     return with_second_pass(result, cfg, path.moments, path.data.units,
                             parse_log_base(cfg.model.log_base), point_sets=path.point_sets,
-                            spill=path.spill)
+                            spill=path.spill, partition_points=path.partition_points)
 
 
 def write_outputs(result: RunResult, out_dir, *, force: bool = False, worker=None) -> RunResult:

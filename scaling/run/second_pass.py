@@ -302,14 +302,14 @@ def _feed_points(acc: ResidualSums, between, points: pd.DataFrame, label_index,
         between.add(local, X, Y)
 
 
-def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped, take: int):
+def _partition_sums(pdf, cfg, base, params, between_params, labels, grouped, positions):
     """The residual sums of one Dask partition (rows numbered from 1 within it), its rows
-    read and used, and, when ``take`` (the run's n, at most
-    :data:`~scaling.render.thinning.MAX_DRAWN_POINTS`: every point is drawn), its points."""
+    read and used, and, when ``positions`` (sorted, among its usable rows) is not None,
+    its points at those positions, the points the figures draw."""
     pdf.columns = [str(col).strip() for col in pdf.columns]
     acc = ResidualSums(**params)
     between = GroupResidualSums(**between_params)
-    drawn = DrawnPoints(0, positions=np.arange(take)) if take else None
+    drawn = DrawnPoints(0, positions=positions) if positions is not None else None
     n_rows, n_used = _feed(acc, between, pdf, cfg, base, pd.Index(labels), grouped, 0, drawn)
     return acc, between, n_rows, n_used, (drawn.parts if drawn is not None else None)
 
@@ -322,22 +322,41 @@ def _partition_drawn(pdf, cfg, base, labels, grouped, positions):
     return drawn.parts
 
 
+def _partition_picks(drawn: DrawnPoints | None, partition_points, n_parts: int) -> list:
+    """Each Dask partition's positions (among its usable rows) to pick for ``drawn``, or
+    None: all its points when every point is drawn; else those the first pass's counts
+    (``partition_points``) place in it; without counts, none (a further read picks)."""
+    if drawn is None:
+        return [None] * n_parts
+    if drawn.every:
+        return [np.arange(drawn.positions.size)] * n_parts
+    if partition_points is None or len(partition_points) != n_parts:
+        return [None] * n_parts
+    used = np.cumsum([0] + [u for _, u in partition_points])
+    cut = np.searchsorted(drawn.positions, used)
+    return [drawn.positions[cut[i]:cut[i + 1]] - used[i] if cut[i + 1] > cut[i] else None
+            for i in range(n_parts)]
+
+
 def _offset_parts(parts, rows: int) -> list:
     """A partition's picked points with its row numbers moved on by ``rows``."""
     return [(p[0] + rows, *p[1:]) for p in parts]
 
 
 def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str,
-                  spill=None, drawn: DrawnPoints | None = None) -> tuple:
+                  spill=None, drawn: DrawnPoints | None = None,
+                  partition_points=None) -> tuple:
     """Read the rows again: the filled :class:`ResidualSums`, the group-residual sums of
     the pooled ``checked`` line, the set keys and the sets' moments.
 
     ``spill``: the first pass's :class:`~scaling.run.table_moments.RowSpill`; when
     usable its chunks are read instead of the file (the same rows, chunk for chunk).
-    ``drawn``: also pick the points the figures draw (filled in place); with Dask and
-    more points than are drawn, a partition's points are known only once the
-    partitions before it are counted, so they are picked in a second read of the
-    partitions (holding them would hold every row).
+    ``drawn``: also pick the points the figures draw (filled in place).  With Dask a
+    partition's points are numbered from where the partitions before it end:
+    ``partition_points``, each partition's (rows read, points used) counted by the first
+    pass, tells where, so the points are picked in this one read; without those counts
+    (or should a partition's count differ) they are picked in a further read of the
+    partitions that hold some (holding the partitions would hold every row).
     """
     d = cfg.data
     grouped = bool(d.group)
@@ -372,22 +391,28 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
         # every row in the workers' memory, which this road exists to avoid.
         import dask   # the first pass has checked that it is installed
         parts = dask_partitions(path, kind, columns, d.chunk_size, sep, d.decimal)
-        every = drawn is not None and drawn.every
-        take = int(drawn.positions.size) if every else 0
+        picks = _partition_picks(drawn, partition_points, len(parts))
         tasks = [dask.delayed(_partition_sums)(p, cfg, base, params, between_params,
-                                               list(label_index), grouped, take)
-                 for p in parts]
+                                               list(label_index), grouped, pick)
+                 for p, pick in zip(parts, picks)]
         offset = used = 0
         firsts = []   # (first row, first point) of each partition
+        seen, found = [], []   # each partition's (rows read, points used); points picked
         for part, part_between, n_rows, n_used, picked in dask_compute(tasks, cfg.scheduler):
             part.offset_rows(offset)    # file order
             acc.merge(part)
             between.merge(part_between)
-            if picked:
-                drawn.parts += _offset_parts(picked, offset)
+            found += _offset_parts(picked, offset) if picked else []
             firsts.append((offset, used))
+            seen.append((n_rows, n_used))
             offset, used = offset + n_rows, used + n_used
-        if drawn is not None and not every:
+        # picked right: every point, or positions placed by the counts this read saw too
+        picked_here = drawn is not None and (drawn.every or (
+            partition_points is not None
+            and [tuple(c) for c in partition_points] == seen))
+        if picked_here:
+            drawn.parts += found
+        if drawn is not None and not picked_here:
             ends = [u for _, u in firsts[1:]] + [used]
             cut = np.searchsorted(drawn.positions, [u for _, u in firsts] + [used])
             later, where = [], []
@@ -416,7 +441,8 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
 
 def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
                 base, other_tables: dict | None = None,
-                point_sets: dict | None = None, spill=None) -> SecondPass:
+                point_sets: dict | None = None, spill=None,
+                partition_points=None) -> SecondPass:
     """Residual sums over a second read of the file, and the tables they give.
 
     Parameters
@@ -439,6 +465,9 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
         accuracy and factors are measured on them, as on the in-memory road.
     spill : RowSpill, optional
         The first pass's rows on disk (read instead of the file when usable).
+    partition_points : sequence, optional
+        With Dask: each partition's (rows read, points used) from the first pass
+        (:func:`residual_sums`).
     """
     other_tables = other_tables or {}
     methods = list(dict.fromkeys(fits["method"]))
@@ -450,7 +479,7 @@ def second_pass(cfg, gm, fits: pd.DataFrame, line_fits: dict, *, units: dict,
     drawn = (None if gm.units is not None or not _draws_points(cfg)
              else DrawnPoints(n_points, gm.labels if cfg.data.group else None, base))
     acc, between, keys, m = residual_sums(cfg, gm, fits, methods, base, checked, spill,
-                                          drawn)
+                                          drawn, partition_points)
     res = acc.result()
     # a point's name: its unit under data.average_within (as in memory), else none
     names = ({} if gm.units is None
@@ -851,15 +880,17 @@ def _collector_paused():
 
 
 def with_second_pass(result, cfg, gm, units, base, *, point_sets: dict | None = None,
-                     spill=None):
+                     spill=None, partition_points=None):
     """``result`` (a RunResult of the moments path) with the second pass's tables;
     ``point_sets``: points held in memory (the group means), measured as in memory;
-    ``spill``: the first pass's rows on disk, read instead of the file and then deleted."""
+    ``spill``: the first pass's rows on disk, read instead of the file and then deleted;
+    ``partition_points``: with Dask, each partition's (rows read, points used)."""
     try:
         with _collector_paused():
             extra = second_pass(cfg, gm, result.fits, result.line_fits, units=units,
                                 base=base, other_tables=result.tables,
-                                point_sets=point_sets, spill=spill)
+                                point_sets=point_sets, spill=spill,
+                                partition_points=partition_points)
     finally:
         if spill is not None:
             spill.close()

@@ -199,7 +199,8 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
                  chunk_size: int = 1_000_000, engine: str = "pandas",
                  reader: str = "pandas", scheduler: str | None = None, sep: str = ",",
                  decimal: str = ".", unit: str | None = None,
-                 spill: RowSpill | None = None) -> GroupedMoments:
+                 spill: RowSpill | None = None,
+                 partition_points: list | None = None) -> GroupedMoments:
     """Per-group moments of a csv or parquet file, read in chunks.
 
     Parameters
@@ -230,6 +231,10 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
         The pandas engine without ``unit`` appends every cleaned chunk to it
         (log x, log y, group code, row number) for a second pass that
         should not parse the file again; ignored otherwise.
+    partition_points : list, optional
+        Dask without ``unit``: filled with each partition's (rows read, points used),
+        in file order, so a second pass over the same partitions knows where each
+        partition's points start; ignored otherwise.
 
     Returns
     -------
@@ -256,7 +261,7 @@ def read_moments(path, *, x: str, y: str, group: str | None = None, log_base=10,
             **({unit: "data.average_within"} if unit else {})}
     if engine == "dask":
         result = _dask_moments(path, kind, columns, keys, x, y, group, unit, base, chunk_size,
-                               scheduler, sep, decimal)
+                               scheduler, sep, decimal, partition_points)
     elif unit:
         pieces, counts, n_read, n_dropped, units = [], {}, 0, 0, None
         for file in files_of(path, kind):
@@ -329,7 +334,7 @@ def _partition_units(pdf: pd.DataFrame, x, y, group, unit, base, decimal, first_
 
 
 def _dask_moments(path, kind, columns, keys, x, y, group, unit, base, chunk_size, scheduler,
-                  sep, decimal) -> GroupedMoments:
+                  sep, decimal, partition_points: list | None = None) -> GroupedMoments:
     partitions = dask_partitions(path, kind, columns, chunk_size, sep, decimal, keys)
     import dask   # dask_partitions has checked that it is installed
     if unit:
@@ -371,6 +376,8 @@ def _dask_moments(path, kind, columns, keys, x, y, group, unit, base, chunk_size
     n_read = n_dropped = 0
     frames = []
     for frame, c, n_rows, n_drop in parts:        # one small item per partition
+        if partition_points is not None:
+            partition_points.append((n_rows, n_rows - n_drop))
         frames.append(frame)
         n_read += n_rows
         n_dropped += n_drop
