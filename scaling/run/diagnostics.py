@@ -126,7 +126,7 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
             rows = np.arange(len(sel))
             labels = {i: str(g) for i, g in enumerate(sel["group"])}
         else:
-            rows = sel["row"].to_numpy()
+            rows = set_columns(sel, "row")[0]
             labels = None   # the flagged rows' units, looked up below
         X, Y = _logs(logs, (scope, group), sel)
         try:
@@ -198,7 +198,7 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
                 if started is not None and started[0] is sel:
                     es = started[1].result()
                 else:
-                    es = _error_structure(sel["x"].to_numpy(), sel["y"].to_numpy())
+                    es = _error_structure(*set_columns(sel, "x", "y"))
             except ScalingError:
                 continue
             es_results[(scope, group)] = es
