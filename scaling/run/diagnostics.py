@@ -122,6 +122,8 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
     for (scope, group, method), fit, sel in todo:
         if sel is None or (fit is not None and len(sel) != fit.n):
             continue
+        if scope == "common":   # all the points again: the groups' columns are read
+            logs.clear()
         if scope == "group_means":
             rows = np.arange(len(sel))
             labels = {i: str(g) for i, g in enumerate(sel["group"])}
@@ -259,11 +261,15 @@ def _ordinary(message: str) -> str:
     return message
 
 
-def _logs(cache: dict, key: tuple, sel: pd.DataFrame) -> tuple:
-    """A point set's log x and log y, read from its frame once (``cache`` by key)."""
-    if key not in cache:
-        cache[key] = set_columns(sel, "log_x", "log_y")
-    return cache[key]
+def _logs(cache: dict, key: tuple, sel, *, keep: bool = True) -> tuple:
+    """A point set's log x and log y, read from its frame once (``cache`` by key);
+    ``keep=False``: read (when not in ``cache``) without keeping them there."""
+    if key in cache:
+        return cache[key]
+    xy = set_columns(sel, "log_x", "log_y")
+    if keep:
+        cache[key] = xy
+    return xy
 
 
 def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dict:
@@ -276,11 +282,15 @@ def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dic
         sel = point_sets.get(key[:2])
         if (key[0] == "group" and sel is not None and len(sel) == fit.n
                 and len(sel) >= MIN_N and fit.estimable):
-            by_method.setdefault(key[2], []).append((key, fit, _logs(cache, key[:2], sel)))
+            by_method.setdefault(key[2], []).append((key, fit, sel))
     out = {}
     runs = [lines[lo:hi] for lines in by_method.values()   # a few MB of rows at a time
-            for lo, hi in chunk_runs([xy[0].size for _, _, xy in lines], CHUNK_ROWS)]
-    for lines in runs:
+            for lo, hi in chunk_runs([len(sel) for _, _, sel in lines], CHUNK_ROWS)]
+    for run in runs:
+        # each run's columns read here and let go (``cache`` is left to the lines, which
+        # read the groups' columns after the pooled line's checks, the largest)
+        lines = [(key, fit, _logs(cache, key[:2], sel, keep=key[:2] in cache))
+                 for key, fit, sel in run]
         X = np.concatenate([xy[0] for _, _, xy in lines])
         e = np.concatenate([xy[1] - fit.intercept - fit.slope * xy[0] for _, fit, xy in lines])
         codes = np.repeat(np.arange(len(lines)), [xy[0].size for _, _, xy in lines])
