@@ -343,6 +343,27 @@ class TestLean:
         assert pts["n_rows"].tolist() == [1] * 50 and changed["n_rows"].sum() == 54
 
 
+    @pytest.mark.parametrize("block", [4096, 1 << 24])
+    def test_values_do_not_depend_on_the_parsed_block(self, tmp_path, monkeypatch, block):
+        # internal consistency: a file parsed in many small blocks or in one gives the
+        # text reading's points bit for bit (labels, numbers, logs and counts)
+        from scaling.io import fast_csv
+        rng = np.random.default_rng(11)
+        x, y = rng.lognormal(0, 3, 3000), rng.lognormal(0, 3, 3000)
+        rows = "".join(f"{float(a)!r},{b:.6e},sp{i % 13}\n"
+                       for i, (a, b) in enumerate(zip(x, y)))
+        _write(tmp_path, "mass,rate,species\n" + rows)
+        cfg = _cfg(tmp_path, group="species")
+        reference = clean_table(read_table(cfg), cfg)
+        monkeypatch.setattr(fast_csv, "BLOCK_BYTES", block)
+        calls = []
+        real = fast_csv._arrow_read
+        monkeypatch.setattr(fast_csv, "_arrow_read",
+                            lambda *a, **k: calls.append(1) or real(*a, **k))
+        _assert_same(load_data(cfg), reference)
+        assert calls   # the plain reading answered
+
+
 class TestToNumbers:
     """``_to_numbers`` gives ``pd.to_numeric(text, errors="coerce")``'s bits (the text
     reading's own rule: internal consistency), column by column."""
