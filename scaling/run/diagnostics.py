@@ -102,7 +102,10 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
     targets = exponent_targets(cfg)
     diag_records, curv_rows, es_rows = [], [], []
     curved: set = set()   # (scope, group) of the curvature rows so far
-    infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
+    # influential_rows: (scope, group, method, its set's flagged rows) of each line, made
+    # into columns once every line is checked (a hundred thousand cells are not held
+    # while the pooled line's checks run)
+    flagged_lines: list = []
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
     pooled = point_sets.get(("pooled", ""))
     if pooled is not None and (m := known_moments(pooled)) is not None:
@@ -161,15 +164,8 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
                           else _unit_labels(sel, rows, flagged)) if flagged else []
             seen = flagged_of[(scope, group)] = (d.influential_rows, flagged, cooks,
                                                  named_rows)
-        _, flagged, cooks, named_rows = seen
-        if flagged:
-            k = len(flagged)
-            infl["scope"] += [scope] * k
-            infl["group"] += [group] * k
-            infl["method"] += [method] * k
-            infl["row"] += [None] * k if scope == "group_means" else flagged
-            infl["label"] += named_rows
-            infl["cooks_distance"] += cooks
+        if seen[1]:
+            flagged_lines.append((scope, group, method, seen))
         # the verdicts read the checks only: the per-point arrays (a million points
         # for the pooled line, one array per method) are let go once tabled
         d = results[(scope, group, method)] = replace(d, residuals=_NO_POINTS,
@@ -210,6 +206,16 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
                                 "aicc": m.aicc, "delta_aicc": es.delta_aicc,
                                 "preferred": es.preferred})
 
+    infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
+    for scope, group, method, (_, flagged, cooks, named_rows) in flagged_lines:
+        k = len(flagged)
+        infl["scope"] += [scope] * k
+        infl["group"] += [group] * k
+        infl["method"] += [method] * k
+        infl["row"] += [None] * k if scope == "group_means" else flagged
+        infl["label"] += named_rows
+        infl["cooks_distance"] += cooks
+    del flagged_lines, flagged_of
     messages = diagnostics_messages(results, es_results, point_sets, cfg, answer=answer,
                                     points=state.tables.get("points_to_check"))
     phylo = answer_model_checks(cfg, state) if cfg.data.tree is not None else None
