@@ -325,6 +325,45 @@ class TestLean:
         assert reference.points["group"].dtype == pd.StringDtype("pyarrow", na_value=np.nan)
 
 
+    @pytest.mark.parametrize("rows_text", ["", "2.5,n/a,sp1\n"])
+    def test_the_count_column_is_ones_held_once(self, tmp_path, rows_text):
+        # exact law: without averaging each point is one input row; the column holds the
+        # single number 1 (stride 0, read-only) and behaves as a column of ones; a write
+        # to a copy leaves the points as they are (both roads: plain and text reading)
+        rows = "".join(f"{i + 1}.5,{2 * i + 1}e-3,sp{i % 7}\n" for i in range(50))
+        _write(tmp_path, "mass,rate,species\n" + rows + rows_text)
+        cfg = _cfg(tmp_path, group="species")
+        pts = load_data(cfg).points
+        assert len(pts) == 50
+        pd.testing.assert_series_equal(pts["n_rows"], pd.Series(np.ones(50, dtype=np.int64),
+                                                                name="n_rows"))
+        assert pts["n_rows"].to_numpy().strides == (0,)
+        changed = pts.copy()
+        changed.loc[3, "n_rows"] = 5
+        assert pts["n_rows"].tolist() == [1] * 50 and changed["n_rows"].sum() == 54
+
+
+    @pytest.mark.parametrize("block", [4096, 1 << 24])
+    def test_values_do_not_depend_on_the_parsed_block(self, tmp_path, monkeypatch, block):
+        # internal consistency: a file parsed in many small blocks or in one gives the
+        # text reading's points bit for bit (labels, numbers, logs and counts)
+        from scaling.io import fast_csv
+        rng = np.random.default_rng(11)
+        x, y = rng.lognormal(0, 3, 3000), rng.lognormal(0, 3, 3000)
+        rows = "".join(f"{float(a)!r},{b:.6e},sp{i % 13}\n"
+                       for i, (a, b) in enumerate(zip(x, y)))
+        _write(tmp_path, "mass,rate,species\n" + rows)
+        cfg = _cfg(tmp_path, group="species")
+        reference = clean_table(read_table(cfg), cfg)
+        monkeypatch.setattr(fast_csv, "BLOCK_BYTES", block)
+        calls = []
+        real = fast_csv._arrow_read
+        monkeypatch.setattr(fast_csv, "_arrow_read",
+                            lambda *a, **k: calls.append(1) or real(*a, **k))
+        _assert_same(load_data(cfg), reference)
+        assert calls   # the plain reading answered
+
+
 class TestToNumbers:
     """``_to_numbers`` gives ``pd.to_numeric(text, errors="coerce")``'s bits (the text
     reading's own rule: internal consistency), column by column."""

@@ -9,8 +9,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from scaling.stats.cooks import SPAN, ols_cooks_distances, sliced_sums
 from scaling.stats.error_structure import _polyfit_line
-from scaling.stats.influence import points_to_check
+from scaling.stats.influence import leave_one_out_slopes, points_to_check, strong_influence
 from scaling.stats.residual_checks import quadratic_solve, quadratic_t
 
 
@@ -59,7 +60,8 @@ def _quadratic_plain(X, Y):
             "statistic": t, "p_value": p}
 
 
-@pytest.mark.parametrize("shape", [(3,), (4,), (1000,), (5, 7), (2, 3, 50)])
+@pytest.mark.parametrize("shape", [(3,), (4,), (1000,), (5, 7), (2, 3, 50), (SPAN + 1,),
+                                   (3 * SPAN + 77,)])
 def test_quadratic_fit_equals_its_plain_steps_bit_for_bit(shape):
     # internal consistency: the shared sums (c^2 once, the means once) give the same bits
     rng = np.random.default_rng(5)
@@ -73,3 +75,59 @@ def test_quadratic_fit_equals_its_plain_steps_bit_for_bit(shape):
             got, want = quadratic_t(x, y), _quadratic_plain(x, y)
         for k, v in want.items():
             assert np.array_equal(got[k], v, equal_nan=True), (shape, k)
+
+
+@pytest.mark.parametrize("n", [1, 7, 8, 129, SPAN, SPAN + 1, 2 * SPAN + 8, 5 * SPAN + 13,
+                               1_000_003])
+def test_sliced_sums_are_numpys_sums_bit_for_bit(n):
+    # internal consistency: the slices follow numpy's pairwise order, so each sum is the
+    # float numpy.sum gives the whole array (values of many magnitudes and both signs)
+    rng = np.random.default_rng(n)
+    a = rng.standard_normal(n) * 10.0 ** rng.uniform(-8, 8, n)
+    b = rng.standard_normal(n)
+    got = sliced_sums(lambda lo, hi: (a[lo:hi] * b[lo:hi], a[lo:hi] * a[lo:hi], b[lo:hi]), n)
+    want = [np.sum(a * b), np.sum(a * a), np.sum(b)]
+    assert [float(v) for v in got] == [float(v) for v in want]
+    assert np.array_equal(np.array(want).view(np.int64), got.view(np.int64))
+
+
+def _cooks_plain(X, Y):
+    # Cook's distances written out plainly on whole arrays (Cook 1977's formula)
+    n = X.size
+    xc, yc = X - X.mean(), Y - Y.mean()
+    sxx = np.sum(xc * xc)
+    b = np.sum(xc * yc) / sxx
+    e = yc - b * xc
+    s2 = np.sum(e * e) / (n - 2)
+    h = 1.0 / n + xc * xc / sxx
+    return e * e * h / (2 * s2 * (1 - h) ** 2)
+
+
+def _long_cases(n):
+    rng = np.random.default_rng(n)
+    X = rng.normal(1.5, 0.6, n)
+    return [(X, 0.3 + 0.75 * X + rng.normal(0, 0.1, n)),    # scatter
+            (X, 0.3 + 0.75 * X),                             # exact line
+            (np.full(n, 1.5), rng.normal(0, 1, n)),          # constant x
+            (np.where(X > 2.9, np.nan, X), X)]               # NaN
+
+
+@pytest.mark.parametrize("n", [SPAN + 1, 3 * SPAN + 77])
+def test_long_line_influence_equals_the_plain_whole_array_steps(n):
+    # internal consistency: a long line's Cook's distances, leave-one-out slopes and
+    # strong-influence screen, taken a slice at a time, are the plain steps' bits (the
+    # Cook's distances written out above; the others as the stacked, many-sample form)
+    for X, Y in _long_cases(n):
+        with np.errstate(all="ignore"):
+            assert np.array_equal(ols_cooks_distances(X, Y), _cooks_plain(X, Y),
+                                  equal_nan=True)
+            if np.isnan(X).any():
+                continue   # the public checks refuse NaN before any sum
+            for method in ("ols", "sma", "ma"):
+                assert np.array_equal(leave_one_out_slopes(X, Y, method=method),
+                                      leave_one_out_slopes(X[None], Y[None], method=method)[0],
+                                      equal_nan=True)
+                got = strong_influence(X, Y, method=method)
+                want = strong_influence(X[None], Y[None], method=method)
+                for k, v in got.items():
+                    assert np.array_equal(v, np.asarray(want[k])[0], equal_nan=True), (k, method)

@@ -19,7 +19,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
-from pandas.testing import assert_frame_equal, assert_index_equal
+from pandas.testing import assert_frame_equal, assert_index_equal, assert_series_equal
 
 import scaling
 from scaling.io.config import config_from_dict
@@ -431,12 +431,17 @@ class TestFitStageGroups:
         assert [k for k in fitted.point_sets] == [("pooled", "")] + [("group", g) for g in groups]
         for g in groups:
             got, want = fitted.point_sets[("group", g)], pts[pts["group"] == g]
-            # the labels are held as codes of the group names (a categorical): the same
-            # text, in the same column, two bytes a row
-            assert list(got.columns) == list(want.columns)
-            assert_frame_equal(got.drop(columns="group"), want.drop(columns="group"))
-            assert got["group"].astype(str).tolist() == want["group"].astype(str).tolist()
-            assert_index_equal(got["group"].cat.categories, pd.Index(groups, dtype=str))
+            # a view of the table's rows (no copy held): as a frame, column by column and
+            # by its size, columns and index it is the plain selection of the group's rows
+            assert_frame_equal(got.to_frame(), want)
+            assert len(got) == len(want) and got.shape == want.shape
+            assert_index_equal(got.columns, want.columns)
+            assert_index_equal(got.index, want.index)
+            for c in want.columns:
+                assert c in got
+                assert_series_equal(got[c], want[c])
+            assert_frame_equal(got[["x", "group"]], want[["x", "group"]])
+            assert "no_such_column" not in got
 
     def test_slope_table_equals_each_fits_own_tests(self, tmp_path, frame):
         # internal consistency: slope_tests.csv rows equal LineFit.test_slope, in fit order
@@ -456,6 +461,40 @@ class TestFitStageGroups:
             assert (row.statistic_type, row.p_method) == (t.statistic_type, t.p_method)
 
 
+def test_group_points_equal_the_group_selection_with_units_and_dropped_rows(tmp_path):
+    # internal consistency: with rows averaged within units and rows dropped (a missing
+    # y, a non-numeric x, a zero), each group's points read column by column and through
+    # set_columns are the selection of the cleaned points of that group
+    from scaling.run.fits import set_columns
+    rng = np.random.default_rng(8)
+    units = np.repeat([f"u{i}" for i in range(12)], 3)
+    frame = pd.DataFrame({"x": rng.lognormal(1, 1, 36).round(4).astype(object),
+                          "y": rng.lognormal(1, 1, 36).round(4).astype(object),
+                          "g": np.repeat(["b", "a", "c", "a"], 9), "u": units})
+    frame.loc[4, "y"] = np.nan
+    frame.loc[7, "x"] = "n/a"
+    frame.loc[30, "y"] = 0.0
+    frame.to_csv(tmp_path / "t.csv", index=False)
+    cfg = config_from_dict({"data": {"file": "t.csv", "x": "x", "y": "y", "group": "g",
+                                     "average_within": "u"}}, base_dir=tmp_path)
+    read = read_stage(cfg)
+    assert len(read.data.dropped) == 3
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fitted = fit_stage(cfg, RunState(data=read.data, base=read.base))
+    pts = read.data.points
+    assert "unit" in pts and len(pts) == 12
+    for g in ("a", "b", "c"):
+        got, want = fitted.point_sets[("group", g)], pts[pts["group"] == g]
+        assert_frame_equal(got.to_frame(), want)
+        for c in want.columns:
+            assert_series_equal(got[c], want[c])
+        for c, values in zip(("row", "x", "log_y", "n_rows"),
+                             set_columns(got, "row", "x", "log_y", "n_rows")):
+            assert np.array_equal(values, want[c].to_numpy())
+        assert set_columns(got, "unit")[0].tolist() == want["unit"].tolist()
+
+
 def test_group_frames_columns_read_at_once_equal_each_frames_own():
     # internal consistency: set_columns of the frames of split_by_group (slices of the
     # sorted table, read once) equals each frame's own columns; any other frame, a
@@ -470,7 +509,7 @@ def test_group_frames_columns_read_at_once_equal_each_frames_own():
     codes, uniques = pd.factorize(pts["group"], sort=True)
     order, bounds = sort_by_group(codes, n_groups=len(uniques))
     frames = split_by_group(pts, order, bounds, [str(u) for u in uniques])
-    for frame in list(frames.values()) + [pts, frames["a"].copy()]:
+    for frame in list(frames.values()) + [pts, frames["a"].to_frame()]:
         got = set_columns(frame, "x", "log_x", "row")
         for name, values in zip(("x", "log_x", "row"), got):
             assert np.array_equal(values, frame[name].to_numpy())

@@ -616,13 +616,15 @@ def _used_labels(text: pd.Series, use: np.ndarray):
 def _points(rows, x, y, group, unit, cfg: DataConfig, path: Path, base) -> pd.DataFrame:
     """The ``points`` of a :class:`CleanData` from the used rows' numbers, group and unit
     (``group``, ``unit``: one label per row, or None); averaged within units when given."""
-    # the arrays become the frame's columns as they are (no copy into one block)
-    pts = pd.DataFrame({"row": rows, "x": x, "y": y}, copy=False)
-    pts["log_x"] = to_log(pts["x"].to_numpy(), base)
-    pts["log_y"] = to_log(pts["y"].to_numpy(), base)
+    # the arrays become the frame's columns as they are (no copy into one block); each
+    # point is one row, and the column saying so is one number seen n times (a read-only
+    # array of stride 0: eight bytes, not eight a row; pandas copies it if written)
+    columns = {"row": rows, "x": x, "y": y, "log_x": to_log(np.asarray(x), base),
+               "log_y": to_log(np.asarray(y), base)}
     if group is not None:
-        pts["group"] = group
-    pts["n_rows"] = 1
+        columns["group"] = group
+    columns["n_rows"] = np.broadcast_to(np.int64(1), (len(rows),))
+    pts = pd.DataFrame(columns, copy=False)
     if unit is not None:
         pts["unit"] = unit
         pts = _average_within(pts, cfg, path, base)

@@ -102,7 +102,10 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
     targets = exponent_targets(cfg)
     diag_records, curv_rows, es_rows = [], [], []
     curved: set = set()   # (scope, group) of the curvature rows so far
-    infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
+    # influential_rows: (scope, group, method, its set's flagged rows) of each line, made
+    # into columns once every line is checked (a hundred thousand cells are not held
+    # while the pooled line's checks run)
+    flagged_lines: list = []
     memos: dict = {}   # (scope, group) -> what diagnose shares between the lines of a set
     pooled = point_sets.get(("pooled", ""))
     if pooled is not None and (m := known_moments(pooled)) is not None:
@@ -122,11 +125,13 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
     for (scope, group, method), fit, sel in todo:
         if sel is None or (fit is not None and len(sel) != fit.n):
             continue
+        if scope == "common":   # all the points again: the groups' columns are read
+            logs.clear()
         if scope == "group_means":
             rows = np.arange(len(sel))
             labels = {i: str(g) for i, g in enumerate(sel["group"])}
         else:
-            rows = sel["row"].to_numpy()
+            rows = set_columns(sel, "row")[0]
             labels = None   # the flagged rows' units, looked up below
         X, Y = _logs(logs, (scope, group), sel)
         try:
@@ -159,15 +164,8 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
                           else _unit_labels(sel, rows, flagged)) if flagged else []
             seen = flagged_of[(scope, group)] = (d.influential_rows, flagged, cooks,
                                                  named_rows)
-        _, flagged, cooks, named_rows = seen
-        if flagged:
-            k = len(flagged)
-            infl["scope"] += [scope] * k
-            infl["group"] += [group] * k
-            infl["method"] += [method] * k
-            infl["row"] += [None] * k if scope == "group_means" else flagged
-            infl["label"] += named_rows
-            infl["cooks_distance"] += cooks
+        if seen[1]:
+            flagged_lines.append((scope, group, method, seen))
         # the verdicts read the checks only: the per-point arrays (a million points
         # for the pooled line, one array per method) are let go once tabled
         d = results[(scope, group, method)] = replace(d, residuals=_NO_POINTS,
@@ -198,7 +196,7 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
                 if started is not None and started[0] is sel:
                     es = started[1].result()
                 else:
-                    es = _error_structure(sel["x"].to_numpy(), sel["y"].to_numpy())
+                    es = _error_structure(*set_columns(sel, "x", "y"))
             except ScalingError:
                 continue
             es_results[(scope, group)] = es
@@ -208,6 +206,16 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
                                 "aicc": m.aicc, "delta_aicc": es.delta_aicc,
                                 "preferred": es.preferred})
 
+    infl: dict = {c: [] for c in INFLUENCE_COLUMNS}   # influential_rows, column by column
+    for scope, group, method, (_, flagged, cooks, named_rows) in flagged_lines:
+        k = len(flagged)
+        infl["scope"] += [scope] * k
+        infl["group"] += [group] * k
+        infl["method"] += [method] * k
+        infl["row"] += [None] * k if scope == "group_means" else flagged
+        infl["label"] += named_rows
+        infl["cooks_distance"] += cooks
+    del flagged_lines, flagged_of
     messages = diagnostics_messages(results, es_results, point_sets, cfg, answer=answer,
                                     points=state.tables.get("points_to_check"))
     phylo = answer_model_checks(cfg, state) if cfg.data.tree is not None else None
@@ -259,11 +267,15 @@ def _ordinary(message: str) -> str:
     return message
 
 
-def _logs(cache: dict, key: tuple, sel: pd.DataFrame) -> tuple:
-    """A point set's log x and log y, read from its frame once (``cache`` by key)."""
-    if key not in cache:
-        cache[key] = set_columns(sel, "log_x", "log_y")
-    return cache[key]
+def _logs(cache: dict, key: tuple, sel, *, keep: bool = True) -> tuple:
+    """A point set's log x and log y, read from its frame once (``cache`` by key);
+    ``keep=False``: read (when not in ``cache``) without keeping them there."""
+    if key in cache:
+        return cache[key]
+    xy = set_columns(sel, "log_x", "log_y")
+    if keep:
+        cache[key] = xy
+    return xy
 
 
 def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dict:
@@ -276,11 +288,15 @@ def _groups_breusch_pagan(line_fits: dict, point_sets: dict, cache: dict) -> dic
         sel = point_sets.get(key[:2])
         if (key[0] == "group" and sel is not None and len(sel) == fit.n
                 and len(sel) >= MIN_N and fit.estimable):
-            by_method.setdefault(key[2], []).append((key, fit, _logs(cache, key[:2], sel)))
+            by_method.setdefault(key[2], []).append((key, fit, sel))
     out = {}
     runs = [lines[lo:hi] for lines in by_method.values()   # a few MB of rows at a time
-            for lo, hi in chunk_runs([xy[0].size for _, _, xy in lines], CHUNK_ROWS)]
-    for lines in runs:
+            for lo, hi in chunk_runs([len(sel) for _, _, sel in lines], CHUNK_ROWS)]
+    for run in runs:
+        # each run's columns read here and let go (``cache`` is left to the lines, which
+        # read the groups' columns after the pooled line's checks, the largest)
+        lines = [(key, fit, _logs(cache, key[:2], sel, keep=key[:2] in cache))
+                 for key, fit, sel in run]
         X = np.concatenate([xy[0] for _, _, xy in lines])
         e = np.concatenate([xy[1] - fit.intercept - fit.slope * xy[0] for _, fit, xy in lines])
         codes = np.repeat(np.arange(len(lines)), [xy[0].size for _, _, xy in lines])

@@ -34,7 +34,7 @@ from ..stats.schema import FIT_COLUMNS, PHYLO_FIT_COLUMNS, SLOPE_TEST_COLUMNS, i
 __all__ = ["FitStage", "FitsTable", "fit_stage", "fits_table_stage", "value_range",
            "fit_moment_rows", "row_method_fit", "blank_numbers", "robust_n_boot",
            "nothing_estimable", "slope_tests", "with_note", "with_ranges", "split_by_group",
-           "set_columns", "known_group_codes"]
+           "set_columns", "known_group_codes", "GroupPoints"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -48,7 +48,8 @@ class FitStage:
     line_fits : dict
         ``(scope, group, method) -> LineFit`` for the estimable ones.
     point_sets : dict
-        ``("pooled", "")`` and ``("group", name)`` -> the points fitted.
+        ``("pooled", "")`` -> the points fitted (a DataFrame); ``("group", name)`` ->
+        the group's rows of them (a :class:`GroupPoints`).
     notes : tuple of str
     """
 
@@ -155,40 +156,31 @@ def fit_stage(cfg, state) -> FitStage:
 
 def split_by_group(pts: pd.DataFrame, order: np.ndarray, bounds: np.ndarray,
                    names: list) -> dict:
-    """Each group's rows of ``pts`` as a frame (``name -> DataFrame``).
+    """Each group's rows of ``pts`` (``name -> GroupPoints``).
 
-    One copy of the table sorted by group; each group's frame is a slice of it
-    (the frames ``pts.groupby("group")`` yields: same rows, index, columns and
-    values; a text ``group`` column is held as a categorical of ``names``).
-    ``order`` and ``bounds`` are those of :func:`scaling.stats.moments.sort_by_group`.
+    No copy of the table: each group is a :class:`GroupPoints`, the positions
+    ``order[bounds[g]:bounds[g + 1]]`` of ``pts``, whose columns are read out of
+    ``pts`` when asked for (the rows, index, columns and values of the frames
+    ``pts.groupby("group")`` yields).  ``order`` and ``bounds`` are those of
+    :func:`scaling.stats.moments.sort_by_group`.
     """
-    if "group" in pts and isinstance(pts["group"].dtype, pd.StringDtype) and len(names) > 1:
-        # the labels of the sorted rows as codes into ``names`` (group by group, so
-        # read off ``bounds``): two bytes a row instead of a copy of the text
-        in_order = pts.drop(columns="group").take(order)
-        codes = np.repeat(np.arange(len(names), dtype=np.min_scalar_type(len(names))),
-                          np.diff(bounds))
-        in_order.insert(pts.columns.get_loc("group"), "group",
-                        pd.Categorical.from_codes(codes, categories=names))
-    else:
-        in_order = pts.take(order)
-    frames = {name: in_order.iloc[a:b] for name, a, b in
-              zip(names, bounds[:-1].tolist(), bounds[1:].tolist())}
-    source = _Sorted(in_order)
-    for (name, frame), a, b in zip(frames.items(), bounds[:-1].tolist(), bounds[1:].tolist()):
-        _SLICES[id(frame)] = (weakref.ref(frame, _forget(id(frame))), source, a, b)
-    return frames
+    # positions as 32-bit integers below 2**31 rows: half the memory of the index
+    small = len(pts) <= np.iinfo(np.int32).max
+    source = _Sorted(pts, np.asarray(order, dtype=np.int32 if small else np.intp))
+    return {name: GroupPoints(source, a, b) for name, a, b in
+            zip(names, bounds[:-1].tolist(), bounds[1:].tolist())}
 
 
 class _Sorted:
-    """The table sorted by group behind the frames of :func:`split_by_group`, with each
-    numeric column read out of it once (reading a column of a frame costs pandas
-    about 0.1 ms: a thousand groups' columns one frame at a time cost 0.1 s)."""
+    """The points behind the :class:`GroupPoints` of :func:`split_by_group`: the table,
+    the positions of its rows group by group, and each numeric column read out of the
+    table once (reading a column of a frame costs pandas about 0.1 ms: a thousand
+    groups' columns one at a time cost 0.1 s)."""
 
-    __slots__ = ("frame", "columns")
+    __slots__ = ("frame", "order", "columns")
 
-    def __init__(self, frame: pd.DataFrame):
-        self.frame, self.columns = frame, {}
+    def __init__(self, frame: pd.DataFrame, order: np.ndarray):
+        self.frame, self.order, self.columns = frame, order, {}
 
     def column(self, name: str):
         """The column as an array (None when it is not a plain numeric numpy column)."""
@@ -202,9 +194,56 @@ class _Sorted:
         return self.columns[name]
 
 
-#: ``id(frame) -> (weak reference to it, _Sorted, start, stop)`` of the group frames
-#: made by :func:`split_by_group`; an entry goes when its frame does.
-_SLICES: dict = {}
+class GroupPoints:
+    """One group's rows of the points fitted, read out of the points when asked for.
+
+    What a reader of a group's point set uses of a DataFrame: ``len``, ``in``
+    (a column name), ``columns``, ``index``, ``shape`` and ``points[name]`` (a
+    Series: the column's values and index labels of the group's rows, in
+    table order; a list of names gives a DataFrame); :meth:`to_frame` gives
+    the whole frame (``pts[pts["group"] == name]``).  Read-only: each read
+    takes the rows out of the table, so no copy of the table is held while the
+    run lasts.  :func:`set_columns` reads several columns of many groups at
+    array speed.
+    """
+
+    __slots__ = ("_source", "_start", "_stop")
+
+    def __init__(self, source: _Sorted, start: int, stop: int):
+        self._source, self._start, self._stop = source, start, stop
+
+    @property
+    def positions(self) -> np.ndarray:
+        """The group's row positions in the points (ascending)."""
+        return self._source.order[self._start:self._stop]
+
+    def __len__(self) -> int:
+        return self._stop - self._start
+
+    def __contains__(self, name) -> bool:
+        return name in self._source.frame.columns
+
+    @property
+    def columns(self) -> pd.Index:
+        return self._source.frame.columns
+
+    @property
+    def index(self) -> pd.Index:
+        return self._source.frame.index[self.positions]
+
+    @property
+    def shape(self) -> tuple:
+        return (len(self), len(self.columns))
+
+    def __getitem__(self, name):
+        return self._source.frame[name].take(self.positions)
+
+    def to_frame(self) -> pd.DataFrame:
+        """The group's rows as a DataFrame (a copy)."""
+        return self._source.frame.take(self.positions)
+
+    def __repr__(self) -> str:
+        return f"GroupPoints({len(self)} rows)"
 
 
 #: ``id(points) -> (weak reference to them, codes, names)``: the groups of the points
@@ -227,9 +266,9 @@ def known_moments(frame: pd.DataFrame):
     return None
 
 
-def _forget(key: int, registry: dict | None = None):
+def _forget(key: int, registry: dict):
     def drop(_ref):
-        (_SLICES if registry is None else registry).pop(key, None)
+        registry.pop(key, None)
     return drop
 
 
@@ -242,20 +281,16 @@ def known_group_codes(frame: pd.DataFrame):
     return None
 
 
-def set_columns(frame: pd.DataFrame, *names: str) -> tuple:
+def set_columns(frame, *names: str) -> tuple:
     """``tuple(frame[name].to_numpy() for name in names)``, without pandas' cost per
-    column for the group frames of :func:`split_by_group` (their columns are slices of
-    the sorted table's, read once for every group).
-
-    The point sets are read, never written, by the stages after the fits: a frame of
-    :func:`split_by_group` holds the sorted table's rows ``start:stop`` as made.
+    column for the :class:`GroupPoints` of :func:`split_by_group` (their numeric
+    columns are taken out of the points' arrays read once for every group).
     """
-    entry = _SLICES.get(id(frame))
-    if entry is not None and entry[0]() is frame:
-        _, source, a, b = entry
+    if isinstance(frame, GroupPoints):
+        source, at = frame._source, frame.positions
         cols = [source.column(name) for name in names]
         if all(c is not None for c in cols):
-            return tuple(c[a:b] for c in cols)
+            return tuple(c[at] for c in cols)
     return tuple(frame[name].to_numpy() for name in names)
 
 

@@ -50,7 +50,7 @@ from .classic_tests import one_way_anova
 from ..errors import DataError
 from .lines import MIN_N as LINE_MIN_N
 from .lines import METHODS, exact_fit, fit_moments, get_method
-from .cooks import SPAN, ols_cooks_distances
+from .cooks import SPAN, ols_cooks_distances, sliced_sums
 from .cooks import spans as _spans
 from .moments import Moments, moments
 from .residual_checks import (MIN_N, _check_alpha, group_order, parallel_lines_influence,
@@ -155,10 +155,16 @@ class PointCheck:
 def _moments_last_axis(X: np.ndarray, Y: np.ndarray) -> Moments:
     n = X.shape[-1]
     mx, my = X.mean(axis=-1), Y.mean(axis=-1)
-    d, f = X - mx[..., None], Y - my[..., None]
-    return Moments(n=np.full(mx.shape, float(n)), mean_x=mx, mean_y=my,
-                   sxx=np.sum(d * d, axis=-1), syy=np.sum(f * f, axis=-1),
-                   sxy=np.sum(d * f, axis=-1))
+    if X.ndim == 1 and n > SPAN:   # one long sample: the same sums a slice at a time
+        def products(lo, hi):
+            d, f = X[lo:hi] - mx, Y[lo:hi] - my
+            return d * d, f * f, d * f
+        sxx, syy, sxy = sliced_sums(products, n)
+    else:
+        d, f = X - mx[..., None], Y - my[..., None]
+        sxx, syy, sxy = np.sum(d * d, axis=-1), np.sum(f * f, axis=-1), np.sum(d * f, axis=-1)
+    return Moments(n=np.full(mx.shape, float(n)), mean_x=mx, mean_y=my, sxx=sxx, syy=syy,
+                   sxy=sxy)
 
 
 def _xy(log_x, log_y, what: str) -> tuple:

@@ -62,7 +62,7 @@ from .classic_tests import shapiro_wilk
 from ..errors import ConfigError, DataError, DegenerateDataWarning
 from ._group_common import EXACT_FIT_TOL
 from .breusch_pagan import _breusch_pagan_centred, _centred, breusch_pagan
-from .cooks import ols_cooks_distances
+from .cooks import SPAN, ols_cooks_distances, sliced_sums
 from .lines import exact_fit
 from .line_results import LineFit
 from .moments import moments
@@ -288,25 +288,52 @@ def quadratic_t(log_x, log_y) -> dict:
     Y = np.asarray(log_y, dtype=float)
     n = X.shape[-1]
     mx = X.mean(axis=-1, keepdims=True)
-    c = X - mx
-    cc = c * c   # read twice: centred into q, summed into S_cc
-    q = cc - cc.mean(axis=-1, keepdims=True)
-    my = Y.mean(axis=-1, keepdims=True)
-    yc = Y - my
-    scc = np.sum(cc, axis=-1)
-    del cc
-    scq = np.sum(c * q, axis=-1)
-    sqq = np.sum(q * q, axis=-1)
-    scy = np.sum(c * yc, axis=-1)
-    sqy = np.sum(q * yc, axis=-1)
-    syy = np.sum(yc * yc, axis=-1)
+    if X.ndim == 1 and n > SPAN:   # one long sample: the same sums a slice at a time
+        scc, scq, sqq, scy, sqy, syy, sxx0, my = _sliced_quadratic_sums(X, Y, mx)
+    else:
+        c = X - mx
+        cc = c * c   # read twice: centred into q, summed into S_cc
+        q = cc - cc.mean(axis=-1, keepdims=True)
+        my = Y.mean(axis=-1, keepdims=True)
+        yc = Y - my
+        scc = np.sum(cc, axis=-1)
+        del cc
+        scq = np.sum(c * q, axis=-1)
+        sqq = np.sum(q * q, axis=-1)
+        scy = np.sum(c * yc, axis=-1)
+        sqy = np.sum(q * yc, axis=-1)
+        syy = np.sum(yc * yc, axis=-1)
+        sxx0 = np.sum(X * X, axis=-1)
     gc, gq, se, t, p = quadratic_solve(scc, scq, sqq, scy, sqy, syy, n)
     mx = mx[..., 0]
     b2 = gq
     b1 = gc - 2 * gq * mx
-    b0 = my[..., 0] - b1 * mx - b2 * np.mean(X * X, axis=-1)
+    b0 = my[..., 0] - b1 * mx - b2 * (sxx0 / n)
     return {"intercept": b0, "linear": b1, "quadratic": b2, "quadratic_se": se,
             "statistic": t, "df": np.full(np.shape(t), float(n - 3)), "p_value": p}
+
+
+def _sliced_quadratic_sums(X: np.ndarray, Y: np.ndarray, mx: np.ndarray) -> tuple:
+    """The centred sums of :func:`quadratic_t` for one long sample (shape (n,)), the
+    same floats, a slice of the points at a time (:func:`~scaling.stats.cooks.sliced_sums`):
+    ``S_cc, S_cq, S_qq, S_cy, S_qy, S_yy``, the plain sum of X^2, and mean Y (shape (1,))."""
+    n = X.size
+    my = Y.mean(axis=-1, keepdims=True)
+
+    def squares(lo, hi):
+        c = X[lo:hi] - mx
+        return (c * c,)
+
+    scc = sliced_sums(squares, n)[0]
+    mcc = np.reshape(scc, 1) / n   # cc.mean(axis=-1, keepdims=True)
+
+    def products(lo, hi):
+        c = X[lo:hi] - mx
+        q = c * c - mcc
+        yc = Y[lo:hi] - my
+        return c * q, q * q, c * yc, q * yc, yc * yc, X[lo:hi] * X[lo:hi]
+
+    return (scc, *sliced_sums(products, n), my)
 
 
 def quadratic_solve(scc, scq, sqq, scy, sqy, syy, n) -> tuple:
