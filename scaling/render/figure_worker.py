@@ -43,10 +43,11 @@ import numpy as np
 
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
-from .thinning import DRAWN_TABLE
+from .thinning import DRAWN_TABLE, FIGURE_DIGEST
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
-           "figure_view", "one_process", "report_png", "REPORT_PNGS", "FIGURE_TABLES"]
+           "figure_view", "anything_to_draw", "one_process", "report_png", "REPORT_PNGS",
+           "FIGURE_TABLES"]
 
 #: Runs with more fitted points than this are not streamed to the worker but
 #: drawn by two processes forked when the figure inputs exist (nothing copied,
@@ -65,7 +66,7 @@ REPORT_PNGS = ".report-png"
 #: The tables of a run (``result.tables``) that a figure reads; :func:`figure_view`
 #: sends only these to the processes that draw.
 FIGURE_TABLES = frozenset({"group_means", "group_tests", "exponent_spread", "predictions",
-                           "inverse_predictions", DRAWN_TABLE})
+                           "inverse_predictions", DRAWN_TABLE, FIGURE_DIGEST})
 
 
 def figure_view(result):
@@ -188,7 +189,7 @@ def _report_pngs(result) -> bool:
     return "png" not in cfg.formats and (bool(cfg.kinds) or result.multi_fit is not None)
 
 
-def _anything_to_draw(result) -> bool:
+def anything_to_draw(result) -> bool:
     """False when the run asks for no figure file and its report shows no figure: no format
     and no figure in the report, or no kind and none of the figures drawn beyond the kinds
     (several predictors; the summary of many groups)."""
@@ -364,7 +365,7 @@ def _start_here(result, folder: Path, *, draw_here: bool) -> Drawing:
     forked process the other; else both shares go to forked processes, so this process
     is free until it waits.
     """
-    if not _anything_to_draw(result):
+    if not anything_to_draw(result):
         return Drawing(result, folder, answer=([], []))   # and matplotlib is never imported
     kinds = list(result.config.figures.kinds)
     if len(kinds) < 2 or one_process():
