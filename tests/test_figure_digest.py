@@ -10,8 +10,10 @@ from __future__ import annotations
 
 import dataclasses
 import io
+import os
 import pickle
 import re
+import sys
 import warnings
 
 import numpy as np
@@ -109,7 +111,7 @@ class TestTheViewHoldsTheDrawnPoints:
         assert digest.n == n
         counts = few_groups.data.points["group"].value_counts()
         assert dict(zip(digest.groups, digest.sizes.tolist())) == counts.to_dict()
-        assert set(digest.residuals) == {"ols", "sma", "ma"}
+        assert set(digest.residuals.ranks()) == {"ols", "sma", "ma"}
         assert isinstance(drawn["group"].dtype, pd.CategoricalDtype)
 
     def test_up_to_the_limit_the_figures_read_the_points(self, tmp_path):
@@ -153,9 +155,45 @@ class TestSameFigures:
         assert not np.array_equal(_pixels(_drawn(alone, "residuals", "png")),
                                   _pixels(_drawn(view, "residuals", "png")))
 
-    def test_a_written_run_has_the_files_drawn_from_every_point(self, tmp_path):
-        # the whole road: run_config hands the figure processes the view; the reference
-        # is write_figures on the run's whole result in this process
+    def test_ranks_sent_after_the_run_draw_the_same_figure(self, few_groups):
+        # the worker's stream: the run without its ranked residuals, then the ranks
+        view = figure_result(few_groups)
+        buf = io.BytesIO()
+        later = fw._dump(view, buf, ranks_later=True)
+        assert len(later) == 1
+        sent = pickle.loads(buf.getvalue())
+        assert fw._ranks_follow(sent) and not fw._ranks_follow(view)
+        buf = io.BytesIO()
+        fw._dump(later[0].ranks(), buf)
+        whole = fw._with_ranks(sent, pickle.loads(buf.getvalue()))
+        np.testing.assert_array_equal(_pixels(_drawn(whole, "residuals", "png")),
+                                      _pixels(_drawn(few_groups, "residuals", "png")))
+
+    @pytest.mark.skipif(not sys.platform.startswith("linux") or len(os.sched_getaffinity(0)) < 2,
+                        reason="figures are drawn in one process on this machine")
+    def test_the_worker_draws_the_files_drawn_from_every_point(self, many_groups,
+                                                               tmp_path, monkeypatch):
+        monkeypatch.delenv("SCALING_ONE_PROCESS", raising=False)
+        monkeypatch.setattr(fw.threading, "active_count", lambda: 1)
+        worker = fw.FigureWorker(pdf=False)
+        answer = worker.draw(figure_result(many_groups), tmp_path / "worker")
+        assert answer is not None   # drawn by the worker, not handed back
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            write_figures(many_groups, tmp_path / "here")
+        names = sorted(p.name for p in (tmp_path / "here" / "figures").glob("*.png"))
+        assert "residuals.png" in names and "group_exponents.png" in names
+        for name in names:
+            np.testing.assert_array_equal(
+                _pixels((tmp_path / "worker" / "figures" / name).read_bytes()),
+                _pixels((tmp_path / "here" / "figures" / name).read_bytes()), err_msg=name)
+
+    def test_a_written_run_has_the_files_drawn_from_every_point(self, tmp_path, monkeypatch):
+        # the whole road: run_config hands the figure processes the view (the worker,
+        # where it can fork); the reference is write_figures on the run's whole result
+        # in this process
+        monkeypatch.delenv("SCALING_ONE_PROCESS", raising=False)
+        monkeypatch.setattr(fw.threading, "active_count", lambda: 1)
         path = _table(tmp_path / "run.csv", 6_500, 25, seed=9)
         cfg = _config(path)
         run_config(cfg, out=tmp_path / "out", quiet=True)

@@ -22,8 +22,8 @@ from .headline import primary_method
 from .wording import unit_text
 
 __all__ = ["reuse_inputs", "reused", "run_base", "axis_label", "points_held", "points_drawn",
-           "figure_digest", "drawn_points", "run_groups", "group_sizes", "fitted_n",
-           "group_codes", "scatter_groups",
+           "figure_digest", "residual_ranks", "drawn_points", "run_groups", "group_sizes",
+           "fitted_n", "group_codes", "scatter_groups",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
 
@@ -109,6 +109,18 @@ def figure_digest(result) -> FigureDigest | None:
     return digest if isinstance(digest, FigureDigest) else None
 
 
+def residual_ranks(result, method: str):
+    """The :class:`~scaling.render.thinning.RankedResiduals` of the pooled ``method`` line
+    over all the points of a run with a :func:`figure_digest` (ranked now if not yet),
+    else None (the figure ranks the residuals of the points it holds)."""
+    digest = figure_digest(result)
+    if digest is None:
+        return None
+    ranks = digest.residuals
+    return (ranks if isinstance(ranks, dict) else ranks.ranks()).get(method)
+
+
+
 def points_drawn(result) -> bool:
     """True when the run's figures have points to draw (:func:`drawn_points`): every
     in-memory run, and a large-data run whose second pass collected them."""
@@ -139,7 +151,8 @@ def drawn_points(result) -> tuple:
 def run_groups(result) -> list:
     """The groups of the run's points, sorted as text (empty without groups).
 
-    A large-data run holds no points: its groups are those of its fits."""
+    A large-data run holds no points: its groups are those of its fits; a run handed
+    to its figures with a :func:`figure_digest`, those of the digest."""
     return list(reused(("groups", id(result)), (result,), lambda: _run_groups(result)))
 
 

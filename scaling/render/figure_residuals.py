@@ -10,12 +10,12 @@ from matplotlib.ticker import MaxNLocator
 from ..stats import tails
 
 from ..stats.schema import method_label
-from .figure_inputs import (drawn_points, figure_digest, group_codes, points_held, reused,
+from .figure_inputs import (drawn_points, group_codes, points_held, residual_ranks, reused,
                             run_groups, run_methods)
 from .figure_style import (LEGEND_MAX_GROUPS, PAGE_HEIGHT, SIZES, STYLE, agg_figure,
                            figure_legend, group_style, many_groups_handle, new_figure,
                            scatter_coded, styled, thinned_index)
-from .thinning import FigureDigest, line_residual
+from .thinning import line_residual
 
 __all__ = ["plot_residuals", "make_residuals"]
 
@@ -77,9 +77,6 @@ def _residual_points(result) -> tuple:
     return drawn_points(result)
 
 
-#: No digest: every residual is in the points drawn.
-_NO_DIGEST = FigureDigest(n=0)
-
 _FITTED_LABEL = {"ols": "Fitted value (log scale)"}
 _POSITION_LABEL = "Position along the line (log scale)"
 
@@ -132,7 +129,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     groups = run_groups(result)
     codes = group_codes(pts, groups) if groups else np.zeros(len(pts), dtype=int)
     n = resid.size
-    ranks = (figure_digest(result) or _NO_DIGEST).residuals.get(method)
+    ranks = residual_ranks(result, method)
     if ranks is not None:   # every residual of the run, ranked in its process
         n, largest = total, ranks.largest
     if kind == "normal":

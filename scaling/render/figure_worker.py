@@ -12,6 +12,11 @@ two processes on two cores -- while the caller computes and writes the tables,
 and :meth:`Drawing.wait` collects the paths when the report needs them.  Without
 a worker the run is forked into two drawing processes instead.
 
+A run of many points comes with the points drawn and a digest of all of them
+(:mod:`scaling.run.figure_digest`); its residuals, ranked last, follow it on the
+same stream, and the worker reads them once it has started the share of the
+figures that do not read them (:data:`RANKED_KINDS`), before it draws its own.
+
 When ``png`` is not among ``figures.formats``, the PNGs the report embeds are
 drawn on the same road, into :data:`REPORT_PNGS` of the folder (the output
 writer's temporary folder, so they never reach the output folder), and the
@@ -43,18 +48,21 @@ import numpy as np
 
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
-from .thinning import DRAWN_TABLE, FIGURE_DIGEST
+from .thinning import DRAWN_TABLE, FIGURE_DIGEST, PendingRanks, RanksToFollow
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
            "figure_view", "anything_to_draw", "one_process", "report_png", "REPORT_PNGS",
-           "FIGURE_TABLES"]
+           "FIGURE_TABLES", "RANKED_KINDS"]
 
 #: Runs with more fitted points than this are not streamed to the worker but
 #: drawn by two processes forked when the figure inputs exist (nothing copied,
 #: matplotlib imported in each), so the worker never holds a second copy of a
 #: large table.  Streaming a million points (with a thousand groups' fits, as
 #: :func:`figure_view`) costs about 0.06 s of CPU here and 0.08 s there; two fresh
-#: imports of the drawing stack about 1.1 s.
+#: imports of the drawing stack about 1.1 s.  An in-memory run of the pipeline sends
+#: no more than the points drawn (:mod:`scaling.run.figure_digest`: 3.6 MB for a
+#: million points in a thousand groups, against 66 MB with the points), so this
+#: holds for a run's result handed over whole only.
 SEND_MAX_POINTS = 2_000_000
 
 #: The folder, inside the folder the figures are drawn into, that holds the PNGs the
@@ -76,7 +84,9 @@ def figure_view(result):
 
     The slope tests, dropped rows, messages and the other tables are left out (empty), so
     sending the run to another process costs less; the figures drawn from the view are the
-    files drawn from the whole run (a test compares their bytes).
+    files drawn from the whole run (a test compares their bytes).  A view holding the
+    points drawn and a digest of all the points in place of the points
+    (:func:`scaling.run.figure_digest.figure_result`) keeps both.
     """
     large = (result.manifest or {}).get("large_data")
     data = result.data
@@ -138,13 +148,41 @@ def _float64(value):
     return np.float64, (float(value),)
 
 
-def _dump(obj, fh) -> None:
-    """``pickle.dump(obj, fh)`` with the cheaper reductions of :class:`_Reductions`."""
+def _dump(obj, fh, *, ranks_later: bool = False) -> list:
+    """``pickle.dump(obj, fh)`` with the cheaper reductions of :class:`_Reductions`.
+
+    ``ranks_later``: a :class:`~scaling.render.thinning.PendingRanks` is written as a
+    :class:`~scaling.render.thinning.RanksToFollow` and returned (in a list), for the
+    caller to send its ranks after ``obj``."""
     pickler = pickle.Pickler(fh, protocol=pickle.HIGHEST_PROTOCOL)
     table = _Reductions()
     table[np.float64] = _float64
+    later: list = []
+    if ranks_later:
+        def follow(pending):
+            later.append(pending)
+            return RanksToFollow, ()
+        table[PendingRanks] = follow
     pickler.dispatch_table = table
     pickler.dump(obj)
+    return later
+
+
+#: The figure kinds that read a run's ranked residuals (:func:`_with_ranks`).
+RANKED_KINDS = frozenset({"residuals"})
+
+
+def _ranks_follow(result) -> bool:
+    """True for a run sent to the worker whose ranked residuals come after it."""
+    digest = (result.tables or {}).get(FIGURE_DIGEST)
+    return isinstance(getattr(digest, "residuals", None), RanksToFollow)
+
+
+def _with_ranks(result, ranks: dict):
+    """``result`` with the ranked residuals that followed it put in its digest."""
+    digest = result.tables[FIGURE_DIGEST]
+    return dataclasses.replace(result, tables={
+        **result.tables, FIGURE_DIGEST: dataclasses.replace(digest, residuals=ranks)})
 
 
 def one_process() -> bool:
@@ -322,10 +360,11 @@ class Drawing:
     """
 
     def __init__(self, result, folder: Path, *, shares=(), here=None, worker=None,
-                 answer=None) -> None:
+                 answer=None, ready=None) -> None:
         self._result, self._folder = result, Path(folder)
         self._shares = list(shares)      # forked processes drawing a share each
         self._here = here                # (kinds, extras) drawn by wait() itself, or None
+        self._ready = ready              # result -> result, before wait() draws its share
         self._worker = worker            # a FigureWorker drawing every figure
         self._answer = answer
 
@@ -341,6 +380,8 @@ class Drawing:
         answers = []
         try:
             if self._here is not None:
+                if self._ready is not None:   # what the share drawn here still waits for
+                    self._result, self._ready = self._ready(self._result), None
                 answers.append(_draw_share(self._result, self._folder, *self._here))
             while self._shares:
                 answers.append(self._shares.pop(0).collect(self._result, self._folder))
@@ -358,32 +399,38 @@ class Drawing:
             self._worker.stop()
 
 
-def _start_here(result, folder: Path, *, draw_here: bool) -> Drawing:
+def _start_here(result, folder: Path, *, draw_here: bool, ready=None) -> Drawing:
     """Figures of ``result`` drawn by processes forked from this one.
 
     ``draw_here``: this process draws one share itself (in :meth:`Drawing.wait`) and one
     forked process the other; else both shares go to forked processes, so this process
-    is free until it waits.
+    is free until it waits.  ``ready`` (with ``draw_here``): ``result -> result`` with
+    what only this process can get (the ranked residuals that follow a run sent to
+    the worker), called before this process draws; the figures that read it
+    (:data:`RANKED_KINDS`) are drawn here.
     """
     if not anything_to_draw(result):
         return Drawing(result, folder, answer=([], []))   # and matplotlib is never imported
     kinds = list(result.config.figures.kinds)
     if len(kinds) < 2 or one_process():
-        return Drawing(result, folder, here=(None, True))
+        return Drawing(result, folder, here=(None, True), ready=ready)
     mine, second = _split(kinds)
+    if ready is not None and RANKED_KINDS & set(second):
+        mine, second = second, mine
     try:
         shares = [_Share(result, folder, second, extras=False)]
     except OSError:   # no process to be had: everything is drawn here
-        return Drawing(result, folder, here=(None, True))
+        return Drawing(result, folder, here=(None, True), ready=ready)
     if not draw_here:
         try:
             shares.insert(0, _Share(result, folder, mine, extras=True))
         except OSError:
             draw_here = True
-    return Drawing(result, folder, shares=shares, here=(mine, True) if draw_here else None)
+    return Drawing(result, folder, shares=shares, here=(mine, True) if draw_here else None,
+                   ready=ready)
 
 
-def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
+def draw_figures(result, folder: Path, *, ready=None) -> tuple[list[str], list[str]]:
     """Write the run's figures into ``folder``; return (relative paths, skip notes).
 
     The report's PNGs, when no PNG file is asked for, go to ``folder /`` :data:`REPORT_PNGS`
@@ -391,9 +438,10 @@ def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
 
     Half the figures are drawn in a forked process when two cores are free
     (:func:`one_process` false); should that process fail, its figures are
-    drawn here.  Paths come in the order of ``config.figures.kinds``.
+    drawn here.  Paths come in the order of ``config.figures.kinds``.  ``ready``: see
+    :func:`_start_here`.
     """
-    return _start_here(result, folder, draw_here=True).wait()
+    return _start_here(result, folder, draw_here=True, ready=ready).wait()
 
 
 def start_figures(result, folder: Path, worker: "FigureWorker | None" = None) -> Drawing:
@@ -453,20 +501,24 @@ def _serve(conn, parent_end, job_read: int, job_write: int, pdf: bool = True) ->
             return
         if job is None:
             return
+        fh = os.fdopen(job_read, "rb", closefd=False)
         try:
             # the run comes on its own pipe, unpickled as it arrives: no copy of it as bytes;
             # no garbage collection while its thousands of fit objects are built
             gc.disable()
             try:
-                with os.fdopen(job_read, "rb", closefd=False) as fh:
-                    result, folder = pickle.load(fh)
+                result, folder = pickle.load(fh)
             finally:
                 gc.enable()
         except Exception:  # noqa: BLE001 -- the parent stopped sending: it draws them
             _reply(conn, None)
             return
+        ready = None
+        if _ranks_follow(result):   # read once the figures that need no ranks have started
+            def ready(res):
+                return _with_ranks(res, pickle.load(fh))
         try:
-            answer = draw_figures(result, folder)
+            answer = draw_figures(result, folder, ready=ready)
         except Exception:  # noqa: BLE001 -- the parent draws them instead
             answer = None
         _reply(conn, answer)
@@ -504,7 +556,10 @@ class FigureWorker:
         try:
             self._conn.send(True)   # a run follows on the job pipe
             with os.fdopen(self._job, "wb", closefd=False) as fh:
-                _dump((result, Path(folder)), fh)
+                later = _dump((result, Path(folder)), fh, ranks_later=True)
+                if later:   # ranked while the worker loads the run and starts drawing
+                    fh.flush()
+                    _dump(later[0].ranks(), fh)
         except Exception:  # noqa: BLE001 -- unpicklable run, dead worker: draw here
             self.close()
             return False

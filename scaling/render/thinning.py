@@ -17,7 +17,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 __all__ = ["MAX_DRAWN_POINTS", "DRAWN_TABLE", "FIGURE_DIGEST", "subset_index",
-           "line_residual", "RankedResiduals", "FigureDigest"]
+           "line_residual", "RankedResiduals", "rank_residuals", "small_codes", "PendingRanks",
+           "RanksToFollow", "FigureDigest"]
 
 #: Scatter plots draw a seeded random subset of this many points above it (stated on the axes).
 MAX_DRAWN_POINTS = 5_000
@@ -72,6 +73,60 @@ class RankedResiduals:
     largest: float
 
 
+def rank_residuals(resid: np.ndarray, codes, keep: np.ndarray) -> RankedResiduals:
+    """The residuals ``resid`` of all the points at the ranks ``keep`` (and the codes
+    ``codes`` of their points), as the residual figure's normal-quantile panel draws them:
+    ``numpy.argsort``, its quartiles by ``numpy.percentile`` of the sorted residuals."""
+    order = np.argsort(resid)
+    ranked = resid[order]
+    q1, q3 = np.percentile(ranked, [25, 75])
+    return RankedResiduals(values=ranked[keep],
+                           codes=None if codes is None else small_codes(codes[order[keep]]),
+                           quartiles=(float(q1), float(q3)),
+                           largest=float(np.max(np.abs(resid))))
+
+
+def small_codes(codes: np.ndarray) -> np.ndarray:
+    """``codes`` in the smallest integer type that holds them (two bytes a point below
+    32 768 groups)."""
+    return codes.astype(np.min_scalar_type(int(codes.max()) if codes.size else 0))
+
+
+class PendingRanks:
+    """``method -> RankedResiduals`` of the pooled lines ``fits`` over all the points,
+    made on first use (:meth:`ranks`), so a run can hand its figures over before it has
+    ranked a million residuals per line.  Pickled, it is the ranks made."""
+
+    __slots__ = ("_inputs", "_ranks")
+
+    def __init__(self, fits: dict, X: np.ndarray, Y: np.ndarray, codes, keep: np.ndarray):
+        self._inputs = (fits, X, Y, codes, keep)
+        self._ranks = None
+
+    def ranks(self) -> dict:
+        """``method -> RankedResiduals`` (made once; the points are let go then)."""
+        if self._ranks is None:
+            fits, X, Y, codes, keep = self._inputs
+            self._ranks = {method: rank_residuals(line_residual(fit, X, Y), codes, keep)
+                           for method, fit in fits.items()}
+            self._inputs = None
+        return self._ranks
+
+    def __reduce__(self):
+        return dict, (list(self.ranks().items()),)
+
+
+class RanksToFollow:
+    """In place of :class:`PendingRanks` in a run sent to the figure worker: the ranks
+    come after the run on the same stream (:func:`scaling.render.figure_worker`), and the
+    worker puts them in before it draws the residual figure."""
+
+    __slots__ = ()
+
+    def ranks(self) -> dict:
+        raise RuntimeError("the ranked residuals were to follow the run and never came")
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class FigureDigest:
     """What a run's figures read of all its points, when they are handed only the points
@@ -87,8 +142,9 @@ class FigureDigest:
         Points in each of ``groups``.
     x_range : tuple of float
         Smallest and largest natural x of the points.
-    residuals : dict
-        ``method -> RankedResiduals`` of each pooled line the residual figure draws.
+    residuals : dict or PendingRanks or RanksToFollow
+        ``method -> RankedResiduals`` of each pooled line the residual figure draws (or
+        the means to them: :func:`scaling.render.figure_inputs.residual_ranks`).
     """
 
     n: int

@@ -11,8 +11,10 @@ points drawn (``result.tables[DRAWN_TABLE]``, group as a categorical of the sort
 names) with a :class:`~scaling.render.thinning.FigureDigest`
 (``result.tables[FIGURE_DIGEST]``) in place of every point.  The figures then draw what
 they drew from all the points, on the large-data road's code (its drawn points), and
-sending the run to the processes that draw costs a few hundred kilobytes, not the
-points.
+sending the run to the processes that draw costs a few megabytes, not the points.  The
+residuals are ranked last (a few hundredths of a second per line for a million
+points): the figure worker gets them after the run, while it loads the run and starts
+the figures that do not read them (:mod:`scaling.render.figure_worker`).
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ import pandas as pd
 
 from ..render.figure_worker import anything_to_draw, figure_view
 from ..render.thinning import (DRAWN_TABLE, FIGURE_DIGEST, MAX_DRAWN_POINTS, FigureDigest,
-                               RankedResiduals, line_residual, subset_index)
+                               PendingRanks, small_codes, subset_index)
 from .fits import known_group_codes
 
 __all__ = ["figure_result", "figure_digest_of"]
@@ -58,11 +60,11 @@ def figure_digest_of(result) -> tuple:
     ``result`` (more than :data:`~scaling.render.thinning.MAX_DRAWN_POINTS`).
 
     The points drawn are the rows :func:`~scaling.render.thinning.subset_index` picks, in
-    order, with their columns; ``group`` a categorical of the sorted group names.  The
-    residuals are ranked as the residual figure ranks them (``numpy.argsort`` of
-    :func:`~scaling.render.thinning.line_residual` of all the points, the quartiles by
-    ``numpy.percentile`` of the sorted residuals), for each pooled line of the run's
-    methods, when the run draws the residual figure.
+    order, with their columns; ``group`` a categorical of the sorted group names.  When
+    the run draws the residual figure, the residuals of each pooled line of the run's
+    methods are ranked as that figure ranks them
+    (:func:`~scaling.render.thinning.rank_residuals`), on first use
+    (:class:`~scaling.render.thinning.PendingRanks`).
     """
     pts = result.data.points
     n = len(pts)
@@ -75,28 +77,20 @@ def figure_digest_of(result) -> tuple:
     residuals = {}
     cfg = result.config
     if "residuals" in cfg.figures.kinds:
-        X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
-        for method in dict.fromkeys(cfg.model.methods):
-            fit = result.line_fits.get(("pooled", "", method))
-            if fit is not None:
-                residuals[method] = _ranked(line_residual(fit, X, Y), codes, keep)
+        fits = {method: result.line_fits.get(("pooled", "", method))
+                for method in dict.fromkeys(cfg.model.methods)}
+        # ranked on first use: when the figure worker draws, after the rest of the run
+        # is sent, so the worker loads the run meanwhile
+        residuals = PendingRanks(
+            {method: fit for method, fit in fits.items() if fit is not None},
+            pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float),
+            None if codes is None else small_codes(codes), keep)
     digest = FigureDigest(
         n=n, groups=tuple(names), x_range=(float(x.min()), float(x.max())),
         sizes=(np.zeros(0, dtype=np.int64) if codes is None
                else np.bincount(codes, minlength=len(names))),
         residuals=residuals)
     return drawn, digest
-
-
-def _ranked(resid: np.ndarray, codes, keep: np.ndarray) -> RankedResiduals:
-    """The residuals at the ranks ``keep`` as the normal-quantile panel draws them."""
-    order = np.argsort(resid)
-    ranked = resid[order]
-    q1, q3 = np.percentile(ranked, [25, 75])
-    return RankedResiduals(values=ranked[keep],
-                           codes=None if codes is None else _small(codes[order[keep]]),
-                           quartiles=(float(q1), float(q3)),
-                           largest=float(np.max(np.abs(resid))))
 
 
 def _group_codes(pts: pd.DataFrame) -> tuple:
@@ -117,8 +111,3 @@ def _group_codes(pts: pd.DataFrame) -> tuple:
     at = pd.Index(names, dtype=object).get_indexer(np.asarray(uniques, dtype=object))
     return at[codes], names
 
-
-def _small(codes: np.ndarray) -> np.ndarray:
-    """``codes`` in the smallest integer type that holds them (two bytes a point below
-    32 768 groups, for the send)."""
-    return codes.astype(np.min_scalar_type(int(codes.max()) if codes.size else 0))
