@@ -168,21 +168,39 @@ def _dump(obj, fh, *, ranks_later: bool = False) -> list:
     return later
 
 
-#: The figure kinds that read a run's ranked residuals (:func:`_with_ranks`).
+#: The figure kinds that read a run's ranked residuals (drawn by the process that reads
+#: them when they follow the run: :class:`~scaling.render.thinning.RanksToFollow`).
 RANKED_KINDS = frozenset({"residuals"})
 
+#: Bytes the job pipe is made to hold (Linux ``F_SETPIPE_SZ``), so the ranks that follow
+#: a run (about 60 kB per line) are written without waiting for the worker to read them;
+#: the worker then reads them when it draws the residual figure.  Where the pipe keeps
+#: its default size, the worker reads them before it draws.
+ROOMY_PIPE = 1 << 20
 
-def _ranks_follow(result) -> bool:
-    """True for a run sent to the worker whose ranked residuals come after it."""
-    digest = (result.tables or {}).get(FIGURE_DIGEST)
-    return isinstance(getattr(digest, "residuals", None), RanksToFollow)
+
+def _ranks_to_follow(result):
+    """The :class:`~scaling.render.thinning.RanksToFollow` of a run sent to the worker
+    whose ranked residuals come after it, else None."""
+    ranks = getattr((result.tables or {}).get(FIGURE_DIGEST), "residuals", None)
+    return ranks if isinstance(ranks, RanksToFollow) else None
 
 
-def _with_ranks(result, ranks: dict):
-    """``result`` with the ranked residuals that followed it put in its digest."""
-    digest = result.tables[FIGURE_DIGEST]
-    return dataclasses.replace(result, tables={
-        **result.tables, FIGURE_DIGEST: dataclasses.replace(digest, residuals=ranks)})
+def _pipe_size(fd: int) -> int:
+    try:
+        import fcntl
+        return fcntl.fcntl(fd, fcntl.F_GETPIPE_SZ)
+    except (ImportError, AttributeError, OSError):
+        return 0
+
+
+def _roomy(fd: int) -> None:
+    """Make the pipe ``fd`` hold :data:`ROOMY_PIPE` bytes where the system allows."""
+    try:
+        import fcntl
+        fcntl.fcntl(fd, fcntl.F_SETPIPE_SZ, ROOMY_PIPE)
+    except (ImportError, AttributeError, OSError):
+        pass
 
 
 def one_process() -> bool:
@@ -399,15 +417,16 @@ class Drawing:
             self._worker.stop()
 
 
-def _start_here(result, folder: Path, *, draw_here: bool, ready=None) -> Drawing:
+def _start_here(result, folder: Path, *, draw_here: bool, ranked_here: bool = False,
+                ready=None) -> Drawing:
     """Figures of ``result`` drawn by processes forked from this one.
 
     ``draw_here``: this process draws one share itself (in :meth:`Drawing.wait`) and one
     forked process the other; else both shares go to forked processes, so this process
-    is free until it waits.  ``ready`` (with ``draw_here``): ``result -> result`` with
-    what only this process can get (the ranked residuals that follow a run sent to
-    the worker), called before this process draws; the figures that read it
-    (:data:`RANKED_KINDS`) are drawn here.
+    is free until it waits.  ``ranked_here`` (with ``draw_here``): the ranked residuals
+    follow the run to this process only, so the figures that read them
+    (:data:`RANKED_KINDS`) are drawn here; ``ready``: ``result -> result``, called
+    before this process draws (to read them first).
     """
     if not anything_to_draw(result):
         return Drawing(result, folder, answer=([], []))   # and matplotlib is never imported
@@ -415,7 +434,7 @@ def _start_here(result, folder: Path, *, draw_here: bool, ready=None) -> Drawing
     if len(kinds) < 2 or one_process():
         return Drawing(result, folder, here=(None, True), ready=ready)
     mine, second = _split(kinds)
-    if ready is not None and RANKED_KINDS & set(second):
+    if ranked_here and RANKED_KINDS & set(second):
         mine, second = second, mine
     try:
         shares = [_Share(result, folder, second, extras=False)]
@@ -430,7 +449,8 @@ def _start_here(result, folder: Path, *, draw_here: bool, ready=None) -> Drawing
                    ready=ready)
 
 
-def draw_figures(result, folder: Path, *, ready=None) -> tuple[list[str], list[str]]:
+def draw_figures(result, folder: Path, *, ranked_here: bool = False,
+                 ready=None) -> tuple[list[str], list[str]]:
     """Write the run's figures into ``folder``; return (relative paths, skip notes).
 
     The report's PNGs, when no PNG file is asked for, go to ``folder /`` :data:`REPORT_PNGS`
@@ -438,10 +458,11 @@ def draw_figures(result, folder: Path, *, ready=None) -> tuple[list[str], list[s
 
     Half the figures are drawn in a forked process when two cores are free
     (:func:`one_process` false); should that process fail, its figures are
-    drawn here.  Paths come in the order of ``config.figures.kinds``.  ``ready``: see
-    :func:`_start_here`.
+    drawn here.  Paths come in the order of ``config.figures.kinds``.  ``ranked_here``
+    and ``ready``: see :func:`_start_here`.
     """
-    return _start_here(result, folder, draw_here=True, ready=ready).wait()
+    return _start_here(result, folder, draw_here=True, ranked_here=ranked_here,
+                       ready=ready).wait()
 
 
 def start_figures(result, folder: Path, worker: "FigureWorker | None" = None) -> Drawing:
@@ -513,12 +534,20 @@ def _serve(conn, parent_end, job_read: int, job_write: int, pdf: bool = True) ->
         except Exception:  # noqa: BLE001 -- the parent stopped sending: it draws them
             _reply(conn, None)
             return
-        ready = None
-        if _ranks_follow(result):   # read once the figures that need no ranks have started
-            def ready(res):
-                return _with_ranks(res, pickle.load(fh))
+        follow, ready = _ranks_to_follow(result), None
+        if follow is not None:   # read when the residual figure is drawn, here
+            follow.follow_from(lambda: pickle.load(fh))
+            if _pipe_size(job_read) < ROOMY_PIPE:
+                # the parent may be waiting to write them: read once the other process
+                # draws, before this one does
+                def ready(res):
+                    follow.ranks()
+                    return res
         try:
-            answer = draw_figures(result, folder, ready=ready)
+            answer = draw_figures(result, folder, ranked_here=follow is not None,
+                                  ready=ready)
+            if follow is not None:
+                follow.ranks()   # read even when no figure asked for them
         except Exception:  # noqa: BLE001 -- the parent draws them instead
             answer = None
         _reply(conn, answer)
@@ -536,6 +565,7 @@ class FigureWorker:
         ctx = multiprocessing.get_context("fork")
         self._conn, child_end = ctx.Pipe()
         job_read, self._job = os.pipe()
+        _roomy(self._job)
         try:
             self._proc = ctx.Process(target=_serve, args=(child_end, self._conn, job_read,
                                                           self._job, pdf), daemon=True)

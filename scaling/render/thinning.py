@@ -12,6 +12,7 @@ read of all the points, made once in the run's process.
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -118,13 +119,26 @@ class PendingRanks:
 
 class RanksToFollow:
     """In place of :class:`PendingRanks` in a run sent to the figure worker: the ranks
-    come after the run on the same stream (:func:`scaling.render.figure_worker`), and the
-    worker puts them in before it draws the residual figure."""
+    come after the run on the same stream (:mod:`scaling.render.figure_worker`), read
+    by :meth:`ranks` in the process that reads the stream (:meth:`follow_from`)."""
 
-    __slots__ = ()
+    __slots__ = ("_read", "_pid", "_ranks")
+
+    def __init__(self) -> None:
+        self._read = self._pid = self._ranks = None
+
+    def follow_from(self, read) -> None:
+        """``read()`` gives the ranks, in this process only (the processes it forks share
+        the stream but must not read it)."""
+        self._read, self._pid = read, os.getpid()
 
     def ranks(self) -> dict:
-        raise RuntimeError("the ranked residuals were to follow the run and never came")
+        """``method -> RankedResiduals``, read on first use."""
+        if self._ranks is None:
+            if self._read is None or self._pid != os.getpid():
+                raise RuntimeError("the ranked residuals follow the run in another process")
+            self._ranks, self._read = self._read(), None
+        return self._ranks
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
