@@ -14,8 +14,9 @@ a worker the run is forked into two drawing processes instead.
 
 A run of many points comes with the points drawn and a digest of all of them
 (:mod:`scaling.run.figure_digest`); its residuals, ranked last, follow it on the
-same stream, and the worker reads them once it has started the share of the
-figures that do not read them (:data:`RANKED_KINDS`), before it draws its own.
+same stream while the worker loads the run and forks the share of the figures
+that do not read them, and the worker reads them when it draws the residual
+figure (:data:`RANKED_KINDS`, drawn by the worker itself; :data:`ROOMY_PIPE`).
 
 When ``png`` is not among ``figures.formats``, the PNGs the report embeds are
 drawn on the same road, into :data:`REPORT_PNGS` of the folder (the output
@@ -52,7 +53,7 @@ from .thinning import DRAWN_TABLE, FIGURE_DIGEST, PendingRanks, RanksToFollow
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
            "figure_view", "anything_to_draw", "one_process", "report_png", "REPORT_PNGS",
-           "FIGURE_TABLES", "RANKED_KINDS"]
+           "FIGURE_TABLES", "RANKED_KINDS", "ROOMY_PIPE"]
 
 #: Runs with more fitted points than this are not streamed to the worker but
 #: drawn by two processes forked when the figure inputs exist (nothing copied,
