@@ -17,13 +17,13 @@ import pandas as pd
 from ..stats.lines import parse_log_base
 from ..stats.line_results import ConfidenceInterval
 from .figure_style import scatter_coded, thinned_index
-from .thinning import DRAWN_TABLE
+from .thinning import DRAWN_TABLE, FIGURE_DIGEST, FigureDigest
 from .headline import primary_method
 from .wording import unit_text
 
 __all__ = ["reuse_inputs", "reused", "run_base", "axis_label", "points_held", "points_drawn",
-           "drawn_points", "run_groups", "group_sizes", "fitted_n",
-           "group_codes", "scatter_groups",
+           "figure_digest", "residual_ranks", "drawn_points", "run_groups", "group_sizes",
+           "fitted_n", "group_codes", "scatter_groups",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
 
@@ -93,8 +93,32 @@ def axis_label(result, role: str) -> str:
 def points_held(result) -> bool:
     """False for a large-data run, which never holds its points (``points`` is empty):
     its counts come from the fits, and its figures draw the points of
-    :func:`drawn_points` (collected by its second pass)."""
+    :func:`drawn_points` (collected by its second pass).  False too for a run handed to
+    its figures with a :func:`figure_digest` in place of its points (the points drawn
+    and what the figures read of all of them)."""
+    if figure_digest(result) is not None:
+        return False
     return bool(len(result.data.points)) or "large_data" not in (result.manifest or {})
+
+
+def figure_digest(result) -> FigureDigest | None:
+    """The :class:`~scaling.render.thinning.FigureDigest` of all the points of a run whose
+    figures are handed only the points they draw (:mod:`scaling.run.figure_digest`),
+    else None."""
+    digest = (result.tables or {}).get(FIGURE_DIGEST)
+    return digest if isinstance(digest, FigureDigest) else None
+
+
+def residual_ranks(result, method: str):
+    """The :class:`~scaling.render.thinning.RankedResiduals` of the pooled ``method`` line
+    over all the points of a run with a :func:`figure_digest` (ranked now if not yet),
+    else None (the figure ranks the residuals of the points it holds)."""
+    digest = figure_digest(result)
+    if digest is None:
+        return None
+    ranks = digest.residuals
+    return (ranks if isinstance(ranks, dict) else ranks.ranks()).get(method)
+
 
 
 def points_drawn(result) -> bool:
@@ -127,12 +151,16 @@ def drawn_points(result) -> tuple:
 def run_groups(result) -> list:
     """The groups of the run's points, sorted as text (empty without groups).
 
-    A large-data run holds no points: its groups are those of its fits."""
+    A large-data run holds no points: its groups are those of its fits; a run handed
+    to its figures with a :func:`figure_digest`, those of the digest."""
     return list(reused(("groups", id(result)), (result,), lambda: _run_groups(result)))
 
 
 def _run_groups(result) -> list:
     pts = result.data.points
+    digest = figure_digest(result)
+    if digest is not None:
+        return list(digest.groups)
     if not points_held(result):
         fits = result.fits
         if fits is None or "scope" not in fits or not result.config.data.group:
@@ -152,6 +180,9 @@ def _fit_counts(result, scope: str) -> dict:
 
 def group_sizes(result, groups: list) -> np.ndarray:
     """Points in each of the sorted ``groups`` (from the fits on a large-data run)."""
+    digest = figure_digest(result)
+    if digest is not None and list(digest.groups) == list(groups):
+        return digest.sizes
     if points_held(result):
         return np.bincount(group_codes(result.data.points, groups), minlength=len(groups))
     counts = _fit_counts(result, "group")
@@ -160,6 +191,9 @@ def group_sizes(result, groups: list) -> np.ndarray:
 
 def fitted_n(result) -> int:
     """Points of the run (the pooled fits' n on a large-data run)."""
+    digest = figure_digest(result)
+    if digest is not None:
+        return digest.n
     if points_held(result):
         return len(result.data.points)
     return int(_fit_counts(result, "pooled").get("", 0))
@@ -171,6 +205,12 @@ def group_codes(pts, groups: list) -> np.ndarray:
 
 
 def _group_codes(pts, groups: list) -> np.ndarray:
+    column = pts["group"]
+    if (isinstance(column.dtype, pd.CategoricalDtype)
+            and list(column.cat.categories) == list(groups)):
+        codes = column.cat.codes.to_numpy().astype(np.intp)   # coded by the run already
+        codes.flags.writeable = False
+        return codes
     # one hash pass over the points, then a look-up of the distinct names only:
     # searchsorted on a million Python strings costs seconds
     codes, names = pd.factorize(pts["group"].astype(str))
@@ -219,6 +259,9 @@ def fit_xrange(fit, result):
     """The natural-unit x range a fit was fitted to (else the range of the run's points)."""
     if fit.x_range is not None:
         return fit.x_range
+    digest = figure_digest(result)
+    if digest is not None:
+        return digest.x_range
     x = result.data.points["x"].to_numpy()
     return float(x.min()), float(x.max())
 

@@ -10,11 +10,12 @@ from matplotlib.ticker import MaxNLocator
 from ..stats import tails
 
 from ..stats.schema import method_label
-from .figure_inputs import (drawn_points, group_codes, points_held, reused, run_groups,
-                            run_methods)
+from .figure_inputs import (drawn_points, group_codes, points_held, residual_ranks, reused,
+                            run_groups, run_methods)
 from .figure_style import (LEGEND_MAX_GROUPS, PAGE_HEIGHT, SIZES, STYLE, agg_figure,
                            figure_legend, group_style, many_groups_handle, new_figure,
                            scatter_coded, styled, thinned_index)
+from .thinning import line_residual
 
 __all__ = ["plot_residuals", "make_residuals"]
 
@@ -33,7 +34,7 @@ def _residuals(fit, X: np.ndarray, Y: np.ndarray) -> tuple:
 
 def _residual(fit, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
     """Y - a - bX (see :func:`_residuals`)."""
-    return Y - fit.intercept - fit.slope * X
+    return line_residual(fit, X, Y)
 
 
 def _position(fit, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
@@ -66,7 +67,10 @@ def _residual_points(result) -> tuple:
     figure draws; up to :data:`~scaling.render.figure_style.MAX_DRAWN_POINTS` points
     they are all the points and the panels are the same, above it their quantiles
     and limits are those of the drawn points (ranking every residual needs all rows
-    at once) and the run says so in a note.
+    at once) and the run says so in a note.  An in-memory run handed to its figures
+    with a :func:`~scaling.render.figure_inputs.figure_digest` (the points drawn, and of
+    all the residuals the ranked ones drawn, the quartiles and the largest) draws the
+    panels of all its points from it.
     """
     if points_held(result):
         return result.data.points, len(result.data.points)
@@ -125,18 +129,27 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
     groups = run_groups(result)
     codes = group_codes(pts, groups) if groups else np.zeros(len(pts), dtype=int)
     n = resid.size
+    ranks = residual_ranks(result, method)
+    if ranks is not None:   # every residual of the run, ranked in its process
+        n, largest = total, ranks.largest
     if kind == "normal":
         # quantiles of the drawn points only (a million ppf calls cost a quarter second)
         drawn = thinned_index(n)
         drawn = np.arange(n) if drawn is None else drawn
-        order = np.argsort(resid)
-        ranked = resid[order]   # sorted: its quartiles are those of resid, found faster
-        at = order[drawn]
+        if ranks is None:
+            order = np.argsort(resid)
+            ranked = resid[order]   # sorted: its quartiles are those of resid, found faster
+            shown, shown_codes = ranked[drawn], codes[order[drawn]]
+        else:
+            shown = ranks.values
+            shown_codes = (ranks.codes.astype(np.intp) if groups
+                           else np.zeros(shown.size, dtype=int))
         q = _normal_quantiles(n, drawn)
-        scatter_coded(ax, q, ranked[drawn], codes[at], len(groups), total=total, s=9,
+        scatter_coded(ax, q, shown, shown_codes, len(groups), total=total, s=9,
                        edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
         if n >= 4:
-            q1, q3 = np.percentile(ranked, [25, 75])
+            q1, q3 = (np.percentile(ranked, [25, 75]) if ranks is None
+                      else ranks.quartiles)
             z1, z3 = tails.normal_quantile([0.25, 0.75])
             slope = (q3 - q1) / (z3 - z1)
             zz = _normal_quantiles(n, [0, n - 1])   # the smallest and largest
@@ -147,7 +160,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
                      fontsize=STYLE["font.size"] - 0.5)
     else:
         # positions of the drawn points only
-        drawn = thinned_index(n)
+        drawn = thinned_index(resid.size)   # none of a digest's: its points are drawn
         drawn = slice(None) if drawn is None else drawn
         scatter_coded(ax, _position(fit, X[drawn], Y[drawn]), resid[drawn], codes[drawn],
                        len(groups), total=total, s=9, edgecolor="white", linewidth=0.3,
@@ -157,7 +170,7 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         ax.set_ylabel("Residual (log scale)")
         ax.set_title(f"{method_label(method)}: residuals", loc="left",
                      fontsize=STYLE["font.size"] - 0.5)
-    lim = largest * 1.15 if resid.size else 1.0
+    lim = largest * 1.15 if n else 1.0
     if not lim > 0:   # perfect fit: all residuals zero
         lim = 1.0
     ax.set_ylim(-lim, lim)

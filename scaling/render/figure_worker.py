@@ -12,6 +12,12 @@ two processes on two cores -- while the caller computes and writes the tables,
 and :meth:`Drawing.wait` collects the paths when the report needs them.  Without
 a worker the run is forked into two drawing processes instead.
 
+A run of many points comes with the points drawn and a digest of all of them
+(:mod:`scaling.run.figure_digest`); its residuals, ranked last, follow it on the
+same stream while the worker loads the run and forks the share of the figures
+that do not read them, and the worker reads them when it draws the residual
+figure (:data:`RANKED_KINDS`, drawn by the worker itself; :data:`ROOMY_PIPE`).
+
 When ``png`` is not among ``figures.formats``, the PNGs the report embeds are
 drawn on the same road, into :data:`REPORT_PNGS` of the folder (the output
 writer's temporary folder, so they never reach the output folder), and the
@@ -43,17 +49,21 @@ import numpy as np
 
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
-from .thinning import DRAWN_TABLE
+from .thinning import DRAWN_TABLE, FIGURE_DIGEST, PendingRanks, RanksToFollow
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
-           "figure_view", "one_process", "report_png", "REPORT_PNGS", "FIGURE_TABLES"]
+           "figure_view", "anything_to_draw", "one_process", "report_png", "REPORT_PNGS",
+           "FIGURE_TABLES", "RANKED_KINDS", "ROOMY_PIPE"]
 
 #: Runs with more fitted points than this are not streamed to the worker but
 #: drawn by two processes forked when the figure inputs exist (nothing copied,
 #: matplotlib imported in each), so the worker never holds a second copy of a
 #: large table.  Streaming a million points (with a thousand groups' fits, as
 #: :func:`figure_view`) costs about 0.06 s of CPU here and 0.08 s there; two fresh
-#: imports of the drawing stack about 1.1 s.
+#: imports of the drawing stack about 1.1 s.  An in-memory run of the pipeline sends
+#: no more than the points drawn (:mod:`scaling.run.figure_digest`: 3.6 MB for a
+#: million points in a thousand groups, against 66 MB with the points), so this
+#: holds for a run's result handed over whole only.
 SEND_MAX_POINTS = 2_000_000
 
 #: The folder, inside the folder the figures are drawn into, that holds the PNGs the
@@ -65,7 +75,7 @@ REPORT_PNGS = ".report-png"
 #: The tables of a run (``result.tables``) that a figure reads; :func:`figure_view`
 #: sends only these to the processes that draw.
 FIGURE_TABLES = frozenset({"group_means", "group_tests", "exponent_spread", "predictions",
-                           "inverse_predictions", DRAWN_TABLE})
+                           "inverse_predictions", DRAWN_TABLE, FIGURE_DIGEST})
 
 
 def figure_view(result):
@@ -75,7 +85,9 @@ def figure_view(result):
 
     The slope tests, dropped rows, messages and the other tables are left out (empty), so
     sending the run to another process costs less; the figures drawn from the view are the
-    files drawn from the whole run (a test compares their bytes).
+    files drawn from the whole run (a test compares their bytes).  A view holding the
+    points drawn and a digest of all the points in place of the points
+    (:func:`scaling.run.figure_digest.figure_result`) keeps both.
     """
     large = (result.manifest or {}).get("large_data")
     data = result.data
@@ -137,13 +149,59 @@ def _float64(value):
     return np.float64, (float(value),)
 
 
-def _dump(obj, fh) -> None:
-    """``pickle.dump(obj, fh)`` with the cheaper reductions of :class:`_Reductions`."""
+def _dump(obj, fh, *, ranks_later: bool = False) -> list:
+    """``pickle.dump(obj, fh)`` with the cheaper reductions of :class:`_Reductions`.
+
+    ``ranks_later``: a :class:`~scaling.render.thinning.PendingRanks` is written as a
+    :class:`~scaling.render.thinning.RanksToFollow` and returned (in a list), for the
+    caller to send its ranks after ``obj``."""
     pickler = pickle.Pickler(fh, protocol=pickle.HIGHEST_PROTOCOL)
     table = _Reductions()
     table[np.float64] = _float64
+    later: list = []
+    if ranks_later:
+        def follow(pending):
+            later.append(pending)
+            return RanksToFollow, ()
+        table[PendingRanks] = follow
     pickler.dispatch_table = table
     pickler.dump(obj)
+    return later
+
+
+#: The figure kinds that read a run's ranked residuals (drawn by the process that reads
+#: them when they follow the run: :class:`~scaling.render.thinning.RanksToFollow`).
+RANKED_KINDS = frozenset({"residuals"})
+
+#: Bytes the job pipe is made to hold (Linux ``F_SETPIPE_SZ``), so the ranks that follow
+#: a run (about 60 kB per line) are written without waiting for the worker to read them;
+#: the worker then reads them when it draws the residual figure.  Where the pipe keeps
+#: its default size, the worker reads them before it draws.
+ROOMY_PIPE = 1 << 20
+
+
+def _ranks_to_follow(result):
+    """The :class:`~scaling.render.thinning.RanksToFollow` of a run sent to the worker
+    whose ranked residuals come after it, else None."""
+    ranks = getattr((result.tables or {}).get(FIGURE_DIGEST), "residuals", None)
+    return ranks if isinstance(ranks, RanksToFollow) else None
+
+
+def _pipe_size(fd: int) -> int:
+    try:
+        import fcntl
+        return fcntl.fcntl(fd, fcntl.F_GETPIPE_SZ)
+    except (ImportError, AttributeError, OSError):
+        return 0
+
+
+def _roomy(fd: int) -> None:
+    """Make the pipe ``fd`` hold :data:`ROOMY_PIPE` bytes where the system allows."""
+    try:
+        import fcntl
+        fcntl.fcntl(fd, fcntl.F_SETPIPE_SZ, ROOMY_PIPE)
+    except (ImportError, AttributeError, OSError):
+        pass
 
 
 def one_process() -> bool:
@@ -188,7 +246,7 @@ def _report_pngs(result) -> bool:
     return "png" not in cfg.formats and (bool(cfg.kinds) or result.multi_fit is not None)
 
 
-def _anything_to_draw(result) -> bool:
+def anything_to_draw(result) -> bool:
     """False when the run asks for no figure file and its report shows no figure: no format
     and no figure in the report, or no kind and none of the figures drawn beyond the kinds
     (several predictors; the summary of many groups)."""
@@ -321,10 +379,11 @@ class Drawing:
     """
 
     def __init__(self, result, folder: Path, *, shares=(), here=None, worker=None,
-                 answer=None) -> None:
+                 answer=None, ready=None) -> None:
         self._result, self._folder = result, Path(folder)
         self._shares = list(shares)      # forked processes drawing a share each
         self._here = here                # (kinds, extras) drawn by wait() itself, or None
+        self._ready = ready              # result -> result, before wait() draws its share
         self._worker = worker            # a FigureWorker drawing every figure
         self._answer = answer
 
@@ -340,6 +399,8 @@ class Drawing:
         answers = []
         try:
             if self._here is not None:
+                if self._ready is not None:   # what the share drawn here still waits for
+                    self._result, self._ready = self._ready(self._result), None
                 answers.append(_draw_share(self._result, self._folder, *self._here))
             while self._shares:
                 answers.append(self._shares.pop(0).collect(self._result, self._folder))
@@ -357,32 +418,40 @@ class Drawing:
             self._worker.stop()
 
 
-def _start_here(result, folder: Path, *, draw_here: bool) -> Drawing:
+def _start_here(result, folder: Path, *, draw_here: bool, ranked_here: bool = False,
+                ready=None) -> Drawing:
     """Figures of ``result`` drawn by processes forked from this one.
 
     ``draw_here``: this process draws one share itself (in :meth:`Drawing.wait`) and one
     forked process the other; else both shares go to forked processes, so this process
-    is free until it waits.
+    is free until it waits.  ``ranked_here`` (with ``draw_here``): the ranked residuals
+    follow the run to this process only, so the figures that read them
+    (:data:`RANKED_KINDS`) are drawn here; ``ready``: ``result -> result``, called
+    before this process draws (to read them first).
     """
-    if not _anything_to_draw(result):
+    if not anything_to_draw(result):
         return Drawing(result, folder, answer=([], []))   # and matplotlib is never imported
     kinds = list(result.config.figures.kinds)
     if len(kinds) < 2 or one_process():
-        return Drawing(result, folder, here=(None, True))
+        return Drawing(result, folder, here=(None, True), ready=ready)
     mine, second = _split(kinds)
+    if ranked_here and RANKED_KINDS & set(second):
+        mine, second = second, mine
     try:
         shares = [_Share(result, folder, second, extras=False)]
     except OSError:   # no process to be had: everything is drawn here
-        return Drawing(result, folder, here=(None, True))
+        return Drawing(result, folder, here=(None, True), ready=ready)
     if not draw_here:
         try:
             shares.insert(0, _Share(result, folder, mine, extras=True))
         except OSError:
             draw_here = True
-    return Drawing(result, folder, shares=shares, here=(mine, True) if draw_here else None)
+    return Drawing(result, folder, shares=shares, here=(mine, True) if draw_here else None,
+                   ready=ready)
 
 
-def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
+def draw_figures(result, folder: Path, *, ranked_here: bool = False,
+                 ready=None) -> tuple[list[str], list[str]]:
     """Write the run's figures into ``folder``; return (relative paths, skip notes).
 
     The report's PNGs, when no PNG file is asked for, go to ``folder /`` :data:`REPORT_PNGS`
@@ -390,9 +459,11 @@ def draw_figures(result, folder: Path) -> tuple[list[str], list[str]]:
 
     Half the figures are drawn in a forked process when two cores are free
     (:func:`one_process` false); should that process fail, its figures are
-    drawn here.  Paths come in the order of ``config.figures.kinds``.
+    drawn here.  Paths come in the order of ``config.figures.kinds``.  ``ranked_here``
+    and ``ready``: see :func:`_start_here`.
     """
-    return _start_here(result, folder, draw_here=True).wait()
+    return _start_here(result, folder, draw_here=True, ranked_here=ranked_here,
+                       ready=ready).wait()
 
 
 def start_figures(result, folder: Path, worker: "FigureWorker | None" = None) -> Drawing:
@@ -452,20 +523,32 @@ def _serve(conn, parent_end, job_read: int, job_write: int, pdf: bool = True) ->
             return
         if job is None:
             return
+        fh = os.fdopen(job_read, "rb", closefd=False)
         try:
             # the run comes on its own pipe, unpickled as it arrives: no copy of it as bytes;
             # no garbage collection while its thousands of fit objects are built
             gc.disable()
             try:
-                with os.fdopen(job_read, "rb", closefd=False) as fh:
-                    result, folder = pickle.load(fh)
+                result, folder = pickle.load(fh)
             finally:
                 gc.enable()
         except Exception:  # noqa: BLE001 -- the parent stopped sending: it draws them
             _reply(conn, None)
             return
+        follow, ready = _ranks_to_follow(result), None
+        if follow is not None:   # read when the residual figure is drawn, here
+            follow.follow_from(lambda: pickle.load(fh))
+            if _pipe_size(job_read) < ROOMY_PIPE:
+                # the parent may be waiting to write them: read once the other process
+                # draws, before this one does
+                def ready(res):
+                    follow.ranks()
+                    return res
         try:
-            answer = draw_figures(result, folder)
+            answer = draw_figures(result, folder, ranked_here=follow is not None,
+                                  ready=ready)
+            if follow is not None:
+                follow.ranks()   # read even when no figure asked for them
         except Exception:  # noqa: BLE001 -- the parent draws them instead
             answer = None
         _reply(conn, answer)
@@ -483,6 +566,7 @@ class FigureWorker:
         ctx = multiprocessing.get_context("fork")
         self._conn, child_end = ctx.Pipe()
         job_read, self._job = os.pipe()
+        _roomy(self._job)
         try:
             self._proc = ctx.Process(target=_serve, args=(child_end, self._conn, job_read,
                                                           self._job, pdf), daemon=True)
@@ -503,7 +587,10 @@ class FigureWorker:
         try:
             self._conn.send(True)   # a run follows on the job pipe
             with os.fdopen(self._job, "wb", closefd=False) as fh:
-                _dump((result, Path(folder)), fh)
+                later = _dump((result, Path(folder)), fh, ranks_later=True)
+                if later:   # ranked while the worker loads the run and starts drawing
+                    fh.flush()
+                    _dump(later[0].ranks(), fh)
         except Exception:  # noqa: BLE001 -- unpicklable run, dead worker: draw here
             self.close()
             return False

@@ -1,16 +1,25 @@
-"""Which points a scatter draws: the seeded subset, without matplotlib.
+"""Which points a scatter draws, and what the figures read of all the points, without
+matplotlib.
 
-The in-memory figures thin their points with it, and the moments path's second
-pass (:mod:`scaling.run.second_pass`) collects the same points while the rows
-stream past, so both roads draw the same points (without importing a plotting
-library into the run's process).
+The in-memory figures thin their points with :func:`subset_index`, and the moments
+path's second pass (:mod:`scaling.run.second_pass`) collects the same points while the
+rows stream past, so both roads draw the same points (without importing a plotting
+library into the run's process).  Above :data:`MAX_DRAWN_POINTS` points an in-memory
+run hands its figures those points and a :class:`FigureDigest` of all of them
+(:mod:`scaling.run.figure_digest`) instead of every point: the few numbers its figures
+read of all the points, made once in the run's process.
 """
 
 from __future__ import annotations
 
+import os
+from dataclasses import dataclass, field
+
 import numpy as np
 
-__all__ = ["MAX_DRAWN_POINTS", "DRAWN_TABLE", "subset_index"]
+__all__ = ["MAX_DRAWN_POINTS", "DRAWN_TABLE", "FIGURE_DIGEST", "subset_index",
+           "line_residual", "RankedResiduals", "rank_residuals", "small_codes", "PendingRanks",
+           "RanksToFollow", "FigureDigest"]
 
 #: Scatter plots draw a seeded random subset of this many points above it (stated on the axes).
 MAX_DRAWN_POINTS = 5_000
@@ -18,6 +27,10 @@ MAX_DRAWN_POINTS = 5_000
 #: A moments-path result's table of the points its figures draw (``result.tables``; the
 #: leading underscore keeps it out of the CSV files, results.json and the report).
 DRAWN_TABLE = "_drawn_points"
+
+#: The :class:`FigureDigest` of a result cut for its figures (``result.tables``; never
+#: part of a run's own result, only of what its figures are handed).
+FIGURE_DIGEST = "_figure_digest"
 
 
 def subset_index(n: int, limit: int = MAX_DRAWN_POINTS):
@@ -30,3 +43,126 @@ def subset_index(n: int, limit: int = MAX_DRAWN_POINTS):
     if n <= limit:
         return None
     return np.sort(np.random.default_rng(0).choice(n, limit, replace=False))
+
+
+def line_residual(fit, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
+    """``Y - a - bX`` of a line fit on the log scale (element by element, so a subset's
+    residuals are those of the whole, bit for bit)."""
+    return Y - fit.intercept - fit.slope * X
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RankedResiduals:
+    """What a normal-quantile panel reads of the residuals of all ``n`` points of a line.
+
+    Attributes
+    ----------
+    values : ndarray
+        The sorted residuals at the ranks :func:`subset_index` picks of ``n``.
+    codes : ndarray or None
+        The group codes of the points at those ranks, in the smallest integer type that
+        holds them (None without groups).
+    quartiles : tuple of float
+        25th and 75th percentiles of all the residuals (``numpy.percentile``).
+    largest : float
+        The largest absolute residual.
+    """
+
+    values: np.ndarray
+    codes: np.ndarray | None
+    quartiles: tuple
+    largest: float
+
+
+def rank_residuals(resid: np.ndarray, codes, keep: np.ndarray) -> RankedResiduals:
+    """The residuals ``resid`` of all the points at the ranks ``keep`` (and the codes
+    ``codes`` of their points), as the residual figure's normal-quantile panel draws them:
+    ``numpy.argsort``, its quartiles by ``numpy.percentile`` of the sorted residuals."""
+    order = np.argsort(resid)
+    ranked = resid[order]
+    q1, q3 = np.percentile(ranked, [25, 75])
+    return RankedResiduals(values=ranked[keep],
+                           codes=None if codes is None else small_codes(codes[order[keep]]),
+                           quartiles=(float(q1), float(q3)),
+                           largest=float(np.max(np.abs(resid))))
+
+
+def small_codes(codes: np.ndarray) -> np.ndarray:
+    """``codes`` in the smallest integer type that holds them (two bytes a point below
+    32 768 groups)."""
+    return codes.astype(np.min_scalar_type(int(codes.max()) if codes.size else 0))
+
+
+class PendingRanks:
+    """``method -> RankedResiduals`` of the pooled lines ``fits`` over all the points,
+    made on first use (:meth:`ranks`), so a run can hand its figures over before it has
+    ranked a million residuals per line.  Pickled, it is the ranks made."""
+
+    __slots__ = ("_inputs", "_ranks")
+
+    def __init__(self, fits: dict, X: np.ndarray, Y: np.ndarray, codes, keep: np.ndarray):
+        self._inputs = (fits, X, Y, codes, keep)
+        self._ranks = None
+
+    def ranks(self) -> dict:
+        """``method -> RankedResiduals`` (made once; the points are let go then)."""
+        if self._ranks is None:
+            fits, X, Y, codes, keep = self._inputs
+            self._ranks = {method: rank_residuals(line_residual(fit, X, Y), codes, keep)
+                           for method, fit in fits.items()}
+            self._inputs = None
+        return self._ranks
+
+    def __reduce__(self):
+        return dict, (list(self.ranks().items()),)
+
+
+class RanksToFollow:
+    """In place of :class:`PendingRanks` in a run sent to the figure worker: the ranks
+    come after the run on the same stream (:mod:`scaling.render.figure_worker`), read
+    by :meth:`ranks` in the process that reads the stream (:meth:`follow_from`)."""
+
+    __slots__ = ("_read", "_pid", "_ranks")
+
+    def __init__(self) -> None:
+        self._read = self._pid = self._ranks = None
+
+    def follow_from(self, read) -> None:
+        """``read()`` gives the ranks, in this process only (the processes it forks share
+        the stream but must not read it)."""
+        self._read, self._pid = read, os.getpid()
+
+    def ranks(self) -> dict:
+        """``method -> RankedResiduals``, read on first use."""
+        if self._ranks is None:
+            if self._read is None or self._pid != os.getpid():
+                raise RuntimeError("the ranked residuals follow the run in another process")
+            self._ranks, self._read = self._read(), None
+        return self._ranks
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FigureDigest:
+    """What a run's figures read of all its points, when they are handed only the points
+    they draw (``result.tables[DRAWN_TABLE]``).
+
+    Attributes
+    ----------
+    n : int
+        Points of the run.
+    groups : tuple of str
+        The groups of the points, sorted as text (empty without groups).
+    sizes : ndarray
+        Points in each of ``groups``.
+    x_range : tuple of float
+        Smallest and largest natural x of the points.
+    residuals : dict or PendingRanks or RanksToFollow
+        ``method -> RankedResiduals`` of each pooled line the residual figure draws (or
+        the means to them: :func:`scaling.render.figure_inputs.residual_ranks`).
+    """
+
+    n: int
+    groups: tuple = ()
+    sizes: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    x_range: tuple = (np.nan, np.nan)
+    residuals: dict = field(default_factory=dict)

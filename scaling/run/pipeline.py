@@ -40,6 +40,7 @@ from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COL
                             INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
                             SLOPE_TEST_COLUMNS)
 from .diagnostics import diagnostics_stage, early_checks, exponent_targets
+from .figure_digest import figure_result
 from .fits import fit_stage, fits_table_stage
 from .groups import group_stage
 from .moments_path import (moments_group_stage, moments_stage, spread_stage,
@@ -219,10 +220,10 @@ def _one_predictor(cfg, state: RunState, read, early: dict, figure_inputs) -> Ru
     # the figures draw exists.
     spread = spread_stage(cfg, state)
     if figure_inputs is not None:
-        figure_inputs(RunResult(config=cfg, data=state.data, fits=state.fits,
-                                slope_tests=state.slope_tests, dropped=state.data.dropped,
-                                line_fits=state.line_fits, saved_fits=state.saved_fits,
-                                tables={**state.tables, **spread.tables}))
+        figure_inputs(figure_result(RunResult(
+            config=cfg, data=state.data, fits=state.fits, slope_tests=state.slope_tests,
+            dropped=state.data.dropped, line_fits=state.line_fits,
+            saved_fits=state.saved_fits, tables={**state.tables, **spread.tables})))
     checked = check_run(cfg, state)   # before the diagnostics, whose words read it
     diagnosed = (diagnostics_stage(cfg, replace(state, tables={
         **state.tables, "points_to_check": checked.table}), early=early)
