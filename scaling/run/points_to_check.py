@@ -41,7 +41,7 @@ from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer
                                points_to_check, strong_influence, strong_influence_each,
                                strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
-from .fits import known_group_codes, set_columns
+from .fits import known_group_codes, known_moments, set_columns
 from .phylo_checks import answer_model_checks, answer_point_rows, point_context
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
@@ -135,7 +135,8 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
                 if whole:
                     found = points_to_check(x, y, method=method, rows=rows, labels=labels,
                                             group_codes=codes, smearing_factor=smear,
-                                            parametric_factor=param, estimates=est, alpha=alpha)
+                                            parametric_factor=param, estimates=est, alpha=alpha,
+                                            sample_moments=known_moments(sel))
                 else:   # fit-level checks only; points are checked on the primary line
                     found = fit_checks(smearing_factor=smear, parametric_factor=param,
                                        estimates=est)
