@@ -62,6 +62,20 @@ def _edge_frame() -> pd.DataFrame:
     })
 
 
+def _quoting_frame() -> pd.DataFrame:
+    """Text the csv writer quotes (commas, double quotes, both, a lone quote) beside text
+    it does not (spaces, tabs, semicolons, empty, missing), in text and object columns."""
+    words = np.array(["plain", "a,b", 'say "x"', '"', '""', ',"', " lead", "trail ",
+                      "tab\there", "semi;colon", "", "Ünï,code", None], dtype=object)
+    k = 3 * words.size
+    return pd.DataFrame({
+        "scope": pd.array(words[np.arange(k) % words.size], dtype="str"),
+        "value": np.linspace(0.0, 1.0, k),
+        "note": words[(np.arange(k) * 5) % words.size],
+        "n": np.arange(k, dtype=np.int64),
+    })
+
+
 def _pandas_csv(frame: pd.DataFrame, path) -> bytes:
     frame.to_csv(path, index=False, lineterminator="\n")
     return path.read_bytes()
@@ -78,6 +92,8 @@ class TestWriteCsv:
         lambda: pd.DataFrame({"c": pd.Categorical(["u", None])}),     # left to pandas
         lambda: pd.DataFrame({"a": [1.5, 2.5], "b": [np.nan, np.nan]}),
         lambda: pd.DataFrame({1: [0.1, 0.2], "a,b": ["x", "y"]}),     # labels quoted
+        _quoting_frame,                      # quoted cells written without the csv writer
+        lambda: _quoting_frame().assign(note=["a\rb"] * len(_quoting_frame())),   # \r: writer
     ])
     def test_writes_the_bytes_pandas_writes(self, tmp_path, make):
         frame = make()

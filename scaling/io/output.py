@@ -489,14 +489,32 @@ class _TableText:
 _QUOTED = re.compile(r'[,"\r\n]')
 
 
+#: Characters of a cell the csv writer quotes that :func:`_csv_rows` leaves to it.
+_LINE_BREAK = re.compile(r"[\r\n]")
+
+
 def _csv_rows(text: _TableText) -> str | None:
-    """The body of the CSV (one line per row), or None when some cell needs quoting or
-    the table has a single column (whose empty cells the writer quotes)."""
-    if len(text.csv) < 2 or any(text.quoted(j) for j in range(len(text.csv))):
+    """The body of the CSV (one line per row), or None when some cell holds a line break
+    or the table has a single column (whose empty cells the writer quotes).
+
+    A cell holding a comma or a double quote is quoted as the csv writer quotes it
+    (``QUOTE_MINIMAL``: in double quotes, each double quote doubled)."""
+    if len(text.csv) < 2:
         return None
-    if not text.csv[0]:
+    columns = list(text.csv)
+    for j, cells in enumerate(columns):
+        if not text.quoted(j):
+            continue
+        if _LINE_BREAK.search("".join(cells)) is not None:
+            return None
+        columns[j] = [_csv_quoted(c) if _QUOTED.search(c) is not None else c for c in cells]
+    if not columns[0]:
         return ""
-    return "\n".join(map(",".join, zip(*text.csv))) + "\n"   # every cell is text already
+    return "\n".join(map(",".join, zip(*columns))) + "\n"   # every cell is text already
+
+
+def _csv_quoted(cell: str) -> str:
+    return '"' + cell.replace('"', '""') + '"'
 
 
 def _json_rows(frame: pd.DataFrame, text: _TableText | None = None) -> str:
