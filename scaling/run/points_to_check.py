@@ -41,7 +41,9 @@ from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer
                                points_to_check, strong_influence, strong_influence_each,
                                strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
+from ..stats.cooks import SPAN
 from .fits import known_group_codes, known_moments, set_columns
+from .predictions import chunk_runs
 from .phylo_checks import answer_model_checks, answer_point_rows, point_context
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
@@ -217,8 +219,7 @@ def answer_points(cfg, state) -> list:
                 sets = [(g, sel, *set_columns(sel, "log_x", "log_y"))
                         for g, sel in _group_sets(state, method)]
                 sets = [s for s in sets if np.ptp(s[2]) > 0]
-                screens = strong_influence_each([(X, Y) for _, _, X, Y in sets],
-                                                method=method)   # every group in one pass
+                screens = _screened([(X, Y) for _, _, X, Y in sets], method)
                 stated = _Stated(state)
                 return [p for (g, sel, X, Y), inf in zip(sets, screens)
                         for p in _line_points(cfg, state, sel, "group", g, method, hyps,
@@ -250,6 +251,14 @@ def coded_points(points: pd.DataFrame) -> GroupCodes:
     are the points it coded (the same codes: text names factorized in sorted order)."""
     known = known_group_codes(points)
     return GroupCodes(*known) if known is not None else coded_groups(points["group"])
+
+
+def _screened(pairs: list, method: str):
+    """:func:`~scaling.stats.influence.strong_influence_each` of the samples ``pairs``,
+    yielded a run of about ``2 * SPAN`` points at a time (every run in one array pass),
+    so the screens of the groups looked at are let go before the next run is made."""
+    for lo, hi in chunk_runs([X.size for X, _ in pairs], 2 * SPAN):
+        yield from strong_influence_each(pairs[lo:hi], method=method)
 
 
 def _group_sets(state, method: str):
@@ -398,8 +407,7 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
     where = {str(name): i for i, name in enumerate(names)}
     members = [(str(g), mine) for g, mine in ((g, split[where[str(g)]]) for g in used)
                if mine.size >= 4 and np.ptp(Xs[mine]) > 0]
-    screens = strong_influence_each([(Xs[mine], Ys[mine]) for _, mine in members],
-                                    method=method)   # every group in one array pass
+    screens = _screened([(Xs[mine], Ys[mine]) for _, mine in members], method)
     for (g, mine), inf in zip(members, screens):
         for j in np.flatnonzero(inf["flag"]):
             k = int(mine[j])

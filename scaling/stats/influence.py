@@ -384,39 +384,48 @@ def _influence_run(pairs: list, method: str) -> list:
     Y = np.concatenate([Y for _, Y in pairs])
     n = sizes.astype(float)
 
-    each = np.repeat(np.arange(sizes.size), sizes)
+    def spread(v):   # each sample's value over its points (contiguous: no gather)
+        return np.repeat(v, sizes)
+
     # each segment led by a zero: reduceat then adds 0 + (the segment's pairwise sum),
-    # numpy.sum's order (without it, the first element is added last)
-    slots = np.arange(X.size) + each + 1
+    # numpy.sum's order (without it, the first element is added last); the values go
+    # to every slot but the heads, by a mask of bytes
     heads = starts + np.arange(sizes.size)
+    slots = np.ones(X.size + sizes.size, dtype=bool)
+    slots[heads] = False
 
     def total(v):
-        padded = np.zeros(v.size + sizes.size)
+        padded = np.zeros(slots.size)
         padded[slots] = v
         return np.add.reduceat(padded, heads)
 
     mx, my = total(X) / n, total(Y) / n
-    d, f = X - mx[each], Y - my[each]
-    sxx, syy, sxy = total(d * d), total(f * f), total(d * f)
+    mx_e, my_e = spread(mx), spread(my)
+    d, f = X - mx_e, Y - my_e
+    del X, Y
+    dd = d * d
+    sxx, syy, sxy = total(dd), total(f * f), total(d * f)
     b, se = _slopes_and_ses(Moments(n=n, mean_x=mx, mean_y=my, sxx=sxx, syy=syy, sxy=sxy),
                             method)
+    sxx_e = spread(sxx)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         # leave one out (the algebra of leave_one_out_slopes)
-        ne, k = n[each], (n / (n - 1))[each]
-        down = Moments(n=ne - 1.0, mean_x=mx[each] - d / (ne - 1), mean_y=my[each] - f / (ne - 1),
-                       sxx=sxx[each] - k * d * d, syy=syy[each] - k * f * f,
-                       sxy=sxy[each] - k * d * f)
+        ne, k = spread(n), spread(n / (n - 1))
+        down = Moments(n=ne - 1.0, mean_x=mx_e - d / (ne - 1), mean_y=my_e - f / (ne - 1),
+                       sxx=sxx_e - k * d * d, syy=spread(syy) - k * f * f,
+                       sxy=spread(sxy) - k * d * f)
+        del mx_e, my_e, k
         loo = _slopes(down, method)
+        del down
     with np.errstate(divide="ignore", invalid="ignore"):
         # Cook's distances (the algebra of cooks_distances)
-        slope = (sxy / sxx)[each]
-        e = f - slope * d
-        s2 = (total(e * e) / (n - 2))[each]
-        h = 1.0 / ne + d * d / sxx[each]
+        e = f - spread(sxy / sxx) * d
+        s2 = spread(total(e * e) / (n - 2))
+        h = 1.0 / ne + dd / sxx_e
         cook = e * e * h / (2 * s2 * (1 - h) ** 2)
-        moved = np.abs(loo - b[each]) > se[each]
-        flag = ((cook > COOK_STRONG) | moved) & (se[each] > 0)
+        moved = np.abs(loo - spread(b)) > spread(se)
+        flag = ((cook > COOK_STRONG) | moved) & spread(se > 0)
     return [{"flag": flag[a:a + m], "cook": cook[a:a + m], "slope_without": loo[a:a + m],
              "slope": np.asarray(b[i], float), "slope_se": np.asarray(se[i], float)}
             for i, (a, m) in enumerate(zip(starts.tolist(), sizes.tolist()))]
