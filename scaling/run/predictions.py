@@ -179,20 +179,26 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
     sd = np.array([f.resid_sd for f in fits], dtype=float)
     ln_base = math.log(log_base)
     X, Y = logs if logs is not None else (to_log(x, log_base), to_log(y, log_base))
-    # a + b X, each group's a and b repeated over its (contiguous) rows, in place
-    line = np.repeat(np.array([f.slope for f in fits], dtype=float), sizes) * X
-    line += np.repeat(np.array([f.intercept for f in fits], dtype=float), sizes)
+    # a + b X, each group's a and b repeated over its (contiguous) rows (one line: the
+    # numbers themselves, the same products and sums), in place
+    def spread(values):
+        v = np.array(values, dtype=float)
+        return v[0] if k == 1 else np.repeat(v, sizes)
+    line = np.multiply(spread([f.slope for f in fits]), X)
+    line += spread([f.intercept for f in fits])
     res = Y - line
     y_hat = np.power(log_base, line, out=line)
 
-    see = np.sqrt(total(res * res) / (n - 2))
+    spare = np.multiply(res, res)   # squared residuals, then |y - y_hat| in the same array
+    see = np.sqrt(total(spare) / (n - 2))
     # base ** SEE with Python's pow on each float, as accuracy() does (numpy's
     # vectorised power can differ in the last bit).
     percent_see = np.array([100 * (log_base ** v - 1) for v in see.tolist()])
     res *= ln_base
     smearing = total(np.exp(res, out=res)) / n
     del res
-    gap = np.subtract(y, y_hat)
+    gap = np.subtract(y, y_hat, out=spare)
+    del spare
     np.abs(gap, out=gap)
     percent_pe = 100 * (total(np.divide(gap, y_hat, out=gap)) / n)
     del gap
