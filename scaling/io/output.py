@@ -394,6 +394,15 @@ def _float_texts(v: np.ndarray, known: dict | None = None) -> list:
     return words[codes].tolist()
 
 
+def _int_texts(v: np.ndarray) -> list:
+    """``int.__repr__`` of each value of an integer array, each distinct value written
+    once (a row number recurs once per method in a table of flagged rows)."""
+    if v.size < 64:
+        return list(map(int.__repr__, v.tolist()))
+    codes, distinct = pd.factorize(v)
+    return np.array(list(map(int.__repr__, distinct.tolist())), dtype=object)[codes].tolist()
+
+
 class _TableText:
     """A table's cells as text, made once a column at a time: ``csv`` (what
     ``DataFrame.to_csv`` writes in each cell, before quoting) and, on demand,
@@ -424,7 +433,7 @@ class _TableText:
                         text[i] = ""
                 self.csv.append(text)
             elif isinstance(dtype, np.dtype) and dtype.kind in "iu":
-                self.csv.append(list(map(int.__repr__, column.to_numpy().tolist())))
+                self.csv.append(_int_texts(column.to_numpy()))
             elif isinstance(dtype, np.dtype) and dtype.kind == "b":
                 self.csv.append(["True" if v else "False" for v in column.to_numpy().tolist()])
             elif isinstance(dtype, np.dtype) and dtype.kind == "O":
@@ -441,8 +450,7 @@ class _TableText:
             elif isinstance(dtype, _MaskedDtype) and dtype.kind in "iu":
                 # what pandas writes through astype(object): str of each whole number
                 values = column.array
-                text = list(map(int.__repr__, values.to_numpy(
-                    dtype=dtype.numpy_dtype, na_value=0).tolist()))
+                text = _int_texts(values.to_numpy(dtype=dtype.numpy_dtype, na_value=0))
                 for i in np.flatnonzero(values.isna()).tolist():
                     text[i] = ""
                 self.csv.append(text)
