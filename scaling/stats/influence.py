@@ -456,15 +456,15 @@ def _slopes_and_ses(m: Moments, method: str) -> tuple:
 
 class _LonePowers(np.ndarray):
     """A float array whose ``**`` gives, value by value, what numpy gives one sample's
-    float (C ``pow()``, as Python's float does), not the array's square by
+    float (a numpy scalar raised alone: C ``pow()``), not the array's square by
     multiplication; every other operation is elementwise, the same for an array as
     for one value, and keeps the type."""
 
     def __pow__(self, other):
-        if isinstance(other, np.ndarray) or not isinstance(other, (int, float)):
-            return NotImplemented
-        return np.array([v ** other for v in np.asarray(self).ravel().tolist()],
-                        dtype=float).reshape(self.shape).view(_LonePowers)
+        if np.ndim(other) != 0:   # the formulas raise to a number; anything else is new
+            raise TypeError("a power of one number per value is expected")
+        lone = [v ** other for v in np.asarray(self).ravel()]   # numpy scalars, one by one
+        return np.array(lone, dtype=float).reshape(self.shape).view(_LonePowers)
 
 
 def fit_checks(*, smearing_factor: float | None = None,
