@@ -2,7 +2,8 @@
 slope standard errors of many samples at once, equal their plain forms bit for bit.
 
 Modules: scaling.stats.influence (``points_to_check``'s screen ``_strong_points``,
-``_slopes_and_ses``, the ``sample_moments`` shortcut of ``points_to_check``).
+``_slopes_and_ses``, the ``sample_moments`` shortcut of ``points_to_check``),
+scaling.run.points_to_check (the fits whose factor check is skipped).
 """
 
 from __future__ import annotations
@@ -136,3 +137,28 @@ def test_given_sample_moments_give_the_same_findings():
                             sample_moments=moments(X, Y))
     assert plain == given
     assert {c.kind for c in plain} == {"influence", "group_residuals"}
+
+
+def test_fits_whose_factors_agree_are_those_the_factor_check_passes():
+    # internal consistency: every fit left out of the checks (factors agreeing well
+    # inside the limits) is one fit_checks finds nothing in; ratios at and around the
+    # limits, NaN, infinite, zero and negative factors are checked by fit_checks
+    from scaling.run.points_to_check import _factors_agree
+    from scaling.stats.influence import SMEARING_RATIO_LIMIT, fit_checks
+    rng = np.random.default_rng(17)
+    lim = SMEARING_RATIO_LIMIT
+    ratios = np.r_[rng.uniform(0.5, 1.6, 4000), lim, 1 / lim, np.nextafter(lim, 0),
+                   np.nextafter(1 / lim, 2), 1.01 / lim, lim / 1.01, 1.0]
+    param = rng.uniform(0.5, 3.0, ratios.size)
+    pairs = [(float(r * p), float(p)) for r, p in zip(ratios, param)]
+    pairs += [(np.nan, 1.0), (1.0, np.nan), (1.0, 0.0), (1.0, -1.0), (np.inf, 1.0), (1.0, 1.0)]
+    factors = {("group", str(i), "ols"): pair for i, pair in enumerate(pairs)}
+    agree = _factors_agree(factors)
+    assert 0 < len(agree) < len(factors)
+    for key, (smear, param_) in factors.items():
+        found = fit_checks(smearing_factor=smear, parametric_factor=param_)
+        if key in agree:
+            assert found == []
+    # known truth: a ratio of 1 agrees, one of 2 does not (limit 1.25)
+    assert ("group", str(len(pairs) - 1), "ols") in agree
+    assert not agree & {k for k, (s, p) in factors.items() if p > 0 and s / p > lim}

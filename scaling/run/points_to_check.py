@@ -37,9 +37,9 @@ __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_
            "answer_points", "in_groups", "coded_groups", "coded_points"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
-from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, narrows,
-                               points_to_check, strong_influence, strong_influence_each,
-                               strong_parallel_influence, verdict_code)
+from ..stats.influence import (COOK_STRONG, SMEARING_RATIO_LIMIT, PointCheck, fit_checks,
+                               moves_answer, narrows, points_to_check, strong_influence,
+                               strong_influence_each, strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
 from ..stats.cooks import SPAN
 from .fits import known_group_codes, known_moments, set_columns
@@ -113,15 +113,18 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
         for r in preds.itertuples(index=False):
             pred_rows.setdefault((r.scope, r.group, r.method), []).append(r)
     sizes = {k: len(sel) for k, sel in point_sets.items()}   # each set's size taken once
+    agree = _factors_agree(factors)
     with warnings.catch_warnings():   # one silenced context for every fit's checks
         warnings.simplefilter("ignore")
         for key, fit in line_fits.items():
             scope, group, method = key
+            whole = key == pooled_key
+            if not whole and key not in pred_rows and (key in agree or key not in factors):
+                continue   # nothing for fit_checks to find (most of a thousand groups' fits)
             size = sizes.get((scope, group))
             if size is None or size != fit.n or size < 4:
                 continue
             sel = point_sets[(scope, group)]
-            whole = key == pooled_key
             est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
                    for r in pred_rows.get(key, ())] if preds is not None and len(preds) else ()
             smear, param = factors.get(key, (None, None))
@@ -183,6 +186,22 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
     for r in table[table["kind"] == "group_residuals"].itertuples(index=False):
         warn.append(f"Note — {method_label(r.method)} line: {r.reason}")
     return table, warn
+
+
+def _factors_agree(factors: dict) -> set:
+    """The fits whose smearing and parametric factors agree well inside the limits of
+    :func:`~scaling.stats.influence.fit_checks` (their ratio at least 1 % inside
+    [1 / SMEARING_RATIO_LIMIT, SMEARING_RATIO_LIMIT], far beyond rounding): taken in
+    one array pass, so that the checks are called only for the fits they may flag."""
+    if not factors:
+        return set()
+    pairs = np.array(list(factors.values()), dtype=float).reshape(-1, 2)
+    smear, param = pairs[:, 0], pairs[:, 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = smear / param
+        inside = (np.isfinite(smear) & np.isfinite(param) & (param > 0)
+                  & (ratio > 1.01 / SMEARING_RATIO_LIMIT) & (ratio < SMEARING_RATIO_LIMIT / 1.01))
+    return {key for key, ok in zip(factors, inside.tolist()) if ok}
 
 
 # --------------------------------------------------------------------------
