@@ -161,3 +161,32 @@ class TestManyGroupsSummedAtOnce:
                         assert cols[c][i] == pytest.approx(want[c], rel=1e-12, abs=0)
                     else:
                         assert cols[c][i] == want[c], (m, i, c)
+
+    def test_stage_of_many_groups_gives_each_methods_lone_numbers(self):
+        # internal consistency: accuracy_and_factors (chunks of whole groups, one summing
+        # plan per chunk from the sets' lengths, byte-sized codes) against factors_by_group
+        # of each method alone on all the groups at once, bit for bit
+        rng = np.random.default_rng(29)
+        sizes = rng.integers(3, 40, 150)
+        point_sets, line_fits = {}, {}
+        for g, n in enumerate(sizes):
+            log_x = rng.uniform(0, 3, n)
+            log_y = 0.3 + 0.75 * log_x + rng.normal(0, 0.1, n)
+            point_sets[("group", f"g{g:03d}")] = pd.DataFrame({"x": 10.0 ** log_x,
+                                                               "y": 10.0 ** log_y})
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                for m in ("ols", "sma"):
+                    line_fits[("group", f"g{g:03d}", m)] = fit_line(
+                        10.0 ** log_x, 10.0 ** log_y, method=m, log_base=10)
+        _, extra = accuracy_and_factors(line_fits, point_sets)
+        sets = list(point_sets.values())
+        x = np.concatenate([s["x"].to_numpy() for s in sets])
+        y = np.concatenate([s["y"].to_numpy() for s in sets])
+        codes = np.repeat(np.arange(len(sets)), sizes)
+        for m in ("ols", "sma"):
+            keys = [k for k in line_fits if k[2] == m]
+            alone = factors_by_group([line_fits[k] for k in keys], x, y, codes, 10.0)
+            for i, key in enumerate(keys):
+                for c in COLUMNS:
+                    assert extra[key][c] == alone[c][i], (key, c)

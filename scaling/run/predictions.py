@@ -172,9 +172,7 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
     k = len(fits)
     shared = {} if shared is None else shared
     if "total" not in shared:
-        sizes = np.bincount(codes, minlength=k)
-        shared.update(sizes=sizes, n=sizes.astype(float), total=_group_sums(
-            sizes, np.concatenate(([0], np.cumsum(sizes[:-1])))))
+        shared.update(_summing_plan(np.bincount(codes, minlength=k)))
     sizes, n, total = shared["sizes"], shared["n"], shared["total"]
     sd = np.array([f.resid_sd for f in fits], dtype=float)
     ln_base = math.log(log_base)
@@ -206,6 +204,14 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
             "smearing_factor": smearing,
             "parametric_factor": np.exp(sd * sd * ln_base * ln_base / 2),
             "ratio_factor": _mean_y(shared, y) / (total(y_hat) / n)}
+
+
+def _summing_plan(sizes) -> dict:
+    """What :func:`factors_by_group` keeps in ``shared``: the groups' sizes (rows of
+    each code), as floats, and their :func:`_group_sums`."""
+    sizes = np.asarray(sizes, dtype=np.intp)
+    return {"sizes": sizes, "n": sizes.astype(float),
+            "total": _group_sums(sizes, np.concatenate(([0], np.cumsum(sizes[:-1]))))}
 
 
 def _mean_y(shared: dict, y: np.ndarray) -> np.ndarray:
@@ -292,9 +298,13 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
                         extra[key] = _extra_of(line_fits[key], t["x"].to_numpy(),
                                                t["y"].to_numpy())
                 continue
-            codes = np.repeat(np.arange(hi - lo), [c[0].size for c in cols])
+            # the smallest integers that hold the codes (a byte a row for the pooled set)
+            lengths = [c[0].size for c in cols]
+            codes = np.repeat(np.arange(hi - lo, dtype=np.min_scalar_type(hi - lo)), lengths)
             logs: dict = {}
-            shared: dict = {}   # the groups' sums plan and mean y, made once per chunk
+            # the groups' sums plan (from the sets' lengths: the codes' counts) and mean y,
+            # made once per chunk for every method
+            shared = _summing_plan(lengths)
             for base, keys in jobs:
                 if base not in logs:
                     logs[base] = (to_log(x, base), to_log(y, base))
