@@ -332,8 +332,19 @@ def _json_parts(doc: dict, texts: dict | None = None) -> dict:
 
 
 def _write_json_parts(parts: dict, path: Path) -> None:
+    """Write the entries one after another: joined into one string, a single character
+    beyond ASCII in any entry (a dash in a warning) would widen every character of
+    the megabytes of tables, and the whole would be copied and encoded again."""
     with open(path, "w", encoding="utf-8") as fh:
-        fh.write("{\n" + ",\n".join(parts.values()) + "\n}\n" if parts else "{}\n")
+        if not parts:
+            fh.write("{}\n")
+            return
+        fh.write("{\n")
+        for i, part in enumerate(parts.values()):
+            if i:
+                fh.write(",\n")
+            fh.write(part)
+        fh.write("\n}\n")
 
 
 # --------------------------------------------------------------------------
