@@ -62,6 +62,34 @@ def _edge_frame() -> pd.DataFrame:
     })
 
 
+def _quoting_frame() -> pd.DataFrame:
+    """Text the csv writer quotes (commas, double quotes, both, a lone quote) beside text
+    it does not (spaces, tabs, semicolons, empty, missing), in text and object columns."""
+    words = np.array(["plain", "a,b", 'say "x"', '"', '""', ',"', " lead", "trail ",
+                      "tab\there", "semi;colon", "", "Ünï,code", None], dtype=object)
+    k = 3 * words.size
+    return pd.DataFrame({
+        "scope": pd.array(words[np.arange(k) % words.size], dtype="str"),
+        "value": np.linspace(0.0, 1.0, k),
+        "note": words[(np.arange(k) * 5) % words.size],
+        "n": np.arange(k, dtype=np.int64),
+    })
+
+
+def _repeated_integers() -> pd.DataFrame:
+    """Whole numbers recurring down long columns (row numbers once per method), with the
+    extremes of int64 and uint64, negatives and missing values."""
+    rng = np.random.default_rng(3)
+    pool = np.array([0, -1, 7, 2**31, -(2**63), 2**63 - 1, 123456789012], dtype=np.int64)
+    k = 3000
+    signed = pool[rng.integers(0, pool.size, k)]
+    masked = pd.array(signed, dtype="Int64")
+    masked[::7] = pd.NA
+    return pd.DataFrame({"row": masked, "n": signed,
+                         "u": np.array([2**64 - 1, 5, 2**63], dtype=np.uint64)[np.arange(k) % 3],
+                         "small": np.arange(k, dtype=np.int16) % 5})
+
+
 def _pandas_csv(frame: pd.DataFrame, path) -> bytes:
     frame.to_csv(path, index=False, lineterminator="\n")
     return path.read_bytes()
@@ -78,6 +106,9 @@ class TestWriteCsv:
         lambda: pd.DataFrame({"c": pd.Categorical(["u", None])}),     # left to pandas
         lambda: pd.DataFrame({"a": [1.5, 2.5], "b": [np.nan, np.nan]}),
         lambda: pd.DataFrame({1: [0.1, 0.2], "a,b": ["x", "y"]}),     # labels quoted
+        _quoting_frame,                      # quoted cells written without the csv writer
+        lambda: _repeated_integers(),                                 # each value once
+        lambda: _quoting_frame().assign(note=["a\rb"] * len(_quoting_frame())),   # \r: writer
     ])
     def test_writes_the_bytes_pandas_writes(self, tmp_path, make):
         frame = make()

@@ -62,6 +62,17 @@ class TestWriteJson:
         write_json({}, tmp_path / "r.json")
         assert json.loads((tmp_path / "r.json").read_text()) == {}
 
+    def test_entries_written_in_turn_are_the_bytes_of_the_whole_joined(self, tmp_path):
+        # internal consistency: entries written one after another against the document
+        # joined into one string and encoded as UTF-8 (ASCII tables beside a dash)
+        from scaling.io import output
+        for doc in ({"warnings": ["STRONG — one"], "fits": records(_mixed_frame())},
+                    {"n": 3}, {"title": "Ünïcode", "empty": [], "none": None}):
+            parts = output._json_parts(doc)
+            output._write_json_parts(parts, tmp_path / "r.json")
+            whole = "{\n" + ",\n".join(parts.values()) + "\n}\n"
+            assert (tmp_path / "r.json").read_bytes() == whole.encode("utf-8")
+
 
 class TestResultsDocument:
     def test_per_row_tables_are_named_not_copied(self, tmp_path):

@@ -332,8 +332,19 @@ def _json_parts(doc: dict, texts: dict | None = None) -> dict:
 
 
 def _write_json_parts(parts: dict, path: Path) -> None:
+    """Write the entries one after another: joined into one string, a single character
+    beyond ASCII in any entry (a dash in a warning) would widen every character of
+    the megabytes of tables, and the whole would be copied and encoded again."""
     with open(path, "w", encoding="utf-8") as fh:
-        fh.write("{\n" + ",\n".join(parts.values()) + "\n}\n" if parts else "{}\n")
+        if not parts:
+            fh.write("{}\n")
+            return
+        fh.write("{\n")
+        for i, part in enumerate(parts.values()):
+            if i:
+                fh.write(",\n")
+            fh.write(part)
+        fh.write("\n}\n")
 
 
 # --------------------------------------------------------------------------
@@ -394,6 +405,15 @@ def _float_texts(v: np.ndarray, known: dict | None = None) -> list:
     return words[codes].tolist()
 
 
+def _int_texts(v: np.ndarray) -> list:
+    """``int.__repr__`` of each value of an integer array, each distinct value written
+    once (a row number recurs once per method in a table of flagged rows)."""
+    if v.size < 64:
+        return list(map(int.__repr__, v.tolist()))
+    codes, distinct = pd.factorize(v)
+    return np.array(list(map(int.__repr__, distinct.tolist())), dtype=object)[codes].tolist()
+
+
 class _TableText:
     """A table's cells as text, made once a column at a time: ``csv`` (what
     ``DataFrame.to_csv`` writes in each cell, before quoting) and, on demand,
@@ -424,7 +444,7 @@ class _TableText:
                         text[i] = ""
                 self.csv.append(text)
             elif isinstance(dtype, np.dtype) and dtype.kind in "iu":
-                self.csv.append(list(map(int.__repr__, column.to_numpy().tolist())))
+                self.csv.append(_int_texts(column.to_numpy()))
             elif isinstance(dtype, np.dtype) and dtype.kind == "b":
                 self.csv.append(["True" if v else "False" for v in column.to_numpy().tolist()])
             elif isinstance(dtype, np.dtype) and dtype.kind == "O":
@@ -441,8 +461,7 @@ class _TableText:
             elif isinstance(dtype, _MaskedDtype) and dtype.kind in "iu":
                 # what pandas writes through astype(object): str of each whole number
                 values = column.array
-                text = list(map(int.__repr__, values.to_numpy(
-                    dtype=dtype.numpy_dtype, na_value=0).tolist()))
+                text = _int_texts(values.to_numpy(dtype=dtype.numpy_dtype, na_value=0))
                 for i in np.flatnonzero(values.isna()).tolist():
                     text[i] = ""
                 self.csv.append(text)
@@ -489,14 +508,32 @@ class _TableText:
 _QUOTED = re.compile(r'[,"\r\n]')
 
 
+#: Characters of a cell the csv writer quotes that :func:`_csv_rows` leaves to it.
+_LINE_BREAK = re.compile(r"[\r\n]")
+
+
 def _csv_rows(text: _TableText) -> str | None:
-    """The body of the CSV (one line per row), or None when some cell needs quoting or
-    the table has a single column (whose empty cells the writer quotes)."""
-    if len(text.csv) < 2 or any(text.quoted(j) for j in range(len(text.csv))):
+    """The body of the CSV (one line per row), or None when some cell holds a line break
+    or the table has a single column (whose empty cells the writer quotes).
+
+    A cell holding a comma or a double quote is quoted as the csv writer quotes it
+    (``QUOTE_MINIMAL``: in double quotes, each double quote doubled)."""
+    if len(text.csv) < 2:
         return None
-    if not text.csv[0]:
+    columns = list(text.csv)
+    for j, cells in enumerate(columns):
+        if not text.quoted(j):
+            continue
+        if _LINE_BREAK.search("".join(cells)) is not None:
+            return None
+        columns[j] = [_csv_quoted(c) if _QUOTED.search(c) is not None else c for c in cells]
+    if not columns[0]:
         return ""
-    return "\n".join(map(",".join, zip(*text.csv))) + "\n"   # every cell is text already
+    return "\n".join(map(",".join, zip(*columns))) + "\n"   # every cell is text already
+
+
+def _csv_quoted(cell: str) -> str:
+    return '"' + cell.replace('"', '""') + '"'
 
 
 def _json_rows(frame: pd.DataFrame, text: _TableText | None = None) -> str:

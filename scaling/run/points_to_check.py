@@ -37,11 +37,13 @@ __all__ = ["POINTS_TO_CHECK_COLUMNS", "PointsToCheck", "primary_method", "check_
            "answer_points", "in_groups", "coded_groups", "coded_points"]
 
 from ..stats.schema import POINTS_TO_CHECK_COLUMNS  # noqa: E402 (the vocabulary's home)
-from ..stats.influence import (COOK_STRONG, PointCheck, fit_checks, moves_answer, narrows,
-                               points_to_check, strong_influence, strong_influence_each,
-                               strong_parallel_influence, verdict_code)
+from ..stats.influence import (COOK_STRONG, SMEARING_RATIO_LIMIT, PointCheck, fit_checks,
+                               moves_answer, narrows, points_to_check, strong_influence,
+                               strong_influence_each, strong_parallel_influence, verdict_code)
 from ..render.findings import point_check_reason
-from .fits import known_group_codes, set_columns
+from ..stats.cooks import SPAN
+from .fits import known_group_codes, known_moments, set_columns
+from .predictions import chunk_runs
 from .phylo_checks import answer_model_checks, answer_point_rows, point_context
 MAX_LISTED = 5
 #: Most strong points of the answer's model refitted one at a time (largest Cook's distance first).
@@ -111,15 +113,18 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
         for r in preds.itertuples(index=False):
             pred_rows.setdefault((r.scope, r.group, r.method), []).append(r)
     sizes = {k: len(sel) for k, sel in point_sets.items()}   # each set's size taken once
+    agree = _factors_agree(factors)
     with warnings.catch_warnings():   # one silenced context for every fit's checks
         warnings.simplefilter("ignore")
         for key, fit in line_fits.items():
             scope, group, method = key
+            whole = key == pooled_key
+            if not whole and key not in pred_rows and (key in agree or key not in factors):
+                continue   # nothing for fit_checks to find (most of a thousand groups' fits)
             size = sizes.get((scope, group))
             if size is None or size != fit.n or size < 4:
                 continue
             sel = point_sets[(scope, group)]
-            whole = key == pooled_key
             est = [(f"at x = {r.x:g} ", r.y, r.y_low, r.y_high)
                    for r in pred_rows.get(key, ())] if preds is not None and len(preds) else ()
             smear, param = factors.get(key, (None, None))
@@ -135,7 +140,8 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
                 if whole:
                     found = points_to_check(x, y, method=method, rows=rows, labels=labels,
                                             group_codes=codes, smearing_factor=smear,
-                                            parametric_factor=param, estimates=est, alpha=alpha)
+                                            parametric_factor=param, estimates=est, alpha=alpha,
+                                            sample_moments=known_moments(sel))
                 else:   # fit-level checks only; points are checked on the primary line
                     found = fit_checks(smearing_factor=smear, parametric_factor=param,
                                        estimates=est)
@@ -182,6 +188,22 @@ def _check(cfg, line_fits: dict, point_sets: dict, fits: pd.DataFrame, tables: d
     return table, warn
 
 
+def _factors_agree(factors: dict) -> set:
+    """The fits whose smearing and parametric factors agree well inside the limits of
+    :func:`~scaling.stats.influence.fit_checks` (their ratio at least 1 % inside
+    [1 / SMEARING_RATIO_LIMIT, SMEARING_RATIO_LIMIT], far beyond rounding): taken in
+    one array pass, so that the checks are called only for the fits they may flag."""
+    if not factors:
+        return set()
+    pairs = np.array(list(factors.values()), dtype=float).reshape(-1, 2)
+    smear, param = pairs[:, 0], pairs[:, 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = smear / param
+        inside = (np.isfinite(smear) & np.isfinite(param) & (param > 0)
+                  & (ratio > 1.01 / SMEARING_RATIO_LIMIT) & (ratio < SMEARING_RATIO_LIMIT / 1.01))
+    return {key for key, ok in zip(factors, inside.tolist()) if ok}
+
+
 # --------------------------------------------------------------------------
 # influence on what the answer states
 
@@ -216,8 +238,7 @@ def answer_points(cfg, state) -> list:
                 sets = [(g, sel, *set_columns(sel, "log_x", "log_y"))
                         for g, sel in _group_sets(state, method)]
                 sets = [s for s in sets if np.ptp(s[2]) > 0]
-                screens = strong_influence_each([(X, Y) for _, _, X, Y in sets],
-                                                method=method)   # every group in one pass
+                screens = _screened([(X, Y) for _, _, X, Y in sets], method)
                 stated = _Stated(state)
                 return [p for (g, sel, X, Y), inf in zip(sets, screens)
                         for p in _line_points(cfg, state, sel, "group", g, method, hyps,
@@ -249,6 +270,14 @@ def coded_points(points: pd.DataFrame) -> GroupCodes:
     are the points it coded (the same codes: text names factorized in sorted order)."""
     known = known_group_codes(points)
     return GroupCodes(*known) if known is not None else coded_groups(points["group"])
+
+
+def _screened(pairs: list, method: str):
+    """:func:`~scaling.stats.influence.strong_influence_each` of the samples ``pairs``,
+    yielded a run of about ``2 * SPAN`` points at a time (every run in one array pass),
+    so the screens of the groups looked at are let go before the next run is made."""
+    for lo, hi in chunk_runs([X.size for X, _ in pairs], 2 * SPAN):
+        yield from strong_influence_each(pairs[lo:hi], method=method)
 
 
 def _group_sets(state, method: str):
@@ -397,8 +426,7 @@ def _common_points(cfg, state, pooled, method: str, hyps) -> list:
     where = {str(name): i for i, name in enumerate(names)}
     members = [(str(g), mine) for g, mine in ((g, split[where[str(g)]]) for g in used)
                if mine.size >= 4 and np.ptp(Xs[mine]) > 0]
-    screens = strong_influence_each([(Xs[mine], Ys[mine]) for _, mine in members],
-                                    method=method)   # every group in one array pass
+    screens = _screened([(Xs[mine], Ys[mine]) for _, mine in members], method)
     for (g, mine), inf in zip(members, screens):
         for j in np.flatnonzero(inf["flag"]):
             k = int(mine[j])

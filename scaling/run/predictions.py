@@ -130,7 +130,8 @@ def _extra_of(fit, x, y) -> dict:
 
 
 def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray,
-                     log_base: float, *, logs: tuple | None = None) -> dict:
+                     log_base: float, *, logs: tuple | None = None,
+                     shared: dict | None = None) -> dict:
     """Accuracy and correction factors of many fits at once, one fit per group code.
 
     Parameters
@@ -147,6 +148,10 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
     logs : (ndarray, ndarray), optional
         ``to_log(x, log_base)`` and ``to_log(y, log_base)`` when the caller has them
         (several methods' fits to the same points).
+    shared : dict, optional
+        An empty dict the caller passes again with other fits to the same ``x``, ``y``
+        and ``codes`` (several methods): what does not depend on the line (the
+        groups' sizes and summing plan, the mean of y) is kept in it and made once.
 
     Returns
     -------
@@ -165,34 +170,55 @@ def factors_by_group(fits: list, x: np.ndarray, y: np.ndarray, codes: np.ndarray
     ratio = mean(y) / mean(yhat) (Snowdon 1991, Can. J. For. Res. 21:720).
     """
     k = len(fits)
-    sizes = np.bincount(codes, minlength=k)
+    shared = {} if shared is None else shared
+    if "total" not in shared:
+        shared.update(_summing_plan(np.bincount(codes, minlength=k)))
+    sizes, n, total = shared["sizes"], shared["n"], shared["total"]
     sd = np.array([f.resid_sd for f in fits], dtype=float)
     ln_base = math.log(log_base)
     X, Y = logs if logs is not None else (to_log(x, log_base), to_log(y, log_base))
-    # a + b X, each group's a and b repeated over its (contiguous) rows, in place
-    line = np.repeat(np.array([f.slope for f in fits], dtype=float), sizes) * X
-    line += np.repeat(np.array([f.intercept for f in fits], dtype=float), sizes)
+    # a + b X, each group's a and b repeated over its (contiguous) rows (one line: the
+    # numbers themselves, the same products and sums), in place
+    def spread(values):
+        v = np.array(values, dtype=float)
+        return v[0] if k == 1 else np.repeat(v, sizes)
+    line = np.multiply(spread([f.slope for f in fits]), X)
+    line += spread([f.intercept for f in fits])
     res = Y - line
     y_hat = np.power(log_base, line, out=line)
-    n = sizes.astype(float)
-    starts = np.concatenate(([0], np.cumsum(sizes[:-1])))
-    total = _group_sums(sizes, starts)
 
-    see = np.sqrt(total(res * res) / (n - 2))
+    spare = np.multiply(res, res)   # squared residuals, then |y - y_hat| in the same array
+    see = np.sqrt(total(spare) / (n - 2))
     # base ** SEE with Python's pow on each float, as accuracy() does (numpy's
     # vectorised power can differ in the last bit).
     percent_see = np.array([100 * (log_base ** v - 1) for v in see.tolist()])
     res *= ln_base
     smearing = total(np.exp(res, out=res)) / n
     del res
-    gap = np.subtract(y, y_hat)
+    gap = np.subtract(y, y_hat, out=spare)
+    del spare
     np.abs(gap, out=gap)
     percent_pe = 100 * (total(np.divide(gap, y_hat, out=gap)) / n)
     del gap
     return {"see": see, "percent_see": percent_see, "percent_pe": percent_pe,
             "smearing_factor": smearing,
             "parametric_factor": np.exp(sd * sd * ln_base * ln_base / 2),
-            "ratio_factor": (total(y) / n) / (total(y_hat) / n)}
+            "ratio_factor": _mean_y(shared, y) / (total(y_hat) / n)}
+
+
+def _summing_plan(sizes) -> dict:
+    """What :func:`factors_by_group` keeps in ``shared``: the groups' sizes (rows of
+    each code), as floats, and their :func:`_group_sums`."""
+    sizes = np.asarray(sizes, dtype=np.intp)
+    return {"sizes": sizes, "n": sizes.astype(float),
+            "total": _group_sums(sizes, np.concatenate(([0], np.cumsum(sizes[:-1]))))}
+
+
+def _mean_y(shared: dict, y: np.ndarray) -> np.ndarray:
+    """Each group's mean of y, taken once for every line fitted to the same points."""
+    if "mean_y" not in shared:
+        shared["mean_y"] = shared["total"](y) / shared["n"]
+    return shared["mean_y"]
 
 
 def _group_sums(sizes: np.ndarray, starts: np.ndarray):
@@ -200,9 +226,10 @@ def _group_sums(sizes: np.ndarray, starts: np.ndarray):
     the (pairwise) order of ``np.sum`` on that group alone, so every number equals the
     per-fit one to the last bit.
 
-    A few groups: one sum of each group's slice.  Many: groups of equal size side by
-    side as rows of one C-ordered block, summed along the rows (one block per distinct
-    group size, at most sqrt(2 N) of them for N rows), without a Python loop over groups.
+    A few groups: one sum of each group's slice.  Many: the values laid out with a
+    zero before each group and summed by one ``np.add.reduceat`` (which adds a
+    segment's first value to the pairwise sum of the rest: led by a zero, that is
+    ``np.sum``'s order), without a Python loop over groups.
     """
     k = sizes.size
     if k <= _FEW_GROUPS:
@@ -212,15 +239,14 @@ def _group_sums(sizes: np.ndarray, starts: np.ndarray):
         def total(w):
             return np.array([add(w[a:b]) for a, b in bounds], dtype=float)
         return total
-    blocks = [(idx, starts[idx][:, None] + np.arange(size))
-              for size in np.unique(sizes)
-              for idx in [np.flatnonzero(sizes == size)]]
+    heads = starts + np.arange(k)
+    slots = np.ones(int(sizes.sum()) + k, dtype=bool)   # every place but the heads
+    slots[heads] = False
 
     def total(w):
-        out = np.empty(k)
-        for idx, rows in blocks:
-            out[idx] = w[rows].sum(axis=1)
-        return out
+        padded = np.zeros(slots.size)
+        padded[slots] = w
+        return np.add.reduceat(padded, heads)
     return total
 
 
@@ -272,14 +298,19 @@ def accuracy_and_factors(line_fits: dict, point_sets: dict):
                         extra[key] = _extra_of(line_fits[key], t["x"].to_numpy(),
                                                t["y"].to_numpy())
                 continue
-            codes = np.repeat(np.arange(hi - lo), [c[0].size for c in cols])
+            # the smallest integers that hold the codes (a byte a row for the pooled set)
+            lengths = [c[0].size for c in cols]
+            codes = np.repeat(np.arange(hi - lo, dtype=np.min_scalar_type(hi - lo)), lengths)
             logs: dict = {}
+            # the groups' sums plan (from the sets' lengths: the codes' counts) and mean y,
+            # made once per chunk for every method
+            shared = _summing_plan(lengths)
             for base, keys in jobs:
                 if base not in logs:
                     logs[base] = (to_log(x, base), to_log(y, base))
                 part = keys[lo:hi]
                 got = factors_by_group([line_fits[k] for k in part], x, y, codes, base,
-                                       logs=logs[base])
+                                       logs=logs[base], shared=shared)
                 for i, key in enumerate(part):
                     extra[key] = {c: float(v[i]) for c, v in got.items()}
     extra = {key: extra[key] for key in line_fits if key in extra}   # the fits' order

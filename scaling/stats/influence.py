@@ -167,6 +167,13 @@ def _moments_last_axis(X: np.ndarray, Y: np.ndarray) -> Moments:
                    sxy=sxy)
 
 
+def _centred(X: np.ndarray, Y: np.ndarray) -> tuple:
+    """(Moments along the last axis, X and Y minus their means): the centred values
+    are what the influence measures are made of, taken once."""
+    m = _moments_last_axis(X, Y)
+    return m, X - m.mean_x[..., None], Y - m.mean_y[..., None]
+
+
 def _xy(log_x, log_y, what: str) -> tuple:
     X = np.asarray(log_x, dtype=float)
     Y = np.asarray(log_y, dtype=float)
@@ -285,6 +292,59 @@ def strong_influence(log_x, log_y, *, method: str = "ols") -> dict:
     return {"flag": flag, "cook": cook, "slope_without": loo, "slope": b, "slope_se": se}
 
 
+def _strong_points(X: np.ndarray, Y: np.ndarray, method: str) -> tuple:
+    """The points :func:`strong_influence` flags in one sample (1-d ``X``, ``Y``), the
+    strongest first: ``(positions, cook, slope_without, slope, slope_se)``.
+
+    The same floats as ``strong_influence(X, Y, method=method)`` (its steps, in its
+    order), a span of :data:`~scaling.stats.cooks.SPAN` points at a time from the
+    centred values taken once: no array of every point's distance, refitted slope and
+    flag, and the sums of a million points are not taken three times over.
+    """
+    n = X.size
+    m, d, f = _centred(X, Y)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        full = fit_moments(m, method)
+    b, se = np.asarray(full["slope"], float), np.asarray(full["slope_se"], float)
+    none = np.zeros(0, dtype=np.intp), np.zeros(0), np.zeros(0)
+    if not np.all(se > 0):   # an exact fit (or none): nothing is flagged
+        return (*none, b, se)
+    k = n / (n - 1)
+    found = []
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # Cook's distances (the algebra of ols_cooks_distances): the OLS slope, the sum
+        # of squared residuals over every point at once (numpy's order of addition)
+        slope = m.sxy / m.sxx
+        e = np.multiply(d, slope)
+        np.subtract(f, e, out=e)
+        np.multiply(e, e, out=e)
+        s2 = np.sum(e, axis=-1) / (n - 2)
+        del e
+        for lo, hi in _spans(n):
+            ds, fs = d[lo:hi], f[lo:hi]
+            # leave one out (the algebra of leave_one_out_slopes)
+            down = Moments(n=np.full(ds.shape, n - 1.0),
+                           mean_x=m.mean_x[..., None] - ds / (n - 1),
+                           mean_y=m.mean_y[..., None] - fs / (n - 1),
+                           sxx=m.sxx[..., None] - k * ds * ds,
+                           syy=m.syy[..., None] - k * fs * fs,
+                           sxy=m.sxy[..., None] - k * ds * fs)
+            loo = _slopes(down, method)
+            es = fs - slope * ds
+            h = 1.0 / n + ds * ds / m.sxx
+            cook = es * es * h / (2 * s2 * (1 - h) ** 2)
+            moved = np.abs(loo - b[..., None]) > se[..., None]
+            at = np.flatnonzero((cook > COOK_STRONG) | moved)
+            if at.size:
+                found.append((at + lo, cook[at], loo[at]))
+    if not found:
+        return (*none, b, se)
+    where, cook, loo = (np.concatenate(part) for part in zip(*found))
+    strongest = np.argsort(-cook, kind="stable")
+    return where[strongest], cook[strongest], loo[strongest], b, se
+
+
 def strong_influence_each(samples, *, method: str = "ols") -> list:
     """:func:`strong_influence` of many samples of different sizes, in one array pass.
 
@@ -331,39 +391,48 @@ def _influence_run(pairs: list, method: str) -> list:
     Y = np.concatenate([Y for _, Y in pairs])
     n = sizes.astype(float)
 
-    each = np.repeat(np.arange(sizes.size), sizes)
+    def spread(v):   # each sample's value over its points (contiguous: no gather)
+        return np.repeat(v, sizes)
+
     # each segment led by a zero: reduceat then adds 0 + (the segment's pairwise sum),
-    # numpy.sum's order (without it, the first element is added last)
-    slots = np.arange(X.size) + each + 1
+    # numpy.sum's order (without it, the first element is added last); the values go
+    # to every slot but the heads, by a mask of bytes
     heads = starts + np.arange(sizes.size)
+    slots = np.ones(X.size + sizes.size, dtype=bool)
+    slots[heads] = False
 
     def total(v):
-        padded = np.zeros(v.size + sizes.size)
+        padded = np.zeros(slots.size)
         padded[slots] = v
         return np.add.reduceat(padded, heads)
 
     mx, my = total(X) / n, total(Y) / n
-    d, f = X - mx[each], Y - my[each]
-    sxx, syy, sxy = total(d * d), total(f * f), total(d * f)
+    mx_e, my_e = spread(mx), spread(my)
+    d, f = X - mx_e, Y - my_e
+    del X, Y
+    dd = d * d
+    sxx, syy, sxy = total(dd), total(f * f), total(d * f)
     b, se = _slopes_and_ses(Moments(n=n, mean_x=mx, mean_y=my, sxx=sxx, syy=syy, sxy=sxy),
                             method)
+    sxx_e = spread(sxx)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         # leave one out (the algebra of leave_one_out_slopes)
-        ne, k = n[each], (n / (n - 1))[each]
-        down = Moments(n=ne - 1.0, mean_x=mx[each] - d / (ne - 1), mean_y=my[each] - f / (ne - 1),
-                       sxx=sxx[each] - k * d * d, syy=syy[each] - k * f * f,
-                       sxy=sxy[each] - k * d * f)
+        ne, k = spread(n), spread(n / (n - 1))
+        down = Moments(n=ne - 1.0, mean_x=mx_e - d / (ne - 1), mean_y=my_e - f / (ne - 1),
+                       sxx=sxx_e - k * d * d, syy=spread(syy) - k * f * f,
+                       sxy=spread(sxy) - k * d * f)
+        del mx_e, my_e, k
         loo = _slopes(down, method)
+        del down
     with np.errstate(divide="ignore", invalid="ignore"):
         # Cook's distances (the algebra of cooks_distances)
-        slope = (sxy / sxx)[each]
-        e = f - slope * d
-        s2 = (total(e * e) / (n - 2))[each]
-        h = 1.0 / ne + d * d / sxx[each]
+        e = f - spread(sxy / sxx) * d
+        s2 = spread(total(e * e) / (n - 2))
+        h = 1.0 / ne + dd / sxx_e
         cook = e * e * h / (2 * s2 * (1 - h) ** 2)
-        moved = np.abs(loo - b[each]) > se[each]
-        flag = ((cook > COOK_STRONG) | moved) & (se[each] > 0)
+        moved = np.abs(loo - spread(b)) > spread(se)
+        flag = ((cook > COOK_STRONG) | moved) & spread(se > 0)
     return [{"flag": flag[a:a + m], "cook": cook[a:a + m], "slope_without": loo[a:a + m],
              "slope": np.asarray(b[i], float), "slope_se": np.asarray(se[i], float)}
             for i, (a, m) in enumerate(zip(starts.tolist(), sizes.tolist()))]
@@ -374,22 +443,35 @@ def _slopes_and_ses(m: Moments, method: str) -> tuple:
     one-dimensional moments, each equal to the float of sample i fitted alone.
 
     The slope, the exact-fit and note tests are elementwise arithmetic (the same
-    floats for an array as for one sample); the slope variance is taken one sample
-    at a time on scalars, as a lone fit has them: numpy squares a scalar with pow()
-    and an array by multiplying, which can differ in the last digit (SMA, MA).
+    floats for an array as for one sample).  So is the slope variance but for its
+    powers: numpy squares a lone sample's value with C ``pow()`` and an array's by
+    multiplying, which can differ in the last digit (SMA, MA); the variance is taken
+    on :class:`_LonePowers` arrays, whose ``**`` raises each value as a lone float.
     """
     spec = get_method(method)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         b = np.asarray(spec.slope(m), dtype=float)
         exact = exact_fit(m) & np.isfinite(b)
-        var = np.array([float(spec.slope_var(
-            Moments(n=np.full((), m.n[i]), mean_x=m.mean_x[i], mean_y=m.mean_y[i],
-                    sxx=m.sxx[i], syy=m.syy[i], sxy=m.sxy[i]), b[i]))
-            for i in range(b.size)], dtype=float)
+        lone = Moments(**{k: np.asarray(getattr(m, k), dtype=float).view(_LonePowers)
+                          for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
+        var = np.asarray(spec.slope_var(lone, b.view(_LonePowers)), dtype=float)
         se = np.sqrt(np.where(exact, 0.0, var))
     bad = _no_line(m, method).reshape(b.shape)
     return np.where(bad, np.nan, b), np.where(bad, np.nan, se)
+
+
+class _LonePowers(np.ndarray):
+    """A float array whose ``**`` gives, value by value, what numpy gives one sample's
+    float (a numpy scalar raised alone: C ``pow()``), not the array's square by
+    multiplication; every other operation is elementwise, the same for an array as
+    for one value, and keeps the type."""
+
+    def __pow__(self, other):
+        if np.ndim(other) != 0:   # the formulas raise to a number; anything else is new
+            raise TypeError("a power of one number per value is expected")
+        lone = [v ** other for v in np.asarray(self).ravel()]   # numpy scalars, one by one
+        return np.array(lone, dtype=float).reshape(self.shape).view(_LonePowers)
 
 
 def fit_checks(*, smearing_factor: float | None = None,
@@ -430,7 +512,7 @@ def fit_checks(*, smearing_factor: float | None = None,
 def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None,
                     groups=None, smearing_factor: float | None = None,
                     parametric_factor: float | None = None, estimates=None,
-                    alpha: float = 0.05, group_codes=None) -> tuple:
+                    alpha: float = 0.05, group_codes=None, sample_moments=None) -> tuple:
     """Graded warnings: influential points, odd correction factors, grouped residuals.
 
     Parameters
@@ -455,6 +537,10 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
         Back-transformed estimates and their intervals.
     alpha : float
         Level of the group-residual test.
+    sample_moments : Moments, optional
+        ``scaling.stats.moments.moments(log_x, log_y)`` when the caller has it (the
+        line whose residuals are compared between groups is fitted to it), so a
+        million points are not summed again.
 
     Returns
     -------
@@ -482,16 +568,13 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
     use = method if method in METHODS else "ols"
     out = []
     if np.ptp(X) > 0:
-        inf = strong_influence(X, Y, method=use)
-        cook, loo, flag = inf["cook"], inf["slope_without"], inf["flag"]
-        b, se = float(inf["slope"]), float(inf["slope_se"])
-        for i in np.flatnonzero(flag)[np.argsort(-cook[flag], kind="stable")]:
+        where, cook, loo, b, se = _strong_points(X, Y, use)
+        b, se = float(b), float(se)
+        for i, value, without in zip(where.tolist(), cook.tolist(), loo.tolist()):
             out.append(PointCheck(
                 severity="strong", kind="influence", row=int(rows[i]),
                 label="" if labels is None else str(labels[i]),
-                value=float(cook[i]), method=use, slope=b, slope_without=float(loo[i]),
-                slope_se=se))
-        del inf, cook, loo, flag
+                value=value, method=use, slope=b, slope_without=without, slope_se=se))
     out += fit_checks(smearing_factor=smearing_factor, parametric_factor=parametric_factor,
                       estimates=estimates)
     if groups is not None or group_codes is not None:
@@ -508,8 +591,13 @@ def points_to_check(log_x, log_y, *, method: str = "ols", rows=None, labels=None
             n_groups = len(uniq)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            b_line = fit_moments(_one(X, Y), use)
-        resid = Y - float(b_line["intercept"][0]) - float(b_line["slope"][0]) * X
+            b_line = fit_moments(_one(X, Y) if sample_moments is None
+                                 else _as_one(sample_moments), use)
+        # Y - a - b X, with one temporary array at a time (the same floats)
+        resid = np.subtract(Y, float(b_line["intercept"][0]))
+        line = np.multiply(float(b_line["slope"][0]), X)
+        np.subtract(resid, line, out=resid)
+        del line
         # one stable sort splits the residuals by group, in row order within each
         order = group_order(codes, n_groups)
         counts = np.bincount(codes, minlength=n_groups)
@@ -571,9 +659,15 @@ def one_way_f(values, sizes) -> tuple:
     shifted = values - offset
     normalized_ss = np.sum(shifted, axis=-1) ** 2. / bign
     sstot = np.vecdot(shifted, shifted, axis=-1) - normalized_ss
-    padded = np.zeros(bign + k)   # each sample's sum led by a zero: numpy.sum's order
-    padded[np.arange(bign) + np.repeat(np.arange(1, k + 1), sizes)] = shifted
-    sums = np.add.reduceat(padded, starts + np.arange(k))
+    # each sample's sum led by a zero: numpy.sum's order (the values go to every slot
+    # but the heads, by a mask of bytes rather than an index of eight-byte positions)
+    heads = starts + np.arange(k)
+    padded = np.zeros(bign + k)
+    slots = np.ones(bign + k, dtype=bool)
+    slots[heads] = False
+    padded[slots] = shifted
+    del slots
+    sums = np.add.reduceat(padded, heads)
     ssbn = 0
     for total, size in zip(sums, sizes.tolist()):   # added in turn, as scipy adds them
         ssbn = ssbn + total ** 2. / size
@@ -586,7 +680,11 @@ def one_way_f(values, sizes) -> tuple:
 
 
 def _one(X: np.ndarray, Y: np.ndarray) -> Moments:
-    m = moments(X, Y)
+    return _as_one(moments(X, Y))
+
+
+def _as_one(m: Moments) -> Moments:
+    """The moments of one sample as arrays of one value (what the fit takes)."""
     return Moments(**{k: np.atleast_1d(getattr(m, k)) for k in
                       ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")})
 
