@@ -541,9 +541,10 @@ def _serve(conn, parent_end, job_read: int, job_write: int, pdf: bool = True) ->
             if _pipe_size(job_read) < ROOMY_PIPE:
                 # the parent may be waiting to write them: read once the other process
                 # draws, before this one does
-                def ready(res):
+                def ranks_read(res):
                     follow.ranks()
                     return res
+                ready = ranks_read
         try:
             answer = draw_figures(result, folder, ranked_here=follow is not None,
                                   ready=ready)
