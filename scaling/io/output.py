@@ -671,6 +671,7 @@ def _write_all(result, folder: Path, draw_figures, write_report, caution,
         if isinstance(doc.get("saved_fits"), _Plain):   # their numbers recur in fits.csv
             texts[id(doc["saved_fits"])] = texts.get(id(result.fits))
         parts = _json_parts(doc, texts)   # all but the figure notes and the file list, now
+        del texts, doc   # the cells' text (a hundred thousand rows' worth): not held past here
         if prepare_report is not None:
             write_report = prepare_report(result)
         paths, skipped = drawing.wait() if hasattr(drawing, "wait") else drawing
