@@ -200,6 +200,29 @@ class TestSameFigures:
                 _pixels((tmp_path / "worker" / "figures" / name).read_bytes()),
                 _pixels((tmp_path / "here" / "figures" / name).read_bytes()), err_msg=name)
 
+    def test_a_run_analysed_then_written_hands_its_figures_the_points_drawn(
+            self, tmp_path, monkeypatch):
+        # analyse, then write_outputs (the Python road in two steps): the figures get the
+        # view too (not every point), and the files are those drawn from every point
+        from scaling.run import pipeline
+        handed = []
+        plain = pipeline.start_figures
+        monkeypatch.setattr(pipeline, "start_figures",
+                            lambda res, *a, **k: handed.append(res) or plain(res, *a, **k))
+        path = _table(tmp_path / "two.csv", 6_200, 6, seed=12)
+        cfg = _config(path, kinds=["residuals"])
+        result = _analysed(cfg)
+        pipeline.write_outputs(result, tmp_path / "out")
+        assert len(handed) == 1 and not len(handed[0].data.points)
+        assert FIGURE_DIGEST in handed[0].tables
+        reference = tmp_path / "reference"
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            write_figures(result, reference)
+        np.testing.assert_array_equal(
+            _pixels((tmp_path / "out" / "figures" / "residuals.png").read_bytes()),
+            _pixels((reference / "figures" / "residuals.png").read_bytes()))
+
     def test_a_written_run_has_the_files_drawn_from_every_point(self, tmp_path, monkeypatch):
         # the whole road: run_config hands the figure processes the view (the worker,
         # where it can fork); the reference is write_figures on the run's whole result

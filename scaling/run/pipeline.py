@@ -312,7 +312,8 @@ def write_outputs(result: RunResult, out_dir, *, force: bool = False, worker=Non
     :class:`~scaling.render.figure_worker.FigureWorker` started with the run draws the
     figures; without one (or when it cannot) they are drawn here."""
     def figures(res, folder):
-        return start_figures(res, folder, worker)   # drawn while the tables are written
+        # drawn while the tables are written; above 5 000 points from the points drawn
+        return start_figures(figure_result(res), folder, worker)
     return _write(result, out_dir, force, figures)
 
 
