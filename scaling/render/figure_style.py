@@ -226,7 +226,10 @@ def arith_formatter(value, _pos=None) -> str:
 
 
 def group_style(i: int) -> tuple:
-    return PALETTE[i % len(PALETTE)], MARKERS[i % len(MARKERS)]
+    """(colour, marker) of the ``i``-th group: the first eight pair colour and marker
+    alike; from the ninth on, the marker moves one place further each round of colours,
+    so no two of up to 64 groups look the same."""
+    return PALETTE[i % len(PALETTE)], MARKERS[(i + i // len(PALETTE)) % len(MARKERS)]
 
 
 def thinned_index(n: int):
@@ -263,12 +266,28 @@ def scatter_coded(ax, x, y, codes, n_groups: int, *, total: int | None = None,
                                  edgecolor="none"))
         note.set_in_layout(False)   # a note inside the axes must not squeeze the layout
     if n_groups <= LEGEND_MAX_GROUPS:
-        for c in np.unique(codes):
-            colour, marker = group_style(int(c))
-            sel = codes == c
-            ax.scatter(x[sel], y[sel], marker=marker, facecolor=colour, **kwargs)
+        present = np.unique(codes)
+        if len(x) < INTERLEAVE_FROM_POINTS or len(present) < 2:
+            rounds = [(np.arange(len(x)), present)]
+        else:   # dealt into rounds, the groups in a new order each round
+            rng = np.random.default_rng(1)
+            rounds = [(np.sort(part), rng.permutation(present)) for part in
+                      np.array_split(rng.permutation(len(x)), INTERLEAVE_ROUNDS)]
+        for part, order in rounds:
+            for c in order:
+                colour, marker = group_style(int(c))
+                sel = part[codes[part] == c]
+                ax.scatter(x[sel], y[sel], marker=marker, facecolor=colour, **kwargs)
         return
     scatter_by_colour(ax, x, y, codes % len(PALETTE), seed=1, **kwargs)
+
+
+#: From this many points drawn, a scatter of a few groups deals its points into
+#: :data:`INTERLEAVE_ROUNDS` rounds, one artist per group in each, the groups in a seeded
+#: random order each round: where points pile up no group lies always on top (drawn
+#: one group after the other, the last group drawn hid the others).
+INTERLEAVE_FROM_POINTS = 1_000
+INTERLEAVE_ROUNDS = 4
 
 
 #: A scatter of many colours draws this share of its points (the last in its random order)
@@ -367,17 +386,23 @@ def figure_legend(fig: Figure, handles: list, ncol: int, **kwargs):
     elif not handles:
         return None
     ncol = max(1, min(ncol, len(handles)))
-    while True:
-        legend = fig.legend(handles=handles, loc="outside lower center", ncol=ncol, **kwargs)
-        if ncol == 1:
-            return legend
+    # The columns are chosen by the entries alone: a title (the subset note) as wide as
+    # the figure would otherwise put every entry in one column and squeeze the panels.
+    entries = {k: v for k, v in kwargs.items() if k not in ("title", "title_fontsize")}
+    while ncol > 1:
+        legend = fig.legend(handles=handles, loc="outside lower center", ncol=ncol,
+                            **entries)
         # The legend's width depends only on its entries and fonts, not on where the
         # layout puts it: measured with the figure's renderer, no draw of the figure
         # (a draw_without_rendering here ran constrained layout once per try).
-        if legend.get_window_extent().width <= fig.bbox.width * 0.98:
+        fits = legend.get_window_extent().width <= fig.bbox.width * 0.98
+        if fits and entries == kwargs:
             return legend
         legend.remove()
+        if fits:
+            break
         ncol -= 1
+    return fig.legend(handles=handles, loc="outside lower center", ncol=ncol, **kwargs)
 
 def agg_figure(**kwargs) -> Figure:
     """A Figure with an Agg canvas attached (no pyplot): layout and text sizes are then
