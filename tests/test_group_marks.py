@@ -65,3 +65,34 @@ def test_legend_columns_follow_the_entries_not_a_wide_title():
     assert plain == 3   # short names: three columns fit a 4-inch figure
     wide = "a note as wide as the figure, " * 4
     assert columns(title=wide) == plain
+
+
+def test_many_marked_predictions_draw_the_bars_and_caps_errorbar_draws():
+    from scaling.render import figure_natural as fn
+    rng = np.random.default_rng(2)
+    n = fn.MARKED_ONE_BY_ONE + 10   # above it: one artist per colour
+    x = rng.uniform(1, 100, n)
+    y = rng.uniform(10, 50, n)
+    low, high = y - rng.uniform(0, 5, n), y + rng.uniform(0, 5, n)
+    colours = np.array(["#000000"] * n, dtype=object)
+    for across in (False, True):
+        fig = fs.agg_figure()
+        ax = fig.add_subplot()
+        mid = x if across else y
+        lo, hi = (x - 3, x + 4) if across else (low, high)
+        fn._mark_rows(ax, x, y, mid, lo, hi, colours, across=across, marker="D", mfc=None,
+                      ls="-", ms=4, small=False, gid="prediction")
+        ref = fs.agg_figure().add_subplot()
+        err = np.vstack([mid - lo, hi - mid])
+        cont = ref.errorbar(x, y, **({"xerr": err} if across else {"yerr": err}), fmt="none",
+                            capsize=2.5, capthick=0.8)
+        # internal consistency: errorbar's own bar segments and caps, the same numbers
+        segments = cont.lines[2][0].get_segments()
+        bars = ax.lines[0].get_xydata().reshape(-1, 3, 2)[:, :2]
+        np.testing.assert_allclose(bars, np.asarray(segments), rtol=1e-15)
+        caps = np.concatenate([c.get_xydata() for c in cont.lines[1]])
+        got = ax.lines[1].get_xydata()
+        np.testing.assert_allclose(np.sort(got, axis=0), np.sort(caps, axis=0), rtol=1e-15)
+        assert ax.lines[1].get_marker() == cont.lines[1][0].get_marker()
+        assert ax.lines[1].get_markersize() == cont.lines[1][0].get_markersize()
+        assert not ax.collections   # no collection of a path per bar

@@ -85,7 +85,10 @@ def _mark_rows(ax, x, y, mid, low, high, colours, *, across: bool, marker: str, 
         batches = [(np.flatnonzero(colours == c), c) for c in dict.fromkeys(colours)]
     for rows, c in batches:
         bars = [i for i in rows if finite[i]]
-        if len(rows) == 1 or bars:
+        if len(rows) > 1 and bars:   # many rows of one colour: their bars as one line
+            _bars_as_one_line(ax, x[bars], y[bars], mid[bars], low[bars], high[bars], c,
+                              across=across, ls=ls, **bar_kw)
+        elif len(rows) == 1 or bars:
             err = (np.vstack([np.maximum(mid[bars] - low[bars], 0.0),
                               np.maximum(high[bars] - mid[bars], 0.0)]) if bars else None)
             at = rows if len(rows) == 1 else bars
@@ -97,6 +100,23 @@ def _mark_rows(ax, x, y, mid, low, high, colours, *, across: bool, marker: str, 
         ax.plot(x[rows], y[rows], ls="none", marker=marker, markersize=ms,
                 markerfacecolor=mfc or c, markeredgecolor=c, markeredgewidth=0.8, zorder=7,
                 gid=gid)
+
+
+def _bars_as_one_line(ax, x, y, mid, low, high, colour, *, across: bool, ls, elinewidth,
+                      capsize, capthick, zorder, fmt=None) -> None:
+    """The bars and caps ``ax.errorbar`` draws for these rows, as one line broken between
+    the bars and one line of caps: the same marks, without a path object per bar (twenty
+    thousand predictions of ten thousand groups took errorbar seconds)."""
+    centre = x if across else y
+    ends = np.column_stack([centre - np.maximum(mid - low, 0.0),
+                            centre + np.maximum(high - mid, 0.0)])
+    at = np.column_stack([y if across else x] * 2)
+    gap = np.full((len(centre), 1), np.nan)
+    bar_x, bar_y = (ends, at) if across else (at, ends)
+    ax.plot(np.hstack([bar_x, gap]).ravel(), np.hstack([bar_y, gap]).ravel(), color=colour,
+            lw=elinewidth, ls=ls, zorder=zorder, solid_capstyle="butt")
+    ax.plot(bar_x.ravel(), bar_y.ravel(), ls="none", marker="|" if across else "_",
+            markersize=2 * capsize, markeredgewidth=capthick, color=colour, zorder=zorder)
 
 
 def _inverse_markers(ax, result, preds, handles, xs_all, ys_all, *, small: bool,
