@@ -162,6 +162,27 @@ def test_warming_up_without_pdfs_leaves_the_pdf_writer_unimported(pdf):
     assert out.stdout.strip().splitlines()[-1] == str(pdf)
 
 
+def test_a_process_drawing_a_share_itself_leaves_the_extra_figures_to_its_fork(
+        tmp_path, monkeypatch, demo_result):
+    # the drawing process also loads the run and reads what follows it: the figures
+    # beyond the kinds go to the process it forks; both forked: the first share has them
+    made = []
+
+    class Recorded:
+        def __init__(self, result, folder, kinds, extras):
+            made.append((list(kinds), extras))
+
+        def stop(self):
+            pass
+
+    monkeypatch.setattr(fw, "_Share", Recorded)
+    drawing = fw._start_here(demo_result, tmp_path, draw_here=True)
+    assert [extras for _, extras in made] == [True] and drawing._here[1] is False
+    made.clear()
+    fw._start_here(demo_result, tmp_path, draw_here=False)
+    assert [extras for _, extras in made] == [False, True]
+
+
 def test_split_balances_the_drawing_cost():
     # exact law: greedy largest-first split of the registry's costs 4, 3, 2, 1 gives 5 and 5
     from scaling.render.figure_kinds import FIGURES, KINDS

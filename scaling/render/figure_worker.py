@@ -437,8 +437,11 @@ def _start_here(result, folder: Path, *, draw_here: bool, ranked_here: bool = Fa
     mine, second = _split(kinds)
     if ranked_here and RANKED_KINDS & set(second):
         mine, second = second, mine
+    # Drawing here too, this process loads the run and reads what follows it: the figures
+    # beyond the kinds (the summary of many groups) go to the process forked here.
+    extras_there = draw_here
     try:
-        shares = [_Share(result, folder, second, extras=False)]
+        shares = [_Share(result, folder, second, extras=extras_there)]
     except OSError:   # no process to be had: everything is drawn here
         return Drawing(result, folder, here=(None, True), ready=ready)
     if not draw_here:
@@ -446,8 +449,8 @@ def _start_here(result, folder: Path, *, draw_here: bool, ranked_here: bool = Fa
             shares.insert(0, _Share(result, folder, mine, extras=True))
         except OSError:
             draw_here = True
-    return Drawing(result, folder, shares=shares, here=(mine, True) if draw_here else None,
-                   ready=ready)
+    return Drawing(result, folder, shares=shares,
+                   here=(mine, not extras_there) if draw_here else None, ready=ready)
 
 
 def draw_figures(result, folder: Path, *, ranked_here: bool = False,
