@@ -573,6 +573,32 @@ class TestManyGroupsFigures:
 
 
 class TestGroupCurveValues:
+    @pytest.mark.parametrize("correction", ["smearing", "parametric", "none"])
+    def test_many_groups_curves_equal_each_groups_own(self, tmp_path, correction,
+                                                       monkeypatch):
+        # internal consistency: the curves made for all groups in one array pass are the
+        # numbers _curve_y makes for each group alone, to the last bit; a group whose
+        # factor is unusable goes through predict (which refuses it, as for one group)
+        from scaling.render import figure_natural as fn
+        res = simulated(tmp_path, groups=[f"g{i:02d}" for i in range(15)], n=30, seed=4)
+        groups = sorted({str(g) for g in res.fits.loc[res.fits["scope"] == "group", "group"]})
+        got = fn._group_curve_points(res, "sma", groups, correction, "prediction")
+        assert [g for g, *_ in got] == groups
+        for g, xs, y, _ in got:
+            fit = res.line_fits[("group", g, "sma")]
+            lo, hi = fn.fit_xrange(fit, res)
+            ref_x = np.linspace(lo, hi, 240)
+            ref_x[0], ref_x[-1] = lo, hi
+            factor = fn._group_factor(res, g, "sma", correction)
+            assert np.array_equal(xs, ref_x)
+            assert np.array_equal(y, fn._curve_y(fit, ref_x, correction, "prediction", factor))
+        if correction == "smearing":
+            plain = fn._group_factor
+            monkeypatch.setattr(fn, "_group_factor", lambda r, g, m, c: (
+                float("nan") if g == "g03" else plain(r, g, m, c)))
+            with pytest.raises(ConfigError):
+                fn._group_curve_points(res, "sma", groups, correction, "prediction")
+
     @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
     def test_curve_is_predicts_corrected_mean(self, method):
         # internal consistency: the natural figure's group curves are predict(...).y,

@@ -184,19 +184,27 @@ def _curve_y(fit, xs: np.ndarray, correction: str, interval: str, factor) -> np.
     (the same arithmetic: factor * base ** (a + b log_base x)); anything unusual (no log
     base, no usable factor) goes through :func:`predict`, which says why."""
     base = fit.log_base
-    cf = None
+    cf = _plain_factor(fit, correction, factor)
+    if cf is None:
+        return np.asarray(predict(fit, xs, correction=correction, interval=interval,
+                                  factor=factor).y, float)
+    fitted = fit.intercept + fit.slope * to_log(xs, base)
+    with np.errstate(over="ignore"):
+        return cf * np.power(base, fitted)
+
+
+def _plain_factor(fit, correction: str, factor) -> float | None:
+    """The factor of :func:`_curve_y`'s plain arithmetic, or None where it goes through
+    :func:`predict` (no log base, no usable factor)."""
     if correction == "none":
         cf = 1.0 if factor is None else None
     elif factor is None:
         cf = getattr(fit, f"{correction}_factor", None)
     else:
         cf = factor
-    if base is None or cf is None or not (np.isfinite(cf) and cf > 0):
-        return np.asarray(predict(fit, xs, correction=correction, interval=interval,
-                                  factor=factor).y, float)
-    fitted = fit.intercept + fit.slope * to_log(xs, base)
-    with np.errstate(over="ignore"):
-        return float(cf) * np.power(base, fitted)
+    if fit.log_base is None or cf is None or not (np.isfinite(cf) and cf > 0):
+        return None
+    return float(cf)
 
 
 def _group_curves(ax, result, method, groups, correction, interval, *, small: bool,
@@ -234,18 +242,45 @@ def _group_curves(ax, result, method, groups, correction, interval, *, small: bo
 def _group_curve_points(result, method, groups, correction, interval) -> list:
     """``(group, x, corrected y, colour)`` of each group's own curve (see
     :func:`_group_curves`; the zoomed panel and the full range draw the same curves)."""
-    out = []
+    drawn = []   # (position, group, fit, x range, factor) of each estimable line
     for i, g in enumerate(groups):
         fit = result.line_fits.get(("group", g, method))
         if fit is None or not getattr(fit, "estimable", True):
             continue
-        lo, hi = fit_xrange(fit, result)
-        xs = np.linspace(lo, hi, 240)
-        xs[0], xs[-1] = lo, hi
-        y = _curve_y(fit, xs, correction, interval,
-                     _group_factor(result, g, method, correction))
-        out.append((g, xs, y, group_style(i)[0]))
+        drawn.append((i, g, fit, fit_xrange(fit, result),
+                      _group_factor(result, g, method, correction)))
+    # the curves of plain arithmetic, many groups in one array pass per log base: each
+    # row the numbers _curve_y makes for its group alone (elementwise, the same steps)
+    plain: dict = {}
+    for k, (_, _, fit, _, factor) in enumerate(drawn):
+        cf = _plain_factor(fit, correction, factor)
+        if cf is not None:
+            plain.setdefault(fit.log_base, []).append((k, cf))
+    curves: dict = {}
+    for base, rows in plain.items():
+        at = [k for k, _ in rows]
+        lo = np.array([drawn[k][3][0] for k in at], dtype=float)
+        hi = np.array([drawn[k][3][1] for k in at], dtype=float)
+        xs = np.linspace(lo, hi, _CURVE_POINTS, axis=1)
+        xs[:, 0], xs[:, -1] = lo, hi
+        a = np.array([float(drawn[k][2].intercept) for k in at])
+        b = np.array([float(drawn[k][2].slope) for k in at])
+        cf = np.array([c for _, c in rows])
+        with np.errstate(over="ignore"):
+            y = cf[:, None] * np.power(base, a[:, None] + b[:, None] * to_log(xs, base))
+        curves.update({k: (xs[j], y[j]) for j, k in enumerate(at)})
+    out = []
+    for k, (i, g, fit, (lo, hi), factor) in enumerate(drawn):
+        if k not in curves:   # unusual: through predict, which says why
+            xs = np.linspace(lo, hi, _CURVE_POINTS)
+            xs[0], xs[-1] = lo, hi
+            curves[k] = (xs, _curve_y(fit, xs, correction, interval, factor))
+        out.append((g, *curves[k], group_style(i)[0]))
     return out
+
+
+#: Points along each group's curve.
+_CURVE_POINTS = 240
 
 
 def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
