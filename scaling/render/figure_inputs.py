@@ -13,17 +13,19 @@ from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
+from matplotlib.lines import Line2D
 
 from ..stats.lines import parse_log_base
 from ..stats.line_results import ConfidenceInterval
-from .figure_style import scatter_coded, thinned_index
+from .figure_style import group_digits, scatter_coded, thinned_index
 from .thinning import DRAWN_TABLE, FIGURE_DIGEST, FigureDigest
 from .headline import primary_method
 from .wording import unit_text
 
 __all__ = ["reuse_inputs", "reused", "run_base", "axis_label", "points_held", "points_drawn",
            "figure_digest", "residual_ranks", "drawn_points", "run_groups", "group_sizes",
-           "fitted_n", "group_codes", "scatter_groups",
+           "fitted_n", "group_codes", "scatter_groups", "GROUP_LINES_MAX", "shown_groups",
+           "scatter_shown_groups", "shown_groups_handle",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
 
@@ -224,6 +226,83 @@ def scatter_groups(ax, pts, groups: list, **kwargs) -> None:
     """Points in their group's colour and marker (see :func:`scatter_coded`)."""
     scatter_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(), group_codes(pts, groups),
                    len(groups), **kwargs)
+
+
+#: Above this many groups the scaling and natural figures draw the own lines, means,
+#: curves and predictions of this many of them (see :func:`shown_groups`): ten thousand
+#: lines hide the points and one another, and cost seconds to draw.
+GROUP_LINES_MAX = 50
+#: Points of the groups whose lines are not drawn.
+OTHER_GROUPS_COLOUR = "#b8b8b8"
+
+
+def shown_groups(result, groups: list | None = None) -> list:
+    """The groups whose own lines, means, curves and predictions the scaling and natural
+    figures draw, sorted as ``groups`` (default: :func:`run_groups`).
+
+    All of them up to :data:`GROUP_LINES_MAX`.  Above, :data:`GROUP_LINES_MAX` groups at
+    evenly spaced ranks of their own exponent (the primary method's; ties by name), the
+    lowest and the highest among them, so the lines drawn span the spread of the
+    exponents; groups without an estimable line have none to draw.  Without any group
+    line (a run without per-group fits) the groups are spaced evenly by name.  Every
+    figure of a run draws the same groups, in the same colours.
+    """
+    groups = run_groups(result) if groups is None else list(groups)
+    if len(groups) <= GROUP_LINES_MAX:
+        return groups
+    return list(reused(("shown groups", id(result), tuple(groups)), (result,),
+                       lambda: _shown_groups(result, groups)))
+
+
+def _shown_groups(result, groups: list) -> list:
+    methods = list(result.config.model.methods)
+    method = drawn_primary(methods, result) if methods else None
+    slopes, names = [], []
+    for g in groups:
+        fit = result.line_fits.get(("group", g, method))
+        if fit is None or not getattr(fit, "estimable", True):
+            continue
+        slope = float(fit.slope)
+        if np.isfinite(slope):
+            slopes.append(slope)
+            names.append(g)
+    if not names:   # no group lines: spaced evenly by name
+        slopes, names = [0.0] * len(groups), groups
+    if len(names) <= GROUP_LINES_MAX:
+        return names   # in the order of groups already
+    order = np.lexsort((np.arange(len(names)), np.asarray(slopes)))   # ties: by name
+    picks = order[np.round(np.linspace(0, len(names) - 1, GROUP_LINES_MAX)).astype(int)]
+    return [names[i] for i in np.sort(picks)]
+
+
+def scatter_shown_groups(ax, pts, groups: list, shown: list, **kwargs) -> None:
+    """Points of the ``shown`` groups in their colour and marker (indices into ``shown``,
+    as their lines), the other groups' points beneath in grey; all of them when every
+    group is shown (:func:`scatter_groups`).  ``kwargs`` as for :func:`scatter_coded`."""
+    if len(shown) == len(groups):
+        scatter_groups(ax, pts, groups, **kwargs)
+        return
+    codes = group_codes(pts, shown)
+    x, y = pts["x"].to_numpy(), pts["y"].to_numpy()
+    other = codes < 0
+    size = float(kwargs.get("s", 12.0)) ** 0.5   # scatter sizes are areas, markers diameters
+    ax.plot(x[other], y[other], ls="none", marker="o", markersize=size,
+            color=OTHER_GROUPS_COLOUR, markeredgecolor="white",
+            markeredgewidth=kwargs.get("linewidth", 0.3), alpha=0.6,
+            zorder=kwargs.get("zorder", 2) - 0.1, gid="points-other-groups")
+    total = kwargs.pop("total", None)
+    if total is None:
+        total = len(pts)
+    # the note that a subset is drawn speaks of all the points
+    scatter_coded(ax, x[~other], y[~other], codes[~other], len(shown), total=total,
+                  **kwargs)
+
+
+def shown_groups_handle(n_groups: int, n_shown: int, plural: str):
+    """The legend entry for groups drawn :func:`shown_groups`-thinned."""
+    return Line2D([], [], ls="none", marker="o", color=OTHER_GROUPS_COLOUR, markersize=4,
+                  label=f"{n_shown} of {group_digits(str(n_groups))} {plural} in colour\n"
+                        "(lowest to highest exponent)")
 
 
 def run_methods(result, methods) -> list:

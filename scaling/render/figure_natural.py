@@ -15,10 +15,11 @@ from ..stats.logscale import to_log
 from ..stats.predictions import predict, saved_factor
 from ..stats.schema import method_label
 from .figure_inputs import (axis_label, drawn_points, fit_xrange, reused, run_groups,
-                            run_methods, scatter_groups)
+                            run_methods, scatter_shown_groups, shown_groups,
+                            shown_groups_handle)
 from .headline import answer_line
 from .prediction_words import answer_primary, inverse_run, predicting_method
-from .wording import possessive
+from .wording import plural as plural_of, possessive
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE, STYLE,
                            arith_formatter, figure_legend, group_style, many_groups_handle,
                            new_figure, scatter_coded, styled)
@@ -295,10 +296,14 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
     size = 5 if small else 10
     handles = []
     xs_all, ys_all = [pts["x"].to_numpy(float)], [pts["y"].to_numpy(float)]
+    shown = shown_groups(result, groups)   # all, or GROUP_LINES_MAX spread over the slopes
     if groups:
-        scatter_groups(ax, pts, groups, total=total, s=size, edgecolor="white",
-                       linewidth=0.3, alpha=0.75, zorder=2)
-        if len(groups) <= LEGEND_MAX_GROUPS:
+        scatter_shown_groups(ax, pts, groups, shown, total=total, s=size, edgecolor="white",
+                             linewidth=0.3, alpha=0.75, zorder=2)
+        if len(shown) < len(groups):
+            handles.append(shown_groups_handle(len(groups), len(shown), plural_of(
+                str(result.config.data.group or "group"))))
+        elif len(groups) <= LEGEND_MAX_GROUPS:
             for i, g in enumerate(groups):
                 colour, marker = group_style(i)
                 handles.append(Line2D([], [], ls="none", marker=marker, color=colour,
@@ -313,7 +318,7 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
                               markersize=4, label="data"))
     n_curves = 0
     if own_lines:
-        handles += _group_curves(ax, result, methods[0], groups, correction, interval,
+        handles += _group_curves(ax, result, methods[0], shown, correction, interval,
                                  small=small, xs_all=xs_all, ys_all=ys_all)
     for method in ([] if own_lines else methods):
         fit = result.line_fits.get(("pooled", "", method))
@@ -337,11 +342,16 @@ def _natural_layers(ax, result, methods, groups, correction, interval, preds, *,
         handles.append(matplotlib.patches.Patch(
             color="#4d4d4d", alpha=0.2, lw=0,
             label=f"{100 * result.config.model.confidence:g}% {interval} band"))
+    if preds is not None and len(shown) < len(groups) and "group" in preds:
+        # the predictions of the groups drawn (all of them are in predictions.csv)
+        preds = preds[~(preds["scope"] == "group").to_numpy()
+                      | preds["group"].astype(str).isin(shown).to_numpy()]
+        preds = preds if len(preds) else None
     if preds is not None and "x_low" in preds:   # inverse predictions: x from given y
         _inverse_markers(ax, result, preds, handles, xs_all, ys_all, small=small,
-                         groups=groups)
+                         groups=shown)
     elif preds is not None:
-        colours = np.array(_row_colours(preds, groups), dtype=object)
+        colours = np.array(_row_colours(preds, shown), dtype=object)
         x = preds["x"].to_numpy(float)
         y = preds["y"].to_numpy(float)
         low = preds["y_low"].to_numpy(float)

@@ -23,7 +23,8 @@ from ..stats.schema import method_label
 from .figure_inputs import (axis_label, common_slope_fit, drawn_primary, factor_of, fit_xrange,
                             drawn_points, fitted_n, group_means_table, group_sizes, points_drawn,
                             run_base,
-                            run_groups, run_methods, scatter_groups, slopes_agree)
+                            run_groups, run_methods, scatter_shown_groups, shown_groups,
+                            shown_groups_handle, slopes_agree)
 from .figure_style import (LEGEND_MAX_GROUPS, METHOD_DASHES, METHOD_SHADES, PALETTE,
                            PHYLO_COLOUR, STYLE, THIN, figure_legend, group_style, log_margins,
                            many_groups_handle, natural_log_axis, new_figure, plain_number,
@@ -167,12 +168,15 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                           + ("" if groups else f" (n = {fitted_n(result)})"))
 
     # data
+    shown = shown_groups(result, groups)   # all, or GROUP_LINES_MAX spread over the slopes
     if groups:
         gm = group_means_table(result)
         if held:
-            scatter_groups(ax, pts, groups, total=total, s=12, edgecolor="white",
-                           linewidth=0.3, alpha=0.75, zorder=2)
-        if len(groups) <= LEGEND_MAX_GROUPS:
+            scatter_shown_groups(ax, pts, groups, shown, total=total, s=12,
+                                 edgecolor="white", linewidth=0.3, alpha=0.75, zorder=2)
+        if len(shown) < len(groups):
+            handles.append(shown_groups_handle(len(groups), len(shown), plural))
+        elif len(groups) <= LEGEND_MAX_GROUPS:
             sizes = group_sizes(result, groups)
             for i, g in enumerate(groups):
                 colour, marker = group_style(i)
@@ -183,7 +187,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
             handles.append(many_groups_handle(len(groups)))
         if means and gm is not None:
             # all means at once: index of each table row among the drawn groups
-            where = {g: i for i, g in enumerate(groups)}
+            where = {g: i for i, g in enumerate(shown)}
             idx = np.array([where.get(str(g), -1) for g in gm["group"]], dtype=int)
             keep = idx >= 0
             lx = gm["mean_log_x"].to_numpy(float)[keep]
@@ -197,7 +201,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                 ys_all.append(my)
             xerr = np.vstack([mx - unlog(lx - sx, base), unlog(lx + sx, base) - mx])
             yerr = np.vstack([my - unlog(ly - sy, base), unlog(ly + sy, base) - my])
-            if len(groups) <= LEGEND_MAX_GROUPS:
+            if len(shown) <= LEGEND_MAX_GROUPS:
                 for j, i in enumerate(idx):
                     colour, marker = group_style(int(i))
                     ax.errorbar(mx[j:j + 1], my[j:j + 1], xerr=xerr[:, j:j + 1],
@@ -238,12 +242,12 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                   else None)
         means_of = {} if common is None or gm is None else {
             str(r.group): (r.mean_log_x, r.mean_log_y) for r in gm.itertuples(index=False)}
-        for i, g in enumerate(groups):
+        for i, g in enumerate(shown):
             fit = result.line_fits.get(("group", g, gmethod))
             if fit is None:
                 continue
             lo, hi = fit_xrange(fit, result)
-            if len(groups) > LEGEND_MAX_GROUPS:
+            if len(shown) > LEGEND_MAX_GROUPS:
                 # a straight line on log-log axes: its two ends suffice
                 xs = np.array([lo, hi])
                 fitted = _group_line(fit, xs, common, means_of.get(g))
@@ -259,7 +263,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
         if segments:
             lines = ax.add_collection(LineCollection(
                 segments, colors=seg_colours, linewidths=0.9,
-                linestyles=METHOD_DASHES.get(gmethod, "-"), zorder=3))
+                linestyles=METHOD_DASHES.get(gmethod, "-"), zorder=3, gid="group-lines"))
             # clipped to the axes, so they cannot move the layout, which otherwise
             # measures each of a thousand paths once more through the log transform
             lines.set_in_layout(False)
