@@ -435,3 +435,101 @@ class TestToNumbers:
         monkeypatch.setattr(tables, "_points", building)
         data = load_data(cfg)
         assert alive == [False] and len(data.points) == 2 and data.dropped["row"].tolist() == [2]
+
+
+class TestReadAhead:
+    """A read started ahead (``scaling run`` starts one while it imports the modules the
+    run needs) stands for the next read of the same unchanged file with the same
+    arguments, and for nothing else (internal consistency: the answer is the plain
+    read's own)."""
+
+    def _table(self, tmp_path, rows=500):
+        rng = np.random.default_rng(3)
+        frame = pd.DataFrame({"mass": 10 ** rng.uniform(0, 3, rows),
+                              "rate": 10 ** rng.uniform(0, 2, rows),
+                              "grp": rng.choice(["a", "b", "c"], rows)})
+        path = tmp_path / "t.csv"
+        frame.to_csv(path, index=False)
+        return path
+
+    @pytest.fixture
+    def reads(self, monkeypatch):
+        from scaling.io import fast_csv
+        calls = []
+        plain = fast_csv._read_plain_columns
+
+        def counted(*args, **kwargs):
+            calls.append(1)
+            return plain(*args, **kwargs)
+        monkeypatch.setattr(fast_csv, "_read_plain_columns", counted)
+        monkeypatch.setattr(fast_csv, "_AHEAD", {})
+        return calls
+
+    ARGS = dict(sep=",", skip_rows=0, numbers=("mass", "rate"), labels=("grp",))
+
+    def test_the_read_ahead_is_the_read(self, tmp_path, reads):
+        from scaling.io import fast_csv
+        path = self._table(tmp_path)
+        want = fast_csv._read_plain_columns(path, **self.ARGS)
+        reads.clear()
+        fast_csv.read_ahead(path, **self.ARGS)
+        fast_csv.settle_reads()
+        got = read_plain_columns(path, **self.ARGS)
+        assert len(reads) == 1 and fast_csv._AHEAD == {}   # read once, taken once
+        for name in ("mass", "rate"):
+            assert np.array_equal(got[name], want[name])
+        assert got["grp"].equals(want["grp"])
+        read_plain_columns(path, **self.ARGS)   # the next read reads again
+        assert len(reads) == 2
+
+    def test_a_file_changed_since_is_read_again(self, tmp_path, reads):
+        from scaling.io import fast_csv
+        path = self._table(tmp_path)
+        fast_csv.read_ahead(path, **self.ARGS)
+        fast_csv.settle_reads()
+        path.write_text("mass,rate,grp\n1,2,a\n3,4,b\n5,6,a\n")
+        got = read_plain_columns(path, **self.ARGS)
+        assert got["mass"].tolist() == [1.0, 3.0, 5.0]
+        assert len(reads) == 2
+
+    def test_other_arguments_read_again(self, tmp_path, reads):
+        from scaling.io import fast_csv
+        path = self._table(tmp_path)
+        fast_csv.read_ahead(path, **self.ARGS)
+        got = read_plain_columns(path, **{**self.ARGS, "labels": ()})
+        fast_csv.settle_reads()
+        assert "grp" not in got and len(reads) == 2
+
+    def test_a_failed_read_ahead_is_read_again_where_it_raises(self, tmp_path, reads,
+                                                              monkeypatch):
+        from scaling.io import fast_csv
+        path = self._table(tmp_path)
+        plain = fast_csv._read_plain_columns
+
+        def once_broken(*args, **kwargs):
+            if len(reads) == 0:
+                reads.append(1)
+                raise MemoryError("read ahead")
+            return plain(*args, **kwargs)
+        monkeypatch.setattr(fast_csv, "_read_plain_columns", once_broken)
+        fast_csv.read_ahead(path, **self.ARGS)
+        fast_csv.settle_reads()
+        got = read_plain_columns(path, **self.ARGS)
+        assert len(got["mass"]) == 500
+
+    def test_the_run_command_reads_ahead_only_what_it_reads_whole(self, tmp_path, reads):
+        from scaling import cli
+        from scaling.io import fast_csv
+        self._table(tmp_path)
+        body = "data:\n  file: t.csv\n  x: mass\n  y: rate\n  group: grp\n"
+        for extra, ahead in (("", 1), ("  moments_above_mb: 0.000001\n", 0),
+                             ("engine: dask\n", 0), ("  exclude: {grp: [a]}\n", 0)):
+            cfg = tmp_path / "run.yaml"
+            cfg.write_text(body + extra if not extra.startswith("engine") else extra + body)
+            fast_csv._AHEAD.clear()
+            cli._read_ahead(cfg)
+            fast_csv.settle_reads()
+            assert len(fast_csv._AHEAD) == ahead, extra
+        (tmp_path / "bad.yaml").write_text("data: [\n")
+        cli._read_ahead(tmp_path / "bad.yaml")   # the run reports it, not the read ahead
+        cli._read_ahead(tmp_path / "missing.yaml")

@@ -118,3 +118,13 @@ def test_few_groups_draw_no_grey_points(tmp_path):
     ax = make_figure(res, "scaling").axes[0]
     assert not [ln for ln in ax.lines if ln.get_gid() == "points-other-groups"]
     assert _group_lines(ax) == 20
+
+
+def test_residual_panels_grey_the_groups_not_shown(many):
+    fig = make_figure(many, "residuals")
+    codes = fi.group_codes(many.data.points, fi.shown_groups(many))
+    for ax in fig.axes:
+        grey = [ln for ln in ax.lines if ln.get_gid() == "points-other-groups"]
+        assert len(grey) == 1 and len(grey[0].get_xdata()) == int(np.sum(codes < 0))
+    texts = [t.get_text() for t in fig.legends[0].get_texts()]
+    assert any(t.startswith(f"{fi.GROUP_LINES_MAX} of ") for t in texts), texts

@@ -30,11 +30,101 @@ pyarrow is not: such files are left to pandas, whose values they keep.)
 from __future__ import annotations
 
 import codecs
+import os
+import threading
 from pathlib import Path
 
 import numpy as np
 
-__all__ = ["read_plain_columns", "PLAIN_DELIMITERS"]
+__all__ = ["read_plain_columns", "PLAIN_DELIMITERS", "plain_columns_args", "read_ahead",
+           "settle_reads", "sniff_delimiter", "text_encoding", "EXCEL_SUFFIXES"]
+
+#: Spreadsheet files (read by pandas and openpyxl, never by these readers).
+EXCEL_SUFFIXES = (".xlsx", ".xlsm", ".xls")
+
+
+def text_encoding(cfg) -> str:
+    """The encoding a text file of ``cfg`` (a DataConfig) is opened with: UTF-8 files
+    through ``utf-8-sig`` (a byte-order mark is dropped)."""
+    enc = cfg.encoding.lower().replace("_", "-")
+    return "utf-8-sig" if enc in ("utf-8", "utf8") else cfg.encoding
+
+
+def sniff_delimiter(path: Path, cfg) -> str:
+    """The delimiter of ``data.delimiter: auto``: the one of comma, tab and semicolon most
+    frequent in the header line (not the comma with ``data.decimal: ","``), else a comma."""
+    with open(path, encoding=text_encoding(cfg), errors="replace", newline="") as fh:
+        for _ in range(cfg.skip_rows):
+            fh.readline()
+        header = fh.readline()
+    counts = {d: header.count(d) for d in (",", "\t", ";")}
+    if cfg.decimal == ",":
+        counts.pop(",")
+    best = max(counts, key=counts.get)
+    return best if counts[best] > 0 else ","
+
+
+def plain_columns_args(cfg) -> dict | None:
+    """The arguments of :func:`read_plain_columns` (but the path) for ``cfg``'s file (a
+    DataConfig), or None when the config needs the text reading whatever the file holds:
+    several predictors, decimal ",", ``data.exclude``, a units row, another encoding
+    than UTF-8, a spreadsheet or Parquet file, or no such file."""
+    path = Path(cfg.file)
+    if (isinstance(cfg.x, tuple) or cfg.decimal != "." or cfg.exclude or cfg.units_row
+            or text_encoding(cfg) != "utf-8-sig" or not path.is_file()
+            or path.suffix.lower() in (*EXCEL_SUFFIXES, ".parquet")):
+        return None
+    sep = sniff_delimiter(path, cfg) if cfg.delimiter == "auto" else cfg.delimiter
+    labels = tuple(c for c in (cfg.group, cfg.average_within) if c)
+    return dict(sep=sep, skip_rows=cfg.skip_rows, numbers=(cfg.x, cfg.y), labels=labels)
+
+
+#: Reads started ahead (:func:`read_ahead`): ``key -> (thread, answer box)``.
+_AHEAD: dict = {}
+
+
+def _ahead_key(path, sep: str, skip_rows: int, numbers: tuple, labels: tuple):
+    """What a read ahead must match to stand for a read now: the same file, unchanged
+    (size and modification time), read with the same arguments; None: no such file."""
+    try:
+        st = os.stat(path)
+        where = str(Path(path).resolve())
+    except OSError:
+        return None
+    return (where, st.st_size, st.st_mtime_ns, sep, skip_rows, tuple(numbers), tuple(labels))
+
+
+def read_ahead(path, *, sep: str, skip_rows: int, numbers: tuple, labels: tuple) -> None:
+    """Start :func:`read_plain_columns` of ``path`` in a thread; the next call with the same
+    arguments on the same unchanged file takes its answer instead of reading again.
+
+    ``scaling run`` starts it before it imports what the run needs: pyarrow parses
+    the file (without the interpreter lock) while pandas and scipy are imported.
+    Anything the read raises is dropped: the call that takes its place reads again
+    and raises it there.
+    """
+    key = _ahead_key(path, sep, skip_rows, numbers, labels)
+    if key is None or key in _AHEAD:
+        return
+    box: dict = {}
+
+    def read() -> None:
+        try:
+            box["columns"] = _read_plain_columns(path, sep=sep, skip_rows=skip_rows,
+                                                 numbers=numbers, labels=labels)
+        except BaseException:  # noqa: BLE001 -- read again where it is wanted
+            pass
+
+    thread = threading.Thread(target=read, name="scaling-read-ahead", daemon=True)
+    _AHEAD[key] = (thread, box)
+    thread.start()
+
+
+def settle_reads() -> None:
+    """Wait for the reads started ahead (their answers are kept): before a fork, whose
+    child would otherwise inherit locks a reading thread holds."""
+    for thread, _ in list(_AHEAD.values()):
+        thread.join()
 
 #: Delimiters the shortcut takes (the sniffed ones and the pipe).
 PLAIN_DELIMITERS = (",", "\t", ";", "|")
@@ -116,6 +206,18 @@ def read_plain_columns(path, *, sep: str, skip_rows: int, numbers: tuple,
         plain, pyarrow is missing, a name is absent or used twice, or any cell
         would be dropped or flagged by the text reading.
     """
+    if _AHEAD:   # a read started ahead of this one (scaling run)
+        job = _AHEAD.pop(_ahead_key(path, sep, skip_rows, numbers, labels), None)
+        if job is not None:
+            job[0].join()
+            if "columns" in job[1]:
+                return job[1]["columns"]
+    return _read_plain_columns(path, sep=sep, skip_rows=skip_rows, numbers=numbers,
+                               labels=labels)
+
+
+def _read_plain_columns(path, *, sep: str, skip_rows: int, numbers: tuple,
+                        labels: tuple) -> dict | None:
     try:
         import pyarrow as pa
         import pyarrow.compute as pc

@@ -22,7 +22,9 @@ import numpy as np
 import pandas as pd
 
 from .config import DataConfig
-from .fast_csv import read_plain_columns, read_plain_text
+from .fast_csv import (EXCEL_SUFFIXES as _EXCEL_SUFFIXES, plain_columns_args,
+                       read_plain_columns, read_plain_text, sniff_delimiter as _sniff_delimiter,
+                       text_encoding as _encoding)
 from ..errors import DataError, DataWarning
 from ..stats.logscale import to_log
 
@@ -69,23 +71,6 @@ class CleanData:
     @property
     def has_groups(self) -> bool:
         return "group" in self.points.columns
-
-
-def _sniff_delimiter(path: Path, cfg: DataConfig) -> str:
-    with open(path, encoding=_encoding(cfg), errors="replace", newline="") as fh:
-        for _ in range(cfg.skip_rows):
-            fh.readline()
-        header = fh.readline()
-    counts = {d: header.count(d) for d in (",", "\t", ";")}
-    if cfg.decimal == ",":
-        counts.pop(",")
-    best = max(counts, key=counts.get)
-    return best if counts[best] > 0 else ","
-
-
-def _encoding(cfg: DataConfig) -> str:
-    enc = cfg.encoding.lower().replace("_", "-")
-    return "utf-8-sig" if enc in ("utf-8", "utf8") else cfg.encoding
 
 
 def read_table(cfg: DataConfig) -> pd.DataFrame:
@@ -146,9 +131,6 @@ def read_table(cfg: DataConfig) -> pd.DataFrame:
     table = table.reset_index(drop=True)
     table.attrs["duplicated_columns"] = _duplicated(names)
     return table
-
-
-_EXCEL_SUFFIXES = (".xlsx", ".xlsm", ".xls")
 
 
 def _read_plain_text(path: Path, sep: str, cfg: DataConfig, options: dict):
@@ -641,14 +623,11 @@ def _clean_plain(cfg: DataConfig, *, log_base=10.0) -> CleanData | None:
     and positive and every group and unit given).
     """
     path = Path(cfg.file)
-    if (isinstance(cfg.x, tuple) or cfg.decimal != "." or cfg.exclude or cfg.units_row
-            or _encoding(cfg) != "utf-8-sig" or not path.is_file()
-            or path.suffix.lower() in (*_EXCEL_SUFFIXES, ".parquet")):
+    args = plain_columns_args(cfg)
+    if args is None:
         return None
-    sep = _sniff_delimiter(path, cfg) if cfg.delimiter == "auto" else cfg.delimiter
-    labels = tuple(c for c in (cfg.group, cfg.average_within) if c)
-    columns = read_plain_columns(path, sep=sep, skip_rows=cfg.skip_rows,
-                                 numbers=(cfg.x, cfg.y), labels=labels)
+    labels = args["labels"]
+    columns = read_plain_columns(path, **args)
     if columns is None:
         return None
     n = len(columns[cfg.x])

@@ -25,7 +25,8 @@ from .wording import unit_text
 __all__ = ["reuse_inputs", "reused", "run_base", "axis_label", "points_held", "points_drawn",
            "figure_digest", "residual_ranks", "drawn_points", "run_groups", "group_sizes",
            "fitted_n", "group_codes", "scatter_groups", "GROUP_LINES_MAX", "shown_groups",
-           "scatter_shown_groups", "shown_groups_handle",
+           "scatter_shown_groups", "scatter_shown_coded", "shown_codes",
+           "shown_groups_handle",
            "run_methods", "drawn_primary", "group_means_table", "fit_xrange", "factor_of",
            "common_slope_fit", "slopes_agree"]
 
@@ -282,20 +283,31 @@ def scatter_shown_groups(ax, pts, groups: list, shown: list, **kwargs) -> None:
     if len(shown) == len(groups):
         scatter_groups(ax, pts, groups, **kwargs)
         return
-    codes = group_codes(pts, shown)
-    x, y = pts["x"].to_numpy(), pts["y"].to_numpy()
+    scatter_shown_coded(ax, pts["x"].to_numpy(), pts["y"].to_numpy(),
+                        group_codes(pts, shown), len(shown), **kwargs)
+
+
+def scatter_shown_coded(ax, x, y, codes, n_shown: int, *, total: int | None = None,
+                        **kwargs) -> None:
+    """:func:`scatter_coded` of the points whose ``codes`` (into the shown groups) are
+    0 or more; those coded -1 (groups not shown) beneath, in grey, as one artist."""
+    x, y, codes = np.asarray(x), np.asarray(y), np.asarray(codes)
     other = codes < 0
     size = float(kwargs.get("s", 12.0)) ** 0.5   # scatter sizes are areas, markers diameters
     ax.plot(x[other], y[other], ls="none", marker="o", markersize=size,
             color=OTHER_GROUPS_COLOUR, markeredgecolor="white",
             markeredgewidth=kwargs.get("linewidth", 0.3), alpha=0.6,
             zorder=kwargs.get("zorder", 2) - 0.1, gid="points-other-groups")
-    total = kwargs.pop("total", None)
-    if total is None:
-        total = len(pts)
     # the note that a subset is drawn speaks of all the points
-    scatter_coded(ax, x[~other], y[~other], codes[~other], len(shown), total=total,
-                  **kwargs)
+    scatter_coded(ax, x[~other], y[~other], codes[~other], n_shown,
+                  total=len(x) if total is None else total, **kwargs)
+
+
+def shown_codes(groups: list, shown: list, codes) -> np.ndarray:
+    """``codes`` into ``groups`` as codes into ``shown`` (-1: a group not shown)."""
+    where = np.full(len(groups) + 1, -1, dtype=np.intp)   # the last: code -1 stays -1
+    where[pd.Index(groups).get_indexer(shown)] = np.arange(len(shown))
+    return where[np.asarray(codes, dtype=np.intp)]
 
 
 def shown_groups_handle(n_groups: int, n_shown: int, plural: str):

@@ -11,7 +11,9 @@ from ..stats import tails
 
 from ..stats.schema import method_label
 from .figure_inputs import (drawn_points, group_codes, points_held, residual_ranks, reused,
-                            run_groups, run_methods)
+                            run_groups, run_methods, scatter_shown_coded, shown_codes,
+                            shown_groups, shown_groups_handle)
+from .wording import plural
 from .figure_style import (LEGEND_MAX_GROUPS, PAGE_HEIGHT, SIZES, STYLE, agg_figure,
                            figure_legend, group_style, many_groups_handle, new_figure,
                            scatter_coded, styled, thinned_index)
@@ -127,7 +129,9 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         return ax
     X, Y, resid, largest = _point_residuals(fit, pts)
     groups = run_groups(result)
-    codes = group_codes(pts, groups) if groups else np.zeros(len(pts), dtype=int)
+    shown = shown_groups(result, groups)   # all, or GROUP_LINES_MAX in colour, others grey
+    codes = group_codes(pts, shown) if groups else np.zeros(len(pts), dtype=int)
+    scatter = scatter_shown_coded if len(shown) < len(groups) else scatter_coded
     n = resid.size
     ranks = residual_ranks(result, method)
     if ranks is not None:   # every residual of the run, ranked in its process
@@ -139,14 +143,14 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         if ranks is None:
             order = np.argsort(resid)
             ranked = resid[order]   # sorted: its quartiles are those of resid, found faster
-            shown, shown_codes = ranked[drawn], codes[order[drawn]]
+            shown_values, drawn_codes = ranked[drawn], codes[order[drawn]]
         else:
-            shown = ranks.values
-            shown_codes = (ranks.codes.astype(np.intp) if groups
-                           else np.zeros(shown.size, dtype=int))
+            shown_values = ranks.values
+            drawn_codes = (shown_codes(groups, shown, ranks.codes) if groups
+                           else np.zeros(shown_values.size, dtype=int))
         q = _normal_quantiles(n, drawn)
-        scatter_coded(ax, q, shown, shown_codes, len(groups), total=total, s=9,
-                       edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
+        scatter(ax, q, shown_values, drawn_codes, len(shown), total=total, s=9,
+                edgecolor="white", linewidth=0.3, alpha=0.85, zorder=2)
         if n >= 4:
             q1, q3 = (np.percentile(ranked, [25, 75]) if ranks is None
                       else ranks.quartiles)
@@ -162,9 +166,9 @@ def plot_residuals(result, *, ax=None, method: str | None = None, kind: str = "f
         # positions of the drawn points only
         drawn = thinned_index(resid.size)   # none of a digest's: its points are drawn
         drawn = slice(None) if drawn is None else drawn
-        scatter_coded(ax, _position(fit, X[drawn], Y[drawn]), resid[drawn], codes[drawn],
-                       len(groups), total=total, s=9, edgecolor="white", linewidth=0.3,
-                       alpha=0.85, zorder=2)
+        scatter(ax, _position(fit, X[drawn], Y[drawn]), resid[drawn], codes[drawn],
+                len(shown), total=total, s=9, edgecolor="white", linewidth=0.3,
+                alpha=0.85, zorder=2)
         ax.axhline(0, color="#4d4d4d", lw=0.7, zorder=1)
         ax.set_xlabel(_FITTED_LABEL.get(method, _POSITION_LABEL))
         ax.set_ylabel("Residual (log scale)")
@@ -195,7 +199,11 @@ def make_residuals(result, *, size: str = "single", methods=None) -> Figure:
         plot_residuals(result, ax=axes[i, 0], method=method, kind="fitted")
         plot_residuals(result, ax=axes[i, 1], method=method, kind="normal")
     groups = run_groups(result)
-    if len(groups) > LEGEND_MAX_GROUPS:
+    shown = shown_groups(result, groups)
+    if len(shown) < len(groups):
+        figure_legend(fig, [shown_groups_handle(len(groups), len(shown), plural(
+            str(result.config.data.group or "group")))], 1)
+    elif len(groups) > LEGEND_MAX_GROUPS:
         figure_legend(fig, [many_groups_handle(len(groups))], 1)
     elif groups:
         handles = [Line2D([], [], ls="none", marker=group_style(i)[1],

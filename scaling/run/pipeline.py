@@ -30,6 +30,7 @@ import pandas as pd
 from ..io.config import Config, config_from_dict, load_config
 from ..io import output
 from ..io.output import check_out_dir, manifest_header, results_document  # noqa: F401
+from ..io.fast_csv import settle_reads
 from ..io.tables import CleanData
 from ..render.figure_worker import start_figures, start_worker
 from ..render.report import prepare_report, write_report
@@ -384,6 +385,9 @@ def run_config(config, *, out: Path | str | None = None, force: bool = False,
     if write:
         # Refuse early, before any work, if the folder is not usable.
         check_out_dir(out_dir, force)
+    # A read `scaling run` started ahead ends before any fork (a child must not inherit
+    # the locks of a reading thread); its answer is kept for the read stage.
+    settle_reads()
     # Drawing the figures needs matplotlib, which a forked worker imports while
     # the numbers are computed (scaling.render.figure_worker); None: drawn here later.
     worker = start_worker(config) if write else None
