@@ -128,3 +128,30 @@ def test_residual_panels_grey_the_groups_not_shown(many):
         assert len(grey) == 1 and len(grey[0].get_xdata()) == int(np.sum(codes < 0))
     texts = [t.get_text() for t in fig.legends[0].get_texts()]
     assert any(t.startswith(f"{fi.GROUP_LINES_MAX} of ") for t in texts), texts
+
+
+def test_the_figures_get_only_the_drawn_groups_fit_objects_and_draw_the_same(many):
+    # internal consistency: the figures drawn from the run cut for sending equal, byte for
+    # byte, those drawn from the whole run
+    import io
+    from scaling.render import figure_worker as fw
+    from scaling.render.figure_style import save_figure
+    view = fw.figure_view(many)
+    shown = set(fi.shown_groups(many))
+    assert {k[1] for k in view.line_fits if k[0] == "group"} == shown
+    assert {k[1] for k in view.saved_fits if k[0] == "group"} == shown
+    assert {k for k in many.line_fits if k[0] != "group"} <= set(view.line_fits)
+    assert fi.shown_groups(view) == fi.shown_groups(many)
+    for kind in ("scaling", "natural", "residuals", "exponents"):
+        pngs = []
+        for res in (many, view):
+            fh = io.BytesIO()
+            save_figure(make_figure(res, kind), fh, "png", 40)
+            pngs.append(fh.getvalue())
+        assert pngs[0] == pngs[1], kind
+
+
+def test_few_groups_send_every_fit_object(tmp_path):
+    from scaling.render import figure_worker as fw
+    res = _run(tmp_path, fi.GROUP_LINES_MAX)
+    assert fw.figure_view(res).line_fits is res.line_fits

@@ -18,7 +18,8 @@ from matplotlib.lines import Line2D
 from ..stats.lines import parse_log_base
 from ..stats.line_results import ConfidenceInterval
 from .figure_style import group_digits, scatter_coded, thinned_index
-from .thinning import DRAWN_TABLE, FIGURE_DIGEST, FigureDigest
+from .thinning import (DRAWN_TABLE, FIGURE_DIGEST, GROUP_LINES_MAX, FigureDigest,
+                       group_line_slopes, groups_spread_over_slopes)
 from .headline import primary_method
 from .wording import unit_text
 
@@ -229,10 +230,6 @@ def scatter_groups(ax, pts, groups: list, **kwargs) -> None:
                    len(groups), **kwargs)
 
 
-#: Above this many groups the scaling and natural figures draw the own lines, means,
-#: curves and predictions of this many of them (see :func:`shown_groups`): ten thousand
-#: lines hide the points and one another, and cost seconds to draw.
-GROUP_LINES_MAX = 50
 #: Points of the groups whose lines are not drawn.
 OTHER_GROUPS_COLOUR = "#b8b8b8"
 
@@ -258,22 +255,7 @@ def shown_groups(result, groups: list | None = None) -> list:
 def _shown_groups(result, groups: list) -> list:
     methods = list(result.config.model.methods)
     method = drawn_primary(methods, result) if methods else None
-    slopes, names = [], []
-    for g in groups:
-        fit = result.line_fits.get(("group", g, method))
-        if fit is None or not getattr(fit, "estimable", True):
-            continue
-        slope = float(fit.slope)
-        if np.isfinite(slope):
-            slopes.append(slope)
-            names.append(g)
-    if not names:   # no group lines: spaced evenly by name
-        slopes, names = [0.0] * len(groups), groups
-    if len(names) <= GROUP_LINES_MAX:
-        return names   # in the order of groups already
-    order = np.lexsort((np.arange(len(names)), np.asarray(slopes)))   # ties: by name
-    picks = order[np.round(np.linspace(0, len(names) - 1, GROUP_LINES_MAX)).astype(int)]
-    return [names[i] for i in np.sort(picks)]
+    return groups_spread_over_slopes(groups, group_line_slopes(result.line_fits, method))
 
 
 def scatter_shown_groups(ax, pts, groups: list, shown: list, **kwargs) -> None:

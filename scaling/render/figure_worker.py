@@ -49,7 +49,9 @@ import numpy as np
 
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
-from .thinning import DRAWN_TABLE, FIGURE_DIGEST, PendingRanks, RanksToFollow
+from .headline import primary_method
+from .thinning import (DRAWN_TABLE, FIGURE_DIGEST, GROUP_LINES_MAX, PendingRanks,
+                       RanksToFollow, group_line_slopes, groups_spread_over_slopes)
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
            "figure_view", "anything_to_draw", "one_process", "report_png", "REPORT_PNGS",
@@ -93,11 +95,35 @@ def figure_view(result):
     data = result.data
     if dataclasses.is_dataclass(data) and hasattr(data, "dropped"):
         data = dataclasses.replace(data, dropped=data.dropped.iloc[:0])
+    line_fits, saved_fits = _drawn_groups_only(result)
     return dataclasses.replace(
-        result, data=data, slope_tests=result.slope_tests.iloc[:0],
+        result, data=data, line_fits=line_fits, saved_fits=saved_fits,
+        slope_tests=result.slope_tests.iloc[:0],
         dropped=result.dropped.iloc[:0], messages=(), warnings=(),
         tables={k: v for k, v in (result.tables or {}).items() if k in FIGURE_TABLES},
         manifest={} if large is None else {"large_data": large})
+
+
+def _drawn_groups_only(result) -> tuple:
+    """The run's fit objects and saved fits, of its groups only those whose lines the
+    figures draw when there are more than :data:`~scaling.render.thinning.GROUP_LINES_MAX`
+    (:func:`~scaling.render.thinning.groups_spread_over_slopes`, by the slopes of the
+    primary method's lines, as :func:`~scaling.render.figure_inputs.shown_groups` picks
+    them: from the fits kept it picks the same groups).  No figure reads the others'
+    objects (the spread across groups reads the fits table), and ten thousand of them
+    cost the run a second to send and the figures one to receive."""
+    line_fits, saved = result.line_fits or {}, result.saved_fits or {}
+    methods = list(result.config.model.methods)
+    if not methods or not line_fits:
+        return line_fits, saved
+    chosen = primary_method(methods, getattr(result.config.model, "primary", None))
+    method = chosen if chosen in methods else ("sma" if "sma" in methods else methods[0])
+    slopes = group_line_slopes(line_fits, method)
+    if len(slopes) <= GROUP_LINES_MAX:
+        return line_fits, saved
+    keep = set(groups_spread_over_slopes(sorted(slopes), slopes))
+    return ({k: v for k, v in line_fits.items() if k[0] != "group" or k[1] in keep},
+            {k: v for k, v in saved.items() if k[0] != "group" or k[1] in keep})
 
 
 def _rebuild(cls, names: tuple, values: tuple):

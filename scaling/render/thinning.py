@@ -166,3 +166,40 @@ class FigureDigest:
     sizes: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     x_range: tuple = (np.nan, np.nan)
     residuals: dict = field(default_factory=dict)
+
+
+#: Above this many groups the scaling and natural figures draw the own lines, means,
+#: curves and predictions of this many of them (:func:`groups_spread_over_slopes`): ten
+#: thousand lines hide the points and one another, and cost seconds to draw.
+GROUP_LINES_MAX = 50
+
+
+def groups_spread_over_slopes(groups: list, slopes: dict) -> list:
+    """The groups whose own lines the figures draw: all of ``groups`` that have a slope
+    in ``slopes`` (group -> the finite slope of its own line) up to
+    :data:`GROUP_LINES_MAX` of them; above, :data:`GROUP_LINES_MAX` at evenly spaced
+    ranks of their slopes (ties by their place in ``groups``), the lowest and the
+    highest among them.  In the order of ``groups``; none with a slope: ``groups``
+    spaced evenly (a run without lines of its groups)."""
+    names = [g for g in groups if g in slopes]
+    if not names:
+        names, values = list(groups), np.zeros(len(groups))
+    else:
+        values = np.array([slopes[g] for g in names], dtype=float)
+    if len(names) <= GROUP_LINES_MAX:
+        return names
+    order = np.lexsort((np.arange(len(names)), values))
+    picks = order[np.round(np.linspace(0, len(names) - 1, GROUP_LINES_MAX)).astype(int)]
+    return [names[i] for i in np.sort(picks)]
+
+
+def group_line_slopes(line_fits: dict, method) -> dict:
+    """``group -> slope`` of each group's own estimable ``method`` line with a finite
+    slope (what :func:`groups_spread_over_slopes` ranks)."""
+    out = {}
+    for (scope, group, m), fit in line_fits.items():
+        if scope == "group" and m == method and getattr(fit, "estimable", True):
+            slope = float(fit.slope)
+            if np.isfinite(slope):
+                out[group] = slope
+    return out
