@@ -94,10 +94,11 @@ def test_error_structure_started_early_equals_the_one_computed_in_the_stage(
     monkeypatch.setattr(diag, "Background", Counted)
     monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10)
     early = analyse(cfg).tables["error_structure"]
-    assert len(started) == 1   # the pooled line's comparison went to a forked process
+    # the pooled line's comparison went to a forked process
+    assert started.count(diag._error_structure) == 1
     monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10**9)
     late = analyse(cfg).tables["error_structure"]
-    assert len(started) == 1
+    assert started.count(diag._error_structure) == 1
     # internal consistency: the same function of the same points, in either process
     pd.testing.assert_frame_equal(early, late, check_exact=True)
     assert _no_children_left()
@@ -129,3 +130,78 @@ def test_background_forks_nothing_when_asked_for_one_process(monkeypatch):
     job = Background(_dies_in_a_child, os.getpid(), 4.0)
     assert job._pid is None   # nothing forked: computed when asked, in this process
     assert job.result() == 8.0
+
+
+def _diagnosed(cfg):
+    res = analyse(cfg)
+    return {k: res.tables[k] for k in ("diagnostics", "influential_rows", "curvature")}
+
+
+def test_pooled_line_checks_started_early_equal_those_made_in_the_stage(
+        tmp_path, monkeypatch):
+    cfg = _table(tmp_path)
+    started, here = [], []
+
+    class Counted(Background):
+        def __init__(self, fn, *args):
+            started.append(fn.__name__)
+            super().__init__(fn, *args)
+
+    plain = diag.diagnose
+
+    def counted(fit, *args, **kwargs):
+        here.append(fit.n)
+        return plain(fit, *args, **kwargs)
+
+    monkeypatch.setattr(diag, "Background", Counted)
+    monkeypatch.setattr(diag, "diagnose", counted)
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10)
+    early = _diagnosed(cfg)
+    assert "_check_lines" in started
+    n = 600
+    # the pooled lines were checked in the started process (or, where no process may be
+    # forked, by the same function when the stage asked), never by the stage's own call
+    assert n not in here and here   # the groups' lines still checked in the stage
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10**9)
+    here.clear()
+    late = _diagnosed(cfg)
+    assert here.count(n) == 3   # OLS, SMA and MA of the pooled points, in the stage
+    # internal consistency: the same function of the same lines and points
+    for name in early:
+        pd.testing.assert_frame_equal(early[name], late[name], check_exact=True)
+    assert _no_children_left()
+
+
+def test_an_early_check_of_another_line_is_not_taken(tmp_path, monkeypatch):
+    from dataclasses import replace
+    cfg = _table(tmp_path)
+    res = analyse(cfg)
+    pts = res.data.points
+    fits = {k: v for k, v in res.line_fits.items() if k[0] == "pooled"}
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10)
+    early = diag.early_line_checks(cfg, fits, {("pooled", ""): pts})
+    fit = fits[("pooled", "", "sma")]
+    rows = pts["row"].to_numpy()
+    taken = diag._early_line(early, "pooled", "", "sma", fit, pts, rows)
+    assert taken is not None and taken.method == "sma" and taken.rows is rows
+    moved = replace(fit, slope=fit.slope + 1e-9)   # another line: checked in the stage
+    assert diag._early_line(early, "pooled", "", "sma", moved, pts, rows) is None
+    assert diag._early_line(early, "pooled", "", "sma", fit, pts.copy(), rows) is None
+    assert diag._early_line(early, "group", "a", "sma", fit, pts, rows) is None
+    for job in early.values():
+        job[1].stop()
+    assert _no_children_left()
+
+
+def test_a_line_the_early_checks_refused_is_skipped_as_the_stage_would(tmp_path,
+                                                                       monkeypatch):
+    cfg = _table(tmp_path)
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10)
+
+    def refused(fits, *args):
+        return {m: DataError("nothing to diagnose") for m in fits}
+
+    monkeypatch.setattr(diag, "_check_lines", refused)
+    table = analyse(cfg).tables["diagnostics"]
+    assert not (table["scope"] == "pooled").any() and (table["scope"] == "group").any()
+    assert _no_children_left()

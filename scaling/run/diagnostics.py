@@ -40,7 +40,8 @@ from .phylo_checks import answer_model_checks, diagnostic_rows
 from .points_to_check import coded_points, in_groups
 from .predictions import CHUNK_ROWS, chunk_runs
 
-__all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage", "early_checks"]
+__all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage", "early_checks",
+           "early_line_checks"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -81,6 +82,69 @@ def early_checks(cfg, points: pd.DataFrame | None) -> dict:
         return {}
     x, y = points["x"].to_numpy(), points["y"].to_numpy()
     return {("pooled", ""): (points, Background(_error_structure, x, y))}
+
+
+def early_line_checks(cfg, line_fits: dict, point_sets: dict) -> dict:
+    """``{("lines", "pooled", ""): (points, Background, fits, {})}``: the checks of the pooled
+    lines (:func:`~scaling.stats.residual_checks.diagnose`: normality, constant
+    variance, curvature, Cook's distances over every point), started in a forked
+    process as soon as the lines are fitted, on a large table whose diagnostics will
+    ask for them; ``{}`` otherwise.  They run on the core the run leaves idle while it
+    compares groups and predicts, and the run's process never holds their per-point
+    arrays.  :func:`diagnostics_stage` takes each answer whose line and points are the
+    very ones it checks."""
+    dc = cfg.diagnostics
+    sel = point_sets.get(("pooled", ""))
+    if not dc.enabled or sel is None or len(sel) < EARLY_FROM_POINTS:
+        return {}
+    fits = {key[2]: fit for key, fit in line_fits.items()
+            if key[:2] == ("pooled", "") and fit.estimable and fit.n == len(sel)}
+    if not fits:
+        return {}
+    X, Y = set_columns(sel, "log_x", "log_y")
+    rows = set_columns(sel, "row")[0]
+    m = known_moments(sel)
+    exact = None if m is None else bool(exact_fit(m))
+    job = Background(_check_lines, fits, X, Y, rows, exponent_targets(cfg), dc.alpha, exact)
+    return {("lines", "pooled", ""): (sel, job, fits, {})}
+
+
+def _check_lines(fits: dict, X, Y, rows, targets: tuple, alpha: float, exact) -> dict:
+    """``method -> Diagnostics`` (without its residuals and row numbers, which the caller
+    has) or the ScalingError that refused it, of each of ``fits`` through the points
+    ``X, Y``: :func:`diagnostics_stage`'s calls, with one memo for the set."""
+    memo = {} if exact is None else {"exact": exact}
+    out: dict = {}
+    for method, fit in fits.items():
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                d = diagnose(fit, X, Y, rows=rows, exponent_targets=targets, alpha=alpha,
+                             memo=memo)
+        except ScalingError as exc:
+            out[method] = exc
+            continue
+        out[method] = replace(d, residuals=_NO_POINTS, rows=_NO_POINTS)
+    return out
+
+
+def _early_line(early: dict, scope: str, group: str, method: str, fit, sel, rows):
+    """The Diagnostics :func:`early_line_checks` made of this very line through these very
+    points (its row numbers ``rows`` put back), or None; raises the ScalingError that
+    refused it there."""
+    started = early.get(("lines", scope, group))
+    if started is None or started[0] is not sel or fit is None:
+        return None
+    was = started[2].get(method)
+    if was is None or (was.slope, was.intercept, was.n) != (fit.slope, fit.intercept, fit.n):
+        return None
+    box = started[3]   # the answer, read once
+    if "answer" not in box:
+        box["answer"] = started[1].result()
+    answer = box["answer"].get(method)
+    if isinstance(answer, ScalingError):
+        raise answer
+    return None if answer is None else replace(answer, rows=rows)
 
 
 def _error_structure(x, y):
@@ -133,11 +197,14 @@ def diagnostics_stage(cfg, state, *, early: dict | None = None) -> DiagnosticsSt
         else:
             rows = set_columns(sel, "row")[0]
             labels = None   # the flagged rows' units, looked up below
-        X, Y = _logs(logs, (scope, group), sel)
         try:
+            d = _early_line(early, scope, group, method, fit, sel, rows)
+            X, Y = _logs(logs, (scope, group), sel)
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                if fit is None:
+                if d is not None:
+                    pass   # checked in the process started when the line was fitted
+                elif fit is None:
                     d = diagnose_parallel(_common_slope(state.fits, method), X, Y,
                                           coded_points(sel), method=method,
                                           rows=rows, exponent_targets=targets,

@@ -40,7 +40,7 @@ from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COL
                             DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
                             INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
                             SLOPE_TEST_COLUMNS)
-from .diagnostics import diagnostics_stage, early_checks, exponent_targets
+from .diagnostics import diagnostics_stage, early_checks, early_line_checks, exponent_targets
 from .figure_digest import figure_result
 from .fits import fit_stage, fits_table_stage
 from .groups import group_stage
@@ -189,6 +189,8 @@ def _one_predictor(cfg, state: RunState, read, early: dict, figure_inputs) -> Ru
     fitted = fit_stage(cfg, state)
     state = replace(state, rows=fitted.rows, line_fits=fitted.line_fits,
                     point_sets=fitted.point_sets)
+    # the pooled lines' checks, on the idle core while groups are compared (large tables)
+    early.update(early_line_checks(cfg, state.line_fits, state.point_sets))
     grouped = group_stage(cfg, state) if read.data.has_groups else None
     if grouped is not None:
         state = replace(state, rows=state.rows + grouped.rows, test_rows=grouped.test_rows,
