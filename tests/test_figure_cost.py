@@ -199,7 +199,8 @@ def test_a_tight_bounding_box_is_left_to_savefig():
     with matplotlib.rc_context({"savefig.bbox": "tight"}):
         fs.save_figure(fig, ours, "png", 50)
         with matplotlib.rc_context(fs.STYLE):
-            fig.savefig(theirs, format="png", dpi=50, metadata={"Software": None})
+            fig.savefig(theirs, format="png", dpi=50, metadata={"Software": None},
+                        pil_kwargs={"compress_level": fs.PNG_COMPRESSION})
     assert Image.open(ours).size == Image.open(theirs).size
     assert ours.getvalue() == theirs.getvalue()
 

@@ -434,19 +434,25 @@ def save_figure(fig: Figure, target, fmt: str, dpi: int) -> None:
             fig.set_layout_engine(engine)
 
 
+#: zlib level of the PNG files: 3 compresses a figure (mostly white ground, a few
+#: colours) to within a few per cent of the default 6, in two thirds of the time.
+PNG_COMPRESSION = 3
+
+
 def _save(fig: Figure, target, fmt: str, dpi: int, meta: dict) -> None:
     """``fig.savefig``; a PNG whose every pixel is opaque (a figure on its white ground)
     is written in RGB, not RGBA: the same picture, a tenth smaller, a third faster to
     compress.  Its file otherwise has what savefig writes (resolution; no text chunk)."""
+    png = {"pil_kwargs": {"compress_level": PNG_COMPRESSION}} if fmt == "png" else {}
     if fmt != "png" or matplotlib.rcParams["savefig.bbox"] == "tight":   # cropped: savefig
-        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta, **png)
         return
     buf = io.BytesIO()
     fig.savefig(buf, format="rgba", dpi=dpi)   # the pixels savefig's PNG would hold
     raw = buf.getbuffer()
     width = int(fig.get_figwidth() * dpi)
     if not width or len(raw) % (4 * width):   # not the size expected: let savefig write it
-        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta)
+        fig.savefig(target, format=fmt, dpi=dpi, metadata=meta, **png)
         return
     image = Image.frombuffer("RGBA", (width, len(raw) // (4 * width)), raw, "raw", "RGBA", 0, 1)
     if np.frombuffer(raw, dtype=np.uint8)[3::4].min() == 255:
@@ -455,7 +461,8 @@ def _save(fig: Figure, target, fmt: str, dpi: int, meta: dict) -> None:
     for key, value in meta.items():
         if value is not None:
             info.add_text(key, value)
-    image.save(target, format="png", dpi=(dpi, dpi), pnginfo=info)
+    image.save(target, format="png", dpi=(dpi, dpi), pnginfo=info,
+               compress_level=PNG_COMPRESSION)
 
 
 @contextlib.contextmanager
