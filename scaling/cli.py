@@ -175,7 +175,11 @@ def _read_ahead(config_path) -> None:
 def _cmd_run(args) -> int:
     _give_back_freed_memory()
     _read_ahead(args.config)
-    from .run.pipeline import run_config
+    try:
+        from .run.pipeline import run_config
+    finally:   # nothing reads on while the process ends (an import failed)
+        from .io.fast_csv import settle_reads
+        settle_reads()
     out = Path(args.out) if args.out else None
     result = run_config(args.config, out=out, force=args.force, quiet=args.quiet)
     if not args.quiet:

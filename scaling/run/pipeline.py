@@ -379,6 +379,10 @@ def run_config(config, *, out: Path | str | None = None, force: bool = False,
     -------
     RunResult
     """
+    # A read `scaling run` started ahead ends before anything else: before any fork (a
+    # child must not inherit the locks of a reading thread) and before a refusal ends the
+    # process under it; its answer is kept for the read stage.
+    settle_reads()
     if isinstance(config, dict):
         config = config_from_dict(config, base_dir=Path.cwd())
     elif not isinstance(config, Config):
@@ -387,9 +391,6 @@ def run_config(config, *, out: Path | str | None = None, force: bool = False,
     if write:
         # Refuse early, before any work, if the folder is not usable.
         check_out_dir(out_dir, force)
-    # A read `scaling run` started ahead ends before any fork (a child must not inherit
-    # the locks of a reading thread); its answer is kept for the read stage.
-    settle_reads()
     # Drawing the figures needs matplotlib, which a forked worker imports while
     # the numbers are computed (scaling.render.figure_worker); None: drawn here later.
     worker = start_worker(config) if write else None
