@@ -220,7 +220,7 @@ def plot_scaling(result, *, ax=None, methods=None, scope: str = "pooled",
                                   edgecolor="black", linewidth=0.5, zorder=6)
             handles.append(Line2D([], [], ls="none", marker="o", markerfacecolor="white",
                                   markeredgecolor="black", markersize=6,
-                                  label="group mean ± 1 SE"))
+                                  label=f"{group_word} mean ± 1 SE"))
     elif not held:
         handles.append(unheld)
     else:
