@@ -32,8 +32,9 @@ __all__ = ["MIN_SPLIT_ROWS", "split_point", "spill_sums", "add_rows"]
 
 #: Usable rows in the spill below which one process sums every chunk.  Forking the
 #: run (a few ms for its page tables), pickling the child's sums back (S x M arrays:
-#: about 7 MB at 1e4 groups) and merging them cost some 20-50 ms, and the sums go at
-#: about 5e6 rows a second; a half of 1e5 rows (20 ms) no longer pays for that.
+#: 9 MB at 1e4 groups and 3 methods) and merging them cost some 20-50 ms, and the
+#: sums go at about 6e6 rows a second; a half of 1e5 rows (under 20 ms) no longer
+#: pays for that.
 MIN_SPLIT_ROWS = 200_000
 
 
