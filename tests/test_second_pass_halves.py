@@ -215,7 +215,13 @@ class TestForkedOrNotTheSameBits:
                                                           recorded, how):
         _split_small(monkeypatch)
         monkeypatch.setattr(background, "one_process", lambda: True)
-        expected, _ = _sums(cfg, stage)
+        n = int(stage.moments.pooled.n[0])
+
+        def drawn():
+            return DrawnPoints(n, stage.moments.labels, 10.0, positions=np.arange(3, n, 11))
+
+        expected_points = drawn()
+        expected, _ = _sums(cfg, stage, expected_points)
         run = os.getpid()
         real = second_pass_halves.half_sums
 
@@ -228,9 +234,11 @@ class TestForkedOrNotTheSameBits:
 
         monkeypatch.setattr(second_pass_halves, "half_sums", failing_in_child)
         monkeypatch.setattr(background, "one_process", lambda: False)
-        got, _ = _sums(cfg, stage)
+        points = drawn()
+        got, _ = _sums(cfg, stage, points)
         assert recorded[-1] is not None      # it did fork
         _assert_same_bits(expected, got)
+        assert_frame_equal(points.table(), expected_points.table())
 
     def test_the_child_is_gone_when_the_run_process_fails(self, cfg, stage, monkeypatch,
                                                           recorded):

@@ -185,6 +185,11 @@ class DrawnPoints:
         self.seen = start
         self.parts: list = []
 
+    def starting_at(self, start: int) -> "DrawnPoints":
+        """An empty collector of the same positions whose first point is at ``start``
+        (a later run of chunks, read elsewhere; its ``parts`` follow this one's)."""
+        return DrawnPoints(0, self.labels, self.base, start=start, positions=self.positions)
+
     def add(self, X, Y, rows, codes=None, x=None, y=None) -> None:
         """The next ``len(X)`` points (log x, log y, row numbers, group codes; natural
         ``x, y`` when at hand)."""

@@ -16,8 +16,9 @@ addition: first half + second half); the counts and the kept influential rows
 (a selection by value, ties by row number) are the same.
 
 The points the figures draw (:class:`~scaling.run.second_pass.DrawnPoints`) are
-counted in file order, so the run's process still shows them every chunk, the
-second half's too (reading a chunk back costs little next to its sums).
+counted in file order: each half picks its own, the second half's counted from the
+first half's usable rows (the spill holds usable rows only), and the second half's
+picks follow the first's; so each process reads only its half of the spill.
 """
 
 from __future__ import annotations
@@ -81,15 +82,18 @@ def add_rows(acc: ResidualSums | None, between, labels, codes, X, Y, rows, label
 
 
 def half_sums(spill, start: int, stop: int | None, params: dict, between_params: dict,
-              label_index: pd.Index, grouped: bool) -> tuple:
+              label_index: pd.Index, grouped: bool, drawn=None, first: int = 0) -> tuple:
     """The residual sums of the spill's chunks ``start`` to ``stop`` (excluded), in sums
-    of their own: ``(ResidualSums, GroupResidualSums)``."""
+    of their own, and the points ``drawn`` picks among them, its first point being the
+    run's point ``first``: ``(ResidualSums, GroupResidualSums, parts or None)``
+    (``drawn`` itself is left as it is)."""
     acc = ResidualSums(**params)
     between = GroupResidualSums(**between_params)
+    picker = None if drawn is None else drawn.starting_at(first)
     for chunk in spill.chunks(start, stop):
         add_rows(acc, between, chunk.labels, chunk.codes, chunk.X, chunk.Y, chunk.rows,
-                 label_index, grouped)
-    return acc, between
+                 label_index, grouped, picker)
+    return acc, between, (None if picker is None else picker.parts)
 
 
 def spill_sums(spill, params: dict, between_params: dict, label_index: pd.Index,
@@ -106,7 +110,7 @@ def spill_sums(spill, params: dict, between_params: dict, label_index: pd.Index,
         The run's group names (chunk labels are placed among them).
     grouped : bool
     drawn : DrawnPoints, optional
-        Shown every chunk in file order (filled in place).
+        The points drawn, picked in file order (filled in place).
 
     Notes
     -----
@@ -125,24 +129,24 @@ def spill_sums(spill, params: dict, between_params: dict, label_index: pd.Index,
             add_rows(acc, between, chunk.labels, chunk.codes, chunk.X, chunk.Y, chunk.rows,
                      label_index, grouped, drawn)
         return acc, between
-    args = (spill, cut, None, params, between_params, label_index, grouped)
+    first = int(sum(sizes[:cut]))     # the spill holds usable rows only: points
+    args = (spill, cut, None, params, between_params, label_index, grouped, drawn, first)
     child = Background(half_sums, *args)
     try:
         acc = ResidualSums(**params)
         between = GroupResidualSums(**between_params)
-        for at, chunk in enumerate(spill.chunks()):
-            mine = at < cut
-            if not mine and drawn is None:
-                break
-            # the second half's chunks only for the points drawn (file order)
-            add_rows(acc if mine else None, between, chunk.labels, chunk.codes, chunk.X,
-                     chunk.Y, chunk.rows, label_index, grouped, drawn)
+        for chunk in spill.chunks(0, cut):
+            add_rows(acc, between, chunk.labels, chunk.codes, chunk.X, chunk.Y, chunk.rows,
+                     label_index, grouped, drawn)
         try:
-            later, later_between = child.result()
+            later, later_between, parts = child.result()
         except Exception:  # noqa: BLE001 -- the child's failure: its half summed here
-            later, later_between = half_sums(*args)
+            later, later_between, parts = half_sums(*args)
     finally:
         child.stop()       # the child never outlives this call (no-op once read)
     acc.merge(later)
     between.merge(later_between)
+    if drawn is not None:   # the second half's points drawn follow the first half's
+        drawn.parts += parts
+        drawn.seen += int(sum(sizes[cut:]))
     return acc, between
