@@ -8,9 +8,11 @@ every group, every line method; the groups' residual checks only when each
 group is checked, ``groups.diagnostics_max``).  Read in this process, the
 rows come back from the first pass's temporary binary file
 (:class:`~scaling.run.table_moments.RowSpill`: log x, log y, group code and
-row number of each cleaned chunk, the same chunks), not from parsing the
-file again; with Dask the partitions are read and cleaned again on the same
-scheduler (persisting them would hold every row in the workers' memory);
+row number of each cleaned chunk, the same chunks, summed in two halves on
+two cores above a size: :mod:`scaling.run.second_pass_halves`), not from
+parsing the file again; with Dask the partitions are read and cleaned again
+on the same scheduler (persisting them would hold every row in the workers'
+memory);
 with ``data.average_within`` the points are the unit means held in memory.
 From those sums and the moments it builds what the in-memory road writes
 from the rows:
@@ -66,6 +68,7 @@ from .moments_path import _sep
 from .points_to_check import primary_method
 from .predictions import (accuracy_and_factors, predictions_from_factors, row_keys,
                           saved_fits_of)
+from .second_pass_halves import add_rows, spill_sums
 
 __all__ = ["SecondPass", "second_pass", "residual_sums", "ROW_ONLY_STAGES"]
 
@@ -182,6 +185,11 @@ class DrawnPoints:
         self.seen = start
         self.parts: list = []
 
+    def starting_at(self, start: int) -> "DrawnPoints":
+        """An empty collector of the same positions whose first point is at ``start``
+        (a later run of chunks, read elsewhere; its ``parts`` follow this one's)."""
+        return DrawnPoints(0, self.labels, self.base, start=start, positions=self.positions)
+
     def add(self, X, Y, rows, codes=None, x=None, y=None) -> None:
         """The next ``len(X)`` points (log x, log y, row numbers, group codes; natural
         ``x, y`` when at hand)."""
@@ -266,27 +274,9 @@ def _feed(acc: ResidualSums | None, between, part, cfg, base, label_index, group
         codes = codes[keep] if codes is not None else None
     if not x.size:
         return c.n_rows, 0
-    _add_rows(acc, between, c.labels, codes, to_log(x, base), to_log(y, base), rows,
-              label_index, grouped, drawn, x, y)
+    add_rows(acc, between, c.labels, codes, to_log(x, base), to_log(y, base), rows,
+             label_index, grouped, drawn, x, y)
     return c.n_rows, int(x.size)
-
-
-def _add_rows(acc: ResidualSums | None, between, labels, codes, X, Y, rows, label_index,
-              grouped: bool, drawn: DrawnPoints | None = None, x=None, y=None) -> None:
-    """Add a chunk's usable rows (log x, log y, chunk group codes, row numbers; ``x, y``
-    in natural units when at hand) to the sums and to the points drawn."""
-    if not X.size:
-        return
-    local = (label_index.get_indexer(pd.Index(labels).astype(str))[codes] if grouped
-             else None)
-    if drawn is not None:
-        drawn.add(X, Y, rows, local, x, y)
-    if acc is None:
-        return
-    acc.add(np.zeros(X.size, dtype=np.intp), X, Y, rows)          # the pooled set
-    if grouped:
-        acc.add(1 + local, X, Y, rows)
-        between.add(local, X, Y)
 
 
 def _feed_points(acc: ResidualSums, between, points: pd.DataFrame, label_index,
@@ -382,10 +372,8 @@ def residual_sums(cfg, gm, fits: pd.DataFrame, methods: list, base, checked: str
     kind = file_kind(path)
     columns = [d.x, d.y] + ([d.group] if d.group else [])
     sep = _sep(cfg)
-    if spill is not None and spill.usable:
-        for chunk in spill.chunks():
-            _add_rows(acc, between, chunk.labels, chunk.codes, chunk.X, chunk.Y, chunk.rows,
-                      label_index, grouped, drawn)
+    if spill is not None and spill.usable:   # in two halves on two cores (above a size)
+        acc, between = spill_sums(spill, params, between_params, label_index, grouped, drawn)
     elif cfg.engine == "dask":
         # Dask partitions are read and cleaned again: holding them (persist) would keep
         # every row in the workers' memory, which this road exists to avoid.

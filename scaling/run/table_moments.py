@@ -107,13 +107,26 @@ class RowSpill:
         self._chunks.append((labels, int(X.size), codes is not None, rows is not None,
                              int(first_row)))
 
-    def chunks(self):
-        """Yield the chunks written, in order, as :class:`SpilledChunk`."""
+    def chunk_sizes(self) -> list[int]:
+        """Rows of each chunk written, in order; the writing is finished first (its
+        buffer flushed), so a process forked after this reads every chunk written."""
         if not self.usable:
             raise RuntimeError("the row spill was closed")
         self._fh.close()
+        return [n for _, n, _, _, _ in self._chunks]
+
+    def chunks(self, start: int = 0, stop: int | None = None):
+        """Yield the chunks written, in order, as :class:`SpilledChunk`; those from
+        number ``start`` up to ``stop`` (excluded; None: the last) only, when given."""
+        if not self.usable:
+            raise RuntimeError("the row spill was closed")
+        self._fh.close()
+        # bytes a chunk takes: two float64 logs, int32 codes, int64 row numbers if any
+        sizes = [n * (16 + 4 * has_codes + 8 * has_rows)
+                 for _, n, has_codes, has_rows, _ in self._chunks[:start]]
         with open(self._path, "rb") as fh:
-            for labels, n, has_codes, has_rows, first in self._chunks:
+            fh.seek(sum(sizes))
+            for labels, n, has_codes, has_rows, first in self._chunks[start:stop]:
                 X = np.fromfile(fh, dtype=np.float64, count=n)
                 Y = np.fromfile(fh, dtype=np.float64, count=n)
                 codes = np.fromfile(fh, dtype=np.int32, count=n) if has_codes else None
