@@ -205,3 +205,60 @@ def test_a_line_the_early_checks_refused_is_skipped_as_the_stage_would(tmp_path,
     table = analyse(cfg).tables["diagnostics"]
     assert not (table["scope"] == "pooled").any() and (table["scope"] == "group").any()
     assert _no_children_left()
+
+
+def test_residuals_ranked_early_are_those_ranked_in_the_run(tmp_path, monkeypatch):
+    # internal consistency: the same function of the same line and points, in either process
+    from dataclasses import replace
+    from scaling.render.thinning import (PendingRanks, line_residual, rank_positions,
+                                         subset_index)
+    cfg = _table(tmp_path, n=6000)
+    res = analyse(cfg)
+    pts = res.data.points
+    fits = {k: v for k, v in res.line_fits.items() if k[0] == "pooled"}
+    keep = subset_index(len(pts), 5000)
+    monkeypatch.setattr(diag, "EARLY_FROM_POINTS", 10)
+    early = diag.early_line_checks(cfg, fits, {("pooled", ""): pts}, rank_keep=keep)
+    ahead = diag.early_ranks(early, pts)
+    X, Y = pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float)
+    by_method = {k[2]: v for k, v in fits.items()}
+    for method, fit in by_method.items():
+        got = ahead(method, fit)
+        want = rank_positions(line_residual(fit, X, Y), keep)
+        for a, b in zip(got, want):
+            np.testing.assert_array_equal(a, b)
+    codes = np.arange(len(pts)) % 3
+    made_here = PendingRanks(by_method, X, Y, codes, keep).ranks()
+    taken = PendingRanks(by_method, X, Y, codes, keep, ahead=ahead).ranks()
+    for method in by_method:
+        np.testing.assert_array_equal(taken[method].values, made_here[method].values)
+        np.testing.assert_array_equal(taken[method].codes, made_here[method].codes)
+        assert taken[method].quartiles == made_here[method].quartiles
+        assert taken[method].largest == made_here[method].largest
+    # another line, or other points: ranked in the run
+    fit = by_method["sma"]
+    assert ahead("sma", replace(fit, intercept=fit.intercept + 1e-9)) is None
+    assert diag.early_ranks(early, pts.copy()) is None
+    for job in early.values():
+        job[1].stop()
+    assert _no_children_left()
+
+
+def test_a_written_run_draws_the_same_residual_figure_with_early_ranks(tmp_path,
+                                                                       monkeypatch):
+    from scaling.run.pipeline import run_config
+    cfg = _table(tmp_path, n=6000)
+    files = []
+    for start in (10, 10**9):   # early (ranked in a forked process) and in the run
+        monkeypatch.setattr(diag, "EARLY_FROM_POINTS", start)
+        out = tmp_path / f"out{start}"
+        run_config(replace_figures(cfg), out=out, quiet=True)
+        files.append((out / "figures" / "residuals.png").read_bytes())
+    assert files[0] == files[1]
+    assert _no_children_left()
+
+
+def replace_figures(cfg):
+    from dataclasses import replace
+    return replace(cfg, figures=replace(cfg.figures, formats=("png",), kinds=("residuals",),
+                                        dpi=40))

@@ -18,7 +18,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 __all__ = ["MAX_DRAWN_POINTS", "DRAWN_TABLE", "FIGURE_DIGEST", "subset_index",
-           "line_residual", "RankedResiduals", "rank_residuals", "small_codes", "PendingRanks",
+           "line_residual", "RankedResiduals", "rank_residuals", "rank_positions",
+           "ranked_with_codes", "small_codes", "PendingRanks",
            "RanksToFollow", "FigureDigest"]
 
 #: Scatter plots draw a seeded random subset of this many points above it (stated on the axes).
@@ -78,13 +79,27 @@ def rank_residuals(resid: np.ndarray, codes, keep: np.ndarray) -> RankedResidual
     """The residuals ``resid`` of all the points at the ranks ``keep`` (and the codes
     ``codes`` of their points), as the residual figure's normal-quantile panel draws them:
     ``numpy.argsort``, its quartiles by ``numpy.percentile`` of the sorted residuals."""
+    return ranked_with_codes(rank_positions(resid, keep), codes)
+
+
+def rank_positions(resid: np.ndarray, keep: np.ndarray) -> tuple:
+    """(the sorted residuals at the ranks ``keep``, the positions of their points, the
+    quartiles, the largest absolute residual): :func:`rank_residuals` without the
+    points' group codes, which :func:`ranked_with_codes` adds (so a process that has
+    the residuals but not the codes can rank them)."""
     order = np.argsort(resid)
     ranked = resid[order]
     q1, q3 = np.percentile(ranked, [25, 75])
-    return RankedResiduals(values=ranked[keep],
-                           codes=None if codes is None else small_codes(codes[order[keep]]),
-                           quartiles=(float(q1), float(q3)),
-                           largest=float(np.max(np.abs(resid))))
+    return ranked[keep], order[keep], (float(q1), float(q3)), float(np.max(np.abs(resid)))
+
+
+def ranked_with_codes(parts: tuple, codes) -> RankedResiduals:
+    """The :class:`RankedResiduals` of :func:`rank_positions`'s ``parts`` and the group
+    codes ``codes`` of all the points (None without groups)."""
+    values, positions, quartiles, largest = parts
+    return RankedResiduals(values=values,
+                           codes=None if codes is None else small_codes(codes[positions]),
+                           quartiles=quartiles, largest=largest)
 
 
 def small_codes(codes: np.ndarray) -> np.ndarray:
@@ -100,16 +115,26 @@ class PendingRanks:
 
     __slots__ = ("_inputs", "_ranks")
 
-    def __init__(self, fits: dict, X: np.ndarray, Y: np.ndarray, codes, keep: np.ndarray):
-        self._inputs = (fits, X, Y, codes, keep)
+    def __init__(self, fits: dict, X: np.ndarray, Y: np.ndarray, codes, keep: np.ndarray,
+                 ahead=None):
+        self._inputs = (fits, X, Y, codes, keep, ahead)
         self._ranks = None
 
     def ranks(self) -> dict:
-        """``method -> RankedResiduals`` (made once; the points are let go then)."""
+        """``method -> RankedResiduals`` (made once; the points are let go then).
+
+        ``ahead(method, fit)``, when given, is :func:`rank_positions` of that line made
+        elsewhere (a process started once the lines were fitted), or None: then it is
+        made here."""
         if self._ranks is None:
-            fits, X, Y, codes, keep = self._inputs
-            self._ranks = {method: rank_residuals(line_residual(fit, X, Y), codes, keep)
-                           for method, fit in fits.items()}
+            fits, X, Y, codes, keep, ahead = self._inputs
+            ranks = {}
+            for method, fit in fits.items():
+                parts = None if ahead is None else ahead(method, fit)
+                if parts is None:
+                    parts = rank_positions(line_residual(fit, X, Y), keep)
+                ranks[method] = ranked_with_codes(parts, codes)
+            self._ranks = ranks
             self._inputs = None
         return self._ranks
 

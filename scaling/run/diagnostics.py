@@ -33,6 +33,7 @@ from ..stats.schema import (CURVATURE_COLUMNS, DIAGNOSTIC_COLUMNS, ERROR_STRUCTU
 from ..render.findings import check_verdict, diagnostics_messages
 from ..render.headline import answer_line
 from ..render.prediction_words import answer_primary
+from ..render.thinning import line_residual, rank_positions
 from .background import Background
 from .fits import known_moments, set_columns
 from .moments_path import bounded_diagnostics
@@ -41,7 +42,7 @@ from .points_to_check import coded_points, in_groups
 from .predictions import CHUNK_ROWS, chunk_runs
 
 __all__ = ["exponent_targets", "DiagnosticsStage", "diagnostics_stage", "early_checks",
-           "early_line_checks"]
+           "early_line_checks", "early_ranks"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -84,15 +85,19 @@ def early_checks(cfg, points: pd.DataFrame | None) -> dict:
     return {("pooled", ""): (points, Background(_error_structure, x, y))}
 
 
-def early_line_checks(cfg, line_fits: dict, point_sets: dict) -> dict:
-    """``{("lines", "pooled", ""): (points, Background, fits, {})}``: the checks of the pooled
+def early_line_checks(cfg, line_fits: dict, point_sets: dict, *, rank_keep=None) -> dict:
+    """``{("lines", "pooled", ""): (points, Background, fits, {})}`` (and ``("ranks",
+    "pooled", "")`` with ``rank_keep``): the checks of the pooled
     lines (:func:`~scaling.stats.residual_checks.diagnose`: normality, constant
     variance, curvature, Cook's distances over every point), started in a forked
     process as soon as the lines are fitted, on a large table whose diagnostics will
     ask for them; ``{}`` otherwise.  They run on the core the run leaves idle while it
     compares groups and predicts, and the run's process never holds their per-point
     arrays.  :func:`diagnostics_stage` takes each answer whose line and points are the
-    very ones it checks."""
+    very ones it checks.  ``rank_keep`` (the ranks the residual figure draws,
+    :func:`~scaling.render.thinning.subset_index`): a second process ranks each line's
+    residuals for that figure (:func:`~scaling.render.thinning.rank_positions`;
+    :func:`early_ranks` hands them on)."""
     dc = cfg.diagnostics
     sel = point_sets.get(("pooled", ""))
     if not dc.enabled or sel is None or len(sel) < EARLY_FROM_POINTS:
@@ -105,8 +110,20 @@ def early_line_checks(cfg, line_fits: dict, point_sets: dict) -> dict:
     rows = set_columns(sel, "row")[0]
     m = known_moments(sel)
     exact = None if m is None else bool(exact_fit(m))
-    job = Background(_check_lines, fits, X, Y, rows, exponent_targets(cfg), dc.alpha, exact)
-    return {("lines", "pooled", ""): (sel, job, fits, {})}
+    out = {}
+    if rank_keep is not None:   # first: the figures ask for them first
+        out[("ranks", "pooled", "")] = (sel, Background(_rank_lines, fits, X, Y, rank_keep),
+                                        fits, {})
+    out[("lines", "pooled", "")] = (sel, Background(_check_lines, fits, X, Y, rows,
+                                                    exponent_targets(cfg), dc.alpha, exact),
+                                    fits, {})
+    return out
+
+
+def _rank_lines(fits: dict, X, Y, keep) -> dict:
+    """``method -> rank_positions`` of the residuals of each of ``fits`` at ``keep``."""
+    return {method: rank_positions(line_residual(fit, X, Y), keep)
+            for method, fit in fits.items()}
 
 
 def _check_lines(fits: dict, X, Y, rows, targets: tuple, alpha: float, exact) -> dict:
@@ -128,6 +145,31 @@ def _check_lines(fits: dict, X, Y, rows, targets: tuple, alpha: float, exact) ->
     return out
 
 
+def early_ranks(early: dict, points):
+    """``ahead(method, fit)`` for :class:`~scaling.render.thinning.PendingRanks`: the ranks
+    :func:`early_line_checks` made of this very line through ``points`` (the run's
+    points, in their order), else None; None when none were started."""
+    started = early.get(("ranks", "pooled", ""))
+    if started is None or started[0] is not points:
+        return None
+
+    def ahead(method: str, fit):
+        was = started[2].get(method)
+        if was is None or (was.slope, was.intercept, was.n) != (fit.slope, fit.intercept,
+                                                                fit.n):
+            return None
+        return _early_answer(started).get(method)
+    return ahead
+
+
+def _early_answer(started) -> dict:
+    """The answer of an :func:`early_line_checks` process, read once."""
+    box = started[3]
+    if "answer" not in box:
+        box["answer"] = started[1].result()
+    return box["answer"]
+
+
 def _early_line(early: dict, scope: str, group: str, method: str, fit, sel, rows):
     """The Diagnostics :func:`early_line_checks` made of this very line through these very
     points (its row numbers ``rows`` put back), or None; raises the ScalingError that
@@ -138,10 +180,7 @@ def _early_line(early: dict, scope: str, group: str, method: str, fit, sel, rows
     was = started[2].get(method)
     if was is None or (was.slope, was.intercept, was.n) != (fit.slope, fit.intercept, fit.n):
         return None
-    box = started[3]   # the answer, read once
-    if "answer" not in box:
-        box["answer"] = started[1].result()
-    answer = box["answer"].get(method)
+    answer = _early_answer(started).get(method)
     if isinstance(answer, ScalingError):
         raise answer
     return None if answer is None else replace(answer, rows=rows)

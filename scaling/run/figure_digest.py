@@ -32,7 +32,7 @@ from .fits import known_group_codes
 __all__ = ["figure_result", "figure_digest_of"]
 
 
-def figure_result(result):
+def figure_result(result, ahead=None):
     """``result`` cut to what its figures read (:func:`~scaling.render.figure_worker.figure_view`),
     and above :data:`~scaling.render.thinning.MAX_DRAWN_POINTS` points holding the points
     drawn and the :class:`~scaling.render.thinning.FigureDigest` of all of them in place
@@ -40,7 +40,8 @@ def figure_result(result):
 
     Up to that many points, on a run of several predictors, a large-data run, or a run
     that draws nothing, the cut alone (its figures read the points as ever).  Should the
-    digest fail to be made, the figures get the points.
+    digest fail to be made, the figures get the points.  ``ahead``: see
+    :class:`~scaling.render.thinning.PendingRanks` (the residuals ranked elsewhere).
     """
     view = figure_view(result)
     pts = result.data.points
@@ -48,14 +49,14 @@ def figure_result(result):
             or "large_data" in (result.manifest or {}) or not anything_to_draw(result)):
         return view
     try:
-        drawn, digest = figure_digest_of(result)
+        drawn, digest = figure_digest_of(result, ahead)
     except Exception:  # noqa: BLE001 -- the figures then read every point, as they can
         return view
     return replace(view, data=replace(view.data, points=pts.iloc[:0]),
                    tables={**view.tables, DRAWN_TABLE: drawn, FIGURE_DIGEST: digest})
 
 
-def figure_digest_of(result) -> tuple:
+def figure_digest_of(result, ahead=None) -> tuple:
     """(the points drawn, :class:`~scaling.render.thinning.FigureDigest`) of the points of
     ``result`` (more than :data:`~scaling.render.thinning.MAX_DRAWN_POINTS`).
 
@@ -84,7 +85,7 @@ def figure_digest_of(result) -> tuple:
         residuals = PendingRanks(
             {method: fit for method, fit in fits.items() if fit is not None},
             pts["log_x"].to_numpy(float), pts["log_y"].to_numpy(float),
-            None if codes is None else small_codes(codes), keep)
+            None if codes is None else small_codes(codes), keep, ahead=ahead)
     digest = FigureDigest(
         n=n, groups=tuple(names), x_range=(float(x.min()), float(x.max())),
         sizes=(np.zeros(0, dtype=np.int64) if codes is None

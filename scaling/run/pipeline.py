@@ -33,6 +33,7 @@ from ..io.output import check_out_dir, manifest_header, results_document  # noqa
 from ..io.fast_csv import settle_reads
 from ..io.tables import CleanData
 from ..render.figure_worker import start_figures, start_worker
+from ..render.thinning import MAX_DRAWN_POINTS, subset_index
 from ..render.report import prepare_report, write_report
 from ..render.wording import CAUTION  # noqa: F401 (alias)
 from ..stats._display import frame_html, short_repr
@@ -40,7 +41,8 @@ from ..stats.schema import (BOOTSTRAP_COLUMNS, CURVATURE_COLUMNS, DIAGNOSTIC_COL
                             DROPPED_COLUMNS, ERROR_STRUCTURE_COLUMNS, FIT_COLUMNS,
                             INFLUENCE_COLUMNS, INVERSE_COLUMNS, PREDICTION_COLUMNS,
                             SLOPE_TEST_COLUMNS)
-from .diagnostics import diagnostics_stage, early_checks, early_line_checks, exponent_targets
+from .diagnostics import (diagnostics_stage, early_checks, early_line_checks, early_ranks,
+                          exponent_targets)
 from .figure_digest import figure_result
 from .fits import fit_stage, fits_table_stage
 from .groups import group_stage
@@ -189,8 +191,10 @@ def _one_predictor(cfg, state: RunState, read, early: dict, figure_inputs) -> Ru
     fitted = fit_stage(cfg, state)
     state = replace(state, rows=fitted.rows, line_fits=fitted.line_fits,
                     point_sets=fitted.point_sets)
-    # the pooled lines' checks, on the idle core while groups are compared (large tables)
-    early.update(early_line_checks(cfg, state.line_fits, state.point_sets))
+    # the pooled lines' checks (and the residual figure's ranks), on the idle core while
+    # groups are compared (large tables)
+    early.update(early_line_checks(cfg, state.line_fits, state.point_sets,
+                                   rank_keep=_rank_keep(cfg, state, figure_inputs)))
     grouped = group_stage(cfg, state) if read.data.has_groups else None
     if grouped is not None:
         state = replace(state, rows=state.rows + grouped.rows, test_rows=grouped.test_rows,
@@ -226,7 +230,8 @@ def _one_predictor(cfg, state: RunState, read, early: dict, figure_inputs) -> Ru
         figure_inputs(figure_result(RunResult(
             config=cfg, data=state.data, fits=state.fits, slope_tests=state.slope_tests,
             dropped=state.data.dropped, line_fits=state.line_fits,
-            saved_fits=state.saved_fits, tables={**state.tables, **spread.tables})))
+            saved_fits=state.saved_fits, tables={**state.tables, **spread.tables}),
+            ahead=early_ranks(early, state.data.points)))
     checked = check_run(cfg, state)   # before the diagnostics, whose words read it
     diagnosed = (diagnostics_stage(cfg, replace(state, tables={
         **state.tables, "points_to_check": checked.table}), early=early)
@@ -265,6 +270,16 @@ def _one_predictor(cfg, state: RunState, read, early: dict, figure_inputs) -> Ru
                      line_fits=state.line_fits, tables={**state.tables, **spread.tables},
                      messages=messages, warnings=notes, manifest=manifest,
                      saved_fits=state.saved_fits)
+
+
+def _rank_keep(cfg, state: RunState, figure_inputs):
+    """The ranks the residual figure draws of the run's points (above
+    :data:`~scaling.render.thinning.MAX_DRAWN_POINTS` points, when the figures are
+    handed over and draw it), else None."""
+    n = len(state.data.points)
+    if figure_inputs is None or "residuals" not in cfg.figures.kinds:
+        return None
+    return subset_index(n, MAX_DRAWN_POINTS)
 
 
 def _handed(result: RunResult, figure_inputs) -> RunResult:
