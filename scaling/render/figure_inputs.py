@@ -19,7 +19,7 @@ from ..stats.lines import parse_log_base
 from ..stats.line_results import ConfidenceInterval
 from .figure_style import group_digits, scatter_coded, thinned_index
 from .thinning import (DRAWN_TABLE, FIGURE_DIGEST, GROUP_LINES_MAX, FigureDigest,
-                       group_line_slopes, groups_spread_over_slopes)
+                       drawn_line_slopes, groups_spread_over_slopes)
 from .headline import primary_method
 from .wording import unit_text
 
@@ -253,9 +253,7 @@ def shown_groups(result, groups: list | None = None) -> list:
 
 
 def _shown_groups(result, groups: list) -> list:
-    methods = list(result.config.model.methods)
-    method = drawn_primary(methods, result) if methods else None
-    return groups_spread_over_slopes(groups, group_line_slopes(result.line_fits, method))
+    return groups_spread_over_slopes(groups, drawn_line_slopes(result))
 
 
 def scatter_shown_groups(ax, pts, groups: list, shown: list, **kwargs) -> None:

@@ -49,9 +49,8 @@ import numpy as np
 
 from ..errors import FigureWarning
 from .figure_kinds import FIGURES
-from .headline import primary_method
 from .thinning import (DRAWN_TABLE, FIGURE_DIGEST, GROUP_LINES_MAX, PendingRanks,
-                       RanksToFollow, group_line_slopes, groups_spread_over_slopes)
+                       RanksToFollow, drawn_line_slopes, groups_spread_over_slopes)
 
 __all__ = ["Drawing", "FigureWorker", "start_worker", "start_figures", "draw_figures",
            "figure_view", "anything_to_draw", "one_process", "report_png", "REPORT_PNGS",
@@ -113,12 +112,7 @@ def _drawn_groups_only(result) -> tuple:
     objects (the spread across groups reads the fits table), and ten thousand of them
     cost the run a second to send and the figures one to receive."""
     line_fits, saved = result.line_fits or {}, result.saved_fits or {}
-    methods = list(result.config.model.methods)
-    if not methods or not line_fits:
-        return line_fits, saved
-    chosen = primary_method(methods, getattr(result.config.model, "primary", None))
-    method = chosen if chosen in methods else ("sma" if "sma" in methods else methods[0])
-    slopes = group_line_slopes(line_fits, method)
+    slopes = drawn_line_slopes(result)
     if len(slopes) <= GROUP_LINES_MAX:
         return line_fits, saved
     keep = set(groups_spread_over_slopes(sorted(slopes), slopes))

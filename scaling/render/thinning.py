@@ -218,6 +218,19 @@ def groups_spread_over_slopes(groups: list, slopes: dict) -> list:
     return [names[i] for i in np.sort(picks)]
 
 
+def drawn_line_slopes(result) -> dict:
+    """:func:`group_line_slopes` of the method whose group lines the figures draw: the
+    run's primary method (``model.primary``, else as
+    :func:`~scaling.render.headline.primary_method` picks), else SMA, else the first."""
+    from .headline import primary_method   # pandas, not matplotlib
+    methods = list(result.config.model.methods)
+    if not methods or not result.line_fits:
+        return {}
+    chosen = primary_method(methods, getattr(result.config.model, "primary", None))
+    method = chosen if chosen in methods else ("sma" if "sma" in methods else methods[0])
+    return group_line_slopes(result.line_fits, method)
+
+
 def group_line_slopes(line_fits: dict, method) -> dict:
     """``group -> slope`` of each group's own estimable ``method`` line with a finite
     slope (what :func:`groups_spread_over_slopes` ranks)."""

@@ -154,12 +154,16 @@ def early_ranks(early: dict, points):
         return None
 
     def ahead(method: str, fit):
-        was = started[2].get(method)
-        if was is None or (was.slope, was.intercept, was.n) != (fit.slope, fit.intercept,
-                                                                fit.n):
+        if not _same_line(started[2].get(method), fit):
             return None
         return _early_answer(started).get(method)
     return ahead
+
+
+def _same_line(was, fit) -> bool:
+    """Whether the line an early process was given is ``fit`` (slope, intercept, n)."""
+    return was is not None and (was.slope, was.intercept, was.n) == (fit.slope,
+                                                                      fit.intercept, fit.n)
 
 
 def _early_answer(started) -> dict:
@@ -177,8 +181,7 @@ def _early_line(early: dict, scope: str, group: str, method: str, fit, sel, rows
     started = early.get(("lines", scope, group))
     if started is None or started[0] is not sel or fit is None:
         return None
-    was = started[2].get(method)
-    if was is None or (was.slope, was.intercept, was.n) != (fit.slope, fit.intercept, fit.n):
+    if not _same_line(started[2].get(method), fit):
         return None
     answer = _early_answer(started).get(method)
     if isinstance(answer, ScalingError):
